@@ -1,0 +1,72 @@
+//! Throughput of the bootstrap across all cores: at least one million 8-tenor curves over
+//! distinct trade dates and spread levels, curves per second and peak resident memory.
+//!
+//! Run: `cargo bench --bench throughput` (set HAZARDLINE_BENCH_CURVES to change the count).
+
+use chrono::NaiveDate;
+use hazardline::calibrate::{bootstrap, BootstrapQuote, BootstrapSettings};
+use hazardline::curves::DiscountCurve;
+use hazardline::instruments::CdsQuote;
+use hazardline::time::{add_days, Calendar, Tenor};
+use rayon::prelude::*;
+use std::time::Instant;
+
+fn peak_rss_mib() -> Option<f64> {
+    let s = std::fs::read_to_string("/proc/self/status").ok()?;
+    let line = s.lines().find(|l| l.starts_with("VmHWM:"))?;
+    let kib: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kib / 1024.0)
+}
+
+fn main() {
+    // `cargo bench` passes --bench; ignore arguments.
+    let n: usize = std::env::var("HAZARDLINE_BENCH_CURVES").ok().and_then(|v| v.parse().ok()).unwrap_or(1_000_000);
+    let cal = Calendar::weekends_only();
+    let settings = BootstrapSettings::default();
+    let zeros = [("1M", 0.031), ("3M", 0.0316), ("6M", 0.0322), ("1Y", 0.0331), ("2Y", 0.0342), ("3Y", 0.0351), ("5Y", 0.0364), ("7Y", 0.0373), ("10Y", 0.0383), ("30Y", 0.041)];
+    let pillars: Vec<(Tenor, f64)> = zeros.iter().map(|&(t, z)| (t.parse().unwrap(), z)).collect();
+    // 2,500 business days (about ten years), one discount curve each.
+    let start = NaiveDate::from_ymd_opt(2015, 1, 2).unwrap();
+    let mut dates = Vec::new();
+    let mut d = start;
+    while dates.len() < 2500 {
+        if cal.is_business_day(d) {
+            dates.push(d);
+        }
+        d = add_days(d, 1);
+    }
+    let curves: Vec<DiscountCurve> = dates.iter().map(|&t| DiscountCurve::from_zero_rates(t, &pillars).unwrap()).collect();
+    let tenors: Vec<Tenor> = ["6M", "1Y", "2Y", "3Y", "4Y", "5Y", "7Y", "10Y"].iter().map(|t| t.parse().unwrap()).collect();
+    let base = [45.0, 55.0, 75.0, 95.0, 110.0, 125.0, 140.0, 150.0];
+
+    let started = Instant::now();
+    let cpu0 = cpu_seconds();
+    let ok: usize = (0..n)
+        .into_par_iter()
+        .map(|i| {
+            let k = i % dates.len();
+            let scale = 0.2 + (i / dates.len()) as f64 * 0.05 % 20.0;
+            let quotes: Vec<BootstrapQuote> = tenors
+                .iter()
+                .zip(base)
+                .map(|(&t, bp)| BootstrapQuote { tenor: t, quote: CdsQuote::ParSpread(bp * scale / 1e4), recovery: 0.4 })
+                .collect();
+            let f = bootstrap(dates[k], &quotes, &curves[k], &cal, &settings).unwrap();
+            usize::from(f.complete())
+        })
+        .sum();
+    let wall = started.elapsed().as_secs_f64();
+    let cpu = cpu_seconds() - cpu0;
+    println!("curves: {n} ({ok} complete), threads: {}", rayon::current_num_threads());
+    println!("wall: {wall:.3} s, cpu: {cpu:.3} s, curves per second: {:.0}", n as f64 / wall);
+    println!("peak resident memory: {:.1} MiB", peak_rss_mib().unwrap_or(f64::NAN));
+}
+
+fn cpu_seconds() -> f64 {
+    // utime + stime of this process from /proc/self/stat, in clock ticks (100 per second).
+    let s = std::fs::read_to_string("/proc/self/stat").unwrap_or_default();
+    let after = s.rsplit(')').next().unwrap_or("");
+    let f: Vec<&str> = after.split_whitespace().collect();
+    let ticks = |i: usize| f.get(i).and_then(|v| v.parse::<f64>().ok()).unwrap_or(0.0);
+    (ticks(11) + ticks(12)) / 100.0
+}

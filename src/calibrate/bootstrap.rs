@@ -1,0 +1,392 @@
+//! Sequential bootstrap of a piecewise-flat hazard curve from standard-contract CDS quotes.
+//!
+//! Quotes are taken in maturity order; segment k of the curve ends at adjust(maturity_k) + 1
+//! day. For each new segment one safeguarded Newton root-find on its hazard makes the
+//! repriced quote equal to the market's. The legs are split once per contract into the part
+//! that only depends on earlier, already solved segments (summed once, in plain f64) and the
+//! part that depends on the new hazard (re-evaluated with dual numbers each iteration), so
+//! earlier segments are never re-integrated.
+//!
+//! A quote that would need a negative hazard is infeasible: by the settings the segment is
+//! floored at zero (its residual then shows the misfit) or the curve fails. A quote that no
+//! hazard up to the search limit can reach stops the curve at that tenor. Nothing is capped
+//! silently.
+
+use crate::curves::{year_time, DiscountCurve, HazardCurve};
+use crate::instruments::cds::{evaluate_terms, AccrualIntegration, CdsContract, CdsQuote, LegPlan};
+use crate::math::{newton_bracketed, Dual, RootError, Scalar};
+use crate::time::imm::MaturityError;
+use crate::time::{add_days, Calendar, Tenor};
+use chrono::NaiveDate;
+
+/// What to do with a quote that would need a negative hazard.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum InfeasiblePolicy {
+    /// Set the segment's hazard to zero, mark the node `floored`, carry on.
+    #[default]
+    Floor,
+    /// Stop: the whole curve is marked failed.
+    Fail,
+}
+
+/// Bootstrap settings (all recorded in the outputs' metadata by the caller).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct BootstrapSettings {
+    pub accrual: AccrualIntegration,
+    pub infeasible: InfeasiblePolicy,
+    /// Absolute tolerance on each segment's hazard (per year).
+    pub hazard_tolerance: f64,
+    pub max_iterations: u32,
+    /// Upper end of the root search (per year). Not a cap: a quote that needs more is reported.
+    pub max_hazard: f64,
+}
+
+impl Default for BootstrapSettings {
+    fn default() -> Self {
+        BootstrapSettings {
+            accrual: AccrualIntegration::Standard,
+            infeasible: InfeasiblePolicy::Floor,
+            hazard_tolerance: 1e-14,
+            max_iterations: 100,
+            max_hazard: 1.0e4,
+        }
+    }
+}
+
+/// One quote of a curve.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct BootstrapQuote {
+    pub tenor: Tenor,
+    pub quote: CdsQuote,
+    pub recovery: f64,
+}
+
+/// Status of one curve node.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum NodeStatus {
+    /// Solved; the quote reprices.
+    Ok,
+    /// Would need a negative hazard; floored at zero (the residual shows the misfit).
+    Floored,
+    /// This node's quote cannot be met (negative hazard under the fail policy, or above the
+    /// search limit).
+    Infeasible,
+    /// The root search did not converge.
+    Failed,
+    /// Solved, but a later node failed the curve under the fail policy.
+    CurveFailed,
+    /// Not reached: an earlier node stopped the curve.
+    NotCalibrated,
+}
+
+impl NodeStatus {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            NodeStatus::Ok => "ok",
+            NodeStatus::Floored => "floored",
+            NodeStatus::Infeasible => "infeasible",
+            NodeStatus::Failed => "failed",
+            NodeStatus::CurveFailed => "curve_failed",
+            NodeStatus::NotCalibrated => "not_calibrated",
+        }
+    }
+
+    /// True when the node's hazard is a usable calibration result.
+    pub fn usable(self) -> bool {
+        matches!(self, NodeStatus::Ok | NodeStatus::Floored)
+    }
+}
+
+/// The fit of one node, in the order of the input quotes.
+#[derive(Debug, Clone, PartialEq)]
+pub struct NodeFit {
+    /// Index of the quote in the input slice.
+    pub quote_index: usize,
+    pub tenor: Tenor,
+    /// Unadjusted contract maturity.
+    pub maturity: NaiveDate,
+    /// End of the hazard segment: adjust(maturity) + 1 day.
+    pub node_date: NaiveDate,
+    pub hazard: Option<f64>,
+    /// S(maturity).
+    pub survival: Option<f64>,
+    pub status: NodeStatus,
+    pub iterations: u32,
+    /// Why the node is not `ok`, naming target and achieved values.
+    pub detail: Option<String>,
+}
+
+/// A bootstrapped curve.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CurveFit {
+    pub trade_date: NaiveDate,
+    /// Nodes in maturity order.
+    pub nodes: Vec<NodeFit>,
+    /// The curve over the solved nodes, in maturity order (None when no node was solved).
+    /// Under the fail policy a failed curve still carries its solved part, for residuals;
+    /// `failed` says not to use it.
+    pub curve: Option<HazardCurve>,
+    /// True when the fail policy stopped the curve.
+    pub failed: bool,
+    /// The contracts, in the order of `nodes`.
+    pub contracts: Vec<CdsContract>,
+}
+
+impl CurveFit {
+    /// True when every node is usable.
+    pub fn complete(&self) -> bool {
+        self.nodes.iter().all(|n| n.status.usable())
+    }
+}
+
+/// Why a set of quotes cannot be bootstrapped at all (the caller turns these into rejects).
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum BootstrapError {
+    #[error("no quotes")]
+    NoQuotes,
+    #[error("quote {index}: {source}")]
+    Maturity { index: usize, source: MaturityError },
+    #[error("quotes {first} and {second} have the same maturity {maturity}")]
+    DuplicateMaturity { first: usize, second: usize, maturity: NaiveDate },
+    #[error("quote {index}: {what} {value} is not valid ({expected})")]
+    BadValue { index: usize, what: &'static str, value: f64, expected: &'static str },
+    #[error("discount curve is referenced on {discount}, not on the trade date {trade}")]
+    ReferenceDate { trade: NaiveDate, discount: NaiveDate },
+}
+
+fn check_quote(index: usize, q: &BootstrapQuote) -> Result<(), BootstrapError> {
+    let bad = |what, value, expected| Err(BootstrapError::BadValue { index, what, value, expected });
+    if !(q.recovery >= 0.0 && q.recovery < 1.0) {
+        return bad("recovery", q.recovery, "a fraction in [0, 1)");
+    }
+    match q.quote {
+        CdsQuote::ParSpread(s) if !(s > 0.0 && s.is_finite()) => bad("par spread", s, "a positive number"),
+        CdsQuote::Upfront { upfront, .. } if !(upfront.is_finite() && upfront < 1.0) => {
+            bad("upfront", upfront, "a finite fraction of notional below 1")
+        }
+        CdsQuote::Upfront { coupon, .. } if !(coupon.is_finite() && coupon >= 0.0) => {
+            bad("running coupon", coupon, "a non-negative number")
+        }
+        _ => Ok(()),
+    }
+}
+
+/// Bootstraps the hazard curve of one name on `trade` from `quotes` (any order).
+pub fn bootstrap(
+    trade: NaiveDate,
+    quotes: &[BootstrapQuote],
+    discount: &DiscountCurve,
+    cal: &Calendar,
+    settings: &BootstrapSettings,
+) -> Result<CurveFit, BootstrapError> {
+    if quotes.is_empty() {
+        return Err(BootstrapError::NoQuotes);
+    }
+    if discount.reference() != trade {
+        return Err(BootstrapError::ReferenceDate { trade, discount: discount.reference() });
+    }
+    let mut order: Vec<(usize, CdsContract)> = Vec::with_capacity(quotes.len());
+    for (i, q) in quotes.iter().enumerate() {
+        check_quote(i, q)?;
+        let c = CdsContract::standard(trade, q.tenor, cal).map_err(|source| BootstrapError::Maturity { index: i, source })?;
+        order.push((i, c));
+    }
+    order.sort_by_key(|(_, c)| c.maturity);
+    for w in order.windows(2) {
+        if w[0].1.maturity == w[1].1.maturity {
+            return Err(BootstrapError::DuplicateMaturity { first: w[0].0, second: w[1].0, maturity: w[0].1.maturity });
+        }
+    }
+    let node_dates: Vec<NaiveDate> = order.iter().map(|(_, c)| add_days(cal.following(c.maturity), 1)).collect();
+    let node_times: Vec<f64> = node_dates.iter().map(|&d| year_time(trade, d)).collect();
+    let refs: Vec<&CdsContract> = order.iter().map(|(_, c)| c).collect();
+    let plan = LegPlan::build(trade, &refs, discount, &node_times, settings.accrual);
+
+    let np = plan.times.len();
+    let mut log_q = vec![0.0f64; np];
+    let mut pq = vec![0.0f64; np];
+    // Points at t <= 0 have survival 1.
+    for j in 0..np {
+        if plan.times[j] <= 0.0 {
+            pq[j] = plan.log_dfs[j].exp();
+        }
+    }
+    let mut dual_lq = vec![Dual::constant(0.0); np];
+    let mut dual_pq = vec![Dual::constant(0.0); np];
+
+    let mut nodes: Vec<NodeFit> = Vec::with_capacity(order.len());
+    let mut hazards: Vec<f64> = Vec::with_capacity(order.len());
+    let (mut t_prev, mut l_prev) = (0.0f64, 0.0f64);
+    let mut stopped = false;
+    let mut curve_failed = false;
+
+    for (k, (qi, contract)) in order.iter().enumerate() {
+        let q = &quotes[*qi];
+        let mut fit = NodeFit {
+            quote_index: *qi,
+            tenor: q.tenor,
+            maturity: contract.maturity,
+            node_date: node_dates[k],
+            hazard: None,
+            survival: None,
+            status: NodeStatus::NotCalibrated,
+            iterations: 0,
+            detail: None,
+        };
+        if stopped {
+            nodes.push(fit);
+            continue;
+        }
+        let terms = &plan.contracts[k];
+        // Split into the part fixed by earlier segments and the part on the new segment.
+        let prot_from = terms
+            .prot
+            .windows(2)
+            .position(|w| plan.times[w[1] as usize] > t_prev)
+            .unwrap_or(terms.prot.len() - 1);
+        let coupon_from = terms
+            .coupons
+            .iter()
+            .position(|c| c.paid && plan.times[c.q_idx as usize] > t_prev)
+            .unwrap_or(terms.coupons.len());
+        let (fp, fm, fa) =
+            evaluate_terms(&plan, &terms.prot[..=prot_from], &terms.coupons[..coupon_from], &pq, &log_q);
+        let var_prot = &terms.prot[prot_from..];
+        let var_coupons = &terms.coupons[coupon_from..];
+        let first_point = var_coupons
+            .iter()
+            .filter(|c| c.paid)
+            .map(|c| plan.aod_path.get(c.aod_from as usize).copied().unwrap_or(c.q_idx).min(c.q_idx))
+            .chain(std::iter::once(var_prot[0]))
+            .min()
+            .unwrap_or(0) as usize;
+        let last_point = var_coupons
+            .iter()
+            .filter(|c| c.paid)
+            .map(|c| c.q_idx)
+            .chain(var_prot.iter().copied())
+            .max()
+            .unwrap_or(0) as usize;
+
+        let one_minus_r = 1.0 - q.recovery;
+        let rebate_pv = terms.rebate01 * terms.cash_settle_df;
+        let cs_df = terms.cash_settle_df;
+        let quote = q.quote;
+        let times = &plan.times;
+        let log_dfs = &plan.log_dfs;
+        let objective = |lambda: f64, dl: &mut [Dual], dpq: &mut [Dual]| -> (f64, f64) {
+            for j in first_point..=last_point {
+                let u = times[j] - t_prev;
+                let lq = if u > 0.0 { Dual::new(l_prev - lambda * u, -u) } else { Dual::constant(log_q[j]) };
+                dl[j] = lq;
+                dpq[j] = (lq + log_dfs[j]).exp();
+            }
+            let (p, m, a) = evaluate_terms(&plan, var_prot, var_coupons, dpq, dl);
+            let prot = (p + fp) * one_minus_r;
+            let ann = m + a + (fm + fa - rebate_pv);
+            let f = match quote {
+                CdsQuote::ParSpread(s) => prot - ann * s,
+                CdsQuote::Upfront { upfront, coupon } => prot - ann * coupon - upfront * cs_df,
+            };
+            (f.v, f.d)
+        };
+        let guess = match quote {
+            CdsQuote::ParSpread(s) => s / one_minus_r,
+            CdsQuote::Upfront { upfront, coupon } => (coupon + upfront / q.tenor.years().max(0.25)) / one_minus_r,
+        }
+        .clamp(1e-6, settings.max_hazard * 0.5);
+        let solved = newton_bracketed(
+            |x| objective(x, &mut dual_lq, &mut dual_pq),
+            guess,
+            0.0,
+            settings.max_hazard,
+            settings.hazard_tolerance,
+            settings.max_iterations,
+        );
+        let target = describe(quote);
+        let lambda = match solved {
+            Ok(r) => {
+                fit.iterations = r.iterations;
+                fit.status = NodeStatus::Ok;
+                Some(r.x)
+            }
+            Err(RootError::BelowLowerBound { f_lo, .. }) => {
+                let msg = format!(
+                    "{target} needs a negative hazard on the segment to {}: at zero hazard the contract is already worth {:.3e} per unit notional to the protection buyer",
+                    contract.maturity, f_lo
+                );
+                fit.detail = Some(msg);
+                match settings.infeasible {
+                    InfeasiblePolicy::Floor => {
+                        fit.status = NodeStatus::Floored;
+                        Some(0.0)
+                    }
+                    InfeasiblePolicy::Fail => {
+                        fit.status = NodeStatus::Infeasible;
+                        curve_failed = true;
+                        None
+                    }
+                }
+            }
+            Err(RootError::AboveUpperLimit { limit, f_at_limit }) => {
+                fit.status = NodeStatus::Infeasible;
+                fit.detail = Some(format!(
+                    "{target} is out of reach: even a hazard of {limit} per year on the segment to {} leaves the contract short by {:.3e} per unit notional",
+                    contract.maturity, -f_at_limit
+                ));
+                if settings.infeasible == InfeasiblePolicy::Fail {
+                    curve_failed = true;
+                }
+                None
+            }
+            Err(e) => {
+                fit.status = NodeStatus::Failed;
+                fit.detail = Some(format!("{target}: root search on the segment to {} failed: {e}", contract.maturity));
+                if settings.infeasible == InfeasiblePolicy::Fail {
+                    curve_failed = true;
+                }
+                None
+            }
+        };
+        match lambda {
+            Some(lam) => {
+                let t_k = node_times[k];
+                for j in 0..np {
+                    let t = plan.times[j];
+                    if t > t_prev && t <= t_k {
+                        log_q[j] = l_prev - lam * (t - t_prev);
+                        pq[j] = (log_q[j] + plan.log_dfs[j]).exp();
+                    }
+                }
+                fit.hazard = Some(lam);
+                fit.survival = Some((l_prev - lam * (terms.t_maturity - t_prev)).exp());
+                hazards.push(lam);
+                l_prev -= lam * (t_k - t_prev);
+                t_prev = t_k;
+            }
+            None => stopped = true,
+        }
+        nodes.push(fit);
+    }
+
+    if curve_failed {
+        for n in nodes.iter_mut().filter(|n| n.status.usable()) {
+            n.status = NodeStatus::CurveFailed;
+        }
+    }
+    let curve = if hazards.is_empty() {
+        None
+    } else {
+        Some(HazardCurve::new(trade, node_times[..hazards.len()].to_vec(), hazards).expect("increasing node times and finite hazards"))
+    };
+    Ok(CurveFit { trade_date: trade, nodes, curve, failed: curve_failed, contracts: order.into_iter().map(|(_, c)| c).collect() })
+}
+
+fn describe(q: CdsQuote) -> String {
+    match q {
+        CdsQuote::ParSpread(s) => format!("par spread {:.4} bp", s * 1e4),
+        CdsQuote::Upfront { upfront, coupon } => {
+            format!("upfront {:.6} with running coupon {:.2} bp", upfront, coupon * 1e4)
+        }
+    }
+}

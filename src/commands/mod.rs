@@ -1,0 +1,4 @@
+//! Stage entry points used by the command line. Each takes checked settings and returns a
+//! summary; `main.rs` only parses flags and prints.
+
+pub mod calibrate;

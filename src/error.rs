@@ -1,0 +1,38 @@
+//! The error type of the edges (files, tables, configuration). Messages name the place (file,
+//! 1-based row, column), the value found and what was expected, so a user can fix the input.
+//! The numerical core has its own small error enums; this one is for everything that stops a
+//! command with exit code 2.
+
+use std::path::PathBuf;
+
+/// A problem that stops a command.
+#[derive(Debug, thiserror::Error)]
+pub enum Error {
+    #[error("{path}: file or folder not found")]
+    NotFound { path: PathBuf },
+    #[error("{path}: no .csv or .parquet files in this folder")]
+    EmptyFolder { path: PathBuf },
+    #[error("{path}: the file type is not understood (expected .csv or .parquet)")]
+    UnknownFormat { path: PathBuf },
+    #[error("{path}: table `{table}` needs column `{column}`, which is missing; columns found: {found}")]
+    MissingColumn { path: PathBuf, table: &'static str, column: String, found: String },
+    #[error("{path}: column `{column}` of table `{table}` has type {found}, expected {expected}")]
+    ColumnType { path: PathBuf, table: &'static str, column: String, found: String, expected: &'static str },
+    #[error("{path}: could not be read as {format}: {message}")]
+    Read { path: PathBuf, format: &'static str, message: String },
+    #[error("{path}: could not be written: {message}")]
+    Write { path: PathBuf, message: String },
+    #[error("invalid argument {name}: {message}")]
+    Argument { name: &'static str, message: String },
+    #[error("{0}")]
+    Other(String),
+}
+
+impl Error {
+    /// The process exit code for this error: 2 for bad input or configuration.
+    pub fn exit_code(&self) -> i32 {
+        2
+    }
+}
+
+pub type Result<T> = std::result::Result<T, Error>;

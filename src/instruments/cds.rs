@@ -1,0 +1,400 @@
+//! The standard single-name CDS contract and its legs, priced the way the published standard
+//! model prices it: closed-form integration on the joint grid of discount and hazard nodes,
+//! accrual on default with forwards flat inside each coupon period (no half-day bias), and the
+//! series expansion when the exponent is tiny.
+//!
+//! Notation (per unit notional, trade date T = valuation date = the curves' reference date):
+//! P = discount factor, Q = survival, t = Act/365F years from T. On a sub-interval [t0, t1],
+//! f = ln P0 - ln P1, h = ln Q0 - ln Q1, x = f + h.
+//!
+//! * Protection: sum over node intervals from T to maturity of h/x (P0Q0 - P1Q1), times (1 - R).
+//! * Premium: each coupon paid after T + 1 pays c x accrual x P(pay) x Q(pay - 1 day).
+//! * Accrual on default: for each coupon whose accrual ends after T + 1, on the single interval
+//!   [max(start, T + 1) - 1 day, pay - 1 day] with t_s = t(start - 1 day):
+//!   (h/x) [ (t1 - t0)((P0Q0 - P1Q1)/x - P1Q1) + (t0 - t_s)(P0Q0 - P1Q1) ] x c x 365/360.
+//! * Accrual rebate: the first coupon's accrual from its start to T + 1, paid at cash
+//!   settlement (T + 3 business days) without survival.
+//!
+//! This module is pure: curves in, numbers out. The plan that maps a contract onto the
+//! node grid is built once and shared by the bootstrap, which evaluates it with dual numbers.
+
+use crate::curves::{year_time, DiscountCurve, HazardCurve};
+use crate::math::Scalar;
+use crate::time::imm::{cds_maturity, MaturityError};
+use crate::time::schedule::{cds_schedule, CouponPeriod};
+use crate::time::{add_days, Calendar, Tenor};
+use chrono::NaiveDate;
+
+/// Below this exponent the closed forms switch to their series expansion (the standard
+/// model's numerical fix).
+pub const SERIES_THRESHOLD: f64 = 1e-4;
+
+/// How accrual on default is integrated inside a coupon period.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum AccrualIntegration {
+    /// One interval per coupon period, forwards flat inside it (the standard model).
+    #[default]
+    Standard,
+    /// Split at every discount and hazard node inside the period (exact for the curves).
+    Exact,
+}
+
+/// How a CDS is quoted.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum CdsQuote {
+    /// Par spread as a decimal (100 bp = 0.01).
+    ParSpread(f64),
+    /// Clean upfront as a fraction of notional (positive when the protection buyer pays),
+    /// with the running coupon as a decimal.
+    Upfront { upfront: f64, coupon: f64 },
+}
+
+/// The terms of a standard CDS traded on `trade_date`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CdsContract {
+    pub trade_date: NaiveDate,
+    pub maturity: NaiveDate,
+    /// T + 1 calendar day.
+    pub protection_start: NaiveDate,
+    /// T + 3 business days.
+    pub cash_settlement: NaiveDate,
+    pub periods: Vec<CouponPeriod>,
+}
+
+impl CdsContract {
+    /// The standard contract of `tenor` traded on `trade_date` (semi-annual roll).
+    pub fn standard(trade_date: NaiveDate, tenor: Tenor, cal: &Calendar) -> Result<CdsContract, MaturityError> {
+        let maturity = cds_maturity(trade_date, tenor)?;
+        Ok(CdsContract::with_maturity(trade_date, maturity, cal))
+    }
+
+    /// A contract to a given (unadjusted IMM) maturity.
+    pub fn with_maturity(trade_date: NaiveDate, maturity: NaiveDate, cal: &Calendar) -> CdsContract {
+        CdsContract {
+            trade_date,
+            maturity,
+            protection_start: add_days(trade_date, 1),
+            cash_settlement: cal.add_business_days(trade_date, 3),
+            periods: cds_schedule(trade_date, maturity, cal),
+        }
+    }
+
+    /// Accrual fraction (days/360 per unit coupon) repaid to the buyer at settlement: from the
+    /// start of the first coupon paid after T + 1 to T + 1; zero when that accrual starts after T.
+    pub fn rebate_accrual(&self) -> f64 {
+        let first = self.periods.iter().find(|p| p.payment > self.protection_start);
+        match first {
+            Some(p) if p.accrual_start <= self.trade_date => {
+                (self.protection_start - p.accrual_start).num_days() as f64 / 360.0
+            }
+            _ => 0.0,
+        }
+    }
+}
+
+/// Leg values of one contract per unit notional at T, before any running coupon is applied.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CdsLegs {
+    /// (1 - R) x the default-density integral.
+    pub protection: f64,
+    /// Premium leg per unit running coupon (coupons paid, no accrual on default).
+    pub premium01: f64,
+    /// Accrual on default per unit running coupon.
+    pub accrual_on_default01: f64,
+    /// Accrual rebate per unit running coupon, undiscounted (paid at cash settlement).
+    pub rebate01: f64,
+    /// Discount factor to cash settlement.
+    pub cash_settle_df: f64,
+}
+
+impl CdsLegs {
+    /// Clean risky annuity at T: premium + accrual on default - rebate discounted to T.
+    pub fn risky_annuity(&self) -> f64 {
+        self.premium01 + self.accrual_on_default01 - self.rebate01 * self.cash_settle_df
+    }
+
+    /// Par spread (decimal): the running coupon that makes the clean upfront zero.
+    pub fn par_spread(&self) -> f64 {
+        self.protection / self.risky_annuity()
+    }
+
+    /// Clean upfront at cash settlement for running coupon `coupon` (decimal), positive when
+    /// the protection buyer pays.
+    pub fn upfront(&self, coupon: f64) -> f64 {
+        (self.protection - coupon * self.risky_annuity()) / self.cash_settle_df
+    }
+
+    /// Running coupon implied by an upfront: the inverse of [`CdsLegs::upfront`] in the coupon.
+    pub fn coupon_from_upfront(&self, upfront: f64) -> f64 {
+        (self.protection - upfront * self.cash_settle_df) / self.risky_annuity()
+    }
+
+    /// The quote this contract has under the curves it was priced on, in the form of `like`.
+    pub fn reprice(&self, like: CdsQuote) -> CdsQuote {
+        match like {
+            CdsQuote::ParSpread(_) => CdsQuote::ParSpread(self.par_spread()),
+            CdsQuote::Upfront { coupon, .. } => CdsQuote::Upfront { upfront: self.upfront(coupon), coupon },
+        }
+    }
+}
+
+/// One coupon's part of the premium and accrual-on-default legs on the grid.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct CouponTerm {
+    /// Accrual fraction per unit coupon.
+    pub accrual: f64,
+    /// P(pay) / P(pay - 1 day): turns P Q at the survival point into P(pay) Q(pay - 1).
+    pub pay_df_ratio: f64,
+    /// Grid point of pay - 1 day (survival for the premium, end of the accrual-on-default span).
+    pub q_idx: u32,
+    /// t(accrual start - 1 day).
+    pub t_s: f64,
+    /// Range into `aod_path` of the grid points the accrual-on-default integral runs over;
+    /// empty when the accrual ends on or before T + 1.
+    pub aod_from: u32,
+    pub aod_to: u32,
+    /// False for a coupon paid on or before T + 1 (contributes nothing).
+    pub paid: bool,
+}
+
+/// One contract mapped onto the grid.
+#[derive(Debug, Clone)]
+pub(crate) struct ContractTerms {
+    /// Consecutive protection node points; intervals are (prot[i], prot[i+1]).
+    pub prot: Vec<u32>,
+    pub coupons: Vec<CouponTerm>,
+    pub rebate01: f64,
+    pub cash_settle_df: f64,
+    /// Time of the maturity point.
+    pub t_maturity: f64,
+}
+
+/// The grid shared by a set of contracts on one trade date: point times and ln DF.
+#[derive(Debug, Clone)]
+pub(crate) struct LegPlan {
+    pub times: Vec<f64>,
+    pub log_dfs: Vec<f64>,
+    /// Flattened accrual-on-default paths (point indices).
+    pub aod_path: Vec<u32>,
+    pub contracts: Vec<ContractTerms>,
+}
+
+#[inline]
+fn point(times: &[f64], t: f64) -> u32 {
+    let i = times.partition_point(|&x| x < t);
+    debug_assert!(i < times.len() && times[i] == t, "grid point {t} missing");
+    i as u32
+}
+
+impl LegPlan {
+    /// Maps `contracts` (all traded on `trade`) onto the joint grid of the discount pillars and
+    /// the hazard node times `hazard_nodes`.
+    pub fn build(
+        trade: NaiveDate,
+        contracts: &[&CdsContract],
+        discount: &DiscountCurve,
+        hazard_nodes: &[f64],
+        mode: AccrualIntegration,
+    ) -> LegPlan {
+        let tt = |d: NaiveDate| year_time(trade, d);
+        // The grid reaches the last maturity or the last accrual-on-default end (pay - 1 day,
+        // after the maturity when it falls on a weekend), whichever is later.
+        let t_last = contracts
+            .iter()
+            .flat_map(|c| std::iter::once(tt(c.maturity)).chain(c.periods.last().map(|p| tt(add_days(p.payment, -1)))))
+            .fold(0.0, f64::max);
+        let t_eff = tt(add_days(trade, 1));
+
+        let node_times: Vec<f64> = {
+            let mut v: Vec<f64> = discount
+                .pillar_dates()
+                .iter()
+                .map(|&d| tt(d))
+                .chain(hazard_nodes.iter().copied())
+                .filter(|&t| t > t_eff && t <= t_last)
+                .collect();
+            v.sort_by(f64::total_cmp);
+            v.dedup();
+            v
+        };
+
+        let mut times: Vec<f64> = Vec::with_capacity(node_times.len() + 64);
+        times.push(0.0);
+        times.extend_from_slice(&node_times);
+        for c in contracts {
+            times.push(tt(c.maturity));
+            for p in &c.periods {
+                if p.payment > c.protection_start {
+                    times.push(tt(add_days(p.payment, -1)));
+                }
+                if p.accrual_end > c.protection_start {
+                    times.push(tt(add_days(p.accrual_start.max(c.protection_start), -1)));
+                }
+            }
+        }
+        times.sort_by(f64::total_cmp);
+        times.dedup();
+        let log_dfs: Vec<f64> = times.iter().map(|&t| discount.log_df_at(t)).collect();
+
+        let mut aod_path: Vec<u32> = Vec::new();
+        let mut out = Vec::with_capacity(contracts.len());
+        for c in contracts {
+            let t_mat = tt(c.maturity);
+            let mut prot = Vec::with_capacity(node_times.len() + 2);
+            prot.push(0u32);
+            for &t in node_times.iter().filter(|&&t| t < t_mat) {
+                prot.push(point(&times, t));
+            }
+            prot.push(point(&times, t_mat));
+
+            let mut coupons = Vec::with_capacity(c.periods.len());
+            for p in &c.periods {
+                let paid = p.payment > c.protection_start;
+                let pay_m1 = add_days(p.payment, -1);
+                let q_idx = if paid { point(&times, tt(pay_m1)) } else { 0 };
+                let pay_df_ratio = if paid {
+                    (discount.log_df_at(tt(p.payment)) - log_dfs[q_idx as usize]).exp()
+                } else {
+                    0.0
+                };
+                let from = aod_path.len() as u32;
+                if p.accrual_end > c.protection_start && paid {
+                    let t0 = tt(add_days(p.accrual_start.max(c.protection_start), -1));
+                    let t1 = tt(pay_m1);
+                    aod_path.push(point(&times, t0));
+                    if mode == AccrualIntegration::Exact {
+                        for &t in node_times.iter().filter(|&&t| t > t0 && t < t1) {
+                            aod_path.push(point(&times, t));
+                        }
+                    }
+                    aod_path.push(q_idx);
+                }
+                coupons.push(CouponTerm {
+                    accrual: p.accrual_fraction(),
+                    pay_df_ratio,
+                    q_idx,
+                    t_s: tt(add_days(p.accrual_start, -1)),
+                    aod_from: from,
+                    aod_to: aod_path.len() as u32,
+                    paid,
+                });
+            }
+            out.push(ContractTerms {
+                prot,
+                coupons,
+                rebate01: c.rebate_accrual(),
+                cash_settle_df: discount.df(c.cash_settlement),
+                t_maturity: t_mat,
+            });
+        }
+        LegPlan { times, log_dfs, aod_path, contracts: out }
+    }
+}
+
+/// The protection integral term of one interval (without 1 - R), given P Q at both ends.
+#[inline]
+pub(crate) fn protection_term<S: Scalar>(a0: S, a1: S, f: f64, h: S) -> S {
+    let x = h + f;
+    if x.value() < SERIES_THRESHOLD {
+        a0 * h * (((((x * (1.0 / 120.0)) - 1.0 / 24.0) * x + 1.0 / 6.0) * x - 0.5) * x + 1.0)
+    } else {
+        h / x * (a0 - a1)
+    }
+}
+
+/// The accrual-on-default term of one interval (per unit coupon, before the 365/360 factor).
+#[inline]
+pub(crate) fn accrual_term<S: Scalar>(a0: S, a1: S, f: f64, h: S, t0: f64, t1: f64, t_s: f64) -> S {
+    let x = h + f;
+    let (dt, lead) = (t1 - t0, t0 - t_s);
+    if x.value() < SERIES_THRESHOLD {
+        let s1 = (((x * (-1.0 / 24.0)) + 1.0 / 6.0) * x - 0.5) * x + 1.0;
+        let s2 = (((x * (-1.0 / 30.0)) + 1.0 / 8.0) * x - 1.0 / 3.0) * x + 0.5;
+        h * a0 * (s1 * lead + s2 * dt)
+    } else {
+        let diff = a0 - a1;
+        h / x * ((diff / x - a1) * dt + diff * lead)
+    }
+}
+
+/// Protection (without 1 - R), premium01 and accrual-on-default01 of the protection nodes
+/// `prot` (consecutive points, intervals between neighbours) and the coupons `coupons`, with
+/// P Q and ln Q supplied per grid point.
+#[inline]
+pub(crate) fn evaluate_terms<S: Scalar>(
+    plan: &LegPlan,
+    prot: &[u32],
+    coupons: &[CouponTerm],
+    pq: &[S],
+    log_q: &[S],
+) -> (S, S, S) {
+    let zero = S::constant(0.0);
+    let mut prot_sum = zero;
+    for w in prot.windows(2) {
+        let (i0, i1) = (w[0] as usize, w[1] as usize);
+        let f = plan.log_dfs[i0] - plan.log_dfs[i1];
+        let h = log_q[i0] - log_q[i1];
+        prot_sum = prot_sum + protection_term(pq[i0], pq[i1], f, h);
+    }
+    let mut prem = zero;
+    let mut aod = zero;
+    for c in coupons {
+        if !c.paid {
+            continue;
+        }
+        prem = prem + pq[c.q_idx as usize] * (c.accrual * c.pay_df_ratio);
+        let path = &plan.aod_path[c.aod_from as usize..c.aod_to as usize];
+        let mut acc = zero;
+        for w in path.windows(2) {
+            let (i0, i1) = (w[0] as usize, w[1] as usize);
+            let f = plan.log_dfs[i0] - plan.log_dfs[i1];
+            let h = log_q[i0] - log_q[i1];
+            acc = acc + accrual_term(pq[i0], pq[i1], f, h, plan.times[i0], plan.times[i1], c.t_s);
+        }
+        aod = aod + acc * c.accrual_factor();
+    }
+    (prot_sum, prem, aod)
+}
+
+impl CouponTerm {
+    /// 365/360 turns the Act/365F time integral into Act/360 accrual.
+    #[inline]
+    pub(crate) fn accrual_factor(&self) -> f64 {
+        365.0 / 360.0
+    }
+}
+
+/// The curves handed to [`price_legs`] are not referenced on the trade date.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("curves must be referenced on the trade date {trade}: discount curve is on {discount}, hazard curve on {hazard}")]
+pub struct ReferenceDateMismatch {
+    pub trade: NaiveDate,
+    pub discount: NaiveDate,
+    pub hazard: NaiveDate,
+}
+
+/// Prices the legs of `contract` on curves referenced on its trade date.
+pub fn price_legs(
+    contract: &CdsContract,
+    recovery: f64,
+    discount: &DiscountCurve,
+    hazard: &HazardCurve,
+    mode: AccrualIntegration,
+) -> Result<CdsLegs, ReferenceDateMismatch> {
+    let trade = contract.trade_date;
+    if discount.reference() != trade || hazard.reference() != trade {
+        return Err(ReferenceDateMismatch { trade, discount: discount.reference(), hazard: hazard.reference() });
+    }
+    let plan = LegPlan::build(trade, &[contract], discount, hazard.node_times(), mode);
+    let log_q: Vec<f64> = plan.times.iter().map(|&t| hazard.log_survival_at(t)).collect();
+    let pq: Vec<f64> = plan.log_dfs.iter().zip(&log_q).map(|(p, q)| (p + q).exp()).collect();
+    let terms = &plan.contracts[0];
+    let (prot, prem, aod) = evaluate_terms(&plan, &terms.prot, &terms.coupons, &pq, &log_q);
+    Ok(CdsLegs {
+        protection: (1.0 - recovery) * prot,
+        premium01: prem,
+        accrual_on_default01: aod,
+        rebate01: terms.rebate01,
+        cash_settle_df: terms.cash_settle_df,
+    })
+}

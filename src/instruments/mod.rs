@@ -1,0 +1,5 @@
+//! Instruments: terms of a contract and the formulas that price them on given curves.
+
+pub mod cds;
+
+pub use cds::{AccrualIntegration, CdsContract, CdsLegs, CdsQuote};

@@ -1,0 +1,4 @@
+//! Writers: Parquet tables (explicit schemas, dates as Parquet dates, atomic rename).
+
+pub mod parquet;
+pub mod tables;

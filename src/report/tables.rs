@@ -1,0 +1,99 @@
+//! The output tables of DESIGN section 9 that exist so far, as plain records and their
+//! Parquet schemas. Column names and types here are a contract with every consumer.
+
+use super::parquet::{write_parquet, TableBuilder};
+use crate::error::Result;
+use crate::ingest::Reject;
+use chrono::NaiveDate;
+use std::path::Path;
+
+/// One node of a calibrated hazard curve.
+#[derive(Debug, Clone, PartialEq)]
+pub struct HazardCurveRow {
+    pub date: NaiveDate,
+    pub entity: String,
+    pub currency: String,
+    /// `cds` or `bond`.
+    pub source: &'static str,
+    pub tenor: String,
+    /// Unadjusted contract maturity.
+    pub maturity: NaiveDate,
+    /// End of the flat segment (adjusted maturity + 1 day).
+    pub node_date: NaiveDate,
+    /// Flat hazard of the segment ending at this node, per year (Act/365F).
+    pub hazard: Option<f64>,
+    /// S(maturity).
+    pub survival: Option<f64>,
+    pub status: &'static str,
+    pub recovery: f64,
+    pub iterations: i64,
+    pub detail: Option<String>,
+}
+
+/// One repriced quote.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ResidualRow {
+    pub date: NaiveDate,
+    pub entity: String,
+    pub currency: String,
+    pub method: &'static str,
+    pub instrument: &'static str,
+    pub tenor_or_bond: String,
+    pub market: f64,
+    pub model: f64,
+    pub residual_bp: f64,
+    pub status: &'static str,
+}
+
+pub fn write_hazard_curves(rows: &[HazardCurveRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
+    let mut df = TableBuilder::new()
+        .dates("date", rows.iter().map(|r| Some(r.date)))
+        .strings("entity", rows.iter().map(|r| Some(&r.entity)))
+        .strings("currency", rows.iter().map(|r| Some(&r.currency)))
+        .strings("source", rows.iter().map(|r| Some(r.source)))
+        .strings("tenor", rows.iter().map(|r| Some(&r.tenor)))
+        .dates("maturity", rows.iter().map(|r| Some(r.maturity)))
+        .dates("node_date", rows.iter().map(|r| Some(r.node_date)))
+        .floats("hazard", rows.iter().map(|r| r.hazard))
+        .floats("survival", rows.iter().map(|r| r.survival))
+        .strings("status", rows.iter().map(|r| Some(r.status)))
+        .floats("recovery", rows.iter().map(|r| Some(r.recovery)))
+        .ints("iterations", rows.iter().map(|r| Some(r.iterations)))
+        .strings("detail", rows.iter().map(|r| r.detail.as_deref()))
+        .finish()?;
+    let mut meta = meta.to_vec();
+    meta.push(("hazardline.units".into(), "hazard: per year on Act/365F from date; survival: probability to maturity; recovery: fraction".into()));
+    write_parquet(&mut df, path, &meta)
+}
+
+pub fn write_residuals(rows: &[ResidualRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
+    let mut df = TableBuilder::new()
+        .dates("date", rows.iter().map(|r| Some(r.date)))
+        .strings("entity", rows.iter().map(|r| Some(&r.entity)))
+        .strings("currency", rows.iter().map(|r| Some(&r.currency)))
+        .strings("method", rows.iter().map(|r| Some(r.method)))
+        .strings("instrument", rows.iter().map(|r| Some(r.instrument)))
+        .strings("tenor_or_bond", rows.iter().map(|r| Some(&r.tenor_or_bond)))
+        .floats("market", rows.iter().map(|r| Some(r.market)))
+        .floats("model", rows.iter().map(|r| Some(r.model)))
+        .floats("residual_bp", rows.iter().map(|r| Some(r.residual_bp)))
+        .strings("status", rows.iter().map(|r| Some(r.status)))
+        .finish()?;
+    let mut meta = meta.to_vec();
+    meta.push((
+        "hazardline.units".into(),
+        "market/model: par spread in bp for cds_par_spread, upfront as fraction of notional for cds_upfront; residual_bp = model - market in bp of running spread".into(),
+    ));
+    write_parquet(&mut df, path, &meta)
+}
+
+pub fn write_rejects(rows: &[Reject], path: &Path, meta: &[(String, String)]) -> Result<()> {
+    let mut df = TableBuilder::new()
+        .strings("table", rows.iter().map(|r| Some(r.table)))
+        .strings("source", rows.iter().map(|r| Some(&r.source)))
+        .ints("row", rows.iter().map(|r| Some(r.row as i64)))
+        .strings("reason", rows.iter().map(|r| Some(r.reason)))
+        .strings("detail", rows.iter().map(|r| Some(&r.detail)))
+        .finish()?;
+    write_parquet(&mut df, path, meta)
+}

@@ -1,0 +1,149 @@
+//! The `calibrate` command end to end: outputs, row accounting, and exit code 2 with a
+//! message naming the file and column for bad input.
+
+use assert_cmd::Command;
+use polars::prelude::*;
+use std::path::Path;
+
+fn write(dir: &Path, name: &str, text: &str) -> std::path::PathBuf {
+    let p = dir.join(name);
+    std::fs::write(&p, text).unwrap();
+    p
+}
+
+const DISCOUNT: &str = "date,currency,tenor,zero_rate\n\
+2024-03-21,USD,6M,0.032\n2024-03-21,USD,1Y,0.033\n2024-03-21,USD,5Y,0.036\n2024-03-21,USD,10Y,0.038\n\
+2024-03-22,USD,6M,0.032\n2024-03-22,USD,1Y,0.033\n2024-03-22,USD,5Y,0.036\n2024-03-22,USD,10Y,0.038\n";
+
+fn quotes() -> String {
+    let mut s = String::from("date,entity,currency,tenor,par_spread_bp,recovery,upfront,coupon_bp,vendor_note\n");
+    for date in ["2024-03-21", "2024-03-22"] {
+        for (t, bp) in [("1Y", 60.0), ("3Y", 85.0), ("5Y", 110.0), ("10Y", 140.0)] {
+            s += &format!("{date},ALPHA,USD,{t},{bp},,,,x\n");
+        }
+        for (t, up) in [("1Y", 0.05), ("5Y", 0.20)] {
+            s += &format!("{date},BRAVO,USD,{t},,0.25,{up},500,\n");
+        }
+    }
+    // Bad rows, one per reason.
+    s += "2024-03-21,ALPHA,USD,2Y,-5,,,,\n"; // negative spread
+    s += "2024-03-21,ALPHA,USD,5X,100,,,,\n"; // unknown tenor
+    s += "2024-03-23,ALPHA,USD,5Y,100,,,,\n"; // Saturday
+    s += "2024-03-21,ALPHA,USD,7Y,abc,,,,\n"; // not a number
+    s += "2024-03-21,CHARLIE,EUR,5Y,100,,,,\n"; // no EUR curve
+    s
+}
+
+#[test]
+fn calibrate_writes_tables_and_accounts_for_every_row() {
+    let dir = tempfile::tempdir().unwrap();
+    let cds = write(dir.path(), "cds.csv", &quotes());
+    let disc = write(dir.path(), "disc.csv", DISCOUNT);
+    let out = dir.path().join("out");
+    let assert = Command::cargo_bin("hazardline")
+        .unwrap()
+        .args(["calibrate", "--cds"])
+        .arg(&cds)
+        .arg("--discount")
+        .arg(&disc)
+        .arg("--out")
+        .arg(&out)
+        .assert()
+        .success();
+    let stdout = String::from_utf8(assert.get_output().stdout.clone()).unwrap();
+    assert!(stdout.contains("cds_quotes: 17 rows in = 12 used + 5 rejected"), "{stdout}");
+    assert!(stdout.contains("discount:   8 rows in = 8 used + 0 rejected"), "{stdout}");
+
+    let read = |name: &str| {
+        let p = out.join(name);
+        LazyFrame::scan_parquet(PlRefPath::new(p.to_str().unwrap()), Default::default()).unwrap().collect().unwrap()
+    };
+    let hz = read("hazard_curves.parquet");
+    assert_eq!(hz.height(), 12);
+    for col in ["date", "entity", "currency", "source", "tenor", "maturity", "hazard", "survival", "status"] {
+        assert!(hz.column(col).is_ok(), "hazard_curves lacks {col}");
+    }
+    assert_eq!(hz.column("date").unwrap().dtype(), &DataType::Date);
+    assert_eq!(hz.column("maturity").unwrap().dtype(), &DataType::Date);
+    let res = read("calibration_residuals.parquet");
+    assert_eq!(res.height(), 12);
+    let r = res.column("residual_bp").unwrap().f64().unwrap();
+    assert!(r.iter().all(|v| v.unwrap().abs() < 1e-6));
+    let rej = read("rejects.parquet");
+    assert_eq!(rej.height(), 5);
+    let reasons: Vec<String> = rej.column("reason").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
+    for want in ["non_positive_spread", "unknown_tenor", "non_business_day", "unparseable_number", "no_discount_curve"] {
+        assert!(reasons.iter().any(|r| r == want), "missing reject {want}: {reasons:?}");
+    }
+    let rows: Vec<i64> = rej.column("row").unwrap().i64().unwrap().iter().map(|v| v.unwrap()).collect();
+    assert_eq!(rows, vec![13, 14, 15, 16, 17]);
+}
+
+#[test]
+fn missing_file_exits_2_naming_it() {
+    let dir = tempfile::tempdir().unwrap();
+    let disc = write(dir.path(), "disc.csv", DISCOUNT);
+    Command::cargo_bin("hazardline")
+        .unwrap()
+        .args(["calibrate", "--cds", "no/such/quotes.csv", "--discount"])
+        .arg(&disc)
+        .arg("--out")
+        .arg(dir.path().join("o"))
+        .assert()
+        .code(2)
+        .stderr(predicates::str::contains("no/such/quotes.csv"))
+        .stderr(predicates::str::contains("not found"));
+}
+
+#[test]
+fn missing_column_exits_2_naming_file_and_column() {
+    let dir = tempfile::tempdir().unwrap();
+    let disc = write(dir.path(), "disc.csv", DISCOUNT);
+    let cds = write(dir.path(), "bad.csv", "date,entity,currency,par_spread_bp\n2024-03-21,A,USD,100\n");
+    Command::cargo_bin("hazardline")
+        .unwrap()
+        .args(["calibrate", "--cds"])
+        .arg(&cds)
+        .arg("--discount")
+        .arg(&disc)
+        .arg("--out")
+        .arg(dir.path().join("o"))
+        .assert()
+        .code(2)
+        .stderr(predicates::str::contains("bad.csv"))
+        .stderr(predicates::str::contains("`tenor`"));
+}
+
+#[test]
+fn parquet_folder_input_is_read() {
+    // Write the quotes as Parquet in a folder of two files and calibrate from the folder.
+    let dir = tempfile::tempdir().unwrap();
+    let disc = write(dir.path(), "disc.csv", DISCOUNT);
+    let qdir = dir.path().join("quotes");
+    std::fs::create_dir(&qdir).unwrap();
+    for (i, date) in ["2024-03-21", "2024-03-22"].iter().enumerate() {
+        let d = hazardline::time::parse_iso_date(date).unwrap();
+        let mut df = hazardline::report::parquet::TableBuilder::new()
+            .dates("date", vec![Some(d); 3])
+            .strings("entity", vec![Some("ALPHA"); 3])
+            .strings("currency", vec![Some("USD"); 3])
+            .strings("tenor", vec![Some("1Y"), Some("5Y"), Some("10Y")])
+            .floats("par_spread_bp", vec![Some(50.0), Some(90.0), Some(120.0)])
+            .finish()
+            .unwrap();
+        hazardline::report::parquet::write_parquet(&mut df, &qdir.join(format!("part-{i}.parquet")), &[]).unwrap();
+    }
+    let out = dir.path().join("out");
+    let assert = Command::cargo_bin("hazardline")
+        .unwrap()
+        .args(["calibrate", "--cds"])
+        .arg(&qdir)
+        .arg("--discount")
+        .arg(&disc)
+        .arg("--out")
+        .arg(&out)
+        .assert()
+        .success();
+    let stdout = String::from_utf8(assert.get_output().stdout.clone()).unwrap();
+    assert!(stdout.contains("cds_quotes: 6 rows in = 6 used + 0 rejected"), "{stdout}");
+}

@@ -1,0 +1,7 @@
+//! All integration tests build into this one binary (one link step instead of many).
+
+mod cli;
+mod closed_forms;
+mod properties;
+mod reference_quantlib;
+mod support;
