@@ -12,5 +12,6 @@ pub mod error;
 pub mod ingest;
 pub mod instruments;
 pub mod math;
+pub mod models;
 pub mod report;
 pub mod time;

@@ -4,6 +4,8 @@
 use clap::{Parser, Subcommand, ValueEnum};
 use hazardline::calibrate::{BootstrapSettings, InfeasiblePolicy};
 use hazardline::commands::calibrate::{self, CalibrateSettings};
+use hazardline::commands::check::{self, CheckSettings};
+use hazardline::ingest::{InputPaths, QualitySettings, TableCounts};
 use hazardline::instruments::AccrualIntegration;
 use hazardline::time::Calendar;
 use std::io::IsTerminal;
@@ -39,17 +41,60 @@ enum Accrual {
     Exact,
 }
 
+/// Input tables; each may be a CSV or Parquet file, or a folder of them.
+#[derive(clap::Args, Clone)]
+struct Inputs {
+    /// cds_quotes table.
+    #[arg(long)]
+    cds: Option<PathBuf>,
+    /// discount table (zero rates).
+    #[arg(long)]
+    discount: Option<PathBuf>,
+    /// bonds table (static data).
+    #[arg(long)]
+    bonds: Option<PathBuf>,
+    /// bond_quotes table (clean prices).
+    #[arg(long = "bond-quotes")]
+    bond_quotes: Option<PathBuf>,
+    /// entities table.
+    #[arg(long)]
+    entities: Option<PathBuf>,
+    /// grades table.
+    #[arg(long)]
+    grades: Option<PathBuf>,
+    /// defaults table (quotes after an entity's default are rejected).
+    #[arg(long)]
+    defaults: Option<PathBuf>,
+    /// cohort_history table.
+    #[arg(long = "cohort-history")]
+    cohort_history: Option<PathBuf>,
+    /// A holiday list (one ISO date per line) added to the weekends.
+    #[arg(long)]
+    holidays: Option<PathBuf>,
+}
+
+impl Inputs {
+    fn paths(&self) -> InputPaths {
+        InputPaths {
+            cds_quotes: self.cds.clone(),
+            discount: self.discount.clone(),
+            bonds: self.bonds.clone(),
+            bond_quotes: self.bond_quotes.clone(),
+            entities: self.entities.clone(),
+            grades: self.grades.clone(),
+            defaults: self.defaults.clone(),
+            cohort_history: self.cohort_history.clone(),
+        }
+    }
+}
+
 #[derive(Subcommand)]
 enum Command {
-    /// Bootstrap hazard curves from CDS quotes and write hazard_curves, calibration_residuals
-    /// and rejects as Parquet into --out.
+    /// Bootstrap hazard curves from CDS quotes and write hazard_curves, calibration_residuals,
+    /// rejects, data_quality and quality_flags as Parquet into --out.
     Calibrate {
-        /// cds_quotes table: CSV or Parquet file, or a folder of them.
-        #[arg(long)]
-        cds: PathBuf,
-        /// discount table (zero rates): CSV or Parquet file, or a folder of them.
-        #[arg(long)]
-        discount: PathBuf,
+        #[command(flatten)]
+        inputs: Inputs,
         /// Recovery rate for quotes without one (fraction).
         #[arg(long, default_value_t = 0.40)]
         recovery: f64,
@@ -59,12 +104,18 @@ enum Command {
         /// Accrual-on-default integration.
         #[arg(long, value_enum, default_value_t = Accrual::Standard)]
         accrual: Accrual,
-        /// A holiday list (one ISO date per line) added to the weekends.
-        #[arg(long)]
-        holidays: Option<PathBuf>,
         /// Output folder.
         #[arg(long)]
         out: PathBuf,
+    },
+    /// Read the inputs and run the data-quality rules only: print the row accounting per table
+    /// and the top reject reasons; with --out, write rejects, data_quality and quality_flags.
+    Check {
+        #[command(flatten)]
+        inputs: Inputs,
+        /// Output folder (optional).
+        #[arg(long)]
+        out: Option<PathBuf>,
     },
 }
 
@@ -102,26 +153,49 @@ fn read_holidays(path: &PathBuf) -> anyhow::Result<Calendar> {
     Ok(Calendar::with_holidays(days))
 }
 
+fn calendar_of(inputs: &Inputs) -> Result<Calendar, ExitCode> {
+    match &inputs.holidays {
+        Some(p) => read_holidays(p).map_err(|e| {
+            eprintln!("error: {e}");
+            ExitCode::from(2)
+        }),
+        None => Ok(Calendar::weekends_only()),
+    }
+}
+
+fn print_counts(counts: &[TableCounts]) {
+    println!("{:<16} {:>12} {:>12} {:>12} {:>12}", "table", "rows in", "used", "rejected", "flagged");
+    for c in counts {
+        println!("{:<16} {:>12} {:>12} {:>12} {:>12}", c.table, c.rows_in, c.used, c.rejected, c.flagged);
+    }
+}
+
+fn print_reasons(reasons: &[(String, &'static str, usize)]) {
+    if !reasons.is_empty() {
+        println!("top reject reasons:");
+        for (table, reason, n) in reasons {
+            println!("  {table:<16} {reason:<24} {n:>10}");
+        }
+    }
+}
+
 fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
-        Command::Calibrate { cds, discount, recovery, infeasible, accrual, holidays, out } => {
+        Command::Calibrate { inputs, recovery, infeasible, accrual, out } => {
             if !(0.0..1.0).contains(&recovery) {
                 eprintln!("error: --recovery {recovery} is not a fraction in [0, 1)");
                 return Ok(ExitCode::from(2));
             }
-            let calendar = match &holidays {
-                Some(p) => match read_holidays(p) {
-                    Ok(c) => c,
-                    Err(e) => {
-                        eprintln!("error: {e}");
-                        return Ok(ExitCode::from(2));
-                    }
-                },
-                None => Calendar::weekends_only(),
+            if inputs.cds.is_none() || inputs.discount.is_none() {
+                eprintln!("error: calibrate needs --cds and --discount");
+                return Ok(ExitCode::from(2));
+            }
+            let calendar = match calendar_of(&inputs) {
+                Ok(c) => c,
+                Err(code) => return Ok(code),
             };
             let settings = CalibrateSettings {
-                cds,
-                discount,
+                inputs: inputs.paths(),
                 out,
                 recovery,
                 bootstrap: BootstrapSettings {
@@ -136,21 +210,49 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     ..BootstrapSettings::default()
                 },
                 calendar,
+                quality: QualitySettings::default(),
             };
             let started = std::time::Instant::now();
             match calibrate::run(&settings) {
                 Ok(s) => {
-                    println!("cds_quotes: {} rows in = {} used + {} rejected", s.cds.rows_in, s.cds.used, s.cds.rejected);
-                    println!("discount:   {} rows in = {} used + {} rejected", s.discount.rows_in, s.discount.used, s.discount.rejected);
+                    print_counts(&s.counts);
+                    print_reasons(&s.top_reasons);
                     println!("curves: {} ({} with every node ok), nodes: {}", s.curves, s.curves_complete, s.nodes);
                     for (status, n) in &s.nodes_by_status {
                         println!("  {status}: {n}");
                     }
                     println!("largest |residual| on ok nodes: {:.3e} bp", s.max_abs_residual_bp);
                     for p in &s.outputs {
-                        println!("wrote {}", calibrate::show(p));
+                        println!("wrote {}", p.display());
                     }
                     tracing::info!(seconds = started.elapsed().as_secs_f64(), "calibrate finished");
+                    Ok(ExitCode::SUCCESS)
+                }
+                Err(e) => {
+                    eprintln!("error: {e}");
+                    Ok(ExitCode::from(e.exit_code() as u8))
+                }
+            }
+        }
+        Command::Check { inputs, out } => {
+            let calendar = match calendar_of(&inputs) {
+                Ok(c) => c,
+                Err(code) => return Ok(code),
+            };
+            let settings = CheckSettings { inputs: inputs.paths(), calendar, quality: QualitySettings::default(), out };
+            match check::run(&settings) {
+                Ok(s) => {
+                    print_counts(&s.counts);
+                    print_reasons(&s.top_reasons);
+                    if !s.flags_by_rule.is_empty() {
+                        println!("quality flags (rows kept):");
+                        for (rule, n) in &s.flags_by_rule {
+                            println!("  {rule:<24} {n:>10}");
+                        }
+                    }
+                    for p in &s.outputs {
+                        println!("wrote {}", p.display());
+                    }
                     Ok(ExitCode::SUCCESS)
                 }
                 Err(e) => {

@@ -13,11 +13,13 @@ use crate::calibrate::residuals::reprice;
 use crate::calibrate::{bootstrap, BootstrapQuote, BootstrapSettings, InfeasiblePolicy};
 use crate::curves::DiscountCurve;
 use crate::error::{Error, Result};
-use crate::ingest::cds::{self, CdsRow};
+use crate::ingest::cds::{self, CdsPanel, CdsQuoteRow};
 use crate::ingest::discount::{self, DiscountRow};
-use crate::ingest::Reject;
+use crate::ingest::{load, InputPaths, QualitySettings, Reject, TableCounts};
 use crate::instruments::AccrualIntegration;
-use crate::report::tables::{write_hazard_curves, write_rejects, write_residuals, HazardCurveRow, ResidualRow};
+use crate::report::tables::{
+    write_data_quality, write_hazard_curves, write_quality_flags, write_rejects, write_residuals, HazardCurveRow, ResidualRow,
+};
 use crate::time::{Calendar, Tenor};
 use chrono::NaiveDate;
 use rayon::prelude::*;
@@ -27,37 +29,30 @@ use std::path::{Path, PathBuf};
 /// Checked settings of the calibrate stage.
 #[derive(Debug, Clone)]
 pub struct CalibrateSettings {
-    pub cds: PathBuf,
-    pub discount: PathBuf,
+    /// cds_quotes and discount are required; defaults (for the after-default rule) and the
+    /// other tables are optional.
+    pub inputs: InputPaths,
     pub out: PathBuf,
     /// Recovery for rows without one.
     pub recovery: f64,
     pub bootstrap: BootstrapSettings,
     pub calendar: Calendar,
-}
-
-/// Counts of one input table.
-#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
-pub struct RowCounts {
-    pub rows_in: usize,
-    pub used: usize,
-    pub rejected: usize,
+    pub quality: QualitySettings,
 }
 
 /// What a calibrate run did.
 #[derive(Debug, Clone, Default)]
 pub struct CalibrateSummary {
-    pub cds: RowCounts,
-    pub discount: RowCounts,
+    /// Per input table, after calibration (rejects of the calibrate stage included).
+    pub counts: Vec<TableCounts>,
     pub curves: usize,
     pub curves_complete: usize,
     pub nodes: usize,
     pub nodes_by_status: BTreeMap<&'static str, usize>,
     pub max_abs_residual_bp: f64,
+    pub top_reasons: Vec<(String, &'static str, usize)>,
     pub outputs: Vec<PathBuf>,
 }
-
-type CurveKey = (NaiveDate, String, String);
 
 /// A curve's result, kept in key order.
 struct CurveOutput {
@@ -85,7 +80,10 @@ fn discount_curves(rows: Vec<DiscountRow>, rejects: &mut Vec<Reject>) -> (BTreeM
             }
             Err(e) => {
                 for r in rows {
-                    rejects.push(Reject { table: discount::TABLE, source: r.source, row: r.row, reason: "bad_discount_curve", detail: e.to_string() });
+                    let mut rej = Reject::new(discount::TABLE, &r.source, r.row, "bad_discount_curve", e.to_string());
+                    rej.date = Some(r.date);
+                    rej.key = format!("{} {}", r.currency, r.tenor);
+                    rejects.push(rej);
                 }
             }
         }
@@ -93,24 +91,17 @@ fn discount_curves(rows: Vec<DiscountRow>, rejects: &mut Vec<Reject>) -> (BTreeM
     (out, used)
 }
 
-fn calibrate_one(key: &CurveKey, rows: &[CdsRow], curve: &DiscountCurve, s: &CalibrateSettings) -> CurveOutput {
+fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, s: &CalibrateSettings) -> CurveOutput {
+    let h = rows[0];
+    let (date, entity, currency) = (h.date, panel.entities.name(h.entity), panel.currencies.name(h.currency));
     let quotes: Vec<BootstrapQuote> = rows
         .iter()
-        .map(|r| BootstrapQuote { tenor: r.tenor, quote: r.quote, recovery: r.recovery.unwrap_or(s.recovery) })
+        .map(|r| BootstrapQuote { tenor: r.tenor, quote: r.quote, recovery: r.recovery().unwrap_or(s.recovery) })
         .collect();
-    let fit = match bootstrap(key.0, &quotes, curve, &s.calendar, &s.bootstrap) {
+    let fit = match bootstrap(date, &quotes, curve, &s.calendar, &s.bootstrap) {
         Ok(f) => f,
         Err(e) => {
-            let rejects = rows
-                .iter()
-                .map(|r| Reject {
-                    table: cds::TABLE,
-                    source: r.source.clone(),
-                    row: r.row,
-                    reason: "curve_not_built",
-                    detail: format!("{} {} {}: {e}", key.0, key.1, key.2),
-                })
-                .collect();
+            let rejects = rows.iter().map(|r| panel.reject(r, "curve_not_built", format!("{date} {entity} {currency}: {e}"))).collect();
             return CurveOutput { hazard: Vec::new(), residuals: Vec::new(), rejects, used: 0 };
         }
     };
@@ -119,9 +110,9 @@ fn calibrate_one(key: &CurveKey, rows: &[CdsRow], curve: &DiscountCurve, s: &Cal
         .nodes
         .iter()
         .map(|n| HazardCurveRow {
-            date: key.0,
-            entity: key.1.clone(),
-            currency: key.2.clone(),
+            date,
+            entity: entity.to_string(),
+            currency: currency.to_string(),
             source: "cds",
             tenor: n.tenor.to_string(),
             maturity: n.maturity,
@@ -137,9 +128,9 @@ fn calibrate_one(key: &CurveKey, rows: &[CdsRow], curve: &DiscountCurve, s: &Cal
     let residuals = residuals
         .into_iter()
         .map(|q| ResidualRow {
-            date: key.0,
-            entity: key.1.clone(),
-            currency: key.2.clone(),
+            date,
+            entity: entity.to_string(),
+            currency: currency.to_string(),
             method: "bootstrap",
             instrument: q.instrument,
             tenor_or_bond: q.tenor.to_string(),
@@ -154,37 +145,43 @@ fn calibrate_one(key: &CurveKey, rows: &[CdsRow], curve: &DiscountCurve, s: &Cal
 
 /// Runs the stage.
 pub fn run(s: &CalibrateSettings) -> Result<CalibrateSummary> {
-    let disc = discount::read(&s.discount)?;
-    let quotes = cds::read(&s.cds, &s.calendar)?;
-    let mut rejects: Vec<Reject> = Vec::new();
-    rejects.extend(disc.rejects.iter().cloned());
-    let disc_rejected_rows = disc.rejects.len();
-    let (curves, disc_used) = discount_curves(disc.rows, &mut rejects);
-    let disc_counts = RowCounts { rows_in: disc.rows_in, used: disc_used, rejected: rejects.len() - 0 };
-    debug_assert!(disc_rejected_rows <= disc_counts.rejected);
-
-    let cds_rows_in = quotes.rows_in;
-    let mut cds_rejects = quotes.rejects;
-    let mut groups: BTreeMap<CurveKey, Vec<CdsRow>> = BTreeMap::new();
-    for r in quotes.rows {
-        if curves.contains_key(&(r.date, r.currency.clone())) {
-            groups.entry((r.date, r.entity.clone(), r.currency.clone())).or_default().push(r);
-        } else {
-            cds_rejects.push(Reject {
-                table: cds::TABLE,
-                source: r.source.clone(),
-                row: r.row,
-                reason: "no_discount_curve",
-                detail: format!("no usable {} discount curve on {}", r.currency, r.date),
-            });
-        }
+    if s.inputs.cds_quotes.is_none() || s.inputs.discount.is_none() {
+        return Err(Error::Argument { name: "inputs", message: "calibrate needs the cds_quotes and discount tables".into() });
     }
-    let jobs: Vec<(&CurveKey, &Vec<CdsRow>)> = groups.iter().collect();
+    let mut ds = load(&s.inputs, &s.calendar, &s.quality)?;
+    let disc = ds.discount.take().expect("discount was read");
+    let panel = ds.cds.take().expect("cds_quotes were read");
+    let mut stage_rejects: Vec<Reject> = Vec::new();
+    let (curves, disc_used) = discount_curves(disc.rows, &mut stage_rejects);
+
+    // Curves are consecutive runs of (date, entity, currency) in the panel's sorted rows.
+    let mut jobs: Vec<(usize, usize)> = Vec::new();
+    let mut i = 0;
+    let rows = &panel.rows;
+    while i < rows.len() {
+        let mut j = i + 1;
+        while j < rows.len() && rows[j].date == rows[i].date && rows[j].entity == rows[i].entity && rows[j].currency == rows[i].currency {
+            j += 1;
+        }
+        jobs.push((i, j));
+        i = j;
+    }
     let outputs: Vec<CurveOutput> = jobs
         .par_iter()
-        .map(|(key, rows)| {
-            let curve = &curves[&(key.0, key.2.clone())];
-            calibrate_one(key, rows, curve, s)
+        .map(|&(a, b)| {
+            let h = &rows[a];
+            match curves.get(&(h.date, panel.currencies.name(h.currency).to_string())) {
+                Some(curve) => calibrate_one(&panel, &rows[a..b], curve, s),
+                None => CurveOutput {
+                    hazard: Vec::new(),
+                    residuals: Vec::new(),
+                    rejects: rows[a..b]
+                        .iter()
+                        .map(|r| panel.reject(r, "no_discount_curve", format!("no usable {} discount curve on {}", panel.currencies.name(r.currency), r.date)))
+                        .collect(),
+                    used: 0,
+                },
+            }
         })
         .collect();
 
@@ -211,29 +208,60 @@ pub fn run(s: &CalibrateSettings) -> Result<CalibrateSummary> {
             }
         }
         residual_rows.extend(o.residuals);
-        cds_rejects.extend(o.rejects);
+        stage_rejects.extend(o.rejects);
     }
-    cds_rejects.sort_by(|a, b| (&a.source, a.row).cmp(&(&b.source, b.row)));
-    summary.cds = RowCounts { rows_in: cds_rows_in, used: cds_used, rejected: cds_rejects.len() };
-    summary.discount = disc_counts;
-    if summary.cds.rows_in != summary.cds.used + summary.cds.rejected
-        || summary.discount.rows_in != summary.discount.used + summary.discount.rejected
-    {
-        return Err(Error::Other(format!(
-            "row accounting does not add up (cds {:?}, discount {:?}); this is a bug, please report it",
-            summary.cds, summary.discount
-        )));
+    // Counts after this stage: ingestion's, less the rows this stage rejected.
+    for c in ds.counts.iter_mut() {
+        let extra = stage_rejects.iter().filter(|r| r.table == c.table).count();
+        c.rejected += extra;
+        c.used -= extra.min(c.used);
+        if c.table == cds::TABLE {
+            c.used = cds_used;
+        }
+        if c.table == discount::TABLE {
+            c.used = disc_used;
+        }
+        if c.rows_in != c.used + c.rejected {
+            return Err(Error::Other(format!(
+                "row accounting of {} does not add up after calibration ({} in, {} used, {} rejected); this is a bug, please report it",
+                c.table, c.rows_in, c.used, c.rejected
+            )));
+        }
     }
-    rejects.extend(cds_rejects);
+    stage_rejects.sort_by(|a, b| (a.table, &a.source, a.row).cmp(&(b.table, &b.source, b.row)));
+    let mut rejects = ds.rejects;
+    rejects.extend(stage_rejects);
+    summary.top_reasons = top_reasons(&rejects, 10);
+    summary.counts = ds.counts;
 
     let meta = metadata(s);
     let out = &s.out;
-    let paths = [out.join("hazard_curves.parquet"), out.join("calibration_residuals.parquet"), out.join("rejects.parquet")];
+    let paths = [
+        out.join("hazard_curves.parquet"),
+        out.join("calibration_residuals.parquet"),
+        out.join("rejects.parquet"),
+        out.join("data_quality.parquet"),
+        out.join("quality_flags.parquet"),
+    ];
     write_hazard_curves(&hazard_rows, &paths[0], &meta)?;
     write_residuals(&residual_rows, &paths[1], &meta)?;
     write_rejects(&rejects, &paths[2], &meta)?;
+    write_data_quality(&ds.data_quality, &paths[3], &meta)?;
+    write_quality_flags(&ds.flags, &paths[4], &meta)?;
     summary.outputs = paths.to_vec();
     Ok(summary)
+}
+
+/// The most frequent reject reasons per table, most frequent first (ties by name).
+pub fn top_reasons(rejects: &[Reject], n: usize) -> Vec<(String, &'static str, usize)> {
+    let mut m: BTreeMap<(&'static str, &'static str), usize> = BTreeMap::new();
+    for r in rejects {
+        *m.entry((r.table, r.reason)).or_default() += 1;
+    }
+    let mut v: Vec<(String, &'static str, usize)> = m.into_iter().map(|((t, r), c)| (t.to_string(), r, c)).collect();
+    v.sort_by(|a, b| b.2.cmp(&a.2).then(a.0.cmp(&b.0)).then(a.1.cmp(b.1)));
+    v.truncate(n);
+    v
 }
 
 fn metadata(s: &CalibrateSettings) -> Vec<(String, String)> {
@@ -258,6 +286,7 @@ fn metadata(s: &CalibrateSettings) -> Vec<(String, String)> {
         ),
         ("hazardline.hazard_tolerance".into(), format!("{:e}", b.hazard_tolerance)),
         ("hazardline.calendar".into(), format!("weekends + {} holidays", s.calendar.holidays().len())),
+        ("hazardline.quality".into(), format!("{:?}", s.quality)),
     ]
 }
 

@@ -2,3 +2,4 @@
 //! summary; `main.rs` only parses flags and prints.
 
 pub mod calibrate;
+pub mod check;

@@ -1,8 +1,13 @@
 //! The `cds_quotes` table: date, entity, currency, tenor, par_spread_bp, with optional
-//! recovery, upfront, coupon_bp, seniority. A row carries either a par spread or an upfront
-//! with its running coupon.
+//! recovery, upfront, coupon_bp, seniority. A row carries either a par spread (bp) or an
+//! upfront (fraction of notional, positive when the protection buyer pays) with its running
+//! coupon (bp).
+//!
+//! This reader applies the rules that one row can decide on its own; the rules that need the
+//! whole series live in `quality`.
 
-use super::source::{read_table, Cell, ColumnSpec, Kind, RawTable, Reject};
+use super::source::{read_table_batches, Cell, ColumnSpec, Kind, RawFile, Reject, TableInfo};
+use super::Interner;
 use crate::error::Result;
 use crate::instruments::CdsQuote;
 use crate::time::{Calendar, Tenor};
@@ -33,149 +38,228 @@ const C_UPFRONT: usize = 6;
 const C_COUPON: usize = 7;
 const C_SENIORITY: usize = 8;
 
-/// One usable CDS quote.
-#[derive(Debug, Clone, PartialEq)]
-pub struct CdsRow {
+/// One CDS quote that passed the row rules, with ids into the panel's interners.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CdsQuoteRow {
     pub date: NaiveDate,
-    pub entity: String,
-    pub currency: String,
+    pub entity: u32,
+    pub currency: u32,
     pub tenor: Tenor,
     pub quote: CdsQuote,
-    /// As given; the caller applies the default.
-    pub recovery: Option<f64>,
-    pub seniority: Option<String>,
-    pub source: String,
-    pub row: u64,
+    /// As given (NaN when absent); the caller applies the default by seniority.
+    pub recovery: f64,
+    /// Interned seniority, `u32::MAX` when absent.
+    pub seniority: u32,
+    /// Index into `CdsPanel::files`.
+    pub file: u32,
+    /// 1-based data row in that file.
+    pub row: u32,
 }
 
-/// The usable rows and the rejects of a `cds_quotes` table.
+impl CdsQuoteRow {
+    pub fn recovery(&self) -> Option<f64> {
+        (!self.recovery.is_nan()).then_some(self.recovery)
+    }
+
+    /// Par spread in bp for a par-spread quote.
+    pub fn spread_bp(&self) -> Option<f64> {
+        match self.quote {
+            CdsQuote::ParSpread(s) => Some(s * 1e4),
+            CdsQuote::Upfront { .. } => None,
+        }
+    }
+}
+
+/// The quotes of a whole panel.
 #[derive(Debug, Default)]
-pub struct CdsTable {
-    pub rows: Vec<CdsRow>,
+pub struct CdsPanel {
+    pub rows: Vec<CdsQuoteRow>,
+    pub entities: Interner,
+    pub currencies: Interner,
+    pub seniorities: Interner,
+    pub files: Vec<String>,
     pub rejects: Vec<Reject>,
-    pub rows_in: usize,
-    pub ignored_columns: Vec<String>,
+    pub info: TableInfo,
 }
 
-/// Reads and checks the quotes at `path`.
-pub fn read(path: &Path, cal: &Calendar) -> Result<CdsTable> {
-    let raw = read_table(TABLE, path, SPECS)?;
-    Ok(parse(&raw, cal))
+impl CdsPanel {
+    pub fn source(&self, r: &CdsQuoteRow) -> &str {
+        &self.files[r.file as usize]
+    }
+
+    pub fn reject(&self, r: &CdsQuoteRow, reason: &'static str, detail: String) -> Reject {
+        Reject {
+            table: TABLE,
+            source: self.source(r).to_string(),
+            row: r.row as u64,
+            reason,
+            detail,
+            date: Some(r.date),
+            entity: Some(self.entities.name(r.entity).to_string()),
+            key: format!("{} {}", self.currencies.name(r.currency), r.tenor),
+        }
+    }
 }
 
-fn reject(source: &str, row: u64, reason: &'static str, detail: String) -> Reject {
-    Reject { table: TABLE, source: source.to_string(), row, reason, detail }
+/// Row-level limits (from the pipeline file's quality settings).
+#[derive(Debug, Clone, Copy)]
+pub struct CdsRowRules {
+    /// A par spread above this (bp) is implausible and rejected.
+    pub max_spread_bp: f64,
 }
 
-/// Interprets the rows of a raw table (exposed so tests can feed tables built in memory).
-pub fn parse(raw: &RawTable, cal: &Calendar) -> CdsTable {
-    let mut out = CdsTable { rows_in: raw.rows(), ignored_columns: raw.ignored_columns.clone(), ..Default::default() };
-    for file in &raw.files {
+/// Reads the quotes at `path`, applying the row rules.
+pub fn read(path: &Path, cal: &Calendar, rules: &CdsRowRules) -> Result<CdsPanel> {
+    let mut panel = CdsPanel::default();
+    let mut tenor_cache: HashMap<String, std::result::Result<Tenor, String>> = HashMap::new();
+    let info = read_table_batches(TABLE, path, SPECS, |file| {
         let src = file.source();
-        for i in 0..file.height {
-            let row = i as u64 + 1;
-            match parse_row(file, i, &src, row, cal) {
-                Ok(r) => out.rows.push(r),
-                Err(rej) => out.rejects.push(rej),
-            }
-        }
-    }
-    dedupe(&mut out);
-    out
-}
-
-fn number(cell: Cell<'_>, column: &str, src: &str, row: u64) -> std::result::Result<Option<f64>, Reject> {
-    cell.number().map_err(|_| {
-        reject(src, row, "unparseable_number", format!("column {column}: {} is not a number", cell.show()))
-    }).and_then(|v| match v {
-        Some(x) if !x.is_finite() => Err(reject(src, row, "unparseable_number", format!("column {column}: {x} is not a finite number"))),
-        other => Ok(other),
-    })
-}
-
-fn parse_row(file: &super::source::RawFile, i: usize, src: &str, row: u64, cal: &Calendar) -> std::result::Result<CdsRow, Reject> {
-    let date_cell = file.cell(C_DATE, i);
-    let date = match date_cell.date() {
-        Ok(Some(d)) => d,
-        Ok(None) => return Err(reject(src, row, "missing_value", "column date is empty".into())),
-        Err(()) => return Err(reject(src, row, "bad_date", format!("column date: {} is not an ISO date yyyy-mm-dd", date_cell.show()))),
-    };
-    if !cal.is_business_day(date) {
-        return Err(reject(src, row, "non_business_day", format!("column date: {date} is a weekend or holiday")));
-    }
-    let entity = file.cell(C_ENTITY, i).text().ok_or_else(|| reject(src, row, "missing_value", "column entity is empty".into()))?;
-    let currency = file.cell(C_CCY, i).text().ok_or_else(|| reject(src, row, "missing_value", "column currency is empty".into()))?;
-    let tenor_cell = file.cell(C_TENOR, i);
-    let tenor_text = tenor_cell.text().ok_or_else(|| reject(src, row, "missing_value", "column tenor is empty".into()))?;
-    let tenor: Tenor = tenor_text
-        .parse()
-        .map_err(|e: crate::time::tenor::TenorError| reject(src, row, "unknown_tenor", format!("column tenor: {e}")))?;
-    if tenor.months() % 3 != 0 {
-        return Err(reject(src, row, "non_standard_tenor", format!("column tenor: {tenor} is not a whole number of quarters, as standard CDS tenors are")));
-    }
-    let spread = number(file.cell(C_SPREAD, i), "par_spread_bp", src, row)?;
-    let upfront = number(file.cell(C_UPFRONT, i), "upfront", src, row)?;
-    let coupon = number(file.cell(C_COUPON, i), "coupon_bp", src, row)?;
-    let quote = match (spread, upfront, coupon) {
-        (Some(s), _, _) if s <= 0.0 => {
-            return Err(reject(src, row, "non_positive_spread", format!("column par_spread_bp: {s} bp is not positive")))
-        }
-        (Some(s), _, _) => CdsQuote::ParSpread(s / 1e4),
-        (None, Some(u), Some(c)) if c < 0.0 => {
-            return Err(reject(src, row, "negative_coupon", format!("column coupon_bp: {c} bp is negative (upfront {u})")))
-        }
-        (None, Some(u), Some(_)) if u >= 1.0 || u <= -1.0 => {
-            return Err(reject(src, row, "bad_upfront", format!("column upfront: {u} is not a fraction of notional between -1 and 1")))
-        }
-        (None, Some(u), Some(c)) => CdsQuote::Upfront { upfront: u, coupon: c / 1e4 },
-        (None, Some(_), None) => {
-            return Err(reject(src, row, "missing_value", "column coupon_bp is empty: an upfront quote needs its running coupon".into()))
-        }
-        (None, None, _) => {
-            return Err(reject(src, row, "missing_value", "no quote: par_spread_bp is empty and there is no upfront".into()))
-        }
-    };
-    let recovery = number(file.cell(C_RECOVERY, i), "recovery", src, row)?;
-    if let Some(r) = recovery {
-        if !(0.0..1.0).contains(&r) {
-            return Err(reject(src, row, "bad_recovery", format!("column recovery: {r} is not a fraction in [0, 1)")));
-        }
-    }
-    let seniority = file.cell(C_SENIORITY, i).text();
-    Ok(CdsRow { date, entity, currency, tenor, quote, recovery, seniority, source: src.to_string(), row })
-}
-
-/// Duplicate keys (date, entity, currency, tenor): identical repeats keep the first row;
-/// conflicting values reject every row of the key, since no rule can say which is right.
-fn dedupe(t: &mut CdsTable) {
-    let mut first: HashMap<(NaiveDate, String, String, Tenor), usize> = HashMap::new();
-    let mut conflicting: Vec<bool> = vec![false; t.rows.len()];
-    let mut drop: Vec<Option<(&'static str, String)>> = vec![None; t.rows.len()];
-    for (i, r) in t.rows.iter().enumerate() {
-        let key = (r.date, r.entity.clone(), r.currency.clone(), r.tenor);
-        match first.get(&key) {
+        let fidx = match panel.files.iter().position(|f| *f == src) {
+            Some(i) => i,
             None => {
-                first.insert(key, i);
+                panel.files.push(src.clone());
+                panel.files.len() - 1
             }
-            Some(&j) => {
-                let f = &t.rows[j];
-                if f.quote == r.quote && f.recovery == r.recovery {
-                    drop[i] = Some(("duplicate_row", format!("repeats {} row {} for {} {} {}", f.source, f.row, r.date, r.entity, r.tenor)));
-                } else {
-                    conflicting[j] = true;
-                    drop[i] = Some(("conflicting_duplicate", format!("{} {} {} {} is also quoted, differently, in {} row {}", r.date, r.entity, r.currency, r.tenor, f.source, f.row)));
+        } as u32;
+        panel.rows.reserve(file.height);
+        for i in 0..file.height {
+            match parse_row(file, i, &src, fidx, cal, rules, &mut panel, &mut tenor_cache) {
+                Ok(r) => panel.rows.push(r),
+                Err(mut rej) => {
+                    rej.date = file.cell(C_DATE, i).date().ok().flatten();
+                    rej.entity = file.cell(C_ENTITY, i).text();
+                    rej.key = [file.cell(C_CCY, i).text(), file.cell(C_TENOR, i).text()].into_iter().flatten().collect::<Vec<_>>().join(" ");
+                    panel.rejects.push(rej)
                 }
             }
         }
+    })?;
+    panel.info = info;
+    Ok(panel)
+}
+
+fn reject(src: &str, row: u64, reason: &'static str, detail: String) -> Reject {
+    Reject::new(TABLE, src, row, reason, detail)
+}
+
+pub(crate) fn number(cell: Cell<'_>, table: &'static str, column: &str, src: &str, row: u64) -> std::result::Result<Option<f64>, Reject> {
+    match cell.number() {
+        Err(()) => Err(Reject::new(table, src, row, "unparseable_number", format!("column {column}: {} is not a number", cell.show()))),
+        Ok(Some(x)) if !x.is_finite() => {
+            Err(Reject::new(table, src, row, "unparseable_number", format!("column {column}: {x} is not a finite number")))
+        }
+        Ok(v) => Ok(v),
     }
-    let rows = std::mem::take(&mut t.rows);
-    for (i, r) in rows.into_iter().enumerate() {
-        if let Some((reason, detail)) = drop[i].take() {
-            t.rejects.push(reject(&r.source, r.row, reason, detail));
-        } else if conflicting[i] {
-            t.rejects.push(reject(&r.source, r.row, "conflicting_duplicate", format!("{} {} {} {} is quoted more than once with different values", r.date, r.entity, r.currency, r.tenor)));
-        } else {
-            t.rows.push(r);
+}
+
+pub(crate) fn required_date(cell: Cell<'_>, table: &'static str, column: &str, src: &str, row: u64) -> std::result::Result<NaiveDate, Reject> {
+    match cell.date() {
+        Ok(Some(d)) => Ok(d),
+        Ok(None) => Err(Reject::new(table, src, row, "missing_value", format!("column {column} is empty"))),
+        Err(()) => Err(Reject::new(table, src, row, "unparseable_date", format!("column {column}: {} is not an ISO date yyyy-mm-dd", cell.show()))),
+    }
+}
+
+pub(crate) fn required_text<'a>(cell: Cell<'a>, table: &'static str, column: &str, src: &str, row: u64) -> std::result::Result<Cell<'a>, Reject> {
+    match cell {
+        Cell::Null => Err(Reject::new(table, src, row, "missing_value", format!("column {column} is empty"))),
+        Cell::Str(s) if s.trim().is_empty() => Err(Reject::new(table, src, row, "missing_value", format!("column {column} is empty"))),
+        c => Ok(c),
+    }
+}
+
+fn text_of<'a>(c: &Cell<'a>, buf: &'a mut String) -> &'a str {
+    match *c {
+        Cell::Str(s) => s.trim(),
+        other => {
+            *buf = other.text().unwrap_or_default();
+            buf.as_str()
         }
     }
+}
+
+#[allow(clippy::too_many_arguments)]
+fn parse_row(
+    file: &RawFile,
+    i: usize,
+    src: &str,
+    fidx: u32,
+    cal: &Calendar,
+    rules: &CdsRowRules,
+    panel: &mut CdsPanel,
+    tenor_cache: &mut HashMap<String, std::result::Result<Tenor, String>>,
+) -> std::result::Result<CdsQuoteRow, Reject> {
+    let row = file.file_row(i);
+    let date = required_date(file.cell(C_DATE, i), TABLE, "date", src, row)?;
+    let ent_cell = required_text(file.cell(C_ENTITY, i), TABLE, "entity", src, row)?;
+    let ccy_cell = required_text(file.cell(C_CCY, i), TABLE, "currency", src, row)?;
+    let tenor_cell = required_text(file.cell(C_TENOR, i), TABLE, "tenor", src, row)?;
+    let mut b1 = String::new();
+    let tenor_text = text_of(&tenor_cell, &mut b1);
+    let tenor = match tenor_cache.get(tenor_text) {
+        Some(t) => t.clone(),
+        None => {
+            let t = tenor_text.parse::<Tenor>().map_err(|e| e.to_string());
+            let t = t.and_then(|t| {
+                if t.months() % 3 == 0 {
+                    Ok(t)
+                } else {
+                    Err(format!("{t} is not a whole number of quarters, as standard CDS tenors are"))
+                }
+            });
+            tenor_cache.insert(tenor_text.to_string(), t.clone());
+            t
+        }
+    }
+    .map_err(|e| reject(src, row, "unknown_tenor", format!("column tenor: {e}")))?;
+    if !cal.is_business_day(date) {
+        return Err(reject(src, row, "non_business_day", format!("column date: {date} is a {}", if Calendar::is_weekend(date) { "weekend day" } else { "listed holiday" })));
+    }
+    let spread = number(file.cell(C_SPREAD, i), TABLE, "par_spread_bp", src, row)?;
+    let upfront = number(file.cell(C_UPFRONT, i), TABLE, "upfront", src, row)?;
+    let coupon = number(file.cell(C_COUPON, i), TABLE, "coupon_bp", src, row)?;
+    let quote = match (spread, upfront, coupon) {
+        (Some(s), _, _) if s <= 0.0 => return Err(reject(src, row, "non_positive_spread", format!("column par_spread_bp: {s} bp is not positive"))),
+        (Some(s), _, _) if s > rules.max_spread_bp => {
+            return Err(reject(src, row, "spread_above_cap", format!("column par_spread_bp: {s} bp is above the plausible cap of {} bp", rules.max_spread_bp)))
+        }
+        (Some(s), _, _) => CdsQuote::ParSpread(s / 1e4),
+        (None, Some(u), Some(c)) if c < 0.0 => return Err(reject(src, row, "negative_coupon", format!("column coupon_bp: {c} bp is negative (upfront {u})"))),
+        (None, Some(u), Some(_)) if !(u > -1.0 && u < 1.0) => {
+            return Err(reject(src, row, "implausible_upfront", format!("column upfront: {u} is not a fraction of notional between -1 and 1")))
+        }
+        (None, Some(u), Some(c)) => CdsQuote::Upfront { upfront: u, coupon: c / 1e4 },
+        (None, Some(_), None) => return Err(reject(src, row, "missing_value", "column coupon_bp is empty: an upfront quote needs its running coupon".into())),
+        (None, None, _) => return Err(reject(src, row, "missing_value", "no quote: par_spread_bp is empty and there is no upfront".into())),
+    };
+    let recovery = number(file.cell(C_RECOVERY, i), TABLE, "recovery", src, row)?;
+    if let Some(r) = recovery {
+        if !(0.0..1.0).contains(&r) {
+            return Err(reject(src, row, "implausible_recovery", format!("column recovery: {r} is not a fraction in [0, 1)")));
+        }
+    }
+    let mut b2 = String::new();
+    let mut b3 = String::new();
+    let entity = panel.entities.id(text_of(&ent_cell, &mut b2));
+    let currency = panel.currencies.id(text_of(&ccy_cell, &mut b3));
+    let sen_cell = file.cell(C_SENIORITY, i);
+    let seniority = match sen_cell {
+        Cell::Null => u32::MAX,
+        Cell::Str(s) if s.trim().is_empty() => u32::MAX,
+        c => {
+            let mut b = String::new();
+            panel.seniorities.id(text_of(&c, &mut b))
+        }
+    };
+    Ok(CdsQuoteRow {
+        date,
+        entity,
+        currency,
+        tenor,
+        quote,
+        recovery: recovery.unwrap_or(f64::NAN),
+        seniority,
+        file: fidx,
+        row: row as u32,
+    })
 }

@@ -1,11 +1,11 @@
 //! The `discount` table: date, currency, tenor, zero_rate (continuously compounded,
 //! Actual/365 Fixed, decimal).
 
-use super::source::{read_table, ColumnSpec, Kind, RawTable, Reject};
+use super::cds::{number, required_date, required_text};
+use super::source::{read_table_batches, ColumnSpec, Kind, Reject, TableInfo};
 use crate::error::Result;
 use crate::time::Tenor;
 use chrono::NaiveDate;
-use std::collections::HashMap;
 use std::path::Path;
 
 pub const TABLE: &str = "discount";
@@ -32,87 +32,92 @@ pub struct DiscountRow {
 pub struct DiscountTable {
     pub rows: Vec<DiscountRow>,
     pub rejects: Vec<Reject>,
-    pub rows_in: usize,
-    pub ignored_columns: Vec<String>,
+    pub info: TableInfo,
 }
 
-/// A zero rate beyond this size (in absolute value) is taken for a unit error (percent typed
-/// for a decimal); real curves stay far inside it.
-pub const MAX_ABS_ZERO_RATE: f64 = 0.5;
-
-pub fn read(path: &Path) -> Result<DiscountTable> {
-    let raw = read_table(TABLE, path, SPECS)?;
-    Ok(parse(&raw))
-}
-
-fn reject(source: &str, row: u64, reason: &'static str, detail: String) -> Reject {
-    Reject { table: TABLE, source: source.to_string(), row, reason, detail }
-}
-
-pub fn parse(raw: &RawTable) -> DiscountTable {
-    let mut out = DiscountTable { rows_in: raw.rows(), ignored_columns: raw.ignored_columns.clone(), ..Default::default() };
-    for file in &raw.files {
+/// Reads the zero rates; a rate outside `band` (decimal, inclusive) is rejected as implausible.
+pub fn read(path: &Path, band: (f64, f64)) -> Result<DiscountTable> {
+    let mut out = DiscountTable::default();
+    let info = read_table_batches(TABLE, path, SPECS, |file| {
         let src = file.source();
         for i in 0..file.height {
-            let row = i as u64 + 1;
+            let row = file.file_row(i);
             let r = (|| {
-                let dc = file.cell(0, i);
-                let date = match dc.date() {
-                    Ok(Some(d)) => d,
-                    Ok(None) => return Err(reject(&src, row, "missing_value", "column date is empty".into())),
-                    Err(()) => return Err(reject(&src, row, "bad_date", format!("column date: {} is not an ISO date yyyy-mm-dd", dc.show()))),
-                };
-                let currency = file.cell(1, i).text().ok_or_else(|| reject(&src, row, "missing_value", "column currency is empty".into()))?;
-                let tenor_text = file.cell(2, i).text().ok_or_else(|| reject(&src, row, "missing_value", "column tenor is empty".into()))?;
+                let date = required_date(file.cell(0, i), TABLE, "date", &src, row)?;
+                let currency = required_text(file.cell(1, i), TABLE, "currency", &src, row)?.text().unwrap_or_default();
+                let tenor_text = required_text(file.cell(2, i), TABLE, "tenor", &src, row)?.text().unwrap_or_default();
                 let tenor: Tenor = tenor_text
                     .parse()
-                    .map_err(|e: crate::time::tenor::TenorError| reject(&src, row, "unknown_tenor", format!("column tenor: {e}")))?;
-                let zc = file.cell(3, i);
-                let z = match zc.number() {
-                    Ok(Some(z)) if z.is_finite() => z,
-                    Ok(None) => return Err(reject(&src, row, "missing_value", "column zero_rate is empty".into())),
-                    _ => return Err(reject(&src, row, "unparseable_number", format!("column zero_rate: {} is not a number", zc.show()))),
-                };
-                if z.abs() > MAX_ABS_ZERO_RATE {
-                    return Err(reject(&src, row, "implausible_rate", format!("column zero_rate: {z} is not a decimal rate (|z| > {MAX_ABS_ZERO_RATE}); percent typed for a decimal?")));
+                    .map_err(|e: crate::time::tenor::TenorError| Reject::new(TABLE, &src, row, "unknown_tenor", format!("column tenor: {e}")))?;
+                let z = number(file.cell(3, i), TABLE, "zero_rate", &src, row)?
+                    .ok_or_else(|| Reject::new(TABLE, &src, row, "missing_value", "column zero_rate is empty".into()))?;
+                if z < band.0 || z > band.1 {
+                    return Err(Reject::new(
+                        TABLE,
+                        &src,
+                        row,
+                        "implausible_rate",
+                        format!("column zero_rate: {z} is outside the plausible band [{}, {}] (decimal, not percent)", band.0, band.1),
+                    ));
                 }
                 Ok(DiscountRow { date, currency, tenor, zero_rate: z, source: src.clone(), row })
             })();
             match r {
                 Ok(r) => out.rows.push(r),
-                Err(e) => out.rejects.push(e),
+                Err(mut e) => {
+                    e.date = file.cell(0, i).date().ok().flatten();
+                    e.key = [file.cell(1, i).text(), file.cell(2, i).text()].into_iter().flatten().collect::<Vec<_>>().join(" ");
+                    out.rejects.push(e)
+                }
             }
         }
-    }
-    // Duplicate pillars: identical repeats keep the first; conflicting values reject the key.
-    let mut seen: HashMap<(NaiveDate, String, Tenor), usize> = HashMap::new();
-    let mut bad_keys: std::collections::HashSet<(NaiveDate, String, Tenor)> = Default::default();
-    let mut keep = vec![true; out.rows.len()];
-    for (i, r) in out.rows.iter().enumerate() {
-        let key = (r.date, r.currency.clone(), r.tenor);
-        if let Some(&j) = seen.get(&key) {
-            keep[i] = false;
-            let f = &out.rows[j];
-            if f.zero_rate == r.zero_rate {
-                out.rejects.push(reject(&r.source, r.row, "duplicate_row", format!("repeats {} row {}", f.source, f.row)));
-            } else {
-                bad_keys.insert(key);
-                out.rejects.push(reject(&r.source, r.row, "conflicting_duplicate", format!("{} {} {} also given, differently, in {} row {}", r.date, r.currency, r.tenor, f.source, f.row)));
+    })?;
+    out.info = info;
+    dedupe(&mut out);
+    Ok(out)
+}
+
+/// Duplicate pillars: identical repeats keep the first; conflicting values reject the key.
+fn dedupe(out: &mut DiscountTable) {
+    let mut order: Vec<usize> = (0..out.rows.len()).collect();
+    order.sort_by(|&a, &b| {
+        let (x, y) = (&out.rows[a], &out.rows[b]);
+        (x.date, &x.currency, x.tenor, a).cmp(&(y.date, &y.currency, y.tenor, b))
+    });
+    let mut drop: Vec<Option<(&'static str, String)>> = vec![None; out.rows.len()];
+    let mut i = 0;
+    while i < order.len() {
+        let first = &out.rows[order[i]];
+        let mut j = i + 1;
+        while j < order.len() {
+            let r = &out.rows[order[j]];
+            if (r.date, &r.currency, r.tenor) != (first.date, &first.currency, first.tenor) {
+                break;
             }
-        } else {
-            seen.insert(key, i);
+            j += 1;
         }
+        if j - i > 1 {
+            let conflicting = order[i + 1..j].iter().any(|&k| out.rows[k].zero_rate != first.zero_rate);
+            for (n, &k) in order[i..j].iter().enumerate() {
+                if conflicting {
+                    drop[k] = Some(("conflicting_duplicate", format!("{} {} {} is given {} times with different rates", first.date, first.currency, first.tenor, j - i)));
+                } else if n > 0 {
+                    drop[k] = Some(("duplicate_row", format!("repeats {} row {}", first.source, first.row)));
+                }
+            }
+        }
+        i = j;
     }
     let rows = std::mem::take(&mut out.rows);
-    for (i, r) in rows.into_iter().enumerate() {
-        if !keep[i] {
-            continue;
-        }
-        if bad_keys.contains(&(r.date, r.currency.clone(), r.tenor)) {
-            out.rejects.push(reject(&r.source, r.row, "conflicting_duplicate", format!("{} {} {} is given more than once with different values", r.date, r.currency, r.tenor)));
-        } else {
-            out.rows.push(r);
+    for (k, r) in rows.into_iter().enumerate() {
+        match drop[k].take() {
+            Some((reason, detail)) => {
+                let mut rej = Reject::new(TABLE, &r.source, r.row, reason, detail);
+                rej.date = Some(r.date);
+                rej.key = format!("{} {}", r.currency, r.tenor);
+                out.rejects.push(rej);
+            }
+            None => out.rows.push(r),
         }
     }
-    out
 }

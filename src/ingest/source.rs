@@ -5,8 +5,8 @@ use chrono::NaiveDate;
 use polars::prelude::*;
 use std::path::{Path, PathBuf};
 
-/// One rejected input row: which table, which file and 1-based data row, a reason code and a
-/// sentence with the offending value.
+/// One rejected input row: which table, which file and 1-based data row, the row's key, a
+/// reason code and a sentence with the offending value.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Reject {
     pub table: &'static str,
@@ -16,6 +16,17 @@ pub struct Reject {
     /// A short stable code, e.g. `unparseable_number`.
     pub reason: &'static str,
     pub detail: String,
+    /// Key columns of the row, where they could be read.
+    pub date: Option<NaiveDate>,
+    pub entity: Option<String>,
+    /// The rest of the key (tenor, currency, bond, grade, ...), as text.
+    pub key: String,
+}
+
+impl Reject {
+    pub fn new(table: &'static str, source: &str, row: u64, reason: &'static str, detail: String) -> Reject {
+        Reject { table, source: source.to_string(), row, reason, detail, date: None, entity: None, key: String::new() }
+    }
 }
 
 /// A value as read, before it is interpreted.
@@ -84,13 +95,17 @@ enum Values {
     Str(StringChunked),
     F64(Float64Chunked),
     Date(Int32Chunked),
+    /// A value taken from a hive partition folder name (`date=2021-03-31/`).
+    Const(String),
     Absent,
 }
 
-/// One file of a table, with the columns a reader asked for.
+/// One batch of rows of one file of a table, with the columns a reader asked for.
 pub struct RawFile {
     pub path: PathBuf,
     pub height: usize,
+    /// 0-based row of the file where this batch starts.
+    pub row_offset: usize,
     columns: Vec<(String, Values)>,
 }
 
@@ -106,8 +121,14 @@ impl RawFile {
             Values::Date(ca) => ca.get(row).map_or(Cell::Null, |d| {
                 NaiveDate::from_num_days_from_ce_opt(d + EPOCH_CE_DAYS).map_or(Cell::Null, Cell::Date)
             }),
+            Values::Const(v) => Cell::Str(v),
             Values::Absent => Cell::Null,
         }
+    }
+
+    /// 1-based data row in the file of the batch's `i`-th row.
+    pub fn file_row(&self, i: usize) -> u64 {
+        (self.row_offset + i) as u64 + 1
     }
 
     pub fn has_column(&self, column: usize) -> bool {
@@ -116,20 +137,6 @@ impl RawFile {
 
     pub fn source(&self) -> String {
         self.path.display().to_string()
-    }
-}
-
-/// A whole table: its files in a fixed (sorted) order.
-pub struct RawTable {
-    pub name: &'static str,
-    pub files: Vec<RawFile>,
-    /// Extra columns present in the files and ignored.
-    pub ignored_columns: Vec<String>,
-}
-
-impl RawTable {
-    pub fn rows(&self) -> usize {
-        self.files.iter().map(|f| f.height).sum()
     }
 }
 
@@ -183,7 +190,7 @@ fn extension(p: &Path) -> Option<String> {
     p.extension().and_then(|e| e.to_str()).map(|e| e.to_ascii_lowercase())
 }
 
-fn read_frame(path: &Path) -> Result<DataFrame> {
+fn scan(path: &Path) -> Result<(LazyFrame, &'static str)> {
     let shown = path.display().to_string();
     match extension(path).as_deref() {
         Some("csv") => {
@@ -193,14 +200,28 @@ fn read_frame(path: &Path) -> Result<DataFrame> {
                 .with_infer_schema_length(Some(0))
                 .with_has_header(true)
                 .finish()
-                .and_then(|lf| lf.collect())
+                .map(|lf| (lf, "CSV"))
                 .map_err(|e| Error::Read { path: path.to_path_buf(), format: "CSV", message: e.to_string() })
         }
-        Some("parquet") => LazyFrame::scan_parquet(PlRefPath::new(shown.as_str()), ScanArgsParquet::default())
-            .and_then(|lf| lf.collect())
-            .map_err(|e| Error::Read { path: path.to_path_buf(), format: "Parquet", message: e.to_string() }),
+        Some("parquet") => {
+            let args = ScanArgsParquet { hive_options: HiveOptions::new_disabled(), ..ScanArgsParquet::default() };
+            LazyFrame::scan_parquet(PlRefPath::new(shown.as_str()), args)
+                .map(|lf| (lf, "Parquet"))
+                .map_err(|e| Error::Read { path: path.to_path_buf(), format: "Parquet", message: e.to_string() })
+        }
         _ => Err(Error::UnknownFormat { path: path.to_path_buf() }),
     }
+}
+
+/// `name=value` folder names between the table's root and the file (hive partitioning).
+fn hive_values(root: &Path, file: &Path) -> Vec<(String, String)> {
+    let rel = file.strip_prefix(root).unwrap_or(file);
+    rel.parent()
+        .into_iter()
+        .flat_map(|p| p.components())
+        .filter_map(|c| c.as_os_str().to_str())
+        .filter_map(|c| c.split_once('=').map(|(k, v)| (k.to_string(), v.to_string())))
+        .collect()
 }
 
 fn expected(kind: Kind) -> &'static str {
@@ -246,38 +267,89 @@ fn values_of(path: &Path, table: &'static str, spec: &ColumnSpec, col: &Column) 
     }
 }
 
-/// Reads every file of a table and checks its columns against `specs`.
-pub fn read_table(table: &'static str, path: &Path, specs: &[ColumnSpec]) -> Result<RawTable> {
+/// What was read of a table, beyond its rows.
+#[derive(Debug, Clone, Default)]
+pub struct TableInfo {
+    pub files: Vec<PathBuf>,
+    pub rows: usize,
+    /// Extra columns present in the files and ignored.
+    pub ignored_columns: Vec<String>,
+}
+
+/// Rows per batch for Parquet files: large panels are read in slices so that memory holds one
+/// batch of raw columns at a time, never the whole file.
+pub const PARQUET_BATCH_ROWS: usize = 4_000_000;
+
+/// Reads every file of a table (in sorted path order) in batches, checks its columns against
+/// `specs` up front, and hands each batch to `each`.
+pub fn read_table_batches(
+    table: &'static str,
+    path: &Path,
+    specs: &[ColumnSpec],
+    mut each: impl FnMut(&RawFile),
+) -> Result<TableInfo> {
     let files = table_files(path)?;
-    let mut out = Vec::with_capacity(files.len());
-    let mut ignored: Vec<String> = Vec::new();
+    let mut info = TableInfo { files: files.clone(), ..TableInfo::default() };
     for file in files {
-        let df = read_frame(&file)?;
-        let names: Vec<String> = df.get_column_names().iter().map(|s| s.to_string()).collect();
-        let mut columns = Vec::with_capacity(specs.len());
+        let (mut lf, format) = scan(&file)?;
+        let schema = lf
+            .collect_schema()
+            .map_err(|e| Error::Read { path: file.clone(), format, message: e.to_string() })?;
+        let names: Vec<String> = schema.iter_names().map(|s| s.to_string()).collect();
+        let hive = if path.is_dir() { hive_values(path, &file) } else { Vec::new() };
+        // Schema check before any row is read.
+        let mut present: Vec<&'static str> = Vec::new();
         for spec in specs {
-            match df.column(spec.name) {
-                Ok(col) => columns.push((spec.name.to_string(), values_of(&file, table, spec, col)?)),
-                Err(_) if spec.required => {
-                    return Err(Error::MissingColumn {
-                        path: file.clone(),
-                        table,
-                        column: spec.name.to_string(),
-                        found: names.join(", "),
-                    })
-                }
-                Err(_) => columns.push((spec.name.to_string(), Values::Absent)),
+            let in_file = names.iter().any(|n| n == spec.name);
+            let in_path = hive.iter().any(|(k, _)| k == spec.name);
+            if in_file {
+                present.push(spec.name);
+            } else if spec.required && !in_path {
+                return Err(Error::MissingColumn { path: file.clone(), table, column: spec.name.to_string(), found: names.join(", ") });
             }
         }
         for n in &names {
-            if !specs.iter().any(|s| s.name == n) && !ignored.contains(n) {
-                ignored.push(n.clone());
+            if !specs.iter().any(|s| s.name == n) && !info.ignored_columns.contains(n) {
+                info.ignored_columns.push(n.clone());
             }
         }
-        out.push(RawFile { path: file, height: df.height(), columns });
+        let projected = lf.select(present.iter().map(|n| col(*n)).collect::<Vec<_>>());
+        let batch = if format == "Parquet" { PARQUET_BATCH_ROWS } else { usize::MAX };
+        let mut offset = 0usize;
+        loop {
+            let frame = if batch == usize::MAX {
+                projected.clone().collect()
+            } else {
+                projected.clone().slice(offset as i64, batch as IdxSize).collect()
+            }
+            .map_err(|e| Error::Read { path: file.clone(), format, message: e.to_string() })?;
+            let height = frame.height();
+            if height == 0 && offset > 0 {
+                break;
+            }
+            let mut columns = Vec::with_capacity(specs.len());
+            for spec in specs {
+                let values = match frame.column(spec.name) {
+                    Ok(c) => values_of(&file, table, spec, c)?,
+                    Err(_) => match hive.iter().find(|(k, _)| k == spec.name) {
+                        Some((_, v)) => Values::Const(v.clone()),
+                        None => Values::Absent,
+                    },
+                };
+                columns.push((spec.name.to_string(), values));
+            }
+            drop(frame);
+            let raw = RawFile { path: file.clone(), height, row_offset: offset, columns };
+            each(&raw);
+            info.rows += height;
+            offset += height;
+            if height < batch {
+                break;
+            }
+        }
     }
-    if !ignored.is_empty() {
-        tracing::info!(table, columns = %ignored.join(", "), "extra columns ignored");
+    if !info.ignored_columns.is_empty() {
+        tracing::info!(table, columns = %info.ignored_columns.join(", "), "extra columns ignored");
     }
-    Ok(RawTable { name: table, files: out, ignored_columns: ignored })
+    Ok(info)
 }

@@ -1,5 +1,6 @@
 //! Instruments: terms of a contract and the formulas that price them on given curves.
 
+pub mod bond;
 pub mod cds;
 
 pub use cds::{AccrualIntegration, CdsContract, CdsLegs, CdsQuote};

@@ -3,7 +3,8 @@
 
 use super::parquet::{write_parquet, TableBuilder};
 use crate::error::Result;
-use crate::ingest::Reject;
+use crate::ingest::load::DataQualityRow;
+use crate::ingest::{QualityFlag, Reject};
 use chrono::NaiveDate;
 use std::path::Path;
 
@@ -92,8 +93,56 @@ pub fn write_rejects(rows: &[Reject], path: &Path, meta: &[(String, String)]) ->
         .strings("table", rows.iter().map(|r| Some(r.table)))
         .strings("source", rows.iter().map(|r| Some(&r.source)))
         .ints("row", rows.iter().map(|r| Some(r.row as i64)))
+        .dates("date", rows.iter().map(|r| r.date))
+        .strings("entity", rows.iter().map(|r| r.entity.as_deref()))
+        .strings("key", rows.iter().map(|r| Some(&r.key)))
         .strings("reason", rows.iter().map(|r| Some(r.reason)))
         .strings("detail", rows.iter().map(|r| Some(&r.detail)))
+        .finish()?;
+    write_parquet(&mut df, path, meta)
+}
+
+pub fn write_data_quality(rows: &[DataQualityRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
+    let mut df = TableBuilder::new()
+        .strings("scope", rows.iter().map(|r| Some(r.scope)))
+        .strings("table", rows.iter().map(|r| Some(r.table)))
+        .dates("date", rows.iter().map(|r| r.date))
+        .strings("entity", rows.iter().map(|r| r.entity.as_deref()))
+        .ints("rows_read", rows.iter().map(|r| Some(r.rows_read as i64)))
+        .ints("rows_used", rows.iter().map(|r| Some(r.rows_used as i64)))
+        .ints("rows_rejected", rows.iter().map(|r| Some(r.rows_rejected as i64)))
+        .ints("rows_flagged", rows.iter().map(|r| Some(r.rows_flagged as i64)))
+        .dates("first_date", rows.iter().map(|r| r.first_date))
+        .dates("last_date", rows.iter().map(|r| r.last_date))
+        .ints("days_quoted", rows.iter().map(|r| r.days_quoted.map(|v| v as i64)))
+        .floats("coverage", rows.iter().map(|r| r.coverage))
+        .ints("stale_rows", rows.iter().map(|r| r.stale_rows.map(|v| v as i64)))
+        .ints("spike_rows", rows.iter().map(|r| r.spike_rows.map(|v| v as i64)))
+        .finish()?;
+    let mut meta = meta.to_vec();
+    meta.push((
+        "hazardline.scopes".into(),
+        "date: per table and date; table: per table without a date column; entity: per entity of cds_quotes (coverage = days quoted / business days of the panel)".into(),
+    ));
+    write_parquet(&mut df, path, &meta)
+}
+
+/// Data-quality flags in the shape of the flags table (rule, severity, entity, series, period,
+/// date, value, threshold, explanation), with the table, source file and row they point to.
+pub fn write_quality_flags(rows: &[QualityFlag], path: &Path, meta: &[(String, String)]) -> Result<()> {
+    let mut df = TableBuilder::new()
+        .strings("rule", rows.iter().map(|r| Some(r.rule)))
+        .strings("severity", rows.iter().map(|r| Some(r.severity)))
+        .strings("entity", rows.iter().map(|r| Some(&r.entity)))
+        .strings("series", rows.iter().map(|r| Some(&r.series)))
+        .strings("period", rows.iter().map(|r| Some(r.date.format("%Y-%m-%d").to_string())))
+        .dates("date", rows.iter().map(|r| Some(r.date)))
+        .floats("value", rows.iter().map(|r| Some(r.value)))
+        .floats("threshold", rows.iter().map(|r| Some(r.threshold)))
+        .strings("explanation", rows.iter().map(|r| Some(&r.explanation)))
+        .strings("table", rows.iter().map(|r| Some(r.table)))
+        .strings("source", rows.iter().map(|r| Some(&r.source)))
+        .ints("row", rows.iter().map(|r| Some(r.row as i64)))
         .finish()?;
     write_parquet(&mut df, path, meta)
 }

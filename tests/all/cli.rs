@@ -5,6 +5,13 @@ use assert_cmd::Command;
 use polars::prelude::*;
 use std::path::Path;
 
+/// (rows in, used, rejected) of `table` from the printed accounting.
+fn counts(stdout: &str, table: &str) -> (u64, u64, u64) {
+    let line = stdout.lines().find(|l| l.split_whitespace().next() == Some(table)).unwrap_or_else(|| panic!("no {table} line in {stdout}"));
+    let v: Vec<u64> = line.split_whitespace().skip(1).map(|x| x.parse().unwrap()).collect();
+    (v[0], v[1], v[2])
+}
+
 fn write(dir: &Path, name: &str, text: &str) -> std::path::PathBuf {
     let p = dir.join(name);
     std::fs::write(&p, text).unwrap();
@@ -51,8 +58,8 @@ fn calibrate_writes_tables_and_accounts_for_every_row() {
         .assert()
         .success();
     let stdout = String::from_utf8(assert.get_output().stdout.clone()).unwrap();
-    assert!(stdout.contains("cds_quotes: 17 rows in = 12 used + 5 rejected"), "{stdout}");
-    assert!(stdout.contains("discount:   8 rows in = 8 used + 0 rejected"), "{stdout}");
+    assert_eq!(counts(&stdout, "cds_quotes"), (17, 12, 5), "{stdout}");
+    assert_eq!(counts(&stdout, "discount"), (8, 8, 0), "{stdout}");
 
     let read = |name: &str| {
         let p = out.join(name);
@@ -145,5 +152,5 @@ fn parquet_folder_input_is_read() {
         .assert()
         .success();
     let stdout = String::from_utf8(assert.get_output().stdout.clone()).unwrap();
-    assert!(stdout.contains("cds_quotes: 6 rows in = 6 used + 0 rejected"), "{stdout}");
+    assert_eq!(counts(&stdout, "cds_quotes"), (6, 6, 0), "{stdout}");
 }

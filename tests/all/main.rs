@@ -3,5 +3,6 @@
 mod cli;
 mod closed_forms;
 mod properties;
+mod quality;
 mod reference_quantlib;
 mod support;

@@ -1,0 +1,49 @@
+//! The `check` stage: ingestion and data quality only, no calibration.
+//!
+//! Reads any of the input tables, applies every data-quality rule, and writes rejects,
+//! data_quality and quality_flags (Parquet) when an output folder is given.
+
+use super::calibrate::top_reasons;
+use crate::error::Result;
+use crate::ingest::{load, InputPaths, QualitySettings, TableCounts};
+use crate::report::tables::{write_data_quality, write_quality_flags, write_rejects};
+use crate::time::Calendar;
+use std::collections::BTreeMap;
+use std::path::PathBuf;
+
+#[derive(Debug, Clone)]
+pub struct CheckSettings {
+    pub inputs: InputPaths,
+    pub calendar: Calendar,
+    pub quality: QualitySettings,
+    pub out: Option<PathBuf>,
+}
+
+#[derive(Debug, Clone, Default)]
+pub struct CheckSummary {
+    pub counts: Vec<TableCounts>,
+    pub top_reasons: Vec<(String, &'static str, usize)>,
+    pub flags_by_rule: BTreeMap<&'static str, usize>,
+    pub outputs: Vec<PathBuf>,
+}
+
+pub fn run(s: &CheckSettings) -> Result<CheckSummary> {
+    let ds = load(&s.inputs, &s.calendar, &s.quality)?;
+    let mut summary = CheckSummary { counts: ds.counts.clone(), top_reasons: top_reasons(&ds.rejects, 10), ..Default::default() };
+    for f in &ds.flags {
+        *summary.flags_by_rule.entry(f.rule).or_default() += 1;
+    }
+    if let Some(out) = &s.out {
+        let meta = vec![
+            ("hazardline.version".to_string(), env!("CARGO_PKG_VERSION").to_string()),
+            ("hazardline.stage".to_string(), "check".to_string()),
+            ("hazardline.quality".to_string(), format!("{:?}", s.quality)),
+        ];
+        let paths = [out.join("rejects.parquet"), out.join("data_quality.parquet"), out.join("quality_flags.parquet")];
+        write_rejects(&ds.rejects, &paths[0], &meta)?;
+        write_data_quality(&ds.data_quality, &paths[1], &meta)?;
+        write_quality_flags(&ds.flags, &paths[2], &meta)?;
+        summary.outputs = paths.to_vec();
+    }
+    Ok(summary)
+}

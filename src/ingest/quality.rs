@@ -1,0 +1,389 @@
+//! Data-quality rules that need more than one row: duplicates, quotes after default, unit slips
+//! (percent typed for basis points, or the reverse), and the non-rejecting flags (stale runs,
+//! one-day spikes that revert, curves with too few tenors, inverted curves).
+//!
+//! Works on the panel's plain rows; every threshold comes from [`QualitySettings`] and is
+//! printed in the outputs. A flag never removes a row; a reject always says why.
+
+use super::cds::{CdsPanel, CdsQuoteRow};
+use crate::time::serial;
+use chrono::NaiveDate;
+use rayon::prelude::*;
+
+/// Thresholds of the data-quality rules (defaults are documented with each field).
+#[derive(Debug, Clone, PartialEq)]
+pub struct QualitySettings {
+    /// Par spreads above this (bp) are rejected as implausible. Default 20,000 bp: distressed
+    /// names trade on upfront well before that.
+    pub max_spread_bp: f64,
+    /// Plausible band of zero rates (decimal). Default [-0.05, 0.30].
+    pub zero_rate_band: (f64, f64),
+    /// Plausible band of clean bond prices (percent of face). Default [1, 250].
+    pub bond_price_band: (f64, f64),
+    /// A quote unchanged for this many business days in a row is flagged stale. Default 5.
+    pub stale_days: usize,
+    /// A daily log change whose robust z-score (median / 1.4826 MAD of the series' daily log
+    /// changes) exceeds this, and that reverts the next day, is a spike. Default 8.
+    pub spike_z: f64,
+    /// ... and whose size exceeds this log move (default 0.25, about 28%), so that quiet
+    /// series with a tiny MAD do not flag ordinary moves.
+    pub spike_min_log_move: f64,
+    /// Share of the jump the next day's change must undo, in the opposite direction. Default 0.5.
+    pub spike_revert_share: f64,
+    /// A quote this many times above or below its series' median is off-scale. Default 30
+    /// (a percent/bp slip is a factor of 100).
+    pub unit_slip_ratio: f64,
+    /// Off-scale quotes on at least this many consecutive observations are a unit slip and are
+    /// rejected; a single one is left to the spike rule. Default 2.
+    pub unit_slip_min_run: usize,
+    /// A curve (date, entity, currency) with fewer usable tenors is flagged. Default 3.
+    pub min_tenors: usize,
+}
+
+impl Default for QualitySettings {
+    fn default() -> Self {
+        QualitySettings {
+            max_spread_bp: 20_000.0,
+            zero_rate_band: (-0.05, 0.30),
+            bond_price_band: (1.0, 250.0),
+            stale_days: 5,
+            spike_z: 8.0,
+            spike_min_log_move: 0.25,
+            spike_revert_share: 0.5,
+            unit_slip_ratio: 30.0,
+            unit_slip_min_run: 2,
+            min_tenors: 3,
+        }
+    }
+}
+
+/// Row flag bits.
+pub const FLAG_STALE: u8 = 1;
+pub const FLAG_SPIKE: u8 = 2;
+pub const FLAG_FEW_TENORS: u8 = 4;
+pub const FLAG_INVERTED: u8 = 8;
+
+/// A non-rejecting finding, in the shape of the flags table.
+#[derive(Debug, Clone, PartialEq)]
+pub struct QualityFlag {
+    /// `stale_run`, `spike`, `few_tenors`, `inverted_curve`.
+    pub rule: &'static str,
+    pub severity: &'static str,
+    pub table: &'static str,
+    pub entity: String,
+    /// What the flag is about: `USD 5Y` for a quote series, `USD curve` for a curve.
+    pub series: String,
+    pub date: NaiveDate,
+    pub value: f64,
+    pub threshold: f64,
+    pub explanation: String,
+    pub source: String,
+    pub row: u64,
+}
+
+/// Sort key of a row by (entity, currency, tenor, date, file, row).
+fn series_key(r: &CdsQuoteRow) -> u128 {
+    ((r.entity as u128) << 96)
+        | ((r.currency as u128 & 0xFFFF) << 80)
+        | ((r.tenor.months() as u128 & 0x3FF) << 70)
+        | ((serial(r.date) as u128 & 0xF_FFFF) << 50)
+        | ((r.file as u128 & 0xFFFF) << 32)
+        | r.row as u128
+}
+
+fn median(v: &mut [f64]) -> f64 {
+    let n = v.len();
+    let mid = n / 2;
+    v.select_nth_unstable_by(mid, f64::total_cmp);
+    let hi = v[mid];
+    if n % 2 == 1 {
+        hi
+    } else {
+        let lo = v[..mid].iter().copied().fold(f64::NEG_INFINITY, f64::max);
+        0.5 * (lo + hi)
+    }
+}
+
+/// Runs the CDS rules on `panel`: rejected rows move to `panel.rejects`, kept rows are sorted
+/// by (date, entity name, currency name, tenor) and get their flag bits in the returned vector
+/// (parallel to `panel.rows`). `first_default[entity id]` is the entity's first default date.
+pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &QualitySettings) -> (Vec<u8>, Vec<QualityFlag>) {
+    let rows = std::mem::take(&mut panel.rows);
+    let n = rows.len();
+    let mut order: Vec<u32> = (0..n as u32).collect();
+    order.par_sort_unstable_by_key(|&i| series_key(&rows[i as usize]));
+    let mut drop: Vec<Option<(&'static str, String)>> = vec![None; n];
+    let mut flags = vec![0u8; n];
+    let mut findings: Vec<QualityFlag> = Vec::new();
+
+    // Duplicates: adjacent in the order with the same (entity, currency, tenor, date).
+    let same_key = |a: &CdsQuoteRow, b: &CdsQuoteRow| a.entity == b.entity && a.currency == b.currency && a.tenor == b.tenor && a.date == b.date;
+    let mut i = 0;
+    while i < n {
+        let first = &rows[order[i] as usize];
+        let mut j = i + 1;
+        while j < n && same_key(first, &rows[order[j] as usize]) {
+            j += 1;
+        }
+        if j - i > 1 {
+            let conflicting = order[i + 1..j].iter().any(|&k| {
+                let r = &rows[k as usize];
+                r.quote != first.quote || r.recovery.to_bits() != first.recovery.to_bits()
+            });
+            for (m, &k) in order[i..j].iter().enumerate() {
+                if conflicting {
+                    drop[k as usize] = Some(("conflicting_duplicate", format!("quoted {} times on this date with different values; none is used", j - i)));
+                } else if m > 0 {
+                    drop[k as usize] = Some(("duplicate_row", format!("repeats {} row {}", panel.source(first), first.row)));
+                }
+            }
+        }
+        i = j;
+    }
+
+    // Quotes after the entity's default.
+    for (k, r) in rows.iter().enumerate() {
+        if drop[k].is_none() {
+            if let Some(Some(d)) = first_default.get(r.entity as usize) {
+                if r.date > *d {
+                    drop[k] = Some(("after_default", format!("quote dated {} after the entity's default on {d}", r.date)));
+                }
+            }
+        }
+    }
+
+    // Series rules: per (entity, currency, tenor), par-spread quotes in date order.
+    let mut start = 0;
+    let mut series: Vec<usize> = Vec::new();
+    let mut values: Vec<f64> = Vec::new();
+    let mut scratch: Vec<f64> = Vec::new();
+    while start < n {
+        let head = &rows[order[start] as usize];
+        let mut end = start + 1;
+        while end < n {
+            let r = &rows[order[end] as usize];
+            if r.entity != head.entity || r.currency != head.currency || r.tenor != head.tenor {
+                break;
+            }
+            end += 1;
+        }
+        series.clear();
+        values.clear();
+        for &k in &order[start..end] {
+            let k = k as usize;
+            if drop[k].is_none() {
+                if let Some(v) = rows[k].spread_bp() {
+                    series.push(k);
+                    values.push(v);
+                }
+            }
+        }
+        series_rules(panel, &rows, &series, &values, &mut scratch, &mut drop, &mut flags, &mut findings, s);
+        start = end;
+    }
+
+    // Move rejects out; sort the kept rows by (date, entity name, currency name, tenor).
+    let ent_rank = panel.entities.ranks();
+    let ccy_rank = panel.currencies.ranks();
+    let mut kept: Vec<(CdsQuoteRow, u8)> = Vec::with_capacity(n);
+    for (k, r) in rows.into_iter().enumerate() {
+        match drop[k].take() {
+            Some((reason, detail)) => {
+                let rej = panel.reject(&r, reason, detail);
+                panel.rejects.push(rej);
+            }
+            None => kept.push((r, flags[k])),
+        }
+    }
+    kept.par_sort_unstable_by_key(|(r, _)| (serial(r.date), ent_rank[r.entity as usize], ccy_rank[r.currency as usize], r.tenor, r.file, r.row));
+
+    // Curve rules per (date, entity, currency).
+    let mut i = 0;
+    while i < kept.len() {
+        let h = kept[i].0;
+        let mut j = i + 1;
+        while j < kept.len() && kept[j].0.date == h.date && kept[j].0.entity == h.entity && kept[j].0.currency == h.currency {
+            j += 1;
+        }
+        let count = j - i;
+        let curve = format!("{} curve", panel.currencies.name(h.currency));
+        if count < s.min_tenors {
+            for x in &mut kept[i..j] {
+                x.1 |= FLAG_FEW_TENORS;
+            }
+            findings.push(QualityFlag {
+                rule: "few_tenors",
+                severity: "warning",
+                table: super::cds::TABLE,
+                entity: panel.entities.name(h.entity).to_string(),
+                series: curve.clone(),
+                date: h.date,
+                value: count as f64,
+                threshold: s.min_tenors as f64,
+                explanation: format!("only {count} usable tenor(s) on this date, fewer than the {} asked for", s.min_tenors),
+                source: panel.source(&h).to_string(),
+                row: h.row as u64,
+            });
+        }
+        let (short, long) = (kept[i].0, kept[j - 1].0);
+        if let (Some(a), Some(b)) = (short.spread_bp(), long.spread_bp()) {
+            if count >= 2 && a > b {
+                for x in &mut kept[i..j] {
+                    x.1 |= FLAG_INVERTED;
+                }
+                findings.push(QualityFlag {
+                    rule: "inverted_curve",
+                    severity: "info",
+                    table: super::cds::TABLE,
+                    entity: panel.entities.name(h.entity).to_string(),
+                    series: curve,
+                    date: h.date,
+                    value: a / b,
+                    threshold: 1.0,
+                    explanation: format!("{} spread {a:.1} bp is above {} spread {b:.1} bp", short.tenor, long.tenor),
+                    source: panel.source(&short).to_string(),
+                    row: short.row as u64,
+                });
+            }
+        }
+        i = j;
+    }
+    let (rows, bits): (Vec<CdsQuoteRow>, Vec<u8>) = kept.into_iter().unzip();
+    panel.rows = rows;
+    findings.sort_by(|a, b| (a.date, &a.entity, &a.series, a.rule, a.row).cmp(&(b.date, &b.entity, &b.series, b.rule, b.row)));
+    (bits, findings)
+}
+
+#[allow(clippy::too_many_arguments)]
+fn series_rules(
+    panel: &CdsPanel,
+    rows: &[CdsQuoteRow],
+    series: &[usize],
+    values: &[f64],
+    scratch: &mut Vec<f64>,
+    drop: &mut [Option<(&'static str, String)>],
+    flags: &mut [u8],
+    findings: &mut Vec<QualityFlag>,
+    s: &QualitySettings,
+) {
+    let m = series.len();
+    if m == 0 {
+        return;
+    }
+    let name = |k: usize| -> (String, String) {
+        let r = &rows[k];
+        (panel.entities.name(r.entity).to_string(), format!("{} {}", panel.currencies.name(r.currency), r.tenor))
+    };
+    // Unit slips against the series median.
+    scratch.clear();
+    scratch.extend_from_slice(values);
+    let med = median(scratch);
+    let off: Vec<bool> = values.iter().map(|&v| v >= med * s.unit_slip_ratio || v <= med / s.unit_slip_ratio).collect();
+    let mut keep: Vec<usize> = Vec::with_capacity(m);
+    let mut t = 0;
+    while t < m {
+        if off[t] {
+            let mut u = t;
+            while u < m && off[u] {
+                u += 1;
+            }
+            if u - t >= s.unit_slip_min_run {
+                for q in t..u {
+                    let ratio = values[q] / med;
+                    drop[series[q]] = Some((
+                        "unit_slip",
+                        format!(
+                            "{:.2} bp is {:.1} times the series median of {:.2} bp on {} consecutive quotes: percent typed for basis points, or the reverse",
+                            values[q], ratio, med, u - t
+                        ),
+                    ));
+                }
+            } else {
+                keep.extend(t..u);
+            }
+            t = u;
+        } else {
+            keep.push(t);
+            t += 1;
+        }
+    }
+    if keep.len() < 2 {
+        return;
+    }
+    // Stale runs: the same value on consecutive observations.
+    let mut a = 0;
+    while a < keep.len() {
+        let mut b = a + 1;
+        while b < keep.len() && values[keep[b]] == values[keep[a]] {
+            b += 1;
+        }
+        let repeats = b - a - 1;
+        if repeats >= s.stale_days {
+            for &q in &keep[a + 1..b] {
+                flags[series[q]] |= FLAG_STALE;
+            }
+            let k0 = series[keep[a]];
+            let (e, ser) = name(k0);
+            findings.push(QualityFlag {
+                rule: "stale_run",
+                severity: "warning",
+                table: super::cds::TABLE,
+                entity: e,
+                series: ser,
+                date: rows[series[keep[a + 1]]].date,
+                value: repeats as f64,
+                threshold: s.stale_days as f64,
+                explanation: format!(
+                    "{:.2} bp repeated unchanged on {repeats} further quotes, {} to {}",
+                    values[keep[a]],
+                    rows[series[keep[a + 1]]].date,
+                    rows[series[keep[b - 1]]].date
+                ),
+                source: panel.source(&rows[series[keep[a + 1]]]).to_string(),
+                row: rows[series[keep[a + 1]]].row as u64,
+            });
+        }
+        a = b;
+    }
+    // Spikes: robust z-score of daily log changes, reverting the next observation.
+    let changes: Vec<f64> = keep.windows(2).map(|w| (values[w[1]] / values[w[0]]).ln()).collect();
+    if changes.len() < 2 {
+        return;
+    }
+    scratch.clear();
+    scratch.extend_from_slice(&changes);
+    let cmed = median(scratch);
+    for x in scratch.iter_mut() {
+        *x = (*x - cmed).abs();
+    }
+    let mad = 1.4826 * median(scratch);
+    for c in 0..changes.len() - 1 {
+        let (r, next) = (changes[c], changes[c + 1]);
+        let z = if mad > 0.0 { (r - cmed).abs() / mad } else { f64::INFINITY };
+        if z > s.spike_z && r.abs() > s.spike_min_log_move && next * r < 0.0 && next.abs() >= s.spike_revert_share * r.abs() {
+            let k = series[keep[c + 1]];
+            flags[k] |= FLAG_SPIKE;
+            let (e, ser) = name(k);
+            findings.push(QualityFlag {
+                rule: "spike",
+                severity: "warning",
+                table: super::cds::TABLE,
+                entity: e,
+                series: ser,
+                date: rows[k].date,
+                value: if z.is_finite() { z } else { f64::MAX },
+                threshold: s.spike_z,
+                explanation: format!(
+                    "{:.2} bp jumps {:+.0}% from {:.2} bp and reverts {:+.0}% on the next quote (robust z {:.1})",
+                    values[keep[c + 1]],
+                    (r.exp() - 1.0) * 100.0,
+                    values[keep[c]],
+                    (next.exp() - 1.0) * 100.0,
+                    z
+                ),
+                source: panel.source(&rows[k]).to_string(),
+                row: rows[k].row as u64,
+            });
+        }
+    }
+}

@@ -1,0 +1,3 @@
+//! Intensity models.
+
+pub mod cir;
