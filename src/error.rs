@@ -22,6 +22,8 @@ pub enum Error {
     Read { path: PathBuf, format: &'static str, message: String },
     #[error("{path}: could not be written: {message}")]
     Write { path: PathBuf, message: String },
+    #[error("{path}: {message}")]
+    Config { path: PathBuf, message: String },
     #[error("invalid argument {name}: {message}")]
     Argument { name: &'static str, message: String },
     #[error("{0}")]

@@ -7,11 +7,13 @@
 
 pub mod calibrate;
 pub mod commands;
+pub mod config;
 pub mod curves;
 pub mod error;
 pub mod ingest;
 pub mod instruments;
 pub mod math;
 pub mod models;
+pub mod pipeline;
 pub mod report;
 pub mod time;

@@ -3,7 +3,7 @@
 
 use clap::{Parser, Subcommand, ValueEnum};
 use hazardline::calibrate::{BootstrapSettings, InfeasiblePolicy};
-use hazardline::commands::calibrate::{self, CalibrateSettings};
+use hazardline::commands::calibrate::{self, CalibrateSettings, CalibrationParams};
 use hazardline::commands::check::{self, CheckSettings};
 use hazardline::ingest::{InputPaths, QualitySettings, TableCounts};
 use hazardline::instruments::AccrualIntegration;
@@ -108,6 +108,30 @@ enum Command {
         #[arg(long)]
         out: PathBuf,
     },
+    /// Run the whole pipeline of a pipeline file into <output root>/<name>/<label>/.
+    Run {
+        /// The pipeline file (TOML).
+        pipeline: PathBuf,
+        /// Output root (instead of the pipeline file's report.output_root).
+        #[arg(long)]
+        out: Option<PathBuf>,
+        /// Run label (instead of the pipeline file's report.label).
+        #[arg(long)]
+        label: Option<String>,
+    },
+    /// Re-render report.md and its figures from an earlier run's tables.
+    Report {
+        /// The run folder (holding manifest.json and tables/).
+        run_dir: PathBuf,
+    },
+    /// Write a Markdown comparison of two runs.
+    Compare {
+        run_a: PathBuf,
+        run_b: PathBuf,
+        /// Write to this file instead of standard output.
+        #[arg(long)]
+        out: Option<PathBuf>,
+    },
     /// Read the inputs and run the data-quality rules only: print the row accounting per table
     /// and the top reject reasons; with --out, write rejects, data_quality and quality_flags.
     Check {
@@ -138,24 +162,9 @@ fn init_logging(verbose: u8, quiet: bool) {
         .try_init();
 }
 
-fn read_holidays(path: &PathBuf) -> anyhow::Result<Calendar> {
-    let text = std::fs::read_to_string(path).map_err(|e| anyhow::anyhow!("{}: {e}", path.display()))?;
-    let mut days = Vec::new();
-    for (i, line) in text.lines().enumerate() {
-        let t = line.trim();
-        if t.is_empty() || t.starts_with('#') || t.eq_ignore_ascii_case("date") {
-            continue;
-        }
-        let d = hazardline::time::parse_iso_date(t)
-            .ok_or_else(|| anyhow::anyhow!("{} line {}: {t:?} is not an ISO date yyyy-mm-dd", path.display(), i + 1))?;
-        days.push(d);
-    }
-    Ok(Calendar::with_holidays(days))
-}
-
 fn calendar_of(inputs: &Inputs) -> Result<Calendar, ExitCode> {
     match &inputs.holidays {
-        Some(p) => read_holidays(p).map_err(|e| {
+        Some(p) => hazardline::config::read_holidays(p).map_err(|e| {
             eprintln!("error: {e}");
             ExitCode::from(2)
         }),
@@ -197,8 +206,11 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             let settings = CalibrateSettings {
                 inputs: inputs.paths(),
                 out,
-                recovery,
-                bootstrap: BootstrapSettings {
+                params: CalibrationParams {
+                    recovery,
+                    recovery_by_seniority: Default::default(),
+                    calendar: calendar.clone(),
+                    bootstrap: BootstrapSettings {
                     infeasible: match infeasible {
                         Infeasible::Floor => InfeasiblePolicy::Floor,
                         Infeasible::Fail => InfeasiblePolicy::Fail,
@@ -208,6 +220,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                         Accrual::Exact => AccrualIntegration::Exact,
                     },
                     ..BootstrapSettings::default()
+                    },
                 },
                 calendar,
                 quality: QualitySettings::default(),
@@ -234,6 +247,63 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 }
             }
         }
+        Command::Run { pipeline, out, label } => {
+            let cfg = match hazardline::config::load_pipeline(&pipeline) {
+                Ok(c) => c,
+                Err(e) => {
+                    eprintln!("error: {e}");
+                    return Ok(ExitCode::from(2));
+                }
+            };
+            match hazardline::pipeline::run(&cfg, &hazardline::pipeline::RunOptions { out_root: out, label }) {
+                Ok(s) => {
+                    print_counts(&s.counts);
+                    println!("curves: {} ({} with every node ok); largest |residual| on ok nodes {:.3e} bp", s.curves, s.curves_complete, s.max_abs_residual_bp);
+                    println!("rejected rows: {}; flags: {} ({} red)", s.rejected, s.flags, s.red_flags);
+                    for (stage, secs) in &s.timings {
+                        tracing::info!(stage = stage.as_str(), seconds = secs, "stage finished");
+                    }
+                    println!("report: {}", s.run_dir.join("report.md").display());
+                    if cfg.fail_on_red_flags && s.red_flags > 0 {
+                        return Ok(ExitCode::from(1));
+                    }
+                    Ok(ExitCode::SUCCESS)
+                }
+                Err(e) => {
+                    eprintln!("error: {e}");
+                    Ok(ExitCode::from(e.exit_code() as u8))
+                }
+            }
+        }
+        Command::Report { run_dir } => match hazardline::report::markdown::render(&run_dir) {
+            Ok(()) => {
+                println!("report: {}", run_dir.join("report.md").display());
+                Ok(ExitCode::SUCCESS)
+            }
+            Err(e) => {
+                eprintln!("error: {e}");
+                Ok(ExitCode::from(2))
+            }
+        },
+        Command::Compare { run_a, run_b, out } => match hazardline::commands::compare::compare(&run_a, &run_b) {
+            Ok(text) => {
+                match out {
+                    Some(p) => {
+                        if let Err(e) = hazardline::report::manifest::write_text(&p, &text) {
+                            eprintln!("error: {e}");
+                            return Ok(ExitCode::from(2));
+                        }
+                        println!("wrote {}", p.display());
+                    }
+                    None => print!("{text}"),
+                }
+                Ok(ExitCode::SUCCESS)
+            }
+            Err(e) => {
+                eprintln!("error: {e}");
+                Ok(ExitCode::from(2))
+            }
+        },
         Command::Check { inputs, out } => {
             let calendar = match calendar_of(&inputs) {
                 Ok(c) => c,

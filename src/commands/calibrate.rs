@@ -16,6 +16,7 @@ use crate::error::{Error, Result};
 use crate::ingest::cds::{self, CdsPanel, CdsQuoteRow};
 use crate::ingest::discount::{self, DiscountRow};
 use crate::ingest::{load, InputPaths, QualitySettings, Reject, TableCounts};
+use crate::report::tables::DiscountCurveRow;
 use crate::instruments::AccrualIntegration;
 use crate::report::tables::{
     write_data_quality, write_hazard_curves, write_quality_flags, write_rejects, write_residuals, HazardCurveRow, ResidualRow,
@@ -24,7 +25,7 @@ use crate::time::{Calendar, Tenor};
 use chrono::NaiveDate;
 use rayon::prelude::*;
 use std::collections::BTreeMap;
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
 /// Checked settings of the calibrate stage.
 #[derive(Debug, Clone)]
@@ -33,11 +34,34 @@ pub struct CalibrateSettings {
     /// other tables are optional.
     pub inputs: InputPaths,
     pub out: PathBuf,
-    /// Recovery for rows without one.
-    pub recovery: f64,
-    pub bootstrap: BootstrapSettings,
+    pub params: CalibrationParams,
     pub calendar: Calendar,
     pub quality: QualitySettings,
+}
+
+/// What the calibration itself needs (shared by `calibrate` and `run`).
+#[derive(Debug, Clone)]
+pub struct CalibrationParams {
+    /// Recovery for rows with neither a recovery nor a seniority listed below.
+    pub recovery: f64,
+    /// Recovery by the rows' seniority value.
+    pub recovery_by_seniority: BTreeMap<String, f64>,
+    pub bootstrap: BootstrapSettings,
+    pub calendar: Calendar,
+}
+
+/// Tables and counts produced by calibrating a dataset.
+#[derive(Debug, Default)]
+pub struct Calibration {
+    pub hazard: Vec<HazardCurveRow>,
+    pub residuals: Vec<ResidualRow>,
+    pub discount: Vec<DiscountCurveRow>,
+    /// Rows this stage rejected (no discount curve, curve not built, bad discount curve).
+    pub rejects: Vec<Reject>,
+    pub curves: usize,
+    pub curves_complete: usize,
+    pub nodes_by_status: BTreeMap<&'static str, usize>,
+    pub max_abs_residual_bp: f64,
 }
 
 /// What a calibrate run did.
@@ -91,12 +115,23 @@ fn discount_curves(rows: Vec<DiscountRow>, rejects: &mut Vec<Reject>) -> (BTreeM
     (out, used)
 }
 
-fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, s: &CalibrateSettings) -> CurveOutput {
+fn recovery_of(panel: &CdsPanel, r: &CdsQuoteRow, p: &CalibrationParams) -> f64 {
+    r.recovery().unwrap_or_else(|| {
+        if r.seniority != u32::MAX {
+            if let Some(v) = p.recovery_by_seniority.get(panel.seniorities.name(r.seniority)) {
+                return *v;
+            }
+        }
+        p.recovery
+    })
+}
+
+fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, s: &CalibrationParams) -> CurveOutput {
     let h = rows[0];
     let (date, entity, currency) = (h.date, panel.entities.name(h.entity), panel.currencies.name(h.currency));
     let quotes: Vec<BootstrapQuote> = rows
         .iter()
-        .map(|r| BootstrapQuote { tenor: r.tenor, quote: r.quote, recovery: r.recovery().unwrap_or(s.recovery) })
+        .map(|r| BootstrapQuote { tenor: r.tenor, quote: r.quote, recovery: recovery_of(panel, r, s) })
         .collect();
     let fit = match bootstrap(date, &quotes, curve, &s.calendar, &s.bootstrap) {
         Ok(f) => f,
@@ -143,21 +178,24 @@ fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, 
     CurveOutput { hazard, residuals, rejects: Vec::new(), used: rows.len() }
 }
 
-/// Runs the stage.
-pub fn run(s: &CalibrateSettings) -> Result<CalibrateSummary> {
-    if s.inputs.cds_quotes.is_none() || s.inputs.discount.is_none() {
-        return Err(Error::Argument { name: "inputs", message: "calibrate needs the cds_quotes and discount tables".into() });
+/// Calibrates every curve of the dataset's CDS panel. Updates `ds.counts` with this stage's
+/// rejects and checks the accounting again.
+pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams) -> Result<Calibration> {
+    let disc = ds.discount.as_ref().ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the discount table".into() })?;
+    let panel = ds.cds.as_ref().ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the cds_quotes table".into() })?;
+    let mut out = Calibration::default();
+    let (curves, disc_used) = discount_curves(disc.rows.clone(), &mut out.rejects);
+    for ((date, ccy), c) in &curves {
+        for (&pillar, &ln_df) in c.pillar_dates().iter().zip(c.pillar_log_dfs()) {
+            let t = crate::curves::year_time(*date, pillar);
+            out.discount.push(DiscountCurveRow { date: *date, currency: ccy.clone(), pillar_date: pillar, zero_rate: -ln_df / t, discount_factor: ln_df.exp() });
+        }
     }
-    let mut ds = load(&s.inputs, &s.calendar, &s.quality)?;
-    let disc = ds.discount.take().expect("discount was read");
-    let panel = ds.cds.take().expect("cds_quotes were read");
-    let mut stage_rejects: Vec<Reject> = Vec::new();
-    let (curves, disc_used) = discount_curves(disc.rows, &mut stage_rejects);
 
     // Curves are consecutive runs of (date, entity, currency) in the panel's sorted rows.
     let mut jobs: Vec<(usize, usize)> = Vec::new();
-    let mut i = 0;
     let rows = &panel.rows;
+    let mut i = 0;
     while i < rows.len() {
         let mut j = i + 1;
         while j < rows.len() && rows[j].date == rows[i].date && rows[j].entity == rows[i].entity && rows[j].currency == rows[i].currency {
@@ -166,12 +204,13 @@ pub fn run(s: &CalibrateSettings) -> Result<CalibrateSummary> {
         jobs.push((i, j));
         i = j;
     }
+    let progress = crate::report::progress::bar(jobs.len() as u64, "calibrating curves");
     let outputs: Vec<CurveOutput> = jobs
         .par_iter()
         .map(|&(a, b)| {
             let h = &rows[a];
-            match curves.get(&(h.date, panel.currencies.name(h.currency).to_string())) {
-                Some(curve) => calibrate_one(&panel, &rows[a..b], curve, s),
+            let o = match curves.get(&(h.date, panel.currencies.name(h.currency).to_string())) {
+                Some(curve) => calibrate_one(panel, &rows[a..b], curve, p),
                 None => CurveOutput {
                     hazard: Vec::new(),
                     residuals: Vec::new(),
@@ -181,44 +220,40 @@ pub fn run(s: &CalibrateSettings) -> Result<CalibrateSummary> {
                         .collect(),
                     used: 0,
                 },
-            }
+            };
+            progress.inc(1);
+            o
         })
         .collect();
+    progress.finish_and_clear();
 
-    let mut summary = CalibrateSummary::default();
-    let mut hazard_rows = Vec::new();
-    let mut residual_rows = Vec::new();
     let mut cds_used = 0;
     for o in outputs {
         cds_used += o.used;
         if !o.hazard.is_empty() {
-            summary.curves += 1;
+            out.curves += 1;
             if o.hazard.iter().all(|h| h.status == "ok") {
-                summary.curves_complete += 1;
+                out.curves_complete += 1;
             }
         }
         for h in &o.hazard {
-            *summary.nodes_by_status.entry(h.status).or_default() += 1;
+            *out.nodes_by_status.entry(h.status).or_default() += 1;
         }
-        summary.nodes += o.hazard.len();
-        hazard_rows.extend(o.hazard);
+        out.hazard.extend(o.hazard);
         for r in &o.residuals {
             if r.status == "ok" {
-                summary.max_abs_residual_bp = summary.max_abs_residual_bp.max(r.residual_bp.abs());
+                out.max_abs_residual_bp = out.max_abs_residual_bp.max(r.residual_bp.abs());
             }
         }
-        residual_rows.extend(o.residuals);
-        stage_rejects.extend(o.rejects);
+        out.residuals.extend(o.residuals);
+        out.rejects.extend(o.rejects);
     }
-    // Counts after this stage: ingestion's, less the rows this stage rejected.
     for c in ds.counts.iter_mut() {
-        let extra = stage_rejects.iter().filter(|r| r.table == c.table).count();
+        let extra = out.rejects.iter().filter(|r| r.table == c.table).count();
         c.rejected += extra;
-        c.used -= extra.min(c.used);
         if c.table == cds::TABLE {
             c.used = cds_used;
-        }
-        if c.table == discount::TABLE {
+        } else if c.table == discount::TABLE {
             c.used = disc_used;
         }
         if c.rows_in != c.used + c.rejected {
@@ -228,13 +263,30 @@ pub fn run(s: &CalibrateSettings) -> Result<CalibrateSummary> {
             )));
         }
     }
-    stage_rejects.sort_by(|a, b| (a.table, &a.source, a.row).cmp(&(b.table, &b.source, b.row)));
-    let mut rejects = ds.rejects;
-    rejects.extend(stage_rejects);
-    summary.top_reasons = top_reasons(&rejects, 10);
-    summary.counts = ds.counts;
+    out.rejects.sort_by(|a, b| (a.table, &a.source, a.row).cmp(&(b.table, &b.source, b.row)));
+    Ok(out)
+}
 
-    let meta = metadata(s);
+/// Runs the stage.
+pub fn run(s: &CalibrateSettings) -> Result<CalibrateSummary> {
+    if s.inputs.cds_quotes.is_none() || s.inputs.discount.is_none() {
+        return Err(Error::Argument { name: "inputs", message: "calibrate needs the cds_quotes and discount tables".into() });
+    }
+    let mut ds = load(&s.inputs, &s.calendar, &s.quality)?;
+    let cal = calibrate_dataset(&mut ds, &s.params)?;
+    let mut rejects = std::mem::take(&mut ds.rejects);
+    rejects.extend(cal.rejects.iter().cloned());
+    let summary = CalibrateSummary {
+        counts: ds.counts.clone(),
+        curves: cal.curves,
+        curves_complete: cal.curves_complete,
+        nodes: cal.hazard.len(),
+        nodes_by_status: cal.nodes_by_status.clone(),
+        max_abs_residual_bp: cal.max_abs_residual_bp,
+        top_reasons: top_reasons(&rejects, 10),
+        outputs: Vec::new(),
+    };
+    let meta = metadata(&s.params, &s.quality);
     let out = &s.out;
     let paths = [
         out.join("hazard_curves.parquet"),
@@ -243,13 +295,12 @@ pub fn run(s: &CalibrateSettings) -> Result<CalibrateSummary> {
         out.join("data_quality.parquet"),
         out.join("quality_flags.parquet"),
     ];
-    write_hazard_curves(&hazard_rows, &paths[0], &meta)?;
-    write_residuals(&residual_rows, &paths[1], &meta)?;
+    write_hazard_curves(&cal.hazard, &paths[0], &meta)?;
+    write_residuals(&cal.residuals, &paths[1], &meta)?;
     write_rejects(&rejects, &paths[2], &meta)?;
     write_data_quality(&ds.data_quality, &paths[3], &meta)?;
     write_quality_flags(&ds.flags, &paths[4], &meta)?;
-    summary.outputs = paths.to_vec();
-    Ok(summary)
+    Ok(CalibrateSummary { outputs: paths.to_vec(), ..summary })
 }
 
 /// The most frequent reject reasons per table, most frequent first (ties by name).
@@ -264,12 +315,13 @@ pub fn top_reasons(rejects: &[Reject], n: usize) -> Vec<(String, &'static str, u
     v
 }
 
-fn metadata(s: &CalibrateSettings) -> Vec<(String, String)> {
-    let b = &s.bootstrap;
+/// Settings recorded in every output's key-value metadata.
+pub fn metadata(p: &CalibrationParams, q: &QualitySettings) -> Vec<(String, String)> {
+    let b = &p.bootstrap;
     vec![
         ("hazardline.version".into(), env!("CARGO_PKG_VERSION").into()),
-        ("hazardline.stage".into(), "calibrate".into()),
-        ("hazardline.default_recovery".into(), format!("{}", s.recovery)),
+        ("hazardline.default_recovery".into(), format!("{}", p.recovery)),
+        ("hazardline.recovery_by_seniority".into(), format!("{:?}", p.recovery_by_seniority)),
         (
             "hazardline.accrual_on_default".into(),
             match b.accrual {
@@ -285,12 +337,7 @@ fn metadata(s: &CalibrateSettings) -> Vec<(String, String)> {
             },
         ),
         ("hazardline.hazard_tolerance".into(), format!("{:e}", b.hazard_tolerance)),
-        ("hazardline.calendar".into(), format!("weekends + {} holidays", s.calendar.holidays().len())),
-        ("hazardline.quality".into(), format!("{:?}", s.quality)),
+        ("hazardline.calendar".into(), format!("weekends + {} holidays", p.calendar.holidays().len())),
+        ("hazardline.quality".into(), format!("{q:?}")),
     ]
-}
-
-/// Paths are shown relative to where they were given; used by `main` for messages.
-pub fn show(p: &Path) -> String {
-    p.display().to_string()
 }

@@ -3,3 +3,4 @@
 
 pub mod calibrate;
 pub mod check;
+pub mod compare;

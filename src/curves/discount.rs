@@ -85,6 +85,11 @@ impl DiscountCurve {
         &self.dates
     }
 
+    /// ln DF at each pillar.
+    pub fn pillar_log_dfs(&self) -> &[f64] {
+        &self.log_dfs
+    }
+
     /// ln DF at time t (Act/365F years). t may be negative (before the reference date): the
     /// first zero rate then extends backwards, which is what the accrual-on-default formula's
     /// start-of-accrual term needs.

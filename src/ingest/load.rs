@@ -84,6 +84,28 @@ pub struct Dataset {
 }
 
 impl Dataset {
+    /// Shows every source file relative to `base` (the pipeline file's folder), so that
+    /// rejects and flags read the same whichever way the pipeline file was named.
+    pub fn relabel_sources(&mut self, base: &std::path::Path) {
+        let rel = |s: &str| crate::report::manifest::relative(std::path::Path::new(s), base);
+        for r in &mut self.rejects {
+            r.source = rel(&r.source);
+        }
+        for f in &mut self.flags {
+            f.source = rel(&f.source);
+        }
+        if let Some(p) = &mut self.cds {
+            for f in &mut p.files {
+                *f = rel(f);
+            }
+        }
+        if let Some(d) = &mut self.discount {
+            for r in &mut d.rows {
+                r.source = rel(&r.source);
+            }
+        }
+    }
+
     /// First default date per entity name.
     pub fn first_defaults(&self) -> HashMap<String, NaiveDate> {
         let mut m: HashMap<String, NaiveDate> = HashMap::new();

@@ -31,6 +31,29 @@ pub struct HazardCurveRow {
     pub detail: Option<String>,
 }
 
+/// One pillar of a discount curve as used.
+#[derive(Debug, Clone, PartialEq)]
+pub struct DiscountCurveRow {
+    pub date: NaiveDate,
+    pub currency: String,
+    pub pillar_date: NaiveDate,
+    pub zero_rate: f64,
+    pub discount_factor: f64,
+}
+
+pub fn write_discount_curves(rows: &[DiscountCurveRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
+    let mut df = TableBuilder::new()
+        .dates("date", rows.iter().map(|r| Some(r.date)))
+        .strings("currency", rows.iter().map(|r| Some(&r.currency)))
+        .dates("pillar_date", rows.iter().map(|r| Some(r.pillar_date)))
+        .floats("zero_rate", rows.iter().map(|r| Some(r.zero_rate)))
+        .floats("discount_factor", rows.iter().map(|r| Some(r.discount_factor)))
+        .finish()?;
+    let mut meta = meta.to_vec();
+    meta.push(("hazardline.units".into(), "zero_rate: continuously compounded, Act/365F, decimal; discount_factor to pillar_date".into()));
+    write_parquet(&mut df, path, &meta)
+}
+
 /// One repriced quote.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ResidualRow {

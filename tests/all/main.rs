@@ -2,7 +2,10 @@
 
 mod cli;
 mod closed_forms;
+mod pipeline;
 mod properties;
 mod quality;
 mod reference_quantlib;
 mod support;
+mod bonds;
+mod cir;

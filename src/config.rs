@@ -1,0 +1,350 @@
+//! Pipeline files (TOML): the file as written ([`PipelineFile`], serde, unknown keys refused)
+//! and the checked run configuration built from it ([`RunConfig`]), the only thing stages
+//! accept. Paths in the file are relative to the file's own folder.
+//!
+//! Every setting has a default, documented on its field; `pipelines/quarterly-review.toml`
+//! shows them all with comments.
+
+use crate::calibrate::{BootstrapSettings, InfeasiblePolicy};
+use crate::error::{Error, Result};
+use crate::ingest::{InputPaths, QualitySettings};
+use crate::instruments::AccrualIntegration;
+use crate::time::{parse_iso_date, Calendar};
+use chrono::NaiveDate;
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+/// The pipeline file as written.
+#[derive(Debug, Clone, Deserialize, Serialize, Default)]
+#[serde(deny_unknown_fields)]
+pub struct PipelineFile {
+    /// Name of the pipeline: the output folder under the output root. Default: the file name
+    /// without `.toml`.
+    pub name: Option<String>,
+    #[serde(default)]
+    pub inputs: InputsSection,
+    #[serde(default)]
+    pub conventions: ConventionsSection,
+    #[serde(default)]
+    pub calibration: CalibrationSection,
+    #[serde(default)]
+    pub quality: QualitySection,
+    #[serde(default)]
+    pub report: ReportSection,
+}
+
+/// `[inputs]`: where each table is (file, folder or hive-partitioned folder).
+#[derive(Debug, Clone, Deserialize, Serialize, Default)]
+#[serde(deny_unknown_fields)]
+pub struct InputsSection {
+    pub cds_quotes: Option<PathBuf>,
+    pub discount: Option<PathBuf>,
+    pub bonds: Option<PathBuf>,
+    pub bond_quotes: Option<PathBuf>,
+    pub entities: Option<PathBuf>,
+    pub grades: Option<PathBuf>,
+    pub defaults: Option<PathBuf>,
+    pub cohort_history: Option<PathBuf>,
+    /// One ISO date per line, added to the weekends. Default: weekends only.
+    pub holidays: Option<PathBuf>,
+}
+
+/// `[conventions]`.
+#[derive(Debug, Clone, Deserialize, Serialize, Default)]
+#[serde(deny_unknown_fields)]
+pub struct ConventionsSection {
+    /// Recovery for quotes without one and without a seniority in `recovery_by_seniority`.
+    /// Default 0.40 (senior unsecured, common practice).
+    pub recovery: Option<f64>,
+    /// Recovery by the quotes' `seniority` value. Default: empty.
+    pub recovery_by_seniority: Option<BTreeMap<String, f64>>,
+    /// `floor` (default) or `fail`: what to do with a quote that needs a negative hazard.
+    pub infeasible: Option<String>,
+    /// `standard` (default) or `exact` accrual-on-default integration.
+    pub accrual_on_default: Option<String>,
+}
+
+/// `[calibration]`.
+#[derive(Debug, Clone, Deserialize, Serialize, Default)]
+#[serde(deny_unknown_fields)]
+pub struct CalibrationSection {
+    /// Bootstrap CDS hazard curves. Default true.
+    pub cds_bootstrap: Option<bool>,
+}
+
+/// `[quality]`: thresholds of the data-quality rules (defaults in `QualitySettings`).
+#[derive(Debug, Clone, Deserialize, Serialize, Default)]
+#[serde(deny_unknown_fields)]
+pub struct QualitySection {
+    pub max_spread_bp: Option<f64>,
+    pub zero_rate_band: Option<[f64; 2]>,
+    pub bond_price_band: Option<[f64; 2]>,
+    pub stale_days: Option<usize>,
+    pub spike_z: Option<f64>,
+    pub spike_min_log_move: Option<f64>,
+    pub spike_revert_share: Option<f64>,
+    pub unit_slip_ratio: Option<f64>,
+    pub unit_slip_min_run: Option<usize>,
+    pub min_tenors: Option<usize>,
+}
+
+/// `[report]`.
+#[derive(Debug, Clone, Deserialize, Serialize, Default)]
+#[serde(deny_unknown_fields)]
+pub struct ReportSection {
+    /// Where run folders go. Default `validation-reports` beside the pipeline folder's parent
+    /// (`../validation-reports` for a file in `pipelines/`).
+    pub output_root: Option<PathBuf>,
+    /// Run label (the run folder's name). Default `asof-<last quote date>`.
+    pub label: Option<String>,
+    /// Entities drawn in the figures. Default: the first four by name.
+    pub charted_entities: Option<Vec<String>>,
+    /// Dates of the hazard term-structure figure (ISO). Default: first, middle and last date.
+    pub term_structure_dates: Option<Vec<String>>,
+    /// Exit with code 1 when the run has red flags. Default false.
+    pub fail_on_red_flags: Option<bool>,
+}
+
+/// The checked configuration of a run, after defaults.
+#[derive(Debug, Clone, Serialize)]
+pub struct RunConfig {
+    pub name: String,
+    /// The pipeline file, as given.
+    #[serde(skip)]
+    pub pipeline_path: PathBuf,
+    /// Input paths resolved against the pipeline file's folder.
+    #[serde(skip)]
+    pub inputs: InputPaths,
+    /// Input paths as written (for the manifest, independent of where the run happens).
+    pub inputs_as_written: BTreeMap<String, String>,
+    pub holidays: Option<String>,
+    #[serde(skip)]
+    pub calendar: Calendar,
+    pub recovery: f64,
+    pub recovery_by_seniority: BTreeMap<String, f64>,
+    pub infeasible: String,
+    pub accrual_on_default: String,
+    pub cds_bootstrap: bool,
+    #[serde(skip)]
+    pub bootstrap: BootstrapSettings,
+    #[serde(serialize_with = "ser_quality")]
+    pub quality: QualitySettings,
+    #[serde(skip)]
+    pub output_root: PathBuf,
+    pub label: Option<String>,
+    pub charted_entities: Option<Vec<String>>,
+    pub term_structure_dates: Option<Vec<NaiveDate>>,
+    pub fail_on_red_flags: bool,
+}
+
+fn ser_quality<S: serde::Serializer>(q: &QualitySettings, s: S) -> std::result::Result<S::Ok, S::Error> {
+    use serde::ser::SerializeMap;
+    let mut m = s.serialize_map(None)?;
+    m.serialize_entry("max_spread_bp", &q.max_spread_bp)?;
+    m.serialize_entry("zero_rate_band", &[q.zero_rate_band.0, q.zero_rate_band.1])?;
+    m.serialize_entry("bond_price_band", &[q.bond_price_band.0, q.bond_price_band.1])?;
+    m.serialize_entry("stale_days", &q.stale_days)?;
+    m.serialize_entry("spike_z", &q.spike_z)?;
+    m.serialize_entry("spike_min_log_move", &q.spike_min_log_move)?;
+    m.serialize_entry("spike_revert_share", &q.spike_revert_share)?;
+    m.serialize_entry("unit_slip_ratio", &q.unit_slip_ratio)?;
+    m.serialize_entry("unit_slip_min_run", &q.unit_slip_min_run)?;
+    m.serialize_entry("min_tenors", &q.min_tenors)?;
+    m.end()
+}
+
+fn bad(path: &Path, key: &str, message: String) -> Error {
+    Error::Config { path: path.to_path_buf(), message: format!("key `{key}`: {message}") }
+}
+
+/// Reads and checks a pipeline file.
+pub fn load_pipeline(path: &Path) -> Result<RunConfig> {
+    let text = std::fs::read_to_string(path).map_err(|_| Error::NotFound { path: path.to_path_buf() })?;
+    let file: PipelineFile = toml::from_str(&text).map_err(|e| Error::Config { path: path.to_path_buf(), message: e.to_string().trim_end().to_string() })?;
+    check(file, path)
+}
+
+/// Turns the file as written into a checked configuration.
+pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
+    let base = path.parent().map(Path::to_path_buf).unwrap_or_default();
+    let resolve = |p: &Option<PathBuf>, key: &str| -> Result<Option<PathBuf>> {
+        match p {
+            None => Ok(None),
+            Some(p) => {
+                let full = if p.is_absolute() { p.clone() } else { base.join(p) };
+                if !full.exists() {
+                    return Err(bad(path, key, format!("input {} does not exist (resolved to {})", p.display(), full.display())));
+                }
+                Ok(Some(full))
+            }
+        }
+    };
+    let i = &file.inputs;
+    let inputs = InputPaths {
+        cds_quotes: resolve(&i.cds_quotes, "inputs.cds_quotes")?,
+        discount: resolve(&i.discount, "inputs.discount")?,
+        bonds: resolve(&i.bonds, "inputs.bonds")?,
+        bond_quotes: resolve(&i.bond_quotes, "inputs.bond_quotes")?,
+        entities: resolve(&i.entities, "inputs.entities")?,
+        grades: resolve(&i.grades, "inputs.grades")?,
+        defaults: resolve(&i.defaults, "inputs.defaults")?,
+        cohort_history: resolve(&i.cohort_history, "inputs.cohort_history")?,
+    };
+    if inputs.cds_quotes.is_none() || inputs.discount.is_none() {
+        return Err(bad(path, "inputs", "a pipeline needs at least inputs.cds_quotes and inputs.discount".into()));
+    }
+    let mut as_written = BTreeMap::new();
+    for (k, v) in [
+        ("cds_quotes", &i.cds_quotes),
+        ("discount", &i.discount),
+        ("bonds", &i.bonds),
+        ("bond_quotes", &i.bond_quotes),
+        ("entities", &i.entities),
+        ("grades", &i.grades),
+        ("defaults", &i.defaults),
+        ("cohort_history", &i.cohort_history),
+    ] {
+        if let Some(p) = v {
+            as_written.insert(k.to_string(), p.display().to_string());
+        }
+    }
+    let holidays_path = resolve(&i.holidays, "inputs.holidays")?;
+    let calendar = match &holidays_path {
+        None => Calendar::weekends_only(),
+        Some(p) => read_holidays(p).map_err(|m| bad(path, "inputs.holidays", m))?,
+    };
+
+    let c = &file.conventions;
+    let recovery = c.recovery.unwrap_or(0.40);
+    if !(0.0..1.0).contains(&recovery) {
+        return Err(bad(path, "conventions.recovery", format!("{recovery} is not a fraction in [0, 1)")));
+    }
+    let by_sen = c.recovery_by_seniority.clone().unwrap_or_default();
+    for (k, v) in &by_sen {
+        if !(0.0..1.0).contains(v) {
+            return Err(bad(path, &format!("conventions.recovery_by_seniority.{k}"), format!("{v} is not a fraction in [0, 1)")));
+        }
+    }
+    let infeasible = c.infeasible.clone().unwrap_or_else(|| "floor".into());
+    let policy = match infeasible.as_str() {
+        "floor" => InfeasiblePolicy::Floor,
+        "fail" => InfeasiblePolicy::Fail,
+        other => return Err(bad(path, "conventions.infeasible", format!("{other:?} is not one of \"floor\", \"fail\""))),
+    };
+    let accrual_on_default = c.accrual_on_default.clone().unwrap_or_else(|| "standard".into());
+    let accrual = match accrual_on_default.as_str() {
+        "standard" => AccrualIntegration::Standard,
+        "exact" => AccrualIntegration::Exact,
+        other => return Err(bad(path, "conventions.accrual_on_default", format!("{other:?} is not one of \"standard\", \"exact\""))),
+    };
+
+    let q = &file.quality;
+    let d = QualitySettings::default();
+    let band = |v: Option<[f64; 2]>, key: &str, dflt: (f64, f64)| -> Result<(f64, f64)> {
+        match v {
+            None => Ok(dflt),
+            Some([a, b]) if a < b => Ok((a, b)),
+            Some([a, b]) => Err(bad(path, key, format!("[{a}, {b}] is not an increasing pair"))),
+        }
+    };
+    let positive = |v: Option<f64>, key: &str, dflt: f64| -> Result<f64> {
+        match v {
+            None => Ok(dflt),
+            Some(x) if x > 0.0 && x.is_finite() => Ok(x),
+            Some(x) => Err(bad(path, key, format!("{x} is not a positive number"))),
+        }
+    };
+    let quality = QualitySettings {
+        max_spread_bp: positive(q.max_spread_bp, "quality.max_spread_bp", d.max_spread_bp)?,
+        zero_rate_band: band(q.zero_rate_band, "quality.zero_rate_band", d.zero_rate_band)?,
+        bond_price_band: band(q.bond_price_band, "quality.bond_price_band", d.bond_price_band)?,
+        stale_days: q.stale_days.unwrap_or(d.stale_days).max(1),
+        spike_z: positive(q.spike_z, "quality.spike_z", d.spike_z)?,
+        spike_min_log_move: positive(q.spike_min_log_move, "quality.spike_min_log_move", d.spike_min_log_move)?,
+        spike_revert_share: positive(q.spike_revert_share, "quality.spike_revert_share", d.spike_revert_share)?,
+        unit_slip_ratio: positive(q.unit_slip_ratio, "quality.unit_slip_ratio", d.unit_slip_ratio)?,
+        unit_slip_min_run: q.unit_slip_min_run.unwrap_or(d.unit_slip_min_run).max(1),
+        min_tenors: q.min_tenors.unwrap_or(d.min_tenors),
+    };
+
+    let r = &file.report;
+    let output_root = match &r.output_root {
+        Some(p) if p.is_absolute() => p.clone(),
+        Some(p) => normalise(&base.join(p)),
+        None => match base.parent() {
+            Some(p) => p.join("validation-reports"),
+            None => base.join("..").join("validation-reports"),
+        },
+    };
+    let term_structure_dates = match &r.term_structure_dates {
+        None => None,
+        Some(v) => Some(
+            v.iter()
+                .map(|s| parse_iso_date(s).ok_or_else(|| bad(path, "report.term_structure_dates", format!("{s:?} is not an ISO date yyyy-mm-dd"))))
+                .collect::<Result<Vec<_>>>()?,
+        ),
+    };
+    if let Some(l) = &r.label {
+        if l.is_empty() || l.contains(['/', '\\']) || l == "." || l == ".." {
+            return Err(bad(path, "report.label", format!("{l:?} cannot be a folder name")));
+        }
+    }
+    let name = file
+        .name
+        .clone()
+        .or_else(|| path.file_stem().and_then(|s| s.to_str()).map(str::to_string))
+        .unwrap_or_else(|| "pipeline".into());
+    Ok(RunConfig {
+        name,
+        pipeline_path: path.to_path_buf(),
+        inputs,
+        inputs_as_written: as_written,
+        holidays: i.holidays.as_ref().map(|p| p.display().to_string()),
+        calendar,
+        recovery,
+        recovery_by_seniority: by_sen,
+        infeasible,
+        accrual_on_default,
+        cds_bootstrap: file.calibration.cds_bootstrap.unwrap_or(true),
+        bootstrap: BootstrapSettings { infeasible: policy, accrual, ..BootstrapSettings::default() },
+        quality,
+        output_root,
+        label: r.label.clone(),
+        charted_entities: r.charted_entities.clone(),
+        term_structure_dates,
+        fail_on_red_flags: r.fail_on_red_flags.unwrap_or(false),
+    })
+}
+
+/// Reads a holiday list: one ISO date per line; blank lines, `#` comments and a `date` header
+/// are skipped.
+pub fn read_holidays(path: &Path) -> std::result::Result<Calendar, String> {
+    let text = std::fs::read_to_string(path).map_err(|e| format!("{}: {e}", path.display()))?;
+    let mut days = Vec::new();
+    for (i, line) in text.lines().enumerate() {
+        let t = line.trim();
+        if t.is_empty() || t.starts_with('#') || t.eq_ignore_ascii_case("date") {
+            continue;
+        }
+        let d = parse_iso_date(t).ok_or_else(|| format!("{} line {}: {t:?} is not an ISO date yyyy-mm-dd", path.display(), i + 1))?;
+        days.push(d);
+    }
+    Ok(Calendar::with_holidays(days))
+}
+
+/// Removes `dir/..` pairs lexically, so printed paths read `validation-reports/...` rather
+/// than `pipelines/../validation-reports/...`.
+fn normalise(p: &Path) -> PathBuf {
+    let mut out: Vec<std::path::Component> = Vec::new();
+    for c in p.components() {
+        match c {
+            std::path::Component::ParentDir if matches!(out.last(), Some(std::path::Component::Normal(_))) => {
+                out.pop();
+            }
+            std::path::Component::CurDir => {}
+            other => out.push(other),
+        }
+    }
+    out.iter().collect()
+}

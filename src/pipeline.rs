@@ -1,0 +1,149 @@
+//! `hazardline run`: the stages in order, into the run folder
+//! `<output root>/<pipeline name>/<run label>/` with `report.md`, `charts/`, `tables/`,
+//! `manifest.json` and `run.log`.
+//!
+//! The folder is built under a temporary name beside its final place and renamed at the end,
+//! so an interrupted run leaves no folder that looks complete; each file inside is itself
+//! written to a temporary name first. Everything but `run.log` is deterministic.
+
+use crate::commands::calibrate::{calibrate_dataset, metadata, CalibrationParams};
+use crate::config::RunConfig;
+use crate::error::{Error, Result};
+use crate::ingest::{load, TableCounts};
+use crate::report::manifest::{hash_file, relative, write_text, CountRecord, FileRecord, InputRecord, Manifest};
+use crate::report::markdown;
+use crate::report::tables::*;
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+/// Overrides from the command line.
+#[derive(Debug, Clone, Default)]
+pub struct RunOptions {
+    pub out_root: Option<PathBuf>,
+    pub label: Option<String>,
+}
+
+/// What a run did.
+#[derive(Debug, Clone)]
+pub struct RunSummary {
+    pub run_dir: PathBuf,
+    pub counts: Vec<TableCounts>,
+    pub curves: usize,
+    pub curves_complete: usize,
+    pub max_abs_residual_bp: f64,
+    pub flags: usize,
+    pub red_flags: usize,
+    pub rejected: usize,
+    pub timings: Vec<(String, f64)>,
+}
+
+fn counts_records(stage: &str, counts: &[TableCounts]) -> Vec<CountRecord> {
+    counts
+        .iter()
+        .map(|c| CountRecord { stage: stage.into(), table: c.table.into(), rows_in: c.rows_in as u64, used: c.used as u64, rejected: c.rejected as u64, flagged: c.flagged as u64 })
+        .collect()
+}
+
+pub const TABLES: [&str; 6] = ["data_quality", "rejects", "discount_curves", "hazard_curves", "calibration_residuals", "flags"];
+
+/// Runs the pipeline.
+pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
+    let mut timings: Vec<(String, f64)> = Vec::new();
+    let t0 = Instant::now();
+    let mut ds = load(&cfg.inputs, &cfg.calendar, &cfg.quality)?;
+    timings.push(("ingest".into(), t0.elapsed().as_secs_f64()));
+    let ingest_counts = ds.counts.clone();
+    let base = cfg.pipeline_path.parent().map(Path::to_path_buf).unwrap_or_default();
+    ds.relabel_sources(&base);
+
+    let t1 = Instant::now();
+    let params = CalibrationParams {
+        recovery: cfg.recovery,
+        recovery_by_seniority: cfg.recovery_by_seniority.clone(),
+        bootstrap: cfg.bootstrap,
+        calendar: cfg.calendar.clone(),
+    };
+    let cal = if cfg.cds_bootstrap { calibrate_dataset(&mut ds, &params)? } else { Default::default() };
+    timings.push(("calibrate".into(), t1.elapsed().as_secs_f64()));
+
+    let period = ds.cds.as_ref().and_then(|p| Some((p.rows.first()?.date, p.rows.last()?.date)));
+    let label = opts
+        .label
+        .clone()
+        .or_else(|| cfg.label.clone())
+        .unwrap_or_else(|| period.map_or("run".to_string(), |(_, b)| format!("asof-{b}")));
+    let root = opts.out_root.clone().unwrap_or_else(|| cfg.output_root.clone());
+    let final_dir = root.join(&cfg.name).join(&label);
+    let parent = final_dir.parent().unwrap_or(Path::new(".")).to_path_buf();
+    std::fs::create_dir_all(&parent).map_err(|e| Error::Write { path: parent.clone(), message: e.to_string() })?;
+    let work = parent.join(format!(".{label}.partial-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&work);
+    let tables = work.join("tables");
+
+    let t2 = Instant::now();
+    let meta = metadata(&params, &cfg.quality);
+    let mut rejects = std::mem::take(&mut ds.rejects);
+    rejects.extend(cal.rejects.iter().cloned());
+    write_data_quality(&ds.data_quality, &tables.join("data_quality.parquet"), &meta)?;
+    write_rejects(&rejects, &tables.join("rejects.parquet"), &meta)?;
+    write_discount_curves(&cal.discount, &tables.join("discount_curves.parquet"), &meta)?;
+    write_hazard_curves(&cal.hazard, &tables.join("hazard_curves.parquet"), &meta)?;
+    write_residuals(&cal.residuals, &tables.join("calibration_residuals.parquet"), &meta)?;
+    write_quality_flags(&ds.flags, &tables.join("flags.parquet"), &meta)?;
+    timings.push(("write tables".into(), t2.elapsed().as_secs_f64()));
+
+    // Manifest.
+    let (bytes, sha) = hash_file(&cfg.pipeline_path)?;
+    let mut inputs = Vec::new();
+    for c in &ingest_counts {
+        for f in &c.files {
+            let (b, h) = hash_file(f)?;
+            inputs.push(InputRecord { table: c.table.into(), path: relative(f, &base), bytes: b, sha256: h });
+        }
+    }
+    let mut counts = counts_records("ingest", &ingest_counts);
+    counts.extend(counts_records("calibrate", &ds.counts));
+    let manifest = Manifest {
+        tool: "hazardline".into(),
+        version: env!("CARGO_PKG_VERSION").into(),
+        pipeline: FileRecord { path: cfg.pipeline_path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default(), bytes, sha256: sha },
+        name: cfg.name.clone(),
+        label: label.clone(),
+        period: period.map(|(a, b)| (a.to_string(), b.to_string())),
+        inputs,
+        counts,
+        settings: serde_json::to_value(cfg).map_err(|e| Error::Other(format!("settings: {e}")))?,
+        tables: TABLES.iter().map(|t| format!("tables/{t}.parquet")).collect(),
+    };
+    let text = serde_json::to_string_pretty(&manifest).map_err(|e| Error::Other(format!("manifest: {e}")))?;
+    write_text(&work.join("manifest.json"), &(text + "\n"))?;
+
+    let t3 = Instant::now();
+    markdown::render(&work)?;
+    timings.push(("report".into(), t3.elapsed().as_secs_f64()));
+    let total = t0.elapsed().as_secs_f64();
+    let mut log = String::from("stage\tseconds\n");
+    for (s, v) in &timings {
+        log += &format!("{s}\t{v:.3}\n");
+    }
+    log += &format!("total\t{total:.3}\n");
+    write_text(&work.join("run.log"), &log)?;
+
+    // Swap the finished folder into place.
+    if final_dir.exists() {
+        std::fs::remove_dir_all(&final_dir).map_err(|e| Error::Write { path: final_dir.clone(), message: e.to_string() })?;
+    }
+    std::fs::rename(&work, &final_dir).map_err(|e| Error::Write { path: final_dir.clone(), message: e.to_string() })?;
+
+    Ok(RunSummary {
+        run_dir: final_dir,
+        counts: ds.counts.clone(),
+        curves: cal.curves,
+        curves_complete: cal.curves_complete,
+        max_abs_residual_bp: cal.max_abs_residual_bp,
+        flags: ds.flags.len(),
+        red_flags: ds.flags.iter().filter(|f| f.severity == "red").count(),
+        rejected: rejects.len(),
+        timings,
+    })
+}

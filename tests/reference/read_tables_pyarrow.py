@@ -1,0 +1,50 @@
+"""Reads every table of a run with pyarrow (PyPI) and checks the column types that
+consumers rely on (DESIGN section 9): dates are Parquet dates, numbers are doubles or
+64-bit integers, text is text. Exits non-zero on any mismatch.
+
+Usage: python3 tests/reference/read_tables_pyarrow.py RUN_DIR/tables
+"""
+import sys
+import pathlib
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+D, F, I, S = pa.date32(), pa.float64(), pa.int64(), pa.string()
+EXPECTED = {
+    "hazard_curves": {"date": D, "entity": S, "currency": S, "source": S, "tenor": S, "maturity": D,
+                      "hazard": F, "survival": F, "status": S},
+    "calibration_residuals": {"date": D, "entity": S, "method": S, "instrument": S, "tenor_or_bond": S,
+                              "market": F, "model": F, "residual_bp": F},
+    "rejects": {"table": S, "source": S, "row": I, "reason": S, "detail": S},
+    "flags": {"rule": S, "severity": S, "entity": S, "series": S, "period": S, "date": D, "value": F,
+              "threshold": F, "explanation": S},
+    "data_quality": {"scope": S, "table": S, "date": D, "rows_read": I, "rows_used": I, "rows_rejected": I},
+    "discount_curves": {"date": D, "currency": S, "pillar_date": D, "zero_rate": F, "discount_factor": F},
+}
+
+def same(a, b):
+    # polars may write large_string; both are text to a consumer.
+    if b == S:
+        return a in (pa.string(), pa.large_string(), pa.string_view())
+    return a == b
+
+def main(folder):
+    bad = []
+    for name, cols in EXPECTED.items():
+        path = pathlib.Path(folder) / f"{name}.parquet"
+        table = pq.read_table(path)
+        for col, typ in cols.items():
+            if col not in table.schema.names:
+                bad.append(f"{name}: missing column {col}")
+            elif not same(table.schema.field(col).type, typ):
+                bad.append(f"{name}.{col}: {table.schema.field(col).type}, expected {typ}")
+        meta = pq.read_metadata(path).metadata or {}
+        if b"hazardline.version" not in meta:
+            bad.append(f"{name}: no hazardline.version in the key-value metadata")
+        print(f"{name}: {table.num_rows} rows, {len(table.schema.names)} columns")
+    if bad:
+        print("\n".join(bad))
+        sys.exit(1)
+
+if __name__ == "__main__":
+    main(sys.argv[1])
