@@ -12,7 +12,7 @@
 //! residual is the upfront difference converted with the model's risky annuity, as the
 //! bootstrap residuals are.
 //!
-//! Solver: a small projected Levenberg-Marquardt in (ln kappa, ln theta, ln sigma, lambda0)
+//! Solver: a small projected Levenberg-Marquardt in (ln kappa, ln theta, sigma^2, lambda0)
 //! with box bounds, and an exact Jacobian from forward-mode gradients through the survival
 //! formula and the leg code. Why not argmin's Nelder-Mead (also offered, [`CirSolver::NelderMead`]):
 //! one Nelder-Mead fit of the 4 parameters takes a few hundred objective evaluations, the
@@ -24,10 +24,12 @@
 //! Must not: read files, log inside the loops, or floor a parameter silently (bounds hit are
 //! named in `detail`).
 
-use super::bootstrap::BootstrapQuote;
+use super::bootstrap::{bootstrap, BootstrapQuote, BootstrapSettings};
 use super::residuals::QuoteResidual;
 use crate::curves::{DiscountCurve, HazardCurve};
-use crate::instruments::cds::{evaluate_terms, AccrualIntegration, CdsContract, CdsQuote, LegPlan, protection_term};
+use crate::instruments::cds::{
+    evaluate_terms, protection_term, AccrualIntegration, CdsContract, CdsQuote, LegPlan,
+};
 use crate::math::Scalar;
 use crate::models::cir::{uniform_grid, CirCoefficients, CirParams, CirScalar, DEFAULT_GRID_STEP};
 use crate::time::imm::MaturityError;
@@ -55,7 +57,15 @@ impl Grad4 {
     }
     #[inline]
     fn chain(self, v: f64, dv: f64) -> Grad4 {
-        Grad4 { v, d: [self.d[0] * dv, self.d[1] * dv, self.d[2] * dv, self.d[3] * dv] }
+        Grad4 {
+            v,
+            d: [
+                self.d[0] * dv,
+                self.d[1] * dv,
+                self.d[2] * dv,
+                self.d[3] * dv,
+            ],
+        }
     }
 }
 
@@ -133,14 +143,20 @@ impl Add<f64> for Grad4 {
     type Output = Grad4;
     #[inline]
     fn add(self, o: f64) -> Grad4 {
-        Grad4 { v: self.v + o, d: self.d }
+        Grad4 {
+            v: self.v + o,
+            d: self.d,
+        }
     }
 }
 impl Sub<f64> for Grad4 {
     type Output = Grad4;
     #[inline]
     fn sub(self, o: f64) -> Grad4 {
-        Grad4 { v: self.v - o, d: self.d }
+        Grad4 {
+            v: self.v - o,
+            d: self.d,
+        }
     }
 }
 impl Mul<f64> for Grad4 {
@@ -178,7 +194,12 @@ pub struct LmSettings {
 
 impl Default for LmSettings {
     fn default() -> Self {
-        LmSettings { max_iterations: 200, f_tol: 1e-12, x_tol: 1e-11, cost_floor: 1e-24 }
+        LmSettings {
+            max_iterations: 200,
+            f_tol: 1e-9,
+            x_tol: 1e-11,
+            cost_floor: 1e-24,
+        }
     }
 }
 
@@ -236,14 +257,32 @@ fn cholesky_solve(a: &mut [f64], b: &mut [f64], n: usize) -> bool {
 /// steps projected on the box, and parameters at a bound whose gradient points outwards held
 /// at the bound for the step (Nielsen 1999, IMM-REP-1999-05; Kanzow, Yamashita and Fukushima
 /// 2004 for the projection).
-pub(crate) fn levenberg_marquardt<P: LeastSquares>(p: &mut P, x0: &[f64], lo: &[f64], hi: &[f64], s: &LmSettings) -> LmOutcome {
+pub(crate) fn levenberg_marquardt<P: LeastSquares>(
+    p: &mut P,
+    x0: &[f64],
+    lo: &[f64],
+    hi: &[f64],
+    max_step: &[f64],
+    s: &LmSettings,
+) -> LmOutcome {
     let (n, m) = p.dims();
-    let mut x: Vec<f64> = x0.iter().zip(lo.iter().zip(hi)).map(|(&v, (&l, &h))| v.clamp(l, h)).collect();
+    let mut x: Vec<f64> = x0
+        .iter()
+        .zip(lo.iter().zip(hi))
+        .map(|(&v, (&l, &h))| v.clamp(l, h))
+        .collect();
     let mut r = vec![0.0; m];
     let mut jac = vec![0.0; m * n];
     let mut evaluations = 1;
     if !p.eval(&x, &mut r, Some(&mut jac)) {
-        return LmOutcome { x, cost: f64::INFINITY, iterations: 0, evaluations, converged: false, failed: true };
+        return LmOutcome {
+            x,
+            cost: f64::INFINITY,
+            iterations: 0,
+            evaluations,
+            converged: false,
+            failed: true,
+        };
     }
     let mut cost = 0.5 * r.iter().map(|v| v * v).sum::<f64>();
     let mut a = vec![0.0; n * n];
@@ -280,7 +319,14 @@ pub(crate) fn levenberg_marquardt<P: LeastSquares>(p: &mut P, x0: &[f64], lo: &[
     let mut free = vec![true; n];
     let mut iterations = 0;
     if cost <= s.cost_floor {
-        return LmOutcome { x, cost, iterations, evaluations, converged: true, failed: false };
+        return LmOutcome {
+            x,
+            cost,
+            iterations,
+            evaluations,
+            converged: true,
+            failed: false,
+        };
     }
     while iterations < s.max_iterations {
         iterations += 1;
@@ -292,7 +338,11 @@ pub(crate) fn levenberg_marquardt<P: LeastSquares>(p: &mut P, x0: &[f64], lo: &[
         for _ in 0..60 {
             for i in 0..n {
                 for j in 0..n {
-                    sys[i * n + j] = if free[i] && free[j] { a[i * n + j] } else { 0.0 };
+                    sys[i * n + j] = if free[i] && free[j] {
+                        a[i * n + j]
+                    } else {
+                        0.0
+                    };
                 }
                 let dii = a[i * n + i].max(1e-12 * (1.0 + a[i * n + i]));
                 if free[i] {
@@ -310,16 +360,41 @@ pub(crate) fn levenberg_marquardt<P: LeastSquares>(p: &mut P, x0: &[f64], lo: &[
             nu *= 2.0;
         }
         if !ok {
-            return LmOutcome { x, cost, iterations, evaluations, converged: false, failed: true };
+            return LmOutcome {
+                x,
+                cost,
+                iterations,
+                evaluations,
+                converged: false,
+                failed: true,
+            };
         }
+        // A step longer than its cap in any coordinate is shortened as a whole (a crude trust
+        // region: the damping alone lets the first steps of a poor start jump across the box).
+        let scale = (0..n)
+            .map(|i| {
+                if step[i].abs() > max_step[i] {
+                    max_step[i] / step[i].abs()
+                } else {
+                    1.0
+                }
+            })
+            .fold(1.0, f64::min);
         let mut max_move: f64 = 0.0;
         for i in 0..n {
-            x_new[i] = (x[i] + step[i]).clamp(lo[i], hi[i]);
+            x_new[i] = (x[i] + scale * step[i]).clamp(lo[i], hi[i]);
             step[i] = x_new[i] - x[i];
             max_move = max_move.max(step[i].abs());
         }
         if max_move <= s.x_tol {
-            return LmOutcome { x, cost, iterations, evaluations, converged: true, failed: false };
+            return LmOutcome {
+                x,
+                cost,
+                iterations,
+                evaluations,
+                converged: true,
+                failed: false,
+            };
         }
         // Predicted reduction of the quadratic model for the projected step.
         let mut pred = 0.0;
@@ -332,8 +407,16 @@ pub(crate) fn levenberg_marquardt<P: LeastSquares>(p: &mut P, x0: &[f64], lo: &[
         }
         evaluations += 1;
         let finite = p.eval(&x_new, &mut r_new, Some(&mut jac_new));
-        let cost_new = if finite { 0.5 * r_new.iter().map(|v| v * v).sum::<f64>() } else { f64::INFINITY };
-        let ratio = if pred > 0.0 { (cost - cost_new) / pred } else { -1.0 };
+        let cost_new = if finite {
+            0.5 * r_new.iter().map(|v| v * v).sum::<f64>()
+        } else {
+            f64::INFINITY
+        };
+        let ratio = if pred > 0.0 {
+            (cost - cost_new) / pred
+        } else {
+            -1.0
+        };
         if cost_new < cost && ratio > 0.0 {
             let drop = cost - cost_new;
             std::mem::swap(&mut x, &mut x_new);
@@ -344,18 +427,39 @@ pub(crate) fn levenberg_marquardt<P: LeastSquares>(p: &mut P, x0: &[f64], lo: &[
             mu *= (1.0f64 / 3.0).max(1.0 - (2.0 * ratio - 1.0).powi(3));
             nu = 2.0;
             if cost <= s.cost_floor || drop <= s.f_tol * cost {
-                return LmOutcome { x, cost, iterations, evaluations, converged: true, failed: false };
+                return LmOutcome {
+                    x,
+                    cost,
+                    iterations,
+                    evaluations,
+                    converged: true,
+                    failed: false,
+                };
             }
         } else {
             mu *= nu;
             nu *= 2.0;
             if mu > 1e20 {
                 // No descent left at machine precision: the point is a (local) minimum.
-                return LmOutcome { x, cost, iterations, evaluations, converged: true, failed: false };
+                return LmOutcome {
+                    x,
+                    cost,
+                    iterations,
+                    evaluations,
+                    converged: true,
+                    failed: false,
+                };
             }
         }
     }
-    LmOutcome { x, cost, iterations, evaluations, converged: false, failed: false }
+    LmOutcome {
+        x,
+        cost,
+        iterations,
+        evaluations,
+        converged: false,
+        failed: false,
+    }
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -373,7 +477,12 @@ pub struct CirBounds {
 
 impl Default for CirBounds {
     fn default() -> Self {
-        CirBounds { kappa: (1e-3, 10.0), theta: (1e-6, 2.0), sigma: (1e-4, 2.0), lambda0: (0.0, 2.0) }
+        CirBounds {
+            kappa: (1e-3, 10.0),
+            theta: (1e-6, 2.0),
+            sigma: (1e-4, 2.0),
+            lambda0: (0.0, 2.0),
+        }
     }
 }
 
@@ -427,11 +536,23 @@ pub enum CirFitError {
     #[error("quote {index}: {source}")]
     Maturity { index: usize, source: MaturityError },
     #[error("quotes {first} and {second} have the same maturity {maturity}")]
-    DuplicateMaturity { first: usize, second: usize, maturity: NaiveDate },
+    DuplicateMaturity {
+        first: usize,
+        second: usize,
+        maturity: NaiveDate,
+    },
     #[error("quote {index}: {what} {value} is not valid ({expected})")]
-    BadValue { index: usize, what: &'static str, value: f64, expected: &'static str },
+    BadValue {
+        index: usize,
+        what: &'static str,
+        value: f64,
+        expected: &'static str,
+    },
     #[error("discount curve is referenced on {discount}, not on the trade date {trade}")]
-    ReferenceDate { trade: NaiveDate, discount: NaiveDate },
+    ReferenceDate {
+        trade: NaiveDate,
+        discount: NaiveDate,
+    },
     #[error("fixed kappa {kappa} or sigma {sigma} is outside the bounds")]
     FixedOutOfBounds { kappa: f64, sigma: f64 },
     #[error("window has no day that can be fitted")]
@@ -503,7 +624,12 @@ pub struct CirFit {
 
 impl CirFit {
     pub fn params(&self) -> CirParams {
-        CirParams { kappa: self.kappa, theta: self.theta, sigma: self.sigma, lambda0: self.lambda0 }
+        CirParams {
+            kappa: self.kappa,
+            theta: self.theta,
+            sigma: self.sigma,
+            lambda0: self.lambda0,
+        }
     }
 }
 
@@ -527,15 +653,27 @@ pub(crate) struct CirPricer {
     /// True when every contract's protection nodes are a prefix of the longest's (always, by
     /// the construction of the plan); then the protection sums share one pass.
     shared_protection: bool,
+    /// Kept for the default start (a bootstrap of the same quotes).
+    discount: DiscountCurve,
+    calendar: Calendar,
 }
 
 fn check_quote(index: usize, q: &BootstrapQuote) -> Result<(), CirFitError> {
-    let bad = |what, value, expected| Err(CirFitError::BadValue { index, what, value, expected });
+    let bad = |what, value, expected| {
+        Err(CirFitError::BadValue {
+            index,
+            what,
+            value,
+            expected,
+        })
+    };
     if !(q.recovery >= 0.0 && q.recovery < 1.0) {
         return bad("recovery", q.recovery, "a fraction in [0, 1)");
     }
     match q.quote {
-        CdsQuote::ParSpread(s) if !(s > 0.0 && s.is_finite()) => bad("par spread", s, "a positive number"),
+        CdsQuote::ParSpread(s) if !(s > 0.0 && s.is_finite()) => {
+            bad("par spread", s, "a positive number")
+        }
         CdsQuote::Upfront { upfront, .. } if !(upfront.is_finite() && upfront < 1.0) => {
             bad("upfront", upfront, "a finite fraction of notional below 1")
         }
@@ -559,24 +697,35 @@ impl CirPricer {
             return Err(CirFitError::NoQuotes);
         }
         if discount.reference() != trade {
-            return Err(CirFitError::ReferenceDate { trade, discount: discount.reference() });
+            return Err(CirFitError::ReferenceDate {
+                trade,
+                discount: discount.reference(),
+            });
         }
         let mut order: Vec<(usize, CdsContract)> = Vec::with_capacity(quotes.len());
         for (i, q) in quotes.iter().enumerate() {
             check_quote(i, q)?;
-            let c = CdsContract::standard(trade, q.tenor, cal).map_err(|source| CirFitError::Maturity { index: i, source })?;
+            let c = CdsContract::standard(trade, q.tenor, cal)
+                .map_err(|source| CirFitError::Maturity { index: i, source })?;
             order.push((i, c));
         }
         order.sort_by_key(|(_, c)| c.maturity);
         for w in order.windows(2) {
             if w[0].1.maturity == w[1].1.maturity {
-                return Err(CirFitError::DuplicateMaturity { first: w[0].0, second: w[1].0, maturity: w[0].1.maturity });
+                return Err(CirFitError::DuplicateMaturity {
+                    first: w[0].0,
+                    second: w[1].0,
+                    maturity: w[0].1.maturity,
+                });
             }
         }
         let last = &order.last().expect("non-empty").1;
         let t_end = crate::curves::year_time(trade, last.maturity).max(crate::curves::year_time(
             trade,
-            last.periods.last().map(|p| add_days(p.payment, -1)).unwrap_or(last.maturity),
+            last.periods
+                .last()
+                .map(|p| add_days(p.payment, -1))
+                .unwrap_or(last.maturity),
         ));
         let nodes = uniform_grid(grid_step, t_end);
         let refs: Vec<&CdsContract> = order.iter().map(|(_, c)| c).collect();
@@ -589,7 +738,14 @@ impl CirPricer {
                     CdsQuote::ParSpread(s) => (s, 0.0),
                     CdsQuote::Upfront { upfront, coupon } => (coupon, upfront),
                 };
-                Leg { quote_index: *i, tenor: q.tenor, coupon, upfront, one_minus_r: 1.0 - q.recovery, quote: q.quote }
+                Leg {
+                    quote_index: *i,
+                    tenor: q.tenor,
+                    coupon,
+                    upfront,
+                    one_minus_r: 1.0 - q.recovery,
+                    quote: q.quote,
+                }
             })
             .collect();
         let longest = plan.contracts.len() - 1;
@@ -598,7 +754,14 @@ impl CirPricer {
             let m = c.prot.len();
             m >= 2 && m <= lp.len() && c.prot[..m - 1] == lp[..m - 1]
         });
-        Ok(CirPricer { plan, legs, longest, shared_protection })
+        Ok(CirPricer {
+            plan,
+            legs,
+            longest,
+            shared_protection,
+            discount: discount.clone(),
+            calendar: cal.clone(),
+        })
     }
 
     pub(crate) fn len(&self) -> usize {
@@ -606,7 +769,16 @@ impl CirPricer {
     }
 
     /// Residuals (bp) of every quote, in maturity order, plus (protection, annuity) per quote.
-    fn evaluate<S: CirScalar>(&self, kappa: S, theta: S, sigma: S, lambda0: S, buf: &mut Buffers<S>, out: &mut [S], legs_out: Option<&mut Vec<(f64, f64)>>) -> bool {
+    fn evaluate<S: CirScalar>(
+        &self,
+        kappa: S,
+        theta: S,
+        sigma: S,
+        lambda0: S,
+        buf: &mut Buffers<S>,
+        out: &mut [S],
+        legs_out: Option<&mut Vec<(f64, f64)>>,
+    ) -> bool {
         let plan = &self.plan;
         let coef = CirCoefficients::new(kappa, sigma);
         let np = plan.times.len();
@@ -626,7 +798,12 @@ impl CirPricer {
         let (lq, pq) = (&buf.lq, &buf.pq);
         let term = |i0: u32, i1: u32| -> S {
             let (i0, i1) = (i0 as usize, i1 as usize);
-            protection_term(pq[i0], pq[i1], plan.log_dfs[i0] - plan.log_dfs[i1], lq[i0] - lq[i1])
+            protection_term(
+                pq[i0],
+                pq[i1],
+                plan.log_dfs[i0] - plan.log_dfs[i1],
+                lq[i0] - lq[i1],
+            )
         };
         buf.cum.clear();
         if self.shared_protection {
@@ -669,7 +846,15 @@ impl CirPricer {
         let mut buf = Buffers::default();
         let mut out = vec![0.0; self.len()];
         let mut legs = Vec::new();
-        if !self.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut buf, &mut out, Some(&mut legs)) {
+        if !self.evaluate(
+            p.kappa,
+            p.theta,
+            p.sigma,
+            p.lambda0,
+            &mut buf,
+            &mut out,
+            Some(&mut legs),
+        ) {
             return Vec::new();
         }
         let mut rows: Vec<QuoteResidual> = self
@@ -681,9 +866,11 @@ impl CirPricer {
                 let par_bp = prot / ann * 1e4;
                 let (instrument, market, model) = match leg.quote {
                     CdsQuote::ParSpread(s) => ("cds_par_spread", s * 1e4, par_bp),
-                    CdsQuote::Upfront { upfront, coupon } => {
-                        ("cds_upfront", upfront, (prot - coupon * ann) / c.cash_settle_df)
-                    }
+                    CdsQuote::Upfront { upfront, coupon } => (
+                        "cds_upfront",
+                        upfront,
+                        (prot - coupon * ann) / c.cash_settle_df,
+                    ),
                 };
                 QuoteResidual {
                     quote_index: leg.quote_index,
@@ -710,27 +897,58 @@ struct Buffers<S> {
 
 impl<S> Default for Buffers<S> {
     fn default() -> Self {
-        Buffers { lq: Vec::new(), pq: Vec::new(), cum: Vec::new() }
+        Buffers {
+            lq: Vec::new(),
+            pq: Vec::new(),
+            cum: Vec::new(),
+        }
     }
 }
 
-// Solver coordinates: x = (ln kappa, ln theta, ln sigma, lambda0); in the fixed mode
+// Solver coordinates: x = (ln kappa, ln theta, sigma^2, lambda0); in the fixed mode x = (ln
+// theta, lambda0). sigma^2, not ln sigma: survival depends on sigma through sigma^2, so in ln
+// sigma the objective goes flat as sigma falls and a fit that touches the lower bound cannot
+// climb back; in sigma^2 the slope stays finite down to zero.
+//
 // x = (ln theta, lambda0).
 
 fn to_params(x: &[f64], fixed: Option<(f64, f64)>) -> CirParams {
     match fixed {
-        None => CirParams { kappa: x[0].exp(), theta: x[1].exp(), sigma: x[2].exp(), lambda0: x[3] },
-        Some((kappa, sigma)) => CirParams { kappa, theta: x[0].exp(), sigma, lambda0: x[1] },
+        None => CirParams {
+            kappa: x[0].exp(),
+            theta: x[1].exp(),
+            sigma: x[2].max(0.0).sqrt(),
+            lambda0: x[3],
+        },
+        Some((kappa, sigma)) => CirParams {
+            kappa,
+            theta: x[0].exp(),
+            sigma,
+            lambda0: x[1],
+        },
     }
 }
 
 fn box_of(b: &CirBounds, fixed: bool) -> (Vec<f64>, Vec<f64>) {
     if fixed {
-        (vec![b.theta.0.ln(), b.lambda0.0], vec![b.theta.1.ln(), b.lambda0.1])
+        (
+            vec![b.theta.0.ln(), b.lambda0.0],
+            vec![b.theta.1.ln(), b.lambda0.1],
+        )
     } else {
         (
-            vec![b.kappa.0.ln(), b.theta.0.ln(), b.sigma.0.ln(), b.lambda0.0],
-            vec![b.kappa.1.ln(), b.theta.1.ln(), b.sigma.1.ln(), b.lambda0.1],
+            vec![
+                b.kappa.0.ln(),
+                b.theta.0.ln(),
+                b.sigma.0 * b.sigma.0,
+                b.lambda0.0,
+            ],
+            vec![
+                b.kappa.1.ln(),
+                b.theta.1.ln(),
+                b.sigma.1 * b.sigma.1,
+                b.lambda0.1,
+            ],
         )
     }
 }
@@ -739,7 +957,7 @@ fn to_x(p: &CirParams, fixed: bool) -> Vec<f64> {
     if fixed {
         vec![p.theta.ln(), p.lambda0]
     } else {
-        vec![p.kappa.ln(), p.theta.ln(), p.sigma.ln(), p.lambda0]
+        vec![p.kappa.ln(), p.theta.ln(), p.sigma * p.sigma, p.lambda0]
     }
 }
 
@@ -753,12 +971,26 @@ struct DayProblem<'a> {
 
 impl<'a> DayProblem<'a> {
     fn new(pricer: &'a CirPricer, fixed: Option<(f64, f64)>) -> Self {
-        DayProblem { pricer, fixed, f64_buf: Buffers::default(), grad_buf: Buffers::default(), grad_out: vec![Grad4::constant(0.0); pricer.len()] }
+        DayProblem {
+            pricer,
+            fixed,
+            f64_buf: Buffers::default(),
+            grad_buf: Buffers::default(),
+            grad_out: vec![Grad4::constant(0.0); pricer.len()],
+        }
     }
 
     fn cost_of(&mut self, p: &CirParams) -> f64 {
         let mut r = vec![0.0; self.pricer.len()];
-        if self.pricer.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut self.f64_buf, &mut r, None) {
+        if self.pricer.evaluate(
+            p.kappa,
+            p.theta,
+            p.sigma,
+            p.lambda0,
+            &mut self.f64_buf,
+            &mut r,
+            None,
+        ) {
             0.5 * r.iter().map(|v| v * v).sum::<f64>()
         } else {
             f64::INFINITY
@@ -774,7 +1006,15 @@ impl LeastSquares for DayProblem<'_> {
     fn eval(&mut self, x: &[f64], r: &mut [f64], jac: Option<&mut [f64]>) -> bool {
         let p = to_params(x, self.fixed);
         match jac {
-            None => self.pricer.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut self.f64_buf, r, None),
+            None => self.pricer.evaluate(
+                p.kappa,
+                p.theta,
+                p.sigma,
+                p.lambda0,
+                &mut self.f64_buf,
+                r,
+                None,
+            ),
             Some(jac) => {
                 let ok = self.pricer.evaluate(
                     Grad4::var(p.kappa, 0),
@@ -792,14 +1032,14 @@ impl LeastSquares for DayProblem<'_> {
                 for (k, g) in self.grad_out.iter().enumerate() {
                     r[k] = g.v;
                     let row = &mut jac[k * n..(k + 1) * n];
-                    // d/d ln v = v d/dv.
+                    // d/d ln v = v d/dv; d/d sigma^2 = d/d sigma / (2 sigma).
                     if self.fixed.is_some() {
                         row[0] = g.d[1] * p.theta;
                         row[1] = g.d[3];
                     } else {
                         row[0] = g.d[0] * p.kappa;
                         row[1] = g.d[1] * p.theta;
-                        row[2] = g.d[2] * p.sigma;
+                        row[2] = g.d[2] * 0.5 / p.sigma;
                         row[3] = g.d[3];
                     }
                     if !row.iter().all(|v| v.is_finite()) {
@@ -822,7 +1062,15 @@ impl LeastSquares for DayProblem<'_> {
 /// (lambda0, theta) to the average hazards H_k / t_k; the best kappa wins. sigma starts at half
 /// the Feller bound sqrt(2 kappa theta).
 pub fn start_from_points(times: &[f64], integrated: &[f64]) -> CirParams {
-    let mut best = (f64::INFINITY, CirParams { kappa: 0.3, theta: 0.02, sigma: 0.05, lambda0: 0.01 });
+    let mut best = (
+        f64::INFINITY,
+        CirParams {
+            kappa: 0.3,
+            theta: 0.02,
+            sigma: 0.05,
+            lambda0: 0.01,
+        },
+    );
     let fallback_level = times
         .iter()
         .zip(integrated)
@@ -864,7 +1112,15 @@ pub fn start_from_points(times: &[f64], integrated: &[f64]) -> CirParams {
             })
             .sum();
         if err < best.0 {
-            best = (err, CirParams { kappa, theta: th, sigma: 0.5 * (2.0 * kappa * th).sqrt(), lambda0: l0 });
+            best = (
+                err,
+                CirParams {
+                    kappa,
+                    theta: th,
+                    sigma: 0.5 * (2.0 * kappa * th).sqrt(),
+                    lambda0: l0,
+                },
+            );
         }
     }
     best.1
@@ -875,6 +1131,20 @@ pub fn start_from_curve(curve: &HazardCurve) -> CirParams {
     let times = curve.node_times();
     let h: Vec<f64> = times.iter().map(|&t| curve.integrated_hazard(t)).collect();
     start_from_points(times, &h)
+}
+
+/// The start used when the caller gives none: from the day's bootstrapped curve, else (a quote
+/// set the bootstrap cannot complete) from the quotes' credit-triangle hazards.
+fn default_start(trade: NaiveDate, quotes: &[BootstrapQuote], pricer: &CirPricer) -> CirParams {
+    let settings = BootstrapSettings::default();
+    match bootstrap(trade, quotes, &pricer.discount, &pricer.calendar, &settings) {
+        Ok(fit) if fit.complete() => fit
+            .curve
+            .as_ref()
+            .map(start_from_curve)
+            .unwrap_or_else(|| start_from_quotes(quotes)),
+        _ => start_from_quotes(quotes),
+    }
 }
 
 /// Starting values from the quotes alone (credit triangle: hazard = spread / (1 - R)).
@@ -943,8 +1213,17 @@ pub fn fit_cir(
     starts: &[CirParams],
     settings: &CirFitSettings,
 ) -> Result<CirFit, CirFitError> {
-    let pricer = CirPricer::new(trade, quotes, discount, cal, settings.grid_step, settings.accrual)?;
-    Ok(fit_with_pricer(trade, &pricer, quotes, None, starts, settings))
+    let pricer = CirPricer::new(
+        trade,
+        quotes,
+        discount,
+        cal,
+        settings.grid_step,
+        settings.accrual,
+    )?;
+    Ok(fit_with_pricer(
+        trade, &pricer, quotes, None, starts, settings,
+    ))
 }
 
 /// Fits theta and lambda0 with kappa and sigma held at the given values (the window mode).
@@ -962,8 +1241,22 @@ pub fn fit_cir_fixed(
     if !(kappa >= b.kappa.0 && kappa <= b.kappa.1 && sigma >= b.sigma.0 && sigma <= b.sigma.1) {
         return Err(CirFitError::FixedOutOfBounds { kappa, sigma });
     }
-    let pricer = CirPricer::new(trade, quotes, discount, cal, settings.grid_step, settings.accrual)?;
-    Ok(fit_with_pricer(trade, &pricer, quotes, Some((kappa, sigma)), starts, settings))
+    let pricer = CirPricer::new(
+        trade,
+        quotes,
+        discount,
+        cal,
+        settings.grid_step,
+        settings.accrual,
+    )?;
+    Ok(fit_with_pricer(
+        trade,
+        &pricer,
+        quotes,
+        Some((kappa, sigma)),
+        starts,
+        settings,
+    ))
 }
 
 fn fit_with_pricer(
@@ -977,11 +1270,15 @@ fn fit_with_pricer(
     let bounds = &settings.bounds;
     let mut candidates: Vec<CirParams> = starts
         .iter()
-        .filter(|p| [p.kappa, p.theta, p.sigma, p.lambda0].iter().all(|v| v.is_finite()))
+        .filter(|p| {
+            [p.kappa, p.theta, p.sigma, p.lambda0]
+                .iter()
+                .all(|v| v.is_finite())
+        })
         .copied()
         .collect();
     if candidates.is_empty() {
-        candidates.push(start_from_quotes(quotes));
+        candidates.push(default_start(trade, quotes, pricer));
     }
     let mut problem = DayProblem::new(pricer, fixed);
     let fix = |p: &CirParams| -> CirParams {
@@ -992,10 +1289,13 @@ fn fit_with_pricer(
         }
         q
     };
-    let mut ranked: Vec<(f64, CirParams)> = candidates.iter().map(|p| {
-        let q = fix(p);
-        (problem.cost_of(&q), q)
-    }).collect();
+    let mut ranked: Vec<(f64, CirParams)> = candidates
+        .iter()
+        .map(|p| {
+            let q = fix(p);
+            (problem.cost_of(&q), q)
+        })
+        .collect();
     ranked.sort_by(|a, b| a.0.total_cmp(&b.0));
     let is_fixed = fixed.is_some();
     let (lo, hi) = box_of(bounds, is_fixed);
@@ -1006,16 +1306,36 @@ fn fit_with_pricer(
         }
         let (cost, p, iters, evals, converged) = match settings.solver {
             CirSolver::LevenbergMarquardt => {
-                let out = levenberg_marquardt(&mut problem, &to_x(start, is_fixed), &lo, &hi, &settings.lm);
+                let cap: &[f64] = if is_fixed {
+                    &[1.0, 0.05]
+                } else {
+                    &[1.0, 1.0, 0.05, 0.05]
+                };
+                let out = levenberg_marquardt(
+                    &mut problem,
+                    &to_x(start, is_fixed),
+                    &lo,
+                    &hi,
+                    cap,
+                    &settings.lm,
+                );
                 if out.failed {
                     continue;
                 }
-                (out.cost, to_params(&out.x, fixed), out.iterations, out.evaluations, out.converged)
+                (
+                    out.cost,
+                    to_params(&out.x, fixed),
+                    out.iterations,
+                    out.evaluations,
+                    out.converged,
+                )
             }
-            CirSolver::NelderMead => match nelder_mead(pricer, fixed, &to_x(start, is_fixed), &lo, &hi, settings) {
-                Some(v) => v,
-                None => continue,
-            },
+            CirSolver::NelderMead => {
+                match nelder_mead(pricer, fixed, &to_x(start, is_fixed), &lo, &hi, settings) {
+                    Some(v) => v,
+                    None => continue,
+                }
+            }
         };
         if best.as_ref().map_or(true, |b| cost < b.0) {
             best = Some((cost, p, iters, evals, converged));
@@ -1035,15 +1355,26 @@ fn fit_with_pricer(
             lambda0: p.lambda0,
             rmse_bp: (2.0 * cost / m).sqrt(),
             feller: p.feller(),
-            status: if converged { CirFitStatus::Ok } else { CirFitStatus::MaxIterations },
-            mode: if is_fixed { CirFitMode::FixedKappaSigma } else { CirFitMode::Free },
+            status: if converged {
+                CirFitStatus::Ok
+            } else {
+                CirFitStatus::MaxIterations
+            },
+            mode: if is_fixed {
+                CirFitMode::FixedKappaSigma
+            } else {
+                CirFitMode::Free
+            },
             iterations,
             evaluations,
             quotes: pricer.residual_rows(&p),
             detail: bound_detail(&p, bounds, is_fixed),
         },
         None => {
-            let p = ranked.first().map(|r| r.1).unwrap_or_else(|| fix(&start_from_quotes(quotes)));
+            let p = ranked
+                .first()
+                .map(|r| r.1)
+                .unwrap_or_else(|| fix(&start_from_quotes(quotes)));
             CirFit {
                 trade_date: trade,
                 kappa: p.kappa,
@@ -1053,11 +1384,18 @@ fn fit_with_pricer(
                 rmse_bp: f64::NAN,
                 feller: p.feller(),
                 status: CirFitStatus::Failed,
-                mode: if is_fixed { CirFitMode::FixedKappaSigma } else { CirFitMode::Free },
+                mode: if is_fixed {
+                    CirFitMode::FixedKappaSigma
+                } else {
+                    CirFitMode::Free
+                },
                 iterations: 0,
                 evaluations: ranked.len() as u32,
                 quotes: Vec::new(),
-                detail: Some(format!("no start gave finite prices ({} starts tried)", ranked.len())),
+                detail: Some(format!(
+                    "no start gave finite prices ({} starts tried)",
+                    ranked.len()
+                )),
             }
         }
     }
@@ -1072,7 +1410,9 @@ fn nelder_mead(
     hi: &[f64],
     settings: &CirFitSettings,
 ) -> Option<(f64, CirParams, u32, u32, bool)> {
-    use argmin::core::{CostFunction, Error, Executor, State, TerminationReason, TerminationStatus};
+    use argmin::core::{
+        CostFunction, Error, Executor, State, TerminationReason, TerminationStatus,
+    };
     use argmin::solver::neldermead::NelderMead;
     struct Cost<'a> {
         pricer: &'a CirPricer,
@@ -1084,13 +1424,20 @@ fn nelder_mead(
         type Param = Vec<f64>;
         type Output = f64;
         fn cost(&self, x: &Vec<f64>) -> Result<f64, Error> {
-            let xc: Vec<f64> = x.iter().zip(self.lo.iter().zip(self.hi)).map(|(&v, (&l, &h))| v.clamp(l, h)).collect();
+            let xc: Vec<f64> = x
+                .iter()
+                .zip(self.lo.iter().zip(self.hi))
+                .map(|(&v, (&l, &h))| v.clamp(l, h))
+                .collect();
             // Outside the box the cost grows with the distance, so the simplex comes back.
             let out: f64 = x.iter().zip(&xc).map(|(a, b)| (a - b) * (a - b)).sum();
             let p = to_params(&xc, self.fixed);
             let mut buf = Buffers::default();
             let mut r = vec![0.0; self.pricer.len()];
-            if !self.pricer.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut buf, &mut r, None) {
+            if !self
+                .pricer
+                .evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut buf, &mut r, None)
+            {
                 return Ok(f64::MAX);
             }
             Ok(0.5 * r.iter().map(|v| v * v).sum::<f64>() * (1.0 + 1e6 * out) + 1e6 * out)
@@ -1100,19 +1447,49 @@ fn nelder_mead(
     let mut simplex = vec![x0.to_vec()];
     for i in 0..n {
         let mut v = x0.to_vec();
-        // 0.2 in the log coordinates; 20% (or 10 bp) in lambda0.
-        v[i] += if (fixed.is_none() && i == 3) || (fixed.is_some() && i == 1) { (0.2 * x0[i]).max(1e-3) } else { 0.2 };
+        // 0.2 in the log coordinates; 20% (or 10 bp) in lambda0; half (or 1e-3) in sigma^2.
+        let lambda0 = (fixed.is_none() && i == 3) || (fixed.is_some() && i == 1);
+        v[i] += if lambda0 {
+            (0.2 * x0[i]).max(1e-3)
+        } else if fixed.is_none() && i == 2 {
+            (0.5 * x0[i]).max(1e-3)
+        } else {
+            0.2
+        };
         simplex.push(v);
     }
-    let solver = NelderMead::new(simplex).with_sd_tolerance(settings.nm_sd_tolerance).ok()?;
-    let cost = Cost { pricer, fixed, lo, hi };
-    let res = Executor::new(cost, solver).configure(|s| s.max_iters(settings.nm_max_iterations)).run().ok()?;
+    let solver = NelderMead::new(simplex)
+        .with_sd_tolerance(settings.nm_sd_tolerance)
+        .ok()?;
+    let cost = Cost {
+        pricer,
+        fixed,
+        lo,
+        hi,
+    };
+    let res = Executor::new(cost, solver)
+        .configure(|s| s.max_iters(settings.nm_max_iterations).counting(true))
+        .run()
+        .ok()?;
     let st = res.state();
     let x = st.get_best_param()?.clone();
-    let xc: Vec<f64> = x.iter().zip(lo.iter().zip(hi)).map(|(&v, (&l, &h))| v.clamp(l, h)).collect();
-    let converged = matches!(st.get_termination_status(), TerminationStatus::Terminated(TerminationReason::SolverConverged));
+    let xc: Vec<f64> = x
+        .iter()
+        .zip(lo.iter().zip(hi))
+        .map(|(&v, (&l, &h))| v.clamp(l, h))
+        .collect();
+    let converged = matches!(
+        st.get_termination_status(),
+        TerminationStatus::Terminated(TerminationReason::SolverConverged)
+    );
     let evals = st.get_func_counts().get("cost_count").copied().unwrap_or(0) as u32;
-    Some((st.get_best_cost(), to_params(&xc, fixed), st.get_iter() as u32, evals, converged))
+    Some((
+        st.get_best_cost(),
+        to_params(&xc, fixed),
+        st.get_iter() as u32,
+        evals,
+        converged,
+    ))
 }
 
 /// One day of a window.
@@ -1155,7 +1532,7 @@ impl LeastSquares for PooledProblem<'_> {
 
     fn eval(&mut self, x: &[f64], r: &mut [f64], jac: Option<&mut [f64]>) -> bool {
         let n = 2 + 2 * self.days.len();
-        let (kappa, sigma) = (x[0].exp(), x[1].exp());
+        let (kappa, sigma) = (x[0].exp(), x[1].max(0.0).sqrt());
         let mut jac = jac;
         if let Some(j) = jac.as_deref_mut() {
             j.iter_mut().for_each(|v| *v = 0.0);
@@ -1166,7 +1543,15 @@ impl LeastSquares for PooledProblem<'_> {
             let len = prob.pricer.len();
             match jac.as_deref_mut() {
                 None => {
-                    if !prob.pricer.evaluate(kappa, theta, sigma, lambda0, &mut prob.f64_buf, &mut r[off..off + len], None) {
+                    if !prob.pricer.evaluate(
+                        kappa,
+                        theta,
+                        sigma,
+                        lambda0,
+                        &mut prob.f64_buf,
+                        &mut r[off..off + len],
+                        None,
+                    ) {
                         return false;
                     }
                 }
@@ -1187,7 +1572,7 @@ impl LeastSquares for PooledProblem<'_> {
                         let row = &mut j[(off + k) * n..(off + k + 1) * n];
                         r[off + k] = g.v;
                         row[0] = g.d[0] * kappa;
-                        row[1] = g.d[2] * sigma;
+                        row[1] = g.d[2] * 0.5 / sigma;
                         row[2 + 2 * d] = g.d[1] * theta;
                         row[3 + 2 * d] = g.d[3];
                         if !row.iter().all(|v| v.is_finite()) {
@@ -1207,10 +1592,23 @@ impl LeastSquares for PooledProblem<'_> {
 ///
 /// At most `settings.max_pooled_days` days, evenly spaced, enter the pooled estimate; its start
 /// is the median (in logs) of free fits on those days.
-pub fn fit_cir_window(days: &[CirWindowDay<'_>], cal: &Calendar, settings: &CirFitSettings) -> Result<CirWindowFit, CirFitError> {
+pub fn fit_cir_window(
+    days: &[CirWindowDay<'_>],
+    cal: &Calendar,
+    settings: &CirFitSettings,
+) -> Result<CirWindowFit, CirFitError> {
     let pricers: Vec<Result<CirPricer, CirFitError>> = days
         .iter()
-        .map(|d| CirPricer::new(d.trade_date, d.quotes, d.discount, cal, settings.grid_step, settings.accrual))
+        .map(|d| {
+            CirPricer::new(
+                d.trade_date,
+                d.quotes,
+                d.discount,
+                cal,
+                settings.grid_step,
+                settings.accrual,
+            )
+        })
         .collect();
     let usable: Vec<usize> = (0..days.len()).filter(|&i| pricers[i].is_ok()).collect();
     if usable.is_empty() {
@@ -1224,7 +1622,14 @@ pub fn fit_cir_window(days: &[CirWindowDay<'_>], cal: &Calendar, settings: &CirF
     for &i in &pooled {
         let pr = pricers[i].as_ref().expect("usable");
         let starts: Vec<CirParams> = days[i].start.into_iter().collect();
-        let f = fit_with_pricer(days[i].trade_date, pr, days[i].quotes, None, &starts, settings);
+        let f = fit_with_pricer(
+            days[i].trade_date,
+            pr,
+            days[i].quotes,
+            None,
+            &starts,
+            settings,
+        );
         if f.status != CirFitStatus::Failed {
             free.push((i, f.params()));
         }
@@ -1235,15 +1640,21 @@ pub fn fit_cir_window(days: &[CirWindowDay<'_>], cal: &Calendar, settings: &CirF
     let median = |mut v: Vec<f64>| -> f64 {
         v.sort_by(f64::total_cmp);
         let n = v.len();
-        if n % 2 == 1 { v[n / 2] } else { 0.5 * (v[n / 2 - 1] + v[n / 2]) }
+        if n % 2 == 1 {
+            v[n / 2]
+        } else {
+            0.5 * (v[n / 2 - 1] + v[n / 2])
+        }
     };
     let lk = median(free.iter().map(|(_, p)| p.kappa.ln()).collect());
     let ls = median(free.iter().map(|(_, p)| p.sigma.ln()).collect());
+    let s2 = (2.0 * ls).exp();
 
     let b = &settings.bounds;
-    let mut x0 = vec![lk, ls];
-    let mut lo = vec![b.kappa.0.ln(), b.sigma.0.ln()];
-    let mut hi = vec![b.kappa.1.ln(), b.sigma.1.ln()];
+    let mut x0 = vec![lk, s2];
+    let mut lo = vec![b.kappa.0.ln(), b.sigma.0 * b.sigma.0];
+    let mut hi = vec![b.kappa.1.ln(), b.sigma.1 * b.sigma.1];
+    let mut cap = vec![1.0, 0.05];
     let mut probs = Vec::new();
     let mut offsets = Vec::new();
     let mut m = 0;
@@ -1254,14 +1665,19 @@ pub fn fit_cir_window(days: &[CirWindowDay<'_>], cal: &Calendar, settings: &CirF
         x0.push(p.lambda0.clamp(b.lambda0.0, b.lambda0.1));
         lo.extend([b.theta.0.ln(), b.lambda0.0]);
         hi.extend([b.theta.1.ln(), b.lambda0.1]);
+        cap.extend([1.0, 0.05]);
         offsets.push(m);
         m += pr.len();
         probs.push(DayProblem::new(pr, None));
         dates.push(days[*i].trade_date);
     }
-    let mut pooled_problem = PooledProblem { days: probs, offsets, m };
-    let out = levenberg_marquardt(&mut pooled_problem, &x0, &lo, &hi, &settings.lm);
-    let (kappa, sigma) = (out.x[0].exp(), out.x[1].exp());
+    let mut pooled_problem = PooledProblem {
+        days: probs,
+        offsets,
+        m,
+    };
+    let out = levenberg_marquardt(&mut pooled_problem, &x0, &lo, &hi, &cap, &settings.lm);
+    let (kappa, sigma) = (out.x[0].exp(), out.x[1].max(0.0).sqrt());
     let status = if out.failed {
         CirFitStatus::Failed
     } else if out.converged {
@@ -1272,7 +1688,17 @@ pub fn fit_cir_window(days: &[CirWindowDay<'_>], cal: &Calendar, settings: &CirF
     let pooled_theta: std::collections::HashMap<usize, CirParams> = free
         .iter()
         .enumerate()
-        .map(|(k, (i, _))| (*i, CirParams { kappa, theta: out.x[2 + 2 * k].exp(), sigma, lambda0: out.x[3 + 2 * k] }))
+        .map(|(k, (i, _))| {
+            (
+                *i,
+                CirParams {
+                    kappa,
+                    theta: out.x[2 + 2 * k].exp(),
+                    sigma,
+                    lambda0: out.x[3 + 2 * k],
+                },
+            )
+        })
         .collect();
 
     let mut results = Vec::with_capacity(days.len());
@@ -1291,7 +1717,14 @@ pub fn fit_cir_window(days: &[CirWindowDay<'_>], cal: &Calendar, settings: &CirF
                 if let Some(p) = day.start {
                     starts.push(p);
                 }
-                let f = fit_with_pricer(day.trade_date, pr, day.quotes, Some((kappa, sigma)), &starts, settings);
+                let f = fit_with_pricer(
+                    day.trade_date,
+                    pr,
+                    day.quotes,
+                    Some((kappa, sigma)),
+                    &starts,
+                    settings,
+                );
                 if f.status != CirFitStatus::Failed {
                     prev = Some(f.params());
                 }
@@ -1322,8 +1755,22 @@ pub fn cir_par_spreads(
     settings: &CirFitSettings,
 ) -> Result<Vec<f64>, CirFitError> {
     // Any par quote will do: the repriced par spread does not depend on it.
-    let quotes: Vec<BootstrapQuote> = tenors.iter().map(|&tenor| BootstrapQuote { tenor, quote: CdsQuote::ParSpread(0.01), recovery }).collect();
-    let pricer = CirPricer::new(trade, &quotes, discount, cal, settings.grid_step, settings.accrual)?;
+    let quotes: Vec<BootstrapQuote> = tenors
+        .iter()
+        .map(|&tenor| BootstrapQuote {
+            tenor,
+            quote: CdsQuote::ParSpread(0.01),
+            recovery,
+        })
+        .collect();
+    let pricer = CirPricer::new(
+        trade,
+        &quotes,
+        discount,
+        cal,
+        settings.grid_step,
+        settings.accrual,
+    )?;
     let rows = pricer.residual_rows(p);
     Ok(rows.iter().map(|r| r.model_par_spread_bp / 1e4).collect())
 }
@@ -1348,8 +1795,13 @@ mod tests {
                 let mut dn = p;
                 up[i] += h;
                 dn[i] -= h;
-                let fd = (f(up[0], up[1], up[2], up[3], t) - f(dn[0], dn[1], dn[2], dn[3], t)) / (2.0 * h);
-                assert!((fd - g.d[i]).abs() < 1e-7 * (1.0 + fd.abs()), "t={t} i={i}: {fd} vs {}", g.d[i]);
+                let fd = (f(up[0], up[1], up[2], up[3], t) - f(dn[0], dn[1], dn[2], dn[3], t))
+                    / (2.0 * h);
+                assert!(
+                    (fd - g.d[i]).abs() < 1e-7 * (1.0 + fd.abs()),
+                    "t={t} i={i}: {fd} vs {}",
+                    g.d[i]
+                );
             }
         }
     }
@@ -1370,11 +1822,31 @@ mod tests {
                 true
             }
         }
-        let out = levenberg_marquardt(&mut Rb, &[-1.2, 1.0], &[-2.0, -2.0], &[2.0, 2.0], &LmSettings::default());
-        assert!(out.converged && (out.x[0] - 1.0).abs() < 1e-8 && (out.x[1] - 1.0).abs() < 1e-8, "{out:?}");
+        let out = levenberg_marquardt(
+            &mut Rb,
+            &[-1.2, 1.0],
+            &[-2.0, -2.0],
+            &[2.0, 2.0],
+            &[f64::INFINITY; 2],
+            &LmSettings::default(),
+        );
+        assert!(
+            out.converged && (out.x[0] - 1.0).abs() < 1e-8 && (out.x[1] - 1.0).abs() < 1e-8,
+            "{out:?}"
+        );
         // With the optimum outside the box the solution sits on the bound x0 <= 0.5.
-        let out = levenberg_marquardt(&mut Rb, &[-1.2, 1.0], &[-2.0, -2.0], &[0.5, 2.0], &LmSettings::default());
-        assert!((out.x[0] - 0.5).abs() < 1e-12 && (out.x[1] - 0.25).abs() < 1e-6, "{out:?}");
+        let out = levenberg_marquardt(
+            &mut Rb,
+            &[-1.2, 1.0],
+            &[-2.0, -2.0],
+            &[0.5, 2.0],
+            &[f64::INFINITY; 2],
+            &LmSettings::default(),
+        );
+        assert!(
+            (out.x[0] - 0.5).abs() < 1e-12 && (out.x[1] - 0.25).abs() < 1e-6,
+            "{out:?}"
+        );
     }
 
     #[test]
@@ -1382,10 +1854,13 @@ mod tests {
         // Integrated hazards of sigma = 0 parameters are matched exactly at a grid kappa.
         let (k, th, l0) = (0.5, 0.03, 0.01);
         let times: Vec<f64> = [0.5, 1.0, 2.0, 3.0, 5.0, 7.0, 10.0].to_vec();
-        let h: Vec<f64> = times.iter().map(|&t| {
-            let b = (1.0 - (-k * t).exp()) / k;
-            l0 * b + th * (t - b)
-        }).collect();
+        let h: Vec<f64> = times
+            .iter()
+            .map(|&t| {
+                let b = (1.0 - (-k * t).exp()) / k;
+                l0 * b + th * (t - b)
+            })
+            .collect();
         let p = start_from_points(&times, &h);
         assert_eq!(p.kappa, 0.5);
         assert!((p.theta - th).abs() < 1e-12 && (p.lambda0 - l0).abs() < 1e-12);

@@ -154,3 +154,32 @@ fn parquet_folder_input_is_read() {
     let stdout = String::from_utf8(assert.get_output().stdout.clone()).unwrap();
     assert_eq!(counts(&stdout, "cds_quotes"), (6, 6, 0), "{stdout}");
 }
+
+#[test]
+fn wrong_column_type_exits_2_naming_file_column_found_and_expected() {
+    let dir = tempfile::tempdir().unwrap();
+    let disc = write(dir.path(), "disc.csv", DISCOUNT);
+    let d = hazardline::time::parse_iso_date("2024-03-21").unwrap();
+    let mut df = hazardline::report::parquet::TableBuilder::new()
+        .dates("date", vec![Some(d)])
+        .strings("entity", vec![Some("ALPHA")])
+        .strings("currency", vec![Some("USD")])
+        .strings("tenor", vec![Some("5Y")])
+        .dates("par_spread_bp", vec![Some(d)])
+        .finish()
+        .unwrap();
+    let q = dir.path().join("typed.parquet");
+    hazardline::report::parquet::write_parquet(&mut df, &q, &[]).unwrap();
+    Command::cargo_bin("hazardline")
+        .unwrap()
+        .args(["check", "--cds"])
+        .arg(&q)
+        .arg("--discount")
+        .arg(&disc)
+        .assert()
+        .code(2)
+        .stderr(predicates::str::contains("typed.parquet"))
+        .stderr(predicates::str::contains("`par_spread_bp`"))
+        .stderr(predicates::str::contains("type date"))
+        .stderr(predicates::str::contains("expected a number"));
+}
