@@ -5,6 +5,7 @@
 
 use chrono::NaiveDate;
 use criterion::{black_box, criterion_group, criterion_main, Criterion};
+use hazardline::calibrate::bootstrap::BootstrapPlan;
 use hazardline::calibrate::{bootstrap, BootstrapQuote, BootstrapSettings};
 use hazardline::curves::DiscountCurve;
 use hazardline::instruments::CdsQuote;
@@ -29,6 +30,12 @@ fn bench(c: &mut Criterion) {
     c.bench_function("bootstrap 8 tenors to 10Y", |b| {
         b.iter(|| bootstrap(black_box(trade), black_box(&quotes), &disc, &cal, &settings).unwrap())
     });
+    // Names quoted on one day for the same tenors share a plan (contracts, nodes, grid); the
+    // calibrate stage builds it once per (date, currency, tenor set).
+    let tenors: Vec<Tenor> = quotes.iter().map(|q| q.tenor).collect();
+    let plan = BootstrapPlan::new(trade, &tenors, &disc, &cal, settings.accrual).unwrap();
+    c.bench_function("bootstrap 8 tenors to 10Y, shared plan", |b| b.iter(|| plan.solve(black_box(&quotes), &settings).unwrap()));
+    c.bench_function("plan for 8 tenors to 10Y", |b| b.iter(|| BootstrapPlan::new(black_box(trade), &tenors, &disc, &cal, settings.accrual).unwrap()));
 }
 
 criterion_group!(benches, bench);

@@ -5,7 +5,10 @@
 //! Every setting has a default, documented on its field; `pipelines/quarterly-review.toml`
 //! shows them all with comments.
 
+use crate::calibrate::intensity_fit::CirFitMode;
 use crate::calibrate::{BootstrapSettings, InfeasiblePolicy};
+use crate::commands::intensity::IntensitySettings;
+use crate::instruments::bond::RecoveryConvention;
 use crate::error::{Error, Result};
 use crate::ingest::{InputPaths, QualitySettings};
 use crate::instruments::AccrualIntegration;
@@ -71,6 +74,19 @@ pub struct ConventionsSection {
 pub struct CalibrationSection {
     /// Bootstrap CDS hazard curves. Default true.
     pub cds_bootstrap: Option<bool>,
+    /// Fit bond-implied hazard curves (and the CDS-bond basis). Default true when both
+    /// inputs.bonds and inputs.bond_quotes are given, else false.
+    pub bond_fit: Option<bool>,
+    /// Fit the CIR intensity model to every bootstrapped CDS curve. Default false.
+    pub cir: Option<bool>,
+    /// `free` (default: kappa, theta, sigma, lambda0 fitted daily) or `fixed_kappa_sigma`
+    /// (kappa and sigma estimated per window, theta and lambda0 daily).
+    pub cir_mode: Option<String>,
+    /// Window length in business days of the `fixed_kappa_sigma` mode. Default 20.
+    pub cir_window: Option<usize>,
+    /// Bond recovery convention: `par` (default, recovery of face), `zero` or `market`
+    /// (recovery of market value).
+    pub bond_recovery_convention: Option<String>,
 }
 
 /// `[quality]`: thresholds of the data-quality rules (defaults in `QualitySettings`).
@@ -128,6 +144,14 @@ pub struct RunConfig {
     pub cds_bootstrap: bool,
     #[serde(skip)]
     pub bootstrap: BootstrapSettings,
+    pub bond_fit: bool,
+    pub cir: bool,
+    pub cir_mode: String,
+    pub cir_window: usize,
+    pub bond_recovery_convention: String,
+    /// The five settings above, typed.
+    #[serde(skip)]
+    pub intensity: IntensitySettings,
     #[serde(serialize_with = "ser_quality")]
     pub quality: QualitySettings,
     #[serde(skip)]
@@ -239,6 +263,36 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         other => return Err(bad(path, "conventions.accrual_on_default", format!("{other:?} is not one of \"standard\", \"exact\""))),
     };
 
+    let k = &file.calibration;
+    let cds_bootstrap = k.cds_bootstrap.unwrap_or(true);
+    let have_bonds = inputs.bonds.is_some() && inputs.bond_quotes.is_some();
+    let bond_fit = k.bond_fit.unwrap_or(have_bonds);
+    if bond_fit && !have_bonds {
+        return Err(bad(path, "calibration.bond_fit", "the bond fit needs inputs.bonds and inputs.bond_quotes".into()));
+    }
+    let cir = k.cir.unwrap_or(false);
+    if cir && !cds_bootstrap {
+        return Err(bad(path, "calibration.cir", "the CIR fit starts from the bootstrapped curves and needs cds_bootstrap = true".into()));
+    }
+    let cir_mode = k.cir_mode.clone().unwrap_or_else(|| "free".into());
+    let mode = match cir_mode.as_str() {
+        "free" => CirFitMode::Free,
+        "fixed_kappa_sigma" => CirFitMode::FixedKappaSigma,
+        other => return Err(bad(path, "calibration.cir_mode", format!("{other:?} is not one of \"free\", \"fixed_kappa_sigma\""))),
+    };
+    let cir_window = k.cir_window.unwrap_or(20);
+    if cir_window < 2 {
+        return Err(bad(path, "calibration.cir_window", format!("{cir_window} is not a window of at least 2 business days")));
+    }
+    let bond_recovery_convention = k.bond_recovery_convention.clone().unwrap_or_else(|| "par".into());
+    let convention = match bond_recovery_convention.as_str() {
+        "par" => RecoveryConvention::Par,
+        "zero" => RecoveryConvention::Zero,
+        "market" => RecoveryConvention::Market,
+        other => return Err(bad(path, "calibration.bond_recovery_convention", format!("{other:?} is not one of \"par\", \"zero\", \"market\""))),
+    };
+    let intensity = IntensitySettings { bond_fit, cir, cir_mode: mode, cir_window, bond_convention: convention };
+
     let q = &file.quality;
     let d = QualitySettings::default();
     let band = |v: Option<[f64; 2]>, key: &str, dflt: (f64, f64)| -> Result<(f64, f64)> {
@@ -306,8 +360,14 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         recovery_by_seniority: by_sen,
         infeasible,
         accrual_on_default,
-        cds_bootstrap: file.calibration.cds_bootstrap.unwrap_or(true),
+        cds_bootstrap,
         bootstrap: BootstrapSettings { infeasible: policy, accrual, ..BootstrapSettings::default() },
+        bond_fit,
+        cir,
+        cir_mode,
+        cir_window,
+        bond_recovery_convention,
+        intensity,
         quality,
         output_root,
         label: r.label.clone(),

@@ -7,6 +7,7 @@
 //! written to a temporary name first. Everything but `run.log` is deterministic.
 
 use crate::commands::calibrate::{calibrate_dataset, metadata, CalibrationParams};
+use crate::commands::intensity::calibrate_intensity;
 use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::{load, TableCounts};
@@ -44,7 +45,9 @@ fn counts_records(stage: &str, counts: &[TableCounts]) -> Vec<CountRecord> {
         .collect()
 }
 
-pub const TABLES: [&str; 6] = ["data_quality", "rejects", "discount_curves", "hazard_curves", "calibration_residuals", "flags"];
+/// Every table a run writes. `intensity_params` and `cds_bond_basis` are always written, empty
+/// (with their schema) when the CIR or bond fit is off, so consumers find the same files.
+pub const TABLES: [&str; 8] = ["data_quality", "rejects", "discount_curves", "hazard_curves", "calibration_residuals", "intensity_params", "cds_bond_basis", "flags"];
 
 /// Runs the pipeline.
 pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
@@ -63,8 +66,14 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
         bootstrap: cfg.bootstrap,
         calendar: cfg.calendar.clone(),
     };
-    let cal = if cfg.cds_bootstrap { calibrate_dataset(&mut ds, &params)? } else { Default::default() };
+    let mut cal = if cfg.cds_bootstrap { calibrate_dataset(&mut ds, &params)? } else { Default::default() };
     timings.push(("calibrate".into(), t1.elapsed().as_secs_f64()));
+    let t1b = Instant::now();
+    let mut fits = calibrate_intensity(&mut ds, &cal, &params, &cfg.intensity)?;
+    cal.hazard.append(&mut fits.hazard);
+    cal.residuals.append(&mut fits.residuals);
+    cal.rejects.append(&mut fits.rejects);
+    timings.push(("bond and CIR fits".into(), t1b.elapsed().as_secs_f64()));
 
     let period = ds.cds.as_ref().and_then(|p| Some((p.rows.first()?.date, p.rows.last()?.date)));
     let label = opts
@@ -81,7 +90,9 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let tables = work.join("tables");
 
     let t2 = Instant::now();
-    let meta = metadata(&params, &cfg.quality);
+    let mut meta = metadata(&params, &cfg.quality);
+    meta.push(("hazardline.bond_fit".into(), format!("{} (recovery convention {})", cfg.bond_fit, cfg.bond_recovery_convention)));
+    meta.push(("hazardline.cir".into(), if cfg.cir { format!("true (mode {}, window {} business days)", cfg.cir_mode, cfg.cir_window) } else { "false".into() }));
     let mut rejects = std::mem::take(&mut ds.rejects);
     rejects.extend(cal.rejects.iter().cloned());
     write_data_quality(&ds.data_quality, &tables.join("data_quality.parquet"), &meta)?;
@@ -89,6 +100,8 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     write_discount_curves(&cal.discount, &tables.join("discount_curves.parquet"), &meta)?;
     write_hazard_curves(&cal.hazard, &tables.join("hazard_curves.parquet"), &meta)?;
     write_residuals(&cal.residuals, &tables.join("calibration_residuals.parquet"), &meta)?;
+    write_intensity_params(&fits.params, &tables.join("intensity_params.parquet"), &meta)?;
+    write_basis(&fits.basis, &tables.join("cds_bond_basis.parquet"), &meta)?;
     write_quality_flags(&ds.flags, &tables.join("flags.parquet"), &meta)?;
     timings.push(("write tables".into(), t2.elapsed().as_secs_f64()));
 

@@ -128,8 +128,8 @@ pub struct CurveFit {
     pub curve: Option<HazardCurve>,
     /// True when the fail policy stopped the curve.
     pub failed: bool,
-    /// The contracts, in the order of `nodes`.
-    pub contracts: Vec<CdsContract>,
+    /// The contracts, in the order of `nodes` (shared with the plan that built them).
+    pub contracts: std::sync::Arc<[CdsContract]>,
 }
 
 impl CurveFit {
@@ -150,6 +150,8 @@ pub enum BootstrapError {
     DuplicateMaturity { first: usize, second: usize, maturity: NaiveDate },
     #[error("quote {index}: {what} {value} is not valid ({expected})")]
     BadValue { index: usize, what: &'static str, value: f64, expected: &'static str },
+    #[error("the quotes do not match the tenors of the bootstrap plan")]
+    PlanMismatch,
     #[error("discount curve is referenced on {discount}, not on the trade date {trade}")]
     ReferenceDate { trade: NaiveDate, discount: NaiveDate },
 }
@@ -171,6 +173,67 @@ fn check_quote(index: usize, q: &BootstrapQuote) -> Result<(), BootstrapError> {
     }
 }
 
+/// Everything a bootstrap needs that depends only on the trade date, the tenors, the discount
+/// curve and the calendar: the contracts, the hazard nodes and the leg plan on the joint grid.
+/// Names quoted on the same day for the same tenors in the same currency share one plan, so
+/// a panel builds it once per (date, currency, tenor set) instead of once per curve.
+#[derive(Debug, Clone)]
+pub struct BootstrapPlan {
+    trade: NaiveDate,
+    tenors: Vec<Tenor>,
+    /// Quote index of each node, in maturity order.
+    order: Vec<usize>,
+    contracts: std::sync::Arc<[CdsContract]>,
+    node_dates: Vec<NaiveDate>,
+    node_times: Vec<f64>,
+    plan: LegPlan,
+    accrual: AccrualIntegration,
+}
+
+impl BootstrapPlan {
+    /// Builds the plan for quotes of `tenors` (in the order the quotes will come).
+    pub fn new(trade: NaiveDate, tenors: &[Tenor], discount: &DiscountCurve, cal: &Calendar, accrual: AccrualIntegration) -> Result<BootstrapPlan, BootstrapError> {
+        if tenors.is_empty() {
+            return Err(BootstrapError::NoQuotes);
+        }
+        if discount.reference() != trade {
+            return Err(BootstrapError::ReferenceDate { trade, discount: discount.reference() });
+        }
+        let mut order: Vec<(usize, CdsContract)> = Vec::with_capacity(tenors.len());
+        for (i, c) in CdsContract::standard_set(trade, tenors, cal).into_iter().enumerate() {
+            order.push((i, c.map_err(|source| BootstrapError::Maturity { index: i, source })?));
+        }
+        order.sort_by_key(|(_, c)| c.maturity);
+        for w in order.windows(2) {
+            if w[0].1.maturity == w[1].1.maturity {
+                return Err(BootstrapError::DuplicateMaturity { first: w[0].0, second: w[1].0, maturity: w[0].1.maturity });
+            }
+        }
+        let node_dates: Vec<NaiveDate> = order.iter().map(|(_, c)| add_days(cal.following(c.maturity), 1)).collect();
+        let node_times: Vec<f64> = node_dates.iter().map(|&d| year_time(trade, d)).collect();
+        let refs: Vec<&CdsContract> = order.iter().map(|(_, c)| c).collect();
+        let plan = LegPlan::build(trade, &refs, discount, &node_times, accrual);
+        let (idx, contracts): (Vec<usize>, Vec<CdsContract>) = order.into_iter().unzip();
+        Ok(BootstrapPlan { trade, tenors: tenors.to_vec(), order: idx, contracts: contracts.into(), node_dates, node_times, plan, accrual })
+    }
+
+    pub fn tenors(&self) -> &[Tenor] {
+        &self.tenors
+    }
+
+    /// Bootstraps one curve. `quotes[i].tenor` must be the plan's `tenors()[i]`.
+    pub fn solve(&self, quotes: &[BootstrapQuote], settings: &BootstrapSettings) -> Result<CurveFit, BootstrapError> {
+        if quotes.len() != self.tenors.len() || quotes.iter().zip(&self.tenors).any(|(q, t)| q.tenor != *t) {
+            return Err(BootstrapError::PlanMismatch);
+        }
+        for (i, q) in quotes.iter().enumerate() {
+            check_quote(i, q)?;
+        }
+        let settings = &BootstrapSettings { accrual: self.accrual, ..*settings };
+        solve_on_plan(self, quotes, settings)
+    }
+}
+
 /// Bootstraps the hazard curve of one name on `trade` from `quotes` (any order).
 pub fn bootstrap(
     trade: NaiveDate,
@@ -182,26 +245,20 @@ pub fn bootstrap(
     if quotes.is_empty() {
         return Err(BootstrapError::NoQuotes);
     }
-    if discount.reference() != trade {
-        return Err(BootstrapError::ReferenceDate { trade, discount: discount.reference() });
-    }
-    let mut order: Vec<(usize, CdsContract)> = Vec::with_capacity(quotes.len());
     for (i, q) in quotes.iter().enumerate() {
         check_quote(i, q)?;
-        let c = CdsContract::standard(trade, q.tenor, cal).map_err(|source| BootstrapError::Maturity { index: i, source })?;
-        order.push((i, c));
     }
-    order.sort_by_key(|(_, c)| c.maturity);
-    for w in order.windows(2) {
-        if w[0].1.maturity == w[1].1.maturity {
-            return Err(BootstrapError::DuplicateMaturity { first: w[0].0, second: w[1].0, maturity: w[0].1.maturity });
-        }
-    }
-    let node_dates: Vec<NaiveDate> = order.iter().map(|(_, c)| add_days(cal.following(c.maturity), 1)).collect();
-    let node_times: Vec<f64> = node_dates.iter().map(|&d| year_time(trade, d)).collect();
-    let refs: Vec<&CdsContract> = order.iter().map(|(_, c)| c).collect();
-    let plan = LegPlan::build(trade, &refs, discount, &node_times, settings.accrual);
+    let tenors: Vec<Tenor> = quotes.iter().map(|q| q.tenor).collect();
+    let plan = BootstrapPlan::new(trade, &tenors, discount, cal, settings.accrual)?;
+    solve_on_plan(&plan, quotes, settings)
+}
 
+fn solve_on_plan(bp: &BootstrapPlan, quotes: &[BootstrapQuote], settings: &BootstrapSettings) -> Result<CurveFit, BootstrapError> {
+    let trade = bp.trade;
+    let plan = &bp.plan;
+    let node_dates = &bp.node_dates;
+    let node_times = &bp.node_times;
+    let order: Vec<(usize, &CdsContract)> = bp.order.iter().copied().zip(bp.contracts.iter()).collect();
     let np = plan.times.len();
     let mut log_q = vec![0.0f64; np];
     let mut pq = vec![0.0f64; np];
@@ -219,6 +276,7 @@ pub fn bootstrap(
     let (mut t_prev, mut l_prev) = (0.0f64, 0.0f64);
     let mut stopped = false;
     let mut curve_failed = false;
+    let mut prev_spread: Option<(f64, f64)> = None;
 
     for (k, (qi, contract)) in order.iter().enumerate() {
         let q = &quotes[*qi];
@@ -250,7 +308,7 @@ pub fn bootstrap(
             .position(|c| c.paid && plan.times[c.q_idx as usize] > t_prev)
             .unwrap_or(terms.coupons.len());
         let (fp, fm, fa) =
-            evaluate_terms(&plan, &terms.prot[..=prot_from], &terms.coupons[..coupon_from], &pq, &log_q);
+            evaluate_terms(plan, &terms.prot[..=prot_from], &terms.coupons[..coupon_from], &pq, &log_q);
         let var_prot = &terms.prot[prot_from..];
         let var_coupons = &terms.coupons[coupon_from..];
         let first_point = var_coupons
@@ -281,7 +339,7 @@ pub fn bootstrap(
                 dl[j] = lq;
                 dpq[j] = (lq + log_dfs[j]).exp();
             }
-            let (p, m, a) = evaluate_terms(&plan, var_prot, var_coupons, dpq, dl);
+            let (p, m, a) = evaluate_terms(plan, var_prot, var_coupons, dpq, dl);
             let prot = (p + fp) * one_minus_r;
             let ann = m + a + (fm + fa - rebate_pv);
             let f = match quote {
@@ -290,11 +348,20 @@ pub fn bootstrap(
             };
             (f.v, f.d)
         };
-        let guess = match quote {
-            CdsQuote::ParSpread(s) => s / one_minus_r,
-            CdsQuote::Upfront { upfront, coupon } => (coupon + upfront / q.tenor.years().max(0.25)) / one_minus_r,
-        }
-        .clamp(1e-6, settings.max_hazard * 0.5);
+        // Start from the credit triangle on the forward spread between the previous maturity
+        // and this one (s_k T_k - s_{k-1} T_{k-1}) / (T_k - T_{k-1}): close to the forward
+        // hazard, so Newton needs a step or two fewer than from s_k / (1 - R).
+        let t_mat = terms.t_maturity;
+        let spread = match quote {
+            CdsQuote::ParSpread(s) => s,
+            CdsQuote::Upfront { upfront, coupon } => coupon + upfront / q.tenor.years().max(0.25),
+        };
+        let forward = match prev_spread {
+            Some((s0, t0)) if t_mat > t0 => (spread * t_mat - s0 * t0) / (t_mat - t0),
+            _ => spread,
+        };
+        prev_spread = Some((spread, t_mat));
+        let guess = (if forward > 0.0 { forward } else { spread } / one_minus_r).clamp(1e-6, settings.max_hazard * 0.5);
         let solved = newton_bracketed(
             |x| objective(x, &mut dual_lq, &mut dual_pq),
             guess,
@@ -303,7 +370,7 @@ pub fn bootstrap(
             settings.hazard_tolerance,
             settings.max_iterations,
         );
-        let target = describe(quote);
+        let target = || describe(quote);
         let lambda = match solved {
             Ok(r) => {
                 fit.iterations = r.iterations;
@@ -312,8 +379,8 @@ pub fn bootstrap(
             }
             Err(RootError::BelowLowerBound { f_lo, .. }) => {
                 let msg = format!(
-                    "{target} needs a negative hazard on the segment to {}: at zero hazard the contract is already worth {:.3e} per unit notional to the protection buyer",
-                    contract.maturity, f_lo
+                    "{} needs a negative hazard on the segment to {}: at zero hazard the contract is already worth {:.3e} per unit notional to the protection buyer",
+                    target(), contract.maturity, f_lo
                 );
                 fit.detail = Some(msg);
                 match settings.infeasible {
@@ -331,8 +398,8 @@ pub fn bootstrap(
             Err(RootError::AboveUpperLimit { limit, f_at_limit }) => {
                 fit.status = NodeStatus::Infeasible;
                 fit.detail = Some(format!(
-                    "{target} is out of reach: even a hazard of {limit} per year on the segment to {} leaves the contract short by {:.3e} per unit notional",
-                    contract.maturity, -f_at_limit
+                    "{} is out of reach: even a hazard of {limit} per year on the segment to {} leaves the contract short by {:.3e} per unit notional",
+                    target(), contract.maturity, -f_at_limit
                 ));
                 if settings.infeasible == InfeasiblePolicy::Fail {
                     curve_failed = true;
@@ -341,7 +408,7 @@ pub fn bootstrap(
             }
             Err(e) => {
                 fit.status = NodeStatus::Failed;
-                fit.detail = Some(format!("{target}: root search on the segment to {} failed: {e}", contract.maturity));
+                fit.detail = Some(format!("{}: root search on the segment to {} failed: {e}", target(), contract.maturity));
                 if settings.infeasible == InfeasiblePolicy::Fail {
                     curve_failed = true;
                 }
@@ -351,9 +418,13 @@ pub fn bootstrap(
         match lambda {
             Some(lam) => {
                 let t_k = node_times[k];
-                for j in 0..np {
+                let from = plan.times.partition_point(|&t| t <= t_prev);
+                for j in from..np {
                     let t = plan.times[j];
-                    if t > t_prev && t <= t_k {
+                    if t > t_k {
+                        break;
+                    }
+                    {
                         log_q[j] = l_prev - lam * (t - t_prev);
                         pq[j] = (log_q[j] + plan.log_dfs[j]).exp();
                     }
@@ -379,7 +450,7 @@ pub fn bootstrap(
     } else {
         Some(HazardCurve::new(trade, node_times[..hazards.len()].to_vec(), hazards).expect("increasing node times and finite hazards"))
     };
-    Ok(CurveFit { trade_date: trade, nodes, curve, failed: curve_failed, contracts: order.into_iter().map(|(_, c)| c).collect() })
+    Ok(CurveFit { trade_date: trade, nodes, curve, failed: curve_failed, contracts: bp.contracts.clone() })
 }
 
 fn describe(q: CdsQuote) -> String {

@@ -35,7 +35,7 @@ pub fn reprice(
 ) -> Vec<QuoteResidual> {
     let Some(curve) = fit.curve.as_ref() else { return Vec::new() };
     let mut out = Vec::with_capacity(fit.nodes.len());
-    for (node, contract) in fit.nodes.iter().zip(&fit.contracts) {
+    for (node, contract) in fit.nodes.iter().zip(fit.contracts.iter()) {
         if node.hazard.is_none() {
             continue;
         }

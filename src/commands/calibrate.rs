@@ -10,8 +10,9 @@
 //! before the parallel section starts and only resumes to write.
 
 use crate::calibrate::residuals::reprice;
-use crate::calibrate::{bootstrap, BootstrapQuote, BootstrapSettings, InfeasiblePolicy};
-use crate::curves::DiscountCurve;
+use crate::calibrate::bootstrap::BootstrapPlan;
+use crate::calibrate::{bootstrap, BootstrapError, BootstrapQuote, BootstrapSettings, InfeasiblePolicy};
+use crate::curves::{DiscountCurve, HazardCurve};
 use crate::error::{Error, Result};
 use crate::ingest::cds::{self, CdsPanel, CdsQuoteRow};
 use crate::ingest::discount::{self, DiscountRow};
@@ -62,6 +63,19 @@ pub struct Calibration {
     pub curves_complete: usize,
     pub nodes_by_status: BTreeMap<&'static str, usize>,
     pub max_abs_residual_bp: f64,
+    /// The discount curves built, per (date, currency), for the later fits.
+    pub discount_curves: BTreeMap<(NaiveDate, String), DiscountCurve>,
+    /// Every bootstrapped CDS curve with its quotes, per (date, entity, currency).
+    pub cds_curves: BTreeMap<(NaiveDate, String, String), CdsCurve>,
+}
+
+/// A bootstrapped CDS curve as the bond and CIR fits use it.
+#[derive(Debug, Clone)]
+pub struct CdsCurve {
+    /// The quotes the curve was bootstrapped from, in panel order.
+    pub quotes: Vec<BootstrapQuote>,
+    /// The curve, when every node is usable and the fail policy did not stop it.
+    pub curve: Option<HazardCurve>,
 }
 
 /// What a calibrate run did.
@@ -84,6 +98,7 @@ struct CurveOutput {
     residuals: Vec<ResidualRow>,
     rejects: Vec<Reject>,
     used: usize,
+    fit: Option<((NaiveDate, String, String), CdsCurve)>,
 }
 
 /// Builds discount curves per (date, currency); the rows of a curve that cannot be built are
@@ -126,18 +141,25 @@ fn recovery_of(panel: &CdsPanel, r: &CdsQuoteRow, p: &CalibrationParams) -> f64 
     })
 }
 
-fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, s: &CalibrationParams) -> CurveOutput {
+fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, plan: Option<&std::result::Result<BootstrapPlan, BootstrapError>>, s: &CalibrationParams) -> CurveOutput {
     let h = rows[0];
     let (date, entity, currency) = (h.date, panel.entities.name(h.entity), panel.currencies.name(h.currency));
     let quotes: Vec<BootstrapQuote> = rows
         .iter()
         .map(|r| BootstrapQuote { tenor: r.tenor, quote: r.quote, recovery: recovery_of(panel, r, s) })
         .collect();
-    let fit = match bootstrap(date, &quotes, curve, &s.calendar, &s.bootstrap) {
+    // The shared plan of this (date, currency, tenor set) when there is one; the plain
+    // bootstrap otherwise (same numbers, the plan built for this curve alone).
+    let fitted = match plan {
+        Some(Ok(p)) => p.solve(&quotes, &s.bootstrap),
+        Some(Err(e)) => Err(e.clone()),
+        None => bootstrap(date, &quotes, curve, &s.calendar, &s.bootstrap),
+    };
+    let fit = match fitted {
         Ok(f) => f,
         Err(e) => {
             let rejects = rows.iter().map(|r| panel.reject(r, "curve_not_built", format!("{date} {entity} {currency}: {e}"))).collect();
-            return CurveOutput { hazard: Vec::new(), residuals: Vec::new(), rejects, used: 0 };
+            return CurveOutput { hazard: Vec::new(), residuals: Vec::new(), rejects, used: 0, fit: None };
         }
     };
     let residuals = reprice(&fit, &quotes, curve, s.bootstrap.accrual);
@@ -175,7 +197,9 @@ fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, 
             status: fit.nodes.iter().find(|n| n.quote_index == q.quote_index).map_or("ok", |n| n.status.as_str()),
         })
         .collect();
-    CurveOutput { hazard, residuals, rejects: Vec::new(), used: rows.len() }
+    let curve = if fit.complete() && !fit.failed { fit.curve.clone() } else { None };
+    let key = (date, entity.to_string(), currency.to_string());
+    CurveOutput { hazard, residuals, rejects: Vec::new(), used: rows.len(), fit: Some((key, CdsCurve { quotes, curve })) }
 }
 
 /// Calibrates every curve of the dataset's CDS panel. Updates `ds.counts` with this stage's
@@ -204,13 +228,27 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
         jobs.push((i, j));
         i = j;
     }
+    // One bootstrap plan per (date, currency, tenor set), shared by every name quoted so.
+    type PlanKey = (chrono::NaiveDate, u32, Vec<Tenor>);
+    let key_of = |a: usize, b: usize| -> PlanKey { (rows[a].date, rows[a].currency, rows[a..b].iter().map(|r| r.tenor).collect()) };
+    let mut keys: Vec<PlanKey> = jobs.iter().map(|&(a, b)| key_of(a, b)).collect();
+    keys.sort();
+    keys.dedup();
+    let plans: std::collections::HashMap<PlanKey, std::result::Result<BootstrapPlan, BootstrapError>> = keys
+        .into_par_iter()
+        .filter_map(|k| {
+            let curve = curves.get(&(k.0, panel.currencies.name(k.1).to_string()))?;
+            let plan = BootstrapPlan::new(k.0, &k.2, curve, &p.calendar, p.bootstrap.accrual);
+            Some((k, plan))
+        })
+        .collect();
     let progress = crate::report::progress::bar(jobs.len() as u64, "calibrating curves");
     let outputs: Vec<CurveOutput> = jobs
         .par_iter()
         .map(|&(a, b)| {
             let h = &rows[a];
             let o = match curves.get(&(h.date, panel.currencies.name(h.currency).to_string())) {
-                Some(curve) => calibrate_one(panel, &rows[a..b], curve, p),
+                Some(curve) => calibrate_one(panel, &rows[a..b], curve, plans.get(&key_of(a, b)), p),
                 None => CurveOutput {
                     hazard: Vec::new(),
                     residuals: Vec::new(),
@@ -219,6 +257,7 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
                         .map(|r| panel.reject(r, "no_discount_curve", format!("no usable {} discount curve on {}", panel.currencies.name(r.currency), r.date)))
                         .collect(),
                     used: 0,
+                    fit: None,
                 },
             };
             progress.inc(1);
@@ -247,7 +286,11 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
         }
         out.residuals.extend(o.residuals);
         out.rejects.extend(o.rejects);
+        if let Some((k, c)) = o.fit {
+            out.cds_curves.insert(k, c);
+        }
     }
+    out.discount_curves = curves;
     for c in ds.counts.iter_mut() {
         let extra = out.rejects.iter().filter(|r| r.table == c.table).count();
         c.rejected += extra;

@@ -4,3 +4,4 @@
 pub mod calibrate;
 pub mod check;
 pub mod compare;
+pub mod intensity;

@@ -104,6 +104,16 @@ impl Dataset {
                 r.source = rel(&r.source);
             }
         }
+        if let Some(t) = &mut self.bonds {
+            for (_, p) in &mut t.rows {
+                p.source = rel(&p.source);
+            }
+        }
+        if let Some(t) = &mut self.bond_quotes {
+            for (_, p) in &mut t.rows {
+                p.source = rel(&p.source);
+            }
+        }
     }
 
     /// First default date per entity name.

@@ -18,7 +18,7 @@
 //! This module is pure: curves in, numbers out. The plan that maps a contract onto the
 //! node grid is built once and shared by the bootstrap, which evaluates it with dual numbers.
 
-use crate::curves::{year_time, DiscountCurve, HazardCurve};
+use crate::curves::{DiscountCurve, HazardCurve};
 use crate::math::Scalar;
 use crate::time::imm::{cds_maturity, MaturityError};
 use crate::time::schedule::{cds_schedule, CouponPeriod};
@@ -66,6 +66,27 @@ impl CdsContract {
     pub fn standard(trade_date: NaiveDate, tenor: Tenor, cal: &Calendar) -> Result<CdsContract, MaturityError> {
         let maturity = cds_maturity(trade_date, tenor)?;
         Ok(CdsContract::with_maturity(trade_date, maturity, cal))
+    }
+
+    /// The standard contracts of several tenors traded on the same day, sharing one schedule
+    /// computation (see [`crate::time::schedule::cds_schedules`]).
+    pub fn standard_set(trade_date: NaiveDate, tenors: &[Tenor], cal: &Calendar) -> Vec<Result<CdsContract, MaturityError>> {
+        let mats: Vec<Result<NaiveDate, MaturityError>> = tenors.iter().map(|&t| cds_maturity(trade_date, t)).collect();
+        let ok: Vec<NaiveDate> = mats.iter().filter_map(|m| m.as_ref().ok().copied()).collect();
+        let mut schedules = crate::time::schedule::cds_schedules(trade_date, &ok, cal).into_iter();
+        let protection_start = add_days(trade_date, 1);
+        let cash_settlement = cal.add_business_days(trade_date, 3);
+        mats.into_iter()
+            .map(|m| {
+                m.map(|maturity| CdsContract {
+                    trade_date,
+                    maturity,
+                    protection_start,
+                    cash_settlement,
+                    periods: schedules.next().expect("one schedule per maturity"),
+                })
+            })
+            .collect()
     }
 
     /// A contract to a given (unadjusted IMM) maturity.
@@ -196,71 +217,100 @@ impl LegPlan {
         hazard_nodes: &[f64],
         mode: AccrualIntegration,
     ) -> LegPlan {
-        let tt = |d: NaiveDate| year_time(trade, d);
+        // Dates become integer day offsets from T once; t = offset / 365 is then the same
+        // number `year_time` gives, without calendar arithmetic in the loops below.
+        let t0 = crate::time::serial(trade);
+        let off = |d: NaiveDate| crate::time::serial(d) - t0;
+        let tt = |o: i32| o as f64 / 365.0;
+        struct Offsets {
+            start: i32,
+            end: i32,
+            pay: i32,
+        }
+        let per: Vec<(i32, Vec<Offsets>)> = contracts
+            .iter()
+            .map(|c| (off(c.maturity), c.periods.iter().map(|p| Offsets { start: off(p.accrual_start), end: off(p.accrual_end), pay: off(p.payment) }).collect()))
+            .collect();
+        // Protection starts on T + 1 (offset 1).
+        let eff = 1;
         // The grid reaches the last maturity or the last accrual-on-default end (pay - 1 day,
         // after the maturity when it falls on a weekend), whichever is later.
-        let t_last = contracts
+        let t_last = per.iter().flat_map(|(m, ps)| std::iter::once(*m).chain(ps.last().map(|p| p.pay - 1))).max().map_or(0.0, tt);
+        let t_eff = tt(eff);
+
+        let mut node_times: Vec<f64> = discount
+            .pillar_dates()
             .iter()
-            .flat_map(|c| std::iter::once(tt(c.maturity)).chain(c.periods.last().map(|p| tt(add_days(p.payment, -1)))))
-            .fold(0.0, f64::max);
-        let t_eff = tt(add_days(trade, 1));
+            .map(|&d| tt(off(d)))
+            .chain(hazard_nodes.iter().copied())
+            .filter(|&t| t > t_eff && t <= t_last)
+            .collect();
+        node_times.sort_unstable_by(f64::total_cmp);
+        node_times.dedup();
 
-        let node_times: Vec<f64> = {
-            let mut v: Vec<f64> = discount
-                .pillar_dates()
-                .iter()
-                .map(|&d| tt(d))
-                .chain(hazard_nodes.iter().copied())
-                .filter(|&t| t > t_eff && t <= t_last)
-                .collect();
-            v.sort_by(f64::total_cmp);
-            v.dedup();
-            v
-        };
-
-        let mut times: Vec<f64> = Vec::with_capacity(node_times.len() + 64);
-        times.push(0.0);
-        times.extend_from_slice(&node_times);
-        for c in contracts {
-            times.push(tt(c.maturity));
-            for p in &c.periods {
-                if p.payment > c.protection_start {
-                    times.push(tt(add_days(p.payment, -1)));
+        // Coupon points as integer offsets; contracts of one trade date share their schedule
+        // prefixes, so a period equal to the previous contract's is not collected again.
+        let mut days: Vec<i32> = Vec::with_capacity(64);
+        days.push(0);
+        for (k, (m, ps)) in per.iter().enumerate() {
+            days.push(*m);
+            let prev = if k > 0 { Some(&per[k - 1].1) } else { None };
+            for (j, p) in ps.iter().enumerate() {
+                if let Some(q) = prev.and_then(|v| v.get(j)) {
+                    if q.start == p.start && q.end == p.end && q.pay == p.pay {
+                        continue;
+                    }
                 }
-                if p.accrual_end > c.protection_start {
-                    times.push(tt(add_days(p.accrual_start.max(c.protection_start), -1)));
+                if p.pay > eff {
+                    days.push(p.pay - 1);
+                }
+                if p.end > eff {
+                    days.push(p.start.max(eff) - 1);
                 }
             }
         }
-        times.sort_by(f64::total_cmp);
-        times.dedup();
+        days.sort_unstable();
+        days.dedup();
+        let mut times: Vec<f64> = Vec::with_capacity(days.len() + node_times.len());
+        let (mut a, mut b) = (0, 0);
+        while a < days.len() || b < node_times.len() {
+            let x = days.get(a).map_or(f64::INFINITY, |&d| tt(d));
+            let y = node_times.get(b).copied().unwrap_or(f64::INFINITY);
+            let next = if x <= y {
+                a += 1;
+                if x == y {
+                    b += 1;
+                }
+                x
+            } else {
+                b += 1;
+                y
+            };
+            times.push(next);
+        }
+        // ln DF at each point, walking the sorted points once.
         let log_dfs: Vec<f64> = times.iter().map(|&t| discount.log_df_at(t)).collect();
 
         let mut aod_path: Vec<u32> = Vec::new();
         let mut out = Vec::with_capacity(contracts.len());
-        for c in contracts {
-            let t_mat = tt(c.maturity);
+        for (c, (m, ps)) in contracts.iter().zip(&per) {
+            let t_mat = tt(*m);
             let mut prot = Vec::with_capacity(node_times.len() + 2);
             prot.push(0u32);
-            for &t in node_times.iter().filter(|&&t| t < t_mat) {
+            for &t in node_times.iter().take_while(|&&t| t < t_mat) {
                 prot.push(point(&times, t));
             }
             prot.push(point(&times, t_mat));
 
-            let mut coupons = Vec::with_capacity(c.periods.len());
-            for p in &c.periods {
-                let paid = p.payment > c.protection_start;
-                let pay_m1 = add_days(p.payment, -1);
-                let q_idx = if paid { point(&times, tt(pay_m1)) } else { 0 };
-                let pay_df_ratio = if paid {
-                    (discount.log_df_at(tt(p.payment)) - log_dfs[q_idx as usize]).exp()
-                } else {
-                    0.0
-                };
+            let mut coupons = Vec::with_capacity(ps.len());
+            for (p, cp) in ps.iter().zip(&c.periods) {
+                let paid = p.pay > eff;
+                let q_idx = if paid { point(&times, tt(p.pay - 1)) } else { 0 };
+                let pay_df_ratio = if paid { (discount.log_df_at(tt(p.pay)) - log_dfs[q_idx as usize]).exp() } else { 0.0 };
                 let from = aod_path.len() as u32;
-                if p.accrual_end > c.protection_start && paid {
-                    let t0 = tt(add_days(p.accrual_start.max(c.protection_start), -1));
-                    let t1 = tt(pay_m1);
+                if p.end > eff && paid {
+                    let t0 = tt(p.start.max(eff) - 1);
+                    let t1 = tt(p.pay - 1);
                     aod_path.push(point(&times, t0));
                     if mode == AccrualIntegration::Exact {
                         for &t in node_times.iter().filter(|&&t| t > t0 && t < t1) {
@@ -270,10 +320,10 @@ impl LegPlan {
                     aod_path.push(q_idx);
                 }
                 coupons.push(CouponTerm {
-                    accrual: p.accrual_fraction(),
+                    accrual: cp.accrual_fraction(),
                     pay_df_ratio,
                     q_idx,
-                    t_s: tt(add_days(p.accrual_start, -1)),
+                    t_s: tt(p.start - 1),
                     aod_from: from,
                     aod_to: aod_path.len() as u32,
                     paid,
@@ -283,7 +333,7 @@ impl LegPlan {
                 prot,
                 coupons,
                 rebate01: c.rebate_accrual(),
-                cash_settle_df: discount.df(c.cash_settlement),
+                cash_settle_df: discount.df_at(tt(off(c.cash_settlement))),
                 t_maturity: t_mat,
             });
         }

@@ -64,8 +64,14 @@ fn term_dates(settings: &serde_json::Value, dates: &[NaiveDate]) -> Vec<NaiveDat
 pub fn render(run_dir: &Path) -> Result<()> {
     let m: Manifest = manifest::read(&run_dir.join("manifest.json"))?;
     let t = run_dir.join("tables");
-    let hazard = readback::hazard_curves(&t.join("hazard_curves.parquet"))?;
-    let residuals = readback::residuals(&t.join("calibration_residuals.parquet"))?;
+    let all_hazard = readback::hazard_curves(&t.join("hazard_curves.parquet"))?;
+    let all_residuals = readback::residuals(&t.join("calibration_residuals.parquet"))?;
+    let params = readback::intensity_params(&t.join("intensity_params.parquet"))?;
+    let basis = readback::basis(&t.join("cds_bond_basis.parquet"))?;
+    // The CDS bootstrap's rows; the bond and CIR fits have their own subsections.
+    let (hazard, bond_hazard): (Vec<HazardCurveRow>, Vec<HazardCurveRow>) = all_hazard.into_iter().partition(|h| h.source == "cds");
+    let residuals: Vec<super::tables::ResidualRow> = all_residuals.iter().filter(|r| r.method == "bootstrap").cloned().collect();
+    let bond_res: Vec<&super::tables::ResidualRow> = all_residuals.iter().filter(|r| r.method == "bond_fit").collect();
     let flags = readback::flags(&t.join("flags.parquet"))?;
     let reasons = readback::reject_reasons(&t.join("rejects.parquet"))?;
     let charts_dir = run_dir.join("charts");
@@ -101,7 +107,28 @@ pub fn render(run_dir: &Path) -> Result<()> {
         let _ = writeln!(w, "- Period: {a} to {b} ({} curve dates).", dates.len());
     }
     let _ = writeln!(w, "- Universe: {} entities in {} currencies ({}).", entities.len(), currencies.len(), currencies.iter().cloned().collect::<Vec<_>>().join(", "));
-    let _ = writeln!(w, "- Scope of this run: input data quality and the daily CDS hazard-curve bootstrap with its repricing residuals. Parameter stability, the intensity-model fits and the backtest of implied against realised default rates are not part of this run.\n");
+    let bond_curves: BTreeSet<(NaiveDate, &str, &str)> = bond_hazard.iter().map(|h| (h.date, h.entity.as_str(), h.currency.as_str())).collect();
+    let mut ran = vec!["input data quality".to_string(), "the daily CDS hazard-curve bootstrap with its repricing residuals".to_string()];
+    let mut not_ran = vec!["parameter stability".to_string()];
+    if bond_curves.is_empty() {
+        not_ran.push("bond-implied hazard curves".into());
+    } else {
+        ran.push(format!("bond-implied hazard curves ({})", if basis.is_empty() { "with their price residuals" } else { "price residuals and the CDS-bond basis" }));
+    }
+    if params.is_empty() {
+        not_ran.push("the intensity-model (CIR) fits".into());
+    } else {
+        let modes: BTreeSet<&str> = params.iter().map(|p| p.mode).collect();
+        ran.push(format!("the CIR intensity fit per CDS curve ({} mode)", modes.into_iter().collect::<Vec<_>>().join(", ")));
+    }
+    not_ran.push("the backtest of implied against realised default rates".into());
+    let list = |v: &[String]| match v.len() {
+        1 => v[0].clone(),
+        n => format!("{} and {}", v[..n - 1].join(", "), v[n - 1]),
+    };
+    let mut not_text = list(&not_ran);
+    not_text[..1].make_ascii_uppercase();
+    let _ = writeln!(w, "- Scope of this run: {}. {not_text} {} not part of this run.\n", list(&ran), if not_ran.len() == 1 { "is" } else { "are" });
     let _ = writeln!(w, "| check | result | status |\n| --- | --- | --- |");
     let _ = writeln!(w, "| every input row used or rejected with a reason | {} tables | {} |", m.counts.iter().filter(|c| c.stage == "calibrate").count(), if accounting_ok { "pass" } else { "FAIL" });
     let rej_total: u64 = m.counts.iter().filter(|c| c.stage == "calibrate").map(|c| c.rejected).sum();
@@ -122,6 +149,14 @@ pub fn render(run_dir: &Path) -> Result<()> {
         pct(within as f64 / ok_res.len().max(1) as f64),
         if within == ok_res.len() { "pass" } else { "flagged" }
     );
+    if !bond_curves.is_empty() {
+        let bad_bond: BTreeSet<(NaiveDate, &str, &str)> = bond_hazard.iter().filter(|h| h.status != "ok").map(|h| (h.date, h.entity.as_str(), h.currency.as_str())).collect();
+        let _ = writeln!(w, "| bond-implied curves with every node `ok` | {} of {} | {} |", bond_curves.len() - bad_bond.len(), bond_curves.len(), if bad_bond.is_empty() { "pass" } else { "flagged" });
+    }
+    if !params.is_empty() {
+        let ok = params.iter().filter(|p| p.status == "ok").count();
+        let _ = writeln!(w, "| CIR fits converged (status `ok`) | {ok} of {} ({}) | {} |", params.len(), pct(ok as f64 / params.len() as f64), if ok == params.len() { "pass" } else { "see section 3" });
+    }
     let _ = writeln!(w, "| data-quality flags (rows kept) | {} | {} |\n", flags.len(), if flags.is_empty() { "pass" } else { "see section 4" });
 
     // 2. Data quality
@@ -250,6 +285,8 @@ pub fn render(run_dir: &Path) -> Result<()> {
         let _ = writeln!(w, "*Figure {figure}. Distribution of the absolute repricing residuals of all repriced quotes on a log scale (residuals below 1e-16 bp are shown at -16). Floored nodes, if any, sit far to the right.*\n");
     }
 
+    intensity_sections(w, &bond_hazard, &bond_res, &basis, &params, &m.settings, &charts_dir, &mut figure)?;
+
     // 4. Flags
     let _ = writeln!(w, "## 4. Flags\n");
     if flags.is_empty() {
@@ -287,7 +324,146 @@ pub fn render(run_dir: &Path) -> Result<()> {
         q.get("unit_slip_min_run").map(|v| v.to_string()).unwrap_or_default(),
         q.get("unit_slip_ratio").map(|v| v.to_string()).unwrap_or_default(),
         q.get("min_tenors").map(|v| v.to_string()).unwrap_or_default());
+    if !bond_hazard.is_empty() {
+        let _ = writeln!(w, "- Bond-implied curves: least squares on clean prices (settlement T + 0, no ex-coupon period), each residual weighted by 1e4 / (dirty price x modified duration), i.e. bp of yield to first order; piecewise-flat hazard with a node at each bond maturity (maturities within half a year share one) when there are three or more nodes, the two-parameter form l + (s - l) exp(-t / 3y) with two, a flat hazard with one; hazards bounded to [0, 5] per year. Recovery convention `{}`, recovery by the bonds' seniority as for CDS quotes. The basis prices a CDS to each bond maturity on both curves with the same recovery.", s.get("bond_recovery_convention").and_then(|v| v.as_str()).unwrap_or("par"));
+    }
+    if !params.is_empty() {
+        let _ = writeln!(w, "- CIR intensity: survival from the affine closed form; the CDS legs priced through it on a monthly protection grid; projected Levenberg-Marquardt on the quotes' residuals in bp of running spread, kappa in [0.001, 10], theta in [1e-6, 2], sigma in [1e-4, 2], lambda0 in [0, 2] (per year). Starts: the day's bootstrapped curve and the previous day's solution, the better of the two. Mode `{}`{}.", s.get("cir_mode").and_then(|v| v.as_str()).unwrap_or("free"), if s.get("cir_mode").and_then(|v| v.as_str()) == Some("fixed_kappa_sigma") { format!(": kappa and sigma estimated on the pooled quotes of consecutive windows of {} curve dates, theta and lambda0 fitted daily", s.get("cir_window").and_then(|v| v.as_u64()).unwrap_or(20)) } else { String::new() });
+    }
     let _ = writeln!(w, "- Reproducibility: the tables and this report are deterministic for the same inputs and pipeline file; timings are in `run.log`, not here.\n");
     let _ = writeln!(w, "## 6. Caution\n\n{CAUTION} Every conclusion should be checked against the data and these method notes before it is relied on.");
     write_text(&run_dir.join("report.md"), &md)
+}
+
+fn median(v: &mut [f64]) -> f64 {
+    v.sort_by(f64::total_cmp);
+    quantile(v, 0.5)
+}
+
+/// Section 3's subsections for the bond-implied curves and the CIR fit (only what ran).
+#[allow(clippy::too_many_arguments)]
+fn intensity_sections(
+    w: &mut String,
+    bond_hazard: &[HazardCurveRow],
+    bond_res: &[&super::tables::ResidualRow],
+    basis: &[super::tables::BasisRow],
+    params: &[super::tables::IntensityParamRow],
+    settings: &serde_json::Value,
+    charts_dir: &Path,
+    figure: &mut usize,
+) -> Result<()> {
+    let chart_err = |e: String| Error::Other(format!("drawing a figure: {e}"));
+    if !bond_hazard.is_empty() {
+        let _ = writeln!(w, "### Bond-implied hazard curves\n");
+        let _ = writeln!(
+            w,
+            "Hazard curves implied by each entity's fixed-coupon bond prices (recovery convention `{}`), one per (date, entity, currency); rows with source `bond` in `tables/hazard_curves.parquet`, bond residuals with method `bond_fit` in `tables/calibration_residuals.parquet` (market and model clean price per 100 face, residual in bp of yield).\n",
+            settings.get("bond_recovery_convention").and_then(|v| v.as_str()).unwrap_or("par")
+        );
+        let mut per: BTreeMap<(&str, &str), (BTreeSet<NaiveDate>, BTreeSet<&str>, BTreeSet<String>, Vec<f64>, Vec<f64>)> = BTreeMap::new();
+        for h in bond_hazard {
+            let e = per.entry((h.entity.as_str(), h.currency.as_str())).or_default();
+            e.0.insert(h.date);
+            e.2.insert(h.detail.as_deref().and_then(|d| d.split(' ').next()).unwrap_or("").replace('_', "-"));
+        }
+        for r in bond_res {
+            let e = per.entry((r.entity.as_str(), r.currency.as_str())).or_default();
+            e.1.insert(r.tenor_or_bond.as_str());
+            e.3.push(r.model - r.market);
+            e.4.push(r.residual_bp);
+        }
+        let rms = |v: &[f64]| (v.iter().map(|x| x * x).sum::<f64>() / v.len().max(1) as f64).sqrt();
+        let _ = writeln!(w, "| entity | currency | curves | bonds | form | RMSE price (per 100) | RMSE yield (bp) | largest abs yield residual (bp) |\n| --- | --- | ---: | ---: | --- | ---: | ---: | ---: |");
+        for ((e, c), (d, b, f, p, y)) in &per {
+            let mx = y.iter().fold(0.0f64, |a, x| a.max(x.abs()));
+            let _ = writeln!(w, "| {e} | {c} | {} | {} | {} | {:.2e} | {:.2e} | {mx:.2e} |", d.len(), b.len(), f.iter().cloned().collect::<Vec<_>>().join(", "), rms(p), rms(y));
+        }
+        let _ = writeln!(w);
+        if basis.is_empty() {
+            let _ = writeln!(w, "No CDS curve was available on the bonds' dates, so no CDS-bond basis was computed.\n");
+        } else {
+            let _ = writeln!(w, "CDS-bond basis at the bond maturities (`tables/cds_bond_basis.parquet`): a CDS to each bond maturity priced on the bond-implied and on the CDS-implied curve; basis = CDS minus bond-implied par spread (negative when the bonds price the name as riskier than its CDS).\n");
+            let mut per: BTreeMap<(&str, &str), (Vec<f64>, Vec<f64>)> = BTreeMap::new();
+            for b in basis {
+                let e = per.entry((b.entity.as_str(), b.currency.as_str())).or_default();
+                e.0.push(b.basis_bp);
+                e.1.push(b.hazard_basis_bp);
+            }
+            let _ = writeln!(w, "| entity | currency | points | mean basis (bp) | median | min | max | mean hazard basis (bp) |\n| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: |");
+            for ((e, c), (b, h)) in per.iter_mut() {
+                let n = b.len() as f64;
+                let mean = b.iter().sum::<f64>() / n;
+                let (lo, hi) = b.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, z), x| (a.min(*x), z.max(*x)));
+                let hm = h.iter().sum::<f64>() / n;
+                let _ = writeln!(w, "| {e} | {c} | {} | {mean:.1} | {:.1} | {lo:.1} | {hi:.1} | {hm:.1} |", b.len(), median(b));
+            }
+            let _ = writeln!(w);
+        }
+    }
+    if !params.is_empty() {
+        let _ = writeln!(w, "### CIR intensity fit\n");
+        let _ = writeln!(w, "The CIR intensity d lambda = kappa (theta - lambda) dt + sigma sqrt(lambda) dW fitted to each bootstrapped CDS curve's quotes (`tables/intensity_params.parquet`; repriced quotes with method `cir` in `tables/calibration_residuals.parquet`). Medians over the fits that produced parameters; RMSE over each curve's quotes in bp of running spread.\n");
+        let mut per: BTreeMap<(&str, &str), Vec<&super::tables::IntensityParamRow>> = BTreeMap::new();
+        for p in params {
+            per.entry((p.entity.as_str(), p.currency.as_str())).or_default().push(p);
+        }
+        let _ = writeln!(w, "| entity | currency | fits | kappa | theta | sigma | lambda0 | median RMSE (bp) | largest RMSE (bp) | Feller holds | at a bound | status |\n| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- |");
+        for ((e, c), v) in &per {
+            let col = |f: &dyn Fn(&super::tables::IntensityParamRow) -> Option<f64>| -> Vec<f64> { v.iter().filter_map(|p| f(p)).collect() };
+            let (mut k, mut th, mut sg, mut l0, mut rm) = (col(&|p| p.kappa), col(&|p| p.theta), col(&|p| p.sigma), col(&|p| p.lambda0), col(&|p| p.rmse_bp));
+            let mx = rm.iter().fold(0.0f64, |a, x| a.max(*x));
+            let with = v.iter().filter(|p| p.feller.is_some()).count();
+            let feller = v.iter().filter(|p| p.feller == Some(true)).count();
+            let bound = v.iter().filter(|p| p.detail.as_deref().is_some_and(|d| d.contains("bound"))).count();
+            let mut st: BTreeMap<&str, usize> = BTreeMap::new();
+            for p in v {
+                *st.entry(p.status).or_default() += 1;
+            }
+            let st = st.iter().map(|(s, n)| format!("`{s}` {n}")).collect::<Vec<_>>().join(", ");
+            let _ = writeln!(
+                w,
+                "| {e} | {c} | {} | {:.4} | {:.4} | {:.4} | {:.4} | {:.2} | {mx:.2} | {} | {bound} | {st} |",
+                v.len(),
+                median(&mut k),
+                median(&mut th),
+                median(&mut sg),
+                median(&mut l0),
+                median(&mut rm),
+                pct(feller as f64 / with.max(1) as f64)
+            );
+        }
+        let bound = params.iter().filter(|p| p.detail.as_deref().is_some_and(|d| d.contains("bound"))).count();
+        let _ = writeln!(
+            w,
+            "\n{bound} of {} fits end with a parameter at a bound (named in the table's `detail` column). The plain CIR has three shape parameters for a whole curve; a fit at a bound, or with an RMSE well above the quotes' bid-ask, says the model cannot take that curve's shape, and its parameters should not be read as estimates.\n",
+            params.len()
+        );
+        // RMSE through time per entity, over the universe band.
+        let mut per_date: BTreeMap<NaiveDate, Vec<f64>> = BTreeMap::new();
+        for p in params {
+            if let Some(r) = p.rmse_bp {
+                per_date.entry(p.date).or_default().push(r);
+            }
+        }
+        let band: Vec<(f64, f64, f64, f64)> = per_date
+            .iter_mut()
+            .map(|(d, v)| {
+                v.sort_by(f64::total_cmp);
+                (charts::decimal_year(*d), quantile(v, 0.1), quantile(v, 0.5), quantile(v, 0.9))
+            })
+            .collect();
+        let series: Vec<(String, Vec<(f64, f64)>)> = per
+            .iter()
+            .map(|((e, _), v)| (e.to_string(), v.iter().filter_map(|p| Some((charts::decimal_year(p.date), p.rmse_bp?))).collect::<Vec<_>>()))
+            .filter(|(_, v)| !v.is_empty())
+            .collect();
+        if !series.is_empty() {
+            let svg = charts::history_with_band("CIR fit RMSE through time", "RMSE (bp of running spread)", &series, &band).map_err(chart_err)?;
+            write_text(&charts_dir.join("cir-rmse-history.svg"), &svg)?;
+            *figure += 1;
+            let _ = writeln!(w, "![CIR fit RMSE through time](charts/cir-rmse-history.svg)\n");
+            let _ = writeln!(w, "*Figure {figure}. Root mean square repricing error of the CIR fit per curve date and entity, over the universe's 10%-90% range (shaded) and median (grey line).*\n", figure = *figure);
+        }
+    }
+    Ok(())
 }

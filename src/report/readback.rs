@@ -1,7 +1,7 @@
 //! Reading the run's own tables back from Parquet, so that the report is always rendered
 //! from exactly what was written (and `hazardline report RUN_DIR` can re-render it later).
 
-use super::tables::{DiscountCurveRow, HazardCurveRow, ResidualRow};
+use super::tables::{BasisRow, DiscountCurveRow, HazardCurveRow, IntensityParamRow, ResidualRow};
 use crate::error::{Error, Result};
 use chrono::NaiveDate;
 use polars::prelude::*;
@@ -51,7 +51,7 @@ fn label(v: &str, known: &[&'static str]) -> &'static str {
     known.iter().copied().find(|k| *k == v).unwrap_or("other")
 }
 
-pub const STATUSES: &[&str] = &["ok", "floored", "infeasible", "failed", "curve_failed", "not_calibrated"];
+pub const STATUSES: &[&str] = &["ok", "floored", "infeasible", "failed", "curve_failed", "not_calibrated", "at_upper_bound", "max_iterations"];
 
 pub fn hazard_curves(path: &Path) -> Result<Vec<HazardCurveRow>> {
     let df = read_frame(path)?;
@@ -181,4 +181,88 @@ pub fn reject_reasons(path: &Path) -> Result<Vec<(String, String, usize)>> {
     let mut v: Vec<(String, String, usize)> = m.into_iter().map(|((a, b), c)| (a, b, c)).collect();
     v.sort_by(|a, b| b.2.cmp(&a.2).then(a.0.cmp(&b.0)).then(a.1.cmp(&b.1)));
     Ok(v)
+}
+
+pub fn bools(df: &DataFrame, path: &Path, name: &str) -> Result<Vec<Option<bool>>> {
+    let c = df.column(name).map_err(|e| err(path, name, e))?;
+    Ok(c.bool().map_err(|e| err(path, name, e))?.iter().collect())
+}
+
+/// The intensity_params table; empty when the run folder has none (runs before the CIR fit).
+pub fn intensity_params(path: &Path) -> Result<Vec<IntensityParamRow>> {
+    if !path.exists() {
+        return Ok(Vec::new());
+    }
+    let df = read_frame(path)?;
+    let (d, e, c, mo, k, th, sg, l0, rm, fe, st, it, ev, de) = (
+        dates(&df, path, "date")?,
+        strs(&df, path, "entity")?,
+        strs(&df, path, "currency")?,
+        strs(&df, path, "mode")?,
+        floats(&df, path, "kappa")?,
+        floats(&df, path, "theta")?,
+        floats(&df, path, "sigma")?,
+        floats(&df, path, "lambda0")?,
+        floats(&df, path, "rmse_bp")?,
+        bools(&df, path, "feller")?,
+        strs(&df, path, "status")?,
+        ints(&df, path, "iterations")?,
+        ints(&df, path, "evaluations")?,
+        strs(&df, path, "detail")?,
+    );
+    Ok((0..df.height())
+        .map(|i| IntensityParamRow {
+            date: d[i].unwrap_or_default(),
+            entity: e[i].clone().unwrap_or_default(),
+            currency: c[i].clone().unwrap_or_default(),
+            mode: label(mo[i].as_deref().unwrap_or(""), &["free", "fixed_kappa_sigma"]),
+            kappa: k[i],
+            theta: th[i],
+            sigma: sg[i],
+            lambda0: l0[i],
+            rmse_bp: rm[i],
+            feller: fe[i],
+            status: label(st[i].as_deref().unwrap_or(""), STATUSES),
+            iterations: it[i].unwrap_or(0),
+            evaluations: ev[i].unwrap_or(0),
+            detail: de[i].clone(),
+        })
+        .collect())
+}
+
+/// The cds_bond_basis table; empty when the run folder has none.
+pub fn basis(path: &Path) -> Result<Vec<BasisRow>> {
+    if !path.exists() {
+        return Ok(Vec::new());
+    }
+    let df = read_frame(path)?;
+    let (d, e, c, m, t, hb, hc, hbp, sb, sc, b) = (
+        dates(&df, path, "date")?,
+        strs(&df, path, "entity")?,
+        strs(&df, path, "currency")?,
+        dates(&df, path, "maturity")?,
+        floats(&df, path, "time")?,
+        floats(&df, path, "bond_average_hazard")?,
+        floats(&df, path, "cds_average_hazard")?,
+        floats(&df, path, "hazard_basis_bp")?,
+        floats(&df, path, "bond_par_spread_bp")?,
+        floats(&df, path, "cds_par_spread_bp")?,
+        floats(&df, path, "basis_bp")?,
+    );
+    let f = |v: &Vec<Option<f64>>, i: usize| v[i].unwrap_or(f64::NAN);
+    Ok((0..df.height())
+        .map(|i| BasisRow {
+            date: d[i].unwrap_or_default(),
+            entity: e[i].clone().unwrap_or_default(),
+            currency: c[i].clone().unwrap_or_default(),
+            maturity: m[i].unwrap_or_default(),
+            time: f(&t, i),
+            bond_average_hazard: f(&hb, i),
+            cds_average_hazard: f(&hc, i),
+            hazard_basis_bp: f(&hbp, i),
+            bond_par_spread_bp: f(&sb, i),
+            cds_par_spread_bp: f(&sc, i),
+            basis_bp: f(&b, i),
+        })
+        .collect())
 }

@@ -169,3 +169,90 @@ pub fn write_quality_flags(rows: &[QualityFlag], path: &Path, meta: &[(String, S
         .finish()?;
     write_parquet(&mut df, path, meta)
 }
+
+/// One row of `intensity_params`: a CIR fit of one CDS curve.
+#[derive(Debug, Clone, PartialEq)]
+pub struct IntensityParamRow {
+    pub date: NaiveDate,
+    pub entity: String,
+    pub currency: String,
+    /// `free` or `fixed_kappa_sigma`.
+    pub mode: &'static str,
+    /// None when the fit failed.
+    pub kappa: Option<f64>,
+    pub theta: Option<f64>,
+    pub sigma: Option<f64>,
+    pub lambda0: Option<f64>,
+    pub rmse_bp: Option<f64>,
+    /// 2 kappa theta >= sigma^2.
+    pub feller: Option<bool>,
+    /// `ok`, `max_iterations` or `failed`.
+    pub status: &'static str,
+    pub iterations: i64,
+    pub evaluations: i64,
+    pub detail: Option<String>,
+}
+
+pub fn write_intensity_params(rows: &[IntensityParamRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
+    let mut df = TableBuilder::new()
+        .dates("date", rows.iter().map(|r| Some(r.date)))
+        .strings("entity", rows.iter().map(|r| Some(&r.entity)))
+        .strings("currency", rows.iter().map(|r| Some(&r.currency)))
+        .strings("mode", rows.iter().map(|r| Some(r.mode)))
+        .floats("kappa", rows.iter().map(|r| r.kappa))
+        .floats("theta", rows.iter().map(|r| r.theta))
+        .floats("sigma", rows.iter().map(|r| r.sigma))
+        .floats("lambda0", rows.iter().map(|r| r.lambda0))
+        .floats("rmse_bp", rows.iter().map(|r| r.rmse_bp))
+        .bools("feller", rows.iter().map(|r| r.feller))
+        .strings("status", rows.iter().map(|r| Some(r.status)))
+        .ints("iterations", rows.iter().map(|r| Some(r.iterations)))
+        .ints("evaluations", rows.iter().map(|r| Some(r.evaluations)))
+        .strings("detail", rows.iter().map(|r| r.detail.as_deref()))
+        .finish()?;
+    let mut meta = meta.to_vec();
+    meta.push((
+        "hazardline.units".into(),
+        "CIR d lambda = kappa (theta - lambda) dt + sigma sqrt(lambda) dW: kappa per year, theta and lambda0 per year, sigma per sqrt(year); rmse_bp over the curve's quotes in bp of running spread; feller: 2 kappa theta >= sigma^2".into(),
+    ));
+    write_parquet(&mut df, path, &meta)
+}
+
+/// One row of `cds_bond_basis`: bond-implied against CDS-implied curve at one bond maturity.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BasisRow {
+    pub date: NaiveDate,
+    pub entity: String,
+    pub currency: String,
+    pub maturity: NaiveDate,
+    /// Act/365F years from date to maturity.
+    pub time: f64,
+    pub bond_average_hazard: f64,
+    pub cds_average_hazard: f64,
+    pub hazard_basis_bp: f64,
+    pub bond_par_spread_bp: f64,
+    pub cds_par_spread_bp: f64,
+    pub basis_bp: f64,
+}
+
+pub fn write_basis(rows: &[BasisRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
+    let mut df = TableBuilder::new()
+        .dates("date", rows.iter().map(|r| Some(r.date)))
+        .strings("entity", rows.iter().map(|r| Some(&r.entity)))
+        .strings("currency", rows.iter().map(|r| Some(&r.currency)))
+        .dates("maturity", rows.iter().map(|r| Some(r.maturity)))
+        .floats("time", rows.iter().map(|r| Some(r.time)))
+        .floats("bond_average_hazard", rows.iter().map(|r| Some(r.bond_average_hazard)))
+        .floats("cds_average_hazard", rows.iter().map(|r| Some(r.cds_average_hazard)))
+        .floats("hazard_basis_bp", rows.iter().map(|r| Some(r.hazard_basis_bp)))
+        .floats("bond_par_spread_bp", rows.iter().map(|r| Some(r.bond_par_spread_bp)))
+        .floats("cds_par_spread_bp", rows.iter().map(|r| Some(r.cds_par_spread_bp)))
+        .floats("basis_bp", rows.iter().map(|r| Some(r.basis_bp)))
+        .finish()?;
+    let mut meta = meta.to_vec();
+    meta.push((
+        "hazardline.units".into(),
+        "average hazard -ln S(T) / T per year; par spreads in bp of a CDS to maturity priced on the bond-implied and on the CDS-implied curve; basis_bp = cds - bond par spread, hazard_basis_bp = cds - bond average hazard in bp".into(),
+    ));
+    write_parquet(&mut df, path, &meta)
+}

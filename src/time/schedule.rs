@@ -64,6 +64,36 @@ pub fn cds_schedule(trade: NaiveDate, maturity: NaiveDate, cal: &Calendar) -> Ve
     periods_from_dates(&dates, cal)
 }
 
+/// The premium schedules of several contracts traded on the same day, one per maturity
+/// (unadjusted IMM dates, any order). The schedule of the longest is built once; each shorter
+/// one is its prefix up to that maturity, with the maturity (unadjusted) ending the last
+/// period. Equal, period for period, to calling [`cds_schedule`] for each maturity.
+pub fn cds_schedules(trade: NaiveDate, maturities: &[NaiveDate], cal: &Calendar) -> Vec<Vec<CouponPeriod>> {
+    let Some(&longest) = maturities.iter().max() else { return Vec::new() };
+    let long = cds_schedule(trade, longest, cal);
+    maturities
+        .iter()
+        .map(|&m| {
+            if m == longest {
+                return long.clone();
+            }
+            let end = cal.following(m);
+            match long.iter().position(|p| p.accrual_end == end) {
+                Some(j) => {
+                    let mut v = long[..=j].to_vec();
+                    let last = v.last_mut().expect("j is in range");
+                    last.accrual_end = m;
+                    last.payment = end;
+                    last.accrual_days = (m - last.accrual_start).num_days() + 1;
+                    v
+                }
+                // Not on the long schedule's dates (not an IMM date of the same roll): build it.
+                None => cds_schedule(trade, m, cal),
+            }
+        })
+        .collect()
+}
+
 /// Coupon periods from schedule dates (all adjusted but the last).
 fn periods_from_dates(dates: &[NaiveDate], cal: &Calendar) -> Vec<CouponPeriod> {
     let n = dates.len();
@@ -121,6 +151,22 @@ mod tests {
         assert_eq!(sep25.accrual_start, d(2025, 9, 22));
         let prev = s.iter().find(|c| c.accrual_end == d(2025, 9, 22)).unwrap();
         assert_eq!(prev.payment, d(2025, 9, 22));
+    }
+
+    #[test]
+    fn shared_schedules_equal_separate_ones() {
+        use crate::time::{imm::cds_maturity, Tenor};
+        let cal = Calendar::weekends_only();
+        let tenors: Vec<Tenor> = [6, 12, 24, 36, 48, 60, 84, 120, 180].iter().map(|&m| Tenor::from_months(m).unwrap()).collect();
+        let mut d = d(2019, 1, 1);
+        for _ in 0..800 {
+            d = d.succ_opt().unwrap();
+            let mats: Vec<NaiveDate> = tenors.iter().filter_map(|&t| cds_maturity(d, t).ok()).collect();
+            let shared = cds_schedules(d, &mats, &cal);
+            for (m, s) in mats.iter().zip(&shared) {
+                assert_eq!(*s, cds_schedule(d, *m, &cal), "trade {d} maturity {m}");
+            }
+        }
     }
 
     #[test]

@@ -9,3 +9,4 @@ mod reference_quantlib;
 mod support;
 mod bonds;
 mod cir;
+mod intensity_pipeline;

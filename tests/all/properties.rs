@@ -46,7 +46,7 @@ proptest! {
         let quotes: Vec<(&str, f64)> = TENORS.iter().enumerate().map(|(i, &t)| (t, base * (1.0 + 0.05 * i as f64))).collect();
         let (f, _) = fit(trade, &disc, &quotes, 0.4, &BootstrapSettings::default());
         let curve = f.curve.clone().unwrap();
-        let up: Vec<BootstrapQuote> = f.nodes.iter().zip(&f.contracts).map(|(n, c)| {
+        let up: Vec<BootstrapQuote> = f.nodes.iter().zip(f.contracts.iter()).map(|(n, c)| {
             let legs = price_legs(c, 0.4, &disc, &curve, AccrualIntegration::Standard).unwrap();
             BootstrapQuote { tenor: n.tenor, quote: CdsQuote::Upfront { upfront: legs.upfront(coupon_bp / 1e4), coupon: coupon_bp / 1e4 }, recovery: 0.4 }
         }).collect();
@@ -55,7 +55,7 @@ proptest! {
             prop_assert!((a.hazard.unwrap() - b.hazard.unwrap()).abs() < 1e-11, "{}: {:?} vs {:?}", a.tenor, a.hazard, b.hazard);
         }
         // And spread <-> upfront conversion round-trips on the legs.
-        for c in &f.contracts {
+        for c in f.contracts.iter() {
             let legs = price_legs(c, 0.4, &disc, &curve, AccrualIntegration::Standard).unwrap();
             let u = legs.upfront(coupon_bp / 1e4);
             prop_assert!((legs.coupon_from_upfront(u) - coupon_bp / 1e4).abs() < 1e-15);

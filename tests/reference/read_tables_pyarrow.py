@@ -20,6 +20,11 @@ EXPECTED = {
               "threshold": F, "explanation": S},
     "data_quality": {"scope": S, "table": S, "date": D, "rows_read": I, "rows_used": I, "rows_rejected": I},
     "discount_curves": {"date": D, "currency": S, "pillar_date": D, "zero_rate": F, "discount_factor": F},
+    "intensity_params": {"date": D, "entity": S, "currency": S, "mode": S, "kappa": F, "theta": F, "sigma": F,
+                         "lambda0": F, "rmse_bp": F, "feller": pa.bool_(), "status": S, "iterations": I},
+    "cds_bond_basis": {"date": D, "entity": S, "currency": S, "maturity": D, "bond_average_hazard": F,
+                       "cds_average_hazard": F, "hazard_basis_bp": F, "bond_par_spread_bp": F,
+                       "cds_par_spread_bp": F, "basis_bp": F},
 }
 
 def same(a, b):
