@@ -12,7 +12,6 @@ use crate::error::Result;
 use crate::instruments::CdsQuote;
 use crate::time::{Calendar, Tenor};
 use chrono::NaiveDate;
-use std::collections::HashMap;
 use std::path::Path;
 
 pub const TABLE: &str = "cds_quotes";
@@ -54,6 +53,8 @@ pub struct CdsQuoteRow {
     pub file: u32,
     /// 1-based data row in that file.
     pub row: u32,
+    /// Data-quality flag bits (`quality::FLAG_*`); fits in the struct's padding.
+    pub flags: u8,
 }
 
 impl CdsQuoteRow {
@@ -111,7 +112,7 @@ pub struct CdsRowRules {
 /// Reads the quotes at `path`, applying the row rules.
 pub fn read(path: &Path, cal: &Calendar, rules: &CdsRowRules) -> Result<CdsPanel> {
     let mut panel = CdsPanel::default();
-    let mut tenor_cache: HashMap<String, std::result::Result<Tenor, String>> = HashMap::new();
+    let mut tenor_cache: super::FastMap<String, std::result::Result<Tenor, String>> = Default::default();
     let info = read_table_batches(TABLE, path, SPECS, |file| {
         let src = file.source();
         let fidx = match panel.files.iter().position(|f| *f == src) {
@@ -187,7 +188,7 @@ fn parse_row(
     cal: &Calendar,
     rules: &CdsRowRules,
     panel: &mut CdsPanel,
-    tenor_cache: &mut HashMap<String, std::result::Result<Tenor, String>>,
+    tenor_cache: &mut super::FastMap<String, std::result::Result<Tenor, String>>,
 ) -> std::result::Result<CdsQuoteRow, Reject> {
     let row = file.file_row(i);
     let date = required_date(file.cell(C_DATE, i), TABLE, "date", src, row)?;
@@ -261,5 +262,6 @@ fn parse_row(
         seniority,
         file: fidx,
         row: row as u32,
+        flags: 0,
     })
 }

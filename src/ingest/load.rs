@@ -11,7 +11,7 @@ use super::quality::{check_cds, QualityFlag, QualitySettings, FLAG_SPIKE, FLAG_S
 use super::source::Reject;
 use super::tables::*;
 use crate::error::{Error, Result};
-use crate::time::{serial, Calendar};
+use crate::time::Calendar;
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, HashMap, HashSet};
 use std::path::PathBuf;
@@ -324,10 +324,19 @@ fn data_quality(ds: &Dataset, cal: &Calendar) -> Vec<DataQualityRow> {
         per_date.entry((r.table, if dated { r.date } else { None })).or_default()[1] += 1;
     }
     if let Some(p) = &ds.cds {
-        for (r, b) in p.rows.iter().zip(&ds.cds_flags) {
-            let e = per_date.entry((cds::TABLE, Some(r.date))).or_default();
-            e[0] += 1;
-            e[2] += u64::from(*b != 0);
+        // Rows are sorted by date: one map entry per run of equal dates.
+        let mut i = 0;
+        while i < p.rows.len() {
+            let d = p.rows[i].date;
+            let (mut used, mut flagged) = (0u64, 0u64);
+            while i < p.rows.len() && p.rows[i].date == d {
+                used += 1;
+                flagged += u64::from(p.rows[i].flags != 0);
+                i += 1;
+            }
+            let e = per_date.entry((cds::TABLE, Some(d))).or_default();
+            e[0] += used;
+            e[2] += flagged;
         }
     }
     if let Some(t) = &ds.discount {
@@ -388,19 +397,24 @@ fn data_quality(ds: &Dataset, cal: &Calendar) -> Vec<DataQualityRow> {
                 spike: u64,
                 first: Option<NaiveDate>,
                 last: Option<NaiveDate>,
-                days: HashSet<i32>,
+                days: u64,
             }
-            let mut acc: BTreeMap<String, Acc> = BTreeMap::new();
-            for (r, b) in p.rows.iter().zip(&ds.cds_flags) {
-                let a = acc.entry(p.entities.name(r.entity).to_string()).or_default();
+            // Per entity id (rows are sorted by date, so a new date for an entity is a new day).
+            let mut acc: Vec<Acc> = (0..p.entities.len()).map(|_| Acc::default()).collect();
+            for r in &p.rows {
+                let a = &mut acc[r.entity as usize];
+                let b = r.flags;
                 a.used += 1;
-                a.flagged += u64::from(*b != 0);
+                a.flagged += u64::from(b != 0);
                 a.stale += u64::from(b & FLAG_STALE != 0);
                 a.spike += u64::from(b & FLAG_SPIKE != 0);
+                if a.last != Some(r.date) {
+                    a.days += 1;
+                }
                 a.first = Some(a.first.map_or(r.date, |x| x.min(r.date)));
-                a.last = Some(a.last.map_or(r.date, |x| x.max(r.date)));
-                a.days.insert(serial(r.date));
+                a.last = Some(r.date);
             }
+            let acc: BTreeMap<String, Acc> = acc.into_iter().enumerate().filter(|(_, a)| a.used > 0).map(|(i, a)| (p.entities.name(i as u32).to_string(), a)).collect();
             let mut rejected: HashMap<&str, u64> = HashMap::new();
             for r in ds.rejects.iter().filter(|r| r.table == cds::TABLE) {
                 if let Some(e) = &r.entity {
@@ -419,8 +433,8 @@ fn data_quality(ds: &Dataset, cal: &Calendar) -> Vec<DataQualityRow> {
                     rows_flagged: a.flagged,
                     first_date: a.first,
                     last_date: a.last,
-                    days_quoted: Some(a.days.len() as u64),
-                    coverage: Some(a.days.len() as f64 / business_days.max(1) as f64),
+                    days_quoted: Some(a.days),
+                    coverage: Some(a.days as f64 / business_days.max(1) as f64),
                     stale_rows: Some(a.stale),
                     spike_rows: Some(a.spike),
                     entity: Some(e),

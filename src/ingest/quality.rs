@@ -81,6 +81,37 @@ pub struct QualityFlag {
     pub row: u64,
 }
 
+/// Rows marked for rejection: a bit per row, and the reason only for the (few) marked ones, so
+/// a 40-million-row panel does not carry a String slot per row.
+struct Drops {
+    marked: Vec<bool>,
+    why: std::collections::HashMap<usize, (&'static str, String)>,
+}
+
+impl Drops {
+    fn new(n: usize) -> Drops {
+        Drops { marked: vec![false; n], why: Default::default() }
+    }
+    fn is(&self, k: usize) -> bool {
+        self.marked[k]
+    }
+    fn set(&mut self, k: usize, reason: &'static str, detail: String) {
+        self.marked[k] = true;
+        self.why.insert(k, (reason, detail));
+    }
+    fn take(&mut self, k: usize) -> Option<(&'static str, String)> {
+        if self.marked[k] {
+            self.why.remove(&k)
+        } else {
+            None
+        }
+    }
+}
+
+fn drop_vec<T>(v: Vec<T>) {
+    std::mem::drop(v);
+}
+
 /// Sort key of a row by (entity, currency, tenor, date, file, row).
 fn series_key(r: &CdsQuoteRow) -> u128 {
     ((r.entity as u128) << 96)
@@ -112,7 +143,7 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
     let n = rows.len();
     let mut order: Vec<u32> = (0..n as u32).collect();
     order.par_sort_unstable_by_key(|&i| series_key(&rows[i as usize]));
-    let mut drop: Vec<Option<(&'static str, String)>> = vec![None; n];
+    let mut drop = Drops::new(n);
     let mut flags = vec![0u8; n];
     let mut findings: Vec<QualityFlag> = Vec::new();
 
@@ -132,9 +163,9 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
             });
             for (m, &k) in order[i..j].iter().enumerate() {
                 if conflicting {
-                    drop[k as usize] = Some(("conflicting_duplicate", format!("quoted {} times on this date with different values; none is used", j - i)));
+                    drop.set(k as usize, "conflicting_duplicate", format!("quoted {} times on this date with different values; none is used", j - i));
                 } else if m > 0 {
-                    drop[k as usize] = Some(("duplicate_row", format!("repeats {} row {}", panel.source(first), first.row)));
+                    drop.set(k as usize, "duplicate_row", format!("repeats {} row {}", panel.source(first), first.row));
                 }
             }
         }
@@ -143,10 +174,10 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
 
     // Quotes after the entity's default.
     for (k, r) in rows.iter().enumerate() {
-        if drop[k].is_none() {
+        if !drop.is(k) {
             if let Some(Some(d)) = first_default.get(r.entity as usize) {
                 if r.date > *d {
-                    drop[k] = Some(("after_default", format!("quote dated {} after the entity's default on {d}", r.date)));
+                    drop.set(k, "after_default", format!("quote dated {} after the entity's default on {d}", r.date));
                 }
             }
         }
@@ -171,7 +202,7 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
         values.clear();
         for &k in &order[start..end] {
             let k = k as usize;
-            if drop[k].is_none() {
+            if !drop.is(k) {
                 if let Some(v) = rows[k].spread_bp() {
                     series.push(k);
                     values.push(v);
@@ -182,34 +213,43 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
         start = end;
     }
 
-    // Move rejects out; sort the kept rows by (date, entity name, currency name, tenor).
+    // Move rejects out and compact the kept rows in place (no second copy of the panel), then
+    // sort them by (date, entity name, currency name, tenor).
     let ent_rank = panel.entities.ranks();
     let ccy_rank = panel.currencies.ranks();
-    let mut kept: Vec<(CdsQuoteRow, u8)> = Vec::with_capacity(n);
-    for (k, r) in rows.into_iter().enumerate() {
-        match drop[k].take() {
+    let mut kept = rows;
+    let mut w = 0;
+    for k in 0..n {
+        let mut r = kept[k];
+        match drop.take(k) {
             Some((reason, detail)) => {
                 let rej = panel.reject(&r, reason, detail);
                 panel.rejects.push(rej);
             }
-            None => kept.push((r, flags[k])),
+            None => {
+                r.flags = flags[k];
+                kept[w] = r;
+                w += 1;
+            }
         }
     }
-    kept.par_sort_unstable_by_key(|(r, _)| (serial(r.date), ent_rank[r.entity as usize], ccy_rank[r.currency as usize], r.tenor, r.file, r.row));
+    kept.truncate(w);
+    drop_vec(flags);
+    kept.par_sort_unstable_by_key(|r| (serial(r.date), ent_rank[r.entity as usize], ccy_rank[r.currency as usize], r.tenor, r.file, r.row));
 
     // Curve rules per (date, entity, currency).
     let mut i = 0;
     while i < kept.len() {
-        let h = kept[i].0;
+        let h = kept[i];
         let mut j = i + 1;
-        while j < kept.len() && kept[j].0.date == h.date && kept[j].0.entity == h.entity && kept[j].0.currency == h.currency {
+        while j < kept.len() && kept[j].date == h.date && kept[j].entity == h.entity && kept[j].currency == h.currency {
             j += 1;
         }
         let count = j - i;
         let curve = format!("{} curve", panel.currencies.name(h.currency));
         if count < s.min_tenors {
             for x in &mut kept[i..j] {
-                x.1 |= FLAG_FEW_TENORS;
+                x.flags |= FLAG_FEW_TENORS;
             }
             findings.push(QualityFlag {
                 rule: "few_tenors",
@@ -225,11 +265,11 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
                 row: h.row as u64,
             });
         }
-        let (short, long) = (kept[i].0, kept[j - 1].0);
+        let (short, long) = (kept[i], kept[j - 1]);
         if let (Some(a), Some(b)) = (short.spread_bp(), long.spread_bp()) {
             if count >= 2 && a > b {
                 for x in &mut kept[i..j] {
-                    x.1 |= FLAG_INVERTED;
+                    x.flags |= FLAG_INVERTED;
                 }
                 findings.push(QualityFlag {
                     rule: "inverted_curve",
@@ -248,8 +288,8 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
         }
         i = j;
     }
-    let (rows, bits): (Vec<CdsQuoteRow>, Vec<u8>) = kept.into_iter().unzip();
-    panel.rows = rows;
+    let bits: Vec<u8> = kept.iter().map(|r| r.flags).collect();
+    panel.rows = kept;
     findings.sort_by(|a, b| (a.date, &a.entity, &a.series, a.rule, a.row).cmp(&(b.date, &b.entity, &b.series, b.rule, b.row)));
     (bits, findings)
 }
@@ -261,7 +301,7 @@ fn series_rules(
     series: &[usize],
     values: &[f64],
     scratch: &mut Vec<f64>,
-    drop: &mut [Option<(&'static str, String)>],
+    drop: &mut Drops,
     flags: &mut [u8],
     findings: &mut Vec<QualityFlag>,
     s: &QualitySettings,
@@ -290,13 +330,14 @@ fn series_rules(
             if u - t >= s.unit_slip_min_run {
                 for q in t..u {
                     let ratio = values[q] / med;
-                    drop[series[q]] = Some((
+                    drop.set(
+                        series[q],
                         "unit_slip",
                         format!(
                             "{:.2} bp is {:.1} times the series median of {:.2} bp on {} consecutive quotes: percent typed for basis points, or the reverse",
                             values[q], ratio, med, u - t
                         ),
-                    ));
+                    );
                 }
             } else {
                 keep.extend(t..u);
