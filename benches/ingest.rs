@@ -14,6 +14,9 @@ use hazardline::time::{add_days, Calendar};
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
+mod support;
+use support::{cpu_seconds, peak_rss_mib};
+
 const TENORS: [(&str, f64); 8] = [("6M", 0.4), ("1Y", 0.5), ("2Y", 0.65), ("3Y", 0.8), ("4Y", 0.9), ("5Y", 1.0), ("7Y", 1.1), ("10Y", 1.2)];
 
 fn env_usize(name: &str, default: usize) -> usize {
@@ -69,22 +72,7 @@ impl YearCe for NaiveDate {
     }
 }
 
-fn peak_rss_mib() -> f64 {
-    let s = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
-    s.lines()
-        .find(|l| l.starts_with("VmHWM:"))
-        .and_then(|l| l.split_whitespace().nth(1))
-        .and_then(|v| v.parse::<f64>().ok())
-        .map_or(f64::NAN, |k| k / 1024.0)
-}
 
-fn cpu_seconds() -> f64 {
-    let s = std::fs::read_to_string("/proc/self/stat").unwrap_or_default();
-    let after = s.rsplit(')').next().unwrap_or("");
-    let f: Vec<&str> = after.split_whitespace().collect();
-    let ticks = |i: usize| f.get(i).and_then(|v| v.parse::<f64>().ok()).unwrap_or(0.0);
-    (ticks(11) + ticks(12)) / 100.0
-}
 
 fn main() {
     let entities = env_usize("HAZARDLINE_BENCH_ENTITIES", 2000);

@@ -12,12 +12,9 @@ use hazardline::time::{add_days, Calendar, Tenor};
 use rayon::prelude::*;
 use std::time::Instant;
 
-fn peak_rss_mib() -> Option<f64> {
-    let s = std::fs::read_to_string("/proc/self/status").ok()?;
-    let line = s.lines().find(|l| l.starts_with("VmHWM:"))?;
-    let kib: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
-    Some(kib / 1024.0)
-}
+mod support;
+use support::{cpu_seconds, peak_rss_mib};
+
 
 fn main() {
     // `cargo bench` passes --bench; ignore arguments.
@@ -73,14 +70,6 @@ fn main() {
     let wall = started.elapsed().as_secs_f64();
     let cpu = cpu_seconds() - cpu0;
     println!("shared plan per date:  wall {wall:.3} s, cpu {cpu:.3} s, curves per second {:.0} ({ok} complete, {} plans)", n as f64 / wall, plans.len());
-    println!("peak resident memory: {:.1} MiB", peak_rss_mib().unwrap_or(f64::NAN));
+    println!("peak resident memory: {:.1} MiB", peak_rss_mib());
 }
 
-fn cpu_seconds() -> f64 {
-    // utime + stime of this process from /proc/self/stat, in clock ticks (100 per second).
-    let s = std::fs::read_to_string("/proc/self/stat").unwrap_or_default();
-    let after = s.rsplit(')').next().unwrap_or("");
-    let f: Vec<&str> = after.split_whitespace().collect();
-    let ticks = |i: usize| f.get(i).and_then(|v| v.parse::<f64>().ok()).unwrap_or(0.0);
-    (ticks(11) + ticks(12)) / 100.0
-}

@@ -39,6 +39,18 @@ fn quantile(sorted: &[f64], q: f64) -> f64 {
     }
 }
 
+/// The 10%, 50% and 90% quantiles of each date's values, as (decimal year, p10, p50, p90),
+/// for the universe band of a history figure.
+fn quantile_band(per_date: &mut BTreeMap<NaiveDate, Vec<f64>>) -> Vec<(f64, f64, f64, f64)> {
+    per_date
+        .iter_mut()
+        .map(|(d, v)| {
+            v.sort_by(f64::total_cmp);
+            (charts::decimal_year(*d), quantile(v, 0.1), quantile(v, 0.5), quantile(v, 0.9))
+        })
+        .collect()
+}
+
 /// Options of the figures (from the pipeline file, recorded in the manifest's settings).
 fn charted(settings: &serde_json::Value, entities: &BTreeSet<String>) -> Vec<String> {
     match settings.get("charted_entities").and_then(|v| v.as_array()) {
@@ -258,13 +270,7 @@ pub fn render(run_dir: &Path) -> Result<()> {
         for h in &five {
             per_date.entry(h.date).or_default().push(h.hazard.unwrap_or(0.0) * 100.0);
         }
-        let band: Vec<(f64, f64, f64, f64)> = per_date
-            .iter_mut()
-            .map(|(d, v)| {
-                v.sort_by(f64::total_cmp);
-                (charts::decimal_year(*d), quantile(v, 0.1), quantile(v, 0.5), quantile(v, 0.9))
-            })
-            .collect();
+        let band = quantile_band(&mut per_date);
         let series: Vec<(String, Vec<(f64, f64)>)> = chosen
             .iter()
             .map(|e| (e.clone(), five.iter().filter(|h| &h.entity == e).map(|h| (charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0)).collect()))
@@ -445,13 +451,7 @@ fn intensity_sections(
                 per_date.entry(p.date).or_default().push(r);
             }
         }
-        let band: Vec<(f64, f64, f64, f64)> = per_date
-            .iter_mut()
-            .map(|(d, v)| {
-                v.sort_by(f64::total_cmp);
-                (charts::decimal_year(*d), quantile(v, 0.1), quantile(v, 0.5), quantile(v, 0.9))
-            })
-            .collect();
+        let band = quantile_band(&mut per_date);
         let series: Vec<(String, Vec<(f64, f64)>)> = per
             .iter()
             .map(|((e, _), v)| (e.to_string(), v.iter().filter_map(|p| Some((charts::decimal_year(p.date), p.rmse_bp?))).collect::<Vec<_>>()))
