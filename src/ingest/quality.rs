@@ -30,8 +30,9 @@ pub struct QualitySettings {
     pub spike_min_log_move: f64,
     /// Share of the jump the next day's change must undo, in the opposite direction. Default 0.5.
     pub spike_revert_share: f64,
-    /// A quote this many times above or below its series' median is off-scale. Default 30
-    /// (a percent/bp slip is a factor of 100).
+    /// A quote this many times above or below its series' median is off-scale. Default 50:
+    /// a percent/bp slip is a factor of 100, while a real blow-out before a default can reach
+    /// 30 times the calm level, so the threshold sits between the two.
     pub unit_slip_ratio: f64,
     /// Off-scale quotes on at least this many consecutive observations are a unit slip and are
     /// rejected; a single one is left to the spike rule. Default 2.
@@ -50,7 +51,7 @@ impl Default for QualitySettings {
             spike_z: 8.0,
             spike_min_log_move: 0.25,
             spike_revert_share: 0.5,
-            unit_slip_ratio: 30.0,
+            unit_slip_ratio: 50.0,
             unit_slip_min_run: 2,
             min_tenors: 3,
         }
