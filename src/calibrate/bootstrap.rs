@@ -188,6 +188,12 @@ pub struct BootstrapPlan {
     node_times: Vec<f64>,
     plan: LegPlan,
     accrual: AccrualIntegration,
+    /// Whether contract k's terms before its last coupon and its last protection node equal
+    /// the longest contract's (true for the standard contracts of one trade date, whose
+    /// schedules are prefixes of one another); the bootstrap then takes the part of its legs
+    /// fixed by solved segments from running sums over the longest contract, instead of
+    /// summing it again for every node.
+    shares_prefix: Vec<bool>,
 }
 
 impl BootstrapPlan {
@@ -214,7 +220,22 @@ impl BootstrapPlan {
         let refs: Vec<&CdsContract> = order.iter().map(|(_, c)| c).collect();
         let plan = LegPlan::build(trade, &refs, discount, &node_times, accrual);
         let (idx, contracts): (Vec<usize>, Vec<CdsContract>) = order.into_iter().unzip();
-        Ok(BootstrapPlan { trade, tenors: tenors.to_vec(), order: idx, contracts: contracts.into(), node_dates, node_times, plan, accrual })
+        let last = plan.contracts.last().expect("at least one contract");
+        let shares_prefix = plan
+            .contracts
+            .iter()
+            .map(|c| {
+                let (nc, np) = (c.coupons.len(), c.prot.len());
+                nc <= last.coupons.len()
+                    && np <= last.prot.len()
+                    && c.prot[..np - 1] == last.prot[..np - 1]
+                    && (0..nc.saturating_sub(1)).all(|j| {
+                        let (a, b) = (&c.coupons[j], &last.coupons[j]);
+                        a == b || (a.accrual == b.accrual && a.pay_df_ratio == b.pay_df_ratio && a.q_idx == b.q_idx && a.t_s == b.t_s && a.paid == b.paid && plan.aod_path[a.aod_from as usize..a.aod_to as usize] == plan.aod_path[b.aod_from as usize..b.aod_to as usize])
+                    })
+            })
+            .collect();
+        Ok(BootstrapPlan { trade, tenors: tenors.to_vec(), order: idx, contracts: contracts.into(), node_dates, node_times, plan, accrual, shares_prefix })
     }
 
     pub fn tenors(&self) -> &[Tenor] {
@@ -277,6 +298,7 @@ fn solve_on_plan(bp: &BootstrapPlan, quotes: &[BootstrapQuote], settings: &Boots
     let mut stopped = false;
     let mut curve_failed = false;
     let mut prev_spread: Option<(f64, f64)> = None;
+    let mut sums = PrefixSums { prot: vec![0.0], prem: vec![0.0], aod: vec![0.0] };
 
     for (k, (qi, contract)) in order.iter().enumerate() {
         let q = &quotes[*qi];
@@ -307,8 +329,16 @@ fn solve_on_plan(bp: &BootstrapPlan, quotes: &[BootstrapQuote], settings: &Boots
             .iter()
             .position(|c| c.paid && plan.times[c.q_idx as usize] > t_prev)
             .unwrap_or(terms.coupons.len());
-        let (fp, fm, fa) =
-            evaluate_terms(plan, &terms.prot[..=prot_from], &terms.coupons[..coupon_from], &pq, &log_q);
+        // The part fixed by solved segments: running sums over the longest contract's terms
+        // when this contract shares its prefix (same numbers, summed in the same order), else
+        // summed here.
+        extend_sums(plan, t_prev, &pq, &log_q, &mut sums);
+        let shared = bp.shares_prefix[k] && prot_from < sums.prot.len() && coupon_from < sums.prem.len();
+        let (fp, fm, fa) = if shared {
+            (sums.prot[prot_from], sums.prem[coupon_from], sums.aod[coupon_from])
+        } else {
+            evaluate_terms(plan, &terms.prot[..=prot_from], &terms.coupons[..coupon_from], &pq, &log_q)
+        };
         let var_prot = &terms.prot[prot_from..];
         let var_coupons = &terms.coupons[coupon_from..];
         let first_point = var_coupons
@@ -451,6 +481,38 @@ fn solve_on_plan(bp: &BootstrapPlan, quotes: &[BootstrapQuote], settings: &Boots
         Some(HazardCurve::new(trade, node_times[..hazards.len()].to_vec(), hazards).expect("increasing node times and finite hazards"))
     };
     Ok(CurveFit { trade_date: trade, nodes, curve, failed: curve_failed, contracts: bp.contracts.clone() })
+}
+
+/// Running sums of the longest contract's protection windows and coupons whose grid points
+/// all lie in solved segments: entry i holds the sum of the first i terms.
+struct PrefixSums {
+    prot: Vec<f64>,
+    prem: Vec<f64>,
+    aod: Vec<f64>,
+}
+
+fn extend_sums(plan: &LegPlan, t_prev: f64, pq: &[f64], log_q: &[f64], sums: &mut PrefixSums) {
+    let Some(last) = plan.contracts.last() else { return };
+    while sums.prot.len() < last.prot.len() {
+        let w = sums.prot.len() - 1;
+        if plan.times[last.prot[w + 1] as usize] > t_prev {
+            break;
+        }
+        let (p, _, _) = evaluate_terms(plan, &last.prot[w..=w + 1], &[], pq, log_q);
+        let next = sums.prot[w] + p;
+        sums.prot.push(next);
+    }
+    while sums.prem.len() <= last.coupons.len() {
+        let j = sums.prem.len() - 1;
+        let c = &last.coupons[j];
+        if c.paid && plan.times[c.q_idx as usize] > t_prev {
+            break;
+        }
+        let (_, m, a) = evaluate_terms(plan, &[], std::slice::from_ref(c), pq, log_q);
+        let (pm, pa) = (sums.prem[j] + m, sums.aod[j] + a);
+        sums.prem.push(pm);
+        sums.aod.push(pa);
+    }
 }
 
 fn describe(q: CdsQuote) -> String {

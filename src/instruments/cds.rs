@@ -160,7 +160,7 @@ impl CdsLegs {
 }
 
 /// One coupon's part of the premium and accrual-on-default legs on the grid.
-#[derive(Debug, Clone, Copy)]
+#[derive(Debug, Clone, Copy, PartialEq)]
 pub(crate) struct CouponTerm {
     /// Accrual fraction per unit coupon.
     pub accrual: f64,
