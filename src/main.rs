@@ -132,6 +132,23 @@ enum Command {
         #[arg(long)]
         out: Option<PathBuf>,
     },
+    /// Write an invented universe (every input table, the planted truth under truth/, and a
+    /// pipeline.toml that runs the whole pipeline on it) into OUT_DIR.
+    Demo {
+        out_dir: PathBuf,
+        /// Seed of the generator: the same seed gives the same bytes.
+        #[arg(long, default_value_t = 20150101)]
+        seed: u64,
+        /// Number of entities.
+        #[arg(long, default_value_t = 150)]
+        entities: usize,
+        /// Years of daily quotes.
+        #[arg(long, default_value_t = 4)]
+        years: u32,
+        /// First day of the quoted period (yyyy-mm-dd).
+        #[arg(long, default_value = "2015-01-01", value_parser = hazardline::commands::demo::parse_start)]
+        start: chrono::NaiveDate,
+    },
     /// Read the inputs and run the data-quality rules only: print the row accounting per table
     /// and the top reject reasons; with --out, write rejects, data_quality and quality_flags.
     Check {
@@ -304,6 +321,32 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 Ok(ExitCode::from(2))
             }
         },
+        Command::Demo { out_dir, seed, entities, years, start } => {
+            if entities == 0 || years == 0 || years > 40 {
+                eprintln!("error: --entities must be at least 1 and --years between 1 and 40");
+                return Ok(ExitCode::from(2));
+            }
+            let spec = hazardline::sim::ScenarioSpec { seed, entities, years, start, ..hazardline::sim::ScenarioSpec::demo(seed) };
+            match hazardline::commands::demo::write_demo(&out_dir, &spec) {
+                Ok(s) => {
+                    println!(
+                        "wrote an invented universe to {}: {} entities, {} CDS quote rows, {} defaults, {} planted faults, {} files",
+                        s.out.display(),
+                        s.entities,
+                        s.quotes,
+                        s.defaults,
+                        s.faults,
+                        s.files.len()
+                    );
+                    println!("run it with: hazardline run {}", s.out.join("pipeline.toml").display());
+                    Ok(ExitCode::SUCCESS)
+                }
+                Err(e) => {
+                    eprintln!("error: {e}");
+                    Ok(ExitCode::from(e.exit_code() as u8))
+                }
+            }
+        }
         Command::Check { inputs, out } => {
             let calendar = match calendar_of(&inputs) {
                 Ok(c) => c,

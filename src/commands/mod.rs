@@ -4,4 +4,5 @@
 pub mod calibrate;
 pub mod check;
 pub mod compare;
+pub mod demo;
 pub mod intensity;
