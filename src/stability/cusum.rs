@@ -211,8 +211,8 @@ mod tests {
         //   w4 = (6 - 2) sqrt(3/4)     = 3.464102
         // sum w^2 = 2 + 0 + 12 = 14 = sum (x - 3)^2; sigma = sqrt(14/3) = 2.160247.
         // W2 = 0.654654, W3 = 0.654654, W4 = (1.414214 + 3.464102) / 2.160247 = 4.878315 / 2.160247 = 2.258221.
-        // Boundary (a = 0.948, T - k = 3): 0.948 sqrt(3) + 2 (0.948)(r - 1)/sqrt(3)
-        //   r = 2: 2.736636, r = 3: 3.831301, r = 4: 4.925966 (= 3a sqrt 3): no crossing.
+        // Boundary (a = 0.948, T - k = 3): 0.948 sqrt(3) + 2 (0.948)(r - 1)/sqrt(3) = 1.641984 + 1.094655 (r - 1)
+        //   r = 2: 2.736640, r = 3: 3.831296, r = 4: 4.925952 (= 3a sqrt 3): no crossing.
         let p = bde_cusum(&[1.0, 3.0, 2.0, 6.0]).unwrap();
         let want_w = [2f64.sqrt(), 0.0, 4.0 * 0.75f64.sqrt()];
         for (w, e) in p.residuals.iter().zip(want_w) {
@@ -222,7 +222,7 @@ mod tests {
         for (w, e) in p.cusum.iter().zip([0.654654, 0.654654, 2.258221]) {
             assert!((w - e).abs() < 1e-6, "{:?}", p.cusum);
         }
-        for (i, e) in [(1, 2.736636), (2, 3.831301), (3, 4.925966)] {
+        for (i, e) in [(1, 2.736640), (2, 3.831296), (3, 4.925952)] {
             assert!((p.boundary(i, BDE_A_5) - e).abs() < 1e-6);
         }
         assert_eq!(p.first_crossing(BDE_A_5), None);
@@ -238,8 +238,8 @@ mod tests {
         // sum w^2 = 0.8 + 0.533333 + 0.380952 + 0.285714 = 2 = sum (x - 0.5)^2;
         // sigma = sqrt(2/7) = 0.534522; cumulative sums of w: 0.894427, 1.624724, 2.241937, 2.776460,
         // divided by sigma: W5 = 1.673320, W6 = 3.039580, W7 = 4.194281, W8 = 5.194281.
-        // At 5% (a = 0.948): boundary 2.508172 + 0.716622 (r - 1); r = 5: 5.374660 > W5, ...,
-        // r = 8: 7.524516 > W8: no crossing (too short to reject).
+        // At 5% (a = 0.948): boundary 2.508172 + 0.716621 (r - 1); r = 5: 5.374655 > W5, ...,
+        // r = 8: 7.524517 > W8: no crossing (too short to reject).
         // With a = 0.3: boundary 0.793725 + 0.226779 (r - 1); r = 5: 1.700840 > 1.673320 (a
         // near miss), r = 6: 1.927619 < 3.039580: first crossing at r = 6, index 5.
         let x = [0.0, 0.0, 0.0, 0.0, 1.0, 1.0, 1.0, 1.0];
