@@ -38,14 +38,19 @@ pub use settings::{MoveThreshold, StabilitySettings};
 /// Why a stability computation cannot run.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum StabilityError {
+    /// A setting is out of range; names the setting, its value and what is expected.
     #[error("stability setting {name} = {value} is not valid: expected {expected}")]
     Setting { name: String, value: String, expected: &'static str },
+    /// A sample that must hold values is empty.
     #[error("{what} is empty")]
     EmptySample { what: &'static str },
+    /// A value is NaN or infinite.
     #[error("{what} holds a value that is not a finite number")]
     NonFinite { what: &'static str },
+    /// Too few values for a test.
     #[error("series of {n} values is too short for the test (needs {needed})")]
     TooShort { n: usize, needed: usize },
+    /// A constant series: no variance, so no test.
     #[error("series is constant: no variance to test")]
     ZeroVariance,
 }

@@ -63,15 +63,25 @@ pub struct TenorResidualRow {
     pub tenor: String,
     /// Residuals pooled.
     pub n: usize,
+    /// 1% quantile of the residual, bp.
     pub q01: f64,
+    /// 5% quantile of the residual, bp.
     pub q05: f64,
+    /// 50% quantile of the residual, bp.
     pub q50: f64,
+    /// 95% quantile of the residual, bp.
     pub q95: f64,
+    /// 99% quantile of the residual, bp.
     pub q99: f64,
+    /// 1% quantile of |residual|, bp.
     pub abs_q01: f64,
+    /// 5% quantile of |residual|, bp.
     pub abs_q05: f64,
+    /// 50% quantile of |residual|, bp.
     pub abs_q50: f64,
+    /// 95% quantile of |residual|, bp.
     pub abs_q95: f64,
+    /// 99% quantile of |residual|, bp.
     pub abs_q99: f64,
 }
 
