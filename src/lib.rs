@@ -17,4 +17,5 @@ pub mod models;
 pub mod pipeline;
 pub mod report;
 pub mod sim;
+pub mod stability;
 pub mod time;

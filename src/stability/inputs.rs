@@ -1,0 +1,209 @@
+//! The stage's inputs (plain structs the pipeline fills from its tables) and their first
+//! preparation: one date-ordered history per (series, entity), and the daily moves along it.
+
+use super::period::Period;
+use super::settings::StabilitySettings;
+use chrono::NaiveDate;
+use std::collections::BTreeMap;
+
+/// One value of one parameter series for one entity on one date.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Observation {
+    /// Series name, e.g. `pd_1y`, `hazard_5y`, `hazard_node_3y`, `cir_kappa`.
+    pub series: String,
+    /// Entity identifier.
+    pub entity: String,
+    /// The entity's internal grade on that date (1 = best), when grades are known.
+    pub grade: Option<u32>,
+    /// Calibration date.
+    pub date: NaiveDate,
+    /// The parameter value, in the series' own unit (a decimal PD, a hazard per year, ...).
+    pub value: f64,
+}
+
+/// How much an entity's market quotes moved on one date, to compare parameter moves with.
+#[derive(Debug, Clone, PartialEq)]
+pub struct MarketMove {
+    /// Entity identifier.
+    pub entity: String,
+    /// The later date of the move.
+    pub date: NaiveDate,
+    /// Mean over the entity's tenors of |par spread today - par spread on the previous quote
+    /// date|, in bp.
+    pub mean_abs_change_bp: f64,
+    /// Mean over the same tenors of the previous date's par spread, in bp (the base of the
+    /// relative move mean_abs_change_bp / mean_level_bp).
+    pub mean_level_bp: f64,
+}
+
+impl MarketMove {
+    /// The relative move, when both numbers are usable (finite, level > 0, change >= 0).
+    pub fn relative(&self) -> Option<f64> {
+        let ok = self.mean_abs_change_bp.is_finite() && self.mean_abs_change_bp >= 0.0 && self.mean_level_bp.is_finite() && self.mean_level_bp > 0.0;
+        ok.then(|| self.mean_abs_change_bp / self.mean_level_bp)
+    }
+}
+
+/// Calibration outcomes of one entity on one date (all methods together).
+#[derive(Debug, Clone, PartialEq)]
+pub struct CalibrationCounts {
+    /// Entity identifier.
+    pub entity: String,
+    /// Calibration date.
+    pub date: NaiveDate,
+    /// Calibrations that failed (no curve or parameters produced).
+    pub failures: u64,
+    /// Calibrations that were infeasible (e.g. a bootstrap needing a negative hazard).
+    pub infeasible: u64,
+}
+
+/// What happened to the observations on entry.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct InputSummary {
+    /// Observations used.
+    pub used: usize,
+    /// Observations dropped because the value was not finite.
+    pub non_finite: usize,
+    /// Observations dropped as a repeat of (series, entity, date); the first in input order is kept.
+    pub duplicates: usize,
+    /// Market moves dropped as unusable (see [`MarketMove::relative`]).
+    pub market_unusable: usize,
+}
+
+/// One point of a history.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(crate) struct Point {
+    pub date: NaiveDate,
+    pub value: f64,
+    pub grade: Option<u32>,
+}
+
+/// Date-ordered histories keyed by (series, entity).
+pub(crate) type Panel = BTreeMap<(String, String), Vec<Point>>;
+
+/// Builds the panel: drops non-finite values and repeated dates (keeping the first in input order).
+pub(crate) fn build_panel(observations: &[Observation]) -> (Panel, InputSummary) {
+    let mut summary = InputSummary::default();
+    let mut panel = Panel::new();
+    for o in observations {
+        if !o.value.is_finite() {
+            summary.non_finite += 1;
+            continue;
+        }
+        panel.entry((o.series.clone(), o.entity.clone())).or_default().push(Point { date: o.date, value: o.value, grade: o.grade });
+    }
+    for points in panel.values_mut() {
+        let before = points.len();
+        points.sort_by_key(|p| p.date);
+        points.dedup_by_key(|p| p.date);
+        summary.duplicates += before - points.len();
+        summary.used += points.len();
+    }
+    (panel, summary)
+}
+
+/// A move between two consecutive observations of one entity's series.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct DailyMove {
+    /// The later date; the move belongs to this date's period.
+    pub date: NaiveDate,
+    /// The earlier value.
+    pub previous: f64,
+    /// The later value.
+    pub value: f64,
+}
+
+impl DailyMove {
+    /// |value - previous|.
+    pub fn abs_change(&self) -> f64 {
+        (self.value - self.previous).abs()
+    }
+
+    /// |value - previous| / |previous|; `None` when the previous value is zero.
+    pub fn abs_relative(&self) -> Option<f64> {
+        (self.previous != 0.0).then(|| self.abs_change() / self.previous.abs())
+    }
+}
+
+/// Moves between consecutive observations at most `max_gap_days` calendar days apart; a longer
+/// gap breaks the chain (the step across it is not a daily move).
+pub(crate) fn daily_moves(points: &[Point], max_gap_days: i64) -> Vec<DailyMove> {
+    points
+        .windows(2)
+        .filter(|w| (w[1].date - w[0].date).num_days() <= max_gap_days)
+        .map(|w| DailyMove { date: w[1].date, previous: w[0].value, value: w[1].value })
+        .collect()
+}
+
+/// Mean relative market move per (entity, period), and the count of unusable rows.
+pub(crate) fn market_by_period(market: &[MarketMove], settings: &StabilitySettings) -> (BTreeMap<(String, Period), f64>, usize) {
+    let mut acc: BTreeMap<(String, Period), (f64, usize)> = BTreeMap::new();
+    let mut unusable = 0;
+    for m in market {
+        match m.relative() {
+            Some(r) => {
+                let e = acc.entry((m.entity.clone(), settings.period.of(m.date))).or_default();
+                e.0 += r;
+                e.1 += 1;
+            }
+            None => unusable += 1,
+        }
+    }
+    (acc.into_iter().map(|(k, (s, n))| (k, s / n as f64)).collect(), unusable)
+}
+
+/// Summed calibration counts per (entity, period), with the number of dates reported.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub(crate) struct PeriodCounts {
+    pub dates: usize,
+    pub failures: u64,
+    pub infeasible: u64,
+}
+
+/// Sums the counts per (entity, period).
+pub(crate) fn counts_by_period(counts: &[CalibrationCounts], settings: &StabilitySettings) -> BTreeMap<(String, Period), PeriodCounts> {
+    let mut out: BTreeMap<(String, Period), PeriodCounts> = BTreeMap::new();
+    for c in counts {
+        let e = out.entry((c.entity.clone(), settings.period.of(c.date))).or_default();
+        e.dates += 1;
+        e.failures = e.failures.saturating_add(c.failures);
+        e.infeasible = e.infeasible.saturating_add(c.infeasible);
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn d(text: &str) -> NaiveDate {
+        NaiveDate::parse_from_str(text, "%Y-%m-%d").unwrap()
+    }
+
+    fn obs(date: &str, value: f64) -> Observation {
+        Observation { series: "pd_1y".into(), entity: "Alder".into(), grade: Some(3), date: d(date), value }
+    }
+
+    #[test]
+    fn panel_drops_bad_values_and_repeats() {
+        let o = [obs("2024-01-03", 0.02), obs("2024-01-02", 0.01), obs("2024-01-03", 0.05), obs("2024-01-04", f64::NAN)];
+        let (panel, s) = build_panel(&o);
+        let pts = &panel[&("pd_1y".to_string(), "Alder".to_string())];
+        assert_eq!(pts.iter().map(|p| p.value).collect::<Vec<_>>(), vec![0.01, 0.02]);
+        assert_eq!(s, InputSummary { used: 2, non_finite: 1, duplicates: 1, market_unusable: 0 });
+    }
+
+    #[test]
+    fn gaps_break_the_chain() {
+        // Fri 5 Jan -> Mon 8 Jan is 3 days (a move); 8 Jan -> 22 Jan is 14 days (no move).
+        let pts: Vec<Point> = [("2024-01-05", 1.0), ("2024-01-08", 1.2), ("2024-01-22", 2.0), ("2024-01-23", 1.0)]
+            .iter()
+            .map(|&(t, v)| Point { date: d(t), value: v, grade: None })
+            .collect();
+        let m = daily_moves(&pts, 5);
+        assert_eq!(m.len(), 2);
+        assert_eq!(m[0].date, d("2024-01-08"));
+        assert!((m[0].abs_change() - 0.2).abs() < 1e-12);
+        assert_eq!(m[1].abs_relative(), Some(0.5));
+    }
+}

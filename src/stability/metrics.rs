@@ -1,0 +1,293 @@
+//! Per-period summaries of each series: per entity (level, spread of values, daily moves,
+//! moves against the market, calibration counts), and per grade and for the universe (the
+//! cross-section of entity means), with period-on-period changes; and per-date cross-sectional
+//! quantile bands.
+//!
+//! Cross-sections use one value per entity: its mean over the period (or, per date, its value
+//! that day), so that an entity with more observation days does not weigh more. An entity whose
+//! grade changes within a period counts in each grade with the mean of its days in that grade.
+
+use super::inputs::{daily_moves, DailyMove, Panel, PeriodCounts, Point};
+use super::period::Period;
+use super::settings::StabilitySettings;
+use super::summary::{band, mean, quantile_sorted, relative_change, sample_sd, sorted};
+use chrono::NaiveDate;
+use std::collections::BTreeMap;
+
+/// The series name of the rows that carry an entity's calibration counts on their own (so a
+/// period in which every calibration failed, and no parameter exists, still has a row).
+pub const CALIBRATION_SERIES: &str = "calibration";
+
+/// Who a row summarises.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum Scope {
+    /// One entity; `key` is the entity.
+    Entity,
+    /// One internal grade; `key` is the grade number.
+    Grade,
+    /// All entities; `key` is `all`.
+    Universe,
+}
+
+impl Scope {
+    /// `entity`, `grade` or `universe`.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Scope::Entity => "entity",
+            Scope::Grade => "grade",
+            Scope::Universe => "universe",
+        }
+    }
+}
+
+/// One row of the `stability` table: one series over one review period for one entity, grade
+/// or the universe. Statistics that do not apply to the scope are `None`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct StabilityRow {
+    /// Period label (`2024Q1`, ...).
+    pub period: String,
+    /// Series name (or [`CALIBRATION_SERIES`]).
+    pub series: String,
+    /// Entity, grade or universe.
+    pub scope: Scope,
+    /// Entity name, grade number, or `all`.
+    pub key: String,
+    /// Observations (entity), entities (grade, universe), or dates with counts (calibration).
+    pub n: usize,
+    /// Mean of the values (entity) or of the entity means (grade, universe).
+    pub mean: Option<f64>,
+    /// Sample standard deviation of the same values.
+    pub sd: Option<f64>,
+    /// sd / |mean|; `None` when the mean is zero.
+    pub cv: Option<f64>,
+    /// Median of the same values.
+    pub median: Option<f64>,
+    /// 10% quantile of the same values.
+    pub p10: Option<f64>,
+    /// 90% quantile of the same values.
+    pub p90: Option<f64>,
+    /// Daily moves ending in the period (entity rows).
+    pub moves: Option<usize>,
+    /// Largest |daily move| in the series' unit.
+    pub max_abs_move: Option<f64>,
+    /// Date of that move.
+    pub max_move_date: Option<NaiveDate>,
+    /// Share of moves over the series' large-move threshold.
+    pub large_move_share: Option<f64>,
+    /// Mean |relative daily move| of the parameter.
+    pub param_rel_move: Option<f64>,
+    /// Mean relative daily move of the entity's spreads in the period.
+    pub market_rel_move: Option<f64>,
+    /// param_rel_move / max(market_rel_move, market_move_floor).
+    pub move_ratio: Option<f64>,
+    /// Calibration failures of the entity in the period.
+    pub failures: Option<u64>,
+    /// Infeasible calibrations of the entity in the period.
+    pub infeasible: Option<u64>,
+    /// Relative change of the mean against the previous period's row of the same key.
+    pub mean_change: Option<f64>,
+    /// Relative change of the median against the previous period's row of the same key.
+    pub median_change: Option<f64>,
+}
+
+impl StabilityRow {
+    fn blank(period: &Period, series: &str, scope: Scope, key: &str, n: usize) -> StabilityRow {
+        StabilityRow {
+            period: period.label(),
+            series: series.to_string(),
+            scope,
+            key: key.to_string(),
+            n,
+            mean: None,
+            sd: None,
+            cv: None,
+            median: None,
+            p10: None,
+            p90: None,
+            moves: None,
+            max_abs_move: None,
+            max_move_date: None,
+            large_move_share: None,
+            param_rel_move: None,
+            market_rel_move: None,
+            move_ratio: None,
+            failures: None,
+            infeasible: None,
+            mean_change: None,
+            median_change: None,
+        }
+    }
+
+    fn with_values(mut self, values: &[f64]) -> StabilityRow {
+        let s = sorted(values);
+        self.mean = mean(values);
+        self.sd = sample_sd(values);
+        self.cv = match (self.sd, self.mean) {
+            (Some(sd), Some(m)) if m != 0.0 => Some(sd / m.abs()),
+            _ => None,
+        };
+        self.median = quantile_sorted(&s, 0.5);
+        self.p10 = quantile_sorted(&s, 0.1);
+        self.p90 = quantile_sorted(&s, 0.9);
+        self
+    }
+}
+
+/// Cross-sectional 10/50/90% quantiles of one series on one date.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CrossSectionRow {
+    /// Observation date.
+    pub date: NaiveDate,
+    /// Label of the date's period.
+    pub period: String,
+    /// Series name.
+    pub series: String,
+    /// Grade or universe.
+    pub scope: Scope,
+    /// Grade number or `all`.
+    pub key: String,
+    /// Entities observed that day.
+    pub n: usize,
+    /// 10% quantile.
+    pub p10: f64,
+    /// Median.
+    pub p50: f64,
+    /// 90% quantile.
+    pub p90: f64,
+}
+
+/// Entity-level inputs besides the panel.
+pub(crate) struct EntityContext<'a> {
+    pub market: &'a BTreeMap<(String, Period), f64>,
+    pub counts: &'a BTreeMap<(String, Period), PeriodCounts>,
+    pub settings: &'a StabilitySettings,
+}
+
+fn group_by_period<T: Copy>(items: &[T], date: impl Fn(&T) -> NaiveDate, settings: &StabilitySettings) -> BTreeMap<Period, Vec<T>> {
+    let mut out: BTreeMap<Period, Vec<T>> = BTreeMap::new();
+    for it in items {
+        out.entry(settings.period.of(date(it))).or_default().push(*it);
+    }
+    out
+}
+
+fn set_moves(row: &mut StabilityRow, moves: &[DailyMove], series: &str, settings: &StabilitySettings) {
+    row.moves = Some(moves.len());
+    let largest = moves.iter().max_by(|a, b| a.abs_change().total_cmp(&b.abs_change()));
+    row.max_abs_move = largest.map(DailyMove::abs_change);
+    row.max_move_date = largest.map(|m| m.date);
+    let threshold = settings.move_threshold(series);
+    let large = moves.iter().filter(|m| threshold.exceeded(m.previous, m.value)).count();
+    row.large_move_share = (!moves.is_empty()).then(|| large as f64 / moves.len() as f64);
+    let rel: Vec<f64> = moves.iter().filter_map(DailyMove::abs_relative).collect();
+    row.param_rel_move = mean(&rel);
+}
+
+fn entity_period_row(series: &str, entity: &str, period: &Period, points: &[Point], moves: &[DailyMove], ctx: &EntityContext) -> StabilityRow {
+    let values: Vec<f64> = points.iter().map(|p| p.value).collect();
+    let mut row = StabilityRow::blank(period, series, Scope::Entity, entity, values.len()).with_values(&values);
+    set_moves(&mut row, moves, series, ctx.settings);
+    let key = (entity.to_string(), *period);
+    row.market_rel_move = ctx.market.get(&key).copied();
+    row.move_ratio = match (row.param_rel_move, row.market_rel_move) {
+        (Some(p), Some(m)) => Some(p / m.max(ctx.settings.market_move_floor)),
+        _ => None,
+    };
+    let counts = ctx.counts.get(&key).copied().unwrap_or_default();
+    row.failures = Some(counts.failures);
+    row.infeasible = Some(counts.infeasible);
+    row
+}
+
+/// Entity rows of every series and period (periods with at least one observation).
+pub(crate) fn entity_rows(panel: &Panel, ctx: &EntityContext) -> Vec<(Period, StabilityRow)> {
+    let mut out = Vec::new();
+    for ((series, entity), points) in panel {
+        let moves = group_by_period(&daily_moves(points, ctx.settings.max_gap_days), |m| m.date, ctx.settings);
+        for (period, pts) in group_by_period(points, |p| p.date, ctx.settings) {
+            let mv = moves.get(&period).map_or(&[][..], Vec::as_slice);
+            out.push((period, entity_period_row(series, entity, &period, &pts, mv, ctx)));
+        }
+    }
+    out
+}
+
+/// One [`CALIBRATION_SERIES`] row per (entity, period) with calibration counts.
+pub(crate) fn calibration_rows(counts: &BTreeMap<(String, Period), PeriodCounts>) -> Vec<(Period, StabilityRow)> {
+    counts
+        .iter()
+        .map(|((entity, period), c)| {
+            let mut row = StabilityRow::blank(period, CALIBRATION_SERIES, Scope::Entity, entity, c.dates);
+            row.failures = Some(c.failures);
+            row.infeasible = Some(c.infeasible);
+            (*period, row)
+        })
+        .collect()
+}
+
+type GroupKey = (String, Period, Scope, String);
+
+fn push_mean(groups: &mut BTreeMap<GroupKey, Vec<f64>>, key: GroupKey, values: &[f64]) {
+    if let Some(m) = mean(values) {
+        groups.entry(key).or_default().push(m);
+    }
+}
+
+/// Entity means per (series, period, scope, key), for grade and universe cross-sections.
+pub(crate) fn entity_means(panel: &Panel, settings: &StabilitySettings) -> BTreeMap<GroupKey, Vec<f64>> {
+    let mut groups: BTreeMap<GroupKey, Vec<f64>> = BTreeMap::new();
+    for ((series, _), points) in panel {
+        for (period, pts) in group_by_period(points, |p| p.date, settings) {
+            let all: Vec<f64> = pts.iter().map(|p| p.value).collect();
+            push_mean(&mut groups, (series.clone(), period, Scope::Universe, "all".into()), &all);
+            let mut by_grade: BTreeMap<u32, Vec<f64>> = BTreeMap::new();
+            for p in &pts {
+                if let Some(g) = p.grade {
+                    by_grade.entry(g).or_default().push(p.value);
+                }
+            }
+            for (g, v) in by_grade {
+                push_mean(&mut groups, (series.clone(), period, Scope::Grade, g.to_string()), &v);
+            }
+        }
+    }
+    groups
+}
+
+/// Grade and universe rows from the entity means.
+pub(crate) fn group_rows(means: &BTreeMap<GroupKey, Vec<f64>>) -> Vec<(Period, StabilityRow)> {
+    means.iter().map(|((series, period, scope, key), v)| (*period, StabilityRow::blank(period, series, *scope, key, v.len()).with_values(v))).collect()
+}
+
+/// Fills the period-on-period changes of the mean and the median: each row against the row of
+/// the same series, scope and key in the immediately preceding period (none if that is absent).
+pub(crate) fn fill_changes(rows: &mut [(Period, StabilityRow)]) {
+    type Centre = (Option<f64>, Option<f64>);
+    let base: BTreeMap<(String, Scope, String, Period), Centre> = rows
+        .iter().map(|(p, r)| ((r.series.clone(), r.scope, r.key.clone(), *p), (r.mean, r.median))).collect();
+    for (p, r) in rows.iter_mut() {
+        let Some(&(m0, med0)) = base.get(&(r.series.clone(), r.scope, r.key.clone(), p.previous())) else { continue };
+        r.mean_change = m0.zip(r.mean).and_then(|(a, b)| relative_change(a, b));
+        r.median_change = med0.zip(r.median).and_then(|(a, b)| relative_change(a, b));
+    }
+}
+
+/// Per-date 10/50/90% bands of each series, for the universe and per grade.
+pub(crate) fn cross_sections(panel: &Panel, settings: &StabilitySettings) -> Vec<CrossSectionRow> {
+    let mut groups: BTreeMap<(String, Scope, String, NaiveDate), Vec<f64>> = BTreeMap::new();
+    for ((series, _), points) in panel {
+        for p in points {
+            groups.entry((series.clone(), Scope::Universe, "all".into(), p.date)).or_default().push(p.value);
+            if let Some(g) = p.grade {
+                groups.entry((series.clone(), Scope::Grade, g.to_string(), p.date)).or_default().push(p.value);
+            }
+        }
+    }
+    groups
+        .into_iter()
+        .filter_map(|((series, scope, key, date), v)| {
+            let (p10, p50, p90) = band(&v)?;
+            Some(CrossSectionRow { date, period: settings.period.of(date).label(), series, scope, key, n: v.len(), p10, p50, p90 })
+        })
+        .collect()
+}

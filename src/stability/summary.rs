@@ -1,0 +1,77 @@
+//! Small descriptive statistics over slices: mean, sample standard deviation, quantiles.
+//! Callers pass finite values only (the stage drops non-finite inputs on entry).
+
+/// Arithmetic mean; `None` for an empty slice.
+pub fn mean(values: &[f64]) -> Option<f64> {
+    if values.is_empty() {
+        return None;
+    }
+    Some(values.iter().sum::<f64>() / values.len() as f64)
+}
+
+/// Sample standard deviation (divisor n - 1); `None` below two values.
+pub fn sample_sd(values: &[f64]) -> Option<f64> {
+    if values.len() < 2 {
+        return None;
+    }
+    let m = mean(values)?;
+    let ss: f64 = values.iter().map(|v| (v - m) * (v - m)).sum();
+    Some((ss / (values.len() - 1) as f64).sqrt())
+}
+
+/// Quantile `q` of ascending `sorted` values by linear interpolation between order statistics
+/// (Hyndman and Fan 1996, Statistical Science, definition 7; the default of R and numpy).
+/// `None` for an empty slice.
+pub fn quantile_sorted(sorted: &[f64], q: f64) -> Option<f64> {
+    if sorted.is_empty() {
+        return None;
+    }
+    let pos = q.clamp(0.0, 1.0) * (sorted.len() - 1) as f64;
+    let i = pos.floor() as usize;
+    let f = pos - pos.floor();
+    match sorted.get(i + 1) {
+        Some(next) => Some(sorted[i] + f * (next - sorted[i])),
+        None => Some(sorted[i]),
+    }
+}
+
+/// A sorted copy of `values` (total order, so the result is deterministic).
+pub fn sorted(values: &[f64]) -> Vec<f64> {
+    let mut v = values.to_vec();
+    v.sort_by(f64::total_cmp);
+    v
+}
+
+/// The 10%, 50% and 90% quantiles of `values`, for cross-sectional bands.
+pub fn band(values: &[f64]) -> Option<(f64, f64, f64)> {
+    let s = sorted(values);
+    Some((quantile_sorted(&s, 0.1)?, quantile_sorted(&s, 0.5)?, quantile_sorted(&s, 0.9)?))
+}
+
+/// Relative change (now - before) / |before|; `None` when `before` is zero.
+pub fn relative_change(before: f64, now: f64) -> Option<f64> {
+    (before != 0.0).then(|| (now - before) / before.abs())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn mean_sd_quantiles() {
+        // Values 1, 2, 3, 4: mean 2.5; squared deviations 2.25 + 0.25 + 0.25 + 2.25 = 5,
+        // divided by n - 1 = 3 gives 5/3; median by definition 7: position 1.5 -> 2.5;
+        // 10% quantile: position 0.3 -> 1.3.
+        let v = [4.0, 1.0, 3.0, 2.0];
+        assert_eq!(mean(&v), Some(2.5));
+        assert!((sample_sd(&v).unwrap() - (5.0f64 / 3.0).sqrt()).abs() < 1e-15);
+        let s = sorted(&v);
+        assert!((quantile_sorted(&s, 0.5).unwrap() - 2.5).abs() < 1e-15);
+        assert!((quantile_sorted(&s, 0.1).unwrap() - 1.3).abs() < 1e-15);
+        assert_eq!(quantile_sorted(&s, 1.0), Some(4.0));
+        assert_eq!(quantile_sorted(&[], 0.5), None);
+        assert_eq!(sample_sd(&[1.0]), None);
+        assert_eq!(relative_change(0.0, 1.0), None);
+        assert_eq!(relative_change(-2.0, -1.0), Some(0.5));
+    }
+}

@@ -1,0 +1,231 @@
+//! The stability stage end to end on invented panels: a planted level shift and its detection
+//! delay, the CUSUM false-alarm rate on panels without a break, PSI through the panel path,
+//! and the rule that every flag points at data in the output.
+//!
+//! All entities and values are invented. Measured figures are printed (run with `--nocapture`).
+
+use chrono::{Datelike, NaiveDate, Weekday};
+use hazardline::stability::{
+    analyse, analyse_series, CalibrationCounts, CusumScope, CusumTarget, MarketMove, MoveThreshold, Observation, PsiEdges, ResidualObservation, StabilitySettings,
+};
+
+/// splitmix64 (Steele, Lea and Flood 2014, OOPSLA) for reproducible test data.
+struct SplitMix(u64);
+
+impl SplitMix {
+    fn next_u64(&mut self) -> u64 {
+        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        z ^ (z >> 31)
+    }
+
+    /// Uniform on (0, 1): 53 random bits, shifted off zero.
+    fn uniform(&mut self) -> f64 {
+        ((self.next_u64() >> 11) as f64 + 0.5) / (1u64 << 53) as f64
+    }
+
+    /// Standard normal by Box-Muller (Box and Muller 1958, Annals of Mathematical Statistics).
+    fn normal(&mut self) -> f64 {
+        let (u1, u2) = (self.uniform(), self.uniform());
+        (-2.0 * u1.ln()).sqrt() * (2.0 * std::f64::consts::PI * u2).cos()
+    }
+}
+
+fn d(y: i32, m: u32, day: u32) -> NaiveDate {
+    NaiveDate::from_ymd_opt(y, m, day).unwrap()
+}
+
+/// Weekdays from `start` to `end` inclusive.
+fn business_days(start: NaiveDate, end: NaiveDate) -> Vec<NaiveDate> {
+    start.iter_days().take_while(|x| *x <= end).filter(|x| !matches!(x.weekday(), Weekday::Sat | Weekday::Sun)).collect()
+}
+
+fn obs(series: &str, entity: &str, grade: u32, date: NaiveDate, value: f64) -> Observation {
+    Observation { series: series.into(), entity: entity.into(), grade: Some(grade), date, value }
+}
+
+/// A stable series: level * (1 + rel_sd * N(0, 1)) each day, iid.
+fn noisy(rng: &mut SplitMix, days: &[NaiveDate], level: f64, rel_sd: f64, series: &str, entity: &str) -> Vec<Observation> {
+    days.iter().map(|&t| obs(series, entity, 3, t, level * (1.0 + rel_sd * rng.normal()))).collect()
+}
+
+/// Business days between two dates (0 when equal).
+fn business_delay(from: NaiveDate, to: NaiveDate) -> usize {
+    business_days(from, to).len().saturating_sub(1)
+}
+
+/// 100 invented entities, pd_1y iid around 2% with a 5% relative sd (0.1% absolute) through
+/// 2024Q1; from 2024-02-14 (business day 31 of 64) the level is 3 sd (0.3%) higher.
+fn shifted_panel(shift: NaiveDate) -> Vec<Observation> {
+    let days = business_days(d(2024, 1, 2), d(2024, 3, 29));
+    let mut rng = SplitMix(20_240_214);
+    let mut all = Vec::new();
+    for i in 0..100 {
+        let entity = format!("Shiftco {i:03}");
+        for o in noisy(&mut rng, &days, 0.02, 0.05, "pd_1y", &entity) {
+            let bump = if o.date >= shift { 0.003 } else { 0.0 };
+            all.push(Observation { value: o.value + bump, ..o });
+        }
+    }
+    all
+}
+
+/// (delays in business days from the shift to the first crossing, sorted; crossings before the shift).
+fn crossing_delays(out: &[hazardline::stability::BreakRow], shift: NaiveDate) -> (Vec<usize>, usize) {
+    let mut delays: Vec<usize> = out.iter().filter_map(|b| b.crossed_at).filter(|t| *t >= shift).map(|t| business_delay(shift, t)).collect();
+    delays.sort_unstable();
+    (delays, out.iter().filter(|b| b.crossed_at.is_some_and(|t| t < shift)).count())
+}
+
+#[test]
+fn stability_planted_level_shift_is_found_soon_after() {
+    // Brown-Durbin-Evans CUSUM on levels, per quarter, 5% boundary (the defaults).
+    let shift = d(2024, 2, 14);
+    let panel = shifted_panel(shift);
+    let out = analyse(&panel, &[], &[], &[], &StabilitySettings::default()).unwrap();
+    let (delays, early) = crossing_delays(&out.series.breaks, shift);
+    let found = delays.len();
+    let median = delays.get(found / 2).copied().unwrap_or(usize::MAX);
+    let p90 = delays.get(found * 9 / 10).copied().unwrap_or(usize::MAX);
+    println!("planted 3-sd shift, levels: found {found}/100 (before the shift: {early}); delay in business days: median {median}, 90% {p90}, max {:?}", delays.last());
+    // Measured with this seed: 100/100 found, none early, median 12, 90% 18, max 21 business
+    // days. The bounds leave a little room around those figures.
+    assert!(found >= 95, "found {found}");
+    assert!(early <= 3, "early crossings {early}");
+    assert!(median <= 15 && p90 <= 22, "median {median}, p90 {p90}");
+    // Every crossing is a flag on the same entity and date.
+    let flagged = out.flags.iter().filter(|f| f.rule == "cusum_break").count();
+    assert_eq!(flagged, found + early);
+    // The same test on daily changes sees the shift only as one spike: it finds far fewer
+    // (the reason levels are the default target).
+    let on_changes = StabilitySettings { cusum_target: CusumTarget::DailyChanges, ..StabilitySettings::default() };
+    let out = analyse_series(&panel, &[], &[], &on_changes).unwrap();
+    let (changes_found, _) = crossing_delays(&out.breaks, shift);
+    println!("planted 3-sd shift, daily changes: found {}/100", changes_found.len());
+    assert!(changes_found.len() < found / 2, "daily changes found {}", changes_found.len());
+}
+
+fn false_alarm_rate(days: &[NaiveDate], scope: CusumScope, seed: u64, series: usize) -> (f64, usize) {
+    let mut rng = SplitMix(seed);
+    let mut all = Vec::new();
+    for i in 0..series {
+        all.extend(noisy(&mut rng, days, 0.02, 0.05, "pd_1y", &format!("Calmco {i:03}")));
+    }
+    let settings = StabilitySettings { cusum_scope: scope, ..StabilitySettings::default() };
+    let out = analyse_series(&all, &[], &[], &settings).unwrap();
+    let tested = out.breaks.iter().filter(|b| b.sigma.is_some()).count();
+    let crossed = out.breaks.iter().filter(|b| b.crossed_at.is_some()).count();
+    (crossed as f64 / tested as f64, tested)
+}
+
+#[test]
+fn stability_cusum_false_alarm_rate_near_nominal() {
+    // 500 invented entities without a break; nominal size 5% (a = 0.948, Brown, Durbin and
+    // Evans 1975, recalled from memory). The boundary is an asymptotic approximation, so the
+    // finite-sample rate sits somewhat below 5%.
+    let quarter = business_days(d(2024, 1, 2), d(2024, 3, 29));
+    let year = business_days(d(2024, 1, 2), d(2024, 12, 31));
+    let (rq, nq) = false_alarm_rate(&quarter, CusumScope::Period, 7, 500);
+    let (ry, ny) = false_alarm_rate(&year, CusumScope::History, 11, 500);
+    println!("false-alarm rate, no break: quarter windows (T = {}) {:.1}% of {nq}; one-year windows (T = {}) {:.1}% of {ny}", quarter.len(), rq * 100.0, year.len(), ry * 100.0);
+    // Binomial sd of a 5% rate over 500 series is about 1%; the band allows the known
+    // conservatism of the boundary and three sd either way.
+    for r in [rq, ry] {
+        assert!((0.015..=0.08).contains(&r), "rate {r}");
+    }
+}
+
+/// Ten invented entities whose 2024Q1 and 2024Q2 pd_1y means fall 4/3/2/1 and then 2/3/3/2 in
+/// the buckets (-inf, 1%], (1%, 2%], (2%, 5%], (5%, inf): the hand-worked PSI of the psi unit
+/// test, 0.248491, now through the panel path.
+fn psi_panel() -> Vec<Observation> {
+    let q1 = [0.005, 0.006, 0.007, 0.008, 0.015, 0.016, 0.017, 0.03, 0.04, 0.08];
+    let q2 = [0.004, 0.009, 0.012, 0.015, 0.018, 0.03, 0.035, 0.045, 0.06, 0.07];
+    let mut out = Vec::new();
+    for (i, (a, b)) in q1.iter().zip(q2).enumerate() {
+        let e = format!("Psico {i}");
+        for t in business_days(d(2024, 3, 25), d(2024, 3, 29)) {
+            out.push(obs("pd_1y", &e, 2, t, *a));
+        }
+        for t in business_days(d(2024, 4, 1), d(2024, 4, 5)) {
+            out.push(obs("pd_1y", &e, 2, t, b));
+        }
+    }
+    out
+}
+
+#[test]
+fn stability_psi_through_the_panel() {
+    let settings = StabilitySettings { psi_edges: PsiEdges::Given(vec![0.01, 0.02, 0.05]), ..StabilitySettings::default() };
+    let out = analyse(&psi_panel(), &[], &[], &[], &settings).unwrap();
+    let row = out.series.psi.iter().find(|r| r.period == "2024Q2").expect("a PSI row for 2024Q2");
+    assert_eq!((row.previous_period.as_str(), row.n_previous, row.n_current), ("2024Q1", 10, 10));
+    assert!((row.psi.unwrap() - 0.248491).abs() < 1e-6);
+    let f = out.flags.iter().find(|f| f.rule == "psi_shift").expect("a PSI flag");
+    assert_eq!((f.severity.as_str(), f.threshold, f.period.as_str()), ("amber", 0.10, "2024Q2"));
+}
+
+/// A panel that breaks every rule at least once.
+fn breach_panel() -> (Vec<Observation>, Vec<MarketMove>, Vec<CalibrationCounts>, Vec<ResidualObservation>) {
+    let mut rng = SplitMix(99);
+    let q1 = business_days(d(2024, 1, 2), d(2024, 3, 29));
+    let q2 = business_days(d(2024, 4, 1), d(2024, 6, 28));
+    let both: Vec<NaiveDate> = q1.iter().chain(&q2).copied().collect();
+    let mut obs_all = psi_panel();
+    for i in 0..12 {
+        let e = format!("Steady {i:02}");
+        obs_all.extend(noisy(&mut rng, &both, 0.01, 0.01, "hazard_5y", &e));
+    }
+    // Jumpy kappa: alternating 1.0 and 2.0 (100% moves), while its spreads barely move.
+    for (j, t) in both.iter().enumerate() {
+        obs_all.push(obs("cir_kappa", "Wobble", 4, *t, if j % 2 == 0 { 1.0 } else { 2.0 }));
+    }
+    // A level that doubles from Q1 to Q2 and breaks within Q2.
+    for t in &q2 {
+        let v = if *t < d(2024, 5, 15) { 0.01 } else { 0.03 };
+        obs_all.push(obs("hazard_5y", "Stepper", 5, *t, v * (1.0 + 0.02 * rng.normal())));
+    }
+    for t in &q1 {
+        obs_all.push(obs("hazard_5y", "Stepper", 5, *t, 0.01 * (1.0 + 0.02 * rng.normal())));
+    }
+    let market: Vec<MarketMove> = both.iter().map(|t| MarketMove { entity: "Wobble".into(), date: *t, mean_abs_change_bp: 0.1, mean_level_bp: 150.0 }).collect();
+    let counts = vec![
+        CalibrationCounts { entity: "Wobble".into(), date: d(2024, 2, 1), failures: 2, infeasible: 0 },
+        CalibrationCounts { entity: "Gapco".into(), date: d(2024, 2, 2), failures: 0, infeasible: 1 },
+    ];
+    let res = vec![ResidualObservation {
+        date: d(2024, 2, 1),
+        entity: "Wobble".into(),
+        method: "bootstrap".into(),
+        instrument: "cds_par_spread".into(),
+        tenor: "5Y".into(),
+        market: 150.0,
+        model: 150.01,
+        residual_bp: 0.01,
+        converged: true,
+    }];
+    (obs_all, market, counts, res)
+}
+
+#[test]
+fn stability_every_flag_points_at_output_rows() {
+    let (o, m, c, r) = breach_panel();
+    let settings = StabilitySettings { psi_edges: PsiEdges::Given(vec![0.01, 0.02, 0.05]), move_thresholds: vec![("cir_kappa".into(), MoveThreshold::Relative(0.25))], ..StabilitySettings::default() };
+    let out = analyse(&o, &m, &c, &r, &settings).unwrap();
+    let rules: std::collections::BTreeSet<&str> = out.flags.iter().map(|f| f.rule.as_str()).collect();
+    println!("{} flags; rules: {rules:?}", out.flags.len());
+    for want in ["psi_shift", "cusum_break", "cv_high", "large_moves", "moves_vs_market", "period_change_mean", "period_change_median", "calibration_failures", "calibration_infeasible", "residual_over_tolerance"] {
+        assert!(rules.contains(want), "no {want} flag in {rules:?}");
+    }
+    for f in &out.flags {
+        assert!(out.flag_has_target(f), "flag without a target row: {f:?}");
+        assert!(f.explanation.ends_with('.') && f.explanation.len() > 40, "{}", f.explanation);
+        assert!(f.value.is_finite() && f.threshold.is_finite(), "{f:?}");
+    }
+    // The target check itself can fail: a flag on a period with no data has no target.
+    let mut stray = out.flags[0].clone();
+    stray.period = "1999Q1".into();
+    assert!(!out.flag_has_target(&stray));
+}
