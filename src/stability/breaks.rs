@@ -114,6 +114,9 @@ fn test_window(entity: &str, series: &str, window: String, data: &[(NaiveDate, f
 pub(crate) fn break_rows(panel: &Panel, settings: &StabilitySettings) -> Vec<BreakRow> {
     let mut out = Vec::new();
     for ((series, entity), points) in panel {
+        if !settings.cusum_series.is_empty() && !settings.cusum_series.contains(series) {
+            continue;
+        }
         for (window, data) in windows(series_of(points, settings), settings) {
             out.push(test_window(entity, series, window, &data, settings));
         }

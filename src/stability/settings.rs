@@ -88,6 +88,12 @@ pub struct StabilitySettings {
     pub psi_amber: f64,
     /// PSI over this is a red flag. Default 0.25 (common practice, no single source).
     pub psi_red: f64,
+    /// Series the CUSUM test runs on (empty: every series). Default: the CIR parameters
+    /// kappa, theta and sigma, which the model holds constant, so a level shift is a break.
+    /// Market-driven series (implied PD, hazards, lambda0) are persistent, close to a random
+    /// walk over a quarter: the constant-mean test on their levels would reject for nearly
+    /// every name, which says nothing about the model.
+    pub cusum_series: Vec<String>,
     /// What the CUSUM test runs on. Default: levels (see [`CusumTarget`] for why).
     pub cusum_target: CusumTarget,
     /// The window of one CUSUM test. Default: each review period.
@@ -128,6 +134,7 @@ impl Default for StabilitySettings {
             psi_min_entities: 10,
             psi_amber: 0.10,
             psi_red: 0.25,
+            cusum_series: vec!["cir_kappa".to_string(), "cir_theta".to_string(), "cir_sigma".to_string()],
             cusum_target: CusumTarget::Levels,
             cusum_scope: CusumScope::Period,
             cusum_level: CusumLevel::Five,
@@ -176,6 +183,7 @@ impl StabilitySettings {
         }
         out.push(("psi_min_entities".into(), self.psi_min_entities.to_string()));
         out.push(("cusum_test".into(), "Brown-Durbin-Evans recursive-residual CUSUM, constant-mean model".into()));
+        out.push(("cusum_series".into(), if self.cusum_series.is_empty() { "all".into() } else { self.cusum_series.join(",") }));
         out.push(("cusum_target".into(), self.cusum_target.as_str().into()));
         out.push(("cusum_scope".into(), self.cusum_scope.as_str().into()));
         out.push(("cusum_level".into(), format!("{} (a = {})", self.cusum_level.as_str(), self.cusum_level.a())));

@@ -56,7 +56,7 @@ fn business_delay(from: NaiveDate, to: NaiveDate) -> usize {
     business_days(from, to).len().saturating_sub(1)
 }
 
-/// 100 invented entities, pd_1y iid around 2% with a 5% relative sd (0.1% absolute) through
+/// 100 invented entities, cir_theta (a parameter the model holds constant) iid around 2% with a 5% relative sd (0.1% absolute) through
 /// 2024Q1; from 2024-02-14 (business day 31 of 64) the level is 3 sd (0.3%) higher.
 fn shifted_panel(shift: NaiveDate) -> Vec<Observation> {
     let days = business_days(d(2024, 1, 2), d(2024, 3, 29));
@@ -64,7 +64,7 @@ fn shifted_panel(shift: NaiveDate) -> Vec<Observation> {
     let mut all = Vec::new();
     for i in 0..100 {
         let entity = format!("Shiftco {i:03}");
-        for o in noisy(&mut rng, &days, 0.02, 0.05, "pd_1y", &entity) {
+        for o in noisy(&mut rng, &days, 0.02, 0.05, "cir_theta", &entity) {
             let bump = if o.date >= shift { 0.003 } else { 0.0 };
             all.push(Observation { value: o.value + bump, ..o });
         }
@@ -111,7 +111,7 @@ fn false_alarm_rate(days: &[NaiveDate], scope: CusumScope, seed: u64, series: us
     let mut rng = SplitMix(seed);
     let mut all = Vec::new();
     for i in 0..series {
-        all.extend(noisy(&mut rng, days, 0.02, 0.05, "pd_1y", &format!("Calmco {i:03}")));
+        all.extend(noisy(&mut rng, days, 0.02, 0.05, "cir_theta", &format!("Calmco {i:03}")));
     }
     let settings = StabilitySettings { cusum_scope: scope, ..StabilitySettings::default() };
     let out = analyse_series(&all, &[], &[], &settings).unwrap();
@@ -212,7 +212,7 @@ fn breach_panel() -> (Vec<Observation>, Vec<MarketMove>, Vec<CalibrationCounts>,
 #[test]
 fn stability_every_flag_points_at_output_rows() {
     let (o, m, c, r) = breach_panel();
-    let settings = StabilitySettings { psi_edges: PsiEdges::Given(vec![0.01, 0.02, 0.05]), move_thresholds: vec![("cir_kappa".into(), MoveThreshold::Relative(0.25))], ..StabilitySettings::default() };
+    let settings = StabilitySettings { psi_edges: PsiEdges::Given(vec![0.01, 0.02, 0.05]), move_thresholds: vec![("cir_kappa".into(), MoveThreshold::Relative(0.25))], cusum_series: Vec::new(), ..StabilitySettings::default() };
     let out = analyse(&o, &m, &c, &r, &settings).unwrap();
     let rules: std::collections::BTreeSet<&str> = out.flags.iter().map(|f| f.rule.as_str()).collect();
     println!("{} flags; rules: {rules:?}", out.flags.len());
