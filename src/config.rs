@@ -34,7 +34,41 @@ pub struct PipelineFile {
     #[serde(default)]
     pub quality: QualitySection,
     #[serde(default)]
+    pub stability: StabilitySection,
+    #[serde(default)]
     pub report: ReportSection,
+}
+
+/// `[stability]`: the parameter-stability and residual review (defaults on each field of
+/// [`crate::stability::StabilitySettings`]).
+#[derive(Debug, Clone, Deserialize, Serialize, Default)]
+#[serde(deny_unknown_fields)]
+pub struct StabilitySection {
+    /// `month`, `quarter` (default), `half_year` or `year`.
+    pub period: Option<String>,
+    /// A daily move is large above this fraction of the previous value. Default 0.10.
+    pub move_threshold: Option<f64>,
+    /// Per-series large-move thresholds (fractions), e.g. `{ cir_kappa = 0.25 }`.
+    pub move_thresholds: Option<BTreeMap<String, f64>>,
+    pub large_move_share_max: Option<f64>,
+    pub cv_max: Option<f64>,
+    pub change_max: Option<f64>,
+    pub market_ratio_max: Option<f64>,
+    pub param_move_min: Option<f64>,
+    /// PSI bucket edges of the implied PD (decimals). Default: the earlier period's deciles.
+    pub psi_edges: Option<Vec<f64>>,
+    pub psi_amber: Option<f64>,
+    pub psi_red: Option<f64>,
+    pub psi_min_entities: Option<usize>,
+    /// Series tested for breaks. Default the CIR kappa, theta and sigma.
+    pub cusum_series: Option<Vec<String>>,
+    /// `10%`, `5%` (default) or `1%`.
+    pub cusum_level: Option<String>,
+    pub cusum_min_obs: Option<usize>,
+    /// Residual flag thresholds in bp by method, e.g. `{ cir = 10.0, bond_fit = 10.0 }`.
+    pub residual_flag_bp: Option<BTreeMap<String, f64>>,
+    pub reprice_tolerance_bp: Option<f64>,
+    pub worst_n: Option<usize>,
 }
 
 /// `[inputs]`: where each table is (file, folder or hive-partitioned folder).
@@ -160,6 +194,68 @@ pub struct RunConfig {
     pub charted_entities: Option<Vec<String>>,
     pub term_structure_dates: Option<Vec<NaiveDate>>,
     pub fail_on_red_flags: bool,
+    #[serde(skip)]
+    pub stability: crate::stability::StabilitySettings,
+    /// The stability settings as (name, value) pairs, for the manifest and the method notes.
+    pub stability_settings: Vec<(String, String)>,
+}
+
+fn stability_settings(k: &StabilitySection, path: &Path) -> Result<crate::stability::StabilitySettings> {
+    use crate::stability::{cusum::CusumLevel, psi::PsiEdges, settings::MoveThreshold, ReviewPeriod, StabilitySettings};
+    let mut s = StabilitySettings::default();
+    if let Some(p) = &k.period {
+        s.period = p.parse::<ReviewPeriod>().map_err(|e| bad(path, "stability.period", e))?;
+    }
+    if let Some(v) = k.move_threshold {
+        s.default_move_threshold = MoveThreshold::Relative(v);
+    }
+    if let Some(m) = &k.move_thresholds {
+        s.move_thresholds = m.iter().map(|(k, v)| (k.clone(), MoveThreshold::Relative(*v))).collect();
+    }
+    let set = |slot: &mut f64, v: Option<f64>| {
+        if let Some(v) = v {
+            *slot = v;
+        }
+    };
+    set(&mut s.large_move_share_max, k.large_move_share_max);
+    set(&mut s.cv_max, k.cv_max);
+    set(&mut s.change_max, k.change_max);
+    set(&mut s.market_ratio_max, k.market_ratio_max);
+    set(&mut s.param_move_min, k.param_move_min);
+    set(&mut s.psi_amber, k.psi_amber);
+    set(&mut s.psi_red, k.psi_red);
+    set(&mut s.reprice_tolerance_bp, k.reprice_tolerance_bp);
+    if let Some(e) = &k.psi_edges {
+        if e.windows(2).any(|w| !(w[0] < w[1])) || e.iter().any(|x| !x.is_finite()) {
+            return Err(bad(path, "stability.psi_edges", format!("{e:?} must be finite and strictly increasing")));
+        }
+        s.psi_edges = PsiEdges::Given(e.clone());
+    }
+    if let Some(n) = k.psi_min_entities {
+        s.psi_min_entities = n;
+    }
+    if let Some(c) = &k.cusum_series {
+        s.cusum_series = c.clone();
+    }
+    if let Some(l) = &k.cusum_level {
+        s.cusum_level = match l.trim() {
+            "10%" => CusumLevel::Ten,
+            "5%" => CusumLevel::Five,
+            "1%" => CusumLevel::One,
+            other => return Err(bad(path, "stability.cusum_level", format!("{other:?} is not one of \"10%\", \"5%\", \"1%\""))),
+        };
+    }
+    if let Some(n) = k.cusum_min_obs {
+        s.cusum_min_obs = n.max(3);
+    }
+    if let Some(m) = &k.residual_flag_bp {
+        s.residual_flag_bp = m.iter().map(|(k, v)| (k.clone(), *v)).collect();
+    }
+    if let Some(n) = k.worst_n {
+        s.worst_n = n;
+    }
+    s.check().map_err(|e| bad(path, "stability", e.to_string()))?;
+    Ok(s)
 }
 
 fn ser_quality<S: serde::Serializer>(q: &QualitySettings, s: S) -> std::result::Result<S::Ok, S::Error> {
@@ -344,6 +440,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
             return Err(bad(path, "report.label", format!("{l:?} cannot be a folder name")));
         }
     }
+    let stability = stability_settings(&file.stability, path)?;
     let name = file
         .name
         .clone()
@@ -374,6 +471,8 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         charted_entities: r.charted_entities.clone(),
         term_structure_dates,
         fail_on_red_flags: r.fail_on_red_flags.unwrap_or(false),
+        stability_settings: stability.pairs(),
+        stability,
     })
 }
 

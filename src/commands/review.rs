@@ -1,0 +1,346 @@
+//! The stability stage of a run: turns the calibrated curves, the CIR fits and the residuals
+//! into the plain inputs of [`crate::stability`], and writes its tables.
+
+use crate::commands::calibrate::Calibration;
+use crate::error::Result;
+use crate::ingest::Dataset;
+use crate::instruments::CdsQuote;
+use crate::report::parquet::{write_parquet, TableBuilder};
+use crate::report::tables::IntensityParamRow;
+use crate::stability::{self, CalibrationCounts, FlagRow, MarketMove, Observation, ResidualObservation, StabilityOutput, StabilitySettings};
+use chrono::NaiveDate;
+use std::collections::{BTreeMap, BTreeSet};
+use std::path::Path;
+
+/// Grade as of a date, from the grades table (latest `from_date` on or before it).
+#[derive(Debug, Clone, Default)]
+pub struct GradeBook {
+    by_entity: BTreeMap<String, Vec<(NaiveDate, u32)>>,
+}
+
+impl GradeBook {
+    pub fn new(ds: &Dataset) -> GradeBook {
+        let mut by_entity: BTreeMap<String, Vec<(NaiveDate, u32)>> = BTreeMap::new();
+        if let Some(g) = &ds.grades {
+            for (r, _) in &g.rows {
+                by_entity.entry(r.entity.clone()).or_default().push((r.from_date, r.grade));
+            }
+        }
+        for v in by_entity.values_mut() {
+            v.sort();
+        }
+        GradeBook { by_entity }
+    }
+
+    pub fn grade(&self, entity: &str, date: NaiveDate) -> Option<u32> {
+        let v = self.by_entity.get(entity)?;
+        let i = v.partition_point(|(d, _)| *d <= date);
+        (i > 0).then(|| v[i - 1].1)
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.by_entity.is_empty()
+    }
+}
+
+/// The name a series is kept under: the entity, with its currency when it is quoted in more
+/// than one.
+fn series_names(cal: &Calibration) -> BTreeMap<(String, String), String> {
+    let mut ccys: BTreeMap<&str, BTreeSet<&str>> = BTreeMap::new();
+    for (_, e, c) in cal.cds_curves.keys() {
+        ccys.entry(e.as_str()).or_default().insert(c.as_str());
+    }
+    let mut out = BTreeMap::new();
+    for (e, cs) in ccys {
+        for c in &cs {
+            let name = if cs.len() > 1 { format!("{e}/{c}") } else { e.to_string() };
+            out.insert((e.to_string(), c.to_string()), name);
+        }
+    }
+    out
+}
+
+/// Everything the stability core reads, built from a run's calibration.
+pub struct StabilityInputs {
+    pub observations: Vec<Observation>,
+    pub market: Vec<MarketMove>,
+    pub counts: Vec<CalibrationCounts>,
+    pub residuals: Vec<ResidualObservation>,
+}
+
+/// Builds the series: per curve the 1Y implied PD, the 5Y hazard and each node's hazard; per
+/// CIR fit its four parameters; per entity and date the mean absolute daily change of its par
+/// spreads; per curve the failures and infeasible nodes; every repricing residual.
+pub fn stability_inputs(cal: &Calibration, params: &[IntensityParamRow], grades: &GradeBook) -> StabilityInputs {
+    let names = series_names(cal);
+    let name_of = |e: &str, c: &str| names.get(&(e.to_string(), c.to_string())).cloned().unwrap_or_else(|| e.to_string());
+    let mut observations = Vec::new();
+    let mut market = Vec::new();
+    let mut last_spreads: BTreeMap<String, BTreeMap<u32, f64>> = BTreeMap::new();
+    for ((date, e, c), curve) in &cal.cds_curves {
+        let entity = name_of(e, c);
+        let grade = grades.grade(e, *date);
+        if let Some(h) = &curve.curve {
+            let mut push = |series: String, value: f64| {
+                if value.is_finite() {
+                    observations.push(Observation { series, entity: entity.clone(), grade, date: *date, value });
+                }
+            };
+            push("pd_1y".into(), 1.0 - h.survival_at(1.0));
+            push("hazard_5y".into(), h.hazard_at(5.0));
+            if h.hazards().len() == curve.quotes.len() {
+                for (q, &x) in curve.quotes.iter().zip(h.hazards()) {
+                    push(format!("hazard_node_{}", q.tenor), x);
+                }
+            }
+        }
+        let spreads: BTreeMap<u32, f64> = curve
+            .quotes
+            .iter()
+            .filter_map(|q| match q.quote {
+                CdsQuote::ParSpread(s) => Some((q.tenor.months(), s * 1e4)),
+                CdsQuote::Upfront { .. } => None,
+            })
+            .collect();
+        if let Some(prev) = last_spreads.get(&entity) {
+            let changes: Vec<f64> = spreads.iter().filter_map(|(t, s)| prev.get(t).map(|p| (s - p).abs())).collect();
+            if !changes.is_empty() {
+                let level = spreads.values().sum::<f64>() / spreads.len() as f64;
+                market.push(MarketMove { entity: entity.clone(), date: *date, mean_abs_change_bp: changes.iter().sum::<f64>() / changes.len() as f64, mean_level_bp: level });
+            }
+        }
+        last_spreads.insert(entity, spreads);
+    }
+    let currencies: BTreeMap<(NaiveDate, String), String> = cal.cds_curves.keys().map(|(d, e, c)| ((*d, e.clone()), c.clone())).collect();
+    for p in params {
+        let entity = name_of(&p.entity, &p.currency);
+        let grade = grades.grade(&p.entity, p.date);
+        for (series, v) in [("cir_kappa", p.kappa), ("cir_theta", p.theta), ("cir_sigma", p.sigma), ("cir_lambda0", p.lambda0)] {
+            if let Some(v) = v.filter(|v| v.is_finite()) {
+                observations.push(Observation { series: series.into(), entity: entity.clone(), grade, date: p.date, value: v });
+            }
+        }
+    }
+    // Failures and infeasible nodes per CDS curve, from the node statuses.
+    let mut counts_map: BTreeMap<(String, NaiveDate), (u64, u64)> = BTreeMap::new();
+    for r in cal.hazard.iter().filter(|r| r.source == "cds") {
+        let entity = name_of(&r.entity, &r.currency);
+        let slot = counts_map.entry((entity, r.date)).or_insert((0, 0));
+        match r.status {
+            "ok" => {}
+            "floored" | "infeasible" => slot.1 += 1,
+            _ => slot.0 = 1,
+        }
+    }
+    let counts = counts_map.into_iter().map(|((entity, date), (failures, infeasible))| CalibrationCounts { entity, date, failures, infeasible }).collect();
+    let residuals = cal
+        .residuals
+        .iter()
+        .map(|r| {
+            let entity = if currencies.get(&(r.date, r.entity.clone())).is_some() { name_of(&r.entity, &r.currency) } else { r.entity.clone() };
+            ResidualObservation {
+                date: r.date,
+                entity,
+                method: r.method.to_string(),
+                instrument: r.instrument.to_string(),
+                tenor: r.tenor_or_bond.clone(),
+                market: r.market,
+                model: r.model,
+                residual_bp: r.residual_bp,
+                converged: r.status == "ok",
+            }
+        })
+        .collect();
+    StabilityInputs { observations, market, counts, residuals }
+}
+
+/// Runs the stability core.
+pub fn run_stability(inputs: &StabilityInputs, settings: &StabilitySettings) -> Result<StabilityOutput> {
+    stability::analyse(&inputs.observations, &inputs.market, &inputs.counts, &inputs.residuals, settings).map_err(|e| crate::error::Error::Other(format!("stability stage: {e}")))
+}
+
+/// Writes `stability`, `stability_bands`, `stability_psi`, `stability_breaks`,
+/// `residual_curves`, `residual_tenors`, `residual_worst` and `residual_repricing`.
+pub fn write_stability_tables(out: &StabilityOutput, tables: &Path, meta: &[(String, String)]) -> Result<()> {
+    let rows = &out.series.rows;
+    let u = |v: Option<usize>| v.map(|x| x as i64);
+    let mut df = TableBuilder::new()
+        .strings("period", rows.iter().map(|r| Some(&r.period)))
+        .strings("series", rows.iter().map(|r| Some(&r.series)))
+        .strings("scope", rows.iter().map(|r| Some(r.scope.as_str())))
+        .strings("key", rows.iter().map(|r| Some(&r.key)))
+        .ints("n", rows.iter().map(|r| Some(r.n as i64)))
+        .floats("mean", rows.iter().map(|r| r.mean))
+        .floats("sd", rows.iter().map(|r| r.sd))
+        .floats("cv", rows.iter().map(|r| r.cv))
+        .floats("median", rows.iter().map(|r| r.median))
+        .floats("p10", rows.iter().map(|r| r.p10))
+        .floats("p90", rows.iter().map(|r| r.p90))
+        .ints("moves", rows.iter().map(|r| u(r.moves)))
+        .floats("max_abs_move", rows.iter().map(|r| r.max_abs_move))
+        .dates("max_move_date", rows.iter().map(|r| r.max_move_date))
+        .floats("large_move_share", rows.iter().map(|r| r.large_move_share))
+        .floats("param_rel_move", rows.iter().map(|r| r.param_rel_move))
+        .floats("market_rel_move", rows.iter().map(|r| r.market_rel_move))
+        .floats("move_ratio", rows.iter().map(|r| r.move_ratio))
+        .ints("failures", rows.iter().map(|r| r.failures.map(|x| x as i64)))
+        .ints("infeasible", rows.iter().map(|r| r.infeasible.map(|x| x as i64)))
+        .floats("mean_change", rows.iter().map(|r| r.mean_change))
+        .floats("median_change", rows.iter().map(|r| r.median_change))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("stability.parquet"), meta)?;
+
+    let b = &out.series.cross_section;
+    let mut df = TableBuilder::new()
+        .dates("date", b.iter().map(|r| Some(r.date)))
+        .strings("period", b.iter().map(|r| Some(&r.period)))
+        .strings("series", b.iter().map(|r| Some(&r.series)))
+        .strings("scope", b.iter().map(|r| Some(r.scope.as_str())))
+        .strings("key", b.iter().map(|r| Some(&r.key)))
+        .ints("n", b.iter().map(|r| Some(r.n as i64)))
+        .floats("p10", b.iter().map(|r| Some(r.p10)))
+        .floats("p50", b.iter().map(|r| Some(r.p50)))
+        .floats("p90", b.iter().map(|r| Some(r.p90)))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("stability_bands.parquet"), meta)?;
+
+    let p = &out.series.psi;
+    let mut df = TableBuilder::new()
+        .strings("series", p.iter().map(|r| Some(&r.series)))
+        .strings("period", p.iter().map(|r| Some(&r.period)))
+        .strings("previous_period", p.iter().map(|r| Some(&r.previous_period)))
+        .ints("n_previous", p.iter().map(|r| Some(r.n_previous as i64)))
+        .ints("n_current", p.iter().map(|r| Some(r.n_current as i64)))
+        .floats("psi", p.iter().map(|r| r.psi))
+        .ints("buckets", p.iter().map(|r| Some(r.buckets.len() as i64)))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("stability_psi.parquet"), meta)?;
+
+    let k = &out.series.breaks;
+    let mut df = TableBuilder::new()
+        .strings("entity", k.iter().map(|r| Some(&r.entity)))
+        .strings("series", k.iter().map(|r| Some(&r.series)))
+        .strings("window", k.iter().map(|r| Some(&r.window)))
+        .strings("target", k.iter().map(|r| Some(r.target)))
+        .ints("n", k.iter().map(|r| Some(r.n as i64)))
+        .strings("status", k.iter().map(|r| Some(r.status.as_str())))
+        .floats("sigma", k.iter().map(|r| r.sigma))
+        .floats("max_ratio", k.iter().map(|r| r.max_ratio))
+        .dates("crossed_at", k.iter().map(|r| r.crossed_at))
+        .dates("crossed_at_1pct", k.iter().map(|r| r.crossed_at_1pct))
+        .floats("ols_statistic", k.iter().map(|r| r.ols_statistic))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("stability_breaks.parquet"), meta)?;
+
+    let c = &out.residuals.curves;
+    let mut df = TableBuilder::new()
+        .dates("date", c.iter().map(|r| Some(r.date)))
+        .strings("entity", c.iter().map(|r| Some(&r.entity)))
+        .strings("method", c.iter().map(|r| Some(&r.method)))
+        .ints("n", c.iter().map(|r| Some(r.n as i64)))
+        .floats("rmse_bp", c.iter().map(|r| Some(r.rmse_bp)))
+        .floats("max_abs_bp", c.iter().map(|r| Some(r.max_abs_bp)))
+        .strings("worst_tenor", c.iter().map(|r| Some(&r.worst_tenor)))
+        .bools("converged", c.iter().map(|r| Some(r.converged)))
+        .bools("reprices", c.iter().map(|r| Some(r.reprices)))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("residual_curves.parquet"), meta)?;
+
+    let t = &out.residuals.tenors;
+    let mut df = TableBuilder::new()
+        .strings("method", t.iter().map(|r| Some(&r.method)))
+        .strings("tenor", t.iter().map(|r| Some(&r.tenor)))
+        .ints("n", t.iter().map(|r| Some(r.n as i64)))
+        .floats("q01", t.iter().map(|r| Some(r.q01)))
+        .floats("q05", t.iter().map(|r| Some(r.q05)))
+        .floats("q50", t.iter().map(|r| Some(r.q50)))
+        .floats("q95", t.iter().map(|r| Some(r.q95)))
+        .floats("q99", t.iter().map(|r| Some(r.q99)))
+        .floats("abs_q01", t.iter().map(|r| Some(r.abs_q01)))
+        .floats("abs_q05", t.iter().map(|r| Some(r.abs_q05)))
+        .floats("abs_q50", t.iter().map(|r| Some(r.abs_q50)))
+        .floats("abs_q95", t.iter().map(|r| Some(r.abs_q95)))
+        .floats("abs_q99", t.iter().map(|r| Some(r.abs_q99)))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("residual_tenors.parquet"), meta)?;
+
+    let w = &out.residuals.worst;
+    let mut df = TableBuilder::new()
+        .ints("rank", w.iter().map(|r| Some(r.rank as i64)))
+        .dates("date", w.iter().map(|r| Some(r.residual.date)))
+        .strings("entity", w.iter().map(|r| Some(&r.residual.entity)))
+        .strings("method", w.iter().map(|r| Some(&r.residual.method)))
+        .strings("instrument", w.iter().map(|r| Some(&r.residual.instrument)))
+        .strings("tenor_or_bond", w.iter().map(|r| Some(&r.residual.tenor)))
+        .floats("market", w.iter().map(|r| Some(r.residual.market)))
+        .floats("model", w.iter().map(|r| Some(r.residual.model)))
+        .floats("residual_bp", w.iter().map(|r| Some(r.residual.residual_bp)))
+        .bools("converged", w.iter().map(|r| Some(r.residual.converged)))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("residual_worst.parquet"), meta)?;
+
+    let s = &out.residuals.repricing;
+    let mut df = TableBuilder::new()
+        .strings("method", s.iter().map(|r| Some(&r.method)))
+        .ints("curves", s.iter().map(|r| Some(r.curves as i64)))
+        .ints("repricing", s.iter().map(|r| Some(r.repricing as i64)))
+        .floats("share", s.iter().map(|r| Some(r.share)))
+        .floats("tolerance_bp", s.iter().map(|r| Some(r.tolerance_bp)))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("residual_repricing.parquet"), meta)
+}
+
+/// A flag of any stage, in the shape of the `flags` table.
+#[derive(Debug, Clone, PartialEq)]
+pub struct AnyFlag {
+    pub stage: &'static str,
+    pub flag: FlagRow,
+    pub table: Option<String>,
+    pub source: Option<String>,
+    pub row: Option<u64>,
+}
+
+/// Writes the `flags` table: data-quality flags (with their source file and row) and the
+/// review stages' flags, red first within each stage.
+pub fn write_flags(flags: &[AnyFlag], path: &Path, meta: &[(String, String)]) -> Result<()> {
+    let mut df = TableBuilder::new()
+        .strings("rule", flags.iter().map(|r| Some(&r.flag.rule)))
+        .strings("severity", flags.iter().map(|r| Some(&r.flag.severity)))
+        .strings("entity", flags.iter().map(|r| r.flag.entity.as_ref()))
+        .strings("series", flags.iter().map(|r| Some(&r.flag.series)))
+        .strings("period", flags.iter().map(|r| Some(&r.flag.period)))
+        .dates("date", flags.iter().map(|r| r.flag.date))
+        .floats("value", flags.iter().map(|r| Some(r.flag.value)))
+        .floats("threshold", flags.iter().map(|r| Some(r.flag.threshold)))
+        .strings("explanation", flags.iter().map(|r| Some(&r.flag.explanation)))
+        .strings("stage", flags.iter().map(|r| Some(r.stage)))
+        .strings("table", flags.iter().map(|r| r.table.as_ref()))
+        .strings("source", flags.iter().map(|r| r.source.as_ref()))
+        .ints("row", flags.iter().map(|r| r.row.map(|x| x as i64)))
+        .finish()?;
+    write_parquet(&mut df, path, meta)
+}
+
+/// The data-quality flags in the common shape.
+pub fn quality_flags(ds: &Dataset) -> Vec<AnyFlag> {
+    ds.flags
+        .iter()
+        .map(|f| AnyFlag {
+            stage: "data_quality",
+            flag: FlagRow {
+                rule: f.rule.to_string(),
+                severity: f.severity.to_string(),
+                entity: Some(f.entity.clone()),
+                series: f.series.clone(),
+                period: f.date.to_string(),
+                date: Some(f.date),
+                value: f.value,
+                threshold: f.threshold,
+                explanation: f.explanation.clone(),
+            },
+            table: Some(f.table.to_string()),
+            source: Some(f.source.clone()),
+            row: Some(f.row),
+        })
+        .collect()
+}
