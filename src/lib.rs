@@ -16,4 +16,5 @@ pub mod math;
 pub mod models;
 pub mod pipeline;
 pub mod report;
+pub mod stats;
 pub mod time;

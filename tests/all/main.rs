@@ -6,6 +6,7 @@ mod pipeline;
 mod properties;
 mod quality;
 mod reference_quantlib;
+mod stats_reference;
 mod support;
 mod bonds;
 mod cir;
