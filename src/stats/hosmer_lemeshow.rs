@@ -45,3 +45,29 @@ pub fn hosmer_lemeshow(buckets: &[BucketForecast]) -> Result<HosmerLemeshow, Sta
     let p_value = chi_square_upper_tail(statistic, dof as f64)?;
     Ok(HosmerLemeshow { statistic, dof, p_value })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// One bucket with 2 defaults where 1 was expected (n = 100, p = 0.01):
+    /// (2 - 1)^2 / (1 x 0.99), chi-square 1 dof.
+    #[test]
+    fn one_bucket_by_hand() {
+        let hl = hosmer_lemeshow(&[BucketForecast { n: 100, d: 2, p: 0.01 }]).unwrap();
+        assert!((hl.statistic - 1.0 / 0.99).abs() < 1e-14);
+        assert_eq!(hl.dof, 1);
+        assert!(hl.p_value > 0.3 && hl.p_value < 0.33, "{}", hl.p_value);
+    }
+
+    #[test]
+    fn invalid_buckets_are_errors() {
+        assert_eq!(hosmer_lemeshow(&[]), Err(StatsError::NoBuckets));
+        assert_eq!(hosmer_lemeshow(&[BucketForecast { n: 10, d: 0, p: 0.0 }]), Err(StatsError::DegenerateForecast { index: 0, p: 0.0 }));
+        assert!(matches!(
+            hosmer_lemeshow(&[BucketForecast { n: 10, d: 1, p: 0.1 }, BucketForecast { n: 0, d: 0, p: 0.1 }]),
+            Err(StatsError::Bucket { index: 1, .. })
+        ));
+        assert!(hosmer_lemeshow(&[BucketForecast { n: 10, d: 1, p: f64::NAN }]).is_err());
+    }
+}

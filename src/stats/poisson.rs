@@ -19,3 +19,25 @@ pub fn garwood_interval(d: u64, exposure: f64, level: f64) -> Result<Interval, S
     let hi = gamma_quantile(df + 1.0, 1.0 - ha)? / exposure;
     Ok(Interval { lo, hi })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// d = 0: hi solves exp(-lambda E) = alpha / 2, so hi = -ln(alpha/2) / E (closed form).
+    #[test]
+    fn zero_events_closed_form() {
+        let g = garwood_interval(0, 200.0, 0.95).unwrap();
+        assert_eq!(g.lo, 0.0);
+        assert!((g.hi - (-(0.025f64).ln() / 200.0)).abs() < 1e-12 * g.hi);
+    }
+
+    #[test]
+    fn invalid_inputs_are_errors() {
+        assert_eq!(garwood_interval(1, 0.0, 0.95), Err(StatsError::BadExposure(0.0)));
+        assert!(garwood_interval(1, -1.0, 0.95).is_err());
+        assert!(garwood_interval(1, f64::INFINITY, 0.95).is_err());
+        assert!(garwood_interval(1, f64::NAN, 0.95).is_err());
+        assert!(garwood_interval(1, 1.0, 1.5).is_err());
+    }
+}

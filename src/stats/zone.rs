@@ -64,3 +64,29 @@ pub fn traffic_light(p_value: f64, thresholds: &ZoneThresholds) -> Result<Zone, 
         Zone::Green
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn zones_at_and_around_thresholds() {
+        let t = ZoneThresholds::default();
+        assert_eq!(traffic_light(0.5, &t).unwrap(), Zone::Green);
+        assert_eq!(traffic_light(0.05, &t).unwrap(), Zone::Green);
+        assert_eq!(traffic_light(0.0499, &t).unwrap(), Zone::Yellow);
+        assert_eq!(traffic_light(0.001, &t).unwrap(), Zone::Yellow);
+        assert_eq!(traffic_light(1e-80, &t).unwrap(), Zone::Red);
+        let strict = ZoneThresholds::new(0.1, 0.01).unwrap();
+        assert_eq!(traffic_light(0.05, &strict).unwrap(), Zone::Yellow);
+    }
+
+    #[test]
+    fn bad_thresholds_and_p_values_are_errors() {
+        assert!(ZoneThresholds::new(0.01, 0.05).is_err());
+        assert!(ZoneThresholds::new(0.05, 0.0).is_err());
+        assert!(traffic_light(0.5, &ZoneThresholds { yellow: 0.01, red: 0.1 }).is_err());
+        assert!(traffic_light(f64::NAN, &ZoneThresholds::default()).is_err());
+        assert!(traffic_light(1.5, &ZoneThresholds::default()).is_err());
+    }
+}
