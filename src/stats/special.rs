@@ -316,7 +316,7 @@ mod tests {
     /// Closed forms: I_x(1, b) = 1 - (1 - x)^b and I_x(a, 1) = x^a (Abramowitz and Stegun 26.5).
     #[test]
     fn beta_reg_closed_forms() {
-        for &x in &[1e-9, 1e-4, 0.01, 0.3, 0.5, 0.9, 0.999] {
+        for &x in &[1e-9f64, 1e-4, 0.01, 0.3, 0.5, 0.9, 0.999] {
             for &k in &[0.5, 1.0, 3.0, 40.0, 2500.0] {
                 let want_a1 = -((k * (-x).ln_1p()).exp_m1());
                 // 1e-12: near the split point x = (a + 1) / (a + b + 2) the continued fraction
