@@ -5,6 +5,7 @@
 //! loops. Tables and file formats live at the edges ([`ingest`], [`report`]), and
 //! [`commands`] wires stages for the command line.
 
+pub mod backtest;
 pub mod calibrate;
 pub mod commands;
 pub mod config;
