@@ -5,6 +5,7 @@
 //! loops. Tables and file formats live at the edges ([`ingest`], [`report`]), and
 //! [`commands`] wires stages for the command line.
 
+pub mod backtest;
 pub mod calibrate;
 pub mod commands;
 pub mod config;
@@ -18,4 +19,5 @@ pub mod pipeline;
 pub mod report;
 pub mod sim;
 pub mod stability;
+pub mod stats;
 pub mod time;

@@ -6,3 +6,4 @@ pub mod check;
 pub mod compare;
 pub mod demo;
 pub mod intensity;
+pub mod review;

@@ -7,6 +7,7 @@ mod properties;
 mod quality;
 mod reference_quantlib;
 mod stability;
+mod stats_reference;
 mod support;
 mod bonds;
 mod cir;

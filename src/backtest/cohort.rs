@@ -1,0 +1,169 @@
+//! Cohort membership and one observation per (cohort date, member, horizon).
+
+use super::{BacktestError, BacktestSettings, Bucketing, CensoringPolicy, CurveSet, EntityFacts};
+use crate::curves::year_time;
+use chrono::{Datelike, Months, NaiveDate};
+
+/// What happened to a member over (t, t + h].
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Outcome {
+    Defaulted,
+    Survived,
+    /// The data ended before t + h without a default.
+    Censored,
+}
+
+/// The bucket a member falls in.
+#[derive(Debug, Clone, PartialEq, PartialOrd)]
+pub enum Bucket {
+    Grade(u32),
+    Ungraded,
+    /// Implied-PD band [lo, hi) (the last band includes 1).
+    PdBand { index: usize, lo: f64, hi: f64 },
+}
+
+impl Bucket {
+    /// The label written in the `bucket` column: "grade 3", "ungraded", "pd [0.001, 0.005)".
+    pub fn label(&self) -> String {
+        match self {
+            Bucket::Grade(g) => format!("grade {g}"),
+            Bucket::Ungraded => "ungraded".to_string(),
+            Bucket::PdBand { lo, hi, .. } => format!("pd [{lo}, {hi})"),
+        }
+    }
+}
+
+/// One member of one cohort at one horizon.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Observation {
+    pub entity: String,
+    pub cohort: NaiveDate,
+    pub horizon_years: u32,
+    pub grade: Option<u32>,
+    pub bucket: Bucket,
+    /// 1 - S(h) from the member's curve (as of the curve's own date).
+    pub implied_pd: f64,
+    pub outcome: Outcome,
+    /// Years from t to the default, the data end or the horizon end, whichever is first.
+    pub exposure_years: f64,
+    /// Integrated hazard of the curve over the exposure window.
+    pub integrated_hazard: f64,
+    /// Quoted par spread at the tenor of 12 h months on the curve date, if quoted.
+    pub spread_bp: Option<f64>,
+}
+
+impl Observation {
+    /// Whether this observation counts in n under the policy.
+    pub fn counts(&self, policy: CensoringPolicy) -> bool {
+        self.outcome != Outcome::Censored || policy == CensoringPolicy::CountAsSurvivor
+    }
+    /// The cohort label of this observation: the cohort date's year.
+    pub fn cohort_year(&self) -> String {
+        self.cohort.year().to_string()
+    }
+}
+
+/// Builds every observation of every cohort date and horizon, bucketed per the settings.
+/// Settings are assumed checked ([`BacktestSettings::check`]).
+pub fn build_observations(facts: &[EntityFacts], curves: &CurveSet, settings: &BacktestSettings) -> Result<Vec<Observation>, BacktestError> {
+    let mut obs = Vec::new();
+    let shortest = *settings.horizons_years.iter().min().unwrap_or(&1);
+    // PD at the shortest horizon per (cohort, entity), for PD bands.
+    let mut band_pd = Vec::new();
+    for &t in &settings.cohort_dates {
+        for f in facts {
+            if !is_member(f, t) {
+                continue;
+            }
+            let Some(dc) = curves.latest_within(&f.entity, t, settings.lookback_days) else { continue };
+            for &h in &settings.horizons_years {
+                let end = horizon_end(t, h)?;
+                let hy = year_time(t, end);
+                let (outcome, window_end) = outcome_over(f, t, end);
+                let exposure = year_time(t, window_end).max(0.0);
+                let o = Observation {
+                    entity: f.entity.clone(),
+                    cohort: t,
+                    horizon_years: h,
+                    grade: grade_at(f, t),
+                    bucket: Bucket::Ungraded,
+                    implied_pd: -(-dc.curve.integrated_hazard(hy)).exp_m1(),
+                    outcome,
+                    exposure_years: exposure,
+                    integrated_hazard: dc.curve.integrated_hazard(exposure),
+                    spread_bp: dc.spreads.iter().find(|s| s.tenor_months == 12 * h).map(|s| s.spread_bp),
+                };
+                if h == shortest {
+                    band_pd.push(((t, f.entity.clone()), o.implied_pd));
+                }
+                obs.push(o);
+            }
+        }
+    }
+    assign_buckets(&mut obs, &band_pd, &settings.bucketing);
+    Ok(obs)
+}
+
+/// Alive at t (no default on or before t) and with data covering t.
+fn is_member(f: &EntityFacts, t: NaiveDate) -> bool {
+    f.default_date.is_none_or(|d| d > t) && f.data_end >= t
+}
+
+/// t + 12 h calendar months (month-end clipped, as chrono does).
+fn horizon_end(t: NaiveDate, h: u32) -> Result<NaiveDate, BacktestError> {
+    t.checked_add_months(Months::new(12 * h)).ok_or(BacktestError::DateOverflow { date: t, years: h })
+}
+
+/// The outcome over (t, end] and the date the exposure window closes.
+fn outcome_over(f: &EntityFacts, t: NaiveDate, end: NaiveDate) -> (Outcome, NaiveDate) {
+    match f.default_date {
+        Some(d) if d > t && d <= end => (Outcome::Defaulted, d),
+        _ if f.data_end < end => (Outcome::Censored, f.data_end),
+        _ => (Outcome::Survived, end),
+    }
+}
+
+/// The grade in force at t: the spell with the latest from_date <= t.
+fn grade_at(f: &EntityFacts, t: NaiveDate) -> Option<u32> {
+    f.grades.iter().filter(|g| g.from_date <= t).max_by_key(|g| g.from_date).map(|g| g.grade)
+}
+
+fn assign_buckets(obs: &mut [Observation], band_pd: &[((NaiveDate, String), f64)], bucketing: &Bucketing) {
+    let edges = match bucketing {
+        Bucketing::Grades => {
+            for o in obs.iter_mut() {
+                o.bucket = o.grade.map_or(Bucket::Ungraded, Bucket::Grade);
+            }
+            return;
+        }
+        Bucketing::PdEdges(e) => e.clone(),
+        Bucketing::PdQuantiles(k) => quantile_edges(band_pd.iter().map(|(_, p)| *p).collect(), *k),
+    };
+    let lookup: std::collections::HashMap<(NaiveDate, &str), f64> = band_pd.iter().map(|((t, e), p)| ((*t, e.as_str()), *p)).collect();
+    for o in obs.iter_mut() {
+        let p = lookup.get(&(o.cohort, o.entity.as_str())).copied().unwrap_or(o.implied_pd);
+        o.bucket = pd_band(p, &edges);
+    }
+}
+
+/// The band of p among interior edges: [0, e1), [e1, e2), ..., [ek, 1].
+fn pd_band(p: f64, edges: &[f64]) -> Bucket {
+    let index = edges.partition_point(|&e| e <= p);
+    let lo = if index == 0 { 0.0 } else { edges[index - 1] };
+    let hi = edges.get(index).copied().unwrap_or(1.0);
+    Bucket::PdBand { index, lo, hi }
+}
+
+/// Interior edges at the i/k empirical quantiles (lower order statistic), deduplicated so that
+/// tied PDs never produce an empty band.
+fn quantile_edges(mut pds: Vec<f64>, k: usize) -> Vec<f64> {
+    pds.retain(|p| p.is_finite());
+    pds.sort_by(f64::total_cmp);
+    if pds.is_empty() {
+        return Vec::new();
+    }
+    let mut edges: Vec<f64> = (1..k).map(|i| pds[(i * pds.len() / k).min(pds.len() - 1)]).collect();
+    edges.dedup();
+    edges.retain(|&e| e > pds[0]);
+    edges
+}
