@@ -34,9 +34,83 @@ pub struct PipelineFile {
     #[serde(default)]
     pub quality: QualitySection,
     #[serde(default)]
+    pub backtest: BacktestSection,
+    #[serde(default)]
     pub stability: StabilitySection,
     #[serde(default)]
     pub report: ReportSection,
+}
+
+/// `[backtest]`: implied against realised default rates, and the risk premium.
+#[derive(Debug, Clone, Deserialize, Serialize, Default)]
+#[serde(deny_unknown_fields)]
+pub struct BacktestSection {
+    /// Run the backtest. Default: when grades, defaults or a cohort history are given.
+    pub enabled: Option<bool>,
+    /// `annual` (default: first business day of each year) or `quarterly`.
+    pub cohorts: Option<String>,
+    /// Horizons in whole years. Default [1].
+    pub horizons: Option<Vec<u32>>,
+    /// A cohort member's curve is its latest within this many calendar days. Default 10.
+    pub lookback_days: Option<i64>,
+    /// `exclude` (default) or `survivor`: what a member whose data ends inside the horizon
+    /// without a default counts as in the cohort tests (exposure is exact either way).
+    pub censoring: Option<String>,
+    /// `grade` (default when grades are given) or `pd_bands`.
+    pub buckets: Option<String>,
+    /// Implied-PD band edges (decimals) for `pd_bands`; without them, `pd_quantiles`.
+    pub pd_edges: Option<Vec<f64>>,
+    /// Number of implied-PD quantile bands. Default 5.
+    pub pd_quantiles: Option<usize>,
+    /// Two-sided confidence level of the intervals. Default 0.95.
+    pub level: Option<f64>,
+    /// Upper-tail binomial p-value under which a bucket is yellow. Default 0.05.
+    pub zone_yellow: Option<f64>,
+    /// ... and red. Default 0.001.
+    pub zone_red: Option<f64>,
+    /// Recoveries of the sensitivity scenarios. Default [0.25, 0.55].
+    pub recovery_scenarios: Option<Vec<f64>>,
+}
+
+fn backtest_stage(k: &BacktestSection, inputs: &InputPaths, path: &Path) -> Result<crate::commands::backtest::BacktestStage> {
+    use crate::backtest::{BacktestSettings, Bucketing, CensoringPolicy};
+    use crate::commands::backtest::{BacktestStage, CohortFrequency};
+    let enabled = k.enabled.unwrap_or(inputs.grades.is_some() || inputs.defaults.is_some() || inputs.cohort_history.is_some());
+    let frequency = match k.cohorts.as_deref().unwrap_or("annual") {
+        "annual" => CohortFrequency::Annual,
+        "quarterly" => CohortFrequency::Quarterly,
+        other => return Err(bad(path, "backtest.cohorts", format!("{other:?} is not one of \"annual\", \"quarterly\""))),
+    };
+    let censoring = match k.censoring.as_deref().unwrap_or("exclude") {
+        "exclude" => CensoringPolicy::Exclude,
+        "survivor" => CensoringPolicy::CountAsSurvivor,
+        other => return Err(bad(path, "backtest.censoring", format!("{other:?} is not one of \"exclude\", \"survivor\""))),
+    };
+    let default_buckets = if inputs.grades.is_some() { "grade" } else { "pd_bands" };
+    let bucketing = match k.buckets.as_deref().unwrap_or(default_buckets) {
+        "grade" => Bucketing::Grades,
+        "pd_bands" => match &k.pd_edges {
+            Some(e) => Bucketing::PdEdges(e.clone()),
+            None => Bucketing::PdQuantiles(k.pd_quantiles.unwrap_or(5)),
+        },
+        other => return Err(bad(path, "backtest.buckets", format!("{other:?} is not one of \"grade\", \"pd_bands\""))),
+    };
+    let zones = crate::stats::ZoneThresholds::new(k.zone_yellow.unwrap_or(0.05), k.zone_red.unwrap_or(0.001)).map_err(|e| bad(path, "backtest.zone_yellow / zone_red", e.to_string()))?;
+    let core = BacktestSettings {
+        cohort_dates: vec![NaiveDate::from_ymd_opt(2000, 1, 3).unwrap_or_default()],
+        horizons_years: k.horizons.clone().unwrap_or_else(|| vec![1]),
+        lookback_days: k.lookback_days.unwrap_or(10),
+        censoring,
+        bucketing,
+        level: k.level.unwrap_or(0.95),
+        zones,
+    };
+    core.check().map_err(|e| bad(path, "backtest", e.to_string()))?;
+    let recovery_scenarios = k.recovery_scenarios.clone().unwrap_or_else(|| vec![0.25, 0.55]);
+    if let Some(r) = recovery_scenarios.iter().find(|r| !(0.0..1.0).contains(*r)) {
+        return Err(bad(path, "backtest.recovery_scenarios", format!("{r} is not a fraction in [0, 1)")));
+    }
+    Ok(BacktestStage { enabled, frequency, core, recovery_scenarios })
 }
 
 /// `[stability]`: the parameter-stability and residual review (defaults on each field of
@@ -118,6 +192,8 @@ pub struct CalibrationSection {
     pub cir_mode: Option<String>,
     /// Window length in business days of the `fixed_kappa_sigma` mode. Default 20.
     pub cir_window: Option<usize>,
+    /// Fit the CIR model only for these entities. Default: every entity.
+    pub cir_entities: Option<Vec<String>>,
     /// Bond recovery convention: `par` (default, recovery of face), `zero` or `market`
     /// (recovery of market value).
     pub bond_recovery_convention: Option<String>,
@@ -182,6 +258,7 @@ pub struct RunConfig {
     pub cir: bool,
     pub cir_mode: String,
     pub cir_window: usize,
+    pub cir_entities: Option<Vec<String>>,
     pub bond_recovery_convention: String,
     /// The five settings above, typed.
     #[serde(skip)]
@@ -194,6 +271,10 @@ pub struct RunConfig {
     pub charted_entities: Option<Vec<String>>,
     pub term_structure_dates: Option<Vec<NaiveDate>>,
     pub fail_on_red_flags: bool,
+    #[serde(skip)]
+    pub backtest: crate::commands::backtest::BacktestStage,
+    /// The backtest settings in force, as (name, value) pairs for the manifest and the notes.
+    pub backtest_settings: Vec<(String, String)>,
     #[serde(skip)]
     pub stability: crate::stability::StabilitySettings,
     /// The stability settings as (name, value) pairs, for the manifest and the method notes.
@@ -387,7 +468,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         "market" => RecoveryConvention::Market,
         other => return Err(bad(path, "calibration.bond_recovery_convention", format!("{other:?} is not one of \"par\", \"zero\", \"market\""))),
     };
-    let intensity = IntensitySettings { bond_fit, cir, cir_mode: mode, cir_window, bond_convention: convention };
+    let intensity = IntensitySettings { bond_fit, cir, cir_mode: mode, cir_window, bond_convention: convention, cir_entities: k.cir_entities.clone() };
 
     let q = &file.quality;
     let d = QualitySettings::default();
@@ -441,6 +522,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         }
     }
     let stability = stability_settings(&file.stability, path)?;
+    let backtest = backtest_stage(&file.backtest, &inputs, path)?;
     let name = file
         .name
         .clone()
@@ -463,6 +545,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         cir,
         cir_mode,
         cir_window,
+        cir_entities: k.cir_entities.clone(),
         bond_recovery_convention,
         intensity,
         quality,
@@ -471,6 +554,8 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         charted_entities: r.charted_entities.clone(),
         term_structure_dates,
         fail_on_red_flags: r.fail_on_red_flags.unwrap_or(false),
+        backtest_settings: backtest.pairs(),
+        backtest,
         stability_settings: stability.pairs(),
         stability,
     })

@@ -34,6 +34,12 @@ enum Infeasible {
 }
 
 #[derive(Clone, Copy, ValueEnum)]
+enum CheckSize {
+    Small,
+    Large,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
 enum Accrual {
     /// One interval per coupon period (the standard model).
     Standard,
@@ -140,14 +146,26 @@ enum Command {
         #[arg(long, default_value_t = 20150101)]
         seed: u64,
         /// Number of entities.
-        #[arg(long, default_value_t = 150)]
+        #[arg(long, default_value_t = 250)]
         entities: usize,
         /// Years of daily quotes.
-        #[arg(long, default_value_t = 4)]
+        #[arg(long, default_value_t = 5)]
         years: u32,
         /// First day of the quoted period (yyyy-mm-dd).
         #[arg(long, default_value = "2015-01-01", value_parser = hazardline::commands::demo::parse_start)]
         start: chrono::NaiveDate,
+    },
+    /// Generate a planted-truth universe in a temporary folder, run the whole pipeline on it,
+    /// and print planted against recovered; exits 1 when the recovery fails its criteria.
+    Selfcheck {
+        /// small (120 entities x 3 years, seconds) or large (600 x 6 years, minutes).
+        #[arg(long, value_enum, default_value_t = CheckSize::Small)]
+        size: CheckSize,
+        #[arg(long, default_value_t = 7)]
+        seed: u64,
+        /// Keep the universe and the run in this folder instead of a temporary one.
+        #[arg(long)]
+        keep: Option<PathBuf>,
     },
     /// Read the inputs and run the data-quality rules only: print the row accounting per table
     /// and the top reject reasons; with --out, write rejects, data_quality and quality_flags.
@@ -340,6 +358,35 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     );
                     println!("run it with: hazardline run {}", s.out.join("pipeline.toml").display());
                     Ok(ExitCode::SUCCESS)
+                }
+                Err(e) => {
+                    eprintln!("error: {e}");
+                    Ok(ExitCode::from(e.exit_code() as u8))
+                }
+            }
+        }
+        Command::Selfcheck { size, seed, keep } => {
+            use hazardline::commands::selfcheck::{selfcheck, Size};
+            let size = match size {
+                CheckSize::Small => Size::Small,
+                CheckSize::Large => Size::Large,
+            };
+            let tmp;
+            let dir = match &keep {
+                Some(d) => d.clone(),
+                None => {
+                    tmp = std::env::temp_dir().join(format!("hazardline-selfcheck-{}", std::process::id()));
+                    tmp
+                }
+            };
+            let result = selfcheck(&dir, &size.spec(seed));
+            if keep.is_none() {
+                let _ = std::fs::remove_dir_all(&dir);
+            }
+            match result {
+                Ok(c) => {
+                    print!("{}", c.table);
+                    Ok(if c.passed { ExitCode::SUCCESS } else { ExitCode::from(1) })
                 }
                 Err(e) => {
                     eprintln!("error: {e}");

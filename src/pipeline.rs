@@ -7,7 +7,9 @@
 //! written to a temporary name first. Everything but `run.log` is deterministic.
 
 use crate::commands::calibrate::{calibrate_dataset, metadata, CalibrationParams};
+use crate::commands::backtest::{run_backtest_stage, write_backtest_tables, BacktestResults};
 use crate::commands::intensity::calibrate_intensity;
+use crate::commands::review::{quality_flags, run_stability, stability_inputs, write_flags, write_stability_tables, AnyFlag, GradeBook};
 use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::{load, TableCounts};
@@ -47,7 +49,28 @@ fn counts_records(stage: &str, counts: &[TableCounts]) -> Vec<CountRecord> {
 
 /// Every table a run writes. `intensity_params` and `cds_bond_basis` are always written, empty
 /// (with their schema) when the CIR or bond fit is off, so consumers find the same files.
-pub const TABLES: [&str; 8] = ["data_quality", "rejects", "discount_curves", "hazard_curves", "calibration_residuals", "intensity_params", "cds_bond_basis", "flags"];
+pub const TABLES: [&str; 20] = [
+    "data_quality",
+    "rejects",
+    "discount_curves",
+    "hazard_curves",
+    "calibration_residuals",
+    "intensity_params",
+    "cds_bond_basis",
+    "backtest_buckets",
+    "backtest_hosmer_lemeshow",
+    "backtest_history",
+    "risk_premia",
+    "stability",
+    "stability_bands",
+    "stability_psi",
+    "stability_breaks",
+    "residual_curves",
+    "residual_tenors",
+    "residual_worst",
+    "residual_repricing",
+    "flags",
+];
 
 /// Runs the pipeline.
 pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
@@ -74,6 +97,14 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     cal.residuals.append(&mut fits.residuals);
     cal.rejects.append(&mut fits.rejects);
     timings.push(("bond and CIR fits".into(), t1b.elapsed().as_secs_f64()));
+
+    let t1c = Instant::now();
+    let backtest = if cfg.backtest.enabled { run_backtest_stage(&ds, &cal, &params, &cfg.backtest)? } else { BacktestResults::default() };
+    timings.push(("backtest".into(), t1c.elapsed().as_secs_f64()));
+    let t1d = Instant::now();
+    let grades = GradeBook::new(&ds);
+    let stability = run_stability(&stability_inputs(&cal, &fits.params, &grades), &cfg.stability)?;
+    timings.push(("stability".into(), t1d.elapsed().as_secs_f64()));
 
     let period = ds.cds.as_ref().and_then(|p| Some((p.rows.first()?.date, p.rows.last()?.date)));
     let label = opts
@@ -102,7 +133,12 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     write_residuals(&cal.residuals, &tables.join("calibration_residuals.parquet"), &meta)?;
     write_intensity_params(&fits.params, &tables.join("intensity_params.parquet"), &meta)?;
     write_basis(&fits.basis, &tables.join("cds_bond_basis.parquet"), &meta)?;
-    write_quality_flags(&ds.flags, &tables.join("flags.parquet"), &meta)?;
+    write_backtest_tables(&backtest, &tables, &meta)?;
+    write_stability_tables(&stability, &tables, &meta)?;
+    let mut all_flags = quality_flags(&ds);
+    all_flags.extend(stability.flags.iter().map(|f| AnyFlag { stage: "stability", flag: f.clone(), table: None, source: None, row: None }));
+    let red_flags = all_flags.iter().filter(|f| f.flag.severity == "red").count();
+    write_flags(&all_flags, &tables.join("flags.parquet"), &meta)?;
     timings.push(("write tables".into(), t2.elapsed().as_secs_f64()));
 
     // Manifest.
@@ -154,8 +190,8 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
         curves: cal.curves,
         curves_complete: cal.curves_complete,
         max_abs_residual_bp: cal.max_abs_residual_bp,
-        flags: ds.flags.len(),
-        red_flags: ds.flags.iter().filter(|f| f.severity == "red").count(),
+        flags: all_flags.len(),
+        red_flags,
         rejected: rejects.len(),
         timings,
     })

@@ -85,11 +85,15 @@ impl Writer {
 
 /// Generates the universe for `spec` and writes it under `out`.
 pub fn write_demo(out: &Path, spec: &ScenarioSpec) -> Result<DemoSummary> {
-    let s = generate(spec);
+    write_scenario(out, &generate(spec))
+}
+
+/// Writes an already generated universe under `out`.
+pub fn write_scenario(out: &Path, s: &Scenario) -> Result<DemoSummary> {
     let mut w = Writer { root: out.to_path_buf(), files: Vec::new() };
-    write_inputs(&mut w, &s)?;
-    write_truth(&mut w, &s)?;
-    w.text("pipeline.toml", &pipeline_file(&s))?;
+    write_inputs(&mut w, s)?;
+    write_truth(&mut w, s)?;
+    w.text("pipeline.toml", &pipeline_file(s))?;
     Ok(DemoSummary {
         out: out.to_path_buf(),
         files: w.files,
@@ -219,15 +223,7 @@ fn write_truth(w: &mut Writer, s: &Scenario) -> Result<()> {
     w.text("truth/defaults.csv", &body)?;
     // Faults, one line per affected row, with the file and 1-based data row the quality stage
     // will name.
-    let mut rows_of: BTreeMap<usize, Vec<(String, u64)>> = BTreeMap::new();
-    let mut counter: BTreeMap<QuoteFile, u64> = BTreeMap::new();
-    for r in &s.quotes {
-        let n = counter.entry(r.file).or_insert(0);
-        *n += 1;
-        if let Some(f) = r.fault {
-            rows_of.entry(f).or_default().push((format!("cds_quotes/{}", r.file.file_name()), *n));
-        }
-    }
+    let rows_of = fault_rows(s);
     let mut body = String::from("fault,kind,entity,date,last_date,tenor,expected,file,row,detail\n");
     for (i, f) in s.faults.iter().enumerate() {
         let tenor = f.tenor.map(tenor_text).unwrap_or_default();
@@ -266,9 +262,24 @@ fn write_truth(w: &mut Writer, s: &Scenario) -> Result<()> {
         "bond_share": sp.bond_share,
         "quote_noise": sp.quote_noise,
         "faults": sp.faults,
+        "intensity_scale": sp.intensity_scale,
         "recovery": crate::sim::scenario::RECOVERY,
     });
     w.text("truth/scenario.json", &(serde_json::to_string_pretty(&json).unwrap_or_default() + "\n"))
+}
+
+/// The rows of each planted fault: (file relative to the scenario folder, 1-based data row).
+pub fn fault_rows(s: &Scenario) -> BTreeMap<usize, Vec<(String, u64)>> {
+    let mut rows_of: BTreeMap<usize, Vec<(String, u64)>> = BTreeMap::new();
+    let mut counter: BTreeMap<QuoteFile, u64> = BTreeMap::new();
+    for r in &s.quotes {
+        let n = counter.entry(r.file).or_insert(0);
+        *n += 1;
+        if let Some(f) = r.fault {
+            rows_of.entry(f).or_default().push((format!("cds_quotes/{}", r.file.file_name()), *n));
+        }
+    }
+    rows_of
 }
 
 /// The pipeline file beside the generated tables: the whole pipeline on this folder.
@@ -308,7 +319,10 @@ fn pipeline_file(s: &Scenario) -> String {
          [calibration]\n\
          bond_fit = true\n\
          cir = true\n\
-         cir_mode = \"fixed_kappa_sigma\"\n\n\
+         cir_mode = \"fixed_kappa_sigma\"\n\
+         cir_entities = [{charted}]\n\n\
+         [backtest]\n\
+         horizons = [1, 3]\n\n\
          [report]\n\
          output_root = \"reports\"\n\
          label = \"seed-{seed}\"\n\

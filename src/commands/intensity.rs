@@ -25,7 +25,7 @@ use rayon::prelude::*;
 use std::collections::{BTreeMap, HashMap};
 
 /// Checked settings of the bond and CIR fits (from `[calibration]`).
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct IntensitySettings {
     pub bond_fit: bool,
     pub cir: bool,
@@ -33,11 +33,13 @@ pub struct IntensitySettings {
     /// Business days per window of the fixed-kappa-sigma mode.
     pub cir_window: usize,
     pub bond_convention: RecoveryConvention,
+    /// Fit CIR only for these entities (None: every entity).
+    pub cir_entities: Option<Vec<String>>,
 }
 
 impl Default for IntensitySettings {
     fn default() -> Self {
-        IntensitySettings { bond_fit: false, cir: false, cir_mode: CirFitMode::Free, cir_window: 20, bond_convention: RecoveryConvention::Par }
+        IntensitySettings { bond_fit: false, cir: false, cir_mode: CirFitMode::Free, cir_window: 20, bond_convention: RecoveryConvention::Par, cir_entities: None }
     }
 }
 
@@ -330,6 +332,9 @@ pub fn calibrate_intensity(ds: &mut Dataset, cal: &Calibration, p: &CalibrationP
     if s.cir {
         let mut names: BTreeMap<(&str, &str), Vec<NaiveDate>> = BTreeMap::new();
         for (d, e, c) in cal.cds_curves.keys() {
+            if s.cir_entities.as_ref().is_some_and(|list| !list.iter().any(|x| x == e)) {
+                continue;
+            }
             names.entry((e.as_str(), c.as_str())).or_default().push(*d);
         }
         let jobs: Vec<((&str, &str), Vec<NaiveDate>)> = names.into_iter().collect();

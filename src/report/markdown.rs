@@ -100,9 +100,9 @@ pub fn render(run_dir: &Path) -> Result<()> {
     for h in &hazard {
         *status_counts.entry(h.status).or_default() += 1;
     }
-    let mut flag_counts: BTreeMap<(&str, &str), usize> = BTreeMap::new();
+    let mut flag_counts: BTreeMap<(&str, &str, &str), usize> = BTreeMap::new();
     for f in &flags {
-        *flag_counts.entry((f.0.as_str(), f.1.as_str())).or_default() += 1;
+        *flag_counts.entry((f.8.as_str(), f.0.as_str(), f.1.as_str())).or_default() += 1;
     }
     let red = flags.iter().filter(|f| f.1 == "red").count();
     let accounting_ok = m.counts.iter().all(|c| c.rows_in == c.used + c.rejected);
@@ -121,7 +121,14 @@ pub fn render(run_dir: &Path) -> Result<()> {
     let _ = writeln!(w, "- Universe: {} entities in {} currencies ({}).", entities.len(), currencies.len(), currencies.iter().cloned().collect::<Vec<_>>().join(", "));
     let bond_curves: BTreeSet<(NaiveDate, &str, &str)> = bond_hazard.iter().map(|h| (h.date, h.entity.as_str(), h.currency.as_str())).collect();
     let mut ran = vec!["input data quality".to_string(), "the daily CDS hazard-curve bootstrap with its repricing residuals".to_string()];
-    let mut not_ran = vec!["parameter stability".to_string()];
+    let mut not_ran: Vec<String> = Vec::new();
+    let stability_rows = readback::read_frame(&t.join("stability.parquet"))?.height();
+    let backtest_rows = readback::read_frame(&t.join("backtest_buckets.parquet"))?.height();
+    if stability_rows > 0 {
+        ran.push("the parameter-stability review".into());
+    } else {
+        not_ran.push("the parameter-stability review".into());
+    }
     if bond_curves.is_empty() {
         not_ran.push("bond-implied hazard curves".into());
     } else {
@@ -133,14 +140,25 @@ pub fn render(run_dir: &Path) -> Result<()> {
         let modes: BTreeSet<&str> = params.iter().map(|p| p.mode).collect();
         ran.push(format!("the CIR intensity fit per CDS curve ({} mode)", modes.into_iter().collect::<Vec<_>>().join(", ")));
     }
-    not_ran.push("the backtest of implied against realised default rates".into());
+    if backtest_rows > 0 {
+        ran.push("the backtest of implied against realised default rates with the risk premium".into());
+    } else {
+        not_ran.push("the backtest of implied against realised default rates".into());
+    }
     let list = |v: &[String]| match v.len() {
+        0 => String::new(),
         1 => v[0].clone(),
         n => format!("{} and {}", v[..n - 1].join(", "), v[n - 1]),
     };
     let mut not_text = list(&not_ran);
-    not_text[..1].make_ascii_uppercase();
-    let _ = writeln!(w, "- Scope of this run: {}. {not_text} {} not part of this run.\n", list(&ran), if not_ran.len() == 1 { "is" } else { "are" });
+    if let Some(first) = not_text.get_mut(..1) {
+        first.make_ascii_uppercase();
+    }
+    if not_ran.is_empty() {
+        let _ = writeln!(w, "- Scope of this run: {}.\n", list(&ran));
+    } else {
+        let _ = writeln!(w, "- Scope of this run: {}. {not_text} {} not part of this run.\n", list(&ran), if not_ran.len() == 1 { "is" } else { "are" });
+    }
     let _ = writeln!(w, "| check | result | status |\n| --- | --- | --- |");
     let _ = writeln!(w, "| every input row used or rejected with a reason | {} tables | {} |", m.counts.iter().filter(|c| c.stage == "calibrate").count(), if accounting_ok { "pass" } else { "FAIL" });
     let rej_total: u64 = m.counts.iter().filter(|c| c.stage == "calibrate").map(|c| c.rejected).sum();
@@ -169,7 +187,22 @@ pub fn render(run_dir: &Path) -> Result<()> {
         let ok = params.iter().filter(|p| p.status == "ok").count();
         let _ = writeln!(w, "| CIR fits converged (status `ok`) | {ok} of {} ({}) | {} |", params.len(), pct(ok as f64 / params.len() as f64), if ok == params.len() { "pass" } else { "see section 3" });
     }
-    let _ = writeln!(w, "| data-quality flags (rows kept) | {} | {} |\n", flags.len(), if flags.is_empty() { "pass" } else { "see section 4" });
+    let dq_flags = flags.iter().filter(|f| f.8 == "data_quality").count();
+    let _ = writeln!(w, "| data-quality flags (rows kept) | {dq_flags} | {} |", if dq_flags == 0 { "pass" } else { "see section 6" });
+    let st_flags: Vec<&readback::FlagRecord> = flags.iter().filter(|f| f.8 == "stability").collect();
+    let st_red = st_flags.iter().filter(|f| f.1 == "red").count();
+    let _ = writeln!(w, "| stability and residual flags | {} ({st_red} red) | {} |", st_flags.len(), if st_flags.is_empty() { "pass" } else { "see sections 4 and 6" });
+    if backtest_rows > 0 {
+        let b = readback::read_frame(&t.join("backtest_buckets.parquet"))?;
+        let bp = t.join("backtest_buckets.parquet");
+        let (coh, zone, rec) = (readback::strs(&b, &bp, "cohort")?, readback::strs(&b, &bp, "zone")?, readback::floats(&b, &bp, "recovery")?);
+        let base_r = m.settings.get("recovery").and_then(|v| v.as_f64()).unwrap_or(0.4);
+        let pooled: Vec<usize> = (0..b.height()).filter(|&i| coh[i].as_deref() == Some("all") && rec[i].is_some_and(|r| (r - base_r).abs() < 1e-9)).collect();
+        let red_b = pooled.iter().filter(|&&i| zone[i].as_deref() == Some("red")).count();
+        let yellow_b = pooled.iter().filter(|&&i| zone[i].as_deref() == Some("yellow")).count();
+        let _ = writeln!(w, "| backtest buckets (pooled cohorts) in the red / yellow zone | {red_b} / {yellow_b} of {} | {} |", pooled.len(), if red_b == 0 { "pass" } else { "see section 5" });
+    }
+    let _ = writeln!(w);
 
     // 2. Data quality
     let _ = writeln!(w, "## 2. Data quality\n");
@@ -291,29 +324,41 @@ pub fn render(run_dir: &Path) -> Result<()> {
         let _ = writeln!(w, "*Figure {figure}. Distribution of the absolute repricing residuals of all repriced quotes on a log scale (residuals below 1e-16 bp are shown at -16). Floored nodes, if any, sit far to the right.*\n");
     }
 
+    super::review::residual_section(w, &t, &charts_dir, &mut figure)?;
     intensity_sections(w, &bond_hazard, &bond_res, &basis, &params, &m.settings, &charts_dir, &mut figure)?;
 
-    // 4. Flags
-    let _ = writeln!(w, "## 4. Flags\n");
+    super::review::stability_section(w, &t, &charts_dir, &mut figure, 4)?;
+    let base_recovery = m.settings.get("recovery").and_then(|v| v.as_f64()).unwrap_or(0.4);
+    super::review::backtest_section(w, &t, &charts_dir, &mut figure, 5, base_recovery)?;
+
+    // 6. Flags
+    let _ = writeln!(w, "## 6. Flags\n");
     if flags.is_empty() {
         let _ = writeln!(w, "No flags were raised.\n");
     } else {
         let _ = writeln!(w, "Flags do not remove data; each points to the entity, series and date it concerns (`tables/flags.parquet`, with the source file and row).\n");
-        let _ = writeln!(w, "| rule | severity | count |\n| --- | --- | ---: |");
-        for ((r, s), n) in &flag_counts {
-            let _ = writeln!(w, "| `{r}` | {s} | {n} |");
+        let _ = writeln!(w, "| stage | rule | severity | count |\n| --- | --- | --- | ---: |");
+        for ((st, r, s), n) in &flag_counts {
+            let _ = writeln!(w, "| {st} | `{r}` | {s} | {n} |");
         }
-        let _ = writeln!(w, "\nFirst flags:\n\n| rule | entity | series | date | explanation |\n| --- | --- | --- | --- | --- |");
-        for f in flags.iter().take(15) {
-            let _ = writeln!(w, "| `{}` | {} | {} | {} | {} |", f.0, f.2, f.3, f.4.map(|d| d.to_string()).unwrap_or_default(), f.7.replace('|', "/"));
+        let rank = |s: &str| match s {
+            "red" => 0,
+            "amber" | "warning" => 1,
+            _ => 2,
+        };
+        let mut top: Vec<&readback::FlagRecord> = flags.iter().collect();
+        top.sort_by_key(|f| (rank(&f.1), f.8 != "stability"));
+        let _ = writeln!(w, "\nTop flags (red first):\n\n| rule | severity | entity | series | period | date | explanation |\n| --- | --- | --- | --- | --- | --- | --- |");
+        for f in top.iter().take(20) {
+            let _ = writeln!(w, "| `{}` | {} | {} | {} | {} | {} | {} |", f.0, f.1, f.2, f.3, f.9, f.4.map(|d| d.to_string()).unwrap_or_default(), f.7.replace('|', "/"));
         }
         let _ = writeln!(w, "\nRed flags: {red}.\n");
     }
 
-    // 5. Method notes
+    // 7. Method notes
     let s = &m.settings;
     let q = s.get("quality").cloned().unwrap_or_default();
-    let _ = writeln!(w, "## 5. Method notes\n");
+    let _ = writeln!(w, "## 7. Method notes\n");
     let _ = writeln!(w, "- Contract: the standard single-name CDS (quarterly premium on the 20th of Mar/Jun/Sep/Dec adjusted Following, maturities on the semi-annual roll, Act/360 accrual with the maturity day in the last period, accrual paid on default, protection from T + 1, cash settlement T + 3 business days). Legs are integrated in closed form on the joint grid of discount and hazard nodes (accrual on default: {} integration), with the series expansion below an exponent of 1e-4; the independent reference is QuantLib's standard-model engine (tests/reference/).", s.get("accrual_on_default").and_then(|v| v.as_str()).unwrap_or("standard"));
     let _ = writeln!(w, "- Discount curves: continuously compounded Act/365F zero rates, log-linear discount factors between pillars, first rate before the first pillar, last forward after the last.");
     let _ = writeln!(w, "- Bootstrap: hazard piecewise flat between contract maturities (segment end = adjusted maturity + 1 day), one safeguarded Newton root per node to 1e-14 in hazard. A quote needing a negative hazard is handled by the `{}` policy; a quote no hazard up to 10,000 per year can reach stops its curve.", s.get("infeasible").and_then(|v| v.as_str()).unwrap_or("floor"));
@@ -336,6 +381,11 @@ pub fn render(run_dir: &Path) -> Result<()> {
     if !params.is_empty() {
         let _ = writeln!(w, "- CIR intensity: survival from the affine closed form; the CDS legs priced through it on a monthly protection grid; projected Levenberg-Marquardt on the quotes' residuals in bp of running spread, kappa in [0.001, 10], theta in [1e-6, 2], sigma in [1e-4, 2], lambda0 in [0, 2] (per year). Starts: the day's bootstrapped curve and the previous day's solution, the better of the two. Mode `{}`{}.", s.get("cir_mode").and_then(|v| v.as_str()).unwrap_or("free"), if s.get("cir_mode").and_then(|v| v.as_str()) == Some("fixed_kappa_sigma") { format!(": kappa and sigma estimated on the pooled quotes of consecutive windows of {} curve dates, theta and lambda0 fitted daily", s.get("cir_window").and_then(|v| v.as_u64()).unwrap_or(20)) } else { String::new() });
     }
+    let pairs = |key: &str| -> String {
+        s.get(key).and_then(|v| v.as_array()).map(|a| a.iter().filter_map(|p| Some(format!("{} = {}", p.get(0)?.as_str()?, p.get(1)?.as_str()?))).collect::<Vec<_>>().join("; ")).unwrap_or_default()
+    };
+    let _ = writeln!(w, "- Backtest: implied PD 1 - S(h) from the member's latest curve within the look-back (used as of its own date); outcome a default in (t, t + h]; Clopper-Pearson exact, Jeffreys (lower bound 0 when d = 0, upper 1 when d = n; Brown, Cai and DasGupta, 2001) and Wilson intervals; binomial tails P[D >= d] and P[D <= d] computed directly, never as 1 - cdf; the Jeffreys test p-value is the Beta(d + 1/2, n - d + 1/2) cdf at the mean implied PD; the zone is green, yellow or red by the upper-tail binomial p-value; Hosmer-Lemeshow with k degrees of freedom for k given forecasts (Basel Committee working paper 14, 2005); Garwood (1936) exact Poisson interval for the historical intensity. Settings in force: {}.", pairs("backtest_settings"));
+    let _ = writeln!(w, "- Stability: per review period and series (per entity, per grade, universe): mean, standard deviation, coefficient of variation, largest daily move, share of large daily moves, failures, period-on-period change of the mean and median, and the parameter's daily relative move against the spreads'. PSI = sum (a - e) ln(a / e) over buckets with an empty bucket's share replaced by psi_epsilon, thresholds 0.10 and 0.25 (common practice, no single source); CUSUM of recursive residuals with the Brown, Durbin and Evans (1975, JRSS B) boundary. Every threshold in force: {}.", pairs("stability_settings"));
     let _ = writeln!(w, "- Reproducibility: the tables and this report are deterministic for the same inputs and pipeline file; timings are in `run.log`, not here.\n");
     let _ = writeln!(w, "## 6. Caution\n\n{CAUTION} Every conclusion should be checked against the data and these method notes before it is relied on.");
     write_text(&run_dir.join("report.md"), &md)

@@ -6,4 +6,5 @@ pub mod markdown;
 pub mod parquet;
 pub mod progress;
 pub mod readback;
+pub mod review;
 pub mod tables;

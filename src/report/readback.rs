@@ -139,8 +139,9 @@ pub fn discount_curves(path: &Path) -> Result<Vec<DiscountCurveRow>> {
         .collect())
 }
 
-/// (rule, severity, entity, series, date, value, threshold, explanation) of the flags table.
-pub type FlagRecord = (String, String, String, String, Option<NaiveDate>, f64, f64, String);
+/// (rule, severity, entity, series, date, value, threshold, explanation, stage, period) of the
+/// flags table.
+pub type FlagRecord = (String, String, String, String, Option<NaiveDate>, f64, f64, String, String, String);
 
 pub fn flags(path: &Path) -> Result<Vec<FlagRecord>> {
     let df = read_frame(path)?;
@@ -154,6 +155,8 @@ pub fn flags(path: &Path) -> Result<Vec<FlagRecord>> {
         floats(&df, path, "threshold")?,
         strs(&df, path, "explanation")?,
     );
+    let stage = if df.get_column_names().iter().any(|c| c.as_str() == "stage") { strs(&df, path, "stage")? } else { vec![Some("data_quality".to_string()); df.height()] };
+    let period = strs(&df, path, "period")?;
     Ok((0..df.height())
         .map(|i| {
             (
@@ -165,6 +168,8 @@ pub fn flags(path: &Path) -> Result<Vec<FlagRecord>> {
                 v[i].unwrap_or(f64::NAN),
                 t[i].unwrap_or(f64::NAN),
                 x[i].clone().unwrap_or_default(),
+                stage[i].clone().unwrap_or_default(),
+                period[i].clone().unwrap_or_default(),
             )
         })
         .collect())

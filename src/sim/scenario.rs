@@ -41,6 +41,9 @@ pub struct ScenarioSpec {
     pub quote_noise: f64,
     /// Plant data faults.
     pub faults: bool,
+    /// Multiplies every grade's long-run historical intensity (1 for the demo; the self-check
+    /// raises it so that a small universe has defaults in most grades).
+    pub intensity_scale: f64,
 }
 
 impl ScenarioSpec {
@@ -48,13 +51,14 @@ impl ScenarioSpec {
     pub fn demo(seed: u64) -> ScenarioSpec {
         ScenarioSpec {
             seed,
-            entities: 150,
-            years: 4,
+            entities: 250,
+            years: 5,
             start: NaiveDate::from_ymd_opt(2015, 1, 1).expect("valid date"),
             history_years: 20,
             bond_share: 0.12,
             quote_noise: 0.004,
             faults: true,
+            intensity_scale: 1.0,
         }
     }
 
@@ -297,7 +301,10 @@ fn simulate_entity(spec: &ScenarioSpec, profiles: &[GradeProfile], days: &[Naive
 
 /// Builds the universe for `spec`.
 pub fn generate(spec: &ScenarioSpec) -> Scenario {
-    let profiles = credit::demo_grades();
+    let mut profiles = credit::demo_grades();
+    for p in &mut profiles {
+        p.theta_p *= spec.intensity_scale;
+    }
     let days = business_days(spec);
     let models = demo_rate_models();
 

@@ -1,4 +1,4 @@
-//! The bond and CIR fits inside `hazardline run` on pipelines/demo.toml: the new tables with
+//! The bond and CIR fits inside `hazardline run` on the fixture tests/fixtures/sample.toml: the new tables with
 //! their schema, bond rows in hazard_curves and calibration_residuals, every CIR fit joined to
 //! a bootstrapped CDS curve, and the `[calibration]` keys checked with exact messages.
 
@@ -16,7 +16,7 @@ fn repo() -> PathBuf {
 #[test]
 fn demo_run_writes_bond_and_cir_tables() {
     let root = tempfile::tempdir().unwrap();
-    let cfg = load_pipeline(&repo().join("pipelines/demo.toml")).unwrap();
+    let cfg = load_pipeline(&repo().join("tests/fixtures/sample.toml")).unwrap();
     assert!(cfg.bond_fit && cfg.cir && cfg.cir_mode == "free" && cfg.cir_window == 20);
     let dir = run(&cfg, &RunOptions { out_root: Some(root.path().to_path_buf()), label: None }).unwrap().run_dir;
     let t = dir.join("tables");
@@ -99,7 +99,7 @@ fn demo_run_writes_bond_and_cir_tables() {
 #[test]
 fn fixed_kappa_sigma_mode_holds_kappa_and_sigma_per_window() {
     let dir = tempfile::tempdir().unwrap();
-    let sample = repo().join("demo-data/sample");
+    let sample = repo().join("tests/fixtures/sample");
     let p = dir.path().join("fixed.toml");
     std::fs::write(
         &p,

@@ -12,3 +12,5 @@ mod support;
 mod bonds;
 mod cir;
 mod intensity_pipeline;
+mod backtest_coverage;
+mod demo;

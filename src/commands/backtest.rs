@@ -1,0 +1,299 @@
+//! The backtest stage of a run: cohorts from the calibrated curves, grades and defaults,
+//! bucket tests, risk premia, recovery scenarios (curves re-bootstrapped at the cohort dates
+//! with a shifted recovery), and the cohort-history comparison; and its tables.
+
+use crate::backtest::{
+    self, compare_cohort_history, BacktestOutput, BacktestSettings, CohortHistoryRecord, CurveSet, EntityFacts, GradeSpell, HistoryRow, QuotedSpread,
+};
+use crate::calibrate::{bootstrap, BootstrapQuote};
+use crate::commands::calibrate::{Calibration, CalibrationParams};
+use crate::error::{Error, Result};
+use crate::ingest::Dataset;
+use crate::instruments::CdsQuote;
+use crate::report::parquet::{write_parquet, TableBuilder};
+use crate::time::Calendar;
+use chrono::{Datelike, NaiveDate};
+use rayon::prelude::*;
+use std::collections::{BTreeMap, BTreeSet};
+use std::path::Path;
+
+/// How cohort dates are laid out.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+pub enum CohortFrequency {
+    Annual,
+    Quarterly,
+}
+
+/// The stage's settings beyond the core's.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BacktestStage {
+    pub enabled: bool,
+    pub frequency: CohortFrequency,
+    /// The core settings; `cohort_dates` is filled from the data.
+    pub core: BacktestSettings,
+    /// Recoveries of the sensitivity scenarios (the base recovery is the run's).
+    pub recovery_scenarios: Vec<f64>,
+}
+
+impl BacktestStage {
+    /// The settings in force as (name, value) pairs.
+    pub fn pairs(&self) -> Vec<(String, String)> {
+        use crate::backtest::{Bucketing, CensoringPolicy};
+        let c = &self.core;
+        vec![
+            ("enabled".into(), self.enabled.to_string()),
+            ("cohorts".into(), match self.frequency { CohortFrequency::Annual => "annual (first business day of each year)", CohortFrequency::Quarterly => "quarterly (first business day of each quarter)" }.into()),
+            ("horizons_years".into(), format!("{:?}", c.horizons_years)),
+            ("lookback_days".into(), c.lookback_days.to_string()),
+            ("censoring".into(), match c.censoring { CensoringPolicy::Exclude => "exclude from n (exposure kept)", CensoringPolicy::CountAsSurvivor => "count as survivor" }.into()),
+            ("buckets".into(), match &c.bucketing { Bucketing::Grades => "internal grade as of the cohort date".to_string(), Bucketing::PdEdges(e) => format!("implied-PD bands with edges {e:?}"), Bucketing::PdQuantiles(k) => format!("{k} implied-PD quantile bands") }),
+            ("level".into(), c.level.to_string()),
+            ("zone_yellow".into(), c.zones.yellow.to_string()),
+            ("zone_red".into(), c.zones.red.to_string()),
+            ("recovery_scenarios".into(), format!("{:?}", self.recovery_scenarios)),
+        ]
+    }
+}
+
+/// The stage's results.
+#[derive(Debug, Clone, Default)]
+pub struct BacktestResults {
+    /// Base recovery first, then the scenarios.
+    pub outputs: Vec<BacktestOutput>,
+    pub history: Vec<HistoryRow>,
+    pub cohort_dates: Vec<NaiveDate>,
+    /// Where realised outcomes came from: `entity_defaults`, `cohort_history` or both.
+    pub outcome_sources: Vec<&'static str>,
+    /// Entities with a defaults row but no curve (reported, not used).
+    pub defaults_without_curves: usize,
+}
+
+/// First business day of each year (or quarter) from the first to the last curve date.
+pub fn cohort_dates(first: NaiveDate, last: NaiveDate, frequency: CohortFrequency, cal: &Calendar) -> Vec<NaiveDate> {
+    let step = match frequency {
+        CohortFrequency::Annual => 12,
+        CohortFrequency::Quarterly => 3,
+    };
+    let mut out = Vec::new();
+    let month0 = match frequency {
+        CohortFrequency::Annual => 1,
+        CohortFrequency::Quarterly => ((first.month() - 1) / 3) * 3 + 1,
+    };
+    let mut start = NaiveDate::from_ymd_opt(first.year(), month0, 1).unwrap_or(first);
+    while start <= last {
+        let t = cal.following(start);
+        if t >= first && t <= last {
+            out.push(t);
+        }
+        start = crate::time::add_months(start, step);
+    }
+    out
+}
+
+fn spreads_of(quotes: &[BootstrapQuote]) -> Vec<QuotedSpread> {
+    quotes
+        .iter()
+        .filter_map(|q| match q.quote {
+            CdsQuote::ParSpread(s) => Some(QuotedSpread { tenor_months: q.tenor.months(), spread_bp: s * 1e4 }),
+            CdsQuote::Upfront { .. } => None,
+        })
+        .collect()
+}
+
+/// Entity facts: grade spells, first default, and the last curve date.
+fn facts(ds: &Dataset, cal: &Calibration) -> (Vec<EntityFacts>, usize) {
+    let mut last: BTreeMap<&str, NaiveDate> = BTreeMap::new();
+    for (d, e, _) in cal.cds_curves.keys() {
+        let slot = last.entry(e.as_str()).or_insert(*d);
+        if *d > *slot {
+            *slot = *d;
+        }
+    }
+    let mut spells: BTreeMap<&str, Vec<GradeSpell>> = BTreeMap::new();
+    if let Some(g) = &ds.grades {
+        for (r, _) in &g.rows {
+            spells.entry(r.entity.as_str()).or_default().push(GradeSpell { from_date: r.from_date, grade: r.grade });
+        }
+    }
+    let mut defaults: BTreeMap<&str, NaiveDate> = BTreeMap::new();
+    if let Some(d) = &ds.defaults {
+        for (r, _) in &d.rows {
+            let slot = defaults.entry(r.entity.as_str()).or_insert(r.default_date);
+            if r.default_date < *slot {
+                *slot = r.default_date;
+            }
+        }
+    }
+    let without = defaults.keys().filter(|e| !last.contains_key(*e)).count();
+    let out = last
+        .iter()
+        .map(|(e, end)| EntityFacts { entity: e.to_string(), grades: spells.get(e).cloned().unwrap_or_default(), default_date: defaults.get(e).copied(), data_end: *end })
+        .collect();
+    (out, without)
+}
+
+/// The base curve set: every fully calibrated CDS curve.
+fn base_curves(cal: &Calibration, recovery: f64) -> CurveSet {
+    CurveSet::from_keyed(
+        recovery,
+        cal.cds_curves.iter().filter_map(|((d, e, _), c)| c.curve.as_ref().map(|h| ((*d, e.clone()), h.clone(), spreads_of(&c.quotes)))),
+    )
+}
+
+/// A recovery scenario: the curves a cohort uses, re-bootstrapped with `recovery` on every
+/// quote (quotes carrying their own recovery included: the scenario shifts the assumption).
+fn scenario_curves(cal: &Calibration, base: &CurveSet, dates: &[NaiveDate], lookback: i64, recovery: f64, p: &CalibrationParams) -> CurveSet {
+    let mut wanted: BTreeSet<(NaiveDate, String)> = BTreeSet::new();
+    for e in base.curves.keys() {
+        for &t in dates {
+            if let Some(c) = base.latest_within(e, t, lookback) {
+                wanted.insert((c.date, e.clone()));
+            }
+        }
+    }
+    let by_key: BTreeMap<(NaiveDate, &str), (&String, &crate::commands::calibrate::CdsCurve)> =
+        cal.cds_curves.iter().map(|((d, e, c), v)| ((*d, e.as_str()), (c, v))).collect();
+    let wanted: Vec<(NaiveDate, String)> = wanted.into_iter().collect();
+    let items: Vec<_> = wanted
+        .par_iter()
+        .filter_map(|(d, e)| {
+            let (ccy, curve) = by_key.get(&(*d, e.as_str()))?;
+            let disc = cal.discount_curves.get(&(*d, (*ccy).clone()))?;
+            let quotes: Vec<BootstrapQuote> = curve.quotes.iter().map(|q| BootstrapQuote { recovery, ..*q }).collect();
+            let fit = bootstrap(*d, &quotes, disc, &p.calendar, &p.bootstrap).ok()?;
+            if fit.failed {
+                return None;
+            }
+            let h = fit.curve?;
+            (h.hazards().len() == quotes.len()).then(|| ((*d, e.clone()), h, spreads_of(&curve.quotes)))
+        })
+        .collect();
+    CurveSet::from_keyed(recovery, items)
+}
+
+/// Runs the stage.
+pub fn run_backtest_stage(ds: &Dataset, cal: &Calibration, p: &CalibrationParams, stage: &BacktestStage) -> Result<BacktestResults> {
+    let (Some(first), Some(last)) = (cal.cds_curves.keys().map(|k| k.0).min(), cal.cds_curves.keys().map(|k| k.0).max()) else {
+        return Ok(BacktestResults::default());
+    };
+    let dates = cohort_dates(first, last, stage.frequency, &p.calendar);
+    let mut results = BacktestResults { cohort_dates: dates.clone(), ..Default::default() };
+    if dates.is_empty() {
+        return Ok(results);
+    }
+    let core = BacktestSettings { cohort_dates: dates.clone(), ..stage.core.clone() };
+    let (facts, without) = facts(ds, cal);
+    results.defaults_without_curves = without;
+    let base = base_curves(cal, p.recovery);
+    let mk = |e: backtest::BacktestError| Error::Other(format!("backtest stage: {e}"));
+    let mut outputs = vec![backtest::run_backtest(&facts, &base, &core).map_err(mk)?];
+    for &r in &stage.recovery_scenarios {
+        if (r - p.recovery).abs() < 1e-12 {
+            continue;
+        }
+        let set = scenario_curves(cal, &base, &dates, core.lookback_days, r, p);
+        outputs.push(backtest::run_backtest(&facts, &set, &core).map_err(mk)?);
+    }
+    if ds.defaults.is_some() {
+        results.outcome_sources.push("entity_defaults");
+    }
+    if let Some(h) = &ds.cohort_history {
+        let records: Vec<CohortHistoryRecord> = h
+            .rows
+            .iter()
+            .map(|(r, _)| CohortHistoryRecord { year: r.year, grade: r.grade, obligors: r.obligors, defaults: r.defaults, withdrawn: r.withdrawn })
+            .collect();
+        results.history = compare_cohort_history(&records, &outputs[0].buckets, core.level, &core.zones).map_err(|e| Error::Other(format!("backtest stage (cohort history): {e}")))?;
+        results.outcome_sources.push("cohort_history");
+    }
+    results.outputs = outputs;
+    Ok(results)
+}
+
+/// Writes `backtest_buckets`, `backtest_hosmer_lemeshow`, `risk_premia` and (with a cohort
+/// history) `backtest_history`. Bucket and premium rows of every recovery scenario are in the
+/// same tables, told apart by their `recovery` column.
+pub fn write_backtest_tables(r: &BacktestResults, tables: &Path, meta: &[(String, String)]) -> Result<()> {
+    let rows: Vec<(f64, &backtest::BucketRow)> = r.outputs.iter().flat_map(|o| o.buckets.iter().map(move |b| (o.recovery, b))).collect();
+    let mut df = TableBuilder::new()
+        .strings("cohort", rows.iter().map(|(_, b)| Some(&b.cohort)))
+        .ints("horizon", rows.iter().map(|(_, b)| Some(b.horizon_years as i64)))
+        .strings("bucket", rows.iter().map(|(_, b)| Some(&b.bucket)))
+        .floats("level", rows.iter().map(|(_, b)| Some(b.level)))
+        .floats("recovery", rows.iter().map(|(r, _)| Some(*r)))
+        .ints("n", rows.iter().map(|(_, b)| Some(b.n as i64)))
+        .ints("defaults", rows.iter().map(|(_, b)| Some(b.defaults as i64)))
+        .ints("n_censored", rows.iter().map(|(_, b)| Some(b.n_censored as i64)))
+        .floats("realised_rate", rows.iter().map(|(_, b)| b.realised_rate))
+        .floats("implied_pd", rows.iter().map(|(_, b)| b.implied_pd))
+        .floats("cp_lo", rows.iter().map(|(_, b)| b.cp_lo))
+        .floats("cp_hi", rows.iter().map(|(_, b)| b.cp_hi))
+        .floats("jeffreys_lo", rows.iter().map(|(_, b)| b.jeffreys_lo))
+        .floats("jeffreys_hi", rows.iter().map(|(_, b)| b.jeffreys_hi))
+        .floats("wilson_lo", rows.iter().map(|(_, b)| b.wilson_lo))
+        .floats("wilson_hi", rows.iter().map(|(_, b)| b.wilson_hi))
+        .floats("p_binom_upper", rows.iter().map(|(_, b)| b.p_binom_upper))
+        .floats("p_binom_lower", rows.iter().map(|(_, b)| b.p_binom_lower))
+        .floats("p_jeffreys", rows.iter().map(|(_, b)| b.p_jeffreys))
+        .strings("zone", rows.iter().map(|(_, b)| b.zone.map(|z| z.as_str())))
+        .strings("outcome_source", rows.iter().map(|(_, b)| Some(b.outcome_source)))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("backtest_buckets.parquet"), meta)?;
+
+    let hl: Vec<(f64, &backtest::HosmerLemeshowRow)> = r.outputs.iter().flat_map(|o| o.hosmer_lemeshow.iter().map(move |b| (o.recovery, b))).collect();
+    let mut df = TableBuilder::new()
+        .strings("cohort", hl.iter().map(|(_, b)| Some(&b.cohort)))
+        .ints("horizon", hl.iter().map(|(_, b)| Some(b.horizon_years as i64)))
+        .floats("recovery", hl.iter().map(|(r, _)| Some(*r)))
+        .ints("buckets", hl.iter().map(|(_, b)| Some(b.buckets as i64)))
+        .floats("statistic", hl.iter().map(|(_, b)| b.statistic))
+        .floats("p_value", hl.iter().map(|(_, b)| b.p_value))
+        .strings("note", hl.iter().map(|(_, b)| b.note.as_ref()))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("backtest_hosmer_lemeshow.parquet"), meta)?;
+
+    let rp: Vec<&backtest::RiskPremiumRow> = r.outputs.iter().flat_map(|o| o.risk_premia.iter()).collect();
+    let mut df = TableBuilder::new()
+        .strings("cohort", rp.iter().map(|b| Some(&b.cohort)))
+        .strings("bucket", rp.iter().map(|b| Some(&b.bucket)))
+        .ints("horizon", rp.iter().map(|b| Some(b.horizon_years as i64)))
+        .floats("level", rp.iter().map(|b| Some(b.level)))
+        .floats("recovery", rp.iter().map(|b| Some(b.recovery)))
+        .ints("members", rp.iter().map(|b| Some(b.members as i64)))
+        .floats("exposure_years", rp.iter().map(|b| Some(b.exposure_years)))
+        .ints("defaults", rp.iter().map(|b| Some(b.defaults as i64)))
+        .floats("lambda_p", rp.iter().map(|b| b.lambda_p))
+        .floats("lambda_p_lo", rp.iter().map(|b| b.lambda_p_lo))
+        .floats("lambda_p_hi", rp.iter().map(|b| b.lambda_p_hi))
+        .floats("lambda_q", rp.iter().map(|b| b.lambda_q))
+        .floats("ratio", rp.iter().map(|b| b.ratio))
+        .floats("ratio_lo", rp.iter().map(|b| b.ratio_lo))
+        .floats("ratio_hi", rp.iter().map(|b| b.ratio_hi))
+        .floats("spread_bp", rp.iter().map(|b| b.spread_bp))
+        .ints("spread_quotes", rp.iter().map(|b| Some(b.spread_quotes as i64)))
+        .floats("el_spread_bp", rp.iter().map(|b| b.el_spread_bp))
+        .floats("premium_spread_bp", rp.iter().map(|b| b.premium_spread_bp))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("risk_premia.parquet"), meta)?;
+
+    let h = &r.history;
+    let mut df = TableBuilder::new()
+        .strings("cohort", h.iter().map(|b| Some(&b.cohort)))
+        .ints("grade", h.iter().map(|b| Some(b.grade as i64)))
+        .floats("level", h.iter().map(|b| Some(b.level)))
+        .ints("obligors", h.iter().map(|b| Some(b.obligors as i64)))
+        .ints("defaults", h.iter().map(|b| Some(b.defaults as i64)))
+        .ints("withdrawn", h.iter().map(|b| b.withdrawn.map(|x| x as i64)))
+        .floats("realised_rate", h.iter().map(|b| Some(b.realised_rate)))
+        .floats("cp_lo", h.iter().map(|b| Some(b.cp_lo)))
+        .floats("cp_hi", h.iter().map(|b| Some(b.cp_hi)))
+        .floats("jeffreys_lo", h.iter().map(|b| Some(b.jeffreys_lo)))
+        .floats("jeffreys_hi", h.iter().map(|b| Some(b.jeffreys_hi)))
+        .floats("implied_pd", h.iter().map(|b| b.implied_pd))
+        .floats("p_binom_upper", h.iter().map(|b| b.p_binom_upper))
+        .floats("p_jeffreys", h.iter().map(|b| b.p_jeffreys))
+        .strings("zone", h.iter().map(|b| b.zone.map(|z| z.as_str())))
+        .strings("outcome_source", h.iter().map(|b| Some(b.outcome_source)))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("backtest_history.parquet"), meta)
+}
