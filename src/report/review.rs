@@ -192,10 +192,10 @@ pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
             .map(|b| IntervalItem { label: b.bucket.trim_start_matches("grade ").to_string(), estimate: b.realised, lo: b.cp.0, hi: b.cp.1, reference: b.implied })
             .collect();
         let name = format!("backtest-{h}y.svg");
-        if save_chart(charts_dir, &name, charts::interval_chart(&format!("Realised {h}Y default rate (CP interval) vs mean implied PD (x)"), "default rate", true, &items, None, ["realised", "implied PD"]))? {
+        if save_chart(charts_dir, &name, charts::interval_chart(&format!("Realised {h}Y default rate (CP interval) vs mean implied PD, by grade"), "default rate", true, &items, None, ["realised", "implied PD"]))? {
             *figure += 1;
             let _ = writeln!(w, "![Backtest {h}Y](charts/{name})\n");
-            let _ = writeln!(w, "*Figure {figure}. Realised {h}-year default rate per bucket with its Clopper-Pearson interval (points and bars) against the mean implied PD (crosses), log scale; a zero rate sits at the axis floor.*\n");
+            let _ = writeln!(w, "*Figure {figure}. Realised {h}-year default rate per bucket with its Clopper-Pearson interval (points and bars) against the mean implied PD (red bars), log scale; a zero rate is an open circle at the axis floor.*\n");
         }
     }
     // Hosmer-Lemeshow.
@@ -264,7 +264,7 @@ pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
         let _ = writeln!(w);
         let items: Vec<IntervalItem> = rows.iter().map(|p| IntervalItem { label: p.bucket.trim_start_matches("grade ").to_string(), estimate: p.ratio.0, lo: p.ratio.1, hi: p.ratio.2, reference: None }).collect();
         let name = format!("risk-premium-{h}y.svg");
-        if save_chart(charts_dir, &name, charts::interval_chart(&format!("Pricing / historical intensity, {h}Y windows"), "Q/P ratio", true, &items, Some(1.0), ["Q/P", ""]))? {
+        if save_chart(charts_dir, &name, charts::interval_chart(&format!("Pricing / historical intensity by grade, {h}Y windows"), "Q/P ratio", true, &items, Some(1.0), ["Q/P", ""]))? {
             *figure += 1;
             let _ = writeln!(w, "![Risk premium {h}Y](charts/{name})\n");
             let _ = writeln!(w, "*Figure {figure}. Ratio of pricing to historical intensity per bucket with its interval (log scale, line at 1); buckets without a default have no point estimate and an open upper end.*\n");
