@@ -194,7 +194,8 @@ pub fn run_backtest_stage(ds: &Dataset, cal: &Calibration, p: &CalibrationParams
         let set = scenario_curves(cal, &base, &dates, core.lookback_days, r, p);
         outputs.push(backtest::run_backtest(&facts, &set, &core).map_err(mk)?);
     }
-    if ds.defaults.is_some() {
+    let have_defaults = ds.defaults.is_some();
+    if have_defaults {
         results.outcome_sources.push("entity_defaults");
     }
     if let Some(h) = &ds.cohort_history {
@@ -206,7 +207,9 @@ pub fn run_backtest_stage(ds: &Dataset, cal: &Calibration, p: &CalibrationParams
         results.history = compare_cohort_history(&records, &outputs[0].buckets, core.level, &core.zones).map_err(|e| Error::Other(format!("backtest stage (cohort history): {e}")))?;
         results.outcome_sources.push("cohort_history");
     }
-    results.outputs = outputs;
+    // Without a defaults table the entity-level outcomes are unknown (every member would look
+    // like a survivor): only the implied PDs are used, against the cohort history.
+    results.outputs = if have_defaults { outputs } else { Vec::new() };
     Ok(results)
 }
 

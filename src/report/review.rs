@@ -143,9 +143,12 @@ pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
     let premia = read_premia(&tables.join("risk_premia.parquet"))?;
     let history_path = tables.join("backtest_history.parquet");
     let history_df = read_frame(&history_path)?;
-    if buckets.is_empty() {
+    if buckets.is_empty() && history_df.height() == 0 {
         let _ = writeln!(w, "No cohort had members: no curve lay within the look-back window of a cohort date.\n");
         return Ok(());
+    }
+    if buckets.is_empty() {
+        let _ = writeln!(w, "No `defaults` table was given, so entity-level outcomes are unknown: realised rates come from the institution's `cohort_history` only, compared with the mean 1Y implied PD of the same grades.\n");
     }
     let same = |r: f64| (r - base_recovery).abs() < 1e-9;
     let base: Vec<&Bucket> = buckets.iter().filter(|b| same(b.recovery)).collect();

@@ -134,3 +134,26 @@ fn demo_implied_above_realised_and_premium_larger_for_better_grades() {
     // ... and the implied PD is above the realised rate in every grade.
     assert!(ratios.iter().all(|r| r.1 > 1.0), "{ratios:?}");
 }
+
+/// With only an institution's cohort history (no entity defaults), realised rates come from it,
+/// the entity-level tests are not written, and the report says which source was used.
+#[test]
+fn cohort_history_only_backtest() {
+    let dir = tempfile::tempdir().unwrap();
+    write_demo(dir.path(), &ScenarioSpec { entities: 30, years: 2, bond_share: 0.0, ..ScenarioSpec::demo(11) }).unwrap();
+    let p = dir.path().join("pipeline.toml");
+    let text = std::fs::read_to_string(&p).unwrap().replace("defaults = \"defaults.csv\"\n", "").replace("cir = true", "cir = false");
+    std::fs::write(&p, text).unwrap();
+    let cfg = hazardline::config::load_pipeline(&p).unwrap();
+    let run = hazardline::pipeline::run(&cfg, &hazardline::pipeline::RunOptions { out_root: Some(dir.path().join("out")), label: Some("h".into()) }).unwrap();
+    let t = run.run_dir.join("tables");
+    assert_eq!(read_frame(&t.join("backtest_buckets.parquet")).unwrap().height(), 0);
+    let hp = t.join("backtest_history.parquet");
+    let h = read_frame(&hp).unwrap();
+    assert!(h.height() > 0);
+    let (src, ip) = (strs(&h, &hp, "outcome_source").unwrap(), floats(&h, &hp, "implied_pd").unwrap());
+    assert!(src.iter().all(|s| s.as_deref() == Some("cohort_history")));
+    assert!(ip.iter().any(|x| x.is_some()));
+    let report = std::fs::read_to_string(run.run_dir.join("report.md")).unwrap();
+    assert!(report.contains("No `defaults` table was given") && report.contains("### Against the institution's cohort history"));
+}
