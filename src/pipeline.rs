@@ -167,6 +167,14 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let text = serde_json::to_string_pretty(&manifest).map_err(|e| Error::Other(format!("manifest: {e}")))?;
     write_text(&work.join("manifest.json"), &(text + "\n"))?;
 
+    // The report reads the written tables back: free the in-memory results first, so that the
+    // run's peak memory is the largest stage's, not the sum of them.
+    let (ds_counts, n_curves, n_complete, max_res) = (ds.counts.clone(), cal.curves, cal.curves_complete, cal.max_abs_residual_bp);
+    drop(cal);
+    drop(fits);
+    drop(stability);
+    drop(backtest);
+    drop(ds);
     let t3 = Instant::now();
     markdown::render(&work)?;
     timings.push(("report".into(), t3.elapsed().as_secs_f64()));
@@ -186,10 +194,10 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
 
     Ok(RunSummary {
         run_dir: final_dir,
-        counts: ds.counts.clone(),
-        curves: cal.curves,
-        curves_complete: cal.curves_complete,
-        max_abs_residual_bp: cal.max_abs_residual_bp,
+        counts: ds_counts,
+        curves: n_curves,
+        curves_complete: n_complete,
+        max_abs_residual_bp: max_res,
         flags: all_flags.len(),
         red_flags,
         rejected: rejects.len(),
