@@ -53,8 +53,8 @@ fn main() {
     let cpu = cpu_seconds() - cpu0;
     let rows: usize = summary.counts.iter().map(|c| c.rows_in).sum();
     println!("pipeline on {entities} entities x {years} years: {rows} input rows, {} curves", summary.curves);
-    for (stage, s) in &summary.timings {
-        println!("  {stage:<20} {s:>9.2} s");
+    for ((stage, s), (_, rss, peak)) in summary.timings.iter().zip(&summary.memory) {
+        println!("  {stage:<20} {s:>9.2} s   resident {rss:>7.0} MiB, peak so far {peak:>7.0} MiB");
     }
     println!("  {:<20} {wall:>9.2} s wall, {cpu:.1} s CPU, {:.0} input rows/s, peak RSS {:.0} MiB", "total", rows as f64 / wall, peak_rss_mib());
 }

@@ -38,6 +38,22 @@ pub struct RunSummary {
     pub red_flags: usize,
     pub rejected: usize,
     pub timings: Vec<(String, f64)>,
+    /// Resident and peak resident memory (MiB) at the end of each stage, where the platform
+    /// reports them (Linux /proc); NaN elsewhere.
+    pub memory: Vec<(String, f64, f64)>,
+}
+
+/// (resident, peak resident) memory of this process in MiB, from /proc/self/status.
+fn memory_mib() -> (f64, f64) {
+    let s = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
+    let field = |name: &str| {
+        s.lines()
+            .find(|l| l.starts_with(name))
+            .and_then(|l| l.split_whitespace().nth(1))
+            .and_then(|v| v.parse::<f64>().ok())
+            .map_or(f64::NAN, |k| k / 1024.0)
+    };
+    (field("VmRSS:"), field("VmHWM:"))
 }
 
 fn counts_records(stage: &str, counts: &[TableCounts]) -> Vec<CountRecord> {
@@ -75,9 +91,12 @@ pub const TABLES: [&str; 20] = [
 /// Runs the pipeline.
 pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let mut timings: Vec<(String, f64)> = Vec::new();
+    let mut memory: Vec<(String, f64, f64)> = Vec::new();
     let t0 = Instant::now();
     let mut ds = load(&cfg.inputs, &cfg.calendar, &cfg.quality)?;
     timings.push(("ingest".into(), t0.elapsed().as_secs_f64()));
+    let (rss, peak) = memory_mib();
+    memory.push(("ingest".into(), rss, peak));
     let ingest_counts = ds.counts.clone();
     let base = cfg.pipeline_path.parent().map(Path::to_path_buf).unwrap_or_default();
     ds.relabel_sources(&base);
@@ -91,20 +110,28 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     };
     let mut cal = if cfg.cds_bootstrap { calibrate_dataset(&mut ds, &params)? } else { Default::default() };
     timings.push(("calibrate".into(), t1.elapsed().as_secs_f64()));
+    let (rss, peak) = memory_mib();
+    memory.push(("calibrate".into(), rss, peak));
     let t1b = Instant::now();
     let mut fits = calibrate_intensity(&mut ds, &cal, &params, &cfg.intensity)?;
     cal.hazard.append(&mut fits.hazard);
     cal.residuals.append(&mut fits.residuals);
     cal.rejects.append(&mut fits.rejects);
     timings.push(("bond and CIR fits".into(), t1b.elapsed().as_secs_f64()));
+    let (rss, peak) = memory_mib();
+    memory.push(("bond and CIR fits".into(), rss, peak));
 
     let t1c = Instant::now();
     let backtest = if cfg.backtest.enabled { run_backtest_stage(&ds, &cal, &params, &cfg.backtest)? } else { BacktestResults::default() };
     timings.push(("backtest".into(), t1c.elapsed().as_secs_f64()));
+    let (rss, peak) = memory_mib();
+    memory.push(("backtest".into(), rss, peak));
     let t1d = Instant::now();
     let grades = GradeBook::new(&ds);
     let stability = run_stability(&stability_inputs(&cal, &fits.params, &grades), &cfg.stability)?;
     timings.push(("stability".into(), t1d.elapsed().as_secs_f64()));
+    let (rss, peak) = memory_mib();
+    memory.push(("stability".into(), rss, peak));
 
     let period = ds.cds.as_ref().and_then(|p| Some((p.rows.first()?.date, p.rows.last()?.date)));
     let label = opts
@@ -140,6 +167,8 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let red_flags = all_flags.iter().filter(|f| f.flag.severity == "red").count();
     write_flags(&all_flags, &tables.join("flags.parquet"), &meta)?;
     timings.push(("write tables".into(), t2.elapsed().as_secs_f64()));
+    let (rss, peak) = memory_mib();
+    memory.push(("write tables".into(), rss, peak));
 
     // Manifest.
     let (bytes, sha) = hash_file(&cfg.pipeline_path)?;
@@ -178,10 +207,12 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let t3 = Instant::now();
     markdown::render(&work)?;
     timings.push(("report".into(), t3.elapsed().as_secs_f64()));
+    let (rss, peak) = memory_mib();
+    memory.push(("report".into(), rss, peak));
     let total = t0.elapsed().as_secs_f64();
-    let mut log = String::from("stage\tseconds\n");
-    for (s, v) in &timings {
-        log += &format!("{s}\t{v:.3}\n");
+    let mut log = String::from("stage\tseconds\trss_mib\tpeak_rss_mib\n");
+    for ((s, v), (_, rss, peak)) in timings.iter().zip(&memory) {
+        log += &format!("{s}\t{v:.3}\t{rss:.0}\t{peak:.0}\n");
     }
     log += &format!("total\t{total:.3}\n");
     write_text(&work.join("run.log"), &log)?;
@@ -202,5 +233,6 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
         red_flags,
         rejected: rejects.len(),
         timings,
+        memory,
     })
 }

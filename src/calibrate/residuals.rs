@@ -3,7 +3,7 @@
 
 use super::bootstrap::{BootstrapQuote, CurveFit};
 use crate::curves::DiscountCurve;
-use crate::instruments::cds::{price_legs, AccrualIntegration, CdsQuote};
+use crate::instruments::cds::{price_legs_set, AccrualIntegration, CdsQuote};
 use crate::time::Tenor;
 
 /// The repricing of one quote.
@@ -35,12 +35,13 @@ pub fn reprice(
 ) -> Vec<QuoteResidual> {
     let Some(curve) = fit.curve.as_ref() else { return Vec::new() };
     let mut out = Vec::with_capacity(fit.nodes.len());
-    for (node, contract) in fit.nodes.iter().zip(fit.contracts.iter()) {
-        if node.hazard.is_none() {
-            continue;
-        }
+    // Every solved node's contract priced on one joint grid (one plan per curve, not per node).
+    let solved: Vec<(&super::bootstrap::NodeFit, &crate::instruments::CdsContract)> = fit.nodes.iter().zip(fit.contracts.iter()).filter(|(n, _)| n.hazard.is_some()).collect();
+    let contracts: Vec<&crate::instruments::CdsContract> = solved.iter().map(|s| s.1).collect();
+    let recoveries: Vec<f64> = solved.iter().map(|s| quotes[s.0.quote_index].recovery).collect();
+    let Ok(all_legs) = price_legs_set(&contracts, &recoveries, discount, curve, accrual) else { return Vec::new() };
+    for ((node, _), legs) in solved.into_iter().zip(all_legs) {
         let q = &quotes[node.quote_index];
-        let Ok(legs) = price_legs(contract, q.recovery, discount, curve, accrual) else { continue };
         let ann = legs.risky_annuity();
         let par_bp = legs.par_spread() * 1e4;
         let (instrument, market, model, residual_bp) = match q.quote {

@@ -43,21 +43,13 @@ impl GradeBook {
     }
 }
 
-/// The name a series is kept under: the entity, with its currency when it is quoted in more
-/// than one.
-fn series_names(cal: &Calibration) -> BTreeMap<(String, String), String> {
+/// Entities quoted in more than one currency: their series are kept as `entity/CCY`.
+fn multi_currency(cal: &Calibration) -> std::collections::HashSet<String> {
     let mut ccys: BTreeMap<&str, BTreeSet<&str>> = BTreeMap::new();
     for (_, e, c) in cal.cds_curves.keys() {
         ccys.entry(e.as_str()).or_default().insert(c.as_str());
     }
-    let mut out = BTreeMap::new();
-    for (e, cs) in ccys {
-        for c in &cs {
-            let name = if cs.len() > 1 { format!("{e}/{c}") } else { e.to_string() };
-            out.insert((e.to_string(), c.to_string()), name);
-        }
-    }
-    out
+    ccys.into_iter().filter(|(_, cs)| cs.len() > 1).map(|(e, _)| e.to_string()).collect()
 }
 
 /// Everything the stability core reads, built from a run's calibration.
@@ -72,8 +64,8 @@ pub struct StabilityInputs {
 /// CIR fit its four parameters; per entity and date the mean absolute daily change of its par
 /// spreads; per curve the failures and infeasible nodes; every repricing residual.
 pub fn stability_inputs(cal: &Calibration, params: &[IntensityParamRow], grades: &GradeBook) -> StabilityInputs {
-    let names = series_names(cal);
-    let name_of = |e: &str, c: &str| names.get(&(e.to_string(), c.to_string())).cloned().unwrap_or_else(|| e.to_string());
+    let multi = multi_currency(cal);
+    let name_of = |e: &str, c: &str| if multi.contains(e) { format!("{e}/{c}") } else { e.to_string() };
     let mut observations = Vec::new();
     let mut market = Vec::new();
     let mut last_spreads: BTreeMap<String, BTreeMap<u32, f64>> = BTreeMap::new();
@@ -111,7 +103,6 @@ pub fn stability_inputs(cal: &Calibration, params: &[IntensityParamRow], grades:
         }
         last_spreads.insert(entity, spreads);
     }
-    let currencies: BTreeMap<(NaiveDate, String), String> = cal.cds_curves.keys().map(|(d, e, c)| ((*d, e.clone()), c.clone())).collect();
     for p in params {
         let entity = name_of(&p.entity, &p.currency);
         let grade = grades.grade(&p.entity, p.date);
@@ -137,7 +128,7 @@ pub fn stability_inputs(cal: &Calibration, params: &[IntensityParamRow], grades:
         .residuals
         .iter()
         .map(|r| {
-            let entity = if currencies.get(&(r.date, r.entity.clone())).is_some() { name_of(&r.entity, &r.currency) } else { r.entity.clone() };
+            let entity = name_of(&r.entity, &r.currency);
             ResidualObservation {
                 date: r.date,
                 entity,

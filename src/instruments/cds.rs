@@ -423,6 +423,43 @@ pub struct ReferenceDateMismatch {
     pub hazard: NaiveDate,
 }
 
+/// Prices the legs of several contracts traded on the same day, with their recoveries, on one
+/// joint grid of the discount pillars, the hazard nodes and every contract's dates (as the
+/// bootstrap's shared plan does): the grid and the survival and discount values on it are
+/// built once instead of once per contract.
+pub fn price_legs_set(
+    contracts: &[&CdsContract],
+    recoveries: &[f64],
+    discount: &DiscountCurve,
+    hazard: &HazardCurve,
+    mode: AccrualIntegration,
+) -> Result<Vec<CdsLegs>, ReferenceDateMismatch> {
+    let Some(first) = contracts.first() else { return Ok(Vec::new()) };
+    let trade = first.trade_date;
+    if discount.reference() != trade || hazard.reference() != trade || contracts.iter().any(|c| c.trade_date != trade) {
+        let other = contracts.iter().map(|c| c.trade_date).find(|d| *d != trade).unwrap_or(trade);
+        return Err(ReferenceDateMismatch { trade: other, discount: discount.reference(), hazard: hazard.reference() });
+    }
+    let plan = LegPlan::build(trade, contracts, discount, hazard.node_times(), mode);
+    let log_q: Vec<f64> = plan.times.iter().map(|&t| hazard.log_survival_at(t)).collect();
+    let pq: Vec<f64> = plan.log_dfs.iter().zip(&log_q).map(|(p, q)| (p + q).exp()).collect();
+    Ok(plan
+        .contracts
+        .iter()
+        .zip(recoveries)
+        .map(|(terms, &recovery)| {
+            let (prot, prem, aod) = evaluate_terms(&plan, &terms.prot, &terms.coupons, &pq, &log_q);
+            CdsLegs {
+                protection: (1.0 - recovery) * prot,
+                premium01: prem,
+                accrual_on_default01: aod,
+                rebate01: terms.rebate01,
+                cash_settle_df: terms.cash_settle_df,
+            }
+        })
+        .collect())
+}
+
 /// Prices the legs of `contract` on curves referenced on its trade date.
 pub fn price_legs(
     contract: &CdsContract,
