@@ -348,8 +348,18 @@ pub fn render(run_dir: &Path) -> Result<()> {
         };
         let mut top: Vec<&readback::FlagRecord> = flags.iter().collect();
         top.sort_by_key(|f| (rank(&f.1), f.8 != "stability"));
-        let _ = writeln!(w, "\nTop flags (red first):\n\n| rule | severity | entity | series | period | date | explanation |\n| --- | --- | --- | --- | --- | --- | --- |");
-        for f in top.iter().take(20) {
+        // At most three per rule, so that one noisy rule does not hide the others.
+        let mut per_rule: BTreeMap<&str, usize> = BTreeMap::new();
+        let top: Vec<&&readback::FlagRecord> = top
+            .iter()
+            .filter(|f| {
+                let n = per_rule.entry(f.0.as_str()).or_default();
+                *n += 1;
+                *n <= 3
+            })
+            .collect();
+        let _ = writeln!(w, "\nTop flags (red first, at most three per rule; every flag is in `tables/flags.parquet`):\n\n| rule | severity | entity | series | period | date | explanation |\n| --- | --- | --- | --- | --- | --- | --- |");
+        for f in top.iter().take(30) {
             let _ = writeln!(w, "| `{}` | {} | {} | {} | {} | {} | {} |", f.0, f.1, f.2, f.3, f.9, f.4.map(|d| d.to_string()).unwrap_or_default(), f.7.replace('|', "/"));
         }
         let _ = writeln!(w, "\nRed flags: {red}.\n");
