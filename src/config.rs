@@ -96,6 +96,8 @@ fn backtest_stage(k: &BacktestSection, inputs: &InputPaths, path: &Path) -> Resu
         other => return Err(bad(path, "backtest.buckets", format!("{other:?} is not one of \"grade\", \"pd_bands\""))),
     };
     let zones = crate::stats::ZoneThresholds::new(k.zone_yellow.unwrap_or(0.05), k.zone_red.unwrap_or(0.001)).map_err(|e| bad(path, "backtest.zone_yellow / zone_red", e.to_string()))?;
+    // The cohort dates come from the data at run time (`commands::backtest::cohort_dates`); a
+    // stand-in date here lets `check` validate every other setting now, at load time.
     let core = BacktestSettings {
         cohort_dates: vec![NaiveDate::from_ymd_opt(2000, 1, 3).unwrap_or_default()],
         horizons_years: k.horizons.clone().unwrap_or_else(|| vec![1]),
