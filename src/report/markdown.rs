@@ -329,7 +329,14 @@ pub fn render(run_dir: &Path) -> Result<()> {
 
     super::review::stability_section(w, &t, &charts_dir, &mut figure, 4)?;
     let base_recovery = m.settings.get("recovery").and_then(|v| v.as_f64()).unwrap_or(0.4);
-    super::review::backtest_section(w, &t, &charts_dir, &mut figure, 5, base_recovery)?;
+    let backtest_enabled = m
+        .settings
+        .get("backtest_settings")
+        .and_then(|v| v.as_array())
+        .and_then(|a| a.iter().find(|p| p.get(0).and_then(|k| k.as_str()) == Some("enabled")))
+        .and_then(|p| p.get(1).and_then(|v| v.as_str()))
+        .is_none_or(|v| v == "true");
+    super::review::backtest_section(w, &t, &charts_dir, &mut figure, 5, base_recovery, backtest_enabled)?;
 
     // 6. Flags
     let _ = writeln!(w, "## 6. Flags\n");

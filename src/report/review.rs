@@ -132,10 +132,10 @@ fn read_premia(path: &Path) -> Result<Vec<Premium>> {
 }
 
 /// The backtest and risk-premium section. `base_recovery` is the run's recovery.
-pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure: &mut usize, number: usize, base_recovery: f64) -> Result<()> {
+pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure: &mut usize, number: usize, base_recovery: f64, enabled: bool) -> Result<()> {
     let _ = writeln!(w, "## {number}. Backtest and risk premia\n");
     let bpath = tables.join("backtest_buckets.parquet");
-    if !bpath.exists() {
+    if !enabled || !bpath.exists() {
         let _ = writeln!(w, "The backtest did not run (no grades, defaults or cohort history were given, or `[backtest] enabled = false`).\n");
         return Ok(());
     }
@@ -144,7 +144,7 @@ pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
     let history_path = tables.join("backtest_history.parquet");
     let history_df = read_frame(&history_path)?;
     if buckets.is_empty() && history_df.height() == 0 {
-        let _ = writeln!(w, "No cohort had members: no curve lay within the look-back window of a cohort date.\n");
+        let _ = writeln!(w, "Nothing to backtest: either no realised outcomes were given (the backtest needs a `defaults` table or a `cohort_history`), or no cohort had members (no curve within the look-back window of a cohort date).\n");
         return Ok(());
     }
     if buckets.is_empty() {
