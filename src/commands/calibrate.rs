@@ -266,6 +266,9 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
         .collect();
     progress.finish_and_clear();
 
+    // Exact capacities: growing by doubling would hold up to twice the rows' memory.
+    out.hazard.reserve_exact(outputs.iter().map(|o| o.hazard.len()).sum());
+    out.residuals.reserve_exact(outputs.iter().map(|o| o.residuals.len()).sum());
     let mut cds_used = 0;
     for o in outputs {
         cds_used += o.used;
