@@ -90,7 +90,8 @@ pub fn cohort_dates(first: NaiveDate, last: NaiveDate, frequency: CohortFrequenc
     out
 }
 
-fn spreads_of(quotes: &[BootstrapQuote]) -> Vec<QuotedSpread> {
+/// The par-spread quotes of a curve in bp by tenor (upfront quotes have no par spread).
+pub fn spreads_of(quotes: &[BootstrapQuote]) -> Vec<QuotedSpread> {
     quotes
         .iter()
         .filter_map(|q| match q.quote {

@@ -4,7 +4,6 @@
 use crate::commands::calibrate::Calibration;
 use crate::error::Result;
 use crate::ingest::Dataset;
-use crate::instruments::CdsQuote;
 use crate::report::parquet::{write_parquet, TableBuilder};
 use crate::report::tables::IntensityParamRow;
 use crate::stability::{self, CalibrationCounts, FlagRow, MarketMove, Observation, ResidualObservation, StabilityOutput, StabilitySettings};
@@ -86,14 +85,7 @@ pub fn stability_inputs(cal: &Calibration, params: &[IntensityParamRow], grades:
                 }
             }
         }
-        let spreads: BTreeMap<u32, f64> = curve
-            .quotes
-            .iter()
-            .filter_map(|q| match q.quote {
-                CdsQuote::ParSpread(s) => Some((q.tenor.months(), s * 1e4)),
-                CdsQuote::Upfront { .. } => None,
-            })
-            .collect();
+        let spreads: BTreeMap<u32, f64> = crate::commands::backtest::spreads_of(&curve.quotes).into_iter().map(|q| (q.tenor_months, q.spread_bp)).collect();
         if let Some(prev) = last_spreads.get(&entity) {
             let changes: Vec<f64> = spreads.iter().filter_map(|(t, s)| prev.get(t).map(|p| (s - p).abs())).collect();
             if !changes.is_empty() {

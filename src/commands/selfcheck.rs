@@ -64,14 +64,10 @@ pub struct CirRecovery {
     pub lambda0: (f64, f64),
 }
 
+/// Median of the finite values (NaN when there are none).
 fn median(mut v: Vec<f64>) -> f64 {
     v.retain(|x| x.is_finite());
-    if v.is_empty() {
-        return f64::NAN;
-    }
-    v.sort_by(f64::total_cmp);
-    let n = v.len();
-    if n % 2 == 1 { v[n / 2] } else { 0.5 * (v[n / 2 - 1] + v[n / 2]) }
+    crate::stability::summary::quantile_sorted(&crate::stability::summary::sorted(&v), 0.5).unwrap_or(f64::NAN)
 }
 
 /// The CIR fits of the run against the planted pricing-measure parameters on the same dates.

@@ -9,7 +9,7 @@ use super::rates::{demo_rate_models, RateModel};
 use super::rng::Rng;
 use crate::curves::{year_time, DiscountCurve, HazardCurve};
 use crate::instruments::bond::{price_bond, BondTerms, RecoveryConvention};
-use crate::instruments::cds::price_legs;
+use crate::instruments::cds::price_legs_set;
 use crate::instruments::{AccrualIntegration, CdsContract};
 use crate::models::cir::cir_hazard_curve;
 use crate::time::{add_days, add_months, Calendar, DayCount, Tenor};
@@ -353,6 +353,8 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
             let date = days[k];
             let contracts: Vec<CdsContract> = CdsContract::standard_set(date, &tenors, &cal).into_iter().filter_map(|c| c.ok()).collect();
             let times: Vec<f64> = contracts.iter().map(|c| year_time(date, c.maturity)).collect();
+            let refs: Vec<&CdsContract> = contracts.iter().collect();
+            let recoveries = vec![RECOVERY; refs.len()];
             let mut rows = Vec::new();
             for (i, p) in paths.iter().enumerate() {
                 if k >= p.grade.len() {
@@ -363,8 +365,9 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
                 let Ok(hazard) = cir_hazard_curve(date, &params, &times) else { continue };
                 let disc = &curves[currency_index(&models, entities[i].currency)][k];
                 let mut noise = Rng::stream(spec.seed, "quote_noise", (k * spec.entities + i) as u64);
-                for (c, &m) in contracts.iter().zip(&CDS_TENORS) {
-                    let Ok(legs) = price_legs(c, RECOVERY, disc, &hazard, AccrualIntegration::Standard) else { continue };
+                // Every tenor on one joint grid (one plan per entity and day).
+                let Ok(all_legs) = price_legs_set(&refs, &recoveries, disc, &hazard, AccrualIntegration::Standard) else { continue };
+                for (legs, &m) in all_legs.iter().zip(&CDS_TENORS) {
                     let par = legs.par_spread() * 1e4 * (spec.quote_noise * noise.normal()).exp();
                     rows.push(QuoteRow { date, entity: i, tenor: m, value: QuoteValue::Number(round_to(par, 2)), file: QuoteFile::Year(date.year()), fault: None });
                 }

@@ -7,11 +7,7 @@ use hazardline::config::load_pipeline;
 use hazardline::pipeline::{run, RunOptions};
 use hazardline::report::readback;
 use std::collections::BTreeSet;
-use std::path::PathBuf;
-
-fn repo() -> PathBuf {
-    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
-}
+use super::support::repo;
 
 #[test]
 fn demo_run_writes_bond_and_cir_tables() {

@@ -6,32 +6,8 @@
 use assert_cmd::Command;
 use hazardline::config::load_pipeline;
 use hazardline::pipeline::{run, RunOptions, TABLES};
-use std::collections::BTreeMap;
+use super::support::{files, repo};
 use std::path::{Path, PathBuf};
-
-fn repo() -> PathBuf {
-    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
-}
-
-/// Every file of a run folder except run.log (timings), by relative path.
-fn files(dir: &Path) -> BTreeMap<String, Vec<u8>> {
-    let mut out = BTreeMap::new();
-    let mut stack = vec![dir.to_path_buf()];
-    while let Some(d) = stack.pop() {
-        for e in std::fs::read_dir(&d).unwrap() {
-            let p = e.unwrap().path();
-            if p.is_dir() {
-                stack.push(p);
-            } else {
-                let rel = p.strip_prefix(dir).unwrap().to_string_lossy().replace('\\', "/");
-                if rel != "run.log" {
-                    out.insert(rel, std::fs::read(&p).unwrap());
-                }
-            }
-        }
-    }
-    out
-}
 
 fn fixture_run(root: &Path) -> PathBuf {
     let cfg = load_pipeline(&repo().join("tests/fixtures/sample.toml")).unwrap();
@@ -50,7 +26,7 @@ fn demo_pipeline_end_to_end_and_deterministic() {
     let ra = fixture_run(a.path());
     let rb = fixture_run(b.path());
     assert!(ra.ends_with("sample/fixture"));
-    let (fa, fb) = (files(&ra), files(&rb));
+    let (fa, fb) = (files(&ra, &["run.log"]), files(&rb, &["run.log"]));
     assert_eq!(fa.keys().collect::<Vec<_>>(), fb.keys().collect::<Vec<_>>());
     for (k, v) in &fa {
         assert!(fb[k] == *v, "{k} differs between two runs of the same pipeline");
@@ -117,7 +93,7 @@ fn bundled_demo_report_is_up_to_date() {
     let bundled = repo().join("validation-reports/demo/2015-2019");
     let fresh_root = tempfile::tempdir().unwrap();
     let fresh = demo_run(fresh_root.path());
-    let (a, mut b) = (files(&bundled), files(&fresh));
+    let (a, mut b) = (files(&bundled, &["run.log"]), files(&fresh, &["run.log"]));
     for k in NOT_BUNDLED {
         if !a.contains_key(k) {
             b.remove(k);

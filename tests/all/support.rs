@@ -5,6 +5,33 @@ use hazardline::calibrate::{bootstrap, BootstrapQuote, BootstrapSettings, CurveF
 use hazardline::curves::DiscountCurve;
 use hazardline::instruments::CdsQuote;
 use hazardline::time::{Calendar, Tenor};
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+/// The repository root.
+pub fn repo() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+}
+
+/// Every file under `dir` by relative path (with `/`), except those named in `skip`.
+pub fn files(dir: &Path, skip: &[&str]) -> BTreeMap<String, Vec<u8>> {
+    let mut out = BTreeMap::new();
+    let mut stack = vec![dir.to_path_buf()];
+    while let Some(d) = stack.pop() {
+        for e in std::fs::read_dir(&d).unwrap() {
+            let p = e.unwrap().path();
+            if p.is_dir() {
+                stack.push(p);
+            } else {
+                let rel = p.strip_prefix(dir).unwrap().to_string_lossy().replace('\\', "/");
+                if !skip.contains(&rel.as_str()) {
+                    out.insert(rel, std::fs::read(&p).unwrap());
+                }
+            }
+        }
+    }
+    out
+}
 
 pub fn d(text: &str) -> NaiveDate {
     hazardline::time::parse_iso_date(text).unwrap_or_else(|| panic!("bad test date {text}"))
