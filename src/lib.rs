@@ -15,6 +15,7 @@ pub mod ingest;
 pub mod instruments;
 pub mod math;
 pub mod models;
+pub mod partition;
 pub mod pipeline;
 pub mod report;
 pub mod sim;

@@ -124,6 +124,23 @@ enum Command {
         /// Run label (instead of the pipeline file's report.label).
         #[arg(long)]
         label: Option<String>,
+        /// Run only the per-entity stages for shard I of N (entities split by a fixed hash of
+        /// their name) and write its part beside the run folder, in `<label>.shards/`; `merge`
+        /// finishes the run once every shard has run.
+        #[arg(long, value_name = "I/N", value_parser = parse_shard)]
+        shard: Option<hazardline::partition::Shard>,
+    },
+    /// Finish a sharded run: read the parts of every shard (`run --shard I/N`, I = 1..N) and
+    /// write the run folder, the same files a single run writes.
+    Merge {
+        /// The pipeline file (TOML) the shards ran.
+        pipeline: PathBuf,
+        /// Output root the shards wrote under (instead of the pipeline file's report.output_root).
+        #[arg(long)]
+        out: Option<PathBuf>,
+        /// Run label the shards used (instead of the pipeline file's report.label).
+        #[arg(long)]
+        label: Option<String>,
     },
     /// Re-render report.md and its figures from an earlier run's tables.
     Report {
@@ -223,6 +240,33 @@ fn print_reasons(reasons: &[(String, &'static str, usize)]) {
     }
 }
 
+/// Prints what a whole run (or a merge) did and picks the exit code.
+fn finish_run(cfg: &hazardline::config::RunConfig, result: hazardline::error::Result<hazardline::pipeline::RunSummary>) -> anyhow::Result<ExitCode> {
+    match result {
+        Ok(s) => {
+            print_counts(&s.counts);
+            println!("curves: {} ({} with every node ok); largest |residual| on ok nodes {:.3e} bp", s.curves, s.curves_complete, s.max_abs_residual_bp);
+            println!("rejected rows: {}; flags: {} ({} red)", s.rejected, s.flags, s.red_flags);
+            for (stage, secs) in &s.timings {
+                tracing::info!(stage = stage.as_str(), seconds = secs, "stage finished");
+            }
+            println!("report: {}", s.run_dir.join("report.md").display());
+            if cfg.fail_on_red_flags && s.red_flags > 0 {
+                return Ok(ExitCode::from(1));
+            }
+            Ok(ExitCode::SUCCESS)
+        }
+        Err(e) => {
+            eprintln!("error: {e}");
+            Ok(ExitCode::from(e.exit_code() as u8))
+        }
+    }
+}
+
+fn parse_shard(s: &str) -> Result<hazardline::partition::Shard, String> {
+    hazardline::partition::Shard::parse(s)
+}
+
 fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Calibrate { inputs, recovery, infeasible, accrual, out } => {
@@ -282,7 +326,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 }
             }
         }
-        Command::Run { pipeline, out, label } => {
+        Command::Run { pipeline, out, label, shard } => {
             let cfg = match hazardline::config::load_pipeline(&pipeline) {
                 Ok(c) => c,
                 Err(e) => {
@@ -290,25 +334,34 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     return Ok(ExitCode::from(2));
                 }
             };
-            match hazardline::pipeline::run(&cfg, &hazardline::pipeline::RunOptions { out_root: out, label }) {
-                Ok(s) => {
-                    print_counts(&s.counts);
-                    println!("curves: {} ({} with every node ok); largest |residual| on ok nodes {:.3e} bp", s.curves, s.curves_complete, s.max_abs_residual_bp);
-                    println!("rejected rows: {}; flags: {} ({} red)", s.rejected, s.flags, s.red_flags);
-                    for (stage, secs) in &s.timings {
-                        tracing::info!(stage = stage.as_str(), seconds = secs, "stage finished");
+            let opts = hazardline::pipeline::RunOptions { out_root: out, label };
+            if let Some(shard) = shard {
+                return match hazardline::pipeline::run_shard(&cfg, &opts, shard) {
+                    Ok(s) => {
+                        println!("shard {shard}: {} entities, {} curves", s.entities, s.curves);
+                        for (stage, secs, _, _) in &s.timings {
+                            tracing::info!(stage = stage.as_str(), seconds = secs, "stage finished");
+                        }
+                        println!("part: {}", s.part_dir.display());
+                        Ok(ExitCode::SUCCESS)
                     }
-                    println!("report: {}", s.run_dir.join("report.md").display());
-                    if cfg.fail_on_red_flags && s.red_flags > 0 {
-                        return Ok(ExitCode::from(1));
+                    Err(e) => {
+                        eprintln!("error: {e}");
+                        Ok(ExitCode::from(e.exit_code() as u8))
                     }
-                    Ok(ExitCode::SUCCESS)
-                }
+                };
+            }
+            finish_run(&cfg, hazardline::pipeline::run(&cfg, &opts))
+        }
+        Command::Merge { pipeline, out, label } => {
+            let cfg = match hazardline::config::load_pipeline(&pipeline) {
+                Ok(c) => c,
                 Err(e) => {
                     eprintln!("error: {e}");
-                    Ok(ExitCode::from(e.exit_code() as u8))
+                    return Ok(ExitCode::from(2));
                 }
-            }
+            };
+            finish_run(&cfg, hazardline::pipeline::merge(&cfg, &hazardline::pipeline::RunOptions { out_root: out, label }))
         }
         Command::Report { run_dir } => match hazardline::report::markdown::render(&run_dir) {
             Ok(()) => {

@@ -5,17 +5,24 @@
 //! The folder is built under a temporary name beside its final place and renamed at the end,
 //! so an interrupted run leaves no folder that looks complete; each file inside is itself
 //! written to a temporary name first. Everything but `run.log` is deterministic.
+//!
+//! A run can also be split by entity: `run --shard I/N` computes the per-entity half of the
+//! run (see [`crate::partition`]) for shard I of N and writes it to
+//! `<output root>/<pipeline name>/<run label>.shards/part-I-of-N/`; [`merge`] then reads every
+//! part and finishes the run into the same run folder, byte for byte as a single run.
 
-use crate::commands::calibrate::{calibrate_dataset, metadata, CalibrationParams};
-use crate::commands::backtest::{run_backtest_stage, write_backtest_tables, BacktestResults};
-use crate::commands::intensity::calibrate_intensity;
+use crate::commands::backtest::{backtest_from_members, first_defaults, write_backtest_tables, BacktestContext, BacktestResults};
+use crate::commands::calibrate::{metadata, CalibrationParams};
 use crate::commands::review::{quality_flags, run_stability, stability_inputs, write_flags, write_stability_tables, AnyFlag, GradeBook};
+use crate::ingest::Dataset;
+use crate::partition::{compute_partition, keep_shard, read_partition, write_partition, Partition, Shard, StageTiming};
 use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::{load, TableCounts};
 use crate::report::manifest::{hash_file, relative, write_text, CountRecord, FileRecord, InputRecord, Manifest};
 use crate::report::markdown;
 use crate::report::tables::*;
+use std::collections::BTreeSet;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
@@ -44,7 +51,7 @@ pub struct RunSummary {
 }
 
 /// (resident, peak resident) memory of this process in MiB, from /proc/self/status.
-fn memory_mib() -> (f64, f64) {
+pub fn memory_mib() -> (f64, f64) {
     let s = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
     let field = |name: &str| {
         s.lines()
@@ -88,59 +95,228 @@ pub const TABLES: [&str; 20] = [
     "flags",
 ];
 
-/// Runs the pipeline.
-pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
-    let mut timings: Vec<(String, f64)> = Vec::new();
-    let mut memory: Vec<(String, f64, f64)> = Vec::new();
-    let t0 = Instant::now();
+fn calibration_params(cfg: &RunConfig) -> CalibrationParams {
+    CalibrationParams { recovery: cfg.recovery, recovery_by_seniority: cfg.recovery_by_seniority.clone(), bootstrap: cfg.bootstrap, calendar: cfg.calendar.clone() }
+}
+
+/// First and last date of the usable CDS quotes (the panel is sorted by date).
+fn quote_period(ds: &Dataset) -> Option<(chrono::NaiveDate, chrono::NaiveDate)> {
+    ds.cds.as_ref().and_then(|p| Some((p.rows.first()?.date, p.rows.last()?.date)))
+}
+
+fn run_label(cfg: &RunConfig, opts: &RunOptions, period: Option<(chrono::NaiveDate, chrono::NaiveDate)>) -> String {
+    opts.label.clone().or_else(|| cfg.label.clone()).unwrap_or_else(|| period.map_or("run".to_string(), |(_, b)| format!("asof-{b}")))
+}
+
+fn output_root(cfg: &RunConfig, opts: &RunOptions) -> PathBuf {
+    opts.out_root.clone().unwrap_or_else(|| cfg.output_root.clone())
+}
+
+/// Where the shards of a run write their parts: beside the run folder, as `<label>.shards`.
+pub fn shards_dir(cfg: &RunConfig, opts: &RunOptions, label: &str) -> PathBuf {
+    output_root(cfg, opts).join(&cfg.name).join(format!("{label}.shards"))
+}
+
+/// Loads every input and shows its sources relative to the pipeline file.
+fn ingest(cfg: &RunConfig, timings: &mut Vec<StageTiming>) -> Result<Dataset> {
+    let t = Instant::now();
     let mut ds = load(&cfg.inputs, &cfg.calendar, &cfg.quality)?;
-    timings.push(("ingest".into(), t0.elapsed().as_secs_f64()));
-    let (rss, peak) = memory_mib();
-    memory.push(("ingest".into(), rss, peak));
-    let ingest_counts = ds.counts.clone();
     let base = cfg.pipeline_path.parent().map(Path::to_path_buf).unwrap_or_default();
     ds.relabel_sources(&base);
+    let (rss, peak) = memory_mib();
+    timings.push(("ingest".into(), t.elapsed().as_secs_f64(), rss, peak));
+    Ok(ds)
+}
 
-    let t1 = Instant::now();
-    let params = CalibrationParams {
-        recovery: cfg.recovery,
-        recovery_by_seniority: cfg.recovery_by_seniority.clone(),
-        bootstrap: cfg.bootstrap,
-        calendar: cfg.calendar.clone(),
+/// Runs the pipeline on the whole universe.
+pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
+    let t0 = Instant::now();
+    let mut timings = Vec::new();
+    let mut ds = ingest(cfg, &mut timings)?;
+    let ingest_counts = ds.counts.clone();
+    let (part, t) = compute_partition(&mut ds, cfg, &calibration_params(cfg), Shard::ALL)?;
+    timings.extend(t);
+    finish(cfg, opts, ds, ingest_counts, vec![part], timings, t0)
+}
+
+/// What one shard did.
+#[derive(Debug, Clone)]
+pub struct ShardSummary {
+    pub part_dir: PathBuf,
+    pub curves: usize,
+    pub entities: usize,
+    pub timings: Vec<StageTiming>,
+}
+
+/// Runs the per-entity half of the pipeline for one shard and writes its part. Every shard
+/// reads the whole input (the data-quality rules and the run label need it) and keeps its
+/// own entities' rows for calibration.
+pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard) -> Result<ShardSummary> {
+    let t0 = Instant::now();
+    let mut timings = Vec::new();
+    let mut ds = ingest(cfg, &mut timings)?;
+    let label = run_label(cfg, opts, quote_period(&ds));
+    keep_shard(&mut ds, shard);
+    let (part, t) = compute_partition(&mut ds, cfg, &calibration_params(cfg), shard)?;
+    timings.extend(t);
+    drop(ds);
+    let t = Instant::now();
+    let (_, sha) = hash_file(&cfg.pipeline_path)?;
+    let dir = shards_dir(cfg, opts, &label).join(shard.folder());
+    write_partition(&dir, &part, shard, &sha)?;
+    let (rss, peak) = memory_mib();
+    timings.push(("write part".into(), t.elapsed().as_secs_f64(), rss, peak));
+    let mut log = String::from("stage\tseconds\trss_mib\tpeak_rss_mib\n");
+    for (s, v, rss, peak) in &timings {
+        log += &format!("{s}\t{v:.3}\t{rss:.0}\t{peak:.0}\n");
+    }
+    log += &format!("total\t{:.3}\n", t0.elapsed().as_secs_f64());
+    write_text(&dir.join("run.log"), &log)?;
+    Ok(ShardSummary { part_dir: dir, curves: part.curves, entities: part.curve_entities.len(), timings })
+}
+
+/// Finishes a sharded run: reads every part under the run's `.shards` folder, checks that
+/// they are shards 1..N of one N made from this pipeline file, and runs the pooled half of
+/// the pipeline into the run folder.
+pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
+    let t0 = Instant::now();
+    let mut timings = Vec::new();
+    let ds = ingest(cfg, &mut timings)?;
+    let ingest_counts = ds.counts.clone();
+    let label = run_label(cfg, opts, quote_period(&ds));
+    let t = Instant::now();
+    let dir = shards_dir(cfg, opts, &label);
+    let parts = read_parts(&dir, &cfg.pipeline_path)?;
+    let (rss, peak) = memory_mib();
+    timings.push(("read parts".into(), t.elapsed().as_secs_f64(), rss, peak));
+    finish(cfg, opts, ds, ingest_counts, parts, timings, t0)
+}
+
+fn read_parts(dir: &Path, pipeline: &Path) -> Result<Vec<Partition>> {
+    let bad = |message: String| Error::Argument { name: "merge", message };
+    let entries = std::fs::read_dir(dir).map_err(|e| bad(format!("no shard parts at {}: {e}; run `hazardline run PIPELINE --shard I/N` for every shard first", dir.display())))?;
+    let mut folders: Vec<PathBuf> = entries
+        .filter_map(|e| e.ok())
+        .map(|e| e.path())
+        .filter(|p| p.is_dir() && p.file_name().is_some_and(|n| n.to_string_lossy().starts_with("part-")))
+        .collect();
+    folders.sort();
+    if folders.is_empty() {
+        return Err(bad(format!("no shard parts in {}", dir.display())));
+    }
+    let (_, sha) = hash_file(pipeline)?;
+    let mut metas = Vec::new();
+    for f in &folders {
+        let m = crate::partition::read_meta(f)?;
+        if m.pipeline_sha256 != sha {
+            return Err(bad(format!("{} was made from another version of the pipeline file (SHA-256 {}, this one {sha}); rerun that shard", f.display(), m.pipeline_sha256)));
+        }
+        if m.version != env!("CARGO_PKG_VERSION") {
+            return Err(bad(format!("{} was made by hazardline {}, this is {}; rerun that shard", f.display(), m.version, env!("CARGO_PKG_VERSION"))));
+        }
+        metas.push(m);
+    }
+    let n = metas[0].shards;
+    if let Some(m) = metas.iter().find(|m| m.shards != n) {
+        return Err(bad(format!("{} holds parts of {n} and of {} shards; keep one set", dir.display(), m.shards)));
+    }
+    let have: BTreeSet<u32> = metas.iter().map(|m| m.shard).collect();
+    let lacking: Vec<String> = (1..=n).filter(|i| !have.contains(i)).map(|i| format!("{i}/{n}")).collect();
+    if !lacking.is_empty() || have.len() != metas.len() {
+        return Err(bad(format!("{}: shards {} are missing (or a shard is there twice); run them, then merge", dir.display(), lacking.join(", "))));
+    }
+    let mut by_index: Vec<(u32, PathBuf)> = metas.iter().map(|m| m.shard).zip(folders).collect();
+    by_index.sort();
+    by_index.into_iter().map(|(_, f)| read_partition(&f).map(|(_, p)| p)).collect()
+}
+
+/// The rows of every part, in one canonical order (a curve's rows stay in their order: each
+/// curve is computed in one part).
+fn combine(parts: Vec<Partition>) -> Result<Partition> {
+    let mut all = Partition { max_abs_residual_bp: 0.0, ..Default::default() };
+    let mut dates: Vec<(chrono::NaiveDate, chrono::NaiveDate)> = Vec::new();
+    let mut entities = BTreeSet::new();
+    let mut multi = BTreeSet::new();
+    for mut p in parts {
+        all.hazard.append(&mut p.hazard);
+        all.residuals.append(&mut p.residuals);
+        all.params.append(&mut p.params);
+        all.basis.append(&mut p.basis);
+        all.discount.append(&mut p.discount);
+        all.rejects.append(&mut p.rejects);
+        all.curve_obs.append(&mut p.curve_obs);
+        all.market.append(&mut p.market);
+        for (k, (r, mut v)) in p.members.into_iter().enumerate() {
+            match all.members.get_mut(k) {
+                Some((r0, v0)) if r0.to_bits() == r.to_bits() => v0.append(&mut v),
+                Some((r0, _)) => return Err(Error::Other(format!("parts disagree on the recovery scenarios ({r0} and {r}); rerun every shard with one pipeline file"))),
+                None => all.members.push((r, v)),
+            }
+        }
+        all.curves += p.curves;
+        all.curves_complete += p.curves_complete;
+        all.max_abs_residual_bp = all.max_abs_residual_bp.max(p.max_abs_residual_bp);
+        dates.extend(p.curve_dates);
+        entities.extend(p.curve_entities);
+        multi.extend(p.multi_currency);
+    }
+    all.curve_dates = dates.iter().map(|d| d.0).min().zip(dates.iter().map(|d| d.1).max());
+    all.curve_entities = entities.into_iter().collect();
+    all.multi_currency = multi.into_iter().collect();
+    let rank = |s: &str| u8::from(s != "cds");
+    all.hazard.sort_by(|a, b| (rank(a.source), a.date, &a.entity, &a.currency).cmp(&(rank(b.source), b.date, &b.entity, &b.currency)));
+    all.residuals.sort_by(|a, b| (a.method, a.date, &a.entity, &a.currency).cmp(&(b.method, b.date, &b.entity, &b.currency)));
+    all.params.sort_by(|a, b| (a.date, &a.entity, &a.currency).cmp(&(b.date, &b.entity, &b.currency)));
+    all.basis.sort_by(|a, b| (a.date, &a.entity, &a.currency).cmp(&(b.date, &b.entity, &b.currency)));
+    all.rejects.sort_by(|a, b| (a.table, &a.source, a.row).cmp(&(b.table, &b.source, b.row)));
+    Ok(all)
+}
+
+/// The pooled half of a run: accounting, backtest, stability, flags, tables, manifest, report.
+fn finish(cfg: &RunConfig, opts: &RunOptions, mut ds: Dataset, ingest_counts: Vec<TableCounts>, parts: Vec<Partition>, mut timings: Vec<StageTiming>, t0: Instant) -> Result<RunSummary> {
+    let params = calibration_params(cfg);
+    let period = quote_period(&ds);
+    if let Some(p) = &mut ds.cds {
+        // The quotes themselves are not needed any more.
+        p.rows = Vec::new();
+    }
+    let mut cal = combine(parts)?;
+
+    // Accounting after calibration: the rows its stages rejected move from used to rejected.
+    let mut counts = ingest_counts.clone();
+    for c in counts.iter_mut() {
+        c.rejected += cal.rejects.iter().filter(|r| r.table == c.table).count();
+        c.used = c.rows_in.checked_sub(c.rejected).ok_or_else(|| {
+            Error::Other(format!("row accounting of {} does not add up after calibration ({} in, {} rejected); this is a bug, please report it", c.table, c.rows_in, c.rejected))
+        })?;
+    }
+
+    let t = Instant::now();
+    let backtest = if cfg.backtest.enabled {
+        let with_curves: BTreeSet<&str> = cal.curve_entities.iter().map(String::as_str).collect();
+        let ctx = BacktestContext {
+            curve_dates: cal.curve_dates,
+            have_defaults: ds.defaults.is_some(),
+            cohort_history: ds.cohort_history.as_ref(),
+            defaults_without_curves: first_defaults(&ds).keys().filter(|e| !with_curves.contains(*e)).count(),
+        };
+        backtest_from_members(std::mem::take(&mut cal.members), &ctx, &params, &cfg.backtest)?
+    } else {
+        BacktestResults::default()
     };
-    let mut cal = if cfg.cds_bootstrap { calibrate_dataset(&mut ds, &params)? } else { Default::default() };
-    timings.push(("calibrate".into(), t1.elapsed().as_secs_f64()));
     let (rss, peak) = memory_mib();
-    memory.push(("calibrate".into(), rss, peak));
-    let t1b = Instant::now();
-    let mut fits = calibrate_intensity(&mut ds, &cal, &params, &cfg.intensity)?;
-    cal.hazard.append(&mut fits.hazard);
-    cal.residuals.append(&mut fits.residuals);
-    cal.rejects.append(&mut fits.rejects);
-    timings.push(("bond and CIR fits".into(), t1b.elapsed().as_secs_f64()));
-    let (rss, peak) = memory_mib();
-    memory.push(("bond and CIR fits".into(), rss, peak));
-
-    let t1c = Instant::now();
-    let backtest = if cfg.backtest.enabled { run_backtest_stage(&ds, &cal, &params, &cfg.backtest)? } else { BacktestResults::default() };
-    timings.push(("backtest".into(), t1c.elapsed().as_secs_f64()));
-    let (rss, peak) = memory_mib();
-    memory.push(("backtest".into(), rss, peak));
-    let t1d = Instant::now();
+    timings.push(("backtest".into(), t.elapsed().as_secs_f64(), rss, peak));
+    let t = Instant::now();
     let grades = GradeBook::new(&ds);
-    let stability = run_stability(&stability_inputs(&cal, &fits.params, &grades), &cfg.stability)?;
-    timings.push(("stability".into(), t1d.elapsed().as_secs_f64()));
+    let multi: BTreeSet<String> = cal.multi_currency.iter().cloned().collect();
+    let inputs = stability_inputs(std::mem::take(&mut cal.curve_obs), std::mem::take(&mut cal.market), &cal.hazard, &cal.residuals, &cal.params, &grades, &multi);
+    let stability = run_stability(&inputs, &cfg.stability)?;
+    drop(inputs);
     let (rss, peak) = memory_mib();
-    memory.push(("stability".into(), rss, peak));
+    timings.push(("stability".into(), t.elapsed().as_secs_f64(), rss, peak));
 
-    let period = ds.cds.as_ref().and_then(|p| Some((p.rows.first()?.date, p.rows.last()?.date)));
-    let label = opts
-        .label
-        .clone()
-        .or_else(|| cfg.label.clone())
-        .unwrap_or_else(|| period.map_or("run".to_string(), |(_, b)| format!("asof-{b}")));
-    let root = opts.out_root.clone().unwrap_or_else(|| cfg.output_root.clone());
-    let final_dir = root.join(&cfg.name).join(&label);
+    let label = run_label(cfg, opts, period);
+    let final_dir = output_root(cfg, opts).join(&cfg.name).join(&label);
     let parent = final_dir.parent().unwrap_or(Path::new(".")).to_path_buf();
     std::fs::create_dir_all(&parent).map_err(|e| Error::Write { path: parent.clone(), message: e.to_string() })?;
     let work = parent.join(format!(".{label}.partial-{}", std::process::id()));
@@ -158,19 +334,19 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     write_discount_curves(&cal.discount, &tables.join("discount_curves.parquet"), &meta)?;
     write_hazard_curves(&cal.hazard, &tables.join("hazard_curves.parquet"), &meta)?;
     write_residuals(&cal.residuals, &tables.join("calibration_residuals.parquet"), &meta)?;
-    write_intensity_params(&fits.params, &tables.join("intensity_params.parquet"), &meta)?;
-    write_basis(&fits.basis, &tables.join("cds_bond_basis.parquet"), &meta)?;
+    write_intensity_params(&cal.params, &tables.join("intensity_params.parquet"), &meta)?;
+    write_basis(&cal.basis, &tables.join("cds_bond_basis.parquet"), &meta)?;
     write_backtest_tables(&backtest, &tables, &meta)?;
     write_stability_tables(&stability, &tables, &meta)?;
     let mut all_flags = quality_flags(&ds);
     all_flags.extend(stability.flags.iter().map(|f| AnyFlag { stage: "stability", flag: f.clone(), table: None, source: None, row: None }));
     let red_flags = all_flags.iter().filter(|f| f.flag.severity == "red").count();
     write_flags(&all_flags, &tables.join("flags.parquet"), &meta)?;
-    timings.push(("write tables".into(), t2.elapsed().as_secs_f64()));
     let (rss, peak) = memory_mib();
-    memory.push(("write tables".into(), rss, peak));
+    timings.push(("write tables".into(), t2.elapsed().as_secs_f64(), rss, peak));
 
     // Manifest.
+    let base = cfg.pipeline_path.parent().map(Path::to_path_buf).unwrap_or_default();
     let (bytes, sha) = hash_file(&cfg.pipeline_path)?;
     let mut inputs = Vec::new();
     for c in &ingest_counts {
@@ -179,8 +355,8 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
             inputs.push(InputRecord { table: c.table.into(), path: relative(f, &base), bytes: b, sha256: h });
         }
     }
-    let mut counts = counts_records("ingest", &ingest_counts);
-    counts.extend(counts_records("calibrate", &ds.counts));
+    let mut count_rows = counts_records("ingest", &ingest_counts);
+    count_rows.extend(counts_records("calibrate", &counts));
     let manifest = Manifest {
         tool: "hazardline".into(),
         version: env!("CARGO_PKG_VERSION").into(),
@@ -189,7 +365,7 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
         label: label.clone(),
         period: period.map(|(a, b)| (a.to_string(), b.to_string())),
         inputs,
-        counts,
+        counts: count_rows,
         settings: serde_json::to_value(cfg).map_err(|e| Error::Other(format!("settings: {e}")))?,
         tables: TABLES.iter().map(|t| format!("tables/{t}.parquet")).collect(),
     };
@@ -198,20 +374,18 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
 
     // The report reads the written tables back: free the in-memory results first, so that the
     // run's peak memory is the largest stage's, not the sum of them.
-    let (ds_counts, n_curves, n_complete, max_res) = (ds.counts.clone(), cal.curves, cal.curves_complete, cal.max_abs_residual_bp);
+    let (n_curves, n_complete, max_res) = (cal.curves, cal.curves_complete, cal.max_abs_residual_bp);
     drop(cal);
-    drop(fits);
     drop(stability);
     drop(backtest);
     drop(ds);
     let t3 = Instant::now();
     markdown::render(&work)?;
-    timings.push(("report".into(), t3.elapsed().as_secs_f64()));
     let (rss, peak) = memory_mib();
-    memory.push(("report".into(), rss, peak));
+    timings.push(("report".into(), t3.elapsed().as_secs_f64(), rss, peak));
     let total = t0.elapsed().as_secs_f64();
     let mut log = String::from("stage\tseconds\trss_mib\tpeak_rss_mib\n");
-    for ((s, v), (_, rss, peak)) in timings.iter().zip(&memory) {
+    for (s, v, rss, peak) in &timings {
         log += &format!("{s}\t{v:.3}\t{rss:.0}\t{peak:.0}\n");
     }
     log += &format!("total\t{total:.3}\n");
@@ -225,14 +399,14 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
 
     Ok(RunSummary {
         run_dir: final_dir,
-        counts: ds_counts,
+        counts,
         curves: n_curves,
         curves_complete: n_complete,
         max_abs_residual_bp: max_res,
         flags: all_flags.len(),
         red_flags,
         rejected: rejects.len(),
-        timings,
-        memory,
+        timings: timings.iter().map(|(s, v, _, _)| (s.clone(), *v)).collect(),
+        memory: timings.iter().map(|(s, _, r, p)| (s.clone(), *r, *p)).collect(),
     })
 }

@@ -66,10 +66,18 @@ impl Observation {
 /// Builds every observation of every cohort date and horizon, bucketed per the settings.
 /// Settings are assumed checked ([`BacktestSettings::check`]).
 pub fn build_observations(facts: &[EntityFacts], curves: &CurveSet, settings: &BacktestSettings) -> Result<Vec<Observation>, BacktestError> {
+    let mut obs = member_observations(facts, curves, settings)?;
+    bucket_observations(&mut obs, settings);
+    Ok(obs)
+}
+
+/// The observations of every cohort date and horizon, cohort-major, then in the order of
+/// `facts`, then of the horizons, with every bucket left `Ungraded`. Everything here depends on
+/// one entity alone, so the members of disjoint entity sets can be built apart and
+/// concatenated; [`bucket_observations`] then assigns buckets over the whole set (PD quantile
+/// bands pool every member).
+pub fn member_observations(facts: &[EntityFacts], curves: &CurveSet, settings: &BacktestSettings) -> Result<Vec<Observation>, BacktestError> {
     let mut obs = Vec::new();
-    let shortest = *settings.horizons_years.iter().min().unwrap_or(&1);
-    // PD at the shortest horizon per (cohort, entity), for PD bands.
-    let mut band_pd = Vec::new();
     for &t in &settings.cohort_dates {
         for f in facts {
             if !is_member(f, t) {
@@ -93,15 +101,19 @@ pub fn build_observations(facts: &[EntityFacts], curves: &CurveSet, settings: &B
                     integrated_hazard: dc.curve.integrated_hazard(exposure),
                     spread_bp: dc.spreads.iter().find(|s| s.tenor_months == 12 * h).map(|s| s.spread_bp),
                 };
-                if h == shortest {
-                    band_pd.push(((t, f.entity.clone()), o.implied_pd));
-                }
                 obs.push(o);
             }
         }
     }
-    assign_buckets(&mut obs, &band_pd, &settings.bucketing);
     Ok(obs)
+}
+
+/// Assigns each observation its bucket per the settings; PD bands use the implied PD at the
+/// shortest horizon of the same (cohort, entity).
+pub fn bucket_observations(obs: &mut [Observation], settings: &BacktestSettings) {
+    let shortest = *settings.horizons_years.iter().min().unwrap_or(&1);
+    let band_pd: Vec<((NaiveDate, String), f64)> = obs.iter().filter(|o| o.horizon_years == shortest).map(|o| ((o.cohort, o.entity.clone()), o.implied_pd)).collect();
+    assign_buckets(obs, &band_pd, &settings.bucketing);
 }
 
 /// Alive at t (no default on or before t) and with data covering t.

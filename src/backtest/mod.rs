@@ -29,7 +29,7 @@ pub mod history;
 pub mod premia;
 
 pub use buckets::{bucket_rows, hosmer_lemeshow_rows, BucketRow, HosmerLemeshowRow};
-pub use cohort::{build_observations, Bucket, Observation, Outcome};
+pub use cohort::{bucket_observations, build_observations, member_observations, Bucket, Observation, Outcome};
 pub use history::{compare_cohort_history, CohortHistoryRecord, HistoryRow};
 pub use premia::{risk_premium_rows, RiskPremiumRow};
 
@@ -199,11 +199,23 @@ pub fn run_backtest(facts: &[EntityFacts], curves: &CurveSet, settings: &Backtes
     if !(curves.recovery >= 0.0 && curves.recovery < 1.0) {
         return Err(BacktestError::BadRecovery(curves.recovery));
     }
-    let obs = build_observations(facts, curves, settings)?;
+    let obs = member_observations(facts, curves, settings)?;
+    backtest_members(obs, settings, curves.recovery)
+}
+
+/// The tests and premia of one curve set from its members ([`member_observations`], possibly
+/// concatenated over disjoint entity sets in the same order): buckets, bucket tests,
+/// Hosmer-Lemeshow, risk premia.
+pub fn backtest_members(mut obs: Vec<Observation>, settings: &BacktestSettings, recovery: f64) -> Result<BacktestOutput, BacktestError> {
+    settings.check()?;
+    if !(recovery >= 0.0 && recovery < 1.0) {
+        return Err(BacktestError::BadRecovery(recovery));
+    }
+    bucket_observations(&mut obs, settings);
     let buckets = bucket_rows(&obs, settings)?;
     let hosmer_lemeshow = hosmer_lemeshow_rows(&obs, settings);
-    let risk_premia = risk_premium_rows(&obs, settings, curves.recovery)?;
-    Ok(BacktestOutput { recovery: curves.recovery, buckets, hosmer_lemeshow, risk_premia })
+    let risk_premia = risk_premium_rows(&obs, settings, recovery)?;
+    Ok(BacktestOutput { recovery, buckets, hosmer_lemeshow, risk_premia })
 }
 
 /// Runs [`run_backtest`] once per recovery scenario (each a curve set with its recovery), so

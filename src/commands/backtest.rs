@@ -101,8 +101,9 @@ pub fn spreads_of(quotes: &[BootstrapQuote]) -> Vec<QuotedSpread> {
         .collect()
 }
 
-/// Entity facts: grade spells, first default, and the last curve date.
-fn facts(ds: &Dataset, cal: &Calibration) -> (Vec<EntityFacts>, usize) {
+/// Entity facts of the calibrated entities: grade spells, first default, and the last curve
+/// date.
+fn facts(ds: &Dataset, cal: &Calibration) -> Vec<EntityFacts> {
     let mut last: BTreeMap<&str, NaiveDate> = BTreeMap::new();
     for (d, e, _) in cal.cds_curves.keys() {
         let slot = last.entry(e.as_str()).or_insert(*d);
@@ -116,6 +117,14 @@ fn facts(ds: &Dataset, cal: &Calibration) -> (Vec<EntityFacts>, usize) {
             spells.entry(r.entity.as_str()).or_default().push(GradeSpell { from_date: r.from_date, grade: r.grade });
         }
     }
+    let defaults = first_defaults(ds);
+    last.iter()
+        .map(|(e, end)| EntityFacts { entity: e.to_string(), grades: spells.get(e).cloned().unwrap_or_default(), default_date: defaults.get(*e).copied(), data_end: *end })
+        .collect()
+}
+
+/// The first default date per entity of the defaults table.
+pub fn first_defaults(ds: &Dataset) -> BTreeMap<&str, NaiveDate> {
     let mut defaults: BTreeMap<&str, NaiveDate> = BTreeMap::new();
     if let Some(d) = &ds.defaults {
         for (r, _) in &d.rows {
@@ -125,12 +134,7 @@ fn facts(ds: &Dataset, cal: &Calibration) -> (Vec<EntityFacts>, usize) {
             }
         }
     }
-    let without = defaults.keys().filter(|e| !last.contains_key(*e)).count();
-    let out = last
-        .iter()
-        .map(|(e, end)| EntityFacts { entity: e.to_string(), grades: spells.get(e).cloned().unwrap_or_default(), default_date: defaults.get(e).copied(), data_end: *end })
-        .collect();
-    (out, without)
+    defaults
 }
 
 /// The base curve set: every fully calibrated CDS curve.
@@ -172,34 +176,79 @@ fn scenario_curves(cal: &Calibration, base: &CurveSet, dates: &[NaiveDate], look
     CurveSet::from_keyed(recovery, items)
 }
 
-/// Runs the stage.
-pub fn run_backtest_stage(ds: &Dataset, cal: &Calibration, p: &CalibrationParams, stage: &BacktestStage) -> Result<BacktestResults> {
+/// The members of every cohort, per recovery (base first, then each scenario that differs
+/// from it), for the entities this calibration covers.
+///
+/// The cohort dates of a run follow from the first and last curve date of the whole universe,
+/// which one entity shard does not know; members are built for every cohort date a curve of
+/// these entities can reach (the shard's own first curve date up to its last plus the
+/// look-back), and [`backtest_from_members`] keeps those of the run's cohort dates. Every
+/// member depends on its entity alone, so shards' members concatenate exactly.
+pub fn backtest_members_stage(ds: &Dataset, cal: &Calibration, p: &CalibrationParams, stage: &BacktestStage) -> Result<Vec<(f64, Vec<backtest::Observation>)>> {
     let (Some(first), Some(last)) = (cal.cds_curves.keys().map(|k| k.0).min(), cal.cds_curves.keys().map(|k| k.0).max()) else {
-        return Ok(BacktestResults::default());
+        return Ok(Vec::new());
     };
-    let dates = cohort_dates(first, last, stage.frequency, &p.calendar);
-    let mut results = BacktestResults { cohort_dates: dates.clone(), ..Default::default() };
+    let reach = last + chrono::Duration::days(stage.core.lookback_days.max(0));
+    let dates = cohort_dates(first, reach, stage.frequency, &p.calendar);
     if dates.is_empty() {
-        return Ok(results);
+        return Ok(Vec::new());
     }
     let core = BacktestSettings { cohort_dates: dates.clone(), ..stage.core.clone() };
-    let (facts, without) = facts(ds, cal);
-    results.defaults_without_curves = without;
-    let base = base_curves(cal, p.recovery);
     let mk = |e: backtest::BacktestError| Error::Other(format!("backtest stage: {e}"));
-    let mut outputs = vec![backtest::run_backtest(&facts, &base, &core).map_err(mk)?];
+    core.check().map_err(mk)?;
+    let facts = facts(ds, cal);
+    let base = base_curves(cal, p.recovery);
+    let mut out = vec![(p.recovery, backtest::member_observations(&facts, &base, &core).map_err(mk)?)];
     for &r in &stage.recovery_scenarios {
         if (r - p.recovery).abs() < 1e-12 {
             continue;
         }
         let set = scenario_curves(cal, &base, &dates, core.lookback_days, r, p);
-        outputs.push(backtest::run_backtest(&facts, &set, &core).map_err(mk)?);
+        out.push((r, backtest::member_observations(&facts, &set, &core).map_err(mk)?));
     }
-    let have_defaults = ds.defaults.is_some();
-    if have_defaults {
+    Ok(out)
+}
+
+/// What the backtest needs besides the members: the run's curve-date range, and the
+/// outcome tables of the inputs.
+pub struct BacktestContext<'a> {
+    /// First and last CDS curve date of the whole run.
+    pub curve_dates: Option<(NaiveDate, NaiveDate)>,
+    pub have_defaults: bool,
+    pub cohort_history: Option<&'a crate::ingest::tables::Rows<crate::ingest::tables::CohortHistoryRow>>,
+    /// Entities with a defaults row but no curve.
+    pub defaults_without_curves: usize,
+}
+
+/// The stage's results from the members of every partition (concatenated in any order: they
+/// are put in cohort, entity, horizon order here).
+pub fn backtest_from_members(mut members: Vec<(f64, Vec<backtest::Observation>)>, ctx: &BacktestContext, p: &CalibrationParams, stage: &BacktestStage) -> Result<BacktestResults> {
+    let Some((first, last)) = ctx.curve_dates else {
+        return Ok(BacktestResults::default());
+    };
+    let dates = cohort_dates(first, last, stage.frequency, &p.calendar);
+    let mut results = BacktestResults { cohort_dates: dates.clone(), defaults_without_curves: ctx.defaults_without_curves, ..Default::default() };
+    if dates.is_empty() {
+        return Ok(results);
+    }
+    let core = BacktestSettings { cohort_dates: dates.clone(), ..stage.core.clone() };
+    let mk = |e: backtest::BacktestError| Error::Other(format!("backtest stage: {e}"));
+    let horizon_rank = |h: u32| core.horizons_years.iter().position(|x| *x == h).unwrap_or(usize::MAX);
+    let wanted: BTreeSet<NaiveDate> = dates.iter().copied().collect();
+    let mut outputs = Vec::new();
+    for (recovery, obs) in members.iter_mut() {
+        obs.retain(|o| wanted.contains(&o.cohort));
+        obs.sort_by(|a, b| (a.cohort, &a.entity, horizon_rank(a.horizon_years)).cmp(&(b.cohort, &b.entity, horizon_rank(b.horizon_years))));
+        outputs.push(backtest::backtest_members(std::mem::take(obs), &core, *recovery).map_err(mk)?);
+    }
+    if outputs.is_empty() {
+        // No curve reached a cohort date: the base set is empty.
+        outputs.push(backtest::backtest_members(Vec::new(), &core, p.recovery).map_err(mk)?);
+    }
+    if ctx.have_defaults {
         results.outcome_sources.push("entity_defaults");
     }
-    if let Some(h) = &ds.cohort_history {
+    if let Some(h) = ctx.cohort_history {
         let records: Vec<CohortHistoryRecord> = h
             .rows
             .iter()
@@ -210,7 +259,7 @@ pub fn run_backtest_stage(ds: &Dataset, cal: &Calibration, p: &CalibrationParams
     }
     // Without a defaults table the entity-level outcomes are unknown (every member would look
     // like a survivor): only the implied PDs are used, against the cohort history.
-    results.outputs = if have_defaults { outputs } else { Vec::new() };
+    results.outputs = if ctx.have_defaults { outputs } else { Vec::new() };
     Ok(results)
 }
 

@@ -5,7 +5,7 @@ use crate::commands::calibrate::Calibration;
 use crate::error::Result;
 use crate::ingest::Dataset;
 use crate::report::parquet::{write_parquet, TableBuilder};
-use crate::report::tables::IntensityParamRow;
+use crate::report::tables::{HazardCurveRow, IntensityParamRow, ResidualRow};
 use crate::stability::{self, CalibrationCounts, FlagRow, MarketMove, Observation, ResidualObservation, StabilityOutput, StabilitySettings};
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
@@ -42,13 +42,22 @@ impl GradeBook {
     }
 }
 
-/// Entities quoted in more than one currency: their series are kept as `entity/CCY`.
-fn multi_currency(cal: &Calibration) -> std::collections::HashSet<String> {
+/// Entities quoted in more than one currency: their series are kept as `entity/CCY`. A
+/// property of each entity alone, so the union over entity shards is the whole run's.
+pub fn multi_currency(cal: &Calibration) -> BTreeSet<String> {
     let mut ccys: BTreeMap<&str, BTreeSet<&str>> = BTreeMap::new();
     for (_, e, c) in cal.cds_curves.keys() {
         ccys.entry(e.as_str()).or_default().insert(c.as_str());
     }
     ccys.into_iter().filter(|(_, cs)| cs.len() > 1).map(|(e, _)| e.to_string()).collect()
+}
+
+fn series_name(multi: &BTreeSet<String>, e: &str, c: &str) -> String {
+    if multi.contains(e) {
+        format!("{e}/{c}")
+    } else {
+        e.to_string()
+    }
 }
 
 /// Everything the stability core reads, built from a run's calibration.
@@ -59,17 +68,15 @@ pub struct StabilityInputs {
     pub residuals: Vec<ResidualObservation>,
 }
 
-/// Builds the series: per curve the 1Y implied PD, the 5Y hazard and each node's hazard; per
-/// CIR fit its four parameters; per entity and date the mean absolute daily change of its par
-/// spreads; per curve the failures and infeasible nodes; every repricing residual.
-pub fn stability_inputs(cal: &Calibration, params: &[IntensityParamRow], grades: &GradeBook) -> StabilityInputs {
-    let multi = multi_currency(cal);
-    let name_of = |e: &str, c: &str| if multi.contains(e) { format!("{e}/{c}") } else { e.to_string() };
+/// The series that need the curves themselves, per CDS curve: the 1Y implied PD, the 5Y
+/// hazard and each node's hazard; and per entity and date the mean absolute daily change of
+/// its par spreads. Each depends on one entity's curves alone.
+pub fn curve_series(cal: &Calibration, grades: &GradeBook, multi: &BTreeSet<String>) -> (Vec<Observation>, Vec<MarketMove>) {
     let mut observations = Vec::new();
     let mut market = Vec::new();
     let mut last_spreads: BTreeMap<String, BTreeMap<u32, f64>> = BTreeMap::new();
     for ((date, e, c), curve) in &cal.cds_curves {
-        let entity = name_of(e, c);
+        let entity = series_name(multi, e, c);
         let grade = grades.grade(e, *date);
         if let Some(h) = &curve.curve {
             let mut push = |series: String, value: f64| {
@@ -95,8 +102,28 @@ pub fn stability_inputs(cal: &Calibration, params: &[IntensityParamRow], grades:
         }
         last_spreads.insert(entity, spreads);
     }
+    (observations, market)
+}
+
+/// Builds the stability core's inputs from the curve series ([`curve_series`], concatenated
+/// over partitions in any order: they are put in date and series-entity order here) and the
+/// run's tables: per CIR fit its four parameters, per curve its failures and infeasible nodes
+/// (from the node statuses), every repricing residual.
+pub fn stability_inputs(
+    mut curve_obs: Vec<Observation>,
+    mut market: Vec<MarketMove>,
+    hazard: &[HazardCurveRow],
+    residuals: &[ResidualRow],
+    params: &[IntensityParamRow],
+    grades: &GradeBook,
+    multi: &BTreeSet<String>,
+) -> StabilityInputs {
+    // Stable: the series of one curve keep their order.
+    curve_obs.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
+    market.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
+    let mut observations = curve_obs;
     for p in params {
-        let entity = name_of(&p.entity, &p.currency);
+        let entity = series_name(multi, &p.entity, &p.currency);
         let grade = grades.grade(&p.entity, p.date);
         for (series, v) in [("cir_kappa", p.kappa), ("cir_theta", p.theta), ("cir_sigma", p.sigma), ("cir_lambda0", p.lambda0)] {
             if let Some(v) = v.filter(|v| v.is_finite()) {
@@ -106,8 +133,8 @@ pub fn stability_inputs(cal: &Calibration, params: &[IntensityParamRow], grades:
     }
     // Failures and infeasible nodes per CDS curve, from the node statuses.
     let mut counts_map: BTreeMap<(String, NaiveDate), (u64, u64)> = BTreeMap::new();
-    for r in cal.hazard.iter().filter(|r| r.source == "cds") {
-        let entity = name_of(&r.entity, &r.currency);
+    for r in hazard.iter().filter(|r| r.source == "cds") {
+        let entity = series_name(multi, &r.entity, &r.currency);
         let slot = counts_map.entry((entity, r.date)).or_insert((0, 0));
         match r.status {
             "ok" => {}
@@ -116,22 +143,18 @@ pub fn stability_inputs(cal: &Calibration, params: &[IntensityParamRow], grades:
         }
     }
     let counts = counts_map.into_iter().map(|((entity, date), (failures, infeasible))| CalibrationCounts { entity, date, failures, infeasible }).collect();
-    let residuals = cal
-        .residuals
+    let residuals = residuals
         .iter()
-        .map(|r| {
-            let entity = name_of(&r.entity, &r.currency);
-            ResidualObservation {
-                date: r.date,
-                entity,
-                method: r.method.to_string(),
-                instrument: r.instrument.to_string(),
-                tenor: r.tenor_or_bond.clone(),
-                market: r.market,
-                model: r.model,
-                residual_bp: r.residual_bp,
-                converged: r.status == "ok",
-            }
+        .map(|r| ResidualObservation {
+            date: r.date,
+            entity: series_name(multi, &r.entity, &r.currency),
+            method: r.method.to_string(),
+            instrument: r.instrument.to_string(),
+            tenor: r.tenor_or_bond.clone(),
+            market: r.market,
+            model: r.model,
+            residual_bp: r.residual_bp,
+            converged: r.status == "ok",
         })
         .collect();
     StabilityInputs { observations, market, counts, residuals }

@@ -46,9 +46,51 @@ pub fn dates(df: &DataFrame, path: &Path, name: &str) -> Result<Vec<Option<Naive
         .collect())
 }
 
-/// Interns a string read back from a table into one of the fixed labels the records use.
+/// Interns a string read back from a table into one of the fixed labels the records use; a
+/// label outside `known` is kept as read (interned once per distinct value), so reading back
+/// never changes a table.
 fn label(v: &str, known: &[&'static str]) -> &'static str {
-    known.iter().copied().find(|k| *k == v).unwrap_or("other")
+    known.iter().copied().find(|k| *k == v).unwrap_or_else(|| intern(v))
+}
+
+/// A `'static` copy of `v`, one per distinct value for the life of the process.
+pub fn intern(v: &str) -> &'static str {
+    static SEEN: std::sync::OnceLock<std::sync::Mutex<std::collections::HashSet<&'static str>>> = std::sync::OnceLock::new();
+    let mut seen = SEEN.get_or_init(Default::default).lock().unwrap_or_else(|e| e.into_inner());
+    if let Some(s) = seen.get(v) {
+        return s;
+    }
+    let s: &'static str = Box::leak(v.to_string().into_boxed_str());
+    seen.insert(s);
+    s
+}
+
+/// Reads a rejects table back.
+pub fn rejects(path: &Path) -> Result<Vec<crate::ingest::Reject>> {
+    let df = read_frame(path)?;
+    let (t, s, r, d, e, k, re, de) = (
+        strs(&df, path, "table")?,
+        strs(&df, path, "source")?,
+        ints(&df, path, "row")?,
+        dates(&df, path, "date")?,
+        strs(&df, path, "entity")?,
+        strs(&df, path, "key")?,
+        strs(&df, path, "reason")?,
+        strs(&df, path, "detail")?,
+    );
+    const TABLES: &[&str] = &["entities", "defaults", "grades", "cohort_history", "discount", "bonds", "bond_quotes", "cds_quotes"];
+    Ok((0..df.height())
+        .map(|i| crate::ingest::Reject {
+            table: label(t[i].as_deref().unwrap_or(""), TABLES),
+            source: s[i].clone().unwrap_or_default(),
+            row: r[i].unwrap_or_default() as u64,
+            reason: intern(re[i].as_deref().unwrap_or("")),
+            detail: de[i].clone().unwrap_or_default(),
+            date: d[i],
+            entity: e[i].clone(),
+            key: k[i].clone().unwrap_or_default(),
+        })
+        .collect())
 }
 
 pub const STATUSES: &[&str] = &["ok", "floored", "infeasible", "failed", "curve_failed", "not_calibrated", "at_upper_bound", "max_iterations"];

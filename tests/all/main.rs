@@ -14,3 +14,4 @@ mod cir;
 mod intensity_pipeline;
 mod backtest_coverage;
 mod demo;
+mod shards;

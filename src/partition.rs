@@ -1,0 +1,465 @@
+//! Entity shards of a run, and the per-shard results that a merge combines.
+//!
+//! A run splits into two halves. The first works on each entity alone: the CDS bootstrap, the
+//! bond and CIR fits, the backtest members (implied PD, outcome and exposure of an entity in
+//! each cohort) and the curve series of the stability stage. The second pools entities: data
+//! quality accounting, bucket tests, risk premia, cross-sectional stability, flags, report.
+//!
+//! [`compute_partition`] runs the first half for the entities of one [`Shard`] (all of them in
+//! a single run) and returns a [`Partition`]; a sharded run writes it to a folder with
+//! [`write_partition`]; `merge` reads every shard's folder back ([`read_partition`]) and runs
+//! the second half on them, which is the same code a single run runs on its one partition.
+//! Each table of a partition is written with the same writers as the run's tables, so floats
+//! and labels come back bit for bit, and the second half puts every table in one canonical
+//! order, so the merged run equals the single run byte for byte.
+
+use crate::backtest::{self, Outcome};
+use crate::commands::backtest::backtest_members_stage;
+use crate::commands::calibrate::{calibrate_dataset, CalibrationParams};
+use crate::commands::intensity::calibrate_intensity;
+use crate::commands::review::{curve_series, multi_currency, GradeBook};
+use crate::config::RunConfig;
+use crate::error::{Error, Result};
+use crate::ingest::{discount, Dataset, Reject};
+use crate::report::parquet::{write_parquet, TableBuilder};
+use crate::report::readback;
+use crate::report::tables::*;
+use crate::stability::{MarketMove, Observation};
+use chrono::NaiveDate;
+use std::collections::HashSet;
+use std::path::Path;
+use std::time::Instant;
+
+/// Shard `index` of `count` (1-based): the entities whose name hashes to it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Shard {
+    pub index: u32,
+    pub count: u32,
+}
+
+impl Shard {
+    /// The whole universe in one piece.
+    pub const ALL: Shard = Shard { index: 1, count: 1 };
+
+    /// Parses `I/N` with 1 <= I <= N.
+    pub fn parse(s: &str) -> std::result::Result<Shard, String> {
+        let (i, n) = s.split_once('/').ok_or_else(|| format!("shard `{s}`: expected I/N, e.g. 2/8"))?;
+        let index: u32 = i.trim().parse().map_err(|_| format!("shard `{s}`: `{i}` is not a whole number"))?;
+        let count: u32 = n.trim().parse().map_err(|_| format!("shard `{s}`: `{n}` is not a whole number"))?;
+        if count == 0 || index == 0 || index > count {
+            return Err(format!("shard `{s}`: I must be between 1 and N (N >= 1)"));
+        }
+        Ok(Shard { index, count })
+    }
+
+    /// Whether `entity` belongs to this shard: FNV-1a (64 bit) of its UTF-8 bytes, modulo the
+    /// shard count. The hash is fixed here (not the standard library's, which may change), so
+    /// an entity lands in the same shard on every machine and every version.
+    pub fn owns(&self, entity: &str) -> bool {
+        self.count == 1 || (fnv1a(entity.as_bytes()) % u64::from(self.count)) as u32 == self.index - 1
+    }
+
+    /// The folder name of this shard's partition, e.g. `part-0002-of-0008`.
+    pub fn folder(&self) -> String {
+        format!("part-{:04}-of-{:04}", self.index, self.count)
+    }
+
+    /// The first shard also carries what every shard computes alike (the discount curves and
+    /// the discount table's calibration rejects).
+    pub fn is_first(&self) -> bool {
+        self.index == 1
+    }
+}
+
+impl std::fmt::Display for Shard {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "{}/{}", self.index, self.count)
+    }
+}
+
+/// FNV-1a, 64 bit (offset basis 14695981039346656037, prime 1099511628211).
+pub fn fnv1a(bytes: &[u8]) -> u64 {
+    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
+    for &b in bytes {
+        h ^= u64::from(b);
+        h = h.wrapping_mul(0x0100_0000_01b3);
+    }
+    h
+}
+
+/// Keeps the rows of the shard's entities in the tables calibration consumes: CDS quotes by
+/// entity, bonds by issuer, bond prices by their bond's issuer. Ingestion and its rules ran on
+/// the whole input before (every rule looks at one entity's rows, or at the shared tables), so
+/// the rows kept, and their flags, are exactly those of a single run.
+pub fn keep_shard(ds: &mut Dataset, shard: Shard) {
+    if shard.count == 1 {
+        return;
+    }
+    let mut dropped: Vec<(&'static str, usize)> = Vec::new();
+    if let Some(p) = &mut ds.cds {
+        let before = p.rows.len();
+        let own: Vec<bool> = (0..p.entities.len() as u32).map(|i| shard.owns(p.entities.name(i))).collect();
+        let keep: Vec<bool> = p.rows.iter().map(|r| own[r.entity as usize]).collect();
+        let mut it = keep.iter();
+        p.rows.retain(|_| *it.next().unwrap_or(&false));
+        if ds.cds_flags.len() == keep.len() {
+            let mut it = keep.iter();
+            ds.cds_flags.retain(|_| *it.next().unwrap_or(&false));
+        }
+        dropped.push((crate::ingest::cds::TABLE, before - p.rows.len()));
+    }
+    if let Some(b) = &mut ds.bonds {
+        let before = b.rows.len();
+        b.rows.retain(|(r, _)| shard.owns(&r.entity));
+        dropped.push((crate::ingest::tables::BONDS, before - b.rows.len()));
+        let kept: HashSet<String> = b.rows.iter().map(|(r, _)| r.bond.clone()).collect();
+        if let Some(q) = &mut ds.bond_quotes {
+            let before = q.rows.len();
+            q.rows.retain(|(r, _)| kept.contains(&r.bond));
+            dropped.push((crate::ingest::tables::BOND_QUOTES, before - q.rows.len()));
+        }
+    }
+    // The shard's own accounting: other shards' rows are out of its scope (the merge accounts
+    // for the whole input).
+    for (table, n) in dropped {
+        for c in ds.counts.iter_mut().filter(|c| c.table == table) {
+            c.rows_in -= n;
+            c.used -= n;
+        }
+    }
+}
+
+/// What a partition says about itself (`partition.json`).
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct PartitionMeta {
+    pub tool: String,
+    pub version: String,
+    /// SHA-256 of the pipeline file the shard ran.
+    pub pipeline_sha256: String,
+    pub shard: u32,
+    pub shards: u32,
+    pub curves: usize,
+    pub curves_complete: usize,
+    pub max_abs_residual_bp: f64,
+    /// First and last CDS curve date of the shard (ISO dates).
+    pub curve_dates: Option<(String, String)>,
+    /// Entities with at least one CDS curve.
+    pub curve_entities: Vec<String>,
+    /// Entities quoted in more than one currency.
+    pub multi_currency: Vec<String>,
+    /// Recoveries of the backtest members, base first.
+    pub recoveries: Vec<f64>,
+}
+
+/// The per-entity results of one shard (or of the whole universe).
+#[derive(Debug, Clone, Default)]
+pub struct Partition {
+    pub hazard: Vec<HazardCurveRow>,
+    pub residuals: Vec<ResidualRow>,
+    pub params: Vec<IntensityParamRow>,
+    pub basis: Vec<BasisRow>,
+    pub discount: Vec<DiscountCurveRow>,
+    /// Rows the calibration stages rejected.
+    pub rejects: Vec<Reject>,
+    /// Curve series of the stability stage.
+    pub curve_obs: Vec<Observation>,
+    pub market: Vec<MarketMove>,
+    /// Backtest members per recovery, base first.
+    pub members: Vec<(f64, Vec<backtest::Observation>)>,
+    pub curves: usize,
+    pub curves_complete: usize,
+    pub max_abs_residual_bp: f64,
+    pub curve_dates: Option<(NaiveDate, NaiveDate)>,
+    pub curve_entities: Vec<String>,
+    pub multi_currency: Vec<String>,
+}
+
+/// One stage's wall time and the memory after it.
+pub type StageTiming = (String, f64, f64, f64);
+
+fn timed(name: &str, t: Instant) -> StageTiming {
+    let (rss, peak) = crate::pipeline::memory_mib();
+    (name.to_string(), t.elapsed().as_secs_f64(), rss, peak)
+}
+
+/// Runs the per-entity half of a run on `ds` (already cut to the shard with [`keep_shard`]).
+pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &CalibrationParams, shard: Shard) -> Result<(Partition, Vec<StageTiming>)> {
+    let mut timings = Vec::new();
+    let t = Instant::now();
+    let mut cal = if cfg.cds_bootstrap { calibrate_dataset(ds, params)? } else { Default::default() };
+    timings.push(timed("calibrate", t));
+    let t = Instant::now();
+    let mut fits = calibrate_intensity(ds, &cal, params, &cfg.intensity)?;
+    timings.push(timed("bond and CIR fits", t));
+
+    let t = Instant::now();
+    let members = if cfg.backtest.enabled { backtest_members_stage(ds, &cal, params, &cfg.backtest)? } else { Vec::new() };
+    timings.push(timed("backtest members", t));
+    let t = Instant::now();
+    let grades = GradeBook::new(ds);
+    let multi = multi_currency(&cal);
+    let (curve_obs, market) = curve_series(&cal, &grades, &multi);
+    timings.push(timed("stability series", t));
+
+    let mut rejects = std::mem::take(&mut cal.rejects);
+    rejects.append(&mut fits.rejects);
+    let mut discount_rows = std::mem::take(&mut cal.discount);
+    if !shard.is_first() {
+        // Every shard builds the same discount curves from the whole discount table.
+        rejects.retain(|r| r.table != discount::TABLE);
+        discount_rows.clear();
+    }
+    let mut hazard = std::mem::take(&mut cal.hazard);
+    hazard.append(&mut fits.hazard);
+    let mut residuals = std::mem::take(&mut cal.residuals);
+    residuals.append(&mut fits.residuals);
+    let mut curve_entities: Vec<String> = cal.cds_curves.keys().map(|k| k.1.clone()).collect();
+    curve_entities.sort();
+    curve_entities.dedup();
+    let curve_dates = cal.cds_curves.keys().map(|k| k.0).min().zip(cal.cds_curves.keys().map(|k| k.0).max());
+    let part = Partition {
+        hazard,
+        residuals,
+        params: std::mem::take(&mut fits.params),
+        basis: std::mem::take(&mut fits.basis),
+        discount: discount_rows,
+        rejects,
+        curve_obs,
+        market,
+        members,
+        curves: cal.curves,
+        curves_complete: cal.curves_complete,
+        max_abs_residual_bp: cal.max_abs_residual_bp,
+        curve_dates,
+        curve_entities,
+        multi_currency: multi.into_iter().collect(),
+    };
+    Ok((part, timings))
+}
+
+const OUTCOMES: [(Outcome, &str); 3] = [(Outcome::Defaulted, "defaulted"), (Outcome::Survived, "survived"), (Outcome::Censored, "censored")];
+
+fn outcome_name(o: Outcome) -> &'static str {
+    OUTCOMES.iter().find(|(x, _)| *x == o).map_or("censored", |(_, n)| n)
+}
+
+/// Writes a partition into `dir` (created; written under a temporary name and renamed, so a
+/// folder that exists is whole).
+pub fn write_partition(dir: &Path, part: &Partition, shard: Shard, pipeline_sha256: &str) -> Result<()> {
+    let parent = dir.parent().unwrap_or(Path::new(".")).to_path_buf();
+    std::fs::create_dir_all(&parent).map_err(|e| Error::Write { path: parent.clone(), message: e.to_string() })?;
+    let name = dir.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_else(|| "part".into());
+    let work = parent.join(format!(".{name}.partial-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&work);
+    let none: &[(String, String)] = &[];
+    write_hazard_curves(&part.hazard, &work.join("hazard_curves.parquet"), none)?;
+    write_residuals(&part.residuals, &work.join("calibration_residuals.parquet"), none)?;
+    write_intensity_params(&part.params, &work.join("intensity_params.parquet"), none)?;
+    write_basis(&part.basis, &work.join("cds_bond_basis.parquet"), none)?;
+    write_discount_curves(&part.discount, &work.join("discount_curves.parquet"), none)?;
+    write_rejects(&part.rejects, &work.join("rejects.parquet"), none)?;
+
+    let o = &part.curve_obs;
+    let mut df = TableBuilder::new()
+        .strings("series", o.iter().map(|x| Some(&x.series)))
+        .strings("entity", o.iter().map(|x| Some(&x.entity)))
+        .ints("grade", o.iter().map(|x| x.grade.map(i64::from)))
+        .dates("date", o.iter().map(|x| Some(x.date)))
+        .floats("value", o.iter().map(|x| Some(x.value)))
+        .finish()?;
+    write_parquet(&mut df, &work.join("stability_series.parquet"), none)?;
+    let m = &part.market;
+    let mut df = TableBuilder::new()
+        .strings("entity", m.iter().map(|x| Some(&x.entity)))
+        .dates("date", m.iter().map(|x| Some(x.date)))
+        .floats("mean_abs_change_bp", m.iter().map(|x| Some(x.mean_abs_change_bp)))
+        .floats("mean_level_bp", m.iter().map(|x| Some(x.mean_level_bp)))
+        .finish()?;
+    write_parquet(&mut df, &work.join("stability_market.parquet"), none)?;
+    let rows: Vec<(f64, &backtest::Observation)> = part.members.iter().flat_map(|(r, v)| v.iter().map(move |o| (*r, o))).collect();
+    let mut df = TableBuilder::new()
+        .floats("recovery", rows.iter().map(|(r, _)| Some(*r)))
+        .strings("entity", rows.iter().map(|(_, o)| Some(&o.entity)))
+        .dates("cohort", rows.iter().map(|(_, o)| Some(o.cohort)))
+        .ints("horizon", rows.iter().map(|(_, o)| Some(i64::from(o.horizon_years))))
+        .ints("grade", rows.iter().map(|(_, o)| o.grade.map(i64::from)))
+        .floats("implied_pd", rows.iter().map(|(_, o)| Some(o.implied_pd)))
+        .strings("outcome", rows.iter().map(|(_, o)| Some(outcome_name(o.outcome))))
+        .floats("exposure_years", rows.iter().map(|(_, o)| Some(o.exposure_years)))
+        .floats("integrated_hazard", rows.iter().map(|(_, o)| Some(o.integrated_hazard)))
+        .floats("spread_bp", rows.iter().map(|(_, o)| o.spread_bp))
+        .finish()?;
+    write_parquet(&mut df, &work.join("backtest_members.parquet"), none)?;
+
+    let meta = PartitionMeta {
+        tool: "hazardline".into(),
+        version: env!("CARGO_PKG_VERSION").into(),
+        pipeline_sha256: pipeline_sha256.to_string(),
+        shard: shard.index,
+        shards: shard.count,
+        curves: part.curves,
+        curves_complete: part.curves_complete,
+        max_abs_residual_bp: part.max_abs_residual_bp,
+        curve_dates: part.curve_dates.map(|(a, b)| (a.to_string(), b.to_string())),
+        curve_entities: part.curve_entities.clone(),
+        multi_currency: part.multi_currency.clone(),
+        recoveries: part.members.iter().map(|(r, _)| *r).collect(),
+    };
+    let text = serde_json::to_string_pretty(&meta).map_err(|e| Error::Other(format!("partition.json: {e}")))?;
+    crate::report::manifest::write_text(&work.join("partition.json"), &(text + "\n"))?;
+    if dir.exists() {
+        std::fs::remove_dir_all(dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })?;
+    }
+    std::fs::rename(&work, dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })
+}
+
+/// Reads `partition.json` of a partition folder.
+pub fn read_meta(dir: &Path) -> Result<PartitionMeta> {
+    let path = dir.join("partition.json");
+    let text = std::fs::read_to_string(&path).map_err(|e| Error::Read { path: path.clone(), format: "JSON", message: e.to_string() })?;
+    serde_json::from_str(&text).map_err(|e| Error::Read { path, format: "JSON", message: e.to_string() })
+}
+
+fn parse_date(path: &Path, s: &str) -> Result<NaiveDate> {
+    NaiveDate::parse_from_str(s, "%Y-%m-%d").map_err(|e| Error::Read { path: path.to_path_buf(), format: "JSON", message: format!("date `{s}`: {e}") })
+}
+
+fn missing(path: &Path, column: &str, row: usize) -> Error {
+    Error::Read { path: path.to_path_buf(), format: "Parquet", message: format!("row {}: column {column} is empty", row + 1) }
+}
+
+/// Reads a partition folder written by [`write_partition`].
+pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
+    use readback::{dates, floats, ints, read_frame, strs};
+    let meta = read_meta(dir)?;
+    let mut part = Partition {
+        hazard: readback::hazard_curves(&dir.join("hazard_curves.parquet"))?,
+        residuals: readback::residuals(&dir.join("calibration_residuals.parquet"))?,
+        params: readback::intensity_params(&dir.join("intensity_params.parquet"))?,
+        basis: readback::basis(&dir.join("cds_bond_basis.parquet"))?,
+        discount: readback::discount_curves(&dir.join("discount_curves.parquet"))?,
+        rejects: readback::rejects(&dir.join("rejects.parquet"))?,
+        curves: meta.curves,
+        curves_complete: meta.curves_complete,
+        max_abs_residual_bp: meta.max_abs_residual_bp,
+        curve_entities: meta.curve_entities.clone(),
+        multi_currency: meta.multi_currency.clone(),
+        ..Default::default()
+    };
+    let json = dir.join("partition.json");
+    part.curve_dates = match &meta.curve_dates {
+        Some((a, b)) => Some((parse_date(&json, a)?, parse_date(&json, b)?)),
+        None => None,
+    };
+
+    let path = dir.join("stability_series.parquet");
+    let df = read_frame(&path)?;
+    let (s, e, g, d, v) = (strs(&df, &path, "series")?, strs(&df, &path, "entity")?, ints(&df, &path, "grade")?, dates(&df, &path, "date")?, floats(&df, &path, "value")?);
+    part.curve_obs = (0..df.height())
+        .map(|i| {
+            Ok(Observation {
+                series: s[i].clone().ok_or_else(|| missing(&path, "series", i))?,
+                entity: e[i].clone().ok_or_else(|| missing(&path, "entity", i))?,
+                grade: g[i].map(|x| x as u32),
+                date: d[i].ok_or_else(|| missing(&path, "date", i))?,
+                value: v[i].ok_or_else(|| missing(&path, "value", i))?,
+            })
+        })
+        .collect::<Result<_>>()?;
+
+    let path = dir.join("stability_market.parquet");
+    let df = read_frame(&path)?;
+    let (e, d, c, l) = (strs(&df, &path, "entity")?, dates(&df, &path, "date")?, floats(&df, &path, "mean_abs_change_bp")?, floats(&df, &path, "mean_level_bp")?);
+    part.market = (0..df.height())
+        .map(|i| {
+            Ok(MarketMove {
+                entity: e[i].clone().ok_or_else(|| missing(&path, "entity", i))?,
+                date: d[i].ok_or_else(|| missing(&path, "date", i))?,
+                mean_abs_change_bp: c[i].ok_or_else(|| missing(&path, "mean_abs_change_bp", i))?,
+                mean_level_bp: l[i].ok_or_else(|| missing(&path, "mean_level_bp", i))?,
+            })
+        })
+        .collect::<Result<_>>()?;
+
+    let path = dir.join("backtest_members.parquet");
+    let df = read_frame(&path)?;
+    let (r, e, c, h, g, pd, o, x, ih, sp) = (
+        floats(&df, &path, "recovery")?,
+        strs(&df, &path, "entity")?,
+        dates(&df, &path, "cohort")?,
+        ints(&df, &path, "horizon")?,
+        ints(&df, &path, "grade")?,
+        floats(&df, &path, "implied_pd")?,
+        strs(&df, &path, "outcome")?,
+        floats(&df, &path, "exposure_years")?,
+        floats(&df, &path, "integrated_hazard")?,
+        floats(&df, &path, "spread_bp")?,
+    );
+    let mut members: Vec<(f64, Vec<backtest::Observation>)> = meta.recoveries.iter().map(|r| (*r, Vec::new())).collect();
+    for i in 0..df.height() {
+        let rec = r[i].ok_or_else(|| missing(&path, "recovery", i))?;
+        let slot = members
+            .iter_mut()
+            .find(|(x, _)| x.to_bits() == rec.to_bits())
+            .ok_or_else(|| Error::Read { path: path.clone(), format: "Parquet", message: format!("row {}: recovery {rec} is not listed in partition.json", i + 1) })?;
+        let outcome_text = o[i].clone().ok_or_else(|| missing(&path, "outcome", i))?;
+        let outcome = OUTCOMES
+            .iter()
+            .find(|(_, n)| *n == outcome_text)
+            .map(|(x, _)| *x)
+            .ok_or_else(|| Error::Read { path: path.clone(), format: "Parquet", message: format!("row {}: unknown outcome `{outcome_text}`", i + 1) })?;
+        slot.1.push(backtest::Observation {
+            entity: e[i].clone().ok_or_else(|| missing(&path, "entity", i))?,
+            cohort: c[i].ok_or_else(|| missing(&path, "cohort", i))?,
+            horizon_years: h[i].ok_or_else(|| missing(&path, "horizon", i))? as u32,
+            grade: g[i].map(|x| x as u32),
+            bucket: backtest::Bucket::Ungraded,
+            implied_pd: pd[i].ok_or_else(|| missing(&path, "implied_pd", i))?,
+            outcome,
+            exposure_years: x[i].ok_or_else(|| missing(&path, "exposure_years", i))?,
+            integrated_hazard: ih[i].ok_or_else(|| missing(&path, "integrated_hazard", i))?,
+            spread_bp: sp[i],
+        });
+    }
+    part.members = members;
+    Ok((meta, part))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn shard_parsing_and_errors() {
+        assert_eq!(Shard::parse("2/8"), Ok(Shard { index: 2, count: 8 }));
+        assert!(Shard::parse("0/8").is_err());
+        assert!(Shard::parse("9/8").is_err());
+        assert!(Shard::parse("1/0").is_err());
+        assert!(Shard::parse("3").is_err());
+        assert!(Shard::parse("a/2").is_err());
+        assert_eq!(Shard { index: 3, count: 12 }.folder(), "part-0003-of-0012");
+    }
+
+    #[test]
+    fn fnv1a_matches_the_published_test_vectors() {
+        // Test vectors of the FNV reference (Fowler, Noll, Vo; the IETF draft
+        // draft-eastlake-fnv): FNV-1a 64 of "" and of "a" and "foobar".
+        assert_eq!(fnv1a(b""), 0xcbf2_9ce4_8422_2325);
+        assert_eq!(fnv1a(b"a"), 0xaf63_dc4c_8601_ec8c);
+        assert_eq!(fnv1a(b"foobar"), 0x8594_4171_f739_67e8);
+    }
+
+    #[test]
+    fn every_entity_is_in_exactly_one_shard() {
+        for n in 1..=7u32 {
+            let shards: Vec<Shard> = (1..=n).map(|i| Shard { index: i, count: n }).collect();
+            for k in 0..500 {
+                let e = format!("Entity {k}");
+                assert_eq!(shards.iter().filter(|s| s.owns(&e)).count(), 1, "{e} with {n} shards");
+            }
+        }
+        // Spread: 4 shards of 2,000 names each get between 400 and 600.
+        let counts: Vec<usize> = (1..=4).map(|i| (0..2000).filter(|k| Shard { index: i, count: 4 }.owns(&format!("N{k:05}"))).count()).collect();
+        assert!(counts.iter().all(|&c| (400..=600).contains(&c)), "{counts:?}");
+    }
+}

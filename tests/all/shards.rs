@@ -1,0 +1,94 @@
+//! Entity shards and `merge`: a run split into shards and merged writes the same files, byte
+//! for byte, as the single run (run.log, which holds timings, aside).
+
+use crate::support::files;
+use assert_cmd::Command;
+use std::path::Path;
+
+fn hazardline(args: &[&str]) -> assert_cmd::assert::Assert {
+    Command::cargo_bin("hazardline").unwrap().args(args).assert()
+}
+
+/// A small invented universe with bonds, CIR names, defaults, grades and a cohort history.
+fn universe(dir: &Path) -> String {
+    hazardline(&["demo", dir.to_str().unwrap(), "--entities", "30", "--years", "2"]).success();
+    dir.join("pipeline.toml").to_string_lossy().to_string()
+}
+
+fn single(pipeline: &str, out: &Path) -> std::collections::BTreeMap<String, Vec<u8>> {
+    hazardline(&["run", pipeline, "--out", out.to_str().unwrap(), "--label", "r"]).success();
+    files(&out.join("demo/r"), &["run.log"])
+}
+
+fn sharded(pipeline: &str, out: &Path, n: u32, order: &[u32]) -> std::collections::BTreeMap<String, Vec<u8>> {
+    for i in order {
+        hazardline(&["run", pipeline, "--out", out.to_str().unwrap(), "--label", "r", "--shard", &format!("{i}/{n}")]).success();
+    }
+    hazardline(&["merge", pipeline, "--out", out.to_str().unwrap(), "--label", "r"]).success();
+    files(&out.join("demo/r"), &["run.log"])
+}
+
+fn assert_same(a: &std::collections::BTreeMap<String, Vec<u8>>, b: &std::collections::BTreeMap<String, Vec<u8>>, what: &str) {
+    assert_eq!(a.keys().collect::<Vec<_>>(), b.keys().collect::<Vec<_>>(), "{what}: other files");
+    for (k, v) in a {
+        assert!(b[k] == *v, "{what}: {k} differs from the single run");
+    }
+}
+
+#[test]
+fn three_shards_merge_into_the_single_runs_bytes() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = universe(&dir.path().join("data"));
+    let one = single(&pipeline, &dir.path().join("single"));
+    assert!(one.len() > 25, "{} files", one.len());
+    // Shards run in any order, as array jobs would.
+    let three = sharded(&pipeline, &dir.path().join("three"), 3, &[3, 1, 2]);
+    assert_same(&one, &three, "3 shards");
+    // Every shard holds some entities and none twice: the parts' entity lists partition them.
+    let parts = dir.path().join("three/demo/r.shards");
+    let mut seen = Vec::new();
+    for i in 1..=3 {
+        let m = hazardline::partition::read_meta(&parts.join(format!("part-{i:04}-of-0003"))).unwrap();
+        assert!(!m.curve_entities.is_empty(), "shard {i} is empty");
+        seen.extend(m.curve_entities);
+    }
+    let n = seen.len();
+    seen.sort();
+    seen.dedup();
+    assert_eq!(seen.len(), n, "an entity is in two shards");
+    assert_eq!(seen.len(), 30);
+
+    // A missing shard stops the merge (exit 2) and names it.
+    std::fs::remove_dir_all(parts.join("part-0002-of-0003")).unwrap();
+    let out = hazardline(&["merge", &pipeline, "--out", dir.path().join("three").to_str().unwrap(), "--label", "r"]).code(2);
+    let err = String::from_utf8(out.get_output().stderr.clone()).unwrap();
+    assert!(err.contains("2/3") && err.contains("missing"), "{err}");
+}
+
+/// Quarterly cohorts and pooled PD-quantile bands: the cohort dates and the band edges are
+/// properties of the whole universe, which no shard sees alone.
+#[test]
+fn pooled_settings_merge_exactly_and_a_changed_pipeline_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = universe(&dir.path().join("data"));
+    let text = std::fs::read_to_string(&pipeline).unwrap().replace("horizons = [1, 3]", "horizons = [1, 3]\ncohorts = \"quarterly\"\nbuckets = \"pd_bands\"\npd_quantiles = 4\nlookback_days = 20");
+    std::fs::write(&pipeline, text).unwrap();
+    let one = single(&pipeline, &dir.path().join("single"));
+    assert!(String::from_utf8(one["report.md"].clone()).unwrap().contains("pd ["), "the report shows PD bands");
+    let two = sharded(&pipeline, &dir.path().join("two"), 2, &[1, 2]);
+    assert_same(&one, &two, "2 shards");
+
+    // Parts made from another pipeline file are refused.
+    let text = std::fs::read_to_string(&pipeline).unwrap().replace("pd_quantiles = 4", "pd_quantiles = 3");
+    std::fs::write(&pipeline, text).unwrap();
+    let out = hazardline(&["merge", &pipeline, "--out", dir.path().join("two").to_str().unwrap(), "--label", "r"]).code(2);
+    let err = String::from_utf8(out.get_output().stderr.clone()).unwrap();
+    assert!(err.contains("another version of the pipeline file"), "{err}");
+}
+
+#[test]
+fn a_bad_shard_argument_is_refused() {
+    let out = hazardline(&["run", "x.toml", "--shard", "4/3"]).failure();
+    let err = String::from_utf8(out.get_output().stderr.clone()).unwrap();
+    assert!(err.contains("between 1 and N"), "{err}");
+}
