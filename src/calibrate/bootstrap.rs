@@ -242,6 +242,18 @@ impl BootstrapPlan {
         &self.tenors
     }
 
+    /// The legs of every contract of the plan (maturity order) on `curve`, when the curve's
+    /// nodes are the plan's (a complete fit on this plan): the same grid
+    /// [`crate::instruments::cds::price_legs_set`] would build, so the same numbers, without
+    /// building it again. None when the nodes differ.
+    pub fn legs_on(&self, curve: &crate::curves::HazardCurve, recoveries: &[f64]) -> Option<Vec<crate::instruments::CdsLegs>> {
+        let same = curve.reference() == self.trade
+            && curve.node_times().len() == self.node_times.len()
+            && curve.node_times().iter().zip(&self.node_times).all(|(a, b)| a.to_bits() == b.to_bits())
+            && recoveries.len() == self.plan.contracts.len();
+        same.then(|| crate::instruments::cds::price_legs_on_plan(&self.plan, recoveries, curve))
+    }
+
     /// Bootstraps one curve. `quotes[i].tenor` must be the plan's `tenors()[i]`.
     pub fn solve(&self, quotes: &[BootstrapQuote], settings: &BootstrapSettings) -> Result<CurveFit, BootstrapError> {
         if quotes.len() != self.tenors.len() || quotes.iter().zip(&self.tenors).any(|(q, t)| q.tenor != *t) {

@@ -33,13 +33,32 @@ pub fn reprice(
     discount: &DiscountCurve,
     accrual: AccrualIntegration,
 ) -> Vec<QuoteResidual> {
+    reprice_with_plan(fit, quotes, discount, accrual, None)
+}
+
+/// As [`reprice`], reusing `plan` (the shared plan the curve was bootstrapped on) when every
+/// node was solved: the plan's grid is the one repricing would build.
+pub fn reprice_with_plan(
+    fit: &CurveFit,
+    quotes: &[BootstrapQuote],
+    discount: &DiscountCurve,
+    accrual: AccrualIntegration,
+    plan: Option<&super::bootstrap::BootstrapPlan>,
+) -> Vec<QuoteResidual> {
     let Some(curve) = fit.curve.as_ref() else { return Vec::new() };
     let mut out = Vec::with_capacity(fit.nodes.len());
     // Every solved node's contract priced on one joint grid (one plan per curve, not per node).
     let solved: Vec<(&super::bootstrap::NodeFit, &crate::instruments::CdsContract)> = fit.nodes.iter().zip(fit.contracts.iter()).filter(|(n, _)| n.hazard.is_some()).collect();
     let contracts: Vec<&crate::instruments::CdsContract> = solved.iter().map(|s| s.1).collect();
     let recoveries: Vec<f64> = solved.iter().map(|s| quotes[s.0.quote_index].recovery).collect();
-    let Ok(all_legs) = price_legs_set(&contracts, &recoveries, discount, curve, accrual) else { return Vec::new() };
+    let shared = plan.filter(|_| solved.len() == fit.nodes.len()).and_then(|p| p.legs_on(curve, &recoveries));
+    let all_legs = match shared {
+        Some(legs) => legs,
+        None => match price_legs_set(&contracts, &recoveries, discount, curve, accrual) {
+            Ok(legs) => legs,
+            Err(_) => return Vec::new(),
+        },
+    };
     for ((node, _), legs) in solved.into_iter().zip(all_legs) {
         let q = &quotes[node.quote_index];
         let ann = legs.risky_annuity();

@@ -9,7 +9,6 @@
 //! Curves are independent and run in parallel (rayon) over plain structs; polars is done
 //! before the parallel section starts and only resumes to write.
 
-use crate::calibrate::residuals::reprice;
 use crate::calibrate::bootstrap::BootstrapPlan;
 use crate::calibrate::{bootstrap, BootstrapError, BootstrapQuote, BootstrapSettings, InfeasiblePolicy};
 use crate::curves::{DiscountCurve, HazardCurve};
@@ -162,7 +161,11 @@ fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, 
             return CurveOutput { hazard: Vec::new(), residuals: Vec::new(), rejects, used: 0, fit: None };
         }
     };
-    let residuals = reprice(&fit, &quotes, curve, s.bootstrap.accrual);
+    let shared = match plan {
+        Some(Ok(p)) => Some(p),
+        _ => None,
+    };
+    let residuals = crate::calibrate::residuals::reprice_with_plan(&fit, &quotes, curve, s.bootstrap.accrual, shared);
     let hazard = fit
         .nodes
         .iter()

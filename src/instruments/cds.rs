@@ -441,14 +441,20 @@ pub fn price_legs_set(
         return Err(ReferenceDateMismatch { trade: other, discount: discount.reference(), hazard: hazard.reference() });
     }
     let plan = LegPlan::build(trade, contracts, discount, hazard.node_times(), mode);
+    Ok(price_legs_on_plan(&plan, recoveries, hazard))
+}
+
+/// The legs of every contract of `plan` (built for `hazard`'s node times) on `hazard`: the
+/// last step of [`price_legs_set`], for a caller that already holds the plan (the bootstrap's
+/// shared plan reprices the curves it built without building the grid again).
+pub(crate) fn price_legs_on_plan(plan: &LegPlan, recoveries: &[f64], hazard: &HazardCurve) -> Vec<CdsLegs> {
     let log_q: Vec<f64> = plan.times.iter().map(|&t| hazard.log_survival_at(t)).collect();
     let pq: Vec<f64> = plan.log_dfs.iter().zip(&log_q).map(|(p, q)| (p + q).exp()).collect();
-    Ok(plan
-        .contracts
+    plan.contracts
         .iter()
         .zip(recoveries)
         .map(|(terms, &recovery)| {
-            let (prot, prem, aod) = evaluate_terms(&plan, &terms.prot, &terms.coupons, &pq, &log_q);
+            let (prot, prem, aod) = evaluate_terms(plan, &terms.prot, &terms.coupons, &pq, &log_q);
             CdsLegs {
                 protection: (1.0 - recovery) * prot,
                 premium01: prem,
@@ -457,7 +463,7 @@ pub fn price_legs_set(
                 cash_settle_df: terms.cash_settle_df,
             }
         })
-        .collect())
+        .collect()
 }
 
 /// Prices the legs of `contract` on curves referenced on its trade date.

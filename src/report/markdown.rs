@@ -248,9 +248,18 @@ pub fn render(run_dir: &Path) -> Result<()> {
         }
         let _ = writeln!(w);
     }
-    let mut worst: Vec<&super::tables::ResidualRow> = residuals.iter().filter(|r| r.residual_bp.is_finite()).collect();
-    worst.sort_by(|a, b| b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then(a.date.cmp(&b.date)).then(a.entity.cmp(&b.entity)));
-    worst.truncate(10);
+    // The ten largest, as a stable sort of every row would give them (ties keep table order),
+    // with one pass over the rows instead of sorting millions of them.
+    let order = |a: &super::tables::ResidualRow, b: &super::tables::ResidualRow| b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then(a.date.cmp(&b.date)).then(a.entity.cmp(&b.entity));
+    let mut worst: Vec<&super::tables::ResidualRow> = Vec::with_capacity(11);
+    for r in residuals.iter().filter(|r| r.residual_bp.is_finite()) {
+        if worst.len() == 10 && order(r, worst[9]) != std::cmp::Ordering::Less {
+            continue;
+        }
+        let at = worst.partition_point(|x| order(x, r) != std::cmp::Ordering::Greater);
+        worst.insert(at, r);
+        worst.truncate(10);
+    }
     if !worst.is_empty() {
         let _ = writeln!(w, "Largest residuals (all statuses):\n");
         let _ = writeln!(w, "| date | entity | tenor | status | market | model | residual (bp) |\n| --- | --- | --- | --- | ---: | ---: | ---: |");
