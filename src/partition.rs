@@ -354,12 +354,12 @@ pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
 
     let path = dir.join("stability_series.parquet");
     let df = read_frame(&path)?;
-    let (s, e, g, d, v) = (strs(&df, &path, "series")?, strs(&df, &path, "entity")?, ints(&df, &path, "grade")?, dates(&df, &path, "date")?, floats(&df, &path, "value")?);
+    let (mut s, mut e, g, d, v) = (strs(&df, &path, "series")?, strs(&df, &path, "entity")?, ints(&df, &path, "grade")?, dates(&df, &path, "date")?, floats(&df, &path, "value")?);
     part.curve_obs = (0..df.height())
         .map(|i| {
             Ok(Observation {
-                series: s[i].clone().ok_or_else(|| missing(&path, "series", i))?,
-                entity: e[i].clone().ok_or_else(|| missing(&path, "entity", i))?,
+                series: s[i].take().ok_or_else(|| missing(&path, "series", i))?,
+                entity: e[i].take().ok_or_else(|| missing(&path, "entity", i))?,
                 grade: g[i].map(|x| x as u32),
                 date: d[i].ok_or_else(|| missing(&path, "date", i))?,
                 value: v[i].ok_or_else(|| missing(&path, "value", i))?,
@@ -369,11 +369,11 @@ pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
 
     let path = dir.join("stability_market.parquet");
     let df = read_frame(&path)?;
-    let (e, d, c, l) = (strs(&df, &path, "entity")?, dates(&df, &path, "date")?, floats(&df, &path, "mean_abs_change_bp")?, floats(&df, &path, "mean_level_bp")?);
+    let (mut e, d, c, l) = (strs(&df, &path, "entity")?, dates(&df, &path, "date")?, floats(&df, &path, "mean_abs_change_bp")?, floats(&df, &path, "mean_level_bp")?);
     part.market = (0..df.height())
         .map(|i| {
             Ok(MarketMove {
-                entity: e[i].clone().ok_or_else(|| missing(&path, "entity", i))?,
+                entity: e[i].take().ok_or_else(|| missing(&path, "entity", i))?,
                 date: d[i].ok_or_else(|| missing(&path, "date", i))?,
                 mean_abs_change_bp: c[i].ok_or_else(|| missing(&path, "mean_abs_change_bp", i))?,
                 mean_level_bp: l[i].ok_or_else(|| missing(&path, "mean_level_bp", i))?,
@@ -383,7 +383,7 @@ pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
 
     let path = dir.join("backtest_members.parquet");
     let df = read_frame(&path)?;
-    let (r, e, c, h, g, pd, o, x, ih, sp) = (
+    let (r, mut e, c, h, g, pd, mut o, x, ih, sp) = (
         floats(&df, &path, "recovery")?,
         strs(&df, &path, "entity")?,
         dates(&df, &path, "cohort")?,
@@ -402,14 +402,14 @@ pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
             .iter_mut()
             .find(|(x, _)| x.to_bits() == rec.to_bits())
             .ok_or_else(|| Error::Read { path: path.clone(), format: "Parquet", message: format!("row {}: recovery {rec} is not listed in partition.json", i + 1) })?;
-        let outcome_text = o[i].clone().ok_or_else(|| missing(&path, "outcome", i))?;
+        let outcome_text = o[i].take().ok_or_else(|| missing(&path, "outcome", i))?;
         let outcome = OUTCOMES
             .iter()
             .find(|(_, n)| *n == outcome_text)
             .map(|(x, _)| *x)
             .ok_or_else(|| Error::Read { path: path.clone(), format: "Parquet", message: format!("row {}: unknown outcome `{outcome_text}`", i + 1) })?;
         slot.1.push(backtest::Observation {
-            entity: e[i].clone().ok_or_else(|| missing(&path, "entity", i))?,
+            entity: e[i].take().ok_or_else(|| missing(&path, "entity", i))?,
             cohort: c[i].ok_or_else(|| missing(&path, "cohort", i))?,
             horizon_years: h[i].ok_or_else(|| missing(&path, "horizon", i))? as u32,
             grade: g[i].map(|x| x as u32),

@@ -237,15 +237,24 @@ fn combine(parts: Vec<Partition>) -> Result<Partition> {
     let mut dates: Vec<(chrono::NaiveDate, chrono::NaiveDate)> = Vec::new();
     let mut entities = BTreeSet::new();
     let mut multi = BTreeSet::new();
+    // Vec::append into an empty vector moves nothing but still copies: the first part's
+    // vectors are taken over whole (a single run has only that one).
+    fn join<T>(all: &mut Vec<T>, part: &mut Vec<T>) {
+        if all.is_empty() {
+            std::mem::swap(all, part);
+        } else {
+            all.append(part);
+        }
+    }
     for mut p in parts {
-        all.hazard.append(&mut p.hazard);
-        all.residuals.append(&mut p.residuals);
-        all.params.append(&mut p.params);
-        all.basis.append(&mut p.basis);
-        all.discount.append(&mut p.discount);
-        all.rejects.append(&mut p.rejects);
-        all.curve_obs.append(&mut p.curve_obs);
-        all.market.append(&mut p.market);
+        join(&mut all.hazard, &mut p.hazard);
+        join(&mut all.residuals, &mut p.residuals);
+        join(&mut all.params, &mut p.params);
+        join(&mut all.basis, &mut p.basis);
+        join(&mut all.discount, &mut p.discount);
+        join(&mut all.rejects, &mut p.rejects);
+        join(&mut all.curve_obs, &mut p.curve_obs);
+        join(&mut all.market, &mut p.market);
         for (k, (r, mut v)) in p.members.into_iter().enumerate() {
             match all.members.get_mut(k) {
                 Some((r0, v0)) if r0.to_bits() == r.to_bits() => v0.append(&mut v),

@@ -82,7 +82,7 @@ pub fn render(run_dir: &Path) -> Result<()> {
     let basis = readback::basis(&t.join("cds_bond_basis.parquet"))?;
     // The CDS bootstrap's rows; the bond and CIR fits have their own subsections.
     let (hazard, bond_hazard): (Vec<HazardCurveRow>, Vec<HazardCurveRow>) = all_hazard.into_iter().partition(|h| h.source == "cds");
-    let residuals: Vec<super::tables::ResidualRow> = all_residuals.iter().filter(|r| r.method == "bootstrap").cloned().collect();
+    let residuals: Vec<&super::tables::ResidualRow> = all_residuals.iter().filter(|r| r.method == "bootstrap").collect();
     let bond_res: Vec<&super::tables::ResidualRow> = all_residuals.iter().filter(|r| r.method == "bond_fit").collect();
     let flags = readback::flags(&t.join("flags.parquet"))?;
     let reasons = readback::reject_reasons(&t.join("rejects.parquet"))?;
@@ -94,7 +94,7 @@ pub fn render(run_dir: &Path) -> Result<()> {
     let curves: BTreeSet<(NaiveDate, &str, &str)> = hazard.iter().map(|h| (h.date, h.entity.as_str(), h.currency.as_str())).collect();
     let bad_curves: BTreeSet<(NaiveDate, &str, &str)> =
         hazard.iter().filter(|h| h.status != "ok").map(|h| (h.date, h.entity.as_str(), h.currency.as_str())).collect();
-    let ok_res: Vec<&super::tables::ResidualRow> = residuals.iter().filter(|r| r.status == "ok").collect();
+    let ok_res: Vec<&super::tables::ResidualRow> = residuals.iter().copied().filter(|r| r.status == "ok").collect();
     let within = ok_res.iter().filter(|r| r.residual_bp.abs() <= REPRICE_TOLERANCE_BP).count();
     let mut status_counts: BTreeMap<&str, usize> = BTreeMap::new();
     for h in &hazard {
@@ -252,7 +252,7 @@ pub fn render(run_dir: &Path) -> Result<()> {
     // with one pass over the rows instead of sorting millions of them.
     let order = |a: &super::tables::ResidualRow, b: &super::tables::ResidualRow| b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then(a.date.cmp(&b.date)).then(a.entity.cmp(&b.entity));
     let mut worst: Vec<&super::tables::ResidualRow> = Vec::with_capacity(11);
-    for r in residuals.iter().filter(|r| r.residual_bp.is_finite()) {
+    for &r in residuals.iter().filter(|r| r.residual_bp.is_finite()) {
         if worst.len() == 10 && order(r, worst[9]) != std::cmp::Ordering::Less {
             continue;
         }

@@ -68,7 +68,7 @@ pub fn intern(v: &str) -> &'static str {
 /// Reads a rejects table back.
 pub fn rejects(path: &Path) -> Result<Vec<crate::ingest::Reject>> {
     let df = read_frame(path)?;
-    let (t, s, r, d, e, k, re, de) = (
+    let (t, mut s, r, d, mut e, mut k, re, mut de) = (
         strs(&df, path, "table")?,
         strs(&df, path, "source")?,
         ints(&df, path, "row")?,
@@ -82,13 +82,13 @@ pub fn rejects(path: &Path) -> Result<Vec<crate::ingest::Reject>> {
     Ok((0..df.height())
         .map(|i| crate::ingest::Reject {
             table: label(t[i].as_deref().unwrap_or(""), TABLES),
-            source: s[i].clone().unwrap_or_default(),
+            source: s[i].take().unwrap_or_default(),
             row: r[i].unwrap_or_default() as u64,
             reason: intern(re[i].as_deref().unwrap_or("")),
-            detail: de[i].clone().unwrap_or_default(),
+            detail: de[i].take().unwrap_or_default(),
             date: d[i],
-            entity: e[i].clone(),
-            key: k[i].clone().unwrap_or_default(),
+            entity: e[i].take(),
+            key: k[i].take().unwrap_or_default(),
         })
         .collect())
 }
@@ -97,7 +97,7 @@ pub const STATUSES: &[&str] = &["ok", "floored", "infeasible", "failed", "curve_
 
 pub fn hazard_curves(path: &Path) -> Result<Vec<HazardCurveRow>> {
     let df = read_frame(path)?;
-    let (d, e, c, src, t, m, nd, h, s, st, r, it, de) = (
+    let (d, mut e, mut c, src, mut t, m, nd, h, s, st, r, it, mut de) = (
         dates(&df, path, "date")?,
         strs(&df, path, "entity")?,
         strs(&df, path, "currency")?,
@@ -115,10 +115,10 @@ pub fn hazard_curves(path: &Path) -> Result<Vec<HazardCurveRow>> {
     Ok((0..df.height())
         .map(|i| HazardCurveRow {
             date: d[i].unwrap_or_default(),
-            entity: e[i].clone().unwrap_or_default(),
-            currency: c[i].clone().unwrap_or_default(),
+            entity: e[i].take().unwrap_or_default(),
+            currency: c[i].take().unwrap_or_default(),
             source: label(src[i].as_deref().unwrap_or(""), &["cds", "bond"]),
-            tenor: t[i].clone().unwrap_or_default(),
+            tenor: t[i].take().unwrap_or_default(),
             maturity: m[i].unwrap_or_default(),
             node_date: nd[i].unwrap_or_default(),
             hazard: h[i],
@@ -126,14 +126,14 @@ pub fn hazard_curves(path: &Path) -> Result<Vec<HazardCurveRow>> {
             status: label(st[i].as_deref().unwrap_or(""), STATUSES),
             recovery: r[i].unwrap_or(f64::NAN),
             iterations: it[i].unwrap_or(0),
-            detail: de[i].clone(),
+            detail: de[i].take(),
         })
         .collect())
 }
 
 pub fn residuals(path: &Path) -> Result<Vec<ResidualRow>> {
     let df = read_frame(path)?;
-    let (d, e, c, me, ins, t, mk, mo, r, st) = (
+    let (d, mut e, mut c, me, ins, mut t, mk, mo, r, st) = (
         dates(&df, path, "date")?,
         strs(&df, path, "entity")?,
         strs(&df, path, "currency")?,
@@ -148,11 +148,11 @@ pub fn residuals(path: &Path) -> Result<Vec<ResidualRow>> {
     Ok((0..df.height())
         .map(|i| ResidualRow {
             date: d[i].unwrap_or_default(),
-            entity: e[i].clone().unwrap_or_default(),
-            currency: c[i].clone().unwrap_or_default(),
+            entity: e[i].take().unwrap_or_default(),
+            currency: c[i].take().unwrap_or_default(),
             method: label(me[i].as_deref().unwrap_or(""), &["bootstrap", "bond_fit", "cir"]),
             instrument: label(ins[i].as_deref().unwrap_or(""), &["cds_par_spread", "cds_upfront", "bond_price"]),
-            tenor_or_bond: t[i].clone().unwrap_or_default(),
+            tenor_or_bond: t[i].take().unwrap_or_default(),
             market: mk[i].unwrap_or(f64::NAN),
             model: mo[i].unwrap_or(f64::NAN),
             residual_bp: r[i].unwrap_or(f64::NAN),
@@ -163,7 +163,7 @@ pub fn residuals(path: &Path) -> Result<Vec<ResidualRow>> {
 
 pub fn discount_curves(path: &Path) -> Result<Vec<DiscountCurveRow>> {
     let df = read_frame(path)?;
-    let (d, c, p, z, f) = (
+    let (d, mut c, p, z, f) = (
         dates(&df, path, "date")?,
         strs(&df, path, "currency")?,
         dates(&df, path, "pillar_date")?,
@@ -173,7 +173,7 @@ pub fn discount_curves(path: &Path) -> Result<Vec<DiscountCurveRow>> {
     Ok((0..df.height())
         .map(|i| DiscountCurveRow {
             date: d[i].unwrap_or_default(),
-            currency: c[i].clone().unwrap_or_default(),
+            currency: c[i].take().unwrap_or_default(),
             pillar_date: p[i].unwrap_or_default(),
             zero_rate: z[i].unwrap_or(f64::NAN),
             discount_factor: f[i].unwrap_or(f64::NAN),
@@ -187,7 +187,7 @@ pub type FlagRecord = (String, String, String, String, Option<NaiveDate>, f64, f
 
 pub fn flags(path: &Path) -> Result<Vec<FlagRecord>> {
     let df = read_frame(path)?;
-    let (r, s, e, se, d, v, t, x) = (
+    let (mut r, mut s, mut e, mut se, d, v, t, mut x) = (
         strs(&df, path, "rule")?,
         strs(&df, path, "severity")?,
         strs(&df, path, "entity")?,
@@ -202,14 +202,14 @@ pub fn flags(path: &Path) -> Result<Vec<FlagRecord>> {
     Ok((0..df.height())
         .map(|i| {
             (
-                r[i].clone().unwrap_or_default(),
-                s[i].clone().unwrap_or_default(),
-                e[i].clone().unwrap_or_default(),
-                se[i].clone().unwrap_or_default(),
+                r[i].take().unwrap_or_default(),
+                s[i].take().unwrap_or_default(),
+                e[i].take().unwrap_or_default(),
+                se[i].take().unwrap_or_default(),
                 d[i],
                 v[i].unwrap_or(f64::NAN),
                 t[i].unwrap_or(f64::NAN),
-                x[i].clone().unwrap_or_default(),
+                x[i].take().unwrap_or_default(),
                 stage[i].clone().unwrap_or_default(),
                 period[i].clone().unwrap_or_default(),
             )
@@ -220,10 +220,10 @@ pub fn flags(path: &Path) -> Result<Vec<FlagRecord>> {
 /// (table, reason, count) of the rejects table, most frequent first.
 pub fn reject_reasons(path: &Path) -> Result<Vec<(String, String, usize)>> {
     let df = read_frame(path)?;
-    let (t, r) = (strs(&df, path, "table")?, strs(&df, path, "reason")?);
+    let (mut t, mut r) = (strs(&df, path, "table")?, strs(&df, path, "reason")?);
     let mut m: std::collections::BTreeMap<(String, String), usize> = Default::default();
     for i in 0..df.height() {
-        *m.entry((t[i].clone().unwrap_or_default(), r[i].clone().unwrap_or_default())).or_default() += 1;
+        *m.entry((t[i].take().unwrap_or_default(), r[i].take().unwrap_or_default())).or_default() += 1;
     }
     let mut v: Vec<(String, String, usize)> = m.into_iter().map(|((a, b), c)| (a, b, c)).collect();
     v.sort_by(|a, b| b.2.cmp(&a.2).then(a.0.cmp(&b.0)).then(a.1.cmp(&b.1)));
@@ -241,7 +241,7 @@ pub fn intensity_params(path: &Path) -> Result<Vec<IntensityParamRow>> {
         return Ok(Vec::new());
     }
     let df = read_frame(path)?;
-    let (d, e, c, mo, k, th, sg, l0, rm, fe, st, it, ev, de) = (
+    let (d, mut e, mut c, mo, k, th, sg, l0, rm, fe, st, it, ev, mut de) = (
         dates(&df, path, "date")?,
         strs(&df, path, "entity")?,
         strs(&df, path, "currency")?,
@@ -260,8 +260,8 @@ pub fn intensity_params(path: &Path) -> Result<Vec<IntensityParamRow>> {
     Ok((0..df.height())
         .map(|i| IntensityParamRow {
             date: d[i].unwrap_or_default(),
-            entity: e[i].clone().unwrap_or_default(),
-            currency: c[i].clone().unwrap_or_default(),
+            entity: e[i].take().unwrap_or_default(),
+            currency: c[i].take().unwrap_or_default(),
             mode: label(mo[i].as_deref().unwrap_or(""), &["free", "fixed_kappa_sigma"]),
             kappa: k[i],
             theta: th[i],
@@ -272,7 +272,7 @@ pub fn intensity_params(path: &Path) -> Result<Vec<IntensityParamRow>> {
             status: label(st[i].as_deref().unwrap_or(""), STATUSES),
             iterations: it[i].unwrap_or(0),
             evaluations: ev[i].unwrap_or(0),
-            detail: de[i].clone(),
+            detail: de[i].take(),
         })
         .collect())
 }
@@ -283,7 +283,7 @@ pub fn basis(path: &Path) -> Result<Vec<BasisRow>> {
         return Ok(Vec::new());
     }
     let df = read_frame(path)?;
-    let (d, e, c, m, t, hb, hc, hbp, sb, sc, b) = (
+    let (d, mut e, mut c, m, t, hb, hc, hbp, sb, sc, b) = (
         dates(&df, path, "date")?,
         strs(&df, path, "entity")?,
         strs(&df, path, "currency")?,
@@ -300,8 +300,8 @@ pub fn basis(path: &Path) -> Result<Vec<BasisRow>> {
     Ok((0..df.height())
         .map(|i| BasisRow {
             date: d[i].unwrap_or_default(),
-            entity: e[i].clone().unwrap_or_default(),
-            currency: c[i].clone().unwrap_or_default(),
+            entity: e[i].take().unwrap_or_default(),
+            currency: c[i].take().unwrap_or_default(),
             maturity: m[i].unwrap_or_default(),
             time: f(&t, i),
             bond_average_hazard: f(&hb, i),
