@@ -84,14 +84,16 @@ pub(crate) type Panel = BTreeMap<(String, String), Vec<Point>>;
 /// Builds the panel: drops non-finite values and repeated dates (keeping the first in input order).
 pub(crate) fn build_panel(observations: &[Observation]) -> (Panel, InputSummary) {
     let mut summary = InputSummary::default();
-    let mut panel = Panel::new();
+    // Grouped under borrowed keys first: one owned key per series, not per observation.
+    let mut borrowed: BTreeMap<(&str, &str), Vec<Point>> = BTreeMap::new();
     for o in observations {
         if !o.value.is_finite() {
             summary.non_finite += 1;
             continue;
         }
-        panel.entry((o.series.clone(), o.entity.clone())).or_default().push(Point { date: o.date, value: o.value, grade: o.grade });
+        borrowed.entry((o.series.as_str(), o.entity.as_str())).or_default().push(Point { date: o.date, value: o.value, grade: o.grade });
     }
+    let mut panel: Panel = borrowed.into_iter().map(|((s, e), v)| ((s.to_string(), e.to_string()), v)).collect();
     for points in panel.values_mut() {
         let before = points.len();
         points.sort_by_key(|p| p.date);

@@ -274,12 +274,15 @@ pub(crate) fn fill_changes(rows: &mut [(Period, StabilityRow)]) {
 
 /// Per-date 10/50/90% bands of each series, for the universe and per grade.
 pub(crate) fn cross_sections(panel: &Panel, settings: &StabilitySettings) -> Vec<CrossSectionRow> {
-    let mut groups: BTreeMap<(String, Scope, String, NaiveDate), Vec<f64>> = BTreeMap::new();
+    // Keys borrowed (grade labels made once), so that no string is built per point; the
+    // order is that of the owned (series, scope, key, date) keys.
+    let grade_labels: BTreeMap<u32, String> = panel.values().flatten().filter_map(|p| p.grade).map(|g| (g, g.to_string())).collect();
+    let mut groups: BTreeMap<(&str, Scope, &str, NaiveDate), Vec<f64>> = BTreeMap::new();
     for ((series, _), points) in panel {
         for p in points {
-            groups.entry((series.clone(), Scope::Universe, "all".into(), p.date)).or_default().push(p.value);
-            if let Some(g) = p.grade {
-                groups.entry((series.clone(), Scope::Grade, g.to_string(), p.date)).or_default().push(p.value);
+            groups.entry((series.as_str(), Scope::Universe, "all", p.date)).or_default().push(p.value);
+            if let Some(g) = p.grade.and_then(|g| grade_labels.get(&g)) {
+                groups.entry((series.as_str(), Scope::Grade, g.as_str(), p.date)).or_default().push(p.value);
             }
         }
     }
@@ -287,7 +290,7 @@ pub(crate) fn cross_sections(panel: &Panel, settings: &StabilitySettings) -> Vec
         .into_iter()
         .filter_map(|((series, scope, key, date), v)| {
             let (p10, p50, p90) = band(&v)?;
-            Some(CrossSectionRow { date, period: settings.period.of(date).label(), series, scope, key, n: v.len(), p10, p50, p90 })
+            Some(CrossSectionRow { date, period: settings.period.of(date).label(), series: series.to_string(), scope, key: key.to_string(), n: v.len(), p10, p50, p90 })
         })
         .collect()
 }

@@ -124,9 +124,9 @@ pub struct ResidualAnalysis {
     pub non_finite: usize,
 }
 
-type CurveKey = (NaiveDate, String, String);
+type CurveKey<'a> = (NaiveDate, &'a str, &'a str);
 
-fn curve_row(key: &CurveKey, rows: &[&ResidualObservation], tolerance_bp: f64) -> CurveResidualRow {
+fn curve_row(key: &CurveKey<'_>, rows: &[&ResidualObservation], tolerance_bp: f64) -> CurveResidualRow {
     let n = rows.len();
     let rmse_bp = (rows.iter().map(|r| r.residual_bp * r.residual_bp).sum::<f64>() / n as f64).sqrt();
     let worst = rows.iter().max_by(|a, b| a.residual_bp.abs().total_cmp(&b.residual_bp.abs()));
@@ -134,8 +134,8 @@ fn curve_row(key: &CurveKey, rows: &[&ResidualObservation], tolerance_bp: f64) -
     let converged = rows.iter().all(|r| r.converged);
     CurveResidualRow {
         date: key.0,
-        entity: key.1.clone(),
-        method: key.2.clone(),
+        entity: key.1.to_string(),
+        method: key.2.to_string(),
         n,
         rmse_bp,
         max_abs_bp,
@@ -167,11 +167,20 @@ fn tenor_row(method: &str, tenor: &str, residuals: &[f64]) -> TenorResidualRow {
 }
 
 fn worst_rows(rows: &[&ResidualObservation], n: usize) -> Vec<WorstResidualRow> {
-    let mut v: Vec<&ResidualObservation> = rows.to_vec();
-    v.sort_by(|a, b| {
+    let order = |a: &ResidualObservation, b: &ResidualObservation| {
         b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then_with(|| (a.date, &a.entity, &a.method, &a.tenor).cmp(&(b.date, &b.entity, &b.method, &b.tenor)))
-    });
-    v.into_iter().take(n).enumerate().map(|(i, r)| WorstResidualRow { rank: i + 1, residual: r.clone() }).collect()
+    };
+    // The first n of a stable sort, in one pass: a row enters only when it beats the n-th.
+    let mut v: Vec<&ResidualObservation> = Vec::with_capacity(n + 1);
+    for &r in rows {
+        if n == 0 || (v.len() == n && order(r, v[n - 1]) != std::cmp::Ordering::Less) {
+            continue;
+        }
+        let at = v.partition_point(|x| order(x, r) != std::cmp::Ordering::Greater);
+        v.insert(at, r);
+        v.truncate(n);
+    }
+    v.into_iter().enumerate().map(|(i, r)| WorstResidualRow { rank: i + 1, residual: r.clone() }).collect()
 }
 
 fn repricing_shares(curves: &[CurveResidualRow], tolerance_bp: f64) -> Vec<RepricingShare> {
@@ -187,11 +196,11 @@ fn repricing_shares(curves: &[CurveResidualRow], tolerance_bp: f64) -> Vec<Repri
 /// Summarises residual rows; rows with a non-finite residual are dropped and counted.
 pub fn review_residuals(rows: &[ResidualObservation], settings: &StabilitySettings) -> ResidualAnalysis {
     let usable: Vec<&ResidualObservation> = rows.iter().filter(|r| r.residual_bp.is_finite()).collect();
-    let mut by_curve: BTreeMap<CurveKey, Vec<&ResidualObservation>> = BTreeMap::new();
-    let mut by_tenor: BTreeMap<(String, String), Vec<f64>> = BTreeMap::new();
+    let mut by_curve: BTreeMap<CurveKey<'_>, Vec<&ResidualObservation>> = BTreeMap::new();
+    let mut by_tenor: BTreeMap<(&str, &str), Vec<f64>> = BTreeMap::new();
     for r in &usable {
-        by_curve.entry((r.date, r.entity.clone(), r.method.clone())).or_default().push(r);
-        by_tenor.entry((r.method.clone(), r.tenor.clone())).or_default().push(r.residual_bp);
+        by_curve.entry((r.date, r.entity.as_str(), r.method.as_str())).or_default().push(r);
+        by_tenor.entry((r.method.as_str(), r.tenor.as_str())).or_default().push(r.residual_bp);
     }
     let tol = settings.reprice_tolerance_bp;
     let curves: Vec<CurveResidualRow> = by_curve.iter().map(|(k, v)| curve_row(k, v, tol)).collect();
