@@ -92,3 +92,23 @@ fn a_bad_shard_argument_is_refused() {
     let err = String::from_utf8(out.get_output().stderr.clone()).unwrap();
     assert!(err.contains("between 1 and N"), "{err}");
 }
+
+/// More shards than entities: most parts are empty, and the merge still equals the single
+/// run (the hand-made fixture: bonds, a bad discount row, rejects of every kind).
+#[test]
+fn empty_shards_merge_too() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = crate::support::repo().join("tests/fixtures/sample.toml").to_string_lossy().to_string();
+    let out = dir.path().join("single");
+    hazardline(&["run", &pipeline, "--out", out.to_str().unwrap(), "--label", "r"]).success();
+    let one = files(&out.join("sample/r"), &["run.log"]);
+    let sh = dir.path().join("nine");
+    let mut empty = 0;
+    for i in 1..=9 {
+        let o = hazardline(&["run", &pipeline, "--out", sh.to_str().unwrap(), "--label", "r", "--shard", &format!("{i}/9")]).success();
+        empty += usize::from(String::from_utf8(o.get_output().stdout.clone()).unwrap().contains(" 0 entities"));
+    }
+    assert!(empty >= 3, "{empty} empty shards");
+    hazardline(&["merge", &pipeline, "--out", sh.to_str().unwrap(), "--label", "r"]).success();
+    assert_same(&one, &files(&sh.join("sample/r"), &["run.log"]), "9 shards");
+}
