@@ -222,8 +222,11 @@ fn read_parts(dir: &Path, pipeline: &Path) -> Result<Vec<Partition>> {
     }
     let have: BTreeSet<u32> = metas.iter().map(|m| m.shard).collect();
     let lacking: Vec<String> = (1..=n).filter(|i| !have.contains(i)).map(|i| format!("{i}/{n}")).collect();
-    if !lacking.is_empty() || have.len() != metas.len() {
-        return Err(bad(format!("{}: shards {} are missing (or a shard is there twice); run them, then merge", dir.display(), lacking.join(", "))));
+    if !lacking.is_empty() {
+        return Err(bad(format!("{}: shards {} are missing; run them, then merge", dir.display(), lacking.join(", "))));
+    }
+    if have.len() != metas.len() {
+        return Err(bad(format!("{}: a shard's part is there twice (under two folder names); keep one", dir.display())));
     }
     let mut by_index: Vec<(u32, PathBuf)> = metas.iter().map(|m| m.shard).zip(folders).collect();
     by_index.sort();
