@@ -19,7 +19,7 @@ use crate::ingest::{load, InputPaths, QualitySettings, Reject, TableCounts};
 use crate::report::tables::DiscountCurveRow;
 use crate::instruments::AccrualIntegration;
 use crate::report::tables::{
-    write_data_quality, write_hazard_curves, write_quality_flags, write_rejects, write_residuals, HazardCurveRow, ResidualRow,
+    tenor_label, write_data_quality, write_hazard_curves, write_quality_flags, write_rejects, write_residuals, HazardCurveRow, Label, ResidualRow,
 };
 use crate::time::{Calendar, Tenor};
 use chrono::NaiveDate;
@@ -166,15 +166,16 @@ fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, 
         _ => None,
     };
     let residuals = crate::calibrate::residuals::reprice_with_plan(&fit, &quotes, curve, s.bootstrap.accrual, shared);
+    let (entity_label, currency_label): (Label, Label) = (entity.into(), currency.into());
     let hazard = fit
         .nodes
         .iter()
         .map(|n| HazardCurveRow {
             date,
-            entity: entity.to_string(),
-            currency: currency.to_string(),
+            entity: entity_label.clone(),
+            currency: currency_label.clone(),
             source: "cds",
-            tenor: n.tenor.to_string(),
+            tenor: tenor_label(n.tenor),
             maturity: n.maturity,
             node_date: n.node_date,
             hazard: n.hazard,
@@ -189,11 +190,11 @@ fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, 
         .into_iter()
         .map(|q| ResidualRow {
             date,
-            entity: entity.to_string(),
-            currency: currency.to_string(),
+            entity: entity_label.clone(),
+            currency: currency_label.clone(),
             method: "bootstrap",
             instrument: q.instrument,
-            tenor_or_bond: q.tenor.to_string(),
+            tenor_or_bond: tenor_label(q.tenor),
             market: q.market,
             model: q.model,
             residual_bp: q.residual_bp,

@@ -12,9 +12,9 @@ use std::path::Path;
 fn mean_5y(run: &Path) -> Result<BTreeMap<String, (f64, usize)>> {
     let h = readback::hazard_curves(&run.join("tables/hazard_curves.parquet"))?;
     let mut m: BTreeMap<String, (f64, usize)> = BTreeMap::new();
-    for r in h.iter().filter(|r| r.source == "cds" && r.tenor == "5Y" && r.status == "ok") {
+    for r in h.iter().filter(|r| r.source == "cds" && &*r.tenor == "5Y" && r.status == "ok") {
         if let Some(x) = r.hazard {
-            let e = m.entry(r.entity.clone()).or_default();
+            let e = m.entry(r.entity.to_string()).or_default();
             e.0 += x;
             e.1 += 1;
         }

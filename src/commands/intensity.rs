@@ -128,10 +128,10 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
         let ids: Vec<&str> = g.quotes.iter().filter(|(b, _, _)| b.maturity == n.maturity).map(|(b, _, _)| b.bond.as_str()).collect();
         out.hazard.push(HazardCurveRow {
             date: g.date,
-            entity: g.entity.to_string(),
-            currency: g.currency.to_string(),
+            entity: g.entity.into(),
+            currency: g.currency.into(),
             source: "bond",
-            tenor: if ids.is_empty() { n.maturity.to_string() } else { ids.join("+") },
+            tenor: if ids.is_empty() { n.maturity.to_string().into() } else { ids.join("+").into() },
             maturity: n.maturity,
             node_date: n.maturity,
             hazard: Some(n.hazard),
@@ -145,11 +145,11 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
     for r in &fit.bonds {
         out.residuals.push(ResidualRow {
             date: g.date,
-            entity: g.entity.to_string(),
-            currency: g.currency.to_string(),
+            entity: g.entity.into(),
+            currency: g.currency.into(),
             method: "bond_fit",
             instrument: "bond_price",
-            tenor_or_bond: g.quotes[r.quote_index].0.bond.clone(),
+            tenor_or_bond: g.quotes[r.quote_index].0.bond.as_str().into(),
             market: r.market_clean,
             model: r.model_clean,
             residual_bp: r.residual_bp,
@@ -229,11 +229,11 @@ fn cir_residuals(date: NaiveDate, entity: &str, currency: &str, f: &CirFit) -> V
         .iter()
         .map(|q| ResidualRow {
             date,
-            entity: entity.to_string(),
-            currency: currency.to_string(),
+            entity: entity.into(),
+            currency: currency.into(),
             method: "cir",
             instrument: q.instrument,
-            tenor_or_bond: q.tenor.to_string(),
+            tenor_or_bond: crate::report::tables::tenor_label(q.tenor),
             market: q.market,
             model: q.model,
             residual_bp: q.residual_bp,

@@ -150,7 +150,7 @@ pub fn stability_inputs(
             entity: series_name(multi, &r.entity, &r.currency),
             method: r.method.to_string(),
             instrument: r.instrument.to_string(),
-            tenor: r.tenor_or_bond.clone(),
+            tenor: r.tenor_or_bond.to_string(),
             market: r.market,
             model: r.model,
             residual_bp: r.residual_bp,

@@ -88,12 +88,12 @@ pub fn render(run_dir: &Path) -> Result<()> {
     let reasons = readback::reject_reasons(&t.join("rejects.parquet"))?;
     let charts_dir = run_dir.join("charts");
 
-    let entities: BTreeSet<String> = hazard.iter().map(|h| h.entity.clone()).collect();
-    let currencies: BTreeSet<String> = hazard.iter().map(|h| h.currency.clone()).collect();
+    let entities: BTreeSet<String> = hazard.iter().map(|h| h.entity.to_string()).collect();
+    let currencies: BTreeSet<String> = hazard.iter().map(|h| h.currency.to_string()).collect();
     let dates: Vec<NaiveDate> = hazard.iter().map(|h| h.date).collect::<BTreeSet<_>>().into_iter().collect();
-    let curves: BTreeSet<(NaiveDate, &str, &str)> = hazard.iter().map(|h| (h.date, h.entity.as_str(), h.currency.as_str())).collect();
+    let curves: BTreeSet<(NaiveDate, &str, &str)> = hazard.iter().map(|h| (h.date, &*h.entity, &*h.currency)).collect();
     let bad_curves: BTreeSet<(NaiveDate, &str, &str)> =
-        hazard.iter().filter(|h| h.status != "ok").map(|h| (h.date, h.entity.as_str(), h.currency.as_str())).collect();
+        hazard.iter().filter(|h| h.status != "ok").map(|h| (h.date, &*h.entity, &*h.currency)).collect();
     let ok_res: Vec<&super::tables::ResidualRow> = residuals.iter().copied().filter(|r| r.status == "ok").collect();
     let within = ok_res.iter().filter(|r| r.residual_bp.abs() <= REPRICE_TOLERANCE_BP).count();
     let mut status_counts: BTreeMap<&str, usize> = BTreeMap::new();
@@ -119,7 +119,7 @@ pub fn render(run_dir: &Path) -> Result<()> {
         let _ = writeln!(w, "- Period: {a} to {b} ({} curve dates).", dates.len());
     }
     let _ = writeln!(w, "- Universe: {} entities in {} currencies ({}).", entities.len(), currencies.len(), currencies.iter().cloned().collect::<Vec<_>>().join(", "));
-    let bond_curves: BTreeSet<(NaiveDate, &str, &str)> = bond_hazard.iter().map(|h| (h.date, h.entity.as_str(), h.currency.as_str())).collect();
+    let bond_curves: BTreeSet<(NaiveDate, &str, &str)> = bond_hazard.iter().map(|h| (h.date, &*h.entity, &*h.currency)).collect();
     let mut ran = vec!["input data quality".to_string(), "the daily CDS hazard-curve bootstrap with its repricing residuals".to_string()];
     let mut not_ran: Vec<String> = Vec::new();
     let stability_rows = readback::read_frame(&t.join("stability.parquet"))?.height();
@@ -180,7 +180,7 @@ pub fn render(run_dir: &Path) -> Result<()> {
         if within == ok_res.len() { "pass" } else { "flagged" }
     );
     if !bond_curves.is_empty() {
-        let bad_bond: BTreeSet<(NaiveDate, &str, &str)> = bond_hazard.iter().filter(|h| h.status != "ok").map(|h| (h.date, h.entity.as_str(), h.currency.as_str())).collect();
+        let bad_bond: BTreeSet<(NaiveDate, &str, &str)> = bond_hazard.iter().filter(|h| h.status != "ok").map(|h| (h.date, &*h.entity, &*h.currency)).collect();
         let _ = writeln!(w, "| bond-implied curves with every node `ok` | {} of {} | {} |", bond_curves.len() - bad_bond.len(), bond_curves.len(), if bad_bond.is_empty() { "pass" } else { "flagged" });
     }
     if !params.is_empty() {
@@ -234,7 +234,7 @@ pub fn render(run_dir: &Path) -> Result<()> {
     let mut by_tenor: BTreeMap<(u32, String), Vec<f64>> = BTreeMap::new();
     for r in &ok_res {
         let months = r.tenor_or_bond.parse::<crate::time::Tenor>().map(|t| t.months()).unwrap_or(0);
-        by_tenor.entry((months, r.tenor_or_bond.clone())).or_default().push(r.residual_bp);
+        by_tenor.entry((months, r.tenor_or_bond.to_string())).or_default().push(r.residual_bp);
     }
     if !by_tenor.is_empty() {
         let _ = writeln!(w, "Residuals (model minus market, bp) of nodes with status `ok`, per tenor:\n");
@@ -288,7 +288,7 @@ pub fn render(run_dir: &Path) -> Result<()> {
         for d in &tdates {
             let nodes: Vec<(f64, f64)> = hazard
                 .iter()
-                .filter(|h| &h.entity == e && h.date == *d && h.hazard.is_some())
+                .filter(|h| &*h.entity == e.as_str() && h.date == *d && h.hazard.is_some())
                 .map(|h| (crate::curves::year_time(*d, h.node_date), h.hazard.unwrap_or(0.0)))
                 .collect();
             if !nodes.is_empty() {
@@ -306,7 +306,7 @@ pub fn render(run_dir: &Path) -> Result<()> {
         let _ = writeln!(w, "*Figure {figure}. Bootstrapped piecewise-flat hazard rate of {e} against time to each node, on {}.*\n", curves_of.iter().map(|c| c.0.to_string()).collect::<Vec<_>>().join(", "));
     }
     // 5Y hazard through time with the universe band.
-    let five: Vec<&HazardCurveRow> = hazard.iter().filter(|h| h.tenor == "5Y" && h.hazard.is_some() && h.status == "ok").collect();
+    let five: Vec<&HazardCurveRow> = hazard.iter().filter(|h| &*h.tenor == "5Y" && h.hazard.is_some() && h.status == "ok").collect();
     if !five.is_empty() {
         let mut per_date: BTreeMap<NaiveDate, Vec<f64>> = BTreeMap::new();
         for h in &five {
@@ -315,7 +315,7 @@ pub fn render(run_dir: &Path) -> Result<()> {
         let band = quantile_band(&mut per_date);
         let series: Vec<(String, Vec<(f64, f64)>)> = chosen
             .iter()
-            .map(|e| (e.clone(), five.iter().filter(|h| &h.entity == e).map(|h| (charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0)).collect()))
+            .map(|e| (e.clone(), five.iter().filter(|h| &*h.entity == e.as_str()).map(|h| (charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0)).collect()))
             .filter(|(_, v): &(String, Vec<(f64, f64)>)| !v.is_empty())
             .collect();
         let svg = charts::history_with_band("5Y hazard rate through time", "hazard rate (% per year)", &series, &band).map_err(chart_err)?;
@@ -444,13 +444,13 @@ fn intensity_sections(
         );
         let mut per: BTreeMap<(&str, &str), (BTreeSet<NaiveDate>, BTreeSet<&str>, BTreeSet<String>, Vec<f64>, Vec<f64>)> = BTreeMap::new();
         for h in bond_hazard {
-            let e = per.entry((h.entity.as_str(), h.currency.as_str())).or_default();
+            let e = per.entry((&*h.entity, &*h.currency)).or_default();
             e.0.insert(h.date);
             e.2.insert(h.detail.as_deref().and_then(|d| d.split(' ').next()).unwrap_or("").replace('_', "-"));
         }
         for r in bond_res {
-            let e = per.entry((r.entity.as_str(), r.currency.as_str())).or_default();
-            e.1.insert(r.tenor_or_bond.as_str());
+            let e = per.entry((&*r.entity, &*r.currency)).or_default();
+            e.1.insert(&*r.tenor_or_bond);
             e.3.push(r.model - r.market);
             e.4.push(r.residual_bp);
         }

@@ -1,7 +1,7 @@
 //! Reading the run's own tables back from Parquet, so that the report is always rendered
 //! from exactly what was written (and `hazardline report RUN_DIR` can re-render it later).
 
-use super::tables::{BasisRow, DiscountCurveRow, HazardCurveRow, IntensityParamRow, ResidualRow};
+use super::tables::{BasisRow, DiscountCurveRow, HazardCurveRow, IntensityParamRow, Label, ResidualRow};
 use crate::error::{Error, Result};
 use chrono::NaiveDate;
 use polars::prelude::*;
@@ -23,6 +23,21 @@ fn err(path: &Path, column: &str, e: impl std::fmt::Display) -> Error {
 pub fn strs(df: &DataFrame, path: &Path, name: &str) -> Result<Vec<Option<String>>> {
     let c = df.column(name).map_err(|e| err(path, name, e))?;
     Ok(c.str().map_err(|e| err(path, name, e))?.iter().map(|v| v.map(str::to_string)).collect())
+}
+
+/// A text column as shared labels: one allocation per distinct value (entities, currencies
+/// and tenors repeat on millions of rows); empty cells read as "".
+pub fn labels(df: &DataFrame, path: &Path, name: &str) -> Result<Vec<Label>> {
+    let c = df.column(name).map_err(|e| err(path, name, e))?;
+    let mut seen: std::collections::HashMap<&str, Label> = std::collections::HashMap::new();
+    Ok(c.str()
+        .map_err(|e| err(path, name, e))?
+        .iter()
+        .map(|v| {
+            let v = v.unwrap_or("");
+            seen.entry(v).or_insert_with(|| Label::from(v)).clone()
+        })
+        .collect())
 }
 
 pub fn floats(df: &DataFrame, path: &Path, name: &str) -> Result<Vec<Option<f64>>> {
@@ -97,12 +112,12 @@ pub const STATUSES: &[&str] = &["ok", "floored", "infeasible", "failed", "curve_
 
 pub fn hazard_curves(path: &Path) -> Result<Vec<HazardCurveRow>> {
     let df = read_frame(path)?;
-    let (d, mut e, mut c, src, mut t, m, nd, h, s, st, r, it, mut de) = (
+    let (d, e, c, src, t, m, nd, h, s, st, r, it, mut de) = (
         dates(&df, path, "date")?,
-        strs(&df, path, "entity")?,
-        strs(&df, path, "currency")?,
+        labels(&df, path, "entity")?,
+        labels(&df, path, "currency")?,
         strs(&df, path, "source")?,
-        strs(&df, path, "tenor")?,
+        labels(&df, path, "tenor")?,
         dates(&df, path, "maturity")?,
         dates(&df, path, "node_date")?,
         floats(&df, path, "hazard")?,
@@ -115,10 +130,10 @@ pub fn hazard_curves(path: &Path) -> Result<Vec<HazardCurveRow>> {
     Ok((0..df.height())
         .map(|i| HazardCurveRow {
             date: d[i].unwrap_or_default(),
-            entity: e[i].take().unwrap_or_default(),
-            currency: c[i].take().unwrap_or_default(),
+            entity: e[i].clone(),
+            currency: c[i].clone(),
             source: label(src[i].as_deref().unwrap_or(""), &["cds", "bond"]),
-            tenor: t[i].take().unwrap_or_default(),
+            tenor: t[i].clone(),
             maturity: m[i].unwrap_or_default(),
             node_date: nd[i].unwrap_or_default(),
             hazard: h[i],
@@ -133,13 +148,13 @@ pub fn hazard_curves(path: &Path) -> Result<Vec<HazardCurveRow>> {
 
 pub fn residuals(path: &Path) -> Result<Vec<ResidualRow>> {
     let df = read_frame(path)?;
-    let (d, mut e, mut c, me, ins, mut t, mk, mo, r, st) = (
+    let (d, e, c, me, ins, t, mk, mo, r, st) = (
         dates(&df, path, "date")?,
-        strs(&df, path, "entity")?,
-        strs(&df, path, "currency")?,
+        labels(&df, path, "entity")?,
+        labels(&df, path, "currency")?,
         strs(&df, path, "method")?,
         strs(&df, path, "instrument")?,
-        strs(&df, path, "tenor_or_bond")?,
+        labels(&df, path, "tenor_or_bond")?,
         floats(&df, path, "market")?,
         floats(&df, path, "model")?,
         floats(&df, path, "residual_bp")?,
@@ -148,11 +163,11 @@ pub fn residuals(path: &Path) -> Result<Vec<ResidualRow>> {
     Ok((0..df.height())
         .map(|i| ResidualRow {
             date: d[i].unwrap_or_default(),
-            entity: e[i].take().unwrap_or_default(),
-            currency: c[i].take().unwrap_or_default(),
+            entity: e[i].clone(),
+            currency: c[i].clone(),
             method: label(me[i].as_deref().unwrap_or(""), &["bootstrap", "bond_fit", "cir"]),
             instrument: label(ins[i].as_deref().unwrap_or(""), &["cds_par_spread", "cds_upfront", "bond_price"]),
-            tenor_or_bond: t[i].take().unwrap_or_default(),
+            tenor_or_bond: t[i].clone(),
             market: mk[i].unwrap_or(f64::NAN),
             model: mo[i].unwrap_or(f64::NAN),
             residual_bp: r[i].unwrap_or(f64::NAN),

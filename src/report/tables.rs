@@ -12,11 +12,12 @@ use std::path::Path;
 #[derive(Debug, Clone, PartialEq)]
 pub struct HazardCurveRow {
     pub date: NaiveDate,
-    pub entity: String,
-    pub currency: String,
+    /// Shared by every row of the curve (one allocation per curve, not per node).
+    pub entity: Label,
+    pub currency: Label,
     /// `cds` or `bond`.
     pub source: &'static str,
-    pub tenor: String,
+    pub tenor: Label,
     /// Unadjusted contract maturity.
     pub maturity: NaiveDate,
     /// End of the flat segment (adjusted maturity + 1 day).
@@ -29,6 +30,18 @@ pub struct HazardCurveRow {
     pub recovery: f64,
     pub iterations: i64,
     pub detail: Option<String>,
+}
+
+/// A text value repeated on many rows (entity, currency, tenor): reference-counted, so the
+/// rows of one curve share one allocation.
+pub type Label = std::sync::Arc<str>;
+
+/// The label of a tenor, one allocation per tenor and thread.
+pub fn tenor_label(t: crate::time::Tenor) -> Label {
+    thread_local! {
+        static CACHE: std::cell::RefCell<std::collections::HashMap<crate::time::Tenor, Label>> = Default::default();
+    }
+    CACHE.with(|c| c.borrow_mut().entry(t).or_insert_with(|| t.to_string().into()).clone())
 }
 
 /// One pillar of a discount curve as used.
@@ -58,11 +71,11 @@ pub fn write_discount_curves(rows: &[DiscountCurveRow], path: &Path, meta: &[(St
 #[derive(Debug, Clone, PartialEq)]
 pub struct ResidualRow {
     pub date: NaiveDate,
-    pub entity: String,
-    pub currency: String,
+    pub entity: Label,
+    pub currency: Label,
     pub method: &'static str,
     pub instrument: &'static str,
-    pub tenor_or_bond: String,
+    pub tenor_or_bond: Label,
     pub market: f64,
     pub model: f64,
     pub residual_bp: f64,

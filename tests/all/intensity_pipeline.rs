@@ -39,7 +39,7 @@ fn demo_run_writes_bond_and_cir_tables() {
     }
     let params = readback::intensity_params(&t.join("intensity_params.parquet")).unwrap();
     let hazard = readback::hazard_curves(&t.join("hazard_curves.parquet")).unwrap();
-    let cds: BTreeSet<(chrono::NaiveDate, &str, &str)> = hazard.iter().filter(|h| h.source == "cds").map(|h| (h.date, h.entity.as_str(), h.currency.as_str())).collect();
+    let cds: BTreeSet<(chrono::NaiveDate, &str, &str)> = hazard.iter().filter(|h| h.source == "cds").map(|h| (h.date, &*h.entity, &*h.currency)).collect();
     assert_eq!(params.len(), cds.len(), "one CIR fit per bootstrapped CDS curve");
     for p in &params {
         assert!(cds.contains(&(p.date, p.entity.as_str(), p.currency.as_str())), "CIR fit {} {} has no CDS curve", p.date, p.entity);
@@ -60,7 +60,7 @@ fn demo_run_writes_bond_and_cir_tables() {
     // Bond rows in hazard_curves, with the design's columns.
     let bond: Vec<_> = hazard.iter().filter(|h| h.source == "bond").collect();
     assert!(!bond.is_empty());
-    let bond_names: BTreeSet<&str> = bond.iter().map(|h| h.entity.as_str()).collect();
+    let bond_names: BTreeSet<&str> = bond.iter().map(|h| &*h.entity).collect();
     assert_eq!(bond_names, BTreeSet::from(["Corvane Logistics", "Halberd Mills", "Ostrel Utilities"]));
     for h in &bond {
         let (l, s) = (h.hazard.unwrap(), h.survival.unwrap());
