@@ -443,7 +443,8 @@ mod tests {
     #[test]
     fn fnv1a_matches_the_published_test_vectors() {
         // Test vectors of the FNV reference (Fowler, Noll, Vo; the IETF draft
-        // draft-eastlake-fnv): FNV-1a 64 of "" and of "a" and "foobar".
+        // draft-eastlake-fnv): FNV-1a 64 of "", "a" and "foobar", recalled from memory (the
+        // empty string's is the offset basis by definition).
         assert_eq!(fnv1a(b""), 0xcbf2_9ce4_8422_2325);
         assert_eq!(fnv1a(b"a"), 0xaf63_dc4c_8601_ec8c);
         assert_eq!(fnv1a(b"foobar"), 0x8594_4171_f739_67e8);

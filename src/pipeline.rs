@@ -117,6 +117,15 @@ pub fn shards_dir(cfg: &RunConfig, opts: &RunOptions, label: &str) -> PathBuf {
     output_root(cfg, opts).join(&cfg.name).join(format!("{label}.shards"))
 }
 
+/// `run.log`: per stage its seconds and the resident and peak memory after it, then the total.
+fn stage_log(timings: &[StageTiming], total: f64) -> String {
+    let mut log = String::from("stage\tseconds\trss_mib\tpeak_rss_mib\n");
+    for (s, v, rss, peak) in timings {
+        log += &format!("{s}\t{v:.3}\t{rss:.0}\t{peak:.0}\n");
+    }
+    log + &format!("total\t{total:.3}\n")
+}
+
 /// Loads every input and shows its sources relative to the pipeline file.
 fn ingest(cfg: &RunConfig, timings: &mut Vec<StageTiming>) -> Result<Dataset> {
     let t = Instant::now();
@@ -166,12 +175,7 @@ pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard) -> Result<Sha
     write_partition(&dir, &part, shard, &sha)?;
     let (rss, peak) = memory_mib();
     timings.push(("write part".into(), t.elapsed().as_secs_f64(), rss, peak));
-    let mut log = String::from("stage\tseconds\trss_mib\tpeak_rss_mib\n");
-    for (s, v, rss, peak) in &timings {
-        log += &format!("{s}\t{v:.3}\t{rss:.0}\t{peak:.0}\n");
-    }
-    log += &format!("total\t{:.3}\n", t0.elapsed().as_secs_f64());
-    write_text(&dir.join("run.log"), &log)?;
+    write_text(&dir.join("run.log"), &stage_log(&timings, t0.elapsed().as_secs_f64()))?;
     Ok(ShardSummary { part_dir: dir, curves: part.curves, entities: part.curve_entities.len(), timings })
 }
 
@@ -396,12 +400,7 @@ fn finish(cfg: &RunConfig, opts: &RunOptions, mut ds: Dataset, ingest_counts: Ve
     let (rss, peak) = memory_mib();
     timings.push(("report".into(), t3.elapsed().as_secs_f64(), rss, peak));
     let total = t0.elapsed().as_secs_f64();
-    let mut log = String::from("stage\tseconds\trss_mib\tpeak_rss_mib\n");
-    for (s, v, rss, peak) in &timings {
-        log += &format!("{s}\t{v:.3}\t{rss:.0}\t{peak:.0}\n");
-    }
-    log += &format!("total\t{total:.3}\n");
-    write_text(&work.join("run.log"), &log)?;
+    write_text(&work.join("run.log"), &stage_log(&timings, total))?;
 
     // Swap the finished folder into place.
     if final_dir.exists() {

@@ -16,6 +16,9 @@ use chrono::NaiveDate;
 use std::collections::{BTreeMap, HashMap, HashSet};
 use std::path::PathBuf;
 
+/// Every input table, in load order (the order of the rejects table).
+pub const INPUT_TABLES: [&str; 8] = ["entities", "defaults", "grades", "cohort_history", "discount", "bonds", "bond_quotes", "cds_quotes"];
+
 /// Where each input table is; any may be absent.
 #[derive(Debug, Clone, Default)]
 pub struct InputPaths {
@@ -310,7 +313,7 @@ fn collect_rejects(ds: &mut Dataset) {
     take!(ds.bonds);
     take!(ds.bond_quotes);
     take!(ds.cds);
-    let order = |t: &str| ["entities", "defaults", "grades", "cohort_history", "discount", "bonds", "bond_quotes", "cds_quotes"].iter().position(|x| *x == t).unwrap_or(99);
+    let order = |t: &str| INPUT_TABLES.iter().position(|x| *x == t).unwrap_or(99);
     all.sort_by(|a, b| (order(a.table), &a.source, a.row).cmp(&(order(b.table), &b.source, b.row)));
     ds.rejects = all;
 }

@@ -93,10 +93,9 @@ pub fn rejects(path: &Path) -> Result<Vec<crate::ingest::Reject>> {
         strs(&df, path, "reason")?,
         strs(&df, path, "detail")?,
     );
-    const TABLES: &[&str] = &["entities", "defaults", "grades", "cohort_history", "discount", "bonds", "bond_quotes", "cds_quotes"];
     Ok((0..df.height())
         .map(|i| crate::ingest::Reject {
-            table: label(t[i].as_deref().unwrap_or(""), TABLES),
+            table: label(t[i].as_deref().unwrap_or(""), &crate::ingest::load::INPUT_TABLES),
             source: s[i].take().unwrap_or_default(),
             row: r[i].unwrap_or_default() as u64,
             reason: intern(re[i].as_deref().unwrap_or("")),
