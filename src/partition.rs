@@ -354,12 +354,12 @@ pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
 
     let path = dir.join("stability_series.parquet");
     let df = read_frame(&path)?;
-    let (mut s, mut e, g, d, v) = (strs(&df, &path, "series")?, strs(&df, &path, "entity")?, ints(&df, &path, "grade")?, dates(&df, &path, "date")?, floats(&df, &path, "value")?);
+    let (s, e, g, d, v) = (readback::labels(&df, &path, "series")?, readback::labels(&df, &path, "entity")?, ints(&df, &path, "grade")?, dates(&df, &path, "date")?, floats(&df, &path, "value")?);
     part.curve_obs = (0..df.height())
         .map(|i| {
             Ok(Observation {
-                series: s[i].take().ok_or_else(|| missing(&path, "series", i))?,
-                entity: e[i].take().ok_or_else(|| missing(&path, "entity", i))?,
+                series: s[i].clone(),
+                entity: e[i].clone(),
                 grade: g[i].map(|x| x as u32),
                 date: d[i].ok_or_else(|| missing(&path, "date", i))?,
                 value: v[i].ok_or_else(|| missing(&path, "value", i))?,
@@ -369,11 +369,11 @@ pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
 
     let path = dir.join("stability_market.parquet");
     let df = read_frame(&path)?;
-    let (mut e, d, c, l) = (strs(&df, &path, "entity")?, dates(&df, &path, "date")?, floats(&df, &path, "mean_abs_change_bp")?, floats(&df, &path, "mean_level_bp")?);
+    let (e, d, c, l) = (readback::labels(&df, &path, "entity")?, dates(&df, &path, "date")?, floats(&df, &path, "mean_abs_change_bp")?, floats(&df, &path, "mean_level_bp")?);
     part.market = (0..df.height())
         .map(|i| {
             Ok(MarketMove {
-                entity: e[i].take().ok_or_else(|| missing(&path, "entity", i))?,
+                entity: e[i].clone(),
                 date: d[i].ok_or_else(|| missing(&path, "date", i))?,
                 mean_abs_change_bp: c[i].ok_or_else(|| missing(&path, "mean_abs_change_bp", i))?,
                 mean_level_bp: l[i].ok_or_else(|| missing(&path, "mean_level_bp", i))?,

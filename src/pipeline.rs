@@ -322,15 +322,6 @@ fn finish(cfg: &RunConfig, opts: &RunOptions, mut ds: Dataset, ingest_counts: Ve
     };
     let (rss, peak) = memory_mib();
     timings.push(("backtest".into(), t.elapsed().as_secs_f64(), rss, peak));
-    let t = Instant::now();
-    let grades = GradeBook::new(&ds);
-    let multi: BTreeSet<String> = cal.multi_currency.iter().cloned().collect();
-    let inputs = stability_inputs(std::mem::take(&mut cal.curve_obs), std::mem::take(&mut cal.market), &cal.hazard, &cal.residuals, &cal.params, &grades, &multi);
-    let stability = run_stability(&inputs, &cfg.stability)?;
-    drop(inputs);
-    let (rss, peak) = memory_mib();
-    timings.push(("stability".into(), t.elapsed().as_secs_f64(), rss, peak));
-
     let label = run_label(cfg, opts, period);
     let final_dir = output_root(cfg, opts).join(&cfg.name).join(&label);
     let parent = final_dir.parent().unwrap_or(Path::new(".")).to_path_buf();
@@ -338,18 +329,37 @@ fn finish(cfg: &RunConfig, opts: &RunOptions, mut ds: Dataset, ingest_counts: Ve
     let work = parent.join(format!(".{label}.partial-{}", std::process::id()));
     let _ = std::fs::remove_dir_all(&work);
     let tables = work.join("tables");
-
-    let t2 = Instant::now();
     let mut meta = metadata(&params, &cfg.quality);
     meta.push(("hazardline.bond_fit".into(), format!("{} (recovery convention {})", cfg.bond_fit, cfg.bond_recovery_convention)));
     meta.push(("hazardline.cir".into(), if cfg.cir { format!("true (mode {}, window {} business days)", cfg.cir_mode, cfg.cir_window) } else { "false".into() }));
+
+    // The stability stage reads compact copies of the node and residual rows; the rows
+    // themselves are written and freed before it runs, so the two never add up in memory.
+    let t = Instant::now();
+    let grades = GradeBook::new(&ds);
+    let multi: BTreeSet<String> = cal.multi_currency.iter().cloned().collect();
+    let inputs = stability_inputs(std::mem::take(&mut cal.curve_obs), std::mem::take(&mut cal.market), &cal.hazard, &cal.residuals, &cal.params, &grades, &multi);
+    let (rss, peak) = memory_mib();
+    timings.push(("stability inputs".into(), t.elapsed().as_secs_f64(), rss, peak));
+    let t = Instant::now();
+    write_hazard_curves(&cal.hazard, &tables.join("hazard_curves.parquet"), &meta)?;
+    write_residuals(&cal.residuals, &tables.join("calibration_residuals.parquet"), &meta)?;
+    cal.hazard = Vec::new();
+    cal.residuals = Vec::new();
+    let (rss, peak) = memory_mib();
+    timings.push(("write curves".into(), t.elapsed().as_secs_f64(), rss, peak));
+    let t = Instant::now();
+    let stability = run_stability(&inputs, &cfg.stability)?;
+    drop(inputs);
+    let (rss, peak) = memory_mib();
+    timings.push(("stability".into(), t.elapsed().as_secs_f64(), rss, peak));
+
+    let t2 = Instant::now();
     let mut rejects = std::mem::take(&mut ds.rejects);
     rejects.extend(cal.rejects.iter().cloned());
     write_data_quality(&ds.data_quality, &tables.join("data_quality.parquet"), &meta)?;
     write_rejects(&rejects, &tables.join("rejects.parquet"), &meta)?;
     write_discount_curves(&cal.discount, &tables.join("discount_curves.parquet"), &meta)?;
-    write_hazard_curves(&cal.hazard, &tables.join("hazard_curves.parquet"), &meta)?;
-    write_residuals(&cal.residuals, &tables.join("calibration_residuals.parquet"), &meta)?;
     write_intensity_params(&cal.params, &tables.join("intensity_params.parquet"), &meta)?;
     write_basis(&cal.basis, &tables.join("cds_bond_basis.parquet"), &meta)?;
     write_backtest_tables(&backtest, &tables, &meta)?;

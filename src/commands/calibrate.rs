@@ -206,6 +206,9 @@ fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, 
     CurveOutput { hazard, residuals, rejects: Vec::new(), used: rows.len(), fit: Some((key, CdsCurve { quotes, curve })) }
 }
 
+/// Curves calibrated in parallel before their rows are moved into the tables.
+const CURVES_PER_BLOCK: usize = 16_384;
+
 /// Calibrates every curve of the dataset's CDS panel. Updates `ds.counts` with this stage's
 /// rejects and checks the accounting again.
 pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams) -> Result<Calibration> {
@@ -247,56 +250,60 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
         })
         .collect();
     let progress = crate::report::progress::bar(jobs.len() as u64, "calibrating curves");
-    let outputs: Vec<CurveOutput> = jobs
-        .par_iter()
-        .map(|&(a, b)| {
-            let h = &rows[a];
-            let o = match curves.get(&(h.date, panel.currencies.name(h.currency).to_string())) {
-                Some(curve) => calibrate_one(panel, &rows[a..b], curve, plans.get(&key_of(a, b)), p),
-                None => CurveOutput {
-                    hazard: Vec::new(),
-                    residuals: Vec::new(),
-                    rejects: rows[a..b]
-                        .iter()
-                        .map(|r| panel.reject(r, "no_discount_curve", format!("no usable {} discount curve on {}", panel.currencies.name(r.currency), r.date)))
-                        .collect(),
-                    used: 0,
-                    fit: None,
-                },
-            };
-            progress.inc(1);
-            o
-        })
-        .collect();
-    progress.finish_and_clear();
-
-    // Exact capacities: growing by doubling would hold up to twice the rows' memory.
-    out.hazard.reserve_exact(outputs.iter().map(|o| o.hazard.len()).sum());
-    out.residuals.reserve_exact(outputs.iter().map(|o| o.residuals.len()).sum());
+    // Curves run in parallel a block at a time and each block's rows are moved into the
+    // tables before the next starts, so the per-curve vectors of only one block are alive at
+    // once. Every quote gives at most one node and one residual: the tables are reserved at
+    // that bound (pages never written are never resident).
+    out.hazard.reserve_exact(rows.len());
+    out.residuals.reserve_exact(rows.len());
     let mut cds_used = 0;
-    for o in outputs {
-        cds_used += o.used;
-        if !o.hazard.is_empty() {
-            out.curves += 1;
-            if o.hazard.iter().all(|h| h.status == "ok") {
-                out.curves_complete += 1;
+    for block in jobs.chunks(CURVES_PER_BLOCK) {
+        let outputs: Vec<CurveOutput> = block
+            .par_iter()
+            .map(|&(a, b)| {
+                let h = &rows[a];
+                let o = match curves.get(&(h.date, panel.currencies.name(h.currency).to_string())) {
+                    Some(curve) => calibrate_one(panel, &rows[a..b], curve, plans.get(&key_of(a, b)), p),
+                    None => CurveOutput {
+                        hazard: Vec::new(),
+                        residuals: Vec::new(),
+                        rejects: rows[a..b]
+                            .iter()
+                            .map(|r| panel.reject(r, "no_discount_curve", format!("no usable {} discount curve on {}", panel.currencies.name(r.currency), r.date)))
+                            .collect(),
+                        used: 0,
+                        fit: None,
+                    },
+                };
+                progress.inc(1);
+                o
+            })
+            .collect();
+        for o in outputs {
+            cds_used += o.used;
+            if !o.hazard.is_empty() {
+                out.curves += 1;
+                if o.hazard.iter().all(|h| h.status == "ok") {
+                    out.curves_complete += 1;
+                }
             }
-        }
-        for h in &o.hazard {
-            *out.nodes_by_status.entry(h.status).or_default() += 1;
-        }
-        out.hazard.extend(o.hazard);
-        for r in &o.residuals {
-            if r.status == "ok" {
-                out.max_abs_residual_bp = out.max_abs_residual_bp.max(r.residual_bp.abs());
+            for h in &o.hazard {
+                *out.nodes_by_status.entry(h.status).or_default() += 1;
             }
-        }
-        out.residuals.extend(o.residuals);
-        out.rejects.extend(o.rejects);
-        if let Some((k, c)) = o.fit {
-            out.cds_curves.insert(k, c);
+            out.hazard.extend(o.hazard);
+            for r in &o.residuals {
+                if r.status == "ok" {
+                    out.max_abs_residual_bp = out.max_abs_residual_bp.max(r.residual_bp.abs());
+                }
+            }
+            out.residuals.extend(o.residuals);
+            out.rejects.extend(o.rejects);
+            if let Some((k, c)) = o.fit {
+                out.cds_curves.insert(k, c);
+            }
         }
     }
+    progress.finish_and_clear();
     out.discount_curves = curves;
     for c in ds.counts.iter_mut() {
         let extra = out.rejects.iter().filter(|r| r.table == c.table).count();

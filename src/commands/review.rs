@@ -10,6 +10,7 @@ use crate::stability::{self, CalibrationCounts, FlagRow, MarketMove, Observation
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::Path;
+use std::sync::Arc;
 
 /// Grade as of a date, from the grades table (latest `from_date` on or before it).
 #[derive(Debug, Clone, Default)]
@@ -60,6 +61,52 @@ fn series_name(multi: &BTreeSet<String>, e: &str, c: &str) -> String {
     }
 }
 
+/// Shared labels for the stability inputs: one allocation per distinct series name, entity
+/// series (`entity` or `entity/CCY`) and text value, however many rows repeat it.
+#[derive(Default)]
+struct Labels {
+    seen: std::collections::HashMap<String, Arc<str>>,
+    entities: std::collections::HashMap<String, std::collections::HashMap<String, Arc<str>>>,
+    /// The (entity, currency) labels last asked for and their answer.
+    last: Option<(Arc<str>, Arc<str>, Arc<str>)>,
+}
+
+impl Labels {
+    fn get(&mut self, v: &str) -> Arc<str> {
+        if let Some(l) = self.seen.get(v) {
+            return l.clone();
+        }
+        let l: Arc<str> = v.into();
+        self.seen.insert(v.to_string(), l.clone());
+        l
+    }
+
+    /// The series entity of (entity, currency): `entity`, or `entity/CCY` when it is quoted in
+    /// several currencies.
+    /// [`Labels::entity`] for a row's shared labels, with the previous row's answer reused
+    /// when the row shares its labels (the rows of one curve do).
+    fn entity_of(&mut self, multi: &BTreeSet<String>, e: &Arc<str>, c: &Arc<str>) -> Arc<str> {
+        if let Some((le, lc, l)) = &self.last {
+            if Arc::ptr_eq(le, e) && Arc::ptr_eq(lc, c) {
+                return l.clone();
+            }
+        }
+        let l = self.entity(multi, e, c);
+        self.last = Some((e.clone(), c.clone(), l.clone()));
+        l
+    }
+
+    fn entity(&mut self, multi: &BTreeSet<String>, e: &str, c: &str) -> Arc<str> {
+        let c = if multi.contains(e) { c } else { "" };
+        if let Some(l) = self.entities.get(e).and_then(|m| m.get(c)) {
+            return l.clone();
+        }
+        let l: Arc<str> = series_name(multi, e, c).into();
+        self.entities.entry(e.to_string()).or_default().insert(c.to_string(), l.clone());
+        l
+    }
+}
+
 /// Everything the stability core reads, built from a run's calibration.
 pub struct StabilityInputs {
     pub observations: Vec<Observation>,
@@ -74,21 +121,24 @@ pub struct StabilityInputs {
 pub fn curve_series(cal: &Calibration, grades: &GradeBook, multi: &BTreeSet<String>) -> (Vec<Observation>, Vec<MarketMove>) {
     let mut observations = Vec::new();
     let mut market = Vec::new();
-    let mut last_spreads: BTreeMap<String, BTreeMap<u32, f64>> = BTreeMap::new();
+    let mut labels = Labels::default();
+    let (pd_1y, hazard_5y) = (labels.get("pd_1y"), labels.get("hazard_5y"));
+    let mut node_labels: std::collections::HashMap<crate::time::Tenor, Arc<str>> = std::collections::HashMap::new();
+    let mut last_spreads: std::collections::HashMap<Arc<str>, BTreeMap<u32, f64>> = std::collections::HashMap::new();
     for ((date, e, c), curve) in &cal.cds_curves {
-        let entity = series_name(multi, e, c);
+        let entity = labels.entity(multi, e, c);
         let grade = grades.grade(e, *date);
         if let Some(h) = &curve.curve {
-            let mut push = |series: String, value: f64| {
+            let mut push = |series: &Arc<str>, value: f64| {
                 if value.is_finite() {
-                    observations.push(Observation { series, entity: entity.clone(), grade, date: *date, value });
+                    observations.push(Observation { series: series.clone(), entity: entity.clone(), grade, date: *date, value });
                 }
             };
-            push("pd_1y".into(), 1.0 - h.survival_at(1.0));
-            push("hazard_5y".into(), h.hazard_at(5.0));
+            push(&pd_1y, 1.0 - h.survival_at(1.0));
+            push(&hazard_5y, h.hazard_at(5.0));
             if h.hazards().len() == curve.quotes.len() {
                 for (q, &x) in curve.quotes.iter().zip(h.hazards()) {
-                    push(format!("hazard_node_{}", q.tenor), x);
+                    push(node_labels.entry(q.tenor).or_insert_with(|| format!("hazard_node_{}", q.tenor).into()), x);
                 }
             }
         }
@@ -122,35 +172,55 @@ pub fn stability_inputs(
     curve_obs.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
     market.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
     let mut observations = curve_obs;
+    let mut labels = Labels::default();
     for p in params {
-        let entity = series_name(multi, &p.entity, &p.currency);
+        let entity = labels.entity(multi, &p.entity, &p.currency);
         let grade = grades.grade(&p.entity, p.date);
         for (series, v) in [("cir_kappa", p.kappa), ("cir_theta", p.theta), ("cir_sigma", p.sigma), ("cir_lambda0", p.lambda0)] {
             if let Some(v) = v.filter(|v| v.is_finite()) {
-                observations.push(Observation { series: series.into(), entity: entity.clone(), grade, date: p.date, value: v });
+                observations.push(Observation { series: labels.get(series), entity: entity.clone(), grade, date: p.date, value: v });
             }
         }
     }
     // Failures and infeasible nodes per CDS curve, from the node statuses.
-    let mut counts_map: BTreeMap<(String, NaiveDate), (u64, u64)> = BTreeMap::new();
+    // A curve's nodes are consecutive rows: they are counted together and merged into the map
+    // once per curve (a key met again later is merged with what it had).
+    let mut counts_map: BTreeMap<(Arc<str>, NaiveDate), (u64, u64)> = BTreeMap::new();
+    let merge = |map: &mut BTreeMap<(Arc<str>, NaiveDate), (u64, u64)>, key, (f, i): (u64, u64)| {
+        let slot = map.entry(key).or_insert((0, 0));
+        slot.0 = slot.0.max(f);
+        slot.1 += i;
+    };
+    let mut run: Option<((Arc<str>, NaiveDate), (u64, u64))> = None;
     for r in hazard.iter().filter(|r| r.source == "cds") {
-        let entity = series_name(multi, &r.entity, &r.currency);
-        let slot = counts_map.entry((entity, r.date)).or_insert((0, 0));
-        match r.status {
-            "ok" => {}
-            "floored" | "infeasible" => slot.1 += 1,
-            _ => slot.0 = 1,
+        let entity = labels.entity_of(multi, &r.entity, &r.currency);
+        let same = run.as_ref().is_some_and(|((e, d), _)| *d == r.date && Arc::ptr_eq(e, &entity));
+        if !same {
+            if let Some((k, v)) = run.take() {
+                merge(&mut counts_map, k, v);
+            }
+            run = Some(((entity, r.date), (0, 0)));
         }
+        if let Some((_, slot)) = run.as_mut() {
+            match r.status {
+                "ok" => {}
+                "floored" | "infeasible" => slot.1 += 1,
+                _ => slot.0 = 1,
+            }
+        }
+    }
+    if let Some((k, v)) = run.take() {
+        merge(&mut counts_map, k, v);
     }
     let counts = counts_map.into_iter().map(|((entity, date), (failures, infeasible))| CalibrationCounts { entity, date, failures, infeasible }).collect();
     let residuals = residuals
         .iter()
         .map(|r| ResidualObservation {
             date: r.date,
-            entity: series_name(multi, &r.entity, &r.currency),
-            method: r.method.to_string(),
-            instrument: r.instrument.to_string(),
-            tenor: r.tenor_or_bond.to_string(),
+            entity: labels.entity_of(multi, &r.entity, &r.currency),
+            method: labels.get(r.method),
+            instrument: labels.get(r.instrument),
+            tenor: r.tenor_or_bond.clone(),
             market: r.market,
             model: r.model,
             residual_bp: r.residual_bp,

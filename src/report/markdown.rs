@@ -72,34 +72,196 @@ fn term_dates(settings: &serde_json::Value, dates: &[NaiveDate]) -> Vec<NaiveDat
     }
 }
 
+/// What the report shows of `hazard_curves`, gathered a slice at a time: the CDS nodes'
+/// universe, statuses and 5Y band, and the bond rows whole (one curve per entity with bonds
+/// and date, far fewer than the CDS nodes).
+struct CdsNodes {
+    entities: BTreeSet<String>,
+    currencies: BTreeSet<String>,
+    dates: BTreeSet<NaiveDate>,
+    curves: std::collections::HashSet<(NaiveDate, super::tables::Label, super::tables::Label)>,
+    bad_curves: std::collections::HashSet<(NaiveDate, super::tables::Label, super::tables::Label)>,
+    status_counts: BTreeMap<&'static str, usize>,
+    /// The first ten nodes not `ok`, in table order, and how many there are.
+    bad_first: Vec<HazardCurveRow>,
+    bad_nodes: usize,
+    /// 5Y hazards with status `ok` per date, in % (table order within a date).
+    five_year: BTreeMap<NaiveDate, Vec<f64>>,
+    bond: Vec<HazardCurveRow>,
+}
+
+/// The charted entities' nodes: term structures on the chosen dates and the 5Y history.
+#[derive(Default)]
+struct ChartedNodes {
+    /// (entity, date) -> (years to node, hazard), in table order.
+    term: BTreeMap<(String, NaiveDate), Vec<(f64, f64)>>,
+    /// entity -> (decimal year, 5Y hazard in %), in table order.
+    five_year: BTreeMap<String, Vec<(f64, f64)>>,
+}
+
+fn is_five_year_ok(h: &HazardCurveRow) -> bool {
+    &*h.tenor == "5Y" && h.hazard.is_some() && h.status == "ok"
+}
+
+impl CdsNodes {
+    fn read(path: &Path) -> Result<CdsNodes> {
+        let mut out = CdsNodes {
+            entities: BTreeSet::new(),
+            currencies: BTreeSet::new(),
+            dates: BTreeSet::new(),
+            curves: Default::default(),
+            bad_curves: Default::default(),
+            status_counts: BTreeMap::new(),
+            bad_first: Vec::new(),
+            bad_nodes: 0,
+            five_year: BTreeMap::new(),
+            bond: Vec::new(),
+        };
+        readback::hazard_curve_slices(path, |rows| {
+            for h in rows {
+                if h.source != "cds" {
+                    out.bond.push(h);
+                    continue;
+                }
+                if !out.entities.contains(&*h.entity) {
+                    out.entities.insert(h.entity.to_string());
+                }
+                if !out.currencies.contains(&*h.currency) {
+                    out.currencies.insert(h.currency.to_string());
+                }
+                out.dates.insert(h.date);
+                let key = (h.date, h.entity.clone(), h.currency.clone());
+                *out.status_counts.entry(h.status).or_default() += 1;
+                if is_five_year_ok(&h) {
+                    out.five_year.entry(h.date).or_default().push(h.hazard.unwrap_or(0.0) * 100.0);
+                }
+                if h.status != "ok" {
+                    out.bad_curves.insert(key.clone());
+                    out.bad_nodes += 1;
+                    if out.bad_first.len() < 10 {
+                        out.bad_first.push(h);
+                    }
+                }
+                out.curves.insert(key);
+            }
+            Ok(())
+        })?;
+        Ok(out)
+    }
+
+    /// A second pass for the charted entities, once they and the dates are known.
+    fn charted(path: &Path, chosen: &[String], dates: &[NaiveDate]) -> Result<ChartedNodes> {
+        let mut out = ChartedNodes::default();
+        if chosen.is_empty() {
+            return Ok(out);
+        }
+        readback::hazard_curve_slices(path, |rows| {
+            for h in rows.iter().filter(|h| h.source == "cds" && chosen.iter().any(|e| e.as_str() == &*h.entity)) {
+                if let (Some(x), true) = (h.hazard, dates.contains(&h.date)) {
+                    out.term.entry((h.entity.to_string(), h.date)).or_default().push((crate::curves::year_time(h.date, h.node_date), x));
+                }
+                if is_five_year_ok(h) {
+                    out.five_year.entry(h.entity.to_string()).or_default().push((charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0));
+                }
+            }
+            Ok(())
+        })?;
+        Ok(out)
+    }
+}
+
+/// Running sums of one tenor's residuals, added in table order (so the figures equal those of
+/// summing the collected values).
+struct TenorSums {
+    n: usize,
+    sum: f64,
+    sum_sq: f64,
+    max_abs: f64,
+}
+
+/// What the report shows of `calibration_residuals`, gathered a slice at a time.
+#[derive(Default)]
+struct Residuals {
+    /// Bootstrap residuals with status `ok`, and those within the repricing tolerance.
+    ok: usize,
+    within: usize,
+    by_tenor: BTreeMap<(u32, String), TenorSums>,
+    /// The ten largest finite bootstrap residuals (all statuses), as a stable sort would give.
+    worst: Vec<super::tables::ResidualRow>,
+    /// log10 |residual| of every finite bootstrap residual, for the histogram.
+    logs: Vec<f64>,
+    bond: Vec<super::tables::ResidualRow>,
+}
+
+impl Residuals {
+    fn read(path: &Path) -> Result<Residuals> {
+        use super::tables::ResidualRow;
+        let mut out = Residuals::default();
+        // The empty sum of the standard library (its starting value), so that running sums
+        // match `Iterator::sum` over the same values bit for bit.
+        let zero: f64 = std::iter::empty::<f64>().sum();
+        let order = |a: &ResidualRow, b: &ResidualRow| b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then(a.date.cmp(&b.date)).then(a.entity.cmp(&b.entity));
+        readback::residual_slices(path, |rows| {
+            for r in rows {
+                match r.method {
+                    "bootstrap" => {}
+                    "bond_fit" => {
+                        out.bond.push(r);
+                        continue;
+                    }
+                    _ => continue,
+                }
+                if r.status == "ok" {
+                    out.ok += 1;
+                    out.within += usize::from(r.residual_bp.abs() <= REPRICE_TOLERANCE_BP);
+                    let months = r.tenor_or_bond.parse::<crate::time::Tenor>().map(|t| t.months()).unwrap_or(0);
+                    let key = (months, r.tenor_or_bond.to_string());
+                    let e = out.by_tenor.entry(key).or_insert(TenorSums { n: 0, sum: zero, sum_sq: zero, max_abs: 0.0 });
+                    e.n += 1;
+                    e.sum += r.residual_bp;
+                    e.sum_sq += r.residual_bp * r.residual_bp;
+                    e.max_abs = e.max_abs.max(r.residual_bp.abs());
+                }
+                if !r.residual_bp.is_finite() {
+                    continue;
+                }
+                out.logs.push(r.residual_bp.abs().max(1e-16).log10());
+                // The first ten of a stable sort, in one pass: a row enters only when it beats the tenth.
+                if out.worst.len() == 10 && order(&r, &out.worst[9]) != std::cmp::Ordering::Less {
+                    continue;
+                }
+                let at = out.worst.partition_point(|x| order(x, &r) != std::cmp::Ordering::Greater);
+                out.worst.insert(at, r);
+                out.worst.truncate(10);
+            }
+            Ok(())
+        })?;
+        Ok(out)
+    }
+}
+
 /// Renders `report.md` and `charts/*.svg` in `run_dir` from its tables and manifest.
 pub fn render(run_dir: &Path) -> Result<()> {
     let m: Manifest = manifest::read(&run_dir.join("manifest.json"))?;
     let t = run_dir.join("tables");
-    let all_hazard = readback::hazard_curves(&t.join("hazard_curves.parquet"))?;
-    let all_residuals = readback::residuals(&t.join("calibration_residuals.parquet"))?;
     let params = readback::intensity_params(&t.join("intensity_params.parquet"))?;
     let basis = readback::basis(&t.join("cds_bond_basis.parquet"))?;
-    // The CDS bootstrap's rows; the bond and CIR fits have their own subsections.
-    let (hazard, bond_hazard): (Vec<HazardCurveRow>, Vec<HazardCurveRow>) = all_hazard.into_iter().partition(|h| h.source == "cds");
-    let residuals: Vec<&super::tables::ResidualRow> = all_residuals.iter().filter(|r| r.method == "bootstrap").collect();
-    let bond_res: Vec<&super::tables::ResidualRow> = all_residuals.iter().filter(|r| r.method == "bond_fit").collect();
+    // The node and residual tables hold a row per quote and can be tens of millions of rows:
+    // they are read a slice at a time into what the report shows, never whole.
+    let hz = CdsNodes::read(&t.join("hazard_curves.parquet"))?;
+    let rs = Residuals::read(&t.join("calibration_residuals.parquet"))?;
+    let bond_hazard = &hz.bond;
+    let bond_res: Vec<&super::tables::ResidualRow> = rs.bond.iter().collect();
     let flags = readback::flags(&t.join("flags.parquet"))?;
     let reasons = readback::reject_reasons(&t.join("rejects.parquet"))?;
     let charts_dir = run_dir.join("charts");
 
-    let entities: BTreeSet<String> = hazard.iter().map(|h| h.entity.to_string()).collect();
-    let currencies: BTreeSet<String> = hazard.iter().map(|h| h.currency.to_string()).collect();
-    let dates: Vec<NaiveDate> = hazard.iter().map(|h| h.date).collect::<BTreeSet<_>>().into_iter().collect();
-    let curves: BTreeSet<(NaiveDate, &str, &str)> = hazard.iter().map(|h| (h.date, &*h.entity, &*h.currency)).collect();
-    let bad_curves: BTreeSet<(NaiveDate, &str, &str)> =
-        hazard.iter().filter(|h| h.status != "ok").map(|h| (h.date, &*h.entity, &*h.currency)).collect();
-    let ok_res: Vec<&super::tables::ResidualRow> = residuals.iter().copied().filter(|r| r.status == "ok").collect();
-    let within = ok_res.iter().filter(|r| r.residual_bp.abs() <= REPRICE_TOLERANCE_BP).count();
-    let mut status_counts: BTreeMap<&str, usize> = BTreeMap::new();
-    for h in &hazard {
-        *status_counts.entry(h.status).or_default() += 1;
-    }
+    let entities = &hz.entities;
+    let currencies = &hz.currencies;
+    let dates: Vec<NaiveDate> = hz.dates.iter().copied().collect();
+    let (n_curves, n_bad_curves) = (hz.curves.len(), hz.bad_curves.len());
+    let (ok_res, within) = (rs.ok, rs.within);
+    let status_counts = &hz.status_counts;
     let mut flag_counts: BTreeMap<(&str, &str, &str), usize> = BTreeMap::new();
     for f in &flags {
         *flag_counts.entry((f.8.as_str(), f.0.as_str(), f.1.as_str())).or_default() += 1;
@@ -167,17 +329,17 @@ pub fn render(run_dir: &Path) -> Result<()> {
     let _ = writeln!(
         w,
         "| curves with every node calibrated | {} of {} ({}) | {} |",
-        curves.len() - bad_curves.len(),
-        curves.len(),
-        pct((curves.len() - bad_curves.len()) as f64 / curves.len().max(1) as f64),
-        if bad_curves.is_empty() { "pass" } else { "flagged" }
+        n_curves - n_bad_curves,
+        n_curves,
+        pct((n_curves - n_bad_curves) as f64 / n_curves.max(1) as f64),
+        if n_bad_curves == 0 { "pass" } else { "flagged" }
     );
     let _ = writeln!(
         w,
         "| calibrated quotes repricing within {REPRICE_TOLERANCE_BP:e} bp | {within} of {} ({}) | {} |",
-        ok_res.len(),
-        pct(within as f64 / ok_res.len().max(1) as f64),
-        if within == ok_res.len() { "pass" } else { "flagged" }
+        ok_res,
+        pct(within as f64 / ok_res.max(1) as f64),
+        if within == ok_res { "pass" } else { "flagged" }
     );
     if !bond_curves.is_empty() {
         let bad_bond: BTreeSet<(NaiveDate, &str, &str)> = bond_hazard.iter().filter(|h| h.status != "ok").map(|h| (h.date, &*h.entity, &*h.currency)).collect();
@@ -226,51 +388,34 @@ pub fn render(run_dir: &Path) -> Result<()> {
     let _ = writeln!(w, "## 3. Calibration and residuals\n");
     let _ = writeln!(w, "Hazard curves are bootstrapped per (date, entity, currency) from the standard-contract CDS quotes; every calibrated quote is then repriced on its curve by an independent pass of the leg pricer.\n");
     let _ = writeln!(w, "| node status | nodes |\n| --- | ---: |");
-    for (s, n) in &status_counts {
+    for (s, n) in status_counts {
         let _ = writeln!(w, "| `{s}` | {n} |");
     }
     let _ = writeln!(w);
     // Residuals per tenor.
-    let mut by_tenor: BTreeMap<(u32, String), Vec<f64>> = BTreeMap::new();
-    for r in &ok_res {
-        let months = r.tenor_or_bond.parse::<crate::time::Tenor>().map(|t| t.months()).unwrap_or(0);
-        by_tenor.entry((months, r.tenor_or_bond.to_string())).or_default().push(r.residual_bp);
-    }
+    let by_tenor = &rs.by_tenor;
     if !by_tenor.is_empty() {
         let _ = writeln!(w, "Residuals (model minus market, bp) of nodes with status `ok`, per tenor:\n");
         let _ = writeln!(w, "| tenor | quotes | mean | RMSE | largest abs |\n| --- | ---: | ---: | ---: | ---: |");
-        for ((_, t), v) in &by_tenor {
-            let n = v.len() as f64;
-            let mean = v.iter().sum::<f64>() / n;
-            let rmse = (v.iter().map(|x| x * x).sum::<f64>() / n).sqrt();
-            let mx = v.iter().fold(0.0f64, |a, x| a.max(x.abs()));
-            let _ = writeln!(w, "| {t} | {} | {mean:.2e} | {rmse:.2e} | {mx:.2e} |", v.len());
+        for ((_, t), v) in by_tenor {
+            let n = v.n as f64;
+            let (mean, rmse) = (v.sum / n, (v.sum_sq / n).sqrt());
+            let _ = writeln!(w, "| {t} | {} | {mean:.2e} | {rmse:.2e} | {:.2e} |", v.n, v.max_abs);
         }
         let _ = writeln!(w);
     }
-    // The ten largest, as a stable sort of every row would give them (ties keep table order),
-    // with one pass over the rows instead of sorting millions of them.
-    let order = |a: &super::tables::ResidualRow, b: &super::tables::ResidualRow| b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then(a.date.cmp(&b.date)).then(a.entity.cmp(&b.entity));
-    let mut worst: Vec<&super::tables::ResidualRow> = Vec::with_capacity(11);
-    for &r in residuals.iter().filter(|r| r.residual_bp.is_finite()) {
-        if worst.len() == 10 && order(r, worst[9]) != std::cmp::Ordering::Less {
-            continue;
-        }
-        let at = worst.partition_point(|x| order(x, r) != std::cmp::Ordering::Greater);
-        worst.insert(at, r);
-        worst.truncate(10);
-    }
+    let worst = &rs.worst;
     if !worst.is_empty() {
         let _ = writeln!(w, "Largest residuals (all statuses):\n");
         let _ = writeln!(w, "| date | entity | tenor | status | market | model | residual (bp) |\n| --- | --- | --- | --- | ---: | ---: | ---: |");
-        for r in &worst {
+        for r in worst {
             let _ = writeln!(w, "| {} | {} | {} | `{}` | {:.4} | {:.4} | {:.3e} |", r.date, r.entity, r.tenor_or_bond, r.status, r.market, r.model, r.residual_bp);
         }
         let _ = writeln!(w);
     }
-    let bad: Vec<&HazardCurveRow> = hazard.iter().filter(|h| h.status != "ok").take(10).collect();
+    let bad = &hz.bad_first;
     if !bad.is_empty() {
-        let _ = writeln!(w, "Nodes not calibrated as quoted (first {} of {}):\n", bad.len(), hazard.iter().filter(|h| h.status != "ok").count());
+        let _ = writeln!(w, "Nodes not calibrated as quoted (first {} of {}):\n", bad.len(), hz.bad_nodes);
         let _ = writeln!(w, "| date | entity | tenor | status | detail |\n| --- | --- | --- | --- | --- |");
         for h in bad {
             let _ = writeln!(w, "| {} | {} | {} | `{}` | {} |", h.date, h.entity, h.tenor, h.status, h.detail.clone().unwrap_or_default().replace('|', "/"));
@@ -281,18 +426,14 @@ pub fn render(run_dir: &Path) -> Result<()> {
     // Figures.
     let mut figure = 0;
     let chart_err = |e: String| Error::Other(format!("drawing a figure: {e}"));
-    let chosen = charted(&m.settings, &entities);
+    let chosen = charted(&m.settings, entities);
     let tdates = term_dates(&m.settings, &dates);
+    let charted_nodes = CdsNodes::charted(&t.join("hazard_curves.parquet"), &chosen, &tdates)?;
     for e in &chosen {
         let mut curves_of: Vec<(NaiveDate, Vec<(f64, f64)>)> = Vec::new();
         for d in &tdates {
-            let nodes: Vec<(f64, f64)> = hazard
-                .iter()
-                .filter(|h| &*h.entity == e.as_str() && h.date == *d && h.hazard.is_some())
-                .map(|h| (crate::curves::year_time(*d, h.node_date), h.hazard.unwrap_or(0.0)))
-                .collect();
-            if !nodes.is_empty() {
-                curves_of.push((*d, nodes));
+            if let Some(nodes) = charted_nodes.term.get(&(e.clone(), *d)) {
+                curves_of.push((*d, nodes.clone()));
             }
         }
         if curves_of.is_empty() {
@@ -306,16 +447,12 @@ pub fn render(run_dir: &Path) -> Result<()> {
         let _ = writeln!(w, "*Figure {figure}. Bootstrapped piecewise-flat hazard rate of {e} against time to each node, on {}.*\n", curves_of.iter().map(|c| c.0.to_string()).collect::<Vec<_>>().join(", "));
     }
     // 5Y hazard through time with the universe band.
-    let five: Vec<&HazardCurveRow> = hazard.iter().filter(|h| &*h.tenor == "5Y" && h.hazard.is_some() && h.status == "ok").collect();
-    if !five.is_empty() {
-        let mut per_date: BTreeMap<NaiveDate, Vec<f64>> = BTreeMap::new();
-        for h in &five {
-            per_date.entry(h.date).or_default().push(h.hazard.unwrap_or(0.0) * 100.0);
-        }
+    if !hz.five_year.is_empty() {
+        let mut per_date = hz.five_year.clone();
         let band = quantile_band(&mut per_date);
         let series: Vec<(String, Vec<(f64, f64)>)> = chosen
             .iter()
-            .map(|e| (e.clone(), five.iter().filter(|h| &*h.entity == e.as_str()).map(|h| (charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0)).collect()))
+            .map(|e| (e.clone(), charted_nodes.five_year.get(e).cloned().unwrap_or_default()))
             .filter(|(_, v): &(String, Vec<(f64, f64)>)| !v.is_empty())
             .collect();
         let svg = charts::history_with_band("5Y hazard rate through time", "hazard rate (% per year)", &series, &band).map_err(chart_err)?;
@@ -324,9 +461,9 @@ pub fn render(run_dir: &Path) -> Result<()> {
         let _ = writeln!(w, "![5Y hazard through time](charts/hazard-5y-history.svg)\n");
         let _ = writeln!(w, "*Figure {figure}. Hazard rate of the segment ending at the 5Y node, per curve date, for the charted entities, over the universe's 10%-90% range (shaded) and median (grey line).*\n");
     }
-    let logs: Vec<f64> = residuals.iter().filter(|r| r.residual_bp.is_finite()).map(|r| (r.residual_bp.abs().max(1e-16)).log10()).collect();
+    let logs = &rs.logs;
     if !logs.is_empty() {
-        let svg = charts::histogram("Repricing residuals", "log10 |model - market| (bp)", &logs, 30).map_err(chart_err)?;
+        let svg = charts::histogram("Repricing residuals", "log10 |model - market| (bp)", logs, 30).map_err(chart_err)?;
         write_text(&charts_dir.join("residual-histogram.svg"), &svg)?;
         figure += 1;
         let _ = writeln!(w, "![Residual histogram](charts/residual-histogram.svg)\n");
@@ -334,7 +471,7 @@ pub fn render(run_dir: &Path) -> Result<()> {
     }
 
     super::review::residual_section(w, &t, &charts_dir, &mut figure)?;
-    intensity_sections(w, &bond_hazard, &bond_res, &basis, &params, &m.settings, &charts_dir, &mut figure)?;
+    intensity_sections(w, bond_hazard, &bond_res, &basis, &params, &m.settings, &charts_dir, &mut figure)?;
 
     super::review::stability_section(w, &t, &charts_dir, &mut figure, 4)?;
     let base_recovery = m.settings.get("recovery").and_then(|v| v.as_f64()).unwrap_or(0.4);

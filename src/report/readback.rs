@@ -109,8 +109,44 @@ pub fn rejects(path: &Path) -> Result<Vec<crate::ingest::Reject>> {
 
 pub const STATUSES: &[&str] = &["ok", "floored", "infeasible", "failed", "curve_failed", "not_calibrated", "at_upper_bound", "max_iterations"];
 
+/// Rows per slice when a large table is read back piece by piece.
+pub const SLICE_ROWS: usize = 1 << 20;
+
+/// Calls `f` on consecutive slices of at most [`SLICE_ROWS`] rows of a Parquet table, so that
+/// a table of tens of millions of rows is never held whole (a slice reads only the row groups
+/// it covers). A table without rows gives one empty slice.
+pub fn for_each_slice(path: &Path, mut f: impl FnMut(&DataFrame) -> Result<()>) -> Result<()> {
+    let failed = |e: &dyn std::fmt::Display| Error::Read { path: path.to_path_buf(), format: "Parquet", message: e.to_string() };
+    let open = || std::fs::File::open(path).map_err(|e| failed(&e));
+    let n = ParquetReader::new(open()?).num_rows().map_err(|e| failed(&e))?;
+    let mut offset = 0;
+    loop {
+        let len = SLICE_ROWS.min(n - offset);
+        let df = ParquetReader::new(open()?).with_slice(Some((offset, len))).finish().map_err(|e| failed(&e))?;
+        f(&df)?;
+        offset += len;
+        if offset >= n {
+            return Ok(());
+        }
+    }
+}
+
+/// Reads a hazard_curves table back.
 pub fn hazard_curves(path: &Path) -> Result<Vec<HazardCurveRow>> {
-    let df = read_frame(path)?;
+    hazard_rows(&read_frame(path)?, path)
+}
+
+/// Calls `f` with the rows of consecutive slices of a hazard_curves table, in table order.
+pub fn hazard_curve_slices(path: &Path, mut f: impl FnMut(Vec<HazardCurveRow>) -> Result<()>) -> Result<()> {
+    for_each_slice(path, |df| f(hazard_rows(df, path)?))
+}
+
+/// Calls `f` with the rows of consecutive slices of a calibration_residuals table, in table order.
+pub fn residual_slices(path: &Path, mut f: impl FnMut(Vec<ResidualRow>) -> Result<()>) -> Result<()> {
+    for_each_slice(path, |df| f(residual_rows(df, path)?))
+}
+
+fn hazard_rows(df: &DataFrame, path: &Path) -> Result<Vec<HazardCurveRow>> {
     let (d, e, c, src, t, m, nd, h, s, st, r, it, mut de) = (
         dates(&df, path, "date")?,
         labels(&df, path, "entity")?,
@@ -145,8 +181,12 @@ pub fn hazard_curves(path: &Path) -> Result<Vec<HazardCurveRow>> {
         .collect())
 }
 
+/// Reads a calibration_residuals table back.
 pub fn residuals(path: &Path) -> Result<Vec<ResidualRow>> {
-    let df = read_frame(path)?;
+    residual_rows(&read_frame(path)?, path)
+}
+
+fn residual_rows(df: &DataFrame, path: &Path) -> Result<Vec<ResidualRow>> {
     let (d, e, c, me, ins, t, mk, mo, r, st) = (
         dates(&df, path, "date")?,
         labels(&df, path, "entity")?,

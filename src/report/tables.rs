@@ -1,7 +1,8 @@
 //! The output tables of DESIGN section 9 that exist so far, as plain records and their
 //! Parquet schemas. Column names and types here are a contract with every consumer.
 
-use super::parquet::{write_parquet, TableBuilder};
+use super::parquet::{write_parquet, write_parquet_in_groups, TableBuilder};
+use polars::prelude::DataFrame;
 use crate::error::Result;
 use crate::ingest::load::DataQualityRow;
 use crate::ingest::{QualityFlag, Reject};
@@ -82,8 +83,15 @@ pub struct ResidualRow {
     pub status: &'static str,
 }
 
+/// Writes `hazard_curves` one row group at a time (see [`write_parquet_in_groups`]).
 pub fn write_hazard_curves(rows: &[HazardCurveRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
-    let mut df = TableBuilder::new()
+    let mut meta = meta.to_vec();
+    meta.push(("hazardline.units".into(), "hazard: per year on Act/365F from date; survival: probability to maturity; recovery: fraction".into()));
+    write_parquet_in_groups(path, &meta, rows.len(), |r| hazard_frame(&rows[r]))
+}
+
+fn hazard_frame(rows: &[HazardCurveRow]) -> Result<DataFrame> {
+    TableBuilder::new()
         .dates("date", rows.iter().map(|r| Some(r.date)))
         .strings("entity", rows.iter().map(|r| Some(&r.entity)))
         .strings("currency", rows.iter().map(|r| Some(&r.currency)))
@@ -97,14 +105,21 @@ pub fn write_hazard_curves(rows: &[HazardCurveRow], path: &Path, meta: &[(String
         .floats("recovery", rows.iter().map(|r| Some(r.recovery)))
         .ints("iterations", rows.iter().map(|r| Some(r.iterations)))
         .strings("detail", rows.iter().map(|r| r.detail.as_deref()))
-        .finish()?;
-    let mut meta = meta.to_vec();
-    meta.push(("hazardline.units".into(), "hazard: per year on Act/365F from date; survival: probability to maturity; recovery: fraction".into()));
-    write_parquet(&mut df, path, &meta)
+        .finish()
 }
 
+/// Writes `calibration_residuals` one row group at a time (see [`write_parquet_in_groups`]).
 pub fn write_residuals(rows: &[ResidualRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
-    let mut df = TableBuilder::new()
+    let mut meta = meta.to_vec();
+    meta.push((
+        "hazardline.units".into(),
+        "market/model: par spread in bp for cds_par_spread, upfront as fraction of notional for cds_upfront; residual_bp = model - market in bp of running spread".into(),
+    ));
+    write_parquet_in_groups(path, &meta, rows.len(), |r| residual_frame(&rows[r]))
+}
+
+fn residual_frame(rows: &[ResidualRow]) -> Result<DataFrame> {
+    TableBuilder::new()
         .dates("date", rows.iter().map(|r| Some(r.date)))
         .strings("entity", rows.iter().map(|r| Some(&r.entity)))
         .strings("currency", rows.iter().map(|r| Some(&r.currency)))
@@ -115,13 +130,7 @@ pub fn write_residuals(rows: &[ResidualRow], path: &Path, meta: &[(String, Strin
         .floats("model", rows.iter().map(|r| Some(r.model)))
         .floats("residual_bp", rows.iter().map(|r| Some(r.residual_bp)))
         .strings("status", rows.iter().map(|r| Some(r.status)))
-        .finish()?;
-    let mut meta = meta.to_vec();
-    meta.push((
-        "hazardline.units".into(),
-        "market/model: par spread in bp for cds_par_spread, upfront as fraction of notional for cds_upfront; residual_bp = model - market in bp of running spread".into(),
-    ));
-    write_parquet(&mut df, path, &meta)
+        .finish()
 }
 
 pub fn write_rejects(rows: &[Reject], path: &Path, meta: &[(String, String)]) -> Result<()> {

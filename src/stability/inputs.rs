@@ -5,14 +5,16 @@ use super::period::Period;
 use super::settings::StabilitySettings;
 use chrono::NaiveDate;
 use std::collections::BTreeMap;
+use std::sync::Arc;
 
 /// One value of one parameter series for one entity on one date.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Observation {
-    /// Series name, e.g. `pd_1y`, `hazard_5y`, `hazard_node_3y`, `cir_kappa`.
-    pub series: String,
+    /// Series name, e.g. `pd_1y`, `hazard_5y`, `hazard_node_3y`, `cir_kappa` (shared: the
+    /// observations of one series or entity hold one allocation between them).
+    pub series: Arc<str>,
     /// Entity identifier.
-    pub entity: String,
+    pub entity: Arc<str>,
     /// The entity's internal grade on that date (1 = best), when grades are known.
     pub grade: Option<u32>,
     /// Calibration date.
@@ -25,7 +27,7 @@ pub struct Observation {
 #[derive(Debug, Clone, PartialEq)]
 pub struct MarketMove {
     /// Entity identifier.
-    pub entity: String,
+    pub entity: Arc<str>,
     /// The later date of the move.
     pub date: NaiveDate,
     /// Mean over the entity's tenors of |par spread today - par spread on the previous quote
@@ -48,7 +50,7 @@ impl MarketMove {
 #[derive(Debug, Clone, PartialEq)]
 pub struct CalibrationCounts {
     /// Entity identifier.
-    pub entity: String,
+    pub entity: Arc<str>,
     /// Calibration date.
     pub date: NaiveDate,
     /// Calibrations that failed (no curve or parameters produced).
@@ -91,7 +93,7 @@ pub(crate) fn build_panel(observations: &[Observation]) -> (Panel, InputSummary)
             summary.non_finite += 1;
             continue;
         }
-        borrowed.entry((o.series.as_str(), o.entity.as_str())).or_default().push(Point { date: o.date, value: o.value, grade: o.grade });
+        borrowed.entry((&*o.series, &*o.entity)).or_default().push(Point { date: o.date, value: o.value, grade: o.grade });
     }
     let mut panel: Panel = borrowed.into_iter().map(|((s, e), v)| ((s.to_string(), e.to_string()), v)).collect();
     for points in panel.values_mut() {
@@ -139,19 +141,19 @@ pub(crate) fn daily_moves(points: &[Point], max_gap_days: i64) -> Vec<DailyMove>
 
 /// Mean relative market move per (entity, period), and the count of unusable rows.
 pub(crate) fn market_by_period(market: &[MarketMove], settings: &StabilitySettings) -> (BTreeMap<(String, Period), f64>, usize) {
-    let mut acc: BTreeMap<(String, Period), (f64, usize)> = BTreeMap::new();
+    let mut acc: BTreeMap<(&str, Period), (f64, usize)> = BTreeMap::new();
     let mut unusable = 0;
     for m in market {
         match m.relative() {
             Some(r) => {
-                let e = acc.entry((m.entity.clone(), settings.period.of(m.date))).or_default();
+                let e = acc.entry((&*m.entity, settings.period.of(m.date))).or_default();
                 e.0 += r;
                 e.1 += 1;
             }
             None => unusable += 1,
         }
     }
-    (acc.into_iter().map(|(k, (s, n))| (k, s / n as f64)).collect(), unusable)
+    (acc.into_iter().map(|((e, p), (s, n))| ((e.to_string(), p), s / n as f64)).collect(), unusable)
 }
 
 /// Summed calibration counts per (entity, period), with the number of dates reported.
@@ -164,14 +166,14 @@ pub(crate) struct PeriodCounts {
 
 /// Sums the counts per (entity, period).
 pub(crate) fn counts_by_period(counts: &[CalibrationCounts], settings: &StabilitySettings) -> BTreeMap<(String, Period), PeriodCounts> {
-    let mut out: BTreeMap<(String, Period), PeriodCounts> = BTreeMap::new();
+    let mut out: BTreeMap<(&str, Period), PeriodCounts> = BTreeMap::new();
     for c in counts {
-        let e = out.entry((c.entity.clone(), settings.period.of(c.date))).or_default();
+        let e = out.entry((&*c.entity, settings.period.of(c.date))).or_default();
         e.dates += 1;
         e.failures = e.failures.saturating_add(c.failures);
         e.infeasible = e.infeasible.saturating_add(c.infeasible);
     }
-    out
+    out.into_iter().map(|((e, p), v)| ((e.to_string(), p), v)).collect()
 }
 
 #[cfg(test)]

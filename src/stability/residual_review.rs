@@ -6,20 +6,21 @@ use super::settings::StabilitySettings;
 use super::summary::{quantile_sorted, sorted};
 use chrono::NaiveDate;
 use std::collections::BTreeMap;
+use std::sync::Arc;
 
 /// One repriced quote of one calibration (a row of `calibration_residuals`).
 #[derive(Debug, Clone, PartialEq)]
 pub struct ResidualObservation {
     /// Calibration date.
     pub date: NaiveDate,
-    /// Entity identifier.
-    pub entity: String,
+    /// Entity identifier (labels are shared between the rows that repeat them).
+    pub entity: Arc<str>,
     /// Calibration method (`bootstrap`, `bond_fit`, `cir`, ...).
-    pub method: String,
+    pub method: Arc<str>,
     /// Instrument kind (`cds_par_spread`, `cds_upfront`, `bond_price`, ...).
-    pub instrument: String,
+    pub instrument: Arc<str>,
     /// Tenor or bond label.
-    pub tenor: String,
+    pub tenor: Arc<str>,
     /// Market quote, in the instrument's unit.
     pub market: f64,
     /// Model quote, in the same unit.
@@ -139,7 +140,7 @@ fn curve_row(key: &CurveKey<'_>, rows: &[&ResidualObservation], tolerance_bp: f6
         n,
         rmse_bp,
         max_abs_bp,
-        worst_tenor: worst.map(|r| r.tenor.clone()).unwrap_or_default(),
+        worst_tenor: worst.map(|r| r.tenor.to_string()).unwrap_or_default(),
         converged,
         reprices: converged && max_abs_bp <= tolerance_bp,
     }
@@ -199,8 +200,8 @@ pub fn review_residuals(rows: &[ResidualObservation], settings: &StabilitySettin
     let mut by_curve: BTreeMap<CurveKey<'_>, Vec<&ResidualObservation>> = BTreeMap::new();
     let mut by_tenor: BTreeMap<(&str, &str), Vec<f64>> = BTreeMap::new();
     for r in &usable {
-        by_curve.entry((r.date, r.entity.as_str(), r.method.as_str())).or_default().push(r);
-        by_tenor.entry((r.method.as_str(), r.tenor.as_str())).or_default().push(r.residual_bp);
+        by_curve.entry((r.date, &*r.entity, &*r.method)).or_default().push(r);
+        by_tenor.entry((&*r.method, &*r.tenor)).or_default().push(r.residual_bp);
     }
     let tol = settings.reprice_tolerance_bp;
     let curves: Vec<CurveResidualRow> = by_curve.iter().map(|(k, v)| curve_row(k, v, tol)).collect();
