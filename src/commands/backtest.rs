@@ -138,10 +138,14 @@ pub fn first_defaults(ds: &Dataset) -> BTreeMap<&str, NaiveDate> {
 }
 
 /// The base curve set: every fully calibrated CDS curve.
-fn base_curves(cal: &Calibration, recovery: f64) -> CurveSet {
+/// The base curves a cohort can use: those dated within `lookback` days on or before a cohort
+/// date (`dates` sorted). A member only ever looks up the latest curve in that window
+/// ([`CurveSet::latest_within`]), so the other curves are not copied.
+fn base_curves(cal: &Calibration, recovery: f64, dates: &[NaiveDate], lookback: i64) -> CurveSet {
+    let usable = |d: NaiveDate| dates.get(dates.partition_point(|t| *t < d)).is_some_and(|t| (*t - d).num_days() <= lookback);
     CurveSet::from_keyed(
         recovery,
-        cal.cds_curves.iter().filter_map(|((d, e, _), c)| c.curve.as_ref().map(|h| ((*d, e.clone()), h.clone(), spreads_of(&c.quotes)))),
+        cal.cds_curves.iter().filter(|((d, _, _), _)| usable(*d)).filter_map(|((d, e, _), c)| c.curve.as_ref().map(|h| ((*d, e.clone()), h.clone(), spreads_of(&c.quotes)))),
     )
 }
 
@@ -197,7 +201,9 @@ pub fn backtest_members_stage(ds: &Dataset, cal: &Calibration, p: &CalibrationPa
     let mk = |e: backtest::BacktestError| Error::Other(format!("backtest stage: {e}"));
     core.check().map_err(mk)?;
     let facts = facts(ds, cal);
-    let base = base_curves(cal, p.recovery);
+    let mut sorted = dates.clone();
+    sorted.sort();
+    let base = base_curves(cal, p.recovery, &sorted, core.lookback_days);
     let mut out = vec![(p.recovery, backtest::member_observations(&facts, &base, &core).map_err(mk)?)];
     for &r in &stage.recovery_scenarios {
         if (r - p.recovery).abs() < 1e-12 {
