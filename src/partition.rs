@@ -187,6 +187,11 @@ pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &Calibration
     let mut timings = Vec::new();
     let t = Instant::now();
     let mut cal = if cfg.cds_bootstrap { calibrate_dataset(ds, params)? } else { Default::default() };
+    if let Some(p) = &mut ds.cds {
+        // The fits, the backtest and the stability series read the calibrated curves, which
+        // carry their own quotes: the panel's rows can go.
+        p.release_rows();
+    }
     timings.push(timed("calibrate", t));
     let t = Instant::now();
     let mut fits = calibrate_intensity(ds, &cal, params, &cfg.intensity)?;

@@ -13,7 +13,7 @@
 
 use crate::commands::backtest::{backtest_from_members, first_defaults, write_backtest_tables, BacktestContext, BacktestResults};
 use crate::commands::calibrate::{metadata, CalibrationParams};
-use crate::commands::review::{quality_flags, run_stability, stability_inputs, write_flags, write_stability_tables, AnyFlag, GradeBook};
+use crate::commands::review::{quality_flags, run_stability, write_flags, write_stability_tables, AnyFlag, GradeBook, StabilityInputBuilder};
 use crate::ingest::Dataset;
 use crate::partition::{compute_partition, keep_shard, read_partition, write_partition, Partition, Shard, StageTiming};
 use crate::config::RunConfig;
@@ -101,7 +101,7 @@ fn calibration_params(cfg: &RunConfig) -> CalibrationParams {
 
 /// First and last date of the usable CDS quotes (the panel is sorted by date).
 fn quote_period(ds: &Dataset) -> Option<(chrono::NaiveDate, chrono::NaiveDate)> {
-    ds.cds.as_ref().and_then(|p| Some((p.rows.first()?.date, p.rows.last()?.date)))
+    ds.cds.as_ref().and_then(|p| p.quote_period())
 }
 
 fn run_label(cfg: &RunConfig, opts: &RunOptions, period: Option<(chrono::NaiveDate, chrono::NaiveDate)>) -> String {
@@ -294,7 +294,7 @@ fn finish(cfg: &RunConfig, opts: &RunOptions, mut ds: Dataset, ingest_counts: Ve
     let period = quote_period(&ds);
     if let Some(p) = &mut ds.cds {
         // The quotes themselves are not needed any more.
-        p.rows = Vec::new();
+        p.release_rows();
     }
     let mut cal = combine(parts)?;
 
@@ -333,21 +333,21 @@ fn finish(cfg: &RunConfig, opts: &RunOptions, mut ds: Dataset, ingest_counts: Ve
     meta.push(("hazardline.bond_fit".into(), format!("{} (recovery convention {})", cfg.bond_fit, cfg.bond_recovery_convention)));
     meta.push(("hazardline.cir".into(), if cfg.cir { format!("true (mode {}, window {} business days)", cfg.cir_mode, cfg.cir_window) } else { "false".into() }));
 
-    // The stability stage reads compact copies of the node and residual rows; the rows
-    // themselves are written and freed before it runs, so the two never add up in memory.
+    // The stability stage reads compact copies of the node and residual rows: each table is
+    // taken in, written and freed in turn, so the rows and their copies never all add up.
     let t = Instant::now();
     let grades = GradeBook::new(&ds);
     let multi: BTreeSet<String> = cal.multi_currency.iter().cloned().collect();
-    let inputs = stability_inputs(std::mem::take(&mut cal.curve_obs), std::mem::take(&mut cal.market), &cal.hazard, &cal.residuals, &cal.params, &grades, &multi);
-    let (rss, peak) = memory_mib();
-    timings.push(("stability inputs".into(), t.elapsed().as_secs_f64(), rss, peak));
-    let t = Instant::now();
+    let mut builder = StabilityInputBuilder::new(std::mem::take(&mut cal.curve_obs), std::mem::take(&mut cal.market), &cal.params, &grades, &multi);
+    builder.counts_from(&cal.hazard);
     write_hazard_curves(&cal.hazard, &tables.join("hazard_curves.parquet"), &meta)?;
-    write_residuals(&cal.residuals, &tables.join("calibration_residuals.parquet"), &meta)?;
     cal.hazard = Vec::new();
+    builder.residuals_from(&cal.residuals);
+    write_residuals(&cal.residuals, &tables.join("calibration_residuals.parquet"), &meta)?;
     cal.residuals = Vec::new();
+    let inputs = builder.finish();
     let (rss, peak) = memory_mib();
-    timings.push(("write curves".into(), t.elapsed().as_secs_f64(), rss, peak));
+    timings.push(("stability inputs, write curves".into(), t.elapsed().as_secs_f64(), rss, peak));
     let t = Instant::now();
     let stability = run_stability(&inputs, &cfg.stability)?;
     drop(inputs);

@@ -158,76 +158,91 @@ pub fn curve_series(cal: &Calibration, grades: &GradeBook, multi: &BTreeSet<Stri
 /// Builds the stability core's inputs from the curve series ([`curve_series`], concatenated
 /// over partitions in any order: they are put in date and series-entity order here) and the
 /// run's tables: per CIR fit its four parameters, per curve its failures and infeasible nodes
-/// (from the node statuses), every repricing residual.
-pub fn stability_inputs(
-    mut curve_obs: Vec<Observation>,
-    mut market: Vec<MarketMove>,
-    hazard: &[HazardCurveRow],
-    residuals: &[ResidualRow],
-    params: &[IntensityParamRow],
-    grades: &GradeBook,
-    multi: &BTreeSet<String>,
-) -> StabilityInputs {
-    // Stable: the series of one curve keep their order.
-    curve_obs.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
-    market.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
-    let mut observations = curve_obs;
-    let mut labels = Labels::default();
-    for p in params {
-        let entity = labels.entity(multi, &p.entity, &p.currency);
-        let grade = grades.grade(&p.entity, p.date);
-        for (series, v) in [("cir_kappa", p.kappa), ("cir_theta", p.theta), ("cir_sigma", p.sigma), ("cir_lambda0", p.lambda0)] {
-            if let Some(v) = v.filter(|v| v.is_finite()) {
-                observations.push(Observation { series: labels.get(series), entity: entity.clone(), grade, date: p.date, value: v });
+/// (from the node statuses, [`StabilityInputBuilder::counts_from`]), every repricing residual
+/// ([`StabilityInputBuilder::residuals_from`]). The node and residual rows are read in two
+/// separate steps so that a run can write and free each table in between.
+pub struct StabilityInputBuilder<'a> {
+    labels: Labels,
+    multi: &'a BTreeSet<String>,
+    inputs: StabilityInputs,
+}
+
+impl<'a> StabilityInputBuilder<'a> {
+    pub fn new(mut curve_obs: Vec<Observation>, mut market: Vec<MarketMove>, params: &[IntensityParamRow], grades: &GradeBook, multi: &'a BTreeSet<String>) -> Self {
+        // Stable: the series of one curve keep their order.
+        curve_obs.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
+        market.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
+        let mut observations = curve_obs;
+        let mut labels = Labels::default();
+        for p in params {
+            let entity = labels.entity(multi, &p.entity, &p.currency);
+            let grade = grades.grade(&p.entity, p.date);
+            for (series, v) in [("cir_kappa", p.kappa), ("cir_theta", p.theta), ("cir_sigma", p.sigma), ("cir_lambda0", p.lambda0)] {
+                if let Some(v) = v.filter(|v| v.is_finite()) {
+                    observations.push(Observation { series: labels.get(series), entity: entity.clone(), grade, date: p.date, value: v });
+                }
             }
         }
+        StabilityInputBuilder { labels, multi, inputs: StabilityInputs { observations, market, counts: Vec::new(), residuals: Vec::new() } }
     }
-    // Failures and infeasible nodes per CDS curve, from the node statuses.
-    // A curve's nodes are consecutive rows: they are counted together and merged into the map
-    // once per curve (a key met again later is merged with what it had).
-    let mut counts_map: BTreeMap<(Arc<str>, NaiveDate), (u64, u64)> = BTreeMap::new();
-    let merge = |map: &mut BTreeMap<(Arc<str>, NaiveDate), (u64, u64)>, key, (f, i): (u64, u64)| {
-        let slot = map.entry(key).or_insert((0, 0));
-        slot.0 = slot.0.max(f);
-        slot.1 += i;
-    };
-    let mut run: Option<((Arc<str>, NaiveDate), (u64, u64))> = None;
-    for r in hazard.iter().filter(|r| r.source == "cds") {
-        let entity = labels.entity_of(multi, &r.entity, &r.currency);
-        let same = run.as_ref().is_some_and(|((e, d), _)| *d == r.date && Arc::ptr_eq(e, &entity));
-        if !same {
-            if let Some((k, v)) = run.take() {
-                merge(&mut counts_map, k, v);
+
+    /// Failures and infeasible nodes per CDS curve, from the node statuses.
+    pub fn counts_from(&mut self, hazard: &[HazardCurveRow]) {
+        let (labels, multi) = (&mut self.labels, self.multi);
+        // A curve's nodes are consecutive rows: they are counted together and merged into the
+        // map once per curve (a key met again later is merged with what it had).
+        let mut counts_map: BTreeMap<(Arc<str>, NaiveDate), (u64, u64)> = BTreeMap::new();
+        let merge = |map: &mut BTreeMap<(Arc<str>, NaiveDate), (u64, u64)>, key, (f, i): (u64, u64)| {
+            let slot = map.entry(key).or_insert((0, 0));
+            slot.0 = slot.0.max(f);
+            slot.1 += i;
+        };
+        let mut run: Option<((Arc<str>, NaiveDate), (u64, u64))> = None;
+        for r in hazard.iter().filter(|r| r.source == "cds") {
+            let entity = labels.entity_of(multi, &r.entity, &r.currency);
+            let same = run.as_ref().is_some_and(|((e, d), _)| *d == r.date && Arc::ptr_eq(e, &entity));
+            if !same {
+                if let Some((k, v)) = run.take() {
+                    merge(&mut counts_map, k, v);
+                }
+                run = Some(((entity, r.date), (0, 0)));
             }
-            run = Some(((entity, r.date), (0, 0)));
-        }
-        if let Some((_, slot)) = run.as_mut() {
-            match r.status {
-                "ok" => {}
-                "floored" | "infeasible" => slot.1 += 1,
-                _ => slot.0 = 1,
+            if let Some((_, slot)) = run.as_mut() {
+                match r.status {
+                    "ok" => {}
+                    "floored" | "infeasible" => slot.1 += 1,
+                    _ => slot.0 = 1,
+                }
             }
         }
+        if let Some((k, v)) = run.take() {
+            merge(&mut counts_map, k, v);
+        }
+        self.inputs.counts = counts_map.into_iter().map(|((entity, date), (failures, infeasible))| CalibrationCounts { entity, date, failures, infeasible }).collect();
     }
-    if let Some((k, v)) = run.take() {
-        merge(&mut counts_map, k, v);
+
+    /// Every repricing residual, with shared labels.
+    pub fn residuals_from(&mut self, residuals: &[ResidualRow]) {
+        let (labels, multi) = (&mut self.labels, self.multi);
+        self.inputs.residuals = residuals
+            .iter()
+            .map(|r| ResidualObservation {
+                date: r.date,
+                entity: labels.entity_of(multi, &r.entity, &r.currency),
+                method: labels.get(r.method),
+                instrument: labels.get(r.instrument),
+                tenor: r.tenor_or_bond.clone(),
+                market: r.market,
+                model: r.model,
+                residual_bp: r.residual_bp,
+                converged: r.status == "ok",
+            })
+            .collect();
     }
-    let counts = counts_map.into_iter().map(|((entity, date), (failures, infeasible))| CalibrationCounts { entity, date, failures, infeasible }).collect();
-    let residuals = residuals
-        .iter()
-        .map(|r| ResidualObservation {
-            date: r.date,
-            entity: labels.entity_of(multi, &r.entity, &r.currency),
-            method: labels.get(r.method),
-            instrument: labels.get(r.instrument),
-            tenor: r.tenor_or_bond.clone(),
-            market: r.market,
-            model: r.model,
-            residual_bp: r.residual_bp,
-            converged: r.status == "ok",
-        })
-        .collect();
-    StabilityInputs { observations, market, counts, residuals }
+
+    pub fn finish(self) -> StabilityInputs {
+        self.inputs
+    }
 }
 
 /// Runs the stability core.

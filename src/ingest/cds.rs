@@ -75,6 +75,9 @@ impl CdsQuoteRow {
 #[derive(Debug, Default)]
 pub struct CdsPanel {
     pub rows: Vec<CdsQuoteRow>,
+    /// First and last date of `rows` (sorted by date), kept by [`CdsPanel::release_rows`] when
+    /// the rows are freed after calibration.
+    pub period: Option<(chrono::NaiveDate, chrono::NaiveDate)>,
     pub entities: Interner,
     pub currencies: Interner,
     pub seniorities: Interner,
@@ -84,6 +87,18 @@ pub struct CdsPanel {
 }
 
 impl CdsPanel {
+    /// First and last quote date of the usable rows (the rows are sorted by date).
+    pub fn quote_period(&self) -> Option<(chrono::NaiveDate, chrono::NaiveDate)> {
+        self.period.or_else(|| Some((self.rows.first()?.date, self.rows.last()?.date)))
+    }
+
+    /// Frees the quote rows once every curve is calibrated (nothing after the calibration
+    /// reads them), keeping their period.
+    pub fn release_rows(&mut self) {
+        self.period = self.quote_period();
+        self.rows = Vec::new();
+    }
+
     pub fn source(&self, r: &CdsQuoteRow) -> &str {
         &self.files[r.file as usize]
     }
