@@ -88,6 +88,9 @@ struct CdsNodes {
     /// 5Y hazards with status `ok` per date, in % (table order within a date).
     five_year: BTreeMap<NaiveDate, Vec<f64>>,
     bond: Vec<HazardCurveRow>,
+    /// The nodes of the entities the settings name for the figures, gathered in the same pass
+    /// (table order): (date, years to node, hazard) and the 5Y history.
+    named: BTreeMap<String, (Vec<(NaiveDate, f64, f64)>, Vec<(f64, f64)>)>,
 }
 
 /// The charted entities' nodes: term structures on the chosen dates and the 5Y history.
@@ -104,7 +107,8 @@ fn is_five_year_ok(h: &HazardCurveRow) -> bool {
 }
 
 impl CdsNodes {
-    fn read(path: &Path) -> Result<CdsNodes> {
+    /// One pass over the table; `named`: the entities the settings chart, when they name them.
+    fn read(path: &Path, named: Option<&[String]>) -> Result<CdsNodes> {
         let mut out = CdsNodes {
             entities: BTreeSet::new(),
             currencies: BTreeSet::new(),
@@ -116,6 +120,7 @@ impl CdsNodes {
             bad_nodes: 0,
             five_year: BTreeMap::new(),
             bond: Vec::new(),
+            named: named.unwrap_or_default().iter().map(|e| (e.clone(), Default::default())).collect(),
         };
         readback::hazard_curve_slices(path, |rows| {
             for h in rows {
@@ -135,6 +140,14 @@ impl CdsNodes {
                 if is_five_year_ok(&h) {
                     out.five_year.entry(h.date).or_default().push(h.hazard.unwrap_or(0.0) * 100.0);
                 }
+                if let Some((nodes, five)) = out.named.get_mut(&*h.entity) {
+                    if let Some(x) = h.hazard {
+                        nodes.push((h.date, crate::curves::year_time(h.date, h.node_date), x));
+                    }
+                    if is_five_year_ok(&h) {
+                        five.push((charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0));
+                    }
+                }
                 if h.status != "ok" {
                     out.bad_curves.insert(key.clone());
                     out.bad_nodes += 1;
@@ -149,10 +162,23 @@ impl CdsNodes {
         Ok(out)
     }
 
-    /// A second pass for the charted entities, once they and the dates are known.
-    fn charted(path: &Path, chosen: &[String], dates: &[NaiveDate]) -> Result<ChartedNodes> {
+    /// The charted entities' nodes: from the first pass when the settings named them, else
+    /// from a second pass, once the entities and the dates are known.
+    fn charted(&self, path: &Path, chosen: &[String], dates: &[NaiveDate]) -> Result<ChartedNodes> {
         let mut out = ChartedNodes::default();
         if chosen.is_empty() {
+            return Ok(out);
+        }
+        if chosen.iter().all(|e| self.named.contains_key(e)) {
+            for e in chosen.iter().collect::<BTreeSet<_>>() {
+                let (nodes, five) = &self.named[e];
+                for &(d, x, y) in nodes.iter().filter(|(d, _, _)| dates.contains(d)) {
+                    out.term.entry((e.clone(), d)).or_default().push((x, y));
+                }
+                if !five.is_empty() {
+                    out.five_year.insert(e.clone(), five.clone());
+                }
+            }
             return Ok(out);
         }
         readback::hazard_curve_slices(path, |rows| {
@@ -248,7 +274,8 @@ pub fn render(run_dir: &Path) -> Result<()> {
     let basis = readback::basis(&t.join("cds_bond_basis.parquet"))?;
     // The node and residual tables hold a row per quote and can be tens of millions of rows:
     // they are read a slice at a time into what the report shows, never whole.
-    let hz = CdsNodes::read(&t.join("hazard_curves.parquet"))?;
+    let named: Option<Vec<String>> = m.settings.get("charted_entities").and_then(|v| v.as_array()).map(|v| v.iter().filter_map(|x| x.as_str()).map(str::to_string).collect());
+    let hz = CdsNodes::read(&t.join("hazard_curves.parquet"), named.as_deref())?;
     let rs = Residuals::read(&t.join("calibration_residuals.parquet"))?;
     let bond_hazard = &hz.bond;
     let bond_res: Vec<&super::tables::ResidualRow> = rs.bond.iter().collect();
@@ -428,7 +455,7 @@ pub fn render(run_dir: &Path) -> Result<()> {
     let chart_err = |e: String| Error::Other(format!("drawing a figure: {e}"));
     let chosen = charted(&m.settings, entities);
     let tdates = term_dates(&m.settings, &dates);
-    let charted_nodes = CdsNodes::charted(&t.join("hazard_curves.parquet"), &chosen, &tdates)?;
+    let charted_nodes = hz.charted(&t.join("hazard_curves.parquet"), &chosen, &tdates)?;
     for e in &chosen {
         let mut curves_of: Vec<(NaiveDate, Vec<(f64, f64)>)> = Vec::new();
         for d in &tdates {

@@ -61,6 +61,13 @@ pub fn dates(df: &DataFrame, path: &Path, name: &str) -> Result<Vec<Option<Naive
         .collect())
 }
 
+/// A text column of a few fixed values (statuses, methods) as `'static` labels, without a
+/// string built per cell (see [`label`]).
+fn fixed_labels(df: &DataFrame, path: &Path, name: &str, known: &[&'static str]) -> Result<Vec<&'static str>> {
+    let c = df.column(name).map_err(|e| err(path, name, e))?;
+    Ok(c.str().map_err(|e| err(path, name, e))?.iter().map(|v| label(v.unwrap_or(""), known)).collect())
+}
+
 /// Interns a string read back from a table into one of the fixed labels the records use; a
 /// label outside `known` is kept as read (interned once per distinct value), so reading back
 /// never changes a table.
@@ -151,13 +158,13 @@ fn hazard_rows(df: &DataFrame, path: &Path) -> Result<Vec<HazardCurveRow>> {
         dates(&df, path, "date")?,
         labels(&df, path, "entity")?,
         labels(&df, path, "currency")?,
-        strs(&df, path, "source")?,
+        fixed_labels(df, path, "source", &["cds", "bond"])?,
         labels(&df, path, "tenor")?,
         dates(&df, path, "maturity")?,
         dates(&df, path, "node_date")?,
         floats(&df, path, "hazard")?,
         floats(&df, path, "survival")?,
-        strs(&df, path, "status")?,
+        fixed_labels(df, path, "status", STATUSES)?,
         floats(&df, path, "recovery")?,
         ints(&df, path, "iterations")?,
         strs(&df, path, "detail")?,
@@ -167,13 +174,13 @@ fn hazard_rows(df: &DataFrame, path: &Path) -> Result<Vec<HazardCurveRow>> {
             date: d[i].unwrap_or_default(),
             entity: e[i].clone(),
             currency: c[i].clone(),
-            source: label(src[i].as_deref().unwrap_or(""), &["cds", "bond"]),
+            source: src[i],
             tenor: t[i].clone(),
             maturity: m[i].unwrap_or_default(),
             node_date: nd[i].unwrap_or_default(),
             hazard: h[i],
             survival: s[i],
-            status: label(st[i].as_deref().unwrap_or(""), STATUSES),
+            status: st[i],
             recovery: r[i].unwrap_or(f64::NAN),
             iterations: it[i].unwrap_or(0),
             detail: de[i].take(),
@@ -191,26 +198,26 @@ fn residual_rows(df: &DataFrame, path: &Path) -> Result<Vec<ResidualRow>> {
         dates(&df, path, "date")?,
         labels(&df, path, "entity")?,
         labels(&df, path, "currency")?,
-        strs(&df, path, "method")?,
-        strs(&df, path, "instrument")?,
+        fixed_labels(df, path, "method", &["bootstrap", "bond_fit", "cir"])?,
+        fixed_labels(df, path, "instrument", &["cds_par_spread", "cds_upfront", "bond_price"])?,
         labels(&df, path, "tenor_or_bond")?,
         floats(&df, path, "market")?,
         floats(&df, path, "model")?,
         floats(&df, path, "residual_bp")?,
-        strs(&df, path, "status")?,
+        fixed_labels(df, path, "status", STATUSES)?,
     );
     Ok((0..df.height())
         .map(|i| ResidualRow {
             date: d[i].unwrap_or_default(),
             entity: e[i].clone(),
             currency: c[i].clone(),
-            method: label(me[i].as_deref().unwrap_or(""), &["bootstrap", "bond_fit", "cir"]),
-            instrument: label(ins[i].as_deref().unwrap_or(""), &["cds_par_spread", "cds_upfront", "bond_price"]),
+            method: me[i],
+            instrument: ins[i],
             tenor_or_bond: t[i].clone(),
             market: mk[i].unwrap_or(f64::NAN),
             model: mo[i].unwrap_or(f64::NAN),
             residual_bp: r[i].unwrap_or(f64::NAN),
-            status: label(st[i].as_deref().unwrap_or(""), STATUSES),
+            status: st[i],
         })
         .collect())
 }

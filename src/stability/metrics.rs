@@ -274,23 +274,39 @@ pub(crate) fn fill_changes(rows: &mut [(Period, StabilityRow)]) {
 
 /// Per-date 10/50/90% bands of each series, for the universe and per grade.
 pub(crate) fn cross_sections(panel: &Panel, settings: &StabilitySettings) -> Vec<CrossSectionRow> {
-    // Keys borrowed (grade labels made once), so that no string is built per point; the
-    // order is that of the owned (series, scope, key, date) keys.
+    // Keys borrowed (grade labels made once), so that no string is built per point. The
+    // panel is ordered by series: each series is grouped on its own, by date (and grade
+    // label), and its rows come out in the order of the owned (series, scope, key, date) keys:
+    // grade rows before universe rows (the order of `Scope`).
     let grade_labels: BTreeMap<u32, String> = panel.values().flatten().filter_map(|p| p.grade).map(|g| (g, g.to_string())).collect();
-    let mut groups: BTreeMap<(&str, Scope, &str, NaiveDate), Vec<f64>> = BTreeMap::new();
+    let mut out = Vec::new();
+    let mut emit = |series: &str, grades: BTreeMap<(&str, NaiveDate), Vec<f64>>, universe: BTreeMap<NaiveDate, Vec<f64>>| {
+        let rows = grades.into_iter().map(|((key, date), v)| (Scope::Grade, key, date, v)).chain(universe.into_iter().map(|(date, v)| (Scope::Universe, "all", date, v)));
+        for (scope, key, date, v) in rows {
+            if let Some((p10, p50, p90)) = band(&v) {
+                out.push(CrossSectionRow { date, period: settings.period.of(date).label(), series: series.to_string(), scope, key: key.to_string(), n: v.len(), p10, p50, p90 });
+            }
+        }
+    };
+    let mut current: Option<&str> = None;
+    let mut grades: BTreeMap<(&str, NaiveDate), Vec<f64>> = BTreeMap::new();
+    let mut universe: BTreeMap<NaiveDate, Vec<f64>> = BTreeMap::new();
     for ((series, _), points) in panel {
+        if current != Some(series.as_str()) {
+            if let Some(done) = current {
+                emit(done, std::mem::take(&mut grades), std::mem::take(&mut universe));
+            }
+            current = Some(series.as_str());
+        }
         for p in points {
-            groups.entry((series.as_str(), Scope::Universe, "all", p.date)).or_default().push(p.value);
+            universe.entry(p.date).or_default().push(p.value);
             if let Some(g) = p.grade.and_then(|g| grade_labels.get(&g)) {
-                groups.entry((series.as_str(), Scope::Grade, g.as_str(), p.date)).or_default().push(p.value);
+                grades.entry((g.as_str(), p.date)).or_default().push(p.value);
             }
         }
     }
-    groups
-        .into_iter()
-        .filter_map(|((series, scope, key, date), v)| {
-            let (p10, p50, p90) = band(&v)?;
-            Some(CrossSectionRow { date, period: settings.period.of(date).label(), series: series.to_string(), scope, key: key.to_string(), n: v.len(), p10, p50, p90 })
-        })
-        .collect()
+    if let Some(done) = current {
+        emit(done, grades, universe);
+    }
+    out
 }
