@@ -197,11 +197,27 @@ fn repricing_shares(curves: &[CurveResidualRow], tolerance_bp: f64) -> Vec<Repri
 /// Summarises residual rows; rows with a non-finite residual are dropped and counted.
 pub fn review_residuals(rows: &[ResidualObservation], settings: &StabilitySettings) -> ResidualAnalysis {
     let usable: Vec<&ResidualObservation> = rows.iter().filter(|r| r.residual_bp.is_finite()).collect();
-    let mut by_curve: BTreeMap<CurveKey<'_>, Vec<&ResidualObservation>> = BTreeMap::new();
+    // A curve's residuals usually come as consecutive rows: they are grouped as runs first
+    // and the runs put in key order after (a stable sort, so a key met in several runs keeps
+    // its rows in input order), the same groups an ordered map would give without a lookup
+    // per row.
+    let mut runs: Vec<(CurveKey<'_>, Vec<&ResidualObservation>)> = Vec::new();
     let mut by_tenor: BTreeMap<(&str, &str), Vec<f64>> = BTreeMap::new();
     for r in &usable {
-        by_curve.entry((r.date, &*r.entity, &*r.method)).or_default().push(r);
+        let key = (r.date, &*r.entity, &*r.method);
+        match runs.last_mut() {
+            Some((k, v)) if *k == key => v.push(r),
+            _ => runs.push((key, vec![r])),
+        }
         by_tenor.entry((&*r.method, &*r.tenor)).or_default().push(r.residual_bp);
+    }
+    runs.sort_by(|a, b| a.0.cmp(&b.0));
+    let mut by_curve: Vec<(CurveKey<'_>, Vec<&ResidualObservation>)> = Vec::with_capacity(runs.len());
+    for (k, mut v) in runs {
+        match by_curve.last_mut() {
+            Some((k0, v0)) if *k0 == k => v0.append(&mut v),
+            _ => by_curve.push((k, v)),
+        }
     }
     let tol = settings.reprice_tolerance_bp;
     let curves: Vec<CurveResidualRow> = by_curve.iter().map(|(k, v)| curve_row(k, v, tol)).collect();
@@ -230,6 +246,27 @@ mod tests {
             residual_bp,
             converged: true,
         }
+    }
+
+    #[test]
+    fn a_curve_split_over_several_runs_is_one_group() {
+        // The same rows grouped and interleaved: the rows of each curve keep their relative
+        // order, so the curve rows (RMSE, worst tenor with its tie rule) must be identical.
+        let grouped = [
+            row(4, "Birch", "cir", "1Y", 3.0),
+            row(4, "Birch", "cir", "5Y", -3.0),
+            row(4, "Alder", "cir", "1Y", 1.0),
+            row(4, "Alder", "cir", "5Y", 2.0),
+        ];
+        let interleaved = [grouped[0].clone(), grouped[2].clone(), grouped[1].clone(), grouped[3].clone()];
+        let s = StabilitySettings::default();
+        let (a, b) = (review_residuals(&grouped, &s), review_residuals(&interleaved, &s));
+        assert_eq!(a.curves, b.curves);
+        assert_eq!(a.curves.len(), 2);
+        // Ordered by (date, entity, method); Birch's tie of |3| keeps the later row (5Y).
+        assert_eq!((a.curves[0].entity.as_str(), a.curves[1].entity.as_str()), ("Alder", "Birch"));
+        assert_eq!(a.curves[1].worst_tenor, "5Y");
+        assert_eq!(a.curves[1].n, 2);
     }
 
     #[test]
