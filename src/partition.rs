@@ -203,7 +203,12 @@ pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &Calibration
     let t = Instant::now();
     let grades = GradeBook::new(ds);
     let multi = multi_currency(&cal);
-    let (curve_obs, market) = curve_series(&cal, &grades, &multi);
+    let mut curve_entities: Vec<String> = cal.cds_curves.keys().map(|k| k.1.clone()).collect();
+    curve_entities.sort();
+    curve_entities.dedup();
+    let curve_dates = cal.cds_curves.keys().map(|k| k.0).min().zip(cal.cds_curves.keys().map(|k| k.0).max());
+    // The last reader of the curves: they are freed one by one as their series are taken.
+    let (curve_obs, market) = curve_series(std::mem::take(&mut cal.cds_curves), &grades, &multi);
     timings.push(timed("stability series", t));
 
     let mut rejects = std::mem::take(&mut cal.rejects);
@@ -218,10 +223,6 @@ pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &Calibration
     hazard.append(&mut fits.hazard);
     let mut residuals = std::mem::take(&mut cal.residuals);
     residuals.append(&mut fits.residuals);
-    let mut curve_entities: Vec<String> = cal.cds_curves.keys().map(|k| k.1.clone()).collect();
-    curve_entities.sort();
-    curve_entities.dedup();
-    let curve_dates = cal.cds_curves.keys().map(|k| k.0).min().zip(cal.cds_curves.keys().map(|k| k.0).max());
     let part = Partition {
         hazard,
         residuals,

@@ -1,7 +1,7 @@
 //! The stability stage of a run: turns the calibrated curves, the CIR fits and the residuals
 //! into the plain inputs of [`crate::stability`], and writes its tables.
 
-use crate::commands::calibrate::Calibration;
+use crate::commands::calibrate::{CdsCurve, Calibration};
 use crate::error::Result;
 use crate::ingest::Dataset;
 use crate::report::parquet::{write_parquet, TableBuilder};
@@ -118,16 +118,17 @@ pub struct StabilityInputs {
 /// The series that need the curves themselves, per CDS curve: the 1Y implied PD, the 5Y
 /// hazard and each node's hazard; and per entity and date the mean absolute daily change of
 /// its par spreads. Each depends on one entity's curves alone.
-pub fn curve_series(cal: &Calibration, grades: &GradeBook, multi: &BTreeSet<String>) -> (Vec<Observation>, Vec<MarketMove>) {
+/// Takes the curves by value and frees each once its series are taken.
+pub fn curve_series(curves: BTreeMap<(NaiveDate, String, String), CdsCurve>, grades: &GradeBook, multi: &BTreeSet<String>) -> (Vec<Observation>, Vec<MarketMove>) {
     let mut observations = Vec::new();
     let mut market = Vec::new();
     let mut labels = Labels::default();
     let (pd_1y, hazard_5y) = (labels.get("pd_1y"), labels.get("hazard_5y"));
     let mut node_labels: std::collections::HashMap<crate::time::Tenor, Arc<str>> = std::collections::HashMap::new();
     let mut last_spreads: std::collections::HashMap<Arc<str>, BTreeMap<u32, f64>> = std::collections::HashMap::new();
-    for ((date, e, c), curve) in &cal.cds_curves {
-        let entity = labels.entity(multi, e, c);
-        let grade = grades.grade(e, *date);
+    for ((date, e, c), curve) in curves {
+        let (date, entity) = (&date, labels.entity(multi, &e, &c));
+        let grade = grades.grade(&e, *date);
         if let Some(h) = &curve.curve {
             let mut push = |series: &Arc<str>, value: f64| {
                 if value.is_finite() {
