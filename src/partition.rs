@@ -334,6 +334,16 @@ fn missing(path: &Path, column: &str, row: usize) -> Error {
     Error::Read { path: path.to_path_buf(), format: "Parquet", message: format!("row {}: column {column} is empty", row + 1) }
 }
 
+/// A text column as shared labels; an empty cell is an error naming its row.
+fn required_labels(df: &polars::prelude::DataFrame, path: &Path, name: &str) -> Result<Vec<crate::report::tables::Label>> {
+    let nulls = df.column(name).map(|c| c.null_count()).unwrap_or(0);
+    if nulls > 0 {
+        let i = readback::strs(df, path, name)?.iter().position(Option::is_none).unwrap_or(0);
+        return Err(missing(path, name, i));
+    }
+    readback::labels(df, path, name)
+}
+
 /// Reads a partition folder written by [`write_partition`].
 pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
     use readback::{dates, floats, ints, read_frame, strs};
@@ -360,7 +370,7 @@ pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
 
     let path = dir.join("stability_series.parquet");
     let df = read_frame(&path)?;
-    let (s, e, g, d, v) = (readback::labels(&df, &path, "series")?, readback::labels(&df, &path, "entity")?, ints(&df, &path, "grade")?, dates(&df, &path, "date")?, floats(&df, &path, "value")?);
+    let (s, e, g, d, v) = (required_labels(&df, &path, "series")?, required_labels(&df, &path, "entity")?, ints(&df, &path, "grade")?, dates(&df, &path, "date")?, floats(&df, &path, "value")?);
     part.curve_obs = (0..df.height())
         .map(|i| {
             Ok(Observation {
@@ -375,7 +385,7 @@ pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
 
     let path = dir.join("stability_market.parquet");
     let df = read_frame(&path)?;
-    let (e, d, c, l) = (readback::labels(&df, &path, "entity")?, dates(&df, &path, "date")?, floats(&df, &path, "mean_abs_change_bp")?, floats(&df, &path, "mean_level_bp")?);
+    let (e, d, c, l) = (required_labels(&df, &path, "entity")?, dates(&df, &path, "date")?, floats(&df, &path, "mean_abs_change_bp")?, floats(&df, &path, "mean_level_bp")?);
     part.market = (0..df.height())
         .map(|i| {
             Ok(MarketMove {

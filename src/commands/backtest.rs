@@ -137,10 +137,9 @@ pub fn first_defaults(ds: &Dataset) -> BTreeMap<&str, NaiveDate> {
     defaults
 }
 
-/// The base curve set: every fully calibrated CDS curve.
-/// The base curves a cohort can use: those dated within `lookback` days on or before a cohort
-/// date (`dates` sorted). A member only ever looks up the latest curve in that window
-/// ([`CurveSet::latest_within`]), so the other curves are not copied.
+/// The base curve set: the fully calibrated CDS curves a cohort can use, those dated within
+/// `lookback` days on or before a cohort date (`dates` sorted). A member only ever looks up
+/// the latest curve in that window ([`CurveSet::latest_within`]), so no other is copied.
 fn base_curves(cal: &Calibration, recovery: f64, dates: &[NaiveDate], lookback: i64) -> CurveSet {
     let usable = |d: NaiveDate| dates.get(dates.partition_point(|t| *t < d)).is_some_and(|t| (*t - d).num_days() <= lookback);
     CurveSet::from_keyed(

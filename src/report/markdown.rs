@@ -6,6 +6,7 @@ use super::charts;
 use super::manifest::{self, write_text, Manifest};
 use super::readback;
 use super::tables::HazardCurveRow;
+use crate::stability::summary::keep_first_n;
 use crate::error::{Error, Result};
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
@@ -252,13 +253,7 @@ impl Residuals {
                     continue;
                 }
                 out.logs.push(r.residual_bp.abs().max(1e-16).log10());
-                // The first ten of a stable sort, in one pass: a row enters only when it beats the tenth.
-                if out.worst.len() == 10 && order(&r, &out.worst[9]) != std::cmp::Ordering::Less {
-                    continue;
-                }
-                let at = out.worst.partition_point(|x| order(x, &r) != std::cmp::Ordering::Greater);
-                out.worst.insert(at, r);
-                out.worst.truncate(10);
+                keep_first_n(&mut out.worst, r, 10, order);
             }
             Ok(())
         })?;

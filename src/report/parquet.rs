@@ -63,7 +63,8 @@ pub const ROW_GROUP_ROWS: usize = 512 * 512;
 
 /// The row ranges of the row groups that a one-shot write of a single-chunk frame of `height`
 /// rows produces: `height / ROW_GROUP_ROWS` groups (at least one) of `height / groups` rows,
-/// the last taking the remainder. [`write_parquet_in_groups`] writes the same groups one at a
+/// the last taking the remainder (polars-core 0.55.2, `chunk_df_for_writing` and
+/// `split_and_flatten`; the unit test below holds it to polars' own output). [`write_parquet_in_groups`] writes the same groups one at a
 /// time, so a large table never exists whole as a frame and the file has the same bytes.
 pub fn row_groups(height: usize) -> Vec<std::ops::Range<usize>> {
     let n = (height / ROW_GROUP_ROWS).max(1);
@@ -105,23 +106,21 @@ pub fn write_parquet(df: &mut DataFrame, path: &Path, metadata: &[(String, Strin
 pub fn write_parquet_in_groups(path: &Path, metadata: &[(String, String)], height: usize, mut group: impl FnMut(std::ops::Range<usize>) -> Result<DataFrame>) -> Result<()> {
     let failed = |e: PolarsError| Error::Write { path: path.to_path_buf(), message: e.to_string() };
     atomically(path, |file| {
-        let mut batched: Option<polars::io::parquet::write::BatchedWriter<std::fs::File>> = None;
-        let mut file = Some(file);
-        for range in row_groups(height) {
+        let mut frame = |range| -> Result<DataFrame> {
             let mut df = group(range)?;
             df.rechunk_mut();
-            if batched.is_none() {
-                let f = file.take().ok_or_else(|| Error::Other("parquet writer used twice".into()))?;
-                batched = Some(writer(f, metadata).batched(df.schema()).map_err(failed)?);
-            }
-            if let Some(w) = batched.as_mut() {
-                w.write_batch(&df).map_err(failed)?;
-            }
+            Ok(df)
+        };
+        // `row_groups` always gives at least one range; the first frame gives the schema.
+        let mut ranges = row_groups(height).into_iter();
+        let first = frame(ranges.next().unwrap_or(0..0))?;
+        let mut w = writer(file, metadata).batched(first.schema()).map_err(failed)?;
+        w.write_batch(&first).map_err(failed)?;
+        drop(first);
+        for range in ranges {
+            w.write_batch(&frame(range)?).map_err(failed)?;
         }
-        match batched {
-            Some(w) => w.finish().map(|_| ()).map_err(failed),
-            None => Err(Error::Other("no row group to write".into())),
-        }
+        w.finish().map(|_| ()).map_err(failed)
     })
 }
 

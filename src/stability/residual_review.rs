@@ -3,7 +3,7 @@
 //! their quotes; the share of curves that reprice within a tolerance.
 
 use super::settings::StabilitySettings;
-use super::summary::{quantile_sorted, sorted};
+use super::summary::{keep_first_n, quantile_sorted, sorted};
 use chrono::NaiveDate;
 use std::collections::BTreeMap;
 use std::sync::Arc;
@@ -171,15 +171,10 @@ fn worst_rows(rows: &[&ResidualObservation], n: usize) -> Vec<WorstResidualRow> 
     let order = |a: &ResidualObservation, b: &ResidualObservation| {
         b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then_with(|| (a.date, &a.entity, &a.method, &a.tenor).cmp(&(b.date, &b.entity, &b.method, &b.tenor)))
     };
-    // The first n of a stable sort, in one pass: a row enters only when it beats the n-th.
+    // The first n of a stable sort, in one pass.
     let mut v: Vec<&ResidualObservation> = Vec::with_capacity(n + 1);
     for &r in rows {
-        if n == 0 || (v.len() == n && order(r, v[n - 1]) != std::cmp::Ordering::Less) {
-            continue;
-        }
-        let at = v.partition_point(|x| order(x, r) != std::cmp::Ordering::Greater);
-        v.insert(at, r);
-        v.truncate(n);
+        keep_first_n(&mut v, r, n, |a, b| order(a, b));
     }
     v.into_iter().enumerate().map(|(i, r)| WorstResidualRow { rank: i + 1, residual: r.clone() }).collect()
 }

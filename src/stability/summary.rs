@@ -48,6 +48,18 @@ pub fn band(values: &[f64]) -> Option<(f64, f64, f64)> {
     Some((quantile_sorted(&s, 0.1)?, quantile_sorted(&s, 0.5)?, quantile_sorted(&s, 0.9)?))
 }
 
+/// Feeds `item` into `top`, which keeps the first `n` items of a stable sort by `order` of
+/// everything fed so far (in feeding order): an item enters only when it beats the n-th, so
+/// millions of rows are never sorted to find a few.
+pub fn keep_first_n<T>(top: &mut Vec<T>, item: T, n: usize, order: impl Fn(&T, &T) -> std::cmp::Ordering) {
+    if n == 0 || (top.len() == n && order(&item, &top[n - 1]) != std::cmp::Ordering::Less) {
+        return;
+    }
+    let at = top.partition_point(|x| order(x, &item) != std::cmp::Ordering::Greater);
+    top.insert(at, item);
+    top.truncate(n);
+}
+
 /// Relative change (now - before) / |before|; `None` when `before` is zero.
 pub fn relative_change(before: f64, now: f64) -> Option<f64> {
     (before != 0.0).then(|| (now - before) / before.abs())
