@@ -14,20 +14,20 @@
 //! order, so the merged run equals the single run byte for byte.
 
 use crate::backtest::{self, Outcome};
-use crate::commands::backtest::backtest_members_stage;
-use crate::commands::calibrate::{calibrate_dataset, CalibrationParams};
-use crate::commands::intensity::calibrate_intensity;
-use crate::commands::review::{curve_series, multi_currency, GradeBook};
+use crate::commands::backtest::{backtest_members_stage, may_serve_a_cohort, CurveCoverage};
+use crate::commands::calibrate::{calibrate_blocks, CalibrationParams};
+use crate::commands::intensity::{calibrate_intensity, CurvesForFits};
+use crate::commands::review::{CurveSeries, GradeBook, RowDigest};
 use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::{discount, Dataset, Reject};
-use crate::report::parquet::{write_parquet, TableBuilder};
+use crate::report::parquet::{write_parquet, RowGroupWriter, TableBuilder};
 use crate::report::readback;
 use crate::report::tables::*;
 use crate::stability::{MarketMove, Observation};
 use chrono::NaiveDate;
-use std::collections::HashSet;
-use std::path::Path;
+use std::collections::{BTreeMap, BTreeSet, HashSet};
+use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 /// Shard `index` of `count` (1-based): the entities whose name hashes to it.
@@ -154,7 +154,11 @@ pub struct PartitionMeta {
 /// The per-entity results of one shard (or of the whole universe).
 #[derive(Debug, Clone, Default)]
 pub struct Partition {
+    /// Node rows not yet handed to a [`RowSinks`]: after [`compute_partition`], those of the
+    /// bond fits (the CDS nodes went to the sinks as they were computed); after
+    /// [`read_partition`], all of the part's.
     pub hazard: Vec<HazardCurveRow>,
+    /// Residual rows not yet handed to a [`RowSinks`], as for `hazard`.
     pub residuals: Vec<ResidualRow>,
     pub params: Vec<IntensityParamRow>,
     pub basis: Vec<BasisRow>,
@@ -182,34 +186,114 @@ fn timed(name: &str, t: Instant) -> StageTiming {
     (name.to_string(), t.elapsed().as_secs_f64(), rss, peak)
 }
 
+/// The order of the `hazard_curves` table: CDS nodes first, by (date, entity, currency),
+/// then the bond nodes by the same key; a curve's nodes keep their order (a stable sort).
+pub fn sort_hazard(rows: &mut [HazardCurveRow]) {
+    rows.sort_by(|a, b| (a.source != "cds", a.date, &a.entity, &a.currency).cmp(&(b.source != "cds", b.date, &b.entity, &b.currency)));
+}
+
+/// The order of the `calibration_residuals` table: the bootstrap's residuals first, by (date,
+/// entity, currency), then the other methods' by (method, date, entity, currency); a curve's
+/// residuals keep their order (a stable sort).
+pub fn sort_residuals(rows: &mut [ResidualRow]) {
+    rows.sort_by(|a, b| (a.method != "bootstrap", a.method, a.date, &a.entity, &a.currency).cmp(&(b.method != "bootstrap", b.method, b.date, &b.entity, &b.currency)));
+}
+
+/// Where the node and residual rows go as they are computed: written straight into their
+/// tables, in the tables' order (the CDS rows as calibration hands them over, which is that
+/// order; then the rest, sorted, at [`RowSinks::finish`]), and digested for the stability
+/// stage on the way when this is a whole run.
+pub struct RowSinks<'a> {
+    hazard: RowGroupWriter<HazardCurveRow>,
+    residuals: RowGroupWriter<ResidualRow>,
+    /// None for a shard's part: the merge digests the rows it reads back.
+    digest: Option<RowDigest<'a>>,
+}
+
+impl<'a> RowSinks<'a> {
+    /// Starts `hazard_curves.parquet` and `calibration_residuals.parquet` in `dir`.
+    pub fn create(dir: &Path, meta: &[(String, String)], digest: Option<RowDigest<'a>>) -> Result<Self> {
+        Ok(RowSinks { hazard: hazard_writer(&dir.join("hazard_curves.parquet"), meta)?, residuals: residual_writer(&dir.join("calibration_residuals.parquet"), meta)?, digest })
+    }
+
+    /// Node rows, in the table's order, after those already given.
+    pub fn nodes(&mut self, rows: Vec<HazardCurveRow>) -> Result<()> {
+        if let Some(d) = &mut self.digest {
+            d.nodes(&rows);
+        }
+        self.hazard.push(rows)
+    }
+
+    /// Residual rows, in the table's order, after those already given.
+    pub fn residual_rows(&mut self, rows: Vec<ResidualRow>) -> Result<()> {
+        if let Some(d) = &mut self.digest {
+            d.residuals(&rows);
+        }
+        self.residuals.push(rows)
+    }
+
+    /// Appends `hazard` and `residuals` in the tables' order ([`sort_hazard`],
+    /// [`sort_residuals`]) and closes both tables; returns the digest.
+    pub fn finish(mut self, mut hazard: Vec<HazardCurveRow>, mut residuals: Vec<ResidualRow>) -> Result<Option<RowDigest<'a>>> {
+        sort_hazard(&mut hazard);
+        sort_residuals(&mut residuals);
+        self.nodes(hazard)?;
+        self.residual_rows(residuals)?;
+        let RowSinks { hazard, residuals, digest } = self;
+        hazard.finish()?;
+        residuals.finish()?;
+        Ok(digest)
+    }
+}
+
 /// Runs the per-entity half of a run on `ds` (already cut to the shard with [`keep_shard`]).
-pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &CalibrationParams, shard: Shard) -> Result<(Partition, Vec<StageTiming>)> {
+/// The CDS node and residual rows go to `sinks` block by block as the curves are calibrated;
+/// the curves themselves are kept only where a later step reads them (the bond and CIR fits,
+/// the backtest's curves near a cohort date), the stability series being taken on the way.
+/// `multi` is [`crate::commands::review::multi_currency`] of the panel.
+pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &CalibrationParams, shard: Shard, sinks: &mut RowSinks, multi: &BTreeSet<String>) -> Result<(Partition, Vec<StageTiming>)> {
     let mut timings = Vec::new();
     let t = Instant::now();
-    let mut cal = if cfg.cds_bootstrap { calibrate_dataset(ds, params)? } else { Default::default() };
+    let grades = GradeBook::new(ds);
+    let for_fits = CurvesForFits::new(ds, &cfg.intensity);
+    let period = ds.cds.as_ref().and_then(|p| p.quote_period());
+    let serves = may_serve_a_cohort(period, params, &cfg.backtest);
+    let backtest = cfg.backtest.enabled;
+    let mut series = CurveSeries::new(&grades, multi);
+    let mut coverage = CurveCoverage::default();
+    let mut kept = BTreeMap::new();
+    let mut cal = if cfg.cds_bootstrap {
+        calibrate_blocks(ds, params, |block| {
+            sinks.nodes(block.hazard)?;
+            sinks.residual_rows(block.residuals)?;
+            for (key, curve) in block.curves {
+                coverage.add(key.0, &key.1);
+                series.add(key.0, &key.1, &key.2, &curve);
+                if (backtest && serves(key.0)) || for_fits.wants(&key) {
+                    kept.insert(key, curve);
+                }
+            }
+            Ok(())
+        })?
+    } else {
+        Default::default()
+    };
+    cal.cds_curves = kept;
     if let Some(p) = &mut ds.cds {
-        // The fits, the backtest and the stability series read the calibrated curves, which
-        // carry their own quotes: the panel's rows can go.
+        // The fits and the backtest read the kept curves, which carry their own quotes: the
+        // panel's rows can go.
         p.release_rows();
     }
-    timings.push(timed("calibrate", t));
+    let (curve_obs, market) = series.finish();
+    timings.push(timed("calibrate, curve series", t));
     let t = Instant::now();
     let mut fits = calibrate_intensity(ds, &cal, params, &cfg.intensity)?;
     timings.push(timed("bond and CIR fits", t));
 
     let t = Instant::now();
-    let members = if cfg.backtest.enabled { backtest_members_stage(ds, &cal, params, &cfg.backtest)? } else { Vec::new() };
+    let members = if backtest { backtest_members_stage(ds, &cal, &coverage, params, &cfg.backtest)? } else { Vec::new() };
     timings.push(timed("backtest members", t));
-    let t = Instant::now();
-    let grades = GradeBook::new(ds);
-    let multi = multi_currency(&cal);
-    let mut curve_entities: Vec<String> = cal.cds_curves.keys().map(|k| k.1.clone()).collect();
-    curve_entities.sort();
-    curve_entities.dedup();
-    let curve_dates = cal.cds_curves.keys().map(|k| k.0).min().zip(cal.cds_curves.keys().map(|k| k.0).max());
-    // The last reader of the curves: they are freed one by one as their series are taken.
-    let (curve_obs, market) = curve_series(std::mem::take(&mut cal.cds_curves), &grades, &multi);
-    timings.push(timed("stability series", t));
+    drop(cal.cds_curves);
 
     let mut rejects = std::mem::take(&mut cal.rejects);
     rejects.append(&mut fits.rejects);
@@ -219,13 +303,9 @@ pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &Calibration
         rejects.retain(|r| r.table != discount::TABLE);
         discount_rows.clear();
     }
-    let mut hazard = std::mem::take(&mut cal.hazard);
-    hazard.append(&mut fits.hazard);
-    let mut residuals = std::mem::take(&mut cal.residuals);
-    residuals.append(&mut fits.residuals);
     let part = Partition {
-        hazard,
-        residuals,
+        hazard: std::mem::take(&mut fits.hazard),
+        residuals: std::mem::take(&mut fits.residuals),
         params: std::mem::take(&mut fits.params),
         basis: std::mem::take(&mut fits.basis),
         discount: discount_rows,
@@ -236,9 +316,9 @@ pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &Calibration
         curves: cal.curves,
         curves_complete: cal.curves_complete,
         max_abs_residual_bp: cal.max_abs_residual_bp,
-        curve_dates,
-        curve_entities,
-        multi_currency: multi.into_iter().collect(),
+        curve_dates: coverage.dates,
+        curve_entities: coverage.last_by_entity.into_keys().collect(),
+        multi_currency: multi.iter().cloned().collect(),
     };
     Ok((part, timings))
 }
@@ -249,17 +329,41 @@ fn outcome_name(o: Outcome) -> &'static str {
     OUTCOMES.iter().find(|(x, _)| *x == o).map_or("censored", |(_, n)| n)
 }
 
-/// Writes a partition into `dir` (created; written under a temporary name and renamed, so a
-/// folder that exists is whole).
-pub fn write_partition(dir: &Path, part: &Partition, shard: Shard, pipeline_sha256: &str) -> Result<()> {
-    let parent = dir.parent().unwrap_or(Path::new(".")).to_path_buf();
-    std::fs::create_dir_all(&parent).map_err(|e| Error::Write { path: parent.clone(), message: e.to_string() })?;
-    let name = dir.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_else(|| "part".into());
-    let work = parent.join(format!(".{name}.partial-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&work);
+/// A shard's part folder being written: under a temporary name beside `dir` until
+/// [`write_partition`] renames it, so a folder that exists is whole.
+pub struct PartFolder {
+    pub dir: PathBuf,
+    pub work: PathBuf,
+}
+
+impl PartFolder {
+    pub fn create(dir: &Path) -> Result<PartFolder> {
+        let parent = dir.parent().unwrap_or(Path::new(".")).to_path_buf();
+        std::fs::create_dir_all(&parent).map_err(|e| Error::Write { path: parent.clone(), message: e.to_string() })?;
+        let name = dir.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_else(|| "part".into());
+        let work = parent.join(format!(".{name}.partial-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&work);
+        std::fs::create_dir_all(&work).map_err(|e| Error::Write { path: work.clone(), message: e.to_string() })?;
+        Ok(PartFolder { dir: dir.to_path_buf(), work })
+    }
+
+    /// The sinks of the part's node and residual rows (no digest: the merge digests them).
+    pub fn sinks<'a>(&self) -> Result<RowSinks<'a>> {
+        RowSinks::create(&self.work, &[], None)
+    }
+}
+
+/// Finishes a part folder: the rows `part` still holds go after those `sinks` took, the other
+/// tables and `partition.json` are written, and the folder is renamed into place.
+pub fn write_partition(folder: PartFolder, sinks: RowSinks, part: Partition, shard: Shard, pipeline_sha256: &str) -> Result<()> {
+    let PartFolder { dir, work } = folder;
+    let dir = dir.as_path();
     let none: &[(String, String)] = &[];
-    write_hazard_curves(&part.hazard, &work.join("hazard_curves.parquet"), none)?;
-    write_residuals(&part.residuals, &work.join("calibration_residuals.parquet"), none)?;
+    let part = {
+        let mut part = part;
+        sinks.finish(std::mem::take(&mut part.hazard), std::mem::take(&mut part.residuals))?;
+        part
+    };
     write_intensity_params(&part.params, &work.join("intensity_params.parquet"), none)?;
     write_basis(&part.basis, &work.join("cds_bond_basis.parquet"), none)?;
     write_discount_curves(&part.discount, &work.join("discount_curves.parquet"), none)?;

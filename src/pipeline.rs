@@ -13,9 +13,9 @@
 
 use crate::commands::backtest::{backtest_from_members, first_defaults, write_backtest_tables, BacktestContext, BacktestResults};
 use crate::commands::calibrate::{metadata, CalibrationParams};
-use crate::commands::review::{quality_flags, run_stability, write_flags, write_stability_tables, AnyFlag, GradeBook, StabilityInputBuilder};
+use crate::commands::review::{multi_currency, quality_flags, run_stability, stability_inputs, write_flags, write_stability_tables, AnyFlag, GradeBook, RowDigest};
 use crate::ingest::Dataset;
-use crate::partition::{compute_partition, keep_shard, read_partition, write_partition, Partition, Shard, StageTiming};
+use crate::partition::{compute_partition, keep_shard, read_partition, write_partition, PartFolder, Partition, RowSinks, Shard, StageTiming};
 use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::{load, TableCounts};
@@ -137,15 +137,62 @@ fn ingest(cfg: &RunConfig, timings: &mut Vec<StageTiming>) -> Result<Dataset> {
     Ok(ds)
 }
 
-/// Runs the pipeline on the whole universe.
+/// A run folder being built: `work` (with `tables/`) is renamed to `final_dir` at the end.
+struct RunFolder {
+    label: String,
+    final_dir: PathBuf,
+    work: PathBuf,
+}
+
+impl RunFolder {
+    fn create(cfg: &RunConfig, opts: &RunOptions, period: Option<(chrono::NaiveDate, chrono::NaiveDate)>) -> Result<RunFolder> {
+        let label = run_label(cfg, opts, period);
+        let final_dir = output_root(cfg, opts).join(&cfg.name).join(&label);
+        let parent = final_dir.parent().unwrap_or(Path::new(".")).to_path_buf();
+        std::fs::create_dir_all(&parent).map_err(|e| Error::Write { path: parent.clone(), message: e.to_string() })?;
+        let work = parent.join(format!(".{label}.partial-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&work);
+        let tables = work.join("tables");
+        std::fs::create_dir_all(&tables).map_err(|e| Error::Write { path: tables.clone(), message: e.to_string() })?;
+        Ok(RunFolder { label, final_dir, work })
+    }
+
+    fn tables(&self) -> PathBuf {
+        self.work.join("tables")
+    }
+}
+
+/// Key-value metadata of every table of a run.
+fn table_metadata(cfg: &RunConfig, params: &CalibrationParams) -> Vec<(String, String)> {
+    let mut meta = metadata(params, &cfg.quality);
+    meta.push(("hazardline.bond_fit".into(), format!("{} (recovery convention {})", cfg.bond_fit, cfg.bond_recovery_convention)));
+    meta.push(("hazardline.cir".into(), if cfg.cir { format!("true (mode {}, window {} business days)", cfg.cir_mode, cfg.cir_window) } else { "false".into() }));
+    meta
+}
+
+/// Entities quoted in several currencies, whose series carry the currency.
+fn multi_currency_of(cfg: &RunConfig, ds: &Dataset) -> BTreeSet<String> {
+    match (&ds.cds, cfg.cds_bootstrap) {
+        (Some(p), true) => multi_currency(p),
+        _ => BTreeSet::new(),
+    }
+}
+
+/// Runs the pipeline on the whole universe. The CDS node and residual rows are written into
+/// the run folder's tables as calibration produces them.
 pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let t0 = Instant::now();
     let mut timings = Vec::new();
     let mut ds = ingest(cfg, &mut timings)?;
     let ingest_counts = ds.counts.clone();
-    let (part, t) = compute_partition(&mut ds, cfg, &calibration_params(cfg), Shard::ALL)?;
+    let params = calibration_params(cfg);
+    let folder = RunFolder::create(cfg, opts, quote_period(&ds))?;
+    let meta = table_metadata(cfg, &params);
+    let multi = multi_currency_of(cfg, &ds);
+    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi)))?;
+    let (part, t) = compute_partition(&mut ds, cfg, &params, Shard::ALL, &mut sinks, &multi)?;
     timings.extend(t);
-    finish(cfg, opts, ds, ingest_counts, vec![part], timings, t0)
+    finish(cfg, ds, ingest_counts, part, sinks, &multi, folder, &meta, timings, t0)
 }
 
 /// What one shard did.
@@ -166,17 +213,21 @@ pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard) -> Result<Sha
     let mut ds = ingest(cfg, &mut timings)?;
     let label = run_label(cfg, opts, quote_period(&ds));
     keep_shard(&mut ds, shard);
-    let (part, t) = compute_partition(&mut ds, cfg, &calibration_params(cfg), shard)?;
+    let multi = multi_currency_of(cfg, &ds);
+    let (_, sha) = hash_file(&cfg.pipeline_path)?;
+    let dir = shards_dir(cfg, opts, &label).join(shard.folder());
+    let folder = PartFolder::create(&dir)?;
+    let mut sinks = folder.sinks()?;
+    let (part, t) = compute_partition(&mut ds, cfg, &calibration_params(cfg), shard, &mut sinks, &multi)?;
     timings.extend(t);
     drop(ds);
     let t = Instant::now();
-    let (_, sha) = hash_file(&cfg.pipeline_path)?;
-    let dir = shards_dir(cfg, opts, &label).join(shard.folder());
-    write_partition(&dir, &part, shard, &sha)?;
+    let (curves, entities) = (part.curves, part.curve_entities.len());
+    write_partition(folder, sinks, part, shard, &sha)?;
     let (rss, peak) = memory_mib();
     timings.push(("write part".into(), t.elapsed().as_secs_f64(), rss, peak));
     write_text(&dir.join("run.log"), &stage_log(&timings, t0.elapsed().as_secs_f64()))?;
-    Ok(ShardSummary { part_dir: dir, curves: part.curves, entities: part.curve_entities.len(), timings })
+    Ok(ShardSummary { part_dir: dir, curves, entities, timings })
 }
 
 /// Finishes a sharded run: reads every part under the run's `.shards` folder, checks that
@@ -187,13 +238,20 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let mut timings = Vec::new();
     let ds = ingest(cfg, &mut timings)?;
     let ingest_counts = ds.counts.clone();
-    let label = run_label(cfg, opts, quote_period(&ds));
+    let period = quote_period(&ds);
+    let label = run_label(cfg, opts, period);
     let t = Instant::now();
     let dir = shards_dir(cfg, opts, &label);
     let parts = read_parts(&dir, &cfg.pipeline_path)?;
+    let cal = combine(parts)?;
     let (rss, peak) = memory_mib();
     timings.push(("read parts".into(), t.elapsed().as_secs_f64(), rss, peak));
-    finish(cfg, opts, ds, ingest_counts, parts, timings, t0)
+    let params = calibration_params(cfg);
+    let folder = RunFolder::create(cfg, opts, period)?;
+    let meta = table_metadata(cfg, &params);
+    let multi: BTreeSet<String> = cal.multi_currency.iter().cloned().collect();
+    let sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi)))?;
+    finish(cfg, ds, ingest_counts, cal, sinks, &multi, folder, &meta, timings, t0)
 }
 
 fn read_parts(dir: &Path, pipeline: &Path) -> Result<Vec<Partition>> {
@@ -238,7 +296,8 @@ fn read_parts(dir: &Path, pipeline: &Path) -> Result<Vec<Partition>> {
 }
 
 /// The rows of every part, in one canonical order (a curve's rows stay in their order: each
-/// curve is computed in one part).
+/// curve is computed in one part; the node and residual rows are ordered by
+/// [`RowSinks::finish`]).
 fn combine(parts: Vec<Partition>) -> Result<Partition> {
     let mut all = Partition { max_abs_residual_bp: 0.0, ..Default::default() };
     let mut dates: Vec<(chrono::NaiveDate, chrono::NaiveDate)> = Vec::new();
@@ -279,9 +338,7 @@ fn combine(parts: Vec<Partition>) -> Result<Partition> {
     all.curve_dates = dates.iter().map(|d| d.0).min().zip(dates.iter().map(|d| d.1).max());
     all.curve_entities = entities.into_iter().collect();
     all.multi_currency = multi.into_iter().collect();
-    let rank = |s: &str| u8::from(s != "cds");
-    all.hazard.sort_by(|a, b| (rank(a.source), a.date, &a.entity, &a.currency).cmp(&(rank(b.source), b.date, &b.entity, &b.currency)));
-    all.residuals.sort_by(|a, b| (a.method, a.date, &a.entity, &a.currency).cmp(&(b.method, b.date, &b.entity, &b.currency)));
+    // The node and residual rows are put in order by the sinks they go to.
     all.params.sort_by(|a, b| (a.date, &a.entity, &a.currency).cmp(&(b.date, &b.entity, &b.currency)));
     all.basis.sort_by(|a, b| (a.date, &a.entity, &a.currency).cmp(&(b.date, &b.entity, &b.currency)));
     all.rejects.sort_by(|a, b| (a.table, &a.source, a.row).cmp(&(b.table, &b.source, b.row)));
@@ -289,14 +346,20 @@ fn combine(parts: Vec<Partition>) -> Result<Partition> {
 }
 
 /// The pooled half of a run: accounting, backtest, stability, flags, tables, manifest, report.
-fn finish(cfg: &RunConfig, opts: &RunOptions, mut ds: Dataset, ingest_counts: Vec<TableCounts>, parts: Vec<Partition>, mut timings: Vec<StageTiming>, t0: Instant) -> Result<RunSummary> {
+/// `sinks` has the CDS rows the per-entity half wrote; the rows `cal` still holds go after.
+#[allow(clippy::too_many_arguments)]
+fn finish(cfg: &RunConfig, mut ds: Dataset, ingest_counts: Vec<TableCounts>, mut cal: Partition, sinks: RowSinks, multi: &BTreeSet<String>, folder: RunFolder, meta: &[(String, String)], mut timings: Vec<StageTiming>, t0: Instant) -> Result<RunSummary> {
     let params = calibration_params(cfg);
     let period = quote_period(&ds);
     if let Some(p) = &mut ds.cds {
         // The quotes themselves are not needed any more.
         p.release_rows();
     }
-    let mut cal = combine(parts)?;
+    let meta = meta.to_vec();
+    let t = Instant::now();
+    let digest = sinks.finish(std::mem::take(&mut cal.hazard), std::mem::take(&mut cal.residuals))?.unwrap_or_else(|| RowDigest::new(multi));
+    let (rss, peak) = memory_mib();
+    timings.push(("write curves".into(), t.elapsed().as_secs_f64(), rss, peak));
 
     // Accounting after calibration: the rows its stages rejected move from used to rejected.
     let mut counts = ingest_counts.clone();
@@ -322,33 +385,12 @@ fn finish(cfg: &RunConfig, opts: &RunOptions, mut ds: Dataset, ingest_counts: Ve
     };
     let (rss, peak) = memory_mib();
     timings.push(("backtest".into(), t.elapsed().as_secs_f64(), rss, peak));
-    let label = run_label(cfg, opts, period);
-    let final_dir = output_root(cfg, opts).join(&cfg.name).join(&label);
-    let parent = final_dir.parent().unwrap_or(Path::new(".")).to_path_buf();
-    std::fs::create_dir_all(&parent).map_err(|e| Error::Write { path: parent.clone(), message: e.to_string() })?;
-    let work = parent.join(format!(".{label}.partial-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&work);
+    let RunFolder { label, final_dir, work } = folder;
     let tables = work.join("tables");
-    let mut meta = metadata(&params, &cfg.quality);
-    meta.push(("hazardline.bond_fit".into(), format!("{} (recovery convention {})", cfg.bond_fit, cfg.bond_recovery_convention)));
-    meta.push(("hazardline.cir".into(), if cfg.cir { format!("true (mode {}, window {} business days)", cfg.cir_mode, cfg.cir_window) } else { "false".into() }));
 
-    // The stability stage reads compact copies of the node and residual rows: each table is
-    // taken in, written and freed in turn, so the rows and their copies never all add up.
     let t = Instant::now();
     let grades = GradeBook::new(&ds);
-    let multi: BTreeSet<String> = cal.multi_currency.iter().cloned().collect();
-    let mut builder = StabilityInputBuilder::new(std::mem::take(&mut cal.curve_obs), std::mem::take(&mut cal.market), &cal.params, &grades, &multi);
-    builder.counts_from(&cal.hazard);
-    write_hazard_curves(&cal.hazard, &tables.join("hazard_curves.parquet"), &meta)?;
-    cal.hazard = Vec::new();
-    builder.residuals_from(&cal.residuals);
-    write_residuals(&cal.residuals, &tables.join("calibration_residuals.parquet"), &meta)?;
-    cal.residuals = Vec::new();
-    let inputs = builder.finish();
-    let (rss, peak) = memory_mib();
-    timings.push(("stability inputs, write curves".into(), t.elapsed().as_secs_f64(), rss, peak));
-    let t = Instant::now();
+    let inputs = stability_inputs(std::mem::take(&mut cal.curve_obs), std::mem::take(&mut cal.market), &cal.params, &grades, multi, digest);
     let stability = run_stability(&inputs, &cfg.stability)?;
     drop(inputs);
     let (rss, peak) = memory_mib();

@@ -102,15 +102,8 @@ pub fn spreads_of(quotes: &[BootstrapQuote]) -> Vec<QuotedSpread> {
 }
 
 /// Entity facts of the calibrated entities: grade spells, first default, and the last curve
-/// date.
-fn facts(ds: &Dataset, cal: &Calibration) -> Vec<EntityFacts> {
-    let mut last: BTreeMap<&str, NaiveDate> = BTreeMap::new();
-    for (d, e, _) in cal.cds_curves.keys() {
-        let slot = last.entry(e.as_str()).or_insert(*d);
-        if *d > *slot {
-            *slot = *d;
-        }
-    }
+/// date (`last_curve`, per entity).
+fn facts(ds: &Dataset, last_curve: &BTreeMap<String, NaiveDate>) -> Vec<EntityFacts> {
     let mut spells: BTreeMap<&str, Vec<GradeSpell>> = BTreeMap::new();
     if let Some(g) = &ds.grades {
         for (r, _) in &g.rows {
@@ -118,9 +111,42 @@ fn facts(ds: &Dataset, cal: &Calibration) -> Vec<EntityFacts> {
         }
     }
     let defaults = first_defaults(ds);
-    last.iter()
-        .map(|(e, end)| EntityFacts { entity: e.to_string(), grades: spells.get(e).cloned().unwrap_or_default(), default_date: defaults.get(*e).copied(), data_end: *end })
+    last_curve
+        .iter()
+        .map(|(e, end)| EntityFacts { entity: e.clone(), grades: spells.get(e.as_str()).cloned().unwrap_or_default(), default_date: defaults.get(e.as_str()).copied(), data_end: *end })
         .collect()
+}
+
+/// Where the calibrated CDS curves lie: the first and last curve date, and each entity's
+/// last curve date. Gathered as the curves stream past, so the curves themselves need not be
+/// kept for it.
+#[derive(Debug, Clone, Default)]
+pub struct CurveCoverage {
+    pub dates: Option<(NaiveDate, NaiveDate)>,
+    pub last_by_entity: BTreeMap<String, NaiveDate>,
+}
+
+impl CurveCoverage {
+    pub fn add(&mut self, date: NaiveDate, entity: &str) {
+        self.dates = Some(self.dates.map_or((date, date), |(a, b)| (a.min(date), b.max(date))));
+        match self.last_by_entity.get_mut(entity) {
+            Some(d) => *d = (*d).max(date),
+            None => {
+                self.last_by_entity.insert(entity.to_string(), date);
+            }
+        }
+    }
+}
+
+/// Whether a curve dated `date` can serve some cohort of a run whose quotes span `period`:
+/// it lies within the look-back on or before a cohort date. The cohort dates of the run (or of
+/// a shard, see [`backtest_members_stage`]) are a subset of those counted here, so the curves
+/// this keeps are all the members can ask for.
+pub fn may_serve_a_cohort(period: Option<(NaiveDate, NaiveDate)>, p: &CalibrationParams, stage: &BacktestStage) -> impl Fn(NaiveDate) -> bool {
+    let lookback = stage.core.lookback_days.max(0);
+    let mut dates = period.map(|(a, b)| cohort_dates(a, b + chrono::Duration::days(lookback), stage.frequency, &p.calendar)).unwrap_or_default();
+    dates.sort();
+    move |d| dates.get(dates.partition_point(|t| *t < d)).is_some_and(|t| (*t - d).num_days() <= lookback)
 }
 
 /// The first default date per entity of the defaults table.
@@ -187,8 +213,11 @@ fn scenario_curves(cal: &Calibration, base: &CurveSet, dates: &[NaiveDate], look
 /// these entities can reach (the shard's own first curve date up to its last plus the
 /// look-back), and [`backtest_from_members`] keeps those of the run's cohort dates. Every
 /// member depends on its entity alone, so shards' members concatenate exactly.
-pub fn backtest_members_stage(ds: &Dataset, cal: &Calibration, p: &CalibrationParams, stage: &BacktestStage) -> Result<Vec<(f64, Vec<backtest::Observation>)>> {
-    let (Some(first), Some(last)) = (cal.cds_curves.keys().map(|k| k.0).min(), cal.cds_curves.keys().map(|k| k.0).max()) else {
+///
+/// `cal.cds_curves` needs to hold only the curves [`may_serve_a_cohort`] keeps; `coverage`
+/// describes all of them.
+pub fn backtest_members_stage(ds: &Dataset, cal: &Calibration, coverage: &CurveCoverage, p: &CalibrationParams, stage: &BacktestStage) -> Result<Vec<(f64, Vec<backtest::Observation>)>> {
+    let Some((first, last)) = coverage.dates else {
         return Ok(Vec::new());
     };
     let reach = last + chrono::Duration::days(stage.core.lookback_days.max(0));
@@ -199,7 +228,7 @@ pub fn backtest_members_stage(ds: &Dataset, cal: &Calibration, p: &CalibrationPa
     let core = BacktestSettings { cohort_dates: dates.clone(), ..stage.core.clone() };
     let mk = |e: backtest::BacktestError| Error::Other(format!("backtest stage: {e}"));
     core.check().map_err(mk)?;
-    let facts = facts(ds, cal);
+    let facts = facts(ds, &coverage.last_by_entity);
     let mut sorted = dates.clone();
     sorted.sort();
     let base = base_curves(cal, p.recovery, &sorted, core.lookback_days);

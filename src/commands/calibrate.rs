@@ -209,9 +209,42 @@ fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, 
 /// Curves calibrated in parallel before their rows are moved into the tables.
 const CURVES_PER_BLOCK: usize = 16_384;
 
-/// Calibrates every curve of the dataset's CDS panel. Updates `ds.counts` with this stage's
-/// rejects and checks the accounting again.
+/// One block of calibrated curves, in key order (date, entity, currency): their node rows,
+/// their residual rows and the bootstrapped curves with their quotes.
+#[derive(Debug, Default)]
+pub struct CurveBlock {
+    pub hazard: Vec<HazardCurveRow>,
+    pub residuals: Vec<ResidualRow>,
+    pub curves: Vec<((NaiveDate, String, String), CdsCurve)>,
+}
+
+/// Calibrates every curve of the dataset's CDS panel and keeps every row and curve in the
+/// returned [`Calibration`] (see [`calibrate_blocks`] to take them as they come instead).
 pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams) -> Result<Calibration> {
+    let quotes = ds.cds.as_ref().map_or(0, |c| c.rows.len());
+    let (mut hazard, mut residuals) = (Vec::new(), Vec::new());
+    // Every quote gives at most one node and one residual: the tables are reserved at that
+    // bound (pages never written are never resident).
+    hazard.reserve_exact(quotes);
+    residuals.reserve_exact(quotes);
+    let mut curves = BTreeMap::new();
+    let mut out = calibrate_blocks(ds, p, |b| {
+        hazard.extend(b.hazard);
+        residuals.extend(b.residuals);
+        curves.extend(b.curves);
+        Ok(())
+    })?;
+    out.hazard = hazard;
+    out.residuals = residuals;
+    out.cds_curves = curves;
+    Ok(out)
+}
+
+/// Calibrates every curve of the dataset's CDS panel, handing each block of curves to `sink`
+/// in key order as soon as it is done; the returned [`Calibration`] has everything but the
+/// rows and curves the blocks carried. Updates `ds.counts` with this stage's rejects and
+/// checks the accounting again.
+pub fn calibrate_blocks(ds: &mut crate::ingest::Dataset, p: &CalibrationParams, mut sink: impl FnMut(CurveBlock) -> Result<()>) -> Result<Calibration> {
     let disc = ds.discount.as_ref().ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the discount table".into() })?;
     let panel = ds.cds.as_ref().ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the cds_quotes table".into() })?;
     let mut out = Calibration::default();
@@ -250,12 +283,8 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
         })
         .collect();
     let progress = crate::report::progress::bar(jobs.len() as u64, "calibrating curves");
-    // Curves run in parallel a block at a time and each block's rows are moved into the
-    // tables before the next starts, so the per-curve vectors of only one block are alive at
-    // once. Every quote gives at most one node and one residual: the tables are reserved at
-    // that bound (pages never written are never resident).
-    out.hazard.reserve_exact(rows.len());
-    out.residuals.reserve_exact(rows.len());
+    // Curves run in parallel a block at a time and each block goes to the sink before the
+    // next starts, so the per-curve vectors of only one block are alive at once.
     let mut cds_used = 0;
     for block in jobs.chunks(CURVES_PER_BLOCK) {
         let outputs: Vec<CurveOutput> = block
@@ -279,6 +308,7 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
                 o
             })
             .collect();
+        let mut block = CurveBlock::default();
         for o in outputs {
             cds_used += o.used;
             if !o.hazard.is_empty() {
@@ -290,18 +320,17 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
             for h in &o.hazard {
                 *out.nodes_by_status.entry(h.status).or_default() += 1;
             }
-            out.hazard.extend(o.hazard);
+            block.hazard.extend(o.hazard);
             for r in &o.residuals {
                 if r.status == "ok" {
                     out.max_abs_residual_bp = out.max_abs_residual_bp.max(r.residual_bp.abs());
                 }
             }
-            out.residuals.extend(o.residuals);
+            block.residuals.extend(o.residuals);
             out.rejects.extend(o.rejects);
-            if let Some((k, c)) = o.fit {
-                out.cds_curves.insert(k, c);
-            }
+            block.curves.extend(o.fit);
         }
+        sink(block)?;
     }
     progress.finish_and_clear();
     out.discount_curves = curves;

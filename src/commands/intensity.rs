@@ -296,6 +296,39 @@ fn fit_name(entity: &str, currency: &str, dates: &[NaiveDate], cal: &Calibration
     (params, residuals)
 }
 
+/// The CDS curves the fits that `s` enables will read: those of the CIR names (every name
+/// when no list is given) and those of the (date, entity, currency) of a bond quote (for the
+/// CDS-bond basis). [`calibrate_intensity`] asks `cal.cds_curves` for no other.
+pub struct CurvesForFits {
+    cir: Option<Option<std::collections::HashSet<String>>>,
+    bond_days: std::collections::HashSet<(NaiveDate, String, String)>,
+}
+
+impl CurvesForFits {
+    pub fn new(ds: &Dataset, s: &IntensitySettings) -> CurvesForFits {
+        let cir = s.cir.then(|| s.cir_entities.as_ref().map(|list| list.iter().cloned().collect()));
+        let mut bond_days = std::collections::HashSet::new();
+        if let (true, Some(bonds), Some(bq)) = (s.bond_fit, &ds.bonds, &ds.bond_quotes) {
+            let by_id: HashMap<&str, &BondRow> = bonds.rows.iter().map(|(b, _)| (b.bond.as_str(), b)).collect();
+            for (q, _) in &bq.rows {
+                if let Some(b) = by_id.get(q.bond.as_str()) {
+                    bond_days.insert((q.date, b.entity.clone(), b.currency.clone()));
+                }
+            }
+        }
+        CurvesForFits { cir, bond_days }
+    }
+
+    pub fn wants(&self, key: &(NaiveDate, String, String)) -> bool {
+        let cir = match &self.cir {
+            Some(None) => true,
+            Some(Some(names)) => names.contains(&key.1),
+            None => false,
+        };
+        cir || self.bond_days.contains(key)
+    }
+}
+
 /// Runs the bond and CIR fits that `s` enables. Updates `ds.counts` for the bond quotes this
 /// stage rejects and checks the accounting again.
 pub fn calibrate_intensity(ds: &mut Dataset, cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings) -> Result<IntensityCalibration> {

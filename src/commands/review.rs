@@ -1,7 +1,7 @@
 //! The stability stage of a run: turns the calibrated curves, the CIR fits and the residuals
 //! into the plain inputs of [`crate::stability`], and writes its tables.
 
-use crate::commands::calibrate::{CdsCurve, Calibration};
+use crate::commands::calibrate::CdsCurve;
 use crate::error::Result;
 use crate::ingest::Dataset;
 use crate::report::parquet::{write_parquet, TableBuilder};
@@ -43,14 +43,20 @@ impl GradeBook {
     }
 }
 
-/// Entities quoted in more than one currency: their series are kept as `entity/CCY`. A
-/// property of each entity alone, so the union over entity shards is the whole run's.
-pub fn multi_currency(cal: &Calibration) -> BTreeSet<String> {
-    let mut ccys: BTreeMap<&str, BTreeSet<&str>> = BTreeMap::new();
-    for (_, e, c) in cal.cds_curves.keys() {
-        ccys.entry(e.as_str()).or_default().insert(c.as_str());
+/// Entities quoted in more than one currency in the CDS panel's usable rows: their series
+/// are kept as `entity/CCY`. Known before any curve is calibrated, so every series can be
+/// named as its rows stream past; a property of each entity alone, so the union over entity
+/// shards is the whole run's.
+pub fn multi_currency(panel: &crate::ingest::cds::CdsPanel) -> BTreeSet<String> {
+    let mut first: std::collections::HashMap<u32, u32> = std::collections::HashMap::new();
+    let mut multi: BTreeSet<String> = BTreeSet::new();
+    for r in &panel.rows {
+        let c = *first.entry(r.entity).or_insert(r.currency);
+        if c != r.currency {
+            multi.insert(panel.entities.name(r.entity).to_string());
+        }
     }
-    ccys.into_iter().filter(|(_, cs)| cs.len() > 1).map(|(e, _)| e.to_string()).collect()
+    multi
 }
 
 fn series_name(multi: &BTreeSet<String>, e: &str, c: &str) -> String {
@@ -117,98 +123,92 @@ pub struct StabilityInputs {
 
 /// The series that need the curves themselves, per CDS curve: the 1Y implied PD, the 5Y
 /// hazard and each node's hazard; and per entity and date the mean absolute daily change of
-/// its par spreads. Each depends on one entity's curves alone.
-/// Takes the curves by value and frees each once its series are taken.
-pub fn curve_series(curves: BTreeMap<(NaiveDate, String, String), CdsCurve>, grades: &GradeBook, multi: &BTreeSet<String>) -> (Vec<Observation>, Vec<MarketMove>) {
-    let mut observations = Vec::new();
-    let mut market = Vec::new();
-    let mut labels = Labels::default();
-    let (pd_1y, hazard_5y) = (labels.get("pd_1y"), labels.get("hazard_5y"));
-    let mut node_labels: std::collections::HashMap<crate::time::Tenor, Arc<str>> = std::collections::HashMap::new();
-    let mut last_spreads: std::collections::HashMap<Arc<str>, BTreeMap<u32, f64>> = std::collections::HashMap::new();
-    for ((date, e, c), curve) in curves {
-        let (date, entity) = (&date, labels.entity(multi, &e, &c));
-        let grade = grades.grade(&e, *date);
+/// its par spreads. Each depends on one entity's curves alone. Curves are added in key order
+/// (date, entity, currency), as calibration hands them over, and need not be kept after.
+pub struct CurveSeries<'a> {
+    grades: &'a GradeBook,
+    multi: &'a BTreeSet<String>,
+    labels: Labels,
+    pd_1y: Arc<str>,
+    hazard_5y: Arc<str>,
+    node_labels: std::collections::HashMap<crate::time::Tenor, Arc<str>>,
+    last_spreads: std::collections::HashMap<Arc<str>, BTreeMap<u32, f64>>,
+    observations: Vec<Observation>,
+    market: Vec<MarketMove>,
+}
+
+impl<'a> CurveSeries<'a> {
+    pub fn new(grades: &'a GradeBook, multi: &'a BTreeSet<String>) -> Self {
+        let mut labels = Labels::default();
+        let (pd_1y, hazard_5y) = (labels.get("pd_1y"), labels.get("hazard_5y"));
+        CurveSeries { grades, multi, labels, pd_1y, hazard_5y, node_labels: Default::default(), last_spreads: Default::default(), observations: Vec::new(), market: Vec::new() }
+    }
+
+    /// Takes the series of the curve of (`date`, `e`, `c`).
+    pub fn add(&mut self, date: NaiveDate, e: &str, c: &str, curve: &CdsCurve) {
+        let entity = self.labels.entity(self.multi, e, c);
+        let grade = self.grades.grade(e, date);
         if let Some(h) = &curve.curve {
+            let observations = &mut self.observations;
             let mut push = |series: &Arc<str>, value: f64| {
                 if value.is_finite() {
-                    observations.push(Observation { series: series.clone(), entity: entity.clone(), grade, date: *date, value });
+                    observations.push(Observation { series: series.clone(), entity: entity.clone(), grade, date, value });
                 }
             };
-            push(&pd_1y, 1.0 - h.survival_at(1.0));
-            push(&hazard_5y, h.hazard_at(5.0));
+            push(&self.pd_1y, 1.0 - h.survival_at(1.0));
+            push(&self.hazard_5y, h.hazard_at(5.0));
             if h.hazards().len() == curve.quotes.len() {
                 for (q, &x) in curve.quotes.iter().zip(h.hazards()) {
-                    push(node_labels.entry(q.tenor).or_insert_with(|| format!("hazard_node_{}", q.tenor).into()), x);
+                    push(self.node_labels.entry(q.tenor).or_insert_with(|| format!("hazard_node_{}", q.tenor).into()), x);
                 }
             }
         }
         let spreads: BTreeMap<u32, f64> = crate::commands::backtest::spreads_of(&curve.quotes).into_iter().map(|q| (q.tenor_months, q.spread_bp)).collect();
-        if let Some(prev) = last_spreads.get(&entity) {
+        if let Some(prev) = self.last_spreads.get(&entity) {
             let changes: Vec<f64> = spreads.iter().filter_map(|(t, s)| prev.get(t).map(|p| (s - p).abs())).collect();
             if !changes.is_empty() {
                 let level = spreads.values().sum::<f64>() / spreads.len() as f64;
-                market.push(MarketMove { entity: entity.clone(), date: *date, mean_abs_change_bp: changes.iter().sum::<f64>() / changes.len() as f64, mean_level_bp: level });
+                self.market.push(MarketMove { entity: entity.clone(), date, mean_abs_change_bp: changes.iter().sum::<f64>() / changes.len() as f64, mean_level_bp: level });
             }
         }
-        last_spreads.insert(entity, spreads);
+        self.last_spreads.insert(entity, spreads);
     }
-    (observations, market)
+
+    /// The curve observations and the market moves.
+    pub fn finish(self) -> (Vec<Observation>, Vec<MarketMove>) {
+        (self.observations, self.market)
+    }
 }
 
-/// Builds the stability core's inputs from the curve series ([`curve_series`], concatenated
-/// over partitions in any order: they are put in date and series-entity order here) and the
-/// run's tables: per CIR fit its four parameters, per curve its failures and infeasible nodes
-/// (from the node statuses, [`StabilityInputBuilder::counts_from`]), every repricing residual
-/// ([`StabilityInputBuilder::residuals_from`]). The node and residual rows are read in two
-/// separate steps so that a run can write and free each table in between.
-pub struct StabilityInputBuilder<'a> {
+/// What the stability stage takes from the node and residual rows, digested as the rows pass
+/// in the tables' order: per CDS curve its failures and infeasible nodes (from the node
+/// statuses) and every repricing residual with shared labels.
+pub struct RowDigest<'a> {
     labels: Labels,
     multi: &'a BTreeSet<String>,
-    inputs: StabilityInputs,
+    counts: BTreeMap<(Arc<str>, NaiveDate), (u64, u64)>,
+    /// The curve whose consecutive nodes are being counted.
+    run: Option<((Arc<str>, NaiveDate), (u64, u64))>,
+    residuals: Vec<ResidualObservation>,
 }
 
-impl<'a> StabilityInputBuilder<'a> {
-    pub fn new(mut curve_obs: Vec<Observation>, mut market: Vec<MarketMove>, params: &[IntensityParamRow], grades: &GradeBook, multi: &'a BTreeSet<String>) -> Self {
-        // Stable: the series of one curve keep their order.
-        curve_obs.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
-        market.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
-        let mut observations = curve_obs;
-        let mut labels = Labels::default();
-        for p in params {
-            let entity = labels.entity(multi, &p.entity, &p.currency);
-            let grade = grades.grade(&p.entity, p.date);
-            for (series, v) in [("cir_kappa", p.kappa), ("cir_theta", p.theta), ("cir_sigma", p.sigma), ("cir_lambda0", p.lambda0)] {
-                if let Some(v) = v.filter(|v| v.is_finite()) {
-                    observations.push(Observation { series: labels.get(series), entity: entity.clone(), grade, date: p.date, value: v });
-                }
-            }
-        }
-        StabilityInputBuilder { labels, multi, inputs: StabilityInputs { observations, market, counts: Vec::new(), residuals: Vec::new() } }
+impl<'a> RowDigest<'a> {
+    pub fn new(multi: &'a BTreeSet<String>) -> Self {
+        RowDigest { labels: Labels::default(), multi, counts: BTreeMap::new(), run: None, residuals: Vec::new() }
     }
 
-    /// Failures and infeasible nodes per CDS curve, from the node statuses.
-    pub fn counts_from(&mut self, hazard: &[HazardCurveRow]) {
-        let (labels, multi) = (&mut self.labels, self.multi);
-        // A curve's nodes are consecutive rows: they are counted together and merged into the
-        // map once per curve (a key met again later is merged with what it had).
-        let mut counts_map: BTreeMap<(Arc<str>, NaiveDate), (u64, u64)> = BTreeMap::new();
-        let merge = |map: &mut BTreeMap<(Arc<str>, NaiveDate), (u64, u64)>, key, (f, i): (u64, u64)| {
-            let slot = map.entry(key).or_insert((0, 0));
-            slot.0 = slot.0.max(f);
-            slot.1 += i;
-        };
-        let mut run: Option<((Arc<str>, NaiveDate), (u64, u64))> = None;
+    /// Counts the statuses of CDS node rows. A curve's nodes are consecutive rows: they are
+    /// counted together and merged into the map once per curve (a key met again later is
+    /// merged with what it had).
+    pub fn nodes(&mut self, hazard: &[HazardCurveRow]) {
         for r in hazard.iter().filter(|r| r.source == "cds") {
-            let entity = labels.entity_of(multi, &r.entity, &r.currency);
-            let same = run.as_ref().is_some_and(|((e, d), _)| *d == r.date && Arc::ptr_eq(e, &entity));
+            let entity = self.labels.entity_of(self.multi, &r.entity, &r.currency);
+            let same = self.run.as_ref().is_some_and(|((e, d), _)| *d == r.date && Arc::ptr_eq(e, &entity));
             if !same {
-                if let Some((k, v)) = run.take() {
-                    merge(&mut counts_map, k, v);
-                }
-                run = Some(((entity, r.date), (0, 0)));
+                self.end_run();
+                self.run = Some(((entity, r.date), (0, 0)));
             }
-            if let Some((_, slot)) = run.as_mut() {
+            if let Some((_, slot)) = self.run.as_mut() {
                 match r.status {
                     "ok" => {}
                     "floored" | "infeasible" => slot.1 += 1,
@@ -216,34 +216,60 @@ impl<'a> StabilityInputBuilder<'a> {
                 }
             }
         }
-        if let Some((k, v)) = run.take() {
-            merge(&mut counts_map, k, v);
+    }
+
+    fn end_run(&mut self) {
+        if let Some((k, (f, i))) = self.run.take() {
+            let slot = self.counts.entry(k).or_insert((0, 0));
+            slot.0 = slot.0.max(f);
+            slot.1 += i;
         }
-        self.inputs.counts = counts_map.into_iter().map(|((entity, date), (failures, infeasible))| CalibrationCounts { entity, date, failures, infeasible }).collect();
     }
 
-    /// Every repricing residual, with shared labels.
-    pub fn residuals_from(&mut self, residuals: &[ResidualRow]) {
+    /// Takes every repricing residual.
+    pub fn residuals(&mut self, residuals: &[ResidualRow]) {
         let (labels, multi) = (&mut self.labels, self.multi);
-        self.inputs.residuals = residuals
-            .iter()
-            .map(|r| ResidualObservation {
-                date: r.date,
-                entity: labels.entity_of(multi, &r.entity, &r.currency),
-                method: labels.get(r.method),
-                instrument: labels.get(r.instrument),
-                tenor: r.tenor_or_bond.clone(),
-                market: r.market,
-                model: r.model,
-                residual_bp: r.residual_bp,
-                converged: r.status == "ok",
-            })
-            .collect();
+        self.residuals.extend(residuals.iter().map(|r| ResidualObservation {
+            date: r.date,
+            entity: labels.entity_of(multi, &r.entity, &r.currency),
+            method: labels.get(r.method),
+            instrument: labels.get(r.instrument),
+            tenor: r.tenor_or_bond.clone(),
+            market: r.market,
+            model: r.model,
+            residual_bp: r.residual_bp,
+            converged: r.status == "ok",
+        }));
     }
 
-    pub fn finish(self) -> StabilityInputs {
-        self.inputs
+    /// The counts per curve, in (series entity, date) order, and the residuals.
+    pub fn finish(mut self) -> (Vec<CalibrationCounts>, Vec<ResidualObservation>) {
+        self.end_run();
+        let counts = self.counts.into_iter().map(|((entity, date), (failures, infeasible))| CalibrationCounts { entity, date, failures, infeasible }).collect();
+        (counts, self.residuals)
     }
+}
+
+/// Builds the stability core's inputs from the curve series ([`CurveSeries`], concatenated
+/// over partitions in any order: they are put in date and series-entity order here), the CIR
+/// fits (four parameters each) and the digest of the node and residual rows.
+pub fn stability_inputs(mut curve_obs: Vec<Observation>, mut market: Vec<MarketMove>, params: &[IntensityParamRow], grades: &GradeBook, multi: &BTreeSet<String>, digest: RowDigest) -> StabilityInputs {
+    // Stable: the series of one curve keep their order.
+    curve_obs.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
+    market.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
+    let mut observations = curve_obs;
+    let mut labels = Labels::default();
+    for p in params {
+        let entity = labels.entity(multi, &p.entity, &p.currency);
+        let grade = grades.grade(&p.entity, p.date);
+        for (series, v) in [("cir_kappa", p.kappa), ("cir_theta", p.theta), ("cir_sigma", p.sigma), ("cir_lambda0", p.lambda0)] {
+            if let Some(v) = v.filter(|v| v.is_finite()) {
+                observations.push(Observation { series: labels.get(series), entity: entity.clone(), grade, date: p.date, value: v });
+            }
+        }
+    }
+    let (counts, residuals) = digest.finish();
+    StabilityInputs { observations, market, counts, residuals }
 }
 
 /// Runs the stability core.

@@ -58,19 +58,8 @@ impl TableBuilder {
     }
 }
 
-/// Rows per Parquet row group when a whole frame is written at once (polars' default).
+/// Rows per Parquet row group of the tables written as their rows arrive ([`RowGroupWriter`]).
 pub const ROW_GROUP_ROWS: usize = 512 * 512;
-
-/// The row ranges of the row groups that a one-shot write of a single-chunk frame of `height`
-/// rows produces: `height / ROW_GROUP_ROWS` groups (at least one) of `height / groups` rows,
-/// the last taking the remainder (polars-core 0.55.2, `chunk_df_for_writing` and
-/// `split_and_flatten`; the unit test below holds it to polars' own output). [`write_parquet_in_groups`] writes the same groups one at a
-/// time, so a large table never exists whole as a frame and the file has the same bytes.
-pub fn row_groups(height: usize) -> Vec<std::ops::Range<usize>> {
-    let n = (height / ROW_GROUP_ROWS).max(1);
-    let size = height / n;
-    (0..n).map(|i| i * size..if i + 1 == n { height } else { (i + 1) * size }).collect()
-}
 
 fn writer<W: std::io::Write>(file: W, metadata: &[(String, String)]) -> ParquetWriter<W> {
     ParquetWriter::new(file)
@@ -99,63 +88,138 @@ pub fn write_parquet(df: &mut DataFrame, path: &Path, metadata: &[(String, Strin
     atomically(path, |file| writer(file, metadata).finish(df).map(|_| ()).map_err(failed))
 }
 
-/// Writes a table of `height` rows to `path` atomically, one row group at a time: `group`
-/// builds the frame of the rows in a range (see [`row_groups`]). Peak memory is one group's
-/// frame instead of the whole table's, and the bytes are those of [`write_parquet`] on the
-/// whole frame.
-pub fn write_parquet_in_groups(path: &Path, metadata: &[(String, String)], height: usize, mut group: impl FnMut(std::ops::Range<usize>) -> Result<DataFrame>) -> Result<()> {
-    let failed = |e: PolarsError| Error::Write { path: path.to_path_buf(), message: e.to_string() };
-    atomically(path, |file| {
-        let mut frame = |range| -> Result<DataFrame> {
-            let mut df = group(range)?;
-            df.rechunk_mut();
-            Ok(df)
+/// A table written as its rows arrive: rows are buffered and written in row groups of exactly
+/// [`ROW_GROUP_ROWS`] rows (the last group takes the rest), so the file's bytes depend on its
+/// rows alone, never on how they were handed over, and at most one group's rows and frame are
+/// in memory. Written under a temporary name in the target's folder and renamed by
+/// [`RowGroupWriter::finish`]; dropped unfinished, the temporary file is removed.
+pub struct RowGroupWriter<T> {
+    path: std::path::PathBuf,
+    tmp: std::path::PathBuf,
+    writer: Option<polars::io::parquet::write::BatchedWriter<std::fs::File>>,
+    frame: fn(&[T]) -> Result<DataFrame>,
+    pending: Vec<T>,
+    written: usize,
+}
+
+impl<T> RowGroupWriter<T> {
+    /// Starts the file at `path`; `frame` builds the frame of a run of rows (its schema is
+    /// taken from the frame of no rows).
+    pub fn create(path: &Path, metadata: &[(String, String)], frame: fn(&[T]) -> Result<DataFrame>) -> Result<Self> {
+        let dir = path.parent().unwrap_or(Path::new("."));
+        std::fs::create_dir_all(dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })?;
+        let file_name = path.file_name().and_then(|n| n.to_str()).unwrap_or("table.parquet");
+        let tmp = dir.join(format!(".{file_name}.{}.tmp", std::process::id()));
+        let file = std::fs::File::create(&tmp).map_err(|e| Error::Write { path: tmp.clone(), message: e.to_string() })?;
+        let schema = frame(&[])?.schema().clone();
+        let failed = |e: PolarsError| Error::Write { path: path.to_path_buf(), message: e.to_string() };
+        let writer = match writer(file, metadata).batched(&schema) {
+            Ok(w) => w,
+            Err(e) => {
+                let _ = std::fs::remove_file(&tmp);
+                return Err(failed(e));
+            }
         };
-        // `row_groups` always gives at least one range; the first frame gives the schema.
-        let mut ranges = row_groups(height).into_iter();
-        let first = frame(ranges.next().unwrap_or(0..0))?;
-        let mut w = writer(file, metadata).batched(first.schema()).map_err(failed)?;
-        w.write_batch(&first).map_err(failed)?;
-        drop(first);
-        for range in ranges {
-            w.write_batch(&frame(range)?).map_err(failed)?;
+        Ok(RowGroupWriter { path: path.to_path_buf(), tmp, writer: Some(writer), frame, pending: Vec::with_capacity(ROW_GROUP_ROWS), written: 0 })
+    }
+
+    /// Adds rows at the end of the table.
+    pub fn push(&mut self, rows: impl IntoIterator<Item = T>) -> Result<()> {
+        for r in rows {
+            self.pending.push(r);
+            if self.pending.len() == ROW_GROUP_ROWS {
+                self.flush()?;
+            }
         }
-        w.finish().map(|_| ()).map_err(failed)
-    })
+        Ok(())
+    }
+
+    /// Rows handed over so far.
+    pub fn rows(&self) -> usize {
+        self.written + self.pending.len()
+    }
+
+    fn flush(&mut self) -> Result<()> {
+        let mut df = (self.frame)(&self.pending)?;
+        df.rechunk_mut();
+        let w = self.writer.as_mut().ok_or_else(|| Error::Other("a finished table was written to; this is a bug, please report it".into()))?;
+        w.write_batch(&df).map_err(|e| Error::Write { path: self.path.clone(), message: e.to_string() })?;
+        self.written += self.pending.len();
+        self.pending.clear();
+        Ok(())
+    }
+
+    /// Writes the last group and renames the file into place (a table of no rows has its
+    /// schema and no row group). Returns the number of rows.
+    pub fn finish(mut self) -> Result<usize> {
+        if !self.pending.is_empty() {
+            self.flush()?;
+        }
+        let w = self.writer.take().ok_or_else(|| Error::Other("a table was finished twice; this is a bug, please report it".into()))?;
+        w.finish().map_err(|e| Error::Write { path: self.path.clone(), message: e.to_string() })?;
+        std::fs::rename(&self.tmp, &self.path).map_err(|e| Error::Write { path: self.path.clone(), message: e.to_string() })?;
+        Ok(self.written)
+    }
+}
+
+impl<T> Drop for RowGroupWriter<T> {
+    fn drop(&mut self) {
+        if self.writer.is_some() {
+            let _ = std::fs::remove_file(&self.tmp);
+        }
+    }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
 
-    fn frame(rows: std::ops::Range<usize>) -> Result<DataFrame> {
+    fn frame(rows: &[usize]) -> Result<DataFrame> {
         let label = |i: usize| format!("Entity number {}", i % 37);
         TableBuilder::new()
-            .ints("row", rows.clone().map(|i| Some(i as i64)))
-            .strings("entity", rows.clone().map(|i| Some(label(i))))
-            .floats("value", rows.clone().map(|i| (i % 11 != 0).then(|| (i as f64).sqrt())))
+            .ints("row", rows.iter().map(|&i| Some(i as i64)))
+            .strings("entity", rows.iter().map(|&i| Some(label(i))))
+            .floats("value", rows.iter().map(|&i| (i % 11 != 0).then(|| (i as f64).sqrt())))
             .finish()
     }
 
     #[test]
-    fn row_groups_cover_every_row_once() {
-        assert_eq!(row_groups(0), vec![0..0]);
-        assert_eq!(row_groups(10), vec![0..10]);
-        assert_eq!(row_groups(2 * ROW_GROUP_ROWS - 1), vec![0..2 * ROW_GROUP_ROWS - 1]);
-        assert_eq!(row_groups(2 * ROW_GROUP_ROWS + 3), vec![0..ROW_GROUP_ROWS + 1, ROW_GROUP_ROWS + 1..2 * ROW_GROUP_ROWS + 3]);
-    }
-
-    #[test]
-    fn writing_in_groups_gives_the_bytes_of_one_write() {
-        // Heights below one group, of exactly one, of one and a half (still one group), and of
-        // three groups with a remainder; empty.
+    fn the_bytes_do_not_depend_on_how_rows_are_handed_over() {
+        // Heights below one group, of exactly one, of one and a half, and of three groups with
+        // a remainder; empty. Rows pushed all at once and in uneven pieces give one file.
         let dir = tempfile::tempdir().unwrap();
         let meta = vec![("hazardline.test".to_string(), "x".to_string())];
         for height in [0, 5, ROW_GROUP_ROWS, ROW_GROUP_ROWS * 3 / 2, 3 * ROW_GROUP_ROWS + 7] {
-            let (a, b) = (dir.path().join(format!("one-{height}.parquet")), dir.path().join(format!("groups-{height}.parquet")));
-            write_parquet(&mut frame(0..height).unwrap(), &a, &meta).unwrap();
-            write_parquet_in_groups(&b, &meta, height, frame).unwrap();
+            let (a, b) = (dir.path().join(format!("one-{height}.parquet")), dir.path().join(format!("pieces-{height}.parquet")));
+            let mut w = RowGroupWriter::create(&a, &meta, frame).unwrap();
+            w.push(0..height).unwrap();
+            assert_eq!(w.finish().unwrap(), height);
+            let mut w = RowGroupWriter::create(&b, &meta, frame).unwrap();
+            let mut start = 0;
+            for piece in [1usize, 1000, 77_777, ROW_GROUP_ROWS, 3].iter().cycle().take(20) {
+                let end = (start + piece).min(height);
+                w.push(start..end).unwrap();
+                start = end;
+            }
+            w.push(start..height).unwrap();
+            w.finish().unwrap();
             assert!(std::fs::read(&a).unwrap() == std::fs::read(&b).unwrap(), "height {height}: the files differ");
+            // Every row comes back, in order, in groups of ROW_GROUP_ROWS.
+            let df = ParquetReader::new(std::fs::File::open(&a).unwrap()).finish().unwrap();
+            assert!(df.equals_missing(&frame(&(0..height).collect::<Vec<_>>()).unwrap()), "height {height}: rows differ");
+            let md = ParquetReader::new(std::fs::File::open(&a).unwrap()).get_metadata().unwrap().clone();
+            let groups: Vec<usize> = md.row_groups.iter().map(|g| g.num_rows()).collect();
+            let want: Vec<usize> = (0..height.div_ceil(ROW_GROUP_ROWS)).map(|i| (height - i * ROW_GROUP_ROWS).min(ROW_GROUP_ROWS)).collect();
+            assert_eq!(groups, want, "height {height}");
         }
+    }
+
+    #[test]
+    fn an_unfinished_table_leaves_no_file() {
+        let dir = tempfile::tempdir().unwrap();
+        let mut w = RowGroupWriter::create(&dir.path().join("t.parquet"), &[], frame).unwrap();
+        w.push(0..10).unwrap();
+        drop(w);
+        assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 0);
     }
 }

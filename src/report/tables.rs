@@ -1,7 +1,7 @@
 //! The output tables of DESIGN section 9 that exist so far, as plain records and their
 //! Parquet schemas. Column names and types here are a contract with every consumer.
 
-use super::parquet::{write_parquet, write_parquet_in_groups, TableBuilder};
+use super::parquet::{write_parquet, RowGroupWriter, TableBuilder};
 use polars::prelude::DataFrame;
 use crate::error::Result;
 use crate::ingest::load::DataQualityRow;
@@ -83,11 +83,18 @@ pub struct ResidualRow {
     pub status: &'static str,
 }
 
-/// Writes `hazard_curves` one row group at a time (see [`write_parquet_in_groups`]).
-pub fn write_hazard_curves(rows: &[HazardCurveRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
+/// Starts `hazard_curves` at `path`, written as its rows arrive ([`RowGroupWriter`]).
+pub fn hazard_writer(path: &Path, meta: &[(String, String)]) -> Result<RowGroupWriter<HazardCurveRow>> {
     let mut meta = meta.to_vec();
     meta.push(("hazardline.units".into(), "hazard: per year on Act/365F from date; survival: probability to maturity; recovery: fraction".into()));
-    write_parquet_in_groups(path, &meta, rows.len(), |r| hazard_frame(&rows[r]))
+    RowGroupWriter::create(path, &meta, hazard_frame)
+}
+
+/// Writes `hazard_curves` (see [`hazard_writer`]).
+pub fn write_hazard_curves(rows: &[HazardCurveRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
+    let mut w = hazard_writer(path, meta)?;
+    w.push(rows.iter().cloned())?;
+    w.finish().map(|_| ())
 }
 
 fn hazard_frame(rows: &[HazardCurveRow]) -> Result<DataFrame> {
@@ -108,14 +115,21 @@ fn hazard_frame(rows: &[HazardCurveRow]) -> Result<DataFrame> {
         .finish()
 }
 
-/// Writes `calibration_residuals` one row group at a time (see [`write_parquet_in_groups`]).
-pub fn write_residuals(rows: &[ResidualRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
+/// Starts `calibration_residuals` at `path`, written as its rows arrive ([`RowGroupWriter`]).
+pub fn residual_writer(path: &Path, meta: &[(String, String)]) -> Result<RowGroupWriter<ResidualRow>> {
     let mut meta = meta.to_vec();
     meta.push((
         "hazardline.units".into(),
         "market/model: par spread in bp for cds_par_spread, upfront as fraction of notional for cds_upfront; residual_bp = model - market in bp of running spread".into(),
     ));
-    write_parquet_in_groups(path, &meta, rows.len(), |r| residual_frame(&rows[r]))
+    RowGroupWriter::create(path, &meta, residual_frame)
+}
+
+/// Writes `calibration_residuals` (see [`residual_writer`]).
+pub fn write_residuals(rows: &[ResidualRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
+    let mut w = residual_writer(path, meta)?;
+    w.push(rows.iter().cloned())?;
+    w.finish().map(|_| ())
 }
 
 fn residual_frame(rows: &[ResidualRow]) -> Result<DataFrame> {
