@@ -189,7 +189,7 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let folder = RunFolder::create(cfg, opts, quote_period(&ds))?;
     let meta = table_metadata(cfg, &params);
     let multi = multi_currency_of(cfg, &ds);
-    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi)))?;
+    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)))?;
     let (part, t) = compute_partition(&mut ds, cfg, &params, Shard::ALL, &mut sinks, &multi)?;
     timings.extend(t);
     finish(cfg, ds, ingest_counts, part, sinks, &multi, folder, &meta, timings, t0)
@@ -250,7 +250,7 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let folder = RunFolder::create(cfg, opts, period)?;
     let meta = table_metadata(cfg, &params);
     let multi: BTreeSet<String> = cal.multi_currency.iter().cloned().collect();
-    let sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi)))?;
+    let sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)))?;
     finish(cfg, ds, ingest_counts, cal, sinks, &multi, folder, &meta, timings, t0)
 }
 
@@ -357,7 +357,7 @@ fn finish(cfg: &RunConfig, mut ds: Dataset, ingest_counts: Vec<TableCounts>, mut
     }
     let meta = meta.to_vec();
     let t = Instant::now();
-    let digest = sinks.finish(std::mem::take(&mut cal.hazard), std::mem::take(&mut cal.residuals))?.unwrap_or_else(|| RowDigest::new(multi));
+    let digest = sinks.finish(std::mem::take(&mut cal.hazard), std::mem::take(&mut cal.residuals))?.unwrap_or_else(|| RowDigest::new(multi, &cfg.stability));
     let (rss, peak) = memory_mib();
     timings.push(("write curves".into(), t.elapsed().as_secs_f64(), rss, peak));
 
@@ -391,8 +391,7 @@ fn finish(cfg: &RunConfig, mut ds: Dataset, ingest_counts: Vec<TableCounts>, mut
     let t = Instant::now();
     let grades = GradeBook::new(&ds);
     let inputs = stability_inputs(std::mem::take(&mut cal.curve_obs), std::mem::take(&mut cal.market), &cal.params, &grades, multi, digest);
-    let stability = run_stability(&inputs, &cfg.stability)?;
-    drop(inputs);
+    let stability = run_stability(inputs, &cfg.stability)?;
     let (rss, peak) = memory_mib();
     timings.push(("stability".into(), t.elapsed().as_secs_f64(), rss, peak));
 

@@ -6,7 +6,7 @@ use crate::error::Result;
 use crate::ingest::Dataset;
 use crate::report::parquet::{write_parquet, TableBuilder};
 use crate::report::tables::{HazardCurveRow, IntensityParamRow, ResidualRow};
-use crate::stability::{self, CalibrationCounts, FlagRow, MarketMove, Observation, ResidualObservation, StabilityOutput, StabilitySettings};
+use crate::stability::{self, CalibrationCounts, FlagRow, MarketMove, Observation, ResidualAnalysis, ResidualObservation, ResidualReview, StabilityOutput, StabilitySettings};
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::Path;
@@ -118,7 +118,7 @@ pub struct StabilityInputs {
     pub observations: Vec<Observation>,
     pub market: Vec<MarketMove>,
     pub counts: Vec<CalibrationCounts>,
-    pub residuals: Vec<ResidualObservation>,
+    pub residuals: ResidualAnalysis,
 }
 
 /// The series that need the curves themselves, per CDS curve: the 1Y implied PD, the 5Y
@@ -182,19 +182,19 @@ impl<'a> CurveSeries<'a> {
 
 /// What the stability stage takes from the node and residual rows, digested as the rows pass
 /// in the tables' order: per CDS curve its failures and infeasible nodes (from the node
-/// statuses) and every repricing residual with shared labels.
+/// statuses), and the residual review ([`ResidualReview`]) of every repricing residual.
 pub struct RowDigest<'a> {
     labels: Labels,
     multi: &'a BTreeSet<String>,
     counts: BTreeMap<(Arc<str>, NaiveDate), (u64, u64)>,
     /// The curve whose consecutive nodes are being counted.
     run: Option<((Arc<str>, NaiveDate), (u64, u64))>,
-    residuals: Vec<ResidualObservation>,
+    review: ResidualReview,
 }
 
 impl<'a> RowDigest<'a> {
-    pub fn new(multi: &'a BTreeSet<String>) -> Self {
-        RowDigest { labels: Labels::default(), multi, counts: BTreeMap::new(), run: None, residuals: Vec::new() }
+    pub fn new(multi: &'a BTreeSet<String>, settings: &StabilitySettings) -> Self {
+        RowDigest { labels: Labels::default(), multi, counts: BTreeMap::new(), run: None, review: ResidualReview::new(settings) }
     }
 
     /// Counts the statuses of CDS node rows. A curve's nodes are consecutive rows: they are
@@ -226,27 +226,29 @@ impl<'a> RowDigest<'a> {
         }
     }
 
-    /// Takes every repricing residual.
+    /// Reviews repricing residuals.
     pub fn residuals(&mut self, residuals: &[ResidualRow]) {
-        let (labels, multi) = (&mut self.labels, self.multi);
-        self.residuals.extend(residuals.iter().map(|r| ResidualObservation {
-            date: r.date,
-            entity: labels.entity_of(multi, &r.entity, &r.currency),
-            method: labels.get(r.method),
-            instrument: labels.get(r.instrument),
-            tenor: r.tenor_or_bond.clone(),
-            market: r.market,
-            model: r.model,
-            residual_bp: r.residual_bp,
-            converged: r.status == "ok",
-        }));
+        for r in residuals {
+            let o = ResidualObservation {
+                date: r.date,
+                entity: self.labels.entity_of(self.multi, &r.entity, &r.currency),
+                method: self.labels.get(r.method),
+                instrument: self.labels.get(r.instrument),
+                tenor: r.tenor_or_bond.clone(),
+                market: r.market,
+                model: r.model,
+                residual_bp: r.residual_bp,
+                converged: r.status == "ok",
+            };
+            self.review.add(&o);
+        }
     }
 
-    /// The counts per curve, in (series entity, date) order, and the residuals.
-    pub fn finish(mut self) -> (Vec<CalibrationCounts>, Vec<ResidualObservation>) {
+    /// The counts per curve, in (series entity, date) order, and the residual review.
+    pub fn finish(mut self) -> (Vec<CalibrationCounts>, ResidualAnalysis) {
         self.end_run();
         let counts = self.counts.into_iter().map(|((entity, date), (failures, infeasible))| CalibrationCounts { entity, date, failures, infeasible }).collect();
-        (counts, self.residuals)
+        (counts, self.review.finish())
     }
 }
 
@@ -273,8 +275,8 @@ pub fn stability_inputs(mut curve_obs: Vec<Observation>, mut market: Vec<MarketM
 }
 
 /// Runs the stability core.
-pub fn run_stability(inputs: &StabilityInputs, settings: &StabilitySettings) -> Result<StabilityOutput> {
-    stability::analyse(&inputs.observations, &inputs.market, &inputs.counts, &inputs.residuals, settings).map_err(|e| crate::error::Error::Other(format!("stability stage: {e}")))
+pub fn run_stability(inputs: StabilityInputs, settings: &StabilitySettings) -> Result<StabilityOutput> {
+    stability::analyse_reviewed(&inputs.observations, &inputs.market, &inputs.counts, inputs.residuals, settings).map_err(|e| crate::error::Error::Other(format!("stability stage: {e}")))
 }
 
 /// Writes `stability`, `stability_bands`, `stability_psi`, `stability_breaks`,

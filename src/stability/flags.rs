@@ -162,7 +162,7 @@ pub fn residual_flags(curves: &[CurveResidualRow], settings: &StabilitySettings)
             (c.max_abs_bp > threshold).then(|| FlagRow {
                 rule: "residual_over_tolerance".into(),
                 severity: AMBER.into(),
-                entity: Some(c.entity.clone()),
+                entity: Some(c.entity.to_string()),
                 series: residual_series(&c.method),
                 period: settings.period.of(c.date).label(),
                 date: Some(c.date),

@@ -32,7 +32,7 @@ pub use metrics::{CrossSectionRow, Scope, StabilityRow, CALIBRATION_SERIES};
 pub use period::{Period, ReviewPeriod};
 pub use population::PsiRow;
 pub use psi::PsiEdges;
-pub use residual_review::{review_residuals, ResidualAnalysis, ResidualObservation};
+pub use residual_review::{review_residuals, ResidualAnalysis, ResidualObservation, ResidualReview};
 pub use settings::{MoveThreshold, StabilitySettings};
 
 /// Why a stability computation cannot run.
@@ -111,7 +111,7 @@ impl StabilityOutput {
     /// entity as the key, when it names one).
     pub fn flag_has_target(&self, flag: &FlagRow) -> bool {
         if let Some(method) = flag.series.strip_prefix("residual_bp/") {
-            return self.residuals.curves.iter().any(|c| Some(&c.entity) == flag.entity.as_ref() && c.method == method && Some(c.date) == flag.date);
+            return self.residuals.curves.iter().any(|c| Some(&*c.entity) == flag.entity.as_deref() && &*c.method == method && Some(c.date) == flag.date);
         }
         self.series.rows.iter().any(|r| {
             let key_ok = match &flag.entity {
@@ -125,8 +125,13 @@ impl StabilityOutput {
 
 /// Runs the whole stage: series summaries, residual review, and every flag.
 pub fn analyse(observations: &[Observation], market: &[MarketMove], counts: &[CalibrationCounts], residuals: &[ResidualObservation], settings: &StabilitySettings) -> Result<StabilityOutput, StabilityError> {
+    analyse_reviewed(observations, market, counts, review_residuals(residuals, settings), settings)
+}
+
+/// [`analyse`] with the residuals already reviewed (by a [`ResidualReview`] the rows went
+/// through as they were produced).
+pub fn analyse_reviewed(observations: &[Observation], market: &[MarketMove], counts: &[CalibrationCounts], residuals: ResidualAnalysis, settings: &StabilitySettings) -> Result<StabilityOutput, StabilityError> {
     let series = analyse_series(observations, market, counts, settings)?;
-    let residuals = review_residuals(residuals, settings);
     let mut all = flags::row_flags(&series.rows, settings);
     all.extend(flags::psi_flags(&series.psi, settings));
     all.extend(flags::break_flags(&series.breaks, settings));

@@ -37,9 +37,9 @@ pub struct CurveResidualRow {
     /// Calibration date.
     pub date: NaiveDate,
     /// Entity identifier.
-    pub entity: String,
+    pub entity: Arc<str>,
     /// Calibration method.
-    pub method: String,
+    pub method: Arc<str>,
     /// Quotes repriced.
     pub n: usize,
     /// sqrt(mean residual_bp^2).
@@ -47,7 +47,7 @@ pub struct CurveResidualRow {
     /// Largest |residual_bp|.
     pub max_abs_bp: f64,
     /// Tenor of the largest |residual_bp|.
-    pub worst_tenor: String,
+    pub worst_tenor: Arc<str>,
     /// Every row of the curve converged.
     pub converged: bool,
     /// Converged and max_abs_bp <= `reprice_tolerance_bp`.
@@ -125,24 +125,58 @@ pub struct ResidualAnalysis {
     pub non_finite: usize,
 }
 
-type CurveKey<'a> = (NaiveDate, &'a str, &'a str);
+/// A curve's residuals summed up as they pass: rows in, sum of squares, the largest |residual|
+/// (a later row wins a tie, as `Iterator::max_by` picks the last maximum) and its tenor.
+struct CurveSums {
+    key: (NaiveDate, Arc<str>, Arc<str>),
+    n: usize,
+    sum_sq: f64,
+    max_abs: f64,
+    worst_tenor: Option<Arc<str>>,
+    converged: bool,
+}
 
-fn curve_row(key: &CurveKey<'_>, rows: &[&ResidualObservation], tolerance_bp: f64) -> CurveResidualRow {
-    let n = rows.len();
-    let rmse_bp = (rows.iter().map(|r| r.residual_bp * r.residual_bp).sum::<f64>() / n as f64).sqrt();
-    let worst = rows.iter().max_by(|a, b| a.residual_bp.abs().total_cmp(&b.residual_bp.abs()));
-    let max_abs_bp = worst.map_or(0.0, |r| r.residual_bp.abs());
-    let converged = rows.iter().all(|r| r.converged);
-    CurveResidualRow {
-        date: key.0,
-        entity: key.1.to_string(),
-        method: key.2.to_string(),
-        n,
-        rmse_bp,
-        max_abs_bp,
-        worst_tenor: worst.map(|r| r.tenor.to_string()).unwrap_or_default(),
-        converged,
-        reprices: converged && max_abs_bp <= tolerance_bp,
+impl CurveSums {
+    fn new(r: &ResidualObservation) -> CurveSums {
+        CurveSums { key: (r.date, r.entity.clone(), r.method.clone()), n: 0, sum_sq: -0.0, max_abs: 0.0, worst_tenor: None, converged: true }
+    }
+
+    fn add(&mut self, r: &ResidualObservation) {
+        self.n += 1;
+        self.sum_sq += r.residual_bp * r.residual_bp;
+        let a = r.residual_bp.abs();
+        if self.worst_tenor.is_none() || a.total_cmp(&self.max_abs).is_ge() {
+            self.max_abs = a;
+            self.worst_tenor = Some(r.tenor.clone());
+        }
+        self.converged &= r.converged;
+    }
+
+    /// The sums of this curve's rows followed by `later`'s.
+    fn absorb(&mut self, later: CurveSums) {
+        self.n += later.n;
+        self.sum_sq += later.sum_sq;
+        if self.worst_tenor.is_none() || later.max_abs.total_cmp(&self.max_abs).is_ge() {
+            self.max_abs = later.max_abs;
+            self.worst_tenor = later.worst_tenor;
+        }
+        self.converged &= later.converged;
+    }
+
+    fn row(self, tolerance_bp: f64) -> CurveResidualRow {
+        let (date, entity, method) = self.key;
+        let max_abs_bp = self.max_abs;
+        CurveResidualRow {
+            date,
+            entity,
+            method,
+            n: self.n,
+            rmse_bp: (self.sum_sq / self.n as f64).sqrt(),
+            max_abs_bp,
+            worst_tenor: self.worst_tenor.unwrap_or_else(|| "".into()),
+            converged: self.converged,
+            reprices: self.converged && max_abs_bp <= tolerance_bp,
+        }
     }
 }
 
@@ -167,62 +201,113 @@ fn tenor_row(method: &str, tenor: &str, residuals: &[f64]) -> TenorResidualRow {
     }
 }
 
-fn worst_rows(rows: &[&ResidualObservation], n: usize) -> Vec<WorstResidualRow> {
-    let order = |a: &ResidualObservation, b: &ResidualObservation| {
-        b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then_with(|| (a.date, &a.entity, &a.method, &a.tenor).cmp(&(b.date, &b.entity, &b.method, &b.tenor)))
-    };
-    // The first n of a stable sort, in one pass.
-    let mut v: Vec<&ResidualObservation> = Vec::with_capacity(n + 1);
-    for &r in rows {
-        keep_first_n(&mut v, r, n, |a, b| order(a, b));
-    }
-    v.into_iter().enumerate().map(|(i, r)| WorstResidualRow { rank: i + 1, residual: r.clone() }).collect()
+/// The order of the worst residuals: largest |residual| first, ties by date, entity, method,
+/// tenor, then by arrival (the first n of a stable sort).
+fn worse(a: &ResidualObservation, b: &ResidualObservation) -> std::cmp::Ordering {
+    b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then_with(|| (a.date, &a.entity, &a.method, &a.tenor).cmp(&(b.date, &b.entity, &b.method, &b.tenor)))
 }
 
 fn repricing_shares(curves: &[CurveResidualRow], tolerance_bp: f64) -> Vec<RepricingShare> {
     let mut acc: BTreeMap<&str, (usize, usize)> = BTreeMap::new();
     for c in curves {
-        let e = acc.entry(&c.method).or_default();
+        let e = acc.entry(&*c.method).or_default();
         e.0 += 1;
         e.1 += usize::from(c.reprices);
     }
     acc.into_iter().map(|(m, (n, k))| RepricingShare { method: m.to_string(), curves: n, repricing: k, share: k as f64 / n as f64, tolerance_bp }).collect()
 }
 
+/// The residual review taken as the rows pass, one at a time, so that no row needs to be kept:
+/// per curve its sums, per (method, tenor) the residuals, the worst rows so far. A curve's rows
+/// usually come together; rows of a curve met again later are added to its sums (their sum of
+/// squares then adds two partial sums, which may differ from one running sum in the last bit).
+pub struct ResidualReview {
+    tolerance_bp: f64,
+    worst_n: usize,
+    current: Option<CurveSums>,
+    curves: Vec<CurveSums>,
+    tenor_index: std::collections::HashMap<(Arc<str>, Arc<str>), usize>,
+    by_tenor: Vec<Vec<f64>>,
+    worst: Vec<ResidualObservation>,
+    non_finite: usize,
+}
+
+impl ResidualReview {
+    pub fn new(settings: &StabilitySettings) -> Self {
+        ResidualReview {
+            tolerance_bp: settings.reprice_tolerance_bp,
+            worst_n: settings.worst_n,
+            current: None,
+            curves: Vec::new(),
+            tenor_index: Default::default(),
+            by_tenor: Vec::new(),
+            worst: Vec::new(),
+            non_finite: 0,
+        }
+    }
+
+    /// Takes one row; a row with a non-finite residual is counted and otherwise left out.
+    pub fn add(&mut self, r: &ResidualObservation) {
+        if !r.residual_bp.is_finite() {
+            self.non_finite += 1;
+            return;
+        }
+        let same = self.current.as_ref().is_some_and(|c| c.key.0 == r.date && c.key.1 == r.entity && c.key.2 == r.method);
+        if !same {
+            self.curves.extend(self.current.take());
+            self.current = Some(CurveSums::new(r));
+        }
+        if let Some(c) = self.current.as_mut() {
+            c.add(r);
+        }
+        let next = self.by_tenor.len();
+        let slot = match self.tenor_index.get(&(r.method.clone(), r.tenor.clone())) {
+            Some(&i) => i,
+            None => {
+                self.tenor_index.insert((r.method.clone(), r.tenor.clone()), next);
+                self.by_tenor.push(Vec::new());
+                next
+            }
+        };
+        self.by_tenor[slot].push(r.residual_bp);
+        let n = self.worst_n;
+        if n > 0 && (self.worst.len() < n || worse(r, &self.worst[n - 1]).is_lt()) {
+            keep_first_n(&mut self.worst, r.clone(), n, worse);
+        }
+    }
+
+    pub fn finish(mut self) -> ResidualAnalysis {
+        self.curves.extend(self.current.take());
+        // Stable: a curve met in several runs keeps its runs in arrival order.
+        self.curves.sort_by(|a, b| a.key.cmp(&b.key));
+        let mut merged: Vec<CurveSums> = Vec::with_capacity(self.curves.len());
+        for c in self.curves {
+            match merged.last_mut() {
+                Some(m) if m.key == c.key => m.absorb(c),
+                _ => merged.push(c),
+            }
+        }
+        let tol = self.tolerance_bp;
+        let curves: Vec<CurveResidualRow> = merged.into_iter().map(|c| c.row(tol)).collect();
+        let mut tenors: Vec<((Arc<str>, Arc<str>), usize)> = self.tenor_index.into_iter().collect();
+        tenors.sort();
+        ResidualAnalysis {
+            tenors: tenors.iter().map(|((m, t), i)| tenor_row(m, t, &self.by_tenor[*i])).collect(),
+            worst: self.worst.into_iter().enumerate().map(|(i, r)| WorstResidualRow { rank: i + 1, residual: r }).collect(),
+            repricing: repricing_shares(&curves, tol),
+            curves,
+            non_finite: self.non_finite,
+        }
+    }
+}
+
 /// Summarises residual rows; rows with a non-finite residual are dropped and counted.
 pub fn review_residuals(rows: &[ResidualObservation], settings: &StabilitySettings) -> ResidualAnalysis {
-    let usable: Vec<&ResidualObservation> = rows.iter().filter(|r| r.residual_bp.is_finite()).collect();
-    // A curve's residuals usually come as consecutive rows: they are grouped as runs first
-    // and the runs put in key order after (a stable sort, so a key met in several runs keeps
-    // its rows in input order), the same groups an ordered map would give without a lookup
-    // per row.
-    let mut runs: Vec<(CurveKey<'_>, Vec<&ResidualObservation>)> = Vec::new();
-    let mut by_tenor: BTreeMap<(&str, &str), Vec<f64>> = BTreeMap::new();
-    for r in &usable {
-        let key = (r.date, &*r.entity, &*r.method);
-        match runs.last_mut() {
-            Some((k, v)) if *k == key => v.push(r),
-            _ => runs.push((key, vec![r])),
-        }
-        by_tenor.entry((&*r.method, &*r.tenor)).or_default().push(r.residual_bp);
+    let mut review = ResidualReview::new(settings);
+    for r in rows {
+        review.add(r);
     }
-    runs.sort_by(|a, b| a.0.cmp(&b.0));
-    let mut by_curve: Vec<(CurveKey<'_>, Vec<&ResidualObservation>)> = Vec::with_capacity(runs.len());
-    for (k, mut v) in runs {
-        match by_curve.last_mut() {
-            Some((k0, v0)) if *k0 == k => v0.append(&mut v),
-            _ => by_curve.push((k, v)),
-        }
-    }
-    let tol = settings.reprice_tolerance_bp;
-    let curves: Vec<CurveResidualRow> = by_curve.iter().map(|(k, v)| curve_row(k, v, tol)).collect();
-    ResidualAnalysis {
-        tenors: by_tenor.iter().map(|((m, t), v)| tenor_row(m, t, v)).collect(),
-        worst: worst_rows(&usable, settings.worst_n),
-        repricing: repricing_shares(&curves, tol),
-        curves,
-        non_finite: rows.len() - usable.len(),
-    }
+    review.finish()
 }
 
 #[cfg(test)]
@@ -259,8 +344,8 @@ mod tests {
         assert_eq!(a.curves, b.curves);
         assert_eq!(a.curves.len(), 2);
         // Ordered by (date, entity, method); Birch's tie of |3| keeps the later row (5Y).
-        assert_eq!((a.curves[0].entity.as_str(), a.curves[1].entity.as_str()), ("Alder", "Birch"));
-        assert_eq!(a.curves[1].worst_tenor, "5Y");
+        assert_eq!((&*a.curves[0].entity, &*a.curves[1].entity), ("Alder", "Birch"));
+        assert_eq!(&*a.curves[1].worst_tenor, "5Y");
         assert_eq!(a.curves[1].n, 2);
     }
 
@@ -278,9 +363,9 @@ mod tests {
         let s = StabilitySettings { worst_n: 2, ..StabilitySettings::default() };
         let r = review_residuals(&rows, &s);
         assert_eq!(r.non_finite, 1);
-        let cir = r.curves.iter().find(|c| c.method == "cir").unwrap();
+        let cir = r.curves.iter().find(|c| &*c.method == "cir").unwrap();
         assert!((cir.rmse_bp - 12.5f64.sqrt()).abs() < 1e-12);
-        assert_eq!((cir.max_abs_bp, cir.worst_tenor.as_str()), (4.0, "5Y"));
+        assert_eq!((cir.max_abs_bp, &*cir.worst_tenor), (4.0, "5Y"));
         let boot = r.repricing.iter().find(|m| m.method == "bootstrap").unwrap();
         assert_eq!((boot.curves, boot.repricing, boot.share), (2, 1, 0.5));
         assert_eq!(r.worst.len(), 2);
