@@ -24,7 +24,7 @@ use crate::ingest::{discount, Dataset, Reject};
 use crate::report::parquet::{write_parquet, RowGroupWriter, TableBuilder};
 use crate::report::readback;
 use crate::report::tables::*;
-use crate::stability::{MarketMove, Observation};
+use crate::stability::{MarketMove, PanelBuilder};
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet, HashSet};
 use std::path::{Path, PathBuf};
@@ -166,7 +166,7 @@ pub struct Partition {
     /// Rows the calibration stages rejected.
     pub rejects: Vec<Reject>,
     /// Curve series of the stability stage.
-    pub curve_obs: Vec<Observation>,
+    pub curve_obs: PanelBuilder,
     pub market: Vec<MarketMove>,
     /// Backtest members per recovery, base first.
     pub members: Vec<(f64, Vec<backtest::Observation>)>,
@@ -371,11 +371,11 @@ pub fn write_partition(folder: PartFolder, sinks: RowSinks, part: Partition, sha
 
     let o = &part.curve_obs;
     let mut df = TableBuilder::new()
-        .strings("series", o.iter().map(|x| Some(&x.series)))
-        .strings("entity", o.iter().map(|x| Some(&x.entity)))
-        .ints("grade", o.iter().map(|x| x.grade.map(i64::from)))
-        .dates("date", o.iter().map(|x| Some(x.date)))
-        .floats("value", o.iter().map(|x| Some(x.value)))
+        .strings("series", o.observations().map(|x| Some(x.series)))
+        .strings("entity", o.observations().map(|x| Some(x.entity)))
+        .ints("grade", o.observations().map(|x| x.grade.map(i64::from)))
+        .dates("date", o.observations().map(|x| Some(x.date)))
+        .floats("value", o.observations().map(|x| Some(x.value)))
         .finish()?;
     write_parquet(&mut df, &work.join("stability_series.parquet"), none)?;
     let m = &part.market;
@@ -475,17 +475,9 @@ pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
     let path = dir.join("stability_series.parquet");
     let df = read_frame(&path)?;
     let (s, e, g, d, v) = (required_labels(&df, &path, "series")?, required_labels(&df, &path, "entity")?, ints(&df, &path, "grade")?, dates(&df, &path, "date")?, floats(&df, &path, "value")?);
-    part.curve_obs = (0..df.height())
-        .map(|i| {
-            Ok(Observation {
-                series: s[i].clone(),
-                entity: e[i].clone(),
-                grade: g[i].map(|x| x as u32),
-                date: d[i].ok_or_else(|| missing(&path, "date", i))?,
-                value: v[i].ok_or_else(|| missing(&path, "value", i))?,
-            })
-        })
-        .collect::<Result<_>>()?;
+    for i in 0..df.height() {
+        part.curve_obs.push(&s[i], &e[i], g[i].map(|x| x as u32), d[i].ok_or_else(|| missing(&path, "date", i))?, v[i].ok_or_else(|| missing(&path, "value", i))?);
+    }
 
     let path = dir.join("stability_market.parquet");
     let df = read_frame(&path)?;

@@ -319,7 +319,7 @@ fn combine(parts: Vec<Partition>) -> Result<Partition> {
         join(&mut all.basis, &mut p.basis);
         join(&mut all.discount, &mut p.discount);
         join(&mut all.rejects, &mut p.rejects);
-        join(&mut all.curve_obs, &mut p.curve_obs);
+        all.curve_obs.append(std::mem::take(&mut p.curve_obs));
         join(&mut all.market, &mut p.market);
         for (k, (r, mut v)) in p.members.into_iter().enumerate() {
             match all.members.get_mut(k) {

@@ -6,7 +6,7 @@ use crate::error::Result;
 use crate::ingest::Dataset;
 use crate::report::parquet::{write_parquet, TableBuilder};
 use crate::report::tables::{HazardCurveRow, IntensityParamRow, ResidualRow};
-use crate::stability::{self, CalibrationCounts, FlagRow, MarketMove, Observation, ResidualAnalysis, ResidualObservation, ResidualReview, StabilityOutput, StabilitySettings};
+use crate::stability::{self, CalibrationCounts, FlagRow, MarketMove, PanelBuilder, ResidualAnalysis, ResidualObservation, ResidualReview, StabilityOutput, StabilitySettings};
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::Path;
@@ -115,7 +115,7 @@ impl Labels {
 
 /// Everything the stability core reads, built from a run's calibration.
 pub struct StabilityInputs {
-    pub observations: Vec<Observation>,
+    pub observations: PanelBuilder,
     pub market: Vec<MarketMove>,
     pub counts: Vec<CalibrationCounts>,
     pub residuals: ResidualAnalysis,
@@ -133,7 +133,7 @@ pub struct CurveSeries<'a> {
     hazard_5y: Arc<str>,
     node_labels: std::collections::HashMap<crate::time::Tenor, Arc<str>>,
     last_spreads: std::collections::HashMap<Arc<str>, BTreeMap<u32, f64>>,
-    observations: Vec<Observation>,
+    observations: PanelBuilder,
     market: Vec<MarketMove>,
 }
 
@@ -141,7 +141,7 @@ impl<'a> CurveSeries<'a> {
     pub fn new(grades: &'a GradeBook, multi: &'a BTreeSet<String>) -> Self {
         let mut labels = Labels::default();
         let (pd_1y, hazard_5y) = (labels.get("pd_1y"), labels.get("hazard_5y"));
-        CurveSeries { grades, multi, labels, pd_1y, hazard_5y, node_labels: Default::default(), last_spreads: Default::default(), observations: Vec::new(), market: Vec::new() }
+        CurveSeries { grades, multi, labels, pd_1y, hazard_5y, node_labels: Default::default(), last_spreads: Default::default(), observations: PanelBuilder::new(), market: Vec::new() }
     }
 
     /// Takes the series of the curve of (`date`, `e`, `c`).
@@ -152,7 +152,7 @@ impl<'a> CurveSeries<'a> {
             let observations = &mut self.observations;
             let mut push = |series: &Arc<str>, value: f64| {
                 if value.is_finite() {
-                    observations.push(Observation { series: series.clone(), entity: entity.clone(), grade, date, value });
+                    observations.push(series, &entity, grade, date, value);
                 }
             };
             push(&self.pd_1y, 1.0 - h.survival_at(1.0));
@@ -175,7 +175,7 @@ impl<'a> CurveSeries<'a> {
     }
 
     /// The curve observations and the market moves.
-    pub fn finish(self) -> (Vec<Observation>, Vec<MarketMove>) {
+    pub fn finish(self) -> (PanelBuilder, Vec<MarketMove>) {
         (self.observations, self.market)
     }
 }
@@ -252,21 +252,18 @@ impl<'a> RowDigest<'a> {
     }
 }
 
-/// Builds the stability core's inputs from the curve series ([`CurveSeries`], concatenated
-/// over partitions in any order: they are put in date and series-entity order here), the CIR
-/// fits (four parameters each) and the digest of the node and residual rows.
-pub fn stability_inputs(mut curve_obs: Vec<Observation>, mut market: Vec<MarketMove>, params: &[IntensityParamRow], grades: &GradeBook, multi: &BTreeSet<String>, digest: RowDigest) -> StabilityInputs {
-    // Stable: the series of one curve keep their order.
-    curve_obs.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
+/// Builds the stability core's inputs from the curve series ([`CurveSeries`]; over partitions,
+/// appended in shard order), the CIR fits (four parameters each, after the curve series) and
+/// the digest of the node and residual rows.
+pub fn stability_inputs(mut observations: PanelBuilder, mut market: Vec<MarketMove>, params: &[IntensityParamRow], grades: &GradeBook, multi: &BTreeSet<String>, digest: RowDigest) -> StabilityInputs {
     market.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
-    let mut observations = curve_obs;
     let mut labels = Labels::default();
     for p in params {
         let entity = labels.entity(multi, &p.entity, &p.currency);
         let grade = grades.grade(&p.entity, p.date);
         for (series, v) in [("cir_kappa", p.kappa), ("cir_theta", p.theta), ("cir_sigma", p.sigma), ("cir_lambda0", p.lambda0)] {
             if let Some(v) = v.filter(|v| v.is_finite()) {
-                observations.push(Observation { series: labels.get(series), entity: entity.clone(), grade, date: p.date, value: v });
+                observations.push(&labels.get(series), &entity, grade, p.date, v);
             }
         }
     }
@@ -276,7 +273,7 @@ pub fn stability_inputs(mut curve_obs: Vec<Observation>, mut market: Vec<MarketM
 
 /// Runs the stability core.
 pub fn run_stability(inputs: StabilityInputs, settings: &StabilitySettings) -> Result<StabilityOutput> {
-    stability::analyse_reviewed(&inputs.observations, &inputs.market, &inputs.counts, inputs.residuals, settings).map_err(|e| crate::error::Error::Other(format!("stability stage: {e}")))
+    stability::analyse_gathered(inputs.observations, &inputs.market, &inputs.counts, inputs.residuals, settings).map_err(|e| crate::error::Error::Other(format!("stability stage: {e}")))
 }
 
 /// Writes `stability`, `stability_bands`, `stability_psi`, `stability_breaks`,

@@ -83,27 +83,91 @@ pub(crate) struct Point {
 /// Date-ordered histories keyed by (series, entity).
 pub(crate) type Panel = BTreeMap<(String, String), Vec<Point>>;
 
+/// The panel built one observation at a time, so the observations need not be kept: each
+/// (series, entity) history collects its points in arrival order; [`PanelBuilder::finish`]
+/// then puts each in date order, keeping the first of a repeated date.
+#[derive(Debug, Clone, Default)]
+pub struct PanelBuilder {
+    index: std::collections::HashMap<(Arc<str>, Arc<str>), usize>,
+    histories: Vec<((Arc<str>, Arc<str>), Vec<Point>)>,
+    non_finite: usize,
+}
+
+impl PanelBuilder {
+    pub fn new() -> Self {
+        Self::default()
+    }
+
+    /// Adds one value of `series` for `entity`; a non-finite value is counted and left out.
+    pub fn push(&mut self, series: &Arc<str>, entity: &Arc<str>, grade: Option<u32>, date: NaiveDate, value: f64) {
+        if !value.is_finite() {
+            self.non_finite += 1;
+            return;
+        }
+        let point = Point { date, value, grade };
+        match self.index.get(&(series.clone(), entity.clone())) {
+            Some(&i) => self.histories[i].1.push(point),
+            None => {
+                self.index.insert((series.clone(), entity.clone()), self.histories.len());
+                self.histories.push(((series.clone(), entity.clone()), vec![point]));
+            }
+        }
+    }
+
+    pub fn push_observation(&mut self, o: &Observation) {
+        self.push(&o.series, &o.entity, o.grade, o.date, o.value);
+    }
+
+    /// Adds everything `later` collected after what this one has.
+    pub fn append(&mut self, later: PanelBuilder) {
+        self.non_finite += later.non_finite;
+        for ((series, entity), points) in later.histories {
+            match self.index.get(&(series.clone(), entity.clone())) {
+                Some(&i) => self.histories[i].1.extend(points),
+                None => {
+                    self.index.insert((series.clone(), entity.clone()), self.histories.len());
+                    self.histories.push(((series, entity), points));
+                }
+            }
+        }
+    }
+
+    /// Observations held.
+    pub fn len(&self) -> usize {
+        self.histories.iter().map(|(_, v)| v.len()).sum()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// Every observation, history by history in arrival order of the histories.
+    pub fn observations(&self) -> impl Iterator<Item = Observation> + '_ {
+        self.histories.iter().flat_map(|((s, e), v)| v.iter().map(move |p| Observation { series: s.clone(), entity: e.clone(), grade: p.grade, date: p.date, value: p.value }))
+    }
+
+    pub(crate) fn finish(self) -> (Panel, InputSummary) {
+        let mut summary = InputSummary { non_finite: self.non_finite, ..InputSummary::default() };
+        let mut panel: Panel = BTreeMap::new();
+        for ((s, e), mut points) in self.histories {
+            let before = points.len();
+            points.sort_by_key(|p| p.date);
+            points.dedup_by_key(|p| p.date);
+            summary.duplicates += before - points.len();
+            summary.used += points.len();
+            panel.insert((s.to_string(), e.to_string()), points);
+        }
+        (panel, summary)
+    }
+}
+
 /// Builds the panel: drops non-finite values and repeated dates (keeping the first in input order).
 pub(crate) fn build_panel(observations: &[Observation]) -> (Panel, InputSummary) {
-    let mut summary = InputSummary::default();
-    // Grouped under borrowed keys first: one owned key per series, not per observation.
-    let mut borrowed: BTreeMap<(&str, &str), Vec<Point>> = BTreeMap::new();
+    let mut b = PanelBuilder::new();
     for o in observations {
-        if !o.value.is_finite() {
-            summary.non_finite += 1;
-            continue;
-        }
-        borrowed.entry((&*o.series, &*o.entity)).or_default().push(Point { date: o.date, value: o.value, grade: o.grade });
+        b.push_observation(o);
     }
-    let mut panel: Panel = borrowed.into_iter().map(|((s, e), v)| ((s.to_string(), e.to_string()), v)).collect();
-    for points in panel.values_mut() {
-        let before = points.len();
-        points.sort_by_key(|p| p.date);
-        points.dedup_by_key(|p| p.date);
-        summary.duplicates += before - points.len();
-        summary.used += points.len();
-    }
-    (panel, summary)
+    b.finish()
 }
 
 /// A move between two consecutive observations of one entity's series.

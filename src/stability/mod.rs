@@ -27,7 +27,7 @@ pub mod summary;
 pub use breaks::{BreakRow, BreakStatus};
 pub use cusum::{CusumLevel, CusumScope, CusumTarget};
 pub use flags::FlagRow;
-pub use inputs::{CalibrationCounts, InputSummary, MarketMove, Observation};
+pub use inputs::{CalibrationCounts, InputSummary, MarketMove, Observation, PanelBuilder};
 pub use metrics::{CrossSectionRow, Scope, StabilityRow, CALIBRATION_SERIES};
 pub use period::{Period, ReviewPeriod};
 pub use population::PsiRow;
@@ -74,7 +74,11 @@ pub struct SeriesAnalysis {
 /// Summarises the parameter series. Errors only on invalid settings.
 pub fn analyse_series(observations: &[Observation], market: &[MarketMove], counts: &[CalibrationCounts], settings: &StabilitySettings) -> Result<SeriesAnalysis, StabilityError> {
     settings.check()?;
-    let (panel, mut input) = inputs::build_panel(observations);
+    analyse_panel(inputs::build_panel(observations), market, counts, settings)
+}
+
+fn analyse_panel((panel, mut input): (inputs::Panel, InputSummary), market: &[MarketMove], counts: &[CalibrationCounts], settings: &StabilitySettings) -> Result<SeriesAnalysis, StabilityError> {
+    settings.check()?;
     let (market_rel, unusable) = inputs::market_by_period(market, settings);
     input.market_unusable = unusable;
     let counts = inputs::counts_by_period(counts, settings);
@@ -125,13 +129,18 @@ impl StabilityOutput {
 
 /// Runs the whole stage: series summaries, residual review, and every flag.
 pub fn analyse(observations: &[Observation], market: &[MarketMove], counts: &[CalibrationCounts], residuals: &[ResidualObservation], settings: &StabilitySettings) -> Result<StabilityOutput, StabilityError> {
-    analyse_reviewed(observations, market, counts, review_residuals(residuals, settings), settings)
+    settings.check()?;
+    let mut panel = PanelBuilder::new();
+    for o in observations {
+        panel.push_observation(o);
+    }
+    analyse_gathered(panel, market, counts, review_residuals(residuals, settings), settings)
 }
 
-/// [`analyse`] with the residuals already reviewed (by a [`ResidualReview`] the rows went
-/// through as they were produced).
-pub fn analyse_reviewed(observations: &[Observation], market: &[MarketMove], counts: &[CalibrationCounts], residuals: ResidualAnalysis, settings: &StabilitySettings) -> Result<StabilityOutput, StabilityError> {
-    let series = analyse_series(observations, market, counts, settings)?;
+/// [`analyse`] on observations gathered as they were produced ([`PanelBuilder`]) and residuals
+/// already reviewed (by a [`ResidualReview`] the rows went through as they passed).
+pub fn analyse_gathered(observations: PanelBuilder, market: &[MarketMove], counts: &[CalibrationCounts], residuals: ResidualAnalysis, settings: &StabilitySettings) -> Result<StabilityOutput, StabilityError> {
+    let series = analyse_panel(observations.finish(), market, counts, settings)?;
     let mut all = flags::row_flags(&series.rows, settings);
     all.extend(flags::psi_flags(&series.psi, settings));
     all.extend(flags::break_flags(&series.breaks, settings));
