@@ -263,17 +263,32 @@ pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &Calibration
     let mut coverage = CurveCoverage::default();
     let mut kept = BTreeMap::new();
     let mut cal = if cfg.cds_bootstrap {
-        calibrate_blocks(ds, params, |block| {
-            sinks.nodes(block.hazard)?;
-            sinks.residual_rows(block.residuals)?;
-            for (key, curve) in block.curves {
-                coverage.add(key.0, &key.1);
-                series.add(key.0, &key.1, &key.2, &curve);
-                if (backtest && serves(key.0)) || for_fits.wants(&key) {
-                    kept.insert(key, curve);
+        // Calibration (on rayon's threads) and the handling of its finished blocks (writing,
+        // digest, series: serial work) overlap: a second thread takes each block from a channel
+        // that holds one, so at most three blocks are alive at once.
+        let (tx, rx) = std::sync::mpsc::sync_channel::<crate::commands::calibrate::CurveBlock>(1);
+        let (series, coverage, kept) = (&mut series, &mut coverage, &mut kept);
+        let (serves, for_fits) = (&serves, &for_fits);
+        std::thread::scope(|scope| {
+            let consumer = scope.spawn(move || -> Result<()> {
+                for block in rx {
+                    sinks.nodes(block.hazard)?;
+                    sinks.residual_rows(block.residuals)?;
+                    for (key, curve) in block.curves {
+                        coverage.add(key.0, &key.1);
+                        series.add(key.0, &key.1, &key.2, &curve);
+                        if (backtest && serves(key.0)) || for_fits.wants(&key) {
+                            kept.insert(key, curve);
+                        }
+                    }
                 }
-            }
-            Ok(())
+                Ok(())
+            });
+            let cal = calibrate_blocks(ds, params, move |block| tx.send(block).map_err(|_| Error::Other("the writer of the calibrated curves stopped".into())));
+            let consumed = consumer.join().map_err(|_| Error::Other("the writer of the calibrated curves failed; this is a bug, please report it".into()))?;
+            // The writer's own error says more than the calibration's "writer stopped".
+            consumed?;
+            cal
         })?
     } else {
         Default::default()
@@ -448,13 +463,61 @@ fn required_labels(df: &polars::prelude::DataFrame, path: &Path, name: &str) -> 
     readback::labels(df, path, name)
 }
 
-/// Reads a partition folder written by [`write_partition`].
+/// Streams the node and residual rows of the parts in `dirs` (shard order) into `sinks`: the
+/// CDS rows, which every part holds first and in the tables' order, by a k-way merge on (date,
+/// entity, currency) that keeps a curve's rows together, read a slice at a time; the rows
+/// after them (the bond and CIR fits') are returned, for [`RowSinks::finish`] to sort in.
+pub fn merge_part_rows(dirs: &[PathBuf], sinks: &mut RowSinks) -> Result<(Vec<HazardCurveRow>, Vec<ResidualRow>)> {
+    let cursors = dirs.iter().map(|d| readback::hazard_cursor(&d.join("hazard_curves.parquet"))).collect::<Result<Vec<_>>>()?;
+    let hazard = merge_sorted(cursors, |r| r.source == "cds", |r| (r.date, r.entity.clone(), r.currency.clone()), |rows| sinks.nodes(rows))?;
+    let cursors = dirs.iter().map(|d| readback::residual_cursor(&d.join("calibration_residuals.parquet"))).collect::<Result<Vec<_>>>()?;
+    let residuals = merge_sorted(cursors, |r| r.method == "bootstrap", |r| (r.date, r.entity.clone(), r.currency.clone()), |rows| sinks.residual_rows(rows))?;
+    Ok((hazard, residuals))
+}
+
+/// Rows handed on at a time by [`merge_sorted`].
+const MERGED_ROWS: usize = 1 << 16;
+
+/// Merges the leading rows (`leads`) of sorted cursors by `key` into `emit`, a run of equal
+/// keys at a time (ties go to the earlier cursor, as a stable sort of the concatenation would
+/// have it); returns every row after the leading ones, cursor by cursor.
+fn merge_sorted<T, K: Ord>(mut cursors: Vec<readback::RowCursor<T>>, leads: impl Fn(&T) -> bool, key: impl Fn(&T) -> K, mut emit: impl FnMut(Vec<T>) -> Result<()>) -> Result<Vec<T>> {
+    let mut out = Vec::with_capacity(MERGED_ROWS);
+    loop {
+        let mut best: Option<(usize, K)> = None;
+        for (i, c) in cursors.iter_mut().enumerate() {
+            if let Some(r) = c.peek()?.filter(|r| leads(r)) {
+                let k = key(r);
+                if best.as_ref().is_none_or(|(_, b)| k < *b) {
+                    best = Some((i, k));
+                }
+            }
+        }
+        let Some((i, k)) = best else { break };
+        while cursors[i].peek()?.is_some_and(|r| leads(r) && key(r) == k) {
+            out.extend(cursors[i].next_row()?);
+        }
+        if out.len() >= MERGED_ROWS {
+            emit(std::mem::replace(&mut out, Vec::with_capacity(MERGED_ROWS)))?;
+        }
+    }
+    emit(out)?;
+    let mut rest = Vec::new();
+    for c in cursors.iter_mut() {
+        while let Some(r) = c.next_row()? {
+            rest.push(r);
+        }
+    }
+    Ok(rest)
+}
+
+/// Reads a partition folder written by [`write_partition`] (all but its node and residual
+/// rows, see [`merge_part_rows`]).
 pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
     use readback::{dates, floats, ints, read_frame, strs};
     let meta = read_meta(dir)?;
+    // The node and residual rows stay on disk: `merge_part_rows` streams them.
     let mut part = Partition {
-        hazard: readback::hazard_curves(&dir.join("hazard_curves.parquet"))?,
-        residuals: readback::residuals(&dir.join("calibration_residuals.parquet"))?,
         params: readback::intensity_params(&dir.join("intensity_params.parquet"))?,
         basis: readback::basis(&dir.join("cds_bond_basis.parquet"))?,
         discount: readback::discount_curves(&dir.join("discount_curves.parquet"))?,
@@ -574,5 +637,62 @@ mod tests {
         // Spread: 4 shards of 2,000 names each get between 400 and 600.
         let counts: Vec<usize> = (1..=4).map(|i| (0..2000).filter(|k| Shard { index: i, count: 4 }.owns(&format!("N{k:05}"))).count()).collect();
         assert!(counts.iter().all(|&c| (400..=600).contains(&c)), "{counts:?}");
+    }
+
+    fn node(day: u32, entity: &str, source: &'static str, tenor: &str) -> HazardCurveRow {
+        let date = NaiveDate::from_ymd_opt(2024, 5, day).unwrap();
+        HazardCurveRow {
+            date,
+            entity: entity.into(),
+            currency: "EUR".into(),
+            source,
+            tenor: tenor.into(),
+            maturity: date,
+            node_date: date,
+            hazard: Some(f64::from(day) / 100.0),
+            survival: None,
+            status: "ok",
+            recovery: 0.4,
+            iterations: 3,
+            detail: None,
+        }
+    }
+
+    #[test]
+    fn merging_parts_gives_the_order_of_one_sort() {
+        // Three parts, each with its CDS curves in (date, entity) order and then its bond
+        // nodes; entity names spread over the parts. The merged CDS rows, then the sorted rest,
+        // must be the concatenation put through the table's own stable sort.
+        let dir = tempfile::tempdir().unwrap();
+        let names = [["Ash", "Fir"], ["Beech", "Oak"], ["Cedar", "Yew"]];
+        let mut all = Vec::new();
+        let mut dirs = Vec::new();
+        for (k, pair) in names.iter().enumerate() {
+            let mut rows = Vec::new();
+            for day in [2, 3, 6, 7] {
+                for e in pair {
+                    if (day + k as u32) % 5 != 0 {
+                        rows.extend(["1Y", "5Y", "10Y"].iter().map(|t| node(day, e, "cds", t)));
+                    }
+                }
+            }
+            rows.push(node(3, pair[1], "bond", "bond"));
+            rows.push(node(2, pair[0], "bond", "bond"));
+            rows.sort_by(|a, b| (a.source != "cds").cmp(&(b.source != "cds")));
+            let d = dir.path().join(format!("part-{k}"));
+            let mut w = hazard_writer(&d.join("hazard_curves.parquet"), &[]).unwrap();
+            w.push(rows.iter().cloned()).unwrap();
+            w.finish().unwrap();
+            residual_writer(&d.join("calibration_residuals.parquet"), &[]).unwrap().finish().unwrap();
+            all.extend(rows);
+            dirs.push(d);
+        }
+        let out = dir.path().join("out");
+        let mut sinks = RowSinks::create(&out, &[], None).unwrap();
+        let (rest, residuals) = merge_part_rows(&dirs, &mut sinks).unwrap();
+        assert_eq!((rest.len(), residuals.len()), (6, 0));
+        sinks.finish(rest, residuals).unwrap();
+        sort_hazard(&mut all);
+        assert_eq!(readback::hazard_curves(&out.join("hazard_curves.parquet")).unwrap(), all);
     }
 }

@@ -15,7 +15,7 @@ use crate::commands::backtest::{backtest_from_members, first_defaults, write_bac
 use crate::commands::calibrate::{metadata, CalibrationParams};
 use crate::commands::review::{multi_currency, quality_flags, run_stability, stability_inputs, write_flags, write_stability_tables, AnyFlag, GradeBook, RowDigest};
 use crate::ingest::Dataset;
-use crate::partition::{compute_partition, keep_shard, read_partition, write_partition, PartFolder, Partition, RowSinks, Shard, StageTiming};
+use crate::partition::{compute_partition, keep_shard, merge_part_rows, read_partition, write_partition, PartFolder, Partition, RowSinks, Shard, StageTiming};
 use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::{load, TableCounts};
@@ -242,19 +242,23 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let label = run_label(cfg, opts, period);
     let t = Instant::now();
     let dir = shards_dir(cfg, opts, &label);
-    let parts = read_parts(&dir, &cfg.pipeline_path)?;
-    let cal = combine(parts)?;
+    let (dirs, parts) = read_parts(&dir, &cfg.pipeline_path)?;
+    let mut cal = combine(parts)?;
     let (rss, peak) = memory_mib();
     timings.push(("read parts".into(), t.elapsed().as_secs_f64(), rss, peak));
     let params = calibration_params(cfg);
     let folder = RunFolder::create(cfg, opts, period)?;
     let meta = table_metadata(cfg, &params);
     let multi: BTreeSet<String> = cal.multi_currency.iter().cloned().collect();
-    let sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)))?;
+    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)))?;
+    let t = Instant::now();
+    (cal.hazard, cal.residuals) = merge_part_rows(&dirs, &mut sinks)?;
+    let (rss, peak) = memory_mib();
+    timings.push(("merge curves".into(), t.elapsed().as_secs_f64(), rss, peak));
     finish(cfg, ds, ingest_counts, cal, sinks, &multi, folder, &meta, timings, t0)
 }
 
-fn read_parts(dir: &Path, pipeline: &Path) -> Result<Vec<Partition>> {
+fn read_parts(dir: &Path, pipeline: &Path) -> Result<(Vec<PathBuf>, Vec<Partition>)> {
     let bad = |message: String| Error::Argument { name: "merge", message };
     let entries = std::fs::read_dir(dir).map_err(|e| bad(format!("no shard parts at {}: {e}; run `hazardline run PIPELINE --shard I/N` for every shard first", dir.display())))?;
     let mut folders: Vec<PathBuf> = entries
@@ -292,7 +296,9 @@ fn read_parts(dir: &Path, pipeline: &Path) -> Result<Vec<Partition>> {
     }
     let mut by_index: Vec<(u32, PathBuf)> = metas.iter().map(|m| m.shard).zip(folders).collect();
     by_index.sort();
-    by_index.into_iter().map(|(_, f)| read_partition(&f).map(|(_, p)| p)).collect()
+    let dirs: Vec<PathBuf> = by_index.into_iter().map(|(_, f)| f).collect();
+    let parts = dirs.iter().map(|f| read_partition(f).map(|(_, p)| p)).collect::<Result<Vec<_>>>()?;
+    Ok((dirs, parts))
 }
 
 /// The rows of every part, in one canonical order (a curve's rows stay in their order: each

@@ -138,6 +138,57 @@ pub fn for_each_slice(path: &Path, mut f: impl FnMut(&DataFrame) -> Result<()>) 
     }
 }
 
+/// The rows of a large table read in order, [`SLICE_ROWS`] at a time, as they are asked for.
+pub struct RowCursor<T> {
+    path: std::path::PathBuf,
+    rows: usize,
+    offset: usize,
+    read: fn(&DataFrame, &Path) -> Result<Vec<T>>,
+    buffer: std::collections::VecDeque<T>,
+}
+
+impl<T> RowCursor<T> {
+    fn open(path: &Path, read: fn(&DataFrame, &Path) -> Result<Vec<T>>) -> Result<Self> {
+        let file = std::fs::File::open(path).map_err(|e| Error::Read { path: path.to_path_buf(), format: "Parquet", message: e.to_string() })?;
+        let rows = ParquetReader::new(file).num_rows().map_err(|e| Error::Read { path: path.to_path_buf(), format: "Parquet", message: e.to_string() })?;
+        Ok(RowCursor { path: path.to_path_buf(), rows, offset: 0, read, buffer: Default::default() })
+    }
+
+    fn fill(&mut self) -> Result<()> {
+        if self.buffer.is_empty() && self.offset < self.rows {
+            let failed = |e: &dyn std::fmt::Display| Error::Read { path: self.path.clone(), format: "Parquet", message: e.to_string() };
+            let len = SLICE_ROWS.min(self.rows - self.offset);
+            let file = std::fs::File::open(&self.path).map_err(|e| failed(&e))?;
+            let df = ParquetReader::new(file).with_slice(Some((self.offset, len))).finish().map_err(|e| failed(&e))?;
+            self.buffer.extend((self.read)(&df, &self.path)?);
+            self.offset += len;
+        }
+        Ok(())
+    }
+
+    /// The next row, without taking it.
+    pub fn peek(&mut self) -> Result<Option<&T>> {
+        self.fill()?;
+        Ok(self.buffer.front())
+    }
+
+    /// Takes the next row.
+    pub fn next_row(&mut self) -> Result<Option<T>> {
+        self.fill()?;
+        Ok(self.buffer.pop_front())
+    }
+}
+
+/// A hazard_curves table's rows, read as they are asked for.
+pub fn hazard_cursor(path: &Path) -> Result<RowCursor<HazardCurveRow>> {
+    RowCursor::open(path, hazard_rows)
+}
+
+/// A calibration_residuals table's rows, read as they are asked for.
+pub fn residual_cursor(path: &Path) -> Result<RowCursor<ResidualRow>> {
+    RowCursor::open(path, residual_rows)
+}
+
 /// Reads a hazard_curves table back.
 pub fn hazard_curves(path: &Path) -> Result<Vec<HazardCurveRow>> {
     hazard_rows(&read_frame(path)?, path)
