@@ -186,7 +186,11 @@ impl<'a> CurveSeries<'a> {
 pub struct RowDigest<'a> {
     labels: Labels,
     multi: &'a BTreeSet<String>,
-    counts: BTreeMap<(Arc<str>, NaiveDate), (u64, u64)>,
+    /// Per series entity (by the label's address: `labels` hands out one label per text and
+    /// holds it), its curves' (date, failures, infeasible) in arrival order.
+    counts: crate::ingest::FastMap<usize, (Arc<str>, Vec<(NaiveDate, u64, u64)>)>,
+    /// Labels of the rows' fixed texts (method, instrument), by the text's address and length.
+    fixed: crate::ingest::FastMap<(usize, usize), Arc<str>>,
     /// The curve whose consecutive nodes are being counted.
     run: Option<((Arc<str>, NaiveDate), (u64, u64))>,
     review: ResidualReview,
@@ -194,12 +198,12 @@ pub struct RowDigest<'a> {
 
 impl<'a> RowDigest<'a> {
     pub fn new(multi: &'a BTreeSet<String>, settings: &StabilitySettings) -> Self {
-        RowDigest { labels: Labels::default(), multi, counts: BTreeMap::new(), run: None, review: ResidualReview::new(settings) }
+        RowDigest { labels: Labels::default(), multi, counts: Default::default(), fixed: Default::default(), run: None, review: ResidualReview::new(settings) }
     }
 
     /// Counts the statuses of CDS node rows. A curve's nodes are consecutive rows: they are
-    /// counted together and merged into the map once per curve (a key met again later is
-    /// merged with what it had).
+    /// counted together and recorded once per curve (a curve met again later is merged with
+    /// what it had at [`RowDigest::finish`]).
     pub fn nodes(&mut self, hazard: &[HazardCurveRow]) {
         for r in hazard.iter().filter(|r| r.source == "cds") {
             let entity = self.labels.entity_of(self.multi, &r.entity, &r.currency);
@@ -219,21 +223,23 @@ impl<'a> RowDigest<'a> {
     }
 
     fn end_run(&mut self) {
-        if let Some((k, (f, i))) = self.run.take() {
-            let slot = self.counts.entry(k).or_insert((0, 0));
-            slot.0 = slot.0.max(f);
-            slot.1 += i;
+        if let Some(((entity, date), (f, i))) = self.run.take() {
+            let address = Arc::as_ptr(&entity) as *const u8 as usize;
+            self.counts.entry(address).or_insert_with(|| (entity, Vec::new())).1.push((date, f, i));
         }
     }
 
     /// Reviews repricing residuals.
     pub fn residuals(&mut self, residuals: &[ResidualRow]) {
         for r in residuals {
+            let (labels, fixed) = (&mut self.labels, &mut self.fixed);
+            let mut get = |v: &'static str| fixed.entry((v.as_ptr() as usize, v.len())).or_insert_with(|| labels.get(v)).clone();
+            let (method, instrument) = (get(r.method), get(r.instrument));
             let o = ResidualObservation {
                 date: r.date,
                 entity: self.labels.entity_of(self.multi, &r.entity, &r.currency),
-                method: self.labels.get(r.method),
-                instrument: self.labels.get(r.instrument),
+                method,
+                instrument,
                 tenor: r.tenor_or_bond.clone(),
                 market: r.market,
                 model: r.model,
@@ -244,10 +250,26 @@ impl<'a> RowDigest<'a> {
         }
     }
 
-    /// The counts per curve, in (series entity, date) order, and the residual review.
+    /// The counts per curve, in (series entity, date) order (a curve met more than once: the
+    /// failure flag of any, the infeasible nodes of all), and the residual review.
     pub fn finish(mut self) -> (Vec<CalibrationCounts>, ResidualAnalysis) {
         self.end_run();
-        let counts = self.counts.into_iter().map(|((entity, date), (failures, infeasible))| CalibrationCounts { entity, date, failures, infeasible }).collect();
+        let mut entities: Vec<(Arc<str>, Vec<(NaiveDate, u64, u64)>)> = self.counts.into_values().collect();
+        entities.sort_by(|a, b| a.0.cmp(&b.0));
+        let mut counts = Vec::with_capacity(entities.iter().map(|(_, v)| v.len()).sum());
+        for (entity, mut curves) in entities {
+            curves.sort_by_key(|c| c.0);
+            let start = counts.len();
+            for (date, failures, infeasible) in curves {
+                match counts[start..].last_mut() {
+                    Some(CalibrationCounts { date: d, failures: f, infeasible: i, .. }) if *d == date => {
+                        *f = (*f).max(failures);
+                        *i += infeasible;
+                    }
+                    _ => counts.push(CalibrationCounts { entity: entity.clone(), date, failures, infeasible }),
+                }
+            }
+        }
         (counts, self.review.finish())
     }
 }

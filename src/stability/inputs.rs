@@ -89,6 +89,11 @@ pub(crate) type Panel = BTreeMap<(String, String), Vec<Point>>;
 #[derive(Debug, Clone, Default)]
 pub struct PanelBuilder {
     index: std::collections::HashMap<(Arc<str>, Arc<str>), usize>,
+    /// The same index by the labels' addresses, for labels shared between observations (the
+    /// usual case): no hashing of the text. Every label whose address is a key is held in
+    /// `pinned`, so no address is freed and reused for other text while it is a key.
+    by_address: crate::ingest::FastMap<(usize, usize), usize>,
+    pinned: Vec<(Arc<str>, Arc<str>)>,
     histories: Vec<((Arc<str>, Arc<str>), Vec<Point>)>,
     non_finite: usize,
 }
@@ -105,11 +110,25 @@ impl PanelBuilder {
             return;
         }
         let point = Point { date, value, grade };
+        let address = (Arc::as_ptr(series) as *const u8 as usize, Arc::as_ptr(entity) as *const u8 as usize);
+        if let Some(&i) = self.by_address.get(&address) {
+            self.histories[i].1.push(point);
+            return;
+        }
+        let i = self.slot(series, entity);
+        self.histories[i].1.push(point);
+        self.by_address.insert(address, i);
+        self.pinned.push((series.clone(), entity.clone()));
+    }
+
+    /// The history of (series, entity), by text, made when new.
+    fn slot(&mut self, series: &Arc<str>, entity: &Arc<str>) -> usize {
         match self.index.get(&(series.clone(), entity.clone())) {
-            Some(&i) => self.histories[i].1.push(point),
+            Some(&i) => i,
             None => {
                 self.index.insert((series.clone(), entity.clone()), self.histories.len());
-                self.histories.push(((series.clone(), entity.clone()), vec![point]));
+                self.histories.push(((series.clone(), entity.clone()), Vec::new()));
+                self.histories.len() - 1
             }
         }
     }
@@ -122,13 +141,8 @@ impl PanelBuilder {
     pub fn append(&mut self, later: PanelBuilder) {
         self.non_finite += later.non_finite;
         for ((series, entity), points) in later.histories {
-            match self.index.get(&(series.clone(), entity.clone())) {
-                Some(&i) => self.histories[i].1.extend(points),
-                None => {
-                    self.index.insert((series.clone(), entity.clone()), self.histories.len());
-                    self.histories.push(((series, entity), points));
-                }
-            }
+            let i = self.slot(&series, &entity);
+            self.histories[i].1.extend(points);
         }
     }
 

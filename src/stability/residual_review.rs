@@ -227,6 +227,10 @@ pub struct ResidualReview {
     current: Option<CurveSums>,
     curves: Vec<CurveSums>,
     tenor_index: std::collections::HashMap<(Arc<str>, Arc<str>), usize>,
+    /// `tenor_index` by the labels' addresses (labels are shared between rows), each label
+    /// held in `pinned` so that its address is not reused while it is a key.
+    tenor_by_address: crate::ingest::FastMap<(usize, usize), usize>,
+    pinned: Vec<(Arc<str>, Arc<str>)>,
     by_tenor: Vec<Vec<f64>>,
     worst: Vec<ResidualObservation>,
     non_finite: usize,
@@ -240,6 +244,8 @@ impl ResidualReview {
             current: None,
             curves: Vec::new(),
             tenor_index: Default::default(),
+            tenor_by_address: Default::default(),
+            pinned: Vec::new(),
             by_tenor: Vec::new(),
             worst: Vec::new(),
             non_finite: 0,
@@ -260,13 +266,18 @@ impl ResidualReview {
         if let Some(c) = self.current.as_mut() {
             c.add(r);
         }
-        let next = self.by_tenor.len();
-        let slot = match self.tenor_index.get(&(r.method.clone(), r.tenor.clone())) {
+        let address = (Arc::as_ptr(&r.method) as *const u8 as usize, Arc::as_ptr(&r.tenor) as *const u8 as usize);
+        let slot = match self.tenor_by_address.get(&address) {
             Some(&i) => i,
             None => {
-                self.tenor_index.insert((r.method.clone(), r.tenor.clone()), next);
-                self.by_tenor.push(Vec::new());
-                next
+                let next = self.by_tenor.len();
+                let i = *self.tenor_index.entry((r.method.clone(), r.tenor.clone())).or_insert(next);
+                if i == next {
+                    self.by_tenor.push(Vec::new());
+                }
+                self.tenor_by_address.insert(address, i);
+                self.pinned.push((r.method.clone(), r.tenor.clone()));
+                i
             }
         };
         self.by_tenor[slot].push(r.residual_bp);
