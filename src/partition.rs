@@ -21,7 +21,7 @@ use crate::commands::review::{CurveSeries, GradeBook, RowDigest};
 use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::{discount, Dataset, Reject};
-use crate::report::parquet::{write_parquet, RowGroupWriter, TableBuilder};
+use crate::report::parquet::{write_parquet, TableBuilder, WriterThread};
 use crate::report::readback;
 use crate::report::tables::*;
 use crate::stability::{MarketMove, PanelBuilder};
@@ -204,16 +204,19 @@ pub fn sort_residuals(rows: &mut [ResidualRow]) {
 /// order; then the rest, sorted, at [`RowSinks::finish`]), and digested for the stability
 /// stage on the way when this is a whole run.
 pub struct RowSinks<'a> {
-    hazard: RowGroupWriter<HazardCurveRow>,
-    residuals: RowGroupWriter<ResidualRow>,
+    hazard: WriterThread<HazardCurveRow>,
+    residuals: WriterThread<ResidualRow>,
     /// None for a shard's part: the merge digests the rows it reads back.
     digest: Option<RowDigest<'a>>,
 }
 
 impl<'a> RowSinks<'a> {
-    /// Starts `hazard_curves.parquet` and `calibration_residuals.parquet` in `dir`.
+    /// Starts `hazard_curves.parquet` and `calibration_residuals.parquet` in `dir`, each
+    /// written on a thread of its own.
     pub fn create(dir: &Path, meta: &[(String, String)], digest: Option<RowDigest<'a>>) -> Result<Self> {
-        Ok(RowSinks { hazard: hazard_writer(&dir.join("hazard_curves.parquet"), meta)?, residuals: residual_writer(&dir.join("calibration_residuals.parquet"), meta)?, digest })
+        let hazard = WriterThread::spawn(hazard_writer(&dir.join("hazard_curves.parquet"), meta)?);
+        let residuals = WriterThread::spawn(residual_writer(&dir.join("calibration_residuals.parquet"), meta)?);
+        Ok(RowSinks { hazard, residuals, digest })
     }
 
     /// Node rows, in the table's order, after those already given.

@@ -170,6 +170,65 @@ impl<T> Drop for RowGroupWriter<T> {
     }
 }
 
+enum ToWriter<T> {
+    Rows(Vec<T>),
+    Finish,
+}
+
+/// A [`RowGroupWriter`] on a thread of its own, so that encoding and compressing a table
+/// overlaps with whatever produces its rows. Rows go over a channel that holds two batches;
+/// dropped unfinished (an error elsewhere), the thread drops its writer, which removes the
+/// temporary file.
+pub struct WriterThread<T> {
+    tx: Option<std::sync::mpsc::SyncSender<ToWriter<T>>>,
+    handle: Option<std::thread::JoinHandle<Result<usize>>>,
+}
+
+impl<T: Send + 'static> WriterThread<T> {
+    pub fn spawn(mut writer: RowGroupWriter<T>) -> Self {
+        let (tx, rx) = std::sync::mpsc::sync_channel::<ToWriter<T>>(2);
+        let handle = std::thread::spawn(move || -> Result<usize> {
+            for message in rx {
+                match message {
+                    ToWriter::Rows(rows) => writer.push(rows)?,
+                    ToWriter::Finish => return writer.finish(),
+                }
+            }
+            Err(Error::Other("a table's writer was stopped before the table was finished".into()))
+        });
+        WriterThread { tx: Some(tx), handle: Some(handle) }
+    }
+
+    /// The writer thread's own error, once it has stopped.
+    fn stopped(&mut self) -> Error {
+        self.tx = None;
+        match self.handle.take().map(|h| h.join()) {
+            Some(Ok(Err(e))) => e,
+            _ => Error::Other("a table's writer stopped unexpectedly; this is a bug, please report it".into()),
+        }
+    }
+
+    /// Adds rows at the end of the table.
+    pub fn push(&mut self, rows: Vec<T>) -> Result<()> {
+        let sent = self.tx.as_ref().is_some_and(|tx| tx.send(ToWriter::Rows(rows)).is_ok());
+        if sent {
+            Ok(())
+        } else {
+            Err(self.stopped())
+        }
+    }
+
+    /// Finishes the table (see [`RowGroupWriter::finish`]) and returns its number of rows.
+    pub fn finish(mut self) -> Result<usize> {
+        let sent = self.tx.take().is_some_and(|tx| tx.send(ToWriter::Finish).is_ok());
+        let joined = self.handle.take().map(|h| h.join());
+        match (sent, joined) {
+            (_, Some(Ok(r))) => r,
+            _ => Err(Error::Other("a table's writer stopped unexpectedly; this is a bug, please report it".into())),
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
