@@ -22,6 +22,7 @@ use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::{discount, Dataset, Reject};
 use crate::report::parquet::{write_parquet, TableBuilder, WriterThread};
+use crate::report::markdown::{NodeFold, ResidualFold};
 use crate::report::readback;
 use crate::report::tables::*;
 use crate::stability::{MarketMove, PanelBuilder};
@@ -204,18 +205,20 @@ pub fn sort_residuals(rows: &mut [ResidualRow]) {
 /// order; then the rest, sorted, at [`RowSinks::finish`]), and digested for the stability
 /// stage on the way when this is a whole run.
 pub struct RowSinks<'a> {
-    hazard: WriterThread<HazardCurveRow>,
-    residuals: WriterThread<ResidualRow>,
+    hazard: WriterThread<HazardCurveRow, Option<NodeFold>>,
+    residuals: WriterThread<ResidualRow, Option<ResidualFold>>,
     /// None for a shard's part: the merge digests the rows it reads back.
     digest: Option<RowDigest<'a>>,
 }
 
 impl<'a> RowSinks<'a> {
     /// Starts `hazard_curves.parquet` and `calibration_residuals.parquet` in `dir`, each
-    /// written on a thread of its own.
-    pub fn create(dir: &Path, meta: &[(String, String)], digest: Option<RowDigest<'a>>) -> Result<Self> {
-        let hazard = WriterThread::spawn(hazard_writer(&dir.join("hazard_curves.parquet"), meta)?);
-        let residuals = WriterThread::spawn(residual_writer(&dir.join("calibration_residuals.parquet"), meta)?);
+    /// written on a thread of its own; `report`: what the report takes from them is gathered
+    /// on the way (a whole run; none for a shard's part).
+    pub fn create(dir: &Path, meta: &[(String, String)], digest: Option<RowDigest<'a>>, report: Option<(NodeFold, ResidualFold)>) -> Result<Self> {
+        let (nodes, residuals) = report.map_or((None, None), |(a, b)| (Some(a), Some(b)));
+        let hazard = WriterThread::spawn(hazard_writer(&dir.join("hazard_curves.parquet"), meta)?, nodes);
+        let residuals = WriterThread::spawn(residual_writer(&dir.join("calibration_residuals.parquet"), meta)?, residuals);
         Ok(RowSinks { hazard, residuals, digest })
     }
 
@@ -236,16 +239,16 @@ impl<'a> RowSinks<'a> {
     }
 
     /// Appends `hazard` and `residuals` in the tables' order ([`sort_hazard`],
-    /// [`sort_residuals`]) and closes both tables; returns the digest.
-    pub fn finish(mut self, mut hazard: Vec<HazardCurveRow>, mut residuals: Vec<ResidualRow>) -> Result<Option<RowDigest<'a>>> {
+    /// [`sort_residuals`]) and closes both tables; returns the digest and the report's folds.
+    pub fn finish(mut self, mut hazard: Vec<HazardCurveRow>, mut residuals: Vec<ResidualRow>) -> Result<(Option<RowDigest<'a>>, Option<(NodeFold, ResidualFold)>)> {
         sort_hazard(&mut hazard);
         sort_residuals(&mut residuals);
         self.nodes(hazard)?;
         self.residual_rows(residuals)?;
         let RowSinks { hazard, residuals, digest } = self;
-        hazard.finish()?;
-        residuals.finish()?;
-        Ok(digest)
+        let (_, nodes) = hazard.finish()?;
+        let (_, residuals) = residuals.finish()?;
+        Ok((digest, nodes.zip(residuals)))
     }
 }
 
@@ -367,7 +370,7 @@ impl PartFolder {
 
     /// The sinks of the part's node and residual rows (no digest: the merge digests them).
     pub fn sinks<'a>(&self) -> Result<RowSinks<'a>> {
-        RowSinks::create(&self.work, &[], None)
+        RowSinks::create(&self.work, &[], None, None)
     }
 }
 
@@ -691,7 +694,7 @@ mod tests {
             dirs.push(d);
         }
         let out = dir.path().join("out");
-        let mut sinks = RowSinks::create(&out, &[], None).unwrap();
+        let mut sinks = RowSinks::create(&out, &[], None, None).unwrap();
         let (rest, residuals) = merge_part_rows(&dirs, &mut sinks).unwrap();
         assert_eq!((rest.len(), residuals.len()), (6, 0));
         sinks.finish(rest, residuals).unwrap();

@@ -20,7 +20,7 @@ use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::{load, TableCounts};
 use crate::report::manifest::{hash_file, relative, write_text, CountRecord, FileRecord, InputRecord, Manifest};
-use crate::report::markdown;
+use crate::report::markdown::{self, NodeFold, ResidualFold};
 use crate::report::tables::*;
 use std::collections::BTreeSet;
 use std::path::{Path, PathBuf};
@@ -170,6 +170,16 @@ fn table_metadata(cfg: &RunConfig, params: &CalibrationParams) -> Vec<(String, S
     meta
 }
 
+/// The run's settings as the manifest records them.
+fn settings_value(cfg: &RunConfig) -> Result<serde_json::Value> {
+    serde_json::to_value(cfg).map_err(|e| Error::Other(format!("settings: {e}")))
+}
+
+/// What the report takes from the node and residual tables, gathered as they are written.
+fn report_folds(cfg: &RunConfig) -> Result<(NodeFold, ResidualFold)> {
+    Ok((NodeFold::new(&settings_value(cfg)?), ResidualFold::new()))
+}
+
 /// Entities quoted in several currencies, whose series carry the currency.
 fn multi_currency_of(cfg: &RunConfig, ds: &Dataset) -> BTreeSet<String> {
     match (&ds.cds, cfg.cds_bootstrap) {
@@ -189,7 +199,7 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let folder = RunFolder::create(cfg, opts, quote_period(&ds))?;
     let meta = table_metadata(cfg, &params);
     let multi = multi_currency_of(cfg, &ds);
-    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)))?;
+    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)), Some(report_folds(cfg)?))?;
     let (part, t) = compute_partition(&mut ds, cfg, &params, Shard::ALL, &mut sinks, &multi)?;
     timings.extend(t);
     finish(cfg, ds, ingest_counts, part, sinks, &multi, folder, &meta, timings, t0)
@@ -250,7 +260,7 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let folder = RunFolder::create(cfg, opts, period)?;
     let meta = table_metadata(cfg, &params);
     let multi: BTreeSet<String> = cal.multi_currency.iter().cloned().collect();
-    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)))?;
+    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)), Some(report_folds(cfg)?))?;
     let t = Instant::now();
     (cal.hazard, cal.residuals) = merge_part_rows(&dirs, &mut sinks)?;
     let (rss, peak) = memory_mib();
@@ -363,7 +373,8 @@ fn finish(cfg: &RunConfig, mut ds: Dataset, ingest_counts: Vec<TableCounts>, mut
     }
     let meta = meta.to_vec();
     let t = Instant::now();
-    let digest = sinks.finish(std::mem::take(&mut cal.hazard), std::mem::take(&mut cal.residuals))?.unwrap_or_else(|| RowDigest::new(multi, &cfg.stability));
+    let (digest, folds) = sinks.finish(std::mem::take(&mut cal.hazard), std::mem::take(&mut cal.residuals))?;
+    let digest = digest.unwrap_or_else(|| RowDigest::new(multi, &cfg.stability));
     let (rss, peak) = memory_mib();
     timings.push(("write curves".into(), t.elapsed().as_secs_f64(), rss, peak));
 
@@ -439,7 +450,7 @@ fn finish(cfg: &RunConfig, mut ds: Dataset, ingest_counts: Vec<TableCounts>, mut
         period: period.map(|(a, b)| (a.to_string(), b.to_string())),
         inputs,
         counts: count_rows,
-        settings: serde_json::to_value(cfg).map_err(|e| Error::Other(format!("settings: {e}")))?,
+        settings: settings_value(cfg)?,
         tables: TABLES.iter().map(|t| format!("tables/{t}.parquet")).collect(),
     };
     let text = serde_json::to_string_pretty(&manifest).map_err(|e| Error::Other(format!("manifest: {e}")))?;
@@ -453,7 +464,7 @@ fn finish(cfg: &RunConfig, mut ds: Dataset, ingest_counts: Vec<TableCounts>, mut
     drop(backtest);
     drop(ds);
     let t3 = Instant::now();
-    markdown::render(&work)?;
+    markdown::render_with(&work, folds)?;
     let (rss, peak) = memory_mib();
     timings.push(("report".into(), t3.elapsed().as_secs_f64(), rss, peak));
     let total = t0.elapsed().as_secs_f64();

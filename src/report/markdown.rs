@@ -92,6 +92,8 @@ struct CdsNodes {
     /// The nodes of the entities the settings name for the figures, gathered in the same pass
     /// (table order): (date, years to node, hazard) and the 5Y history.
     named: BTreeMap<String, (Vec<(NaiveDate, f64, f64)>, Vec<(f64, f64)>)>,
+    /// The curve of the last CDS row taken.
+    last: Option<(NaiveDate, super::tables::Label, super::tables::Label)>,
 }
 
 /// The charted entities' nodes: term structures on the chosen dates and the 5Y history.
@@ -108,9 +110,9 @@ fn is_five_year_ok(h: &HazardCurveRow) -> bool {
 }
 
 impl CdsNodes {
-    /// One pass over the table; `named`: the entities the settings chart, when they name them.
-    fn read(path: &Path, named: Option<&[String]>) -> Result<CdsNodes> {
-        let mut out = CdsNodes {
+    /// `named`: the entities the settings chart, when they name them.
+    fn new(named: Option<&[String]>) -> CdsNodes {
+        CdsNodes {
             entities: BTreeSet::new(),
             currencies: BTreeSet::new(),
             dates: BTreeSet::new(),
@@ -122,45 +124,61 @@ impl CdsNodes {
             five_year: BTreeMap::new(),
             bond: Vec::new(),
             named: named.unwrap_or_default().iter().map(|e| (e.clone(), Default::default())).collect(),
-        };
+            last: None,
+        }
+    }
+
+    /// One pass over the table.
+    fn read(path: &Path, named: Option<&[String]>) -> Result<CdsNodes> {
+        let mut out = CdsNodes::new(named);
         readback::hazard_curve_slices(path, |rows| {
-            for h in rows {
-                if h.source != "cds" {
-                    out.bond.push(h);
-                    continue;
-                }
-                if !out.entities.contains(&*h.entity) {
-                    out.entities.insert(h.entity.to_string());
-                }
-                if !out.currencies.contains(&*h.currency) {
-                    out.currencies.insert(h.currency.to_string());
-                }
-                out.dates.insert(h.date);
-                let key = (h.date, h.entity.clone(), h.currency.clone());
-                *out.status_counts.entry(h.status).or_default() += 1;
-                if is_five_year_ok(&h) {
-                    out.five_year.entry(h.date).or_default().push(h.hazard.unwrap_or(0.0) * 100.0);
-                }
-                if let Some((nodes, five)) = out.named.get_mut(&*h.entity) {
-                    if let Some(x) = h.hazard {
-                        nodes.push((h.date, crate::curves::year_time(h.date, h.node_date), x));
-                    }
-                    if is_five_year_ok(&h) {
-                        five.push((charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0));
-                    }
-                }
-                if h.status != "ok" {
-                    out.bad_curves.insert(key.clone());
-                    out.bad_nodes += 1;
-                    if out.bad_first.len() < 10 {
-                        out.bad_first.push(h);
-                    }
-                }
-                out.curves.insert(key);
-            }
+            out.add(&rows);
             Ok(())
-        })?;
-        Ok(out)
+        })
+    .map(|_| out)
+    }
+
+    /// Takes the next rows of the table, in table order.
+    fn add(&mut self, rows: &[HazardCurveRow]) {
+        for h in rows {
+            if h.source != "cds" {
+                self.bond.push(h.clone());
+                continue;
+            }
+            // A curve's nodes are consecutive rows: the sets are asked once per curve (the
+            // sets' contents are the same as asking every row).
+            let same_curve = self.last.as_ref().is_some_and(|(d, e, c)| *d == h.date && std::sync::Arc::ptr_eq(e, &h.entity) && std::sync::Arc::ptr_eq(c, &h.currency));
+            if !same_curve {
+                if !self.entities.contains(&*h.entity) {
+                    self.entities.insert(h.entity.to_string());
+                }
+                if !self.currencies.contains(&*h.currency) {
+                    self.currencies.insert(h.currency.to_string());
+                }
+                self.dates.insert(h.date);
+                self.curves.insert((h.date, h.entity.clone(), h.currency.clone()));
+                self.last = Some((h.date, h.entity.clone(), h.currency.clone()));
+            }
+            *self.status_counts.entry(h.status).or_default() += 1;
+            if is_five_year_ok(h) {
+                self.five_year.entry(h.date).or_default().push(h.hazard.unwrap_or(0.0) * 100.0);
+            }
+            if let Some((nodes, five)) = self.named.get_mut(&*h.entity) {
+                if let Some(x) = h.hazard {
+                    nodes.push((h.date, crate::curves::year_time(h.date, h.node_date), x));
+                }
+                if is_five_year_ok(h) {
+                    five.push((charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0));
+                }
+            }
+            if h.status != "ok" {
+                self.bad_curves.insert((h.date, h.entity.clone(), h.currency.clone()));
+                self.bad_nodes += 1;
+                if self.bad_first.len() < 10 {
+                    self.bad_first.push(h.clone());
+                }
+            }
+        }
     }
 
     /// The charted entities' nodes: from the first pass when the settings named them, else
@@ -220,58 +238,132 @@ struct Residuals {
     bond: Vec<super::tables::ResidualRow>,
 }
 
+fn worst_first(a: &super::tables::ResidualRow, b: &super::tables::ResidualRow) -> std::cmp::Ordering {
+    b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then(a.date.cmp(&b.date)).then(a.entity.cmp(&b.entity))
+}
+
 impl Residuals {
+    fn new() -> Residuals {
+        Residuals::default()
+    }
+
     fn read(path: &Path) -> Result<Residuals> {
-        use super::tables::ResidualRow;
-        let mut out = Residuals::default();
-        // The empty sum of the standard library (its starting value), so that running sums
-        // match `Iterator::sum` over the same values bit for bit.
-        let zero: f64 = std::iter::empty::<f64>().sum();
-        let order = |a: &ResidualRow, b: &ResidualRow| b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then(a.date.cmp(&b.date)).then(a.entity.cmp(&b.entity));
+        let mut out = Residuals::new();
         readback::residual_slices(path, |rows| {
-            for r in rows {
-                match r.method {
-                    "bootstrap" => {}
-                    "bond_fit" => {
-                        out.bond.push(r);
-                        continue;
-                    }
-                    _ => continue,
-                }
-                if r.status == "ok" {
-                    out.ok += 1;
-                    out.within += usize::from(r.residual_bp.abs() <= REPRICE_TOLERANCE_BP);
-                    let months = r.tenor_or_bond.parse::<crate::time::Tenor>().map(|t| t.months()).unwrap_or(0);
-                    let key = (months, r.tenor_or_bond.to_string());
-                    let e = out.by_tenor.entry(key).or_insert(TenorSums { n: 0, sum: zero, sum_sq: zero, max_abs: 0.0 });
-                    e.n += 1;
-                    e.sum += r.residual_bp;
-                    e.sum_sq += r.residual_bp * r.residual_bp;
-                    e.max_abs = e.max_abs.max(r.residual_bp.abs());
-                }
-                if !r.residual_bp.is_finite() {
-                    continue;
-                }
-                out.logs.push(r.residual_bp.abs().max(1e-16).log10());
-                keep_first_n(&mut out.worst, r, 10, order);
-            }
+            out.add(&rows);
             Ok(())
         })?;
         Ok(out)
     }
+
+    /// Takes the next rows of the table, in table order.
+    fn add(&mut self, rows: &[super::tables::ResidualRow]) {
+        // The empty sum of the standard library (its starting value), so that running sums
+        // match `Iterator::sum` over the same values bit for bit.
+        let zero: f64 = std::iter::empty::<f64>().sum();
+        for r in rows {
+            match r.method {
+                "bootstrap" => {}
+                "bond_fit" => {
+                    self.bond.push(r.clone());
+                    continue;
+                }
+                _ => continue,
+            }
+            if r.status == "ok" {
+                self.ok += 1;
+                self.within += usize::from(r.residual_bp.abs() <= REPRICE_TOLERANCE_BP);
+                let e = match self.by_tenor.iter_mut().find(|((_, t), _)| *t == *r.tenor_or_bond) {
+                    Some((_, e)) => e,
+                    None => {
+                        let months = r.tenor_or_bond.parse::<crate::time::Tenor>().map(|t| t.months()).unwrap_or(0);
+                        self.by_tenor.entry((months, r.tenor_or_bond.to_string())).or_insert(TenorSums { n: 0, sum: zero, sum_sq: zero, max_abs: 0.0 })
+                    }
+                };
+                e.n += 1;
+                e.sum += r.residual_bp;
+                e.sum_sq += r.residual_bp * r.residual_bp;
+                e.max_abs = e.max_abs.max(r.residual_bp.abs());
+            }
+            if !r.residual_bp.is_finite() {
+                continue;
+            }
+            self.logs.push(r.residual_bp.abs().max(1e-16).log10());
+            if self.worst.len() < 10 || worst_first(r, &self.worst[9]).is_lt() {
+                keep_first_n(&mut self.worst, r.clone(), 10, worst_first);
+            }
+        }
+    }
+}
+
+/// What the report takes from the node and residual tables, gathered as their rows are
+/// written (see [`render_with`]) instead of read back.
+pub struct NodeFold(CdsNodes);
+
+/// See [`NodeFold`].
+pub struct ResidualFold(Residuals);
+
+impl NodeFold {
+    /// `settings`: the run's settings as the manifest records them.
+    pub fn new(settings: &serde_json::Value) -> NodeFold {
+        NodeFold(CdsNodes::new(charted_names(settings).as_deref()))
+    }
+
+    pub fn add(&mut self, rows: &[HazardCurveRow]) {
+        self.0.add(rows);
+    }
+}
+
+impl super::parquet::RowFold<HazardCurveRow> for NodeFold {
+    fn add(&mut self, rows: &[HazardCurveRow]) {
+        self.0.add(rows);
+    }
+}
+
+impl super::parquet::RowFold<super::tables::ResidualRow> for ResidualFold {
+    fn add(&mut self, rows: &[super::tables::ResidualRow]) {
+        self.0.add(rows);
+    }
+}
+
+impl ResidualFold {
+    pub fn new() -> ResidualFold {
+        ResidualFold(Residuals::new())
+    }
+}
+
+impl Default for ResidualFold {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
+/// The entities the settings name for the figures, when they name them.
+fn charted_names(settings: &serde_json::Value) -> Option<Vec<String>> {
+    settings.get("charted_entities").and_then(|v| v.as_array()).map(|v| v.iter().filter_map(|x| x.as_str()).map(str::to_string).collect())
 }
 
 /// Renders `report.md` and `charts/*.svg` in `run_dir` from its tables and manifest.
 pub fn render(run_dir: &Path) -> Result<()> {
+    render_with(run_dir, None)
+}
+
+/// [`render`], with what the report takes from the node and residual tables already gathered
+/// as a run wrote them (the same rows in the same order: the same report).
+pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> Result<()> {
     let m: Manifest = manifest::read(&run_dir.join("manifest.json"))?;
     let t = run_dir.join("tables");
     let params = readback::intensity_params(&t.join("intensity_params.parquet"))?;
     let basis = readback::basis(&t.join("cds_bond_basis.parquet"))?;
     // The node and residual tables hold a row per quote and can be tens of millions of rows:
     // they are read a slice at a time into what the report shows, never whole.
-    let named: Option<Vec<String>> = m.settings.get("charted_entities").and_then(|v| v.as_array()).map(|v| v.iter().filter_map(|x| x.as_str()).map(str::to_string).collect());
-    let hz = CdsNodes::read(&t.join("hazard_curves.parquet"), named.as_deref())?;
-    let rs = Residuals::read(&t.join("calibration_residuals.parquet"))?;
+    let (hz, rs) = match folds {
+        Some((NodeFold(hz), ResidualFold(rs))) => (hz, rs),
+        None => {
+            let named = charted_names(&m.settings);
+            (CdsNodes::read(&t.join("hazard_curves.parquet"), named.as_deref())?, Residuals::read(&t.join("calibration_residuals.parquet"))?)
+        }
+    };
     let bond_hazard = &hz.bond;
     let bond_res: Vec<&super::tables::ResidualRow> = rs.bond.iter().collect();
     let flags = readback::flags(&t.join("flags.parquet"))?;

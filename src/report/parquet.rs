@@ -175,23 +175,43 @@ enum ToWriter<T> {
     Finish,
 }
 
-/// A [`RowGroupWriter`] on a thread of its own, so that encoding and compressing a table
-/// overlaps with whatever produces its rows. Rows go over a channel that holds two batches;
-/// dropped unfinished (an error elsewhere), the thread drops its writer, which removes the
-/// temporary file.
-pub struct WriterThread<T> {
-    tx: Option<std::sync::mpsc::SyncSender<ToWriter<T>>>,
-    handle: Option<std::thread::JoinHandle<Result<usize>>>,
+/// Something that looks at a table's rows as they are written, in table order.
+pub trait RowFold<T>: Send + 'static {
+    fn add(&mut self, rows: &[T]);
 }
 
-impl<T: Send + 'static> WriterThread<T> {
-    pub fn spawn(mut writer: RowGroupWriter<T>) -> Self {
+impl<T> RowFold<T> for () {
+    fn add(&mut self, _: &[T]) {}
+}
+
+impl<T, F: RowFold<T>> RowFold<T> for Option<F> {
+    fn add(&mut self, rows: &[T]) {
+        if let Some(f) = self {
+            f.add(rows);
+        }
+    }
+}
+
+/// A [`RowGroupWriter`] on a thread of its own, so that encoding and compressing a table (and
+/// a [`RowFold`] over its rows) overlaps with whatever produces the rows. Rows go over a
+/// channel that holds two batches; dropped unfinished (an error elsewhere), the thread drops
+/// its writer, which removes the temporary file.
+pub struct WriterThread<T, F = ()> {
+    tx: Option<std::sync::mpsc::SyncSender<ToWriter<T>>>,
+    handle: Option<std::thread::JoinHandle<Result<(usize, F)>>>,
+}
+
+impl<T: Send + 'static, F: RowFold<T>> WriterThread<T, F> {
+    pub fn spawn(mut writer: RowGroupWriter<T>, mut fold: F) -> Self {
         let (tx, rx) = std::sync::mpsc::sync_channel::<ToWriter<T>>(2);
-        let handle = std::thread::spawn(move || -> Result<usize> {
+        let handle = std::thread::spawn(move || -> Result<(usize, F)> {
             for message in rx {
                 match message {
-                    ToWriter::Rows(rows) => writer.push(rows)?,
-                    ToWriter::Finish => return writer.finish(),
+                    ToWriter::Rows(rows) => {
+                        fold.add(&rows);
+                        writer.push(rows)?;
+                    }
+                    ToWriter::Finish => return Ok((writer.finish()?, fold)),
                 }
             }
             Err(Error::Other("a table's writer was stopped before the table was finished".into()))
@@ -218,8 +238,9 @@ impl<T: Send + 'static> WriterThread<T> {
         }
     }
 
-    /// Finishes the table (see [`RowGroupWriter::finish`]) and returns its number of rows.
-    pub fn finish(mut self) -> Result<usize> {
+    /// Finishes the table (see [`RowGroupWriter::finish`]) and returns its number of rows and
+    /// the fold.
+    pub fn finish(mut self) -> Result<(usize, F)> {
         let sent = self.tx.take().is_some_and(|tx| tx.send(ToWriter::Finish).is_ok());
         let joined = self.handle.take().map(|h| h.join());
         match (sent, joined) {
