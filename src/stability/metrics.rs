@@ -10,7 +10,7 @@
 use super::inputs::{daily_moves, DailyMove, Panel, PeriodCounts, Point};
 use super::period::Period;
 use super::settings::StabilitySettings;
-use super::summary::{band, mean, quantile_sorted, relative_change, sample_sd, sorted};
+use super::summary::{mean, quantile_sorted, relative_change, sample_sd, sorted};
 use chrono::NaiveDate;
 use std::collections::BTreeMap;
 
@@ -272,41 +272,47 @@ pub(crate) fn fill_changes(rows: &mut [(Period, StabilityRow)]) {
     }
 }
 
-/// Per-date 10/50/90% bands of each series, for the universe and per grade.
+/// Per-date 10/50/90% bands of each series, for the universe and per grade. Each series is
+/// grouped on its own (series in parallel), by date and grade, and its rows come out in the
+/// order of the owned (series, scope, key, date) keys: grade rows (by grade label, then date)
+/// before universe rows (the order of `Scope`).
 pub(crate) fn cross_sections(panel: &Panel, settings: &StabilitySettings) -> Vec<CrossSectionRow> {
-    // Keys borrowed (grade labels made once), so that no string is built per point. The
-    // panel is ordered by series: each series is grouped on its own, by date (and grade
-    // label), and its rows come out in the order of the owned (series, scope, key, date) keys:
-    // grade rows before universe rows (the order of `Scope`).
+    use rayon::prelude::*;
     let grade_labels: BTreeMap<u32, String> = panel.values().flatten().filter_map(|p| p.grade).map(|g| (g, g.to_string())).collect();
-    let mut out = Vec::new();
-    let mut emit = |series: &str, grades: BTreeMap<(&str, NaiveDate), Vec<f64>>, universe: BTreeMap<NaiveDate, Vec<f64>>| {
-        let rows = grades.into_iter().map(|((key, date), v)| (Scope::Grade, key, date, v)).chain(universe.into_iter().map(|(date, v)| (Scope::Universe, "all", date, v)));
-        for (scope, key, date, v) in rows {
-            if let Some((p10, p50, p90)) = band(&v) {
-                out.push(CrossSectionRow { date, period: settings.period.of(date).label(), series: series.to_string(), scope, key: key.to_string(), n: v.len(), p10, p50, p90 });
-            }
-        }
-    };
-    let mut current: Option<&str> = None;
-    let mut grades: BTreeMap<(&str, NaiveDate), Vec<f64>> = BTreeMap::new();
-    let mut universe: BTreeMap<NaiveDate, Vec<f64>> = BTreeMap::new();
-    for ((series, _), points) in panel {
-        if current != Some(series.as_str()) {
-            if let Some(done) = current {
-                emit(done, std::mem::take(&mut grades), std::mem::take(&mut universe));
-            }
-            current = Some(series.as_str());
-        }
-        for p in points {
-            universe.entry(p.date).or_default().push(p.value);
-            if let Some(g) = p.grade.and_then(|g| grade_labels.get(&g)) {
-                grades.entry((g.as_str(), p.date)).or_default().push(p.value);
-            }
+    // The panel is ordered by (series, entity): each series' histories are consecutive.
+    let mut series: Vec<(&str, Vec<&Vec<Point>>)> = Vec::new();
+    for ((name, _), points) in panel {
+        match series.last_mut() {
+            Some((s, v)) if *s == name.as_str() => v.push(points),
+            _ => series.push((name.as_str(), vec![points])),
         }
     }
-    if let Some(done) = current {
-        emit(done, grades, universe);
-    }
-    out
+    let per_series: Vec<Vec<CrossSectionRow>> = series
+        .par_iter()
+        .map(|(name, histories)| {
+            let mut universe: std::collections::HashMap<NaiveDate, Vec<f64>> = Default::default();
+            let mut grades: std::collections::HashMap<(u32, NaiveDate), Vec<f64>> = Default::default();
+            for p in histories.iter().flat_map(|h| h.iter()) {
+                universe.entry(p.date).or_default().push(p.value);
+                if let Some(g) = p.grade.filter(|g| grade_labels.contains_key(g)) {
+                    grades.entry((g, p.date)).or_default().push(p.value);
+                }
+            }
+            let mut grade_rows: Vec<((&str, NaiveDate), Vec<f64>)> = grades.into_iter().map(|((g, d), v)| ((grade_labels[&g].as_str(), d), v)).collect();
+            grade_rows.sort_by(|a, b| a.0.cmp(&b.0));
+            let mut universe_rows: Vec<(NaiveDate, Vec<f64>)> = universe.into_iter().collect();
+            universe_rows.sort_by_key(|(d, _)| *d);
+            let rows = grade_rows.into_iter().map(|((key, date), v)| (Scope::Grade, key, date, v)).chain(universe_rows.into_iter().map(|(date, v)| (Scope::Universe, "all", date, v)));
+            let mut out = Vec::new();
+            for (scope, key, date, mut v) in rows {
+                // The values in the order the panel holds them, sorted: the band of `band`.
+                v.sort_by(f64::total_cmp);
+                if let (Some(p10), Some(p50), Some(p90)) = (quantile_sorted(&v, 0.1), quantile_sorted(&v, 0.5), quantile_sorted(&v, 0.9)) {
+                    out.push(CrossSectionRow { date, period: settings.period.of(date).label(), series: name.to_string(), scope, key: key.to_string(), n: v.len(), p10, p50, p90 });
+                }
+            }
+            out
+        })
+        .collect();
+    per_series.into_iter().flatten().collect()
 }

@@ -125,59 +125,39 @@ pub struct ResidualAnalysis {
     pub non_finite: usize,
 }
 
-/// A curve's residuals summed up as they pass: rows in, sum of squares, the largest |residual|
-/// (a later row wins a tie, as `Iterator::max_by` picks the last maximum) and its tenor.
-struct CurveSums {
-    key: (NaiveDate, Arc<str>, Arc<str>),
-    n: usize,
-    sum_sq: f64,
-    max_abs: f64,
-    worst_tenor: Option<Arc<str>>,
-    converged: bool,
+/// A curve's residuals summed up as they pass, in the shape of its row: while rows come in,
+/// `rmse_bp` holds the sum of squares, `max_abs_bp` the largest |residual| (a later row wins a
+/// tie, as `Iterator::max_by` picks the last maximum) and `worst_tenor` its tenor (empty before
+/// the first row); [`finish_row`] turns the sum into the RMSE, in place.
+fn start_row(r: &ResidualObservation) -> CurveResidualRow {
+    CurveResidualRow { date: r.date, entity: r.entity.clone(), method: r.method.clone(), n: 0, rmse_bp: -0.0, max_abs_bp: 0.0, worst_tenor: "".into(), converged: true, reprices: false }
 }
 
-impl CurveSums {
-    fn new(r: &ResidualObservation) -> CurveSums {
-        CurveSums { key: (r.date, r.entity.clone(), r.method.clone()), n: 0, sum_sq: -0.0, max_abs: 0.0, worst_tenor: None, converged: true }
+fn add_to_row(c: &mut CurveResidualRow, r: &ResidualObservation) {
+    c.n += 1;
+    c.rmse_bp += r.residual_bp * r.residual_bp;
+    let a = r.residual_bp.abs();
+    if c.n == 1 || a.total_cmp(&c.max_abs_bp).is_ge() {
+        c.max_abs_bp = a;
+        c.worst_tenor = r.tenor.clone();
     }
+    c.converged &= r.converged;
+}
 
-    fn add(&mut self, r: &ResidualObservation) {
-        self.n += 1;
-        self.sum_sq += r.residual_bp * r.residual_bp;
-        let a = r.residual_bp.abs();
-        if self.worst_tenor.is_none() || a.total_cmp(&self.max_abs).is_ge() {
-            self.max_abs = a;
-            self.worst_tenor = Some(r.tenor.clone());
-        }
-        self.converged &= r.converged;
+/// Adds the sums of `later` (rows of the same curve met after those of `c`).
+fn absorb_row(c: &mut CurveResidualRow, later: &mut CurveResidualRow) {
+    c.n += later.n;
+    c.rmse_bp += later.rmse_bp;
+    if later.max_abs_bp.total_cmp(&c.max_abs_bp).is_ge() {
+        c.max_abs_bp = later.max_abs_bp;
+        c.worst_tenor = std::mem::replace(&mut later.worst_tenor, "".into());
     }
+    c.converged &= later.converged;
+}
 
-    /// The sums of this curve's rows followed by `later`'s.
-    fn absorb(&mut self, later: CurveSums) {
-        self.n += later.n;
-        self.sum_sq += later.sum_sq;
-        if self.worst_tenor.is_none() || later.max_abs.total_cmp(&self.max_abs).is_ge() {
-            self.max_abs = later.max_abs;
-            self.worst_tenor = later.worst_tenor;
-        }
-        self.converged &= later.converged;
-    }
-
-    fn row(self, tolerance_bp: f64) -> CurveResidualRow {
-        let (date, entity, method) = self.key;
-        let max_abs_bp = self.max_abs;
-        CurveResidualRow {
-            date,
-            entity,
-            method,
-            n: self.n,
-            rmse_bp: (self.sum_sq / self.n as f64).sqrt(),
-            max_abs_bp,
-            worst_tenor: self.worst_tenor.unwrap_or_else(|| "".into()),
-            converged: self.converged,
-            reprices: self.converged && max_abs_bp <= tolerance_bp,
-        }
-    }
+fn finish_row(c: &mut CurveResidualRow, tolerance_bp: f64) {
+    c.rmse_bp = (c.rmse_bp / c.n as f64).sqrt();
+    c.reprices = c.converged && c.max_abs_bp <= tolerance_bp;
 }
 
 fn tenor_row(method: &str, tenor: &str, residuals: &[f64]) -> TenorResidualRow {
@@ -224,8 +204,8 @@ fn repricing_shares(curves: &[CurveResidualRow], tolerance_bp: f64) -> Vec<Repri
 pub struct ResidualReview {
     tolerance_bp: f64,
     worst_n: usize,
-    current: Option<CurveSums>,
-    curves: Vec<CurveSums>,
+    current: Option<CurveResidualRow>,
+    curves: Vec<CurveResidualRow>,
     tenor_index: std::collections::HashMap<(Arc<str>, Arc<str>), usize>,
     /// `tenor_index` by the labels' addresses (labels are shared between rows), each label
     /// held in `pinned` so that its address is not reused while it is a key.
@@ -258,13 +238,13 @@ impl ResidualReview {
             self.non_finite += 1;
             return;
         }
-        let same = self.current.as_ref().is_some_and(|c| c.key.0 == r.date && c.key.1 == r.entity && c.key.2 == r.method);
+        let same = self.current.as_ref().is_some_and(|c| c.date == r.date && c.entity == r.entity && c.method == r.method);
         if !same {
             self.curves.extend(self.current.take());
-            self.current = Some(CurveSums::new(r));
+            self.current = Some(start_row(r));
         }
         if let Some(c) = self.current.as_mut() {
-            c.add(r);
+            add_to_row(c, r);
         }
         let address = (Arc::as_ptr(&r.method) as *const u8 as usize, Arc::as_ptr(&r.tenor) as *const u8 as usize);
         let slot = match self.tenor_by_address.get(&address) {
@@ -289,17 +269,21 @@ impl ResidualReview {
 
     pub fn finish(mut self) -> ResidualAnalysis {
         self.curves.extend(self.current.take());
-        // Stable: a curve met in several runs keeps its runs in arrival order.
-        self.curves.sort_by(|a, b| a.key.cmp(&b.key));
-        let mut merged: Vec<CurveSums> = Vec::with_capacity(self.curves.len());
-        for c in self.curves {
-            match merged.last_mut() {
-                Some(m) if m.key == c.key => m.absorb(c),
-                _ => merged.push(c),
+        // Stable: a curve met in several runs keeps its runs in arrival order. Usually already
+        // in order (the rows come in table order), which the sort finds in one pass.
+        self.curves.sort_by(|a, b| (a.date, &a.entity, &a.method).cmp(&(b.date, &b.entity, &b.method)));
+        self.curves.dedup_by(|later, earlier| {
+            let same = later.date == earlier.date && later.entity == earlier.entity && later.method == earlier.method;
+            if same {
+                absorb_row(earlier, later);
             }
-        }
+            same
+        });
         let tol = self.tolerance_bp;
-        let curves: Vec<CurveResidualRow> = merged.into_iter().map(|c| c.row(tol)).collect();
+        let mut curves = self.curves;
+        for c in curves.iter_mut() {
+            finish_row(c, tol);
+        }
         let mut tenors: Vec<((Arc<str>, Arc<str>), usize)> = self.tenor_index.into_iter().collect();
         tenors.sort();
         ResidualAnalysis {
