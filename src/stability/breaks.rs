@@ -112,14 +112,12 @@ fn test_window(entity: &str, series: &str, window: String, data: &[(NaiveDate, f
 
 /// One [`BreakRow`] per (series, entity, window).
 pub(crate) fn break_rows(panel: &Panel, settings: &StabilitySettings) -> Vec<BreakRow> {
-    let mut out = Vec::new();
-    for ((series, entity), points) in panel {
-        if !settings.cusum_series.is_empty() && !settings.cusum_series.contains(series) {
-            continue;
-        }
-        for (window, data) in windows(series_of(points, settings), settings) {
-            out.push(test_window(entity, series, window, &data, settings));
-        }
-    }
-    out
+    use rayon::prelude::*;
+    // Histories are independent: in parallel, concatenated in panel order.
+    let histories: Vec<(&(String, String), &Vec<Point>)> = panel.iter().filter(|((series, _), _)| settings.cusum_series.is_empty() || settings.cusum_series.contains(series)).collect();
+    let per_history: Vec<Vec<BreakRow>> = histories
+        .par_iter()
+        .map(|((series, entity), points)| windows(series_of(points, settings), settings).into_iter().map(|(window, data)| test_window(entity, series, window, &data, settings)).collect())
+        .collect();
+    per_history.into_iter().flatten().collect()
 }

@@ -201,15 +201,24 @@ fn entity_period_row(series: &str, entity: &str, period: &Period, points: &[Poin
 
 /// Entity rows of every series and period (periods with at least one observation).
 pub(crate) fn entity_rows(panel: &Panel, ctx: &EntityContext) -> Vec<(Period, StabilityRow)> {
-    let mut out = Vec::new();
-    for ((series, entity), points) in panel {
-        let moves = group_by_period(&daily_moves(points, ctx.settings.max_gap_days), |m| m.date, ctx.settings);
-        for (period, pts) in group_by_period(points, |p| p.date, ctx.settings) {
-            let mv = moves.get(&period).map_or(&[][..], Vec::as_slice);
-            out.push((period, entity_period_row(series, entity, &period, &pts, mv, ctx)));
-        }
-    }
-    out
+    use rayon::prelude::*;
+    // Histories are independent: in parallel, concatenated in panel order.
+    let histories: Vec<(&(String, String), &Vec<Point>)> = panel.iter().collect();
+    let per_history: Vec<Vec<(Period, StabilityRow)>> = histories
+        .par_iter()
+        .map(|((series, entity), points)| {
+            let moves = group_by_period(&daily_moves(points, ctx.settings.max_gap_days), |m| m.date, ctx.settings);
+            group_by_period(points, |p| p.date, ctx.settings)
+                .into_iter()
+                .map(|(period, pts)| {
+                    let mv = moves.get(&period).map_or(&[][..], Vec::as_slice);
+                    let row = entity_period_row(series, entity, &period, &pts, mv, ctx);
+                    (period, row)
+                })
+                .collect()
+        })
+        .collect();
+    per_history.into_iter().flatten().collect()
 }
 
 /// One [`CALIBRATION_SERIES`] row per (entity, period) with calibration counts.
