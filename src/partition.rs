@@ -200,6 +200,9 @@ pub fn sort_residuals(rows: &mut [ResidualRow]) {
     rows.sort_by(|a, b| (a.method != "bootstrap", a.method, a.date, &a.entity, &a.currency).cmp(&(b.method != "bootstrap", b.method, b.date, &b.entity, &b.currency)));
 }
 
+/// What the report takes from the node and residual tables (see [`NodeFold`]).
+pub type ReportFolds = (NodeFold, ResidualFold);
+
 /// Where the node and residual rows go as they are computed: written straight into their
 /// tables, in the tables' order (the CDS rows as calibration hands them over, which is that
 /// order; then the rest, sorted, at [`RowSinks::finish`]), and digested for the stability
@@ -240,7 +243,7 @@ impl<'a> RowSinks<'a> {
 
     /// Appends `hazard` and `residuals` in the tables' order ([`sort_hazard`],
     /// [`sort_residuals`]) and closes both tables; returns the digest and the report's folds.
-    pub fn finish(mut self, mut hazard: Vec<HazardCurveRow>, mut residuals: Vec<ResidualRow>) -> Result<(Option<RowDigest<'a>>, Option<(NodeFold, ResidualFold)>)> {
+    pub fn finish(mut self, mut hazard: Vec<HazardCurveRow>, mut residuals: Vec<ResidualRow>) -> Result<(Option<RowDigest<'a>>, Option<ReportFolds>)> {
         sort_hazard(&mut hazard);
         sort_residuals(&mut residuals);
         self.nodes(hazard)?;
@@ -684,7 +687,7 @@ mod tests {
             }
             rows.push(node(3, pair[1], "bond", "bond"));
             rows.push(node(2, pair[0], "bond", "bond"));
-            rows.sort_by(|a, b| (a.source != "cds").cmp(&(b.source != "cds")));
+            rows.sort_by_key(|r| r.source != "cds");
             let d = dir.path().join(format!("part-{k}"));
             let mut w = hazard_writer(&d.join("hazard_curves.parquet"), &[]).unwrap();
             w.push(rows.iter().cloned()).unwrap();

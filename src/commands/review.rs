@@ -183,16 +183,19 @@ impl<'a> CurveSeries<'a> {
 /// What the stability stage takes from the node and residual rows, digested as the rows pass
 /// in the tables' order: per CDS curve its failures and infeasible nodes (from the node
 /// statuses), and the residual review ([`ResidualReview`]) of every repricing residual.
+/// One curve's (date, failures, infeasible nodes).
+type CurveCount = (NaiveDate, u64, u64);
+
 pub struct RowDigest<'a> {
     labels: Labels,
     multi: &'a BTreeSet<String>,
     /// Per series entity (by the label's address: `labels` hands out one label per text and
     /// holds it), its curves' (date, failures, infeasible) in arrival order.
-    counts: crate::ingest::FastMap<usize, (Arc<str>, Vec<(NaiveDate, u64, u64)>)>,
+    counts: crate::ingest::FastMap<usize, (Arc<str>, Vec<CurveCount>)>,
     /// Labels of the rows' fixed texts (method, instrument), by the text's address and length.
     fixed: crate::ingest::FastMap<(usize, usize), Arc<str>>,
     /// The curve whose consecutive nodes are being counted.
-    run: Option<((Arc<str>, NaiveDate), (u64, u64))>,
+    run: Option<(Arc<str>, CurveCount)>,
     review: ResidualReview,
 }
 
@@ -207,25 +210,25 @@ impl<'a> RowDigest<'a> {
     pub fn nodes(&mut self, hazard: &[HazardCurveRow]) {
         for r in hazard.iter().filter(|r| r.source == "cds") {
             let entity = self.labels.entity_of(self.multi, &r.entity, &r.currency);
-            let same = self.run.as_ref().is_some_and(|((e, d), _)| *d == r.date && Arc::ptr_eq(e, &entity));
+            let same = self.run.as_ref().is_some_and(|(e, (d, _, _))| *d == r.date && Arc::ptr_eq(e, &entity));
             if !same {
                 self.end_run();
-                self.run = Some(((entity, r.date), (0, 0)));
+                self.run = Some((entity, (r.date, 0, 0)));
             }
-            if let Some((_, slot)) = self.run.as_mut() {
+            if let Some((_, (_, failures, infeasible))) = self.run.as_mut() {
                 match r.status {
                     "ok" => {}
-                    "floored" | "infeasible" => slot.1 += 1,
-                    _ => slot.0 = 1,
+                    "floored" | "infeasible" => *infeasible += 1,
+                    _ => *failures = 1,
                 }
             }
         }
     }
 
     fn end_run(&mut self) {
-        if let Some(((entity, date), (f, i))) = self.run.take() {
+        if let Some((entity, count)) = self.run.take() {
             let address = Arc::as_ptr(&entity) as *const u8 as usize;
-            self.counts.entry(address).or_insert_with(|| (entity, Vec::new())).1.push((date, f, i));
+            self.counts.entry(address).or_insert_with(|| (entity, Vec::new())).1.push(count);
         }
     }
 
@@ -254,7 +257,7 @@ impl<'a> RowDigest<'a> {
     /// failure flag of any, the infeasible nodes of all), and the residual review.
     pub fn finish(mut self) -> (Vec<CalibrationCounts>, ResidualAnalysis) {
         self.end_run();
-        let mut entities: Vec<(Arc<str>, Vec<(NaiveDate, u64, u64)>)> = self.counts.into_values().collect();
+        let mut entities: Vec<(Arc<str>, Vec<CurveCount>)> = self.counts.into_values().collect();
         entities.sort_by(|a, b| a.0.cmp(&b.0));
         let mut counts = Vec::with_capacity(entities.iter().map(|(_, v)| v.len()).sum());
         for (entity, mut curves) in entities {
