@@ -329,51 +329,63 @@ impl CurvesForFits {
     }
 }
 
+/// The bond-implied fit of every (date, entity, currency) with bond quotes, when enabled.
+fn bond_fits(ds: &Dataset, cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings) -> Vec<BondOutput> {
+    let (true, Some(bonds), Some(bq)) = (s.bond_fit, &ds.bonds, &ds.bond_quotes) else {
+        return Vec::new();
+    };
+    let by_id: HashMap<&str, &BondRow> = bonds.rows.iter().map(|(b, _)| (b.bond.as_str(), b)).collect();
+    let mut groups: BTreeMap<(NaiveDate, &str, &str), Vec<(&BondRow, f64, &Provenance)>> = BTreeMap::new();
+    for (q, prov) in &bq.rows {
+        // Ingestion rejects quotes of unknown bonds, so every quote finds its bond.
+        if let Some(b) = by_id.get(q.bond.as_str()) {
+            groups.entry((q.date, b.entity.as_str(), b.currency.as_str())).or_default().push((b, q.clean_price, prov));
+        }
+    }
+    let jobs: Vec<BondGroup> = groups
+        .into_iter()
+        .map(|((date, entity, currency), mut quotes)| {
+            quotes.sort_by(|a, b| a.0.bond.cmp(&b.0.bond));
+            BondGroup { date, entity, currency, quotes }
+        })
+        .collect();
+    jobs.par_iter().map(|g| fit_group(g, cal, p, s)).collect()
+}
+
+/// The CIR fits of every name the settings select, name by name, when enabled.
+fn cir_fits(cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings) -> Vec<(Vec<IntensityParamRow>, Vec<ResidualRow>)> {
+    if !s.cir {
+        return Vec::new();
+    }
+    let mut names: BTreeMap<(&str, &str), Vec<NaiveDate>> = BTreeMap::new();
+    for (d, e, c) in cal.cds_curves.keys() {
+        if s.cir_entities.as_ref().is_some_and(|list| !list.iter().any(|x| x == e)) {
+            continue;
+        }
+        names.entry((e.as_str(), c.as_str())).or_default().push(*d);
+    }
+    let jobs: Vec<((&str, &str), Vec<NaiveDate>)> = names.into_iter().collect();
+    jobs.par_iter().map(|((e, c), dates)| fit_name(e, c, dates, cal, p, s)).collect()
+}
+
 /// Runs the bond and CIR fits that `s` enables. Updates `ds.counts` for the bond quotes this
 /// stage rejects and checks the accounting again.
 pub fn calibrate_intensity(ds: &mut Dataset, cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings) -> Result<IntensityCalibration> {
     let mut out = IntensityCalibration::default();
-
-    if s.bond_fit {
-        if let (Some(bonds), Some(bq)) = (&ds.bonds, &ds.bond_quotes) {
-            let by_id: HashMap<&str, &BondRow> = bonds.rows.iter().map(|(b, _)| (b.bond.as_str(), b)).collect();
-            let mut groups: BTreeMap<(NaiveDate, &str, &str), Vec<(&BondRow, f64, &Provenance)>> = BTreeMap::new();
-            for (q, prov) in &bq.rows {
-                // Ingestion rejects quotes of unknown bonds, so every quote finds its bond.
-                if let Some(b) = by_id.get(q.bond.as_str()) {
-                    groups.entry((q.date, b.entity.as_str(), b.currency.as_str())).or_default().push((b, q.clean_price, prov));
-                }
-            }
-            let jobs: Vec<BondGroup> = groups
-                .into_iter()
-                .map(|((date, entity, currency), mut quotes)| {
-                    quotes.sort_by(|a, b| a.0.bond.cmp(&b.0.bond));
-                    BondGroup { date, entity, currency, quotes }
-                })
-                .collect();
-            let outputs: Vec<BondOutput> = jobs.par_iter().map(|g| fit_group(g, cal, p, s)).collect();
-            for o in outputs {
-                out.bond_curves += o.fitted as usize;
-                out.hazard.extend(o.hazard);
-                out.residuals.extend(o.residuals);
-                out.basis.extend(o.basis);
-                out.rejects.extend(o.rejects);
-            }
-        }
+    // The bond fits and the CIR fits are independent: run side by side on rayon's threads,
+    // so that the few CIR names (each a sequence of days) overlap with the many bond groups.
+    let data: &Dataset = ds;
+    let (bond_outputs, cir_fits) = rayon::join(|| bond_fits(data, cal, p, s), || cir_fits(cal, p, s));
+    for o in bond_outputs {
+        out.bond_curves += o.fitted as usize;
+        out.hazard.extend(o.hazard);
+        out.residuals.extend(o.residuals);
+        out.basis.extend(o.basis);
+        out.rejects.extend(o.rejects);
     }
-
     if s.cir {
-        let mut names: BTreeMap<(&str, &str), Vec<NaiveDate>> = BTreeMap::new();
-        for (d, e, c) in cal.cds_curves.keys() {
-            if s.cir_entities.as_ref().is_some_and(|list| !list.iter().any(|x| x == e)) {
-                continue;
-            }
-            names.entry((e.as_str(), c.as_str())).or_default().push(*d);
-        }
-        let jobs: Vec<((&str, &str), Vec<NaiveDate>)> = names.into_iter().collect();
-        let fits: Vec<(Vec<IntensityParamRow>, Vec<ResidualRow>)> = jobs.par_iter().map(|((e, c), dates)| fit_name(e, c, dates, cal, p, s)).collect();
         let mut cir_res = Vec::new();
-        for (params, res) in fits {
+        for (params, res) in cir_fits {
             out.cir_fits += params.iter().filter(|r| r.status != "failed").count();
             out.params.extend(params);
             cir_res.extend(res);

@@ -3,7 +3,7 @@
 //! their quotes; the share of curves that reprice within a tolerance.
 
 use super::settings::StabilitySettings;
-use super::summary::{keep_first_n, quantile_sorted, sorted};
+use super::summary::{keep_first_n, quantiles_unsorted};
 use chrono::NaiveDate;
 use std::collections::BTreeMap;
 use std::sync::Arc;
@@ -160,24 +160,33 @@ fn finish_row(c: &mut CurveResidualRow, tolerance_bp: f64) {
     c.reprices = c.converged && c.max_abs_bp <= tolerance_bp;
 }
 
-fn tenor_row(method: &str, tenor: &str, residuals: &[f64]) -> TenorResidualRow {
-    let s = sorted(residuals);
-    let a = sorted(&residuals.iter().map(|r| r.abs()).collect::<Vec<_>>());
-    let q = |v: &[f64], p: f64| quantile_sorted(v, p).unwrap_or(f64::NAN);
+/// (method, tenor) of a tenor row.
+type TenorKey = (Arc<str>, Arc<str>);
+
+/// The quantiles the tenor rows show.
+const TENOR_QUANTILES: [f64; 5] = [0.01, 0.05, 0.5, 0.95, 0.99];
+
+/// `residuals` is reordered (the quantiles are selected, not sorted for).
+fn tenor_row(method: &str, tenor: &str, residuals: &mut [f64]) -> TenorResidualRow {
+    let n = residuals.len();
+    let q = quantiles_unsorted(residuals, &TENOR_QUANTILES);
+    let mut abs: Vec<f64> = residuals.iter().map(|r| r.abs()).collect();
+    let a = quantiles_unsorted(&mut abs, &TENOR_QUANTILES);
+    let v = |x: Option<f64>| x.unwrap_or(f64::NAN);
     TenorResidualRow {
         method: method.to_string(),
         tenor: tenor.to_string(),
-        n: residuals.len(),
-        q01: q(&s, 0.01),
-        q05: q(&s, 0.05),
-        q50: q(&s, 0.5),
-        q95: q(&s, 0.95),
-        q99: q(&s, 0.99),
-        abs_q01: q(&a, 0.01),
-        abs_q05: q(&a, 0.05),
-        abs_q50: q(&a, 0.5),
-        abs_q95: q(&a, 0.95),
-        abs_q99: q(&a, 0.99),
+        n,
+        q01: v(q[0]),
+        q05: v(q[1]),
+        q50: v(q[2]),
+        q95: v(q[3]),
+        q99: v(q[4]),
+        abs_q01: v(a[0]),
+        abs_q05: v(a[1]),
+        abs_q50: v(a[2]),
+        abs_q95: v(a[3]),
+        abs_q99: v(a[4]),
     }
 }
 
@@ -206,11 +215,11 @@ pub struct ResidualReview {
     worst_n: usize,
     current: Option<CurveResidualRow>,
     curves: Vec<CurveResidualRow>,
-    tenor_index: std::collections::HashMap<(Arc<str>, Arc<str>), usize>,
+    tenor_index: std::collections::HashMap<TenorKey, usize>,
     /// `tenor_index` by the labels' addresses (labels are shared between rows), each label
     /// held in `pinned` so that its address is not reused while it is a key.
     tenor_by_address: crate::ingest::FastMap<(usize, usize), usize>,
-    pinned: Vec<(Arc<str>, Arc<str>)>,
+    pinned: Vec<TenorKey>,
     by_tenor: Vec<Vec<f64>>,
     worst: Vec<ResidualObservation>,
     non_finite: usize,
@@ -284,10 +293,16 @@ impl ResidualReview {
         for c in curves.iter_mut() {
             finish_row(c, tol);
         }
-        let mut tenors: Vec<((Arc<str>, Arc<str>), usize)> = self.tenor_index.into_iter().collect();
+        let mut tenors: Vec<(TenorKey, usize)> = self.tenor_index.into_iter().collect();
         tenors.sort();
         ResidualAnalysis {
-            tenors: tenors.iter().map(|((m, t), i)| tenor_row(m, t, &self.by_tenor[*i])).collect(),
+            tenors: {
+                use rayon::prelude::*;
+                // Tenors in parallel; each row's values are taken (and reordered) whole.
+                let mut values: Vec<Option<Vec<f64>>> = self.by_tenor.into_iter().map(Some).collect();
+                let jobs: Vec<(&Arc<str>, &Arc<str>, Vec<f64>)> = tenors.iter().map(|((m, t), i)| (m, t, values[*i].take().unwrap_or_default())).collect();
+                jobs.into_par_iter().map(|(m, t, mut v)| tenor_row(m, t, &mut v)).collect()
+            },
             worst: self.worst.into_iter().enumerate().map(|(i, r)| WorstResidualRow { rank: i + 1, residual: r }).collect(),
             repricing: repricing_shares(&curves, tol),
             curves,

@@ -35,6 +35,41 @@ pub fn quantile_sorted(sorted: &[f64], q: f64) -> Option<f64> {
     }
 }
 
+/// [`quantile_sorted`] of `values` at each of `qs`, without sorting them: the order statistics
+/// the quantiles need are selected (in the same total order, so each is the very value the
+/// sorted slice holds at its rank), in linear time. `values` is reordered.
+pub fn quantiles_unsorted(values: &mut [f64], qs: &[f64]) -> Vec<Option<f64>> {
+    let n = values.len();
+    if n == 0 {
+        return vec![None; qs.len()];
+    }
+    let at = |q: f64| {
+        let pos = q.clamp(0.0, 1.0) * (n - 1) as f64;
+        (pos.floor() as usize, pos - pos.floor())
+    };
+    let mut ranks: Vec<usize> = qs.iter().flat_map(|&q| {
+        let (i, _) = at(q);
+        [i, (i + 1).min(n - 1)]
+    }).collect();
+    ranks.sort_unstable();
+    ranks.dedup();
+    // Select each rank in turn: after selecting rank k, every later rank lies right of k.
+    let mut value_at = std::collections::HashMap::new();
+    let mut start = 0;
+    for &k in &ranks {
+        let (_, v, _) = values[start..].select_nth_unstable_by(k - start, f64::total_cmp);
+        value_at.insert(k, *v);
+        start = k + 1;
+    }
+    qs.iter()
+        .map(|&q| {
+            let (i, f) = at(q);
+            let x = value_at[&i];
+            Some(if i + 1 < n { x + f * (value_at[&(i + 1)] - x) } else { x })
+        })
+        .collect()
+}
+
 /// A sorted copy of `values` (total order, so the result is deterministic).
 pub fn sorted(values: &[f64]) -> Vec<f64> {
     let mut v = values.to_vec();
@@ -68,6 +103,36 @@ pub fn relative_change(before: f64, now: f64) -> Option<f64> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn selected_quantiles_equal_sorted_ones() {
+        // Pseudo-random values with repeats, zeros of both signs and a wide range; every
+        // quantile must be bit for bit that of the sorted slice.
+        let mut x: u64 = 0x2545_f491_4f6c_dd1d;
+        for n in [1usize, 2, 3, 10, 101, 5000] {
+            let values: Vec<f64> = (0..n)
+                .map(|k| {
+                    x ^= x << 13;
+                    x ^= x >> 7;
+                    x ^= x << 17;
+                    match k % 7 {
+                        0 => 0.0,
+                        1 => -0.0,
+                        2 => 1.5,
+                        _ => ((x >> 11) as f64 / (1u64 << 53) as f64 - 0.5) * 10f64.powi((x % 9) as i32 - 4),
+                    }
+                })
+                .collect();
+            let qs = [0.0, 0.01, 0.05, 0.1, 0.5, 0.9, 0.95, 0.99, 1.0];
+            let s = sorted(&values);
+            let mut v = values.clone();
+            let got = quantiles_unsorted(&mut v, &qs);
+            for (q, g) in qs.iter().zip(got) {
+                assert_eq!(g.map(f64::to_bits), quantile_sorted(&s, *q).map(f64::to_bits), "n {n}, q {q}");
+            }
+        }
+        assert_eq!(quantiles_unsorted(&mut [], &[0.5]), vec![None]);
+    }
 
     #[test]
     fn mean_sd_quantiles() {
