@@ -251,7 +251,7 @@ pub(crate) fn entity_means(panel: &Panel, settings: &StabilitySettings) -> BTree
             push_mean(&mut groups, (series.clone(), period, Scope::Universe, "all".into()), &all);
             let mut by_grade: BTreeMap<u32, Vec<f64>> = BTreeMap::new();
             for p in &pts {
-                if let Some(g) = p.grade {
+                if let Some(g) = p.grade() {
                     by_grade.entry(g).or_default().push(p.value);
                 }
             }
@@ -287,7 +287,7 @@ pub(crate) fn fill_changes(rows: &mut [(Period, StabilityRow)]) {
 /// before universe rows (the order of `Scope`).
 pub(crate) fn cross_sections(panel: &Panel, settings: &StabilitySettings) -> Vec<CrossSectionRow> {
     use rayon::prelude::*;
-    let grade_labels: BTreeMap<u32, String> = panel.values().flatten().filter_map(|p| p.grade).map(|g| (g, g.to_string())).collect();
+    let grade_labels: BTreeMap<u32, String> = panel.values().flatten().filter_map(|p| p.grade()).map(|g| (g, g.to_string())).collect();
     // The panel is ordered by (series, entity): each series' histories are consecutive.
     let mut series: Vec<(&str, Vec<&Vec<Point>>)> = Vec::new();
     for ((name, _), points) in panel {
@@ -303,7 +303,7 @@ pub(crate) fn cross_sections(panel: &Panel, settings: &StabilitySettings) -> Vec
             let mut grades: std::collections::HashMap<(u32, NaiveDate), Vec<f64>> = Default::default();
             for p in histories.iter().flat_map(|h| h.iter()) {
                 universe.entry(p.date).or_default().push(p.value);
-                if let Some(g) = p.grade.filter(|g| grade_labels.contains_key(g)) {
+                if let Some(g) = p.grade().filter(|g| grade_labels.contains_key(g)) {
                     grades.entry((g, p.date)).or_default().push(p.value);
                 }
             }
