@@ -6,9 +6,11 @@
 //! quality accounting, bucket tests, risk premia, cross-sectional stability, flags, report.
 //!
 //! [`compute_partition`] runs the first half for the entities of one [`Shard`] (all of them in
-//! a single run) and returns a [`Partition`]; a sharded run writes it to a folder with
-//! [`write_partition`]; `merge` reads every shard's folder back ([`read_partition`]) and runs
-//! the second half on them, which is the same code a single run runs on its one partition.
+//! a single run): the CDS node and residual rows stream into a [`RowSinks`] (the run's tables,
+//! or the part's), the rest comes back as a [`Partition`]; a sharded run writes it to a folder
+//! with [`write_partition`]; `merge` reads every shard's folder back ([`read_partition`],
+//! and [`merge_part_rows`] for the streamed rows) and runs the second half on them, which is
+//! the same code a single run runs on its one partition.
 //! Each table of a partition is written with the same writers as the run's tables, so floats
 //! and labels come back bit for bit, and the second half puts every table in one canonical
 //! order, so the merged run equals the single run byte for byte.
