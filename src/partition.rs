@@ -362,15 +362,20 @@ pub struct PartFolder {
     pub work: PathBuf,
 }
 
+/// An empty folder beside `dir`, under a temporary name of this process, in which `dir` is
+/// assembled before it is renamed into place (so a folder that exists is whole).
+pub fn work_folder(dir: &Path) -> Result<PathBuf> {
+    let parent = dir.parent().unwrap_or(Path::new(".")).to_path_buf();
+    let name = dir.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_else(|| "part".into());
+    let work = parent.join(format!(".{name}.partial-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&work);
+    std::fs::create_dir_all(&work).map_err(|e| Error::Write { path: work.clone(), message: e.to_string() })?;
+    Ok(work)
+}
+
 impl PartFolder {
     pub fn create(dir: &Path) -> Result<PartFolder> {
-        let parent = dir.parent().unwrap_or(Path::new(".")).to_path_buf();
-        std::fs::create_dir_all(&parent).map_err(|e| Error::Write { path: parent.clone(), message: e.to_string() })?;
-        let name = dir.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_else(|| "part".into());
-        let work = parent.join(format!(".{name}.partial-{}", std::process::id()));
-        let _ = std::fs::remove_dir_all(&work);
-        std::fs::create_dir_all(&work).map_err(|e| Error::Write { path: work.clone(), message: e.to_string() })?;
-        Ok(PartFolder { dir: dir.to_path_buf(), work })
+        Ok(PartFolder { dir: dir.to_path_buf(), work: work_folder(dir)? })
     }
 
     /// The sinks of the part's node and residual rows (no digest: the merge digests them).
@@ -381,15 +386,11 @@ impl PartFolder {
 
 /// Finishes a part folder: the rows `part` still holds go after those `sinks` took, the other
 /// tables and `partition.json` are written, and the folder is renamed into place.
-pub fn write_partition(folder: PartFolder, sinks: RowSinks, part: Partition, shard: Shard, pipeline_sha256: &str) -> Result<()> {
+pub fn write_partition(folder: PartFolder, sinks: RowSinks, mut part: Partition, shard: Shard, pipeline_sha256: &str) -> Result<()> {
     let PartFolder { dir, work } = folder;
     let dir = dir.as_path();
     let none: &[(String, String)] = &[];
-    let part = {
-        let mut part = part;
-        sinks.finish(std::mem::take(&mut part.hazard), std::mem::take(&mut part.residuals))?;
-        part
-    };
+    sinks.finish(std::mem::take(&mut part.hazard), std::mem::take(&mut part.residuals))?;
     write_intensity_params(&part.params, &work.join("intensity_params.parquet"), none)?;
     write_basis(&part.basis, &work.join("cds_bond_basis.parquet"), none)?;
     write_discount_curves(&part.discount, &work.join("discount_curves.parquet"), none)?;

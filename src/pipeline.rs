@@ -15,7 +15,7 @@ use crate::commands::backtest::{backtest_from_members, first_defaults, write_bac
 use crate::commands::calibrate::{metadata, CalibrationParams};
 use crate::commands::review::{multi_currency, quality_flags, run_stability, stability_inputs, write_flags, write_stability_tables, AnyFlag, GradeBook, RowDigest};
 use crate::ingest::Dataset;
-use crate::partition::{compute_partition, keep_shard, merge_part_rows, read_partition, write_partition, PartFolder, Partition, RowSinks, Shard, StageTiming};
+use crate::partition::{compute_partition, keep_shard, merge_part_rows, work_folder, read_partition, write_partition, PartFolder, Partition, RowSinks, Shard, StageTiming};
 use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::{load, TableCounts};
@@ -168,10 +168,7 @@ impl RunFolder {
     fn create(cfg: &RunConfig, opts: &RunOptions, period: Option<(chrono::NaiveDate, chrono::NaiveDate)>) -> Result<RunFolder> {
         let label = run_label(cfg, opts, period);
         let final_dir = output_root(cfg, opts).join(&cfg.name).join(&label);
-        let parent = final_dir.parent().unwrap_or(Path::new(".")).to_path_buf();
-        std::fs::create_dir_all(&parent).map_err(|e| Error::Write { path: parent.clone(), message: e.to_string() })?;
-        let work = parent.join(format!(".{label}.partial-{}", std::process::id()));
-        let _ = std::fs::remove_dir_all(&work);
+        let work = work_folder(&final_dir)?;
         let tables = work.join("tables");
         std::fs::create_dir_all(&tables).map_err(|e| Error::Write { path: tables.clone(), message: e.to_string() })?;
         Ok(RunFolder { label, final_dir, work })
@@ -343,7 +340,8 @@ fn combine(parts: Vec<Partition>) -> Result<Partition> {
     let mut entities = BTreeSet::new();
     let mut multi = BTreeSet::new();
     // Vec::append into an empty vector moves nothing but still copies: the first part's
-    // vectors are taken over whole (a single run has only that one).
+    // vectors are taken over whole. (The parts' node and residual rows are not here: the
+    // merge streams them, `merge_part_rows`.)
     fn join<T>(all: &mut Vec<T>, part: &mut Vec<T>) {
         if all.is_empty() {
             std::mem::swap(all, part);
@@ -352,8 +350,6 @@ fn combine(parts: Vec<Partition>) -> Result<Partition> {
         }
     }
     for mut p in parts {
-        join(&mut all.hazard, &mut p.hazard);
-        join(&mut all.residuals, &mut p.residuals);
         join(&mut all.params, &mut p.params);
         join(&mut all.basis, &mut p.basis);
         join(&mut all.discount, &mut p.discount);

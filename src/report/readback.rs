@@ -123,19 +123,32 @@ pub const SLICE_ROWS: usize = 1 << 20;
 /// a table of tens of millions of rows is never held whole (a slice reads only the row groups
 /// it covers). A table without rows gives one empty slice.
 pub fn for_each_slice(path: &Path, mut f: impl FnMut(&DataFrame) -> Result<()>) -> Result<()> {
-    let failed = |e: &dyn std::fmt::Display| Error::Read { path: path.to_path_buf(), format: "Parquet", message: e.to_string() };
-    let open = || std::fs::File::open(path).map_err(|e| failed(&e));
-    let n = ParquetReader::new(open()?).num_rows().map_err(|e| failed(&e))?;
+    let n = row_count(path)?;
     let mut offset = 0;
     loop {
         let len = SLICE_ROWS.min(n - offset);
-        let df = ParquetReader::new(open()?).with_slice(Some((offset, len))).finish().map_err(|e| failed(&e))?;
-        f(&df)?;
+        f(&read_slice(path, offset, len)?)?;
         offset += len;
         if offset >= n {
             return Ok(());
         }
     }
+}
+
+fn parquet_error(path: &Path, e: &dyn std::fmt::Display) -> Error {
+    Error::Read { path: path.to_path_buf(), format: "Parquet", message: e.to_string() }
+}
+
+/// Rows of a Parquet table, from its metadata.
+fn row_count(path: &Path) -> Result<usize> {
+    let file = std::fs::File::open(path).map_err(|e| parquet_error(path, &e))?;
+    ParquetReader::new(file).num_rows().map_err(|e| parquet_error(path, &e))
+}
+
+/// Rows `offset..offset + len` of a Parquet table (only the row groups they lie in are read).
+fn read_slice(path: &Path, offset: usize, len: usize) -> Result<DataFrame> {
+    let file = std::fs::File::open(path).map_err(|e| parquet_error(path, &e))?;
+    ParquetReader::new(file).with_slice(Some((offset, len))).finish().map_err(|e| parquet_error(path, &e))
 }
 
 /// The rows of a large table read in order, [`SLICE_ROWS`] at a time, as they are asked for.
@@ -149,17 +162,13 @@ pub struct RowCursor<T> {
 
 impl<T> RowCursor<T> {
     fn open(path: &Path, read: fn(&DataFrame, &Path) -> Result<Vec<T>>) -> Result<Self> {
-        let file = std::fs::File::open(path).map_err(|e| Error::Read { path: path.to_path_buf(), format: "Parquet", message: e.to_string() })?;
-        let rows = ParquetReader::new(file).num_rows().map_err(|e| Error::Read { path: path.to_path_buf(), format: "Parquet", message: e.to_string() })?;
-        Ok(RowCursor { path: path.to_path_buf(), rows, offset: 0, read, buffer: Default::default() })
+        Ok(RowCursor { path: path.to_path_buf(), rows: row_count(path)?, offset: 0, read, buffer: Default::default() })
     }
 
     fn fill(&mut self) -> Result<()> {
         if self.buffer.is_empty() && self.offset < self.rows {
-            let failed = |e: &dyn std::fmt::Display| Error::Read { path: self.path.clone(), format: "Parquet", message: e.to_string() };
             let len = SLICE_ROWS.min(self.rows - self.offset);
-            let file = std::fs::File::open(&self.path).map_err(|e| failed(&e))?;
-            let df = ParquetReader::new(file).with_slice(Some((self.offset, len))).finish().map_err(|e| failed(&e))?;
+            let df = read_slice(&self.path, self.offset, len)?;
             self.buffer.extend((self.read)(&df, &self.path)?);
             self.offset += len;
         }

@@ -10,7 +10,7 @@
 use super::inputs::{daily_moves, DailyMove, Panel, PeriodCounts, Point};
 use super::period::Period;
 use super::settings::StabilitySettings;
-use super::summary::{mean, quantile_sorted, relative_change, sample_sd, sorted};
+use super::summary::{mean, quantile_sorted, quantiles_unsorted, relative_change, sample_sd, sorted};
 use chrono::NaiveDate;
 use std::collections::BTreeMap;
 
@@ -314,9 +314,7 @@ pub(crate) fn cross_sections(panel: &Panel, settings: &StabilitySettings) -> Vec
             let rows = grade_rows.into_iter().map(|((key, date), v)| (Scope::Grade, key, date, v)).chain(universe_rows.into_iter().map(|(date, v)| (Scope::Universe, "all", date, v)));
             let mut out = Vec::new();
             for (scope, key, date, mut v) in rows {
-                // The values in the order the panel holds them, sorted: the band of `band`.
-                v.sort_by(f64::total_cmp);
-                if let (Some(p10), Some(p50), Some(p90)) = (quantile_sorted(&v, 0.1), quantile_sorted(&v, 0.5), quantile_sorted(&v, 0.9)) {
+                if let [Some(p10), Some(p50), Some(p90)] = quantiles_unsorted(&mut v, &[0.1, 0.5, 0.9])[..] {
                     out.push(CrossSectionRow { date, period: settings.period.of(date).label(), series: name.to_string(), scope, key: key.to_string(), n: v.len(), p10, p50, p90 });
                 }
             }

@@ -77,12 +77,6 @@ pub fn sorted(values: &[f64]) -> Vec<f64> {
     v
 }
 
-/// The 10%, 50% and 90% quantiles of `values`, for cross-sectional bands.
-pub fn band(values: &[f64]) -> Option<(f64, f64, f64)> {
-    let s = sorted(values);
-    Some((quantile_sorted(&s, 0.1)?, quantile_sorted(&s, 0.5)?, quantile_sorted(&s, 0.9)?))
-}
-
 /// Feeds `item` into `top`, which keeps the first `n` items of a stable sort by `order` of
 /// everything fed so far (in feeding order): an item enters only when it beats the n-th, so
 /// millions of rows are never sorted to find a few.
