@@ -129,9 +129,16 @@ enum Command {
         /// finishes the run once every shard has run.
         #[arg(long, value_name = "I/N", value_parser = parse_shard)]
         shard: Option<hazardline::partition::Shard>,
+        /// Run only the per-entity stages for the curve dates FROM..TO (both included, either
+        /// end may be left open, e.g. `..2016-12-31`, `2017-01-01..`) and write their part
+        /// beside the run folder, as --shard does (with or without --shard); `merge` finishes
+        /// the run once parts cover every date of every shard.
+        #[arg(long, value_name = "FROM..TO", value_parser = parse_dates)]
+        dates: Option<hazardline::partition::DateRange>,
     },
-    /// Finish a sharded run: read the parts of every shard (`run --shard I/N`, I = 1..N) and
-    /// write the run folder, the same files a single run writes.
+    /// Finish a sharded run: read the parts of every shard (`run --shard I/N`, I = 1..N, and
+    /// `--dates FROM..TO` ranges that cover every date) and write the run folder, the same
+    /// files a single run writes.
     Merge {
         /// The pipeline file (TOML) the shards ran.
         pipeline: PathBuf,
@@ -267,6 +274,10 @@ fn parse_shard(s: &str) -> Result<hazardline::partition::Shard, String> {
     hazardline::partition::Shard::parse(s)
 }
 
+fn parse_dates(s: &str) -> Result<hazardline::partition::DateRange, String> {
+    hazardline::partition::DateRange::parse(s)
+}
+
 fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Calibrate { inputs, recovery, infeasible, accrual, out } => {
@@ -326,7 +337,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 }
             }
         }
-        Command::Run { pipeline, out, label, shard } => {
+        Command::Run { pipeline, out, label, shard, dates } => {
             let cfg = match hazardline::config::load_pipeline(&pipeline) {
                 Ok(c) => c,
                 Err(e) => {
@@ -335,10 +346,12 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 }
             };
             let opts = hazardline::pipeline::RunOptions { out_root: out, label };
-            if let Some(shard) = shard {
-                return match hazardline::pipeline::run_shard(&cfg, &opts, shard) {
+            if shard.is_some() || dates.is_some() {
+                let (shard, dates) = (shard.unwrap_or(hazardline::partition::Shard::ALL), dates.unwrap_or_default());
+                return match hazardline::pipeline::run_shard(&cfg, &opts, shard, dates) {
                     Ok(s) => {
-                        println!("shard {shard}: {} entities, {} curves", s.entities, s.curves);
+                        let range = if dates.is_all() { String::new() } else { format!(", dates {dates}") };
+                        println!("shard {shard}{range}: {} entities, {} curves", s.entities, s.curves);
                         for (stage, secs, _, _) in &s.timings {
                             tracing::info!(stage = stage.as_str(), seconds = secs, "stage finished");
                         }

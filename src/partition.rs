@@ -19,7 +19,7 @@ use crate::backtest::{self, Outcome};
 use crate::commands::backtest::{backtest_members_stage, may_serve_a_cohort, CurveCoverage};
 use crate::commands::calibrate::{calibrate_blocks, CalibrationParams};
 use crate::commands::intensity::{calibrate_intensity, CurvesForFits};
-use crate::commands::review::{CurveSeries, GradeBook, RowDigest};
+use crate::commands::review::{CurveSeries, GradeBook, RowDigest, SpreadEdge};
 use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::{discount, Dataset, Reject};
@@ -80,6 +80,63 @@ impl std::fmt::Display for Shard {
     }
 }
 
+/// The curve dates a part calibrates and writes: `FROM..TO`, both ends included, either end
+/// open (`..2016-12-31`, `2017-01-01..`); the whole history when both are open.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct DateRange {
+    pub from: Option<NaiveDate>,
+    pub to: Option<NaiveDate>,
+}
+
+impl DateRange {
+    /// Every date.
+    pub const ALL: DateRange = DateRange { from: None, to: None };
+
+    /// Parses `FROM..TO` (ISO dates, either side may be left empty, FROM <= TO).
+    pub fn parse(s: &str) -> std::result::Result<DateRange, String> {
+        let (a, b) = s.split_once("..").ok_or_else(|| format!("dates `{s}`: expected FROM..TO, e.g. 2015-01-01..2016-12-31 (either end may be left out)"))?;
+        let date = |x: &str| -> std::result::Result<Option<NaiveDate>, String> {
+            let x = x.trim();
+            if x.is_empty() {
+                return Ok(None);
+            }
+            NaiveDate::parse_from_str(x, "%Y-%m-%d").map(Some).map_err(|_| format!("dates `{s}`: `{x}` is not a date (YYYY-MM-DD)"))
+        };
+        let r = DateRange { from: date(a)?, to: date(b)? };
+        if let (Some(f), Some(t)) = (r.from, r.to) {
+            if f > t {
+                return Err(format!("dates `{s}`: {f} is after {t}"));
+            }
+        }
+        Ok(r)
+    }
+
+    pub fn contains(&self, d: NaiveDate) -> bool {
+        self.from.is_none_or(|f| d >= f) && self.to.is_none_or(|t| d <= t)
+    }
+
+    pub fn is_all(&self) -> bool {
+        self.from.is_none() && self.to.is_none()
+    }
+
+    /// The part folder's suffix: empty for the whole history, else e.g.
+    /// `-from-2017-01-01-to-end`.
+    pub fn folder_suffix(&self) -> String {
+        if self.is_all() {
+            return String::new();
+        }
+        let show = |d: Option<NaiveDate>, open: &str| d.map_or(open.to_string(), |d| d.to_string());
+        format!("-from-{}-to-{}", show(self.from, "start"), show(self.to, "end"))
+    }
+}
+
+impl std::fmt::Display for DateRange {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        let show = |d: Option<NaiveDate>| d.map_or(String::new(), |d| d.to_string());
+        write!(f, "{}..{}", show(self.from), show(self.to))
+    }
+}
+
 /// FNV-1a, 64 bit (offset basis 14695981039346656037, prime 1099511628211).
 pub fn fnv1a(bytes: &[u8]) -> u64 {
     let mut h: u64 = 0xcbf2_9ce4_8422_2325;
@@ -132,6 +189,86 @@ pub fn keep_shard(ds: &mut Dataset, shard: Shard) {
     }
 }
 
+/// What a part of a date range knows beyond its own dates: its range, and each entity's data
+/// end (the backtest censors a member there), a fact of the whole history.
+#[derive(Debug, Clone, Default)]
+pub struct DateScope {
+    pub range: DateRange,
+    /// Each entity's last usable CDS quote date over the whole history.
+    pub data_end: BTreeMap<String, NaiveDate>,
+}
+
+/// Each entity's last usable CDS quote date in the panel: where the data on it ends.
+pub fn data_ends(ds: &Dataset) -> BTreeMap<String, NaiveDate> {
+    let mut out = BTreeMap::new();
+    if let Some(p) = &ds.cds {
+        let mut last: Vec<Option<NaiveDate>> = vec![None; p.entities.len()];
+        for r in &p.rows {
+            let slot = &mut last[r.entity as usize];
+            *slot = Some(slot.map_or(r.date, |d| d.max(r.date)));
+        }
+        for (i, d) in last.into_iter().enumerate() {
+            if let Some(d) = d {
+                out.insert(p.entities.name(i as u32).to_string(), d);
+            }
+        }
+    }
+    out
+}
+
+/// Cuts `ds` (after [`keep_shard`]) to the curve dates of `range`, and returns the
+/// [`DateScope`] of the part. The CDS quotes outside the range leave the part's accounting,
+/// but some stay in the panel as a margin that is calibrated and never written: those within
+/// the backtest's look-back before the range (a cohort date in the range may use a curve
+/// dated before it) and every quote of a CIR name (the CIR fit runs day after day from the
+/// name's first curve: the free mode starts each day from the day before, the
+/// fixed-kappa-sigma mode's windows count the name's days from its first). Bond quotes are
+/// cut to the range (their fits look at one day).
+pub fn keep_dates(ds: &mut Dataset, range: DateRange, cfg: &RunConfig) -> DateScope {
+    let data_end = data_ends(ds);
+    if range.is_all() {
+        return DateScope { range, data_end };
+    }
+    let lookback = chrono::Duration::days(cfg.backtest.core.lookback_days.max(0));
+    let margin_from = range.from.filter(|_| cfg.backtest.enabled).map(|f| (f - lookback, f));
+    let mut dropped: Vec<(&'static str, usize)> = Vec::new();
+    if let Some(p) = &mut ds.cds {
+        let s = &cfg.intensity;
+        let cir: Vec<bool> = (0..p.entities.len() as u32).map(|i| s.cir && s.cir_entities.as_ref().is_none_or(|l| l.iter().any(|x| x == p.entities.name(i)))).collect();
+        let mut outside = 0;
+        let keep: Vec<bool> = p
+            .rows
+            .iter()
+            .map(|r| {
+                if range.contains(r.date) {
+                    return true;
+                }
+                outside += 1;
+                cir[r.entity as usize] || margin_from.is_some_and(|(a, b)| r.date >= a && r.date < b)
+            })
+            .collect();
+        let mut it = keep.iter();
+        p.rows.retain(|_| *it.next().unwrap_or(&false));
+        if ds.cds_flags.len() == keep.len() {
+            let mut it = keep.iter();
+            ds.cds_flags.retain(|_| *it.next().unwrap_or(&false));
+        }
+        dropped.push((crate::ingest::cds::TABLE, outside));
+    }
+    if let Some(q) = &mut ds.bond_quotes {
+        let before = q.rows.len();
+        q.rows.retain(|(r, _)| range.contains(r.date));
+        dropped.push((crate::ingest::tables::BOND_QUOTES, before - q.rows.len()));
+    }
+    for (table, n) in dropped {
+        for c in ds.counts.iter_mut().filter(|c| c.table == table) {
+            c.rows_in -= n;
+            c.used -= n;
+        }
+    }
+    DateScope { range, data_end }
+}
+
 /// What a partition says about itself (`partition.json`).
 #[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct PartitionMeta {
@@ -152,6 +289,19 @@ pub struct PartitionMeta {
     pub multi_currency: Vec<String>,
     /// Recoveries of the backtest members, base first.
     pub recoveries: Vec<f64>,
+    /// First and last curve date of the part's date range (ISO dates; None: open).
+    #[serde(default)]
+    pub dates_from: Option<String>,
+    #[serde(default)]
+    pub dates_to: Option<String>,
+}
+
+impl PartitionMeta {
+    /// The part's date range.
+    pub fn range(&self, path: &Path) -> Result<DateRange> {
+        let date = |s: &Option<String>| s.as_deref().map(|s| parse_date(path, s)).transpose();
+        Ok(DateRange { from: date(&self.dates_from)?, to: date(&self.dates_to)? })
+    }
 }
 
 /// The per-entity results of one shard (or of the whole universe).
@@ -171,6 +321,9 @@ pub struct Partition {
     /// Curve series of the stability stage.
     pub curve_obs: PanelBuilder,
     pub market: Vec<MarketMove>,
+    /// Each series entity's first and last curve's spreads, for the moves across the
+    /// boundaries of date ranges.
+    pub edges: Vec<SpreadEdge>,
     /// Backtest members per recovery, base first.
     pub members: Vec<(f64, Vec<backtest::Observation>)>,
     pub curves: usize,
@@ -179,6 +332,9 @@ pub struct Partition {
     pub curve_dates: Option<(NaiveDate, NaiveDate)>,
     pub curve_entities: Vec<String>,
     pub multi_currency: Vec<String>,
+    /// The entity shard (its index) and the date range of this part.
+    pub shard: u32,
+    pub range: DateRange,
 }
 
 /// One stage's wall time and the memory after it.
@@ -262,7 +418,7 @@ impl<'a> RowSinks<'a> {
 /// the curves themselves are kept only where a later step reads them (the bond and CIR fits,
 /// the backtest's curves near a cohort date), the stability series being taken on the way.
 /// `multi` is [`crate::commands::review::multi_currency`] of the panel.
-pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &CalibrationParams, shard: Shard, sinks: &mut RowSinks, multi: &BTreeSet<String>) -> Result<(Partition, Vec<StageTiming>)> {
+pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &CalibrationParams, shard: Shard, scope: &DateScope, sinks: &mut RowSinks, multi: &BTreeSet<String>) -> Result<(Partition, Vec<StageTiming>)> {
     let mut timings = Vec::new();
     let t = Instant::now();
     let grades = GradeBook::new(ds);
@@ -279,15 +435,17 @@ pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &Calibration
         // that holds one, so at most three blocks are alive at once.
         let (tx, rx) = std::sync::mpsc::sync_channel::<crate::commands::calibrate::CurveBlock>(1);
         let (series, coverage, kept) = (&mut series, &mut coverage, &mut kept);
-        let (serves, for_fits) = (&serves, &for_fits);
-        std::thread::scope(|scope| {
-            let consumer = scope.spawn(move || -> Result<()> {
+        let (serves, for_fits, range) = (&serves, &for_fits, scope.range);
+        std::thread::scope(|threads| {
+            let consumer = threads.spawn(move || -> Result<()> {
                 for block in rx {
                     sinks.nodes(block.hazard)?;
                     sinks.residual_rows(block.residuals)?;
                     for (key, curve) in block.curves {
-                        coverage.add(key.0, &key.1);
-                        series.add(key.0, &key.1, &key.2, &curve);
+                        if range.contains(key.0) {
+                            coverage.add(key.0, &key.1);
+                            series.add(key.0, &key.1, &key.2, &curve);
+                        }
                         if (backtest && serves(key.0)) || for_fits.wants(&key) {
                             kept.insert(key, curve);
                         }
@@ -295,7 +453,7 @@ pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &Calibration
                 }
                 Ok(())
             });
-            let cal = calibrate_blocks(ds, params, move |block| tx.send(block).map_err(|_| Error::Other("the writer of the calibrated curves stopped".into())));
+            let cal = calibrate_blocks(ds, params, range, move |block| tx.send(block).map_err(|_| Error::Other("the writer of the calibrated curves stopped".into())));
             let consumed = consumer.join().map_err(|_| Error::Other("the writer of the calibrated curves failed; this is a bug, please report it".into()))?;
             // The writer's own error says more than the calibration's "writer stopped".
             consumed?;
@@ -310,22 +468,22 @@ pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &Calibration
         // panel's rows can go.
         p.release_rows();
     }
-    let (curve_obs, market) = series.finish();
+    let (curve_obs, market, edges) = series.finish();
     timings.push(timed("calibrate, curve series", t));
     let t = Instant::now();
-    let mut fits = calibrate_intensity(ds, &cal, params, &cfg.intensity)?;
+    let mut fits = calibrate_intensity(ds, &cal, params, &cfg.intensity, scope.range)?;
     timings.push(timed("bond and CIR fits", t));
 
     let t = Instant::now();
-    let members = if backtest { backtest_members_stage(ds, &cal, &coverage, params, &cfg.backtest)? } else { Vec::new() };
+    let members = if backtest { backtest_members_stage(ds, &cal, scope, params, &cfg.backtest)? } else { Vec::new() };
     timings.push(timed("backtest members", t));
     drop(cal.cds_curves);
 
     let mut rejects = std::mem::take(&mut cal.rejects);
     rejects.append(&mut fits.rejects);
     let mut discount_rows = std::mem::take(&mut cal.discount);
-    if !shard.is_first() {
-        // Every shard builds the same discount curves from the whole discount table.
+    if !(shard.is_first() && scope.range.from.is_none()) {
+        // Every part builds the same discount curves from the whole discount table.
         rejects.retain(|r| r.table != discount::TABLE);
         discount_rows.clear();
     }
@@ -338,6 +496,7 @@ pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &Calibration
         rejects,
         curve_obs,
         market,
+        edges,
         members,
         curves: cal.curves,
         curves_complete: cal.curves_complete,
@@ -345,6 +504,8 @@ pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &Calibration
         curve_dates: coverage.dates,
         curve_entities: coverage.last_by_entity.into_keys().collect(),
         multi_currency: multi.iter().cloned().collect(),
+        shard: shard.index,
+        range: scope.range,
     };
     Ok((part, timings))
 }
@@ -413,6 +574,24 @@ pub fn write_partition(folder: PartFolder, sinks: RowSinks, mut part: Partition,
         .floats("mean_level_bp", m.iter().map(|x| Some(x.mean_level_bp)))
         .finish()?;
     write_parquet(&mut df, &work.join("stability_market.parquet"), none)?;
+    // One row per (edge, tenor); an edge without par spreads (upfront quotes only) keeps one
+    // row with empty tenor and spread, since it still ends the carry of the part before.
+    let e: Vec<(&SpreadEdge, Option<(u32, f64)>)> = part
+        .edges
+        .iter()
+        .flat_map(|x| {
+            let rows: Vec<Option<(u32, f64)>> = if x.spreads.is_empty() { vec![None] } else { x.spreads.iter().map(|(t, v)| Some((*t, *v))).collect() };
+            rows.into_iter().map(move |r| (x, r))
+        })
+        .collect();
+    let mut df = TableBuilder::new()
+        .strings("entity", e.iter().map(|(x, _)| Some(&*x.entity)))
+        .strings("edge", e.iter().map(|(x, _)| Some(if x.last { "last" } else { "first" })))
+        .dates("date", e.iter().map(|(x, _)| Some(x.date)))
+        .ints("tenor_months", e.iter().map(|(_, r)| r.map(|r| i64::from(r.0))))
+        .floats("spread_bp", e.iter().map(|(_, r)| r.map(|r| r.1)))
+        .finish()?;
+    write_parquet(&mut df, &work.join("stability_edges.parquet"), none)?;
     let rows: Vec<(f64, &backtest::Observation)> = part.members.iter().flat_map(|(r, v)| v.iter().map(move |o| (*r, o))).collect();
     let mut df = TableBuilder::new()
         .floats("recovery", rows.iter().map(|(r, _)| Some(*r)))
@@ -441,6 +620,8 @@ pub fn write_partition(folder: PartFolder, sinks: RowSinks, mut part: Partition,
         curve_entities: part.curve_entities.clone(),
         multi_currency: part.multi_currency.clone(),
         recoveries: part.members.iter().map(|(r, _)| *r).collect(),
+        dates_from: part.range.from.map(|d| d.to_string()),
+        dates_to: part.range.to.map(|d| d.to_string()),
     };
     let text = serde_json::to_string_pretty(&meta).map_err(|e| Error::Other(format!("partition.json: {e}")))?;
     crate::report::manifest::write_text(&work.join("partition.json"), &(text + "\n"))?;
@@ -539,6 +720,8 @@ pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
         max_abs_residual_bp: meta.max_abs_residual_bp,
         curve_entities: meta.curve_entities.clone(),
         multi_currency: meta.multi_currency.clone(),
+        shard: meta.shard,
+        range: meta.range(&dir.join("partition.json"))?,
         ..Default::default()
     };
     let json = dir.join("partition.json");
@@ -567,6 +750,25 @@ pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
             })
         })
         .collect::<Result<_>>()?;
+
+    let path = dir.join("stability_edges.parquet");
+    let df = read_frame(&path)?;
+    let (e, side, d, t, v) = (required_labels(&df, &path, "entity")?, strs(&df, &path, "edge")?, dates(&df, &path, "date")?, ints(&df, &path, "tenor_months")?, floats(&df, &path, "spread_bp")?);
+    for i in 0..df.height() {
+        let last = match side[i].as_deref() {
+            Some("last") => true,
+            Some("first") => false,
+            _ => return Err(Error::Read { path: path.clone(), format: "Parquet", message: format!("row {}: column edge is not `first` or `last`", i + 1) }),
+        };
+        let date = d[i].ok_or_else(|| missing(&path, "date", i))?;
+        let same = part.edges.last().is_some_and(|x: &SpreadEdge| x.last == last && x.date == date && x.entity == e[i]);
+        if !same {
+            part.edges.push(SpreadEdge { entity: e[i].clone(), date, last, spreads: BTreeMap::new() });
+        }
+        if let (Some(t), Some(v), Some(x)) = (t[i], v[i], part.edges.last_mut()) {
+            x.spreads.insert(t as u32, v);
+        }
+    }
 
     let path = dir.join("backtest_members.parquet");
     let df = read_frame(&path)?;

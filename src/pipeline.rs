@@ -15,7 +15,7 @@ use crate::commands::backtest::{backtest_from_members, first_defaults, write_bac
 use crate::commands::calibrate::{metadata, CalibrationParams};
 use crate::commands::review::{multi_currency, quality_flags, run_stability, stability_inputs, write_flags, write_stability_tables, AnyFlag, GradeBook, RowDigest};
 use crate::ingest::Dataset;
-use crate::partition::{compute_partition, keep_shard, merge_part_rows, work_folder, read_partition, write_partition, PartFolder, Partition, RowSinks, Shard, StageTiming};
+use crate::partition::{compute_partition, keep_dates, keep_shard, merge_part_rows, DateRange, work_folder, read_partition, write_partition, PartFolder, Partition, RowSinks, Shard, StageTiming};
 use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::{load, TableCounts};
@@ -218,7 +218,8 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let meta = table_metadata(cfg, &params);
     let multi = multi_currency_of(cfg, &ds);
     let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)), Some(report_folds(cfg)?))?;
-    let (part, t) = compute_partition(&mut ds, cfg, &params, Shard::ALL, &mut sinks, &multi)?;
+    let scope = keep_dates(&mut ds, DateRange::ALL, cfg);
+    let (part, t) = compute_partition(&mut ds, cfg, &params, Shard::ALL, &scope, &mut sinks, &multi)?;
     timings.extend(t);
     finish(cfg, ds, ingest_counts, part, sinks, &multi, folder, &meta, timings, t0)
 }
@@ -232,10 +233,11 @@ pub struct ShardSummary {
     pub timings: Vec<StageTiming>,
 }
 
-/// Runs the per-entity half of the pipeline for one shard and writes its part. Every shard
-/// reads the whole input (the data-quality rules and the run label need it) and keeps its
-/// own entities' rows for calibration.
-pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard) -> Result<ShardSummary> {
+/// Runs the per-entity half of the pipeline for one part, the entities of `shard` and the
+/// curve dates of `dates`, and writes the part. Every part reads the whole input (the
+/// data-quality rules, the data ends and the run label need it) and keeps its own entities'
+/// rows and dates for calibration (with the margin of [`keep_dates`]).
+pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard, dates: DateRange) -> Result<ShardSummary> {
     share_heaps();
     let t0 = Instant::now();
     let mut timings = Vec::new();
@@ -243,11 +245,12 @@ pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard) -> Result<Sha
     let label = run_label(cfg, opts, quote_period(&ds));
     keep_shard(&mut ds, shard);
     let multi = multi_currency_of(cfg, &ds);
+    let scope = keep_dates(&mut ds, dates, cfg);
     let (_, sha) = hash_file(&cfg.pipeline_path)?;
-    let dir = shards_dir(cfg, opts, &label).join(shard.folder());
+    let dir = shards_dir(cfg, opts, &label).join(shard.folder() + &dates.folder_suffix());
     let folder = PartFolder::create(&dir)?;
     let mut sinks = folder.sinks()?;
-    let (part, t) = compute_partition(&mut ds, cfg, &calibration_params(cfg), shard, &mut sinks, &multi)?;
+    let (part, t) = compute_partition(&mut ds, cfg, &calibration_params(cfg), shard, &scope, &mut sinks, &multi)?;
     timings.extend(t);
     drop(ds);
     let t = Instant::now();
@@ -316,19 +319,51 @@ fn read_parts(dir: &Path, pipeline: &Path) -> Result<(Vec<PathBuf>, Vec<Partitio
     if let Some(m) = metas.iter().find(|m| m.shards != n) {
         return Err(bad(format!("{} holds parts of {n} and of {} shards; keep one set", dir.display(), m.shards)));
     }
-    let have: BTreeSet<u32> = metas.iter().map(|m| m.shard).collect();
-    let lacking: Vec<String> = (1..=n).filter(|i| !have.contains(i)).map(|i| format!("{i}/{n}")).collect();
+    let mut keyed: Vec<(u32, DateRange, PathBuf)> = Vec::new();
+    for (m, f) in metas.iter().zip(folders) {
+        keyed.push((m.shard, m.range(&f.join("partition.json"))?, f));
+    }
+    // Parts in shard order, each shard's date ranges in date order (an open start first).
+    keyed.sort_by(|a, b| (a.0, a.1.from).cmp(&(b.0, b.1.from)));
+    let lacking: Vec<String> = (1..=n).filter(|i| !keyed.iter().any(|k| k.0 == *i)).map(|i| format!("{i}/{n}")).collect();
     if !lacking.is_empty() {
         return Err(bad(format!("{}: shards {} are missing; run them, then merge", dir.display(), lacking.join(", "))));
     }
-    if have.len() != metas.len() {
-        return Err(bad(format!("{}: a shard's part is there twice (under two folder names); keep one", dir.display())));
+    for i in 1..=n {
+        let ranges: Vec<DateRange> = keyed.iter().filter(|k| k.0 == i).map(|k| k.1).collect();
+        check_tiling(&ranges).map_err(|m| bad(format!("{}: shard {i}/{n}: {m}", dir.display())))?;
     }
-    let mut by_index: Vec<(u32, PathBuf)> = metas.iter().map(|m| m.shard).zip(folders).collect();
-    by_index.sort();
-    let dirs: Vec<PathBuf> = by_index.into_iter().map(|(_, f)| f).collect();
+    let dirs: Vec<PathBuf> = keyed.into_iter().map(|(_, _, f)| f).collect();
     let parts = dirs.iter().map(|f| read_partition(f).map(|(_, p)| p)).collect::<Result<Vec<_>>>()?;
     Ok((dirs, parts))
+}
+
+/// Whether the date ranges of one shard's parts (in date order, an open start first) cover
+/// every date once: the first open at the start, the last open at the end, each starting the
+/// day after the one before ends.
+fn check_tiling(ranges: &[DateRange]) -> std::result::Result<(), String> {
+    let mut next: Option<Option<chrono::NaiveDate>> = Some(None);
+    for r in ranges {
+        let Some(expected) = next else {
+            return Err(format!("the part of {r} comes after a part open at the end (the dates overlap); keep one"));
+        };
+        if r.from != expected {
+            return Err(match (expected, r.from) {
+                (None, Some(f)) => format!("no part covers the dates before {f}; run a part with --dates ..{}", f.pred_opt().unwrap_or(f)),
+                (Some(e), Some(f)) if f > e => format!("no part covers {e}..{}; run a part with those dates", f.pred_opt().unwrap_or(f)),
+                _ => format!("the part of {r} overlaps the part before it (a part's dates start the day after the last part's end); keep one set of parts"),
+            });
+        }
+        next = r.to.map(|t| t.succ_opt());
+        if r.to.is_some() && next == Some(None) {
+            return Err(format!("the part of {r} ends on the last date there is"));
+        }
+    }
+    match next {
+        None => Ok(()),
+        Some(Some(d)) => Err(format!("no part covers the dates from {d} on; run a part with --dates {d}..")),
+        Some(None) => Err("no part".into()),
+    }
 }
 
 /// The rows of every part, in one canonical order (a curve's rows stay in their order: each
@@ -349,7 +384,23 @@ fn combine(parts: Vec<Partition>) -> Result<Partition> {
             all.append(part);
         }
     }
+    // The market move on an entity's first curve in a date range's part is from its last
+    // curve in an earlier part of the same shard (parts come in shard, then date order).
+    let mut carry: std::collections::HashMap<crate::report::tables::Label, std::collections::BTreeMap<u32, f64>> = Default::default();
+    let mut shard = None;
     for mut p in parts {
+        if shard != Some(p.shard) {
+            carry.clear();
+            shard = Some(p.shard);
+        }
+        for e in p.edges.iter().filter(|e| !e.last) {
+            if let Some(prev) = carry.get(&e.entity) {
+                all.market.extend(crate::commands::review::spread_move(&e.entity, e.date, prev, &e.spreads));
+            }
+        }
+        for e in p.edges.drain(..).filter(|e| e.last) {
+            carry.insert(e.entity, e.spreads);
+        }
         join(&mut all.params, &mut p.params);
         join(&mut all.basis, &mut p.basis);
         join(&mut all.discount, &mut p.discount);

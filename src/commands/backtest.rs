@@ -101,9 +101,9 @@ pub fn spreads_of(quotes: &[BootstrapQuote]) -> Vec<QuotedSpread> {
         .collect()
 }
 
-/// Entity facts of the calibrated entities: grade spells, first default, and the last curve
-/// date (`last_curve`, per entity).
-fn facts(ds: &Dataset, last_curve: &BTreeMap<String, NaiveDate>) -> Vec<EntityFacts> {
+/// Entity facts of the quoted entities: grade spells, first default, and where the data on
+/// the entity ends (`data_end`: its last usable CDS quote date).
+fn facts(ds: &Dataset, data_end: &BTreeMap<String, NaiveDate>) -> Vec<EntityFacts> {
     let mut spells: BTreeMap<&str, Vec<GradeSpell>> = BTreeMap::new();
     if let Some(g) = &ds.grades {
         for (r, _) in &g.rows {
@@ -111,7 +111,7 @@ fn facts(ds: &Dataset, last_curve: &BTreeMap<String, NaiveDate>) -> Vec<EntityFa
         }
     }
     let defaults = first_defaults(ds);
-    last_curve
+    data_end
         .iter()
         .map(|(e, end)| EntityFacts { entity: e.clone(), grades: spells.get(e.as_str()).cloned().unwrap_or_default(), default_date: defaults.get(e.as_str()).copied(), data_end: *end })
         .collect()
@@ -209,18 +209,26 @@ fn scenario_curves(cal: &Calibration, base: &CurveSet, dates: &[NaiveDate], look
 /// from it), for the entities this calibration covers.
 ///
 /// The cohort dates of a run follow from the first and last curve date of the whole universe,
-/// which one entity shard does not know; members are built for every cohort date a curve of
-/// these entities can reach (the shard's own first curve date up to its last plus the
-/// look-back), and [`backtest_from_members`] keeps those of the run's cohort dates. Every
-/// member depends on its entity alone, so shards' members concatenate exactly.
+/// which one part (of an entity shard or a date range) does not know; members are built for
+/// every cohort date a kept curve can reach (within the part's date range), and
+/// [`backtest_from_members`] keeps those of the run's cohort dates. Every member depends on its
+/// entity alone, and on the curves within the look-back before its cohort date (a date range's
+/// part calibrates those as a margin), so the parts' members concatenate exactly. An entity's
+/// data end is its last usable quote date over the whole history (`scope.data_end`).
 ///
-/// `cal.cds_curves` needs to hold only the curves [`may_serve_a_cohort`] keeps; `coverage`
-/// describes all of them.
-pub fn backtest_members_stage(ds: &Dataset, cal: &Calibration, coverage: &CurveCoverage, p: &CalibrationParams, stage: &BacktestStage) -> Result<Vec<(f64, Vec<backtest::Observation>)>> {
-    let Some((first, last)) = coverage.dates else {
+/// `cal.cds_curves` needs to hold only the curves [`may_serve_a_cohort`] keeps.
+pub fn backtest_members_stage(ds: &Dataset, cal: &Calibration, scope: &crate::partition::DateScope, p: &CalibrationParams, stage: &BacktestStage) -> Result<Vec<(f64, Vec<backtest::Observation>)>> {
+    // A member needs a curve of the kept set within the look-back on or before its cohort
+    // date, so the cohort dates worth building lie between the first kept curve and the last
+    // one plus the look-back; a part of a date range builds those in its range (the run's
+    // cohort dates are a whole-history fact: the merge keeps those, see
+    // `backtest_from_members`).
+    let lookback = chrono::Duration::days(stage.core.lookback_days.max(0));
+    let kept_first = cal.cds_curves.keys().map(|k| k.0).min();
+    let kept_last = cal.cds_curves.keys().map(|k| k.0).max();
+    let (Some(first), Some(reach)) = (scope.range.from.or(kept_first), scope.range.to.or(kept_last.map(|d| d + lookback))) else {
         return Ok(Vec::new());
     };
-    let reach = last + chrono::Duration::days(stage.core.lookback_days.max(0));
     let dates = cohort_dates(first, reach, stage.frequency, &p.calendar);
     if dates.is_empty() {
         return Ok(Vec::new());
@@ -228,7 +236,7 @@ pub fn backtest_members_stage(ds: &Dataset, cal: &Calibration, coverage: &CurveC
     let core = BacktestSettings { cohort_dates: dates.clone(), ..stage.core.clone() };
     let mk = |e: backtest::BacktestError| Error::Other(format!("backtest stage: {e}"));
     core.check().map_err(mk)?;
-    let facts = facts(ds, &coverage.last_by_entity);
+    let facts = facts(ds, &scope.data_end);
     let mut sorted = dates.clone();
     sorted.sort();
     let base = base_curves(cal, p.recovery, &sorted, core.lookback_days);

@@ -228,7 +228,7 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
     hazard.reserve_exact(quotes);
     residuals.reserve_exact(quotes);
     let mut curves = BTreeMap::new();
-    let mut out = calibrate_blocks(ds, p, |b| {
+    let mut out = calibrate_blocks(ds, p, crate::partition::DateRange::ALL, |b| {
         hazard.extend(b.hazard);
         residuals.extend(b.residuals);
         curves.extend(b.curves);
@@ -243,8 +243,10 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
 /// Calibrates every curve of the dataset's CDS panel, handing each block of curves to `sink`
 /// in key order as soon as it is done; the returned [`Calibration`] has everything but the
 /// rows and curves the blocks carried. Updates `ds.counts` with this stage's rejects and
-/// checks the accounting again.
-pub fn calibrate_blocks(ds: &mut crate::ingest::Dataset, p: &CalibrationParams, mut sink: impl FnMut(CurveBlock) -> Result<()>) -> Result<Calibration> {
+/// checks the accounting again. A curve dated outside `scope` is a margin curve (see
+/// [`crate::partition::keep_dates`]): it is calibrated and handed over in the block's
+/// `curves`, but its rows, rejects and counts belong to another part and are left out.
+pub fn calibrate_blocks(ds: &mut crate::ingest::Dataset, p: &CalibrationParams, scope: crate::partition::DateRange, mut sink: impl FnMut(CurveBlock) -> Result<()>) -> Result<Calibration> {
     let disc = ds.discount.as_ref().ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the discount table".into() })?;
     let panel = ds.cds.as_ref().ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the cds_quotes table".into() })?;
     let mut out = Calibration::default();
@@ -286,8 +288,8 @@ pub fn calibrate_blocks(ds: &mut crate::ingest::Dataset, p: &CalibrationParams, 
     // Curves run in parallel a block at a time and each block goes to the sink before the
     // next starts, so the per-curve vectors of only one block are alive at once.
     let mut cds_used = 0;
-    for block in jobs.chunks(CURVES_PER_BLOCK) {
-        let outputs: Vec<CurveOutput> = block
+    for block_jobs in jobs.chunks(CURVES_PER_BLOCK) {
+        let outputs: Vec<CurveOutput> = block_jobs
             .par_iter()
             .map(|&(a, b)| {
                 let h = &rows[a];
@@ -309,7 +311,11 @@ pub fn calibrate_blocks(ds: &mut crate::ingest::Dataset, p: &CalibrationParams, 
             })
             .collect();
         let mut block = CurveBlock::default();
-        for o in outputs {
+        for (o, &(a, _)) in outputs.into_iter().zip(block_jobs) {
+            if !scope.contains(rows[a].date) {
+                block.curves.extend(o.fit);
+                continue;
+            }
             cds_used += o.used;
             if !o.hazard.is_empty() {
                 out.curves += 1;

@@ -13,6 +13,7 @@
 
 use super::calibrate::{Calibration, CalibrationParams};
 use crate::calibrate::bond_fit::{cds_bond_basis, fit_bond_hazard, BondFitSettings, BondQuote};
+use crate::partition::DateRange;
 use crate::calibrate::intensity_fit::{fit_cir, fit_cir_window, start_from_curve, CirFit, CirFitError, CirFitMode, CirFitSettings, CirWindowDay};
 use crate::error::{Error, Result};
 use crate::ingest::tables::{BondRow, Provenance, BOND_QUOTES};
@@ -242,8 +243,11 @@ fn cir_residuals(date: NaiveDate, entity: &str, currency: &str, f: &CirFit) -> V
         .collect()
 }
 
-/// The CIR fits of one name, day after day.
-fn fit_name(entity: &str, currency: &str, dates: &[NaiveDate], cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings) -> (Vec<IntensityParamRow>, Vec<ResidualRow>) {
+/// The CIR fits of one name, day after day; only the days in `range` are fitted and given
+/// back, the days before them fitted too where a later day depends on them (the free mode
+/// starts each day from the day before's fit; a window of the fixed-kappa-sigma mode is fitted
+/// whole when one of its days is in the range).
+fn fit_name(entity: &str, currency: &str, dates: &[NaiveDate], cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings, range: DateRange) -> (Vec<IntensityParamRow>, Vec<ResidualRow>) {
     let settings = CirFitSettings { accrual: p.bootstrap.accrual, ..CirFitSettings::default() };
     let mut params = Vec::new();
     let mut residuals = Vec::new();
@@ -257,6 +261,10 @@ fn fit_name(entity: &str, currency: &str, dates: &[NaiveDate], cal: &Calibration
         CirFitMode::Free => {
             let mut prev: Option<CirParams> = None;
             for (d, c, disc) in &days {
+                if range.to.is_some_and(|t| *d > t) {
+                    break;
+                }
+                let keep = range.contains(*d);
                 let mut starts: Vec<CirParams> = c.curve.as_ref().map(start_from_curve).into_iter().collect();
                 starts.extend(prev);
                 let r = fit_cir(*d, &c.quotes, disc, &p.calendar, &starts, &settings);
@@ -264,20 +272,27 @@ fn fit_name(entity: &str, currency: &str, dates: &[NaiveDate], cal: &Calibration
                     if f.status.as_str() != "failed" {
                         prev = Some(f.params());
                     }
-                    residuals.extend(cir_residuals(*d, entity, currency, f));
+                    if keep {
+                        residuals.extend(cir_residuals(*d, entity, currency, f));
+                    }
                 }
-                params.push(param_row(*d, entity, currency, s.cir_mode, &r));
+                if keep {
+                    params.push(param_row(*d, entity, currency, s.cir_mode, &r));
+                }
             }
         }
         CirFitMode::FixedKappaSigma => {
             for block in days.chunks(s.cir_window.max(1)) {
+                if !block.iter().any(|(d, _, _)| range.contains(*d)) {
+                    continue;
+                }
                 let window: Vec<CirWindowDay> = block
                     .iter()
                     .map(|(d, c, disc)| CirWindowDay { trade_date: *d, quotes: &c.quotes, discount: disc, start: c.curve.as_ref().map(start_from_curve) })
                     .collect();
                 match fit_cir_window(&window, &p.calendar, &settings) {
                     Ok(w) => {
-                        for ((d, _, _), r) in block.iter().zip(&w.days) {
+                        for ((d, _, _), r) in block.iter().zip(&w.days).filter(|((d, _, _), _)| range.contains(*d)) {
                             if let Ok(f) = r {
                                 residuals.extend(cir_residuals(*d, entity, currency, f));
                             }
@@ -285,7 +300,7 @@ fn fit_name(entity: &str, currency: &str, dates: &[NaiveDate], cal: &Calibration
                         }
                     }
                     Err(e) => {
-                        for (d, _, _) in block {
+                        for (d, _, _) in block.iter().filter(|(d, _, _)| range.contains(*d)) {
                             params.push(param_row(*d, entity, currency, s.cir_mode, &Err(e.clone())));
                         }
                     }
@@ -353,7 +368,7 @@ fn bond_fits(ds: &Dataset, cal: &Calibration, p: &CalibrationParams, s: &Intensi
 }
 
 /// The CIR fits of every name the settings select, name by name, when enabled.
-fn cir_fits(cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings) -> Vec<(Vec<IntensityParamRow>, Vec<ResidualRow>)> {
+fn cir_fits(cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings, range: DateRange) -> Vec<(Vec<IntensityParamRow>, Vec<ResidualRow>)> {
     if !s.cir {
         return Vec::new();
     }
@@ -365,17 +380,18 @@ fn cir_fits(cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings) -> 
         names.entry((e.as_str(), c.as_str())).or_default().push(*d);
     }
     let jobs: Vec<((&str, &str), Vec<NaiveDate>)> = names.into_iter().collect();
-    jobs.par_iter().map(|((e, c), dates)| fit_name(e, c, dates, cal, p, s)).collect()
+    jobs.par_iter().map(|((e, c), dates)| fit_name(e, c, dates, cal, p, s, range)).collect()
 }
 
-/// Runs the bond and CIR fits that `s` enables. Updates `ds.counts` for the bond quotes this
-/// stage rejects and checks the accounting again.
-pub fn calibrate_intensity(ds: &mut Dataset, cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings) -> Result<IntensityCalibration> {
+/// Runs the bond and CIR fits that `s` enables, for the days in `range` (the CIR fits read
+/// `cal.cds_curves` outside it too, see [`crate::partition::keep_dates`]). Updates `ds.counts`
+/// for the bond quotes this stage rejects and checks the accounting again.
+pub fn calibrate_intensity(ds: &mut Dataset, cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings, range: DateRange) -> Result<IntensityCalibration> {
     let mut out = IntensityCalibration::default();
     // The bond fits and the CIR fits are independent: run side by side on rayon's threads,
     // so that the few CIR names (each a sequence of days) overlap with the many bond groups.
     let data: &Dataset = ds;
-    let (bond_outputs, cir_fits) = rayon::join(|| bond_fits(data, cal, p, s), || cir_fits(cal, p, s));
+    let (bond_outputs, cir_fits) = rayon::join(|| bond_fits(data, cal, p, s), || cir_fits(cal, p, s, range));
     for o in bond_outputs {
         out.bond_curves += o.fitted as usize;
         out.hazard.extend(o.hazard);

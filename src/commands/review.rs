@@ -132,16 +132,43 @@ pub struct CurveSeries<'a> {
     pd_1y: Arc<str>,
     hazard_5y: Arc<str>,
     node_labels: std::collections::HashMap<crate::time::Tenor, Arc<str>>,
-    last_spreads: std::collections::HashMap<Arc<str>, BTreeMap<u32, f64>>,
+    /// Per series entity, the date and par spreads of its latest curve so far.
+    last_spreads: std::collections::HashMap<Arc<str>, (NaiveDate, BTreeMap<u32, f64>)>,
     observations: PanelBuilder,
     market: Vec<MarketMove>,
+    /// Each series entity's first curve's spreads (see [`SpreadEdge`]).
+    firsts: Vec<SpreadEdge>,
+}
+
+/// A series entity's first or last curve in a part of a date range: its date and par spreads
+/// by tenor (months). The daily move from the last curve of one part to the first of the next
+/// is a move no part sees; the merge computes it from these ([`spread_move`]).
+#[derive(Debug, Clone, PartialEq)]
+pub struct SpreadEdge {
+    pub entity: Arc<str>,
+    pub date: NaiveDate,
+    /// The last curve of the part (else the first).
+    pub last: bool,
+    pub spreads: BTreeMap<u32, f64>,
+}
+
+/// The market move of `entity` on `date`, from the par spreads of its previous curve to
+/// those of this one: the mean absolute change over the tenors both quote, and the mean level
+/// of today's spreads; None when they share no tenor.
+pub fn spread_move(entity: &Arc<str>, date: NaiveDate, prev: &BTreeMap<u32, f64>, spreads: &BTreeMap<u32, f64>) -> Option<MarketMove> {
+    let changes: Vec<f64> = spreads.iter().filter_map(|(t, s)| prev.get(t).map(|p| (s - p).abs())).collect();
+    if changes.is_empty() {
+        return None;
+    }
+    let level = spreads.values().sum::<f64>() / spreads.len() as f64;
+    Some(MarketMove { entity: entity.clone(), date, mean_abs_change_bp: changes.iter().sum::<f64>() / changes.len() as f64, mean_level_bp: level })
 }
 
 impl<'a> CurveSeries<'a> {
     pub fn new(grades: &'a GradeBook, multi: &'a BTreeSet<String>) -> Self {
         let mut labels = Labels::default();
         let (pd_1y, hazard_5y) = (labels.get("pd_1y"), labels.get("hazard_5y"));
-        CurveSeries { grades, multi, labels, pd_1y, hazard_5y, node_labels: Default::default(), last_spreads: Default::default(), observations: PanelBuilder::new(), market: Vec::new() }
+        CurveSeries { grades, multi, labels, pd_1y, hazard_5y, node_labels: Default::default(), last_spreads: Default::default(), observations: PanelBuilder::new(), market: Vec::new(), firsts: Vec::new() }
     }
 
     /// Takes the series of the curve of (`date`, `e`, `c`).
@@ -164,19 +191,21 @@ impl<'a> CurveSeries<'a> {
             }
         }
         let spreads: BTreeMap<u32, f64> = crate::commands::backtest::spreads_of(&curve.quotes).into_iter().map(|q| (q.tenor_months, q.spread_bp)).collect();
-        if let Some(prev) = self.last_spreads.get(&entity) {
-            let changes: Vec<f64> = spreads.iter().filter_map(|(t, s)| prev.get(t).map(|p| (s - p).abs())).collect();
-            if !changes.is_empty() {
-                let level = spreads.values().sum::<f64>() / spreads.len() as f64;
-                self.market.push(MarketMove { entity: entity.clone(), date, mean_abs_change_bp: changes.iter().sum::<f64>() / changes.len() as f64, mean_level_bp: level });
-            }
+        match self.last_spreads.get(&entity) {
+            Some((_, prev)) => self.market.extend(spread_move(&entity, date, prev, &spreads)),
+            None => self.firsts.push(SpreadEdge { entity: entity.clone(), date, last: false, spreads: spreads.clone() }),
         }
-        self.last_spreads.insert(entity, spreads);
+        self.last_spreads.insert(entity, (date, spreads));
     }
 
-    /// The curve observations and the market moves.
-    pub fn finish(self) -> (PanelBuilder, Vec<MarketMove>) {
-        (self.observations, self.market)
+    /// The curve observations, the market moves, and each series entity's first and last
+    /// curve's spreads (firsts in arrival order, then lasts by entity).
+    pub fn finish(self) -> (PanelBuilder, Vec<MarketMove>, Vec<SpreadEdge>) {
+        let mut edges = self.firsts;
+        let mut lasts: Vec<SpreadEdge> = self.last_spreads.into_iter().map(|(entity, (date, spreads))| SpreadEdge { entity, date, last: true, spreads }).collect();
+        lasts.sort_by(|a, b| a.entity.cmp(&b.entity));
+        edges.extend(lasts);
+        (self.observations, self.market, edges)
     }
 }
 
