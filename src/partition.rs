@@ -830,6 +830,24 @@ mod tests {
     }
 
     #[test]
+    fn date_ranges_parse_contain_and_name_their_folder() {
+        let d = |s: &str| NaiveDate::parse_from_str(s, "%Y-%m-%d").unwrap();
+        let r = DateRange::parse("2015-01-01..2016-12-31").unwrap();
+        assert_eq!(r, DateRange { from: Some(d("2015-01-01")), to: Some(d("2016-12-31")) });
+        assert!(r.contains(d("2015-01-01")) && r.contains(d("2016-12-31")) && !r.contains(d("2017-01-01")) && !r.contains(d("2014-12-31")));
+        assert_eq!(r.folder_suffix(), "-from-2015-01-01-to-2016-12-31");
+        let open = DateRange::parse("..2016-12-31").unwrap();
+        assert_eq!((open.from, open.to.is_some()), (None, true));
+        assert_eq!(open.folder_suffix(), "-from-start-to-2016-12-31");
+        assert_eq!(open.to_string(), "..2016-12-31");
+        assert!(DateRange::parse("..").unwrap().is_all());
+        assert_eq!(DateRange::parse("..").unwrap().folder_suffix(), "");
+        assert!(DateRange::parse("2016-01-02..2016-01-01").is_err());
+        assert!(DateRange::parse("2016-01-02").is_err());
+        assert!(DateRange::parse("2016-02-30..").is_err());
+    }
+
+    #[test]
     fn fnv1a_matches_the_published_test_vectors() {
         // Test vectors of the FNV reference (Fowler, Noll, Vo; the IETF draft
         // draft-eastlake-fnv): FNV-1a 64 of "", "a" and "foobar", recalled from memory (the

@@ -559,3 +559,23 @@ fn finish(cfg: &RunConfig, mut ds: Dataset, ingest_counts: Vec<TableCounts>, mut
         memory: timings.iter().map(|(s, _, r, p)| (s.clone(), *r, *p)).collect(),
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn date_ranges_must_cover_every_date_once() {
+        let r = |s: &str| DateRange::parse(s).unwrap();
+        assert_eq!(check_tiling(&[r("..")]), Ok(()));
+        assert_eq!(check_tiling(&[r("..2015-12-31"), r("2016-01-01..2016-06-30"), r("2016-07-01..")]), Ok(()));
+        let err = |v: &[DateRange]| check_tiling(v).unwrap_err();
+        assert!(err(&[]).contains("no part"));
+        assert!(err(&[r("2015-01-01..")]).contains("before 2015-01-01"));
+        assert!(err(&[r("..2015-12-31")]).contains("from 2016-01-01 on"));
+        assert!(err(&[r("..2015-12-31"), r("2016-01-03..")]).contains("no part covers 2016-01-01..2016-01-02"));
+        assert!(err(&[r("..2015-12-31"), r("2015-12-31..")]).contains("overlaps"));
+        assert!(err(&[r(".."), r("..")]).contains("open at the end"));
+        assert!(err(&[r(".."), r("2016-01-01..")]).contains("open at the end"));
+    }
+}

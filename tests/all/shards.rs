@@ -112,3 +112,65 @@ fn empty_shards_merge_too() {
     hazardline(&["merge", &pipeline, "--out", sh.to_str().unwrap(), "--label", "r"]).success();
     assert_same(&one, &files(&sh.join("sample/r"), &["run.log"]), "9 shards");
 }
+
+fn part(pipeline: &str, out: &Path, shard: &str, dates: &str) {
+    hazardline(&["run", pipeline, "--out", out.to_str().unwrap(), "--label", "r", "--shard", shard, "--dates", dates]).success();
+}
+
+/// Parts by curve date range, crossed with entity shards: the daily CIR fits chain day to day
+/// (free mode), the cohort dates (quarterly, first business day of the quarter) have curves
+/// in the look-back before a range's start, and the market moves run across the boundaries.
+/// The shards split their dates differently, one boundary on a cohort date, one the day after.
+#[test]
+fn date_ranges_merge_into_the_single_runs_bytes() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = universe(&dir.path().join("data"));
+    let text = std::fs::read_to_string(&pipeline).unwrap().replace("fixed_kappa_sigma", "free").replace("horizons = [1, 3]", "horizons = [1, 3]\ncohorts = \"quarterly\"\nlookback_days = 20");
+    std::fs::write(&pipeline, text).unwrap();
+    // Every other entity has no quote on the cohort date 2015-10-01: its member of that cohort
+    // uses its curve of the day before, which lies before the part that starts on that date.
+    let quotes = dir.path().join("data/cds_quotes/quotes_2015.parquet");
+    let mut df = hazardline::report::readback::read_frame(&quotes).unwrap();
+    let dates = hazardline::report::readback::dates(&df, &quotes, "date").unwrap();
+    let names = hazardline::report::readback::strs(&df, &quotes, "entity").unwrap();
+    let cohort = chrono::NaiveDate::from_ymd_opt(2015, 10, 1).unwrap();
+    let keep: Vec<bool> = dates.iter().zip(&names).map(|(d, e)| !(*d == Some(cohort) && e.as_ref().is_some_and(|e| e.len() % 2 == 0))).collect();
+    let dropped = keep.iter().filter(|k| !**k).count();
+    let keep: polars::prelude::BooleanChunked = keep.into_iter().map(Some).collect();
+    assert!(dropped > 20, "{dropped} quotes dropped");
+    df = df.filter(&keep).unwrap();
+    hazardline::report::parquet::write_parquet(&mut df, &quotes, &[]).unwrap();
+
+    let one = single(&pipeline, &dir.path().join("single"));
+    let out = dir.path().join("parts");
+    for (shard, dates) in [("2/2", "2016-01-05.."), ("1/2", "..2015-06-30"), ("2/2", "..2016-01-04"), ("1/2", "2015-10-01.."), ("1/2", "2015-07-01..2015-09-30")] {
+        part(&pipeline, &out, shard, dates);
+    }
+    let parts = out.join("demo/r.shards");
+    let m = hazardline::partition::read_meta(&parts.join("part-0001-of-0002-from-2015-07-01-to-2015-09-30")).unwrap();
+    assert_eq!((m.dates_from.as_deref(), m.dates_to.as_deref()), (Some("2015-07-01"), Some("2015-09-30")));
+    assert!(m.curves > 0);
+    hazardline(&["merge", &pipeline, "--out", out.to_str().unwrap(), "--label", "r"]).success();
+    assert_same(&one, &files(&out.join("demo/r"), &["run.log"]), "2 shards x date ranges");
+
+    // A gap, and an overlap, in one shard's dates stop the merge (exit 2) and say where.
+    let merge_err = || {
+        let o = hazardline(&["merge", &pipeline, "--out", out.to_str().unwrap(), "--label", "r"]).code(2);
+        String::from_utf8(o.get_output().stderr.clone()).unwrap()
+    };
+    std::fs::remove_dir_all(parts.join("part-0001-of-0002-from-2015-07-01-to-2015-09-30")).unwrap();
+    let err = merge_err();
+    assert!(err.contains("shard 1/2") && err.contains("no part covers 2015-07-01..2015-09-30"), "{err}");
+    part(&pipeline, &out, "1/2", "2015-06-01..2015-09-30");
+    let err = merge_err();
+    assert!(err.contains("shard 1/2") && err.contains("overlaps"), "{err}");
+}
+
+#[test]
+fn a_bad_date_range_is_refused() {
+    for (arg, says) in [("2016-01-01..2015-01-01", "is after"), ("2016-13-01..", "not a date"), ("2016-01-01", "FROM..TO")] {
+        let out = hazardline(&["run", "x.toml", "--dates", arg]).failure();
+        let err = String::from_utf8(out.get_output().stderr.clone()).unwrap();
+        assert!(err.contains(says), "{arg}: {err}");
+    }
+}
