@@ -232,6 +232,33 @@ pub struct ReportSection {
     pub term_structure_dates: Option<Vec<String>>,
     /// Exit with code 1 when the run has red flags. Default false.
     pub fail_on_red_flags: Option<bool>,
+    /// How `hazard_curves` and `calibration_residuals` are written: `single` (one file each),
+    /// `by_year` (a folder each, a file per source or method and year) or `auto` (default:
+    /// `by_year` when the usable CDS quotes number more than [`LARGE_RUN_QUOTES`]).
+    pub large_tables: Option<String>,
+}
+
+/// Usable CDS quotes above which `large_tables = "auto"` writes the two large tables by year.
+pub const LARGE_RUN_QUOTES: usize = 10_000_000;
+
+/// How the two large tables are written (`report.large_tables`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum LargeTables {
+    #[default]
+    Auto,
+    Single,
+    ByYear,
+}
+
+impl LargeTables {
+    /// Whether a run of `usable_quotes` CDS quotes writes them as folders of files by year.
+    pub fn split(self, usable_quotes: usize) -> bool {
+        match self {
+            LargeTables::Auto => usable_quotes > LARGE_RUN_QUOTES,
+            LargeTables::Single => false,
+            LargeTables::ByYear => true,
+        }
+    }
 }
 
 /// The checked configuration of a run, after defaults.
@@ -273,6 +300,9 @@ pub struct RunConfig {
     pub charted_entities: Option<Vec<String>>,
     pub term_structure_dates: Option<Vec<NaiveDate>>,
     pub fail_on_red_flags: bool,
+    /// Not among the manifest's settings: the manifest lists the files the tables went to.
+    #[serde(skip)]
+    pub large_tables: LargeTables,
     #[serde(skip)]
     pub backtest: crate::commands::backtest::BacktestStage,
     /// The backtest settings in force, as (name, value) pairs for the manifest and the notes.
@@ -556,6 +586,12 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         charted_entities: r.charted_entities.clone(),
         term_structure_dates,
         fail_on_red_flags: r.fail_on_red_flags.unwrap_or(false),
+        large_tables: match r.large_tables.as_deref() {
+            None | Some("auto") => LargeTables::Auto,
+            Some("single") => LargeTables::Single,
+            Some("by_year") => LargeTables::ByYear,
+            Some(other) => return Err(bad(path, "report.large_tables", format!("{other:?} is not one of \"auto\", \"single\", \"by_year\""))),
+        },
         backtest_settings: backtest.pairs(),
         backtest,
         stability_settings: stability.pairs(),

@@ -373,13 +373,14 @@ pub struct RowSinks<'a> {
 }
 
 impl<'a> RowSinks<'a> {
-    /// Starts `hazard_curves.parquet` and `calibration_residuals.parquet` in `dir`, each
-    /// written on a thread of its own; `report`: what the report takes from them is gathered
-    /// on the way (a whole run; none for a shard's part).
-    pub fn create(dir: &Path, meta: &[(String, String)], digest: Option<RowDigest<'a>>, report: Option<(NodeFold, ResidualFold)>) -> Result<Self> {
+    /// Starts `hazard_curves` and `calibration_residuals` in `dir` (single files, or folders
+    /// of a file per year when `split`: see [`hazard_table`]), each written on a thread of
+    /// its own; `report`: what the report takes from them is gathered on the way (a whole run;
+    /// none for a shard's part).
+    pub fn create(dir: &Path, meta: &[(String, String)], digest: Option<RowDigest<'a>>, report: Option<(NodeFold, ResidualFold)>, split: bool) -> Result<Self> {
         let (nodes, residuals) = report.map_or((None, None), |(a, b)| (Some(a), Some(b)));
-        let hazard = WriterThread::spawn(hazard_writer(&dir.join("hazard_curves.parquet"), meta)?, nodes);
-        let residuals = WriterThread::spawn(residual_writer(&dir.join("calibration_residuals.parquet"), meta)?, residuals);
+        let hazard = WriterThread::spawn(hazard_table(dir, meta, split)?, nodes);
+        let residuals = WriterThread::spawn(residual_table(dir, meta, split)?, residuals);
         Ok(RowSinks { hazard, residuals, digest })
     }
 
@@ -541,7 +542,7 @@ impl PartFolder {
 
     /// The sinks of the part's node and residual rows (no digest: the merge digests them).
     pub fn sinks<'a>(&self) -> Result<RowSinks<'a>> {
-        RowSinks::create(&self.work, &[], None, None)
+        RowSinks::create(&self.work, &[], None, None, false)
     }
 }
 
@@ -920,7 +921,7 @@ mod tests {
             dirs.push(d);
         }
         let out = dir.path().join("out");
-        let mut sinks = RowSinks::create(&out, &[], None, None).unwrap();
+        let mut sinks = RowSinks::create(&out, &[], None, None, false).unwrap();
         let (rest, residuals) = merge_part_rows(&dirs, &mut sinks).unwrap();
         assert_eq!((rest.len(), residuals.len()), (6, 0));
         sinks.finish(rest, residuals).unwrap();

@@ -197,6 +197,30 @@ fn report_folds(cfg: &RunConfig) -> Result<(NodeFold, ResidualFold)> {
     Ok((NodeFold::new(&settings_value(cfg)?), ResidualFold::new()))
 }
 
+/// Whether this run writes its two large tables as folders of files by year
+/// (`report.large_tables`); decided from the usable quotes of the whole input, so a single run
+/// and a merge decide alike.
+fn split_tables(cfg: &RunConfig, ds: &Dataset) -> bool {
+    cfg.large_tables.split(ds.cds.as_ref().map_or(0, |p| p.rows.len()))
+}
+
+/// The manifest's list of table files: `tables/<name>.parquet`, or each file of a table
+/// written as a folder, in the order of their names (the table's order).
+fn table_files(tables: &Path) -> Result<Vec<String>> {
+    let mut out = Vec::new();
+    for t in TABLES {
+        let dir = tables.join(t);
+        if dir.is_dir() {
+            for f in crate::report::readback::table_files(&dir)? {
+                out.push(format!("tables/{t}/{}", f.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default()));
+            }
+        } else {
+            out.push(format!("tables/{t}.parquet"));
+        }
+    }
+    Ok(out)
+}
+
 /// Entities quoted in several currencies, whose series carry the currency.
 fn multi_currency_of(cfg: &RunConfig, ds: &Dataset) -> BTreeSet<String> {
     match (&ds.cds, cfg.cds_bootstrap) {
@@ -217,7 +241,7 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let folder = RunFolder::create(cfg, opts, quote_period(&ds))?;
     let meta = table_metadata(cfg, &params);
     let multi = multi_currency_of(cfg, &ds);
-    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)), Some(report_folds(cfg)?))?;
+    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)), Some(report_folds(cfg)?), split_tables(cfg, &ds))?;
     let scope = keep_dates(&mut ds, DateRange::ALL, cfg);
     let (part, t) = compute_partition(&mut ds, cfg, &params, Shard::ALL, &scope, &mut sinks, &multi)?;
     timings.extend(t);
@@ -283,7 +307,7 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let folder = RunFolder::create(cfg, opts, period)?;
     let meta = table_metadata(cfg, &params);
     let multi: BTreeSet<String> = cal.multi_currency.iter().cloned().collect();
-    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)), Some(report_folds(cfg)?))?;
+    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)), Some(report_folds(cfg)?), split_tables(cfg, &ds))?;
     let t = Instant::now();
     (cal.hazard, cal.residuals) = merge_part_rows(&dirs, &mut sinks)?;
     let (rss, peak) = memory_mib();
@@ -521,7 +545,7 @@ fn finish(cfg: &RunConfig, mut ds: Dataset, ingest_counts: Vec<TableCounts>, mut
         inputs,
         counts: count_rows,
         settings: settings_value(cfg)?,
-        tables: TABLES.iter().map(|t| format!("tables/{t}.parquet")).collect(),
+        tables: table_files(&tables)?,
     };
     let text = serde_json::to_string_pretty(&manifest).map_err(|e| Error::Other(format!("manifest: {e}")))?;
     write_text(&work.join("manifest.json"), &(text + "\n"))?;

@@ -10,15 +10,18 @@ use std::fmt::Write as _;
 use std::path::Path;
 
 fn mean_5y(run: &Path) -> Result<BTreeMap<String, (f64, usize)>> {
-    let h = readback::hazard_curves(&run.join("tables/hazard_curves.parquet"))?;
+    // The table can be tens of millions of rows: read a slice at a time.
     let mut m: BTreeMap<String, (f64, usize)> = BTreeMap::new();
-    for r in h.iter().filter(|r| r.source == "cds" && &*r.tenor == "5Y" && r.status == "ok") {
-        if let Some(x) = r.hazard {
-            let e = m.entry(r.entity.to_string()).or_default();
-            e.0 += x;
-            e.1 += 1;
+    readback::hazard_curve_slices(&readback::table_path(&run.join("tables"), "hazard_curves"), |rows| {
+        for r in rows.iter().filter(|r| r.source == "cds" && &*r.tenor == "5Y" && r.status == "ok") {
+            if let Some(x) = r.hazard {
+                let e = m.entry(r.entity.to_string()).or_default();
+                e.0 += x;
+                e.1 += 1;
+            }
         }
-    }
+        Ok(())
+    })?;
     Ok(m.into_iter().map(|(k, (s, n))| (k, (s / n as f64, n))).collect())
 }
 

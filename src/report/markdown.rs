@@ -361,7 +361,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         Some((NodeFold(hz), ResidualFold(rs))) => (hz, rs),
         None => {
             let named = charted_names(&m.settings);
-            (CdsNodes::read(&t.join("hazard_curves.parquet"), named.as_deref())?, Residuals::read(&t.join("calibration_residuals.parquet"))?)
+            (CdsNodes::read(&readback::table_path(&t, "hazard_curves"), named.as_deref())?, Residuals::read(&readback::table_path(&t, "calibration_residuals"))?)
         }
     };
     let bond_hazard = &hz.bond;
@@ -542,7 +542,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     let chart_err = |e: String| Error::Other(format!("drawing a figure: {e}"));
     let chosen = charted(&m.settings, entities);
     let tdates = term_dates(&m.settings, &dates);
-    let charted_nodes = hz.charted(&t.join("hazard_curves.parquet"), &chosen, &tdates)?;
+    let charted_nodes = hz.charted(&readback::table_path(&t, "hazard_curves"), &chosen, &tdates)?;
     for e in &chosen {
         let mut curves_of: Vec<(NaiveDate, Vec<(f64, f64)>)> = Vec::new();
         for d in &tdates {
@@ -585,7 +585,10 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     }
 
     super::review::residual_section(w, &t, &charts_dir, &mut figure)?;
-    intensity_sections(w, bond_hazard, &bond_res, &basis, &params, &m.settings, &charts_dir, &mut figure)?;
+    // A large table may be a folder of files (`report.large_tables`).
+    let shown = |n: &str| if t.join(n).is_dir() { format!("tables/{n}/") } else { format!("tables/{n}.parquet") };
+    let large = (shown("hazard_curves"), shown("calibration_residuals"));
+    intensity_sections(w, bond_hazard, &bond_res, &basis, &params, &m.settings, &charts_dir, &mut figure, &large)?;
 
     super::review::stability_section(w, &t, &charts_dir, &mut figure, 4)?;
     let base_recovery = m.settings.get("recovery").and_then(|v| v.as_f64()).unwrap_or(0.4);
@@ -684,13 +687,14 @@ fn intensity_sections(
     settings: &serde_json::Value,
     charts_dir: &Path,
     figure: &mut usize,
+    (hazard_table, residual_table): &(String, String),
 ) -> Result<()> {
     let chart_err = |e: String| Error::Other(format!("drawing a figure: {e}"));
     if !bond_hazard.is_empty() {
         let _ = writeln!(w, "### Bond-implied hazard curves\n");
         let _ = writeln!(
             w,
-            "Hazard curves implied by each entity's fixed-coupon bond prices (recovery convention `{}`), one per (date, entity, currency); rows with source `bond` in `tables/hazard_curves.parquet`, bond residuals with method `bond_fit` in `tables/calibration_residuals.parquet` (market and model clean price per 100 face, residual in bp of yield).\n",
+            "Hazard curves implied by each entity's fixed-coupon bond prices (recovery convention `{}`), one per (date, entity, currency); rows with source `bond` in `{hazard_table}`, bond residuals with method `bond_fit` in `{residual_table}` (market and model clean price per 100 face, residual in bp of yield).\n",
             settings.get("bond_recovery_convention").and_then(|v| v.as_str()).unwrap_or("par")
         );
         let mut per: BTreeMap<(&str, &str), (BTreeSet<NaiveDate>, BTreeSet<&str>, BTreeSet<String>, Vec<f64>, Vec<f64>)> = BTreeMap::new();
@@ -735,7 +739,7 @@ fn intensity_sections(
     }
     if !params.is_empty() {
         let _ = writeln!(w, "### CIR intensity fit\n");
-        let _ = writeln!(w, "The CIR intensity d lambda = kappa (theta - lambda) dt + sigma sqrt(lambda) dW fitted to each bootstrapped CDS curve's quotes (`tables/intensity_params.parquet`; repriced quotes with method `cir` in `tables/calibration_residuals.parquet`). Medians over the fits that produced parameters; RMSE over each curve's quotes in bp of running spread.\n");
+        let _ = writeln!(w, "The CIR intensity d lambda = kappa (theta - lambda) dt + sigma sqrt(lambda) dW fitted to each bootstrapped CDS curve's quotes (`tables/intensity_params.parquet`; repriced quotes with method `cir` in `{residual_table}`). Medians over the fits that produced parameters; RMSE over each curve's quotes in bp of running spread.\n");
         let mut per: BTreeMap<(&str, &str), Vec<&super::tables::IntensityParamRow>> = BTreeMap::new();
         for p in params {
             per.entry((p.entity.as_str(), p.currency.as_str())).or_default().push(p);

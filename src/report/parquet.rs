@@ -170,6 +170,90 @@ impl<T> Drop for RowGroupWriter<T> {
     }
 }
 
+/// Where a row goes in a table written as a folder of files ([`SplitWriter`]): a rank (files
+/// of a lower rank come first), a group (e.g. the source or the method) and a year.
+pub type FileKey = (u8, &'static str, i32);
+
+/// A large table written as a folder of Parquet files, one per (rank, group, year) of its rows,
+/// named `<rank>-<group>-<year>.parquet`. The rows must arrive in the order of their keys (the
+/// table's own order does that: see the two large tables), so one file is open at a time and
+/// the files, read in the order of their names, give the rows in table order. Each file is
+/// written by a [`RowGroupWriter`] (same row groups, same temporary-name-and-rename). A table
+/// without rows is one file of no rows, `empty.parquet`, which carries the schema.
+pub struct SplitWriter<T> {
+    dir: std::path::PathBuf,
+    metadata: Vec<(String, String)>,
+    frame: fn(&[T]) -> Result<DataFrame>,
+    key: fn(&T) -> FileKey,
+    current: Option<(FileKey, RowGroupWriter<T>)>,
+    written: usize,
+}
+
+impl<T> SplitWriter<T> {
+    pub fn create(dir: &Path, metadata: &[(String, String)], frame: fn(&[T]) -> Result<DataFrame>, key: fn(&T) -> FileKey) -> Result<Self> {
+        std::fs::create_dir_all(dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })?;
+        Ok(SplitWriter { dir: dir.to_path_buf(), metadata: metadata.to_vec(), frame, key, current: None, written: 0 })
+    }
+
+    /// The file name of a key.
+    pub fn file_name((rank, group, year): FileKey) -> String {
+        format!("{rank}-{group}-{year}.parquet")
+    }
+
+    pub fn push(&mut self, rows: impl IntoIterator<Item = T>) -> Result<()> {
+        for r in rows {
+            let k = (self.key)(&r);
+            match &mut self.current {
+                Some((open, w)) if *open == k => w.push(std::iter::once(r))?,
+                _ => {
+                    if let Some((open, w)) = self.current.take() {
+                        if k < open {
+                            return Err(Error::Other(format!("rows of {} came after those of {}; this is a bug, please report it", Self::file_name(k), Self::file_name(open))));
+                        }
+                        self.written += w.finish()?;
+                    }
+                    let mut w = RowGroupWriter::create(&self.dir.join(Self::file_name(k)), &self.metadata, self.frame)?;
+                    w.push(std::iter::once(r))?;
+                    self.current = Some((k, w));
+                }
+            }
+        }
+        Ok(())
+    }
+
+    pub fn finish(mut self) -> Result<usize> {
+        match self.current.take() {
+            Some((_, w)) => self.written += w.finish()?,
+            None => {
+                RowGroupWriter::create(&self.dir.join("empty.parquet"), &self.metadata, self.frame)?.finish()?;
+            }
+        }
+        Ok(self.written)
+    }
+}
+
+/// A table's writer: one file, or a folder of files ([`SplitWriter`]).
+pub enum TableWriter<T> {
+    One(RowGroupWriter<T>),
+    Split(SplitWriter<T>),
+}
+
+impl<T> TableWriter<T> {
+    pub fn push(&mut self, rows: impl IntoIterator<Item = T>) -> Result<()> {
+        match self {
+            TableWriter::One(w) => w.push(rows),
+            TableWriter::Split(w) => w.push(rows),
+        }
+    }
+
+    pub fn finish(self) -> Result<usize> {
+        match self {
+            TableWriter::One(w) => w.finish(),
+            TableWriter::Split(w) => w.finish(),
+        }
+    }
+}
+
 enum ToWriter<T> {
     Rows(Vec<T>),
     Finish,
@@ -202,7 +286,7 @@ pub struct WriterThread<T, F = ()> {
 }
 
 impl<T: Send + 'static, F: RowFold<T>> WriterThread<T, F> {
-    pub fn spawn(mut writer: RowGroupWriter<T>, mut fold: F) -> Self {
+    pub fn spawn(mut writer: TableWriter<T>, mut fold: F) -> Self {
         let (tx, rx) = std::sync::mpsc::sync_channel::<ToWriter<T>>(2);
         let handle = std::thread::spawn(move || -> Result<(usize, F)> {
             for message in rx {
@@ -292,6 +376,31 @@ mod tests {
             let want: Vec<usize> = (0..height.div_ceil(ROW_GROUP_ROWS)).map(|i| (height - i * ROW_GROUP_ROWS).min(ROW_GROUP_ROWS)).collect();
             assert_eq!(groups, want, "height {height}");
         }
+    }
+
+    #[test]
+    fn a_split_table_writes_a_file_per_key_in_order() {
+        let dir = tempfile::tempdir().unwrap();
+        let key = |r: &usize| -> FileKey { (1 + u8::from(*r >= 20), if *r >= 20 { "late" } else { "early" }, (*r / 10) as i32) };
+        let t = dir.path().join("t");
+        let mut w = SplitWriter::create(&t, &[], frame, key).unwrap();
+        for piece in [0..3, 3..17, 17..18, 18..25] {
+            w.push(piece).unwrap();
+        }
+        assert_eq!(w.finish().unwrap(), 25);
+        let files = crate::report::readback::table_files(&t).unwrap();
+        let names: Vec<String> = files.iter().map(|f| f.file_name().unwrap().to_string_lossy().to_string()).collect();
+        assert_eq!(names, ["1-early-0.parquet", "1-early-1.parquet", "2-late-2.parquet"]);
+        let df = crate::report::readback::read_frame(&t).unwrap();
+        assert!(df.equals_missing(&frame(&(0..25).collect::<Vec<_>>()).unwrap()));
+        // Rows that would go back to a finished file are a bug, not a silent reorder.
+        let mut w = SplitWriter::create(&dir.path().join("u"), &[], frame, key).unwrap();
+        w.push([12usize]).unwrap();
+        assert!(w.push([3usize]).is_err());
+        // No rows: one empty file that carries the schema.
+        SplitWriter::create(&dir.path().join("v"), &[], frame, key).unwrap().finish().unwrap();
+        let df = crate::report::readback::read_frame(&dir.path().join("v")).unwrap();
+        assert_eq!((df.height(), df.width()), (0, 3));
     }
 
     #[test]

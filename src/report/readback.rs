@@ -10,6 +10,20 @@ use std::path::Path;
 const EPOCH_CE_DAYS: i32 = 719_163;
 
 pub fn read_frame(path: &Path) -> Result<DataFrame> {
+    if path.is_dir() {
+        // A table written as a folder of files: its files in the order of their names.
+        let mut out: Option<DataFrame> = None;
+        for f in table_files(path)? {
+            let df = read_frame(&f)?;
+            match &mut out {
+                None => out = Some(df),
+                Some(all) => {
+                    all.vstack_mut(&df).map_err(|e| Error::Read { path: f.clone(), format: "Parquet", message: e.to_string() })?;
+                }
+            }
+        }
+        return out.ok_or_else(|| Error::Read { path: path.to_path_buf(), format: "Parquet", message: "the table's folder holds no .parquet file".into() });
+    }
     let shown = path.display().to_string();
     LazyFrame::scan_parquet(PlRefPath::new(shown.as_str()), ScanArgsParquet::default())
         .and_then(|lf| lf.collect())
@@ -116,6 +130,37 @@ pub fn rejects(path: &Path) -> Result<Vec<crate::ingest::Reject>> {
 
 pub const STATUSES: &[&str] = &["ok", "floored", "infeasible", "failed", "curve_failed", "not_calibrated", "at_upper_bound", "max_iterations"];
 
+/// The files of a table: the file itself, or, for a table written as a folder of files
+/// ([`crate::report::parquet::SplitWriter`]), the folder's `.parquet` files in the order of
+/// their names, which is the table's order.
+pub fn table_files(path: &Path) -> Result<Vec<std::path::PathBuf>> {
+    if !path.is_dir() {
+        return Ok(vec![path.to_path_buf()]);
+    }
+    let entries = std::fs::read_dir(path).map_err(|e| parquet_error(path, &e))?;
+    let mut files: Vec<std::path::PathBuf> = entries
+        .filter_map(|e| e.ok())
+        .map(|e| e.path())
+        .filter(|p| p.is_file() && p.extension().is_some_and(|x| x == "parquet") && !p.file_name().is_some_and(|n| n.to_string_lossy().starts_with('.')))
+        .collect();
+    files.sort();
+    if files.is_empty() {
+        return Err(Error::Read { path: path.to_path_buf(), format: "Parquet", message: "the table's folder holds no .parquet file".into() });
+    }
+    Ok(files)
+}
+
+/// Where the table `name` of a run's `tables` folder is: `tables/<name>.parquet`, or the
+/// folder `tables/<name>/` when the run wrote it as a folder of files.
+pub fn table_path(tables: &Path, name: &str) -> std::path::PathBuf {
+    let dir = tables.join(name);
+    if dir.is_dir() {
+        dir
+    } else {
+        tables.join(format!("{name}.parquet"))
+    }
+}
+
 /// Rows per slice when a large table is read back piece by piece.
 pub const SLICE_ROWS: usize = 1 << 20;
 
@@ -123,16 +168,19 @@ pub const SLICE_ROWS: usize = 1 << 20;
 /// a table of tens of millions of rows is never held whole (a slice reads only the row groups
 /// it covers). A table without rows gives one empty slice.
 pub fn for_each_slice(path: &Path, mut f: impl FnMut(&DataFrame) -> Result<()>) -> Result<()> {
-    let n = row_count(path)?;
-    let mut offset = 0;
-    loop {
-        let len = SLICE_ROWS.min(n - offset);
-        f(&read_slice(path, offset, len)?)?;
-        offset += len;
-        if offset >= n {
-            return Ok(());
+    for file in table_files(path)? {
+        let n = row_count(&file)?;
+        let mut offset = 0;
+        loop {
+            let len = SLICE_ROWS.min(n - offset);
+            f(&read_slice(&file, offset, len)?)?;
+            offset += len;
+            if offset >= n {
+                break;
+            }
         }
     }
+    Ok(())
 }
 
 fn parquet_error(path: &Path, e: &dyn std::fmt::Display) -> Error {
@@ -153,7 +201,8 @@ fn read_slice(path: &Path, offset: usize, len: usize) -> Result<DataFrame> {
 
 /// The rows of a large table read in order, [`SLICE_ROWS`] at a time, as they are asked for.
 pub struct RowCursor<T> {
-    path: std::path::PathBuf,
+    /// The table's files still to read, next first (see [`table_files`]).
+    files: std::collections::VecDeque<std::path::PathBuf>,
     rows: usize,
     offset: usize,
     read: fn(&DataFrame, &Path) -> Result<Vec<T>>,
@@ -162,15 +211,24 @@ pub struct RowCursor<T> {
 
 impl<T> RowCursor<T> {
     fn open(path: &Path, read: fn(&DataFrame, &Path) -> Result<Vec<T>>) -> Result<Self> {
-        Ok(RowCursor { path: path.to_path_buf(), rows: row_count(path)?, offset: 0, read, buffer: Default::default() })
+        let files: std::collections::VecDeque<_> = table_files(path)?.into();
+        let rows = files.front().map(|f| row_count(f)).transpose()?.unwrap_or(0);
+        Ok(RowCursor { files, rows, offset: 0, read, buffer: Default::default() })
     }
 
     fn fill(&mut self) -> Result<()> {
-        if self.buffer.is_empty() && self.offset < self.rows {
-            let len = SLICE_ROWS.min(self.rows - self.offset);
-            let df = read_slice(&self.path, self.offset, len)?;
-            self.buffer.extend((self.read)(&df, &self.path)?);
-            self.offset += len;
+        while self.buffer.is_empty() {
+            let Some(path) = self.files.front() else { return Ok(()) };
+            if self.offset < self.rows {
+                let len = SLICE_ROWS.min(self.rows - self.offset);
+                let df = read_slice(path, self.offset, len)?;
+                self.buffer.extend((self.read)(&df, path)?);
+                self.offset += len;
+            } else {
+                self.files.pop_front();
+                self.offset = 0;
+                self.rows = self.files.front().map(|f| row_count(f)).transpose()?.unwrap_or(0);
+            }
         }
         Ok(())
     }

@@ -1,7 +1,8 @@
 //! The output tables of DESIGN section 9 that exist so far, as plain records and their
 //! Parquet schemas. Column names and types here are a contract with every consumer.
 
-use super::parquet::{write_parquet, RowGroupWriter, TableBuilder};
+use super::parquet::{write_parquet, FileKey, RowGroupWriter, SplitWriter, TableBuilder, TableWriter};
+use chrono::Datelike;
 use polars::prelude::DataFrame;
 use crate::error::Result;
 use crate::ingest::load::DataQualityRow;
@@ -83,11 +84,50 @@ pub struct ResidualRow {
     pub status: &'static str,
 }
 
-/// Starts `hazard_curves` at `path`, written as its rows arrive ([`RowGroupWriter`]).
-pub fn hazard_writer(path: &Path, meta: &[(String, String)]) -> Result<RowGroupWriter<HazardCurveRow>> {
+fn hazard_meta(meta: &[(String, String)]) -> Vec<(String, String)> {
     let mut meta = meta.to_vec();
     meta.push(("hazardline.units".into(), "hazard: per year on Act/365F from date; survival: probability to maturity; recovery: fraction".into()));
-    RowGroupWriter::create(path, &meta, hazard_frame)
+    meta
+}
+
+/// Starts `hazard_curves` at `path`, written as its rows arrive ([`RowGroupWriter`]).
+pub fn hazard_writer(path: &Path, meta: &[(String, String)]) -> Result<RowGroupWriter<HazardCurveRow>> {
+    RowGroupWriter::create(path, &hazard_meta(meta), hazard_frame)
+}
+
+/// The two tables that grow with the quote panel, and may be written as folders of files.
+pub const LARGE_TABLES: [&str; 2] = ["hazard_curves", "calibration_residuals"];
+
+/// Where a `hazard_curves` row goes in the folder form: the CDS nodes first, then the bond
+/// nodes, a file per year of the curve date (the table's order, see `partition::sort_hazard`).
+fn hazard_key(r: &HazardCurveRow) -> FileKey {
+    (1 + u8::from(r.source != "cds"), r.source, r.date.year())
+}
+
+/// Where a `calibration_residuals` row goes in the folder form: the bootstrap's first, then
+/// each other method's, a file per year (the table's order, see `partition::sort_residuals`).
+fn residual_key(r: &ResidualRow) -> FileKey {
+    (1 + u8::from(r.method != "bootstrap"), r.method, r.date.year())
+}
+
+/// Starts `hazard_curves` in the folder `tables`: one file, `hazard_curves.parquet`, or
+/// (`split`) a folder `hazard_curves/` of a file per source and year ([`SplitWriter`]).
+pub fn hazard_table(tables: &Path, meta: &[(String, String)], split: bool) -> Result<TableWriter<HazardCurveRow>> {
+    if split {
+        SplitWriter::create(&tables.join("hazard_curves"), &hazard_meta(meta), hazard_frame, hazard_key).map(TableWriter::Split)
+    } else {
+        hazard_writer(&tables.join("hazard_curves.parquet"), meta).map(TableWriter::One)
+    }
+}
+
+/// Starts `calibration_residuals` in the folder `tables`, as [`hazard_table`] does (a file per
+/// method and year when `split`).
+pub fn residual_table(tables: &Path, meta: &[(String, String)], split: bool) -> Result<TableWriter<ResidualRow>> {
+    if split {
+        SplitWriter::create(&tables.join("calibration_residuals"), &residual_meta(meta), residual_frame, residual_key).map(TableWriter::Split)
+    } else {
+        residual_writer(&tables.join("calibration_residuals.parquet"), meta).map(TableWriter::One)
+    }
 }
 
 /// Writes `hazard_curves` (see [`hazard_writer`]).
@@ -117,12 +157,16 @@ fn hazard_frame(rows: &[HazardCurveRow]) -> Result<DataFrame> {
 
 /// Starts `calibration_residuals` at `path`, written as its rows arrive ([`RowGroupWriter`]).
 pub fn residual_writer(path: &Path, meta: &[(String, String)]) -> Result<RowGroupWriter<ResidualRow>> {
+    RowGroupWriter::create(path, &residual_meta(meta), residual_frame)
+}
+
+fn residual_meta(meta: &[(String, String)]) -> Vec<(String, String)> {
     let mut meta = meta.to_vec();
     meta.push((
         "hazardline.units".into(),
         "market/model: par spread in bp for cds_par_spread, upfront as fraction of notional for cds_upfront; residual_bp = model - market in bp of running spread".into(),
     ));
-    RowGroupWriter::create(path, &meta, residual_frame)
+    meta
 }
 
 /// Writes `calibration_residuals` (see [`residual_writer`]).

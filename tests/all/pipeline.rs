@@ -147,7 +147,12 @@ fn tables_read_with_pyarrow() {
     // A fresh fixture run has every table; the bundled demo run (held equal to a fresh run by
     // `bundled_demo_report_is_up_to_date`) has the backtest and risk-premium tables filled.
     let root = tempfile::tempdir().unwrap();
-    for dir in [fixture_run(root.path()), repo().join("validation-reports/demo/2015-2019")] {
+    // And the fixture with its two large tables written as folders of files by year.
+    let mut cfg = load_pipeline(&repo().join("tests/fixtures/sample.toml")).unwrap();
+    cfg.large_tables = hazardline::config::LargeTables::ByYear;
+    let split = run(&cfg, &RunOptions { out_root: Some(root.path().join("split")), label: None }).unwrap().run_dir;
+    assert!(split.join("tables/hazard_curves").is_dir());
+    for dir in [fixture_run(root.path()), repo().join("validation-reports/demo/2015-2019"), split] {
         let out = std::process::Command::new("python3").arg(repo().join("tests/reference/read_tables_pyarrow.py")).arg(dir.join("tables")).output().unwrap();
         assert!(out.status.success(), "{}\n{}", String::from_utf8_lossy(&out.stdout), String::from_utf8_lossy(&out.stderr));
     }

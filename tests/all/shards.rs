@@ -174,3 +174,71 @@ fn a_bad_date_range_is_refused() {
         assert!(err.contains(says), "{arg}: {err}");
     }
 }
+
+/// `report.large_tables = "by_year"`: the node and residual tables are folders of a file per
+/// source (method) and year; their files, read in the order of their names, hold exactly the
+/// rows of the one-file table; a merge of date-range parts writes the same files; the report
+/// re-rendered from the folders equals the run's.
+#[test]
+fn large_tables_by_year_are_folders_that_merge_exactly() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = universe(&dir.path().join("data"));
+    let one_file = single(&pipeline, &dir.path().join("one-file"));
+    let text = std::fs::read_to_string(&pipeline).unwrap().replace("[report]", "[report]\nlarge_tables = \"by_year\"");
+    std::fs::write(&pipeline, text).unwrap();
+    let by_year = single(&pipeline, &dir.path().join("by-year"));
+    let names: Vec<&str> = by_year.keys().filter(|k| k.starts_with("tables/hazard_curves/") || k.starts_with("tables/calibration_residuals/")).map(String::as_str).collect();
+    assert_eq!(
+        names,
+        [
+            "tables/calibration_residuals/1-bootstrap-2015.parquet",
+            "tables/calibration_residuals/1-bootstrap-2016.parquet",
+            "tables/calibration_residuals/2-bond_fit-2015.parquet",
+            "tables/calibration_residuals/2-bond_fit-2016.parquet",
+            "tables/calibration_residuals/2-cir-2015.parquet",
+            "tables/calibration_residuals/2-cir-2016.parquet",
+            "tables/hazard_curves/1-cds-2015.parquet",
+            "tables/hazard_curves/1-cds-2016.parquet",
+            "tables/hazard_curves/2-bond-2015.parquet",
+            "tables/hazard_curves/2-bond-2016.parquet",
+        ]
+    );
+    let manifest = String::from_utf8(by_year["manifest.json"].clone()).unwrap();
+    assert!(manifest.contains("\"tables/hazard_curves/2-bond-2016.parquet\"") && !manifest.contains("\"tables/hazard_curves.parquet\""), "{manifest}");
+    // The same rows in the same order as the one-file table.
+    use hazardline::report::readback;
+    let (a, b) = (dir.path().join("one-file/demo/r/tables"), dir.path().join("by-year/demo/r/tables"));
+    assert_eq!(readback::hazard_curves(&a.join("hazard_curves.parquet")).unwrap(), readback::hazard_curves(&readback::table_path(&b, "hazard_curves")).unwrap());
+    assert_eq!(readback::residuals(&a.join("calibration_residuals.parquet")).unwrap(), readback::residuals(&readback::table_path(&b, "calibration_residuals")).unwrap());
+    // Every other file is the one-file run's, the report but for the tables' names.
+    for (k, v) in &one_file {
+        if k != "report.md" && k != "manifest.json" && !k.starts_with("tables/hazard_curves") && !k.starts_with("tables/calibration_residuals") {
+            assert!(by_year[k] == *v, "{k} differs");
+        }
+    }
+    let report = String::from_utf8(by_year["report.md"].clone()).unwrap();
+    assert!(report.contains("`tables/calibration_residuals/`"), "the report names the folder");
+    // Parts by entity and date merge into the same files.
+    let out = dir.path().join("parts");
+    for (shard, dates) in [("1/2", "..2015-12-31"), ("1/2", "2016-01-01.."), ("2/2", "..")] {
+        part(&pipeline, &out, shard, dates);
+    }
+    hazardline(&["merge", &pipeline, "--out", out.to_str().unwrap(), "--label", "r"]).success();
+    assert_same(&by_year, &files(&out.join("demo/r"), &["run.log"]), "by-year tables from parts");
+    // The report stage alone, reading the folders back, writes the same report.
+    let run_dir = dir.path().join("by-year/demo/r");
+    std::fs::remove_file(run_dir.join("report.md")).unwrap();
+    hazardline(&["report", run_dir.to_str().unwrap()]).success();
+    assert!(std::fs::read(run_dir.join("report.md")).unwrap() == by_year["report.md"], "the report re-rendered from the folders differs");
+}
+
+#[test]
+fn an_unknown_large_tables_value_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = universe(&dir.path().join("data"));
+    let text = std::fs::read_to_string(&pipeline).unwrap().replace("[report]", "[report]\nlarge_tables = \"by_month\"");
+    std::fs::write(&pipeline, text).unwrap();
+    let out = hazardline(&["run", &pipeline, "--out", dir.path().join("o").to_str().unwrap()]).code(2);
+    let err = String::from_utf8(out.get_output().stderr.clone()).unwrap();
+    assert!(err.contains("report.large_tables") && err.contains("by_month"), "{err}");
+}
