@@ -503,7 +503,11 @@ pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &Calibration
         curves_complete: cal.curves_complete,
         max_abs_residual_bp: cal.max_abs_residual_bp,
         curve_dates: coverage.dates,
-        curve_entities: coverage.last_by_entity.into_keys().collect(),
+        curve_entities: {
+            let mut v: Vec<String> = coverage.last_by_entity.into_keys().collect();
+            v.sort();
+            v
+        },
         multi_currency: multi.iter().cloned().collect(),
         shard: shard.index,
         range: scope.range,

@@ -123,7 +123,8 @@ fn facts(ds: &Dataset, data_end: &BTreeMap<String, NaiveDate>) -> Vec<EntityFact
 #[derive(Debug, Clone, Default)]
 pub struct CurveCoverage {
     pub dates: Option<(NaiveDate, NaiveDate)>,
-    pub last_by_entity: BTreeMap<String, NaiveDate>,
+    /// Asked once per curve (millions): FNV hashing rather than an ordered map.
+    pub last_by_entity: crate::ingest::FastMap<String, NaiveDate>,
 }
 
 impl CurveCoverage {

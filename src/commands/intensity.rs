@@ -315,14 +315,17 @@ fn fit_name(entity: &str, currency: &str, dates: &[NaiveDate], cal: &Calibration
 /// when no list is given) and those of the (date, entity, currency) of a bond quote (for the
 /// CDS-bond basis). [`calibrate_intensity`] asks `cal.cds_curves` for no other.
 pub struct CurvesForFits {
-    cir: Option<Option<std::collections::HashSet<String>>>,
-    bond_days: std::collections::HashSet<(NaiveDate, String, String)>,
+    cir: Option<Option<FastSet<String>>>,
+    bond_days: FastSet<(NaiveDate, String, String)>,
 }
+
+/// Asked once per calibrated curve (millions): FNV hashing, not SipHash.
+type FastSet<K> = std::collections::HashSet<K, std::hash::BuildHasherDefault<crate::ingest::Fnv>>;
 
 impl CurvesForFits {
     pub fn new(ds: &Dataset, s: &IntensitySettings) -> CurvesForFits {
         let cir = s.cir.then(|| s.cir_entities.as_ref().map(|list| list.iter().cloned().collect()));
-        let mut bond_days = std::collections::HashSet::new();
+        let mut bond_days = FastSet::default();
         if let (true, Some(bonds), Some(bq)) = (s.bond_fit, &ds.bonds, &ds.bond_quotes) {
             let by_id: HashMap<&str, &BondRow> = bonds.rows.iter().map(|(b, _)| (b.bond.as_str(), b)).collect();
             for (q, _) in &bq.rows {
@@ -340,7 +343,7 @@ impl CurvesForFits {
             Some(Some(names)) => names.contains(&key.1),
             None => false,
         };
-        cir || self.bond_days.contains(key)
+        cir || (!self.bond_days.is_empty() && self.bond_days.contains(key))
     }
 }
 

@@ -131,9 +131,9 @@ pub struct CurveSeries<'a> {
     labels: Labels,
     pd_1y: Arc<str>,
     hazard_5y: Arc<str>,
-    node_labels: std::collections::HashMap<crate::time::Tenor, Arc<str>>,
+    node_labels: crate::ingest::FastMap<crate::time::Tenor, Arc<str>>,
     /// Per series entity, the date and par spreads of its latest curve so far.
-    last_spreads: std::collections::HashMap<Arc<str>, (NaiveDate, BTreeMap<u32, f64>)>,
+    last_spreads: crate::ingest::FastMap<Arc<str>, (NaiveDate, BTreeMap<u32, f64>)>,
     observations: PanelBuilder,
     market: Vec<MarketMove>,
     /// Each series entity's first curve's spreads (see [`SpreadEdge`]).

@@ -242,3 +242,24 @@ fn an_unknown_large_tables_value_is_refused() {
     let err = String::from_utf8(out.get_output().stderr.clone()).unwrap();
     assert!(err.contains("report.large_tables") && err.contains("by_month"), "{err}");
 }
+
+/// The worked example of DEVELOPERS.md ("Sharded runs"): `pipelines/run-sharded.sh` runs 2
+/// shards x 2 date ranges through xargs, then the merge, into the single run's files.
+#[test]
+fn the_worked_example_script_runs_shards_and_date_ranges() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = universe(&dir.path().join("data"));
+    let one = single(&pipeline, &dir.path().join("single"));
+    let out = dir.path().join("script");
+    let status = std::process::Command::new("sh")
+        .arg(crate::support::repo().join("pipelines/run-sharded.sh"))
+        .args([&pipeline, "2", "2", "--", "--out", out.to_str().unwrap(), "--label", "r", "-q"])
+        .env("HAZARDLINE", assert_cmd::cargo::cargo_bin("hazardline"))
+        .env("DATES", "..2015-11-30 2015-12-01..")
+        .status()
+        .unwrap();
+    assert!(status.success());
+    let parts: Vec<String> = std::fs::read_dir(out.join("demo/r.shards")).unwrap().map(|e| e.unwrap().file_name().to_string_lossy().to_string()).collect();
+    assert_eq!(parts.len(), 4, "{parts:?}");
+    assert_same(&one, &files(&out.join("demo/r"), &["run.log"]), "the script's run");
+}
