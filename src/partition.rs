@@ -166,6 +166,7 @@ pub fn keep_shard(ds: &mut Dataset, shard: Shard) {
             let mut it = keep.iter();
             ds.cds_flags.retain(|_| *it.next().unwrap_or(&false));
         }
+        release_spare(p, &mut ds.cds_flags);
         dropped.push((crate::ingest::cds::TABLE, before - p.rows.len()));
     }
     if let Some(b) = &mut ds.bonds {
@@ -187,6 +188,14 @@ pub fn keep_shard(ds: &mut Dataset, shard: Shard) {
             c.used -= n;
         }
     }
+}
+
+/// Gives back the room of the quotes a part cut away: the panel of the whole input stays
+/// allocated otherwise until the calibration ends (a shrink of a large allocation is done in
+/// place by the allocator, without a copy).
+fn release_spare(p: &mut crate::ingest::cds::CdsPanel, flags: &mut Vec<u8>) {
+    p.rows.shrink_to_fit();
+    flags.shrink_to_fit();
 }
 
 /// What a part of a date range knows beyond its own dates: its range, and each entity's data
@@ -253,6 +262,7 @@ pub fn keep_dates(ds: &mut Dataset, range: DateRange, cfg: &RunConfig) -> DateSc
             let mut it = keep.iter();
             ds.cds_flags.retain(|_| *it.next().unwrap_or(&false));
         }
+        release_spare(p, &mut ds.cds_flags);
         dropped.push((crate::ingest::cds::TABLE, outside));
     }
     if let Some(q) = &mut ds.bond_quotes {
