@@ -348,7 +348,7 @@ fn read_parts(dir: &Path, pipeline: &Path) -> Result<(Vec<PathBuf>, Vec<Partitio
         keyed.push((m.shard, m.range(&f.join("partition.json"))?, f));
     }
     // Parts in shard order, each shard's date ranges in date order (an open start first).
-    keyed.sort_by(|a, b| (a.0, a.1.from).cmp(&(b.0, b.1.from)));
+    keyed.sort_by_key(|k| (k.0, k.1.from));
     let lacking: Vec<String> = (1..=n).filter(|i| !keyed.iter().any(|k| k.0 == *i)).map(|i| format!("{i}/{n}")).collect();
     if !lacking.is_empty() {
         return Err(bad(format!("{}: shards {} are missing; run them, then merge", dir.display(), lacking.join(", "))));

@@ -273,19 +273,19 @@ pub fn residual_slices(path: &Path, mut f: impl FnMut(Vec<ResidualRow>) -> Resul
 
 fn hazard_rows(df: &DataFrame, path: &Path) -> Result<Vec<HazardCurveRow>> {
     let (d, e, c, src, t, m, nd, h, s, st, r, it, mut de) = (
-        dates(&df, path, "date")?,
-        labels(&df, path, "entity")?,
-        labels(&df, path, "currency")?,
+        dates(df, path, "date")?,
+        labels(df, path, "entity")?,
+        labels(df, path, "currency")?,
         fixed_labels(df, path, "source", &["cds", "bond"])?,
-        labels(&df, path, "tenor")?,
-        dates(&df, path, "maturity")?,
-        dates(&df, path, "node_date")?,
-        floats(&df, path, "hazard")?,
-        floats(&df, path, "survival")?,
+        labels(df, path, "tenor")?,
+        dates(df, path, "maturity")?,
+        dates(df, path, "node_date")?,
+        floats(df, path, "hazard")?,
+        floats(df, path, "survival")?,
         fixed_labels(df, path, "status", STATUSES)?,
-        floats(&df, path, "recovery")?,
-        ints(&df, path, "iterations")?,
-        strs(&df, path, "detail")?,
+        floats(df, path, "recovery")?,
+        ints(df, path, "iterations")?,
+        strs(df, path, "detail")?,
     );
     Ok((0..df.height())
         .map(|i| HazardCurveRow {
@@ -313,15 +313,15 @@ pub fn residuals(path: &Path) -> Result<Vec<ResidualRow>> {
 
 fn residual_rows(df: &DataFrame, path: &Path) -> Result<Vec<ResidualRow>> {
     let (d, e, c, me, ins, t, mk, mo, r, st) = (
-        dates(&df, path, "date")?,
-        labels(&df, path, "entity")?,
-        labels(&df, path, "currency")?,
+        dates(df, path, "date")?,
+        labels(df, path, "entity")?,
+        labels(df, path, "currency")?,
         fixed_labels(df, path, "method", &["bootstrap", "bond_fit", "cir"])?,
         fixed_labels(df, path, "instrument", &["cds_par_spread", "cds_upfront", "bond_price"])?,
-        labels(&df, path, "tenor_or_bond")?,
-        floats(&df, path, "market")?,
-        floats(&df, path, "model")?,
-        floats(&df, path, "residual_bp")?,
+        labels(df, path, "tenor_or_bond")?,
+        floats(df, path, "market")?,
+        floats(df, path, "model")?,
+        floats(df, path, "residual_bp")?,
         fixed_labels(df, path, "status", STATUSES)?,
     );
     Ok((0..df.height())
