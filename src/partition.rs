@@ -160,13 +160,7 @@ pub fn keep_shard(ds: &mut Dataset, shard: Shard) {
         let before = p.rows.len();
         let own: Vec<bool> = (0..p.entities.len() as u32).map(|i| shard.owns(p.entities.name(i))).collect();
         let keep: Vec<bool> = p.rows.iter().map(|r| own[r.entity as usize]).collect();
-        let mut it = keep.iter();
-        p.rows.retain(|_| *it.next().unwrap_or(&false));
-        if ds.cds_flags.len() == keep.len() {
-            let mut it = keep.iter();
-            ds.cds_flags.retain(|_| *it.next().unwrap_or(&false));
-        }
-        release_spare(p, &mut ds.cds_flags);
+        retain_quotes(p, &mut ds.cds_flags, &keep);
         dropped.push((crate::ingest::cds::TABLE, before - p.rows.len()));
     }
     if let Some(b) = &mut ds.bonds {
@@ -182,20 +176,31 @@ pub fn keep_shard(ds: &mut Dataset, shard: Shard) {
     }
     // The shard's own accounting: other shards' rows are out of its scope (the merge accounts
     // for the whole input).
+    leave_out(&mut ds.counts, dropped);
+}
+
+/// Keeps the CDS quotes (and their flag bits) where `keep` is true, and gives back the room of
+/// the others: the panel of the whole input stays allocated otherwise until the calibration
+/// ends (a shrink of a large allocation is done in place by the allocator, without a copy).
+fn retain_quotes(p: &mut crate::ingest::cds::CdsPanel, flags: &mut Vec<u8>, keep: &[bool]) {
+    let mut it = keep.iter();
+    p.rows.retain(|_| *it.next().unwrap_or(&false));
+    if flags.len() == keep.len() {
+        let mut it = keep.iter();
+        flags.retain(|_| *it.next().unwrap_or(&false));
+    }
+    p.rows.shrink_to_fit();
+    flags.shrink_to_fit();
+}
+
+/// Takes rows a part cut away out of its accounting (the merge accounts for the whole input).
+fn leave_out(counts: &mut [crate::ingest::TableCounts], dropped: Vec<(&'static str, usize)>) {
     for (table, n) in dropped {
-        for c in ds.counts.iter_mut().filter(|c| c.table == table) {
+        for c in counts.iter_mut().filter(|c| c.table == table) {
             c.rows_in -= n;
             c.used -= n;
         }
     }
-}
-
-/// Gives back the room of the quotes a part cut away: the panel of the whole input stays
-/// allocated otherwise until the calibration ends (a shrink of a large allocation is done in
-/// place by the allocator, without a copy).
-fn release_spare(p: &mut crate::ingest::cds::CdsPanel, flags: &mut Vec<u8>) {
-    p.rows.shrink_to_fit();
-    flags.shrink_to_fit();
 }
 
 /// What a part of a date range knows beyond its own dates: its range, and each entity's data
@@ -256,13 +261,7 @@ pub fn keep_dates(ds: &mut Dataset, range: DateRange, cfg: &RunConfig) -> DateSc
                 cir[r.entity as usize] || margin_from.is_some_and(|(a, b)| r.date >= a && r.date < b)
             })
             .collect();
-        let mut it = keep.iter();
-        p.rows.retain(|_| *it.next().unwrap_or(&false));
-        if ds.cds_flags.len() == keep.len() {
-            let mut it = keep.iter();
-            ds.cds_flags.retain(|_| *it.next().unwrap_or(&false));
-        }
-        release_spare(p, &mut ds.cds_flags);
+        retain_quotes(p, &mut ds.cds_flags, &keep);
         dropped.push((crate::ingest::cds::TABLE, outside));
     }
     if let Some(q) = &mut ds.bond_quotes {
@@ -270,12 +269,7 @@ pub fn keep_dates(ds: &mut Dataset, range: DateRange, cfg: &RunConfig) -> DateSc
         q.rows.retain(|(r, _)| range.contains(r.date));
         dropped.push((crate::ingest::tables::BOND_QUOTES, before - q.rows.len()));
     }
-    for (table, n) in dropped {
-        for c in ds.counts.iter_mut().filter(|c| c.table == table) {
-            c.rows_in -= n;
-            c.used -= n;
-        }
-    }
+    leave_out(&mut ds.counts, dropped);
     DateScope { range, data_end }
 }
 
