@@ -175,7 +175,8 @@ impl<T> Drop for RowGroupWriter<T> {
 pub type FileKey = (u8, &'static str, i32);
 
 /// A large table written as a folder of Parquet files, one per (rank, group, year) of its rows,
-/// named `<rank>-<group>-<year>.parquet`. The rows must arrive in the order of their keys (the
+/// named `<rank>-<group>-<year>.parquet` (the year in four digits, so that names sort as keys
+/// do). The rows must arrive in the order of their keys (the
 /// table's own order does that: see the two large tables), so one file is open at a time and
 /// the files, read in the order of their names, give the rows in table order. Each file is
 /// written by a [`RowGroupWriter`] (same row groups, same temporary-name-and-rename). A table
@@ -197,7 +198,7 @@ impl<T> SplitWriter<T> {
 
     /// The file name of a key.
     pub fn file_name((rank, group, year): FileKey) -> String {
-        format!("{rank}-{group}-{year}.parquet")
+        format!("{rank}-{group}-{year:04}.parquet")
     }
 
     pub fn push(&mut self, rows: impl IntoIterator<Item = T>) -> Result<()> {
@@ -390,7 +391,7 @@ mod tests {
         assert_eq!(w.finish().unwrap(), 25);
         let files = crate::report::readback::table_files(&t).unwrap();
         let names: Vec<String> = files.iter().map(|f| f.file_name().unwrap().to_string_lossy().to_string()).collect();
-        assert_eq!(names, ["1-early-0.parquet", "1-early-1.parquet", "2-late-2.parquet"]);
+        assert_eq!(names, ["1-early-0000.parquet", "1-early-0001.parquet", "2-late-0002.parquet"]);
         let df = crate::report::readback::read_frame(&t).unwrap();
         assert!(df.equals_missing(&frame(&(0..25).collect::<Vec<_>>()).unwrap()));
         // Rows that would go back to a finished file are a bug, not a silent reorder.
