@@ -95,9 +95,6 @@ pub fn hazard_writer(path: &Path, meta: &[(String, String)]) -> Result<RowGroupW
     RowGroupWriter::create(path, &hazard_meta(meta), hazard_frame)
 }
 
-/// The two tables that grow with the quote panel, and may be written as folders of files.
-pub const LARGE_TABLES: [&str; 2] = ["hazard_curves", "calibration_residuals"];
-
 /// Where a `hazard_curves` row goes in the folder form: the CDS nodes first, then the bond
 /// nodes, a file per year of the curve date (the table's order, see `partition::sort_hazard`).
 fn hazard_key(r: &HazardCurveRow) -> FileKey {

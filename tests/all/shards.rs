@@ -9,6 +9,17 @@ fn hazardline(args: &[&str]) -> assert_cmd::assert::Assert {
     Command::cargo_bin("hazardline").unwrap().args(args).assert()
 }
 
+/// The error text of a command that must stop with exit 2 (bad input or config).
+fn refused(args: &[&str]) -> String {
+    String::from_utf8(hazardline(args).code(2).get_output().stderr.clone()).unwrap()
+}
+
+/// Replaces `from` with `to` in the pipeline file.
+fn edit(pipeline: &str, from: &str, to: &str) {
+    let text = std::fs::read_to_string(pipeline).unwrap().replace(from, to);
+    std::fs::write(pipeline, text).unwrap();
+}
+
 /// A small invented universe with bonds, CIR names, defaults, grades and a cohort history.
 fn universe(dir: &Path) -> String {
     hazardline(&["demo", dir.to_str().unwrap(), "--entities", "30", "--years", "2"]).success();
@@ -60,8 +71,7 @@ fn three_shards_merge_into_the_single_runs_bytes() {
 
     // A missing shard stops the merge (exit 2) and names it.
     std::fs::remove_dir_all(parts.join("part-0002-of-0003")).unwrap();
-    let out = hazardline(&["merge", &pipeline, "--out", dir.path().join("three").to_str().unwrap(), "--label", "r"]).code(2);
-    let err = String::from_utf8(out.get_output().stderr.clone()).unwrap();
+    let err = refused(&["merge", &pipeline, "--out", dir.path().join("three").to_str().unwrap(), "--label", "r"]);
     assert!(err.contains("2/3") && err.contains("missing"), "{err}");
 }
 
@@ -71,18 +81,15 @@ fn three_shards_merge_into_the_single_runs_bytes() {
 fn pooled_settings_merge_exactly_and_a_changed_pipeline_is_refused() {
     let dir = tempfile::tempdir().unwrap();
     let pipeline = universe(&dir.path().join("data"));
-    let text = std::fs::read_to_string(&pipeline).unwrap().replace("horizons = [1, 3]", "horizons = [1, 3]\ncohorts = \"quarterly\"\nbuckets = \"pd_bands\"\npd_quantiles = 4\nlookback_days = 20");
-    std::fs::write(&pipeline, text).unwrap();
+    edit(&pipeline, "horizons = [1, 3]", "horizons = [1, 3]\ncohorts = \"quarterly\"\nbuckets = \"pd_bands\"\npd_quantiles = 4\nlookback_days = 20");
     let one = single(&pipeline, &dir.path().join("single"));
     assert!(String::from_utf8(one["report.md"].clone()).unwrap().contains("pd ["), "the report shows PD bands");
     let two = sharded(&pipeline, &dir.path().join("two"), 2, &[1, 2]);
     assert_same(&one, &two, "2 shards");
 
     // Parts made from another pipeline file are refused.
-    let text = std::fs::read_to_string(&pipeline).unwrap().replace("pd_quantiles = 4", "pd_quantiles = 3");
-    std::fs::write(&pipeline, text).unwrap();
-    let out = hazardline(&["merge", &pipeline, "--out", dir.path().join("two").to_str().unwrap(), "--label", "r"]).code(2);
-    let err = String::from_utf8(out.get_output().stderr.clone()).unwrap();
+    edit(&pipeline, "pd_quantiles = 4", "pd_quantiles = 3");
+    let err = refused(&["merge", &pipeline, "--out", dir.path().join("two").to_str().unwrap(), "--label", "r"]);
     assert!(err.contains("another version of the pipeline file"), "{err}");
 }
 
@@ -125,8 +132,8 @@ fn part(pipeline: &str, out: &Path, shard: &str, dates: &str) {
 fn date_ranges_merge_into_the_single_runs_bytes() {
     let dir = tempfile::tempdir().unwrap();
     let pipeline = universe(&dir.path().join("data"));
-    let text = std::fs::read_to_string(&pipeline).unwrap().replace("fixed_kappa_sigma", "free").replace("horizons = [1, 3]", "horizons = [1, 3]\ncohorts = \"quarterly\"\nlookback_days = 20");
-    std::fs::write(&pipeline, text).unwrap();
+    edit(&pipeline, "fixed_kappa_sigma", "free");
+    edit(&pipeline, "horizons = [1, 3]", "horizons = [1, 3]\ncohorts = \"quarterly\"\nlookback_days = 20");
     // Every other entity has no quote on the cohort date 2015-10-01: its member of that cohort
     // uses its curve of the day before, which lies before the part that starts on that date.
     let quotes = dir.path().join("data/cds_quotes/quotes_2015.parquet");
@@ -154,10 +161,7 @@ fn date_ranges_merge_into_the_single_runs_bytes() {
     assert_same(&one, &files(&out.join("demo/r"), &["run.log"]), "2 shards x date ranges");
 
     // A gap, and an overlap, in one shard's dates stop the merge (exit 2) and say where.
-    let merge_err = || {
-        let o = hazardline(&["merge", &pipeline, "--out", out.to_str().unwrap(), "--label", "r"]).code(2);
-        String::from_utf8(o.get_output().stderr.clone()).unwrap()
-    };
+    let merge_err = || refused(&["merge", &pipeline, "--out", out.to_str().unwrap(), "--label", "r"]);
     std::fs::remove_dir_all(parts.join("part-0001-of-0002-from-2015-07-01-to-2015-09-30")).unwrap();
     let err = merge_err();
     assert!(err.contains("shard 1/2") && err.contains("no part covers 2015-07-01..2015-09-30"), "{err}");
@@ -184,8 +188,7 @@ fn large_tables_by_year_are_folders_that_merge_exactly() {
     let dir = tempfile::tempdir().unwrap();
     let pipeline = universe(&dir.path().join("data"));
     let one_file = single(&pipeline, &dir.path().join("one-file"));
-    let text = std::fs::read_to_string(&pipeline).unwrap().replace("[report]", "[report]\nlarge_tables = \"by_year\"");
-    std::fs::write(&pipeline, text).unwrap();
+    edit(&pipeline, "[report]", "[report]\nlarge_tables = \"by_year\"");
     let by_year = single(&pipeline, &dir.path().join("by-year"));
     let names: Vec<&str> = by_year.keys().filter(|k| k.starts_with("tables/hazard_curves/") || k.starts_with("tables/calibration_residuals/")).map(String::as_str).collect();
     assert_eq!(
@@ -236,10 +239,8 @@ fn large_tables_by_year_are_folders_that_merge_exactly() {
 fn an_unknown_large_tables_value_is_refused() {
     let dir = tempfile::tempdir().unwrap();
     let pipeline = universe(&dir.path().join("data"));
-    let text = std::fs::read_to_string(&pipeline).unwrap().replace("[report]", "[report]\nlarge_tables = \"by_month\"");
-    std::fs::write(&pipeline, text).unwrap();
-    let out = hazardline(&["run", &pipeline, "--out", dir.path().join("o").to_str().unwrap()]).code(2);
-    let err = String::from_utf8(out.get_output().stderr.clone()).unwrap();
+    edit(&pipeline, "[report]", "[report]\nlarge_tables = \"by_month\"");
+    let err = refused(&["run", &pipeline, "--out", dir.path().join("o").to_str().unwrap()]);
     assert!(err.contains("report.large_tables") && err.contains("by_month"), "{err}");
 }
 
