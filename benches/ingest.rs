@@ -9,7 +9,7 @@
 
 use chrono::NaiveDate;
 use hazardline::ingest::{load, InputPaths, QualitySettings};
-use hazardline::report::parquet::{write_parquet, TableBuilder};
+use hazardline::tables::parquet::{write_parquet, TableBuilder};
 use hazardline::time::{add_days, Calendar};
 use std::path::{Path, PathBuf};
 use std::time::Instant;

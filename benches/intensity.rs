@@ -8,7 +8,7 @@
 use chrono::NaiveDate;
 use criterion::{black_box, criterion_group, criterion_main, Criterion};
 use hazardline::calibrate::bond_fit::{fit_bond_hazard, BondFitSettings, BondQuote};
-use hazardline::calibrate::intensity_fit::{
+use hazardline::calibrate::cir::{
     fit_cir, fit_cir_fixed, start_from_curve, CirFitSettings, CirSolver,
 };
 use hazardline::calibrate::{bootstrap, BootstrapQuote, BootstrapSettings};

@@ -9,9 +9,9 @@
 //! The CIR fit is limited to the generated pipeline's charted names (as in the demo); set
 //! HAZARDLINE_BENCH_CIR=0 to switch it off.
 
-use hazardline::commands::demo::write_demo;
+use hazardline::stages::universe::write_demo;
 use hazardline::config::load_pipeline;
-use hazardline::pipeline::{run, RunOptions};
+use hazardline::run::{run, RunOptions};
 use hazardline::sim::ScenarioSpec;
 use std::path::PathBuf;
 use std::time::Instant;

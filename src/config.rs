@@ -5,10 +5,10 @@
 //! Every setting has a default, documented on its field; `pipelines/quarterly-review.toml`
 //! shows them all with comments.
 
-use crate::calibrate::intensity_fit::CirFitMode;
+use crate::calibrate::cir::CirFitMode;
 use crate::calibrate::{BootstrapSettings, InfeasiblePolicy};
-use crate::commands::intensity::IntensitySettings;
 use crate::instruments::bond::RecoveryConvention;
+use crate::backtest::BacktestSettings;
 use crate::error::{Error, Result};
 use crate::ingest::{InputPaths, QualitySettings};
 use crate::instruments::AccrualIntegration;
@@ -17,6 +17,58 @@ use chrono::NaiveDate;
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
+
+/// Checked settings of the bond and CIR fits (from `[calibration]`).
+#[derive(Debug, Clone, PartialEq)]
+pub struct IntensitySettings {
+    pub bond_fit: bool,
+    pub cir: bool,
+    pub cir_mode: CirFitMode,
+    /// Business days per window of the fixed-kappa-sigma mode.
+    pub cir_window: usize,
+    pub bond_convention: RecoveryConvention,
+    /// Fit CIR only for these entities (None: every entity).
+    pub cir_entities: Option<Vec<String>>,
+}
+
+impl Default for IntensitySettings {
+    fn default() -> Self {
+        IntensitySettings { bond_fit: false, cir: false, cir_mode: CirFitMode::Free, cir_window: 20, bond_convention: RecoveryConvention::Par, cir_entities: None }
+    }
+}
+
+pub use crate::backtest::CohortFrequency;
+
+/// The stage's settings beyond the core's.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BacktestStage {
+    pub enabled: bool,
+    pub frequency: CohortFrequency,
+    /// The core settings; `cohort_dates` is filled from the data.
+    pub core: BacktestSettings,
+    /// Recoveries of the sensitivity scenarios (the base recovery is the run's).
+    pub recovery_scenarios: Vec<f64>,
+}
+
+impl BacktestStage {
+    /// The settings in force as (name, value) pairs.
+    pub fn pairs(&self) -> Vec<(String, String)> {
+        use crate::backtest::{Bucketing, CensoringPolicy};
+        let c = &self.core;
+        vec![
+            ("enabled".into(), self.enabled.to_string()),
+            ("cohorts".into(), match self.frequency { CohortFrequency::Annual => "annual (first business day of each year)", CohortFrequency::Quarterly => "quarterly (first business day of each quarter)" }.into()),
+            ("horizons_years".into(), format!("{:?}", c.horizons_years)),
+            ("lookback_days".into(), c.lookback_days.to_string()),
+            ("censoring".into(), match c.censoring { CensoringPolicy::Exclude => "exclude from n (exposure kept)", CensoringPolicy::CountAsSurvivor => "count as survivor" }.into()),
+            ("buckets".into(), match &c.bucketing { Bucketing::Grades => "internal grade as of the cohort date".to_string(), Bucketing::PdEdges(e) => format!("implied-PD bands with edges {e:?}"), Bucketing::PdQuantiles(k) => format!("{k} implied-PD quantile bands") }),
+            ("level".into(), c.level.to_string()),
+            ("zone_yellow".into(), c.zones.yellow.to_string()),
+            ("zone_red".into(), c.zones.red.to_string()),
+            ("recovery_scenarios".into(), format!("{:?}", self.recovery_scenarios)),
+        ]
+    }
+}
 
 /// The pipeline file as written.
 #[derive(Debug, Clone, Deserialize, Serialize, Default)]
@@ -72,9 +124,8 @@ pub struct BacktestSection {
     pub recovery_scenarios: Option<Vec<f64>>,
 }
 
-fn backtest_stage(k: &BacktestSection, inputs: &InputPaths, path: &Path) -> Result<crate::commands::backtest::BacktestStage> {
-    use crate::backtest::{BacktestSettings, Bucketing, CensoringPolicy};
-    use crate::commands::backtest::{BacktestStage, CohortFrequency};
+fn backtest_stage(k: &BacktestSection, inputs: &InputPaths, path: &Path) -> Result<BacktestStage> {
+    use crate::backtest::{Bucketing, CensoringPolicy};
     let enabled = k.enabled.unwrap_or(inputs.grades.is_some() || inputs.defaults.is_some() || inputs.cohort_history.is_some());
     let frequency = match k.cohorts.as_deref().unwrap_or("annual") {
         "annual" => CohortFrequency::Annual,
@@ -304,7 +355,7 @@ pub struct RunConfig {
     #[serde(skip)]
     pub large_tables: LargeTables,
     #[serde(skip)]
-    pub backtest: crate::commands::backtest::BacktestStage,
+    pub backtest: BacktestStage,
     /// The backtest settings in force, as (name, value) pairs for the manifest and the notes.
     pub backtest_settings: Vec<(String, String)>,
     #[serde(skip)]

@@ -32,7 +32,7 @@ pub enum Error {
 
 impl Error {
     /// The process exit code for this error: 2 for bad input or configuration.
-    pub fn exit_code(&self) -> i32 {
+    pub fn exit_code(&self) -> u8 {
         2
     }
 }

@@ -1,24 +1,23 @@
 //! hazardline: a validation pipeline for reduced-form (intensity) credit models.
 //!
-//! The numerical core ([`time`], [`curves`], [`instruments`], [`calibrate`], [`math`]) is
-//! plain Rust over structs and slices: no polars, no files, no clock, no logging in inner
-//! loops. Tables and file formats live at the edges ([`ingest`], [`report`]), and
-//! [`commands`] wires stages for the command line.
+//! The numerical core lives in the `hazardline-core` crate (no polars, no files, no clock, no
+//! logging) and is re-exported here module by module, so `hazardline::time`,
+//! `hazardline::calibrate` and the rest name the same items. This crate holds the application,
+//! in layers that point one way (each imports only the layers below it; a test checks it):
+//!
+//! [`commands`] (one module per command-line verb) -> [`run`] (a single run, shards, date
+//! parts, part folders, merge, self-check) -> [`stages`] (calibrate, fits, backtest, stability:
+//! adapters between the core and the tables) -> [`config`] (the pipeline file and the checked
+//! run settings) -> [`report`] (report.md and figures) -> [`tables`] (output tables and the
+//! manifest) -> [`ingest`] (input tables, row rules, data quality) -> [`error`].
 
-pub mod backtest;
-pub mod calibrate;
+pub use hazardline_core::{backtest, calibrate, curves, hash, instruments, math, models, parts, sim, stability, stats, time};
+
 pub mod commands;
 pub mod config;
-pub mod curves;
 pub mod error;
 pub mod ingest;
-pub mod instruments;
-pub mod math;
-pub mod models;
-pub mod partition;
-pub mod pipeline;
 pub mod report;
-pub mod sim;
-pub mod stability;
-pub mod stats;
-pub mod time;
+pub mod run;
+pub mod stages;
+pub mod tables;

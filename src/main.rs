@@ -1,11 +1,16 @@
-//! The hazardline command line. Parses flags, builds checked settings, calls the library,
-//! prints a summary, sets the exit code. Nothing else lives here.
+//! The hazardline command line: parses flags into checked arguments and hands them to the
+//! command's module (`hazardline::commands`), which prints what it did. This is the one place
+//! that prints an error and picks the exit code: 0 done, 1 the command's own verdict failed
+//! (red flags with `fail_on_red_flags`, a failed self-check), 2 an error (bad input, settings
+//! or arguments, a file that cannot be read or written).
 
 use clap::{Parser, Subcommand, ValueEnum};
 use hazardline::calibrate::{BootstrapSettings, InfeasiblePolicy};
-use hazardline::commands::calibrate::{self, CalibrateSettings, CalibrationParams};
-use hazardline::commands::check::{self, CheckSettings};
-use hazardline::ingest::{InputPaths, QualitySettings, TableCounts};
+use hazardline::commands::calibrate::CalibrateSettings;
+use hazardline::commands::check::CheckSettings;
+use hazardline::error::{Error, Result};
+use hazardline::stages::calibrate::CalibrationParams;
+use hazardline::ingest::{InputPaths, QualitySettings};
 use hazardline::instruments::AccrualIntegration;
 use hazardline::time::Calendar;
 use std::io::IsTerminal;
@@ -128,13 +133,13 @@ enum Command {
         /// their name) and write its part beside the run folder, in `<label>.shards/`; `merge`
         /// finishes the run once every shard has run.
         #[arg(long, value_name = "I/N", value_parser = parse_shard)]
-        shard: Option<hazardline::partition::Shard>,
+        shard: Option<hazardline::parts::Shard>,
         /// Run only the per-entity stages for the curve dates FROM..TO (both included, either
         /// end may be left open, e.g. `..2016-12-31`, `2017-01-01..`) and write their part
         /// beside the run folder, as --shard does (with or without --shard); `merge` finishes
         /// the run once parts cover every date of every shard.
         #[arg(long, value_name = "FROM..TO", value_parser = parse_dates)]
-        dates: Option<hazardline::partition::DateRange>,
+        dates: Option<hazardline::parts::DateRange>,
     },
     /// Finish a sharded run: read the parts of every shard (`run --shard I/N`, I = 1..N, and
     /// `--dates FROM..TO` ranges that cover every date) and write the run folder, the same
@@ -176,7 +181,7 @@ enum Command {
         #[arg(long, default_value_t = 5)]
         years: u32,
         /// First day of the quoted period (yyyy-mm-dd).
-        #[arg(long, default_value = "2015-01-01", value_parser = hazardline::commands::demo::parse_start)]
+        #[arg(long, default_value = "2015-01-01", value_parser = hazardline::stages::universe::parse_start)]
         start: chrono::NaiveDate,
     },
     /// Generate a planted-truth universe in a temporary folder, run the whole pipeline on it,
@@ -221,271 +226,67 @@ fn init_logging(verbose: u8, quiet: bool) {
         .try_init();
 }
 
-fn calendar_of(inputs: &Inputs) -> Result<Calendar, ExitCode> {
+fn calendar_of(inputs: &Inputs) -> Result<Calendar> {
     match &inputs.holidays {
-        Some(p) => hazardline::config::read_holidays(p).map_err(|e| {
-            eprintln!("error: {e}");
-            ExitCode::from(2)
-        }),
+        Some(p) => hazardline::config::read_holidays(p).map_err(Error::Other),
         None => Ok(Calendar::weekends_only()),
     }
 }
 
-fn print_counts(counts: &[TableCounts]) {
-    println!("{:<16} {:>12} {:>12} {:>12} {:>12}", "table", "rows in", "used", "rejected", "flagged");
-    for c in counts {
-        println!("{:<16} {:>12} {:>12} {:>12} {:>12}", c.table, c.rows_in, c.used, c.rejected, c.flagged);
-    }
+fn parse_shard(s: &str) -> std::result::Result<hazardline::parts::Shard, String> {
+    hazardline::parts::Shard::parse(s)
 }
 
-fn print_reasons(reasons: &[(String, &'static str, usize)]) {
-    if !reasons.is_empty() {
-        println!("top reject reasons:");
-        for (table, reason, n) in reasons {
-            println!("  {table:<16} {reason:<24} {n:>10}");
-        }
-    }
+fn parse_dates(s: &str) -> std::result::Result<hazardline::parts::DateRange, String> {
+    hazardline::parts::DateRange::parse(s)
 }
 
-/// Prints what a whole run (or a merge) did and picks the exit code.
-fn finish_run(cfg: &hazardline::config::RunConfig, result: hazardline::error::Result<hazardline::pipeline::RunSummary>) -> anyhow::Result<ExitCode> {
-    match result {
-        Ok(s) => {
-            print_counts(&s.counts);
-            println!("curves: {} ({} with every node ok); largest |residual| on ok nodes {:.3e} bp", s.curves, s.curves_complete, s.max_abs_residual_bp);
-            println!("rejected rows: {}; flags: {} ({} red)", s.rejected, s.flags, s.red_flags);
-            for (stage, secs) in &s.timings {
-                tracing::info!(stage = stage.as_str(), seconds = secs, "stage finished");
-            }
-            println!("report: {}", s.run_dir.join("report.md").display());
-            if cfg.fail_on_red_flags && s.red_flags > 0 {
-                return Ok(ExitCode::from(1));
-            }
-            Ok(ExitCode::SUCCESS)
-        }
-        Err(e) => {
-            eprintln!("error: {e}");
-            Ok(ExitCode::from(e.exit_code() as u8))
-        }
-    }
-}
-
-fn parse_shard(s: &str) -> Result<hazardline::partition::Shard, String> {
-    hazardline::partition::Shard::parse(s)
-}
-
-fn parse_dates(s: &str) -> Result<hazardline::partition::DateRange, String> {
-    hazardline::partition::DateRange::parse(s)
-}
-
-fn run(cli: Cli) -> anyhow::Result<ExitCode> {
-    match cli.command {
+/// Checks the arguments clap cannot, and runs the command.
+fn dispatch(command: Command) -> Result<u8> {
+    use hazardline::commands;
+    match command {
         Command::Calibrate { inputs, recovery, infeasible, accrual, out } => {
             if !(0.0..1.0).contains(&recovery) {
-                eprintln!("error: --recovery {recovery} is not a fraction in [0, 1)");
-                return Ok(ExitCode::from(2));
+                return Err(Error::Other(format!("--recovery {recovery} is not a fraction in [0, 1)")));
             }
             if inputs.cds.is_none() || inputs.discount.is_none() {
-                eprintln!("error: calibrate needs --cds and --discount");
-                return Ok(ExitCode::from(2));
+                return Err(Error::Other("calibrate needs --cds and --discount".into()));
             }
-            let calendar = match calendar_of(&inputs) {
-                Ok(c) => c,
-                Err(code) => return Ok(code),
-            };
-            let settings = CalibrateSettings {
-                inputs: inputs.paths(),
-                out,
-                params: CalibrationParams {
-                    recovery,
-                    recovery_by_seniority: Default::default(),
-                    calendar: calendar.clone(),
-                    bootstrap: BootstrapSettings {
-                    infeasible: match infeasible {
-                        Infeasible::Floor => InfeasiblePolicy::Floor,
-                        Infeasible::Fail => InfeasiblePolicy::Fail,
-                    },
-                    accrual: match accrual {
-                        Accrual::Standard => AccrualIntegration::Standard,
-                        Accrual::Exact => AccrualIntegration::Exact,
-                    },
-                    ..BootstrapSettings::default()
-                    },
+            let calendar = calendar_of(&inputs)?;
+            let bootstrap = BootstrapSettings {
+                infeasible: match infeasible {
+                    Infeasible::Floor => InfeasiblePolicy::Floor,
+                    Infeasible::Fail => InfeasiblePolicy::Fail,
                 },
-                calendar,
-                quality: QualitySettings::default(),
+                accrual: match accrual {
+                    Accrual::Standard => AccrualIntegration::Standard,
+                    Accrual::Exact => AccrualIntegration::Exact,
+                },
+                ..BootstrapSettings::default()
             };
-            let started = std::time::Instant::now();
-            match calibrate::run(&settings) {
-                Ok(s) => {
-                    print_counts(&s.counts);
-                    print_reasons(&s.top_reasons);
-                    println!("curves: {} ({} with every node ok), nodes: {}", s.curves, s.curves_complete, s.nodes);
-                    for (status, n) in &s.nodes_by_status {
-                        println!("  {status}: {n}");
-                    }
-                    println!("largest |residual| on ok nodes: {:.3e} bp", s.max_abs_residual_bp);
-                    for p in &s.outputs {
-                        println!("wrote {}", p.display());
-                    }
-                    tracing::info!(seconds = started.elapsed().as_secs_f64(), "calibrate finished");
-                    Ok(ExitCode::SUCCESS)
-                }
-                Err(e) => {
-                    eprintln!("error: {e}");
-                    Ok(ExitCode::from(e.exit_code() as u8))
-                }
-            }
+            let params = CalibrationParams { recovery, recovery_by_seniority: Default::default(), calendar: calendar.clone(), bootstrap };
+            commands::calibrate::run(&CalibrateSettings { inputs: inputs.paths(), out, params, calendar, quality: QualitySettings::default() })
         }
         Command::Run { pipeline, out, label, shard, dates } => {
-            let cfg = match hazardline::config::load_pipeline(&pipeline) {
-                Ok(c) => c,
-                Err(e) => {
-                    eprintln!("error: {e}");
-                    return Ok(ExitCode::from(2));
-                }
-            };
-            let opts = hazardline::pipeline::RunOptions { out_root: out, label };
-            if shard.is_some() || dates.is_some() {
-                let (shard, dates) = (shard.unwrap_or(hazardline::partition::Shard::ALL), dates.unwrap_or_default());
-                return match hazardline::pipeline::run_shard(&cfg, &opts, shard, dates) {
-                    Ok(s) => {
-                        let range = if dates.is_all() { String::new() } else { format!(", dates {dates}") };
-                        println!("shard {shard}{range}: {} entities, {} curves", s.entities, s.curves);
-                        for (stage, secs, _, _) in &s.timings {
-                            tracing::info!(stage = stage.as_str(), seconds = secs, "stage finished");
-                        }
-                        println!("part: {}", s.part_dir.display());
-                        Ok(ExitCode::SUCCESS)
-                    }
-                    Err(e) => {
-                        eprintln!("error: {e}");
-                        Ok(ExitCode::from(e.exit_code() as u8))
-                    }
-                };
-            }
-            finish_run(&cfg, hazardline::pipeline::run(&cfg, &opts))
+            commands::run::run(&pipeline, &hazardline::run::RunOptions { out_root: out, label }, shard, dates)
         }
-        Command::Merge { pipeline, out, label } => {
-            let cfg = match hazardline::config::load_pipeline(&pipeline) {
-                Ok(c) => c,
-                Err(e) => {
-                    eprintln!("error: {e}");
-                    return Ok(ExitCode::from(2));
-                }
-            };
-            finish_run(&cfg, hazardline::pipeline::merge(&cfg, &hazardline::pipeline::RunOptions { out_root: out, label }))
-        }
-        Command::Report { run_dir } => match hazardline::report::markdown::render(&run_dir) {
-            Ok(()) => {
-                println!("report: {}", run_dir.join("report.md").display());
-                Ok(ExitCode::SUCCESS)
-            }
-            Err(e) => {
-                eprintln!("error: {e}");
-                Ok(ExitCode::from(2))
-            }
-        },
-        Command::Compare { run_a, run_b, out } => match hazardline::commands::compare::compare(&run_a, &run_b) {
-            Ok(text) => {
-                match out {
-                    Some(p) => {
-                        if let Err(e) = hazardline::report::manifest::write_text(&p, &text) {
-                            eprintln!("error: {e}");
-                            return Ok(ExitCode::from(2));
-                        }
-                        println!("wrote {}", p.display());
-                    }
-                    None => print!("{text}"),
-                }
-                Ok(ExitCode::SUCCESS)
-            }
-            Err(e) => {
-                eprintln!("error: {e}");
-                Ok(ExitCode::from(2))
-            }
-        },
+        Command::Merge { pipeline, out, label } => commands::merge::run(&pipeline, &hazardline::run::RunOptions { out_root: out, label }),
+        Command::Report { run_dir } => commands::report::run(&run_dir),
+        Command::Compare { run_a, run_b, out } => commands::compare::run(&run_a, &run_b, out.as_deref()),
         Command::Demo { out_dir, seed, entities, years, start } => {
-            if entities == 0 || years == 0 || years > 40 {
-                eprintln!("error: --entities must be at least 1 and --years between 1 and 40");
-                return Ok(ExitCode::from(2));
-            }
             let spec = hazardline::sim::ScenarioSpec { seed, entities, years, start, ..hazardline::sim::ScenarioSpec::demo(seed) };
-            match hazardline::commands::demo::write_demo(&out_dir, &spec) {
-                Ok(s) => {
-                    println!(
-                        "wrote an invented universe to {}: {} entities, {} CDS quote rows, {} defaults, {} planted faults, {} files",
-                        s.out.display(),
-                        s.entities,
-                        s.quotes,
-                        s.defaults,
-                        s.faults,
-                        s.files.len()
-                    );
-                    println!("run it with: hazardline run {}", s.out.join("pipeline.toml").display());
-                    Ok(ExitCode::SUCCESS)
-                }
-                Err(e) => {
-                    eprintln!("error: {e}");
-                    Ok(ExitCode::from(e.exit_code() as u8))
-                }
-            }
+            commands::demo::run(&out_dir, &spec)
         }
         Command::Selfcheck { size, seed, keep } => {
-            use hazardline::commands::selfcheck::{selfcheck, Size};
             let size = match size {
-                CheckSize::Small => Size::Small,
-                CheckSize::Large => Size::Large,
+                CheckSize::Small => hazardline::run::selfcheck::Size::Small,
+                CheckSize::Large => hazardline::run::selfcheck::Size::Large,
             };
-            let tmp;
-            let dir = match &keep {
-                Some(d) => d.clone(),
-                None => {
-                    tmp = std::env::temp_dir().join(format!("hazardline-selfcheck-{}", std::process::id()));
-                    tmp
-                }
-            };
-            let result = selfcheck(&dir, &size.spec(seed));
-            if keep.is_none() {
-                let _ = std::fs::remove_dir_all(&dir);
-            }
-            match result {
-                Ok(c) => {
-                    print!("{}", c.table);
-                    Ok(if c.passed { ExitCode::SUCCESS } else { ExitCode::from(1) })
-                }
-                Err(e) => {
-                    eprintln!("error: {e}");
-                    Ok(ExitCode::from(e.exit_code() as u8))
-                }
-            }
+            commands::selfcheck::run(size, seed, keep.as_deref())
         }
         Command::Check { inputs, out } => {
-            let calendar = match calendar_of(&inputs) {
-                Ok(c) => c,
-                Err(code) => return Ok(code),
-            };
-            let settings = CheckSettings { inputs: inputs.paths(), calendar, quality: QualitySettings::default(), out };
-            match check::run(&settings) {
-                Ok(s) => {
-                    print_counts(&s.counts);
-                    print_reasons(&s.top_reasons);
-                    if !s.flags_by_rule.is_empty() {
-                        println!("quality flags (rows kept):");
-                        for (rule, n) in &s.flags_by_rule {
-                            println!("  {rule:<24} {n:>10}");
-                        }
-                    }
-                    for p in &s.outputs {
-                        println!("wrote {}", p.display());
-                    }
-                    Ok(ExitCode::SUCCESS)
-                }
-                Err(e) => {
-                    eprintln!("error: {e}");
-                    Ok(ExitCode::from(e.exit_code() as u8))
-                }
-            }
+            let calendar = calendar_of(&inputs)?;
+            commands::check::run(&CheckSettings { inputs: inputs.paths(), calendar, quality: QualitySettings::default(), out })
         }
     }
 }
@@ -493,11 +294,11 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
 fn main() -> ExitCode {
     let cli = Cli::parse();
     init_logging(cli.verbose, cli.quiet);
-    match run(cli) {
-        Ok(code) => code,
+    match dispatch(cli.command) {
+        Ok(code) => ExitCode::from(code),
         Err(e) => {
-            eprintln!("error: {e:#}");
-            ExitCode::from(2)
+            eprintln!("error: {e}");
+            ExitCode::from(e.exit_code())
         }
     }
 }

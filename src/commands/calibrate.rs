@@ -1,33 +1,16 @@
-//! The `calibrate` stage: CDS quotes + discount zero rates -> hazard_curves,
-//! calibration_residuals and rejects (Parquet) in one output folder.
-//!
-//! Reads: cds_quotes (date, entity, currency, tenor, par_spread_bp | upfront + coupon_bp,
-//! recovery), discount (date, currency, tenor, zero_rate). Writes: hazard_curves.parquet,
-//! calibration_residuals.parquet, rejects.parquet. Every input row is either used by a curve
-//! or rejected with a reason: rows in = rows used + rows rejected, per table.
-//!
-//! Curves are independent and run in parallel (rayon) over plain structs; polars is done
-//! before the parallel section starts and only resumes to write.
+//! `hazardline calibrate`: the CDS bootstrap alone, on input tables named by flags, into an
+//! output folder: hazard_curves, calibration_residuals, rejects, data_quality and
+//! quality_flags (Parquet).
 
-use crate::calibrate::bootstrap::BootstrapPlan;
-use crate::calibrate::{bootstrap, BootstrapError, BootstrapQuote, BootstrapSettings, InfeasiblePolicy};
-use crate::curves::{DiscountCurve, HazardCurve};
 use crate::error::{Error, Result};
-use crate::ingest::cds::{self, CdsPanel, CdsQuoteRow};
-use crate::ingest::discount::{self, DiscountRow};
-use crate::ingest::{load, InputPaths, QualitySettings, Reject, TableCounts};
-use crate::report::tables::DiscountCurveRow;
-use crate::instruments::AccrualIntegration;
-use crate::report::tables::{
-    tenor_label, write_data_quality, write_hazard_curves, write_quality_flags, write_rejects, write_residuals, HazardCurveRow, Label, ResidualRow,
-};
-use crate::time::{Calendar, Tenor};
-use chrono::NaiveDate;
-use rayon::prelude::*;
+use crate::ingest::{load, InputPaths, QualitySettings, TableCounts};
+use crate::stages::calibrate::{calibrate_dataset, metadata, top_reasons, CalibrationParams};
+use crate::tables::records::{write_data_quality, write_hazard_curves, write_quality_flags, write_rejects, write_residuals};
+use crate::time::Calendar;
 use std::collections::BTreeMap;
 use std::path::PathBuf;
 
-/// Checked settings of the calibrate stage.
+/// Checked settings of the calibrate command.
 #[derive(Debug, Clone)]
 pub struct CalibrateSettings {
     /// cds_quotes and discount are required; defaults (for the after-default rule) and the
@@ -37,44 +20,6 @@ pub struct CalibrateSettings {
     pub params: CalibrationParams,
     pub calendar: Calendar,
     pub quality: QualitySettings,
-}
-
-/// What the calibration itself needs (shared by `calibrate` and `run`).
-#[derive(Debug, Clone)]
-pub struct CalibrationParams {
-    /// Recovery for rows with neither a recovery nor a seniority listed below.
-    pub recovery: f64,
-    /// Recovery by the rows' seniority value.
-    pub recovery_by_seniority: BTreeMap<String, f64>,
-    pub bootstrap: BootstrapSettings,
-    pub calendar: Calendar,
-}
-
-/// Tables and counts produced by calibrating a dataset.
-#[derive(Debug, Default)]
-pub struct Calibration {
-    pub hazard: Vec<HazardCurveRow>,
-    pub residuals: Vec<ResidualRow>,
-    pub discount: Vec<DiscountCurveRow>,
-    /// Rows this stage rejected (no discount curve, curve not built, bad discount curve).
-    pub rejects: Vec<Reject>,
-    pub curves: usize,
-    pub curves_complete: usize,
-    pub nodes_by_status: BTreeMap<&'static str, usize>,
-    pub max_abs_residual_bp: f64,
-    /// The discount curves built, per (date, currency), for the later fits.
-    pub discount_curves: BTreeMap<(NaiveDate, String), DiscountCurve>,
-    /// Every bootstrapped CDS curve with its quotes, per (date, entity, currency).
-    pub cds_curves: BTreeMap<(NaiveDate, String, String), CdsCurve>,
-}
-
-/// A bootstrapped CDS curve as the bond and CIR fits use it.
-#[derive(Debug, Clone)]
-pub struct CdsCurve {
-    /// The quotes the curve was bootstrapped from, in panel order.
-    pub quotes: Vec<BootstrapQuote>,
-    /// The curve, when every node is usable and the fail policy did not stop it.
-    pub curve: Option<HazardCurve>,
 }
 
 /// What a calibrate run did.
@@ -91,276 +36,8 @@ pub struct CalibrateSummary {
     pub outputs: Vec<PathBuf>,
 }
 
-/// A curve's result, kept in key order.
-struct CurveOutput {
-    hazard: Vec<HazardCurveRow>,
-    residuals: Vec<ResidualRow>,
-    rejects: Vec<Reject>,
-    used: usize,
-    fit: Option<((NaiveDate, String, String), CdsCurve)>,
-}
-
-/// Builds discount curves per (date, currency); the rows of a curve that cannot be built are
-/// rejected.
-fn discount_curves(rows: Vec<DiscountRow>, rejects: &mut Vec<Reject>) -> (BTreeMap<(NaiveDate, String), DiscountCurve>, usize) {
-    let mut groups: BTreeMap<(NaiveDate, String), Vec<DiscountRow>> = BTreeMap::new();
-    for r in rows {
-        groups.entry((r.date, r.currency.clone())).or_default().push(r);
-    }
-    let mut out = BTreeMap::new();
-    let mut used = 0;
-    for (key, rows) in groups {
-        let pillars: Vec<(Tenor, f64)> = rows.iter().map(|r| (r.tenor, r.zero_rate)).collect();
-        match DiscountCurve::from_zero_rates(key.0, &pillars) {
-            Ok(c) => {
-                used += rows.len();
-                out.insert(key, c);
-            }
-            Err(e) => {
-                for r in rows {
-                    let mut rej = Reject::new(discount::TABLE, &r.source, r.row, "bad_discount_curve", e.to_string());
-                    rej.date = Some(r.date);
-                    rej.key = format!("{} {}", r.currency, r.tenor);
-                    rejects.push(rej);
-                }
-            }
-        }
-    }
-    (out, used)
-}
-
-fn recovery_of(panel: &CdsPanel, r: &CdsQuoteRow, p: &CalibrationParams) -> f64 {
-    r.recovery().unwrap_or_else(|| {
-        if r.seniority != u32::MAX {
-            if let Some(v) = p.recovery_by_seniority.get(panel.seniorities.name(r.seniority)) {
-                return *v;
-            }
-        }
-        p.recovery
-    })
-}
-
-fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, plan: Option<&std::result::Result<BootstrapPlan, BootstrapError>>, s: &CalibrationParams) -> CurveOutput {
-    let h = rows[0];
-    let (date, entity, currency) = (h.date, panel.entities.name(h.entity), panel.currencies.name(h.currency));
-    let quotes: Vec<BootstrapQuote> = rows
-        .iter()
-        .map(|r| BootstrapQuote { tenor: r.tenor, quote: r.quote, recovery: recovery_of(panel, r, s) })
-        .collect();
-    // The shared plan of this (date, currency, tenor set) when there is one; the plain
-    // bootstrap otherwise (same numbers, the plan built for this curve alone).
-    let fitted = match plan {
-        Some(Ok(p)) => p.solve(&quotes, &s.bootstrap),
-        Some(Err(e)) => Err(e.clone()),
-        None => bootstrap(date, &quotes, curve, &s.calendar, &s.bootstrap),
-    };
-    let fit = match fitted {
-        Ok(f) => f,
-        Err(e) => {
-            let rejects = rows.iter().map(|r| panel.reject(r, "curve_not_built", format!("{date} {entity} {currency}: {e}"))).collect();
-            return CurveOutput { hazard: Vec::new(), residuals: Vec::new(), rejects, used: 0, fit: None };
-        }
-    };
-    let shared = match plan {
-        Some(Ok(p)) => Some(p),
-        _ => None,
-    };
-    let residuals = crate::calibrate::residuals::reprice_with_plan(&fit, &quotes, curve, s.bootstrap.accrual, shared);
-    let (entity_label, currency_label): (Label, Label) = (entity.into(), currency.into());
-    let hazard = fit
-        .nodes
-        .iter()
-        .map(|n| HazardCurveRow {
-            date,
-            entity: entity_label.clone(),
-            currency: currency_label.clone(),
-            source: "cds",
-            tenor: tenor_label(n.tenor),
-            maturity: n.maturity,
-            node_date: n.node_date,
-            hazard: n.hazard,
-            survival: n.survival,
-            status: n.status.as_str(),
-            recovery: quotes[n.quote_index].recovery,
-            iterations: n.iterations as i64,
-            detail: n.detail.clone(),
-        })
-        .collect();
-    let residuals = residuals
-        .into_iter()
-        .map(|q| ResidualRow {
-            date,
-            entity: entity_label.clone(),
-            currency: currency_label.clone(),
-            method: "bootstrap",
-            instrument: q.instrument,
-            tenor_or_bond: tenor_label(q.tenor),
-            market: q.market,
-            model: q.model,
-            residual_bp: q.residual_bp,
-            status: fit.nodes.iter().find(|n| n.quote_index == q.quote_index).map_or("ok", |n| n.status.as_str()),
-        })
-        .collect();
-    let curve = if fit.complete() && !fit.failed { fit.curve.clone() } else { None };
-    let key = (date, entity.to_string(), currency.to_string());
-    CurveOutput { hazard, residuals, rejects: Vec::new(), used: rows.len(), fit: Some((key, CdsCurve { quotes, curve })) }
-}
-
-/// Curves calibrated in parallel before their rows are moved into the tables.
-const CURVES_PER_BLOCK: usize = 16_384;
-
-/// One block of calibrated curves, in key order (date, entity, currency): their node rows,
-/// their residual rows and the bootstrapped curves with their quotes.
-#[derive(Debug, Default)]
-pub struct CurveBlock {
-    pub hazard: Vec<HazardCurveRow>,
-    pub residuals: Vec<ResidualRow>,
-    pub curves: Vec<((NaiveDate, String, String), CdsCurve)>,
-}
-
-/// Calibrates every curve of the dataset's CDS panel and keeps every row and curve in the
-/// returned [`Calibration`] (see [`calibrate_blocks`] to take them as they come instead).
-pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams) -> Result<Calibration> {
-    let quotes = ds.cds.as_ref().map_or(0, |c| c.rows.len());
-    let (mut hazard, mut residuals) = (Vec::new(), Vec::new());
-    // Every quote gives at most one node and one residual: the tables are reserved at that
-    // bound (pages never written are never resident).
-    hazard.reserve_exact(quotes);
-    residuals.reserve_exact(quotes);
-    let mut curves = BTreeMap::new();
-    let mut out = calibrate_blocks(ds, p, crate::partition::DateRange::ALL, |b| {
-        hazard.extend(b.hazard);
-        residuals.extend(b.residuals);
-        curves.extend(b.curves);
-        Ok(())
-    })?;
-    out.hazard = hazard;
-    out.residuals = residuals;
-    out.cds_curves = curves;
-    Ok(out)
-}
-
-/// Calibrates every curve of the dataset's CDS panel, handing each block of curves to `sink`
-/// in key order as soon as it is done; the returned [`Calibration`] has everything but the
-/// rows and curves the blocks carried. Updates `ds.counts` with this stage's rejects and
-/// checks the accounting again. A curve dated outside `scope` is a margin curve (see
-/// [`crate::partition::keep_dates`]): it is calibrated and handed over in the block's
-/// `curves`, but its rows, rejects and counts belong to another part and are left out.
-pub fn calibrate_blocks(ds: &mut crate::ingest::Dataset, p: &CalibrationParams, scope: crate::partition::DateRange, mut sink: impl FnMut(CurveBlock) -> Result<()>) -> Result<Calibration> {
-    let disc = ds.discount.as_ref().ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the discount table".into() })?;
-    let panel = ds.cds.as_ref().ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the cds_quotes table".into() })?;
-    let mut out = Calibration::default();
-    let (curves, disc_used) = discount_curves(disc.rows.clone(), &mut out.rejects);
-    for ((date, ccy), c) in &curves {
-        for (&pillar, &ln_df) in c.pillar_dates().iter().zip(c.pillar_log_dfs()) {
-            let t = crate::curves::year_time(*date, pillar);
-            out.discount.push(DiscountCurveRow { date: *date, currency: ccy.clone(), pillar_date: pillar, zero_rate: -ln_df / t, discount_factor: ln_df.exp() });
-        }
-    }
-
-    // Curves are consecutive runs of (date, entity, currency) in the panel's sorted rows.
-    let mut jobs: Vec<(usize, usize)> = Vec::new();
-    let rows = &panel.rows;
-    let mut i = 0;
-    while i < rows.len() {
-        let mut j = i + 1;
-        while j < rows.len() && rows[j].date == rows[i].date && rows[j].entity == rows[i].entity && rows[j].currency == rows[i].currency {
-            j += 1;
-        }
-        jobs.push((i, j));
-        i = j;
-    }
-    // One bootstrap plan per (date, currency, tenor set), shared by every name quoted so.
-    type PlanKey = (chrono::NaiveDate, u32, Vec<Tenor>);
-    let key_of = |a: usize, b: usize| -> PlanKey { (rows[a].date, rows[a].currency, rows[a..b].iter().map(|r| r.tenor).collect()) };
-    let mut keys: Vec<PlanKey> = jobs.iter().map(|&(a, b)| key_of(a, b)).collect();
-    keys.sort();
-    keys.dedup();
-    let plans: std::collections::HashMap<PlanKey, std::result::Result<BootstrapPlan, BootstrapError>> = keys
-        .into_par_iter()
-        .filter_map(|k| {
-            let curve = curves.get(&(k.0, panel.currencies.name(k.1).to_string()))?;
-            let plan = BootstrapPlan::new(k.0, &k.2, curve, &p.calendar, p.bootstrap.accrual);
-            Some((k, plan))
-        })
-        .collect();
-    let progress = crate::report::progress::bar(jobs.len() as u64, "calibrating curves");
-    // Curves run in parallel a block at a time and each block goes to the sink before the
-    // next starts, so the per-curve vectors of only one block are alive at once.
-    let mut cds_used = 0;
-    for block_jobs in jobs.chunks(CURVES_PER_BLOCK) {
-        let outputs: Vec<CurveOutput> = block_jobs
-            .par_iter()
-            .map(|&(a, b)| {
-                let h = &rows[a];
-                let o = match curves.get(&(h.date, panel.currencies.name(h.currency).to_string())) {
-                    Some(curve) => calibrate_one(panel, &rows[a..b], curve, plans.get(&key_of(a, b)), p),
-                    None => CurveOutput {
-                        hazard: Vec::new(),
-                        residuals: Vec::new(),
-                        rejects: rows[a..b]
-                            .iter()
-                            .map(|r| panel.reject(r, "no_discount_curve", format!("no usable {} discount curve on {}", panel.currencies.name(r.currency), r.date)))
-                            .collect(),
-                        used: 0,
-                        fit: None,
-                    },
-                };
-                progress.inc(1);
-                o
-            })
-            .collect();
-        let mut block = CurveBlock::default();
-        for (o, &(a, _)) in outputs.into_iter().zip(block_jobs) {
-            if !scope.contains(rows[a].date) {
-                block.curves.extend(o.fit);
-                continue;
-            }
-            cds_used += o.used;
-            if !o.hazard.is_empty() {
-                out.curves += 1;
-                if o.hazard.iter().all(|h| h.status == "ok") {
-                    out.curves_complete += 1;
-                }
-            }
-            for h in &o.hazard {
-                *out.nodes_by_status.entry(h.status).or_default() += 1;
-            }
-            block.hazard.extend(o.hazard);
-            for r in &o.residuals {
-                if r.status == "ok" {
-                    out.max_abs_residual_bp = out.max_abs_residual_bp.max(r.residual_bp.abs());
-                }
-            }
-            block.residuals.extend(o.residuals);
-            out.rejects.extend(o.rejects);
-            block.curves.extend(o.fit);
-        }
-        sink(block)?;
-    }
-    progress.finish_and_clear();
-    out.discount_curves = curves;
-    for c in ds.counts.iter_mut() {
-        let extra = out.rejects.iter().filter(|r| r.table == c.table).count();
-        c.rejected += extra;
-        if c.table == cds::TABLE {
-            c.used = cds_used;
-        } else if c.table == discount::TABLE {
-            c.used = disc_used;
-        }
-        if c.rows_in != c.used + c.rejected {
-            return Err(Error::Other(format!(
-                "row accounting of {} does not add up after calibration ({} in, {} used, {} rejected); this is a bug, please report it",
-                c.table, c.rows_in, c.used, c.rejected
-            )));
-        }
-    }
-    out.rejects.sort_by(|a, b| (a.table, &a.source, a.row).cmp(&(b.table, &b.source, b.row)));
-    Ok(out)
-}
-
-/// Runs the stage.
-pub fn run(s: &CalibrateSettings) -> Result<CalibrateSummary> {
+/// Calibrates the inputs and writes the tables.
+pub fn calibrate(s: &CalibrateSettings) -> Result<CalibrateSummary> {
     if s.inputs.cds_quotes.is_none() || s.inputs.discount.is_none() {
         return Err(Error::Argument { name: "inputs", message: "calibrate needs the cds_quotes and discount tables".into() });
     }
@@ -395,41 +72,20 @@ pub fn run(s: &CalibrateSettings) -> Result<CalibrateSummary> {
     Ok(CalibrateSummary { outputs: paths.to_vec(), ..summary })
 }
 
-/// The most frequent reject reasons per table, most frequent first (ties by name).
-pub fn top_reasons(rejects: &[Reject], n: usize) -> Vec<(String, &'static str, usize)> {
-    let mut m: BTreeMap<(&'static str, &'static str), usize> = BTreeMap::new();
-    for r in rejects {
-        *m.entry((r.table, r.reason)).or_default() += 1;
+/// Runs the command and prints what it did.
+pub fn run(s: &CalibrateSettings) -> Result<u8> {
+    let started = std::time::Instant::now();
+    let s = calibrate(s)?;
+    super::print_counts(&s.counts);
+    super::print_reasons(&s.top_reasons);
+    println!("curves: {} ({} with every node ok), nodes: {}", s.curves, s.curves_complete, s.nodes);
+    for (status, n) in &s.nodes_by_status {
+        println!("  {status}: {n}");
     }
-    let mut v: Vec<(String, &'static str, usize)> = m.into_iter().map(|((t, r), c)| (t.to_string(), r, c)).collect();
-    v.sort_by(|a, b| b.2.cmp(&a.2).then(a.0.cmp(&b.0)).then(a.1.cmp(b.1)));
-    v.truncate(n);
-    v
-}
-
-/// Settings recorded in every output's key-value metadata.
-pub fn metadata(p: &CalibrationParams, q: &QualitySettings) -> Vec<(String, String)> {
-    let b = &p.bootstrap;
-    vec![
-        ("hazardline.version".into(), env!("CARGO_PKG_VERSION").into()),
-        ("hazardline.default_recovery".into(), format!("{}", p.recovery)),
-        ("hazardline.recovery_by_seniority".into(), format!("{:?}", p.recovery_by_seniority)),
-        (
-            "hazardline.accrual_on_default".into(),
-            match b.accrual {
-                AccrualIntegration::Standard => "standard (one interval per coupon period)".into(),
-                AccrualIntegration::Exact => "exact (split at every curve node)".into(),
-            },
-        ),
-        (
-            "hazardline.infeasible_policy".into(),
-            match b.infeasible {
-                InfeasiblePolicy::Floor => "floor".into(),
-                InfeasiblePolicy::Fail => "fail".into(),
-            },
-        ),
-        ("hazardline.hazard_tolerance".into(), format!("{:e}", b.hazard_tolerance)),
-        ("hazardline.calendar".into(), format!("weekends + {} holidays", p.calendar.holidays().len())),
-        ("hazardline.quality".into(), format!("{q:?}")),
-    ]
+    println!("largest |residual| on ok nodes: {:.3e} bp", s.max_abs_residual_bp);
+    for p in &s.outputs {
+        println!("wrote {}", p.display());
+    }
+    tracing::info!(seconds = started.elapsed().as_secs_f64(), "calibrate finished");
+    Ok(0)
 }

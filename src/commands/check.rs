@@ -1,12 +1,12 @@
-//! The `check` stage: ingestion and data quality only, no calibration.
+//! `hazardline check`: ingestion and data quality only, no calibration.
 //!
 //! Reads any of the input tables, applies every data-quality rule, and writes rejects,
 //! data_quality and quality_flags (Parquet) when an output folder is given.
 
-use super::calibrate::top_reasons;
 use crate::error::Result;
 use crate::ingest::{load, InputPaths, QualitySettings, TableCounts};
-use crate::report::tables::{write_data_quality, write_quality_flags, write_rejects};
+use crate::stages::calibrate::top_reasons;
+use crate::tables::records::{write_data_quality, write_quality_flags, write_rejects};
 use crate::time::Calendar;
 use std::collections::BTreeMap;
 use std::path::PathBuf;
@@ -27,7 +27,8 @@ pub struct CheckSummary {
     pub outputs: Vec<PathBuf>,
 }
 
-pub fn run(s: &CheckSettings) -> Result<CheckSummary> {
+/// Reads the inputs and runs the data-quality rules; writes the tables when `out` is set.
+pub fn check(s: &CheckSettings) -> Result<CheckSummary> {
     let ds = load(&s.inputs, &s.calendar, &s.quality)?;
     let mut summary = CheckSummary { counts: ds.counts.clone(), top_reasons: top_reasons(&ds.rejects, 10), ..Default::default() };
     for f in &ds.flags {
@@ -46,4 +47,21 @@ pub fn run(s: &CheckSettings) -> Result<CheckSummary> {
         summary.outputs = paths.to_vec();
     }
     Ok(summary)
+}
+
+/// Runs the command and prints what it found.
+pub fn run(s: &CheckSettings) -> Result<u8> {
+    let s = check(s)?;
+    super::print_counts(&s.counts);
+    super::print_reasons(&s.top_reasons);
+    if !s.flags_by_rule.is_empty() {
+        println!("quality flags (rows kept):");
+        for (rule, n) in &s.flags_by_rule {
+            println!("  {rule:<24} {n:>10}");
+        }
+    }
+    for p in &s.outputs {
+        println!("wrote {}", p.display());
+    }
+    Ok(0)
 }

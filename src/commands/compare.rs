@@ -1,81 +1,17 @@
-//! `hazardline compare RUN_A RUN_B`: what changed between two reviews, as Markdown: row
-//! accounting, calibration outcome, the shift of each entity's mean 5Y hazard, and the flags
-//! that are new in B or cleared since A.
+//! `hazardline compare RUN_A RUN_B`: a Markdown comparison of two runs, to standard output or
+//! to a file.
 
 use crate::error::Result;
-use crate::report::manifest;
-use crate::report::readback;
-use std::collections::{BTreeMap, BTreeSet};
-use std::fmt::Write as _;
 use std::path::Path;
 
-fn mean_5y(run: &Path) -> Result<BTreeMap<String, (f64, usize)>> {
-    // The table can be tens of millions of rows: read a slice at a time.
-    let mut m: BTreeMap<String, (f64, usize)> = BTreeMap::new();
-    readback::hazard_curve_slices(&readback::table_path(&run.join("tables"), "hazard_curves"), |rows| {
-        for r in rows.iter().filter(|r| r.source == "cds" && &*r.tenor == "5Y" && r.status == "ok") {
-            if let Some(x) = r.hazard {
-                let e = m.entry(r.entity.to_string()).or_default();
-                e.0 += x;
-                e.1 += 1;
-            }
+pub fn run(run_a: &Path, run_b: &Path, out: Option<&Path>) -> Result<u8> {
+    let text = crate::report::compare::compare(run_a, run_b)?;
+    match out {
+        Some(p) => {
+            crate::tables::manifest::write_text(p, &text)?;
+            println!("wrote {}", p.display());
         }
-        Ok(())
-    })?;
-    Ok(m.into_iter().map(|(k, (s, n))| (k, (s / n as f64, n))).collect())
-}
-
-/// The comparison as Markdown.
-pub fn compare(a: &Path, b: &Path) -> Result<String> {
-    let (ma, mb) = (manifest::read(&a.join("manifest.json"))?, manifest::read(&b.join("manifest.json"))?);
-    let mut w = String::new();
-    let _ = writeln!(w, "# Comparison of two reviews\n");
-    let _ = writeln!(w, "> **Caution.** {}\n", crate::report::markdown::CAUTION);
-    let _ = writeln!(w, "- A: {} / {} (period {:?})", ma.name, ma.label, ma.period);
-    let _ = writeln!(w, "- B: {} / {} (period {:?})\n", mb.name, mb.label, mb.period);
-    let _ = writeln!(w, "## Row accounting\n\n| stage | table | rows in A | rows in B | rejected A | rejected B |\n| --- | --- | ---: | ---: | ---: | ---: |");
-    let keys: BTreeSet<(String, String)> = ma.counts.iter().chain(&mb.counts).map(|c| (c.stage.clone(), c.table.clone())).collect();
-    for (s, t) in &keys {
-        let f = |m: &manifest::Manifest| m.counts.iter().find(|c| &c.stage == s && &c.table == t).map(|c| (c.rows_in, c.rejected));
-        let (x, y) = (f(&ma), f(&mb));
-        let show = |v: Option<(u64, u64)>, i: usize| v.map_or("-".to_string(), |p| if i == 0 { p.0.to_string() } else { p.1.to_string() });
-        let _ = writeln!(w, "| {s} | {t} | {} | {} | {} | {} |", show(x, 0), show(y, 0), show(x, 1), show(y, 1));
+        None => print!("{text}"),
     }
-    let (ha, hb) = (mean_5y(a)?, mean_5y(b)?);
-    let _ = writeln!(w, "\n## Mean 5Y hazard by entity\n\n| entity | A (%) | B (%) | change (bp of hazard) |\n| --- | ---: | ---: | ---: |");
-    let ents: BTreeSet<&String> = ha.keys().chain(hb.keys()).collect();
-    let mut rows: Vec<(String, Option<f64>, Option<f64>)> = ents.iter().map(|e| ((*e).clone(), ha.get(*e).map(|v| v.0), hb.get(*e).map(|v| v.0))).collect();
-    rows.sort_by(|x, y| {
-        let d = |r: &(String, Option<f64>, Option<f64>)| match (r.1, r.2) {
-            (Some(a), Some(b)) => (b - a).abs(),
-            _ => f64::INFINITY,
-        };
-        d(y).total_cmp(&d(x)).then(x.0.cmp(&y.0))
-    });
-    for (e, x, y) in &rows {
-        let f = |v: &Option<f64>| v.map_or("-".to_string(), |v| format!("{:.3}", v * 100.0));
-        let ch = match (x, y) {
-            (Some(a), Some(b)) => format!("{:+.1}", (b - a) * 1e4),
-            _ => "-".into(),
-        };
-        let _ = writeln!(w, "| {e} | {} | {} | {ch} |", f(x), f(y));
-    }
-    let fa = readback::flags(&a.join("tables/flags.parquet"))?;
-    let fb = readback::flags(&b.join("tables/flags.parquet"))?;
-    let key = |f: &readback::FlagRecord| (f.0.clone(), f.2.clone(), f.3.clone(), f.4);
-    let ka: BTreeSet<_> = fa.iter().map(key).collect();
-    let kb: BTreeSet<_> = fb.iter().map(key).collect();
-    let new: Vec<_> = fb.iter().filter(|f| !ka.contains(&key(f))).collect();
-    let cleared: Vec<_> = fa.iter().filter(|f| !kb.contains(&key(f))).collect();
-    let _ = writeln!(w, "\n## Flags\n\n{} flags in A, {} in B; {} new in B, {} cleared since A.\n", fa.len(), fb.len(), new.len(), cleared.len());
-    for (title, list) in [("New in B", &new), ("Cleared since A", &cleared)] {
-        if !list.is_empty() {
-            let _ = writeln!(w, "{title}:\n\n| rule | entity | series | date | explanation |\n| --- | --- | --- | --- | --- |");
-            for f in list.iter().take(30) {
-                let _ = writeln!(w, "| `{}` | {} | {} | {} | {} |", f.0, f.2, f.3, f.4.map(|d| d.to_string()).unwrap_or_default(), f.7.replace('|', "/"));
-            }
-            let _ = writeln!(w);
-        }
-    }
-    Ok(w)
+    Ok(0)
 }

@@ -90,7 +90,7 @@ impl Dataset {
     /// Shows every source file relative to `base` (the pipeline file's folder), so that
     /// rejects and flags read the same whichever way the pipeline file was named.
     pub fn relabel_sources(&mut self, base: &std::path::Path) {
-        let rel = |s: &str| crate::report::manifest::relative(std::path::Path::new(s), base);
+        let rel = |s: &str| super::files::relative(std::path::Path::new(s), base);
         for r in &mut self.rejects {
             r.source = rel(&r.source);
         }

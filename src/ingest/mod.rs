@@ -11,6 +11,7 @@
 
 pub mod cds;
 pub mod discount;
+pub mod files;
 pub mod load;
 pub mod quality;
 pub mod source;
@@ -20,31 +21,8 @@ pub use load::{load, Dataset, InputPaths, TableCounts};
 pub use quality::{QualityFlag, QualitySettings};
 pub use source::{Cell, Reject};
 
-use std::collections::HashMap;
-use std::hash::{BuildHasherDefault, Hasher};
 
-/// FNV-1a: a small, fast hash for the short keys (entity and currency names, tenors) looked
-/// up once per input row; the default SipHash costs several times more on 40 million rows.
-/// Not for untrusted adversarial keys, which these are not (they come from the user's files).
-#[derive(Default, Clone, Copy)]
-pub struct Fnv(u64);
-
-impl Hasher for Fnv {
-    fn write(&mut self, bytes: &[u8]) {
-        let mut h = if self.0 == 0 { 0xcbf2_9ce4_8422_2325 } else { self.0 };
-        for &b in bytes {
-            h ^= b as u64;
-            h = h.wrapping_mul(0x0000_0100_0000_01b3);
-        }
-        self.0 = h;
-    }
-    fn finish(&self) -> u64 {
-        self.0
-    }
-}
-
-/// A HashMap with the FNV hasher.
-pub type FastMap<K, V> = HashMap<K, V, BuildHasherDefault<Fnv>>;
+pub use crate::hash::{FastMap, Fnv};
 
 /// Maps names (entities, currencies, ...) to small integer ids so large panels hold no
 /// repeated strings. Ids follow first appearance; `sorted_ids` gives name order.

@@ -3,9 +3,9 @@
 //! files in `charts/`, each with a caption. Deterministic: no clock, stable ordering.
 
 use super::charts;
-use super::manifest::{self, write_text, Manifest};
-use super::readback;
-use super::tables::HazardCurveRow;
+use crate::tables::manifest::{self, write_text, Manifest};
+use crate::tables::readback;
+use crate::tables::records::HazardCurveRow;
 use crate::stability::summary::keep_first_n;
 use crate::error::{Error, Result};
 use chrono::NaiveDate;
@@ -83,7 +83,7 @@ struct CdsNodes {
     /// CDS curves: each curve's rows are one run of the table (it is sorted by curve), so the
     /// runs are counted rather than the keys held (4.6 million at 2,000 names x 10 years).
     curves: usize,
-    bad_curves: std::collections::HashSet<(NaiveDate, super::tables::Label, super::tables::Label)>,
+    bad_curves: std::collections::HashSet<(NaiveDate, crate::tables::records::Label, crate::tables::records::Label)>,
     status_counts: BTreeMap<&'static str, usize>,
     /// The first ten nodes not `ok`, in table order, and how many there are.
     bad_first: Vec<HazardCurveRow>,
@@ -95,7 +95,7 @@ struct CdsNodes {
     /// (table order): (date, years to node, hazard) and the 5Y history.
     named: BTreeMap<String, (Vec<(NaiveDate, f64, f64)>, Vec<(f64, f64)>)>,
     /// The curve of the last CDS row taken.
-    last: Option<(NaiveDate, super::tables::Label, super::tables::Label)>,
+    last: Option<(NaiveDate, crate::tables::records::Label, crate::tables::records::Label)>,
 }
 
 /// The charted entities' nodes: term structures on the chosen dates and the 5Y history.
@@ -236,13 +236,13 @@ struct Residuals {
     within: usize,
     by_tenor: BTreeMap<(u32, String), TenorSums>,
     /// The ten largest finite bootstrap residuals (all statuses), as a stable sort would give.
-    worst: Vec<super::tables::ResidualRow>,
+    worst: Vec<crate::tables::records::ResidualRow>,
     /// log10 |residual| of every finite bootstrap residual, for the histogram.
     logs: Vec<f64>,
-    bond: Vec<super::tables::ResidualRow>,
+    bond: Vec<crate::tables::records::ResidualRow>,
 }
 
-fn worst_first(a: &super::tables::ResidualRow, b: &super::tables::ResidualRow) -> std::cmp::Ordering {
+fn worst_first(a: &crate::tables::records::ResidualRow, b: &crate::tables::records::ResidualRow) -> std::cmp::Ordering {
     b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then(a.date.cmp(&b.date)).then(a.entity.cmp(&b.entity))
 }
 
@@ -261,7 +261,7 @@ impl Residuals {
     }
 
     /// Takes the next rows of the table, in table order.
-    fn add(&mut self, rows: &[super::tables::ResidualRow]) {
+    fn add(&mut self, rows: &[crate::tables::records::ResidualRow]) {
         // The empty sum of the standard library (its starting value), so that running sums
         // match `Iterator::sum` over the same values bit for bit.
         let zero: f64 = std::iter::empty::<f64>().sum();
@@ -318,14 +318,14 @@ impl NodeFold {
     }
 }
 
-impl super::parquet::RowFold<HazardCurveRow> for NodeFold {
+impl crate::tables::parquet::RowFold<HazardCurveRow> for NodeFold {
     fn add(&mut self, rows: &[HazardCurveRow]) {
         self.0.add(rows);
     }
 }
 
-impl super::parquet::RowFold<super::tables::ResidualRow> for ResidualFold {
-    fn add(&mut self, rows: &[super::tables::ResidualRow]) {
+impl crate::tables::parquet::RowFold<crate::tables::records::ResidualRow> for ResidualFold {
+    fn add(&mut self, rows: &[crate::tables::records::ResidualRow]) {
         self.0.add(rows);
     }
 }
@@ -369,7 +369,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         }
     };
     let bond_hazard = &hz.bond;
-    let bond_res: Vec<&super::tables::ResidualRow> = rs.bond.iter().collect();
+    let bond_res: Vec<&crate::tables::records::ResidualRow> = rs.bond.iter().collect();
     let flags = readback::flags(&t.join("flags.parquet"))?;
     let reasons = readback::reject_reasons(&t.join("rejects.parquet"))?;
     let charts_dir = run_dir.join("charts");
@@ -588,13 +588,13 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         let _ = writeln!(w, "*Figure {figure}. Distribution of the absolute repricing residuals of all repriced quotes on a log scale (residuals below 1e-16 bp are shown at -16). Floored nodes, if any, sit far to the right.*\n");
     }
 
-    super::review::residual_section(w, &t, &charts_dir, &mut figure)?;
+    super::sections::residual_section(w, &t, &charts_dir, &mut figure)?;
     // A large table may be a folder of files (`report.large_tables`).
     let shown = |n: &str| if t.join(n).is_dir() { format!("tables/{n}/") } else { format!("tables/{n}.parquet") };
     let large = (shown("hazard_curves"), shown("calibration_residuals"));
     intensity_sections(w, bond_hazard, &bond_res, &basis, &params, &m.settings, &charts_dir, &mut figure, &large)?;
 
-    super::review::stability_section(w, &t, &charts_dir, &mut figure, 4)?;
+    super::sections::stability_section(w, &t, &charts_dir, &mut figure, 4)?;
     let base_recovery = m.settings.get("recovery").and_then(|v| v.as_f64()).unwrap_or(0.4);
     let backtest_enabled = m
         .settings
@@ -603,7 +603,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         .and_then(|a| a.iter().find(|p| p.get(0).and_then(|k| k.as_str()) == Some("enabled")))
         .and_then(|p| p.get(1).and_then(|v| v.as_str()))
         .is_none_or(|v| v == "true");
-    super::review::backtest_section(w, &t, &charts_dir, &mut figure, 5, base_recovery, backtest_enabled)?;
+    super::sections::backtest_section(w, &t, &charts_dir, &mut figure, 5, base_recovery, backtest_enabled)?;
 
     // 6. Flags
     let _ = writeln!(w, "## 6. Flags\n");
@@ -685,9 +685,9 @@ fn median(v: &mut [f64]) -> f64 {
 fn intensity_sections(
     w: &mut String,
     bond_hazard: &[HazardCurveRow],
-    bond_res: &[&super::tables::ResidualRow],
-    basis: &[super::tables::BasisRow],
-    params: &[super::tables::IntensityParamRow],
+    bond_res: &[&crate::tables::records::ResidualRow],
+    basis: &[crate::tables::records::BasisRow],
+    params: &[crate::tables::records::IntensityParamRow],
     settings: &serde_json::Value,
     charts_dir: &Path,
     figure: &mut usize,
@@ -744,13 +744,13 @@ fn intensity_sections(
     if !params.is_empty() {
         let _ = writeln!(w, "### CIR intensity fit\n");
         let _ = writeln!(w, "The CIR intensity d lambda = kappa (theta - lambda) dt + sigma sqrt(lambda) dW fitted to each bootstrapped CDS curve's quotes (`tables/intensity_params.parquet`; repriced quotes with method `cir` in `{residual_table}`). Medians over the fits that produced parameters; RMSE over each curve's quotes in bp of running spread.\n");
-        let mut per: BTreeMap<(&str, &str), Vec<&super::tables::IntensityParamRow>> = BTreeMap::new();
+        let mut per: BTreeMap<(&str, &str), Vec<&crate::tables::records::IntensityParamRow>> = BTreeMap::new();
         for p in params {
             per.entry((p.entity.as_str(), p.currency.as_str())).or_default().push(p);
         }
         let _ = writeln!(w, "| entity | currency | fits | kappa | theta | sigma | lambda0 | median RMSE (bp) | largest RMSE (bp) | Feller holds | at a bound | status |\n| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- |");
         for ((e, c), v) in &per {
-            let col = |f: &dyn Fn(&super::tables::IntensityParamRow) -> Option<f64>| -> Vec<f64> { v.iter().filter_map(|p| f(p)).collect() };
+            let col = |f: &dyn Fn(&crate::tables::records::IntensityParamRow) -> Option<f64>| -> Vec<f64> { v.iter().filter_map(|p| f(p)).collect() };
             let (mut k, mut th, mut sg, mut l0, mut rm) = (col(&|p| p.kappa), col(&|p| p.theta), col(&|p| p.sigma), col(&|p| p.lambda0), col(&|p| p.rmse_bp));
             let mx = rm.iter().fold(0.0f64, |a, x| a.max(*x));
             let with = v.iter().filter(|p| p.feller.is_some()).count();

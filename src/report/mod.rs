@@ -1,10 +1,12 @@
-//! Writers: Parquet tables (explicit schemas, dates as Parquet dates, atomic rename).
+//! The review report: `report.md` and its SVG figures, rendered from a run folder's tables and
+//! manifest only (so `hazardline report RUN_DIR` re-renders exactly what `run` wrote), and the
+//! comparison of two runs.
+//!
+//! Layer: below the stages and the configuration, above the tables. Must not: compute a
+//! statistic the tables do not hold, or read the inputs.
 
 pub mod charts;
-pub mod manifest;
+pub mod compare;
 pub mod markdown;
-pub mod parquet;
 pub mod progress;
-pub mod readback;
-pub mod review;
-pub mod tables;
+pub mod sections;

@@ -5,7 +5,7 @@
 //! All market data is invented. Measured figures are printed (run with `--nocapture`).
 
 use super::support::{d, tenor, usd_like_curve};
-use hazardline::calibrate::intensity_fit::{
+use hazardline::calibrate::cir::{
     cir_par_spreads, fit_cir, fit_cir_fixed, fit_cir_window, start_from_curve, CirFitMode,
     CirFitSettings, CirFitStatus, CirSolver, CirWindowDay,
 };
@@ -653,7 +653,7 @@ fn window_mode_is_more_stable_day_to_day_than_the_free_fit() {
         && f.kappa == w.kappa
         && f.sigma == w.sigma));
 
-    let col = |fs: &[hazardline::calibrate::intensity_fit::CirFit],
+    let col = |fs: &[hazardline::calibrate::cir::CirFit],
                g: fn(&CirParams) -> f64|
      -> Vec<f64> { fs.iter().map(|f| g(&f.params())).collect() };
     let sd_free_th = sd_of_changes(&col(&free, |p| p.theta));

@@ -130,7 +130,7 @@ fn parquet_folder_input_is_read() {
     std::fs::create_dir(&qdir).unwrap();
     for (i, date) in ["2024-03-21", "2024-03-22"].iter().enumerate() {
         let d = hazardline::time::parse_iso_date(date).unwrap();
-        let mut df = hazardline::report::parquet::TableBuilder::new()
+        let mut df = hazardline::tables::parquet::TableBuilder::new()
             .dates("date", vec![Some(d); 3])
             .strings("entity", vec![Some("ALPHA"); 3])
             .strings("currency", vec![Some("USD"); 3])
@@ -138,7 +138,7 @@ fn parquet_folder_input_is_read() {
             .floats("par_spread_bp", vec![Some(50.0), Some(90.0), Some(120.0)])
             .finish()
             .unwrap();
-        hazardline::report::parquet::write_parquet(&mut df, &qdir.join(format!("part-{i}.parquet")), &[]).unwrap();
+        hazardline::tables::parquet::write_parquet(&mut df, &qdir.join(format!("part-{i}.parquet")), &[]).unwrap();
     }
     let out = dir.path().join("out");
     let assert = Command::cargo_bin("hazardline")
@@ -160,7 +160,7 @@ fn wrong_column_type_exits_2_naming_file_column_found_and_expected() {
     let dir = tempfile::tempdir().unwrap();
     let disc = write(dir.path(), "disc.csv", DISCOUNT);
     let d = hazardline::time::parse_iso_date("2024-03-21").unwrap();
-    let mut df = hazardline::report::parquet::TableBuilder::new()
+    let mut df = hazardline::tables::parquet::TableBuilder::new()
         .dates("date", vec![Some(d)])
         .strings("entity", vec![Some("ALPHA")])
         .strings("currency", vec![Some("USD")])
@@ -169,7 +169,7 @@ fn wrong_column_type_exits_2_naming_file_column_found_and_expected() {
         .finish()
         .unwrap();
     let q = dir.path().join("typed.parquet");
-    hazardline::report::parquet::write_parquet(&mut df, &q, &[]).unwrap();
+    hazardline::tables::parquet::write_parquet(&mut df, &q, &[]).unwrap();
     Command::cargo_bin("hazardline")
         .unwrap()
         .args(["check", "--cds"])

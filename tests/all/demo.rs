@@ -3,9 +3,9 @@
 //! stability flag points at rows of the other tables, and on the demo scenario the implied
 //! PDs sit above the realised frequencies with a premium larger for the better grades.
 
-use hazardline::commands::demo::write_demo;
-use hazardline::commands::selfcheck::{selfcheck, Size};
-use hazardline::report::readback::{floats, ints, read_frame, strs};
+use hazardline::stages::universe::write_demo;
+use hazardline::run::selfcheck::{selfcheck, Size};
+use hazardline::tables::readback::{floats, ints, read_frame, strs};
 use hazardline::sim::ScenarioSpec;
 use super::support::{files, repo};
 use std::collections::BTreeMap;
@@ -44,11 +44,11 @@ fn small_selfcheck_recovers_what_was_planted() {
     let t = dir.path().join("reports/demo/selfcheck/tables");
     let (fp, sp, rp) = (t.join("flags.parquet"), t.join("stability.parquet"), t.join("residual_curves.parquet"));
     let (f, s, r) = (read_frame(&fp).unwrap(), read_frame(&sp).unwrap(), read_frame(&rp).unwrap());
-    let (stage, rule, entity, series, period, date) = (strs(&f, &fp, "stage").unwrap(), strs(&f, &fp, "rule").unwrap(), strs(&f, &fp, "entity").unwrap(), strs(&f, &fp, "series").unwrap(), strs(&f, &fp, "period").unwrap(), hazardline::report::readback::dates(&f, &fp, "date").unwrap());
+    let (stage, rule, entity, series, period, date) = (strs(&f, &fp, "stage").unwrap(), strs(&f, &fp, "rule").unwrap(), strs(&f, &fp, "entity").unwrap(), strs(&f, &fp, "series").unwrap(), strs(&f, &fp, "period").unwrap(), hazardline::tables::readback::dates(&f, &fp, "date").unwrap());
     let (ss, sper, skey, sscope) = (strs(&s, &sp, "series").unwrap(), strs(&s, &sp, "period").unwrap(), strs(&s, &sp, "key").unwrap(), strs(&s, &sp, "scope").unwrap());
     let rows: std::collections::BTreeSet<(String, String, String, String)> =
         (0..s.height()).map(|i| (ss[i].clone().unwrap(), sper[i].clone().unwrap(), skey[i].clone().unwrap(), sscope[i].clone().unwrap())).collect();
-    let (re, rm, rd) = (strs(&r, &rp, "entity").unwrap(), strs(&r, &rp, "method").unwrap(), hazardline::report::readback::dates(&r, &rp, "date").unwrap());
+    let (re, rm, rd) = (strs(&r, &rp, "entity").unwrap(), strs(&r, &rp, "method").unwrap(), hazardline::tables::readback::dates(&r, &rp, "date").unwrap());
     let curves: std::collections::BTreeSet<(String, String, chrono::NaiveDate)> = (0..r.height()).map(|i| (re[i].clone().unwrap(), rm[i].clone().unwrap(), rd[i].unwrap())).collect();
     let mut checked = BTreeMap::new();
     for i in 0..f.height() {
@@ -124,7 +124,7 @@ fn cohort_history_only_backtest() {
     let text = std::fs::read_to_string(&p).unwrap().replace("defaults = \"defaults.csv\"\n", "").replace("cir = true", "cir = false");
     std::fs::write(&p, text).unwrap();
     let cfg = hazardline::config::load_pipeline(&p).unwrap();
-    let run = hazardline::pipeline::run(&cfg, &hazardline::pipeline::RunOptions { out_root: Some(dir.path().join("out")), label: Some("h".into()) }).unwrap();
+    let run = hazardline::run::run(&cfg, &hazardline::run::RunOptions { out_root: Some(dir.path().join("out")), label: Some("h".into()) }).unwrap();
     let t = run.run_dir.join("tables");
     assert_eq!(read_frame(&t.join("backtest_buckets.parquet")).unwrap().height(), 0);
     let hp = t.join("backtest_history.parquet");

@@ -4,8 +4,8 @@
 
 use assert_cmd::Command;
 use hazardline::config::load_pipeline;
-use hazardline::pipeline::{run, RunOptions};
-use hazardline::report::readback;
+use hazardline::run::{run, RunOptions};
+use hazardline::tables::readback;
 use std::collections::BTreeSet;
 use super::support::repo;
 

@@ -1,5 +1,6 @@
 //! All integration tests build into this one binary (one link step instead of many).
 
+mod architecture;
 mod cli;
 mod closed_forms;
 mod pipeline;

@@ -5,7 +5,7 @@
 
 use assert_cmd::Command;
 use hazardline::config::load_pipeline;
-use hazardline::pipeline::{run, RunOptions, TABLES};
+use hazardline::run::{run, RunOptions, TABLES};
 use super::support::{files, repo};
 use std::path::{Path, PathBuf};
 
@@ -38,7 +38,7 @@ fn demo_pipeline_end_to_end_and_deterministic() {
     let leftovers: Vec<_> = std::fs::read_dir(ra.parent().unwrap()).unwrap().map(|e| e.unwrap().file_name()).filter(|n| n.to_string_lossy().contains("partial")).collect();
     assert!(leftovers.is_empty(), "{leftovers:?}");
 
-    let m = hazardline::report::manifest::read(&ra.join("manifest.json")).unwrap();
+    let m = hazardline::tables::manifest::read(&ra.join("manifest.json")).unwrap();
     for c in &m.counts {
         assert_eq!(c.rows_in, c.used + c.rejected, "{} {}", c.stage, c.table);
     }

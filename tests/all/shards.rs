@@ -59,7 +59,7 @@ fn three_shards_merge_into_the_single_runs_bytes() {
     let parts = dir.path().join("three/demo/r.shards");
     let mut seen = Vec::new();
     for i in 1..=3 {
-        let m = hazardline::partition::read_meta(&parts.join(format!("part-{i:04}-of-0003"))).unwrap();
+        let m = hazardline::run::partition::read_meta(&parts.join(format!("part-{i:04}-of-0003"))).unwrap();
         assert!(!m.curve_entities.is_empty(), "shard {i} is empty");
         seen.extend(m.curve_entities);
     }
@@ -137,16 +137,16 @@ fn date_ranges_merge_into_the_single_runs_bytes() {
     // Every other entity has no quote on the cohort date 2015-10-01: its member of that cohort
     // uses its curve of the day before, which lies before the part that starts on that date.
     let quotes = dir.path().join("data/cds_quotes/quotes_2015.parquet");
-    let mut df = hazardline::report::readback::read_frame(&quotes).unwrap();
-    let dates = hazardline::report::readback::dates(&df, &quotes, "date").unwrap();
-    let names = hazardline::report::readback::strs(&df, &quotes, "entity").unwrap();
+    let mut df = hazardline::tables::readback::read_frame(&quotes).unwrap();
+    let dates = hazardline::tables::readback::dates(&df, &quotes, "date").unwrap();
+    let names = hazardline::tables::readback::strs(&df, &quotes, "entity").unwrap();
     let cohort = chrono::NaiveDate::from_ymd_opt(2015, 10, 1).unwrap();
     let keep: Vec<bool> = dates.iter().zip(&names).map(|(d, e)| !(*d == Some(cohort) && e.as_ref().is_some_and(|e| e.len() % 2 == 0))).collect();
     let dropped = keep.iter().filter(|k| !**k).count();
     let keep: polars::prelude::BooleanChunked = keep.into_iter().map(Some).collect();
     assert!(dropped > 20, "{dropped} quotes dropped");
     df = df.filter(&keep).unwrap();
-    hazardline::report::parquet::write_parquet(&mut df, &quotes, &[]).unwrap();
+    hazardline::tables::parquet::write_parquet(&mut df, &quotes, &[]).unwrap();
 
     let one = single(&pipeline, &dir.path().join("single"));
     let out = dir.path().join("parts");
@@ -154,7 +154,7 @@ fn date_ranges_merge_into_the_single_runs_bytes() {
         part(&pipeline, &out, shard, dates);
     }
     let parts = out.join("demo/r.shards");
-    let m = hazardline::partition::read_meta(&parts.join("part-0001-of-0002-from-2015-07-01-to-2015-09-30")).unwrap();
+    let m = hazardline::run::partition::read_meta(&parts.join("part-0001-of-0002-from-2015-07-01-to-2015-09-30")).unwrap();
     assert_eq!((m.dates_from.as_deref(), m.dates_to.as_deref()), (Some("2015-07-01"), Some("2015-09-30")));
     assert!(m.curves > 0);
     hazardline(&["merge", &pipeline, "--out", out.to_str().unwrap(), "--label", "r"]).success();
@@ -209,7 +209,7 @@ fn large_tables_by_year_are_folders_that_merge_exactly() {
     let manifest = String::from_utf8(by_year["manifest.json"].clone()).unwrap();
     assert!(manifest.contains("\"tables/hazard_curves/2-bond-2016.parquet\"") && !manifest.contains("\"tables/hazard_curves.parquet\""), "{manifest}");
     // The same rows in the same order as the one-file table.
-    use hazardline::report::readback;
+    use hazardline::tables::readback;
     let (a, b) = (dir.path().join("one-file/demo/r/tables"), dir.path().join("by-year/demo/r/tables"));
     assert_eq!(readback::hazard_curves(&a.join("hazard_curves.parquet")).unwrap(), readback::hazard_curves(&readback::table_path(&b, "hazard_curves")).unwrap());
     assert_eq!(readback::residuals(&a.join("calibration_residuals.parquet")).unwrap(), readback::residuals(&readback::table_path(&b, "calibration_residuals")).unwrap());

@@ -1,0 +1,10 @@
+//! Calibration of hazard curves to market quotes, and the residuals of the repricing.
+
+pub mod bond_fit;
+pub mod bootstrap;
+pub mod cir;
+pub mod residuals;
+
+pub use bootstrap::{
+    bootstrap, BootstrapError, BootstrapQuote, BootstrapSettings, CurveFit, InfeasiblePolicy, NodeFit, NodeStatus,
+};

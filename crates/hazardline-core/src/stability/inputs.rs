@@ -1,0 +1,335 @@
+//! The stage's inputs (plain structs the pipeline fills from its tables) and their first
+//! preparation: one date-ordered history per (series, entity), and the daily moves along it.
+
+use super::period::Period;
+use super::settings::StabilitySettings;
+use chrono::NaiveDate;
+use std::collections::BTreeMap;
+use std::sync::Arc;
+
+/// One value of one parameter series for one entity on one date.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Observation {
+    /// Series name, e.g. `pd_1y`, `hazard_5y`, `hazard_node_3y`, `cir_kappa` (shared: the
+    /// observations of one series or entity hold one allocation between them).
+    pub series: Arc<str>,
+    /// Entity identifier.
+    pub entity: Arc<str>,
+    /// The entity's internal grade on that date (1 = best), when grades are known.
+    pub grade: Option<u32>,
+    /// Calibration date.
+    pub date: NaiveDate,
+    /// The parameter value, in the series' own unit (a decimal PD, a hazard per year, ...).
+    pub value: f64,
+}
+
+/// How much an entity's market quotes moved on one date, to compare parameter moves with.
+#[derive(Debug, Clone, PartialEq)]
+pub struct MarketMove {
+    /// Entity identifier.
+    pub entity: Arc<str>,
+    /// The later date of the move.
+    pub date: NaiveDate,
+    /// Mean over the entity's tenors of |par spread today - par spread on the previous quote
+    /// date|, in bp.
+    pub mean_abs_change_bp: f64,
+    /// Mean over the same tenors of the previous date's par spread, in bp (the base of the
+    /// relative move mean_abs_change_bp / mean_level_bp).
+    pub mean_level_bp: f64,
+}
+
+impl MarketMove {
+    /// The relative move, when both numbers are usable (finite, level > 0, change >= 0).
+    pub fn relative(&self) -> Option<f64> {
+        let ok = self.mean_abs_change_bp.is_finite() && self.mean_abs_change_bp >= 0.0 && self.mean_level_bp.is_finite() && self.mean_level_bp > 0.0;
+        ok.then(|| self.mean_abs_change_bp / self.mean_level_bp)
+    }
+}
+
+/// Calibration outcomes of one entity on one date (all methods together).
+#[derive(Debug, Clone, PartialEq)]
+pub struct CalibrationCounts {
+    /// Entity identifier.
+    pub entity: Arc<str>,
+    /// Calibration date.
+    pub date: NaiveDate,
+    /// Calibrations that failed (no curve or parameters produced).
+    pub failures: u64,
+    /// Calibrations that were infeasible (e.g. a bootstrap needing a negative hazard).
+    pub infeasible: u64,
+}
+
+/// What happened to the observations on entry.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct InputSummary {
+    /// Observations used.
+    pub used: usize,
+    /// Observations dropped because the value was not finite.
+    pub non_finite: usize,
+    /// Observations dropped as a repeat of (series, entity, date); the first in input order is kept.
+    pub duplicates: usize,
+    /// Market moves dropped as unusable (see [`MarketMove::relative`]).
+    pub market_unusable: usize,
+}
+
+/// One point of a history, in 16 bytes (a run holds tens of millions): the grade is kept as
+/// grade + 1 in a non-zero integer, so that "no grade" costs no extra word (grades up to
+/// `u32::MAX - 1`; the grades table allows far fewer).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(crate) struct Point {
+    pub date: NaiveDate,
+    pub value: f64,
+    grade: Option<std::num::NonZeroU32>,
+}
+
+impl Point {
+    pub fn new(date: NaiveDate, value: f64, grade: Option<u32>) -> Point {
+        Point { date, value, grade: grade.and_then(|g| g.checked_add(1)).and_then(std::num::NonZeroU32::new) }
+    }
+
+    pub fn grade(&self) -> Option<u32> {
+        self.grade.map(|g| g.get() - 1)
+    }
+}
+
+/// Date-ordered histories keyed by (series, entity).
+pub(crate) type Panel = BTreeMap<(String, String), Vec<Point>>;
+
+/// The panel built one observation at a time, so the observations need not be kept: each
+/// (series, entity) history collects its points in arrival order; [`PanelBuilder::finish`]
+/// then puts each in date order, keeping the first of a repeated date.
+#[derive(Debug, Clone, Default)]
+pub struct PanelBuilder {
+    index: std::collections::HashMap<(Arc<str>, Arc<str>), usize>,
+    /// The same index by the labels' addresses, for labels shared between observations (the
+    /// usual case): no hashing of the text. Every label whose address is a key is held in
+    /// `pinned`, so no address is freed and reused for other text while it is a key.
+    by_address: crate::hash::FastMap<(usize, usize), usize>,
+    pinned: Vec<(Arc<str>, Arc<str>)>,
+    histories: Vec<((Arc<str>, Arc<str>), Vec<Point>)>,
+    non_finite: usize,
+}
+
+impl PanelBuilder {
+    pub fn new() -> Self {
+        Self::default()
+    }
+
+    /// Adds one value of `series` for `entity`; a non-finite value is counted and left out.
+    pub fn push(&mut self, series: &Arc<str>, entity: &Arc<str>, grade: Option<u32>, date: NaiveDate, value: f64) {
+        if !value.is_finite() {
+            self.non_finite += 1;
+            return;
+        }
+        let point = Point::new(date, value, grade);
+        let address = (Arc::as_ptr(series) as *const u8 as usize, Arc::as_ptr(entity) as *const u8 as usize);
+        if let Some(&i) = self.by_address.get(&address) {
+            self.histories[i].1.push(point);
+            return;
+        }
+        let i = self.slot(series, entity);
+        self.histories[i].1.push(point);
+        self.by_address.insert(address, i);
+        self.pinned.push((series.clone(), entity.clone()));
+    }
+
+    /// The history of (series, entity), by text, made when new.
+    fn slot(&mut self, series: &Arc<str>, entity: &Arc<str>) -> usize {
+        match self.index.get(&(series.clone(), entity.clone())) {
+            Some(&i) => i,
+            None => {
+                self.index.insert((series.clone(), entity.clone()), self.histories.len());
+                self.histories.push(((series.clone(), entity.clone()), Vec::new()));
+                self.histories.len() - 1
+            }
+        }
+    }
+
+    pub fn push_observation(&mut self, o: &Observation) {
+        self.push(&o.series, &o.entity, o.grade, o.date, o.value);
+    }
+
+    /// Adds everything `later` collected after what this one has.
+    pub fn append(&mut self, later: PanelBuilder) {
+        self.non_finite += later.non_finite;
+        for ((series, entity), points) in later.histories {
+            let i = self.slot(&series, &entity);
+            self.histories[i].1.extend(points);
+        }
+    }
+
+    /// Observations held.
+    pub fn len(&self) -> usize {
+        self.histories.iter().map(|(_, v)| v.len()).sum()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// Every observation, history by history in arrival order of the histories.
+    pub fn observations(&self) -> impl Iterator<Item = Observation> + '_ {
+        self.histories.iter().flat_map(|((s, e), v)| v.iter().map(move |p| Observation { series: s.clone(), entity: e.clone(), grade: p.grade(), date: p.date, value: p.value }))
+    }
+
+    pub(crate) fn finish(self) -> (Panel, InputSummary) {
+        let mut summary = InputSummary { non_finite: self.non_finite, ..InputSummary::default() };
+        let mut panel: Panel = BTreeMap::new();
+        for ((s, e), mut points) in self.histories {
+            let before = points.len();
+            points.sort_by_key(|p| p.date);
+            points.dedup_by_key(|p| p.date);
+            summary.duplicates += before - points.len();
+            summary.used += points.len();
+            panel.insert((s.to_string(), e.to_string()), points);
+        }
+        (panel, summary)
+    }
+}
+
+/// Builds the panel: drops non-finite values and repeated dates (keeping the first in input order).
+pub(crate) fn build_panel(observations: &[Observation]) -> (Panel, InputSummary) {
+    let mut b = PanelBuilder::new();
+    for o in observations {
+        b.push_observation(o);
+    }
+    b.finish()
+}
+
+/// A move between two consecutive observations of one entity's series.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct DailyMove {
+    /// The later date; the move belongs to this date's period.
+    pub date: NaiveDate,
+    /// The earlier value.
+    pub previous: f64,
+    /// The later value.
+    pub value: f64,
+}
+
+impl DailyMove {
+    /// |value - previous|.
+    pub fn abs_change(&self) -> f64 {
+        (self.value - self.previous).abs()
+    }
+
+    /// |value - previous| / |previous|; `None` when the previous value is zero.
+    pub fn abs_relative(&self) -> Option<f64> {
+        (self.previous != 0.0).then(|| self.abs_change() / self.previous.abs())
+    }
+}
+
+/// Moves between consecutive observations at most `max_gap_days` calendar days apart; a longer
+/// gap breaks the chain (the step across it is not a daily move).
+pub(crate) fn daily_moves(points: &[Point], max_gap_days: i64) -> Vec<DailyMove> {
+    points
+        .windows(2)
+        .filter(|w| (w[1].date - w[0].date).num_days() <= max_gap_days)
+        .map(|w| DailyMove { date: w[1].date, previous: w[0].value, value: w[1].value })
+        .collect()
+}
+
+/// Mean relative market move per (entity, period), and the count of unusable rows.
+pub(crate) fn market_by_period(market: &[MarketMove], settings: &StabilitySettings) -> (BTreeMap<(String, Period), f64>, usize) {
+    let mut acc: BTreeMap<(&str, Period), (f64, usize)> = BTreeMap::new();
+    let mut unusable = 0;
+    for m in market {
+        match m.relative() {
+            Some(r) => {
+                let e = acc.entry((&*m.entity, settings.period.of(m.date))).or_default();
+                e.0 += r;
+                e.1 += 1;
+            }
+            None => unusable += 1,
+        }
+    }
+    (acc.into_iter().map(|((e, p), (s, n))| ((e.to_string(), p), s / n as f64)).collect(), unusable)
+}
+
+/// Summed calibration counts per (entity, period), with the number of dates reported.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub(crate) struct PeriodCounts {
+    pub dates: usize,
+    pub failures: u64,
+    pub infeasible: u64,
+}
+
+/// Sums the counts per (entity, period).
+pub(crate) fn counts_by_period(counts: &[CalibrationCounts], settings: &StabilitySettings) -> BTreeMap<(String, Period), PeriodCounts> {
+    let mut out: BTreeMap<(&str, Period), PeriodCounts> = BTreeMap::new();
+    for c in counts {
+        let e = out.entry((&*c.entity, settings.period.of(c.date))).or_default();
+        e.dates += 1;
+        e.failures = e.failures.saturating_add(c.failures);
+        e.infeasible = e.infeasible.saturating_add(c.infeasible);
+    }
+    out.into_iter().map(|((e, p), v)| ((e.to_string(), p), v)).collect()
+}
+
+/// A series entity's first or last curve in a part of a date range: its date and par spreads
+/// by tenor (months). The daily move from the last curve of one part to the first of the next
+/// is a move no part sees; the merge computes it from these ([`spread_move`]).
+#[derive(Debug, Clone, PartialEq)]
+pub struct SpreadEdge {
+    pub entity: Arc<str>,
+    pub date: NaiveDate,
+    /// The last curve of the part (else the first).
+    pub last: bool,
+    pub spreads: BTreeMap<u32, f64>,
+}
+
+/// The market move of `entity` on `date`, from the par spreads of its previous curve to
+/// those of this one: the mean absolute change over the tenors both quote, and the mean level
+/// of today's spreads; None when they share no tenor.
+pub fn spread_move(entity: &Arc<str>, date: NaiveDate, prev: &BTreeMap<u32, f64>, spreads: &BTreeMap<u32, f64>) -> Option<MarketMove> {
+    let changes: Vec<f64> = spreads.iter().filter_map(|(t, s)| prev.get(t).map(|p| (s - p).abs())).collect();
+    if changes.is_empty() {
+        return None;
+    }
+    let level = spreads.values().sum::<f64>() / spreads.len() as f64;
+    Some(MarketMove { entity: entity.clone(), date, mean_abs_change_bp: changes.iter().sum::<f64>() / changes.len() as f64, mean_level_bp: level })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn d(text: &str) -> NaiveDate {
+        NaiveDate::parse_from_str(text, "%Y-%m-%d").unwrap()
+    }
+
+    fn obs(date: &str, value: f64) -> Observation {
+        Observation { series: "pd_1y".into(), entity: "Alder".into(), grade: Some(3), date: d(date), value }
+    }
+
+    #[test]
+    fn panel_drops_bad_values_and_repeats() {
+        let o = [obs("2024-01-03", 0.02), obs("2024-01-02", 0.01), obs("2024-01-03", 0.05), obs("2024-01-04", f64::NAN)];
+        let (panel, s) = build_panel(&o);
+        let pts = &panel[&("pd_1y".to_string(), "Alder".to_string())];
+        assert_eq!(pts.iter().map(|p| p.value).collect::<Vec<_>>(), vec![0.01, 0.02]);
+        assert_eq!(s, InputSummary { used: 2, non_finite: 1, duplicates: 1, market_unusable: 0 });
+    }
+
+    #[test]
+    fn a_point_is_sixteen_bytes_and_keeps_its_grade() {
+        assert_eq!(std::mem::size_of::<Point>(), 16);
+        for g in [None, Some(0), Some(1), Some(6), Some(u32::MAX - 1)] {
+            assert_eq!(Point::new(d("2024-01-05"), 1.0, g).grade(), g);
+        }
+    }
+
+    #[test]
+    fn gaps_break_the_chain() {
+        // Fri 5 Jan -> Mon 8 Jan is 3 days (a move); 8 Jan -> 22 Jan is 14 days (no move).
+        let pts: Vec<Point> = [("2024-01-05", 1.0), ("2024-01-08", 1.2), ("2024-01-22", 2.0), ("2024-01-23", 1.0)]
+            .iter()
+            .map(|&(t, v)| Point::new(d(t), v, None))
+            .collect();
+        let m = daily_moves(&pts, 5);
+        assert_eq!(m.len(), 2);
+        assert_eq!(m[0].date, d("2024-01-08"));
+        assert!((m[0].abs_change() - 0.2).abs() < 1e-12);
+        assert_eq!(m[1].abs_relative(), Some(0.5));
+    }
+}

@@ -1,0 +1,499 @@
+//! The review sections of the report that read the backtest, risk-premium, stability and
+//! residual-analytics tables back from a run folder.
+
+use super::charts::{self, IntervalItem};
+use crate::tables::readback::{bools, dates, floats, ints, read_frame, strs};
+use crate::error::Result;
+use chrono::NaiveDate;
+use std::collections::{BTreeMap, BTreeSet};
+use std::fmt::Write as _;
+use std::path::Path;
+
+fn pct(x: f64) -> String {
+    format!("{:.2}%", 100.0 * x)
+}
+
+fn opt(x: Option<f64>, f: impl Fn(f64) -> String) -> String {
+    x.filter(|v| v.is_finite()).map(f).unwrap_or_else(|| "-".into())
+}
+
+fn sci(x: f64) -> String {
+    if x == 0.0 {
+        "0".into()
+    } else if x.abs() >= 1e-3 {
+        format!("{x:.4}")
+    } else {
+        format!("{x:.2e}")
+    }
+}
+
+fn save_chart(charts_dir: &Path, name: &str, svg: std::result::Result<String, String>) -> Result<bool> {
+    match svg {
+        Ok(text) => {
+            std::fs::create_dir_all(charts_dir).map_err(|e| crate::error::Error::Write { path: charts_dir.to_path_buf(), message: e.to_string() })?;
+            crate::tables::manifest::write_text(&charts_dir.join(name), &text)?;
+            Ok(true)
+        }
+        Err(e) => {
+            tracing::warn!(chart = name, error = %e, "chart not drawn");
+            Ok(false)
+        }
+    }
+}
+
+/// Grade number of a bucket label `grade N`, for ordering.
+fn bucket_order(b: &str) -> (u32, String) {
+    b.strip_prefix("grade ").and_then(|g| g.parse().ok()).map_or((u32::MAX, b.to_string()), |g| (g, String::new()))
+}
+
+struct Bucket {
+    cohort: String,
+    horizon: i64,
+    bucket: String,
+    recovery: f64,
+    n: i64,
+    defaults: i64,
+    censored: i64,
+    realised: Option<f64>,
+    implied: Option<f64>,
+    cp: (Option<f64>, Option<f64>),
+    jeffreys: (Option<f64>, Option<f64>),
+    p_upper: Option<f64>,
+    p_lower: Option<f64>,
+    p_jeffreys: Option<f64>,
+    zone: Option<String>,
+}
+
+fn read_buckets(path: &Path) -> Result<Vec<Bucket>> {
+    let df = read_frame(path)?;
+    let (c, h, b, r, n, d, nc) = (strs(&df, path, "cohort")?, ints(&df, path, "horizon")?, strs(&df, path, "bucket")?, floats(&df, path, "recovery")?, ints(&df, path, "n")?, ints(&df, path, "defaults")?, ints(&df, path, "n_censored")?);
+    let (rr, ip, cl, ch, jl, jh) = (floats(&df, path, "realised_rate")?, floats(&df, path, "implied_pd")?, floats(&df, path, "cp_lo")?, floats(&df, path, "cp_hi")?, floats(&df, path, "jeffreys_lo")?, floats(&df, path, "jeffreys_hi")?);
+    let (pu, pl, pj, z) = (floats(&df, path, "p_binom_upper")?, floats(&df, path, "p_binom_lower")?, floats(&df, path, "p_jeffreys")?, strs(&df, path, "zone")?);
+    Ok((0..df.height())
+        .map(|i| Bucket {
+            cohort: c[i].clone().unwrap_or_default(),
+            horizon: h[i].unwrap_or(0),
+            bucket: b[i].clone().unwrap_or_default(),
+            recovery: r[i].unwrap_or(f64::NAN),
+            n: n[i].unwrap_or(0),
+            defaults: d[i].unwrap_or(0),
+            censored: nc[i].unwrap_or(0),
+            realised: rr[i],
+            implied: ip[i],
+            cp: (cl[i], ch[i]),
+            jeffreys: (jl[i], jh[i]),
+            p_upper: pu[i],
+            p_lower: pl[i],
+            p_jeffreys: pj[i],
+            zone: z[i].clone(),
+        })
+        .collect())
+}
+
+struct Premium {
+    cohort: String,
+    bucket: String,
+    horizon: i64,
+    recovery: f64,
+    members: i64,
+    exposure: f64,
+    defaults: i64,
+    lambda_p: (Option<f64>, Option<f64>, Option<f64>),
+    lambda_q: Option<f64>,
+    ratio: (Option<f64>, Option<f64>, Option<f64>),
+    spread: Option<f64>,
+    el: Option<f64>,
+    premium: Option<f64>,
+}
+
+fn read_premia(path: &Path) -> Result<Vec<Premium>> {
+    let df = read_frame(path)?;
+    let (c, b, h, r, m, e, d) = (strs(&df, path, "cohort")?, strs(&df, path, "bucket")?, ints(&df, path, "horizon")?, floats(&df, path, "recovery")?, ints(&df, path, "members")?, floats(&df, path, "exposure_years")?, ints(&df, path, "defaults")?);
+    let (lp, lpl, lph, lq) = (floats(&df, path, "lambda_p")?, floats(&df, path, "lambda_p_lo")?, floats(&df, path, "lambda_p_hi")?, floats(&df, path, "lambda_q")?);
+    let (ra, ral, rah) = (floats(&df, path, "ratio")?, floats(&df, path, "ratio_lo")?, floats(&df, path, "ratio_hi")?);
+    let (sp, el, pr) = (floats(&df, path, "spread_bp")?, floats(&df, path, "el_spread_bp")?, floats(&df, path, "premium_spread_bp")?);
+    Ok((0..df.height())
+        .map(|i| Premium {
+            cohort: c[i].clone().unwrap_or_default(),
+            bucket: b[i].clone().unwrap_or_default(),
+            horizon: h[i].unwrap_or(0),
+            recovery: r[i].unwrap_or(f64::NAN),
+            members: m[i].unwrap_or(0),
+            exposure: e[i].unwrap_or(0.0),
+            defaults: d[i].unwrap_or(0),
+            lambda_p: (lp[i], lpl[i], lph[i]),
+            lambda_q: lq[i],
+            ratio: (ra[i], ral[i], rah[i]),
+            spread: sp[i],
+            el: el[i],
+            premium: pr[i],
+        })
+        .collect())
+}
+
+/// The backtest and risk-premium section. `base_recovery` is the run's recovery.
+pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure: &mut usize, number: usize, base_recovery: f64, enabled: bool) -> Result<()> {
+    let _ = writeln!(w, "## {number}. Backtest and risk premia\n");
+    let bpath = tables.join("backtest_buckets.parquet");
+    if !enabled || !bpath.exists() {
+        let _ = writeln!(w, "The backtest did not run (no grades, defaults or cohort history were given, or `[backtest] enabled = false`).\n");
+        return Ok(());
+    }
+    let buckets = read_buckets(&bpath)?;
+    let premia = read_premia(&tables.join("risk_premia.parquet"))?;
+    let history_path = tables.join("backtest_history.parquet");
+    let history_df = read_frame(&history_path)?;
+    if buckets.is_empty() && history_df.height() == 0 {
+        let _ = writeln!(w, "Nothing to backtest: either no realised outcomes were given (the backtest needs a `defaults` table or a `cohort_history`), or no cohort had members (no curve within the look-back window of a cohort date).\n");
+        return Ok(());
+    }
+    if buckets.is_empty() {
+        let _ = writeln!(w, "No `defaults` table was given, so entity-level outcomes are unknown: realised rates come from the institution's `cohort_history` only, compared with the mean 1Y implied PD of the same grades.\n");
+    }
+    let same = |r: f64| (r - base_recovery).abs() < 1e-9;
+    let base: Vec<&Bucket> = buckets.iter().filter(|b| same(b.recovery)).collect();
+    let horizons: BTreeSet<i64> = base.iter().map(|b| b.horizon).collect();
+    let cohorts: BTreeSet<&str> = base.iter().map(|b| b.cohort.as_str()).filter(|c| *c != "all").collect();
+    let _ = writeln!(
+        w,
+        "Cohorts are formed on {} cohort dates ({}); a member is an entity not in default with a calibrated curve within the look-back window, its implied PD is 1 - S(h) from that curve, and its outcome is a default in (t, t + h]. Realised outcomes come from the `defaults` table{}. Recovery {} is the base; the implied PDs under the sensitivity recoveries are at the end of the section.\n",
+        cohorts.len(),
+        cohorts.iter().copied().collect::<Vec<_>>().join(", "),
+        if history_df.height() > 0 { " and, for the longer history, from the institution's `cohort_history`" } else { "" },
+        pct(base_recovery)
+    );
+    for &h in &horizons {
+        let mut rows: Vec<&&Bucket> = base.iter().filter(|b| b.horizon == h && b.cohort == "all").collect();
+        rows.sort_by_key(|b| bucket_order(&b.bucket));
+        let level = 0.95;
+        let _ = writeln!(w, "### Implied against realised, {h}Y horizon, all cohorts pooled\n");
+        let _ = writeln!(w, "| bucket | n | censored | defaults | realised | mean implied PD | Clopper-Pearson | Jeffreys | P[D >= d] | P[D <= d] | Jeffreys p | zone |\n| --- | ---: | ---: | ---: | ---: | ---: | --- | --- | ---: | ---: | ---: | --- |");
+        for b in &rows {
+            let _ = writeln!(
+                w,
+                "| {} | {} | {} | {} | {} | {} | [{}, {}] | [{}, {}] | {} | {} | {} | {} |",
+                b.bucket,
+                b.n,
+                b.censored,
+                b.defaults,
+                opt(b.realised, pct),
+                opt(b.implied, pct),
+                opt(b.cp.0, pct),
+                opt(b.cp.1, pct),
+                opt(b.jeffreys.0, pct),
+                opt(b.jeffreys.1, pct),
+                opt(b.p_upper, sci),
+                opt(b.p_lower, sci),
+                opt(b.p_jeffreys, sci),
+                b.zone.as_deref().unwrap_or("-")
+            );
+        }
+        let above = rows.iter().filter(|b| matches!((b.implied, b.realised), (Some(i), Some(r)) if i > r)).count();
+        let _ = writeln!(w, "\nThe mean implied PD is above the realised rate in {above} of {} buckets (intervals at {level} two-sided; zones from the upper-tail binomial p-value).\n", rows.len());
+        let items: Vec<IntervalItem> = rows
+            .iter()
+            .map(|b| IntervalItem { label: b.bucket.trim_start_matches("grade ").to_string(), estimate: b.realised, lo: b.cp.0, hi: b.cp.1, reference: b.implied })
+            .collect();
+        let name = format!("backtest-{h}y.svg");
+        if save_chart(charts_dir, &name, charts::interval_chart(&format!("Realised {h}Y default rate (CP interval) vs mean implied PD, by grade"), "default rate", true, &items, None, ["realised", "implied PD"]))? {
+            *figure += 1;
+            let _ = writeln!(w, "![Backtest {h}Y](charts/{name})\n");
+            let _ = writeln!(w, "*Figure {figure}. Realised {h}-year default rate per bucket with its Clopper-Pearson interval (points and bars) against the mean implied PD (red bars), log scale; a zero rate is an open circle at the axis floor.*\n");
+        }
+    }
+    // Hosmer-Lemeshow.
+    let hl_path = tables.join("backtest_hosmer_lemeshow.parquet");
+    let df = read_frame(&hl_path)?;
+    let (c, h, r, k, s, p, note) = (strs(&df, &hl_path, "cohort")?, ints(&df, &hl_path, "horizon")?, floats(&df, &hl_path, "recovery")?, ints(&df, &hl_path, "buckets")?, floats(&df, &hl_path, "statistic")?, floats(&df, &hl_path, "p_value")?, strs(&df, &hl_path, "note")?);
+    let _ = writeln!(w, "Hosmer-Lemeshow across buckets (forecasts given, not fitted: k degrees of freedom for k buckets):\n\n| cohort | horizon | buckets | statistic | p-value | note |\n| --- | ---: | ---: | ---: | ---: | --- |");
+    for i in 0..df.height() {
+        if r[i].is_some_and(same) {
+            let _ = writeln!(w, "| {} | {}Y | {} | {} | {} | {} |", c[i].as_deref().unwrap_or(""), h[i].unwrap_or(0), k[i].unwrap_or(0), opt(s[i], |v| format!("{v:.3}")), opt(p[i], sci), note[i].as_deref().unwrap_or(""));
+        }
+    }
+    let _ = writeln!(w);
+
+    // Cohort history.
+    if history_df.height() > 0 {
+        let hp = &history_path;
+        let (c, g, o, d, rr, cl, ch, ip, pu, z) = (
+            strs(&history_df, hp, "cohort")?,
+            ints(&history_df, hp, "grade")?,
+            ints(&history_df, hp, "obligors")?,
+            ints(&history_df, hp, "defaults")?,
+            floats(&history_df, hp, "realised_rate")?,
+            floats(&history_df, hp, "cp_lo")?,
+            floats(&history_df, hp, "cp_hi")?,
+            floats(&history_df, hp, "implied_pd")?,
+            floats(&history_df, hp, "p_binom_upper")?,
+            strs(&history_df, hp, "zone")?,
+        );
+        let _ = writeln!(w, "### Against the institution's cohort history\n\nRealised one-year rates from `cohort_history` (pooled over its years), against the mean 1Y implied PD of the same grade over the quoted period:\n\n| grade | obligor-years | defaults | realised | Clopper-Pearson | mean implied PD | P[D >= d] | zone |\n| ---: | ---: | ---: | ---: | --- | ---: | ---: | --- |");
+        for i in 0..history_df.height() {
+            if c[i].as_deref() == Some("all") {
+                let _ = writeln!(w, "| {} | {} | {} | {} | [{}, {}] | {} | {} | {} |", g[i].unwrap_or(0), o[i].unwrap_or(0), d[i].unwrap_or(0), opt(rr[i], pct), opt(cl[i], pct), opt(ch[i], pct), opt(ip[i], pct), opt(pu[i], sci), z[i].as_deref().unwrap_or("-"));
+            }
+        }
+        let _ = writeln!(w);
+    }
+
+    // Risk premia.
+    let _ = writeln!(w, "### Risk premium: pricing against historical intensity\n");
+    let _ = writeln!(w, "The historical intensity is defaults per exposure year (exposure from the cohort date to default, end of data or horizon end) with the exact Garwood (1936) Poisson interval; the pricing intensity is the calibrated hazard integrated over the same windows, per exposure year. The ratio's interval carries the Poisson uncertainty of the historical side only; with no default its upper end is unbounded (`-`). The expected-loss spread is lambda_P (1 - R); the rest of the quoted spread at the matching tenor is risk and liquidity premium.\n");
+    for &h in &horizons {
+        let mut rows: Vec<&Premium> = premia.iter().filter(|p| p.horizon == h && p.cohort == "all" && same(p.recovery)).collect();
+        rows.sort_by_key(|p| bucket_order(&p.bucket));
+        let _ = writeln!(w, "{h}Y horizon:\n\n| bucket | members | exposure years | defaults | lambda_P | interval | lambda_Q | Q/P | interval | quoted spread bp | expected-loss bp | premium bp |\n| --- | ---: | ---: | ---: | ---: | --- | ---: | ---: | --- | ---: | ---: | ---: |");
+        for p in &rows {
+            let _ = writeln!(
+                w,
+                "| {} | {} | {:.1} | {} | {} | [{}, {}] | {} | {} | [{}, {}] | {} | {} | {} |",
+                p.bucket,
+                p.members,
+                p.exposure,
+                p.defaults,
+                opt(p.lambda_p.0, pct),
+                opt(p.lambda_p.1, pct),
+                opt(p.lambda_p.2, pct),
+                opt(p.lambda_q, pct),
+                opt(p.ratio.0, |v| format!("{v:.2}")),
+                opt(p.ratio.1, |v| format!("{v:.2}")),
+                opt(p.ratio.2, |v| format!("{v:.2}")),
+                opt(p.spread, |v| format!("{v:.1}")),
+                opt(p.el, |v| format!("{v:.1}")),
+                opt(p.premium, |v| format!("{v:.1}"))
+            );
+        }
+        let _ = writeln!(w);
+        let items: Vec<IntervalItem> = rows.iter().map(|p| IntervalItem { label: p.bucket.trim_start_matches("grade ").to_string(), estimate: p.ratio.0, lo: p.ratio.1, hi: p.ratio.2, reference: None }).collect();
+        let name = format!("risk-premium-{h}y.svg");
+        if save_chart(charts_dir, &name, charts::interval_chart(&format!("Pricing / historical intensity by grade, {h}Y windows"), "Q/P ratio", true, &items, Some(1.0), ["Q/P", ""]))? {
+            *figure += 1;
+            let _ = writeln!(w, "![Risk premium {h}Y](charts/{name})\n");
+            let _ = writeln!(w, "*Figure {figure}. Ratio of pricing to historical intensity per bucket with its interval (log scale, line at 1); buckets without a default have no point estimate and an open upper end.*\n");
+        }
+        // Through time.
+        let mut through: BTreeMap<String, Vec<(f64, f64)>> = BTreeMap::new();
+        for p in premia.iter().filter(|p| p.horizon == h && p.cohort != "all" && same(p.recovery)) {
+            if let (Some(r), Ok(y)) = (p.ratio.0, p.cohort.parse::<i32>()) {
+                through.entry(p.bucket.clone()).or_default().push((y as f64, r));
+            }
+        }
+        if !through.is_empty() {
+            let mut series: Vec<(String, Vec<(f64, f64)>)> = through.into_iter().collect();
+            series.sort_by_key(|s| bucket_order(&s.0));
+            let name = format!("risk-premium-through-time-{h}y.svg");
+            if save_chart(charts_dir, &name, charts::multi_line_chart(&format!("Q/P ratio per cohort year, {h}Y"), "Q/P ratio", &series, &[(1.0, "1")]))? {
+                *figure += 1;
+                let _ = writeln!(w, "![Risk premium through time](charts/{name})\n");
+                let _ = writeln!(w, "*Figure {figure}. Q/P ratio per bucket and cohort year (cohorts without a default have no ratio and are left out).*\n");
+            }
+        }
+    }
+    // Recovery sensitivity.
+    let recoveries: BTreeSet<u64> = premia.iter().map(|p| (p.recovery * 1e6).round() as u64).collect();
+    if recoveries.len() > 1 {
+        let recs: Vec<f64> = recoveries.iter().map(|r| *r as f64 / 1e6).collect();
+        let h = horizons.iter().next().copied().unwrap_or(1);
+        let _ = writeln!(w, "### Recovery sensitivity ({h}Y)\n\nThe curves the cohorts use are re-bootstrapped with each recovery; the implied PD scales roughly with 1 / (1 - R), so part of any premium is an artefact of the recovery assumption.\n");
+        let mut head = String::from("| bucket |");
+        let mut sep = String::from("| --- |");
+        for r in &recs {
+            let _ = write!(head, " implied PD, R = {} | Q/P, R = {} |", pct(*r), pct(*r));
+            sep.push_str(" ---: | ---: |");
+        }
+        let _ = writeln!(w, "{head}\n{sep}");
+        let mut names: Vec<&str> = premia.iter().filter(|p| p.cohort == "all" && p.horizon == h).map(|p| p.bucket.as_str()).collect::<BTreeSet<_>>().into_iter().collect();
+        names.sort_by_key(|b| bucket_order(b));
+        for b in names {
+            let mut line = format!("| {b} |");
+            for r in &recs {
+                let pd = buckets.iter().find(|x| x.cohort == "all" && x.horizon == h && x.bucket == b && (x.recovery - r).abs() < 1e-9).and_then(|x| x.implied);
+                let ratio = premia.iter().find(|x| x.cohort == "all" && x.horizon == h && x.bucket == b && (x.recovery - r).abs() < 1e-9).and_then(|x| x.ratio.0);
+                let _ = write!(line, " {} | {} |", opt(pd, pct), opt(ratio, |v| format!("{v:.2}")));
+            }
+            let _ = writeln!(w, "{line}");
+        }
+        let _ = writeln!(w);
+    }
+    Ok(())
+}
+
+/// The parameter-stability section.
+pub fn stability_section(w: &mut String, tables: &Path, charts_dir: &Path, figure: &mut usize, number: usize) -> Result<()> {
+    let _ = writeln!(w, "## {number}. Parameter stability\n");
+    let path = tables.join("stability.parquet");
+    let df = read_frame(&path)?;
+    if df.height() == 0 {
+        let _ = writeln!(w, "No parameter series were available.\n");
+        return Ok(());
+    }
+    let (period, series, scope, key, n, mean, median, mc) = (
+        strs(&df, &path, "period")?,
+        strs(&df, &path, "series")?,
+        strs(&df, &path, "scope")?,
+        strs(&df, &path, "key")?,
+        ints(&df, &path, "n")?,
+        floats(&df, &path, "mean")?,
+        floats(&df, &path, "median")?,
+        floats(&df, &path, "mean_change")?,
+    );
+    let periods: BTreeSet<String> = period.iter().flatten().cloned().collect();
+    let _ = writeln!(w, "Each series is summarised per review period ({} periods, {} to {}) per entity, per grade and over the universe (`tables/stability.parquet`); every breach of a threshold below is a flag in section 6 pointing to its entity, series and period.\n", periods.len(), periods.iter().next().cloned().unwrap_or_default(), periods.iter().last().cloned().unwrap_or_default());
+    // Universe table for the implied PD and the 5Y hazard (the CIR parameters are in section 3).
+    let _ = writeln!(w, "| period | series | names | mean | median | change of mean |\n| --- | --- | ---: | ---: | ---: | ---: |");
+    for i in 0..df.height() {
+        let s = series[i].as_deref().unwrap_or("");
+        if scope[i].as_deref() == Some("universe") && (s == "pd_1y" || s == "hazard_5y") {
+            let _ = writeln!(w, "| {} | {s} | {} | {} | {} | {} |", period[i].as_deref().unwrap_or(""), n[i].unwrap_or(0), opt(mean[i], sci), opt(median[i], sci), opt(mc[i], pct));
+        }
+    }
+    let _ = writeln!(w);
+    // Heat map of the change of the mean implied PD by grade.
+    let mut grid: BTreeMap<u32, BTreeMap<String, f64>> = BTreeMap::new();
+    for i in 0..df.height() {
+        if scope[i].as_deref() == Some("grade") && series[i].as_deref() == Some("pd_1y") {
+            if let (Some(g), Some(p), Some(c)) = (key[i].as_deref().and_then(|k| k.parse::<u32>().ok()), &period[i], mc[i]) {
+                grid.entry(g).or_default().insert(p.clone(), c);
+            }
+        }
+    }
+    if !grid.is_empty() {
+        let cols: Vec<String> = periods.iter().cloned().collect();
+        let rows: Vec<String> = grid.keys().map(|g| format!("grade {g}")).collect();
+        let values: Vec<Vec<Option<f64>>> = grid.values().map(|m| cols.iter().map(|c| m.get(c).copied()).collect()).collect();
+        if save_chart(charts_dir, "stability-heat-map.svg", charts::heat_map("Change of the mean 1Y implied PD on the previous period, by grade", &rows, &cols, &values))? {
+            *figure += 1;
+            let _ = writeln!(w, "![Period-on-period change by grade](charts/stability-heat-map.svg)\n");
+            let _ = writeln!(w, "*Figure {figure}. Relative change of the grade's mean 1Y implied PD on the previous period (red up, blue down, grey without a previous period).*\n");
+        }
+    }
+    // PSI.
+    let ppath = tables.join("stability_psi.parquet");
+    let pdf = read_frame(&ppath)?;
+    let (ps, pp, prev, np, nc, psi) = (strs(&pdf, &ppath, "series")?, strs(&pdf, &ppath, "period")?, strs(&pdf, &ppath, "previous_period")?, ints(&pdf, &ppath, "n_previous")?, ints(&pdf, &ppath, "n_current")?, floats(&pdf, &ppath, "psi")?);
+    if pdf.height() > 0 {
+        let _ = writeln!(w, "Population stability index of the cross-sectional implied-PD distribution against the previous period:\n\n| series | period | previous | names before | names now | PSI | reading |\n| --- | --- | --- | ---: | ---: | ---: | --- |");
+        let mut points = Vec::new();
+        for i in 0..pdf.height() {
+            let reading = match psi[i] {
+                Some(v) if v > 0.25 => "shift (red)",
+                Some(v) if v > 0.10 => "moderate (amber)",
+                Some(_) => "stable",
+                None => "too few names",
+            };
+            let _ = writeln!(w, "| {} | {} | {} | {} | {} | {} | {reading} |", ps[i].as_deref().unwrap_or(""), pp[i].as_deref().unwrap_or(""), prev[i].as_deref().unwrap_or(""), np[i].unwrap_or(0), nc[i].unwrap_or(0), opt(psi[i], |v| format!("{v:.4}")));
+            if let (Some(v), Some(p)) = (psi[i], pp[i].as_deref()) {
+                if let Some(x) = period_midpoint(p) {
+                    points.push((x, v));
+                }
+            }
+        }
+        let _ = writeln!(w);
+        if !points.is_empty() && save_chart(charts_dir, "psi.svg", charts::multi_line_chart("PSI of the 1Y implied PD, period on period", "PSI", &[("PSI".to_string(), points)], &[(0.10, "0.10"), (0.25, "0.25")]))? {
+            *figure += 1;
+            let _ = writeln!(w, "![PSI through time](charts/psi.svg)\n");
+            let _ = writeln!(w, "*Figure {figure}. PSI per review period against the previous one, with the 0.10 and 0.25 thresholds.*\n");
+        }
+    }
+    // Breaks.
+    let kpath = tables.join("stability_breaks.parquet");
+    let kdf = read_frame(&kpath)?;
+    let (ke, ks, kw, kst, kc) = (strs(&kdf, &kpath, "entity")?, strs(&kdf, &kpath, "series")?, strs(&kdf, &kpath, "window")?, strs(&kdf, &kpath, "status")?, dates(&kdf, &kpath, "crossed_at")?);
+    let tested = kst.iter().filter(|s| s.as_deref() == Some("tested")).count();
+    let crossed: Vec<usize> = (0..kdf.height()).filter(|&i| kc[i].is_some()).collect();
+    let _ = writeln!(w, "Structural breaks: {tested} CUSUM tests (Brown, Durbin and Evans, 1975) on entity-period windows; {} crossed the boundary{}.\n", crossed.len(), if crossed.is_empty() { "" } else { " (first crossings below, all in `tables/stability_breaks.parquet`)" });
+    if !crossed.is_empty() {
+        let _ = writeln!(w, "| entity | series | window | first crossing |\n| --- | --- | --- | --- |");
+        for &i in crossed.iter().take(15) {
+            let _ = writeln!(w, "| {} | {} | {} | {} |", ke[i].as_deref().unwrap_or(""), ks[i].as_deref().unwrap_or(""), kw[i].as_deref().unwrap_or(""), kc[i].map(|d| d.to_string()).unwrap_or_default());
+        }
+        let _ = writeln!(w);
+    }
+    Ok(())
+}
+
+/// Decimal year of a period label's middle (`2024Q1`, `2024-03`, `2024H1`, `2024`).
+fn period_midpoint(p: &str) -> Option<f64> {
+    let year: f64 = p.get(..4)?.parse().ok()?;
+    let rest = &p[4..];
+    Some(if let Some(q) = rest.strip_prefix('Q') {
+        year + (q.parse::<f64>().ok()? - 0.5) / 4.0
+    } else if let Some(h) = rest.strip_prefix('H') {
+        year + (h.parse::<f64>().ok()? - 0.5) / 2.0
+    } else if let Some(m) = rest.strip_prefix('-') {
+        year + (m.parse::<f64>().ok()? - 0.5) / 12.0
+    } else {
+        year + 0.5
+    })
+}
+
+/// Residual analytics: repricing share, per-tenor distribution, worst residuals.
+pub fn residual_section(w: &mut String, tables: &Path, charts_dir: &Path, figure: &mut usize) -> Result<()> {
+    let rpath = tables.join("residual_repricing.parquet");
+    let rdf = read_frame(&rpath)?;
+    let _ = writeln!(w, "### Residual analytics\n");
+    let (m, c, r, s, tol) = (strs(&rdf, &rpath, "method")?, ints(&rdf, &rpath, "curves")?, ints(&rdf, &rpath, "repricing")?, floats(&rdf, &rpath, "share")?, floats(&rdf, &rpath, "tolerance_bp")?);
+    let _ = writeln!(w, "| method | curves | within tolerance | share | tolerance bp |\n| --- | ---: | ---: | ---: | ---: |");
+    for i in 0..rdf.height() {
+        let _ = writeln!(w, "| {} | {} | {} | {} | {} |", m[i].as_deref().unwrap_or(""), c[i].unwrap_or(0), r[i].unwrap_or(0), opt(s[i], pct), opt(tol[i], |v| format!("{v:e}")));
+    }
+    let tpath = tables.join("residual_tenors.parquet");
+    let tdf = read_frame(&tpath)?;
+    let (tm, tt, tn, a01, a05, a50, a95, a99) = (
+        strs(&tdf, &tpath, "method")?,
+        strs(&tdf, &tpath, "tenor")?,
+        ints(&tdf, &tpath, "n")?,
+        floats(&tdf, &tpath, "abs_q01")?,
+        floats(&tdf, &tpath, "abs_q05")?,
+        floats(&tdf, &tpath, "abs_q50")?,
+        floats(&tdf, &tpath, "abs_q95")?,
+        floats(&tdf, &tpath, "abs_q99")?,
+    );
+    let _ = writeln!(w, "\nDistribution of |residual| (bp) per method and tenor (`tables/residual_tenors.parquet` also has the signed quantiles; `tables/residual_curves.parquet` the RMSE and largest residual per curve):\n\n| method | tenor | quotes | 5% | median | 95% | 99% |\n| --- | --- | ---: | ---: | ---: | ---: | ---: |");
+    let mut boot = Vec::new();
+    for i in 0..tdf.height() {
+        let _ = writeln!(w, "| {} | {} | {} | {} | {} | {} | {} |", tm[i].as_deref().unwrap_or(""), tt[i].as_deref().unwrap_or(""), tn[i].unwrap_or(0), opt(a05[i], |v| format!("{v:.2e}")), opt(a50[i], |v| format!("{v:.2e}")), opt(a95[i], |v| format!("{v:.2e}")), opt(a99[i], |v| format!("{v:.2e}")));
+        if tm[i].as_deref() == Some("bootstrap") {
+            let q = [a01[i], a05[i], a50[i], a95[i], a99[i]].map(|v| v.unwrap_or(0.0));
+            boot.push((tt[i].clone().unwrap_or_default(), q));
+        }
+    }
+    let _ = writeln!(w);
+    if !boot.is_empty() && save_chart(charts_dir, "residuals-by-tenor.svg", charts::quantile_bands_by_category("Bootstrap |residual| by tenor", "log10 |residual| (bp)", &boot))? {
+        *figure += 1;
+        let _ = writeln!(w, "![Residuals by tenor](charts/residuals-by-tenor.svg)\n");
+        let _ = writeln!(w, "*Figure {figure}. Quantiles of the bootstrap's absolute repricing residual per tenor: whiskers 1-99%, box 5-95%, line at the median (log10 of bp).*\n");
+    }
+    let wpath = tables.join("residual_worst.parquet");
+    let wdf = read_frame(&wpath)?;
+    let (wd, we, wm, wt, wk, wmod, wr, wc) = (
+        dates(&wdf, &wpath, "date")?,
+        strs(&wdf, &wpath, "entity")?,
+        strs(&wdf, &wpath, "method")?,
+        strs(&wdf, &wpath, "tenor_or_bond")?,
+        floats(&wdf, &wpath, "market")?,
+        floats(&wdf, &wpath, "model")?,
+        floats(&wdf, &wpath, "residual_bp")?,
+        bools(&wdf, &wpath, "converged")?,
+    );
+    if wdf.height() > 0 {
+        let _ = writeln!(w, "Largest residuals, with their quotes:\n\n| date | entity | method | tenor or bond | market | model | residual bp | converged |\n| --- | --- | --- | --- | ---: | ---: | ---: | --- |");
+        for i in 0..wdf.height().min(10) {
+            let _ = writeln!(
+                w,
+                "| {} | {} | {} | {} | {} | {} | {} | {} |",
+                wd[i].map(|d: NaiveDate| d.to_string()).unwrap_or_default(),
+                we[i].as_deref().unwrap_or(""),
+                wm[i].as_deref().unwrap_or(""),
+                wt[i].as_deref().unwrap_or(""),
+                opt(wk[i], |v| format!("{v:.6}")),
+                opt(wmod[i], |v| format!("{v:.6}")),
+                opt(wr[i], |v| format!("{v:.3e}")),
+                if wc[i] == Some(true) { "yes" } else { "no" }
+            );
+        }
+        let _ = writeln!(w);
+    }
+    Ok(())
+}

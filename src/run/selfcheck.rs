@@ -1,0 +1,265 @@
+//! `hazardline selfcheck`: generates a planted-truth universe, runs the whole pipeline on it,
+//! and compares what the pipeline recovered with what was planted: the data faults the
+//! quality stage caught, the good rows it rejected, and the pricing-over-historical ratio per
+//! grade against its planted value.
+
+use crate::stages::universe::{fault_rows, write_scenario};
+use crate::config::load_pipeline;
+use crate::error::Result;
+use crate::run::{run, RunOptions};
+use crate::tables::readback::{dates, floats, ints, read_frame, strs};
+use crate::sim::{generate, ScenarioSpec};
+use chrono::NaiveDate;
+use std::collections::{BTreeMap, BTreeSet};
+use std::fmt::Write as _;
+use std::path::Path;
+
+/// Universe sizes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Size {
+    /// 120 entities x 3 years, intensities x4: runs inside the test suite.
+    Small,
+    /// 600 entities x 6 years at the demo's intensities: by hand.
+    Large,
+}
+
+impl Size {
+    pub fn spec(self, seed: u64) -> ScenarioSpec {
+        match self {
+            Size::Small => ScenarioSpec { entities: 120, years: 3, intensity_scale: 4.0, bond_share: 0.0, ..ScenarioSpec::demo(seed) },
+            Size::Large => ScenarioSpec { entities: 600, years: 6, bond_share: 0.05, ..ScenarioSpec::demo(seed) },
+        }
+    }
+}
+
+/// Pass criteria (stated in the printed table).
+pub const MIN_FAULT_CATCH: f64 = 0.95;
+pub const MAX_GOOD_REJECTED: f64 = 0.01;
+/// A grade's ratio interval is judged only with at least this many defaults in its pooled
+/// 1Y bucket: with fewer the interval is too wide to say anything either way.
+pub const MIN_DEFAULTS: i64 = 5;
+
+/// One grade's planted and recovered ratio.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GradeRecovery {
+    pub grade: u32,
+    pub multiplier: f64,
+    pub planted_ratio: f64,
+    pub defaults: i64,
+    pub ratio: Option<f64>,
+    pub lo: Option<f64>,
+    pub hi: Option<f64>,
+    /// None when the grade has too few defaults to be judged.
+    pub covered: Option<bool>,
+}
+
+/// Fitted against planted CIR parameters of one entity: (median fitted, median planted).
+#[derive(Debug, Clone, PartialEq)]
+pub struct CirRecovery {
+    pub entity: String,
+    pub fits: usize,
+    pub kappa: (f64, f64),
+    pub theta: (f64, f64),
+    pub sigma: (f64, f64),
+    pub lambda0: (f64, f64),
+}
+
+/// Median of the finite values (NaN when there are none).
+fn median(mut v: Vec<f64>) -> f64 {
+    v.retain(|x| x.is_finite());
+    crate::stability::summary::quantile_sorted(&crate::stability::summary::sorted(&v), 0.5).unwrap_or(f64::NAN)
+}
+
+/// The CIR fits of the run against the planted pricing-measure parameters on the same dates.
+fn cir_recovery(s: &crate::sim::Scenario, tables: &Path) -> Result<Vec<CirRecovery>> {
+    use crate::sim::credit::pricing_params;
+    let p = tables.join("intensity_params.parquet");
+    let df = read_frame(&p)?;
+    let (d, e, k, th, sg, l0, st) = (dates(&df, &p, "date")?, strs(&df, &p, "entity")?, floats(&df, &p, "kappa")?, floats(&df, &p, "theta")?, floats(&df, &p, "sigma")?, floats(&df, &p, "lambda0")?, strs(&df, &p, "status")?);
+    let index: BTreeMap<&str, usize> = s.entities.iter().enumerate().map(|(i, x)| (x.entity.as_str(), i)).collect();
+    let month_end: BTreeMap<(usize, NaiveDate), f64> = s.intensities.iter().map(|r| ((r.entity, r.date), r.lambda_q)).collect();
+    let mut by: BTreeMap<String, (Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>)> = BTreeMap::new();
+    for i in 0..df.height() {
+        let (Some(name), Some(date)) = (e[i].as_deref(), d[i]) else { continue };
+        if st[i].as_deref() != Some("ok") {
+            continue;
+        }
+        let Some(&ei) = index.get(name) else { continue };
+        let grade = s.grades.iter().filter(|g| g.0 == ei && g.1 <= date).map(|g| g.2).last().unwrap_or(1);
+        let prof = s.profiles[(grade - 1) as usize];
+        let q = pricing_params(0.0, prof.theta_p, prof.multiplier);
+        let slot = by.entry(name.to_string()).or_default();
+        slot.0.push(k[i].unwrap_or(f64::NAN));
+        slot.1.push(q.kappa);
+        slot.2.push(th[i].unwrap_or(f64::NAN));
+        slot.3.push(q.theta);
+        slot.4.push(sg[i].unwrap_or(f64::NAN));
+        slot.5.push(q.sigma);
+        if let Some(&lq) = month_end.get(&(ei, date)) {
+            slot.6.push(l0[i].unwrap_or(f64::NAN));
+            slot.7.push(lq);
+        }
+    }
+    Ok(by
+        .into_iter()
+        .map(|(entity, v)| CirRecovery {
+            entity,
+            fits: v.0.len(),
+            kappa: (median(v.0), median(v.1)),
+            theta: (median(v.2), median(v.3)),
+            sigma: (median(v.4), median(v.5)),
+            lambda0: (median(v.6), median(v.7)),
+        })
+        .collect())
+}
+
+/// One kind of planted fault.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FaultRecovery {
+    pub kind: &'static str,
+    pub expected: &'static str,
+    pub planted: usize,
+    pub caught: usize,
+}
+
+/// The whole comparison.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SelfCheck {
+    pub faults: Vec<FaultRecovery>,
+    pub good_rows: u64,
+    pub good_rejected: u64,
+    pub grades: Vec<GradeRecovery>,
+    pub cir: Vec<CirRecovery>,
+    pub passed: bool,
+    pub table: String,
+}
+
+/// Generates the universe for `spec` under `dir`, runs the pipeline and compares.
+pub fn selfcheck(dir: &Path, spec: &ScenarioSpec) -> Result<SelfCheck> {
+    let s = generate(spec);
+    write_scenario(dir, &s)?;
+    let cfg = load_pipeline(&dir.join("pipeline.toml"))?;
+    let summary = run(&cfg, &RunOptions { out_root: Some(dir.join("reports")), label: Some("selfcheck".into()) })?;
+    let tables = summary.run_dir.join("tables");
+
+    // Rejects and flags.
+    let rp = tables.join("rejects.parquet");
+    let rj = read_frame(&rp)?;
+    let (rt, rs, rr, rreason) = (strs(&rj, &rp, "table")?, strs(&rj, &rp, "source")?, ints(&rj, &rp, "row")?, strs(&rj, &rp, "reason")?);
+    let mut rejected: BTreeMap<(String, u64), String> = BTreeMap::new();
+    for i in 0..rj.height() {
+        if rt[i].as_deref() == Some("cds_quotes") {
+            rejected.insert((rs[i].clone().unwrap_or_default(), rr[i].unwrap_or(0) as u64), rreason[i].clone().unwrap_or_default());
+        }
+    }
+    let fp = tables.join("flags.parquet");
+    let fl = read_frame(&fp)?;
+    let (frule, fent, fdate) = (strs(&fl, &fp, "rule")?, strs(&fl, &fp, "entity")?, dates(&fl, &fp, "date")?);
+    let mut flagged: BTreeSet<(String, String, NaiveDate)> = BTreeSet::new();
+    for i in 0..fl.height() {
+        if let (Some(r), Some(e), Some(d)) = (&frule[i], &fent[i], fdate[i]) {
+            flagged.insert((r.clone(), e.clone(), d));
+        }
+    }
+
+    let rows_of = fault_rows(&s);
+    let mut by_kind: BTreeMap<&'static str, FaultRecovery> = BTreeMap::new();
+    let mut fault_row_set: BTreeSet<(String, u64)> = BTreeSet::new();
+    for (i, f) in s.faults.iter().enumerate() {
+        let rows = rows_of.get(&i).cloned().unwrap_or_default();
+        let entity = &s.entities[f.entity].entity;
+        let caught = if let Some(reason) = f.expected.strip_prefix("reject:") {
+            !rows.is_empty() && rows.iter().all(|k| rejected.get(k).map(String::as_str) == Some(reason))
+        } else {
+            let rule = f.expected.trim_start_matches("flag:");
+            flagged.iter().any(|(r, e, d)| r == rule && e == entity && *d >= f.date && *d <= f.last_date)
+        };
+        fault_row_set.extend(rows);
+        let slot = by_kind.entry(f.kind).or_insert(FaultRecovery { kind: f.kind, expected: f.expected, planted: 0, caught: 0 });
+        slot.planted += 1;
+        slot.caught += caught as usize;
+    }
+    let total_rows = s.quotes.len() as u64;
+    let good_rows = total_rows - fault_row_set.len() as u64;
+    let good_rejected = rejected.keys().filter(|k| !fault_row_set.contains(*k)).count() as u64;
+
+    // Premium per grade.
+    let pp = tables.join("risk_premia.parquet");
+    let pr = read_frame(&pp)?;
+    let (pc, pb, ph, prec, pd, pra, plo, phi) = (
+        strs(&pr, &pp, "cohort")?,
+        strs(&pr, &pp, "bucket")?,
+        ints(&pr, &pp, "horizon")?,
+        floats(&pr, &pp, "recovery")?,
+        ints(&pr, &pp, "defaults")?,
+        floats(&pr, &pp, "ratio")?,
+        floats(&pr, &pp, "ratio_lo")?,
+        floats(&pr, &pp, "ratio_hi")?,
+    );
+    let mut grades = Vec::new();
+    for t in s.premium.iter().filter(|t| t.horizon_years == 1) {
+        let label = format!("grade {}", t.grade);
+        let i = (0..pr.height()).find(|&i| pc[i].as_deref() == Some("all") && pb[i].as_deref() == Some(label.as_str()) && ph[i] == Some(1) && prec[i].is_some_and(|r| (r - cfg.recovery).abs() < 1e-9));
+        let (defaults, ratio, lo, hi) = match i {
+            Some(i) => (pd[i].unwrap_or(0), pra[i], plo[i], phi[i]),
+            None => (0, None, None, None),
+        };
+        let covered = (defaults >= MIN_DEFAULTS).then(|| lo.is_some_and(|l| l <= t.ratio()) && hi.is_none_or(|h| t.ratio() <= h));
+        grades.push(GradeRecovery { grade: t.grade, multiplier: t.multiplier, planted_ratio: t.ratio(), defaults, ratio, lo, hi, covered });
+    }
+
+    let cir = cir_recovery(&s, &tables)?;
+
+    let faults: Vec<FaultRecovery> = by_kind.into_values().collect();
+    let planted: usize = faults.iter().map(|f| f.planted).sum();
+    let caught: usize = faults.iter().map(|f| f.caught).sum();
+    let catch = caught as f64 / planted.max(1) as f64;
+    let good_share = good_rejected as f64 / good_rows.max(1) as f64;
+    let judged: Vec<&GradeRecovery> = grades.iter().filter(|g| g.covered.is_some()).collect();
+    let premium_ok = judged.iter().all(|g| g.covered == Some(true));
+    let passed = catch >= MIN_FAULT_CATCH && good_share <= MAX_GOOD_REJECTED && premium_ok && !judged.is_empty();
+
+    let mut t = String::new();
+    let _ = writeln!(t, "planted-truth self-check: {} entities x {} years, seed {}, {} CDS quote rows, {} defaults", spec.entities, spec.years, spec.seed, s.quotes.len(), s.defaults.len());
+    let _ = writeln!(t, "\ndata faults                 expected                      planted   caught");
+    for f in &faults {
+        let _ = writeln!(t, "  {:<26}{:<30}{:>7}{:>9}", f.kind, f.expected, f.planted, f.caught);
+    }
+    let _ = writeln!(t, "  caught {caught} of {planted} ({:.1}%; criterion >= {:.0}%)", 100.0 * catch, 100.0 * MIN_FAULT_CATCH);
+    let _ = writeln!(t, "  good rows rejected: {good_rejected} of {good_rows} ({:.3}%; criterion <= {:.0}%)", 100.0 * good_share, 100.0 * MAX_GOOD_REJECTED);
+    let _ = writeln!(t, "\npricing / historical, 1Y, all cohorts (planted ratio = sum of pricing over sum of historical cumulative hazards of the cohort members)");
+    let _ = writeln!(t, "  grade  multiplier  planted ratio  defaults  estimated ratio  interval            covered");
+    let f = |x: Option<f64>| x.map_or("-".to_string(), |v| format!("{v:.2}"));
+    for g in &grades {
+        let _ = writeln!(
+            t,
+            "  {:>5}  {:>10.2}  {:>13.2}  {:>8}  {:>15}  [{:>6}, {:>6}]     {}",
+            g.grade,
+            g.multiplier,
+            g.planted_ratio,
+            g.defaults,
+            f(g.ratio),
+            f(g.lo),
+            f(g.hi),
+            match g.covered {
+                Some(true) => "yes",
+                Some(false) => "NO",
+                None => "(fewer than 5 defaults: not judged)",
+            }
+        );
+    }
+    if !cir.is_empty() {
+        let _ = writeln!(t, "\nCIR fit (fixed_kappa_sigma mode) against the planted pricing-measure parameters, medians over the fitted dates");
+        let _ = writeln!(t, "(reported, not judged: one curve identifies lambda0 and the curve's level, not kappa and sigma separately)");
+        let _ = writeln!(t, "  entity                       fits   kappa fit/planted   theta fit/planted   sigma fit/planted   lambda0 fit/planted (month ends)");
+        for c in &cir {
+            let _ = writeln!(
+                t,
+                "  {:<28}{:>5}   {:>7.3} / {:<7.3}   {:>7.4} / {:<7.4}   {:>7.4} / {:<7.4}   {:>7.4} / {:<7.4}",
+                c.entity, c.fits, c.kappa.0, c.kappa.1, c.theta.0, c.theta.1, c.sigma.0, c.sigma.1, c.lambda0.0, c.lambda0.1
+            );
+        }
+    }
+    let _ = writeln!(t, "\nresult: {}", if passed { "PASS" } else { "FAIL" });
+    Ok(SelfCheck { faults, good_rows, good_rejected, grades, cir, passed, table: t })
+}

@@ -1,0 +1,336 @@
+//! The backtest stage of a run: cohorts from the calibrated curves, grades and defaults,
+//! bucket tests, risk premia, recovery scenarios (curves re-bootstrapped at the cohort dates
+//! with a shifted recovery), and the cohort-history comparison; and its tables.
+
+use crate::backtest::{
+    self, compare_cohort_history, BacktestOutput, BacktestSettings, CohortHistoryRecord, CurveSet, EntityFacts, GradeSpell, HistoryRow, QuotedSpread,
+};
+use crate::calibrate::{bootstrap, BootstrapQuote};
+use crate::stages::calibrate::{Calibration, CalibrationParams};
+use crate::backtest::cohort_dates;
+use crate::config::BacktestStage;
+use crate::error::{Error, Result};
+use crate::ingest::Dataset;
+use crate::instruments::CdsQuote;
+use crate::tables::parquet::{write_parquet, TableBuilder};
+use chrono::NaiveDate;
+use rayon::prelude::*;
+use std::collections::{BTreeMap, BTreeSet};
+use std::path::Path;
+
+/// The stage's results.
+#[derive(Debug, Clone, Default)]
+pub struct BacktestResults {
+    /// Base recovery first, then the scenarios.
+    pub outputs: Vec<BacktestOutput>,
+    pub history: Vec<HistoryRow>,
+    pub cohort_dates: Vec<NaiveDate>,
+    /// Where realised outcomes came from: `entity_defaults`, `cohort_history` or both.
+    pub outcome_sources: Vec<&'static str>,
+    /// Entities with a defaults row but no curve (reported, not used).
+    pub defaults_without_curves: usize,
+}
+
+/// The par-spread quotes of a curve in bp by tenor (upfront quotes have no par spread).
+pub fn spreads_of(quotes: &[BootstrapQuote]) -> Vec<QuotedSpread> {
+    quotes
+        .iter()
+        .filter_map(|q| match q.quote {
+            CdsQuote::ParSpread(s) => Some(QuotedSpread { tenor_months: q.tenor.months(), spread_bp: s * 1e4 }),
+            CdsQuote::Upfront { .. } => None,
+        })
+        .collect()
+}
+
+/// Entity facts of the quoted entities: grade spells, first default, and where the data on
+/// the entity ends (`data_end`: its last usable CDS quote date).
+fn facts(ds: &Dataset, data_end: &BTreeMap<String, NaiveDate>) -> Vec<EntityFacts> {
+    let mut spells: BTreeMap<&str, Vec<GradeSpell>> = BTreeMap::new();
+    if let Some(g) = &ds.grades {
+        for (r, _) in &g.rows {
+            spells.entry(r.entity.as_str()).or_default().push(GradeSpell { from_date: r.from_date, grade: r.grade });
+        }
+    }
+    let defaults = first_defaults(ds);
+    data_end
+        .iter()
+        .map(|(e, end)| EntityFacts { entity: e.clone(), grades: spells.get(e.as_str()).cloned().unwrap_or_default(), default_date: defaults.get(e.as_str()).copied(), data_end: *end })
+        .collect()
+}
+
+/// Where the calibrated CDS curves lie: the first and last curve date, and each entity's
+/// last curve date. Gathered as the curves stream past, so the curves themselves need not be
+/// kept for it.
+#[derive(Debug, Clone, Default)]
+pub struct CurveCoverage {
+    pub dates: Option<(NaiveDate, NaiveDate)>,
+    /// Asked once per curve (millions): FNV hashing rather than an ordered map.
+    pub last_by_entity: crate::hash::FastMap<String, NaiveDate>,
+}
+
+impl CurveCoverage {
+    pub fn add(&mut self, date: NaiveDate, entity: &str) {
+        self.dates = Some(self.dates.map_or((date, date), |(a, b)| (a.min(date), b.max(date))));
+        match self.last_by_entity.get_mut(entity) {
+            Some(d) => *d = (*d).max(date),
+            None => {
+                self.last_by_entity.insert(entity.to_string(), date);
+            }
+        }
+    }
+}
+
+/// Whether a curve dated `date` can serve some cohort of a run whose quotes span `period`:
+/// it lies within the look-back on or before a cohort date. The cohort dates of the run (or of
+/// a shard, see [`backtest_members_stage`]) are a subset of those counted here, so the curves
+/// this keeps are all the members can ask for.
+pub fn may_serve_a_cohort(period: Option<(NaiveDate, NaiveDate)>, p: &CalibrationParams, stage: &BacktestStage) -> impl Fn(NaiveDate) -> bool {
+    let lookback = stage.core.lookback_days.max(0);
+    let mut dates = period.map(|(a, b)| cohort_dates(a, b + chrono::Duration::days(lookback), stage.frequency, &p.calendar)).unwrap_or_default();
+    dates.sort();
+    move |d| dates.get(dates.partition_point(|t| *t < d)).is_some_and(|t| (*t - d).num_days() <= lookback)
+}
+
+/// The first default date per entity of the defaults table.
+pub fn first_defaults(ds: &Dataset) -> BTreeMap<&str, NaiveDate> {
+    let mut defaults: BTreeMap<&str, NaiveDate> = BTreeMap::new();
+    if let Some(d) = &ds.defaults {
+        for (r, _) in &d.rows {
+            let slot = defaults.entry(r.entity.as_str()).or_insert(r.default_date);
+            if r.default_date < *slot {
+                *slot = r.default_date;
+            }
+        }
+    }
+    defaults
+}
+
+/// The base curve set: the fully calibrated CDS curves a cohort can use, those dated within
+/// `lookback` days on or before a cohort date (`dates` sorted). A member only ever looks up
+/// the latest curve in that window ([`CurveSet::latest_within`]), so no other is copied.
+fn base_curves(cal: &Calibration, recovery: f64, dates: &[NaiveDate], lookback: i64) -> CurveSet {
+    let usable = |d: NaiveDate| dates.get(dates.partition_point(|t| *t < d)).is_some_and(|t| (*t - d).num_days() <= lookback);
+    CurveSet::from_keyed(
+        recovery,
+        cal.cds_curves.iter().filter(|((d, _, _), _)| usable(*d)).filter_map(|((d, e, _), c)| c.curve.as_ref().map(|h| ((*d, e.clone()), h.clone(), spreads_of(&c.quotes)))),
+    )
+}
+
+/// A recovery scenario: the curves a cohort uses, re-bootstrapped with `recovery` on every
+/// quote (quotes carrying their own recovery included: the scenario shifts the assumption).
+fn scenario_curves(cal: &Calibration, base: &CurveSet, dates: &[NaiveDate], lookback: i64, recovery: f64, p: &CalibrationParams) -> CurveSet {
+    let mut wanted: BTreeSet<(NaiveDate, String)> = BTreeSet::new();
+    for e in base.curves.keys() {
+        for &t in dates {
+            if let Some(c) = base.latest_within(e, t, lookback) {
+                wanted.insert((c.date, e.clone()));
+            }
+        }
+    }
+    let by_key: BTreeMap<(NaiveDate, &str), (&String, &crate::stages::calibrate::CdsCurve)> =
+        cal.cds_curves.iter().map(|((d, e, c), v)| ((*d, e.as_str()), (c, v))).collect();
+    let wanted: Vec<(NaiveDate, String)> = wanted.into_iter().collect();
+    let items: Vec<_> = wanted
+        .par_iter()
+        .filter_map(|(d, e)| {
+            let (ccy, curve) = by_key.get(&(*d, e.as_str()))?;
+            let disc = cal.discount_curves.get(&(*d, (*ccy).clone()))?;
+            let quotes: Vec<BootstrapQuote> = curve.quotes.iter().map(|q| BootstrapQuote { recovery, ..*q }).collect();
+            let fit = bootstrap(*d, &quotes, disc, &p.calendar, &p.bootstrap).ok()?;
+            if fit.failed {
+                return None;
+            }
+            let h = fit.curve?;
+            (h.hazards().len() == quotes.len()).then(|| ((*d, e.clone()), h, spreads_of(&curve.quotes)))
+        })
+        .collect();
+    CurveSet::from_keyed(recovery, items)
+}
+
+/// The members of every cohort, per recovery (base first, then each scenario that differs
+/// from it), for the entities this calibration covers.
+///
+/// The cohort dates of a run follow from the first and last curve date of the whole universe,
+/// which one part (of an entity shard or a date range) does not know; members are built for
+/// every cohort date a kept curve can reach (within the part's date range), and
+/// [`backtest_from_members`] keeps those of the run's cohort dates. Every member depends on its
+/// entity alone, and on the curves within the look-back before its cohort date (a date range's
+/// part calibrates those as a margin), so the parts' members concatenate exactly. An entity's
+/// data end is its last usable quote date over the whole history (`scope.data_end`).
+///
+/// `cal.cds_curves` needs to hold only the curves [`may_serve_a_cohort`] keeps.
+pub fn backtest_members_stage(ds: &Dataset, cal: &Calibration, scope: &crate::parts::DateScope, p: &CalibrationParams, stage: &BacktestStage) -> Result<Vec<(f64, Vec<backtest::Observation>)>> {
+    // A member needs a curve of the kept set within the look-back on or before its cohort
+    // date, so the cohort dates worth building lie between the first kept curve and the last
+    // one plus the look-back; a part of a date range builds those in its range (the run's
+    // cohort dates are a whole-history fact: the merge keeps those, see
+    // `backtest_from_members`).
+    let lookback = chrono::Duration::days(stage.core.lookback_days.max(0));
+    let kept_first = cal.cds_curves.keys().map(|k| k.0).min();
+    let kept_last = cal.cds_curves.keys().map(|k| k.0).max();
+    let (Some(first), Some(reach)) = (scope.range.from.or(kept_first), scope.range.to.or(kept_last.map(|d| d + lookback))) else {
+        return Ok(Vec::new());
+    };
+    let dates = cohort_dates(first, reach, stage.frequency, &p.calendar);
+    if dates.is_empty() {
+        return Ok(Vec::new());
+    }
+    let core = BacktestSettings { cohort_dates: dates.clone(), ..stage.core.clone() };
+    let mk = |e: backtest::BacktestError| Error::Other(format!("backtest stage: {e}"));
+    core.check().map_err(mk)?;
+    let facts = facts(ds, &scope.data_end);
+    let mut sorted = dates.clone();
+    sorted.sort();
+    let base = base_curves(cal, p.recovery, &sorted, core.lookback_days);
+    let mut out = vec![(p.recovery, backtest::member_observations(&facts, &base, &core).map_err(mk)?)];
+    for &r in &stage.recovery_scenarios {
+        if (r - p.recovery).abs() < 1e-12 {
+            continue;
+        }
+        let set = scenario_curves(cal, &base, &dates, core.lookback_days, r, p);
+        out.push((r, backtest::member_observations(&facts, &set, &core).map_err(mk)?));
+    }
+    Ok(out)
+}
+
+/// What the backtest needs besides the members: the run's curve-date range, and the
+/// outcome tables of the inputs.
+pub struct BacktestContext<'a> {
+    /// First and last CDS curve date of the whole run.
+    pub curve_dates: Option<(NaiveDate, NaiveDate)>,
+    pub have_defaults: bool,
+    pub cohort_history: Option<&'a crate::ingest::tables::Rows<crate::ingest::tables::CohortHistoryRow>>,
+    /// Entities with a defaults row but no curve.
+    pub defaults_without_curves: usize,
+}
+
+/// The stage's results from the members of every partition (concatenated in any order: they
+/// are put in cohort, entity, horizon order here).
+pub fn backtest_from_members(mut members: Vec<(f64, Vec<backtest::Observation>)>, ctx: &BacktestContext, p: &CalibrationParams, stage: &BacktestStage) -> Result<BacktestResults> {
+    let Some((first, last)) = ctx.curve_dates else {
+        return Ok(BacktestResults::default());
+    };
+    let dates = cohort_dates(first, last, stage.frequency, &p.calendar);
+    let mut results = BacktestResults { cohort_dates: dates.clone(), defaults_without_curves: ctx.defaults_without_curves, ..Default::default() };
+    if dates.is_empty() {
+        return Ok(results);
+    }
+    let core = BacktestSettings { cohort_dates: dates.clone(), ..stage.core.clone() };
+    let mk = |e: backtest::BacktestError| Error::Other(format!("backtest stage: {e}"));
+    let horizon_rank = |h: u32| core.horizons_years.iter().position(|x| *x == h).unwrap_or(usize::MAX);
+    let wanted: BTreeSet<NaiveDate> = dates.iter().copied().collect();
+    let mut outputs = Vec::new();
+    for (recovery, obs) in members.iter_mut() {
+        obs.retain(|o| wanted.contains(&o.cohort));
+        obs.sort_by(|a, b| (a.cohort, &a.entity, horizon_rank(a.horizon_years)).cmp(&(b.cohort, &b.entity, horizon_rank(b.horizon_years))));
+        outputs.push(backtest::backtest_members(std::mem::take(obs), &core, *recovery).map_err(mk)?);
+    }
+    if outputs.is_empty() {
+        // No curve reached a cohort date: the base set is empty.
+        outputs.push(backtest::backtest_members(Vec::new(), &core, p.recovery).map_err(mk)?);
+    }
+    if ctx.have_defaults {
+        results.outcome_sources.push("entity_defaults");
+    }
+    if let Some(h) = ctx.cohort_history {
+        let records: Vec<CohortHistoryRecord> = h
+            .rows
+            .iter()
+            .map(|(r, _)| CohortHistoryRecord { year: r.year, grade: r.grade, obligors: r.obligors, defaults: r.defaults, withdrawn: r.withdrawn })
+            .collect();
+        results.history = compare_cohort_history(&records, &outputs[0].buckets, core.level, &core.zones).map_err(|e| Error::Other(format!("backtest stage (cohort history): {e}")))?;
+        results.outcome_sources.push("cohort_history");
+    }
+    // Without a defaults table the entity-level outcomes are unknown (every member would look
+    // like a survivor): only the implied PDs are used, against the cohort history.
+    results.outputs = if ctx.have_defaults { outputs } else { Vec::new() };
+    Ok(results)
+}
+
+/// Writes `backtest_buckets`, `backtest_hosmer_lemeshow`, `risk_premia` and (with a cohort
+/// history) `backtest_history`. Bucket and premium rows of every recovery scenario are in the
+/// same tables, told apart by their `recovery` column.
+pub fn write_backtest_tables(r: &BacktestResults, tables: &Path, meta: &[(String, String)]) -> Result<()> {
+    let rows: Vec<(f64, &backtest::BucketRow)> = r.outputs.iter().flat_map(|o| o.buckets.iter().map(move |b| (o.recovery, b))).collect();
+    let mut df = TableBuilder::new()
+        .strings("cohort", rows.iter().map(|(_, b)| Some(&b.cohort)))
+        .ints("horizon", rows.iter().map(|(_, b)| Some(b.horizon_years as i64)))
+        .strings("bucket", rows.iter().map(|(_, b)| Some(&b.bucket)))
+        .floats("level", rows.iter().map(|(_, b)| Some(b.level)))
+        .floats("recovery", rows.iter().map(|(r, _)| Some(*r)))
+        .ints("n", rows.iter().map(|(_, b)| Some(b.n as i64)))
+        .ints("defaults", rows.iter().map(|(_, b)| Some(b.defaults as i64)))
+        .ints("n_censored", rows.iter().map(|(_, b)| Some(b.n_censored as i64)))
+        .floats("realised_rate", rows.iter().map(|(_, b)| b.realised_rate))
+        .floats("implied_pd", rows.iter().map(|(_, b)| b.implied_pd))
+        .floats("cp_lo", rows.iter().map(|(_, b)| b.cp_lo))
+        .floats("cp_hi", rows.iter().map(|(_, b)| b.cp_hi))
+        .floats("jeffreys_lo", rows.iter().map(|(_, b)| b.jeffreys_lo))
+        .floats("jeffreys_hi", rows.iter().map(|(_, b)| b.jeffreys_hi))
+        .floats("wilson_lo", rows.iter().map(|(_, b)| b.wilson_lo))
+        .floats("wilson_hi", rows.iter().map(|(_, b)| b.wilson_hi))
+        .floats("p_binom_upper", rows.iter().map(|(_, b)| b.p_binom_upper))
+        .floats("p_binom_lower", rows.iter().map(|(_, b)| b.p_binom_lower))
+        .floats("p_jeffreys", rows.iter().map(|(_, b)| b.p_jeffreys))
+        .strings("zone", rows.iter().map(|(_, b)| b.zone.map(|z| z.as_str())))
+        .strings("outcome_source", rows.iter().map(|(_, b)| Some(b.outcome_source)))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("backtest_buckets.parquet"), meta)?;
+
+    let hl: Vec<(f64, &backtest::HosmerLemeshowRow)> = r.outputs.iter().flat_map(|o| o.hosmer_lemeshow.iter().map(move |b| (o.recovery, b))).collect();
+    let mut df = TableBuilder::new()
+        .strings("cohort", hl.iter().map(|(_, b)| Some(&b.cohort)))
+        .ints("horizon", hl.iter().map(|(_, b)| Some(b.horizon_years as i64)))
+        .floats("recovery", hl.iter().map(|(r, _)| Some(*r)))
+        .ints("buckets", hl.iter().map(|(_, b)| Some(b.buckets as i64)))
+        .floats("statistic", hl.iter().map(|(_, b)| b.statistic))
+        .floats("p_value", hl.iter().map(|(_, b)| b.p_value))
+        .strings("note", hl.iter().map(|(_, b)| b.note.as_ref()))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("backtest_hosmer_lemeshow.parquet"), meta)?;
+
+    let rp: Vec<&backtest::RiskPremiumRow> = r.outputs.iter().flat_map(|o| o.risk_premia.iter()).collect();
+    let mut df = TableBuilder::new()
+        .strings("cohort", rp.iter().map(|b| Some(&b.cohort)))
+        .strings("bucket", rp.iter().map(|b| Some(&b.bucket)))
+        .ints("horizon", rp.iter().map(|b| Some(b.horizon_years as i64)))
+        .floats("level", rp.iter().map(|b| Some(b.level)))
+        .floats("recovery", rp.iter().map(|b| Some(b.recovery)))
+        .ints("members", rp.iter().map(|b| Some(b.members as i64)))
+        .floats("exposure_years", rp.iter().map(|b| Some(b.exposure_years)))
+        .ints("defaults", rp.iter().map(|b| Some(b.defaults as i64)))
+        .floats("lambda_p", rp.iter().map(|b| b.lambda_p))
+        .floats("lambda_p_lo", rp.iter().map(|b| b.lambda_p_lo))
+        .floats("lambda_p_hi", rp.iter().map(|b| b.lambda_p_hi))
+        .floats("lambda_q", rp.iter().map(|b| b.lambda_q))
+        .floats("ratio", rp.iter().map(|b| b.ratio))
+        .floats("ratio_lo", rp.iter().map(|b| b.ratio_lo))
+        .floats("ratio_hi", rp.iter().map(|b| b.ratio_hi))
+        .floats("spread_bp", rp.iter().map(|b| b.spread_bp))
+        .ints("spread_quotes", rp.iter().map(|b| Some(b.spread_quotes as i64)))
+        .floats("el_spread_bp", rp.iter().map(|b| b.el_spread_bp))
+        .floats("premium_spread_bp", rp.iter().map(|b| b.premium_spread_bp))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("risk_premia.parquet"), meta)?;
+
+    let h = &r.history;
+    let mut df = TableBuilder::new()
+        .strings("cohort", h.iter().map(|b| Some(&b.cohort)))
+        .ints("grade", h.iter().map(|b| Some(b.grade as i64)))
+        .floats("level", h.iter().map(|b| Some(b.level)))
+        .ints("obligors", h.iter().map(|b| Some(b.obligors as i64)))
+        .ints("defaults", h.iter().map(|b| Some(b.defaults as i64)))
+        .ints("withdrawn", h.iter().map(|b| b.withdrawn.map(|x| x as i64)))
+        .floats("realised_rate", h.iter().map(|b| Some(b.realised_rate)))
+        .floats("cp_lo", h.iter().map(|b| Some(b.cp_lo)))
+        .floats("cp_hi", h.iter().map(|b| Some(b.cp_hi)))
+        .floats("jeffreys_lo", h.iter().map(|b| Some(b.jeffreys_lo)))
+        .floats("jeffreys_hi", h.iter().map(|b| Some(b.jeffreys_hi)))
+        .floats("implied_pd", h.iter().map(|b| b.implied_pd))
+        .floats("p_binom_upper", h.iter().map(|b| b.p_binom_upper))
+        .floats("p_jeffreys", h.iter().map(|b| b.p_jeffreys))
+        .strings("zone", h.iter().map(|b| b.zone.map(|z| z.as_str())))
+        .strings("outcome_source", h.iter().map(|b| Some(b.outcome_source)))
+        .finish()?;
+    write_parquet(&mut df, &tables.join("backtest_history.parquet"), meta)
+}

@@ -1,0 +1,339 @@
+//! `hazardline demo OUT_DIR`: writes the invented universe of [`crate::sim`] as the input
+//! tables of the pipeline, the planted truth beside them under `truth/`, and a `pipeline.toml`
+//! that runs the whole pipeline on that folder.
+//!
+//! Layout:
+//! ```text
+//! cds_quotes/quotes_<year>.parquet   the daily feed, one file per calendar year
+//! cds_quotes/manual_entries.csv      rows typed in by hand (planted text and weekend faults)
+//! discount.parquet, bonds.csv, bond_quotes.csv, entities.csv, grades.csv, defaults.csv,
+//! cohort_history.csv
+//! truth/grade_profiles.csv, truth/intensities.parquet (month ends), truth/defaults.csv,
+//! truth/faults.csv, truth/bond_basis.csv, truth/cohort_pd.csv, truth/premium.csv,
+//! truth/scenario.json
+//! pipeline.toml
+//! ```
+//! Every file is written in a fixed order with fixed formatting, so a seed gives the same bytes.
+
+use crate::error::{Error, Result};
+use crate::tables::parquet::{write_parquet, TableBuilder};
+use crate::sim::scenario::{QuoteFile, QuoteValue, Scenario};
+use crate::sim::{generate, ScenarioSpec};
+use crate::time::{DayCount, Tenor};
+use chrono::{Datelike, NaiveDate};
+use std::collections::BTreeMap;
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+/// What `demo` wrote.
+#[derive(Debug, Clone)]
+pub struct DemoSummary {
+    pub out: PathBuf,
+    pub files: Vec<PathBuf>,
+    pub quotes: usize,
+    pub entities: usize,
+    pub defaults: usize,
+    pub faults: usize,
+}
+
+fn tenor_text(months: u32) -> String {
+    Tenor::from_months(months).map_or_else(|| format!("{months}M"), |t| t.to_string())
+}
+
+fn day_count_text(d: DayCount) -> &'static str {
+    match d {
+        DayCount::Act360 => "ACT/360",
+        DayCount::Act365Fixed => "ACT/365F",
+        DayCount::Thirty360 => "30/360",
+        DayCount::ActActIcma => "ACT/ACT-ICMA",
+    }
+}
+
+/// A CSV field, quoted when it holds a comma, a quote or a newline.
+fn field(s: &str) -> String {
+    if s.contains([',', '"', '\n']) {
+        format!("\"{}\"", s.replace('"', "\"\""))
+    } else {
+        s.to_string()
+    }
+}
+
+struct Writer {
+    root: PathBuf,
+    files: Vec<PathBuf>,
+}
+
+impl Writer {
+    fn text(&mut self, rel: &str, body: &str) -> Result<()> {
+        let path = self.root.join(rel);
+        if let Some(dir) = path.parent() {
+            std::fs::create_dir_all(dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })?;
+        }
+        std::fs::write(&path, body).map_err(|e| Error::Write { path: path.clone(), message: e.to_string() })?;
+        self.files.push(path);
+        Ok(())
+    }
+
+    fn parquet(&mut self, rel: &str, b: TableBuilder) -> Result<()> {
+        let path = self.root.join(rel);
+        let mut df = b.finish()?;
+        write_parquet(&mut df, &path, &[])?;
+        self.files.push(path);
+        Ok(())
+    }
+}
+
+/// Generates the universe for `spec` and writes it under `out`.
+pub fn write_demo(out: &Path, spec: &ScenarioSpec) -> Result<DemoSummary> {
+    write_scenario(out, &generate(spec))
+}
+
+/// Writes an already generated universe under `out`.
+pub fn write_scenario(out: &Path, s: &Scenario) -> Result<DemoSummary> {
+    let mut w = Writer { root: out.to_path_buf(), files: Vec::new() };
+    write_inputs(&mut w, s)?;
+    write_truth(&mut w, s)?;
+    w.text("pipeline.toml", &pipeline_file(s))?;
+    Ok(DemoSummary {
+        out: out.to_path_buf(),
+        files: w.files,
+        quotes: s.quotes.len(),
+        entities: s.entities.len(),
+        defaults: s.defaults.len(),
+        faults: s.faults.len(),
+    })
+}
+
+fn write_inputs(w: &mut Writer, s: &Scenario) -> Result<()> {
+    let name = |e: usize| s.entities[e].entity.as_str();
+    // cds_quotes: one Parquet file per year, and the hand-typed CSV.
+    let mut by_file: BTreeMap<QuoteFile, Vec<usize>> = BTreeMap::new();
+    for (q, r) in s.quotes.iter().enumerate() {
+        by_file.entry(r.file).or_default().push(q);
+    }
+    for (file, rows) in &by_file {
+        let rel = format!("cds_quotes/{}", file.file_name());
+        match file {
+            QuoteFile::Year(_) => {
+                let b = TableBuilder::new()
+                    .dates("date", rows.iter().map(|&q| Some(s.quotes[q].date)))
+                    .strings("entity", rows.iter().map(|&q| Some(name(s.quotes[q].entity))))
+                    .strings("currency", rows.iter().map(|&q| Some(s.entities[s.quotes[q].entity].currency)))
+                    .strings("tenor", rows.iter().map(|&q| Some(tenor_text(s.quotes[q].tenor))))
+                    .floats(
+                        "par_spread_bp",
+                        rows.iter().map(|&q| match &s.quotes[q].value {
+                            QuoteValue::Number(v) => Some(*v),
+                            QuoteValue::Text(_) => None,
+                        }),
+                    );
+                w.parquet(&rel, b)?;
+            }
+            QuoteFile::Manual => {
+                let mut body = String::from("date,entity,currency,tenor,par_spread_bp\n");
+                for &q in rows {
+                    let r = &s.quotes[q];
+                    let value = match &r.value {
+                        QuoteValue::Number(v) => format!("{v}"),
+                        QuoteValue::Text(t) => t.clone(),
+                    };
+                    let _ = writeln!(body, "{},{},{},{},{}", r.date, field(name(r.entity)), s.entities[r.entity].currency, tenor_text(r.tenor), field(&value));
+                }
+                w.text(&rel, &body)?;
+            }
+        }
+    }
+    // Discount curves.
+    let d = &s.discount;
+    w.parquet(
+        "discount.parquet",
+        TableBuilder::new()
+            .dates("date", d.iter().map(|r| Some(r.0)))
+            .strings("currency", d.iter().map(|r| Some(r.1)))
+            .strings("tenor", d.iter().map(|r| Some(tenor_text(r.2))))
+            .floats("zero_rate", d.iter().map(|r| Some(r.3))),
+    )?;
+    // Entities, grades, defaults.
+    let mut body = String::from("entity,name,sector,region\n");
+    for e in &s.entities {
+        let _ = writeln!(body, "{},{},{},{}", field(&e.entity), field(&e.name), e.sector, field(e.region));
+    }
+    w.text("entities.csv", &body)?;
+    let mut body = String::from("entity,from_date,grade\n");
+    for &(e, d, g) in &s.grades {
+        let _ = writeln!(body, "{},{d},{g}", field(name(e)));
+    }
+    w.text("grades.csv", &body)?;
+    let mut body = String::from("entity,default_date,event\n");
+    for &(e, d, _) in &s.defaults {
+        let _ = writeln!(body, "{},{d},failure to pay", field(name(e)));
+    }
+    w.text("defaults.csv", &body)?;
+    // Bonds.
+    let mut body = String::from("bond,entity,currency,coupon,frequency,maturity,day_count,issue_date\n");
+    for b in &s.bonds {
+        let t = &b.terms;
+        let _ = writeln!(
+            body,
+            "{},{},{},{},{},{},{},{}",
+            b.bond,
+            field(name(b.entity)),
+            s.entities[b.entity].currency,
+            t.coupon,
+            t.frequency,
+            t.maturity,
+            day_count_text(t.day_count),
+            t.issue_date.map(|d| d.to_string()).unwrap_or_default()
+        );
+    }
+    w.text("bonds.csv", &body)?;
+    let mut body = String::from("date,bond,clean_price\n");
+    for &(d, b, p) in &s.bond_quotes {
+        let _ = writeln!(body, "{d},{},{p}", s.bonds[b].bond);
+    }
+    w.text("bond_quotes.csv", &body)?;
+    let mut body = String::from("year,grade,obligors,defaults,withdrawn\n");
+    for c in &s.cohort_history {
+        let _ = writeln!(body, "{},{},{},{},{}", c.year, c.grade, c.obligors, c.defaults, c.withdrawn);
+    }
+    w.text("cohort_history.csv", &body)
+}
+
+fn write_truth(w: &mut Writer, s: &Scenario) -> Result<()> {
+    let name = |e: usize| s.entities[e].entity.as_str();
+    let mut body = String::from("grade,theta_p,multiplier,kappa,sigma_p,start_weight\n");
+    for p in &s.profiles {
+        let _ = writeln!(body, "{},{},{},{},{},{}", p.grade, p.theta_p, p.multiplier, crate::sim::credit::KAPPA, crate::sim::credit::sigma_for(p.theta_p), p.weight);
+    }
+    w.text("truth/grade_profiles.csv", &body)?;
+    let it = &s.intensities;
+    w.parquet(
+        "truth/intensities.parquet",
+        TableBuilder::new()
+            .dates("date", it.iter().map(|r| Some(r.date)))
+            .strings("entity", it.iter().map(|r| Some(name(r.entity))))
+            .ints("grade", it.iter().map(|r| Some(r.grade as i64)))
+            .floats("lambda_p", it.iter().map(|r| Some(r.lambda_p)))
+            .floats("lambda_q", it.iter().map(|r| Some(r.lambda_q))),
+    )?;
+    let mut body = String::from("entity,default_date,grade_at_default\n");
+    for &(e, d, g) in &s.defaults {
+        let _ = writeln!(body, "{},{d},{g}", field(name(e)));
+    }
+    w.text("truth/defaults.csv", &body)?;
+    // Faults, one line per affected row, with the file and 1-based data row the quality stage
+    // will name.
+    let rows_of = fault_rows(s);
+    let mut body = String::from("fault,kind,entity,date,last_date,tenor,expected,file,row,detail\n");
+    for (i, f) in s.faults.iter().enumerate() {
+        let tenor = f.tenor.map(tenor_text).unwrap_or_default();
+        let rows = rows_of.get(&i).cloned().unwrap_or_default();
+        if rows.is_empty() {
+            let _ = writeln!(body, "{i},{},{},{},{},{tenor},{},,,{}", f.kind, field(name(f.entity)), f.date, f.last_date, f.expected, field(&f.detail));
+        }
+        for (file, row) in rows {
+            let _ = writeln!(body, "{i},{},{},{},{},{tenor},{},{file},{row},{}", f.kind, field(name(f.entity)), f.date, f.last_date, f.expected, field(&f.detail));
+        }
+    }
+    w.text("truth/faults.csv", &body)?;
+    let mut body = String::from("bond,entity,basis_bp\n");
+    for b in &s.bonds {
+        let _ = writeln!(body, "{},{},{}", b.bond, field(name(b.entity)), b.basis_bp);
+    }
+    w.text("truth/bond_basis.csv", &body)?;
+    let mut body = String::from("grade,horizon_years,members,hazard_q,hazard_p,planted_ratio,multiplier\n");
+    for t in &s.premium {
+        let _ = writeln!(body, "{},{},{},{},{},{},{}", t.grade, t.horizon_years, t.members, t.hazard_q, t.hazard_p, t.ratio(), t.multiplier);
+    }
+    w.text("truth/premium.csv", &body)?;
+    let mut body = String::from("year,grade,pd\n");
+    for c in &s.cohort_history {
+        let _ = writeln!(body, "{},{},{}", c.year, c.grade, c.pd);
+    }
+    w.text("truth/cohort_pd.csv", &body)?;
+    let sp = &s.spec;
+    let json = serde_json::json!({
+        "seed": sp.seed,
+        "entities": sp.entities,
+        "years": sp.years,
+        "start": sp.start.to_string(),
+        "end": sp.end().to_string(),
+        "history_years": sp.history_years,
+        "bond_share": sp.bond_share,
+        "quote_noise": sp.quote_noise,
+        "faults": sp.faults,
+        "intensity_scale": sp.intensity_scale,
+        "recovery": crate::sim::scenario::RECOVERY,
+    });
+    w.text("truth/scenario.json", &(serde_json::to_string_pretty(&json).unwrap_or_default() + "\n"))
+}
+
+/// The rows of each planted fault: (file relative to the scenario folder, 1-based data row).
+pub fn fault_rows(s: &Scenario) -> BTreeMap<usize, Vec<(String, u64)>> {
+    let mut rows_of: BTreeMap<usize, Vec<(String, u64)>> = BTreeMap::new();
+    let mut counter: BTreeMap<QuoteFile, u64> = BTreeMap::new();
+    for r in &s.quotes {
+        let n = counter.entry(r.file).or_insert(0);
+        *n += 1;
+        if let Some(f) = r.fault {
+            rows_of.entry(f).or_default().push((format!("cds_quotes/{}", r.file.file_name()), *n));
+        }
+    }
+    rows_of
+}
+
+/// The pipeline file beside the generated tables: the whole pipeline on this folder.
+fn pipeline_file(s: &Scenario) -> String {
+    // Chart a good grade, a weak one and (when there is one) a defaulter.
+    let mut charted: Vec<&str> = Vec::new();
+    let first_grade = |g: u32| s.grades.iter().find(|r| r.2 == g).map(|r| s.entities[r.0].entity.as_str());
+    if let Some(e) = first_grade(1).or_else(|| first_grade(2)) {
+        charted.push(e);
+    }
+    if let Some(e) = first_grade(5).or_else(|| first_grade(4)) {
+        if !charted.contains(&e) {
+            charted.push(e);
+        }
+    }
+    if let Some(&(e, _, _)) = s.defaults.iter().find(|d| d.1.year() > s.spec.start.year()) {
+        let e = s.entities[e].entity.as_str();
+        if !charted.contains(&e) {
+            charted.push(e);
+        }
+    }
+    let charted: Vec<String> = charted.iter().map(|e| format!("{e:?}")).collect();
+    format!(
+        "# Written by `hazardline demo` (seed {seed}): the whole pipeline on this invented universe.\n\
+         name = \"demo\"\n\n\
+         [inputs]\n\
+         cds_quotes = \"cds_quotes\"\n\
+         discount = \"discount.parquet\"\n\
+         bonds = \"bonds.csv\"\n\
+         bond_quotes = \"bond_quotes.csv\"\n\
+         entities = \"entities.csv\"\n\
+         grades = \"grades.csv\"\n\
+         defaults = \"defaults.csv\"\n\
+         cohort_history = \"cohort_history.csv\"\n\n\
+         [conventions]\n\
+         recovery = {recovery:.2}\n\n\
+         [calibration]\n\
+         bond_fit = true\n\
+         cir = true\n\
+         cir_mode = \"fixed_kappa_sigma\"\n\
+         cir_entities = [{charted}]\n\n\
+         [backtest]\n\
+         horizons = [1, 3]\n\n\
+         [report]\n\
+         output_root = \"reports\"\n\
+         label = \"seed-{seed}\"\n\
+         charted_entities = [{charted}]\n",
+        seed = s.spec.seed,
+        recovery = crate::sim::scenario::RECOVERY,
+        charted = charted.join(", "),
+    )
+}
+
+/// Parses `YYYY-MM-DD` for the command line.
+pub fn parse_start(text: &str) -> std::result::Result<NaiveDate, String> {
+    crate::time::parse_iso_date(text).ok_or_else(|| format!("--start {text:?} is not an ISO date yyyy-mm-dd"))
+}
