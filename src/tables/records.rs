@@ -1,4 +1,4 @@
-//! The output tables of DESIGN section 9 that exist so far, as plain records and their
+//! The output tables of docs/design.md, "Output tables" that exist so far, as plain records and their
 //! Parquet schemas. Column names and types here are a contract with every consumer.
 
 use super::parquet::{write_parquet, FileKey, RowGroupWriter, SplitWriter, TableBuilder, TableWriter};

@@ -1,5 +1,5 @@
 """Reads every table of a run with pyarrow (PyPI) and checks the column types that
-consumers rely on (DESIGN section 9): dates are Parquet dates, numbers are doubles or
+consumers rely on (docs/design.md, "Output tables"): dates are Parquet dates, numbers are doubles or
 64-bit integers, text is text. A large table written as a folder of files
 (report.large_tables) is read as one pyarrow dataset. Exits non-zero on any mismatch.
 

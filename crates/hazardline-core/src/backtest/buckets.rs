@@ -13,7 +13,7 @@ use std::collections::BTreeMap;
 /// Where realised outcomes in a row come from.
 pub const SOURCE_ENTITY_DEFAULTS: &str = "entity_defaults";
 
-/// One row of `backtest_buckets` (DESIGN section 9), plus `n_censored` and `outcome_source`.
+/// One row of `backtest_buckets` (docs/design.md, "Output tables"), plus `n_censored` and `outcome_source`.
 /// The test fields are None when no member counts (n = 0).
 #[derive(Debug, Clone, PartialEq)]
 pub struct BucketRow {

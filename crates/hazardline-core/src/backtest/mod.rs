@@ -4,11 +4,11 @@
 //! Reads plain structs (no tables, no I/O): per entity its grade history, default date and the
 //! last date its data covers ([`EntityFacts`]), and one or more [`CurveSet`]s, calibrated hazard
 //! curves keyed by (date, entity) together with the recovery they were calibrated with. Writes
-//! rows shaped like the `backtest_buckets` and `risk_premia` tables of DESIGN section 9
+//! rows shaped like the `backtest_buckets` and `risk_premia` tables of docs/design.md, "Output tables"
 //! ([`BucketRow`], [`HosmerLemeshowRow`], [`RiskPremiumRow`]) and, from an institution's own
 //! counts, [`HistoryRow`]s.
 //!
-//! Conventions (DESIGN section 7):
+//! Conventions (docs/design.md, "Backtest and risk premium"):
 //! - members at cohort date t: not defaulted on or before t, data covering t, and a curve dated
 //!   within `lookback_days` before or at t (the latest such curve);
 //! - the curve is used as of its own date: implied PD for horizon h is 1 - S(h) read from that

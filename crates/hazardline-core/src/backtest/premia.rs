@@ -1,7 +1,7 @@
 //! Risk premia: realised (historical-measure) intensity lambda_P = defaults / exposure years
 //! with its Garwood (1936) interval, pricing-measure intensity lambda_Q = integrated calibrated
 //! hazard over the same windows / the same exposure, their ratio, and the spread split into
-//! expected loss lambda_P (1 - R) and the remainder (DESIGN section 7).
+//! expected loss lambda_P (1 - R) and the remainder (docs/design.md, "Backtest and risk premium").
 //!
 //! Every member counts here, censored ones included: exposure time makes censoring exact.
 
@@ -10,7 +10,7 @@ use super::cohort::{Observation, Outcome};
 use super::{BacktestError, BacktestSettings};
 use crate::stats;
 
-/// One row of `risk_premia` (DESIGN section 9), tagged with cohort and recovery.
+/// One row of `risk_premia` (docs/design.md, "Output tables"), tagged with cohort and recovery.
 /// Fields are None when undefined: everything intensity-based when the exposure is 0; `ratio`
 /// when d = 0 (lambda_P = 0, the ratio is unbounded); `ratio_hi` when d = 0 (the Garwood lower
 /// bound is 0, so the ratio's upper bound is unbounded); spreads when nobody quoted the tenor.

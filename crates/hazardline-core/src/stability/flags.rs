@@ -13,7 +13,7 @@ pub const RED: &str = "red";
 /// Severity of a breach that needs a look and a written view.
 pub const AMBER: &str = "amber";
 
-/// One row of the `flags` table (columns fixed by DESIGN section 9).
+/// One row of the `flags` table (columns fixed by docs/design.md, "Output tables").
 #[derive(Debug, Clone, PartialEq)]
 pub struct FlagRow {
     /// Rule name, e.g. `psi_shift`, `cusum_break`.

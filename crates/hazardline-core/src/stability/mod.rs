@@ -1,5 +1,5 @@
 //! Stability of calibrated parameters through time, and calibration residuals across many
-//! calibrations (DESIGN section 8).
+//! calibrations (docs/design.md, "Stability review").
 //!
 //! Reads plain structs the pipeline fills from its tables: parameter observations per
 //! (series, entity, date) with the entity's grade ([`Observation`], e.g. `pd_1y`, `hazard_5y`,
