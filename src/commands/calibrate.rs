@@ -5,7 +5,8 @@
 use crate::error::{Error, Result};
 use crate::ingest::{load, InputPaths, QualitySettings, TableCounts};
 use crate::stages::calibrate::{calibrate_dataset, metadata, top_reasons, CalibrationParams};
-use crate::tables::records::{write_data_quality, write_hazard_curves, write_quality_flags, write_rejects, write_residuals};
+use crate::tables::flags::{FlagRecord, QUALITY_FLAGS};
+use crate::tables::{self, write_hazard_curves, write_residuals};
 use crate::time::Calendar;
 use std::collections::BTreeMap;
 use std::path::PathBuf;
@@ -62,13 +63,14 @@ pub fn calibrate(s: &CalibrateSettings) -> Result<CalibrateSummary> {
         out.join("calibration_residuals.parquet"),
         out.join("rejects.parquet"),
         out.join("data_quality.parquet"),
-        out.join("quality_flags.parquet"),
+        out.join(format!("{QUALITY_FLAGS}.parquet")),
     ];
     write_hazard_curves(&cal.hazard, &paths[0], &meta)?;
     write_residuals(&cal.residuals, &paths[1], &meta)?;
-    write_rejects(&rejects, &paths[2], &meta)?;
-    write_data_quality(&ds.data_quality, &paths[3], &meta)?;
-    write_quality_flags(&ds.flags, &paths[4], &meta)?;
+    tables::write_to(&rejects, &paths[2], &meta)?;
+    tables::write_to(&ds.data_quality, &paths[3], &meta)?;
+    let flags: Vec<FlagRecord> = ds.flags.iter().map(FlagRecord::quality).collect();
+    tables::write_to(&flags, &paths[4], &meta)?;
     Ok(CalibrateSummary { outputs: paths.to_vec(), ..summary })
 }
 

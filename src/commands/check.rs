@@ -6,7 +6,8 @@
 use crate::error::Result;
 use crate::ingest::{load, InputPaths, QualitySettings, TableCounts};
 use crate::stages::calibrate::top_reasons;
-use crate::tables::records::{write_data_quality, write_quality_flags, write_rejects};
+use crate::tables::flags::{FlagRecord, QUALITY_FLAGS};
+use crate::tables;
 use crate::time::Calendar;
 use std::collections::BTreeMap;
 use std::path::PathBuf;
@@ -32,7 +33,7 @@ pub fn check(s: &CheckSettings) -> Result<CheckSummary> {
     let ds = load(&s.inputs, &s.calendar, &s.quality)?;
     let mut summary = CheckSummary { counts: ds.counts.clone(), top_reasons: top_reasons(&ds.rejects, 10), ..Default::default() };
     for f in &ds.flags {
-        *summary.flags_by_rule.entry(f.rule).or_default() += 1;
+        *summary.flags_by_rule.entry(f.rule.as_str()).or_default() += 1;
     }
     if let Some(out) = &s.out {
         let meta = vec![
@@ -40,10 +41,11 @@ pub fn check(s: &CheckSettings) -> Result<CheckSummary> {
             ("hazardline.stage".to_string(), "check".to_string()),
             ("hazardline.quality".to_string(), format!("{:?}", s.quality)),
         ];
-        let paths = [out.join("rejects.parquet"), out.join("data_quality.parquet"), out.join("quality_flags.parquet")];
-        write_rejects(&ds.rejects, &paths[0], &meta)?;
-        write_data_quality(&ds.data_quality, &paths[1], &meta)?;
-        write_quality_flags(&ds.flags, &paths[2], &meta)?;
+        let paths = [out.join("rejects.parquet"), out.join("data_quality.parquet"), out.join(format!("{QUALITY_FLAGS}.parquet"))];
+        tables::write_to(&ds.rejects, &paths[0], &meta)?;
+        tables::write_to(&ds.data_quality, &paths[1], &meta)?;
+        let flags: Vec<FlagRecord> = ds.flags.iter().map(FlagRecord::quality).collect();
+        tables::write_to(&flags, &paths[2], &meta)?;
         summary.outputs = paths.to_vec();
     }
     Ok(summary)

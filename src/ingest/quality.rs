@@ -5,6 +5,7 @@
 //! Works on the panel's plain rows; every threshold comes from [`QualitySettings`] and is
 //! printed in the outputs. A flag never removes a row; a reject always says why.
 
+use crate::text::{FlagRule, Severity};
 use super::cds::{CdsPanel, CdsQuoteRow};
 use crate::time::serial;
 use chrono::NaiveDate;
@@ -67,9 +68,10 @@ pub const FLAG_INVERTED: u8 = 8;
 /// A non-rejecting finding, in the shape of the flags table.
 #[derive(Debug, Clone, PartialEq)]
 pub struct QualityFlag {
-    /// `stale_run`, `spike`, `few_tenors`, `inverted_curve`.
-    pub rule: &'static str,
-    pub severity: &'static str,
+    /// `stale_run`, `spike`, `few_tenors` or `inverted_curve`.
+    pub rule: FlagRule,
+    /// `warning` or `info`.
+    pub severity: Severity,
     pub table: &'static str,
     pub entity: String,
     /// What the flag is about: `USD 5Y` for a quote series, `USD curve` for a curve.
@@ -253,8 +255,8 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
                 x.flags |= FLAG_FEW_TENORS;
             }
             findings.push(QualityFlag {
-                rule: "few_tenors",
-                severity: "warning",
+                rule: FlagRule::FewTenors,
+                severity: Severity::Warning,
                 table: super::cds::TABLE,
                 entity: panel.entities.name(h.entity).to_string(),
                 series: curve.clone(),
@@ -273,8 +275,8 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
                     x.flags |= FLAG_INVERTED;
                 }
                 findings.push(QualityFlag {
-                    rule: "inverted_curve",
-                    severity: "info",
+                    rule: FlagRule::InvertedCurve,
+                    severity: Severity::Info,
                     table: super::cds::TABLE,
                     entity: panel.entities.name(h.entity).to_string(),
                     series: curve,
@@ -291,7 +293,7 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
     }
     let bits: Vec<u8> = kept.iter().map(|r| r.flags).collect();
     panel.rows = kept;
-    findings.sort_by(|a, b| (a.date, &a.entity, &a.series, a.rule, a.row).cmp(&(b.date, &b.entity, &b.series, b.rule, b.row)));
+    findings.sort_by(|a, b| (a.date, &a.entity, &a.series, a.rule.as_str(), a.row).cmp(&(b.date, &b.entity, &b.series, b.rule.as_str(), b.row)));
     (bits, findings)
 }
 
@@ -367,8 +369,8 @@ fn series_rules(
             let k0 = series[keep[a]];
             let (e, ser) = name(k0);
             findings.push(QualityFlag {
-                rule: "stale_run",
-                severity: "warning",
+                rule: FlagRule::StaleRun,
+                severity: Severity::Warning,
                 table: super::cds::TABLE,
                 entity: e,
                 series: ser,
@@ -407,8 +409,8 @@ fn series_rules(
             flags[k] |= FLAG_SPIKE;
             let (e, ser) = name(k);
             findings.push(QualityFlag {
-                rule: "spike",
-                severity: "warning",
+                rule: FlagRule::Spike,
+                severity: Severity::Warning,
                 table: super::cds::TABLE,
                 entity: e,
                 series: ser,

@@ -4,6 +4,7 @@
 
 use crate::error::Result;
 use crate::tables::manifest;
+use crate::tables::flags::FlagRecord;
 use crate::tables::readback;
 use std::collections::{BTreeMap, BTreeSet};
 use std::fmt::Write as _;
@@ -12,8 +13,8 @@ use std::path::Path;
 fn mean_5y(run: &Path) -> Result<BTreeMap<String, (f64, usize)>> {
     // The table can be tens of millions of rows: read a slice at a time.
     let mut m: BTreeMap<String, (f64, usize)> = BTreeMap::new();
-    readback::hazard_curve_slices(&readback::table_path(&run.join("tables"), "hazard_curves"), |rows| {
-        for r in rows.iter().filter(|r| r.source == "cds" && &*r.tenor == "5Y" && r.status == "ok") {
+    readback::slices::<crate::tables::HazardCurveRow>(&readback::table_path(&run.join("tables"), "hazard_curves"), |rows| {
+        for r in rows.iter().filter(|r| r.source == crate::text::CurveSource::Cds && &*r.tenor == "5Y" && r.status == "ok") {
             if let Some(x) = r.hazard {
                 let e = m.entry(r.entity.to_string()).or_default();
                 e.0 += x;
@@ -60,9 +61,9 @@ pub fn compare(a: &Path, b: &Path) -> Result<String> {
         };
         let _ = writeln!(w, "| {e} | {} | {} | {ch} |", f(x), f(y));
     }
-    let fa = readback::flags(&a.join("tables/flags.parquet"))?;
-    let fb = readback::flags(&b.join("tables/flags.parquet"))?;
-    let key = |f: &readback::FlagRecord| (f.0.clone(), f.2.clone(), f.3.clone(), f.4);
+    let fa: Vec<FlagRecord> = crate::tables::read(&a.join("tables"))?;
+    let fb: Vec<FlagRecord> = crate::tables::read(&b.join("tables"))?;
+    let key = |f: &FlagRecord| (f.flag.rule, f.flag.entity.clone().unwrap_or_default(), f.flag.series.clone(), f.flag.date);
     let ka: BTreeSet<_> = fa.iter().map(key).collect();
     let kb: BTreeSet<_> = fb.iter().map(key).collect();
     let new: Vec<_> = fb.iter().filter(|f| !ka.contains(&key(f))).collect();
@@ -72,7 +73,8 @@ pub fn compare(a: &Path, b: &Path) -> Result<String> {
         if !list.is_empty() {
             let _ = writeln!(w, "{title}:\n\n| rule | entity | series | date | explanation |\n| --- | --- | --- | --- | --- |");
             for f in list.iter().take(30) {
-                let _ = writeln!(w, "| `{}` | {} | {} | {} | {} |", f.0, f.2, f.3, f.4.map(|d| d.to_string()).unwrap_or_default(), f.7.replace('|', "/"));
+                let g = &f.flag;
+                let _ = writeln!(w, "| `{}` | {} | {} | {} | {} |", g.rule.as_str(), g.entity.as_deref().unwrap_or(""), g.series, g.date.map(|d| d.to_string()).unwrap_or_default(), g.explanation.replace('|', "/"));
             }
             let _ = writeln!(w);
         }

@@ -5,7 +5,11 @@
 use super::charts;
 use crate::tables::manifest::{self, write_text, Manifest};
 use crate::tables::readback;
-use crate::tables::records::HazardCurveRow;
+use crate::ingest::Reject;
+use crate::tables::flags::{FlagRecord, DATA_QUALITY, STABILITY};
+use crate::tables::inputs::reject_reasons;
+use crate::tables::{self, BasisRow, HazardCurveRow, IntensityParamRow, ResidualRow, Table};
+use crate::text::{CurveSource, FitMethod, Severity};
 use crate::stability::summary::keep_first_n;
 use crate::error::{Error, Result};
 use chrono::NaiveDate;
@@ -83,7 +87,7 @@ struct CdsNodes {
     /// CDS curves: each curve's rows are one run of the table (it is sorted by curve), so the
     /// runs are counted rather than the keys held (4.6 million at 2,000 names x 10 years).
     curves: usize,
-    bad_curves: std::collections::HashSet<(NaiveDate, crate::tables::records::Label, crate::tables::records::Label)>,
+    bad_curves: std::collections::HashSet<(NaiveDate, crate::tables::Label, crate::tables::Label)>,
     status_counts: BTreeMap<&'static str, usize>,
     /// The first ten nodes not `ok`, in table order, and how many there are.
     bad_first: Vec<HazardCurveRow>,
@@ -95,7 +99,7 @@ struct CdsNodes {
     /// (table order): (date, years to node, hazard) and the 5Y history.
     named: BTreeMap<String, (Vec<(NaiveDate, f64, f64)>, Vec<(f64, f64)>)>,
     /// The curve of the last CDS row taken.
-    last: Option<(NaiveDate, crate::tables::records::Label, crate::tables::records::Label)>,
+    last: Option<(NaiveDate, crate::tables::Label, crate::tables::Label)>,
 }
 
 /// The charted entities' nodes: term structures on the chosen dates and the 5Y history.
@@ -133,7 +137,7 @@ impl CdsNodes {
     /// One pass over the table.
     fn read(path: &Path, named: Option<&[String]>) -> Result<CdsNodes> {
         let mut out = CdsNodes::new(named);
-        readback::hazard_curve_slices(path, |rows| {
+        readback::slices::<HazardCurveRow>(path, |rows| {
             out.add(&rows);
             Ok(())
         })
@@ -143,7 +147,7 @@ impl CdsNodes {
     /// Takes the next rows of the table, in table order.
     fn add(&mut self, rows: &[HazardCurveRow]) {
         for h in rows {
-            if h.source != "cds" {
+            if h.source != CurveSource::Cds {
                 self.bond.push(h.clone());
                 continue;
             }
@@ -204,8 +208,8 @@ impl CdsNodes {
             }
             return Ok(out);
         }
-        readback::hazard_curve_slices(path, |rows| {
-            for h in rows.iter().filter(|h| h.source == "cds" && chosen.iter().any(|e| e.as_str() == &*h.entity)) {
+        readback::slices::<HazardCurveRow>(path, |rows| {
+            for h in rows.iter().filter(|h| h.source == CurveSource::Cds && chosen.iter().any(|e| e.as_str() == &*h.entity)) {
                 if let (Some(x), true) = (h.hazard, dates.contains(&h.date)) {
                     out.term.entry((h.entity.to_string(), h.date)).or_default().push((crate::curves::year_time(h.date, h.node_date), x));
                 }
@@ -236,13 +240,13 @@ struct Residuals {
     within: usize,
     by_tenor: BTreeMap<(u32, String), TenorSums>,
     /// The ten largest finite bootstrap residuals (all statuses), as a stable sort would give.
-    worst: Vec<crate::tables::records::ResidualRow>,
+    worst: Vec<crate::tables::ResidualRow>,
     /// log10 |residual| of every finite bootstrap residual, for the histogram.
     logs: Vec<f64>,
-    bond: Vec<crate::tables::records::ResidualRow>,
+    bond: Vec<crate::tables::ResidualRow>,
 }
 
-fn worst_first(a: &crate::tables::records::ResidualRow, b: &crate::tables::records::ResidualRow) -> std::cmp::Ordering {
+fn worst_first(a: &crate::tables::ResidualRow, b: &crate::tables::ResidualRow) -> std::cmp::Ordering {
     b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then(a.date.cmp(&b.date)).then(a.entity.cmp(&b.entity))
 }
 
@@ -253,7 +257,7 @@ impl Residuals {
 
     fn read(path: &Path) -> Result<Residuals> {
         let mut out = Residuals::new();
-        readback::residual_slices(path, |rows| {
+        readback::slices::<ResidualRow>(path, |rows| {
             out.add(&rows);
             Ok(())
         })?;
@@ -261,18 +265,18 @@ impl Residuals {
     }
 
     /// Takes the next rows of the table, in table order.
-    fn add(&mut self, rows: &[crate::tables::records::ResidualRow]) {
+    fn add(&mut self, rows: &[crate::tables::ResidualRow]) {
         // The empty sum of the standard library (its starting value), so that running sums
         // match `Iterator::sum` over the same values bit for bit.
         let zero: f64 = std::iter::empty::<f64>().sum();
         for r in rows {
             match r.method {
-                "bootstrap" => {}
-                "bond_fit" => {
+                FitMethod::Bootstrap => {}
+                FitMethod::BondFit => {
                     self.bond.push(r.clone());
                     continue;
                 }
-                _ => continue,
+                FitMethod::Cir => continue,
             }
             if r.status == "ok" {
                 self.ok += 1;
@@ -324,8 +328,8 @@ impl crate::tables::parquet::RowFold<HazardCurveRow> for NodeFold {
     }
 }
 
-impl crate::tables::parquet::RowFold<crate::tables::records::ResidualRow> for ResidualFold {
-    fn add(&mut self, rows: &[crate::tables::records::ResidualRow]) {
+impl crate::tables::parquet::RowFold<crate::tables::ResidualRow> for ResidualFold {
+    fn add(&mut self, rows: &[crate::tables::ResidualRow]) {
         self.0.add(rows);
     }
 }
@@ -352,13 +356,23 @@ pub fn render(run_dir: &Path) -> Result<()> {
     render_with(run_dir, None)
 }
 
+/// Table `T` of the run's `tables` folder; empty when the folder has none (a run folder
+/// written before the table existed).
+fn read_if_written<T: Table>(tables: &Path) -> Result<Vec<T>> {
+    if crate::tables::readback::table_path(tables, T::NAME).exists() {
+        crate::tables::read(tables)
+    } else {
+        Ok(Vec::new())
+    }
+}
+
 /// [`render`], with what the report takes from the node and residual tables already gathered
 /// as a run wrote them (the same rows in the same order: the same report).
 pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> Result<()> {
     let m: Manifest = manifest::read(&run_dir.join("manifest.json"))?;
     let t = run_dir.join("tables");
-    let params = readback::intensity_params(&t.join("intensity_params.parquet"))?;
-    let basis = readback::basis(&t.join("cds_bond_basis.parquet"))?;
+    let params: Vec<IntensityParamRow> = read_if_written(&t)?;
+    let basis: Vec<BasisRow> = read_if_written(&t)?;
     // The node and residual tables hold a row per quote and can be tens of millions of rows:
     // they are read a slice at a time into what the report shows, never whole.
     let (hz, rs) = match folds {
@@ -369,9 +383,9 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         }
     };
     let bond_hazard = &hz.bond;
-    let bond_res: Vec<&crate::tables::records::ResidualRow> = rs.bond.iter().collect();
-    let flags = readback::flags(&t.join("flags.parquet"))?;
-    let reasons = readback::reject_reasons(&t.join("rejects.parquet"))?;
+    let bond_res: Vec<&crate::tables::ResidualRow> = rs.bond.iter().collect();
+    let flags: Vec<FlagRecord> = tables::read(&t)?;
+    let reasons = reject_reasons(&tables::read::<Reject>(&t)?);
     let charts_dir = run_dir.join("charts");
 
     let entities = &hz.entities;
@@ -382,9 +396,9 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     let status_counts = &hz.status_counts;
     let mut flag_counts: BTreeMap<(&str, &str, &str), usize> = BTreeMap::new();
     for f in &flags {
-        *flag_counts.entry((f.8.as_str(), f.0.as_str(), f.1.as_str())).or_default() += 1;
+        *flag_counts.entry((f.stage, f.flag.rule.as_str(), f.flag.severity.as_str())).or_default() += 1;
     }
-    let red = flags.iter().filter(|f| f.1 == "red").count();
+    let red = flags.iter().filter(|f| f.flag.severity == Severity::Red).count();
     let accounting_ok = m.counts.iter().all(|c| c.rows_in == c.used + c.rejected);
 
     let mut md = String::new();
@@ -467,10 +481,10 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         let ok = params.iter().filter(|p| p.status == "ok").count();
         let _ = writeln!(w, "| CIR fits converged (status `ok`) | {ok} of {} ({}) | {} |", params.len(), pct(ok as f64 / params.len() as f64), if ok == params.len() { "pass" } else { "see section 3" });
     }
-    let dq_flags = flags.iter().filter(|f| f.8 == "data_quality").count();
+    let dq_flags = flags.iter().filter(|f| f.stage == DATA_QUALITY).count();
     let _ = writeln!(w, "| data-quality flags (rows kept) | {dq_flags} | {} |", if dq_flags == 0 { "pass" } else { "see section 6" });
-    let st_flags: Vec<&readback::FlagRecord> = flags.iter().filter(|f| f.8 == "stability").collect();
-    let st_red = st_flags.iter().filter(|f| f.1 == "red").count();
+    let st_flags: Vec<&FlagRecord> = flags.iter().filter(|f| f.stage == STABILITY).collect();
+    let st_red = st_flags.iter().filter(|f| f.flag.severity == Severity::Red).count();
     let _ = writeln!(w, "| stability and residual flags | {} ({st_red} red) | {} |", st_flags.len(), if st_flags.is_empty() { "pass" } else { "see sections 4 and 6" });
     if backtest_rows > 0 {
         let b = readback::read_frame(&t.join("backtest_buckets.parquet"))?;
@@ -615,26 +629,27 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         for ((st, r, s), n) in &flag_counts {
             let _ = writeln!(w, "| {st} | `{r}` | {s} | {n} |");
         }
-        let rank = |s: &str| match s {
-            "red" => 0,
-            "amber" | "warning" => 1,
-            _ => 2,
+        let rank = |s: Severity| match s {
+            Severity::Red => 0,
+            Severity::Amber | Severity::Warning => 1,
+            Severity::Info => 2,
         };
-        let mut top: Vec<&readback::FlagRecord> = flags.iter().collect();
-        top.sort_by_key(|f| (rank(&f.1), f.8 != "stability"));
+        let mut top: Vec<&FlagRecord> = flags.iter().collect();
+        top.sort_by_key(|f| (rank(f.flag.severity), f.stage != STABILITY));
         // At most three per rule, so that one noisy rule does not hide the others.
         let mut per_rule: BTreeMap<&str, usize> = BTreeMap::new();
-        let top: Vec<&&readback::FlagRecord> = top
+        let top: Vec<&&FlagRecord> = top
             .iter()
             .filter(|f| {
-                let n = per_rule.entry(f.0.as_str()).or_default();
+                let n = per_rule.entry(f.flag.rule.as_str()).or_default();
                 *n += 1;
                 *n <= 3
             })
             .collect();
         let _ = writeln!(w, "\nTop flags (red first, at most three per rule; every flag is in `tables/flags.parquet`):\n\n| rule | severity | entity | series | period | date | explanation |\n| --- | --- | --- | --- | --- | --- | --- |");
         for f in top.iter().take(30) {
-            let _ = writeln!(w, "| `{}` | {} | {} | {} | {} | {} | {} |", f.0, f.1, f.2, f.3, f.9, f.4.map(|d| d.to_string()).unwrap_or_default(), f.7.replace('|', "/"));
+            let g = &f.flag;
+            let _ = writeln!(w, "| `{}` | {} | {} | {} | {} | {} | {} |", g.rule.as_str(), g.severity.as_str(), g.entity.as_deref().unwrap_or(""), g.series, g.period, g.date.map(|d| d.to_string()).unwrap_or_default(), g.explanation.replace('|', "/"));
         }
         let _ = writeln!(w, "\nRed flags: {red}.\n");
     }
@@ -685,9 +700,9 @@ fn median(v: &mut [f64]) -> f64 {
 fn intensity_sections(
     w: &mut String,
     bond_hazard: &[HazardCurveRow],
-    bond_res: &[&crate::tables::records::ResidualRow],
-    basis: &[crate::tables::records::BasisRow],
-    params: &[crate::tables::records::IntensityParamRow],
+    bond_res: &[&crate::tables::ResidualRow],
+    basis: &[crate::tables::BasisRow],
+    params: &[crate::tables::IntensityParamRow],
     settings: &serde_json::Value,
     charts_dir: &Path,
     figure: &mut usize,
@@ -744,13 +759,13 @@ fn intensity_sections(
     if !params.is_empty() {
         let _ = writeln!(w, "### CIR intensity fit\n");
         let _ = writeln!(w, "The CIR intensity d lambda = kappa (theta - lambda) dt + sigma sqrt(lambda) dW fitted to each bootstrapped CDS curve's quotes (`tables/intensity_params.parquet`; repriced quotes with method `cir` in `{residual_table}`). Medians over the fits that produced parameters; RMSE over each curve's quotes in bp of running spread.\n");
-        let mut per: BTreeMap<(&str, &str), Vec<&crate::tables::records::IntensityParamRow>> = BTreeMap::new();
+        let mut per: BTreeMap<(&str, &str), Vec<&crate::tables::IntensityParamRow>> = BTreeMap::new();
         for p in params {
             per.entry((p.entity.as_str(), p.currency.as_str())).or_default().push(p);
         }
         let _ = writeln!(w, "| entity | currency | fits | kappa | theta | sigma | lambda0 | median RMSE (bp) | largest RMSE (bp) | Feller holds | at a bound | status |\n| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- |");
         for ((e, c), v) in &per {
-            let col = |f: &dyn Fn(&crate::tables::records::IntensityParamRow) -> Option<f64>| -> Vec<f64> { v.iter().filter_map(|p| f(p)).collect() };
+            let col = |f: &dyn Fn(&crate::tables::IntensityParamRow) -> Option<f64>| -> Vec<f64> { v.iter().filter_map(|p| f(p)).collect() };
             let (mut k, mut th, mut sg, mut l0, mut rm) = (col(&|p| p.kappa), col(&|p| p.theta), col(&|p| p.sigma), col(&|p| p.lambda0), col(&|p| p.rmse_bp));
             let mx = rm.iter().fold(0.0f64, |a, x| a.max(*x));
             let with = v.iter().filter(|p| p.feller.is_some()).count();

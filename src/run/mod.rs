@@ -7,26 +7,39 @@
 //! written to a temporary name first. Everything but `run.log` is deterministic.
 //!
 //! A run can also be split by entity: `run --shard I/N` computes the per-entity half of the
-//! run (see [`crate::run::partition`]) for shard I of N and writes it to
+//! run (see [`partition`]) for shard I of N and writes it to
 //! `<output root>/<pipeline name>/<run label>.shards/part-I-of-N/`; [`merge`] then reads every
 //! part and finishes the run into the same run folder, byte for byte as a single run.
 
+pub mod merge;
+pub mod part_folder;
 pub mod partition;
+pub mod scope;
 pub mod selfcheck;
+
+pub use merge::merge;
 
 use crate::stages::backtest::{backtest_from_members, first_defaults, write_backtest_tables, BacktestContext, BacktestResults};
 use crate::stages::calibrate::{metadata, CalibrationParams};
-use crate::stages::stability::{multi_currency, quality_flags, run_stability, stability_inputs, write_flags, write_stability_tables, AnyFlag, RowDigest};
-use crate::stages::stability::grade_book;
+use crate::stages::stability::{grade_book, multi_currency, run_stability, stability_inputs, write_stability_tables, RowDigest};
 use crate::ingest::Dataset;
-use crate::parts::{check_tiling, DateRange, Shard};
-use crate::run::partition::{compute_partition, keep_dates, keep_shard, merge_part_rows, work_folder, read_partition, write_partition, PartFolder, Partition, RowSinks, StageTiming};
+use crate::parts::{DateRange, Shard};
+use part_folder::{work_folder, write_partition, PartFolder};
+use partition::{compute_partition, Partition, RowSinks, StageTiming};
+use scope::{keep_dates, keep_shard};
+use crate::tables::flags::{FlagRecord, STABILITY};
+use crate::text::Severity;
 use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::{load, TableCounts};
 use crate::tables::manifest::{hash_file, relative, write_text, CountRecord, FileRecord, InputRecord, Manifest};
 use crate::report::markdown::{self, NodeFold, ResidualFold};
-use crate::tables::records::*;
+use crate::tables::*;
+use crate::backtest::{HistoryRow, RiskPremiumRow};
+use crate::ingest::{load::DataQualityRow, Reject};
+use crate::stability::residual_review::{CurveResidualRow, RepricingShare, TenorResidualRow, WorstResidualRow};
+use crate::stability::{BreakRow, CrossSectionRow, StabilityRow};
+use crate::tables::review::PsiRecord;
 use std::collections::BTreeSet;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
@@ -78,26 +91,26 @@ fn counts_records(stage: &str, counts: &[TableCounts]) -> Vec<CountRecord> {
 /// Every table a run writes. `intensity_params` and `cds_bond_basis` are always written, empty
 /// (with their schema) when the CIR or bond fit is off, so consumers find the same files.
 pub const TABLES: [&str; 20] = [
-    "data_quality",
-    "rejects",
-    "discount_curves",
-    "hazard_curves",
-    "calibration_residuals",
-    "intensity_params",
-    "cds_bond_basis",
-    "backtest_buckets",
-    "backtest_hosmer_lemeshow",
-    "backtest_history",
-    "risk_premia",
-    "stability",
-    "stability_bands",
-    "stability_psi",
-    "stability_breaks",
-    "residual_curves",
-    "residual_tenors",
-    "residual_worst",
-    "residual_repricing",
-    "flags",
+    DataQualityRow::NAME,
+    Reject::NAME,
+    DiscountCurveRow::NAME,
+    HazardCurveRow::NAME,
+    ResidualRow::NAME,
+    IntensityParamRow::NAME,
+    BasisRow::NAME,
+    BucketRecord::NAME,
+    HosmerLemeshowRecord::NAME,
+    HistoryRow::NAME,
+    RiskPremiumRow::NAME,
+    StabilityRow::NAME,
+    CrossSectionRow::NAME,
+    PsiRecord::NAME,
+    BreakRow::NAME,
+    CurveResidualRow::NAME,
+    TenorResidualRow::NAME,
+    WorstResidualRow::NAME,
+    RepricingShare::NAME,
+    FlagRecord::NAME,
 ];
 
 fn calibration_params(cfg: &RunConfig) -> CalibrationParams {
@@ -291,148 +304,6 @@ pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard, dates: DateRa
     Ok(ShardSummary { part_dir: dir, curves, entities, timings })
 }
 
-/// Finishes a sharded run: reads every part under the run's `.shards` folder, checks that
-/// they are shards 1..N of one N made from this pipeline file, and runs the pooled half of
-/// the pipeline into the run folder.
-pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
-    share_heaps();
-    let t0 = Instant::now();
-    let mut timings = Vec::new();
-    let ds = ingest(cfg, &mut timings)?;
-    let ingest_counts = ds.counts.clone();
-    let period = quote_period(&ds);
-    let label = run_label(cfg, opts, period);
-    let t = Instant::now();
-    let dir = shards_dir(cfg, opts, &label);
-    let (dirs, parts) = read_parts(&dir, &cfg.pipeline_path)?;
-    let mut cal = combine(parts)?;
-    let (rss, peak) = memory_mib();
-    timings.push(("read parts".into(), t.elapsed().as_secs_f64(), rss, peak));
-    let params = calibration_params(cfg);
-    let folder = RunFolder::create(cfg, opts, period)?;
-    let meta = table_metadata(cfg, &params);
-    let multi: BTreeSet<String> = cal.multi_currency.iter().cloned().collect();
-    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)), Some(report_folds(cfg)?), split_tables(cfg, &ds))?;
-    let t = Instant::now();
-    (cal.hazard, cal.residuals) = merge_part_rows(&dirs, &mut sinks)?;
-    let (rss, peak) = memory_mib();
-    timings.push(("merge curves".into(), t.elapsed().as_secs_f64(), rss, peak));
-    finish(cfg, ds, ingest_counts, cal, sinks, &multi, folder, &meta, timings, t0)
-}
-
-fn read_parts(dir: &Path, pipeline: &Path) -> Result<(Vec<PathBuf>, Vec<Partition>)> {
-    let bad = |message: String| Error::Argument { name: "merge", message };
-    let entries = std::fs::read_dir(dir).map_err(|e| bad(format!("no shard parts at {}: {e}; run `hazardline run PIPELINE --shard I/N` for every shard first", dir.display())))?;
-    let mut folders: Vec<PathBuf> = entries
-        .filter_map(|e| e.ok())
-        .map(|e| e.path())
-        .filter(|p| p.is_dir() && p.file_name().is_some_and(|n| n.to_string_lossy().starts_with("part-")))
-        .collect();
-    folders.sort();
-    if folders.is_empty() {
-        return Err(bad(format!("no shard parts in {}", dir.display())));
-    }
-    let (_, sha) = hash_file(pipeline)?;
-    let mut metas = Vec::new();
-    for f in &folders {
-        let m = crate::run::partition::read_meta(f)?;
-        if m.pipeline_sha256 != sha {
-            return Err(bad(format!("{} was made from another version of the pipeline file (SHA-256 {}, this one {sha}); rerun that shard", f.display(), m.pipeline_sha256)));
-        }
-        if m.version != env!("CARGO_PKG_VERSION") {
-            return Err(bad(format!("{} was made by hazardline {}, this is {}; rerun that shard", f.display(), m.version, env!("CARGO_PKG_VERSION"))));
-        }
-        metas.push(m);
-    }
-    let n = metas[0].shards;
-    if let Some(m) = metas.iter().find(|m| m.shards != n) {
-        return Err(bad(format!("{} holds parts of {n} and of {} shards; keep one set", dir.display(), m.shards)));
-    }
-    let mut keyed: Vec<(u32, DateRange, PathBuf)> = Vec::new();
-    for (m, f) in metas.iter().zip(folders) {
-        keyed.push((m.shard, m.range(&f.join("partition.json"))?, f));
-    }
-    // Parts in shard order, each shard's date ranges in date order (an open start first).
-    keyed.sort_by_key(|k| (k.0, k.1.from));
-    let lacking: Vec<String> = (1..=n).filter(|i| !keyed.iter().any(|k| k.0 == *i)).map(|i| format!("{i}/{n}")).collect();
-    if !lacking.is_empty() {
-        return Err(bad(format!("{}: shards {} are missing; run them, then merge", dir.display(), lacking.join(", "))));
-    }
-    for i in 1..=n {
-        let ranges: Vec<DateRange> = keyed.iter().filter(|k| k.0 == i).map(|k| k.1).collect();
-        check_tiling(&ranges).map_err(|m| bad(format!("{}: shard {i}/{n}: {m}", dir.display())))?;
-    }
-    let dirs: Vec<PathBuf> = keyed.into_iter().map(|(_, _, f)| f).collect();
-    let parts = dirs.iter().map(|f| read_partition(f).map(|(_, p)| p)).collect::<Result<Vec<_>>>()?;
-    Ok((dirs, parts))
-}
-
-
-/// The rows of every part, in one canonical order (a curve's rows stay in their order: each
-/// curve is computed in one part; the node and residual rows are ordered by
-/// [`RowSinks::finish`]).
-fn combine(parts: Vec<Partition>) -> Result<Partition> {
-    let mut all = Partition { max_abs_residual_bp: 0.0, ..Default::default() };
-    let mut dates: Vec<(chrono::NaiveDate, chrono::NaiveDate)> = Vec::new();
-    let mut entities = BTreeSet::new();
-    let mut multi = BTreeSet::new();
-    // Vec::append into an empty vector moves nothing but still copies: the first part's
-    // vectors are taken over whole. (The parts' node and residual rows are not here: the
-    // merge streams them, `merge_part_rows`.)
-    fn join<T>(all: &mut Vec<T>, part: &mut Vec<T>) {
-        if all.is_empty() {
-            std::mem::swap(all, part);
-        } else {
-            all.append(part);
-        }
-    }
-    // The market move on an entity's first curve in a date range's part is from its last
-    // curve in an earlier part of the same shard (parts come in shard, then date order).
-    let mut carry: std::collections::HashMap<crate::tables::records::Label, std::collections::BTreeMap<u32, f64>> = Default::default();
-    let mut shard = None;
-    for mut p in parts {
-        if shard != Some(p.shard) {
-            carry.clear();
-            shard = Some(p.shard);
-        }
-        for e in p.edges.iter().filter(|e| !e.last) {
-            if let Some(prev) = carry.get(&e.entity) {
-                all.market.extend(crate::stability::spread_move(&e.entity, e.date, prev, &e.spreads));
-            }
-        }
-        for e in p.edges.drain(..).filter(|e| e.last) {
-            carry.insert(e.entity, e.spreads);
-        }
-        join(&mut all.params, &mut p.params);
-        join(&mut all.basis, &mut p.basis);
-        join(&mut all.discount, &mut p.discount);
-        join(&mut all.rejects, &mut p.rejects);
-        all.curve_obs.append(std::mem::take(&mut p.curve_obs));
-        join(&mut all.market, &mut p.market);
-        for (k, (r, mut v)) in p.members.into_iter().enumerate() {
-            match all.members.get_mut(k) {
-                Some((r0, v0)) if r0.to_bits() == r.to_bits() => v0.append(&mut v),
-                Some((r0, _)) => return Err(Error::Other(format!("parts disagree on the recovery scenarios ({r0} and {r}); rerun every shard with one pipeline file"))),
-                None => all.members.push((r, v)),
-            }
-        }
-        all.curves += p.curves;
-        all.curves_complete += p.curves_complete;
-        all.max_abs_residual_bp = all.max_abs_residual_bp.max(p.max_abs_residual_bp);
-        dates.extend(p.curve_dates);
-        entities.extend(p.curve_entities);
-        multi.extend(p.multi_currency);
-    }
-    all.curve_dates = dates.iter().map(|d| d.0).min().zip(dates.iter().map(|d| d.1).max());
-    all.curve_entities = entities.into_iter().collect();
-    all.multi_currency = multi.into_iter().collect();
-    // The node and residual rows are put in order by the sinks they go to.
-    all.params.sort_by(|a, b| (a.date, &a.entity, &a.currency).cmp(&(b.date, &b.entity, &b.currency)));
-    all.basis.sort_by(|a, b| (a.date, &a.entity, &a.currency).cmp(&(b.date, &b.entity, &b.currency)));
-    all.rejects.sort_by(|a, b| (a.table, &a.source, a.row).cmp(&(b.table, &b.source, b.row)));
-    Ok(all)
-}
-
 /// The pooled half of a run: accounting, backtest, stability, flags, tables, manifest, report.
 /// `sinks` has the CDS rows the per-entity half wrote; the rows `cal` still holds go after.
 #[allow(clippy::too_many_arguments)]
@@ -487,17 +358,17 @@ fn finish(cfg: &RunConfig, mut ds: Dataset, ingest_counts: Vec<TableCounts>, mut
     let t2 = Instant::now();
     let mut rejects = std::mem::take(&mut ds.rejects);
     rejects.extend(cal.rejects.iter().cloned());
-    write_data_quality(&ds.data_quality, &tables.join("data_quality.parquet"), &meta)?;
-    write_rejects(&rejects, &tables.join("rejects.parquet"), &meta)?;
-    write_discount_curves(&cal.discount, &tables.join("discount_curves.parquet"), &meta)?;
-    write_intensity_params(&cal.params, &tables.join("intensity_params.parquet"), &meta)?;
-    write_basis(&cal.basis, &tables.join("cds_bond_basis.parquet"), &meta)?;
+    crate::tables::write(&ds.data_quality, &tables, &meta)?;
+    crate::tables::write(&rejects, &tables, &meta)?;
+    crate::tables::write(&cal.discount, &tables, &meta)?;
+    crate::tables::write(&cal.params, &tables, &meta)?;
+    crate::tables::write(&cal.basis, &tables, &meta)?;
     write_backtest_tables(&backtest, &tables, &meta)?;
     write_stability_tables(&stability, &tables, &meta)?;
-    let mut all_flags = quality_flags(&ds);
-    all_flags.extend(stability.flags.iter().map(|f| AnyFlag { stage: "stability", flag: f.clone(), table: None, source: None, row: None }));
-    let red_flags = all_flags.iter().filter(|f| f.flag.severity == "red").count();
-    write_flags(&all_flags, &tables.join("flags.parquet"), &meta)?;
+    let mut all_flags: Vec<FlagRecord> = ds.flags.iter().map(FlagRecord::quality).collect();
+    all_flags.extend(stability.flags.iter().map(|f| FlagRecord::review(STABILITY, f)));
+    let red_flags = all_flags.iter().filter(|f| f.flag.severity == Severity::Red).count();
+    crate::tables::write(&all_flags, &tables, &meta)?;
     let (rss, peak) = memory_mib();
     timings.push(("write tables".into(), t2.elapsed().as_secs_f64(), rss, peak));
 

@@ -12,7 +12,7 @@ use crate::config::BacktestStage;
 use crate::error::{Error, Result};
 use crate::ingest::Dataset;
 use crate::instruments::CdsQuote;
-use crate::tables::parquet::{write_parquet, TableBuilder};
+use crate::tables::{self, BucketRecord, HosmerLemeshowRecord};
 use chrono::NaiveDate;
 use rayon::prelude::*;
 use std::collections::{BTreeMap, BTreeSet};
@@ -250,87 +250,12 @@ pub fn backtest_from_members(mut members: Vec<(f64, Vec<backtest::Observation>)>
 /// Writes `backtest_buckets`, `backtest_hosmer_lemeshow`, `risk_premia` and (with a cohort
 /// history) `backtest_history`. Bucket and premium rows of every recovery scenario are in the
 /// same tables, told apart by their `recovery` column.
-pub fn write_backtest_tables(r: &BacktestResults, tables: &Path, meta: &[(String, String)]) -> Result<()> {
-    let rows: Vec<(f64, &backtest::BucketRow)> = r.outputs.iter().flat_map(|o| o.buckets.iter().map(move |b| (o.recovery, b))).collect();
-    let mut df = TableBuilder::new()
-        .strings("cohort", rows.iter().map(|(_, b)| Some(&b.cohort)))
-        .ints("horizon", rows.iter().map(|(_, b)| Some(b.horizon_years as i64)))
-        .strings("bucket", rows.iter().map(|(_, b)| Some(&b.bucket)))
-        .floats("level", rows.iter().map(|(_, b)| Some(b.level)))
-        .floats("recovery", rows.iter().map(|(r, _)| Some(*r)))
-        .ints("n", rows.iter().map(|(_, b)| Some(b.n as i64)))
-        .ints("defaults", rows.iter().map(|(_, b)| Some(b.defaults as i64)))
-        .ints("n_censored", rows.iter().map(|(_, b)| Some(b.n_censored as i64)))
-        .floats("realised_rate", rows.iter().map(|(_, b)| b.realised_rate))
-        .floats("implied_pd", rows.iter().map(|(_, b)| b.implied_pd))
-        .floats("cp_lo", rows.iter().map(|(_, b)| b.cp_lo))
-        .floats("cp_hi", rows.iter().map(|(_, b)| b.cp_hi))
-        .floats("jeffreys_lo", rows.iter().map(|(_, b)| b.jeffreys_lo))
-        .floats("jeffreys_hi", rows.iter().map(|(_, b)| b.jeffreys_hi))
-        .floats("wilson_lo", rows.iter().map(|(_, b)| b.wilson_lo))
-        .floats("wilson_hi", rows.iter().map(|(_, b)| b.wilson_hi))
-        .floats("p_binom_upper", rows.iter().map(|(_, b)| b.p_binom_upper))
-        .floats("p_binom_lower", rows.iter().map(|(_, b)| b.p_binom_lower))
-        .floats("p_jeffreys", rows.iter().map(|(_, b)| b.p_jeffreys))
-        .strings("zone", rows.iter().map(|(_, b)| b.zone.map(|z| z.as_str())))
-        .strings("outcome_source", rows.iter().map(|(_, b)| Some(b.outcome_source)))
-        .finish()?;
-    write_parquet(&mut df, &tables.join("backtest_buckets.parquet"), meta)?;
-
-    let hl: Vec<(f64, &backtest::HosmerLemeshowRow)> = r.outputs.iter().flat_map(|o| o.hosmer_lemeshow.iter().map(move |b| (o.recovery, b))).collect();
-    let mut df = TableBuilder::new()
-        .strings("cohort", hl.iter().map(|(_, b)| Some(&b.cohort)))
-        .ints("horizon", hl.iter().map(|(_, b)| Some(b.horizon_years as i64)))
-        .floats("recovery", hl.iter().map(|(r, _)| Some(*r)))
-        .ints("buckets", hl.iter().map(|(_, b)| Some(b.buckets as i64)))
-        .floats("statistic", hl.iter().map(|(_, b)| b.statistic))
-        .floats("p_value", hl.iter().map(|(_, b)| b.p_value))
-        .strings("note", hl.iter().map(|(_, b)| b.note.as_ref()))
-        .finish()?;
-    write_parquet(&mut df, &tables.join("backtest_hosmer_lemeshow.parquet"), meta)?;
-
-    let rp: Vec<&backtest::RiskPremiumRow> = r.outputs.iter().flat_map(|o| o.risk_premia.iter()).collect();
-    let mut df = TableBuilder::new()
-        .strings("cohort", rp.iter().map(|b| Some(&b.cohort)))
-        .strings("bucket", rp.iter().map(|b| Some(&b.bucket)))
-        .ints("horizon", rp.iter().map(|b| Some(b.horizon_years as i64)))
-        .floats("level", rp.iter().map(|b| Some(b.level)))
-        .floats("recovery", rp.iter().map(|b| Some(b.recovery)))
-        .ints("members", rp.iter().map(|b| Some(b.members as i64)))
-        .floats("exposure_years", rp.iter().map(|b| Some(b.exposure_years)))
-        .ints("defaults", rp.iter().map(|b| Some(b.defaults as i64)))
-        .floats("lambda_p", rp.iter().map(|b| b.lambda_p))
-        .floats("lambda_p_lo", rp.iter().map(|b| b.lambda_p_lo))
-        .floats("lambda_p_hi", rp.iter().map(|b| b.lambda_p_hi))
-        .floats("lambda_q", rp.iter().map(|b| b.lambda_q))
-        .floats("ratio", rp.iter().map(|b| b.ratio))
-        .floats("ratio_lo", rp.iter().map(|b| b.ratio_lo))
-        .floats("ratio_hi", rp.iter().map(|b| b.ratio_hi))
-        .floats("spread_bp", rp.iter().map(|b| b.spread_bp))
-        .ints("spread_quotes", rp.iter().map(|b| Some(b.spread_quotes as i64)))
-        .floats("el_spread_bp", rp.iter().map(|b| b.el_spread_bp))
-        .floats("premium_spread_bp", rp.iter().map(|b| b.premium_spread_bp))
-        .finish()?;
-    write_parquet(&mut df, &tables.join("risk_premia.parquet"), meta)?;
-
-    let h = &r.history;
-    let mut df = TableBuilder::new()
-        .strings("cohort", h.iter().map(|b| Some(&b.cohort)))
-        .ints("grade", h.iter().map(|b| Some(b.grade as i64)))
-        .floats("level", h.iter().map(|b| Some(b.level)))
-        .ints("obligors", h.iter().map(|b| Some(b.obligors as i64)))
-        .ints("defaults", h.iter().map(|b| Some(b.defaults as i64)))
-        .ints("withdrawn", h.iter().map(|b| b.withdrawn.map(|x| x as i64)))
-        .floats("realised_rate", h.iter().map(|b| Some(b.realised_rate)))
-        .floats("cp_lo", h.iter().map(|b| Some(b.cp_lo)))
-        .floats("cp_hi", h.iter().map(|b| Some(b.cp_hi)))
-        .floats("jeffreys_lo", h.iter().map(|b| Some(b.jeffreys_lo)))
-        .floats("jeffreys_hi", h.iter().map(|b| Some(b.jeffreys_hi)))
-        .floats("implied_pd", h.iter().map(|b| b.implied_pd))
-        .floats("p_binom_upper", h.iter().map(|b| b.p_binom_upper))
-        .floats("p_jeffreys", h.iter().map(|b| b.p_jeffreys))
-        .strings("zone", h.iter().map(|b| b.zone.map(|z| z.as_str())))
-        .strings("outcome_source", h.iter().map(|b| Some(b.outcome_source)))
-        .finish()?;
-    write_parquet(&mut df, &tables.join("backtest_history.parquet"), meta)
+pub fn write_backtest_tables(r: &BacktestResults, dir: &Path, meta: &[(String, String)]) -> Result<()> {
+    let buckets: Vec<BucketRecord> = r.outputs.iter().flat_map(|o| o.buckets.iter().map(move |b| BucketRecord { recovery: o.recovery, row: b.clone() })).collect();
+    tables::write(&buckets, dir, meta)?;
+    let hl: Vec<HosmerLemeshowRecord> = r.outputs.iter().flat_map(|o| o.hosmer_lemeshow.iter().map(move |b| HosmerLemeshowRecord { recovery: o.recovery, row: b.clone() })).collect();
+    tables::write(&hl, dir, meta)?;
+    let rp: Vec<backtest::RiskPremiumRow> = r.outputs.iter().flat_map(|o| o.risk_premia.iter().cloned()).collect();
+    tables::write(&rp, dir, meta)?;
+    tables::write(&r.history, dir, meta)
 }

@@ -16,11 +16,12 @@ use crate::error::{Error, Result};
 use crate::ingest::cds::{self, CdsPanel, CdsQuoteRow};
 use crate::ingest::discount::{self, DiscountRow};
 use crate::ingest::{QualitySettings, Reject};
-use crate::tables::records::DiscountCurveRow;
+use crate::tables::DiscountCurveRow;
 use crate::instruments::AccrualIntegration;
-use crate::tables::records::{
+use crate::tables::{
     tenor_label, HazardCurveRow, Label, ResidualRow,
 };
+use crate::text::{CurveSource, FitMethod};
 use crate::time::{Calendar, Tenor};
 use chrono::NaiveDate;
 use rayon::prelude::*;
@@ -147,7 +148,7 @@ fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, 
             date,
             entity: entity_label.clone(),
             currency: currency_label.clone(),
-            source: "cds",
+            source: CurveSource::Cds,
             tenor: tenor_label(n.tenor),
             maturity: n.maturity,
             node_date: n.node_date,
@@ -165,7 +166,7 @@ fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, 
             date,
             entity: entity_label.clone(),
             currency: currency_label.clone(),
-            method: "bootstrap",
+            method: FitMethod::Bootstrap,
             instrument: q.instrument,
             tenor_or_bond: tenor_label(q.tenor),
             market: q.market,

@@ -21,7 +21,8 @@ use crate::ingest::tables::{BondRow, Provenance, BOND_QUOTES};
 use crate::ingest::{Dataset, Reject};
 use crate::instruments::bond::BondTerms;
 use crate::models::cir::CirParams;
-use crate::tables::records::{BasisRow, HazardCurveRow, IntensityParamRow, ResidualRow};
+use crate::tables::{BasisRow, HazardCurveRow, IntensityParamRow, ResidualRow};
+use crate::text::{CurveSource, FitMethod};
 use chrono::NaiveDate;
 use rayon::prelude::*;
 use std::collections::{BTreeMap, HashMap};
@@ -113,7 +114,7 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
             date: g.date,
             entity: g.entity.into(),
             currency: g.currency.into(),
-            source: "bond",
+            source: CurveSource::Bond,
             tenor: if ids.is_empty() { n.maturity.to_string().into() } else { ids.join("+").into() },
             maturity: n.maturity,
             node_date: n.maturity,
@@ -130,7 +131,7 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
             date: g.date,
             entity: g.entity.into(),
             currency: g.currency.into(),
-            method: "bond_fit",
+            method: FitMethod::BondFit,
             instrument: "bond_price",
             tenor_or_bond: g.quotes[r.quote_index].0.bond.as_str().into(),
             market: r.market_clean,
@@ -214,9 +215,9 @@ fn cir_residuals(date: NaiveDate, entity: &str, currency: &str, f: &CirFit) -> V
             date,
             entity: entity.into(),
             currency: currency.into(),
-            method: "cir",
+            method: FitMethod::Cir,
             instrument: q.instrument,
-            tenor_or_bond: crate::tables::records::tenor_label(q.tenor),
+            tenor_or_bond: crate::tables::tenor_label(q.tenor),
             market: q.market,
             model: q.model,
             residual_bp: q.residual_bp,

@@ -4,10 +4,10 @@
 use crate::stages::calibrate::CdsCurve;
 use crate::error::Result;
 use crate::ingest::Dataset;
-use crate::tables::parquet::{write_parquet, TableBuilder};
-use crate::tables::records::{HazardCurveRow, IntensityParamRow, ResidualRow};
+use crate::tables::{self, review::PsiRecord};
+use crate::tables::{HazardCurveRow, IntensityParamRow, ResidualRow};
 use crate::backtest::GradeBook;
-use crate::stability::{self, spread_move, SpreadEdge, CalibrationCounts, FlagRow, MarketMove, PanelBuilder, ResidualAnalysis, ResidualObservation, ResidualReview, StabilityOutput, StabilitySettings};
+use crate::stability::{self, spread_move, SpreadEdge, CalibrationCounts, MarketMove, PanelBuilder, ResidualAnalysis, ResidualObservation, ResidualReview, StabilityOutput, StabilitySettings};
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::Path;
@@ -188,7 +188,7 @@ impl<'a> RowDigest<'a> {
     /// counted together and recorded once per curve (a curve met again later is merged with
     /// what it had at [`RowDigest::finish`]).
     pub fn nodes(&mut self, hazard: &[HazardCurveRow]) {
-        for r in hazard.iter().filter(|r| r.source == "cds") {
+        for r in hazard.iter().filter(|r| r.source == crate::text::CurveSource::Cds) {
             let entity = self.labels.entity_of(self.multi, &r.entity, &r.currency);
             let same = self.run.as_ref().is_some_and(|(e, (d, _, _))| *d == r.date && Arc::ptr_eq(e, &entity));
             if !same {
@@ -217,7 +217,7 @@ impl<'a> RowDigest<'a> {
         for r in residuals {
             let (labels, fixed) = (&mut self.labels, &mut self.fixed);
             let mut get = |v: &'static str| fixed.entry((v.as_ptr() as usize, v.len())).or_insert_with(|| labels.get(v)).clone();
-            let (method, instrument) = (get(r.method), get(r.instrument));
+            let (method, instrument) = (get(r.method.as_str()), get(r.instrument));
             let o = ResidualObservation {
                 date: r.date,
                 entity: self.labels.entity_of(self.multi, &r.entity, &r.currency),
@@ -283,186 +283,14 @@ pub fn run_stability(inputs: StabilityInputs, settings: &StabilitySettings) -> R
 
 /// Writes `stability`, `stability_bands`, `stability_psi`, `stability_breaks`,
 /// `residual_curves`, `residual_tenors`, `residual_worst` and `residual_repricing`.
-pub fn write_stability_tables(out: &StabilityOutput, tables: &Path, meta: &[(String, String)]) -> Result<()> {
-    let rows = &out.series.rows;
-    let u = |v: Option<usize>| v.map(|x| x as i64);
-    let mut df = TableBuilder::new()
-        .strings("period", rows.iter().map(|r| Some(&r.period)))
-        .strings("series", rows.iter().map(|r| Some(&r.series)))
-        .strings("scope", rows.iter().map(|r| Some(r.scope.as_str())))
-        .strings("key", rows.iter().map(|r| Some(&r.key)))
-        .ints("n", rows.iter().map(|r| Some(r.n as i64)))
-        .floats("mean", rows.iter().map(|r| r.mean))
-        .floats("sd", rows.iter().map(|r| r.sd))
-        .floats("cv", rows.iter().map(|r| r.cv))
-        .floats("median", rows.iter().map(|r| r.median))
-        .floats("p10", rows.iter().map(|r| r.p10))
-        .floats("p90", rows.iter().map(|r| r.p90))
-        .ints("moves", rows.iter().map(|r| u(r.moves)))
-        .floats("max_abs_move", rows.iter().map(|r| r.max_abs_move))
-        .dates("max_move_date", rows.iter().map(|r| r.max_move_date))
-        .floats("large_move_share", rows.iter().map(|r| r.large_move_share))
-        .floats("param_rel_move", rows.iter().map(|r| r.param_rel_move))
-        .floats("market_rel_move", rows.iter().map(|r| r.market_rel_move))
-        .floats("move_ratio", rows.iter().map(|r| r.move_ratio))
-        .ints("failures", rows.iter().map(|r| r.failures.map(|x| x as i64)))
-        .ints("infeasible", rows.iter().map(|r| r.infeasible.map(|x| x as i64)))
-        .floats("mean_change", rows.iter().map(|r| r.mean_change))
-        .floats("median_change", rows.iter().map(|r| r.median_change))
-        .finish()?;
-    write_parquet(&mut df, &tables.join("stability.parquet"), meta)?;
-
-    let b = &out.series.cross_section;
-    let mut df = TableBuilder::new()
-        .dates("date", b.iter().map(|r| Some(r.date)))
-        .strings("period", b.iter().map(|r| Some(&r.period)))
-        .strings("series", b.iter().map(|r| Some(&r.series)))
-        .strings("scope", b.iter().map(|r| Some(r.scope.as_str())))
-        .strings("key", b.iter().map(|r| Some(&r.key)))
-        .ints("n", b.iter().map(|r| Some(r.n as i64)))
-        .floats("p10", b.iter().map(|r| Some(r.p10)))
-        .floats("p50", b.iter().map(|r| Some(r.p50)))
-        .floats("p90", b.iter().map(|r| Some(r.p90)))
-        .finish()?;
-    write_parquet(&mut df, &tables.join("stability_bands.parquet"), meta)?;
-
-    let p = &out.series.psi;
-    let mut df = TableBuilder::new()
-        .strings("series", p.iter().map(|r| Some(&r.series)))
-        .strings("period", p.iter().map(|r| Some(&r.period)))
-        .strings("previous_period", p.iter().map(|r| Some(&r.previous_period)))
-        .ints("n_previous", p.iter().map(|r| Some(r.n_previous as i64)))
-        .ints("n_current", p.iter().map(|r| Some(r.n_current as i64)))
-        .floats("psi", p.iter().map(|r| r.psi))
-        .ints("buckets", p.iter().map(|r| Some(r.buckets.len() as i64)))
-        .finish()?;
-    write_parquet(&mut df, &tables.join("stability_psi.parquet"), meta)?;
-
-    let k = &out.series.breaks;
-    let mut df = TableBuilder::new()
-        .strings("entity", k.iter().map(|r| Some(&r.entity)))
-        .strings("series", k.iter().map(|r| Some(&r.series)))
-        .strings("window", k.iter().map(|r| Some(&r.window)))
-        .strings("target", k.iter().map(|r| Some(r.target)))
-        .ints("n", k.iter().map(|r| Some(r.n as i64)))
-        .strings("status", k.iter().map(|r| Some(r.status.as_str())))
-        .floats("sigma", k.iter().map(|r| r.sigma))
-        .floats("max_ratio", k.iter().map(|r| r.max_ratio))
-        .dates("crossed_at", k.iter().map(|r| r.crossed_at))
-        .dates("crossed_at_1pct", k.iter().map(|r| r.crossed_at_1pct))
-        .floats("ols_statistic", k.iter().map(|r| r.ols_statistic))
-        .finish()?;
-    write_parquet(&mut df, &tables.join("stability_breaks.parquet"), meta)?;
-
-    let c = &out.residuals.curves;
-    let mut df = TableBuilder::new()
-        .dates("date", c.iter().map(|r| Some(r.date)))
-        .strings("entity", c.iter().map(|r| Some(&r.entity)))
-        .strings("method", c.iter().map(|r| Some(&r.method)))
-        .ints("n", c.iter().map(|r| Some(r.n as i64)))
-        .floats("rmse_bp", c.iter().map(|r| Some(r.rmse_bp)))
-        .floats("max_abs_bp", c.iter().map(|r| Some(r.max_abs_bp)))
-        .strings("worst_tenor", c.iter().map(|r| Some(&r.worst_tenor)))
-        .bools("converged", c.iter().map(|r| Some(r.converged)))
-        .bools("reprices", c.iter().map(|r| Some(r.reprices)))
-        .finish()?;
-    write_parquet(&mut df, &tables.join("residual_curves.parquet"), meta)?;
-
-    let t = &out.residuals.tenors;
-    let mut df = TableBuilder::new()
-        .strings("method", t.iter().map(|r| Some(&r.method)))
-        .strings("tenor", t.iter().map(|r| Some(&r.tenor)))
-        .ints("n", t.iter().map(|r| Some(r.n as i64)))
-        .floats("q01", t.iter().map(|r| Some(r.q01)))
-        .floats("q05", t.iter().map(|r| Some(r.q05)))
-        .floats("q50", t.iter().map(|r| Some(r.q50)))
-        .floats("q95", t.iter().map(|r| Some(r.q95)))
-        .floats("q99", t.iter().map(|r| Some(r.q99)))
-        .floats("abs_q01", t.iter().map(|r| Some(r.abs_q01)))
-        .floats("abs_q05", t.iter().map(|r| Some(r.abs_q05)))
-        .floats("abs_q50", t.iter().map(|r| Some(r.abs_q50)))
-        .floats("abs_q95", t.iter().map(|r| Some(r.abs_q95)))
-        .floats("abs_q99", t.iter().map(|r| Some(r.abs_q99)))
-        .finish()?;
-    write_parquet(&mut df, &tables.join("residual_tenors.parquet"), meta)?;
-
-    let w = &out.residuals.worst;
-    let mut df = TableBuilder::new()
-        .ints("rank", w.iter().map(|r| Some(r.rank as i64)))
-        .dates("date", w.iter().map(|r| Some(r.residual.date)))
-        .strings("entity", w.iter().map(|r| Some(&r.residual.entity)))
-        .strings("method", w.iter().map(|r| Some(&r.residual.method)))
-        .strings("instrument", w.iter().map(|r| Some(&r.residual.instrument)))
-        .strings("tenor_or_bond", w.iter().map(|r| Some(&r.residual.tenor)))
-        .floats("market", w.iter().map(|r| Some(r.residual.market)))
-        .floats("model", w.iter().map(|r| Some(r.residual.model)))
-        .floats("residual_bp", w.iter().map(|r| Some(r.residual.residual_bp)))
-        .bools("converged", w.iter().map(|r| Some(r.residual.converged)))
-        .finish()?;
-    write_parquet(&mut df, &tables.join("residual_worst.parquet"), meta)?;
-
-    let s = &out.residuals.repricing;
-    let mut df = TableBuilder::new()
-        .strings("method", s.iter().map(|r| Some(&r.method)))
-        .ints("curves", s.iter().map(|r| Some(r.curves as i64)))
-        .ints("repricing", s.iter().map(|r| Some(r.repricing as i64)))
-        .floats("share", s.iter().map(|r| Some(r.share)))
-        .floats("tolerance_bp", s.iter().map(|r| Some(r.tolerance_bp)))
-        .finish()?;
-    write_parquet(&mut df, &tables.join("residual_repricing.parquet"), meta)
-}
-
-/// A flag of any stage, in the shape of the `flags` table.
-#[derive(Debug, Clone, PartialEq)]
-pub struct AnyFlag {
-    pub stage: &'static str,
-    pub flag: FlagRow,
-    pub table: Option<String>,
-    pub source: Option<String>,
-    pub row: Option<u64>,
-}
-
-/// Writes the `flags` table: data-quality flags (with their source file and row) and the
-/// review stages' flags, red first within each stage.
-pub fn write_flags(flags: &[AnyFlag], path: &Path, meta: &[(String, String)]) -> Result<()> {
-    let mut df = TableBuilder::new()
-        .strings("rule", flags.iter().map(|r| Some(&r.flag.rule)))
-        .strings("severity", flags.iter().map(|r| Some(&r.flag.severity)))
-        .strings("entity", flags.iter().map(|r| r.flag.entity.as_ref()))
-        .strings("series", flags.iter().map(|r| Some(&r.flag.series)))
-        .strings("period", flags.iter().map(|r| Some(&r.flag.period)))
-        .dates("date", flags.iter().map(|r| r.flag.date))
-        .floats("value", flags.iter().map(|r| Some(r.flag.value)))
-        .floats("threshold", flags.iter().map(|r| Some(r.flag.threshold)))
-        .strings("explanation", flags.iter().map(|r| Some(&r.flag.explanation)))
-        .strings("stage", flags.iter().map(|r| Some(r.stage)))
-        .strings("table", flags.iter().map(|r| r.table.as_ref()))
-        .strings("source", flags.iter().map(|r| r.source.as_ref()))
-        .ints("row", flags.iter().map(|r| r.row.map(|x| x as i64)))
-        .finish()?;
-    write_parquet(&mut df, path, meta)
-}
-
-/// The data-quality flags in the common shape.
-pub fn quality_flags(ds: &Dataset) -> Vec<AnyFlag> {
-    ds.flags
-        .iter()
-        .map(|f| AnyFlag {
-            stage: "data_quality",
-            flag: FlagRow {
-                rule: f.rule.to_string(),
-                severity: f.severity.to_string(),
-                entity: Some(f.entity.clone()),
-                series: f.series.clone(),
-                period: f.date.to_string(),
-                date: Some(f.date),
-                value: f.value,
-                threshold: f.threshold,
-                explanation: f.explanation.clone(),
-            },
-            table: Some(f.table.to_string()),
-            source: Some(f.source.clone()),
-            row: Some(f.row),
-        })
-        .collect()
+pub fn write_stability_tables(out: &StabilityOutput, dir: &Path, meta: &[(String, String)]) -> Result<()> {
+    tables::write(&out.series.rows, dir, meta)?;
+    tables::write(&out.series.cross_section, dir, meta)?;
+    let psi: Vec<PsiRecord> = out.series.psi.iter().map(PsiRecord::from).collect();
+    tables::write(&psi, dir, meta)?;
+    tables::write(&out.series.breaks, dir, meta)?;
+    tables::write(&out.residuals.curves, dir, meta)?;
+    tables::write(&out.residuals.tenors, dir, meta)?;
+    tables::write(&out.residuals.worst, dir, meta)?;
+    tables::write(&out.residuals.repricing, dir, meta)
 }

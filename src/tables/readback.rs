@@ -1,7 +1,10 @@
 //! Reading the run's own tables back from Parquet, so that the report is always rendered
-//! from exactly what was written (and `hazardline report RUN_DIR` can re-render it later).
+//! from exactly what was written (and `hazardline report RUN_DIR` can re-render it later):
+//! whole frames, a table's files (one file or a folder by year), slices and row cursors of the
+//! large tables, and typed cells of a column. The tables' own readers (in their homes) are
+//! built on these.
 
-use super::records::{BasisRow, DiscountCurveRow, HazardCurveRow, IntensityParamRow, Label, ResidualRow};
+use super::curves::Label;
 use crate::error::{Error, Result};
 use chrono::NaiveDate;
 use polars::prelude::*;
@@ -77,7 +80,7 @@ pub fn dates(df: &DataFrame, path: &Path, name: &str) -> Result<Vec<Option<Naive
 
 /// A text column of a few fixed values (statuses, methods) as `'static` labels, without a
 /// string built per cell (see [`label`]).
-fn fixed_labels(df: &DataFrame, path: &Path, name: &str, known: &[&'static str]) -> Result<Vec<&'static str>> {
+pub(crate) fn fixed_labels(df: &DataFrame, path: &Path, name: &str, known: &[&'static str]) -> Result<Vec<&'static str>> {
     let c = df.column(name).map_err(|e| err(path, name, e))?;
     Ok(c.str().map_err(|e| err(path, name, e))?.iter().map(|v| label(v.unwrap_or(""), known)).collect())
 }
@@ -99,33 +102,6 @@ pub fn intern(v: &str) -> &'static str {
     let s: &'static str = Box::leak(v.to_string().into_boxed_str());
     seen.insert(s);
     s
-}
-
-/// Reads a rejects table back.
-pub fn rejects(path: &Path) -> Result<Vec<crate::ingest::Reject>> {
-    let df = read_frame(path)?;
-    let (t, mut s, r, d, mut e, mut k, re, mut de) = (
-        strs(&df, path, "table")?,
-        strs(&df, path, "source")?,
-        ints(&df, path, "row")?,
-        dates(&df, path, "date")?,
-        strs(&df, path, "entity")?,
-        strs(&df, path, "key")?,
-        strs(&df, path, "reason")?,
-        strs(&df, path, "detail")?,
-    );
-    Ok((0..df.height())
-        .map(|i| crate::ingest::Reject {
-            table: label(t[i].as_deref().unwrap_or(""), &crate::ingest::load::INPUT_TABLES),
-            source: s[i].take().unwrap_or_default(),
-            row: r[i].unwrap_or_default() as u64,
-            reason: intern(re[i].as_deref().unwrap_or("")),
-            detail: de[i].take().unwrap_or_default(),
-            date: d[i],
-            entity: e[i].take(),
-            key: k[i].take().unwrap_or_default(),
-        })
-        .collect())
 }
 
 pub const STATUSES: &[&str] = &["ok", "floored", "infeasible", "failed", "curve_failed", "not_calibrated", "at_upper_bound", "max_iterations"];
@@ -246,249 +222,17 @@ impl<T> RowCursor<T> {
     }
 }
 
-/// A hazard_curves table's rows, read as they are asked for.
-pub fn hazard_cursor(path: &Path) -> Result<RowCursor<HazardCurveRow>> {
-    RowCursor::open(path, hazard_rows)
+/// A table's rows, read [`SLICE_ROWS`] at a time as they are asked for.
+pub fn cursor<T: super::Table>(path: &Path) -> Result<RowCursor<T>> {
+    RowCursor::open(path, super::rows_of::<T>)
 }
 
-/// A calibration_residuals table's rows, read as they are asked for.
-pub fn residual_cursor(path: &Path) -> Result<RowCursor<ResidualRow>> {
-    RowCursor::open(path, residual_rows)
-}
-
-/// Reads a hazard_curves table back.
-pub fn hazard_curves(path: &Path) -> Result<Vec<HazardCurveRow>> {
-    hazard_rows(&read_frame(path)?, path)
-}
-
-/// Calls `f` with the rows of consecutive slices of a hazard_curves table, in table order.
-pub fn hazard_curve_slices(path: &Path, mut f: impl FnMut(Vec<HazardCurveRow>) -> Result<()>) -> Result<()> {
-    for_each_slice(path, |df| f(hazard_rows(df, path)?))
-}
-
-/// Calls `f` with the rows of consecutive slices of a calibration_residuals table, in table order.
-pub fn residual_slices(path: &Path, mut f: impl FnMut(Vec<ResidualRow>) -> Result<()>) -> Result<()> {
-    for_each_slice(path, |df| f(residual_rows(df, path)?))
-}
-
-fn hazard_rows(df: &DataFrame, path: &Path) -> Result<Vec<HazardCurveRow>> {
-    let (d, e, c, src, t, m, nd, h, s, st, r, it, mut de) = (
-        dates(df, path, "date")?,
-        labels(df, path, "entity")?,
-        labels(df, path, "currency")?,
-        fixed_labels(df, path, "source", &["cds", "bond"])?,
-        labels(df, path, "tenor")?,
-        dates(df, path, "maturity")?,
-        dates(df, path, "node_date")?,
-        floats(df, path, "hazard")?,
-        floats(df, path, "survival")?,
-        fixed_labels(df, path, "status", STATUSES)?,
-        floats(df, path, "recovery")?,
-        ints(df, path, "iterations")?,
-        strs(df, path, "detail")?,
-    );
-    Ok((0..df.height())
-        .map(|i| HazardCurveRow {
-            date: d[i].unwrap_or_default(),
-            entity: e[i].clone(),
-            currency: c[i].clone(),
-            source: src[i],
-            tenor: t[i].clone(),
-            maturity: m[i].unwrap_or_default(),
-            node_date: nd[i].unwrap_or_default(),
-            hazard: h[i],
-            survival: s[i],
-            status: st[i],
-            recovery: r[i].unwrap_or(f64::NAN),
-            iterations: it[i].unwrap_or(0),
-            detail: de[i].take(),
-        })
-        .collect())
-}
-
-/// Reads a calibration_residuals table back.
-pub fn residuals(path: &Path) -> Result<Vec<ResidualRow>> {
-    residual_rows(&read_frame(path)?, path)
-}
-
-fn residual_rows(df: &DataFrame, path: &Path) -> Result<Vec<ResidualRow>> {
-    let (d, e, c, me, ins, t, mk, mo, r, st) = (
-        dates(df, path, "date")?,
-        labels(df, path, "entity")?,
-        labels(df, path, "currency")?,
-        fixed_labels(df, path, "method", &["bootstrap", "bond_fit", "cir"])?,
-        fixed_labels(df, path, "instrument", &["cds_par_spread", "cds_upfront", "bond_price"])?,
-        labels(df, path, "tenor_or_bond")?,
-        floats(df, path, "market")?,
-        floats(df, path, "model")?,
-        floats(df, path, "residual_bp")?,
-        fixed_labels(df, path, "status", STATUSES)?,
-    );
-    Ok((0..df.height())
-        .map(|i| ResidualRow {
-            date: d[i].unwrap_or_default(),
-            entity: e[i].clone(),
-            currency: c[i].clone(),
-            method: me[i],
-            instrument: ins[i],
-            tenor_or_bond: t[i].clone(),
-            market: mk[i].unwrap_or(f64::NAN),
-            model: mo[i].unwrap_or(f64::NAN),
-            residual_bp: r[i].unwrap_or(f64::NAN),
-            status: st[i],
-        })
-        .collect())
-}
-
-pub fn discount_curves(path: &Path) -> Result<Vec<DiscountCurveRow>> {
-    let df = read_frame(path)?;
-    let (d, mut c, p, z, f) = (
-        dates(&df, path, "date")?,
-        strs(&df, path, "currency")?,
-        dates(&df, path, "pillar_date")?,
-        floats(&df, path, "zero_rate")?,
-        floats(&df, path, "discount_factor")?,
-    );
-    Ok((0..df.height())
-        .map(|i| DiscountCurveRow {
-            date: d[i].unwrap_or_default(),
-            currency: c[i].take().unwrap_or_default(),
-            pillar_date: p[i].unwrap_or_default(),
-            zero_rate: z[i].unwrap_or(f64::NAN),
-            discount_factor: f[i].unwrap_or(f64::NAN),
-        })
-        .collect())
-}
-
-/// (rule, severity, entity, series, date, value, threshold, explanation, stage, period) of the
-/// flags table.
-pub type FlagRecord = (String, String, String, String, Option<NaiveDate>, f64, f64, String, String, String);
-
-pub fn flags(path: &Path) -> Result<Vec<FlagRecord>> {
-    let df = read_frame(path)?;
-    let (mut r, mut s, mut e, mut se, d, v, t, mut x) = (
-        strs(&df, path, "rule")?,
-        strs(&df, path, "severity")?,
-        strs(&df, path, "entity")?,
-        strs(&df, path, "series")?,
-        dates(&df, path, "date")?,
-        floats(&df, path, "value")?,
-        floats(&df, path, "threshold")?,
-        strs(&df, path, "explanation")?,
-    );
-    let stage = if df.get_column_names().iter().any(|c| c.as_str() == "stage") { strs(&df, path, "stage")? } else { vec![Some("data_quality".to_string()); df.height()] };
-    let period = strs(&df, path, "period")?;
-    Ok((0..df.height())
-        .map(|i| {
-            (
-                r[i].take().unwrap_or_default(),
-                s[i].take().unwrap_or_default(),
-                e[i].take().unwrap_or_default(),
-                se[i].take().unwrap_or_default(),
-                d[i],
-                v[i].unwrap_or(f64::NAN),
-                t[i].unwrap_or(f64::NAN),
-                x[i].take().unwrap_or_default(),
-                stage[i].clone().unwrap_or_default(),
-                period[i].clone().unwrap_or_default(),
-            )
-        })
-        .collect())
-}
-
-/// (table, reason, count) of the rejects table, most frequent first.
-pub fn reject_reasons(path: &Path) -> Result<Vec<(String, String, usize)>> {
-    let df = read_frame(path)?;
-    let (mut t, mut r) = (strs(&df, path, "table")?, strs(&df, path, "reason")?);
-    let mut m: std::collections::BTreeMap<(String, String), usize> = Default::default();
-    for i in 0..df.height() {
-        *m.entry((t[i].take().unwrap_or_default(), r[i].take().unwrap_or_default())).or_default() += 1;
-    }
-    let mut v: Vec<(String, String, usize)> = m.into_iter().map(|((a, b), c)| (a, b, c)).collect();
-    v.sort_by(|a, b| b.2.cmp(&a.2).then(a.0.cmp(&b.0)).then(a.1.cmp(&b.1)));
-    Ok(v)
+/// Calls `f` with the rows of consecutive slices of a table, in table order.
+pub fn slices<T: super::Table>(path: &Path, mut f: impl FnMut(Vec<T>) -> Result<()>) -> Result<()> {
+    for_each_slice(path, |df| f(super::rows_of::<T>(df, path)?))
 }
 
 pub fn bools(df: &DataFrame, path: &Path, name: &str) -> Result<Vec<Option<bool>>> {
     let c = df.column(name).map_err(|e| err(path, name, e))?;
     Ok(c.bool().map_err(|e| err(path, name, e))?.iter().collect())
-}
-
-/// The intensity_params table; empty when the run folder has none (runs before the CIR fit).
-pub fn intensity_params(path: &Path) -> Result<Vec<IntensityParamRow>> {
-    if !path.exists() {
-        return Ok(Vec::new());
-    }
-    let df = read_frame(path)?;
-    let (d, mut e, mut c, mo, k, th, sg, l0, rm, fe, st, it, ev, mut de) = (
-        dates(&df, path, "date")?,
-        strs(&df, path, "entity")?,
-        strs(&df, path, "currency")?,
-        strs(&df, path, "mode")?,
-        floats(&df, path, "kappa")?,
-        floats(&df, path, "theta")?,
-        floats(&df, path, "sigma")?,
-        floats(&df, path, "lambda0")?,
-        floats(&df, path, "rmse_bp")?,
-        bools(&df, path, "feller")?,
-        strs(&df, path, "status")?,
-        ints(&df, path, "iterations")?,
-        ints(&df, path, "evaluations")?,
-        strs(&df, path, "detail")?,
-    );
-    Ok((0..df.height())
-        .map(|i| IntensityParamRow {
-            date: d[i].unwrap_or_default(),
-            entity: e[i].take().unwrap_or_default(),
-            currency: c[i].take().unwrap_or_default(),
-            mode: label(mo[i].as_deref().unwrap_or(""), &["free", "fixed_kappa_sigma"]),
-            kappa: k[i],
-            theta: th[i],
-            sigma: sg[i],
-            lambda0: l0[i],
-            rmse_bp: rm[i],
-            feller: fe[i],
-            status: label(st[i].as_deref().unwrap_or(""), STATUSES),
-            iterations: it[i].unwrap_or(0),
-            evaluations: ev[i].unwrap_or(0),
-            detail: de[i].take(),
-        })
-        .collect())
-}
-
-/// The cds_bond_basis table; empty when the run folder has none.
-pub fn basis(path: &Path) -> Result<Vec<BasisRow>> {
-    if !path.exists() {
-        return Ok(Vec::new());
-    }
-    let df = read_frame(path)?;
-    let (d, mut e, mut c, m, t, hb, hc, hbp, sb, sc, b) = (
-        dates(&df, path, "date")?,
-        strs(&df, path, "entity")?,
-        strs(&df, path, "currency")?,
-        dates(&df, path, "maturity")?,
-        floats(&df, path, "time")?,
-        floats(&df, path, "bond_average_hazard")?,
-        floats(&df, path, "cds_average_hazard")?,
-        floats(&df, path, "hazard_basis_bp")?,
-        floats(&df, path, "bond_par_spread_bp")?,
-        floats(&df, path, "cds_par_spread_bp")?,
-        floats(&df, path, "basis_bp")?,
-    );
-    let f = |v: &Vec<Option<f64>>, i: usize| v[i].unwrap_or(f64::NAN);
-    Ok((0..df.height())
-        .map(|i| BasisRow {
-            date: d[i].unwrap_or_default(),
-            entity: e[i].take().unwrap_or_default(),
-            currency: c[i].take().unwrap_or_default(),
-            maturity: m[i].unwrap_or_default(),
-            time: f(&t, i),
-            bond_average_hazard: f(&hb, i),
-            cds_average_hazard: f(&hc, i),
-            hazard_basis_bp: f(&hbp, i),
-            bond_par_spread_bp: f(&sb, i),
-            cds_par_spread_bp: f(&sc, i),
-            basis_bp: f(&b, i),
-        })
-        .collect())
 }

@@ -2,6 +2,7 @@
 //! their schema, bond rows in hazard_curves and calibration_residuals, every CIR fit joined to
 //! a bootstrapped CDS curve, and the `[calibration]` keys checked with exact messages.
 
+use hazardline::text::{CurveSource, FitMethod};
 use assert_cmd::Command;
 use hazardline::config::load_pipeline;
 use hazardline::run::{run, RunOptions};
@@ -37,9 +38,9 @@ fn demo_run_writes_bond_and_cir_tables() {
     ] {
         assert_eq!(schema.get(c), Some(&ty), "intensity_params.{c}");
     }
-    let params = readback::intensity_params(&t.join("intensity_params.parquet")).unwrap();
-    let hazard = readback::hazard_curves(&t.join("hazard_curves.parquet")).unwrap();
-    let cds: BTreeSet<(chrono::NaiveDate, &str, &str)> = hazard.iter().filter(|h| h.source == "cds").map(|h| (h.date, &*h.entity, &*h.currency)).collect();
+    let params = hazardline::tables::read_from::<hazardline::tables::IntensityParamRow>(&t.join("intensity_params.parquet")).unwrap();
+    let hazard = hazardline::tables::read_from::<hazardline::tables::HazardCurveRow>(&t.join("hazard_curves.parquet")).unwrap();
+    let cds: BTreeSet<(chrono::NaiveDate, &str, &str)> = hazard.iter().filter(|h| h.source == CurveSource::Cds).map(|h| (h.date, &*h.entity, &*h.currency)).collect();
     assert_eq!(params.len(), cds.len(), "one CIR fit per bootstrapped CDS curve");
     for p in &params {
         assert!(cds.contains(&(p.date, p.entity.as_str(), p.currency.as_str())), "CIR fit {} {} has no CDS curve", p.date, p.entity);
@@ -58,7 +59,7 @@ fn demo_run_writes_bond_and_cir_tables() {
     assert_eq!(keys, sorted);
 
     // Bond rows in hazard_curves, with the design's columns.
-    let bond: Vec<_> = hazard.iter().filter(|h| h.source == "bond").collect();
+    let bond: Vec<_> = hazard.iter().filter(|h| h.source == CurveSource::Bond).collect();
     assert!(!bond.is_empty());
     let bond_names: BTreeSet<&str> = bond.iter().map(|h| &*h.entity).collect();
     assert_eq!(bond_names, BTreeSet::from(["Corvane Logistics", "Halberd Mills", "Ostrel Utilities"]));
@@ -68,17 +69,17 @@ fn demo_run_writes_bond_and_cir_tables() {
     }
 
     // Residual rows of both new methods.
-    let res = readback::residuals(&t.join("calibration_residuals.parquet")).unwrap();
-    let bond_res: Vec<_> = res.iter().filter(|r| r.method == "bond_fit").collect();
-    let cir_res: Vec<_> = res.iter().filter(|r| r.method == "cir").collect();
+    let res = hazardline::tables::read_from::<hazardline::tables::ResidualRow>(&t.join("calibration_residuals.parquet")).unwrap();
+    let bond_res: Vec<_> = res.iter().filter(|r| r.method == FitMethod::BondFit).collect();
+    let cir_res: Vec<_> = res.iter().filter(|r| r.method == FitMethod::Cir).collect();
     assert_eq!(bond_res.len(), 120, "6 bonds x 20 days");
     assert!(bond_res.iter().all(|r| r.instrument == "bond_price" && r.tenor_or_bond.contains('-') && r.market > 50.0 && r.residual_bp.is_finite()));
     // As many bonds as nodes, so the curves reprice the prices.
     assert!(bond_res.iter().all(|r| r.residual_bp.abs() < 1e-6), "bond residuals");
-    assert_eq!(cir_res.len(), res.iter().filter(|r| r.method == "bootstrap").count(), "every CDS quote repriced under CIR");
+    assert_eq!(cir_res.len(), res.iter().filter(|r| r.method == FitMethod::Bootstrap).count(), "every CDS quote repriced under CIR");
 
     // The basis where both curves exist, with the design's columns.
-    let basis = readback::basis(&t.join("cds_bond_basis.parquet")).unwrap();
+    let basis = hazardline::tables::read_from::<hazardline::tables::BasisRow>(&t.join("cds_bond_basis.parquet")).unwrap();
     assert_eq!(basis.len(), 120);
     for b in &basis {
         assert!(cds.contains(&(b.date, b.entity.as_str(), b.currency.as_str())));
@@ -109,16 +110,16 @@ fn fixed_kappa_sigma_mode_holds_kappa_and_sigma_per_window() {
     let cfg = load_pipeline(&p).unwrap();
     assert!(!cfg.bond_fit, "no bond inputs: the bond fit is off by default");
     let run_dir = run(&cfg, &RunOptions::default()).unwrap().run_dir;
-    let params = readback::intensity_params(&run_dir.join("tables/intensity_params.parquet")).unwrap();
+    let params = hazardline::tables::read_from::<hazardline::tables::IntensityParamRow>(&run_dir.join("tables/intensity_params.parquet")).unwrap();
     assert_eq!(params.len(), 100);
     let name: Vec<_> = params.iter().filter(|p| p.entity == "Vintry Chemicals" && p.kappa.is_some()).collect();
     assert_eq!(name.len(), 20);
     for w in name.chunks(10) {
         assert!(w.iter().all(|p| p.mode == "fixed_kappa_sigma" && p.kappa == w[0].kappa && p.sigma == w[0].sigma), "kappa and sigma held over a window");
     }
-    assert!(readback::basis(&run_dir.join("tables/cds_bond_basis.parquet")).unwrap().is_empty());
-    let hazard = readback::hazard_curves(&run_dir.join("tables/hazard_curves.parquet")).unwrap();
-    assert!(hazard.iter().all(|h| h.source == "cds"));
+    assert!(hazardline::tables::read_from::<hazardline::tables::BasisRow>(&run_dir.join("tables/cds_bond_basis.parquet")).unwrap().is_empty());
+    let hazard = hazardline::tables::read_from::<hazardline::tables::HazardCurveRow>(&run_dir.join("tables/hazard_curves.parquet")).unwrap();
+    assert!(hazard.iter().all(|h| h.source == CurveSource::Cds));
 }
 
 fn config_error(extra: &str) -> String {

@@ -2,6 +2,7 @@
 //! rejected or flagged and with which reason code; plus the accounting invariant and
 //! no-panic properties.
 
+use hazardline::text::FlagRule;
 use hazardline::ingest::quality::{FLAG_FEW_TENORS, FLAG_INVERTED, FLAG_SPIKE, FLAG_STALE};
 use hazardline::ingest::{load, Dataset, InputPaths, QualitySettings};
 use hazardline::time::Calendar;
@@ -189,7 +190,7 @@ fn stale_run_is_flagged_not_rejected() {
     }
     let ds = check(&[("cds_quotes", &text)]);
     assert!(ds.rejects.is_empty());
-    let stale: Vec<_> = ds.flags.iter().filter(|f| f.rule == "stale_run").collect();
+    let stale: Vec<_> = ds.flags.iter().filter(|f| f.rule == FlagRule::StaleRun).collect();
     assert_eq!(stale.len(), 1);
     assert_eq!(stale[0].value, 7.0);
     assert_eq!(stale[0].series, "USD 5Y");
@@ -216,7 +217,7 @@ fn reverting_spike_is_flagged() {
     }
     let ds = check(&[("cds_quotes", &text)]);
     assert!(ds.rejects.is_empty(), "{:?}", ds.rejects);
-    let spikes: Vec<_> = ds.flags.iter().filter(|f| f.rule == "spike").collect();
+    let spikes: Vec<_> = ds.flags.iter().filter(|f| f.rule == FlagRule::Spike).collect();
     assert_eq!(spikes.len(), 1, "{spikes:?}");
     assert_eq!(spikes[0].entity, "B");
     assert_eq!(spikes[0].date, chrono::NaiveDate::from_ymd_opt(2024, 1, 22).unwrap());
@@ -229,7 +230,7 @@ fn reverting_spike_is_flagged() {
         text2 += &format!("{day},C,USD,5Y,{v},,,\n");
     }
     let ds2 = check(&[("cds_quotes", &text2)]);
-    assert!(ds2.flags.iter().all(|f| f.rule != "spike"));
+    assert!(ds2.flags.iter().all(|f| f.rule != FlagRule::Spike));
 }
 
 #[test]
@@ -240,7 +241,7 @@ fn curve_shape_flags() {
 2024-01-02,B,USD,5Y,100,,,\n2024-01-02,B,USD,10Y,120,,,\n"
     );
     let ds = check(&[("cds_quotes", &text)]);
-    let rules: Vec<(&str, &str)> = ds.flags.iter().map(|f| (f.rule, f.entity.as_str())).collect();
+    let rules: Vec<(&str, &str)> = ds.flags.iter().map(|f| (f.rule.as_str(), f.entity.as_str())).collect();
     assert_eq!(rules, vec![("inverted_curve", "A"), ("few_tenors", "B")]);
     let p = ds.cds.as_ref().unwrap();
     for (r, b) in p.rows.iter().zip(&ds.cds_flags) {

@@ -59,7 +59,7 @@ fn three_shards_merge_into_the_single_runs_bytes() {
     let parts = dir.path().join("three/demo/r.shards");
     let mut seen = Vec::new();
     for i in 1..=3 {
-        let m = hazardline::run::partition::read_meta(&parts.join(format!("part-{i:04}-of-0003"))).unwrap();
+        let m = hazardline::run::part_folder::read_meta(&parts.join(format!("part-{i:04}-of-0003"))).unwrap();
         assert!(!m.curve_entities.is_empty(), "shard {i} is empty");
         seen.extend(m.curve_entities);
     }
@@ -154,7 +154,7 @@ fn date_ranges_merge_into_the_single_runs_bytes() {
         part(&pipeline, &out, shard, dates);
     }
     let parts = out.join("demo/r.shards");
-    let m = hazardline::run::partition::read_meta(&parts.join("part-0001-of-0002-from-2015-07-01-to-2015-09-30")).unwrap();
+    let m = hazardline::run::part_folder::read_meta(&parts.join("part-0001-of-0002-from-2015-07-01-to-2015-09-30")).unwrap();
     assert_eq!((m.dates_from.as_deref(), m.dates_to.as_deref()), (Some("2015-07-01"), Some("2015-09-30")));
     assert!(m.curves > 0);
     hazardline(&["merge", &pipeline, "--out", out.to_str().unwrap(), "--label", "r"]).success();
@@ -209,10 +209,9 @@ fn large_tables_by_year_are_folders_that_merge_exactly() {
     let manifest = String::from_utf8(by_year["manifest.json"].clone()).unwrap();
     assert!(manifest.contains("\"tables/hazard_curves/2-bond-2016.parquet\"") && !manifest.contains("\"tables/hazard_curves.parquet\""), "{manifest}");
     // The same rows in the same order as the one-file table.
-    use hazardline::tables::readback;
     let (a, b) = (dir.path().join("one-file/demo/r/tables"), dir.path().join("by-year/demo/r/tables"));
-    assert_eq!(readback::hazard_curves(&a.join("hazard_curves.parquet")).unwrap(), readback::hazard_curves(&readback::table_path(&b, "hazard_curves")).unwrap());
-    assert_eq!(readback::residuals(&a.join("calibration_residuals.parquet")).unwrap(), readback::residuals(&readback::table_path(&b, "calibration_residuals")).unwrap());
+    assert_eq!(hazardline::tables::read_from::<hazardline::tables::HazardCurveRow>(&a.join("hazard_curves.parquet")).unwrap(), hazardline::tables::read::<hazardline::tables::HazardCurveRow>(&b).unwrap());
+    assert_eq!(hazardline::tables::read_from::<hazardline::tables::ResidualRow>(&a.join("calibration_residuals.parquet")).unwrap(), hazardline::tables::read::<hazardline::tables::ResidualRow>(&b).unwrap());
     // Every other file is the one-file run's, the report but for the tables' names.
     for (k, v) in &one_file {
         if k != "report.md" && k != "manifest.json" && !k.starts_with("tables/hazard_curves") && !k.starts_with("tables/calibration_residuals") {

@@ -96,7 +96,7 @@ fn stability_planted_level_shift_is_found_soon_after() {
     assert!(early <= 3, "early crossings {early}");
     assert!(median <= 15 && p90 <= 22, "median {median}, p90 {p90}");
     // Every crossing is a flag on the same entity and date.
-    let flagged = out.flags.iter().filter(|f| f.rule == "cusum_break").count();
+    let flagged = out.flags.iter().filter(|f| f.rule == hazardline::text::FlagRule::CusumBreak).count();
     assert_eq!(flagged, found + early);
     // The same test on daily changes sees the shift only as one spike: it finds far fewer
     // (the reason levels are the default target).
@@ -163,7 +163,7 @@ fn stability_psi_through_the_panel() {
     let row = out.series.psi.iter().find(|r| r.period == "2024Q2").expect("a PSI row for 2024Q2");
     assert_eq!((row.previous_period.as_str(), row.n_previous, row.n_current), ("2024Q1", 10, 10));
     assert!((row.psi.unwrap() - 0.248491).abs() < 1e-6);
-    let f = out.flags.iter().find(|f| f.rule == "psi_shift").expect("a PSI flag");
+    let f = out.flags.iter().find(|f| f.rule == hazardline::text::FlagRule::PsiShift).expect("a PSI flag");
     assert_eq!((f.severity.as_str(), f.threshold, f.period.as_str()), ("amber", 0.10, "2024Q2"));
 }
 

@@ -22,4 +22,5 @@ pub mod models;
 pub mod sim;
 pub mod stability;
 pub mod stats;
+pub mod text;
 pub mod time;

@@ -12,6 +12,7 @@ pub enum Outcome {
     /// The data ended before t + h without a default.
     Censored,
 }
+crate::text_form!(Outcome { Defaulted => "defaulted", Survived => "survived", Censored => "censored" });
 
 /// The bucket a member falls in.
 #[derive(Debug, Clone, PartialEq, PartialOrd)]

@@ -90,16 +90,7 @@ pub enum BondCurveForm {
     TwoParameter,
     PiecewiseFlat,
 }
-
-impl BondCurveForm {
-    pub fn as_str(self) -> &'static str {
-        match self {
-            BondCurveForm::Flat => "flat",
-            BondCurveForm::TwoParameter => "two_parameter",
-            BondCurveForm::PiecewiseFlat => "piecewise_flat",
-        }
-    }
-}
+crate::text_form!(BondCurveForm { Flat => "flat", TwoParameter => "two_parameter", PiecewiseFlat => "piecewise_flat" });
 
 /// Status of a node or of a whole fit.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
@@ -113,18 +104,7 @@ pub enum BondFitStatus {
     MaxIterations,
     Failed,
 }
-
-impl BondFitStatus {
-    pub fn as_str(self) -> &'static str {
-        match self {
-            BondFitStatus::Ok => "ok",
-            BondFitStatus::Floored => "floored",
-            BondFitStatus::AtUpperBound => "at_upper_bound",
-            BondFitStatus::MaxIterations => "max_iterations",
-            BondFitStatus::Failed => "failed",
-        }
-    }
-}
+crate::text_form!(BondFitStatus { Ok => "ok", Floored => "floored", AtUpperBound => "at_upper_bound", MaxIterations => "max_iterations", Failed => "failed" });
 
 /// One node of the fitted curve, at a (grouped) bond maturity.
 #[derive(Debug, Clone, PartialEq)]

@@ -78,18 +78,9 @@ pub enum NodeStatus {
     /// Not reached: an earlier node stopped the curve.
     NotCalibrated,
 }
+crate::text_form!(NodeStatus { Ok => "ok", Floored => "floored", Infeasible => "infeasible", Failed => "failed", CurveFailed => "curve_failed", NotCalibrated => "not_calibrated" });
 
 impl NodeStatus {
-    pub fn as_str(self) -> &'static str {
-        match self {
-            NodeStatus::Ok => "ok",
-            NodeStatus::Floored => "floored",
-            NodeStatus::Infeasible => "infeasible",
-            NodeStatus::Failed => "failed",
-            NodeStatus::CurveFailed => "curve_failed",
-            NodeStatus::NotCalibrated => "not_calibrated",
-        }
-    }
 
     /// True when the node's hazard is a usable calibration result.
     pub fn usable(self) -> bool {

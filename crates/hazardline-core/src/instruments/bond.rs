@@ -47,16 +47,7 @@ pub enum RecoveryConvention {
     /// Recovery of market value: a fraction R of the pre-default value.
     Market,
 }
-
-impl RecoveryConvention {
-    pub fn as_str(self) -> &'static str {
-        match self {
-            RecoveryConvention::Par => "par",
-            RecoveryConvention::Zero => "zero",
-            RecoveryConvention::Market => "market",
-        }
-    }
-}
+crate::text_form!(RecoveryConvention { Par => "par", Zero => "zero", Market => "market" });
 
 impl std::str::FromStr for RecoveryConvention {
     type Err = String;

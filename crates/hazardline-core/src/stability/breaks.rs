@@ -18,17 +18,7 @@ pub enum BreakStatus {
     /// Every value the same (no variance): nothing to test.
     Constant,
 }
-
-impl BreakStatus {
-    /// `tested`, `too_short` or `constant`.
-    pub fn as_str(self) -> &'static str {
-        match self {
-            BreakStatus::Tested => "tested",
-            BreakStatus::TooShort => "too_short",
-            BreakStatus::Constant => "constant",
-        }
-    }
-}
+crate::text_form!(BreakStatus { Tested => "tested", TooShort => "too_short", Constant => "constant" });
 
 /// One CUSUM test: one entity, one series, one window.
 #[derive(Debug, Clone, PartialEq)]

@@ -6,20 +6,21 @@ use super::metrics::{Scope, StabilityRow, CALIBRATION_SERIES};
 use super::population::PsiRow;
 use super::residual_review::CurveResidualRow;
 use super::settings::StabilitySettings;
+use crate::text::{FlagRule, Severity};
 use chrono::NaiveDate;
 
 /// Severity of a breach that needs action before the model is relied on.
-pub const RED: &str = "red";
+pub const RED: Severity = Severity::Red;
 /// Severity of a breach that needs a look and a written view.
-pub const AMBER: &str = "amber";
+pub const AMBER: Severity = Severity::Amber;
 
 /// One row of the `flags` table (columns fixed by docs/design.md, "Output tables").
 #[derive(Debug, Clone, PartialEq)]
 pub struct FlagRow {
-    /// Rule name, e.g. `psi_shift`, `cusum_break`.
-    pub rule: String,
-    /// `red` or `amber`.
-    pub severity: String,
+    /// The rule, e.g. `psi_shift`, `cusum_break`.
+    pub rule: FlagRule,
+    /// `red` or `amber` here; the data-quality rules add `warning` and `info`.
+    pub severity: Severity,
     /// Entity concerned; `None` for universe-level rules.
     pub entity: Option<String>,
     /// Series concerned (a parameter series, `calibration`, or `residual_bp/<method>`).
@@ -41,9 +42,9 @@ pub fn residual_series(method: &str) -> String {
     format!("residual_bp/{method}")
 }
 
-fn flag(rule: &str, severity: &str, row: &StabilityRow, value: f64, threshold: f64, explanation: String) -> FlagRow {
+fn flag(rule: FlagRule, severity: Severity, row: &StabilityRow, value: f64, threshold: f64, explanation: String) -> FlagRow {
     let entity = (row.scope == Scope::Entity).then(|| row.key.clone());
-    FlagRow { rule: rule.into(), severity: severity.into(), entity, series: row.series.clone(), period: row.period.clone(), date: None, value, threshold, explanation }
+    FlagRow { rule, severity, entity, series: row.series.clone(), period: row.period.clone(), date: None, value, threshold, explanation }
 }
 
 fn who(row: &StabilityRow) -> String {
@@ -57,19 +58,19 @@ fn who(row: &StabilityRow) -> String {
 fn spread_flags(row: &StabilityRow, s: &StabilitySettings, out: &mut Vec<FlagRow>) {
     if let Some(cv) = row.cv.filter(|cv| *cv > s.cv_max) {
         let text = format!("{} varied with a coefficient of variation of {cv:.3} in {} (sd over |mean| of {} values), above the limit {}.", who(row), row.period, row.n, s.cv_max);
-        out.push(flag("cv_high", AMBER, row, cv, s.cv_max, text));
+        out.push(flag(FlagRule::CvHigh, AMBER, row, cv, s.cv_max, text));
     }
     if let Some(share) = row.large_move_share.filter(|v| *v > s.large_move_share_max) {
         let t = s.move_threshold(&row.series).describe();
         let text = format!("{:.1}% of {}'s {} daily moves in {} exceeded the large-move threshold ({t}), above the allowed share {}.", share * 100.0, row.key, row.moves.unwrap_or(0), row.period, s.large_move_share_max);
-        let mut f = flag("large_moves", AMBER, row, share, s.large_move_share_max, text);
+        let mut f = flag(FlagRule::LargeMoves, AMBER, row, share, s.large_move_share_max, text);
         f.date = row.max_move_date;
         out.push(f);
     }
     if let (Some(ratio), Some(p), Some(m)) = (row.move_ratio, row.param_rel_move, row.market_rel_move) {
         if ratio > s.market_ratio_max && p >= s.param_move_min {
             let text = format!("{} moved {:.2}% a day on average in {} while the entity's spreads moved {:.3}% a day: {ratio:.1} times the market's move, above {}; the parameter swings more than the quotes justify.", who(row), p * 100.0, row.period, m * 100.0, s.market_ratio_max);
-            out.push(flag("moves_vs_market", AMBER, row, ratio, s.market_ratio_max, text));
+            out.push(flag(FlagRule::MovesVsMarket, AMBER, row, ratio, s.market_ratio_max, text));
         }
     }
 }
@@ -78,7 +79,7 @@ fn change_flags(row: &StabilityRow, s: &StabilitySettings, out: &mut Vec<FlagRow
     if row.scope == Scope::Grade {
         return;
     }
-    for (rule, what, change) in [("period_change_mean", "mean", row.mean_change), ("period_change_median", "median", row.median_change)] {
+    for (rule, what, change) in [(FlagRule::PeriodChangeMean, "mean", row.mean_change), (FlagRule::PeriodChangeMedian, "median", row.median_change)] {
         if let Some(c) = change.filter(|c| c.abs() > s.change_max) {
             let text = format!("The {what} of {} changed by {:+.1}% from the previous period to {}, beyond the limit of {:.0}% either way.", who(row), c * 100.0, row.period, s.change_max * 100.0);
             out.push(flag(rule, AMBER, row, c, s.change_max, text));
@@ -87,7 +88,7 @@ fn change_flags(row: &StabilityRow, s: &StabilitySettings, out: &mut Vec<FlagRow
 }
 
 fn calibration_flags(row: &StabilityRow, s: &StabilitySettings, out: &mut Vec<FlagRow>) {
-    let checks = [("calibration_failures", "failed", row.failures, s.failures_max), ("calibration_infeasible", "were infeasible", row.infeasible, s.infeasible_max)];
+    let checks = [(FlagRule::CalibrationFailures, "failed", row.failures, s.failures_max), (FlagRule::CalibrationInfeasible, "were infeasible", row.infeasible, s.infeasible_max)];
     for (rule, what, count, max) in checks {
         if let Some(c) = count.filter(|c| *c > max) {
             let text = format!("{c} calibrations of {} {what} in {} (over {} dates with a calibration status), more than the {max} allowed.", row.key, row.period, row.n);
@@ -130,7 +131,7 @@ pub fn psi_flags(rows: &[PsiRow], settings: &StabilitySettings) -> Vec<FlagRow> 
                 "The cross-section of {} across {} entities in {} differs from {} ({} entities) with a PSI of {psi:.3}, above {threshold}: the implied-PD distribution has shifted.",
                 r.series, r.n_current, r.period, r.previous_period, r.n_previous
             );
-            Some(FlagRow { rule: "psi_shift".into(), severity: severity.into(), entity: None, series: r.series.clone(), period: r.period.clone(), date: None, value: psi, threshold, explanation })
+            Some(FlagRow { rule: FlagRule::PsiShift, severity, entity: None, series: r.series.clone(), period: r.period.clone(), date: None, value: psi, threshold, explanation })
         })
         .collect()
 }
@@ -148,7 +149,7 @@ pub fn break_flags(rows: &[BreakRow], settings: &StabilitySettings) -> Vec<FlagR
                 r.entity, r.series, r.target, r.window, r.n, settings.cusum_level.as_str()
             );
             let period = settings.period.of(date).label();
-            Some(FlagRow { rule: "cusum_break".into(), severity: severity.into(), entity: Some(r.entity.clone()), series: r.series.clone(), period, date: Some(date), value: ratio, threshold: 1.0, explanation })
+            Some(FlagRow { rule: FlagRule::CusumBreak, severity, entity: Some(r.entity.clone()), series: r.series.clone(), period, date: Some(date), value: ratio, threshold: 1.0, explanation })
         })
         .collect()
 }
@@ -160,8 +161,8 @@ pub fn residual_flags(curves: &[CurveResidualRow], settings: &StabilitySettings)
         .filter_map(|c| {
             let threshold = settings.residual_threshold_bp(&c.method);
             (c.max_abs_bp > threshold).then(|| FlagRow {
-                rule: "residual_over_tolerance".into(),
-                severity: AMBER.into(),
+                rule: FlagRule::ResidualOverTolerance,
+                severity: AMBER,
                 entity: Some(c.entity.to_string()),
                 series: residual_series(&c.method),
                 period: settings.period.of(c.date).label(),
@@ -179,5 +180,6 @@ pub fn residual_flags(curves: &[CurveResidualRow], settings: &StabilitySettings)
 
 /// Red before amber, then by rule, entity, series, period and date, for a stable table.
 pub fn sort_flags(flags: &mut [FlagRow]) {
-    flags.sort_by(|a, b| (a.severity != RED, &a.rule, &a.entity, &a.series, &a.period, a.date).cmp(&(b.severity != RED, &b.rule, &b.entity, &b.series, &b.period, b.date)));
+    // By the rule's text, as the table shows it.
+    flags.sort_by(|a, b| (a.severity != RED, a.rule.as_str(), &a.entity, &a.series, &a.period, a.date).cmp(&(b.severity != RED, b.rule.as_str(), &b.entity, &b.series, &b.period, b.date)));
 }

@@ -28,17 +28,7 @@ pub enum Scope {
     /// All entities; `key` is `all`.
     Universe,
 }
-
-impl Scope {
-    /// `entity`, `grade` or `universe`.
-    pub fn as_str(self) -> &'static str {
-        match self {
-            Scope::Entity => "entity",
-            Scope::Grade => "grade",
-            Scope::Universe => "universe",
-        }
-    }
-}
+crate::text_form!(Scope { Entity => "entity", Grade => "grade", Universe => "universe" });
 
 /// One row of the `stability` table: one series over one review period for one entity, grade
 /// or the universe. Statistics that do not apply to the scope are `None`.

@@ -15,17 +15,7 @@ pub enum Zone {
     Yellow,
     Red,
 }
-
-impl Zone {
-    /// Lower-case name as written in tables.
-    pub fn as_str(self) -> &'static str {
-        match self {
-            Zone::Green => "green",
-            Zone::Yellow => "yellow",
-            Zone::Red => "red",
-        }
-    }
-}
+crate::text_form!(Zone { Green => "green", Yellow => "yellow", Red => "red" });
 
 /// p-value thresholds: yellow when p < `yellow`, red when p < `red` (red < yellow).
 #[derive(Debug, Clone, Copy, PartialEq)]

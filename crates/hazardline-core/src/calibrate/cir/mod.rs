@@ -151,16 +151,7 @@ pub enum CirFitStatus {
     /// No usable result (non-finite prices from every start).
     Failed,
 }
-
-impl CirFitStatus {
-    pub fn as_str(self) -> &'static str {
-        match self {
-            CirFitStatus::Ok => "ok",
-            CirFitStatus::MaxIterations => "max_iterations",
-            CirFitStatus::Failed => "failed",
-        }
-    }
-}
+crate::text_form!(CirFitStatus { Ok => "ok", MaxIterations => "max_iterations", Failed => "failed" });
 
 /// Which parameters a fit was free to move.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
@@ -170,15 +161,7 @@ pub enum CirFitMode {
     /// kappa and sigma held (from the window's pooled estimate); theta and lambda0 fitted.
     FixedKappaSigma,
 }
-
-impl CirFitMode {
-    pub fn as_str(self) -> &'static str {
-        match self {
-            CirFitMode::Free => "free",
-            CirFitMode::FixedKappaSigma => "fixed_kappa_sigma",
-        }
-    }
-}
+crate::text_form!(CirFitMode { Free => "free", FixedKappaSigma => "fixed_kappa_sigma" });
 
 /// One row of `intensity_params`, with the repriced quotes.
 #[derive(Debug, Clone, PartialEq)]

@@ -1,0 +1,284 @@
+//! A part folder (`<label>.shards/part-I-of-N[-from-..-to-..]/`): what a `run --shard` /
+//! `--dates` part writes ([`write_partition`]: its tables and `partition.json`, under a
+//! temporary name until whole) and what `merge` reads back ([`read_partition`], and
+//! [`merge_part_rows`] for the node and residual rows, streamed). Each table of a part is
+//! written by its home in `tables`, as the run's tables are, so floats and labels come back
+//! bit for bit.
+
+use super::partition::{Partition, RowSinks};
+use crate::backtest;
+use crate::error::{Error, Result};
+use crate::parts::{DateRange, Shard};
+use crate::tables::parts::{EdgeRow, MemberRecord};
+use crate::tables::{self, file_of, readback, HazardCurveRow, ResidualRow};
+use crate::text::{CurveSource, FitMethod};
+use chrono::NaiveDate;
+use std::path::{Path, PathBuf};
+
+/// What a partition says about itself (`partition.json`).
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct PartitionMeta {
+    pub tool: String,
+    pub version: String,
+    /// SHA-256 of the pipeline file the shard ran.
+    pub pipeline_sha256: String,
+    pub shard: u32,
+    pub shards: u32,
+    pub curves: usize,
+    pub curves_complete: usize,
+    pub max_abs_residual_bp: f64,
+    /// First and last CDS curve date of the shard (ISO dates).
+    pub curve_dates: Option<(String, String)>,
+    /// Entities with at least one CDS curve.
+    pub curve_entities: Vec<String>,
+    /// Entities quoted in more than one currency.
+    pub multi_currency: Vec<String>,
+    /// Recoveries of the backtest members, base first.
+    pub recoveries: Vec<f64>,
+    /// First and last curve date of the part's date range (ISO dates; None: open).
+    #[serde(default)]
+    pub dates_from: Option<String>,
+    #[serde(default)]
+    pub dates_to: Option<String>,
+}
+
+impl PartitionMeta {
+    /// The part's date range.
+    pub fn range(&self, path: &Path) -> Result<DateRange> {
+        let date = |s: &Option<String>| s.as_deref().map(|s| parse_date(path, s)).transpose();
+        Ok(DateRange { from: date(&self.dates_from)?, to: date(&self.dates_to)? })
+    }
+}
+
+/// A shard's part folder being written: under a temporary name beside `dir` until
+/// [`write_partition`] renames it, so a folder that exists is whole.
+pub struct PartFolder {
+    pub dir: PathBuf,
+    pub work: PathBuf,
+}
+
+/// An empty folder beside `dir`, under a temporary name of this process, in which `dir` is
+/// assembled before it is renamed into place (so a folder that exists is whole).
+pub fn work_folder(dir: &Path) -> Result<PathBuf> {
+    let parent = dir.parent().unwrap_or(Path::new(".")).to_path_buf();
+    let name = dir.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_else(|| "part".into());
+    let work = parent.join(format!(".{name}.partial-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&work);
+    std::fs::create_dir_all(&work).map_err(|e| Error::Write { path: work.clone(), message: e.to_string() })?;
+    Ok(work)
+}
+
+impl PartFolder {
+    pub fn create(dir: &Path) -> Result<PartFolder> {
+        Ok(PartFolder { dir: dir.to_path_buf(), work: work_folder(dir)? })
+    }
+
+    /// The sinks of the part's node and residual rows (no digest: the merge digests them).
+    pub fn sinks<'a>(&self) -> Result<RowSinks<'a>> {
+        RowSinks::create(&self.work, &[], None, None, false)
+    }
+}
+
+/// Writes a part: closes its node and residual tables (`sinks`), writes its other tables and
+/// `partition.json` into the work folder, and renames the folder into place.
+pub fn write_partition(folder: PartFolder, sinks: RowSinks, mut part: Partition, shard: Shard, pipeline_sha256: &str) -> Result<()> {
+    let PartFolder { dir, work } = folder;
+    let dir = dir.as_path();
+    let none: &[(String, String)] = &[];
+    sinks.finish(std::mem::take(&mut part.hazard), std::mem::take(&mut part.residuals))?;
+    tables::write(&part.params, &work, none)?;
+    tables::write(&part.basis, &work, none)?;
+    tables::write(&part.discount, &work, none)?;
+    tables::write(&part.rejects, &work, none)?;
+    tables::parts::write_series(&part.curve_obs, &work)?;
+    tables::write(&part.market, &work, none)?;
+    tables::write(&tables::parts::edge_rows(&part.edges), &work, none)?;
+    let members: Vec<MemberRecord> = part.members.iter().flat_map(|(r, v)| v.iter().map(move |o| MemberRecord { recovery: *r, member: o.clone() })).collect();
+    tables::write(&members, &work, none)?;
+
+    let meta = PartitionMeta {
+        tool: "hazardline".into(),
+        version: env!("CARGO_PKG_VERSION").into(),
+        pipeline_sha256: pipeline_sha256.to_string(),
+        shard: shard.index,
+        shards: shard.count,
+        curves: part.curves,
+        curves_complete: part.curves_complete,
+        max_abs_residual_bp: part.max_abs_residual_bp,
+        curve_dates: part.curve_dates.map(|(a, b)| (a.to_string(), b.to_string())),
+        curve_entities: part.curve_entities.clone(),
+        multi_currency: part.multi_currency.clone(),
+        recoveries: part.members.iter().map(|(r, _)| *r).collect(),
+        dates_from: part.range.from.map(|d| d.to_string()),
+        dates_to: part.range.to.map(|d| d.to_string()),
+    };
+    let text = serde_json::to_string_pretty(&meta).map_err(|e| Error::Other(format!("partition.json: {e}")))?;
+    crate::tables::manifest::write_text(&work.join("partition.json"), &(text + "\n"))?;
+    if dir.exists() {
+        std::fs::remove_dir_all(dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })?;
+    }
+    std::fs::rename(&work, dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })
+}
+
+/// Reads `partition.json` of a partition folder.
+pub fn read_meta(dir: &Path) -> Result<PartitionMeta> {
+    let path = dir.join("partition.json");
+    let text = std::fs::read_to_string(&path).map_err(|e| Error::Read { path: path.clone(), format: "JSON", message: e.to_string() })?;
+    serde_json::from_str(&text).map_err(|e| Error::Read { path, format: "JSON", message: e.to_string() })
+}
+
+fn parse_date(path: &Path, s: &str) -> Result<NaiveDate> {
+    NaiveDate::parse_from_str(s, "%Y-%m-%d").map_err(|e| Error::Read { path: path.to_path_buf(), format: "JSON", message: format!("date `{s}`: {e}") })
+}
+
+
+/// Streams the node and residual rows of the parts in `dirs` (shard order) into `sinks`: the
+/// CDS rows, which every part holds first and in the tables' order, by a k-way merge on (date,
+/// entity, currency) that keeps a curve's rows together, read a slice at a time; the rows
+/// after them (the bond and CIR fits') are returned, for [`RowSinks::finish`] to sort in.
+pub fn merge_part_rows(dirs: &[PathBuf], sinks: &mut RowSinks) -> Result<(Vec<HazardCurveRow>, Vec<ResidualRow>)> {
+    let cursors = dirs.iter().map(|d| readback::cursor::<HazardCurveRow>(&file_of::<HazardCurveRow>(d))).collect::<Result<Vec<_>>>()?;
+    let hazard = merge_sorted(cursors, |r| r.source == CurveSource::Cds, |r| (r.date, r.entity.clone(), r.currency.clone()), |rows| sinks.nodes(rows))?;
+    let cursors = dirs.iter().map(|d| readback::cursor::<ResidualRow>(&file_of::<ResidualRow>(d))).collect::<Result<Vec<_>>>()?;
+    let residuals = merge_sorted(cursors, |r| r.method == FitMethod::Bootstrap, |r| (r.date, r.entity.clone(), r.currency.clone()), |rows| sinks.residual_rows(rows))?;
+    Ok((hazard, residuals))
+}
+
+/// Rows handed on at a time by [`merge_sorted`].
+const MERGED_ROWS: usize = 1 << 16;
+
+/// Merges the leading rows (`leads`) of sorted cursors by `key` into `emit`, a run of equal
+/// keys at a time (ties go to the earlier cursor, as a stable sort of the concatenation would
+/// have it); returns every row after the leading ones, cursor by cursor.
+fn merge_sorted<T, K: Ord>(mut cursors: Vec<readback::RowCursor<T>>, leads: impl Fn(&T) -> bool, key: impl Fn(&T) -> K, mut emit: impl FnMut(Vec<T>) -> Result<()>) -> Result<Vec<T>> {
+    let mut out = Vec::with_capacity(MERGED_ROWS);
+    loop {
+        let mut best: Option<(usize, K)> = None;
+        for (i, c) in cursors.iter_mut().enumerate() {
+            if let Some(r) = c.peek()?.filter(|r| leads(r)) {
+                let k = key(r);
+                if best.as_ref().is_none_or(|(_, b)| k < *b) {
+                    best = Some((i, k));
+                }
+            }
+        }
+        let Some((i, k)) = best else { break };
+        while cursors[i].peek()?.is_some_and(|r| leads(r) && key(r) == k) {
+            out.extend(cursors[i].next_row()?);
+        }
+        if out.len() >= MERGED_ROWS {
+            emit(std::mem::replace(&mut out, Vec::with_capacity(MERGED_ROWS)))?;
+        }
+    }
+    emit(out)?;
+    let mut rest = Vec::new();
+    for c in cursors.iter_mut() {
+        while let Some(r) = c.next_row()? {
+            rest.push(r);
+        }
+    }
+    Ok(rest)
+}
+
+/// Reads a part folder back: its `partition.json` and every table but the node and residual
+/// rows, which stay on disk for [`merge_part_rows`] to stream.
+pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
+    let meta = read_meta(dir)?;
+    let json = dir.join("partition.json");
+    let mut part = Partition {
+        params: tables::read(dir)?,
+        basis: tables::read(dir)?,
+        discount: tables::read(dir)?,
+        rejects: tables::read(dir)?,
+        market: tables::read(dir)?,
+        edges: tables::parts::edges_of(&tables::read::<EdgeRow>(dir)?),
+        curves: meta.curves,
+        curves_complete: meta.curves_complete,
+        max_abs_residual_bp: meta.max_abs_residual_bp,
+        curve_entities: meta.curve_entities.clone(),
+        multi_currency: meta.multi_currency.clone(),
+        shard: meta.shard,
+        range: meta.range(&json)?,
+        ..Default::default()
+    };
+    part.curve_dates = match &meta.curve_dates {
+        Some((a, b)) => Some((parse_date(&json, a)?, parse_date(&json, b)?)),
+        None => None,
+    };
+    tables::parts::read_series(dir, &mut part.curve_obs)?;
+    let path = file_of::<MemberRecord>(dir);
+    let mut members: Vec<(f64, Vec<backtest::Observation>)> = meta.recoveries.iter().map(|r| (*r, Vec::new())).collect();
+    for (i, m) in tables::read_from::<MemberRecord>(&path)?.into_iter().enumerate() {
+        let rec = m.recovery;
+        let slot = members
+            .iter_mut()
+            .find(|(x, _)| x.to_bits() == rec.to_bits())
+            .ok_or_else(|| Error::Read { path: path.clone(), format: "Parquet", message: format!("row {}: recovery {rec} is not listed in partition.json", i + 1) })?;
+        slot.1.push(m.member);
+    }
+    part.members = members;
+    Ok((meta, part))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::tables::{hazard_writer, residual_writer, sort_hazard};
+
+    fn node(day: u32, entity: &str, source: CurveSource, tenor: &str) -> HazardCurveRow {
+        let date = NaiveDate::from_ymd_opt(2024, 5, day).unwrap();
+        HazardCurveRow {
+            date,
+            entity: entity.into(),
+            currency: "EUR".into(),
+            source,
+            tenor: tenor.into(),
+            maturity: date,
+            node_date: date,
+            hazard: Some(f64::from(day) / 100.0),
+            survival: None,
+            status: "ok",
+            recovery: 0.4,
+            iterations: 3,
+            detail: None,
+        }
+    }
+
+    #[test]
+    fn merging_parts_gives_the_order_of_one_sort() {
+        // Three parts, each with its CDS curves in (date, entity) order and then its bond
+        // nodes; entity names spread over the parts. The merged CDS rows, then the sorted rest,
+        // must be the concatenation put through the table's own stable sort.
+        let dir = tempfile::tempdir().unwrap();
+        let names = [["Ash", "Fir"], ["Beech", "Oak"], ["Cedar", "Yew"]];
+        let mut all = Vec::new();
+        let mut dirs = Vec::new();
+        for (k, pair) in names.iter().enumerate() {
+            let mut rows = Vec::new();
+            for day in [2, 3, 6, 7] {
+                for e in pair {
+                    if (day + k as u32) % 5 != 0 {
+                        rows.extend(["1Y", "5Y", "10Y"].iter().map(|t| node(day, e, CurveSource::Cds, t)));
+                    }
+                }
+            }
+            rows.push(node(3, pair[1], CurveSource::Bond, "bond"));
+            rows.push(node(2, pair[0], CurveSource::Bond, "bond"));
+            rows.sort_by_key(|r| r.source != CurveSource::Cds);
+            let d = dir.path().join(format!("part-{k}"));
+            let mut w = hazard_writer(&d.join("hazard_curves.parquet"), &[]).unwrap();
+            w.push(rows.iter().cloned()).unwrap();
+            w.finish().unwrap();
+            residual_writer(&d.join("calibration_residuals.parquet"), &[]).unwrap().finish().unwrap();
+            all.extend(rows);
+            dirs.push(d);
+        }
+        let out = dir.path().join("out");
+        let mut sinks = RowSinks::create(&out, &[], None, None, false).unwrap();
+        let (rest, residuals) = merge_part_rows(&dirs, &mut sinks).unwrap();
+        assert_eq!((rest.len(), residuals.len()), (6, 0));
+        sinks.finish(rest, residuals).unwrap();
+        sort_hazard(&mut all);
+        assert_eq!(crate::tables::read::<HazardCurveRow>(&out).unwrap(), all);
+    }
+}

@@ -1,0 +1,172 @@
+//! `calibration_residuals`: one row per repriced quote (model minus market), from the CDS
+//! bootstrap, the bond fits and the CIR fits; written as the rows arrive in fixed row groups,
+//! as one file or (large runs) a folder of a file per method and year.
+
+use super::parquet::{FileKey, RowGroupWriter, SplitWriter, TableBuilder, TableWriter};
+use super::readback::{dates, fixed_labels, floats, labels, strs, STATUSES};
+use super::{col, curves::Label, metadata_of, Column, Kind::*, Table};
+use crate::error::{Error, Result};
+use crate::text::FitMethod;
+use chrono::{Datelike, NaiveDate};
+use polars::prelude::DataFrame;
+use std::path::Path;
+
+/// The instruments a residual can be of.
+pub const INSTRUMENTS: &[&str] = &["cds_par_spread", "cds_upfront", "bond_price"];
+
+/// One repriced quote.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ResidualRow {
+    pub date: NaiveDate,
+    pub entity: Label,
+    pub currency: Label,
+    pub method: FitMethod,
+    /// One of [`INSTRUMENTS`].
+    pub instrument: &'static str,
+    pub tenor_or_bond: Label,
+    pub market: f64,
+    pub model: f64,
+    pub residual_bp: f64,
+    pub status: &'static str,
+}
+
+impl Table for ResidualRow {
+    const NAME: &'static str = "calibration_residuals";
+    const COLUMNS: &'static [Column] = &[
+        col("date", Date),
+        col("entity", Text),
+        col("currency", Text),
+        col("method", Text),
+        col("instrument", Text),
+        col("tenor_or_bond", Text),
+        col("market", Float),
+        col("model", Float),
+        col("residual_bp", Float),
+        col("status", Text),
+    ];
+
+    fn metadata() -> Vec<(String, String)> {
+        vec![(
+            "hazardline.units".into(),
+            "market/model: par spread in bp for cds_par_spread, upfront as fraction of notional for cds_upfront; residual_bp = model - market in bp of running spread".into(),
+        )]
+    }
+
+    fn frame(rows: &[Self]) -> Result<DataFrame> {
+        TableBuilder::new()
+            .dates("date", rows.iter().map(|r| Some(r.date)))
+            .strings("entity", rows.iter().map(|r| Some(&r.entity)))
+            .strings("currency", rows.iter().map(|r| Some(&r.currency)))
+            .strings("method", rows.iter().map(|r| Some(r.method.as_str())))
+            .strings("instrument", rows.iter().map(|r| Some(r.instrument)))
+            .strings("tenor_or_bond", rows.iter().map(|r| Some(&r.tenor_or_bond)))
+            .floats("market", rows.iter().map(|r| Some(r.market)))
+            .floats("model", rows.iter().map(|r| Some(r.model)))
+            .floats("residual_bp", rows.iter().map(|r| Some(r.residual_bp)))
+            .strings("status", rows.iter().map(|r| Some(r.status)))
+            .finish()
+    }
+
+    fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
+        let (d, e, c, me, ins, t, mk, mo, r, st) = (
+            dates(df, path, "date")?,
+            labels(df, path, "entity")?,
+            labels(df, path, "currency")?,
+            strs(df, path, "method")?,
+            fixed_labels(df, path, "instrument", INSTRUMENTS)?,
+            labels(df, path, "tenor_or_bond")?,
+            floats(df, path, "market")?,
+            floats(df, path, "model")?,
+            floats(df, path, "residual_bp")?,
+            fixed_labels(df, path, "status", STATUSES)?,
+        );
+        (0..df.height())
+            .map(|i| {
+                let m = me[i].as_deref().unwrap_or("");
+                let method = FitMethod::parse(m).ok_or_else(|| Error::Read {
+                    path: path.to_path_buf(),
+                    format: "Parquet",
+                    message: format!("column method, row {}: {m:?} is not one of {:?}", i + 1, <FitMethod as crate::text::TextForm>::texts()),
+                })?;
+                Ok(ResidualRow {
+                    date: d[i].unwrap_or_default(),
+                    entity: e[i].clone(),
+                    currency: c[i].clone(),
+                    method,
+                    instrument: ins[i],
+                    tenor_or_bond: t[i].clone(),
+                    market: mk[i].unwrap_or(f64::NAN),
+                    model: mo[i].unwrap_or(f64::NAN),
+                    residual_bp: r[i].unwrap_or(f64::NAN),
+                    status: st[i],
+                })
+            })
+            .collect()
+    }
+}
+
+/// The order of the `calibration_residuals` table: the bootstrap's residuals first, by (date,
+/// entity, currency), then the other methods' by (method, date, entity, currency); a curve's
+/// residuals keep their order (a stable sort).
+pub fn sort_residuals(rows: &mut [ResidualRow]) {
+    let key = |r: &ResidualRow| (r.method != FitMethod::Bootstrap, r.method.as_str(), r.date);
+    rows.sort_by(|a, b| (key(a), &a.entity, &a.currency).cmp(&(key(b), &b.entity, &b.currency)));
+}
+
+/// Starts `calibration_residuals` at `path`, written as its rows arrive ([`RowGroupWriter`]).
+pub fn residual_writer(path: &Path, meta: &[(String, String)]) -> Result<RowGroupWriter<ResidualRow>> {
+    RowGroupWriter::create(path, &metadata_of::<ResidualRow>(meta), super::framed::<ResidualRow>)
+}
+
+/// Where a `calibration_residuals` row goes in the folder form: the bootstrap's first, then
+/// each other method's, a file per year (the table's order, see [`sort_residuals`]).
+fn residual_key(r: &ResidualRow) -> FileKey {
+    (1 + u8::from(r.method != FitMethod::Bootstrap), r.method.as_str(), r.date.year())
+}
+
+/// Starts `calibration_residuals` in the folder `tables`, as
+/// [`hazard_table`](super::curves::hazard_table) does (a file per method and year when
+/// `split`).
+pub fn residual_table(tables: &Path, meta: &[(String, String)], split: bool) -> Result<TableWriter<ResidualRow>> {
+    if split {
+        SplitWriter::create(&tables.join(ResidualRow::NAME), &metadata_of::<ResidualRow>(meta), super::framed::<ResidualRow>, residual_key).map(TableWriter::Split)
+    } else {
+        residual_writer(&super::file_of::<ResidualRow>(tables), meta).map(TableWriter::One)
+    }
+}
+
+/// Writes `calibration_residuals` to `path` in its fixed row groups.
+pub fn write_residuals(rows: &[ResidualRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
+    let mut w = residual_writer(path, meta)?;
+    w.push(rows.iter().cloned())?;
+    w.finish().map(|_| ())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::tables::testing::{refuses_a_missing_column, round_trip};
+
+    #[test]
+    fn calibration_residuals_round_trip_and_sort_bootstrap_first() {
+        let d = NaiveDate::from_ymd_opt(2024, 5, 2).unwrap();
+        let row = |method, entity: &str| ResidualRow {
+            date: d,
+            entity: entity.into(),
+            currency: "EUR".into(),
+            method,
+            instrument: "cds_par_spread",
+            tenor_or_bond: "5Y".into(),
+            market: 101.5,
+            model: 101.5 + 1e-9,
+            residual_bp: 1e-9,
+            status: "ok",
+        };
+        let mut rows = vec![row(FitMethod::Cir, "A"), row(FitMethod::BondFit, "B"), row(FitMethod::Bootstrap, "C")];
+        assert_eq!(round_trip(&rows), rows);
+        refuses_a_missing_column(&rows);
+        sort_residuals(&mut rows);
+        let order: Vec<FitMethod> = rows.iter().map(|r| r.method).collect();
+        assert_eq!(order, [FitMethod::Bootstrap, FitMethod::BondFit, FitMethod::Cir]);
+    }
+}
