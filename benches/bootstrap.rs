@@ -13,13 +13,33 @@ use hazardline::time::{Calendar, Tenor};
 
 pub fn setup() -> (NaiveDate, DiscountCurve, Vec<BootstrapQuote>) {
     let trade = NaiveDate::from_ymd_opt(2024, 3, 20).unwrap();
-    let zeros = [("1M", 0.031), ("3M", 0.0316), ("6M", 0.0322), ("1Y", 0.0331), ("2Y", 0.0342), ("3Y", 0.0351), ("5Y", 0.0364), ("7Y", 0.0373), ("10Y", 0.0383), ("30Y", 0.041)];
+    let zeros = [
+        ("1M", 0.031),
+        ("3M", 0.0316),
+        ("6M", 0.0322),
+        ("1Y", 0.0331),
+        ("2Y", 0.0342),
+        ("3Y", 0.0351),
+        ("5Y", 0.0364),
+        ("7Y", 0.0373),
+        ("10Y", 0.0383),
+        ("30Y", 0.041),
+    ];
     let pillars: Vec<(Tenor, f64)> = zeros.iter().map(|&(t, z)| (t.parse().unwrap(), z)).collect();
     let disc = DiscountCurve::from_zero_rates(trade, &pillars).unwrap();
-    let quotes = [("6M", 45.0), ("1Y", 55.0), ("2Y", 75.0), ("3Y", 95.0), ("4Y", 110.0), ("5Y", 125.0), ("7Y", 140.0), ("10Y", 150.0)]
-        .iter()
-        .map(|&(t, bp)| BootstrapQuote { tenor: t.parse().unwrap(), quote: CdsQuote::ParSpread(bp / 1e4), recovery: 0.4 })
-        .collect();
+    let quotes = [
+        ("6M", 45.0),
+        ("1Y", 55.0),
+        ("2Y", 75.0),
+        ("3Y", 95.0),
+        ("4Y", 110.0),
+        ("5Y", 125.0),
+        ("7Y", 140.0),
+        ("10Y", 150.0),
+    ]
+    .iter()
+    .map(|&(t, bp)| BootstrapQuote { tenor: t.parse().unwrap(), quote: CdsQuote::ParSpread(bp / 1e4), recovery: 0.4 })
+    .collect();
     (trade, disc, quotes)
 }
 
@@ -34,8 +54,12 @@ fn bench(c: &mut Criterion) {
     // calibrate stage builds it once per (date, currency, tenor set).
     let tenors: Vec<Tenor> = quotes.iter().map(|q| q.tenor).collect();
     let plan = BootstrapPlan::new(trade, &tenors, &disc, &cal, settings.accrual).unwrap();
-    c.bench_function("bootstrap 8 tenors to 10Y, shared plan", |b| b.iter(|| plan.solve(black_box(&quotes), &settings).unwrap()));
-    c.bench_function("plan for 8 tenors to 10Y", |b| b.iter(|| BootstrapPlan::new(black_box(trade), &tenors, &disc, &cal, settings.accrual).unwrap()));
+    c.bench_function("bootstrap 8 tenors to 10Y, shared plan", |b| {
+        b.iter(|| plan.solve(black_box(&quotes), &settings).unwrap())
+    });
+    c.bench_function("plan for 8 tenors to 10Y", |b| {
+        b.iter(|| BootstrapPlan::new(black_box(trade), &tenors, &disc, &cal, settings.accrual).unwrap())
+    });
 }
 
 criterion_group!(benches, bench);

@@ -17,7 +17,8 @@ use std::time::Instant;
 mod support;
 use support::{cpu_seconds, peak_rss_mib};
 
-const TENORS: [(&str, f64); 8] = [("6M", 0.4), ("1Y", 0.5), ("2Y", 0.65), ("3Y", 0.8), ("4Y", 0.9), ("5Y", 1.0), ("7Y", 1.1), ("10Y", 1.2)];
+const TENORS: [(&str, f64); 8] =
+    [("6M", 0.4), ("1Y", 0.5), ("2Y", 0.65), ("3Y", 0.8), ("4Y", 0.9), ("5Y", 1.0), ("7Y", 1.1), ("10Y", 1.2)];
 
 fn env_usize(name: &str, default: usize) -> usize {
     std::env::var(name).ok().and_then(|v| v.parse().ok()).unwrap_or(default)
@@ -37,7 +38,8 @@ fn generate(dir: &Path, entities: usize, years: usize) {
             d = add_days(d, 1);
         }
         let n = dates.len() * entities * TENORS.len();
-        let (mut dd, mut ee, mut tt, mut ss) = (Vec::with_capacity(n), Vec::with_capacity(n), Vec::with_capacity(n), Vec::with_capacity(n));
+        let (mut dd, mut ee, mut tt, mut ss) =
+            (Vec::with_capacity(n), Vec::with_capacity(n), Vec::with_capacity(n), Vec::with_capacity(n));
         for (k, &day) in dates.iter().enumerate() {
             for (e, name) in names.iter().enumerate() {
                 let level = 40.0 + (e % 97) as f64 * 6.0;
@@ -72,8 +74,6 @@ impl YearCe for NaiveDate {
     }
 }
 
-
-
 fn main() {
     let entities = env_usize("HAZARDLINE_BENCH_ENTITIES", 2000);
     let years = env_usize("HAZARDLINE_BENCH_YEARS", 10);
@@ -100,7 +100,14 @@ fn main() {
     let cpu = cpu_seconds() - cpu0;
     let c = &ds.counts[0];
     println!("panel: {} ({entities} entities x {years} years x 8 tenors)", root.display());
-    println!("rows in {} = used {} + rejected {}; flagged {}; quality flags {}", c.rows_in, c.used, c.rejected, c.flagged, ds.flags.len());
+    println!(
+        "rows in {} = used {} + rejected {}; flagged {}; quality flags {}",
+        c.rows_in,
+        c.used,
+        c.rejected,
+        c.flagged,
+        ds.flags.len()
+    );
     println!("wall {wall:.2} s, cpu {cpu:.2} s, {:.2} million rows per second", c.rows_in as f64 / wall / 1e6);
     println!("peak resident memory {:.0} MiB", peak_rss_mib());
 }

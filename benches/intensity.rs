@@ -8,9 +8,7 @@
 use chrono::NaiveDate;
 use criterion::{black_box, criterion_group, criterion_main, Criterion};
 use hazardline::calibrate::bond_fit::{fit_bond_hazard, BondFitSettings, BondQuote};
-use hazardline::calibrate::cir::{
-    fit_cir, fit_cir_fixed, start_from_curve, CirFitSettings, CirSolver,
-};
+use hazardline::calibrate::cir::{fit_cir, fit_cir_fixed, start_from_curve, CirFitSettings, CirSolver};
 use hazardline::calibrate::{bootstrap, BootstrapQuote, BootstrapSettings};
 use hazardline::curves::{DiscountCurve, HazardCurve};
 use hazardline::instruments::bond::{price_bond, BondTerms, RecoveryConvention};
@@ -31,10 +29,7 @@ fn setup() -> (NaiveDate, DiscountCurve, Vec<BootstrapQuote>) {
         ("10Y", 0.0383),
         ("30Y", 0.041),
     ];
-    let pillars: Vec<(Tenor, f64)> = zeros
-        .iter()
-        .map(|&(t, z)| (t.parse().unwrap(), z))
-        .collect();
+    let pillars: Vec<(Tenor, f64)> = zeros.iter().map(|&(t, z)| (t.parse().unwrap(), z)).collect();
     let disc = DiscountCurve::from_zero_rates(trade, &pillars).unwrap();
     let quotes = [
         ("6M", 45.0),
@@ -47,11 +42,7 @@ fn setup() -> (NaiveDate, DiscountCurve, Vec<BootstrapQuote>) {
         ("10Y", 150.0),
     ]
     .iter()
-    .map(|&(t, bp)| BootstrapQuote {
-        tenor: t.parse().unwrap(),
-        quote: CdsQuote::ParSpread(bp / 1e4),
-        recovery: 0.4,
-    })
+    .map(|&(t, bp)| BootstrapQuote { tenor: t.parse().unwrap(), quote: CdsQuote::ParSpread(bp / 1e4), recovery: 0.4 })
     .collect();
     (trade, disc, quotes)
 }
@@ -62,54 +53,22 @@ fn bench(c: &mut Criterion) {
     let boot = bootstrap(trade, &quotes, &disc, &cal, &BootstrapSettings::default()).unwrap();
     let start = start_from_curve(boot.curve.as_ref().unwrap());
     let lm = CirFitSettings::default();
-    let nm = CirFitSettings {
-        solver: CirSolver::NelderMead,
-        ..CirFitSettings::default()
-    };
+    let nm = CirFitSettings { solver: CirSolver::NelderMead, ..CirFitSettings::default() };
     let fit = fit_cir(trade, &quotes, &disc, &cal, &[start], &lm).unwrap();
     eprintln!(
         "CIR fit of the bench curve: kappa {:.4} theta {:.5} sigma {:.4} lambda0 {:.5} rmse {:.3} bp, {} iterations, {} evaluations, {}",
         fit.kappa, fit.theta, fit.sigma, fit.lambda0, fit.rmse_bp, fit.iterations, fit.evaluations, fit.status.as_str()
     );
     c.bench_function("cir fit 8 tenors to 10Y (LM)", |b| {
-        b.iter(|| {
-            fit_cir(
-                black_box(trade),
-                black_box(&quotes),
-                &disc,
-                &cal,
-                &[start],
-                &lm,
-            )
-            .unwrap()
-        })
+        b.iter(|| fit_cir(black_box(trade), black_box(&quotes), &disc, &cal, &[start], &lm).unwrap())
     });
     c.bench_function("cir fit 8 tenors to 10Y (argmin Nelder-Mead)", |b| {
-        b.iter(|| {
-            fit_cir(
-                black_box(trade),
-                black_box(&quotes),
-                &disc,
-                &cal,
-                &[start],
-                &nm,
-            )
-            .unwrap()
-        })
+        b.iter(|| fit_cir(black_box(trade), black_box(&quotes), &disc, &cal, &[start], &nm).unwrap())
     });
     c.bench_function("cir fit theta, lambda0 with kappa, sigma fixed", |b| {
         b.iter(|| {
-            fit_cir_fixed(
-                black_box(trade),
-                black_box(&quotes),
-                &disc,
-                &cal,
-                fit.kappa,
-                fit.sigma,
-                &[fit.params()],
-                &lm,
-            )
-            .unwrap()
+            fit_cir_fixed(black_box(trade), black_box(&quotes), &disc, &cal, fit.kappa, fit.sigma, &[fit.params()], &lm)
+                .unwrap()
         })
     });
 
@@ -131,15 +90,8 @@ fn bench(c: &mut Criterion) {
             day_count: DayCount::Thirty360,
             issue_date: None,
         };
-        let clean = price_bond(&terms, &disc, &truth, 0.4, RecoveryConvention::Par)
-            .unwrap()
-            .clean
-            + 0.05;
-        BondQuote {
-            terms,
-            clean_price: clean,
-            bid_ask: None,
-        }
+        let clean = price_bond(&terms, &disc, &truth, 0.4, RecoveryConvention::Par).unwrap().clean + 0.05;
+        BondQuote { terms, clean_price: clean, bid_ask: None }
     })
     .collect();
     let bs = BondFitSettings::default();

@@ -9,10 +9,10 @@
 //! The CIR fit is limited to the generated pipeline's charted names (as in the demo); set
 //! HAZARDLINE_BENCH_CIR=0 to switch it off.
 
-use hazardline::stages::universe::write_demo;
 use hazardline::config::load_pipeline;
 use hazardline::run::{run, RunOptions};
 use hazardline::sim::ScenarioSpec;
+use hazardline::stages::universe::write_demo;
 use std::path::PathBuf;
 use std::time::Instant;
 
@@ -32,13 +32,15 @@ fn main() {
     let dir = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join(format!("target/bench-data/pipeline-{entities}x{years}"));
     if std::env::var_os("HAZARDLINE_BENCH_CHILD").is_some() {
         let t = Instant::now();
-        write_demo(&dir, &ScenarioSpec { entities, years, ..ScenarioSpec::demo(20150101) }).expect("generate the universe");
+        write_demo(&dir, &ScenarioSpec { entities, years, ..ScenarioSpec::demo(20150101) })
+            .expect("generate the universe");
         eprintln!("generated {entities} x {years} in {:.1} s", t.elapsed().as_secs_f64());
         return;
     }
     if !dir.join("pipeline.toml").exists() {
         let exe = std::env::current_exe().expect("bench executable");
-        let status = std::process::Command::new(exe).env("HAZARDLINE_BENCH_CHILD", "1").status().expect("generator child");
+        let status =
+            std::process::Command::new(exe).env("HAZARDLINE_BENCH_CHILD", "1").status().expect("generator child");
         assert!(status.success(), "generating the universe failed");
     }
     let p = dir.join("pipeline.toml");
@@ -48,7 +50,8 @@ fn main() {
     }
     let cfg = load_pipeline(&p).expect("pipeline file");
     let (cpu0, t0) = (cpu_seconds(), Instant::now());
-    let summary = run(&cfg, &RunOptions { out_root: Some(dir.join("reports")), label: Some("bench".into()) }).expect("run");
+    let summary =
+        run(&cfg, &RunOptions { out_root: Some(dir.join("reports")), label: Some("bench".into()) }).expect("run");
     let wall = t0.elapsed().as_secs_f64();
     let cpu = cpu_seconds() - cpu0;
     let rows: usize = summary.counts.iter().map(|c| c.rows_in).sum();
@@ -56,5 +59,10 @@ fn main() {
     for ((stage, s), (_, rss, peak)) in summary.timings.iter().zip(&summary.memory) {
         println!("  {stage:<20} {s:>9.2} s   resident {rss:>7.0} MiB, peak so far {peak:>7.0} MiB");
     }
-    println!("  {:<20} {wall:>9.2} s wall, {cpu:.1} s CPU, {:.0} input rows/s, peak RSS {:.0} MiB", "total", rows as f64 / wall, peak_rss_mib());
+    println!(
+        "  {:<20} {wall:>9.2} s wall, {cpu:.1} s CPU, {:.0} input rows/s, peak RSS {:.0} MiB",
+        "total",
+        rows as f64 / wall,
+        peak_rss_mib()
+    );
 }

@@ -5,12 +5,12 @@
 //! Every setting has a default, documented on its field; `pipelines/quarterly-review.toml`
 //! shows them all with comments.
 
+use crate::backtest::BacktestSettings;
 use crate::calibrate::cir::CirFitMode;
 use crate::calibrate::{BootstrapSettings, InfeasiblePolicy};
-use crate::instruments::bond::RecoveryConvention;
-use crate::backtest::BacktestSettings;
 use crate::error::{Error, Result};
 use crate::ingest::{InputPaths, QualitySettings};
+use crate::instruments::bond::RecoveryConvention;
 use crate::instruments::AccrualIntegration;
 use crate::time::{parse_iso_date, Calendar};
 use chrono::NaiveDate;
@@ -33,7 +33,14 @@ pub struct IntensitySettings {
 
 impl Default for IntensitySettings {
     fn default() -> Self {
-        IntensitySettings { bond_fit: false, cir: false, cir_mode: CirFitMode::Free, cir_window: 20, bond_convention: RecoveryConvention::Par, cir_entities: None }
+        IntensitySettings {
+            bond_fit: false,
+            cir: false,
+            cir_mode: CirFitMode::Free,
+            cir_window: 20,
+            bond_convention: RecoveryConvention::Par,
+            cir_entities: None,
+        }
     }
 }
 
@@ -57,11 +64,32 @@ impl BacktestStage {
         let c = &self.core;
         vec![
             ("enabled".into(), self.enabled.to_string()),
-            ("cohorts".into(), match self.frequency { CohortFrequency::Annual => "annual (first business day of each year)", CohortFrequency::Quarterly => "quarterly (first business day of each quarter)" }.into()),
+            (
+                "cohorts".into(),
+                match self.frequency {
+                    CohortFrequency::Annual => "annual (first business day of each year)",
+                    CohortFrequency::Quarterly => "quarterly (first business day of each quarter)",
+                }
+                .into(),
+            ),
             ("horizons_years".into(), format!("{:?}", c.horizons_years)),
             ("lookback_days".into(), c.lookback_days.to_string()),
-            ("censoring".into(), match c.censoring { CensoringPolicy::Exclude => "exclude from n (exposure kept)", CensoringPolicy::CountAsSurvivor => "count as survivor" }.into()),
-            ("buckets".into(), match &c.bucketing { Bucketing::Grades => "internal grade as of the cohort date".to_string(), Bucketing::PdEdges(e) => format!("implied-PD bands with edges {e:?}"), Bucketing::PdQuantiles(k) => format!("{k} implied-PD quantile bands") }),
+            (
+                "censoring".into(),
+                match c.censoring {
+                    CensoringPolicy::Exclude => "exclude from n (exposure kept)",
+                    CensoringPolicy::CountAsSurvivor => "count as survivor",
+                }
+                .into(),
+            ),
+            (
+                "buckets".into(),
+                match &c.bucketing {
+                    Bucketing::Grades => "internal grade as of the cohort date".to_string(),
+                    Bucketing::PdEdges(e) => format!("implied-PD bands with edges {e:?}"),
+                    Bucketing::PdQuantiles(k) => format!("{k} implied-PD quantile bands"),
+                },
+            ),
             ("level".into(), c.level.to_string()),
             ("zone_yellow".into(), c.zones.yellow.to_string()),
             ("zone_red".into(), c.zones.red.to_string()),
@@ -126,16 +154,21 @@ pub struct BacktestSection {
 
 fn backtest_stage(k: &BacktestSection, inputs: &InputPaths, path: &Path) -> Result<BacktestStage> {
     use crate::backtest::{Bucketing, CensoringPolicy};
-    let enabled = k.enabled.unwrap_or(inputs.grades.is_some() || inputs.defaults.is_some() || inputs.cohort_history.is_some());
+    let enabled =
+        k.enabled.unwrap_or(inputs.grades.is_some() || inputs.defaults.is_some() || inputs.cohort_history.is_some());
     let frequency = match k.cohorts.as_deref().unwrap_or("annual") {
         "annual" => CohortFrequency::Annual,
         "quarterly" => CohortFrequency::Quarterly,
-        other => return Err(bad(path, "backtest.cohorts", format!("{other:?} is not one of \"annual\", \"quarterly\""))),
+        other => {
+            return Err(bad(path, "backtest.cohorts", format!("{other:?} is not one of \"annual\", \"quarterly\"")))
+        }
     };
     let censoring = match k.censoring.as_deref().unwrap_or("exclude") {
         "exclude" => CensoringPolicy::Exclude,
         "survivor" => CensoringPolicy::CountAsSurvivor,
-        other => return Err(bad(path, "backtest.censoring", format!("{other:?} is not one of \"exclude\", \"survivor\""))),
+        other => {
+            return Err(bad(path, "backtest.censoring", format!("{other:?} is not one of \"exclude\", \"survivor\"")))
+        }
     };
     let default_buckets = if inputs.grades.is_some() { "grade" } else { "pd_bands" };
     let bucketing = match k.buckets.as_deref().unwrap_or(default_buckets) {
@@ -146,7 +179,8 @@ fn backtest_stage(k: &BacktestSection, inputs: &InputPaths, path: &Path) -> Resu
         },
         other => return Err(bad(path, "backtest.buckets", format!("{other:?} is not one of \"grade\", \"pd_bands\""))),
     };
-    let zones = crate::stats::ZoneThresholds::new(k.zone_yellow.unwrap_or(0.05), k.zone_red.unwrap_or(0.001)).map_err(|e| bad(path, "backtest.zone_yellow / zone_red", e.to_string()))?;
+    let zones = crate::stats::ZoneThresholds::new(k.zone_yellow.unwrap_or(0.05), k.zone_red.unwrap_or(0.001))
+        .map_err(|e| bad(path, "backtest.zone_yellow / zone_red", e.to_string()))?;
     // The cohort dates come from the data at run time (`commands::backtest::cohort_dates`); a
     // stand-in date here lets `check` validate every other setting now, at load time.
     let core = BacktestSettings {
@@ -365,7 +399,9 @@ pub struct RunConfig {
 }
 
 fn stability_settings(k: &StabilitySection, path: &Path) -> Result<crate::stability::StabilitySettings> {
-    use crate::stability::{cusum::CusumLevel, psi::PsiEdges, settings::MoveThreshold, ReviewPeriod, StabilitySettings};
+    use crate::stability::{
+        cusum::CusumLevel, psi::PsiEdges, settings::MoveThreshold, ReviewPeriod, StabilitySettings,
+    };
     let mut s = StabilitySettings::default();
     if let Some(p) = &k.period {
         s.period = p.parse::<ReviewPeriod>().map_err(|e| bad(path, "stability.period", e))?;
@@ -406,7 +442,13 @@ fn stability_settings(k: &StabilitySection, path: &Path) -> Result<crate::stabil
             "10%" => CusumLevel::Ten,
             "5%" => CusumLevel::Five,
             "1%" => CusumLevel::One,
-            other => return Err(bad(path, "stability.cusum_level", format!("{other:?} is not one of \"10%\", \"5%\", \"1%\""))),
+            other => {
+                return Err(bad(
+                    path,
+                    "stability.cusum_level",
+                    format!("{other:?} is not one of \"10%\", \"5%\", \"1%\""),
+                ))
+            }
         };
     }
     if let Some(n) = k.cusum_min_obs {
@@ -445,7 +487,8 @@ fn bad(path: &Path, key: &str, message: String) -> Error {
 /// Reads and checks a pipeline file.
 pub fn load_pipeline(path: &Path) -> Result<RunConfig> {
     let text = std::fs::read_to_string(path).map_err(|_| Error::NotFound { path: path.to_path_buf() })?;
-    let file: PipelineFile = toml::from_str(&text).map_err(|e| Error::Config { path: path.to_path_buf(), message: e.to_string().trim_end().to_string() })?;
+    let file: PipelineFile = toml::from_str(&text)
+        .map_err(|e| Error::Config { path: path.to_path_buf(), message: e.to_string().trim_end().to_string() })?;
     check(file, path)
 }
 
@@ -458,7 +501,11 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
             Some(p) => {
                 let full = if p.is_absolute() { p.clone() } else { base.join(p) };
                 if !full.exists() {
-                    return Err(bad(path, key, format!("input {} does not exist (resolved to {})", p.display(), full.display())));
+                    return Err(bad(
+                        path,
+                        key,
+                        format!("input {} does not exist (resolved to {})", p.display(), full.display()),
+                    ));
                 }
                 Ok(Some(full))
             }
@@ -507,20 +554,32 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
     let by_sen = c.recovery_by_seniority.clone().unwrap_or_default();
     for (k, v) in &by_sen {
         if !(0.0..1.0).contains(v) {
-            return Err(bad(path, &format!("conventions.recovery_by_seniority.{k}"), format!("{v} is not a fraction in [0, 1)")));
+            return Err(bad(
+                path,
+                &format!("conventions.recovery_by_seniority.{k}"),
+                format!("{v} is not a fraction in [0, 1)"),
+            ));
         }
     }
     let infeasible = c.infeasible.clone().unwrap_or_else(|| "floor".into());
     let policy = match infeasible.as_str() {
         "floor" => InfeasiblePolicy::Floor,
         "fail" => InfeasiblePolicy::Fail,
-        other => return Err(bad(path, "conventions.infeasible", format!("{other:?} is not one of \"floor\", \"fail\""))),
+        other => {
+            return Err(bad(path, "conventions.infeasible", format!("{other:?} is not one of \"floor\", \"fail\"")))
+        }
     };
     let accrual_on_default = c.accrual_on_default.clone().unwrap_or_else(|| "standard".into());
     let accrual = match accrual_on_default.as_str() {
         "standard" => AccrualIntegration::Standard,
         "exact" => AccrualIntegration::Exact,
-        other => return Err(bad(path, "conventions.accrual_on_default", format!("{other:?} is not one of \"standard\", \"exact\""))),
+        other => {
+            return Err(bad(
+                path,
+                "conventions.accrual_on_default",
+                format!("{other:?} is not one of \"standard\", \"exact\""),
+            ))
+        }
     };
 
     let k = &file.calibration;
@@ -532,26 +591,53 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
     }
     let cir = k.cir.unwrap_or(false);
     if cir && !cds_bootstrap {
-        return Err(bad(path, "calibration.cir", "the CIR fit starts from the bootstrapped curves and needs cds_bootstrap = true".into()));
+        return Err(bad(
+            path,
+            "calibration.cir",
+            "the CIR fit starts from the bootstrapped curves and needs cds_bootstrap = true".into(),
+        ));
     }
     let cir_mode = k.cir_mode.clone().unwrap_or_else(|| "free".into());
     let mode = match cir_mode.as_str() {
         "free" => CirFitMode::Free,
         "fixed_kappa_sigma" => CirFitMode::FixedKappaSigma,
-        other => return Err(bad(path, "calibration.cir_mode", format!("{other:?} is not one of \"free\", \"fixed_kappa_sigma\""))),
+        other => {
+            return Err(bad(
+                path,
+                "calibration.cir_mode",
+                format!("{other:?} is not one of \"free\", \"fixed_kappa_sigma\""),
+            ))
+        }
     };
     let cir_window = k.cir_window.unwrap_or(20);
     if cir_window < 2 {
-        return Err(bad(path, "calibration.cir_window", format!("{cir_window} is not a window of at least 2 business days")));
+        return Err(bad(
+            path,
+            "calibration.cir_window",
+            format!("{cir_window} is not a window of at least 2 business days"),
+        ));
     }
     let bond_recovery_convention = k.bond_recovery_convention.clone().unwrap_or_else(|| "par".into());
     let convention = match bond_recovery_convention.as_str() {
         "par" => RecoveryConvention::Par,
         "zero" => RecoveryConvention::Zero,
         "market" => RecoveryConvention::Market,
-        other => return Err(bad(path, "calibration.bond_recovery_convention", format!("{other:?} is not one of \"par\", \"zero\", \"market\""))),
+        other => {
+            return Err(bad(
+                path,
+                "calibration.bond_recovery_convention",
+                format!("{other:?} is not one of \"par\", \"zero\", \"market\""),
+            ))
+        }
     };
-    let intensity = IntensitySettings { bond_fit, cir, cir_mode: mode, cir_window, bond_convention: convention, cir_entities: k.cir_entities.clone() };
+    let intensity = IntensitySettings {
+        bond_fit,
+        cir,
+        cir_mode: mode,
+        cir_window,
+        bond_convention: convention,
+        cir_entities: k.cir_entities.clone(),
+    };
 
     let q = &file.quality;
     let d = QualitySettings::default();
@@ -595,7 +681,11 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         None => None,
         Some(v) => Some(
             v.iter()
-                .map(|s| parse_iso_date(s).ok_or_else(|| bad(path, "report.term_structure_dates", format!("{s:?} is not an ISO date yyyy-mm-dd"))))
+                .map(|s| {
+                    parse_iso_date(s).ok_or_else(|| {
+                        bad(path, "report.term_structure_dates", format!("{s:?} is not an ISO date yyyy-mm-dd"))
+                    })
+                })
                 .collect::<Result<Vec<_>>>()?,
         ),
     };
@@ -641,7 +731,13 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
             None | Some("auto") => LargeTables::Auto,
             Some("single") => LargeTables::Single,
             Some("by_year") => LargeTables::ByYear,
-            Some(other) => return Err(bad(path, "report.large_tables", format!("{other:?} is not one of \"auto\", \"single\", \"by_year\""))),
+            Some(other) => {
+                return Err(bad(
+                    path,
+                    "report.large_tables",
+                    format!("{other:?} is not one of \"auto\", \"single\", \"by_year\""),
+                ))
+            }
         },
         backtest_settings: backtest.pairs(),
         backtest,
@@ -660,7 +756,8 @@ pub fn read_holidays(path: &Path) -> std::result::Result<Calendar, String> {
         if t.is_empty() || t.starts_with('#') || t.eq_ignore_ascii_case("date") {
             continue;
         }
-        let d = parse_iso_date(t).ok_or_else(|| format!("{} line {}: {t:?} is not an ISO date yyyy-mm-dd", path.display(), i + 1))?;
+        let d = parse_iso_date(t)
+            .ok_or_else(|| format!("{} line {}: {t:?} is not an ISO date yyyy-mm-dd", path.display(), i + 1))?;
         days.push(d);
     }
     Ok(Calendar::with_holidays(days))

@@ -11,7 +11,9 @@
 //! run settings) -> [`report`] (report.md and figures) -> [`tables`] (output tables and the
 //! manifest) -> [`ingest`] (input tables, row rules, data quality) -> [`error`].
 
-pub use hazardline_core::{backtest, calibrate, curves, hash, instruments, math, models, parts, sim, stability, stats, text, time};
+pub use hazardline_core::{
+    backtest, calibrate, curves, hash, instruments, math, models, parts, sim, stability, stats, text, time,
+};
 
 pub mod commands;
 pub mod config;

@@ -9,9 +9,9 @@ use hazardline::calibrate::{BootstrapSettings, InfeasiblePolicy};
 use hazardline::commands::calibrate::CalibrateSettings;
 use hazardline::commands::check::CheckSettings;
 use hazardline::error::{Error, Result};
-use hazardline::stages::calibrate::CalibrationParams;
 use hazardline::ingest::{InputPaths, QualitySettings};
 use hazardline::instruments::AccrualIntegration;
+use hazardline::stages::calibrate::CalibrationParams;
 use hazardline::time::Calendar;
 use std::io::IsTerminal;
 use std::path::PathBuf;
@@ -218,7 +218,8 @@ fn init_logging(verbose: u8, quiet: bool) {
             _ => "trace",
         }
     };
-    let filter = tracing_subscriber::EnvFilter::try_from_default_env().unwrap_or_else(|_| tracing_subscriber::EnvFilter::new(level));
+    let filter = tracing_subscriber::EnvFilter::try_from_default_env()
+        .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new(level));
     let _ = tracing_subscriber::fmt()
         .with_env_filter(filter)
         .with_writer(std::io::stderr)
@@ -264,17 +265,36 @@ fn dispatch(command: Command) -> Result<u8> {
                 },
                 ..BootstrapSettings::default()
             };
-            let params = CalibrationParams { recovery, recovery_by_seniority: Default::default(), calendar: calendar.clone(), bootstrap };
-            commands::calibrate::run(&CalibrateSettings { inputs: inputs.paths(), out, params, calendar, quality: QualitySettings::default() })
+            let params = CalibrationParams {
+                recovery,
+                recovery_by_seniority: Default::default(),
+                calendar: calendar.clone(),
+                bootstrap,
+            };
+            commands::calibrate::run(&CalibrateSettings {
+                inputs: inputs.paths(),
+                out,
+                params,
+                calendar,
+                quality: QualitySettings::default(),
+            })
         }
         Command::Run { pipeline, out, label, shard, dates } => {
             commands::run::run(&pipeline, &hazardline::run::RunOptions { out_root: out, label }, shard, dates)
         }
-        Command::Merge { pipeline, out, label } => commands::merge::run(&pipeline, &hazardline::run::RunOptions { out_root: out, label }),
+        Command::Merge { pipeline, out, label } => {
+            commands::merge::run(&pipeline, &hazardline::run::RunOptions { out_root: out, label })
+        }
         Command::Report { run_dir } => commands::report::run(&run_dir),
         Command::Compare { run_a, run_b, out } => commands::compare::run(&run_a, &run_b, out.as_deref()),
         Command::Demo { out_dir, seed, entities, years, start } => {
-            let spec = hazardline::sim::ScenarioSpec { seed, entities, years, start, ..hazardline::sim::ScenarioSpec::demo(seed) };
+            let spec = hazardline::sim::ScenarioSpec {
+                seed,
+                entities,
+                years,
+                start,
+                ..hazardline::sim::ScenarioSpec::demo(seed)
+            };
             commands::demo::run(&out_dir, &spec)
         }
         Command::Selfcheck { size, seed, keep } => {
@@ -286,7 +306,12 @@ fn dispatch(command: Command) -> Result<u8> {
         }
         Command::Check { inputs, out } => {
             let calendar = calendar_of(&inputs)?;
-            commands::check::run(&CheckSettings { inputs: inputs.paths(), calendar, quality: QualitySettings::default(), out })
+            commands::check::run(&CheckSettings {
+                inputs: inputs.paths(),
+                calendar,
+                quality: QualitySettings::default(),
+                out,
+            })
         }
     }
 }

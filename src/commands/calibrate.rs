@@ -40,7 +40,10 @@ pub struct CalibrateSummary {
 /// Calibrates the inputs and writes the tables.
 pub fn calibrate(s: &CalibrateSettings) -> Result<CalibrateSummary> {
     if s.inputs.cds_quotes.is_none() || s.inputs.discount.is_none() {
-        return Err(Error::Argument { name: "inputs", message: "calibrate needs the cds_quotes and discount tables".into() });
+        return Err(Error::Argument {
+            name: "inputs",
+            message: "calibrate needs the cds_quotes and discount tables".into(),
+        });
     }
     let mut ds = load(&s.inputs, &s.calendar, &s.quality)?;
     let cal = calibrate_dataset(&mut ds, &s.params)?;

@@ -6,8 +6,8 @@
 use crate::error::Result;
 use crate::ingest::{load, InputPaths, QualitySettings, TableCounts};
 use crate::stages::calibrate::top_reasons;
-use crate::tables::flags::{FlagRecord, QUALITY_FLAGS};
 use crate::tables;
+use crate::tables::flags::{FlagRecord, QUALITY_FLAGS};
 use crate::time::Calendar;
 use std::collections::BTreeMap;
 use std::path::PathBuf;
@@ -31,7 +31,8 @@ pub struct CheckSummary {
 /// Reads the inputs and runs the data-quality rules; writes the tables when `out` is set.
 pub fn check(s: &CheckSettings) -> Result<CheckSummary> {
     let ds = load(&s.inputs, &s.calendar, &s.quality)?;
-    let mut summary = CheckSummary { counts: ds.counts.clone(), top_reasons: top_reasons(&ds.rejects, 10), ..Default::default() };
+    let mut summary =
+        CheckSummary { counts: ds.counts.clone(), top_reasons: top_reasons(&ds.rejects, 10), ..Default::default() };
     for f in &ds.flags {
         *summary.flags_by_rule.entry(f.rule.as_str()).or_default() += 1;
     }
@@ -41,7 +42,11 @@ pub fn check(s: &CheckSettings) -> Result<CheckSummary> {
             ("hazardline.stage".to_string(), "check".to_string()),
             ("hazardline.quality".to_string(), format!("{:?}", s.quality)),
         ];
-        let paths = [out.join("rejects.parquet"), out.join("data_quality.parquet"), out.join(format!("{QUALITY_FLAGS}.parquet"))];
+        let paths = [
+            out.join("rejects.parquet"),
+            out.join("data_quality.parquet"),
+            out.join(format!("{QUALITY_FLAGS}.parquet")),
+        ];
         tables::write_to(&ds.rejects, &paths[0], &meta)?;
         tables::write_to(&ds.data_quality, &paths[1], &meta)?;
         let flags: Vec<FlagRecord> = ds.flags.iter().map(FlagRecord::quality).collect();

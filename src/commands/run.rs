@@ -29,7 +29,10 @@ pub fn run(pipeline: &Path, opts: &RunOptions, shard: Option<Shard>, dates: Opti
 /// pipeline file asks to fail on them.
 pub fn print_run(s: &RunSummary, fail_on_red_flags: bool) -> u8 {
     super::print_counts(&s.counts);
-    println!("curves: {} ({} with every node ok); largest |residual| on ok nodes {:.3e} bp", s.curves, s.curves_complete, s.max_abs_residual_bp);
+    println!(
+        "curves: {} ({} with every node ok); largest |residual| on ok nodes {:.3e} bp",
+        s.curves, s.curves_complete, s.max_abs_residual_bp
+    );
     println!("rejected rows: {}; flags: {} ({} red)", s.rejected, s.flags, s.red_flags);
     for (stage, secs) in &s.timings {
         tracing::info!(stage = stage.as_str(), seconds = secs, "stage finished");

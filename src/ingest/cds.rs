@@ -144,7 +144,11 @@ pub fn read(path: &Path, cal: &Calendar, rules: &CdsRowRules) -> Result<CdsPanel
                 Err(mut rej) => {
                     rej.date = file.cell(C_DATE, i).date().ok().flatten();
                     rej.entity = file.cell(C_ENTITY, i).text();
-                    rej.key = [file.cell(C_CCY, i).text(), file.cell(C_TENOR, i).text()].into_iter().flatten().collect::<Vec<_>>().join(" ");
+                    rej.key = [file.cell(C_CCY, i).text(), file.cell(C_TENOR, i).text()]
+                        .into_iter()
+                        .flatten()
+                        .collect::<Vec<_>>()
+                        .join(" ");
                     panel.rejects.push(rej)
                 }
             }
@@ -158,28 +162,64 @@ fn reject(src: &str, row: u64, reason: &'static str, detail: String) -> Reject {
     Reject::new(TABLE, src, row, reason, detail)
 }
 
-pub(crate) fn number(cell: Cell<'_>, table: &'static str, column: &str, src: &str, row: u64) -> std::result::Result<Option<f64>, Reject> {
+pub(crate) fn number(
+    cell: Cell<'_>,
+    table: &'static str,
+    column: &str,
+    src: &str,
+    row: u64,
+) -> std::result::Result<Option<f64>, Reject> {
     match cell.number() {
-        Err(()) => Err(Reject::new(table, src, row, "unparseable_number", format!("column {column}: {} is not a number", cell.show()))),
-        Ok(Some(x)) if !x.is_finite() => {
-            Err(Reject::new(table, src, row, "unparseable_number", format!("column {column}: {x} is not a finite number")))
-        }
+        Err(()) => Err(Reject::new(
+            table,
+            src,
+            row,
+            "unparseable_number",
+            format!("column {column}: {} is not a number", cell.show()),
+        )),
+        Ok(Some(x)) if !x.is_finite() => Err(Reject::new(
+            table,
+            src,
+            row,
+            "unparseable_number",
+            format!("column {column}: {x} is not a finite number"),
+        )),
         Ok(v) => Ok(v),
     }
 }
 
-pub(crate) fn required_date(cell: Cell<'_>, table: &'static str, column: &str, src: &str, row: u64) -> std::result::Result<NaiveDate, Reject> {
+pub(crate) fn required_date(
+    cell: Cell<'_>,
+    table: &'static str,
+    column: &str,
+    src: &str,
+    row: u64,
+) -> std::result::Result<NaiveDate, Reject> {
     match cell.date() {
         Ok(Some(d)) => Ok(d),
         Ok(None) => Err(Reject::new(table, src, row, "missing_value", format!("column {column} is empty"))),
-        Err(()) => Err(Reject::new(table, src, row, "unparseable_date", format!("column {column}: {} is not an ISO date yyyy-mm-dd", cell.show()))),
+        Err(()) => Err(Reject::new(
+            table,
+            src,
+            row,
+            "unparseable_date",
+            format!("column {column}: {} is not an ISO date yyyy-mm-dd", cell.show()),
+        )),
     }
 }
 
-pub(crate) fn required_text<'a>(cell: Cell<'a>, table: &'static str, column: &str, src: &str, row: u64) -> std::result::Result<Cell<'a>, Reject> {
+pub(crate) fn required_text<'a>(
+    cell: Cell<'a>,
+    table: &'static str,
+    column: &str,
+    src: &str,
+    row: u64,
+) -> std::result::Result<Cell<'a>, Reject> {
     match cell {
         Cell::Null => Err(Reject::new(table, src, row, "missing_value", format!("column {column} is empty"))),
-        Cell::Str(s) if s.trim().is_empty() => Err(Reject::new(table, src, row, "missing_value", format!("column {column} is empty"))),
+        Cell::Str(s) if s.trim().is_empty() => {
+            Err(Reject::new(table, src, row, "missing_value", format!("column {column} is empty")))
+        }
         c => Ok(c),
     }
 }
@@ -229,29 +269,80 @@ fn parse_row(
     }
     .map_err(|e| reject(src, row, "unknown_tenor", format!("column tenor: {e}")))?;
     if !cal.is_business_day(date) {
-        return Err(reject(src, row, "non_business_day", format!("column date: {date} is a {}", if Calendar::is_weekend(date) { "weekend day" } else { "listed holiday" })));
+        return Err(reject(
+            src,
+            row,
+            "non_business_day",
+            format!(
+                "column date: {date} is a {}",
+                if Calendar::is_weekend(date) { "weekend day" } else { "listed holiday" }
+            ),
+        ));
     }
     let spread = number(file.cell(C_SPREAD, i), TABLE, "par_spread_bp", src, row)?;
     let upfront = number(file.cell(C_UPFRONT, i), TABLE, "upfront", src, row)?;
     let coupon = number(file.cell(C_COUPON, i), TABLE, "coupon_bp", src, row)?;
     let quote = match (spread, upfront, coupon) {
-        (Some(s), _, _) if s <= 0.0 => return Err(reject(src, row, "non_positive_spread", format!("column par_spread_bp: {s} bp is not positive"))),
+        (Some(s), _, _) if s <= 0.0 => {
+            return Err(reject(
+                src,
+                row,
+                "non_positive_spread",
+                format!("column par_spread_bp: {s} bp is not positive"),
+            ))
+        }
         (Some(s), _, _) if s > rules.max_spread_bp => {
-            return Err(reject(src, row, "spread_above_cap", format!("column par_spread_bp: {s} bp is above the plausible cap of {} bp", rules.max_spread_bp)))
+            return Err(reject(
+                src,
+                row,
+                "spread_above_cap",
+                format!("column par_spread_bp: {s} bp is above the plausible cap of {} bp", rules.max_spread_bp),
+            ))
         }
         (Some(s), _, _) => CdsQuote::ParSpread(s / 1e4),
-        (None, Some(u), Some(c)) if c < 0.0 => return Err(reject(src, row, "negative_coupon", format!("column coupon_bp: {c} bp is negative (upfront {u})"))),
+        (None, Some(u), Some(c)) if c < 0.0 => {
+            return Err(reject(
+                src,
+                row,
+                "negative_coupon",
+                format!("column coupon_bp: {c} bp is negative (upfront {u})"),
+            ))
+        }
         (None, Some(u), Some(_)) if !(u > -1.0 && u < 1.0) => {
-            return Err(reject(src, row, "implausible_upfront", format!("column upfront: {u} is not a fraction of notional between -1 and 1")))
+            return Err(reject(
+                src,
+                row,
+                "implausible_upfront",
+                format!("column upfront: {u} is not a fraction of notional between -1 and 1"),
+            ))
         }
         (None, Some(u), Some(c)) => CdsQuote::Upfront { upfront: u, coupon: c / 1e4 },
-        (None, Some(_), None) => return Err(reject(src, row, "missing_value", "column coupon_bp is empty: an upfront quote needs its running coupon".into())),
-        (None, None, _) => return Err(reject(src, row, "missing_value", "no quote: par_spread_bp is empty and there is no upfront".into())),
+        (None, Some(_), None) => {
+            return Err(reject(
+                src,
+                row,
+                "missing_value",
+                "column coupon_bp is empty: an upfront quote needs its running coupon".into(),
+            ))
+        }
+        (None, None, _) => {
+            return Err(reject(
+                src,
+                row,
+                "missing_value",
+                "no quote: par_spread_bp is empty and there is no upfront".into(),
+            ))
+        }
     };
     let recovery = number(file.cell(C_RECOVERY, i), TABLE, "recovery", src, row)?;
     if let Some(r) = recovery {
         if !(0.0..1.0).contains(&r) {
-            return Err(reject(src, row, "implausible_recovery", format!("column recovery: {r} is not a fraction in [0, 1)")));
+            return Err(reject(
+                src,
+                row,
+                "implausible_recovery",
+                format!("column recovery: {r} is not a fraction in [0, 1)"),
+            ));
         }
     }
     let mut b2 = String::new();

@@ -46,18 +46,22 @@ pub fn read(path: &Path, band: (f64, f64)) -> Result<DiscountTable> {
                 let date = required_date(file.cell(0, i), TABLE, "date", &src, row)?;
                 let currency = required_text(file.cell(1, i), TABLE, "currency", &src, row)?.text().unwrap_or_default();
                 let tenor_text = required_text(file.cell(2, i), TABLE, "tenor", &src, row)?.text().unwrap_or_default();
-                let tenor: Tenor = tenor_text
-                    .parse()
-                    .map_err(|e: crate::time::tenor::TenorError| Reject::new(TABLE, &src, row, "unknown_tenor", format!("column tenor: {e}")))?;
-                let z = number(file.cell(3, i), TABLE, "zero_rate", &src, row)?
-                    .ok_or_else(|| Reject::new(TABLE, &src, row, "missing_value", "column zero_rate is empty".into()))?;
+                let tenor: Tenor = tenor_text.parse().map_err(|e: crate::time::tenor::TenorError| {
+                    Reject::new(TABLE, &src, row, "unknown_tenor", format!("column tenor: {e}"))
+                })?;
+                let z = number(file.cell(3, i), TABLE, "zero_rate", &src, row)?.ok_or_else(|| {
+                    Reject::new(TABLE, &src, row, "missing_value", "column zero_rate is empty".into())
+                })?;
                 if z < band.0 || z > band.1 {
                     return Err(Reject::new(
                         TABLE,
                         &src,
                         row,
                         "implausible_rate",
-                        format!("column zero_rate: {z} is outside the plausible band [{}, {}] (decimal, not percent)", band.0, band.1),
+                        format!(
+                            "column zero_rate: {z} is outside the plausible band [{}, {}] (decimal, not percent)",
+                            band.0, band.1
+                        ),
                     ));
                 }
                 Ok(DiscountRow { date, currency, tenor, zero_rate: z, source: src.clone(), row })
@@ -66,7 +70,11 @@ pub fn read(path: &Path, band: (f64, f64)) -> Result<DiscountTable> {
                 Ok(r) => out.rows.push(r),
                 Err(mut e) => {
                     e.date = file.cell(0, i).date().ok().flatten();
-                    e.key = [file.cell(1, i).text(), file.cell(2, i).text()].into_iter().flatten().collect::<Vec<_>>().join(" ");
+                    e.key = [file.cell(1, i).text(), file.cell(2, i).text()]
+                        .into_iter()
+                        .flatten()
+                        .collect::<Vec<_>>()
+                        .join(" ");
                     out.rejects.push(e)
                 }
             }
@@ -100,7 +108,16 @@ fn dedupe(out: &mut DiscountTable) {
             let conflicting = order[i + 1..j].iter().any(|&k| out.rows[k].zero_rate != first.zero_rate);
             for (n, &k) in order[i..j].iter().enumerate() {
                 if conflicting {
-                    drop[k] = Some(("conflicting_duplicate", format!("{} {} {} is given {} times with different rates", first.date, first.currency, first.tenor, j - i)));
+                    drop[k] = Some((
+                        "conflicting_duplicate",
+                        format!(
+                            "{} {} {} is given {} times with different rates",
+                            first.date,
+                            first.currency,
+                            first.tenor,
+                            j - i
+                        ),
+                    ));
                 } else if n > 0 {
                     drop[k] = Some(("duplicate_row", format!("repeats {} row {}", first.source, first.row)));
                 }

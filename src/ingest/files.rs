@@ -8,12 +8,20 @@ use std::path::Path;
 
 /// SHA-256 and size of a file, streamed.
 pub fn hash_file(path: &Path) -> Result<(u64, String)> {
-    let mut f = std::fs::File::open(path).map_err(|e| Error::Read { path: path.to_path_buf(), format: "file", message: e.to_string() })?;
+    let mut f = std::fs::File::open(path).map_err(|e| Error::Read {
+        path: path.to_path_buf(),
+        format: "file",
+        message: e.to_string(),
+    })?;
     let mut h = Sha256::new();
     let mut buf = vec![0u8; 1 << 20];
     let mut n = 0u64;
     loop {
-        let k = f.read(&mut buf).map_err(|e| Error::Read { path: path.to_path_buf(), format: "file", message: e.to_string() })?;
+        let k = f.read(&mut buf).map_err(|e| Error::Read {
+            path: path.to_path_buf(),
+            format: "file",
+            message: e.to_string(),
+        })?;
         if k == 0 {
             break;
         }

@@ -17,7 +17,8 @@ use std::collections::{BTreeMap, HashMap, HashSet};
 use std::path::PathBuf;
 
 /// Every input table, in load order (the order of the rejects table).
-pub const INPUT_TABLES: [&str; 8] = ["entities", "defaults", "grades", "cohort_history", "discount", "bonds", "bond_quotes", "cds_quotes"];
+pub const INPUT_TABLES: [&str; 8] =
+    ["entities", "defaults", "grades", "cohort_history", "discount", "bonds", "bond_quotes", "cds_quotes"];
 
 /// Where each input table is; any may be absent.
 #[derive(Debug, Clone, Default)]
@@ -133,7 +134,12 @@ impl Dataset {
 
 /// Settles duplicate keys of a small table: identical repeats keep the first; conflicting
 /// values reject every row of the key.
-fn dedupe<T: PartialEq, K: Ord + Clone>(t: &mut Rows<T>, table: &'static str, key: impl Fn(&T) -> K, describe: impl Fn(&T) -> String) {
+fn dedupe<T: PartialEq, K: Ord + Clone>(
+    t: &mut Rows<T>,
+    table: &'static str,
+    key: impl Fn(&T) -> K,
+    describe: impl Fn(&T) -> String,
+) {
     let mut groups: BTreeMap<K, Vec<usize>> = BTreeMap::new();
     for (i, (r, _)) in t.rows.iter().enumerate() {
         groups.entry(key(r)).or_default().push(i);
@@ -144,7 +150,10 @@ fn dedupe<T: PartialEq, K: Ord + Clone>(t: &mut Rows<T>, table: &'static str, ke
         let conflicting = idx[1..].iter().any(|&i| t.rows[i].0 != first.0);
         for (m, &i) in idx.iter().enumerate() {
             if conflicting {
-                drop[i] = Some(("conflicting_duplicate", format!("{} is given {} times with different values; none is used", describe(&first.0), idx.len())));
+                drop[i] = Some((
+                    "conflicting_duplicate",
+                    format!("{} is given {} times with different values; none is used", describe(&first.0), idx.len()),
+                ));
             } else if m > 0 {
                 drop[i] = Some(("duplicate_row", format!("repeats {} row {}", first.1.source, first.1.row)));
             }
@@ -153,7 +162,12 @@ fn dedupe<T: PartialEq, K: Ord + Clone>(t: &mut Rows<T>, table: &'static str, ke
     reject_marked(t, table, drop, &describe);
 }
 
-fn reject_marked<T>(t: &mut Rows<T>, table: &'static str, drop: Vec<Option<(&'static str, String)>>, describe: &dyn Fn(&T) -> String) {
+fn reject_marked<T>(
+    t: &mut Rows<T>,
+    table: &'static str,
+    drop: Vec<Option<(&'static str, String)>>,
+    describe: &dyn Fn(&T) -> String,
+) {
     let rows = std::mem::take(&mut t.rows);
     for ((r, p), d) in rows.into_iter().zip(drop) {
         match d {
@@ -167,13 +181,25 @@ fn reject_marked<T>(t: &mut Rows<T>, table: &'static str, drop: Vec<Option<(&'st
     }
 }
 
-fn filter_rows<T>(t: &mut Rows<T>, table: &'static str, test: impl Fn(&T) -> Option<(&'static str, String)>, describe: impl Fn(&T) -> String) {
+fn filter_rows<T>(
+    t: &mut Rows<T>,
+    table: &'static str,
+    test: impl Fn(&T) -> Option<(&'static str, String)>,
+    describe: impl Fn(&T) -> String,
+) {
     let drop: Vec<_> = t.rows.iter().map(|(r, _)| test(r)).collect();
     reject_marked(t, table, drop, &describe);
 }
 
 fn counts<T>(table: &'static str, t: &Rows<T>) -> TableCounts {
-    TableCounts { table, rows_in: t.info.rows, used: t.rows.len(), rejected: t.rejects.len(), flagged: 0, files: t.info.files.clone() }
+    TableCounts {
+        table,
+        rows_in: t.info.rows,
+        used: t.rows.len(),
+        rejected: t.rejects.len(),
+        flagged: 0,
+        files: t.info.files.clone(),
+    }
 }
 
 /// Reads every given table and applies all data-quality rules.
@@ -185,7 +211,8 @@ pub fn load(paths: &InputPaths, cal: &Calendar, q: &QualitySettings) -> Result<D
         dedupe(&mut t, ENTITIES, |r| r.entity.clone(), |r| format!("entity {}", r.entity));
         ds.entities = Some(t);
     }
-    let known: Option<HashSet<String>> = ds.entities.as_ref().map(|t| t.rows.iter().map(|(r, _)| r.entity.clone()).collect());
+    let known: Option<HashSet<String>> =
+        ds.entities.as_ref().map(|t| t.rows.iter().map(|(r, _)| r.entity.clone()).collect());
     let unknown = |e: &str| -> Option<(&'static str, String)> {
         match &known {
             Some(k) if !k.contains(e) => Some(("unknown_entity", format!("entity {e} is not in the entities table"))),
@@ -196,7 +223,12 @@ pub fn load(paths: &InputPaths, cal: &Calendar, q: &QualitySettings) -> Result<D
     if let Some(p) = &paths.defaults {
         let mut t = read_defaults(p)?;
         filter_rows(&mut t, DEFAULTS, |r| unknown(&r.entity), |r| format!("{} {}", r.entity, r.default_date));
-        dedupe(&mut t, DEFAULTS, |r| (r.entity.clone(), r.default_date), |r| format!("default of {} on {}", r.entity, r.default_date));
+        dedupe(
+            &mut t,
+            DEFAULTS,
+            |r| (r.entity.clone(), r.default_date),
+            |r| format!("default of {} on {}", r.entity, r.default_date),
+        );
         ds.defaults = Some(t);
     }
     let first_default = ds.first_defaults();
@@ -204,7 +236,12 @@ pub fn load(paths: &InputPaths, cal: &Calendar, q: &QualitySettings) -> Result<D
     if let Some(p) = &paths.grades {
         let mut t = read_grades(p)?;
         filter_rows(&mut t, GRADES, |r| unknown(&r.entity), |r| format!("{} from {}", r.entity, r.from_date));
-        dedupe(&mut t, GRADES, |r| (r.entity.clone(), r.from_date), |r| format!("grade of {} from {}", r.entity, r.from_date));
+        dedupe(
+            &mut t,
+            GRADES,
+            |r| (r.entity.clone(), r.from_date),
+            |r| format!("grade of {} from {}", r.entity, r.from_date),
+        );
         ds.grades = Some(t);
     }
     if let Some(p) = &paths.cohort_history {
@@ -223,7 +260,8 @@ pub fn load(paths: &InputPaths, cal: &Calendar, q: &QualitySettings) -> Result<D
     }
     if let Some(p) = &paths.bond_quotes {
         let mut t = read_bond_quotes(p, cal, q.bond_price_band)?;
-        let issuer: Option<HashMap<String, String>> = ds.bonds.as_ref().map(|b| b.rows.iter().map(|(r, _)| (r.bond.clone(), r.entity.clone())).collect());
+        let issuer: Option<HashMap<String, String>> =
+            ds.bonds.as_ref().map(|b| b.rows.iter().map(|(r, _)| (r.bond.clone(), r.entity.clone())).collect());
         filter_rows(
             &mut t,
             BOND_QUOTES,
@@ -231,7 +269,10 @@ pub fn load(paths: &InputPaths, cal: &Calendar, q: &QualitySettings) -> Result<D
                 Some(m) => match m.get(&r.bond) {
                     None => Some(("unknown_bond", format!("bond {} is not in the bonds table", r.bond))),
                     Some(e) => match first_default.get(e) {
-                        Some(d) if r.date > *d => Some(("after_default", format!("price dated {} after the issuer {e} defaulted on {d}", r.date))),
+                        Some(d) if r.date > *d => Some((
+                            "after_default",
+                            format!("price dated {} after the issuer {e} defaulted on {d}", r.date),
+                        )),
                         _ => None,
                     },
                 },
@@ -244,7 +285,8 @@ pub fn load(paths: &InputPaths, cal: &Calendar, q: &QualitySettings) -> Result<D
     }
     if let Some(p) = &paths.cds_quotes {
         let mut panel = cds::read(p, cal, &CdsRowRules { max_spread_bp: q.max_spread_bp })?;
-        let by_id: Vec<Option<NaiveDate>> = (0..panel.entities.len() as u32).map(|i| first_default.get(panel.entities.name(i)).copied()).collect();
+        let by_id: Vec<Option<NaiveDate>> =
+            (0..panel.entities.len() as u32).map(|i| first_default.get(panel.entities.name(i)).copied()).collect();
         let (bits, flags) = check_cds(&mut panel, &by_id, q);
         ds.cds_flags = bits;
         ds.flags.extend(flags);
@@ -265,7 +307,14 @@ pub fn load(paths: &InputPaths, cal: &Calendar, q: &QualitySettings) -> Result<D
         ds.counts.push(counts(COHORT_HISTORY, t));
     }
     if let Some(t) = &ds.discount {
-        ds.counts.push(TableCounts { table: discount::TABLE, rows_in: t.info.rows, used: t.rows.len(), rejected: t.rejects.len(), flagged: 0, files: t.info.files.clone() });
+        ds.counts.push(TableCounts {
+            table: discount::TABLE,
+            rows_in: t.info.rows,
+            used: t.rows.len(),
+            rejected: t.rejects.len(),
+            flagged: 0,
+            files: t.info.files.clone(),
+        });
     }
     if let Some(t) = &ds.bonds {
         ds.counts.push(counts(BONDS, t));
@@ -417,7 +466,12 @@ fn data_quality(ds: &Dataset, cal: &Calendar) -> Vec<DataQualityRow> {
                 a.first = Some(a.first.map_or(r.date, |x| x.min(r.date)));
                 a.last = Some(r.date);
             }
-            let acc: BTreeMap<String, Acc> = acc.into_iter().enumerate().filter(|(_, a)| a.used > 0).map(|(i, a)| (p.entities.name(i as u32).to_string(), a)).collect();
+            let acc: BTreeMap<String, Acc> = acc
+                .into_iter()
+                .enumerate()
+                .filter(|(_, a)| a.used > 0)
+                .map(|(i, a)| (p.entities.name(i as u32).to_string(), a))
+                .collect();
             let mut rejected: HashMap<&str, u64> = HashMap::new();
             for r in ds.rejects.iter().filter(|r| r.table == cds::TABLE) {
                 if let Some(e) = &r.entity {

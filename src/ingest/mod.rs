@@ -21,7 +21,6 @@ pub use load::{load, Dataset, InputPaths, TableCounts};
 pub use quality::{QualityFlag, QualitySettings};
 pub use source::{Cell, Reject};
 
-
 pub use crate::hash::{FastMap, Fnv};
 
 /// Maps names (entities, currencies, ...) to small integer ids so large panels hold no

@@ -5,8 +5,8 @@
 //! Works on the panel's plain rows; every threshold comes from [`QualitySettings`] and is
 //! printed in the outputs. A flag never removes a row; a reject always says why.
 
-use crate::text::{FlagRule, Severity};
 use super::cds::{CdsPanel, CdsQuoteRow};
+use crate::text::{FlagRule, Severity};
 use crate::time::serial;
 use chrono::NaiveDate;
 use rayon::prelude::*;
@@ -141,7 +141,11 @@ fn median(v: &mut [f64]) -> f64 {
 /// Runs the CDS rules on `panel`: rejected rows move to `panel.rejects`, kept rows are sorted
 /// by (date, entity name, currency name, tenor) and get their flag bits in the returned vector
 /// (parallel to `panel.rows`). `first_default[entity id]` is the entity's first default date.
-pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &QualitySettings) -> (Vec<u8>, Vec<QualityFlag>) {
+pub fn check_cds(
+    panel: &mut CdsPanel,
+    first_default: &[Option<NaiveDate>],
+    s: &QualitySettings,
+) -> (Vec<u8>, Vec<QualityFlag>) {
     let rows = std::mem::take(&mut panel.rows);
     let n = rows.len();
     let mut order: Vec<u32> = (0..n as u32).collect();
@@ -151,7 +155,9 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
     let mut findings: Vec<QualityFlag> = Vec::new();
 
     // Duplicates: adjacent in the order with the same (entity, currency, tenor, date).
-    let same_key = |a: &CdsQuoteRow, b: &CdsQuoteRow| a.entity == b.entity && a.currency == b.currency && a.tenor == b.tenor && a.date == b.date;
+    let same_key = |a: &CdsQuoteRow, b: &CdsQuoteRow| {
+        a.entity == b.entity && a.currency == b.currency && a.tenor == b.tenor && a.date == b.date
+    };
     let mut i = 0;
     while i < n {
         let first = &rows[order[i] as usize];
@@ -166,7 +172,11 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
             });
             for (m, &k) in order[i..j].iter().enumerate() {
                 if conflicting {
-                    drop.set(k as usize, "conflicting_duplicate", format!("quoted {} times on this date with different values; none is used", j - i));
+                    drop.set(
+                        k as usize,
+                        "conflicting_duplicate",
+                        format!("quoted {} times on this date with different values; none is used", j - i),
+                    );
                 } else if m > 0 {
                     drop.set(k as usize, "duplicate_row", format!("repeats {} row {}", panel.source(first), first.row));
                 }
@@ -238,7 +248,9 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
     }
     kept.truncate(w);
     drop_vec(flags);
-    kept.par_sort_unstable_by_key(|r| (serial(r.date), ent_rank[r.entity as usize], ccy_rank[r.currency as usize], r.tenor, r.file, r.row));
+    kept.par_sort_unstable_by_key(|r| {
+        (serial(r.date), ent_rank[r.entity as usize], ccy_rank[r.currency as usize], r.tenor, r.file, r.row)
+    });
 
     // Curve rules per (date, entity, currency).
     let mut i = 0;
@@ -263,7 +275,10 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
                 date: h.date,
                 value: count as f64,
                 threshold: s.min_tenors as f64,
-                explanation: format!("only {count} usable tenor(s) on this date, fewer than the {} asked for", s.min_tenors),
+                explanation: format!(
+                    "only {count} usable tenor(s) on this date, fewer than the {} asked for",
+                    s.min_tenors
+                ),
                 source: panel.source(&h).to_string(),
                 row: h.row as u64,
             });
@@ -293,7 +308,15 @@ pub fn check_cds(panel: &mut CdsPanel, first_default: &[Option<NaiveDate>], s: &
     }
     let bits: Vec<u8> = kept.iter().map(|r| r.flags).collect();
     panel.rows = kept;
-    findings.sort_by(|a, b| (a.date, &a.entity, &a.series, a.rule.as_str(), a.row).cmp(&(b.date, &b.entity, &b.series, b.rule.as_str(), b.row)));
+    findings.sort_by(|a, b| {
+        (a.date, &a.entity, &a.series, a.rule.as_str(), a.row).cmp(&(
+            b.date,
+            &b.entity,
+            &b.series,
+            b.rule.as_str(),
+            b.row,
+        ))
+    });
     (bits, findings)
 }
 
@@ -404,7 +427,11 @@ fn series_rules(
     for c in 0..changes.len() - 1 {
         let (r, next) = (changes[c], changes[c + 1]);
         let z = if mad > 0.0 { (r - cmed).abs() / mad } else { f64::INFINITY };
-        if z > s.spike_z && r.abs() > s.spike_min_log_move && next * r < 0.0 && next.abs() >= s.spike_revert_share * r.abs() {
+        if z > s.spike_z
+            && r.abs() > s.spike_min_log_move
+            && next * r < 0.0
+            && next.abs() >= s.spike_revert_share * r.abs()
+        {
             let k = series[keep[c + 1]];
             flags[k] |= FLAG_SPIKE;
             let (e, ser) = name(k);

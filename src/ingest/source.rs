@@ -168,9 +168,14 @@ pub fn table_files(path: &Path) -> Result<Vec<PathBuf>> {
     let mut out = Vec::new();
     let mut stack = vec![path.to_path_buf()];
     while let Some(dir) = stack.pop() {
-        let entries = std::fs::read_dir(&dir).map_err(|e| Error::Read { path: dir.clone(), format: "folder", message: e.to_string() })?;
+        let entries = std::fs::read_dir(&dir).map_err(|e| Error::Read {
+            path: dir.clone(),
+            format: "folder",
+            message: e.to_string(),
+        })?;
         for entry in entries {
-            let entry = entry.map_err(|e| Error::Read { path: dir.clone(), format: "folder", message: e.to_string() })?;
+            let entry =
+                entry.map_err(|e| Error::Read { path: dir.clone(), format: "folder", message: e.to_string() })?;
             let p = entry.path();
             if p.is_dir() {
                 stack.push(p);
@@ -292,9 +297,8 @@ pub fn read_table_batches(
     let mut info = TableInfo { files: files.clone(), ..TableInfo::default() };
     for file in files {
         let (mut lf, format) = scan(&file)?;
-        let schema = lf
-            .collect_schema()
-            .map_err(|e| Error::Read { path: file.clone(), format, message: e.to_string() })?;
+        let schema =
+            lf.collect_schema().map_err(|e| Error::Read { path: file.clone(), format, message: e.to_string() })?;
         let names: Vec<String> = schema.iter_names().map(|s| s.to_string()).collect();
         let hive = if path.is_dir() { hive_values(path, &file) } else { Vec::new() };
         // Schema check before any row is read.
@@ -305,7 +309,12 @@ pub fn read_table_batches(
             if in_file {
                 present.push(spec.name);
             } else if spec.required && !in_path {
-                return Err(Error::MissingColumn { path: file.clone(), table, column: spec.name.to_string(), found: names.join(", ") });
+                return Err(Error::MissingColumn {
+                    path: file.clone(),
+                    table,
+                    column: spec.name.to_string(),
+                    found: names.join(", "),
+                });
             }
         }
         for n in &names {

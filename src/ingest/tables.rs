@@ -81,10 +81,16 @@ pub fn read_entities(path: &Path) -> Result<Rows<EntityRow>> {
         ColumnSpec { name: "sector", kind: Kind::Text, required: false },
         ColumnSpec { name: "region", kind: Kind::Text, required: false },
     ];
-    read_rows(ENTITIES, path, SPECS, |f, i| (None, text(f.cell(0, i)), String::new()), |f, i, src, row| {
-        let entity = required_text(f.cell(0, i), ENTITIES, "entity", src, row)?.text().unwrap_or_default();
-        Ok(EntityRow { entity, name: text(f.cell(1, i)), sector: text(f.cell(2, i)), region: text(f.cell(3, i)) })
-    })
+    read_rows(
+        ENTITIES,
+        path,
+        SPECS,
+        |f, i| (None, text(f.cell(0, i)), String::new()),
+        |f, i, src, row| {
+            let entity = required_text(f.cell(0, i), ENTITIES, "entity", src, row)?.text().unwrap_or_default();
+            Ok(EntityRow { entity, name: text(f.cell(1, i)), sector: text(f.cell(2, i)), region: text(f.cell(3, i)) })
+        },
+    )
 }
 
 // ---------------------------------------------------------------- grades
@@ -102,7 +108,15 @@ pub struct GradeRow {
 /// Largest grade accepted: internal scales have tens of grades, not thousands.
 pub const MAX_GRADE: f64 = 100.0;
 
-fn whole_number(c: Cell<'_>, table: &'static str, column: &str, src: &str, row: u64, min: f64, max: f64) -> std::result::Result<Option<u64>, Reject> {
+fn whole_number(
+    c: Cell<'_>,
+    table: &'static str,
+    column: &str,
+    src: &str,
+    row: u64,
+    min: f64,
+    max: f64,
+) -> std::result::Result<Option<u64>, Reject> {
     let v = number(c, table, column, src, row)?;
     match v {
         None => Ok(None),
@@ -193,19 +207,43 @@ pub fn read_cohort_history(path: &Path) -> Result<Rows<CohortHistoryRow>> {
         COHORT_HISTORY,
         path,
         SPECS,
-        |f, i| (None, None, format!("{} grade {}", text(f.cell(0, i)).unwrap_or_default(), text(f.cell(1, i)).unwrap_or_default())),
+        |f, i| {
+            (
+                None,
+                None,
+                format!("{} grade {}", text(f.cell(0, i)).unwrap_or_default(), text(f.cell(1, i)).unwrap_or_default()),
+            )
+        },
         |f, i, src, row| {
-            let need = |v: Option<u64>, c: &str| v.ok_or_else(|| Reject::new(COHORT_HISTORY, src, row, "missing_value", format!("column {c} is empty")));
-            let year = need(whole_number(f.cell(0, i), COHORT_HISTORY, "year", src, row, 1900.0, 2200.0)?, "year")? as i32;
-            let grade = need(whole_number(f.cell(1, i), COHORT_HISTORY, "grade", src, row, 1.0, MAX_GRADE)?, "grade")? as u32;
-            let obligors = need(whole_number(f.cell(2, i), COHORT_HISTORY, "obligors", src, row, 0.0, 1e12)?, "obligors")?;
-            let defaults = need(whole_number(f.cell(3, i), COHORT_HISTORY, "defaults", src, row, 0.0, 1e12)?, "defaults")?;
+            let need = |v: Option<u64>, c: &str| {
+                v.ok_or_else(|| Reject::new(COHORT_HISTORY, src, row, "missing_value", format!("column {c} is empty")))
+            };
+            let year =
+                need(whole_number(f.cell(0, i), COHORT_HISTORY, "year", src, row, 1900.0, 2200.0)?, "year")? as i32;
+            let grade =
+                need(whole_number(f.cell(1, i), COHORT_HISTORY, "grade", src, row, 1.0, MAX_GRADE)?, "grade")? as u32;
+            let obligors =
+                need(whole_number(f.cell(2, i), COHORT_HISTORY, "obligors", src, row, 0.0, 1e12)?, "obligors")?;
+            let defaults =
+                need(whole_number(f.cell(3, i), COHORT_HISTORY, "defaults", src, row, 0.0, 1e12)?, "defaults")?;
             let withdrawn = whole_number(f.cell(4, i), COHORT_HISTORY, "withdrawn", src, row, 0.0, 1e12)?;
             if defaults > obligors {
-                return Err(Reject::new(COHORT_HISTORY, src, row, "defaults_exceed_obligors", format!("{defaults} defaults out of {obligors} obligors")));
+                return Err(Reject::new(
+                    COHORT_HISTORY,
+                    src,
+                    row,
+                    "defaults_exceed_obligors",
+                    format!("{defaults} defaults out of {obligors} obligors"),
+                ));
             }
             if withdrawn.unwrap_or(0) + defaults > obligors {
-                return Err(Reject::new(COHORT_HISTORY, src, row, "defaults_exceed_obligors", format!("{defaults} defaults and {} withdrawn out of {obligors} obligors", withdrawn.unwrap_or(0))));
+                return Err(Reject::new(
+                    COHORT_HISTORY,
+                    src,
+                    row,
+                    "defaults_exceed_obligors",
+                    format!("{defaults} defaults and {} withdrawn out of {obligors} obligors", withdrawn.unwrap_or(0)),
+                ));
             }
             Ok(CohortHistoryRow { year, grade, obligors, defaults, withdrawn })
         },
@@ -260,21 +298,54 @@ pub fn read_bonds(path: &Path) -> Result<Rows<BondRow>> {
                 return Err(Reject::new(BONDS, src, row, "implausible_coupon", format!("column coupon: {coupon} is not a decimal rate in [0, {MAX_COUPON}] (percent typed for a decimal?)")));
             }
             let frequency = whole_number(f.cell(4, i), BONDS, "frequency", src, row, 1.0, 12.0)?
-                .ok_or_else(|| Reject::new(BONDS, src, row, "missing_value", "column frequency is empty".into()))? as u32;
+                .ok_or_else(|| Reject::new(BONDS, src, row, "missing_value", "column frequency is empty".into()))?
+                as u32;
             if ![1, 2, 4, 12].contains(&frequency) {
-                return Err(Reject::new(BONDS, src, row, "bad_frequency", format!("column frequency: {frequency} coupons a year is not one of 1, 2, 4, 12")));
+                return Err(Reject::new(
+                    BONDS,
+                    src,
+                    row,
+                    "bad_frequency",
+                    format!("column frequency: {frequency} coupons a year is not one of 1, 2, 4, 12"),
+                ));
             }
             let maturity = required_date(f.cell(5, i), BONDS, "maturity", src, row)?;
             let dc_text = required_text(f.cell(6, i), BONDS, "day_count", src, row)?.text().unwrap_or_default();
-            let day_count: DayCount = dc_text.parse().map_err(|e: crate::time::daycount::DayCountError| Reject::new(BONDS, src, row, "unknown_day_count", format!("column day_count: {e}")))?;
+            let day_count: DayCount = dc_text.parse().map_err(|e: crate::time::daycount::DayCountError| {
+                Reject::new(BONDS, src, row, "unknown_day_count", format!("column day_count: {e}"))
+            })?;
             let issue_date = match f.cell(7, i).date() {
                 Ok(d) => d,
-                Err(()) => return Err(Reject::new(BONDS, src, row, "unparseable_date", format!("column issue_date: {} is not an ISO date", f.cell(7, i).show()))),
+                Err(()) => {
+                    return Err(Reject::new(
+                        BONDS,
+                        src,
+                        row,
+                        "unparseable_date",
+                        format!("column issue_date: {} is not an ISO date", f.cell(7, i).show()),
+                    ))
+                }
             };
             if issue_date.is_some_and(|d| d >= maturity) {
-                return Err(Reject::new(BONDS, src, row, "issue_after_maturity", format!("issue date {} is not before maturity {maturity}", issue_date.unwrap())));
+                return Err(Reject::new(
+                    BONDS,
+                    src,
+                    row,
+                    "issue_after_maturity",
+                    format!("issue date {} is not before maturity {maturity}", issue_date.unwrap()),
+                ));
             }
-            Ok(BondRow { bond, entity, currency, coupon, frequency, maturity, day_count, issue_date, seniority: text(f.cell(8, i)) })
+            Ok(BondRow {
+                bond,
+                entity,
+                currency,
+                coupon,
+                frequency,
+                maturity,
+                day_count,
+                issue_date,
+                seniority: text(f.cell(8, i)),
+            })
         },
     )
 }
@@ -306,12 +377,28 @@ pub fn read_bond_quotes(path: &Path, cal: &Calendar, band: (f64, f64)) -> Result
             let date = required_date(f.cell(0, i), BOND_QUOTES, "date", src, row)?;
             let bond = required_text(f.cell(1, i), BOND_QUOTES, "bond", src, row)?.text().unwrap_or_default();
             if !cal.is_business_day(date) {
-                return Err(Reject::new(BOND_QUOTES, src, row, "non_business_day", format!("column date: {date} is a weekend day or listed holiday")));
+                return Err(Reject::new(
+                    BOND_QUOTES,
+                    src,
+                    row,
+                    "non_business_day",
+                    format!("column date: {date} is a weekend day or listed holiday"),
+                ));
             }
-            let p = number(f.cell(2, i), BOND_QUOTES, "clean_price", src, row)?
-                .ok_or_else(|| Reject::new(BOND_QUOTES, src, row, "missing_value", "column clean_price is empty".into()))?;
+            let p = number(f.cell(2, i), BOND_QUOTES, "clean_price", src, row)?.ok_or_else(|| {
+                Reject::new(BOND_QUOTES, src, row, "missing_value", "column clean_price is empty".into())
+            })?;
             if p < band.0 || p > band.1 {
-                return Err(Reject::new(BOND_QUOTES, src, row, "implausible_price", format!("column clean_price: {p} is outside the plausible band [{}, {}] (percent of face)", band.0, band.1)));
+                return Err(Reject::new(
+                    BOND_QUOTES,
+                    src,
+                    row,
+                    "implausible_price",
+                    format!(
+                        "column clean_price: {p} is outside the plausible band [{}, {}] (percent of face)",
+                        band.0, band.1
+                    ),
+                ));
             }
             Ok(BondQuoteRow { date, bond, clean_price: p })
         },

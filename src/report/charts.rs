@@ -94,7 +94,12 @@ pub fn term_structure(title: &str, curves: &[(NaiveDate, Vec<(f64, f64)>)]) -> R
 
 /// A quantity through time for a few entities, over the universe's 10%-90% band and median.
 /// `band` holds (x, p10, p50, p90) per date; `series` (name, points); values in % per year.
-pub fn history_with_band(title: &str, y_desc: &str, series: &[(String, Vec<(f64, f64)>)], band: &[(f64, f64, f64, f64)]) -> Result<String, String> {
+pub fn history_with_band(
+    title: &str,
+    y_desc: &str,
+    series: &[(String, Vec<(f64, f64)>)],
+    band: &[(f64, f64, f64, f64)],
+) -> Result<String, String> {
     let mut svg = String::new();
     {
         let root = SVGBackend::with_string(&mut svg, (760, 420)).into_drawing_area();
@@ -225,7 +230,11 @@ impl plotters::coord::ranged1d::Ranged for Ticked {
     }
 
     fn key_points<Hint: plotters::coord::ranged1d::KeyPointHint>(&self, hint: Hint) -> Vec<f64> {
-        if hint.weight().allow_light_points() { Vec::new() } else { self.ticks.clone() }
+        if hint.weight().allow_light_points() {
+            Vec::new()
+        } else {
+            self.ticks.clone()
+        }
     }
 
     fn range(&self) -> std::ops::Range<f64> {
@@ -337,7 +346,14 @@ pub struct IntervalItem {
 /// lower end is zero runs to the floor without a cap. An upper end that is `None` or infinite
 /// runs to the top edge and ends in an arrow. `hline` draws a dashed horizontal line (for
 /// example a ratio of 1); `names` are the legend entries for the estimate and the reference.
-pub fn interval_chart(title: &str, y_desc: &str, log_y: bool, items: &[IntervalItem], hline: Option<f64>, names: [&str; 2]) -> Result<String, String> {
+pub fn interval_chart(
+    title: &str,
+    y_desc: &str,
+    log_y: bool,
+    items: &[IntervalItem],
+    hline: Option<f64>,
+    names: [&str; 2],
+) -> Result<String, String> {
     const SIZE: (u32, u32) = (760, 420);
     if items.is_empty() {
         return no_data_svg(title, SIZE);
@@ -366,7 +382,17 @@ pub fn interval_chart(title: &str, y_desc: &str, log_y: bool, items: &[IntervalI
         let (a, b) = pad(a, b);
         (if v_lo >= 0.0 || !any_data { a.max(0.0) } else { a }, b + (b - a) * 0.2)
     };
-    let to_y = |v: f64| if log_y { if v > 0.0 { v.log10().clamp(y_lo, y_hi) } else { y_lo } } else { v.clamp(y_lo, y_hi) };
+    let to_y = |v: f64| {
+        if log_y {
+            if v > 0.0 {
+                v.log10().clamp(y_lo, y_hi)
+            } else {
+                y_lo
+            }
+        } else {
+            v.clamp(y_lo, y_hi)
+        }
+    };
     let (ticks, decimals) = if log_y { (log_ticks(y_lo, y_hi), 0) } else { linear_ticks(y_lo, y_hi) };
     let n = items.len();
     let labels: Vec<String> = items.iter().map(|it| it.label.clone()).collect();
@@ -413,19 +439,32 @@ pub fn interval_chart(title: &str, y_desc: &str, log_y: bool, items: &[IntervalI
             let lo = present(it.lo).filter(|v| on_axis(*v)).map(to_y);
             let hi = present(it.hi).filter(|v| on_axis(*v)).map(to_y);
             let hi_open = it.hi.map_or(it.lo.is_some(), |v| v == f64::INFINITY);
-            let lo_open = lo.is_none() && (it.lo.is_some() || hi.is_some() || hi_open) && !it.lo.is_some_and(|v| v.is_nan());
+            let lo_open =
+                lo.is_none() && (it.lo.is_some() || hi.is_some() || hi_open) && !it.lo.is_some_and(|v| v.is_nan());
             if lo.is_none() && !lo_open || hi.is_none() && !hi_open {
                 // Only one end is known and the other is not an open end: no bar.
             } else {
                 let y0 = lo.unwrap_or(y_lo);
                 let y1 = hi.unwrap_or(y_hi);
                 tops[i] = tops[i].max(y0).max(y1);
-                chart.draw_series(std::iter::once(PathElement::new(vec![(x, y0), (x, y1)], blue.stroke_width(2)))).map_err(err)?;
+                chart
+                    .draw_series(std::iter::once(PathElement::new(vec![(x, y0), (x, y1)], blue.stroke_width(2))))
+                    .map_err(err)?;
                 if lo.is_some() {
-                    chart.draw_series(std::iter::once(PathElement::new(vec![(x - cap, y0), (x + cap, y0)], blue.stroke_width(2)))).map_err(err)?;
+                    chart
+                        .draw_series(std::iter::once(PathElement::new(
+                            vec![(x - cap, y0), (x + cap, y0)],
+                            blue.stroke_width(2),
+                        )))
+                        .map_err(err)?;
                 }
                 if hi.is_some() {
-                    chart.draw_series(std::iter::once(PathElement::new(vec![(x - cap, y1), (x + cap, y1)], blue.stroke_width(2)))).map_err(err)?;
+                    chart
+                        .draw_series(std::iter::once(PathElement::new(
+                            vec![(x - cap, y1), (x + cap, y1)],
+                            blue.stroke_width(2),
+                        )))
+                        .map_err(err)?;
                 } else {
                     let tip = vec![(x - 0.08, y_hi - arrow_h), (x, y_hi), (x + 0.08, y_hi - arrow_h)];
                     chart.draw_series(std::iter::once(Polygon::new(tip, blue.filled()))).map_err(err)?;
@@ -434,7 +473,12 @@ pub fn interval_chart(title: &str, y_desc: &str, log_y: bool, items: &[IntervalI
             if let Some(r) = present(it.reference) {
                 let y = to_y(r);
                 tops[i] = tops[i].max(y);
-                chart.draw_series(std::iter::once(PathElement::new(vec![(x - 0.3, y), (x + 0.3, y)], red.stroke_width(3)))).map_err(err)?;
+                chart
+                    .draw_series(std::iter::once(PathElement::new(
+                        vec![(x - 0.3, y), (x + 0.3, y)],
+                        red.stroke_width(3),
+                    )))
+                    .map_err(err)?;
             }
             if let Some(e) = present(it.estimate) {
                 let style = if on_axis(e) { blue.filled() } else { blue.stroke_width(2) };
@@ -443,18 +487,24 @@ pub fn interval_chart(title: &str, y_desc: &str, log_y: bool, items: &[IntervalI
             }
         }
         if !any_data {
-            chart.draw_series(std::iter::once(Text::new("no data", ((n as f64 - 1.0) / 2.0, (y_lo + y_hi) / 2.0), centred(16)))).map_err(err)?;
+            chart
+                .draw_series(std::iter::once(Text::new(
+                    "no data",
+                    ((n as f64 - 1.0) / 2.0, (y_lo + y_hi) / 2.0),
+                    centred(16),
+                )))
+                .map_err(err)?;
         }
         // Legend entries only for what was drawn; empty series carry just the label and glyph.
         let [est_name, ref_name] = names;
         if items.iter().any(|it| present(it.estimate).is_some()) {
-            chart
-                .draw_series(std::iter::empty::<PathElement<(f64, f64)>>())
-                .map_err(err)?
-                .label(est_name)
-                .legend(move |(x, y)| {
-                    EmptyElement::at((x + 9, y)) + PathElement::new(vec![(0, -6), (0, 6)], blue.stroke_width(2)) + Circle::new((0, 0), 4, blue.filled())
-                });
+            chart.draw_series(std::iter::empty::<PathElement<(f64, f64)>>()).map_err(err)?.label(est_name).legend(
+                move |(x, y)| {
+                    EmptyElement::at((x + 9, y))
+                        + PathElement::new(vec![(0, -6), (0, 6)], blue.stroke_width(2))
+                        + Circle::new((0, 0), 4, blue.filled())
+                },
+            );
         }
         if items.iter().any(|it| present(it.reference).is_some()) {
             chart
@@ -494,29 +544,55 @@ fn marker_outline(k: usize) -> Vec<(i32, i32)> {
 /// Several named series through time (x a decimal year, see [`decimal_year`]) with dashed
 /// horizontal threshold lines `hlines` (value, legend text). A non-finite point breaks its line.
 /// The y axis starts at 0 when no value is negative.
-pub fn multi_line_chart(title: &str, y_desc: &str, series: &[(String, Vec<(f64, f64)>)], hlines: &[(f64, &str)]) -> Result<String, String> {
+pub fn multi_line_chart(
+    title: &str,
+    y_desc: &str,
+    series: &[(String, Vec<(f64, f64)>)],
+    hlines: &[(f64, &str)],
+) -> Result<String, String> {
     lines_through_time(title, y_desc, false, series, hlines)
 }
 
 /// [`multi_line_chart`] on a log10 y axis, for quantities that span decades (mean implied PD
 /// per grade). Zero and negative values cannot be placed and break their line like non-finite
 /// ones; so are threshold lines at or below 0 left out.
-pub fn multi_line_chart_log(title: &str, y_desc: &str, series: &[(String, Vec<(f64, f64)>)], hlines: &[(f64, &str)]) -> Result<String, String> {
+pub fn multi_line_chart_log(
+    title: &str,
+    y_desc: &str,
+    series: &[(String, Vec<(f64, f64)>)],
+    hlines: &[(f64, &str)],
+) -> Result<String, String> {
     lines_through_time(title, y_desc, true, series, hlines)
 }
 
-fn lines_through_time(title: &str, y_desc: &str, log_y: bool, series: &[(String, Vec<(f64, f64)>)], hlines: &[(f64, &str)]) -> Result<String, String> {
+fn lines_through_time(
+    title: &str,
+    y_desc: &str,
+    log_y: bool,
+    series: &[(String, Vec<(f64, f64)>)],
+    hlines: &[(f64, &str)],
+) -> Result<String, String> {
     const SIZE: (u32, u32) = (760, 420);
     // Everything below is in drawing units: log10 of the value when log_y. A point that cannot
     // be drawn becomes NaN, which breaks the line there.
-    let to_y = |v: f64| if !usable(v) || log_y && v <= 0.0 { f64::NAN } else if log_y { v.log10() } else { v };
-    let series: Vec<(String, Vec<(f64, f64)>)> = series.iter().map(|(n, v)| (n.clone(), v.iter().map(|p| (p.0, to_y(p.1))).collect())).collect();
+    let to_y = |v: f64| {
+        if !usable(v) || log_y && v <= 0.0 {
+            f64::NAN
+        } else if log_y {
+            v.log10()
+        } else {
+            v
+        }
+    };
+    let series: Vec<(String, Vec<(f64, f64)>)> =
+        series.iter().map(|(n, v)| (n.clone(), v.iter().map(|p| (p.0, to_y(p.1))).collect())).collect();
     let ok = |p: &(f64, f64)| usable(p.0) && usable(p.1);
     let points: Vec<(f64, f64)> = series.iter().flat_map(|(_, v)| v.iter().copied().filter(ok)).collect();
     if points.is_empty() {
         return no_data_svg(title, SIZE);
     }
-    let levels: Vec<(f64, &str)> = hlines.iter().map(|&(h, name)| (to_y(h), name)).filter(|(h, _)| usable(*h)).collect();
+    let levels: Vec<(f64, &str)> =
+        hlines.iter().map(|&(h, name)| (to_y(h), name)).filter(|(h, _)| usable(*h)).collect();
     let (x_lo, x_hi) = points.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), p| (a.min(p.0), b.max(p.0)));
     let ys = points.iter().map(|p| p.1).chain(levels.iter().map(|l| l.0));
     let (y_min, y_max) = ys.fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), y| (a.min(y), b.max(y)));
@@ -579,11 +655,20 @@ fn lines_through_time(title: &str, y_desc: &str, log_y: bool, series: &[(String,
             }
             let label = if runs.iter().all(|r| r.is_empty()) { format!("{name} (no data)") } else { name.clone() };
             chart
-                .draw_series(runs.iter().flatten().map(|p| EmptyElement::at(*p) + Polygon::new(marker_outline(k), colour.filled())))
+                .draw_series(
+                    runs.iter()
+                        .flatten()
+                        .map(|p| EmptyElement::at(*p) + Polygon::new(marker_outline(k), colour.filled())),
+                )
                 .map_err(err)?
                 .label(label)
                 .legend(move |(x, y)| {
-                    EmptyElement::at((x, y)) + PathElement::new(vec![(0, 0), (18, 0)], colour.stroke_width(2)) + Polygon::new(marker_outline(k).into_iter().map(|(a, b)| (a + 9, b)).collect::<Vec<_>>(), colour.filled())
+                    EmptyElement::at((x, y))
+                        + PathElement::new(vec![(0, 0), (18, 0)], colour.stroke_width(2))
+                        + Polygon::new(
+                            marker_outline(k).into_iter().map(|(a, b)| (a + 9, b)).collect::<Vec<_>>(),
+                            colour.filled(),
+                        )
                 });
         }
         chart
@@ -633,7 +718,13 @@ pub fn heat_map(title: &str, rows: &[String], cols: &[String], values: &[Vec<Opt
         return Err(format!("heat map '{title}': {} rows of values for {} row labels", values.len(), rows.len()));
     }
     if let Some((i, r)) = values.iter().enumerate().find(|(_, r)| r.len() != cols.len()) {
-        return Err(format!("heat map '{title}': row {} ('{}') has {} values for {} column labels", i + 1, rows[i], r.len(), cols.len()));
+        return Err(format!(
+            "heat map '{title}': row {} ('{}') has {} values for {} column labels",
+            i + 1,
+            rows[i],
+            r.len(),
+            cols.len()
+        ));
     }
     let (nr, nc) = (rows.len(), cols.len());
     let height = (110 + 30 * nr as u32).clamp(300, 1200);
@@ -641,7 +732,8 @@ pub fn heat_map(title: &str, rows: &[String], cols: &[String], values: &[Vec<Opt
     if nr == 0 || nc == 0 {
         return no_data_svg(title, size);
     }
-    let scale = values.iter().flatten().filter_map(|v| v.filter(|x| x.is_finite())).fold(0.0, |m: f64, v| m.max(v.abs()));
+    let scale =
+        values.iter().flatten().filter_map(|v| v.filter(|x| x.is_finite())).fold(0.0, |m: f64, v| m.max(v.abs()));
     let scale = if scale > 0.0 { scale } else { 1.0 };
     let plot_w = 760.0 - 120.0 - 64.0 - 24.0;
     let plot_h = height as f64 - 110.0;
@@ -715,7 +807,8 @@ pub fn heat_map(title: &str, rows: &[String], cols: &[String], values: &[Vec<Opt
         let (_, side_h) = side.dim_in_pixel();
         let any_missing = values.iter().flatten().any(|v| v.is_none_or(|v| v.is_nan()));
         if any_missing {
-            side.draw(&Rectangle::new([(12, side_h as i32 - 36), (26, side_h as i32 - 22)], NO_VALUE.filled())).map_err(err)?;
+            side.draw(&Rectangle::new([(12, side_h as i32 - 36), (26, side_h as i32 - 22)], NO_VALUE.filled()))
+                .map_err(err)?;
             side.draw(&Text::new("none", (30, side_h as i32 - 36), ("sans-serif", 12))).map_err(err)?;
         }
         main.present().map_err(err)?;
@@ -774,9 +867,16 @@ pub fn quantile_bands_by_category(title: &str, y_desc: &str, items: &[(String, [
             for (end, inner) in [(q1, q5.or(q50)), (q99, q95.or(q50))] {
                 if let Some(e) = end {
                     if let Some(b) = inner {
-                        chart.draw_series(std::iter::once(PathElement::new(vec![(x, e), (x, b)], blue.stroke_width(1)))).map_err(err)?;
+                        chart
+                            .draw_series(std::iter::once(PathElement::new(vec![(x, e), (x, b)], blue.stroke_width(1))))
+                            .map_err(err)?;
                     }
-                    chart.draw_series(std::iter::once(PathElement::new(vec![(x - 0.1, e), (x + 0.1, e)], blue.stroke_width(1)))).map_err(err)?;
+                    chart
+                        .draw_series(std::iter::once(PathElement::new(
+                            vec![(x - 0.1, e), (x + 0.1, e)],
+                            blue.stroke_width(1),
+                        )))
+                        .map_err(err)?;
                 }
             }
             if let (Some(a), Some(b)) = (q5, q95) {
@@ -785,11 +885,22 @@ pub fn quantile_bands_by_category(title: &str, y_desc: &str, items: &[(String, [
                 chart.draw_series(std::iter::once(Rectangle::new(corners, blue.stroke_width(1)))).map_err(err)?;
             }
             if let Some(m) = q50 {
-                chart.draw_series(std::iter::once(PathElement::new(vec![(x - 0.25, m), (x + 0.25, m)], dark.stroke_width(3)))).map_err(err)?;
+                chart
+                    .draw_series(std::iter::once(PathElement::new(
+                        vec![(x - 0.25, m), (x + 0.25, m)],
+                        dark.stroke_width(3),
+                    )))
+                    .map_err(err)?;
             }
         }
         if !any_data {
-            chart.draw_series(std::iter::once(Text::new("no data", ((n as f64 - 1.0) / 2.0, (y_lo + y_hi) / 2.0), centred(16)))).map_err(err)?;
+            chart
+                .draw_series(std::iter::once(Text::new(
+                    "no data",
+                    ((n as f64 - 1.0) / 2.0, (y_lo + y_hi) / 2.0),
+                    centred(16),
+                )))
+                .map_err(err)?;
         }
         // Legend entries only: empty series carry just the label and glyph.
         chart
@@ -823,7 +934,13 @@ mod tests {
         let d = NaiveDate::from_ymd_opt(2024, 3, 20).unwrap();
         let s = term_structure("Test entity", &[(d, vec![(0.5, 0.01), (1.0, 0.012), (5.0, 0.02)])]).unwrap();
         assert!(s.starts_with("<svg") && s.contains("Test entity") && s.contains("2024-03-20"));
-        let h = history_with_band("5Y", "%", &[("A".into(), vec![(2024.0, 1.0), (2024.5, 2.0)])], &[(2024.0, 0.5, 1.0, 2.0), (2024.5, 0.6, 1.1, 2.1)]).unwrap();
+        let h = history_with_band(
+            "5Y",
+            "%",
+            &[("A".into(), vec![(2024.0, 1.0), (2024.5, 2.0)])],
+            &[(2024.0, 0.5, 1.0, 2.0), (2024.5, 0.6, 1.1, 2.1)],
+        )
+        .unwrap();
         assert!(h.contains("universe 10%-90%") && h.contains("<polygon"));
         let g = histogram("res", "bp", &[1.0, 2.0, 2.5, f64::NAN], 10).unwrap();
         assert!(g.contains("<rect"));
@@ -834,7 +951,13 @@ mod tests {
         t.starts_with("<svg") && t.ends_with("</svg>")
     }
 
-    fn item(label: &str, estimate: Option<f64>, lo: Option<f64>, hi: Option<f64>, reference: Option<f64>) -> IntervalItem {
+    fn item(
+        label: &str,
+        estimate: Option<f64>,
+        lo: Option<f64>,
+        hi: Option<f64>,
+        reference: Option<f64>,
+    ) -> IntervalItem {
         IntervalItem { label: label.into(), estimate, lo, hi, reference }
     }
 
@@ -850,14 +973,19 @@ mod tests {
         assert!(is_svg(&s));
         // One circle per estimate plus one in the legend; the zero estimate is the only open one.
         assert_eq!(s.matches("<circle").count(), items.len() + 1);
-        let open = s.split("<circle").skip(1).filter(|c| c.split('>').next().unwrap_or("").contains(r#"fill="none""#)).count();
+        let open =
+            s.split("<circle").skip(1).filter(|c| c.split('>').next().unwrap_or("").contains(r#"fill="none""#)).count();
         assert_eq!(open, 1);
         // The open-ended upper bound of grade 4 ends in an arrow.
         assert_eq!(s.matches("<polygon").count(), 1);
         assert!(s.contains("realised") && s.contains("implied"));
         // On a linear axis the zero estimate is an ordinary filled point.
         let lin = interval_chart("linear", "rate", false, &items, Some(0.01), ["realised", "implied"]).unwrap();
-        let open = lin.split("<circle").skip(1).filter(|c| c.split('>').next().unwrap_or("").contains(r#"fill="none""#)).count();
+        let open = lin
+            .split("<circle")
+            .skip(1)
+            .filter(|c| c.split('>').next().unwrap_or("").contains(r#"fill="none""#))
+            .count();
         assert_eq!(open, 0);
     }
 
@@ -880,8 +1008,14 @@ mod tests {
 
     #[test]
     fn multi_line_chart_draws_each_series_and_threshold() {
-        let series: Vec<(String, Vec<(f64, f64)>)> =
-            (0..3).map(|k| (format!("grade {}", k + 1), (0..5).map(|t| (2022.0 + t as f64 * 0.25, 0.01 * (k + 1) as f64 + 0.002 * t as f64)).collect())).collect();
+        let series: Vec<(String, Vec<(f64, f64)>)> = (0..3)
+            .map(|k| {
+                (
+                    format!("grade {}", k + 1),
+                    (0..5).map(|t| (2022.0 + t as f64 * 0.25, 0.01 * (k + 1) as f64 + 0.002 * t as f64)).collect(),
+                )
+            })
+            .collect();
         let s = multi_line_chart("PSI", "PSI", &series, &[(0.10, "PSI 0.10"), (0.25, "PSI 0.25")]).unwrap();
         assert!(is_svg(&s));
         for (name, _) in &series {
@@ -896,12 +1030,18 @@ mod tests {
 
     #[test]
     fn multi_line_chart_breaks_lines_at_gaps_and_handles_empty_input() {
-        let gap = vec![("a".to_string(), vec![(2022.0, 1.0), (2022.5, f64::NAN), (2023.0, 2.0), (2023.5, 2.5), (f64::INFINITY, 1.0)])];
+        let gap = vec![(
+            "a".to_string(),
+            vec![(2022.0, 1.0), (2022.5, f64::NAN), (2023.0, 2.0), (2023.5, 2.5), (f64::INFINITY, 1.0)],
+        )];
         let s = multi_line_chart("gap", "x", &gap, &[(f64::NAN, "bad level")]).unwrap();
         assert!(is_svg(&s));
         // Only the run 2023.0-2023.5 has two points: one line, three markers.
         assert_eq!(s.matches("<polygon").count(), 3 + 1);
-        for empty in [multi_line_chart("e", "x", &[], &[(0.1, "t")]), multi_line_chart("e", "x", &[("a".into(), vec![(f64::NAN, 1.0)])], &[])] {
+        for empty in [
+            multi_line_chart("e", "x", &[], &[(0.1, "t")]),
+            multi_line_chart("e", "x", &[("a".into(), vec![(f64::NAN, 1.0)])], &[]),
+        ] {
             let e = empty.unwrap();
             assert!(is_svg(&e) && e.contains("no data"));
         }
@@ -919,7 +1059,11 @@ mod tests {
         // Each cell is a filled rectangle and a white outline.
         let cell_fill = |c: RGBColor| format!(r##"fill="#{:02X}{:02X}{:02X}""##, c.0, c.1, c.2);
         assert!(s.matches(&cell_fill(NO_VALUE)).count() >= 2, "None and NaN are grey");
-        assert!(s.contains(&cell_fill(diverging(1.0))) && s.contains(&cell_fill(diverging(-0.5))) && s.contains(&cell_fill(WHITE)));
+        assert!(
+            s.contains(&cell_fill(diverging(1.0)))
+                && s.contains(&cell_fill(diverging(-0.5)))
+                && s.contains(&cell_fill(WHITE))
+        );
         assert!(s.matches("<rect").count() >= rows.len() * cols.len() * 2);
         assert!(s.contains("+0.20") && s.contains("+inf") && s.contains("P3"));
     }
@@ -946,7 +1090,11 @@ mod tests {
 
     #[test]
     fn quantile_bands_draw_a_box_and_median_per_category() {
-        let items: Vec<(String, [f64; 5])> = ["1Y", "3Y", "5Y"].iter().enumerate().map(|(k, l)| (l.to_string(), [-12.0, -9.0, -6.0 + k as f64, -2.0, 1.0])).collect();
+        let items: Vec<(String, [f64; 5])> = ["1Y", "3Y", "5Y"]
+            .iter()
+            .enumerate()
+            .map(|(k, l)| (l.to_string(), [-12.0, -9.0, -6.0 + k as f64, -2.0, 1.0]))
+            .collect();
         let s = quantile_bands_by_category("Residuals", "log10(|r| + 1e-16), bp", &items).unwrap();
         assert!(is_svg(&s));
         // Per category: a filled box and its outline.
@@ -966,7 +1114,9 @@ mod tests {
         assert!(is_svg(&e) && e.contains("no data"));
         let nan = quantile_bands_by_category("nan", "bp", &[("1Y".into(), [f64::NAN; 5])]).unwrap();
         assert!(is_svg(&nan) && nan.contains("no data"));
-        let partial = quantile_bands_by_category("partial", "bp", &[("1Y".into(), [f64::NEG_INFINITY, 1.0, 2.0, f64::NAN, 4.0])]).unwrap();
+        let partial =
+            quantile_bands_by_category("partial", "bp", &[("1Y".into(), [f64::NEG_INFINITY, 1.0, 2.0, f64::NAN, 4.0])])
+                .unwrap();
         assert!(is_svg(&partial) && !partial.contains("no data"));
     }
 

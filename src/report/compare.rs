@@ -3,8 +3,8 @@
 //! that are new in B or cleared since A.
 
 use crate::error::Result;
-use crate::tables::manifest;
 use crate::tables::flags::FlagRecord;
+use crate::tables::manifest;
 use crate::tables::readback;
 use std::collections::{BTreeMap, BTreeSet};
 use std::fmt::Write as _;
@@ -13,16 +13,22 @@ use std::path::Path;
 fn mean_5y(run: &Path) -> Result<BTreeMap<String, (f64, usize)>> {
     // The table can be tens of millions of rows: read a slice at a time.
     let mut m: BTreeMap<String, (f64, usize)> = BTreeMap::new();
-    readback::slices::<crate::tables::HazardCurveRow>(&readback::table_path(&run.join("tables"), "hazard_curves"), |rows| {
-        for r in rows.iter().filter(|r| r.source == crate::text::CurveSource::Cds && &*r.tenor == "5Y" && r.status == "ok") {
-            if let Some(x) = r.hazard {
-                let e = m.entry(r.entity.to_string()).or_default();
-                e.0 += x;
-                e.1 += 1;
+    readback::slices::<crate::tables::HazardCurveRow>(
+        &readback::table_path(&run.join("tables"), "hazard_curves"),
+        |rows| {
+            for r in rows
+                .iter()
+                .filter(|r| r.source == crate::text::CurveSource::Cds && &*r.tenor == "5Y" && r.status == "ok")
+            {
+                if let Some(x) = r.hazard {
+                    let e = m.entry(r.entity.to_string()).or_default();
+                    e.0 += x;
+                    e.1 += 1;
+                }
             }
-        }
-        Ok(())
-    })?;
+            Ok(())
+        },
+    )?;
     Ok(m.into_iter().map(|(k, (s, n))| (k, (s / n as f64, n))).collect())
 }
 
@@ -35,17 +41,23 @@ pub fn compare(a: &Path, b: &Path) -> Result<String> {
     let _ = writeln!(w, "- A: {} / {} (period {:?})", ma.name, ma.label, ma.period);
     let _ = writeln!(w, "- B: {} / {} (period {:?})\n", mb.name, mb.label, mb.period);
     let _ = writeln!(w, "## Row accounting\n\n| stage | table | rows in A | rows in B | rejected A | rejected B |\n| --- | --- | ---: | ---: | ---: | ---: |");
-    let keys: BTreeSet<(String, String)> = ma.counts.iter().chain(&mb.counts).map(|c| (c.stage.clone(), c.table.clone())).collect();
+    let keys: BTreeSet<(String, String)> =
+        ma.counts.iter().chain(&mb.counts).map(|c| (c.stage.clone(), c.table.clone())).collect();
     for (s, t) in &keys {
-        let f = |m: &manifest::Manifest| m.counts.iter().find(|c| &c.stage == s && &c.table == t).map(|c| (c.rows_in, c.rejected));
+        let f = |m: &manifest::Manifest| {
+            m.counts.iter().find(|c| &c.stage == s && &c.table == t).map(|c| (c.rows_in, c.rejected))
+        };
         let (x, y) = (f(&ma), f(&mb));
-        let show = |v: Option<(u64, u64)>, i: usize| v.map_or("-".to_string(), |p| if i == 0 { p.0.to_string() } else { p.1.to_string() });
+        let show = |v: Option<(u64, u64)>, i: usize| {
+            v.map_or("-".to_string(), |p| if i == 0 { p.0.to_string() } else { p.1.to_string() })
+        };
         let _ = writeln!(w, "| {s} | {t} | {} | {} | {} | {} |", show(x, 0), show(y, 0), show(x, 1), show(y, 1));
     }
     let (ha, hb) = (mean_5y(a)?, mean_5y(b)?);
     let _ = writeln!(w, "\n## Mean 5Y hazard by entity\n\n| entity | A (%) | B (%) | change (bp of hazard) |\n| --- | ---: | ---: | ---: |");
     let ents: BTreeSet<&String> = ha.keys().chain(hb.keys()).collect();
-    let mut rows: Vec<(String, Option<f64>, Option<f64>)> = ents.iter().map(|e| ((*e).clone(), ha.get(*e).map(|v| v.0), hb.get(*e).map(|v| v.0))).collect();
+    let mut rows: Vec<(String, Option<f64>, Option<f64>)> =
+        ents.iter().map(|e| ((*e).clone(), ha.get(*e).map(|v| v.0), hb.get(*e).map(|v| v.0))).collect();
     rows.sort_by(|x, y| {
         let d = |r: &(String, Option<f64>, Option<f64>)| match (r.1, r.2) {
             (Some(a), Some(b)) => (b - a).abs(),
@@ -63,18 +75,37 @@ pub fn compare(a: &Path, b: &Path) -> Result<String> {
     }
     let fa: Vec<FlagRecord> = crate::tables::read(&a.join("tables"))?;
     let fb: Vec<FlagRecord> = crate::tables::read(&b.join("tables"))?;
-    let key = |f: &FlagRecord| (f.flag.rule, f.flag.entity.clone().unwrap_or_default(), f.flag.series.clone(), f.flag.date);
+    let key =
+        |f: &FlagRecord| (f.flag.rule, f.flag.entity.clone().unwrap_or_default(), f.flag.series.clone(), f.flag.date);
     let ka: BTreeSet<_> = fa.iter().map(key).collect();
     let kb: BTreeSet<_> = fb.iter().map(key).collect();
     let new: Vec<_> = fb.iter().filter(|f| !ka.contains(&key(f))).collect();
     let cleared: Vec<_> = fa.iter().filter(|f| !kb.contains(&key(f))).collect();
-    let _ = writeln!(w, "\n## Flags\n\n{} flags in A, {} in B; {} new in B, {} cleared since A.\n", fa.len(), fb.len(), new.len(), cleared.len());
+    let _ = writeln!(
+        w,
+        "\n## Flags\n\n{} flags in A, {} in B; {} new in B, {} cleared since A.\n",
+        fa.len(),
+        fb.len(),
+        new.len(),
+        cleared.len()
+    );
     for (title, list) in [("New in B", &new), ("Cleared since A", &cleared)] {
         if !list.is_empty() {
-            let _ = writeln!(w, "{title}:\n\n| rule | entity | series | date | explanation |\n| --- | --- | --- | --- | --- |");
+            let _ = writeln!(
+                w,
+                "{title}:\n\n| rule | entity | series | date | explanation |\n| --- | --- | --- | --- | --- |"
+            );
             for f in list.iter().take(30) {
                 let g = &f.flag;
-                let _ = writeln!(w, "| `{}` | {} | {} | {} | {} |", g.rule.as_str(), g.entity.as_deref().unwrap_or(""), g.series, g.date.map(|d| d.to_string()).unwrap_or_default(), g.explanation.replace('|', "/"));
+                let _ = writeln!(
+                    w,
+                    "| `{}` | {} | {} | {} | {} |",
+                    g.rule.as_str(),
+                    g.entity.as_deref().unwrap_or(""),
+                    g.series,
+                    g.date.map(|d| d.to_string()).unwrap_or_default(),
+                    g.explanation.replace('|', "/")
+                );
             }
             let _ = writeln!(w);
         }

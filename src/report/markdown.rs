@@ -3,15 +3,15 @@
 //! files in `charts/`, each with a caption. Deterministic: no clock, stable ordering.
 
 use super::charts;
-use crate::tables::manifest::{self, write_text, Manifest};
-use crate::tables::readback;
+use crate::error::{Error, Result};
 use crate::ingest::Reject;
+use crate::stability::summary::keep_first_n;
 use crate::tables::flags::{FlagRecord, DATA_QUALITY, STABILITY};
 use crate::tables::inputs::reject_reasons;
+use crate::tables::manifest::{self, write_text, Manifest};
+use crate::tables::readback;
 use crate::tables::{self, BasisRow, HazardCurveRow, IntensityParamRow, ResidualRow, Table};
 use crate::text::{CurveSource, FitMethod, Severity};
-use crate::stability::summary::keep_first_n;
-use crate::error::{Error, Result};
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
 use std::fmt::Write as _;
@@ -28,7 +28,11 @@ fn pct(x: f64) -> String {
 }
 
 fn file_stem(name: &str) -> String {
-    name.chars().map(|c| if c.is_ascii_alphanumeric() { c.to_ascii_lowercase() } else { '-' }).collect::<String>().trim_matches('-').to_string()
+    name.chars()
+        .map(|c| if c.is_ascii_alphanumeric() { c.to_ascii_lowercase() } else { '-' })
+        .collect::<String>()
+        .trim_matches('-')
+        .to_string()
 }
 
 fn quantile(sorted: &[f64], q: f64) -> f64 {
@@ -66,9 +70,15 @@ fn charted(settings: &serde_json::Value, entities: &BTreeSet<String>) -> Vec<Str
 
 fn term_dates(settings: &serde_json::Value, dates: &[NaiveDate]) -> Vec<NaiveDate> {
     if let Some(v) = settings.get("term_structure_dates").and_then(|v| v.as_array()) {
-        let want: Vec<NaiveDate> = v.iter().filter_map(|x| x.as_str()).filter_map(crate::time::parse_iso_date).collect();
+        let want: Vec<NaiveDate> =
+            v.iter().filter_map(|x| x.as_str()).filter_map(crate::time::parse_iso_date).collect();
         // The latest curve date on or before each asked date.
-        return want.iter().filter_map(|w| dates.iter().rev().find(|d| *d <= w).copied()).collect::<BTreeSet<_>>().into_iter().collect();
+        return want
+            .iter()
+            .filter_map(|w| dates.iter().rev().find(|d| *d <= w).copied())
+            .collect::<BTreeSet<_>>()
+            .into_iter()
+            .collect();
     }
     match dates.len() {
         0 => vec![],
@@ -141,7 +151,7 @@ impl CdsNodes {
             out.add(&rows);
             Ok(())
         })
-    .map(|_| out)
+        .map(|_| out)
     }
 
     /// Takes the next rows of the table, in table order.
@@ -153,7 +163,11 @@ impl CdsNodes {
             }
             // A curve's nodes are consecutive rows: the sets are asked once per curve (the
             // sets' contents are the same as asking every row).
-            let same_curve = self.last.as_ref().is_some_and(|(d, e, c)| *d == h.date && (std::sync::Arc::ptr_eq(e, &h.entity) || *e == h.entity) && (std::sync::Arc::ptr_eq(c, &h.currency) || *c == h.currency));
+            let same_curve = self.last.as_ref().is_some_and(|(d, e, c)| {
+                *d == h.date
+                    && (std::sync::Arc::ptr_eq(e, &h.entity) || *e == h.entity)
+                    && (std::sync::Arc::ptr_eq(c, &h.currency) || *c == h.currency)
+            });
             if !same_curve {
                 if !self.entities.contains(&*h.entity) {
                     self.entities.insert(h.entity.to_string());
@@ -209,12 +223,20 @@ impl CdsNodes {
             return Ok(out);
         }
         readback::slices::<HazardCurveRow>(path, |rows| {
-            for h in rows.iter().filter(|h| h.source == CurveSource::Cds && chosen.iter().any(|e| e.as_str() == &*h.entity)) {
+            for h in
+                rows.iter().filter(|h| h.source == CurveSource::Cds && chosen.iter().any(|e| e.as_str() == &*h.entity))
+            {
                 if let (Some(x), true) = (h.hazard, dates.contains(&h.date)) {
-                    out.term.entry((h.entity.to_string(), h.date)).or_default().push((crate::curves::year_time(h.date, h.node_date), x));
+                    out.term
+                        .entry((h.entity.to_string(), h.date))
+                        .or_default()
+                        .push((crate::curves::year_time(h.date, h.node_date), x));
                 }
                 if is_five_year_ok(h) {
-                    out.five_year.entry(h.entity.to_string()).or_default().push((charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0));
+                    out.five_year
+                        .entry(h.entity.to_string())
+                        .or_default()
+                        .push((charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0));
                 }
             }
             Ok(())
@@ -285,7 +307,12 @@ impl Residuals {
                     Some((_, e)) => e,
                     None => {
                         let months = r.tenor_or_bond.parse::<crate::time::Tenor>().map(|t| t.months()).unwrap_or(0);
-                        self.by_tenor.entry((months, r.tenor_or_bond.to_string())).or_insert(TenorSums { n: 0, sum: zero, sum_sq: zero, max_abs: 0.0 })
+                        self.by_tenor.entry((months, r.tenor_or_bond.to_string())).or_insert(TenorSums {
+                            n: 0,
+                            sum: zero,
+                            sum_sq: zero,
+                            max_abs: 0.0,
+                        })
                     }
                 };
                 e.n += 1;
@@ -348,7 +375,10 @@ impl Default for ResidualFold {
 
 /// The entities the settings name for the figures, when they name them.
 fn charted_names(settings: &serde_json::Value) -> Option<Vec<String>> {
-    settings.get("charted_entities").and_then(|v| v.as_array()).map(|v| v.iter().filter_map(|x| x.as_str()).map(str::to_string).collect())
+    settings
+        .get("charted_entities")
+        .and_then(|v| v.as_array())
+        .map(|v| v.iter().filter_map(|x| x.as_str()).map(str::to_string).collect())
 }
 
 /// Renders `report.md` and `charts/*.svg` in `run_dir` from its tables and manifest.
@@ -379,7 +409,10 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         Some((NodeFold(hz), ResidualFold(rs))) => (hz, rs),
         None => {
             let named = charted_names(&m.settings);
-            (CdsNodes::read(&readback::table_path(&t, "hazard_curves"), named.as_deref())?, Residuals::read(&readback::table_path(&t, "calibration_residuals"))?)
+            (
+                CdsNodes::read(&readback::table_path(&t, "hazard_curves"), named.as_deref())?,
+                Residuals::read(&readback::table_path(&t, "calibration_residuals"))?,
+            )
         }
     };
     let bond_hazard = &hz.bond;
@@ -412,9 +445,19 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     if let Some((a, b)) = &m.period {
         let _ = writeln!(w, "- Period: {a} to {b} ({} curve dates).", dates.len());
     }
-    let _ = writeln!(w, "- Universe: {} entities in {} currencies ({}).", entities.len(), currencies.len(), currencies.iter().cloned().collect::<Vec<_>>().join(", "));
-    let bond_curves: BTreeSet<(NaiveDate, &str, &str)> = bond_hazard.iter().map(|h| (h.date, &*h.entity, &*h.currency)).collect();
-    let mut ran = vec!["input data quality".to_string(), "the daily CDS hazard-curve bootstrap with its repricing residuals".to_string()];
+    let _ = writeln!(
+        w,
+        "- Universe: {} entities in {} currencies ({}).",
+        entities.len(),
+        currencies.len(),
+        currencies.iter().cloned().collect::<Vec<_>>().join(", ")
+    );
+    let bond_curves: BTreeSet<(NaiveDate, &str, &str)> =
+        bond_hazard.iter().map(|h| (h.date, &*h.entity, &*h.currency)).collect();
+    let mut ran = vec![
+        "input data quality".to_string(),
+        "the daily CDS hazard-curve bootstrap with its repricing residuals".to_string(),
+    ];
     let mut not_ran: Vec<String> = Vec::new();
     let stability_rows = readback::read_frame(&t.join("stability.parquet"))?.height();
     let backtest_rows = readback::read_frame(&t.join("backtest_buckets.parquet"))?.height();
@@ -426,13 +469,19 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     if bond_curves.is_empty() {
         not_ran.push("bond-implied hazard curves".into());
     } else {
-        ran.push(format!("bond-implied hazard curves ({})", if basis.is_empty() { "with their price residuals" } else { "price residuals and the CDS-bond basis" }));
+        ran.push(format!(
+            "bond-implied hazard curves ({})",
+            if basis.is_empty() { "with their price residuals" } else { "price residuals and the CDS-bond basis" }
+        ));
     }
     if params.is_empty() {
         not_ran.push("the intensity-model (CIR) fits".into());
     } else {
         let modes: BTreeSet<&str> = params.iter().map(|p| p.mode).collect();
-        ran.push(format!("the CIR intensity fit per CDS curve ({} mode)", modes.into_iter().collect::<Vec<_>>().join(", ")));
+        ran.push(format!(
+            "the CIR intensity fit per CDS curve ({} mode)",
+            modes.into_iter().collect::<Vec<_>>().join(", ")
+        ));
     }
     if backtest_rows > 0 {
         ran.push("the backtest of implied against realised default rates with the risk premium".into());
@@ -451,13 +500,28 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     if not_ran.is_empty() {
         let _ = writeln!(w, "- Scope of this run: {}.\n", list(&ran));
     } else {
-        let _ = writeln!(w, "- Scope of this run: {}. {not_text} {} not part of this run.\n", list(&ran), if not_ran.len() == 1 { "is" } else { "are" });
+        let _ = writeln!(
+            w,
+            "- Scope of this run: {}. {not_text} {} not part of this run.\n",
+            list(&ran),
+            if not_ran.len() == 1 { "is" } else { "are" }
+        );
     }
     let _ = writeln!(w, "| check | result | status |\n| --- | --- | --- |");
-    let _ = writeln!(w, "| every input row used or rejected with a reason | {} tables | {} |", m.counts.iter().filter(|c| c.stage == "calibrate").count(), if accounting_ok { "pass" } else { "FAIL" });
+    let _ = writeln!(
+        w,
+        "| every input row used or rejected with a reason | {} tables | {} |",
+        m.counts.iter().filter(|c| c.stage == "calibrate").count(),
+        if accounting_ok { "pass" } else { "FAIL" }
+    );
     let rej_total: u64 = m.counts.iter().filter(|c| c.stage == "calibrate").map(|c| c.rejected).sum();
     let in_total: u64 = m.counts.iter().filter(|c| c.stage == "calibrate").map(|c| c.rows_in).sum();
-    let _ = writeln!(w, "| rows rejected | {rej_total} of {in_total} ({}) | {} |", pct(rej_total as f64 / in_total.max(1) as f64), if rej_total == 0 { "pass" } else { "see section 2" });
+    let _ = writeln!(
+        w,
+        "| rows rejected | {rej_total} of {in_total} ({}) | {} |",
+        pct(rej_total as f64 / in_total.max(1) as f64),
+        if rej_total == 0 { "pass" } else { "see section 2" }
+    );
     let _ = writeln!(
         w,
         "| curves with every node calibrated | {} of {} ({}) | {} |",
@@ -474,41 +538,81 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         if within == ok_res { "pass" } else { "flagged" }
     );
     if !bond_curves.is_empty() {
-        let bad_bond: BTreeSet<(NaiveDate, &str, &str)> = bond_hazard.iter().filter(|h| h.status != "ok").map(|h| (h.date, &*h.entity, &*h.currency)).collect();
-        let _ = writeln!(w, "| bond-implied curves with every node `ok` | {} of {} | {} |", bond_curves.len() - bad_bond.len(), bond_curves.len(), if bad_bond.is_empty() { "pass" } else { "flagged" });
+        let bad_bond: BTreeSet<(NaiveDate, &str, &str)> =
+            bond_hazard.iter().filter(|h| h.status != "ok").map(|h| (h.date, &*h.entity, &*h.currency)).collect();
+        let _ = writeln!(
+            w,
+            "| bond-implied curves with every node `ok` | {} of {} | {} |",
+            bond_curves.len() - bad_bond.len(),
+            bond_curves.len(),
+            if bad_bond.is_empty() { "pass" } else { "flagged" }
+        );
     }
     if !params.is_empty() {
         let ok = params.iter().filter(|p| p.status == "ok").count();
-        let _ = writeln!(w, "| CIR fits converged (status `ok`) | {ok} of {} ({}) | {} |", params.len(), pct(ok as f64 / params.len() as f64), if ok == params.len() { "pass" } else { "see section 3" });
+        let _ = writeln!(
+            w,
+            "| CIR fits converged (status `ok`) | {ok} of {} ({}) | {} |",
+            params.len(),
+            pct(ok as f64 / params.len() as f64),
+            if ok == params.len() { "pass" } else { "see section 3" }
+        );
     }
     let dq_flags = flags.iter().filter(|f| f.stage == DATA_QUALITY).count();
-    let _ = writeln!(w, "| data-quality flags (rows kept) | {dq_flags} | {} |", if dq_flags == 0 { "pass" } else { "see section 6" });
+    let _ = writeln!(
+        w,
+        "| data-quality flags (rows kept) | {dq_flags} | {} |",
+        if dq_flags == 0 { "pass" } else { "see section 6" }
+    );
     let st_flags: Vec<&FlagRecord> = flags.iter().filter(|f| f.stage == STABILITY).collect();
     let st_red = st_flags.iter().filter(|f| f.flag.severity == Severity::Red).count();
-    let _ = writeln!(w, "| stability and residual flags | {} ({st_red} red) | {} |", st_flags.len(), if st_flags.is_empty() { "pass" } else { "see sections 4 and 6" });
+    let _ = writeln!(
+        w,
+        "| stability and residual flags | {} ({st_red} red) | {} |",
+        st_flags.len(),
+        if st_flags.is_empty() { "pass" } else { "see sections 4 and 6" }
+    );
     if backtest_rows > 0 {
         let b = readback::read_frame(&t.join("backtest_buckets.parquet"))?;
         let bp = t.join("backtest_buckets.parquet");
-        let (coh, zone, rec) = (readback::strs(&b, &bp, "cohort")?, readback::strs(&b, &bp, "zone")?, readback::floats(&b, &bp, "recovery")?);
+        let (coh, zone, rec) = (
+            readback::strs(&b, &bp, "cohort")?,
+            readback::strs(&b, &bp, "zone")?,
+            readback::floats(&b, &bp, "recovery")?,
+        );
         let base_r = m.settings.get("recovery").and_then(|v| v.as_f64()).unwrap_or(0.4);
-        let pooled: Vec<usize> = (0..b.height()).filter(|&i| coh[i].as_deref() == Some("all") && rec[i].is_some_and(|r| (r - base_r).abs() < 1e-9)).collect();
+        let pooled: Vec<usize> = (0..b.height())
+            .filter(|&i| coh[i].as_deref() == Some("all") && rec[i].is_some_and(|r| (r - base_r).abs() < 1e-9))
+            .collect();
         let red_b = pooled.iter().filter(|&&i| zone[i].as_deref() == Some("red")).count();
         let yellow_b = pooled.iter().filter(|&&i| zone[i].as_deref() == Some("yellow")).count();
-        let _ = writeln!(w, "| backtest buckets (pooled cohorts) in the red / yellow zone | {red_b} / {yellow_b} of {} | {} |", pooled.len(), if red_b == 0 { "pass" } else { "see section 5" });
+        let _ = writeln!(
+            w,
+            "| backtest buckets (pooled cohorts) in the red / yellow zone | {red_b} / {yellow_b} of {} | {} |",
+            pooled.len(),
+            if red_b == 0 { "pass" } else { "see section 5" }
+        );
     }
     let _ = writeln!(w);
 
     // 2. Data quality
     let _ = writeln!(w, "## 2. Data quality\n");
     let _ = writeln!(w, "Every input row is either used or rejected with a reason code; the identity rows in = used + rejected holds for every table after each stage.\n");
-    let _ = writeln!(w, "| stage | table | rows in | used | rejected | flagged |\n| --- | --- | ---: | ---: | ---: | ---: |");
+    let _ = writeln!(
+        w,
+        "| stage | table | rows in | used | rejected | flagged |\n| --- | --- | ---: | ---: | ---: | ---: |"
+    );
     for c in &m.counts {
-        let _ = writeln!(w, "| {} | {} | {} | {} | {} | {} |", c.stage, c.table, c.rows_in, c.used, c.rejected, c.flagged);
+        let _ =
+            writeln!(w, "| {} | {} | {} | {} | {} | {} |", c.stage, c.table, c.rows_in, c.used, c.rejected, c.flagged);
     }
     if reasons.is_empty() {
         let _ = writeln!(w, "\nNo rows were rejected.\n");
     } else {
-        let _ = writeln!(w, "\nReject reasons (all rows are listed with file, row and detail in `tables/rejects.parquet`):\n");
+        let _ = writeln!(
+            w,
+            "\nReject reasons (all rows are listed with file, row and detail in `tables/rejects.parquet`):\n"
+        );
         let _ = writeln!(w, "| table | reason | rows |\n| --- | --- | ---: |");
         for (t, r, n) in &reasons {
             let _ = writeln!(w, "| {t} | `{r}` | {n} |");
@@ -541,7 +645,11 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         let _ = writeln!(w, "Largest residuals (all statuses):\n");
         let _ = writeln!(w, "| date | entity | tenor | status | market | model | residual (bp) |\n| --- | --- | --- | --- | ---: | ---: | ---: |");
         for r in worst {
-            let _ = writeln!(w, "| {} | {} | {} | `{}` | {:.4} | {:.4} | {:.3e} |", r.date, r.entity, r.tenor_or_bond, r.status, r.market, r.model, r.residual_bp);
+            let _ = writeln!(
+                w,
+                "| {} | {} | {} | `{}` | {:.4} | {:.4} | {:.3e} |",
+                r.date, r.entity, r.tenor_or_bond, r.status, r.market, r.model, r.residual_bp
+            );
         }
         let _ = writeln!(w);
     }
@@ -550,7 +658,15 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         let _ = writeln!(w, "Nodes not calibrated as quoted (first {} of {}):\n", bad.len(), hz.bad_nodes);
         let _ = writeln!(w, "| date | entity | tenor | status | detail |\n| --- | --- | --- | --- | --- |");
         for h in bad {
-            let _ = writeln!(w, "| {} | {} | {} | `{}` | {} |", h.date, h.entity, h.tenor, h.status, h.detail.clone().unwrap_or_default().replace('|', "/"));
+            let _ = writeln!(
+                w,
+                "| {} | {} | {} | `{}` | {} |",
+                h.date,
+                h.entity,
+                h.tenor,
+                h.status,
+                h.detail.clone().unwrap_or_default().replace('|', "/")
+            );
         }
         let _ = writeln!(w);
     }
@@ -576,7 +692,11 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         write_text(&charts_dir.join(&file), &svg)?;
         figure += 1;
         let _ = writeln!(w, "![Hazard term structure of {e}](charts/{file})\n");
-        let _ = writeln!(w, "*Figure {figure}. Bootstrapped piecewise-flat hazard rate of {e} against time to each node, on {}.*\n", curves_of.iter().map(|c| c.0.to_string()).collect::<Vec<_>>().join(", "));
+        let _ = writeln!(
+            w,
+            "*Figure {figure}. Bootstrapped piecewise-flat hazard rate of {e} against time to each node, on {}.*\n",
+            curves_of.iter().map(|c| c.0.to_string()).collect::<Vec<_>>().join(", ")
+        );
     }
     // 5Y hazard through time with the universe band.
     if !hz.five_year.is_empty() {
@@ -587,7 +707,8 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
             .map(|e| (e.clone(), charted_nodes.five_year.get(e).cloned().unwrap_or_default()))
             .filter(|(_, v): &(String, Vec<(f64, f64)>)| !v.is_empty())
             .collect();
-        let svg = charts::history_with_band("5Y hazard rate through time", "hazard rate (% per year)", &series, &band).map_err(chart_err)?;
+        let svg = charts::history_with_band("5Y hazard rate through time", "hazard rate (% per year)", &series, &band)
+            .map_err(chart_err)?;
         write_text(&charts_dir.join("hazard-5y-history.svg"), &svg)?;
         figure += 1;
         let _ = writeln!(w, "![5Y hazard through time](charts/hazard-5y-history.svg)\n");
@@ -595,7 +716,8 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     }
     let logs = &rs.logs;
     if !logs.is_empty() {
-        let svg = charts::histogram("Repricing residuals", "log10 |model - market| (bp)", logs, 30).map_err(chart_err)?;
+        let svg =
+            charts::histogram("Repricing residuals", "log10 |model - market| (bp)", logs, 30).map_err(chart_err)?;
         write_text(&charts_dir.join("residual-histogram.svg"), &svg)?;
         figure += 1;
         let _ = writeln!(w, "![Residual histogram](charts/residual-histogram.svg)\n");
@@ -649,7 +771,17 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         let _ = writeln!(w, "\nTop flags (red first, at most three per rule; every flag is in `tables/flags.parquet`):\n\n| rule | severity | entity | series | period | date | explanation |\n| --- | --- | --- | --- | --- | --- | --- |");
         for f in top.iter().take(30) {
             let g = &f.flag;
-            let _ = writeln!(w, "| `{}` | {} | {} | {} | {} | {} | {} |", g.rule.as_str(), g.severity.as_str(), g.entity.as_deref().unwrap_or(""), g.series, g.period, g.date.map(|d| d.to_string()).unwrap_or_default(), g.explanation.replace('|', "/"));
+            let _ = writeln!(
+                w,
+                "| `{}` | {} | {} | {} | {} | {} | {} |",
+                g.rule.as_str(),
+                g.severity.as_str(),
+                g.entity.as_deref().unwrap_or(""),
+                g.series,
+                g.period,
+                g.date.map(|d| d.to_string()).unwrap_or_default(),
+                g.explanation.replace('|', "/")
+            );
         }
         let _ = writeln!(w, "\nRed flags: {red}.\n");
     }
@@ -661,8 +793,22 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     let _ = writeln!(w, "- Contract: the standard single-name CDS (quarterly premium on the 20th of Mar/Jun/Sep/Dec adjusted Following, maturities on the semi-annual roll, Act/360 accrual with the maturity day in the last period, accrual paid on default, protection from T + 1, cash settlement T + 3 business days). Legs are integrated in closed form on the joint grid of discount and hazard nodes (accrual on default: {} integration), with the series expansion below an exponent of 1e-4; the independent reference is QuantLib's standard-model engine (tests/reference/).", s.get("accrual_on_default").and_then(|v| v.as_str()).unwrap_or("standard"));
     let _ = writeln!(w, "- Discount curves: continuously compounded Act/365F zero rates, log-linear discount factors between pillars, first rate before the first pillar, last forward after the last.");
     let _ = writeln!(w, "- Bootstrap: hazard piecewise flat between contract maturities (segment end = adjusted maturity + 1 day), one safeguarded Newton root per node to 1e-14 in hazard. A quote needing a negative hazard is handled by the `{}` policy; a quote no hazard up to 10,000 per year can reach stops its curve.", s.get("infeasible").and_then(|v| v.as_str()).unwrap_or("floor"));
-    let by_sen = s.get("recovery_by_seniority").and_then(|v| v.as_object()).map(|m| m.iter().map(|(k, v)| format!("{k}: {}", v.as_f64().map(pct).unwrap_or_default())).collect::<Vec<_>>().join(", ")).filter(|t| !t.is_empty()).unwrap_or_else(|| "none listed".into());
-    let _ = writeln!(w, "- Recovery: {} unless the quote carries one or its seniority is listed (by seniority: {by_sen}).", s.get("recovery").and_then(|v| v.as_f64()).map(pct).unwrap_or_default());
+    let by_sen = s
+        .get("recovery_by_seniority")
+        .and_then(|v| v.as_object())
+        .map(|m| {
+            m.iter()
+                .map(|(k, v)| format!("{k}: {}", v.as_f64().map(pct).unwrap_or_default()))
+                .collect::<Vec<_>>()
+                .join(", ")
+        })
+        .filter(|t| !t.is_empty())
+        .unwrap_or_else(|| "none listed".into());
+    let _ = writeln!(
+        w,
+        "- Recovery: {} unless the quote carries one or its seniority is listed (by seniority: {by_sen}).",
+        s.get("recovery").and_then(|v| v.as_f64()).map(pct).unwrap_or_default()
+    );
     let _ = writeln!(w, "- Data-quality thresholds in force: spread cap {} bp; zero-rate band {}; bond price band {}; stale after {} unchanged business days; spike when the robust z-score (median and 1.4826 x MAD of the series' daily log changes) exceeds {} with a log move above {} reverting by at least {} the next day; unit slip when {} or more consecutive quotes sit {} times above or below the series median; fewer than {} tenors flags a curve (common practice, no single source).",
         q.get("max_spread_bp").map(|v| v.to_string()).unwrap_or_default(),
         q.get("zero_rate_band").map(|v| v.to_string()).unwrap_or_default(),
@@ -681,7 +827,15 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         let _ = writeln!(w, "- CIR intensity: survival from the affine closed form; the CDS legs priced through it on a monthly protection grid; projected Levenberg-Marquardt on the quotes' residuals in bp of running spread, kappa in [0.001, 10], theta in [1e-6, 2], sigma in [1e-4, 2], lambda0 in [0, 2] (per year). Starts: the day's bootstrapped curve and the previous day's solution, the better of the two. Mode `{}`{}.", s.get("cir_mode").and_then(|v| v.as_str()).unwrap_or("free"), if s.get("cir_mode").and_then(|v| v.as_str()) == Some("fixed_kappa_sigma") { format!(": kappa and sigma estimated on the pooled quotes of consecutive windows of {} curve dates, theta and lambda0 fitted daily", s.get("cir_window").and_then(|v| v.as_u64()).unwrap_or(20)) } else { String::new() });
     }
     let pairs = |key: &str| -> String {
-        s.get(key).and_then(|v| v.as_array()).map(|a| a.iter().filter_map(|p| Some(format!("{} = {}", p.get(0)?.as_str()?, p.get(1)?.as_str()?))).collect::<Vec<_>>().join("; ")).unwrap_or_default()
+        s.get(key)
+            .and_then(|v| v.as_array())
+            .map(|a| {
+                a.iter()
+                    .filter_map(|p| Some(format!("{} = {}", p.get(0)?.as_str()?, p.get(1)?.as_str()?)))
+                    .collect::<Vec<_>>()
+                    .join("; ")
+            })
+            .unwrap_or_default()
     };
     let _ = writeln!(w, "- Backtest: implied PD 1 - S(h) from the member's latest curve within the look-back (used as of its own date); outcome a default in (t, t + h]; Clopper-Pearson exact, Jeffreys (lower bound 0 when d = 0, upper 1 when d = n; Brown, Cai and DasGupta, 2001) and Wilson intervals; binomial tails P[D >= d] and P[D <= d] computed directly, never as 1 - cdf; the Jeffreys test p-value is the Beta(d + 1/2, n - d + 1/2) cdf at the mean implied PD; the zone is green, yellow or red by the upper-tail binomial p-value; Hosmer-Lemeshow with k degrees of freedom for k given forecasts (Basel Committee working paper 14, 2005); Garwood (1936) exact Poisson interval for the historical intensity. Settings in force: {}.", pairs("backtest_settings"));
     let _ = writeln!(w, "- Stability: per review period and series (per entity, per grade, universe): mean, standard deviation, coefficient of variation, largest daily move, share of large daily moves, failures, period-on-period change of the mean and median, and the parameter's daily relative move against the spreads'. PSI = sum (a - e) ln(a / e) over buckets with an empty bucket's share replaced by psi_epsilon, thresholds 0.10 and 0.25 (common practice, no single source); CUSUM of recursive residuals with the Brown, Durbin and Evans (1975, JRSS B) boundary. Every threshold in force: {}.", pairs("stability_settings"));
@@ -716,7 +870,10 @@ fn intensity_sections(
             "Hazard curves implied by each entity's fixed-coupon bond prices (recovery convention `{}`), one per (date, entity, currency); rows with source `bond` in `{hazard_table}`, bond residuals with method `bond_fit` in `{residual_table}` (market and model clean price per 100 face, residual in bp of yield).\n",
             settings.get("bond_recovery_convention").and_then(|v| v.as_str()).unwrap_or("par")
         );
-        let mut per: BTreeMap<(&str, &str), (BTreeSet<NaiveDate>, BTreeSet<&str>, BTreeSet<String>, Vec<f64>, Vec<f64>)> = BTreeMap::new();
+        let mut per: BTreeMap<
+            (&str, &str),
+            (BTreeSet<NaiveDate>, BTreeSet<&str>, BTreeSet<String>, Vec<f64>, Vec<f64>),
+        > = BTreeMap::new();
         for h in bond_hazard {
             let e = per.entry((&*h.entity, &*h.currency)).or_default();
             e.0.insert(h.date);
@@ -732,7 +889,15 @@ fn intensity_sections(
         let _ = writeln!(w, "| entity | currency | curves | bonds | form | RMSE price (per 100) | RMSE yield (bp) | largest abs yield residual (bp) |\n| --- | --- | ---: | ---: | --- | ---: | ---: | ---: |");
         for ((e, c), (d, b, f, p, y)) in &per {
             let mx = y.iter().fold(0.0f64, |a, x| a.max(x.abs()));
-            let _ = writeln!(w, "| {e} | {c} | {} | {} | {} | {:.2e} | {:.2e} | {mx:.2e} |", d.len(), b.len(), f.iter().cloned().collect::<Vec<_>>().join(", "), rms(p), rms(y));
+            let _ = writeln!(
+                w,
+                "| {e} | {c} | {} | {} | {} | {:.2e} | {:.2e} | {mx:.2e} |",
+                d.len(),
+                b.len(),
+                f.iter().cloned().collect::<Vec<_>>().join(", "),
+                rms(p),
+                rms(y)
+            );
         }
         let _ = writeln!(w);
         if basis.is_empty() {
@@ -751,7 +916,12 @@ fn intensity_sections(
                 let mean = b.iter().sum::<f64>() / n;
                 let (lo, hi) = b.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, z), x| (a.min(*x), z.max(*x)));
                 let hm = h.iter().sum::<f64>() / n;
-                let _ = writeln!(w, "| {e} | {c} | {} | {mean:.1} | {:.1} | {lo:.1} | {hi:.1} | {hm:.1} |", b.len(), median(b));
+                let _ = writeln!(
+                    w,
+                    "| {e} | {c} | {} | {mean:.1} | {:.1} | {lo:.1} | {hi:.1} | {hm:.1} |",
+                    b.len(),
+                    median(b)
+                );
             }
             let _ = writeln!(w);
         }
@@ -765,8 +935,11 @@ fn intensity_sections(
         }
         let _ = writeln!(w, "| entity | currency | fits | kappa | theta | sigma | lambda0 | median RMSE (bp) | largest RMSE (bp) | Feller holds | at a bound | status |\n| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- |");
         for ((e, c), v) in &per {
-            let col = |f: &dyn Fn(&crate::tables::IntensityParamRow) -> Option<f64>| -> Vec<f64> { v.iter().filter_map(|p| f(p)).collect() };
-            let (mut k, mut th, mut sg, mut l0, mut rm) = (col(&|p| p.kappa), col(&|p| p.theta), col(&|p| p.sigma), col(&|p| p.lambda0), col(&|p| p.rmse_bp));
+            let col = |f: &dyn Fn(&crate::tables::IntensityParamRow) -> Option<f64>| -> Vec<f64> {
+                v.iter().filter_map(|p| f(p)).collect()
+            };
+            let (mut k, mut th, mut sg, mut l0, mut rm) =
+                (col(&|p| p.kappa), col(&|p| p.theta), col(&|p| p.sigma), col(&|p| p.lambda0), col(&|p| p.rmse_bp));
             let mx = rm.iter().fold(0.0f64, |a, x| a.max(*x));
             let with = v.iter().filter(|p| p.feller.is_some()).count();
             let feller = v.iter().filter(|p| p.feller == Some(true)).count();
@@ -804,11 +977,18 @@ fn intensity_sections(
         let band = quantile_band(&mut per_date);
         let series: Vec<(String, Vec<(f64, f64)>)> = per
             .iter()
-            .map(|((e, _), v)| (e.to_string(), v.iter().filter_map(|p| Some((charts::decimal_year(p.date), p.rmse_bp?))).collect::<Vec<_>>()))
+            .map(|((e, _), v)| {
+                (
+                    e.to_string(),
+                    v.iter().filter_map(|p| Some((charts::decimal_year(p.date), p.rmse_bp?))).collect::<Vec<_>>(),
+                )
+            })
             .filter(|(_, v)| !v.is_empty())
             .collect();
         if !series.is_empty() {
-            let svg = charts::history_with_band("CIR fit RMSE through time", "RMSE (bp of running spread)", &series, &band).map_err(chart_err)?;
+            let svg =
+                charts::history_with_band("CIR fit RMSE through time", "RMSE (bp of running spread)", &series, &band)
+                    .map_err(chart_err)?;
             write_text(&charts_dir.join("cir-rmse-history.svg"), &svg)?;
             *figure += 1;
             let _ = writeln!(w, "![CIR fit RMSE through time](charts/cir-rmse-history.svg)\n");

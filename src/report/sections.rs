@@ -2,8 +2,8 @@
 //! residual-analytics tables back from a run folder.
 
 use super::charts::{self, IntervalItem};
-use crate::tables::readback::{bools, dates, floats, ints, read_frame, strs};
 use crate::error::Result;
+use crate::tables::readback::{bools, dates, floats, ints, read_frame, strs};
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
 use std::fmt::Write as _;
@@ -30,7 +30,8 @@ fn sci(x: f64) -> String {
 fn save_chart(charts_dir: &Path, name: &str, svg: std::result::Result<String, String>) -> Result<bool> {
     match svg {
         Ok(text) => {
-            std::fs::create_dir_all(charts_dir).map_err(|e| crate::error::Error::Write { path: charts_dir.to_path_buf(), message: e.to_string() })?;
+            std::fs::create_dir_all(charts_dir)
+                .map_err(|e| crate::error::Error::Write { path: charts_dir.to_path_buf(), message: e.to_string() })?;
             crate::tables::manifest::write_text(&charts_dir.join(name), &text)?;
             Ok(true)
         }
@@ -66,9 +67,29 @@ struct Bucket {
 
 fn read_buckets(path: &Path) -> Result<Vec<Bucket>> {
     let df = read_frame(path)?;
-    let (c, h, b, r, n, d, nc) = (strs(&df, path, "cohort")?, ints(&df, path, "horizon")?, strs(&df, path, "bucket")?, floats(&df, path, "recovery")?, ints(&df, path, "n")?, ints(&df, path, "defaults")?, ints(&df, path, "n_censored")?);
-    let (rr, ip, cl, ch, jl, jh) = (floats(&df, path, "realised_rate")?, floats(&df, path, "implied_pd")?, floats(&df, path, "cp_lo")?, floats(&df, path, "cp_hi")?, floats(&df, path, "jeffreys_lo")?, floats(&df, path, "jeffreys_hi")?);
-    let (pu, pl, pj, z) = (floats(&df, path, "p_binom_upper")?, floats(&df, path, "p_binom_lower")?, floats(&df, path, "p_jeffreys")?, strs(&df, path, "zone")?);
+    let (c, h, b, r, n, d, nc) = (
+        strs(&df, path, "cohort")?,
+        ints(&df, path, "horizon")?,
+        strs(&df, path, "bucket")?,
+        floats(&df, path, "recovery")?,
+        ints(&df, path, "n")?,
+        ints(&df, path, "defaults")?,
+        ints(&df, path, "n_censored")?,
+    );
+    let (rr, ip, cl, ch, jl, jh) = (
+        floats(&df, path, "realised_rate")?,
+        floats(&df, path, "implied_pd")?,
+        floats(&df, path, "cp_lo")?,
+        floats(&df, path, "cp_hi")?,
+        floats(&df, path, "jeffreys_lo")?,
+        floats(&df, path, "jeffreys_hi")?,
+    );
+    let (pu, pl, pj, z) = (
+        floats(&df, path, "p_binom_upper")?,
+        floats(&df, path, "p_binom_lower")?,
+        floats(&df, path, "p_jeffreys")?,
+        strs(&df, path, "zone")?,
+    );
     Ok((0..df.height())
         .map(|i| Bucket {
             cohort: c[i].clone().unwrap_or_default(),
@@ -108,10 +129,24 @@ struct Premium {
 
 fn read_premia(path: &Path) -> Result<Vec<Premium>> {
     let df = read_frame(path)?;
-    let (c, b, h, r, m, e, d) = (strs(&df, path, "cohort")?, strs(&df, path, "bucket")?, ints(&df, path, "horizon")?, floats(&df, path, "recovery")?, ints(&df, path, "members")?, floats(&df, path, "exposure_years")?, ints(&df, path, "defaults")?);
-    let (lp, lpl, lph, lq) = (floats(&df, path, "lambda_p")?, floats(&df, path, "lambda_p_lo")?, floats(&df, path, "lambda_p_hi")?, floats(&df, path, "lambda_q")?);
+    let (c, b, h, r, m, e, d) = (
+        strs(&df, path, "cohort")?,
+        strs(&df, path, "bucket")?,
+        ints(&df, path, "horizon")?,
+        floats(&df, path, "recovery")?,
+        ints(&df, path, "members")?,
+        floats(&df, path, "exposure_years")?,
+        ints(&df, path, "defaults")?,
+    );
+    let (lp, lpl, lph, lq) = (
+        floats(&df, path, "lambda_p")?,
+        floats(&df, path, "lambda_p_lo")?,
+        floats(&df, path, "lambda_p_hi")?,
+        floats(&df, path, "lambda_q")?,
+    );
     let (ra, ral, rah) = (floats(&df, path, "ratio")?, floats(&df, path, "ratio_lo")?, floats(&df, path, "ratio_hi")?);
-    let (sp, el, pr) = (floats(&df, path, "spread_bp")?, floats(&df, path, "el_spread_bp")?, floats(&df, path, "premium_spread_bp")?);
+    let (sp, el, pr) =
+        (floats(&df, path, "spread_bp")?, floats(&df, path, "el_spread_bp")?, floats(&df, path, "premium_spread_bp")?);
     Ok((0..df.height())
         .map(|i| Premium {
             cohort: c[i].clone().unwrap_or_default(),
@@ -132,7 +167,15 @@ fn read_premia(path: &Path) -> Result<Vec<Premium>> {
 }
 
 /// The backtest and risk-premium section. `base_recovery` is the run's recovery.
-pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure: &mut usize, number: usize, base_recovery: f64, enabled: bool) -> Result<()> {
+pub fn backtest_section(
+    w: &mut String,
+    tables: &Path,
+    charts_dir: &Path,
+    figure: &mut usize,
+    number: usize,
+    base_recovery: f64,
+    enabled: bool,
+) -> Result<()> {
     let _ = writeln!(w, "## {number}. Backtest and risk premia\n");
     let bpath = tables.join("backtest_buckets.parquet");
     if !enabled || !bpath.exists() {
@@ -192,10 +235,27 @@ pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
         let _ = writeln!(w, "\nThe mean implied PD is above the realised rate in {above} of {} buckets (intervals at {level} two-sided; zones from the upper-tail binomial p-value).\n", rows.len());
         let items: Vec<IntervalItem> = rows
             .iter()
-            .map(|b| IntervalItem { label: b.bucket.trim_start_matches("grade ").to_string(), estimate: b.realised, lo: b.cp.0, hi: b.cp.1, reference: b.implied })
+            .map(|b| IntervalItem {
+                label: b.bucket.trim_start_matches("grade ").to_string(),
+                estimate: b.realised,
+                lo: b.cp.0,
+                hi: b.cp.1,
+                reference: b.implied,
+            })
             .collect();
         let name = format!("backtest-{h}y.svg");
-        if save_chart(charts_dir, &name, charts::interval_chart(&format!("Realised {h}Y default rate (CP interval) vs mean implied PD, by grade"), "default rate", true, &items, None, ["realised", "implied PD"]))? {
+        if save_chart(
+            charts_dir,
+            &name,
+            charts::interval_chart(
+                &format!("Realised {h}Y default rate (CP interval) vs mean implied PD, by grade"),
+                "default rate",
+                true,
+                &items,
+                None,
+                ["realised", "implied PD"],
+            ),
+        )? {
             *figure += 1;
             let _ = writeln!(w, "![Backtest {h}Y](charts/{name})\n");
             let _ = writeln!(w, "*Figure {figure}. Realised {h}-year default rate per bucket with its Clopper-Pearson interval (points and bars) against the mean implied PD (red bars), log scale; a zero rate is an open circle at the axis floor.*\n");
@@ -204,11 +264,28 @@ pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
     // Hosmer-Lemeshow.
     let hl_path = tables.join("backtest_hosmer_lemeshow.parquet");
     let df = read_frame(&hl_path)?;
-    let (c, h, r, k, s, p, note) = (strs(&df, &hl_path, "cohort")?, ints(&df, &hl_path, "horizon")?, floats(&df, &hl_path, "recovery")?, ints(&df, &hl_path, "buckets")?, floats(&df, &hl_path, "statistic")?, floats(&df, &hl_path, "p_value")?, strs(&df, &hl_path, "note")?);
+    let (c, h, r, k, s, p, note) = (
+        strs(&df, &hl_path, "cohort")?,
+        ints(&df, &hl_path, "horizon")?,
+        floats(&df, &hl_path, "recovery")?,
+        ints(&df, &hl_path, "buckets")?,
+        floats(&df, &hl_path, "statistic")?,
+        floats(&df, &hl_path, "p_value")?,
+        strs(&df, &hl_path, "note")?,
+    );
     let _ = writeln!(w, "Hosmer-Lemeshow across buckets (forecasts given, not fitted: k degrees of freedom for k buckets):\n\n| cohort | horizon | buckets | statistic | p-value | note |\n| --- | ---: | ---: | ---: | ---: | --- |");
     for i in 0..df.height() {
         if r[i].is_some_and(same) {
-            let _ = writeln!(w, "| {} | {}Y | {} | {} | {} | {} |", c[i].as_deref().unwrap_or(""), h[i].unwrap_or(0), k[i].unwrap_or(0), opt(s[i], |v| format!("{v:.3}")), opt(p[i], sci), note[i].as_deref().unwrap_or(""));
+            let _ = writeln!(
+                w,
+                "| {} | {}Y | {} | {} | {} | {} |",
+                c[i].as_deref().unwrap_or(""),
+                h[i].unwrap_or(0),
+                k[i].unwrap_or(0),
+                opt(s[i], |v| format!("{v:.3}")),
+                opt(p[i], sci),
+                note[i].as_deref().unwrap_or("")
+            );
         }
     }
     let _ = writeln!(w);
@@ -231,7 +308,19 @@ pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
         let _ = writeln!(w, "### Against the institution's cohort history\n\nRealised one-year rates from `cohort_history` (pooled over its years), against the mean 1Y implied PD of the same grade over the quoted period:\n\n| grade | obligor-years | defaults | realised | Clopper-Pearson | mean implied PD | P[D >= d] | zone |\n| ---: | ---: | ---: | ---: | --- | ---: | ---: | --- |");
         for i in 0..history_df.height() {
             if c[i].as_deref() == Some("all") {
-                let _ = writeln!(w, "| {} | {} | {} | {} | [{}, {}] | {} | {} | {} |", g[i].unwrap_or(0), o[i].unwrap_or(0), d[i].unwrap_or(0), opt(rr[i], pct), opt(cl[i], pct), opt(ch[i], pct), opt(ip[i], pct), opt(pu[i], sci), z[i].as_deref().unwrap_or("-"));
+                let _ = writeln!(
+                    w,
+                    "| {} | {} | {} | {} | [{}, {}] | {} | {} | {} |",
+                    g[i].unwrap_or(0),
+                    o[i].unwrap_or(0),
+                    d[i].unwrap_or(0),
+                    opt(rr[i], pct),
+                    opt(cl[i], pct),
+                    opt(ch[i], pct),
+                    opt(ip[i], pct),
+                    opt(pu[i], sci),
+                    z[i].as_deref().unwrap_or("-")
+                );
             }
         }
         let _ = writeln!(w);
@@ -241,7 +330,8 @@ pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
     let _ = writeln!(w, "### Risk premium: pricing against historical intensity\n");
     let _ = writeln!(w, "The historical intensity is defaults per exposure year (exposure from the cohort date to default, end of data or horizon end) with the exact Garwood (1936) Poisson interval; the pricing intensity is the calibrated hazard integrated over the same windows, per exposure year. The ratio's interval carries the Poisson uncertainty of the historical side only; with no default its upper end is unbounded (`-`). The expected-loss spread is lambda_P (1 - R); the rest of the quoted spread at the matching tenor is risk and liquidity premium.\n");
     for &h in &horizons {
-        let mut rows: Vec<&Premium> = premia.iter().filter(|p| p.horizon == h && p.cohort == "all" && same(p.recovery)).collect();
+        let mut rows: Vec<&Premium> =
+            premia.iter().filter(|p| p.horizon == h && p.cohort == "all" && same(p.recovery)).collect();
         rows.sort_by_key(|p| bucket_order(&p.bucket));
         let _ = writeln!(w, "{h}Y horizon:\n\n| bucket | members | exposure years | defaults | lambda_P | interval | lambda_Q | Q/P | interval | quoted spread bp | expected-loss bp | premium bp |\n| --- | ---: | ---: | ---: | ---: | --- | ---: | ---: | --- | ---: | ---: | ---: |");
         for p in &rows {
@@ -265,9 +355,29 @@ pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
             );
         }
         let _ = writeln!(w);
-        let items: Vec<IntervalItem> = rows.iter().map(|p| IntervalItem { label: p.bucket.trim_start_matches("grade ").to_string(), estimate: p.ratio.0, lo: p.ratio.1, hi: p.ratio.2, reference: None }).collect();
+        let items: Vec<IntervalItem> = rows
+            .iter()
+            .map(|p| IntervalItem {
+                label: p.bucket.trim_start_matches("grade ").to_string(),
+                estimate: p.ratio.0,
+                lo: p.ratio.1,
+                hi: p.ratio.2,
+                reference: None,
+            })
+            .collect();
         let name = format!("risk-premium-{h}y.svg");
-        if save_chart(charts_dir, &name, charts::interval_chart(&format!("Pricing / historical intensity by grade, {h}Y windows"), "Q/P ratio", true, &items, Some(1.0), ["Q/P", ""]))? {
+        if save_chart(
+            charts_dir,
+            &name,
+            charts::interval_chart(
+                &format!("Pricing / historical intensity by grade, {h}Y windows"),
+                "Q/P ratio",
+                true,
+                &items,
+                Some(1.0),
+                ["Q/P", ""],
+            ),
+        )? {
             *figure += 1;
             let _ = writeln!(w, "![Risk premium {h}Y](charts/{name})\n");
             let _ = writeln!(w, "*Figure {figure}. Ratio of pricing to historical intensity per bucket with its interval (log scale, line at 1); buckets without a default have no point estimate and an open upper end.*\n");
@@ -283,7 +393,16 @@ pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
             let mut series: Vec<(String, Vec<(f64, f64)>)> = through.into_iter().collect();
             series.sort_by_key(|s| bucket_order(&s.0));
             let name = format!("risk-premium-through-time-{h}y.svg");
-            if save_chart(charts_dir, &name, charts::multi_line_chart(&format!("Q/P ratio per cohort year, {h}Y"), "Q/P ratio", &series, &[(1.0, "1")]))? {
+            if save_chart(
+                charts_dir,
+                &name,
+                charts::multi_line_chart(
+                    &format!("Q/P ratio per cohort year, {h}Y"),
+                    "Q/P ratio",
+                    &series,
+                    &[(1.0, "1")],
+                ),
+            )? {
                 *figure += 1;
                 let _ = writeln!(w, "![Risk premium through time](charts/{name})\n");
                 let _ = writeln!(w, "*Figure {figure}. Q/P ratio per bucket and cohort year (cohorts without a default have no ratio and are left out).*\n");
@@ -303,13 +422,25 @@ pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
             sep.push_str(" ---: | ---: |");
         }
         let _ = writeln!(w, "{head}\n{sep}");
-        let mut names: Vec<&str> = premia.iter().filter(|p| p.cohort == "all" && p.horizon == h).map(|p| p.bucket.as_str()).collect::<BTreeSet<_>>().into_iter().collect();
+        let mut names: Vec<&str> = premia
+            .iter()
+            .filter(|p| p.cohort == "all" && p.horizon == h)
+            .map(|p| p.bucket.as_str())
+            .collect::<BTreeSet<_>>()
+            .into_iter()
+            .collect();
         names.sort_by_key(|b| bucket_order(b));
         for b in names {
             let mut line = format!("| {b} |");
             for r in &recs {
-                let pd = buckets.iter().find(|x| x.cohort == "all" && x.horizon == h && x.bucket == b && (x.recovery - r).abs() < 1e-9).and_then(|x| x.implied);
-                let ratio = premia.iter().find(|x| x.cohort == "all" && x.horizon == h && x.bucket == b && (x.recovery - r).abs() < 1e-9).and_then(|x| x.ratio.0);
+                let pd = buckets
+                    .iter()
+                    .find(|x| x.cohort == "all" && x.horizon == h && x.bucket == b && (x.recovery - r).abs() < 1e-9)
+                    .and_then(|x| x.implied);
+                let ratio = premia
+                    .iter()
+                    .find(|x| x.cohort == "all" && x.horizon == h && x.bucket == b && (x.recovery - r).abs() < 1e-9)
+                    .and_then(|x| x.ratio.0);
                 let _ = write!(line, " {} | {} |", opt(pd, pct), opt(ratio, |v| format!("{v:.2}")));
             }
             let _ = writeln!(w, "{line}");
@@ -320,7 +451,13 @@ pub fn backtest_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
 }
 
 /// The parameter-stability section.
-pub fn stability_section(w: &mut String, tables: &Path, charts_dir: &Path, figure: &mut usize, number: usize) -> Result<()> {
+pub fn stability_section(
+    w: &mut String,
+    tables: &Path,
+    charts_dir: &Path,
+    figure: &mut usize,
+    number: usize,
+) -> Result<()> {
     let _ = writeln!(w, "## {number}. Parameter stability\n");
     let path = tables.join("stability.parquet");
     let df = read_frame(&path)?;
@@ -341,11 +478,22 @@ pub fn stability_section(w: &mut String, tables: &Path, charts_dir: &Path, figur
     let periods: BTreeSet<String> = period.iter().flatten().cloned().collect();
     let _ = writeln!(w, "Each series is summarised per review period ({} periods, {} to {}) per entity, per grade and over the universe (`tables/stability.parquet`); every breach of a threshold below is a flag in section 6 pointing to its entity, series and period.\n", periods.len(), periods.iter().next().cloned().unwrap_or_default(), periods.iter().last().cloned().unwrap_or_default());
     // Universe table for the implied PD and the 5Y hazard (the CIR parameters are in section 3).
-    let _ = writeln!(w, "| period | series | names | mean | median | change of mean |\n| --- | --- | ---: | ---: | ---: | ---: |");
+    let _ = writeln!(
+        w,
+        "| period | series | names | mean | median | change of mean |\n| --- | --- | ---: | ---: | ---: | ---: |"
+    );
     for i in 0..df.height() {
         let s = series[i].as_deref().unwrap_or("");
         if scope[i].as_deref() == Some("universe") && (s == "pd_1y" || s == "hazard_5y") {
-            let _ = writeln!(w, "| {} | {s} | {} | {} | {} | {} |", period[i].as_deref().unwrap_or(""), n[i].unwrap_or(0), opt(mean[i], sci), opt(median[i], sci), opt(mc[i], pct));
+            let _ = writeln!(
+                w,
+                "| {} | {s} | {} | {} | {} | {} |",
+                period[i].as_deref().unwrap_or(""),
+                n[i].unwrap_or(0),
+                opt(mean[i], sci),
+                opt(median[i], sci),
+                opt(mc[i], pct)
+            );
         }
     }
     let _ = writeln!(w);
@@ -353,7 +501,9 @@ pub fn stability_section(w: &mut String, tables: &Path, charts_dir: &Path, figur
     let mut grid: BTreeMap<u32, BTreeMap<String, f64>> = BTreeMap::new();
     for i in 0..df.height() {
         if scope[i].as_deref() == Some("grade") && series[i].as_deref() == Some("pd_1y") {
-            if let (Some(g), Some(p), Some(c)) = (key[i].as_deref().and_then(|k| k.parse::<u32>().ok()), &period[i], mc[i]) {
+            if let (Some(g), Some(p), Some(c)) =
+                (key[i].as_deref().and_then(|k| k.parse::<u32>().ok()), &period[i], mc[i])
+            {
                 grid.entry(g).or_default().insert(p.clone(), c);
             }
         }
@@ -361,8 +511,18 @@ pub fn stability_section(w: &mut String, tables: &Path, charts_dir: &Path, figur
     if !grid.is_empty() {
         let cols: Vec<String> = periods.iter().cloned().collect();
         let rows: Vec<String> = grid.keys().map(|g| format!("grade {g}")).collect();
-        let values: Vec<Vec<Option<f64>>> = grid.values().map(|m| cols.iter().map(|c| m.get(c).copied()).collect()).collect();
-        if save_chart(charts_dir, "stability-heat-map.svg", charts::heat_map("Change of the mean 1Y implied PD on the previous period, by grade", &rows, &cols, &values))? {
+        let values: Vec<Vec<Option<f64>>> =
+            grid.values().map(|m| cols.iter().map(|c| m.get(c).copied()).collect()).collect();
+        if save_chart(
+            charts_dir,
+            "stability-heat-map.svg",
+            charts::heat_map(
+                "Change of the mean 1Y implied PD on the previous period, by grade",
+                &rows,
+                &cols,
+                &values,
+            ),
+        )? {
             *figure += 1;
             let _ = writeln!(w, "![Period-on-period change by grade](charts/stability-heat-map.svg)\n");
             let _ = writeln!(w, "*Figure {figure}. Relative change of the grade's mean 1Y implied PD on the previous period (red up, blue down, grey without a previous period).*\n");
@@ -371,7 +531,14 @@ pub fn stability_section(w: &mut String, tables: &Path, charts_dir: &Path, figur
     // PSI.
     let ppath = tables.join("stability_psi.parquet");
     let pdf = read_frame(&ppath)?;
-    let (ps, pp, prev, np, nc, psi) = (strs(&pdf, &ppath, "series")?, strs(&pdf, &ppath, "period")?, strs(&pdf, &ppath, "previous_period")?, ints(&pdf, &ppath, "n_previous")?, ints(&pdf, &ppath, "n_current")?, floats(&pdf, &ppath, "psi")?);
+    let (ps, pp, prev, np, nc, psi) = (
+        strs(&pdf, &ppath, "series")?,
+        strs(&pdf, &ppath, "period")?,
+        strs(&pdf, &ppath, "previous_period")?,
+        ints(&pdf, &ppath, "n_previous")?,
+        ints(&pdf, &ppath, "n_current")?,
+        floats(&pdf, &ppath, "psi")?,
+    );
     if pdf.height() > 0 {
         let _ = writeln!(w, "Population stability index of the cross-sectional implied-PD distribution against the previous period:\n\n| series | period | previous | names before | names now | PSI | reading |\n| --- | --- | --- | ---: | ---: | ---: | --- |");
         let mut points = Vec::new();
@@ -382,7 +549,16 @@ pub fn stability_section(w: &mut String, tables: &Path, charts_dir: &Path, figur
                 Some(_) => "stable",
                 None => "too few names",
             };
-            let _ = writeln!(w, "| {} | {} | {} | {} | {} | {} | {reading} |", ps[i].as_deref().unwrap_or(""), pp[i].as_deref().unwrap_or(""), prev[i].as_deref().unwrap_or(""), np[i].unwrap_or(0), nc[i].unwrap_or(0), opt(psi[i], |v| format!("{v:.4}")));
+            let _ = writeln!(
+                w,
+                "| {} | {} | {} | {} | {} | {} | {reading} |",
+                ps[i].as_deref().unwrap_or(""),
+                pp[i].as_deref().unwrap_or(""),
+                prev[i].as_deref().unwrap_or(""),
+                np[i].unwrap_or(0),
+                nc[i].unwrap_or(0),
+                opt(psi[i], |v| format!("{v:.4}"))
+            );
             if let (Some(v), Some(p)) = (psi[i], pp[i].as_deref()) {
                 if let Some(x) = period_midpoint(p) {
                     points.push((x, v));
@@ -390,7 +566,18 @@ pub fn stability_section(w: &mut String, tables: &Path, charts_dir: &Path, figur
             }
         }
         let _ = writeln!(w);
-        if !points.is_empty() && save_chart(charts_dir, "psi.svg", charts::multi_line_chart("PSI of the 1Y implied PD, period on period", "PSI", &[("PSI".to_string(), points)], &[(0.10, "0.10"), (0.25, "0.25")]))? {
+        if !points.is_empty()
+            && save_chart(
+                charts_dir,
+                "psi.svg",
+                charts::multi_line_chart(
+                    "PSI of the 1Y implied PD, period on period",
+                    "PSI",
+                    &[("PSI".to_string(), points)],
+                    &[(0.10, "0.10"), (0.25, "0.25")],
+                ),
+            )?
+        {
             *figure += 1;
             let _ = writeln!(w, "![PSI through time](charts/psi.svg)\n");
             let _ = writeln!(w, "*Figure {figure}. PSI per review period against the previous one, with the 0.10 and 0.25 thresholds.*\n");
@@ -399,14 +586,27 @@ pub fn stability_section(w: &mut String, tables: &Path, charts_dir: &Path, figur
     // Breaks.
     let kpath = tables.join("stability_breaks.parquet");
     let kdf = read_frame(&kpath)?;
-    let (ke, ks, kw, kst, kc) = (strs(&kdf, &kpath, "entity")?, strs(&kdf, &kpath, "series")?, strs(&kdf, &kpath, "window")?, strs(&kdf, &kpath, "status")?, dates(&kdf, &kpath, "crossed_at")?);
+    let (ke, ks, kw, kst, kc) = (
+        strs(&kdf, &kpath, "entity")?,
+        strs(&kdf, &kpath, "series")?,
+        strs(&kdf, &kpath, "window")?,
+        strs(&kdf, &kpath, "status")?,
+        dates(&kdf, &kpath, "crossed_at")?,
+    );
     let tested = kst.iter().filter(|s| s.as_deref() == Some("tested")).count();
     let crossed: Vec<usize> = (0..kdf.height()).filter(|&i| kc[i].is_some()).collect();
     let _ = writeln!(w, "Structural breaks: {tested} CUSUM tests (Brown, Durbin and Evans, 1975) on entity-period windows; {} crossed the boundary{}.\n", crossed.len(), if crossed.is_empty() { "" } else { " (first crossings below, all in `tables/stability_breaks.parquet`)" });
     if !crossed.is_empty() {
         let _ = writeln!(w, "| entity | series | window | first crossing |\n| --- | --- | --- | --- |");
         for &i in crossed.iter().take(15) {
-            let _ = writeln!(w, "| {} | {} | {} | {} |", ke[i].as_deref().unwrap_or(""), ks[i].as_deref().unwrap_or(""), kw[i].as_deref().unwrap_or(""), kc[i].map(|d| d.to_string()).unwrap_or_default());
+            let _ = writeln!(
+                w,
+                "| {} | {} | {} | {} |",
+                ke[i].as_deref().unwrap_or(""),
+                ks[i].as_deref().unwrap_or(""),
+                kw[i].as_deref().unwrap_or(""),
+                kc[i].map(|d| d.to_string()).unwrap_or_default()
+            );
         }
         let _ = writeln!(w);
     }
@@ -433,10 +633,27 @@ pub fn residual_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
     let rpath = tables.join("residual_repricing.parquet");
     let rdf = read_frame(&rpath)?;
     let _ = writeln!(w, "### Residual analytics\n");
-    let (m, c, r, s, tol) = (strs(&rdf, &rpath, "method")?, ints(&rdf, &rpath, "curves")?, ints(&rdf, &rpath, "repricing")?, floats(&rdf, &rpath, "share")?, floats(&rdf, &rpath, "tolerance_bp")?);
-    let _ = writeln!(w, "| method | curves | within tolerance | share | tolerance bp |\n| --- | ---: | ---: | ---: | ---: |");
+    let (m, c, r, s, tol) = (
+        strs(&rdf, &rpath, "method")?,
+        ints(&rdf, &rpath, "curves")?,
+        ints(&rdf, &rpath, "repricing")?,
+        floats(&rdf, &rpath, "share")?,
+        floats(&rdf, &rpath, "tolerance_bp")?,
+    );
+    let _ = writeln!(
+        w,
+        "| method | curves | within tolerance | share | tolerance bp |\n| --- | ---: | ---: | ---: | ---: |"
+    );
     for i in 0..rdf.height() {
-        let _ = writeln!(w, "| {} | {} | {} | {} | {} |", m[i].as_deref().unwrap_or(""), c[i].unwrap_or(0), r[i].unwrap_or(0), opt(s[i], pct), opt(tol[i], |v| format!("{v:e}")));
+        let _ = writeln!(
+            w,
+            "| {} | {} | {} | {} | {} |",
+            m[i].as_deref().unwrap_or(""),
+            c[i].unwrap_or(0),
+            r[i].unwrap_or(0),
+            opt(s[i], pct),
+            opt(tol[i], |v| format!("{v:e}"))
+        );
     }
     let tpath = tables.join("residual_tenors.parquet");
     let tdf = read_frame(&tpath)?;
@@ -453,14 +670,30 @@ pub fn residual_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
     let _ = writeln!(w, "\nDistribution of |residual| (bp) per method and tenor (`tables/residual_tenors.parquet` also has the signed quantiles; `tables/residual_curves.parquet` the RMSE and largest residual per curve):\n\n| method | tenor | quotes | 5% | median | 95% | 99% |\n| --- | --- | ---: | ---: | ---: | ---: | ---: |");
     let mut boot = Vec::new();
     for i in 0..tdf.height() {
-        let _ = writeln!(w, "| {} | {} | {} | {} | {} | {} | {} |", tm[i].as_deref().unwrap_or(""), tt[i].as_deref().unwrap_or(""), tn[i].unwrap_or(0), opt(a05[i], |v| format!("{v:.2e}")), opt(a50[i], |v| format!("{v:.2e}")), opt(a95[i], |v| format!("{v:.2e}")), opt(a99[i], |v| format!("{v:.2e}")));
+        let _ = writeln!(
+            w,
+            "| {} | {} | {} | {} | {} | {} | {} |",
+            tm[i].as_deref().unwrap_or(""),
+            tt[i].as_deref().unwrap_or(""),
+            tn[i].unwrap_or(0),
+            opt(a05[i], |v| format!("{v:.2e}")),
+            opt(a50[i], |v| format!("{v:.2e}")),
+            opt(a95[i], |v| format!("{v:.2e}")),
+            opt(a99[i], |v| format!("{v:.2e}"))
+        );
         if tm[i].as_deref() == Some("bootstrap") {
             let q = [a01[i], a05[i], a50[i], a95[i], a99[i]].map(|v| v.unwrap_or(0.0));
             boot.push((tt[i].clone().unwrap_or_default(), q));
         }
     }
     let _ = writeln!(w);
-    if !boot.is_empty() && save_chart(charts_dir, "residuals-by-tenor.svg", charts::quantile_bands_by_category("Bootstrap |residual| by tenor", "log10 |residual| (bp)", &boot))? {
+    if !boot.is_empty()
+        && save_chart(
+            charts_dir,
+            "residuals-by-tenor.svg",
+            charts::quantile_bands_by_category("Bootstrap |residual| by tenor", "log10 |residual| (bp)", &boot),
+        )?
+    {
         *figure += 1;
         let _ = writeln!(w, "![Residuals by tenor](charts/residuals-by-tenor.svg)\n");
         let _ = writeln!(w, "*Figure {figure}. Quantiles of the bootstrap's absolute repricing residual per tenor: whiskers 1-99%, box 5-95%, line at the median (log10 of bp).*\n");

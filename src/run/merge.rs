@@ -30,7 +30,13 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let folder = RunFolder::create(cfg, opts, period)?;
     let meta = table_metadata(cfg, &params);
     let multi: BTreeSet<String> = cal.multi_currency.iter().cloned().collect();
-    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)), Some(report_folds(cfg)?), split_tables(cfg, &ds))?;
+    let mut sinks = RowSinks::create(
+        &folder.tables(),
+        &meta,
+        Some(RowDigest::new(&multi, &cfg.stability)),
+        Some(report_folds(cfg)?),
+        split_tables(cfg, &ds),
+    )?;
     let t = Instant::now();
     (cal.hazard, cal.residuals) = merge_part_rows(&dirs, &mut sinks)?;
     let (rss, peak) = memory_mib();
@@ -40,7 +46,12 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
 
 fn read_parts(dir: &Path, pipeline: &Path) -> Result<(Vec<PathBuf>, Vec<Partition>)> {
     let bad = |message: String| Error::Argument { name: "merge", message };
-    let entries = std::fs::read_dir(dir).map_err(|e| bad(format!("no shard parts at {}: {e}; run `hazardline run PIPELINE --shard I/N` for every shard first", dir.display())))?;
+    let entries = std::fs::read_dir(dir).map_err(|e| {
+        bad(format!(
+            "no shard parts at {}: {e}; run `hazardline run PIPELINE --shard I/N` for every shard first",
+            dir.display()
+        ))
+    })?;
     let mut folders: Vec<PathBuf> = entries
         .filter_map(|e| e.ok())
         .map(|e| e.path())
@@ -55,10 +66,19 @@ fn read_parts(dir: &Path, pipeline: &Path) -> Result<(Vec<PathBuf>, Vec<Partitio
     for f in &folders {
         let m = read_meta(f)?;
         if m.pipeline_sha256 != sha {
-            return Err(bad(format!("{} was made from another version of the pipeline file (SHA-256 {}, this one {sha}); rerun that shard", f.display(), m.pipeline_sha256)));
+            return Err(bad(format!(
+                "{} was made from another version of the pipeline file (SHA-256 {}, this one {sha}); rerun that shard",
+                f.display(),
+                m.pipeline_sha256
+            )));
         }
         if m.version != env!("CARGO_PKG_VERSION") {
-            return Err(bad(format!("{} was made by hazardline {}, this is {}; rerun that shard", f.display(), m.version, env!("CARGO_PKG_VERSION"))));
+            return Err(bad(format!(
+                "{} was made by hazardline {}, this is {}; rerun that shard",
+                f.display(),
+                m.version,
+                env!("CARGO_PKG_VERSION")
+            )));
         }
         metas.push(m);
     }
@@ -72,7 +92,8 @@ fn read_parts(dir: &Path, pipeline: &Path) -> Result<(Vec<PathBuf>, Vec<Partitio
     }
     // Parts in shard order, each shard's date ranges in date order (an open start first).
     keyed.sort_by_key(|k| (k.0, k.1.from));
-    let lacking: Vec<String> = (1..=n).filter(|i| !keyed.iter().any(|k| k.0 == *i)).map(|i| format!("{i}/{n}")).collect();
+    let lacking: Vec<String> =
+        (1..=n).filter(|i| !keyed.iter().any(|k| k.0 == *i)).map(|i| format!("{i}/{n}")).collect();
     if !lacking.is_empty() {
         return Err(bad(format!("{}: shards {} are missing; run them, then merge", dir.display(), lacking.join(", "))));
     }
@@ -84,7 +105,6 @@ fn read_parts(dir: &Path, pipeline: &Path) -> Result<(Vec<PathBuf>, Vec<Partitio
     let parts = dirs.iter().map(|f| read_partition(f).map(|(_, p)| p)).collect::<Result<Vec<_>>>()?;
     Ok((dirs, parts))
 }
-
 
 /// The rows of every part, in one canonical order (a curve's rows stay in their order: each
 /// curve is computed in one part; the node and residual rows are ordered by
@@ -106,7 +126,8 @@ fn combine(parts: Vec<Partition>) -> Result<Partition> {
     }
     // The market move on an entity's first curve in a date range's part is from its last
     // curve in an earlier part of the same shard (parts come in shard, then date order).
-    let mut carry: std::collections::HashMap<crate::tables::Label, std::collections::BTreeMap<u32, f64>> = Default::default();
+    let mut carry: std::collections::HashMap<crate::tables::Label, std::collections::BTreeMap<u32, f64>> =
+        Default::default();
     let mut shard = None;
     for mut p in parts {
         if shard != Some(p.shard) {
@@ -130,7 +151,11 @@ fn combine(parts: Vec<Partition>) -> Result<Partition> {
         for (k, (r, mut v)) in p.members.into_iter().enumerate() {
             match all.members.get_mut(k) {
                 Some((r0, v0)) if r0.to_bits() == r.to_bits() => v0.append(&mut v),
-                Some((r0, _)) => return Err(Error::Other(format!("parts disagree on the recovery scenarios ({r0} and {r}); rerun every shard with one pipeline file"))),
+                Some((r0, _)) => {
+                    return Err(Error::Other(format!(
+                    "parts disagree on the recovery scenarios ({r0} and {r}); rerun every shard with one pipeline file"
+                )))
+                }
                 None => all.members.push((r, v)),
             }
         }

@@ -19,27 +19,31 @@ pub mod selfcheck;
 
 pub use merge::merge;
 
-use crate::stages::backtest::{backtest_from_members, first_defaults, write_backtest_tables, BacktestContext, BacktestResults};
-use crate::stages::calibrate::{metadata, CalibrationParams};
-use crate::stages::stability::{grade_book, multi_currency, run_stability, stability_inputs, write_stability_tables, RowDigest};
+use crate::backtest::{HistoryRow, RiskPremiumRow};
+use crate::config::RunConfig;
+use crate::error::{Error, Result};
 use crate::ingest::Dataset;
+use crate::ingest::{load, TableCounts};
+use crate::ingest::{load::DataQualityRow, Reject};
 use crate::parts::{DateRange, Shard};
+use crate::report::markdown::{self, NodeFold, ResidualFold};
+use crate::stability::residual_review::{CurveResidualRow, RepricingShare, TenorResidualRow, WorstResidualRow};
+use crate::stability::{BreakRow, CrossSectionRow, StabilityRow};
+use crate::stages::backtest::{
+    backtest_from_members, first_defaults, write_backtest_tables, BacktestContext, BacktestResults,
+};
+use crate::stages::calibrate::{metadata, CalibrationParams};
+use crate::stages::stability::{
+    grade_book, multi_currency, run_stability, stability_inputs, write_stability_tables, RowDigest,
+};
+use crate::tables::flags::{FlagRecord, STABILITY};
+use crate::tables::manifest::{hash_file, relative, write_text, CountRecord, FileRecord, InputRecord, Manifest};
+use crate::tables::review::PsiRecord;
+use crate::tables::*;
+use crate::text::Severity;
 use part_folder::{work_folder, write_partition, PartFolder};
 use partition::{compute_partition, Partition, RowSinks, StageTiming};
 use scope::{keep_dates, keep_shard};
-use crate::tables::flags::{FlagRecord, STABILITY};
-use crate::text::Severity;
-use crate::config::RunConfig;
-use crate::error::{Error, Result};
-use crate::ingest::{load, TableCounts};
-use crate::tables::manifest::{hash_file, relative, write_text, CountRecord, FileRecord, InputRecord, Manifest};
-use crate::report::markdown::{self, NodeFold, ResidualFold};
-use crate::tables::*;
-use crate::backtest::{HistoryRow, RiskPremiumRow};
-use crate::ingest::{load::DataQualityRow, Reject};
-use crate::stability::residual_review::{CurveResidualRow, RepricingShare, TenorResidualRow, WorstResidualRow};
-use crate::stability::{BreakRow, CrossSectionRow, StabilityRow};
-use crate::tables::review::PsiRecord;
 use std::collections::BTreeSet;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
@@ -84,7 +88,14 @@ pub fn memory_mib() -> (f64, f64) {
 fn counts_records(stage: &str, counts: &[TableCounts]) -> Vec<CountRecord> {
     counts
         .iter()
-        .map(|c| CountRecord { stage: stage.into(), table: c.table.into(), rows_in: c.rows_in as u64, used: c.used as u64, rejected: c.rejected as u64, flagged: c.flagged as u64 })
+        .map(|c| CountRecord {
+            stage: stage.into(),
+            table: c.table.into(),
+            rows_in: c.rows_in as u64,
+            used: c.used as u64,
+            rejected: c.rejected as u64,
+            flagged: c.flagged as u64,
+        })
         .collect()
 }
 
@@ -114,7 +125,12 @@ pub const TABLES: [&str; 20] = [
 ];
 
 fn calibration_params(cfg: &RunConfig) -> CalibrationParams {
-    CalibrationParams { recovery: cfg.recovery, recovery_by_seniority: cfg.recovery_by_seniority.clone(), bootstrap: cfg.bootstrap, calendar: cfg.calendar.clone() }
+    CalibrationParams {
+        recovery: cfg.recovery,
+        recovery_by_seniority: cfg.recovery_by_seniority.clone(),
+        bootstrap: cfg.bootstrap,
+        calendar: cfg.calendar.clone(),
+    }
 }
 
 /// First and last date of the usable CDS quotes (the panel is sorted by date).
@@ -123,7 +139,10 @@ fn quote_period(ds: &Dataset) -> Option<(chrono::NaiveDate, chrono::NaiveDate)> 
 }
 
 fn run_label(cfg: &RunConfig, opts: &RunOptions, period: Option<(chrono::NaiveDate, chrono::NaiveDate)>) -> String {
-    opts.label.clone().or_else(|| cfg.label.clone()).unwrap_or_else(|| period.map_or("run".to_string(), |(_, b)| format!("asof-{b}")))
+    opts.label
+        .clone()
+        .or_else(|| cfg.label.clone())
+        .unwrap_or_else(|| period.map_or("run".to_string(), |(_, b)| format!("asof-{b}")))
 }
 
 fn output_root(cfg: &RunConfig, opts: &RunOptions) -> PathBuf {
@@ -183,7 +202,11 @@ struct RunFolder {
 }
 
 impl RunFolder {
-    fn create(cfg: &RunConfig, opts: &RunOptions, period: Option<(chrono::NaiveDate, chrono::NaiveDate)>) -> Result<RunFolder> {
+    fn create(
+        cfg: &RunConfig,
+        opts: &RunOptions,
+        period: Option<(chrono::NaiveDate, chrono::NaiveDate)>,
+    ) -> Result<RunFolder> {
         let label = run_label(cfg, opts, period);
         let final_dir = output_root(cfg, opts).join(&cfg.name).join(&label);
         let work = work_folder(&final_dir)?;
@@ -200,8 +223,18 @@ impl RunFolder {
 /// Key-value metadata of every table of a run.
 fn table_metadata(cfg: &RunConfig, params: &CalibrationParams) -> Vec<(String, String)> {
     let mut meta = metadata(params, &cfg.quality);
-    meta.push(("hazardline.bond_fit".into(), format!("{} (recovery convention {})", cfg.bond_fit, cfg.bond_recovery_convention)));
-    meta.push(("hazardline.cir".into(), if cfg.cir { format!("true (mode {}, window {} business days)", cfg.cir_mode, cfg.cir_window) } else { "false".into() }));
+    meta.push((
+        "hazardline.bond_fit".into(),
+        format!("{} (recovery convention {})", cfg.bond_fit, cfg.bond_recovery_convention),
+    ));
+    meta.push((
+        "hazardline.cir".into(),
+        if cfg.cir {
+            format!("true (mode {}, window {} business days)", cfg.cir_mode, cfg.cir_window)
+        } else {
+            "false".into()
+        },
+    ));
     meta
 }
 
@@ -230,7 +263,10 @@ fn table_files(tables: &Path) -> Result<Vec<String>> {
         let dir = tables.join(t);
         if dir.is_dir() {
             for f in crate::tables::readback::table_files(&dir)? {
-                out.push(format!("tables/{t}/{}", f.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default()));
+                out.push(format!(
+                    "tables/{t}/{}",
+                    f.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default()
+                ));
             }
         } else {
             out.push(format!("tables/{t}.parquet"));
@@ -259,7 +295,13 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let folder = RunFolder::create(cfg, opts, quote_period(&ds))?;
     let meta = table_metadata(cfg, &params);
     let multi = multi_currency_of(cfg, &ds);
-    let mut sinks = RowSinks::create(&folder.tables(), &meta, Some(RowDigest::new(&multi, &cfg.stability)), Some(report_folds(cfg)?), split_tables(cfg, &ds))?;
+    let mut sinks = RowSinks::create(
+        &folder.tables(),
+        &meta,
+        Some(RowDigest::new(&multi, &cfg.stability)),
+        Some(report_folds(cfg)?),
+        split_tables(cfg, &ds),
+    )?;
     let scope = keep_dates(&mut ds, DateRange::ALL, cfg);
     let (part, t) = compute_partition(&mut ds, cfg, &params, Shard::ALL, &scope, &mut sinks, &multi)?;
     timings.extend(t);
@@ -307,7 +349,18 @@ pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard, dates: DateRa
 /// The pooled half of a run: accounting, backtest, stability, flags, tables, manifest, report.
 /// `sinks` has the CDS rows the per-entity half wrote; the rows `cal` still holds go after.
 #[allow(clippy::too_many_arguments)]
-fn finish(cfg: &RunConfig, mut ds: Dataset, ingest_counts: Vec<TableCounts>, mut cal: Partition, sinks: RowSinks, multi: &BTreeSet<String>, folder: RunFolder, meta: &[(String, String)], mut timings: Vec<StageTiming>, t0: Instant) -> Result<RunSummary> {
+fn finish(
+    cfg: &RunConfig,
+    mut ds: Dataset,
+    ingest_counts: Vec<TableCounts>,
+    mut cal: Partition,
+    sinks: RowSinks,
+    multi: &BTreeSet<String>,
+    folder: RunFolder,
+    meta: &[(String, String)],
+    mut timings: Vec<StageTiming>,
+    t0: Instant,
+) -> Result<RunSummary> {
     let params = calibration_params(cfg);
     let period = quote_period(&ds);
     if let Some(p) = &mut ds.cds {
@@ -350,7 +403,14 @@ fn finish(cfg: &RunConfig, mut ds: Dataset, ingest_counts: Vec<TableCounts>, mut
 
     let t = Instant::now();
     let grades = grade_book(&ds);
-    let inputs = stability_inputs(std::mem::take(&mut cal.curve_obs), std::mem::take(&mut cal.market), &cal.params, &grades, multi, digest);
+    let inputs = stability_inputs(
+        std::mem::take(&mut cal.curve_obs),
+        std::mem::take(&mut cal.market),
+        &cal.params,
+        &grades,
+        multi,
+        digest,
+    );
     let stability = run_stability(inputs, &cfg.stability)?;
     let (rss, peak) = memory_mib();
     timings.push(("stability".into(), t.elapsed().as_secs_f64(), rss, peak));
@@ -387,7 +447,11 @@ fn finish(cfg: &RunConfig, mut ds: Dataset, ingest_counts: Vec<TableCounts>, mut
     let manifest = Manifest {
         tool: "hazardline".into(),
         version: env!("CARGO_PKG_VERSION").into(),
-        pipeline: FileRecord { path: cfg.pipeline_path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default(), bytes, sha256: sha },
+        pipeline: FileRecord {
+            path: cfg.pipeline_path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default(),
+            bytes,
+            sha256: sha,
+        },
         name: cfg.name.clone(),
         label: label.clone(),
         period: period.map(|(a, b)| (a.to_string(), b.to_string())),
@@ -415,7 +479,8 @@ fn finish(cfg: &RunConfig, mut ds: Dataset, ingest_counts: Vec<TableCounts>, mut
 
     // Swap the finished folder into place.
     if final_dir.exists() {
-        std::fs::remove_dir_all(&final_dir).map_err(|e| Error::Write { path: final_dir.clone(), message: e.to_string() })?;
+        std::fs::remove_dir_all(&final_dir)
+            .map_err(|e| Error::Write { path: final_dir.clone(), message: e.to_string() })?;
     }
     std::fs::rename(&work, &final_dir).map_err(|e| Error::Write { path: final_dir.clone(), message: e.to_string() })?;
 

@@ -81,7 +81,13 @@ impl PartFolder {
 
 /// Writes a part: closes its node and residual tables (`sinks`), writes its other tables and
 /// `partition.json` into the work folder, and renames the folder into place.
-pub fn write_partition(folder: PartFolder, sinks: RowSinks, mut part: Partition, shard: Shard, pipeline_sha256: &str) -> Result<()> {
+pub fn write_partition(
+    folder: PartFolder,
+    sinks: RowSinks,
+    mut part: Partition,
+    shard: Shard,
+    pipeline_sha256: &str,
+) -> Result<()> {
     let PartFolder { dir, work } = folder;
     let dir = dir.as_path();
     let none: &[(String, String)] = &[];
@@ -93,7 +99,11 @@ pub fn write_partition(folder: PartFolder, sinks: RowSinks, mut part: Partition,
     tables::parts::write_series(&part.curve_obs, &work)?;
     tables::write(&part.market, &work, none)?;
     tables::write(&tables::parts::edge_rows(&part.edges), &work, none)?;
-    let members: Vec<MemberRecord> = part.members.iter().flat_map(|(r, v)| v.iter().map(move |o| MemberRecord { recovery: *r, member: o.clone() })).collect();
+    let members: Vec<MemberRecord> = part
+        .members
+        .iter()
+        .flat_map(|(r, v)| v.iter().map(move |o| MemberRecord { recovery: *r, member: o.clone() }))
+        .collect();
     tables::write(&members, &work, none)?;
 
     let meta = PartitionMeta {
@@ -123,24 +133,45 @@ pub fn write_partition(folder: PartFolder, sinks: RowSinks, mut part: Partition,
 /// Reads `partition.json` of a partition folder.
 pub fn read_meta(dir: &Path) -> Result<PartitionMeta> {
     let path = dir.join("partition.json");
-    let text = std::fs::read_to_string(&path).map_err(|e| Error::Read { path: path.clone(), format: "JSON", message: e.to_string() })?;
+    let text = std::fs::read_to_string(&path).map_err(|e| Error::Read {
+        path: path.clone(),
+        format: "JSON",
+        message: e.to_string(),
+    })?;
     serde_json::from_str(&text).map_err(|e| Error::Read { path, format: "JSON", message: e.to_string() })
 }
 
 fn parse_date(path: &Path, s: &str) -> Result<NaiveDate> {
-    NaiveDate::parse_from_str(s, "%Y-%m-%d").map_err(|e| Error::Read { path: path.to_path_buf(), format: "JSON", message: format!("date `{s}`: {e}") })
+    NaiveDate::parse_from_str(s, "%Y-%m-%d").map_err(|e| Error::Read {
+        path: path.to_path_buf(),
+        format: "JSON",
+        message: format!("date `{s}`: {e}"),
+    })
 }
-
 
 /// Streams the node and residual rows of the parts in `dirs` (shard order) into `sinks`: the
 /// CDS rows, which every part holds first and in the tables' order, by a k-way merge on (date,
 /// entity, currency) that keeps a curve's rows together, read a slice at a time; the rows
 /// after them (the bond and CIR fits') are returned, for [`RowSinks::finish`] to sort in.
 pub fn merge_part_rows(dirs: &[PathBuf], sinks: &mut RowSinks) -> Result<(Vec<HazardCurveRow>, Vec<ResidualRow>)> {
-    let cursors = dirs.iter().map(|d| readback::cursor::<HazardCurveRow>(&file_of::<HazardCurveRow>(d))).collect::<Result<Vec<_>>>()?;
-    let hazard = merge_sorted(cursors, |r| r.source == CurveSource::Cds, |r| (r.date, r.entity.clone(), r.currency.clone()), |rows| sinks.nodes(rows))?;
-    let cursors = dirs.iter().map(|d| readback::cursor::<ResidualRow>(&file_of::<ResidualRow>(d))).collect::<Result<Vec<_>>>()?;
-    let residuals = merge_sorted(cursors, |r| r.method == FitMethod::Bootstrap, |r| (r.date, r.entity.clone(), r.currency.clone()), |rows| sinks.residual_rows(rows))?;
+    let cursors = dirs
+        .iter()
+        .map(|d| readback::cursor::<HazardCurveRow>(&file_of::<HazardCurveRow>(d)))
+        .collect::<Result<Vec<_>>>()?;
+    let hazard = merge_sorted(
+        cursors,
+        |r| r.source == CurveSource::Cds,
+        |r| (r.date, r.entity.clone(), r.currency.clone()),
+        |rows| sinks.nodes(rows),
+    )?;
+    let cursors =
+        dirs.iter().map(|d| readback::cursor::<ResidualRow>(&file_of::<ResidualRow>(d))).collect::<Result<Vec<_>>>()?;
+    let residuals = merge_sorted(
+        cursors,
+        |r| r.method == FitMethod::Bootstrap,
+        |r| (r.date, r.entity.clone(), r.currency.clone()),
+        |rows| sinks.residual_rows(rows),
+    )?;
     Ok((hazard, residuals))
 }
 
@@ -150,7 +181,12 @@ const MERGED_ROWS: usize = 1 << 16;
 /// Merges the leading rows (`leads`) of sorted cursors by `key` into `emit`, a run of equal
 /// keys at a time (ties go to the earlier cursor, as a stable sort of the concatenation would
 /// have it); returns every row after the leading ones, cursor by cursor.
-fn merge_sorted<T, K: Ord>(mut cursors: Vec<readback::RowCursor<T>>, leads: impl Fn(&T) -> bool, key: impl Fn(&T) -> K, mut emit: impl FnMut(Vec<T>) -> Result<()>) -> Result<Vec<T>> {
+fn merge_sorted<T, K: Ord>(
+    mut cursors: Vec<readback::RowCursor<T>>,
+    leads: impl Fn(&T) -> bool,
+    key: impl Fn(&T) -> K,
+    mut emit: impl FnMut(Vec<T>) -> Result<()>,
+) -> Result<Vec<T>> {
     let mut out = Vec::with_capacity(MERGED_ROWS);
     loop {
         let mut best: Option<(usize, K)> = None;
@@ -207,13 +243,15 @@ pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
     };
     tables::parts::read_series(dir, &mut part.curve_obs)?;
     let path = file_of::<MemberRecord>(dir);
-    let mut members: Vec<(f64, Vec<backtest::Observation>)> = meta.recoveries.iter().map(|r| (*r, Vec::new())).collect();
+    let mut members: Vec<(f64, Vec<backtest::Observation>)> =
+        meta.recoveries.iter().map(|r| (*r, Vec::new())).collect();
     for (i, m) in tables::read_from::<MemberRecord>(&path)?.into_iter().enumerate() {
         let rec = m.recovery;
-        let slot = members
-            .iter_mut()
-            .find(|(x, _)| x.to_bits() == rec.to_bits())
-            .ok_or_else(|| Error::Read { path: path.clone(), format: "Parquet", message: format!("row {}: recovery {rec} is not listed in partition.json", i + 1) })?;
+        let slot = members.iter_mut().find(|(x, _)| x.to_bits() == rec.to_bits()).ok_or_else(|| Error::Read {
+            path: path.clone(),
+            format: "Parquet",
+            message: format!("row {}: recovery {rec} is not listed in partition.json", i + 1),
+        })?;
         slot.1.push(m.member);
     }
     part.members = members;

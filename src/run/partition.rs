@@ -93,7 +93,13 @@ impl<'a> RowSinks<'a> {
     /// of a file per year when `split`: see [`hazard_table`]), each written on a thread of
     /// its own; `report`: what the report takes from them is gathered on the way (a whole run;
     /// none for a shard's part).
-    pub fn create(dir: &Path, meta: &[(String, String)], digest: Option<RowDigest<'a>>, report: Option<(NodeFold, ResidualFold)>, split: bool) -> Result<Self> {
+    pub fn create(
+        dir: &Path,
+        meta: &[(String, String)],
+        digest: Option<RowDigest<'a>>,
+        report: Option<(NodeFold, ResidualFold)>,
+        split: bool,
+    ) -> Result<Self> {
         let (nodes, residuals) = report.map_or((None, None), |(a, b)| (Some(a), Some(b)));
         let hazard = WriterThread::spawn(hazard_table(dir, meta, split)?, nodes);
         let residuals = WriterThread::spawn(residual_table(dir, meta, split)?, residuals);
@@ -118,7 +124,11 @@ impl<'a> RowSinks<'a> {
 
     /// Appends `hazard` and `residuals` in the tables' order ([`sort_hazard`],
     /// [`sort_residuals`]) and closes both tables; returns the digest and the report's folds.
-    pub fn finish(mut self, mut hazard: Vec<HazardCurveRow>, mut residuals: Vec<ResidualRow>) -> Result<(Option<RowDigest<'a>>, Option<ReportFolds>)> {
+    pub fn finish(
+        mut self,
+        mut hazard: Vec<HazardCurveRow>,
+        mut residuals: Vec<ResidualRow>,
+    ) -> Result<(Option<RowDigest<'a>>, Option<ReportFolds>)> {
         sort_hazard(&mut hazard);
         sort_residuals(&mut residuals);
         self.nodes(hazard)?;
@@ -135,7 +145,15 @@ impl<'a> RowSinks<'a> {
 /// the curves themselves are kept only where a later step reads them (the bond and CIR fits,
 /// the backtest's curves near a cohort date), the stability series being taken on the way.
 /// `multi` is [`crate::stages::stability::multi_currency`] of the panel.
-pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &CalibrationParams, shard: Shard, scope: &DateScope, sinks: &mut RowSinks, multi: &BTreeSet<String>) -> Result<(Partition, Vec<StageTiming>)> {
+pub fn compute_partition(
+    ds: &mut Dataset,
+    cfg: &RunConfig,
+    params: &CalibrationParams,
+    shard: Shard,
+    scope: &DateScope,
+    sinks: &mut RowSinks,
+    multi: &BTreeSet<String>,
+) -> Result<(Partition, Vec<StageTiming>)> {
     let mut timings = Vec::new();
     let t = Instant::now();
     let grades = grade_book(ds);
@@ -170,8 +188,12 @@ pub fn compute_partition(ds: &mut Dataset, cfg: &RunConfig, params: &Calibration
                 }
                 Ok(())
             });
-            let cal = calibrate_blocks(ds, params, range, move |block| tx.send(block).map_err(|_| Error::Other("the writer of the calibrated curves stopped".into())));
-            let consumed = consumer.join().map_err(|_| Error::Other("the writer of the calibrated curves failed; this is a bug, please report it".into()))?;
+            let cal = calibrate_blocks(ds, params, range, move |block| {
+                tx.send(block).map_err(|_| Error::Other("the writer of the calibrated curves stopped".into()))
+            });
+            let consumed = consumer.join().map_err(|_| {
+                Error::Other("the writer of the calibrated curves failed; this is a bug, please report it".into())
+            })?;
             // The writer's own error says more than the calibration's "writer stopped".
             consumed?;
             cal

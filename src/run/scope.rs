@@ -97,11 +97,16 @@ pub fn keep_dates(ds: &mut Dataset, range: DateRange, cfg: &RunConfig) -> DateSc
         return DateScope { range, data_end };
     }
     let lookback = chrono::Duration::days(cfg.backtest.core.lookback_days.max(0));
-    let margin_from = range.from.filter(|_| cfg.backtest.enabled).map(|f| (f.checked_sub_signed(lookback).unwrap_or(NaiveDate::MIN), f));
+    let margin_from = range
+        .from
+        .filter(|_| cfg.backtest.enabled)
+        .map(|f| (f.checked_sub_signed(lookback).unwrap_or(NaiveDate::MIN), f));
     let mut dropped: Vec<(&'static str, usize)> = Vec::new();
     if let Some(p) = &mut ds.cds {
         let s = &cfg.intensity;
-        let cir: Vec<bool> = (0..p.entities.len() as u32).map(|i| s.cir && s.cir_entities.as_ref().is_none_or(|l| l.iter().any(|x| x == p.entities.name(i)))).collect();
+        let cir: Vec<bool> = (0..p.entities.len() as u32)
+            .map(|i| s.cir && s.cir_entities.as_ref().is_none_or(|l| l.iter().any(|x| x == p.entities.name(i))))
+            .collect();
         let mut outside = 0;
         let keep: Vec<bool> = p
             .rows

@@ -3,12 +3,12 @@
 //! quality stage caught, the good rows it rejected, and the pricing-over-historical ratio per
 //! grade against its planted value.
 
-use crate::stages::universe::{fault_rows, write_scenario};
 use crate::config::load_pipeline;
 use crate::error::Result;
 use crate::run::{run, RunOptions};
-use crate::tables::readback::{dates, floats, ints, read_frame, strs};
 use crate::sim::{generate, ScenarioSpec};
+use crate::stages::universe::{fault_rows, write_scenario};
+use crate::tables::readback::{dates, floats, ints, read_frame, strs};
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
 use std::fmt::Write as _;
@@ -26,7 +26,13 @@ pub enum Size {
 impl Size {
     pub fn spec(self, seed: u64) -> ScenarioSpec {
         match self {
-            Size::Small => ScenarioSpec { entities: 120, years: 3, intensity_scale: 4.0, bond_share: 0.0, ..ScenarioSpec::demo(seed) },
+            Size::Small => ScenarioSpec {
+                entities: 120,
+                years: 3,
+                intensity_scale: 4.0,
+                bond_share: 0.0,
+                ..ScenarioSpec::demo(seed)
+            },
             Size::Large => ScenarioSpec { entities: 600, years: 6, bond_share: 0.05, ..ScenarioSpec::demo(seed) },
         }
     }
@@ -75,10 +81,20 @@ fn cir_recovery(s: &crate::sim::Scenario, tables: &Path) -> Result<Vec<CirRecove
     use crate::sim::credit::pricing_params;
     let p = tables.join("intensity_params.parquet");
     let df = read_frame(&p)?;
-    let (d, e, k, th, sg, l0, st) = (dates(&df, &p, "date")?, strs(&df, &p, "entity")?, floats(&df, &p, "kappa")?, floats(&df, &p, "theta")?, floats(&df, &p, "sigma")?, floats(&df, &p, "lambda0")?, strs(&df, &p, "status")?);
+    let (d, e, k, th, sg, l0, st) = (
+        dates(&df, &p, "date")?,
+        strs(&df, &p, "entity")?,
+        floats(&df, &p, "kappa")?,
+        floats(&df, &p, "theta")?,
+        floats(&df, &p, "sigma")?,
+        floats(&df, &p, "lambda0")?,
+        strs(&df, &p, "status")?,
+    );
     let index: BTreeMap<&str, usize> = s.entities.iter().enumerate().map(|(i, x)| (x.entity.as_str(), i)).collect();
-    let month_end: BTreeMap<(usize, NaiveDate), f64> = s.intensities.iter().map(|r| ((r.entity, r.date), r.lambda_q)).collect();
-    let mut by: BTreeMap<String, (Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>)> = BTreeMap::new();
+    let month_end: BTreeMap<(usize, NaiveDate), f64> =
+        s.intensities.iter().map(|r| ((r.entity, r.date), r.lambda_q)).collect();
+    let mut by: BTreeMap<String, (Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>)> =
+        BTreeMap::new();
     for i in 0..df.height() {
         let (Some(name), Some(date)) = (e[i].as_deref(), d[i]) else { continue };
         if st[i].as_deref() != Some("ok") {
@@ -145,11 +161,15 @@ pub fn selfcheck(dir: &Path, spec: &ScenarioSpec) -> Result<SelfCheck> {
     // Rejects and flags.
     let rp = tables.join("rejects.parquet");
     let rj = read_frame(&rp)?;
-    let (rt, rs, rr, rreason) = (strs(&rj, &rp, "table")?, strs(&rj, &rp, "source")?, ints(&rj, &rp, "row")?, strs(&rj, &rp, "reason")?);
+    let (rt, rs, rr, rreason) =
+        (strs(&rj, &rp, "table")?, strs(&rj, &rp, "source")?, ints(&rj, &rp, "row")?, strs(&rj, &rp, "reason")?);
     let mut rejected: BTreeMap<(String, u64), String> = BTreeMap::new();
     for i in 0..rj.height() {
         if rt[i].as_deref() == Some("cds_quotes") {
-            rejected.insert((rs[i].clone().unwrap_or_default(), rr[i].unwrap_or(0) as u64), rreason[i].clone().unwrap_or_default());
+            rejected.insert(
+                (rs[i].clone().unwrap_or_default(), rr[i].unwrap_or(0) as u64),
+                rreason[i].clone().unwrap_or_default(),
+            );
         }
     }
     let fp = tables.join("flags.parquet");
@@ -175,7 +195,12 @@ pub fn selfcheck(dir: &Path, spec: &ScenarioSpec) -> Result<SelfCheck> {
             flagged.iter().any(|(r, e, d)| r == rule && e == entity && *d >= f.date && *d <= f.last_date)
         };
         fault_row_set.extend(rows);
-        let slot = by_kind.entry(f.kind).or_insert(FaultRecovery { kind: f.kind, expected: f.expected, planted: 0, caught: 0 });
+        let slot = by_kind.entry(f.kind).or_insert(FaultRecovery {
+            kind: f.kind,
+            expected: f.expected,
+            planted: 0,
+            caught: 0,
+        });
         slot.planted += 1;
         slot.caught += caught as usize;
     }
@@ -199,13 +224,28 @@ pub fn selfcheck(dir: &Path, spec: &ScenarioSpec) -> Result<SelfCheck> {
     let mut grades = Vec::new();
     for t in s.premium.iter().filter(|t| t.horizon_years == 1) {
         let label = format!("grade {}", t.grade);
-        let i = (0..pr.height()).find(|&i| pc[i].as_deref() == Some("all") && pb[i].as_deref() == Some(label.as_str()) && ph[i] == Some(1) && prec[i].is_some_and(|r| (r - cfg.recovery).abs() < 1e-9));
+        let i = (0..pr.height()).find(|&i| {
+            pc[i].as_deref() == Some("all")
+                && pb[i].as_deref() == Some(label.as_str())
+                && ph[i] == Some(1)
+                && prec[i].is_some_and(|r| (r - cfg.recovery).abs() < 1e-9)
+        });
         let (defaults, ratio, lo, hi) = match i {
             Some(i) => (pd[i].unwrap_or(0), pra[i], plo[i], phi[i]),
             None => (0, None, None, None),
         };
-        let covered = (defaults >= MIN_DEFAULTS).then(|| lo.is_some_and(|l| l <= t.ratio()) && hi.is_none_or(|h| t.ratio() <= h));
-        grades.push(GradeRecovery { grade: t.grade, multiplier: t.multiplier, planted_ratio: t.ratio(), defaults, ratio, lo, hi, covered });
+        let covered =
+            (defaults >= MIN_DEFAULTS).then(|| lo.is_some_and(|l| l <= t.ratio()) && hi.is_none_or(|h| t.ratio() <= h));
+        grades.push(GradeRecovery {
+            grade: t.grade,
+            multiplier: t.multiplier,
+            planted_ratio: t.ratio(),
+            defaults,
+            ratio,
+            lo,
+            hi,
+            covered,
+        });
     }
 
     let cir = cir_recovery(&s, &tables)?;
@@ -220,13 +260,31 @@ pub fn selfcheck(dir: &Path, spec: &ScenarioSpec) -> Result<SelfCheck> {
     let passed = catch >= MIN_FAULT_CATCH && good_share <= MAX_GOOD_REJECTED && premium_ok && !judged.is_empty();
 
     let mut t = String::new();
-    let _ = writeln!(t, "planted-truth self-check: {} entities x {} years, seed {}, {} CDS quote rows, {} defaults", spec.entities, spec.years, spec.seed, s.quotes.len(), s.defaults.len());
+    let _ = writeln!(
+        t,
+        "planted-truth self-check: {} entities x {} years, seed {}, {} CDS quote rows, {} defaults",
+        spec.entities,
+        spec.years,
+        spec.seed,
+        s.quotes.len(),
+        s.defaults.len()
+    );
     let _ = writeln!(t, "\ndata faults                 expected                      planted   caught");
     for f in &faults {
         let _ = writeln!(t, "  {:<26}{:<30}{:>7}{:>9}", f.kind, f.expected, f.planted, f.caught);
     }
-    let _ = writeln!(t, "  caught {caught} of {planted} ({:.1}%; criterion >= {:.0}%)", 100.0 * catch, 100.0 * MIN_FAULT_CATCH);
-    let _ = writeln!(t, "  good rows rejected: {good_rejected} of {good_rows} ({:.3}%; criterion <= {:.0}%)", 100.0 * good_share, 100.0 * MAX_GOOD_REJECTED);
+    let _ = writeln!(
+        t,
+        "  caught {caught} of {planted} ({:.1}%; criterion >= {:.0}%)",
+        100.0 * catch,
+        100.0 * MIN_FAULT_CATCH
+    );
+    let _ = writeln!(
+        t,
+        "  good rows rejected: {good_rejected} of {good_rows} ({:.3}%; criterion <= {:.0}%)",
+        100.0 * good_share,
+        100.0 * MAX_GOOD_REJECTED
+    );
     let _ = writeln!(t, "\npricing / historical, 1Y, all cohorts (planted ratio = sum of pricing over sum of historical cumulative hazards of the cohort members)");
     let _ = writeln!(t, "  grade  multiplier  planted ratio  defaults  estimated ratio  interval            covered");
     let f = |x: Option<f64>| x.map_or("-".to_string(), |v| format!("{v:.2}"));
@@ -256,7 +314,16 @@ pub fn selfcheck(dir: &Path, spec: &ScenarioSpec) -> Result<SelfCheck> {
             let _ = writeln!(
                 t,
                 "  {:<28}{:>5}   {:>7.3} / {:<7.3}   {:>7.4} / {:<7.4}   {:>7.4} / {:<7.4}   {:>7.4} / {:<7.4}",
-                c.entity, c.fits, c.kappa.0, c.kappa.1, c.theta.0, c.theta.1, c.sigma.0, c.sigma.1, c.lambda0.0, c.lambda0.1
+                c.entity,
+                c.fits,
+                c.kappa.0,
+                c.kappa.1,
+                c.theta.0,
+                c.theta.1,
+                c.sigma.0,
+                c.sigma.1,
+                c.lambda0.0,
+                c.lambda0.1
             );
         }
     }

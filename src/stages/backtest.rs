@@ -2,16 +2,17 @@
 //! bucket tests, risk premia, recovery scenarios (curves re-bootstrapped at the cohort dates
 //! with a shifted recovery), and the cohort-history comparison; and its tables.
 
+use crate::backtest::cohort_dates;
 use crate::backtest::{
-    self, compare_cohort_history, BacktestOutput, BacktestSettings, CohortHistoryRecord, CurveSet, EntityFacts, GradeSpell, HistoryRow, QuotedSpread,
+    self, compare_cohort_history, BacktestOutput, BacktestSettings, CohortHistoryRecord, CurveSet, EntityFacts,
+    GradeSpell, HistoryRow, QuotedSpread,
 };
 use crate::calibrate::{bootstrap, BootstrapQuote};
-use crate::stages::calibrate::{Calibration, CalibrationParams};
-use crate::backtest::cohort_dates;
 use crate::config::BacktestStage;
 use crate::error::{Error, Result};
 use crate::ingest::Dataset;
 use crate::instruments::CdsQuote;
+use crate::stages::calibrate::{Calibration, CalibrationParams};
 use crate::tables::{self, BucketRecord, HosmerLemeshowRecord};
 use chrono::NaiveDate;
 use rayon::prelude::*;
@@ -54,7 +55,12 @@ fn facts(ds: &Dataset, data_end: &BTreeMap<String, NaiveDate>) -> Vec<EntityFact
     let defaults = first_defaults(ds);
     data_end
         .iter()
-        .map(|(e, end)| EntityFacts { entity: e.clone(), grades: spells.get(e.as_str()).cloned().unwrap_or_default(), default_date: defaults.get(e.as_str()).copied(), data_end: *end })
+        .map(|(e, end)| EntityFacts {
+            entity: e.clone(),
+            grades: spells.get(e.as_str()).cloned().unwrap_or_default(),
+            default_date: defaults.get(e.as_str()).copied(),
+            data_end: *end,
+        })
         .collect()
 }
 
@@ -84,9 +90,15 @@ impl CurveCoverage {
 /// it lies within the look-back on or before a cohort date. The cohort dates of the run (or of
 /// a shard, see [`backtest_members_stage`]) are a subset of those counted here, so the curves
 /// this keeps are all the members can ask for.
-pub fn may_serve_a_cohort(period: Option<(NaiveDate, NaiveDate)>, p: &CalibrationParams, stage: &BacktestStage) -> impl Fn(NaiveDate) -> bool {
+pub fn may_serve_a_cohort(
+    period: Option<(NaiveDate, NaiveDate)>,
+    p: &CalibrationParams,
+    stage: &BacktestStage,
+) -> impl Fn(NaiveDate) -> bool {
     let lookback = stage.core.lookback_days.max(0);
-    let mut dates = period.map(|(a, b)| cohort_dates(a, b + chrono::Duration::days(lookback), stage.frequency, &p.calendar)).unwrap_or_default();
+    let mut dates = period
+        .map(|(a, b)| cohort_dates(a, b + chrono::Duration::days(lookback), stage.frequency, &p.calendar))
+        .unwrap_or_default();
     dates.sort();
     move |d| dates.get(dates.partition_point(|t| *t < d)).is_some_and(|t| (*t - d).num_days() <= lookback)
 }
@@ -109,16 +121,27 @@ pub fn first_defaults(ds: &Dataset) -> BTreeMap<&str, NaiveDate> {
 /// `lookback` days on or before a cohort date (`dates` sorted). A member only ever looks up
 /// the latest curve in that window ([`CurveSet::latest_within`]), so no other is copied.
 fn base_curves(cal: &Calibration, recovery: f64, dates: &[NaiveDate], lookback: i64) -> CurveSet {
-    let usable = |d: NaiveDate| dates.get(dates.partition_point(|t| *t < d)).is_some_and(|t| (*t - d).num_days() <= lookback);
+    let usable =
+        |d: NaiveDate| dates.get(dates.partition_point(|t| *t < d)).is_some_and(|t| (*t - d).num_days() <= lookback);
     CurveSet::from_keyed(
         recovery,
-        cal.cds_curves.iter().filter(|((d, _, _), _)| usable(*d)).filter_map(|((d, e, _), c)| c.curve.as_ref().map(|h| ((*d, e.clone()), h.clone(), spreads_of(&c.quotes)))),
+        cal.cds_curves
+            .iter()
+            .filter(|((d, _, _), _)| usable(*d))
+            .filter_map(|((d, e, _), c)| c.curve.as_ref().map(|h| ((*d, e.clone()), h.clone(), spreads_of(&c.quotes)))),
     )
 }
 
 /// A recovery scenario: the curves a cohort uses, re-bootstrapped with `recovery` on every
 /// quote (quotes carrying their own recovery included: the scenario shifts the assumption).
-fn scenario_curves(cal: &Calibration, base: &CurveSet, dates: &[NaiveDate], lookback: i64, recovery: f64, p: &CalibrationParams) -> CurveSet {
+fn scenario_curves(
+    cal: &Calibration,
+    base: &CurveSet,
+    dates: &[NaiveDate],
+    lookback: i64,
+    recovery: f64,
+    p: &CalibrationParams,
+) -> CurveSet {
     let mut wanted: BTreeSet<(NaiveDate, String)> = BTreeSet::new();
     for e in base.curves.keys() {
         for &t in dates {
@@ -159,7 +182,13 @@ fn scenario_curves(cal: &Calibration, base: &CurveSet, dates: &[NaiveDate], look
 /// data end is its last usable quote date over the whole history (`scope.data_end`).
 ///
 /// `cal.cds_curves` needs to hold only the curves [`may_serve_a_cohort`] keeps.
-pub fn backtest_members_stage(ds: &Dataset, cal: &Calibration, scope: &crate::parts::DateScope, p: &CalibrationParams, stage: &BacktestStage) -> Result<Vec<(f64, Vec<backtest::Observation>)>> {
+pub fn backtest_members_stage(
+    ds: &Dataset,
+    cal: &Calibration,
+    scope: &crate::parts::DateScope,
+    p: &CalibrationParams,
+    stage: &BacktestStage,
+) -> Result<Vec<(f64, Vec<backtest::Observation>)>> {
     // A member needs a curve of the kept set within the look-back on or before its cohort
     // date, so the cohort dates worth building lie between the first kept curve and the last
     // one plus the look-back; a part of a date range builds those in its range (the run's
@@ -168,7 +197,9 @@ pub fn backtest_members_stage(ds: &Dataset, cal: &Calibration, scope: &crate::pa
     let lookback = chrono::Duration::days(stage.core.lookback_days.max(0));
     let kept_first = cal.cds_curves.keys().map(|k| k.0).min();
     let kept_last = cal.cds_curves.keys().map(|k| k.0).max();
-    let (Some(first), Some(reach)) = (scope.range.from.or(kept_first), scope.range.to.or(kept_last.map(|d| d + lookback))) else {
+    let (Some(first), Some(reach)) =
+        (scope.range.from.or(kept_first), scope.range.to.or(kept_last.map(|d| d + lookback)))
+    else {
         return Ok(Vec::new());
     };
     let dates = cohort_dates(first, reach, stage.frequency, &p.calendar);
@@ -206,12 +237,21 @@ pub struct BacktestContext<'a> {
 
 /// The stage's results from the members of every partition (concatenated in any order: they
 /// are put in cohort, entity, horizon order here).
-pub fn backtest_from_members(mut members: Vec<(f64, Vec<backtest::Observation>)>, ctx: &BacktestContext, p: &CalibrationParams, stage: &BacktestStage) -> Result<BacktestResults> {
+pub fn backtest_from_members(
+    mut members: Vec<(f64, Vec<backtest::Observation>)>,
+    ctx: &BacktestContext,
+    p: &CalibrationParams,
+    stage: &BacktestStage,
+) -> Result<BacktestResults> {
     let Some((first, last)) = ctx.curve_dates else {
         return Ok(BacktestResults::default());
     };
     let dates = cohort_dates(first, last, stage.frequency, &p.calendar);
-    let mut results = BacktestResults { cohort_dates: dates.clone(), defaults_without_curves: ctx.defaults_without_curves, ..Default::default() };
+    let mut results = BacktestResults {
+        cohort_dates: dates.clone(),
+        defaults_without_curves: ctx.defaults_without_curves,
+        ..Default::default()
+    };
     if dates.is_empty() {
         return Ok(results);
     }
@@ -222,7 +262,13 @@ pub fn backtest_from_members(mut members: Vec<(f64, Vec<backtest::Observation>)>
     let mut outputs = Vec::new();
     for (recovery, obs) in members.iter_mut() {
         obs.retain(|o| wanted.contains(&o.cohort));
-        obs.sort_by(|a, b| (a.cohort, &a.entity, horizon_rank(a.horizon_years)).cmp(&(b.cohort, &b.entity, horizon_rank(b.horizon_years))));
+        obs.sort_by(|a, b| {
+            (a.cohort, &a.entity, horizon_rank(a.horizon_years)).cmp(&(
+                b.cohort,
+                &b.entity,
+                horizon_rank(b.horizon_years),
+            ))
+        });
         outputs.push(backtest::backtest_members(std::mem::take(obs), &core, *recovery).map_err(mk)?);
     }
     if outputs.is_empty() {
@@ -236,9 +282,16 @@ pub fn backtest_from_members(mut members: Vec<(f64, Vec<backtest::Observation>)>
         let records: Vec<CohortHistoryRecord> = h
             .rows
             .iter()
-            .map(|(r, _)| CohortHistoryRecord { year: r.year, grade: r.grade, obligors: r.obligors, defaults: r.defaults, withdrawn: r.withdrawn })
+            .map(|(r, _)| CohortHistoryRecord {
+                year: r.year,
+                grade: r.grade,
+                obligors: r.obligors,
+                defaults: r.defaults,
+                withdrawn: r.withdrawn,
+            })
             .collect();
-        results.history = compare_cohort_history(&records, &outputs[0].buckets, core.level, &core.zones).map_err(|e| Error::Other(format!("backtest stage (cohort history): {e}")))?;
+        results.history = compare_cohort_history(&records, &outputs[0].buckets, core.level, &core.zones)
+            .map_err(|e| Error::Other(format!("backtest stage (cohort history): {e}")))?;
         results.outcome_sources.push("cohort_history");
     }
     // Without a defaults table the entity-level outcomes are unknown (every member would look
@@ -251,9 +304,19 @@ pub fn backtest_from_members(mut members: Vec<(f64, Vec<backtest::Observation>)>
 /// history) `backtest_history`. Bucket and premium rows of every recovery scenario are in the
 /// same tables, told apart by their `recovery` column.
 pub fn write_backtest_tables(r: &BacktestResults, dir: &Path, meta: &[(String, String)]) -> Result<()> {
-    let buckets: Vec<BucketRecord> = r.outputs.iter().flat_map(|o| o.buckets.iter().map(move |b| BucketRecord { recovery: o.recovery, row: b.clone() })).collect();
+    let buckets: Vec<BucketRecord> = r
+        .outputs
+        .iter()
+        .flat_map(|o| o.buckets.iter().map(move |b| BucketRecord { recovery: o.recovery, row: b.clone() }))
+        .collect();
     tables::write(&buckets, dir, meta)?;
-    let hl: Vec<HosmerLemeshowRecord> = r.outputs.iter().flat_map(|o| o.hosmer_lemeshow.iter().map(move |b| HosmerLemeshowRecord { recovery: o.recovery, row: b.clone() })).collect();
+    let hl: Vec<HosmerLemeshowRecord> = r
+        .outputs
+        .iter()
+        .flat_map(|o| {
+            o.hosmer_lemeshow.iter().map(move |b| HosmerLemeshowRecord { recovery: o.recovery, row: b.clone() })
+        })
+        .collect();
     tables::write(&hl, dir, meta)?;
     let rp: Vec<backtest::RiskPremiumRow> = r.outputs.iter().flat_map(|o| o.risk_premia.iter().cloned()).collect();
     tables::write(&rp, dir, meta)?;

@@ -16,11 +16,9 @@ use crate::error::{Error, Result};
 use crate::ingest::cds::{self, CdsPanel, CdsQuoteRow};
 use crate::ingest::discount::{self, DiscountRow};
 use crate::ingest::{QualitySettings, Reject};
-use crate::tables::DiscountCurveRow;
 use crate::instruments::AccrualIntegration;
-use crate::tables::{
-    tenor_label, HazardCurveRow, Label, ResidualRow,
-};
+use crate::tables::DiscountCurveRow;
+use crate::tables::{tenor_label, HazardCurveRow, Label, ResidualRow};
 use crate::text::{CurveSource, FitMethod};
 use crate::time::{Calendar, Tenor};
 use chrono::NaiveDate;
@@ -76,7 +74,10 @@ struct CurveOutput {
 
 /// Builds discount curves per (date, currency); the rows of a curve that cannot be built are
 /// rejected.
-fn discount_curves(rows: Vec<DiscountRow>, rejects: &mut Vec<Reject>) -> (BTreeMap<(NaiveDate, String), DiscountCurve>, usize) {
+fn discount_curves(
+    rows: Vec<DiscountRow>,
+    rejects: &mut Vec<Reject>,
+) -> (BTreeMap<(NaiveDate, String), DiscountCurve>, usize) {
     let mut groups: BTreeMap<(NaiveDate, String), Vec<DiscountRow>> = BTreeMap::new();
     for r in rows {
         groups.entry((r.date, r.currency.clone())).or_default().push(r);
@@ -114,7 +115,13 @@ fn recovery_of(panel: &CdsPanel, r: &CdsQuoteRow, p: &CalibrationParams) -> f64 
     })
 }
 
-fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, plan: Option<&std::result::Result<BootstrapPlan, BootstrapError>>, s: &CalibrationParams) -> CurveOutput {
+fn calibrate_one(
+    panel: &CdsPanel,
+    rows: &[CdsQuoteRow],
+    curve: &DiscountCurve,
+    plan: Option<&std::result::Result<BootstrapPlan, BootstrapError>>,
+    s: &CalibrationParams,
+) -> CurveOutput {
     let h = rows[0];
     let (date, entity, currency) = (h.date, panel.entities.name(h.entity), panel.currencies.name(h.currency));
     let quotes: Vec<BootstrapQuote> = rows
@@ -131,7 +138,10 @@ fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, 
     let fit = match fitted {
         Ok(f) => f,
         Err(e) => {
-            let rejects = rows.iter().map(|r| panel.reject(r, "curve_not_built", format!("{date} {entity} {currency}: {e}"))).collect();
+            let rejects = rows
+                .iter()
+                .map(|r| panel.reject(r, "curve_not_built", format!("{date} {entity} {currency}: {e}")))
+                .collect();
             return CurveOutput { hazard: Vec::new(), residuals: Vec::new(), rejects, used: 0, fit: None };
         }
     };
@@ -177,7 +187,13 @@ fn calibrate_one(panel: &CdsPanel, rows: &[CdsQuoteRow], curve: &DiscountCurve, 
         .collect();
     let curve = if fit.complete() && !fit.failed { fit.curve.clone() } else { None };
     let key = (date, entity.to_string(), currency.to_string());
-    CurveOutput { hazard, residuals, rejects: Vec::new(), used: rows.len(), fit: Some((key, CdsCurve { quotes, curve })) }
+    CurveOutput {
+        hazard,
+        residuals,
+        rejects: Vec::new(),
+        used: rows.len(),
+        fit: Some((key, CdsCurve { quotes, curve })),
+    }
 }
 
 /// Curves calibrated in parallel before their rows are moved into the tables.
@@ -220,15 +236,32 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
 /// checks the accounting again. A curve dated outside `scope` is a margin curve (see
 /// `run::partition::keep_dates`): it is calibrated and handed over in the block's
 /// `curves`, but its rows, rejects and counts belong to another part and are left out.
-pub fn calibrate_blocks(ds: &mut crate::ingest::Dataset, p: &CalibrationParams, scope: crate::parts::DateRange, mut sink: impl FnMut(CurveBlock) -> Result<()>) -> Result<Calibration> {
-    let disc = ds.discount.as_ref().ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the discount table".into() })?;
-    let panel = ds.cds.as_ref().ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the cds_quotes table".into() })?;
+pub fn calibrate_blocks(
+    ds: &mut crate::ingest::Dataset,
+    p: &CalibrationParams,
+    scope: crate::parts::DateRange,
+    mut sink: impl FnMut(CurveBlock) -> Result<()>,
+) -> Result<Calibration> {
+    let disc = ds
+        .discount
+        .as_ref()
+        .ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the discount table".into() })?;
+    let panel = ds
+        .cds
+        .as_ref()
+        .ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the cds_quotes table".into() })?;
     let mut out = Calibration::default();
     let (curves, disc_used) = discount_curves(disc.rows.clone(), &mut out.rejects);
     for ((date, ccy), c) in &curves {
         for (&pillar, &ln_df) in c.pillar_dates().iter().zip(c.pillar_log_dfs()) {
             let t = crate::curves::year_time(*date, pillar);
-            out.discount.push(DiscountCurveRow { date: *date, currency: ccy.clone(), pillar_date: pillar, zero_rate: -ln_df / t, discount_factor: ln_df.exp() });
+            out.discount.push(DiscountCurveRow {
+                date: *date,
+                currency: ccy.clone(),
+                pillar_date: pillar,
+                zero_rate: -ln_df / t,
+                discount_factor: ln_df.exp(),
+            });
         }
     }
 
@@ -238,7 +271,11 @@ pub fn calibrate_blocks(ds: &mut crate::ingest::Dataset, p: &CalibrationParams, 
     let mut i = 0;
     while i < rows.len() {
         let mut j = i + 1;
-        while j < rows.len() && rows[j].date == rows[i].date && rows[j].entity == rows[i].entity && rows[j].currency == rows[i].currency {
+        while j < rows.len()
+            && rows[j].date == rows[i].date
+            && rows[j].entity == rows[i].entity
+            && rows[j].currency == rows[i].currency
+        {
             j += 1;
         }
         jobs.push((i, j));
@@ -246,7 +283,9 @@ pub fn calibrate_blocks(ds: &mut crate::ingest::Dataset, p: &CalibrationParams, 
     }
     // One bootstrap plan per (date, currency, tenor set), shared by every name quoted so.
     type PlanKey = (chrono::NaiveDate, u32, Vec<Tenor>);
-    let key_of = |a: usize, b: usize| -> PlanKey { (rows[a].date, rows[a].currency, rows[a..b].iter().map(|r| r.tenor).collect()) };
+    let key_of = |a: usize, b: usize| -> PlanKey {
+        (rows[a].date, rows[a].currency, rows[a..b].iter().map(|r| r.tenor).collect())
+    };
     let mut keys: Vec<PlanKey> = jobs.iter().map(|&(a, b)| key_of(a, b)).collect();
     keys.sort();
     keys.dedup();
@@ -274,7 +313,17 @@ pub fn calibrate_blocks(ds: &mut crate::ingest::Dataset, p: &CalibrationParams, 
                         residuals: Vec::new(),
                         rejects: rows[a..b]
                             .iter()
-                            .map(|r| panel.reject(r, "no_discount_curve", format!("no usable {} discount curve on {}", panel.currencies.name(r.currency), r.date)))
+                            .map(|r| {
+                                panel.reject(
+                                    r,
+                                    "no_discount_curve",
+                                    format!(
+                                        "no usable {} discount curve on {}",
+                                        panel.currencies.name(r.currency),
+                                        r.date
+                                    ),
+                                )
+                            })
                             .collect(),
                         used: 0,
                         fit: None,

@@ -13,14 +13,16 @@
 
 use super::calibrate::{Calibration, CalibrationParams};
 use crate::calibrate::bond_fit::{cds_bond_basis, fit_bond_hazard, BondFitSettings, BondQuote};
-use crate::parts::DateRange;
-use crate::calibrate::cir::{fit_cir, fit_cir_window, start_from_curve, CirFit, CirFitError, CirFitMode, CirFitSettings, CirWindowDay};
+use crate::calibrate::cir::{
+    fit_cir, fit_cir_window, start_from_curve, CirFit, CirFitError, CirFitMode, CirFitSettings, CirWindowDay,
+};
 use crate::config::IntensitySettings;
 use crate::error::{Error, Result};
 use crate::ingest::tables::{BondRow, Provenance, BOND_QUOTES};
 use crate::ingest::{Dataset, Reject};
 use crate::instruments::bond::BondTerms;
 use crate::models::cir::CirParams;
+use crate::parts::DateRange;
 use crate::tables::{BasisRow, HazardCurveRow, IntensityParamRow, ResidualRow};
 use crate::text::{CurveSource, FitMethod};
 use chrono::NaiveDate;
@@ -76,7 +78,13 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
     let mut out = BondOutput::default();
     let Some(disc) = cal.discount_curves.get(&(g.date, g.currency.to_string())) else {
         for (b, _, prov) in &g.quotes {
-            out.rejects.push(reject_quote(g, b, prov, "no_discount_curve", format!("no usable {} discount curve on {}", g.currency, g.date)));
+            out.rejects.push(reject_quote(
+                g,
+                b,
+                prov,
+                "no_discount_curve",
+                format!("no usable {} discount curve on {}", g.currency, g.date),
+            ));
         }
         return out;
     };
@@ -87,7 +95,13 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
         .quotes
         .iter()
         .map(|(b, price, _)| BondQuote {
-            terms: BondTerms { coupon: b.coupon, frequency: b.frequency, maturity: b.maturity, day_count: b.day_count, issue_date: b.issue_date },
+            terms: BondTerms {
+                coupon: b.coupon,
+                frequency: b.frequency,
+                maturity: b.maturity,
+                day_count: b.day_count,
+                issue_date: b.issue_date,
+            },
             clean_price: *price,
             bid_ask: None,
         })
@@ -97,7 +111,13 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
         Ok(f) => f,
         Err(e) => {
             for (b, _, prov) in &g.quotes {
-                out.rejects.push(reject_quote(g, b, prov, "bond_curve_not_built", format!("{} {} {}: {e}", g.date, g.entity, g.currency)));
+                out.rejects.push(reject_quote(
+                    g,
+                    b,
+                    prov,
+                    "bond_curve_not_built",
+                    format!("{} {} {}: {e}", g.date, g.entity, g.currency),
+                ));
             }
             return out;
         }
@@ -109,7 +129,8 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
     }
     let status = fit.status.as_str();
     for n in &fit.nodes {
-        let ids: Vec<&str> = g.quotes.iter().filter(|(b, _, _)| b.maturity == n.maturity).map(|(b, _, _)| b.bond.as_str()).collect();
+        let ids: Vec<&str> =
+            g.quotes.iter().filter(|(b, _, _)| b.maturity == n.maturity).map(|(b, _, _)| b.bond.as_str()).collect();
         out.hazard.push(HazardCurveRow {
             date: g.date,
             entity: g.entity.into(),
@@ -123,7 +144,13 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
             status: n.status.as_str(),
             recovery,
             iterations: fit.iterations as i64,
-            detail: Some(format!("{} form, {} convention, RMSE {:.4} price / {:.3} bp of yield", fit.form.as_str(), s.bond_convention.as_str(), fit.rmse_price, fit.rmse_yield_bp)),
+            detail: Some(format!(
+                "{} form, {} convention, RMSE {:.4} price / {:.3} bp of yield",
+                fit.form.as_str(),
+                s.bond_convention.as_str(),
+                fit.rmse_price,
+                fit.rmse_yield_bp
+            )),
         });
     }
     for r in &fit.bonds {
@@ -140,7 +167,9 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
             status,
         });
     }
-    if let Some(cds) = cal.cds_curves.get(&(g.date, g.entity.to_string(), g.currency.to_string())).and_then(|c| c.curve.as_ref()) {
+    if let Some(cds) =
+        cal.cds_curves.get(&(g.date, g.entity.to_string(), g.currency.to_string())).and_then(|c| c.curve.as_ref())
+    {
         let mut mats: Vec<NaiveDate> = fit.nodes.iter().map(|n| n.maturity).collect();
         mats.sort();
         mats.dedup();
@@ -165,7 +194,13 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
     out
 }
 
-fn param_row(date: NaiveDate, entity: &str, currency: &str, mode: CirFitMode, r: &std::result::Result<CirFit, CirFitError>) -> IntensityParamRow {
+fn param_row(
+    date: NaiveDate,
+    entity: &str,
+    currency: &str,
+    mode: CirFitMode,
+    r: &std::result::Result<CirFit, CirFitError>,
+) -> IntensityParamRow {
     match r {
         Ok(f) => {
             let ok = f.status.as_str() != "failed";
@@ -230,7 +265,15 @@ fn cir_residuals(date: NaiveDate, entity: &str, currency: &str, f: &CirFit) -> V
 /// back, the days before them fitted too where a later day depends on them (the free mode
 /// starts each day from the day before's fit; a window of the fixed-kappa-sigma mode is fitted
 /// whole when one of its days is in the range).
-fn fit_name(entity: &str, currency: &str, dates: &[NaiveDate], cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings, range: DateRange) -> (Vec<IntensityParamRow>, Vec<ResidualRow>) {
+fn fit_name(
+    entity: &str,
+    currency: &str,
+    dates: &[NaiveDate],
+    cal: &Calibration,
+    p: &CalibrationParams,
+    s: &IntensitySettings,
+    range: DateRange,
+) -> (Vec<IntensityParamRow>, Vec<ResidualRow>) {
     let settings = CirFitSettings { accrual: p.bootstrap.accrual, ..CirFitSettings::default() };
     let mut params = Vec::new();
     let mut residuals = Vec::new();
@@ -271,7 +314,12 @@ fn fit_name(entity: &str, currency: &str, dates: &[NaiveDate], cal: &Calibration
                 }
                 let window: Vec<CirWindowDay> = block
                     .iter()
-                    .map(|(d, c, disc)| CirWindowDay { trade_date: *d, quotes: &c.quotes, discount: disc, start: c.curve.as_ref().map(start_from_curve) })
+                    .map(|(d, c, disc)| CirWindowDay {
+                        trade_date: *d,
+                        quotes: &c.quotes,
+                        discount: disc,
+                        start: c.curve.as_ref().map(start_from_curve),
+                    })
                     .collect();
                 match fit_cir_window(&window, &p.calendar, &settings) {
                     Ok(w) => {
@@ -354,7 +402,12 @@ fn bond_fits(ds: &Dataset, cal: &Calibration, p: &CalibrationParams, s: &Intensi
 }
 
 /// The CIR fits of every name the settings select, name by name, when enabled.
-fn cir_fits(cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings, range: DateRange) -> Vec<(Vec<IntensityParamRow>, Vec<ResidualRow>)> {
+fn cir_fits(
+    cal: &Calibration,
+    p: &CalibrationParams,
+    s: &IntensitySettings,
+    range: DateRange,
+) -> Vec<(Vec<IntensityParamRow>, Vec<ResidualRow>)> {
     if !s.cir {
         return Vec::new();
     }
@@ -372,7 +425,13 @@ fn cir_fits(cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings, ran
 /// Runs the bond and CIR fits that `s` enables, for the days in `range` (the CIR fits read
 /// `cal.cds_curves` outside it too, see `run::partition::keep_dates`). Updates `ds.counts`
 /// for the bond quotes this stage rejects and checks the accounting again.
-pub fn calibrate_intensity(ds: &mut Dataset, cal: &Calibration, p: &CalibrationParams, s: &IntensitySettings, range: DateRange) -> Result<IntensityCalibration> {
+pub fn calibrate_intensity(
+    ds: &mut Dataset,
+    cal: &Calibration,
+    p: &CalibrationParams,
+    s: &IntensitySettings,
+    range: DateRange,
+) -> Result<IntensityCalibration> {
     let mut out = IntensityCalibration::default();
     // The bond fits and the CIR fits are independent: run side by side on rayon's threads,
     // so that the few CIR names (each a sequence of days) overlap with the many bond groups.

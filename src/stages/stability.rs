@@ -1,13 +1,16 @@
 //! The stability stage of a run: turns the calibrated curves, the CIR fits and the residuals
 //! into the plain inputs of [`crate::stability`], and writes its tables.
 
-use crate::stages::calibrate::CdsCurve;
+use crate::backtest::GradeBook;
 use crate::error::Result;
 use crate::ingest::Dataset;
+use crate::stability::{
+    self, spread_move, CalibrationCounts, MarketMove, PanelBuilder, ResidualAnalysis, ResidualObservation,
+    ResidualReview, SpreadEdge, StabilityOutput, StabilitySettings,
+};
+use crate::stages::calibrate::CdsCurve;
 use crate::tables::{self, review::PsiRecord};
 use crate::tables::{HazardCurveRow, IntensityParamRow, ResidualRow};
-use crate::backtest::GradeBook;
-use crate::stability::{self, spread_move, SpreadEdge, CalibrationCounts, MarketMove, PanelBuilder, ResidualAnalysis, ResidualObservation, ResidualReview, StabilityOutput, StabilitySettings};
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::Path;
@@ -119,7 +122,18 @@ impl<'a> CurveSeries<'a> {
     pub fn new(grades: &'a GradeBook, multi: &'a BTreeSet<String>) -> Self {
         let mut labels = Labels::default();
         let (pd_1y, hazard_5y) = (labels.get("pd_1y"), labels.get("hazard_5y"));
-        CurveSeries { grades, multi, labels, pd_1y, hazard_5y, node_labels: Default::default(), last_spreads: Default::default(), observations: PanelBuilder::new(), market: Vec::new(), firsts: Vec::new() }
+        CurveSeries {
+            grades,
+            multi,
+            labels,
+            pd_1y,
+            hazard_5y,
+            node_labels: Default::default(),
+            last_spreads: Default::default(),
+            observations: PanelBuilder::new(),
+            market: Vec::new(),
+            firsts: Vec::new(),
+        }
     }
 
     /// Takes the series of the curve of (`date`, `e`, `c`).
@@ -137,14 +151,22 @@ impl<'a> CurveSeries<'a> {
             push(&self.hazard_5y, h.hazard_at(5.0));
             if h.hazards().len() == curve.quotes.len() {
                 for (q, &x) in curve.quotes.iter().zip(h.hazards()) {
-                    push(self.node_labels.entry(q.tenor).or_insert_with(|| format!("hazard_node_{}", q.tenor).into()), x);
+                    push(
+                        self.node_labels.entry(q.tenor).or_insert_with(|| format!("hazard_node_{}", q.tenor).into()),
+                        x,
+                    );
                 }
             }
         }
-        let spreads: BTreeMap<u32, f64> = crate::stages::backtest::spreads_of(&curve.quotes).into_iter().map(|q| (q.tenor_months, q.spread_bp)).collect();
+        let spreads: BTreeMap<u32, f64> = crate::stages::backtest::spreads_of(&curve.quotes)
+            .into_iter()
+            .map(|q| (q.tenor_months, q.spread_bp))
+            .collect();
         match self.last_spreads.get(&entity) {
             Some((_, prev)) => self.market.extend(spread_move(&entity, date, prev, &spreads)),
-            None => self.firsts.push(SpreadEdge { entity: entity.clone(), date, last: false, spreads: spreads.clone() }),
+            None => {
+                self.firsts.push(SpreadEdge { entity: entity.clone(), date, last: false, spreads: spreads.clone() })
+            }
         }
         self.last_spreads.insert(entity, (date, spreads));
     }
@@ -153,7 +175,11 @@ impl<'a> CurveSeries<'a> {
     /// curve's spreads (firsts in arrival order, then lasts by entity).
     pub fn finish(self) -> (PanelBuilder, Vec<MarketMove>, Vec<SpreadEdge>) {
         let mut edges = self.firsts;
-        let mut lasts: Vec<SpreadEdge> = self.last_spreads.into_iter().map(|(entity, (date, spreads))| SpreadEdge { entity, date, last: true, spreads }).collect();
+        let mut lasts: Vec<SpreadEdge> = self
+            .last_spreads
+            .into_iter()
+            .map(|(entity, (date, spreads))| SpreadEdge { entity, date, last: true, spreads })
+            .collect();
         lasts.sort_by(|a, b| a.entity.cmp(&b.entity));
         edges.extend(lasts);
         (self.observations, self.market, edges)
@@ -181,7 +207,14 @@ pub struct RowDigest<'a> {
 
 impl<'a> RowDigest<'a> {
     pub fn new(multi: &'a BTreeSet<String>, settings: &StabilitySettings) -> Self {
-        RowDigest { labels: Labels::default(), multi, counts: Default::default(), fixed: Default::default(), run: None, review: ResidualReview::new(settings) }
+        RowDigest {
+            labels: Labels::default(),
+            multi,
+            counts: Default::default(),
+            fixed: Default::default(),
+            run: None,
+            review: ResidualReview::new(settings),
+        }
     }
 
     /// Counts the statuses of CDS node rows. A curve's nodes are consecutive rows: they are
@@ -216,7 +249,8 @@ impl<'a> RowDigest<'a> {
     pub fn residuals(&mut self, residuals: &[ResidualRow]) {
         for r in residuals {
             let (labels, fixed) = (&mut self.labels, &mut self.fixed);
-            let mut get = |v: &'static str| fixed.entry((v.as_ptr() as usize, v.len())).or_insert_with(|| labels.get(v)).clone();
+            let mut get =
+                |v: &'static str| fixed.entry((v.as_ptr() as usize, v.len())).or_insert_with(|| labels.get(v)).clone();
             let (method, instrument) = (get(r.method.as_str()), get(r.instrument));
             let o = ResidualObservation {
                 date: r.date,
@@ -260,13 +294,22 @@ impl<'a> RowDigest<'a> {
 /// Builds the stability core's inputs from the curve series ([`CurveSeries`]; over partitions,
 /// appended in shard order), the CIR fits (four parameters each, after the curve series) and
 /// the digest of the node and residual rows.
-pub fn stability_inputs(mut observations: PanelBuilder, mut market: Vec<MarketMove>, params: &[IntensityParamRow], grades: &GradeBook, multi: &BTreeSet<String>, digest: RowDigest) -> StabilityInputs {
+pub fn stability_inputs(
+    mut observations: PanelBuilder,
+    mut market: Vec<MarketMove>,
+    params: &[IntensityParamRow],
+    grades: &GradeBook,
+    multi: &BTreeSet<String>,
+    digest: RowDigest,
+) -> StabilityInputs {
     market.sort_by(|a, b| (a.date, &a.entity).cmp(&(b.date, &b.entity)));
     let mut labels = Labels::default();
     for p in params {
         let entity = labels.entity(multi, &p.entity, &p.currency);
         let grade = grades.grade(&p.entity, p.date);
-        for (series, v) in [("cir_kappa", p.kappa), ("cir_theta", p.theta), ("cir_sigma", p.sigma), ("cir_lambda0", p.lambda0)] {
+        for (series, v) in
+            [("cir_kappa", p.kappa), ("cir_theta", p.theta), ("cir_sigma", p.sigma), ("cir_lambda0", p.lambda0)]
+        {
             if let Some(v) = v.filter(|v| v.is_finite()) {
                 observations.push(&labels.get(series), &entity, grade, p.date, v);
             }
@@ -278,7 +321,8 @@ pub fn stability_inputs(mut observations: PanelBuilder, mut market: Vec<MarketMo
 
 /// Runs the stability core.
 pub fn run_stability(inputs: StabilityInputs, settings: &StabilitySettings) -> Result<StabilityOutput> {
-    stability::analyse_gathered(inputs.observations, &inputs.market, &inputs.counts, inputs.residuals, settings).map_err(|e| crate::error::Error::Other(format!("stability stage: {e}")))
+    stability::analyse_gathered(inputs.observations, &inputs.market, &inputs.counts, inputs.residuals, settings)
+        .map_err(|e| crate::error::Error::Other(format!("stability stage: {e}")))
 }
 
 /// Writes `stability`, `stability_bands`, `stability_psi`, `stability_breaks`,

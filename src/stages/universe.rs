@@ -16,9 +16,9 @@
 //! Every file is written in a fixed order with fixed formatting, so a seed gives the same bytes.
 
 use crate::error::{Error, Result};
-use crate::tables::parquet::{write_parquet, TableBuilder};
 use crate::sim::scenario::{QuoteFile, QuoteValue, Scenario};
 use crate::sim::{generate, ScenarioSpec};
+use crate::tables::parquet::{write_parquet, TableBuilder};
 use crate::time::{DayCount, Tenor};
 use chrono::{Datelike, NaiveDate};
 use std::collections::BTreeMap;
@@ -67,7 +67,8 @@ impl Writer {
     fn text(&mut self, rel: &str, body: &str) -> Result<()> {
         let path = self.root.join(rel);
         if let Some(dir) = path.parent() {
-            std::fs::create_dir_all(dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })?;
+            std::fs::create_dir_all(dir)
+                .map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })?;
         }
         std::fs::write(&path, body).map_err(|e| Error::Write { path: path.clone(), message: e.to_string() })?;
         self.files.push(path);
@@ -137,7 +138,15 @@ fn write_inputs(w: &mut Writer, s: &Scenario) -> Result<()> {
                         QuoteValue::Number(v) => format!("{v}"),
                         QuoteValue::Text(t) => t.clone(),
                     };
-                    let _ = writeln!(body, "{},{},{},{},{}", r.date, field(name(r.entity)), s.entities[r.entity].currency, tenor_text(r.tenor), field(&value));
+                    let _ = writeln!(
+                        body,
+                        "{},{},{},{},{}",
+                        r.date,
+                        field(name(r.entity)),
+                        s.entities[r.entity].currency,
+                        tenor_text(r.tenor),
+                        field(&value)
+                    );
                 }
                 w.text(&rel, &body)?;
             }
@@ -203,7 +212,16 @@ fn write_truth(w: &mut Writer, s: &Scenario) -> Result<()> {
     let name = |e: usize| s.entities[e].entity.as_str();
     let mut body = String::from("grade,theta_p,multiplier,kappa,sigma_p,start_weight\n");
     for p in &s.profiles {
-        let _ = writeln!(body, "{},{},{},{},{},{}", p.grade, p.theta_p, p.multiplier, crate::sim::credit::KAPPA, crate::sim::credit::sigma_for(p.theta_p), p.weight);
+        let _ = writeln!(
+            body,
+            "{},{},{},{},{},{}",
+            p.grade,
+            p.theta_p,
+            p.multiplier,
+            crate::sim::credit::KAPPA,
+            crate::sim::credit::sigma_for(p.theta_p),
+            p.weight
+        );
     }
     w.text("truth/grade_profiles.csv", &body)?;
     let it = &s.intensities;
@@ -229,10 +247,28 @@ fn write_truth(w: &mut Writer, s: &Scenario) -> Result<()> {
         let tenor = f.tenor.map(tenor_text).unwrap_or_default();
         let rows = rows_of.get(&i).cloned().unwrap_or_default();
         if rows.is_empty() {
-            let _ = writeln!(body, "{i},{},{},{},{},{tenor},{},,,{}", f.kind, field(name(f.entity)), f.date, f.last_date, f.expected, field(&f.detail));
+            let _ = writeln!(
+                body,
+                "{i},{},{},{},{},{tenor},{},,,{}",
+                f.kind,
+                field(name(f.entity)),
+                f.date,
+                f.last_date,
+                f.expected,
+                field(&f.detail)
+            );
         }
         for (file, row) in rows {
-            let _ = writeln!(body, "{i},{},{},{},{},{tenor},{},{file},{row},{}", f.kind, field(name(f.entity)), f.date, f.last_date, f.expected, field(&f.detail));
+            let _ = writeln!(
+                body,
+                "{i},{},{},{},{},{tenor},{},{file},{row},{}",
+                f.kind,
+                field(name(f.entity)),
+                f.date,
+                f.last_date,
+                f.expected,
+                field(&f.detail)
+            );
         }
     }
     w.text("truth/faults.csv", &body)?;
@@ -243,7 +279,17 @@ fn write_truth(w: &mut Writer, s: &Scenario) -> Result<()> {
     w.text("truth/bond_basis.csv", &body)?;
     let mut body = String::from("grade,horizon_years,members,hazard_q,hazard_p,planted_ratio,multiplier\n");
     for t in &s.premium {
-        let _ = writeln!(body, "{},{},{},{},{},{},{}", t.grade, t.horizon_years, t.members, t.hazard_q, t.hazard_p, t.ratio(), t.multiplier);
+        let _ = writeln!(
+            body,
+            "{},{},{},{},{},{},{}",
+            t.grade,
+            t.horizon_years,
+            t.members,
+            t.hazard_q,
+            t.hazard_p,
+            t.ratio(),
+            t.multiplier
+        );
     }
     w.text("truth/premium.csv", &body)?;
     let mut body = String::from("year,grade,pd\n");

@@ -29,7 +29,11 @@ pub struct HosmerLemeshowRecord {
 fn zone_of(v: Option<&str>, path: &Path, row: usize) -> Result<Option<Zone>> {
     match v {
         None => Ok(None),
-        Some(z) => Zone::parse(z).map(Some).ok_or_else(|| Error::Read { path: path.to_path_buf(), format: "Parquet", message: format!("column zone, row {}: {z:?} is not a zone", row + 1) }),
+        Some(z) => Zone::parse(z).map(Some).ok_or_else(|| Error::Read {
+            path: path.to_path_buf(),
+            format: "Parquet",
+            message: format!("column zone, row {}: {z:?} is not a zone", row + 1),
+        }),
     }
 }
 
@@ -92,10 +96,27 @@ impl Table for BucketRecord {
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
         let f = |name: &str| floats(df, path, name);
-        let (mut co, h, mut bu, lv, rc) = (strs(df, path, "cohort")?, ints(df, path, "horizon")?, strs(df, path, "bucket")?, f("level")?, f("recovery")?);
+        let (mut co, h, mut bu, lv, rc) = (
+            strs(df, path, "cohort")?,
+            ints(df, path, "horizon")?,
+            strs(df, path, "bucket")?,
+            f("level")?,
+            f("recovery")?,
+        );
         let (n, d, nc) = (ints(df, path, "n")?, ints(df, path, "defaults")?, ints(df, path, "n_censored")?);
-        let (rr, pd, cl, ch, jl, jh, wl, wh, pu, pl, pj) =
-            (f("realised_rate")?, f("implied_pd")?, f("cp_lo")?, f("cp_hi")?, f("jeffreys_lo")?, f("jeffreys_hi")?, f("wilson_lo")?, f("wilson_hi")?, f("p_binom_upper")?, f("p_binom_lower")?, f("p_jeffreys")?);
+        let (rr, pd, cl, ch, jl, jh, wl, wh, pu, pl, pj) = (
+            f("realised_rate")?,
+            f("implied_pd")?,
+            f("cp_lo")?,
+            f("cp_hi")?,
+            f("jeffreys_lo")?,
+            f("jeffreys_hi")?,
+            f("wilson_lo")?,
+            f("wilson_hi")?,
+            f("p_binom_upper")?,
+            f("p_binom_lower")?,
+            f("p_jeffreys")?,
+        );
         let (z, os) = (strs(df, path, "zone")?, strs(df, path, "outcome_source")?);
         (0..df.height())
             .map(|i| {
@@ -131,8 +152,15 @@ impl Table for BucketRecord {
 
 impl Table for HosmerLemeshowRecord {
     const NAME: &'static str = "backtest_hosmer_lemeshow";
-    const COLUMNS: &'static [Column] =
-        &[col("cohort", Text), col("horizon", Int), col("recovery", Float), col("buckets", Int), col("statistic", Float), col("p_value", Float), col("note", Text)];
+    const COLUMNS: &'static [Column] = &[
+        col("cohort", Text),
+        col("horizon", Int),
+        col("recovery", Float),
+        col("buckets", Int),
+        col("statistic", Float),
+        col("p_value", Float),
+        col("note", Text),
+    ];
 
     fn frame(hl: &[Self]) -> Result<DataFrame> {
         TableBuilder::new()
@@ -147,12 +175,26 @@ impl Table for HosmerLemeshowRecord {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (mut co, h, rc, bu, st, p, mut no) =
-            (strs(df, path, "cohort")?, ints(df, path, "horizon")?, floats(df, path, "recovery")?, ints(df, path, "buckets")?, floats(df, path, "statistic")?, floats(df, path, "p_value")?, strs(df, path, "note")?);
+        let (mut co, h, rc, bu, st, p, mut no) = (
+            strs(df, path, "cohort")?,
+            ints(df, path, "horizon")?,
+            floats(df, path, "recovery")?,
+            ints(df, path, "buckets")?,
+            floats(df, path, "statistic")?,
+            floats(df, path, "p_value")?,
+            strs(df, path, "note")?,
+        );
         Ok((0..df.height())
             .map(|i| HosmerLemeshowRecord {
                 recovery: rc[i].unwrap_or(f64::NAN),
-                row: HosmerLemeshowRow { cohort: co[i].take().unwrap_or_default(), horizon_years: h[i].unwrap_or(0) as u32, buckets: whole(bu[i]) as usize, statistic: st[i], p_value: p[i], note: no[i].take() },
+                row: HosmerLemeshowRow {
+                    cohort: co[i].take().unwrap_or_default(),
+                    horizon_years: h[i].unwrap_or(0) as u32,
+                    buckets: whole(bu[i]) as usize,
+                    statistic: st[i],
+                    p_value: p[i],
+                    note: no[i].take(),
+                },
             })
             .collect())
     }
@@ -208,9 +250,29 @@ impl Table for RiskPremiumRow {
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
         let f = |name: &str| floats(df, path, name);
-        let (mut co, mut bu, h, lv, rc, me, ex, d) = (strs(df, path, "cohort")?, strs(df, path, "bucket")?, ints(df, path, "horizon")?, f("level")?, f("recovery")?, ints(df, path, "members")?, f("exposure_years")?, ints(df, path, "defaults")?);
-        let (lp, lpl, lph, lq, ra, ral, rah, sp, sq, el, pr) =
-            (f("lambda_p")?, f("lambda_p_lo")?, f("lambda_p_hi")?, f("lambda_q")?, f("ratio")?, f("ratio_lo")?, f("ratio_hi")?, f("spread_bp")?, ints(df, path, "spread_quotes")?, f("el_spread_bp")?, f("premium_spread_bp")?);
+        let (mut co, mut bu, h, lv, rc, me, ex, d) = (
+            strs(df, path, "cohort")?,
+            strs(df, path, "bucket")?,
+            ints(df, path, "horizon")?,
+            f("level")?,
+            f("recovery")?,
+            ints(df, path, "members")?,
+            f("exposure_years")?,
+            ints(df, path, "defaults")?,
+        );
+        let (lp, lpl, lph, lq, ra, ral, rah, sp, sq, el, pr) = (
+            f("lambda_p")?,
+            f("lambda_p_lo")?,
+            f("lambda_p_hi")?,
+            f("lambda_q")?,
+            f("ratio")?,
+            f("ratio_lo")?,
+            f("ratio_hi")?,
+            f("spread_bp")?,
+            ints(df, path, "spread_quotes")?,
+            f("el_spread_bp")?,
+            f("premium_spread_bp")?,
+        );
         Ok((0..df.height())
             .map(|i| RiskPremiumRow {
                 cohort: co[i].take().unwrap_or_default(),
@@ -281,8 +343,24 @@ impl Table for HistoryRow {
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
         let f = |name: &str| floats(df, path, name);
-        let (mut co, g, lv, ob, d, w) = (strs(df, path, "cohort")?, ints(df, path, "grade")?, f("level")?, ints(df, path, "obligors")?, ints(df, path, "defaults")?, ints(df, path, "withdrawn")?);
-        let (rr, cl, ch, jl, jh, pd, pu, pj) = (f("realised_rate")?, f("cp_lo")?, f("cp_hi")?, f("jeffreys_lo")?, f("jeffreys_hi")?, f("implied_pd")?, f("p_binom_upper")?, f("p_jeffreys")?);
+        let (mut co, g, lv, ob, d, w) = (
+            strs(df, path, "cohort")?,
+            ints(df, path, "grade")?,
+            f("level")?,
+            ints(df, path, "obligors")?,
+            ints(df, path, "defaults")?,
+            ints(df, path, "withdrawn")?,
+        );
+        let (rr, cl, ch, jl, jh, pd, pu, pj) = (
+            f("realised_rate")?,
+            f("cp_lo")?,
+            f("cp_hi")?,
+            f("jeffreys_lo")?,
+            f("jeffreys_hi")?,
+            f("implied_pd")?,
+            f("p_binom_upper")?,
+            f("p_jeffreys")?,
+        );
         let (z, os) = (strs(df, path, "zone")?, strs(df, path, "outcome_source")?);
         let nan = |v: Option<f64>| v.unwrap_or(f64::NAN);
         (0..df.height())
@@ -342,14 +420,27 @@ mod tests {
 
     #[test]
     fn backtest_buckets_round_trip() {
-        let rows = vec![BucketRecord { recovery: 0.4, row: bucket(Some(Zone::Green)) }, BucketRecord { recovery: 0.25, row: BucketRow { realised_rate: None, zone: None, ..bucket(None) } }];
+        let rows = vec![
+            BucketRecord { recovery: 0.4, row: bucket(Some(Zone::Green)) },
+            BucketRecord { recovery: 0.25, row: BucketRow { realised_rate: None, zone: None, ..bucket(None) } },
+        ];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);
     }
 
     #[test]
     fn hosmer_lemeshow_round_trips() {
-        let rows = vec![HosmerLemeshowRecord { recovery: 0.4, row: HosmerLemeshowRow { cohort: "pooled".into(), horizon_years: 3, buckets: 7, statistic: Some(12.5), p_value: Some(0.05), note: None } }];
+        let rows = vec![HosmerLemeshowRecord {
+            recovery: 0.4,
+            row: HosmerLemeshowRow {
+                cohort: "pooled".into(),
+                horizon_years: 3,
+                buckets: 7,
+                statistic: Some(12.5),
+                p_value: Some(0.05),
+                note: None,
+            },
+        }];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);
     }

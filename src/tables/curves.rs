@@ -66,7 +66,10 @@ impl Table for HazardCurveRow {
     ];
 
     fn metadata() -> Vec<(String, String)> {
-        vec![("hazardline.units".into(), "hazard: per year on Act/365F from date; survival: probability to maturity; recovery: fraction".into())]
+        vec![(
+            "hazardline.units".into(),
+            "hazard: per year on Act/365F from date; survival: probability to maturity; recovery: fraction".into(),
+        )]
     }
 
     fn frame(rows: &[Self]) -> Result<DataFrame> {
@@ -130,14 +133,25 @@ fn parse_source(v: Option<&str>, path: &Path, row: usize) -> Result<CurveSource>
     CurveSource::parse(v).ok_or_else(|| Error::Read {
         path: path.to_path_buf(),
         format: "Parquet",
-        message: format!("column source, row {}: {v:?} is not one of {:?}", row + 1, <CurveSource as crate::text::TextForm>::texts()),
+        message: format!(
+            "column source, row {}: {v:?} is not one of {:?}",
+            row + 1,
+            <CurveSource as crate::text::TextForm>::texts()
+        ),
     })
 }
 
 /// The order of the `hazard_curves` table: CDS nodes first, by (date, entity, currency),
 /// then the bond nodes by the same key; a curve's nodes keep their order (a stable sort).
 pub fn sort_hazard(rows: &mut [HazardCurveRow]) {
-    rows.sort_by(|a, b| (a.source != CurveSource::Cds, a.date, &a.entity, &a.currency).cmp(&(b.source != CurveSource::Cds, b.date, &b.entity, &b.currency)));
+    rows.sort_by(|a, b| {
+        (a.source != CurveSource::Cds, a.date, &a.entity, &a.currency).cmp(&(
+            b.source != CurveSource::Cds,
+            b.date,
+            &b.entity,
+            &b.currency,
+        ))
+    });
 }
 
 /// Starts `hazard_curves` at `path`, written as its rows arrive ([`RowGroupWriter`]).
@@ -155,7 +169,13 @@ fn hazard_key(r: &HazardCurveRow) -> FileKey {
 /// (`split`) a folder `hazard_curves/` of a file per source and year ([`SplitWriter`]).
 pub fn hazard_table(tables: &Path, meta: &[(String, String)], split: bool) -> Result<TableWriter<HazardCurveRow>> {
     if split {
-        SplitWriter::create(&tables.join(HazardCurveRow::NAME), &metadata_of::<HazardCurveRow>(meta), super::framed::<HazardCurveRow>, hazard_key).map(TableWriter::Split)
+        SplitWriter::create(
+            &tables.join(HazardCurveRow::NAME),
+            &metadata_of::<HazardCurveRow>(meta),
+            super::framed::<HazardCurveRow>,
+            hazard_key,
+        )
+        .map(TableWriter::Split)
     } else {
         hazard_writer(&super::file_of::<HazardCurveRow>(tables), meta).map(TableWriter::One)
     }
@@ -180,10 +200,19 @@ pub struct DiscountCurveRow {
 
 impl Table for DiscountCurveRow {
     const NAME: &'static str = "discount_curves";
-    const COLUMNS: &'static [Column] = &[col("date", Date), col("currency", Text), col("pillar_date", Date), col("zero_rate", Float), col("discount_factor", Float)];
+    const COLUMNS: &'static [Column] = &[
+        col("date", Date),
+        col("currency", Text),
+        col("pillar_date", Date),
+        col("zero_rate", Float),
+        col("discount_factor", Float),
+    ];
 
     fn metadata() -> Vec<(String, String)> {
-        vec![("hazardline.units".into(), "zero_rate: continuously compounded, Act/365F, decimal; discount_factor to pillar_date".into())]
+        vec![(
+            "hazardline.units".into(),
+            "zero_rate: continuously compounded, Act/365F, decimal; discount_factor to pillar_date".into(),
+        )]
     }
 
     fn frame(rows: &[Self]) -> Result<DataFrame> {
@@ -197,7 +226,13 @@ impl Table for DiscountCurveRow {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (d, mut c, p, z, f) = (dates(df, path, "date")?, strs(df, path, "currency")?, dates(df, path, "pillar_date")?, floats(df, path, "zero_rate")?, floats(df, path, "discount_factor")?);
+        let (d, mut c, p, z, f) = (
+            dates(df, path, "date")?,
+            strs(df, path, "currency")?,
+            dates(df, path, "pillar_date")?,
+            floats(df, path, "zero_rate")?,
+            floats(df, path, "discount_factor")?,
+        );
         Ok((0..df.height())
             .map(|i| DiscountCurveRow {
                 date: d[i].unwrap_or_default(),
@@ -244,7 +279,13 @@ mod tests {
     #[test]
     fn discount_curves_round_trip() {
         let d = NaiveDate::from_ymd_opt(2024, 5, 2).unwrap();
-        let rows = vec![DiscountCurveRow { date: d, currency: "USD".into(), pillar_date: d + chrono::Duration::days(365), zero_rate: 0.031, discount_factor: 0.969_47 }];
+        let rows = vec![DiscountCurveRow {
+            date: d,
+            currency: "USD".into(),
+            pillar_date: d + chrono::Duration::days(365),
+            zero_rate: 0.031,
+            discount_factor: 0.969_47,
+        }];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);
     }

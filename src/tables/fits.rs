@@ -213,8 +213,34 @@ mod tests {
     #[test]
     fn intensity_params_round_trip() {
         let d = NaiveDate::from_ymd_opt(2024, 5, 2).unwrap();
-        let ok = IntensityParamRow { date: d, entity: "Alder Works".into(), currency: "EUR".into(), mode: "free", kappa: Some(0.4), theta: Some(0.02), sigma: Some(0.1), lambda0: Some(0.015), rmse_bp: Some(0.3), feller: Some(true), status: "ok", iterations: 12, evaluations: 40, detail: None };
-        let failed = IntensityParamRow { mode: "fixed_kappa_sigma", kappa: None, theta: None, sigma: None, lambda0: None, rmse_bp: None, feller: None, status: "failed", detail: Some("no usable start".into()), ..ok.clone() };
+        let ok = IntensityParamRow {
+            date: d,
+            entity: "Alder Works".into(),
+            currency: "EUR".into(),
+            mode: "free",
+            kappa: Some(0.4),
+            theta: Some(0.02),
+            sigma: Some(0.1),
+            lambda0: Some(0.015),
+            rmse_bp: Some(0.3),
+            feller: Some(true),
+            status: "ok",
+            iterations: 12,
+            evaluations: 40,
+            detail: None,
+        };
+        let failed = IntensityParamRow {
+            mode: "fixed_kappa_sigma",
+            kappa: None,
+            theta: None,
+            sigma: None,
+            lambda0: None,
+            rmse_bp: None,
+            feller: None,
+            status: "failed",
+            detail: Some("no usable start".into()),
+            ..ok.clone()
+        };
         let rows = vec![ok, failed];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);
@@ -223,7 +249,19 @@ mod tests {
     #[test]
     fn cds_bond_basis_round_trips() {
         let d = NaiveDate::from_ymd_opt(2024, 5, 2).unwrap();
-        let rows = vec![BasisRow { date: d, entity: "Alder Works".into(), currency: "USD".into(), maturity: d + chrono::Duration::days(1000), time: 2.74, bond_average_hazard: 0.021, cds_average_hazard: 0.019, hazard_basis_bp: -20.0, bond_par_spread_bp: 130.0, cds_par_spread_bp: 118.0, basis_bp: -12.0 }];
+        let rows = vec![BasisRow {
+            date: d,
+            entity: "Alder Works".into(),
+            currency: "USD".into(),
+            maturity: d + chrono::Duration::days(1000),
+            time: 2.74,
+            bond_average_hazard: 0.021,
+            cds_average_hazard: 0.019,
+            hazard_basis_bp: -20.0,
+            bond_par_spread_bp: 130.0,
+            cds_par_spread_bp: 118.0,
+            basis_bp: -12.0,
+        }];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);
     }

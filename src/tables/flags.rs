@@ -62,7 +62,11 @@ impl FlagRecord {
 
 fn parsed<T: TextForm>(v: Option<&str>, column: &str, path: &Path, row: usize) -> Result<T> {
     let v = v.unwrap_or("");
-    T::from_text(v).ok_or_else(|| Error::Read { path: path.to_path_buf(), format: "Parquet", message: format!("column {column}, row {}: {v:?} is not one of {:?}", row + 1, T::texts()) })
+    T::from_text(v).ok_or_else(|| Error::Read {
+        path: path.to_path_buf(),
+        format: "Parquet",
+        message: format!("column {column}, row {}: {v:?} is not one of {:?}", row + 1, T::texts()),
+    })
 }
 
 impl Table for FlagRecord {
@@ -102,9 +106,22 @@ impl Table for FlagRecord {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (ru, sv, mut e, mut se, mut pe, d) = (strs(df, path, "rule")?, strs(df, path, "severity")?, strs(df, path, "entity")?, strs(df, path, "series")?, strs(df, path, "period")?, dates(df, path, "date")?);
-        let (v, t, mut x, st) = (floats(df, path, "value")?, floats(df, path, "threshold")?, strs(df, path, "explanation")?, strs(df, path, "stage")?);
-        let (tb, mut so, r) = (fixed_labels(df, path, "table", &INPUT_TABLES)?, strs(df, path, "source")?, ints(df, path, "row")?);
+        let (ru, sv, mut e, mut se, mut pe, d) = (
+            strs(df, path, "rule")?,
+            strs(df, path, "severity")?,
+            strs(df, path, "entity")?,
+            strs(df, path, "series")?,
+            strs(df, path, "period")?,
+            dates(df, path, "date")?,
+        );
+        let (v, t, mut x, st) = (
+            floats(df, path, "value")?,
+            floats(df, path, "threshold")?,
+            strs(df, path, "explanation")?,
+            strs(df, path, "stage")?,
+        );
+        let (tb, mut so, r) =
+            (fixed_labels(df, path, "table", &INPUT_TABLES)?, strs(df, path, "source")?, ints(df, path, "row")?);
         (0..df.height())
             .map(|i| {
                 Ok(FlagRecord {
@@ -151,7 +168,17 @@ mod tests {
             source: "quotes.csv".into(),
             row: 17,
         };
-        let review = FlagRow { rule: FlagRule::PsiShift, severity: Severity::Red, entity: None, series: "pd_1y".into(), period: "2024Q2".into(), date: None, value: 0.3, threshold: 0.25, explanation: "shifted".into() };
+        let review = FlagRow {
+            rule: FlagRule::PsiShift,
+            severity: Severity::Red,
+            entity: None,
+            series: "pd_1y".into(),
+            period: "2024Q2".into(),
+            date: None,
+            value: 0.3,
+            threshold: 0.25,
+            explanation: "shifted".into(),
+        };
         let rows = vec![FlagRecord::quality(&quality), FlagRecord::review(STABILITY, &review)];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);

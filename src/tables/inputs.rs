@@ -13,8 +13,16 @@ use std::path::Path;
 
 impl Table for Reject {
     const NAME: &'static str = "rejects";
-    const COLUMNS: &'static [Column] =
-        &[col("table", Text), col("source", Text), col("row", Int), col("date", Date), col("entity", Text), col("key", Text), col("reason", Text), col("detail", Text)];
+    const COLUMNS: &'static [Column] = &[
+        col("table", Text),
+        col("source", Text),
+        col("row", Int),
+        col("date", Date),
+        col("entity", Text),
+        col("key", Text),
+        col("reason", Text),
+        col("detail", Text),
+    ];
 
     fn frame(rows: &[Self]) -> Result<DataFrame> {
         TableBuilder::new()
@@ -61,7 +69,8 @@ pub fn reject_reasons(rows: &[Reject]) -> Vec<(String, String, usize)> {
     for r in rows {
         *m.entry((r.table, r.reason)).or_default() += 1;
     }
-    let mut v: Vec<(String, String, usize)> = m.into_iter().map(|((a, b), c)| (a.to_string(), b.to_string(), c)).collect();
+    let mut v: Vec<(String, String, usize)> =
+        m.into_iter().map(|((a, b), c)| (a.to_string(), b.to_string(), c)).collect();
     v.sort_by(|a, b| b.2.cmp(&a.2).then(a.0.cmp(&b.0)).then(a.1.cmp(&b.1)));
     v
 }
@@ -115,9 +124,26 @@ impl Table for DataQualityRow {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (sc, t, d, mut e) = (fixed_labels(df, path, "scope", SCOPES)?, fixed_labels(df, path, "table", &INPUT_TABLES)?, dates(df, path, "date")?, strs(df, path, "entity")?);
-        let (rr, ru, rj, rf) = (ints(df, path, "rows_read")?, ints(df, path, "rows_used")?, ints(df, path, "rows_rejected")?, ints(df, path, "rows_flagged")?);
-        let (fd, ld, dq, cv, st, sp) = (dates(df, path, "first_date")?, dates(df, path, "last_date")?, ints(df, path, "days_quoted")?, floats(df, path, "coverage")?, ints(df, path, "stale_rows")?, ints(df, path, "spike_rows")?);
+        let (sc, t, d, mut e) = (
+            fixed_labels(df, path, "scope", SCOPES)?,
+            fixed_labels(df, path, "table", &INPUT_TABLES)?,
+            dates(df, path, "date")?,
+            strs(df, path, "entity")?,
+        );
+        let (rr, ru, rj, rf) = (
+            ints(df, path, "rows_read")?,
+            ints(df, path, "rows_used")?,
+            ints(df, path, "rows_rejected")?,
+            ints(df, path, "rows_flagged")?,
+        );
+        let (fd, ld, dq, cv, st, sp) = (
+            dates(df, path, "first_date")?,
+            dates(df, path, "last_date")?,
+            ints(df, path, "days_quoted")?,
+            floats(df, path, "coverage")?,
+            ints(df, path, "stale_rows")?,
+            ints(df, path, "spike_rows")?,
+        );
         let u = |v: Option<i64>| v.map(|x| x as u64);
         Ok((0..df.height())
             .map(|i| DataQualityRow {
@@ -148,11 +174,21 @@ mod tests {
 
     #[test]
     fn rejects_round_trip_and_count_reasons() {
-        let mut r = Reject::new("cds_quotes", "quotes.csv", 7, "unparseable_number", "par_spread_bp `1,2` is not a number".into());
+        let mut r = Reject::new(
+            "cds_quotes",
+            "quotes.csv",
+            7,
+            "unparseable_number",
+            "par_spread_bp `1,2` is not a number".into(),
+        );
         r.date = NaiveDate::from_ymd_opt(2024, 5, 2);
         r.entity = Some("Alder Works".into());
         r.key = "USD 5Y".into();
-        let rows = vec![r.clone(), Reject::new("discount", "discount.parquet", 3, "implausible_rate", "zero_rate 0.9".into()), r];
+        let rows = vec![
+            r.clone(),
+            Reject::new("discount", "discount.parquet", 3, "implausible_rate", "zero_rate 0.9".into()),
+            r,
+        ];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);
         assert_eq!(reject_reasons(&rows)[0], ("cds_quotes".to_string(), "unparseable_number".to_string(), 2));
@@ -162,8 +198,38 @@ mod tests {
     fn data_quality_round_trips() {
         let d = NaiveDate::from_ymd_opt(2024, 5, 2);
         let rows = vec![
-            DataQualityRow { scope: "date", table: "cds_quotes", date: d, entity: None, rows_read: 10, rows_used: 8, rows_rejected: 2, rows_flagged: 1, first_date: None, last_date: None, days_quoted: None, coverage: None, stale_rows: None, spike_rows: None },
-            DataQualityRow { scope: "entity", table: "cds_quotes", date: None, entity: Some("Alder Works".into()), rows_read: 5, rows_used: 5, rows_rejected: 0, rows_flagged: 0, first_date: d, last_date: d, days_quoted: Some(1), coverage: Some(0.5), stale_rows: Some(0), spike_rows: Some(1) },
+            DataQualityRow {
+                scope: "date",
+                table: "cds_quotes",
+                date: d,
+                entity: None,
+                rows_read: 10,
+                rows_used: 8,
+                rows_rejected: 2,
+                rows_flagged: 1,
+                first_date: None,
+                last_date: None,
+                days_quoted: None,
+                coverage: None,
+                stale_rows: None,
+                spike_rows: None,
+            },
+            DataQualityRow {
+                scope: "entity",
+                table: "cds_quotes",
+                date: None,
+                entity: Some("Alder Works".into()),
+                rows_read: 5,
+                rows_used: 5,
+                rows_rejected: 0,
+                rows_flagged: 0,
+                first_date: d,
+                last_date: d,
+                days_quoted: Some(1),
+                coverage: Some(0.5),
+                stale_rows: Some(0),
+                spike_rows: Some(1),
+            },
         ];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);

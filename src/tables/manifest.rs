@@ -52,7 +52,11 @@ pub use crate::ingest::files::{hash_file, relative};
 
 pub fn read(path: &Path) -> Result<Manifest> {
     let text = std::fs::read_to_string(path).map_err(|_| Error::NotFound { path: path.to_path_buf() })?;
-    serde_json::from_str(&text).map_err(|e| Error::Read { path: path.to_path_buf(), format: "JSON", message: e.to_string() })
+    serde_json::from_str(&text).map_err(|e| Error::Read {
+        path: path.to_path_buf(),
+        format: "JSON",
+        message: e.to_string(),
+    })
 }
 
 /// Writes text atomically (temporary name in the same folder, then rename).

@@ -35,7 +35,9 @@ pub mod residuals;
 pub mod review;
 
 pub use backtest::{BucketRecord, HosmerLemeshowRecord};
-pub use curves::{hazard_table, hazard_writer, sort_hazard, tenor_label, write_hazard_curves, DiscountCurveRow, HazardCurveRow, Label};
+pub use curves::{
+    hazard_table, hazard_writer, sort_hazard, tenor_label, write_hazard_curves, DiscountCurveRow, HazardCurveRow, Label,
+};
 pub use fits::{BasisRow, IntensityParamRow};
 pub use flags::FlagRecord;
 pub use residuals::{residual_table, residual_writer, sort_residuals, write_residuals, ResidualRow};
@@ -174,10 +176,21 @@ pub fn check_columns<T: Table>(df: &DataFrame, path: &Path) -> Result<()> {
     for c in T::COLUMNS {
         let Ok(found) = df.column(c.name) else {
             let names: Vec<String> = df.get_column_names().iter().map(|n| n.to_string()).collect();
-            return Err(Error::MissingColumn { path: path.to_path_buf(), table: T::NAME, column: c.name.to_string(), found: names.join(", ") });
+            return Err(Error::MissingColumn {
+                path: path.to_path_buf(),
+                table: T::NAME,
+                column: c.name.to_string(),
+                found: names.join(", "),
+            });
         };
         if found.dtype() != &c.kind.dtype() && found.null_count() != found.len() {
-            return Err(Error::ColumnType { path: path.to_path_buf(), table: T::NAME, column: c.name.to_string(), found: found.dtype().to_string(), expected: c.kind.describe() });
+            return Err(Error::ColumnType {
+                path: path.to_path_buf(),
+                table: T::NAME,
+                column: c.name.to_string(),
+                found: found.dtype().to_string(),
+                expected: c.kind.describe(),
+            });
         }
     }
     Ok(())

@@ -110,7 +110,8 @@ impl<T> RowGroupWriter<T> {
         std::fs::create_dir_all(dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })?;
         let file_name = path.file_name().and_then(|n| n.to_str()).unwrap_or("table.parquet");
         let tmp = dir.join(format!(".{file_name}.{}.tmp", std::process::id()));
-        let file = std::fs::File::create(&tmp).map_err(|e| Error::Write { path: tmp.clone(), message: e.to_string() })?;
+        let file =
+            std::fs::File::create(&tmp).map_err(|e| Error::Write { path: tmp.clone(), message: e.to_string() })?;
         let schema = frame(&[])?.schema().clone();
         let failed = |e: PolarsError| Error::Write { path: path.to_path_buf(), message: e.to_string() };
         let writer = match writer(file, metadata).batched(&schema) {
@@ -120,7 +121,14 @@ impl<T> RowGroupWriter<T> {
                 return Err(failed(e));
             }
         };
-        Ok(RowGroupWriter { path: path.to_path_buf(), tmp, writer: Some(writer), frame, pending: Vec::with_capacity(ROW_GROUP_ROWS), written: 0 })
+        Ok(RowGroupWriter {
+            path: path.to_path_buf(),
+            tmp,
+            writer: Some(writer),
+            frame,
+            pending: Vec::with_capacity(ROW_GROUP_ROWS),
+            written: 0,
+        })
     }
 
     /// Adds rows at the end of the table.
@@ -142,7 +150,10 @@ impl<T> RowGroupWriter<T> {
     fn flush(&mut self) -> Result<()> {
         let mut df = (self.frame)(&self.pending)?;
         df.rechunk_mut();
-        let w = self.writer.as_mut().ok_or_else(|| Error::Other("a finished table was written to; this is a bug, please report it".into()))?;
+        let w = self
+            .writer
+            .as_mut()
+            .ok_or_else(|| Error::Other("a finished table was written to; this is a bug, please report it".into()))?;
         w.write_batch(&df).map_err(|e| Error::Write { path: self.path.clone(), message: e.to_string() })?;
         self.written += self.pending.len();
         self.pending.clear();
@@ -155,9 +166,13 @@ impl<T> RowGroupWriter<T> {
         if !self.pending.is_empty() {
             self.flush()?;
         }
-        let w = self.writer.take().ok_or_else(|| Error::Other("a table was finished twice; this is a bug, please report it".into()))?;
+        let w = self
+            .writer
+            .take()
+            .ok_or_else(|| Error::Other("a table was finished twice; this is a bug, please report it".into()))?;
         w.finish().map_err(|e| Error::Write { path: self.path.clone(), message: e.to_string() })?;
-        std::fs::rename(&self.tmp, &self.path).map_err(|e| Error::Write { path: self.path.clone(), message: e.to_string() })?;
+        std::fs::rename(&self.tmp, &self.path)
+            .map_err(|e| Error::Write { path: self.path.clone(), message: e.to_string() })?;
         Ok(self.written)
     }
 }
@@ -191,7 +206,12 @@ pub struct SplitWriter<T> {
 }
 
 impl<T> SplitWriter<T> {
-    pub fn create(dir: &Path, metadata: &[(String, String)], frame: fn(&[T]) -> Result<DataFrame>, key: fn(&T) -> FileKey) -> Result<Self> {
+    pub fn create(
+        dir: &Path,
+        metadata: &[(String, String)],
+        frame: fn(&[T]) -> Result<DataFrame>,
+        key: fn(&T) -> FileKey,
+    ) -> Result<Self> {
         std::fs::create_dir_all(dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })?;
         Ok(SplitWriter { dir: dir.to_path_buf(), metadata: metadata.to_vec(), frame, key, current: None, written: 0 })
     }
@@ -209,7 +229,11 @@ impl<T> SplitWriter<T> {
                 _ => {
                     if let Some((open, w)) = self.current.take() {
                         if k < open {
-                            return Err(Error::Other(format!("rows of {} came after those of {}; this is a bug, please report it", Self::file_name(k), Self::file_name(open))));
+                            return Err(Error::Other(format!(
+                                "rows of {} came after those of {}; this is a bug, please report it",
+                                Self::file_name(k),
+                                Self::file_name(open)
+                            )));
                         }
                         self.written += w.finish()?;
                     }
@@ -355,7 +379,8 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let meta = vec![("hazardline.test".to_string(), "x".to_string())];
         for height in [0, 5, ROW_GROUP_ROWS, ROW_GROUP_ROWS * 3 / 2, 3 * ROW_GROUP_ROWS + 7] {
-            let (a, b) = (dir.path().join(format!("one-{height}.parquet")), dir.path().join(format!("pieces-{height}.parquet")));
+            let (a, b) =
+                (dir.path().join(format!("one-{height}.parquet")), dir.path().join(format!("pieces-{height}.parquet")));
             let mut w = RowGroupWriter::create(&a, &meta, frame).unwrap();
             w.push(0..height).unwrap();
             assert_eq!(w.finish().unwrap(), height);
@@ -371,10 +396,15 @@ mod tests {
             assert!(std::fs::read(&a).unwrap() == std::fs::read(&b).unwrap(), "height {height}: the files differ");
             // Every row comes back, in order, in groups of ROW_GROUP_ROWS.
             let df = ParquetReader::new(std::fs::File::open(&a).unwrap()).finish().unwrap();
-            assert!(df.equals_missing(&frame(&(0..height).collect::<Vec<_>>()).unwrap()), "height {height}: rows differ");
+            assert!(
+                df.equals_missing(&frame(&(0..height).collect::<Vec<_>>()).unwrap()),
+                "height {height}: rows differ"
+            );
             let md = ParquetReader::new(std::fs::File::open(&a).unwrap()).get_metadata().unwrap().clone();
             let groups: Vec<usize> = md.row_groups.iter().map(|g| g.num_rows()).collect();
-            let want: Vec<usize> = (0..height.div_ceil(ROW_GROUP_ROWS)).map(|i| (height - i * ROW_GROUP_ROWS).min(ROW_GROUP_ROWS)).collect();
+            let want: Vec<usize> = (0..height.div_ceil(ROW_GROUP_ROWS))
+                .map(|i| (height - i * ROW_GROUP_ROWS).min(ROW_GROUP_ROWS))
+                .collect();
             assert_eq!(groups, want, "height {height}");
         }
     }
@@ -382,7 +412,9 @@ mod tests {
     #[test]
     fn a_split_table_writes_a_file_per_key_in_order() {
         let dir = tempfile::tempdir().unwrap();
-        let key = |r: &usize| -> FileKey { (1 + u8::from(*r >= 20), if *r >= 20 { "late" } else { "early" }, (*r / 10) as i32) };
+        let key = |r: &usize| -> FileKey {
+            (1 + u8::from(*r >= 20), if *r >= 20 { "late" } else { "early" }, (*r / 10) as i32)
+        };
         let t = dir.path().join("t");
         let mut w = SplitWriter::create(&t, &[], frame, key).unwrap();
         for piece in [0..3, 3..17, 17..18, 18..25] {

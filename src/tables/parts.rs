@@ -16,7 +16,11 @@ use std::collections::BTreeMap;
 use std::path::Path;
 
 fn missing(path: &Path, column: &str, row: usize) -> Error {
-    Error::Read { path: path.to_path_buf(), format: "Parquet", message: format!("row {}: column {column} is empty", row + 1) }
+    Error::Read {
+        path: path.to_path_buf(),
+        format: "Parquet",
+        message: format!("row {}: column {column} is empty", row + 1),
+    }
 }
 
 /// A text column with no empty cell, as shared labels.
@@ -41,16 +45,29 @@ fn series_frame<I: Iterator<Item = SeriesPoint>>(points: impl Fn() -> I) -> Resu
 
 /// Calls `f` with each point of a `stability_series` frame.
 fn each_point(df: &DataFrame, path: &Path, mut f: impl FnMut(SeriesPoint)) -> Result<()> {
-    let (s, e, g, d, v) = (required_labels(df, path, "series")?, required_labels(df, path, "entity")?, ints(df, path, "grade")?, dates(df, path, "date")?, floats(df, path, "value")?);
+    let (s, e, g, d, v) = (
+        required_labels(df, path, "series")?,
+        required_labels(df, path, "entity")?,
+        ints(df, path, "grade")?,
+        dates(df, path, "date")?,
+        floats(df, path, "value")?,
+    );
     for i in 0..df.height() {
-        f(SeriesPoint { series: s[i].clone(), entity: e[i].clone(), grade: g[i].map(|x| x as u32), date: d[i].ok_or_else(|| missing(path, "date", i))?, value: v[i].ok_or_else(|| missing(path, "value", i))? });
+        f(SeriesPoint {
+            series: s[i].clone(),
+            entity: e[i].clone(),
+            grade: g[i].map(|x| x as u32),
+            date: d[i].ok_or_else(|| missing(path, "date", i))?,
+            value: v[i].ok_or_else(|| missing(path, "value", i))?,
+        });
     }
     Ok(())
 }
 
 impl Table for SeriesPoint {
     const NAME: &'static str = "stability_series";
-    const COLUMNS: &'static [Column] = &[col("series", Text), col("entity", Text), col("grade", Int), col("date", Date), col("value", Float)];
+    const COLUMNS: &'static [Column] =
+        &[col("series", Text), col("entity", Text), col("grade", Int), col("date", Date), col("value", Float)];
 
     fn frame(rows: &[Self]) -> Result<DataFrame> {
         series_frame(|| rows.iter().cloned())
@@ -80,7 +97,8 @@ pub fn read_series(dir: &Path, panel: &mut PanelBuilder) -> Result<()> {
 
 impl Table for MarketMove {
     const NAME: &'static str = "stability_market";
-    const COLUMNS: &'static [Column] = &[col("entity", Text), col("date", Date), col("mean_abs_change_bp", Float), col("mean_level_bp", Float)];
+    const COLUMNS: &'static [Column] =
+        &[col("entity", Text), col("date", Date), col("mean_abs_change_bp", Float), col("mean_level_bp", Float)];
 
     fn frame(m: &[Self]) -> Result<DataFrame> {
         TableBuilder::new()
@@ -92,7 +110,12 @@ impl Table for MarketMove {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (e, d, c, l) = (required_labels(df, path, "entity")?, dates(df, path, "date")?, floats(df, path, "mean_abs_change_bp")?, floats(df, path, "mean_level_bp")?);
+        let (e, d, c, l) = (
+            required_labels(df, path, "entity")?,
+            dates(df, path, "date")?,
+            floats(df, path, "mean_abs_change_bp")?,
+            floats(df, path, "mean_level_bp")?,
+        );
         (0..df.height())
             .map(|i| {
                 Ok(MarketMove {
@@ -123,8 +146,15 @@ pub fn edge_rows(edges: &[SpreadEdge]) -> Vec<EdgeRow> {
     edges
         .iter()
         .flat_map(|x| {
-            let spreads: Vec<Option<(u32, f64)>> = if x.spreads.is_empty() { vec![None] } else { x.spreads.iter().map(|(t, v)| Some((*t, *v))).collect() };
-            spreads.into_iter().map(move |r| EdgeRow { entity: x.entity.clone(), last: x.last, date: x.date, tenor_months: r.map(|r| r.0), spread_bp: r.map(|r| r.1) })
+            let spreads: Vec<Option<(u32, f64)>> =
+                if x.spreads.is_empty() { vec![None] } else { x.spreads.iter().map(|(t, v)| Some((*t, *v))).collect() };
+            spreads.into_iter().map(move |r| EdgeRow {
+                entity: x.entity.clone(),
+                last: x.last,
+                date: x.date,
+                tenor_months: r.map(|r| r.0),
+                spread_bp: r.map(|r| r.1),
+            })
         })
         .collect()
 }
@@ -146,7 +176,8 @@ pub fn edges_of(rows: &[EdgeRow]) -> Vec<SpreadEdge> {
 
 impl Table for EdgeRow {
     const NAME: &'static str = "stability_edges";
-    const COLUMNS: &'static [Column] = &[col("entity", Text), col("edge", Text), col("date", Date), col("tenor_months", Int), col("spread_bp", Float)];
+    const COLUMNS: &'static [Column] =
+        &[col("entity", Text), col("edge", Text), col("date", Date), col("tenor_months", Int), col("spread_bp", Float)];
 
     fn frame(e: &[Self]) -> Result<DataFrame> {
         TableBuilder::new()
@@ -159,15 +190,33 @@ impl Table for EdgeRow {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (e, side, d, t, v) = (required_labels(df, path, "entity")?, strs(df, path, "edge")?, dates(df, path, "date")?, ints(df, path, "tenor_months")?, floats(df, path, "spread_bp")?);
+        let (e, side, d, t, v) = (
+            required_labels(df, path, "entity")?,
+            strs(df, path, "edge")?,
+            dates(df, path, "date")?,
+            ints(df, path, "tenor_months")?,
+            floats(df, path, "spread_bp")?,
+        );
         (0..df.height())
             .map(|i| {
                 let last = match side[i].as_deref() {
                     Some("last") => true,
                     Some("first") => false,
-                    _ => return Err(Error::Read { path: path.to_path_buf(), format: "Parquet", message: format!("row {}: column edge is not `first` or `last`", i + 1) }),
+                    _ => {
+                        return Err(Error::Read {
+                            path: path.to_path_buf(),
+                            format: "Parquet",
+                            message: format!("row {}: column edge is not `first` or `last`", i + 1),
+                        })
+                    }
                 };
-                Ok(EdgeRow { entity: e[i].clone(), last, date: d[i].ok_or_else(|| missing(path, "date", i))?, tenor_months: t[i].map(|x| x as u32), spread_bp: v[i] })
+                Ok(EdgeRow {
+                    entity: e[i].clone(),
+                    last,
+                    date: d[i].ok_or_else(|| missing(path, "date", i))?,
+                    tenor_months: t[i].map(|x| x as u32),
+                    spread_bp: v[i],
+                })
             })
             .collect()
     }
@@ -228,7 +277,11 @@ impl Table for MemberRecord {
         (0..df.height())
             .map(|i| {
                 let text = o[i].as_deref().ok_or_else(|| missing(path, "outcome", i))?;
-                let outcome = Outcome::parse(text).ok_or_else(|| Error::Read { path: path.to_path_buf(), format: "Parquet", message: format!("row {}: unknown outcome `{text}`", i + 1) })?;
+                let outcome = Outcome::parse(text).ok_or_else(|| Error::Read {
+                    path: path.to_path_buf(),
+                    format: "Parquet",
+                    message: format!("row {}: unknown outcome `{text}`", i + 1),
+                })?;
                 Ok(MemberRecord {
                     recovery: r[i].ok_or_else(|| missing(path, "recovery", i))?,
                     member: Member {
@@ -262,8 +315,20 @@ mod tests {
     #[test]
     fn stability_series_round_trips_and_streams_into_a_panel() {
         let rows = vec![
-            SeriesPoint { series: "pd_1y".into(), entity: "Alder Works".into(), grade: Some(3), date: day(2), value: 0.004 },
-            SeriesPoint { series: "hazard_5y".into(), entity: "Birch Foods".into(), grade: None, date: day(3), value: 0.02 },
+            SeriesPoint {
+                series: "pd_1y".into(),
+                entity: "Alder Works".into(),
+                grade: Some(3),
+                date: day(2),
+                value: 0.004,
+            },
+            SeriesPoint {
+                series: "hazard_5y".into(),
+                entity: "Birch Foods".into(),
+                grade: None,
+                date: day(3),
+                value: 0.02,
+            },
         ];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);
@@ -278,11 +343,21 @@ mod tests {
 
     #[test]
     fn stability_market_and_edges_round_trip() {
-        let moves = vec![MarketMove { entity: "Alder Works".into(), date: day(3), mean_abs_change_bp: 1.5, mean_level_bp: 120.0 }];
+        let moves = vec![MarketMove {
+            entity: "Alder Works".into(),
+            date: day(3),
+            mean_abs_change_bp: 1.5,
+            mean_level_bp: 120.0,
+        }];
         assert_eq!(round_trip(&moves), moves);
         refuses_a_missing_column(&moves);
         let edges = vec![
-            SpreadEdge { entity: "Alder Works".into(), date: day(2), last: false, spreads: [(12, 80.0), (60, 120.0)].into_iter().collect() },
+            SpreadEdge {
+                entity: "Alder Works".into(),
+                date: day(2),
+                last: false,
+                spreads: [(12, 80.0), (60, 120.0)].into_iter().collect(),
+            },
             SpreadEdge { entity: "Alder Works".into(), date: day(9), last: true, spreads: BTreeMap::new() },
         ];
         let rows = edge_rows(&edges);
@@ -294,8 +369,25 @@ mod tests {
 
     #[test]
     fn backtest_members_round_trip() {
-        let m = Member { entity: "Alder Works".into(), cohort: day(2), horizon_years: 1, grade: Some(4), bucket: Bucket::Ungraded, implied_pd: 0.012, outcome: Outcome::Censored, exposure_years: 0.4, integrated_hazard: 0.005, spread_bp: None };
-        let rows = vec![MemberRecord { recovery: 0.4, member: m.clone() }, MemberRecord { recovery: 0.25, member: Member { outcome: Outcome::Defaulted, spread_bp: Some(140.0), ..m } }];
+        let m = Member {
+            entity: "Alder Works".into(),
+            cohort: day(2),
+            horizon_years: 1,
+            grade: Some(4),
+            bucket: Bucket::Ungraded,
+            implied_pd: 0.012,
+            outcome: Outcome::Censored,
+            exposure_years: 0.4,
+            integrated_hazard: 0.005,
+            spread_bp: None,
+        };
+        let rows = vec![
+            MemberRecord { recovery: 0.4, member: m.clone() },
+            MemberRecord {
+                recovery: 0.25,
+                member: Member { outcome: Outcome::Defaulted, spread_bp: Some(140.0), ..m },
+            },
+        ];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);
     }

@@ -21,11 +21,19 @@ pub fn read_frame(path: &Path) -> Result<DataFrame> {
             match &mut out {
                 None => out = Some(df),
                 Some(all) => {
-                    all.vstack_mut(&df).map_err(|e| Error::Read { path: f.clone(), format: "Parquet", message: e.to_string() })?;
+                    all.vstack_mut(&df).map_err(|e| Error::Read {
+                        path: f.clone(),
+                        format: "Parquet",
+                        message: e.to_string(),
+                    })?;
                 }
             }
         }
-        return out.ok_or_else(|| Error::Read { path: path.to_path_buf(), format: "Parquet", message: "the table's folder holds no .parquet file".into() });
+        return out.ok_or_else(|| Error::Read {
+            path: path.to_path_buf(),
+            format: "Parquet",
+            message: "the table's folder holds no .parquet file".into(),
+        });
     }
     let shown = path.display().to_string();
     LazyFrame::scan_parquet(PlRefPath::new(shown.as_str()), ScanArgsParquet::default())
@@ -80,7 +88,12 @@ pub fn dates(df: &DataFrame, path: &Path, name: &str) -> Result<Vec<Option<Naive
 
 /// A text column of a few fixed values (statuses, methods) as `'static` labels, without a
 /// string built per cell (see [`label`]).
-pub(crate) fn fixed_labels(df: &DataFrame, path: &Path, name: &str, known: &[&'static str]) -> Result<Vec<&'static str>> {
+pub(crate) fn fixed_labels(
+    df: &DataFrame,
+    path: &Path,
+    name: &str,
+    known: &[&'static str],
+) -> Result<Vec<&'static str>> {
     let c = df.column(name).map_err(|e| err(path, name, e))?;
     Ok(c.str().map_err(|e| err(path, name, e))?.iter().map(|v| label(v.unwrap_or(""), known)).collect())
 }
@@ -94,7 +107,8 @@ fn label(v: &str, known: &[&'static str]) -> &'static str {
 
 /// A `'static` copy of `v`, one per distinct value for the life of the process.
 pub fn intern(v: &str) -> &'static str {
-    static SEEN: std::sync::OnceLock<std::sync::Mutex<std::collections::HashSet<&'static str>>> = std::sync::OnceLock::new();
+    static SEEN: std::sync::OnceLock<std::sync::Mutex<std::collections::HashSet<&'static str>>> =
+        std::sync::OnceLock::new();
     let mut seen = SEEN.get_or_init(Default::default).lock().unwrap_or_else(|e| e.into_inner());
     if let Some(s) = seen.get(v) {
         return s;
@@ -104,7 +118,8 @@ pub fn intern(v: &str) -> &'static str {
     s
 }
 
-pub const STATUSES: &[&str] = &["ok", "floored", "infeasible", "failed", "curve_failed", "not_calibrated", "at_upper_bound", "max_iterations"];
+pub const STATUSES: &[&str] =
+    &["ok", "floored", "infeasible", "failed", "curve_failed", "not_calibrated", "at_upper_bound", "max_iterations"];
 
 /// The files of a table: the file itself, or, for a table written as a folder of files
 /// ([`crate::tables::parquet::SplitWriter`]), the folder's `.parquet` files in the order of
@@ -117,11 +132,19 @@ pub fn table_files(path: &Path) -> Result<Vec<std::path::PathBuf>> {
     let mut files: Vec<std::path::PathBuf> = entries
         .filter_map(|e| e.ok())
         .map(|e| e.path())
-        .filter(|p| p.is_file() && p.extension().is_some_and(|x| x == "parquet") && !p.file_name().is_some_and(|n| n.to_string_lossy().starts_with('.')))
+        .filter(|p| {
+            p.is_file()
+                && p.extension().is_some_and(|x| x == "parquet")
+                && !p.file_name().is_some_and(|n| n.to_string_lossy().starts_with('.'))
+        })
         .collect();
     files.sort();
     if files.is_empty() {
-        return Err(Error::Read { path: path.to_path_buf(), format: "Parquet", message: "the table's folder holds no .parquet file".into() });
+        return Err(Error::Read {
+            path: path.to_path_buf(),
+            format: "Parquet",
+            message: "the table's folder holds no .parquet file".into(),
+        });
     }
     Ok(files)
 }

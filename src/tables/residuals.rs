@@ -86,7 +86,11 @@ impl Table for ResidualRow {
                 let method = FitMethod::parse(m).ok_or_else(|| Error::Read {
                     path: path.to_path_buf(),
                     format: "Parquet",
-                    message: format!("column method, row {}: {m:?} is not one of {:?}", i + 1, <FitMethod as crate::text::TextForm>::texts()),
+                    message: format!(
+                        "column method, row {}: {m:?} is not one of {:?}",
+                        i + 1,
+                        <FitMethod as crate::text::TextForm>::texts()
+                    ),
                 })?;
                 Ok(ResidualRow {
                     date: d[i].unwrap_or_default(),
@@ -129,7 +133,13 @@ fn residual_key(r: &ResidualRow) -> FileKey {
 /// `split`).
 pub fn residual_table(tables: &Path, meta: &[(String, String)], split: bool) -> Result<TableWriter<ResidualRow>> {
     if split {
-        SplitWriter::create(&tables.join(ResidualRow::NAME), &metadata_of::<ResidualRow>(meta), super::framed::<ResidualRow>, residual_key).map(TableWriter::Split)
+        SplitWriter::create(
+            &tables.join(ResidualRow::NAME),
+            &metadata_of::<ResidualRow>(meta),
+            super::framed::<ResidualRow>,
+            residual_key,
+        )
+        .map(TableWriter::Split)
     } else {
         residual_writer(&super::file_of::<ResidualRow>(tables), meta).map(TableWriter::One)
     }

@@ -14,7 +14,11 @@ use std::path::Path;
 use std::sync::Arc;
 
 fn bad(path: &Path, column: &str, row: usize, v: &str) -> Error {
-    Error::Read { path: path.to_path_buf(), format: "Parquet", message: format!("column {column}, row {}: {v:?} is not a value this table can hold", row + 1) }
+    Error::Read {
+        path: path.to_path_buf(),
+        format: "Parquet",
+        message: format!("column {column}, row {}: {v:?} is not a value this table can hold", row + 1),
+    }
 }
 
 fn scope_of(v: Option<&str>, path: &Path, row: usize) -> Result<Scope> {
@@ -83,10 +87,34 @@ impl Table for StabilityRow {
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
         let f = |name: &str| floats(df, path, name);
-        let (mut pe, mut se, sc, mut k, n) = (strs(df, path, "period")?, strs(df, path, "series")?, strs(df, path, "scope")?, strs(df, path, "key")?, ints(df, path, "n")?);
-        let (mean, sd, cv, med, p10, p90, mv, mam, mmd) = (f("mean")?, f("sd")?, f("cv")?, f("median")?, f("p10")?, f("p90")?, ints(df, path, "moves")?, f("max_abs_move")?, dates(df, path, "max_move_date")?);
-        let (lms, prm, mrm, mr, fa, inf, mc, mdc) =
-            (f("large_move_share")?, f("param_rel_move")?, f("market_rel_move")?, f("move_ratio")?, ints(df, path, "failures")?, ints(df, path, "infeasible")?, f("mean_change")?, f("median_change")?);
+        let (mut pe, mut se, sc, mut k, n) = (
+            strs(df, path, "period")?,
+            strs(df, path, "series")?,
+            strs(df, path, "scope")?,
+            strs(df, path, "key")?,
+            ints(df, path, "n")?,
+        );
+        let (mean, sd, cv, med, p10, p90, mv, mam, mmd) = (
+            f("mean")?,
+            f("sd")?,
+            f("cv")?,
+            f("median")?,
+            f("p10")?,
+            f("p90")?,
+            ints(df, path, "moves")?,
+            f("max_abs_move")?,
+            dates(df, path, "max_move_date")?,
+        );
+        let (lms, prm, mrm, mr, fa, inf, mc, mdc) = (
+            f("large_move_share")?,
+            f("param_rel_move")?,
+            f("market_rel_move")?,
+            f("move_ratio")?,
+            ints(df, path, "failures")?,
+            ints(df, path, "infeasible")?,
+            f("mean_change")?,
+            f("median_change")?,
+        );
         (0..df.height())
             .map(|i| {
                 Ok(StabilityRow {
@@ -120,8 +148,17 @@ impl Table for StabilityRow {
 
 impl Table for CrossSectionRow {
     const NAME: &'static str = "stability_bands";
-    const COLUMNS: &'static [Column] =
-        &[col("date", Date), col("period", Text), col("series", Text), col("scope", Text), col("key", Text), col("n", Int), col("p10", Float), col("p50", Float), col("p90", Float)];
+    const COLUMNS: &'static [Column] = &[
+        col("date", Date),
+        col("period", Text),
+        col("series", Text),
+        col("scope", Text),
+        col("key", Text),
+        col("n", Int),
+        col("p10", Float),
+        col("p50", Float),
+        col("p90", Float),
+    ];
 
     fn frame(b: &[Self]) -> Result<DataFrame> {
         TableBuilder::new()
@@ -138,7 +175,14 @@ impl Table for CrossSectionRow {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (d, mut pe, mut se, sc, mut k, n) = (dates(df, path, "date")?, strs(df, path, "period")?, strs(df, path, "series")?, strs(df, path, "scope")?, strs(df, path, "key")?, ints(df, path, "n")?);
+        let (d, mut pe, mut se, sc, mut k, n) = (
+            dates(df, path, "date")?,
+            strs(df, path, "period")?,
+            strs(df, path, "series")?,
+            strs(df, path, "scope")?,
+            strs(df, path, "key")?,
+            ints(df, path, "n")?,
+        );
         let (p10, p50, p90) = (floats(df, path, "p10")?, floats(df, path, "p50")?, floats(df, path, "p90")?);
         (0..df.height())
             .map(|i| {
@@ -173,14 +217,29 @@ pub struct PsiRecord {
 
 impl From<&PsiRow> for PsiRecord {
     fn from(r: &PsiRow) -> Self {
-        PsiRecord { series: r.series.clone(), period: r.period.clone(), previous_period: r.previous_period.clone(), n_previous: r.n_previous, n_current: r.n_current, psi: r.psi, buckets: r.buckets.len() }
+        PsiRecord {
+            series: r.series.clone(),
+            period: r.period.clone(),
+            previous_period: r.previous_period.clone(),
+            n_previous: r.n_previous,
+            n_current: r.n_current,
+            psi: r.psi,
+            buckets: r.buckets.len(),
+        }
     }
 }
 
 impl Table for PsiRecord {
     const NAME: &'static str = "stability_psi";
-    const COLUMNS: &'static [Column] =
-        &[col("series", Text), col("period", Text), col("previous_period", Text), col("n_previous", Int), col("n_current", Int), col("psi", Float), col("buckets", Int)];
+    const COLUMNS: &'static [Column] = &[
+        col("series", Text),
+        col("period", Text),
+        col("previous_period", Text),
+        col("n_previous", Int),
+        col("n_current", Int),
+        col("psi", Float),
+        col("buckets", Int),
+    ];
 
     fn frame(p: &[Self]) -> Result<DataFrame> {
         TableBuilder::new()
@@ -195,8 +254,15 @@ impl Table for PsiRecord {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (mut s, mut p, mut pp, np, nc, psi, b) =
-            (strs(df, path, "series")?, strs(df, path, "period")?, strs(df, path, "previous_period")?, ints(df, path, "n_previous")?, ints(df, path, "n_current")?, floats(df, path, "psi")?, ints(df, path, "buckets")?);
+        let (mut s, mut p, mut pp, np, nc, psi, b) = (
+            strs(df, path, "series")?,
+            strs(df, path, "period")?,
+            strs(df, path, "previous_period")?,
+            ints(df, path, "n_previous")?,
+            ints(df, path, "n_current")?,
+            floats(df, path, "psi")?,
+            ints(df, path, "buckets")?,
+        );
         Ok((0..df.height())
             .map(|i| PsiRecord {
                 series: s[i].take().unwrap_or_default(),
@@ -244,8 +310,21 @@ impl Table for BreakRow {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (mut e, mut s, mut w, t, n, st) = (strs(df, path, "entity")?, strs(df, path, "series")?, strs(df, path, "window")?, strs(df, path, "target")?, ints(df, path, "n")?, strs(df, path, "status")?);
-        let (sg, mr, ca, c1, ols) = (floats(df, path, "sigma")?, floats(df, path, "max_ratio")?, dates(df, path, "crossed_at")?, dates(df, path, "crossed_at_1pct")?, floats(df, path, "ols_statistic")?);
+        let (mut e, mut s, mut w, t, n, st) = (
+            strs(df, path, "entity")?,
+            strs(df, path, "series")?,
+            strs(df, path, "window")?,
+            strs(df, path, "target")?,
+            ints(df, path, "n")?,
+            strs(df, path, "status")?,
+        );
+        let (sg, mr, ca, c1, ols) = (
+            floats(df, path, "sigma")?,
+            floats(df, path, "max_ratio")?,
+            dates(df, path, "crossed_at")?,
+            dates(df, path, "crossed_at_1pct")?,
+            floats(df, path, "ols_statistic")?,
+        );
         (0..df.height())
             .map(|i| {
                 let status = st[i].as_deref().unwrap_or("");
@@ -269,8 +348,17 @@ impl Table for BreakRow {
 
 impl Table for CurveResidualRow {
     const NAME: &'static str = "residual_curves";
-    const COLUMNS: &'static [Column] =
-        &[col("date", Date), col("entity", Text), col("method", Text), col("n", Int), col("rmse_bp", Float), col("max_abs_bp", Float), col("worst_tenor", Text), col("converged", Bool), col("reprices", Bool)];
+    const COLUMNS: &'static [Column] = &[
+        col("date", Date),
+        col("entity", Text),
+        col("method", Text),
+        col("n", Int),
+        col("rmse_bp", Float),
+        col("max_abs_bp", Float),
+        col("worst_tenor", Text),
+        col("converged", Bool),
+        col("reprices", Bool),
+    ];
 
     fn frame(c: &[Self]) -> Result<DataFrame> {
         TableBuilder::new()
@@ -287,8 +375,16 @@ impl Table for CurveResidualRow {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (d, e, m, n, rm, ma) = (dates(df, path, "date")?, strs(df, path, "entity")?, strs(df, path, "method")?, ints(df, path, "n")?, floats(df, path, "rmse_bp")?, floats(df, path, "max_abs_bp")?);
-        let (wt, cv, rp) = (strs(df, path, "worst_tenor")?, bools(df, path, "converged")?, bools(df, path, "reprices")?);
+        let (d, e, m, n, rm, ma) = (
+            dates(df, path, "date")?,
+            strs(df, path, "entity")?,
+            strs(df, path, "method")?,
+            ints(df, path, "n")?,
+            floats(df, path, "rmse_bp")?,
+            floats(df, path, "max_abs_bp")?,
+        );
+        let (wt, cv, rp) =
+            (strs(df, path, "worst_tenor")?, bools(df, path, "converged")?, bools(df, path, "reprices")?);
         let text = |v: &Option<String>| -> Arc<str> { Arc::from(v.as_deref().unwrap_or("")) };
         Ok((0..df.height())
             .map(|i| CurveResidualRow {
@@ -343,7 +439,9 @@ impl Table for TenorResidualRow {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let q = |name: &str| -> Result<Vec<f64>> { Ok(floats(df, path, name)?.into_iter().map(|v| v.unwrap_or(f64::NAN)).collect()) };
+        let q = |name: &str| -> Result<Vec<f64>> {
+            Ok(floats(df, path, name)?.into_iter().map(|v| v.unwrap_or(f64::NAN)).collect())
+        };
         let (mut m, mut t, n) = (strs(df, path, "method")?, strs(df, path, "tenor")?, ints(df, path, "n")?);
         let (q01, q05, q50, q95, q99) = (q("q01")?, q("q05")?, q("q50")?, q("q95")?, q("q99")?);
         let (a01, a05, a50, a95, a99) = (q("abs_q01")?, q("abs_q05")?, q("abs_q50")?, q("abs_q95")?, q("abs_q99")?);
@@ -398,8 +496,20 @@ impl Table for WorstResidualRow {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (rk, d, e, m, ins, t) = (ints(df, path, "rank")?, dates(df, path, "date")?, strs(df, path, "entity")?, strs(df, path, "method")?, strs(df, path, "instrument")?, strs(df, path, "tenor_or_bond")?);
-        let (mk, mo, r, cv) = (floats(df, path, "market")?, floats(df, path, "model")?, floats(df, path, "residual_bp")?, bools(df, path, "converged")?);
+        let (rk, d, e, m, ins, t) = (
+            ints(df, path, "rank")?,
+            dates(df, path, "date")?,
+            strs(df, path, "entity")?,
+            strs(df, path, "method")?,
+            strs(df, path, "instrument")?,
+            strs(df, path, "tenor_or_bond")?,
+        );
+        let (mk, mo, r, cv) = (
+            floats(df, path, "market")?,
+            floats(df, path, "model")?,
+            floats(df, path, "residual_bp")?,
+            bools(df, path, "converged")?,
+        );
         let text = |v: &Option<String>| -> Arc<str> { Arc::from(v.as_deref().unwrap_or("")) };
         Ok((0..df.height())
             .map(|i| WorstResidualRow {
@@ -422,7 +532,13 @@ impl Table for WorstResidualRow {
 
 impl Table for RepricingShare {
     const NAME: &'static str = "residual_repricing";
-    const COLUMNS: &'static [Column] = &[col("method", Text), col("curves", Int), col("repricing", Int), col("share", Float), col("tolerance_bp", Float)];
+    const COLUMNS: &'static [Column] = &[
+        col("method", Text),
+        col("curves", Int),
+        col("repricing", Int),
+        col("share", Float),
+        col("tolerance_bp", Float),
+    ];
 
     fn frame(s: &[Self]) -> Result<DataFrame> {
         TableBuilder::new()
@@ -435,9 +551,21 @@ impl Table for RepricingShare {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (mut m, c, r, s, t) = (strs(df, path, "method")?, ints(df, path, "curves")?, ints(df, path, "repricing")?, floats(df, path, "share")?, floats(df, path, "tolerance_bp")?);
+        let (mut m, c, r, s, t) = (
+            strs(df, path, "method")?,
+            ints(df, path, "curves")?,
+            ints(df, path, "repricing")?,
+            floats(df, path, "share")?,
+            floats(df, path, "tolerance_bp")?,
+        );
         Ok((0..df.height())
-            .map(|i| RepricingShare { method: m[i].take().unwrap_or_default(), curves: count(c[i]), repricing: count(r[i]), share: s[i].unwrap_or(f64::NAN), tolerance_bp: t[i].unwrap_or(f64::NAN) })
+            .map(|i| RepricingShare {
+                method: m[i].take().unwrap_or_default(),
+                curves: count(c[i]),
+                repricing: count(r[i]),
+                share: s[i].unwrap_or(f64::NAN),
+                tolerance_bp: t[i].unwrap_or(f64::NAN),
+            })
             .collect())
     }
 }
@@ -478,17 +606,45 @@ mod tests {
             mean_change: Some(-0.02),
             median_change: None,
         };
-        let rows = vec![row.clone(), StabilityRow { scope: Scope::Universe, key: "all".into(), moves: None, failures: Some(2), infeasible: Some(0), ..row }];
+        let rows = vec![
+            row.clone(),
+            StabilityRow {
+                scope: Scope::Universe,
+                key: "all".into(),
+                moves: None,
+                failures: Some(2),
+                infeasible: Some(0),
+                ..row
+            },
+        ];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);
     }
 
     #[test]
     fn stability_bands_and_psi_round_trip() {
-        let rows = vec![CrossSectionRow { date: day(), period: "2024Q2".into(), series: "pd_1y".into(), scope: Scope::Grade, key: "3".into(), n: 41, p10: 0.001, p50: 0.004, p90: 0.02 }];
+        let rows = vec![CrossSectionRow {
+            date: day(),
+            period: "2024Q2".into(),
+            series: "pd_1y".into(),
+            scope: Scope::Grade,
+            key: "3".into(),
+            n: 41,
+            p10: 0.001,
+            p50: 0.004,
+            p90: 0.02,
+        }];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);
-        let psi = vec![PsiRecord { series: "pd_1y".into(), period: "2024Q2".into(), previous_period: "2024Q1".into(), n_previous: 240, n_current: 238, psi: Some(0.04), buckets: 10 }];
+        let psi = vec![PsiRecord {
+            series: "pd_1y".into(),
+            period: "2024Q2".into(),
+            previous_period: "2024Q1".into(),
+            n_previous: 240,
+            n_current: 238,
+            psi: Some(0.04),
+            buckets: 10,
+        }];
         assert_eq!(round_trip(&psi), psi);
         refuses_a_missing_column(&psi);
     }
@@ -514,17 +670,57 @@ mod tests {
 
     #[test]
     fn residual_review_tables_round_trip() {
-        let curves = vec![CurveResidualRow { date: day(), entity: "Alder Works".into(), method: "bootstrap".into(), n: 8, rmse_bp: 1e-12, max_abs_bp: 3e-12, worst_tenor: "7Y".into(), converged: true, reprices: true }];
+        let curves = vec![CurveResidualRow {
+            date: day(),
+            entity: "Alder Works".into(),
+            method: "bootstrap".into(),
+            n: 8,
+            rmse_bp: 1e-12,
+            max_abs_bp: 3e-12,
+            worst_tenor: "7Y".into(),
+            converged: true,
+            reprices: true,
+        }];
         assert_eq!(round_trip(&curves), curves);
         refuses_a_missing_column(&curves);
-        let tenors = vec![TenorResidualRow { method: "cir".into(), tenor: "5Y".into(), n: 700, q01: -3.0, q05: -1.0, q50: 0.0, q95: 1.0, q99: 3.0, abs_q01: 0.0, abs_q05: 0.01, abs_q50: 0.4, abs_q95: 1.2, abs_q99: 3.1 }];
+        let tenors = vec![TenorResidualRow {
+            method: "cir".into(),
+            tenor: "5Y".into(),
+            n: 700,
+            q01: -3.0,
+            q05: -1.0,
+            q50: 0.0,
+            q95: 1.0,
+            q99: 3.0,
+            abs_q01: 0.0,
+            abs_q05: 0.01,
+            abs_q50: 0.4,
+            abs_q95: 1.2,
+            abs_q99: 3.1,
+        }];
         assert_eq!(round_trip(&tenors), tenors);
         refuses_a_missing_column(&tenors);
-        let obs = ResidualObservation { date: day(), entity: "Alder Works".into(), method: "bond_fit".into(), instrument: "bond_price".into(), tenor: "AW 4.5 2031".into(), market: 99.5, model: 99.7, residual_bp: 4.1, converged: true };
+        let obs = ResidualObservation {
+            date: day(),
+            entity: "Alder Works".into(),
+            method: "bond_fit".into(),
+            instrument: "bond_price".into(),
+            tenor: "AW 4.5 2031".into(),
+            market: 99.5,
+            model: 99.7,
+            residual_bp: 4.1,
+            converged: true,
+        };
         let worst = vec![WorstResidualRow { rank: 1, residual: obs }];
         assert_eq!(round_trip(&worst), worst);
         refuses_a_missing_column(&worst);
-        let shares = vec![RepricingShare { method: "bootstrap".into(), curves: 1000, repricing: 999, share: 0.999, tolerance_bp: 1e-6 }];
+        let shares = vec![RepricingShare {
+            method: "bootstrap".into(),
+            curves: 1000,
+            repricing: 999,
+            share: 0.999,
+            tolerance_bp: 1e-6,
+        }];
         assert_eq!(round_trip(&shares), shares);
         refuses_a_missing_column(&shares);
     }

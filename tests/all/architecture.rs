@@ -9,13 +9,19 @@ use std::path::{Path, PathBuf};
 /// The application crate's top-level modules, highest layer first. A module may name a module
 /// of a lower layer, never one of its own layer or above. The core crate's modules
 /// (re-exported at the crate root) sit below all of them and are not listed.
-const LAYERS: &[&[&str]] = &[&["commands"], &["run"], &["stages"], &["config"], &["report"], &["tables"], &["ingest"], &["error"]];
+const LAYERS: &[&[&str]] =
+    &[&["commands"], &["run"], &["stages"], &["config"], &["report"], &["tables"], &["ingest"], &["error"]];
 
 /// The core crate's modules (its `pub mod` lines): re-exported by the application, importable
 /// from every layer.
 fn core_modules() -> Vec<String> {
     let lib = Path::new(env!("CARGO_MANIFEST_DIR")).join("crates/hazardline-core/src/lib.rs");
-    std::fs::read_to_string(lib).unwrap().lines().filter_map(|l| l.strip_prefix("pub mod ")).map(|m| m.trim_end_matches(';').to_string()).collect()
+    std::fs::read_to_string(lib)
+        .unwrap()
+        .lines()
+        .filter_map(|l| l.strip_prefix("pub mod "))
+        .map(|m| m.trim_end_matches(';').to_string())
+        .collect()
 }
 
 fn rust_files(dir: &Path, out: &mut Vec<PathBuf>) {
@@ -128,7 +134,10 @@ fn application_layers_point_one_way() {
         let here = module_path(&src, file);
         let Some(top) = here.first().cloned() else { continue }; // lib.rs, main.rs
         let Some(layer) = layer_of(&top) else {
-            problems.push(format!("{}: top-level module `{top}` is in no layer (add it to LAYERS and to ARCHITECTURE.md)", file.display()));
+            problems.push(format!(
+                "{}: top-level module `{top}` is in no layer (add it to LAYERS and to ARCHITECTURE.md)",
+                file.display()
+            ));
             continue;
         };
         for (named, line) in named_modules(&src, file) {
@@ -137,8 +146,11 @@ fn application_layers_point_one_way() {
             }
             match layer_of(&named) {
                 Some(l) if l > layer => *edges.entry((top.clone(), named)).or_default() += 1,
-                Some(_) => problems.push(format!("{}:{line}: `{top}` names `{named}`, which is not below it", file.display())),
-                None => problems.push(format!("{}:{line}: `{top}` names `crate::{named}`, which is in no layer", file.display())),
+                Some(_) => {
+                    problems.push(format!("{}:{line}: `{top}` names `{named}`, which is not below it", file.display()))
+                }
+                None => problems
+                    .push(format!("{}:{line}: `{top}` names `crate::{named}`, which is in no layer", file.display())),
             }
         }
     }
@@ -162,7 +174,19 @@ fn core_crate_touches_no_file_clock_environment_or_log() {
     let mut files = Vec::new();
     rust_files(&src, &mut files);
     assert!(files.len() > 20, "core crate sources not found under {}", src.display());
-    let banned = ["std::fs", "std::env", "std::net", "std::process", "Instant::now", "SystemTime", "println!", "eprintln!", "print!(", "tracing::", "polars"];
+    let banned = [
+        "std::fs",
+        "std::env",
+        "std::net",
+        "std::process",
+        "Instant::now",
+        "SystemTime",
+        "println!",
+        "eprintln!",
+        "print!(",
+        "tracing::",
+        "polars",
+    ];
     let mut problems = Vec::new();
     for file in &files {
         for (n, line) in std::fs::read_to_string(file).unwrap().lines().enumerate() {

@@ -5,7 +5,9 @@
 //! of 200 repetitions, per grade.
 
 use chrono::NaiveDate;
-use hazardline::backtest::{run_backtest, BacktestSettings, Bucketing, CensoringPolicy, CurveSet, EntityFacts, GradeSpell};
+use hazardline::backtest::{
+    run_backtest, BacktestSettings, Bucketing, CensoringPolicy, CurveSet, EntityFacts, GradeSpell,
+};
 use hazardline::curves::HazardCurve;
 use hazardline::models::cir::{cir_hazard_curve, CirParams};
 use hazardline::sim::credit::{sigma_for, simulate_obligor};
@@ -56,13 +58,22 @@ fn ratio_interval_covers_the_planted_multiplier() {
                 let (tau, _) = simulate_obligor(&mut rng, &p, 1.0, 1.0 / 52.0);
                 // Default dates on the Act/365F axis of the curves, at least a day after t.
                 let default_date = tau.map(|x| t + chrono::Duration::days(((x * 365.0).round() as i64).max(1)));
-                facts.push(EntityFacts { entity: entity.clone(), grades: vec![GradeSpell { from_date: d(2019, 1, 1), grade: g }], default_date, data_end: d(2021, 6, 30) });
+                facts.push(EntityFacts {
+                    entity: entity.clone(),
+                    grades: vec![GradeSpell { from_date: d(2019, 1, 1), grade: g }],
+                    default_date,
+                    data_end: d(2021, 6, 30),
+                });
                 items.push(((t, entity), curve.clone(), Vec::new()));
             }
         }
         let out = run_backtest(&facts, &CurveSet::from_keyed(0.4, items), &settings).unwrap();
         for (k, &(g, _, m, _)) in grades.iter().enumerate() {
-            let row = out.risk_premia.iter().find(|r| r.cohort == "all" && r.bucket == format!("grade {g}") && r.horizon_years == 1).unwrap();
+            let row = out
+                .risk_premia
+                .iter()
+                .find(|r| r.cohort == "all" && r.bucket == format!("grade {g}") && r.horizon_years == 1)
+                .unwrap();
             let lo = row.ratio_lo.unwrap();
             let hi = row.ratio_hi.unwrap_or(f64::INFINITY);
             covered[k] += (lo <= m && m <= hi) as usize;

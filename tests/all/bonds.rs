@@ -13,12 +13,8 @@ use hazardline::time::{Calendar, DayCount, Tenor};
 use serde_json::Value;
 
 fn reference() -> Value {
-    let path = concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/tests/reference/cir_bond_quantlib.json"
-    );
-    serde_json::from_str(&std::fs::read_to_string(path).expect("reference file"))
-        .expect("valid JSON")
+    let path = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/cir_bond_quantlib.json");
+    serde_json::from_str(&std::fs::read_to_string(path).expect("reference file")).expect("valid JSON")
 }
 
 fn num(v: &Value) -> f64 {
@@ -59,18 +55,9 @@ fn bond_prices_match_quantlib() {
             .map(|p| (tenor(s(&p["tenor"])), num(&p["zero_rate"])))
             .collect();
         let disc = DiscountCurve::from_zero_rates(trade, &pillars).unwrap();
-        let nodes: Vec<chrono::NaiveDate> = case["hazard"]
-            .as_array()
-            .unwrap()
-            .iter()
-            .map(|h| d(s(&h["node"])))
-            .collect();
-        let hs: Vec<f64> = case["hazard"]
-            .as_array()
-            .unwrap()
-            .iter()
-            .map(|h| num(&h["hazard"]))
-            .collect();
+        let nodes: Vec<chrono::NaiveDate> =
+            case["hazard"].as_array().unwrap().iter().map(|h| d(s(&h["node"]))).collect();
+        let hs: Vec<f64> = case["hazard"].as_array().unwrap().iter().map(|h| num(&h["hazard"])).collect();
         let hz = HazardCurve::from_dates(trade, &nodes, hs).unwrap();
         let rec = num(&case["recovery"]);
         for b in case["bonds"].as_array().unwrap() {
@@ -82,19 +69,9 @@ fn bond_prices_match_quantlib() {
             for (p, c) in cf.periods.iter().zip(coupons) {
                 assert_eq!(p.accrual_start, d(s(&c["accrual_start"])), "{id}");
                 assert_eq!(p.accrual_end, d(s(&c["accrual_end"])), "{id}");
-                assert!(
-                    (p.amount - num(&c["amount"])).abs() < 1e-12,
-                    "{id} amount {} vs {}",
-                    p.amount,
-                    c["amount"]
-                );
+                assert!((p.amount - num(&c["amount"])).abs() < 1e-12, "{id} amount {} vs {}", p.amount, c["amount"]);
             }
-            assert!(
-                (cf.accrued - num(&b["accrued"])).abs() < 1e-12,
-                "{id} accrued {} vs {}",
-                cf.accrued,
-                b["accrued"]
-            );
+            assert!((cf.accrued - num(&b["accrued"])).abs() < 1e-12, "{id} accrued {} vs {}", cf.accrued, b["accrued"]);
             for (conv, key) in [
                 (RecoveryConvention::Zero, "zero"),
                 (RecoveryConvention::Market, "market"),
@@ -106,15 +83,9 @@ fn bond_prices_match_quantlib() {
                     worst = worst.max(e);
                     assert!(e < 1e-10, "{id} {key} {field}: {got} vs {}", b[key][field]);
                 }
-                assert!(
-                    (p.risk_free_dirty - num(&b["risk_free"]["dirty"])).abs() < 1e-10,
-                    "{id} risk-free"
-                );
+                assert!((p.risk_free_dirty - num(&b["risk_free"]["dirty"])).abs() < 1e-10, "{id} risk-free");
                 if conv == RecoveryConvention::Par {
-                    assert!(
-                        (p.recovery_value - num(&b["par"]["recovery_value"])).abs() < 1e-10,
-                        "{id} recovery value"
-                    );
+                    assert!((p.recovery_value - num(&b["par"]["recovery_value"])).abs() < 1e-10, "{id} recovery value");
                 }
             }
             let zero_dirty = num(&b["zero"]["clean"]) + cf.accrued;
@@ -139,12 +110,7 @@ fn bond_prices_match_quantlib() {
 fn zero_recovery_is_risk_free_times_survival() {
     let trade = d("2024-05-10");
     let disc = usd_like_curve(trade);
-    let hz = HazardCurve::new(
-        trade,
-        vec![1.0, 3.0, 5.0, 10.0],
-        vec![0.01, 0.02, 0.035, 0.05],
-    )
-    .unwrap();
+    let hz = HazardCurve::new(trade, vec![1.0, 3.0, 5.0, 10.0], vec![0.01, 0.02, 0.035, 0.05]).unwrap();
     let zcb = BondTerms {
         coupon: 0.0,
         frequency: 1,
@@ -155,12 +121,7 @@ fn zero_recovery_is_risk_free_times_survival() {
     let cf = zcb.cashflows(trade).unwrap();
     let p = cf.price(&disc, &hz, 0.4, RecoveryConvention::Zero).unwrap();
     let s = hz.survival(zcb.maturity);
-    assert!(
-        (p.dirty / (p.risk_free_dirty * s) - 1.0).abs() < 1e-12,
-        "{} vs {}",
-        p.dirty,
-        p.risk_free_dirty * s
-    );
+    assert!((p.dirty / (p.risk_free_dirty * s) - 1.0).abs() < 1e-12, "{} vs {}", p.dirty, p.risk_free_dirty * s);
     assert!((p.risk_free_dirty - 100.0 * disc.df(zcb.maturity)).abs() < 1e-12);
 
     let (r, lambda) = (0.035, 0.025);
@@ -172,26 +133,11 @@ fn zero_recovery_is_risk_free_times_survival() {
         (0.0725, 4, "2044-02-15", DayCount::Act360),
         (0.03, 1, "2026-01-15", DayCount::ActActIcma),
     ] {
-        let b = BondTerms {
-            coupon: cpn,
-            frequency: f,
-            maturity: d(m),
-            day_count: dc,
-            issue_date: None,
-        };
+        let b = BondTerms { coupon: cpn, frequency: f, maturity: d(m), day_count: dc, issue_date: None };
         let risky = price_bond(&b, &flat_r, &flat_h, 0.4, RecoveryConvention::Zero).unwrap();
-        let at_r_plus_l = price_bond(
-            &b,
-            &flat_rl,
-            &HazardCurve::flat(trade, 0.0),
-            0.4,
-            RecoveryConvention::Zero,
-        )
-        .unwrap();
-        assert!(
-            (risky.dirty / at_r_plus_l.risk_free_dirty - 1.0).abs() < 1e-12,
-            "{m}"
-        );
+        let at_r_plus_l =
+            price_bond(&b, &flat_rl, &HazardCurve::flat(trade, 0.0), 0.4, RecoveryConvention::Zero).unwrap();
+        assert!((risky.dirty / at_r_plus_l.risk_free_dirty - 1.0).abs() < 1e-12, "{m}");
         assert!((risky.clean / at_r_plus_l.clean - 1.0).abs() < 1e-12, "{m}");
     }
 }
@@ -226,12 +172,7 @@ fn market_value_recovery_discounts_at_r_plus_lambda_times_loss() {
         RecoveryConvention::Zero,
     )
     .unwrap();
-    assert!(
-        (mv.dirty / direct.dirty - 1.0).abs() < 1e-12,
-        "{} vs {}",
-        mv.dirty,
-        direct.dirty
-    );
+    assert!((mv.dirty / direct.dirty - 1.0).abs() < 1e-12, "{} vs {}", mv.dirty, direct.dirty);
 
     let disc = usd_like_curve(trade);
     let hz = HazardCurve::new(trade, vec![2.0, 5.0, 10.0], vec![0.02, 0.03, 0.045]).unwrap();
@@ -261,16 +202,9 @@ fn face_value_recovery_leg_closed_form() {
         let hz = HazardCurve::flat(trade, lambda);
         for t in [0.5, 3.0, 12.0] {
             let x = r + lambda;
-            let exact = if x > 0.0 {
-                lambda / x * (1.0 - (-x * t).exp())
-            } else {
-                0.0
-            };
+            let exact = if x > 0.0 { lambda / x * (1.0 - (-x * t).exp()) } else { 0.0 };
             let got = default_integral(&disc, &hz, t);
-            assert!(
-                (got - exact).abs() < 1e-13 * (1.0 + exact),
-                "r {r} lambda {lambda} t {t}: {got} vs {exact}"
-            );
+            assert!((got - exact).abs() < 1e-13 * (1.0 + exact), "r {r} lambda {lambda} t {t}: {got} vs {exact}");
         }
     }
     let disc = usd_like_curve(trade);
@@ -317,11 +251,7 @@ fn bond_fit_recovers_a_piecewise_curve() {
     let times: Vec<f64> = bonds.iter().map(|b| year_time(trade, b.maturity)).collect();
     let hazards = vec![0.012, 0.018, 0.026, 0.03, 0.034];
     let truth = HazardCurve::new(trade, times.clone(), hazards.clone()).unwrap();
-    for conv in [
-        RecoveryConvention::Par,
-        RecoveryConvention::Zero,
-        RecoveryConvention::Market,
-    ] {
+    for conv in [RecoveryConvention::Par, RecoveryConvention::Zero, RecoveryConvention::Market] {
         let quotes: Vec<BondQuote> = bonds
             .iter()
             .map(|b| BondQuote {
@@ -330,31 +260,17 @@ fn bond_fit_recovers_a_piecewise_curve() {
                 bid_ask: None,
             })
             .collect();
-        let settings = BondFitSettings {
-            convention: conv,
-            ..BondFitSettings::default()
-        };
+        let settings = BondFitSettings { convention: conv, ..BondFitSettings::default() };
         let f = fit_bond_hazard(trade, &quotes, &disc, &settings).unwrap();
         assert_eq!(f.form, BondCurveForm::PiecewiseFlat);
         assert_eq!(f.status, BondFitStatus::Ok);
         assert_eq!(f.nodes.len(), 5);
         for (n, h) in f.nodes.iter().zip(&hazards) {
-            assert!(
-                (n.hazard - h).abs() < 1e-9,
-                "{:?}: {} vs {h}",
-                conv,
-                n.hazard
-            );
+            assert!((n.hazard - h).abs() < 1e-9, "{:?}: {} vs {h}", conv, n.hazard);
             assert!((n.survival - truth.survival_at(n.time)).abs() < 1e-9);
             assert_eq!(n.status, BondFitStatus::Ok);
         }
-        assert!(
-            f.bonds
-                .iter()
-                .all(|r| r.residual_price.abs() < 1e-9 && r.residual_bp.abs() < 1e-6),
-            "{:?}",
-            f.bonds
-        );
+        assert!(f.bonds.iter().all(|r| r.residual_price.abs() < 1e-9 && r.residual_bp.abs() < 1e-6), "{:?}", f.bonds);
     }
 }
 
@@ -380,10 +296,7 @@ fn bond_fit_with_noise_reports_consistent_residuals() {
         .zip(noise)
         .map(|(b, e)| BondQuote {
             terms: b.clone(),
-            clean_price: price_bond(b, &disc, &truth, 0.4, RecoveryConvention::Par)
-                .unwrap()
-                .clean
-                + e,
+            clean_price: price_bond(b, &disc, &truth, 0.4, RecoveryConvention::Par).unwrap().clean + e,
             bid_ask: Some(0.25),
         })
         .collect();
@@ -393,12 +306,8 @@ fn bond_fit_with_noise_reports_consistent_residuals() {
     // Two maturities within half a year of each other share a node.
     assert_eq!(f.nodes.len(), 5);
     for r in &f.bonds {
-        let approx_bp =
-            -r.residual_price / ((r.market_clean + r.accrued) * r.modified_duration) * 1e4;
-        assert!(
-            (approx_bp - r.residual_bp).abs() < 0.05 * r.residual_bp.abs() + 0.01,
-            "{r:?}"
-        );
+        let approx_bp = -r.residual_price / ((r.market_clean + r.accrued) * r.modified_duration) * 1e4;
+        assert!((approx_bp - r.residual_bp).abs() < 0.05 * r.residual_bp.abs() + 0.01, "{r:?}");
         assert!(r.residual_price.abs() < 0.2);
     }
     assert!(f.rmse_price > 0.0 && f.rmse_yield_bp > 0.0);
@@ -434,19 +343,11 @@ fn few_bonds_use_flat_or_two_parameter_forms() {
     };
     let q = |b: &BondTerms| BondQuote {
         terms: b.clone(),
-        clean_price: price_bond(b, &disc, &truth, 0.4, RecoveryConvention::Par)
-            .map(|p| p.clean)
-            .unwrap_or(100.0),
+        clean_price: price_bond(b, &disc, &truth, 0.4, RecoveryConvention::Par).map(|p| p.clean).unwrap_or(100.0),
         bid_ask: None,
     };
 
-    let f1 = fit_bond_hazard(
-        trade,
-        &[q(&b1), q(&matured)],
-        &disc,
-        &BondFitSettings::default(),
-    )
-    .unwrap();
+    let f1 = fit_bond_hazard(trade, &[q(&b1), q(&matured)], &disc, &BondFitSettings::default()).unwrap();
     assert_eq!(f1.form, BondCurveForm::Flat);
     assert_eq!(f1.skipped.len(), 1);
     assert_eq!(f1.skipped[0].0, 1);
@@ -455,11 +356,7 @@ fn few_bonds_use_flat_or_two_parameter_forms() {
     let f2 = fit_bond_hazard(trade, &[q(&b1), q(&b2)], &disc, &BondFitSettings::default()).unwrap();
     assert_eq!(f2.form, BondCurveForm::TwoParameter);
     assert_eq!(f2.status, BondFitStatus::Ok);
-    assert!(
-        f2.bonds.iter().all(|r| r.residual_price.abs() < 1e-8),
-        "{:?}",
-        f2.bonds
-    );
+    assert!(f2.bonds.iter().all(|r| r.residual_price.abs() < 1e-8), "{:?}", f2.bonds);
     assert!(f2.curve.hazards().iter().all(|&h| h >= 0.0));
     assert!(fit_bond_hazard(trade, &[q(&matured)], &disc, &BondFitSettings::default()).is_err());
 }
@@ -474,18 +371,12 @@ fn prices_above_risk_free_are_floored_and_flagged() {
         .iter()
         .map(|t| BondQuote {
             terms: t.clone(),
-            clean_price: t.cashflows(trade).unwrap().risk_free_dirty(&disc)
-                - t.cashflows(trade).unwrap().accrued
-                + 0.5,
+            clean_price: t.cashflows(trade).unwrap().risk_free_dirty(&disc) - t.cashflows(trade).unwrap().accrued + 0.5,
             bid_ask: None,
         })
         .collect();
     let f = fit_bond_hazard(trade, &quotes, &disc, &BondFitSettings::default()).unwrap();
-    assert!(
-        f.nodes.iter().any(|n| n.status == BondFitStatus::Floored),
-        "{:?}",
-        f.nodes
-    );
+    assert!(f.nodes.iter().any(|n| n.status == BondFitStatus::Floored), "{:?}", f.nodes);
     assert!(f.nodes.iter().all(|n| n.hazard >= 0.0));
 }
 
@@ -501,21 +392,11 @@ fn cds_bond_basis_signs_and_credit_triangle() {
     let cds = HazardCurve::flat(trade, 0.02);
     let mats = [d("2027-06-20"), d("2029-05-10"), d("2034-05-10")];
     let same = cds_bond_basis(trade, &cds, &cds, &disc, &mats, 0.4, &cal).unwrap();
-    assert!(same
-        .iter()
-        .all(|b| b.basis_bp.abs() < 1e-12 && b.hazard_basis_bp.abs() < 1e-12));
+    assert!(same.iter().all(|b| b.basis_bp.abs() < 1e-12 && b.hazard_basis_bp.abs() < 1e-12));
     // Premium accrues Actual/360 while hazards run on Actual/365F: to first order the par
     // spread is lambda (1 - R) 360/365.
-    assert!(
-        same.iter()
-            .all(|b| (b.cds_par_spread_bp - 0.02 * 0.6 * 1e4 * 360.0 / 365.0).abs() < 1.0),
-        "{same:?}"
-    );
+    assert!(same.iter().all(|b| (b.cds_par_spread_bp - 0.02 * 0.6 * 1e4 * 360.0 / 365.0).abs() < 1.0), "{same:?}");
     let bond_curve = HazardCurve::flat(trade, 0.03);
     let neg = cds_bond_basis(trade, &bond_curve, &cds, &disc, &mats, 0.4, &cal).unwrap();
-    assert!(
-        neg.iter()
-            .all(|b| b.basis_bp < -50.0 && (b.hazard_basis_bp + 100.0).abs() < 1e-9),
-        "{neg:?}"
-    );
+    assert!(neg.iter().all(|b| b.basis_bp < -50.0 && (b.hazard_basis_bp + 100.0).abs() < 1e-9), "{neg:?}");
 }

@@ -7,7 +7,10 @@ use std::path::Path;
 
 /// (rows in, used, rejected) of `table` from the printed accounting.
 fn counts(stdout: &str, table: &str) -> (u64, u64, u64) {
-    let line = stdout.lines().find(|l| l.split_whitespace().next() == Some(table)).unwrap_or_else(|| panic!("no {table} line in {stdout}"));
+    let line = stdout
+        .lines()
+        .find(|l| l.split_whitespace().next() == Some(table))
+        .unwrap_or_else(|| panic!("no {table} line in {stdout}"));
     let v: Vec<u64> = line.split_whitespace().skip(1).map(|x| x.parse().unwrap()).collect();
     (v[0], v[1], v[2])
 }
@@ -78,8 +81,10 @@ fn calibrate_writes_tables_and_accounts_for_every_row() {
     assert!(r.iter().all(|v| v.unwrap().abs() < 1e-6));
     let rej = read("rejects.parquet");
     assert_eq!(rej.height(), 5);
-    let reasons: Vec<String> = rej.column("reason").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
-    for want in ["non_positive_spread", "unknown_tenor", "non_business_day", "unparseable_number", "no_discount_curve"] {
+    let reasons: Vec<String> =
+        rej.column("reason").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
+    for want in ["non_positive_spread", "unknown_tenor", "non_business_day", "unparseable_number", "no_discount_curve"]
+    {
         assert!(reasons.iter().any(|r| r == want), "missing reject {want}: {reasons:?}");
     }
     let rows: Vec<i64> = rej.column("row").unwrap().i64().unwrap().iter().map(|v| v.unwrap()).collect();

@@ -71,7 +71,11 @@ fn protection_leg_closed_form_for_flat_curves() {
         let legs = price_legs(&c, 0.4, &disc, &hz, AccrualIntegration::Standard).unwrap();
         let tm = year_time(trade, c.maturity);
         let closed = 0.6 * lambda / (r + lambda) * (1.0 - (-(r + lambda) * tm).exp());
-        assert!((legs.protection - closed).abs() < 1e-14 * closed.max(1e-3), "r {r} lambda {lambda}: {} vs {closed}", legs.protection);
+        assert!(
+            (legs.protection - closed).abs() < 1e-14 * closed.max(1e-3),
+            "r {r} lambda {lambda}: {} vs {closed}",
+            legs.protection
+        );
     }
 }
 
@@ -106,7 +110,12 @@ fn credit_triangle_is_approached_as_premium_frequency_grows() {
         let mut s = start;
         while s < maturity {
             let e = add_days(s, step_days).min(maturity);
-            periods.push(CouponPeriod { accrual_start: s, accrual_end: e, payment: e, accrual_days: (e - s).num_days() });
+            periods.push(CouponPeriod {
+                accrual_start: s,
+                accrual_end: e,
+                payment: e,
+                accrual_days: (e - s).num_days(),
+            });
             s = e;
         }
         let mut c = CdsContract::with_maturity(trade, maturity, &cal);

@@ -3,11 +3,11 @@
 //! stability flag points at rows of the other tables, and on the demo scenario the implied
 //! PDs sit above the realised frequencies with a premium larger for the better grades.
 
-use hazardline::stages::universe::write_demo;
-use hazardline::run::selfcheck::{selfcheck, Size};
-use hazardline::tables::readback::{floats, ints, read_frame, strs};
-use hazardline::sim::ScenarioSpec;
 use super::support::{files, repo};
+use hazardline::run::selfcheck::{selfcheck, Size};
+use hazardline::sim::ScenarioSpec;
+use hazardline::stages::universe::write_demo;
+use hazardline::tables::readback::{floats, ints, read_frame, strs};
 use std::collections::BTreeMap;
 
 #[test]
@@ -21,7 +21,10 @@ fn bundled_demo_data_is_the_generators_output() {
     let (fresh, bundled) = (files(dir.path(), &[]), files(&repo().join("demo-data"), &["README.md"]));
     assert_eq!(fresh.keys().collect::<Vec<_>>(), bundled.keys().collect::<Vec<_>>());
     for (k, v) in &fresh {
-        assert!(bundled[k] == *v, "demo-data/{k} differs from the generator's output; rerun `hazardline demo demo-data`");
+        assert!(
+            bundled[k] == *v,
+            "demo-data/{k} differs from the generator's output; rerun `hazardline demo demo-data`"
+        );
     }
     let total: usize = bundled.values().map(Vec::len).sum();
     assert!(total < 15 * 1024 * 1024, "demo-data is {total} bytes");
@@ -44,12 +47,32 @@ fn small_selfcheck_recovers_what_was_planted() {
     let t = dir.path().join("reports/demo/selfcheck/tables");
     let (fp, sp, rp) = (t.join("flags.parquet"), t.join("stability.parquet"), t.join("residual_curves.parquet"));
     let (f, s, r) = (read_frame(&fp).unwrap(), read_frame(&sp).unwrap(), read_frame(&rp).unwrap());
-    let (stage, rule, entity, series, period, date) = (strs(&f, &fp, "stage").unwrap(), strs(&f, &fp, "rule").unwrap(), strs(&f, &fp, "entity").unwrap(), strs(&f, &fp, "series").unwrap(), strs(&f, &fp, "period").unwrap(), hazardline::tables::readback::dates(&f, &fp, "date").unwrap());
-    let (ss, sper, skey, sscope) = (strs(&s, &sp, "series").unwrap(), strs(&s, &sp, "period").unwrap(), strs(&s, &sp, "key").unwrap(), strs(&s, &sp, "scope").unwrap());
-    let rows: std::collections::BTreeSet<(String, String, String, String)> =
-        (0..s.height()).map(|i| (ss[i].clone().unwrap(), sper[i].clone().unwrap(), skey[i].clone().unwrap(), sscope[i].clone().unwrap())).collect();
-    let (re, rm, rd) = (strs(&r, &rp, "entity").unwrap(), strs(&r, &rp, "method").unwrap(), hazardline::tables::readback::dates(&r, &rp, "date").unwrap());
-    let curves: std::collections::BTreeSet<(String, String, chrono::NaiveDate)> = (0..r.height()).map(|i| (re[i].clone().unwrap(), rm[i].clone().unwrap(), rd[i].unwrap())).collect();
+    let (stage, rule, entity, series, period, date) = (
+        strs(&f, &fp, "stage").unwrap(),
+        strs(&f, &fp, "rule").unwrap(),
+        strs(&f, &fp, "entity").unwrap(),
+        strs(&f, &fp, "series").unwrap(),
+        strs(&f, &fp, "period").unwrap(),
+        hazardline::tables::readback::dates(&f, &fp, "date").unwrap(),
+    );
+    let (ss, sper, skey, sscope) = (
+        strs(&s, &sp, "series").unwrap(),
+        strs(&s, &sp, "period").unwrap(),
+        strs(&s, &sp, "key").unwrap(),
+        strs(&s, &sp, "scope").unwrap(),
+    );
+    let rows: std::collections::BTreeSet<(String, String, String, String)> = (0..s.height())
+        .map(|i| {
+            (ss[i].clone().unwrap(), sper[i].clone().unwrap(), skey[i].clone().unwrap(), sscope[i].clone().unwrap())
+        })
+        .collect();
+    let (re, rm, rd) = (
+        strs(&r, &rp, "entity").unwrap(),
+        strs(&r, &rp, "method").unwrap(),
+        hazardline::tables::readback::dates(&r, &rp, "date").unwrap(),
+    );
+    let curves: std::collections::BTreeSet<(String, String, chrono::NaiveDate)> =
+        (0..r.height()).map(|i| (re[i].clone().unwrap(), rm[i].clone().unwrap(), rd[i].unwrap())).collect();
     let mut checked = BTreeMap::new();
     for i in 0..f.height() {
         if stage[i].as_deref() != Some("stability") {
@@ -58,11 +81,22 @@ fn small_selfcheck_recovers_what_was_planted() {
         let ok = match series[i].as_deref().and_then(|x| x.strip_prefix("residual_bp/")) {
             Some(method) => curves.contains(&(entity[i].clone().unwrap(), method.to_string(), date[i].unwrap())),
             None => match &entity[i] {
-                Some(e) => rows.contains(&(series[i].clone().unwrap(), period[i].clone().unwrap(), e.clone(), "entity".into())),
-                None => rows.iter().any(|(se, pe, _, sc)| Some(se) == series[i].as_ref() && Some(pe) == period[i].as_ref() && sc == "universe"),
+                Some(e) => {
+                    rows.contains(&(series[i].clone().unwrap(), period[i].clone().unwrap(), e.clone(), "entity".into()))
+                }
+                None => rows.iter().any(|(se, pe, _, sc)| {
+                    Some(se) == series[i].as_ref() && Some(pe) == period[i].as_ref() && sc == "universe"
+                }),
             },
         };
-        assert!(ok, "flag {} on {:?} {:?} {:?} has no row to point at", rule[i].as_deref().unwrap_or(""), entity[i], series[i], period[i]);
+        assert!(
+            ok,
+            "flag {} on {:?} {:?} {:?} has no row to point at",
+            rule[i].as_deref().unwrap_or(""),
+            entity[i],
+            series[i],
+            period[i]
+        );
         *checked.entry(rule[i].clone().unwrap()).or_insert(0) += 1;
     }
     println!("stability flags joined: {checked:?}");
@@ -82,7 +116,14 @@ fn demo_implied_above_realised_and_premium_larger_for_better_grades() {
     // 1.5, realised 19 defaults against 17 implied; the report shows that bucket as it is.)
     let bp = t.join("backtest_buckets.parquet");
     let b = read_frame(&bp).unwrap();
-    let (c, h, bucket, rec, rr, ip) = (strs(&b, &bp, "cohort").unwrap(), ints(&b, &bp, "horizon").unwrap(), strs(&b, &bp, "bucket").unwrap(), floats(&b, &bp, "recovery").unwrap(), floats(&b, &bp, "realised_rate").unwrap(), floats(&b, &bp, "implied_pd").unwrap());
+    let (c, h, bucket, rec, rr, ip) = (
+        strs(&b, &bp, "cohort").unwrap(),
+        ints(&b, &bp, "horizon").unwrap(),
+        strs(&b, &bp, "bucket").unwrap(),
+        floats(&b, &bp, "recovery").unwrap(),
+        floats(&b, &bp, "realised_rate").unwrap(),
+        floats(&b, &bp, "implied_pd").unwrap(),
+    );
     let n = ints(&b, &bp, "n").unwrap();
     let (mut grades, mut implied, mut realised, mut above) = (0, 0.0, 0.0, 0);
     for i in 0..b.height() {
@@ -102,8 +143,16 @@ fn demo_implied_above_realised_and_premium_larger_for_better_grades() {
     // realised falls from the best grade to the worst.
     let hp = t.join("backtest_history.parquet");
     let hdf = read_frame(&hp).unwrap();
-    let (hc, hg, hr, hi) = (strs(&hdf, &hp, "cohort").unwrap(), ints(&hdf, &hp, "grade").unwrap(), floats(&hdf, &hp, "realised_rate").unwrap(), floats(&hdf, &hp, "implied_pd").unwrap());
-    let mut ratios: Vec<(i64, f64)> = (0..hdf.height()).filter(|&i| hc[i].as_deref() == Some("all")).map(|i| (hg[i].unwrap(), hi[i].unwrap() / hr[i].unwrap())).collect();
+    let (hc, hg, hr, hi) = (
+        strs(&hdf, &hp, "cohort").unwrap(),
+        ints(&hdf, &hp, "grade").unwrap(),
+        floats(&hdf, &hp, "realised_rate").unwrap(),
+        floats(&hdf, &hp, "implied_pd").unwrap(),
+    );
+    let mut ratios: Vec<(i64, f64)> = (0..hdf.height())
+        .filter(|&i| hc[i].as_deref() == Some("all"))
+        .map(|i| (hg[i].unwrap(), hi[i].unwrap() / hr[i].unwrap()))
+        .collect();
     ratios.sort_by_key(|r| r.0);
     println!("implied / realised by grade (cohort history): {ratios:?}");
     assert_eq!(ratios.len(), 6);
@@ -119,12 +168,20 @@ fn demo_implied_above_realised_and_premium_larger_for_better_grades() {
 #[test]
 fn cohort_history_only_backtest() {
     let dir = tempfile::tempdir().unwrap();
-    write_demo(dir.path(), &ScenarioSpec { entities: 30, years: 2, bond_share: 0.0, ..ScenarioSpec::demo(11) }).unwrap();
+    write_demo(dir.path(), &ScenarioSpec { entities: 30, years: 2, bond_share: 0.0, ..ScenarioSpec::demo(11) })
+        .unwrap();
     let p = dir.path().join("pipeline.toml");
-    let text = std::fs::read_to_string(&p).unwrap().replace("defaults = \"defaults.csv\"\n", "").replace("cir = true", "cir = false");
+    let text = std::fs::read_to_string(&p)
+        .unwrap()
+        .replace("defaults = \"defaults.csv\"\n", "")
+        .replace("cir = true", "cir = false");
     std::fs::write(&p, text).unwrap();
     let cfg = hazardline::config::load_pipeline(&p).unwrap();
-    let run = hazardline::run::run(&cfg, &hazardline::run::RunOptions { out_root: Some(dir.path().join("out")), label: Some("h".into()) }).unwrap();
+    let run = hazardline::run::run(
+        &cfg,
+        &hazardline::run::RunOptions { out_root: Some(dir.path().join("out")), label: Some("h".into()) },
+    )
+    .unwrap();
     let t = run.run_dir.join("tables");
     assert_eq!(read_frame(&t.join("backtest_buckets.parquet")).unwrap().height(), 0);
     let hp = t.join("backtest_history.parquet");
@@ -134,5 +191,8 @@ fn cohort_history_only_backtest() {
     assert!(src.iter().all(|s| s.as_deref() == Some("cohort_history")));
     assert!(ip.iter().any(|x| x.is_some()));
     let report = std::fs::read_to_string(run.run_dir.join("report.md")).unwrap();
-    assert!(report.contains("No `defaults` table was given") && report.contains("### Against the institution's cohort history"));
+    assert!(
+        report.contains("No `defaults` table was given")
+            && report.contains("### Against the institution's cohort history")
+    );
 }

@@ -2,13 +2,13 @@
 //! their schema, bond rows in hazard_curves and calibration_residuals, every CIR fit joined to
 //! a bootstrapped CDS curve, and the `[calibration]` keys checked with exact messages.
 
-use hazardline::text::{CurveSource, FitMethod};
+use super::support::repo;
 use assert_cmd::Command;
 use hazardline::config::load_pipeline;
 use hazardline::run::{run, RunOptions};
 use hazardline::tables::readback;
+use hazardline::text::{CurveSource, FitMethod};
 use std::collections::BTreeSet;
-use super::support::repo;
 
 #[test]
 fn demo_run_writes_bond_and_cir_tables() {
@@ -38,12 +38,21 @@ fn demo_run_writes_bond_and_cir_tables() {
     ] {
         assert_eq!(schema.get(c), Some(&ty), "intensity_params.{c}");
     }
-    let params = hazardline::tables::read_from::<hazardline::tables::IntensityParamRow>(&t.join("intensity_params.parquet")).unwrap();
-    let hazard = hazardline::tables::read_from::<hazardline::tables::HazardCurveRow>(&t.join("hazard_curves.parquet")).unwrap();
-    let cds: BTreeSet<(chrono::NaiveDate, &str, &str)> = hazard.iter().filter(|h| h.source == CurveSource::Cds).map(|h| (h.date, &*h.entity, &*h.currency)).collect();
+    let params =
+        hazardline::tables::read_from::<hazardline::tables::IntensityParamRow>(&t.join("intensity_params.parquet"))
+            .unwrap();
+    let hazard =
+        hazardline::tables::read_from::<hazardline::tables::HazardCurveRow>(&t.join("hazard_curves.parquet")).unwrap();
+    let cds: BTreeSet<(chrono::NaiveDate, &str, &str)> =
+        hazard.iter().filter(|h| h.source == CurveSource::Cds).map(|h| (h.date, &*h.entity, &*h.currency)).collect();
     assert_eq!(params.len(), cds.len(), "one CIR fit per bootstrapped CDS curve");
     for p in &params {
-        assert!(cds.contains(&(p.date, p.entity.as_str(), p.currency.as_str())), "CIR fit {} {} has no CDS curve", p.date, p.entity);
+        assert!(
+            cds.contains(&(p.date, p.entity.as_str(), p.currency.as_str())),
+            "CIR fit {} {} has no CDS curve",
+            p.date,
+            p.entity
+        );
         assert_eq!(p.mode, "free");
         if p.status == "ok" {
             let (k, th, s, l) = (p.kappa.unwrap(), p.theta.unwrap(), p.sigma.unwrap(), p.lambda0.unwrap());
@@ -69,17 +78,27 @@ fn demo_run_writes_bond_and_cir_tables() {
     }
 
     // Residual rows of both new methods.
-    let res = hazardline::tables::read_from::<hazardline::tables::ResidualRow>(&t.join("calibration_residuals.parquet")).unwrap();
+    let res =
+        hazardline::tables::read_from::<hazardline::tables::ResidualRow>(&t.join("calibration_residuals.parquet"))
+            .unwrap();
     let bond_res: Vec<_> = res.iter().filter(|r| r.method == FitMethod::BondFit).collect();
     let cir_res: Vec<_> = res.iter().filter(|r| r.method == FitMethod::Cir).collect();
     assert_eq!(bond_res.len(), 120, "6 bonds x 20 days");
-    assert!(bond_res.iter().all(|r| r.instrument == "bond_price" && r.tenor_or_bond.contains('-') && r.market > 50.0 && r.residual_bp.is_finite()));
+    assert!(bond_res.iter().all(|r| r.instrument == "bond_price"
+        && r.tenor_or_bond.contains('-')
+        && r.market > 50.0
+        && r.residual_bp.is_finite()));
     // As many bonds as nodes, so the curves reprice the prices.
     assert!(bond_res.iter().all(|r| r.residual_bp.abs() < 1e-6), "bond residuals");
-    assert_eq!(cir_res.len(), res.iter().filter(|r| r.method == FitMethod::Bootstrap).count(), "every CDS quote repriced under CIR");
+    assert_eq!(
+        cir_res.len(),
+        res.iter().filter(|r| r.method == FitMethod::Bootstrap).count(),
+        "every CDS quote repriced under CIR"
+    );
 
     // The basis where both curves exist, with the design's columns.
-    let basis = hazardline::tables::read_from::<hazardline::tables::BasisRow>(&t.join("cds_bond_basis.parquet")).unwrap();
+    let basis =
+        hazardline::tables::read_from::<hazardline::tables::BasisRow>(&t.join("cds_bond_basis.parquet")).unwrap();
     assert_eq!(basis.len(), 120);
     for b in &basis {
         assert!(cds.contains(&(b.date, b.entity.as_str(), b.currency.as_str())));
@@ -88,7 +107,13 @@ fn demo_run_writes_bond_and_cir_tables() {
     }
 
     let report = std::fs::read_to_string(dir.join("report.md")).unwrap();
-    for s in ["### Bond-implied hazard curves", "### CIR intensity fit", "CDS-bond basis", "cir-rmse-history.svg", "the CIR intensity fit per CDS curve (free mode)"] {
+    for s in [
+        "### Bond-implied hazard curves",
+        "### CIR intensity fit",
+        "CDS-bond basis",
+        "cir-rmse-history.svg",
+        "the CIR intensity fit per CDS curve (free mode)",
+    ] {
         assert!(report.contains(s), "report lacks {s}");
     }
 }
@@ -110,15 +135,28 @@ fn fixed_kappa_sigma_mode_holds_kappa_and_sigma_per_window() {
     let cfg = load_pipeline(&p).unwrap();
     assert!(!cfg.bond_fit, "no bond inputs: the bond fit is off by default");
     let run_dir = run(&cfg, &RunOptions::default()).unwrap().run_dir;
-    let params = hazardline::tables::read_from::<hazardline::tables::IntensityParamRow>(&run_dir.join("tables/intensity_params.parquet")).unwrap();
+    let params = hazardline::tables::read_from::<hazardline::tables::IntensityParamRow>(
+        &run_dir.join("tables/intensity_params.parquet"),
+    )
+    .unwrap();
     assert_eq!(params.len(), 100);
     let name: Vec<_> = params.iter().filter(|p| p.entity == "Vintry Chemicals" && p.kappa.is_some()).collect();
     assert_eq!(name.len(), 20);
     for w in name.chunks(10) {
-        assert!(w.iter().all(|p| p.mode == "fixed_kappa_sigma" && p.kappa == w[0].kappa && p.sigma == w[0].sigma), "kappa and sigma held over a window");
+        assert!(
+            w.iter().all(|p| p.mode == "fixed_kappa_sigma" && p.kappa == w[0].kappa && p.sigma == w[0].sigma),
+            "kappa and sigma held over a window"
+        );
     }
-    assert!(hazardline::tables::read_from::<hazardline::tables::BasisRow>(&run_dir.join("tables/cds_bond_basis.parquet")).unwrap().is_empty());
-    let hazard = hazardline::tables::read_from::<hazardline::tables::HazardCurveRow>(&run_dir.join("tables/hazard_curves.parquet")).unwrap();
+    assert!(hazardline::tables::read_from::<hazardline::tables::BasisRow>(
+        &run_dir.join("tables/cds_bond_basis.parquet")
+    )
+    .unwrap()
+    .is_empty());
+    let hazard = hazardline::tables::read_from::<hazardline::tables::HazardCurveRow>(
+        &run_dir.join("tables/hazard_curves.parquet"),
+    )
+    .unwrap();
     assert!(hazard.iter().all(|h| h.source == CurveSource::Cds));
 }
 
@@ -127,7 +165,8 @@ fn config_error(extra: &str) -> String {
     std::fs::write(dir.path().join("q.csv"), "date,entity,currency,tenor,par_spread_bp\n").unwrap();
     std::fs::write(dir.path().join("d.csv"), "date,currency,tenor,zero_rate\n").unwrap();
     let p = dir.path().join("p.toml");
-    std::fs::write(&p, format!("[inputs]\ncds_quotes = \"q.csv\"\ndiscount = \"d.csv\"\n[calibration]\n{extra}")).unwrap();
+    std::fs::write(&p, format!("[inputs]\ncds_quotes = \"q.csv\"\ndiscount = \"d.csv\"\n[calibration]\n{extra}"))
+        .unwrap();
     let out = Command::cargo_bin("hazardline").unwrap().arg("run").arg(&p).assert().code(2);
     String::from_utf8(out.get_output().stderr.clone()).unwrap()
 }
@@ -137,7 +176,10 @@ fn calibration_keys_are_checked() {
     let e = config_error("cir_mode = \"loose\"\n");
     assert!(e.contains("key `calibration.cir_mode`: \"loose\" is not one of \"free\", \"fixed_kappa_sigma\""), "{e}");
     let e = config_error("bond_recovery_convention = \"face\"\n");
-    assert!(e.contains("key `calibration.bond_recovery_convention`: \"face\" is not one of \"par\", \"zero\", \"market\""), "{e}");
+    assert!(
+        e.contains("key `calibration.bond_recovery_convention`: \"face\" is not one of \"par\", \"zero\", \"market\""),
+        "{e}"
+    );
     let e = config_error("cir_window = 1\n");
     assert!(e.contains("key `calibration.cir_window`"), "{e}");
     let e = config_error("bond_fit = true\n");

@@ -3,10 +3,10 @@
 //! the bundled report kept up to date, config errors with exact messages, and the tables read
 //! by pyarrow (an independent Parquet reader from PyPI).
 
+use super::support::{files, repo};
 use assert_cmd::Command;
 use hazardline::config::load_pipeline;
 use hazardline::run::{run, RunOptions, TABLES};
-use super::support::{files, repo};
 use std::path::{Path, PathBuf};
 
 fn fixture_run(root: &Path) -> PathBuf {
@@ -35,7 +35,11 @@ fn demo_pipeline_end_to_end_and_deterministic() {
         assert!(fa.contains_key(&format!("tables/{t}.parquet")), "missing table {t}");
     }
     // No partial folder left behind.
-    let leftovers: Vec<_> = std::fs::read_dir(ra.parent().unwrap()).unwrap().map(|e| e.unwrap().file_name()).filter(|n| n.to_string_lossy().contains("partial")).collect();
+    let leftovers: Vec<_> = std::fs::read_dir(ra.parent().unwrap())
+        .unwrap()
+        .map(|e| e.unwrap().file_name())
+        .filter(|n| n.to_string_lossy().contains("partial"))
+        .collect();
     assert!(leftovers.is_empty(), "{leftovers:?}");
 
     let m = hazardline::tables::manifest::read(&ra.join("manifest.json")).unwrap();
@@ -47,7 +51,16 @@ fn demo_pipeline_end_to_end_and_deterministic() {
     assert!(m.settings.get("quality").is_some());
 
     let report = String::from_utf8(fa["report.md"].clone()).unwrap();
-    for section in ["## 1. Summary", "## 2. Data quality", "## 3. Calibration and residuals", "## 4. Parameter stability", "## 5. Backtest and risk premia", "## 6. Flags", "## 7. Method notes", "## 8. Caution"] {
+    for section in [
+        "## 1. Summary",
+        "## 2. Data quality",
+        "## 3. Calibration and residuals",
+        "## 4. Parameter stability",
+        "## 5. Backtest and risk premia",
+        "## 6. Flags",
+        "## 7. Method notes",
+        "## 8. Caution",
+    ] {
         assert!(report.contains(section), "report lacks {section}");
     }
     assert!(report.contains("do not replace, independent model validation"));
@@ -60,7 +73,11 @@ fn demo_pipeline_end_to_end_and_deterministic() {
         figures += 1;
     }
     assert!(figures >= 3, "{figures} figures");
-    assert!(report.contains("hazard-5y-history.svg") && report.contains("residual-histogram.svg") && report.contains("term-structure-"));
+    assert!(
+        report.contains("hazard-5y-history.svg")
+            && report.contains("residual-histogram.svg")
+            && report.contains("term-structure-")
+    );
 
     // `report` re-renders the same text from the tables.
     std::fs::remove_file(ra.join("report.md")).unwrap();
@@ -99,15 +116,34 @@ fn bundled_demo_report_is_up_to_date() {
             b.remove(k);
         }
     }
-    assert_eq!(a.keys().collect::<Vec<_>>(), b.keys().collect::<Vec<_>>(), "bundled report has other files than a fresh run; rerun the demo pipeline");
+    assert_eq!(
+        a.keys().collect::<Vec<_>>(),
+        b.keys().collect::<Vec<_>>(),
+        "bundled report has other files than a fresh run; rerun the demo pipeline"
+    );
     for (k, v) in &b {
-        assert!(a[k] == *v, "validation-reports/demo/2015-2019/{k} is out of date; rerun `hazardline run pipelines/demo.toml`");
+        assert!(
+            a[k] == *v,
+            "validation-reports/demo/2015-2019/{k} is out of date; rerun `hazardline run pipelines/demo.toml`"
+        );
     }
     let report = String::from_utf8(b["report.md"].clone()).unwrap();
-    for section in ["## 4. Parameter stability", "## 5. Backtest and risk premia", "### Recovery sensitivity", "### Against the institution's cohort history", "### Residual analytics"] {
+    for section in [
+        "## 4. Parameter stability",
+        "## 5. Backtest and risk premia",
+        "### Recovery sensitivity",
+        "### Against the institution's cohort history",
+        "### Residual analytics",
+    ] {
         assert!(report.contains(section), "demo report lacks {section}");
     }
-    for figure in ["charts/backtest-1y.svg", "charts/risk-premium-1y.svg", "charts/psi.svg", "charts/stability-heat-map.svg", "charts/residuals-by-tenor.svg"] {
+    for figure in [
+        "charts/backtest-1y.svg",
+        "charts/risk-premium-1y.svg",
+        "charts/psi.svg",
+        "charts/stability-heat-map.svg",
+        "charts/residuals-by-tenor.svg",
+    ] {
         assert!(report.contains(figure) && b.contains_key(figure), "demo report lacks {figure}");
     }
 }
@@ -125,20 +161,32 @@ fn config_error(toml: &str) -> String {
 #[test]
 fn config_errors_name_the_key_and_line() {
     let unknown = config_error("[inputs]\ncds_quotes = \"q.csv\"\ndiscount = \"d.csv\"\n[report]\ncolour = \"red\"\n");
-    assert!(unknown.contains("p.toml") && unknown.contains("line 5") && unknown.contains("unknown field `colour`"), "{unknown}");
-    let bad_type = config_error("[inputs]\ncds_quotes = \"q.csv\"\ndiscount = \"d.csv\"\n[quality]\nstale_days = \"five\"\n");
+    assert!(
+        unknown.contains("p.toml") && unknown.contains("line 5") && unknown.contains("unknown field `colour`"),
+        "{unknown}"
+    );
+    let bad_type =
+        config_error("[inputs]\ncds_quotes = \"q.csv\"\ndiscount = \"d.csv\"\n[quality]\nstale_days = \"five\"\n");
     assert!(bad_type.contains("line 5") && bad_type.contains("stale_days"), "{bad_type}");
     let missing = config_error("[inputs]\ncds_quotes = \"nowhere.csv\"\ndiscount = \"d.csv\"\n");
     assert!(missing.contains("key `inputs.cds_quotes`: input nowhere.csv does not exist"), "{missing}");
-    let bad_value = config_error("[inputs]\ncds_quotes = \"q.csv\"\ndiscount = \"d.csv\"\n[conventions]\ninfeasible = \"clip\"\n");
-    assert!(bad_value.contains("key `conventions.infeasible`: \"clip\" is not one of \"floor\", \"fail\""), "{bad_value}");
+    let bad_value =
+        config_error("[inputs]\ncds_quotes = \"q.csv\"\ndiscount = \"d.csv\"\n[conventions]\ninfeasible = \"clip\"\n");
+    assert!(
+        bad_value.contains("key `conventions.infeasible`: \"clip\" is not one of \"floor\", \"fail\""),
+        "{bad_value}"
+    );
 }
 
 /// pyarrow (PyPI) reads every table and finds the types the design promises. Required in CI
 /// (`.ci/run` installs pyarrow); skipped with a notice where pyarrow is absent locally.
 #[test]
 fn tables_read_with_pyarrow() {
-    let have = std::process::Command::new("python3").args(["-c", "import pyarrow"]).status().map(|s| s.success()).unwrap_or(false);
+    let have = std::process::Command::new("python3")
+        .args(["-c", "import pyarrow"])
+        .status()
+        .map(|s| s.success())
+        .unwrap_or(false);
     if !have {
         assert!(std::env::var_os("CI").is_none(), "pyarrow is required in CI");
         eprintln!("pyarrow not installed: skipping the pyarrow schema check");
@@ -153,7 +201,16 @@ fn tables_read_with_pyarrow() {
     let split = run(&cfg, &RunOptions { out_root: Some(root.path().join("split")), label: None }).unwrap().run_dir;
     assert!(split.join("tables/hazard_curves").is_dir());
     for dir in [fixture_run(root.path()), repo().join("validation-reports/demo/2015-2019"), split] {
-        let out = std::process::Command::new("python3").arg(repo().join("tests/reference/read_tables_pyarrow.py")).arg(dir.join("tables")).output().unwrap();
-        assert!(out.status.success(), "{}\n{}", String::from_utf8_lossy(&out.stdout), String::from_utf8_lossy(&out.stderr));
+        let out = std::process::Command::new("python3")
+            .arg(repo().join("tests/reference/read_tables_pyarrow.py"))
+            .arg(dir.join("tables"))
+            .output()
+            .unwrap();
+        assert!(
+            out.status.success(),
+            "{}\n{}",
+            String::from_utf8_lossy(&out.stdout),
+            String::from_utf8_lossy(&out.stderr)
+        );
     }
 }

@@ -95,7 +95,13 @@ fn exact_accrual_variant_is_close_to_standard() {
     let disc = usd_like_curve(trade);
     let quotes: Vec<(&str, f64)> = TENORS.iter().enumerate().map(|(i, &t)| (t, 300.0 + 80.0 * i as f64)).collect();
     let (a, _) = fit(trade, &disc, &quotes, 0.4, &BootstrapSettings::default());
-    let (b, qs) = fit(trade, &disc, &quotes, 0.4, &BootstrapSettings { accrual: AccrualIntegration::Exact, ..Default::default() });
+    let (b, qs) = fit(
+        trade,
+        &disc,
+        &quotes,
+        0.4,
+        &BootstrapSettings { accrual: AccrualIntegration::Exact, ..Default::default() },
+    );
     let mut max_diff: f64 = 0.0;
     for (x, y) in a.nodes.iter().zip(&b.nodes) {
         max_diff = max_diff.max((x.survival.unwrap() - y.survival.unwrap()).abs());
@@ -119,7 +125,6 @@ fn distressed_curves_need_no_cap() {
         assert!(r.residual_bp.abs() < 1e-6);
     }
 }
-
 
 /// A long-dated quote above what any hazard on its segment can reach (survival to the
 /// previous node is already small) is reported, with the shortfall, not capped.

@@ -2,9 +2,9 @@
 //! rejected or flagged and with which reason code; plus the accounting invariant and
 //! no-panic properties.
 
-use hazardline::text::FlagRule;
 use hazardline::ingest::quality::{FLAG_FEW_TENORS, FLAG_INVERTED, FLAG_SPIKE, FLAG_STALE};
 use hazardline::ingest::{load, Dataset, InputPaths, QualitySettings};
+use hazardline::text::FlagRule;
 use hazardline::time::Calendar;
 use proptest::prelude::*;
 use std::path::{Path, PathBuf};
@@ -170,7 +170,10 @@ fn unit_slip_that_persists_is_rejected() {
     text += &clean_series("A", 20);
     text += "2024-02-05,A,USD,5Y,1.01,,,\n2024-02-06,A,USD,5Y,0.99,,,\n2024-02-07,A,USD,5Y,1.00,,,\n";
     let ds = check(&[("cds_quotes", &text)]);
-    assert_eq!(rejected(&ds), vec![("cds_quotes", 61, "unit_slip"), ("cds_quotes", 62, "unit_slip"), ("cds_quotes", 63, "unit_slip")]);
+    assert_eq!(
+        rejected(&ds),
+        vec![("cds_quotes", 61, "unit_slip"), ("cds_quotes", 62, "unit_slip"), ("cds_quotes", 63, "unit_slip")]
+    );
     assert!(ds.rejects[0].detail.contains("percent"), "{}", ds.rejects[0].detail);
 }
 
@@ -183,7 +186,11 @@ fn stale_run_is_flagged_not_rejected() {
     while k < 12 {
         if Calendar::weekends_only().is_business_day(d) {
             let v = if (2..10).contains(&k) { 100.0 } else { 100.0 + k as f64 };
-            text += &format!("{d},A,USD,5Y,{v:.2},,,\n{d},A,USD,1Y,{:.2},,,\n{d},A,USD,10Y,{:.2},,,\n", 40.0 + k as f64, 120.0 + k as f64);
+            text += &format!(
+                "{d},A,USD,5Y,{v:.2},,,\n{d},A,USD,1Y,{:.2},,,\n{d},A,USD,10Y,{:.2},,,\n",
+                40.0 + k as f64,
+                120.0 + k as f64
+            );
             k += 1;
         }
         d = d.succ_opt().unwrap();
@@ -210,7 +217,11 @@ fn reverting_spike_is_flagged() {
     while k < 30 {
         if Calendar::weekends_only().is_business_day(d) {
             let v = if k == 15 { 400.0 } else { 100.0 + (k % 3) as f64 };
-            text += &format!("{d},B,USD,5Y,{v:.2},,,\n{d},B,USD,1Y,{:.2},,,\n{d},B,USD,10Y,{:.2},,,\n", 50.0 + (k % 4) as f64, 130.0 + (k % 2) as f64);
+            text += &format!(
+                "{d},B,USD,5Y,{v:.2},,,\n{d},B,USD,1Y,{:.2},,,\n{d},B,USD,10Y,{:.2},,,\n",
+                50.0 + (k % 4) as f64,
+                130.0 + (k % 2) as f64
+            );
             k += 1;
         }
         d = d.succ_opt().unwrap();
@@ -225,7 +236,9 @@ fn reverting_spike_is_flagged() {
     assert_eq!(p.rows.iter().zip(&ds.cds_flags).filter(|(_, b)| *b & FLAG_SPIKE != 0).count(), 1);
     // A move that persists is not a spike.
     let mut text2 = String::from(CDS_HEAD);
-    for (i, day) in ["2024-01-02", "2024-01-03", "2024-01-04", "2024-01-05", "2024-01-08", "2024-01-09"].iter().enumerate() {
+    for (i, day) in
+        ["2024-01-02", "2024-01-03", "2024-01-04", "2024-01-05", "2024-01-08", "2024-01-09"].iter().enumerate()
+    {
         let v = if i < 3 { 100.0 + i as f64 } else { 400.0 + i as f64 };
         text2 += &format!("{day},C,USD,5Y,{v},,,\n");
     }
@@ -271,7 +284,8 @@ fn discount_rules() {
 #[test]
 fn reference_tables_and_unknown_entities() {
     let entities = "entity,name,sector,region\nA,Alder Works,Industrials,North\nB,Birch Lane,Utilities,South\nB,Birch Lane,Utilities,South\nC,Cedar,X,Y\nC,Cedar Two,X,Y\n";
-    let grades = "entity,from_date,grade\nA,2020-01-01,3\nZ,2020-01-01,2\nB,2020-01-01,0\nB,2020-06-01,2.5\nB,2021-01-01,4\n";
+    let grades =
+        "entity,from_date,grade\nA,2020-01-01,3\nZ,2020-01-01,2\nB,2020-01-01,0\nB,2020-06-01,2.5\nB,2021-01-01,4\n";
     let defaults = "entity,default_date\nA,2023-05-01\nQ,2022-01-01\nA,2023-05-01\n";
     let cohort = "year,grade,obligors,defaults\n2019,1,100,0\n2019,2,80,90\n2019,3,x,1\n2019,1,100,0\n";
     let ds = check(&[("entities", entities), ("grades", grades), ("defaults", defaults), ("cohort_history", cohort)]);
@@ -319,7 +333,11 @@ B1,A,USD,0.045,2,2030-06-15,30/360\nB2,A,USD,4.5,2,2030-06-15,30/360\nB3,A,USD,0
 #[test]
 fn hive_partitioned_folders_supply_the_partition_column() {
     let dir = tempfile::tempdir().unwrap();
-    write(dir.path(), "q/date=2024-01-02/part-0.csv", "entity,currency,tenor,par_spread_bp\nA,USD,5Y,100\nA,USD,1Y,60\n");
+    write(
+        dir.path(),
+        "q/date=2024-01-02/part-0.csv",
+        "entity,currency,tenor,par_spread_bp\nA,USD,5Y,100\nA,USD,1Y,60\n",
+    );
     write(dir.path(), "q/date=2024-01-03/part-0.csv", "entity,currency,tenor,par_spread_bp\nA,USD,5Y,101\n");
     let paths = InputPaths { cds_quotes: Some(dir.path().join("q")), ..Default::default() };
     let ds = load(&paths, &Calendar::weekends_only(), &QualitySettings::default()).unwrap();

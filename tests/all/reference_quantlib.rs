@@ -48,15 +48,30 @@ fn cases() -> Vec<Case> {
         .iter()
         .map(|c| {
             let trade = d(s(&c["trade_date"]));
-            let pillars: Vec<(Tenor, f64)> = c["discount"].as_array().unwrap().iter().map(|p| (tenor(s(&p["tenor"])), num(&p["zero_rate"]))).collect();
+            let pillars: Vec<(Tenor, f64)> = c["discount"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .map(|p| (tenor(s(&p["tenor"])), num(&p["zero_rate"])))
+                .collect();
             let recovery = num(&c["recovery"]);
             let quotes = c["quotes"]
                 .as_array()
                 .unwrap()
                 .iter()
-                .map(|q| BootstrapQuote { tenor: tenor(s(&q["tenor"])), quote: CdsQuote::ParSpread(num(&q["par_spread_bp"]) / 1e4), recovery })
+                .map(|q| BootstrapQuote {
+                    tenor: tenor(s(&q["tenor"])),
+                    quote: CdsQuote::ParSpread(num(&q["par_spread_bp"]) / 1e4),
+                    recovery,
+                })
                 .collect();
-            Case { id: s(&c["id"]).to_string(), trade, discount: DiscountCurve::from_zero_rates(trade, &pillars).unwrap(), quotes, json: c.clone() }
+            Case {
+                id: s(&c["id"]).to_string(),
+                trade,
+                discount: DiscountCurve::from_zero_rates(trade, &pillars).unwrap(),
+                quotes,
+                json: c.clone(),
+            }
         })
         .collect()
 }
@@ -151,8 +166,18 @@ fn legs_and_upfronts_match_quantlib() {
                 assert!((a - b).abs() <= tol, "{} {t} {what}: {a} vs QuantLib {b} (diff {:e})", c.id, (a - b).abs());
             };
             close(legs.protection, num(&e["protection_leg"]), 1e-12, "protection leg");
-            close(legs.premium01 + legs.accrual_on_default01, num(&e["premium_leg_per_unit_coupon"]), 1e-11, "premium + accrual on default per unit coupon");
-            close(legs.rebate01 * legs.cash_settle_df, num(&e["accrual_rebate_per_unit_coupon"]), 1e-15, "accrual rebate");
+            close(
+                legs.premium01 + legs.accrual_on_default01,
+                num(&e["premium_leg_per_unit_coupon"]),
+                1e-11,
+                "premium + accrual on default per unit coupon",
+            );
+            close(
+                legs.rebate01 * legs.cash_settle_df,
+                num(&e["accrual_rebate_per_unit_coupon"]),
+                1e-15,
+                "accrual rebate",
+            );
             close(legs.upfront(0.01), num(&e["upfront_100bp"]), 1e-12, "upfront at 100 bp");
             close(legs.upfront(0.05), num(&e["upfront_500bp"]), 1e-12, "upfront at 500 bp");
             close(legs.par_spread() * 1e4, num(&e["par_spread_bp_repriced"]), 1e-7, "par spread (bp)");
@@ -172,7 +197,13 @@ fn every_calibrated_quote_reprices() {
             for r in reprice(&fit, &c.quotes, &c.discount, accrual) {
                 let status = fit.nodes.iter().find(|n| n.quote_index == r.quote_index).unwrap().status;
                 if status == NodeStatus::Ok {
-                    assert!(r.residual_bp.abs() < 1e-6, "{} {} {accrual:?}: residual {} bp", c.id, r.tenor, r.residual_bp);
+                    assert!(
+                        r.residual_bp.abs() < 1e-6,
+                        "{} {} {accrual:?}: residual {} bp",
+                        c.id,
+                        r.tenor,
+                        r.residual_bp
+                    );
                 }
             }
         }

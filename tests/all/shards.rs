@@ -33,13 +33,18 @@ fn single(pipeline: &str, out: &Path) -> std::collections::BTreeMap<String, Vec<
 
 fn sharded(pipeline: &str, out: &Path, n: u32, order: &[u32]) -> std::collections::BTreeMap<String, Vec<u8>> {
     for i in order {
-        hazardline(&["run", pipeline, "--out", out.to_str().unwrap(), "--label", "r", "--shard", &format!("{i}/{n}")]).success();
+        hazardline(&["run", pipeline, "--out", out.to_str().unwrap(), "--label", "r", "--shard", &format!("{i}/{n}")])
+            .success();
     }
     hazardline(&["merge", pipeline, "--out", out.to_str().unwrap(), "--label", "r"]).success();
     files(&out.join("demo/r"), &["run.log"])
 }
 
-fn assert_same(a: &std::collections::BTreeMap<String, Vec<u8>>, b: &std::collections::BTreeMap<String, Vec<u8>>, what: &str) {
+fn assert_same(
+    a: &std::collections::BTreeMap<String, Vec<u8>>,
+    b: &std::collections::BTreeMap<String, Vec<u8>>,
+    what: &str,
+) {
     assert_eq!(a.keys().collect::<Vec<_>>(), b.keys().collect::<Vec<_>>(), "{what}: other files");
     for (k, v) in a {
         assert!(b[k] == *v, "{what}: {k} differs from the single run");
@@ -81,7 +86,11 @@ fn three_shards_merge_into_the_single_runs_bytes() {
 fn pooled_settings_merge_exactly_and_a_changed_pipeline_is_refused() {
     let dir = tempfile::tempdir().unwrap();
     let pipeline = universe(&dir.path().join("data"));
-    edit(&pipeline, "horizons = [1, 3]", "horizons = [1, 3]\ncohorts = \"quarterly\"\nbuckets = \"pd_bands\"\npd_quantiles = 4\nlookback_days = 20");
+    edit(
+        &pipeline,
+        "horizons = [1, 3]",
+        "horizons = [1, 3]\ncohorts = \"quarterly\"\nbuckets = \"pd_bands\"\npd_quantiles = 4\nlookback_days = 20",
+    );
     let one = single(&pipeline, &dir.path().join("single"));
     assert!(String::from_utf8(one["report.md"].clone()).unwrap().contains("pd ["), "the report shows PD bands");
     let two = sharded(&pipeline, &dir.path().join("two"), 2, &[1, 2]);
@@ -112,7 +121,17 @@ fn empty_shards_merge_too() {
     let sh = dir.path().join("nine");
     let mut empty = 0;
     for i in 1..=9 {
-        let o = hazardline(&["run", &pipeline, "--out", sh.to_str().unwrap(), "--label", "r", "--shard", &format!("{i}/9")]).success();
+        let o = hazardline(&[
+            "run",
+            &pipeline,
+            "--out",
+            sh.to_str().unwrap(),
+            "--label",
+            "r",
+            "--shard",
+            &format!("{i}/9"),
+        ])
+        .success();
         empty += usize::from(String::from_utf8(o.get_output().stdout.clone()).unwrap().contains(" 0 entities"));
     }
     assert!(empty >= 3, "{empty} empty shards");
@@ -121,7 +140,8 @@ fn empty_shards_merge_too() {
 }
 
 fn part(pipeline: &str, out: &Path, shard: &str, dates: &str) {
-    hazardline(&["run", pipeline, "--out", out.to_str().unwrap(), "--label", "r", "--shard", shard, "--dates", dates]).success();
+    hazardline(&["run", pipeline, "--out", out.to_str().unwrap(), "--label", "r", "--shard", shard, "--dates", dates])
+        .success();
 }
 
 /// Parts by curve date range, crossed with entity shards: the daily CIR fits chain day to day
@@ -141,7 +161,11 @@ fn date_ranges_merge_into_the_single_runs_bytes() {
     let dates = hazardline::tables::readback::dates(&df, &quotes, "date").unwrap();
     let names = hazardline::tables::readback::strs(&df, &quotes, "entity").unwrap();
     let cohort = chrono::NaiveDate::from_ymd_opt(2015, 10, 1).unwrap();
-    let keep: Vec<bool> = dates.iter().zip(&names).map(|(d, e)| !(*d == Some(cohort) && e.as_ref().is_some_and(|e| e.len() % 2 == 0))).collect();
+    let keep: Vec<bool> = dates
+        .iter()
+        .zip(&names)
+        .map(|(d, e)| !(*d == Some(cohort) && e.as_ref().is_some_and(|e| e.len() % 2 == 0)))
+        .collect();
     let dropped = keep.iter().filter(|k| !**k).count();
     let keep: polars::prelude::BooleanChunked = keep.into_iter().map(Some).collect();
     assert!(dropped > 20, "{dropped} quotes dropped");
@@ -150,11 +174,18 @@ fn date_ranges_merge_into_the_single_runs_bytes() {
 
     let one = single(&pipeline, &dir.path().join("single"));
     let out = dir.path().join("parts");
-    for (shard, dates) in [("2/2", "2016-01-05.."), ("1/2", "..2015-06-30"), ("2/2", "..2016-01-04"), ("1/2", "2015-10-01.."), ("1/2", "2015-07-01..2015-09-30")] {
+    for (shard, dates) in [
+        ("2/2", "2016-01-05.."),
+        ("1/2", "..2015-06-30"),
+        ("2/2", "..2016-01-04"),
+        ("1/2", "2015-10-01.."),
+        ("1/2", "2015-07-01..2015-09-30"),
+    ] {
         part(&pipeline, &out, shard, dates);
     }
     let parts = out.join("demo/r.shards");
-    let m = hazardline::run::part_folder::read_meta(&parts.join("part-0001-of-0002-from-2015-07-01-to-2015-09-30")).unwrap();
+    let m = hazardline::run::part_folder::read_meta(&parts.join("part-0001-of-0002-from-2015-07-01-to-2015-09-30"))
+        .unwrap();
     assert_eq!((m.dates_from.as_deref(), m.dates_to.as_deref()), (Some("2015-07-01"), Some("2015-09-30")));
     assert!(m.curves > 0);
     hazardline(&["merge", &pipeline, "--out", out.to_str().unwrap(), "--label", "r"]).success();
@@ -172,7 +203,9 @@ fn date_ranges_merge_into_the_single_runs_bytes() {
 
 #[test]
 fn a_bad_date_range_is_refused() {
-    for (arg, says) in [("2016-01-01..2015-01-01", "is after"), ("2016-13-01..", "not a date"), ("2016-01-01", "FROM..TO")] {
+    for (arg, says) in
+        [("2016-01-01..2015-01-01", "is after"), ("2016-13-01..", "not a date"), ("2016-01-01", "FROM..TO")]
+    {
         let out = hazardline(&["run", "x.toml", "--dates", arg]).failure();
         let err = String::from_utf8(out.get_output().stderr.clone()).unwrap();
         assert!(err.contains(says), "{arg}: {err}");
@@ -190,7 +223,11 @@ fn large_tables_by_year_are_folders_that_merge_exactly() {
     let one_file = single(&pipeline, &dir.path().join("one-file"));
     edit(&pipeline, "[report]", "[report]\nlarge_tables = \"by_year\"");
     let by_year = single(&pipeline, &dir.path().join("by-year"));
-    let names: Vec<&str> = by_year.keys().filter(|k| k.starts_with("tables/hazard_curves/") || k.starts_with("tables/calibration_residuals/")).map(String::as_str).collect();
+    let names: Vec<&str> = by_year
+        .keys()
+        .filter(|k| k.starts_with("tables/hazard_curves/") || k.starts_with("tables/calibration_residuals/"))
+        .map(String::as_str)
+        .collect();
     assert_eq!(
         names,
         [
@@ -207,14 +244,29 @@ fn large_tables_by_year_are_folders_that_merge_exactly() {
         ]
     );
     let manifest = String::from_utf8(by_year["manifest.json"].clone()).unwrap();
-    assert!(manifest.contains("\"tables/hazard_curves/2-bond-2016.parquet\"") && !manifest.contains("\"tables/hazard_curves.parquet\""), "{manifest}");
+    assert!(
+        manifest.contains("\"tables/hazard_curves/2-bond-2016.parquet\"")
+            && !manifest.contains("\"tables/hazard_curves.parquet\""),
+        "{manifest}"
+    );
     // The same rows in the same order as the one-file table.
     let (a, b) = (dir.path().join("one-file/demo/r/tables"), dir.path().join("by-year/demo/r/tables"));
-    assert_eq!(hazardline::tables::read_from::<hazardline::tables::HazardCurveRow>(&a.join("hazard_curves.parquet")).unwrap(), hazardline::tables::read::<hazardline::tables::HazardCurveRow>(&b).unwrap());
-    assert_eq!(hazardline::tables::read_from::<hazardline::tables::ResidualRow>(&a.join("calibration_residuals.parquet")).unwrap(), hazardline::tables::read::<hazardline::tables::ResidualRow>(&b).unwrap());
+    assert_eq!(
+        hazardline::tables::read_from::<hazardline::tables::HazardCurveRow>(&a.join("hazard_curves.parquet")).unwrap(),
+        hazardline::tables::read::<hazardline::tables::HazardCurveRow>(&b).unwrap()
+    );
+    assert_eq!(
+        hazardline::tables::read_from::<hazardline::tables::ResidualRow>(&a.join("calibration_residuals.parquet"))
+            .unwrap(),
+        hazardline::tables::read::<hazardline::tables::ResidualRow>(&b).unwrap()
+    );
     // Every other file is the one-file run's, the report but for the tables' names.
     for (k, v) in &one_file {
-        if k != "report.md" && k != "manifest.json" && !k.starts_with("tables/hazard_curves") && !k.starts_with("tables/calibration_residuals") {
+        if k != "report.md"
+            && k != "manifest.json"
+            && !k.starts_with("tables/hazard_curves")
+            && !k.starts_with("tables/calibration_residuals")
+        {
             assert!(by_year[k] == *v, "{k} differs");
         }
     }
@@ -231,7 +283,10 @@ fn large_tables_by_year_are_folders_that_merge_exactly() {
     let run_dir = dir.path().join("by-year/demo/r");
     std::fs::remove_file(run_dir.join("report.md")).unwrap();
     hazardline(&["report", run_dir.to_str().unwrap()]).success();
-    assert!(std::fs::read(run_dir.join("report.md")).unwrap() == by_year["report.md"], "the report re-rendered from the folders differs");
+    assert!(
+        std::fs::read(run_dir.join("report.md")).unwrap() == by_year["report.md"],
+        "the report re-rendered from the folders differs"
+    );
 }
 
 #[test]
@@ -259,7 +314,10 @@ fn the_worked_example_script_runs_shards_and_date_ranges() {
         .status()
         .unwrap();
     assert!(status.success());
-    let parts: Vec<String> = std::fs::read_dir(out.join("demo/r.shards")).unwrap().map(|e| e.unwrap().file_name().to_string_lossy().to_string()).collect();
+    let parts: Vec<String> = std::fs::read_dir(out.join("demo/r.shards"))
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().to_string())
+        .collect();
     assert_eq!(parts.len(), 4, "{parts:?}");
     assert_same(&one, &files(&out.join("demo/r"), &["run.log"]), "the script's run");
 }

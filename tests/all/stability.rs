@@ -6,7 +6,8 @@
 
 use chrono::{Datelike, NaiveDate, Weekday};
 use hazardline::stability::{
-    analyse, analyse_series, CalibrationCounts, CusumScope, CusumTarget, MarketMove, MoveThreshold, Observation, PsiEdges, ResidualObservation, StabilitySettings,
+    analyse, analyse_series, CalibrationCounts, CusumScope, CusumTarget, MarketMove, MoveThreshold, Observation,
+    PsiEdges, ResidualObservation, StabilitySettings,
 };
 
 /// splitmix64 (Steele, Lea and Flood 2014, OOPSLA) for reproducible test data.
@@ -39,7 +40,11 @@ fn d(y: i32, m: u32, day: u32) -> NaiveDate {
 
 /// Weekdays from `start` to `end` inclusive.
 fn business_days(start: NaiveDate, end: NaiveDate) -> Vec<NaiveDate> {
-    start.iter_days().take_while(|x| *x <= end).filter(|x| !matches!(x.weekday(), Weekday::Sat | Weekday::Sun)).collect()
+    start
+        .iter_days()
+        .take_while(|x| *x <= end)
+        .filter(|x| !matches!(x.weekday(), Weekday::Sat | Weekday::Sun))
+        .collect()
 }
 
 fn obs(series: &str, entity: &str, grade: u32, date: NaiveDate, value: f64) -> Observation {
@@ -47,7 +52,14 @@ fn obs(series: &str, entity: &str, grade: u32, date: NaiveDate, value: f64) -> O
 }
 
 /// A stable series: level * (1 + rel_sd * N(0, 1)) each day, iid.
-fn noisy(rng: &mut SplitMix, days: &[NaiveDate], level: f64, rel_sd: f64, series: &str, entity: &str) -> Vec<Observation> {
+fn noisy(
+    rng: &mut SplitMix,
+    days: &[NaiveDate],
+    level: f64,
+    rel_sd: f64,
+    series: &str,
+    entity: &str,
+) -> Vec<Observation> {
     days.iter().map(|&t| obs(series, entity, 3, t, level * (1.0 + rel_sd * rng.normal()))).collect()
 }
 
@@ -74,7 +86,8 @@ fn shifted_panel(shift: NaiveDate) -> Vec<Observation> {
 
 /// (delays in business days from the shift to the first crossing, sorted; crossings before the shift).
 fn crossing_delays(out: &[hazardline::stability::BreakRow], shift: NaiveDate) -> (Vec<usize>, usize) {
-    let mut delays: Vec<usize> = out.iter().filter_map(|b| b.crossed_at).filter(|t| *t >= shift).map(|t| business_delay(shift, t)).collect();
+    let mut delays: Vec<usize> =
+        out.iter().filter_map(|b| b.crossed_at).filter(|t| *t >= shift).map(|t| business_delay(shift, t)).collect();
     delays.sort_unstable();
     (delays, out.iter().filter(|b| b.crossed_at.is_some_and(|t| t < shift)).count())
 }
@@ -129,7 +142,13 @@ fn stability_cusum_false_alarm_rate_near_nominal() {
     let year = business_days(d(2024, 1, 2), d(2024, 12, 31));
     let (rq, nq) = false_alarm_rate(&quarter, CusumScope::Period, 7, 500);
     let (ry, ny) = false_alarm_rate(&year, CusumScope::History, 11, 500);
-    println!("false-alarm rate, no break: quarter windows (T = {}) {:.1}% of {nq}; one-year windows (T = {}) {:.1}% of {ny}", quarter.len(), rq * 100.0, year.len(), ry * 100.0);
+    println!(
+        "false-alarm rate, no break: quarter windows (T = {}) {:.1}% of {nq}; one-year windows (T = {}) {:.1}% of {ny}",
+        quarter.len(),
+        rq * 100.0,
+        year.len(),
+        ry * 100.0
+    );
     // Binomial sd of a 5% rate over 500 series is about 1%; the band allows the known
     // conservatism of the boundary and three sd either way.
     for r in [rq, ry] {
@@ -158,7 +177,8 @@ fn psi_panel() -> Vec<Observation> {
 
 #[test]
 fn stability_psi_through_the_panel() {
-    let settings = StabilitySettings { psi_edges: PsiEdges::Given(vec![0.01, 0.02, 0.05]), ..StabilitySettings::default() };
+    let settings =
+        StabilitySettings { psi_edges: PsiEdges::Given(vec![0.01, 0.02, 0.05]), ..StabilitySettings::default() };
     let out = analyse(&psi_panel(), &[], &[], &[], &settings).unwrap();
     let row = out.series.psi.iter().find(|r| r.period == "2024Q2").expect("a PSI row for 2024Q2");
     assert_eq!((row.previous_period.as_str(), row.n_previous, row.n_current), ("2024Q1", 10, 10));
@@ -190,7 +210,10 @@ fn breach_panel() -> (Vec<Observation>, Vec<MarketMove>, Vec<CalibrationCounts>,
     for t in &q1 {
         obs_all.push(obs("hazard_5y", "Stepper", 5, *t, 0.01 * (1.0 + 0.02 * rng.normal())));
     }
-    let market: Vec<MarketMove> = both.iter().map(|t| MarketMove { entity: "Wobble".into(), date: *t, mean_abs_change_bp: 0.1, mean_level_bp: 150.0 }).collect();
+    let market: Vec<MarketMove> = both
+        .iter()
+        .map(|t| MarketMove { entity: "Wobble".into(), date: *t, mean_abs_change_bp: 0.1, mean_level_bp: 150.0 })
+        .collect();
     let counts = vec![
         CalibrationCounts { entity: "Wobble".into(), date: d(2024, 2, 1), failures: 2, infeasible: 0 },
         CalibrationCounts { entity: "Gapco".into(), date: d(2024, 2, 2), failures: 0, infeasible: 1 },
@@ -212,11 +235,27 @@ fn breach_panel() -> (Vec<Observation>, Vec<MarketMove>, Vec<CalibrationCounts>,
 #[test]
 fn stability_every_flag_points_at_output_rows() {
     let (o, m, c, r) = breach_panel();
-    let settings = StabilitySettings { psi_edges: PsiEdges::Given(vec![0.01, 0.02, 0.05]), move_thresholds: vec![("cir_kappa".into(), MoveThreshold::Relative(0.25))], cusum_series: Vec::new(), ..StabilitySettings::default() };
+    let settings = StabilitySettings {
+        psi_edges: PsiEdges::Given(vec![0.01, 0.02, 0.05]),
+        move_thresholds: vec![("cir_kappa".into(), MoveThreshold::Relative(0.25))],
+        cusum_series: Vec::new(),
+        ..StabilitySettings::default()
+    };
     let out = analyse(&o, &m, &c, &r, &settings).unwrap();
     let rules: std::collections::BTreeSet<&str> = out.flags.iter().map(|f| f.rule.as_str()).collect();
     println!("{} flags; rules: {rules:?}", out.flags.len());
-    for want in ["psi_shift", "cusum_break", "cv_high", "large_moves", "moves_vs_market", "period_change_mean", "period_change_median", "calibration_failures", "calibration_infeasible", "residual_over_tolerance"] {
+    for want in [
+        "psi_shift",
+        "cusum_break",
+        "cv_high",
+        "large_moves",
+        "moves_vs_market",
+        "period_change_mean",
+        "period_change_median",
+        "calibration_failures",
+        "calibration_infeasible",
+        "residual_over_tolerance",
+    ] {
         assert!(rules.contains(want), "no {want} flag in {rules:?}");
     }
     for f in &out.flags {

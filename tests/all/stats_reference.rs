@@ -8,8 +8,8 @@
 
 use hazardline::stats::special::chi_square_upper_tail;
 use hazardline::stats::{
-    binomial_lower_tail, binomial_upper_tail, clopper_pearson, garwood_interval, hosmer_lemeshow, jeffreys_interval, jeffreys_p_value,
-    wilson_interval, BucketForecast,
+    binomial_lower_tail, binomial_upper_tail, clopper_pearson, garwood_interval, hosmer_lemeshow, jeffreys_interval,
+    jeffreys_p_value, wilson_interval, BucketForecast,
 };
 use serde_json::Value;
 
@@ -60,7 +60,14 @@ impl Report {
     fn finish(self, name: &str, at_least: usize) {
         eprintln!("{name}: {} values, worst relative error {:.2e}", self.checked, self.worst);
         assert!(self.checked >= at_least, "{name}: only {} values checked", self.checked);
-        assert!(self.failures.is_empty(), "{name}: {} of {} values off (worst {:.2e}):\n{}", self.failures.len(), self.checked, self.worst, self.failures.join("\n"));
+        assert!(
+            self.failures.is_empty(),
+            "{name}: {} of {} values off (worst {:.2e}):\n{}",
+            self.failures.len(),
+            self.checked,
+            self.worst,
+            self.failures.join("\n")
+        );
     }
 }
 
@@ -105,7 +112,8 @@ fn stats_binomial_tails_match_scipy_and_exact_sums() {
             rep.check(&format!("upper (exact sum) {id}"), up, num(e), REL);
             rep.check(&format!("lower (exact sum) {id}"), lo, num(&c["exact_lower"]), REL);
         }
-        if num(&c["p_upper"]).min(num(&c["p_lower"])) < 1e-70 && num(&c["p_upper"]).min(num(&c["p_lower"])) > UNDERFLOW {
+        if num(&c["p_upper"]).min(num(&c["p_lower"])) < 1e-70 && num(&c["p_upper"]).min(num(&c["p_lower"])) > UNDERFLOW
+        {
             tiny += 1;
         }
     }
@@ -120,7 +128,12 @@ fn stats_jeffreys_p_value_matches_scipy() {
     let mut rep = Report::default();
     for c in r["tails"].as_array().unwrap() {
         let (n, d, p) = (int(&c["n"]), int(&c["d"]), num(&c["p"]));
-        rep.check(&format!("jeffreys p n={n} d={d} p={p}"), jeffreys_p_value(d, n, p).unwrap(), num(&c["p_jeffreys"]), REL);
+        rep.check(
+            &format!("jeffreys p n={n} d={d} p={p}"),
+            jeffreys_p_value(d, n, p).unwrap(),
+            num(&c["p_jeffreys"]),
+            REL,
+        );
     }
     rep.finish("jeffreys p-value", 300);
 }
@@ -131,8 +144,12 @@ fn stats_hosmer_lemeshow_matches_scipy() {
     let r = reference();
     let mut rep = Report::default();
     for c in r["hosmer_lemeshow"].as_array().unwrap() {
-        let buckets: Vec<BucketForecast> =
-            c["buckets"].as_array().unwrap().iter().map(|b| BucketForecast { n: int(&b["n"]), d: int(&b["d"]), p: num(&b["p"]) }).collect();
+        let buckets: Vec<BucketForecast> = c["buckets"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|b| BucketForecast { n: int(&b["n"]), d: int(&b["d"]), p: num(&b["p"]) })
+            .collect();
         let hl = hosmer_lemeshow(&buckets).unwrap();
         let id = c["id"].as_str().unwrap();
         assert_eq!(hl.dof as u64, int(&c["dof"]), "{id}");
@@ -198,7 +215,13 @@ fn stats_exposure_intensity_is_the_likelihood_maximum() {
     for (d, e) in [(3u64, 250.0), (17, 1234.5), (1, 0.75)] {
         let mle = d as f64 / e;
         let ll = |l: f64| d as f64 * l.ln() - l * e;
-        let best = (1..2000).map(|i| mle * (0.5 + i as f64 / 2000.0)).fold((0.0, f64::NEG_INFINITY), |acc, l| if ll(l) > acc.1 { (l, ll(l)) } else { acc });
+        let best = (1..2000).map(|i| mle * (0.5 + i as f64 / 2000.0)).fold((0.0, f64::NEG_INFINITY), |acc, l| {
+            if ll(l) > acc.1 {
+                (l, ll(l))
+            } else {
+                acc
+            }
+        });
         assert!((best.0 - mle).abs() <= mle / 1000.0, "d={d} E={e}: grid maximum at {} not {mle}", best.0);
         assert!(ll(mle) >= ll(mle * 1.001) && ll(mle) >= ll(mle * 0.999));
         // The Garwood interval brackets it.
@@ -214,7 +237,12 @@ fn stats_exposure_intensity_is_the_likelihood_maximum() {
 #[test]
 fn stats_statrs_beta_quantile_is_too_coarse_at_large_n() {
     let r = reference();
-    let c = r["intervals"].as_array().unwrap().iter().find(|c| int(&c["n"]) == 100_000 && int(&c["d"]) == 3 && num(&c["level"]) == 0.95).expect("case");
+    let c = r["intervals"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|c| int(&c["n"]) == 100_000 && int(&c["d"]) == 3 && num(&c["level"]) == 0.95)
+        .expect("case");
     let want = num(&c["clopper_pearson"]["lo"]);
     let statrs_value = statrs::function::beta::inv_beta_reg(3.0, 99_998.0, (1.0 - 0.95) / 2.0);
     assert!(rel_err(statrs_value, want) > 1e-6, "statrs {statrs_value} vs scipy {want}");

@@ -42,7 +42,13 @@ pub fn tenor(text: &str) -> Tenor {
 }
 
 /// Bootstraps par-spread quotes (bp) with one recovery.
-pub fn fit(trade: NaiveDate, discount: &DiscountCurve, quotes: &[(&str, f64)], recovery: f64, settings: &BootstrapSettings) -> (CurveFit, Vec<BootstrapQuote>) {
+pub fn fit(
+    trade: NaiveDate,
+    discount: &DiscountCurve,
+    quotes: &[(&str, f64)],
+    recovery: f64,
+    settings: &BootstrapSettings,
+) -> (CurveFit, Vec<BootstrapQuote>) {
     let qs: Vec<BootstrapQuote> = quotes
         .iter()
         .map(|&(t, bp)| BootstrapQuote { tenor: tenor(t), quote: CdsQuote::ParSpread(bp / 1e4), recovery })
@@ -53,9 +59,18 @@ pub fn fit(trade: NaiveDate, discount: &DiscountCurve, quotes: &[(&str, f64)], r
 
 /// A typical upward discount curve on `trade`.
 pub fn usd_like_curve(trade: NaiveDate) -> DiscountCurve {
-    let pillars: Vec<(Tenor, f64)> = [("1M", 0.031), ("3M", 0.0316), ("6M", 0.0322), ("1Y", 0.0331), ("2Y", 0.0342), ("5Y", 0.0364), ("10Y", 0.0383), ("30Y", 0.041)]
-        .iter()
-        .map(|&(t, z)| (tenor(t), z))
-        .collect();
+    let pillars: Vec<(Tenor, f64)> = [
+        ("1M", 0.031),
+        ("3M", 0.0316),
+        ("6M", 0.0322),
+        ("1Y", 0.0331),
+        ("2Y", 0.0342),
+        ("5Y", 0.0364),
+        ("10Y", 0.0383),
+        ("30Y", 0.041),
+    ]
+    .iter()
+    .map(|&(t, z)| (tenor(t), z))
+    .collect();
     DiscountCurve::from_zero_rates(trade, &pillars).unwrap()
 }

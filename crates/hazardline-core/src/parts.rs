@@ -68,13 +68,17 @@ impl DateRange {
 
     /// Parses `FROM..TO` (ISO dates, either side may be left empty, FROM <= TO).
     pub fn parse(s: &str) -> std::result::Result<DateRange, String> {
-        let (a, b) = s.split_once("..").ok_or_else(|| format!("dates `{s}`: expected FROM..TO, e.g. 2015-01-01..2016-12-31 (either end may be left out)"))?;
+        let (a, b) = s.split_once("..").ok_or_else(|| {
+            format!("dates `{s}`: expected FROM..TO, e.g. 2015-01-01..2016-12-31 (either end may be left out)")
+        })?;
         let date = |x: &str| -> std::result::Result<Option<NaiveDate>, String> {
             let x = x.trim();
             if x.is_empty() {
                 return Ok(None);
             }
-            NaiveDate::parse_from_str(x, "%Y-%m-%d").map(Some).map_err(|_| format!("dates `{s}`: `{x}` is not a date (YYYY-MM-DD)"))
+            NaiveDate::parse_from_str(x, "%Y-%m-%d")
+                .map(Some)
+                .map_err(|_| format!("dates `{s}`: `{x}` is not a date (YYYY-MM-DD)"))
         };
         let r = DateRange { from: date(a)?, to: date(b)? };
         if let (Some(f), Some(t)) = (r.from, r.to) {
@@ -168,7 +172,12 @@ mod tests {
         let d = |s: &str| NaiveDate::parse_from_str(s, "%Y-%m-%d").unwrap();
         let r = DateRange::parse("2015-01-01..2016-12-31").unwrap();
         assert_eq!(r, DateRange { from: Some(d("2015-01-01")), to: Some(d("2016-12-31")) });
-        assert!(r.contains(d("2015-01-01")) && r.contains(d("2016-12-31")) && !r.contains(d("2017-01-01")) && !r.contains(d("2014-12-31")));
+        assert!(
+            r.contains(d("2015-01-01"))
+                && r.contains(d("2016-12-31"))
+                && !r.contains(d("2017-01-01"))
+                && !r.contains(d("2014-12-31"))
+        );
         assert_eq!(r.folder_suffix(), "-from-2015-01-01-to-2016-12-31");
         let open = DateRange::parse("..2016-12-31").unwrap();
         assert_eq!((open.from, open.to.is_some()), (None, true));
@@ -191,7 +200,9 @@ mod tests {
             }
         }
         // Spread: 4 shards of 2,000 names each get between 400 and 600.
-        let counts: Vec<usize> = (1..=4).map(|i| (0..2000).filter(|k| Shard { index: i, count: 4 }.owns(&format!("N{k:05}"))).count()).collect();
+        let counts: Vec<usize> = (1..=4)
+            .map(|i| (0..2000).filter(|k| Shard { index: i, count: 4 }.owns(&format!("N{k:05}"))).count())
+            .collect();
         assert!(counts.iter().all(|&c| (400..=600).contains(&c)), "{counts:?}");
     }
 

@@ -98,10 +98,19 @@ fn counts(members: &[&Observation], policy: CensoringPolicy) -> (u64, u64, u64, 
 
 /// One `backtest_buckets` row per (cohort, horizon, bucket).
 pub fn bucket_rows(obs: &[Observation], settings: &BacktestSettings) -> Result<Vec<BucketRow>, BacktestError> {
-    groups(obs).into_iter().map(|((cohort, h, _, bucket), members)| bucket_row(cohort, h, bucket, &members, settings)).collect()
+    groups(obs)
+        .into_iter()
+        .map(|((cohort, h, _, bucket), members)| bucket_row(cohort, h, bucket, &members, settings))
+        .collect()
 }
 
-fn bucket_row(cohort: String, horizon_years: u32, bucket: String, members: &[&Observation], s: &BacktestSettings) -> Result<BucketRow, BacktestError> {
+fn bucket_row(
+    cohort: String,
+    horizon_years: u32,
+    bucket: String,
+    members: &[&Observation],
+    s: &BacktestSettings,
+) -> Result<BucketRow, BacktestError> {
     let (n, d, n_censored, implied_pd) = counts(members, s.censoring);
     let mut row = BucketRow {
         cohort,
@@ -158,8 +167,22 @@ pub fn hosmer_lemeshow_rows(obs: &[Observation], settings: &BacktestSettings) ->
         .map(|((cohort, horizon_years), buckets)| {
             let k = buckets.len();
             match stats::hosmer_lemeshow(&buckets) {
-                Ok(hl) => HosmerLemeshowRow { cohort, horizon_years, buckets: k, statistic: Some(hl.statistic), p_value: Some(hl.p_value), note: None },
-                Err(e) => HosmerLemeshowRow { cohort, horizon_years, buckets: k, statistic: None, p_value: None, note: Some(e.to_string()) },
+                Ok(hl) => HosmerLemeshowRow {
+                    cohort,
+                    horizon_years,
+                    buckets: k,
+                    statistic: Some(hl.statistic),
+                    p_value: Some(hl.p_value),
+                    note: None,
+                },
+                Err(e) => HosmerLemeshowRow {
+                    cohort,
+                    horizon_years,
+                    buckets: k,
+                    statistic: None,
+                    p_value: None,
+                    note: Some(e.to_string()),
+                },
             }
         })
         .collect()

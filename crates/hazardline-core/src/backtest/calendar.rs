@@ -63,4 +63,3 @@ impl GradeBook {
         self.by_entity.is_empty()
     }
 }
-

@@ -20,7 +20,11 @@ pub enum Bucket {
     Grade(u32),
     Ungraded,
     /// Implied-PD band [lo, hi) (the last band includes 1).
-    PdBand { index: usize, lo: f64, hi: f64 },
+    PdBand {
+        index: usize,
+        lo: f64,
+        hi: f64,
+    },
 }
 
 impl Bucket {
@@ -66,7 +70,11 @@ impl Observation {
 
 /// Builds every observation of every cohort date and horizon, bucketed per the settings.
 /// Settings are assumed checked ([`BacktestSettings::check`]).
-pub fn build_observations(facts: &[EntityFacts], curves: &CurveSet, settings: &BacktestSettings) -> Result<Vec<Observation>, BacktestError> {
+pub fn build_observations(
+    facts: &[EntityFacts],
+    curves: &CurveSet,
+    settings: &BacktestSettings,
+) -> Result<Vec<Observation>, BacktestError> {
     let mut obs = member_observations(facts, curves, settings)?;
     bucket_observations(&mut obs, settings);
     Ok(obs)
@@ -77,7 +85,11 @@ pub fn build_observations(facts: &[EntityFacts], curves: &CurveSet, settings: &B
 /// one entity alone, so the members of disjoint entity sets can be built apart and
 /// concatenated; [`bucket_observations`] then assigns buckets over the whole set (PD quantile
 /// bands pool every member).
-pub fn member_observations(facts: &[EntityFacts], curves: &CurveSet, settings: &BacktestSettings) -> Result<Vec<Observation>, BacktestError> {
+pub fn member_observations(
+    facts: &[EntityFacts],
+    curves: &CurveSet,
+    settings: &BacktestSettings,
+) -> Result<Vec<Observation>, BacktestError> {
     let mut obs = Vec::new();
     for &t in &settings.cohort_dates {
         for f in facts {
@@ -113,7 +125,11 @@ pub fn member_observations(facts: &[EntityFacts], curves: &CurveSet, settings: &
 /// shortest horizon of the same (cohort, entity).
 pub fn bucket_observations(obs: &mut [Observation], settings: &BacktestSettings) {
     let shortest = *settings.horizons_years.iter().min().unwrap_or(&1);
-    let band_pd: Vec<((NaiveDate, String), f64)> = obs.iter().filter(|o| o.horizon_years == shortest).map(|o| ((o.cohort, o.entity.clone()), o.implied_pd)).collect();
+    let band_pd: Vec<((NaiveDate, String), f64)> = obs
+        .iter()
+        .filter(|o| o.horizon_years == shortest)
+        .map(|o| ((o.cohort, o.entity.clone()), o.implied_pd))
+        .collect();
     assign_buckets(obs, &band_pd, &settings.bucketing);
 }
 
@@ -152,7 +168,8 @@ fn assign_buckets(obs: &mut [Observation], band_pd: &[((NaiveDate, String), f64)
         Bucketing::PdEdges(e) => e.clone(),
         Bucketing::PdQuantiles(k) => quantile_edges(band_pd.iter().map(|(_, p)| *p).collect(), *k),
     };
-    let lookup: std::collections::HashMap<(NaiveDate, &str), f64> = band_pd.iter().map(|((t, e), p)| ((*t, e.as_str()), *p)).collect();
+    let lookup: std::collections::HashMap<(NaiveDate, &str), f64> =
+        band_pd.iter().map(|((t, e), p)| ((*t, e.as_str()), *p)).collect();
     for o in obs.iter_mut() {
         let p = lookup.get(&(o.cohort, o.entity.as_str())).copied().unwrap_or(o.implied_pd);
         o.bucket = pd_band(p, &edges);

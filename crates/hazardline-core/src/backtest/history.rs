@@ -46,11 +46,20 @@ pub struct HistoryRow {
 
 /// Compares `records` with the 1-year grade rows of an entity backtest (`bucket_rows` output).
 /// A record with obligors = 0 or defaults > obligors is an error naming its index in `records`.
-pub fn compare_cohort_history(records: &[CohortHistoryRecord], entity_rows: &[BucketRow], level: f64, zones: &ZoneThresholds) -> Result<Vec<HistoryRow>, stats::StatsError> {
-    let implied: BTreeMap<(String, String), f64> =
-        entity_rows.iter().filter(|r| r.horizon_years == 1).filter_map(|r| r.implied_pd.map(|p| ((r.cohort.clone(), r.bucket.clone()), p))).collect();
+pub fn compare_cohort_history(
+    records: &[CohortHistoryRecord],
+    entity_rows: &[BucketRow],
+    level: f64,
+    zones: &ZoneThresholds,
+) -> Result<Vec<HistoryRow>, stats::StatsError> {
+    let implied: BTreeMap<(String, String), f64> = entity_rows
+        .iter()
+        .filter(|r| r.horizon_years == 1)
+        .filter_map(|r| r.implied_pd.map(|p| ((r.cohort.clone(), r.bucket.clone()), p)))
+        .collect();
     for (index, r) in records.iter().enumerate() {
-        stats::clopper_pearson(r.defaults, r.obligors, level).map_err(|e| stats::StatsError::Bucket { index, source: Box::new(e) })?;
+        stats::clopper_pearson(r.defaults, r.obligors, level)
+            .map_err(|e| stats::StatsError::Bucket { index, source: Box::new(e) })?;
     }
     let mut pooled: BTreeMap<(String, u32), (u64, u64, Option<u64>)> = BTreeMap::new();
     for r in records {

@@ -29,8 +29,8 @@ pub mod cohort;
 pub mod history;
 pub mod premia;
 
-pub use calendar::{cohort_dates, CohortFrequency, GradeBook};
 pub use buckets::{bucket_rows, hosmer_lemeshow_rows, BucketRow, HosmerLemeshowRow};
+pub use calendar::{cohort_dates, CohortFrequency, GradeBook};
 pub use cohort::{bucket_observations, build_observations, member_observations, Bucket, Observation, Outcome};
 pub use history::{compare_cohort_history, CohortHistoryRecord, HistoryRow};
 pub use premia::{risk_premium_rows, RiskPremiumRow};
@@ -85,7 +85,10 @@ pub struct CurveSet {
 impl CurveSet {
     /// Builds the set from curves keyed by (date, entity), the way the calibration stage emits
     /// them; spreads may be empty. A later duplicate (date, entity) replaces an earlier one.
-    pub fn from_keyed(recovery: f64, items: impl IntoIterator<Item = ((NaiveDate, String), HazardCurve, Vec<QuotedSpread>)>) -> CurveSet {
+    pub fn from_keyed(
+        recovery: f64,
+        items: impl IntoIterator<Item = ((NaiveDate, String), HazardCurve, Vec<QuotedSpread>)>,
+    ) -> CurveSet {
         let mut by_entity: BTreeMap<String, BTreeMap<NaiveDate, DatedCurve>> = BTreeMap::new();
         for ((date, entity), curve, spreads) in items {
             by_entity.entry(entity).or_default().insert(date, DatedCurve { date, curve, spreads });
@@ -156,7 +159,9 @@ impl BacktestSettings {
         }
         ZoneThresholds::new(self.zones.yellow, self.zones.red)?;
         match &self.bucketing {
-            Bucketing::PdEdges(e) if e.is_empty() || e.windows(2).any(|w| w[0] >= w[1]) || e.iter().any(|x| !(0.0..=1.0).contains(x)) => {
+            Bucketing::PdEdges(e)
+                if e.is_empty() || e.windows(2).any(|w| w[0] >= w[1]) || e.iter().any(|x| !(0.0..=1.0).contains(x)) =>
+            {
                 Err(BacktestError::BadBandEdges(e.clone()))
             }
             Bucketing::PdQuantiles(k) if *k < 2 => Err(BacktestError::BadQuantileCount(*k)),
@@ -196,7 +201,11 @@ pub struct BacktestOutput {
 }
 
 /// Runs the backtest for one curve set: cohorts, bucket tests, Hosmer-Lemeshow, risk premia.
-pub fn run_backtest(facts: &[EntityFacts], curves: &CurveSet, settings: &BacktestSettings) -> Result<BacktestOutput, BacktestError> {
+pub fn run_backtest(
+    facts: &[EntityFacts],
+    curves: &CurveSet,
+    settings: &BacktestSettings,
+) -> Result<BacktestOutput, BacktestError> {
     settings.check()?;
     if !(curves.recovery >= 0.0 && curves.recovery < 1.0) {
         return Err(BacktestError::BadRecovery(curves.recovery));
@@ -208,7 +217,11 @@ pub fn run_backtest(facts: &[EntityFacts], curves: &CurveSet, settings: &Backtes
 /// The tests and premia of one curve set from its members ([`member_observations`], possibly
 /// concatenated over disjoint entity sets in the same order): buckets, bucket tests,
 /// Hosmer-Lemeshow, risk premia.
-pub fn backtest_members(mut obs: Vec<Observation>, settings: &BacktestSettings, recovery: f64) -> Result<BacktestOutput, BacktestError> {
+pub fn backtest_members(
+    mut obs: Vec<Observation>,
+    settings: &BacktestSettings,
+    recovery: f64,
+) -> Result<BacktestOutput, BacktestError> {
     settings.check()?;
     if !(recovery >= 0.0 && recovery < 1.0) {
         return Err(BacktestError::BadRecovery(recovery));
@@ -222,7 +235,11 @@ pub fn backtest_members(mut obs: Vec<Observation>, settings: &BacktestSettings, 
 
 /// Runs [`run_backtest`] once per recovery scenario (each a curve set with its recovery), so
 /// PDs, ratios and the spread decomposition can be compared across recoveries.
-pub fn run_recovery_scenarios(facts: &[EntityFacts], scenarios: &[CurveSet], settings: &BacktestSettings) -> Result<Vec<BacktestOutput>, BacktestError> {
+pub fn run_recovery_scenarios(
+    facts: &[EntityFacts],
+    scenarios: &[CurveSet],
+    settings: &BacktestSettings,
+) -> Result<Vec<BacktestOutput>, BacktestError> {
     scenarios.iter().map(|s| run_backtest(facts, s, settings)).collect()
 }
 
@@ -250,7 +267,13 @@ mod tests {
     fn curves(recovery: f64, items: &[(&str, &str, f64)]) -> CurveSet {
         CurveSet::from_keyed(
             recovery,
-            items.iter().map(|&(e, date, l)| ((d(date), e.to_string()), HazardCurve::flat(d(date), l), vec![QuotedSpread { tenor_months: 12, spread_bp: l * (1.0 - recovery) * 1e4 }])),
+            items.iter().map(|&(e, date, l)| {
+                (
+                    (d(date), e.to_string()),
+                    HazardCurve::flat(d(date), l),
+                    vec![QuotedSpread { tenor_months: 12, spread_bp: l * (1.0 - recovery) * 1e4 }],
+                )
+            }),
         )
     }
 
@@ -280,12 +303,25 @@ mod tests {
             facts("f", None, None, "2030-01-01"),
             facts("g", None, None, "2030-01-01"),
         ];
-        let c = curves(0.4, &[("a", T, 0.02), ("b", T, 0.02), ("c", T, 0.02), ("dd", T, 0.02), ("e", "2020-12-25", 0.02), ("f", "2020-12-24", 0.02), ("g", "2021-01-05", 0.02)]);
+        let c = curves(
+            0.4,
+            &[
+                ("a", T, 0.02),
+                ("b", T, 0.02),
+                ("c", T, 0.02),
+                ("dd", T, 0.02),
+                ("e", "2020-12-25", 0.02),
+                ("f", "2020-12-24", 0.02),
+                ("g", "2021-01-05", 0.02),
+            ],
+        );
         (f, c)
     }
 
     fn row<'a>(rows: &'a [BucketRow], cohort: &str, bucket: &str) -> &'a BucketRow {
-        rows.iter().find(|r| r.cohort == cohort && r.bucket == bucket).unwrap_or_else(|| panic!("no row {cohort} {bucket}"))
+        rows.iter()
+            .find(|r| r.cohort == cohort && r.bucket == bucket)
+            .unwrap_or_else(|| panic!("no row {cohort} {bucket}"))
     }
 
     #[test]
@@ -364,14 +400,22 @@ mod tests {
 
     #[test]
     fn pd_band_and_quantile_buckets() {
-        let f = vec![facts("x", None, None, "2030-01-01"), facts("y", None, None, "2030-01-01"), facts("z", None, None, "2030-01-01")];
+        let f = vec![
+            facts("x", None, None, "2030-01-01"),
+            facts("y", None, None, "2030-01-01"),
+            facts("z", None, None, "2030-01-01"),
+        ];
         let c = curves(0.4, &[("x", T, 0.01), ("y", T, 0.02), ("z", T, 0.05)]);
-        let obs = build_observations(&f, &c, &settings(Bucketing::PdEdges(vec![0.015, 0.03]), CensoringPolicy::Exclude)).unwrap();
-        let idx: Vec<usize> = obs.iter().map(|o| if let Bucket::PdBand { index, .. } = o.bucket { index } else { 99 }).collect();
+        let obs =
+            build_observations(&f, &c, &settings(Bucketing::PdEdges(vec![0.015, 0.03]), CensoringPolicy::Exclude))
+                .unwrap();
+        let idx: Vec<usize> =
+            obs.iter().map(|o| if let Bucket::PdBand { index, .. } = o.bucket { index } else { 99 }).collect();
         assert_eq!(idx, [0, 1, 2]);
         assert_eq!(obs[1].bucket.label(), "pd [0.015, 0.03)");
         let obs = build_observations(&f, &c, &settings(Bucketing::PdQuantiles(3), CensoringPolicy::Exclude)).unwrap();
-        let idx: Vec<usize> = obs.iter().map(|o| if let Bucket::PdBand { index, .. } = o.bucket { index } else { 99 }).collect();
+        let idx: Vec<usize> =
+            obs.iter().map(|o| if let Bucket::PdBand { index, .. } = o.bucket { index } else { 99 }).collect();
         assert_eq!(idx, [0, 1, 2], "three distinct PDs, three quantile bands");
         // An edge exactly at a PD puts it in the upper band.
         let p = obs[1].implied_pd;
@@ -395,10 +439,13 @@ mod tests {
     fn recovery_scenarios_tag_their_rows() {
         let (f, base) = universe();
         let low = curves(0.25, &[("a", T, 0.016), ("b", T, 0.016), ("dd", T, 0.016), ("e", "2020-12-25", 0.016)]);
-        let out = run_recovery_scenarios(&f, &[low, base], &settings(Bucketing::Grades, CensoringPolicy::Exclude)).unwrap();
+        let out =
+            run_recovery_scenarios(&f, &[low, base], &settings(Bucketing::Grades, CensoringPolicy::Exclude)).unwrap();
         assert_eq!(out.len(), 2);
         assert!(out[0].risk_premia.iter().all(|r| r.recovery == 0.25));
-        let g1 = |o: &BacktestOutput| o.risk_premia.iter().find(|r| r.cohort == "all" && r.bucket == "grade 1").unwrap().clone();
+        let g1 = |o: &BacktestOutput| {
+            o.risk_premia.iter().find(|r| r.cohort == "all" && r.bucket == "grade 1").unwrap().clone()
+        };
         assert!((g1(&out[0]).lambda_q.unwrap() - 0.016).abs() < 1e-15);
         assert!((g1(&out[0]).el_spread_bp.unwrap() - 0.5 * 0.75 * 1e4).abs() < 1e-9);
         assert!(run_backtest(&f, &curves(1.0, &[]), &settings(Bucketing::Grades, CensoringPolicy::Exclude)).is_err());

@@ -43,11 +43,25 @@ pub struct RiskPremiumRow {
 }
 
 /// One `risk_premia` row per (cohort year and "all", horizon, bucket).
-pub fn risk_premium_rows(obs: &[Observation], settings: &BacktestSettings, recovery: f64) -> Result<Vec<RiskPremiumRow>, BacktestError> {
-    groups_for_premia(obs).into_iter().map(|((cohort, h, _, bucket), members)| premium_row(cohort, bucket, h, &members, settings.level, recovery)).collect()
+pub fn risk_premium_rows(
+    obs: &[Observation],
+    settings: &BacktestSettings,
+    recovery: f64,
+) -> Result<Vec<RiskPremiumRow>, BacktestError> {
+    groups_for_premia(obs)
+        .into_iter()
+        .map(|((cohort, h, _, bucket), members)| premium_row(cohort, bucket, h, &members, settings.level, recovery))
+        .collect()
 }
 
-fn premium_row(cohort: String, bucket: String, horizon_years: u32, members: &[&Observation], level: f64, recovery: f64) -> Result<RiskPremiumRow, BacktestError> {
+fn premium_row(
+    cohort: String,
+    bucket: String,
+    horizon_years: u32,
+    members: &[&Observation],
+    level: f64,
+    recovery: f64,
+) -> Result<RiskPremiumRow, BacktestError> {
     let exposure: f64 = members.iter().map(|o| o.exposure_years).sum();
     let defaults = members.iter().filter(|o| o.outcome == Outcome::Defaulted).count() as u64;
     let spreads: Vec<f64> = members.iter().filter_map(|o| o.spread_bp).collect();

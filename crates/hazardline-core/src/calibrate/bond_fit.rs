@@ -26,10 +26,10 @@
 //! Must not: read files or log; a bond that cannot be priced on the date is skipped and listed,
 //! not fatal.
 
-use crate::math::least_squares::{levenberg_marquardt, LeastSquares, LmSettings};
 use crate::curves::{year_time, DiscountCurve, HazardCurve};
 use crate::instruments::bond::{BondCashflows, BondError, BondTerms, RecoveryConvention};
 use crate::instruments::cds::{price_legs, AccrualIntegration, CdsContract, ReferenceDateMismatch};
+use crate::math::least_squares::{levenberg_marquardt, LeastSquares, LmSettings};
 use crate::models::cir::uniform_grid;
 use crate::time::Calendar;
 use chrono::NaiveDate;
@@ -72,12 +72,7 @@ impl Default for BondFitSettings {
             parametric_tau: 3.0,
             parametric_grid_step: 1.0 / 12.0,
             max_hazard: 5.0,
-            lm: LmSettings {
-                max_iterations: 200,
-                f_tol: 1e-14,
-                x_tol: 1e-13,
-                cost_floor: 1e-26,
-            },
+            lm: LmSettings { max_iterations: 200, f_tol: 1e-14, x_tol: 1e-13, cost_floor: 1e-26 },
         }
     }
 }
@@ -163,10 +158,7 @@ pub enum BondFitError {
     #[error("no bond can be priced on {trade} ({skipped} skipped)")]
     NoBonds { trade: NaiveDate, skipped: usize },
     #[error("discount curve is referenced on {discount}, not on the trade date {trade}")]
-    ReferenceDate {
-        trade: NaiveDate,
-        discount: NaiveDate,
-    },
+    ReferenceDate { trade: NaiveDate, discount: NaiveDate },
     #[error("recovery {recovery} is not a fraction in [0, 1)")]
     Recovery { recovery: f64 },
 }
@@ -194,12 +186,8 @@ struct Problem<'a> {
 impl Problem<'_> {
     fn curve(&self, x: &[f64]) -> HazardCurve {
         match self.form {
-            BondCurveForm::Flat => {
-                HazardCurve::new(self.trade, vec![self.node_times[0]], vec![x[0]])
-            }
-            BondCurveForm::PiecewiseFlat => {
-                HazardCurve::new(self.trade, self.node_times.to_vec(), x.to_vec())
-            }
+            BondCurveForm::Flat => HazardCurve::new(self.trade, vec![self.node_times[0]], vec![x[0]]),
+            BondCurveForm::PiecewiseFlat => HazardCurve::new(self.trade, self.node_times.to_vec(), x.to_vec()),
             BondCurveForm::TwoParameter => {
                 let (s, l, tau) = (x[0], x[1], self.settings.parametric_tau);
                 let big = |t: f64| l * t + (s - l) * tau * (-(-t / tau).exp_m1());
@@ -220,12 +208,7 @@ impl Problem<'_> {
     fn residuals(&self, x: &[f64], r: &mut [f64]) -> bool {
         let curve = self.curve(x);
         for (k, b) in self.bonds.iter().enumerate() {
-            let p = b.cf.price_unchecked(
-                self.discount,
-                &curve,
-                self.settings.recovery,
-                self.settings.convention,
-            );
+            let p = b.cf.price_unchecked(self.discount, &curve, self.settings.recovery, self.settings.convention);
             r[k] = (p.clean - b.clean) * b.weight;
             if !r[k].is_finite() {
                 return false;
@@ -257,11 +240,7 @@ impl LeastSquares for Problem<'_> {
             for i in 0..n {
                 // Forward step, backward at the upper bound.
                 let h = 1e-7 * (1.0 + x[i].abs());
-                let h = if x[i] + h > self.settings.max_hazard {
-                    -h
-                } else {
-                    h
-                };
+                let h = if x[i] + h > self.settings.max_hazard { -h } else { h };
                 xp[i] = x[i] + h;
                 let ok = self.residuals(&xp, &mut tmp);
                 xp[i] = x[i];
@@ -287,30 +266,17 @@ pub fn fit_bond_hazard(
     settings: &BondFitSettings,
 ) -> Result<BondFit, BondFitError> {
     if discount.reference() != trade {
-        return Err(BondFitError::ReferenceDate {
-            trade,
-            discount: discount.reference(),
-        });
+        return Err(BondFitError::ReferenceDate { trade, discount: discount.reference() });
     }
     if !(settings.recovery.is_finite() && (0.0..1.0).contains(&settings.recovery)) {
-        return Err(BondFitError::Recovery {
-            recovery: settings.recovery,
-        });
+        return Err(BondFitError::Recovery { recovery: settings.recovery });
     }
     let mut skipped = Vec::new();
     let mut bonds: Vec<Prepared> = Vec::with_capacity(quotes.len());
-    let use_bid_ask = !quotes.is_empty()
-        && quotes
-            .iter()
-            .all(|q| q.bid_ask.is_some_and(|b| b.is_finite() && b > 0.0));
+    let use_bid_ask = !quotes.is_empty() && quotes.iter().all(|q| q.bid_ask.is_some_and(|b| b.is_finite() && b > 0.0));
     for (i, q) in quotes.iter().enumerate() {
         if !(q.clean_price.is_finite() && q.clean_price > 0.0) {
-            skipped.push((
-                i,
-                BondError::Price {
-                    price: q.clean_price,
-                },
-            ));
+            skipped.push((i, BondError::Price { price: q.clean_price }));
             continue;
         }
         let cf = match q.terms.cashflows(trade) {
@@ -329,35 +295,18 @@ pub fn fit_bond_hazard(
             }
         };
         let duration = cf.modified_duration(market_yield);
-        let weight = if use_bid_ask {
-            1.0 / q.bid_ask.expect("checked")
-        } else {
-            1e4 / (dirty * duration.max(1e-6))
-        };
-        bonds.push(Prepared {
-            index: i,
-            cf,
-            clean: q.clean_price,
-            weight,
-            market_yield,
-            duration,
-        });
+        let weight = if use_bid_ask { 1.0 / q.bid_ask.expect("checked") } else { 1e4 / (dirty * duration.max(1e-6)) };
+        bonds.push(Prepared { index: i, cf, clean: q.clean_price, weight, market_yield, duration });
     }
     if bonds.is_empty() {
-        return Err(BondFitError::NoBonds {
-            trade,
-            skipped: skipped.len(),
-        });
+        return Err(BondFitError::NoBonds { trade, skipped: skipped.len() });
     }
     bonds.sort_by(|a, b| a.cf.t_maturity.total_cmp(&b.cf.t_maturity));
 
     // Group maturities closer than the gap; each group's node is its latest maturity.
     let mut groups: Vec<(f64, NaiveDate)> = Vec::new();
     for b in &bonds {
-        let (t, m) = (
-            b.cf.t_maturity,
-            b.cf.periods.last().expect("not matured").accrual_end,
-        );
+        let (t, m) = (b.cf.t_maturity, b.cf.periods.last().expect("not matured").accrual_end);
         match groups.last_mut() {
             Some(last) if t - last.0 < settings.min_node_gap_years => *last = (t, m),
             Some(last) if t == last.0 => *last = (t, m),
@@ -389,10 +338,7 @@ pub fn fit_bond_hazard(
         RecoveryConvention::Zero => 1.0,
         _ => 1.0 - settings.recovery,
     };
-    let h0 = spreads
-        .get(spreads.len() / 2)
-        .map_or(0.01, |s| (s / lgd).max(1e-4))
-        .min(0.5 * settings.max_hazard);
+    let h0 = spreads.get(spreads.len() / 2).map_or(0.01, |s| (s / lgd).max(1e-4)).min(0.5 * settings.max_hazard);
 
     let n = match form {
         BondCurveForm::Flat => 1,
@@ -404,26 +350,11 @@ pub fn fit_bond_hazard(
     } else {
         Vec::new()
     };
-    let mut problem = Problem {
-        trade,
-        bonds: &bonds,
-        discount,
-        settings,
-        form,
-        node_times: &node_times,
-        grid,
-        r_tmp: Vec::new(),
-    };
+    let mut problem =
+        Problem { trade, bonds: &bonds, discount, settings, form, node_times: &node_times, grid, r_tmp: Vec::new() };
     let lo = vec![0.0; n];
     let hi = vec![settings.max_hazard; n];
-    let out = levenberg_marquardt(
-        &mut problem,
-        &vec![h0; n],
-        &lo,
-        &hi,
-        &vec![0.25; n],
-        &settings.lm,
-    );
+    let out = levenberg_marquardt(&mut problem, &vec![h0; n], &lo, &hi, &vec![0.25; n], &settings.lm);
     let status = if out.failed {
         BondFitStatus::Failed
     } else if out.converged {
@@ -454,21 +385,14 @@ pub fn fit_bond_hazard(
                 BondCurveForm::Flat => out.x[0],
                 BondCurveForm::TwoParameter => out.x[k.min(1)],
             };
-            BondNode {
-                maturity,
-                time: t,
-                hazard,
-                survival: curve.survival_at(t),
-                status: node_status(param),
-            }
+            BondNode { maturity, time: t, hazard, survival: curve.survival_at(t), status: node_status(param) }
         })
         .collect();
 
     let mut residuals: Vec<BondResidual> = bonds
         .iter()
         .map(|b| {
-            let p =
-                b.cf.price_unchecked(discount, &curve, settings.recovery, settings.convention);
+            let p = b.cf.price_unchecked(discount, &curve, settings.recovery, settings.convention);
             let model_yield = b.cf.yield_from_dirty(p.dirty).unwrap_or(f64::NAN);
             BondResidual {
                 quote_index: b.index,
@@ -486,18 +410,8 @@ pub fn fit_bond_hazard(
         .collect();
     residuals.sort_by_key(|r| r.quote_index);
     let m = residuals.len() as f64;
-    let rmse_price = (residuals
-        .iter()
-        .map(|r| r.residual_price * r.residual_price)
-        .sum::<f64>()
-        / m)
-        .sqrt();
-    let rmse_yield_bp = (residuals
-        .iter()
-        .map(|r| r.residual_bp * r.residual_bp)
-        .sum::<f64>()
-        / m)
-        .sqrt();
+    let rmse_price = (residuals.iter().map(|r| r.residual_price * r.residual_price).sum::<f64>() / m).sqrt();
+    let rmse_yield_bp = (residuals.iter().map(|r| r.residual_bp * r.residual_bp).sum::<f64>() / m).sqrt();
     Ok(BondFit {
         trade_date: trade,
         form,
@@ -550,24 +464,9 @@ pub fn cds_bond_basis(
         }
         let t = year_time(trade, maturity);
         let contract = CdsContract::with_maturity(trade, maturity, cal);
-        let bond = price_legs(
-            &contract,
-            recovery,
-            discount,
-            bond_curve,
-            AccrualIntegration::Standard,
-        )?;
-        let cds = price_legs(
-            &contract,
-            recovery,
-            discount,
-            cds_curve,
-            AccrualIntegration::Standard,
-        )?;
-        let (hb, hc) = (
-            bond_curve.integrated_hazard(t) / t,
-            cds_curve.integrated_hazard(t) / t,
-        );
+        let bond = price_legs(&contract, recovery, discount, bond_curve, AccrualIntegration::Standard)?;
+        let cds = price_legs(&contract, recovery, discount, cds_curve, AccrualIntegration::Standard)?;
+        let (hb, hc) = (bond_curve.integrated_hazard(t) / t, cds_curve.integrated_hazard(t) / t);
         let (sb, sc) = (bond.par_spread() * 1e4, cds.par_spread() * 1e4);
         out.push(BasisPoint {
             maturity,

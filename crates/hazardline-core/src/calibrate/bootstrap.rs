@@ -81,7 +81,6 @@ pub enum NodeStatus {
 crate::text_form!(NodeStatus { Ok => "ok", Floored => "floored", Infeasible => "infeasible", Failed => "failed", CurveFailed => "curve_failed", NotCalibrated => "not_calibrated" });
 
 impl NodeStatus {
-
     /// True when the node's hazard is a usable calibration result.
     pub fn usable(self) -> bool {
         matches!(self, NodeStatus::Ok | NodeStatus::Floored)
@@ -189,7 +188,13 @@ pub struct BootstrapPlan {
 
 impl BootstrapPlan {
     /// Builds the plan for quotes of `tenors` (in the order the quotes will come).
-    pub fn new(trade: NaiveDate, tenors: &[Tenor], discount: &DiscountCurve, cal: &Calendar, accrual: AccrualIntegration) -> Result<BootstrapPlan, BootstrapError> {
+    pub fn new(
+        trade: NaiveDate,
+        tenors: &[Tenor],
+        discount: &DiscountCurve,
+        cal: &Calendar,
+        accrual: AccrualIntegration,
+    ) -> Result<BootstrapPlan, BootstrapError> {
         if tenors.is_empty() {
             return Err(BootstrapError::NoQuotes);
         }
@@ -203,7 +208,11 @@ impl BootstrapPlan {
         order.sort_by_key(|(_, c)| c.maturity);
         for w in order.windows(2) {
             if w[0].1.maturity == w[1].1.maturity {
-                return Err(BootstrapError::DuplicateMaturity { first: w[0].0, second: w[1].0, maturity: w[0].1.maturity });
+                return Err(BootstrapError::DuplicateMaturity {
+                    first: w[0].0,
+                    second: w[1].0,
+                    maturity: w[0].1.maturity,
+                });
             }
         }
         let node_dates: Vec<NaiveDate> = order.iter().map(|(_, c)| add_days(cal.following(c.maturity), 1)).collect();
@@ -222,11 +231,28 @@ impl BootstrapPlan {
                     && c.prot[..np - 1] == last.prot[..np - 1]
                     && (0..nc.saturating_sub(1)).all(|j| {
                         let (a, b) = (&c.coupons[j], &last.coupons[j]);
-                        a == b || (a.accrual == b.accrual && a.pay_df_ratio == b.pay_df_ratio && a.q_idx == b.q_idx && a.t_s == b.t_s && a.paid == b.paid && plan.aod_path[a.aod_from as usize..a.aod_to as usize] == plan.aod_path[b.aod_from as usize..b.aod_to as usize])
+                        a == b
+                            || (a.accrual == b.accrual
+                                && a.pay_df_ratio == b.pay_df_ratio
+                                && a.q_idx == b.q_idx
+                                && a.t_s == b.t_s
+                                && a.paid == b.paid
+                                && plan.aod_path[a.aod_from as usize..a.aod_to as usize]
+                                    == plan.aod_path[b.aod_from as usize..b.aod_to as usize])
                     })
             })
             .collect();
-        Ok(BootstrapPlan { trade, tenors: tenors.to_vec(), order: idx, contracts: contracts.into(), node_dates, node_times, plan, accrual, shares_prefix })
+        Ok(BootstrapPlan {
+            trade,
+            tenors: tenors.to_vec(),
+            order: idx,
+            contracts: contracts.into(),
+            node_dates,
+            node_times,
+            plan,
+            accrual,
+            shares_prefix,
+        })
     }
 
     pub fn tenors(&self) -> &[Tenor] {
@@ -237,7 +263,11 @@ impl BootstrapPlan {
     /// nodes are the plan's (a complete fit on this plan): the same grid
     /// [`crate::instruments::cds::price_legs_set`] would build, so the same numbers, without
     /// building it again. None when the nodes differ.
-    pub fn legs_on(&self, curve: &crate::curves::HazardCurve, recoveries: &[f64]) -> Option<Vec<crate::instruments::CdsLegs>> {
+    pub fn legs_on(
+        &self,
+        curve: &crate::curves::HazardCurve,
+        recoveries: &[f64],
+    ) -> Option<Vec<crate::instruments::CdsLegs>> {
         let same = curve.reference() == self.trade
             && curve.node_times().len() == self.node_times.len()
             && curve.node_times().iter().zip(&self.node_times).all(|(a, b)| a.to_bits() == b.to_bits())
@@ -277,7 +307,11 @@ pub fn bootstrap(
     solve_on_plan(&plan, quotes, settings)
 }
 
-fn solve_on_plan(bp: &BootstrapPlan, quotes: &[BootstrapQuote], settings: &BootstrapSettings) -> Result<CurveFit, BootstrapError> {
+fn solve_on_plan(
+    bp: &BootstrapPlan,
+    quotes: &[BootstrapQuote],
+    settings: &BootstrapSettings,
+) -> Result<CurveFit, BootstrapError> {
     let trade = bp.trade;
     let plan = &bp.plan;
     let node_dates = &bp.node_dates;
@@ -322,11 +356,8 @@ fn solve_on_plan(bp: &BootstrapPlan, quotes: &[BootstrapQuote], settings: &Boots
         }
         let terms = &plan.contracts[k];
         // Split into the part fixed by earlier segments and the part on the new segment.
-        let prot_from = terms
-            .prot
-            .windows(2)
-            .position(|w| plan.times[w[1] as usize] > t_prev)
-            .unwrap_or(terms.prot.len() - 1);
+        let prot_from =
+            terms.prot.windows(2).position(|w| plan.times[w[1] as usize] > t_prev).unwrap_or(terms.prot.len() - 1);
         let coupon_from = terms
             .coupons
             .iter()
@@ -351,13 +382,9 @@ fn solve_on_plan(bp: &BootstrapPlan, quotes: &[BootstrapQuote], settings: &Boots
             .chain(std::iter::once(var_prot[0]))
             .min()
             .unwrap_or(0) as usize;
-        let last_point = var_coupons
-            .iter()
-            .filter(|c| c.paid)
-            .map(|c| c.q_idx)
-            .chain(var_prot.iter().copied())
-            .max()
-            .unwrap_or(0) as usize;
+        let last_point =
+            var_coupons.iter().filter(|c| c.paid).map(|c| c.q_idx).chain(var_prot.iter().copied()).max().unwrap_or(0)
+                as usize;
 
         let one_minus_r = 1.0 - q.recovery;
         let rebate_pv = terms.rebate01 * terms.cash_settle_df;
@@ -441,7 +468,8 @@ fn solve_on_plan(bp: &BootstrapPlan, quotes: &[BootstrapQuote], settings: &Boots
             }
             Err(e) => {
                 fit.status = NodeStatus::Failed;
-                fit.detail = Some(format!("{}: root search on the segment to {} failed: {e}", target(), contract.maturity));
+                fit.detail =
+                    Some(format!("{}: root search on the segment to {} failed: {e}", target(), contract.maturity));
                 if settings.infeasible == InfeasiblePolicy::Fail {
                     curve_failed = true;
                 }
@@ -481,7 +509,10 @@ fn solve_on_plan(bp: &BootstrapPlan, quotes: &[BootstrapQuote], settings: &Boots
     let curve = if hazards.is_empty() {
         None
     } else {
-        Some(HazardCurve::new(trade, node_times[..hazards.len()].to_vec(), hazards).expect("increasing node times and finite hazards"))
+        Some(
+            HazardCurve::new(trade, node_times[..hazards.len()].to_vec(), hazards)
+                .expect("increasing node times and finite hazards"),
+        )
     };
     Ok(CurveFit { trade_date: trade, nodes, curve, failed: curve_failed, contracts: bp.contracts.clone() })
 }

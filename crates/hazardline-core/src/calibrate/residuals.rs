@@ -48,7 +48,8 @@ pub fn reprice_with_plan(
     let Some(curve) = fit.curve.as_ref() else { return Vec::new() };
     let mut out = Vec::with_capacity(fit.nodes.len());
     // Every solved node's contract priced on one joint grid (one plan per curve, not per node).
-    let solved: Vec<(&super::bootstrap::NodeFit, &crate::instruments::CdsContract)> = fit.nodes.iter().zip(fit.contracts.iter()).filter(|(n, _)| n.hazard.is_some()).collect();
+    let solved: Vec<(&super::bootstrap::NodeFit, &crate::instruments::CdsContract)> =
+        fit.nodes.iter().zip(fit.contracts.iter()).filter(|(n, _)| n.hazard.is_some()).collect();
     let contracts: Vec<&crate::instruments::CdsContract> = solved.iter().map(|s| s.1).collect();
     let recoveries: Vec<f64> = solved.iter().map(|s| quotes[s.0.quote_index].recovery).collect();
     let shared = plan.filter(|_| solved.len() == fit.nodes.len()).and_then(|p| p.legs_on(curve, &recoveries));

@@ -27,12 +27,7 @@ pub enum DiscountCurveError {
     #[error("discount curve for {reference} has no pillars")]
     Empty { reference: NaiveDate },
     #[error("discount curve for {reference}: two pillars fall on {date} (tenors {first} and {second})")]
-    DuplicatePillar {
-        reference: NaiveDate,
-        date: NaiveDate,
-        first: Tenor,
-        second: Tenor,
-    },
+    DuplicatePillar { reference: NaiveDate, date: NaiveDate, first: Tenor, second: Tenor },
     #[error("discount curve for {reference}: zero rate {rate} at {tenor} is not a finite number")]
     BadRate { reference: NaiveDate, tenor: Tenor, rate: f64 },
 }

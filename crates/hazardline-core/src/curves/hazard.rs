@@ -61,7 +61,11 @@ impl HazardCurve {
     }
 
     /// Builds the curve from node dates.
-    pub fn from_dates(reference: NaiveDate, dates: &[NaiveDate], hazards: Vec<f64>) -> Result<HazardCurve, HazardCurveError> {
+    pub fn from_dates(
+        reference: NaiveDate,
+        dates: &[NaiveDate],
+        hazards: Vec<f64>,
+    ) -> Result<HazardCurve, HazardCurveError> {
         let times = dates.iter().map(|&d| year_time(reference, d)).collect();
         HazardCurve::new(reference, times, hazards)
     }

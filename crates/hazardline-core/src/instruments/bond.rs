@@ -56,9 +56,7 @@ impl std::str::FromStr for RecoveryConvention {
             "par" | "face" => Ok(RecoveryConvention::Par),
             "zero" => Ok(RecoveryConvention::Zero),
             "market" => Ok(RecoveryConvention::Market),
-            _ => Err(format!(
-                "recovery convention {s:?} is not understood: expected par, zero or market"
-            )),
+            _ => Err(format!("recovery convention {s:?} is not understood: expected par, zero or market")),
         }
     }
 }
@@ -83,39 +81,19 @@ pub enum BondError {
     #[error("bond coupon {coupon} is not a finite number in [0, 1)")]
     Coupon { coupon: f64 },
     #[error("bond matures on {maturity}, on or before settlement {settlement}")]
-    Matured {
-        maturity: NaiveDate,
-        settlement: NaiveDate,
-    },
+    Matured { maturity: NaiveDate, settlement: NaiveDate },
     #[error("bond is issued on {issue}, after settlement {settlement}")]
-    NotIssued {
-        issue: NaiveDate,
-        settlement: NaiveDate,
-    },
+    NotIssued { issue: NaiveDate, settlement: NaiveDate },
     #[error("bond issue date {issue} is on or after its maturity {maturity}")]
-    IssueAfterMaturity {
-        issue: NaiveDate,
-        maturity: NaiveDate,
-    },
+    IssueAfterMaturity { issue: NaiveDate, maturity: NaiveDate },
     #[error("curves must be referenced on the settlement date {settlement}: discount curve is on {discount}, hazard curve on {hazard}")]
-    ReferenceDate {
-        settlement: NaiveDate,
-        discount: NaiveDate,
-        hazard: NaiveDate,
-    },
+    ReferenceDate { settlement: NaiveDate, discount: NaiveDate, hazard: NaiveDate },
     #[error("recovery {recovery} is not a fraction in [0, 1)")]
     Recovery { recovery: f64 },
     #[error("clean price {price} is not a positive number")]
     Price { price: f64 },
-    #[error(
-        "no yield reprices dirty price {dirty} (bracket [{lo}, {hi}], {iterations} iterations)"
-    )]
-    Yield {
-        dirty: f64,
-        lo: f64,
-        hi: f64,
-        iterations: u32,
-    },
+    #[error("no yield reprices dirty price {dirty} (bracket [{lo}, {hi}], {iterations} iterations)")]
+    Yield { dirty: f64, lo: f64, hi: f64, iterations: u32 },
 }
 
 /// One coupon period of the schedule.
@@ -165,21 +143,14 @@ pub struct BondPrice {
 impl BondTerms {
     fn check(&self) -> Result<(), BondError> {
         if ![1, 2, 4, 12].contains(&self.frequency) {
-            return Err(BondError::Frequency {
-                frequency: self.frequency,
-            });
+            return Err(BondError::Frequency { frequency: self.frequency });
         }
         if !(self.coupon.is_finite() && (0.0..1.0).contains(&self.coupon)) {
-            return Err(BondError::Coupon {
-                coupon: self.coupon,
-            });
+            return Err(BondError::Coupon { coupon: self.coupon });
         }
         if let Some(issue) = self.issue_date {
             if issue >= self.maturity {
-                return Err(BondError::IssueAfterMaturity {
-                    issue,
-                    maturity: self.maturity,
-                });
+                return Err(BondError::IssueAfterMaturity { issue, maturity: self.maturity });
             }
         }
         Ok(())
@@ -227,10 +198,7 @@ impl BondTerms {
     pub fn cashflows(&self, settlement: NaiveDate) -> Result<BondCashflows, BondError> {
         self.check()?;
         if self.maturity <= settlement {
-            return Err(BondError::Matured {
-                maturity: self.maturity,
-                settlement,
-            });
+            return Err(BondError::Matured { maturity: self.maturity, settlement });
         }
         if let Some(issue) = self.issue_date {
             if issue > settlement {
@@ -251,63 +219,32 @@ impl BondTerms {
             // Regular periods are their own reference (a roll date clipped to a month end
             // stays the period's start); a stub refers to the regular period ending on its end
             // date.
-            let (rs, re) = if i == 0 && first_is_stub {
-                (add_months(e, -m), e)
-            } else {
-                (s, e)
-            };
+            let (rs, re) = if i == 0 && first_is_stub { (add_months(e, -m), e) } else { (s, e) };
             let amount = 100.0 * self.coupon * dc.year_fraction_in_period(s, e, rs, re, f);
             if s <= settlement {
-                accrued =
-                    100.0 * self.coupon * dc.year_fraction_in_period(s, settlement, rs, re, f);
+                accrued = 100.0 * self.coupon * dc.year_fraction_in_period(s, settlement, rs, re, f);
             }
-            periods.push(BondPeriod {
-                accrual_start: s,
-                accrual_end: e,
-                ref_start: rs,
-                ref_end: re,
-                amount,
-            });
+            periods.push(BondPeriod { accrual_start: s, accrual_end: e, ref_start: rs, ref_end: re, amount });
         }
-        let times: Vec<f64> = periods
-            .iter()
-            .map(|p| year_time(settlement, p.accrual_end))
-            .collect();
+        let times: Vec<f64> = periods.iter().map(|p| year_time(settlement, p.accrual_end)).collect();
         let mut amounts: Vec<f64> = periods.iter().map(|p| p.amount).collect();
         *amounts.last_mut().expect("a bond not matured has a period") += 100.0;
         let mut yield_times = Vec::with_capacity(periods.len());
         let mut tau = 0.0;
         for (i, p) in periods.iter().enumerate() {
-            let from = if i == 0 {
-                settlement.max(p.accrual_start)
-            } else {
-                p.accrual_start
-            };
+            let from = if i == 0 { settlement.max(p.accrual_start) } else { p.accrual_start };
             tau += dc.year_fraction_in_period(from, p.accrual_end, p.ref_start, p.ref_end, f);
             yield_times.push(tau);
         }
         let t_maturity = year_time(settlement, self.maturity);
-        Ok(BondCashflows {
-            settlement,
-            frequency: f,
-            periods,
-            times,
-            amounts,
-            yield_times,
-            accrued,
-            t_maturity,
-        })
+        Ok(BondCashflows { settlement, frequency: f, periods, times, amounts, yield_times, accrued, t_maturity })
     }
 }
 
 impl BondCashflows {
     /// Dirty price on the discount curve alone.
     pub fn risk_free_dirty(&self, discount: &DiscountCurve) -> f64 {
-        self.times
-            .iter()
-            .zip(&self.amounts)
-            .map(|(&t, &a)| a * discount.df_at(t))
-            .sum()
+        self.times.iter().zip(&self.amounts).map(|(&t, &a)| a * discount.df_at(t)).sum()
     }
 
     /// Prices on curves referenced on the settlement date.
@@ -351,9 +288,7 @@ impl BondCashflows {
             dirty += a * (ldf + survival_power * hazard.log_survival_at(t)).exp();
         }
         let recovery_value = match convention {
-            RecoveryConvention::Par => {
-                100.0 * recovery * default_integral(discount, hazard, self.t_maturity)
-            }
+            RecoveryConvention::Par => 100.0 * recovery * default_integral(discount, hazard, self.t_maturity),
             _ => 0.0,
         };
         dirty += recovery_value;
@@ -400,21 +335,12 @@ impl BondCashflows {
             if newton.is_finite() && (newton - y).abs() < 1e-15 {
                 return Ok(newton);
             }
-            y = if newton > lo && newton < hi {
-                newton
-            } else {
-                0.5 * (lo + hi)
-            };
+            y = if newton > lo && newton < hi { newton } else { 0.5 * (lo + hi) };
             if hi - lo < 1e-15 {
                 return Ok(y);
             }
         }
-        Err(BondError::Yield {
-            dirty,
-            lo,
-            hi,
-            iterations: 200,
-        })
+        Err(BondError::Yield { dirty, lo, hi, iterations: 200 })
     }
 
     /// Modified duration -dP/dy / P at yield y (in years of the bond's day count).
@@ -459,9 +385,7 @@ pub fn price_bond(
     recovery: f64,
     convention: RecoveryConvention,
 ) -> Result<BondPrice, BondError> {
-    terms
-        .cashflows(discount.reference())?
-        .price(discount, hazard, recovery, convention)
+    terms.cashflows(discount.reference())?.price(discount, hazard, recovery, convention)
 }
 
 #[cfg(test)]
@@ -502,14 +426,8 @@ mod tests {
         };
         let cf = b.cashflows(d(2024, 4, 1)).unwrap();
         let p0 = cf.periods[0];
-        assert_eq!(
-            (p0.accrual_start, p0.accrual_end),
-            (d(2024, 3, 1), d(2024, 6, 15))
-        );
-        assert_eq!(
-            (p0.ref_start, p0.ref_end),
-            (d(2023, 12, 15), d(2024, 6, 15))
-        );
+        assert_eq!((p0.accrual_start, p0.accrual_end), (d(2024, 3, 1), d(2024, 6, 15)));
+        assert_eq!((p0.ref_start, p0.ref_end), (d(2023, 12, 15), d(2024, 6, 15)));
         assert!((p0.amount - 4.0 * 106.0 / (2.0 * 183.0)).abs() < 1e-12);
         // Settlement on a coupon date: that coupon is gone and nothing has accrued.
         let cf = b.cashflows(d(2024, 6, 15)).unwrap();
@@ -544,19 +462,10 @@ mod tests {
             day_count: DayCount::Act365Fixed,
             issue_date: None,
         };
-        assert!(matches!(
-            b.cashflows(d(2024, 1, 1)),
-            Err(BondError::Frequency { .. })
-        ));
+        assert!(matches!(b.cashflows(d(2024, 1, 1)), Err(BondError::Frequency { .. })));
         b.frequency = 1;
-        assert!(matches!(
-            b.cashflows(d(2030, 1, 1)),
-            Err(BondError::Matured { .. })
-        ));
+        assert!(matches!(b.cashflows(d(2030, 1, 1)), Err(BondError::Matured { .. })));
         b.issue_date = Some(d(2025, 1, 1));
-        assert!(matches!(
-            b.cashflows(d(2024, 1, 1)),
-            Err(BondError::NotIssued { .. })
-        ));
+        assert!(matches!(b.cashflows(d(2024, 1, 1)), Err(BondError::NotIssued { .. })));
     }
 }

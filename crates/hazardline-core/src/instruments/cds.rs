@@ -70,7 +70,11 @@ impl CdsContract {
 
     /// The standard contracts of several tenors traded on the same day, sharing one schedule
     /// computation (see [`crate::time::schedule::cds_schedules`]).
-    pub fn standard_set(trade_date: NaiveDate, tenors: &[Tenor], cal: &Calendar) -> Vec<Result<CdsContract, MaturityError>> {
+    pub fn standard_set(
+        trade_date: NaiveDate,
+        tenors: &[Tenor],
+        cal: &Calendar,
+    ) -> Vec<Result<CdsContract, MaturityError>> {
         let mats: Vec<Result<NaiveDate, MaturityError>> = tenors.iter().map(|&t| cds_maturity(trade_date, t)).collect();
         let ok: Vec<NaiveDate> = mats.iter().filter_map(|m| m.as_ref().ok().copied()).collect();
         let mut schedules = crate::time::schedule::cds_schedules(trade_date, &ok, cal).into_iter();
@@ -229,13 +233,25 @@ impl LegPlan {
         }
         let per: Vec<(i32, Vec<Offsets>)> = contracts
             .iter()
-            .map(|c| (off(c.maturity), c.periods.iter().map(|p| Offsets { start: off(p.accrual_start), end: off(p.accrual_end), pay: off(p.payment) }).collect()))
+            .map(|c| {
+                (
+                    off(c.maturity),
+                    c.periods
+                        .iter()
+                        .map(|p| Offsets { start: off(p.accrual_start), end: off(p.accrual_end), pay: off(p.payment) })
+                        .collect(),
+                )
+            })
             .collect();
         // Protection starts on T + 1 (offset 1).
         let eff = 1;
         // The grid reaches the last maturity or the last accrual-on-default end (pay - 1 day,
         // after the maturity when it falls on a weekend), whichever is later.
-        let t_last = per.iter().flat_map(|(m, ps)| std::iter::once(*m).chain(ps.last().map(|p| p.pay - 1))).max().map_or(0.0, tt);
+        let t_last = per
+            .iter()
+            .flat_map(|(m, ps)| std::iter::once(*m).chain(ps.last().map(|p| p.pay - 1)))
+            .max()
+            .map_or(0.0, tt);
         let t_eff = tt(eff);
 
         let mut node_times: Vec<f64> = discount
@@ -306,7 +322,8 @@ impl LegPlan {
             for (p, cp) in ps.iter().zip(&c.periods) {
                 let paid = p.pay > eff;
                 let q_idx = if paid { point(&times, tt(p.pay - 1)) } else { 0 };
-                let pay_df_ratio = if paid { (discount.log_df_at(tt(p.pay)) - log_dfs[q_idx as usize]).exp() } else { 0.0 };
+                let pay_df_ratio =
+                    if paid { (discount.log_df_at(tt(p.pay)) - log_dfs[q_idx as usize]).exp() } else { 0.0 };
                 let from = aod_path.len() as u32;
                 if p.end > eff && paid {
                     let t0 = tt(p.start.max(eff) - 1);
@@ -416,7 +433,9 @@ impl CouponTerm {
 
 /// The curves handed to [`price_legs`] are not referenced on the trade date.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
-#[error("curves must be referenced on the trade date {trade}: discount curve is on {discount}, hazard curve on {hazard}")]
+#[error(
+    "curves must be referenced on the trade date {trade}: discount curve is on {discount}, hazard curve on {hazard}"
+)]
 pub struct ReferenceDateMismatch {
     pub trade: NaiveDate,
     pub discount: NaiveDate,

@@ -21,15 +21,7 @@ impl Grad4 {
     }
     #[inline]
     pub(crate) fn chain(self, v: f64, dv: f64) -> Grad4 {
-        Grad4 {
-            v,
-            d: [
-                self.d[0] * dv,
-                self.d[1] * dv,
-                self.d[2] * dv,
-                self.d[3] * dv,
-            ],
-        }
+        Grad4 { v, d: [self.d[0] * dv, self.d[1] * dv, self.d[2] * dv, self.d[3] * dv] }
     }
 }
 
@@ -48,7 +40,6 @@ impl Scalar for Grad4 {
         self.chain(e, e)
     }
 }
-
 
 macro_rules! grad_binop {
     ($tr:ident, $f:ident, |$a:ident, $b:ident| $v:expr, $da:expr, $db:expr) => {
@@ -87,20 +78,14 @@ impl Add<f64> for Grad4 {
     type Output = Grad4;
     #[inline]
     fn add(self, o: f64) -> Grad4 {
-        Grad4 {
-            v: self.v + o,
-            d: self.d,
-        }
+        Grad4 { v: self.v + o, d: self.d }
     }
 }
 impl Sub<f64> for Grad4 {
     type Output = Grad4;
     #[inline]
     fn sub(self, o: f64) -> Grad4 {
-        Grad4 {
-            v: self.v - o,
-            d: self.d,
-        }
+        Grad4 { v: self.v - o, d: self.d }
     }
 }
 impl Mul<f64> for Grad4 {

@@ -25,12 +25,7 @@ pub struct LmSettings {
 
 impl Default for LmSettings {
     fn default() -> Self {
-        LmSettings {
-            max_iterations: 200,
-            f_tol: 1e-9,
-            x_tol: 1e-11,
-            cost_floor: 1e-24,
-        }
+        LmSettings { max_iterations: 200, f_tol: 1e-9, x_tol: 1e-11, cost_floor: 1e-24 }
     }
 }
 
@@ -97,23 +92,12 @@ pub fn levenberg_marquardt<P: LeastSquares>(
     s: &LmSettings,
 ) -> LmOutcome {
     let (n, m) = p.dims();
-    let mut x: Vec<f64> = x0
-        .iter()
-        .zip(lo.iter().zip(hi))
-        .map(|(&v, (&l, &h))| v.clamp(l, h))
-        .collect();
+    let mut x: Vec<f64> = x0.iter().zip(lo.iter().zip(hi)).map(|(&v, (&l, &h))| v.clamp(l, h)).collect();
     let mut r = vec![0.0; m];
     let mut jac = vec![0.0; m * n];
     let mut evaluations = 1;
     if !p.eval(&x, &mut r, Some(&mut jac)) {
-        return LmOutcome {
-            x,
-            cost: f64::INFINITY,
-            iterations: 0,
-            evaluations,
-            converged: false,
-            failed: true,
-        };
+        return LmOutcome { x, cost: f64::INFINITY, iterations: 0, evaluations, converged: false, failed: true };
     }
     let mut cost = 0.5 * r.iter().map(|v| v * v).sum::<f64>();
     let mut a = vec![0.0; n * n];
@@ -150,14 +134,7 @@ pub fn levenberg_marquardt<P: LeastSquares>(
     let mut free = vec![true; n];
     let mut iterations = 0;
     if cost <= s.cost_floor {
-        return LmOutcome {
-            x,
-            cost,
-            iterations,
-            evaluations,
-            converged: true,
-            failed: false,
-        };
+        return LmOutcome { x, cost, iterations, evaluations, converged: true, failed: false };
     }
     while iterations < s.max_iterations {
         iterations += 1;
@@ -169,11 +146,7 @@ pub fn levenberg_marquardt<P: LeastSquares>(
         for _ in 0..60 {
             for i in 0..n {
                 for j in 0..n {
-                    sys[i * n + j] = if free[i] && free[j] {
-                        a[i * n + j]
-                    } else {
-                        0.0
-                    };
+                    sys[i * n + j] = if free[i] && free[j] { a[i * n + j] } else { 0.0 };
                 }
                 let dii = a[i * n + i].max(1e-12 * (1.0 + a[i * n + i]));
                 if free[i] {
@@ -191,25 +164,12 @@ pub fn levenberg_marquardt<P: LeastSquares>(
             nu *= 2.0;
         }
         if !ok {
-            return LmOutcome {
-                x,
-                cost,
-                iterations,
-                evaluations,
-                converged: false,
-                failed: true,
-            };
+            return LmOutcome { x, cost, iterations, evaluations, converged: false, failed: true };
         }
         // A step longer than its cap in any coordinate is shortened as a whole (a crude trust
         // region: the damping alone lets the first steps of a poor start jump across the box).
         let scale = (0..n)
-            .map(|i| {
-                if step[i].abs() > max_step[i] {
-                    max_step[i] / step[i].abs()
-                } else {
-                    1.0
-                }
-            })
+            .map(|i| if step[i].abs() > max_step[i] { max_step[i] / step[i].abs() } else { 1.0 })
             .fold(1.0, f64::min);
         let mut max_move: f64 = 0.0;
         for i in 0..n {
@@ -218,14 +178,7 @@ pub fn levenberg_marquardt<P: LeastSquares>(
             max_move = max_move.max(step[i].abs());
         }
         if max_move <= s.x_tol {
-            return LmOutcome {
-                x,
-                cost,
-                iterations,
-                evaluations,
-                converged: true,
-                failed: false,
-            };
+            return LmOutcome { x, cost, iterations, evaluations, converged: true, failed: false };
         }
         // Predicted reduction of the quadratic model for the projected step.
         let mut pred = 0.0;
@@ -238,16 +191,8 @@ pub fn levenberg_marquardt<P: LeastSquares>(
         }
         evaluations += 1;
         let finite = p.eval(&x_new, &mut r_new, Some(&mut jac_new));
-        let cost_new = if finite {
-            0.5 * r_new.iter().map(|v| v * v).sum::<f64>()
-        } else {
-            f64::INFINITY
-        };
-        let ratio = if pred > 0.0 {
-            (cost - cost_new) / pred
-        } else {
-            -1.0
-        };
+        let cost_new = if finite { 0.5 * r_new.iter().map(|v| v * v).sum::<f64>() } else { f64::INFINITY };
+        let ratio = if pred > 0.0 { (cost - cost_new) / pred } else { -1.0 };
         if cost_new < cost && ratio > 0.0 {
             let drop = cost - cost_new;
             std::mem::swap(&mut x, &mut x_new);
@@ -258,39 +203,18 @@ pub fn levenberg_marquardt<P: LeastSquares>(
             mu *= (1.0f64 / 3.0).max(1.0 - (2.0 * ratio - 1.0).powi(3));
             nu = 2.0;
             if cost <= s.cost_floor || drop <= s.f_tol * cost {
-                return LmOutcome {
-                    x,
-                    cost,
-                    iterations,
-                    evaluations,
-                    converged: true,
-                    failed: false,
-                };
+                return LmOutcome { x, cost, iterations, evaluations, converged: true, failed: false };
             }
         } else {
             mu *= nu;
             nu *= 2.0;
             if mu > 1e20 {
                 // No descent left at machine precision: the point is a (local) minimum.
-                return LmOutcome {
-                    x,
-                    cost,
-                    iterations,
-                    evaluations,
-                    converged: true,
-                    failed: false,
-                };
+                return LmOutcome { x, cost, iterations, evaluations, converged: true, failed: false };
             }
         }
     }
-    LmOutcome {
-        x,
-        cost,
-        iterations,
-        evaluations,
-        converged: false,
-        failed: false,
-    }
+    LmOutcome { x, cost, iterations, evaluations, converged: false, failed: false }
 }
 
 #[cfg(test)]
@@ -321,10 +245,7 @@ mod tests {
             &[f64::INFINITY; 2],
             &LmSettings::default(),
         );
-        assert!(
-            out.converged && (out.x[0] - 1.0).abs() < 1e-8 && (out.x[1] - 1.0).abs() < 1e-8,
-            "{out:?}"
-        );
+        assert!(out.converged && (out.x[0] - 1.0).abs() < 1e-8 && (out.x[1] - 1.0).abs() < 1e-8, "{out:?}");
         // With the optimum outside the box the solution sits on the bound x0 <= 0.5.
         let out = levenberg_marquardt(
             &mut Rb,
@@ -334,9 +255,6 @@ mod tests {
             &[f64::INFINITY; 2],
             &LmSettings::default(),
         );
-        assert!(
-            (out.x[0] - 0.5).abs() < 1e-12 && (out.x[1] - 0.25).abs() < 1e-6,
-            "{out:?}"
-        );
+        assert!((out.x[0] - 0.5).abs() < 1e-12 && (out.x[1] - 0.25).abs() < 1e-6, "{out:?}");
     }
 }

@@ -134,15 +134,7 @@ impl<S: CirScalar> CirCoefficients<S> {
         let inv = gpk.recip();
         let delta = two_s2 * inv;
         let rho = delta * inv;
-        CirCoefficients {
-            gamma,
-            gpk,
-            delta,
-            rho,
-            g_rho: g_fn(rho),
-            c1: kappa * inv * inv * 4.0,
-            c2: kappa * inv * 2.0,
-        }
+        CirCoefficients { gamma, gpk, delta, rho, g_rho: g_fn(rho), c1: kappa * inv * inv * 4.0, c2: kappa * inv * 2.0 }
     }
 
     /// (a(t), B(t)) with ln S(t) = theta a(t) - lambda0 B(t); t >= 0.
@@ -164,18 +156,11 @@ impl CirParams {
             && self.theta > 0.0
             && self.sigma >= 0.0
             && self.lambda0 >= 0.0
-            && [self.kappa, self.theta, self.sigma, self.lambda0]
-                .iter()
-                .all(|v| v.is_finite());
+            && [self.kappa, self.theta, self.sigma, self.lambda0].iter().all(|v| v.is_finite());
         if ok {
             Ok(())
         } else {
-            Err(CirParamsError {
-                kappa: self.kappa,
-                theta: self.theta,
-                sigma: self.sigma,
-                lambda0: self.lambda0,
-            })
+            Err(CirParamsError { kappa: self.kappa, theta: self.theta, sigma: self.sigma, lambda0: self.lambda0 })
         }
     }
 
@@ -216,11 +201,7 @@ impl CirParams {
     /// Forward hazard -d ln S / dt = lambda0 B'(t) + kappa theta B(t), with the Riccati
     /// equation B' = 1 - kappa B - sigma^2 B^2 / 2.
     pub fn forward_hazard_at(&self, t: f64) -> f64 {
-        let (_, b) = if t <= 0.0 {
-            (0.0, 0.0)
-        } else {
-            CirCoefficients::new(self.kappa, self.sigma).at(t)
-        };
+        let (_, b) = if t <= 0.0 { (0.0, 0.0) } else { CirCoefficients::new(self.kappa, self.sigma).at(t) };
         let db = 1.0 - self.kappa * b - 0.5 * self.sigma * self.sigma * b * b;
         self.lambda0 * db + self.kappa * self.theta * b
     }
@@ -278,22 +259,13 @@ pub fn price_legs_cir(
 ) -> Result<CdsLegs, ReferenceDateMismatch> {
     let trade = contract.trade_date;
     if discount.reference() != trade {
-        return Err(ReferenceDateMismatch {
-            trade,
-            discount: discount.reference(),
-            hazard: trade,
-        });
+        return Err(ReferenceDateMismatch { trade, discount: discount.reference(), hazard: trade });
     }
     let t_end = crate::curves::year_time(trade, contract.maturity) + 10.0 / 365.0;
     let nodes = uniform_grid(grid_step, t_end);
     let plan = LegPlan::build(trade, &[contract], discount, &nodes, mode);
     let log_q = params.log_survival_grid(&plan.times);
-    let pq: Vec<f64> = plan
-        .log_dfs
-        .iter()
-        .zip(&log_q)
-        .map(|(p, q)| (p + q).exp())
-        .collect();
+    let pq: Vec<f64> = plan.log_dfs.iter().zip(&log_q).map(|(p, q)| (p + q).exp()).collect();
     let terms = &plan.contracts[0];
     let (prot, prem, aod) = evaluate_terms::<f64>(&plan, &terms.prot, &terms.coupons, &pq, &log_q);
     Ok(CdsLegs {
@@ -322,31 +294,13 @@ mod tests {
     #[test]
     fn stable_form_equals_the_textbook_formula() {
         for p in [
-            CirParams {
-                kappa: 0.5,
-                theta: 0.03,
-                sigma: 0.1,
-                lambda0: 0.01,
-            },
-            CirParams {
-                kappa: 0.1,
-                theta: 0.05,
-                sigma: 0.3,
-                lambda0: 0.2,
-            },
-            CirParams {
-                kappa: 2.0,
-                theta: 0.01,
-                sigma: 0.8,
-                lambda0: 0.0,
-            },
+            CirParams { kappa: 0.5, theta: 0.03, sigma: 0.1, lambda0: 0.01 },
+            CirParams { kappa: 0.1, theta: 0.05, sigma: 0.3, lambda0: 0.2 },
+            CirParams { kappa: 2.0, theta: 0.01, sigma: 0.8, lambda0: 0.0 },
         ] {
             for t in [0.01, 0.5, 1.0, 5.0, 10.0, 30.0] {
                 let (x, y) = (p.log_survival_at(t), textbook(&p, t));
-                assert!(
-                    (x - y).abs() < 1e-13 * (1.0 + y.abs()),
-                    "{p:?} t={t}: {x} vs {y}"
-                );
+                assert!((x - y).abs() < 1e-13 * (1.0 + y.abs()), "{p:?} t={t}: {x} vs {y}");
             }
         }
     }
@@ -356,48 +310,28 @@ mod tests {
         // sigma -> 0 (the O(sigma^2) convexity is below 1e-14 here): lambda(t) = theta + (lambda0 - theta) e^{-kappa t}, integrated by hand.
         let (k, th, l0) = (0.4, 0.02, 0.035);
         for s in [0.0, 1e-10, 1e-8] {
-            let p = CirParams {
-                kappa: k,
-                theta: th,
-                sigma: s,
-                lambda0: l0,
-            };
+            let p = CirParams { kappa: k, theta: th, sigma: s, lambda0: l0 };
             for t in [0.25, 3.0, 40.0, 500.0] {
                 let b = (1.0 - (-k * t).exp()) / k;
                 let exact = -(l0 * b + th * (t - b));
-                assert!(
-                    (p.log_survival_at(t) - exact).abs() < 1e-12 * (1.0 + exact.abs()),
-                    "s={s} t={t}"
-                );
+                assert!((p.log_survival_at(t) - exact).abs() < 1e-12 * (1.0 + exact.abs()), "s={s} t={t}");
             }
         }
     }
 
     #[test]
     fn large_times_do_not_overflow() {
-        let p = CirParams {
-            kappa: 3.0,
-            theta: 0.05,
-            sigma: 2.0,
-            lambda0: 0.1,
-        };
+        let p = CirParams { kappa: 3.0, theta: 0.05, sigma: 2.0, lambda0: 0.1 };
         let l = p.log_survival_at(1000.0);
         assert!(l.is_finite() && l < 0.0);
         // Long-run: ln S / t -> -2 kappa theta / (gamma + kappa).
         let g = (9.0f64 + 8.0).sqrt();
-        assert!(
-            (p.log_survival_at(2000.0) - l - (-2.0 * 3.0 * 0.05 / (g + 3.0) * 1000.0)).abs() < 1e-9
-        );
+        assert!((p.log_survival_at(2000.0) - l - (-2.0 * 3.0 * 0.05 / (g + 3.0) * 1000.0)).abs() < 1e-9);
     }
 
     #[test]
     fn forward_hazard_is_minus_the_log_survival_slope() {
-        let p = CirParams {
-            kappa: 0.3,
-            theta: 0.04,
-            sigma: 0.15,
-            lambda0: 0.01,
-        };
+        let p = CirParams { kappa: 0.3, theta: 0.04, sigma: 0.15, lambda0: 0.01 };
         for t in [0.5, 2.0, 7.0] {
             let h = 1e-5;
             let fd = -(p.log_survival_at(t + h) - p.log_survival_at(t - h)) / (2.0 * h);

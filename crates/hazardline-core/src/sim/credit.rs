@@ -67,7 +67,12 @@ pub fn cir_step(l: f64, kappa: f64, theta: f64, sigma: f64, dt: f64, z: f64) -> 
 /// The pricing-measure CIR parameters of an entity whose historical intensity is `lambda_p`
 /// with long-run level `theta_p`, under premium multiplier `m`.
 pub fn pricing_params(lambda_p: f64, theta_p: f64, m: f64) -> CirParams {
-    CirParams { kappa: KAPPA_Q, theta: KAPPA * m * theta_p / KAPPA_Q, sigma: m.sqrt() * sigma_for(theta_p), lambda0: m * lambda_p.max(0.0) }
+    CirParams {
+        kappa: KAPPA_Q,
+        theta: KAPPA * m * theta_p / KAPPA_Q,
+        sigma: m.sqrt() * sigma_for(theta_p),
+        lambda0: m * lambda_p.max(0.0),
+    }
 }
 
 /// The historical-measure CIR parameters at intensity `lambda_p`.

@@ -14,8 +14,18 @@ const LAST: [&str; 16] = [
     "croft", "vale", "ness",
 ];
 const TRADE: [&str; 12] = [
-    "Freight", "Mills", "Foods", "Power", "Works", "Textiles", "Telecom", "Chemicals", "Metals", "Retail",
-    "Shipping", "Timber",
+    "Freight",
+    "Mills",
+    "Foods",
+    "Power",
+    "Works",
+    "Textiles",
+    "Telecom",
+    "Chemicals",
+    "Metals",
+    "Retail",
+    "Shipping",
+    "Timber",
 ];
 
 /// Invented sectors, each with the trade words that belong to it.

@@ -19,7 +19,8 @@ impl VasicekFactor {
     /// ln P(tau) contribution of this factor at state x.
     pub fn log_bond(&self, x: f64, tau: f64) -> f64 {
         let bt = (1.0 - (-self.a * tau).exp()) / self.a;
-        let at = (self.b - self.s * self.s / (2.0 * self.a * self.a)) * (bt - tau) - self.s * self.s * bt * bt / (4.0 * self.a);
+        let at = (self.b - self.s * self.s / (2.0 * self.a * self.a)) * (bt - tau)
+            - self.s * self.s * bt * bt / (4.0 * self.a);
         at - bt * x
     }
 

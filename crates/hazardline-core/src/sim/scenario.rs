@@ -217,7 +217,14 @@ fn premium_truth(profiles: &[GradeProfile], days: &[NaiveDate], paths: &[Path]) 
     let mut out = Vec::new();
     for p in profiles {
         for h in [1u32, 3, 5] {
-            let mut t = PremiumTruth { grade: p.grade, horizon_years: h, members: 0, hazard_q: 0.0, hazard_p: 0.0, multiplier: p.multiplier };
+            let mut t = PremiumTruth {
+                grade: p.grade,
+                horizon_years: h,
+                members: 0,
+                hazard_q: 0.0,
+                hazard_p: 0.0,
+                multiplier: p.multiplier,
+            };
             for path in paths {
                 for &k in &cohort_days {
                     if k < path.grade.len() && path.grade[k] == p.grade {
@@ -320,7 +327,8 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
         .collect();
 
     // Credit paths.
-    let paths: Vec<Path> = (0..spec.entities).into_par_iter().map(|i| simulate_entity(spec, &profiles, &days, i)).collect();
+    let paths: Vec<Path> =
+        (0..spec.entities).into_par_iter().map(|i| simulate_entity(spec, &profiles, &days, i)).collect();
     let mut grades = Vec::new();
     let mut defaults = Vec::new();
     let mut intensities = Vec::new();
@@ -332,7 +340,13 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
             let month_end = k + 1 == p.grade.len() || days[k + 1].month() != days[k].month();
             if month_end {
                 let m = profiles[(g - 1) as usize].multiplier;
-                intensities.push(IntensityTruth { date: days[k], entity: i, grade: g, lambda_p: p.lambda_p[k], lambda_q: m * p.lambda_p[k] });
+                intensities.push(IntensityTruth {
+                    date: days[k],
+                    entity: i,
+                    grade: g,
+                    lambda_p: p.lambda_p[k],
+                    lambda_q: m * p.lambda_p[k],
+                });
             }
         }
         if let Some(d) = p.default_date {
@@ -351,7 +365,8 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
         .into_par_iter()
         .flat_map_iter(|k| {
             let date = days[k];
-            let contracts: Vec<CdsContract> = CdsContract::standard_set(date, &tenors, &cal).into_iter().filter_map(|c| c.ok()).collect();
+            let contracts: Vec<CdsContract> =
+                CdsContract::standard_set(date, &tenors, &cal).into_iter().filter_map(|c| c.ok()).collect();
             let times: Vec<f64> = contracts.iter().map(|c| year_time(date, c.maturity)).collect();
             let refs: Vec<&CdsContract> = contracts.iter().collect();
             let recoveries = vec![RECOVERY; refs.len()];
@@ -366,10 +381,20 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
                 let disc = &curves[currency_index(&models, entities[i].currency)][k];
                 let mut noise = Rng::stream(spec.seed, "quote_noise", (k * spec.entities + i) as u64);
                 // Every tenor on one joint grid (one plan per entity and day).
-                let Ok(all_legs) = price_legs_set(&refs, &recoveries, disc, &hazard, AccrualIntegration::Standard) else { continue };
+                let Ok(all_legs) = price_legs_set(&refs, &recoveries, disc, &hazard, AccrualIntegration::Standard)
+                else {
+                    continue;
+                };
                 for (legs, &m) in all_legs.iter().zip(&CDS_TENORS) {
                     let par = legs.par_spread() * 1e4 * (spec.quote_noise * noise.normal()).exp();
-                    rows.push(QuoteRow { date, entity: i, tenor: m, value: QuoteValue::Number(round_to(par, 2)), file: QuoteFile::Year(date.year()), fault: None });
+                    rows.push(QuoteRow {
+                        date,
+                        entity: i,
+                        tenor: m,
+                        value: QuoteValue::Number(round_to(par, 2)),
+                        file: QuoteFile::Year(date.year()),
+                        fault: None,
+                    });
                 }
             }
             rows
@@ -413,7 +438,11 @@ pub fn round_to(x: f64, places: i32) -> f64 {
     (x * f).round() / f
 }
 
-fn discount_rows(spec: &ScenarioSpec, models: &[RateModel], days: &[NaiveDate]) -> Vec<(NaiveDate, &'static str, u32, f64)> {
+fn discount_rows(
+    spec: &ScenarioSpec,
+    models: &[RateModel],
+    days: &[NaiveDate],
+) -> Vec<(NaiveDate, &'static str, u32, f64)> {
     let mut out = Vec::with_capacity(days.len() * models.len() * DISCOUNT_TENORS.len());
     for (ci, m) in models.iter().enumerate() {
         let mut rng = Rng::stream(spec.seed, "rates", ci as u64);
@@ -437,7 +466,11 @@ fn discount_rows(spec: &ScenarioSpec, models: &[RateModel], days: &[NaiveDate]) 
 
 /// The discount curves the tool will build from the written (rounded) zero rates, per
 /// currency (in model order) and business day.
-fn discount_curves(rows: &[(NaiveDate, &'static str, u32, f64)], days: &[NaiveDate], models: &[RateModel]) -> Vec<Vec<DiscountCurve>> {
+fn discount_curves(
+    rows: &[(NaiveDate, &'static str, u32, f64)],
+    days: &[NaiveDate],
+    models: &[RateModel],
+) -> Vec<Vec<DiscountCurve>> {
     models
         .iter()
         .map(|m| {
@@ -478,12 +511,20 @@ fn bond_rows(
         for b in 0..count {
             let months = 30 + rng.below(100) as i32;
             let maturity = add_months(spec.start, months);
-            let (frequency, day_count) = if e.currency == "EUR" { (1, DayCount::ActActIcma) } else { (2, DayCount::Thirty360) };
+            let (frequency, day_count) =
+                if e.currency == "EUR" { (1, DayCount::ActActIcma) } else { (2, DayCount::Thirty360) };
             let g = paths[i].grade.first().copied().unwrap_or(3);
-            let par_rate = models[currency_index(models, e.currency)].level.b + profiles[(g - 1) as usize].theta_p * 1.2;
+            let par_rate =
+                models[currency_index(models, e.currency)].level.b + profiles[(g - 1) as usize].theta_p * 1.2;
             let coupon = (par_rate * 800.0).round() / 800.0;
-            let terms = BondTerms { coupon, frequency, maturity, day_count, issue_date: Some(add_months(maturity, -120)) };
-            bonds.push(Bond { bond: format!("{}-{}{:02}", initials(&e.entity), maturity.year(), b + 1), entity: i, terms, basis_bp });
+            let terms =
+                BondTerms { coupon, frequency, maturity, day_count, issue_date: Some(add_months(maturity, -120)) };
+            bonds.push(Bond {
+                bond: format!("{}-{}{:02}", initials(&e.entity), maturity.year(), b + 1),
+                entity: i,
+                terms,
+                basis_bp,
+            });
         }
     }
     // Weekly prices (Wednesdays), while the issuer is alive and the bond has over three months
@@ -541,7 +582,13 @@ fn cohort_rows(spec: &ScenarioSpec, profiles: &[GradeProfile]) -> Vec<CohortHist
 
 /// Plants the data faults, each at a place drawn from its own stream; the number of each kind
 /// scales with the universe (one per ten entities, at least two).
-fn plant_faults(spec: &ScenarioSpec, days: &[NaiveDate], paths: &[Path], quotes: &mut Vec<QuoteRow>, faults: &mut Vec<Fault>) {
+fn plant_faults(
+    spec: &ScenarioSpec,
+    days: &[NaiveDate],
+    paths: &[Path],
+    quotes: &mut Vec<QuoteRow>,
+    faults: &mut Vec<Fault>,
+) {
     let per_kind = (spec.entities / 10).max(2);
     let cal = Calendar::weekends_only();
     // Index of each (entity, day, tenor) row in `quotes`, before any row is added.
@@ -589,7 +636,15 @@ fn plant_faults(spec: &ScenarioSpec, days: &[NaiveDate], paths: &[Path], quotes:
             q.value = QuoteValue::Number(v);
             q.fault = Some(f);
         }
-        faults.push(Fault { kind: "stale_run", entity: e, date: days[k], last_date: days[k + 6], tenor: Some(t), expected: "flag:stale_run", detail: format!("{v} bp repeated for 7 business days") });
+        faults.push(Fault {
+            kind: "stale_run",
+            entity: e,
+            date: days[k],
+            last_date: days[k + 6],
+            tenor: Some(t),
+            expected: "flag:stale_run",
+            detail: format!("{v} bp repeated for 7 business days"),
+        });
     }
     // Spikes: one quote times 3 (or a third), back the next day.
     for _ in 0..per_kind {
@@ -601,7 +656,15 @@ fn plant_faults(spec: &ScenarioSpec, days: &[NaiveDate], paths: &[Path], quotes:
         let v = number(q);
         q.value = QuoteValue::Number(round_to(v * factor, 2));
         q.fault = Some(f);
-        faults.push(Fault { kind: "spike", entity: e, date: days[k], last_date: days[k], tenor: Some(t), expected: "flag:spike", detail: format!("{v} bp quoted x{factor:.3} for one day") });
+        faults.push(Fault {
+            kind: "spike",
+            entity: e,
+            date: days[k],
+            last_date: days[k],
+            tenor: Some(t),
+            expected: "flag:spike",
+            detail: format!("{v} bp quoted x{factor:.3} for one day"),
+        });
     }
     // Unit slips: three days of one tenor typed in percent (divided by 100).
     for _ in 0..(per_kind / 2).max(2) {
@@ -613,7 +676,15 @@ fn plant_faults(spec: &ScenarioSpec, days: &[NaiveDate], paths: &[Path], quotes:
             q.value = QuoteValue::Number(round_to(number(q) / 100.0, 4));
             q.fault = Some(f);
         }
-        faults.push(Fault { kind: "unit_slip", entity: e, date: days[k], last_date: days[k + 2], tenor: Some(t), expected: "reject:unit_slip", detail: "three days typed in percent instead of bp".into() });
+        faults.push(Fault {
+            kind: "unit_slip",
+            entity: e,
+            date: days[k],
+            last_date: days[k + 2],
+            tenor: Some(t),
+            expected: "reject:unit_slip",
+            detail: "three days typed in percent instead of bp".into(),
+        });
     }
     // Missing tenors: a curve keeps only two of its tenors.
     let mut dropped = BTreeSet::new();
@@ -629,7 +700,15 @@ fn plant_faults(spec: &ScenarioSpec, days: &[NaiveDate], paths: &[Path], quotes:
         for &t in &keep {
             quotes[index[&(e, k, t)]].fault = Some(f);
         }
-        faults.push(Fault { kind: "missing_tenors", entity: e, date: days[k], last_date: days[k], tenor: None, expected: "flag:few_tenors", detail: format!("only {} and {} months quoted", keep[0], keep[1]) });
+        faults.push(Fault {
+            kind: "missing_tenors",
+            entity: e,
+            date: days[k],
+            last_date: days[k],
+            tenor: None,
+            expected: "flag:few_tenors",
+            detail: format!("only {} and {} months quoted", keep[0], keep[1]),
+        });
     }
     // Conflicting duplicates: a second row for the same key with another value.
     let mut added = Vec::new();
@@ -642,7 +721,15 @@ fn plant_faults(spec: &ScenarioSpec, days: &[NaiveDate], paths: &[Path], quotes:
         let mut dup = q.clone();
         dup.value = QuoteValue::Number(round_to(number(q) * 1.07, 2));
         added.push(dup);
-        faults.push(Fault { kind: "conflicting_duplicate", entity: e, date: days[k], last_date: days[k], tenor: Some(t), expected: "reject:conflicting_duplicate", detail: "the same key quoted twice with values 7% apart".into() });
+        faults.push(Fault {
+            kind: "conflicting_duplicate",
+            entity: e,
+            date: days[k],
+            last_date: days[k],
+            tenor: Some(t),
+            expected: "reject:conflicting_duplicate",
+            detail: "the same key quoted twice with values 7% apart".into(),
+        });
     }
     // Unparseable numbers: a day's quote typed by hand as text.
     let garbled = ["n/a", "12,5", "1.2.3", "#VALUE!", "~90"];
@@ -654,7 +741,15 @@ fn plant_faults(spec: &ScenarioSpec, days: &[NaiveDate], paths: &[Path], quotes:
         q.value = QuoteValue::Text(garbled[g % garbled.len()].to_string());
         q.file = QuoteFile::Manual;
         q.fault = Some(f);
-        faults.push(Fault { kind: "unparseable_number", entity: e, date: days[k], last_date: days[k], tenor: Some(t), expected: "reject:unparseable_number", detail: format!("par_spread_bp typed as {:?}", garbled[g % garbled.len()]) });
+        faults.push(Fault {
+            kind: "unparseable_number",
+            entity: e,
+            date: days[k],
+            last_date: days[k],
+            tenor: Some(t),
+            expected: "reject:unparseable_number",
+            detail: format!("par_spread_bp typed as {:?}", garbled[g % garbled.len()]),
+        });
     }
     // Weekend dates: a Friday quote typed in again with Saturday's date.
     for _ in 0..per_kind {
@@ -667,7 +762,15 @@ fn plant_faults(spec: &ScenarioSpec, days: &[NaiveDate], paths: &[Path], quotes:
         row.file = QuoteFile::Manual;
         row.fault = Some(f);
         added.push(row);
-        faults.push(Fault { kind: "weekend_date", entity: e, date: saturday, last_date: saturday, tenor: Some(t), expected: "reject:non_business_day", detail: format!("the {} quote entered again dated Saturday", days[k]) });
+        faults.push(Fault {
+            kind: "weekend_date",
+            entity: e,
+            date: saturday,
+            last_date: saturday,
+            tenor: Some(t),
+            expected: "reject:non_business_day",
+            detail: format!("the {} quote entered again dated Saturday", days[k]),
+        });
     }
     // Quotes after default: the feed keeps sending the last curve for three business days.
     for (e, p) in paths.iter().enumerate() {
@@ -697,7 +800,15 @@ fn plant_faults(spec: &ScenarioSpec, days: &[NaiveDate], paths: &[Path], quotes:
             d = cal.add_business_days(d, 1);
         }
         if first <= spec.end() {
-            faults.push(Fault { kind: "after_default", entity: e, date: first, last_date: cal.add_business_days(d, -1), tenor: None, expected: "reject:after_default", detail: format!("last curve repeated after the default on {dd}") });
+            faults.push(Fault {
+                kind: "after_default",
+                entity: e,
+                date: first,
+                last_date: cal.add_business_days(d, -1),
+                tenor: None,
+                expected: "reject:after_default",
+                detail: format!("last curve repeated after the default on {dd}"),
+            });
         } else {
             added.retain(|r| r.fault != Some(f));
         }

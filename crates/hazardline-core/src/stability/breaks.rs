@@ -50,7 +50,9 @@ pub struct BreakRow {
 fn series_of(points: &[Point], settings: &StabilitySettings) -> Vec<(NaiveDate, f64)> {
     match settings.cusum_target {
         CusumTarget::Levels => points.iter().map(|p| (p.date, p.value)).collect(),
-        CusumTarget::DailyChanges => daily_moves(points, settings.max_gap_days).iter().map(|m| (m.date, m.value - m.previous)).collect(),
+        CusumTarget::DailyChanges => {
+            daily_moves(points, settings.max_gap_days).iter().map(|m| (m.date, m.value - m.previous)).collect()
+        }
     }
 }
 
@@ -66,7 +68,13 @@ fn windows(values: Vec<(NaiveDate, f64)>, settings: &StabilitySettings) -> BTree
     out
 }
 
-fn test_window(entity: &str, series: &str, window: String, data: &[(NaiveDate, f64)], settings: &StabilitySettings) -> BreakRow {
+fn test_window(
+    entity: &str,
+    series: &str,
+    window: String,
+    data: &[(NaiveDate, f64)],
+    settings: &StabilitySettings,
+) -> BreakRow {
     let x: Vec<f64> = data.iter().map(|d| d.1).collect();
     let mut row = BreakRow {
         entity: entity.to_string(),
@@ -104,10 +112,18 @@ fn test_window(entity: &str, series: &str, window: String, data: &[(NaiveDate, f
 pub(crate) fn break_rows(panel: &Panel, settings: &StabilitySettings) -> Vec<BreakRow> {
     use rayon::prelude::*;
     // Histories are independent: in parallel, concatenated in panel order.
-    let histories: Vec<(&(String, String), &Vec<Point>)> = panel.iter().filter(|((series, _), _)| settings.cusum_series.is_empty() || settings.cusum_series.contains(series)).collect();
+    let histories: Vec<(&(String, String), &Vec<Point>)> = panel
+        .iter()
+        .filter(|((series, _), _)| settings.cusum_series.is_empty() || settings.cusum_series.contains(series))
+        .collect();
     let per_history: Vec<Vec<BreakRow>> = histories
         .par_iter()
-        .map(|((series, entity), points)| windows(series_of(points, settings), settings).into_iter().map(|(window, data)| test_window(entity, series, window, &data, settings)).collect())
+        .map(|((series, entity), points)| {
+            windows(series_of(points, settings), settings)
+                .into_iter()
+                .map(|(window, data)| test_window(entity, series, window, &data, settings))
+                .collect()
+        })
         .collect();
     per_history.into_iter().flatten().collect()
 }

@@ -42,9 +42,26 @@ pub fn residual_series(method: &str) -> String {
     format!("residual_bp/{method}")
 }
 
-fn flag(rule: FlagRule, severity: Severity, row: &StabilityRow, value: f64, threshold: f64, explanation: String) -> FlagRow {
+fn flag(
+    rule: FlagRule,
+    severity: Severity,
+    row: &StabilityRow,
+    value: f64,
+    threshold: f64,
+    explanation: String,
+) -> FlagRow {
     let entity = (row.scope == Scope::Entity).then(|| row.key.clone());
-    FlagRow { rule, severity, entity, series: row.series.clone(), period: row.period.clone(), date: None, value, threshold, explanation }
+    FlagRow {
+        rule,
+        severity,
+        entity,
+        series: row.series.clone(),
+        period: row.period.clone(),
+        date: None,
+        value,
+        threshold,
+        explanation,
+    }
 }
 
 fn who(row: &StabilityRow) -> String {
@@ -62,7 +79,14 @@ fn spread_flags(row: &StabilityRow, s: &StabilitySettings, out: &mut Vec<FlagRow
     }
     if let Some(share) = row.large_move_share.filter(|v| *v > s.large_move_share_max) {
         let t = s.move_threshold(&row.series).describe();
-        let text = format!("{:.1}% of {}'s {} daily moves in {} exceeded the large-move threshold ({t}), above the allowed share {}.", share * 100.0, row.key, row.moves.unwrap_or(0), row.period, s.large_move_share_max);
+        let text = format!(
+            "{:.1}% of {}'s {} daily moves in {} exceeded the large-move threshold ({t}), above the allowed share {}.",
+            share * 100.0,
+            row.key,
+            row.moves.unwrap_or(0),
+            row.period,
+            s.large_move_share_max
+        );
         let mut f = flag(FlagRule::LargeMoves, AMBER, row, share, s.large_move_share_max, text);
         f.date = row.max_move_date;
         out.push(f);
@@ -79,7 +103,10 @@ fn change_flags(row: &StabilityRow, s: &StabilitySettings, out: &mut Vec<FlagRow
     if row.scope == Scope::Grade {
         return;
     }
-    for (rule, what, change) in [(FlagRule::PeriodChangeMean, "mean", row.mean_change), (FlagRule::PeriodChangeMedian, "median", row.median_change)] {
+    for (rule, what, change) in [
+        (FlagRule::PeriodChangeMean, "mean", row.mean_change),
+        (FlagRule::PeriodChangeMedian, "median", row.median_change),
+    ] {
         if let Some(c) = change.filter(|c| c.abs() > s.change_max) {
             let text = format!("The {what} of {} changed by {:+.1}% from the previous period to {}, beyond the limit of {:.0}% either way.", who(row), c * 100.0, row.period, s.change_max * 100.0);
             out.push(flag(rule, AMBER, row, c, s.change_max, text));
@@ -88,7 +115,10 @@ fn change_flags(row: &StabilityRow, s: &StabilitySettings, out: &mut Vec<FlagRow
 }
 
 fn calibration_flags(row: &StabilityRow, s: &StabilitySettings, out: &mut Vec<FlagRow>) {
-    let checks = [(FlagRule::CalibrationFailures, "failed", row.failures, s.failures_max), (FlagRule::CalibrationInfeasible, "were infeasible", row.infeasible, s.infeasible_max)];
+    let checks = [
+        (FlagRule::CalibrationFailures, "failed", row.failures, s.failures_max),
+        (FlagRule::CalibrationInfeasible, "were infeasible", row.infeasible, s.infeasible_max),
+    ];
     for (rule, what, count, max) in checks {
         if let Some(c) = count.filter(|c| *c > max) {
             let text = format!("{c} calibrations of {} {what} in {} (over {} dates with a calibration status), more than the {max} allowed.", row.key, row.period, row.n);
@@ -181,5 +211,14 @@ pub fn residual_flags(curves: &[CurveResidualRow], settings: &StabilitySettings)
 /// Red before amber, then by rule, entity, series, period and date, for a stable table.
 pub fn sort_flags(flags: &mut [FlagRow]) {
     // By the rule's text, as the table shows it.
-    flags.sort_by(|a, b| (a.severity != RED, a.rule.as_str(), &a.entity, &a.series, &a.period, a.date).cmp(&(b.severity != RED, b.rule.as_str(), &b.entity, &b.series, &b.period, b.date)));
+    flags.sort_by(|a, b| {
+        (a.severity != RED, a.rule.as_str(), &a.entity, &a.series, &a.period, a.date).cmp(&(
+            b.severity != RED,
+            b.rule.as_str(),
+            &b.entity,
+            &b.series,
+            &b.period,
+            b.date,
+        ))
+    });
 }

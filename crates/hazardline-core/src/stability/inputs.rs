@@ -41,7 +41,10 @@ pub struct MarketMove {
 impl MarketMove {
     /// The relative move, when both numbers are usable (finite, level > 0, change >= 0).
     pub fn relative(&self) -> Option<f64> {
-        let ok = self.mean_abs_change_bp.is_finite() && self.mean_abs_change_bp >= 0.0 && self.mean_level_bp.is_finite() && self.mean_level_bp > 0.0;
+        let ok = self.mean_abs_change_bp.is_finite()
+            && self.mean_abs_change_bp >= 0.0
+            && self.mean_level_bp.is_finite()
+            && self.mean_level_bp > 0.0;
         ok.then(|| self.mean_abs_change_bp / self.mean_level_bp)
     }
 }
@@ -169,7 +172,15 @@ impl PanelBuilder {
 
     /// Every observation, history by history in arrival order of the histories.
     pub fn observations(&self) -> impl Iterator<Item = Observation> + '_ {
-        self.histories.iter().flat_map(|((s, e), v)| v.iter().map(move |p| Observation { series: s.clone(), entity: e.clone(), grade: p.grade(), date: p.date, value: p.value }))
+        self.histories.iter().flat_map(|((s, e), v)| {
+            v.iter().map(move |p| Observation {
+                series: s.clone(),
+                entity: e.clone(),
+                grade: p.grade(),
+                date: p.date,
+                value: p.value,
+            })
+        })
     }
 
     pub(crate) fn finish(self) -> (Panel, InputSummary) {
@@ -230,7 +241,10 @@ pub(crate) fn daily_moves(points: &[Point], max_gap_days: i64) -> Vec<DailyMove>
 }
 
 /// Mean relative market move per (entity, period), and the count of unusable rows.
-pub(crate) fn market_by_period(market: &[MarketMove], settings: &StabilitySettings) -> (BTreeMap<(String, Period), f64>, usize) {
+pub(crate) fn market_by_period(
+    market: &[MarketMove],
+    settings: &StabilitySettings,
+) -> (BTreeMap<(String, Period), f64>, usize) {
     let mut acc: BTreeMap<(&str, Period), (f64, usize)> = BTreeMap::new();
     let mut unusable = 0;
     for m in market {
@@ -255,7 +269,10 @@ pub(crate) struct PeriodCounts {
 }
 
 /// Sums the counts per (entity, period).
-pub(crate) fn counts_by_period(counts: &[CalibrationCounts], settings: &StabilitySettings) -> BTreeMap<(String, Period), PeriodCounts> {
+pub(crate) fn counts_by_period(
+    counts: &[CalibrationCounts],
+    settings: &StabilitySettings,
+) -> BTreeMap<(String, Period), PeriodCounts> {
     let mut out: BTreeMap<(&str, Period), PeriodCounts> = BTreeMap::new();
     for c in counts {
         let e = out.entry((&*c.entity, settings.period.of(c.date))).or_default();
@@ -281,13 +298,23 @@ pub struct SpreadEdge {
 /// The market move of `entity` on `date`, from the par spreads of its previous curve to
 /// those of this one: the mean absolute change over the tenors both quote, and the mean level
 /// of today's spreads; None when they share no tenor.
-pub fn spread_move(entity: &Arc<str>, date: NaiveDate, prev: &BTreeMap<u32, f64>, spreads: &BTreeMap<u32, f64>) -> Option<MarketMove> {
+pub fn spread_move(
+    entity: &Arc<str>,
+    date: NaiveDate,
+    prev: &BTreeMap<u32, f64>,
+    spreads: &BTreeMap<u32, f64>,
+) -> Option<MarketMove> {
     let changes: Vec<f64> = spreads.iter().filter_map(|(t, s)| prev.get(t).map(|p| (s - p).abs())).collect();
     if changes.is_empty() {
         return None;
     }
     let level = spreads.values().sum::<f64>() / spreads.len() as f64;
-    Some(MarketMove { entity: entity.clone(), date, mean_abs_change_bp: changes.iter().sum::<f64>() / changes.len() as f64, mean_level_bp: level })
+    Some(MarketMove {
+        entity: entity.clone(),
+        date,
+        mean_abs_change_bp: changes.iter().sum::<f64>() / changes.len() as f64,
+        mean_level_bp: level,
+    })
 }
 
 #[cfg(test)]
@@ -304,7 +331,8 @@ mod tests {
 
     #[test]
     fn panel_drops_bad_values_and_repeats() {
-        let o = [obs("2024-01-03", 0.02), obs("2024-01-02", 0.01), obs("2024-01-03", 0.05), obs("2024-01-04", f64::NAN)];
+        let o =
+            [obs("2024-01-03", 0.02), obs("2024-01-02", 0.01), obs("2024-01-03", 0.05), obs("2024-01-04", f64::NAN)];
         let (panel, s) = build_panel(&o);
         let pts = &panel[&("pd_1y".to_string(), "Alder".to_string())];
         assert_eq!(pts.iter().map(|p| p.value).collect::<Vec<_>>(), vec![0.01, 0.02]);

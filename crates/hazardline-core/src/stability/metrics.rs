@@ -153,7 +153,11 @@ pub(crate) struct EntityContext<'a> {
     pub settings: &'a StabilitySettings,
 }
 
-fn group_by_period<T: Copy>(items: &[T], date: impl Fn(&T) -> NaiveDate, settings: &StabilitySettings) -> BTreeMap<Period, Vec<T>> {
+fn group_by_period<T: Copy>(
+    items: &[T],
+    date: impl Fn(&T) -> NaiveDate,
+    settings: &StabilitySettings,
+) -> BTreeMap<Period, Vec<T>> {
     let mut out: BTreeMap<Period, Vec<T>> = BTreeMap::new();
     for it in items {
         out.entry(settings.period.of(date(it))).or_default().push(*it);
@@ -173,7 +177,14 @@ fn set_moves(row: &mut StabilityRow, moves: &[DailyMove], series: &str, settings
     row.param_rel_move = mean(&rel);
 }
 
-fn entity_period_row(series: &str, entity: &str, period: &Period, points: &[Point], moves: &[DailyMove], ctx: &EntityContext) -> StabilityRow {
+fn entity_period_row(
+    series: &str,
+    entity: &str,
+    period: &Period,
+    points: &[Point],
+    moves: &[DailyMove],
+    ctx: &EntityContext,
+) -> StabilityRow {
     let values: Vec<f64> = points.iter().map(|p| p.value).collect();
     let mut row = StabilityRow::blank(period, series, Scope::Entity, entity, values.len()).with_values(&values);
     set_moves(&mut row, moves, series, ctx.settings);
@@ -255,15 +266,20 @@ pub(crate) fn entity_means(panel: &Panel, settings: &StabilitySettings) -> BTree
 
 /// Grade and universe rows from the entity means.
 pub(crate) fn group_rows(means: &BTreeMap<GroupKey, Vec<f64>>) -> Vec<(Period, StabilityRow)> {
-    means.iter().map(|((series, period, scope, key), v)| (*period, StabilityRow::blank(period, series, *scope, key, v.len()).with_values(v))).collect()
+    means
+        .iter()
+        .map(|((series, period, scope, key), v)| {
+            (*period, StabilityRow::blank(period, series, *scope, key, v.len()).with_values(v))
+        })
+        .collect()
 }
 
 /// Fills the period-on-period changes of the mean and the median: each row against the row of
 /// the same series, scope and key in the immediately preceding period (none if that is absent).
 pub(crate) fn fill_changes(rows: &mut [(Period, StabilityRow)]) {
     type Centre = (Option<f64>, Option<f64>);
-    let base: BTreeMap<(String, Scope, String, Period), Centre> = rows
-        .iter().map(|(p, r)| ((r.series.clone(), r.scope, r.key.clone(), *p), (r.mean, r.median))).collect();
+    let base: BTreeMap<(String, Scope, String, Period), Centre> =
+        rows.iter().map(|(p, r)| ((r.series.clone(), r.scope, r.key.clone(), *p), (r.mean, r.median))).collect();
     for (p, r) in rows.iter_mut() {
         let Some(&(m0, med0)) = base.get(&(r.series.clone(), r.scope, r.key.clone(), p.previous())) else { continue };
         r.mean_change = m0.zip(r.mean).and_then(|(a, b)| relative_change(a, b));
@@ -277,7 +293,8 @@ pub(crate) fn fill_changes(rows: &mut [(Period, StabilityRow)]) {
 /// before universe rows (the order of `Scope`).
 pub(crate) fn cross_sections(panel: &Panel, settings: &StabilitySettings) -> Vec<CrossSectionRow> {
     use rayon::prelude::*;
-    let grade_labels: BTreeMap<u32, String> = panel.values().flatten().filter_map(|p| p.grade()).map(|g| (g, g.to_string())).collect();
+    let grade_labels: BTreeMap<u32, String> =
+        panel.values().flatten().filter_map(|p| p.grade()).map(|g| (g, g.to_string())).collect();
     // The panel is ordered by (series, entity): each series' histories are consecutive.
     let mut series: Vec<(&str, Vec<&Vec<Point>>)> = Vec::new();
     for ((name, _), points) in panel {
@@ -297,15 +314,29 @@ pub(crate) fn cross_sections(panel: &Panel, settings: &StabilitySettings) -> Vec
                     grades.entry((g, p.date)).or_default().push(p.value);
                 }
             }
-            let mut grade_rows: Vec<((&str, NaiveDate), Vec<f64>)> = grades.into_iter().map(|((g, d), v)| ((grade_labels[&g].as_str(), d), v)).collect();
+            let mut grade_rows: Vec<((&str, NaiveDate), Vec<f64>)> =
+                grades.into_iter().map(|((g, d), v)| ((grade_labels[&g].as_str(), d), v)).collect();
             grade_rows.sort_by(|a, b| a.0.cmp(&b.0));
             let mut universe_rows: Vec<(NaiveDate, Vec<f64>)> = universe.into_iter().collect();
             universe_rows.sort_by_key(|(d, _)| *d);
-            let rows = grade_rows.into_iter().map(|((key, date), v)| (Scope::Grade, key, date, v)).chain(universe_rows.into_iter().map(|(date, v)| (Scope::Universe, "all", date, v)));
+            let rows = grade_rows
+                .into_iter()
+                .map(|((key, date), v)| (Scope::Grade, key, date, v))
+                .chain(universe_rows.into_iter().map(|(date, v)| (Scope::Universe, "all", date, v)));
             let mut out = Vec::new();
             for (scope, key, date, mut v) in rows {
                 if let [Some(p10), Some(p50), Some(p90)] = quantiles_unsorted(&mut v, &[0.1, 0.5, 0.9])[..] {
-                    out.push(CrossSectionRow { date, period: settings.period.of(date).label(), series: name.to_string(), scope, key: key.to_string(), n: v.len(), p10, p50, p90 });
+                    out.push(CrossSectionRow {
+                        date,
+                        period: settings.period.of(date).label(),
+                        series: name.to_string(),
+                        scope,
+                        key: key.to_string(),
+                        n: v.len(),
+                        p10,
+                        p50,
+                        p90,
+                    });
                 }
             }
             out

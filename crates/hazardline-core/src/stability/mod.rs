@@ -72,12 +72,22 @@ pub struct SeriesAnalysis {
 }
 
 /// Summarises the parameter series. Errors only on invalid settings.
-pub fn analyse_series(observations: &[Observation], market: &[MarketMove], counts: &[CalibrationCounts], settings: &StabilitySettings) -> Result<SeriesAnalysis, StabilityError> {
+pub fn analyse_series(
+    observations: &[Observation],
+    market: &[MarketMove],
+    counts: &[CalibrationCounts],
+    settings: &StabilitySettings,
+) -> Result<SeriesAnalysis, StabilityError> {
     settings.check()?;
     analyse_panel(inputs::build_panel(observations), market, counts, settings)
 }
 
-fn analyse_panel((panel, mut input): (inputs::Panel, InputSummary), market: &[MarketMove], counts: &[CalibrationCounts], settings: &StabilitySettings) -> Result<SeriesAnalysis, StabilityError> {
+fn analyse_panel(
+    (panel, mut input): (inputs::Panel, InputSummary),
+    market: &[MarketMove],
+    counts: &[CalibrationCounts],
+    settings: &StabilitySettings,
+) -> Result<SeriesAnalysis, StabilityError> {
     settings.check()?;
     let (market_rel, unusable) = inputs::market_by_period(market, settings);
     input.market_unusable = unusable;
@@ -115,7 +125,9 @@ impl StabilityOutput {
     /// entity as the key, when it names one).
     pub fn flag_has_target(&self, flag: &FlagRow) -> bool {
         if let Some(method) = flag.series.strip_prefix("residual_bp/") {
-            return self.residuals.curves.iter().any(|c| Some(&*c.entity) == flag.entity.as_deref() && &*c.method == method && Some(c.date) == flag.date);
+            return self.residuals.curves.iter().any(|c| {
+                Some(&*c.entity) == flag.entity.as_deref() && &*c.method == method && Some(c.date) == flag.date
+            });
         }
         self.series.rows.iter().any(|r| {
             let key_ok = match &flag.entity {
@@ -128,7 +140,13 @@ impl StabilityOutput {
 }
 
 /// Runs the whole stage: series summaries, residual review, and every flag.
-pub fn analyse(observations: &[Observation], market: &[MarketMove], counts: &[CalibrationCounts], residuals: &[ResidualObservation], settings: &StabilitySettings) -> Result<StabilityOutput, StabilityError> {
+pub fn analyse(
+    observations: &[Observation],
+    market: &[MarketMove],
+    counts: &[CalibrationCounts],
+    residuals: &[ResidualObservation],
+    settings: &StabilitySettings,
+) -> Result<StabilityOutput, StabilityError> {
     settings.check()?;
     let mut panel = PanelBuilder::new();
     for o in observations {
@@ -139,7 +157,13 @@ pub fn analyse(observations: &[Observation], market: &[MarketMove], counts: &[Ca
 
 /// [`analyse`] on observations gathered as they were produced ([`PanelBuilder`]) and residuals
 /// already reviewed (by a [`ResidualReview`] the rows went through as they passed).
-pub fn analyse_gathered(observations: PanelBuilder, market: &[MarketMove], counts: &[CalibrationCounts], residuals: ResidualAnalysis, settings: &StabilitySettings) -> Result<StabilityOutput, StabilityError> {
+pub fn analyse_gathered(
+    observations: PanelBuilder,
+    market: &[MarketMove],
+    counts: &[CalibrationCounts],
+    residuals: ResidualAnalysis,
+    settings: &StabilitySettings,
+) -> Result<StabilityOutput, StabilityError> {
     let series = analyse_panel(observations.finish(), market, counts, settings)?;
     let mut all = flags::row_flags(&series.rows, settings);
     all.extend(flags::psi_flags(&series.psi, settings));

@@ -27,7 +27,10 @@ pub struct PsiRow {
 }
 
 /// PSI rows of every `psi_series` for every period whose previous period has data.
-pub(crate) fn psi_rows(means: &BTreeMap<(String, Period, Scope, String), Vec<f64>>, settings: &StabilitySettings) -> Vec<PsiRow> {
+pub(crate) fn psi_rows(
+    means: &BTreeMap<(String, Period, Scope, String), Vec<f64>>,
+    settings: &StabilitySettings,
+) -> Vec<PsiRow> {
     let mut out = Vec::new();
     for ((series, period, scope, _), current) in means {
         if *scope != Scope::Universe || !settings.psi_series.contains(series) {

@@ -35,7 +35,11 @@ impl PsiEdges {
         if let PsiEdges::Given(e) = self {
             let ordered = e.windows(2).all(|w| w[0] < w[1]);
             if e.is_empty() || !ordered || e.iter().any(|v| !v.is_finite()) {
-                return Err(StabilityError::Setting { name: "psi_edges".into(), value: format!("{e:?}"), expected: "at least one finite edge, strictly increasing" });
+                return Err(StabilityError::Setting {
+                    name: "psi_edges".into(),
+                    value: format!("{e:?}"),
+                    expected: "at least one finite edge, strictly increasing",
+                });
             }
         }
         Ok(())

@@ -130,7 +130,17 @@ pub struct ResidualAnalysis {
 /// tie, as `Iterator::max_by` picks the last maximum) and `worst_tenor` its tenor (empty before
 /// the first row); [`finish_row`] turns the sum into the RMSE, in place.
 fn start_row(r: &ResidualObservation) -> CurveResidualRow {
-    CurveResidualRow { date: r.date, entity: r.entity.clone(), method: r.method.clone(), n: 0, rmse_bp: -0.0, max_abs_bp: 0.0, worst_tenor: "".into(), converged: true, reprices: false }
+    CurveResidualRow {
+        date: r.date,
+        entity: r.entity.clone(),
+        method: r.method.clone(),
+        n: 0,
+        rmse_bp: -0.0,
+        max_abs_bp: 0.0,
+        worst_tenor: "".into(),
+        converged: true,
+        reprices: false,
+    }
 }
 
 fn add_to_row(c: &mut CurveResidualRow, r: &ResidualObservation) {
@@ -193,7 +203,10 @@ fn tenor_row(method: &str, tenor: &str, residuals: &mut [f64]) -> TenorResidualR
 /// The order of the worst residuals: largest |residual| first, ties by date, entity, method,
 /// tenor, then by arrival (the first n of a stable sort).
 fn worse(a: &ResidualObservation, b: &ResidualObservation) -> std::cmp::Ordering {
-    b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then_with(|| (a.date, &a.entity, &a.method, &a.tenor).cmp(&(b.date, &b.entity, &b.method, &b.tenor)))
+    b.residual_bp
+        .abs()
+        .total_cmp(&a.residual_bp.abs())
+        .then_with(|| (a.date, &a.entity, &a.method, &a.tenor).cmp(&(b.date, &b.entity, &b.method, &b.tenor)))
 }
 
 fn repricing_shares(curves: &[CurveResidualRow], tolerance_bp: f64) -> Vec<RepricingShare> {
@@ -203,7 +216,15 @@ fn repricing_shares(curves: &[CurveResidualRow], tolerance_bp: f64) -> Vec<Repri
         e.0 += 1;
         e.1 += usize::from(c.reprices);
     }
-    acc.into_iter().map(|(m, (n, k))| RepricingShare { method: m.to_string(), curves: n, repricing: k, share: k as f64 / n as f64, tolerance_bp }).collect()
+    acc.into_iter()
+        .map(|(m, (n, k))| RepricingShare {
+            method: m.to_string(),
+            curves: n,
+            repricing: k,
+            share: k as f64 / n as f64,
+            tolerance_bp,
+        })
+        .collect()
 }
 
 /// The residual review taken as the rows pass, one at a time, so that no row needs to be kept:
@@ -247,7 +268,8 @@ impl ResidualReview {
             self.non_finite += 1;
             return;
         }
-        let same = self.current.as_ref().is_some_and(|c| c.date == r.date && c.entity == r.entity && c.method == r.method);
+        let same =
+            self.current.as_ref().is_some_and(|c| c.date == r.date && c.entity == r.entity && c.method == r.method);
         if !same {
             self.curves.extend(self.current.take());
             self.current = Some(start_row(r));
@@ -300,10 +322,16 @@ impl ResidualReview {
                 use rayon::prelude::*;
                 // Tenors in parallel; each row's values are taken (and reordered) whole.
                 let mut values: Vec<Option<Vec<f64>>> = self.by_tenor.into_iter().map(Some).collect();
-                let jobs: Vec<(&Arc<str>, &Arc<str>, Vec<f64>)> = tenors.iter().map(|((m, t), i)| (m, t, values[*i].take().unwrap_or_default())).collect();
+                let jobs: Vec<(&Arc<str>, &Arc<str>, Vec<f64>)> =
+                    tenors.iter().map(|((m, t), i)| (m, t, values[*i].take().unwrap_or_default())).collect();
                 jobs.into_par_iter().map(|(m, t, mut v)| tenor_row(m, t, &mut v)).collect()
             },
-            worst: self.worst.into_iter().enumerate().map(|(i, r)| WorstResidualRow { rank: i + 1, residual: r }).collect(),
+            worst: self
+                .worst
+                .into_iter()
+                .enumerate()
+                .map(|(i, r)| WorstResidualRow { rank: i + 1, residual: r })
+                .collect(),
             repricing: repricing_shares(&curves, tol),
             curves,
             non_finite: self.non_finite,

@@ -183,7 +183,10 @@ impl StabilitySettings {
         }
         out.push(("psi_min_entities".into(), self.psi_min_entities.to_string()));
         out.push(("cusum_test".into(), "Brown-Durbin-Evans recursive-residual CUSUM, constant-mean model".into()));
-        out.push(("cusum_series".into(), if self.cusum_series.is_empty() { "all".into() } else { self.cusum_series.join(",") }));
+        out.push((
+            "cusum_series".into(),
+            if self.cusum_series.is_empty() { "all".into() } else { self.cusum_series.join(",") },
+        ));
         out.push(("cusum_target".into(), self.cusum_target.as_str().into()));
         out.push(("cusum_scope".into(), self.cusum_scope.as_str().into()));
         out.push(("cusum_level".into(), format!("{} (a = {})", self.cusum_level.as_str(), self.cusum_level.a())));
@@ -196,7 +199,11 @@ impl StabilitySettings {
 
     /// Checks every number (finite, non-negative, ordered where it must be).
     pub fn check(&self) -> Result<(), StabilityError> {
-        let bad = |name: &str, value: f64| StabilityError::Setting { name: name.to_string(), value: value.to_string(), expected: "a finite number >= 0" };
+        let bad = |name: &str, value: f64| StabilityError::Setting {
+            name: name.to_string(),
+            value: value.to_string(),
+            expected: "a finite number >= 0",
+        };
         let numbers = [
             ("large_move_share_max", self.large_move_share_max),
             ("cv_max", self.cv_max),
@@ -209,21 +216,41 @@ impl StabilitySettings {
             ("reprice_tolerance_bp", self.reprice_tolerance_bp),
             ("default_move_threshold", self.default_move_threshold.value()),
         ];
-        let listed = self.move_thresholds.iter().map(|(_, t)| ("move_threshold", t.value())).chain(self.residual_flag_bp.iter().map(|(_, v)| ("residual_flag_bp", *v)));
+        let listed = self
+            .move_thresholds
+            .iter()
+            .map(|(_, t)| ("move_threshold", t.value()))
+            .chain(self.residual_flag_bp.iter().map(|(_, v)| ("residual_flag_bp", *v)));
         if let Some((n, v)) = numbers.into_iter().chain(listed).find(|(_, v)| !(v.is_finite() && *v >= 0.0)) {
             return Err(bad(n, v));
         }
         if !(self.psi_epsilon.is_finite() && self.psi_epsilon > 0.0 && self.psi_epsilon < 1.0) {
-            return Err(StabilityError::Setting { name: "psi_epsilon".into(), value: self.psi_epsilon.to_string(), expected: "a number in (0, 1)" });
+            return Err(StabilityError::Setting {
+                name: "psi_epsilon".into(),
+                value: self.psi_epsilon.to_string(),
+                expected: "a number in (0, 1)",
+            });
         }
         if self.psi_red < self.psi_amber {
-            return Err(StabilityError::Setting { name: "psi_red".into(), value: self.psi_red.to_string(), expected: "at least psi_amber" });
+            return Err(StabilityError::Setting {
+                name: "psi_red".into(),
+                value: self.psi_red.to_string(),
+                expected: "at least psi_amber",
+            });
         }
         if self.max_gap_days < 1 {
-            return Err(StabilityError::Setting { name: "max_gap_days".into(), value: self.max_gap_days.to_string(), expected: "at least 1" });
+            return Err(StabilityError::Setting {
+                name: "max_gap_days".into(),
+                value: self.max_gap_days.to_string(),
+                expected: "at least 1",
+            });
         }
         if self.cusum_min_obs < 3 {
-            return Err(StabilityError::Setting { name: "cusum_min_obs".into(), value: self.cusum_min_obs.to_string(), expected: "at least 3" });
+            return Err(StabilityError::Setting {
+                name: "cusum_min_obs".into(),
+                value: self.cusum_min_obs.to_string(),
+                expected: "at least 3",
+            });
         }
         self.psi_edges.check()
     }
@@ -260,7 +287,10 @@ mod tests {
         assert!(MoveThreshold::Relative(0.1).exceeded(1.0, 1.11));
         assert!(!MoveThreshold::Relative(0.1).exceeded(1.0, 1.05));
         assert!(MoveThreshold::Absolute(0.01).exceeded(-0.5, -0.52));
-        let s = StabilitySettings { move_thresholds: vec![("cir_kappa".into(), MoveThreshold::Absolute(0.2))], ..StabilitySettings::default() };
+        let s = StabilitySettings {
+            move_thresholds: vec![("cir_kappa".into(), MoveThreshold::Absolute(0.2))],
+            ..StabilitySettings::default()
+        };
         assert_eq!(s.move_threshold("cir_kappa"), MoveThreshold::Absolute(0.2));
         assert_eq!(s.move_threshold("pd_1y"), MoveThreshold::Relative(0.1));
     }

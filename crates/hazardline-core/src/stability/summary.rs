@@ -47,10 +47,13 @@ pub fn quantiles_unsorted(values: &mut [f64], qs: &[f64]) -> Vec<Option<f64>> {
         let pos = q.clamp(0.0, 1.0) * (n - 1) as f64;
         (pos.floor() as usize, pos - pos.floor())
     };
-    let mut ranks: Vec<usize> = qs.iter().flat_map(|&q| {
-        let (i, _) = at(q);
-        [i, (i + 1).min(n - 1)]
-    }).collect();
+    let mut ranks: Vec<usize> = qs
+        .iter()
+        .flat_map(|&q| {
+            let (i, _) = at(q);
+            [i, (i + 1).min(n - 1)]
+        })
+        .collect();
     ranks.sort_unstable();
     ranks.dedup();
     // Select each rank in turn: after selecting rank k, every later rank lies right of k.

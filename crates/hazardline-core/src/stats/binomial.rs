@@ -143,7 +143,9 @@ mod tests {
     fn tails_add_up() {
         let (n, p) = (12u64, 0.2f64);
         for d in 0..=n {
-            let pmf = (1..=d).fold(1.0, |c, k| c * (n - k + 1) as f64 / k as f64) * p.powi(d as i32) * (1.0 - p).powi((n - d) as i32);
+            let pmf = (1..=d).fold(1.0, |c, k| c * (n - k + 1) as f64 / k as f64)
+                * p.powi(d as i32)
+                * (1.0 - p).powi((n - d) as i32);
             let s = binomial_upper_tail(d, n, p).unwrap() + binomial_lower_tail(d, n, p).unwrap();
             assert!((s - 1.0 - pmf).abs() < 1e-13, "d={d}: {s} vs {}", 1.0 + pmf);
         }

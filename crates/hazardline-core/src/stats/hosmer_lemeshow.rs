@@ -63,7 +63,10 @@ mod tests {
     #[test]
     fn invalid_buckets_are_errors() {
         assert_eq!(hosmer_lemeshow(&[]), Err(StatsError::NoBuckets));
-        assert_eq!(hosmer_lemeshow(&[BucketForecast { n: 10, d: 0, p: 0.0 }]), Err(StatsError::DegenerateForecast { index: 0, p: 0.0 }));
+        assert_eq!(
+            hosmer_lemeshow(&[BucketForecast { n: 10, d: 0, p: 0.0 }]),
+            Err(StatsError::DegenerateForecast { index: 0, p: 0.0 })
+        );
         assert!(matches!(
             hosmer_lemeshow(&[BucketForecast { n: 10, d: 1, p: 0.1 }, BucketForecast { n: 0, d: 0, p: 0.1 }]),
             Err(StatsError::Bucket { index: 1, .. })

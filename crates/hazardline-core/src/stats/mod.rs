@@ -14,7 +14,9 @@ pub mod poisson;
 pub mod special;
 pub mod zone;
 
-pub use binomial::{binomial_lower_tail, binomial_upper_tail, clopper_pearson, jeffreys_interval, jeffreys_p_value, wilson_interval};
+pub use binomial::{
+    binomial_lower_tail, binomial_upper_tail, clopper_pearson, jeffreys_interval, jeffreys_p_value, wilson_interval,
+};
 pub use hosmer_lemeshow::{hosmer_lemeshow, BucketForecast, HosmerLemeshow};
 pub use poisson::garwood_interval;
 pub use zone::{traffic_light, Zone, ZoneThresholds};

@@ -92,21 +92,12 @@ impl FromStr for DayCount {
     type Err = DayCountError;
 
     fn from_str(s: &str) -> Result<DayCount, DayCountError> {
-        let norm: String = s
-            .trim()
-            .to_ascii_uppercase()
-            .chars()
-            .filter(|c| !matches!(c, ' ' | '_'))
-            .collect();
+        let norm: String = s.trim().to_ascii_uppercase().chars().filter(|c| !matches!(c, ' ' | '_')).collect();
         match norm.as_str() {
             "ACT/360" | "ACTUAL/360" | "A360" => Ok(DayCount::Act360),
-            "ACT/365F" | "ACT/365FIXED" | "ACTUAL/365FIXED" | "ACT/365" | "A365F" => {
-                Ok(DayCount::Act365Fixed)
-            }
+            "ACT/365F" | "ACT/365FIXED" | "ACTUAL/365FIXED" | "ACT/365" | "A365F" => Ok(DayCount::Act365Fixed),
             "30/360" | "30/360BOND" | "30/360BONDBASIS" | "30I/360" => Ok(DayCount::Thirty360),
-            "ACT/ACT-ICMA" | "ACT/ACTICMA" | "ACTUAL/ACTUALICMA" | "ACT/ACT" => {
-                Ok(DayCount::ActActIcma)
-            }
+            "ACT/ACT-ICMA" | "ACT/ACTICMA" | "ACTUAL/ACTUALICMA" | "ACT/ACT" => Ok(DayCount::ActActIcma),
             _ => Err(DayCountError { text: s.to_string() }),
         }
     }
@@ -130,10 +121,7 @@ mod tests {
     fn actual_counts() {
         // Definitions (ISDA 2006 Definitions section 4.16).
         assert_eq!(DayCount::Act360.year_fraction(d(2024, 3, 20), d(2024, 6, 20)), 92.0 / 360.0);
-        assert_eq!(
-            DayCount::Act365Fixed.year_fraction(d(2024, 1, 1), d(2025, 1, 1)),
-            366.0 / 365.0
-        );
+        assert_eq!(DayCount::Act365Fixed.year_fraction(d(2024, 1, 1), d(2025, 1, 1)), 366.0 / 365.0);
     }
 
     #[test]

@@ -13,11 +13,7 @@ pub fn is_cds_imm_date(date: NaiveDate) -> bool {
 pub fn imm_on_or_before(date: NaiveDate) -> NaiveDate {
     let (y, m) = (date.year(), date.month());
     let quarter_month = m - (m % 3); // 0, 3, 6, 9 or 12
-    let candidate = if quarter_month == 0 {
-        None
-    } else {
-        NaiveDate::from_ymd_opt(y, quarter_month, 20)
-    };
+    let candidate = if quarter_month == 0 { None } else { NaiveDate::from_ymd_opt(y, quarter_month, 20) };
     match candidate {
         Some(c) if c <= date => c,
         Some(c) => add_months(c, -3),
@@ -41,11 +37,7 @@ pub enum MaturityError {
     #[error("tenor {0} is not a whole number of quarters: standard CDS tenors are multiples of 3 months")]
     NotQuarterly(Tenor),
     #[error("tenor {tenor} traded on {trade} rolls to maturity {maturity}, which is not after the protection start")]
-    Expired {
-        tenor: Tenor,
-        trade: NaiveDate,
-        maturity: NaiveDate,
-    },
+    Expired { tenor: Tenor, trade: NaiveDate, maturity: NaiveDate },
 }
 
 /// Standard CDS maturity with the semi-annual roll: take the IMM date on or before the trade

@@ -102,12 +102,7 @@ fn periods_from_dates(dates: &[NaiveDate], cal: &Calendar) -> Vec<CouponPeriod> 
         let (s, e) = (dates[i], dates[i + 1]);
         let last = i + 2 == n;
         let days = (e - s).num_days() + if last { 1 } else { 0 };
-        out.push(CouponPeriod {
-            accrual_start: s,
-            accrual_end: e,
-            payment: cal.following(e),
-            accrual_days: days,
-        });
+        out.push(CouponPeriod { accrual_start: s, accrual_end: e, payment: cal.following(e), accrual_days: days });
     }
     out
 }
@@ -157,7 +152,8 @@ mod tests {
     fn shared_schedules_equal_separate_ones() {
         use crate::time::{imm::cds_maturity, Tenor};
         let cal = Calendar::weekends_only();
-        let tenors: Vec<Tenor> = [6, 12, 24, 36, 48, 60, 84, 120, 180].iter().map(|&m| Tenor::from_months(m).unwrap()).collect();
+        let tenors: Vec<Tenor> =
+            [6, 12, 24, 36, 48, 60, 84, 120, 180].iter().map(|&m| Tenor::from_months(m).unwrap()).collect();
         let mut d = d(2019, 1, 1);
         for _ in 0..800 {
             d = d.succ_opt().unwrap();

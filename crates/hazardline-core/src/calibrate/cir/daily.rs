@@ -1,7 +1,7 @@
 //! The daily CIR fit: starting values, the day's least-squares problem in solver coordinates,
 //! and the entry points of the free and fixed-kappa-sigma fits.
 
-use super::pricer::{CirPricer, Buffers};
+use super::pricer::{Buffers, CirPricer};
 use super::*;
 use crate::calibrate::bootstrap::{bootstrap, BootstrapQuote, BootstrapSettings};
 use crate::curves::{DiscountCurve, HazardCurve};
@@ -20,41 +20,18 @@ use crate::time::Calendar;
 
 pub(crate) fn to_params(x: &[f64], fixed: Option<(f64, f64)>) -> CirParams {
     match fixed {
-        None => CirParams {
-            kappa: x[0].exp(),
-            theta: x[1].exp(),
-            sigma: x[2].max(0.0).sqrt(),
-            lambda0: x[3],
-        },
-        Some((kappa, sigma)) => CirParams {
-            kappa,
-            theta: x[0].exp(),
-            sigma,
-            lambda0: x[1],
-        },
+        None => CirParams { kappa: x[0].exp(), theta: x[1].exp(), sigma: x[2].max(0.0).sqrt(), lambda0: x[3] },
+        Some((kappa, sigma)) => CirParams { kappa, theta: x[0].exp(), sigma, lambda0: x[1] },
     }
 }
 
 pub(crate) fn box_of(b: &CirBounds, fixed: bool) -> (Vec<f64>, Vec<f64>) {
     if fixed {
-        (
-            vec![b.theta.0.ln(), b.lambda0.0],
-            vec![b.theta.1.ln(), b.lambda0.1],
-        )
+        (vec![b.theta.0.ln(), b.lambda0.0], vec![b.theta.1.ln(), b.lambda0.1])
     } else {
         (
-            vec![
-                b.kappa.0.ln(),
-                b.theta.0.ln(),
-                b.sigma.0 * b.sigma.0,
-                b.lambda0.0,
-            ],
-            vec![
-                b.kappa.1.ln(),
-                b.theta.1.ln(),
-                b.sigma.1 * b.sigma.1,
-                b.lambda0.1,
-            ],
+            vec![b.kappa.0.ln(), b.theta.0.ln(), b.sigma.0 * b.sigma.0, b.lambda0.0],
+            vec![b.kappa.1.ln(), b.theta.1.ln(), b.sigma.1 * b.sigma.1, b.lambda0.1],
         )
     }
 }
@@ -88,15 +65,7 @@ impl<'a> DayProblem<'a> {
 
     pub(crate) fn cost_of(&mut self, p: &CirParams) -> f64 {
         let mut r = vec![0.0; self.pricer.len()];
-        if self.pricer.evaluate(
-            p.kappa,
-            p.theta,
-            p.sigma,
-            p.lambda0,
-            &mut self.f64_buf,
-            &mut r,
-            None,
-        ) {
+        if self.pricer.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut self.f64_buf, &mut r, None) {
             0.5 * r.iter().map(|v| v * v).sum::<f64>()
         } else {
             f64::INFINITY
@@ -112,15 +81,7 @@ impl LeastSquares for DayProblem<'_> {
     fn eval(&mut self, x: &[f64], r: &mut [f64], jac: Option<&mut [f64]>) -> bool {
         let p = to_params(x, self.fixed);
         match jac {
-            None => self.pricer.evaluate(
-                p.kappa,
-                p.theta,
-                p.sigma,
-                p.lambda0,
-                &mut self.f64_buf,
-                r,
-                None,
-            ),
+            None => self.pricer.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut self.f64_buf, r, None),
             Some(jac) => {
                 let ok = self.pricer.evaluate(
                     Grad4::var(p.kappa, 0),
@@ -168,15 +129,7 @@ impl LeastSquares for DayProblem<'_> {
 /// (lambda0, theta) to the average hazards H_k / t_k; the best kappa wins. sigma starts at half
 /// the Feller bound sqrt(2 kappa theta).
 pub fn start_from_points(times: &[f64], integrated: &[f64]) -> CirParams {
-    let mut best = (
-        f64::INFINITY,
-        CirParams {
-            kappa: 0.3,
-            theta: 0.02,
-            sigma: 0.05,
-            lambda0: 0.01,
-        },
-    );
+    let mut best = (f64::INFINITY, CirParams { kappa: 0.3, theta: 0.02, sigma: 0.05, lambda0: 0.01 });
     let fallback_level = times
         .iter()
         .zip(integrated)
@@ -218,15 +171,7 @@ pub fn start_from_points(times: &[f64], integrated: &[f64]) -> CirParams {
             })
             .sum();
         if err < best.0 {
-            best = (
-                err,
-                CirParams {
-                    kappa,
-                    theta: th,
-                    sigma: 0.5 * (2.0 * kappa * th).sqrt(),
-                    lambda0: l0,
-                },
-            );
+            best = (err, CirParams { kappa, theta: th, sigma: 0.5 * (2.0 * kappa * th).sqrt(), lambda0: l0 });
         }
     }
     best.1
@@ -244,11 +189,9 @@ pub fn start_from_curve(curve: &HazardCurve) -> CirParams {
 pub(crate) fn default_start(trade: NaiveDate, quotes: &[BootstrapQuote], pricer: &CirPricer) -> CirParams {
     let settings = BootstrapSettings::default();
     match bootstrap(trade, quotes, &pricer.discount, &pricer.calendar, &settings) {
-        Ok(fit) if fit.complete() => fit
-            .curve
-            .as_ref()
-            .map(start_from_curve)
-            .unwrap_or_else(|| start_from_quotes(quotes)),
+        Ok(fit) if fit.complete() => {
+            fit.curve.as_ref().map(start_from_curve).unwrap_or_else(|| start_from_quotes(quotes))
+        }
         _ => start_from_quotes(quotes),
     }
 }
@@ -319,17 +262,8 @@ pub fn fit_cir(
     starts: &[CirParams],
     settings: &CirFitSettings,
 ) -> Result<CirFit, CirFitError> {
-    let pricer = CirPricer::new(
-        trade,
-        quotes,
-        discount,
-        cal,
-        settings.grid_step,
-        settings.accrual,
-    )?;
-    Ok(fit_with_pricer(
-        trade, &pricer, quotes, None, starts, settings,
-    ))
+    let pricer = CirPricer::new(trade, quotes, discount, cal, settings.grid_step, settings.accrual)?;
+    Ok(fit_with_pricer(trade, &pricer, quotes, None, starts, settings))
 }
 
 /// Fits theta and lambda0 with kappa and sigma held at the given values (the window mode).
@@ -347,22 +281,8 @@ pub fn fit_cir_fixed(
     if !(kappa >= b.kappa.0 && kappa <= b.kappa.1 && sigma >= b.sigma.0 && sigma <= b.sigma.1) {
         return Err(CirFitError::FixedOutOfBounds { kappa, sigma });
     }
-    let pricer = CirPricer::new(
-        trade,
-        quotes,
-        discount,
-        cal,
-        settings.grid_step,
-        settings.accrual,
-    )?;
-    Ok(fit_with_pricer(
-        trade,
-        &pricer,
-        quotes,
-        Some((kappa, sigma)),
-        starts,
-        settings,
-    ))
+    let pricer = CirPricer::new(trade, quotes, discount, cal, settings.grid_step, settings.accrual)?;
+    Ok(fit_with_pricer(trade, &pricer, quotes, Some((kappa, sigma)), starts, settings))
 }
 
 pub(crate) fn fit_with_pricer(
@@ -376,11 +296,7 @@ pub(crate) fn fit_with_pricer(
     let bounds = &settings.bounds;
     let mut candidates: Vec<CirParams> = starts
         .iter()
-        .filter(|p| {
-            [p.kappa, p.theta, p.sigma, p.lambda0]
-                .iter()
-                .all(|v| v.is_finite())
-        })
+        .filter(|p| [p.kappa, p.theta, p.sigma, p.lambda0].iter().all(|v| v.is_finite()))
         .copied()
         .collect();
     if candidates.is_empty() {
@@ -412,29 +328,12 @@ pub(crate) fn fit_with_pricer(
         }
         let (cost, p, iters, evals, converged) = match settings.solver {
             CirSolver::LevenbergMarquardt => {
-                let cap: &[f64] = if is_fixed {
-                    &[1.0, 0.05]
-                } else {
-                    &[1.0, 1.0, 0.05, 0.05]
-                };
-                let out = levenberg_marquardt(
-                    &mut problem,
-                    &to_x(start, is_fixed),
-                    &lo,
-                    &hi,
-                    cap,
-                    &settings.lm,
-                );
+                let cap: &[f64] = if is_fixed { &[1.0, 0.05] } else { &[1.0, 1.0, 0.05, 0.05] };
+                let out = levenberg_marquardt(&mut problem, &to_x(start, is_fixed), &lo, &hi, cap, &settings.lm);
                 if out.failed {
                     continue;
                 }
-                (
-                    out.cost,
-                    to_params(&out.x, fixed),
-                    out.iterations,
-                    out.evaluations,
-                    out.converged,
-                )
+                (out.cost, to_params(&out.x, fixed), out.iterations, out.evaluations, out.converged)
             }
             #[cfg(feature = "nelder-mead")]
             CirSolver::NelderMead => {
@@ -462,26 +361,15 @@ pub(crate) fn fit_with_pricer(
             lambda0: p.lambda0,
             rmse_bp: (2.0 * cost / m).sqrt(),
             feller: p.feller(),
-            status: if converged {
-                CirFitStatus::Ok
-            } else {
-                CirFitStatus::MaxIterations
-            },
-            mode: if is_fixed {
-                CirFitMode::FixedKappaSigma
-            } else {
-                CirFitMode::Free
-            },
+            status: if converged { CirFitStatus::Ok } else { CirFitStatus::MaxIterations },
+            mode: if is_fixed { CirFitMode::FixedKappaSigma } else { CirFitMode::Free },
             iterations,
             evaluations,
             quotes: pricer.residual_rows(&p),
             detail: bound_detail(&p, bounds, is_fixed),
         },
         None => {
-            let p = ranked
-                .first()
-                .map(|r| r.1)
-                .unwrap_or_else(|| fix(&start_from_quotes(quotes)));
+            let p = ranked.first().map(|r| r.1).unwrap_or_else(|| fix(&start_from_quotes(quotes)));
             CirFit {
                 trade_date: trade,
                 kappa: p.kappa,
@@ -491,18 +379,11 @@ pub(crate) fn fit_with_pricer(
                 rmse_bp: f64::NAN,
                 feller: p.feller(),
                 status: CirFitStatus::Failed,
-                mode: if is_fixed {
-                    CirFitMode::FixedKappaSigma
-                } else {
-                    CirFitMode::Free
-                },
+                mode: if is_fixed { CirFitMode::FixedKappaSigma } else { CirFitMode::Free },
                 iterations: 0,
                 evaluations: ranked.len() as u32,
                 quotes: Vec::new(),
-                detail: Some(format!(
-                    "no start gave finite prices ({} starts tried)",
-                    ranked.len()
-                )),
+                detail: Some(format!("no start gave finite prices ({} starts tried)", ranked.len())),
             }
         }
     }

@@ -38,10 +38,10 @@ pub use pricer::cir_par_spreads;
 pub use window::{fit_cir_window, CirWindowDay, CirWindowFit};
 
 use super::residuals::QuoteResidual;
-use crate::math::least_squares::LmSettings;
-use crate::models::cir::DEFAULT_GRID_STEP;
 use crate::instruments::cds::AccrualIntegration;
+use crate::math::least_squares::LmSettings;
 use crate::models::cir::CirParams;
+use crate::models::cir::DEFAULT_GRID_STEP;
 use crate::time::imm::MaturityError;
 use crate::time::Tenor;
 use chrono::NaiveDate;
@@ -57,12 +57,7 @@ pub struct CirBounds {
 
 impl Default for CirBounds {
     fn default() -> Self {
-        CirBounds {
-            kappa: (1e-3, 10.0),
-            theta: (1e-6, 2.0),
-            sigma: (1e-4, 2.0),
-            lambda0: (0.0, 2.0),
-        }
+        CirBounds { kappa: (1e-3, 10.0), theta: (1e-6, 2.0), sigma: (1e-4, 2.0), lambda0: (0.0, 2.0) }
     }
 }
 
@@ -118,23 +113,11 @@ pub enum CirFitError {
     #[error("quote {index}: {source}")]
     Maturity { index: usize, source: MaturityError },
     #[error("quotes {first} and {second} have the same maturity {maturity}")]
-    DuplicateMaturity {
-        first: usize,
-        second: usize,
-        maturity: NaiveDate,
-    },
+    DuplicateMaturity { first: usize, second: usize, maturity: NaiveDate },
     #[error("quote {index}: {what} {value} is not valid ({expected})")]
-    BadValue {
-        index: usize,
-        what: &'static str,
-        value: f64,
-        expected: &'static str,
-    },
+    BadValue { index: usize, what: &'static str, value: f64, expected: &'static str },
     #[error("discount curve is referenced on {discount}, not on the trade date {trade}")]
-    ReferenceDate {
-        trade: NaiveDate,
-        discount: NaiveDate,
-    },
+    ReferenceDate { trade: NaiveDate, discount: NaiveDate },
     #[error("fixed kappa {kappa} or sigma {sigma} is outside the bounds")]
     FixedOutOfBounds { kappa: f64, sigma: f64 },
     #[error("window has no day that can be fitted")]
@@ -189,11 +172,6 @@ pub struct CirFit {
 
 impl CirFit {
     pub fn params(&self) -> CirParams {
-        CirParams {
-            kappa: self.kappa,
-            theta: self.theta,
-            sigma: self.sigma,
-            lambda0: self.lambda0,
-        }
+        CirParams { kappa: self.kappa, theta: self.theta, sigma: self.sigma, lambda0: self.lambda0 }
     }
 }

@@ -14,9 +14,7 @@ pub(crate) fn nelder_mead(
     hi: &[f64],
     settings: &CirFitSettings,
 ) -> Option<(f64, CirParams, u32, u32, bool)> {
-    use argmin::core::{
-        CostFunction, Error, Executor, State, TerminationReason, TerminationStatus,
-    };
+    use argmin::core::{CostFunction, Error, Executor, State, TerminationReason, TerminationStatus};
     use argmin::solver::neldermead::NelderMead;
     struct Cost<'a> {
         pricer: &'a CirPricer,
@@ -28,20 +26,13 @@ pub(crate) fn nelder_mead(
         type Param = Vec<f64>;
         type Output = f64;
         fn cost(&self, x: &Vec<f64>) -> Result<f64, Error> {
-            let xc: Vec<f64> = x
-                .iter()
-                .zip(self.lo.iter().zip(self.hi))
-                .map(|(&v, (&l, &h))| v.clamp(l, h))
-                .collect();
+            let xc: Vec<f64> = x.iter().zip(self.lo.iter().zip(self.hi)).map(|(&v, (&l, &h))| v.clamp(l, h)).collect();
             // Outside the box the cost grows with the distance, so the simplex comes back.
             let out: f64 = x.iter().zip(&xc).map(|(a, b)| (a - b) * (a - b)).sum();
             let p = to_params(&xc, self.fixed);
             let mut buf = Buffers::default();
             let mut r = vec![0.0; self.pricer.len()];
-            if !self
-                .pricer
-                .evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut buf, &mut r, None)
-            {
+            if !self.pricer.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut buf, &mut r, None) {
                 return Ok(f64::MAX);
             }
             Ok(0.5 * r.iter().map(|v| v * v).sum::<f64>() * (1.0 + 1e6 * out) + 1e6 * out)
@@ -62,36 +53,15 @@ pub(crate) fn nelder_mead(
         };
         simplex.push(v);
     }
-    let solver = NelderMead::new(simplex)
-        .with_sd_tolerance(settings.nm_sd_tolerance)
-        .ok()?;
-    let cost = Cost {
-        pricer,
-        fixed,
-        lo,
-        hi,
-    };
-    let res = Executor::new(cost, solver)
-        .configure(|s| s.max_iters(settings.nm_max_iterations).counting(true))
-        .run()
-        .ok()?;
+    let solver = NelderMead::new(simplex).with_sd_tolerance(settings.nm_sd_tolerance).ok()?;
+    let cost = Cost { pricer, fixed, lo, hi };
+    let res =
+        Executor::new(cost, solver).configure(|s| s.max_iters(settings.nm_max_iterations).counting(true)).run().ok()?;
     let st = res.state();
     let x = st.get_best_param()?.clone();
-    let xc: Vec<f64> = x
-        .iter()
-        .zip(lo.iter().zip(hi))
-        .map(|(&v, (&l, &h))| v.clamp(l, h))
-        .collect();
-    let converged = matches!(
-        st.get_termination_status(),
-        TerminationStatus::Terminated(TerminationReason::SolverConverged)
-    );
+    let xc: Vec<f64> = x.iter().zip(lo.iter().zip(hi)).map(|(&v, (&l, &h))| v.clamp(l, h)).collect();
+    let converged =
+        matches!(st.get_termination_status(), TerminationStatus::Terminated(TerminationReason::SolverConverged));
     let evals = st.get_func_counts().get("cost_count").copied().unwrap_or(0) as u32;
-    Some((
-        st.get_best_cost(),
-        to_params(&xc, fixed),
-        st.get_iter() as u32,
-        evals,
-        converged,
-    ))
+    Some((st.get_best_cost(), to_params(&xc, fixed), st.get_iter() as u32, evals, converged))
 }

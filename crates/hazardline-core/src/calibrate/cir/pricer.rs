@@ -36,21 +36,12 @@ pub(crate) struct CirPricer {
 }
 
 pub(crate) fn check_quote(index: usize, q: &BootstrapQuote) -> Result<(), CirFitError> {
-    let bad = |what, value, expected| {
-        Err(CirFitError::BadValue {
-            index,
-            what,
-            value,
-            expected,
-        })
-    };
+    let bad = |what, value, expected| Err(CirFitError::BadValue { index, what, value, expected });
     if !(q.recovery >= 0.0 && q.recovery < 1.0) {
         return bad("recovery", q.recovery, "a fraction in [0, 1)");
     }
     match q.quote {
-        CdsQuote::ParSpread(s) if !(s > 0.0 && s.is_finite()) => {
-            bad("par spread", s, "a positive number")
-        }
+        CdsQuote::ParSpread(s) if !(s > 0.0 && s.is_finite()) => bad("par spread", s, "a positive number"),
         CdsQuote::Upfront { upfront, .. } if !(upfront.is_finite() && upfront < 1.0) => {
             bad("upfront", upfront, "a finite fraction of notional below 1")
         }
@@ -74,10 +65,7 @@ impl CirPricer {
             return Err(CirFitError::NoQuotes);
         }
         if discount.reference() != trade {
-            return Err(CirFitError::ReferenceDate {
-                trade,
-                discount: discount.reference(),
-            });
+            return Err(CirFitError::ReferenceDate { trade, discount: discount.reference() });
         }
         let mut order: Vec<(usize, CdsContract)> = Vec::with_capacity(quotes.len());
         for (i, q) in quotes.iter().enumerate() {
@@ -99,10 +87,7 @@ impl CirPricer {
         let last = &order.last().expect("non-empty").1;
         let t_end = crate::curves::year_time(trade, last.maturity).max(crate::curves::year_time(
             trade,
-            last.periods
-                .last()
-                .map(|p| add_days(p.payment, -1))
-                .unwrap_or(last.maturity),
+            last.periods.last().map(|p| add_days(p.payment, -1)).unwrap_or(last.maturity),
         ));
         let nodes = uniform_grid(grid_step, t_end);
         let refs: Vec<&CdsContract> = order.iter().map(|(_, c)| c).collect();
@@ -115,14 +100,7 @@ impl CirPricer {
                     CdsQuote::ParSpread(s) => (s, 0.0),
                     CdsQuote::Upfront { upfront, coupon } => (coupon, upfront),
                 };
-                Leg {
-                    quote_index: *i,
-                    tenor: q.tenor,
-                    coupon,
-                    upfront,
-                    one_minus_r: 1.0 - q.recovery,
-                    quote: q.quote,
-                }
+                Leg { quote_index: *i, tenor: q.tenor, coupon, upfront, one_minus_r: 1.0 - q.recovery, quote: q.quote }
             })
             .collect();
         let longest = plan.contracts.len() - 1;
@@ -131,14 +109,7 @@ impl CirPricer {
             let m = c.prot.len();
             m >= 2 && m <= lp.len() && c.prot[..m - 1] == lp[..m - 1]
         });
-        Ok(CirPricer {
-            plan,
-            legs,
-            longest,
-            shared_protection,
-            discount: discount.clone(),
-            calendar: cal.clone(),
-        })
+        Ok(CirPricer { plan, legs, longest, shared_protection, discount: discount.clone(), calendar: cal.clone() })
     }
 
     pub(crate) fn len(&self) -> usize {
@@ -175,12 +146,7 @@ impl CirPricer {
         let (lq, pq) = (&buf.lq, &buf.pq);
         let term = |i0: u32, i1: u32| -> S {
             let (i0, i1) = (i0 as usize, i1 as usize);
-            protection_term(
-                pq[i0],
-                pq[i1],
-                plan.log_dfs[i0] - plan.log_dfs[i1],
-                lq[i0] - lq[i1],
-            )
+            protection_term(pq[i0], pq[i1], plan.log_dfs[i0] - plan.log_dfs[i1], lq[i0] - lq[i1])
         };
         buf.cum.clear();
         if self.shared_protection {
@@ -223,15 +189,7 @@ impl CirPricer {
         let mut buf = Buffers::default();
         let mut out = vec![0.0; self.len()];
         let mut legs = Vec::new();
-        if !self.evaluate(
-            p.kappa,
-            p.theta,
-            p.sigma,
-            p.lambda0,
-            &mut buf,
-            &mut out,
-            Some(&mut legs),
-        ) {
+        if !self.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut buf, &mut out, Some(&mut legs)) {
             return Vec::new();
         }
         let mut rows: Vec<QuoteResidual> = self
@@ -243,11 +201,9 @@ impl CirPricer {
                 let par_bp = prot / ann * 1e4;
                 let (instrument, market, model) = match leg.quote {
                     CdsQuote::ParSpread(s) => ("cds_par_spread", s * 1e4, par_bp),
-                    CdsQuote::Upfront { upfront, coupon } => (
-                        "cds_upfront",
-                        upfront,
-                        (prot - coupon * ann) / c.cash_settle_df,
-                    ),
+                    CdsQuote::Upfront { upfront, coupon } => {
+                        ("cds_upfront", upfront, (prot - coupon * ann) / c.cash_settle_df)
+                    }
                 };
                 QuoteResidual {
                     quote_index: leg.quote_index,
@@ -274,11 +230,7 @@ pub(crate) struct Buffers<S> {
 
 impl<S> Default for Buffers<S> {
     fn default() -> Self {
-        Buffers {
-            lq: Vec::new(),
-            pq: Vec::new(),
-            cum: Vec::new(),
-        }
+        Buffers { lq: Vec::new(), pq: Vec::new(), cum: Vec::new() }
     }
 }
 
@@ -315,22 +267,9 @@ pub fn cir_par_spreads(
     settings: &CirFitSettings,
 ) -> Result<Vec<f64>, CirFitError> {
     // Any par quote will do: the repriced par spread does not depend on it.
-    let quotes: Vec<BootstrapQuote> = tenors
-        .iter()
-        .map(|&tenor| BootstrapQuote {
-            tenor,
-            quote: CdsQuote::ParSpread(0.01),
-            recovery,
-        })
-        .collect();
-    let pricer = CirPricer::new(
-        trade,
-        &quotes,
-        discount,
-        cal,
-        settings.grid_step,
-        settings.accrual,
-    )?;
+    let quotes: Vec<BootstrapQuote> =
+        tenors.iter().map(|&tenor| BootstrapQuote { tenor, quote: CdsQuote::ParSpread(0.01), recovery }).collect();
+    let pricer = CirPricer::new(trade, &quotes, discount, cal, settings.grid_step, settings.accrual)?;
     let rows = pricer.residual_rows(p);
     Ok(rows.iter().map(|r| r.model_par_spread_bp / 1e4).collect())
 }

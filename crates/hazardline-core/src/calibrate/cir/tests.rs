@@ -21,17 +21,11 @@ fn gradient_matches_finite_differences() {
             let mut dn = p;
             up[i] += h;
             dn[i] -= h;
-            let fd = (f(up[0], up[1], up[2], up[3], t) - f(dn[0], dn[1], dn[2], dn[3], t))
-                / (2.0 * h);
-            assert!(
-                (fd - g.d[i]).abs() < 1e-7 * (1.0 + fd.abs()),
-                "t={t} i={i}: {fd} vs {}",
-                g.d[i]
-            );
+            let fd = (f(up[0], up[1], up[2], up[3], t) - f(dn[0], dn[1], dn[2], dn[3], t)) / (2.0 * h);
+            assert!((fd - g.d[i]).abs() < 1e-7 * (1.0 + fd.abs()), "t={t} i={i}: {fd} vs {}", g.d[i]);
         }
     }
 }
-
 
 #[test]
 fn start_recovers_a_deterministic_curve() {

@@ -117,16 +117,7 @@ pub fn fit_cir_window(
 ) -> Result<CirWindowFit, CirFitError> {
     let pricers: Vec<Result<CirPricer, CirFitError>> = days
         .iter()
-        .map(|d| {
-            CirPricer::new(
-                d.trade_date,
-                d.quotes,
-                d.discount,
-                cal,
-                settings.grid_step,
-                settings.accrual,
-            )
-        })
+        .map(|d| CirPricer::new(d.trade_date, d.quotes, d.discount, cal, settings.grid_step, settings.accrual))
         .collect();
     let usable: Vec<usize> = (0..days.len()).filter(|&i| pricers[i].is_ok()).collect();
     if usable.is_empty() {
@@ -140,14 +131,7 @@ pub fn fit_cir_window(
     for &i in &pooled {
         let pr = pricers[i].as_ref().expect("usable");
         let starts: Vec<CirParams> = days[i].start.into_iter().collect();
-        let f = fit_with_pricer(
-            days[i].trade_date,
-            pr,
-            days[i].quotes,
-            None,
-            &starts,
-            settings,
-        );
+        let f = fit_with_pricer(days[i].trade_date, pr, days[i].quotes, None, &starts, settings);
         if f.status != CirFitStatus::Failed {
             free.push((i, f.params()));
         }
@@ -189,11 +173,7 @@ pub fn fit_cir_window(
         probs.push(DayProblem::new(pr, None));
         dates.push(days[*i].trade_date);
     }
-    let mut pooled_problem = PooledProblem {
-        days: probs,
-        offsets,
-        m,
-    };
+    let mut pooled_problem = PooledProblem { days: probs, offsets, m };
     let out = levenberg_marquardt(&mut pooled_problem, &x0, &lo, &hi, &cap, &settings.lm);
     let (kappa, sigma) = (out.x[0].exp(), out.x[1].max(0.0).sqrt());
     let status = if out.failed {
@@ -206,17 +186,7 @@ pub fn fit_cir_window(
     let pooled_theta: std::collections::HashMap<usize, CirParams> = free
         .iter()
         .enumerate()
-        .map(|(k, (i, _))| {
-            (
-                *i,
-                CirParams {
-                    kappa,
-                    theta: out.x[2 + 2 * k].exp(),
-                    sigma,
-                    lambda0: out.x[3 + 2 * k],
-                },
-            )
-        })
+        .map(|(k, (i, _))| (*i, CirParams { kappa, theta: out.x[2 + 2 * k].exp(), sigma, lambda0: out.x[3 + 2 * k] }))
         .collect();
 
     let mut results = Vec::with_capacity(days.len());
@@ -235,14 +205,7 @@ pub fn fit_cir_window(
                 if let Some(p) = day.start {
                     starts.push(p);
                 }
-                let f = fit_with_pricer(
-                    day.trade_date,
-                    pr,
-                    day.quotes,
-                    Some((kappa, sigma)),
-                    &starts,
-                    settings,
-                );
+                let f = fit_with_pricer(day.trade_date, pr, day.quotes, Some((kappa, sigma)), &starts, settings);
                 if f.status != CirFitStatus::Failed {
                     prev = Some(f.params());
                 }
