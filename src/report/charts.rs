@@ -645,7 +645,9 @@ fn lines_through_time(
             let mut runs: Vec<Vec<(f64, f64)>> = vec![Vec::new()];
             for p in pts {
                 if ok(p) {
-                    runs.last_mut().map(|r| r.push(*p));
+                    if let Some(r) = runs.last_mut() {
+                        r.push(*p)
+                    }
                 } else if runs.last().is_some_and(|r| !r.is_empty()) {
                     runs.push(Vec::new());
                 }
@@ -702,7 +704,7 @@ fn signed_short(v: f64) -> String {
         return if v > 0.0 { "+inf".into() } else { "-inf".into() };
     }
     let a = v.abs();
-    if a >= 1e4 || a < 1e-3 {
+    if !a.is_nan() && !(1e-3..1e4).contains(&a) {
         return format!("{v:+.1e}");
     }
     let decimals = (1.0 - a.log10().floor()).max(0.0) as usize;

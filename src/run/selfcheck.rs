@@ -101,7 +101,7 @@ fn cir_recovery(s: &crate::sim::Scenario, tables: &Path) -> Result<Vec<CirRecove
             continue;
         }
         let Some(&ei) = index.get(name) else { continue };
-        let grade = s.grades.iter().filter(|g| g.0 == ei && g.1 <= date).map(|g| g.2).last().unwrap_or(1);
+        let grade = s.grades.iter().filter(|g| g.0 == ei && g.1 <= date).map(|g| g.2).next_back().unwrap_or(1);
         let prof = s.profiles[(grade - 1) as usize];
         let q = pricing_params(0.0, prof.theta_p, prof.multiplier);
         let slot = by.entry(name.to_string()).or_default();

@@ -50,7 +50,7 @@ fn zero_recovery_zero_coupon_bond_discounts_at_r_plus_lambda() {
     let hz = HazardCurve::new(trade, vec![1.0, 3.0, 5.0], vec![0.01, 0.02, 0.04]).unwrap();
     for (t, integral_lambda) in [(0.5, 0.005), (1.0, 0.01), (2.0, 0.03), (4.0, 0.09), (5.0, 0.13), (7.0, 0.21)] {
         let price = disc.df_at(t) * hz.survival_at(t);
-        let by_hand = (-(0.035 * t + integral_lambda) as f64).exp();
+        let by_hand = (-(0.035 * t + integral_lambda)).exp();
         assert!((price - by_hand).abs() < 1e-15, "t = {t}");
     }
 }

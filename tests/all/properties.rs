@@ -76,6 +76,7 @@ fn bumping_one_quote_moves_only_later_nodes() {
         let mut bumped = base.clone();
         bumped[k].1 += 1.0;
         let (f1, _) = fit(trade, &disc, &bumped, 0.4, &BootstrapSettings::default());
+        #[allow(clippy::needless_range_loop)] // j indexes three arrays at once
         for j in 0..TENORS.len() {
             let (a, b) = (f0.nodes[j].hazard.unwrap(), f1.nodes[j].hazard.unwrap());
             if j < k {

@@ -380,7 +380,7 @@ proptest! {
                 2 => "2024-01-06,F,USD,5Y,100,,,\n".to_string(),
                 3 => format!("{d},F,USD,9X,100,,,\n"),
                 4 => format!("{d},,USD,5Y,100,,,\n"),
-                _ => format!("not-a-date,F,USD,5Y,100,,,\n"),
+                _ => "not-a-date,F,USD,5Y,100,,,\n".to_string(),
             };
             text += &row;
             expected_bad += 1;

@@ -223,7 +223,7 @@ pub fn backtest_members(
     recovery: f64,
 ) -> Result<BacktestOutput, BacktestError> {
     settings.check()?;
-    if !(recovery >= 0.0 && recovery < 1.0) {
+    if !(0.0..1.0).contains(&recovery) {
         return Err(BacktestError::BadRecovery(recovery));
     }
     bucket_observations(&mut obs, settings);

@@ -321,9 +321,9 @@ fn solve_on_plan(
     let mut log_q = vec![0.0f64; np];
     let mut pq = vec![0.0f64; np];
     // Points at t <= 0 have survival 1.
-    for j in 0..np {
+    for (j, p) in pq.iter_mut().enumerate() {
         if plan.times[j] <= 0.0 {
-            pq[j] = plan.log_dfs[j].exp();
+            *p = plan.log_dfs[j].exp();
         }
     }
     let mut dual_lq = vec![Dual::constant(0.0); np];

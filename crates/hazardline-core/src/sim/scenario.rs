@@ -410,7 +410,7 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
     if spec.faults {
         plant_faults(spec, &days, &paths, &mut quotes, &mut faults);
     }
-    quotes.sort_by(|a, b| (a.file, a.date, a.entity, a.tenor).cmp(&(b.file, b.date, b.entity, b.tenor)));
+    quotes.sort_by_key(|a| (a.file, a.date, a.entity, a.tenor));
     Scenario {
         spec: spec.clone(),
         profiles,
@@ -594,7 +594,7 @@ fn plant_faults(
     // Index of each (entity, day, tenor) row in `quotes`, before any row is added.
     let mut index = std::collections::HashMap::with_capacity(quotes.len());
     for (q, r) in quotes.iter().enumerate() {
-        if let Some(k) = days.binary_search(&r.date).ok() {
+        if let Ok(k) = days.binary_search(&r.date) {
             index.insert((r.entity, k, r.tenor), q);
         }
     }

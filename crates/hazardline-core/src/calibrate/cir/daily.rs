@@ -343,7 +343,7 @@ pub(crate) fn fit_with_pricer(
                 }
             }
         };
-        if best.as_ref().map_or(true, |b| cost < b.0) {
+        if best.as_ref().is_none_or(|b| cost < b.0) {
             best = Some((cost, p, iters, evals, converged));
         }
         // The best-ranked start that converges is kept; others are tried only on failure.
