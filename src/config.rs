@@ -5,13 +5,14 @@
 //! Every setting has a default, documented on its field; `pipelines/quarterly-review.toml`
 //! shows them all with comments.
 
-use crate::backtest::BacktestSettings;
+use crate::backtest::{BacktestSettings, CensoringPolicy};
 use crate::calibrate::cir::CirFitMode;
 use crate::calibrate::{BootstrapSettings, InfeasiblePolicy};
 use crate::error::{Error, Result};
 use crate::ingest::{InputPaths, QualitySettings};
 use crate::instruments::bond::RecoveryConvention;
 use crate::instruments::AccrualIntegration;
+use crate::stability::CusumLevel;
 use crate::time::{parse_iso_date, Calendar};
 use chrono::NaiveDate;
 use serde::{Deserialize, Serialize};
@@ -60,7 +61,7 @@ pub struct BacktestStage {
 impl BacktestStage {
     /// The settings in force as (name, value) pairs.
     pub fn pairs(&self) -> Vec<(String, String)> {
-        use crate::backtest::{Bucketing, CensoringPolicy};
+        use crate::backtest::Bucketing;
         let c = &self.core;
         vec![
             ("enabled".into(), self.enabled.to_string()),
@@ -128,16 +129,16 @@ pub struct BacktestSection {
     /// Run the backtest. Default: when grades, defaults or a cohort history are given.
     pub enabled: Option<bool>,
     /// `annual` (default: first business day of each year) or `quarterly`.
-    pub cohorts: Option<String>,
+    pub cohorts: Option<CohortFrequency>,
     /// Horizons in whole years. Default [1].
     pub horizons: Option<Vec<u32>>,
     /// A cohort member's curve is its latest within this many calendar days. Default 10.
     pub lookback_days: Option<i64>,
     /// `exclude` (default) or `survivor`: what a member whose data ends inside the horizon
     /// without a default counts as in the cohort tests (exposure is exact either way).
-    pub censoring: Option<String>,
+    pub censoring: Option<CensoringPolicy>,
     /// `grade` (default when grades are given) or `pd_bands`.
-    pub buckets: Option<String>,
+    pub buckets: Option<BucketChoice>,
     /// Implied-PD band edges (decimals) for `pd_bands`; without them, `pd_quantiles`.
     pub pd_edges: Option<Vec<f64>>,
     /// Number of implied-PD quantile bands. Default 5.
@@ -156,28 +157,15 @@ fn backtest_stage(k: &BacktestSection, inputs: &InputPaths, path: &Path) -> Resu
     use crate::backtest::{Bucketing, CensoringPolicy};
     let enabled =
         k.enabled.unwrap_or(inputs.grades.is_some() || inputs.defaults.is_some() || inputs.cohort_history.is_some());
-    let frequency = match k.cohorts.as_deref().unwrap_or("annual") {
-        "annual" => CohortFrequency::Annual,
-        "quarterly" => CohortFrequency::Quarterly,
-        other => {
-            return Err(bad(path, "backtest.cohorts", format!("{other:?} is not one of \"annual\", \"quarterly\"")))
-        }
-    };
-    let censoring = match k.censoring.as_deref().unwrap_or("exclude") {
-        "exclude" => CensoringPolicy::Exclude,
-        "survivor" => CensoringPolicy::CountAsSurvivor,
-        other => {
-            return Err(bad(path, "backtest.censoring", format!("{other:?} is not one of \"exclude\", \"survivor\"")))
-        }
-    };
-    let default_buckets = if inputs.grades.is_some() { "grade" } else { "pd_bands" };
-    let bucketing = match k.buckets.as_deref().unwrap_or(default_buckets) {
-        "grade" => Bucketing::Grades,
-        "pd_bands" => match &k.pd_edges {
+    let frequency = k.cohorts.unwrap_or(CohortFrequency::Annual);
+    let censoring = k.censoring.unwrap_or(CensoringPolicy::Exclude);
+    let default_buckets = if inputs.grades.is_some() { BucketChoice::Grade } else { BucketChoice::PdBands };
+    let bucketing = match k.buckets.unwrap_or(default_buckets) {
+        BucketChoice::Grade => Bucketing::Grades,
+        BucketChoice::PdBands => match &k.pd_edges {
             Some(e) => Bucketing::PdEdges(e.clone()),
             None => Bucketing::PdQuantiles(k.pd_quantiles.unwrap_or(5)),
         },
-        other => return Err(bad(path, "backtest.buckets", format!("{other:?} is not one of \"grade\", \"pd_bands\""))),
     };
     let zones = crate::stats::ZoneThresholds::new(k.zone_yellow.unwrap_or(0.05), k.zone_red.unwrap_or(0.001))
         .map_err(|e| bad(path, "backtest.zone_yellow / zone_red", e.to_string()))?;
@@ -224,7 +212,7 @@ pub struct StabilitySection {
     /// Series tested for breaks. Default the CIR kappa, theta and sigma.
     pub cusum_series: Option<Vec<String>>,
     /// `10%`, `5%` (default) or `1%`.
-    pub cusum_level: Option<String>,
+    pub cusum_level: Option<CusumLevel>,
     pub cusum_min_obs: Option<usize>,
     /// Residual flag thresholds in bp by method, e.g. `{ cir = 10.0, bond_fit = 10.0 }`.
     pub residual_flag_bp: Option<BTreeMap<String, f64>>,
@@ -258,9 +246,9 @@ pub struct ConventionsSection {
     /// Recovery by the quotes' `seniority` value. Default: empty.
     pub recovery_by_seniority: Option<BTreeMap<String, f64>>,
     /// `floor` (default) or `fail`: what to do with a quote that needs a negative hazard.
-    pub infeasible: Option<String>,
+    pub infeasible: Option<InfeasiblePolicy>,
     /// `standard` (default) or `exact` accrual-on-default integration.
-    pub accrual_on_default: Option<String>,
+    pub accrual_on_default: Option<AccrualIntegration>,
 }
 
 /// `[calibration]`.
@@ -276,14 +264,14 @@ pub struct CalibrationSection {
     pub cir: Option<bool>,
     /// `free` (default: kappa, theta, sigma, lambda0 fitted daily) or `fixed_kappa_sigma`
     /// (kappa and sigma estimated per window, theta and lambda0 daily).
-    pub cir_mode: Option<String>,
+    pub cir_mode: Option<CirFitMode>,
     /// Window length in business days of the `fixed_kappa_sigma` mode. Default 20.
     pub cir_window: Option<usize>,
     /// Fit the CIR model only for these entities. Default: every entity.
     pub cir_entities: Option<Vec<String>>,
     /// Bond recovery convention: `par` (default, recovery of face), `zero` or `market`
     /// (recovery of market value).
-    pub bond_recovery_convention: Option<String>,
+    pub bond_recovery_convention: Option<RecoveryConvention>,
 }
 
 /// `[quality]`: thresholds of the data-quality rules (defaults in `QualitySettings`).
@@ -320,7 +308,7 @@ pub struct ReportSection {
     /// How `hazard_curves` and `calibration_residuals` are written: `single` (one file each),
     /// `by_year` (a folder each, a file per source or method and year) or `auto` (default:
     /// `by_year` when the usable CDS quotes number more than [`LARGE_RUN_QUOTES`]).
-    pub large_tables: Option<String>,
+    pub large_tables: Option<LargeTables>,
 }
 
 /// Usable CDS quotes above which `large_tables = "auto"` writes the two large tables by year.
@@ -334,6 +322,15 @@ pub enum LargeTables {
     Single,
     ByYear,
 }
+hazardline_core::text_form!(LargeTables { Auto => "auto", Single => "single", ByYear => "by_year" });
+
+/// How backtest members are bucketed (`backtest.buckets`): by grade, or by implied-PD band.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum BucketChoice {
+    Grade,
+    PdBands,
+}
+hazardline_core::text_form!(BucketChoice { Grade => "grade", PdBands => "pd_bands" });
 
 impl LargeTables {
     /// Whether a run of `usable_quotes` CDS quotes writes them as folders of files by year.
@@ -363,17 +360,17 @@ pub struct RunConfig {
     pub calendar: Calendar,
     pub recovery: f64,
     pub recovery_by_seniority: BTreeMap<String, f64>,
-    pub infeasible: String,
-    pub accrual_on_default: String,
+    pub infeasible: InfeasiblePolicy,
+    pub accrual_on_default: AccrualIntegration,
     pub cds_bootstrap: bool,
     #[serde(skip)]
     pub bootstrap: BootstrapSettings,
     pub bond_fit: bool,
     pub cir: bool,
-    pub cir_mode: String,
+    pub cir_mode: CirFitMode,
     pub cir_window: usize,
     pub cir_entities: Option<Vec<String>>,
-    pub bond_recovery_convention: String,
+    pub bond_recovery_convention: RecoveryConvention,
     /// The five settings above, typed.
     #[serde(skip)]
     pub intensity: IntensitySettings,
@@ -399,9 +396,7 @@ pub struct RunConfig {
 }
 
 fn stability_settings(k: &StabilitySection, path: &Path) -> Result<crate::stability::StabilitySettings> {
-    use crate::stability::{
-        cusum::CusumLevel, psi::PsiEdges, settings::MoveThreshold, ReviewPeriod, StabilitySettings,
-    };
+    use crate::stability::{psi::PsiEdges, settings::MoveThreshold, ReviewPeriod, StabilitySettings};
     let mut s = StabilitySettings::default();
     if let Some(p) = &k.period {
         s.period = p.parse::<ReviewPeriod>().map_err(|e| bad(path, "stability.period", e))?;
@@ -437,19 +432,8 @@ fn stability_settings(k: &StabilitySection, path: &Path) -> Result<crate::stabil
     if let Some(c) = &k.cusum_series {
         s.cusum_series = c.clone();
     }
-    if let Some(l) = &k.cusum_level {
-        s.cusum_level = match l.trim() {
-            "10%" => CusumLevel::Ten,
-            "5%" => CusumLevel::Five,
-            "1%" => CusumLevel::One,
-            other => {
-                return Err(bad(
-                    path,
-                    "stability.cusum_level",
-                    format!("{other:?} is not one of \"10%\", \"5%\", \"1%\""),
-                ))
-            }
-        };
+    if let Some(l) = k.cusum_level {
+        s.cusum_level = l;
     }
     if let Some(n) = k.cusum_min_obs {
         s.cusum_min_obs = n.max(3);
@@ -561,26 +545,8 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
             ));
         }
     }
-    let infeasible = c.infeasible.clone().unwrap_or_else(|| "floor".into());
-    let policy = match infeasible.as_str() {
-        "floor" => InfeasiblePolicy::Floor,
-        "fail" => InfeasiblePolicy::Fail,
-        other => {
-            return Err(bad(path, "conventions.infeasible", format!("{other:?} is not one of \"floor\", \"fail\"")))
-        }
-    };
-    let accrual_on_default = c.accrual_on_default.clone().unwrap_or_else(|| "standard".into());
-    let accrual = match accrual_on_default.as_str() {
-        "standard" => AccrualIntegration::Standard,
-        "exact" => AccrualIntegration::Exact,
-        other => {
-            return Err(bad(
-                path,
-                "conventions.accrual_on_default",
-                format!("{other:?} is not one of \"standard\", \"exact\""),
-            ))
-        }
-    };
+    let infeasible = c.infeasible.unwrap_or_default();
+    let accrual_on_default = c.accrual_on_default.unwrap_or_default();
 
     let k = &file.calibration;
     let cds_bootstrap = k.cds_bootstrap.unwrap_or(true);
@@ -597,18 +563,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
             "the CIR fit starts from the bootstrapped curves and needs cds_bootstrap = true".into(),
         ));
     }
-    let cir_mode = k.cir_mode.clone().unwrap_or_else(|| "free".into());
-    let mode = match cir_mode.as_str() {
-        "free" => CirFitMode::Free,
-        "fixed_kappa_sigma" => CirFitMode::FixedKappaSigma,
-        other => {
-            return Err(bad(
-                path,
-                "calibration.cir_mode",
-                format!("{other:?} is not one of \"free\", \"fixed_kappa_sigma\""),
-            ))
-        }
-    };
+    let cir_mode = k.cir_mode.unwrap_or(CirFitMode::Free);
     let cir_window = k.cir_window.unwrap_or(20);
     if cir_window < 2 {
         return Err(bad(
@@ -617,25 +572,13 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
             format!("{cir_window} is not a window of at least 2 business days"),
         ));
     }
-    let bond_recovery_convention = k.bond_recovery_convention.clone().unwrap_or_else(|| "par".into());
-    let convention = match bond_recovery_convention.as_str() {
-        "par" => RecoveryConvention::Par,
-        "zero" => RecoveryConvention::Zero,
-        "market" => RecoveryConvention::Market,
-        other => {
-            return Err(bad(
-                path,
-                "calibration.bond_recovery_convention",
-                format!("{other:?} is not one of \"par\", \"zero\", \"market\""),
-            ))
-        }
-    };
+    let bond_recovery_convention = k.bond_recovery_convention.unwrap_or_default();
     let intensity = IntensitySettings {
         bond_fit,
         cir,
-        cir_mode: mode,
+        cir_mode,
         cir_window,
-        bond_convention: convention,
+        bond_convention: bond_recovery_convention,
         cir_entities: k.cir_entities.clone(),
     };
 
@@ -713,7 +656,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         infeasible,
         accrual_on_default,
         cds_bootstrap,
-        bootstrap: BootstrapSettings { infeasible: policy, accrual, ..BootstrapSettings::default() },
+        bootstrap: BootstrapSettings { infeasible, accrual: accrual_on_default, ..BootstrapSettings::default() },
         bond_fit,
         cir,
         cir_mode,
@@ -727,18 +670,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         charted_entities: r.charted_entities.clone(),
         term_structure_dates,
         fail_on_red_flags: r.fail_on_red_flags.unwrap_or(false),
-        large_tables: match r.large_tables.as_deref() {
-            None | Some("auto") => LargeTables::Auto,
-            Some("single") => LargeTables::Single,
-            Some("by_year") => LargeTables::ByYear,
-            Some(other) => {
-                return Err(bad(
-                    path,
-                    "report.large_tables",
-                    format!("{other:?} is not one of \"auto\", \"single\", \"by_year\""),
-                ))
-            }
-        },
+        large_tables: r.large_tables.unwrap_or_default(),
         backtest_settings: backtest.pairs(),
         backtest,
         stability_settings: stability.pairs(),

@@ -3,11 +3,13 @@
 //! files in `charts/`, each with a caption. Deterministic: no clock, stable ordering.
 
 use super::charts;
+use crate::calibrate::cir::{CirFitMode, CirFitSettings};
 use crate::error::{Error, Result};
 use crate::ingest::Reject;
 use crate::stability::summary::keep_first_n;
 use crate::tables::flags::{FlagRecord, DATA_QUALITY, STABILITY};
 use crate::tables::inputs::reject_reasons;
+use crate::tables::manifest::RecordedSettings;
 use crate::tables::manifest::{self, write_text, Manifest};
 use crate::tables::readback;
 use crate::tables::{self, BasisRow, HazardCurveRow, IntensityParamRow, ResidualRow, Table};
@@ -19,9 +21,6 @@ use std::path::Path;
 
 /// The caution every report carries (DEVELOPERS.md).
 pub const CAUTION: &str = "The figures in this report support, and do not replace, independent model validation under the institution's model risk policy and the supervisory rules that apply to it.";
-
-/// Repricing tolerance used in the summary (bp).
-pub const REPRICE_TOLERANCE_BP: f64 = 1e-6;
 
 fn pct(x: f64) -> String {
     format!("{:.1}%", x * 100.0)
@@ -60,18 +59,28 @@ fn quantile_band(per_date: &mut BTreeMap<NaiveDate, Vec<f64>>) -> Vec<(f64, f64,
         .collect()
 }
 
+/// A recorded band `[lo, hi]`, as JSON writes it.
+fn band(b: &[serde_json::Number; 2]) -> String {
+    format!("[{},{}]", b[0], b[1])
+}
+
+/// A parameter's bounds `[lo, hi]`, small numbers in exponent form (`[1e-6, 2]`).
+fn bounds((lo, hi): (f64, f64)) -> String {
+    let short = |x: f64| if x == 0.0 || x.abs() >= 1e-3 { format!("{x}") } else { format!("{x:e}") };
+    format!("[{}, {}]", short(lo), short(hi))
+}
+
 /// Options of the figures (from the pipeline file, recorded in the manifest's settings).
-fn charted(settings: &serde_json::Value, entities: &BTreeSet<String>) -> Vec<String> {
-    match settings.get("charted_entities").and_then(|v| v.as_array()) {
-        Some(v) => v.iter().filter_map(|x| x.as_str()).filter(|e| entities.contains(*e)).map(str::to_string).collect(),
+fn charted(settings: &RecordedSettings, entities: &BTreeSet<String>) -> Vec<String> {
+    match &settings.charted_entities {
+        Some(v) => v.iter().filter(|e| entities.contains(*e)).cloned().collect(),
         None => entities.iter().take(4).cloned().collect(),
     }
 }
 
-fn term_dates(settings: &serde_json::Value, dates: &[NaiveDate]) -> Vec<NaiveDate> {
-    if let Some(v) = settings.get("term_structure_dates").and_then(|v| v.as_array()) {
-        let want: Vec<NaiveDate> =
-            v.iter().filter_map(|x| x.as_str()).filter_map(crate::time::parse_iso_date).collect();
+fn term_dates(settings: &RecordedSettings, dates: &[NaiveDate]) -> Vec<NaiveDate> {
+    if let Some(v) = &settings.term_structure_dates {
+        let want: Vec<NaiveDate> = v.iter().filter_map(|x| crate::time::parse_iso_date(x)).collect();
         // The latest curve date on or before each asked date.
         return want
             .iter()
@@ -260,6 +269,8 @@ struct Residuals {
     /// Bootstrap residuals with status `ok`, and those within the repricing tolerance.
     ok: usize,
     within: usize,
+    /// The repricing tolerance in bp (`stability.reprice_tolerance_bp`).
+    tolerance_bp: f64,
     by_tenor: BTreeMap<(u32, String), TenorSums>,
     /// The ten largest finite bootstrap residuals (all statuses), as a stable sort would give.
     worst: Vec<crate::tables::ResidualRow>,
@@ -273,12 +284,12 @@ fn worst_first(a: &crate::tables::ResidualRow, b: &crate::tables::ResidualRow) -
 }
 
 impl Residuals {
-    fn new() -> Residuals {
-        Residuals::default()
+    fn new(tolerance_bp: f64) -> Residuals {
+        Residuals { tolerance_bp, ..Residuals::default() }
     }
 
-    fn read(path: &Path) -> Result<Residuals> {
-        let mut out = Residuals::new();
+    fn read(path: &Path, tolerance_bp: f64) -> Result<Residuals> {
+        let mut out = Residuals::new(tolerance_bp);
         readback::slices::<ResidualRow>(path, |rows| {
             out.add(&rows);
             Ok(())
@@ -302,7 +313,7 @@ impl Residuals {
             }
             if r.status == "ok" {
                 self.ok += 1;
-                self.within += usize::from(r.residual_bp.abs() <= REPRICE_TOLERANCE_BP);
+                self.within += usize::from(r.residual_bp.abs() <= self.tolerance_bp);
                 let e = match self.by_tenor.iter_mut().find(|((_, t), _)| *t == *r.tenor_or_bond) {
                     Some((_, e)) => e,
                     None => {
@@ -340,8 +351,8 @@ pub struct ResidualFold(Residuals);
 
 impl NodeFold {
     /// `settings`: the run's settings as the manifest records them.
-    pub fn new(settings: &serde_json::Value) -> NodeFold {
-        NodeFold(CdsNodes::new(charted_names(settings).as_deref()))
+    pub fn new(settings: &RecordedSettings) -> NodeFold {
+        NodeFold(CdsNodes::new(settings.charted_entities.as_deref()))
     }
 
     pub fn add(&mut self, rows: &[HazardCurveRow]) {
@@ -362,23 +373,10 @@ impl crate::tables::parquet::RowFold<crate::tables::ResidualRow> for ResidualFol
 }
 
 impl ResidualFold {
-    pub fn new() -> ResidualFold {
-        ResidualFold(Residuals::new())
+    /// `tolerance_bp`: within it a calibrated quote counts as repriced.
+    pub fn new(tolerance_bp: f64) -> ResidualFold {
+        ResidualFold(Residuals::new(tolerance_bp))
     }
-}
-
-impl Default for ResidualFold {
-    fn default() -> Self {
-        Self::new()
-    }
-}
-
-/// The entities the settings name for the figures, when they name them.
-fn charted_names(settings: &serde_json::Value) -> Option<Vec<String>> {
-    settings
-        .get("charted_entities")
-        .and_then(|v| v.as_array())
-        .map(|v| v.iter().filter_map(|x| x.as_str()).map(str::to_string).collect())
 }
 
 /// Renders `report.md` and `charts/*.svg` in `run_dir` from its tables and manifest.
@@ -399,7 +397,10 @@ fn read_if_written<T: Table>(tables: &Path) -> Result<Vec<T>> {
 /// [`render`], with what the report takes from the node and residual tables already gathered
 /// as a run wrote them (the same rows in the same order: the same report).
 pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> Result<()> {
-    let m: Manifest = manifest::read(&run_dir.join("manifest.json"))?;
+    let manifest_path = run_dir.join("manifest.json");
+    let m: Manifest = manifest::read(&manifest_path)?;
+    let settings = m.recorded_settings(&manifest_path)?;
+    let tolerance_bp = settings.reprice_tolerance_bp(&manifest_path)?;
     let t = run_dir.join("tables");
     let params: Vec<IntensityParamRow> = read_if_written(&t)?;
     let basis: Vec<BasisRow> = read_if_written(&t)?;
@@ -407,13 +408,10 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     // they are read a slice at a time into what the report shows, never whole.
     let (hz, rs) = match folds {
         Some((NodeFold(hz), ResidualFold(rs))) => (hz, rs),
-        None => {
-            let named = charted_names(&m.settings);
-            (
-                CdsNodes::read(&readback::table_path(&t, "hazard_curves"), named.as_deref())?,
-                Residuals::read(&readback::table_path(&t, "calibration_residuals"))?,
-            )
-        }
+        None => (
+            CdsNodes::read(&readback::table_path(&t, HazardCurveRow::NAME), settings.charted_entities.as_deref())?,
+            Residuals::read(&readback::table_path(&t, ResidualRow::NAME), tolerance_bp)?,
+        ),
     };
     let bond_hazard = &hz.bond;
     let bond_res: Vec<&crate::tables::ResidualRow> = rs.bond.iter().collect();
@@ -532,7 +530,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     );
     let _ = writeln!(
         w,
-        "| calibrated quotes repricing within {REPRICE_TOLERANCE_BP:e} bp | {within} of {} ({}) | {} |",
+        "| calibrated quotes repricing within {tolerance_bp:e} bp | {within} of {} ({}) | {} |",
         ok_res,
         pct(within as f64 / ok_res.max(1) as f64),
         if within == ok_res { "pass" } else { "flagged" }
@@ -580,7 +578,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
             readback::strs(&b, &bp, "zone")?,
             readback::floats(&b, &bp, "recovery")?,
         );
-        let base_r = m.settings.get("recovery").and_then(|v| v.as_f64()).unwrap_or(0.4);
+        let base_r = settings.recovery;
         let pooled: Vec<usize> = (0..b.height())
             .filter(|&i| coh[i].as_deref() == Some("all") && rec[i].is_some_and(|r| (r - base_r).abs() < 1e-9))
             .collect();
@@ -674,8 +672,8 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     // Figures.
     let mut figure = 0;
     let chart_err = |e: String| Error::Other(format!("drawing a figure: {e}"));
-    let chosen = charted(&m.settings, entities);
-    let tdates = term_dates(&m.settings, &dates);
+    let chosen = charted(&settings, entities);
+    let tdates = term_dates(&settings, &dates);
     let charted_nodes = hz.charted(&readback::table_path(&t, "hazard_curves"), &chosen, &tdates)?;
     for e in &chosen {
         let mut curves_of: Vec<(NaiveDate, Vec<(f64, f64)>)> = Vec::new();
@@ -728,17 +726,11 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     // A large table may be a folder of files (`report.large_tables`).
     let shown = |n: &str| if t.join(n).is_dir() { format!("tables/{n}/") } else { format!("tables/{n}.parquet") };
     let large = (shown("hazard_curves"), shown("calibration_residuals"));
-    intensity_sections(w, bond_hazard, &bond_res, &basis, &params, &m.settings, &charts_dir, &mut figure, &large)?;
+    intensity_sections(w, bond_hazard, &bond_res, &basis, &params, &settings, &charts_dir, &mut figure, &large)?;
 
     super::sections::stability_section(w, &t, &charts_dir, &mut figure, 4)?;
-    let base_recovery = m.settings.get("recovery").and_then(|v| v.as_f64()).unwrap_or(0.4);
-    let backtest_enabled = m
-        .settings
-        .get("backtest_settings")
-        .and_then(|v| v.as_array())
-        .and_then(|a| a.iter().find(|p| p.get(0).and_then(|k| k.as_str()) == Some("enabled")))
-        .and_then(|p| p.get(1).and_then(|v| v.as_str()))
-        .is_none_or(|v| v == "true");
+    let base_recovery = settings.recovery;
+    let backtest_enabled = settings.backtest_enabled();
     super::sections::backtest_section(w, &t, &charts_dir, &mut figure, 5, base_recovery, backtest_enabled)?;
 
     // 6. Flags
@@ -787,58 +779,45 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     }
 
     // 7. Method notes
-    let s = &m.settings;
-    let q = s.get("quality").cloned().unwrap_or_default();
+    let s = &settings;
+    let q = &s.quality;
+    // The bounds the fit stage uses (its settings are the core's defaults).
+    let cir = CirFitSettings::default().bounds;
     let _ = writeln!(w, "## 7. Method notes\n");
-    let _ = writeln!(w, "- Contract: the standard single-name CDS (quarterly premium on the 20th of Mar/Jun/Sep/Dec adjusted Following, maturities on the semi-annual roll, Act/360 accrual with the maturity day in the last period, accrual paid on default, protection from T + 1, cash settlement T + 3 business days). Legs are integrated in closed form on the joint grid of discount and hazard nodes (accrual on default: {} integration), with the series expansion below an exponent of 1e-4; the independent reference is QuantLib's standard-model engine (tests/reference/).", s.get("accrual_on_default").and_then(|v| v.as_str()).unwrap_or("standard"));
+    let _ = writeln!(w, "- Contract: the standard single-name CDS (quarterly premium on the 20th of Mar/Jun/Sep/Dec adjusted Following, maturities on the semi-annual roll, Act/360 accrual with the maturity day in the last period, accrual paid on default, protection from T + 1, cash settlement T + 3 business days). Legs are integrated in closed form on the joint grid of discount and hazard nodes (accrual on default: {} integration), with the series expansion below an exponent of 1e-4; the independent reference is QuantLib's standard-model engine (tests/reference/).", s.accrual_on_default.as_str());
     let _ = writeln!(w, "- Discount curves: continuously compounded Act/365F zero rates, log-linear discount factors between pillars, first rate before the first pillar, last forward after the last.");
-    let _ = writeln!(w, "- Bootstrap: hazard piecewise flat between contract maturities (segment end = adjusted maturity + 1 day), one safeguarded Newton root per node to 1e-14 in hazard. A quote needing a negative hazard is handled by the `{}` policy; a quote no hazard up to 10,000 per year can reach stops its curve.", s.get("infeasible").and_then(|v| v.as_str()).unwrap_or("floor"));
-    let by_sen = s
-        .get("recovery_by_seniority")
-        .and_then(|v| v.as_object())
-        .map(|m| {
-            m.iter()
-                .map(|(k, v)| format!("{k}: {}", v.as_f64().map(pct).unwrap_or_default()))
-                .collect::<Vec<_>>()
-                .join(", ")
-        })
-        .filter(|t| !t.is_empty())
-        .unwrap_or_else(|| "none listed".into());
+    let _ = writeln!(w, "- Bootstrap: hazard piecewise flat between contract maturities (segment end = adjusted maturity + 1 day), one safeguarded Newton root per node to 1e-14 in hazard. A quote needing a negative hazard is handled by the `{}` policy; a quote no hazard up to 10,000 per year can reach stops its curve.", s.infeasible.as_str());
+    let by_sen =
+        Some(s.recovery_by_seniority.iter().map(|(k, v)| format!("{k}: {}", pct(*v))).collect::<Vec<_>>().join(", "))
+            .filter(|t| !t.is_empty())
+            .unwrap_or_else(|| "none listed".into());
     let _ = writeln!(
         w,
         "- Recovery: {} unless the quote carries one or its seniority is listed (by seniority: {by_sen}).",
-        s.get("recovery").and_then(|v| v.as_f64()).map(pct).unwrap_or_default()
+        pct(s.recovery)
     );
     let _ = writeln!(w, "- Data-quality thresholds in force: spread cap {} bp; zero-rate band {}; bond price band {}; stale after {} unchanged business days; spike when the robust z-score (median and 1.4826 x MAD of the series' daily log changes) exceeds {} with a log move above {} reverting by at least {} the next day; unit slip when {} or more consecutive quotes sit {} times above or below the series median; fewer than {} tenors flags a curve (common practice, no single source).",
-        q.get("max_spread_bp").map(|v| v.to_string()).unwrap_or_default(),
-        q.get("zero_rate_band").map(|v| v.to_string()).unwrap_or_default(),
-        q.get("bond_price_band").map(|v| v.to_string()).unwrap_or_default(),
-        q.get("stale_days").map(|v| v.to_string()).unwrap_or_default(),
-        q.get("spike_z").map(|v| v.to_string()).unwrap_or_default(),
-        q.get("spike_min_log_move").map(|v| v.to_string()).unwrap_or_default(),
-        q.get("spike_revert_share").map(|v| v.to_string()).unwrap_or_default(),
-        q.get("unit_slip_min_run").map(|v| v.to_string()).unwrap_or_default(),
-        q.get("unit_slip_ratio").map(|v| v.to_string()).unwrap_or_default(),
-        q.get("min_tenors").map(|v| v.to_string()).unwrap_or_default());
+        q.max_spread_bp,
+        band(&q.zero_rate_band),
+        band(&q.bond_price_band),
+        q.stale_days,
+        q.spike_z,
+        q.spike_min_log_move,
+        q.spike_revert_share,
+        q.unit_slip_min_run,
+        q.unit_slip_ratio,
+        q.min_tenors);
     if !bond_hazard.is_empty() {
-        let _ = writeln!(w, "- Bond-implied curves: least squares on clean prices (settlement T + 0, no ex-coupon period), each residual weighted by 1e4 / (dirty price x modified duration), i.e. bp of yield to first order; piecewise-flat hazard with a node at each bond maturity (maturities within half a year share one) when there are three or more nodes, the two-parameter form l + (s - l) exp(-t / 3y) with two, a flat hazard with one; hazards bounded to [0, 5] per year. Recovery convention `{}`, recovery by the bonds' seniority as for CDS quotes. The basis prices a CDS to each bond maturity on both curves with the same recovery.", s.get("bond_recovery_convention").and_then(|v| v.as_str()).unwrap_or("par"));
+        let _ = writeln!(w, "- Bond-implied curves: least squares on clean prices (settlement T + 0, no ex-coupon period), each residual weighted by 1e4 / (dirty price x modified duration), i.e. bp of yield to first order; piecewise-flat hazard with a node at each bond maturity (maturities within half a year share one) when there are three or more nodes, the two-parameter form l + (s - l) exp(-t / 3y) with two, a flat hazard with one; hazards bounded to [0, 5] per year. Recovery convention `{}`, recovery by the bonds' seniority as for CDS quotes. The basis prices a CDS to each bond maturity on both curves with the same recovery.", s.bond_recovery_convention.as_str());
     }
     if !params.is_empty() {
-        let _ = writeln!(w, "- CIR intensity: survival from the affine closed form; the CDS legs priced through it on a monthly protection grid; projected Levenberg-Marquardt on the quotes' residuals in bp of running spread, kappa in [0.001, 10], theta in [1e-6, 2], sigma in [1e-4, 2], lambda0 in [0, 2] (per year). Starts: the day's bootstrapped curve and the previous day's solution, the better of the two. Mode `{}`{}.", s.get("cir_mode").and_then(|v| v.as_str()).unwrap_or("free"), if s.get("cir_mode").and_then(|v| v.as_str()) == Some("fixed_kappa_sigma") { format!(": kappa and sigma estimated on the pooled quotes of consecutive windows of {} curve dates, theta and lambda0 fitted daily", s.get("cir_window").and_then(|v| v.as_u64()).unwrap_or(20)) } else { String::new() });
+        let _ = writeln!(w, "- CIR intensity: survival from the affine closed form; the CDS legs priced through it on a monthly protection grid; projected Levenberg-Marquardt on the quotes' residuals in bp of running spread, kappa in {}, theta in {}, sigma in {}, lambda0 in {} (per year). Starts: the day's bootstrapped curve and the previous day's solution, the better of the two. Mode `{}`{}.", bounds(cir.kappa), bounds(cir.theta), bounds(cir.sigma), bounds(cir.lambda0), s.cir_mode.as_str(), if s.cir_mode == CirFitMode::FixedKappaSigma { format!(": kappa and sigma estimated on the pooled quotes of consecutive windows of {} curve dates, theta and lambda0 fitted daily", s.cir_window) } else { String::new() });
     }
-    let pairs = |key: &str| -> String {
-        s.get(key)
-            .and_then(|v| v.as_array())
-            .map(|a| {
-                a.iter()
-                    .filter_map(|p| Some(format!("{} = {}", p.get(0)?.as_str()?, p.get(1)?.as_str()?)))
-                    .collect::<Vec<_>>()
-                    .join("; ")
-            })
-            .unwrap_or_default()
+    let pairs = |list: &[(String, String)]| -> String {
+        list.iter().map(|(k, v)| format!("{k} = {v}")).collect::<Vec<_>>().join("; ")
     };
-    let _ = writeln!(w, "- Backtest: implied PD 1 - S(h) from the member's latest curve within the look-back (used as of its own date); outcome a default in (t, t + h]; Clopper-Pearson exact, Jeffreys (lower bound 0 when d = 0, upper 1 when d = n; Brown, Cai and DasGupta, 2001) and Wilson intervals; binomial tails P[D >= d] and P[D <= d] computed directly, never as 1 - cdf; the Jeffreys test p-value is the Beta(d + 1/2, n - d + 1/2) cdf at the mean implied PD; the zone is green, yellow or red by the upper-tail binomial p-value; Hosmer-Lemeshow with k degrees of freedom for k given forecasts (Basel Committee working paper 14, 2005); Garwood (1936) exact Poisson interval for the historical intensity. Settings in force: {}.", pairs("backtest_settings"));
-    let _ = writeln!(w, "- Stability: per review period and series (per entity, per grade, universe): mean, standard deviation, coefficient of variation, largest daily move, share of large daily moves, failures, period-on-period change of the mean and median, and the parameter's daily relative move against the spreads'. PSI = sum (a - e) ln(a / e) over buckets with an empty bucket's share replaced by psi_epsilon, thresholds 0.10 and 0.25 (common practice, no single source); CUSUM of recursive residuals with the Brown, Durbin and Evans (1975, JRSS B) boundary. Every threshold in force: {}.", pairs("stability_settings"));
+    let _ = writeln!(w, "- Backtest: implied PD 1 - S(h) from the member's latest curve within the look-back (used as of its own date); outcome a default in (t, t + h]; Clopper-Pearson exact, Jeffreys (lower bound 0 when d = 0, upper 1 when d = n; Brown, Cai and DasGupta, 2001) and Wilson intervals; binomial tails P[D >= d] and P[D <= d] computed directly, never as 1 - cdf; the Jeffreys test p-value is the Beta(d + 1/2, n - d + 1/2) cdf at the mean implied PD; the zone is green, yellow or red by the upper-tail binomial p-value; Hosmer-Lemeshow with k degrees of freedom for k given forecasts (Basel Committee working paper 14, 2005); Garwood (1936) exact Poisson interval for the historical intensity. Settings in force: {}.", pairs(&s.backtest_settings));
+    let _ = writeln!(w, "- Stability: per review period and series (per entity, per grade, universe): mean, standard deviation, coefficient of variation, largest daily move, share of large daily moves, failures, period-on-period change of the mean and median, and the parameter's daily relative move against the spreads'. PSI = sum (a - e) ln(a / e) over buckets with an empty bucket's share replaced by psi_epsilon, thresholds 0.10 and 0.25 (common practice, no single source); CUSUM of recursive residuals with the Brown, Durbin and Evans (1975, JRSS B) boundary. Every threshold in force: {}.", pairs(&s.stability_settings));
     let _ = writeln!(w, "- Reproducibility: the tables and this report are deterministic for the same inputs and pipeline file; timings are in `run.log`, not here.\n");
     let _ = writeln!(w, "## 8. Caution\n\n{CAUTION} Every conclusion should be checked against the data and these method notes before it is relied on.");
     write_text(&run_dir.join("report.md"), &md)
@@ -857,7 +836,7 @@ fn intensity_sections(
     bond_res: &[&crate::tables::ResidualRow],
     basis: &[crate::tables::BasisRow],
     params: &[crate::tables::IntensityParamRow],
-    settings: &serde_json::Value,
+    settings: &RecordedSettings,
     charts_dir: &Path,
     figure: &mut usize,
     (hazard_table, residual_table): &(String, String),
@@ -868,7 +847,7 @@ fn intensity_sections(
         let _ = writeln!(
             w,
             "Hazard curves implied by each entity's fixed-coupon bond prices (recovery convention `{}`), one per (date, entity, currency); rows with source `bond` in `{hazard_table}`, bond residuals with method `bond_fit` in `{residual_table}` (market and model clean price per 100 face, residual in bp of yield).\n",
-            settings.get("bond_recovery_convention").and_then(|v| v.as_str()).unwrap_or("par")
+            settings.bond_recovery_convention.as_str()
         );
         let mut per: BTreeMap<
             (&str, &str),

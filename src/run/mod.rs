@@ -225,12 +225,12 @@ fn table_metadata(cfg: &RunConfig, params: &CalibrationParams) -> Vec<(String, S
     let mut meta = metadata(params, &cfg.quality);
     meta.push((
         "hazardline.bond_fit".into(),
-        format!("{} (recovery convention {})", cfg.bond_fit, cfg.bond_recovery_convention),
+        format!("{} (recovery convention {})", cfg.bond_fit, cfg.bond_recovery_convention.as_str()),
     ));
     meta.push((
         "hazardline.cir".into(),
         if cfg.cir {
-            format!("true (mode {}, window {} business days)", cfg.cir_mode, cfg.cir_window)
+            format!("true (mode {}, window {} business days)", cfg.cir_mode.as_str(), cfg.cir_window)
         } else {
             "false".into()
         },
@@ -244,8 +244,12 @@ fn settings_value(cfg: &RunConfig) -> Result<serde_json::Value> {
 }
 
 /// What the report takes from the node and residual tables, gathered as they are written.
+/// Built from the settings as the manifest records them, so a run's report and one rendered
+/// later from the run folder read the same values.
 fn report_folds(cfg: &RunConfig) -> Result<(NodeFold, ResidualFold)> {
-    Ok((NodeFold::new(&settings_value(cfg)?), ResidualFold::new()))
+    let settings: crate::tables::manifest::RecordedSettings =
+        serde_json::from_value(settings_value(cfg)?).map_err(|e| Error::Other(format!("settings: {e}")))?;
+    Ok((NodeFold::new(&settings), ResidualFold::new(cfg.stability.reprice_tolerance_bp)))
 }
 
 /// Whether this run writes its two large tables as folders of files by year

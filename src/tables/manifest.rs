@@ -1,8 +1,14 @@
 //! `manifest.json`: what a run read and did, enough to reproduce and audit it. Deterministic:
 //! no timestamps, paths relative to the pipeline file's folder.
 
+use crate::calibrate::cir::CirFitMode;
+use crate::calibrate::InfeasiblePolicy;
 use crate::error::{Error, Result};
+use crate::instruments::bond::RecoveryConvention;
+use crate::instruments::AccrualIntegration;
 use serde::{Deserialize, Serialize};
+use serde_json::Number;
+use std::collections::BTreeMap;
 use std::path::Path;
 
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
@@ -20,6 +26,79 @@ pub struct Manifest {
     pub settings: serde_json::Value,
     /// Tables written, relative to the run folder.
     pub tables: Vec<String>,
+}
+
+impl Manifest {
+    /// The recorded settings, typed: a manifest that lacks one or holds a value of the wrong
+    /// type is refused with the key's name.
+    pub fn recorded_settings(&self, path: &Path) -> Result<RecordedSettings> {
+        serde_json::from_value(self.settings.clone()).map_err(|e| Error::Read {
+            path: path.to_path_buf(),
+            format: "JSON",
+            message: format!("settings: {e}"),
+        })
+    }
+}
+
+/// The run settings as the manifest records them (the checked run configuration, serialized):
+/// the one typed view the report reads, so it never looks a setting up by name or falls back
+/// to a default of its own. Numbers the report prints as recorded stay JSON numbers.
+#[derive(Debug, Clone, Deserialize)]
+pub struct RecordedSettings {
+    pub recovery: f64,
+    pub recovery_by_seniority: BTreeMap<String, f64>,
+    pub infeasible: InfeasiblePolicy,
+    pub accrual_on_default: AccrualIntegration,
+    pub bond_fit: bool,
+    pub cir: bool,
+    pub cir_mode: CirFitMode,
+    pub cir_window: usize,
+    pub bond_recovery_convention: RecoveryConvention,
+    pub quality: RecordedQuality,
+    pub charted_entities: Option<Vec<String>>,
+    /// ISO dates.
+    pub term_structure_dates: Option<Vec<String>>,
+    /// The backtest settings as (name, value) pairs.
+    pub backtest_settings: Vec<(String, String)>,
+    /// The stability settings as (name, value) pairs.
+    pub stability_settings: Vec<(String, String)>,
+}
+
+impl RecordedSettings {
+    /// Whether the backtest ran (`enabled` of the backtest settings; a manifest that does not
+    /// record it predates the switch, when the backtest always ran).
+    pub fn backtest_enabled(&self) -> bool {
+        self.backtest_settings.iter().find(|(k, _)| k == "enabled").is_none_or(|(_, v)| v == "true")
+    }
+
+    /// The tolerance (bp) within which a calibrated quote counts as repriced
+    /// (`stability.reprice_tolerance_bp`).
+    pub fn reprice_tolerance_bp(&self, path: &Path) -> Result<f64> {
+        self.stability_settings
+            .iter()
+            .find(|(k, _)| k == "reprice_tolerance_bp")
+            .and_then(|(_, v)| v.parse::<f64>().ok())
+            .ok_or_else(|| Error::Read {
+                path: path.to_path_buf(),
+                format: "JSON",
+                message: "settings: stability_settings records no reprice_tolerance_bp".into(),
+            })
+    }
+}
+
+/// The data-quality thresholds as recorded.
+#[derive(Debug, Clone, Deserialize)]
+pub struct RecordedQuality {
+    pub max_spread_bp: Number,
+    pub zero_rate_band: [Number; 2],
+    pub bond_price_band: [Number; 2],
+    pub stale_days: Number,
+    pub spike_z: Number,
+    pub spike_min_log_move: Number,
+    pub spike_revert_share: Number,
+    pub unit_slip_ratio: Number,
+    pub unit_slip_min_run: Number,
+    pub min_tenors: Number,
 }
 
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]

@@ -14,7 +14,9 @@ use std::collections::BTreeSet;
 fn demo_run_writes_bond_and_cir_tables() {
     let root = tempfile::tempdir().unwrap();
     let cfg = load_pipeline(&repo().join("tests/fixtures/sample.toml")).unwrap();
-    assert!(cfg.bond_fit && cfg.cir && cfg.cir_mode == "free" && cfg.cir_window == 20);
+    assert!(
+        cfg.bond_fit && cfg.cir && cfg.cir_mode == hazardline::calibrate::cir::CirFitMode::Free && cfg.cir_window == 20
+    );
     let dir = run(&cfg, &RunOptions { out_root: Some(root.path().to_path_buf()), label: None }).unwrap().run_dir;
     let t = dir.join("tables");
 
@@ -173,11 +175,20 @@ fn config_error(extra: &str) -> String {
 
 #[test]
 fn calibration_keys_are_checked() {
+    // A bad value of a setting with a fixed set of values is refused by the parser, which
+    // names the line, shows the key and lists the accepted values.
     let e = config_error("cir_mode = \"loose\"\n");
-    assert!(e.contains("key `calibration.cir_mode`: \"loose\" is not one of \"free\", \"fixed_kappa_sigma\""), "{e}");
+    assert!(
+        e.contains("line 5")
+            && e.contains("cir_mode")
+            && e.contains("unknown variant `loose`, expected `free` or `fixed_kappa_sigma`"),
+        "{e}"
+    );
     let e = config_error("bond_recovery_convention = \"face\"\n");
     assert!(
-        e.contains("key `calibration.bond_recovery_convention`: \"face\" is not one of \"par\", \"zero\", \"market\""),
+        e.contains("line 5")
+            && e.contains("bond_recovery_convention")
+            && e.contains("unknown variant `face`, expected one of `par`, `zero`, `market`"),
         "{e}"
     );
     let e = config_error("cir_window = 1\n");

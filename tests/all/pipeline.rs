@@ -173,7 +173,9 @@ fn config_errors_name_the_key_and_line() {
     let bad_value =
         config_error("[inputs]\ncds_quotes = \"q.csv\"\ndiscount = \"d.csv\"\n[conventions]\ninfeasible = \"clip\"\n");
     assert!(
-        bad_value.contains("key `conventions.infeasible`: \"clip\" is not one of \"floor\", \"fail\""),
+        bad_value.contains("line 5")
+            && bad_value.contains("infeasible")
+            && bad_value.contains("unknown variant `clip`, expected `floor` or `fail`"),
         "{bad_value}"
     );
 }

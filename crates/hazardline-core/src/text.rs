@@ -19,8 +19,10 @@ pub trait TextForm: Sized + Copy + 'static {
     }
 }
 
-/// Declares the text form of an enum's variants: implements [`TextForm`] and the inherent
-/// `as_str` / `parse` that the code calls.
+/// Declares the text form of an enum's variants: implements [`TextForm`], the inherent
+/// `as_str` / `parse` that the code calls, and serde's `Serialize` / `Deserialize` through the
+/// same text (so a pipeline file's bad value is refused by the parser, which names the key,
+/// the line and the accepted values).
 #[macro_export]
 macro_rules! text_form {
     ($ty:ident { $($variant:ident => $text:literal),+ $(,)? }) => {
@@ -30,6 +32,18 @@ macro_rules! text_form {
                 match self {
                     $($ty::$variant => $text),+
                 }
+            }
+        }
+        impl ::serde::Serialize for $ty {
+            fn serialize<S: ::serde::Serializer>(&self, s: S) -> ::std::result::Result<S::Ok, S::Error> {
+                s.serialize_str(self.as_str())
+            }
+        }
+        impl<'de> ::serde::Deserialize<'de> for $ty {
+            fn deserialize<D: ::serde::Deserializer<'de>>(d: D) -> ::std::result::Result<$ty, D::Error> {
+                const TEXTS: &[&str] = &[$($text),+];
+                let s = <::std::string::String as ::serde::Deserialize>::deserialize(d)?;
+                $ty::parse(&s).ok_or_else(|| <D::Error as ::serde::de::Error>::unknown_variant(&s, TEXTS))
             }
         }
         impl $ty {
@@ -137,5 +151,34 @@ mod tests {
         round_trips::<crate::stability::BreakStatus>();
         round_trips::<crate::stability::Scope>();
         round_trips::<crate::instruments::bond::RecoveryConvention>();
+        round_trips::<crate::calibrate::InfeasiblePolicy>();
+        round_trips::<crate::instruments::AccrualIntegration>();
+        round_trips::<crate::backtest::CensoringPolicy>();
+        round_trips::<crate::backtest::CohortFrequency>();
+        round_trips::<crate::stability::CusumLevel>();
+    }
+
+    #[test]
+    fn serde_reads_and_writes_the_same_text() {
+        #[derive(serde::Deserialize, serde::Serialize)]
+        struct Holder {
+            rule: FlagRule,
+        }
+        let h: Holder = serde_json_like(r#"{"rule":"psi_shift"}"#);
+        assert_eq!(h.rule, FlagRule::PsiShift);
+    }
+
+    /// A one-field JSON object parsed without a JSON library (the core has none): enough to
+    /// drive the Deserialize impl through serde's value deserializer.
+    fn serde_json_like<T: serde::de::DeserializeOwned>(text: &str) -> T {
+        use serde::de::value::{MapDeserializer, StrDeserializer};
+        let inner = text.trim_matches(|c| c == '{' || c == '}');
+        let (k, v) = inner.split_once(':').unwrap();
+        let (k, v) = (k.trim_matches('"'), v.trim_matches('"'));
+        let map = MapDeserializer::<_, serde::de::value::Error>::new(std::iter::once((
+            StrDeserializer::<serde::de::value::Error>::new(k),
+            StrDeserializer::<serde::de::value::Error>::new(v),
+        )));
+        T::deserialize(map).unwrap()
     }
 }

@@ -5,11 +5,12 @@ use chrono::{Datelike, NaiveDate};
 use std::collections::BTreeMap;
 
 /// How cohort dates are laid out.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum CohortFrequency {
     Annual,
     Quarterly,
 }
+crate::text_form!(CohortFrequency { Annual => "annual", Quarterly => "quarterly" });
 
 /// First business day of each year (or quarter) from the first to the last curve date.
 pub fn cohort_dates(first: NaiveDate, last: NaiveDate, frequency: CohortFrequency, cal: &Calendar) -> Vec<NaiveDate> {

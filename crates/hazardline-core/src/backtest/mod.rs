@@ -114,6 +114,7 @@ pub enum CensoringPolicy {
     /// Count them as survivors.
     CountAsSurvivor,
 }
+crate::text_form!(CensoringPolicy { Exclude => "exclude", CountAsSurvivor => "survivor" });
 
 /// How members are grouped into buckets.
 #[derive(Debug, Clone, PartialEq)]

@@ -28,6 +28,7 @@ pub enum InfeasiblePolicy {
     /// Stop: the whole curve is marked failed.
     Fail,
 }
+crate::text_form!(InfeasiblePolicy { Floor => "floor", Fail => "fail" });
 
 /// Bootstrap settings (all recorded in the outputs' metadata by the caller).
 #[derive(Debug, Clone, Copy, PartialEq)]

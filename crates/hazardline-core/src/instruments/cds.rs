@@ -38,6 +38,7 @@ pub enum AccrualIntegration {
     /// Split at every discount and hazard node inside the period (exact for the curves).
     Exact,
 }
+crate::text_form!(AccrualIntegration { Standard => "standard", Exact => "exact" });
 
 /// How a CDS is quoted.
 #[derive(Debug, Clone, Copy, PartialEq)]

@@ -37,6 +37,7 @@ pub enum CusumLevel {
     /// 1%: a = 1.143.
     One,
 }
+crate::text_form!(CusumLevel { Ten => "10%", Five => "5%", One => "1%" });
 
 impl CusumLevel {
     /// The boundary constant a.
@@ -45,15 +46,6 @@ impl CusumLevel {
             CusumLevel::Ten => BDE_A_10,
             CusumLevel::Five => BDE_A_5,
             CusumLevel::One => BDE_A_1,
-        }
-    }
-
-    /// `10%`, `5%` or `1%`.
-    pub fn as_str(self) -> &'static str {
-        match self {
-            CusumLevel::Ten => "10%",
-            CusumLevel::Five => "5%",
-            CusumLevel::One => "1%",
         }
     }
 }
