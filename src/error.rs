@@ -26,8 +26,42 @@ pub enum Error {
     Config { path: PathBuf, message: String },
     #[error("invalid argument {name}: {message}")]
     Argument { name: &'static str, message: String },
+    /// A command-line value clap cannot check (a range, a combination of flags).
     #[error("{0}")]
-    Other(String),
+    Usage(String),
+    /// Parts of a run that cannot be merged into one.
+    #[error("{0}")]
+    Parts(String),
+    /// A stage of the run failed; the core's typed error is kept as the source.
+    #[error("{stage} stage: {source}")]
+    Stage {
+        stage: &'static str,
+        #[source]
+        source: StageError,
+    },
+    /// Rows in differ from rows used + rejected: the accounting invariant broke.
+    #[error("row accounting of {table} does not add up{after}: {rows_in} in, {used} used, {rejected} rejected; this is a bug, please report it")]
+    Accounting { table: String, after: &'static str, rows_in: usize, used: usize, rejected: usize },
+    /// A figure could not be drawn.
+    #[error("drawing a figure: {0}")]
+    Chart(String),
+    /// A table or document could not be encoded.
+    #[error("{what}: {message}")]
+    Encode { what: &'static str, message: String },
+    /// An expectation of the code itself broke.
+    #[error("{0}; this is a bug, please report it")]
+    Internal(String),
+}
+
+/// The core's typed errors a stage can end with.
+#[derive(Debug, thiserror::Error)]
+pub enum StageError {
+    #[error(transparent)]
+    Backtest(#[from] crate::backtest::BacktestError),
+    #[error(transparent)]
+    Stability(#[from] crate::stability::StabilityError),
+    #[error(transparent)]
+    Statistics(#[from] crate::stats::StatsError),
 }
 
 impl Error {

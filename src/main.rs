@@ -229,7 +229,7 @@ fn init_logging(verbose: u8, quiet: bool) {
 
 fn calendar_of(inputs: &Inputs) -> Result<Calendar> {
     match &inputs.holidays {
-        Some(p) => hazardline::config::read_holidays(p).map_err(Error::Other),
+        Some(p) => hazardline::config::read_holidays(p).map_err(Error::Usage),
         None => Ok(Calendar::weekends_only()),
     }
 }
@@ -248,10 +248,10 @@ fn dispatch(command: Command) -> Result<u8> {
     match command {
         Command::Calibrate { inputs, recovery, infeasible, accrual, out } => {
             if !(0.0..1.0).contains(&recovery) {
-                return Err(Error::Other(format!("--recovery {recovery} is not a fraction in [0, 1)")));
+                return Err(Error::Usage(format!("--recovery {recovery} is not a fraction in [0, 1)")));
             }
             if inputs.cds.is_none() || inputs.discount.is_none() {
-                return Err(Error::Other("calibrate needs --cds and --discount".into()));
+                return Err(Error::Usage("calibrate needs --cds and --discount".into()));
             }
             let calendar = calendar_of(&inputs)?;
             let bootstrap = BootstrapSettings {

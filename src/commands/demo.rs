@@ -7,7 +7,7 @@ use std::path::Path;
 
 pub fn run(out_dir: &Path, spec: &ScenarioSpec) -> Result<u8> {
     if spec.entities == 0 || spec.years == 0 || spec.years > 40 {
-        return Err(Error::Other("--entities must be at least 1 and --years between 1 and 40".into()));
+        return Err(Error::Usage("--entities must be at least 1 and --years between 1 and 40".into()));
     }
     let s = crate::stages::universe::write_demo(out_dir, spec)?;
     println!(

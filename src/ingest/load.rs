@@ -334,10 +334,13 @@ pub fn load(paths: &InputPaths, cal: &Calendar, q: &QualitySettings) -> Result<D
     }
     for c in &ds.counts {
         if c.rows_in != c.used + c.rejected {
-            return Err(Error::Other(format!(
-                "row accounting of table {} does not add up: {} in, {} used, {} rejected; this is a bug, please report it",
-                c.table, c.rows_in, c.used, c.rejected
-            )));
+            return Err(Error::Accounting {
+                table: c.table.to_string(),
+                after: "",
+                rows_in: c.rows_in,
+                used: c.used,
+                rejected: c.rejected,
+            });
         }
     }
     collect_rejects(&mut ds);

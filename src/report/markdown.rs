@@ -671,7 +671,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
 
     // Figures.
     let mut figure = 0;
-    let chart_err = |e: String| Error::Other(format!("drawing a figure: {e}"));
+    let chart_err = Error::Chart;
     let chosen = charted(&settings, entities);
     let tdates = term_dates(&settings, &dates);
     let charted_nodes = hz.charted(&readback::table_path(&t, "hazard_curves"), &chosen, &tdates)?;
@@ -841,7 +841,7 @@ fn intensity_sections(
     figure: &mut usize,
     (hazard_table, residual_table): &(String, String),
 ) -> Result<()> {
-    let chart_err = |e: String| Error::Other(format!("drawing a figure: {e}"));
+    let chart_err = Error::Chart;
     if !bond_hazard.is_empty() {
         let _ = writeln!(w, "### Bond-implied hazard curves\n");
         let _ = writeln!(

@@ -152,7 +152,7 @@ fn combine(parts: Vec<Partition>) -> Result<Partition> {
             match all.members.get_mut(k) {
                 Some((r0, v0)) if r0.to_bits() == r.to_bits() => v0.append(&mut v),
                 Some((r0, _)) => {
-                    return Err(Error::Other(format!(
+                    return Err(Error::Parts(format!(
                     "parts disagree on the recovery scenarios ({r0} and {r}); rerun every shard with one pipeline file"
                 )))
                 }

@@ -240,15 +240,15 @@ fn table_metadata(cfg: &RunConfig, params: &CalibrationParams) -> Vec<(String, S
 
 /// The run's settings as the manifest records them.
 fn settings_value(cfg: &RunConfig) -> Result<serde_json::Value> {
-    serde_json::to_value(cfg).map_err(|e| Error::Other(format!("settings: {e}")))
+    serde_json::to_value(cfg).map_err(|e| Error::Encode { what: "settings", message: e.to_string() })
 }
 
 /// What the report takes from the node and residual tables, gathered as they are written.
 /// Built from the settings as the manifest records them, so a run's report and one rendered
 /// later from the run folder read the same values.
 fn report_folds(cfg: &RunConfig) -> Result<(NodeFold, ResidualFold)> {
-    let settings: crate::tables::manifest::RecordedSettings =
-        serde_json::from_value(settings_value(cfg)?).map_err(|e| Error::Other(format!("settings: {e}")))?;
+    let settings: crate::tables::manifest::RecordedSettings = serde_json::from_value(settings_value(cfg)?)
+        .map_err(|e| Error::Encode { what: "settings", message: e.to_string() })?;
     Ok((NodeFold::new(&settings), ResidualFold::new(cfg.stability.reprice_tolerance_bp)))
 }
 
@@ -382,8 +382,12 @@ fn finish(
     let mut counts = ingest_counts.clone();
     for c in counts.iter_mut() {
         c.rejected += cal.rejects.iter().filter(|r| r.table == c.table).count();
-        c.used = c.rows_in.checked_sub(c.rejected).ok_or_else(|| {
-            Error::Other(format!("row accounting of {} does not add up after calibration ({} in, {} rejected); this is a bug, please report it", c.table, c.rows_in, c.rejected))
+        c.used = c.rows_in.checked_sub(c.rejected).ok_or_else(|| Error::Accounting {
+            table: c.table.to_string(),
+            after: " after calibration",
+            rows_in: c.rows_in,
+            used: c.used,
+            rejected: c.rejected,
         })?;
     }
 
@@ -464,7 +468,8 @@ fn finish(
         settings: settings_value(cfg)?,
         tables: table_files(&tables)?,
     };
-    let text = serde_json::to_string_pretty(&manifest).map_err(|e| Error::Other(format!("manifest: {e}")))?;
+    let text = serde_json::to_string_pretty(&manifest)
+        .map_err(|e| Error::Encode { what: "manifest", message: e.to_string() })?;
     write_text(&work.join("manifest.json"), &(text + "\n"))?;
 
     // The report reads the written tables back: free the in-memory results first, so that the

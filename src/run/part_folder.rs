@@ -122,7 +122,8 @@ pub fn write_partition(
         dates_from: part.range.from.map(|d| d.to_string()),
         dates_to: part.range.to.map(|d| d.to_string()),
     };
-    let text = serde_json::to_string_pretty(&meta).map_err(|e| Error::Other(format!("partition.json: {e}")))?;
+    let text = serde_json::to_string_pretty(&meta)
+        .map_err(|e| Error::Encode { what: "partition.json", message: e.to_string() })?;
     crate::tables::manifest::write_text(&work.join("partition.json"), &(text + "\n"))?;
     if dir.exists() {
         std::fs::remove_dir_all(dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })?;

@@ -189,11 +189,10 @@ pub fn compute_partition(
                 Ok(())
             });
             let cal = calibrate_blocks(ds, params, range, move |block| {
-                tx.send(block).map_err(|_| Error::Other("the writer of the calibrated curves stopped".into()))
+                tx.send(block).map_err(|_| Error::Internal("the writer of the calibrated curves stopped".into()))
             });
-            let consumed = consumer.join().map_err(|_| {
-                Error::Other("the writer of the calibrated curves failed; this is a bug, please report it".into())
-            })?;
+            let consumed =
+                consumer.join().map_err(|_| Error::Internal("the writer of the calibrated curves failed".into()))?;
             // The writer's own error says more than the calibration's "writer stopped".
             consumed?;
             cal

@@ -207,7 +207,7 @@ pub fn backtest_members_stage(
         return Ok(Vec::new());
     }
     let core = BacktestSettings { cohort_dates: dates.clone(), ..stage.core.clone() };
-    let mk = |e: backtest::BacktestError| Error::Other(format!("backtest stage: {e}"));
+    let mk = |e: backtest::BacktestError| Error::Stage { stage: "backtest", source: e.into() };
     core.check().map_err(mk)?;
     let facts = facts(ds, &scope.data_end);
     let mut sorted = dates.clone();
@@ -256,7 +256,7 @@ pub fn backtest_from_members(
         return Ok(results);
     }
     let core = BacktestSettings { cohort_dates: dates.clone(), ..stage.core.clone() };
-    let mk = |e: backtest::BacktestError| Error::Other(format!("backtest stage: {e}"));
+    let mk = |e: backtest::BacktestError| Error::Stage { stage: "backtest", source: e.into() };
     let horizon_rank = |h: u32| core.horizons_years.iter().position(|x| *x == h).unwrap_or(usize::MAX);
     let wanted: BTreeSet<NaiveDate> = dates.iter().copied().collect();
     let mut outputs = Vec::new();
@@ -291,7 +291,7 @@ pub fn backtest_from_members(
             })
             .collect();
         results.history = compare_cohort_history(&records, &outputs[0].buckets, core.level, &core.zones)
-            .map_err(|e| Error::Other(format!("backtest stage (cohort history): {e}")))?;
+            .map_err(|e| Error::Stage { stage: "backtest (cohort history)", source: e.into() })?;
         results.outcome_sources.push("cohort_history");
     }
     // Without a defaults table the entity-level outcomes are unknown (every member would look

@@ -372,10 +372,13 @@ pub fn calibrate_blocks(
             c.used = disc_used;
         }
         if c.rows_in != c.used + c.rejected {
-            return Err(Error::Other(format!(
-                "row accounting of {} does not add up after calibration ({} in, {} used, {} rejected); this is a bug, please report it",
-                c.table, c.rows_in, c.used, c.rejected
-            )));
+            return Err(Error::Accounting {
+                table: c.table.to_string(),
+                after: " after calibration",
+                rows_in: c.rows_in,
+                used: c.used,
+                rejected: c.rejected,
+            });
         }
     }
     out.rejects.sort_by(|a, b| (a.table, &a.source, a.row).cmp(&(b.table, &b.source, b.row)));

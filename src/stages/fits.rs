@@ -464,10 +464,13 @@ pub fn calibrate_intensity(
             c.rejected += extra;
             c.used = c.used.saturating_sub(extra);
             if c.rows_in != c.used + c.rejected {
-                return Err(Error::Other(format!(
-                    "row accounting of {} does not add up after the bond fit ({} in, {} used, {} rejected); this is a bug, please report it",
-                    c.table, c.rows_in, c.used, c.rejected
-                )));
+                return Err(Error::Accounting {
+                    table: c.table.to_string(),
+                    after: " after the bond fit",
+                    rows_in: c.rows_in,
+                    used: c.used,
+                    rejected: c.rejected,
+                });
             }
         }
     }

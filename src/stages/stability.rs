@@ -322,7 +322,7 @@ pub fn stability_inputs(
 /// Runs the stability core.
 pub fn run_stability(inputs: StabilityInputs, settings: &StabilitySettings) -> Result<StabilityOutput> {
     stability::analyse_gathered(inputs.observations, &inputs.market, &inputs.counts, inputs.residuals, settings)
-        .map_err(|e| crate::error::Error::Other(format!("stability stage: {e}")))
+        .map_err(|e| crate::error::Error::Stage { stage: "stability", source: e.into() })
 }
 
 /// Writes `stability`, `stability_bands`, `stability_psi`, `stability_breaks`,

@@ -147,7 +147,10 @@ pub fn check_frame<T: Table>(df: &DataFrame) -> Result<()> {
     let found: Vec<(String, DataType)> = df.get_column_names().iter().map(|n| n.to_string()).zip(df.dtypes()).collect();
     let declared: Vec<(String, DataType)> = T::COLUMNS.iter().map(|c| (c.name.to_string(), c.kind.dtype())).collect();
     if found != declared {
-        return Err(Error::Other(format!("table {}: the writer's columns {found:?} differ from the declared {declared:?}; this is a bug, please report it", T::NAME)));
+        return Err(Error::Internal(format!(
+            "table {}: the writer's columns {found:?} differ from the declared {declared:?}",
+            T::NAME
+        )));
     }
     Ok(())
 }

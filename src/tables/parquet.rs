@@ -54,7 +54,8 @@ impl TableBuilder {
     }
 
     pub fn finish(self) -> Result<DataFrame> {
-        DataFrame::new_infer_height(self.columns).map_err(|e| Error::Other(format!("building a table: {e}")))
+        DataFrame::new_infer_height(self.columns)
+            .map_err(|e| Error::Encode { what: "building a table", message: e.to_string() })
     }
 }
 
@@ -150,10 +151,7 @@ impl<T> RowGroupWriter<T> {
     fn flush(&mut self) -> Result<()> {
         let mut df = (self.frame)(&self.pending)?;
         df.rechunk_mut();
-        let w = self
-            .writer
-            .as_mut()
-            .ok_or_else(|| Error::Other("a finished table was written to; this is a bug, please report it".into()))?;
+        let w = self.writer.as_mut().ok_or_else(|| Error::Internal("a finished table was written to".into()))?;
         w.write_batch(&df).map_err(|e| Error::Write { path: self.path.clone(), message: e.to_string() })?;
         self.written += self.pending.len();
         self.pending.clear();
@@ -166,10 +164,7 @@ impl<T> RowGroupWriter<T> {
         if !self.pending.is_empty() {
             self.flush()?;
         }
-        let w = self
-            .writer
-            .take()
-            .ok_or_else(|| Error::Other("a table was finished twice; this is a bug, please report it".into()))?;
+        let w = self.writer.take().ok_or_else(|| Error::Internal("a table was finished twice".into()))?;
         w.finish().map_err(|e| Error::Write { path: self.path.clone(), message: e.to_string() })?;
         std::fs::rename(&self.tmp, &self.path)
             .map_err(|e| Error::Write { path: self.path.clone(), message: e.to_string() })?;
@@ -229,8 +224,8 @@ impl<T> SplitWriter<T> {
                 _ => {
                     if let Some((open, w)) = self.current.take() {
                         if k < open {
-                            return Err(Error::Other(format!(
-                                "rows of {} came after those of {}; this is a bug, please report it",
+                            return Err(Error::Internal(format!(
+                                "rows of {} came after those of {}",
                                 Self::file_name(k),
                                 Self::file_name(open)
                             )));
@@ -323,7 +318,7 @@ impl<T: Send + 'static, F: RowFold<T>> WriterThread<T, F> {
                     ToWriter::Finish => return Ok((writer.finish()?, fold)),
                 }
             }
-            Err(Error::Other("a table's writer was stopped before the table was finished".into()))
+            Err(Error::Internal("a table's writer was stopped before the table was finished".into()))
         });
         WriterThread { tx: Some(tx), handle: Some(handle) }
     }
@@ -333,7 +328,7 @@ impl<T: Send + 'static, F: RowFold<T>> WriterThread<T, F> {
         self.tx = None;
         match self.handle.take().map(|h| h.join()) {
             Some(Ok(Err(e))) => e,
-            _ => Error::Other("a table's writer stopped unexpectedly; this is a bug, please report it".into()),
+            _ => Error::Internal("a table's writer stopped unexpectedly".into()),
         }
     }
 
@@ -354,7 +349,7 @@ impl<T: Send + 'static, F: RowFold<T>> WriterThread<T, F> {
         let joined = self.handle.take().map(|h| h.join());
         match (sent, joined) {
             (_, Some(Ok(r))) => r,
-            _ => Err(Error::Other("a table's writer stopped unexpectedly; this is a bug, please report it".into())),
+            _ => Err(Error::Internal("a table's writer stopped unexpectedly".into())),
         }
     }
 }
