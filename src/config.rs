@@ -169,7 +169,7 @@ fn backtest_stage(k: &BacktestSection, inputs: &InputPaths, path: &Path) -> Resu
     };
     let zones = crate::stats::ZoneThresholds::new(k.zone_yellow.unwrap_or(0.05), k.zone_red.unwrap_or(0.001))
         .map_err(|e| bad(path, "backtest.zone_yellow / zone_red", e.to_string()))?;
-    // The cohort dates come from the data at run time (`commands::backtest::cohort_dates`); a
+    // The cohort dates come from the data at run time (`backtest::cohort_dates`); a
     // stand-in date here lets `check` validate every other setting now, at load time.
     let core = BacktestSettings {
         cohort_dates: vec![NaiveDate::from_ymd_opt(2000, 1, 3).unwrap_or_default()],

@@ -1,5 +1,9 @@
 //! SVG figures for the report, drawn with plotters' SVG backend (no font files needed).
 //! Each function returns the SVG text; the caller writes it atomically.
+//!
+//! Kept in one file on purpose: every figure shares the palette, the axis padding, the tick and
+//! label helpers and the empty-figure fallback at the top, so the figures look alike; the file
+//! is a list of figure kinds over those helpers, each short and independent.
 
 use chrono::{Datelike, NaiveDate};
 use plotters::prelude::*;

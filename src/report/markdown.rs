@@ -3,17 +3,19 @@
 //! files in `charts/`, each with a caption. Deterministic: no clock, stable ordering.
 
 use super::charts;
+use super::fits_section::intensity_sections;
+use super::folds::{CdsNodes, Residuals};
+pub use super::folds::{NodeFold, ResidualFold};
 use crate::calibrate::cir::{CirFitMode, CirFitSettings};
 use crate::error::{Error, Result};
 use crate::ingest::Reject;
-use crate::stability::summary::keep_first_n;
 use crate::tables::flags::{FlagRecord, DATA_QUALITY, STABILITY};
 use crate::tables::inputs::reject_reasons;
 use crate::tables::manifest::RecordedSettings;
 use crate::tables::manifest::{self, write_text, Manifest};
 use crate::tables::readback;
 use crate::tables::{self, BasisRow, HazardCurveRow, IntensityParamRow, ResidualRow, Table};
-use crate::text::{CurveSource, FitMethod, Severity};
+use crate::text::Severity;
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
 use std::fmt::Write as _;
@@ -22,11 +24,11 @@ use std::path::Path;
 /// The caution every report carries (DEVELOPERS.md).
 pub const CAUTION: &str = "The figures in this report support, and do not replace, independent model validation under the institution's model risk policy and the supervisory rules that apply to it.";
 
-fn pct(x: f64) -> String {
+pub(super) fn pct(x: f64) -> String {
     format!("{:.1}%", x * 100.0)
 }
 
-fn file_stem(name: &str) -> String {
+pub(super) fn file_stem(name: &str) -> String {
     name.chars()
         .map(|c| if c.is_ascii_alphanumeric() { c.to_ascii_lowercase() } else { '-' })
         .collect::<String>()
@@ -34,7 +36,7 @@ fn file_stem(name: &str) -> String {
         .to_string()
 }
 
-fn quantile(sorted: &[f64], q: f64) -> f64 {
+pub(super) fn quantile(sorted: &[f64], q: f64) -> f64 {
     if sorted.is_empty() {
         return f64::NAN;
     }
@@ -49,7 +51,7 @@ fn quantile(sorted: &[f64], q: f64) -> f64 {
 
 /// The 10%, 50% and 90% quantiles of each date's values, as (decimal year, p10, p50, p90),
 /// for the universe band of a history figure.
-fn quantile_band(per_date: &mut BTreeMap<NaiveDate, Vec<f64>>) -> Vec<(f64, f64, f64, f64)> {
+pub(super) fn quantile_band(per_date: &mut BTreeMap<NaiveDate, Vec<f64>>) -> Vec<(f64, f64, f64, f64)> {
     per_date
         .iter_mut()
         .map(|(d, v)| {
@@ -93,289 +95,6 @@ fn term_dates(settings: &RecordedSettings, dates: &[NaiveDate]) -> Vec<NaiveDate
         0 => vec![],
         1 | 2 => dates.to_vec(),
         n => vec![dates[0], dates[n / 2], dates[n - 1]],
-    }
-}
-
-/// What the report shows of `hazard_curves`, gathered a slice at a time: the CDS nodes'
-/// universe, statuses and 5Y band, and the bond rows whole (one curve per entity with bonds
-/// and date, far fewer than the CDS nodes).
-struct CdsNodes {
-    entities: BTreeSet<String>,
-    currencies: BTreeSet<String>,
-    dates: BTreeSet<NaiveDate>,
-    /// CDS curves: each curve's rows are one run of the table (it is sorted by curve), so the
-    /// runs are counted rather than the keys held (4.6 million at 2,000 names x 10 years).
-    curves: usize,
-    bad_curves: std::collections::HashSet<(NaiveDate, crate::tables::Label, crate::tables::Label)>,
-    status_counts: BTreeMap<&'static str, usize>,
-    /// The first ten nodes not `ok`, in table order, and how many there are.
-    bad_first: Vec<HazardCurveRow>,
-    bad_nodes: usize,
-    /// 5Y hazards with status `ok` per date, in % (table order within a date).
-    five_year: BTreeMap<NaiveDate, Vec<f64>>,
-    bond: Vec<HazardCurveRow>,
-    /// The nodes of the entities the settings name for the figures, gathered in the same pass
-    /// (table order): (date, years to node, hazard) and the 5Y history.
-    named: BTreeMap<String, (Vec<(NaiveDate, f64, f64)>, Vec<(f64, f64)>)>,
-    /// The curve of the last CDS row taken.
-    last: Option<(NaiveDate, crate::tables::Label, crate::tables::Label)>,
-}
-
-/// The charted entities' nodes: term structures on the chosen dates and the 5Y history.
-#[derive(Default)]
-struct ChartedNodes {
-    /// (entity, date) -> (years to node, hazard), in table order.
-    term: BTreeMap<(String, NaiveDate), Vec<(f64, f64)>>,
-    /// entity -> (decimal year, 5Y hazard in %), in table order.
-    five_year: BTreeMap<String, Vec<(f64, f64)>>,
-}
-
-fn is_five_year_ok(h: &HazardCurveRow) -> bool {
-    &*h.tenor == "5Y" && h.hazard.is_some() && h.status == "ok"
-}
-
-impl CdsNodes {
-    /// `named`: the entities the settings chart, when they name them.
-    fn new(named: Option<&[String]>) -> CdsNodes {
-        CdsNodes {
-            entities: BTreeSet::new(),
-            currencies: BTreeSet::new(),
-            dates: BTreeSet::new(),
-            curves: 0,
-            bad_curves: Default::default(),
-            status_counts: BTreeMap::new(),
-            bad_first: Vec::new(),
-            bad_nodes: 0,
-            five_year: BTreeMap::new(),
-            bond: Vec::new(),
-            named: named.unwrap_or_default().iter().map(|e| (e.clone(), Default::default())).collect(),
-            last: None,
-        }
-    }
-
-    /// One pass over the table.
-    fn read(path: &Path, named: Option<&[String]>) -> Result<CdsNodes> {
-        let mut out = CdsNodes::new(named);
-        readback::slices::<HazardCurveRow>(path, |rows| {
-            out.add(&rows);
-            Ok(())
-        })
-        .map(|_| out)
-    }
-
-    /// Takes the next rows of the table, in table order.
-    fn add(&mut self, rows: &[HazardCurveRow]) {
-        for h in rows {
-            if h.source != CurveSource::Cds {
-                self.bond.push(h.clone());
-                continue;
-            }
-            // A curve's nodes are consecutive rows: the sets are asked once per curve (the
-            // sets' contents are the same as asking every row).
-            let same_curve = self.last.as_ref().is_some_and(|(d, e, c)| {
-                *d == h.date
-                    && (std::sync::Arc::ptr_eq(e, &h.entity) || *e == h.entity)
-                    && (std::sync::Arc::ptr_eq(c, &h.currency) || *c == h.currency)
-            });
-            if !same_curve {
-                if !self.entities.contains(&*h.entity) {
-                    self.entities.insert(h.entity.to_string());
-                }
-                if !self.currencies.contains(&*h.currency) {
-                    self.currencies.insert(h.currency.to_string());
-                }
-                if self.last.as_ref().is_none_or(|(d, _, _)| *d != h.date) {
-                    self.dates.insert(h.date);
-                }
-                self.curves += 1;
-                self.last = Some((h.date, h.entity.clone(), h.currency.clone()));
-            }
-            *self.status_counts.entry(h.status).or_default() += 1;
-            if is_five_year_ok(h) {
-                self.five_year.entry(h.date).or_default().push(h.hazard.unwrap_or(0.0) * 100.0);
-            }
-            if let Some((nodes, five)) = self.named.get_mut(&*h.entity) {
-                if let Some(x) = h.hazard {
-                    nodes.push((h.date, crate::curves::year_time(h.date, h.node_date), x));
-                }
-                if is_five_year_ok(h) {
-                    five.push((charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0));
-                }
-            }
-            if h.status != "ok" {
-                self.bad_curves.insert((h.date, h.entity.clone(), h.currency.clone()));
-                self.bad_nodes += 1;
-                if self.bad_first.len() < 10 {
-                    self.bad_first.push(h.clone());
-                }
-            }
-        }
-    }
-
-    /// The charted entities' nodes: from the first pass when the settings named them, else
-    /// from a second pass, once the entities and the dates are known.
-    fn charted(&self, path: &Path, chosen: &[String], dates: &[NaiveDate]) -> Result<ChartedNodes> {
-        let mut out = ChartedNodes::default();
-        if chosen.is_empty() {
-            return Ok(out);
-        }
-        if chosen.iter().all(|e| self.named.contains_key(e)) {
-            for e in chosen.iter().collect::<BTreeSet<_>>() {
-                let (nodes, five) = &self.named[e];
-                for &(d, x, y) in nodes.iter().filter(|(d, _, _)| dates.contains(d)) {
-                    out.term.entry((e.clone(), d)).or_default().push((x, y));
-                }
-                if !five.is_empty() {
-                    out.five_year.insert(e.clone(), five.clone());
-                }
-            }
-            return Ok(out);
-        }
-        readback::slices::<HazardCurveRow>(path, |rows| {
-            for h in
-                rows.iter().filter(|h| h.source == CurveSource::Cds && chosen.iter().any(|e| e.as_str() == &*h.entity))
-            {
-                if let (Some(x), true) = (h.hazard, dates.contains(&h.date)) {
-                    out.term
-                        .entry((h.entity.to_string(), h.date))
-                        .or_default()
-                        .push((crate::curves::year_time(h.date, h.node_date), x));
-                }
-                if is_five_year_ok(h) {
-                    out.five_year
-                        .entry(h.entity.to_string())
-                        .or_default()
-                        .push((charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0));
-                }
-            }
-            Ok(())
-        })?;
-        Ok(out)
-    }
-}
-
-/// Running sums of one tenor's residuals, added in table order (so the figures equal those of
-/// summing the collected values).
-struct TenorSums {
-    n: usize,
-    sum: f64,
-    sum_sq: f64,
-    max_abs: f64,
-}
-
-/// What the report shows of `calibration_residuals`, gathered a slice at a time.
-#[derive(Default)]
-struct Residuals {
-    /// Bootstrap residuals with status `ok`, and those within the repricing tolerance.
-    ok: usize,
-    within: usize,
-    /// The repricing tolerance in bp (`stability.reprice_tolerance_bp`).
-    tolerance_bp: f64,
-    by_tenor: BTreeMap<(u32, String), TenorSums>,
-    /// The ten largest finite bootstrap residuals (all statuses), as a stable sort would give.
-    worst: Vec<crate::tables::ResidualRow>,
-    /// log10 |residual| of every finite bootstrap residual, for the histogram.
-    logs: Vec<f64>,
-    bond: Vec<crate::tables::ResidualRow>,
-}
-
-fn worst_first(a: &crate::tables::ResidualRow, b: &crate::tables::ResidualRow) -> std::cmp::Ordering {
-    b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then(a.date.cmp(&b.date)).then(a.entity.cmp(&b.entity))
-}
-
-impl Residuals {
-    fn new(tolerance_bp: f64) -> Residuals {
-        Residuals { tolerance_bp, ..Residuals::default() }
-    }
-
-    fn read(path: &Path, tolerance_bp: f64) -> Result<Residuals> {
-        let mut out = Residuals::new(tolerance_bp);
-        readback::slices::<ResidualRow>(path, |rows| {
-            out.add(&rows);
-            Ok(())
-        })?;
-        Ok(out)
-    }
-
-    /// Takes the next rows of the table, in table order.
-    fn add(&mut self, rows: &[crate::tables::ResidualRow]) {
-        // The empty sum of the standard library (its starting value), so that running sums
-        // match `Iterator::sum` over the same values bit for bit.
-        let zero: f64 = std::iter::empty::<f64>().sum();
-        for r in rows {
-            match r.method {
-                FitMethod::Bootstrap => {}
-                FitMethod::BondFit => {
-                    self.bond.push(r.clone());
-                    continue;
-                }
-                FitMethod::Cir => continue,
-            }
-            if r.status == "ok" {
-                self.ok += 1;
-                self.within += usize::from(r.residual_bp.abs() <= self.tolerance_bp);
-                let e = match self.by_tenor.iter_mut().find(|((_, t), _)| *t == *r.tenor_or_bond) {
-                    Some((_, e)) => e,
-                    None => {
-                        let months = r.tenor_or_bond.parse::<crate::time::Tenor>().map(|t| t.months()).unwrap_or(0);
-                        self.by_tenor.entry((months, r.tenor_or_bond.to_string())).or_insert(TenorSums {
-                            n: 0,
-                            sum: zero,
-                            sum_sq: zero,
-                            max_abs: 0.0,
-                        })
-                    }
-                };
-                e.n += 1;
-                e.sum += r.residual_bp;
-                e.sum_sq += r.residual_bp * r.residual_bp;
-                e.max_abs = e.max_abs.max(r.residual_bp.abs());
-            }
-            if !r.residual_bp.is_finite() {
-                continue;
-            }
-            self.logs.push(r.residual_bp.abs().max(1e-16).log10());
-            if self.worst.len() < 10 || worst_first(r, &self.worst[9]).is_lt() {
-                keep_first_n(&mut self.worst, r.clone(), 10, worst_first);
-            }
-        }
-    }
-}
-
-/// What the report takes from the node and residual tables, gathered as their rows are
-/// written (see [`render_with`]) instead of read back.
-pub struct NodeFold(CdsNodes);
-
-/// See [`NodeFold`].
-pub struct ResidualFold(Residuals);
-
-impl NodeFold {
-    /// `settings`: the run's settings as the manifest records them.
-    pub fn new(settings: &RecordedSettings) -> NodeFold {
-        NodeFold(CdsNodes::new(settings.charted_entities.as_deref()))
-    }
-
-    pub fn add(&mut self, rows: &[HazardCurveRow]) {
-        self.0.add(rows);
-    }
-}
-
-impl crate::tables::parquet::RowFold<HazardCurveRow> for NodeFold {
-    fn add(&mut self, rows: &[HazardCurveRow]) {
-        self.0.add(rows);
-    }
-}
-
-impl crate::tables::parquet::RowFold<crate::tables::ResidualRow> for ResidualFold {
-    fn add(&mut self, rows: &[crate::tables::ResidualRow]) {
-        self.0.add(rows);
-    }
-}
-
-impl ResidualFold {
-    /// `tolerance_bp`: within it a calibrated quote counts as repriced.
-    pub fn new(tolerance_bp: f64) -> ResidualFold {
-        ResidualFold(Residuals::new(tolerance_bp))
     }
 }
 
@@ -821,158 +540,4 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     let _ = writeln!(w, "- Reproducibility: the tables and this report are deterministic for the same inputs and pipeline file; timings are in `run.log`, not here.\n");
     let _ = writeln!(w, "## 8. Caution\n\n{CAUTION} Every conclusion should be checked against the data and these method notes before it is relied on.");
     write_text(&run_dir.join("report.md"), &md)
-}
-
-fn median(v: &mut [f64]) -> f64 {
-    v.sort_by(f64::total_cmp);
-    quantile(v, 0.5)
-}
-
-/// Section 3's subsections for the bond-implied curves and the CIR fit (only what ran).
-#[allow(clippy::too_many_arguments)]
-fn intensity_sections(
-    w: &mut String,
-    bond_hazard: &[HazardCurveRow],
-    bond_res: &[&crate::tables::ResidualRow],
-    basis: &[crate::tables::BasisRow],
-    params: &[crate::tables::IntensityParamRow],
-    settings: &RecordedSettings,
-    charts_dir: &Path,
-    figure: &mut usize,
-    (hazard_table, residual_table): &(String, String),
-) -> Result<()> {
-    let chart_err = Error::Chart;
-    if !bond_hazard.is_empty() {
-        let _ = writeln!(w, "### Bond-implied hazard curves\n");
-        let _ = writeln!(
-            w,
-            "Hazard curves implied by each entity's fixed-coupon bond prices (recovery convention `{}`), one per (date, entity, currency); rows with source `bond` in `{hazard_table}`, bond residuals with method `bond_fit` in `{residual_table}` (market and model clean price per 100 face, residual in bp of yield).\n",
-            settings.bond_recovery_convention.as_str()
-        );
-        let mut per: BTreeMap<
-            (&str, &str),
-            (BTreeSet<NaiveDate>, BTreeSet<&str>, BTreeSet<String>, Vec<f64>, Vec<f64>),
-        > = BTreeMap::new();
-        for h in bond_hazard {
-            let e = per.entry((&*h.entity, &*h.currency)).or_default();
-            e.0.insert(h.date);
-            e.2.insert(h.detail.as_deref().and_then(|d| d.split(' ').next()).unwrap_or("").replace('_', "-"));
-        }
-        for r in bond_res {
-            let e = per.entry((&*r.entity, &*r.currency)).or_default();
-            e.1.insert(&*r.tenor_or_bond);
-            e.3.push(r.model - r.market);
-            e.4.push(r.residual_bp);
-        }
-        let rms = |v: &[f64]| (v.iter().map(|x| x * x).sum::<f64>() / v.len().max(1) as f64).sqrt();
-        let _ = writeln!(w, "| entity | currency | curves | bonds | form | RMSE price (per 100) | RMSE yield (bp) | largest abs yield residual (bp) |\n| --- | --- | ---: | ---: | --- | ---: | ---: | ---: |");
-        for ((e, c), (d, b, f, p, y)) in &per {
-            let mx = y.iter().fold(0.0f64, |a, x| a.max(x.abs()));
-            let _ = writeln!(
-                w,
-                "| {e} | {c} | {} | {} | {} | {:.2e} | {:.2e} | {mx:.2e} |",
-                d.len(),
-                b.len(),
-                f.iter().cloned().collect::<Vec<_>>().join(", "),
-                rms(p),
-                rms(y)
-            );
-        }
-        let _ = writeln!(w);
-        if basis.is_empty() {
-            let _ = writeln!(w, "No CDS curve was available on the bonds' dates, so no CDS-bond basis was computed.\n");
-        } else {
-            let _ = writeln!(w, "CDS-bond basis at the bond maturities (`tables/cds_bond_basis.parquet`): a CDS to each bond maturity priced on the bond-implied and on the CDS-implied curve; basis = CDS minus bond-implied par spread (negative when the bonds price the name as riskier than its CDS).\n");
-            let mut per: BTreeMap<(&str, &str), (Vec<f64>, Vec<f64>)> = BTreeMap::new();
-            for b in basis {
-                let e = per.entry((b.entity.as_str(), b.currency.as_str())).or_default();
-                e.0.push(b.basis_bp);
-                e.1.push(b.hazard_basis_bp);
-            }
-            let _ = writeln!(w, "| entity | currency | points | mean basis (bp) | median | min | max | mean hazard basis (bp) |\n| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: |");
-            for ((e, c), (b, h)) in per.iter_mut() {
-                let n = b.len() as f64;
-                let mean = b.iter().sum::<f64>() / n;
-                let (lo, hi) = b.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, z), x| (a.min(*x), z.max(*x)));
-                let hm = h.iter().sum::<f64>() / n;
-                let _ = writeln!(
-                    w,
-                    "| {e} | {c} | {} | {mean:.1} | {:.1} | {lo:.1} | {hi:.1} | {hm:.1} |",
-                    b.len(),
-                    median(b)
-                );
-            }
-            let _ = writeln!(w);
-        }
-    }
-    if !params.is_empty() {
-        let _ = writeln!(w, "### CIR intensity fit\n");
-        let _ = writeln!(w, "The CIR intensity d lambda = kappa (theta - lambda) dt + sigma sqrt(lambda) dW fitted to each bootstrapped CDS curve's quotes (`tables/intensity_params.parquet`; repriced quotes with method `cir` in `{residual_table}`). Medians over the fits that produced parameters; RMSE over each curve's quotes in bp of running spread.\n");
-        let mut per: BTreeMap<(&str, &str), Vec<&crate::tables::IntensityParamRow>> = BTreeMap::new();
-        for p in params {
-            per.entry((p.entity.as_str(), p.currency.as_str())).or_default().push(p);
-        }
-        let _ = writeln!(w, "| entity | currency | fits | kappa | theta | sigma | lambda0 | median RMSE (bp) | largest RMSE (bp) | Feller holds | at a bound | status |\n| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- |");
-        for ((e, c), v) in &per {
-            let col = |f: &dyn Fn(&crate::tables::IntensityParamRow) -> Option<f64>| -> Vec<f64> {
-                v.iter().filter_map(|p| f(p)).collect()
-            };
-            let (mut k, mut th, mut sg, mut l0, mut rm) =
-                (col(&|p| p.kappa), col(&|p| p.theta), col(&|p| p.sigma), col(&|p| p.lambda0), col(&|p| p.rmse_bp));
-            let mx = rm.iter().fold(0.0f64, |a, x| a.max(*x));
-            let with = v.iter().filter(|p| p.feller.is_some()).count();
-            let feller = v.iter().filter(|p| p.feller == Some(true)).count();
-            let bound = v.iter().filter(|p| p.detail.as_deref().is_some_and(|d| d.contains("bound"))).count();
-            let mut st: BTreeMap<&str, usize> = BTreeMap::new();
-            for p in v {
-                *st.entry(p.status).or_default() += 1;
-            }
-            let st = st.iter().map(|(s, n)| format!("`{s}` {n}")).collect::<Vec<_>>().join(", ");
-            let _ = writeln!(
-                w,
-                "| {e} | {c} | {} | {:.4} | {:.4} | {:.4} | {:.4} | {:.2} | {mx:.2} | {} | {bound} | {st} |",
-                v.len(),
-                median(&mut k),
-                median(&mut th),
-                median(&mut sg),
-                median(&mut l0),
-                median(&mut rm),
-                pct(feller as f64 / with.max(1) as f64)
-            );
-        }
-        let bound = params.iter().filter(|p| p.detail.as_deref().is_some_and(|d| d.contains("bound"))).count();
-        let _ = writeln!(
-            w,
-            "\n{bound} of {} fits end with a parameter at a bound (named in the table's `detail` column). The plain CIR has three shape parameters for a whole curve; a fit at a bound, or with an RMSE well above the quotes' bid-ask, says the model cannot take that curve's shape, and its parameters should not be read as estimates.\n",
-            params.len()
-        );
-        // RMSE through time per entity, over the universe band.
-        let mut per_date: BTreeMap<NaiveDate, Vec<f64>> = BTreeMap::new();
-        for p in params {
-            if let Some(r) = p.rmse_bp {
-                per_date.entry(p.date).or_default().push(r);
-            }
-        }
-        let band = quantile_band(&mut per_date);
-        let series: Vec<(String, Vec<(f64, f64)>)> = per
-            .iter()
-            .map(|((e, _), v)| {
-                (
-                    e.to_string(),
-                    v.iter().filter_map(|p| Some((charts::decimal_year(p.date), p.rmse_bp?))).collect::<Vec<_>>(),
-                )
-            })
-            .filter(|(_, v)| !v.is_empty())
-            .collect();
-        if !series.is_empty() {
-            let svg =
-                charts::history_with_band("CIR fit RMSE through time", "RMSE (bp of running spread)", &series, &band)
-                    .map_err(chart_err)?;
-            write_text(&charts_dir.join("cir-rmse-history.svg"), &svg)?;
-            *figure += 1;
-            let _ = writeln!(w, "![CIR fit RMSE through time](charts/cir-rmse-history.svg)\n");
-            let _ = writeln!(w, "*Figure {figure}. Root mean square repricing error of the CIR fit per curve date and entity, over the universe's 10%-90% range (shaded) and median (grey line).*\n", figure = *figure);
-        }
-    }
-    Ok(())
 }

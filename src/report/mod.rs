@@ -7,6 +7,8 @@
 
 pub mod charts;
 pub mod compare;
+mod fits_section;
+mod folds;
 pub mod markdown;
 pub mod progress;
 pub mod sections;

@@ -1,7 +1,11 @@
 //! The invented universe: entities with grades that migrate, risk-free curves, historical and
 //! pricing-measure intensities, defaults, CDS quotes priced with the crate's own pricer, bonds
 //! with a CDS-bond basis, a longer cohort history, and data faults planted at known places.
-//! Everything is a plain value; writing files is `commands::demo`'s job.
+//! Everything is a plain value; writing files is the application's job (`stages::universe`).
+//!
+//! Kept in one file on purpose: the generator draws every quantity from one random stream in a
+//! fixed order (the same seed must give the same bytes), and the steps below read as that one
+//! sequence of draws; split into files, the order of draws would be spread out of sight.
 
 use super::credit::{self, DefaultClock, GradeProfile};
 use super::names;

@@ -1,0 +1,168 @@
+//! Section 3's subsections for the bond-implied curves and the CIR fit (only what ran): the
+//! tables and figures of `hazard_curves` (source `bond`), `cds_bond_basis` and
+//! `intensity_params`.
+
+use super::charts;
+use super::markdown::{pct, quantile, quantile_band};
+use crate::error::{Error, Result};
+use crate::tables::manifest::write_text;
+use crate::tables::manifest::RecordedSettings;
+use crate::tables::HazardCurveRow;
+use chrono::NaiveDate;
+use std::collections::{BTreeMap, BTreeSet};
+use std::fmt::Write as _;
+use std::path::Path;
+
+fn median(v: &mut [f64]) -> f64 {
+    v.sort_by(f64::total_cmp);
+    quantile(v, 0.5)
+}
+
+/// Section 3's subsections for the bond-implied curves and the CIR fit (only what ran).
+#[allow(clippy::too_many_arguments)]
+pub(super) fn intensity_sections(
+    w: &mut String,
+    bond_hazard: &[HazardCurveRow],
+    bond_res: &[&crate::tables::ResidualRow],
+    basis: &[crate::tables::BasisRow],
+    params: &[crate::tables::IntensityParamRow],
+    settings: &RecordedSettings,
+    charts_dir: &Path,
+    figure: &mut usize,
+    (hazard_table, residual_table): &(String, String),
+) -> Result<()> {
+    let chart_err = Error::Chart;
+    if !bond_hazard.is_empty() {
+        let _ = writeln!(w, "### Bond-implied hazard curves\n");
+        let _ = writeln!(
+            w,
+            "Hazard curves implied by each entity's fixed-coupon bond prices (recovery convention `{}`), one per (date, entity, currency); rows with source `bond` in `{hazard_table}`, bond residuals with method `bond_fit` in `{residual_table}` (market and model clean price per 100 face, residual in bp of yield).\n",
+            settings.bond_recovery_convention.as_str()
+        );
+        let mut per: BTreeMap<
+            (&str, &str),
+            (BTreeSet<NaiveDate>, BTreeSet<&str>, BTreeSet<String>, Vec<f64>, Vec<f64>),
+        > = BTreeMap::new();
+        for h in bond_hazard {
+            let e = per.entry((&*h.entity, &*h.currency)).or_default();
+            e.0.insert(h.date);
+            e.2.insert(h.detail.as_deref().and_then(|d| d.split(' ').next()).unwrap_or("").replace('_', "-"));
+        }
+        for r in bond_res {
+            let e = per.entry((&*r.entity, &*r.currency)).or_default();
+            e.1.insert(&*r.tenor_or_bond);
+            e.3.push(r.model - r.market);
+            e.4.push(r.residual_bp);
+        }
+        let rms = |v: &[f64]| (v.iter().map(|x| x * x).sum::<f64>() / v.len().max(1) as f64).sqrt();
+        let _ = writeln!(w, "| entity | currency | curves | bonds | form | RMSE price (per 100) | RMSE yield (bp) | largest abs yield residual (bp) |\n| --- | --- | ---: | ---: | --- | ---: | ---: | ---: |");
+        for ((e, c), (d, b, f, p, y)) in &per {
+            let mx = y.iter().fold(0.0f64, |a, x| a.max(x.abs()));
+            let _ = writeln!(
+                w,
+                "| {e} | {c} | {} | {} | {} | {:.2e} | {:.2e} | {mx:.2e} |",
+                d.len(),
+                b.len(),
+                f.iter().cloned().collect::<Vec<_>>().join(", "),
+                rms(p),
+                rms(y)
+            );
+        }
+        let _ = writeln!(w);
+        if basis.is_empty() {
+            let _ = writeln!(w, "No CDS curve was available on the bonds' dates, so no CDS-bond basis was computed.\n");
+        } else {
+            let _ = writeln!(w, "CDS-bond basis at the bond maturities (`tables/cds_bond_basis.parquet`): a CDS to each bond maturity priced on the bond-implied and on the CDS-implied curve; basis = CDS minus bond-implied par spread (negative when the bonds price the name as riskier than its CDS).\n");
+            let mut per: BTreeMap<(&str, &str), (Vec<f64>, Vec<f64>)> = BTreeMap::new();
+            for b in basis {
+                let e = per.entry((b.entity.as_str(), b.currency.as_str())).or_default();
+                e.0.push(b.basis_bp);
+                e.1.push(b.hazard_basis_bp);
+            }
+            let _ = writeln!(w, "| entity | currency | points | mean basis (bp) | median | min | max | mean hazard basis (bp) |\n| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: |");
+            for ((e, c), (b, h)) in per.iter_mut() {
+                let n = b.len() as f64;
+                let mean = b.iter().sum::<f64>() / n;
+                let (lo, hi) = b.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, z), x| (a.min(*x), z.max(*x)));
+                let hm = h.iter().sum::<f64>() / n;
+                let _ = writeln!(
+                    w,
+                    "| {e} | {c} | {} | {mean:.1} | {:.1} | {lo:.1} | {hi:.1} | {hm:.1} |",
+                    b.len(),
+                    median(b)
+                );
+            }
+            let _ = writeln!(w);
+        }
+    }
+    if !params.is_empty() {
+        let _ = writeln!(w, "### CIR intensity fit\n");
+        let _ = writeln!(w, "The CIR intensity d lambda = kappa (theta - lambda) dt + sigma sqrt(lambda) dW fitted to each bootstrapped CDS curve's quotes (`tables/intensity_params.parquet`; repriced quotes with method `cir` in `{residual_table}`). Medians over the fits that produced parameters; RMSE over each curve's quotes in bp of running spread.\n");
+        let mut per: BTreeMap<(&str, &str), Vec<&crate::tables::IntensityParamRow>> = BTreeMap::new();
+        for p in params {
+            per.entry((p.entity.as_str(), p.currency.as_str())).or_default().push(p);
+        }
+        let _ = writeln!(w, "| entity | currency | fits | kappa | theta | sigma | lambda0 | median RMSE (bp) | largest RMSE (bp) | Feller holds | at a bound | status |\n| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- |");
+        for ((e, c), v) in &per {
+            let col = |f: &dyn Fn(&crate::tables::IntensityParamRow) -> Option<f64>| -> Vec<f64> {
+                v.iter().filter_map(|p| f(p)).collect()
+            };
+            let (mut k, mut th, mut sg, mut l0, mut rm) =
+                (col(&|p| p.kappa), col(&|p| p.theta), col(&|p| p.sigma), col(&|p| p.lambda0), col(&|p| p.rmse_bp));
+            let mx = rm.iter().fold(0.0f64, |a, x| a.max(*x));
+            let with = v.iter().filter(|p| p.feller.is_some()).count();
+            let feller = v.iter().filter(|p| p.feller == Some(true)).count();
+            let bound = v.iter().filter(|p| p.detail.as_deref().is_some_and(|d| d.contains("bound"))).count();
+            let mut st: BTreeMap<&str, usize> = BTreeMap::new();
+            for p in v {
+                *st.entry(p.status).or_default() += 1;
+            }
+            let st = st.iter().map(|(s, n)| format!("`{s}` {n}")).collect::<Vec<_>>().join(", ");
+            let _ = writeln!(
+                w,
+                "| {e} | {c} | {} | {:.4} | {:.4} | {:.4} | {:.4} | {:.2} | {mx:.2} | {} | {bound} | {st} |",
+                v.len(),
+                median(&mut k),
+                median(&mut th),
+                median(&mut sg),
+                median(&mut l0),
+                median(&mut rm),
+                pct(feller as f64 / with.max(1) as f64)
+            );
+        }
+        let bound = params.iter().filter(|p| p.detail.as_deref().is_some_and(|d| d.contains("bound"))).count();
+        let _ = writeln!(
+            w,
+            "\n{bound} of {} fits end with a parameter at a bound (named in the table's `detail` column). The plain CIR has three shape parameters for a whole curve; a fit at a bound, or with an RMSE well above the quotes' bid-ask, says the model cannot take that curve's shape, and its parameters should not be read as estimates.\n",
+            params.len()
+        );
+        // RMSE through time per entity, over the universe band.
+        let mut per_date: BTreeMap<NaiveDate, Vec<f64>> = BTreeMap::new();
+        for p in params {
+            if let Some(r) = p.rmse_bp {
+                per_date.entry(p.date).or_default().push(r);
+            }
+        }
+        let band = quantile_band(&mut per_date);
+        let series: Vec<(String, Vec<(f64, f64)>)> = per
+            .iter()
+            .map(|((e, _), v)| {
+                (
+                    e.to_string(),
+                    v.iter().filter_map(|p| Some((charts::decimal_year(p.date), p.rmse_bp?))).collect::<Vec<_>>(),
+                )
+            })
+            .filter(|(_, v)| !v.is_empty())
+            .collect();
+        if !series.is_empty() {
+            let svg =
+                charts::history_with_band("CIR fit RMSE through time", "RMSE (bp of running spread)", &series, &band)
+                    .map_err(chart_err)?;
+            write_text(&charts_dir.join("cir-rmse-history.svg"), &svg)?;
+            *figure += 1;
+            let _ = writeln!(w, "![CIR fit RMSE through time](charts/cir-rmse-history.svg)\n");
+            let _ = writeln!(w, "*Figure {figure}. Root mean square repricing error of the CIR fit per curve date and entity, over the universe's 10%-90% range (shaded) and median (grey line).*\n", figure = *figure);
+        }
+    }
+    Ok(())
+}

@@ -1,0 +1,298 @@
+//! What the report takes from the two tables with a row per quote (`hazard_curves`,
+//! `calibration_residuals`), gathered a slice at a time and never held whole: [`NodeFold`] and
+//! [`ResidualFold`]. A run folds the rows in on the threads that write them; `hazardline
+//! report` folds the same rows read back in the same order, so both give the same report.
+
+use super::charts;
+use crate::error::Result;
+use crate::stability::summary::keep_first_n;
+use crate::tables::manifest::RecordedSettings;
+use crate::tables::readback;
+use crate::tables::{HazardCurveRow, ResidualRow};
+use crate::text::{CurveSource, FitMethod};
+use chrono::NaiveDate;
+use std::collections::{BTreeMap, BTreeSet};
+use std::path::Path;
+
+/// What the report shows of `hazard_curves`, gathered a slice at a time: the CDS nodes'
+/// universe, statuses and 5Y band, and the bond rows whole (one curve per entity with bonds
+/// and date, far fewer than the CDS nodes).
+pub(super) struct CdsNodes {
+    pub(super) entities: BTreeSet<String>,
+    pub(super) currencies: BTreeSet<String>,
+    pub(super) dates: BTreeSet<NaiveDate>,
+    /// CDS curves: each curve's rows are one run of the table (it is sorted by curve), so the
+    /// runs are counted rather than the keys held (4.6 million at 2,000 names x 10 years).
+    pub(super) curves: usize,
+    pub(super) bad_curves: std::collections::HashSet<(NaiveDate, crate::tables::Label, crate::tables::Label)>,
+    pub(super) status_counts: BTreeMap<&'static str, usize>,
+    /// The first ten nodes not `ok`, in table order, and how many there are.
+    pub(super) bad_first: Vec<HazardCurveRow>,
+    pub(super) bad_nodes: usize,
+    /// 5Y hazards with status `ok` per date, in % (table order within a date).
+    pub(super) five_year: BTreeMap<NaiveDate, Vec<f64>>,
+    pub(super) bond: Vec<HazardCurveRow>,
+    /// The nodes of the entities the settings name for the figures, gathered in the same pass
+    /// (table order): (date, years to node, hazard) and the 5Y history.
+    pub(super) named: BTreeMap<String, (Vec<(NaiveDate, f64, f64)>, Vec<(f64, f64)>)>,
+    /// The curve of the last CDS row taken.
+    pub(super) last: Option<(NaiveDate, crate::tables::Label, crate::tables::Label)>,
+}
+
+/// The charted entities' nodes: term structures on the chosen dates and the 5Y history.
+#[derive(Default)]
+pub(super) struct ChartedNodes {
+    /// (entity, date) -> (years to node, hazard), in table order.
+    pub(super) term: BTreeMap<(String, NaiveDate), Vec<(f64, f64)>>,
+    /// entity -> (decimal year, 5Y hazard in %), in table order.
+    pub(super) five_year: BTreeMap<String, Vec<(f64, f64)>>,
+}
+
+fn is_five_year_ok(h: &HazardCurveRow) -> bool {
+    &*h.tenor == "5Y" && h.hazard.is_some() && h.status == "ok"
+}
+
+impl CdsNodes {
+    /// `named`: the entities the settings chart, when they name them.
+    pub(super) fn new(named: Option<&[String]>) -> CdsNodes {
+        CdsNodes {
+            entities: BTreeSet::new(),
+            currencies: BTreeSet::new(),
+            dates: BTreeSet::new(),
+            curves: 0,
+            bad_curves: Default::default(),
+            status_counts: BTreeMap::new(),
+            bad_first: Vec::new(),
+            bad_nodes: 0,
+            five_year: BTreeMap::new(),
+            bond: Vec::new(),
+            named: named.unwrap_or_default().iter().map(|e| (e.clone(), Default::default())).collect(),
+            last: None,
+        }
+    }
+
+    /// One pass over the table.
+    pub(super) fn read(path: &Path, named: Option<&[String]>) -> Result<CdsNodes> {
+        let mut out = CdsNodes::new(named);
+        readback::slices::<HazardCurveRow>(path, |rows| {
+            out.add(&rows);
+            Ok(())
+        })
+        .map(|_| out)
+    }
+
+    /// Takes the next rows of the table, in table order.
+    fn add(&mut self, rows: &[HazardCurveRow]) {
+        for h in rows {
+            if h.source != CurveSource::Cds {
+                self.bond.push(h.clone());
+                continue;
+            }
+            // A curve's nodes are consecutive rows: the sets are asked once per curve (the
+            // sets' contents are the same as asking every row).
+            let same_curve = self.last.as_ref().is_some_and(|(d, e, c)| {
+                *d == h.date
+                    && (std::sync::Arc::ptr_eq(e, &h.entity) || *e == h.entity)
+                    && (std::sync::Arc::ptr_eq(c, &h.currency) || *c == h.currency)
+            });
+            if !same_curve {
+                if !self.entities.contains(&*h.entity) {
+                    self.entities.insert(h.entity.to_string());
+                }
+                if !self.currencies.contains(&*h.currency) {
+                    self.currencies.insert(h.currency.to_string());
+                }
+                if self.last.as_ref().is_none_or(|(d, _, _)| *d != h.date) {
+                    self.dates.insert(h.date);
+                }
+                self.curves += 1;
+                self.last = Some((h.date, h.entity.clone(), h.currency.clone()));
+            }
+            *self.status_counts.entry(h.status).or_default() += 1;
+            if is_five_year_ok(h) {
+                self.five_year.entry(h.date).or_default().push(h.hazard.unwrap_or(0.0) * 100.0);
+            }
+            if let Some((nodes, five)) = self.named.get_mut(&*h.entity) {
+                if let Some(x) = h.hazard {
+                    nodes.push((h.date, crate::curves::year_time(h.date, h.node_date), x));
+                }
+                if is_five_year_ok(h) {
+                    five.push((charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0));
+                }
+            }
+            if h.status != "ok" {
+                self.bad_curves.insert((h.date, h.entity.clone(), h.currency.clone()));
+                self.bad_nodes += 1;
+                if self.bad_first.len() < 10 {
+                    self.bad_first.push(h.clone());
+                }
+            }
+        }
+    }
+
+    /// The charted entities' nodes: from the first pass when the settings named them, else
+    /// from a second pass, once the entities and the dates are known.
+    pub(super) fn charted(&self, path: &Path, chosen: &[String], dates: &[NaiveDate]) -> Result<ChartedNodes> {
+        let mut out = ChartedNodes::default();
+        if chosen.is_empty() {
+            return Ok(out);
+        }
+        if chosen.iter().all(|e| self.named.contains_key(e)) {
+            for e in chosen.iter().collect::<BTreeSet<_>>() {
+                let (nodes, five) = &self.named[e];
+                for &(d, x, y) in nodes.iter().filter(|(d, _, _)| dates.contains(d)) {
+                    out.term.entry((e.clone(), d)).or_default().push((x, y));
+                }
+                if !five.is_empty() {
+                    out.five_year.insert(e.clone(), five.clone());
+                }
+            }
+            return Ok(out);
+        }
+        readback::slices::<HazardCurveRow>(path, |rows| {
+            for h in
+                rows.iter().filter(|h| h.source == CurveSource::Cds && chosen.iter().any(|e| e.as_str() == &*h.entity))
+            {
+                if let (Some(x), true) = (h.hazard, dates.contains(&h.date)) {
+                    out.term
+                        .entry((h.entity.to_string(), h.date))
+                        .or_default()
+                        .push((crate::curves::year_time(h.date, h.node_date), x));
+                }
+                if is_five_year_ok(h) {
+                    out.five_year
+                        .entry(h.entity.to_string())
+                        .or_default()
+                        .push((charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0));
+                }
+            }
+            Ok(())
+        })?;
+        Ok(out)
+    }
+}
+
+/// Running sums of one tenor's residuals, added in table order (so the figures equal those of
+/// summing the collected values).
+pub(super) struct TenorSums {
+    pub(super) n: usize,
+    pub(super) sum: f64,
+    pub(super) sum_sq: f64,
+    pub(super) max_abs: f64,
+}
+
+/// What the report shows of `calibration_residuals`, gathered a slice at a time.
+#[derive(Default)]
+pub(super) struct Residuals {
+    /// Bootstrap residuals with status `ok`, and those within the repricing tolerance.
+    pub(super) ok: usize,
+    pub(super) within: usize,
+    /// The repricing tolerance in bp (`stability.reprice_tolerance_bp`).
+    pub(super) tolerance_bp: f64,
+    pub(super) by_tenor: BTreeMap<(u32, String), TenorSums>,
+    /// The ten largest finite bootstrap residuals (all statuses), as a stable sort would give.
+    pub(super) worst: Vec<crate::tables::ResidualRow>,
+    /// log10 |residual| of every finite bootstrap residual, for the histogram.
+    pub(super) logs: Vec<f64>,
+    pub(super) bond: Vec<crate::tables::ResidualRow>,
+}
+
+fn worst_first(a: &crate::tables::ResidualRow, b: &crate::tables::ResidualRow) -> std::cmp::Ordering {
+    b.residual_bp.abs().total_cmp(&a.residual_bp.abs()).then(a.date.cmp(&b.date)).then(a.entity.cmp(&b.entity))
+}
+
+impl Residuals {
+    pub(super) fn new(tolerance_bp: f64) -> Residuals {
+        Residuals { tolerance_bp, ..Residuals::default() }
+    }
+
+    pub(super) fn read(path: &Path, tolerance_bp: f64) -> Result<Residuals> {
+        let mut out = Residuals::new(tolerance_bp);
+        readback::slices::<ResidualRow>(path, |rows| {
+            out.add(&rows);
+            Ok(())
+        })?;
+        Ok(out)
+    }
+
+    /// Takes the next rows of the table, in table order.
+    fn add(&mut self, rows: &[crate::tables::ResidualRow]) {
+        // The empty sum of the standard library (its starting value), so that running sums
+        // match `Iterator::sum` over the same values bit for bit.
+        let zero: f64 = std::iter::empty::<f64>().sum();
+        for r in rows {
+            match r.method {
+                FitMethod::Bootstrap => {}
+                FitMethod::BondFit => {
+                    self.bond.push(r.clone());
+                    continue;
+                }
+                FitMethod::Cir => continue,
+            }
+            if r.status == "ok" {
+                self.ok += 1;
+                self.within += usize::from(r.residual_bp.abs() <= self.tolerance_bp);
+                let e = match self.by_tenor.iter_mut().find(|((_, t), _)| *t == *r.tenor_or_bond) {
+                    Some((_, e)) => e,
+                    None => {
+                        let months = r.tenor_or_bond.parse::<crate::time::Tenor>().map(|t| t.months()).unwrap_or(0);
+                        self.by_tenor.entry((months, r.tenor_or_bond.to_string())).or_insert(TenorSums {
+                            n: 0,
+                            sum: zero,
+                            sum_sq: zero,
+                            max_abs: 0.0,
+                        })
+                    }
+                };
+                e.n += 1;
+                e.sum += r.residual_bp;
+                e.sum_sq += r.residual_bp * r.residual_bp;
+                e.max_abs = e.max_abs.max(r.residual_bp.abs());
+            }
+            if !r.residual_bp.is_finite() {
+                continue;
+            }
+            self.logs.push(r.residual_bp.abs().max(1e-16).log10());
+            if self.worst.len() < 10 || worst_first(r, &self.worst[9]).is_lt() {
+                keep_first_n(&mut self.worst, r.clone(), 10, worst_first);
+            }
+        }
+    }
+}
+
+/// What the report takes from the node and residual tables, gathered as their rows are
+/// written (see [`render_with`]) instead of read back.
+pub struct NodeFold(pub(super) CdsNodes);
+
+/// See [`NodeFold`].
+pub struct ResidualFold(pub(super) Residuals);
+
+impl NodeFold {
+    /// `settings`: the run's settings as the manifest records them.
+    pub fn new(settings: &RecordedSettings) -> NodeFold {
+        NodeFold(CdsNodes::new(settings.charted_entities.as_deref()))
+    }
+
+    pub fn add(&mut self, rows: &[HazardCurveRow]) {
+        self.0.add(rows);
+    }
+}
+
+impl crate::tables::parquet::RowFold<HazardCurveRow> for NodeFold {
+    fn add(&mut self, rows: &[HazardCurveRow]) {
+        self.0.add(rows);
+    }
+}
+
+impl crate::tables::parquet::RowFold<crate::tables::ResidualRow> for ResidualFold {
+    fn add(&mut self, rows: &[crate::tables::ResidualRow]) {
+        self.0.add(rows);
+    }
+}
+
+impl ResidualFold {
+    /// `tolerance_bp`: within it a calibrated quote counts as repriced.
+    pub fn new(tolerance_bp: f64) -> ResidualFold {
+        ResidualFold(Residuals::new(tolerance_bp))
+    }
+}
