@@ -16,10 +16,9 @@ fn mean_5y(run: &Path) -> Result<BTreeMap<String, (f64, usize)>> {
     readback::slices::<crate::tables::HazardCurveRow>(
         &readback::table_path(&run.join("tables"), "hazard_curves"),
         |rows| {
-            for r in rows
-                .iter()
-                .filter(|r| r.source == crate::text::CurveSource::Cds && &*r.tenor == "5Y" && r.status == "ok")
-            {
+            for r in rows.iter().filter(|r| {
+                r.source == crate::text::CurveSource::Cds && &*r.tenor == "5Y" && r.status == crate::text::RowStatus::Ok
+            }) {
                 if let Some(x) = r.hazard {
                     let e = m.entry(r.entity.to_string()).or_default();
                     e.0 += x;

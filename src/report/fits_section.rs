@@ -115,7 +115,7 @@ pub(super) fn intensity_sections(
             let bound = v.iter().filter(|p| p.detail.as_deref().is_some_and(|d| d.contains("bound"))).count();
             let mut st: BTreeMap<&str, usize> = BTreeMap::new();
             for p in v {
-                *st.entry(p.status).or_default() += 1;
+                *st.entry(p.status.as_str()).or_default() += 1;
             }
             let st = st.iter().map(|(s, n)| format!("`{s}` {n}")).collect::<Vec<_>>().join(", ");
             let _ = writeln!(

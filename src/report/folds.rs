@@ -9,7 +9,7 @@ use crate::stability::summary::keep_first_n;
 use crate::tables::manifest::RecordedSettings;
 use crate::tables::readback;
 use crate::tables::{HazardCurveRow, ResidualRow};
-use crate::text::{CurveSource, FitMethod};
+use crate::text::{CurveSource, FitMethod, RowStatus};
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::Path;
@@ -49,7 +49,7 @@ pub(super) struct ChartedNodes {
 }
 
 fn is_five_year_ok(h: &HazardCurveRow) -> bool {
-    &*h.tenor == "5Y" && h.hazard.is_some() && h.status == "ok"
+    &*h.tenor == "5Y" && h.hazard.is_some() && h.status == RowStatus::Ok
 }
 
 impl CdsNodes {
@@ -108,7 +108,7 @@ impl CdsNodes {
                 self.curves += 1;
                 self.last = Some((h.date, h.entity.clone(), h.currency.clone()));
             }
-            *self.status_counts.entry(h.status).or_default() += 1;
+            *self.status_counts.entry(h.status.as_str()).or_default() += 1;
             if is_five_year_ok(h) {
                 self.five_year.entry(h.date).or_default().push(h.hazard.unwrap_or(0.0) * 100.0);
             }
@@ -120,7 +120,7 @@ impl CdsNodes {
                     five.push((charts::decimal_year(h.date), h.hazard.unwrap_or(0.0) * 100.0));
                 }
             }
-            if h.status != "ok" {
+            if h.status != RowStatus::Ok {
                 self.bad_curves.insert((h.date, h.entity.clone(), h.currency.clone()));
                 self.bad_nodes += 1;
                 if self.bad_first.len() < 10 {
@@ -229,7 +229,7 @@ impl Residuals {
                 }
                 FitMethod::Cir => continue,
             }
-            if r.status == "ok" {
+            if r.status == RowStatus::Ok {
                 self.ok += 1;
                 self.within += usize::from(r.residual_bp.abs() <= self.tolerance_bp);
                 let e = match self.by_tenor.iter_mut().find(|((_, t), _)| *t == *r.tenor_or_bond) {

@@ -15,7 +15,7 @@ use crate::tables::manifest::RecordedSettings;
 use crate::tables::manifest::{self, write_text, Manifest};
 use crate::tables::readback;
 use crate::tables::{self, BasisRow, HazardCurveRow, IntensityParamRow, ResidualRow, Table};
-use crate::text::Severity;
+use crate::text::{RowStatus, Severity};
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
 use std::fmt::Write as _;
@@ -255,8 +255,11 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         if within == ok_res { "pass" } else { "flagged" }
     );
     if !bond_curves.is_empty() {
-        let bad_bond: BTreeSet<(NaiveDate, &str, &str)> =
-            bond_hazard.iter().filter(|h| h.status != "ok").map(|h| (h.date, &*h.entity, &*h.currency)).collect();
+        let bad_bond: BTreeSet<(NaiveDate, &str, &str)> = bond_hazard
+            .iter()
+            .filter(|h| h.status != RowStatus::Ok)
+            .map(|h| (h.date, &*h.entity, &*h.currency))
+            .collect();
         let _ = writeln!(
             w,
             "| bond-implied curves with every node `ok` | {} of {} | {} |",
@@ -266,7 +269,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         );
     }
     if !params.is_empty() {
-        let ok = params.iter().filter(|p| p.status == "ok").count();
+        let ok = params.iter().filter(|p| p.status == RowStatus::Ok).count();
         let _ = writeln!(
             w,
             "| CIR fits converged (status `ok`) | {ok} of {} ({}) | {} |",
@@ -365,7 +368,13 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
             let _ = writeln!(
                 w,
                 "| {} | {} | {} | `{}` | {:.4} | {:.4} | {:.3e} |",
-                r.date, r.entity, r.tenor_or_bond, r.status, r.market, r.model, r.residual_bp
+                r.date,
+                r.entity,
+                r.tenor_or_bond,
+                r.status.as_str(),
+                r.market,
+                r.model,
+                r.residual_bp
             );
         }
         let _ = writeln!(w);
@@ -381,7 +390,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
                 h.date,
                 h.entity,
                 h.tenor,
-                h.status,
+                h.status.as_str(),
                 h.detail.clone().unwrap_or_default().replace('|', "/")
             );
         }

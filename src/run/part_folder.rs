@@ -276,7 +276,7 @@ mod tests {
             node_date: date,
             hazard: Some(f64::from(day) / 100.0),
             survival: None,
-            status: "ok",
+            status: crate::text::RowStatus::Ok,
             recovery: 0.4,
             iterations: 3,
             detail: None,

@@ -19,7 +19,7 @@ use crate::ingest::{QualitySettings, Reject};
 use crate::instruments::AccrualIntegration;
 use crate::tables::DiscountCurveRow;
 use crate::tables::{tenor_label, HazardCurveRow, Label, ResidualRow};
-use crate::text::{CurveSource, FitMethod};
+use crate::text::{CurveSource, FitMethod, RowStatus};
 use crate::time::{Calendar, Tenor};
 use chrono::NaiveDate;
 use rayon::prelude::*;
@@ -164,7 +164,7 @@ fn calibrate_one(
             node_date: n.node_date,
             hazard: n.hazard,
             survival: n.survival,
-            status: n.status.as_str(),
+            status: n.status.into(),
             recovery: quotes[n.quote_index].recovery,
             iterations: n.iterations as i64,
             detail: n.detail.clone(),
@@ -182,7 +182,11 @@ fn calibrate_one(
             market: q.market,
             model: q.model,
             residual_bp: q.residual_bp,
-            status: fit.nodes.iter().find(|n| n.quote_index == q.quote_index).map_or("ok", |n| n.status.as_str()),
+            status: fit
+                .nodes
+                .iter()
+                .find(|n| n.quote_index == q.quote_index)
+                .map_or(RowStatus::Ok, |n| n.status.into()),
         })
         .collect();
     let curve = if fit.complete() && !fit.failed { fit.curve.clone() } else { None };
@@ -342,16 +346,16 @@ pub fn calibrate_blocks(
             cds_used += o.used;
             if !o.hazard.is_empty() {
                 out.curves += 1;
-                if o.hazard.iter().all(|h| h.status == "ok") {
+                if o.hazard.iter().all(|h| h.status == RowStatus::Ok) {
                     out.curves_complete += 1;
                 }
             }
             for h in &o.hazard {
-                *out.nodes_by_status.entry(h.status).or_default() += 1;
+                *out.nodes_by_status.entry(h.status.as_str()).or_default() += 1;
             }
             block.hazard.extend(o.hazard);
             for r in &o.residuals {
-                if r.status == "ok" {
+                if r.status == RowStatus::Ok {
                     out.max_abs_residual_bp = out.max_abs_residual_bp.max(r.residual_bp.abs());
                 }
             }

@@ -13,6 +13,7 @@
 
 use super::calibrate::{Calibration, CalibrationParams};
 use crate::calibrate::bond_fit::{cds_bond_basis, fit_bond_hazard, BondFitSettings, BondQuote};
+use crate::calibrate::cir::CirFitStatus;
 use crate::calibrate::cir::{
     fit_cir, fit_cir_window, start_from_curve, CirFit, CirFitError, CirFitMode, CirFitSettings, CirWindowDay,
 };
@@ -24,7 +25,7 @@ use crate::instruments::bond::BondTerms;
 use crate::models::cir::CirParams;
 use crate::parts::DateRange;
 use crate::tables::{BasisRow, HazardCurveRow, IntensityParamRow, ResidualRow};
-use crate::text::{CurveSource, FitMethod};
+use crate::text::{CurveSource, FitMethod, RowStatus};
 use chrono::NaiveDate;
 use rayon::prelude::*;
 use std::collections::{BTreeMap, HashMap};
@@ -127,7 +128,7 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
         let (b, _, prov) = &g.quotes[*i];
         out.rejects.push(reject_quote(g, b, prov, "bond_not_priced", format!("bond {} on {}: {e}", b.bond, g.date)));
     }
-    let status = fit.status.as_str();
+    let status = RowStatus::from(fit.status);
     for n in &fit.nodes {
         let ids: Vec<&str> =
             g.quotes.iter().filter(|(b, _, _)| b.maturity == n.maturity).map(|(b, _, _)| b.bond.as_str()).collect();
@@ -141,7 +142,7 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
             node_date: n.maturity,
             hazard: Some(n.hazard),
             survival: Some(n.survival),
-            status: n.status.as_str(),
+            status: n.status.into(),
             recovery,
             iterations: fit.iterations as i64,
             detail: Some(format!(
@@ -203,7 +204,7 @@ fn param_row(
 ) -> IntensityParamRow {
     match r {
         Ok(f) => {
-            let ok = f.status.as_str() != "failed";
+            let ok = f.status != CirFitStatus::Failed;
             IntensityParamRow {
                 date,
                 entity: entity.to_string(),
@@ -215,7 +216,7 @@ fn param_row(
                 lambda0: ok.then_some(f.lambda0),
                 rmse_bp: ok.then_some(f.rmse_bp),
                 feller: ok.then_some(f.feller),
-                status: f.status.as_str(),
+                status: f.status.into(),
                 iterations: f.iterations as i64,
                 evaluations: f.evaluations as i64,
                 detail: f.detail.clone(),
@@ -232,7 +233,7 @@ fn param_row(
             lambda0: None,
             rmse_bp: None,
             feller: None,
-            status: "failed",
+            status: RowStatus::Failed,
             iterations: 0,
             evaluations: 0,
             detail: Some(e.to_string()),
@@ -241,7 +242,7 @@ fn param_row(
 }
 
 fn cir_residuals(date: NaiveDate, entity: &str, currency: &str, f: &CirFit) -> Vec<ResidualRow> {
-    if f.status.as_str() == "failed" {
+    if f.status == CirFitStatus::Failed {
         return Vec::new();
     }
     f.quotes
@@ -256,7 +257,7 @@ fn cir_residuals(date: NaiveDate, entity: &str, currency: &str, f: &CirFit) -> V
             market: q.market,
             model: q.model,
             residual_bp: q.residual_bp,
-            status: f.status.as_str(),
+            status: f.status.into(),
         })
         .collect()
 }
@@ -295,7 +296,7 @@ fn fit_name(
                 starts.extend(prev);
                 let r = fit_cir(*d, &c.quotes, disc, &p.calendar, &starts, &settings);
                 if let Ok(f) = &r {
-                    if f.status.as_str() != "failed" {
+                    if f.status != CirFitStatus::Failed {
                         prev = Some(f.params());
                     }
                     if keep {
@@ -447,7 +448,7 @@ pub fn calibrate_intensity(
     if s.cir {
         let mut cir_res = Vec::new();
         for (params, res) in cir_fits {
-            out.cir_fits += params.iter().filter(|r| r.status != "failed").count();
+            out.cir_fits += params.iter().filter(|r| r.status != RowStatus::Failed).count();
             out.params.extend(params);
             cir_res.extend(res);
         }

@@ -11,6 +11,7 @@ use crate::stability::{
 use crate::stages::calibrate::CdsCurve;
 use crate::tables::{self, review::PsiRecord};
 use crate::tables::{HazardCurveRow, IntensityParamRow, ResidualRow};
+use crate::text::RowStatus;
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::Path;
@@ -230,8 +231,8 @@ impl<'a> RowDigest<'a> {
             }
             if let Some((_, (_, failures, infeasible))) = self.run.as_mut() {
                 match r.status {
-                    "ok" => {}
-                    "floored" | "infeasible" => *infeasible += 1,
+                    RowStatus::Ok => {}
+                    RowStatus::Floored | RowStatus::Infeasible => *infeasible += 1,
                     _ => *failures = 1,
                 }
             }
@@ -261,7 +262,7 @@ impl<'a> RowDigest<'a> {
                 market: r.market,
                 model: r.model,
                 residual_bp: r.residual_bp,
-                converged: r.status == "ok",
+                converged: r.status == RowStatus::Ok,
             };
             self.review.add(&o);
         }

@@ -4,10 +4,10 @@
 //! a run built.
 
 use super::parquet::{FileKey, RowGroupWriter, SplitWriter, TableBuilder, TableWriter};
-use super::readback::{dates, fixed_labels, floats, ints, labels, strs, STATUSES};
+use super::readback::{dates, floats, ints, labels, row_status, strs};
 use super::{col, metadata_of, Column, Kind::*, Table};
 use crate::error::{Error, Result};
-use crate::text::CurveSource;
+use crate::text::{CurveSource, RowStatus};
 use chrono::{Datelike, NaiveDate};
 use polars::prelude::DataFrame;
 use std::path::Path;
@@ -41,7 +41,7 @@ pub struct HazardCurveRow {
     pub hazard: Option<f64>,
     /// S(maturity).
     pub survival: Option<f64>,
-    pub status: &'static str,
+    pub status: RowStatus,
     pub recovery: f64,
     pub iterations: i64,
     pub detail: Option<String>,
@@ -83,7 +83,7 @@ impl Table for HazardCurveRow {
             .dates("node_date", rows.iter().map(|r| Some(r.node_date)))
             .floats("hazard", rows.iter().map(|r| r.hazard))
             .floats("survival", rows.iter().map(|r| r.survival))
-            .strings("status", rows.iter().map(|r| Some(r.status)))
+            .strings("status", rows.iter().map(|r| Some(r.status.as_str())))
             .floats("recovery", rows.iter().map(|r| Some(r.recovery)))
             .ints("iterations", rows.iter().map(|r| Some(r.iterations)))
             .strings("detail", rows.iter().map(|r| r.detail.as_deref()))
@@ -101,7 +101,7 @@ impl Table for HazardCurveRow {
             dates(df, path, "node_date")?,
             floats(df, path, "hazard")?,
             floats(df, path, "survival")?,
-            fixed_labels(df, path, "status", STATUSES)?,
+            strs(df, path, "status")?,
             floats(df, path, "recovery")?,
             ints(df, path, "iterations")?,
             strs(df, path, "detail")?,
@@ -118,7 +118,7 @@ impl Table for HazardCurveRow {
                     node_date: nd[i].unwrap_or_default(),
                     hazard: h[i],
                     survival: s[i],
-                    status: st[i],
+                    status: row_status(st[i].as_deref(), path, i)?,
                     recovery: r[i].unwrap_or(f64::NAN),
                     iterations: it[i].unwrap_or(0),
                     detail: de[i].take(),
@@ -262,7 +262,7 @@ mod tests {
             node_date: date.succ_opt().unwrap(),
             hazard: Some(0.0123),
             survival: None,
-            status: "ok",
+            status: RowStatus::Ok,
             recovery: 0.4,
             iterations: 3,
             detail: detail.map(str::to_string),

@@ -3,9 +3,10 @@
 //! written, empty, when their fit is off, so every run folder holds the same tables.
 
 use super::parquet::TableBuilder;
-use super::readback::{bools, dates, fixed_labels, floats, ints, strs, STATUSES};
+use super::readback::{bools, dates, fixed_labels, floats, ints, row_status, strs};
 use super::{col, Column, Kind::*, Table};
 use crate::error::Result;
+use crate::text::RowStatus;
 use chrono::NaiveDate;
 use polars::prelude::DataFrame;
 use std::path::Path;
@@ -27,7 +28,7 @@ pub struct IntensityParamRow {
     /// 2 kappa theta >= sigma^2.
     pub feller: Option<bool>,
     /// `ok`, `max_iterations` or `failed`.
-    pub status: &'static str,
+    pub status: RowStatus,
     pub iterations: i64,
     pub evaluations: i64,
     pub detail: Option<String>,
@@ -71,7 +72,7 @@ impl Table for IntensityParamRow {
             .floats("lambda0", rows.iter().map(|r| r.lambda0))
             .floats("rmse_bp", rows.iter().map(|r| r.rmse_bp))
             .bools("feller", rows.iter().map(|r| r.feller))
-            .strings("status", rows.iter().map(|r| Some(r.status)))
+            .strings("status", rows.iter().map(|r| Some(r.status.as_str())))
             .ints("iterations", rows.iter().map(|r| Some(r.iterations)))
             .ints("evaluations", rows.iter().map(|r| Some(r.evaluations)))
             .strings("detail", rows.iter().map(|r| r.detail.as_deref()))
@@ -90,29 +91,31 @@ impl Table for IntensityParamRow {
             floats(df, path, "lambda0")?,
             floats(df, path, "rmse_bp")?,
             bools(df, path, "feller")?,
-            fixed_labels(df, path, "status", STATUSES)?,
+            strs(df, path, "status")?,
             ints(df, path, "iterations")?,
             ints(df, path, "evaluations")?,
             strs(df, path, "detail")?,
         );
-        Ok((0..df.height())
-            .map(|i| IntensityParamRow {
-                date: d[i].unwrap_or_default(),
-                entity: e[i].take().unwrap_or_default(),
-                currency: c[i].take().unwrap_or_default(),
-                mode: mo[i],
-                kappa: k[i],
-                theta: th[i],
-                sigma: sg[i],
-                lambda0: l0[i],
-                rmse_bp: rm[i],
-                feller: fe[i],
-                status: st[i],
-                iterations: it[i].unwrap_or(0),
-                evaluations: ev[i].unwrap_or(0),
-                detail: de[i].take(),
+        (0..df.height())
+            .map(|i| -> Result<IntensityParamRow> {
+                Ok(IntensityParamRow {
+                    date: d[i].unwrap_or_default(),
+                    entity: e[i].take().unwrap_or_default(),
+                    currency: c[i].take().unwrap_or_default(),
+                    mode: mo[i],
+                    kappa: k[i],
+                    theta: th[i],
+                    sigma: sg[i],
+                    lambda0: l0[i],
+                    rmse_bp: rm[i],
+                    feller: fe[i],
+                    status: row_status(st[i].as_deref(), path, i)?,
+                    iterations: it[i].unwrap_or(0),
+                    evaluations: ev[i].unwrap_or(0),
+                    detail: de[i].take(),
+                })
             })
-            .collect())
+            .collect()
     }
 }
 
@@ -224,7 +227,7 @@ mod tests {
             lambda0: Some(0.015),
             rmse_bp: Some(0.3),
             feller: Some(true),
-            status: "ok",
+            status: RowStatus::Ok,
             iterations: 12,
             evaluations: 40,
             detail: None,
@@ -237,7 +240,7 @@ mod tests {
             lambda0: None,
             rmse_bp: None,
             feller: None,
-            status: "failed",
+            status: RowStatus::Failed,
             detail: Some("no usable start".into()),
             ..ok.clone()
         };

@@ -6,6 +6,7 @@
 
 use super::curves::Label;
 use crate::error::{Error, Result};
+use crate::text::RowStatus;
 use chrono::NaiveDate;
 use polars::prelude::*;
 use std::path::Path;
@@ -118,8 +119,19 @@ pub fn intern(v: &str) -> &'static str {
     s
 }
 
-pub const STATUSES: &[&str] =
-    &["ok", "floored", "infeasible", "failed", "curve_failed", "not_calibrated", "at_upper_bound", "max_iterations"];
+/// A row status read back from column `status`.
+pub(crate) fn row_status(v: Option<&str>, path: &Path, row: usize) -> Result<RowStatus> {
+    let v = v.unwrap_or("");
+    RowStatus::parse(v).ok_or_else(|| Error::Read {
+        path: path.to_path_buf(),
+        format: "Parquet",
+        message: format!(
+            "column status, row {}: {v:?} is not one of {:?}",
+            row + 1,
+            <RowStatus as crate::text::TextForm>::texts()
+        ),
+    })
+}
 
 /// The files of a table: the file itself, or, for a table written as a folder of files
 /// ([`crate::tables::parquet::SplitWriter`]), the folder's `.parquet` files in the order of

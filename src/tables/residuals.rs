@@ -3,10 +3,10 @@
 //! as one file or (large runs) a folder of a file per method and year.
 
 use super::parquet::{FileKey, RowGroupWriter, SplitWriter, TableBuilder, TableWriter};
-use super::readback::{dates, fixed_labels, floats, labels, strs, STATUSES};
+use super::readback::{dates, fixed_labels, floats, labels, row_status, strs};
 use super::{col, curves::Label, metadata_of, Column, Kind::*, Table};
 use crate::error::{Error, Result};
-use crate::text::FitMethod;
+use crate::text::{FitMethod, RowStatus};
 use chrono::{Datelike, NaiveDate};
 use polars::prelude::DataFrame;
 use std::path::Path;
@@ -27,7 +27,7 @@ pub struct ResidualRow {
     pub market: f64,
     pub model: f64,
     pub residual_bp: f64,
-    pub status: &'static str,
+    pub status: RowStatus,
 }
 
 impl Table for ResidualRow {
@@ -63,7 +63,7 @@ impl Table for ResidualRow {
             .floats("market", rows.iter().map(|r| Some(r.market)))
             .floats("model", rows.iter().map(|r| Some(r.model)))
             .floats("residual_bp", rows.iter().map(|r| Some(r.residual_bp)))
-            .strings("status", rows.iter().map(|r| Some(r.status)))
+            .strings("status", rows.iter().map(|r| Some(r.status.as_str())))
             .finish()
     }
 
@@ -78,7 +78,7 @@ impl Table for ResidualRow {
             floats(df, path, "market")?,
             floats(df, path, "model")?,
             floats(df, path, "residual_bp")?,
-            fixed_labels(df, path, "status", STATUSES)?,
+            strs(df, path, "status")?,
         );
         (0..df.height())
             .map(|i| {
@@ -102,7 +102,7 @@ impl Table for ResidualRow {
                     market: mk[i].unwrap_or(f64::NAN),
                     model: mo[i].unwrap_or(f64::NAN),
                     residual_bp: r[i].unwrap_or(f64::NAN),
-                    status: st[i],
+                    status: row_status(st[i].as_deref(), path, i)?,
                 })
             })
             .collect()
@@ -170,7 +170,7 @@ mod tests {
             market: 101.5,
             model: 101.5 + 1e-9,
             residual_bp: 1e-9,
-            status: "ok",
+            status: RowStatus::Ok,
         };
         let mut rows = vec![row(FitMethod::Cir, "A"), row(FitMethod::BondFit, "B"), row(FitMethod::Bootstrap, "C")];
         assert_eq!(round_trip(&rows), rows);

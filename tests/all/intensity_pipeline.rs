@@ -56,7 +56,7 @@ fn demo_run_writes_bond_and_cir_tables() {
             p.entity
         );
         assert_eq!(p.mode, "free");
-        if p.status == "ok" {
+        if p.status == hazardline::text::RowStatus::Ok {
             let (k, th, s, l) = (p.kappa.unwrap(), p.theta.unwrap(), p.sigma.unwrap(), p.lambda0.unwrap());
             assert!(k > 0.0 && th > 0.0 && s > 0.0 && l >= 0.0);
             assert_eq!(p.feller, Some(2.0 * k * th >= s * s));

@@ -122,6 +122,68 @@ text_form!(FlagRule {
     ResidualOverTolerance => "residual_over_tolerance",
 });
 
+/// The status of a row of `hazard_curves`, `calibration_residuals` or `intensity_params`: the
+/// bootstrap's node statuses, the bond fit's and the CIR fit's, in one list.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
+pub enum RowStatus {
+    Ok,
+    Floored,
+    Infeasible,
+    Failed,
+    CurveFailed,
+    NotCalibrated,
+    AtUpperBound,
+    MaxIterations,
+}
+text_form!(RowStatus {
+    Ok => "ok",
+    Floored => "floored",
+    Infeasible => "infeasible",
+    Failed => "failed",
+    CurveFailed => "curve_failed",
+    NotCalibrated => "not_calibrated",
+    AtUpperBound => "at_upper_bound",
+    MaxIterations => "max_iterations",
+});
+
+impl From<crate::calibrate::NodeStatus> for RowStatus {
+    fn from(s: crate::calibrate::NodeStatus) -> RowStatus {
+        use crate::calibrate::NodeStatus as N;
+        match s {
+            N::Ok => RowStatus::Ok,
+            N::Floored => RowStatus::Floored,
+            N::Infeasible => RowStatus::Infeasible,
+            N::Failed => RowStatus::Failed,
+            N::CurveFailed => RowStatus::CurveFailed,
+            N::NotCalibrated => RowStatus::NotCalibrated,
+        }
+    }
+}
+
+impl From<crate::calibrate::bond_fit::BondFitStatus> for RowStatus {
+    fn from(s: crate::calibrate::bond_fit::BondFitStatus) -> RowStatus {
+        use crate::calibrate::bond_fit::BondFitStatus as B;
+        match s {
+            B::Ok => RowStatus::Ok,
+            B::Floored => RowStatus::Floored,
+            B::AtUpperBound => RowStatus::AtUpperBound,
+            B::MaxIterations => RowStatus::MaxIterations,
+            B::Failed => RowStatus::Failed,
+        }
+    }
+}
+
+impl From<crate::calibrate::cir::CirFitStatus> for RowStatus {
+    fn from(s: crate::calibrate::cir::CirFitStatus) -> RowStatus {
+        use crate::calibrate::cir::CirFitStatus as F;
+        match s {
+            F::Ok => RowStatus::Ok,
+            F::MaxIterations => RowStatus::MaxIterations,
+            F::Failed => RowStatus::Failed,
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -139,6 +201,7 @@ mod tests {
     #[test]
     fn every_text_form_parses_back_to_its_variant() {
         round_trips::<CurveSource>();
+        round_trips::<RowStatus>();
         round_trips::<FitMethod>();
         round_trips::<Severity>();
         round_trips::<FlagRule>();
@@ -156,6 +219,19 @@ mod tests {
         round_trips::<crate::backtest::CensoringPolicy>();
         round_trips::<crate::backtest::CohortFrequency>();
         round_trips::<crate::stability::CusumLevel>();
+    }
+
+    #[test]
+    fn every_fit_status_keeps_its_text_as_a_row_status() {
+        for s in crate::calibrate::NodeStatus::ALL {
+            assert_eq!(RowStatus::from(*s).as_str(), s.as_str());
+        }
+        for s in crate::calibrate::bond_fit::BondFitStatus::ALL {
+            assert_eq!(RowStatus::from(*s).as_str(), s.as_str());
+        }
+        for s in crate::calibrate::cir::CirFitStatus::ALL {
+            assert_eq!(RowStatus::from(*s).as_str(), s.as_str());
+        }
     }
 
     #[test]
