@@ -99,6 +99,27 @@ impl BacktestStage {
     }
 }
 
+/// The longest pipeline name or run label, in characters.
+pub const MAX_FOLDER_NAME: usize = 100;
+
+/// Whether `value` can name a folder of the output root: one plain path component of 1 to
+/// [`MAX_FOLDER_NAME`] characters from letters, digits, `.`, `_` and `-`, not starting with `.`
+/// (so never `.`, `..`, a hidden or work folder, an absolute path or a path that climbs out).
+/// Pipeline names and run labels go through it before anything touches the disk.
+pub fn check_folder_name(value: &str) -> std::result::Result<(), String> {
+    let plain = |c: char| c.is_ascii_alphanumeric() || matches!(c, '.' | '_' | '-');
+    if value.is_empty()
+        || value.chars().count() > MAX_FOLDER_NAME
+        || value.starts_with('.')
+        || !value.chars().all(plain)
+    {
+        return Err(format!(
+            "{value:?} cannot name a folder of the output root: use 1 to {MAX_FOLDER_NAME} letters, digits, '.', '_' or '-', not starting with '.'"
+        ));
+    }
+    Ok(())
+}
+
 /// The pipeline file as written.
 #[derive(Debug, Clone, Deserialize, Serialize, Default)]
 #[serde(deny_unknown_fields)]
@@ -633,9 +654,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         ),
     };
     if let Some(l) = &r.label {
-        if l.is_empty() || l.contains(['/', '\\']) || l == "." || l == ".." {
-            return Err(bad(path, "report.label", format!("{l:?} cannot be a folder name")));
-        }
+        check_folder_name(l).map_err(|m| bad(path, "report.label", m))?;
     }
     let stability = stability_settings(&file.stability, path)?;
     let backtest = backtest_stage(&file.backtest, &inputs, path)?;
@@ -644,6 +663,14 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         .clone()
         .or_else(|| path.file_stem().and_then(|s| s.to_str()).map(str::to_string))
         .unwrap_or_else(|| "pipeline".into());
+    check_folder_name(&name).map_err(|m| {
+        let key = if file.name.is_some() {
+            "name"
+        } else {
+            "name (the pipeline file's own name, used when `name` is not set)"
+        };
+        bad(path, key, m)
+    })?;
     Ok(RunConfig {
         name,
         pipeline_path: path.to_path_buf(),

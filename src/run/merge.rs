@@ -21,7 +21,7 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let period = quote_period(&ds);
     let label = run_label(cfg, opts, period);
     let t = Instant::now();
-    let dir = shards_dir(cfg, opts, &label);
+    let dir = shards_dir(cfg, opts, &label)?;
     let (dirs, parts) = read_parts(&dir, &cfg.pipeline_path)?;
     let mut cal = combine(parts)?;
     let (rss, peak) = memory_mib();

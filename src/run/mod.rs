@@ -11,6 +11,7 @@
 //! `<output root>/<pipeline name>/<run label>.shards/part-I-of-N/`; [`merge`] then reads every
 //! part and finishes the run into the same run folder, byte for byte as a single run.
 
+pub mod folders;
 pub mod merge;
 pub mod part_folder;
 pub mod partition;
@@ -41,7 +42,7 @@ use crate::tables::manifest::{hash_file, relative, write_text, CountRecord, File
 use crate::tables::review::PsiRecord;
 use crate::tables::*;
 use crate::text::Severity;
-use part_folder::{work_folder, write_partition, PartFolder};
+use part_folder::{write_partition, PartFolder};
 use partition::{compute_partition, Partition, RowSinks, StageTiming};
 use scope::{keep_dates, keep_shard};
 use std::collections::BTreeSet;
@@ -145,13 +146,26 @@ fn run_label(cfg: &RunConfig, opts: &RunOptions, period: Option<(chrono::NaiveDa
         .unwrap_or_else(|| period.map_or("run".to_string(), |(_, b)| format!("asof-{b}")))
 }
 
+/// Where the run's label came from, for messages.
+fn label_source(cfg: &RunConfig, opts: &RunOptions) -> &'static str {
+    if opts.label.is_some() {
+        "--label"
+    } else if cfg.label.is_some() {
+        "report.label"
+    } else {
+        "the default label"
+    }
+}
+
 fn output_root(cfg: &RunConfig, opts: &RunOptions) -> PathBuf {
     opts.out_root.clone().unwrap_or_else(|| cfg.output_root.clone())
 }
 
-/// Where the shards of a run write their parts: beside the run folder, as `<label>.shards`.
-pub fn shards_dir(cfg: &RunConfig, opts: &RunOptions, label: &str) -> PathBuf {
-    output_root(cfg, opts).join(&cfg.name).join(format!("{label}.shards"))
+/// Where the shards of a run write their parts: beside the run folder, as `<label>.shards`
+/// (checked and proven inside the output root as the run folder is).
+pub fn shards_dir(cfg: &RunConfig, opts: &RunOptions, label: &str) -> Result<PathBuf> {
+    folders::check_label(label, label_source(cfg, opts))?;
+    folders::run_dir(&output_root(cfg, opts), &cfg.name, &format!("{label}.shards"), label_source(cfg, opts))
 }
 
 /// `run.log`: per stage its seconds and the resident and peak memory after it, then the total.
@@ -194,11 +208,11 @@ fn ingest(cfg: &RunConfig, timings: &mut Vec<StageTiming>) -> Result<Dataset> {
     Ok(ds)
 }
 
-/// A run folder being built: `work` (with `tables/`) is renamed to `final_dir` at the end.
+/// A run folder being built: its work folder (with `tables/`) is swapped in whole at the end
+/// (`folders::Target`, which also holds the folder's lock).
 struct RunFolder {
     label: String,
-    final_dir: PathBuf,
-    work: PathBuf,
+    target: folders::Target,
 }
 
 impl RunFolder {
@@ -208,15 +222,15 @@ impl RunFolder {
         period: Option<(chrono::NaiveDate, chrono::NaiveDate)>,
     ) -> Result<RunFolder> {
         let label = run_label(cfg, opts, period);
-        let final_dir = output_root(cfg, opts).join(&cfg.name).join(&label);
-        let work = work_folder(&final_dir)?;
-        let tables = work.join("tables");
+        let dir = folders::run_dir(&output_root(cfg, opts), &cfg.name, &label, label_source(cfg, opts))?;
+        let target = folders::Target::open(&dir)?;
+        let tables = target.work().join("tables");
         std::fs::create_dir_all(&tables).map_err(|e| Error::Write { path: tables.clone(), message: e.to_string() })?;
-        Ok(RunFolder { label, final_dir, work })
+        Ok(RunFolder { label, target })
     }
 
     fn tables(&self) -> PathBuf {
-        self.work.join("tables")
+        self.target.work().join("tables")
     }
 }
 
@@ -335,7 +349,7 @@ pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard, dates: DateRa
     let multi = multi_currency_of(cfg, &ds);
     let scope = keep_dates(&mut ds, dates, cfg);
     let (_, sha) = hash_file(&cfg.pipeline_path)?;
-    let dir = shards_dir(cfg, opts, &label).join(shard.folder() + &dates.folder_suffix());
+    let dir = shards_dir(cfg, opts, &label)?.join(shard.folder() + &dates.folder_suffix());
     let folder = PartFolder::create(&dir)?;
     let mut sinks = folder.sinks()?;
     let (part, t) = compute_partition(&mut ds, cfg, &calibration_params(cfg), shard, &scope, &mut sinks, &multi)?;
@@ -406,7 +420,8 @@ fn finish(
     };
     let (rss, peak) = memory_mib();
     timings.push(("backtest".into(), t.elapsed().as_secs_f64(), rss, peak));
-    let RunFolder { label, final_dir, work } = folder;
+    let RunFolder { label, target } = folder;
+    let work = target.work().to_path_buf();
     let tables = work.join("tables");
 
     let t = Instant::now();
@@ -486,12 +501,8 @@ fn finish(
     let total = t0.elapsed().as_secs_f64();
     write_text(&work.join("run.log"), &stage_log(&timings, total))?;
 
-    // Swap the finished folder into place.
-    if final_dir.exists() {
-        std::fs::remove_dir_all(&final_dir)
-            .map_err(|e| Error::Write { path: final_dir.clone(), message: e.to_string() })?;
-    }
-    std::fs::rename(&work, &final_dir).map_err(|e| Error::Write { path: final_dir.clone(), message: e.to_string() })?;
+    // Swap the finished folder into place (the old one aside, the new one in, the old removed).
+    let final_dir = target.commit()?;
 
     Ok(RunSummary {
         run_dir: final_dir,

@@ -50,32 +50,21 @@ impl PartitionMeta {
     }
 }
 
-/// A shard's part folder being written: under a temporary name beside `dir` until
-/// [`write_partition`] renames it, so a folder that exists is whole.
+/// A shard's part folder being written: its work folder beside `dir`, swapped in whole by
+/// [`write_partition`], and the lock on it (`folders::Target`), so a folder that exists is
+/// whole and two processes never write one part.
 pub struct PartFolder {
-    pub dir: PathBuf,
-    pub work: PathBuf,
-}
-
-/// An empty folder beside `dir`, under a temporary name of this process, in which `dir` is
-/// assembled before it is renamed into place (so a folder that exists is whole).
-pub fn work_folder(dir: &Path) -> Result<PathBuf> {
-    let parent = dir.parent().unwrap_or(Path::new(".")).to_path_buf();
-    let name = dir.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_else(|| "part".into());
-    let work = parent.join(format!(".{name}.partial-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&work);
-    std::fs::create_dir_all(&work).map_err(|e| Error::Write { path: work.clone(), message: e.to_string() })?;
-    Ok(work)
+    pub target: super::folders::Target,
 }
 
 impl PartFolder {
     pub fn create(dir: &Path) -> Result<PartFolder> {
-        Ok(PartFolder { dir: dir.to_path_buf(), work: work_folder(dir)? })
+        Ok(PartFolder { target: super::folders::Target::open(dir)? })
     }
 
     /// The sinks of the part's node and residual rows (no digest: the merge digests them).
     pub fn sinks<'a>(&self) -> Result<RowSinks<'a>> {
-        RowSinks::create(&self.work, &[], None, None, false)
+        RowSinks::create(self.target.work(), &[], None, None, false)
     }
 }
 
@@ -88,8 +77,8 @@ pub fn write_partition(
     shard: Shard,
     pipeline_sha256: &str,
 ) -> Result<()> {
-    let PartFolder { dir, work } = folder;
-    let dir = dir.as_path();
+    let PartFolder { target } = folder;
+    let work = target.work().to_path_buf();
     let none: &[(String, String)] = &[];
     sinks.finish(std::mem::take(&mut part.hazard), std::mem::take(&mut part.residuals))?;
     tables::write(&part.params, &work, none)?;
@@ -125,10 +114,7 @@ pub fn write_partition(
     let text = serde_json::to_string_pretty(&meta)
         .map_err(|e| Error::Encode { what: "partition.json", message: e.to_string() })?;
     crate::tables::manifest::write_text(&work.join("partition.json"), &(text + "\n"))?;
-    if dir.exists() {
-        std::fs::remove_dir_all(dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })?;
-    }
-    std::fs::rename(&work, dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })
+    target.commit().map(|_| ())
 }
 
 /// Reads `partition.json` of a partition folder.

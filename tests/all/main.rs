@@ -7,6 +7,7 @@ mod cir;
 mod cli;
 mod closed_forms;
 mod demo;
+mod folders;
 mod intensity_pipeline;
 mod pipeline;
 mod properties;

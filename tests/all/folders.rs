@@ -1,0 +1,125 @@
+//! Where a run writes, tried as a careless or hostile user would: labels and pipeline names
+//! that climb out of the output root, point elsewhere or name nothing are refused before
+//! anything touches the disk, with sentinel files outside (and inside) the output root left
+//! exactly as they were; a rerun replaces the run folder whole and leaves no work folder; a
+//! second run into a folder another live process holds is refused, naming the holder.
+
+use crate::support::repo;
+use assert_cmd::Command;
+use std::path::{Path, PathBuf};
+
+/// A copy of the sample fixture in `dir`, its pipeline file edited by `edit`.
+fn sample(dir: &Path, edit: impl Fn(String) -> String) -> PathBuf {
+    let src = repo().join("tests/fixtures");
+    std::fs::create_dir_all(dir.join("sample")).unwrap();
+    for e in std::fs::read_dir(src.join("sample")).unwrap() {
+        let e = e.unwrap();
+        std::fs::copy(e.path(), dir.join("sample").join(e.file_name())).unwrap();
+    }
+    let p = dir.join("sample.toml");
+    std::fs::write(&p, edit(std::fs::read_to_string(src.join("sample.toml")).unwrap())).unwrap();
+    p
+}
+
+/// Every file below `dir` with its content, for before/after comparisons.
+fn snapshot(dir: &Path) -> Vec<(PathBuf, Vec<u8>)> {
+    let mut out = Vec::new();
+    let mut stack = vec![dir.to_path_buf()];
+    while let Some(d) = stack.pop() {
+        for e in std::fs::read_dir(&d).unwrap() {
+            let p = e.unwrap().path();
+            if p.is_dir() {
+                stack.push(p);
+            } else {
+                out.push((p.clone(), std::fs::read(&p).unwrap()));
+            }
+        }
+    }
+    out.sort();
+    out
+}
+
+fn run(pipeline: &Path, args: &[&str]) -> assert_cmd::assert::Assert {
+    Command::cargo_bin("hazardline").unwrap().arg("run").arg(pipeline).args(args).assert()
+}
+
+fn stderr(a: &assert_cmd::assert::Assert) -> String {
+    String::from_utf8(a.get_output().stderr.clone()).unwrap()
+}
+
+#[test]
+fn labels_that_climb_or_point_elsewhere_touch_nothing() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = sample(dir.path(), |t| t);
+    let root = dir.path().join("out");
+    // An earlier run and a file of the user's in the output root, a folder of the user's
+    // elsewhere: the sentinels.
+    std::fs::create_dir_all(root.join("sample/earlier")).unwrap();
+    std::fs::write(root.join("sample/earlier/report.md"), "earlier run").unwrap();
+    std::fs::write(root.join("notes.txt"), "the user's file").unwrap();
+    let elsewhere = dir.path().join("elsewhere");
+    std::fs::create_dir_all(&elsewhere).unwrap();
+    std::fs::write(elsewhere.join("thesis.txt"), "not ours").unwrap();
+    let before = snapshot(dir.path());
+    let absolute = elsewhere.display().to_string();
+    for label in ["..", ".", "", "../../x", "../sample", absolute.as_str(), "a/b", ".hidden", "x\ny"] {
+        let a = run(&pipeline, &["--out", root.to_str().unwrap(), "--label", label]).code(2);
+        let e = stderr(&a);
+        assert!(e.contains("--label") && e.contains("cannot name a folder of the output root"), "{label:?}: {e}");
+        assert_eq!(snapshot(dir.path()), before, "--label {label:?} changed files");
+    }
+    // A run as a shard is held to the same rule.
+    let a = run(&pipeline, &["--out", root.to_str().unwrap(), "--label", "..", "--shard", "1/2"]).code(2);
+    assert!(stderr(&a).contains("--label"), "{}", stderr(&a));
+    assert_eq!(snapshot(dir.path()), before);
+}
+
+#[test]
+fn pipeline_names_that_climb_or_are_absolute_are_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let root = dir.path().join("out");
+    std::fs::create_dir_all(&root).unwrap();
+    for name in ["../../x", "/tmp/hazardline-absolute-name", "..", ""] {
+        let pipeline = sample(dir.path(), |t| t.replace("name = \"sample\"", &format!("name = {name:?}")));
+        let before = snapshot(dir.path());
+        let a = run(&pipeline, &["--out", root.to_str().unwrap()]).code(2);
+        let e = stderr(&a);
+        assert!(e.contains("key `name`") && e.contains("cannot name a folder"), "{name:?}: {e}");
+        assert_eq!(snapshot(dir.path()), before, "name {name:?} changed files");
+    }
+    assert!(!Path::new("/tmp/hazardline-absolute-name").exists());
+    // A report.label is checked the same way.
+    let pipeline = sample(dir.path(), |t| t.replace("label = \"fixture\"", "label = \"../up\""));
+    let e = stderr(&run(&pipeline, &["--out", root.to_str().unwrap()]).code(2));
+    assert!(e.contains("key `report.label`"), "{e}");
+}
+
+#[test]
+fn a_rerun_replaces_the_folder_whole_and_a_held_folder_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = sample(dir.path(), |t| t);
+    let root = dir.path().join("out");
+    let out = root.to_str().unwrap();
+    run(&pipeline, &["--out", out]).success();
+    let run_dir = root.join("sample/fixture");
+    std::fs::write(run_dir.join("stray.txt"), "left in the old folder").unwrap();
+    run(&pipeline, &["--out", out]).success();
+    assert!(run_dir.join("report.md").exists() && !run_dir.join("stray.txt").exists(), "the folder is replaced whole");
+    let left: Vec<String> = std::fs::read_dir(root.join("sample"))
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().to_string())
+        .collect();
+    assert_eq!(left, ["fixture"], "no lock, work or aside folder is left");
+
+    // A live process (this test) holds the folder: the run is refused and names it.
+    let host = std::fs::read_to_string("/proc/sys/kernel/hostname")
+        .map(|h| h.trim().to_string())
+        .unwrap_or_else(|_| "unknown".into());
+    let lock = root.join("sample/.fixture.lock");
+    std::fs::write(&lock, format!("pid {}\nhost {host}\n", std::process::id())).unwrap();
+    let before = snapshot(&root);
+    let e = stderr(&run(&pipeline, &["--out", out]).code(2));
+    assert!(e.contains(".fixture.lock") && e.contains(&format!("process {}", std::process::id())), "{e}");
+    assert_eq!(snapshot(&root), before, "the refused run wrote nothing");
+    std::fs::remove_file(&lock).unwrap();
+}
