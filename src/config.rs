@@ -99,6 +99,9 @@ impl BacktestStage {
     }
 }
 
+/// The longest look-back of a backtest member's curve, in calendar days (ten years).
+pub const MAX_LOOKBACK_DAYS: i64 = 3653;
+
 /// The longest pipeline name or run label, in characters.
 pub const MAX_FOLDER_NAME: usize = 100;
 
@@ -195,7 +198,16 @@ fn backtest_stage(k: &BacktestSection, inputs: &InputPaths, path: &Path) -> Resu
     let core = BacktestSettings {
         cohort_dates: vec![NaiveDate::from_ymd_opt(2000, 1, 3).unwrap_or_default()],
         horizons_years: k.horizons.clone().unwrap_or_else(|| vec![1]),
-        lookback_days: k.lookback_days.unwrap_or(10),
+        lookback_days: match k.lookback_days.unwrap_or(10) {
+            d @ 0..=MAX_LOOKBACK_DAYS => d,
+            d => {
+                return Err(bad(
+                    path,
+                    "backtest.lookback_days",
+                    format!("{d} is not a number of days from 0 to {MAX_LOOKBACK_DAYS}"),
+                ))
+            }
+        },
         censoring,
         bucketing,
         level: k.level.unwrap_or(0.95),

@@ -83,13 +83,13 @@ pub fn run(s: &CalibrateSettings) -> Result<u8> {
     let s = calibrate(s)?;
     super::print_counts(&s.counts);
     super::print_reasons(&s.top_reasons);
-    println!("curves: {} ({} with every node ok), nodes: {}", s.curves, s.curves_complete, s.nodes);
+    say!("curves: {} ({} with every node ok), nodes: {}", s.curves, s.curves_complete, s.nodes);
     for (status, n) in &s.nodes_by_status {
-        println!("  {status}: {n}");
+        say!("  {status}: {n}");
     }
-    println!("largest |residual| on ok nodes: {:.3e} bp", s.max_abs_residual_bp);
+    say!("largest |residual| on ok nodes: {:.3e} bp", s.max_abs_residual_bp);
     for p in &s.outputs {
-        println!("wrote {}", p.display());
+        say!("wrote {}", p.display());
     }
     tracing::info!(seconds = started.elapsed().as_secs_f64(), "calibrate finished");
     Ok(0)

@@ -62,13 +62,13 @@ pub fn run(s: &CheckSettings) -> Result<u8> {
     super::print_counts(&s.counts);
     super::print_reasons(&s.top_reasons);
     if !s.flags_by_rule.is_empty() {
-        println!("quality flags (rows kept):");
+        say!("quality flags (rows kept):");
         for (rule, n) in &s.flags_by_rule {
-            println!("  {rule:<24} {n:>10}");
+            say!("  {rule:<24} {n:>10}");
         }
     }
     for p in &s.outputs {
-        println!("wrote {}", p.display());
+        say!("wrote {}", p.display());
     }
     Ok(0)
 }

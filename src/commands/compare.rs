@@ -9,9 +9,9 @@ pub fn run(run_a: &Path, run_b: &Path, out: Option<&Path>) -> Result<u8> {
     match out {
         Some(p) => {
             crate::tables::manifest::write_text(p, &text)?;
-            println!("wrote {}", p.display());
+            say!("wrote {}", p.display());
         }
-        None => print!("{text}"),
+        None => say_text!("{text}"),
     }
     Ok(0)
 }

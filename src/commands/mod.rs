@@ -6,6 +6,23 @@
 //!
 //! Layer: the top of the application; nothing in the library imports it.
 
+/// Prints a line to standard output. A closed output (`hazardline run ... | head -1`) ends the
+/// printing quietly instead of panicking: a command prints after its files are written.
+macro_rules! say {
+    ($($arg:tt)*) => {{
+        use std::io::Write as _;
+        let _ = writeln!(std::io::stdout(), $($arg)*);
+    }};
+}
+
+/// [`say!`] without the line end.
+macro_rules! say_text {
+    ($($arg:tt)*) => {{
+        use std::io::Write as _;
+        let _ = write!(std::io::stdout(), $($arg)*);
+    }};
+}
+
 pub mod calibrate;
 pub mod check;
 pub mod compare;
@@ -19,18 +36,18 @@ use crate::ingest::TableCounts;
 
 /// Prints the row accounting of each table: rows in = used + rejected, and the flagged rows.
 pub fn print_counts(counts: &[TableCounts]) {
-    println!("{:<16} {:>12} {:>12} {:>12} {:>12}", "table", "rows in", "used", "rejected", "flagged");
+    say!("{:<16} {:>12} {:>12} {:>12} {:>12}", "table", "rows in", "used", "rejected", "flagged");
     for c in counts {
-        println!("{:<16} {:>12} {:>12} {:>12} {:>12}", c.table, c.rows_in, c.used, c.rejected, c.flagged);
+        say!("{:<16} {:>12} {:>12} {:>12} {:>12}", c.table, c.rows_in, c.used, c.rejected, c.flagged);
     }
 }
 
 /// Prints the most frequent reject reasons per table.
 pub fn print_reasons(reasons: &[(String, &'static str, usize)]) {
     if !reasons.is_empty() {
-        println!("top reject reasons:");
+        say!("top reject reasons:");
         for (table, reason, n) in reasons {
-            println!("  {table:<16} {reason:<24} {n:>10}");
+            say!("  {table:<16} {reason:<24} {n:>10}");
         }
     }
 }

@@ -6,6 +6,6 @@ use std::path::Path;
 
 pub fn run(run_dir: &Path) -> Result<u8> {
     crate::report::markdown::render(run_dir)?;
-    println!("report: {}", run_dir.join("report.md").display());
+    say!("report: {}", run_dir.join("report.md").display());
     Ok(0)
 }

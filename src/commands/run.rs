@@ -17,11 +17,11 @@ pub fn run(pipeline: &Path, opts: &RunOptions, shard: Option<Shard>, dates: Opti
     let (shard, dates) = (shard.unwrap_or(Shard::ALL), dates.unwrap_or_default());
     let s = crate::run::run_shard(&cfg, opts, shard, dates)?;
     let range = if dates.is_all() { String::new() } else { format!(", dates {dates}") };
-    println!("shard {shard}{range}: {} entities, {} curves", s.entities, s.curves);
+    say!("shard {shard}{range}: {} entities, {} curves", s.entities, s.curves);
     for (stage, secs, _, _) in &s.timings {
         tracing::info!(stage = stage.as_str(), seconds = secs, "stage finished");
     }
-    println!("part: {}", s.part_dir.display());
+    say!("part: {}", s.part_dir.display());
     Ok(0)
 }
 
@@ -29,14 +29,16 @@ pub fn run(pipeline: &Path, opts: &RunOptions, shard: Option<Shard>, dates: Opti
 /// pipeline file asks to fail on them.
 pub fn print_run(s: &RunSummary, fail_on_red_flags: bool) -> u8 {
     super::print_counts(&s.counts);
-    println!(
+    say!(
         "curves: {} ({} with every node ok); largest |residual| on ok nodes {:.3e} bp",
-        s.curves, s.curves_complete, s.max_abs_residual_bp
+        s.curves,
+        s.curves_complete,
+        s.max_abs_residual_bp
     );
-    println!("rejected rows: {}; flags: {} ({} red)", s.rejected, s.flags, s.red_flags);
+    say!("rejected rows: {}; flags: {} ({} red)", s.rejected, s.flags, s.red_flags);
     for (stage, secs) in &s.timings {
         tracing::info!(stage = stage.as_str(), seconds = secs, "stage finished");
     }
-    println!("report: {}", s.run_dir.join("report.md").display());
+    say!("report: {}", s.run_dir.join("report.md").display());
     u8::from(fail_on_red_flags && s.red_flags > 0)
 }

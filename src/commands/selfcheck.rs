@@ -16,6 +16,6 @@ pub fn run(size: Size, seed: u64, keep: Option<&Path>) -> Result<u8> {
         let _ = std::fs::remove_dir_all(&dir);
     }
     let c = result?;
-    print!("{}", c.table);
+    say_text!("{}", c.table);
     Ok(u8::from(!c.passed))
 }

@@ -97,7 +97,14 @@ pub fn may_serve_a_cohort(
 ) -> impl Fn(NaiveDate) -> bool {
     let lookback = stage.core.lookback_days.max(0);
     let mut dates = period
-        .map(|(a, b)| cohort_dates(a, b + chrono::Duration::days(lookback), stage.frequency, &p.calendar))
+        .map(|(a, b)| {
+            cohort_dates(
+                a,
+                b.checked_add_signed(chrono::Duration::days(lookback)).unwrap_or(b),
+                stage.frequency,
+                &p.calendar,
+            )
+        })
         .unwrap_or_default();
     dates.sort();
     move |d| dates.get(dates.partition_point(|t| *t < d)).is_some_and(|t| (*t - d).num_days() <= lookback)
@@ -197,9 +204,10 @@ pub fn backtest_members_stage(
     let lookback = chrono::Duration::days(stage.core.lookback_days.max(0));
     let kept_first = cal.cds_curves.keys().map(|k| k.0).min();
     let kept_last = cal.cds_curves.keys().map(|k| k.0).max();
-    let (Some(first), Some(reach)) =
-        (scope.range.from.or(kept_first), scope.range.to.or(kept_last.map(|d| d + lookback)))
-    else {
+    let (Some(first), Some(reach)) = (
+        scope.range.from.or(kept_first),
+        scope.range.to.or(kept_last.map(|d| d.checked_add_signed(lookback).unwrap_or(d))),
+    ) else {
         return Ok(Vec::new());
     };
     let dates = cohort_dates(first, reach, stage.frequency, &p.calendar);

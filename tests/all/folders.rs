@@ -123,3 +123,39 @@ fn a_rerun_replaces_the_folder_whole_and_a_held_folder_is_refused() {
     assert_eq!(snapshot(&root), before, "the refused run wrote nothing");
     std::fs::remove_file(&lock).unwrap();
 }
+
+#[test]
+fn a_closed_standard_output_ends_the_command_quietly() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = sample(dir.path(), |t| t);
+    let root = dir.path().join("out");
+    let mut child = std::process::Command::new(assert_cmd::cargo::cargo_bin("hazardline"))
+        .arg("run")
+        .arg(&pipeline)
+        .args(["--out", root.to_str().unwrap()])
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    // The reader goes away before the command prints its summary, as `| true` would.
+    drop(child.stdout.take());
+    let out = child.wait_with_output().unwrap();
+    let e = String::from_utf8_lossy(&out.stderr);
+    assert!(out.status.success() && !e.contains("panicked") && !e.contains("Broken pipe"), "{:?}: {e}", out.status);
+    assert!(root.join("sample/fixture/report.md").exists(), "the files were written");
+}
+
+#[test]
+fn settings_and_sizes_that_would_overflow_are_refused_before_work_starts() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = sample(dir.path(), |t| t + "\n[backtest]\nenabled = true\nlookback_days = 100000000\n");
+    let e = stderr(&run(&pipeline, &["--out", dir.path().join("out").to_str().unwrap()]).code(2));
+    assert!(e.contains("key `backtest.lookback_days`") && e.contains("100000000"), "{e}");
+    let a = Command::cargo_bin("hazardline")
+        .unwrap()
+        .args(["demo", dir.path().join("d").to_str().unwrap(), "--entities", "1000000000"])
+        .assert()
+        .code(2);
+    assert!(stderr(&a).contains("--entities must be from 1 to"), "{}", stderr(&a));
+    assert!(!dir.path().join("d").exists());
+}
