@@ -4,7 +4,7 @@
 //! order, and runs the pooled half of the pipeline into the run folder: the same files a
 //! single run writes.
 
-use super::part_folder::{merge_part_rows, read_meta, read_partition};
+use super::part_folder::{merge_part_rows, read_meta, read_partition, verify_part};
 use super::partition::{Partition, RowSinks};
 use super::*;
 use crate::parts::check_tiling;
@@ -22,7 +22,7 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let label = run_label(cfg, opts, period);
     let t = Instant::now();
     let dir = shards_dir(cfg, opts, &label)?;
-    let (dirs, parts) = read_parts(&dir, &cfg.pipeline_path)?;
+    let (dirs, parts) = read_parts(&dir, &cfg.pipeline_path, &input_records(cfg, &ds.counts)?)?;
     let mut cal = combine(parts)?;
     let (rss, peak) = memory_mib();
     timings.push(("read parts".into(), t.elapsed().as_secs_f64(), rss, peak));
@@ -44,7 +44,7 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     finish(cfg, ds, ingest_counts, cal, sinks, &multi, folder, &meta, timings, t0)
 }
 
-fn read_parts(dir: &Path, pipeline: &Path) -> Result<(Vec<PathBuf>, Vec<Partition>)> {
+fn read_parts(dir: &Path, pipeline: &Path, inputs: &[InputRecord]) -> Result<(Vec<PathBuf>, Vec<Partition>)> {
     let bad = |message: String| Error::Argument { name: "merge", message };
     let entries = std::fs::read_dir(dir).map_err(|e| {
         bad(format!(
@@ -80,6 +80,7 @@ fn read_parts(dir: &Path, pipeline: &Path) -> Result<(Vec<PathBuf>, Vec<Partitio
                 env!("CARGO_PKG_VERSION")
             )));
         }
+        verify_part(f, &m, inputs)?;
         metas.push(m);
     }
     let n = metas[0].shards;

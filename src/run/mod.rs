@@ -197,6 +197,20 @@ pub fn share_heaps() {
     }
 }
 
+/// Every input file read (table, path relative to the pipeline file, size, SHA-256), as the
+/// manifest lists them and a part folder records them.
+fn input_records(cfg: &RunConfig, counts: &[TableCounts]) -> Result<Vec<InputRecord>> {
+    let base = cfg.pipeline_path.parent().map(Path::to_path_buf).unwrap_or_default();
+    let mut inputs = Vec::new();
+    for c in counts {
+        for f in &c.files {
+            let (b, h) = hash_file(f)?;
+            inputs.push(InputRecord { table: c.table.into(), path: relative(f, &base), bytes: b, sha256: h });
+        }
+    }
+    Ok(inputs)
+}
+
 /// Loads every input and shows its sources relative to the pipeline file.
 fn ingest(cfg: &RunConfig, timings: &mut Vec<StageTiming>) -> Result<Dataset> {
     let t = Instant::now();
@@ -345,6 +359,7 @@ pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard, dates: DateRa
     let mut timings = Vec::new();
     let mut ds = ingest(cfg, &mut timings)?;
     let label = run_label(cfg, opts, quote_period(&ds));
+    let inputs = input_records(cfg, &ds.counts)?;
     keep_shard(&mut ds, shard);
     let multi = multi_currency_of(cfg, &ds);
     let scope = keep_dates(&mut ds, dates, cfg);
@@ -357,7 +372,7 @@ pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard, dates: DateRa
     drop(ds);
     let t = Instant::now();
     let (curves, entities) = (part.curves, part.curve_entities.len());
-    write_partition(folder, sinks, part, shard, &sha)?;
+    write_partition(folder, sinks, part, shard, &sha, inputs)?;
     let (rss, peak) = memory_mib();
     timings.push(("write part".into(), t.elapsed().as_secs_f64(), rss, peak));
     write_text(&dir.join("run.log"), &stage_log(&timings, t0.elapsed().as_secs_f64()))?;
@@ -456,15 +471,8 @@ fn finish(
     timings.push(("write tables".into(), t2.elapsed().as_secs_f64(), rss, peak));
 
     // Manifest.
-    let base = cfg.pipeline_path.parent().map(Path::to_path_buf).unwrap_or_default();
     let (bytes, sha) = hash_file(&cfg.pipeline_path)?;
-    let mut inputs = Vec::new();
-    for c in &ingest_counts {
-        for f in &c.files {
-            let (b, h) = hash_file(f)?;
-            inputs.push(InputRecord { table: c.table.into(), path: relative(f, &base), bytes: b, sha256: h });
-        }
-    }
+    let inputs = input_records(cfg, &ingest_counts)?;
     let mut count_rows = counts_records("ingest", &ingest_counts);
     count_rows.extend(counts_records("calibrate", &counts));
     let manifest = Manifest {

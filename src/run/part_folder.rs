@@ -9,6 +9,7 @@ use super::partition::{Partition, RowSinks};
 use crate::backtest;
 use crate::error::{Error, Result};
 use crate::parts::{DateRange, Shard};
+use crate::tables::manifest::{hash_file, InputRecord};
 use crate::tables::parts::{EdgeRow, MemberRecord};
 use crate::tables::{self, file_of, readback, HazardCurveRow, ResidualRow};
 use crate::text::{CurveSource, FitMethod};
@@ -40,6 +41,98 @@ pub struct PartitionMeta {
     pub dates_from: Option<String>,
     #[serde(default)]
     pub dates_to: Option<String>,
+    /// The inputs the part read, as the run's manifest lists them: `merge` refuses a part made
+    /// from inputs that have changed since.
+    pub inputs: Vec<InputRecord>,
+    /// Every table file of the part with its size, SHA-256 and rows: `merge` refuses a part
+    /// whose files differ from these, or that holds a file not listed.
+    #[serde(default)]
+    pub files: Vec<PartFile>,
+}
+
+/// A table file of a part folder as it was written.
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct PartFile {
+    pub name: String,
+    pub bytes: u64,
+    pub sha256: String,
+    pub rows: usize,
+}
+
+/// The `.parquet` files of a part folder, by name.
+fn part_files(dir: &Path) -> Result<Vec<PathBuf>> {
+    let entries = std::fs::read_dir(dir).map_err(|e| Error::Read {
+        path: dir.to_path_buf(),
+        format: "folder",
+        message: e.to_string(),
+    })?;
+    let mut files: Vec<PathBuf> = entries
+        .filter_map(|e| e.ok())
+        .map(|e| e.path())
+        .filter(|p| p.extension().is_some_and(|x| x == "parquet"))
+        .collect();
+    files.sort();
+    Ok(files)
+}
+
+/// What a part folder's table files are now.
+fn describe_files(dir: &Path) -> Result<Vec<PartFile>> {
+    part_files(dir)?
+        .iter()
+        .map(|p| {
+            let (bytes, sha256) = hash_file(p)?;
+            let name = p.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default();
+            Ok(PartFile { name, bytes, sha256, rows: readback::rows_in_file(p)? })
+        })
+        .collect()
+}
+
+/// Checks a part folder against its `partition.json`: impossible shard numbers, inputs that
+/// changed since the part ran (`inputs`: this merge's), and table files that differ from
+/// those recorded (size, SHA-256, rows) or are not listed. The message names the part, the
+/// file and what differs.
+pub fn verify_part(dir: &Path, meta: &PartitionMeta, inputs: &[InputRecord]) -> Result<()> {
+    let refuse = |what: String| Err(Error::Parts(format!("{}: {what}; rerun this part", dir.display())));
+    if meta.shards == 0 || meta.shard == 0 || meta.shard > meta.shards {
+        return refuse(format!("partition.json says shard {} of {}, which cannot be", meta.shard, meta.shards));
+    }
+    if meta.inputs != inputs {
+        let changed = inputs
+            .iter()
+            .filter(|i| !meta.inputs.contains(i))
+            .chain(meta.inputs.iter().filter(|i| !inputs.contains(i)))
+            .map(|i| format!("{} ({})", i.path, i.table))
+            .collect::<std::collections::BTreeSet<_>>();
+        return refuse(format!(
+            "the inputs changed since this part ran: {}",
+            changed.into_iter().collect::<Vec<_>>().join(", ")
+        ));
+    }
+    let present: Vec<String> = part_files(dir)?
+        .iter()
+        .map(|p| p.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default())
+        .collect();
+    if let Some(extra) = present.iter().find(|n| !meta.files.iter().any(|f| &f.name == *n)) {
+        return refuse(format!("{extra} is not a file the part wrote"));
+    }
+    for f in &meta.files {
+        if !present.contains(&f.name) {
+            return refuse(format!("{} is missing", f.name));
+        }
+        let p = dir.join(&f.name);
+        let (bytes, sha256) = hash_file(&p)?;
+        if bytes != f.bytes || sha256 != f.sha256 {
+            return refuse(format!(
+                "{} differs from what the part wrote ({bytes} bytes, SHA-256 {sha256}; recorded {} bytes, SHA-256 {})",
+                f.name, f.bytes, f.sha256
+            ));
+        }
+        let rows = readback::rows_in_file(&p)?;
+        if rows != f.rows {
+            return refuse(format!("{} holds {rows} rows; the part wrote {}", f.name, f.rows));
+        }
+    }
+    Ok(())
 }
 
 impl PartitionMeta {
@@ -76,6 +169,7 @@ pub fn write_partition(
     mut part: Partition,
     shard: Shard,
     pipeline_sha256: &str,
+    inputs: Vec<InputRecord>,
 ) -> Result<()> {
     let PartFolder { target } = folder;
     let work = target.work().to_path_buf();
@@ -110,6 +204,8 @@ pub fn write_partition(
         recoveries: part.members.iter().map(|(r, _)| *r).collect(),
         dates_from: part.range.from.map(|d| d.to_string()),
         dates_to: part.range.to.map(|d| d.to_string()),
+        inputs,
+        files: describe_files(&work)?,
     };
     let text = serde_json::to_string_pretty(&meta)
         .map_err(|e| Error::Encode { what: "partition.json", message: e.to_string() })?;

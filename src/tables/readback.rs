@@ -198,6 +198,11 @@ fn parquet_error(path: &Path, e: &dyn std::fmt::Display) -> Error {
     Error::Read { path: path.to_path_buf(), format: "Parquet", message: e.to_string() }
 }
 
+/// Rows of one Parquet file, from its metadata.
+pub fn rows_in_file(path: &Path) -> Result<usize> {
+    row_count(path)
+}
+
 /// Rows of a Parquet table, from its metadata.
 fn row_count(path: &Path) -> Result<usize> {
     let file = std::fs::File::open(path).map_err(|e| parquet_error(path, &e))?;

@@ -326,3 +326,57 @@ fn the_worked_example_script_runs_shards_and_date_ranges() {
     assert_eq!(parts.len(), 4, "{parts:?}");
     assert_same(&one, &files(&out.join("demo/r"), &["run.log"]), "the script's run");
 }
+
+#[test]
+fn merge_refuses_parts_that_were_tampered_with_or_made_from_other_inputs() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = universe(&dir.path().join("data"));
+    let out = dir.path().join("o");
+    let o = out.to_str().unwrap();
+    for i in ["1/2", "2/2"] {
+        hazardline(&["run", &pipeline, "--out", o, "--label", "r", "--shard", i]).success();
+    }
+    let parts = out.join("demo/r.shards");
+    let (one, two) = (parts.join("part-0001-of-0002"), parts.join("part-0002-of-0002"));
+    let merge = || refused(&["merge", &pipeline, "--out", o, "--label", "r"]);
+    let keep = |p: &Path| std::fs::read(p).unwrap();
+
+    // One part's node table copied over the other's: named, with what differs.
+    let original = keep(&two.join("hazard_curves.parquet"));
+    std::fs::copy(one.join("hazard_curves.parquet"), two.join("hazard_curves.parquet")).unwrap();
+    let e = merge();
+    assert!(
+        e.contains("part-0002-of-0002") && e.contains("hazard_curves.parquet differs from what the part wrote"),
+        "{e}"
+    );
+    std::fs::write(two.join("hazard_curves.parquet"), original).unwrap();
+
+    // A file the part did not write.
+    std::fs::write(two.join("extra.parquet"), b"PAR1").unwrap();
+    assert!(merge().contains("extra.parquet is not a file the part wrote"));
+    std::fs::remove_file(two.join("extra.parquet")).unwrap();
+
+    // Impossible shard numbers (which used to switch the completeness check off).
+    let json = two.join("partition.json");
+    let meta = std::fs::read_to_string(&json).unwrap();
+    for edited in [meta.replace("\"shards\": 2", "\"shards\": 0"), meta.replace("\"shard\": 2", "\"shard\": 3")] {
+        assert_ne!(edited, meta);
+        std::fs::write(&json, &edited).unwrap();
+        let e = merge();
+        assert!(e.contains("which cannot be") || e.contains("holds parts of"), "{e}");
+    }
+    std::fs::write(&json, &meta).unwrap();
+
+    // Inputs changed after the shards ran: the changed file is named.
+    let quotes = dir.path().join("data/entities.csv");
+    let before = keep(&quotes);
+    let mut changed = before.clone();
+    changed.extend_from_slice(b"\n");
+    std::fs::write(&quotes, changed).unwrap();
+    let e = merge();
+    assert!(e.contains("the inputs changed since this part ran") && e.contains("entities.csv"), "{e}");
+    std::fs::write(&quotes, before).unwrap();
+
+    // Untouched, the parts merge.
+    hazardline(&["merge", &pipeline, "--out", o, "--label", "r"]).success();
+}
