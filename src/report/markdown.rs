@@ -458,7 +458,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
 
     super::sections::stability_section(w, &t, &charts_dir, &mut figure, 4)?;
     let base_recovery = settings.recovery;
-    let backtest_enabled = settings.backtest_enabled();
+    let backtest_enabled = settings.backtest_enabled(&manifest_path)?;
     super::sections::backtest_section(w, &t, &charts_dir, &mut figure, 5, base_recovery, backtest_enabled)?;
 
     // 6. Flags

@@ -65,10 +65,17 @@ pub struct RecordedSettings {
 }
 
 impl RecordedSettings {
-    /// Whether the backtest ran (`enabled` of the backtest settings; a manifest that does not
-    /// record it predates the switch, when the backtest always ran).
-    pub fn backtest_enabled(&self) -> bool {
-        self.backtest_settings.iter().find(|(k, _)| k == "enabled").is_none_or(|(_, v)| v == "true")
+    /// Whether the backtest ran (`enabled` of the backtest settings).
+    pub fn backtest_enabled(&self, path: &Path) -> Result<bool> {
+        match self.backtest_settings.iter().find(|(k, _)| k == "enabled").map(|(_, v)| v.as_str()) {
+            Some("true") => Ok(true),
+            Some("false") => Ok(false),
+            other => Err(Error::Read {
+                path: path.to_path_buf(),
+                format: "JSON",
+                message: format!("settings: backtest_settings records `enabled` as {other:?}, not true or false"),
+            }),
+        }
     }
 
     /// The tolerance (bp) within which a calibrated quote counts as repriced

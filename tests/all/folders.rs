@@ -22,21 +22,8 @@ fn sample(dir: &Path, edit: impl Fn(String) -> String) -> PathBuf {
 }
 
 /// Every file below `dir` with its content, for before/after comparisons.
-fn snapshot(dir: &Path) -> Vec<(PathBuf, Vec<u8>)> {
-    let mut out = Vec::new();
-    let mut stack = vec![dir.to_path_buf()];
-    while let Some(d) = stack.pop() {
-        for e in std::fs::read_dir(&d).unwrap() {
-            let p = e.unwrap().path();
-            if p.is_dir() {
-                stack.push(p);
-            } else {
-                out.push((p.clone(), std::fs::read(&p).unwrap()));
-            }
-        }
-    }
-    out.sort();
-    out
+fn snapshot(dir: &Path) -> std::collections::BTreeMap<String, Vec<u8>> {
+    crate::support::files(dir, &[])
 }
 
 fn run(pipeline: &Path, args: &[&str]) -> assert_cmd::assert::Assert {
