@@ -195,6 +195,23 @@ fn extension(p: &Path) -> Option<String> {
     p.extension().and_then(|e| e.to_str()).map(|e| e.to_ascii_lowercase())
 }
 
+/// The table reader's message, short: its first line, at most [`MESSAGE_CHARS`] characters. A
+/// malformed file can make the reader quote a large part of it, and its later lines suggest
+/// the reader's own options, which mean nothing to a user of this tool.
+fn reader_message(e: &dyn std::fmt::Display) -> String {
+    let text = e.to_string();
+    let first = text.lines().find(|l| !l.trim().is_empty()).unwrap_or("").trim();
+    if first.chars().count() > MESSAGE_CHARS || text.trim() != first {
+        let cut: String = first.chars().take(MESSAGE_CHARS).collect();
+        format!("{cut} [the reader's message, shortened]")
+    } else {
+        first.to_string()
+    }
+}
+
+/// The longest part of a reader's message shown.
+const MESSAGE_CHARS: usize = 240;
+
 fn scan(path: &Path) -> Result<(LazyFrame, &'static str)> {
     let shown = path.display().to_string();
     match extension(path).as_deref() {
@@ -206,13 +223,13 @@ fn scan(path: &Path) -> Result<(LazyFrame, &'static str)> {
                 .with_has_header(true)
                 .finish()
                 .map(|lf| (lf, "CSV"))
-                .map_err(|e| Error::Read { path: path.to_path_buf(), format: "CSV", message: e.to_string() })
+                .map_err(|e| Error::Read { path: path.to_path_buf(), format: "CSV", message: reader_message(&e) })
         }
         Some("parquet") => {
             let args = ScanArgsParquet { hive_options: HiveOptions::new_disabled(), ..ScanArgsParquet::default() };
             LazyFrame::scan_parquet(PlRefPath::new(shown.as_str()), args)
                 .map(|lf| (lf, "Parquet"))
-                .map_err(|e| Error::Read { path: path.to_path_buf(), format: "Parquet", message: e.to_string() })
+                .map_err(|e| Error::Read { path: path.to_path_buf(), format: "Parquet", message: reader_message(&e) })
         }
         _ => Err(Error::UnknownFormat { path: path.to_path_buf() }),
     }
@@ -298,8 +315,21 @@ pub fn read_table_batches(
     for file in files {
         let (mut lf, format) = scan(&file)?;
         let schema =
-            lf.collect_schema().map_err(|e| Error::Read { path: file.clone(), format, message: e.to_string() })?;
+            lf.collect_schema().map_err(|e| Error::Read { path: file.clone(), format, message: reader_message(&e) })?;
         let names: Vec<String> = schema.iter_names().map(|s| s.to_string()).collect();
+        // The CSV reader renames a repeated header column `x` to `x_duplicated_0`, ...: refuse
+        // the file rather than read one of the copies.
+        if let Some(base) = names.iter().find_map(|n| {
+            n.split_once("_duplicated_")
+                .filter(|(base, k)| k.parse::<usize>().is_ok() && names.iter().any(|m| m == base))
+                .map(|(base, _)| base.to_string())
+        }) {
+            return Err(Error::Read {
+                path: file.clone(),
+                format,
+                message: format!("column `{base}` appears more than once in the header; keep one"),
+            });
+        }
         let hive = if path.is_dir() { hive_values(path, &file) } else { Vec::new() };
         // Schema check before any row is read.
         let mut present: Vec<&'static str> = Vec::new();
@@ -331,7 +361,7 @@ pub fn read_table_batches(
             } else {
                 projected.clone().slice(offset as i64, batch as IdxSize).collect()
             }
-            .map_err(|e| Error::Read { path: file.clone(), format, message: e.to_string() })?;
+            .map_err(|e| Error::Read { path: file.clone(), format, message: reader_message(&e) })?;
             let height = frame.height();
             if height == 0 && offset > 0 {
                 break;

@@ -211,10 +211,32 @@ fn input_records(cfg: &RunConfig, counts: &[TableCounts]) -> Result<Vec<InputRec
     Ok(inputs)
 }
 
-/// Loads every input and shows its sources relative to the pipeline file.
+/// Every entity a setting names (`calibration.cir_entities`, `report.charted_entities`) is an
+/// entity of the CDS quotes: a typo stops the run, naming the key and the name, instead of
+/// silently fitting or drawing nothing.
+fn check_named_entities(cfg: &RunConfig, ds: &Dataset) -> Result<()> {
+    let quoted = |e: &str| ds.cds.as_ref().is_some_and(|p| p.entities.get(e).is_some());
+    for (key, names) in
+        [("calibration.cir_entities", &cfg.cir_entities), ("report.charted_entities", &cfg.charted_entities)]
+    {
+        if let Some(missing) = names.iter().flatten().find(|e| !quoted(e)) {
+            return Err(Error::Config {
+                path: cfg.pipeline_path.clone(),
+                message: format!(
+                    "key `{key}`: {missing:?} is not an entity of the CDS quotes (names must match exactly)"
+                ),
+            });
+        }
+    }
+    Ok(())
+}
+
+/// Loads every input, checks the entities the settings name, and shows the sources relative
+/// to the pipeline file.
 fn ingest(cfg: &RunConfig, timings: &mut Vec<StageTiming>) -> Result<Dataset> {
     let t = Instant::now();
     let mut ds = load(&cfg.inputs, &cfg.calendar, &cfg.quality)?;
+    check_named_entities(cfg, &ds)?;
     let base = cfg.pipeline_path.parent().map(Path::to_path_buf).unwrap_or_default();
     ds.relabel_sources(&base);
     let (rss, peak) = memory_mib();

@@ -188,3 +188,39 @@ fn wrong_column_type_exits_2_naming_file_column_found_and_expected() {
         .stderr(predicates::str::contains("type date"))
         .stderr(predicates::str::contains("expected a number"));
 }
+
+#[test]
+fn a_repeated_header_column_and_a_broken_file_are_named_briefly() {
+    let dir = tempfile::tempdir().unwrap();
+    let disc = write(dir.path(), "disc.csv", DISCOUNT);
+    let check = |cds: &Path| {
+        let a = Command::cargo_bin("hazardline")
+            .unwrap()
+            .args(["check", "--discount"])
+            .arg(&disc)
+            .arg("--cds")
+            .arg(cds)
+            .assert()
+            .code(2);
+        String::from_utf8(a.get_output().stderr.clone()).unwrap()
+    };
+    // The same column twice: refused, not read from one of the copies.
+    let twice = write(
+        dir.path(),
+        "twice.csv",
+        "date,entity,currency,tenor,par_spread_bp,par_spread_bp\n2024-03-21,ALPHA,USD,5Y,100,200\n",
+    );
+    let e = check(&twice);
+    assert!(
+        e.contains("twice.csv") && e.contains("column `par_spread_bp` appears more than once in the header"),
+        "{e}"
+    );
+    // An unterminated quote in a large file: the message names the file and stays short.
+    let mut big = String::from("date,entity,currency,tenor,par_spread_bp\n2024-03-21,\"ALPHA,USD,5Y,100\n");
+    for i in 0..20_000 {
+        big += &format!("2024-03-21,NAME{i},USD,5Y,100\n");
+    }
+    let broken = write(dir.path(), "broken.csv", &big);
+    let e = check(&broken);
+    assert!(e.contains("broken.csv") && e.len() < 1_000, "{} bytes: {}", e.len(), &e[..e.len().min(400)]);
+}

@@ -146,3 +146,23 @@ fn settings_and_sizes_that_would_overflow_are_refused_before_work_starts() {
     assert!(stderr(&a).contains("--entities must be from 1 to"), "{}", stderr(&a));
     assert!(!dir.path().join("d").exists());
 }
+
+#[test]
+fn an_entity_named_in_a_setting_must_exist() {
+    let dir = tempfile::tempdir().unwrap();
+    for (from, to, key) in [
+        (
+            "charted_entities = [\"Corvane Logistics\"",
+            "charted_entities = [\"Corvane Logistic\"",
+            "report.charted_entities",
+        ),
+        ("cir = true", "cir = true\ncir_entities = [\"Halberd Mill\"]", "calibration.cir_entities"),
+    ] {
+        let pipeline = sample(dir.path(), |t| {
+            assert!(t.contains(from), "{from}");
+            t.replacen(from, to, 1)
+        });
+        let e = stderr(&run(&pipeline, &["--out", dir.path().join("out").to_str().unwrap()]).code(2));
+        assert!(e.contains(&format!("key `{key}`")) && e.contains("is not an entity of the CDS quotes"), "{e}");
+    }
+}
