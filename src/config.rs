@@ -503,10 +503,30 @@ fn bad(path: &Path, key: &str, message: String) -> Error {
 
 /// Reads and checks a pipeline file.
 pub fn load_pipeline(path: &Path) -> Result<RunConfig> {
-    let text = std::fs::read_to_string(path).map_err(|_| Error::NotFound { path: path.to_path_buf() })?;
+    let text = read_text(path)?;
     let file: PipelineFile = toml::from_str(&text)
         .map_err(|e| Error::Config { path: path.to_path_buf(), message: e.to_string().trim_end().to_string() })?;
     check(file, path)
+}
+
+/// The pipeline file's text: a missing file, one that cannot be read (permissions, a link
+/// loop) and one that is not UTF-8 (with the line of the first bad byte) get messages of
+/// their own.
+fn read_text(path: &Path) -> Result<String> {
+    let bytes = std::fs::read(path).map_err(|e| match e.kind() {
+        std::io::ErrorKind::NotFound => Error::NotFound { path: path.to_path_buf() },
+        _ => Error::Read { path: path.to_path_buf(), format: "a pipeline file", message: e.to_string() },
+    })?;
+    String::from_utf8(bytes).map_err(|e| {
+        let good = e.utf8_error().valid_up_to();
+        let bytes = e.as_bytes();
+        let line = bytes[..good].iter().filter(|b| **b == b'\n').count() + 1;
+        Error::Read {
+            path: path.to_path_buf(),
+            format: "a pipeline file",
+            message: format!("line {line}: byte {:#04x} is not UTF-8 text; save the file as UTF-8", bytes[good]),
+        }
+    })
 }
 
 /// Turns the file as written into a checked configuration.

@@ -143,8 +143,12 @@ pub fn read(path: &Path, cal: &Calendar, rules: &CdsRowRules) -> Result<CdsPanel
                 Ok(r) => panel.rows.push(r),
                 Err(mut rej) => {
                     rej.date = file.cell(C_DATE, i).date().ok().flatten();
-                    rej.entity = file.cell(C_ENTITY, i).text();
-                    rej.key = [file.cell(C_CCY, i).text(), file.cell(C_TENOR, i).text()]
+                    // A label refused as such is not copied into the rejects table.
+                    let shown = |t: Option<String>| {
+                        t.filter(|t| !t.chars().any(char::is_control) && t.len() <= MAX_LABEL_CHARS)
+                    };
+                    rej.entity = shown(file.cell(C_ENTITY, i).text());
+                    rej.key = [shown(file.cell(C_CCY, i).text()), shown(file.cell(C_TENOR, i).text())]
                         .into_iter()
                         .flatten()
                         .collect::<Vec<_>>()
@@ -220,9 +224,27 @@ pub(crate) fn required_text<'a>(
         Cell::Str(s) if s.trim().is_empty() => {
             Err(Reject::new(table, src, row, "missing_value", format!("column {column} is empty")))
         }
+        Cell::Str(s) if s.chars().any(char::is_control) => Err(Reject::new(
+            table,
+            src,
+            row,
+            "bad_label",
+            format!("column {column} holds a control character (a line break, a tab, a NUL, ...)"),
+        )),
+        Cell::Str(s) if s.len() > MAX_LABEL_CHARS && s.chars().count() > MAX_LABEL_CHARS => Err(Reject::new(
+            table,
+            src,
+            row,
+            "bad_label",
+            format!("column {column} holds {} characters, more than {MAX_LABEL_CHARS}", s.chars().count()),
+        )),
         c => Ok(c),
     }
 }
+
+/// The longest name, currency, tenor or identifier a row may carry, in characters: it is
+/// written into every table and the report, where a longer one is a fault of the file.
+pub const MAX_LABEL_CHARS: usize = 200;
 
 fn text_of<'a>(c: &Cell<'a>, buf: &'a mut String) -> &'a str {
     match *c {

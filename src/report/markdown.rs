@@ -28,6 +28,28 @@ pub(super) fn pct(x: f64) -> String {
     format!("{:.1}%", x * 100.0)
 }
 
+/// A figure file name stem for each of `names`: [`file_stem`], with a short hash of the name
+/// added where two names give one stem (names that differ only in case or punctuation) or a
+/// name gives none, so no figure overwrites another's.
+pub(super) fn unique_stems(names: &[String]) -> BTreeMap<String, String> {
+    let mut uses: BTreeMap<String, usize> = BTreeMap::new();
+    for n in names {
+        *uses.entry(file_stem(n)).or_default() += 1;
+    }
+    names
+        .iter()
+        .map(|n| {
+            let stem = file_stem(n);
+            let stem = if stem.is_empty() || uses[&stem] > 1 {
+                format!("{stem}-{:08x}", crate::hash::fnv1a(n.as_bytes()) as u32)
+            } else {
+                stem
+            };
+            (n.clone(), stem)
+        })
+        .collect()
+}
+
 pub(super) fn file_stem(name: &str) -> String {
     name.chars()
         .map(|c| if c.is_ascii_alphanumeric() { c.to_ascii_lowercase() } else { '-' })
@@ -403,6 +425,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     let chosen = charted(&settings, entities);
     let tdates = term_dates(&settings, &dates);
     let charted_nodes = hz.charted(&readback::table_path(&t, "hazard_curves"), &chosen, &tdates)?;
+    let stems = unique_stems(&chosen);
     for e in &chosen {
         let mut curves_of: Vec<(NaiveDate, Vec<(f64, f64)>)> = Vec::new();
         for d in &tdates {
@@ -413,7 +436,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         if curves_of.is_empty() {
             continue;
         }
-        let file = format!("term-structure-{}.svg", file_stem(e));
+        let file = format!("term-structure-{}.svg", stems[e]);
         let svg = charts::term_structure(&format!("Hazard term structure: {e}"), &curves_of).map_err(chart_err)?;
         write_text(&charts_dir.join(&file), &svg)?;
         figure += 1;
@@ -549,4 +572,18 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     let _ = writeln!(w, "- Reproducibility: the tables and this report are deterministic for the same inputs and pipeline file; timings are in `run.log`, not here.\n");
     let _ = writeln!(w, "## 8. Caution\n\n{CAUTION} Every conclusion should be checked against the data and these method notes before it is relied on.");
     write_text(&run_dir.join("report.md"), &md)
+}
+
+#[cfg(test)]
+mod tests {
+    #[test]
+    fn figure_names_of_names_that_differ_in_case_or_punctuation_do_not_collide() {
+        let names: Vec<String> =
+            ["Alder Works", "ALDER-WORKS", "Birch Foods", "***"].iter().map(|s| s.to_string()).collect();
+        let stems = super::unique_stems(&names);
+        let distinct: std::collections::BTreeSet<&String> = stems.values().collect();
+        assert_eq!(distinct.len(), 4, "{stems:?}");
+        assert_eq!(stems["Birch Foods"], "birch-foods", "a name that collides with none keeps its plain stem");
+        assert!(stems["Alder Works"].starts_with("alder-works-") && stems["***"].starts_with('-'), "{stems:?}");
+    }
 }

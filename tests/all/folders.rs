@@ -166,3 +166,22 @@ fn an_entity_named_in_a_setting_must_exist() {
         assert!(e.contains(&format!("key `{key}`")) && e.contains("is not an entity of the CDS quotes"), "{e}");
     }
 }
+
+#[test]
+fn pipeline_files_that_cannot_be_read_say_why() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = sample(dir.path(), |t| t);
+    let load = |p: &Path| stderr(&run(p, &["--out", dir.path().join("out").to_str().unwrap()]).code(2));
+    // Latin-1 text: the line of the first byte that is not UTF-8.
+    let mut latin1 = std::fs::read(&pipeline).unwrap();
+    latin1.extend_from_slice(b"\n# caf\xe9\n");
+    let lines = latin1.iter().filter(|b| **b == b'\n').count();
+    std::fs::write(&pipeline, &latin1).unwrap();
+    let e = load(&pipeline);
+    assert!(e.contains(&format!("line {lines}")) && e.contains("not UTF-8"), "{e}");
+    // A link to itself is not reported as missing.
+    let looped = dir.path().join("loop.toml");
+    std::os::unix::fs::symlink(&looped, &looped).unwrap();
+    let e = load(&looped);
+    assert!(!e.contains("not found") && e.contains("loop.toml"), "{e}");
+}

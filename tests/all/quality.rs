@@ -418,3 +418,16 @@ proptest! {
         }
     }
 }
+
+#[test]
+fn labels_with_control_characters_or_over_long_are_rejected_with_a_reason() {
+    let long = "N".repeat(201);
+    let text = format!(
+        "{CDS_HEAD}2024-01-02,A\u{0}B,USD,5Y,100,,,\n2024-01-02,{long},USD,5Y,100,,,\n2024-01-02,C,USD,5Y,100,,,\n"
+    );
+    let ds = check(&[("cds_quotes", &text)]);
+    let bad: Vec<&str> = ds.rejects.iter().map(|r| r.reason).collect();
+    assert_eq!(bad, ["bad_label", "bad_label"], "{:?}", ds.rejects);
+    assert!(ds.rejects.iter().all(|r| r.entity.is_none()), "a refused label is not copied into the rejects");
+    assert_eq!(ds.cds.as_ref().unwrap().rows.len(), 1);
+}
