@@ -34,8 +34,12 @@ impl Reject {
 pub enum Cell<'a> {
     Null,
     Str(&'a str),
+    /// A number as stored (NaN and infinities included: they are refused when read as a
+    /// number, as the same text is in a CSV file).
     Num(f64),
     Date(NaiveDate),
+    /// A stored date no calendar date matches (days from 1970-01-01).
+    DateOutOfRange(i64),
 }
 
 impl<'a> Cell<'a> {
@@ -46,24 +50,26 @@ impl<'a> Cell<'a> {
             Cell::Str(s) => format!("{s:?}"),
             Cell::Num(v) => format!("{v}"),
             Cell::Date(d) => d.to_string(),
+            Cell::DateOutOfRange(n) => format!("a date {n} days from 1970-01-01, out of range"),
         }
     }
 
-    /// A number, from a numeric column or a text cell. `None` for empty; `Err` for text that
-    /// is not a number.
+    /// A finite number, from a numeric column or a text cell. `None` for empty; `Err` for text
+    /// that is not a number, and for NaN or an infinity however it is stored.
     pub fn number(&self) -> std::result::Result<Option<f64>, ()> {
+        let finite = |v: f64| if v.is_finite() { Ok(Some(v)) } else { Err(()) };
         match *self {
             Cell::Null => Ok(None),
-            Cell::Num(v) => Ok(Some(v)),
+            Cell::Num(v) => finite(v),
             Cell::Str(s) => {
                 let t = s.trim();
                 if t.is_empty() {
                     Ok(None)
                 } else {
-                    t.parse::<f64>().map(Some).map_err(|_| ())
+                    t.parse::<f64>().map_err(|_| ()).and_then(finite)
                 }
             }
-            Cell::Date(_) => Err(()),
+            Cell::Date(_) | Cell::DateOutOfRange(_) => Err(()),
         }
     }
 
@@ -74,7 +80,7 @@ impl<'a> Cell<'a> {
             Cell::Date(d) => Ok(Some(d)),
             Cell::Str(s) if s.trim().is_empty() => Ok(None),
             Cell::Str(s) => crate::time::parse_iso_date(s).map(Some).ok_or(()),
-            Cell::Num(_) => Err(()),
+            Cell::Num(_) | Cell::DateOutOfRange(_) => Err(()),
         }
     }
 
@@ -86,6 +92,7 @@ impl<'a> Cell<'a> {
             Cell::Str(s) => Some(s.trim().to_string()),
             Cell::Num(v) => Some(format!("{v}")),
             Cell::Date(d) => Some(d.to_string()),
+            Cell::DateOutOfRange(n) => Some(format!("{n} days from 1970-01-01")),
         }
     }
 }
@@ -117,9 +124,11 @@ impl RawFile {
     pub fn cell(&self, column: usize, row: usize) -> Cell<'_> {
         match &self.columns[column].1 {
             Values::Str(ca) => ca.get(row).map_or(Cell::Null, Cell::Str),
-            Values::F64(ca) => ca.get(row).map_or(Cell::Null, |v| if v.is_nan() { Cell::Null } else { Cell::Num(v) }),
+            Values::F64(ca) => ca.get(row).map_or(Cell::Null, Cell::Num),
             Values::Date(ca) => ca.get(row).map_or(Cell::Null, |d| {
-                NaiveDate::from_num_days_from_ce_opt(d + EPOCH_CE_DAYS).map_or(Cell::Null, Cell::Date)
+                d.checked_add(EPOCH_CE_DAYS)
+                    .and_then(NaiveDate::from_num_days_from_ce_opt)
+                    .map_or(Cell::DateOutOfRange(i64::from(d)), Cell::Date)
             }),
             Values::Const(v) => Cell::Str(v),
             Values::Absent => Cell::Null,

@@ -224,3 +224,37 @@ fn a_repeated_header_column_and_a_broken_file_are_named_briefly() {
     let e = check(&broken);
     assert!(e.contains("broken.csv") && e.len() < 1_000, "{} bytes: {}", e.len(), &e[..e.len().min(400)]);
 }
+
+#[test]
+fn parquet_nan_infinity_and_out_of_range_dates_get_the_csv_reasons() {
+    let dir = tempfile::tempdir().unwrap();
+    let disc = write(dir.path(), "disc.csv", DISCOUNT);
+    let d = hazardline::time::parse_iso_date("2024-03-21").unwrap();
+    let mut df = hazardline::tables::parquet::TableBuilder::new()
+        .dates("date", vec![Some(d); 4])
+        .strings("entity", vec![Some("ALPHA"); 4])
+        .strings("currency", vec![Some("USD"); 4])
+        .strings("tenor", vec![Some("1Y"), Some("3Y"), Some("5Y"), Some("10Y")])
+        .floats("par_spread_bp", vec![Some(50.0), Some(f64::NAN), Some(f64::INFINITY), Some(120.0)])
+        .floats("recovery", vec![Some(f64::NAN), None, None, None])
+        .finish()
+        .unwrap();
+    // The last row's date: the largest day number a Parquet date can hold, no calendar date.
+    let extreme = Series::new("date".into(), &[19_803i32, 19_803, 19_803, i32::MAX]).cast(&DataType::Date).unwrap();
+    df.replace("date", extreme.into()).unwrap();
+    let q = dir.path().join("q.parquet");
+    hazardline::tables::parquet::write_parquet(&mut df, &q, &[]).unwrap();
+    let a = Command::cargo_bin("hazardline")
+        .unwrap()
+        .args(["check", "--discount"])
+        .arg(&disc)
+        .arg("--cds")
+        .arg(&q)
+        .assert()
+        .success();
+    let out = String::from_utf8(a.get_output().stdout.clone()).unwrap();
+    // Every row is rejected, none read as empty or as the default recovery.
+    assert_eq!(counts(&out, "cds_quotes"), (4, 0, 4), "{out}");
+    let reason = |r: &str| out.lines().any(|l| l.contains("cds_quotes") && l.contains(r));
+    assert!(reason("unparseable_number") && reason("unparseable_date"), "{out}");
+}
