@@ -218,6 +218,20 @@ fn reader_message(e: &dyn std::fmt::Display) -> String {
     }
 }
 
+/// Runs a call of the table reader on `path`, turning its error, and a panic of the reader on
+/// a damaged file (found by the mutated-file property test), into an error naming the file.
+fn guarded<T>(path: &Path, format: &'static str, read: impl FnOnce() -> PolarsResult<T>) -> Result<T> {
+    match std::panic::catch_unwind(std::panic::AssertUnwindSafe(read)) {
+        Ok(Ok(v)) => Ok(v),
+        Ok(Err(e)) => Err(Error::Read { path: path.to_path_buf(), format, message: reader_message(&e) }),
+        Err(_) => Err(Error::Read {
+            path: path.to_path_buf(),
+            format,
+            message: "the file is damaged: the reader stopped inside it (see the reader's panic message above)".into(),
+        }),
+    }
+}
+
 /// The longest part of a reader's message shown.
 const MESSAGE_CHARS: usize = 240;
 
@@ -227,18 +241,25 @@ fn scan(path: &Path) -> Result<(LazyFrame, &'static str)> {
         Some("csv") => {
             // Every column as text: numbers and dates are parsed by the readers, so that one
             // bad cell rejects one row instead of failing the file.
-            LazyCsvReader::new(PlRefPath::new(shown.as_str()))
-                .with_infer_schema_length(Some(0))
-                .with_has_header(true)
-                .finish()
-                .map(|lf| (lf, "CSV"))
-                .map_err(|e| Error::Read { path: path.to_path_buf(), format: "CSV", message: reader_message(&e) })
+            guarded(path, "CSV", || {
+                LazyCsvReader::new(PlRefPath::new(shown.as_str()))
+                    .with_infer_schema_length(Some(0))
+                    .with_has_header(true)
+                    .finish()
+            })
+            .map(|lf| (lf, "CSV"))
         }
         Some("parquet") => {
             let args = ScanArgsParquet { hive_options: HiveOptions::new_disabled(), ..ScanArgsParquet::default() };
-            LazyFrame::scan_parquet(PlRefPath::new(shown.as_str()), args)
+            // The file's footer is read here first, on this thread, where a reader that stops on a
+            // damaged footer can be caught; the scan reads it again on the reader's own threads,
+            // where such a stop would end the process.
+            guarded(path, "Parquet", || {
+                let file = std::fs::File::open(path).map_err(PolarsError::from)?;
+                ParquetReader::new(file).num_rows()
+            })?;
+            guarded(path, "Parquet", || LazyFrame::scan_parquet(PlRefPath::new(shown.as_str()), args))
                 .map(|lf| (lf, "Parquet"))
-                .map_err(|e| Error::Read { path: path.to_path_buf(), format: "Parquet", message: reader_message(&e) })
         }
         _ => Err(Error::UnknownFormat { path: path.to_path_buf() }),
     }
@@ -323,8 +344,7 @@ pub fn read_table_batches(
     let mut info = TableInfo { files: files.clone(), ..TableInfo::default() };
     for file in files {
         let (mut lf, format) = scan(&file)?;
-        let schema =
-            lf.collect_schema().map_err(|e| Error::Read { path: file.clone(), format, message: reader_message(&e) })?;
+        let schema = guarded(&file, format, || lf.collect_schema())?;
         let names: Vec<String> = schema.iter_names().map(|s| s.to_string()).collect();
         // The CSV reader renames a repeated header column `x` to `x_duplicated_0`, ...: refuse
         // the file rather than read one of the copies.
@@ -365,12 +385,13 @@ pub fn read_table_batches(
         let batch = if format == "Parquet" { PARQUET_BATCH_ROWS } else { usize::MAX };
         let mut offset = 0usize;
         loop {
-            let frame = if batch == usize::MAX {
-                projected.clone().collect()
-            } else {
-                projected.clone().slice(offset as i64, batch as IdxSize).collect()
-            }
-            .map_err(|e| Error::Read { path: file.clone(), format, message: reader_message(&e) })?;
+            let frame = guarded(&file, format, || {
+                if batch == usize::MAX {
+                    projected.clone().collect()
+                } else {
+                    projected.clone().slice(offset as i64, batch as IdxSize).collect()
+                }
+            })?;
             let height = frame.height();
             if height == 0 && offset > 0 {
                 break;
