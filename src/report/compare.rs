@@ -70,7 +70,7 @@ pub fn compare(a: &Path, b: &Path) -> Result<String> {
             (Some(a), Some(b)) => format!("{:+.1}", (b - a) * 1e4),
             _ => "-".into(),
         };
-        let _ = writeln!(w, "| {e} | {} | {} | {ch} |", f(x), f(y));
+        let _ = writeln!(w, "| {} | {} | {} | {ch} |", super::markdown::cell_text(e), f(x), f(y));
     }
     let fa: Vec<FlagRecord> = crate::tables::read(&a.join("tables"))?;
     let fb: Vec<FlagRecord> = crate::tables::read(&b.join("tables"))?;
@@ -100,10 +100,10 @@ pub fn compare(a: &Path, b: &Path) -> Result<String> {
                     w,
                     "| `{}` | {} | {} | {} | {} |",
                     g.rule.as_str(),
-                    g.entity.as_deref().unwrap_or(""),
-                    g.series,
+                    super::markdown::cell_text(g.entity.as_deref().unwrap_or("")),
+                    super::markdown::cell_text(&g.series),
                     g.date.map(|d| d.to_string()).unwrap_or_default(),
-                    g.explanation.replace('|', "/")
+                    super::markdown::cell_text(&g.explanation.replace('|', "/"))
                 );
             }
             let _ = writeln!(w);

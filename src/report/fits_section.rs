@@ -60,7 +60,9 @@ pub(super) fn intensity_sections(
             let mx = y.iter().fold(0.0f64, |a, x| a.max(x.abs()));
             let _ = writeln!(
                 w,
-                "| {e} | {c} | {} | {} | {} | {:.2e} | {:.2e} | {mx:.2e} |",
+                "| {} | {} | {} | {} | {} | {:.2e} | {:.2e} | {mx:.2e} |",
+                super::markdown::cell_text(e),
+                super::markdown::cell_text(c),
                 d.len(),
                 b.len(),
                 f.iter().cloned().collect::<Vec<_>>().join(", "),
@@ -87,7 +89,9 @@ pub(super) fn intensity_sections(
                 let hm = h.iter().sum::<f64>() / n;
                 let _ = writeln!(
                     w,
-                    "| {e} | {c} | {} | {mean:.1} | {:.1} | {lo:.1} | {hi:.1} | {hm:.1} |",
+                    "| {} | {} | {} | {mean:.1} | {:.1} | {lo:.1} | {hi:.1} | {hm:.1} |",
+                    super::markdown::cell_text(e),
+                    super::markdown::cell_text(c),
                     b.len(),
                     median(b)
                 );
@@ -120,7 +124,9 @@ pub(super) fn intensity_sections(
             let st = st.iter().map(|(s, n)| format!("`{s}` {n}")).collect::<Vec<_>>().join(", ");
             let _ = writeln!(
                 w,
-                "| {e} | {c} | {} | {:.4} | {:.4} | {:.4} | {:.4} | {:.2} | {mx:.2} | {} | {bound} | {st} |",
+                "| {} | {} | {} | {:.4} | {:.4} | {:.4} | {:.4} | {:.2} | {mx:.2} | {} | {bound} | {st} |",
+                super::markdown::cell_text(e),
+                super::markdown::cell_text(c),
                 v.len(),
                 median(&mut k),
                 median(&mut th),

@@ -28,6 +28,26 @@ pub(super) fn pct(x: f64) -> String {
     format!("{:.1}%", x * 100.0)
 }
 
+/// Text from the data (an entity, a currency, a bond or tenor label, a sentence naming them)
+/// made safe for a Markdown table cell and for HTML: characters that would end a cell, start a
+/// link, an image, a code span or a tag are escaped. Plain names pass unchanged.
+pub fn cell_text(text: &str) -> String {
+    let mut out = String::with_capacity(text.len());
+    for c in text.chars() {
+        match c {
+            '<' => out.push_str("&lt;"),
+            '>' => out.push_str("&gt;"),
+            '\\' | '|' | '`' | '[' | ']' => {
+                out.push('\\');
+                out.push(c);
+            }
+            c if c.is_control() => out.push(' '),
+            c => out.push(c),
+        }
+    }
+    out
+}
+
 /// A figure file name stem for each of `names`: [`file_stem`], with a short hash of the name
 /// added where two names give one stem (names that differ only in case or punctuation) or a
 /// name gives none, so no figure overwrites another's.
@@ -391,8 +411,8 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
                 w,
                 "| {} | {} | {} | `{}` | {:.4} | {:.4} | {:.3e} |",
                 r.date,
-                r.entity,
-                r.tenor_or_bond,
+                cell_text(&r.entity),
+                cell_text(&r.tenor_or_bond),
                 r.status.as_str(),
                 r.market,
                 r.model,
@@ -410,8 +430,8 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
                 w,
                 "| {} | {} | {} | `{}` | {} |",
                 h.date,
-                h.entity,
-                h.tenor,
+                cell_text(&h.entity),
+                cell_text(&h.tenor),
                 h.status.as_str(),
                 h.detail.clone().unwrap_or_default().replace('|', "/")
             );
@@ -440,10 +460,11 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         let svg = charts::term_structure(&format!("Hazard term structure: {e}"), &curves_of).map_err(chart_err)?;
         write_text(&charts_dir.join(&file), &svg)?;
         figure += 1;
-        let _ = writeln!(w, "![Hazard term structure of {e}](charts/{file})\n");
+        let _ = writeln!(w, "![Hazard term structure of {}](charts/{file})\n", cell_text(e));
         let _ = writeln!(
             w,
-            "*Figure {figure}. Bootstrapped piecewise-flat hazard rate of {e} against time to each node, on {}.*\n",
+            "*Figure {figure}. Bootstrapped piecewise-flat hazard rate of {} against time to each node, on {}.*\n",
+            cell_text(e),
             curves_of.iter().map(|c| c.0.to_string()).collect::<Vec<_>>().join(", ")
         );
     }
@@ -519,11 +540,11 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
                 "| `{}` | {} | {} | {} | {} | {} | {} |",
                 g.rule.as_str(),
                 g.severity.as_str(),
-                g.entity.as_deref().unwrap_or(""),
-                g.series,
+                cell_text(g.entity.as_deref().unwrap_or("")),
+                cell_text(&g.series),
                 g.period,
                 g.date.map(|d| d.to_string()).unwrap_or_default(),
-                g.explanation.replace('|', "/")
+                cell_text(&g.explanation.replace('|', "/"))
             );
         }
         let _ = writeln!(w, "\nRed flags: {red}.\n");
@@ -585,5 +606,15 @@ mod tests {
         assert_eq!(distinct.len(), 4, "{stems:?}");
         assert_eq!(stems["Birch Foods"], "birch-foods", "a name that collides with none keeps its plain stem");
         assert!(stems["Alder Works"].starts_with("alder-works-") && stems["***"].starts_with('-'), "{stems:?}");
+    }
+}
+
+#[cfg(test)]
+mod escaping {
+    #[test]
+    fn data_text_cannot_end_a_cell_or_open_a_link_tag_or_code_span() {
+        assert_eq!(super::cell_text("Alder Works"), "Alder Works");
+        assert_eq!(super::cell_text("A|B <script>![x](http://h)`c`"), "A\\|B &lt;script&gt;!\\[x\\](http://h)\\`c\\`");
+        assert_eq!(super::cell_text("a_b*c\\d\te"), "a_b*c\\\\d e");
     }
 }

@@ -602,8 +602,8 @@ pub fn stability_section(
             let _ = writeln!(
                 w,
                 "| {} | {} | {} | {} |",
-                ke[i].as_deref().unwrap_or(""),
-                ks[i].as_deref().unwrap_or(""),
+                super::markdown::cell_text(ke[i].as_deref().unwrap_or("")),
+                super::markdown::cell_text(ks[i].as_deref().unwrap_or("")),
                 kw[i].as_deref().unwrap_or(""),
                 kc[i].map(|d| d.to_string()).unwrap_or_default()
             );
@@ -717,9 +717,9 @@ pub fn residual_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
                 w,
                 "| {} | {} | {} | {} | {} | {} | {} | {} |",
                 wd[i].map(|d: NaiveDate| d.to_string()).unwrap_or_default(),
-                we[i].as_deref().unwrap_or(""),
+                super::markdown::cell_text(we[i].as_deref().unwrap_or("")),
                 wm[i].as_deref().unwrap_or(""),
-                wt[i].as_deref().unwrap_or(""),
+                super::markdown::cell_text(wt[i].as_deref().unwrap_or("")),
                 opt(wk[i], |v| format!("{v:.6}")),
                 opt(wmod[i], |v| format!("{v:.6}")),
                 opt(wr[i], |v| format!("{v:.3e}")),

@@ -185,3 +185,20 @@ fn pipeline_files_that_cannot_be_read_say_why() {
     let e = load(&looped);
     assert!(!e.contains("not found") && e.contains("loop.toml"), "{e}");
 }
+
+#[test]
+fn names_from_the_data_are_escaped_in_the_report() {
+    let dir = tempfile::tempdir().unwrap();
+    let odd = "Corvane|Logistics <b>[x](y)";
+    let pipeline = sample(dir.path(), |t| t.replace("Corvane Logistics", odd));
+    for e in std::fs::read_dir(dir.path().join("sample")).unwrap() {
+        let p = e.unwrap().path();
+        let text = std::fs::read_to_string(&p).unwrap();
+        std::fs::write(&p, text.replace("Corvane Logistics", odd)).unwrap();
+    }
+    let root = dir.path().join("out");
+    run(&pipeline, &["--out", root.to_str().unwrap()]).success();
+    let report = std::fs::read_to_string(root.join("sample/fixture/report.md")).unwrap();
+    assert!(report.contains("Corvane\\|Logistics &lt;b&gt;\\[x\\](y)"), "the name is shown, escaped");
+    assert!(!report.contains("<b>") && !report.contains("Corvane|Logistics"), "no raw tag or cell break");
+}
