@@ -4,11 +4,10 @@
 //! comparison).
 
 use super::parquet::TableBuilder;
-use super::readback::{floats, intern, ints, strs};
+use super::readback::{floats, intern, ints, strs, text_form};
 use super::{col, Column, Kind::*, Table};
 use crate::backtest::{BucketRow, HistoryRow, HosmerLemeshowRow, RiskPremiumRow};
-use crate::error::{Error, Result};
-use crate::stats::Zone;
+use crate::error::Result;
 use polars::prelude::DataFrame;
 use std::path::Path;
 
@@ -24,17 +23,6 @@ pub struct BucketRecord {
 pub struct HosmerLemeshowRecord {
     pub recovery: f64,
     pub row: HosmerLemeshowRow,
-}
-
-fn zone_of(v: Option<&str>, path: &Path, row: usize) -> Result<Option<Zone>> {
-    match v {
-        None => Ok(None),
-        Some(z) => Zone::parse(z).map(Some).ok_or_else(|| Error::Read {
-            path: path.to_path_buf(),
-            format: "Parquet",
-            message: format!("column zone, row {}: {z:?} is not a zone", row + 1),
-        }),
-    }
 }
 
 fn whole(v: Option<i64>) -> u64 {
@@ -141,7 +129,7 @@ impl Table for BucketRecord {
                         p_binom_upper: pu[i],
                         p_binom_lower: pl[i],
                         p_jeffreys: pj[i],
-                        zone: zone_of(z[i].as_deref(), path, i)?,
+                        zone: z[i].as_deref().map(|z| text_form(Some(z), "zone", path, i)).transpose()?,
                         outcome_source: intern(os[i].as_deref().unwrap_or("")),
                     },
                 })
@@ -380,7 +368,7 @@ impl Table for HistoryRow {
                     implied_pd: pd[i],
                     p_binom_upper: pu[i],
                     p_jeffreys: pj[i],
-                    zone: zone_of(z[i].as_deref(), path, i)?,
+                    zone: z[i].as_deref().map(|z| text_form(Some(z), "zone", path, i)).transpose()?,
                     outcome_source: intern(os[i].as_deref().unwrap_or("")),
                 })
             })
@@ -391,6 +379,7 @@ impl Table for HistoryRow {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::stats::Zone;
     use crate::tables::testing::{refuses_a_missing_column, round_trip};
 
     fn bucket(zone: Option<Zone>) -> BucketRow {

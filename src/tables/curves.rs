@@ -4,9 +4,9 @@
 //! a run built.
 
 use super::parquet::{FileKey, RowGroupWriter, SplitWriter, TableBuilder, TableWriter};
-use super::readback::{dates, floats, ints, labels, row_status, strs};
+use super::readback::{dates, floats, ints, labels, strs, text_form};
 use super::{col, metadata_of, Column, Kind::*, Table};
-use crate::error::{Error, Result};
+use crate::error::Result;
 use crate::text::{CurveSource, RowStatus};
 use chrono::{Datelike, NaiveDate};
 use polars::prelude::DataFrame;
@@ -112,13 +112,13 @@ impl Table for HazardCurveRow {
                     date: d[i].unwrap_or_default(),
                     entity: e[i].clone(),
                     currency: c[i].clone(),
-                    source: parse_source(src[i].as_deref(), path, i)?,
+                    source: text_form(src[i].as_deref(), "source", path, i)?,
                     tenor: t[i].clone(),
                     maturity: m[i].unwrap_or_default(),
                     node_date: nd[i].unwrap_or_default(),
                     hazard: h[i],
                     survival: s[i],
-                    status: row_status(st[i].as_deref(), path, i)?,
+                    status: text_form(st[i].as_deref(), "status", path, i)?,
                     recovery: r[i].unwrap_or(f64::NAN),
                     iterations: it[i].unwrap_or(0),
                     detail: de[i].take(),
@@ -126,19 +126,6 @@ impl Table for HazardCurveRow {
             })
             .collect()
     }
-}
-
-fn parse_source(v: Option<&str>, path: &Path, row: usize) -> Result<CurveSource> {
-    let v = v.unwrap_or("");
-    CurveSource::parse(v).ok_or_else(|| Error::Read {
-        path: path.to_path_buf(),
-        format: "Parquet",
-        message: format!(
-            "column source, row {}: {v:?} is not one of {:?}",
-            row + 1,
-            <CurveSource as crate::text::TextForm>::texts()
-        ),
-    })
 }
 
 /// The order of the `hazard_curves` table: CDS nodes first, by (date, entity, currency),

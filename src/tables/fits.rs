@@ -3,7 +3,7 @@
 //! written, empty, when their fit is off, so every run folder holds the same tables.
 
 use super::parquet::TableBuilder;
-use super::readback::{bools, dates, fixed_labels, floats, ints, row_status, strs};
+use super::readback::{bools, dates, fixed_labels, floats, ints, strs, text_form};
 use super::{col, Column, Kind::*, Table};
 use crate::error::Result;
 use crate::text::RowStatus;
@@ -109,7 +109,7 @@ impl Table for IntensityParamRow {
                     lambda0: l0[i],
                     rmse_bp: rm[i],
                     feller: fe[i],
-                    status: row_status(st[i].as_deref(), path, i)?,
+                    status: text_form(st[i].as_deref(), "status", path, i)?,
                     iterations: it[i].unwrap_or(0),
                     evaluations: ev[i].unwrap_or(0),
                     detail: de[i].take(),

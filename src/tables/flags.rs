@@ -4,13 +4,13 @@
 //! same shape, as `quality_flags`.
 
 use super::parquet::TableBuilder;
-use super::readback::{dates, fixed_labels, floats, intern, ints, strs};
+use super::readback::{dates, fixed_labels, floats, intern, ints, strs, text_form};
 use super::{col, Column, Kind::*, Table};
-use crate::error::{Error, Result};
+use crate::error::Result;
 use crate::ingest::load::INPUT_TABLES;
 use crate::ingest::QualityFlag;
 use crate::stability::FlagRow;
-use crate::text::{FlagRule, Severity, TextForm};
+use crate::text::{FlagRule, Severity};
 use polars::prelude::DataFrame;
 use std::path::Path;
 
@@ -58,15 +58,6 @@ impl FlagRecord {
             row: Some(f.row),
         }
     }
-}
-
-fn parsed<T: TextForm>(v: Option<&str>, column: &str, path: &Path, row: usize) -> Result<T> {
-    let v = v.unwrap_or("");
-    T::from_text(v).ok_or_else(|| Error::Read {
-        path: path.to_path_buf(),
-        format: "Parquet",
-        message: format!("column {column}, row {}: {v:?} is not one of {:?}", row + 1, T::texts()),
-    })
 }
 
 impl Table for FlagRecord {
@@ -127,8 +118,8 @@ impl Table for FlagRecord {
                 Ok(FlagRecord {
                     stage: intern(st[i].as_deref().unwrap_or("")),
                     flag: FlagRow {
-                        rule: parsed::<FlagRule>(ru[i].as_deref(), "rule", path, i)?,
-                        severity: parsed::<Severity>(sv[i].as_deref(), "severity", path, i)?,
+                        rule: text_form::<FlagRule>(ru[i].as_deref(), "rule", path, i)?,
+                        severity: text_form::<Severity>(sv[i].as_deref(), "severity", path, i)?,
                         entity: e[i].take(),
                         series: se[i].take().unwrap_or_default(),
                         period: pe[i].take().unwrap_or_default(),

@@ -6,9 +6,9 @@
 //! record per point held in between (it has a point per curve and series).
 
 use super::parquet::TableBuilder;
-use super::readback::{dates, floats, ints, labels, strs};
+use super::readback::{dates, floats, ints, labels, strs, text_form};
 use super::{col, Column, Kind::*, Table};
-use crate::backtest::{Bucket, Observation as Member, Outcome};
+use crate::backtest::{Bucket, Observation as Member};
 use crate::error::{Error, Result};
 use crate::stability::{MarketMove, Observation as SeriesPoint, PanelBuilder, SpreadEdge};
 use polars::prelude::DataFrame;
@@ -277,11 +277,7 @@ impl Table for MemberRecord {
         (0..df.height())
             .map(|i| {
                 let text = o[i].as_deref().ok_or_else(|| missing(path, "outcome", i))?;
-                let outcome = Outcome::parse(text).ok_or_else(|| Error::Read {
-                    path: path.to_path_buf(),
-                    format: "Parquet",
-                    message: format!("row {}: unknown outcome `{text}`", i + 1),
-                })?;
+                let outcome = text_form(Some(text), "outcome", path, i)?;
                 Ok(MemberRecord {
                     recovery: r[i].ok_or_else(|| missing(path, "recovery", i))?,
                     member: Member {
@@ -305,6 +301,7 @@ impl Table for MemberRecord {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::backtest::Outcome;
     use crate::tables::testing::{refuses_a_missing_column, round_trip};
     use chrono::NaiveDate;
 

@@ -6,7 +6,7 @@
 
 use super::curves::Label;
 use crate::error::{Error, Result};
-use crate::text::RowStatus;
+use crate::text::TextForm;
 use chrono::NaiveDate;
 use polars::prelude::*;
 use std::path::Path;
@@ -119,17 +119,15 @@ pub fn intern(v: &str) -> &'static str {
     s
 }
 
-/// A row status read back from column `status`.
-pub(crate) fn row_status(v: Option<&str>, path: &Path, row: usize) -> Result<RowStatus> {
+/// A text-form value (a status, a source, a zone, ...) read back from `column` at `row`; an
+/// empty or unknown text is an error naming the file, the column, the row and the accepted
+/// values.
+pub(crate) fn text_form<T: TextForm>(v: Option<&str>, column: &str, path: &Path, row: usize) -> Result<T> {
     let v = v.unwrap_or("");
-    RowStatus::parse(v).ok_or_else(|| Error::Read {
+    T::from_text(v).ok_or_else(|| Error::Read {
         path: path.to_path_buf(),
         format: "Parquet",
-        message: format!(
-            "column status, row {}: {v:?} is not one of {:?}",
-            row + 1,
-            <RowStatus as crate::text::TextForm>::texts()
-        ),
+        message: format!("column {column}, row {}: {v:?} is not one of {:?}", row + 1, T::texts()),
     })
 }
 
@@ -275,4 +273,25 @@ pub fn slices<T: super::Table>(path: &Path, mut f: impl FnMut(Vec<T>) -> Result<
 pub fn bools(df: &DataFrame, path: &Path, name: &str) -> Result<Vec<Option<bool>>> {
     let c = df.column(name).map_err(|e| err(path, name, e))?;
     Ok(c.bool().map_err(|e| err(path, name, e))?.iter().collect())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::text::RowStatus;
+
+    #[test]
+    fn a_text_form_cell_reads_back_or_names_the_column_row_and_choices() {
+        let p = Path::new("t.parquet");
+        assert_eq!(text_form::<RowStatus>(Some("floored"), "status", p, 0).unwrap(), RowStatus::Floored);
+        let e = text_form::<RowStatus>(Some("fine"), "status", p, 4).unwrap_err().to_string();
+        assert!(
+            e.contains("t.parquet")
+                && e.contains("column status, row 5")
+                && e.contains("\"fine\"")
+                && e.contains("curve_failed"),
+            "{e}"
+        );
+        assert!(text_form::<RowStatus>(None, "status", p, 0).is_err(), "an empty cell is not a status");
+    }
 }

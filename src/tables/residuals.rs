@@ -3,9 +3,9 @@
 //! as one file or (large runs) a folder of a file per method and year.
 
 use super::parquet::{FileKey, RowGroupWriter, SplitWriter, TableBuilder, TableWriter};
-use super::readback::{dates, fixed_labels, floats, labels, row_status, strs};
+use super::readback::{dates, fixed_labels, floats, labels, strs, text_form};
 use super::{col, curves::Label, metadata_of, Column, Kind::*, Table};
-use crate::error::{Error, Result};
+use crate::error::Result;
 use crate::text::{FitMethod, RowStatus};
 use chrono::{Datelike, NaiveDate};
 use polars::prelude::DataFrame;
@@ -82,16 +82,7 @@ impl Table for ResidualRow {
         );
         (0..df.height())
             .map(|i| {
-                let m = me[i].as_deref().unwrap_or("");
-                let method = FitMethod::parse(m).ok_or_else(|| Error::Read {
-                    path: path.to_path_buf(),
-                    format: "Parquet",
-                    message: format!(
-                        "column method, row {}: {m:?} is not one of {:?}",
-                        i + 1,
-                        <FitMethod as crate::text::TextForm>::texts()
-                    ),
-                })?;
+                let method = text_form(me[i].as_deref(), "method", path, i)?;
                 Ok(ResidualRow {
                     date: d[i].unwrap_or_default(),
                     entity: e[i].clone(),
@@ -102,7 +93,7 @@ impl Table for ResidualRow {
                     market: mk[i].unwrap_or(f64::NAN),
                     model: mo[i].unwrap_or(f64::NAN),
                     residual_bp: r[i].unwrap_or(f64::NAN),
-                    status: row_status(st[i].as_deref(), path, i)?,
+                    status: text_form(st[i].as_deref(), "status", path, i)?,
                 })
             })
             .collect()

@@ -4,27 +4,14 @@
 //! `residual_repricing`.
 
 use super::parquet::TableBuilder;
-use super::readback::{bools, dates, floats, intern, ints, strs};
+use super::readback::{bools, dates, floats, intern, ints, strs, text_form};
 use super::{col, Column, Kind::*, Table};
-use crate::error::{Error, Result};
+use crate::error::Result;
 use crate::stability::residual_review::{CurveResidualRow, RepricingShare, TenorResidualRow, WorstResidualRow};
-use crate::stability::{BreakRow, BreakStatus, CrossSectionRow, PsiRow, ResidualObservation, Scope, StabilityRow};
+use crate::stability::{BreakRow, CrossSectionRow, PsiRow, ResidualObservation, StabilityRow};
 use polars::prelude::DataFrame;
 use std::path::Path;
 use std::sync::Arc;
-
-fn bad(path: &Path, column: &str, row: usize, v: &str) -> Error {
-    Error::Read {
-        path: path.to_path_buf(),
-        format: "Parquet",
-        message: format!("column {column}, row {}: {v:?} is not a value this table can hold", row + 1),
-    }
-}
-
-fn scope_of(v: Option<&str>, path: &Path, row: usize) -> Result<Scope> {
-    let v = v.unwrap_or("");
-    Scope::parse(v).ok_or_else(|| bad(path, "scope", row, v))
-}
 
 fn count(v: Option<i64>) -> usize {
     v.unwrap_or(0).max(0) as usize
@@ -120,7 +107,7 @@ impl Table for StabilityRow {
                 Ok(StabilityRow {
                     period: pe[i].take().unwrap_or_default(),
                     series: se[i].take().unwrap_or_default(),
-                    scope: scope_of(sc[i].as_deref(), path, i)?,
+                    scope: text_form(sc[i].as_deref(), "scope", path, i)?,
                     key: k[i].take().unwrap_or_default(),
                     n: count(n[i]),
                     mean: mean[i],
@@ -190,7 +177,7 @@ impl Table for CrossSectionRow {
                     date: d[i].unwrap_or_default(),
                     period: pe[i].take().unwrap_or_default(),
                     series: se[i].take().unwrap_or_default(),
-                    scope: scope_of(sc[i].as_deref(), path, i)?,
+                    scope: text_form(sc[i].as_deref(), "scope", path, i)?,
                     key: k[i].take().unwrap_or_default(),
                     n: count(n[i]),
                     p10: p10[i].unwrap_or(f64::NAN),
@@ -334,7 +321,7 @@ impl Table for BreakRow {
                     window: w[i].take().unwrap_or_default(),
                     target: intern(t[i].as_deref().unwrap_or("")),
                     n: count(n[i]),
-                    status: BreakStatus::parse(status).ok_or_else(|| bad(path, "status", i, status))?,
+                    status: text_form(Some(status), "status", path, i)?,
                     sigma: sg[i],
                     max_ratio: mr[i],
                     crossed_at: ca[i],
@@ -573,6 +560,7 @@ impl Table for RepricingShare {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::stability::{BreakStatus, Scope};
     use crate::tables::testing::{refuses_a_missing_column, round_trip};
     use chrono::NaiveDate;
 
