@@ -312,6 +312,7 @@ pub struct CalibrationSection {
 #[serde(deny_unknown_fields)]
 pub struct QualitySection {
     pub max_spread_bp: Option<f64>,
+    pub min_spread_bp: Option<f64>,
     pub zero_rate_band: Option<[f64; 2]>,
     pub bond_price_band: Option<[f64; 2]>,
     pub stale_days: Option<usize>,
@@ -437,6 +438,39 @@ fn stability_settings(k: &StabilitySection, path: &Path) -> Result<crate::stabil
     if let Some(v) = k.move_threshold {
         s.default_move_threshold = MoveThreshold::Relative(v);
     }
+    // Series and method names are checked here, before any data is read: a typo would
+    // otherwise switch a test or a threshold off without a word.
+    let series_check = |key: &str, names: Vec<&String>| -> Result<()> {
+        match names.into_iter().find(|n| !crate::stability::settings::is_series_name(n)) {
+            Some(n) => Err(bad(
+                path,
+                key,
+                format!(
+                    "{n:?} is not a series of the review (one of {}, or hazard_node_<tenor> such as hazard_node_5Y)",
+                    crate::stability::settings::FIXED_SERIES.join(", ")
+                ),
+            )),
+            None => Ok(()),
+        }
+    };
+    if let Some(c) = &k.cusum_series {
+        series_check("stability.cusum_series", c.iter().collect())?;
+    }
+    if let Some(m) = &k.move_thresholds {
+        series_check("stability.move_thresholds", m.keys().collect())?;
+    }
+    if let Some(m) = &k.residual_flag_bp {
+        if let Some(bad_method) = m.keys().find(|k| crate::text::FitMethod::parse(k).is_none()) {
+            return Err(bad(
+                path,
+                "stability.residual_flag_bp",
+                format!(
+                    "{bad_method:?} is not a calibration method (one of {:?})",
+                    <crate::text::FitMethod as crate::text::TextForm>::texts()
+                ),
+            ));
+        }
+    }
     if let Some(m) = &k.move_thresholds {
         s.move_thresholds = m.iter().map(|(k, v)| (k.clone(), MoveThreshold::Relative(*v))).collect();
     }
@@ -485,6 +519,7 @@ fn ser_quality<S: serde::Serializer>(q: &QualitySettings, s: S) -> std::result::
     use serde::ser::SerializeMap;
     let mut m = s.serialize_map(None)?;
     m.serialize_entry("max_spread_bp", &q.max_spread_bp)?;
+    m.serialize_entry("min_spread_bp", &q.min_spread_bp)?;
     m.serialize_entry("zero_rate_band", &[q.zero_rate_band.0, q.zero_rate_band.1])?;
     m.serialize_entry("bond_price_band", &[q.bond_price_band.0, q.bond_price_band.1])?;
     m.serialize_entry("stale_days", &q.stale_days)?;
@@ -653,6 +688,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
     };
     let quality = QualitySettings {
         max_spread_bp: positive(q.max_spread_bp, "quality.max_spread_bp", d.max_spread_bp)?,
+        min_spread_bp: positive(q.min_spread_bp, "quality.min_spread_bp", d.min_spread_bp)?,
         zero_rate_band: band(q.zero_rate_band, "quality.zero_rate_band", d.zero_rate_band)?,
         bond_price_band: band(q.bond_price_band, "quality.bond_price_band", d.bond_price_band)?,
         stale_days: q.stale_days.unwrap_or(d.stale_days).max(1),
@@ -663,6 +699,16 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         unit_slip_min_run: q.unit_slip_min_run.unwrap_or(d.unit_slip_min_run).max(1),
         min_tenors: q.min_tenors.unwrap_or(d.min_tenors),
     };
+    if quality.min_spread_bp >= quality.max_spread_bp {
+        return Err(bad(
+            path,
+            "quality.min_spread_bp",
+            format!(
+                "the spread floor {} bp is not below the cap quality.max_spread_bp = {} bp",
+                quality.min_spread_bp, quality.max_spread_bp
+            ),
+        ));
+    }
 
     let r = &file.report;
     let output_root = match &r.output_root {

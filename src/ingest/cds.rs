@@ -122,6 +122,8 @@ impl CdsPanel {
 pub struct CdsRowRules {
     /// A par spread above this (bp) is implausible and rejected.
     pub max_spread_bp: f64,
+    /// A positive par spread below this (bp) is implausible and rejected.
+    pub min_spread_bp: f64,
 }
 
 /// Reads the quotes at `path`, applying the row rules.
@@ -311,6 +313,14 @@ fn parse_row(
                 row,
                 "non_positive_spread",
                 format!("column par_spread_bp: {s} bp is not positive"),
+            ))
+        }
+        (Some(s), _, _) if s < rules.min_spread_bp => {
+            return Err(reject(
+                src,
+                row,
+                "spread_below_floor",
+                format!("column par_spread_bp: {s} bp is below the plausible floor of {} bp", rules.min_spread_bp),
             ))
         }
         (Some(s), _, _) if s > rules.max_spread_bp => {

@@ -5,7 +5,7 @@
 //! quote after default). The result holds the usable rows, every reject, the non-rejecting
 //! flags, and the counts that prove rows in = rows used + rows rejected.
 
-use super::cds::{self, CdsPanel, CdsRowRules};
+use super::cds::{self, CdsPanel, CdsQuoteRow, CdsRowRules};
 use super::discount::{self, DiscountTable};
 use super::quality::{check_cds, QualityFlag, QualitySettings, FLAG_SPIKE, FLAG_STALE};
 use super::source::Reject;
@@ -203,6 +203,24 @@ fn counts<T>(table: &'static str, t: &Rows<T>) -> TableCounts {
 }
 
 /// Reads every given table and applies all data-quality rules.
+/// First and last date of the quotes a curve can be built from: usable rows dated on a day with
+/// a discount pillar of their currency (calibration rejects the others as `no_discount_curve`).
+/// A stray row far from the data, a 9999-12-31 typed for 2019-12-31, then neither names the
+/// run nor stretches its period. Without a discount table (or when no row has one), the usable
+/// rows' own first and last dates.
+fn usable_period(panel: &CdsPanel, discount: Option<&DiscountTable>) -> Option<(NaiveDate, NaiveDate)> {
+    let rows = &panel.rows;
+    let all = Some((rows.first()?.date, rows.last()?.date));
+    let Some(discount) = discount else { return all };
+    let pillars: crate::hash::FastSet<(NaiveDate, &str)> =
+        discount.rows.iter().map(|r| (r.date, r.currency.as_str())).collect();
+    let priced = |r: &&CdsQuoteRow| pillars.contains(&(r.date, panel.currencies.name(r.currency)));
+    match (rows.iter().find(priced), rows.iter().rev().find(priced)) {
+        (Some(a), Some(b)) => Some((a.date, b.date)),
+        _ => all,
+    }
+}
+
 pub fn load(paths: &InputPaths, cal: &Calendar, q: &QualitySettings) -> Result<Dataset> {
     let mut ds = Dataset::default();
 
@@ -284,12 +302,14 @@ pub fn load(paths: &InputPaths, cal: &Calendar, q: &QualitySettings) -> Result<D
         ds.bond_quotes = Some(t);
     }
     if let Some(p) = &paths.cds_quotes {
-        let mut panel = cds::read(p, cal, &CdsRowRules { max_spread_bp: q.max_spread_bp })?;
+        let mut panel =
+            cds::read(p, cal, &CdsRowRules { max_spread_bp: q.max_spread_bp, min_spread_bp: q.min_spread_bp })?;
         let by_id: Vec<Option<NaiveDate>> =
             (0..panel.entities.len() as u32).map(|i| first_default.get(panel.entities.name(i)).copied()).collect();
         let (bits, flags) = check_cds(&mut panel, &by_id, q);
         ds.cds_flags = bits;
         ds.flags.extend(flags);
+        panel.period = usable_period(&panel, ds.discount.as_ref());
         ds.cds = Some(panel);
     }
 

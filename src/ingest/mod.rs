@@ -13,6 +13,7 @@ pub mod cds;
 pub mod discount;
 pub mod files;
 pub mod load;
+pub mod parquet_check;
 pub mod quality;
 pub mod source;
 pub mod tables;

@@ -17,6 +17,11 @@ pub struct QualitySettings {
     /// Par spreads above this (bp) are rejected as implausible. Default 20,000 bp: distressed
     /// names trade on upfront well before that.
     pub max_spread_bp: f64,
+    /// Par spreads below this (bp) are rejected as implausible. Default 0.1 bp (a thousandth
+    /// of a percent), below any spread a traded contract is quoted at (common practice, no
+    /// single source): a smaller positive number is a unit or data fault, and a hazard built
+    /// on it underflows.
+    pub min_spread_bp: f64,
     /// Plausible band of zero rates (decimal). Default [-0.05, 0.30].
     pub zero_rate_band: (f64, f64),
     /// Plausible band of clean bond prices (percent of face). Default [1, 250].
@@ -46,6 +51,7 @@ impl Default for QualitySettings {
     fn default() -> Self {
         QualitySettings {
             max_spread_bp: 20_000.0,
+            min_spread_bp: 0.1,
             zero_rate_band: (-0.05, 0.30),
             bond_price_band: (1.0, 250.0),
             stale_days: 5,

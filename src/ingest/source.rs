@@ -167,6 +167,11 @@ pub struct ColumnSpec {
 
 /// The files of a table: the path itself, or every .csv / .parquet file under a folder
 /// (recursively, sorted by path so the order never depends on the file system).
+///
+/// Links inside the folder are followed once: a link that leads back to a folder already on
+/// the walk (a loop), or to a folder or file already reached by another way, stops the read
+/// with an error naming the link and where it leads, since reading it again would count the
+/// same rows twice.
 pub fn table_files(path: &Path) -> Result<Vec<PathBuf>> {
     if path.is_file() {
         return Ok(vec![path.to_path_buf()]);
@@ -174,21 +179,44 @@ pub fn table_files(path: &Path) -> Result<Vec<PathBuf>> {
     if !path.is_dir() {
         return Err(Error::NotFound { path: path.to_path_buf() });
     }
+    let folder_error = |dir: &Path, e: std::io::Error| Error::Read {
+        path: dir.to_path_buf(),
+        format: "folder",
+        message: e.to_string(),
+    };
+    let real = |p: &Path| std::fs::canonicalize(p).map_err(|e| folder_error(p, e));
+    // Where each real folder and file was first reached, to name both ways in the message.
+    let mut reached: std::collections::HashMap<PathBuf, PathBuf> = std::collections::HashMap::new();
+    reached.insert(real(path)?, path.to_path_buf());
     let mut out = Vec::new();
     let mut stack = vec![path.to_path_buf()];
     while let Some(dir) = stack.pop() {
-        let entries = std::fs::read_dir(&dir).map_err(|e| Error::Read {
-            path: dir.clone(),
-            format: "folder",
-            message: e.to_string(),
-        })?;
+        let entries = std::fs::read_dir(&dir).map_err(|e| folder_error(&dir, e))?;
         for entry in entries {
-            let entry =
-                entry.map_err(|e| Error::Read { path: dir.clone(), format: "folder", message: e.to_string() })?;
-            let p = entry.path();
-            if p.is_dir() {
+            let p = entry.map_err(|e| folder_error(&dir, e))?.path();
+            let is_dir = p.is_dir();
+            let wanted = is_dir || matches!(extension(&p).as_deref(), Some("csv") | Some("parquet"));
+            if !wanted {
+                continue;
+            }
+            let target = real(&p)?;
+            if let Some(first) = reached.get(&target) {
+                return Err(Error::Read {
+                    path: p.clone(),
+                    format: "folder",
+                    message: format!(
+                        "this link leads to {}, which the read of {} already reached as {}; a link \
+                         may lead into the input folder only once (remove it or the loop)",
+                        target.display(),
+                        path.display(),
+                        first.display()
+                    ),
+                });
+            }
+            reached.insert(target, p.clone());
+            if is_dir {
                 stack.push(p);
-            } else if matches!(extension(&p).as_deref(), Some("csv") | Some("parquet")) {
+            } else {
                 out.push(p);
             }
         }
@@ -232,6 +260,86 @@ fn guarded<T>(path: &Path, format: &'static str, read: impl FnOnce() -> PolarsRe
     }
 }
 
+/// Where a CSV file the reader refused goes wrong, found by a scan of its bytes that follows the
+/// quoting rules (RFC 4180: a field that starts with `"` runs to the next lone `"`; `""` inside
+/// is one quote): the line and field of a quote that is never closed, or the first record with
+/// more fields than the header (a record with fewer is read, its missing cells rejected row by
+/// row). `None` when the scan finds neither, and the reader's own message stands.
+fn csv_fault(bytes: &[u8]) -> Option<String> {
+    let mut header: Vec<String> = Vec::new();
+    let mut field = Vec::new();
+    let (mut line, mut record_line, mut fields) = (1usize, 1usize, 0usize);
+    let (mut in_quotes, mut at_field_start, mut blank) = (false, true, true);
+    let mut quote_at = (0usize, 0usize);
+    let name = |header: &[String], k: usize| header.get(k - 1).map(|n| format!(" (`{n}`)")).unwrap_or_default();
+    let mut i = 0;
+    while i <= bytes.len() {
+        let b = bytes.get(i).copied();
+        i += 1;
+        if in_quotes {
+            match b {
+                Some(b'"') if bytes.get(i) == Some(&b'"') => i += 1,
+                Some(b'"') => in_quotes = false,
+                Some(b'\n') => line += 1,
+                Some(c) if record_line == 1 => field.push(c),
+                Some(_) => {}
+                None => {
+                    let (l, k) = quote_at;
+                    return Some(format!(
+                        "line {l}, field {k}{}: a quote opens here and is never closed",
+                        name(&header, k)
+                    ));
+                }
+            }
+            continue;
+        }
+        match b {
+            Some(b'"') if at_field_start => {
+                in_quotes = true;
+                quote_at = (line, fields + 1);
+                at_field_start = false;
+                blank = false;
+            }
+            Some(b',') => {
+                if record_line == 1 {
+                    header.push(String::from_utf8_lossy(&field).trim().to_string());
+                    field.clear();
+                }
+                fields += 1;
+                at_field_start = true;
+                blank = false;
+            }
+            Some(b'\n') | None => {
+                if record_line == 1 {
+                    header.push(String::from_utf8_lossy(&field).trim().to_string());
+                }
+                if !blank && record_line > 1 && fields + 1 > header.len() {
+                    return Some(format!(
+                        "line {record_line}: {} fields where the header has {}; the extra ones start at field {}",
+                        fields + 1,
+                        header.len(),
+                        header.len() + 1
+                    ));
+                }
+                // The end of the file: nothing found.
+                b?;
+                line += 1;
+                (record_line, fields, at_field_start, blank) = (line, 0, true, true);
+                field.clear();
+            }
+            Some(b'\r') => {}
+            Some(c) => {
+                if record_line == 1 {
+                    field.push(c);
+                }
+                at_field_start = false;
+                blank = false;
+            }
+        }
+    }
+    None
+}
+
 /// The longest part of a reader's message shown.
 const MESSAGE_CHARS: usize = 240;
 
@@ -254,9 +362,10 @@ fn scan(path: &Path) -> Result<(LazyFrame, &'static str)> {
             // The file's footer is read here first, on this thread, where a reader that stops on a
             // damaged footer can be caught; the scan reads it again on the reader's own threads,
             // where such a stop would end the process.
-            guarded(path, "Parquet", || {
-                let file = std::fs::File::open(path).map_err(PolarsError::from)?;
-                ParquetReader::new(file).num_rows()
+            super::parquet_check::check_parquet(path).map_err(|message| Error::Read {
+                path: path.to_path_buf(),
+                format: "Parquet",
+                message,
             })?;
             guarded(path, "Parquet", || LazyFrame::scan_parquet(PlRefPath::new(shown.as_str()), args))
                 .map(|lf| (lf, "Parquet"))
@@ -391,6 +500,15 @@ pub fn read_table_batches(
                 } else {
                     projected.clone().slice(offset as i64, batch as IdxSize).collect()
                 }
+            })
+            .map_err(|e| match e {
+                // The reader's message on a malformed CSV file names no line; a scan of the
+                // file finds it (read again only on this error path).
+                Error::Read { path, format: "CSV", message } => {
+                    let located = std::fs::read(&path).ok().and_then(|b| csv_fault(&b));
+                    Error::Read { path, format: "CSV", message: located.unwrap_or(message) }
+                }
+                other => other,
             })?;
             let height = frame.height();
             if height == 0 && offset > 0 {
@@ -421,4 +539,29 @@ pub fn read_table_batches(
         tracing::info!(table, columns = %info.ignored_columns.join(", "), "extra columns ignored");
     }
     Ok(info)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::csv_fault;
+
+    #[test]
+    fn csv_faults_are_located_by_line_and_field() {
+        let head = "date,entity,tenor\n";
+        // Clean files, short rows (read, their empty cells rejected later), blank lines, quoted
+        // fields with commas, escaped quotes and line breaks: nothing to report.
+        for ok in ["", "2024-01-02,A,5Y\n", "2024-01-02,A\n\n", "2024-01-02,\"A, \"\"B\"\"\nC\",5Y\r\n"] {
+            assert_eq!(csv_fault(format!("{head}{ok}").as_bytes()), None, "{ok:?}");
+        }
+        let too_many = format!("{head}2024-01-02,A,5Y\n2024-01-03,\"A,\nB\",5Y\n2024-01-04,A,5Y,9,9");
+        assert_eq!(
+            csv_fault(too_many.as_bytes()).as_deref(),
+            Some("line 5: 5 fields where the header has 3; the extra ones start at field 4")
+        );
+        let open = format!("{head}2024-01-02,A,5Y\n2024-01-02,\"A,5Y\n2024-01-03,A,5Y\n");
+        assert_eq!(
+            csv_fault(open.as_bytes()).as_deref(),
+            Some("line 3, field 2 (`entity`): a quote opens here and is never closed")
+        );
+    }
 }

@@ -568,7 +568,8 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         "- Recovery: {} unless the quote carries one or its seniority is listed (by seniority: {by_sen}).",
         pct(s.recovery)
     );
-    let _ = writeln!(w, "- Data-quality thresholds in force: spread cap {} bp; zero-rate band {}; bond price band {}; stale after {} unchanged business days; spike when the robust z-score (median and 1.4826 x MAD of the series' daily log changes) exceeds {} with a log move above {} reverting by at least {} the next day; unit slip when {} or more consecutive quotes sit {} times above or below the series median; fewer than {} tenors flags a curve (common practice, no single source).",
+    let _ = writeln!(w, "- Data-quality thresholds in force: spread floor {} bp and cap {} bp; zero-rate band {}; bond price band {}; stale after {} unchanged business days; spike when the robust z-score (median and 1.4826 x MAD of the series' daily log changes) exceeds {} with a log move above {} reverting by at least {} the next day; unit slip when {} or more consecutive quotes sit {} times above or below the series median; fewer than {} tenors flags a curve (common practice, no single source).",
+        q.min_spread_bp.as_ref().map_or_else(|| "(not recorded)".to_string(), |v| v.to_string()),
         q.max_spread_bp,
         band(&q.zero_rate_band),
         band(&q.bond_price_band),

@@ -4,7 +4,7 @@
 //! order, and runs the pooled half of the pipeline into the run folder: the same files a
 //! single run writes.
 
-use super::part_folder::{merge_part_rows, read_meta, read_partition, verify_part};
+use super::part_folder::{merge_part_rows, read_meta, read_partition, verify_part, CurveTally};
 use super::partition::{Partition, RowSinks};
 use super::*;
 use crate::parts::check_tiling;
@@ -23,6 +23,15 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let t = Instant::now();
     let dir = shards_dir(cfg, opts, &label)?;
     let (dirs, parts) = read_parts(&dir, &cfg.pipeline_path, &input_records(cfg, &ds.counts)?)?;
+    let recorded: Vec<CurveTally> = parts
+        .iter()
+        .map(|p| CurveTally {
+            curves: p.curves,
+            curves_complete: p.curves_complete,
+            max_abs_residual_bp: p.max_abs_residual_bp,
+            curve_entities: p.curve_entities.iter().cloned().collect(),
+        })
+        .collect();
     let mut cal = combine(parts)?;
     let (rss, peak) = memory_mib();
     timings.push(("read parts".into(), t.elapsed().as_secs_f64(), rss, peak));
@@ -38,7 +47,7 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
         split_tables(cfg, &ds),
     )?;
     let t = Instant::now();
-    (cal.hazard, cal.residuals) = merge_part_rows(&dirs, &mut sinks)?;
+    (cal.hazard, cal.residuals) = merge_part_rows(&dirs, &recorded, &mut sinks)?;
     let (rss, peak) = memory_mib();
     timings.push(("merge curves".into(), t.elapsed().as_secs_f64(), rss, peak));
     finish(cfg, ds, ingest_counts, cal, sinks, &multi, folder, &meta, timings, t0)

@@ -12,7 +12,7 @@ use crate::parts::{DateRange, Shard};
 use crate::tables::manifest::{hash_file, InputRecord};
 use crate::tables::parts::{EdgeRow, MemberRecord};
 use crate::tables::{self, file_of, readback, HazardCurveRow, ResidualRow};
-use crate::text::{CurveSource, FitMethod};
+use crate::text::{CurveSource, FitMethod, RowStatus};
 use chrono::NaiveDate;
 use std::path::{Path, PathBuf};
 
@@ -236,7 +236,17 @@ fn parse_date(path: &Path, s: &str) -> Result<NaiveDate> {
 /// CDS rows, which every part holds first and in the tables' order, by a k-way merge on (date,
 /// entity, currency) that keeps a curve's rows together, read a slice at a time; the rows
 /// after them (the bond and CIR fits') are returned, for [`RowSinks::finish`] to sort in.
-pub fn merge_part_rows(dirs: &[PathBuf], sinks: &mut RowSinks) -> Result<(Vec<HazardCurveRow>, Vec<ResidualRow>)> {
+///
+/// Each part's CDS node and residual rows are tallied on the way ([`CurveTally`]) and the
+/// tally checked against the counts its `partition.json` records: a count edited there, or
+/// one that does not belong to the tables beside it, stops the merge naming the part.
+pub fn merge_part_rows(
+    dirs: &[PathBuf],
+    recorded: &[CurveTally],
+    sinks: &mut RowSinks,
+) -> Result<(Vec<HazardCurveRow>, Vec<ResidualRow>)> {
+    let mut tallies: Vec<CurveTally> = dirs.iter().map(|_| CurveTally::default()).collect();
+    let mut open: Vec<Option<((NaiveDate, tables::Label, tables::Label), bool)>> = vec![None; dirs.len()];
     let cursors = dirs
         .iter()
         .map(|d| readback::cursor::<HazardCurveRow>(&file_of::<HazardCurveRow>(d)))
@@ -245,17 +255,91 @@ pub fn merge_part_rows(dirs: &[PathBuf], sinks: &mut RowSinks) -> Result<(Vec<Ha
         cursors,
         |r| r.source == CurveSource::Cds,
         |r| (r.date, r.entity.clone(), r.currency.clone()),
+        |i, r| {
+            let key = (r.date, r.entity.clone(), r.currency.clone());
+            let ok = r.status == RowStatus::Ok;
+            match &mut open[i] {
+                Some((k, all_ok)) if *k == key => *all_ok &= ok,
+                slot => {
+                    if let Some((_, true)) = slot {
+                        tallies[i].curves_complete += 1;
+                    }
+                    tallies[i].curves += 1;
+                    tallies[i].curve_entities.insert(r.entity.to_string());
+                    *slot = Some((key, ok));
+                }
+            }
+        },
         |rows| sinks.nodes(rows),
     )?;
+    for (t, o) in tallies.iter_mut().zip(open) {
+        if let Some((_, true)) = o {
+            t.curves_complete += 1;
+        }
+    }
     let cursors =
         dirs.iter().map(|d| readback::cursor::<ResidualRow>(&file_of::<ResidualRow>(d))).collect::<Result<Vec<_>>>()?;
     let residuals = merge_sorted(
         cursors,
         |r| r.method == FitMethod::Bootstrap,
         |r| (r.date, r.entity.clone(), r.currency.clone()),
+        |i, r| {
+            if r.status == RowStatus::Ok {
+                tallies[i].max_abs_residual_bp = tallies[i].max_abs_residual_bp.max(r.residual_bp.abs());
+            }
+        },
         |rows| sinks.residual_rows(rows),
     )?;
+    for ((dir, found), said) in dirs.iter().zip(&tallies).zip(recorded) {
+        if let Some(what) = found.differs_from(said) {
+            return Err(Error::Parts(format!(
+                "{}: partition.json does not match the part's own tables: {what}; rerun this part",
+                dir.display()
+            )));
+        }
+    }
     Ok((hazard, residuals))
+}
+
+/// What a part's CDS node and residual rows say about its curves, or what its
+/// `partition.json` records: the curves (one per date, entity and currency), those with every
+/// node `ok`, the largest |residual| on `ok` repriced quotes, and the entities with a curve.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct CurveTally {
+    pub curves: usize,
+    pub curves_complete: usize,
+    pub max_abs_residual_bp: f64,
+    pub curve_entities: std::collections::BTreeSet<String>,
+}
+
+impl CurveTally {
+    /// The first way the tables' tally `self` differs from the recorded one, in words.
+    fn differs_from(&self, recorded: &CurveTally) -> Option<String> {
+        if self.curves != recorded.curves {
+            return Some(format!("it records {} curves, the node table holds {}", recorded.curves, self.curves));
+        }
+        if self.curves_complete != recorded.curves_complete {
+            return Some(format!(
+                "it records {} complete curves, the node table holds {}",
+                recorded.curves_complete, self.curves_complete
+            ));
+        }
+        // partition.json's number went through a decimal text and back (to within an ulp or two).
+        let (a, b) = (self.max_abs_residual_bp, recorded.max_abs_residual_bp);
+        if !((a - b).abs() <= 1e-12 * a.abs().max(b.abs())) {
+            return Some(format!(
+                "it records a largest |residual| of {} bp, the residual table's is {} bp",
+                recorded.max_abs_residual_bp, self.max_abs_residual_bp
+            ));
+        }
+        // Recorded are the entities with a usable curve; the node table also holds curves
+        // that failed, so it may name more.
+        let odd: Vec<&String> = recorded.curve_entities.difference(&self.curve_entities).collect();
+        if !odd.is_empty() {
+            return Some(format!("it records curves of {odd:?}, which the node table does not hold"));
+        }
+        None
+    }
 }
 
 /// Rows handed on at a time by [`merge_sorted`].
@@ -264,10 +348,12 @@ const MERGED_ROWS: usize = 1 << 16;
 /// Merges the leading rows (`leads`) of sorted cursors by `key` into `emit`, a run of equal
 /// keys at a time (ties go to the earlier cursor, as a stable sort of the concatenation would
 /// have it); returns every row after the leading ones, cursor by cursor.
+/// `seen` is shown every leading row with the index of its cursor.
 fn merge_sorted<T, K: Ord>(
     mut cursors: Vec<readback::RowCursor<T>>,
     leads: impl Fn(&T) -> bool,
     key: impl Fn(&T) -> K,
+    mut seen: impl FnMut(usize, &T),
     mut emit: impl FnMut(Vec<T>) -> Result<()>,
 ) -> Result<Vec<T>> {
     let mut out = Vec::with_capacity(MERGED_ROWS);
@@ -283,7 +369,10 @@ fn merge_sorted<T, K: Ord>(
         }
         let Some((i, k)) = best else { break };
         while cursors[i].peek()?.is_some_and(|r| leads(r) && key(r) == k) {
-            out.extend(cursors[i].next_row()?);
+            if let Some(r) = cursors[i].next_row()? {
+                seen(i, &r);
+                out.push(r);
+            }
         }
         if out.len() >= MERGED_ROWS {
             emit(std::mem::replace(&mut out, Vec::with_capacity(MERGED_ROWS)))?;
@@ -374,15 +463,21 @@ mod tests {
         let names = [["Ash", "Fir"], ["Beech", "Oak"], ["Cedar", "Yew"]];
         let mut all = Vec::new();
         let mut dirs = Vec::new();
+        let mut recorded = Vec::new();
         for (k, pair) in names.iter().enumerate() {
             let mut rows = Vec::new();
+            let mut tally = CurveTally::default();
             for day in [2, 3, 6, 7] {
                 for e in pair {
                     if (day + k as u32) % 5 != 0 {
                         rows.extend(["1Y", "5Y", "10Y"].iter().map(|t| node(day, e, CurveSource::Cds, t)));
+                        tally.curves += 1;
+                        tally.curves_complete += 1;
+                        tally.curve_entities.insert(e.to_string());
                     }
                 }
             }
+            recorded.push(tally);
             rows.push(node(3, pair[1], CurveSource::Bond, "bond"));
             rows.push(node(2, pair[0], CurveSource::Bond, "bond"));
             rows.sort_by_key(|r| r.source != CurveSource::Cds);
@@ -394,9 +489,15 @@ mod tests {
             all.extend(rows);
             dirs.push(d);
         }
+        // A count that does not match the part's rows stops the merge, naming the part.
+        let mut wrong = recorded.clone();
+        wrong[1].curves_complete -= 1;
+        let mut sinks = RowSinks::create(&dir.path().join("wrong"), &[], None, None, false).unwrap();
+        let e = merge_part_rows(&dirs, &wrong, &mut sinks).unwrap_err().to_string();
+        assert!(e.contains("part-1") && e.contains("complete curves"), "{e}");
         let out = dir.path().join("out");
         let mut sinks = RowSinks::create(&out, &[], None, None, false).unwrap();
-        let (rest, residuals) = merge_part_rows(&dirs, &mut sinks).unwrap();
+        let (rest, residuals) = merge_part_rows(&dirs, &recorded, &mut sinks).unwrap();
         assert_eq!((rest.len(), residuals.len()), (6, 0));
         sinks.finish(rest, residuals).unwrap();
         sort_hazard(&mut all);

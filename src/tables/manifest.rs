@@ -97,6 +97,9 @@ impl RecordedSettings {
 #[derive(Debug, Clone, Deserialize)]
 pub struct RecordedQuality {
     pub max_spread_bp: Number,
+    /// Absent in runs written before the floor existed.
+    #[serde(default)]
+    pub min_spread_bp: Option<Number>,
     pub zero_rate_band: [Number; 2],
     pub bond_price_band: [Number; 2],
     pub stale_days: Number,

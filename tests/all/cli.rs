@@ -223,6 +223,16 @@ fn a_repeated_header_column_and_a_broken_file_are_named_briefly() {
     let broken = write(dir.path(), "broken.csv", &big);
     let e = check(&broken);
     assert!(e.contains("broken.csv") && e.len() < 1_000, "{} bytes: {}", e.len(), &e[..e.len().min(400)]);
+    assert!(e.contains("line 2, field 2 (`entity`): a quote opens here and is never closed"), "{e}");
+    // A ragged row: the line and the fields, not the reader's option names.
+    let ragged = write(
+        dir.path(),
+        "ragged.csv",
+        "date,entity,currency,tenor,par_spread_bp\n2024-03-21,ALPHA,USD,5Y,100\n2024-03-21,BRAVO,USD,5Y,100,7\n",
+    );
+    let e = check(&ragged);
+    assert!(e.contains("ragged.csv") && e.contains("line 3: 6 fields where the header has 5"), "{e}");
+    assert!(!e.contains("Schema") && !e.contains("truncate_ragged_lines"), "{e}");
 }
 
 #[test]

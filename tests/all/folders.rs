@@ -202,3 +202,46 @@ fn names_from_the_data_are_escaped_in_the_report() {
     assert!(report.contains("Corvane\\|Logistics &lt;b&gt;\\[x\\](y)"), "the name is shown, escaped");
     assert!(!report.contains("<b>") && !report.contains("Corvane|Logistics"), "no raw tag or cell break");
 }
+
+/// Series and method names in the stability settings are checked before any data is read
+/// (before: a typo in `cusum_series` switched the test off without a word).
+#[test]
+fn a_series_or_method_named_in_a_setting_must_exist() {
+    let dir = tempfile::tempdir().unwrap();
+    for (section, key) in [
+        ("cusum_series = [\"cir_kappa\", \"cir_kapa\"]", "stability.cusum_series"),
+        ("move_thresholds = { hazard_node_5X = 0.2 }", "stability.move_thresholds"),
+        ("residual_flag_bp = { cri = 5.0 }", "stability.residual_flag_bp"),
+    ] {
+        let pipeline = sample(dir.path(), |t| format!("{t}\n[stability]\n{section}\n"));
+        let e = stderr(&run(&pipeline, &["--out", dir.path().join("out").to_str().unwrap()]).code(2));
+        assert!(e.contains(&format!("key `{key}`")) && e.contains("is not a"), "{e}");
+        assert!(!dir.path().join("out").exists(), "refused before anything is written");
+    }
+    // The names that exist pass.
+    let pipeline = sample(dir.path(), |t| {
+        format!("{t}\n[stability]\ncusum_series = [\"cir_kappa\", \"hazard_node_5Y\", \"pd_1y\"]\nmove_thresholds = {{ hazard_5y = 0.2 }}\nresidual_flag_bp = {{ cir = 5.0 }}\n")
+    });
+    run(&pipeline, &["--out", dir.path().join("out").to_str().unwrap()]).success();
+}
+
+/// One stray row dated 9999-12-31 (a typo for 2019-12-31) has no discount curve: it is rejected
+/// at calibration and names neither the run folder nor its period (before: `asof-9999-12-31`).
+#[test]
+fn a_stray_far_future_row_does_not_name_the_run() {
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = sample(dir.path(), |t| t.replace("label = \"fixture\"", ""));
+    let quotes = dir.path().join("sample/cds_quotes.csv");
+    let mut text = std::fs::read_to_string(&quotes).unwrap();
+    text += "9999-12-31,Corvane Logistics,USD,5Y,80,,,\n";
+    std::fs::write(&quotes, text).unwrap();
+    let out = dir.path().join("out");
+    run(&pipeline, &["--out", out.to_str().unwrap()]).success();
+    let runs: Vec<String> = std::fs::read_dir(out.join("sample"))
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    assert_eq!(runs, ["asof-2024-04-12"]);
+    let manifest = std::fs::read_to_string(out.join("sample/asof-2024-04-12/manifest.json")).unwrap();
+    assert!(manifest.contains("\"2024-04-12\"") && !manifest.contains("9999"), "{manifest}");
+}

@@ -93,7 +93,9 @@ fn row_rules_reject_with_their_codes() {
 2024-01-02,A,USD,2Y,,,,\n\
 2024-01-02,A,USD,3Y,,,1.4,500\n\
 2024-01-02,A,USD,3Y,,,0.1,-5\n\
-2024-01-02,A,USD,1Y,120,,,\n"
+2024-01-02,A,USD,1Y,120,,,\n\
+2024-01-03,A,USD,1Y,1e-320,,,\n\
+2024-01-03,A,USD,5Y,0.05,,,\n"
     );
     let ds = check(&[("cds_quotes", &text)]);
     assert_eq!(
@@ -112,6 +114,10 @@ fn row_rules_reject_with_their_codes() {
             ("cds_quotes", 12, "missing_value"),
             ("cds_quotes", 13, "implausible_upfront"),
             ("cds_quotes", 14, "negative_coupon"),
+            // A positive spread far below any quoted one (before: 1e-320 passed the row rules
+            // and failed the curve); the floor is 0.1 bp by default.
+            ("cds_quotes", 16, "spread_below_floor"),
+            ("cds_quotes", 17, "spread_below_floor"),
         ]
     );
     let r = ds.rejects.iter().find(|r| r.row == 2).unwrap();
@@ -469,4 +475,105 @@ proptest! {
         std::fs::write(&p, &bytes).unwrap();
         loads_or_names_the_file(p, "x.parquet")?;
     }
+}
+
+/// A link inside an input folder is followed once: a loop back up the folder, or a second way
+/// to a file already read, stops the load naming the link (before: the loop read one file 41
+/// times, and two loops never finished).
+#[cfg(unix)]
+#[test]
+fn links_inside_an_input_folder_are_followed_once() {
+    let dir = tempfile::tempdir().unwrap();
+    let root = dir.path().join("quotes");
+    write(&root, "a/q.csv", &format!("{CDS_HEAD}{}", clean_series("A", 3)));
+    let paths = InputPaths { cds_quotes: Some(root.clone()), ..Default::default() };
+    let load_it = || load(&paths, &Calendar::weekends_only(), &QualitySettings::default());
+    assert_eq!(load_it().unwrap().counts[0].rows_in, 9);
+
+    // A link to a folder outside the input folder is read like a folder of its own.
+    let outside = dir.path().join("more");
+    write(&outside, "q2.csv", &format!("{CDS_HEAD}{}", clean_series("B", 3)));
+    std::os::unix::fs::symlink(&outside, root.join("more")).unwrap();
+    assert_eq!(load_it().unwrap().counts[0].rows_in, 18);
+
+    // A loop: a link back to the input folder itself.
+    std::os::unix::fs::symlink(&root, root.join("a/again")).unwrap();
+    let e = load_it().unwrap_err().to_string();
+    assert!(e.contains("again") && e.contains("already reached"), "{e}");
+    std::fs::remove_file(root.join("a/again")).unwrap();
+
+    // A second way to a file already read.
+    std::os::unix::fs::symlink(root.join("a/q.csv"), root.join("copy.csv")).unwrap();
+    let e = load_it().unwrap_err().to_string();
+    assert!(e.contains("copy.csv") || e.contains("q.csv"), "{e}");
+    assert!(e.contains("already reached"), "{e}");
+}
+
+/// Damaged Parquet files that used to end the process inside the table reader (an abort on a
+/// 2^61-byte memory request, an out-of-bounds slice on a worker thread), kept as regression
+/// cases (tests/fixtures/damaged/make_damaged.py says how each was made): each is now
+/// refused with an error naming the file, the row group, the column and what is wrong.
+#[test]
+fn damaged_parquet_files_that_ended_the_process_are_refused_naming_the_column() {
+    let dir = crate::support::repo().join("tests/fixtures/damaged");
+    let load_one = |name: &str| {
+        let paths = InputPaths { cds_quotes: Some(dir.join(name)), ..Default::default() };
+        load(&paths, &Calendar::weekends_only(), &QualitySettings::default())
+    };
+    assert_eq!(load_one("undamaged.parquet").unwrap().counts[0].rows_in, 3);
+    for (name, column, what) in [
+        ("levels-run-too-long.parquet", "date", "values"),
+        ("levels-run-too-long-float.parquet", "par_spread_bp", "values"),
+        ("chunk-end-past-file.parquet", "date", "outside the 1499-byte file"),
+        ("chunk-start-past-file.parquet", "entity", "outside the 1499-byte file"),
+        ("chunk-start-negative.parquet", "entity", "outside the 1499-byte file"),
+    ] {
+        let e = load_one(name).unwrap_err().to_string();
+        assert!(e.contains(name) && e.contains(&format!("column `{column}`")) && e.contains(what), "{e}");
+    }
+}
+
+/// Every byte of a Parquet quote file written by this tool, changed in turn to 0x00, to 0xFF
+/// and to itself XOR 1 (a deterministic sweep, run in CI): each load either works with rows and
+/// rejects that add up, or stops with an error naming the file. A crash here ends the test
+/// binary, which fails CI.
+#[test]
+fn every_single_byte_change_of_a_parquet_file_is_caught_or_read() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = hazardline::time::parse_iso_date("2024-03-21").unwrap();
+    let mut df = hazardline::tables::parquet::TableBuilder::new()
+        .dates("date", vec![Some(d); 3])
+        .strings("entity", vec![Some("ALPHA"), Some("BRAVO"), None])
+        .strings("currency", vec![Some("USD"); 3])
+        .strings("tenor", vec![Some("1Y"), Some("5Y"), Some("10Y")])
+        .floats("par_spread_bp", vec![Some(50.0), Some(90.0), Some(f64::NAN)])
+        .finish()
+        .unwrap();
+    let p = dir.path().join("x.parquet");
+    hazardline::tables::parquet::write_parquet(&mut df, &p, &[]).unwrap();
+    let base = std::fs::read(&p).unwrap();
+    let (mut read, mut refused) = (0, 0);
+    for at in 0..base.len() {
+        for change in [0x00u8, 0xFF, base[at] ^ 1] {
+            if change == base[at] {
+                continue;
+            }
+            let mut bytes = base.clone();
+            bytes[at] = change;
+            std::fs::write(&p, &bytes).unwrap();
+            let paths = InputPaths { cds_quotes: Some(p.clone()), ..Default::default() };
+            match load(&paths, &Calendar::weekends_only(), &QualitySettings::default()) {
+                Ok(ds) => {
+                    read += 1;
+                    assert!(ds.counts.iter().all(|c| c.rows_in == c.used + c.rejected), "byte {at} -> {change}");
+                }
+                Err(e) => {
+                    refused += 1;
+                    assert!(e.to_string().contains("x.parquet"), "byte {at} -> {change}: {e}");
+                }
+            }
+        }
+    }
+    assert!(read > 0 && refused > 0, "{read} read, {refused} refused");
+    eprintln!("{} bytes: {read} changed files read, {refused} refused", base.len());
 }

@@ -367,6 +367,26 @@ fn merge_refuses_parts_that_were_tampered_with_or_made_from_other_inputs() {
     }
     std::fs::write(&json, &meta).unwrap();
 
+    // A count edited in partition.json (before: printed as it was): checked against the
+    // part's own node and residual tables as they are merged.
+    let curves: usize = {
+        let at = meta.find("\"curves\": ").unwrap() + "\"curves\": ".len();
+        meta[at..].split(|c: char| !c.is_ascii_digit()).next().unwrap().parse().unwrap()
+    };
+    for (from, to, what) in [
+        (format!("\"curves\": {curves},"), format!("\"curves\": {},", curves + 1), "curves, the node table holds"),
+        ("\"curves_complete\": ".to_string(), "\"curves_complete\": 1".to_string(), "complete curves"),
+        ("\"max_abs_residual_bp\": ".to_string(), "\"max_abs_residual_bp\": 1".to_string(), "largest |residual|"),
+    ] {
+        let edited = meta.replacen(&from, &to, 1);
+        assert_ne!(edited, meta, "{from}");
+        std::fs::write(&json, &edited).unwrap();
+        let e = merge();
+        assert!(e.contains("part-0002-of-0002") && e.contains("does not match the part's own tables"), "{e}");
+        assert!(e.contains(what), "{e}");
+    }
+    std::fs::write(&json, &meta).unwrap();
+
     // Inputs changed after the shards ran: the changed file is named.
     let quotes = dir.path().join("data/entities.csv");
     let before = keep(&quotes);

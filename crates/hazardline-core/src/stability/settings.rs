@@ -146,6 +146,18 @@ impl Default for StabilitySettings {
     }
 }
 
+/// The names of the series the review builds whatever the data (see the design notes), beside
+/// `hazard_node_<tenor>` for each tenor quoted ([`is_series_name`]).
+pub const FIXED_SERIES: [&str; 6] = ["pd_1y", "hazard_5y", "cir_kappa", "cir_theta", "cir_sigma", "cir_lambda0"];
+
+/// Whether `name` can name a series: one of [`FIXED_SERIES`] or `hazard_node_<tenor>` with a
+/// tenor that parses (`hazard_node_5Y`). Settings that list series are checked with it, so a
+/// typo stops the run instead of silently switching a test off.
+pub fn is_series_name(name: &str) -> bool {
+    FIXED_SERIES.contains(&name)
+        || name.strip_prefix("hazard_node_").is_some_and(|t| t.parse::<crate::time::Tenor>().is_ok())
+}
+
 impl StabilitySettings {
     /// The large-move threshold of `series`.
     pub fn move_threshold(&self, series: &str) -> MoveThreshold {
@@ -259,6 +271,16 @@ impl StabilitySettings {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn series_names_are_the_fixed_ones_or_a_node_with_a_tenor() {
+        for ok in ["pd_1y", "hazard_5y", "cir_kappa", "cir_lambda0", "hazard_node_5Y", "hazard_node_6M"] {
+            assert!(is_series_name(ok), "{ok}");
+        }
+        for bad in ["cir_kapa", "pd_1Y", "hazard_node_", "hazard_node_5X", "hazard_5Y", ""] {
+            assert!(!is_series_name(bad), "{bad}");
+        }
+    }
 
     #[test]
     fn defaults_check_and_print() {
