@@ -271,7 +271,13 @@ fn csv_fault(bytes: &[u8]) -> Option<String> {
     let (mut line, mut record_line, mut fields) = (1usize, 1usize, 0usize);
     let (mut in_quotes, mut at_field_start, mut blank) = (false, true, true);
     let mut quote_at = (0usize, 0usize);
-    let name = |header: &[String], k: usize| header.get(k - 1).map(|n| format!(" (`{n}`)")).unwrap_or_default();
+    // A header name is shown short and escaped: it comes from the file.
+    let name = |header: &[String], k: usize| {
+        header
+            .get(k - 1)
+            .map(|n| format!(" (`{}`)", n.chars().take(60).collect::<String>().escape_debug()))
+            .unwrap_or_default()
+    };
     let mut i = 0;
     while i <= bytes.len() {
         let b = bytes.get(i).copied();

@@ -197,7 +197,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     let w = &mut md;
     let _ = writeln!(w, "# Validation review: {} ({})\n", m.name, m.label);
     let _ = writeln!(w, "> **Caution.** {CAUTION}\n");
-    let _ = writeln!(w, "Produced by hazardline {} from pipeline file `{}` (SHA-256 `{}`). Inputs and their hashes are listed in `manifest.json`.\n", m.version, m.pipeline.path, &m.pipeline.sha256[..16]);
+    let _ = writeln!(w, "Produced by hazardline {} from pipeline file `{}` (SHA-256 `{}`). Inputs and their hashes are listed in `manifest.json`.\n", m.version, m.pipeline.path, m.pipeline.sha256.get(..16).unwrap_or(&m.pipeline.sha256));
 
     // 1. Summary
     let _ = writeln!(w, "## 1. Summary\n");

@@ -577,3 +577,16 @@ fn every_single_byte_change_of_a_parquet_file_is_caught_or_read() {
     assert!(read > 0 && refused > 0, "{read} read, {refused} refused");
     eprintln!("{} bytes: {read} changed files read, {refused} refused", base.len());
 }
+
+/// A tenor of one two-byte character (`ʲ`) is an unknown tenor, and so is a pipeline setting
+/// naming `hazard_node_ʲ` (before: the tenor parser split the text inside the character and
+/// panicked; found by the coverage-guided fuzz harness, fuzz/).
+#[test]
+fn a_non_ascii_tenor_is_rejected_not_a_panic() {
+    let text = format!(
+        "{CDS_HEAD}2024-01-02,A,USD,\u{2b2},100,,,\n2024-01-02,A,USD,5\u{2b2},100,,,\n2024-01-02,A,USD,5Y,100,,,\n"
+    );
+    let ds = check(&[("cds_quotes", &text)]);
+    assert_eq!(rejected(&ds), vec![("cds_quotes", 1, "unknown_tenor"), ("cds_quotes", 2, "unknown_tenor")]);
+    assert!(!hazardline::stability::settings::is_series_name("hazard_node_\u{2b2}"));
+}

@@ -41,7 +41,9 @@ impl FromStr for Tenor {
     fn from_str(s: &str) -> Result<Tenor, TenorError> {
         let err = || TenorError { text: s.to_string() };
         let t = s.trim();
-        if t.len() < 2 {
+        // ASCII only, so the split below falls on a character boundary (a two-byte character
+        // such as `ʲ` used to panic here; found by the readers' fuzz harness).
+        if t.len() < 2 || !t.is_ascii() {
             return Err(err());
         }
         let (num, unit) = t.split_at(t.len() - 1);
@@ -91,7 +93,7 @@ mod tests {
 
     #[test]
     fn rejects_nonsense() {
-        for text in ["", "Y", "5", "5D", "-1Y", "0M", "1.5Y", "99999999999Y", "51Y"] {
+        for text in ["", "Y", "5", "5D", "-1Y", "0M", "1.5Y", "99999999999Y", "51Y", "\u{2b2}", "5\u{2b2}", "\u{e9}Y"] {
             assert!(text.parse::<Tenor>().is_err(), "{text}");
         }
     }
