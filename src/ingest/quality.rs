@@ -131,6 +131,10 @@ fn series_key(r: &CdsQuoteRow) -> u128 {
         | r.row as u128
 }
 
+/// Quotes on each side of a quote whose median the unit-slip rule compares it with (a run of
+/// slipped quotes shorter than this leaves the median of the 2 x 10 + 1 quotes untouched).
+const NEIGHBOURS: usize = 10;
+
 fn median(v: &mut [f64]) -> f64 {
     let n = v.len();
     let mid = n / 2;
@@ -346,11 +350,34 @@ fn series_rules(
         let r = &rows[k];
         (panel.entities.name(r.entity).to_string(), format!("{} {}", panel.currencies.name(r.currency), r.tenor))
     };
-    // Unit slips against the series median.
+    // Unit slips against the series median, and against the quote's neighbours: a name whose
+    // spreads moved a long way over the years can have a slip that is within the ratio of the
+    // whole series' median but far outside it against the days around it.
     scratch.clear();
     scratch.extend_from_slice(values);
     let med = median(scratch);
-    let off: Vec<bool> = values.iter().map(|&v| v >= med * s.unit_slip_ratio || v <= med / s.unit_slip_ratio).collect();
+    let outside = |v: f64, m: f64| v >= m * s.unit_slip_ratio || v <= m / s.unit_slip_ratio;
+    let mut reference = vec![med; m];
+    let off: Vec<bool> = (0..m)
+        .map(|q| {
+            let v = values[q];
+            if outside(v, med) {
+                return true;
+            }
+            // Only a quote well away from the series median (a factor of the ratio's square
+            // root) can be off against its neighbours; the others skip the local median.
+            let root = s.unit_slip_ratio.sqrt();
+            if v < med * root && v > med / root {
+                return false;
+            }
+            let (a, b) = (q.saturating_sub(NEIGHBOURS), (q + NEIGHBOURS + 1).min(m));
+            scratch.clear();
+            scratch.extend_from_slice(&values[a..b]);
+            let local = median(scratch);
+            reference[q] = local;
+            outside(v, local)
+        })
+        .collect();
     let mut keep: Vec<usize> = Vec::with_capacity(m);
     let mut t = 0;
     while t < m {
@@ -361,13 +388,21 @@ fn series_rules(
             }
             if u - t >= s.unit_slip_min_run {
                 for q in t..u {
-                    let ratio = values[q] / med;
+                    let (v, r) = (values[q], reference[q]);
+                    let against = if r.to_bits() == med.to_bits() {
+                        "the series median"
+                    } else {
+                        "the median of the days around it"
+                    };
+                    // A quote below its reference reads "1/N times", so a slip of a factor 100
+                    // downward never prints as "0.0 times".
+                    let factor = if v >= r { format!("{:.1} times", v / r) } else { format!("1/{:.1} of", r / v) };
                     drop.set(
                         series[q],
                         "unit_slip",
                         format!(
-                            "{:.2} bp is {:.1} times the series median of {:.2} bp on {} consecutive quotes: percent typed for basis points, or the reverse",
-                            values[q], ratio, med, u - t
+                            "{v:.4} bp is {factor} {against} ({r:.2} bp), on {} consecutive quotes: percent typed for basis points, or the reverse",
+                            u - t
                         ),
                     );
                 }

@@ -839,6 +839,10 @@ pub fn quantile_bands_by_category(title: &str, y_desc: &str, items: &[(String, [
     let (y_lo, y_hi) = pad(lo, hi);
     let y_hi = y_hi + (y_hi - y_lo) * 0.25;
     let (ticks, decimals) = linear_ticks(y_lo, y_hi);
+    // Values of machine-precision size (or very large) print in scientific notation, so a tick
+    // label never runs out of its margin.
+    let top = ticks.iter().fold(0.0f64, |m, t| m.max(t.abs()));
+    let scientific = top > 0.0 && !(1e-3..1e5).contains(&top);
     let n = items.len();
     let labels: Vec<String> = items.iter().map(|(l, _)| l.clone()).collect();
     let step = category_step(n, labels.iter().map(|l| l.chars().count()).max().unwrap_or(1), 660.0);
@@ -860,7 +864,7 @@ pub fn quantile_bands_by_category(title: &str, y_desc: &str, items: &[(String, [
             .disable_x_mesh()
             .y_desc(y_desc)
             .x_label_formatter(&|x| category_label(&labels, *x))
-            .y_label_formatter(&|y| format!("{y:.decimals$}"))
+            .y_label_formatter(&|y| if scientific { format!("{y:.1e}") } else { format!("{y:.decimals$}") })
             .bold_line_style(RGBColor(225, 225, 225))
             .draw()
             .map_err(err)?;

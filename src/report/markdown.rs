@@ -197,7 +197,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     let w = &mut md;
     let _ = writeln!(w, "# Validation review: {} ({})\n", m.name, m.label);
     let _ = writeln!(w, "> **Caution.** {CAUTION}\n");
-    let _ = writeln!(w, "Produced by hazardline {} from pipeline file `{}` (SHA-256 `{}`). Inputs and their hashes are listed in `manifest.json`.\n", m.version, m.pipeline.path, m.pipeline.sha256.get(..16).unwrap_or(&m.pipeline.sha256));
+    let _ = writeln!(w, "Produced by hazardline {} from pipeline file `{}` (SHA-256 `{}`). Inputs and their hashes are listed in `manifest.json`.\n", m.version, cell_text(&m.pipeline.path), cell_text(&m.pipeline.sha256));
 
     // 1. Summary
     let _ = writeln!(w, "## 1. Summary\n");
@@ -568,7 +568,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         "- Recovery: {} unless the quote carries one or its seniority is listed (by seniority: {by_sen}).",
         pct(s.recovery)
     );
-    let _ = writeln!(w, "- Data-quality thresholds in force: spread floor {} bp and cap {} bp; zero-rate band {}; bond price band {}; stale after {} unchanged business days; spike when the robust z-score (median and 1.4826 x MAD of the series' daily log changes) exceeds {} with a log move above {} reverting by at least {} the next day; unit slip when {} or more consecutive quotes sit {} times above or below the series median; fewer than {} tenors flags a curve (common practice, no single source).",
+    let _ = writeln!(w, "- Data-quality thresholds in force: spread floor {} bp and cap {} bp; zero-rate band {}; bond price band {}; stale after {} unchanged business days; spike when the robust z-score (median and 1.4826 x MAD of the series' daily log changes) exceeds {} with a log move above {} reverting by at least {} the next day; unit slip when {} or more consecutive quotes sit {} times above or below the series median or the median of the 10 quotes on each side; fewer than {} tenors flags a curve (common practice, no single source).",
         q.min_spread_bp.as_ref().map_or_else(|| "(not recorded)".to_string(), |v| v.to_string()),
         q.max_spread_bp,
         band(&q.zero_rate_band),

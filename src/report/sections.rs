@@ -669,12 +669,19 @@ pub fn residual_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
     );
     let _ = writeln!(w, "\nDistribution of |residual| (bp) per method and tenor (`tables/residual_tenors.parquet` also has the signed quantiles; `tables/residual_curves.parquet` the RMSE and largest residual per curve):\n\n| method | tenor | quotes | 5% | median | 95% | 99% |\n| --- | --- | ---: | ---: | ---: | ---: | ---: |");
     let mut boot = Vec::new();
-    for i in 0..tdf.height() {
+    // Per method, tenors in maturity order (6M, 1Y, 2Y, ..., 10Y), then bonds by identifier.
+    let mut order: Vec<usize> = (0..tdf.height()).collect();
+    order.sort_by_cached_key(|&i| {
+        let tenor = tt[i].as_deref().unwrap_or("");
+        let months = tenor.parse::<crate::time::Tenor>().map_or(u32::MAX, |t| t.months());
+        (tm[i].clone(), months, tenor.to_string())
+    });
+    for i in order {
         let _ = writeln!(
             w,
             "| {} | {} | {} | {} | {} | {} | {} |",
-            tm[i].as_deref().unwrap_or(""),
-            tt[i].as_deref().unwrap_or(""),
+            super::markdown::cell_text(tm[i].as_deref().unwrap_or("")),
+            super::markdown::cell_text(tt[i].as_deref().unwrap_or("")),
             tn[i].unwrap_or(0),
             opt(a05[i], |v| format!("{v:.2e}")),
             opt(a50[i], |v| format!("{v:.2e}")),
@@ -691,12 +698,12 @@ pub fn residual_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
         && save_chart(
             charts_dir,
             "residuals-by-tenor.svg",
-            charts::quantile_bands_by_category("Bootstrap |residual| by tenor", "log10 |residual| (bp)", &boot),
+            charts::quantile_bands_by_category("Bootstrap |residual| by tenor", "|residual| (bp)", &boot),
         )?
     {
         *figure += 1;
         let _ = writeln!(w, "![Residuals by tenor](charts/residuals-by-tenor.svg)\n");
-        let _ = writeln!(w, "*Figure {figure}. Quantiles of the bootstrap's absolute repricing residual per tenor: whiskers 1-99%, box 5-95%, line at the median (log10 of bp).*\n");
+        let _ = writeln!(w, "*Figure {figure}. Quantiles of the bootstrap's absolute repricing residual per tenor: whiskers 1-99%, box 5-95%, line at the median (bp, linear scale).*\n");
     }
     let wpath = tables.join("residual_worst.parquet");
     let wdf = read_frame(&wpath)?;

@@ -590,3 +590,35 @@ fn a_non_ascii_tenor_is_rejected_not_a_panic() {
     assert_eq!(rejected(&ds), vec![("cds_quotes", 1, "unknown_tenor"), ("cds_quotes", 2, "unknown_tenor")]);
     assert!(!hazardline::stability::settings::is_series_name("hazard_node_\u{2b2}"));
 }
+
+/// A slip on a name whose spreads moved a long way: 60 days near 100 bp, then 30 near 900 bp
+/// with three days typed in percent (9.0 for 900 bp). The slip is 11 times below the series
+/// median (100 bp), within the factor of 50, but 100 times below the days around it: rejected
+/// against its neighbours (before: calibrated, as two of the demo's planted slips were). The
+/// genuine move from 100 to 900 bp, 9 times, is kept.
+#[test]
+fn unit_slip_against_the_neighbours_is_rejected() {
+    let mut text = String::from(CDS_HEAD);
+    let mut d = chrono::NaiveDate::from_ymd_opt(2024, 1, 1).unwrap();
+    let mut k = 0;
+    let mut slipped = Vec::new();
+    while k < 90 {
+        if Calendar::weekends_only().is_business_day(d) {
+            let level = if k < 60 { 100.0 } else { 900.0 };
+            let mut v = level * (1.0 + 0.01 * ((k * 7 % 11) as f64 - 5.0) / 5.0);
+            if (75..78).contains(&k) {
+                v /= 100.0;
+                slipped.push(k as u64 + 1);
+            }
+            text += &format!("{d},A,USD,5Y,{v:.4},,,\n");
+            k += 1;
+        }
+        d = d.succ_opt().unwrap();
+    }
+    let ds = check(&[("cds_quotes", &text)]);
+    let got: Vec<(u64, &str)> = ds.rejects.iter().map(|r| (r.row, r.reason)).collect();
+    assert_eq!(got, slipped.iter().map(|&r| (r, "unit_slip")).collect::<Vec<_>>());
+    let detail = &ds.rejects[0].detail;
+    assert!(detail.contains("the median of the days around it") && detail.contains("1/"), "{detail}");
+    assert!(!detail.contains("0.0 times"), "{detail}");
+}
