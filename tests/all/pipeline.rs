@@ -91,14 +91,13 @@ fn demo_pipeline_end_to_end_and_deterministic() {
 }
 
 /// Tables of the bundled demo run that are too large for the repository (see .gitignore).
-const NOT_BUNDLED: [&str; 8] = [
+const NOT_BUNDLED: [&str; 7] = [
     "tables/hazard_curves.parquet",
     "tables/calibration_residuals.parquet",
     "tables/stability.parquet",
     "tables/stability_bands.parquet",
     "tables/residual_curves.parquet",
     "tables/cds_bond_basis.parquet",
-    "tables/flags.parquet",
     "tables/discount_curves.parquet",
 ];
 
