@@ -242,6 +242,8 @@ pub struct StabilitySection {
     pub psi_amber: Option<f64>,
     pub psi_red: Option<f64>,
     pub psi_min_entities: Option<usize>,
+    /// Fewest entities behind a universe row for its change rules to flag. Default 10.
+    pub universe_min_entities: Option<usize>,
     /// Series tested for breaks. Default the CIR kappa, theta and sigma.
     pub cusum_series: Option<Vec<String>>,
     /// `10%`, `5%` (default) or `1%`.
@@ -492,6 +494,9 @@ fn stability_settings(k: &StabilitySection, path: &Path) -> Result<crate::stabil
             return Err(bad(path, "stability.psi_edges", format!("{e:?} must be finite and strictly increasing")));
         }
         s.psi_edges = PsiEdges::Given(e.clone());
+    }
+    if let Some(n) = k.universe_min_entities {
+        s.universe_min_entities = n;
     }
     if let Some(n) = k.psi_min_entities {
         s.psi_min_entities = n;

@@ -4,6 +4,7 @@
 
 use super::charts;
 use super::markdown::{pct, quantile, quantile_band};
+use crate::calibrate::cir::CirFitSettings;
 use crate::error::{Error, Result};
 use crate::tables::manifest::write_text;
 use crate::tables::manifest::RecordedSettings;
@@ -16,6 +17,26 @@ use std::path::Path;
 fn median(v: &mut [f64]) -> f64 {
     v.sort_by(f64::total_cmp);
     quantile(v, 0.5)
+}
+
+/// The parameters of a CIR fit at a bound of the default box, as (parameter index: kappa 0,
+/// theta 1, sigma 2, lambda0 3; side: 0 lower, 1 upper), within a relative 1e-9 of the bound.
+fn params_at_bounds(p: &crate::tables::IntensityParamRow) -> Vec<(usize, usize)> {
+    let b = CirFitSettings::default().bounds;
+    let near = |x: f64, edge: f64| (x - edge).abs() <= 1e-9 * edge.abs().max(1e-12);
+    let mut out = Vec::new();
+    for (k, v, (lo, hi)) in
+        [(0, p.kappa, b.kappa), (1, p.theta, b.theta), (2, p.sigma, b.sigma), (3, p.lambda0, b.lambda0)]
+    {
+        if let Some(x) = v {
+            if near(x, lo) || x < lo {
+                out.push((k, 0));
+            } else if near(x, hi) || x > hi {
+                out.push((k, 1));
+            }
+        }
+    }
+    out
 }
 
 /// Section 3's subsections for the bond-implied curves and the CIR fit (only what ran).
@@ -116,7 +137,7 @@ pub(super) fn intensity_sections(
             let mx = rm.iter().fold(0.0f64, |a, x| a.max(*x));
             let with = v.iter().filter(|p| p.feller.is_some()).count();
             let feller = v.iter().filter(|p| p.feller == Some(true)).count();
-            let bound = v.iter().filter(|p| p.detail.as_deref().is_some_and(|d| d.contains("bound"))).count();
+            let bound = v.iter().filter(|p| !params_at_bounds(p).is_empty()).count();
             let mut st: BTreeMap<&str, usize> = BTreeMap::new();
             for p in v {
                 *st.entry(p.status.as_str()).or_default() += 1;
@@ -136,11 +157,27 @@ pub(super) fn intensity_sections(
                 pct(feller as f64 / with.max(1) as f64)
             );
         }
-        let bound = params.iter().filter(|p| p.detail.as_deref().is_some_and(|d| d.contains("bound"))).count();
+        let bound = params.iter().filter(|p| !params_at_bounds(p).is_empty()).count();
         let _ = writeln!(
             w,
-            "\n{bound} of {} fits end with a parameter at a bound (named in the table's `detail` column). The plain CIR has three shape parameters for a whole curve; a fit at a bound, or with an RMSE well above the quotes' bid-ask, says the model cannot take that curve's shape, and its parameters should not be read as estimates.\n",
+            "\n{bound} of {} fits have a parameter at a bound of its box, counted from the values themselves in every mode (in `fixed_kappa_sigma` mode kappa and sigma come from the window's pooled fit, so the daily fit's `detail` column does not name them). The plain CIR has three shape parameters for a whole curve; a fit at a bound, or with an RMSE well above the quotes' bid-ask, says the model cannot take that curve's shape, and its parameters should not be read as estimates.\n",
             params.len()
+        );
+        let b = CirFitSettings::default().bounds;
+        let _ = writeln!(
+            w,
+            "| parameter | box | fits at the lower bound | fits at the upper bound |\n| --- | --- | ---: | ---: |"
+        );
+        for (k, name, (lo, hi)) in
+            [(0, "kappa", b.kappa), (1, "theta", b.theta), (2, "sigma", b.sigma), (3, "lambda0", b.lambda0)]
+        {
+            let at = |side: usize| params.iter().filter(|p| params_at_bounds(p).contains(&(k, side))).count();
+            let _ = writeln!(w, "| {name} | [{lo}, {hi}] | {} | {} |", at(0), at(1));
+        }
+        let trivial = params.iter().filter(|p| p.feller == Some(true) && params_at_bounds(p).contains(&(2, 0))).count();
+        let _ = writeln!(
+            w,
+            "\nThe Feller condition 2 kappa theta >= sigma^2 holds trivially when sigma sits at its floor: {trivial} of the fits where it holds have sigma at the floor.\n"
         );
         // RMSE through time per entity, over the universe band.
         let mut per_date: BTreeMap<NaiveDate, Vec<f64>> = BTreeMap::new();
@@ -171,4 +208,39 @@ pub(super) fn intensity_sections(
         }
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::params_at_bounds;
+    use crate::tables::IntensityParamRow;
+
+    fn fit(kappa: f64, theta: f64, sigma: f64, lambda0: f64) -> IntensityParamRow {
+        IntensityParamRow {
+            date: chrono::NaiveDate::from_ymd_opt(2019, 1, 2).unwrap(),
+            entity: "Alder".into(),
+            currency: "USD".into(),
+            mode: "fixed_kappa_sigma",
+            kappa: Some(kappa),
+            theta: Some(theta),
+            sigma: Some(sigma),
+            lambda0: Some(lambda0),
+            rmse_bp: Some(1.0),
+            feller: Some(true),
+            status: crate::text::RowStatus::Ok,
+            iterations: 5,
+            evaluations: 9,
+            detail: None,
+        }
+    }
+
+    /// Bounds are read from the values (the default box: kappa [1e-3, 10], theta [1e-6, 2],
+    /// sigma [1e-4, 2], lambda0 [0, 2]), whatever the `detail` column says.
+    #[test]
+    fn parameters_at_a_bound_are_counted_from_the_values() {
+        assert!(params_at_bounds(&fit(0.3, 0.02, 0.1, 0.01)).is_empty());
+        assert_eq!(params_at_bounds(&fit(0.3, 0.02, 1e-4, 0.0)), [(2, 0), (3, 0)]);
+        assert_eq!(params_at_bounds(&fit(10.0, 2.0, 0.1, 0.01)), [(0, 1), (1, 1)]);
+        assert_eq!(params_at_bounds(&fit(0.3, 0.02, 1.0001e-4, 0.01)), [], "1e-4 relative above the floor is inside");
+    }
 }

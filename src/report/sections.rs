@@ -652,7 +652,7 @@ pub fn residual_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
             c[i].unwrap_or(0),
             r[i].unwrap_or(0),
             opt(s[i], pct),
-            opt(tol[i], |v| format!("{v:e}"))
+            opt(tol[i], |v| if v >= 1e-3 { format!("{v}") } else { format!("{v:e}") })
         );
     }
     let tpath = tables.join("residual_tenors.parquet");

@@ -268,3 +268,27 @@ fn stability_every_flag_points_at_output_rows() {
     stray.period = "1999Q1".into();
     assert!(!out.flag_has_target(&stray));
 }
+
+/// A universe row of a few names raises no period-change flag (before: "the mean of the
+/// universe's cir_kappa changed by +446%" on three names); with the minimum lowered to 0 the
+/// same panel's universe rows do flag, so the rule is still there.
+#[test]
+fn universe_change_rules_need_enough_names() {
+    let (mut o, m, c, r) = breach_panel();
+    // Two names whose cir_theta triples from Q1 to Q2: a universe of two.
+    for t in business_days(d(2024, 1, 2), d(2024, 6, 28)) {
+        let v = if t < d(2024, 4, 1) { 0.01 } else { 0.03 };
+        o.push(obs("cir_theta", "Wobble", 4, t, v));
+        o.push(obs("cir_theta", "Stepper", 5, t, v));
+    }
+    let base = StabilitySettings { psi_edges: PsiEdges::Given(vec![0.01, 0.02, 0.05]), ..StabilitySettings::default() };
+    let universe_flags = |s: &StabilitySettings| {
+        let out = analyse(&o, &m, &c, &r, s).unwrap();
+        out.flags.iter().filter(|f| f.rule.as_str().starts_with("period_change") && f.entity.is_none()).count()
+    };
+    // The cir_theta universe has two names; the panel's other universe change has 10 or more.
+    let all = universe_flags(&StabilitySettings { universe_min_entities: 0, ..base.clone() });
+    let at_least_ten = universe_flags(&base);
+    assert!(all > at_least_ten, "{all} flags with no minimum, {at_least_ten} with 10");
+    assert_eq!(universe_flags(&StabilitySettings { universe_min_entities: 1000, ..base.clone() }), 0);
+}

@@ -100,7 +100,7 @@ fn spread_flags(row: &StabilityRow, s: &StabilitySettings, out: &mut Vec<FlagRow
 }
 
 fn change_flags(row: &StabilityRow, s: &StabilitySettings, out: &mut Vec<FlagRow>) {
-    if row.scope == Scope::Grade {
+    if row.scope == Scope::Grade || (row.scope == Scope::Universe && row.n < s.universe_min_entities) {
         return;
     }
     for (rule, what, change) in [

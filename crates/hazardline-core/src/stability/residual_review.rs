@@ -50,7 +50,8 @@ pub struct CurveResidualRow {
     pub worst_tenor: Arc<str>,
     /// Every row of the curve converged.
     pub converged: bool,
-    /// Converged and max_abs_bp <= `reprice_tolerance_bp`.
+    /// Converged and max_abs_bp <= the method's tolerance
+    /// ([`StabilitySettings::residual_threshold_bp`]).
     pub reprices: bool,
 }
 
@@ -209,7 +210,7 @@ fn worse(a: &ResidualObservation, b: &ResidualObservation) -> std::cmp::Ordering
         .then_with(|| (a.date, &a.entity, &a.method, &a.tenor).cmp(&(b.date, &b.entity, &b.method, &b.tenor)))
 }
 
-fn repricing_shares(curves: &[CurveResidualRow], tolerance_bp: f64) -> Vec<RepricingShare> {
+fn repricing_shares(curves: &[CurveResidualRow], tolerance_bp: impl Fn(&str) -> f64) -> Vec<RepricingShare> {
     let mut acc: BTreeMap<&str, (usize, usize)> = BTreeMap::new();
     for c in curves {
         let e = acc.entry(&*c.method).or_default();
@@ -222,7 +223,7 @@ fn repricing_shares(curves: &[CurveResidualRow], tolerance_bp: f64) -> Vec<Repri
             curves: n,
             repricing: k,
             share: k as f64 / n as f64,
-            tolerance_bp,
+            tolerance_bp: tolerance_bp(m),
         })
         .collect()
 }
@@ -232,7 +233,9 @@ fn repricing_shares(curves: &[CurveResidualRow], tolerance_bp: f64) -> Vec<Repri
 /// usually come together; rows of a curve met again later are added to its sums (their sum of
 /// squares then adds two partial sums, which may differ from one running sum in the last bit).
 pub struct ResidualReview {
-    tolerance_bp: f64,
+    /// The repricing tolerance (bp) per method: an exact fit (the bootstrap) is held to the
+    /// solver's precision, a least-squares fit (bond, CIR) to a tolerance of its own.
+    settings: StabilitySettings,
     worst_n: usize,
     current: Option<CurveResidualRow>,
     curves: Vec<CurveResidualRow>,
@@ -249,7 +252,7 @@ pub struct ResidualReview {
 impl ResidualReview {
     pub fn new(settings: &StabilitySettings) -> Self {
         ResidualReview {
-            tolerance_bp: settings.reprice_tolerance_bp,
+            settings: settings.clone(),
             worst_n: settings.worst_n,
             current: None,
             curves: Vec::new(),
@@ -310,9 +313,10 @@ impl ResidualReview {
             }
             same
         });
-        let tol = self.tolerance_bp;
+        let settings = self.settings;
         let mut curves = self.curves;
         for c in curves.iter_mut() {
+            let tol = settings.residual_threshold_bp(&c.method);
             finish_row(c, tol);
         }
         let mut tenors: Vec<(TenorKey, usize)> = self.tenor_index.into_iter().collect();
@@ -332,7 +336,7 @@ impl ResidualReview {
                 .enumerate()
                 .map(|(i, r)| WorstResidualRow { rank: i + 1, residual: r })
                 .collect(),
-            repricing: repricing_shares(&curves, tol),
+            repricing: repricing_shares(&curves, |m| settings.residual_threshold_bp(m)),
             curves,
             non_finite: self.non_finite,
         }
@@ -406,6 +410,14 @@ mod tests {
         assert_eq!((cir.max_abs_bp, &*cir.worst_tenor), (4.0, "5Y"));
         let boot = r.repricing.iter().find(|m| m.method == "bootstrap").unwrap();
         assert_eq!((boot.curves, boot.repricing, boot.share), (2, 1, 0.5));
+        assert_eq!(boot.tolerance_bp, 1e-6);
+        // The least-squares CIR fit is held to its own tolerance (10 bp by default), not the
+        // bootstrap's 1e-6 bp: its largest |r| of 4 bp reprices.
+        let cir_share = r.repricing.iter().find(|m| m.method == "cir").unwrap();
+        assert_eq!((cir_share.repricing, cir_share.tolerance_bp), (1, 10.0));
+        assert!(cir.reprices);
+        let strict = StabilitySettings { residual_flag_bp: vec![("cir".into(), 3.0)], ..s.clone() };
+        assert!(!review_residuals(&rows, &strict).curves.iter().find(|c| &*c.method == "cir").unwrap().reprices);
         assert_eq!(r.worst.len(), 2);
         assert_eq!((r.worst[0].rank, r.worst[0].residual.residual_bp), (1, -4.0));
         let t = r.tenors.iter().find(|t| t.method == "bootstrap" && t.tenor == "5Y").unwrap();

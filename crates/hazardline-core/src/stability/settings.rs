@@ -84,6 +84,10 @@ pub struct StabilitySettings {
     pub psi_epsilon: f64,
     /// Fewest entities in each of the two periods for a PSI. Default 10.
     pub psi_min_entities: usize,
+    /// Fewest entities behind a universe row for its period-on-period change rules to flag.
+    /// Default 10: the mean or median of two or three names moves with any one of them, so a
+    /// change there says nothing about the universe.
+    pub universe_min_entities: usize,
     /// PSI over this is an amber flag. Default 0.10 (common practice, no single source).
     pub psi_amber: f64,
     /// PSI over this is a red flag. Default 0.25 (common practice, no single source).
@@ -103,11 +107,13 @@ pub struct StabilitySettings {
     pub cusum_level: CusumLevel,
     /// Fewest observations in a window for a CUSUM test. Default 20.
     pub cusum_min_obs: usize,
-    /// A curve reprices when it converged and every |residual| is at most this (bp). Default 1e-6.
+    /// A curve of an exact fit (the bootstrap, and any method not in `residual_flag_bp`)
+    /// reprices when it converged and every |residual| is at most this (bp). Default 1e-6.
     pub reprice_tolerance_bp: f64,
-    /// Residual flag threshold (bp) by calibration method; methods not listed use
-    /// `reprice_tolerance_bp`. Default: `cir` 10 bp, `bond_fit` 10 bp (least-squares fits are
-    /// not exact; the bootstrap is).
+    /// Repricing tolerance and residual flag threshold (bp) by calibration method; methods not
+    /// listed use `reprice_tolerance_bp`. Default: `cir` 10 bp, `bond_fit` 10 bp (least-squares
+    /// fits are not exact, so an exact-fit tolerance would call every such curve a misfit; the
+    /// bootstrap is exact).
     pub residual_flag_bp: Vec<(String, f64)>,
     /// How many of the largest absolute residuals to list. Default 20.
     pub worst_n: usize,
@@ -132,6 +138,7 @@ impl Default for StabilitySettings {
             psi_edges: PsiEdges::EarlierDeciles,
             psi_epsilon: 1e-4,
             psi_min_entities: 10,
+            universe_min_entities: 10,
             psi_amber: 0.10,
             psi_red: 0.25,
             cusum_series: vec!["cir_kappa".to_string(), "cir_theta".to_string(), "cir_sigma".to_string()],
@@ -194,6 +201,7 @@ impl StabilitySettings {
             out.push((n.into(), v.to_string()));
         }
         out.push(("psi_min_entities".into(), self.psi_min_entities.to_string()));
+        out.push(("universe_min_entities".into(), self.universe_min_entities.to_string()));
         out.push(("cusum_test".into(), "Brown-Durbin-Evans recursive-residual CUSUM, constant-mean model".into()));
         out.push((
             "cusum_series".into(),
