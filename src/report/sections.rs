@@ -594,8 +594,9 @@ pub fn stability_section(
         dates(&kdf, &kpath, "crossed_at")?,
     );
     let tested = kst.iter().filter(|s| s.as_deref() == Some("tested")).count();
+    let short = kst.iter().filter(|s| s.as_deref() == Some("too_short")).count();
     let crossed: Vec<usize> = (0..kdf.height()).filter(|&i| kc[i].is_some()).collect();
-    let _ = writeln!(w, "Structural breaks: {tested} CUSUM tests (Brown, Durbin and Evans, 1975) on entity-period windows; {} crossed the boundary{}.\n", crossed.len(), if crossed.is_empty() { "" } else { " (first crossings below, all in `tables/stability_breaks.parquet`)" });
+    let _ = writeln!(w, "Structural breaks: {tested} CUSUM tests (Brown, Durbin and Evans, 1975) on entity-period windows; {} crossed the boundary{}. {short} windows had too few values to test: a series that is a step function (kappa and sigma in the CIR fit's `fixed_kappa_sigma` mode, one estimate per window of curve dates) is tested on its steps, one value per window, not date by date.\n", crossed.len(), if crossed.is_empty() { "" } else { " (first crossings below, all in `tables/stability_breaks.parquet`)" });
     if !crossed.is_empty() {
         let _ = writeln!(w, "| entity | series | window | first crossing |\n| --- | --- | --- | --- |");
         for &i in crossed.iter().take(15) {

@@ -47,13 +47,38 @@ pub struct BreakRow {
     pub ols_statistic: Option<f64>,
 }
 
+/// The values the test sees, in the form the fit produced them. A step function (runs of
+/// identical consecutive values, as kappa and sigma are in the CIR fit's `fixed_kappa_sigma`
+/// mode: one estimate per window of curve dates, repeated on each date) is one value per step,
+/// dated at the step's first date: tested date by date, a constant-mean CUSUM rejects any step
+/// function with more than one level, which says nothing about the model.
 fn series_of(points: &[Point], settings: &StabilitySettings) -> Vec<(NaiveDate, f64)> {
     match settings.cusum_target {
-        CusumTarget::Levels => points.iter().map(|p| (p.date, p.value)).collect(),
+        CusumTarget::Levels => steps(points.iter().map(|p| (p.date, p.value))),
         CusumTarget::DailyChanges => {
-            daily_moves(points, settings.max_gap_days).iter().map(|m| (m.date, m.value - m.previous)).collect()
+            let moves = daily_moves(points, settings.max_gap_days);
+            let stepped = moves.iter().any(|m| m.value.to_bits() == m.previous.to_bits());
+            if stepped {
+                // The changes of a step function are zeros with a jump at each step: test the
+                // steps' changes instead.
+                let s = steps(points.iter().map(|p| (p.date, p.value)));
+                s.windows(2).map(|w| (w[1].0, w[1].1 - w[0].1)).collect()
+            } else {
+                moves.iter().map(|m| (m.date, m.value - m.previous)).collect()
+            }
         }
     }
+}
+
+/// Consecutive bit-identical values merged into one, at the first date of each run.
+fn steps(values: impl Iterator<Item = (NaiveDate, f64)>) -> Vec<(NaiveDate, f64)> {
+    let mut out: Vec<(NaiveDate, f64)> = Vec::new();
+    for (d, v) in values {
+        if out.last().is_none_or(|last| last.1.to_bits() != v.to_bits()) {
+            out.push((d, v));
+        }
+    }
+    out
 }
 
 fn windows(values: Vec<(NaiveDate, f64)>, settings: &StabilitySettings) -> BTreeMap<String, Vec<(NaiveDate, f64)>> {
@@ -126,4 +151,33 @@ pub(crate) fn break_rows(panel: &Panel, settings: &StabilitySettings) -> Vec<Bre
         })
         .collect();
     per_history.into_iter().flatten().collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn day(k: i64) -> NaiveDate {
+        NaiveDate::from_ymd_opt(2024, 1, 1).unwrap() + chrono::Duration::days(k)
+    }
+
+    /// A window estimate repeated on each of its 20 dates is tested as one value per window;
+    /// a daily series is tested as it is.
+    #[test]
+    fn a_step_function_is_tested_on_its_steps() {
+        let s = StabilitySettings::default();
+        let stepped: Vec<Point> =
+            (0..60).map(|k| Point::new(day(k), [0.2, 0.9, 0.4][(k / 20) as usize], None)).collect();
+        assert_eq!(series_of(&stepped, &s), [(day(0), 0.2), (day(20), 0.9), (day(40), 0.4)]);
+        let daily: Vec<Point> = (0..60).map(|k| Point::new(day(k), 0.2 + 0.001 * (k % 7) as f64, None)).collect();
+        assert_eq!(series_of(&daily, &s).len(), 60);
+        let changes = StabilitySettings { cusum_target: CusumTarget::DailyChanges, ..s.clone() };
+        let got = series_of(&stepped, &changes);
+        assert_eq!(got.len(), 2);
+        assert!((got[0].1 - 0.7).abs() < 1e-15 && (got[1].1 + 0.5).abs() < 1e-15, "{got:?}");
+        // Before: 60 values, a constant-mean CUSUM on three levels; now 3, too few to test
+        // (cusum_min_obs 20), which is what one quarter of window estimates supports.
+        let row = test_window("Alder", "cir_kappa", "2024Q1".into(), &series_of(&stepped, &s), &s);
+        assert_eq!((row.n, row.status), (3, BreakStatus::TooShort));
+    }
 }
