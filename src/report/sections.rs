@@ -540,9 +540,23 @@ pub fn stability_section(
         floats(&pdf, &ppath, "psi")?,
     );
     if pdf.height() > 0 {
-        let _ = writeln!(w, "Population stability index of the cross-sectional implied-PD distribution against the previous period:\n\n| series | period | previous | names before | names now | PSI | reading |\n| --- | --- | --- | ---: | ---: | ---: | --- |");
-        let mut points = Vec::new();
+        let _ = writeln!(w, "Population stability index of the cross-sectional implied-PD distribution against the previous period and against the review's first period (a fixed reference, which a slow drift cannot hide from):\n\n| series | period | against | names before | names now | PSI | reading |\n| --- | --- | --- | ---: | ---: | ---: | --- |");
+        // Per (series, period), the row against the latest earlier period is the
+        // period-on-period one; an older reference is the review's first period.
+        let mut latest: BTreeMap<(String, String), String> = BTreeMap::new();
         for i in 0..pdf.height() {
+            let key = (ps[i].clone().unwrap_or_default(), pp[i].clone().unwrap_or_default());
+            let p = prev[i].clone().unwrap_or_default();
+            let slot = latest.entry(key).or_default();
+            if p > *slot {
+                *slot = p;
+            }
+        }
+        let mut points = Vec::new();
+        let mut fixed_points = Vec::new();
+        for i in 0..pdf.height() {
+            let key = (ps[i].clone().unwrap_or_default(), pp[i].clone().unwrap_or_default());
+            let period_on_period = latest.get(&key) == prev[i].as_ref();
             let reading = match psi[i] {
                 Some(v) if v > 0.25 => "shift (red)",
                 Some(v) if v > 0.10 => "moderate (amber)",
@@ -561,7 +575,11 @@ pub fn stability_section(
             );
             if let (Some(v), Some(p)) = (psi[i], pp[i].as_deref()) {
                 if let Some(x) = period_midpoint(p) {
-                    points.push((x, v));
+                    if period_on_period {
+                        points.push((x, v));
+                    } else {
+                        fixed_points.push((x, v));
+                    }
                 }
             }
         }
@@ -571,16 +589,19 @@ pub fn stability_section(
                 charts_dir,
                 "psi.svg",
                 charts::multi_line_chart(
-                    "PSI of the 1Y implied PD, period on period",
+                    "PSI of the 1Y implied PD",
                     "PSI",
-                    &[("PSI".to_string(), points)],
+                    &[
+                        ("against the previous period".to_string(), points),
+                        ("against the first period".to_string(), fixed_points),
+                    ],
                     &[(0.10, "0.10"), (0.25, "0.25")],
                 ),
             )?
         {
             *figure += 1;
             let _ = writeln!(w, "![PSI through time](charts/psi.svg)\n");
-            let _ = writeln!(w, "*Figure {figure}. PSI per review period against the previous one, with the 0.10 and 0.25 thresholds.*\n");
+            let _ = writeln!(w, "*Figure {figure}. PSI per review period against the previous one and against the review's first period, with the 0.10 and 0.25 thresholds.*\n");
         }
     }
     // Breaks.

@@ -292,3 +292,32 @@ fn universe_change_rules_need_enough_names() {
     assert!(all > at_least_ten, "{all} flags with no minimum, {at_least_ten} with 10");
     assert_eq!(universe_flags(&StabilitySettings { universe_min_entities: 1000, ..base.clone() }), 0);
 }
+
+/// A slow drift: each quarter the same ten invented names' 1Y PD rises by 0.6 percentage points,
+/// so the period-on-period PSI stays small while the PSI against the first quarter grows. Q3
+/// gets a row against Q2 (previous) and one against Q1 (the fixed reference); Q2's previous
+/// period is the first, so it has one row.
+#[test]
+fn psi_against_the_first_period_sees_a_slow_drift() {
+    let quarters = [d(2024, 1, 2), d(2024, 4, 1), d(2024, 7, 1), d(2024, 10, 1)];
+    let mut o = Vec::new();
+    for i in 0..10 {
+        let e = format!("Driftco {i}");
+        for (q, start) in quarters.iter().enumerate() {
+            let v = 0.004 + 0.002 * i as f64 + 0.006 * q as f64;
+            for t in business_days(*start, *start + chrono::Duration::days(4)) {
+                o.push(obs("pd_1y", &e, 2, t, v));
+            }
+        }
+    }
+    let settings =
+        StabilitySettings { psi_edges: PsiEdges::Given(vec![0.01, 0.02, 0.05]), ..StabilitySettings::default() };
+    let out = analyse(&o, &[], &[], &[], &settings).unwrap();
+    let psi = |period: &str, against: &str| {
+        out.series.psi.iter().find(|r| r.period == period && r.previous_period == against).and_then(|r| r.psi)
+    };
+    assert_eq!(out.series.psi.iter().filter(|r| r.period == "2024Q2").count(), 1);
+    let (step, drift) = (psi("2024Q4", "2024Q3").unwrap(), psi("2024Q4", "2024Q1").unwrap());
+    assert!(drift > 0.25 && drift > 3.0 * step, "period on period {step}, against the first {drift}");
+    assert!(psi("2024Q3", "2024Q1").is_some());
+}

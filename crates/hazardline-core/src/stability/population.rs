@@ -1,5 +1,6 @@
 //! PSI of each implied-PD series' cross-section (one mean per entity and period) between each
-//! period and the one just before it.
+//! period and the one just before it, and between each period and the review's first period (a
+//! fixed reference, so that a slow drift, small from one period to the next, is seen too).
 
 use super::metrics::Scope;
 use super::period::Period;
@@ -14,7 +15,8 @@ pub struct PsiRow {
     pub series: String,
     /// The later period's label.
     pub period: String,
-    /// The earlier period's label.
+    /// The earlier period's label: the previous period, or the review's first period for the
+    /// fixed-reference rows.
     pub previous_period: String,
     /// Entities in the earlier period.
     pub n_previous: usize,
@@ -37,19 +39,29 @@ pub(crate) fn psi_rows(
             continue;
         }
         let prev = period.previous();
-        let Some(earlier) = means.get(&(series.clone(), prev, Scope::Universe, "all".to_string())) else { continue };
-        let enough = earlier.len() >= settings.psi_min_entities && current.len() >= settings.psi_min_entities;
-        let edges = settings.psi_edges.resolve(earlier);
-        let result = if enough { psi(earlier, current, &edges, settings.psi_epsilon).ok() } else { None };
-        out.push(PsiRow {
-            series: series.clone(),
-            period: period.label(),
-            previous_period: prev.label(),
-            n_previous: earlier.len(),
-            n_current: current.len(),
-            psi: result.as_ref().map(|r| r.psi),
-            buckets: result.map(|r| r.buckets).unwrap_or_default(),
-        });
+        // The review's first period of this series: the fixed reference.
+        let first = means.keys().filter(|k| &k.0 == series && k.2 == Scope::Universe).map(|k| k.1).min();
+        let mut references = vec![prev];
+        if let Some(f) = first.filter(|f| *f != prev && f < period) {
+            references.push(f);
+        }
+        for reference in references {
+            let Some(earlier) = means.get(&(series.clone(), reference, Scope::Universe, "all".to_string())) else {
+                continue;
+            };
+            let enough = earlier.len() >= settings.psi_min_entities && current.len() >= settings.psi_min_entities;
+            let edges = settings.psi_edges.resolve(earlier);
+            let result = if enough { psi(earlier, current, &edges, settings.psi_epsilon).ok() } else { None };
+            out.push(PsiRow {
+                series: series.clone(),
+                period: period.label(),
+                previous_period: reference.label(),
+                n_previous: earlier.len(),
+                n_current: current.len(),
+                psi: result.as_ref().map(|r| r.psi),
+                buckets: result.map(|r| r.buckets).unwrap_or_default(),
+            });
+        }
     }
     out
 }
