@@ -367,6 +367,23 @@ fn data_quality_table_adds_up() {
     assert_eq!(ent.coverage, Some(1.0));
 }
 
+/// A three-row Parquet quote file written by the tool's own writer (one row without an entity,
+/// one NaN spread), `x.parquet` in `dir`: the base of the mutated-file tests.
+fn quote_parquet(dir: &Path) -> PathBuf {
+    let d = hazardline::time::parse_iso_date("2024-03-21").unwrap();
+    let mut df = hazardline::tables::parquet::TableBuilder::new()
+        .dates("date", vec![Some(d); 3])
+        .strings("entity", vec![Some("ALPHA"), Some("BRAVO"), None])
+        .strings("currency", vec![Some("USD"); 3])
+        .strings("tenor", vec![Some("1Y"), Some("5Y"), Some("10Y")])
+        .floats("par_spread_bp", vec![Some(50.0), Some(90.0), Some(f64::NAN)])
+        .finish()
+        .unwrap();
+    let p = dir.join("x.parquet");
+    hazardline::tables::parquet::write_parquet(&mut df, &p, &[]).unwrap();
+    p
+}
+
 /// Loading `p` as the quote table either works, with rows and rejects that add up, or stops
 /// with an error naming the file `name`: never a panic.
 fn loads_or_names_the_file(p: std::path::PathBuf, name: &str) -> Result<(), TestCaseError> {
@@ -456,17 +473,7 @@ proptest! {
     #[test]
     fn mutated_parquet_never_panics(edits in proptest::collection::vec((any::<prop::sample::Index>(), any::<u8>()), 1..12)) {
         let dir = tempfile::tempdir().unwrap();
-        let d = hazardline::time::parse_iso_date("2024-03-21").unwrap();
-        let mut df = hazardline::tables::parquet::TableBuilder::new()
-            .dates("date", vec![Some(d); 3])
-            .strings("entity", vec![Some("ALPHA"), Some("BRAVO"), None])
-            .strings("currency", vec![Some("USD"); 3])
-            .strings("tenor", vec![Some("1Y"), Some("5Y"), Some("10Y")])
-            .floats("par_spread_bp", vec![Some(50.0), Some(90.0), Some(f64::NAN)])
-            .finish()
-            .unwrap();
-        let p = dir.path().join("x.parquet");
-        hazardline::tables::parquet::write_parquet(&mut df, &p, &[]).unwrap();
+        let p = quote_parquet(dir.path());
         let mut bytes = std::fs::read(&p).unwrap();
         for (at, b) in &edits {
             let i = at.index(bytes.len());
@@ -540,17 +547,7 @@ fn damaged_parquet_files_that_ended_the_process_are_refused_naming_the_column() 
 #[test]
 fn every_single_byte_change_of_a_parquet_file_is_caught_or_read() {
     let dir = tempfile::tempdir().unwrap();
-    let d = hazardline::time::parse_iso_date("2024-03-21").unwrap();
-    let mut df = hazardline::tables::parquet::TableBuilder::new()
-        .dates("date", vec![Some(d); 3])
-        .strings("entity", vec![Some("ALPHA"), Some("BRAVO"), None])
-        .strings("currency", vec![Some("USD"); 3])
-        .strings("tenor", vec![Some("1Y"), Some("5Y"), Some("10Y")])
-        .floats("par_spread_bp", vec![Some(50.0), Some(90.0), Some(f64::NAN)])
-        .finish()
-        .unwrap();
-    let p = dir.path().join("x.parquet");
-    hazardline::tables::parquet::write_parquet(&mut df, &p, &[]).unwrap();
+    let p = quote_parquet(dir.path());
     let base = std::fs::read(&p).unwrap();
     let (mut read, mut refused) = (0, 0);
     for at in 0..base.len() {
