@@ -356,6 +356,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         );
     }
     let _ = writeln!(w);
+    super::findings::findings_section(w, &flags);
 
     // 2. Data quality
     let _ = writeln!(w, "## 2. Data quality\n");

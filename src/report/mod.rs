@@ -7,6 +7,7 @@
 
 pub mod charts;
 pub mod compare;
+mod findings;
 mod fits_section;
 mod folds;
 pub mod markdown;
