@@ -186,7 +186,11 @@ pub(super) fn intensity_sections(
                 per_date.entry(p.date).or_default().push(r);
             }
         }
-        let band = quantile_band(&mut per_date);
+        // A 10%-90% band over two or three names says nothing about a universe: drawn only
+        // with at least as many names as the stability review's universe rules need.
+        let names = per.len();
+        let min_names = crate::stability::StabilitySettings::default().universe_min_entities;
+        let band = if names >= min_names { quantile_band(&mut per_date) } else { Vec::new() };
         let series: Vec<(String, Vec<(f64, f64)>)> = per
             .iter()
             .map(|((e, _), v)| {
@@ -204,7 +208,11 @@ pub(super) fn intensity_sections(
             write_text(&charts_dir.join("cir-rmse-history.svg"), &svg)?;
             *figure += 1;
             let _ = writeln!(w, "![CIR fit RMSE through time](charts/cir-rmse-history.svg)\n");
-            let _ = writeln!(w, "*Figure {figure}. Root mean square repricing error of the CIR fit per curve date and entity, over the universe's 10%-90% range (shaded) and median (grey line).*\n", figure = *figure);
+            if band.is_empty() {
+                let _ = writeln!(w, "*Figure {figure}. Root mean square repricing error of the CIR fit per curve date and entity ({names} fitted names: too few for a 10%-90% band, none is drawn).*\n", figure = *figure);
+            } else {
+                let _ = writeln!(w, "*Figure {figure}. Root mean square repricing error of the CIR fit per curve date and entity, over the 10%-90% range of the {names} fitted names (shaded) and their median (grey line).*\n", figure = *figure);
+            }
         }
     }
     Ok(())
