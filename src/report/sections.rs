@@ -698,6 +698,32 @@ pub fn residual_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
         let months = tenor.parse::<crate::time::Tenor>().map_or(u32::MAX, |t| t.months());
         (tm[i].clone(), months, tenor.to_string())
     });
+    // Rows that are bonds (no tenor) can run to hundreds: per method, the main text shows the
+    // ten with the largest 99% quantile and says how many more the table holds.
+    const BOND_ROWS_SHOWN: usize = 10;
+    let mut bond_rows: BTreeMap<String, Vec<usize>> = BTreeMap::new();
+    for &i in &order {
+        if tt[i].as_deref().is_some_and(|t| t.parse::<crate::time::Tenor>().is_err()) {
+            bond_rows.entry(tm[i].clone().unwrap_or_default()).or_default().push(i);
+        }
+    }
+    let mut hidden: BTreeMap<String, usize> = BTreeMap::new();
+    for (method, rows) in bond_rows.iter_mut() {
+        rows.sort_by(|&a, &b| a99[b].unwrap_or(f64::NAN).total_cmp(&a99[a].unwrap_or(f64::NAN)));
+        if rows.len() > BOND_ROWS_SHOWN {
+            hidden.insert(method.clone(), rows.len() - BOND_ROWS_SHOWN);
+        }
+        rows.truncate(BOND_ROWS_SHOWN);
+    }
+    let shown: BTreeSet<usize> = bond_rows.values().flatten().copied().collect();
+    order.retain(|&i| tt[i].as_deref().is_some_and(|t| t.parse::<crate::time::Tenor>().is_ok()) || shown.contains(&i));
+    // The shown bonds, worst first.
+    order.sort_by_cached_key(|&i| {
+        let tenor = tt[i].as_deref().unwrap_or("");
+        let months = tenor.parse::<crate::time::Tenor>().map_or(u32::MAX, |t| t.months());
+        let rank = bond_rows.values().find_map(|v| v.iter().position(|&j| j == i)).unwrap_or(0);
+        (tm[i].clone(), months, rank)
+    });
     for i in order {
         let _ = writeln!(
             w,
@@ -714,6 +740,13 @@ pub fn residual_section(w: &mut String, tables: &Path, charts_dir: &Path, figure
             let q = [a01[i], a05[i], a50[i], a95[i], a99[i]].map(|v| v.unwrap_or(0.0));
             boot.push((tt[i].clone().unwrap_or_default(), q));
         }
+    }
+    for (method, n) in &hidden {
+        let _ = writeln!(
+            w,
+            "\n{} bonds, the ten with the largest 99% quantile shown, worst first; {n} more in `tables/residual_tenors.parquet`.",
+            super::markdown::cell_text(method)
+        );
     }
     let _ = writeln!(w);
     if !boot.is_empty()
