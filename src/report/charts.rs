@@ -98,11 +98,14 @@ pub fn term_structure(title: &str, curves: &[(NaiveDate, Vec<(f64, f64)>)]) -> R
 
 /// A quantity through time for a few entities, over the universe's 10%-90% band and median.
 /// `band` holds (x, p10, p50, p90) per date; `series` (name, points); values in % per year.
+/// `slots` gives each series its palette slot, so that one entity has one colour in every
+/// figure of a report (empty: by position).
 pub fn history_with_band(
     title: &str,
     y_desc: &str,
     series: &[(String, Vec<(f64, f64)>)],
     band: &[(f64, f64, f64, f64)],
+    slots: &[usize],
 ) -> Result<String, String> {
     let mut svg = String::new();
     {
@@ -145,7 +148,7 @@ pub fn history_with_band(
                 .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], grey.stroke_width(1)));
         }
         for (k, (name, pts)) in series.iter().enumerate() {
-            let colour = PALETTE[k % PALETTE.len()];
+            let colour = PALETTE[slots.get(k).copied().unwrap_or(k) % PALETTE.len()];
             chart
                 .draw_series(LineSeries::new(pts.iter().copied(), colour.stroke_width(2)))
                 .map_err(err)?
@@ -949,6 +952,7 @@ mod tests {
             "%",
             &[("A".into(), vec![(2024.0, 1.0), (2024.5, 2.0)])],
             &[(2024.0, 0.5, 1.0, 2.0), (2024.5, 0.6, 1.1, 2.1)],
+            &[],
         )
         .unwrap();
         assert!(h.contains("universe 10%-90%") && h.contains("<polygon"));

@@ -51,6 +51,7 @@ pub(super) fn intensity_sections(
     charts_dir: &Path,
     figure: &mut usize,
     (hazard_table, residual_table): &(String, String),
+    charted: &[String],
 ) -> Result<()> {
     let chart_err = Error::Chart;
     if !bond_hazard.is_empty() {
@@ -202,9 +203,14 @@ pub(super) fn intensity_sections(
             .filter(|(_, v)| !v.is_empty())
             .collect();
         if !series.is_empty() {
-            let svg =
-                charts::history_with_band("CIR fit RMSE through time", "RMSE (bp of running spread)", &series, &band)
-                    .map_err(chart_err)?;
+            let svg = charts::history_with_band(
+                "CIR fit RMSE through time",
+                "RMSE (bp of running spread)",
+                &series,
+                &band,
+                &super::markdown::colour_slots(charted, series.iter().map(|(e, _)| e.as_str())),
+            )
+            .map_err(chart_err)?;
             write_text(&charts_dir.join("cir-rmse-history.svg"), &svg)?;
             *figure += 1;
             let _ = writeln!(w, "![CIR fit RMSE through time](charts/cir-rmse-history.svg)\n");

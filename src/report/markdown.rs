@@ -114,6 +114,24 @@ fn bounds((lo, hi): (f64, f64)) -> String {
     format!("[{}, {}]", short(lo), short(hi))
 }
 
+/// The palette slot of each entity drawn in a figure, so that one entity has one colour in every
+/// figure of the report: its place among the charted entities, or, for the others, a place
+/// after them in name order.
+pub(super) fn colour_slots<'a>(charted: &[String], names: impl Iterator<Item = &'a str>) -> Vec<usize> {
+    let names: Vec<&str> = names.collect();
+    let mut others: Vec<&str> = names.iter().copied().filter(|n| !charted.iter().any(|c| c == n)).collect();
+    others.sort_unstable();
+    names
+        .iter()
+        .map(|n| {
+            charted
+                .iter()
+                .position(|c| c == n)
+                .unwrap_or_else(|| charted.len() + others.iter().position(|o| o == n).unwrap_or(0))
+        })
+        .collect()
+}
+
 /// Options of the figures (from the pipeline file, recorded in the manifest's settings).
 fn charted(settings: &RecordedSettings, entities: &BTreeSet<String>) -> Vec<String> {
     match &settings.charted_entities {
@@ -478,8 +496,15 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
             .map(|e| (e.clone(), charted_nodes.five_year.get(e).cloned().unwrap_or_default()))
             .filter(|(_, v): &(String, Vec<(f64, f64)>)| !v.is_empty())
             .collect();
-        let svg = charts::history_with_band("5Y hazard rate through time", "hazard rate (% per year)", &series, &band)
-            .map_err(chart_err)?;
+        let slots = colour_slots(&chosen, series.iter().map(|(e, _)| e.as_str()));
+        let svg = charts::history_with_band(
+            "5Y hazard rate through time",
+            "hazard rate (% per year)",
+            &series,
+            &band,
+            &slots,
+        )
+        .map_err(chart_err)?;
         write_text(&charts_dir.join("hazard-5y-history.svg"), &svg)?;
         figure += 1;
         let _ = writeln!(w, "![5Y hazard through time](charts/hazard-5y-history.svg)\n");
@@ -499,7 +524,18 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     // A large table may be a folder of files (`report.large_tables`).
     let shown = |n: &str| if t.join(n).is_dir() { format!("tables/{n}/") } else { format!("tables/{n}.parquet") };
     let large = (shown("hazard_curves"), shown("calibration_residuals"));
-    intensity_sections(w, bond_hazard, &bond_res, &basis, &params, &settings, &charts_dir, &mut figure, &large)?;
+    intensity_sections(
+        w,
+        bond_hazard,
+        &bond_res,
+        &basis,
+        &params,
+        &settings,
+        &charts_dir,
+        &mut figure,
+        &large,
+        &chosen,
+    )?;
 
     super::sections::stability_section(w, &t, &charts_dir, &mut figure, 4)?;
     let base_recovery = settings.recovery;
@@ -599,6 +635,17 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
 
 #[cfg(test)]
 mod tests {
+    /// One entity, one colour: the 5Y hazard figure draws the charted names in their order, the
+    /// CIR figure a subset of them and one more, in name order; the shared names keep their slot.
+    #[test]
+    fn an_entity_keeps_its_colour_slot_across_figures() {
+        let charted: Vec<String> = ["Salilvane Power", "Salilford Mills", "Orvurstead Power"].map(String::from).into();
+        let five_year = super::colour_slots(&charted, charted.iter().map(String::as_str));
+        assert_eq!(five_year, [0, 1, 2]);
+        let cir = super::colour_slots(&charted, ["Orvurstead Power", "Alder Works", "Salilvane Power"].into_iter());
+        assert_eq!(cir, [2, 3, 0]);
+    }
+
     #[test]
     fn figure_names_of_names_that_differ_in_case_or_punctuation_do_not_collide() {
         let names: Vec<String> =
