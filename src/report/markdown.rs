@@ -517,7 +517,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         write_text(&charts_dir.join("residual-histogram.svg"), &svg)?;
         figure += 1;
         let _ = writeln!(w, "![Residual histogram](charts/residual-histogram.svg)\n");
-        let _ = writeln!(w, "*Figure {figure}. Distribution of the absolute repricing residuals of all repriced quotes on a log scale (residuals below 1e-16 bp are shown at -16). Floored nodes, if any, sit far to the right.*\n");
+        let _ = writeln!(w, "*Figure {figure}. Distribution of the absolute repricing residuals of all repriced quotes on a log scale (residuals below 1e-16 bp are shown at -16), with the count on a log scale too, so that a handful of misfits shows beside a million exact fits. Floored nodes, if any, sit far to the right.*\n");
     }
 
     super::sections::residual_section(w, &t, &charts_dir, &mut figure)?;
