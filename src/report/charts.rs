@@ -560,7 +560,7 @@ pub fn multi_line_chart(
     series: &[(String, Vec<(f64, f64)>)],
     hlines: &[(f64, &str)],
 ) -> Result<String, String> {
-    lines_through_time(title, y_desc, false, series, hlines)
+    lines_through_time(title, y_desc, false, series, &[], hlines)
 }
 
 /// [`multi_line_chart`] on a log10 y axis, for quantities that span decades (mean implied PD
@@ -572,7 +572,21 @@ pub fn multi_line_chart_log(
     series: &[(String, Vec<(f64, f64)>)],
     hlines: &[(f64, &str)],
 ) -> Result<String, String> {
-    lines_through_time(title, y_desc, true, series, hlines)
+    lines_through_time(title, y_desc, true, series, &[], hlines)
+}
+
+/// [`multi_line_chart_log`] with an interval at each point: `intervals[k]` holds (x, lower,
+/// upper) for series `k`, drawn as a whisker in the series' colour (shifted a little per series
+/// so that whiskers at one date do not hide each other). A missing or zero lower end runs to
+/// the bottom of the chart, a missing upper end (unbounded) to the top.
+pub fn multi_line_chart_log_with_intervals(
+    title: &str,
+    y_desc: &str,
+    series: &[(String, Vec<(f64, f64)>)],
+    intervals: &[Vec<(f64, Option<f64>, Option<f64>)>],
+    hlines: &[(f64, &str)],
+) -> Result<String, String> {
+    lines_through_time(title, y_desc, true, series, intervals, hlines)
 }
 
 fn lines_through_time(
@@ -580,6 +594,7 @@ fn lines_through_time(
     y_desc: &str,
     log_y: bool,
     series: &[(String, Vec<(f64, f64)>)],
+    intervals: &[Vec<(f64, Option<f64>, Option<f64>)>],
     hlines: &[(f64, &str)],
 ) -> Result<String, String> {
     const SIZE: (u32, u32) = (760, 420);
@@ -594,8 +609,26 @@ fn lines_through_time(
             v
         }
     };
-    let series: Vec<(String, Vec<(f64, f64)>)> =
-        series.iter().map(|(n, v)| (n.clone(), v.iter().map(|p| (p.0, to_y(p.1))).collect())).collect();
+    // With intervals, each series sits a little to the side of the date (its whiskers with it),
+    // so that the intervals of several series at one date do not hide each other.
+    let (x0, x1) = series
+        .iter()
+        .flat_map(|(_, v)| v.iter().map(|p| p.0))
+        .filter(|x| usable(*x))
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), x| (a.min(x), b.max(x)));
+    let n_series = series.len() as f64;
+    let shift = |k: usize| {
+        if intervals.is_empty() || !(x1 > x0) {
+            0.0
+        } else {
+            (k as f64 - (n_series - 1.0) / 2.0) * 0.012 * (x1 - x0)
+        }
+    };
+    let series: Vec<(String, Vec<(f64, f64)>)> = series
+        .iter()
+        .enumerate()
+        .map(|(k, (n, v))| (n.clone(), v.iter().map(|p| (p.0 + shift(k), to_y(p.1))).collect()))
+        .collect();
     let ok = |p: &(f64, f64)| usable(p.0) && usable(p.1);
     let points: Vec<(f64, f64)> = series.iter().flat_map(|(_, v)| v.iter().copied().filter(ok)).collect();
     if points.is_empty() {
@@ -604,7 +637,15 @@ fn lines_through_time(
     let levels: Vec<(f64, &str)> =
         hlines.iter().map(|&(h, name)| (to_y(h), name)).filter(|(h, _)| usable(*h)).collect();
     let (x_lo, x_hi) = points.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), p| (a.min(p.0), b.max(p.0)));
-    let ys = points.iter().map(|p| p.1).chain(levels.iter().map(|l| l.0));
+    // Finite interval ends count in the y range.
+    let ends: Vec<f64> = intervals
+        .iter()
+        .flatten()
+        .flat_map(|(_, lo, hi)| [lo.map(to_y), hi.map(to_y)])
+        .flatten()
+        .filter(|y| usable(*y))
+        .collect();
+    let ys = points.iter().map(|p| p.1).chain(levels.iter().map(|l| l.0)).chain(ends.iter().copied());
     let (y_min, y_max) = ys.fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), y| (a.min(y), b.max(y)));
     let (x_lo, x_hi) = pad(x_lo, x_hi);
     let (y_lo, y_hi) = if log_y {
@@ -648,6 +689,18 @@ fn lines_through_time(
                 .map_err(err)?
                 .label(name)
                 .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], grey.stroke_width(1)));
+        }
+        for (k, whiskers) in intervals.iter().enumerate() {
+            let colour = PALETTE[k % PALETTE.len()];
+            let dx = shift(k);
+            let clamp =
+                |y: Option<f64>, edge: f64| y.map(to_y).filter(|v| usable(*v)).unwrap_or(edge).clamp(y_lo, y_hi);
+            chart
+                .draw_series(whiskers.iter().filter(|w| usable(w.0)).map(|&(x, lo, hi)| {
+                    let (a, b) = (clamp(lo, y_lo), clamp(hi, y_hi));
+                    PathElement::new(vec![(x + dx, a), (x + dx, b)], colour.mix(0.85).stroke_width(2))
+                }))
+                .map_err(err)?;
         }
         for (k, (name, pts)) in series.iter().enumerate() {
             let colour = PALETTE[k % PALETTE.len()];
@@ -944,6 +997,22 @@ pub fn quantile_bands_by_category(title: &str, y_desc: &str, items: &[(String, [
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Whiskers: one path per interval, an unbounded upper end or a zero lower end included
+    /// (drawn to the chart's edge), and the interval ends widen the axis (a tick at 100 appears
+    /// only because an interval reaches past it).
+    #[test]
+    fn ratio_intervals_are_drawn_and_widen_the_axis() {
+        let series = vec![("grade 5".to_string(), vec![(2016.0, 2.0), (2017.0, 3.0)])];
+        let intervals = vec![vec![(2016.0, Some(0.5), Some(150.0)), (2017.0, Some(0.0), None)]];
+        let with = multi_line_chart_log_with_intervals("Q/P", "ratio", &series, &intervals, &[(1.0, "1")]).unwrap();
+        let without = multi_line_chart_log("Q/P", "ratio", &series, &[(1.0, "1")]).unwrap();
+        assert!(with.starts_with("<svg") && with.contains("grade 5"));
+        // The whiskers are the only elements drawn at opacity 0.85.
+        assert_eq!(with.matches("opacity=\"0.85\"").count(), 2, "{with}");
+        assert_eq!(without.matches("opacity=\"0.85\"").count(), 0);
+        assert!(with.contains("\n100\n") && !without.contains("\n100\n"));
+    }
 
     #[test]
     fn figures_are_svg_with_their_labels() {

@@ -383,29 +383,36 @@ pub fn backtest_section(
             let _ = writeln!(w, "*Figure {figure}. Ratio of pricing to historical intensity per bucket with its interval (log scale, line at 1); buckets without a default have no point estimate and an open upper end.*\n");
         }
         // Through time.
-        let mut through: BTreeMap<String, Vec<(f64, f64)>> = BTreeMap::new();
+        type Whisker = (f64, Option<f64>, Option<f64>);
+        let mut through: BTreeMap<String, (Vec<(f64, f64)>, Vec<Whisker>)> = BTreeMap::new();
         for p in premia.iter().filter(|p| p.horizon == h && p.cohort != "all" && same(p.recovery)) {
             if let (Some(r), Ok(y)) = (p.ratio.0, p.cohort.parse::<i32>()) {
-                through.entry(p.bucket.clone()).or_default().push((y as f64, r));
+                let slot = through.entry(p.bucket.clone()).or_default();
+                slot.0.push((y as f64, r));
+                slot.1.push((y as f64, p.ratio.1, p.ratio.2));
             }
         }
         if !through.is_empty() {
-            let mut series: Vec<(String, Vec<(f64, f64)>)> = through.into_iter().collect();
-            series.sort_by_key(|s| bucket_order(&s.0));
+            let mut rows: Vec<(String, (Vec<(f64, f64)>, Vec<Whisker>))> = through.into_iter().collect();
+            rows.sort_by_key(|s| bucket_order(&s.0));
+            let series: Vec<(String, Vec<(f64, f64)>)> =
+                rows.iter().map(|(b, (p, _))| (b.clone(), p.clone())).collect();
+            let intervals: Vec<Vec<Whisker>> = rows.into_iter().map(|(_, (_, i))| i).collect();
             let name = format!("risk-premium-through-time-{h}y.svg");
             if save_chart(
                 charts_dir,
                 &name,
-                charts::multi_line_chart(
+                charts::multi_line_chart_log_with_intervals(
                     &format!("Q/P ratio per cohort year, {h}Y"),
                     "Q/P ratio",
                     &series,
+                    &intervals,
                     &[(1.0, "1")],
                 ),
             )? {
                 *figure += 1;
                 let _ = writeln!(w, "![Risk premium through time](charts/{name})\n");
-                let _ = writeln!(w, "*Figure {figure}. Q/P ratio per bucket and cohort year (cohorts without a default have no ratio and are left out).*\n");
+                let _ = writeln!(w, "*Figure {figure}. Q/P ratio per bucket and cohort year with its interval (whiskers, beside each point; log scale, line at 1); cohorts without a default have no ratio and are left out.*\n");
             }
         }
     }
