@@ -150,6 +150,16 @@ fn hybrid_runs(buf: &[u8], width: u32, limit: usize, count_of: Option<u32>) -> R
 /// How many of the first `n` values packed `width` bits each (least significant bit first) in
 /// `bytes` equal `max`.
 fn count_packed(bytes: &[u8], width: u32, n: usize, max: u32) -> usize {
+    if width == 1 && max == 1 {
+        // The common case (a flat nullable column's definition levels): count the set bits a
+        // byte at a time.
+        let whole = (n / 8).min(bytes.len());
+        let mut hits: usize = bytes[..whole].iter().map(|b| b.count_ones() as usize).sum();
+        if let Some(last) = bytes.get(whole).filter(|_| n % 8 != 0) {
+            hits += (last & ((1u8 << (n % 8)) - 1)).count_ones() as usize;
+        }
+        return hits;
+    }
     let mut hits = 0;
     for i in 0..n {
         let mut v = 0u32;
@@ -189,6 +199,13 @@ mod tests {
         assert!(hybrid_runs(&[10, 1], 1, 4, Some(1)).unwrap_err().contains("a run of 5 repeats where 4"));
         // Bit-packed: header 2 * 1 + 1 = 3 -> one group of 8 values, 1 bit each: 0b0000_0101.
         assert_eq!(hybrid_runs(&[3, 0b0000_0101], 1, 3, Some(1)), Ok(2));
+        // The byte-at-a-time count of one-bit levels agrees with the general loop.
+        let bytes = [0b1011_0110u8, 0b0000_0111, 0xFF];
+        for n in 0..=24 {
+            let slow = (0..n).filter(|&i| bytes[i / 8] >> (i % 8) & 1 == 1).count();
+            assert_eq!(count_packed(&bytes, 1, n, 1), slow, "n = {n}");
+        }
+        assert_eq!(count_packed(&[0b0000_1110], 2, 2, 3), 1, "two 2-bit values 2 and 3");
         // A group count in the billions (a flipped high byte of the header).
         assert!(hybrid_runs(&[0x81, 0x80, 0x80, 0x80, 0x10], 1, 3, Some(1)).is_err());
         // A cut-off header.
