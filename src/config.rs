@@ -95,6 +95,19 @@ impl BacktestStage {
             ("zone_yellow".into(), c.zones.yellow.to_string()),
             ("zone_red".into(), c.zones.red.to_string()),
             ("recovery_scenarios".into(), format!("{:?}", self.recovery_scenarios)),
+            (
+                "outcome_end".into(),
+                c.outcome_end.map_or("the last quote date of the input".to_string(), |d| d.to_string()),
+            ),
+            (
+                "asset_correlation".into(),
+                match c.correlation {
+                    crate::backtest::AssetCorrelation::Supervisory => {
+                        "supervisory corporate formula of each bucket's one-year PD".to_string()
+                    }
+                    crate::backtest::AssetCorrelation::Fixed(r) => r.to_string(),
+                },
+            ),
         ]
     }
 }
@@ -158,8 +171,9 @@ pub struct BacktestSection {
     pub horizons: Option<Vec<u32>>,
     /// A cohort member's curve is its latest within this many calendar days. Default 10.
     pub lookback_days: Option<i64>,
-    /// `exclude` (default) or `survivor`: what a member whose data ends inside the horizon
-    /// without a default counts as in the cohort tests (exposure is exact either way).
+    /// `exclude` (default) or `survivor`: what a member that leaves coverage inside the
+    /// horizon counts as in the d / n tests (exposure is exact either way; the realised rate
+    /// of a bucket with censored members is the Kaplan-Meier estimate).
     pub censoring: Option<CensoringPolicy>,
     /// `grade` (default when grades are given) or `pd_bands`.
     pub buckets: Option<BucketChoice>,
@@ -175,10 +189,31 @@ pub struct BacktestSection {
     pub zone_red: Option<f64>,
     /// Recoveries of the sensitivity scenarios. Default [0.25, 0.55].
     pub recovery_scenarios: Option<Vec<f64>>,
+    /// The last date the defaults table covers (ISO date, quoted): a horizon ending after it
+    /// is incomplete. Default: the last quote date of the input.
+    pub outcome_end: Option<NaiveDate>,
+    /// Asset correlation of the one-factor (Vasicek) bucket tests: a number in [0, 1), or
+    /// "supervisory" (default: the supervisory corporate formula of each bucket's PD).
+    pub asset_correlation: Option<CorrelationChoice>,
+}
+
+/// `backtest.asset_correlation` as written: a number or the word "supervisory".
+#[derive(Debug, Clone, Copy, PartialEq, Deserialize, Serialize)]
+#[serde(untagged)]
+pub enum CorrelationChoice {
+    Fixed(f64),
+    Named(CorrelationName),
+}
+
+/// The named asset-correlation choices.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum CorrelationName {
+    Supervisory,
 }
 
 fn backtest_stage(k: &BacktestSection, inputs: &InputPaths, path: &Path) -> Result<BacktestStage> {
-    use crate::backtest::{Bucketing, CensoringPolicy};
+    use crate::backtest::{AssetCorrelation, Bucketing, CensoringPolicy};
     let enabled =
         k.enabled.unwrap_or(inputs.grades.is_some() || inputs.defaults.is_some() || inputs.cohort_history.is_some());
     let frequency = k.cohorts.unwrap_or(CohortFrequency::Annual);
@@ -212,6 +247,11 @@ fn backtest_stage(k: &BacktestSection, inputs: &InputPaths, path: &Path) -> Resu
         bucketing,
         level: k.level.unwrap_or(0.95),
         zones,
+        outcome_end: k.outcome_end,
+        correlation: match k.asset_correlation {
+            None | Some(CorrelationChoice::Named(CorrelationName::Supervisory)) => AssetCorrelation::Supervisory,
+            Some(CorrelationChoice::Fixed(r)) => AssetCorrelation::Fixed(r),
+        },
     };
     core.check().map_err(|e| bad(path, "backtest", e.to_string()))?;
     let recovery_scenarios = k.recovery_scenarios.clone().unwrap_or_else(|| vec![0.25, 0.55]);
@@ -819,4 +859,28 @@ fn normalise(p: &Path) -> PathBuf {
         }
     }
     out.iter().collect()
+}
+
+#[cfg(test)]
+mod backtest_settings_tests {
+    use super::*;
+
+    /// The commented example pipeline loads, with the backtest settings it documents; a fixed
+    /// correlation and an outcome end parse, a correlation outside [0, 1) is refused.
+    #[test]
+    fn example_pipeline_and_backtest_settings_parse() {
+        let path = Path::new(concat!(env!("CARGO_MANIFEST_DIR"), "/pipelines/quarterly-review.toml"));
+        let cfg = load_pipeline(path).unwrap();
+        assert_eq!(cfg.backtest.core.correlation, crate::backtest::AssetCorrelation::Supervisory);
+        assert_eq!(cfg.backtest.core.outcome_end, None);
+        let parse = |text: &str| -> PipelineFile { toml::from_str(text).unwrap() };
+        let f = parse("[backtest]\nasset_correlation = 0.12\noutcome_end = \"2019-12-31\"\n");
+        let s = backtest_stage(&f.backtest, &InputPaths::default(), Path::new("x.toml")).unwrap();
+        assert_eq!(s.core.correlation, crate::backtest::AssetCorrelation::Fixed(0.12));
+        assert_eq!(s.core.outcome_end, NaiveDate::from_ymd_opt(2019, 12, 31));
+        let f = parse("[backtest]\nasset_correlation = 1.5\n");
+        let err = backtest_stage(&f.backtest, &InputPaths::default(), Path::new("x.toml")).unwrap_err();
+        assert!(err.to_string().contains("asset correlation 1.5"), "{err}");
+        assert!(toml::from_str::<PipelineFile>("[backtest]\nasset_correlation = \"high\"\n").is_err());
+    }
 }

@@ -72,6 +72,10 @@ pub struct EntityRow {
     pub name: Option<String>,
     pub sector: Option<String>,
     pub region: Option<String>,
+    /// The date the entity left the institution's coverage: the defaults table does not
+    /// observe it after that date (the backtest censors its members there). Empty: covered
+    /// to the end of the study.
+    pub coverage_end: Option<NaiveDate>,
 }
 
 pub fn read_entities(path: &Path) -> Result<Rows<EntityRow>> {
@@ -80,6 +84,7 @@ pub fn read_entities(path: &Path) -> Result<Rows<EntityRow>> {
         ColumnSpec { name: "name", kind: Kind::Text, required: false },
         ColumnSpec { name: "sector", kind: Kind::Text, required: false },
         ColumnSpec { name: "region", kind: Kind::Text, required: false },
+        ColumnSpec { name: "coverage_end", kind: Kind::Date, required: false },
     ];
     read_rows(
         ENTITIES,
@@ -88,7 +93,17 @@ pub fn read_entities(path: &Path) -> Result<Rows<EntityRow>> {
         |f, i| (None, text(f.cell(0, i)), String::new()),
         |f, i, src, row| {
             let entity = required_text(f.cell(0, i), ENTITIES, "entity", src, row)?.text().unwrap_or_default();
-            Ok(EntityRow { entity, name: text(f.cell(1, i)), sector: text(f.cell(2, i)), region: text(f.cell(3, i)) })
+            let coverage_end = match f.cell(4, i) {
+                Cell::Null => None,
+                c => Some(required_date(c, ENTITIES, "coverage_end", src, row)?),
+            };
+            Ok(EntityRow {
+                entity,
+                name: text(f.cell(1, i)),
+                sector: text(f.cell(2, i)),
+                region: text(f.cell(3, i)),
+                coverage_end,
+            })
         },
     )
 }

@@ -994,6 +994,130 @@ pub fn quantile_bands_by_category(title: &str, y_desc: &str, items: &[(String, [
     Ok(svg)
 }
 
+/// Curves on the unit square (ROC and CAP curves): each series a polyline of (x, y) in
+/// [0, 1]^2, drawn without markers, with the dashed diagonal of a score that ranks at random
+/// and, when given, a grey reference polyline (the perfect ranking of a CAP curve).
+pub fn unit_square_curves(
+    title: &str,
+    x_desc: &str,
+    y_desc: &str,
+    series: &[(String, Vec<(f64, f64)>)],
+    reference: Option<(&str, Vec<(f64, f64)>)>,
+) -> Result<String, String> {
+    const SIZE: (u32, u32) = (520, 480);
+    if series.iter().all(|(_, p)| p.len() < 2) {
+        return no_data_svg(title, SIZE);
+    }
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, SIZE).into_drawing_area();
+        root.fill(&WHITE).map_err(err)?;
+        let mut chart = ChartBuilder::on(&root)
+            .caption(title, ("sans-serif", 16))
+            .margin(12)
+            .x_label_area_size(40)
+            .y_label_area_size(52)
+            .build_cartesian_2d(0.0..1.0, 0.0..1.0)
+            .map_err(err)?;
+        chart
+            .configure_mesh()
+            .x_desc(x_desc)
+            .y_desc(y_desc)
+            .x_label_formatter(&|x| format!("{x:.1}"))
+            .y_label_formatter(&|y| format!("{y:.1}"))
+            .light_line_style(RGBColor(235, 235, 235))
+            .bold_line_style(RGBColor(225, 225, 225))
+            .draw()
+            .map_err(err)?;
+        let grey = RGBColor(120, 120, 120);
+        chart
+            .draw_series(DashedLineSeries::new(vec![(0.0, 0.0), (1.0, 1.0)], 6, 4, grey.stroke_width(1)))
+            .map_err(err)?
+            .label("random ranking")
+            .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], grey.stroke_width(1)));
+        if let Some((name, pts)) = reference {
+            let light = RGBColor(170, 170, 170);
+            chart
+                .draw_series(LineSeries::new(pts, light.stroke_width(1)))
+                .map_err(err)?
+                .label(name)
+                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], light.stroke_width(1)));
+        }
+        for (k, (name, pts)) in series.iter().enumerate() {
+            let colour = PALETTE[k % PALETTE.len()];
+            let pts: Vec<(f64, f64)> = pts.iter().copied().filter(|p| usable(p.0) && usable(p.1)).collect();
+            chart
+                .draw_series(LineSeries::new(pts, colour.stroke_width(2)))
+                .map_err(err)?
+                .label(name.clone())
+                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], colour.stroke_width(2)));
+        }
+        chart
+            .configure_series_labels()
+            .background_style(WHITE.mix(0.9))
+            .border_style(BLACK)
+            .position(SeriesLabelPosition::LowerRight)
+            .draw()
+            .map_err(err)?;
+        root.present().map_err(err)?;
+    }
+    Ok(svg)
+}
+
+/// Cumulative default rates against years since the cohort date: per series a step polyline
+/// (the realised Kaplan-Meier rate) and, in the same colour, hollow markers at the implied
+/// PDs of the configured horizons.
+pub fn cumulative_rates(title: &str, series: &[(String, Vec<(f64, f64)>, Vec<(f64, f64)>)]) -> Result<String, String> {
+    const SIZE: (u32, u32) = (760, 440);
+    let pts = || series.iter().flat_map(|(_, a, b)| a.iter().chain(b.iter())).filter(|p| usable(p.0) && usable(p.1));
+    if pts().next().is_none() {
+        return no_data_svg(title, SIZE);
+    }
+    let x_hi = pts().map(|p| p.0).fold(0.0, f64::max).max(1.0) * 1.04;
+    let y_top = pts().map(|p| p.1).fold(0.0, f64::max).max(1e-3);
+    let y_hi = y_top * (1.1 + 0.06 * series.len() as f64);
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, SIZE).into_drawing_area();
+        root.fill(&WHITE).map_err(err)?;
+        let mut chart = ChartBuilder::on(&root)
+            .caption(title, ("sans-serif", 16))
+            .margin(12)
+            .x_label_area_size(40)
+            .y_label_area_size(60)
+            .build_cartesian_2d(0.0..x_hi, 0.0..y_hi)
+            .map_err(err)?;
+        chart
+            .configure_mesh()
+            .x_desc("years since the cohort date")
+            .y_desc("cumulative default rate")
+            .x_label_formatter(&|x| format!("{x:.1}"))
+            .y_label_formatter(&|y| format!("{:.0}%", y * 100.0))
+            .light_line_style(RGBColor(240, 240, 240))
+            .bold_line_style(RGBColor(225, 225, 225))
+            .draw()
+            .map_err(err)?;
+        for (k, (name, steps, implied)) in series.iter().enumerate() {
+            let colour = PALETTE[k % PALETTE.len()];
+            chart
+                .draw_series(LineSeries::new(steps.iter().copied(), colour.stroke_width(2)))
+                .map_err(err)?
+                .label(name.clone())
+                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], colour.stroke_width(2)));
+            chart.draw_series(implied.iter().map(|p| Circle::new(*p, 5, colour.stroke_width(2)))).map_err(err)?;
+        }
+        chart
+            .configure_series_labels()
+            .background_style(WHITE.mix(0.9))
+            .border_style(BLACK)
+            .position(SeriesLabelPosition::UpperLeft)
+            .draw()
+            .map_err(err)?;
+        root.present().map_err(err)?;
+    }
+    Ok(svg)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

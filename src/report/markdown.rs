@@ -28,6 +28,25 @@ pub(super) fn pct(x: f64) -> String {
     format!("{:.1}%", x * 100.0)
 }
 
+/// `part` of `whole` as a percentage with one decimal, or as many more as it takes for a
+/// shortfall never to read 100% and a non-zero part never to read 0% (29 failures in 303,387
+/// read 99.99%, not 100.0%).
+pub(super) fn share(part: u64, whole: u64) -> String {
+    if whole == 0 {
+        return "-".into();
+    }
+    let x = 100.0 * part as f64 / whole as f64;
+    for decimals in 1..=9 {
+        let text = format!("{x:.decimals$}");
+        let reads_full = text.parse::<f64>().is_ok_and(|v| v >= 100.0);
+        let reads_zero = text.parse::<f64>().is_ok_and(|v| v <= 0.0);
+        if !(part < whole && reads_full || part > 0 && reads_zero) {
+            return format!("{text}%");
+        }
+    }
+    format!("{x:e}%")
+}
+
 /// Text from the data (an entity, a currency, a bond or tenor label, a sentence naming them)
 /// made safe for a Markdown table cell and for HTML: characters that would end a cell, start a
 /// link, an image, a code span or a tag are escaped. Plain names pass unchanged.
@@ -296,7 +315,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     let _ = writeln!(
         w,
         "| rows rejected | {rej_total} of {in_total} ({}) | {} |",
-        pct(rej_total as f64 / in_total.max(1) as f64),
+        share(rej_total, in_total),
         if rej_total == 0 { "pass" } else { "see section 2" }
     );
     let _ = writeln!(
@@ -304,14 +323,14 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         "| curves with every node calibrated | {} of {} ({}) | {} |",
         n_curves - n_bad_curves,
         n_curves,
-        pct((n_curves - n_bad_curves) as f64 / n_curves.max(1) as f64),
+        share((n_curves - n_bad_curves) as u64, n_curves as u64),
         if n_bad_curves == 0 { "pass" } else { "flagged" }
     );
     let _ = writeln!(
         w,
         "| calibrated quotes repricing within {tolerance_bp:e} bp | {within} of {} ({}) | {} |",
         ok_res,
-        pct(within as f64 / ok_res.max(1) as f64),
+        share(within as u64, ok_res as u64),
         if within == ok_res { "pass" } else { "flagged" }
     );
     if !bond_curves.is_empty() {
@@ -334,7 +353,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
             w,
             "| CIR fits converged (status `ok`) | {ok} of {} ({}) | {} |",
             params.len(),
-            pct(ok as f64 / params.len() as f64),
+            share(ok as u64, params.len() as u64),
             if ok == params.len() { "pass" } else { "see section 3" }
         );
     }
@@ -353,25 +372,10 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         if st_flags.is_empty() { "pass" } else { "see sections 4 and 6" }
     );
     if backtest_rows > 0 {
-        let b = readback::read_frame(&t.join("backtest_buckets.parquet"))?;
-        let bp = t.join("backtest_buckets.parquet");
-        let (coh, zone, rec) = (
-            readback::strs(&b, &bp, "cohort")?,
-            readback::strs(&b, &bp, "zone")?,
-            readback::floats(&b, &bp, "recovery")?,
-        );
-        let base_r = settings.recovery;
-        let pooled: Vec<usize> = (0..b.height())
-            .filter(|&i| coh[i].as_deref() == Some("all") && rec[i].is_some_and(|r| (r - base_r).abs() < 1e-9))
-            .collect();
-        let red_b = pooled.iter().filter(|&&i| zone[i].as_deref() == Some("red")).count();
-        let yellow_b = pooled.iter().filter(|&&i| zone[i].as_deref() == Some("yellow")).count();
-        let _ = writeln!(
-            w,
-            "| backtest buckets (pooled cohorts) in the red / yellow zone | {red_b} / {yellow_b} of {} | {} |",
-            pooled.len(),
-            if red_b == 0 { "pass" } else { "see section 5" }
-        );
+        let setting =
+            |k: &str| settings.backtest_settings.iter().find(|(n, _)| n == k).map_or(String::new(), |(_, v)| v.clone());
+        let verdicts = super::verdicts_section::read_verdicts(&t)?;
+        super::verdicts_section::summary_rows(w, &verdicts, &setting("zone_yellow"), &setting("zone_red"));
     }
     let _ = writeln!(w);
     super::findings::findings_section(w, &flags);
@@ -540,7 +544,16 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     super::sections::stability_section(w, &t, &charts_dir, &mut figure, 4)?;
     let base_recovery = settings.recovery;
     let backtest_enabled = settings.backtest_enabled(&manifest_path)?;
-    super::sections::backtest_section(w, &t, &charts_dir, &mut figure, 5, base_recovery, backtest_enabled)?;
+    super::sections::backtest_section(
+        w,
+        &t,
+        &charts_dir,
+        &mut figure,
+        5,
+        base_recovery,
+        backtest_enabled,
+        &settings.backtest_settings,
+    )?;
 
     // 6. Flags
     let _ = writeln!(w, "## 6. Flags\n");
@@ -626,11 +639,26 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     let pairs = |list: &[(String, String)]| -> String {
         list.iter().map(|(k, v)| format!("{k} = {v}")).collect::<Vec<_>>().join("; ")
     };
-    let _ = writeln!(w, "- Backtest: implied PD 1 - S(h) from the member's latest curve within the look-back (used as of its own date); outcome a default in (t, t + h]; Clopper-Pearson exact, Jeffreys (lower bound 0 when d = 0, upper 1 when d = n; Brown, Cai and DasGupta, 2001) and Wilson intervals; binomial tails P[D >= d] and P[D <= d] computed directly, never as 1 - cdf; the Jeffreys test p-value is the Beta(d + 1/2, n - d + 1/2) cdf at the mean implied PD; the zone is green, yellow or red by the upper-tail binomial p-value; Hosmer-Lemeshow with k degrees of freedom for k given forecasts (Basel Committee working paper 14, 2005); Garwood (1936) exact Poisson interval for the historical intensity. Settings in force: {}.", pairs(&s.backtest_settings));
+    let _ = writeln!(w, "- Backtest: implied PD 1 - S(h) from the member's latest curve within the look-back (used as of its own date); outcome a default in (t, t + h], observed to the outcome end for every entity (the defaults table covers entities whether or not they are quoted), censored only where the entity's coverage ends (defaulters and survivors alike); a cohort whose horizon ends after the outcome end is incomplete: listed, never tested, never pooled. Realised rates d / n, or Kaplan-Meier (1958) with Greenwood's (1926) variance and a log-transform interval where members were censored. Clopper-Pearson exact, Jeffreys (lower bound 0 when d = 0, upper 1 when d = n; Brown, Cai and DasGupta, 2001) and Wilson intervals; binomial tails P[D >= d] and P[D <= d] computed directly, never as 1 - cdf, each with its zone (the upper tail says the PD is too low, the risk finding; the lower tail that it is too high, the premium); the Jeffreys test p-value is the Beta(d + 1/2, n - d + 1/2) cdf at the mean implied PD. Correlated defaults: the one-factor Gaussian (Vasicek) count distribution with asset correlation rho (a setting; by default the supervisory corporate formula of the bucket's one-year PD, recalled from memory of the supervisory text), both tails and the central interval of the default rate. Hosmer-Lemeshow with k degrees of freedom for k given forecasts (Basel Committee working paper 14, 2005); Spiegelhalter (1986) z and the Brier score over members; Herfindahl-Hirschman index of the members over buckets. Discrimination: AUC with ties counted one half, DeLong, DeLong and Clarke-Pearson (1988) standard error and interval, Gini = 2 AUC - 1, the paired DeLong test of implied PD against grade. Term structure: Kaplan-Meier over every cohort, complete or not, with the one-sample log-rank test (Breslow, 1975) of observed against expected defaults, exact under Poisson. Verdicts: one status per family (table `backtest_verdicts`): pass only when none of its tests has p below zone_yellow. Garwood (1936) exact Poisson interval for the historical intensity. Every bucket, interval, AUC and ratio can be recomputed from `tables/backtest_members.parquet` (one row per member, horizon and recovery: curve date, implied PD, outcome, event date, exposure, integrated hazard). Settings in force: {}.", pairs(&s.backtest_settings));
     let _ = writeln!(w, "- Stability: per review period and series (per entity, per grade, universe): mean, standard deviation, coefficient of variation, largest daily move, share of large daily moves, failures, period-on-period change of the mean and median, and the parameter's daily relative move against the spreads'. PSI = sum (a - e) ln(a / e) over buckets with an empty bucket's share replaced by psi_epsilon, thresholds 0.10 and 0.25 (common practice, no single source); CUSUM of recursive residuals with the Brown, Durbin and Evans (1975, JRSS B) boundary. Every threshold in force: {}.", pairs(&s.stability_settings));
     let _ = writeln!(w, "- Reproducibility: the tables and this report are deterministic for the same inputs and pipeline file; timings are in `run.log`, not here.\n");
     let _ = writeln!(w, "## 8. Caution\n\n{CAUTION} Every conclusion should be checked against the data and these method notes before it is relied on.");
     write_text(&run_dir.join("report.md"), &md)
+}
+
+#[cfg(test)]
+mod share_tests {
+    use super::share;
+
+    #[test]
+    fn a_shortfall_never_reads_full_and_a_part_never_reads_zero() {
+        assert_eq!(share(303_358, 303_387), "99.99%");
+        assert_eq!(share(303_387, 303_387), "100.0%");
+        assert_eq!(share(1, 2_427_452), "0.00004%");
+        assert_eq!(share(0, 10), "0.0%");
+        assert_eq!(share(1, 3), "33.3%");
+        assert_eq!(share(3, 0), "-");
+    }
 }
 
 #[cfg(test)]

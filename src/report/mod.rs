@@ -13,3 +13,4 @@ mod folds;
 pub mod markdown;
 pub mod progress;
 pub mod sections;
+mod verdicts_section;

@@ -9,15 +9,15 @@ use std::collections::{BTreeMap, BTreeSet};
 use std::fmt::Write as _;
 use std::path::Path;
 
-fn pct(x: f64) -> String {
+pub(super) fn pct(x: f64) -> String {
     format!("{:.2}%", 100.0 * x)
 }
 
-fn opt(x: Option<f64>, f: impl Fn(f64) -> String) -> String {
+pub(super) fn opt(x: Option<f64>, f: impl Fn(f64) -> String) -> String {
     x.filter(|v| v.is_finite()).map(f).unwrap_or_else(|| "-".into())
 }
 
-fn sci(x: f64) -> String {
+pub(super) fn sci(x: f64) -> String {
     if x == 0.0 {
         "0".into()
     } else if x.abs() >= 1e-3 {
@@ -27,7 +27,7 @@ fn sci(x: f64) -> String {
     }
 }
 
-fn save_chart(charts_dir: &Path, name: &str, svg: std::result::Result<String, String>) -> Result<bool> {
+pub(super) fn save_chart(charts_dir: &Path, name: &str, svg: std::result::Result<String, String>) -> Result<bool> {
     match svg {
         Ok(text) => {
             std::fs::create_dir_all(charts_dir)
@@ -43,52 +43,29 @@ fn save_chart(charts_dir: &Path, name: &str, svg: std::result::Result<String, St
 }
 
 /// Grade number of a bucket label `grade N`, for ordering.
-fn bucket_order(b: &str) -> (u32, String) {
+pub(super) fn bucket_order(b: &str) -> (u32, String) {
     b.strip_prefix("grade ").and_then(|g| g.parse().ok()).map_or((u32::MAX, b.to_string()), |g| (g, String::new()))
 }
 
+/// The fields of a `backtest_buckets` row the section reads outside its typed tables.
 struct Bucket {
     cohort: String,
     horizon: i64,
     bucket: String,
     recovery: f64,
-    n: i64,
-    defaults: i64,
-    censored: i64,
     realised: Option<f64>,
     implied: Option<f64>,
-    cp: (Option<f64>, Option<f64>),
-    jeffreys: (Option<f64>, Option<f64>),
-    p_upper: Option<f64>,
-    p_lower: Option<f64>,
-    p_jeffreys: Option<f64>,
-    zone: Option<String>,
 }
 
 fn read_buckets(path: &Path) -> Result<Vec<Bucket>> {
     let df = read_frame(path)?;
-    let (c, h, b, r, n, d, nc) = (
+    let (c, h, b, r, rr, ip) = (
         strs(&df, path, "cohort")?,
         ints(&df, path, "horizon")?,
         strs(&df, path, "bucket")?,
         floats(&df, path, "recovery")?,
-        ints(&df, path, "n")?,
-        ints(&df, path, "defaults")?,
-        ints(&df, path, "n_censored")?,
-    );
-    let (rr, ip, cl, ch, jl, jh) = (
         floats(&df, path, "realised_rate")?,
         floats(&df, path, "implied_pd")?,
-        floats(&df, path, "cp_lo")?,
-        floats(&df, path, "cp_hi")?,
-        floats(&df, path, "jeffreys_lo")?,
-        floats(&df, path, "jeffreys_hi")?,
-    );
-    let (pu, pl, pj, z) = (
-        floats(&df, path, "p_binom_upper")?,
-        floats(&df, path, "p_binom_lower")?,
-        floats(&df, path, "p_jeffreys")?,
-        strs(&df, path, "zone")?,
     );
     Ok((0..df.height())
         .map(|i| Bucket {
@@ -96,17 +73,8 @@ fn read_buckets(path: &Path) -> Result<Vec<Bucket>> {
             horizon: h[i].unwrap_or(0),
             bucket: b[i].clone().unwrap_or_default(),
             recovery: r[i].unwrap_or(f64::NAN),
-            n: n[i].unwrap_or(0),
-            defaults: d[i].unwrap_or(0),
-            censored: nc[i].unwrap_or(0),
             realised: rr[i],
             implied: ip[i],
-            cp: (cl[i], ch[i]),
-            jeffreys: (jl[i], jh[i]),
-            p_upper: pu[i],
-            p_lower: pl[i],
-            p_jeffreys: pj[i],
-            zone: z[i].clone(),
         })
         .collect())
 }
@@ -175,8 +143,12 @@ pub fn backtest_section(
     number: usize,
     base_recovery: f64,
     enabled: bool,
+    settings: &[(String, String)],
 ) -> Result<()> {
     let _ = writeln!(w, "## {number}. Backtest and risk premia\n");
+    let setting = |k: &str| settings.iter().find(|(n, _)| n == k).map(|(_, v)| v.as_str());
+    let (yellow, red) = (setting("zone_yellow").unwrap_or("0.05"), setting("zone_red").unwrap_or("0.001"));
+    let survivor_policy = setting("censoring").is_some_and(|c| c.starts_with("count as survivor"));
     let bpath = tables.join("backtest_buckets.parquet");
     if !enabled || !bpath.exists() {
         let _ = writeln!(w, "The backtest did not run (no grades, defaults or cohort history were given, or `[backtest] enabled = false`).\n");
@@ -199,48 +171,68 @@ pub fn backtest_section(
     let cohorts: BTreeSet<&str> = base.iter().map(|b| b.cohort.as_str()).filter(|c| *c != "all").collect();
     let _ = writeln!(
         w,
-        "Cohorts are formed on {} cohort dates ({}); a member is an entity not in default with a calibrated curve within the look-back window, its implied PD is 1 - S(h) from that curve, and its outcome is a default in (t, t + h]. Realised outcomes come from the `defaults` table{}. Recovery {} is the base; the implied PDs under the sensitivity recoveries are at the end of the section.\n",
+        "Cohorts are formed on {} cohort dates ({}); a member is an entity not in default with a calibrated curve within the look-back window, its implied PD is 1 - S(h) from that curve, and its outcome is a default in (t, t + h], observed to the outcome end ({}) whether or not the entity is still quoted: the defaults table covers every entity. A member leaves observation early only when its coverage ends (the entities table's `coverage_end`); it is then censored, defaulters and survivors alike, and the realised rate of its bucket is the Kaplan-Meier estimate with a Greenwood interval (marked KM) rather than d / n. Realised outcomes come from the `defaults` table{}. Recovery {} is the base; the implied PDs under the sensitivity recoveries are at the end of the section. Every number below can be recomputed from `tables/backtest_members.parquet`, one row per member, horizon and recovery.\n",
         cohorts.len(),
         cohorts.iter().copied().collect::<Vec<_>>().join(", "),
+        setting("outcome_end").unwrap_or("the last quote date of the input"),
         if history_df.height() > 0 { " and, for the longer history, from the institution's `cohort_history`" } else { "" },
         pct(base_recovery)
     );
+    let verdicts = super::verdicts_section::read_verdicts(tables)?;
+    super::verdicts_section::verdict_table(w, &verdicts, yellow, red);
+    let records = crate::tables::read_from::<crate::tables::BucketRecord>(&bpath)?;
+    let base_records: Vec<&crate::tables::BucketRecord> = records.iter().filter(|b| same(b.recovery)).collect();
+    if !base_records.is_empty() {
+        super::verdicts_section::incomplete_cohorts(w, &base_records, setting("outcome_end"));
+    }
     for &h in &horizons {
         let mut rows: Vec<&&Bucket> = base.iter().filter(|b| b.horizon == h && b.cohort == "all").collect();
         rows.sort_by_key(|b| bucket_order(&b.bucket));
-        let level = 0.95;
+        let level = base_records.first().map_or(0.95, |b| b.row.level);
         let _ = writeln!(w, "### Implied against realised, {h}Y horizon, all cohorts pooled\n");
-        let _ = writeln!(w, "| bucket | n | censored | defaults | realised | mean implied PD | Clopper-Pearson | Jeffreys | P[D >= d] | P[D <= d] | Jeffreys p | zone |\n| --- | ---: | ---: | ---: | ---: | ---: | --- | --- | ---: | ---: | ---: | --- |");
-        for b in &rows {
+        let _ = writeln!(w, "| bucket | n | censored | defaults | realised | mean implied PD | Clopper-Pearson | Jeffreys | P[D >= d] | P[D <= d] | Jeffreys p | zone (PD too low) | zone (PD too high) |\n| --- | ---: | ---: | ---: | ---: | ---: | --- | --- | ---: | ---: | ---: | --- | --- |");
+        let pooled_records = super::verdicts_section::pooled(&base_records, h as u32);
+        for b in &pooled_records {
+            let r = &b.row;
+            let realised = match r.rate_method {
+                Some(crate::backtest::RateMethod::KaplanMeier) => {
+                    format!("{} KM [{}, {}]", opt(r.realised_rate, pct), opt(r.km_lo, pct), opt(r.km_hi, pct))
+                }
+                _ => opt(r.realised_rate, pct),
+            };
             let _ = writeln!(
                 w,
-                "| {} | {} | {} | {} | {} | {} | [{}, {}] | [{}, {}] | {} | {} | {} | {} |",
-                b.bucket,
-                b.n,
-                b.censored,
-                b.defaults,
-                opt(b.realised, pct),
-                opt(b.implied, pct),
-                opt(b.cp.0, pct),
-                opt(b.cp.1, pct),
-                opt(b.jeffreys.0, pct),
-                opt(b.jeffreys.1, pct),
-                opt(b.p_upper, sci),
-                opt(b.p_lower, sci),
-                opt(b.p_jeffreys, sci),
-                b.zone.as_deref().unwrap_or("-")
+                "| {} | {} | {} | {} | {} | {} | [{}, {}] | [{}, {}] | {} | {} | {} | {} | {} |",
+                r.bucket,
+                r.n,
+                r.n_censored,
+                r.defaults,
+                realised,
+                opt(r.implied_pd, pct),
+                opt(r.cp_lo, pct),
+                opt(r.cp_hi, pct),
+                opt(r.jeffreys_lo, pct),
+                opt(r.jeffreys_hi, pct),
+                opt(r.p_binom_upper, sci),
+                opt(r.p_binom_lower, sci),
+                opt(r.p_jeffreys, sci),
+                r.zone.map_or("-", |z| z.as_str()),
+                r.zone_lower.map_or("-", |z| z.as_str())
             );
         }
         let above = rows.iter().filter(|b| matches!((b.implied, b.realised), (Some(i), Some(r)) if i > r)).count();
-        let _ = writeln!(w, "\nThe mean implied PD is above the realised rate in {above} of {} buckets (intervals at {level} two-sided; zones from the upper-tail binomial p-value).\n", rows.len());
-        let items: Vec<IntervalItem> = rows
+        let _ = writeln!(w, "\nThe mean implied PD is above the realised rate in {above} of {} buckets (intervals at {level} two-sided). The zone \"PD too low\" is read from the upper-tail binomial p-value P[D >= d] (under-prediction, the risk finding); \"PD too high\" from the lower tail P[D <= d] (over-prediction, the premium): green at p >= {yellow}, yellow below it, red below {red}.\n", rows.len());
+        let items: Vec<IntervalItem> = pooled_records
             .iter()
-            .map(|b| IntervalItem {
-                label: b.bucket.trim_start_matches("grade ").to_string(),
-                estimate: b.realised,
-                lo: b.cp.0,
-                hi: b.cp.1,
-                reference: b.implied,
+            .map(|b| {
+                let km = b.row.rate_method == Some(crate::backtest::RateMethod::KaplanMeier);
+                IntervalItem {
+                    label: b.row.bucket.trim_start_matches("grade ").to_string(),
+                    estimate: b.row.realised_rate,
+                    lo: if km { b.row.km_lo } else { b.row.cp_lo },
+                    hi: if km { b.row.km_hi } else { b.row.cp_hi },
+                    reference: b.row.implied_pd,
+                }
             })
             .collect();
         let name = format!("backtest-{h}y.svg");
@@ -258,37 +250,35 @@ pub fn backtest_section(
         )? {
             *figure += 1;
             let _ = writeln!(w, "![Backtest {h}Y](charts/{name})\n");
-            let _ = writeln!(w, "*Figure {figure}. Realised {h}-year default rate per bucket with its Clopper-Pearson interval (points and bars) against the mean implied PD (red bars), log scale; a zero rate is an open circle at the axis floor.*\n");
+            let _ = writeln!(w, "*Figure {figure}. Realised {h}-year default rate per bucket with its Clopper-Pearson interval (the Greenwood interval where the rate is a Kaplan-Meier estimate; points and bars) against the mean implied PD (red bars), log scale; a zero rate is an open circle at the axis floor.*\n");
         }
+        super::verdicts_section::one_factor_table(w, &pooled_records, h as u32, level);
     }
-    // Hosmer-Lemeshow.
+    // Hosmer-Lemeshow and the obligor-level scores.
     let hl_path = tables.join("backtest_hosmer_lemeshow.parquet");
-    let df = read_frame(&hl_path)?;
-    let (c, h, r, k, s, p, note) = (
-        strs(&df, &hl_path, "cohort")?,
-        ints(&df, &hl_path, "horizon")?,
-        floats(&df, &hl_path, "recovery")?,
-        ints(&df, &hl_path, "buckets")?,
-        floats(&df, &hl_path, "statistic")?,
-        floats(&df, &hl_path, "p_value")?,
-        strs(&df, &hl_path, "note")?,
-    );
-    let _ = writeln!(w, "Hosmer-Lemeshow across buckets (forecasts given, not fitted: k degrees of freedom for k buckets):\n\n| cohort | horizon | buckets | statistic | p-value | note |\n| --- | ---: | ---: | ---: | ---: | --- |");
-    for i in 0..df.height() {
-        if r[i].is_some_and(same) {
-            let _ = writeln!(
-                w,
-                "| {} | {}Y | {} | {} | {} | {} |",
-                c[i].as_deref().unwrap_or(""),
-                h[i].unwrap_or(0),
-                k[i].unwrap_or(0),
-                opt(s[i], |v| format!("{v:.3}")),
-                opt(p[i], sci),
-                note[i].as_deref().unwrap_or("")
-            );
-        }
+    let hl = crate::tables::read_from::<crate::tables::HosmerLemeshowRecord>(&hl_path)?;
+    let _ = writeln!(w, "### Calibration across buckets and obligors\n\nHosmer-Lemeshow across buckets (forecasts given, not fitted: k degrees of freedom for k buckets); Spiegelhalter's (1986) z of the obligor-level forecasts (two-sided p), the Brier score, and the Herfindahl-Hirschman index of the members over buckets (1 / buckets when spread evenly):\n\n| cohort | horizon | n | buckets | HL statistic | HL p-value | Brier | Spiegelhalter z | p-value | HHI | note |\n| --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- |");
+    for x in hl.iter().filter(|x| same(x.recovery)) {
+        let r = &x.row;
+        let _ = writeln!(
+            w,
+            "| {} | {}Y | {} | {} | {} | {} | {} | {} | {} | {} | {} |",
+            r.cohort,
+            r.horizon_years,
+            r.n,
+            r.buckets,
+            opt(r.statistic, |v| format!("{v:.3}")),
+            opt(r.p_value, sci),
+            opt(r.brier, |v| format!("{v:.4}")),
+            opt(r.spiegelhalter_z, |v| format!("{v:.3}")),
+            opt(r.spiegelhalter_p, sci),
+            opt(r.hhi, |v| format!("{v:.3}")),
+            r.note.as_deref().unwrap_or("")
+        );
     }
     let _ = writeln!(w);
+    super::verdicts_section::term_structure_section(w, tables, charts_dir, figure, &same)?;
+    super::verdicts_section::discrimination_section(w, tables, charts_dir, figure, &same, survivor_policy)?;
 
     // Cohort history.
     if history_df.height() > 0 {

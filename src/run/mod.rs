@@ -20,7 +20,7 @@ pub mod selfcheck;
 
 pub use merge::merge;
 
-use crate::backtest::{HistoryRow, RiskPremiumRow};
+use crate::backtest::{HistoryRow, RiskPremiumRow, VerdictRow};
 use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::Dataset;
@@ -39,6 +39,7 @@ use crate::stages::stability::{
 };
 use crate::tables::flags::{FlagRecord, STABILITY};
 use crate::tables::manifest::{hash_file, relative, write_text, CountRecord, FileRecord, InputRecord, Manifest};
+use crate::tables::parts::MemberRecord;
 use crate::tables::review::PsiRecord;
 use crate::tables::*;
 use crate::text::Severity;
@@ -102,7 +103,7 @@ fn counts_records(stage: &str, counts: &[TableCounts]) -> Vec<CountRecord> {
 
 /// Every table a run writes. `intensity_params` and `cds_bond_basis` are always written, empty
 /// (with their schema) when the CIR or bond fit is off, so consumers find the same files.
-pub const TABLES: [&str; 20] = [
+pub const TABLES: [&str; 24] = [
     DataQualityRow::NAME,
     Reject::NAME,
     DiscountCurveRow::NAME,
@@ -110,8 +111,12 @@ pub const TABLES: [&str; 20] = [
     ResidualRow::NAME,
     IntensityParamRow::NAME,
     BasisRow::NAME,
+    MemberRecord::NAME,
     BucketRecord::NAME,
     HosmerLemeshowRecord::NAME,
+    DiscriminationRecord::NAME,
+    TermStructureRecord::NAME,
+    VerdictRow::NAME,
     HistoryRow::NAME,
     RiskPremiumRow::NAME,
     StabilityRow::NAME,
@@ -137,6 +142,13 @@ fn calibration_params(cfg: &RunConfig) -> CalibrationParams {
 /// First and last date of the usable CDS quotes (the panel is sorted by date).
 fn quote_period(ds: &Dataset) -> Option<(chrono::NaiveDate, chrono::NaiveDate)> {
     ds.cds.as_ref().and_then(|p| p.quote_period())
+}
+
+/// The backtest's outcome end: `backtest.outcome_end`, else the last quote date of the whole
+/// input (the end of the input period). Taken before a part cuts the input, so every part and
+/// the merge agree.
+fn outcome_end(cfg: &RunConfig, ds: &Dataset) -> Option<chrono::NaiveDate> {
+    cfg.backtest.core.outcome_end.or(quote_period(ds).map(|p| p.1))
 }
 
 fn run_label(cfg: &RunConfig, opts: &RunOptions, period: Option<(chrono::NaiveDate, chrono::NaiveDate)>) -> String {
@@ -356,7 +368,8 @@ pub fn run(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
         Some(report_folds(cfg)?),
         split_tables(cfg, &ds),
     )?;
-    let scope = keep_dates(&mut ds, DateRange::ALL, cfg);
+    let end = outcome_end(cfg, &ds);
+    let scope = keep_dates(&mut ds, DateRange::ALL, cfg, end);
     let (part, t) = compute_partition(&mut ds, cfg, &params, Shard::ALL, &scope, &mut sinks, &multi)?;
     timings.extend(t);
     finish(cfg, ds, ingest_counts, part, sinks, &multi, folder, &meta, timings, t0)
@@ -382,9 +395,10 @@ pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard, dates: DateRa
     let mut ds = ingest(cfg, &mut timings)?;
     let label = run_label(cfg, opts, quote_period(&ds));
     let inputs = input_records(cfg, &ds.counts)?;
+    let end = outcome_end(cfg, &ds);
     keep_shard(&mut ds, shard);
     let multi = multi_currency_of(cfg, &ds);
-    let scope = keep_dates(&mut ds, dates, cfg);
+    let scope = keep_dates(&mut ds, dates, cfg, end);
     let (_, sha) = hash_file(&cfg.pipeline_path)?;
     let dir = shards_dir(cfg, opts, &label)?.join(shard.folder() + &dates.folder_suffix());
     let folder = PartFolder::create(&dir)?;
@@ -447,6 +461,7 @@ fn finish(
         let with_curves: BTreeSet<&str> = cal.curve_entities.iter().map(String::as_str).collect();
         let ctx = BacktestContext {
             curve_dates: cal.curve_dates,
+            outcome_end: outcome_end(cfg, &ds),
             have_defaults: ds.defaults.is_some(),
             cohort_history: ds.cohort_history.as_ref(),
             defaults_without_curves: first_defaults(&ds).keys().filter(|e| !with_curves.contains(*e)).count(),

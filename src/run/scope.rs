@@ -7,7 +7,7 @@ use crate::config::RunConfig;
 use crate::ingest::Dataset;
 use crate::parts::{DateRange, DateScope, Shard};
 use chrono::NaiveDate;
-use std::collections::{BTreeMap, HashSet};
+use std::collections::HashSet;
 
 /// Keeps the rows of the shard's entities in the tables calibration consumes: CDS quotes by
 /// entity, bonds by issuer, bond prices by their bond's issuer. Ingestion and its rules ran on
@@ -65,24 +65,6 @@ fn leave_out(counts: &mut [crate::ingest::TableCounts], dropped: Vec<(&'static s
     }
 }
 
-/// Each entity's last usable CDS quote date in the panel: where the data on it ends.
-pub fn data_ends(ds: &Dataset) -> BTreeMap<String, NaiveDate> {
-    let mut out = BTreeMap::new();
-    if let Some(p) = &ds.cds {
-        let mut last: Vec<Option<NaiveDate>> = vec![None; p.entities.len()];
-        for r in &p.rows {
-            let slot = &mut last[r.entity as usize];
-            *slot = Some(slot.map_or(r.date, |d| d.max(r.date)));
-        }
-        for (i, d) in last.into_iter().enumerate() {
-            if let Some(d) = d {
-                out.insert(p.entities.name(i as u32).to_string(), d);
-            }
-        }
-    }
-    out
-}
-
 /// Cuts `ds` (after [`keep_shard`]) to the curve dates of `range`, and returns the
 /// [`DateScope`] of the part. The CDS quotes outside the range leave the part's accounting,
 /// but some stay in the panel as a margin that is calibrated and never written: those within
@@ -91,10 +73,9 @@ pub fn data_ends(ds: &Dataset) -> BTreeMap<String, NaiveDate> {
 /// name's first curve: the free mode starts each day from the day before, the
 /// fixed-kappa-sigma mode's windows count the name's days from its first). Bond quotes are
 /// cut to the range (their fits look at one day).
-pub fn keep_dates(ds: &mut Dataset, range: DateRange, cfg: &RunConfig) -> DateScope {
-    let data_end = data_ends(ds);
+pub fn keep_dates(ds: &mut Dataset, range: DateRange, cfg: &RunConfig, outcome_end: Option<NaiveDate>) -> DateScope {
     if range.is_all() {
-        return DateScope { range, data_end };
+        return DateScope { range, outcome_end };
     }
     let lookback = chrono::Duration::days(cfg.backtest.core.lookback_days.max(0));
     let margin_from = range
@@ -128,5 +109,5 @@ pub fn keep_dates(ds: &mut Dataset, range: DateRange, cfg: &RunConfig) -> DateSc
         dropped.push((crate::ingest::tables::BOND_QUOTES, before - q.rows.len()));
     }
     leave_out(&mut ds.counts, dropped);
-    DateScope { range, data_end }
+    DateScope { range, outcome_end }
 }

@@ -4,8 +4,8 @@
 
 use crate::backtest::cohort_dates;
 use crate::backtest::{
-    self, compare_cohort_history, BacktestOutput, BacktestSettings, CohortHistoryRecord, CurveSet, EntityFacts,
-    GradeSpell, HistoryRow, QuotedSpread,
+    self, compare_cohort_history, BacktestOutput, BacktestSettings, CohortHistoryRecord, CurveSet, DatedCurve,
+    EntityFacts, GradeSpell, HistoryRow, QuotedSpread,
 };
 use crate::calibrate::{bootstrap, BootstrapQuote};
 use crate::config::BacktestStage;
@@ -13,7 +13,7 @@ use crate::error::{Error, Result};
 use crate::ingest::Dataset;
 use crate::instruments::CdsQuote;
 use crate::stages::calibrate::{Calibration, CalibrationParams};
-use crate::tables::{self, BucketRecord, HosmerLemeshowRecord};
+use crate::tables::{self, BucketRecord, DiscriminationRecord, HosmerLemeshowRecord, TermStructureRecord};
 use chrono::NaiveDate;
 use rayon::prelude::*;
 use std::collections::{BTreeMap, BTreeSet};
@@ -30,6 +30,10 @@ pub struct BacktestResults {
     pub outcome_sources: Vec<&'static str>,
     /// Entities with a defaults row but no curve (reported, not used).
     pub defaults_without_curves: usize,
+    /// The last date outcomes are observed to (configured, or the last curve date).
+    pub outcome_end: Option<NaiveDate>,
+    /// One status per test family, from the base recovery's rows.
+    pub verdicts: Vec<backtest::VerdictRow>,
 }
 
 /// The par-spread quotes of a curve in bp by tenor (upfront quotes have no par spread).
@@ -43,23 +47,31 @@ pub fn spreads_of(quotes: &[BootstrapQuote]) -> Vec<QuotedSpread> {
         .collect()
 }
 
-/// Entity facts of the quoted entities: grade spells, first default, and where the data on
-/// the entity ends (`data_end`: its last usable CDS quote date).
-fn facts(ds: &Dataset, data_end: &BTreeMap<String, NaiveDate>) -> Vec<EntityFacts> {
+/// Entity facts of the entities with curves: grade spells, first default, and the end of
+/// coverage from the entities table (none: covered to the outcome end). The end of an
+/// entity's quotes censors nothing: the defaults table observes every entity it covers.
+fn facts<'a>(ds: &Dataset, entities: impl Iterator<Item = &'a String>) -> Vec<EntityFacts> {
     let mut spells: BTreeMap<&str, Vec<GradeSpell>> = BTreeMap::new();
     if let Some(g) = &ds.grades {
         for (r, _) in &g.rows {
             spells.entry(r.entity.as_str()).or_default().push(GradeSpell { from_date: r.from_date, grade: r.grade });
         }
     }
+    let mut coverage: BTreeMap<&str, NaiveDate> = BTreeMap::new();
+    if let Some(t) = &ds.entities {
+        for (r, _) in &t.rows {
+            if let Some(end) = r.coverage_end {
+                coverage.insert(r.entity.as_str(), end);
+            }
+        }
+    }
     let defaults = first_defaults(ds);
-    data_end
-        .iter()
-        .map(|(e, end)| EntityFacts {
+    entities
+        .map(|e| EntityFacts {
             entity: e.clone(),
             grades: spells.get(e.as_str()).cloned().unwrap_or_default(),
             default_date: defaults.get(e.as_str()).copied(),
-            data_end: *end,
+            coverage_end: coverage.get(e.as_str()).copied(),
         })
         .collect()
 }
@@ -132,10 +144,13 @@ fn base_curves(cal: &Calibration, recovery: f64, dates: &[NaiveDate], lookback: 
         |d: NaiveDate| dates.get(dates.partition_point(|t| *t < d)).is_some_and(|t| (*t - d).num_days() <= lookback);
     CurveSet::from_keyed(
         recovery,
-        cal.cds_curves
-            .iter()
-            .filter(|((d, _, _), _)| usable(*d))
-            .filter_map(|((d, e, _), c)| c.curve.as_ref().map(|h| ((*d, e.clone()), h.clone(), spreads_of(&c.quotes)))),
+        cal.cds_curves.iter().filter(|((d, _, _), _)| usable(*d)).filter_map(|((d, e, ccy), c)| {
+            c.curve.as_ref().map(|h| {
+                let dc =
+                    DatedCurve { date: *d, currency: ccy.clone(), curve: h.clone(), spreads: spreads_of(&c.quotes) };
+                (e.clone(), dc)
+            })
+        }),
     )
 }
 
@@ -171,7 +186,12 @@ fn scenario_curves(
                 return None;
             }
             let h = fit.curve?;
-            (h.hazards().len() == quotes.len()).then(|| ((*d, e.clone()), h, spreads_of(&curve.quotes)))
+            (h.hazards().len() == quotes.len()).then(|| {
+                (
+                    e.clone(),
+                    DatedCurve { date: *d, currency: (*ccy).clone(), curve: h, spreads: spreads_of(&curve.quotes) },
+                )
+            })
         })
         .collect();
     CurveSet::from_keyed(recovery, items)
@@ -185,8 +205,9 @@ fn scenario_curves(
 /// every cohort date a kept curve can reach (within the part's date range), and
 /// [`backtest_from_members`] keeps those of the run's cohort dates. Every member depends on its
 /// entity alone, and on the curves within the look-back before its cohort date (a date range's
-/// part calibrates those as a margin), so the parts' members concatenate exactly. An entity's
-/// data end is its last usable quote date over the whole history (`scope.data_end`).
+/// part calibrates those as a margin), so the parts' members concatenate exactly. Outcomes
+/// are observed to the run's outcome end (`scope.outcome_end`, a fact of the whole input), so
+/// a window it cuts keeps its exact integrated hazard.
 ///
 /// `cal.cds_curves` needs to hold only the curves [`may_serve_a_cohort`] keeps.
 pub fn backtest_members_stage(
@@ -214,13 +235,13 @@ pub fn backtest_members_stage(
     if dates.is_empty() {
         return Ok(Vec::new());
     }
-    let core = BacktestSettings { cohort_dates: dates.clone(), ..stage.core.clone() };
+    let core = BacktestSettings { cohort_dates: dates.clone(), outcome_end: scope.outcome_end, ..stage.core.clone() };
     let mk = |e: backtest::BacktestError| Error::Stage { stage: "backtest", source: e.into() };
     core.check().map_err(mk)?;
-    let facts = facts(ds, &scope.data_end);
     let mut sorted = dates.clone();
     sorted.sort();
     let base = base_curves(cal, p.recovery, &sorted, core.lookback_days);
+    let facts = facts(ds, base.curves.keys());
     let mut out = vec![(p.recovery, backtest::member_observations(&facts, &base, &core).map_err(mk)?)];
     for &r in &stage.recovery_scenarios {
         if (r - p.recovery).abs() < 1e-12 {
@@ -237,6 +258,8 @@ pub fn backtest_members_stage(
 pub struct BacktestContext<'a> {
     /// First and last CDS curve date of the whole run.
     pub curve_dates: Option<(NaiveDate, NaiveDate)>,
+    /// The run's outcome end (the parts built their members with the same).
+    pub outcome_end: Option<NaiveDate>,
     pub have_defaults: bool,
     pub cohort_history: Option<&'a crate::ingest::tables::Rows<crate::ingest::tables::CohortHistoryRow>>,
     /// Entities with a defaults row but no curve.
@@ -263,7 +286,10 @@ pub fn backtest_from_members(
     if dates.is_empty() {
         return Ok(results);
     }
-    let core = BacktestSettings { cohort_dates: dates.clone(), ..stage.core.clone() };
+    // Outcomes are observed to the study's outcome end: the configured date, else the last
+    // quote date of the input (the end of the input period).
+    let outcome_end = ctx.outcome_end.or(stage.core.outcome_end).unwrap_or(last);
+    let core = BacktestSettings { cohort_dates: dates.clone(), outcome_end: Some(outcome_end), ..stage.core.clone() };
     let mk = |e: backtest::BacktestError| Error::Stage { stage: "backtest", source: e.into() };
     let horizon_rank = |h: u32| core.horizons_years.iter().position(|x| *x == h).unwrap_or(usize::MAX);
     let wanted: BTreeSet<NaiveDate> = dates.iter().copied().collect();
@@ -305,13 +331,43 @@ pub fn backtest_from_members(
     // Without a defaults table the entity-level outcomes are unknown (every member would look
     // like a survivor): only the implied PDs are used, against the cohort history.
     results.outputs = if ctx.have_defaults { outputs } else { Vec::new() };
+    results.outcome_end = Some(outcome_end);
+    if let Some(base) = results.outputs.first() {
+        results.verdicts = backtest::verdict_rows(base, &core);
+    }
     Ok(results)
 }
 
-/// Writes `backtest_buckets`, `backtest_hosmer_lemeshow`, `risk_premia` and (with a cohort
-/// history) `backtest_history`. Bucket and premium rows of every recovery scenario are in the
-/// same tables, told apart by their `recovery` column.
+/// Writes `backtest_members`, `backtest_buckets`, `backtest_hosmer_lemeshow`,
+/// `backtest_discrimination`, `backtest_term_structure`, `backtest_verdicts`, `risk_premia` and (with a cohort history)
+/// `backtest_history`. Rows of every recovery scenario are in the same tables, told apart by
+/// their `recovery` column; the verdicts are the base recovery's.
 pub fn write_backtest_tables(r: &BacktestResults, dir: &Path, meta: &[(String, String)]) -> Result<()> {
+    let members: Vec<tables::parts::MemberRecord> = r
+        .outputs
+        .iter()
+        .flat_map(|o| {
+            o.members.iter().map(move |m| tables::parts::MemberRecord { recovery: o.recovery, member: m.clone() })
+        })
+        .collect();
+    tables::write(&members, dir, meta)?;
+    let disc: Vec<DiscriminationRecord> = r
+        .outputs
+        .iter()
+        .flat_map(|o| {
+            o.discrimination.iter().map(move |d| DiscriminationRecord { recovery: o.recovery, row: d.clone() })
+        })
+        .collect();
+    tables::write(&disc, dir, meta)?;
+    let ts: Vec<TermStructureRecord> = r
+        .outputs
+        .iter()
+        .flat_map(|o| {
+            o.term_structure.iter().map(move |t| TermStructureRecord { recovery: o.recovery, row: t.clone() })
+        })
+        .collect();
+    tables::write(&ts, dir, meta)?;
+    tables::write(&r.verdicts, dir, meta)?;
     let buckets: Vec<BucketRecord> = r
         .outputs
         .iter()

@@ -1,12 +1,15 @@
 //! The backtest's tables: `backtest_buckets` (implied against realised default rates per
 //! cohort, horizon and bucket, every recovery scenario told apart by `recovery`),
-//! `backtest_hosmer_lemeshow`, `risk_premia` and `backtest_history` (the cohort-history
-//! comparison).
+//! `backtest_hosmer_lemeshow`, `backtest_discrimination`, `backtest_verdicts`, `risk_premia`
+//! and `backtest_history` (the cohort-history comparison). `backtest_members`, the rows all of
+//! these are computed from, is in `parts.rs` (the part folders carry it too).
 
 use super::parquet::TableBuilder;
 use super::readback::{floats, intern, ints, strs, text_form};
 use super::{col, Column, Kind::*, Table};
-use crate::backtest::{BucketRow, HistoryRow, HosmerLemeshowRow, RiskPremiumRow};
+use crate::backtest::{
+    BucketRow, DiscriminationRow, HistoryRow, HosmerLemeshowRow, RiskPremiumRow, TermStructureRow, VerdictRow,
+};
 use crate::error::Result;
 use polars::prelude::DataFrame;
 use std::path::Path;
@@ -40,7 +43,11 @@ impl Table for BucketRecord {
         col("n", Int),
         col("defaults", Int),
         col("n_censored", Int),
+        col("n_incomplete", Int),
         col("realised_rate", Float),
+        col("rate_method", Text),
+        col("km_lo", Float),
+        col("km_hi", Float),
         col("implied_pd", Float),
         col("cp_lo", Float),
         col("cp_hi", Float),
@@ -52,11 +59,22 @@ impl Table for BucketRecord {
         col("p_binom_lower", Float),
         col("p_jeffreys", Float),
         col("zone", Text),
+        col("zone_lower", Text),
+        col("rho", Float),
+        col("p_vasicek_upper", Float),
+        col("p_vasicek_lower", Float),
+        col("vasicek_lo", Float),
+        col("vasicek_hi", Float),
+        col("zone_vasicek", Text),
         col("outcome_source", Text),
     ];
 
     fn frame(rows: &[Self]) -> Result<DataFrame> {
         let rows: Vec<(f64, &BucketRow)> = rows.iter().map(|r| (r.recovery, &r.row)).collect();
+        let fl = |get: fn(&BucketRow) -> Option<f64>| rows.iter().map(move |(_, b)| get(b)).collect::<Vec<_>>();
+        let zone = |get: fn(&BucketRow) -> Option<crate::stats::Zone>| {
+            rows.iter().map(move |(_, b)| get(b).map(|z| z.as_str())).collect::<Vec<_>>()
+        };
         TableBuilder::new()
             .strings("cohort", rows.iter().map(|(_, b)| Some(&b.cohort)))
             .ints("horizon", rows.iter().map(|(_, b)| Some(b.horizon_years as i64)))
@@ -66,18 +84,29 @@ impl Table for BucketRecord {
             .ints("n", rows.iter().map(|(_, b)| Some(b.n as i64)))
             .ints("defaults", rows.iter().map(|(_, b)| Some(b.defaults as i64)))
             .ints("n_censored", rows.iter().map(|(_, b)| Some(b.n_censored as i64)))
-            .floats("realised_rate", rows.iter().map(|(_, b)| b.realised_rate))
-            .floats("implied_pd", rows.iter().map(|(_, b)| b.implied_pd))
-            .floats("cp_lo", rows.iter().map(|(_, b)| b.cp_lo))
-            .floats("cp_hi", rows.iter().map(|(_, b)| b.cp_hi))
-            .floats("jeffreys_lo", rows.iter().map(|(_, b)| b.jeffreys_lo))
-            .floats("jeffreys_hi", rows.iter().map(|(_, b)| b.jeffreys_hi))
-            .floats("wilson_lo", rows.iter().map(|(_, b)| b.wilson_lo))
-            .floats("wilson_hi", rows.iter().map(|(_, b)| b.wilson_hi))
-            .floats("p_binom_upper", rows.iter().map(|(_, b)| b.p_binom_upper))
-            .floats("p_binom_lower", rows.iter().map(|(_, b)| b.p_binom_lower))
-            .floats("p_jeffreys", rows.iter().map(|(_, b)| b.p_jeffreys))
-            .strings("zone", rows.iter().map(|(_, b)| b.zone.map(|z| z.as_str())))
+            .ints("n_incomplete", rows.iter().map(|(_, b)| Some(b.n_incomplete as i64)))
+            .floats("realised_rate", fl(|b| b.realised_rate))
+            .strings("rate_method", rows.iter().map(|(_, b)| b.rate_method.map(|m| m.as_str())))
+            .floats("km_lo", fl(|b| b.km_lo))
+            .floats("km_hi", fl(|b| b.km_hi))
+            .floats("implied_pd", fl(|b| b.implied_pd))
+            .floats("cp_lo", fl(|b| b.cp_lo))
+            .floats("cp_hi", fl(|b| b.cp_hi))
+            .floats("jeffreys_lo", fl(|b| b.jeffreys_lo))
+            .floats("jeffreys_hi", fl(|b| b.jeffreys_hi))
+            .floats("wilson_lo", fl(|b| b.wilson_lo))
+            .floats("wilson_hi", fl(|b| b.wilson_hi))
+            .floats("p_binom_upper", fl(|b| b.p_binom_upper))
+            .floats("p_binom_lower", fl(|b| b.p_binom_lower))
+            .floats("p_jeffreys", fl(|b| b.p_jeffreys))
+            .strings("zone", zone(|b| b.zone))
+            .strings("zone_lower", zone(|b| b.zone_lower))
+            .floats("rho", fl(|b| b.rho))
+            .floats("p_vasicek_upper", fl(|b| b.p_vasicek_upper))
+            .floats("p_vasicek_lower", fl(|b| b.p_vasicek_lower))
+            .floats("vasicek_lo", fl(|b| b.vasicek_lo))
+            .floats("vasicek_hi", fl(|b| b.vasicek_hi))
+            .strings("zone_vasicek", zone(|b| b.zone_vasicek))
             .strings("outcome_source", rows.iter().map(|(_, b)| Some(b.outcome_source)))
             .finish()
     }
@@ -91,9 +120,14 @@ impl Table for BucketRecord {
             f("level")?,
             f("recovery")?,
         );
-        let (n, d, nc) = (ints(df, path, "n")?, ints(df, path, "defaults")?, ints(df, path, "n_censored")?);
-        let (rr, pd, cl, ch, jl, jh, wl, wh, pu, pl, pj) = (
-            f("realised_rate")?,
+        let (n, d, nc, ni) = (
+            ints(df, path, "n")?,
+            ints(df, path, "defaults")?,
+            ints(df, path, "n_censored")?,
+            ints(df, path, "n_incomplete")?,
+        );
+        let (rr, rm, kl, kh) = (f("realised_rate")?, strs(df, path, "rate_method")?, f("km_lo")?, f("km_hi")?);
+        let (pd, cl, ch, jl, jh, wl, wh, pu, pl, pj) = (
             f("implied_pd")?,
             f("cp_lo")?,
             f("cp_hi")?,
@@ -105,7 +139,17 @@ impl Table for BucketRecord {
             f("p_binom_lower")?,
             f("p_jeffreys")?,
         );
-        let (z, os) = (strs(df, path, "zone")?, strs(df, path, "outcome_source")?);
+        let (rho, vu, vl, vlo, vhi) =
+            (f("rho")?, f("p_vasicek_upper")?, f("p_vasicek_lower")?, f("vasicek_lo")?, f("vasicek_hi")?);
+        let (z, zl, zv, os) = (
+            strs(df, path, "zone")?,
+            strs(df, path, "zone_lower")?,
+            strs(df, path, "zone_vasicek")?,
+            strs(df, path, "outcome_source")?,
+        );
+        let zone = |v: &Option<String>, col: &str, i: usize| -> Result<Option<crate::stats::Zone>> {
+            v.as_deref().map(|z| text_form(Some(z), col, path, i)).transpose()
+        };
         (0..df.height())
             .map(|i| {
                 Ok(BucketRecord {
@@ -118,7 +162,14 @@ impl Table for BucketRecord {
                         n: whole(n[i]),
                         defaults: whole(d[i]),
                         n_censored: whole(nc[i]),
+                        n_incomplete: whole(ni[i]),
                         realised_rate: rr[i],
+                        rate_method: rm[i]
+                            .as_deref()
+                            .map(|m| text_form(Some(m), "rate_method", path, i))
+                            .transpose()?,
+                        km_lo: kl[i],
+                        km_hi: kh[i],
                         implied_pd: pd[i],
                         cp_lo: cl[i],
                         cp_hi: ch[i],
@@ -129,7 +180,14 @@ impl Table for BucketRecord {
                         p_binom_upper: pu[i],
                         p_binom_lower: pl[i],
                         p_jeffreys: pj[i],
-                        zone: z[i].as_deref().map(|z| text_form(Some(z), "zone", path, i)).transpose()?,
+                        zone: zone(&z[i], "zone", i)?,
+                        zone_lower: zone(&zl[i], "zone_lower", i)?,
+                        rho: rho[i],
+                        p_vasicek_upper: vu[i],
+                        p_vasicek_lower: vl[i],
+                        vasicek_lo: vlo[i],
+                        vasicek_hi: vhi[i],
+                        zone_vasicek: zone(&zv[i], "zone_vasicek", i)?,
                         outcome_source: intern(os[i].as_deref().unwrap_or("")),
                     },
                 })
@@ -147,6 +205,11 @@ impl Table for HosmerLemeshowRecord {
         col("buckets", Int),
         col("statistic", Float),
         col("p_value", Float),
+        col("n", Int),
+        col("brier", Float),
+        col("spiegelhalter_z", Float),
+        col("spiegelhalter_p", Float),
+        col("hhi", Float),
         col("note", Text),
     ];
 
@@ -158,6 +221,11 @@ impl Table for HosmerLemeshowRecord {
             .ints("buckets", hl.iter().map(|b| Some(b.row.buckets as i64)))
             .floats("statistic", hl.iter().map(|b| b.row.statistic))
             .floats("p_value", hl.iter().map(|b| b.row.p_value))
+            .ints("n", hl.iter().map(|b| Some(b.row.n as i64)))
+            .floats("brier", hl.iter().map(|b| b.row.brier))
+            .floats("spiegelhalter_z", hl.iter().map(|b| b.row.spiegelhalter_z))
+            .floats("spiegelhalter_p", hl.iter().map(|b| b.row.spiegelhalter_p))
+            .floats("hhi", hl.iter().map(|b| b.row.hhi))
             .strings("note", hl.iter().map(|b| b.row.note.as_ref()))
             .finish()
     }
@@ -172,6 +240,13 @@ impl Table for HosmerLemeshowRecord {
             floats(df, path, "p_value")?,
             strs(df, path, "note")?,
         );
+        let (n, br, sz, sp, hhi) = (
+            ints(df, path, "n")?,
+            floats(df, path, "brier")?,
+            floats(df, path, "spiegelhalter_z")?,
+            floats(df, path, "spiegelhalter_p")?,
+            floats(df, path, "hhi")?,
+        );
         Ok((0..df.height())
             .map(|i| HosmerLemeshowRecord {
                 recovery: rc[i].unwrap_or(f64::NAN),
@@ -182,9 +257,262 @@ impl Table for HosmerLemeshowRecord {
                     statistic: st[i],
                     p_value: p[i],
                     note: no[i].take(),
+                    n: whole(n[i]),
+                    brier: br[i],
+                    spiegelhalter_z: sz[i],
+                    spiegelhalter_p: sp[i],
+                    hhi: hhi[i],
                 },
             })
             .collect())
+    }
+}
+
+/// A row of `backtest_discrimination` under one recovery.
+#[derive(Debug, Clone, PartialEq)]
+pub struct DiscriminationRecord {
+    pub recovery: f64,
+    pub row: DiscriminationRow,
+}
+
+impl Table for DiscriminationRecord {
+    const NAME: &'static str = "backtest_discrimination";
+    const COLUMNS: &'static [Column] = &[
+        col("cohort", Text),
+        col("horizon", Int),
+        col("score", Text),
+        col("level", Float),
+        col("recovery", Float),
+        col("n", Int),
+        col("defaults", Int),
+        col("auc", Float),
+        col("auc_se", Float),
+        col("auc_lo", Float),
+        col("auc_hi", Float),
+        col("gini", Float),
+        col("p_no_power", Float),
+        col("p_vs_grade", Float),
+        col("note", Text),
+    ];
+
+    fn frame(rows: &[Self]) -> Result<DataFrame> {
+        let fl = |get: fn(&DiscriminationRow) -> Option<f64>| rows.iter().map(move |r| get(&r.row)).collect::<Vec<_>>();
+        TableBuilder::new()
+            .strings("cohort", rows.iter().map(|r| Some(&r.row.cohort)))
+            .ints("horizon", rows.iter().map(|r| Some(i64::from(r.row.horizon_years))))
+            .strings("score", rows.iter().map(|r| Some(r.row.score.as_str())))
+            .floats("level", rows.iter().map(|r| Some(r.row.level)))
+            .floats("recovery", rows.iter().map(|r| Some(r.recovery)))
+            .ints("n", rows.iter().map(|r| Some(r.row.n as i64)))
+            .ints("defaults", rows.iter().map(|r| Some(r.row.defaults as i64)))
+            .floats("auc", fl(|r| r.auc))
+            .floats("auc_se", fl(|r| r.auc_se))
+            .floats("auc_lo", fl(|r| r.auc_lo))
+            .floats("auc_hi", fl(|r| r.auc_hi))
+            .floats("gini", fl(|r| r.gini))
+            .floats("p_no_power", fl(|r| r.p_no_power))
+            .floats("p_vs_grade", fl(|r| r.p_vs_grade))
+            .strings("note", rows.iter().map(|r| r.row.note.as_ref()))
+            .finish()
+    }
+
+    fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
+        let f = |name: &str| floats(df, path, name);
+        let (mut co, h, sc, lv, rc, n, d) = (
+            strs(df, path, "cohort")?,
+            ints(df, path, "horizon")?,
+            strs(df, path, "score")?,
+            f("level")?,
+            f("recovery")?,
+            ints(df, path, "n")?,
+            ints(df, path, "defaults")?,
+        );
+        let (auc, se, lo, hi, gi, pn, pg, mut no) = (
+            f("auc")?,
+            f("auc_se")?,
+            f("auc_lo")?,
+            f("auc_hi")?,
+            f("gini")?,
+            f("p_no_power")?,
+            f("p_vs_grade")?,
+            strs(df, path, "note")?,
+        );
+        (0..df.height())
+            .map(|i| {
+                Ok(DiscriminationRecord {
+                    recovery: rc[i].unwrap_or(f64::NAN),
+                    row: DiscriminationRow {
+                        cohort: co[i].take().unwrap_or_default(),
+                        horizon_years: h[i].unwrap_or(0) as u32,
+                        score: text_form(sc[i].as_deref(), "score", path, i)?,
+                        level: lv[i].unwrap_or(f64::NAN),
+                        n: whole(n[i]),
+                        defaults: whole(d[i]),
+                        auc: auc[i],
+                        auc_se: se[i],
+                        auc_lo: lo[i],
+                        auc_hi: hi[i],
+                        gini: gi[i],
+                        p_no_power: pn[i],
+                        p_vs_grade: pg[i],
+                        note: no[i].take(),
+                    },
+                })
+            })
+            .collect()
+    }
+}
+
+/// A row of `backtest_term_structure` under one recovery.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TermStructureRecord {
+    pub recovery: f64,
+    pub row: TermStructureRow,
+}
+
+impl Table for TermStructureRecord {
+    const NAME: &'static str = "backtest_term_structure";
+    const COLUMNS: &'static [Column] = &[
+        col("bucket", Text),
+        col("horizon", Int),
+        col("level", Float),
+        col("recovery", Float),
+        col("members", Int),
+        col("defaults", Int),
+        col("at_risk_at_horizon", Int),
+        col("realised_rate", Float),
+        col("rate_lo", Float),
+        col("rate_hi", Float),
+        col("implied_pd", Float),
+        col("expected_defaults", Float),
+        col("observed_to_expected", Float),
+        col("p_upper", Float),
+        col("p_lower", Float),
+        col("zone", Text),
+        col("note", Text),
+    ];
+
+    fn frame(rows: &[Self]) -> Result<DataFrame> {
+        let fl = |get: fn(&TermStructureRow) -> Option<f64>| rows.iter().map(move |r| get(&r.row)).collect::<Vec<_>>();
+        TableBuilder::new()
+            .strings("bucket", rows.iter().map(|r| Some(&r.row.bucket)))
+            .ints("horizon", rows.iter().map(|r| Some(i64::from(r.row.horizon_years))))
+            .floats("level", rows.iter().map(|r| Some(r.row.level)))
+            .floats("recovery", rows.iter().map(|r| Some(r.recovery)))
+            .ints("members", rows.iter().map(|r| Some(r.row.members as i64)))
+            .ints("defaults", rows.iter().map(|r| Some(r.row.defaults as i64)))
+            .ints("at_risk_at_horizon", rows.iter().map(|r| Some(r.row.at_risk_at_horizon as i64)))
+            .floats("realised_rate", fl(|r| r.realised_rate))
+            .floats("rate_lo", fl(|r| r.rate_lo))
+            .floats("rate_hi", fl(|r| r.rate_hi))
+            .floats("implied_pd", fl(|r| r.implied_pd))
+            .floats("expected_defaults", fl(|r| r.expected_defaults))
+            .floats("observed_to_expected", fl(|r| r.observed_to_expected))
+            .floats("p_upper", fl(|r| r.p_upper))
+            .floats("p_lower", fl(|r| r.p_lower))
+            .strings("zone", rows.iter().map(|r| r.row.zone.map(|z| z.as_str())))
+            .strings("note", rows.iter().map(|r| r.row.note.as_ref()))
+            .finish()
+    }
+
+    fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
+        let f = |name: &str| floats(df, path, name);
+        let (mut bu, h, lv, rc, me, d, ar) = (
+            strs(df, path, "bucket")?,
+            ints(df, path, "horizon")?,
+            f("level")?,
+            f("recovery")?,
+            ints(df, path, "members")?,
+            ints(df, path, "defaults")?,
+            ints(df, path, "at_risk_at_horizon")?,
+        );
+        let (rr, lo, hi, pd, ex, oe, pu, pl, zo, mut no) = (
+            f("realised_rate")?,
+            f("rate_lo")?,
+            f("rate_hi")?,
+            f("implied_pd")?,
+            f("expected_defaults")?,
+            f("observed_to_expected")?,
+            f("p_upper")?,
+            f("p_lower")?,
+            strs(df, path, "zone")?,
+            strs(df, path, "note")?,
+        );
+        (0..df.height())
+            .map(|i| {
+                Ok(TermStructureRecord {
+                    recovery: rc[i].unwrap_or(f64::NAN),
+                    row: TermStructureRow {
+                        bucket: bu[i].take().unwrap_or_default(),
+                        horizon_years: h[i].unwrap_or(0) as u32,
+                        level: lv[i].unwrap_or(f64::NAN),
+                        members: whole(me[i]),
+                        defaults: whole(d[i]),
+                        at_risk_at_horizon: whole(ar[i]),
+                        realised_rate: rr[i],
+                        rate_lo: lo[i],
+                        rate_hi: hi[i],
+                        implied_pd: pd[i],
+                        expected_defaults: ex[i],
+                        observed_to_expected: oe[i],
+                        p_upper: pu[i],
+                        p_lower: pl[i],
+                        zone: zo[i].as_deref().map(|v| text_form(Some(v), "zone", path, i)).transpose()?,
+                        note: no[i].take(),
+                    },
+                })
+            })
+            .collect()
+    }
+}
+
+impl Table for VerdictRow {
+    const NAME: &'static str = "backtest_verdicts";
+    const COLUMNS: &'static [Column] = &[
+        col("family", Text),
+        col("reading", Text),
+        col("tests", Int),
+        col("against", Int),
+        col("strongly_against", Int),
+        col("extreme_p", Float),
+        col("status", Text),
+    ];
+
+    fn frame(rows: &[Self]) -> Result<DataFrame> {
+        TableBuilder::new()
+            .strings("family", rows.iter().map(|r| Some(r.family)))
+            .strings("reading", rows.iter().map(|r| Some(r.reading)))
+            .ints("tests", rows.iter().map(|r| Some(r.tests as i64)))
+            .ints("against", rows.iter().map(|r| Some(r.against as i64)))
+            .ints("strongly_against", rows.iter().map(|r| Some(r.strongly_against as i64)))
+            .floats("extreme_p", rows.iter().map(|r| r.extreme_p))
+            .strings("status", rows.iter().map(|r| Some(r.status.as_str())))
+            .finish()
+    }
+
+    fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
+        let (fa, re, t, a, sa, p, st) = (
+            strs(df, path, "family")?,
+            strs(df, path, "reading")?,
+            ints(df, path, "tests")?,
+            ints(df, path, "against")?,
+            ints(df, path, "strongly_against")?,
+            floats(df, path, "extreme_p")?,
+            strs(df, path, "status")?,
+        );
+        (0..df.height())
+            .map(|i| {
+                Ok(VerdictRow {
+                    family: intern(fa[i].as_deref().unwrap_or("")),
+                    reading: intern(re[i].as_deref().unwrap_or("")),
+                    tests: whole(t[i]),
+                    against: whole(a[i]),
+                    strongly_against: whole(sa[i]),
+                    extreme_p: p[i],
+                    status: text_form(st[i].as_deref(), "status", path, i)?,
+                })
+            })
+            .collect()
     }
 }
 
@@ -391,7 +719,11 @@ mod tests {
             n: 120,
             defaults: 2,
             n_censored: 1,
+            n_incomplete: 0,
             realised_rate: Some(2.0 / 119.0),
+            rate_method: Some(crate::backtest::RateMethod::KaplanMeier),
+            km_lo: Some(0.004),
+            km_hi: Some(0.05),
             implied_pd: Some(0.031),
             cp_lo: Some(0.002),
             cp_hi: Some(0.06),
@@ -403,6 +735,13 @@ mod tests {
             p_binom_lower: Some(0.2),
             p_jeffreys: Some(0.8),
             zone,
+            zone_lower: Some(Zone::Yellow),
+            rho: Some(0.21),
+            p_vasicek_upper: Some(0.7),
+            p_vasicek_lower: Some(0.4),
+            vasicek_lo: Some(0.0),
+            vasicek_hi: Some(0.12),
+            zone_vasicek: zone,
             outcome_source: "entity_defaults",
         }
     }
@@ -428,10 +767,75 @@ mod tests {
                 statistic: Some(12.5),
                 p_value: Some(0.05),
                 note: None,
+                n: 900,
+                brier: Some(0.02),
+                spiegelhalter_z: Some(-1.2),
+                spiegelhalter_p: Some(0.23),
+                hhi: Some(0.18),
             },
         }];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);
+    }
+
+    #[test]
+    fn discrimination_and_verdicts_round_trip() {
+        use crate::backtest::{Score, Status};
+        let rows = vec![DiscriminationRecord {
+            recovery: 0.4,
+            row: DiscriminationRow {
+                cohort: "all".into(),
+                horizon_years: 1,
+                score: Score::Grade,
+                level: 0.95,
+                n: 400,
+                defaults: 7,
+                auc: Some(0.81),
+                auc_se: Some(0.05),
+                auc_lo: Some(0.71),
+                auc_hi: Some(0.91),
+                gini: Some(0.62),
+                p_no_power: Some(1e-9),
+                p_vs_grade: None,
+                note: None,
+            },
+        }];
+        assert_eq!(round_trip(&rows), rows);
+        refuses_a_missing_column(&rows);
+        let v = vec![VerdictRow {
+            family: "Hosmer-Lemeshow",
+            reading: "forecasts and outcomes disagree",
+            tests: 12,
+            against: 2,
+            strongly_against: 1,
+            extreme_p: Some(1e-4),
+            status: Status::Fail,
+        }];
+        assert_eq!(round_trip(&v), v);
+        refuses_a_missing_column(&v);
+        let t = vec![TermStructureRecord {
+            recovery: 0.4,
+            row: TermStructureRow {
+                bucket: "grade 5".into(),
+                horizon_years: 3,
+                level: 0.95,
+                members: 300,
+                defaults: 20,
+                at_risk_at_horizon: 120,
+                realised_rate: Some(0.11),
+                rate_lo: Some(0.07),
+                rate_hi: Some(0.16),
+                implied_pd: Some(0.25),
+                expected_defaults: Some(45.0),
+                observed_to_expected: Some(20.0 / 45.0),
+                p_upper: Some(0.999),
+                p_lower: Some(0.001),
+                zone: Some(Zone::Green),
+                note: None,
+            },
+        }];
+        assert_eq!(round_trip(&t), t);
+        refuses_a_missing_column(&t);
     }
 
     #[test]

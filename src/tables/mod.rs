@@ -34,7 +34,7 @@ pub mod readback;
 pub mod residuals;
 pub mod review;
 
-pub use backtest::{BucketRecord, HosmerLemeshowRecord};
+pub use backtest::{BucketRecord, DiscriminationRecord, HosmerLemeshowRecord, TermStructureRecord};
 pub use curves::{
     hazard_table, hazard_writer, sort_hazard, tenor_label, write_hazard_curves, DiscountCurveRow, HazardCurveRow, Label,
 };

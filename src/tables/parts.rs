@@ -222,7 +222,11 @@ impl Table for EdgeRow {
     }
 }
 
-/// A row of `backtest_members`: a member of a cohort under one recovery.
+/// A row of `backtest_members`: a member of a cohort at a horizon under one recovery. The
+/// run folder's table holds every member of the final backtest, bucketed and cut at the
+/// outcome end, so every bucket, interval, AUC and ratio can be recomputed from it; a part
+/// folder's holds the part's members before both (their bucket column reads `ungraded` and
+/// their outcome runs to the horizon end).
 #[derive(Debug, Clone, PartialEq)]
 pub struct MemberRecord {
     pub recovery: f64,
@@ -232,13 +236,17 @@ pub struct MemberRecord {
 impl Table for MemberRecord {
     const NAME: &'static str = "backtest_members";
     const COLUMNS: &'static [Column] = &[
-        col("recovery", Float),
-        col("entity", Text),
         col("cohort", Date),
         col("horizon", Int),
+        col("entity", Text),
+        col("currency", Text),
         col("grade", Int),
+        col("bucket", Text),
+        col("recovery", Float),
         col("implied_pd", Float),
+        col("curve_date", Date),
         col("outcome", Text),
+        col("event_date", Date),
         col("exposure_years", Float),
         col("integrated_hazard", Float),
         col("spread_bp", Float),
@@ -246,34 +254,43 @@ impl Table for MemberRecord {
 
     fn frame(rows: &[Self]) -> Result<DataFrame> {
         TableBuilder::new()
-            .floats("recovery", rows.iter().map(|r| Some(r.recovery)))
-            .strings("entity", rows.iter().map(|r| Some(&r.member.entity)))
             .dates("cohort", rows.iter().map(|r| Some(r.member.cohort)))
             .ints("horizon", rows.iter().map(|r| Some(i64::from(r.member.horizon_years))))
+            .strings("entity", rows.iter().map(|r| Some(&r.member.entity)))
+            .strings("currency", rows.iter().map(|r| Some(&r.member.currency)))
             .ints("grade", rows.iter().map(|r| r.member.grade.map(i64::from)))
+            .strings("bucket", rows.iter().map(|r| Some(r.member.bucket.label())))
+            .floats("recovery", rows.iter().map(|r| Some(r.recovery)))
             .floats("implied_pd", rows.iter().map(|r| Some(r.member.implied_pd)))
+            .dates("curve_date", rows.iter().map(|r| Some(r.member.curve_date)))
             .strings("outcome", rows.iter().map(|r| Some(r.member.outcome.as_str())))
+            .dates("event_date", rows.iter().map(|r| r.member.event_date))
             .floats("exposure_years", rows.iter().map(|r| Some(r.member.exposure_years)))
-            .floats("integrated_hazard", rows.iter().map(|r| Some(r.member.integrated_hazard)))
+            .floats("integrated_hazard", rows.iter().map(|r| r.member.integrated_hazard))
             .floats("spread_bp", rows.iter().map(|r| r.member.spread_bp))
             .finish()
     }
 
-    /// The members as the part computed them; their bucket is assigned again by the pooled
-    /// half of the run (it depends on every part's members), so it reads back as ungraded.
+    /// The members as written; their bucket is assigned again by the pooled half of the run
+    /// (it depends on every part's members), so it reads back as ungraded.
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (r, mut e, c, h, g, pd, o, x, ih, sp) = (
+        let (r, mut e, mut cy, c, h, g, pd, cd, o, ed, x, ih, sp) = (
             floats(df, path, "recovery")?,
             strs(df, path, "entity")?,
+            strs(df, path, "currency")?,
             dates(df, path, "cohort")?,
             ints(df, path, "horizon")?,
             ints(df, path, "grade")?,
             floats(df, path, "implied_pd")?,
+            dates(df, path, "curve_date")?,
             strs(df, path, "outcome")?,
+            dates(df, path, "event_date")?,
             floats(df, path, "exposure_years")?,
             floats(df, path, "integrated_hazard")?,
             floats(df, path, "spread_bp")?,
         );
+        // The bucket column is checked for presence only (see above).
+        strs(df, path, "bucket")?;
         (0..df.height())
             .map(|i| {
                 let text = o[i].as_deref().ok_or_else(|| missing(path, "outcome", i))?;
@@ -282,14 +299,17 @@ impl Table for MemberRecord {
                     recovery: r[i].ok_or_else(|| missing(path, "recovery", i))?,
                     member: Member {
                         entity: e[i].take().ok_or_else(|| missing(path, "entity", i))?,
+                        currency: cy[i].take().ok_or_else(|| missing(path, "currency", i))?,
                         cohort: c[i].ok_or_else(|| missing(path, "cohort", i))?,
                         horizon_years: h[i].ok_or_else(|| missing(path, "horizon", i))? as u32,
                         grade: g[i].map(|x| x as u32),
                         bucket: Bucket::Ungraded,
+                        curve_date: cd[i].ok_or_else(|| missing(path, "curve_date", i))?,
                         implied_pd: pd[i].ok_or_else(|| missing(path, "implied_pd", i))?,
                         outcome,
+                        event_date: ed[i],
                         exposure_years: x[i].ok_or_else(|| missing(path, "exposure_years", i))?,
-                        integrated_hazard: ih[i].ok_or_else(|| missing(path, "integrated_hazard", i))?,
+                        integrated_hazard: ih[i],
                         spread_bp: sp[i],
                     },
                 })
@@ -368,21 +388,30 @@ mod tests {
     fn backtest_members_round_trip() {
         let m = Member {
             entity: "Alder Works".into(),
+            currency: "EUR".into(),
             cohort: day(2),
             horizon_years: 1,
             grade: Some(4),
             bucket: Bucket::Ungraded,
+            curve_date: day(1),
             implied_pd: 0.012,
             outcome: Outcome::Censored,
+            event_date: Some(day(20)),
             exposure_years: 0.4,
-            integrated_hazard: 0.005,
+            integrated_hazard: Some(0.005),
             spread_bp: None,
         };
         let rows = vec![
             MemberRecord { recovery: 0.4, member: m.clone() },
             MemberRecord {
                 recovery: 0.25,
-                member: Member { outcome: Outcome::Defaulted, spread_bp: Some(140.0), ..m },
+                member: Member {
+                    outcome: Outcome::Incomplete,
+                    spread_bp: Some(140.0),
+                    event_date: None,
+                    integrated_hazard: None,
+                    ..m
+                },
             },
         ];
         assert_eq!(round_trip(&rows), rows);

@@ -2,6 +2,7 @@
 
 mod architecture;
 mod backtest_coverage;
+mod backtest_reference;
 mod bonds;
 mod cir;
 mod cli;

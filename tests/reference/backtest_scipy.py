@@ -512,6 +512,20 @@ def spiegelhalter_cases():
     return out
 
 
+def poisson_cases():
+    """Poisson tails for the one-sample (observed against expected) term-structure test:
+    upper = P[X >= k] = scipy.stats.poisson.sf(k - 1, mean) (1 at k = 0), lower = P[X <= k] =
+    scipy.stats.poisson.cdf(k, mean); the case list spans the demo's counts and far tails."""
+    out = []
+    for k, mean in ((0, 1.26), (0, 9.63), (2, 8.65), (1, 13.45), (2, 36.24), (9, 16.79), (19, 21.56),
+                    (40, 51.81), (71, 169.93), (31, 65.47), (5, 0.2), (12, 3.0), (300, 250.0), (1, 1e-6)):
+        upper = 1.0 if k == 0 else float(stats.poisson.sf(k - 1, mean))
+        lower = float(stats.poisson.cdf(k, mean))
+        out.append({"k": k, "mean": mean, "upper": upper, "lower": lower,
+                    "source": "scipy.stats.poisson.sf(k - 1, mean) and .cdf(k, mean)"})
+    return out
+
+
 def main():
     vas, worst = vasicek_cases()
     km = km_cases()
@@ -541,6 +555,7 @@ def main():
             f"vasicek cross-checks (every p_upper, p_lower and cdf value): Gauss-Hermite with 300 nodes (200 nodes reach only 5e-10 relative on n500_d25), largest relative difference {worst['gauss_hermite']!r}; quad split instead at the factor value z_c where p(z_c) = (k + 1/2)/n for the count k in question (clipped to [-10, 10]) and at z_c -/+ 8, largest relative difference {worst['quad_split']!r}; largest quad error estimate of a piece {worst['quad_error_estimate']!r}. Asserted below 1e-10 relative and 1e-12 absolute.",
             "vasicek d = 0: p_upper = P[D >= 0] is written as exactly 1 (quad's value, the integral of phi, is asserted within 1e-14 of it).",
             "vasicek rho = 1e-6: binomial_upper = scipy.stats.binom.sf(d-1, n, pd), binomial_lower = binom.cdf(d, n, pd), the plain binomial it approaches (asserted within 1e-4 relative).",
+            "poisson: upper = P[X >= k] = scipy.stats.poisson.sf(k - 1, mean) (exactly 1 at k = 0), lower = P[X <= k] = scipy.stats.poisson.cdf(k, mean).",
             "spiegelhalter: Spiegelhalter (1986): z = sum((y-p)(1-2p))/sqrt(sum((1-2p)^2 p (1-p))), p_value = 2 norm.sf(|z|); brier = mean((y-p)^2) = sklearn brier_score_loss (asserted to 1e-15).",
         ],
         "auc": auc_cases(),
@@ -548,6 +563,7 @@ def main():
         "kaplan_meier": km,
         "vasicek": vas,
         "spiegelhalter": spiegelhalter_cases(),
+        "poisson": poisson_cases(),
     }
     with open(OUT_PATH, "w") as f:
         json.dump(doc, f, indent=1, sort_keys=True, allow_nan=False)

@@ -5,7 +5,6 @@
 
 use crate::hash::fnv1a;
 use chrono::NaiveDate;
-use std::collections::BTreeMap;
 
 /// Shard `index` of `count` (1-based): the entities whose name hashes to it.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -115,13 +114,13 @@ impl std::fmt::Display for DateRange {
     }
 }
 
-/// What a part of a date range knows beyond its own dates: its range, and each entity's data
-/// end (the backtest censors a member there), a fact of the whole history.
+/// What a part knows beyond its own entities and dates: its date range, and the run's outcome
+/// end (the backtest observes defaults up to it), a fact of the whole input.
 #[derive(Debug, Clone, Default)]
 pub struct DateScope {
     pub range: DateRange,
-    /// Each entity's last usable CDS quote date over the whole history.
-    pub data_end: BTreeMap<String, NaiveDate>,
+    /// The configured outcome end, else the last quote date of the whole input.
+    pub outcome_end: Option<NaiveDate>,
 }
 
 /// Whether the date ranges of one shard's parts (in date order, an open start first) cover

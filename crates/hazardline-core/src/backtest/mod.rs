@@ -26,14 +26,20 @@
 pub mod buckets;
 pub mod calendar;
 pub mod cohort;
+pub mod discrimination;
 pub mod history;
 pub mod premia;
+pub mod term_structure;
+pub mod verdicts;
 
-pub use buckets::{bucket_rows, hosmer_lemeshow_rows, BucketRow, HosmerLemeshowRow};
+pub use buckets::{bucket_rows, hosmer_lemeshow_rows, BucketRow, HosmerLemeshowRow, RateMethod};
 pub use calendar::{cohort_dates, CohortFrequency, GradeBook};
 pub use cohort::{bucket_observations, build_observations, member_observations, Bucket, Observation, Outcome};
+pub use discrimination::{discrimination_rows, DiscriminationRow, Score};
 pub use history::{compare_cohort_history, CohortHistoryRecord, HistoryRow};
 pub use premia::{risk_premium_rows, RiskPremiumRow};
+pub use term_structure::{survival_points, term_structure_rows, TermStructureRow};
+pub use verdicts::{verdict_rows, Status, VerdictRow};
 
 use crate::curves::HazardCurve;
 use crate::stats::{StatsError, ZoneThresholds};
@@ -54,8 +60,10 @@ pub struct EntityFacts {
     /// Grade history in any order; the grade as of t is the spell with the latest from_date <= t.
     pub grades: Vec<GradeSpell>,
     pub default_date: Option<NaiveDate>,
-    /// The last date the entity's data covers (quotes, or the end of the observation period).
-    pub data_end: NaiveDate,
+    /// The date the entity left the institution's coverage (its defaults are not observed
+    /// after it), None when it stayed covered. The default record observes every covered
+    /// entity whether or not it is quoted, so the end of quotes censors nothing.
+    pub coverage_end: Option<NaiveDate>,
 }
 
 /// A quoted par spread in bp for a tenor in months, quoted on a curve date.
@@ -69,6 +77,7 @@ pub struct QuotedSpread {
 #[derive(Debug, Clone, PartialEq)]
 pub struct DatedCurve {
     pub date: NaiveDate,
+    pub currency: String,
     pub curve: HazardCurve,
     pub spreads: Vec<QuotedSpread>,
 }
@@ -83,15 +92,12 @@ pub struct CurveSet {
 }
 
 impl CurveSet {
-    /// Builds the set from curves keyed by (date, entity), the way the calibration stage emits
-    /// them; spreads may be empty. A later duplicate (date, entity) replaces an earlier one.
-    pub fn from_keyed(
-        recovery: f64,
-        items: impl IntoIterator<Item = ((NaiveDate, String), HazardCurve, Vec<QuotedSpread>)>,
-    ) -> CurveSet {
+    /// Builds the set from (entity, curve) pairs, the way the calibration stage emits them;
+    /// spreads may be empty. A later duplicate (date, entity) replaces an earlier one.
+    pub fn from_keyed(recovery: f64, items: impl IntoIterator<Item = (String, DatedCurve)>) -> CurveSet {
         let mut by_entity: BTreeMap<String, BTreeMap<NaiveDate, DatedCurve>> = BTreeMap::new();
-        for ((date, entity), curve, spreads) in items {
-            by_entity.entry(entity).or_default().insert(date, DatedCurve { date, curve, spreads });
+        for (entity, c) in items {
+            by_entity.entry(entity).or_default().insert(c.date, c);
         }
         let curves = by_entity.into_iter().map(|(e, m)| (e, m.into_values().collect())).collect();
         CurveSet { recovery, curves }
@@ -141,6 +147,36 @@ pub struct BacktestSettings {
     /// Two-sided confidence level of every interval.
     pub level: f64,
     pub zones: ZoneThresholds,
+    /// The last date the defaults record covers: a horizon ending after it is incomplete.
+    /// None only while members are built in parts (the run's outcome end is applied when the
+    /// parts are pooled, [`Observation::cut_at`]).
+    pub outcome_end: Option<NaiveDate>,
+    /// Asset correlation of the one-factor tests.
+    pub correlation: AssetCorrelation,
+}
+
+/// The asset correlation rho of the one-factor (Vasicek) bucket tests.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum AssetCorrelation {
+    /// The supervisory corporate formula of the bucket's one-year PD
+    /// ([`crate::stats::supervisory_corporate_correlation`]).
+    Supervisory,
+    /// One rho for every bucket.
+    Fixed(f64),
+}
+
+impl AssetCorrelation {
+    /// rho for a bucket whose mean implied PD over `horizon_years` is `pd`: the one-year PD is
+    /// 1 - (1 - pd)^(1 / h) (a flat hazard over the horizon).
+    pub fn rho(&self, pd: f64, horizon_years: u32) -> f64 {
+        match *self {
+            AssetCorrelation::Fixed(r) => r,
+            AssetCorrelation::Supervisory => {
+                let one_year = -((1.0 - pd).max(0.0).ln() / f64::from(horizon_years.max(1))).exp_m1();
+                crate::stats::supervisory_corporate_correlation(one_year)
+            }
+        }
+    }
 }
 
 impl BacktestSettings {
@@ -159,6 +195,11 @@ impl BacktestSettings {
             return Err(BacktestError::Stats(StatsError::LevelOutOfRange(self.level)));
         }
         ZoneThresholds::new(self.zones.yellow, self.zones.red)?;
+        if let AssetCorrelation::Fixed(r) = self.correlation {
+            if !(0.0..1.0).contains(&r) {
+                return Err(BacktestError::BadCorrelation(r));
+            }
+        }
         match &self.bucketing {
             Bucketing::PdEdges(e)
                 if e.is_empty() || e.windows(2).any(|w| w[0] >= w[1]) || e.iter().any(|x| !(0.0..=1.0).contains(x)) =>
@@ -184,6 +225,8 @@ pub enum BacktestError {
     BadBandEdges(Vec<f64>),
     #[error("PD quantile buckets need at least 2 buckets, got {0}")]
     BadQuantileCount(usize),
+    #[error("asset correlation {0} must lie in [0, 1)")]
+    BadCorrelation(f64),
     #[error("recovery {0} must lie in [0, 1)")]
     BadRecovery(f64),
     #[error("cohort date {date} plus {years} years is out of the calendar's range")]
@@ -196,9 +239,13 @@ pub enum BacktestError {
 #[derive(Debug, Clone, PartialEq)]
 pub struct BacktestOutput {
     pub recovery: f64,
+    /// Every member, bucketed, cut at the outcome end: what every row below is computed from.
+    pub members: Vec<Observation>,
     pub buckets: Vec<BucketRow>,
     pub hosmer_lemeshow: Vec<HosmerLemeshowRow>,
     pub risk_premia: Vec<RiskPremiumRow>,
+    pub discrimination: Vec<DiscriminationRow>,
+    pub term_structure: Vec<TermStructureRow>,
 }
 
 /// Runs the backtest for one curve set: cohorts, bucket tests, Hosmer-Lemeshow, risk premia.
@@ -227,11 +274,18 @@ pub fn backtest_members(
     if !(0.0..1.0).contains(&recovery) {
         return Err(BacktestError::BadRecovery(recovery));
     }
+    if let Some(e) = settings.outcome_end {
+        for o in obs.iter_mut() {
+            o.cut_at(e);
+        }
+    }
     bucket_observations(&mut obs, settings);
     let buckets = bucket_rows(&obs, settings)?;
     let hosmer_lemeshow = hosmer_lemeshow_rows(&obs, settings);
     let risk_premia = risk_premium_rows(&obs, settings, recovery)?;
-    Ok(BacktestOutput { recovery, buckets, hosmer_lemeshow, risk_premia })
+    let discrimination = discrimination_rows(&obs, settings);
+    let term_structure = term_structure_rows(&obs, settings)?;
+    Ok(BacktestOutput { recovery, members: obs, buckets, hosmer_lemeshow, risk_premia, discrimination, term_structure })
 }
 
 /// Runs [`run_backtest`] once per recovery scenario (each a curve set with its recovery), so
@@ -255,12 +309,13 @@ mod tests {
 
     const T: &str = "2021-01-04";
 
+    /// An entity; `end` is the end of its coverage, "open" when it stays covered.
     fn facts(entity: &str, grade: Option<u32>, default: Option<&str>, end: &str) -> EntityFacts {
         EntityFacts {
             entity: entity.to_string(),
             grades: grade.map(|g| vec![GradeSpell { from_date: d("2019-06-30"), grade: g }]).unwrap_or_default(),
             default_date: default.map(d),
-            data_end: d(end),
+            coverage_end: (end != "open").then(|| d(end)),
         }
     }
 
@@ -270,9 +325,13 @@ mod tests {
             recovery,
             items.iter().map(|&(e, date, l)| {
                 (
-                    (d(date), e.to_string()),
-                    HazardCurve::flat(d(date), l),
-                    vec![QuotedSpread { tenor_months: 12, spread_bp: l * (1.0 - recovery) * 1e4 }],
+                    e.to_string(),
+                    DatedCurve {
+                        date: d(date),
+                        currency: "EUR".into(),
+                        curve: HazardCurve::flat(d(date), l),
+                        spreads: vec![QuotedSpread { tenor_months: 12, spread_bp: l * (1.0 - recovery) * 1e4 }],
+                    },
                 )
             }),
         )
@@ -287,22 +346,24 @@ mod tests {
             bucketing,
             level: 0.95,
             zones: ZoneThresholds::default(),
+            outcome_end: None,
+            correlation: AssetCorrelation::Supervisory,
         }
     }
 
     /// A small universe of invented names:
-    /// a survives; b defaults exactly at t + 1Y; c defaults at t (not a member); dd's data
-    /// ends mid-year (censored); e is ungraded with a curve exactly 10 days old (inside the
+    /// a survives; b defaults exactly at t + 1Y; c defaults at t (not a member); dd leaves
+    /// coverage mid-year (censored); e is ungraded with a curve exactly 10 days old (inside the
     /// look-back); f's curve is 11 days old (outside); g's only curve is dated after t.
     fn universe() -> (Vec<EntityFacts>, CurveSet) {
         let f = vec![
-            facts("a", Some(1), None, "2030-01-01"),
-            facts("b", Some(1), Some("2022-01-04"), "2030-01-01"),
-            facts("c", Some(2), Some(T), "2030-01-01"),
+            facts("a", Some(1), None, "open"),
+            facts("b", Some(1), Some("2022-01-04"), "open"),
+            facts("c", Some(2), Some(T), "open"),
             facts("dd", Some(2), None, "2021-07-01"),
-            facts("e", None, None, "2030-01-01"),
-            facts("f", None, None, "2030-01-01"),
-            facts("g", None, None, "2030-01-01"),
+            facts("e", None, None, "open"),
+            facts("f", None, None, "open"),
+            facts("g", None, None, "open"),
         ];
         let c = curves(
             0.4,
@@ -401,11 +462,7 @@ mod tests {
 
     #[test]
     fn pd_band_and_quantile_buckets() {
-        let f = vec![
-            facts("x", None, None, "2030-01-01"),
-            facts("y", None, None, "2030-01-01"),
-            facts("z", None, None, "2030-01-01"),
-        ];
+        let f = vec![facts("x", None, None, "open"), facts("y", None, None, "open"), facts("z", None, None, "open")];
         let c = curves(0.4, &[("x", T, 0.01), ("y", T, 0.02), ("z", T, 0.05)]);
         let obs =
             build_observations(&f, &c, &settings(Bucketing::PdEdges(vec![0.015, 0.03]), CensoringPolicy::Exclude))
@@ -488,6 +545,149 @@ mod tests {
         assert_eq!((all.obligors, all.defaults, all.withdrawn), (300, 4, None));
         let bad = [CohortHistoryRecord { year: 2021, grade: 1, obligors: 2, defaults: 3, withdrawn: None }];
         assert!(compare_cohort_history(&bad, &out.buckets, 0.95, &ZoneThresholds::default()).is_err());
+    }
+
+    /// The regression of the censoring bias: members whose data simply stop (the end of the
+    /// quotes) are not censored; a horizon two days past the outcome end makes the cohort
+    /// incomplete there: listed, untested, and outside the pooled rows.
+    #[test]
+    fn outcome_end_two_days_before_the_horizon_leaves_the_cohort_untested() {
+        let mut f: Vec<EntityFacts> = (0..40).map(|i| facts(&format!("s{i:02}"), Some(3), None, "open")).collect();
+        f.push(facts("x", Some(3), Some("2021-06-01"), "open"));
+        let items: Vec<(String, String, f64)> = f.iter().map(|e| (e.entity.clone(), T.to_string(), 0.02)).collect();
+        let refs: Vec<(&str, &str, f64)> = items.iter().map(|(e, t, l)| (e.as_str(), t.as_str(), *l)).collect();
+        let c = curves(0.4, &refs);
+        let mut s = settings(Bucketing::Grades, CensoringPolicy::Exclude);
+        s.cohort_dates = vec![d("2020-01-06"), d(T)];
+        // The curves are dated T: the 2020 cohort finds none (look-back 10 days), so re-date a
+        // copy for it.
+        let mut c = c;
+        for list in c.curves.values_mut() {
+            let mut early = list[0].clone();
+            early.date = d("2020-01-06");
+            list.insert(0, early);
+        }
+        s.outcome_end = Some(d("2022-01-02")); // t + 1Y = 2022-01-04 for the 2021 cohort
+        let out = run_backtest(&f, &c, &s).unwrap();
+        let r21 = row(&out.buckets, "2021", "grade 3");
+        assert_eq!((r21.n, r21.defaults, r21.n_incomplete), (0, 0, 41));
+        assert_eq!((r21.p_binom_upper, r21.zone, r21.realised_rate), (None, None, None));
+        let r20 = row(&out.buckets, "2020", "grade 3");
+        assert_eq!((r20.n, r20.defaults, r20.n_incomplete, r20.n_censored), (41, 0, 0, 0));
+        let all = row(&out.buckets, "all", "grade 3");
+        assert_eq!((all.n, all.defaults), (41, 0), "the incomplete 2021 cohort stays out of the pool");
+        assert!(out.buckets.iter().all(|b| b.n == 0 || b.defaults < b.n), "no bucket with n = d");
+        let x = out.members.iter().find(|m| m.entity == "x" && m.cohort == d(T)).unwrap();
+        assert_eq!((x.outcome, x.event_date), (Outcome::Incomplete, Some(d("2021-06-01"))));
+        let hl = out.hosmer_lemeshow.iter().find(|h| h.cohort == "2021").unwrap();
+        assert!(hl.statistic.is_none() && hl.note.as_deref().unwrap_or("").contains("incomplete"));
+        let rp = out.risk_premia.iter().find(|r| r.cohort == "2021").unwrap();
+        assert_eq!((rp.members, rp.exposure_years, rp.lambda_q), (0, 0.0, None));
+    }
+
+    /// Leaving coverage censors defaulters and survivors alike; the realised rate is then the
+    /// Kaplan-Meier estimate, not d over the uncensored.
+    #[test]
+    fn leaving_coverage_censors_alike_and_the_rate_is_kaplan_meier() {
+        let f = vec![
+            facts("a", Some(1), None, "open"),
+            facts("b", Some(1), Some("2021-03-01"), "open"),
+            facts("c", Some(1), None, "2021-06-30"),
+            facts("e", Some(1), Some("2021-05-01"), "2021-06-30"),
+            facts("g", Some(1), None, "open"),
+        ];
+        let c = curves(0.4, &[("a", T, 0.02), ("b", T, 0.02), ("c", T, 0.02), ("e", T, 0.02), ("g", T, 0.02)]);
+        let out = run_backtest(&f, &c, &settings(Bucketing::Grades, CensoringPolicy::Exclude)).unwrap();
+        let e = out.members.iter().find(|m| m.entity == "e").unwrap();
+        assert_eq!((e.outcome, e.event_date), (Outcome::Censored, Some(d("2021-05-01"))));
+        let r = row(&out.buckets, "2021", "grade 1");
+        // Counted: a, b, g (c and e censored alike): d / n would be 1/3.
+        assert_eq!((r.n, r.defaults, r.n_censored), (3, 1, 2));
+        // Kaplan-Meier over all five: b at 2021-03-01 (5 at risk), e at 2021-05-01 (4 at risk),
+        // c censored at 2021-06-30: S = (4/5)(3/4) = 0.6.
+        assert_eq!(r.rate_method, Some(RateMethod::KaplanMeier));
+        assert!((r.realised_rate.unwrap() - 0.4).abs() < 1e-15);
+        assert!(r.km_lo.unwrap() < 0.4 && r.km_hi.unwrap() > 0.4);
+        let sv = run_backtest(&f, &c, &settings(Bucketing::Grades, CensoringPolicy::CountAsSurvivor)).unwrap();
+        let r = row(&sv.buckets, "2021", "grade 1");
+        assert_eq!((r.n, r.defaults, r.rate_method), (5, 2, Some(RateMethod::Proportion)));
+        // Premia: e's default inside coverage counts, over the exact exposures.
+        let p = out.risk_premia.iter().find(|r| r.cohort == "2021").unwrap();
+        assert_eq!(p.defaults, 2);
+    }
+
+    #[test]
+    fn discrimination_and_verdicts() {
+        let mut f = Vec::new();
+        let mut items = Vec::new();
+        for i in 0..30u32 {
+            let name = format!("n{i:02}");
+            let grade = 1 + i % 6;
+            let default = (i % 6 == 5 && i < 20).then_some("2021-08-01");
+            f.push(facts(&name, Some(grade), default, "open"));
+            items.push((name, 0.002 * f64::from(1 + i % 6)));
+        }
+        let refs: Vec<(&str, &str, f64)> = items.iter().map(|(e, l)| (e.as_str(), T, *l)).collect();
+        let out =
+            run_backtest(&f, &curves(0.4, &refs), &settings(Bucketing::Grades, CensoringPolicy::Exclude)).unwrap();
+        let all = out.discrimination.iter().find(|r| r.cohort == "all" && r.score == Score::ImpliedPd).unwrap();
+        // The 3 defaulters (grade 6) hold the highest PD, shared with 2 grade-6 survivors: each
+        // defaulter beats the 25 lower survivors and ties 2, of 27 survivors.
+        assert_eq!((all.n, all.defaults), (30, 3));
+        let want = (25.0 + 0.5 * 2.0) / 27.0;
+        assert!((all.auc.unwrap() - want).abs() < 1e-15, "{:?}", all.auc);
+        let v = verdict_rows(&out, &settings(Bucketing::Grades, CensoringPolicy::Exclude));
+        let upper = v.iter().find(|r| r.family == "bucket binomial, upper tail").unwrap();
+        assert!(upper.against > 0, "3 defaults of 5 at a 1.2% PD must reject");
+        assert_ne!(upper.status, Status::Pass);
+    }
+
+    /// The term structure uses every cohort: an incomplete cohort contributes the months it
+    /// was observed. Hand-computed product-limit estimate over 23 subjects.
+    #[test]
+    fn term_structure_pools_complete_and_incomplete_cohorts() {
+        let mut f: Vec<EntityFacts> = (0..10).map(|i| facts(&format!("s{i:02}"), Some(2), None, "open")).collect();
+        f.push(facts("x", Some(2), Some("2020-06-01"), "open"));
+        f.push(facts("y", Some(2), Some("2021-03-01"), "open"));
+        let mut items = Vec::new();
+        for e in &f {
+            items.push((e.entity.clone(), "2020-01-06", 0.02));
+            items.push((e.entity.clone(), T, 0.02));
+        }
+        let refs: Vec<(&str, &str, f64)> = items.iter().map(|(e, t, l)| (e.as_str(), *t, *l)).collect();
+        let c = curves(0.4, &refs);
+        let mut s = settings(Bucketing::Grades, CensoringPolicy::Exclude);
+        s.cohort_dates = vec![d("2020-01-06"), d(T)];
+        s.outcome_end = Some(d("2021-07-05"));
+        let out = run_backtest(&f, &c, &s).unwrap();
+        let r = out.term_structure.iter().find(|r| r.bucket == "grade 2" && r.horizon_years == 1).unwrap();
+        assert_eq!((r.members, r.defaults, r.at_risk_at_horizon), (23, 2, 11));
+        // Events: y (2021 cohort) at 56 days with 23 at risk, x (2020 cohort) at 147 days
+        // with 22 at risk (y gone; the ten 2021 survivors, censored at 182 days, still in).
+        let surv = (22.0f64 / 23.0) * (21.0 / 22.0);
+        assert!((r.realised_rate.unwrap() - (1.0 - surv)).abs() < 1e-15);
+        let pd2020 = 1.0 - (-0.02f64 * 366.0 / 365.0).exp();
+        let pd2021 = 1.0 - (-0.02f64).exp();
+        let pd = (12.0 * pd2020 + 11.0 * pd2021) / 23.0;
+        assert!((r.implied_pd.unwrap() - pd).abs() < 1e-15);
+        // Expected defaults: 0.02 per year over each observed window (flat curves).
+        let days = |a: &str, b: &str| (d(b) - d(a)).num_days() as f64 / 365.0;
+        let windows = 10.0 * days("2020-01-06", "2021-01-06")
+            + days("2020-01-06", "2020-06-01")
+            + days("2020-01-06", "2021-01-06")
+            + 10.0 * days(T, "2021-07-05")
+            + days(T, "2021-03-01");
+        let e = 0.02 * windows;
+        assert!((r.expected_defaults.unwrap() - e).abs() < 1e-14, "{:?} vs {e}", r.expected_defaults);
+        // P[O >= 2] = 1 - exp(-e)(1 + e).
+        let want = 1.0 - (-e).exp() * (1.0 + e);
+        assert!((r.p_upper.unwrap() - want).abs() < 1e-14);
+        assert!(r.p_upper.unwrap() < 0.05, "2 defaults where 0.2 are expected");
+        // The bucket tests see only the complete 2020 cohort: 1 default of 12.
+        let b = row(&out.buckets, "all", "grade 2");
+        assert_eq!((b.n, b.defaults), (12, 1));
+        let all = out.term_structure.iter().find(|r| r.bucket == "all").unwrap();
+        assert_eq!(all.members, 23);
     }
 
     #[test]

@@ -3,7 +3,8 @@
 //! hazard over the same windows / the same exposure, their ratio, and the spread split into
 //! expected loss lambda_P (1 - R) and the remainder (docs/design.md, "Backtest and risk premium").
 //!
-//! Every member counts here, censored ones included: exposure time makes censoring exact.
+//! Every member with a known window counts here, censored ones included: exposure time makes
+//! censoring exact. Incomplete members (a horizon past the outcome end) do not.
 
 use super::buckets::groups_for_premia;
 use super::cohort::{Observation, Outcome};
@@ -62,8 +63,9 @@ fn premium_row(
     level: f64,
     recovery: f64,
 ) -> Result<RiskPremiumRow, BacktestError> {
+    let members: Vec<&Observation> = members.iter().copied().filter(|o| o.outcome != Outcome::Incomplete).collect();
     let exposure: f64 = members.iter().map(|o| o.exposure_years).sum();
-    let defaults = members.iter().filter(|o| o.outcome == Outcome::Defaulted).count() as u64;
+    let defaults = members.iter().filter(|o| o.defaulted()).count() as u64;
     let spreads: Vec<f64> = members.iter().filter_map(|o| o.spread_bp).collect();
     let spread_bp = (!spreads.is_empty()).then(|| spreads.iter().sum::<f64>() / spreads.len() as f64);
     let mut row = RiskPremiumRow {
@@ -92,7 +94,7 @@ fn premium_row(
     }
     let lambda_p = defaults as f64 / exposure;
     let g = stats::garwood_interval(defaults, exposure, level)?;
-    let lambda_q = members.iter().map(|o| o.integrated_hazard).sum::<f64>() / exposure;
+    let lambda_q = members.iter().filter_map(|o| o.integrated_hazard).sum::<f64>() / exposure;
     let el = lambda_p * (1.0 - recovery) * 1e4;
     row.lambda_p = Some(lambda_p);
     (row.lambda_p_lo, row.lambda_p_hi) = (Some(g.lo), Some(g.hi));

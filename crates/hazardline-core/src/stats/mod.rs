@@ -8,17 +8,25 @@
 //! so every tail is computed directly from a regularized incomplete beta or gamma function,
 //! never as `1 - cdf`; see [`special`] for which routine computes what and why.
 
+pub mod auc;
 pub mod binomial;
 pub mod hosmer_lemeshow;
 pub mod poisson;
+pub mod scores;
 pub mod special;
+pub mod survival;
+pub mod vasicek;
 pub mod zone;
 
+pub use auc::{area_under, auc_delong, auc_paired, ranking_curves, Auc, PairedAuc, RankingCurves};
 pub use binomial::{
     binomial_lower_tail, binomial_upper_tail, clopper_pearson, jeffreys_interval, jeffreys_p_value, wilson_interval,
 };
 pub use hosmer_lemeshow::{hosmer_lemeshow, BucketForecast, HosmerLemeshow};
-pub use poisson::garwood_interval;
+pub use poisson::{garwood_interval, poisson_lower_tail, poisson_upper_tail};
+pub use scores::{herfindahl, spiegelhalter, CalibrationScore};
+pub use survival::{kaplan_meier, SurvivalCurve};
+pub use vasicek::{supervisory_corporate_correlation, vasicek_count_interval, vasicek_lower_tail, vasicek_upper_tail};
 pub use zone::{traffic_light, Zone, ZoneThresholds};
 
 /// A two-sided interval `[lo, hi]`.
@@ -51,6 +59,10 @@ pub enum StatsError {
     Bucket { index: usize, source: Box<StatsError> },
     #[error("zone thresholds must satisfy 0 < red ({red}) < yellow ({yellow}) < 1")]
     BadThresholds { yellow: f64, red: f64 },
+    #[error("{what}: lengths differ ({a} and {b})")]
+    LengthMismatch { what: &'static str, a: usize, b: usize },
+    #[error("the AUC needs defaulters and survivors: {defaults} defaults, {survivors} survivors")]
+    OneClass { defaults: u64, survivors: u64 },
     #[error("{what} did not converge after {iterations} iterations at a = {a}, b = {b}, x = {x}")]
     NoConvergence { what: &'static str, iterations: usize, a: f64, b: f64, x: f64 },
 }

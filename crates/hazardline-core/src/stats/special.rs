@@ -258,6 +258,25 @@ pub fn gamma_reg_upper(a: f64, x: f64) -> Result<f64, StatsError> {
         .map_err(|_| StatsError::BadValue { name: "gamma argument", value: x })
 }
 
+/// P(a, x) = gamma(a, x) / Gamma(a), the regularized lower incomplete gamma function
+/// (computed directly, so small values keep their relative precision).
+pub fn gamma_reg_lower(a: f64, x: f64) -> Result<f64, StatsError> {
+    if !(a > 0.0 && a.is_finite()) {
+        return Err(StatsError::BadValue { name: "gamma shape", value: a });
+    }
+    if x.is_nan() || x < 0.0 {
+        return Err(StatsError::BadValue { name: "gamma argument", value: x });
+    }
+    if x == 0.0 {
+        return Ok(0.0);
+    }
+    if x.is_infinite() {
+        return Ok(1.0);
+    }
+    statrs::function::gamma::checked_gamma_lr(a, x)
+        .map_err(|_| StatsError::BadValue { name: "gamma argument", value: x })
+}
+
 /// The `prob` quantile of Gamma(shape a, rate 1).
 pub fn gamma_quantile(a: f64, prob: f64) -> Result<f64, StatsError> {
     if !(a > 0.0 && a.is_finite()) {
@@ -291,6 +310,22 @@ pub fn normal_quantile(prob: f64) -> Result<f64, StatsError> {
     }
     let dist = Normal::new(0.0, 1.0).map_err(|_| StatsError::BadValue { name: "normal", value: prob })?;
     Ok(dist.inverse_cdf(prob))
+}
+
+/// P[Z > x] for a standard normal Z, from the complementary error function (no cancellation
+/// in the upper tail).
+pub fn normal_upper_tail(x: f64) -> f64 {
+    0.5 * statrs::function::erf::erfc(x / std::f64::consts::SQRT_2)
+}
+
+/// P[Z <= x] for a standard normal Z.
+pub fn normal_cdf(x: f64) -> f64 {
+    normal_upper_tail(-x)
+}
+
+/// The standard normal density.
+pub fn normal_density(x: f64) -> f64 {
+    (-0.5 * x * x - LN_SQRT_2PI).exp()
 }
 
 fn check_shapes(a: f64, b: f64) -> Result<(), StatsError> {
