@@ -108,6 +108,7 @@ impl BacktestStage {
                     crate::backtest::AssetCorrelation::Fixed(r) => r.to_string(),
                 },
             ),
+            ("term_structure_years".into(), c.term_structure_years.to_string()),
         ]
     }
 }
@@ -195,6 +196,9 @@ pub struct BacktestSection {
     /// Asset correlation of the one-factor (Vasicek) bucket tests: a number in [0, 1), or
     /// "supervisory" (default: the supervisory corporate formula of each bucket's PD).
     pub asset_correlation: Option<CorrelationChoice>,
+    /// The default term structure over years 1..=this, every cohort. Default 5; 0 keeps it to
+    /// the tested horizons.
+    pub term_structure_years: Option<u32>,
 }
 
 /// `backtest.asset_correlation` as written: a number or the word "supervisory".
@@ -252,6 +256,7 @@ fn backtest_stage(k: &BacktestSection, inputs: &InputPaths, path: &Path) -> Resu
             None | Some(CorrelationChoice::Named(CorrelationName::Supervisory)) => AssetCorrelation::Supervisory,
             Some(CorrelationChoice::Fixed(r)) => AssetCorrelation::Fixed(r),
         },
+        term_structure_years: k.term_structure_years.unwrap_or(5),
     };
     core.check().map_err(|e| bad(path, "backtest", e.to_string()))?;
     let recovery_scenarios = k.recovery_scenarios.clone().unwrap_or_else(|| vec![0.25, 0.55]);

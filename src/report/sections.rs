@@ -91,8 +91,8 @@ struct Premium {
     lambda_q: Option<f64>,
     ratio: (Option<f64>, Option<f64>, Option<f64>),
     spread: Option<f64>,
-    el: Option<f64>,
-    premium: Option<f64>,
+    el: (Option<f64>, Option<f64>, Option<f64>),
+    premium: (Option<f64>, Option<f64>, Option<f64>),
 }
 
 fn read_premia(path: &Path) -> Result<Vec<Premium>> {
@@ -115,6 +115,12 @@ fn read_premia(path: &Path) -> Result<Vec<Premium>> {
     let (ra, ral, rah) = (floats(&df, path, "ratio")?, floats(&df, path, "ratio_lo")?, floats(&df, path, "ratio_hi")?);
     let (sp, el, pr) =
         (floats(&df, path, "spread_bp")?, floats(&df, path, "el_spread_bp")?, floats(&df, path, "premium_spread_bp")?);
+    let (ell, elh, prl, prh) = (
+        floats(&df, path, "el_spread_lo_bp")?,
+        floats(&df, path, "el_spread_hi_bp")?,
+        floats(&df, path, "premium_spread_lo_bp")?,
+        floats(&df, path, "premium_spread_hi_bp")?,
+    );
     Ok((0..df.height())
         .map(|i| Premium {
             cohort: c[i].clone().unwrap_or_default(),
@@ -128,8 +134,8 @@ fn read_premia(path: &Path) -> Result<Vec<Premium>> {
             lambda_q: lq[i],
             ratio: (ra[i], ral[i], rah[i]),
             spread: sp[i],
-            el: el[i],
-            premium: pr[i],
+            el: (el[i], ell[i], elh[i]),
+            premium: (pr[i], prl[i], prh[i]),
         })
         .collect())
 }
@@ -280,54 +286,47 @@ pub fn backtest_section(
     super::verdicts_section::term_structure_section(w, tables, charts_dir, figure, &same)?;
     super::verdicts_section::discrimination_section(w, tables, charts_dir, figure, &same, survivor_policy)?;
 
-    // Cohort history.
+    // Cohort history and the long-history premium.
     if history_df.height() > 0 {
-        let hp = &history_path;
-        let (c, g, o, d, rr, cl, ch, ip, pu, z) = (
-            strs(&history_df, hp, "cohort")?,
-            ints(&history_df, hp, "grade")?,
-            ints(&history_df, hp, "obligors")?,
-            ints(&history_df, hp, "defaults")?,
-            floats(&history_df, hp, "realised_rate")?,
-            floats(&history_df, hp, "cp_lo")?,
-            floats(&history_df, hp, "cp_hi")?,
-            floats(&history_df, hp, "implied_pd")?,
-            floats(&history_df, hp, "p_binom_upper")?,
-            strs(&history_df, hp, "zone")?,
-        );
-        let _ = writeln!(w, "### Against the institution's cohort history\n\nRealised one-year rates from `cohort_history` (pooled over its years), against the mean 1Y implied PD of the same grade over the quoted period:\n\n| grade | obligor-years | defaults | realised | Clopper-Pearson | mean implied PD | P[D >= d] | zone |\n| ---: | ---: | ---: | ---: | --- | ---: | ---: | --- |");
-        for i in 0..history_df.height() {
-            if c[i].as_deref() == Some("all") {
-                let _ = writeln!(
-                    w,
-                    "| {} | {} | {} | {} | [{}, {}] | {} | {} | {} |",
-                    g[i].unwrap_or(0),
-                    o[i].unwrap_or(0),
-                    d[i].unwrap_or(0),
-                    opt(rr[i], pct),
-                    opt(cl[i], pct),
-                    opt(ch[i], pct),
-                    opt(ip[i], pct),
-                    opt(pu[i], sci),
-                    z[i].as_deref().unwrap_or("-")
-                );
-            }
+        let history = crate::tables::read_from::<crate::backtest::HistoryRow>(&history_path)?;
+        let _ = writeln!(w, "### Against the institution's cohort history\n\nRealised one-year rates from `cohort_history` (pooled over its years), against the mean 1Y implied PD of the same grade over the quoted period. The long-history premium sets the quoted period's pricing intensity lambda_Q (1Y windows, as in the risk-premium table below) against the historical intensity of the cohort history, -ln(1 - d / n) per year, whose interval carries the Clopper-Pearson bounds through the same map. The two come from different periods: the cohort history covers its own years, the pricing intensity only the quoted period, so the ratio mixes a long-run default experience with one period's prices.\n\n| grade | obligor-years | defaults | realised | Clopper-Pearson | mean implied PD | P[D >= d] | zone | lambda_P (history) | interval | lambda_Q (quoted period) | Q/P | interval |\n| ---: | ---: | ---: | ---: | --- | ---: | ---: | --- | ---: | --- | ---: | ---: | --- |");
+        for r in history.iter().filter(|r| r.cohort == "all") {
+            let _ = writeln!(
+                w,
+                "| {} | {} | {} | {} | [{}, {}] | {} | {} | {} | {} | [{}, {}] | {} | {} | [{}, {}] |",
+                r.grade,
+                r.obligors,
+                r.defaults,
+                pct(r.realised_rate),
+                pct(r.cp_lo),
+                pct(r.cp_hi),
+                opt(r.implied_pd, pct),
+                opt(r.p_binom_upper, sci),
+                r.zone.map_or("-", |z| z.as_str()),
+                pct(r.lambda_p),
+                pct(r.lambda_p_lo),
+                opt(Some(r.lambda_p_hi), pct),
+                opt(r.lambda_q, pct),
+                opt(r.ratio, |v| format!("{v:.2}")),
+                opt(r.ratio_lo, |v| format!("{v:.2}")),
+                opt(r.ratio_hi, |v| format!("{v:.2}"))
+            );
         }
         let _ = writeln!(w);
     }
 
     // Risk premia.
     let _ = writeln!(w, "### Risk premium: pricing against historical intensity\n");
-    let _ = writeln!(w, "The historical intensity is defaults per exposure year (exposure from the cohort date to default, end of data or horizon end) with the exact Garwood (1936) Poisson interval; the pricing intensity is the calibrated hazard integrated over the same windows, per exposure year. The ratio's interval carries the Poisson uncertainty of the historical side only; with no default its upper end is unbounded (`-`). The expected-loss spread is lambda_P (1 - R); the rest of the quoted spread at the matching tenor is risk and liquidity premium.\n");
+    let _ = writeln!(w, "The historical intensity is defaults per exposure year (exposure from the cohort date to default, end of data or horizon end) with the exact Garwood (1936) Poisson interval; the pricing intensity is the calibrated hazard integrated over the same windows, per exposure year. The ratio's interval carries the Poisson uncertainty of the historical side only; with no default its upper end is unbounded (`-`). The expected-loss spread is lambda_P (1 - R), its interval from lambda_P's; the rest of the quoted spread at the matching tenor is risk and liquidity premium, its interval the quoted spread less the expected-loss interval.\n");
     for &h in &horizons {
         let mut rows: Vec<&Premium> =
             premia.iter().filter(|p| p.horizon == h && p.cohort == "all" && same(p.recovery)).collect();
         rows.sort_by_key(|p| bucket_order(&p.bucket));
-        let _ = writeln!(w, "{h}Y horizon:\n\n| bucket | members | exposure years | defaults | lambda_P | interval | lambda_Q | Q/P | interval | quoted spread bp | expected-loss bp | premium bp |\n| --- | ---: | ---: | ---: | ---: | --- | ---: | ---: | --- | ---: | ---: | ---: |");
+        let _ = writeln!(w, "{h}Y horizon:\n\n| bucket | members | exposure years | defaults | lambda_P | interval | lambda_Q | Q/P | interval | quoted spread bp | expected-loss bp | interval | premium bp | interval |\n| --- | ---: | ---: | ---: | ---: | --- | ---: | ---: | --- | ---: | ---: | --- | ---: | --- |");
         for p in &rows {
             let _ = writeln!(
                 w,
-                "| {} | {} | {:.1} | {} | {} | [{}, {}] | {} | {} | [{}, {}] | {} | {} | {} |",
+                "| {} | {} | {:.1} | {} | {} | [{}, {}] | {} | {} | [{}, {}] | {} | {} | [{}, {}] | {} | [{}, {}] |",
                 p.bucket,
                 p.members,
                 p.exposure,
@@ -340,8 +339,12 @@ pub fn backtest_section(
                 opt(p.ratio.1, |v| format!("{v:.2}")),
                 opt(p.ratio.2, |v| format!("{v:.2}")),
                 opt(p.spread, |v| format!("{v:.1}")),
-                opt(p.el, |v| format!("{v:.1}")),
-                opt(p.premium, |v| format!("{v:.1}"))
+                opt(p.el.0, |v| format!("{v:.1}")),
+                opt(p.el.1, |v| format!("{v:.1}")),
+                opt(p.el.2, |v| format!("{v:.1}")),
+                opt(p.premium.0, |v| format!("{v:.1}")),
+                opt(p.premium.1, |v| format!("{v:.1}")),
+                opt(p.premium.2, |v| format!("{v:.1}"))
             );
         }
         let _ = writeln!(w);

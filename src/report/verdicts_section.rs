@@ -260,6 +260,15 @@ pub fn discrimination_section(
     Ok(())
 }
 
+/// An interval cell: `[lo, hi]` in percent, `-` when it has no bound.
+fn interval(lo: Option<f64>, hi: Option<f64>) -> String {
+    if lo.is_none() && hi.is_none() {
+        "-".into()
+    } else {
+        format!("[{}, {}]", opt(lo, pct), opt(hi, pct))
+    }
+}
+
 /// The pooled bucket rows of the base recovery at horizon `h`, in bucket order.
 pub fn pooled<'a>(base: &[&'a BucketRecord], h: u32) -> Vec<&'a BucketRecord> {
     let mut rows: Vec<&BucketRecord> =
@@ -298,14 +307,13 @@ pub fn term_structure_section(
     for r in &sorted {
         let _ = writeln!(
             w,
-            "| {} | {}Y | {} | {} | {} | [{}, {}] | {} | {} | {} | {} | {} | {} | {} | {} |",
+            "| {} | {}Y | {} | {} | {} | {} | {} | {} | {} | {} | {} | {} | {} | {} |",
             r.bucket,
             r.horizon_years,
             r.members,
             r.at_risk_at_horizon,
             opt(r.realised_rate, pct),
-            opt(r.rate_lo, pct),
-            opt(r.rate_hi, pct),
+            interval(r.rate_lo, r.rate_hi),
             opt(r.implied_pd, pct),
             r.defaults,
             opt(r.expected_defaults, |v| format!("{v:.2}")),
@@ -356,7 +364,7 @@ pub fn term_structure_section(
     )? {
         *figure += 1;
         let _ = writeln!(w, "![Default term structure](charts/{name})\n");
-        let _ = writeln!(w, "*Figure {figure}. Kaplan-Meier cumulative default rate per bucket over the members of every cohort at the {longest}Y horizon (lines, recomputed from `backtest_members`), and the mean implied PD of each configured horizon (circles, from `backtest_term_structure`), in the bucket's colour.*\n");
+        let _ = writeln!(w, "*Figure {figure}. Kaplan-Meier cumulative default rate per bucket over the members of every cohort at the {longest}Y horizon (lines, recomputed from `backtest_members`), and the members' mean implied cumulative PD at each year (circles, from `backtest_term_structure`), in the bucket's colour.*\n");
     }
     Ok(())
 }

@@ -291,7 +291,8 @@ pub fn backtest_from_members(
     let outcome_end = ctx.outcome_end.or(stage.core.outcome_end).unwrap_or(last);
     let core = BacktestSettings { cohort_dates: dates.clone(), outcome_end: Some(outcome_end), ..stage.core.clone() };
     let mk = |e: backtest::BacktestError| Error::Stage { stage: "backtest", source: e.into() };
-    let horizon_rank = |h: u32| core.horizons_years.iter().position(|x| *x == h).unwrap_or(usize::MAX);
+    let order = core.member_horizons();
+    let horizon_rank = |h: u32| order.iter().position(|x| *x == h).unwrap_or(usize::MAX);
     let wanted: BTreeSet<NaiveDate> = dates.iter().copied().collect();
     let mut outputs = Vec::new();
     for (recovery, obs) in members.iter_mut() {
@@ -324,8 +325,9 @@ pub fn backtest_from_members(
                 withdrawn: r.withdrawn,
             })
             .collect();
-        results.history = compare_cohort_history(&records, &outputs[0].buckets, core.level, &core.zones)
-            .map_err(|e| Error::Stage { stage: "backtest (cohort history)", source: e.into() })?;
+        results.history =
+            compare_cohort_history(&records, &outputs[0].buckets, &outputs[0].risk_premia, core.level, &core.zones)
+                .map_err(|e| Error::Stage { stage: "backtest (cohort history)", source: e.into() })?;
         results.outcome_sources.push("cohort_history");
     }
     // Without a defaults table the entity-level outcomes are unknown (every member would look

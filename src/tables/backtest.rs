@@ -537,7 +537,11 @@ impl Table for RiskPremiumRow {
         col("spread_bp", Float),
         col("spread_quotes", Int),
         col("el_spread_bp", Float),
+        col("el_spread_lo_bp", Float),
+        col("el_spread_hi_bp", Float),
         col("premium_spread_bp", Float),
+        col("premium_spread_lo_bp", Float),
+        col("premium_spread_hi_bp", Float),
     ];
 
     fn frame(rp: &[Self]) -> Result<DataFrame> {
@@ -560,7 +564,11 @@ impl Table for RiskPremiumRow {
             .floats("spread_bp", rp.iter().map(|b| b.spread_bp))
             .ints("spread_quotes", rp.iter().map(|b| Some(b.spread_quotes as i64)))
             .floats("el_spread_bp", rp.iter().map(|b| b.el_spread_bp))
+            .floats("el_spread_lo_bp", rp.iter().map(|b| b.el_spread_lo_bp))
+            .floats("el_spread_hi_bp", rp.iter().map(|b| b.el_spread_hi_bp))
             .floats("premium_spread_bp", rp.iter().map(|b| b.premium_spread_bp))
+            .floats("premium_spread_lo_bp", rp.iter().map(|b| b.premium_spread_lo_bp))
+            .floats("premium_spread_hi_bp", rp.iter().map(|b| b.premium_spread_hi_bp))
             .finish()
     }
 
@@ -589,6 +597,8 @@ impl Table for RiskPremiumRow {
             f("el_spread_bp")?,
             f("premium_spread_bp")?,
         );
+        let (ell, elh, prl, prh) =
+            (f("el_spread_lo_bp")?, f("el_spread_hi_bp")?, f("premium_spread_lo_bp")?, f("premium_spread_hi_bp")?);
         Ok((0..df.height())
             .map(|i| RiskPremiumRow {
                 cohort: co[i].take().unwrap_or_default(),
@@ -609,7 +619,11 @@ impl Table for RiskPremiumRow {
                 spread_bp: sp[i],
                 spread_quotes: whole(sq[i]),
                 el_spread_bp: el[i],
+                el_spread_lo_bp: ell[i],
+                el_spread_hi_bp: elh[i],
                 premium_spread_bp: pr[i],
+                premium_spread_lo_bp: prl[i],
+                premium_spread_hi_bp: prh[i],
             })
             .collect())
     }
@@ -633,6 +647,13 @@ impl Table for HistoryRow {
         col("p_binom_upper", Float),
         col("p_jeffreys", Float),
         col("zone", Text),
+        col("lambda_p", Float),
+        col("lambda_p_lo", Float),
+        col("lambda_p_hi", Float),
+        col("lambda_q", Float),
+        col("ratio", Float),
+        col("ratio_lo", Float),
+        col("ratio_hi", Float),
         col("outcome_source", Text),
     ];
 
@@ -653,6 +674,13 @@ impl Table for HistoryRow {
             .floats("p_binom_upper", h.iter().map(|b| b.p_binom_upper))
             .floats("p_jeffreys", h.iter().map(|b| b.p_jeffreys))
             .strings("zone", h.iter().map(|b| b.zone.map(|z| z.as_str())))
+            .floats("lambda_p", h.iter().map(|b| Some(b.lambda_p)))
+            .floats("lambda_p_lo", h.iter().map(|b| Some(b.lambda_p_lo)))
+            .floats("lambda_p_hi", h.iter().map(|b| Some(b.lambda_p_hi)))
+            .floats("lambda_q", h.iter().map(|b| b.lambda_q))
+            .floats("ratio", h.iter().map(|b| b.ratio))
+            .floats("ratio_lo", h.iter().map(|b| b.ratio_lo))
+            .floats("ratio_hi", h.iter().map(|b| b.ratio_hi))
             .strings("outcome_source", h.iter().map(|b| Some(b.outcome_source)))
             .finish()
     }
@@ -678,6 +706,15 @@ impl Table for HistoryRow {
             f("p_jeffreys")?,
         );
         let (z, os) = (strs(df, path, "zone")?, strs(df, path, "outcome_source")?);
+        let (lp, lpl, lph, lq, ra, ral, rah) = (
+            f("lambda_p")?,
+            f("lambda_p_lo")?,
+            f("lambda_p_hi")?,
+            f("lambda_q")?,
+            f("ratio")?,
+            f("ratio_lo")?,
+            f("ratio_hi")?,
+        );
         let nan = |v: Option<f64>| v.unwrap_or(f64::NAN);
         (0..df.height())
             .map(|i| {
@@ -697,6 +734,13 @@ impl Table for HistoryRow {
                     p_binom_upper: pu[i],
                     p_jeffreys: pj[i],
                     zone: z[i].as_deref().map(|z| text_form(Some(z), "zone", path, i)).transpose()?,
+                    lambda_p: nan(lp[i]),
+                    lambda_p_lo: nan(lpl[i]),
+                    lambda_p_hi: nan(lph[i]),
+                    lambda_q: lq[i],
+                    ratio: ra[i],
+                    ratio_lo: ral[i],
+                    ratio_hi: rah[i],
                     outcome_source: intern(os[i].as_deref().unwrap_or("")),
                 })
             })
@@ -859,7 +903,11 @@ mod tests {
             spread_bp: Some(250.0),
             spread_quotes: 160,
             el_spread_bp: Some(114.0),
+            el_spread_lo_bp: Some(24.0),
+            el_spread_hi_bp: Some(330.0),
             premium_spread_bp: Some(136.0),
+            premium_spread_lo_bp: Some(-80.0),
+            premium_spread_hi_bp: Some(226.0),
         }];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);
@@ -883,6 +931,13 @@ mod tests {
             p_binom_upper: None,
             p_jeffreys: None,
             zone: None,
+            lambda_p: 0.0113,
+            lambda_p_lo: 0.005,
+            lambda_p_hi: 0.0202,
+            lambda_q: Some(0.03),
+            ratio: Some(2.65),
+            ratio_lo: Some(1.48),
+            ratio_hi: Some(6.0),
             outcome_source: "cohort_history",
         }];
         assert_eq!(round_trip(&rows), rows);

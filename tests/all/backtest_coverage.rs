@@ -45,6 +45,7 @@ fn ratio_interval_covers_the_planted_multiplier() {
         zones: ZoneThresholds::default(),
         outcome_end: Some(d(2021, 6, 30)),
         correlation: AssetCorrelation::Supervisory,
+        term_structure_years: 0,
     };
     let reps = 200;
     let mut covered = [0usize; 2];
@@ -119,6 +120,7 @@ fn coverage_exits_and_an_outcome_end_leave_the_estimates_unbiased() {
         zones: ZoneThresholds::default(),
         outcome_end: Some(d(2021, 7, 1)),
         correlation: AssetCorrelation::Supervisory,
+        term_structure_years: 0,
     };
     let h0 = hazardline::curves::year_time(t0, d(2021, 1, 2));
     let true_pd = 1.0 - (-lambda * h0).exp();
@@ -182,6 +184,7 @@ fn correlated_defaults_keep_the_one_factor_test_at_its_level() {
         zones: ZoneThresholds::default(),
         outcome_end: Some(d(2021, 6, 30)),
         correlation: AssetCorrelation::Fixed(rho),
+        term_structure_years: 0,
     };
     let lambda = 0.03;
     let h = hazardline::curves::year_time(t, d(2021, 1, 2));

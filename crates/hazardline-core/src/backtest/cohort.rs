@@ -146,7 +146,7 @@ pub fn member_observations(
                 continue;
             }
             let Some(dc) = curves.latest_within(&f.entity, t, settings.lookback_days) else { continue };
-            for &h in &settings.horizons_years {
+            for h in settings.member_horizons() {
                 let end = horizon_end(t, h)?;
                 let hy = year_time(t, end);
                 let (outcome, event_date, window_end) = outcome_over(f, t, end);

@@ -40,6 +40,19 @@ pub struct HistoryRow {
     pub p_binom_upper: Option<f64>,
     pub p_jeffreys: Option<f64>,
     pub zone: Option<stats::Zone>,
+    /// The long-history premium: the historical intensity of the grade, -ln(1 - d / n) per
+    /// year, with the Clopper-Pearson bounds carried through the same monotone map.
+    pub lambda_p: f64,
+    pub lambda_p_lo: f64,
+    pub lambda_p_hi: f64,
+    /// The quoted period's pricing intensity of the same grade (1Y windows, `risk_premia`),
+    /// None when no calibrated cohort covers it.
+    pub lambda_q: Option<f64>,
+    /// lambda_q / lambda_p with bounds lambda_q / lambda_p_hi and lambda_q / lambda_p_lo
+    /// (None when that is 0). The two intensities come from different periods.
+    pub ratio: Option<f64>,
+    pub ratio_lo: Option<f64>,
+    pub ratio_hi: Option<f64>,
     /// Always [`SOURCE_COHORT_HISTORY`]: the outcomes are the institution's counts.
     pub outcome_source: &'static str,
 }
@@ -49,9 +62,15 @@ pub struct HistoryRow {
 pub fn compare_cohort_history(
     records: &[CohortHistoryRecord],
     entity_rows: &[BucketRow],
+    premia: &[super::RiskPremiumRow],
     level: f64,
     zones: &ZoneThresholds,
 ) -> Result<Vec<HistoryRow>, stats::StatsError> {
+    let lambda_q: BTreeMap<(String, String), f64> = premia
+        .iter()
+        .filter(|r| r.horizon_years == 1)
+        .filter_map(|r| r.lambda_q.map(|q| ((r.cohort.clone(), r.bucket.clone()), q)))
+        .collect();
     let implied: BTreeMap<(String, String), f64> = entity_rows
         .iter()
         .filter(|r| r.horizon_years == 1)
@@ -76,6 +95,9 @@ pub fn compare_cohort_history(
         let j = stats::jeffreys_interval(d, n, level)?;
         let p = implied.get(&(cohort.clone(), format!("grade {grade}"))).copied();
         let upper = p.map(|p| stats::binomial_upper_tail(d, n, p)).transpose()?;
+        let intensity = |rate: f64| -(-rate).ln_1p();
+        let (lp, lp_lo, lp_hi) = (intensity(d as f64 / n as f64), intensity(cp.lo), intensity(cp.hi));
+        let q = lambda_q.get(&(cohort.clone(), format!("grade {grade}"))).copied();
         rows.push(HistoryRow {
             cohort,
             grade,
@@ -92,6 +114,13 @@ pub fn compare_cohort_history(
             p_binom_upper: upper,
             p_jeffreys: p.map(|p| stats::jeffreys_p_value(d, n, p)).transpose()?,
             zone: upper.map(|u| stats::traffic_light(u, zones)).transpose()?,
+            lambda_p: lp,
+            lambda_p_lo: lp_lo,
+            lambda_p_hi: lp_hi,
+            lambda_q: q,
+            ratio: q.filter(|_| lp > 0.0).map(|q| q / lp),
+            ratio_lo: q.filter(|_| lp_hi.is_finite()).map(|q| q / lp_hi),
+            ratio_hi: q.filter(|_| lp_lo > 0.0).map(|q| q / lp_lo),
             outcome_source: SOURCE_COHORT_HISTORY,
         });
     }

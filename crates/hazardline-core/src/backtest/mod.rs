@@ -153,6 +153,10 @@ pub struct BacktestSettings {
     pub outcome_end: Option<NaiveDate>,
     /// Asset correlation of the one-factor tests.
     pub correlation: AssetCorrelation,
+    /// The default term structure runs over years 1..=this (0: only the tested horizons).
+    /// Members are built for these horizons too; only `horizons_years` enter the bucket,
+    /// Hosmer-Lemeshow, discrimination and premium rows.
+    pub term_structure_years: u32,
 }
 
 /// The asset correlation rho of the one-factor (Vasicek) bucket tests.
@@ -179,7 +183,23 @@ impl AssetCorrelation {
     }
 }
 
+/// The longest term structure accepted, in years.
+pub const MAX_TERM_STRUCTURE_YEARS: u32 = 30;
+
 impl BacktestSettings {
+    /// Every horizon members are built for: the tested horizons in their order, then the
+    /// term-structure years not among them, ascending.
+    pub fn member_horizons(&self) -> Vec<u32> {
+        let mut out = self.horizons_years.clone();
+        out.extend((1..=self.term_structure_years).filter(|h| !self.horizons_years.contains(h)));
+        out
+    }
+
+    /// Whether `h` is a tested horizon (the others serve the term structure only).
+    pub fn is_tested(&self, h: u32) -> bool {
+        self.horizons_years.contains(&h)
+    }
+
     /// Checks the settings; the error names the offending value.
     pub fn check(&self) -> Result<(), BacktestError> {
         if self.cohort_dates.is_empty() {
@@ -195,6 +215,9 @@ impl BacktestSettings {
             return Err(BacktestError::Stats(StatsError::LevelOutOfRange(self.level)));
         }
         ZoneThresholds::new(self.zones.yellow, self.zones.red)?;
+        if self.term_structure_years > MAX_TERM_STRUCTURE_YEARS {
+            return Err(BacktestError::BadTermStructure(self.term_structure_years));
+        }
         if let AssetCorrelation::Fixed(r) = self.correlation {
             if !(0.0..1.0).contains(&r) {
                 return Err(BacktestError::BadCorrelation(r));
@@ -225,6 +248,8 @@ pub enum BacktestError {
     BadBandEdges(Vec<f64>),
     #[error("PD quantile buckets need at least 2 buckets, got {0}")]
     BadQuantileCount(usize),
+    #[error("term_structure_years must be at most {MAX_TERM_STRUCTURE_YEARS}, got {0}")]
+    BadTermStructure(u32),
     #[error("asset correlation {0} must lie in [0, 1)")]
     BadCorrelation(f64),
     #[error("recovery {0} must lie in [0, 1)")]
@@ -280,12 +305,22 @@ pub fn backtest_members(
         }
     }
     bucket_observations(&mut obs, settings);
-    let buckets = bucket_rows(&obs, settings)?;
-    let hosmer_lemeshow = hosmer_lemeshow_rows(&obs, settings);
-    let risk_premia = risk_premium_rows(&obs, settings, recovery)?;
-    let discrimination = discrimination_rows(&obs, settings);
     let term_structure = term_structure_rows(&obs, settings)?;
-    Ok(BacktestOutput { recovery, members: obs, buckets, hosmer_lemeshow, risk_premia, discrimination, term_structure })
+    // The tested horizons only; the term-structure years stay in the member list.
+    let (tested, extra): (Vec<Observation>, Vec<Observation>) =
+        obs.into_iter().partition(|o| settings.is_tested(o.horizon_years));
+    let buckets = bucket_rows(&tested, settings)?;
+    let hosmer_lemeshow = hosmer_lemeshow_rows(&tested, settings);
+    let risk_premia = risk_premium_rows(&tested, settings, recovery)?;
+    let discrimination = discrimination_rows(&tested, settings);
+    let order = settings.member_horizons();
+    let rank = |h: u32| order.iter().position(|x| *x == h).unwrap_or(usize::MAX);
+    let mut members = tested;
+    members.extend(extra);
+    members.sort_by(|a, b| {
+        (a.cohort, &a.entity, rank(a.horizon_years)).cmp(&(b.cohort, &b.entity, rank(b.horizon_years)))
+    });
+    Ok(BacktestOutput { recovery, members, buckets, hosmer_lemeshow, risk_premia, discrimination, term_structure })
 }
 
 /// Runs [`run_backtest`] once per recovery scenario (each a curve set with its recovery), so
@@ -348,6 +383,7 @@ mod tests {
             zones: ZoneThresholds::default(),
             outcome_end: None,
             correlation: AssetCorrelation::Supervisory,
+            term_structure_years: 0,
         }
     }
 
@@ -534,7 +570,8 @@ mod tests {
             CohortHistoryRecord { year: 2021, grade: 1, obligors: 200, defaults: 3, withdrawn: Some(4) },
             CohortHistoryRecord { year: 2020, grade: 1, obligors: 100, defaults: 1, withdrawn: None },
         ];
-        let rows = compare_cohort_history(&recs, &out.buckets, 0.95, &ZoneThresholds::default()).unwrap();
+        let rows =
+            compare_cohort_history(&recs, &out.buckets, &out.risk_premia, 0.95, &ZoneThresholds::default()).unwrap();
         let r21 = rows.iter().find(|r| r.cohort == "2021").unwrap();
         assert_eq!(r21.outcome_source, "cohort_history");
         assert!((r21.implied_pd.unwrap() - (1.0 - (-0.02f64).exp())).abs() < 1e-16);
@@ -544,7 +581,15 @@ mod tests {
         let all = rows.iter().find(|r| r.cohort == "all").unwrap();
         assert_eq!((all.obligors, all.defaults, all.withdrawn), (300, 4, None));
         let bad = [CohortHistoryRecord { year: 2021, grade: 1, obligors: 2, defaults: 3, withdrawn: None }];
-        assert!(compare_cohort_history(&bad, &out.buckets, 0.95, &ZoneThresholds::default()).is_err());
+        assert!(compare_cohort_history(&bad, &out.buckets, &out.risk_premia, 0.95, &ZoneThresholds::default()).is_err());
+        // The long-history premium: lambda_P = -ln(1 - 3/200) per year against the quoted
+        // period's lambda_Q of grade 1 (0.02, flat curves), the bounds through the same map.
+        let lp = -(1.0f64 - 3.0 / 200.0).ln();
+        assert!((r21.lambda_p - lp).abs() < 1e-15);
+        assert!((r21.ratio.unwrap() - 0.02 / lp).abs() < 1e-13);
+        let cp = crate::stats::clopper_pearson(3, 200, 0.95).unwrap();
+        assert!((r21.ratio_lo.unwrap() - 0.02 / -(1.0 - cp.hi).ln()).abs() < 1e-13);
+        assert_eq!(r20.lambda_q, None);
     }
 
     /// The regression of the censoring bias: members whose data simply stop (the end of the
@@ -688,6 +733,26 @@ mod tests {
         assert_eq!((b.n, b.defaults), (12, 1));
         let all = out.term_structure.iter().find(|r| r.bucket == "all").unwrap();
         assert_eq!(all.members, 23);
+    }
+
+    /// Term-structure years add member horizons and term rows, never tested rows.
+    #[test]
+    fn term_structure_years_are_members_not_tests() {
+        let (f, c) = universe();
+        let mut s = settings(Bucketing::Grades, CensoringPolicy::Exclude);
+        s.term_structure_years = 3;
+        s.outcome_end = Some(d("2030-01-01"));
+        assert_eq!(s.member_horizons(), [1, 2, 3]);
+        let out = run_backtest(&f, &c, &s).unwrap();
+        assert!(out.buckets.iter().all(|b| b.horizon_years == 1));
+        assert!(out.discrimination.iter().all(|b| b.horizon_years == 1));
+        assert!(out.risk_premia.iter().all(|b| b.horizon_years == 1));
+        let years: std::collections::BTreeSet<u32> = out.term_structure.iter().map(|r| r.horizon_years).collect();
+        assert_eq!(years.into_iter().collect::<Vec<_>>(), [1, 2, 3]);
+        let a: Vec<u32> = out.members.iter().filter(|m| m.entity == "a").map(|m| m.horizon_years).collect();
+        assert_eq!(a, [1, 2, 3]);
+        s.term_structure_years = 31;
+        assert!(matches!(s.check(), Err(BacktestError::BadTermStructure(31))));
     }
 
     #[test]

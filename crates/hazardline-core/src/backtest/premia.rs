@@ -39,8 +39,14 @@ pub struct RiskPremiumRow {
     pub spread_quotes: u64,
     /// lambda_P (1 - R) x 1e4.
     pub el_spread_bp: Option<f64>,
+    /// The expected-loss spread at the ends of lambda_P's Garwood interval.
+    pub el_spread_lo_bp: Option<f64>,
+    pub el_spread_hi_bp: Option<f64>,
     /// spread_bp - el_spread_bp: risk and liquidity premium.
     pub premium_spread_bp: Option<f64>,
+    /// spread_bp minus the upper and the lower end of the expected-loss spread.
+    pub premium_spread_lo_bp: Option<f64>,
+    pub premium_spread_hi_bp: Option<f64>,
 }
 
 /// One `risk_premia` row per (cohort year and "all", horizon, bucket).
@@ -87,7 +93,11 @@ fn premium_row(
         spread_bp,
         spread_quotes: spreads.len() as u64,
         el_spread_bp: None,
+        el_spread_lo_bp: None,
+        el_spread_hi_bp: None,
         premium_spread_bp: None,
+        premium_spread_lo_bp: None,
+        premium_spread_hi_bp: None,
     };
     if exposure <= 0.0 {
         return Ok(row);
@@ -102,7 +112,10 @@ fn premium_row(
     row.ratio = (defaults > 0).then(|| lambda_q / lambda_p);
     row.ratio_lo = Some(lambda_q / g.hi);
     row.ratio_hi = (g.lo > 0.0).then(|| lambda_q / g.lo);
+    let (el_lo, el_hi) = (g.lo * (1.0 - recovery) * 1e4, g.hi * (1.0 - recovery) * 1e4);
     row.el_spread_bp = Some(el);
+    (row.el_spread_lo_bp, row.el_spread_hi_bp) = (Some(el_lo), Some(el_hi));
     row.premium_spread_bp = spread_bp.map(|s| s - el);
+    (row.premium_spread_lo_bp, row.premium_spread_hi_bp) = (spread_bp.map(|s| s - el_hi), spread_bp.map(|s| s - el_lo));
     Ok(row)
 }
