@@ -284,6 +284,7 @@ pub fn backtest_section(
     }
     let _ = writeln!(w);
     super::verdicts_section::term_structure_section(w, tables, charts_dir, figure, &same)?;
+    super::verdicts_section::migration_section(w, tables, charts_dir, figure)?;
     super::verdicts_section::discrimination_section(w, tables, charts_dir, figure, &same, survivor_policy)?;
 
     // Cohort history and the long-history premium.

@@ -368,3 +368,50 @@ pub fn term_structure_section(
     }
     Ok(())
 }
+
+/// One-year grade migration of the pooled cohorts: a matrix of shares with the row counts, and
+/// a heat map of the same shares.
+pub fn migration_section(w: &mut String, tables_dir: &Path, charts_dir: &Path, figure: &mut usize) -> Result<()> {
+    let path = tables_dir.join("backtest_migration.parquet");
+    if !path.exists() {
+        return Ok(());
+    }
+    let rows = tables::read_from::<crate::backtest::MigrationRow>(&path)?;
+    let pooled: Vec<&crate::backtest::MigrationRow> = rows.iter().filter(|r| r.cohort == "all").collect();
+    if pooled.is_empty() {
+        return Ok(());
+    }
+    let years: BTreeSet<&str> = rows.iter().map(|r| r.cohort.as_str()).filter(|c| *c != "all").collect();
+    let from: BTreeSet<u32> = pooled.iter().map(|r| r.from_grade).collect();
+    let mut to_grades: BTreeSet<u32> = from.clone();
+    to_grades.extend(pooled.iter().filter_map(|r| r.to.strip_prefix("grade ").and_then(|g| g.parse::<u32>().ok())));
+    let mut cols: Vec<String> = to_grades.iter().map(|g| format!("grade {g}")).collect();
+    cols.push("default".into());
+    cols.push("left coverage".into());
+    let _ = writeln!(w, "### Grade migration (one year, cohort method)\n\nAt each cohort date ({}), every entity of the grades table with a grade in force, not in default and in coverage, counted in its grade; a year later in `default` (a default inside coverage), `left coverage`, or the grade then in force. Cohorts whose year ends after the outcome end are left out. Pooled shares of each row (per-year counts in `tables/backtest_migration.parquet`):\n", years.iter().copied().collect::<Vec<_>>().join(", "));
+    let head: Vec<String> = cols.iter().map(|c| c.replace("grade ", "to ")).collect();
+    let _ = writeln!(w, "| from | n | {} |\n| --- | ---: |{}", head.join(" | "), " ---: |".repeat(cols.len()));
+    let mut values = Vec::new();
+    for g in &from {
+        let cells: Vec<&&crate::backtest::MigrationRow> = pooled.iter().filter(|r| r.from_grade == *g).collect();
+        let n = cells.first().map_or(0, |r| r.from_total);
+        let shares: Vec<Option<f64>> =
+            cols.iter().map(|c| Some(cells.iter().find(|r| &r.to == c).map_or(0.0, |r| r.share))).collect();
+        let text: Vec<String> = shares.iter().map(|s| opt(*s, pct)).collect();
+        let _ = writeln!(w, "| grade {g} | {n} | {} |", text.join(" | "));
+        values.push(shares);
+    }
+    let _ = writeln!(w);
+    let labels: Vec<String> = from.iter().map(|g| format!("grade {g}")).collect();
+    let name = "migration.svg";
+    if save_chart(
+        charts_dir,
+        name,
+        charts::heat_map("One-year migration shares, cohorts pooled", &labels, &cols, &values),
+    )? {
+        *figure += 1;
+        let _ = writeln!(w, "![Grade migration](charts/{name})\n");
+        let _ = writeln!(w, "*Figure {figure}. Share of each grade's members (rows) in each grade, in default or out of coverage a year later (columns), cohorts pooled; darker is larger.*\n");
+    }
+    Ok(())
+}

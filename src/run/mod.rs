@@ -20,7 +20,7 @@ pub mod selfcheck;
 
 pub use merge::merge;
 
-use crate::backtest::{HistoryRow, RiskPremiumRow, VerdictRow};
+use crate::backtest::{HistoryRow, MigrationRow, RiskPremiumRow, VerdictRow};
 use crate::config::RunConfig;
 use crate::error::{Error, Result};
 use crate::ingest::Dataset;
@@ -103,7 +103,7 @@ fn counts_records(stage: &str, counts: &[TableCounts]) -> Vec<CountRecord> {
 
 /// Every table a run writes. `intensity_params` and `cds_bond_basis` are always written, empty
 /// (with their schema) when the CIR or bond fit is off, so consumers find the same files.
-pub const TABLES: [&str; 24] = [
+pub const TABLES: [&str; 25] = [
     DataQualityRow::NAME,
     Reject::NAME,
     DiscountCurveRow::NAME,
@@ -117,6 +117,7 @@ pub const TABLES: [&str; 24] = [
     DiscriminationRecord::NAME,
     TermStructureRecord::NAME,
     VerdictRow::NAME,
+    MigrationRow::NAME,
     HistoryRow::NAME,
     RiskPremiumRow::NAME,
     StabilityRow::NAME,
@@ -462,6 +463,7 @@ fn finish(
         let ctx = BacktestContext {
             curve_dates: cal.curve_dates,
             outcome_end: outcome_end(cfg, &ds),
+            graded: crate::stages::backtest::graded_facts(&ds),
             have_defaults: ds.defaults.is_some(),
             cohort_history: ds.cohort_history.as_ref(),
             defaults_without_curves: first_defaults(&ds).keys().filter(|e| !with_curves.contains(*e)).count(),

@@ -34,6 +34,8 @@ pub struct BacktestResults {
     pub outcome_end: Option<NaiveDate>,
     /// One status per test family, from the base recovery's rows.
     pub verdicts: Vec<backtest::VerdictRow>,
+    /// One-year grade migration, per cohort year and pooled.
+    pub migration: Vec<backtest::MigrationRow>,
 }
 
 /// The par-spread quotes of a curve in bp by tenor (upfront quotes have no par spread).
@@ -74,6 +76,14 @@ fn facts<'a>(ds: &Dataset, entities: impl Iterator<Item = &'a String>) -> Vec<En
             coverage_end: coverage.get(e.as_str()).copied(),
         })
         .collect()
+}
+
+/// Entity facts of every entity of the grades table, for the migration matrices (which need
+/// no curve).
+pub fn graded_facts(ds: &Dataset) -> Vec<EntityFacts> {
+    let names: BTreeSet<String> =
+        ds.grades.as_ref().map(|g| g.rows.iter().map(|(r, _)| r.entity.clone()).collect()).unwrap_or_default();
+    facts(ds, names.iter())
 }
 
 /// Where the calibrated CDS curves lie: the first and last curve date, and each entity's
@@ -260,6 +270,8 @@ pub struct BacktestContext<'a> {
     pub curve_dates: Option<(NaiveDate, NaiveDate)>,
     /// The run's outcome end (the parts built their members with the same).
     pub outcome_end: Option<NaiveDate>,
+    /// Every graded entity, for the migration matrices.
+    pub graded: Vec<EntityFacts>,
     pub have_defaults: bool,
     pub cohort_history: Option<&'a crate::ingest::tables::Rows<crate::ingest::tables::CohortHistoryRow>>,
     /// Entities with a defaults row but no curve.
@@ -334,6 +346,7 @@ pub fn backtest_from_members(
     // like a survivor): only the implied PDs are used, against the cohort history.
     results.outputs = if ctx.have_defaults { outputs } else { Vec::new() };
     results.outcome_end = Some(outcome_end);
+    results.migration = backtest::migration_rows(&ctx.graded, &dates, outcome_end).map_err(mk)?;
     if let Some(base) = results.outputs.first() {
         results.verdicts = backtest::verdict_rows(base, &core);
     }
@@ -341,7 +354,8 @@ pub fn backtest_from_members(
 }
 
 /// Writes `backtest_members`, `backtest_buckets`, `backtest_hosmer_lemeshow`,
-/// `backtest_discrimination`, `backtest_term_structure`, `backtest_verdicts`, `risk_premia` and (with a cohort history)
+/// `backtest_discrimination`, `backtest_term_structure`, `backtest_verdicts`,
+/// `backtest_migration`, `risk_premia` and (with a cohort history)
 /// `backtest_history`. Rows of every recovery scenario are in the same tables, told apart by
 /// their `recovery` column; the verdicts are the base recovery's.
 pub fn write_backtest_tables(r: &BacktestResults, dir: &Path, meta: &[(String, String)]) -> Result<()> {
@@ -370,6 +384,7 @@ pub fn write_backtest_tables(r: &BacktestResults, dir: &Path, meta: &[(String, S
         .collect();
     tables::write(&ts, dir, meta)?;
     tables::write(&r.verdicts, dir, meta)?;
+    tables::write(&r.migration, dir, meta)?;
     let buckets: Vec<BucketRecord> = r
         .outputs
         .iter()

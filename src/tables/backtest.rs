@@ -8,7 +8,8 @@ use super::parquet::TableBuilder;
 use super::readback::{floats, intern, ints, strs, text_form};
 use super::{col, Column, Kind::*, Table};
 use crate::backtest::{
-    BucketRow, DiscriminationRow, HistoryRow, HosmerLemeshowRow, RiskPremiumRow, TermStructureRow, VerdictRow,
+    BucketRow, DiscriminationRow, HistoryRow, HosmerLemeshowRow, MigrationRow, RiskPremiumRow, TermStructureRow,
+    VerdictRow,
 };
 use crate::error::Result;
 use polars::prelude::DataFrame;
@@ -466,6 +467,50 @@ impl Table for TermStructureRecord {
     }
 }
 
+impl Table for MigrationRow {
+    const NAME: &'static str = "backtest_migration";
+    const COLUMNS: &'static [Column] = &[
+        col("cohort", Text),
+        col("from_grade", Int),
+        col("to", Text),
+        col("count", Int),
+        col("from_total", Int),
+        col("share", Float),
+    ];
+
+    fn frame(rows: &[Self]) -> Result<DataFrame> {
+        TableBuilder::new()
+            .strings("cohort", rows.iter().map(|r| Some(&r.cohort)))
+            .ints("from_grade", rows.iter().map(|r| Some(i64::from(r.from_grade))))
+            .strings("to", rows.iter().map(|r| Some(&r.to)))
+            .ints("count", rows.iter().map(|r| Some(r.count as i64)))
+            .ints("from_total", rows.iter().map(|r| Some(r.from_total as i64)))
+            .floats("share", rows.iter().map(|r| Some(r.share)))
+            .finish()
+    }
+
+    fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
+        let (mut co, g, mut to, n, t, sh) = (
+            strs(df, path, "cohort")?,
+            ints(df, path, "from_grade")?,
+            strs(df, path, "to")?,
+            ints(df, path, "count")?,
+            ints(df, path, "from_total")?,
+            floats(df, path, "share")?,
+        );
+        Ok((0..df.height())
+            .map(|i| MigrationRow {
+                cohort: co[i].take().unwrap_or_default(),
+                from_grade: g[i].unwrap_or(0) as u32,
+                to: to[i].take().unwrap_or_default(),
+                count: whole(n[i]),
+                from_total: whole(t[i]),
+                share: sh[i].unwrap_or(f64::NAN),
+            })
+            .collect())
+    }
+}
+
 impl Table for VerdictRow {
     const NAME: &'static str = "backtest_verdicts";
     const COLUMNS: &'static [Column] = &[
@@ -880,6 +925,16 @@ mod tests {
         }];
         assert_eq!(round_trip(&t), t);
         refuses_a_missing_column(&t);
+        let m = vec![MigrationRow {
+            cohort: "all".into(),
+            from_grade: 3,
+            to: "left coverage".into(),
+            count: 4,
+            from_total: 200,
+            share: 0.02,
+        }];
+        assert_eq!(round_trip(&m), m);
+        refuses_a_missing_column(&m);
     }
 
     #[test]
