@@ -201,9 +201,10 @@ pub fn backtest_section(
         for b in &pooled_records {
             let r = &b.row;
             let realised = match r.rate_method {
-                Some(crate::backtest::RateMethod::KaplanMeier) => {
+                Some(crate::backtest::RateMethod::KaplanMeier) if r.km_lo.is_some() => {
                     format!("{} KM [{}, {}]", opt(r.realised_rate, pct), opt(r.km_lo, pct), opt(r.km_hi, pct))
                 }
+                Some(crate::backtest::RateMethod::KaplanMeier) => format!("{} KM", opt(r.realised_rate, pct)),
                 _ => opt(r.realised_rate, pct),
             };
             let _ = writeln!(
@@ -231,7 +232,9 @@ pub fn backtest_section(
         let items: Vec<IntervalItem> = pooled_records
             .iter()
             .map(|b| {
-                let km = b.row.rate_method == Some(crate::backtest::RateMethod::KaplanMeier);
+                // The Greenwood interval where the rate is Kaplan-Meier with a default; else
+                // Clopper-Pearson.
+                let km = b.row.rate_method == Some(crate::backtest::RateMethod::KaplanMeier) && b.row.km_lo.is_some();
                 IntervalItem {
                     label: b.row.bucket.trim_start_matches("grade ").to_string(),
                     estimate: b.row.realised_rate,

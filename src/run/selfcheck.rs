@@ -146,8 +146,77 @@ pub struct SelfCheck {
     pub good_rejected: u64,
     pub grades: Vec<GradeRecovery>,
     pub cir: Vec<CirRecovery>,
+    /// Discrimination: the run's pooled 1Y AUC of the implied PD with its interval, and the
+    /// AUC of the planted pricing PDs on the same members and outcomes.
+    pub auc: Option<AucRecovery>,
+    /// Members that left coverage inside their horizon (censored), as planted.
+    pub censored_members: usize,
     pub passed: bool,
     pub table: String,
+}
+
+/// The run's AUC against the planted one.
+#[derive(Debug, Clone, PartialEq)]
+pub struct AucRecovery {
+    pub members: usize,
+    pub defaults: usize,
+    pub auc: f64,
+    pub lo: f64,
+    pub hi: f64,
+    pub planted: f64,
+    pub covered: bool,
+}
+
+/// The planted AUC: the members of the run's pooled 1Y test (base recovery; defaulted or
+/// survived) ranked by their planted pricing PD, against the run's own AUC row.
+fn auc_recovery(s: &crate::sim::Scenario, tables: &Path, recovery: f64) -> Result<(Option<AucRecovery>, usize)> {
+    use crate::backtest::{Outcome, Score};
+    use crate::tables::parts::MemberRecord;
+    use chrono::Datelike;
+    let members = crate::tables::read_from::<MemberRecord>(&tables.join("backtest_members.parquet"))?;
+    let base: Vec<&MemberRecord> =
+        members.iter().filter(|m| (m.recovery - recovery).abs() < 1e-9 && m.member.horizon_years == 1).collect();
+    let censored = base.iter().filter(|m| m.member.outcome == Outcome::Censored).count();
+    let planted: std::collections::HashMap<(&str, i32), f64> =
+        s.planted_pd_1y.iter().map(|&(e, d, pd)| ((s.entities[e].entity.as_str(), d.year()), pd)).collect();
+    let (mut scores, mut outcome) = (Vec::new(), Vec::new());
+    for m in &base {
+        let d = match m.member.outcome {
+            Outcome::Defaulted => true,
+            Outcome::Survived => false,
+            _ => continue,
+        };
+        if let Some(pd) = planted.get(&(m.member.entity.as_str(), m.member.cohort.year())) {
+            scores.push(*pd);
+            outcome.push(d);
+        }
+    }
+    let rows = crate::tables::read_from::<crate::tables::DiscriminationRecord>(
+        &tables.join("backtest_discrimination.parquet"),
+    )?;
+    let row = rows.iter().find(|r| {
+        (r.recovery - recovery).abs() < 1e-9
+            && r.row.cohort == "all"
+            && r.row.horizon_years == 1
+            && r.row.score == Score::ImpliedPd
+    });
+    let Some(row) = row else { return Ok((None, censored)) };
+    let (Some(auc), Some(lo), Some(hi)) = (row.row.auc, row.row.auc_lo, row.row.auc_hi) else {
+        return Ok((None, censored));
+    };
+    let Ok(p) = crate::stats::auc_delong(&scores, &outcome) else { return Ok((None, censored)) };
+    Ok((
+        Some(AucRecovery {
+            members: scores.len(),
+            defaults: outcome.iter().filter(|d| **d).count(),
+            auc,
+            lo,
+            hi,
+            planted: p.auc,
+            covered: lo <= p.auc && p.auc <= hi,
+        }),
+        censored,
+    ))
 }
 
 /// One planted fault and what caught it.
@@ -304,6 +373,8 @@ pub fn selfcheck(dir: &Path, spec: &ScenarioSpec) -> Result<SelfCheck> {
     }
 
     let cir = cir_recovery(&s, &tables)?;
+    let (auc, censored_members) = auc_recovery(&s, &tables, cfg.recovery)?;
+    let auc_ok = auc.as_ref().is_some_and(|a| a.covered);
 
     let planted: usize = faults.iter().map(|f| f.planted).sum();
     let caught: usize = faults.iter().map(|f| f.caught).sum();
@@ -315,6 +386,7 @@ pub fn selfcheck(dir: &Path, spec: &ScenarioSpec) -> Result<SelfCheck> {
         && catch >= MIN_FAULT_CATCH
         && good_share <= MAX_GOOD_REJECTED
         && premium_ok
+        && auc_ok
         && !judged.is_empty();
 
     let mut t = String::new();
@@ -369,6 +441,26 @@ pub fn selfcheck(dir: &Path, spec: &ScenarioSpec) -> Result<SelfCheck> {
             }
         );
     }
+    let planted_exits = s.entities.iter().filter(|e| e.coverage_end.is_some()).count();
+    let _ = writeln!(t, "\ndiscrimination, 1Y, all cohorts ({planted_exits} names planted to leave coverage: {censored_members} censored 1Y members; the last cohort's horizon ends after the outcome end)");
+    match &auc {
+        Some(a) => {
+            let _ = writeln!(
+                t,
+                "  AUC of the implied PD {:.4} [{:.4}, {:.4}] over {} members ({} defaults); AUC of the planted pricing PDs on the same members {:.4}: {} (criterion: inside the interval)",
+                a.auc,
+                a.lo,
+                a.hi,
+                a.members,
+                a.defaults,
+                a.planted,
+                if a.covered { "inside" } else { "OUTSIDE" }
+            );
+        }
+        None => {
+            let _ = writeln!(t, "  no pooled 1Y AUC (no defaults or no survivors): FAIL");
+        }
+    }
     if !cir.is_empty() {
         let _ = writeln!(t, "\nCIR fit (fixed_kappa_sigma mode) against the planted pricing-measure parameters, medians over the fitted dates");
         let _ = writeln!(t, "(reported, not judged: one curve identifies lambda0 and the curve's level, not kappa and sigma separately)");
@@ -391,5 +483,15 @@ pub fn selfcheck(dir: &Path, spec: &ScenarioSpec) -> Result<SelfCheck> {
         }
     }
     let _ = writeln!(t, "\nresult: {}", if passed { "PASS" } else { "FAIL" });
-    Ok(SelfCheck { faults: faults.clone(), good_rows, good_rejected, grades, cir, passed, table: t })
+    Ok(SelfCheck {
+        faults: faults.clone(),
+        good_rows,
+        good_rejected,
+        grades,
+        cir,
+        auc,
+        censored_members,
+        passed,
+        table: t,
+    })
 }

@@ -163,9 +163,10 @@ fn write_inputs(w: &mut Writer, s: &Scenario) -> Result<()> {
             .floats("zero_rate", d.iter().map(|r| Some(r.3))),
     )?;
     // Entities, grades, defaults.
-    let mut body = String::from("entity,name,sector,region\n");
+    let mut body = String::from("entity,name,sector,region,coverage_end\n");
     for e in &s.entities {
-        let _ = writeln!(body, "{},{},{},{}", field(&e.entity), field(&e.name), e.sector, field(e.region));
+        let end = e.coverage_end.map_or(String::new(), |d| d.to_string());
+        let _ = writeln!(body, "{},{},{},{},{end}", field(&e.entity), field(&e.name), e.sector, field(e.region));
     }
     w.text("entities.csv", &body)?;
     let mut body = String::from("entity,from_date,grade\n");

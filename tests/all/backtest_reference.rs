@@ -184,10 +184,10 @@ fn migration_counts_against_pandas_crosstab() {
     let date = |v: &Value| v.as_str().map(|s| chrono::NaiveDate::parse_from_str(s, "%Y-%m-%d").unwrap());
     let mut spells: BTreeMap<String, Vec<GradeSpell>> = BTreeMap::new();
     for s in r["spells"].as_array().unwrap() {
-        spells.entry(s["entity"].as_str().unwrap().to_string()).or_default().push(GradeSpell {
-            from_date: date(&s["from_date"]).unwrap(),
-            grade: s["grade"].as_u64().unwrap() as u32,
-        });
+        spells
+            .entry(s["entity"].as_str().unwrap().to_string())
+            .or_default()
+            .push(GradeSpell { from_date: date(&s["from_date"]).unwrap(), grade: s["grade"].as_u64().unwrap() as u32 });
     }
     let facts: Vec<EntityFacts> = r["entities"]
         .as_array()
@@ -213,7 +213,11 @@ fn migration_counts_against_pandas_crosstab() {
         .iter()
         .map(|c| {
             (
-                (c["cohort"].as_str().unwrap().to_string(), c["from_grade"].as_u64().unwrap() as u32, c["to"].as_str().unwrap().to_string()),
+                (
+                    c["cohort"].as_str().unwrap().to_string(),
+                    c["from_grade"].as_u64().unwrap() as u32,
+                    c["to"].as_str().unwrap().to_string(),
+                ),
                 c["count"].as_u64().unwrap(),
             )
         })

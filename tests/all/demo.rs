@@ -41,6 +41,11 @@ fn small_selfcheck_recovers_what_was_planted() {
     assert!(c.table.contains("criterion: every one") && !c.table.contains("MISSED"), "{}", c.table);
     assert!(c.good_rejected as f64 <= 0.01 * c.good_rows as f64);
     assert!(c.grades.iter().any(|g| g.covered.is_some()), "no grade had enough defaults to judge");
+    // Names planted to leave coverage are censored members, and the planted AUC lies inside
+    // the run's DeLong interval.
+    assert!(c.censored_members > 0, "{}", c.table);
+    let auc = c.auc.as_ref().expect("a pooled 1Y AUC");
+    assert!(auc.covered && auc.defaults > 0, "{}", c.table);
     assert!(c.passed, "{}", c.table);
 
     // Every stability flag points at data in the other tables: a row of `stability` with its

@@ -219,7 +219,10 @@ fn bucket_row(
         let ci = km.interval(f64::MAX, s.level)?;
         row.realised_rate = Some(1.0 - surv);
         row.rate_method = Some(RateMethod::KaplanMeier);
-        (row.km_lo, row.km_hi) = (Some(1.0 - ci.hi), Some(1.0 - ci.lo));
+        // Without an event Greenwood's variance is 0: no interval rather than a certain one.
+        if events.iter().any(|e| *e) {
+            (row.km_lo, row.km_hi) = (Some(1.0 - ci.hi), Some(1.0 - ci.lo));
+        }
     } else {
         row.realised_rate = Some(d as f64 / n as f64);
         row.rate_method = Some(RateMethod::Proportion);

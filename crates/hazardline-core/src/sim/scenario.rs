@@ -80,6 +80,9 @@ pub struct Entity {
     pub sector: &'static str,
     pub region: &'static str,
     pub currency: &'static str,
+    /// The date the entity leaves the institution's coverage (planted on a few names,
+    /// independently of their credit), None when it stays covered.
+    pub coverage_end: Option<NaiveDate>,
 }
 
 /// A CDS quote cell: a number, or text as typed (for the planted unparseable cells).
@@ -186,6 +189,9 @@ pub struct Scenario {
     pub cohort_history: Vec<CohortHistory>,
     pub intensities: Vec<IntensityTruth>,
     pub premium: Vec<PremiumTruth>,
+    /// The planted pricing-measure 1Y PD of every entity alive on each annual cohort day
+    /// (entity, cohort day, PD): what the calibrated curves should imply, for the planted AUC.
+    pub planted_pd_1y: Vec<(usize, NaiveDate, f64)>,
     pub faults: Vec<Fault>,
 }
 
@@ -240,6 +246,25 @@ fn premium_truth(profiles: &[GradeProfile], days: &[NaiveDate], paths: &[Path]) 
                 }
             }
             out.push(t);
+        }
+    }
+    out
+}
+
+/// The planted 1Y pricing PD, 1 - exp(-Q cumulative hazard), of each entity alive on each
+/// annual cohort day (the first business day of each year).
+fn planted_pds(profiles: &[GradeProfile], days: &[NaiveDate], paths: &[Path]) -> Vec<(usize, NaiveDate, f64)> {
+    let mut out = Vec::new();
+    for (k, d) in days.iter().enumerate() {
+        if k > 0 && days[k - 1].year() == d.year() {
+            continue;
+        }
+        for (i, path) in paths.iter().enumerate() {
+            if k < path.grade.len() {
+                let p = &profiles[(path.grade[k] - 1) as usize];
+                let (q, _) = credit::horizon_hazards(path.lambda_p[k], p.theta_p, p.multiplier, 1.0);
+                out.push((i, *d, -(-q).exp_m1()));
+            }
         }
     }
     out
@@ -326,9 +351,19 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
         .map(|_| {
             let (name, sector, region) = names::invent(&mut rng, &mut used);
             let currency = if rng.chance(0.6) { "EUR" } else { "USD" };
-            Entity { entity: name.clone(), name, sector, region, currency }
+            Entity { entity: name.clone(), name, sector, region, currency, coverage_end: None }
         })
         .collect();
+    // Leaving coverage: about 4% of the names at a uniform day of the quoted period, from a
+    // stream of its own so that no other draw moves.
+    let mut entities = entities;
+    let mut exits = Rng::stream(spec.seed, "coverage", 0);
+    let span = (spec.end() - spec.start).num_days().max(1) as u64;
+    for e in entities.iter_mut() {
+        if exits.chance(0.04) {
+            e.coverage_end = Some(add_days(spec.start, 1 + exits.below(span) as i64));
+        }
+    }
 
     // Credit paths.
     let paths: Vec<Path> =
@@ -410,6 +445,7 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
 
     let cohort_history = cohort_rows(spec, &profiles);
     let premium = premium_truth(&profiles, &days, &paths);
+    let planted_pd_1y = planted_pds(&profiles, &days, &paths);
     let mut faults = Vec::new();
     if spec.faults {
         plant_faults(spec, &days, &paths, &mut quotes, &mut faults);
@@ -428,6 +464,7 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
         cohort_history,
         intensities,
         premium,
+        planted_pd_1y,
         faults,
     }
 }
