@@ -56,6 +56,8 @@ pub struct BacktestStage {
     pub core: BacktestSettings,
     /// Recoveries of the sensitivity scenarios (the base recovery is the run's).
     pub recovery_scenarios: Vec<f64>,
+    /// An earlier run folder whose pooled AUCs this review's are tested against.
+    pub reference_run: Option<PathBuf>,
 }
 
 impl BacktestStage {
@@ -109,6 +111,10 @@ impl BacktestStage {
                 },
             ),
             ("term_structure_years".into(), c.term_structure_years.to_string()),
+            (
+                "reference_run".into(),
+                self.reference_run.as_ref().map_or("none".to_string(), |p| p.display().to_string()),
+            ),
         ]
     }
 }
@@ -199,6 +205,10 @@ pub struct BacktestSection {
     /// The default term structure over years 1..=this, every cohort. Default 5; 0 keeps it to
     /// the tested horizons.
     pub term_structure_years: Option<u32>,
+    /// An earlier run folder (the folder holding its `manifest.json` and `tables/`, relative
+    /// to this file): the pooled AUCs of this review are tested against its
+    /// `backtest_discrimination`.
+    pub reference_run: Option<PathBuf>,
 }
 
 /// `backtest.asset_correlation` as written: a number or the word "supervisory".
@@ -263,7 +273,26 @@ fn backtest_stage(k: &BacktestSection, inputs: &InputPaths, path: &Path) -> Resu
     if let Some(r) = recovery_scenarios.iter().find(|r| !(0.0..1.0).contains(*r)) {
         return Err(bad(path, "backtest.recovery_scenarios", format!("{r} is not a fraction in [0, 1)")));
     }
-    Ok(BacktestStage { enabled, frequency, core, recovery_scenarios })
+    let reference_run = match &k.reference_run {
+        None => None,
+        Some(p) => {
+            let full = if p.is_absolute() { p.clone() } else { path.parent().unwrap_or(Path::new("")).join(p) };
+            let table = full.join("tables").join("backtest_discrimination.parquet");
+            if !table.is_file() {
+                return Err(bad(
+                    path,
+                    "backtest.reference_run",
+                    format!(
+                        "{} has no tables/backtest_discrimination.parquet (resolved to {})",
+                        p.display(),
+                        full.display()
+                    ),
+                ));
+            }
+            Some(full)
+        }
+    };
+    Ok(BacktestStage { enabled, frequency, core, recovery_scenarios, reference_run })
 }
 
 /// `[stability]`: the parameter-stability and residual review (defaults on each field of

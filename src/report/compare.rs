@@ -72,6 +72,7 @@ pub fn compare(a: &Path, b: &Path) -> Result<String> {
         };
         let _ = writeln!(w, "| {} | {} | {} | {ch} |", super::markdown::cell_text(e), f(x), f(y));
     }
+    discrimination(&mut w, a, b)?;
     let fa: Vec<FlagRecord> = crate::tables::read(&a.join("tables"))?;
     let fb: Vec<FlagRecord> = crate::tables::read(&b.join("tables"))?;
     let key =
@@ -110,4 +111,54 @@ pub fn compare(a: &Path, b: &Path) -> Result<String> {
         }
     }
     Ok(w)
+}
+
+/// The pooled AUCs of both reviews side by side, with the test of their difference (the two
+/// samples taken as independent), when both ran the backtest.
+fn discrimination(w: &mut String, a: &Path, b: &Path) -> Result<()> {
+    use crate::tables::DiscriminationRecord;
+    let file = |r: &Path| r.join("tables").join("backtest_discrimination.parquet");
+    if !file(a).is_file() || !file(b).is_file() {
+        return Ok(());
+    }
+    let (ra, rb) = (
+        crate::tables::read_from::<DiscriminationRecord>(&file(a))?,
+        crate::tables::read_from::<DiscriminationRecord>(&file(b))?,
+    );
+    let pooled = |v: &[DiscriminationRecord]| -> Vec<DiscriminationRecord> {
+        // The base recovery is the one listed first.
+        let base = v.first().map(|r| r.recovery);
+        v.iter().filter(|r| r.row.cohort == "all" && Some(r.recovery) == base).cloned().collect()
+    };
+    let (pa, pb) = (pooled(&ra), pooled(&rb));
+    if pa.is_empty() && pb.is_empty() {
+        return Ok(());
+    }
+    let _ = writeln!(w, "\n## Discriminatory power (pooled cohorts)\n\nAUC of each score in A and in B, with the two-sided p-value of their difference, z = (AUC_B - AUC_A) / sqrt(se_A^2 + se_B^2), the reviews taken as independent samples (approximate where their cohorts share names).\n\n| horizon | score | AUC A | AUC B | p (B vs A) |\n| ---: | --- | ---: | ---: | ---: |");
+    let keys: BTreeSet<(u32, crate::backtest::Score)> =
+        pa.iter().chain(&pb).map(|r| (r.row.horizon_years, r.row.score)).collect();
+    for (h, score) in keys {
+        let find = |v: &[DiscriminationRecord]| {
+            v.iter().find(|r| r.row.horizon_years == h && r.row.score == score).map(|r| r.row.clone())
+        };
+        let (x, y) = (find(&pa), find(&pb));
+        let auc = |r: &Option<crate::backtest::DiscriminationRow>| r.as_ref().and_then(|r| r.auc);
+        let se = |r: &Option<crate::backtest::DiscriminationRow>| r.as_ref().and_then(|r| r.auc_se);
+        let p = match (auc(&y), se(&y), auc(&x), se(&x)) {
+            (Some(b1), Some(s1), Some(a1), Some(s0)) => {
+                crate::stats::auc_difference_independent(b1, s1, a1, s0).map(|(_, p)| p)
+            }
+            _ => None,
+        };
+        let f = |v: Option<f64>| v.map_or("-".to_string(), |v| format!("{v:.3}"));
+        let _ = writeln!(
+            w,
+            "| {h}Y | {} | {} | {} | {} |",
+            score.as_str(),
+            f(auc(&x)),
+            f(auc(&y)),
+            p.map_or("-".to_string(), |p| format!("{p:.4}"))
+        );
+    }
+    Ok(())
 }

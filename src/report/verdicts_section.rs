@@ -157,13 +157,17 @@ pub fn discrimination_section(
     }
     let level = rows[0].level;
     let _ = writeln!(w, "### Discriminatory power\n\nDoes the score rank the members that default above those that survive? AUC with ties counted one half, its DeLong standard error and {} interval (DeLong, DeLong and Clarke-Pearson, 1988), Gini = 2 AUC - 1, the one-sided p-value of \"no power\" (AUC <= 1/2), and the paired DeLong test of the implied PD's AUC against the internal grade's on the same members.\n", pct(level));
-    let _ = writeln!(w, "| cohort | horizon | score | n | defaults | AUC | interval | Gini | p (no power) | p (implied PD vs grade) | note |\n| --- | ---: | --- | ---: | ---: | ---: | --- | ---: | ---: | ---: | --- |");
+    let with_reference = rows.iter().any(|r| r.auc_reference.is_some());
+    if with_reference {
+        let _ = writeln!(w, "The pooled rows are also tested against the reference run named by `backtest.reference_run` (its pooled AUC of the same score and horizon): z = (AUC - AUC_ref) / sqrt(se^2 + se_ref^2), two-sided, the two reviews taken as independent samples (approximate where their cohorts share names).\n");
+    }
+    let _ = writeln!(w, "| cohort | horizon | score | n | defaults | AUC | interval | Gini | p (no power) | p (implied PD vs grade) |{} note |\n| --- | ---: | --- | ---: | ---: | ---: | --- | ---: | ---: | ---: |{} --- |", if with_reference { " reference AUC | p (vs reference) |" } else { "" }, if with_reference { " ---: | ---: |" } else { "" });
     let mut sorted: Vec<&DiscriminationRow> = rows.iter().collect();
     sorted.sort_by_key(|r| (r.cohort != "all", r.cohort.clone(), r.horizon_years, r.score));
     for r in &sorted {
         let _ = writeln!(
             w,
-            "| {} | {}Y | {} | {} | {} | {} | [{}, {}] | {} | {} | {} | {} |",
+            "| {} | {}Y | {} | {} | {} | {} | [{}, {}] | {} | {} | {} |{} {} |",
             r.cohort,
             r.horizon_years,
             r.score.as_str(),
@@ -175,6 +179,11 @@ pub fn discrimination_section(
             opt(r.gini, |v| format!("{v:.3}")),
             opt(r.p_no_power, sci),
             opt(r.p_vs_grade, sci),
+            if with_reference {
+                format!(" {} | {} |", opt(r.auc_reference, |v| format!("{v:.3}")), opt(r.p_vs_reference, sci))
+            } else {
+                String::new()
+            },
             r.note.as_deref().unwrap_or("")
         );
     }

@@ -464,6 +464,10 @@ fn finish(
             curve_dates: cal.curve_dates,
             outcome_end: outcome_end(cfg, &ds),
             graded: crate::stages::backtest::graded_facts(&ds),
+            reference: match &cfg.backtest.reference_run {
+                Some(r) => crate::stages::backtest::reference_discrimination(r, cfg.recovery)?,
+                None => Vec::new(),
+            },
             have_defaults: ds.defaults.is_some(),
             cohort_history: ds.cohort_history.as_ref(),
             defaults_without_curves: first_defaults(&ds).keys().filter(|e| !with_curves.contains(*e)).count(),

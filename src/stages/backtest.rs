@@ -132,6 +132,15 @@ pub fn may_serve_a_cohort(
     move |d| dates.get(dates.partition_point(|t| *t < d)).is_some_and(|t| (*t - d).num_days() <= lookback)
 }
 
+/// The discrimination rows of a reference run at `recovery` (this run's base recovery); when
+/// the reference holds none at that recovery, all of its rows (their first match is used).
+pub fn reference_discrimination(run: &Path, recovery: f64) -> Result<Vec<backtest::DiscriminationRow>> {
+    let rows = tables::read_from::<DiscriminationRecord>(&run.join("tables").join("backtest_discrimination.parquet"))?;
+    let same: Vec<backtest::DiscriminationRow> =
+        rows.iter().filter(|r| (r.recovery - recovery).abs() < 1e-9).map(|r| r.row.clone()).collect();
+    Ok(if same.is_empty() { rows.into_iter().map(|r| r.row).collect() } else { same })
+}
+
 /// The first default date per entity of the defaults table.
 pub fn first_defaults(ds: &Dataset) -> BTreeMap<&str, NaiveDate> {
     let mut defaults: BTreeMap<&str, NaiveDate> = BTreeMap::new();
@@ -272,6 +281,8 @@ pub struct BacktestContext<'a> {
     pub outcome_end: Option<NaiveDate>,
     /// Every graded entity, for the migration matrices.
     pub graded: Vec<EntityFacts>,
+    /// The pooled discrimination rows of the reference run (its base recovery), if one is set.
+    pub reference: Vec<backtest::DiscriminationRow>,
     pub have_defaults: bool,
     pub cohort_history: Option<&'a crate::ingest::tables::Rows<crate::ingest::tables::CohortHistoryRow>>,
     /// Entities with a defaults row but no curve.
@@ -344,6 +355,10 @@ pub fn backtest_from_members(
     }
     // Without a defaults table the entity-level outcomes are unknown (every member would look
     // like a survivor): only the implied PDs are used, against the cohort history.
+    // The reference is read at the base recovery, so only the base rows are compared.
+    if let Some(base) = outputs.first_mut() {
+        backtest::compare_with_reference(&mut base.discrimination, &ctx.reference);
+    }
     results.outputs = if ctx.have_defaults { outputs } else { Vec::new() };
     results.outcome_end = Some(outcome_end);
     results.migration = backtest::migration_rows(&ctx.graded, &dates, outcome_end).map_err(mk)?;

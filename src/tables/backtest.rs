@@ -293,6 +293,8 @@ impl Table for DiscriminationRecord {
         col("gini", Float),
         col("p_no_power", Float),
         col("p_vs_grade", Float),
+        col("auc_reference", Float),
+        col("p_vs_reference", Float),
         col("note", Text),
     ];
 
@@ -313,6 +315,8 @@ impl Table for DiscriminationRecord {
             .floats("gini", fl(|r| r.gini))
             .floats("p_no_power", fl(|r| r.p_no_power))
             .floats("p_vs_grade", fl(|r| r.p_vs_grade))
+            .floats("auc_reference", fl(|r| r.auc_reference))
+            .floats("p_vs_reference", fl(|r| r.p_vs_reference))
             .strings("note", rows.iter().map(|r| r.row.note.as_ref()))
             .finish()
     }
@@ -338,6 +342,7 @@ impl Table for DiscriminationRecord {
             f("p_vs_grade")?,
             strs(df, path, "note")?,
         );
+        let (ar, pr) = (f("auc_reference")?, f("p_vs_reference")?);
         (0..df.height())
             .map(|i| {
                 Ok(DiscriminationRecord {
@@ -356,6 +361,8 @@ impl Table for DiscriminationRecord {
                         gini: gi[i],
                         p_no_power: pn[i],
                         p_vs_grade: pg[i],
+                        auc_reference: ar[i],
+                        p_vs_reference: pr[i],
                         note: no[i].take(),
                     },
                 })
@@ -886,6 +893,8 @@ mod tests {
                 gini: Some(0.62),
                 p_no_power: Some(1e-9),
                 p_vs_grade: None,
+                auc_reference: Some(0.78),
+                p_vs_reference: Some(0.6),
                 note: None,
             },
         }];

@@ -202,3 +202,52 @@ fn cohort_history_only_backtest() {
             && report.contains("### Against the institution's cohort history")
     );
 }
+
+/// A reference run: the same review run again with `backtest.reference_run` naming the first
+/// run's folder tests each pooled AUC against the reference's (identical here: difference 0,
+/// p = 1), and `compare` prints both AUCs with the same test.
+#[test]
+fn reference_run_auc_test_and_compare() {
+    let dir = tempfile::tempdir().unwrap();
+    hazardline::stages::universe::write_demo(
+        dir.path(),
+        &hazardline::sim::ScenarioSpec {
+            entities: 60,
+            years: 3,
+            faults: false,
+            intensity_scale: 3.0,
+            ..hazardline::sim::ScenarioSpec::demo(11)
+        },
+    )
+    .unwrap();
+    let p = dir.path().join("pipeline.toml");
+    let cfg = hazardline::config::load_pipeline(&p).unwrap();
+    let opts =
+        |label: &str| hazardline::run::RunOptions { out_root: Some(dir.path().join("out")), label: Some(label.into()) };
+    let first = hazardline::run::run(&cfg, &opts("first")).unwrap();
+    let text = std::fs::read_to_string(&p)
+        .unwrap()
+        .replace("[backtest]\n", &format!("[backtest]\nreference_run = \"{}\"\n", first.run_dir.display()));
+    let q = dir.path().join("again.toml");
+    std::fs::write(&q, text).unwrap();
+    let second = hazardline::run::run(&hazardline::config::load_pipeline(&q).unwrap(), &opts("second")).unwrap();
+    let rows: Vec<hazardline::tables::DiscriminationRecord> =
+        hazardline::tables::read_from(&second.run_dir.join("tables/backtest_discrimination.parquet")).unwrap();
+    let pooled: Vec<_> =
+        rows.iter().filter(|r| r.recovery == cfg.recovery && r.row.cohort == "all" && r.row.auc_se.is_some()).collect();
+    assert!(rows.iter().filter(|r| r.recovery != cfg.recovery).all(|r| r.row.auc_reference.is_none()));
+    assert!(!pooled.is_empty(), "no pooled AUC with a standard error");
+    for r in pooled {
+        assert_eq!(r.row.auc_reference, r.row.auc, "the reference is the same review");
+        assert_eq!(r.row.p_vs_reference, Some(1.0));
+    }
+    let report = std::fs::read_to_string(second.run_dir.join("report.md")).unwrap();
+    assert!(report.contains("reference AUC"), "the report shows the reference column");
+    let md = hazardline::report::compare::compare(&first.run_dir, &second.run_dir).unwrap();
+    assert!(md.contains("## Discriminatory power (pooled cohorts)") && md.contains("| 1.0000 |"), "{md}");
+    // A reference folder without the table is refused when the pipeline file is read.
+    let bad = std::fs::read_to_string(&p).unwrap().replace("[backtest]\n", "[backtest]\nreference_run = \"nowhere\"\n");
+    std::fs::write(&q, bad).unwrap();
+    let err = hazardline::config::load_pipeline(&q).unwrap_err().to_string();
+    assert!(err.contains("backtest.reference_run") && err.contains("nowhere"), "{err}");
+}

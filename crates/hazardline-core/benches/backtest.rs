@@ -57,7 +57,8 @@ fn main() {
             coverage_end: rng.chance(0.04).then(|| dates[0] + chrono::Duration::days(1 + rng.below(3650) as i64)),
         });
         for &t in &dates {
-            let hazards: Vec<f64> = nodes.iter().map(|n| lambda * (1.0 + 0.05 * n) * (0.9 + 0.2 * rng.uniform())).collect();
+            let hazards: Vec<f64> =
+                nodes.iter().map(|n| lambda * (1.0 + 0.05 * n) * (0.9 + 0.2 * rng.uniform())).collect();
             let curve = HazardCurve::new(t, nodes.clone(), hazards).unwrap();
             base.push((entity.clone(), DatedCurve { date: t, currency: "EUR".into(), curve, spreads: Vec::new() }));
         }
@@ -69,8 +70,9 @@ fn main() {
             CurveSet::from_keyed(
                 r,
                 base.iter().map(|(e, c)| {
-                    let h = HazardCurve::new(c.date, nodes.clone(), c.curve.hazards().iter().map(|x| x * scale).collect())
-                        .unwrap();
+                    let h =
+                        HazardCurve::new(c.date, nodes.clone(), c.curve.hazards().iter().map(|x| x * scale).collect())
+                            .unwrap();
                     (e.clone(), DatedCurve { curve: h, ..c.clone() })
                 }),
             )

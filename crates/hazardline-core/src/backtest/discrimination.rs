@@ -41,8 +41,28 @@ pub struct DiscriminationRow {
     /// Implied-PD row only: two-sided p-value of the paired DeLong test of the implied PD's AUC
     /// against the grade's, on the members with a grade.
     pub p_vs_grade: Option<f64>,
+    /// The pooled AUC of the same score and horizon in a reference review (an earlier run),
+    /// and the two-sided p-value of the difference, the two samples taken as independent.
+    pub auc_reference: Option<f64>,
+    pub p_vs_reference: Option<f64>,
     /// Why a statistic is missing.
     pub note: Option<String>,
+}
+
+/// Sets `auc_reference` and `p_vs_reference` on the pooled rows from a reference review's
+/// pooled rows of the same horizon and score.
+pub fn compare_with_reference(rows: &mut [DiscriminationRow], reference: &[DiscriminationRow]) {
+    for r in rows.iter_mut().filter(|r| r.cohort == "all") {
+        let Some(x) =
+            reference.iter().find(|x| x.cohort == "all" && x.horizon_years == r.horizon_years && x.score == r.score)
+        else {
+            continue;
+        };
+        r.auc_reference = x.auc;
+        if let (Some(a), Some(sa), Some(b), Some(sb)) = (r.auc, r.auc_se, x.auc, x.auc_se) {
+            r.p_vs_reference = stats::auc_difference_independent(a, sa, b, sb).map(|(_, p)| p);
+        }
+    }
 }
 
 /// One row per (cohort year and "all", horizon, score).
@@ -87,6 +107,8 @@ fn row(cohort: &str, horizon_years: u32, score: Score, level: f64, s: &[f64], y:
         gini: None,
         p_no_power: None,
         p_vs_grade: None,
+        auc_reference: None,
+        p_vs_reference: None,
         note: None,
     };
     match stats::auc_delong(s, y) {

@@ -36,7 +36,7 @@ pub mod verdicts;
 pub use buckets::{bucket_rows, hosmer_lemeshow_rows, BucketRow, HosmerLemeshowRow, RateMethod};
 pub use calendar::{cohort_dates, CohortFrequency, GradeBook};
 pub use cohort::{bucket_observations, build_observations, member_observations, Bucket, Observation, Outcome};
-pub use discrimination::{discrimination_rows, DiscriminationRow, Score};
+pub use discrimination::{compare_with_reference, discrimination_rows, DiscriminationRow, Score};
 pub use history::{compare_cohort_history, CohortHistoryRecord, HistoryRow};
 pub use migration::{migration_rows, MigrationRow};
 pub use premia::{risk_premium_rows, RiskPremiumRow};

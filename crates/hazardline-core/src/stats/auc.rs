@@ -142,6 +142,17 @@ pub fn auc_paired(a: &[f64], b: &[f64], defaulted: &[bool]) -> Result<PairedAuc,
     Ok(PairedAuc { a: ra, b: rb, covariance, z, p_value })
 }
 
+/// Two AUCs from independent samples (this review's and a reference review's): z = (a - b) /
+/// sqrt(se_a^2 + se_b^2) and its two-sided normal p-value; None without a positive variance.
+/// Where the two samples share obligors the test is approximate (their covariance is ignored).
+pub fn auc_difference_independent(a: f64, se_a: f64, b: f64, se_b: f64) -> Option<(f64, f64)> {
+    let var = se_a * se_a + se_b * se_b;
+    (var > 0.0 && var.is_finite()).then(|| {
+        let z = (a - b) / var.sqrt();
+        (z, 2.0 * special::normal_upper_tail(z.abs()))
+    })
+}
+
 /// The ROC and CAP curves of a score, as polylines from (0, 0) to (1, 1). Members are taken
 /// riskiest first (highest score); a group of tied scores is one straight step, so the area
 /// under the ROC polyline is the AUC with ties counted one half.
@@ -217,6 +228,16 @@ mod tests {
         let s01 = ((0.75 - m01).powi(2) + 2.0 * (1.0 - m01).powi(2)) / 2.0;
         assert!((a.variance - (s10 / 2.0 + s01 / 3.0)).abs() < 1e-15);
         assert!((a.gini() - (2.0 * 5.5 / 6.0 - 1.0)).abs() < 1e-15);
+    }
+
+    /// z = (0.8 - 0.7) / sqrt(0.03^2 + 0.04^2) = 2 exactly; p = 2 (1 - Phi(2)) = 0.0455003
+    /// (normal table, common practice).
+    #[test]
+    fn independent_difference() {
+        let (z, p) = auc_difference_independent(0.8, 0.03, 0.7, 0.04).unwrap();
+        assert!((z - 2.0).abs() < 1e-12);
+        assert!((p - 0.045_500_263_896_358_4).abs() < 1e-12, "{p}");
+        assert_eq!(auc_difference_independent(0.8, 0.0, 0.7, 0.0), None);
     }
 
     #[test]
