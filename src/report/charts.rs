@@ -1065,16 +1065,21 @@ pub fn unit_square_curves(
 }
 
 /// Cumulative default rates against years since the cohort date: per series a step polyline
-/// (the realised Kaplan-Meier rate) and, in the same colour, hollow markers at the implied
-/// PDs of the configured horizons.
-pub fn cumulative_rates(title: &str, series: &[(String, Vec<(f64, f64)>, Vec<(f64, f64)>)]) -> Result<String, String> {
+/// (the realised Kaplan-Meier rate), in the same colour hollow markers at the implied PDs of
+/// each year, and, where `intervals[k]` gives them, (x, lo, hi) whiskers of the realised rate.
+pub fn cumulative_rates(
+    title: &str,
+    series: &[(String, Vec<(f64, f64)>, Vec<(f64, f64)>)],
+    intervals: &[Vec<(f64, f64, f64)>],
+) -> Result<String, String> {
     const SIZE: (u32, u32) = (760, 440);
     let pts = || series.iter().flat_map(|(_, a, b)| a.iter().chain(b.iter())).filter(|p| usable(p.0) && usable(p.1));
     if pts().next().is_none() {
         return no_data_svg(title, SIZE);
     }
     let x_hi = pts().map(|p| p.0).fold(0.0, f64::max).max(1.0) * 1.04;
-    let y_top = pts().map(|p| p.1).fold(0.0, f64::max).max(1e-3);
+    let whisker_top = intervals.iter().flatten().map(|w| w.2).filter(|v| usable(*v)).fold(0.0, f64::max);
+    let y_top = pts().map(|p| p.1).fold(whisker_top, f64::max).max(1e-3);
     let y_hi = y_top * (1.1 + 0.06 * series.len() as f64);
     let mut svg = String::new();
     {
@@ -1105,6 +1110,12 @@ pub fn cumulative_rates(title: &str, series: &[(String, Vec<(f64, f64)>, Vec<(f6
                 .label(name.clone())
                 .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], colour.stroke_width(2)));
             chart.draw_series(implied.iter().map(|p| Circle::new(*p, 5, colour.stroke_width(2)))).map_err(err)?;
+            if let Some(ws) = intervals.get(k) {
+                let bars = ws.iter().filter(|w| usable(w.1) && usable(w.2)).map(|&(x, lo, hi)| {
+                    PathElement::new(vec![(x - 0.03, lo), (x - 0.03, hi)], colour.mix(0.6).stroke_width(3))
+                });
+                chart.draw_series(bars).map_err(err)?;
+            }
         }
         chart
             .configure_series_labels()

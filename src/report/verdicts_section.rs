@@ -44,13 +44,14 @@ pub fn summary_rows(w: &mut String, verdicts: &[VerdictRow], yellow: &str, red: 
     for v in verdicts {
         let _ = writeln!(
             w,
-            "| backtest: {} | {} of {} tests below p = {yellow} ({} below {red}); {} p {} | {} |",
+            "| backtest: {} | {} of {} tests below p = {yellow} ({} below {red}); {} p {}{} | {} |",
             v.family,
             v.against,
             v.tests,
             v.strongly_against,
             if v.family.starts_with("discrimination") { "largest no-power" } else { "smallest" },
             opt(v.extreme_p, sci),
+            v.note.as_deref().map_or(String::new(), |n| format!("; {n}")),
             status_text(v)
         );
     }
@@ -62,18 +63,19 @@ pub fn verdict_table(w: &mut String, verdicts: &[VerdictRow], yellow: &str, red:
         return;
     }
     let _ = writeln!(w, "### Verdicts by test family\n\nA family passes only when none of its tests rejects at p < {yellow}; it needs attention when some do and none at p < {red}, and fails when one does. For discrimination a test counts against the model when the AUC is not shown above 1/2 (p of \"no power\" at or above {yellow}). The lower-tail families measure over-prediction: a rejection there says the pricing-measure PD exceeds the realised rate, which is the risk premium this section quantifies, and is reported, not hidden.\n");
-    let _ = writeln!(w, "| family | a rejection means | tests | rejecting (p < {yellow}) | of which p < {red} | extreme p | status |\n| --- | --- | ---: | ---: | ---: | ---: | --- |");
+    let _ = writeln!(w, "| family | a rejection means | tests | rejecting (p < {yellow}) | of which p < {red} | extreme p | status | direction of the rejections |\n| --- | --- | ---: | ---: | ---: | ---: | --- | --- |");
     for v in verdicts {
         let _ = writeln!(
             w,
-            "| {} | {} | {} | {} | {} | {} | {} |",
+            "| {} | {} | {} | {} | {} | {} | {} | {} |",
             v.family,
             v.reading,
             v.tests,
             v.against,
             v.strongly_against,
             opt(v.extreme_p, sci),
-            status_text(v)
+            status_text(v),
+            v.note.as_deref().unwrap_or("")
         );
     }
     let _ = writeln!(w);
@@ -92,7 +94,7 @@ pub fn incomplete_cohorts(w: &mut String, base: &[&BucketRecord], outcome_end: O
         let _ =
             writeln!(w, "Every cohort's horizons end on or before the outcome end{end}: no cohort is incomplete.\n");
     } else {
-        let _ = writeln!(w, "Incomplete cohorts, whose horizon ends after the outcome end{end}: {}. Their members are listed in `tables/backtest_members.parquet` with outcome `incomplete` (and a default observed before the outcome end as its event date); they enter no test and no pooled row.\n", listed.join(", "));
+        let _ = writeln!(w, "Incomplete cohorts, whose horizon ends after the outcome end{end}: {}. Their members are listed in `tables/backtest_members.parquet` with outcome `incomplete` (and a default observed before the outcome end as its event date); they enter no bucket, Hosmer-Lemeshow, discrimination or premium row; the default term structure below uses the years they were observed.\n", listed.join(", "));
     }
 }
 
@@ -362,18 +364,42 @@ pub fn term_structure_section(
             .collect();
         series.push((b, steps, implied));
     }
-    let name = "term-structure.svg";
+    let name = "default-term-structure.svg";
     if save_chart(
         charts_dir,
         name,
         charts::cumulative_rates(
             &format!("Cumulative default rate by bucket, every cohort, up to {longest}Y"),
             &series,
+            &[],
         ),
     )? {
         *figure += 1;
         let _ = writeln!(w, "![Default term structure](charts/{name})\n");
         let _ = writeln!(w, "*Figure {figure}. Kaplan-Meier cumulative default rate per bucket over the members of every cohort at the {longest}Y horizon (lines, recomputed from `backtest_members`), and the members' mean implied cumulative PD at each year (circles, from `backtest_term_structure`), in the bucket's colour.*\n");
+    }
+    // One figure per bucket, with the Greenwood interval of the realised rate at each year.
+    let first = *figure + 1;
+    let mut drawn = Vec::new();
+    for (b, steps, implied) in series {
+        let whiskers: Vec<(f64, f64, f64)> = rows
+            .iter()
+            .filter(|r| r.bucket == b)
+            .filter_map(|r| Some((f64::from(r.horizon_years), r.rate_lo?, r.rate_hi?)))
+            .collect();
+        let file = format!("default-term-structure-{}.svg", b.replace([' ', '[', ']', '(', ')', ','], "-"));
+        let title = format!("{b}: cumulative default rate, every cohort");
+        if save_chart(charts_dir, &file, charts::cumulative_rates(&title, &[(b.clone(), steps, implied)], &[whiskers]))?
+        {
+            *figure += 1;
+            drawn.push((b, file));
+        }
+    }
+    if !drawn.is_empty() {
+        for (b, file) in &drawn {
+            let _ = writeln!(w, "![Term structure, {b}](charts/{file})\n");
+        }
+        let _ = writeln!(w, "*Figures {first} to {}. The same per bucket: the Kaplan-Meier cumulative default rate (line) with its Greenwood interval at each year (bars, none where no default was observed), and the members' mean implied cumulative PD (circles).*\n", *figure);
     }
     Ok(())
 }

@@ -528,6 +528,7 @@ impl Table for VerdictRow {
         col("strongly_against", Int),
         col("extreme_p", Float),
         col("status", Text),
+        col("note", Text),
     ];
 
     fn frame(rows: &[Self]) -> Result<DataFrame> {
@@ -539,6 +540,7 @@ impl Table for VerdictRow {
             .ints("strongly_against", rows.iter().map(|r| Some(r.strongly_against as i64)))
             .floats("extreme_p", rows.iter().map(|r| r.extreme_p))
             .strings("status", rows.iter().map(|r| Some(r.status.as_str())))
+            .strings("note", rows.iter().map(|r| r.note.as_ref()))
             .finish()
     }
 
@@ -552,9 +554,11 @@ impl Table for VerdictRow {
             floats(df, path, "extreme_p")?,
             strs(df, path, "status")?,
         );
+        let mut note = strs(df, path, "note")?;
         (0..df.height())
             .map(|i| {
                 Ok(VerdictRow {
+                    note: note[i].take(),
                     family: intern(fa[i].as_deref().unwrap_or("")),
                     reading: intern(re[i].as_deref().unwrap_or("")),
                     tests: whole(t[i]),
@@ -908,6 +912,7 @@ mod tests {
             strongly_against: 1,
             extreme_p: Some(1e-4),
             status: Status::Fail,
+            note: Some("of the 2 rejecting tests, 2 have fewer defaults than forecast".into()),
         }];
         assert_eq!(round_trip(&v), v);
         refuses_a_missing_column(&v);

@@ -33,6 +33,9 @@ pub struct VerdictRow {
     /// power", the weakest evidence of ranking).
     pub extreme_p: Option<f64>,
     pub status: Status,
+    /// For the two-sided families, which way the rejecting tests lean: how many have fewer
+    /// defaults than forecast (over-prediction, the premium) and how many more.
+    pub note: Option<String>,
 }
 
 fn status(tests: usize, against: u64, strongly: u64) -> Status {
@@ -58,7 +61,22 @@ fn verdict(family: &'static str, reading: &'static str, ps: Vec<f64>, s: &Backte
         strongly_against,
         extreme_p: ps.iter().copied().reduce(f64::min),
         status: status(ps.len(), against, strongly_against),
+        note: None,
     }
+}
+
+/// The direction note of a two-sided family from (p-value, defaults minus forecast) per test.
+fn direction(tests: &[(f64, f64)], s: &BacktestSettings) -> Option<String> {
+    let rejecting: Vec<f64> = tests.iter().filter(|(p, _)| *p < s.zones.yellow).map(|t| t.1).collect();
+    if rejecting.is_empty() {
+        return None;
+    }
+    let over = rejecting.iter().filter(|x| **x < 0.0).count();
+    Some(format!(
+        "of the {} rejecting tests, {over} have fewer defaults than forecast (over-prediction: the premium) and {} more (under-prediction)",
+        rejecting.len(),
+        rejecting.len() - over
+    ))
 }
 
 /// Discrimination counts against the model when the pooled AUC is not shown above 1/2 (p of
@@ -80,13 +98,25 @@ fn discrimination(out: &BacktestOutput, s: &BacktestSettings) -> VerdictRow {
         strongly_against,
         extreme_p: ps.iter().copied().reduce(f64::max),
         status: status(ps.len(), against, strongly_against),
+        note: None,
     }
 }
 
 /// The verdicts of one backtest output (normally the base recovery's).
 pub fn verdict_rows(out: &BacktestOutput, s: &BacktestSettings) -> Vec<VerdictRow> {
     let b = &out.buckets;
-    vec![
+    // Defaults minus forecast per (cohort, horizon), for the direction of Hosmer-Lemeshow.
+    let excess = |cohort: &str, h: u32| -> f64 {
+        b.iter()
+            .filter(|r| r.cohort == cohort && r.horizon_years == h)
+            .filter_map(|r| r.implied_pd.map(|p| r.defaults as f64 - r.n as f64 * p))
+            .sum()
+    };
+    let hl: Vec<(f64, f64)> =
+        out.hosmer_lemeshow.iter().filter_map(|r| r.p_value.map(|p| (p, excess(&r.cohort, r.horizon_years)))).collect();
+    let sp: Vec<(f64, f64)> =
+        out.hosmer_lemeshow.iter().filter_map(|r| Some((r.spiegelhalter_p?, r.spiegelhalter_z?))).collect();
+    let mut rows = vec![
         verdict(
             "bucket binomial, upper tail",
             "more defaults than the implied PD allows for independent defaults: PD too low",
@@ -136,5 +166,13 @@ pub fn verdict_rows(out: &BacktestOutput, s: &BacktestSettings) -> Vec<VerdictRo
             out.term_structure.iter().filter_map(|r| r.p_lower).collect(),
             s,
         ),
-    ]
+    ];
+    for r in rows.iter_mut() {
+        match r.family {
+            "Hosmer-Lemeshow" => r.note = direction(&hl, s),
+            "Spiegelhalter" => r.note = direction(&sp, s),
+            _ => {}
+        }
+    }
+    rows
 }
