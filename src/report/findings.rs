@@ -114,6 +114,7 @@ pub fn findings_section(w: &mut String, flags: &[FlagRecord]) {
         }
         let _ = writeln!(w);
     }
+    misfits_with_data_flags(w, flags);
     let raised: BTreeSet<&str> = flags.iter().map(|f| f.flag.rule.as_str()).collect();
     let quiet: Vec<String> =
         FlagRule::ALL.iter().map(|r| r.as_str()).filter(|r| !raised.contains(r)).map(|r| format!("`{r}`")).collect();
@@ -122,6 +123,84 @@ pub fn findings_section(w: &mut String, flags: &[FlagRecord]) {
         "Rules that raised no flag in this run: {}. A rule raises nothing where its inputs are missing (no CIR fit, too few names for a PSI), so read this with the settings in section 7.\n",
         if quiet.is_empty() { "none".to_string() } else { quiet.join(", ") }
     );
+}
+
+/// Calendar days either side of a misfit within which a data-quality flag on the same entity
+/// is shown beside it.
+pub const NEXT_TO_DAYS: i64 = 3;
+
+/// The entity a flag is about: a series entity of a multi-currency name is `Name/CCY`.
+fn base_entity(e: &str) -> &str {
+    e.split_once('/').map_or(e, |(a, _)| a)
+}
+
+/// Residual misfits (`residual_over_tolerance`) with the data-quality flags (kept rows: spikes,
+/// inverted curves, stale runs, ...) on the same entity within [`NEXT_TO_DAYS`] calendar days:
+/// a misfit next to a flagged quote is most likely that quote, not the model.
+fn misfits_with_data_flags(w: &mut String, flags: &[FlagRecord]) {
+    let misfits: Vec<&FlagRecord> =
+        flags.iter().filter(|f| f.flag.rule == FlagRule::ResidualOverTolerance && f.flag.date.is_some()).collect();
+    if misfits.is_empty() {
+        return;
+    }
+    let mut dq: BTreeMap<&str, Vec<&FlagRecord>> = BTreeMap::new();
+    for f in flags.iter().filter(|f| f.stage == "data_quality" && f.flag.date.is_some()) {
+        if let Some(e) = f.flag.entity.as_deref() {
+            dq.entry(base_entity(e)).or_default().push(f);
+        }
+    }
+    let mut by_method: BTreeMap<&str, (usize, usize)> = BTreeMap::new();
+    let mut pairs: Vec<(&FlagRecord, Vec<&FlagRecord>)> = Vec::new();
+    for m in &misfits {
+        let method = m.flag.series.strip_prefix("residual_bp/").unwrap_or(&m.flag.series);
+        let slot = by_method.entry(method).or_default();
+        slot.0 += 1;
+        let (Some(e), Some(d)) = (m.flag.entity.as_deref(), m.flag.date) else { continue };
+        let near: Vec<&FlagRecord> = dq
+            .get(base_entity(e))
+            .map(|v| {
+                v.iter()
+                    .copied()
+                    .filter(|f| f.flag.date.is_some_and(|x| (x - d).num_days().abs() <= NEXT_TO_DAYS))
+                    .collect()
+            })
+            .unwrap_or_default();
+        if !near.is_empty() {
+            slot.1 += 1;
+            pairs.push((m, near));
+        }
+    }
+    let counts: Vec<String> = by_method.iter().map(|(m, (n, k))| format!("{k} of {n} `{m}` misfits")).collect();
+    let _ = writeln!(w, "Misfits next to flagged data: {} have a data-quality flag on the same entity within {NEXT_TO_DAYS} days (a kept quote the quality rules flagged, most likely the cause).\n", counts.join(", "));
+    if pairs.is_empty() {
+        return;
+    }
+    const SHOWN: usize = 15;
+    pairs.sort_by(|a, b| excess(b.0).total_cmp(&excess(a.0)));
+    let _ =
+        writeln!(w, "| misfit | residual bp | data-quality flags within {NEXT_TO_DAYS} days |\n| --- | ---: | --- |");
+    for (m, near) in pairs.iter().take(SHOWN) {
+        let list: Vec<String> = near
+            .iter()
+            .map(|f| {
+                format!(
+                    "`{}` {} on {}",
+                    f.flag.rule.as_str(),
+                    cell_text(&f.flag.series),
+                    f.flag.date.map(|d| d.to_string()).unwrap_or_default()
+                )
+            })
+            .collect();
+        let _ = writeln!(w, "| {} | {:.1} | {} |", where_of(m), m.flag.value, list.join("; "));
+    }
+    if pairs.len() > SHOWN {
+        let _ = writeln!(
+            w,
+            "\n{} more such misfits are in `tables/flags.parquet` (rule `residual_over_tolerance`).",
+            pairs.len() - SHOWN
+        );
+    }
+    let _ = writeln!(w);
 }
 
 #[cfg(test)]
@@ -172,5 +251,41 @@ mod tests {
         let mut none = String::new();
         findings_section(&mut none, &[]);
         assert!(none.contains("No red flags."));
+    }
+
+    /// A misfit two days after a spike on the same name (quoted in two currencies, so its
+    /// series entity is `Name/CCY`) is shown with it; one five days away, or on another name,
+    /// is not.
+    #[test]
+    fn misfits_are_shown_with_the_data_flags_next_to_them() {
+        let day = |d: u32| chrono::NaiveDate::from_ymd_opt(2016, 11, d);
+        let misfit = |e: &str, d: u32| {
+            FlagRecord::review(
+                "stability",
+                &FlagRow {
+                    series: "residual_bp/bootstrap".into(),
+                    date: day(d),
+                    threshold: 1e-6,
+                    ..flag(FlagRule::ResidualOverTolerance, Severity::Amber, Some(e), 86.9).flag
+                },
+            )
+        };
+        let spike = FlagRecord::review(
+            "data_quality",
+            &FlagRow {
+                series: "EUR 5Y".into(),
+                date: day(5),
+                ..flag(FlagRule::Spike, Severity::Warning, Some("Alder"), 40.0).flag
+            },
+        );
+        let flags = vec![misfit("Alder/EUR", 7), misfit("Alder/EUR", 10), misfit("Birch", 7), spike];
+        let mut w = String::new();
+        findings_section(&mut w, &flags);
+        assert!(w.contains("1 of 3 `bootstrap` misfits"), "{w}");
+        assert!(
+            w.contains("| Alder/EUR residual_bp/bootstrap on 2016-11-07 | 86.9 | `spike` EUR 5Y on 2016-11-05 |"),
+            "{w}"
+        );
+        assert!(!w.contains("on 2016-11-10 | 86.9"), "{w}");
     }
 }
