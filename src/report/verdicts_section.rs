@@ -196,7 +196,8 @@ pub fn discrimination_section(
     }
     let members: Vec<MemberRecord> =
         tables::read_from::<MemberRecord>(&members_path)?.into_iter().filter(|m| same(m.recovery)).collect();
-    let horizons: BTreeSet<u32> = members.iter().map(|m| m.member.horizon_years).collect();
+    // The tested horizons (the member table also holds the term-structure years).
+    let horizons: BTreeSet<u32> = rows.iter().map(|r| r.horizon_years).collect();
     for h in horizons {
         let picked: Vec<(&MemberRecord, bool)> = members
             .iter()
