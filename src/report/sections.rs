@@ -150,9 +150,17 @@ pub fn backtest_section(
     base_recovery: f64,
     enabled: bool,
     settings: &[(String, String)],
+    input_end: Option<&str>,
 ) -> Result<()> {
     let _ = writeln!(w, "## {number}. Backtest and risk premia\n");
     let setting = |k: &str| settings.iter().find(|(n, _)| n == k).map(|(_, v)| v.as_str());
+    // The outcome end as a date: the configured one, else the input's last quote date.
+    let configured = setting("outcome_end").filter(|v| chrono::NaiveDate::parse_from_str(v, "%Y-%m-%d").is_ok());
+    let outcome_end = match (configured, input_end) {
+        (Some(d), _) => format!("{d}, configured"),
+        (None, Some(d)) => format!("{d}, the last quote date of the input"),
+        (None, None) => "the last quote date of the input".to_string(),
+    };
     let (yellow, red) = (setting("zone_yellow").unwrap_or("0.05"), setting("zone_red").unwrap_or("0.001"));
     let survivor_policy = setting("censoring").is_some_and(|c| c.starts_with("count as survivor"));
     let bpath = tables.join("backtest_buckets.parquet");
@@ -177,10 +185,10 @@ pub fn backtest_section(
     let cohorts: BTreeSet<&str> = base.iter().map(|b| b.cohort.as_str()).filter(|c| *c != "all").collect();
     let _ = writeln!(
         w,
-        "Cohorts are formed on {} cohort dates ({}); a member is an entity not in default with a calibrated curve within the look-back window, its implied PD is 1 - S(h) from that curve, and its outcome is a default in (t, t + h], observed to the outcome end ({}) whether or not the entity is still quoted: the defaults table covers every entity. A member leaves observation early only when its coverage ends (the entities table's `coverage_end`); it is then censored, defaulters and survivors alike, and the realised rate of its bucket is the Kaplan-Meier estimate with a Greenwood interval (marked KM) rather than d / n. Realised outcomes come from the `defaults` table{}. Recovery {} is the base; the implied PDs under the sensitivity recoveries are at the end of the section. Every number below can be recomputed from `tables/backtest_members.parquet`, one row per member, horizon and recovery.\n",
+        "Cohorts are formed on {} cohort dates ({}); a member is an entity not in default and in coverage at the cohort date, with a complete calibrated curve within the look-back window, its implied PD is 1 - S(h) from that curve, and its outcome is a default in (t, t + h], observed to the outcome end ({}) whether or not the entity is still quoted: the defaults table covers every entity. A member leaves observation early only when its coverage ends (the entities table's `coverage_end`); it is then censored, defaulters and survivors alike, and the realised rate of its bucket is the Kaplan-Meier estimate with a Greenwood interval (marked KM) rather than d / n. Realised outcomes come from the `defaults` table{}. Recovery {} is the base; the implied PDs under the sensitivity recoveries are at the end of the section. Every bucket, interval, AUC, term-structure row and ratio below can be recomputed from `tables/backtest_members.parquet`, one row per member, horizon and recovery; the cohort-history comparison comes from `cohort_history` and the migration matrices from the grades table.\n",
         cohorts.len(),
         cohorts.iter().copied().collect::<Vec<_>>().join(", "),
-        setting("outcome_end").unwrap_or("the last quote date of the input"),
+        outcome_end,
         if history_df.height() > 0 { " and, for the longer history, from the institution's `cohort_history`" } else { "" },
         pct(base_recovery)
     );
@@ -189,7 +197,7 @@ pub fn backtest_section(
     let records = crate::tables::read_from::<crate::tables::BucketRecord>(&bpath)?;
     let base_records: Vec<&crate::tables::BucketRecord> = records.iter().filter(|b| same(b.recovery)).collect();
     if !base_records.is_empty() {
-        super::verdicts_section::incomplete_cohorts(w, &base_records, setting("outcome_end"));
+        super::verdicts_section::incomplete_cohorts(w, &base_records, configured.or(input_end));
     }
     for &h in &horizons {
         let mut rows: Vec<&&Bucket> = base.iter().filter(|b| b.horizon == h && b.cohort == "all").collect();
@@ -228,7 +236,7 @@ pub fn backtest_section(
             );
         }
         let above = rows.iter().filter(|b| matches!((b.implied, b.realised), (Some(i), Some(r)) if i > r)).count();
-        let _ = writeln!(w, "\nThe mean implied PD is above the realised rate in {above} of {} buckets (intervals at {level} two-sided). The zone \"PD too low\" is read from the upper-tail binomial p-value P[D >= d] (under-prediction, the risk finding); \"PD too high\" from the lower tail P[D <= d] (over-prediction, the premium): green at p >= {yellow}, yellow below it, red below {red}.\n", rows.len());
+        let _ = writeln!(w, "\nThe mean implied PD is above the realised rate in {above} of {} buckets (intervals at {level} two-sided). The zone \"PD too low\" is read from the upper-tail binomial p-value P[D >= d] (under-prediction, the risk finding); \"PD too high\" from the lower tail P[D <= d] (over-prediction, the premium): green at p >= {yellow}, yellow below it, red below {red}. The Jeffreys p is the Beta(d + 1/2, n - d + 1/2) cdf at the mean implied PD, small when the PD is too low.\n", rows.len());
         let items: Vec<IntervalItem> = pooled_records
             .iter()
             .map(|b| {
@@ -266,7 +274,7 @@ pub fn backtest_section(
     // Hosmer-Lemeshow and the obligor-level scores.
     let hl_path = tables.join("backtest_hosmer_lemeshow.parquet");
     let hl = crate::tables::read_from::<crate::tables::HosmerLemeshowRecord>(&hl_path)?;
-    let _ = writeln!(w, "### Calibration across buckets and obligors\n\nHosmer-Lemeshow across buckets (forecasts given, not fitted: k degrees of freedom for k buckets); Spiegelhalter's (1986) z of the obligor-level forecasts (two-sided p), the Brier score, and the Herfindahl-Hirschman index of the members over buckets (1 / buckets when spread evenly):\n\n| cohort | horizon | n | buckets | HL statistic | HL p-value | Brier | Spiegelhalter z | p-value | HHI | note |\n| --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- |");
+    let _ = writeln!(w, "### Calibration across buckets and obligors\n\nHosmer-Lemeshow across buckets (forecasts given, not fitted: k degrees of freedom for k buckets; the chi-square approximation is poor where a bucket expects under about one default, as the best grades do per cohort year); Spiegelhalter's (1986) z of the obligor-level forecasts (two-sided p), the Brier score, and the Herfindahl-Hirschman index of the members over buckets (1 / buckets when spread evenly):\n\n| cohort | horizon | n | buckets | HL statistic | HL p-value | Brier | Spiegelhalter z | p-value | HHI | note |\n| --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- |");
     for x in hl.iter().filter(|x| same(x.recovery)) {
         let r = &x.row;
         let _ = writeln!(
@@ -293,7 +301,7 @@ pub fn backtest_section(
     // Cohort history and the long-history premium.
     if history_df.height() > 0 {
         let history = crate::tables::read_from::<crate::backtest::HistoryRow>(&history_path)?;
-        let _ = writeln!(w, "### Against the institution's cohort history\n\nRealised one-year rates from `cohort_history` (pooled over its years), against the mean 1Y implied PD of the same grade over the quoted period. The long-history premium sets the quoted period's pricing intensity lambda_Q (1Y windows, as in the risk-premium table below) against the historical intensity of the cohort history, -ln(1 - d / n) per year, whose interval carries the Clopper-Pearson bounds through the same map. The two come from different periods: the cohort history covers its own years, the pricing intensity only the quoted period, so the ratio mixes a long-run default experience with one period's prices.\n\n| grade | obligor-years | defaults | realised | Clopper-Pearson | mean implied PD | P[D >= d] | zone | lambda_P (history) | interval | lambda_Q (quoted period) | Q/P | interval |\n| ---: | ---: | ---: | ---: | --- | ---: | ---: | --- | ---: | --- | ---: | ---: | --- |");
+        let _ = writeln!(w, "### Against the institution's cohort history\n\nRealised one-year rates from `cohort_history` (obligors and defaults summed over its years), against the mean 1Y implied PD of the same grade over the quoted period. The long-history premium sets the quoted period's pricing intensity lambda_Q (1Y windows, as in the risk-premium table below) against the historical intensity of the cohort history, -ln(1 - d / n) per year, whose interval carries the Clopper-Pearson bounds through the same map. The two come from different periods: the cohort history covers its own years, the pricing intensity only the quoted period, so the ratio mixes a long-run default experience with one period's prices.\n\n| grade | obligors (summed over the years) | defaults | realised | Clopper-Pearson | mean implied PD | P[D >= d] | zone | lambda_P (history) | interval | lambda_Q (quoted period) | Q/P | interval |\n| ---: | ---: | ---: | ---: | --- | ---: | ---: | --- | ---: | --- | ---: | ---: | --- |");
         for r in history.iter().filter(|r| r.cohort == "all") {
             let _ = writeln!(
                 w,
@@ -321,7 +329,7 @@ pub fn backtest_section(
 
     // Risk premia.
     let _ = writeln!(w, "### Risk premium: pricing against historical intensity\n");
-    let _ = writeln!(w, "The historical intensity is defaults per exposure year (exposure from the cohort date to default, end of data or horizon end) with the exact Garwood (1936) Poisson interval; the pricing intensity is the calibrated hazard integrated over the same windows, per exposure year. The ratio's interval carries the Poisson uncertainty of the historical side only; with no default its upper end is unbounded (`-`). The expected-loss spread is lambda_P (1 - R), its interval from lambda_P's; the rest of the quoted spread at the matching tenor is risk and liquidity premium, its interval the quoted spread less the expected-loss interval.\n");
+    let _ = writeln!(w, "The historical intensity is defaults per exposure year (exposure from the cohort date to default, the end of coverage or the horizon end; incomplete cohorts are left out) with the exact Garwood (1936) Poisson interval; the pricing intensity is the calibrated hazard integrated over the same windows, per exposure year. The ratio's interval carries the Poisson uncertainty of the historical side only; with no default its upper end is unbounded (`-`). The expected-loss spread is lambda_P (1 - R), its interval from lambda_P's; the rest of the quoted spread at the matching tenor is risk and liquidity premium, its interval the quoted spread less the expected-loss interval.\n");
     for &h in &horizons {
         let mut rows: Vec<&Premium> =
             premia.iter().filter(|p| p.horizon == h && p.cohort == "all" && same(p.recovery)).collect();

@@ -23,19 +23,14 @@ pub fn read_verdicts(tables_dir: &Path) -> Result<Vec<VerdictRow>> {
     tables::read_from::<VerdictRow>(&path)
 }
 
-/// Whether a family reads the lower tails (over-prediction: the premium).
-fn is_premium(v: &VerdictRow) -> bool {
-    v.family.ends_with("lower tail")
-}
-
-/// The status as the summary and the section print it.
+/// The status as the section prints it: the documented value, with what it means where every
+/// rejection says the PD is too high (the premium this review measures, not a shortfall).
 pub fn status_text(v: &VerdictRow) -> String {
-    match (v.status, is_premium(v)) {
-        (Status::Pass, _) => "pass".into(),
-        (Status::NotTested, _) => "not tested".into(),
-        (s, true) => format!("{}: implied PD above realised (the premium, section 5)", s.as_str()),
-        (Status::Attention, false) => "attention (section 5)".into(),
-        (_, false) => "FAIL (section 5)".into(),
+    match v.status {
+        Status::Pass | Status::NotTested => v.status.as_str().to_string(),
+        s if v.family.starts_with("discrimination") => format!("{}: ranking not shown", s.as_str()),
+        s if v.only_over_prediction() => format!("{}: over-prediction only (the premium)", s.as_str()),
+        s => format!("{}: includes under-prediction (PD too low)", s.as_str()),
     }
 }
 
@@ -52,7 +47,10 @@ pub fn summary_rows(w: &mut String, verdicts: &[VerdictRow], yellow: &str, red: 
             if v.family.starts_with("discrimination") { "largest no-power" } else { "smallest" },
             opt(v.extreme_p, sci),
             v.note.as_deref().map_or(String::new(), |n| format!("; {n}")),
-            status_text(v)
+            match v.status {
+                Status::Pass | Status::NotTested => status_text(v),
+                _ => format!("{} (see section 5)", status_text(v)),
+            }
         );
     }
 }
@@ -62,7 +60,7 @@ pub fn verdict_table(w: &mut String, verdicts: &[VerdictRow], yellow: &str, red:
     if verdicts.is_empty() {
         return;
     }
-    let _ = writeln!(w, "### Verdicts by test family\n\nA family passes only when none of its tests rejects at p < {yellow}; it needs attention when some do and none at p < {red}, and fails when one does. For discrimination a test counts against the model when the AUC is not shown above 1/2 (p of \"no power\" at or above {yellow}). The lower-tail families measure over-prediction: a rejection there says the pricing-measure PD exceeds the realised rate, which is the risk premium this section quantifies, and is reported, not hidden.\n");
+    let _ = writeln!(w, "### Verdicts by test family\n\nA family passes only when none of its tests rejects at p < {yellow}; it needs attention when some do and none at p < {red}, and fails when one does. For discrimination a test counts against the model when the AUC is not shown above 1/2 (p of \"no power\" at or above {yellow}). The lower-tail families measure over-prediction: a rejection there says the pricing-measure PD exceeds the realised rate, which is the risk premium this section quantifies, and is reported, not hidden. A family holds many overlapping tests (per cohort year and pooled) and no adjustment for multiplicity is made: read its count of rejections against its number of tests.\n");
     let _ = writeln!(w, "| family | a rejection means | tests | rejecting (p < {yellow}) | of which p < {red} | extreme p | status | direction of the rejections |\n| --- | --- | ---: | ---: | ---: | ---: | --- | --- |");
     for v in verdicts {
         let _ = writeln!(
@@ -89,7 +87,7 @@ pub fn incomplete_cohorts(w: &mut String, base: &[&BucketRecord], outcome_end: O
     }
     let listed: Vec<String> =
         by.iter().filter(|(_, n)| **n > 0).map(|((h, c), n)| format!("{c} at {h}Y ({n} members)")).collect();
-    let end = outcome_end.map_or(String::new(), |e| format!(" (outcome end {e})"));
+    let end = outcome_end.map_or(String::new(), |e| format!(" ({e})"));
     if listed.is_empty() {
         let _ =
             writeln!(w, "Every cohort's horizons end on or before the outcome end{end}: no cohort is incomplete.\n");
@@ -100,7 +98,7 @@ pub fn incomplete_cohorts(w: &mut String, base: &[&BucketRecord], outcome_end: O
 
 /// The one-factor bucket tests of the pooled cohorts at one horizon.
 pub fn one_factor_table(w: &mut String, rows: &[&BucketRecord], h: u32, level: f64) {
-    let _ = writeln!(w, "### Correlated defaults (one-factor model), {h}Y horizon, all cohorts pooled\n\nThe binomial tests assume independent defaults; with asset correlation rho the count of defaults among n names of PD p follows the one-factor Gaussian (Vasicek) mixture, so the plausible range of the realised rate widens and both tails are computed under it. The interval is the range of default rates inside the central {} of that distribution.\n", pct(level));
+    let _ = writeln!(w, "### Correlated defaults (one-factor model), {h}Y horizon, all cohorts pooled\n\nThe binomial tests assume independent defaults; with asset correlation rho the count of defaults among n names of PD p follows the one-factor Gaussian (Vasicek) mixture, so the plausible range of the realised rate widens and both tails are computed under it (the zone reads the upper tail; the lower tail is the premium). The interval is the range of default rates inside the central {} of that distribution. rho is the setting `asset_correlation` (by default the supervisory corporate formula of the bucket's one-year PD: Basel Committee, June 2006, paragraph 272).\n", pct(level));
     let _ = writeln!(w, "| bucket | n | defaults | realised | mean implied PD | rho | plausible rate | P[D >= d] | P[D <= d] | zone (PD too low) |\n| --- | ---: | ---: | ---: | ---: | ---: | --- | ---: | ---: | --- |");
     for b in rows {
         let r = &b.row;
@@ -110,7 +108,10 @@ pub fn one_factor_table(w: &mut String, rows: &[&BucketRecord], h: u32, level: f
             r.bucket,
             r.n,
             r.defaults,
-            opt(r.realised_rate, pct),
+            match r.rate_method {
+                Some(crate::backtest::RateMethod::KaplanMeier) => format!("{} KM", opt(r.realised_rate, pct)),
+                _ => opt(r.realised_rate, pct),
+            },
             opt(r.implied_pd, pct),
             opt(r.rho, |v| format!("{v:.3}")),
             opt(r.vasicek_lo, pct),
@@ -158,7 +159,7 @@ pub fn discrimination_section(
         return Ok(());
     }
     let level = rows[0].level;
-    let _ = writeln!(w, "### Discriminatory power\n\nDoes the score rank the members that default above those that survive? AUC with ties counted one half, its DeLong standard error and {} interval (DeLong, DeLong and Clarke-Pearson, 1988), Gini = 2 AUC - 1, the one-sided p-value of \"no power\" (AUC <= 1/2), and the paired DeLong test of the implied PD's AUC against the internal grade's on the same members.\n", pct(level));
+    let _ = writeln!(w, "### Discriminatory power\n\nDoes the score rank the members that default above those that survive? AUC with ties counted one half, its DeLong standard error and {} interval (DeLong, DeLong and Clarke-Pearson, 1988), Gini = 2 AUC - 1, the one-sided p-value of \"no power\" (AUC <= 1/2, from the Mann-Whitney variance under that hypothesis, tie corrected, which the ranks bound even with few defaulters), and the paired DeLong test of the implied PD's AUC against the internal grade's on the same members.\n", pct(level));
     let with_reference = rows.iter().any(|r| r.auc_reference.is_some());
     if with_reference {
         let _ = writeln!(w, "The pooled rows are also tested against the reference run named by `backtest.reference_run` (its pooled AUC of the same score and horizon): z = (AUC - AUC_ref) / sqrt(se^2 + se_ref^2), two-sided, the two reviews taken as independent samples (approximate where their cohorts share names).\n");
@@ -312,8 +313,8 @@ pub fn term_structure_section(
         return Ok(());
     }
     let level = rows[0].level;
-    let _ = writeln!(w, "### Default term structure over every cohort\n\nThe bucket tests above use only cohorts whose horizon ended by the outcome end. Here every member of every cohort counts, each observed from its cohort date until its default, the end of its coverage, the outcome end or its horizon end: the product-limit (Kaplan-Meier) cumulative default rate at each horizon with its Greenwood {} interval (log transform), against the mean implied PD of the same members. The test is the one-sample log-rank test (Breslow, 1975): the defaults observed in the members' windows against the number the implied curves expect over the same windows (E, the sum of each member's implied hazard integrated over its window), exactly under Poisson(E); P[O >= o] is small when the PD is too low (zone), P[O <= o] when it is too high (the premium). O / E is the realised-to-implied ratio of the windows observed.\n", pct(level));
-    let _ = writeln!(w, "| bucket | horizon | members | observed to the horizon end | realised (KM) | interval | mean implied PD | defaults O | expected E | O / E | P[O >= o] | P[O <= o] | zone (PD too low) | note |\n| --- | ---: | ---: | ---: | ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: | --- | --- |");
+    let _ = writeln!(w, "### Default term structure over every cohort\n\nThe bucket tests above use only cohorts whose horizon ended by the outcome end. Here every member of every cohort counts, each observed from its cohort date until its default, the end of its coverage, the outcome end or its horizon end: the product-limit (Kaplan-Meier) cumulative default rate at each horizon with its Greenwood {} interval (log-log transform), against the mean implied PD of the same members. Annual cohorts overlap at horizons over a year, so one default counts once in every cohort whose window holds it: the tests below treat those dependent windows as independent and are descriptive. The test is the one-sample log-rank test (Breslow, 1975): the defaults observed in the members' windows against the number the implied curves expect over the same windows (E, the sum of each member's implied hazard integrated over its window), exactly under Poisson(E); P[O >= o] is small when the PD is too low (zone), P[O <= o] when it is too high (the premium). O / E is the realised-to-implied ratio of the windows observed.\n", pct(level));
+    let _ = writeln!(w, "| bucket | horizon | members | survivors observed to the horizon end | realised (KM) | interval | mean implied PD | defaults O | expected E | O / E | P[O >= o] | P[O <= o] | zone (PD too low) | note |\n| --- | ---: | ---: | ---: | ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: | --- | --- |");
     let mut sorted: Vec<&crate::backtest::TermStructureRow> = rows.iter().collect();
     sorted.sort_by_key(|r| (r.horizon_years, r.bucket == "all", bucket_order(&r.bucket)));
     for r in &sorted {

@@ -529,6 +529,8 @@ impl Table for VerdictRow {
         col("extreme_p", Float),
         col("status", Text),
         col("note", Text),
+        col("over_predicting", Int),
+        col("under_predicting", Int),
     ];
 
     fn frame(rows: &[Self]) -> Result<DataFrame> {
@@ -541,6 +543,8 @@ impl Table for VerdictRow {
             .floats("extreme_p", rows.iter().map(|r| r.extreme_p))
             .strings("status", rows.iter().map(|r| Some(r.status.as_str())))
             .strings("note", rows.iter().map(|r| r.note.as_ref()))
+            .ints("over_predicting", rows.iter().map(|r| r.over_predicting.map(|x| x as i64)))
+            .ints("under_predicting", rows.iter().map(|r| r.under_predicting.map(|x| x as i64)))
             .finish()
     }
 
@@ -555,10 +559,13 @@ impl Table for VerdictRow {
             strs(df, path, "status")?,
         );
         let mut note = strs(df, path, "note")?;
+        let (ov, un) = (ints(df, path, "over_predicting")?, ints(df, path, "under_predicting")?);
         (0..df.height())
             .map(|i| {
                 Ok(VerdictRow {
                     note: note[i].take(),
+                    over_predicting: ov[i].map(|x| x.max(0) as u64),
+                    under_predicting: un[i].map(|x| x.max(0) as u64),
                     family: intern(fa[i].as_deref().unwrap_or("")),
                     reading: intern(re[i].as_deref().unwrap_or("")),
                     tests: whole(t[i]),
@@ -913,6 +920,8 @@ mod tests {
             extreme_p: Some(1e-4),
             status: Status::Fail,
             note: Some("of the 2 rejecting tests, 2 have fewer defaults than forecast".into()),
+            over_predicting: Some(2),
+            under_predicting: Some(0),
         }];
         assert_eq!(round_trip(&v), v);
         refuses_a_missing_column(&v);

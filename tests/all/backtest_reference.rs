@@ -4,10 +4,11 @@
 //! tests/reference/backtest_scipy.json with the library versions (scikit-learn 1.9.1,
 //! statsmodels 0.15.0, scipy 1.17.1, numpy 2.4.6) and the function behind each value:
 //! - AUC: `sklearn.metrics.roc_auc_score`; its DeLong variance (DeLong, DeLong and
-//!   Clarke-Pearson, 1988) and the paired test from the structural components in numpy;
+//!   Clarke-Pearson, 1988) and the paired test from the structural components in numpy; the
+//!   p-value of no power from `scipy.stats.mannwhitneyu` (asymptotic, no continuity correction);
 //! - Kaplan-Meier survival and Greenwood standard error: statsmodels `SurvfuncRight`; the
-//!   log-transform interval (`lo_log` / `hi_log`) checked there against
-//!   `quantile_ci(method="log")`;
+//!   log-log interval (`lo` / `hi`) checked there against `quantile_ci` (its default
+//!   transform);
 //! - one-factor (Vasicek) count tails: `scipy.integrate.quad` over the factor of
 //!   `scipy.stats.binom` tails, cross-checked there by Gauss-Hermite to 1e-13;
 //! - Spiegelhalter's z and the Brier score: numpy sums, `scipy.stats.norm.sf`,
@@ -84,6 +85,11 @@ fn auc_and_delong_variance_against_scikit_learn() {
         c.close(format!("auc {id}"), a.auc, num(&case["auc"]));
         c.close(format!("auc_var {id}"), a.variance, num(&case["auc_var"]));
         c.close(format!("auc_se {id}"), a.se(), num(&case["auc_se"]));
+        let p = hazardline::stats::auc_no_power_p(&nums(&case["scores"]), &flags(&case["labels"])).unwrap();
+        match case["p_no_power"].as_f64() {
+            Some(want) => c.close(format!("p_no_power {id}"), p.unwrap_or(f64::NAN), want),
+            None => assert_eq!(p, None, "{id}: every score tied"),
+        }
     }
     c.done();
 }
@@ -120,8 +126,8 @@ fn kaplan_meier_and_greenwood_against_statsmodels() {
             c.close(format!("S({t}) {id}"), s, num(&at["survival"]));
             c.close(format!("se({t}) {id}"), se, num(&at["se"]));
             let i = km.interval(t, level).unwrap();
-            c.close(format!("lo_log({t}) {id}"), i.lo, num(&at["lo_log"]));
-            c.close(format!("hi_log({t}) {id}"), i.hi, num(&at["hi_log"]));
+            c.close(format!("lo({t}) {id}"), i.lo, num(&at["lo"]));
+            c.close(format!("hi({t}) {id}"), i.hi, num(&at["hi"]));
         }
     }
     c.done();

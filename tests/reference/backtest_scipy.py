@@ -526,6 +526,19 @@ def poisson_cases():
     return out
 
 
+def with_no_power_p(cases):
+    """Adds `p_no_power` to each AUC case: scipy.stats.mannwhitneyu(scores of label 1, scores of
+    label 0, alternative="greater", method="asymptotic", use_continuity=False).pvalue, the normal
+    approximation with the tie-corrected variance (None where every score is tied: scipy's NaN)."""
+    for c in cases:
+        x = [s for s, l in zip(c["scores"], c["labels"]) if l == 1]
+        y = [s for s, l in zip(c["scores"], c["labels"]) if l == 0]
+        p = float(stats.mannwhitneyu(x, y, alternative="greater", method="asymptotic",
+                                     use_continuity=False).pvalue)
+        c["p_no_power"] = None if math.isnan(p) else p
+    return cases
+
+
 def main():
     vas, worst = vasicek_cases()
     km = km_cases()
@@ -542,6 +555,7 @@ def main():
         "notes": [
             "auc: sklearn.metrics.roc_auc_score; higher score = more likely label 1; a positive-negative tie counts 1/2.",
             "auc_var: DeLong, DeLong and Clarke-Pearson (1988) from the structural components V10 (per positive) and V01 (per negative), var = S10/m + S01/n with sample variances (divisors m-1, n-1); mean(V10) = mean(V01) = sklearn AUC asserted to 1e-12. auc_se = sqrt(auc_var).",
+            "auc p_no_power: scipy.stats.mannwhitneyu(x1, x0, alternative='greater', method='asymptotic', use_continuity=False).pvalue (normal approximation, tie-corrected variance under no power); null where every score is tied.",
             "auc_paired: cov_ab = Cov(V10_a, V10_b)/m + Cov(V01_a, V01_b)/n (divisors m-1, n-1); z = (auc_a - auc_b)/sqrt(var_a + var_b - 2 cov_ab); p_value = 2 norm.sf(|z|).",
             "Random AUC cases raise the seed until there are at least 2 positives and 2 negatives; `seed` is the one used.",
             "kaplan_meier: statsmodels SurvfuncRight; survival at t = surv_prob at the last event time <= t (1 before the first event); se = surv_prob_se at that index (Greenwood; 0 before the first event). Asserted equal to a plain-Python product-limit estimate and Greenwood sum to 1e-12.",
@@ -558,7 +572,7 @@ def main():
             "poisson: upper = P[X >= k] = scipy.stats.poisson.sf(k - 1, mean) (exactly 1 at k = 0), lower = P[X <= k] = scipy.stats.poisson.cdf(k, mean).",
             "spiegelhalter: Spiegelhalter (1986): z = sum((y-p)(1-2p))/sqrt(sum((1-2p)^2 p (1-p))), p_value = 2 norm.sf(|z|); brier = mean((y-p)^2) = sklearn brier_score_loss (asserted to 1e-15).",
         ],
-        "auc": auc_cases(),
+        "auc": with_no_power_p(auc_cases()),
         "auc_paired": auc_paired_cases(),
         "kaplan_meier": km,
         "vasicek": vas,

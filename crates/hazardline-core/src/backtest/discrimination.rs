@@ -5,7 +5,7 @@
 
 use super::cohort::Observation;
 use super::BacktestSettings;
-use crate::stats::{self, special::normal_upper_tail};
+use crate::stats;
 use std::collections::BTreeMap;
 
 /// Which score a row ranks by.
@@ -36,7 +36,8 @@ pub struct DiscriminationRow {
     pub auc_hi: Option<f64>,
     /// 2 AUC - 1.
     pub gini: Option<f64>,
-    /// One-sided p-value of AUC <= 1/2 (normal, DeLong se): small when the score discriminates.
+    /// One-sided p-value of AUC <= 1/2 (Mann-Whitney variance under that hypothesis, tie
+    /// corrected): small when the score discriminates.
     pub p_no_power: Option<f64>,
     /// Implied-PD row only: two-sided p-value of the paired DeLong test of the implied PD's AUC
     /// against the grade's, on the members with a grade.
@@ -119,10 +120,12 @@ fn row(cohort: &str, horizon_years: u32, score: Score, level: f64, s: &[f64], y:
                 (r.auc_lo, r.auc_hi) = (Some(i.lo), Some(i.hi));
             }
             r.gini = Some(a.gini());
-            r.p_no_power = (a.se() > 0.0).then(|| normal_upper_tail((a.auc - 0.5) / a.se()));
+            // Under "no power" the Mann-Whitney variance, not DeLong's (estimated under the
+            // alternative, far too small when the defaulters are few).
+            r.p_no_power = stats::auc_no_power_p(s, y).ok().flatten();
             if a.defaults < 2 || a.survivors < 2 {
                 r.note = Some("fewer than two defaulters or survivors: the DeLong variance is not defined".into());
-                (r.auc_se, r.auc_lo, r.auc_hi, r.p_no_power) = (None, None, None, None);
+                (r.auc_se, r.auc_lo, r.auc_hi) = (None, None, None);
             }
         }
         Err(e) => r.note = Some(e.to_string()),

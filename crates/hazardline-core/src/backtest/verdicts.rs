@@ -36,6 +36,17 @@ pub struct VerdictRow {
     /// For the two-sided families, which way the rejecting tests lean: how many have fewer
     /// defaults than forecast (over-prediction, the premium) and how many more.
     pub note: Option<String>,
+    /// The same as counts: rejecting tests with fewer defaults than forecast, and with more.
+    pub over_predicting: Option<u64>,
+    pub under_predicting: Option<u64>,
+}
+
+impl VerdictRow {
+    /// Whether every rejection of the family says the PD is too high (the lower-tail families,
+    /// or a two-sided family whose rejections all over-predict): the premium, not a shortfall.
+    pub fn only_over_prediction(&self) -> bool {
+        self.family.ends_with("lower tail") || (self.against > 0 && self.under_predicting == Some(0))
+    }
 }
 
 fn status(tests: usize, against: u64, strongly: u64) -> Status {
@@ -62,21 +73,25 @@ fn verdict(family: &'static str, reading: &'static str, ps: Vec<f64>, s: &Backte
         extreme_p: ps.iter().copied().reduce(f64::min),
         status: status(ps.len(), against, strongly_against),
         note: None,
+        over_predicting: None,
+        under_predicting: None,
     }
 }
 
-/// The direction note of a two-sided family from (p-value, defaults minus forecast) per test.
-fn direction(tests: &[(f64, f64)], s: &BacktestSettings) -> Option<String> {
+/// The direction of a two-sided family from (p-value, defaults minus forecast) per test: the
+/// note and the counts of rejecting tests with fewer and with more defaults than forecast.
+fn direction(tests: &[(f64, f64)], s: &BacktestSettings) -> (Option<String>, Option<u64>, Option<u64>) {
     let rejecting: Vec<f64> = tests.iter().filter(|(p, _)| *p < s.zones.yellow).map(|t| t.1).collect();
     if rejecting.is_empty() {
-        return None;
+        return (None, Some(0), Some(0));
     }
     let over = rejecting.iter().filter(|x| **x < 0.0).count();
-    Some(format!(
-        "of the {} rejecting tests, {over} have fewer defaults than forecast (over-prediction: the premium) and {} more (under-prediction)",
-        rejecting.len(),
-        rejecting.len() - over
-    ))
+    let under = rejecting.len() - over;
+    let note = format!(
+        "of the {} rejecting tests, {over} have fewer defaults than forecast (over-prediction: the premium) and {under} more (under-prediction)",
+        rejecting.len()
+    );
+    (Some(note), Some(over as u64), Some(under as u64))
 }
 
 /// Discrimination counts against the model when the pooled AUC is not shown above 1/2 (p of
@@ -99,6 +114,8 @@ fn discrimination(out: &BacktestOutput, s: &BacktestSettings) -> VerdictRow {
         extreme_p: ps.iter().copied().reduce(f64::max),
         status: status(ps.len(), against, strongly_against),
         note: None,
+        over_predicting: None,
+        under_predicting: None,
     }
 }
 
@@ -114,8 +131,13 @@ pub fn verdict_rows(out: &BacktestOutput, s: &BacktestSettings) -> Vec<VerdictRo
     };
     let hl: Vec<(f64, f64)> =
         out.hosmer_lemeshow.iter().filter_map(|r| r.p_value.map(|p| (p, excess(&r.cohort, r.horizon_years)))).collect();
-    let sp: Vec<(f64, f64)> =
-        out.hosmer_lemeshow.iter().filter_map(|r| Some((r.spiegelhalter_p?, r.spiegelhalter_z?))).collect();
+    // Spiegelhalter's z weighs each member by 1 - 2p, so its sign is not that of d - sum p
+    // once forecasts pass 1/2: the direction is read from the defaults against the forecast.
+    let sp: Vec<(f64, f64)> = out
+        .hosmer_lemeshow
+        .iter()
+        .filter_map(|r| Some((r.spiegelhalter_p?, excess(&r.cohort, r.horizon_years))))
+        .collect();
     let mut rows = vec![
         verdict(
             "bucket binomial, upper tail",
@@ -144,7 +166,7 @@ pub fn verdict_rows(out: &BacktestOutput, s: &BacktestSettings) -> Vec<VerdictRo
         discrimination(out, s),
         verdict(
             "term structure (all cohorts, observed against expected), upper tail",
-            "more defaults over the windows observed in every cohort, complete or not, than the implied curves expect: PD too low",
+            "more defaults over the windows observed in every cohort, complete or not, than the implied curves expect: PD too low (overlapping cohorts: descriptive)",
             out.term_structure.iter().filter_map(|r| r.p_upper).collect(),
             s,
         ),
@@ -162,17 +184,18 @@ pub fn verdict_rows(out: &BacktestOutput, s: &BacktestSettings) -> Vec<VerdictRo
         ),
         verdict(
             "term structure (all cohorts, observed against expected), lower tail",
-            "fewer defaults over the observed windows than the implied curves expect: the risk premium over the term structure",
+            "fewer defaults over the observed windows than the implied curves expect: the risk premium over the term structure (overlapping cohorts: descriptive)",
             out.term_structure.iter().filter_map(|r| r.p_lower).collect(),
             s,
         ),
     ];
     for r in rows.iter_mut() {
-        match r.family {
-            "Hosmer-Lemeshow" => r.note = direction(&hl, s),
-            "Spiegelhalter" => r.note = direction(&sp, s),
-            _ => {}
-        }
+        let tests = match r.family {
+            "Hosmer-Lemeshow" => &hl,
+            "Spiegelhalter" => &sp,
+            _ => continue,
+        };
+        (r.note, r.over_predicting, r.under_predicting) = direction(tests, s);
     }
     rows
 }

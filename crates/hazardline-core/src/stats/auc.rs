@@ -142,6 +142,31 @@ pub fn auc_paired(a: &[f64], b: &[f64], defaulted: &[bool]) -> Result<PairedAuc,
     Ok(PairedAuc { a: ra, b: rb, covariance, z, p_value })
 }
 
+/// The one-sided p-value of "no power" (AUC <= 1/2) from the Mann-Whitney statistic's
+/// variance under that hypothesis, with the usual correction for ties:
+/// var(AUC) = [(N + 1) - sum(t^3 - t) / (N (N - 1))] / (12 m n) over the tie groups t of all
+/// N = m + n scores, normal approximation without continuity correction (as
+/// `scipy.stats.mannwhitneyu(method="asymptotic", use_continuity=False)`). Unlike a z on the
+/// DeLong standard error, which is estimated under the alternative, it cannot fall below what
+/// the ranks allow when the defaulters are few. None when every score is tied.
+pub fn auc_no_power_p(scores: &[f64], defaulted: &[bool]) -> Result<Option<f64>, StatsError> {
+    let a = auc_delong(scores, defaulted)?;
+    let (m, n) = (a.defaults as f64, a.survivors as f64);
+    let total = m + n;
+    let mut sorted: Vec<f64> = scores.to_vec();
+    sorted.sort_by(f64::total_cmp);
+    let mut ties = 0.0;
+    let mut i = 0;
+    while i < sorted.len() {
+        let j = i + sorted[i..].partition_point(|v| *v == sorted[i]);
+        let t = (j - i) as f64;
+        ties += t * t * t - t;
+        i = j;
+    }
+    let var = ((total + 1.0) - ties / (total * (total - 1.0))) / (12.0 * m * n);
+    Ok((var > 0.0).then(|| special::normal_upper_tail((a.auc - 0.5) / var.sqrt())))
+}
+
 /// Two AUCs from independent samples (this review's and a reference review's): z = (a - b) /
 /// sqrt(se_a^2 + se_b^2) and its two-sided normal p-value; None without a positive variance.
 /// Where the two samples share obligors the test is approximate (their covariance is ignored).
@@ -238,6 +263,21 @@ mod tests {
         assert!((z - 2.0).abs() < 1e-12);
         assert!((p - 0.045_500_263_896_358_44).abs() < 1e-10 * p, "{p}");
         assert_eq!(auc_difference_independent(0.8, 0.0, 0.7, 0.0), None);
+    }
+
+    /// Two defaulters ranked riskiest of 235 members: the p of no power cannot be near the
+    /// DeLong-based 1e-7; the Mann-Whitney null variance gives z = 0.5 / sqrt(236 / (12 * 2 *
+    /// 233)) without ties.
+    #[test]
+    fn no_power_p_uses_the_null_variance() {
+        let mut s: Vec<f64> = (0..233).map(|k| f64::from(k) / 1000.0).collect();
+        s.extend([0.9, 0.95]);
+        let d: Vec<bool> = (0..235).map(|k| k >= 233).collect();
+        let p = auc_no_power_p(&s, &d).unwrap().unwrap();
+        let z = 0.5 / (236.0f64 / (12.0 * 2.0 * 233.0)).sqrt();
+        assert!((p - special::normal_upper_tail(z)).abs() < 1e-15, "{p}");
+        assert!(p > 1e-5);
+        assert_eq!(auc_no_power_p(&[0.1, 0.1, 0.1], &[true, false, false]).unwrap(), None);
     }
 
     #[test]

@@ -19,7 +19,8 @@ pub mod vasicek;
 pub mod zone;
 
 pub use auc::{
-    area_under, auc_delong, auc_difference_independent, auc_paired, ranking_curves, Auc, PairedAuc, RankingCurves,
+    area_under, auc_delong, auc_difference_independent, auc_no_power_p, auc_paired, ranking_curves, Auc, PairedAuc,
+    RankingCurves,
 };
 pub use binomial::{
     binomial_lower_tail, binomial_upper_tail, clopper_pearson, jeffreys_interval, jeffreys_p_value, wilson_interval,

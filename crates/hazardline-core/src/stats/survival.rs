@@ -6,10 +6,14 @@
 //! whose time is >= t_i: a subject censored at t_i counts as at risk at t_i, the usual
 //! convention), S(t) = prod over t_i <= t of (1 - d_i / n_i), and
 //! Var S(t) = S(t)^2 sum over t_i <= t of d_i / (n_i (n_i - d_i)).
-//! The pointwise interval on S uses the log transform of S: exp(ln S -/+ z se / S) clipped to
-//! [0, 1] (the transform statsmodels' `SurvfuncRight.quantile_ci(method="log")` inverts;
-//! tests/reference/backtest_scipy.py writes it as `lo_log` / `hi_log` and checks it against
-//! that method, and tests/all/backtest_reference.rs compares this module with it).
+//! The pointwise interval on S uses the log-log (complementary log-log) transform:
+//! g(S) = ln(-ln S), so lo = S^exp(w) and hi = S^exp(-w) with w = z se / (S |ln S|). It stays
+//! inside (0, 1) without clipping (the log transform's upper end passes 1 and is cut there,
+//! which puts a rate's lower end at 0 even after defaults), and it is the transform
+//! statsmodels' `SurvfuncRight.quantile_ci` uses by default; tests/reference/backtest_scipy.py
+//! writes it as `lo` / `hi` and checks it against that method, and
+//! tests/all/backtest_reference.rs compares this module with it. Where S = 1 (no event yet) or
+//! S = 0 the transform is undefined and the interval is the point.
 
 use super::{special, Interval, StatsError};
 
@@ -45,16 +49,17 @@ impl SurvivalCurve {
         }
     }
 
-    /// The interval on S(t) at the two-sided `level` (log transform, see the module notes);
-    /// the point itself when its standard error is 0 (before the first event, or at S = 0).
+    /// The interval on S(t) at the two-sided `level` (log-log transform, see the module
+    /// notes); the point itself where the transform is undefined (S = 1 or S = 0, or a
+    /// standard error of 0).
     pub fn interval(&self, t: f64, level: f64) -> Result<Interval, StatsError> {
         let z = special::normal_quantile(1.0 - super::half_alpha(level)?)?;
         let (s, se) = self.at(t);
-        if se == 0.0 || s == 0.0 {
+        if se == 0.0 || s <= 0.0 || s >= 1.0 {
             return Ok(Interval { lo: s, hi: s });
         }
-        let h = z * se / s;
-        Ok(Interval { lo: (s.ln() - h).exp().clamp(0.0, 1.0), hi: (s.ln() + h).exp().clamp(0.0, 1.0) })
+        let w = z * se / (s * s.ln().abs());
+        Ok(Interval { lo: s.powf(w.exp()), hi: s.powf((-w).exp()) })
     }
 }
 

@@ -20,8 +20,9 @@ use std::sync::OnceLock;
 /// The asset correlation of the supervisory formula for corporate exposures, from the
 /// one-year PD: rho = 0.12 w + 0.24 (1 - w), w = (1 - e^(-50 PD)) / (1 - e^(-50)).
 /// Source: Basel Committee on Banking Supervision, "International Convergence of Capital
-/// Measurement and Capital Standards" (June 2006), paragraph 272 (formula recalled from
-/// memory; its end points 0.24 at PD = 0 and 0.12 for large PD are checked in a test).
+/// Measurement and Capital Standards" (June 2006), paragraph 272, and the same formula in the
+/// EU Capital Requirements Regulation 575/2013, Article 153; its end points 0.24 at PD = 0
+/// and 0.12 for large PD are checked in a test.
 pub fn supervisory_corporate_correlation(pd_one_year: f64) -> f64 {
     let w = (-(-50.0 * pd_one_year).exp_m1()) / (-(-50.0f64).exp_m1());
     0.12 * w + 0.24 * (1.0 - w)
