@@ -12,7 +12,7 @@ use crate::error::{Error, Result};
 use crate::ingest::{InputPaths, QualitySettings};
 use crate::instruments::bond::RecoveryConvention;
 use crate::instruments::AccrualIntegration;
-use crate::stability::CusumLevel;
+use crate::stability::{CusumLevel, CusumTarget};
 use crate::time::{parse_iso_date, Calendar};
 use chrono::NaiveDate;
 use serde::{Deserialize, Serialize};
@@ -322,6 +322,9 @@ pub struct StabilitySection {
     pub cusum_series: Option<Vec<String>>,
     /// `10%`, `5%` (default) or `1%`.
     pub cusum_level: Option<CusumLevel>,
+    /// `auto` (default: levels or daily changes by the Dickey-Fuller test), `levels` or
+    /// `daily_changes`.
+    pub cusum_target: Option<CusumTarget>,
     pub cusum_min_obs: Option<usize>,
     /// Residual flag thresholds in bp by method, e.g. `{ cir = 10.0, bond_fit = 10.0 }`.
     pub residual_flag_bp: Option<BTreeMap<String, f64>>,
@@ -580,6 +583,9 @@ fn stability_settings(k: &StabilitySection, path: &Path) -> Result<crate::stabil
     }
     if let Some(l) = k.cusum_level {
         s.cusum_level = l;
+    }
+    if let Some(t) = k.cusum_target {
+        s.cusum_target = t;
     }
     if let Some(n) = k.cusum_min_obs {
         s.cusum_min_obs = n.max(3);

@@ -234,7 +234,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     let w = &mut md;
     let _ = writeln!(w, "# Validation review: {} ({})\n", m.name, m.label);
     let _ = writeln!(w, "> **Caution.** {CAUTION}\n");
-    let _ = writeln!(w, "Produced by hazardline {} from pipeline file `{}` (SHA-256 `{}`). Inputs and their hashes are listed in `manifest.json`.\n", m.version, cell_text(&m.pipeline.path), cell_text(&m.pipeline.sha256));
+    let _ = writeln!(w, "Produced by hazardline {} (source revision `{}`) from pipeline file `{}` (SHA-256 `{}`). Inputs and their hashes are listed in `manifest.json`.\n", m.version, cell_text(&m.source_revision), cell_text(&m.pipeline.path), cell_text(&m.pipeline.sha256));
 
     // 1. Summary
     let _ = writeln!(w, "## 1. Summary\n");
@@ -541,7 +541,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         &chosen,
     )?;
 
-    super::sections::stability_section(w, &t, &charts_dir, &mut figure, 4)?;
+    super::sections::stability_section(w, &t, &charts_dir, &mut figure, 4, &settings.stability_settings)?;
     let base_recovery = settings.recovery;
     let backtest_enabled = settings.backtest_enabled(&manifest_path)?;
     super::sections::backtest_section(

@@ -469,6 +469,7 @@ pub fn stability_section(
     charts_dir: &Path,
     figure: &mut usize,
     number: usize,
+    stability: &[(String, String)],
 ) -> Result<()> {
     let _ = writeln!(w, "## {number}. Parameter stability\n");
     let path = tables.join("stability.parquet");
@@ -619,27 +620,45 @@ pub fn stability_section(
     // Breaks.
     let kpath = tables.join("stability_breaks.parquet");
     let kdf = read_frame(&kpath)?;
-    let (ke, ks, kw, kst, kc) = (
+    let (ke, ks, kw, kst, kt, kp, kb) = (
         strs(&kdf, &kpath, "entity")?,
         strs(&kdf, &kpath, "series")?,
         strs(&kdf, &kpath, "window")?,
         strs(&kdf, &kpath, "status")?,
-        dates(&kdf, &kpath, "crossed_at")?,
+        strs(&kdf, &kpath, "target")?,
+        floats(&kdf, &kpath, "p_value")?,
+        dates(&kdf, &kpath, "break_date")?,
     );
-    let tested = kst.iter().filter(|s| s.as_deref() == Some("tested")).count();
+    let tested: Vec<usize> = (0..kdf.height()).filter(|&i| kst[i].as_deref() == Some("tested")).collect();
     let short = kst.iter().filter(|s| s.as_deref() == Some("too_short")).count();
-    let crossed: Vec<usize> = (0..kdf.height()).filter(|&i| kc[i].is_some()).collect();
-    let _ = writeln!(w, "Structural breaks: {tested} CUSUM tests (Brown, Durbin and Evans, 1975) on entity-period windows; {} crossed the boundary{}. {short} windows had too few values to test: a series that is a step function (kappa and sigma in the CIR fit's `fixed_kappa_sigma` mode, one estimate per window of curve dates) is tested on its steps, one value per window, not date by date.\n", crossed.len(), if crossed.is_empty() { "" } else { " (first crossings below, all in `tables/stability_breaks.parquet`)" });
-    if !crossed.is_empty() {
-        let _ = writeln!(w, "| entity | series | window | first crossing |\n| --- | --- | --- | --- |");
-        for &i in crossed.iter().take(15) {
+    let on_changes = tested.iter().filter(|&&i| kt[i].as_deref() == Some("daily_changes")).count();
+    let level = stability.iter().find(|(k, _)| k == "cusum_level").map(|(_, v)| v.split(' ').next().unwrap_or("5%").to_string()).unwrap_or_else(|| "5%".into());
+    let alpha: f64 = level.trim_end_matches('%').parse::<f64>().map(|v| v / 100.0).unwrap_or(0.05);
+    let mut rejected: Vec<usize> = tested.iter().copied().filter(|&i| kp[i].is_some_and(|p| p < alpha)).collect();
+    rejected.sort_by(|&a, &b| kp[a].unwrap_or(1.0).total_cmp(&kp[b].unwrap_or(1.0)));
+    let red = rejected.iter().filter(|&&i| kp[i].is_some_and(|p| p < 0.01)).count();
+    let _ = writeln!(
+        w,
+        "Structural breaks: {} tests of a constant mean on entity-period windows (the CUSUM of deviations from the mean scaled by the series' long-run standard deviation, so that a persistent series is not read as a break; see the method notes). {} of them ran on daily changes because the Dickey-Fuller test could not reject a random walk in the levels. {} rejected at {level} ({red} at 1%), against {:.1} expected by chance if no series had a break{}. {short} windows had too few values to test: a series that is a step function (kappa and sigma in the CIR fit's `fixed_kappa_sigma` mode, one estimate per window of curve dates) is tested on its steps, one value per window, not date by date.\n",
+        tested.len(),
+        on_changes,
+        rejected.len(),
+        alpha * tested.len() as f64,
+        if rejected.is_empty() { "" } else { " (the smallest p-values below, all in `tables/stability_breaks.parquet`)" }
+    );
+    if !rejected.is_empty() {
+        let _ = writeln!(w, "| entity | series | window | tested on | p-value | estimated break |\n| --- | --- | --- | --- | ---: | --- |");
+        for &i in rejected.iter().take(15) {
+            let p = kp[i].unwrap_or(f64::NAN);
             let _ = writeln!(
                 w,
-                "| {} | {} | {} | {} |",
+                "| {} | {} | {} | {} | {} | {} |",
                 super::markdown::cell_text(ke[i].as_deref().unwrap_or("")),
                 super::markdown::cell_text(ks[i].as_deref().unwrap_or("")),
                 kw[i].as_deref().unwrap_or(""),
-                kc[i].map(|d| d.to_string()).unwrap_or_default()
+                if kt[i].as_deref() == Some("daily_changes") { "daily changes" } else { "levels" },
+                if p < 1e-3 { format!("{p:.2e}") } else { format!("{p:.4}") },
+                kb[i].map(|d| d.to_string()).unwrap_or_default()
             );
         }
         let _ = writeln!(w);

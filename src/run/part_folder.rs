@@ -21,6 +21,9 @@ use std::path::{Path, PathBuf};
 pub struct PartitionMeta {
     pub tool: String,
     pub version: String,
+    /// The source revision of the build that made the part ([`crate::SOURCE_REVISION`]).
+    #[serde(default)]
+    pub source_revision: String,
     /// SHA-256 of the pipeline file the shard ran.
     pub pipeline_sha256: String,
     pub shard: u32,
@@ -192,6 +195,7 @@ pub fn write_partition(
     let meta = PartitionMeta {
         tool: "hazardline".into(),
         version: env!("CARGO_PKG_VERSION").into(),
+        source_revision: crate::SOURCE_REVISION.into(),
         pipeline_sha256: pipeline_sha256.to_string(),
         shard: shard.index,
         shards: shard.count,

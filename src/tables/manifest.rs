@@ -15,6 +15,9 @@ use std::path::Path;
 pub struct Manifest {
     pub tool: String,
     pub version: String,
+    /// The source revision of the build ([`crate::SOURCE_REVISION`]).
+    #[serde(default = "unknown_revision")]
+    pub source_revision: String,
     pub pipeline: FileRecord,
     pub name: String,
     pub label: String,
@@ -26,6 +29,10 @@ pub struct Manifest {
     pub settings: serde_json::Value,
     /// Tables written, relative to the run folder.
     pub tables: Vec<String>,
+}
+
+fn unknown_revision() -> String {
+    "unknown".into()
 }
 
 impl Manifest {

@@ -273,12 +273,22 @@ impl Table for BreakRow {
         col("target", Text),
         col("n", Int),
         col("status", Text),
-        col("sigma", Float),
-        col("max_ratio", Float),
-        col("crossed_at", Date),
-        col("crossed_at_1pct", Date),
-        col("ols_statistic", Float),
+        col("adf_t", Float),
+        col("adf_critical", Float),
+        col("changes_r1", Float),
+        col("lags", Int),
+        col("long_run_sd", Float),
+        col("statistic", Float),
+        col("p_value", Float),
+        col("break_date", Date),
     ];
+
+    fn metadata() -> Vec<(String, String)> {
+        vec![(
+            "hazardline.method".into(),
+            "statistic = sup_k |sum_{t<=k} (y_t - mean y)| / (long_run_sd sqrt T) on the tested values y (levels, or daily changes where the augmented Dickey-Fuller t-statistic adf_t is not below adf_critical and the changes' lag-1 autocorrelation changes_r1 is above -0.25); long_run_sd: Newey-West with Bartlett weights and lags; p_value: Kolmogorov tail; break_date: the last value before the estimated break".into(),
+        )]
+    }
 
     fn frame(k: &[Self]) -> Result<DataFrame> {
         TableBuilder::new()
@@ -288,11 +298,14 @@ impl Table for BreakRow {
             .strings("target", k.iter().map(|r| Some(r.target)))
             .ints("n", k.iter().map(|r| Some(r.n as i64)))
             .strings("status", k.iter().map(|r| Some(r.status.as_str())))
-            .floats("sigma", k.iter().map(|r| r.sigma))
-            .floats("max_ratio", k.iter().map(|r| r.max_ratio))
-            .dates("crossed_at", k.iter().map(|r| r.crossed_at))
-            .dates("crossed_at_1pct", k.iter().map(|r| r.crossed_at_1pct))
-            .floats("ols_statistic", k.iter().map(|r| r.ols_statistic))
+            .floats("adf_t", k.iter().map(|r| r.adf_t))
+            .floats("adf_critical", k.iter().map(|r| r.adf_critical))
+            .floats("changes_r1", k.iter().map(|r| r.changes_r1))
+            .ints("lags", k.iter().map(|r| r.lags))
+            .floats("long_run_sd", k.iter().map(|r| r.long_run_sd))
+            .floats("statistic", k.iter().map(|r| r.statistic))
+            .floats("p_value", k.iter().map(|r| r.p_value))
+            .dates("break_date", k.iter().map(|r| r.break_date))
             .finish()
     }
 
@@ -305,12 +318,15 @@ impl Table for BreakRow {
             ints(df, path, "n")?,
             strs(df, path, "status")?,
         );
-        let (sg, mr, ca, c1, ols) = (
-            floats(df, path, "sigma")?,
-            floats(df, path, "max_ratio")?,
-            dates(df, path, "crossed_at")?,
-            dates(df, path, "crossed_at_1pct")?,
-            floats(df, path, "ols_statistic")?,
+        let (at, ac, r1, lg, lr, stat, pv, bd) = (
+            floats(df, path, "adf_t")?,
+            floats(df, path, "adf_critical")?,
+            floats(df, path, "changes_r1")?,
+            ints(df, path, "lags")?,
+            floats(df, path, "long_run_sd")?,
+            floats(df, path, "statistic")?,
+            floats(df, path, "p_value")?,
+            dates(df, path, "break_date")?,
         );
         (0..df.height())
             .map(|i| {
@@ -322,11 +338,14 @@ impl Table for BreakRow {
                     target: intern(t[i].as_deref().unwrap_or("")),
                     n: count(n[i]),
                     status: text_form(Some(status), "status", path, i)?,
-                    sigma: sg[i],
-                    max_ratio: mr[i],
-                    crossed_at: ca[i],
-                    crossed_at_1pct: c1[i],
-                    ols_statistic: ols[i],
+                    adf_t: at[i],
+                    adf_critical: ac[i],
+                    changes_r1: r1[i],
+                    lags: lg[i],
+                    long_run_sd: lr[i],
+                    statistic: stat[i],
+                    p_value: pv[i],
+                    break_date: bd[i],
                 })
             })
             .collect()
@@ -646,11 +665,14 @@ mod tests {
             target: "levels",
             n: 61,
             status: BreakStatus::Tested,
-            sigma: Some(0.1),
-            max_ratio: Some(1.4),
-            crossed_at: Some(day()),
-            crossed_at_1pct: None,
-            ols_statistic: Some(1.9),
+            adf_t: Some(-4.1),
+            adf_critical: Some(-2.91),
+            changes_r1: Some(-0.48),
+            lags: Some(3),
+            long_run_sd: Some(0.02),
+            statistic: Some(1.9),
+            p_value: Some(0.0015),
+            break_date: Some(day()),
         }];
         assert_eq!(round_trip(&rows), rows);
         refuses_a_missing_column(&rows);

@@ -3,7 +3,7 @@
 //! the bundled report kept up to date, config errors with exact messages, and the tables read
 //! by pyarrow (an independent Parquet reader from PyPI).
 
-use super::support::{files, repo};
+use super::support::{files, repo, without_revision};
 use assert_cmd::Command;
 use hazardline::config::load_pipeline;
 use hazardline::run::{run, RunOptions, TABLES};
@@ -121,8 +121,10 @@ fn bundled_demo_report_is_up_to_date() {
         "bundled report has other files than a fresh run; rerun the demo pipeline"
     );
     for (k, v) in &b {
+        // The source revision differs by construction (the example is written by the build of
+        // the commit before the one that holds it); everything else must be equal.
         assert!(
-            a[k] == *v,
+            without_revision(&a[k]) == without_revision(v),
             "validation-reports/demo/2015-2019/{k} is out of date; rerun `hazardline run pipelines/demo.toml`"
         );
     }

@@ -248,3 +248,71 @@ fn stats_statrs_beta_quantile_is_too_coarse_at_large_n() {
     assert!(rel_err(statrs_value, want) > 1e-6, "statrs {statrs_value} vs scipy {want}");
     assert!(rel_err(clopper_pearson(3, 100_000, 0.95).unwrap().lo, want) < REL);
 }
+
+fn stability_reference() -> Value {
+    let path = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/stability_statsmodels.json");
+    serde_json::from_str(&std::fs::read_to_string(path).expect("reference file")).expect("valid JSON")
+}
+
+fn floats(v: &Value) -> Vec<f64> {
+    v.as_array().expect("array").iter().map(num).collect()
+}
+
+/// The break test's pieces against statsmodels and scipy (tests/reference/stability_statsmodels.py):
+/// the Newey-West long-run variance (statsmodels OLS on a constant with HAC, Bartlett
+/// weights, no small-sample correction), the CUSUM statistic and its Kolmogorov p-value
+/// (scipy.stats.kstwobign.sf), the augmented Dickey-Fuller t-statistic, its rows and its 5%
+/// critical value (statsmodels adfuller, MacKinnon 2010), to 1e-9 relative.
+#[test]
+fn break_test_against_statsmodels() {
+    use hazardline::stability::cusum::{
+        adf_critical_5, adf_lags, adf_t, andrews_bandwidth, changes_autocorrelation, long_run_variance, robust_cusum,
+    };
+    let doc = stability_reference();
+    let mut checked = 0;
+    for case in doc["series"].as_array().unwrap() {
+        let name = case["name"].as_str().unwrap();
+        let x = floats(&case["x"]);
+        let lags = andrews_bandwidth(&x);
+        assert_eq!(lags as u64, int(&case["lags"]), "{name}: bandwidth");
+        let lrv = long_run_variance(&x, lags);
+        assert!(rel_err(lrv, num(&case["long_run_variance"])) < REL, "{name}: lrv {lrv}");
+        let r = robust_cusum(&x).unwrap();
+        assert!(rel_err(r.statistic, num(&case["statistic"])) < REL, "{name}: statistic {}", r.statistic);
+        assert!(rel_err(r.p_value, num(&case["p_value"])) < REL, "{name}: p {}", r.p_value);
+        assert_eq!(r.argmax as u64, int(&case["argmax"]), "{name}: argmax");
+        let p = adf_lags(x.len());
+        assert_eq!(p as u64, int(&case["adf_lags"]), "{name}: adf lags");
+        let (t, rows) = adf_t(&x, p).unwrap();
+        assert_eq!(rows as u64, int(&case["adf_nobs"]), "{name}: adf rows");
+        assert!(rel_err(t, num(&case["adf_t"])) < REL, "{name}: adf t {t}");
+        assert!(rel_err(adf_critical_5(rows), num(&case["adf_critical_5"])) < REL, "{name}: adf critical");
+        let r1 = changes_autocorrelation(&x).unwrap();
+        assert!(rel_err(r1, num(&case["changes_r1"])) < REL, "{name}: changes r1 {r1}");
+        checked += 1;
+    }
+    assert_eq!(checked, 4);
+}
+
+/// The fit-identification summary against statsmodels OLS (standard errors) and numpy's
+/// condition number of the column-scaled design, to 1e-9 relative (1e-6 for the collinear
+/// case's condition number, where the last digits depend on the eigen-solver).
+#[test]
+fn identification_against_statsmodels() {
+    use hazardline::math::identification::identification;
+    let doc = stability_reference();
+    for case in doc["identification"].as_array().unwrap() {
+        let name = case["name"].as_str().unwrap();
+        let rows: Vec<Vec<f64>> = case["jacobian"].as_array().unwrap().iter().map(floats).collect();
+        let n = rows[0].len();
+        let jac: Vec<f64> = rows.concat();
+        let r = floats(&case["residuals"]);
+        let id = identification(&jac, &r, n).unwrap();
+        let tol = if name == "collinear" { 1e-6 } else { REL };
+        assert!(rel_err(id.condition_number, num(&case["condition_number"])) < tol, "{name}: {}", id.condition_number);
+        for (got, want) in id.standard_errors.iter().zip(floats(&case["standard_errors"])) {
+            let got = got.expect("standard error");
+            assert!(rel_err(got, want) < REL, "{name}: se {got} against {want}");
+        }
+    }
+}

@@ -74,3 +74,31 @@ pub fn usd_like_curve(trade: NaiveDate) -> DiscountCurve {
     .collect();
     DiscountCurve::from_zero_rates(trade, &pillars).unwrap()
 }
+
+/// `bytes` with the build's source revision (printed by the manifest and the report after
+/// `source revision ` and `"source_revision": "`) replaced by `REVISION`: a committed example
+/// was written by the build of an earlier commit, and is otherwise compared byte for byte.
+pub fn without_revision(bytes: &[u8]) -> Vec<u8> {
+    let Ok(text) = std::str::from_utf8(bytes) else { return bytes.to_vec() };
+    let mut out = String::with_capacity(text.len());
+    let mut rest = text;
+    let prefixes = ["source revision `", "source revision <code>", "\"source_revision\": \""];
+    while let Some((at, p)) = prefixes.iter().filter_map(|p| rest.find(p).map(|i| (i, *p))).min() {
+        out.push_str(&rest[..at + p.len()]);
+        rest = &rest[at + p.len()..];
+        let end = rest.find(|c: char| !(c.is_ascii_alphanumeric() || c == '-')).unwrap_or(rest.len());
+        out.push_str("REVISION");
+        rest = &rest[end..];
+    }
+    out.push_str(rest);
+    out.into_bytes()
+}
+
+#[test]
+fn revisions_are_normalised() {
+    let text = "by hazardline 0.1.0 (source revision `0123abcd-modified`) x \"source_revision\": \"unknown\",\n";
+    assert_eq!(
+        String::from_utf8(without_revision(text.as_bytes())).unwrap(),
+        "by hazardline 0.1.0 (source revision `REVISION`) x \"source_revision\": \"REVISION\",\n"
+    );
+}

@@ -4,6 +4,7 @@
 
 pub mod dual;
 pub mod grad;
+pub mod identification;
 pub mod least_squares;
 pub mod root;
 

@@ -1,7 +1,7 @@
-//! The Brown-Durbin-Evans CUSUM test (see [`super::cusum`]) run on each entity's history of
-//! each series, per review period or over the whole history.
+//! The structural-break test (see [`super::cusum`]) run on each entity's history of each
+//! series, per review period or over the whole history.
 
-use super::cusum::{bde_cusum, ols_cusum_statistic, CusumScope, CusumTarget, BDE_A_1};
+use super::cusum::{adf_critical_5, adf_lags, adf_t, changes_autocorrelation, robust_cusum, CusumScope, CusumTarget};
 use super::inputs::{daily_moves, Panel, Point};
 use super::settings::StabilitySettings;
 use super::StabilityError;
@@ -20,7 +20,7 @@ pub enum BreakStatus {
 }
 crate::text_form!(BreakStatus { Tested => "tested", TooShort => "too_short", Constant => "constant" });
 
-/// One CUSUM test: one entity, one series, one window.
+/// One break test: one entity, one series, one window.
 #[derive(Debug, Clone, PartialEq)]
 pub struct BreakRow {
     /// Entity identifier.
@@ -29,22 +29,28 @@ pub struct BreakRow {
     pub series: String,
     /// The window: a period label, or `history`.
     pub window: String,
-    /// `levels` or `daily_changes`.
+    /// What was tested: `levels` or `daily_changes`.
     pub target: &'static str,
-    /// Values tested (T).
+    /// Values in the window (T, before differencing).
     pub n: usize,
     /// Whether the test ran.
     pub status: BreakStatus,
-    /// sigma of the recursive residuals.
-    pub sigma: Option<f64>,
-    /// max_r |W_r| / boundary_r at the chosen level (above 1: crossed).
-    pub max_ratio: Option<f64>,
-    /// First date |W_r| crosses the chosen level's boundary.
-    pub crossed_at: Option<NaiveDate>,
-    /// First date |W_r| crosses the 1% boundary (a = 1.143).
-    pub crossed_at_1pct: Option<NaiveDate>,
-    /// Ploberger-Kramer OLS-residual CUSUM statistic (5% critical value 1.358), for reference.
-    pub ols_statistic: Option<f64>,
+    /// Dickey-Fuller t-statistic of the levels (in the `auto` form).
+    pub adf_t: Option<f64>,
+    /// Its 5% critical value for the regression's rows.
+    pub adf_critical: Option<f64>,
+    /// First-order autocorrelation of the window's changes (in the `auto` form).
+    pub changes_r1: Option<f64>,
+    /// Bartlett bandwidth of the long-run variance.
+    pub lags: Option<i64>,
+    /// Long-run standard deviation of the tested values.
+    pub long_run_sd: Option<f64>,
+    /// sup |partial sum of deviations| / (long-run sd sqrt T).
+    pub statistic: Option<f64>,
+    /// Kolmogorov tail probability of the statistic.
+    pub p_value: Option<f64>,
+    /// Date of the last value before the estimated break (where the partial sum peaks).
+    pub break_date: Option<NaiveDate>,
 }
 
 /// The values the test sees, in the form the fit produced them. A step function (runs of
@@ -54,7 +60,7 @@ pub struct BreakRow {
 /// function with more than one level, which says nothing about the model.
 fn series_of(points: &[Point], settings: &StabilitySettings) -> Vec<(NaiveDate, f64)> {
     match settings.cusum_target {
-        CusumTarget::Levels => steps(points.iter().map(|p| (p.date, p.value))),
+        CusumTarget::Levels | CusumTarget::Auto => steps(points.iter().map(|p| (p.date, p.value))),
         CusumTarget::DailyChanges => {
             let moves = daily_moves(points, settings.max_gap_days);
             let stepped = moves.iter().any(|m| m.value.to_bits() == m.previous.to_bits());
@@ -105,27 +111,53 @@ fn test_window(
         entity: entity.to_string(),
         series: series.to_string(),
         window,
-        target: settings.cusum_target.as_str(),
+        target: match settings.cusum_target {
+            CusumTarget::DailyChanges => "daily_changes",
+            _ => "levels",
+        },
         n: x.len(),
         status: BreakStatus::TooShort,
-        sigma: None,
-        max_ratio: None,
-        crossed_at: None,
-        crossed_at_1pct: None,
-        ols_statistic: None,
+        adf_t: None,
+        adf_critical: None,
+        changes_r1: None,
+        lags: None,
+        long_run_sd: None,
+        statistic: None,
+        p_value: None,
+        break_date: None,
     };
     if x.len() < settings.cusum_min_obs {
         return row;
     }
-    match bde_cusum(&x) {
-        Ok(path) => {
-            let a = settings.cusum_level.a();
+    if x.iter().all(|v| v.to_bits() == x[0].to_bits()) {
+        row.status = BreakStatus::Constant;
+        return row;
+    }
+    // In the auto form a series whose unit root the Dickey-Fuller test cannot reject and
+    // whose changes are not over-differenced is tested on its changes (dated at the later
+    // value); see the module notes of `cusum`.
+    let mut tested: Vec<(NaiveDate, f64)> = data.to_vec();
+    if settings.cusum_target == CusumTarget::Auto {
+        row.changes_r1 = changes_autocorrelation(&x);
+        if let Some((t, rows)) = adf_t(&x, adf_lags(x.len())) {
+            let crit = adf_critical_5(rows);
+            row.adf_t = Some(t);
+            row.adf_critical = Some(crit);
+            if !(t < crit) && row.changes_r1.is_some_and(|r| r > -0.25) {
+                row.target = "daily_changes";
+                tested = data.windows(2).map(|w| (w[1].0, w[1].1 - w[0].1)).collect();
+            }
+        }
+    }
+    let y: Vec<f64> = tested.iter().map(|d| d.1).collect();
+    match robust_cusum(&y) {
+        Ok(r) => {
             row.status = BreakStatus::Tested;
-            row.sigma = Some(path.sigma);
-            row.max_ratio = Some(path.max_ratio(a));
-            row.crossed_at = path.first_crossing(a).map(|i| data[i].0);
-            row.crossed_at_1pct = path.first_crossing(BDE_A_1).map(|i| data[i].0);
-            row.ols_statistic = ols_cusum_statistic(&x).ok();
+            row.lags = Some(r.lags as i64);
+            row.long_run_sd = Some(r.long_run_sd);
+            row.statistic = Some(r.statistic);
+            row.p_value = Some(r.p_value);
+            row.break_date = Some(tested[r.argmax].0);
         }
         Err(StabilityError::ZeroVariance) => row.status = BreakStatus::Constant,
         Err(_) => row.status = BreakStatus::TooShort,

@@ -166,20 +166,42 @@ pub fn psi_flags(rows: &[PsiRow], settings: &StabilitySettings) -> Vec<FlagRow> 
         .collect()
 }
 
-/// CUSUM flags: red when the 1% boundary is crossed, amber when only the chosen level's is.
-/// The value is max |W_r| / boundary_r and the threshold 1.
+/// Break flags: red when the test's p-value is below 1%, amber when it is below the chosen
+/// level only. The value is the statistic and the threshold the Kolmogorov critical value at
+/// the chosen level; the date is the estimated break.
 pub fn break_flags(rows: &[BreakRow], settings: &StabilitySettings) -> Vec<FlagRow> {
+    let alpha = settings.cusum_level.alpha();
     rows.iter()
         .filter_map(|r| {
-            let date = r.crossed_at?;
-            let ratio = r.max_ratio.unwrap_or(f64::NAN);
-            let severity = if r.crossed_at_1pct.is_some() { RED } else { AMBER };
+            let p = r.p_value?;
+            if !(p < alpha) {
+                return None;
+            }
+            let date = r.break_date?;
+            let statistic = r.statistic.unwrap_or(f64::NAN);
+            let severity = if p < 0.01 { RED } else { AMBER };
+            let form = if r.target == "daily_changes" { "daily changes" } else { "levels" };
             let explanation = format!(
-                "The Brown-Durbin-Evans CUSUM of {}'s {} ({}, window {}, {} values) first crossed its {} boundary on {date}, reaching {ratio:.2} times the boundary: the level is not stable.",
-                r.entity, r.series, r.target, r.window, r.n, settings.cusum_level.as_str()
+                "The mean of {}'s {} ({form}, window {}, {} values) is not constant: the CUSUM statistic {statistic:.3} with the series' long-run variance has p = {} (below {}); the partial sums peak on {date}.",
+                r.entity,
+                r.series,
+                r.window,
+                r.n,
+                if p < 1e-3 { format!("{p:.2e}") } else { format!("{p:.4}") },
+                settings.cusum_level.as_str()
             );
             let period = settings.period.of(date).label();
-            Some(FlagRow { rule: FlagRule::CusumBreak, severity, entity: Some(r.entity.clone()), series: r.series.clone(), period, date: Some(date), value: ratio, threshold: 1.0, explanation })
+            Some(FlagRow {
+                rule: FlagRule::CusumBreak,
+                severity,
+                entity: Some(r.entity.clone()),
+                series: r.series.clone(),
+                period,
+                date: Some(date),
+                value: statistic,
+                threshold: settings.cusum_level.critical_value(),
+                explanation,
+            })
         })
         .collect()
 }

@@ -98,7 +98,8 @@ pub struct StabilitySettings {
     /// walk over a quarter: the constant-mean test on their levels would reject for nearly
     /// every name, which says nothing about the model.
     pub cusum_series: Vec<String>,
-    /// What the CUSUM test runs on. Default: levels (see [`CusumTarget`] for why).
+    /// What the break test runs on. Default: auto, levels or changes by the Dickey-Fuller test
+    /// (see [`super::cusum`] for why).
     pub cusum_target: CusumTarget,
     /// The window of one CUSUM test. Default: each review period.
     pub cusum_scope: CusumScope,
@@ -142,7 +143,7 @@ impl Default for StabilitySettings {
             psi_amber: 0.10,
             psi_red: 0.25,
             cusum_series: vec!["cir_kappa".to_string(), "cir_theta".to_string(), "cir_sigma".to_string()],
-            cusum_target: CusumTarget::Levels,
+            cusum_target: CusumTarget::Auto,
             cusum_scope: CusumScope::Period,
             cusum_level: CusumLevel::Five,
             cusum_min_obs: 20,
@@ -202,14 +203,17 @@ impl StabilitySettings {
         }
         out.push(("psi_min_entities".into(), self.psi_min_entities.to_string()));
         out.push(("universe_min_entities".into(), self.universe_min_entities.to_string()));
-        out.push(("cusum_test".into(), "Brown-Durbin-Evans recursive-residual CUSUM, constant-mean model".into()));
+        out.push((
+            "cusum_test".into(),
+            "OLS-residual CUSUM with the Newey-West long-run variance (Bartlett, Andrews AR(1) bandwidth), Kolmogorov p-value; daily changes instead of levels where the augmented Dickey-Fuller test at 5% keeps a unit root and the changes' lag-1 autocorrelation is above -0.25".into(),
+        ));
         out.push((
             "cusum_series".into(),
             if self.cusum_series.is_empty() { "all".into() } else { self.cusum_series.join(",") },
         ));
         out.push(("cusum_target".into(), self.cusum_target.as_str().into()));
         out.push(("cusum_scope".into(), self.cusum_scope.as_str().into()));
-        out.push(("cusum_level".into(), format!("{} (a = {})", self.cusum_level.as_str(), self.cusum_level.a())));
+        out.push(("cusum_level".into(), format!("{} (critical value {:.4})", self.cusum_level.as_str(), self.cusum_level.critical_value())));
         out.push(("cusum_min_obs".into(), self.cusum_min_obs.to_string()));
         out.push(("reprice_tolerance_bp".into(), self.reprice_tolerance_bp.to_string()));
         out.extend(self.residual_flag_bp.iter().map(|(m, v)| (format!("residual_flag_bp[{m}]"), v.to_string())));
@@ -297,7 +301,7 @@ mod tests {
         let pairs = s.pairs();
         let get = |n: &str| pairs.iter().find(|(k, _)| k == n).map(|(_, v)| v.clone());
         assert_eq!(get("psi_red").as_deref(), Some("0.25"));
-        assert_eq!(get("cusum_level").as_deref(), Some("5% (a = 0.948)"));
+        assert_eq!(get("cusum_level").as_deref(), Some("5% (critical value 1.3581)"));
         assert_eq!(get("residual_flag_bp[cir]").as_deref(), Some("10"));
         assert_eq!(s.residual_threshold_bp("bootstrap"), 1e-6);
     }
