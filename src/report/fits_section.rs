@@ -180,6 +180,7 @@ pub(super) fn intensity_sections(
             w,
             "\nThe Feller condition 2 kappa theta >= sigma^2 holds trivially when sigma sits at its floor: {trivial} of the fits where it holds have sigma at the floor.\n"
         );
+        identification_table(w, &per);
         // RMSE through time per entity, over the universe band.
         let mut per_date: BTreeMap<NaiveDate, Vec<f64>> = BTreeMap::new();
         for p in params {
@@ -224,6 +225,56 @@ pub(super) fn intensity_sections(
     Ok(())
 }
 
+/// Identification per entity: the condition number of the day's fit and of the pooled window
+/// fit, and each parameter's standard error relative to its value, as medians, with the count
+/// of fits whose condition number is above 1e6 (a parameter the quotes hardly move).
+fn identification_table(w: &mut String, per: &BTreeMap<(&str, &str), Vec<&crate::tables::IntensityParamRow>>) {
+    const ILL: f64 = 1e6;
+    let _ = writeln!(
+        w,
+        "How well the quotes pin the parameters down (medians per entity over the fits that produced parameters): the scaled condition number of each fit's Jacobian (columns scaled to unit length; the day's free parameters, and in `fixed_kappa_sigma` mode also the pooled window fit of kappa and sigma with every pooled day's theta and lambda0) and each parameter's standard error from the Gauss-Newton covariance s^2 (J'J)^-1 divided by its value. A condition number above 1e6 means some combination of parameters moves the quotes by less than a millionth of what the others do: those parameters are not identified by the day's curve, whatever their values. Per fit in `tables/intensity_params.parquet`.\n"
+    );
+    let _ = writeln!(
+        w,
+        "| entity | currency | condition number | fits above 1e6 | window condition number | se/kappa | se/theta | se/sigma | se/lambda0 |\n| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: |"
+    );
+    let show = |v: Vec<f64>| -> String {
+        let mut v: Vec<f64> = v.into_iter().filter(|x| !x.is_nan()).collect();
+        if v.is_empty() {
+            return "-".into();
+        }
+        let m = median(&mut v);
+        if m.is_infinite() {
+            "inf".into()
+        } else if m >= 1e4 || m < 1e-3 {
+            format!("{m:.2e}")
+        } else {
+            format!("{m:.3}")
+        }
+    };
+    for ((e, c), v) in per {
+        let rel = |se: fn(&crate::tables::IntensityParamRow) -> Option<f64>,
+                   val: fn(&crate::tables::IntensityParamRow) -> Option<f64>|
+         -> Vec<f64> { v.iter().filter_map(|p| Some(se(p)? / val(p)?.abs())).collect() };
+        let cond: Vec<f64> = v.iter().filter_map(|p| p.condition_number).collect();
+        let ill = cond.iter().filter(|&&c| !(c <= ILL)).count();
+        let _ = writeln!(
+            w,
+            "| {} | {} | {} | {ill} of {} | {} | {} | {} | {} | {} |",
+            super::markdown::cell_text(e),
+            super::markdown::cell_text(c),
+            show(cond.clone()),
+            cond.len(),
+            show(v.iter().filter_map(|p| p.window_condition_number).collect()),
+            show(rel(|p| p.se_kappa, |p| p.kappa)),
+            show(rel(|p| p.se_theta, |p| p.theta)),
+            show(rel(|p| p.se_sigma, |p| p.sigma)),
+            show(rel(|p| p.se_lambda0, |p| p.lambda0)),
+        );
+    }
+    let _ = writeln!(w);
+}
+
 #[cfg(test)]
 mod tests {
     use super::params_at_bounds;
@@ -245,6 +296,12 @@ mod tests {
             iterations: 5,
             evaluations: 9,
             detail: None,
+            condition_number: Some(12.0),
+            window_condition_number: Some(40.0),
+            se_kappa: Some(0.01),
+            se_theta: Some(0.001),
+            se_sigma: Some(0.002),
+            se_lambda0: Some(0.0005),
         }
     }
 

@@ -1,4 +1,4 @@
-//! `report.html`: the report's Markdown as one self-contained HTML page, with every figure inlined
+//! The report's Markdown as one self-contained HTML page, with every figure inlined
 //! as SVG, a table of contents, and embedded screen and print styles (no scripts, fonts or other
 //! files). Handles the Markdown the report writer produces (ATX headings, paragraphs, a
 //! blockquote, bullet lists, pipe tables, figures on their own line followed by an italic caption,
@@ -531,28 +531,52 @@ impl Page<'_> {
     }
 }
 
+/// Body cells longer than this (in characters of Markdown) make their column wrap; the cells
+/// of other columns stay on one line, and the table scrolls in its wrapper when that makes it
+/// wider than the page.
+const LONG_CELL: usize = 40;
+
 /// A table in a scrolling wrapper; rows with more cells than the header widen it (the header
 /// is padded) rather than lose cells, rows with fewer are padded.
 fn table_html(t: &Table) -> String {
     let columns = t.rows.iter().map(Vec::len).chain([t.head.len()]).max().unwrap_or(0);
+    let mut head_classes = Vec::with_capacity(columns);
+    let mut body_classes = Vec::with_capacity(columns);
+    for k in 0..columns {
+        let align = match t.aligns.get(k) {
+            Some(Align::Right) => "right",
+            Some(Align::Center) => "center",
+            Some(Align::Left) | None => "",
+        };
+        let long = t.rows.iter().any(|r| r.get(k).is_some_and(|c| c.chars().count() > LONG_CELL));
+        let wrap = if long && align != "right" { "wrap" } else { "" };
+        head_classes.push(class_attr(&[align]));
+        body_classes.push(class_attr(&[align, wrap]));
+    }
     let mut s = String::from("<div class=\"table-wrap\">\n<table>\n<thead>\n");
-    row_html(&mut s, "th", &t.head, &t.aligns, columns);
+    row_html(&mut s, "th", &t.head, &head_classes);
     s.push_str("</thead>\n<tbody>\n");
     for row in &t.rows {
-        row_html(&mut s, "td", row, &t.aligns, columns);
+        row_html(&mut s, "td", row, &body_classes);
     }
     s.push_str("</tbody>\n</table>\n</div>\n");
     s
 }
 
-fn row_html(s: &mut String, tag: &str, cells: &[String], aligns: &[Align], columns: usize) {
+/// ` class="a b"` from the non-empty names, or nothing.
+fn class_attr(names: &[&str]) -> String {
+    let names: Vec<&str> = names.iter().copied().filter(|n| !n.is_empty()).collect();
+    if names.is_empty() {
+        String::new()
+    } else {
+        format!(" class=\"{}\"", names.join(" "))
+    }
+}
+
+/// One row, a cell per column (`classes` has one entry per column).
+fn row_html(s: &mut String, tag: &str, cells: &[String], classes: &[String]) {
     s.push_str("<tr>");
-    for k in 0..columns {
-        let class = match aligns.get(k) {
-            Some(Align::Right) => " class=\"right\"",
-            Some(Align::Center) => " class=\"center\"",
-            Some(Align::Left) | None => "",
-        };
+    for (k, class) in classes.iter().enumerate() {
         let text = cells.get(k).map(|c| inline_html(c)).unwrap_or_default();
         s.push_str(&format!("<{tag}{class}>{text}</{tag}>"));
     }
@@ -1122,10 +1146,12 @@ nav#contents a:hover { text-decoration: underline; }
 .table-wrap { max-width: 100%; overflow-x: auto; margin: 0.8em 0 1.4em; }
 table { border-collapse: collapse; font-size: 12.5px; font-variant-numeric: tabular-nums; }
 th, td { padding: 0.25em 0.6em; text-align: left; vertical-align: top; }
+td { white-space: nowrap; }
+td.wrap { white-space: normal; min-width: 18em; }
 th { vertical-align: bottom; background: #e8ecf0; border-bottom: 2px solid #9aa5b0; }
 td { border-bottom: 1px solid #e2e6ea; }
 tbody tr:nth-child(even) { background: #f5f7f9; }
-th.right, td.right { text-align: right; white-space: nowrap; }
+th.right, td.right { text-align: right; }
 th.center, td.center { text-align: center; }
 figure.chart { margin: 1.4em 0; max-width: 100%; }
 figure.chart svg { display: block; max-width: 100%; height: auto; }
@@ -1145,6 +1171,10 @@ hr { border: none; border-top: 1px solid #cfd6dd; margin: 2em 0; }
   thead { display: table-header-group; }
   .table-wrap { overflow: visible; }
   table { font-size: 7.5pt; }
+  td { white-space: normal; }
+  td.right { white-space: nowrap; }
+  th, td { padding: 0.15em 0.35em; }
+  td.wrap { min-width: 8em; }
   a, nav#contents a { color: inherit; text-decoration: none; }
   code { background: none; padding: 0; }
 }
@@ -1254,6 +1284,11 @@ mod tests {
         assert!(html.contains("<div class=\"table-wrap\">\n<table>") && html.contains("<p>After.</p>"));
         assert!(!html.contains("\\|"));
         assert_balanced(&html);
+        let long = "a sentence long enough to need wrapping in its cell";
+        let html = render_html(&format!("| note | n |\n| --- | ---: |\n| {long} | 1 |\n| short | 2 |\n"), &no_figures);
+        assert!(html.contains(&format!("<tr><td class=\"wrap\">{long}</td><td class=\"right\">1</td></tr>")));
+        assert!(html.contains("<tr><td class=\"wrap\">short</td><td class=\"right\">2</td></tr>"), "{html}");
+        assert!(html.contains("<tr><th>note</th><th class=\"right\">n</th></tr>"));
     }
 
     #[test]
@@ -1407,6 +1442,7 @@ mod tests {
             "[".repeat(4000) + "](".repeat(2000).as_str(),
             "`".repeat(3000),
             "**a ".repeat(2000),
+            "[".repeat(5000) + "x" + "](u)".repeat(5000).as_str(),
             "| x ".repeat(3000) + "\n" + "| --- ".repeat(3000).as_str(),
         ];
         for md in &deep {

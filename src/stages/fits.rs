@@ -15,7 +15,7 @@ use super::calibrate::{Calibration, CalibrationParams};
 use crate::calibrate::bond_fit::{cds_bond_basis, fit_bond_hazard, BondFitSettings, BondQuote};
 use crate::calibrate::cir::CirFitStatus;
 use crate::calibrate::cir::{
-    fit_cir, fit_cir_window, start_from_curve, CirFit, CirFitError, CirFitMode, CirFitSettings, CirWindowDay,
+    fit_cir, fit_cir_window, start_from_curve, CirFit, CirFitError, CirFitMode, CirFitSettings, CirWindowDay, CirWindowFit,
 };
 use crate::config::IntensitySettings;
 use crate::error::{Error, Result};
@@ -201,6 +201,7 @@ fn param_row(
     currency: &str,
     mode: CirFitMode,
     r: &std::result::Result<CirFit, CirFitError>,
+    window: Option<&CirWindowFit>,
 ) -> IntensityParamRow {
     match r {
         Ok(f) => {
@@ -220,6 +221,12 @@ fn param_row(
                 iterations: f.iterations as i64,
                 evaluations: f.evaluations as i64,
                 detail: f.detail.clone(),
+                condition_number: ok.then_some(f.condition_number).flatten(),
+                window_condition_number: window.and_then(|w| w.condition_number),
+                se_kappa: if ok { window.map_or(f.standard_errors[0], |w| w.kappa_se) } else { None },
+                se_theta: ok.then_some(f.standard_errors[1]).flatten(),
+                se_sigma: if ok { window.map_or(f.standard_errors[2], |w| w.sigma_se) } else { None },
+                se_lambda0: ok.then_some(f.standard_errors[3]).flatten(),
             }
         }
         Err(e) => IntensityParamRow {
@@ -237,6 +244,12 @@ fn param_row(
             iterations: 0,
             evaluations: 0,
             detail: Some(e.to_string()),
+            condition_number: None,
+            window_condition_number: None,
+            se_kappa: None,
+            se_theta: None,
+            se_sigma: None,
+            se_lambda0: None,
         },
     }
 }
@@ -304,7 +317,7 @@ fn fit_name(
                     }
                 }
                 if keep {
-                    params.push(param_row(*d, entity, currency, s.cir_mode, &r));
+                    params.push(param_row(*d, entity, currency, s.cir_mode, &r, None));
                 }
             }
         }
@@ -328,12 +341,12 @@ fn fit_name(
                             if let Ok(f) = r {
                                 residuals.extend(cir_residuals(*d, entity, currency, f));
                             }
-                            params.push(param_row(*d, entity, currency, s.cir_mode, r));
+                            params.push(param_row(*d, entity, currency, s.cir_mode, r, Some(&w)));
                         }
                     }
                     Err(e) => {
                         for (d, _, _) in block.iter().filter(|(d, _, _)| range.contains(*d)) {
-                            params.push(param_row(*d, entity, currency, s.cir_mode, &Err(e.clone())));
+                            params.push(param_row(*d, entity, currency, s.cir_mode, &Err(e.clone()), None));
                         }
                     }
                 }

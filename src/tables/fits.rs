@@ -32,6 +32,16 @@ pub struct IntensityParamRow {
     pub iterations: i64,
     pub evaluations: i64,
     pub detail: Option<String>,
+    /// Scaled condition number of the day's fit (the parameters it was free to move).
+    pub condition_number: Option<f64>,
+    /// Scaled condition number of the pooled window fit of kappa and sigma (fixed mode).
+    pub window_condition_number: Option<f64>,
+    /// Standard errors (Gauss-Newton covariance): kappa and sigma from the pooled window fit in
+    /// the fixed mode, else from the day's fit.
+    pub se_kappa: Option<f64>,
+    pub se_theta: Option<f64>,
+    pub se_sigma: Option<f64>,
+    pub se_lambda0: Option<f64>,
 }
 
 impl Table for IntensityParamRow {
@@ -51,12 +61,18 @@ impl Table for IntensityParamRow {
         col("iterations", Int),
         col("evaluations", Int),
         col("detail", Text),
+        col("condition_number", Float),
+        col("window_condition_number", Float),
+        col("se_kappa", Float),
+        col("se_theta", Float),
+        col("se_sigma", Float),
+        col("se_lambda0", Float),
     ];
 
     fn metadata() -> Vec<(String, String)> {
         vec![(
             "hazardline.units".into(),
-            "CIR d lambda = kappa (theta - lambda) dt + sigma sqrt(lambda) dW: kappa per year, theta and lambda0 per year, sigma per sqrt(year); rmse_bp over the curve's quotes in bp of running spread; feller: 2 kappa theta >= sigma^2".into(),
+            "CIR d lambda = kappa (theta - lambda) dt + sigma sqrt(lambda) dW: kappa per year, theta and lambda0 per year, sigma per sqrt(year); rmse_bp over the curve's quotes in bp of running spread; feller: 2 kappa theta >= sigma^2; condition_number: sqrt(largest / smallest eigenvalue) of J'J with the Jacobian's columns scaled to unit length (the day's free parameters; window_condition_number the pooled kappa-sigma problem); se_*: square roots of the diagonal of s^2 (J'J)^-1, s^2 = sum r^2 / (m - n), in the parameters' units".into(),
         )]
     }
 
@@ -76,6 +92,12 @@ impl Table for IntensityParamRow {
             .ints("iterations", rows.iter().map(|r| Some(r.iterations)))
             .ints("evaluations", rows.iter().map(|r| Some(r.evaluations)))
             .strings("detail", rows.iter().map(|r| r.detail.as_deref()))
+            .floats("condition_number", rows.iter().map(|r| r.condition_number))
+            .floats("window_condition_number", rows.iter().map(|r| r.window_condition_number))
+            .floats("se_kappa", rows.iter().map(|r| r.se_kappa))
+            .floats("se_theta", rows.iter().map(|r| r.se_theta))
+            .floats("se_sigma", rows.iter().map(|r| r.se_sigma))
+            .floats("se_lambda0", rows.iter().map(|r| r.se_lambda0))
             .finish()
     }
 
@@ -96,6 +118,14 @@ impl Table for IntensityParamRow {
             ints(df, path, "evaluations")?,
             strs(df, path, "detail")?,
         );
+        let (cn, wcn, sk, sth, ssg, sl0) = (
+            floats(df, path, "condition_number")?,
+            floats(df, path, "window_condition_number")?,
+            floats(df, path, "se_kappa")?,
+            floats(df, path, "se_theta")?,
+            floats(df, path, "se_sigma")?,
+            floats(df, path, "se_lambda0")?,
+        );
         (0..df.height())
             .map(|i| -> Result<IntensityParamRow> {
                 Ok(IntensityParamRow {
@@ -113,6 +143,12 @@ impl Table for IntensityParamRow {
                     iterations: it[i].unwrap_or(0),
                     evaluations: ev[i].unwrap_or(0),
                     detail: de[i].take(),
+                    condition_number: cn[i],
+                    window_condition_number: wcn[i],
+                    se_kappa: sk[i],
+                    se_theta: sth[i],
+                    se_sigma: ssg[i],
+                    se_lambda0: sl0[i],
                 })
             })
             .collect()
@@ -231,6 +267,12 @@ mod tests {
             iterations: 12,
             evaluations: 40,
             detail: None,
+            condition_number: Some(35.2),
+            window_condition_number: None,
+            se_kappa: Some(0.05),
+            se_theta: Some(0.001),
+            se_sigma: None,
+            se_lambda0: Some(0.0004),
         };
         let failed = IntensityParamRow {
             mode: "fixed_kappa_sigma",
@@ -242,6 +284,10 @@ mod tests {
             feller: None,
             status: RowStatus::Failed,
             detail: Some("no usable start".into()),
+            condition_number: None,
+            se_kappa: None,
+            se_theta: None,
+            se_lambda0: None,
             ..ok.clone()
         };
         let rows = vec![ok, failed];

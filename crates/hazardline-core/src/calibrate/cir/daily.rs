@@ -7,6 +7,7 @@ use crate::calibrate::bootstrap::{bootstrap, BootstrapQuote, BootstrapSettings};
 use crate::curves::{DiscountCurve, HazardCurve};
 use crate::instruments::cds::CdsQuote;
 use crate::math::grad::Grad4;
+use crate::math::identification::identification;
 use crate::math::least_squares::{levenberg_marquardt, LeastSquares};
 use crate::math::Scalar;
 use crate::time::Calendar;
@@ -285,6 +286,26 @@ pub fn fit_cir_fixed(
     Ok(fit_with_pricer(trade, &pricer, quotes, Some((kappa, sigma)), starts, settings))
 }
 
+/// The identification summary of a day's fit at its solution `p`: the scaled condition
+/// number (the same in solver and natural coordinates) and the standard errors of (kappa,
+/// theta, sigma, lambda0), carried from the solver's coordinates by the delta method
+/// (se(v) = v se(ln v); se(sigma) = se(sigma^2) / (2 sigma)).
+pub(crate) fn day_identification(problem: &mut DayProblem<'_>, p: &CirParams, fixed: bool) -> (Option<f64>, [Option<f64>; 4]) {
+    let (n, m) = problem.dims();
+    let (mut r, mut jac) = (vec![0.0; m], vec![0.0; m * n]);
+    if !problem.eval(&to_x(p, fixed), &mut r, Some(&mut jac)) {
+        return (None, [None; 4]);
+    }
+    let Some(id) = identification(&jac, &r, n) else { return (None, [None; 4]) };
+    let se = &id.standard_errors;
+    let out = if fixed {
+        [None, se[0].map(|s| s * p.theta), None, se[1]]
+    } else {
+        [se[0].map(|s| s * p.kappa), se[1].map(|s| s * p.theta), se[2].map(|s| s / (2.0 * p.sigma)), se[3]]
+    };
+    (Some(id.condition_number), out)
+}
+
 pub(crate) fn fit_with_pricer(
     trade: NaiveDate,
     pricer: &CirPricer,
@@ -353,7 +374,9 @@ pub(crate) fn fit_with_pricer(
     }
     let m = pricer.len() as f64;
     match best {
-        Some((cost, p, iterations, evaluations, converged)) => CirFit {
+        Some((cost, p, iterations, evaluations, converged)) => {
+            let (condition_number, standard_errors) = day_identification(&mut problem, &p, is_fixed);
+            CirFit {
             trade_date: trade,
             kappa: p.kappa,
             theta: p.theta,
@@ -367,7 +390,10 @@ pub(crate) fn fit_with_pricer(
             evaluations,
             quotes: pricer.residual_rows(&p),
             detail: bound_detail(&p, bounds, is_fixed),
-        },
+            condition_number,
+            standard_errors,
+        }
+        }
         None => {
             let p = ranked.first().map(|r| r.1).unwrap_or_else(|| fix(&start_from_quotes(quotes)));
             CirFit {
@@ -384,6 +410,8 @@ pub(crate) fn fit_with_pricer(
                 evaluations: ranked.len() as u32,
                 quotes: Vec::new(),
                 detail: Some(format!("no start gave finite prices ({} starts tried)", ranked.len())),
+                condition_number: None,
+                standard_errors: [None; 4],
             }
         }
     }

@@ -168,6 +168,12 @@ pub struct CirFit {
     pub quotes: Vec<QuoteResidual>,
     /// Parameters at a bound, or why the fit failed.
     pub detail: Option<String>,
+    /// Scaled condition number of the fit's Jacobian in the parameters it was free to move
+    /// (see `math::identification`); None when the fit failed.
+    pub condition_number: Option<f64>,
+    /// Standard errors of kappa, theta, sigma and lambda0 from the Gauss-Newton covariance of
+    /// this fit (None for a parameter held fixed, a failed fit, or no degree of freedom).
+    pub standard_errors: [Option<f64>; 4],
 }
 
 impl CirFit {

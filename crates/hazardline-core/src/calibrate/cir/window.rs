@@ -7,6 +7,7 @@ use super::*;
 use crate::calibrate::bootstrap::BootstrapQuote;
 use crate::curves::DiscountCurve;
 use crate::math::grad::Grad4;
+use crate::math::identification::identification;
 use crate::math::least_squares::{levenberg_marquardt, LeastSquares};
 use crate::time::Calendar;
 
@@ -32,6 +33,13 @@ pub struct CirWindowFit {
     pub pooled_rmse_bp: f64,
     /// Dates that entered the pooled estimate.
     pub pooled_dates: Vec<NaiveDate>,
+    /// Scaled condition number of the pooled problem's Jacobian (kappa, sigma and every pooled
+    /// day's theta and lambda0).
+    pub condition_number: Option<f64>,
+    /// Standard errors of the pooled kappa and sigma (Gauss-Newton covariance of the pooled
+    /// problem, delta method from the solver's coordinates).
+    pub kappa_se: Option<f64>,
+    pub sigma_se: Option<f64>,
     /// Every day of the window, in input order: its fit with kappa and sigma held, or why it
     /// could not be fitted.
     pub days: Vec<Result<CirFit, CirFitError>>,
@@ -176,6 +184,20 @@ pub fn fit_cir_window(
     let mut pooled_problem = PooledProblem { days: probs, offsets, m };
     let out = levenberg_marquardt(&mut pooled_problem, &x0, &lo, &hi, &cap, &settings.lm);
     let (kappa, sigma) = (out.x[0].exp(), out.x[1].max(0.0).sqrt());
+    let (condition_number, kappa_se, sigma_se) = if out.failed {
+        (None, None, None)
+    } else {
+        let (n, m) = pooled_problem.dims();
+        let (mut r, mut jac) = (vec![0.0; m], vec![0.0; m * n]);
+        match pooled_problem.eval(&out.x, &mut r, Some(&mut jac)).then(|| identification(&jac, &r, n)).flatten() {
+            Some(id) => (
+                Some(id.condition_number),
+                id.standard_errors[0].map(|s| s * kappa),
+                id.standard_errors[1].map(|s| s / (2.0 * sigma)),
+            ),
+            None => (None, None, None),
+        }
+    };
     let status = if out.failed {
         CirFitStatus::Failed
     } else if out.converged {
@@ -220,6 +242,9 @@ pub fn fit_cir_window(
         iterations: out.iterations,
         pooled_rmse_bp: (2.0 * out.cost / m as f64).sqrt(),
         pooled_dates: dates,
+        condition_number,
+        kappa_se,
+        sigma_se,
         days: results,
     })
 }
