@@ -1504,7 +1504,7 @@ mod tests {
     }
 
     fn demo_dir() -> PathBuf {
-        Path::new(option_env!("CARGO_MANIFEST_DIR").unwrap_or("/work/main")).join("validation-reports/demo/2015-2019")
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("validation-reports/demo/2015-2019")
     }
 
     fn is_delimiter_row(line: &str) -> bool {

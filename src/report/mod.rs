@@ -1,4 +1,5 @@
-//! The review report: `report.md` and its SVG figures, rendered from a run folder's tables and
+//! The review report: `report.md`, its SVG figures and `report.html` (the same document with the
+//! figures inline, for a browser and for print), rendered from a run folder's tables and
 //! manifest only (so `hazardline report RUN_DIR` re-renders exactly what `run` wrote), and the
 //! comparison of two runs.
 //!
@@ -10,6 +11,7 @@ pub mod compare;
 mod findings;
 mod fits_section;
 mod folds;
+pub mod html;
 pub mod markdown;
 pub mod progress;
 pub mod sections;

@@ -632,7 +632,11 @@ pub fn stability_section(
     let tested: Vec<usize> = (0..kdf.height()).filter(|&i| kst[i].as_deref() == Some("tested")).collect();
     let short = kst.iter().filter(|s| s.as_deref() == Some("too_short")).count();
     let on_changes = tested.iter().filter(|&&i| kt[i].as_deref() == Some("daily_changes")).count();
-    let level = stability.iter().find(|(k, _)| k == "cusum_level").map(|(_, v)| v.split(' ').next().unwrap_or("5%").to_string()).unwrap_or_else(|| "5%".into());
+    let level = stability
+        .iter()
+        .find(|(k, _)| k == "cusum_level")
+        .map(|(_, v)| v.split(' ').next().unwrap_or("5%").to_string())
+        .unwrap_or_else(|| "5%".into());
     let alpha: f64 = level.trim_end_matches('%').parse::<f64>().map(|v| v / 100.0).unwrap_or(0.05);
     let mut rejected: Vec<usize> = tested.iter().copied().filter(|&i| kp[i].is_some_and(|p| p < alpha)).collect();
     rejected.sort_by(|&a, &b| kp[a].unwrap_or(1.0).total_cmp(&kp[b].unwrap_or(1.0)));

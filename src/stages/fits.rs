@@ -15,7 +15,8 @@ use super::calibrate::{Calibration, CalibrationParams};
 use crate::calibrate::bond_fit::{cds_bond_basis, fit_bond_hazard, BondFitSettings, BondQuote};
 use crate::calibrate::cir::CirFitStatus;
 use crate::calibrate::cir::{
-    fit_cir, fit_cir_window, start_from_curve, CirFit, CirFitError, CirFitMode, CirFitSettings, CirWindowDay, CirWindowFit,
+    fit_cir, fit_cir_window, start_from_curve, CirFit, CirFitError, CirFitMode, CirFitSettings, CirWindowDay,
+    CirWindowFit,
 };
 use crate::config::IntensitySettings;
 use crate::error::{Error, Result};

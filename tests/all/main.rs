@@ -14,6 +14,7 @@ mod pipeline;
 mod properties;
 mod quality;
 mod reference_quantlib;
+mod report_html;
 mod shards;
 mod stability;
 mod stats_reference;

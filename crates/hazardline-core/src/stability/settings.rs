@@ -213,7 +213,10 @@ impl StabilitySettings {
         ));
         out.push(("cusum_target".into(), self.cusum_target.as_str().into()));
         out.push(("cusum_scope".into(), self.cusum_scope.as_str().into()));
-        out.push(("cusum_level".into(), format!("{} (critical value {:.4})", self.cusum_level.as_str(), self.cusum_level.critical_value())));
+        out.push((
+            "cusum_level".into(),
+            format!("{} (critical value {:.4})", self.cusum_level.as_str(), self.cusum_level.critical_value()),
+        ));
         out.push(("cusum_min_obs".into(), self.cusum_min_obs.to_string()));
         out.push(("reprice_tolerance_bp".into(), self.reprice_tolerance_bp.to_string()));
         out.extend(self.residual_flag_bp.iter().map(|(m, v)| (format!("residual_flag_bp[{m}]"), v.to_string())));

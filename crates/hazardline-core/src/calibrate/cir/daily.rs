@@ -290,7 +290,11 @@ pub fn fit_cir_fixed(
 /// number (the same in solver and natural coordinates) and the standard errors of (kappa,
 /// theta, sigma, lambda0), carried from the solver's coordinates by the delta method
 /// (se(v) = v se(ln v); se(sigma) = se(sigma^2) / (2 sigma)).
-pub(crate) fn day_identification(problem: &mut DayProblem<'_>, p: &CirParams, fixed: bool) -> (Option<f64>, [Option<f64>; 4]) {
+pub(crate) fn day_identification(
+    problem: &mut DayProblem<'_>,
+    p: &CirParams,
+    fixed: bool,
+) -> (Option<f64>, [Option<f64>; 4]) {
     let (n, m) = problem.dims();
     let (mut r, mut jac) = (vec![0.0; m], vec![0.0; m * n]);
     if !problem.eval(&to_x(p, fixed), &mut r, Some(&mut jac)) {
@@ -377,22 +381,22 @@ pub(crate) fn fit_with_pricer(
         Some((cost, p, iterations, evaluations, converged)) => {
             let (condition_number, standard_errors) = day_identification(&mut problem, &p, is_fixed);
             CirFit {
-            trade_date: trade,
-            kappa: p.kappa,
-            theta: p.theta,
-            sigma: p.sigma,
-            lambda0: p.lambda0,
-            rmse_bp: (2.0 * cost / m).sqrt(),
-            feller: p.feller(),
-            status: if converged { CirFitStatus::Ok } else { CirFitStatus::MaxIterations },
-            mode: if is_fixed { CirFitMode::FixedKappaSigma } else { CirFitMode::Free },
-            iterations,
-            evaluations,
-            quotes: pricer.residual_rows(&p),
-            detail: bound_detail(&p, bounds, is_fixed),
-            condition_number,
-            standard_errors,
-        }
+                trade_date: trade,
+                kappa: p.kappa,
+                theta: p.theta,
+                sigma: p.sigma,
+                lambda0: p.lambda0,
+                rmse_bp: (2.0 * cost / m).sqrt(),
+                feller: p.feller(),
+                status: if converged { CirFitStatus::Ok } else { CirFitStatus::MaxIterations },
+                mode: if is_fixed { CirFitMode::FixedKappaSigma } else { CirFitMode::Free },
+                iterations,
+                evaluations,
+                quotes: pricer.residual_rows(&p),
+                detail: bound_detail(&p, bounds, is_fixed),
+                condition_number,
+                standard_errors,
+            }
         }
         None => {
             let p = ranked.first().map(|r| r.1).unwrap_or_else(|| fix(&start_from_quotes(quotes)));
