@@ -196,6 +196,23 @@ enum Command {
         #[arg(long)]
         keep: Option<PathBuf>,
     },
+    /// Measure each stability rule on invented universes: its false-alarm rate on a universe
+    /// without instabilities and its detection rate on planted ones (whole pipeline, twice).
+    FlagRates {
+        #[arg(long, default_value_t = 200)]
+        entities: usize,
+        #[arg(long, default_value_t = 3)]
+        years: u32,
+        /// Instabilities planted on distinct entities (alternately a premium shift and a
+        /// quarter of noisy quotes).
+        #[arg(long, default_value_t = 40)]
+        instabilities: usize,
+        #[arg(long, default_value_t = 5)]
+        seed: u64,
+        /// Keep both universes and runs in this folder instead of a temporary one.
+        #[arg(long)]
+        keep: Option<PathBuf>,
+    },
     /// Read the inputs and run the data-quality rules only: print the row accounting per table
     /// and the top reject reasons; with --out, write rejects, data_quality and quality_flags.
     Check {
@@ -303,6 +320,15 @@ fn dispatch(command: Command) -> Result<u8> {
                 CheckSize::Large => hazardline::run::selfcheck::Size::Large,
             };
             commands::selfcheck::run(size, seed, keep.as_deref())
+        }
+        Command::FlagRates { entities, years, instabilities, seed, keep } => {
+            let spec = hazardline::sim::ScenarioSpec {
+                entities,
+                years,
+                instabilities,
+                ..hazardline::sim::ScenarioSpec::demo(seed)
+            };
+            commands::flag_rates::run(&spec, keep.as_deref())
         }
         Command::Check { inputs, out } => {
             let calendar = calendar_of(&inputs)?;

@@ -27,6 +27,7 @@ pub mod calibrate;
 pub mod check;
 pub mod compare;
 pub mod demo;
+pub mod flag_rates;
 pub mod merge;
 pub mod report;
 pub mod run;

@@ -11,6 +11,7 @@
 //! `<output root>/<pipeline name>/<run label>.shards/part-I-of-N/`; [`merge`] then reads every
 //! part and finishes the run into the same run folder, byte for byte as a single run.
 
+pub mod flag_rates;
 pub mod folders;
 pub mod merge;
 pub mod part_folder;

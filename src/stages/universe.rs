@@ -240,6 +240,14 @@ fn write_truth(w: &mut Writer, s: &Scenario) -> Result<()> {
         let _ = writeln!(body, "{},{d},{g}", field(name(e)));
     }
     w.text("truth/defaults.csv", &body)?;
+    // Planted instabilities (only when some were asked for: the demo plants none).
+    if !s.instabilities.is_empty() {
+        let mut body = String::from("instability,kind,entity,date,last_date\n");
+        for (i, x) in s.instabilities.iter().enumerate() {
+            let _ = writeln!(body, "{i},{},{},{},{}", x.kind, field(name(x.entity)), x.date, x.last_date);
+        }
+        w.text("truth/instabilities.csv", &body)?;
+    }
     // Faults, one line per affected row, with the file and 1-based data row the quality stage
     // will name.
     let rows_of = fault_rows(s);

@@ -352,3 +352,29 @@ fn psi_against_the_first_period_sees_a_slow_drift() {
     assert!(drift > 0.25 && drift > 3.0 * step, "period on period {step}, against the first {drift}");
     assert!(psi("2024Q3", "2024Q1").is_some());
 }
+
+/// The flag-rate figures the report's method notes print (hazardline::run::flag_rates::MEASURED)
+/// are what `hazardline flag-rates` measures at the default settings: both invented universes
+/// are built and run through the whole pipeline again here, and every figure compared.
+#[test]
+fn flag_rates_in_the_method_notes_are_measured() {
+    use hazardline::run::flag_rates::{flag_rates, MEASURED, MEASURED_ENTITY_PERIODS, MEASURED_PLANTED, MEASURED_SPEC};
+    let (entities, years, instabilities, seed) = MEASURED_SPEC;
+    let spec =
+        hazardline::sim::ScenarioSpec { entities, years, instabilities, ..hazardline::sim::ScenarioSpec::demo(seed) };
+    let dir = tempfile::tempdir().unwrap();
+    let r = flag_rates(dir.path(), &spec).unwrap();
+    println!("{}", r.table);
+    assert!(r.met, "a rule misses its false-alarm target");
+    // The method notes say no rule raised a red flag on the clean universe.
+    assert!(r.rules.iter().all(|x| x.false_alarm_red == 0.0), "a red flag on the clean universe");
+    assert_eq!(r.entity_periods, MEASURED_ENTITY_PERIODS);
+    assert!(r.planted.iter().all(|p| !p.2.is_empty()), "every planted instability is caught by some rule");
+    assert_eq!(r.rules.len(), MEASURED.len());
+    for (got, want) in r.rules.iter().zip(MEASURED) {
+        assert_eq!(got.rule, want.rule);
+        assert_eq!(format!("{:.2}", 100.0 * got.false_alarm), format!("{:.2}", want.false_alarm_pct), "{}", want.rule);
+        assert_eq!(got.detected.get("premium_shift"), Some(&(want.premium_shift, MEASURED_PLANTED)), "{}", want.rule);
+        assert_eq!(got.detected.get("noisy_quotes"), Some(&(want.noisy_quotes, MEASURED_PLANTED)), "{}", want.rule);
+    }
+}

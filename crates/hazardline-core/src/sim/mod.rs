@@ -9,4 +9,4 @@ pub mod rng;
 pub mod scenario;
 
 pub use rng::Rng;
-pub use scenario::{generate, Scenario, ScenarioSpec};
+pub use scenario::{generate, Instability, Scenario, ScenarioSpec};

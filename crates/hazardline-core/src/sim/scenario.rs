@@ -48,6 +48,42 @@ pub struct ScenarioSpec {
     /// Multiplies every grade's long-run historical intensity (1 for the demo; the self-check
     /// raises it so that a small universe has defaults in most grades).
     pub intensity_scale: f64,
+    /// Grades migrate month by month (true for the demo). Off, every entity keeps its first
+    /// grade, so its intensity follows one CIR process with constant parameters: the
+    /// no-instability universe of the flag-rate measurement.
+    pub migration: bool,
+    /// Parameter instabilities to plant on distinct entities (none for the demo); see
+    /// [`Instability`].
+    pub instabilities: usize,
+}
+
+/// A planted instability: something about one name that a stable model would not do, from
+/// `date` to `last_date`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Instability {
+    /// `premium_shift` (the pricing multiplier doubles from `date` to the end: spreads jump and
+    /// stay up) or `noisy_quotes` (the quotes' relative noise is ten times the usual for 63
+    /// business days).
+    pub kind: &'static str,
+    pub entity: usize,
+    pub date: NaiveDate,
+    pub last_date: NaiveDate,
+}
+
+impl Instability {
+    /// The factor on the pricing multiplier of `entity` on `date` (1 outside a premium shift).
+    fn multiplier_factor(list: &[Instability], entity: usize, date: NaiveDate) -> f64 {
+        list.iter()
+            .filter(|x| x.kind == "premium_shift" && x.entity == entity && x.date <= date && date <= x.last_date)
+            .fold(1.0, |f, _| f * 2.0)
+    }
+
+    /// The factor on the quote noise of `entity` on `date` (1 outside a noisy spell).
+    fn noise_factor(list: &[Instability], entity: usize, date: NaiveDate) -> f64 {
+        list.iter()
+            .filter(|x| x.kind == "noisy_quotes" && x.entity == entity && x.date <= date && date <= x.last_date)
+            .fold(1.0, |f, _| f * 10.0)
+    }
 }
 
 impl ScenarioSpec {
@@ -63,6 +99,8 @@ impl ScenarioSpec {
             quote_noise: 0.004,
             faults: true,
             intensity_scale: 1.0,
+            migration: true,
+            instabilities: 0,
         }
     }
 
@@ -193,6 +231,8 @@ pub struct Scenario {
     /// (entity, cohort day, PD): what the calibrated curves should imply, for the planted AUC.
     pub planted_pd_1y: Vec<(usize, NaiveDate, f64)>,
     pub faults: Vec<Fault>,
+    /// Planted parameter instabilities (empty unless `spec.instabilities` > 0).
+    pub instabilities: Vec<Instability>,
 }
 
 /// The planted pricing-over-historical ratio for one grade and horizon, over the members of
@@ -313,7 +353,7 @@ fn simulate_entity(spec: &ScenarioSpec, profiles: &[GradeProfile], days: &[Naive
             lambda_p.push(l.max(0.0));
             next += 1;
         }
-        if day.day() == 1 {
+        if spec.migration && day.day() == 1 {
             let (up, down) = credit::migration(g, worst);
             let u = rng.uniform();
             if u < up {
@@ -397,6 +437,8 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
     let discount = discount_rows(spec, &models, &days);
     let curves = discount_curves(&discount, &days, &models);
 
+    let instabilities = plant_instabilities(spec, &days, &paths);
+
     // CDS quotes, priced per date in parallel (each entity-day draws its own noise stream).
     let cal = Calendar::weekends_only();
     let tenors: Vec<Tenor> = CDS_TENORS.iter().filter_map(|&m| Tenor::from_months(m)).collect();
@@ -415,8 +457,10 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
                     continue;
                 }
                 let prof = profiles[(p.grade[k] - 1) as usize];
-                let params = credit::pricing_params(p.lambda_p[k], prof.theta_p, prof.multiplier);
+                let multiplier = prof.multiplier * Instability::multiplier_factor(&instabilities, i, date);
+                let params = credit::pricing_params(p.lambda_p[k], prof.theta_p, multiplier);
                 let Ok(hazard) = cir_hazard_curve(date, &params, &times) else { continue };
+                let quote_noise = spec.quote_noise * Instability::noise_factor(&instabilities, i, date);
                 let disc = &curves[currency_index(&models, entities[i].currency)][k];
                 let mut noise = Rng::stream(spec.seed, "quote_noise", (k * spec.entities + i) as u64);
                 // Every tenor on one joint grid (one plan per entity and day).
@@ -425,7 +469,7 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
                     continue;
                 };
                 for (legs, &m) in all_legs.iter().zip(&CDS_TENORS) {
-                    let par = legs.par_spread() * 1e4 * (spec.quote_noise * noise.normal()).exp();
+                    let par = legs.par_spread() * 1e4 * (quote_noise * noise.normal()).exp();
                     rows.push(QuoteRow {
                         date,
                         entity: i,
@@ -466,7 +510,38 @@ pub fn generate(spec: &ScenarioSpec) -> Scenario {
         premium,
         planted_pd_1y,
         faults,
+        instabilities,
     }
+}
+
+/// Plants `spec.instabilities` instabilities on distinct entities that are quoted through the
+/// middle of the period, alternating `premium_shift` and `noisy_quotes`, each starting on a
+/// business day drawn uniformly from the middle 60% of the quoted period (its own random
+/// stream, so nothing else moves).
+fn plant_instabilities(spec: &ScenarioSpec, days: &[NaiveDate], paths: &[Path]) -> Vec<Instability> {
+    let mut out = Vec::new();
+    if spec.instabilities == 0 || days.len() < 10 {
+        return out;
+    }
+    let mut rng = Rng::stream(spec.seed, "instabilities", 0);
+    let (lo, hi) = (days.len() / 5, days.len() * 4 / 5);
+    let mut used = BTreeSet::new();
+    let mut tries = 0;
+    while out.len() < spec.instabilities && tries < 100 * spec.instabilities {
+        tries += 1;
+        let entity = rng.below(paths.len() as u64) as usize;
+        let k = lo + rng.below((hi - lo).max(1) as u64) as usize;
+        // Quoted until at least 63 business days after the start.
+        if used.contains(&entity) || paths[entity].grade.len() <= k + 63 {
+            continue;
+        }
+        used.insert(entity);
+        let kind = if out.len() % 2 == 0 { "premium_shift" } else { "noisy_quotes" };
+        let last = if kind == "premium_shift" { days[days.len() - 1] } else { days[(k + 62).min(days.len() - 1)] };
+        out.push(Instability { kind, entity, date: days[k], last_date: last });
+    }
+    out.sort_by_key(|x| (x.date, x.entity));
+    out
 }
 
 fn currency_index(models: &[RateModel], currency: &str) -> usize {
