@@ -15,10 +15,6 @@ pub use hazardline_core::{
     backtest, calibrate, curves, hash, instruments, math, models, parts, sim, stability, stats, text, time,
 };
 
-/// The source revision this binary was built from (see build.rs): a full commit hash, with
-/// `-modified` when the build's sources differed from it, or `unknown`.
-pub const SOURCE_REVISION: &str = env!("HAZARDLINE_SOURCE_REVISION");
-
 pub mod commands;
 pub mod config;
 pub mod error;

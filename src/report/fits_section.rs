@@ -246,7 +246,7 @@ fn identification_table(w: &mut String, per: &BTreeMap<(&str, &str), Vec<&crate:
         let m = median(&mut v);
         if m.is_infinite() {
             "inf".into()
-        } else if m >= 1e4 || m < 1e-3 {
+        } else if !(1e-3..1e4).contains(&m) {
             format!("{m:.2e}")
         } else {
             format!("{m:.3}")

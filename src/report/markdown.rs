@@ -650,7 +650,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
             .filter(|(k, v)| k != "worst_n" && !defaults.iter().any(|(dk, dv)| dk == k && dv == v))
             .map(|(k, v)| format!("{k} = {v}"))
             .collect();
-        let _ = writeln!(w, "{}", crate::run::flag_rates::method_note(&differing));
+        let _ = writeln!(w, "{}", super::flag_notes::method_note(&differing));
     }
     let _ = writeln!(w, "- Reproducibility: the tables and this report (`report.md`, and `report.html` with the figures inline for a browser and for print) are deterministic for the same inputs, pipeline file and build (the source revision above); timings are in `run.log`, not here.\n");
     let _ = writeln!(w, "## 8. Caution\n\n{CAUTION} Every conclusion should be checked against the data and these method notes before it is relied on.");

@@ -10,6 +10,7 @@ pub mod charts;
 pub mod compare;
 mod findings;
 mod fits_section;
+pub mod flag_notes;
 mod folds;
 pub mod html;
 pub mod markdown;

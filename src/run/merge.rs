@@ -89,12 +89,12 @@ fn read_parts(dir: &Path, pipeline: &Path, inputs: &[InputRecord]) -> Result<(Ve
                 env!("CARGO_PKG_VERSION")
             )));
         }
-        if m.source_revision != crate::SOURCE_REVISION {
+        if m.source_revision != crate::tables::manifest::SOURCE_REVISION {
             return Err(bad(format!(
                 "{} was made by a build of source revision {}, this is {}; rerun that shard with this build",
                 f.display(),
                 if m.source_revision.is_empty() { "unknown" } else { &m.source_revision },
-                crate::SOURCE_REVISION
+                crate::tables::manifest::SOURCE_REVISION
             )));
         }
         verify_part(f, &m, inputs)?;

@@ -522,7 +522,7 @@ fn finish(
     let manifest = Manifest {
         tool: "hazardline".into(),
         version: env!("CARGO_PKG_VERSION").into(),
-        source_revision: crate::SOURCE_REVISION.into(),
+        source_revision: crate::tables::manifest::SOURCE_REVISION.into(),
         pipeline: FileRecord {
             path: cfg.pipeline_path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default(),
             bytes,

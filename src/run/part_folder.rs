@@ -21,7 +21,7 @@ use std::path::{Path, PathBuf};
 pub struct PartitionMeta {
     pub tool: String,
     pub version: String,
-    /// The source revision of the build that made the part ([`crate::SOURCE_REVISION`]).
+    /// The source revision of the build that made the part ([`crate::tables::manifest::SOURCE_REVISION`]).
     #[serde(default)]
     pub source_revision: String,
     /// SHA-256 of the pipeline file the shard ran.
@@ -195,7 +195,7 @@ pub fn write_partition(
     let meta = PartitionMeta {
         tool: "hazardline".into(),
         version: env!("CARGO_PKG_VERSION").into(),
-        source_revision: crate::SOURCE_REVISION.into(),
+        source_revision: crate::tables::manifest::SOURCE_REVISION.into(),
         pipeline_sha256: pipeline_sha256.to_string(),
         shard: shard.index,
         shards: shard.count,

@@ -15,7 +15,7 @@ use std::path::Path;
 pub struct Manifest {
     pub tool: String,
     pub version: String,
-    /// The source revision of the build ([`crate::SOURCE_REVISION`]).
+    /// The source revision of the build ([`SOURCE_REVISION`]).
     #[serde(default = "unknown_revision")]
     pub source_revision: String,
     pub pipeline: FileRecord,
@@ -30,6 +30,10 @@ pub struct Manifest {
     /// Tables written, relative to the run folder.
     pub tables: Vec<String>,
 }
+
+/// The source revision this binary was built from (see build.rs): a full commit hash, with
+/// `-modified` when the build's sources differed from it, or `unknown`.
+pub const SOURCE_REVISION: &str = env!("HAZARDLINE_SOURCE_REVISION");
 
 fn unknown_revision() -> String {
     "unknown".into()

@@ -353,12 +353,13 @@ fn psi_against_the_first_period_sees_a_slow_drift() {
     assert!(psi("2024Q3", "2024Q1").is_some());
 }
 
-/// The flag-rate figures the report's method notes print (hazardline::run::flag_rates::MEASURED)
+/// The flag-rate figures the report's method notes print (hazardline::report::flag_notes::MEASURED)
 /// are what `hazardline flag-rates` measures at the default settings: both invented universes
 /// are built and run through the whole pipeline again here, and every figure compared.
 #[test]
 fn flag_rates_in_the_method_notes_are_measured() {
-    use hazardline::run::flag_rates::{flag_rates, MEASURED, MEASURED_ENTITY_PERIODS, MEASURED_PLANTED, MEASURED_SPEC};
+    use hazardline::report::flag_notes::{MEASURED, MEASURED_ENTITY_PERIODS, MEASURED_PLANTED, MEASURED_SPEC};
+    use hazardline::run::flag_rates::flag_rates;
     let (entities, years, instabilities, seed) = MEASURED_SPEC;
     let spec =
         hazardline::sim::ScenarioSpec { entities, years, instabilities, ..hazardline::sim::ScenarioSpec::demo(seed) };
