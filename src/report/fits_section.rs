@@ -232,7 +232,7 @@ fn identification_table(w: &mut String, per: &BTreeMap<(&str, &str), Vec<&crate:
     const ILL: f64 = 1e6;
     let _ = writeln!(
         w,
-        "How well the quotes pin the parameters down (medians per entity over the fits that produced parameters): the scaled condition number of each fit's Jacobian (columns scaled to unit length; the day's free parameters, and in `fixed_kappa_sigma` mode also the pooled window fit of kappa and sigma with every pooled day's theta and lambda0) and each parameter's standard error from the Gauss-Newton covariance s^2 (J'J)^-1 divided by its value. A condition number above 1e6 means some combination of parameters moves the quotes by less than a millionth of what the others do: those parameters are not identified by the day's curve, whatever their values. Per fit in `tables/intensity_params.parquet`.\n"
+        "How well the quotes pin the parameters down (medians per entity over the fits that produced parameters): the scaled condition number of each fit's Jacobian (columns scaled to unit length; the day's free parameters, and in `fixed_kappa_sigma` mode also the pooled window fit of kappa and sigma with every pooled day's theta and lambda0) and each parameter's standard error from the Gauss-Newton covariance s^2 (J'J)^-1 divided by its value. A condition number above 1e6 means some combination of parameters moves the quotes by less than a millionth of what the others do: those parameters are not identified by the day's curve, whatever their values. A relative standard error near or above 1 says the same of one parameter: its value cannot be told from zero (sigma at its floor shows this way). Per fit in `tables/intensity_params.parquet`.\n"
     );
     let _ = writeln!(
         w,
