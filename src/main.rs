@@ -46,9 +46,12 @@ enum CheckSize {
 
 #[derive(Clone, Copy, ValueEnum)]
 enum Accrual {
-    /// One interval per coupon period (the standard model).
+    /// The published standard model: split at every curve node inside a coupon period, with
+    /// the half-day term (the default).
+    Published,
+    /// One interval per coupon period, no half-day term.
     Standard,
-    /// Split at every curve node inside a coupon period.
+    /// Split at every curve node inside a coupon period, no half-day term.
     Exact,
 }
 
@@ -113,7 +116,7 @@ enum Command {
         #[arg(long, value_enum, default_value_t = Infeasible::Floor)]
         infeasible: Infeasible,
         /// Accrual-on-default integration.
-        #[arg(long, value_enum, default_value_t = Accrual::Standard)]
+        #[arg(long, value_enum, default_value_t = Accrual::Published)]
         accrual: Accrual,
         /// Output folder.
         #[arg(long)]
@@ -277,6 +280,7 @@ fn dispatch(command: Command) -> Result<u8> {
                     Infeasible::Fail => InfeasiblePolicy::Fail,
                 },
                 accrual: match accrual {
+                    Accrual::Published => AccrualIntegration::Published,
                     Accrual::Standard => AccrualIntegration::Standard,
                     Accrual::Exact => AccrualIntegration::Exact,
                 },

@@ -411,6 +411,7 @@ pub fn metadata(p: &CalibrationParams, q: &QualitySettings) -> Vec<(String, Stri
         (
             "hazardline.accrual_on_default".into(),
             match b.accrual {
+                AccrualIntegration::Published => "published (split at every curve node, with the half-day term)".into(),
                 AccrualIntegration::Standard => "standard (one interval per coupon period)".into(),
                 AccrualIntegration::Exact => "exact (split at every curve node)".into(),
             },

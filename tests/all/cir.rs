@@ -333,7 +333,7 @@ fn upfront_quotes_are_fitted_too() {
         .iter()
         .map(|&t| {
             let c = CdsContract::standard(trade, tenor(t), &cal).unwrap();
-            let legs = price_legs_cir(&c, 0.4, &disc, &truth, 1.0 / 12.0, AccrualIntegration::Standard).unwrap();
+            let legs = price_legs_cir(&c, 0.4, &disc, &truth, 1.0 / 12.0, AccrualIntegration::default()).unwrap();
             BootstrapQuote {
                 tenor: tenor(t),
                 quote: CdsQuote::Upfront { upfront: legs.upfront(0.01), coupon: 0.01 },

@@ -23,7 +23,7 @@ fn flat_hazard_bootstraps_back_and_survival_is_exponential() {
             .iter()
             .map(|&t| {
                 let c = CdsContract::standard(trade, tenor(t), &cal).unwrap();
-                let legs = price_legs(&c, 0.4, &disc, &flat, AccrualIntegration::Standard).unwrap();
+                let legs = price_legs(&c, 0.4, &disc, &flat, AccrualIntegration::default()).unwrap();
                 (t, legs.par_spread() * 1e4)
             })
             .collect();

@@ -32,7 +32,7 @@ proptest! {
             prop_assert!(n.survival.unwrap() <= prev);
             prev = n.survival.unwrap();
         }
-        for r in reprice(&f, &qs, &disc, AccrualIntegration::Standard) {
+        for r in reprice(&f, &qs, &disc, AccrualIntegration::default()) {
             prop_assert!(r.residual_bp.abs() < 1e-6, "{} {}", r.tenor, r.residual_bp);
         }
     }
@@ -47,7 +47,7 @@ proptest! {
         let (f, _) = fit(trade, &disc, &quotes, 0.4, &BootstrapSettings::default());
         let curve = f.curve.clone().unwrap();
         let up: Vec<BootstrapQuote> = f.nodes.iter().zip(f.contracts.iter()).map(|(n, c)| {
-            let legs = price_legs(c, 0.4, &disc, &curve, AccrualIntegration::Standard).unwrap();
+            let legs = price_legs(c, 0.4, &disc, &curve, AccrualIntegration::default()).unwrap();
             BootstrapQuote { tenor: n.tenor, quote: CdsQuote::Upfront { upfront: legs.upfront(coupon_bp / 1e4), coupon: coupon_bp / 1e4 }, recovery: 0.4 }
         }).collect();
         let g = bootstrap(trade, &up, &disc, &cal, &BootstrapSettings::default()).unwrap();
@@ -56,7 +56,7 @@ proptest! {
         }
         // And spread <-> upfront conversion round-trips on the legs.
         for c in f.contracts.iter() {
-            let legs = price_legs(c, 0.4, &disc, &curve, AccrualIntegration::Standard).unwrap();
+            let legs = price_legs(c, 0.4, &disc, &curve, AccrualIntegration::default()).unwrap();
             let u = legs.upfront(coupon_bp / 1e4);
             prop_assert!((legs.coupon_from_upfront(u) - coupon_bp / 1e4).abs() < 1e-15);
             prop_assert!(legs.upfront(legs.par_spread()).abs() < 1e-15);
@@ -122,7 +122,7 @@ fn distressed_curves_need_no_cap() {
     let (f, qs) = fit(trade, &disc, &quotes, 0.25, &BootstrapSettings::default());
     assert!(f.nodes[0].hazard.unwrap() > 1.0, "{:?}", f.nodes[0].hazard);
     assert!(f.complete());
-    for r in reprice(&f, &qs, &disc, AccrualIntegration::Standard) {
+    for r in reprice(&f, &qs, &disc, AccrualIntegration::default()) {
         assert!(r.residual_bp.abs() < 1e-6);
     }
 }

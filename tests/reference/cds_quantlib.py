@@ -252,7 +252,7 @@ def imm20_on_or_after(d):
 
 
 def py_maturity(trade, tenor):
-    """the "IMM dates and the semi-annual roll" convention: semi-annual roll, measured from the trade date, unadjusted."""
+    """the 'IMM dates and the semi-annual roll' convention: semi-annual roll, measured from the trade date, unadjusted."""
     a = imm20_on_or_before(trade)
     if a.month in (6, 12):
         a = add_months(a, -3)
@@ -260,7 +260,7 @@ def py_maturity(trade, tenor):
 
 
 def py_schedule_dates(trade, maturity):
-    """the "Premium schedule" convention: the premium schedule from T + 1 to maturity."""
+    """the 'Premium schedule' convention: the premium schedule from T + 1 to maturity."""
     eff = trade + dt.timedelta(days=1)
     p = imm20_on_or_before(eff)
     raw = [add_months(p, -3), p] if adjust(p) > eff else [p]
@@ -283,7 +283,7 @@ def py_schedule_dates(trade, maturity):
 
 
 def py_coupons(dates):
-    """the "Coupon accrual and day counts" convention: (accrual start, accrual end, payment, accrual fraction per unit coupon)."""
+    """the 'Coupon accrual and day counts' convention: (accrual start, accrual end, payment, accrual fraction per unit coupon)."""
     out = []
     for i in range(len(dates) - 1):
         start, end = dates[i], dates[i + 1]
@@ -329,7 +329,7 @@ class PyCurves:
 
 
 def py_legs(c, trade, maturity, recovery):
-    """the "Leg values" convention and the "Par spread and upfront" convention with a unit coupon; returns the quantities written per tenor."""
+    """the 'Leg values' convention and the 'Par spread and upfront' convention with a unit coupon; returns the quantities written per tenor."""
     one = dt.timedelta(days=1)
     eff = trade + one
     # Protection leg.
@@ -400,6 +400,12 @@ def build_discount_curve(trade, discount):
     return curve, dates, factors
 
 
+# Engine options: (NumericalFix, AccrualBias, ForwardsInCouponPeriod). This script uses the
+# options of hazardline's `standard` accrual variant; tests/reference/cds_accrual_quantlib.py
+# sets the others and reruns the same cases.
+ENGINE_OPTIONS = (ql.IsdaCdsEngine.Taylor, ql.IsdaCdsEngine.NoBias, ql.IsdaCdsEngine.Flat)
+
+
 class Tenor:
     """One quoted contract: its dates and three QuantLib instruments sharing one credit handle."""
 
@@ -418,8 +424,7 @@ class Tenor:
         if self.single_coupon:
             assert self.schedule[0] == trade + 1, (trade, tenor, list(self.schedule))
         accrual_dc = ACT360_INCL if (self.single_coupon and single_coupon_fix) else ACT360
-        engine = ql.IsdaCdsEngine(credit, recovery, discount, False, ql.IsdaCdsEngine.Taylor,
-                                  ql.IsdaCdsEngine.NoBias, ql.IsdaCdsEngine.Flat)
+        engine = ql.IsdaCdsEngine(credit, recovery, discount, False, *ENGINE_OPTIONS)
 
         def make(coupon):
             cds = ql.CreditDefaultSwap(ql.Protection.Buyer, 1.0, coupon, self.schedule,
@@ -620,7 +625,7 @@ def single_coupon_note(trade, case, dh, rows, tenors):
             "hazard_minus_unmodified": h - ph,
         })
     return {
-        "text": ("Expected values count the maturity day in the lone coupon, as the "Coupon accrual and day counts" convention says "
+        "text": ("Expected values count the maturity day in the lone coupon, as the 'Coupon accrual and day counts' convention says "
                  "(leg built with Actual/360 inclusive). Unmodified QuantLib drops that day; "
                  "its values are listed here. Later tenors of the same curve inherit the "
                  "difference through the earlier hazards."),
@@ -646,13 +651,13 @@ CONVENTIONS = (
     "QuantLib IsdaCdsEngine(credit, R, discount, includeSettlementDateFlows=False, "
     "NumericalFix.Taylor, AccrualBias.NoBias, ForwardsInCouponPeriod.Flat). Calendar "
     "WeekendsOnly, Following. Maturity = cdsMaturity(T, tenor, DateGeneration.CDS2015), "
-    "unadjusted (asserted equal to the "IMM dates and the semi-annual roll" convention in plain Python). Schedule(T+1, maturity, 3M, "
-    "WeekendsOnly, Following, Unadjusted, DateGeneration.CDS2015), asserted equal to the "Premium schedule" convention in "
+    "unadjusted (asserted equal to the 'IMM dates and the semi-annual roll' convention in plain Python). Schedule(T+1, maturity, 3M, "
+    "WeekendsOnly, Following, Unadjusted, DateGeneration.CDS2015), asserted equal to the 'Premium schedule' convention in "
     "plain Python. CreditDefaultSwap(Buyer, notional 1, coupon, schedule, Following, "
     "Actual360(), settlesAccrual=True, paysAtDefaultTime=True, protectionStart=T+1, "
     "FaceValueClaim, lastPeriodDayCounter=Actual360(True), rebatesAccrual=True, tradeDate=T, "
     "cashSettlementDays=3); for a schedule with a single coupon the accrual day counter is "
-    "Actual360(True) instead, so that the lone coupon counts the maturity day as the "Coupon accrual and day counts" convention says "
+    "Actual360(True) instead, so that the lone coupon counts the maturity day as the 'Coupon accrual and day counts' convention says "
     "(unmodified QuantLib drops it; such tenors carry ql_single_coupon_difference=true and the "
     "case carries the unmodified values in single_coupon_note). Discount curve: "
     "DiscountCurve (log-linear DF) on dates [T, T+tenor...] (QuantLib Date+Period, month-end "
@@ -666,7 +671,7 @@ CONVENTIONS = (
     "curve stops before it. Outputs per tenor, on the final curve: survival = "
     "S(unadjusted maturity); par_spread_bp_repriced = 1e4*fairSpread; upfront_100bp/500bp = "
     "fairUpfront of a 100/500 bp buyer contract = (Prot - Prem - AoD + Rebate*DF(cs))/DF(cs), "
-    "which is the "Par spread and upfront" convention as is (clean, at cash settlement T+3 business days, positive when the "
+    "which is the 'Par spread and upfront' convention as is (clean, at cash settlement T+3 business days, positive when the "
     "buyer pays; no conversion applied). protection_leg = defaultLegNPV (per unit notional, "
     "PV at T, recovery applied). premium_leg_per_unit_coupon = -couponLegNPV of a unit-coupon "
     "buyer contract = premium coupons plus accrual on default, PV at T, rebate excluded. "

@@ -45,7 +45,7 @@ pub struct BootstrapSettings {
 impl Default for BootstrapSettings {
     fn default() -> Self {
         BootstrapSettings {
-            accrual: AccrualIntegration::Standard,
+            accrual: AccrualIntegration::Published,
             infeasible: InfeasiblePolicy::Floor,
             hazard_tolerance: 1e-14,
             max_iterations: 100,

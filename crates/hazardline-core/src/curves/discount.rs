@@ -30,6 +30,12 @@ pub enum DiscountCurveError {
     DuplicatePillar { reference: NaiveDate, date: NaiveDate, first: Tenor, second: Tenor },
     #[error("discount curve for {reference}: zero rate {rate} at {tenor} is not a finite number")]
     BadRate { reference: NaiveDate, tenor: Tenor, rate: f64 },
+    #[error("discount curve for {reference}: discount factor {factor} on {date} is not a finite positive number")]
+    BadFactor { reference: NaiveDate, date: NaiveDate, factor: f64 },
+    #[error("discount curve for {reference}: pillar {date} is not after the reference date")]
+    PillarNotAfterReference { reference: NaiveDate, date: NaiveDate },
+    #[error("discount curve for {reference}: two pillars fall on {date}")]
+    DuplicateDate { reference: NaiveDate, date: NaiveDate },
 }
 
 impl DiscountCurve {
@@ -62,6 +68,39 @@ impl DiscountCurve {
         let dates: Vec<NaiveDate> = rows.iter().map(|r| r.0).collect();
         let times: Vec<f64> = dates.iter().map(|&d| year_time(reference, d)).collect();
         let log_dfs = rows.iter().zip(&times).map(|(r, &t)| -r.2 * t).collect();
+        Ok(DiscountCurve { reference, dates, times, log_dfs })
+    }
+
+    /// Builds the curve from (pillar date, discount factor) pairs in any order; the same
+    /// log-linear interpolation as [`DiscountCurve::from_zero_rates`] (a pillar on the
+    /// reference date with factor 1 is implied).
+    pub fn from_discount_factors(
+        reference: NaiveDate,
+        pillars: &[(NaiveDate, f64)],
+    ) -> Result<DiscountCurve, DiscountCurveError> {
+        let mut rows: Vec<(NaiveDate, f64)> = Vec::with_capacity(pillars.len());
+        for &(date, factor) in pillars {
+            if date == reference && factor == 1.0 {
+                continue;
+            }
+            if !(factor > 0.0 && factor.is_finite()) {
+                return Err(DiscountCurveError::BadFactor { reference, date, factor });
+            }
+            if date <= reference {
+                return Err(DiscountCurveError::PillarNotAfterReference { reference, date });
+            }
+            rows.push((date, factor));
+        }
+        if rows.is_empty() {
+            return Err(DiscountCurveError::Empty { reference });
+        }
+        rows.sort_by_key(|r| r.0);
+        if let Some(w) = rows.windows(2).find(|w| w[0].0 == w[1].0) {
+            return Err(DiscountCurveError::DuplicateDate { reference, date: w[0].0 });
+        }
+        let dates: Vec<NaiveDate> = rows.iter().map(|r| r.0).collect();
+        let times: Vec<f64> = dates.iter().map(|&d| year_time(reference, d)).collect();
+        let log_dfs = rows.iter().map(|r| r.1.ln()).collect();
         Ok(DiscountCurve { reference, dates, times, log_dfs })
     }
 

@@ -32,13 +32,20 @@ pub const SERIES_THRESHOLD: f64 = 1e-4;
 /// How accrual on default is integrated inside a coupon period.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub enum AccrualIntegration {
-    /// One interval per coupon period, forwards flat inside it (the standard model).
+    /// The published standard model (the default): the integral split at every discount and
+    /// hazard node inside the coupon period, with the half-day term: the accrued amount at a
+    /// default runs from half a day before the period's start. What QuantLib's standard-model engine
+    /// computes with its default options (Taylor fix, half-day bias, piecewise forwards), and
+    /// what reproduces the upfronts published with that engine's tests.
     #[default]
+    Published,
+    /// One interval per coupon period, forwards flat inside it, no half-day term.
     Standard,
-    /// Split at every discount and hazard node inside the period (exact for the curves).
+    /// Split at every discount and hazard node inside the period, no half-day term (exact for
+    /// the curves with the accrued amount linear from the period's start).
     Exact,
 }
-crate::text_form!(AccrualIntegration { Standard => "standard", Exact => "exact" });
+crate::text_form!(AccrualIntegration { Published => "published", Standard => "standard", Exact => "exact" });
 
 /// How a CDS is quoted.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -173,7 +180,7 @@ pub(crate) struct CouponTerm {
     pub pay_df_ratio: f64,
     /// Grid point of pay - 1 day (survival for the premium, end of the accrual-on-default span).
     pub q_idx: u32,
-    /// t(accrual start - 1 day).
+    /// t(accrual start - 1 day), less half a day (1/730) with the half-day term.
     pub t_s: f64,
     /// Range into `aod_path` of the grid points the accrual-on-default integral runs over;
     /// empty when the accrual ends on or before T + 1.
@@ -330,18 +337,20 @@ impl LegPlan {
                     let t0 = tt(p.start.max(eff) - 1);
                     let t1 = tt(p.pay - 1);
                     aod_path.push(point(&times, t0));
-                    if mode == AccrualIntegration::Exact {
+                    if mode != AccrualIntegration::Standard {
                         for &t in node_times.iter().filter(|&&t| t > t0 && t < t1) {
                             aod_path.push(point(&times, t));
                         }
                     }
                     aod_path.push(q_idx);
                 }
+                // The half-day term starts the accrued amount's clock half a day earlier.
+                let t_s = tt(p.start - 1) - if mode == AccrualIntegration::Published { HALF_DAY } else { 0.0 };
                 coupons.push(CouponTerm {
                     accrual: cp.accrual_fraction(),
                     pay_df_ratio,
                     q_idx,
-                    t_s: tt(p.start - 1),
+                    t_s,
                     aod_from: from,
                     aod_to: aod_path.len() as u32,
                     paid,
@@ -431,6 +440,9 @@ impl CouponTerm {
         365.0 / 360.0
     }
 }
+
+/// Half a day in Act/365F years: the standard model's half-day term.
+const HALF_DAY: f64 = 1.0 / 730.0;
 
 /// The curves handed to [`price_legs`] are not referenced on the trade date.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]

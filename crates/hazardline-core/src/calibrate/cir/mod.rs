@@ -94,7 +94,7 @@ impl Default for CirFitSettings {
     fn default() -> Self {
         CirFitSettings {
             grid_step: DEFAULT_GRID_STEP,
-            accrual: AccrualIntegration::Standard,
+            accrual: AccrualIntegration::Published,
             bounds: CirBounds::default(),
             solver: CirSolver::LevenbergMarquardt,
             lm: LmSettings::default(),
