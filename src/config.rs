@@ -359,8 +359,14 @@ pub struct ConventionsSection {
     pub recovery_by_seniority: Option<BTreeMap<String, f64>>,
     /// `floor` (default) or `fail`: what to do with a quote that needs a negative hazard.
     pub infeasible: Option<InfeasiblePolicy>,
-    /// `standard` (default) or `exact` accrual-on-default integration.
+    /// `published` (default: the published standard model), `standard` or `exact`
+    /// accrual-on-default integration.
     pub accrual_on_default: Option<AccrualIntegration>,
+    /// Compounding of the discount table's zero rates: `continuous` (default), `annual`,
+    /// `semi_annual`, `quarterly` or `simple`.
+    pub zero_rate_compounding: Option<crate::curves::Compounding>,
+    /// Day count of the discount table's zero rates: `act365f` (default) or `act360`.
+    pub zero_rate_day_count: Option<crate::curves::RateDayCount>,
 }
 
 /// `[calibration]`.
@@ -475,6 +481,8 @@ pub struct RunConfig {
     pub recovery_by_seniority: BTreeMap<String, f64>,
     pub infeasible: InfeasiblePolicy,
     pub accrual_on_default: AccrualIntegration,
+    pub zero_rate_compounding: crate::curves::Compounding,
+    pub zero_rate_day_count: crate::curves::RateDayCount,
     pub cds_bootstrap: bool,
     #[serde(skip)]
     pub bootstrap: BootstrapSettings,
@@ -720,6 +728,8 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
     }
     let infeasible = c.infeasible.unwrap_or_default();
     let accrual_on_default = c.accrual_on_default.unwrap_or_default();
+    let zero_rate_compounding = c.zero_rate_compounding.unwrap_or_default();
+    let zero_rate_day_count = c.zero_rate_day_count.unwrap_or_default();
 
     let k = &file.calibration;
     let cds_bootstrap = k.cds_bootstrap.unwrap_or(true);
@@ -845,6 +855,8 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         recovery_by_seniority: by_sen,
         infeasible,
         accrual_on_default,
+        zero_rate_compounding,
+        zero_rate_day_count,
         cds_bootstrap,
         bootstrap: BootstrapSettings { infeasible, accrual: accrual_on_default, ..BootstrapSettings::default() },
         bond_fit,

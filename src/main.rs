@@ -291,6 +291,9 @@ fn dispatch(command: Command) -> Result<u8> {
                 recovery_by_seniority: Default::default(),
                 calendar: calendar.clone(),
                 bootstrap,
+                // The discount table's zero rates: continuously compounded Act/365F (the
+                // pipeline file can say otherwise; this command keeps the default).
+                zero_rates: Default::default(),
             };
             commands::calibrate::run(&CalibrateSettings {
                 inputs: inputs.paths(),

@@ -138,6 +138,10 @@ fn calibration_params(cfg: &RunConfig) -> CalibrationParams {
         recovery_by_seniority: cfg.recovery_by_seniority.clone(),
         bootstrap: cfg.bootstrap,
         calendar: cfg.calendar.clone(),
+        zero_rates: crate::curves::ZeroRateConvention {
+            compounding: cfg.zero_rate_compounding,
+            day_count: cfg.zero_rate_day_count,
+        },
     }
 }
 

@@ -34,6 +34,8 @@ pub struct CalibrationParams {
     pub recovery_by_seniority: BTreeMap<String, f64>,
     pub bootstrap: BootstrapSettings,
     pub calendar: Calendar,
+    /// Compounding and day count of the discount table's zero rates.
+    pub zero_rates: crate::curves::ZeroRateConvention,
 }
 
 /// Tables and counts produced by calibrating a dataset.
@@ -76,27 +78,66 @@ struct CurveOutput {
 /// rejected.
 fn discount_curves(
     rows: Vec<DiscountRow>,
+    convention: crate::curves::ZeroRateConvention,
     rejects: &mut Vec<Reject>,
 ) -> (BTreeMap<(NaiveDate, String), DiscountCurve>, usize) {
     let mut groups: BTreeMap<(NaiveDate, String), Vec<DiscountRow>> = BTreeMap::new();
     for r in rows {
         groups.entry((r.date, r.currency.clone())).or_default().push(r);
     }
+    let reject = |r: &DiscountRow, reason: &'static str, detail: String| {
+        let mut rej = Reject::new(discount::TABLE, &r.source, r.row, reason, detail);
+        rej.date = Some(r.date);
+        rej.key = format!("{} {}", r.currency, r.pillar);
+        rej
+    };
     let mut out = BTreeMap::new();
     let mut used = 0;
     for (key, rows) in groups {
-        let pillars: Vec<(Tenor, f64)> = rows.iter().map(|r| (r.tenor, r.zero_rate)).collect();
-        match DiscountCurve::from_zero_rates(key.0, &pillars) {
+        // Each pillar's ln DF; a zero rate that gives no positive discount factor in the
+        // run's convention rejects its row (the curve is built from the others).
+        let mut kept: Vec<DiscountRow> = Vec::with_capacity(rows.len());
+        let mut pillars: Vec<(NaiveDate, f64)> = Vec::with_capacity(rows.len());
+        for r in rows {
+            let log_df = match r.value {
+                discount::PillarValue::DiscountFactor(f) => Some(f.ln()),
+                discount::PillarValue::ZeroRate(z) => crate::curves::log_df_from_zero_rate(
+                    r.date,
+                    r.pillar_date,
+                    z,
+                    convention.compounding,
+                    convention.day_count,
+                ),
+            };
+            match log_df {
+                Some(l) => {
+                    pillars.push((r.pillar_date, l));
+                    kept.push(r);
+                }
+                None => rejects.push(reject(
+                    &r,
+                    "no_discount_factor",
+                    format!(
+                        "zero rate {:?} compounded {} ({}) gives no positive discount factor to {}",
+                        r.value,
+                        convention.compounding.as_str(),
+                        convention.day_count.as_str(),
+                        r.pillar_date
+                    ),
+                )),
+            }
+        }
+        if kept.is_empty() {
+            continue;
+        }
+        match DiscountCurve::from_log_discount_factors(key.0, &pillars) {
             Ok(c) => {
-                used += rows.len();
+                used += kept.len();
                 out.insert(key, c);
             }
             Err(e) => {
-                for r in rows {
-                    let mut rej = Reject::new(discount::TABLE, &r.source, r.row, "bad_discount_curve", e.to_string());
-                    rej.date = Some(r.date);
-                    rej.key = format!("{} {}", r.currency, r.tenor);
-                    rejects.push(rej);
+                for r in kept {
+                    rejects.push(reject(&r, "bad_discount_curve", e.to_string()));
                 }
             }
         }
@@ -255,7 +296,7 @@ pub fn calibrate_blocks(
         .as_ref()
         .ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the cds_quotes table".into() })?;
     let mut out = Calibration::default();
-    let (curves, disc_used) = discount_curves(disc.rows.clone(), &mut out.rejects);
+    let (curves, disc_used) = discount_curves(disc.rows.clone(), p.zero_rates, &mut out.rejects);
     for ((date, ccy), c) in &curves {
         for (&pillar, &ln_df) in c.pillar_dates().iter().zip(c.pillar_log_dfs()) {
             let t = crate::curves::year_time(*date, pillar);

@@ -60,6 +60,10 @@ pub struct RecordedSettings {
     pub recovery_by_seniority: BTreeMap<String, f64>,
     pub infeasible: InfeasiblePolicy,
     pub accrual_on_default: AccrualIntegration,
+    #[serde(default)]
+    pub zero_rate_compounding: crate::curves::Compounding,
+    #[serde(default)]
+    pub zero_rate_day_count: crate::curves::RateDayCount,
     pub bond_fit: bool,
     pub cir: bool,
     pub cir_mode: CirFitMode,

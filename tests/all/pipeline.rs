@@ -229,3 +229,60 @@ fn tables_read_with_pyarrow() {
         );
     }
 }
+
+/// The fixture's discount table given three ways (continuously compounded zero rates by tenor,
+/// discount factors by pillar date, annually compounded zero rates with
+/// `conventions.zero_rate_compounding = "annual"`) calibrates the same hazard curves: every
+/// hazard within 1e-12 relative (the three forms differ only by the rounding of exp and ln).
+#[test]
+fn discount_tables_by_date_factor_or_compounding_calibrate_alike() {
+    let dir = tempfile::tempdir().unwrap();
+    let cds = repo().join("tests/fixtures/sample/cds_quotes.csv");
+    let text = std::fs::read_to_string(repo().join("tests/fixtures/sample/discount.csv")).unwrap();
+    let rows: Vec<(String, String, String, f64)> = text
+        .lines()
+        .skip(1)
+        .filter(|l| !l.trim().is_empty())
+        .map(|l| {
+            let f: Vec<&str> = l.split(',').collect();
+            (f[0].to_string(), f[1].to_string(), f[2].to_string(), f[3].parse().unwrap())
+        })
+        .collect();
+    let mut by_date = String::from("date,currency,pillar_date,discount_factor\n");
+    let mut annual = String::from("date,currency,tenor,zero_rate\n");
+    for (d, c, t, z) in &rows {
+        let date = hazardline::time::parse_iso_date(d).unwrap();
+        let tenor: hazardline::time::Tenor = t.parse().unwrap();
+        let pillar = hazardline::time::add_months(date, tenor.months() as i32);
+        let years = hazardline::curves::year_time(date, pillar);
+        by_date += &format!("{d},{c},{pillar},{:.17e}\n", (-z * years).exp());
+        annual += &format!("{d},{c},{t},{:.17e}\n", z.exp_m1());
+    }
+    let variants = [
+        ("zero", text.clone(), ""),
+        ("factor", by_date, ""),
+        ("annual", annual, "zero_rate_compounding = \"annual\"\n"),
+    ];
+    let mut hazards: Vec<Vec<f64>> = Vec::new();
+    for (name, table, convention) in variants {
+        let sub = dir.path().join(name);
+        std::fs::create_dir_all(&sub).unwrap();
+        std::fs::write(sub.join("discount.csv"), table).unwrap();
+        let toml = format!(
+            "name = \"{name}\"\n[inputs]\ncds_quotes = {:?}\ndiscount = \"discount.csv\"\n[conventions]\nrecovery = 0.40\n{convention}[report]\nlabel = \"r\"\n",
+            cds.display().to_string()
+        );
+        std::fs::write(sub.join("p.toml"), toml).unwrap();
+        let cfg = load_pipeline(&sub.join("p.toml")).unwrap();
+        let out = run(&cfg, &RunOptions { out_root: Some(sub.join("out")), label: None }).unwrap().run_dir;
+        let rows = hazardline::tables::read::<hazardline::tables::HazardCurveRow>(&out.join("tables")).unwrap();
+        assert!(rows.len() > 100, "{name}: {} hazard rows", rows.len());
+        hazards.push(rows.iter().map(|r| r.hazard.unwrap_or(f64::NAN)).collect());
+    }
+    for (k, other) in hazards.iter().enumerate().skip(1) {
+        assert_eq!(other.len(), hazards[0].len());
+        for (a, b) in hazards[0].iter().zip(other) {
+            assert!((a - b).abs() <= 1e-12 * a.abs().max(1e-6), "variant {k}: {a} vs {b}");
+        }
+    }
+}

@@ -287,6 +287,45 @@ fn discount_rules() {
     );
 }
 
+/// Pillars by date and values as discount factors, with every way a row can be refused.
+#[test]
+fn discount_rules_for_dates_and_factors() {
+    let text = "date,currency,tenor,zero_rate,pillar_date,discount_factor\n\
+2024-01-02,USD,,,2025-01-02,0.961\n\
+2024-01-02,USD,2Y,0.041,,\n\
+2024-01-02,USD,3Y,,2027-01-04,0.88\n\
+2024-01-02,USD,,0.04,,\n\
+2024-01-02,USD,,,2023-12-29,0.99\n\
+2024-01-02,USD,,,2029-01-02,1.9\n\
+2024-01-02,USD,,0.04,2030-01-02,0.8\n\
+2024-01-02,USD,5Y,,,\n\
+2024-01-02,USD,,,2026-01-02,0.923\n\
+2024-01-02,USD,,,2026-01-02,0.924\n\
+2024-01-02,USD,,,2025-01-02,0.961\n";
+    let ds = check(&[("discount", text)]);
+    assert_eq!(
+        rejected(&ds),
+        vec![
+            // 2Y from 2024-01-02 is the pillar 2026-01-02 that rows 9 and 10 give by date, with
+            // other values: a tenor and a date naming one pillar are one key.
+            ("discount", 2, "conflicting_duplicate"),
+            ("discount", 3, "ambiguous_pillar"),
+            ("discount", 4, "missing_value"),
+            ("discount", 5, "pillar_not_after_date"),
+            ("discount", 6, "implausible_discount_factor"),
+            ("discount", 7, "ambiguous_value"),
+            ("discount", 8, "missing_value"),
+            ("discount", 9, "conflicting_duplicate"),
+            ("discount", 10, "conflicting_duplicate"),
+            ("discount", 11, "duplicate_row"),
+        ]
+    );
+    let rows = &ds.discount.as_ref().unwrap().rows;
+    assert_eq!(rows.len(), 1);
+    assert!(rows.iter().any(|r| r.pillar == "2025-01-02"
+        && matches!(r.value, hazardline::ingest::discount::PillarValue::DiscountFactor(f) if f == 0.961)));
+}
+
 #[test]
 fn reference_tables_and_unknown_entities() {
     let entities = "entity,name,sector,region\nA,Alder Works,Industrials,North\nB,Birch Lane,Utilities,South\nB,Birch Lane,Utilities,South\nC,Cedar,X,Y\nC,Cedar Two,X,Y\n";

@@ -1,13 +1,83 @@
-//! Risk-free discount curve from continuously compounded zero rates.
+//! Risk-free discount curve from zero rates or discount factors at pillar dates.
 //!
-//! Pillars sit at reference + tenor (calendar months, clipped to month end, unadjusted); zero
-//! rates are Actual/365 Fixed continuously compounded, DF = exp(-z t). Between pillars the
-//! log discount factor is linear in t (flat forwards). Before the first pillar the first zero
-//! rate holds; after the last, the last forward rate holds.
+//! Pillars sit at reference + tenor (calendar months, clipped to month end, unadjusted) or at
+//! given dates. Zero rates are converted to discount factors with their compounding and day
+//! count ([`log_df_from_zero_rate`]; continuously compounded Act/365F: DF = exp(-z t)).
+//! Between pillars the log discount factor is linear in t on Act/365F (flat forwards). Before
+//! the first pillar the first zero rate holds; after the last, the last forward rate holds.
 
 use super::year_time;
 use crate::time::{add_months, Tenor};
 use chrono::NaiveDate;
+
+/// How a zero rate compounds.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Compounding {
+    /// DF = exp(-z t).
+    #[default]
+    Continuous,
+    /// DF = (1 + z)^(-t).
+    Annual,
+    /// DF = (1 + z/2)^(-2t).
+    SemiAnnual,
+    /// DF = (1 + z/4)^(-4t).
+    Quarterly,
+    /// DF = 1 / (1 + z t).
+    Simple,
+}
+crate::text_form!(Compounding {
+    Continuous => "continuous",
+    Annual => "annual",
+    SemiAnnual => "semi_annual",
+    Quarterly => "quarterly",
+    Simple => "simple",
+});
+
+/// The day count of a zero rate's time t.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum RateDayCount {
+    /// Actual days / 365.
+    #[default]
+    Act365F,
+    /// Actual days / 360.
+    Act360,
+}
+crate::text_form!(RateDayCount { Act365F => "act365f", Act360 => "act360" });
+
+/// The compounding and day count of the zero rates of a discount table.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct ZeroRateConvention {
+    pub compounding: Compounding,
+    pub day_count: RateDayCount,
+}
+
+/// ln DF at `pillar` of a zero rate `rate` quoted from `reference` with its compounding and
+/// day count; None when the rate gives no positive discount factor (1 + z/m <= 0, or
+/// 1 + z t <= 0 for simple compounding).
+pub fn log_df_from_zero_rate(
+    reference: NaiveDate,
+    pillar: NaiveDate,
+    rate: f64,
+    compounding: Compounding,
+    day_count: RateDayCount,
+) -> Option<f64> {
+    let days = (pillar - reference).num_days() as f64;
+    let t = match day_count {
+        // The same number as `year_time` gives (Act/365F), so a continuously compounded
+        // Act/365F rate keeps its pillar's ln DF = -z t exactly.
+        RateDayCount::Act365F => year_time(reference, pillar),
+        RateDayCount::Act360 => days / 360.0,
+    };
+    let periodic = |m: f64| (1.0 + rate / m > 0.0).then(|| -m * t * (1.0 + rate / m).ln());
+    let v = match compounding {
+        Compounding::Continuous => Some(-rate * t),
+        Compounding::Annual => periodic(1.0),
+        Compounding::SemiAnnual => periodic(2.0),
+        Compounding::Quarterly => periodic(4.0),
+        Compounding::Simple => (1.0 + rate * t > 0.0).then(|| -(1.0 + rate * t).ln()),
+    };
+    v.filter(|x| x.is_finite())
+}
 
 /// A discount curve on the Act/365F axis.
 #[derive(Debug, Clone, PartialEq)]
@@ -78,18 +148,34 @@ impl DiscountCurve {
         reference: NaiveDate,
         pillars: &[(NaiveDate, f64)],
     ) -> Result<DiscountCurve, DiscountCurveError> {
-        let mut rows: Vec<(NaiveDate, f64)> = Vec::with_capacity(pillars.len());
+        let mut logs = Vec::with_capacity(pillars.len());
         for &(date, factor) in pillars {
-            if date == reference && factor == 1.0 {
-                continue;
-            }
             if !(factor > 0.0 && factor.is_finite()) {
                 return Err(DiscountCurveError::BadFactor { reference, date, factor });
+            }
+            logs.push((date, factor.ln()));
+        }
+        Self::from_log_discount_factors(reference, &logs)
+    }
+
+    /// Builds the curve from (pillar date, ln discount factor) pairs in any order (a pillar on
+    /// the reference date with ln DF 0 is implied and may be given).
+    pub fn from_log_discount_factors(
+        reference: NaiveDate,
+        pillars: &[(NaiveDate, f64)],
+    ) -> Result<DiscountCurve, DiscountCurveError> {
+        let mut rows: Vec<(NaiveDate, f64)> = Vec::with_capacity(pillars.len());
+        for &(date, log_df) in pillars {
+            if date == reference && log_df == 0.0 {
+                continue;
+            }
+            if !log_df.is_finite() {
+                return Err(DiscountCurveError::BadFactor { reference, date, factor: log_df.exp() });
             }
             if date <= reference {
                 return Err(DiscountCurveError::PillarNotAfterReference { reference, date });
             }
-            rows.push((date, factor));
+            rows.push((date, log_df));
         }
         if rows.is_empty() {
             return Err(DiscountCurveError::Empty { reference });
@@ -100,7 +186,7 @@ impl DiscountCurve {
         }
         let dates: Vec<NaiveDate> = rows.iter().map(|r| r.0).collect();
         let times: Vec<f64> = dates.iter().map(|&d| year_time(reference, d)).collect();
-        let log_dfs = rows.iter().map(|r| r.1.ln()).collect();
+        let log_dfs = rows.iter().map(|r| r.1).collect();
         Ok(DiscountCurve { reference, dates, times, log_dfs })
     }
 
@@ -213,5 +299,49 @@ mod tests {
         let e = DiscountCurve::from_zero_rates(r, &[(tn("12M"), 0.03), (tn("1Y"), 0.04)]).unwrap_err();
         assert!(matches!(e, DiscountCurveError::DuplicatePillar { .. }));
         assert!(DiscountCurve::from_zero_rates(r, &[]).is_err());
+    }
+
+    #[test]
+    fn zero_rates_of_every_compounding_and_day_count() {
+        let r = NaiveDate::from_ymd_opt(2024, 1, 2).unwrap();
+        let p = NaiveDate::from_ymd_opt(2026, 1, 1).unwrap(); // 730 days
+        let ln = |z, c, d| log_df_from_zero_rate(r, p, z, c, d).unwrap();
+        // t = 2 (Act/365F) or 730/360 = 2.027778 (Act/360); the closed forms evaluated with
+        // Python's math.log: continuous -0.05 x 2 = -0.1; annual -2 ln 1.05 = -0.0975803;
+        // semi-annual -4 ln 1.025 = -0.0987705; quarterly -8 ln 1.0125 = -0.0993802; simple
+        // -ln 1.1 = -0.0953102; simple Act/360 -ln(1 + 0.05 x 2.027778) = -0.0965720.
+        assert_eq!(ln(0.05, Compounding::Continuous, RateDayCount::Act365F), -0.05 * 2.0);
+        assert!((ln(0.05, Compounding::Annual, RateDayCount::Act365F) + 0.0975803).abs() < 1e-7);
+        assert!((ln(0.05, Compounding::SemiAnnual, RateDayCount::Act365F) + 0.0987705).abs() < 1e-7);
+        assert!((ln(0.05, Compounding::Quarterly, RateDayCount::Act365F) + 0.0993802).abs() < 1e-7);
+        assert!((ln(0.05, Compounding::Simple, RateDayCount::Act365F) + 0.0953102).abs() < 1e-7);
+        assert!((ln(0.05, Compounding::Simple, RateDayCount::Act360) + 0.0965720).abs() < 1e-7);
+        // No positive discount factor: refused.
+        assert!(log_df_from_zero_rate(r, p, -1.5, Compounding::Annual, RateDayCount::Act365F).is_none());
+        assert!(log_df_from_zero_rate(r, p, -0.6, Compounding::Simple, RateDayCount::Act365F).is_none());
+    }
+
+    #[test]
+    fn discount_factors_by_date_give_the_zero_rate_curve() {
+        let r = NaiveDate::from_ymd_opt(2024, 1, 2).unwrap();
+        let tn = |s: &str| s.parse::<Tenor>().unwrap();
+        let z = DiscountCurve::from_zero_rates(r, &[(tn("1Y"), 0.03), (tn("5Y"), 0.035)]).unwrap();
+        let pillars: Vec<(NaiveDate, f64)> =
+            z.pillar_dates().iter().zip(z.pillar_log_dfs()).map(|(d, l)| (*d, l.exp())).collect();
+        let f = DiscountCurve::from_discount_factors(r, &pillars).unwrap();
+        for t in [0.1, 1.0, 2.5, 5.0, 8.0] {
+            assert!((f.log_df_at(t) - z.log_df_at(t)).abs() < 1e-15, "{t}");
+        }
+        let e = DiscountCurve::from_discount_factors(r, &[(r, 0.99)]).unwrap_err();
+        assert!(matches!(e, DiscountCurveError::PillarNotAfterReference { .. }), "{e}");
+        let d = NaiveDate::from_ymd_opt(2025, 1, 2).unwrap();
+        assert!(matches!(
+            DiscountCurve::from_discount_factors(r, &[(d, 0.97), (d, 0.96)]),
+            Err(DiscountCurveError::DuplicateDate { .. })
+        ));
+        assert!(matches!(
+            DiscountCurve::from_discount_factors(r, &[(d, -0.1)]),
+            Err(DiscountCurveError::BadFactor { .. })
+        ));
     }
 }

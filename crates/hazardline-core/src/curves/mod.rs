@@ -6,7 +6,9 @@
 pub mod discount;
 pub mod hazard;
 
-pub use discount::{DiscountCurve, DiscountCurveError};
+pub use discount::{
+    log_df_from_zero_rate, Compounding, DiscountCurve, DiscountCurveError, RateDayCount, ZeroRateConvention,
+};
 pub use hazard::{HazardCurve, HazardCurveError};
 
 use chrono::NaiveDate;
