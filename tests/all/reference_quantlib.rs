@@ -356,13 +356,44 @@ fn published_upfront_table_is_reproduced() {
 /// (largest relative miss of the 20 published upfronts, where, that miss in bp of notional)
 /// with one accrual variant used for both the flat hazard and the upfront.
 fn published_table_misses(accrual: AccrualIntegration) -> (f64, String, f64) {
-    let cal = Calendar::weekends_only();
     let r = accrual_reference();
     let t = &r["published_table"];
     let trade = d(s(&t["trade_date"]));
     let pillars: Vec<(chrono::NaiveDate, f64)> =
         t["discount_pillars"].as_array().unwrap().iter().map(|p| (d(s(&p[0])), num(&p[1]))).collect();
-    let discount = DiscountCurve::from_discount_factors(trade, &pillars).unwrap();
+    published_table_misses_on(accrual, &DiscountCurve::from_discount_factors(trade, &pillars).unwrap())
+}
+
+/// The same table with hazardline's own standard curve from the test's deposit and swap rates
+/// (USD conventions): the published variant reproduces it within its tolerance on that curve too.
+#[test]
+fn published_upfront_table_on_the_tools_own_rate_curve() {
+    use hazardline::curves::rates::{build_rate_curve, RateConvention, RateInstrument, RateQuote};
+    let r = accrual_reference();
+    let t = &r["published_table"];
+    let trade = d(s(&t["trade_date"]));
+    let mut quotes = Vec::new();
+    for (key, instrument, unit, scale) in
+        [("deposits", RateInstrument::Deposit, "tenors_months", 1), ("swaps", RateInstrument::Swap, "tenors_years", 12)]
+    {
+        for (n, rate) in t[key][unit].as_array().unwrap().iter().zip(t[key]["rates"].as_array().unwrap()) {
+            let months = n.as_u64().unwrap() as u32 * scale;
+            quotes.push(RateQuote { instrument, tenor: Tenor::from_months(months).unwrap(), rate: num(rate) });
+        }
+    }
+    let conv = RateConvention::default_for("USD").unwrap();
+    let (curve, _) = build_rate_curve(trade, &quotes, &conv, &Calendar::weekends_only()).unwrap();
+    let (miss, at, _) = published_table_misses_on(AccrualIntegration::Published, &curve);
+    let tol = num(&t["tolerance_relative"]);
+    eprintln!("published upfront table on hazardline's own rate curve: largest relative miss {miss:.2e} ({at})");
+    assert!(miss <= tol, "{miss:e} at {at}");
+}
+
+fn published_table_misses_on(accrual: AccrualIntegration, discount: &DiscountCurve) -> (f64, String, f64) {
+    let cal = Calendar::weekends_only();
+    let r = accrual_reference();
+    let t = &r["published_table"];
+    let trade = d(s(&t["trade_date"]));
     let mut worst = (0.0f64, String::new(), 0.0f64);
     let mut n = 0;
     for c in t["cases"].as_array().unwrap() {
@@ -374,7 +405,7 @@ fn published_table_misses(accrual: AccrualIntegration) -> (f64, String, f64) {
         let spread = num(&c["quoted_spread"]);
         let par = |h: f64| {
             let curve = hazardline::curves::HazardCurve::flat(trade, h);
-            price_legs(&contract, recovery, &discount, &curve, accrual).unwrap().par_spread()
+            price_legs(&contract, recovery, discount, &curve, accrual).unwrap().par_spread()
         };
         let (mut lo, mut hi) = (0.0f64, 5.0f64);
         for _ in 0..200 {
@@ -386,7 +417,7 @@ fn published_table_misses(accrual: AccrualIntegration) -> (f64, String, f64) {
             }
         }
         let curve = hazardline::curves::HazardCurve::flat(trade, 0.5 * (lo + hi));
-        let legs = price_legs(&contract, recovery, &discount, &curve, accrual).unwrap();
+        let legs = price_legs(&contract, recovery, discount, &curve, accrual).unwrap();
         let got = 1e7 * legs.upfront(0.01);
         let want = num(&c["published_upfront"]);
         let rel = (got - want).abs() / want.abs();
@@ -446,4 +477,59 @@ fn spread_and_published_upfront_quotes_bootstrap_the_same_hazard() {
     );
     assert!(worst[0] <= tol, "published: {:e}", worst[0]);
     assert!(worst[1] > 100.0 * tol, "standard: {:e}", worst[1]);
+}
+
+/// The standard curve from deposit and swap quotes against QuantLib's piecewise log-linear
+/// discount curve from the same rate helpers (tests/reference/rate_curve_quantlib.py: the rates
+/// of QuantLib's own testIsdaEngine and invented EUR, GBP, JPY and USD cases): the same pillar
+/// dates, and discount factors at the pillars and at probe dates within 1e-12.
+#[test]
+fn rate_curve_matches_quantlib() {
+    use hazardline::curves::rates::{build_rate_curve, RateConvention, RateInstrument, RateQuote};
+    use hazardline::time::DayCount;
+    let path = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/rate_curve_quantlib.json");
+    let r: Value = serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap();
+    let cal = Calendar::weekends_only();
+    let dc = |v: &Value| -> DayCount { s(v).parse().unwrap() };
+    let mut worst: f64 = 0.0;
+    let mut cases = 0;
+    for c in r["cases"].as_array().unwrap() {
+        let id = s(&c["id"]);
+        let trade = d(s(&c["date"]));
+        let k = &c["convention"];
+        let conv = RateConvention {
+            spot_lag: k["spot_lag"].as_u64().unwrap() as u32,
+            deposit_day_count: dc(&k["deposit_day_count"]),
+            fixed_months: k["fixed_months"].as_u64().unwrap() as u32,
+            fixed_day_count: dc(&k["fixed_day_count"]),
+            float_months: k["float_months"].as_u64().unwrap() as u32,
+        };
+        assert_eq!(RateConvention::default_for(s(&c["currency"])), Some(conv), "{id}: the currency's default");
+        let mut quotes = Vec::new();
+        for (key, instrument, months) in [("deposits", RateInstrument::Deposit, 1), ("swaps", RateInstrument::Swap, 12)]
+        {
+            for q in c[key].as_array().unwrap() {
+                let n = q[0].as_u64().unwrap() as u32 * months;
+                quotes.push(RateQuote { instrument, tenor: Tenor::from_months(n).unwrap(), rate: num(&q[1]) });
+            }
+        }
+        let (curve, pillars) = build_rate_curve(trade, &quotes, &conv, &cal).unwrap_or_else(|e| panic!("{id}: {e}"));
+        let want = c["pillars"].as_array().unwrap();
+        assert_eq!(pillars.len(), want.len(), "{id}: number of pillars");
+        for (p, w) in pillars.iter().zip(want) {
+            assert_eq!(p.pillar, d(s(&w[0])), "{id}: pillar of {:?} {}", p.instrument, p.tenor);
+            let diff = (p.discount_factor - num(&w[1])).abs();
+            worst = worst.max(diff);
+            assert!(diff < 1e-12, "{id} {}: DF {} vs QuantLib {} ({diff:e})", p.pillar, p.discount_factor, w[1]);
+            assert!(p.residual.abs() < 1e-13, "{id} {}: residual {:e}", p.pillar, p.residual);
+        }
+        for w in c["probes"].as_array().unwrap() {
+            let diff = (curve.df(d(s(&w[0]))) - num(&w[1])).abs();
+            worst = worst.max(diff);
+            assert!(diff < 1e-12, "{id} probe {}: {diff:e}", s(&w[0]));
+        }
+        cases += 1;
+    }
+    assert_eq!(cases, 6);
+    eprintln!("standard curves against QuantLib: 6 cases, largest discount-factor difference {worst:e}");
 }

@@ -5,6 +5,7 @@
 
 pub mod discount;
 pub mod hazard;
+pub mod rates;
 
 pub use discount::{
     log_df_from_zero_rate, Compounding, DiscountCurve, DiscountCurveError, RateDayCount, ZeroRateConvention,
