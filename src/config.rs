@@ -154,6 +154,10 @@ pub struct PipelineFile {
     pub inputs: InputsSection,
     #[serde(default)]
     pub conventions: ConventionsSection,
+    /// `[rate_conventions.<currency>]`: the standard curve's conventions for a currency
+    /// (beside the defaults for USD, EUR, GBP and JPY).
+    #[serde(default)]
+    pub rate_conventions: BTreeMap<String, RateConventionSection>,
     #[serde(default)]
     pub calibration: CalibrationSection,
     #[serde(default)]
@@ -164,6 +168,23 @@ pub struct PipelineFile {
     pub stability: StabilitySection,
     #[serde(default)]
     pub report: ReportSection,
+}
+
+/// `[rate_conventions.<currency>]`: every field is required (a partial convention would mix
+/// silently with the defaults).
+#[derive(Debug, Clone, Deserialize, Serialize)]
+#[serde(deny_unknown_fields)]
+pub struct RateConventionSection {
+    /// Business days from the curve date to spot.
+    pub spot_lag: u32,
+    /// `ACT/360`, `ACT/365F` or `30/360`.
+    pub deposit_day_count: String,
+    /// Months between fixed-leg payments: 1, 3, 6 or 12.
+    pub fixed_months: u32,
+    pub fixed_day_count: String,
+    /// The floating index's tenor in months (recorded; the single-curve build values the
+    /// floating leg at par).
+    pub float_months: u32,
 }
 
 /// `[backtest]`: implied against realised default rates, and the risk premium.
@@ -338,6 +359,9 @@ pub struct StabilitySection {
 pub struct InputsSection {
     pub cds_quotes: Option<PathBuf>,
     pub discount: Option<PathBuf>,
+    /// Deposit and swap quotes: the standard curve of each (date, currency) the discount table
+    /// does not give.
+    pub rate_quotes: Option<PathBuf>,
     pub bonds: Option<PathBuf>,
     pub bond_quotes: Option<PathBuf>,
     pub entities: Option<PathBuf>,
@@ -483,6 +507,9 @@ pub struct RunConfig {
     pub accrual_on_default: AccrualIntegration,
     pub zero_rate_compounding: crate::curves::Compounding,
     pub zero_rate_day_count: crate::curves::RateDayCount,
+    /// Standard-curve conventions given in the pipeline file, by currency.
+    #[serde(skip)]
+    pub rate_conventions: BTreeMap<String, crate::curves::rates::RateConvention>,
     pub cds_bootstrap: bool,
     #[serde(skip)]
     pub bootstrap: BootstrapSettings,
@@ -680,6 +707,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
     let inputs = InputPaths {
         cds_quotes: resolve(&i.cds_quotes, "inputs.cds_quotes")?,
         discount: resolve(&i.discount, "inputs.discount")?,
+        rate_quotes: resolve(&i.rate_quotes, "inputs.rate_quotes")?,
         bonds: resolve(&i.bonds, "inputs.bonds")?,
         bond_quotes: resolve(&i.bond_quotes, "inputs.bond_quotes")?,
         entities: resolve(&i.entities, "inputs.entities")?,
@@ -687,13 +715,18 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         defaults: resolve(&i.defaults, "inputs.defaults")?,
         cohort_history: resolve(&i.cohort_history, "inputs.cohort_history")?,
     };
-    if inputs.cds_quotes.is_none() || inputs.discount.is_none() {
-        return Err(bad(path, "inputs", "a pipeline needs at least inputs.cds_quotes and inputs.discount".into()));
+    if inputs.cds_quotes.is_none() || (inputs.discount.is_none() && inputs.rate_quotes.is_none()) {
+        return Err(bad(
+            path,
+            "inputs",
+            "a pipeline needs at least inputs.cds_quotes and inputs.discount or inputs.rate_quotes".into(),
+        ));
     }
     let mut as_written = BTreeMap::new();
     for (k, v) in [
         ("cds_quotes", &i.cds_quotes),
         ("discount", &i.discount),
+        ("rate_quotes", &i.rate_quotes),
         ("bonds", &i.bonds),
         ("bond_quotes", &i.bond_quotes),
         ("entities", &i.entities),
@@ -730,6 +763,34 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
     let accrual_on_default = c.accrual_on_default.unwrap_or_default();
     let zero_rate_compounding = c.zero_rate_compounding.unwrap_or_default();
     let zero_rate_day_count = c.zero_rate_day_count.unwrap_or_default();
+    let mut rate_conventions = BTreeMap::new();
+    for (ccy, r) in &file.rate_conventions {
+        let key = |k: &str| format!("rate_conventions.{ccy}.{k}");
+        let dc = |k: &str, text: &str| -> Result<crate::time::DayCount> {
+            match text.parse::<crate::time::DayCount>() {
+                Ok(crate::time::DayCount::ActActIcma) | Err(_) => {
+                    Err(bad(path, &key(k), format!("{text:?} is not ACT/360, ACT/365F or 30/360")))
+                }
+                Ok(d) => Ok(d),
+            }
+        };
+        if ![1, 3, 6, 12].contains(&r.fixed_months) {
+            return Err(bad(path, &key("fixed_months"), format!("{} is not 1, 3, 6 or 12", r.fixed_months)));
+        }
+        if r.spot_lag > 5 {
+            return Err(bad(path, &key("spot_lag"), format!("{} business days is not a spot lag", r.spot_lag)));
+        }
+        rate_conventions.insert(
+            ccy.clone(),
+            crate::curves::rates::RateConvention {
+                spot_lag: r.spot_lag,
+                deposit_day_count: dc("deposit_day_count", &r.deposit_day_count)?,
+                fixed_months: r.fixed_months,
+                fixed_day_count: dc("fixed_day_count", &r.fixed_day_count)?,
+                float_months: r.float_months,
+            },
+        );
+    }
 
     let k = &file.calibration;
     let cds_bootstrap = k.cds_bootstrap.unwrap_or(true);
@@ -857,6 +918,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         accrual_on_default,
         zero_rate_compounding,
         zero_rate_day_count,
+        rate_conventions,
         cds_bootstrap,
         bootstrap: BootstrapSettings { infeasible, accrual: accrual_on_default, ..BootstrapSettings::default() },
         bond_fit,

@@ -61,9 +61,12 @@ struct Inputs {
     /// cds_quotes table.
     #[arg(long)]
     cds: Option<PathBuf>,
-    /// discount table (zero rates).
+    /// discount table (zero rates or discount factors by tenor or date).
     #[arg(long)]
     discount: Option<PathBuf>,
+    /// rate_quotes table (deposits and swaps: the standard curve where discount has none).
+    #[arg(long)]
+    rate_quotes: Option<PathBuf>,
     /// bonds table (static data).
     #[arg(long)]
     bonds: Option<PathBuf>,
@@ -92,6 +95,7 @@ impl Inputs {
         InputPaths {
             cds_quotes: self.cds.clone(),
             discount: self.discount.clone(),
+            rate_quotes: self.rate_quotes.clone(),
             bonds: self.bonds.clone(),
             bond_quotes: self.bond_quotes.clone(),
             entities: self.entities.clone(),
@@ -270,8 +274,8 @@ fn dispatch(command: Command) -> Result<u8> {
             if !(0.0..1.0).contains(&recovery) {
                 return Err(Error::Usage(format!("--recovery {recovery} is not a fraction in [0, 1)")));
             }
-            if inputs.cds.is_none() || inputs.discount.is_none() {
-                return Err(Error::Usage("calibrate needs --cds and --discount".into()));
+            if inputs.cds.is_none() || (inputs.discount.is_none() && inputs.rate_quotes.is_none()) {
+                return Err(Error::Usage("calibrate needs --cds and --discount or --rate-quotes".into()));
             }
             let calendar = calendar_of(&inputs)?;
             let bootstrap = BootstrapSettings {
@@ -294,6 +298,8 @@ fn dispatch(command: Command) -> Result<u8> {
                 // The discount table's zero rates: continuously compounded Act/365F (the
                 // pipeline file can say otherwise; this command keeps the default).
                 zero_rates: Default::default(),
+                // Rate quotes take each currency's default standard-curve convention.
+                rate_conventions: Default::default(),
             };
             commands::calibrate::run(&CalibrateSettings {
                 inputs: inputs.paths(),

@@ -39,10 +39,10 @@ pub struct CalibrateSummary {
 
 /// Calibrates the inputs and writes the tables.
 pub fn calibrate(s: &CalibrateSettings) -> Result<CalibrateSummary> {
-    if s.inputs.cds_quotes.is_none() || s.inputs.discount.is_none() {
+    if s.inputs.cds_quotes.is_none() || (s.inputs.discount.is_none() && s.inputs.rate_quotes.is_none()) {
         return Err(Error::Argument {
             name: "inputs",
-            message: "calibrate needs the cds_quotes and discount tables".into(),
+            message: "calibrate needs the cds_quotes table and the discount or rate_quotes table".into(),
         });
     }
     let mut ds = load(&s.inputs, &s.calendar, &s.quality)?;

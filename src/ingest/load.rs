@@ -1,7 +1,7 @@
 //! Loading every input table of a review and applying the data-quality rules across them.
 //!
-//! Order: entities, defaults, grades, cohort_history, discount, bonds, bond_quotes,
-//! cds_quotes; later tables are checked against earlier ones (unknown entity, unknown bond,
+//! Order: entities, defaults, grades, cohort_history, discount, rate_quotes, bonds,
+//! bond_quotes, cds_quotes; later tables are checked against earlier ones (unknown entity, unknown bond,
 //! quote after default). The result holds the usable rows, every reject, the non-rejecting
 //! flags, and the counts that prove rows in = rows used + rows rejected.
 
@@ -17,14 +17,24 @@ use std::collections::{BTreeMap, HashMap, HashSet};
 use std::path::PathBuf;
 
 /// Every input table, in load order (the order of the rejects table).
-pub const INPUT_TABLES: [&str; 8] =
-    ["entities", "defaults", "grades", "cohort_history", "discount", "bonds", "bond_quotes", "cds_quotes"];
+pub const INPUT_TABLES: [&str; 9] = [
+    "entities",
+    "defaults",
+    "grades",
+    "cohort_history",
+    "discount",
+    "rate_quotes",
+    "bonds",
+    "bond_quotes",
+    "cds_quotes",
+];
 
 /// Where each input table is; any may be absent.
 #[derive(Debug, Clone, Default)]
 pub struct InputPaths {
     pub cds_quotes: Option<PathBuf>,
     pub discount: Option<PathBuf>,
+    pub rate_quotes: Option<PathBuf>,
     pub bonds: Option<PathBuf>,
     pub bond_quotes: Option<PathBuf>,
     pub entities: Option<PathBuf>,
@@ -74,6 +84,7 @@ pub struct Dataset {
     /// Flag bits per row of `cds.rows`.
     pub cds_flags: Vec<u8>,
     pub discount: Option<DiscountTable>,
+    pub rate_quotes: Option<super::rates::RateQuoteTable>,
     pub bonds: Option<Rows<BondRow>>,
     pub bond_quotes: Option<Rows<BondQuoteRow>>,
     pub entities: Option<Rows<EntityRow>>,
@@ -104,6 +115,11 @@ impl Dataset {
             }
         }
         if let Some(d) = &mut self.discount {
+            for r in &mut d.rows {
+                r.source = rel(&r.source);
+            }
+        }
+        if let Some(d) = &mut self.rate_quotes {
             for r in &mut d.rows {
                 r.source = rel(&r.source);
             }
@@ -208,12 +224,21 @@ fn counts<T>(table: &'static str, t: &Rows<T>) -> TableCounts {
 /// A stray row far from the data, a 9999-12-31 typed for 2019-12-31, then neither names the
 /// run nor stretches its period. Without a discount table (or when no row has one), the usable
 /// rows' own first and last dates.
-fn usable_period(panel: &CdsPanel, discount: Option<&DiscountTable>) -> Option<(NaiveDate, NaiveDate)> {
+fn usable_period(
+    panel: &CdsPanel,
+    discount: Option<&DiscountTable>,
+    rates: Option<&super::rates::RateQuoteTable>,
+) -> Option<(NaiveDate, NaiveDate)> {
     let rows = &panel.rows;
     let all = Some((rows.first()?.date, rows.last()?.date));
-    let Some(discount) = discount else { return all };
-    let pillars: crate::hash::FastSet<(NaiveDate, &str)> =
-        discount.rows.iter().map(|r| (r.date, r.currency.as_str())).collect();
+    if discount.is_none() && rates.is_none() {
+        return all;
+    }
+    let pillars: crate::hash::FastSet<(NaiveDate, &str)> = discount
+        .iter()
+        .flat_map(|d| d.rows.iter().map(|r| (r.date, r.currency.as_str())))
+        .chain(rates.iter().flat_map(|d| d.rows.iter().map(|r| (r.date, r.currency.as_str()))))
+        .collect();
     let priced = |r: &&CdsQuoteRow| pillars.contains(&(r.date, panel.currencies.name(r.currency)));
     match (rows.iter().find(priced), rows.iter().rev().find(priced)) {
         (Some(a), Some(b)) => Some((a.date, b.date)),
@@ -270,6 +295,9 @@ pub fn load(paths: &InputPaths, cal: &Calendar, q: &QualitySettings) -> Result<D
     if let Some(p) = &paths.discount {
         ds.discount = Some(discount::read(p, q.zero_rate_band)?);
     }
+    if let Some(p) = &paths.rate_quotes {
+        ds.rate_quotes = Some(super::rates::read(p, q.zero_rate_band)?);
+    }
     if let Some(p) = &paths.bonds {
         let mut t = read_bonds(p)?;
         filter_rows(&mut t, BONDS, |r| unknown(&r.entity), |r| format!("bond {}", r.bond));
@@ -309,7 +337,7 @@ pub fn load(paths: &InputPaths, cal: &Calendar, q: &QualitySettings) -> Result<D
         let (bits, flags) = check_cds(&mut panel, &by_id, q);
         ds.cds_flags = bits;
         ds.flags.extend(flags);
-        panel.period = usable_period(&panel, ds.discount.as_ref());
+        panel.period = usable_period(&panel, ds.discount.as_ref(), ds.rate_quotes.as_ref());
         ds.cds = Some(panel);
     }
 
@@ -329,6 +357,16 @@ pub fn load(paths: &InputPaths, cal: &Calendar, q: &QualitySettings) -> Result<D
     if let Some(t) = &ds.discount {
         ds.counts.push(TableCounts {
             table: discount::TABLE,
+            rows_in: t.info.rows,
+            used: t.rows.len(),
+            rejected: t.rejects.len(),
+            flagged: 0,
+            files: t.info.files.clone(),
+        });
+    }
+    if let Some(t) = &ds.rate_quotes {
+        ds.counts.push(TableCounts {
+            table: super::rates::TABLE,
             rows_in: t.info.rows,
             used: t.rows.len(),
             rejected: t.rejects.len(),
@@ -382,6 +420,7 @@ fn collect_rejects(ds: &mut Dataset) {
     take!(ds.grades);
     take!(ds.cohort_history);
     take!(ds.discount);
+    take!(ds.rate_quotes);
     take!(ds.bonds);
     take!(ds.bond_quotes);
     take!(ds.cds);
@@ -395,7 +434,7 @@ fn data_quality(ds: &Dataset, cal: &Calendar) -> Vec<DataQualityRow> {
     // Per table and date: read / used / rejected / flagged.
     let mut per_date: BTreeMap<(&'static str, Option<NaiveDate>), [u64; 3]> = BTreeMap::new();
     for r in &ds.rejects {
-        let dated = matches!(r.table, "cds_quotes" | "discount" | "bond_quotes");
+        let dated = matches!(r.table, "cds_quotes" | "discount" | "rate_quotes" | "bond_quotes");
         per_date.entry((r.table, if dated { r.date } else { None })).or_default()[1] += 1;
     }
     if let Some(p) = &ds.cds {
@@ -419,18 +458,23 @@ fn data_quality(ds: &Dataset, cal: &Calendar) -> Vec<DataQualityRow> {
             per_date.entry((discount::TABLE, Some(r.date))).or_default()[0] += 1;
         }
     }
+    if let Some(t) = &ds.rate_quotes {
+        for r in &t.rows {
+            per_date.entry((super::rates::TABLE, Some(r.date))).or_default()[0] += 1;
+        }
+    }
     if let Some(t) = &ds.bond_quotes {
         for (r, _) in &t.rows {
             per_date.entry((BOND_QUOTES, Some(r.date))).or_default()[0] += 1;
         }
     }
     for c in &ds.counts {
-        if !matches!(c.table, "cds_quotes" | "discount" | "bond_quotes") {
+        if !matches!(c.table, "cds_quotes" | "discount" | "rate_quotes" | "bond_quotes") {
             per_date.insert((c.table, None), [c.used as u64, 0, 0]);
         }
     }
     for r in &ds.rejects {
-        if !matches!(r.table, "cds_quotes" | "discount" | "bond_quotes") {
+        if !matches!(r.table, "cds_quotes" | "discount" | "rate_quotes" | "bond_quotes") {
             per_date.entry((r.table, None)).or_default()[1] += 1;
         }
     }

@@ -15,6 +15,7 @@ pub mod files;
 pub mod load;
 pub mod parquet_check;
 pub mod quality;
+pub mod rates;
 pub mod source;
 pub mod tables;
 

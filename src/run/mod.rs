@@ -142,6 +142,7 @@ fn calibration_params(cfg: &RunConfig) -> CalibrationParams {
             compounding: cfg.zero_rate_compounding,
             day_count: cfg.zero_rate_day_count,
         },
+        rate_conventions: cfg.rate_conventions.clone(),
     }
 }
 

@@ -221,8 +221,8 @@ pub fn compute_partition(
     rejects.append(&mut fits.rejects);
     let mut discount_rows = std::mem::take(&mut cal.discount);
     if !(shard.is_first() && scope.range.from.is_none()) {
-        // Every part builds the same discount curves from the whole discount table.
-        rejects.retain(|r| r.table != discount::TABLE);
+        // Every part builds the same discount curves from the whole discount and rate tables.
+        rejects.retain(|r| r.table != discount::TABLE && r.table != crate::ingest::rates::TABLE);
         discount_rows.clear();
     }
     let part = Partition {

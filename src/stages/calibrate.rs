@@ -36,6 +36,9 @@ pub struct CalibrationParams {
     pub calendar: Calendar,
     /// Compounding and day count of the discount table's zero rates.
     pub zero_rates: crate::curves::ZeroRateConvention,
+    /// Standard-curve conventions by currency, beside the defaults of
+    /// `RateConvention::default_for`.
+    pub rate_conventions: BTreeMap<String, crate::curves::rates::RateConvention>,
 }
 
 /// Tables and counts produced by calibrating a dataset.
@@ -143,6 +146,63 @@ fn discount_curves(
         }
     }
     (out, used)
+}
+
+/// Builds the standard curve of each (date, currency) of the rate quotes that `curves` (from
+/// the discount table) does not hold, and adds it; returns the rows used. Rows of a curve the
+/// discount table gives, of a currency without a convention, or of a curve that cannot be
+/// built are rejected with the reason.
+fn rate_curves(
+    rows: Vec<crate::ingest::rates::RateQuoteRow>,
+    p: &CalibrationParams,
+    curves: &mut BTreeMap<(NaiveDate, String), DiscountCurve>,
+    rejects: &mut Vec<Reject>,
+) -> usize {
+    use crate::curves::rates::{build_rate_curve, RateConvention, RateQuote};
+    use crate::ingest::rates::{RateQuoteRow, TABLE};
+    let mut groups: BTreeMap<(NaiveDate, String), Vec<RateQuoteRow>> = BTreeMap::new();
+    for r in rows {
+        groups.entry((r.date, r.currency.clone())).or_default().push(r);
+    }
+    let reject_all = |rows: &[RateQuoteRow], reason: &'static str, detail: &str, rejects: &mut Vec<Reject>| {
+        for r in rows {
+            let mut rej = Reject::new(TABLE, &r.source, r.row, reason, detail.to_string());
+            rej.date = Some(r.date);
+            rej.key = format!("{} {} {}", r.currency, r.instrument.as_str(), r.tenor);
+            rejects.push(rej);
+        }
+    };
+    let mut used = 0;
+    for (key, rows) in groups {
+        if curves.contains_key(&key) {
+            reject_all(
+                &rows,
+                "curve_in_discount_table",
+                &format!("the discount table gives the {} curve of {}; it is used instead", key.1, key.0),
+                rejects,
+            );
+            continue;
+        }
+        let Some(conv) = p.rate_conventions.get(&key.1).copied().or_else(|| RateConvention::default_for(&key.1)) else {
+            reject_all(
+                &rows,
+                "no_rate_convention",
+                &format!("no standard-curve convention for {} (give one under [rate_conventions.{}])", key.1, key.1),
+                rejects,
+            );
+            continue;
+        };
+        let quotes: Vec<RateQuote> =
+            rows.iter().map(|r| RateQuote { instrument: r.instrument, tenor: r.tenor, rate: r.rate }).collect();
+        match build_rate_curve(key.0, &quotes, &conv, &p.calendar) {
+            Ok((c, _)) => {
+                used += rows.len();
+                curves.insert(key, c);
+            }
+            Err(e) => reject_all(&rows, "bad_rate_curve", &e.to_string(), rejects),
+        }
+    }
+    used
 }
 
 fn recovery_of(panel: &CdsPanel, r: &CdsQuoteRow, p: &CalibrationParams) -> f64 {
@@ -287,22 +347,30 @@ pub fn calibrate_blocks(
     scope: crate::parts::DateRange,
     mut sink: impl FnMut(CurveBlock) -> Result<()>,
 ) -> Result<Calibration> {
-    let disc = ds
-        .discount
-        .as_ref()
-        .ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the discount table".into() })?;
+    let disc_rows = ds.discount.as_ref().map(|d| d.rows.clone());
+    let rate_rows = ds.rate_quotes.as_ref().map(|d| d.rows.clone());
+    if disc_rows.is_none() && rate_rows.is_none() {
+        return Err(Error::Argument {
+            name: "inputs",
+            message: "calibration needs the discount table or the rate_quotes table".into(),
+        });
+    }
     let panel = ds
         .cds
         .as_ref()
         .ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the cds_quotes table".into() })?;
     let mut out = Calibration::default();
-    let (curves, disc_used) = discount_curves(disc.rows.clone(), p.zero_rates, &mut out.rejects);
+    let (mut curves, disc_used) = discount_curves(disc_rows.unwrap_or_default(), p.zero_rates, &mut out.rejects);
+    let from_table: std::collections::BTreeSet<(NaiveDate, String)> = curves.keys().cloned().collect();
+    let rate_used = rate_curves(rate_rows.unwrap_or_default(), p, &mut curves, &mut out.rejects);
     for ((date, ccy), c) in &curves {
+        let source = if from_table.contains(&(*date, ccy.clone())) { "discount" } else { "rate_quotes" };
         for (&pillar, &ln_df) in c.pillar_dates().iter().zip(c.pillar_log_dfs()) {
             let t = crate::curves::year_time(*date, pillar);
             out.discount.push(DiscountCurveRow {
                 date: *date,
                 currency: ccy.clone(),
+                source,
                 pillar_date: pillar,
                 zero_rate: -ln_df / t,
                 discount_factor: ln_df.exp(),
@@ -415,6 +483,8 @@ pub fn calibrate_blocks(
             c.used = cds_used;
         } else if c.table == discount::TABLE {
             c.used = disc_used;
+        } else if c.table == crate::ingest::rates::TABLE {
+            c.used = rate_used;
         }
         if c.rows_in != c.used + c.rejected {
             return Err(Error::Accounting {

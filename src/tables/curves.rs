@@ -4,7 +4,7 @@
 //! a run built.
 
 use super::parquet::{FileKey, RowGroupWriter, SplitWriter, TableBuilder, TableWriter};
-use super::readback::{dates, floats, ints, labels, strs, text_form};
+use super::readback::{dates, fixed_labels, floats, ints, labels, strs, text_form};
 use super::{col, metadata_of, Column, Kind::*, Table};
 use crate::error::Result;
 use crate::text::{CurveSource, RowStatus};
@@ -180,6 +180,9 @@ pub fn write_hazard_curves(rows: &[HazardCurveRow], path: &Path, meta: &[(String
 pub struct DiscountCurveRow {
     pub date: NaiveDate,
     pub currency: String,
+    /// Where the curve comes from: `discount` (the discount table) or `rate_quotes` (the
+    /// standard curve built from deposits and swaps).
+    pub source: &'static str,
     pub pillar_date: NaiveDate,
     pub zero_rate: f64,
     pub discount_factor: f64,
@@ -190,6 +193,7 @@ impl Table for DiscountCurveRow {
     const COLUMNS: &'static [Column] = &[
         col("date", Date),
         col("currency", Text),
+        col("source", Text),
         col("pillar_date", Date),
         col("zero_rate", Float),
         col("discount_factor", Float),
@@ -206,6 +210,7 @@ impl Table for DiscountCurveRow {
         TableBuilder::new()
             .dates("date", rows.iter().map(|r| Some(r.date)))
             .strings("currency", rows.iter().map(|r| Some(&r.currency)))
+            .strings("source", rows.iter().map(|r| Some(r.source)))
             .dates("pillar_date", rows.iter().map(|r| Some(r.pillar_date)))
             .floats("zero_rate", rows.iter().map(|r| Some(r.zero_rate)))
             .floats("discount_factor", rows.iter().map(|r| Some(r.discount_factor)))
@@ -213,9 +218,10 @@ impl Table for DiscountCurveRow {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
-        let (d, mut c, p, z, f) = (
+        let (d, mut c, so, p, z, f) = (
             dates(df, path, "date")?,
             strs(df, path, "currency")?,
+            fixed_labels(df, path, "source", &["discount", "rate_quotes"])?,
             dates(df, path, "pillar_date")?,
             floats(df, path, "zero_rate")?,
             floats(df, path, "discount_factor")?,
@@ -224,6 +230,7 @@ impl Table for DiscountCurveRow {
             .map(|i| DiscountCurveRow {
                 date: d[i].unwrap_or_default(),
                 currency: c[i].take().unwrap_or_default(),
+                source: so[i],
                 pillar_date: p[i].unwrap_or_default(),
                 zero_rate: z[i].unwrap_or(f64::NAN),
                 discount_factor: f[i].unwrap_or(f64::NAN),
@@ -269,6 +276,7 @@ mod tests {
         let rows = vec![DiscountCurveRow {
             date: d,
             currency: "USD".into(),
+            source: "rate_quotes",
             pillar_date: d + chrono::Duration::days(365),
             zero_rate: 0.031,
             discount_factor: 0.969_47,

@@ -286,3 +286,82 @@ fn discount_tables_by_date_factor_or_compounding_calibrate_alike() {
         }
     }
 }
+
+/// Discount curves from deposit and swap quotes: the fixture's CDS quotes with a `rate_quotes`
+/// table in place of the discount table (invented rates for every curve date, USD and EUR with
+/// their default conventions) calibrate every curve, each discount curve written with source
+/// `rate_quotes`; given beside the discount table, the rate quotes of a (date, currency) the
+/// discount table gives are rejected as `curve_in_discount_table` and the curves are the
+/// discount table's; a currency with no convention, or a curve that cannot be built, rejects
+/// its rows with the reason. Rows in = used + rejected throughout (the run checks it).
+#[test]
+fn rate_quotes_build_the_discount_curves() {
+    let dir = tempfile::tempdir().unwrap();
+    let cds = repo().join("tests/fixtures/sample/cds_quotes.csv");
+    let discount = repo().join("tests/fixtures/sample/discount.csv");
+    let dates: std::collections::BTreeSet<(String, String)> = std::fs::read_to_string(&discount)
+        .unwrap()
+        .lines()
+        .skip(1)
+        .filter_map(|l| {
+            let f: Vec<&str> = l.split(',').collect();
+            (f.len() > 1).then(|| (f[0].to_string(), f[1].to_string()))
+        })
+        .collect();
+    let mut rates = String::from("date,currency,instrument,tenor,rate\n");
+    for (d, c) in &dates {
+        for (m, r) in [(1, 0.041), (3, 0.0415), (6, 0.0412), (12, 0.0405)] {
+            rates += &format!("{d},{c},deposit,{m}M,{r}\n");
+        }
+        for (y, r) in [(2, 0.039), (3, 0.0378), (5, 0.0365), (7, 0.0361), (10, 0.0362), (15, 0.0368)] {
+            rates += &format!("{d},{c},swap,{y}Y,{r}\n");
+        }
+    }
+    let first = dates.iter().next().unwrap().0.clone();
+    // A currency without a convention, and a curve whose two quotes end on the same date.
+    rates += &format!("{first},CHF,deposit,3M,0.01\n");
+    rates += &format!("{first},GBP,deposit,12M,0.04\n{first},GBP,swap,1Y,0.041\n");
+    std::fs::write(dir.path().join("rates.csv"), &rates).unwrap();
+    let pipeline = |name: &str, with_discount: bool| {
+        let sub = dir.path().join(name);
+        std::fs::create_dir_all(&sub).unwrap();
+        let disc =
+            if with_discount { format!("discount = {:?}\n", discount.display().to_string()) } else { String::new() };
+        let toml = format!(
+            "name = \"{name}\"\n[inputs]\ncds_quotes = {:?}\n{disc}rate_quotes = {:?}\n[report]\nlabel = \"r\"\n",
+            cds.display().to_string(),
+            dir.path().join("rates.csv").display().to_string()
+        );
+        std::fs::write(sub.join("p.toml"), toml).unwrap();
+        let cfg = load_pipeline(&sub.join("p.toml")).unwrap();
+        run(&cfg, &RunOptions { out_root: Some(sub.join("out")), label: None }).unwrap().run_dir.join("tables")
+    };
+    let reasons = |tables: &Path| -> std::collections::BTreeMap<String, usize> {
+        let mut m = std::collections::BTreeMap::new();
+        for r in hazardline::tables::read::<hazardline::ingest::Reject>(tables).unwrap() {
+            if r.table == "rate_quotes" {
+                *m.entry(r.reason.to_string()).or_default() += 1;
+            }
+        }
+        m
+    };
+    let only_rates = pipeline("rates", false);
+    let curves = hazardline::tables::read::<hazardline::tables::DiscountCurveRow>(&only_rates).unwrap();
+    assert!(!curves.is_empty() && curves.iter().all(|c| c.source == "rate_quotes"));
+    assert_eq!(
+        curves.iter().map(|c| (c.date, c.currency.clone())).collect::<std::collections::BTreeSet<_>>().len(),
+        dates.len()
+    );
+    let hz = hazardline::tables::read::<hazardline::tables::HazardCurveRow>(&only_rates).unwrap();
+    assert!(hz.iter().filter(|h| h.hazard.is_some()).count() > 100);
+    let r = reasons(&only_rates);
+    assert_eq!(r.get("no_rate_convention"), Some(&1), "{r:?}");
+    assert_eq!(r.get("bad_rate_curve"), Some(&2), "{r:?}");
+    assert_eq!(r.len(), 2, "{r:?}");
+
+    let both = pipeline("both", true);
+    let curves = hazardline::tables::read::<hazardline::tables::DiscountCurveRow>(&both).unwrap();
+    assert!(curves.iter().all(|c| c.source == "discount"));
+    let r = reasons(&both);
+    assert_eq!(r.get("curve_in_discount_table"), Some(&(dates.len() * 10)), "{r:?}");
+}
