@@ -158,6 +158,11 @@ pub struct PipelineFile {
     /// (beside the defaults for USD, EUR, GBP and JPY).
     #[serde(default)]
     pub rate_conventions: BTreeMap<String, RateConventionSection>,
+    /// `[calendars]`: a holiday file (one ISO date per line) per currency, for that currency's
+    /// standard curve (spot and Modified Following). A currency without one uses
+    /// `inputs.holidays` (or weekends only).
+    #[serde(default)]
+    pub calendars: BTreeMap<String, PathBuf>,
     #[serde(default)]
     pub calibration: CalibrationSection,
     #[serde(default)]
@@ -510,6 +515,11 @@ pub struct RunConfig {
     /// Standard-curve conventions given in the pipeline file, by currency.
     #[serde(skip)]
     pub rate_conventions: BTreeMap<String, crate::curves::rates::RateConvention>,
+    /// Holiday files by currency, as written in the pipeline file.
+    pub calendars: BTreeMap<String, String>,
+    /// The calendars they give.
+    #[serde(skip)]
+    pub currency_calendars: BTreeMap<String, Calendar>,
     pub cds_bootstrap: bool,
     #[serde(skip)]
     pub bootstrap: BootstrapSettings,
@@ -763,6 +773,12 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
     let accrual_on_default = c.accrual_on_default.unwrap_or_default();
     let zero_rate_compounding = c.zero_rate_compounding.unwrap_or_default();
     let zero_rate_day_count = c.zero_rate_day_count.unwrap_or_default();
+    let mut currency_calendars = BTreeMap::new();
+    for (ccy, p) in &file.calendars {
+        let key = format!("calendars.{ccy}");
+        let full = resolve(&Some(p.clone()), &key)?.ok_or_else(|| bad(path, &key, "no file given".into()))?;
+        currency_calendars.insert(ccy.clone(), read_holidays(&full).map_err(|m| bad(path, &key, m))?);
+    }
     let mut rate_conventions = BTreeMap::new();
     for (ccy, r) in &file.rate_conventions {
         let key = |k: &str| format!("rate_conventions.{ccy}.{k}");
@@ -919,6 +935,8 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         zero_rate_compounding,
         zero_rate_day_count,
         rate_conventions,
+        calendars: file.calendars.iter().map(|(k, v)| (k.clone(), v.display().to_string())).collect(),
+        currency_calendars,
         cds_bootstrap,
         bootstrap: BootstrapSettings { infeasible, accrual: accrual_on_default, ..BootstrapSettings::default() },
         bond_fit,

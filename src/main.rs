@@ -300,6 +300,7 @@ fn dispatch(command: Command) -> Result<u8> {
                 zero_rates: Default::default(),
                 // Rate quotes take each currency's default standard-curve convention.
                 rate_conventions: Default::default(),
+                rate_calendars: Default::default(),
             };
             commands::calibrate::run(&CalibrateSettings {
                 inputs: inputs.paths(),

@@ -143,6 +143,7 @@ fn calibration_params(cfg: &RunConfig) -> CalibrationParams {
             day_count: cfg.zero_rate_day_count,
         },
         rate_conventions: cfg.rate_conventions.clone(),
+        rate_calendars: cfg.currency_calendars.clone(),
     }
 }
 
@@ -226,6 +227,17 @@ fn input_records(cfg: &RunConfig, counts: &[TableCounts]) -> Result<Vec<InputRec
             let (b, h) = hash_file(f)?;
             inputs.push(InputRecord { table: c.table.into(), path: relative(f, &base), bytes: b, sha256: h });
         }
+    }
+    // The holiday files: the run's calendar and each currency's standard-curve calendar.
+    let files = cfg
+        .holidays
+        .iter()
+        .map(|p| ("holidays".to_string(), p))
+        .chain(cfg.calendars.iter().map(|(ccy, p)| (format!("calendar {ccy}"), p)));
+    for (table, p) in files {
+        let f = base.join(p);
+        let (b, h) = hash_file(&f)?;
+        inputs.push(InputRecord { table, path: relative(&f, &base), bytes: b, sha256: h });
     }
     Ok(inputs)
 }

@@ -39,6 +39,8 @@ pub struct CalibrationParams {
     /// Standard-curve conventions by currency, beside the defaults of
     /// `RateConvention::default_for`.
     pub rate_conventions: BTreeMap<String, crate::curves::rates::RateConvention>,
+    /// Holiday calendars by currency for the standard curves (others use `calendar`).
+    pub rate_calendars: BTreeMap<String, Calendar>,
 }
 
 /// Tables and counts produced by calibrating a dataset.
@@ -194,7 +196,8 @@ fn rate_curves(
         };
         let quotes: Vec<RateQuote> =
             rows.iter().map(|r| RateQuote { instrument: r.instrument, tenor: r.tenor, rate: r.rate }).collect();
-        match build_rate_curve(key.0, &quotes, &conv, &p.calendar) {
+        let cal = p.rate_calendars.get(&key.1).unwrap_or(&p.calendar);
+        match build_rate_curve(key.0, &quotes, &conv, cal) {
             Ok((c, _)) => {
                 used += rows.len();
                 curves.insert(key, c);

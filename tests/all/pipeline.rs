@@ -322,13 +322,22 @@ fn rate_quotes_build_the_discount_curves() {
     rates += &format!("{first},CHF,deposit,3M,0.01\n");
     rates += &format!("{first},GBP,deposit,12M,0.04\n{first},GBP,swap,1Y,0.041\n");
     std::fs::write(dir.path().join("rates.csv"), &rates).unwrap();
+    // An EUR holiday calendar: the first curve date's spot day is a holiday.
+    let spot = hazardline::time::Calendar::weekends_only()
+        .add_business_days(hazardline::time::parse_iso_date(&first).unwrap(), 2);
+    std::fs::write(dir.path().join("eur.txt"), format!("{spot}\n")).unwrap();
     let pipeline = |name: &str, with_discount: bool| {
         let sub = dir.path().join(name);
         std::fs::create_dir_all(&sub).unwrap();
         let disc =
             if with_discount { format!("discount = {:?}\n", discount.display().to_string()) } else { String::new() };
+        let calendars = if name == "calendar" {
+            format!("[calendars]\nEUR = {:?}\n", dir.path().join("eur.txt").display().to_string())
+        } else {
+            String::new()
+        };
         let toml = format!(
-            "name = \"{name}\"\n[inputs]\ncds_quotes = {:?}\n{disc}rate_quotes = {:?}\n[report]\nlabel = \"r\"\n",
+            "name = \"{name}\"\n[inputs]\ncds_quotes = {:?}\n{disc}rate_quotes = {:?}\n{calendars}[report]\nlabel = \"r\"\n",
             cds.display().to_string(),
             dir.path().join("rates.csv").display().to_string()
         );
@@ -358,6 +367,20 @@ fn rate_quotes_build_the_discount_curves() {
     assert_eq!(r.get("no_rate_convention"), Some(&1), "{r:?}");
     assert_eq!(r.get("bad_rate_curve"), Some(&2), "{r:?}");
     assert_eq!(r.len(), 2, "{r:?}");
+
+    // The EUR calendar moves EUR pillars near its holiday and nothing else.
+    let with_calendar = pipeline("calendar", false);
+    let cal_curves = hazardline::tables::read::<hazardline::tables::DiscountCurveRow>(&with_calendar).unwrap();
+    let key = |c: &hazardline::tables::DiscountCurveRow| (c.date, c.currency.clone(), c.pillar_date);
+    let before: std::collections::BTreeSet<_> = curves.iter().map(key).collect();
+    let moved: Vec<_> = cal_curves.iter().filter(|c| !before.contains(&key(c))).collect();
+    assert!(!moved.is_empty(), "the EUR holiday moves no pillar");
+    // Only EUR curves move, those of the first date and the next (the holiday is within both
+    // spot windows).
+    assert!(moved.iter().all(|c| c.currency == "EUR" && c.date <= spot), "{moved:?}");
+    assert!(moved.iter().any(|c| c.date.to_string() == first));
+    let manifest = std::fs::read_to_string(with_calendar.parent().unwrap().join("manifest.json")).unwrap();
+    assert!(manifest.contains("\"calendar EUR\""), "the calendar file is a recorded input");
 
     let both = pipeline("both", true);
     let curves = hazardline::tables::read::<hazardline::tables::DiscountCurveRow>(&both).unwrap();

@@ -15,7 +15,9 @@ Cases:
   * usd_2009-05-21: the deposit and swap rates of QuantLib's own test suite
     (lballabio/QuantLib, test-suite/creditdefaultswap.cpp, testIsdaEngine), USD conventions;
   * invented rates (no real market data) on other dates for the EUR, GBP and JPY conventions,
-    including a month end, a Friday, negative rates and a sparse set of quotes.
+    including a month end, a Friday, negative rates, a sparse set of quotes, and a calendar of
+    invented holidays (a BespokeCalendar: weekends plus the list) that moves spot, end dates
+    and fixed dates.
 
 Conventions per currency (hazardline's defaults; common practice, recalled from memory):
   USD spot 2, deposits Act/360, fixed semi-annual 30/360, floating 3M;
@@ -59,6 +61,13 @@ CASES = [
     {"id": "jpy_2025-03-19_sparse", "date": "2025-03-19", "currency": "JPY",
      "deposits": [(3, 0.0045), (12, 0.0062)],
      "swaps": [(3, 0.0081), (10, 0.0128)]},
+    # An invented holiday list (the currency's calendar): spot moves past two holidays, and
+    # holidays fall on instruments' end dates and swap fixed dates.
+    {"id": "eur_2024-12-23_holidays", "date": "2024-12-23", "currency": "EUR",
+     "holidays": ["2024-12-25", "2024-12-26", "2025-01-01", "2025-01-27", "2025-03-27", "2025-06-27",
+                  "2025-12-29", "2026-12-28", "2027-12-27", "2029-12-27"],
+     "deposits": [(1, 0.0285), (3, 0.0279), (6, 0.0262), (12, 0.0245)],
+     "swaps": [(2, 0.0221), (3, 0.0219), (5, 0.0223), (10, 0.0236)]},
     {"id": "usd_2023-06-30_inverted", "date": "2023-06-30", "currency": "USD",
      "deposits": [(1, 0.0522), (3, 0.0548), (6, 0.0562), (12, 0.0571)],
      "swaps": [(2, 0.0498), (3, 0.0461), (5, 0.0421), (7, 0.0402), (10, 0.0391), (30, 0.0362)]},
@@ -74,19 +83,32 @@ def iso(d):
     return f"{d.year():04d}-{d.month():02d}-{d.dayOfMonth():02d}"
 
 
+def calendar(case):
+    """WeekendsOnly, or weekends plus the case's holidays (a BespokeCalendar)."""
+    if not case.get("holidays"):
+        return CAL
+    cal = ql.BespokeCalendar("case holidays " + case["id"])
+    cal.addWeekend(ql.Saturday)
+    cal.addWeekend(ql.Sunday)
+    for h in case["holidays"]:
+        cal.addHoliday(qdate(h))
+    return cal
+
+
 def build(case):
     trade = qdate(case["date"])
     ql.Settings.instance().evaluationDate = trade
     c = CONV[case["currency"]]
+    cal = calendar(case)
     helpers = []
     for m, r in case["deposits"]:
-        helpers.append(ql.DepositRateHelper(r, ql.Period(m, ql.Months), c["spot_lag"], CAL, ql.ModifiedFollowing,
+        helpers.append(ql.DepositRateHelper(r, ql.Period(m, ql.Months), c["spot_lag"], cal, ql.ModifiedFollowing,
                                             False, DC[c["deposit_day_count"]]))
     index = ql.IborIndex("StandardCurveIndex", ql.Period(c["float_months"], ql.Months), c["spot_lag"],
-                         ql.Currency(), CAL, ql.ModifiedFollowing, False, ql.Actual360())
+                         ql.Currency(), cal, ql.ModifiedFollowing, False, ql.Actual360())
     freq = {12: ql.Annual, 6: ql.Semiannual, 3: ql.Quarterly}[c["fixed_months"]]
     for y, r in case["swaps"]:
-        helpers.append(ql.SwapRateHelper(r, ql.Period(y, ql.Years), CAL, freq, ql.ModifiedFollowing,
+        helpers.append(ql.SwapRateHelper(r, ql.Period(y, ql.Years), cal, freq, ql.ModifiedFollowing,
                                          DC[c["fixed_day_count"]], index))
     curve = ql.PiecewiseLogLinearDiscount(trade, helpers, ql.Actual365Fixed())
     curve.enableExtrapolation()
@@ -96,6 +118,7 @@ def build(case):
     # Probe points between and beyond the pillars.
     probes = [[iso(trade + k), curve.discount(trade + k)] for k in (1, 17, 100, 400, 1000, 3000, 12000)]
     return {"id": case["id"], "date": case["date"], "currency": case["currency"], "convention": c,
+            "holidays": case.get("holidays", []),
             "deposits": case["deposits"], "swaps": case["swaps"], "pillars": pillars, "probes": probes}
 
 
