@@ -177,6 +177,29 @@ fn term_dates(settings: &RecordedSettings, dates: &[NaiveDate]) -> Vec<NaiveDate
     }
 }
 
+/// The discount curves the run used, by source and currency (from `discount_curves`: the
+/// discount table's, and the standard curves built from deposit and swap quotes).
+fn discount_sources(w: &mut String, tables: &Path) -> Result<()> {
+    let path = readback::table_path(tables, tables::DiscountCurveRow::NAME);
+    let rows: Vec<tables::DiscountCurveRow> = tables::read_from(&path)?;
+    let mut by: BTreeMap<(&str, &str), (BTreeSet<NaiveDate>, usize)> = BTreeMap::new();
+    for r in &rows {
+        let e = by.entry((r.source, r.currency.as_str())).or_default();
+        e.0.insert(r.date);
+        e.1 += 1;
+    }
+    if by.is_empty() {
+        return Ok(());
+    }
+    let _ = writeln!(w, "Discount curves (every pillar in `tables/discount_curves.parquet`): `discount` from the discount table, `rate_quotes` the standard curve built from deposit and swap quotes (see the method notes).\n");
+    let _ = writeln!(w, "| source | currency | curves | pillars |\n| --- | --- | ---: | ---: |");
+    for ((source, ccy), (dates, n)) in &by {
+        let _ = writeln!(w, "| `{source}` | {} | {} | {n} |", cell_text(ccy), dates.len());
+    }
+    let _ = writeln!(w);
+    Ok(())
+}
+
 /// Renders `report.md` and `charts/*.svg` in `run_dir` from its tables and manifest.
 pub fn render(run_dir: &Path) -> Result<()> {
     render_with(run_dir, None)
@@ -408,6 +431,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     // 3. Calibration and residuals
     let _ = writeln!(w, "## 3. Calibration and residuals\n");
     let _ = writeln!(w, "Hazard curves are bootstrapped per (date, entity, currency) from the standard-contract CDS quotes; every calibrated quote is then repriced on its curve by an independent pass of the leg pricer.\n");
+    discount_sources(w, &t)?;
     let _ = writeln!(w, "| node status | nodes |\n| --- | ---: |");
     for (s, n) in status_counts {
         let _ = writeln!(w, "| `{s}` | {n} |");

@@ -6,8 +6,8 @@
 //! ```text
 //! cds_quotes/quotes_<year>.parquet   the daily feed, one file per calendar year
 //! cds_quotes/manual_entries.csv      rows typed in by hand (planted text and weekend faults)
-//! discount.parquet, bonds.csv, bond_quotes.csv, entities.csv, grades.csv, defaults.csv,
-//! cohort_history.csv
+//! discount.parquet (USD zero rates), rate_quotes.csv (EUR deposits and swaps),
+//! bonds.csv, bond_quotes.csv, entities.csv, grades.csv, defaults.csv, cohort_history.csv
 //! truth/grade_profiles.csv, truth/intensities.parquet (month ends), truth/defaults.csv,
 //! truth/faults.csv, truth/bond_basis.csv, truth/cohort_pd.csv, truth/premium.csv,
 //! truth/scenario.json
@@ -152,8 +152,10 @@ fn write_inputs(w: &mut Writer, s: &Scenario) -> Result<()> {
             }
         }
     }
-    // Discount curves.
-    let d = &s.discount;
+    // Discount curves: zero rates by tenor, except for the currencies whose curves are given
+    // as the deposit and swap quotes they imply (the standard curve, rebuilt by the run).
+    let d: Vec<&(NaiveDate, &str, u32, f64)> =
+        s.discount.iter().filter(|r| !RATE_QUOTE_CURRENCIES.contains(&r.1)).collect();
     w.parquet(
         "discount.parquet",
         TableBuilder::new()
@@ -162,6 +164,7 @@ fn write_inputs(w: &mut Writer, s: &Scenario) -> Result<()> {
             .strings("tenor", d.iter().map(|r| Some(tenor_text(r.2))))
             .floats("zero_rate", d.iter().map(|r| Some(r.3))),
     )?;
+    w.text("rate_quotes.csv", &rate_quotes_csv(s))?;
     // Entities, grades, defaults.
     let mut body = String::from("entity,name,sector,region,coverage_end\n");
     for e in &s.entities {
@@ -207,6 +210,53 @@ fn write_inputs(w: &mut Writer, s: &Scenario) -> Result<()> {
         let _ = writeln!(body, "{},{},{},{},{}", c.year, c.grade, c.obligors, c.defaults, c.withdrawn);
     }
     w.text("cohort_history.csv", &body)
+}
+
+/// The currencies whose discount curves the universe gives as deposit and swap quotes.
+const RATE_QUOTE_CURRENCIES: [&str; 1] = ["EUR"];
+
+/// The deposit and swap quotes of the standard curve (default conventions, weekends only)
+/// that reprice each day's simulated zero curve of those currencies, rounded to 1e-6.
+fn rate_quotes_csv(s: &Scenario) -> String {
+    use crate::curves::rates::{par_rates, RateConvention, RateInstrument};
+    use crate::curves::DiscountCurve;
+    let cal = crate::time::Calendar::weekends_only();
+    let instruments: Vec<(RateInstrument, Tenor)> = [1u32, 3, 6, 12]
+        .iter()
+        .map(|&m| (RateInstrument::Deposit, m))
+        .chain([24u32, 36, 48, 60, 84, 120, 180, 240, 360].iter().map(|&m| (RateInstrument::Swap, m)))
+        .filter_map(|(i, m)| Tenor::from_months(m).map(|t| (i, t)))
+        .collect();
+    let mut body = String::from("date,currency,instrument,tenor,rate\n");
+    for ccy in RATE_QUOTE_CURRENCIES {
+        let Some(conv) = RateConvention::default_for(ccy) else { continue };
+        let rows: Vec<&(NaiveDate, &str, u32, f64)> = s.discount.iter().filter(|r| r.1 == ccy).collect();
+        let mut i = 0;
+        while i < rows.len() {
+            let date = rows[i].0;
+            let mut j = i;
+            while j < rows.len() && rows[j].0 == date {
+                j += 1;
+            }
+            let pillars: Vec<(Tenor, f64)> =
+                rows[i..j].iter().filter_map(|r| Tenor::from_months(r.2).map(|t| (t, r.3))).collect();
+            if let Ok(curve) = DiscountCurve::from_zero_rates(date, &pillars) {
+                for ((instrument, tenor), rate) in
+                    instruments.iter().zip(par_rates(date, &curve, &instruments, &conv, &cal))
+                {
+                    let _ = writeln!(
+                        body,
+                        "{date},{ccy},{},{},{:.6}",
+                        instrument.as_str(),
+                        tenor_text(tenor.months()),
+                        rate
+                    );
+                }
+            }
+            i = j;
+        }
+    }
+    body
 }
 
 fn write_truth(w: &mut Writer, s: &Scenario) -> Result<()> {
@@ -363,6 +413,7 @@ fn pipeline_file(s: &Scenario) -> String {
          [inputs]\n\
          cds_quotes = \"cds_quotes\"\n\
          discount = \"discount.parquet\"\n\
+         rate_quotes = \"rate_quotes.csv\"\n\
          bonds = \"bonds.csv\"\n\
          bond_quotes = \"bond_quotes.csv\"\n\
          entities = \"entities.csv\"\n\

@@ -169,6 +169,44 @@ fn implied_rate(p: &Prepared, spot: NaiveDate, curve: &DiscountCurve) -> f64 {
     }
 }
 
+/// The par rates of `instruments` on `curve` (a curve referenced on `trade`): what a deposit
+/// or swap of each tenor would be quoted at, with the same dates and day counts as
+/// [`build_rate_curve`]. Used to write the standard-curve quotes of an invented universe.
+pub fn par_rates(
+    trade: NaiveDate,
+    curve: &DiscountCurve,
+    instruments: &[(RateInstrument, Tenor)],
+    conv: &RateConvention,
+    cal: &Calendar,
+) -> Vec<f64> {
+    let spot = spot_date(trade, conv, cal);
+    instruments
+        .iter()
+        .map(|&(instrument, tenor)| {
+            let p = prepare(RateQuote { instrument, tenor, rate: 0.0 }, spot, conv, cal);
+            implied_rate(&p, spot, curve)
+        })
+        .collect()
+}
+
+fn spot_date(trade: NaiveDate, conv: &RateConvention, cal: &Calendar) -> NaiveDate {
+    if conv.spot_lag == 0 {
+        cal.adjust(trade, BusinessDayConvention::Following)
+    } else {
+        cal.add_business_days(trade, conv.spot_lag as i32)
+    }
+}
+
+fn prepare(q: RateQuote, spot: NaiveDate, conv: &RateConvention, cal: &Calendar) -> Prepared {
+    let end_unadj = add_months(spot, q.tenor.months() as i32);
+    let end = cal.adjust(end_unadj, BusinessDayConvention::ModifiedFollowing);
+    let (fixed, tau) = match q.instrument {
+        RateInstrument::Deposit => (Vec::new(), conv.deposit_day_count.year_fraction(spot, end)),
+        RateInstrument::Swap => (fixed_periods(spot, end_unadj, conv.fixed_months, conv.fixed_day_count, cal), 0.0),
+    };
+    Prepared { quote: q, end, fixed, tau }
+}
+
 /// Builds the standard curve of `trade` from deposit and swap quotes (see the module notes).
 pub fn build_rate_curve(
     trade: NaiveDate,
@@ -179,26 +217,17 @@ pub fn build_rate_curve(
     if quotes.is_empty() {
         return Err(RateCurveError::Empty);
     }
-    let spot = if conv.spot_lag == 0 {
-        cal.adjust(trade, BusinessDayConvention::Following)
-    } else {
-        cal.add_business_days(trade, conv.spot_lag as i32)
-    };
+    let spot = spot_date(trade, conv, cal);
     let mut prepared: Vec<Prepared> = Vec::with_capacity(quotes.len());
     for q in quotes {
         if !q.rate.is_finite() {
             return Err(RateCurveError::BadRate { what: label(q), rate: q.rate });
         }
-        let end_unadj = add_months(spot, q.tenor.months() as i32);
-        let end = cal.adjust(end_unadj, BusinessDayConvention::ModifiedFollowing);
-        if end <= spot {
-            return Err(RateCurveError::NotAfterSpot { what: label(q), pillar: end, spot });
+        let p = prepare(*q, spot, conv, cal);
+        if p.end <= spot {
+            return Err(RateCurveError::NotAfterSpot { what: label(q), pillar: p.end, spot });
         }
-        let (fixed, tau) = match q.instrument {
-            RateInstrument::Deposit => (Vec::new(), conv.deposit_day_count.year_fraction(spot, end)),
-            RateInstrument::Swap => (fixed_periods(spot, end_unadj, conv.fixed_months, conv.fixed_day_count, cal), 0.0),
-        };
-        prepared.push(Prepared { quote: *q, end, fixed, tau });
+        prepared.push(p);
     }
     prepared.sort_by_key(|p| p.end);
     if let Some(w) = prepared.windows(2).find(|w| w[0].end == w[1].end) {
@@ -256,4 +285,37 @@ pub fn build_rate_curve(
         })
         .collect();
     Ok((curve, out))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Par rates read off a curve rebuild that curve's discount factors at the instruments'
+    /// end dates (the build and the read-off invert each other).
+    #[test]
+    fn par_rates_rebuild_their_curve() {
+        let trade = NaiveDate::from_ymd_opt(2024, 5, 17).unwrap();
+        let cal = Calendar::weekends_only();
+        let tn = |m: u32| Tenor::from_months(m).unwrap();
+        let zero = DiscountCurve::from_zero_rates(trade, &[(tn(3), 0.031), (tn(24), 0.029), (tn(120), 0.034)]).unwrap();
+        let conv = RateConvention::default_for("EUR").unwrap();
+        let instruments: Vec<(RateInstrument, Tenor)> = [1, 3, 6, 12]
+            .iter()
+            .map(|&m| (RateInstrument::Deposit, tn(m)))
+            .chain([24, 36, 60, 84, 120].iter().map(|&m| (RateInstrument::Swap, tn(m))))
+            .collect();
+        let rates = par_rates(trade, &zero, &instruments, &conv, &cal);
+        let quotes: Vec<RateQuote> = instruments
+            .iter()
+            .zip(&rates)
+            .map(|(&(instrument, tenor), &rate)| RateQuote { instrument, tenor, rate })
+            .collect();
+        let (built, pillars) = build_rate_curve(trade, &quotes, &conv, &cal).unwrap();
+        for p in &pillars {
+            assert!((p.discount_factor - zero.df(p.pillar)).abs() < 1e-13, "{} {}", p.pillar, p.discount_factor);
+            assert!(p.residual.abs() < 1e-13);
+        }
+        assert!((built.df(pillars[3].pillar) - zero.df(pillars[3].pillar)).abs() < 1e-13);
+    }
 }
