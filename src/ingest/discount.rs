@@ -158,55 +158,24 @@ pub fn read(path: &Path, band: (f64, f64)) -> Result<DiscountTable> {
 
 /// Duplicate pillars: identical repeats keep the first; conflicting values reject the key.
 fn dedupe(out: &mut DiscountTable) {
-    let mut order: Vec<usize> = (0..out.rows.len()).collect();
-    order.sort_by(|&a, &b| {
-        let (x, y) = (&out.rows[a], &out.rows[b]);
-        (x.date, &x.currency, x.pillar_date, a).cmp(&(y.date, &y.currency, y.pillar_date, b))
-    });
-    let mut drop: Vec<Option<(&'static str, String)>> = vec![None; out.rows.len()];
-    let mut i = 0;
-    while i < order.len() {
-        let first = &out.rows[order[i]];
-        let mut j = i + 1;
-        while j < order.len() {
-            let r = &out.rows[order[j]];
-            if (r.date, &r.currency, r.pillar_date) != (first.date, &first.currency, first.pillar_date) {
-                break;
-            }
-            j += 1;
-        }
-        if j - i > 1 {
-            let conflicting = order[i + 1..j].iter().any(|&k| out.rows[k].value != first.value);
-            for (n, &k) in order[i..j].iter().enumerate() {
-                if conflicting {
-                    drop[k] = Some((
-                        "conflicting_duplicate",
-                        format!(
-                            "{} {} pillar {} ({}) is given {} times with different values",
-                            first.date,
-                            first.currency,
-                            first.pillar_date,
-                            first.pillar,
-                            j - i
-                        ),
-                    ));
-                } else if n > 0 {
-                    drop[k] = Some(("duplicate_row", format!("repeats {} row {}", first.source, first.row)));
-                }
-            }
-        }
-        i = j;
-    }
     let rows = std::mem::take(&mut out.rows);
-    for (k, r) in rows.into_iter().enumerate() {
-        match drop[k].take() {
-            Some((reason, detail)) => {
-                let mut rej = Reject::new(TABLE, &r.source, r.row, reason, detail);
-                rej.date = Some(r.date);
-                rej.key = format!("{} {}", r.currency, r.pillar);
-                out.rejects.push(rej);
-            }
-            None => out.rows.push(r),
-        }
-    }
+    let rejects = &mut out.rejects;
+    out.rows = super::source::dedupe_by_key(
+        rows,
+        |r| (r.date, r.currency.clone(), r.pillar_date),
+        |a, b| a.value == b.value,
+        |f, n| {
+            format!(
+                "{} {} pillar {} ({}) is given {n} times with different values",
+                f.date, f.currency, f.pillar_date, f.pillar
+            )
+        },
+        |f| format!("repeats {} row {}", f.source, f.row),
+        |r, reason, detail| {
+            let mut rej = Reject::new(TABLE, &r.source, r.row, reason, detail);
+            rej.date = Some(r.date);
+            rej.key = format!("{} {}", r.currency, r.pillar);
+            rejects.push(rej);
+        },
+    );
 }

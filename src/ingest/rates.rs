@@ -93,49 +93,27 @@ pub fn read(path: &Path, band: (f64, f64)) -> Result<RateQuoteTable> {
 
 /// Duplicate quotes: identical repeats keep the first; conflicting rates reject the key.
 fn dedupe(out: &mut RateQuoteTable) {
-    let key = |r: &RateQuoteRow| (r.date, r.currency.clone(), r.instrument, r.tenor);
-    let mut order: Vec<usize> = (0..out.rows.len()).collect();
-    order.sort_by(|&a, &b| (key(&out.rows[a]), a).cmp(&(key(&out.rows[b]), b)));
-    let mut drop: Vec<Option<(&'static str, String)>> = vec![None; out.rows.len()];
-    let mut i = 0;
-    while i < order.len() {
-        let first = &out.rows[order[i]];
-        let mut j = i + 1;
-        while j < order.len() && key(&out.rows[order[j]]) == key(first) {
-            j += 1;
-        }
-        if j - i > 1 {
-            let conflicting = order[i + 1..j].iter().any(|&k| out.rows[k].rate != first.rate);
-            for (n, &k) in order[i..j].iter().enumerate() {
-                if conflicting {
-                    drop[k] = Some((
-                        "conflicting_duplicate",
-                        format!(
-                            "{} {} {} {} is given {} times with different rates",
-                            first.date,
-                            first.currency,
-                            first.instrument.as_str(),
-                            first.tenor,
-                            j - i
-                        ),
-                    ));
-                } else if n > 0 {
-                    drop[k] = Some(("duplicate_row", format!("repeats {} row {}", first.source, first.row)));
-                }
-            }
-        }
-        i = j;
-    }
     let rows = std::mem::take(&mut out.rows);
-    for (k, r) in rows.into_iter().enumerate() {
-        match drop[k].take() {
-            Some((reason, detail)) => {
-                let mut rej = Reject::new(TABLE, &r.source, r.row, reason, detail);
-                rej.date = Some(r.date);
-                rej.key = format!("{} {} {}", r.currency, r.instrument.as_str(), r.tenor);
-                out.rejects.push(rej);
-            }
-            None => out.rows.push(r),
-        }
-    }
+    let rejects = &mut out.rejects;
+    out.rows = super::source::dedupe_by_key(
+        rows,
+        |r| (r.date, r.currency.clone(), r.instrument, r.tenor),
+        |a, b| a.rate == b.rate,
+        |f, n| {
+            format!(
+                "{} {} {} {} is given {n} times with different rates",
+                f.date,
+                f.currency,
+                f.instrument.as_str(),
+                f.tenor
+            )
+        },
+        |f| format!("repeats {} row {}", f.source, f.row),
+        |r, reason, detail| {
+            let mut rej = Reject::new(TABLE, &r.source, r.row, reason, detail);
+            rej.date = Some(r.date);
+            rej.key = format!("{} {} {}", r.currency, r.instrument.as_str(), r.tenor);
+            rejects.push(rej);
+        },
+    );
 }

@@ -571,3 +571,49 @@ mod tests {
         );
     }
 }
+
+/// The duplicate rule of the dated market tables (`discount`, `rate_quotes`): rows with one
+/// key keep the first when every repeat carries the same value (the others are rejected as
+/// `duplicate_row`), and are all rejected as `conflicting_duplicate` when the values differ.
+/// `key` orders and groups the rows (ties keep input order), `same` compares two rows' values,
+/// `conflict` words the conflict from the first row and the group's size, and `reject` turns a
+/// dropped row into its reject. Returns the kept rows in input order.
+pub(crate) fn dedupe_by_key<R, K: Ord>(
+    rows: Vec<R>,
+    key: impl Fn(&R) -> K,
+    same: impl Fn(&R, &R) -> bool,
+    conflict: impl Fn(&R, usize) -> String,
+    repeats: impl Fn(&R) -> String,
+    mut reject: impl FnMut(R, &'static str, String),
+) -> Vec<R> {
+    let mut order: Vec<usize> = (0..rows.len()).collect();
+    order.sort_by(|&a, &b| (key(&rows[a]), a).cmp(&(key(&rows[b]), b)));
+    let mut drop: Vec<Option<(&'static str, String)>> = vec![None; rows.len()];
+    let mut i = 0;
+    while i < order.len() {
+        let first = &rows[order[i]];
+        let mut j = i + 1;
+        while j < order.len() && key(&rows[order[j]]) == key(first) {
+            j += 1;
+        }
+        if j - i > 1 {
+            let conflicting = order[i + 1..j].iter().any(|&k| !same(&rows[k], first));
+            for (n, &k) in order[i..j].iter().enumerate() {
+                if conflicting {
+                    drop[k] = Some(("conflicting_duplicate", conflict(first, j - i)));
+                } else if n > 0 {
+                    drop[k] = Some(("duplicate_row", repeats(first)));
+                }
+            }
+        }
+        i = j;
+    }
+    let mut kept = Vec::with_capacity(rows.len());
+    for (k, r) in rows.into_iter().enumerate() {
+        match drop[k].take() {
+            Some((reason, detail)) => reject(r, reason, detail),
+            None => kept.push(r),
+        }
+    }
+    kept
+}
