@@ -547,31 +547,6 @@ pub fn read_table_batches(
     Ok(info)
 }
 
-#[cfg(test)]
-mod tests {
-    use super::csv_fault;
-
-    #[test]
-    fn csv_faults_are_located_by_line_and_field() {
-        let head = "date,entity,tenor\n";
-        // Clean files, short rows (read, their empty cells rejected later), blank lines, quoted
-        // fields with commas, escaped quotes and line breaks: nothing to report.
-        for ok in ["", "2024-01-02,A,5Y\n", "2024-01-02,A\n\n", "2024-01-02,\"A, \"\"B\"\"\nC\",5Y\r\n"] {
-            assert_eq!(csv_fault(format!("{head}{ok}").as_bytes()), None, "{ok:?}");
-        }
-        let too_many = format!("{head}2024-01-02,A,5Y\n2024-01-03,\"A,\nB\",5Y\n2024-01-04,A,5Y,9,9");
-        assert_eq!(
-            csv_fault(too_many.as_bytes()).as_deref(),
-            Some("line 5: 5 fields where the header has 3; the extra ones start at field 4")
-        );
-        let open = format!("{head}2024-01-02,A,5Y\n2024-01-02,\"A,5Y\n2024-01-03,A,5Y\n");
-        assert_eq!(
-            csv_fault(open.as_bytes()).as_deref(),
-            Some("line 3, field 2 (`entity`): a quote opens here and is never closed")
-        );
-    }
-}
-
 /// The duplicate rule of the dated market tables (`discount`, `rate_quotes`): rows with one
 /// key keep the first when every repeat carries the same value (the others are rejected as
 /// `duplicate_row`), and are all rejected as `conflicting_duplicate` when the values differ.
@@ -616,4 +591,29 @@ pub(crate) fn dedupe_by_key<R, K: Ord>(
         }
     }
     kept
+}
+
+#[cfg(test)]
+mod tests {
+    use super::csv_fault;
+
+    #[test]
+    fn csv_faults_are_located_by_line_and_field() {
+        let head = "date,entity,tenor\n";
+        // Clean files, short rows (read, their empty cells rejected later), blank lines, quoted
+        // fields with commas, escaped quotes and line breaks: nothing to report.
+        for ok in ["", "2024-01-02,A,5Y\n", "2024-01-02,A\n\n", "2024-01-02,\"A, \"\"B\"\"\nC\",5Y\r\n"] {
+            assert_eq!(csv_fault(format!("{head}{ok}").as_bytes()), None, "{ok:?}");
+        }
+        let too_many = format!("{head}2024-01-02,A,5Y\n2024-01-03,\"A,\nB\",5Y\n2024-01-04,A,5Y,9,9");
+        assert_eq!(
+            csv_fault(too_many.as_bytes()).as_deref(),
+            Some("line 5: 5 fields where the header has 3; the extra ones start at field 4")
+        );
+        let open = format!("{head}2024-01-02,A,5Y\n2024-01-02,\"A,5Y\n2024-01-03,A,5Y\n");
+        assert_eq!(
+            csv_fault(open.as_bytes()).as_deref(),
+            Some("line 3, field 2 (`entity`): a quote opens here and is never closed")
+        );
+    }
 }
