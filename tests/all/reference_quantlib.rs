@@ -534,3 +534,32 @@ fn rate_curve_matches_quantlib() {
     assert_eq!(cases, 7);
     eprintln!("standard curves against QuantLib: 7 cases, largest discount-factor difference {worst:e}");
 }
+
+/// The quoted-spread convention against the published table: each quoted spread (0.001 or 0.1)
+/// converts to the published upfront at 100 bp within the table's tolerance (1e-8 relative),
+/// and each published upfront converts back to its quoted spread within 1e-8 relative.
+#[test]
+fn quoted_spreads_convert_to_the_published_upfronts_and_back() {
+    use hazardline::instruments::cds::quoted_spread;
+    let cal = Calendar::weekends_only();
+    let r = accrual_reference();
+    let t = &r["published_table"];
+    let trade = d(s(&t["trade_date"]));
+    let pillars: Vec<(chrono::NaiveDate, f64)> =
+        t["discount_pillars"].as_array().unwrap().iter().map(|p| (d(s(&p[0])), num(&p[1]))).collect();
+    let discount = DiscountCurve::from_discount_factors(trade, &pillars).unwrap();
+    let tol = num(&t["tolerance_relative"]);
+    let (mut worst_up, mut worst_back) = (0.0f64, 0.0f64);
+    for c in t["cases"].as_array().unwrap() {
+        let contract = CdsContract::with_maturity(trade, d(s(&c["term_date"])), &cal);
+        let (spread, recovery, published) =
+            (num(&c["quoted_spread"]), num(&c["recovery"]), num(&c["published_upfront"]) / 1e7);
+        let accrual = AccrualIntegration::default();
+        let up = quoted_spread::to_upfront(&contract, spread, 0.01, recovery, &discount, accrual).unwrap();
+        worst_up = worst_up.max((up - published).abs() / published.abs());
+        let back = quoted_spread::from_upfront(&contract, published, 0.01, recovery, &discount, accrual).unwrap();
+        worst_back = worst_back.max((back - spread).abs() / spread);
+    }
+    eprintln!("quoted spread to published upfront {worst_up:.2e}, upfront back to quoted spread {worst_back:.2e}");
+    assert!(worst_up <= tol && worst_back <= tol, "{worst_up:e} {worst_back:e}");
+}

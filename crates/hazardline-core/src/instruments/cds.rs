@@ -523,3 +523,83 @@ pub fn price_legs(
         cash_settle_df: terms.cash_settle_df,
     })
 }
+
+/// The quoted-spread convention: a quote given as a spread `s` stands for the flat hazard at
+/// which the contract's par spread is `s` (at the quote's recovery), and trades as the upfront
+/// that flat curve gives at the running coupon. Common practice for standard contracts (the
+/// values published with QuantLib's test suite, testIsdaEngine, are upfronts converted this
+/// way; tests/all/reference_quantlib.rs reproduces them).
+pub mod quoted_spread {
+    use super::{price_legs, AccrualIntegration, CdsContract};
+    use crate::curves::{DiscountCurve, HazardCurve};
+
+    /// The flat hazard at which `value(h)` reaches `target` (value rising in h), bisected on
+    /// [0, 50] per year to the last bit; None when no hazard there reaches it.
+    fn flat_hazard(target: f64, value: impl Fn(f64) -> Option<f64>) -> Option<f64> {
+        let (mut lo, mut hi) = (0.0f64, 50.0f64);
+        if !(value(lo)? <= target && value(hi)? >= target) {
+            return None;
+        }
+        for _ in 0..200 {
+            let mid = 0.5 * (lo + hi);
+            if mid <= lo || mid >= hi {
+                break;
+            }
+            if value(mid)? < target {
+                lo = mid;
+            } else {
+                hi = mid;
+            }
+        }
+        Some(0.5 * (lo + hi))
+    }
+
+    fn legs_at(
+        contract: &CdsContract,
+        recovery: f64,
+        discount: &DiscountCurve,
+        h: f64,
+        accrual: AccrualIntegration,
+    ) -> Option<super::CdsLegs> {
+        price_legs(contract, recovery, discount, &HazardCurve::flat(contract.trade_date, h), accrual).ok()
+    }
+
+    /// The flat hazard a quoted spread stands for.
+    pub fn flat_hazard_of_spread(
+        contract: &CdsContract,
+        spread: f64,
+        recovery: f64,
+        discount: &DiscountCurve,
+        accrual: AccrualIntegration,
+    ) -> Option<f64> {
+        flat_hazard(spread, |h| legs_at(contract, recovery, discount, h, accrual).map(|l| l.par_spread()))
+    }
+
+    /// The upfront (fraction of notional, positive when the buyer pays) at running coupon
+    /// `coupon` of a contract quoted at spread `spread`.
+    pub fn to_upfront(
+        contract: &CdsContract,
+        spread: f64,
+        coupon: f64,
+        recovery: f64,
+        discount: &DiscountCurve,
+        accrual: AccrualIntegration,
+    ) -> Option<f64> {
+        let h = flat_hazard_of_spread(contract, spread, recovery, discount, accrual)?;
+        legs_at(contract, recovery, discount, h, accrual).map(|l| l.upfront(coupon))
+    }
+
+    /// The quoted spread of a contract trading at upfront `upfront` with running coupon
+    /// `coupon`: the par spread of the flat hazard that gives that upfront.
+    pub fn from_upfront(
+        contract: &CdsContract,
+        upfront: f64,
+        coupon: f64,
+        recovery: f64,
+        discount: &DiscountCurve,
+        accrual: AccrualIntegration,
+    ) -> Option<f64> {
+        let h = flat_hazard(upfront, |h| legs_at(contract, recovery, discount, h, accrual).map(|l| l.upfront(coupon)))?;
+        legs_at(contract, recovery, discount, h, accrual).map(|l| l.par_spread())
+    }
+}
