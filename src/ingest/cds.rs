@@ -26,6 +26,8 @@ const SPECS: &[ColumnSpec] = &[
     ColumnSpec { name: "upfront", kind: Kind::Number, required: false },
     ColumnSpec { name: "coupon_bp", kind: Kind::Number, required: false },
     ColumnSpec { name: "seniority", kind: Kind::Text, required: false },
+    ColumnSpec { name: "quoted_spread_bp", kind: Kind::Number, required: false },
+    ColumnSpec { name: "quote_type", kind: Kind::Text, required: false },
 ];
 const C_DATE: usize = 0;
 const C_ENTITY: usize = 1;
@@ -36,6 +38,12 @@ const C_RECOVERY: usize = 5;
 const C_UPFRONT: usize = 6;
 const C_COUPON: usize = 7;
 const C_SENIORITY: usize = 8;
+const C_QUOTED: usize = 9;
+const C_QUOTE_TYPE: usize = 10;
+
+/// The running coupon of a quoted-spread quote without a `coupon_bp` (bp): the standard
+/// contract's usual coupon for investment-grade names (common practice, no single source).
+pub const DEFAULT_QUOTED_COUPON_BP: f64 = 100.0;
 
 /// One CDS quote that passed the row rules, with ids into the panel's interners.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -55,6 +63,9 @@ pub struct CdsQuoteRow {
     pub row: u32,
     /// Data-quality flag bits (`quality::FLAG_*`); fits in the struct's padding.
     pub flags: u8,
+    /// For a quoted-spread quote (`quote` holds the spread as a `ParSpread`), the running
+    /// coupon (bp) it converts to an upfront at; NaN for a par-spread or upfront quote.
+    pub quoted_coupon_bp: f32,
 }
 
 impl CdsQuoteRow {
@@ -62,7 +73,22 @@ impl CdsQuoteRow {
         (!self.recovery.is_nan()).then_some(self.recovery)
     }
 
-    /// Par spread in bp for a par-spread quote.
+    /// Whether the row is a quoted spread (converted to an upfront at calibration).
+    pub fn is_quoted_spread(&self) -> bool {
+        !self.quoted_coupon_bp.is_nan()
+    }
+
+    /// The row's quote type as the tables write it.
+    pub fn quote_type(&self) -> &'static str {
+        match self.quote {
+            _ if self.is_quoted_spread() => "quoted_spread",
+            CdsQuote::ParSpread(_) => "par_spread",
+            CdsQuote::Upfront { .. } => "upfront",
+        }
+    }
+
+    /// Spread in bp for a par-spread or quoted-spread quote (the series the data-quality
+    /// rules follow).
     pub fn spread_bp(&self) -> Option<f64> {
         match self.quote {
             CdsQuote::ParSpread(s) => Some(s * 1e4),
@@ -303,16 +329,70 @@ fn parse_row(
             ),
         ));
     }
-    let spread = number(file.cell(C_SPREAD, i), TABLE, "par_spread_bp", src, row)?;
+    let par = number(file.cell(C_SPREAD, i), TABLE, "par_spread_bp", src, row)?;
+    let quoted = number(file.cell(C_QUOTED, i), TABLE, "quoted_spread_bp", src, row)?;
     let upfront = number(file.cell(C_UPFRONT, i), TABLE, "upfront", src, row)?;
     let coupon = number(file.cell(C_COUPON, i), TABLE, "coupon_bp", src, row)?;
+    // The quote type: inferred from the columns given, and checked against `quote_type`.
+    let inferred = match (par, quoted, upfront) {
+        (Some(_), None, _) => "par_spread",
+        (None, Some(_), None) => "quoted_spread",
+        (None, None, Some(_)) => "upfront",
+        (None, None, None) => "",
+        _ => {
+            return Err(reject(
+                src,
+                row,
+                "ambiguous_quote",
+                "the row gives a quoted spread beside a par spread or an upfront; give one quote".into(),
+            ))
+        }
+    };
+    if let Some(t) = file.cell(C_QUOTE_TYPE, i).text() {
+        let t = t.to_ascii_lowercase();
+        if !matches!(t.as_str(), "par_spread" | "quoted_spread" | "upfront") {
+            return Err(reject(
+                src,
+                row,
+                "unknown_quote_type",
+                format!("column quote_type: {t:?} is not par_spread, quoted_spread or upfront"),
+            ));
+        }
+        if !inferred.is_empty() && t != inferred {
+            return Err(reject(
+                src,
+                row,
+                "quote_type_mismatch",
+                format!("column quote_type says {t}, but the row's quote columns give a {inferred} quote"),
+            ));
+        }
+    }
+    let quoted_coupon_bp = match quoted {
+        Some(_) => {
+            let c = coupon.unwrap_or(DEFAULT_QUOTED_COUPON_BP);
+            if !(c > 0.0) {
+                return Err(reject(
+                    src,
+                    row,
+                    "negative_coupon",
+                    format!("column coupon_bp: {c} bp is not a positive running coupon for a quoted spread"),
+                ));
+            }
+            c as f32
+        }
+        None => f32::NAN,
+    };
+    let (spread, spread_column) = match quoted {
+        Some(q) => (Some(q), "quoted_spread_bp"),
+        None => (par, "par_spread_bp"),
+    };
     let quote = match (spread, upfront, coupon) {
         (Some(s), _, _) if s <= 0.0 => {
             return Err(reject(
                 src,
                 row,
                 "non_positive_spread",
-                format!("column par_spread_bp: {s} bp is not positive"),
+                format!("column {spread_column}: {s} bp is not positive"),
             ))
         }
         (Some(s), _, _) if s < rules.min_spread_bp => {
@@ -320,7 +400,7 @@ fn parse_row(
                 src,
                 row,
                 "spread_below_floor",
-                format!("column par_spread_bp: {s} bp is below the plausible floor of {} bp", rules.min_spread_bp),
+                format!("column {spread_column}: {s} bp is below the plausible floor of {} bp", rules.min_spread_bp),
             ))
         }
         (Some(s), _, _) if s > rules.max_spread_bp => {
@@ -328,7 +408,7 @@ fn parse_row(
                 src,
                 row,
                 "spread_above_cap",
-                format!("column par_spread_bp: {s} bp is above the plausible cap of {} bp", rules.max_spread_bp),
+                format!("column {spread_column}: {s} bp is above the plausible cap of {} bp", rules.max_spread_bp),
             ))
         }
         (Some(s), _, _) => CdsQuote::ParSpread(s / 1e4),
@@ -397,6 +477,7 @@ fn parse_row(
         tenor,
         quote,
         recovery: recovery.unwrap_or(f64::NAN),
+        quoted_coupon_bp,
         seniority,
         file: fidx,
         row: row as u32,

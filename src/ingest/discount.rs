@@ -80,7 +80,8 @@ pub fn read(path: &Path, band: (f64, f64)) -> Result<DiscountTable> {
                         (tenor.to_string(), add_months(date, tenor.months() as i32))
                     }
                     (None, Some(d)) => {
-                        if d <= date {
+                        // The curve date itself is allowed only with the factor 1 (checked below).
+                        if d < date {
                             return Err(reject(
                                 "pillar_not_after_date",
                                 format!("column pillar_date: {d} is not after the curve date {date}"),
@@ -135,6 +136,12 @@ pub fn read(path: &Path, band: (f64, f64)) -> Result<DiscountTable> {
                         ))
                     }
                 };
+                if pillar_date == date && value != PillarValue::DiscountFactor(1.0) {
+                    return Err(reject(
+                        "pillar_not_after_date",
+                        format!("column pillar_date: {pillar_date} is the curve date; only a discount factor of 1 may sit there"),
+                    ));
+                }
                 Ok(DiscountRow { date, currency, pillar, pillar_date, value, source: src.clone(), row })
             })();
             match r {

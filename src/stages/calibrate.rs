@@ -17,6 +17,7 @@ use crate::ingest::cds::{self, CdsPanel, CdsQuoteRow};
 use crate::ingest::discount::{self, DiscountRow};
 use crate::ingest::{QualitySettings, Reject};
 use crate::instruments::AccrualIntegration;
+use crate::instruments::CdsQuote;
 use crate::tables::DiscountCurveRow;
 use crate::tables::{tenor_label, HazardCurveRow, Label, ResidualRow};
 use crate::text::{CurveSource, FitMethod, RowStatus};
@@ -228,10 +229,53 @@ fn calibrate_one(
 ) -> CurveOutput {
     let h = rows[0];
     let (date, entity, currency) = (h.date, panel.entities.name(h.entity), panel.currencies.name(h.currency));
+    // A quoted spread trades as the upfront its flat hazard gives at its running coupon: the
+    // conversion needs the day's discount curve, so it happens here.
+    let mut unconverted: Option<String> = None;
     let quotes: Vec<BootstrapQuote> = rows
         .iter()
-        .map(|r| BootstrapQuote { tenor: r.tenor, quote: r.quote, recovery: recovery_of(panel, r, s) })
+        .map(|r| {
+            let recovery = recovery_of(panel, r, s);
+            let quote = match r.quote {
+                CdsQuote::ParSpread(spread) if r.is_quoted_spread() => {
+                    let coupon = f64::from(r.quoted_coupon_bp) / 1e4;
+                    let upfront =
+                        crate::instruments::CdsContract::standard(date, r.tenor, &s.calendar).ok().and_then(|c| {
+                            crate::instruments::cds::quoted_spread::to_upfront(
+                                &c,
+                                spread,
+                                coupon,
+                                recovery,
+                                curve,
+                                s.bootstrap.accrual,
+                            )
+                        });
+                    match upfront {
+                        Some(upfront) => CdsQuote::Upfront { upfront, coupon },
+                        None => {
+                            unconverted.get_or_insert_with(|| {
+                                format!(
+                                    "the {} quoted spread {} bp has no flat hazard up to 50 per year",
+                                    r.tenor,
+                                    spread * 1e4
+                                )
+                            });
+                            r.quote
+                        }
+                    }
+                }
+                q => q,
+            };
+            BootstrapQuote { tenor: r.tenor, quote, recovery }
+        })
         .collect();
+    if let Some(why) = unconverted {
+        let rejects = rows
+            .iter()
+            .map(|r| panel.reject(r, "curve_not_built", format!("{date} {entity} {currency}: {why}")))
+            .collect();
+        return CurveOutput { hazard: Vec::new(), residuals: Vec::new(), rejects, used: 0, fit: None };
+    }
     // The shared plan of this (date, currency, tenor set) when there is one; the plain
     // bootstrap otherwise (same numbers, the plan built for this curve alone).
     let fitted = match plan {

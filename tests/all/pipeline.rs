@@ -388,3 +388,77 @@ fn rate_quotes_build_the_discount_curves() {
     let r = reasons(&both);
     assert_eq!(r.get("curve_in_discount_table"), Some(&(dates.len() * 10)), "{r:?}");
 }
+
+/// Quoted spreads through the whole pipeline: the 20 contracts of the published upfront table
+/// (tests/reference/cds_accrual_quantlib.json: QuantLib's testIsdaEngine) given as quoted spreads
+/// (`quoted_spread_bp`, coupon 100 bp) on one name each, and as the published upfronts on
+/// another, on the discount curve given by its discount factors: both bootstrap the same hazard
+/// (within the table's 1e-8 relative), equal to QuantLib's flat hazard for the quoted spread.
+/// A row whose `quote_type` disagrees with its columns, or that gives two quotes, is rejected.
+#[test]
+fn quoted_spreads_calibrate_as_their_upfronts() {
+    let path = repo().join("tests/reference/cds_accrual_quantlib.json");
+    let r: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap();
+    let t = &r["published_table"];
+    let dir = tempfile::tempdir().unwrap();
+    let mut disc = String::from("date,currency,pillar_date,discount_factor\n");
+    for p in t["discount_pillars"].as_array().unwrap() {
+        disc += &format!("2009-05-21,USD,{},{:.17e}\n", p[0].as_str().unwrap(), p[1].as_f64().unwrap());
+    }
+    let tenor_of = |term: &str| match term {
+        "2010-06-20" => "1Y",
+        "2011-06-20" => "2Y",
+        "2012-06-20" => "3Y",
+        "2016-06-20" => "7Y",
+        _ => "10Y",
+    };
+    let mut cds = String::from(
+        "date,entity,currency,tenor,par_spread_bp,recovery,upfront,coupon_bp,quoted_spread_bp,quote_type\n",
+    );
+    let cases = t["cases"].as_array().unwrap();
+    for (k, c) in cases.iter().enumerate() {
+        let (term, spread, rec, up) = (
+            c["term_date"].as_str().unwrap(),
+            c["quoted_spread"].as_f64().unwrap(),
+            c["recovery"].as_f64().unwrap(),
+            c["published_upfront"].as_f64().unwrap() / 1e7,
+        );
+        let tn = tenor_of(term);
+        cds += &format!("2009-05-21,Q{k:02},USD,{tn},,{rec},,100,{},quoted_spread\n", spread * 1e4);
+        cds += &format!("2009-05-21,U{k:02},USD,{tn},,{rec},{up:.17e},100,,\n");
+    }
+    cds += "2009-05-21,BADTYPE,USD,5Y,,0.4,,100,100,par_spread\n";
+    cds += "2009-05-21,TWOQUOTES,USD,5Y,100,0.4,,100,100,\n";
+    std::fs::write(dir.path().join("discount.csv"), disc).unwrap();
+    std::fs::write(dir.path().join("cds.csv"), cds).unwrap();
+    std::fs::write(
+        dir.path().join("p.toml"),
+        "name = \"quoted\"\n[inputs]\ncds_quotes = \"cds.csv\"\ndiscount = \"discount.csv\"\n[report]\nlabel = \"r\"\n",
+    )
+    .unwrap();
+    let cfg = load_pipeline(&dir.path().join("p.toml")).unwrap();
+    let tables =
+        run(&cfg, &RunOptions { out_root: Some(dir.path().join("out")), label: None }).unwrap().run_dir.join("tables");
+    let rejects: Vec<(String, &str)> = hazardline::tables::read::<hazardline::ingest::Reject>(&tables)
+        .unwrap()
+        .into_iter()
+        .map(|r| (r.entity.unwrap_or_default(), r.reason))
+        .collect();
+    assert_eq!(
+        rejects,
+        vec![("BADTYPE".to_string(), "quote_type_mismatch"), ("TWOQUOTES".to_string(), "ambiguous_quote")]
+    );
+    let hz: std::collections::BTreeMap<String, f64> =
+        hazardline::tables::read::<hazardline::tables::HazardCurveRow>(&tables)
+            .unwrap()
+            .into_iter()
+            .map(|h| (h.entity.to_string(), h.hazard.unwrap()))
+            .collect();
+    let tol = t["tolerance_relative"].as_f64().unwrap();
+    for (k, c) in cases.iter().enumerate() {
+        let (q, u) = (hz[&format!("Q{k:02}")], hz[&format!("U{k:02}")]);
+        let ql = c["flat_hazard"].as_f64().unwrap();
+        assert!((q - u).abs() <= tol * q, "case {k}: quoted {q} vs upfront {u}");
+        assert!((q - ql).abs() <= tol * q, "case {k}: quoted {q} vs QuantLib's flat hazard {ql}");
+    }
+}
