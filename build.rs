@@ -1,7 +1,9 @@
 //! Records the source revision the binary is built from, for the manifest and the report
 //! (`HAZARDLINE_SOURCE_REVISION`): the commit's full hash, with `-modified` when the build's
 //! own sources (`src`, `crates`, `Cargo.toml`, `Cargo.lock`) differ from that commit, or
-//! `unknown` outside a git checkout (a source archive) or without git.
+//! `unknown` outside a git checkout (a source archive) or without git. Two builds of one commit
+//! with different uncommitted changes both read `<hash>-modified`: the revision then names the
+//! commit, not the exact sources, and merge cannot tell such parts apart.
 
 use std::path::Path;
 use std::process::Command;

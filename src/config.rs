@@ -773,14 +773,29 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
     let accrual_on_default = c.accrual_on_default.unwrap_or_default();
     let zero_rate_compounding = c.zero_rate_compounding.unwrap_or_default();
     let zero_rate_day_count = c.zero_rate_day_count.unwrap_or_default();
+    // Currency keys are written as the data writes currencies (three capital letters): a
+    // key like `eur` would silently match nothing.
+    let currency_key = |section: &str, ccy: &str| -> Result<()> {
+        if ccy.len() == 3 && ccy.chars().all(|c| c.is_ascii_uppercase()) {
+            Ok(())
+        } else {
+            Err(bad(
+                path,
+                &format!("{section}.{ccy}"),
+                format!("{ccy:?} is not a currency code of three capital letters"),
+            ))
+        }
+    };
     let mut currency_calendars = BTreeMap::new();
     for (ccy, p) in &file.calendars {
+        currency_key("calendars", ccy)?;
         let key = format!("calendars.{ccy}");
         let full = resolve(&Some(p.clone()), &key)?.ok_or_else(|| bad(path, &key, "no file given".into()))?;
         currency_calendars.insert(ccy.clone(), read_holidays(&full).map_err(|m| bad(path, &key, m))?);
     }
     let mut rate_conventions = BTreeMap::new();
     for (ccy, r) in &file.rate_conventions {
+        currency_key("rate_conventions", ccy)?;
         let key = |k: &str| format!("rate_conventions.{ccy}.{k}");
         let dc = |k: &str, text: &str| -> Result<crate::time::DayCount> {
             match text.parse::<crate::time::DayCount>() {
@@ -792,6 +807,13 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         };
         if ![1, 3, 6, 12].contains(&r.fixed_months) {
             return Err(bad(path, &key("fixed_months"), format!("{} is not 1, 3, 6 or 12", r.fixed_months)));
+        }
+        if !(1..=12).contains(&r.float_months) {
+            return Err(bad(
+                path,
+                &key("float_months"),
+                format!("{} is not a tenor of 1 to 12 months", r.float_months),
+            ));
         }
         if r.spot_lag > 5 {
             return Err(bad(path, &key("spot_lag"), format!("{} business days is not a spot lag", r.spot_lag)));

@@ -641,11 +641,16 @@ pub fn stability_section(
     let mut rejected: Vec<usize> = tested.iter().copied().filter(|&i| kp[i].is_some_and(|p| p < alpha)).collect();
     rejected.sort_by(|&a, &b| kp[a].unwrap_or(1.0).total_cmp(&kp[b].unwrap_or(1.0)));
     let red = rejected.iter().filter(|&&i| kp[i].is_some_and(|p| p < 0.01)).count();
+    let target = stability.iter().find(|(k, _)| k == "cusum_target").map_or("auto", |(_, v)| v.as_str());
+    let why = match target {
+        "levels" => "all on the levels, as the pipeline file sets".to_string(),
+        "daily_changes" => "all on the daily changes, as the pipeline file sets".to_string(),
+        _ => format!("{on_changes} of them on daily changes because the Dickey-Fuller test could not reject a random walk in the levels and the changes were not over-differenced"),
+    };
     let _ = writeln!(
         w,
-        "Structural breaks: {} tests of a constant mean on entity-period windows (the CUSUM of deviations from the mean scaled by the series' long-run standard deviation, so that a persistent series is not read as a break; see the method notes). {} of them ran on daily changes because the Dickey-Fuller test could not reject a random walk in the levels. {} rejected at {level} ({red} at 1%), against {:.1} expected by chance if no series had a break{}. {short} windows had too few values to test: a series that is a step function (kappa and sigma in the CIR fit's `fixed_kappa_sigma` mode, one estimate per window of curve dates) is tested on its steps, one value per window, not date by date.\n",
+        "Structural breaks: {} tests of a constant mean on entity-period windows (the CUSUM of deviations from the mean scaled by the series' long-run standard deviation, so that a persistent series is not read as a break; see the method notes); {why}. {} rejected at {level} ({red} at 1%), against {:.1} expected by chance if no series had a break{}. {short} windows had too few values to test: a series that is a step function (kappa and sigma in the CIR fit's `fixed_kappa_sigma` mode, one estimate per window of curve dates) is tested on its steps, one value per window, not date by date.\n",
         tested.len(),
-        on_changes,
         rejected.len(),
         alpha * tested.len() as f64,
         if rejected.is_empty() { "" } else { " (the smallest p-values below, all in `tables/stability_breaks.parquet`)" }

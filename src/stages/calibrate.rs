@@ -239,27 +239,28 @@ fn calibrate_one(
             let quote = match r.quote {
                 CdsQuote::ParSpread(spread) if r.is_quoted_spread() => {
                     let coupon = f64::from(r.quoted_coupon_bp) / 1e4;
-                    let upfront =
-                        crate::instruments::CdsContract::standard(date, r.tenor, &s.calendar).ok().and_then(|c| {
-                            crate::instruments::cds::quoted_spread::to_upfront(
-                                &c,
-                                spread,
-                                coupon,
-                                recovery,
-                                curve,
-                                s.bootstrap.accrual,
+                    let upfront = match crate::instruments::CdsContract::standard(date, r.tenor, &s.calendar) {
+                        Err(e) => Err(format!("the {} contract: {e}", r.tenor)),
+                        Ok(c) => crate::instruments::cds::quoted_spread::to_upfront(
+                            &c,
+                            spread,
+                            coupon,
+                            recovery,
+                            curve,
+                            s.bootstrap.accrual,
+                        )
+                        .ok_or_else(|| {
+                            format!(
+                                "the {} quoted spread {} bp has no flat hazard up to 50 per year",
+                                r.tenor,
+                                spread * 1e4
                             )
-                        });
+                        }),
+                    };
                     match upfront {
-                        Some(upfront) => CdsQuote::Upfront { upfront, coupon },
-                        None => {
-                            unconverted.get_or_insert_with(|| {
-                                format!(
-                                    "the {} quoted spread {} bp has no flat hazard up to 50 per year",
-                                    r.tenor,
-                                    spread * 1e4
-                                )
-                            });
+                        Ok(upfront) => CdsQuote::Upfront { upfront, coupon },
+                        Err(why) => {
+                            unconverted.get_or_insert(why);
                             r.quote
                         }
                     }

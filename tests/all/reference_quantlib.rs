@@ -331,7 +331,7 @@ fn accrual_variants_match_quantlib() {
 }
 
 /// The published upfront table of QuantLib's test suite (lballabio/QuantLib,
-/// test-suite/creditdefaultswap.cpp, test case testIsdaEngine, array markitValues; that test's
+/// test-suite/creditdefaultswap.cpp, test case testIsdaEngine, its expected upfronts; that test's
 /// tolerance is 1e-6 percent, 1e-8 relative), reproduced at its own tolerance: on the discount
 /// curve QuantLib builds from that test's deposit and swap rates (pillars and factors written by
 /// tests/reference/cds_accrual_quantlib.py), a flat hazard bootstrapped from each quoted spread

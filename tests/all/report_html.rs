@@ -9,8 +9,12 @@
 use super::support::repo;
 use std::process::Command;
 
-fn chromium() -> Option<&'static str> {
-    ["/usr/bin/chromium", "/usr/bin/chromium-browser"].into_iter().find(|p| std::path::Path::new(p).exists())
+/// Chromium as `.ci/run` finds it: `chromium` or `chromium-browser` on the PATH.
+fn chromium() -> Option<std::path::PathBuf> {
+    let path = std::env::var_os("PATH")?;
+    std::env::split_paths(&path)
+        .flat_map(|dir| ["chromium", "chromium-browser"].map(|n| dir.join(n)))
+        .find(|p| p.is_file())
 }
 
 const CHECK: &str = r##"<script>
@@ -63,7 +67,7 @@ fn report_html_renders_in_a_headless_browser() {
     let body_end = html.rfind("</body>").expect("a body");
     std::fs::write(&page, format!("{}{CHECK}{}", &html[..body_end], &html[body_end..])).unwrap();
     let profile = dir.path().join("profile");
-    let out = Command::new(browser)
+    let out = Command::new(&browser)
         .args([
             "--headless",
             "--no-sandbox",
@@ -107,7 +111,7 @@ fn report_html_renders_in_a_headless_browser() {
 
     // And it prints: the unmodified page to PDF with the print styles (A4), many pages.
     let pdf = dir.path().join("report.pdf");
-    let status = Command::new(browser)
+    let status = Command::new(&browser)
         .args(["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run"])
         .args(["--disable-background-networking", "--disable-component-update", "--disable-sync"])
         .arg("--no-pdf-header-footer")

@@ -15,7 +15,7 @@ upfronts and par spread.
 
 It also reproduces a published table: the upfronts of QuantLib's test suite,
 lballabio/QuantLib, test-suite/creditdefaultswap.cpp, test case `testIsdaEngine` (values
-`markitValues`, which that test compares at a tolerance of 1e-6 percent, i.e. 1e-8 relative).
+the test's array of expected upfronts, which that test compares at a tolerance of 1e-6 percent, i.e. 1e-8 relative).
 Trade date 2009-05-21; the discount curve is built by QuantLib from the deposit and swap rates
 in that test (deposits 1M..12M Act/360, spot lag 2, Modified Following; semi-annual 30/360 swaps
 against a 3M Act/360 index; WeekendsOnly; log-linear discount factors on Act/365F); a flat
@@ -46,8 +46,8 @@ MODES = {
 }
 
 # QuantLib test-suite/creditdefaultswap.cpp, testIsdaEngine.
-MARKIT = {
-    "source": "lballabio/QuantLib, test-suite/creditdefaultswap.cpp, test case testIsdaEngine, array markitValues",
+PUBLISHED = {
+    "source": "lballabio/QuantLib, test-suite/creditdefaultswap.cpp, test case testIsdaEngine (its expected upfronts)",
     "tolerance_relative": 1e-8,
     "trade_date": "2009-05-21",
     "deposits": {"tenors_months": [1, 2, 3, 6, 9, 12],
@@ -99,16 +99,16 @@ def mode_cases():
     return out
 
 
-def markit_table():
+def published_table():
     trade = ql.Date(21, 5, 2009)
     ql.Settings.instance().evaluationDate = trade
     helpers = []
-    for m, r in zip(MARKIT["deposits"]["tenors_months"], MARKIT["deposits"]["rates"]):
+    for m, r in zip(PUBLISHED["deposits"]["tenors_months"], PUBLISHED["deposits"]["rates"]):
         helpers.append(ql.DepositRateHelper(r, ql.Period(m, ql.Months), 2, ql.WeekendsOnly(),
                                             ql.ModifiedFollowing, False, ql.Actual360()))
     index = ql.IborIndex("IsdaIbor", ql.Period(3, ql.Months), 2, ql.USDCurrency(), ql.WeekendsOnly(),
                          ql.ModifiedFollowing, False, ql.Actual360())
-    for y, r in zip(MARKIT["swaps"]["tenors_years"], MARKIT["swaps"]["rates"]):
+    for y, r in zip(PUBLISHED["swaps"]["tenors_years"], PUBLISHED["swaps"]["rates"]):
         helpers.append(ql.SwapRateHelper(r, ql.Period(y, ql.Years), ql.WeekendsOnly(), ql.Semiannual,
                                          ql.ModifiedFollowing, ql.Thirty360(ql.Thirty360.BondBasis), index))
     curve = ql.PiecewiseLogLinearDiscount(0, ql.WeekendsOnly(), helpers, ql.Actual365Fixed())
@@ -118,10 +118,10 @@ def markit_table():
     ph = ql.RelinkableDefaultProbabilityTermStructureHandle()
     rows = []
     k = 0
-    for td in MARKIT["term_dates"]:
+    for td in PUBLISHED["term_dates"]:
         term = base.qdate(td)
-        for spread in MARKIT["spreads"]:
-            for recovery in MARKIT["recoveries"]:
+        for spread in PUBLISHED["spreads"]:
+            for recovery in PUBLISHED["recoveries"]:
                 # Python's MakeCreditDefaultSwap returns the swap, of unit notional: the
                 # published values are per 1e7 of notional, so the upfront is scaled below.
                 quoted = ql.MakeCreditDefaultSwap(term, spread)
@@ -132,12 +132,12 @@ def markit_table():
                 trade = ql.MakeCreditDefaultSwap(term, 0.01)
                 trade.setPricingEngine(engine)
                 value = 1e7 * trade.notional() * trade.fairUpfront()
-                published = MARKIT["values"][k]
+                published = PUBLISHED["values"][k]
                 assert abs(value - published) <= 1e-8 * abs(published), (td, spread, recovery, value, published)
                 rows.append({"term_date": td, "quoted_spread": spread, "recovery": recovery,
                              "flat_hazard": h, "quantlib_upfront": value, "published_upfront": published})
                 k += 1
-    return {**MARKIT, "discount_pillars": pillars, "cases": rows}
+    return {**PUBLISHED, "discount_pillars": pillars, "cases": rows}
 
 
 def main():
@@ -149,7 +149,7 @@ def main():
                    "standard": "Taylor, NoBias, Flat"}.items()},
         "conventions": "as tests/reference/cds_quantlib.json (same cases, schedules and single-coupon handling)",
         "cases": mode_cases(),
-        "published_table": markit_table(),
+        "published_table": published_table(),
     }
     with open(OUT_PATH, "w") as fh:
         fh.write(base.dumps(doc) + "\n")

@@ -1,7 +1,8 @@
 //! The standard single-name CDS contract and its legs, priced the way the published standard
 //! model prices it: closed-form integration on the joint grid of discount and hazard nodes,
-//! accrual on default with forwards flat inside each coupon period (no half-day bias), and the
-//! series expansion when the exponent is tiny.
+//! accrual on default split at every node of both curves with the half-day term (the default
+//! variant, [`AccrualIntegration::Published`]; `Standard` and `Exact` are kept, see there and
+//! docs/cds-conventions.md), and the series expansion when the exponent is tiny.
 //!
 //! Notation (per unit notional, trade date T = valuation date = the curves' reference date):
 //! P = discount factor, Q = survival, t = Act/365F years from T. On a sub-interval [t0, t1],
@@ -9,8 +10,10 @@
 //!
 //! * Protection: sum over node intervals from T to maturity of h/x (P0Q0 - P1Q1), times (1 - R).
 //! * Premium: each coupon paid after T + 1 pays c x accrual x P(pay) x Q(pay - 1 day).
-//! * Accrual on default: for each coupon whose accrual ends after T + 1, on the single interval
-//!   [max(start, T + 1) - 1 day, pay - 1 day] with t_s = t(start - 1 day):
+//! * Accrual on default: for each coupon whose accrual ends after T + 1, on the span
+//!   [max(start, T + 1) - 1 day, pay - 1 day] (split at every node inside it, or one interval
+//!   in the `Standard` variant) with t_s = t(start - 1 day), less 1/730 in the `Published`
+//!   variant: sum over its intervals of
 //!   (h/x) [ (t1 - t0)((P0Q0 - P1Q1)/x - P1Q1) + (t0 - t_s)(P0Q0 - P1Q1) ] x c x 365/360.
 //! * Accrual rebate: the first coupon's accrual from its start to T + 1, paid at cash
 //!   settlement (T + 3 business days) without survival.

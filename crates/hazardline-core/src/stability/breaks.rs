@@ -76,6 +76,20 @@ fn series_of(points: &[Point], settings: &StabilitySettings) -> Vec<(NaiveDate, 
     }
 }
 
+/// The changes between consecutive values of a window, dated at the later one. A daily series
+/// (median spacing within `max_gap_days` calendar days) drops the changes across a longer gap,
+/// as the daily-changes form does; a series of window estimates (steps weeks apart) keeps
+/// every change.
+fn changes(data: &[(NaiveDate, f64)], max_gap_days: i64) -> Vec<(NaiveDate, f64)> {
+    let mut gaps: Vec<i64> = data.windows(2).map(|w| (w[1].0 - w[0].0).num_days()).collect();
+    gaps.sort_unstable();
+    let daily = gaps.get(gaps.len() / 2).is_some_and(|&g| g <= max_gap_days);
+    data.windows(2)
+        .filter(|w| !daily || (w[1].0 - w[0].0).num_days() <= max_gap_days)
+        .map(|w| (w[1].0, w[1].1 - w[0].1))
+        .collect()
+}
+
 /// Consecutive bit-identical values merged into one, at the first date of each run.
 fn steps(values: impl Iterator<Item = (NaiveDate, f64)>) -> Vec<(NaiveDate, f64)> {
     let mut out: Vec<(NaiveDate, f64)> = Vec::new();
@@ -145,7 +159,7 @@ fn test_window(
             row.adf_critical = Some(crit);
             if !(t < crit) && row.changes_r1.is_some_and(|r| r > -0.25) {
                 row.target = "daily_changes";
-                tested = data.windows(2).map(|w| (w[1].0, w[1].1 - w[0].1)).collect();
+                tested = changes(data, settings.max_gap_days);
             }
         }
     }
@@ -195,6 +209,16 @@ mod tests {
 
     /// A window estimate repeated on each of its 20 dates is tested as one value per window;
     /// a daily series is tested as it is.
+    /// Changes across a gap longer than `max_gap_days` are dropped from a daily series, and
+    /// kept between window estimates weeks apart.
+    #[test]
+    fn changes_skip_gaps_of_daily_series_only() {
+        let daily = [(day(0), 1.0), (day(1), 1.5), (day(2), 1.25), (day(30), 3.0), (day(31), 3.5)];
+        assert_eq!(changes(&daily, 5), [(day(1), 0.5), (day(2), -0.25), (day(31), 0.5)]);
+        let steps = [(day(0), 1.0), (day(28), 2.0), (day(56), 1.5)];
+        assert_eq!(changes(&steps, 5), [(day(28), 1.0), (day(56), -0.5)]);
+    }
+
     #[test]
     fn a_step_function_is_tested_on_its_steps() {
         let s = StabilitySettings::default();

@@ -69,8 +69,9 @@ impl CusumLevel {
 /// What series the break test runs on.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum CusumTarget {
-    /// Levels where the Dickey-Fuller test says the series is stationary, differences where
-    /// it cannot reject a random walk (the default).
+    /// Levels, except where the Dickey-Fuller test keeps a unit root and the changes are not
+    /// over-differenced (lag-1 autocorrelation above -0.25): there the changes (the default;
+    /// levels also when the Dickey-Fuller regression cannot be run).
     Auto,
     /// Always the parameter's values.
     Levels,

@@ -55,15 +55,17 @@ pub struct StabilitySettings {
     pub default_move_threshold: MoveThreshold,
     /// Large-move thresholds by exact series name. Default: none.
     pub move_thresholds: Vec<(String, MoveThreshold)>,
-    /// Flag when the share of an entity's moves over the threshold exceeds this. Default 0.05.
+    /// Flag when the share of an entity's moves over the threshold exceeds this. Default 0.20
+    /// (calibrated: at most 5% of entity-periods flagged on a universe without instabilities;
+    /// see the flag-rates measurement).
     pub large_move_share_max: f64,
     /// Flag when an entity's coefficient of variation in a period exceeds this. Default 0.25.
     pub cv_max: f64,
     /// Flag when the relative period-on-period change of the mean or of the median exceeds
-    /// this in absolute value. Default 0.50 (a 50% rise or fall).
+    /// this in absolute value. Default 0.75 (a 75% rise or fall).
     pub change_max: f64,
     /// Flag when the parameter's mean absolute relative daily move is more than this multiple
-    /// of the spreads' mean absolute relative daily move. Default 3.0.
+    /// of the spreads' mean absolute relative daily move. Default 5.0.
     pub market_ratio_max: f64,
     /// ... and the parameter's mean absolute relative daily move is at least this (so flat
     /// parameters on flat spreads are not flagged). Default 0.02 (2% a day).
@@ -103,8 +105,8 @@ pub struct StabilitySettings {
     pub cusum_target: CusumTarget,
     /// The window of one CUSUM test. Default: each review period.
     pub cusum_scope: CusumScope,
-    /// Significance level of the CUSUM boundary that raises an amber flag; crossing the 1%
-    /// boundary is red. Default 5% (a = 0.948, Brown, Durbin and Evans 1975).
+    /// Significance level of the break test: a p-value below it is an amber flag, below 1%
+    /// red. Default 5% (Kolmogorov critical value 1.3581).
     pub cusum_level: CusumLevel,
     /// Fewest observations in a window for a CUSUM test. Default 20.
     pub cusum_min_obs: usize,
@@ -205,7 +207,12 @@ impl StabilitySettings {
         out.push(("universe_min_entities".into(), self.universe_min_entities.to_string()));
         out.push((
             "cusum_test".into(),
-            "OLS-residual CUSUM with the Newey-West long-run variance (Bartlett, Andrews AR(1) bandwidth), Kolmogorov p-value; daily changes instead of levels where the augmented Dickey-Fuller test at 5% keeps a unit root and the changes' lag-1 autocorrelation is above -0.25".into(),
+            match self.cusum_target {
+                CusumTarget::Auto => "OLS-residual CUSUM with the Newey-West long-run variance (Bartlett, Andrews AR(1) bandwidth), Kolmogorov p-value; daily changes instead of levels where the augmented Dickey-Fuller test at 5% keeps a unit root and the changes' lag-1 autocorrelation is above -0.25",
+                CusumTarget::Levels => "OLS-residual CUSUM with the Newey-West long-run variance (Bartlett, Andrews AR(1) bandwidth), Kolmogorov p-value, on the levels",
+                CusumTarget::DailyChanges => "OLS-residual CUSUM with the Newey-West long-run variance (Bartlett, Andrews AR(1) bandwidth), Kolmogorov p-value, on the daily changes",
+            }
+            .into(),
         ));
         out.push((
             "cusum_series".into(),

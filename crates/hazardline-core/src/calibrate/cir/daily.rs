@@ -305,7 +305,12 @@ pub(crate) fn day_identification(
     let out = if fixed {
         [None, se[0].map(|s| s * p.theta), None, se[1]]
     } else {
-        [se[0].map(|s| s * p.kappa), se[1].map(|s| s * p.theta), se[2].map(|s| s / (2.0 * p.sigma)), se[3]]
+        [
+            se[0].map(|s| s * p.kappa),
+            se[1].map(|s| s * p.theta),
+            se[2].filter(|_| p.sigma > 0.0).map(|s| s / (2.0 * p.sigma)),
+            se[3],
+        ]
     };
     (Some(id.condition_number), out)
 }

@@ -193,7 +193,7 @@ pub fn fit_cir_window(
             Some(id) => (
                 Some(id.condition_number),
                 id.standard_errors[0].map(|s| s * kappa),
-                id.standard_errors[1].map(|s| s / (2.0 * sigma)),
+                id.standard_errors[1].filter(|_| sigma > 0.0).map(|s| s / (2.0 * sigma)),
             ),
             None => (None, None, None),
         }
