@@ -442,13 +442,8 @@ fn published_table_misses_on(accrual: AccrualIntegration, discount: &DiscountCur
 #[test]
 fn spread_and_published_upfront_quotes_bootstrap_the_same_hazard() {
     let cal = Calendar::weekends_only();
-    let r = accrual_reference();
+    let (r, trade, discount, tol) = published_table_curve();
     let t = &r["published_table"];
-    let trade = d(s(&t["trade_date"]));
-    let pillars: Vec<(chrono::NaiveDate, f64)> =
-        t["discount_pillars"].as_array().unwrap().iter().map(|p| (d(s(&p[0])), num(&p[1]))).collect();
-    let discount = DiscountCurve::from_discount_factors(trade, &pillars).unwrap();
-    let tol = num(&t["tolerance_relative"]);
     let hazard = |quote: CdsQuote, tn: Tenor, recovery: f64, accrual: AccrualIntegration| -> f64 {
         let settings = BootstrapSettings { accrual, ..BootstrapSettings::default() };
         let fit =
@@ -542,13 +537,8 @@ fn rate_curve_matches_quantlib() {
 fn quoted_spreads_convert_to_the_published_upfronts_and_back() {
     use hazardline::instruments::cds::quoted_spread;
     let cal = Calendar::weekends_only();
-    let r = accrual_reference();
+    let (r, trade, discount, tol) = published_table_curve();
     let t = &r["published_table"];
-    let trade = d(s(&t["trade_date"]));
-    let pillars: Vec<(chrono::NaiveDate, f64)> =
-        t["discount_pillars"].as_array().unwrap().iter().map(|p| (d(s(&p[0])), num(&p[1]))).collect();
-    let discount = DiscountCurve::from_discount_factors(trade, &pillars).unwrap();
-    let tol = num(&t["tolerance_relative"]);
     let (mut worst_up, mut worst_back) = (0.0f64, 0.0f64);
     for c in t["cases"].as_array().unwrap() {
         let contract = CdsContract::with_maturity(trade, d(s(&c["term_date"])), &cal);
@@ -562,4 +552,17 @@ fn quoted_spreads_convert_to_the_published_upfronts_and_back() {
     }
     eprintln!("quoted spread to published upfront {worst_up:.2e}, upfront back to quoted spread {worst_back:.2e}");
     assert!(worst_up <= tol && worst_back <= tol, "{worst_up:e} {worst_back:e}");
+}
+
+/// The published table's reference (tests/reference/cds_accrual_quantlib.json), its trade date,
+/// QuantLib's discount curve rebuilt from the recorded pillars, and the table's tolerance.
+fn published_table_curve() -> (Value, chrono::NaiveDate, DiscountCurve, f64) {
+    let r = accrual_reference();
+    let t = &r["published_table"];
+    let trade = d(s(&t["trade_date"]));
+    let pillars: Vec<(chrono::NaiveDate, f64)> =
+        t["discount_pillars"].as_array().unwrap().iter().map(|p| (d(s(&p[0])), num(&p[1]))).collect();
+    let discount = DiscountCurve::from_discount_factors(trade, &pillars).unwrap();
+    let tol = num(&t["tolerance_relative"]);
+    (r, trade, discount, tol)
 }
