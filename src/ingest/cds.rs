@@ -176,11 +176,10 @@ pub fn read(path: &Path, cal: &Calendar, rules: &CdsRowRules) -> Result<CdsPanel
                         t.filter(|t| !t.chars().any(char::is_control) && t.len() <= MAX_LABEL_CHARS)
                     };
                     rej.entity = shown(file.cell(C_ENTITY, i).text());
-                    rej.key = [shown(file.cell(C_CCY, i).text()), shown(file.cell(C_TENOR, i).text())]
-                        .into_iter()
-                        .flatten()
-                        .collect::<Vec<_>>()
-                        .join(" ");
+                    rej.key = super::source::key_text([
+                        shown(file.cell(C_CCY, i).text()),
+                        shown(file.cell(C_TENOR, i).text()),
+                    ]);
                     panel.rejects.push(rej)
                 }
             }

@@ -148,11 +148,10 @@ pub fn read(path: &Path, band: (f64, f64)) -> Result<DiscountTable> {
                 Ok(r) => out.rows.push(r),
                 Err(mut e) => {
                     e.date = file.cell(0, i).date().ok().flatten();
-                    e.key = [file.cell(1, i).text(), file.cell(2, i).text().or_else(|| file.cell(4, i).text())]
-                        .into_iter()
-                        .flatten()
-                        .collect::<Vec<_>>()
-                        .join(" ");
+                    e.key = super::source::key_text([
+                        file.cell(1, i).text(),
+                        file.cell(2, i).text().or_else(|| file.cell(4, i).text()),
+                    ]);
                     out.rejects.push(e)
                 }
             }

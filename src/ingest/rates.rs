@@ -76,11 +76,11 @@ pub fn read(path: &Path, band: (f64, f64)) -> Result<RateQuoteTable> {
                 Ok(r) => out.rows.push(r),
                 Err(mut e) => {
                     e.date = file.cell(0, i).date().ok().flatten();
-                    e.key = [file.cell(1, i).text(), file.cell(2, i).text(), file.cell(3, i).text()]
-                        .into_iter()
-                        .flatten()
-                        .collect::<Vec<_>>()
-                        .join(" ");
+                    e.key = super::source::key_text([
+                        file.cell(1, i).text(),
+                        file.cell(2, i).text(),
+                        file.cell(3, i).text(),
+                    ]);
                     out.rejects.push(e)
                 }
             }

@@ -593,6 +593,12 @@ pub(crate) fn dedupe_by_key<R, K: Ord>(
     kept
 }
 
+/// The key text of a rejected row: the given cells' texts, the empty ones left out, joined by
+/// spaces.
+pub(crate) fn key_text<const N: usize>(cells: [Option<String>; N]) -> String {
+    cells.into_iter().flatten().collect::<Vec<_>>().join(" ")
+}
+
 #[cfg(test)]
 mod tests {
     use super::csv_fault;
