@@ -386,6 +386,10 @@ pub struct ConventionsSection {
     pub recovery: Option<f64>,
     /// Recovery by the quotes' `seniority` value. Default: empty.
     pub recovery_by_seniority: Option<BTreeMap<String, f64>>,
+    /// Seniorities in order of preference for an entity's reference curve (the tier the
+    /// bond basis, the CIR fit and the backtest use when a name is quoted in several tiers on
+    /// a date). Default: empty (name order, an absent seniority first).
+    pub seniority_order: Option<Vec<String>>,
     /// `floor` (default) or `fail`: what to do with a quote that needs a negative hazard.
     pub infeasible: Option<InfeasiblePolicy>,
     /// `published` (default: the published standard model), `standard` or `exact`
@@ -508,6 +512,7 @@ pub struct RunConfig {
     pub calendar: Calendar,
     pub recovery: f64,
     pub recovery_by_seniority: BTreeMap<String, f64>,
+    pub seniority_order: Vec<String>,
     pub infeasible: InfeasiblePolicy,
     pub accrual_on_default: AccrualIntegration,
     pub zero_rate_compounding: crate::curves::Compounding,
@@ -952,6 +957,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         calendar,
         recovery,
         recovery_by_seniority: by_sen,
+        seniority_order: c.seniority_order.clone().unwrap_or_default(),
         infeasible,
         accrual_on_default,
         zero_rate_compounding,

@@ -301,6 +301,7 @@ fn dispatch(command: Command) -> Result<u8> {
                 // Rate quotes take each currency's default standard-curve convention.
                 rate_conventions: Default::default(),
                 rate_calendars: Default::default(),
+                seniority_order: Vec::new(),
             };
             commands::calibrate::run(&CalibrateSettings {
                 inputs: inputs.paths(),

@@ -1,5 +1,6 @@
 //! The `cds_quotes` table: date, entity, currency, tenor, par_spread_bp, with optional
-//! recovery, upfront, coupon_bp, seniority. A row carries either a par spread (bp) or an
+//! recovery, upfront, coupon_bp, seniority, doc_clause, quoted_spread_bp, quote_type. Seniority
+//! and documentation clause make the curve's tier, part of its key. A row carries either a par spread (bp) or an
 //! upfront (fraction of notional, positive when the protection buyer pays) with its running
 //! coupon (bp).
 //!
@@ -28,6 +29,7 @@ const SPECS: &[ColumnSpec] = &[
     ColumnSpec { name: "seniority", kind: Kind::Text, required: false },
     ColumnSpec { name: "quoted_spread_bp", kind: Kind::Number, required: false },
     ColumnSpec { name: "quote_type", kind: Kind::Text, required: false },
+    ColumnSpec { name: "doc_clause", kind: Kind::Text, required: false },
 ];
 const C_DATE: usize = 0;
 const C_ENTITY: usize = 1;
@@ -40,6 +42,7 @@ const C_COUPON: usize = 7;
 const C_SENIORITY: usize = 8;
 const C_QUOTED: usize = 9;
 const C_QUOTE_TYPE: usize = 10;
+const C_DOC_CLAUSE: usize = 11;
 
 /// The running coupon of a quoted-spread quote without a `coupon_bp` (bp): the standard
 /// contract's usual coupon for investment-grade names (common practice, no single source).
@@ -55,8 +58,9 @@ pub struct CdsQuoteRow {
     pub quote: CdsQuote,
     /// As given (NaN when absent); the caller applies the default by seniority.
     pub recovery: f64,
-    /// Interned seniority, `u32::MAX` when absent.
-    pub seniority: u32,
+    /// The curve's tier: an id into `CdsPanel::tiers` (seniority and documentation clause,
+    /// either possibly absent).
+    pub tier: u32,
     /// Index into `CdsPanel::files`.
     pub file: u32,
     /// 1-based data row in that file.
@@ -97,6 +101,73 @@ impl CdsQuoteRow {
     }
 }
 
+/// The (seniority, doc_clause) pairs of a panel, each a curve tier: two quotes of one name,
+/// date and currency in different tiers belong to different curves.
+#[derive(Debug, Default)]
+pub struct Tiers {
+    names: Interner,
+    scratch: String,
+}
+
+/// Separates seniority from documentation clause in a tier's interned name: a control
+/// character, which no label may hold, so the name order is (seniority, doc_clause) with an
+/// absent value first.
+const TIER_SEP: char = '\u{1f}';
+
+impl Tiers {
+    pub fn id(&mut self, seniority: Option<&str>, doc_clause: Option<&str>) -> u32 {
+        self.scratch.clear();
+        self.scratch.push_str(seniority.unwrap_or(""));
+        self.scratch.push(TIER_SEP);
+        self.scratch.push_str(doc_clause.unwrap_or(""));
+        match self.names.get(&self.scratch) {
+            Some(i) => i,
+            None => self.names.id(&self.scratch.clone()),
+        }
+    }
+
+    fn parts(&self, id: u32) -> (&str, &str) {
+        self.names.name(id).split_once(TIER_SEP).unwrap_or_default()
+    }
+
+    pub fn seniority(&self, id: u32) -> Option<&str> {
+        Some(self.parts(id).0).filter(|s| !s.is_empty())
+    }
+
+    pub fn doc_clause(&self, id: u32) -> Option<&str> {
+        Some(self.parts(id).1).filter(|s| !s.is_empty())
+    }
+
+    /// The tier as the report and messages show it: `seniority/doc_clause`, either part left
+    /// out when absent; empty when both are.
+    pub fn label(&self, id: u32) -> String {
+        tier_label(self.seniority(id), self.doc_clause(id))
+    }
+
+    /// Rank of each id in (seniority, doc_clause) order, an absent value first.
+    pub fn ranks(&self) -> Vec<u32> {
+        self.names.ranks()
+    }
+
+    pub fn len(&self) -> usize {
+        self.names.len()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.names.is_empty()
+    }
+}
+
+/// A tier as shown: `seniority/doc_clause`, an absent part left out; empty when both are.
+pub fn tier_label(seniority: Option<&str>, doc_clause: Option<&str>) -> String {
+    match (seniority, doc_clause) {
+        (None, None) => String::new(),
+        (Some(s), None) => s.to_string(),
+        (None, Some(d)) => format!("/{d}"),
+        (Some(s), Some(d)) => format!("{s}/{d}"),
+    }
+}
+
 /// The quotes of a whole panel.
 #[derive(Debug, Default)]
 pub struct CdsPanel {
@@ -106,7 +177,7 @@ pub struct CdsPanel {
     pub period: Option<(chrono::NaiveDate, chrono::NaiveDate)>,
     pub entities: Interner,
     pub currencies: Interner,
-    pub seniorities: Interner,
+    pub tiers: Tiers,
     pub files: Vec<String>,
     pub rejects: Vec<Reject>,
     pub info: TableInfo,
@@ -125,6 +196,27 @@ impl CdsPanel {
         self.rows = Vec::new();
     }
 
+    /// A row's key as the rejects table shows it: currency, tier when there is one, tenor.
+    pub fn key_text(&self, r: &CdsQuoteRow) -> String {
+        let tier = self.tiers.label(r.tier);
+        if tier.is_empty() {
+            format!("{} {}", self.currencies.name(r.currency), r.tenor)
+        } else {
+            format!("{} {tier} {}", self.currencies.name(r.currency), r.tenor)
+        }
+    }
+
+    /// The curve of a row as messages name it: date, entity, currency and tier.
+    pub fn curve_text(&self, r: &CdsQuoteRow) -> String {
+        let tier = self.tiers.label(r.tier);
+        let (e, c) = (self.entities.name(r.entity), self.currencies.name(r.currency));
+        if tier.is_empty() {
+            format!("{} {e} {c}", r.date)
+        } else {
+            format!("{} {e} {c} {tier}", r.date)
+        }
+    }
+
     pub fn source(&self, r: &CdsQuoteRow) -> &str {
         &self.files[r.file as usize]
     }
@@ -138,7 +230,7 @@ impl CdsPanel {
             detail,
             date: Some(r.date),
             entity: Some(self.entities.name(r.entity).to_string()),
-            key: format!("{} {}", self.currencies.name(r.currency), r.tenor),
+            key: self.key_text(r),
         }
     }
 }
@@ -279,6 +371,24 @@ fn text_of<'a>(c: &Cell<'a>, buf: &'a mut String) -> &'a str {
         other => {
             *buf = other.text().unwrap_or_default();
             buf.as_str()
+        }
+    }
+}
+
+/// An optional label: None when empty, else checked as a required one is.
+fn optional_text<'a>(
+    cell: Cell<'a>,
+    column: &str,
+    src: &str,
+    row: u64,
+    buf: &'a mut String,
+) -> std::result::Result<Option<&'a str>, Reject> {
+    match cell {
+        Cell::Null => Ok(None),
+        Cell::Str(s) if s.trim().is_empty() => Ok(None),
+        cell => {
+            let cell = required_text(cell, TABLE, column, src, row)?;
+            Ok(Some(text_of(&cell, buf)))
         }
     }
 }
@@ -460,15 +570,10 @@ fn parse_row(
     let mut b3 = String::new();
     let entity = panel.entities.id(text_of(&ent_cell, &mut b2));
     let currency = panel.currencies.id(text_of(&ccy_cell, &mut b3));
-    let sen_cell = file.cell(C_SENIORITY, i);
-    let seniority = match sen_cell {
-        Cell::Null => u32::MAX,
-        Cell::Str(s) if s.trim().is_empty() => u32::MAX,
-        c => {
-            let mut b = String::new();
-            panel.seniorities.id(text_of(&c, &mut b))
-        }
-    };
+    let (mut b4, mut b5) = (String::new(), String::new());
+    let seniority = optional_text(file.cell(C_SENIORITY, i), "seniority", src, row, &mut b4)?;
+    let doc_clause = optional_text(file.cell(C_DOC_CLAUSE, i), "doc_clause", src, row, &mut b5)?;
+    let tier = panel.tiers.id(seniority, doc_clause);
     Ok(CdsQuoteRow {
         date,
         entity,
@@ -477,7 +582,7 @@ fn parse_row(
         quote,
         recovery: recovery.unwrap_or(f64::NAN),
         quoted_coupon_bp,
-        seniority,
+        tier,
         file: fidx,
         row: row as u32,
         flags: 0,

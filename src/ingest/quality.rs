@@ -121,14 +121,29 @@ fn drop_vec<T>(v: Vec<T>) {
     std::mem::drop(v);
 }
 
-/// Sort key of a row by (entity, currency, tenor, date, file, row).
+/// Sort key of a row by (entity, currency, tier, tenor, date, file, row), packed in one
+/// integer when every id fits its field ([`series_key_fits`]).
 fn series_key(r: &CdsQuoteRow) -> u128 {
-    ((r.entity as u128) << 96)
-        | ((r.currency as u128 & 0xFFFF) << 80)
+    ((r.entity as u128) << 100)
+        | ((r.currency as u128 & 0x3FF) << 90)
+        | ((r.tier as u128 & 0x3FF) << 80)
         | ((r.tenor.months() as u128 & 0x3FF) << 70)
         | ((serial(r.date) as u128 & 0xF_FFFF) << 50)
         | ((r.file as u128 & 0xFFFF) << 32)
         | r.row as u128
+}
+
+/// Whether [`series_key`] orders the panel's rows exactly (else the rows sort on the tuple).
+fn series_key_fits(panel: &CdsPanel) -> bool {
+    panel.entities.len() < 1 << 28
+        && panel.currencies.len() <= 1 << 10
+        && panel.tiers.len() <= 1 << 10
+        && panel.files.len() <= 1 << 16
+}
+
+/// The same order as [`series_key`], as a tuple.
+fn series_tuple(r: &CdsQuoteRow) -> (u32, u32, u32, u32, i32, u32, u32) {
+    (r.entity, r.currency, r.tier, r.tenor.months(), serial(r.date), r.file, r.row)
 }
 
 /// Quotes on each side of a quote whose median the unit-slip rule compares it with (a run of
@@ -159,14 +174,18 @@ pub fn check_cds(
     let rows = std::mem::take(&mut panel.rows);
     let n = rows.len();
     let mut order: Vec<u32> = (0..n as u32).collect();
-    order.par_sort_unstable_by_key(|&i| series_key(&rows[i as usize]));
+    if series_key_fits(panel) {
+        order.par_sort_unstable_by_key(|&i| series_key(&rows[i as usize]));
+    } else {
+        order.par_sort_unstable_by_key(|&i| series_tuple(&rows[i as usize]));
+    }
     let mut drop = Drops::new(n);
     let mut flags = vec![0u8; n];
     let mut findings: Vec<QualityFlag> = Vec::new();
 
-    // Duplicates: adjacent in the order with the same (entity, currency, tenor, date).
+    // Duplicates: adjacent in the order with the same (entity, currency, tier, tenor, date).
     let same_key = |a: &CdsQuoteRow, b: &CdsQuoteRow| {
-        a.entity == b.entity && a.currency == b.currency && a.tenor == b.tenor && a.date == b.date
+        a.entity == b.entity && a.currency == b.currency && a.tier == b.tier && a.tenor == b.tenor && a.date == b.date
     };
     let mut i = 0;
     while i < n {
@@ -206,7 +225,7 @@ pub fn check_cds(
         }
     }
 
-    // Series rules: per (entity, currency, tenor), par-spread quotes in date order.
+    // Series rules: per (entity, currency, tier, tenor), par-spread quotes in date order.
     let mut start = 0;
     let mut series: Vec<usize> = Vec::new();
     let mut values: Vec<f64> = Vec::new();
@@ -216,7 +235,7 @@ pub fn check_cds(
         let mut end = start + 1;
         while end < n {
             let r = &rows[order[end] as usize];
-            if r.entity != head.entity || r.currency != head.currency || r.tenor != head.tenor {
+            if r.entity != head.entity || r.currency != head.currency || r.tier != head.tier || r.tenor != head.tenor {
                 break;
             }
             end += 1;
@@ -237,9 +256,10 @@ pub fn check_cds(
     }
 
     // Move rejects out and compact the kept rows in place (no second copy of the panel), then
-    // sort them by (date, entity name, currency name, tenor).
+    // sort them by (date, entity name, currency name, tier, tenor).
     let ent_rank = panel.entities.ranks();
     let ccy_rank = panel.currencies.ranks();
+    let tier_rank = panel.tiers.ranks();
     let mut kept = rows;
     let mut w = 0;
     for k in 0..n {
@@ -259,19 +279,35 @@ pub fn check_cds(
     kept.truncate(w);
     drop_vec(flags);
     kept.par_sort_unstable_by_key(|r| {
-        (serial(r.date), ent_rank[r.entity as usize], ccy_rank[r.currency as usize], r.tenor, r.file, r.row)
+        (
+            serial(r.date),
+            ent_rank[r.entity as usize],
+            ccy_rank[r.currency as usize],
+            tier_rank[r.tier as usize],
+            r.tenor,
+            r.file,
+            r.row,
+        )
     });
 
-    // Curve rules per (date, entity, currency).
+    // Curve rules per (date, entity, currency, tier).
     let mut i = 0;
     while i < kept.len() {
         let h = kept[i];
         let mut j = i + 1;
-        while j < kept.len() && kept[j].date == h.date && kept[j].entity == h.entity && kept[j].currency == h.currency {
+        while j < kept.len()
+            && kept[j].date == h.date
+            && kept[j].entity == h.entity
+            && kept[j].currency == h.currency
+            && kept[j].tier == h.tier
+        {
             j += 1;
         }
         let count = j - i;
-        let curve = format!("{} curve", panel.currencies.name(h.currency));
+        let curve = match panel.tiers.label(h.tier) {
+            t if t.is_empty() => format!("{} curve", panel.currencies.name(h.currency)),
+            t => format!("{} {t} curve", panel.currencies.name(h.currency)),
+        };
         if count < s.min_tenors {
             for x in &mut kept[i..j] {
                 x.flags |= FLAG_FEW_TENORS;
@@ -348,7 +384,7 @@ fn series_rules(
     }
     let name = |k: usize| -> (String, String) {
         let r = &rows[k];
-        (panel.entities.name(r.entity).to_string(), format!("{} {}", panel.currencies.name(r.currency), r.tenor))
+        (panel.entities.name(r.entity).to_string(), panel.key_text(r))
     };
     // Unit slips against the series median, and against the quote's neighbours: a name whose
     // spreads moved a long way over the years can have a slip that is within the ratio of the

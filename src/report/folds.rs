@@ -24,7 +24,9 @@ pub(super) struct CdsNodes {
     /// CDS curves: each curve's rows are one run of the table (it is sorted by curve), so the
     /// runs are counted rather than the keys held (4.6 million at 2,000 names x 10 years).
     pub(super) curves: usize,
-    pub(super) bad_curves: std::collections::HashSet<(NaiveDate, crate::tables::Label, crate::tables::Label)>,
+    pub(super) bad_curves: std::collections::HashSet<CurveId>,
+    /// CDS curves and entities per (currency, tier as `seniority/doc_clause`, empty for none).
+    pub(super) tiers: BTreeMap<(String, String), (usize, BTreeSet<String>)>,
     pub(super) status_counts: BTreeMap<&'static str, usize>,
     /// The first ten nodes not `ok`, in table order, and how many there are.
     pub(super) bad_first: Vec<HazardCurveRow>,
@@ -36,7 +38,34 @@ pub(super) struct CdsNodes {
     /// (table order): (date, years to node, hazard) and the 5Y history.
     pub(super) named: BTreeMap<String, (Vec<(NaiveDate, f64, f64)>, Vec<(f64, f64)>)>,
     /// The curve of the last CDS row taken.
-    pub(super) last: Option<(NaiveDate, crate::tables::Label, crate::tables::Label)>,
+    pub(super) last: Option<CurveId>,
+    /// The tier each charted entity's nodes are taken from: its first in table order.
+    named_tier: BTreeMap<String, (Option<crate::tables::Label>, Option<crate::tables::Label>)>,
+}
+
+/// A CDS curve: (date, entity, currency, seniority, doc_clause).
+pub(super) type CurveId = (
+    NaiveDate,
+    crate::tables::Label,
+    crate::tables::Label,
+    Option<crate::tables::Label>,
+    Option<crate::tables::Label>,
+);
+
+fn same_label(a: &crate::tables::Label, b: &crate::tables::Label) -> bool {
+    std::sync::Arc::ptr_eq(a, b) || a == b
+}
+
+fn same_opt(a: &Option<crate::tables::Label>, b: &Option<crate::tables::Label>) -> bool {
+    match (a, b) {
+        (None, None) => true,
+        (Some(a), Some(b)) => same_label(a, b),
+        _ => false,
+    }
+}
+
+fn curve_id(h: &HazardCurveRow) -> CurveId {
+    (h.date, h.entity.clone(), h.currency.clone(), h.seniority.clone(), h.doc_clause.clone())
 }
 
 /// The charted entities' nodes: term structures on the chosen dates and the 5Y history.
@@ -61,6 +90,8 @@ impl CdsNodes {
             dates: BTreeSet::new(),
             curves: 0,
             bad_curves: Default::default(),
+            tiers: BTreeMap::new(),
+            named_tier: BTreeMap::new(),
             status_counts: BTreeMap::new(),
             bad_first: Vec::new(),
             bad_nodes: 0,
@@ -90,10 +121,12 @@ impl CdsNodes {
             }
             // A curve's nodes are consecutive rows: the sets are asked once per curve (the
             // sets' contents are the same as asking every row).
-            let same_curve = self.last.as_ref().is_some_and(|(d, e, c)| {
+            let same_curve = self.last.as_ref().is_some_and(|(d, e, c, s, dc)| {
                 *d == h.date
-                    && (std::sync::Arc::ptr_eq(e, &h.entity) || *e == h.entity)
-                    && (std::sync::Arc::ptr_eq(c, &h.currency) || *c == h.currency)
+                    && same_label(e, &h.entity)
+                    && same_label(c, &h.currency)
+                    && same_opt(s, &h.seniority)
+                    && same_opt(dc, &h.doc_clause)
             });
             if !same_curve {
                 if !self.entities.contains(&*h.entity) {
@@ -102,17 +135,30 @@ impl CdsNodes {
                 if !self.currencies.contains(&*h.currency) {
                     self.currencies.insert(h.currency.to_string());
                 }
-                if self.last.as_ref().is_none_or(|(d, _, _)| *d != h.date) {
+                if self.last.as_ref().is_none_or(|l| l.0 != h.date) {
                     self.dates.insert(h.date);
                 }
                 self.curves += 1;
-                self.last = Some((h.date, h.entity.clone(), h.currency.clone()));
+                let tier = crate::ingest::cds::tier_label(h.seniority.as_deref(), h.doc_clause.as_deref());
+                let t = self.tiers.entry((h.currency.to_string(), tier)).or_default();
+                t.0 += 1;
+                if !t.1.contains(&*h.entity) {
+                    t.1.insert(h.entity.to_string());
+                }
+                self.last = Some(curve_id(h));
             }
             *self.status_counts.entry(h.status.as_str()).or_default() += 1;
             if is_five_year_ok(h) {
                 self.five_year.entry(h.date).or_default().push(h.hazard.unwrap_or(0.0) * 100.0);
             }
-            if let Some((nodes, five)) = self.named.get_mut(&*h.entity) {
+            let charted_tier = self.named.contains_key(&*h.entity) && {
+                let t = self
+                    .named_tier
+                    .entry(h.entity.to_string())
+                    .or_insert_with(|| (h.seniority.clone(), h.doc_clause.clone()));
+                same_opt(&t.0, &h.seniority) && same_opt(&t.1, &h.doc_clause)
+            };
+            if let Some((nodes, five)) = self.named.get_mut(&*h.entity).filter(|_| charted_tier) {
                 if let Some(x) = h.hazard {
                     nodes.push((h.date, crate::curves::year_time(h.date, h.node_date), x));
                 }
@@ -121,7 +167,7 @@ impl CdsNodes {
                 }
             }
             if h.status != RowStatus::Ok {
-                self.bad_curves.insert((h.date, h.entity.clone(), h.currency.clone()));
+                self.bad_curves.insert(curve_id(h));
                 self.bad_nodes += 1;
                 if self.bad_first.len() < 10 {
                     self.bad_first.push(h.clone());
@@ -149,10 +195,19 @@ impl CdsNodes {
             }
             return Ok(out);
         }
+        let mut first_tier: BTreeMap<String, (Option<crate::tables::Label>, Option<crate::tables::Label>)> =
+            BTreeMap::new();
         readback::slices::<HazardCurveRow>(path, |rows| {
             for h in
                 rows.iter().filter(|h| h.source == CurveSource::Cds && chosen.iter().any(|e| e.as_str() == &*h.entity))
             {
+                // One tier per charted name: its first in table order.
+                let t = first_tier
+                    .entry(h.entity.to_string())
+                    .or_insert_with(|| (h.seniority.clone(), h.doc_clause.clone()));
+                if !(same_opt(&t.0, &h.seniority) && same_opt(&t.1, &h.doc_clause)) {
+                    continue;
+                }
                 if let (Some(x), true) = (h.hazard, dates.contains(&h.date)) {
                     out.term
                         .entry((h.entity.to_string(), h.date))

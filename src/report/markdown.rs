@@ -430,7 +430,16 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
 
     // 3. Calibration and residuals
     let _ = writeln!(w, "## 3. Calibration and residuals\n");
-    let _ = writeln!(w, "Hazard curves are bootstrapped per (date, entity, currency) from the standard-contract CDS quotes; every calibrated quote is then repriced on its curve by an independent pass of the leg pricer.\n");
+    let _ = writeln!(w, "Hazard curves are bootstrapped per (date, entity, currency, seniority, documentation clause) from the standard-contract CDS quotes; every calibrated quote is then repriced on its curve by an independent pass of the leg pricer.\n");
+    if hz.tiers.keys().any(|(_, tier)| !tier.is_empty()) {
+        let _ = writeln!(w, "CDS curves by currency and tier (seniority/documentation clause; `-` where the quotes give none). Where a name is quoted in several tiers on a date, the bond basis, the CIR fit and the backtest use its reference tier (the seniority order of section 7); the stability series keep each tier apart, as `entity/currency/tier`.\n");
+        let _ = writeln!(w, "| currency | tier | curves | entities |\n| --- | --- | ---: | ---: |");
+        for ((ccy, tier), (curves, names)) in &hz.tiers {
+            let tier = if tier.is_empty() { "-".to_string() } else { cell_text(tier) };
+            let _ = writeln!(w, "| {} | {tier} | {curves} | {} |", cell_text(ccy), names.len());
+        }
+        let _ = writeln!(w);
+    }
     discount_sources(w, &t)?;
     let _ = writeln!(w, "| node status | nodes |\n| --- | ---: |");
     for (s, n) in status_counts {
@@ -642,6 +651,11 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         w,
         "- Recovery: {} unless the quote carries one or its seniority is listed (by seniority: {by_sen}).",
         pct(s.recovery)
+    );
+    let _ = writeln!(
+        w,
+        "- Tiers: seniority and documentation clause are part of the curve key. Seniority order for a name's reference tier: {} (unlisted seniorities after the listed ones in name order, an absent seniority first; then the documentation clause in name order).",
+        if s.seniority_order.is_empty() { "none listed".to_string() } else { cell_text(&s.seniority_order.join(", ")) }
     );
     let _ = writeln!(w, "- Data-quality thresholds in force: spread floor {} bp and cap {} bp; zero-rate band {}; bond price band {}; stale after {} unchanged business days; spike when the robust z-score (median and 1.4826 x MAD of the series' daily log changes) exceeds {} with a log move above {} reverting by at least {} the next day; unit slip when {} or more consecutive quotes sit {} times above or below the series median or the median of the 10 quotes on each side; fewer than {} tenors flags a curve (common practice, no single source).",
         q.min_spread_bp.as_ref().map_or_else(|| "(not recorded)".to_string(), |v| v.to_string()),

@@ -144,6 +144,7 @@ fn calibration_params(cfg: &RunConfig) -> CalibrationParams {
         },
         rate_conventions: cfg.rate_conventions.clone(),
         rate_calendars: cfg.currency_calendars.clone(),
+        seniority_order: cfg.seniority_order.clone(),
     }
 }
 

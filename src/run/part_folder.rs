@@ -445,6 +445,8 @@ mod tests {
             date,
             entity: entity.into(),
             currency: "EUR".into(),
+            seniority: None,
+            doc_clause: None,
             source,
             tenor: tenor.into(),
             maturity: date,

@@ -176,12 +176,13 @@ pub fn compute_partition(
                 for block in rx {
                     sinks.nodes(block.hazard)?;
                     sinks.residual_rows(block.residuals)?;
-                    for (key, curve) in block.curves {
+                    for c in block.curves {
+                        let (key, curve) = (c.key, c.curve);
                         if range.contains(key.0) {
                             coverage.add(key.0, &key.1);
-                            series.add(key.0, &key.1, &key.2, &curve);
+                            series.add(key.0, &key.1, &crate::stages::stability::curve_class(&key.2, &c.tier), &curve);
                         }
-                        if (backtest && serves(key.0)) || for_fits.wants(&key) {
+                        if c.reference && ((backtest && serves(key.0)) || for_fits.wants(&key)) {
                             kept.insert(key, curve);
                         }
                     }

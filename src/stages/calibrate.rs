@@ -42,6 +42,9 @@ pub struct CalibrationParams {
     pub rate_conventions: BTreeMap<String, crate::curves::rates::RateConvention>,
     /// Holiday calendars by currency for the standard curves (others use `calendar`).
     pub rate_calendars: BTreeMap<String, Calendar>,
+    /// Seniorities in order of preference for the reference curve of an entity and date (see
+    /// [`BlockCurve::reference`]); unlisted ones follow in name order.
+    pub seniority_order: Vec<String>,
 }
 
 /// Tables and counts produced by calibrating a dataset.
@@ -58,8 +61,24 @@ pub struct Calibration {
     pub max_abs_residual_bp: f64,
     /// The discount curves built, per (date, currency), for the later fits.
     pub discount_curves: BTreeMap<(NaiveDate, String), DiscountCurve>,
-    /// Every bootstrapped CDS curve with its quotes, per (date, entity, currency).
+    /// The reference curve (see [`BlockCurve::reference`]) with its quotes, per (date,
+    /// entity, currency): what the entity-level stages (bond basis, CIR, backtest) use.
     pub cds_curves: BTreeMap<(NaiveDate, String, String), CdsCurve>,
+}
+
+/// One bootstrapped CDS curve as a block hands it over.
+#[derive(Debug, Clone)]
+pub struct BlockCurve {
+    /// (date, entity, currency).
+    pub key: (NaiveDate, String, String),
+    /// The curve's tier as [`crate::ingest::cds::tier_label`] shows it (empty when none).
+    pub tier: String,
+    /// Whether this is the entity's reference curve on the date in its currency: of the tiers
+    /// quoted that day, the one whose seniority comes first in `seniority_order` (unlisted
+    /// seniorities after the listed ones, in name order, an absent seniority first), then by
+    /// documentation clause in name order. One tier per (date, entity, currency) is.
+    pub reference: bool,
+    pub curve: CdsCurve,
 }
 
 /// A bootstrapped CDS curve as the bond and CIR fits use it.
@@ -77,7 +96,7 @@ struct CurveOutput {
     residuals: Vec<ResidualRow>,
     rejects: Vec<Reject>,
     used: usize,
-    fit: Option<((NaiveDate, String, String), CdsCurve)>,
+    fit: Option<BlockCurve>,
 }
 
 /// Builds discount curves per (date, currency); the rows of a curve that cannot be built are
@@ -211,10 +230,8 @@ fn rate_curves(
 
 fn recovery_of(panel: &CdsPanel, r: &CdsQuoteRow, p: &CalibrationParams) -> f64 {
     r.recovery().unwrap_or_else(|| {
-        if r.seniority != u32::MAX {
-            if let Some(v) = p.recovery_by_seniority.get(panel.seniorities.name(r.seniority)) {
-                return *v;
-            }
+        if let Some(v) = panel.tiers.seniority(r.tier).and_then(|s| p.recovery_by_seniority.get(s)) {
+            return *v;
         }
         p.recovery
     })
@@ -226,9 +243,11 @@ fn calibrate_one(
     curve: &DiscountCurve,
     plan: Option<&std::result::Result<BootstrapPlan, BootstrapError>>,
     s: &CalibrationParams,
+    reference: bool,
 ) -> CurveOutput {
     let h = rows[0];
     let (date, entity, currency) = (h.date, panel.entities.name(h.entity), panel.currencies.name(h.currency));
+    let curve_text = panel.curve_text(&h);
     // A quoted spread trades as the upfront its flat hazard gives at its running coupon: the
     // conversion needs the day's discount curve, so it happens here.
     let mut unconverted: Option<String> = None;
@@ -273,7 +292,7 @@ fn calibrate_one(
     if let Some(why) = unconverted {
         let rejects = rows
             .iter()
-            .map(|r| panel.reject(r, "curve_not_built", format!("{date} {entity} {currency}: {why}")))
+            .map(|r| panel.reject(r, "curve_not_built", format!("{curve_text}: {why}")))
             .collect();
         return CurveOutput { hazard: Vec::new(), residuals: Vec::new(), rejects, used: 0, fit: None };
     }
@@ -289,7 +308,7 @@ fn calibrate_one(
         Err(e) => {
             let rejects = rows
                 .iter()
-                .map(|r| panel.reject(r, "curve_not_built", format!("{date} {entity} {currency}: {e}")))
+                .map(|r| panel.reject(r, "curve_not_built", format!("{curve_text}: {e}")))
                 .collect();
             return CurveOutput { hazard: Vec::new(), residuals: Vec::new(), rejects, used: 0, fit: None };
         }
@@ -300,6 +319,8 @@ fn calibrate_one(
     };
     let residuals = crate::calibrate::residuals::reprice_with_plan(&fit, &quotes, curve, s.bootstrap.accrual, shared);
     let (entity_label, currency_label): (Label, Label) = (entity.into(), currency.into());
+    let seniority: Option<Label> = panel.tiers.seniority(h.tier).map(Label::from);
+    let doc_clause: Option<Label> = panel.tiers.doc_clause(h.tier).map(Label::from);
     let hazard = fit
         .nodes
         .iter()
@@ -307,6 +328,8 @@ fn calibrate_one(
             date,
             entity: entity_label.clone(),
             currency: currency_label.clone(),
+            seniority: seniority.clone(),
+            doc_clause: doc_clause.clone(),
             source: CurveSource::Cds,
             tenor: tenor_label(n.tenor),
             maturity: n.maturity,
@@ -325,6 +348,8 @@ fn calibrate_one(
             date,
             entity: entity_label.clone(),
             currency: currency_label.clone(),
+            seniority: seniority.clone(),
+            doc_clause: doc_clause.clone(),
             method: FitMethod::Bootstrap,
             instrument: q.instrument,
             tenor_or_bond: tenor_label(q.tenor),
@@ -345,20 +370,48 @@ fn calibrate_one(
         residuals,
         rejects: Vec::new(),
         used: rows.len(),
-        fit: Some((key, CdsCurve { quotes, curve })),
+        fit: Some(BlockCurve { key, tier: panel.tiers.label(h.tier), reference, curve: CdsCurve { quotes, curve } }),
     }
+}
+
+/// Whether each job (a curve's rows, by its first row) is its entity's reference curve on its
+/// date in its currency (see [`BlockCurve::reference`]).
+fn reference_jobs(panel: &CdsPanel, jobs: &[(usize, usize)], order: &[String]) -> Vec<bool> {
+    let rows = &panel.rows;
+    let tier_rank = panel.tiers.ranks();
+    let rank = |a: usize| {
+        let t = rows[a].tier;
+        let listed = panel.tiers.seniority(t).and_then(|s| order.iter().position(|o| o == s)).unwrap_or(order.len());
+        (listed, tier_rank[t as usize])
+    };
+    let mut out = vec![false; jobs.len()];
+    let mut i = 0;
+    while i < jobs.len() {
+        let h = &rows[jobs[i].0];
+        let mut j = i + 1;
+        while j < jobs.len() && {
+            let r = &rows[jobs[j].0];
+            r.date == h.date && r.entity == h.entity && r.currency == h.currency
+        } {
+            j += 1;
+        }
+        let best = (i..j).min_by_key(|&k| rank(jobs[k].0)).unwrap_or(i);
+        out[best] = true;
+        i = j;
+    }
+    out
 }
 
 /// Curves calibrated in parallel before their rows are moved into the tables.
 const CURVES_PER_BLOCK: usize = 16_384;
 
-/// One block of calibrated curves, in key order (date, entity, currency): their node rows,
-/// their residual rows and the bootstrapped curves with their quotes.
+/// One block of calibrated curves, in key order (date, entity, currency, tier): their node
+/// rows, their residual rows and the bootstrapped curves with their quotes.
 #[derive(Debug, Default)]
 pub struct CurveBlock {
     pub hazard: Vec<HazardCurveRow>,
     pub residuals: Vec<ResidualRow>,
-    pub curves: Vec<((NaiveDate, String, String), CdsCurve)>,
+    pub curves: Vec<BlockCurve>,
 }
 
 /// Calibrates every curve of the dataset's CDS panel and keeps every row and curve in the
@@ -374,7 +427,7 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
     let mut out = calibrate_blocks(ds, p, crate::parts::DateRange::ALL, |b| {
         hazard.extend(b.hazard);
         residuals.extend(b.residuals);
-        curves.extend(b.curves);
+        curves.extend(b.curves.into_iter().filter(|c| c.reference).map(|c| (c.key, c.curve)));
         Ok(())
     })?;
     out.hazard = hazard;
@@ -426,7 +479,7 @@ pub fn calibrate_blocks(
         }
     }
 
-    // Curves are consecutive runs of (date, entity, currency) in the panel's sorted rows.
+    // Curves are consecutive runs of (date, entity, currency, tier) in the panel's sorted rows.
     let mut jobs: Vec<(usize, usize)> = Vec::new();
     let rows = &panel.rows;
     let mut i = 0;
@@ -436,18 +489,21 @@ pub fn calibrate_blocks(
             && rows[j].date == rows[i].date
             && rows[j].entity == rows[i].entity
             && rows[j].currency == rows[i].currency
+            && rows[j].tier == rows[i].tier
         {
             j += 1;
         }
         jobs.push((i, j));
         i = j;
     }
+    let reference = reference_jobs(panel, &jobs, &p.seniority_order);
+    let jobs: Vec<(usize, usize, bool)> = jobs.into_iter().zip(reference).map(|((a, b), r)| (a, b, r)).collect();
     // One bootstrap plan per (date, currency, tenor set), shared by every name quoted so.
     type PlanKey = (chrono::NaiveDate, u32, Vec<Tenor>);
     let key_of = |a: usize, b: usize| -> PlanKey {
         (rows[a].date, rows[a].currency, rows[a..b].iter().map(|r| r.tenor).collect())
     };
-    let mut keys: Vec<PlanKey> = jobs.iter().map(|&(a, b)| key_of(a, b)).collect();
+    let mut keys: Vec<PlanKey> = jobs.iter().map(|&(a, b, _)| key_of(a, b)).collect();
     keys.sort();
     keys.dedup();
     let plans: std::collections::HashMap<PlanKey, std::result::Result<BootstrapPlan, BootstrapError>> = keys
@@ -465,10 +521,10 @@ pub fn calibrate_blocks(
     for block_jobs in jobs.chunks(CURVES_PER_BLOCK) {
         let outputs: Vec<CurveOutput> = block_jobs
             .par_iter()
-            .map(|&(a, b)| {
+            .map(|&(a, b, reference)| {
                 let h = &rows[a];
                 let o = match curves.get(&(h.date, panel.currencies.name(h.currency).to_string())) {
-                    Some(curve) => calibrate_one(panel, &rows[a..b], curve, plans.get(&key_of(a, b)), p),
+                    Some(curve) => calibrate_one(panel, &rows[a..b], curve, plans.get(&key_of(a, b)), p, reference),
                     None => CurveOutput {
                         hazard: Vec::new(),
                         residuals: Vec::new(),
@@ -495,7 +551,7 @@ pub fn calibrate_blocks(
             })
             .collect();
         let mut block = CurveBlock::default();
-        for (o, &(a, _)) in outputs.into_iter().zip(block_jobs) {
+        for (o, &(a, _, _)) in outputs.into_iter().zip(block_jobs) {
             if !scope.contains(rows[a].date) {
                 block.curves.extend(o.fit);
                 continue;
@@ -586,4 +642,49 @@ pub fn metadata(p: &CalibrationParams, q: &QualitySettings) -> Vec<(String, Stri
         ("hazardline.calendar".into(), format!("weekends + {} holidays", p.calendar.holidays().len())),
         ("hazardline.quality".into(), format!("{q:?}")),
     ]
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::instruments::CdsQuote;
+
+    /// The reference tier of (date, entity, currency): the seniority listed first in
+    /// `seniority_order`, unlisted ones after in name order (an absent seniority first), then
+    /// the documentation clause in name order.
+    #[test]
+    fn reference_tier_follows_the_seniority_order() {
+        let mut panel = CdsPanel::default();
+        let d = NaiveDate::from_ymd_opt(2024, 3, 4).unwrap();
+        let (e, c) = (panel.entities.id("A"), panel.currencies.id("USD"));
+        let tiers = [
+            panel.tiers.id(None, None),
+            panel.tiers.id(Some("senior"), Some("full")),
+            panel.tiers.id(Some("senior"), Some("none")),
+            panel.tiers.id(Some("subordinated"), None),
+        ];
+        let row = |tier| CdsQuoteRow {
+            date: d,
+            entity: e,
+            currency: c,
+            tenor: Tenor::from_months(60).unwrap(),
+            quote: CdsQuote::ParSpread(0.01),
+            recovery: f64::NAN,
+            tier,
+            file: 0,
+            row: 1,
+            flags: 0,
+            quoted_coupon_bp: f32::NAN,
+        };
+        panel.rows = tiers.iter().map(|&t| row(t)).collect();
+        let jobs: Vec<(usize, usize)> = (0..4).map(|i| (i, i + 1)).collect();
+        let chosen = |order: &[&str]| {
+            let order: Vec<String> = order.iter().map(|s| s.to_string()).collect();
+            reference_jobs(&panel, &jobs, &order).iter().position(|&r| r)
+        };
+        assert_eq!(chosen(&[]), Some(0), "no order: the absent seniority first");
+        assert_eq!(chosen(&["senior"]), Some(1), "senior listed: its first clause by name");
+        assert_eq!(chosen(&["subordinated", "senior"]), Some(3));
+        assert_eq!(reference_jobs(&panel, &jobs, &[]).iter().filter(|&&r| r).count(), 1);
+    }
 }

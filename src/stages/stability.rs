@@ -22,20 +22,31 @@ pub fn grade_book(ds: &Dataset) -> GradeBook {
     GradeBook::new(ds.grades.iter().flat_map(|g| g.rows.iter().map(|(r, _)| (r.entity.clone(), r.from_date, r.grade))))
 }
 
-/// Entities quoted in more than one currency in the CDS panel's usable rows: their series
-/// are kept as `entity/CCY`. Known before any curve is calibrated, so every series can be
-/// named as its rows stream past; a property of each entity alone, so the union over entity
-/// shards is the whole run's.
+/// Entities quoted in more than one currency or tier (seniority and documentation clause) in
+/// the CDS panel's usable rows: their series are kept as `entity/CCY` or `entity/CCY/tier`
+/// ([`curve_class`]). Known before any curve is calibrated, so every series can be named as
+/// its rows stream past; a property of each entity alone, so the union over entity shards is
+/// the whole run's.
 pub fn multi_currency(panel: &crate::ingest::cds::CdsPanel) -> BTreeSet<String> {
-    let mut first: std::collections::HashMap<u32, u32> = std::collections::HashMap::new();
+    let mut first: std::collections::HashMap<u32, (u32, u32)> = std::collections::HashMap::new();
     let mut multi: BTreeSet<String> = BTreeSet::new();
     for r in &panel.rows {
-        let c = *first.entry(r.entity).or_insert(r.currency);
-        if c != r.currency {
+        let c = *first.entry(r.entity).or_insert((r.currency, r.tier));
+        if c != (r.currency, r.tier) {
             multi.insert(panel.entities.name(r.entity).to_string());
         }
     }
     multi
+}
+
+/// The part of a series name after the entity for a name quoted in several currencies or
+/// tiers: the currency, then `/tier` when the curve has one (`USD`, `USD/senior/no_restr`).
+pub fn curve_class(currency: &str, tier: &str) -> String {
+    if tier.is_empty() {
+        currency.to_string()
+    } else {
+        format!("{currency}/{tier}")
+    }
 }
 
 fn series_name(multi: &BTreeSet<String>, e: &str, c: &str) -> String {
@@ -52,8 +63,8 @@ fn series_name(multi: &BTreeSet<String>, e: &str, c: &str) -> String {
 struct Labels {
     seen: std::collections::HashMap<String, Arc<str>>,
     entities: std::collections::HashMap<String, std::collections::HashMap<String, Arc<str>>>,
-    /// The (entity, currency) labels last asked for and their answer.
-    last: Option<(Arc<str>, Arc<str>, Arc<str>)>,
+    /// The (entity, currency, seniority, doc_clause) labels last asked for and their answer.
+    last: Option<(Arc<str>, Arc<str>, Option<Arc<str>>, Option<Arc<str>>, Arc<str>)>,
 }
 
 impl Labels {
@@ -70,14 +81,31 @@ impl Labels {
     /// several currencies.
     /// [`Labels::entity`] for a row's shared labels, with the previous row's answer reused
     /// when the row shares its labels (the rows of one curve do).
-    fn entity_of(&mut self, multi: &BTreeSet<String>, e: &Arc<str>, c: &Arc<str>) -> Arc<str> {
-        if let Some((le, lc, l)) = &self.last {
-            if Arc::ptr_eq(le, e) && Arc::ptr_eq(lc, c) {
+    fn entity_of(
+        &mut self,
+        multi: &BTreeSet<String>,
+        e: &Arc<str>,
+        c: &Arc<str>,
+        s: &Option<Arc<str>>,
+        d: &Option<Arc<str>>,
+    ) -> Arc<str> {
+        let same = |a: &Option<Arc<str>>, b: &Option<Arc<str>>| match (a, b) {
+            (None, None) => true,
+            (Some(a), Some(b)) => Arc::ptr_eq(a, b),
+            _ => false,
+        };
+        if let Some((le, lc, ls, ld, l)) = &self.last {
+            if Arc::ptr_eq(le, e) && Arc::ptr_eq(lc, c) && same(ls, s) && same(ld, d) {
                 return l.clone();
             }
         }
-        let l = self.entity(multi, e, c);
-        self.last = Some((e.clone(), c.clone(), l.clone()));
+        let l = if multi.contains(&**e) {
+            let tier = crate::ingest::cds::tier_label(s.as_deref(), d.as_deref());
+            self.entity(multi, e, &curve_class(c, &tier))
+        } else {
+            self.entity(multi, e, c)
+        };
+        self.last = Some((e.clone(), c.clone(), s.clone(), d.clone(), l.clone()));
         l
     }
 
@@ -137,7 +165,7 @@ impl<'a> CurveSeries<'a> {
         }
     }
 
-    /// Takes the series of the curve of (`date`, `e`, `c`).
+    /// Takes the series of the curve of (`date`, `e`, `c`), `c` its [`curve_class`].
     pub fn add(&mut self, date: NaiveDate, e: &str, c: &str, curve: &CdsCurve) {
         let entity = self.labels.entity(self.multi, e, c);
         let grade = self.grades.grade(e, date);
@@ -223,7 +251,7 @@ impl<'a> RowDigest<'a> {
     /// what it had at [`RowDigest::finish`]).
     pub fn nodes(&mut self, hazard: &[HazardCurveRow]) {
         for r in hazard.iter().filter(|r| r.source == crate::text::CurveSource::Cds) {
-            let entity = self.labels.entity_of(self.multi, &r.entity, &r.currency);
+            let entity = self.labels.entity_of(self.multi, &r.entity, &r.currency, &r.seniority, &r.doc_clause);
             let same = self.run.as_ref().is_some_and(|(e, (d, _, _))| *d == r.date && Arc::ptr_eq(e, &entity));
             if !same {
                 self.end_run();
@@ -255,7 +283,7 @@ impl<'a> RowDigest<'a> {
             let (method, instrument) = (get(r.method.as_str()), get(r.instrument));
             let o = ResidualObservation {
                 date: r.date,
-                entity: self.labels.entity_of(self.multi, &r.entity, &r.currency),
+                entity: self.labels.entity_of(self.multi, &r.entity, &r.currency, &r.seniority, &r.doc_clause),
                 method,
                 instrument,
                 tenor: r.tenor_or_bond.clone(),

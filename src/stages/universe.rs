@@ -6,6 +6,7 @@
 //! ```text
 //! cds_quotes/quotes_<year>.parquet   the daily feed, one file per calendar year
 //! cds_quotes/manual_entries.csv      rows typed in by hand (planted text and weekend faults)
+//! cds_quotes/second_tier.parquet     a subordinated tier of a few names (one as quoted spreads)
 //! discount.parquet (USD zero rates), rate_quotes.csv (EUR deposits and swaps),
 //! bonds.csv, bond_quotes.csv, entities.csv, grades.csv, defaults.csv, cohort_history.csv
 //! truth/grade_profiles.csv, truth/intensities.parquet (month ends), truth/defaults.csv,
@@ -152,6 +153,7 @@ fn write_inputs(w: &mut Writer, s: &Scenario) -> Result<()> {
             }
         }
     }
+    write_second_tier(w, s)?;
     // Discount curves: zero rates by tenor, except for the currencies whose curves are given
     // as the deposit and swap quotes they imply (the standard curve, rebuilt by the run).
     let d: Vec<&(NaiveDate, &str, u32, f64)> =
@@ -388,8 +390,54 @@ pub fn fault_rows(s: &Scenario) -> BTreeMap<usize, Vec<(String, u64)>> {
 }
 
 /// The pipeline file beside the generated tables: the whole pipeline on this folder.
-fn pipeline_file(s: &Scenario) -> String {
-    // Chart a good grade, a weak one and (when there is one) a defaulter.
+/// Every `SECOND_TIER_EVERY`-th entity (from the 8th, leaving out the charted ones) is also
+/// quoted in a second tier, `subordinated`.
+const SECOND_TIER_EVERY: usize = 50;
+
+/// Recovery the demo's pipeline file lists for the second tier's seniority.
+const SECOND_TIER_RECOVERY: f64 = 0.20;
+
+/// The second tier of the names [`SECOND_TIER_EVERY`] picks: each daily-feed par spread scaled
+/// by (1 - 0.20) / (1 - 0.40), the spread of the same default risk at the lower recovery
+/// (first order), rounded to 0.01 bp; the rows of planted faults are left out (the faults are
+/// planted once, in the daily feed). The first such name is quoted as quoted spreads at a
+/// 100 bp running coupon (500 bp from 300 bp of spread) instead of par spreads.
+fn write_second_tier(w: &mut Writer, s: &Scenario) -> Result<()> {
+    let charted = charted_entities(s);
+    let names: Vec<usize> = (7..s.entities.len())
+        .step_by(SECOND_TIER_EVERY)
+        .filter(|&e| !charted.contains(&s.entities[e].entity.as_str()))
+        .collect();
+    let Some(&quoted) = names.first() else { return Ok(()) };
+    let scale = (1.0 - SECOND_TIER_RECOVERY) / (1.0 - crate::sim::scenario::RECOVERY);
+    let rows: Vec<(&crate::sim::scenario::QuoteRow, f64)> = s
+        .quotes
+        .iter()
+        .filter(|r| matches!(r.file, QuoteFile::Year(_)) && r.fault.is_none() && names.contains(&r.entity))
+        .filter_map(|r| match r.value {
+            QuoteValue::Number(v) => Some((r, crate::sim::scenario::round_to(v * scale, 2))),
+            QuoteValue::Text(_) => None,
+        })
+        .collect();
+    let par = |r: &crate::sim::scenario::QuoteRow, v: f64| (r.entity != quoted).then_some(v);
+    let qs = |r: &crate::sim::scenario::QuoteRow, v: f64| (r.entity == quoted).then_some(v);
+    let b = TableBuilder::new()
+        .dates("date", rows.iter().map(|(r, _)| Some(r.date)))
+        .strings("entity", rows.iter().map(|(r, _)| Some(s.entities[r.entity].entity.as_str())))
+        .strings("currency", rows.iter().map(|(r, _)| Some(s.entities[r.entity].currency)))
+        .strings("tenor", rows.iter().map(|(r, _)| Some(tenor_text(r.tenor))))
+        .strings("seniority", rows.iter().map(|_| Some("subordinated")))
+        .floats("par_spread_bp", rows.iter().map(|&(r, v)| par(r, v)))
+        .floats("quoted_spread_bp", rows.iter().map(|&(r, v)| qs(r, v)))
+        .floats(
+            "coupon_bp",
+            rows.iter().map(|&(r, v)| qs(r, v).map(|v| if v < 300.0 { 100.0 } else { 500.0 })),
+        );
+    w.parquet("cds_quotes/second_tier.parquet", b)
+}
+
+/// The charted names: a good grade, a weak one and (when there is one) a defaulter.
+fn charted_entities(s: &Scenario) -> Vec<&str> {
     let mut charted: Vec<&str> = Vec::new();
     let first_grade = |g: u32| s.grades.iter().find(|r| r.2 == g).map(|r| s.entities[r.0].entity.as_str());
     if let Some(e) = first_grade(1).or_else(|| first_grade(2)) {
@@ -406,7 +454,11 @@ fn pipeline_file(s: &Scenario) -> String {
             charted.push(e);
         }
     }
-    let charted: Vec<String> = charted.iter().map(|e| format!("{e:?}")).collect();
+    charted
+}
+
+fn pipeline_file(s: &Scenario) -> String {
+    let charted: Vec<String> = charted_entities(s).iter().map(|e| format!("{e:?}")).collect();
     format!(
         "# Written by `hazardline demo` (seed {seed}): the whole pipeline on this invented universe.\n\
          name = \"demo\"\n\n\
@@ -421,7 +473,8 @@ fn pipeline_file(s: &Scenario) -> String {
          defaults = \"defaults.csv\"\n\
          cohort_history = \"cohort_history.csv\"\n\n\
          [conventions]\n\
-         recovery = {recovery:.2}\n\n\
+         recovery = {recovery:.2}\n\
+         recovery_by_seniority = {{ subordinated = {second:.2} }}\n\n\
          [calibration]\n\
          bond_fit = true\n\
          cir = true\n\
@@ -435,6 +488,7 @@ fn pipeline_file(s: &Scenario) -> String {
          charted_entities = [{charted}]\n",
         seed = s.spec.seed,
         recovery = crate::sim::scenario::RECOVERY,
+        second = SECOND_TIER_RECOVERY,
         charted = charted.join(", "),
     )
 }

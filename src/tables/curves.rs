@@ -4,7 +4,7 @@
 //! a run built.
 
 use super::parquet::{FileKey, RowGroupWriter, SplitWriter, TableBuilder, TableWriter};
-use super::readback::{dates, fixed_labels, floats, ints, labels, strs, text_form};
+use super::readback::{dates, fixed_labels, floats, ints, labels, opt_labels, strs, text_form};
 use super::{col, metadata_of, Column, Kind::*, Table};
 use crate::error::Result;
 use crate::text::{CurveSource, RowStatus};
@@ -31,6 +31,9 @@ pub struct HazardCurveRow {
     /// Shared by every row of the curve (one allocation per curve, not per node).
     pub entity: Label,
     pub currency: Label,
+    /// The tier of a CDS curve (None when the quotes give none; always None for bonds).
+    pub seniority: Option<Label>,
+    pub doc_clause: Option<Label>,
     pub source: CurveSource,
     pub tenor: Label,
     /// Unadjusted contract maturity.
@@ -53,6 +56,8 @@ impl Table for HazardCurveRow {
         col("date", Date),
         col("entity", Text),
         col("currency", Text),
+        col("seniority", Text),
+        col("doc_clause", Text),
         col("source", Text),
         col("tenor", Text),
         col("maturity", Date),
@@ -77,6 +82,8 @@ impl Table for HazardCurveRow {
             .dates("date", rows.iter().map(|r| Some(r.date)))
             .strings("entity", rows.iter().map(|r| Some(&r.entity)))
             .strings("currency", rows.iter().map(|r| Some(&r.currency)))
+            .strings("seniority", rows.iter().map(|r| r.seniority.as_deref()))
+            .strings("doc_clause", rows.iter().map(|r| r.doc_clause.as_deref()))
             .strings("source", rows.iter().map(|r| Some(r.source.as_str())))
             .strings("tenor", rows.iter().map(|r| Some(&r.tenor)))
             .dates("maturity", rows.iter().map(|r| Some(r.maturity)))
@@ -91,6 +98,7 @@ impl Table for HazardCurveRow {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
+        let (sen, doc) = (opt_labels(df, path, "seniority")?, opt_labels(df, path, "doc_clause")?);
         let (d, e, c, src, t, m, nd, h, s, st, r, it, mut de) = (
             dates(df, path, "date")?,
             labels(df, path, "entity")?,
@@ -112,6 +120,8 @@ impl Table for HazardCurveRow {
                     date: d[i].unwrap_or_default(),
                     entity: e[i].clone(),
                     currency: c[i].clone(),
+                    seniority: sen[i].clone(),
+                    doc_clause: doc[i].clone(),
                     source: text_form(src[i].as_deref(), "source", path, i)?,
                     tenor: t[i].clone(),
                     maturity: m[i].unwrap_or_default(),
@@ -128,15 +138,18 @@ impl Table for HazardCurveRow {
     }
 }
 
-/// The order of the `hazard_curves` table: CDS nodes first, by (date, entity, currency),
-/// then the bond nodes by the same key; a curve's nodes keep their order (a stable sort).
+/// The order of the `hazard_curves` table: CDS nodes first, by (date, entity, currency,
+/// seniority, doc_clause), then the bond nodes by the same key; a curve's nodes keep their
+/// order (a stable sort).
 pub fn sort_hazard(rows: &mut [HazardCurveRow]) {
     rows.sort_by(|a, b| {
-        (a.source != CurveSource::Cds, a.date, &a.entity, &a.currency).cmp(&(
+        (a.source != CurveSource::Cds, a.date, &a.entity, &a.currency, &a.seniority, &a.doc_clause).cmp(&(
             b.source != CurveSource::Cds,
             b.date,
             &b.entity,
             &b.currency,
+            &b.seniority,
+            &b.doc_clause,
         ))
     });
 }
@@ -250,6 +263,8 @@ mod tests {
             date,
             entity: "Alder Works".into(),
             currency: "EUR".into(),
+            seniority: (source == CurveSource::Cds).then(|| "senior".into()),
+            doc_clause: None,
             source,
             tenor: "5Y".into(),
             maturity: date,

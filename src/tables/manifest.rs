@@ -58,6 +58,8 @@ impl Manifest {
 pub struct RecordedSettings {
     pub recovery: f64,
     pub recovery_by_seniority: BTreeMap<String, f64>,
+    #[serde(default)]
+    pub seniority_order: Vec<String>,
     pub infeasible: InfeasiblePolicy,
     pub accrual_on_default: AccrualIntegration,
     #[serde(default)]

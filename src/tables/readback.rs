@@ -66,6 +66,17 @@ pub fn labels(df: &DataFrame, path: &Path, name: &str) -> Result<Vec<Label>> {
         .collect())
 }
 
+/// A nullable text column as shared labels (one allocation per distinct value).
+pub fn opt_labels(df: &DataFrame, path: &Path, name: &str) -> Result<Vec<Option<Label>>> {
+    let c = df.column(name).map_err(|e| err(path, name, e))?;
+    let mut seen: std::collections::HashMap<&str, Label> = std::collections::HashMap::new();
+    Ok(c.str()
+        .map_err(|e| err(path, name, e))?
+        .iter()
+        .map(|v| v.map(|v| seen.entry(v).or_insert_with(|| Label::from(v)).clone()))
+        .collect())
+}
+
 pub fn floats(df: &DataFrame, path: &Path, name: &str) -> Result<Vec<Option<f64>>> {
     let c = df.column(name).map_err(|e| err(path, name, e))?;
     Ok(c.f64().map_err(|e| err(path, name, e))?.iter().collect())

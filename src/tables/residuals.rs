@@ -3,7 +3,7 @@
 //! as one file or (large runs) a folder of a file per method and year.
 
 use super::parquet::{FileKey, RowGroupWriter, SplitWriter, TableBuilder, TableWriter};
-use super::readback::{dates, fixed_labels, floats, labels, strs, text_form};
+use super::readback::{dates, fixed_labels, floats, labels, opt_labels, strs, text_form};
 use super::{col, curves::Label, metadata_of, Column, Kind::*, Table};
 use crate::error::Result;
 use crate::text::{FitMethod, RowStatus};
@@ -20,6 +20,9 @@ pub struct ResidualRow {
     pub date: NaiveDate,
     pub entity: Label,
     pub currency: Label,
+    /// The tier of a CDS curve (None when the quotes give none; always None for bonds).
+    pub seniority: Option<Label>,
+    pub doc_clause: Option<Label>,
     pub method: FitMethod,
     /// One of [`INSTRUMENTS`].
     pub instrument: &'static str,
@@ -36,6 +39,8 @@ impl Table for ResidualRow {
         col("date", Date),
         col("entity", Text),
         col("currency", Text),
+        col("seniority", Text),
+        col("doc_clause", Text),
         col("method", Text),
         col("instrument", Text),
         col("tenor_or_bond", Text),
@@ -57,6 +62,8 @@ impl Table for ResidualRow {
             .dates("date", rows.iter().map(|r| Some(r.date)))
             .strings("entity", rows.iter().map(|r| Some(&r.entity)))
             .strings("currency", rows.iter().map(|r| Some(&r.currency)))
+            .strings("seniority", rows.iter().map(|r| r.seniority.as_deref()))
+            .strings("doc_clause", rows.iter().map(|r| r.doc_clause.as_deref()))
             .strings("method", rows.iter().map(|r| Some(r.method.as_str())))
             .strings("instrument", rows.iter().map(|r| Some(r.instrument)))
             .strings("tenor_or_bond", rows.iter().map(|r| Some(&r.tenor_or_bond)))
@@ -68,6 +75,7 @@ impl Table for ResidualRow {
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
+        let (sen, doc) = (opt_labels(df, path, "seniority")?, opt_labels(df, path, "doc_clause")?);
         let (d, e, c, me, ins, t, mk, mo, r, st) = (
             dates(df, path, "date")?,
             labels(df, path, "entity")?,
@@ -87,6 +95,8 @@ impl Table for ResidualRow {
                     date: d[i].unwrap_or_default(),
                     entity: e[i].clone(),
                     currency: c[i].clone(),
+                    seniority: sen[i].clone(),
+                    doc_clause: doc[i].clone(),
                     method,
                     instrument: ins[i],
                     tenor_or_bond: t[i].clone(),
@@ -101,11 +111,19 @@ impl Table for ResidualRow {
 }
 
 /// The order of the `calibration_residuals` table: the bootstrap's residuals first, by (date,
-/// entity, currency), then the other methods' by (method, date, entity, currency); a curve's
-/// residuals keep their order (a stable sort).
+/// entity, currency, seniority, doc_clause), then the other methods' by (method, date, entity,
+/// currency); a curve's residuals keep their order (a stable sort).
 pub fn sort_residuals(rows: &mut [ResidualRow]) {
     let key = |r: &ResidualRow| (r.method != FitMethod::Bootstrap, r.method.as_str(), r.date);
-    rows.sort_by(|a, b| (key(a), &a.entity, &a.currency).cmp(&(key(b), &b.entity, &b.currency)));
+    rows.sort_by(|a, b| {
+        (key(a), &a.entity, &a.currency, &a.seniority, &a.doc_clause).cmp(&(
+            key(b),
+            &b.entity,
+            &b.currency,
+            &b.seniority,
+            &b.doc_clause,
+        ))
+    });
 }
 
 /// Starts `calibration_residuals` at `path`, written as its rows arrive ([`RowGroupWriter`]).
@@ -155,6 +173,8 @@ mod tests {
             date: d,
             entity: entity.into(),
             currency: "EUR".into(),
+            seniority: Some("subordinated".into()),
+            doc_clause: Some("no_restructuring".into()),
             method,
             instrument: "cds_par_spread",
             tenor_or_bond: "5Y".into(),

@@ -462,3 +462,86 @@ fn quoted_spreads_calibrate_as_their_upfronts() {
         assert!((q - ql).abs() <= tol * q, "case {k}: quoted {q} vs QuantLib's flat hazard {ql}");
     }
 }
+
+/// Seniority and documentation clause are part of the curve key: two tiers of one name on
+/// one date are two curves (they used to collide as `conflicting_duplicate`), each carried in
+/// `hazard_curves` and `calibration_residuals` with its tier, while two different quotes of
+/// one tier still conflict. With the same par spreads, the tier at 20% recovery bootstraps a
+/// flat hazard close to (1 - 0.40) / (1 - 0.20) of the one at 40% (the credit triangle,
+/// lambda = s / (1 - R) to first order: common practice, no source).
+#[test]
+fn tiers_of_one_name_are_separate_curves() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut disc = String::from("date,currency,tenor,zero_rate\n");
+    for t in ["6M", "1Y", "5Y", "10Y"] {
+        disc += &format!("2024-03-04,USD,{t},0.03\n");
+    }
+    let mut cds = String::from("date,entity,currency,tenor,par_spread_bp,seniority,doc_clause\n");
+    for t in ["1Y", "3Y", "5Y"] {
+        cds += &format!("2024-03-04,Tiered,USD,{t},150,senior,no_restructuring\n");
+        cds += &format!("2024-03-04,Tiered,USD,{t},150,subordinated,no_restructuring\n");
+        cds += &format!("2024-03-04,Tiered,USD,{t},150,senior,modified_restructuring\n");
+    }
+    cds += "2024-03-04,Clash,USD,5Y,150,senior,\n2024-03-04,Clash,USD,5Y,160,senior,\n";
+    cds += "2024-03-04,Clash,USD,5Y,170,subordinated,\n";
+    std::fs::write(dir.path().join("discount.csv"), disc).unwrap();
+    std::fs::write(dir.path().join("cds.csv"), cds).unwrap();
+    std::fs::write(
+        dir.path().join("p.toml"),
+        "name = \"tiers\"\n[inputs]\ncds_quotes = \"cds.csv\"\ndiscount = \"discount.csv\"\n\
+         [conventions]\nrecovery_by_seniority = { senior = 0.40, subordinated = 0.20 }\n[report]\nlabel = \"r\"\n",
+    )
+    .unwrap();
+    let cfg = load_pipeline(&dir.path().join("p.toml")).unwrap();
+    let tables =
+        run(&cfg, &RunOptions { out_root: Some(dir.path().join("out")), label: None }).unwrap().run_dir.join("tables");
+    let mut rejects: Vec<(String, &str, String)> = hazardline::tables::read::<hazardline::ingest::Reject>(&tables)
+        .unwrap()
+        .into_iter()
+        .map(|r| (r.entity.unwrap_or_default(), r.reason, r.key))
+        .collect();
+    rejects.sort();
+    assert_eq!(
+        rejects,
+        vec![
+            ("Clash".to_string(), "conflicting_duplicate", "USD senior 5Y".to_string()),
+            ("Clash".to_string(), "conflicting_duplicate", "USD senior 5Y".to_string()),
+        ]
+    );
+    let hz = hazardline::tables::read::<hazardline::tables::HazardCurveRow>(&tables).unwrap();
+    let tiers: Vec<(String, Option<String>, Option<String>, String)> = hz
+        .iter()
+        .map(|h| {
+            (
+                h.entity.to_string(),
+                h.seniority.as_deref().map(str::to_string),
+                h.doc_clause.as_deref().map(str::to_string),
+                h.tenor.to_string(),
+            )
+        })
+        .collect();
+    let s = |v: &str| Some(v.to_string());
+    let mut expected = vec![("Clash".to_string(), s("subordinated"), None, "5Y".to_string())];
+    for (sen, doc) in [
+        ("senior", "modified_restructuring"),
+        ("senior", "no_restructuring"),
+        ("subordinated", "no_restructuring"),
+    ] {
+        for t in ["1Y", "3Y", "5Y"] {
+            expected.push(("Tiered".to_string(), s(sen), s(doc), t.to_string()));
+        }
+    }
+    assert_eq!(tiers, expected, "one curve per tier, in (date, entity, currency, seniority, doc_clause) order");
+    let hazard = |sen: &str, doc: &str| {
+        hz.iter()
+            .find(|h| h.seniority.as_deref() == Some(sen) && h.doc_clause.as_deref() == Some(doc) && &*h.tenor == "5Y")
+            .and_then(|h| h.hazard)
+            .unwrap()
+    };
+    let (senior, sub) = (hazard("senior", "no_restructuring"), hazard("subordinated", "no_restructuring"));
+    assert_eq!(senior, hazard("senior", "modified_restructuring"));
+    let ratio = sub / senior;
+    assert!((ratio / (0.6 / 0.8) - 1.0).abs() < 0.01, "hazard ratio {ratio}");
+    let res = hazardline::tables::read::<hazardline::tables::ResidualRow>(&tables).unwrap();
+    assert_eq!(res.iter().filter(|r| r.seniority.as_deref() == Some("subordinated")).count(), 4);
+}
