@@ -386,6 +386,10 @@ pub struct ConventionsSection {
     pub recovery: Option<f64>,
     /// Recovery by the quotes' `seniority` value. Default: empty.
     pub recovery_by_seniority: Option<BTreeMap<String, f64>>,
+    /// Standard running coupon (bp) by currency: the coupon of a quoted spread without
+    /// `coupon_bp` and of the 5Y contract the sensitivities measure. Default 100 for every
+    /// currency (the standard contract's investment-grade coupon, common practice).
+    pub standard_coupon_bp: Option<BTreeMap<String, f64>>,
     /// Seniorities in order of preference for an entity's reference curve (the tier the
     /// bond basis, the CIR fit and the backtest use when a name is quoted in several tiers on
     /// a date). Default: empty (name order, an absent seniority first).
@@ -423,6 +427,18 @@ pub struct CalibrationSection {
     /// Bond recovery convention: `par` (default, recovery of face), `zero` or `market`
     /// (recovery of market value).
     pub bond_recovery_convention: Option<RecoveryConvention>,
+    /// The curve dates whose curves get the sensitivity shifts (table `sensitivities`):
+    /// `"month_ends"` (default: the last business day of each month), `"off"`, or a list of
+    /// ISO dates.
+    pub sensitivity_dates: Option<SensitivityDatesSetting>,
+}
+
+/// `calibration.sensitivity_dates`: a word or a list of dates.
+#[derive(Debug, Clone, Deserialize, Serialize)]
+#[serde(untagged)]
+pub enum SensitivityDatesSetting {
+    Word(String),
+    Dates(Vec<String>),
 }
 
 /// `[quality]`: thresholds of the data-quality rules (defaults in `QualitySettings`).
@@ -513,6 +529,8 @@ pub struct RunConfig {
     pub recovery: f64,
     pub recovery_by_seniority: BTreeMap<String, f64>,
     pub seniority_order: Vec<String>,
+    pub standard_coupons: BTreeMap<String, f64>,
+    pub sensitivity_dates: crate::stages::calibrate::SensitivityDates,
     pub infeasible: InfeasiblePolicy,
     pub accrual_on_default: AccrualIntegration,
     pub zero_rate_compounding: crate::curves::Compounding,
@@ -791,6 +809,40 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
             ))
         }
     };
+    let mut standard_coupons = BTreeMap::new();
+    for (ccy, v) in c.standard_coupon_bp.clone().unwrap_or_default() {
+        currency_key("conventions.standard_coupon_bp", &ccy)?;
+        if !(v > 0.0 && v < 1e4) {
+            return Err(bad(
+                path,
+                &format!("conventions.standard_coupon_bp.{ccy}"),
+                format!("{v} is not a running coupon in bp between 0 and 10,000"),
+            ));
+        }
+        standard_coupons.insert(ccy, v);
+    }
+    use crate::stages::calibrate::SensitivityDates;
+    let sensitivity_dates = match &file.calibration.sensitivity_dates {
+        None => SensitivityDates::MonthEnds,
+        Some(SensitivityDatesSetting::Word(w)) if w == "month_ends" => SensitivityDates::MonthEnds,
+        Some(SensitivityDatesSetting::Word(w)) if w == "off" => SensitivityDates::Off,
+        Some(SensitivityDatesSetting::Word(w)) => {
+            return Err(bad(
+                path,
+                "calibration.sensitivity_dates",
+                format!("{w:?} is not \"month_ends\", \"off\" or a list of ISO dates"),
+            ))
+        }
+        Some(SensitivityDatesSetting::Dates(list)) => {
+            let mut set = std::collections::BTreeSet::new();
+            for d in list {
+                set.insert(crate::time::parse_iso_date(d).ok_or_else(|| {
+                    bad(path, "calibration.sensitivity_dates", format!("{d:?} is not an ISO date yyyy-mm-dd"))
+                })?);
+            }
+            SensitivityDates::Dates(set)
+        }
+    };
     let mut currency_calendars = BTreeMap::new();
     for (ccy, p) in &file.calendars {
         currency_key("calendars", ccy)?;
@@ -958,6 +1010,8 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         recovery,
         recovery_by_seniority: by_sen,
         seniority_order: c.seniority_order.clone().unwrap_or_default(),
+        standard_coupons,
+        sensitivity_dates,
         infeasible,
         accrual_on_default,
         zero_rate_compounding,

@@ -302,6 +302,9 @@ fn dispatch(command: Command) -> Result<u8> {
                 rate_conventions: Default::default(),
                 rate_calendars: Default::default(),
                 seniority_order: Vec::new(),
+                standard_coupons: Default::default(),
+                // The calibrate command writes no sensitivities table.
+                sensitivity_dates: Default::default(),
             };
             commands::calibrate::run(&CalibrateSettings {
                 inputs: inputs.paths(),

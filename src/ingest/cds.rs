@@ -44,9 +44,13 @@ const C_QUOTED: usize = 9;
 const C_QUOTE_TYPE: usize = 10;
 const C_DOC_CLAUSE: usize = 11;
 
-/// The running coupon of a quoted-spread quote without a `coupon_bp` (bp): the standard
+/// The standard coupon (bp) of a currency the pipeline file does not list: the standard
 /// contract's usual coupon for investment-grade names (common practice, no single source).
-pub const DEFAULT_QUOTED_COUPON_BP: f64 = 100.0;
+pub const DEFAULT_STANDARD_COUPON_BP: f64 = 100.0;
+
+/// `quoted_coupon_bp` of a quoted spread without a `coupon_bp`: its currency's standard
+/// coupon, looked up at calibration (a given coupon must be positive, so 0 is free).
+pub const STANDARD_COUPON: f32 = 0.0;
 
 /// One CDS quote that passed the row rules, with ids into the panel's interners.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -478,8 +482,8 @@ fn parse_row(
     }
     let quoted_coupon_bp = match quoted {
         Some(_) => {
-            let c = coupon.unwrap_or(DEFAULT_QUOTED_COUPON_BP);
-            if !(c > 0.0) {
+            let c = coupon.unwrap_or(f64::from(STANDARD_COUPON));
+            if coupon.is_some() && !(c > 0.0) {
                 return Err(reject(
                     src,
                     row,

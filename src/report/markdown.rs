@@ -200,6 +200,83 @@ fn discount_sources(w: &mut String, tables: &Path) -> Result<()> {
     Ok(())
 }
 
+/// The sensitivity dates as the manifest records them (`month_ends`, `off` or a list).
+fn settings_sensitivity_dates(m: &Manifest) -> String {
+    match m.settings.get("sensitivity_dates") {
+        Some(serde_json::Value::String(s)) => s.clone(),
+        Some(serde_json::Value::Array(a)) => format!("{} listed dates", a.len()),
+        _ => "not recorded".into(),
+    }
+}
+
+/// The median of `v` (NaN when empty).
+fn median_of(mut v: Vec<f64>) -> f64 {
+    if v.is_empty() {
+        return f64::NAN;
+    }
+    v.sort_by(f64::total_cmp);
+    let n = v.len();
+    if n % 2 == 1 {
+        v[n / 2]
+    } else {
+        0.5 * (v[n / 2 - 1] + v[n / 2])
+    }
+}
+
+/// Section 3's sensitivity subsection: per grade, the median change of each measure under
+/// each shift, over the curves of the sensitivity dates (table `sensitivities`).
+fn sensitivity_summary(w: &mut String, rows: &[tables::SensitivityRow], dates: &str) {
+    use crate::calibrate::sensitivity::Shift;
+    if rows.is_empty() {
+        let _ = writeln!(w, "Sensitivities: none computed (sensitivity dates: {}).\n", cell_text(dates));
+        return;
+    }
+    let curves = rows.iter().filter(|r| r.shift == Shift::Base).count();
+    let days: BTreeSet<NaiveDate> = rows.iter().map(|r| r.date).collect();
+    let _ = writeln!(w, "### Sensitivities\n");
+    let _ = writeln!(w, "{curves} curves on {} sensitivity dates ({}) re-bootstrapped with one input or modelling choice changed (every row in `tables/sensitivities.parquet`; the shifts are listed in the method notes). Medians per grade over the curves whose shifted bootstrap is `ok`, in bp: the change of the 1Y PD and of the 5Y hazard, and of the 5Y contract's upfront at the standard coupon (bp of notional; under quotes +1 bp, the CS01).\n", days.len(), cell_text(dates));
+    let shifts = [
+        (Shift::QuotesUp1bp, "quotes +1 bp"),
+        (Shift::RecoveryUp5, "recovery +5 pt"),
+        (Shift::RecoveryDown5, "recovery -5 pt"),
+        (Shift::DiscountUp1bp, "discount +1 bp"),
+        (Shift::AccrualStandard, "accrual `standard`"),
+        (Shift::AccrualExact, "accrual `exact`"),
+    ];
+    let mut grades: BTreeMap<Option<i64>, Vec<&tables::SensitivityRow>> = BTreeMap::new();
+    for r in rows {
+        grades.entry(r.grade).or_default().push(r);
+    }
+    let grade_name = |g: &Option<i64>| g.map_or("no grade".to_string(), |g| g.to_string());
+    let _ = writeln!(w, "| grade | curves | shift | 1Y PD | 5Y hazard | 5Y upfront |\n| --- | ---: | --- | ---: | ---: | ---: |");
+    for (g, rs) in &grades {
+        let n = rs.iter().filter(|r| r.shift == Shift::Base).count();
+        for (shift, name) in shifts {
+            let ok: Vec<&&tables::SensitivityRow> = rs.iter().filter(|r| r.shift == shift && r.status == "ok").collect();
+            if ok.is_empty() {
+                continue;
+            }
+            let med = |f: &dyn Fn(&tables::SensitivityRow) -> Option<f64>| {
+                median_of(ok.iter().filter_map(|r| f(r)).collect()) * 1e4
+            };
+            let _ = writeln!(
+                w,
+                "| {} | {n} | {name} | {:.3} | {:.3} | {:.3} |",
+                grade_name(g),
+                med(&|r| r.pd_1y_change),
+                med(&|r| r.hazard_5y_change),
+                med(&|r| r.upfront_5y_change)
+            );
+        }
+    }
+    let _ = writeln!(w);
+    let other = rows.iter().filter(|r| r.shift == Shift::OtherInfeasiblePolicy).collect::<Vec<_>>();
+    let floored = rows.iter().filter(|r| r.shift == Shift::Base && r.floored_nodes > 0).count();
+    let differ = other.iter().filter(|r| r.status != "ok" || r.hazard_5y_change.is_some_and(|c| c != 0.0)).count();
+    let out_of_range = rows.iter().filter(|r| r.status == "out_of_range").count();
+    let _ = writeln!(w, "Infeasible policy: curves with a node floored at zero hazard: {floored} of {curves}; curves that fail or differ under the other policy: {differ}. Recovery shifts outside [0, 1): {out_of_range}.\n");
+}
+
 /// Renders `report.md` and `charts/*.svg` in `run_dir` from its tables and manifest.
 pub fn render(run_dir: &Path) -> Result<()> {
     render_with(run_dir, None)
@@ -494,6 +571,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         }
         let _ = writeln!(w);
     }
+    sensitivity_summary(w, &read_if_written::<tables::SensitivityRow>(&t)?, &settings_sensitivity_dates(&m));
 
     // Figures.
     let mut figure = 0;
@@ -657,6 +735,7 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         "- Tiers: seniority and documentation clause are part of the curve key. Seniority order for a name's reference tier: {} (unlisted seniorities after the listed ones in name order, an absent seniority first; then the documentation clause in name order).",
         if s.seniority_order.is_empty() { "none listed".to_string() } else { cell_text(&s.seniority_order.join(", ")) }
     );
+    let _ = writeln!(w, "- Sensitivities: each curve of a sensitivity date is bootstrapped again from scratch with one change: every quote +1 bp (a par spread +1 bp; an upfront, a converted quoted spread included, + 1 bp x its contract's risky annuity on the unshifted curve); every recovery +5 and -5 points (refused as `out_of_range` outside [0, 1)); every discount zero rate +1 bp (continuously compounded, each pillar's ln DF - 1e-4 t); the accrual variants `standard` and `exact`; the other infeasible policy. Measures: 1Y PD 1 - S(1Y), 5Y hazard h(5Y), and the clean upfront of the standard 5Y contract at the currency's standard coupon (100 bp unless `conventions.standard_coupon_bp` lists one), per unit notional.");
     let _ = writeln!(w, "- Data-quality thresholds in force: spread floor {} bp and cap {} bp; zero-rate band {}; bond price band {}; stale after {} unchanged business days; spike when the robust z-score (median and 1.4826 x MAD of the series' daily log changes) exceeds {} with a log move above {} reverting by at least {} the next day; unit slip when {} or more consecutive quotes sit {} times above or below the series median or the median of the 10 quotes on each side; fewer than {} tenors flags a curve (common practice, no single source).",
         q.min_spread_bp.as_ref().map_or_else(|| "(not recorded)".to_string(), |v| v.to_string()),
         q.max_spread_bp,

@@ -162,6 +162,7 @@ fn combine(parts: Vec<Partition>) -> Result<Partition> {
         }
         join(&mut all.params, &mut p.params);
         join(&mut all.basis, &mut p.basis);
+        join(&mut all.sensitivities, &mut p.sensitivities);
         join(&mut all.discount, &mut p.discount);
         join(&mut all.rejects, &mut p.rejects);
         all.curve_obs.append(std::mem::take(&mut p.curve_obs));
@@ -190,6 +191,7 @@ fn combine(parts: Vec<Partition>) -> Result<Partition> {
     // The node and residual rows are put in order by the sinks they go to.
     all.params.sort_by(|a, b| (a.date, &a.entity, &a.currency).cmp(&(b.date, &b.entity, &b.currency)));
     all.basis.sort_by(|a, b| (a.date, &a.entity, &a.currency).cmp(&(b.date, &b.entity, &b.currency)));
+    crate::tables::sort_sensitivities(&mut all.sensitivities);
     all.rejects.sort_by(|a, b| (a.table, &a.source, a.row).cmp(&(b.table, &b.source, b.row)));
     Ok(all)
 }

@@ -104,7 +104,7 @@ fn counts_records(stage: &str, counts: &[TableCounts]) -> Vec<CountRecord> {
 
 /// Every table a run writes. `intensity_params` and `cds_bond_basis` are always written, empty
 /// (with their schema) when the CIR or bond fit is off, so consumers find the same files.
-pub const TABLES: [&str; 25] = [
+pub const TABLES: [&str; 26] = [
     DataQualityRow::NAME,
     Reject::NAME,
     DiscountCurveRow::NAME,
@@ -112,6 +112,7 @@ pub const TABLES: [&str; 25] = [
     ResidualRow::NAME,
     IntensityParamRow::NAME,
     BasisRow::NAME,
+    SensitivityRow::NAME,
     MemberRecord::NAME,
     BucketRecord::NAME,
     HosmerLemeshowRecord::NAME,
@@ -145,6 +146,8 @@ fn calibration_params(cfg: &RunConfig) -> CalibrationParams {
         rate_conventions: cfg.rate_conventions.clone(),
         rate_calendars: cfg.currency_calendars.clone(),
         seniority_order: cfg.seniority_order.clone(),
+        standard_coupons: cfg.standard_coupons.clone(),
+        sensitivity_dates: cfg.sensitivity_dates.clone(),
     }
 }
 
@@ -523,6 +526,7 @@ fn finish(
     crate::tables::write(&cal.discount, &tables, &meta)?;
     crate::tables::write(&cal.params, &tables, &meta)?;
     crate::tables::write(&cal.basis, &tables, &meta)?;
+    crate::tables::write(&cal.sensitivities, &tables, &meta)?;
     write_backtest_tables(&backtest, &tables, &meta)?;
     write_stability_tables(&stability, &tables, &meta)?;
     let mut all_flags: Vec<FlagRecord> = ds.flags.iter().map(FlagRecord::quality).collect();

@@ -180,6 +180,7 @@ pub fn write_partition(
     sinks.finish(std::mem::take(&mut part.hazard), std::mem::take(&mut part.residuals))?;
     tables::write(&part.params, &work, none)?;
     tables::write(&part.basis, &work, none)?;
+    tables::write(&part.sensitivities, &work, none)?;
     tables::write(&part.discount, &work, none)?;
     tables::write(&part.rejects, &work, none)?;
     tables::parts::write_series(&part.curve_obs, &work)?;
@@ -400,6 +401,7 @@ pub fn read_partition(dir: &Path) -> Result<(PartitionMeta, Partition)> {
     let mut part = Partition {
         params: tables::read(dir)?,
         basis: tables::read(dir)?,
+        sensitivities: tables::read(dir)?,
         discount: tables::read(dir)?,
         rejects: tables::read(dir)?,
         market: tables::read(dir)?,

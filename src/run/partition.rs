@@ -44,6 +44,8 @@ pub struct Partition {
     pub residuals: Vec<ResidualRow>,
     pub params: Vec<IntensityParamRow>,
     pub basis: Vec<BasisRow>,
+    /// The sensitivity rows of the part's curves (in the table's order after the merge).
+    pub sensitivities: Vec<SensitivityRow>,
     pub discount: Vec<DiscountCurveRow>,
     /// Rows the calibration stages rejected.
     pub rejects: Vec<Reject>,
@@ -164,18 +166,24 @@ pub fn compute_partition(
     let mut series = CurveSeries::new(&grades, multi);
     let mut coverage = CurveCoverage::default();
     let mut kept = BTreeMap::new();
+    let mut sensitivities: Vec<SensitivityRow> = Vec::new();
     let mut cal = if cfg.cds_bootstrap {
         // Calibration (on rayon's threads) and the handling of its finished blocks (writing,
         // digest, series: serial work) overlap: a second thread takes each block from a channel
         // that holds one, so at most three blocks are alive at once.
         let (tx, rx) = std::sync::mpsc::sync_channel::<crate::stages::calibrate::CurveBlock>(1);
-        let (series, coverage, kept) = (&mut series, &mut coverage, &mut kept);
+        let (series, coverage, kept, sensitivities, grades) =
+            (&mut series, &mut coverage, &mut kept, &mut sensitivities, &grades);
         let (serves, for_fits, range) = (&serves, &for_fits, scope.range);
         std::thread::scope(|threads| {
             let consumer = threads.spawn(move || -> Result<()> {
                 for block in rx {
                     sinks.nodes(block.hazard)?;
                     sinks.residual_rows(block.residuals)?;
+                    for mut r in block.sensitivities {
+                        r.grade = grades.grade(&r.entity, r.date).map(i64::from);
+                        sensitivities.push(r);
+                    }
                     for c in block.curves {
                         let (key, curve) = (c.key, c.curve);
                         if range.contains(key.0) {
@@ -231,6 +239,7 @@ pub fn compute_partition(
         residuals: std::mem::take(&mut fits.residuals),
         params: std::mem::take(&mut fits.params),
         basis: std::mem::take(&mut fits.basis),
+        sensitivities,
         discount: discount_rows,
         rejects,
         curve_obs,

@@ -18,7 +18,7 @@ use crate::ingest::discount::{self, DiscountRow};
 use crate::ingest::{QualitySettings, Reject};
 use crate::instruments::AccrualIntegration;
 use crate::instruments::CdsQuote;
-use crate::tables::DiscountCurveRow;
+use crate::tables::{DiscountCurveRow, SensitivityRow};
 use crate::tables::{tenor_label, HazardCurveRow, Label, ResidualRow};
 use crate::text::{CurveSource, FitMethod, RowStatus};
 use crate::time::{Calendar, Tenor};
@@ -45,6 +45,65 @@ pub struct CalibrationParams {
     /// Seniorities in order of preference for the reference curve of an entity and date (see
     /// [`BlockCurve::reference`]); unlisted ones follow in name order.
     pub seniority_order: Vec<String>,
+    /// Standard running coupon (bp) by currency; others take
+    /// [`cds::DEFAULT_STANDARD_COUPON_BP`].
+    pub standard_coupons: BTreeMap<String, f64>,
+    /// The curve dates that get the sensitivity shifts.
+    pub sensitivity_dates: SensitivityDates,
+}
+
+impl CalibrationParams {
+    /// The standard running coupon (bp) of `currency`.
+    pub fn standard_coupon_bp(&self, currency: &str) -> f64 {
+        self.standard_coupons.get(currency).copied().unwrap_or(cds::DEFAULT_STANDARD_COUPON_BP)
+    }
+}
+
+/// Which curve dates get the shifts of `calibrate::sensitivity` (table `sensitivities`).
+#[derive(Debug, Clone, Default, PartialEq)]
+pub enum SensitivityDates {
+    /// None.
+    #[default]
+    Off,
+    /// The last business day of each month (the run's calendar).
+    MonthEnds,
+    /// The dates listed.
+    Dates(std::collections::BTreeSet<NaiveDate>),
+}
+
+/// Recorded as the pipeline file writes it: `"month_ends"`, `"off"` or the list of dates.
+impl serde::Serialize for SensitivityDates {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> std::result::Result<S::Ok, S::Error> {
+        match self {
+            SensitivityDates::Off => s.serialize_str("off"),
+            SensitivityDates::MonthEnds => s.serialize_str("month_ends"),
+            SensitivityDates::Dates(d) => s.collect_seq(d.iter().map(|d| d.to_string())),
+        }
+    }
+}
+
+impl SensitivityDates {
+    pub fn contains(&self, d: NaiveDate, cal: &Calendar) -> bool {
+        match self {
+            SensitivityDates::Off => false,
+            SensitivityDates::Dates(s) => s.contains(&d),
+            SensitivityDates::MonthEnds => {
+                if !cal.is_business_day(d) {
+                    return false;
+                }
+                let mut n = d;
+                loop {
+                    match n.succ_opt() {
+                        Some(x) => n = x,
+                        None => return true,
+                    }
+                    if cal.is_business_day(n) {
+                        return chrono::Datelike::month(&n) != chrono::Datelike::month(&d);
+                    }
+                }
+            }
+        }
+    }
 }
 
 /// Tables and counts produced by calibrating a dataset.
@@ -97,6 +156,7 @@ struct CurveOutput {
     rejects: Vec<Reject>,
     used: usize,
     fit: Option<BlockCurve>,
+    sensitivities: Vec<SensitivityRow>,
 }
 
 /// Builds discount curves per (date, currency); the rows of a curve that cannot be built are
@@ -257,7 +317,11 @@ fn calibrate_one(
             let recovery = recovery_of(panel, r, s);
             let quote = match r.quote {
                 CdsQuote::ParSpread(spread) if r.is_quoted_spread() => {
-                    let coupon = f64::from(r.quoted_coupon_bp) / 1e4;
+                    let coupon = if r.quoted_coupon_bp == cds::STANDARD_COUPON {
+                        s.standard_coupon_bp(currency) / 1e4
+                    } else {
+                        f64::from(r.quoted_coupon_bp) / 1e4
+                    };
                     let upfront = match crate::instruments::CdsContract::standard(date, r.tenor, &s.calendar) {
                         Err(e) => Err(format!("the {} contract: {e}", r.tenor)),
                         Ok(c) => crate::instruments::cds::quoted_spread::to_upfront(
@@ -294,7 +358,14 @@ fn calibrate_one(
             .iter()
             .map(|r| panel.reject(r, "curve_not_built", format!("{curve_text}: {why}")))
             .collect();
-        return CurveOutput { hazard: Vec::new(), residuals: Vec::new(), rejects, used: 0, fit: None };
+        return CurveOutput {
+            hazard: Vec::new(),
+            residuals: Vec::new(),
+            rejects,
+            used: 0,
+            fit: None,
+            sensitivities: Vec::new(),
+        };
     }
     // The shared plan of this (date, currency, tenor set) when there is one; the plain
     // bootstrap otherwise (same numbers, the plan built for this curve alone).
@@ -310,7 +381,14 @@ fn calibrate_one(
                 .iter()
                 .map(|r| panel.reject(r, "curve_not_built", format!("{curve_text}: {e}")))
                 .collect();
-            return CurveOutput { hazard: Vec::new(), residuals: Vec::new(), rejects, used: 0, fit: None };
+            return CurveOutput {
+            hazard: Vec::new(),
+            residuals: Vec::new(),
+            rejects,
+            used: 0,
+            fit: None,
+            sensitivities: Vec::new(),
+        };
         }
     };
     let shared = match plan {
@@ -363,15 +441,69 @@ fn calibrate_one(
                 .map_or(RowStatus::Ok, |n| n.status.into()),
         })
         .collect();
+    let sensitivities = if s.sensitivity_dates.contains(date, &s.calendar) {
+        sensitivity_rows(panel, &h, &quotes, curve, s)
+    } else {
+        Vec::new()
+    };
     let curve = if fit.complete() && !fit.failed { fit.curve.clone() } else { None };
     let key = (date, entity.to_string(), currency.to_string());
     CurveOutput {
         hazard,
         residuals,
         rejects: Vec::new(),
+        sensitivities,
         used: rows.len(),
         fit: Some(BlockCurve { key, tier: panel.tiers.label(h.tier), reference, curve: CdsCurve { quotes, curve } }),
     }
+}
+
+/// The rows of `sensitivities` for one curve: every shift of `calibrate::sensitivity`, with
+/// its change from the base row.
+fn sensitivity_rows(
+    panel: &CdsPanel,
+    h: &CdsQuoteRow,
+    quotes: &[BootstrapQuote],
+    discount: &DiscountCurve,
+    s: &CalibrationParams,
+) -> Vec<SensitivityRow> {
+    use crate::calibrate::sensitivity::{curve_sensitivities, CurveInputs};
+    let currency = panel.currencies.name(h.currency);
+    let coupon_bp = s.standard_coupon_bp(currency);
+    let results = curve_sensitivities(&CurveInputs {
+        trade_date: h.date,
+        quotes,
+        discount,
+        calendar: &s.calendar,
+        settings: &s.bootstrap,
+        coupon: coupon_bp / 1e4,
+    });
+    let base = results.first().and_then(|r| r.measures);
+    let change = |m: Option<f64>, b: Option<f64>| m.zip(b).map(|(m, b)| m - b);
+    results
+        .into_iter()
+        .map(|r| {
+            let m = r.measures;
+            SensitivityRow {
+                date: h.date,
+                entity: panel.entities.name(h.entity).to_string(),
+                currency: currency.to_string(),
+                seniority: panel.tiers.seniority(h.tier).map(str::to_string),
+                doc_clause: panel.tiers.doc_clause(h.tier).map(str::to_string),
+                grade: None,
+                shift: r.shift,
+                status: r.status.to_string(),
+                coupon_bp,
+                pd_1y: m.map(|m| m.pd_1y),
+                hazard_5y: m.map(|m| m.hazard_5y),
+                upfront_5y: m.map(|m| m.upfront_5y),
+                pd_1y_change: change(m.map(|m| m.pd_1y), base.map(|b| b.pd_1y)),
+                hazard_5y_change: change(m.map(|m| m.hazard_5y), base.map(|b| b.hazard_5y)),
+                upfront_5y_change: change(m.map(|m| m.upfront_5y), base.map(|b| b.upfront_5y)),
+                floored_nodes: r.floored_nodes as i64,
+            }
+        })
+        .collect()
 }
 
 /// Whether each job (a curve's rows, by its first row) is its entity's reference curve on its
@@ -412,6 +544,8 @@ pub struct CurveBlock {
     pub hazard: Vec<HazardCurveRow>,
     pub residuals: Vec<ResidualRow>,
     pub curves: Vec<BlockCurve>,
+    /// The shifts of the block's curves on the sensitivity dates (grade not yet set).
+    pub sensitivities: Vec<SensitivityRow>,
 }
 
 /// Calibrates every curve of the dataset's CDS panel and keeps every row and curve in the
@@ -544,6 +678,7 @@ pub fn calibrate_blocks(
                             .collect(),
                         used: 0,
                         fit: None,
+                        sensitivities: Vec::new(),
                     },
                 };
                 progress.inc(1);
@@ -573,6 +708,7 @@ pub fn calibrate_blocks(
                 }
             }
             block.residuals.extend(o.residuals);
+            block.sensitivities.extend(o.sensitivities);
             out.rejects.extend(o.rejects);
             block.curves.extend(o.fit);
         }

@@ -7,6 +7,7 @@
 //! - `residuals`: `calibration_residuals`;
 //! - `inputs`: `rejects` and `data_quality`, the accounting of the input rows;
 //! - `fits`: `intensity_params` and `cds_bond_basis`;
+//! - `sensitivities`: `sensitivities`, the shifts of the curves on the sensitivity dates;
 //! - `backtest`: `backtest_buckets`, `backtest_hosmer_lemeshow`, `backtest_history`,
 //!   `risk_premia`;
 //! - `review`: `stability`, `stability_bands`, `stability_psi`, `stability_breaks`,
@@ -33,6 +34,7 @@ pub mod parts;
 pub mod readback;
 pub mod residuals;
 pub mod review;
+pub mod sensitivities;
 
 pub use backtest::{BucketRecord, DiscriminationRecord, HosmerLemeshowRecord, TermStructureRecord};
 pub use curves::{
@@ -40,6 +42,7 @@ pub use curves::{
 };
 pub use fits::{BasisRow, IntensityParamRow};
 pub use flags::FlagRecord;
+pub use sensitivities::{sort_sensitivities, SensitivityRow};
 pub use residuals::{residual_table, residual_writer, sort_residuals, write_residuals, ResidualRow};
 
 use crate::error::{Error, Result};

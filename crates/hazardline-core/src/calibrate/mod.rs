@@ -4,6 +4,7 @@ pub mod bond_fit;
 pub mod bootstrap;
 pub mod cir;
 pub mod residuals;
+pub mod sensitivity;
 
 pub use bootstrap::{
     bootstrap, BootstrapError, BootstrapQuote, BootstrapSettings, CurveFit, InfeasiblePolicy, NodeFit, NodeStatus,
