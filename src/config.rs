@@ -530,7 +530,7 @@ pub struct RunConfig {
     pub recovery_by_seniority: BTreeMap<String, f64>,
     pub seniority_order: Vec<String>,
     pub standard_coupons: BTreeMap<String, f64>,
-    pub sensitivity_dates: crate::stages::calibrate::SensitivityDates,
+    pub sensitivity_dates: crate::calibrate::sensitivity::SensitivityDates,
     pub infeasible: InfeasiblePolicy,
     pub accrual_on_default: AccrualIntegration,
     pub zero_rate_compounding: crate::curves::Compounding,
@@ -821,7 +821,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         }
         standard_coupons.insert(ccy, v);
     }
-    use crate::stages::calibrate::SensitivityDates;
+    use crate::calibrate::sensitivity::SensitivityDates;
     let sensitivity_dates = match &file.calibration.sensitivity_dates {
         None => SensitivityDates::MonthEnds,
         Some(SensitivityDatesSetting::Word(w)) if w == "month_ends" => SensitivityDates::MonthEnds,

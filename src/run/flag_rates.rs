@@ -21,7 +21,7 @@ use crate::error::Result;
 use crate::report::flag_notes::{TARGET_AMBER, TARGET_RED};
 use crate::run::{run, RunOptions};
 use crate::sim::{generate, Instability, ScenarioSpec};
-use crate::stages::universe::write_scenario;
+use crate::stages::universe::write_scenario_tiers;
 use crate::tables::readback::{read_frame, strs};
 use std::collections::{BTreeMap, BTreeSet};
 use std::fmt::Write as _;
@@ -109,7 +109,7 @@ fn run_universe(
     spec: &ScenarioSpec,
 ) -> Result<(crate::sim::Scenario, std::path::PathBuf, crate::stability::StabilitySettings)> {
     let s = generate(spec);
-    write_scenario(dir, &s)?;
+    write_scenario_tiers(dir, &s, false)?;
     let cfg = load_pipeline(&dir.join("pipeline.toml"))?;
     let summary = run(&cfg, &RunOptions { out_root: Some(dir.join("reports")), label: Some("flag-rates".into()) })?;
     Ok((s, summary.run_dir.join("tables"), cfg.stability.clone()))

@@ -251,7 +251,8 @@ pub fn merge_part_rows(
     sinks: &mut RowSinks,
 ) -> Result<(Vec<HazardCurveRow>, Vec<ResidualRow>)> {
     let mut tallies: Vec<CurveTally> = dirs.iter().map(|_| CurveTally::default()).collect();
-    let mut open: Vec<Option<((NaiveDate, tables::Label, tables::Label), bool)>> = vec![None; dirs.len()];
+    type CurveKey = (NaiveDate, tables::Label, tables::Label, Option<tables::Label>, Option<tables::Label>);
+    let mut open: Vec<Option<(CurveKey, bool)>> = vec![None; dirs.len()];
     let cursors = dirs
         .iter()
         .map(|d| readback::cursor::<HazardCurveRow>(&file_of::<HazardCurveRow>(d)))
@@ -259,9 +260,9 @@ pub fn merge_part_rows(
     let hazard = merge_sorted(
         cursors,
         |r| r.source == CurveSource::Cds,
-        |r| (r.date, r.entity.clone(), r.currency.clone()),
+        |r| (r.date, r.entity.clone(), r.currency.clone(), r.seniority.clone(), r.doc_clause.clone()),
         |i, r| {
-            let key = (r.date, r.entity.clone(), r.currency.clone());
+            let key = (r.date, r.entity.clone(), r.currency.clone(), r.seniority.clone(), r.doc_clause.clone());
             let ok = r.status == RowStatus::Ok;
             match &mut open[i] {
                 Some((k, all_ok)) if *k == key => *all_ok &= ok,
@@ -287,7 +288,7 @@ pub fn merge_part_rows(
     let residuals = merge_sorted(
         cursors,
         |r| r.method == FitMethod::Bootstrap,
-        |r| (r.date, r.entity.clone(), r.currency.clone()),
+        |r| (r.date, r.entity.clone(), r.currency.clone(), r.seniority.clone(), r.doc_clause.clone()),
         |i, r| {
             if r.status == RowStatus::Ok {
                 tallies[i].max_abs_residual_bp = tallies[i].max_abs_residual_bp.max(r.residual_bp.abs());

@@ -90,10 +90,17 @@ pub fn write_demo(out: &Path, spec: &ScenarioSpec) -> Result<DemoSummary> {
     write_scenario(out, &generate(spec))
 }
 
-/// Writes an already generated universe under `out`.
+/// Writes an already generated universe under `out`, with the second tier of a few names
+/// ([`write_second_tier`]).
 pub fn write_scenario(out: &Path, s: &Scenario) -> Result<DemoSummary> {
+    write_scenario_tiers(out, s, true)
+}
+
+/// [`write_scenario`], the second tier written or not (the flag-rate universes have one tier:
+/// one series per name).
+pub fn write_scenario_tiers(out: &Path, s: &Scenario, second_tier: bool) -> Result<DemoSummary> {
     let mut w = Writer { root: out.to_path_buf(), files: Vec::new() };
-    write_inputs(&mut w, s)?;
+    write_inputs(&mut w, s, second_tier)?;
     write_truth(&mut w, s)?;
     w.text("pipeline.toml", &pipeline_file(s))?;
     Ok(DemoSummary {
@@ -106,7 +113,7 @@ pub fn write_scenario(out: &Path, s: &Scenario) -> Result<DemoSummary> {
     })
 }
 
-fn write_inputs(w: &mut Writer, s: &Scenario) -> Result<()> {
+fn write_inputs(w: &mut Writer, s: &Scenario, second_tier: bool) -> Result<()> {
     let name = |e: usize| s.entities[e].entity.as_str();
     // cds_quotes: one Parquet file per year, and the hand-typed CSV.
     let mut by_file: BTreeMap<QuoteFile, Vec<usize>> = BTreeMap::new();
@@ -153,7 +160,9 @@ fn write_inputs(w: &mut Writer, s: &Scenario) -> Result<()> {
             }
         }
     }
-    write_second_tier(w, s)?;
+    if second_tier {
+        write_second_tier(w, s)?;
+    }
     // Discount curves: zero rates by tenor, except for the currencies whose curves are given
     // as the deposit and swap quotes they imply (the standard curve, rebuilt by the run).
     let d: Vec<&(NaiveDate, &str, u32, f64)> =

@@ -218,6 +218,53 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
     out
 }
 
+/// Which curve dates get the shifts (the run's table `sensitivities`).
+#[derive(Debug, Clone, Default, PartialEq)]
+pub enum SensitivityDates {
+    /// None.
+    #[default]
+    Off,
+    /// The last business day of each month (the run's calendar).
+    MonthEnds,
+    /// The dates listed.
+    Dates(std::collections::BTreeSet<NaiveDate>),
+}
+
+/// Recorded as the pipeline file writes it: `"month_ends"`, `"off"` or the list of dates.
+impl serde::Serialize for SensitivityDates {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> std::result::Result<S::Ok, S::Error> {
+        match self {
+            SensitivityDates::Off => s.serialize_str("off"),
+            SensitivityDates::MonthEnds => s.serialize_str("month_ends"),
+            SensitivityDates::Dates(d) => s.collect_seq(d.iter().map(|d| d.to_string())),
+        }
+    }
+}
+
+impl SensitivityDates {
+    pub fn contains(&self, d: NaiveDate, cal: &Calendar) -> bool {
+        match self {
+            SensitivityDates::Off => false,
+            SensitivityDates::Dates(s) => s.contains(&d),
+            SensitivityDates::MonthEnds => {
+                if !cal.is_business_day(d) {
+                    return false;
+                }
+                let mut n = d;
+                loop {
+                    match n.succ_opt() {
+                        Some(x) => n = x,
+                        None => return true,
+                    }
+                    if cal.is_business_day(n) {
+                        return chrono::Datelike::month(&n) != chrono::Datelike::month(&d);
+                    }
+                }
+            }
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
