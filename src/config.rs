@@ -431,6 +431,9 @@ pub struct CalibrationSection {
     /// `"month_ends"` (default: the last business day of each month), `"off"`, or a list of
     /// ISO dates.
     pub sensitivity_dates: Option<SensitivityDatesSetting>,
+    /// Convert every calibrated quote to par spread, upfront at the standard coupon and quoted
+    /// spread (columns of `calibration_residuals`, table `cds_quote_conversions`). Default true.
+    pub quote_conversions: Option<bool>,
 }
 
 /// `calibration.sensitivity_dates`: a word or a list of dates.
@@ -531,6 +534,7 @@ pub struct RunConfig {
     pub seniority_order: Vec<String>,
     pub standard_coupons: BTreeMap<String, f64>,
     pub sensitivity_dates: crate::calibrate::sensitivity::SensitivityDates,
+    pub quote_conversions: bool,
     pub infeasible: InfeasiblePolicy,
     pub accrual_on_default: AccrualIntegration,
     pub zero_rate_compounding: crate::curves::Compounding,
@@ -1012,6 +1016,7 @@ pub fn check(file: PipelineFile, path: &Path) -> Result<RunConfig> {
         seniority_order: c.seniority_order.clone().unwrap_or_default(),
         standard_coupons,
         sensitivity_dates,
+        quote_conversions: file.calibration.quote_conversions.unwrap_or(true),
         infeasible,
         accrual_on_default,
         zero_rate_compounding,

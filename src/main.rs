@@ -305,6 +305,8 @@ fn dispatch(command: Command) -> Result<u8> {
                 standard_coupons: Default::default(),
                 // The calibrate command writes no sensitivities table.
                 sensitivity_dates: Default::default(),
+                // Nor the quote conversions: the command is the bootstrap's own benchmark.
+                quote_conversions: false,
             };
             commands::calibrate::run(&CalibrateSettings {
                 inputs: inputs.paths(),

@@ -44,13 +44,8 @@ pub(super) struct CdsNodes {
 }
 
 /// A CDS curve: (date, entity, currency, seniority, doc_clause).
-pub(super) type CurveId = (
-    NaiveDate,
-    crate::tables::Label,
-    crate::tables::Label,
-    Option<crate::tables::Label>,
-    Option<crate::tables::Label>,
-);
+pub(super) type CurveId =
+    (NaiveDate, crate::tables::Label, crate::tables::Label, Option<crate::tables::Label>, Option<crate::tables::Label>);
 
 fn same_label(a: &crate::tables::Label, b: &crate::tables::Label) -> bool {
     std::sync::Arc::ptr_eq(a, b) || a == b
@@ -250,6 +245,9 @@ pub(super) struct Residuals {
     /// log10 |residual| of every finite bootstrap residual, for the histogram.
     pub(super) logs: Vec<f64>,
     pub(super) bond: Vec<crate::tables::ResidualRow>,
+    /// Per quote type of the converted bootstrap quotes: quotes, those without a quoted
+    /// spread, the sum and the largest of |quoted spread - par spread| in bp.
+    pub(super) quote_types: BTreeMap<&'static str, (usize, usize, f64, f64)>,
 }
 
 fn worst_first(a: &crate::tables::ResidualRow, b: &crate::tables::ResidualRow) -> std::cmp::Ordering {
@@ -283,6 +281,18 @@ impl Residuals {
                     continue;
                 }
                 FitMethod::Cir => continue,
+            }
+            if let Some(c) = &r.conversion {
+                let e = self.quote_types.entry(c.quote_type).or_insert((0, 0, 0.0, 0.0));
+                e.0 += 1;
+                match c.quoted_spread_bp {
+                    Some(q) => {
+                        let d = (q - c.par_spread_bp).abs();
+                        e.2 += d;
+                        e.3 = e.3.max(d);
+                    }
+                    None => e.1 += 1,
+                }
             }
             if r.status == RowStatus::Ok {
                 self.ok += 1;

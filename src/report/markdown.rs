@@ -248,11 +248,15 @@ fn sensitivity_summary(w: &mut String, rows: &[tables::SensitivityRow], dates: &
         grades.entry(r.grade).or_default().push(r);
     }
     let grade_name = |g: &Option<i64>| g.map_or("no grade".to_string(), |g| g.to_string());
-    let _ = writeln!(w, "| grade | curves | shift | 1Y PD | 5Y hazard | 5Y upfront |\n| --- | ---: | --- | ---: | ---: | ---: |");
+    let _ = writeln!(
+        w,
+        "| grade | curves | shift | 1Y PD | 5Y hazard | 5Y upfront |\n| --- | ---: | --- | ---: | ---: | ---: |"
+    );
     for (g, rs) in &grades {
         let n = rs.iter().filter(|r| r.shift == Shift::Base).count();
         for (shift, name) in shifts {
-            let ok: Vec<&&tables::SensitivityRow> = rs.iter().filter(|r| r.shift == shift && r.status == "ok").collect();
+            let ok: Vec<&&tables::SensitivityRow> =
+                rs.iter().filter(|r| r.shift == shift && r.status == "ok").collect();
             if ok.is_empty() {
                 continue;
             }
@@ -568,6 +572,21 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
                 h.status.as_str(),
                 h.detail.clone().unwrap_or_default().replace('|', "/")
             );
+        }
+        let _ = writeln!(w);
+    }
+    if !rs.quote_types.is_empty() {
+        let conversions = if t.join("cds_quote_conversions").is_dir() {
+            "tables/cds_quote_conversions/"
+        } else {
+            "tables/cds_quote_conversions.parquet"
+        };
+        let _ = writeln!(w, "Every calibrated quote in the three conventions (`{conversions}`: the par spread and the upfront at the currency's standard coupon on its curve, and the quoted spread, the par spread of the flat hazard that gives that upfront), by the type it was quoted as; the quoted spread differs from the par spread as far as the curve is from flat:\n");
+        let _ = writeln!(w, "| quoted as | quotes | mean abs quoted - par spread (bp) | largest (bp) | no flat hazard |\n| --- | ---: | ---: | ---: | ---: |");
+        for (kind, (n, none, sum, max)) in &rs.quote_types {
+            let with = n - none;
+            let mean = if with > 0 { format!("{:.3}", sum / with as f64) } else { "-".into() };
+            let _ = writeln!(w, "| `{kind}` | {n} | {mean} | {max:.3} | {none} |");
         }
         let _ = writeln!(w);
     }

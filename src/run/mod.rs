@@ -104,12 +104,13 @@ fn counts_records(stage: &str, counts: &[TableCounts]) -> Vec<CountRecord> {
 
 /// Every table a run writes. `intensity_params` and `cds_bond_basis` are always written, empty
 /// (with their schema) when the CIR or bond fit is off, so consumers find the same files.
-pub const TABLES: [&str; 26] = [
+pub const TABLES: [&str; 27] = [
     DataQualityRow::NAME,
     Reject::NAME,
     DiscountCurveRow::NAME,
     HazardCurveRow::NAME,
     ResidualRow::NAME,
+    QuoteConversionRow::NAME,
     IntensityParamRow::NAME,
     BasisRow::NAME,
     SensitivityRow::NAME,
@@ -148,6 +149,7 @@ fn calibration_params(cfg: &RunConfig) -> CalibrationParams {
         seniority_order: cfg.seniority_order.clone(),
         standard_coupons: cfg.standard_coupons.clone(),
         sensitivity_dates: cfg.sensitivity_dates.clone(),
+        quote_conversions: cfg.quote_conversions,
     }
 }
 

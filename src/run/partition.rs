@@ -86,6 +86,8 @@ pub type ReportFolds = (NodeFold, ResidualFold);
 pub struct RowSinks<'a> {
     hazard: WriterThread<HazardCurveRow, Option<NodeFold>>,
     residuals: WriterThread<ResidualRow, Option<ResidualFold>>,
+    /// `cds_quote_conversions`: the conversions the residual rows carry.
+    conversions: WriterThread<QuoteConversionRow>,
     /// None for a shard's part: the merge digests the rows it reads back.
     digest: Option<RowDigest<'a>>,
 }
@@ -105,7 +107,8 @@ impl<'a> RowSinks<'a> {
         let (nodes, residuals) = report.map_or((None, None), |(a, b)| (Some(a), Some(b)));
         let hazard = WriterThread::spawn(hazard_table(dir, meta, split)?, nodes);
         let residuals = WriterThread::spawn(residual_table(dir, meta, split)?, residuals);
-        Ok(RowSinks { hazard, residuals, digest })
+        let conversions = WriterThread::spawn(conversion_table(dir, meta, split)?, ());
+        Ok(RowSinks { hazard, residuals, conversions, digest })
     }
 
     /// Node rows, in the table's order, after those already given.
@@ -121,6 +124,10 @@ impl<'a> RowSinks<'a> {
         if let Some(d) = &mut self.digest {
             d.residuals(&rows);
         }
+        let conversions: Vec<QuoteConversionRow> = rows.iter().filter_map(QuoteConversionRow::of).collect();
+        if !conversions.is_empty() {
+            self.conversions.push(conversions)?;
+        }
         self.residuals.push(rows)
     }
 
@@ -135,9 +142,10 @@ impl<'a> RowSinks<'a> {
         sort_residuals(&mut residuals);
         self.nodes(hazard)?;
         self.residual_rows(residuals)?;
-        let RowSinks { hazard, residuals, digest } = self;
+        let RowSinks { hazard, residuals, conversions, digest } = self;
         let (_, nodes) = hazard.finish()?;
         let (_, residuals) = residuals.finish()?;
+        conversions.finish()?;
         Ok((digest, nodes.zip(residuals)))
     }
 }

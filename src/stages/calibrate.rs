@@ -18,8 +18,8 @@ use crate::ingest::discount::{self, DiscountRow};
 use crate::ingest::{QualitySettings, Reject};
 use crate::instruments::AccrualIntegration;
 use crate::instruments::CdsQuote;
-use crate::tables::{DiscountCurveRow, SensitivityRow};
 use crate::tables::{tenor_label, HazardCurveRow, Label, ResidualRow};
+use crate::tables::{DiscountCurveRow, SensitivityRow};
 use crate::text::{CurveSource, FitMethod, RowStatus};
 use crate::time::{Calendar, Tenor};
 use chrono::NaiveDate;
@@ -50,7 +50,13 @@ pub struct CalibrationParams {
     pub standard_coupons: BTreeMap<String, f64>,
     /// The curve dates that get the sensitivity shifts.
     pub sensitivity_dates: SensitivityDates,
+    /// Convert every calibrated quote to the three conventions (`ResidualRow::conversion`).
+    pub quote_conversions: bool,
 }
+
+/// Single-tenor plans per (date, currency, tenor): the flat-hazard solves of the quoted spreads.
+type SinglePlans =
+    std::collections::HashMap<(NaiveDate, u32, Tenor), std::result::Result<BootstrapPlan, BootstrapError>>;
 
 impl CalibrationParams {
     /// The standard running coupon (bp) of `currency`.
@@ -259,6 +265,7 @@ fn calibrate_one(
     plan: Option<&std::result::Result<BootstrapPlan, BootstrapError>>,
     s: &CalibrationParams,
     reference: bool,
+    single: Option<&SinglePlans>,
 ) -> CurveOutput {
     let h = rows[0];
     let (date, entity, currency) = (h.date, panel.entities.name(h.entity), panel.currencies.name(h.currency));
@@ -309,10 +316,7 @@ fn calibrate_one(
         })
         .collect();
     if let Some(why) = unconverted {
-        let rejects = rows
-            .iter()
-            .map(|r| panel.reject(r, "curve_not_built", format!("{curve_text}: {why}")))
-            .collect();
+        let rejects = rows.iter().map(|r| panel.reject(r, "curve_not_built", format!("{curve_text}: {why}"))).collect();
         return CurveOutput {
             hazard: Vec::new(),
             residuals: Vec::new(),
@@ -332,18 +336,16 @@ fn calibrate_one(
     let fit = match fitted {
         Ok(f) => f,
         Err(e) => {
-            let rejects = rows
-                .iter()
-                .map(|r| panel.reject(r, "curve_not_built", format!("{curve_text}: {e}")))
-                .collect();
+            let rejects =
+                rows.iter().map(|r| panel.reject(r, "curve_not_built", format!("{curve_text}: {e}"))).collect();
             return CurveOutput {
-            hazard: Vec::new(),
-            residuals: Vec::new(),
-            rejects,
-            used: 0,
-            fit: None,
-            sensitivities: Vec::new(),
-        };
+                hazard: Vec::new(),
+                residuals: Vec::new(),
+                rejects,
+                used: 0,
+                fit: None,
+                sensitivities: Vec::new(),
+            };
         }
     };
     let shared = match plan {
@@ -375,9 +377,35 @@ fn calibrate_one(
             detail: n.detail.clone(),
         })
         .collect();
+    let coupon_bp = s.standard_coupon_bp(currency);
+    let convert = |q: &crate::calibrate::residuals::QuoteResidual| -> Option<crate::tables::QuoteConversion> {
+        let single = single?;
+        let coupon = coupon_bp / 1e4;
+        let upfront = q.upfront_at(coupon);
+        let recovery = quotes[q.quote_index].recovery;
+        let quoted_spread_bp =
+            single.get(&(date, h.currency, q.tenor)).and_then(|p| p.as_ref().ok()).and_then(|plan| {
+                let flat = BootstrapQuote { tenor: q.tenor, quote: CdsQuote::Upfront { upfront, coupon }, recovery };
+                let settings = BootstrapSettings { infeasible: InfeasiblePolicy::Fail, ..s.bootstrap };
+                let fit = plan.solve(&[flat], &settings).ok()?;
+                if fit.failed || !fit.complete() {
+                    return None;
+                }
+                let legs = plan.legs_on(fit.curve.as_ref()?, &[recovery])?;
+                Some(legs.first()?.par_spread() * 1e4)
+            });
+        Some(crate::tables::QuoteConversion {
+            quote_type: rows[q.quote_index].quote_type(),
+            standard_coupon_bp: coupon_bp,
+            par_spread_bp: q.model_par_spread_bp,
+            standard_upfront: upfront,
+            quoted_spread_bp,
+        })
+    };
     let residuals = residuals
         .into_iter()
         .map(|q| ResidualRow {
+            conversion: convert(&q),
             date,
             entity: entity_label.clone(),
             currency: currency_label.clone(),
@@ -603,6 +631,20 @@ pub fn calibrate_blocks(
             Some((k, plan))
         })
         .collect();
+    // One single-tenor plan per (date, currency, tenor) for the quoted spreads of the quote
+    // conversions.
+    let single: Option<SinglePlans> = p.quote_conversions.then(|| {
+        let mut keys: Vec<(NaiveDate, u32, Tenor)> = rows.iter().map(|r| (r.date, r.currency, r.tenor)).collect();
+        keys.dedup();
+        keys.sort();
+        keys.dedup();
+        keys.into_par_iter()
+            .filter_map(|k| {
+                let curve = curves.get(&(k.0, panel.currencies.name(k.1).to_string()))?;
+                Some((k, BootstrapPlan::new(k.0, &[k.2], curve, &p.calendar, p.bootstrap.accrual)))
+            })
+            .collect()
+    });
     let progress = crate::report::progress::bar(jobs.len() as u64, "calibrating curves");
     // Curves run in parallel a block at a time and each block goes to the sink before the
     // next starts, so the per-curve vectors of only one block are alive at once.
@@ -613,7 +655,15 @@ pub fn calibrate_blocks(
             .map(|&(a, b, reference)| {
                 let h = &rows[a];
                 let o = match curves.get(&(h.date, panel.currencies.name(h.currency).to_string())) {
-                    Some(curve) => calibrate_one(panel, &rows[a..b], curve, plans.get(&key_of(a, b)), p, reference),
+                    Some(curve) => calibrate_one(
+                        panel,
+                        &rows[a..b],
+                        curve,
+                        plans.get(&key_of(a, b)),
+                        p,
+                        reference,
+                        single.as_ref(),
+                    ),
                     None => CurveOutput {
                         hazard: Vec::new(),
                         residuals: Vec::new(),

@@ -171,6 +171,7 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
             model: r.model_clean,
             residual_bp: r.residual_bp,
             status,
+            conversion: None,
         });
     }
     if let Some(cds) =
@@ -278,6 +279,7 @@ fn cir_residuals(date: NaiveDate, entity: &str, currency: &str, f: &CirFit) -> V
             model: q.model,
             residual_bp: q.residual_bp,
             status: f.status.into(),
+            conversion: None,
         })
         .collect()
 }

@@ -438,10 +438,7 @@ fn write_second_tier(w: &mut Writer, s: &Scenario) -> Result<()> {
         .strings("seniority", rows.iter().map(|_| Some("subordinated")))
         .floats("par_spread_bp", rows.iter().map(|&(r, v)| par(r, v)))
         .floats("quoted_spread_bp", rows.iter().map(|&(r, v)| qs(r, v)))
-        .floats(
-            "coupon_bp",
-            rows.iter().map(|&(r, v)| qs(r, v).map(|v| if v < 300.0 { 100.0 } else { 500.0 })),
-        );
+        .floats("coupon_bp", rows.iter().map(|&(r, v)| qs(r, v).map(|v| if v < 300.0 { 100.0 } else { 500.0 })));
     w.parquet("cds_quotes/second_tier.parquet", b)
 }
 

@@ -42,8 +42,11 @@ pub use curves::{
 };
 pub use fits::{BasisRow, IntensityParamRow};
 pub use flags::FlagRecord;
+pub use residuals::{
+    conversion_table, residual_table, residual_writer, sort_residuals, write_residuals, QuoteConversion,
+    QuoteConversionRow, ResidualRow,
+};
 pub use sensitivities::{sort_sensitivities, SensitivityRow};
-pub use residuals::{residual_table, residual_writer, sort_residuals, write_residuals, ResidualRow};
 
 use crate::error::{Error, Result};
 use polars::prelude::{DataFrame, DataType};

@@ -31,7 +31,27 @@ pub struct ResidualRow {
     pub model: f64,
     pub residual_bp: f64,
     pub status: RowStatus,
+    /// The quote conversions of a bootstrap row (None on other rows, and on a row whose
+    /// quote was not calibrated): the quote type as given, the currency's standard coupon,
+    /// and on the calibrated curve the par spread, the upfront at the standard coupon and
+    /// the quoted spread (the par spread of the flat hazard that gives that upfront).
+    pub conversion: Option<QuoteConversion>,
 }
+
+/// One quote in the three conventions (see [`ResidualRow::conversion`]).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct QuoteConversion {
+    /// `par_spread`, `quoted_spread` or `upfront`.
+    pub quote_type: &'static str,
+    pub standard_coupon_bp: f64,
+    pub par_spread_bp: f64,
+    pub standard_upfront: f64,
+    /// None when no flat hazard gives the upfront (one below the zero-hazard value).
+    pub quoted_spread_bp: Option<f64>,
+}
+
+/// The quote types a conversion names.
+pub const QUOTE_TYPES: &[&str] = &["par_spread", "quoted_spread", "upfront"];
 
 impl Table for ResidualRow {
     const NAME: &'static str = "calibration_residuals";
@@ -48,6 +68,11 @@ impl Table for ResidualRow {
         col("model", Float),
         col("residual_bp", Float),
         col("status", Text),
+        col("quote_type", Text),
+        col("standard_coupon_bp", Float),
+        col("par_spread_bp", Float),
+        col("standard_upfront", Float),
+        col("quoted_spread_bp", Float),
     ];
 
     fn metadata() -> Vec<(String, String)> {
@@ -71,11 +96,23 @@ impl Table for ResidualRow {
             .floats("model", rows.iter().map(|r| Some(r.model)))
             .floats("residual_bp", rows.iter().map(|r| Some(r.residual_bp)))
             .strings("status", rows.iter().map(|r| Some(r.status.as_str())))
+            .strings("quote_type", rows.iter().map(|r| r.conversion.map(|c| c.quote_type)))
+            .floats("standard_coupon_bp", rows.iter().map(|r| r.conversion.map(|c| c.standard_coupon_bp)))
+            .floats("par_spread_bp", rows.iter().map(|r| r.conversion.map(|c| c.par_spread_bp)))
+            .floats("standard_upfront", rows.iter().map(|r| r.conversion.map(|c| c.standard_upfront)))
+            .floats("quoted_spread_bp", rows.iter().map(|r| r.conversion.and_then(|c| c.quoted_spread_bp)))
             .finish()
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
         let (sen, doc) = (opt_labels(df, path, "seniority")?, opt_labels(df, path, "doc_clause")?);
+        let (qt, sc, ps, su, qs) = (
+            strs(df, path, "quote_type")?,
+            floats(df, path, "standard_coupon_bp")?,
+            floats(df, path, "par_spread_bp")?,
+            floats(df, path, "standard_upfront")?,
+            floats(df, path, "quoted_spread_bp")?,
+        );
         let (d, e, c, me, ins, t, mk, mo, r, st) = (
             dates(df, path, "date")?,
             labels(df, path, "entity")?,
@@ -104,6 +141,25 @@ impl Table for ResidualRow {
                     model: mo[i].unwrap_or(f64::NAN),
                     residual_bp: r[i].unwrap_or(f64::NAN),
                     status: text_form(st[i].as_deref(), "status", path, i)?,
+                    conversion: match qt[i].as_deref() {
+                        None => None,
+                        Some(t) => Some(QuoteConversion {
+                            quote_type: QUOTE_TYPES.iter().find(|q| **q == t).copied().ok_or_else(|| {
+                                crate::error::Error::Read {
+                                    path: path.to_path_buf(),
+                                    format: "Parquet",
+                                    message: format!(
+                                        "column quote_type, row {}: {t:?} is not one of {QUOTE_TYPES:?}",
+                                        i + 1
+                                    ),
+                                }
+                            })?,
+                            standard_coupon_bp: sc[i].unwrap_or(f64::NAN),
+                            par_spread_bp: ps[i].unwrap_or(f64::NAN),
+                            standard_upfront: su[i].unwrap_or(f64::NAN),
+                            quoted_spread_bp: qs[i],
+                        }),
+                    },
                 })
             })
             .collect()
@@ -154,6 +210,142 @@ pub fn residual_table(tables: &Path, meta: &[(String, String)], split: bool) -> 
     }
 }
 
+/// One row of `cds_quote_conversions`: a calibrated CDS quote in the three conventions, on
+/// its curve (the bootstrap rows of `calibration_residuals` that carry a conversion, in that
+/// table's order).
+#[derive(Debug, Clone, PartialEq)]
+pub struct QuoteConversionRow {
+    pub date: NaiveDate,
+    pub entity: Label,
+    pub currency: Label,
+    pub seniority: Option<Label>,
+    pub doc_clause: Option<Label>,
+    pub tenor: Label,
+    /// The node's status (a quote not calibrated as quoted converts its curve's value).
+    pub status: RowStatus,
+    pub conversion: QuoteConversion,
+}
+
+impl QuoteConversionRow {
+    /// The conversion row of a residual row, when it carries one.
+    pub fn of(r: &ResidualRow) -> Option<QuoteConversionRow> {
+        Some(QuoteConversionRow {
+            date: r.date,
+            entity: r.entity.clone(),
+            currency: r.currency.clone(),
+            seniority: r.seniority.clone(),
+            doc_clause: r.doc_clause.clone(),
+            tenor: r.tenor_or_bond.clone(),
+            status: r.status,
+            conversion: r.conversion?,
+        })
+    }
+}
+
+impl Table for QuoteConversionRow {
+    const NAME: &'static str = "cds_quote_conversions";
+    const COLUMNS: &'static [Column] = &[
+        col("date", Date),
+        col("entity", Text),
+        col("currency", Text),
+        col("seniority", Text),
+        col("doc_clause", Text),
+        col("tenor", Text),
+        col("status", Text),
+        col("quote_type", Text),
+        col("standard_coupon_bp", Float),
+        col("par_spread_bp", Float),
+        col("standard_upfront", Float),
+        col("quoted_spread_bp", Float),
+    ];
+
+    fn metadata() -> Vec<(String, String)> {
+        vec![(
+            "hazardline.units".into(),
+            "par_spread_bp: par spread on the calibrated curve; standard_upfront: clean upfront at standard_coupon_bp per unit notional, positive when the protection buyer pays; quoted_spread_bp: par spread of the flat hazard that gives that upfront (empty when none does)".into(),
+        )]
+    }
+
+    fn frame(rows: &[Self]) -> Result<DataFrame> {
+        TableBuilder::new()
+            .dates("date", rows.iter().map(|r| Some(r.date)))
+            .strings("entity", rows.iter().map(|r| Some(&r.entity)))
+            .strings("currency", rows.iter().map(|r| Some(&r.currency)))
+            .strings("seniority", rows.iter().map(|r| r.seniority.as_deref()))
+            .strings("doc_clause", rows.iter().map(|r| r.doc_clause.as_deref()))
+            .strings("tenor", rows.iter().map(|r| Some(&r.tenor)))
+            .strings("status", rows.iter().map(|r| Some(r.status.as_str())))
+            .strings("quote_type", rows.iter().map(|r| Some(r.conversion.quote_type)))
+            .floats("standard_coupon_bp", rows.iter().map(|r| Some(r.conversion.standard_coupon_bp)))
+            .floats("par_spread_bp", rows.iter().map(|r| Some(r.conversion.par_spread_bp)))
+            .floats("standard_upfront", rows.iter().map(|r| Some(r.conversion.standard_upfront)))
+            .floats("quoted_spread_bp", rows.iter().map(|r| r.conversion.quoted_spread_bp))
+            .finish()
+    }
+
+    fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
+        let (d, e, c, t, st) = (
+            dates(df, path, "date")?,
+            labels(df, path, "entity")?,
+            labels(df, path, "currency")?,
+            labels(df, path, "tenor")?,
+            strs(df, path, "status")?,
+        );
+        let (sen, doc) = (opt_labels(df, path, "seniority")?, opt_labels(df, path, "doc_clause")?);
+        let (qt, sc, ps, su, qs) = (
+            fixed_labels(df, path, "quote_type", QUOTE_TYPES)?,
+            floats(df, path, "standard_coupon_bp")?,
+            floats(df, path, "par_spread_bp")?,
+            floats(df, path, "standard_upfront")?,
+            floats(df, path, "quoted_spread_bp")?,
+        );
+        (0..df.height())
+            .map(|i| {
+                Ok(QuoteConversionRow {
+                    date: d[i].unwrap_or_default(),
+                    entity: e[i].clone(),
+                    currency: c[i].clone(),
+                    seniority: sen[i].clone(),
+                    doc_clause: doc[i].clone(),
+                    tenor: t[i].clone(),
+                    status: text_form(st[i].as_deref(), "status", path, i)?,
+                    conversion: QuoteConversion {
+                        quote_type: qt[i],
+                        standard_coupon_bp: sc[i].unwrap_or(f64::NAN),
+                        par_spread_bp: ps[i].unwrap_or(f64::NAN),
+                        standard_upfront: su[i].unwrap_or(f64::NAN),
+                        quoted_spread_bp: qs[i],
+                    },
+                })
+            })
+            .collect()
+    }
+}
+
+/// Starts `cds_quote_conversions` in the folder `tables` (a file per year when `split`).
+pub fn conversion_table(
+    tables: &Path,
+    meta: &[(String, String)],
+    split: bool,
+) -> Result<TableWriter<QuoteConversionRow>> {
+    if split {
+        SplitWriter::create(
+            &tables.join(QuoteConversionRow::NAME),
+            &metadata_of::<QuoteConversionRow>(meta),
+            super::framed::<QuoteConversionRow>,
+            |r: &QuoteConversionRow| (1, "conversions", r.date.year()),
+        )
+        .map(TableWriter::Split)
+    } else {
+        RowGroupWriter::create(
+            &super::file_of::<QuoteConversionRow>(tables),
+            &metadata_of::<QuoteConversionRow>(meta),
+            super::framed::<QuoteConversionRow>,
+        )
+        .map(TableWriter::One)
+    }
+}
+
 /// Writes `calibration_residuals` to `path` in its fixed row groups.
 pub fn write_residuals(rows: &[ResidualRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
     let mut w = residual_writer(path, meta)?;
@@ -182,6 +374,13 @@ mod tests {
             model: 101.5 + 1e-9,
             residual_bp: 1e-9,
             status: RowStatus::Ok,
+            conversion: (method == FitMethod::Bootstrap).then_some(QuoteConversion {
+                quote_type: "quoted_spread",
+                standard_coupon_bp: 100.0,
+                par_spread_bp: 123.4,
+                standard_upfront: 0.011,
+                quoted_spread_bp: Some(123.0),
+            }),
         };
         let mut rows = vec![row(FitMethod::Cir, "A"), row(FitMethod::BondFit, "B"), row(FitMethod::Bootstrap, "C")];
         assert_eq!(round_trip(&rows), rows);

@@ -461,6 +461,32 @@ fn quoted_spreads_calibrate_as_their_upfronts() {
         assert!((q - u).abs() <= tol * q, "case {k}: quoted {q} vs upfront {u}");
         assert!((q - ql).abs() <= tol * q, "case {k}: quoted {q} vs QuantLib's flat hazard {ql}");
     }
+    // Every calibrated quote in the three conventions (table cds_quote_conversions): a quoted
+    // spread and the published upfront of one case both convert to the case's quoted spread
+    // and to its published upfront at the 100 bp standard coupon, within the published table's
+    // tolerance (QuantLib's CDS test suite, testIsdaEngine, as above).
+    let conv: std::collections::BTreeMap<String, hazardline::tables::QuoteConversionRow> =
+        hazardline::tables::read::<hazardline::tables::QuoteConversionRow>(&tables)
+            .unwrap()
+            .into_iter()
+            .map(|c| (c.entity.to_string(), c))
+            .collect();
+    assert_eq!(conv.len(), 2 * cases.len());
+    for (k, c) in cases.iter().enumerate() {
+        let (spread_bp, up) =
+            (c["quoted_spread"].as_f64().unwrap() * 1e4, c["published_upfront"].as_f64().unwrap() / 1e7);
+        for (name, kind) in [(format!("Q{k:02}"), "quoted_spread"), (format!("U{k:02}"), "upfront")] {
+            let x = &conv[&name].conversion;
+            assert_eq!(x.quote_type, kind);
+            assert_eq!(x.standard_coupon_bp, 100.0);
+            let qs = x.quoted_spread_bp.unwrap();
+            assert!((qs - spread_bp).abs() <= tol * spread_bp, "{name}: quoted spread {qs} vs {spread_bp}");
+            // One quote, one flat segment: its par spread is the quoted spread.
+            assert!((x.par_spread_bp - spread_bp).abs() <= tol * spread_bp, "{name}: par spread {}", x.par_spread_bp);
+            let u = x.standard_upfront;
+            assert!((u - up).abs() <= tol * up.abs() + 1e-12, "{name}: upfront {u} vs published {up}");
+        }
+    }
 }
 
 /// Seniority and documentation clause are part of the curve key: two tiers of one name on
@@ -522,11 +548,9 @@ fn tiers_of_one_name_are_separate_curves() {
         .collect();
     let s = |v: &str| Some(v.to_string());
     let mut expected = vec![("Clash".to_string(), s("subordinated"), None, "5Y".to_string())];
-    for (sen, doc) in [
-        ("senior", "modified_restructuring"),
-        ("senior", "no_restructuring"),
-        ("subordinated", "no_restructuring"),
-    ] {
+    for (sen, doc) in
+        [("senior", "modified_restructuring"), ("senior", "no_restructuring"), ("subordinated", "no_restructuring")]
+    {
         for t in ["1Y", "3Y", "5Y"] {
             expected.push(("Tiered".to_string(), s(sen), s(doc), t.to_string()));
         }

@@ -24,6 +24,16 @@ pub struct QuoteResidual {
     pub model_par_spread_bp: f64,
     /// Clean risky annuity at T on the calibrated curve.
     pub risky_annuity: f64,
+    /// Discount factor to cash settlement (the upfront at coupon c is
+    /// (par - c) x RA / this).
+    pub cash_settle_df: f64,
+}
+
+impl QuoteResidual {
+    /// The clean upfront at running coupon `coupon` (decimal) on the calibrated curve.
+    pub fn upfront_at(&self, coupon: f64) -> f64 {
+        (self.model_par_spread_bp / 1e4 - coupon) * self.risky_annuity / self.cash_settle_df
+    }
 }
 
 /// Reprices every node of `fit` that has a solved hazard (nodes past a stop have no residual).
@@ -80,6 +90,7 @@ pub fn reprice_with_plan(
             residual_bp,
             model_par_spread_bp: par_bp,
             risky_annuity: ann,
+            cash_settle_df: legs.cash_settle_df,
         });
     }
     out

@@ -197,8 +197,11 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
                 None => ShiftResult { shift: *shift, status: "not_built", measures: None, floored_nodes: 0 },
             },
             Shift::AccrualStandard | Shift::AccrualExact => {
-                let accrual =
-                    if *shift == Shift::AccrualStandard { AccrualIntegration::Standard } else { AccrualIntegration::Exact };
+                let accrual = if *shift == Shift::AccrualStandard {
+                    AccrualIntegration::Standard
+                } else {
+                    AccrualIntegration::Exact
+                };
                 if accrual == c.settings.accrual {
                     ShiftResult { shift: *shift, status: "not_applicable", measures: None, floored_nodes: 0 }
                 } else {
@@ -269,7 +272,12 @@ impl SensitivityDates {
 mod tests {
     use super::*;
 
-    fn inputs<'a>(quotes: &'a [BootstrapQuote], d: &'a DiscountCurve, cal: &'a Calendar, s: &'a BootstrapSettings) -> CurveInputs<'a> {
+    fn inputs<'a>(
+        quotes: &'a [BootstrapQuote],
+        d: &'a DiscountCurve,
+        cal: &'a Calendar,
+        s: &'a BootstrapSettings,
+    ) -> CurveInputs<'a> {
         CurveInputs {
             trade_date: NaiveDate::from_ymd_opt(2024, 3, 4).unwrap(),
             quotes,

@@ -214,6 +214,7 @@ impl CirPricer {
                     residual_bp: r,
                     model_par_spread_bp: par_bp,
                     risky_annuity: ann,
+                    cash_settle_df: c.cash_settle_df,
                 }
             })
             .collect();
