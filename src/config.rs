@@ -159,8 +159,9 @@ pub struct PipelineFile {
     #[serde(default)]
     pub rate_conventions: BTreeMap<String, RateConventionSection>,
     /// `[calendars]`: a holiday file (one ISO date per line) per currency, for that currency's
-    /// standard curve (spot and Modified Following). A currency without one uses
-    /// `inputs.holidays` (or weekends only).
+    /// standard curve (spot and Modified Following) and its CDS contracts (roll, coupon,
+    /// step-in and cash-settlement dates). A currency without one uses `inputs.holidays` (or
+    /// weekends only).
     #[serde(default)]
     pub calendars: BTreeMap<String, PathBuf>,
     #[serde(default)]

@@ -200,7 +200,7 @@ fn scenario_curves(
             let (ccy, curve) = by_key.get(&(*d, e.as_str()))?;
             let disc = cal.discount_curves.get(&(*d, (*ccy).clone()))?;
             let quotes: Vec<BootstrapQuote> = curve.quotes.iter().map(|q| BootstrapQuote { recovery, ..*q }).collect();
-            let fit = bootstrap(*d, &quotes, disc, &p.calendar, &p.bootstrap).ok()?;
+            let fit = bootstrap(*d, &quotes, disc, p.cds_calendar(ccy), &p.bootstrap).ok()?;
             if fit.failed {
                 return None;
             }

@@ -59,6 +59,12 @@ type SinglePlans =
     std::collections::HashMap<(NaiveDate, u32, Tenor), std::result::Result<BootstrapPlan, BootstrapError>>;
 
 impl CalibrationParams {
+    /// The calendar of `currency`'s CDS contracts (roll, coupon and step-in dates) and standard
+    /// curve: its `[calendars]` file, else the run's calendar.
+    pub fn cds_calendar(&self, currency: &str) -> &Calendar {
+        self.rate_calendars.get(currency).unwrap_or(&self.calendar)
+    }
+
     /// The standard running coupon (bp) of `currency`.
     pub fn standard_coupon_bp(&self, currency: &str) -> f64 {
         self.standard_coupons.get(currency).copied().unwrap_or(cds::DEFAULT_STANDARD_COUPON_BP)
@@ -284,7 +290,7 @@ fn calibrate_one(
                     } else {
                         f64::from(r.quoted_coupon_bp) / 1e4
                     };
-                    let upfront = match crate::instruments::CdsContract::standard(date, r.tenor, &s.calendar) {
+                    let upfront = match crate::instruments::CdsContract::standard(date, r.tenor, s.cds_calendar(currency)) {
                         Err(e) => Err(format!("the {} contract: {e}", r.tenor)),
                         Ok(c) => crate::instruments::cds::quoted_spread::to_upfront(
                             &c,
@@ -331,7 +337,7 @@ fn calibrate_one(
     let fitted = match plan {
         Some(Ok(p)) => p.solve(&quotes, &s.bootstrap),
         Some(Err(e)) => Err(e.clone()),
-        None => bootstrap(date, &quotes, curve, &s.calendar, &s.bootstrap),
+        None => bootstrap(date, &quotes, curve, s.cds_calendar(currency), &s.bootstrap),
     };
     let fit = match fitted {
         Ok(f) => f,
@@ -457,7 +463,7 @@ fn sensitivity_rows(
         trade_date: h.date,
         quotes,
         discount,
-        calendar: &s.calendar,
+        calendar: s.cds_calendar(currency),
         settings: &s.bootstrap,
         coupon: coupon_bp / 1e4,
     });
@@ -627,7 +633,8 @@ pub fn calibrate_blocks(
         .into_par_iter()
         .filter_map(|k| {
             let curve = curves.get(&(k.0, panel.currencies.name(k.1).to_string()))?;
-            let plan = BootstrapPlan::new(k.0, &k.2, curve, &p.calendar, p.bootstrap.accrual);
+            let cal = p.cds_calendar(panel.currencies.name(k.1));
+            let plan = BootstrapPlan::new(k.0, &k.2, curve, cal, p.bootstrap.accrual);
             Some((k, plan))
         })
         .collect();
@@ -641,7 +648,8 @@ pub fn calibrate_blocks(
         keys.into_par_iter()
             .filter_map(|k| {
                 let curve = curves.get(&(k.0, panel.currencies.name(k.1).to_string()))?;
-                Some((k, BootstrapPlan::new(k.0, &[k.2], curve, &p.calendar, p.bootstrap.accrual)))
+                let cal = p.cds_calendar(panel.currencies.name(k.1));
+                Some((k, BootstrapPlan::new(k.0, &[k.2], curve, cal, p.bootstrap.accrual)))
             })
             .collect()
     });

@@ -180,7 +180,7 @@ fn fit_group(g: &BondGroup, cal: &Calibration, p: &CalibrationParams, s: &Intens
         let mut mats: Vec<NaiveDate> = fit.nodes.iter().map(|n| n.maturity).collect();
         mats.sort();
         mats.dedup();
-        if let Ok(points) = cds_bond_basis(g.date, &fit.curve, cds, disc, &mats, recovery, &p.calendar) {
+        if let Ok(points) = cds_bond_basis(g.date, &fit.curve, cds, disc, &mats, recovery, p.cds_calendar(g.currency)) {
             for b in points {
                 out.basis.push(BasisRow {
                     date: g.date,
@@ -316,7 +316,7 @@ fn fit_name(
                 let keep = range.contains(*d);
                 let mut starts: Vec<CirParams> = c.curve.as_ref().map(start_from_curve).into_iter().collect();
                 starts.extend(prev);
-                let r = fit_cir(*d, &c.quotes, disc, &p.calendar, &starts, &settings);
+                let r = fit_cir(*d, &c.quotes, disc, p.cds_calendar(currency), &starts, &settings);
                 if let Ok(f) = &r {
                     if f.status != CirFitStatus::Failed {
                         prev = Some(f.params());
@@ -344,7 +344,7 @@ fn fit_name(
                         start: c.curve.as_ref().map(start_from_curve),
                     })
                     .collect();
-                match fit_cir_window(&window, &p.calendar, &settings) {
+                match fit_cir_window(&window, p.cds_calendar(currency), &settings) {
                     Ok(w) => {
                         for ((d, _, _), r) in block.iter().zip(&w.days).filter(|((d, _, _), _)| range.contains(*d)) {
                             if let Ok(f) = r {

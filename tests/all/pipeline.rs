@@ -381,6 +381,24 @@ fn rate_quotes_build_the_discount_curves() {
     assert!(moved.iter().any(|c| c.date.to_string() == first));
     let manifest = std::fs::read_to_string(with_calendar.parent().unwrap().join("manifest.json")).unwrap();
     assert!(manifest.contains("\"calendar EUR\""), "the calendar file is a recorded input");
+    // The currency's calendar also dates its CDS contracts: the holiday (2024-03-20) is the
+    // roll date the EUR contracts accrue from until the next roll, so their first accrual
+    // period starts a business day later (2024-03-21) and every EUR curve moves; no USD curve
+    // does.
+    let hazards = |tables: &Path| -> std::collections::BTreeMap<(chrono::NaiveDate, String, String, String), f64> {
+        hazardline::tables::read::<hazardline::tables::HazardCurveRow>(tables)
+            .unwrap()
+            .into_iter()
+            .filter_map(|h| Some(((h.date, h.entity.to_string(), h.currency.to_string(), h.tenor.to_string()), h.hazard?)))
+            .collect()
+    };
+    let (plain, dated) = (hazards(&only_rates), hazards(&with_calendar));
+    assert_eq!(plain.len(), dated.len());
+    let changed: Vec<_> = plain.iter().filter(|(k, v)| dated[*k] != **v).map(|(k, _)| k.clone()).collect();
+    assert!(!changed.is_empty(), "the EUR holiday moves no CDS curve");
+    assert_eq!(spot.to_string(), "2024-03-20");
+    assert!(changed.iter().all(|k| k.2 == "EUR"), "a USD curve moved");
+    assert_eq!(changed.len(), plain.keys().filter(|k| k.2 == "EUR").count(), "an EUR curve did not move");
 
     let both = pipeline("both", true);
     let curves = hazardline::tables::read::<hazardline::tables::DiscountCurveRow>(&both).unwrap();
