@@ -38,7 +38,12 @@ pub fn setup() -> (NaiveDate, DiscountCurve, Vec<BootstrapQuote>) {
         ("10Y", 150.0),
     ]
     .iter()
-    .map(|&(t, bp)| BootstrapQuote { tenor: t.parse().unwrap(), quote: CdsQuote::ParSpread(bp / 1e4), recovery: 0.4 })
+    .map(|&(t, bp)| BootstrapQuote {
+        tenor: t.parse().unwrap(),
+        quote: CdsQuote::ParSpread(bp / 1e4),
+        recovery: 0.4,
+        maturity: None,
+    })
     .collect();
     (trade, disc, quotes)
 }

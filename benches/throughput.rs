@@ -55,7 +55,12 @@ fn main() {
         tenors
             .iter()
             .zip(base)
-            .map(|(&t, bp)| BootstrapQuote { tenor: t, quote: CdsQuote::ParSpread(bp * scale / 1e4), recovery: 0.4 })
+            .map(|(&t, bp)| BootstrapQuote {
+                tenor: t,
+                quote: CdsQuote::ParSpread(bp * scale / 1e4),
+                recovery: 0.4,
+                maturity: None,
+            })
             .collect()
     };
 

@@ -1,6 +1,7 @@
 //! The `cds_quotes` table: date, entity, currency, tenor, par_spread_bp, with optional
-//! recovery, upfront, coupon_bp, seniority, doc_clause, quoted_spread_bp, quote_type. Seniority
-//! and documentation clause make the curve's tier, part of its key. A row carries either a par spread (bp) or an
+//! recovery, upfront, coupon_bp, seniority, doc_clause, quoted_spread_bp, quote_type, maturity.
+//! Seniority and documentation clause make the curve's tier, part of its key; a maturity off
+//! the standard roll of the row's tenor prices the contract to that maturity. A row carries either a par spread (bp) or an
 //! upfront (fraction of notional, positive when the protection buyer pays) with its running
 //! coupon (bp).
 //!
@@ -12,7 +13,7 @@ use super::Interner;
 use crate::error::Result;
 use crate::instruments::CdsQuote;
 use crate::time::{Calendar, Tenor};
-use chrono::NaiveDate;
+use chrono::{Datelike, NaiveDate};
 use std::path::Path;
 
 pub const TABLE: &str = "cds_quotes";
@@ -30,6 +31,7 @@ const SPECS: &[ColumnSpec] = &[
     ColumnSpec { name: "quoted_spread_bp", kind: Kind::Number, required: false },
     ColumnSpec { name: "quote_type", kind: Kind::Text, required: false },
     ColumnSpec { name: "doc_clause", kind: Kind::Text, required: false },
+    ColumnSpec { name: "maturity", kind: Kind::Date, required: false },
 ];
 const C_DATE: usize = 0;
 const C_ENTITY: usize = 1;
@@ -43,6 +45,7 @@ const C_SENIORITY: usize = 8;
 const C_QUOTED: usize = 9;
 const C_QUOTE_TYPE: usize = 10;
 const C_DOC_CLAUSE: usize = 11;
+const C_MATURITY: usize = 12;
 
 /// The standard coupon (bp) of a currency the pipeline file does not list: the standard
 /// contract's usual coupon for investment-grade names (common practice, no single source).
@@ -74,6 +77,9 @@ pub struct CdsQuoteRow {
     /// For a quoted-spread quote (`quote` holds the spread as a `ParSpread`), the running
     /// coupon (bp) it converts to an upfront at; NaN for a par-spread or upfront quote.
     pub quoted_coupon_bp: f32,
+    /// The contract's maturity when the row's `maturity` is off the standard roll of its
+    /// tenor (None: the standard roll).
+    pub maturity: Option<NaiveDate>,
 }
 
 impl CdsQuoteRow {
@@ -578,6 +584,40 @@ fn parse_row(
     let seniority = optional_text(file.cell(C_SENIORITY, i), "seniority", src, row, &mut b4)?;
     let doc_clause = optional_text(file.cell(C_DOC_CLAUSE, i), "doc_clause", src, row, &mut b5)?;
     let tier = panel.tiers.id(seniority, doc_clause);
+    // An explicit maturity: a contract off the standard roll of its tenor when it differs.
+    let maturity = match file.cell(C_MATURITY, i).date() {
+        Ok(None) => None,
+        Err(()) => {
+            return Err(reject(
+                src,
+                row,
+                "unparseable_date",
+                format!("column maturity: {} is not an ISO date yyyy-mm-dd", file.cell(C_MATURITY, i).show()),
+            ))
+        }
+        Ok(Some(m)) if m <= date + chrono::Days::new(1) => {
+            return Err(reject(
+                src,
+                row,
+                "expired_maturity",
+                format!("column maturity: {m} is not after the protection start {}", date + chrono::Days::new(1)),
+            ))
+        }
+        Ok(Some(m)) if !(m.day() == 20 && m.month() % 3 == 0) => {
+            return Err(reject(
+                src,
+                row,
+                "non_imm_maturity",
+                format!(
+                    "column maturity: {m} is not an IMM date (20 March, June, September or December), as a standard contract's maturity is"
+                ),
+            ))
+        }
+        Ok(Some(m)) => match crate::time::imm::cds_maturity(date, tenor) {
+            Ok(standard) if standard == m => None,
+            _ => Some(m),
+        },
+    };
     Ok(CdsQuoteRow {
         date,
         entity,
@@ -586,9 +626,18 @@ fn parse_row(
         quote,
         recovery: recovery.unwrap_or(f64::NAN),
         quoted_coupon_bp,
+        maturity,
         tier,
         file: fidx,
         row: row as u32,
         flags: 0,
     })
+}
+#[cfg(test)]
+mod size_probe {
+    /// The panel holds tens of millions of rows: the row stays at 72 bytes.
+    #[test]
+    fn a_quote_row_is_72_bytes() {
+        assert_eq!(std::mem::size_of::<super::CdsQuoteRow>(), 72);
+    }
 }

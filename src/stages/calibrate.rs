@@ -54,9 +54,13 @@ pub struct CalibrationParams {
     pub quote_conversions: bool,
 }
 
-/// Single-tenor plans per (date, currency, tenor): the flat-hazard solves of the quoted spreads.
+/// A contract's term: its tenor, and its maturity when off the standard roll.
+type Term = (Tenor, Option<NaiveDate>);
+
+/// Single-contract plans per (date, currency, term): the flat-hazard solves of the quoted
+/// spreads.
 type SinglePlans =
-    std::collections::HashMap<(NaiveDate, u32, Tenor), std::result::Result<BootstrapPlan, BootstrapError>>;
+    std::collections::HashMap<(NaiveDate, u32, Term), std::result::Result<BootstrapPlan, BootstrapError>>;
 
 impl CalibrationParams {
     /// The calendar of `currency`'s CDS contracts (roll, coupon and step-in dates) and standard
@@ -290,7 +294,8 @@ fn calibrate_one(
                     } else {
                         f64::from(r.quoted_coupon_bp) / 1e4
                     };
-                    let upfront = match crate::instruments::CdsContract::standard(date, r.tenor, s.cds_calendar(currency)) {
+                    let term = BootstrapQuote { tenor: r.tenor, quote: r.quote, recovery, maturity: r.maturity };
+                    let upfront = match term.contract(date, s.cds_calendar(currency)) {
                         Err(e) => Err(format!("the {} contract: {e}", r.tenor)),
                         Ok(c) => crate::instruments::cds::quoted_spread::to_upfront(
                             &c,
@@ -318,7 +323,7 @@ fn calibrate_one(
                 }
                 q => q,
             };
-            BootstrapQuote { tenor: r.tenor, quote, recovery }
+            BootstrapQuote { tenor: r.tenor, quote, recovery, maturity: r.maturity }
         })
         .collect();
     if let Some(why) = unconverted {
@@ -389,9 +394,16 @@ fn calibrate_one(
         let coupon = coupon_bp / 1e4;
         let upfront = q.upfront_at(coupon);
         let recovery = quotes[q.quote_index].recovery;
-        let quoted_spread_bp =
-            single.get(&(date, h.currency, q.tenor)).and_then(|p| p.as_ref().ok()).and_then(|plan| {
-                let flat = BootstrapQuote { tenor: q.tenor, quote: CdsQuote::Upfront { upfront, coupon }, recovery };
+        let quoted_spread_bp = single
+            .get(&(date, h.currency, (q.tenor, quotes[q.quote_index].maturity)))
+            .and_then(|p| p.as_ref().ok())
+            .and_then(|plan| {
+                let flat = BootstrapQuote {
+                    tenor: q.tenor,
+                    quote: CdsQuote::Upfront { upfront, coupon },
+                    recovery,
+                    maturity: quotes[q.quote_index].maturity,
+                };
                 let settings = BootstrapSettings { infeasible: InfeasiblePolicy::Fail, ..s.bootstrap };
                 let fit = plan.solve(&[flat], &settings).ok()?;
                 if fit.failed || !fit.complete() {
@@ -622,9 +634,9 @@ pub fn calibrate_blocks(
     let reference = reference_jobs(panel, &jobs, &p.seniority_order);
     let jobs: Vec<(usize, usize, bool)> = jobs.into_iter().zip(reference).map(|((a, b), r)| (a, b, r)).collect();
     // One bootstrap plan per (date, currency, tenor set), shared by every name quoted so.
-    type PlanKey = (chrono::NaiveDate, u32, Vec<Tenor>);
+    type PlanKey = (chrono::NaiveDate, u32, Vec<Term>);
     let key_of = |a: usize, b: usize| -> PlanKey {
-        (rows[a].date, rows[a].currency, rows[a..b].iter().map(|r| r.tenor).collect())
+        (rows[a].date, rows[a].currency, rows[a..b].iter().map(|r| (r.tenor, r.maturity)).collect())
     };
     let mut keys: Vec<PlanKey> = jobs.iter().map(|&(a, b, _)| key_of(a, b)).collect();
     keys.sort();
@@ -634,14 +646,15 @@ pub fn calibrate_blocks(
         .filter_map(|k| {
             let curve = curves.get(&(k.0, panel.currencies.name(k.1).to_string()))?;
             let cal = p.cds_calendar(panel.currencies.name(k.1));
-            let plan = BootstrapPlan::new(k.0, &k.2, curve, cal, p.bootstrap.accrual);
+            let plan = BootstrapPlan::for_terms(k.0, &k.2, curve, cal, p.bootstrap.accrual);
             Some((k, plan))
         })
         .collect();
     // One single-tenor plan per (date, currency, tenor) for the quoted spreads of the quote
     // conversions.
     let single: Option<SinglePlans> = p.quote_conversions.then(|| {
-        let mut keys: Vec<(NaiveDate, u32, Tenor)> = rows.iter().map(|r| (r.date, r.currency, r.tenor)).collect();
+        let mut keys: Vec<(NaiveDate, u32, Term)> =
+            rows.iter().map(|r| (r.date, r.currency, (r.tenor, r.maturity))).collect();
         keys.dedup();
         keys.sort();
         keys.dedup();
@@ -649,7 +662,7 @@ pub fn calibrate_blocks(
             .filter_map(|k| {
                 let curve = curves.get(&(k.0, panel.currencies.name(k.1).to_string()))?;
                 let cal = p.cds_calendar(panel.currencies.name(k.1));
-                Some((k, BootstrapPlan::new(k.0, &[k.2], curve, cal, p.bootstrap.accrual)))
+                Some((k, BootstrapPlan::for_terms(k.0, &[k.2], curve, cal, p.bootstrap.accrual)))
             })
             .collect()
     });
@@ -824,6 +837,7 @@ mod tests {
             row: 1,
             flags: 0,
             quoted_coupon_bp: f32::NAN,
+            maturity: None,
         };
         panel.rows = tiers.iter().map(|&t| row(t)).collect();
         let jobs: Vec<(usize, usize)> = (0..4).map(|i| (i, i + 1)).collect();

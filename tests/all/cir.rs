@@ -201,7 +201,7 @@ fn quotes_from(spreads: &[f64], recovery: f64) -> Vec<BootstrapQuote> {
     TENORS
         .iter()
         .zip(spreads)
-        .map(|(&t, &s)| BootstrapQuote { tenor: tenor(t), quote: CdsQuote::ParSpread(s), recovery })
+        .map(|(&t, &s)| BootstrapQuote { tenor: tenor(t), quote: CdsQuote::ParSpread(s), recovery, maturity: None })
         .collect()
 }
 
@@ -338,6 +338,7 @@ fn upfront_quotes_are_fitted_too() {
                 tenor: tenor(t),
                 quote: CdsQuote::Upfront { upfront: legs.upfront(0.01), coupon: 0.01 },
                 recovery: 0.4,
+                maturity: None,
             }
         })
         .collect();
@@ -479,6 +480,7 @@ fn plain_cir_on_realistic_curves() {
                 tenor: tenor(x["tenor"].as_str().unwrap()),
                 quote: CdsQuote::ParSpread(num(&x["par_spread_bp"]) / 1e4),
                 recovery: rec,
+                maturity: None,
             })
             .collect();
         if q.len() < 4 {

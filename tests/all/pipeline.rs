@@ -389,7 +389,9 @@ fn rate_quotes_build_the_discount_curves() {
         hazardline::tables::read::<hazardline::tables::HazardCurveRow>(tables)
             .unwrap()
             .into_iter()
-            .filter_map(|h| Some(((h.date, h.entity.to_string(), h.currency.to_string(), h.tenor.to_string()), h.hazard?)))
+            .filter_map(|h| {
+                Some(((h.date, h.entity.to_string(), h.currency.to_string(), h.tenor.to_string()), h.hazard?))
+            })
             .collect()
     };
     let (plain, dated) = (hazards(&only_rates), hazards(&with_calendar));
@@ -586,4 +588,72 @@ fn tiers_of_one_name_are_separate_curves() {
     assert!((ratio / (0.6 / 0.8) - 1.0).abs() < 0.01, "hazard ratio {ratio}");
     let res = hazardline::tables::read::<hazardline::tables::ResidualRow>(&tables).unwrap();
     assert_eq!(res.iter().filter(|r| r.seniority.as_deref() == Some("subordinated")).count(), 4);
+}
+
+/// The `maturity` column: a quote of a contract off the standard roll calibrates to that
+/// contract. Each QuantLib case of tests/reference/cds_maturity_quantlib.json (an IMM maturity
+/// off the 20 June roll of 2009-05-21, a flat hazard, QuantLib's upfront at 100 bp) is given as
+/// that upfront with its maturity, on the published table's discount curve: the run bootstraps
+/// QuantLib's flat hazard within 1e-10 and writes the maturity in `hazard_curves`. A maturity
+/// on the standard roll changes nothing; one that is not an IMM date, or not after the
+/// protection start, is rejected with its reason.
+#[test]
+fn maturities_off_the_standard_roll_calibrate_to_quantlibs_hazard() {
+    let acc: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(repo().join("tests/reference/cds_accrual_quantlib.json")).unwrap(),
+    )
+    .unwrap();
+    let r: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(repo().join("tests/reference/cds_maturity_quantlib.json")).unwrap(),
+    )
+    .unwrap();
+    let dir = tempfile::tempdir().unwrap();
+    let mut disc = String::from("date,currency,pillar_date,discount_factor\n");
+    for p in acc["published_table"]["discount_pillars"].as_array().unwrap() {
+        disc += &format!("2009-05-21,USD,{},{:.17e}\n", p[0].as_str().unwrap(), p[1].as_f64().unwrap());
+    }
+    let mut cds = String::from("date,entity,currency,tenor,par_spread_bp,recovery,upfront,coupon_bp,maturity\n");
+    let cases = r["cases"].as_array().unwrap();
+    for (k, c) in cases.iter().enumerate() {
+        let (m, up, rec) =
+            (c["maturity"].as_str().unwrap(), c["upfront_100bp"].as_f64().unwrap(), c["recovery"].as_f64().unwrap());
+        cds += &format!("2009-05-21,M{k:02},USD,5Y,,{rec},{up:.17e},100,{m}\n");
+    }
+    // On the standard roll (2014-06-20 is the 5Y maturity of 2009-05-21): the same as no maturity.
+    cds += "2009-05-21,ONROLL,USD,5Y,250,0.4,,,2014-06-20\n2009-05-21,PLAIN,USD,5Y,250,0.4,,,\n";
+    cds += "2009-05-21,NOTIMM,USD,5Y,250,0.4,,,2014-06-15\n2009-05-21,EXPIRED,USD,5Y,250,0.4,,,2009-03-20\n";
+    std::fs::write(dir.path().join("discount.csv"), disc).unwrap();
+    std::fs::write(dir.path().join("cds.csv"), cds).unwrap();
+    std::fs::write(
+        dir.path().join("p.toml"),
+        "name = \"mat\"\n[inputs]\ncds_quotes = \"cds.csv\"\ndiscount = \"discount.csv\"\n[report]\nlabel = \"r\"\n",
+    )
+    .unwrap();
+    let cfg = load_pipeline(&dir.path().join("p.toml")).unwrap();
+    let tables =
+        run(&cfg, &RunOptions { out_root: Some(dir.path().join("out")), label: None }).unwrap().run_dir.join("tables");
+    let mut rejects: Vec<(String, &str)> = hazardline::tables::read::<hazardline::ingest::Reject>(&tables)
+        .unwrap()
+        .into_iter()
+        .map(|r| (r.entity.unwrap_or_default(), r.reason))
+        .collect();
+    rejects.sort();
+    assert_eq!(rejects, vec![("EXPIRED".to_string(), "expired_maturity"), ("NOTIMM".to_string(), "non_imm_maturity")]);
+    let hz: std::collections::BTreeMap<String, hazardline::tables::HazardCurveRow> =
+        hazardline::tables::read::<hazardline::tables::HazardCurveRow>(&tables)
+            .unwrap()
+            .into_iter()
+            .map(|h| (h.entity.to_string(), h))
+            .collect();
+    let mut worst = 0.0f64;
+    for (k, c) in cases.iter().enumerate() {
+        let h = &hz[&format!("M{k:02}")];
+        assert_eq!(h.maturity.to_string(), c["maturity"].as_str().unwrap());
+        let want = c["hazard"].as_f64().unwrap();
+        worst = worst.max((h.hazard.unwrap() - want).abs() / want);
+    }
+    println!("off-roll quotes bootstrap QuantLib's flat hazards within {worst:.1e} relative");
+    assert!(worst < 1e-10, "{worst:e}");
+    assert_eq!(hz["ONROLL"].hazard, hz["PLAIN"].hazard);
+    assert_eq!(hz["ONROLL"].maturity, hz["PLAIN"].maturity);
 }

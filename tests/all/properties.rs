@@ -48,7 +48,7 @@ proptest! {
         let curve = f.curve.clone().unwrap();
         let up: Vec<BootstrapQuote> = f.nodes.iter().zip(f.contracts.iter()).map(|(n, c)| {
             let legs = price_legs(c, 0.4, &disc, &curve, AccrualIntegration::default()).unwrap();
-            BootstrapQuote { tenor: n.tenor, quote: CdsQuote::Upfront { upfront: legs.upfront(coupon_bp / 1e4), coupon: coupon_bp / 1e4 }, recovery: 0.4 }
+            BootstrapQuote { tenor: n.tenor, quote: CdsQuote::Upfront { upfront: legs.upfront(coupon_bp / 1e4), coupon: coupon_bp / 1e4 }, recovery: 0.4, maturity: None }
         }).collect();
         let g = bootstrap(trade, &up, &disc, &cal, &BootstrapSettings::default()).unwrap();
         for (a, b) in f.nodes.iter().zip(&g.nodes) {

@@ -65,6 +65,7 @@ fn cases() -> Vec<Case> {
                     tenor: tenor(s(&q["tenor"])),
                     quote: CdsQuote::ParSpread(num(&q["par_spread_bp"]) / 1e4),
                     recovery,
+                    maturity: None,
                 })
                 .collect();
             Case {
@@ -446,8 +447,14 @@ fn spread_and_published_upfront_quotes_bootstrap_the_same_hazard() {
     let t = &r["published_table"];
     let hazard = |quote: CdsQuote, tn: Tenor, recovery: f64, accrual: AccrualIntegration| -> f64 {
         let settings = BootstrapSettings { accrual, ..BootstrapSettings::default() };
-        let fit =
-            bootstrap(trade, &[BootstrapQuote { tenor: tn, quote, recovery }], &discount, &cal, &settings).unwrap();
+        let fit = bootstrap(
+            trade,
+            &[BootstrapQuote { tenor: tn, quote, recovery, maturity: None }],
+            &discount,
+            &cal,
+            &settings,
+        )
+        .unwrap();
         fit.nodes[0].hazard.unwrap()
     };
     let mut worst = [0.0f64; 2];
@@ -565,4 +572,35 @@ fn published_table_curve() -> (Value, chrono::NaiveDate, DiscountCurve, f64) {
     let discount = DiscountCurve::from_discount_factors(trade, &pillars).unwrap();
     let tol = num(&t["tolerance_relative"]);
     (r, trade, discount, tol)
+}
+
+/// Contracts off the standard roll (the `maturity` column): QuantLib's standard-model engine
+/// with its default options prices MakeCreditDefaultSwap(maturity, 100 bp) on IMM maturities
+/// in March, September and December for a trade on 2009-05-21 (whose standard maturities fall
+/// on 20 June), on the published table's discount curve and flat hazards of 1%, 5% and 20%
+/// (tests/reference/cds_maturity_quantlib.py, QuantLib 1.44 from PyPI). The tool's contract to
+/// the same maturity pays on the same dates, and its upfront and par spread agree within 1e-12.
+#[test]
+fn contracts_off_the_standard_roll_match_quantlib() {
+    let path = super::support::repo().join("tests/reference/cds_maturity_quantlib.json");
+    let r: Value = serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap();
+    let (_, trade, discount, _) = published_table_curve();
+    let cal = Calendar::weekends_only();
+    let cases = r["cases"].as_array().unwrap();
+    assert_eq!(cases.len(), 15);
+    let (mut worst_up, mut worst_spread) = (0.0f64, 0.0f64);
+    for c in cases {
+        let maturity = d(s(&c["maturity"]));
+        let contract = CdsContract::with_maturity(trade, maturity, &cal);
+        let paid: Vec<String> = contract.periods.iter().map(|p| p.payment.to_string()).collect();
+        let ql_paid: Vec<String> = c["payment_dates"].as_array().unwrap().iter().map(|x| s(x).to_string()).collect();
+        assert_eq!(paid, ql_paid, "{maturity}: payment dates");
+        let h = hazardline::curves::HazardCurve::flat(trade, num(&c["hazard"]));
+        let legs = price_legs(&contract, num(&c["recovery"]), &discount, &h, AccrualIntegration::Published).unwrap();
+        let (up, spread) = (legs.upfront(0.01), legs.par_spread());
+        worst_up = worst_up.max((up - num(&c["upfront_100bp"])).abs());
+        worst_spread = worst_spread.max((spread - num(&c["par_spread"])).abs());
+    }
+    println!("off-roll contracts: upfront within {worst_up:.1e}, par spread within {worst_spread:.1e}");
+    assert!(worst_up < 1e-12 && worst_spread < 1e-12, "upfront {worst_up:e}, par spread {worst_spread:e}");
 }

@@ -51,7 +51,12 @@ pub fn fit(
 ) -> (CurveFit, Vec<BootstrapQuote>) {
     let qs: Vec<BootstrapQuote> = quotes
         .iter()
-        .map(|&(t, bp)| BootstrapQuote { tenor: tenor(t), quote: CdsQuote::ParSpread(bp / 1e4), recovery })
+        .map(|&(t, bp)| BootstrapQuote {
+            tenor: tenor(t),
+            quote: CdsQuote::ParSpread(bp / 1e4),
+            recovery,
+            maturity: None,
+        })
         .collect();
     let f = bootstrap(trade, &qs, discount, &Calendar::weekends_only(), settings).expect("bootstrap runs");
     (f, qs)

@@ -60,6 +60,24 @@ pub struct BootstrapQuote {
     pub tenor: Tenor,
     pub quote: CdsQuote,
     pub recovery: f64,
+    /// The contract's maturity when it is off the standard roll of `tenor` (None: the
+    /// standard roll, [`crate::time::cds_maturity`]).
+    pub maturity: Option<NaiveDate>,
+}
+
+impl BootstrapQuote {
+    /// The contract quoted, traded on `trade`.
+    pub fn contract(&self, trade: NaiveDate, cal: &Calendar) -> Result<CdsContract, MaturityError> {
+        match self.maturity {
+            Some(m) => Ok(CdsContract::with_maturity(trade, m, cal)),
+            None => CdsContract::standard(trade, self.tenor, cal),
+        }
+    }
+
+    /// The quote's term: its tenor and, off the standard roll, its maturity.
+    pub fn term(&self) -> (Tenor, Option<NaiveDate>) {
+        (self.tenor, self.maturity)
+    }
 }
 
 /// Status of one curve node.
@@ -172,6 +190,8 @@ fn check_quote(index: usize, q: &BootstrapQuote) -> Result<(), BootstrapError> {
 pub struct BootstrapPlan {
     trade: NaiveDate,
     tenors: Vec<Tenor>,
+    /// The maturities off the standard roll, by quote (None: the tenor's standard roll).
+    maturities: Vec<Option<NaiveDate>>,
     /// Quote index of each node, in maturity order.
     order: Vec<usize>,
     contracts: std::sync::Arc<[CdsContract]>,
@@ -188,7 +208,8 @@ pub struct BootstrapPlan {
 }
 
 impl BootstrapPlan {
-    /// Builds the plan for quotes of `tenors` (in the order the quotes will come).
+    /// Builds the plan for quotes of `tenors` on the standard roll (in the order the quotes
+    /// will come).
     pub fn new(
         trade: NaiveDate,
         tenors: &[Tenor],
@@ -196,6 +217,21 @@ impl BootstrapPlan {
         cal: &Calendar,
         accrual: AccrualIntegration,
     ) -> Result<BootstrapPlan, BootstrapError> {
+        let terms: Vec<(Tenor, Option<NaiveDate>)> = tenors.iter().map(|&t| (t, None)).collect();
+        BootstrapPlan::for_terms(trade, &terms, discount, cal, accrual)
+    }
+
+    /// Builds the plan for quotes of `terms` (tenor, and maturity when off the standard roll;
+    /// see [`BootstrapQuote::term`]), in the order the quotes will come.
+    pub fn for_terms(
+        trade: NaiveDate,
+        terms: &[(Tenor, Option<NaiveDate>)],
+        discount: &DiscountCurve,
+        cal: &Calendar,
+        accrual: AccrualIntegration,
+    ) -> Result<BootstrapPlan, BootstrapError> {
+        let tenors: Vec<Tenor> = terms.iter().map(|t| t.0).collect();
+        let tenors = &tenors[..];
         if tenors.is_empty() {
             return Err(BootstrapError::NoQuotes);
         }
@@ -203,7 +239,7 @@ impl BootstrapPlan {
             return Err(BootstrapError::ReferenceDate { trade, discount: discount.reference() });
         }
         let mut order: Vec<(usize, CdsContract)> = Vec::with_capacity(tenors.len());
-        for (i, c) in CdsContract::standard_set(trade, tenors, cal).into_iter().enumerate() {
+        for (i, c) in CdsContract::term_set(trade, terms, cal).into_iter().enumerate() {
             order.push((i, c.map_err(|source| BootstrapError::Maturity { index: i, source })?));
         }
         order.sort_by_key(|(_, c)| c.maturity);
@@ -246,6 +282,7 @@ impl BootstrapPlan {
         Ok(BootstrapPlan {
             trade,
             tenors: tenors.to_vec(),
+            maturities: terms.iter().map(|t| t.1).collect(),
             order: idx,
             contracts: contracts.into(),
             node_dates,
@@ -278,7 +315,12 @@ impl BootstrapPlan {
 
     /// Bootstraps one curve. `quotes[i].tenor` must be the plan's `tenors()[i]`.
     pub fn solve(&self, quotes: &[BootstrapQuote], settings: &BootstrapSettings) -> Result<CurveFit, BootstrapError> {
-        if quotes.len() != self.tenors.len() || quotes.iter().zip(&self.tenors).any(|(q, t)| q.tenor != *t) {
+        if quotes.len() != self.tenors.len()
+            || quotes
+                .iter()
+                .zip(self.tenors.iter().zip(&self.maturities))
+                .any(|(q, (t, m))| q.tenor != *t || q.maturity != *m)
+        {
             return Err(BootstrapError::PlanMismatch);
         }
         for (i, q) in quotes.iter().enumerate() {
@@ -303,8 +345,8 @@ pub fn bootstrap(
     for (i, q) in quotes.iter().enumerate() {
         check_quote(i, q)?;
     }
-    let tenors: Vec<Tenor> = quotes.iter().map(|q| q.tenor).collect();
-    let plan = BootstrapPlan::new(trade, &tenors, discount, cal, settings.accrual)?;
+    let terms: Vec<(Tenor, Option<NaiveDate>)> = quotes.iter().map(BootstrapQuote::term).collect();
+    let plan = BootstrapPlan::for_terms(trade, &terms, discount, cal, settings.accrual)?;
     solve_on_plan(&plan, quotes, settings)
 }
 

@@ -166,7 +166,7 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
                             CdsQuote::ParSpread(s) => CdsQuote::ParSpread(s + 1e-4),
                             CdsQuote::Upfront { upfront, coupon } => {
                                 let curve = base_curve.as_ref()?;
-                                let k = CdsContract::standard(c.trade_date, q.tenor, c.calendar).ok()?;
+                                let k = q.contract(c.trade_date, c.calendar).ok()?;
                                 let legs = price_legs(&k, q.recovery, c.discount, curve, c.settings.accrual).ok()?;
                                 CdsQuote::Upfront {
                                     upfront: upfront + 1e-4 * legs.risky_annuity() / legs.cash_settle_df,
@@ -295,6 +295,7 @@ mod tests {
                 tenor: Tenor::from_months(m).unwrap(),
                 quote: CdsQuote::ParSpread(spread_bp / 1e4),
                 recovery,
+                maturity: None,
             })
             .collect()
     }

@@ -86,7 +86,20 @@ impl CdsContract {
         tenors: &[Tenor],
         cal: &Calendar,
     ) -> Vec<Result<CdsContract, MaturityError>> {
-        let mats: Vec<Result<NaiveDate, MaturityError>> = tenors.iter().map(|&t| cds_maturity(trade_date, t)).collect();
+        let terms: Vec<(Tenor, Option<NaiveDate>)> = tenors.iter().map(|&t| (t, None)).collect();
+        CdsContract::term_set(trade_date, &terms, cal)
+    }
+
+    /// As [`CdsContract::standard_set`], a term's maturity replacing its tenor's standard roll
+    /// where it is given (a contract off the standard roll; its schedule as
+    /// [`CdsContract::with_maturity`] builds it).
+    pub fn term_set(
+        trade_date: NaiveDate,
+        terms: &[(Tenor, Option<NaiveDate>)],
+        cal: &Calendar,
+    ) -> Vec<Result<CdsContract, MaturityError>> {
+        let mats: Vec<Result<NaiveDate, MaturityError>> =
+            terms.iter().map(|&(t, m)| m.map_or_else(|| cds_maturity(trade_date, t), Ok)).collect();
         let ok: Vec<NaiveDate> = mats.iter().filter_map(|m| m.as_ref().ok().copied()).collect();
         let mut schedules = crate::time::schedule::cds_schedules(trade_date, &ok, cal).into_iter();
         let protection_start = add_days(trade_date, 1);
@@ -104,7 +117,8 @@ impl CdsContract {
             .collect()
     }
 
-    /// A contract to a given (unadjusted IMM) maturity.
+    /// A contract to a given unadjusted maturity: coupons on the quarterly IMM dates from the
+    /// step-in, the maturity ending the last period (a short stub when it is not an IMM date).
     pub fn with_maturity(trade_date: NaiveDate, maturity: NaiveDate, cal: &Calendar) -> CdsContract {
         CdsContract {
             trade_date,

@@ -70,8 +70,7 @@ impl CirPricer {
         let mut order: Vec<(usize, CdsContract)> = Vec::with_capacity(quotes.len());
         for (i, q) in quotes.iter().enumerate() {
             check_quote(i, q)?;
-            let c = CdsContract::standard(trade, q.tenor, cal)
-                .map_err(|source| CirFitError::Maturity { index: i, source })?;
+            let c = q.contract(trade, cal).map_err(|source| CirFitError::Maturity { index: i, source })?;
             order.push((i, c));
         }
         order.sort_by_key(|(_, c)| c.maturity);
@@ -268,8 +267,10 @@ pub fn cir_par_spreads(
     settings: &CirFitSettings,
 ) -> Result<Vec<f64>, CirFitError> {
     // Any par quote will do: the repriced par spread does not depend on it.
-    let quotes: Vec<BootstrapQuote> =
-        tenors.iter().map(|&tenor| BootstrapQuote { tenor, quote: CdsQuote::ParSpread(0.01), recovery }).collect();
+    let quotes: Vec<BootstrapQuote> = tenors
+        .iter()
+        .map(|&tenor| BootstrapQuote { tenor, quote: CdsQuote::ParSpread(0.01), recovery, maturity: None })
+        .collect();
     let pricer = CirPricer::new(trade, &quotes, discount, cal, settings.grid_step, settings.accrual)?;
     let rows = pricer.residual_rows(p);
     Ok(rows.iter().map(|r| r.model_par_spread_bp / 1e4).collect())
