@@ -226,6 +226,9 @@ fn rate_curves(
         }
     };
     let mut used = 0;
+    // The rows' checks first, in key order; the curves then build in parallel (each is solved
+    // pillar by pillar on its own), and go in (or reject their rows) in key order again.
+    let mut buildable: Vec<((NaiveDate, String), Vec<RateQuoteRow>, RateConvention)> = Vec::new();
     for (key, rows) in groups {
         if curves.contains_key(&key) {
             reject_all(
@@ -245,10 +248,19 @@ fn rate_curves(
             );
             continue;
         };
-        let quotes: Vec<RateQuote> =
-            rows.iter().map(|r| RateQuote { instrument: r.instrument, tenor: r.tenor, rate: r.rate }).collect();
-        let cal = p.rate_calendars.get(&key.1).unwrap_or(&p.calendar);
-        match build_rate_curve(key.0, &quotes, &conv, cal) {
+        buildable.push((key, rows, conv));
+    }
+    let built: Vec<_> = buildable
+        .par_iter()
+        .map(|(key, rows, conv)| {
+            let quotes: Vec<RateQuote> =
+                rows.iter().map(|r| RateQuote { instrument: r.instrument, tenor: r.tenor, rate: r.rate }).collect();
+            let cal = p.rate_calendars.get(&key.1).unwrap_or(&p.calendar);
+            build_rate_curve(key.0, &quotes, conv, cal)
+        })
+        .collect();
+    for ((key, rows, _), b) in buildable.into_iter().zip(built) {
+        match b {
             Ok((c, _)) => {
                 used += rows.len();
                 curves.insert(key, c);

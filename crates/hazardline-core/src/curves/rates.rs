@@ -238,9 +238,12 @@ pub fn build_rate_curve(
         });
     }
     let mut pillars: Vec<(NaiveDate, f64)> = Vec::with_capacity(prepared.len());
+    let trial = std::cell::RefCell::new(Vec::with_capacity(prepared.len()));
     for p in &prepared {
         let f = |x: f64| -> Option<f64> {
-            let mut trial = pillars.clone();
+            let mut trial = trial.borrow_mut();
+            trial.clear();
+            trial.extend_from_slice(&pillars);
             trial.push((p.end, x));
             DiscountCurve::from_log_discount_factors(trade, &trial).ok().map(|c| error_of(p, spot, &c))
         };
