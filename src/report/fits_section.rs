@@ -14,7 +14,7 @@ use std::collections::{BTreeMap, BTreeSet};
 use std::fmt::Write as _;
 use std::path::Path;
 
-fn median(v: &mut [f64]) -> f64 {
+pub(super) fn median(v: &mut [f64]) -> f64 {
     v.sort_by(f64::total_cmp);
     quantile(v, 0.5)
 }

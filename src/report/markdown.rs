@@ -209,20 +209,6 @@ fn settings_sensitivity_dates(m: &Manifest) -> String {
     }
 }
 
-/// The median of `v` (NaN when empty).
-fn median_of(mut v: Vec<f64>) -> f64 {
-    if v.is_empty() {
-        return f64::NAN;
-    }
-    v.sort_by(f64::total_cmp);
-    let n = v.len();
-    if n % 2 == 1 {
-        v[n / 2]
-    } else {
-        0.5 * (v[n / 2 - 1] + v[n / 2])
-    }
-}
-
 /// Section 3's sensitivity subsection: per grade, the median change of each measure under
 /// each shift, over the curves of the sensitivity dates (table `sensitivities`).
 fn sensitivity_summary(w: &mut String, rows: &[tables::SensitivityRow], dates: &str) {
@@ -261,7 +247,11 @@ fn sensitivity_summary(w: &mut String, rows: &[tables::SensitivityRow], dates: &
                 continue;
             }
             let med = |f: &dyn Fn(&tables::SensitivityRow) -> Option<f64>| {
-                median_of(ok.iter().filter_map(|r| f(r)).collect()) * 1e4
+                let mut v: Vec<f64> = ok.iter().filter_map(|r| f(r)).collect();
+                if v.is_empty() {
+                    return f64::NAN;
+                }
+                super::fits_section::median(&mut v) * 1e4
             };
             let _ = writeln!(
                 w,

@@ -130,6 +130,20 @@ struct CurveOutput {
     sensitivities: Vec<SensitivityRow>,
 }
 
+impl CurveOutput {
+    /// A curve not built: its rows rejected, nothing else.
+    fn rejected(rejects: Vec<Reject>) -> CurveOutput {
+        CurveOutput {
+            hazard: Vec::new(),
+            residuals: Vec::new(),
+            rejects,
+            used: 0,
+            fit: None,
+            sensitivities: Vec::new(),
+        }
+    }
+}
+
 /// Builds discount curves per (date, currency); the rows of a curve that cannot be built are
 /// rejected.
 fn discount_curves(
@@ -340,14 +354,7 @@ fn calibrate_one(
         .collect();
     if let Some(why) = unconverted {
         let rejects = rows.iter().map(|r| panel.reject(r, "curve_not_built", format!("{curve_text}: {why}"))).collect();
-        return CurveOutput {
-            hazard: Vec::new(),
-            residuals: Vec::new(),
-            rejects,
-            used: 0,
-            fit: None,
-            sensitivities: Vec::new(),
-        };
+        return CurveOutput::rejected(rejects);
     }
     // The shared plan of this (date, currency, tenor set) when there is one; the plain
     // bootstrap otherwise (same numbers, the plan built for this curve alone).
@@ -361,14 +368,7 @@ fn calibrate_one(
         Err(e) => {
             let rejects =
                 rows.iter().map(|r| panel.reject(r, "curve_not_built", format!("{curve_text}: {e}"))).collect();
-            return CurveOutput {
-                hazard: Vec::new(),
-                residuals: Vec::new(),
-                rejects,
-                used: 0,
-                fit: None,
-                sensitivities: Vec::new(),
-            };
+            return CurveOutput::rejected(rejects);
         }
     };
     let shared = match plan {
@@ -697,10 +697,8 @@ pub fn calibrate_blocks(
                         reference,
                         single.as_ref(),
                     ),
-                    None => CurveOutput {
-                        hazard: Vec::new(),
-                        residuals: Vec::new(),
-                        rejects: rows[a..b]
+                    None => CurveOutput::rejected(
+                        rows[a..b]
                             .iter()
                             .map(|r| {
                                 panel.reject(
@@ -714,10 +712,7 @@ pub fn calibrate_blocks(
                                 )
                             })
                             .collect(),
-                        used: 0,
-                        fit: None,
-                        sensitivities: Vec::new(),
-                    },
+                    ),
                 };
                 progress.inc(1);
                 o

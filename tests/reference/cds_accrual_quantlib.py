@@ -99,7 +99,9 @@ def mode_cases():
     return out
 
 
-def published_table():
+def published_discount_curve():
+    """The published table's discount curve: QuantLib's rate helpers on the test's deposit and
+    swap rates (evaluation date 2009-05-21, set here); returns the curve and its handle."""
     trade = ql.Date(21, 5, 2009)
     ql.Settings.instance().evaluationDate = trade
     helpers = []
@@ -113,7 +115,11 @@ def published_table():
                                          ql.ModifiedFollowing, ql.Thirty360(ql.Thirty360.BondBasis), index))
     curve = ql.PiecewiseLogLinearDiscount(0, ql.WeekendsOnly(), helpers, ql.Actual365Fixed())
     curve.enableExtrapolation()
-    dh = ql.YieldTermStructureHandle(curve)
+    return curve, ql.YieldTermStructureHandle(curve)
+
+
+def published_table():
+    curve, dh = published_discount_curve()
     pillars = [(base.iso(d), df) for d, df in zip(curve.dates(), [curve.discount(d) for d in curve.dates()])]
     ph = ql.RelinkableDefaultProbabilityTermStructureHandle()
     rows = []

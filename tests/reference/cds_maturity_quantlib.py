@@ -42,21 +42,7 @@ RECOVERY = 0.4
 
 
 def main():
-    trade = ql.Date(21, 5, 2009)
-    ql.Settings.instance().evaluationDate = trade
-    helpers = []
-    P = acc.PUBLISHED
-    for m, r in zip(P["deposits"]["tenors_months"], P["deposits"]["rates"]):
-        helpers.append(ql.DepositRateHelper(r, ql.Period(m, ql.Months), 2, ql.WeekendsOnly(),
-                                            ql.ModifiedFollowing, False, ql.Actual360()))
-    index = ql.IborIndex("IsdaIbor", ql.Period(3, ql.Months), 2, ql.USDCurrency(), ql.WeekendsOnly(),
-                         ql.ModifiedFollowing, False, ql.Actual360())
-    for y, r in zip(P["swaps"]["tenors_years"], P["swaps"]["rates"]):
-        helpers.append(ql.SwapRateHelper(r, ql.Period(y, ql.Years), ql.WeekendsOnly(), ql.Semiannual,
-                                         ql.ModifiedFollowing, ql.Thirty360(ql.Thirty360.BondBasis), index))
-    curve = ql.PiecewiseLogLinearDiscount(0, ql.WeekendsOnly(), helpers, ql.Actual365Fixed())
-    curve.enableExtrapolation()
-    dh = ql.YieldTermStructureHandle(curve)
+    _, dh = acc.published_discount_curve()
     rows = []
     for iso in MATURITIES:
         y, m, d = (int(x) for x in iso.split("-"))
