@@ -26,8 +26,19 @@ struct Cli {
     /// Only errors.
     #[arg(short, long, global = true)]
     quiet: bool,
+    /// Log lines on stderr as text, or as one JSON object per line (for schedulers and log
+    /// collectors; `run` and `merge` then also log each stage's timing and memory and each
+    /// table's row counts).
+    #[arg(long, value_enum, default_value = "text", global = true)]
+    log_format: LogFormat,
     #[command(subcommand)]
     command: Command,
+}
+
+#[derive(Clone, Copy, PartialEq, ValueEnum)]
+enum LogFormat {
+    Text,
+    Json,
 }
 
 #[derive(Clone, Copy, ValueEnum)]
@@ -231,7 +242,7 @@ enum Command {
     },
 }
 
-fn init_logging(verbose: u8, quiet: bool) {
+fn init_logging(verbose: u8, quiet: bool, format: LogFormat) {
     let level = if quiet {
         "error"
     } else {
@@ -242,13 +253,21 @@ fn init_logging(verbose: u8, quiet: bool) {
             _ => "trace",
         }
     };
+    // In JSON the stage timings and row counts are logged whatever the level (not under -q).
+    let level = match format {
+        LogFormat::Json if !quiet => format!("{level},hazardline::stage=info,hazardline::counts=info"),
+        _ => level.to_string(),
+    };
     let filter = tracing_subscriber::EnvFilter::try_from_default_env()
         .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new(level));
-    let _ = tracing_subscriber::fmt()
-        .with_env_filter(filter)
-        .with_writer(std::io::stderr)
-        .with_ansi(std::io::stderr().is_terminal())
-        .try_init();
+    let builder = tracing_subscriber::fmt().with_env_filter(filter).with_writer(std::io::stderr);
+    let _ = match format {
+        LogFormat::Text => builder.with_ansi(std::io::stderr().is_terminal()).try_init(),
+        LogFormat::Json => {
+            hazardline::report::progress::HIDDEN.store(true, std::sync::atomic::Ordering::Relaxed);
+            builder.json().flatten_event(true).with_current_span(false).try_init()
+        }
+    };
 }
 
 fn calendar_of(inputs: &Inputs) -> Result<Calendar> {
@@ -364,11 +383,16 @@ fn dispatch(command: Command) -> Result<u8> {
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
-    init_logging(cli.verbose, cli.quiet);
+    init_logging(cli.verbose, cli.quiet, cli.log_format);
     match dispatch(cli.command) {
         Ok(code) => ExitCode::from(code),
         Err(e) => {
-            eprintln!("error: {e}");
+            if cli.log_format == LogFormat::Json {
+                // The error as a JSON line like every other on stderr.
+                tracing::error!(target: "hazardline::exit", exit_code = e.exit_code(), "{e}");
+            } else {
+                eprintln!("error: {e}");
+            }
             ExitCode::from(e.exit_code())
         }
     }

@@ -34,7 +34,7 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
         .collect();
     let mut cal = combine(parts)?;
     let (rss, peak) = memory_mib();
-    timings.push(("read parts".into(), t.elapsed().as_secs_f64(), rss, peak));
+    timings.push(partition::logged(("read parts".into(), t.elapsed().as_secs_f64(), rss, peak)));
     let params = calibration_params(cfg);
     let folder = RunFolder::create(cfg, opts, period)?;
     let meta = table_metadata(cfg, &params);
@@ -49,7 +49,7 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let t = Instant::now();
     (cal.hazard, cal.residuals) = merge_part_rows(&dirs, &recorded, &mut sinks)?;
     let (rss, peak) = memory_mib();
-    timings.push(("merge curves".into(), t.elapsed().as_secs_f64(), rss, peak));
+    timings.push(partition::logged(("merge curves".into(), t.elapsed().as_secs_f64(), rss, peak)));
     finish(cfg, ds, ingest_counts, cal, sinks, &multi, folder, &meta, timings, t0)
 }
 

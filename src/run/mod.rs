@@ -277,7 +277,7 @@ fn ingest(cfg: &RunConfig, timings: &mut Vec<StageTiming>) -> Result<Dataset> {
     let base = cfg.pipeline_path.parent().map(Path::to_path_buf).unwrap_or_default();
     ds.relabel_sources(&base);
     let (rss, peak) = memory_mib();
-    timings.push(("ingest".into(), t.elapsed().as_secs_f64(), rss, peak));
+    timings.push(partition::logged(("ingest".into(), t.elapsed().as_secs_f64(), rss, peak)));
     Ok(ds)
 }
 
@@ -435,7 +435,7 @@ pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard, dates: DateRa
     let (curves, entities) = (part.curves, part.curve_entities.len());
     write_partition(folder, sinks, part, shard, &sha, inputs)?;
     let (rss, peak) = memory_mib();
-    timings.push(("write part".into(), t.elapsed().as_secs_f64(), rss, peak));
+    timings.push(partition::logged(("write part".into(), t.elapsed().as_secs_f64(), rss, peak)));
     write_text(&dir.join("run.log"), &stage_log(&timings, t0.elapsed().as_secs_f64()))?;
     Ok(ShardSummary { part_dir: dir, curves, entities, timings })
 }
@@ -466,7 +466,7 @@ fn finish(
     let (digest, folds) = sinks.finish(std::mem::take(&mut cal.hazard), std::mem::take(&mut cal.residuals))?;
     let digest = digest.unwrap_or_else(|| RowDigest::new(multi, &cfg.stability));
     let (rss, peak) = memory_mib();
-    timings.push(("write curves".into(), t.elapsed().as_secs_f64(), rss, peak));
+    timings.push(partition::logged(("write curves".into(), t.elapsed().as_secs_f64(), rss, peak)));
 
     // Accounting after calibration: the rows its stages rejected move from used to rejected.
     let mut counts = ingest_counts.clone();
@@ -501,7 +501,7 @@ fn finish(
         BacktestResults::default()
     };
     let (rss, peak) = memory_mib();
-    timings.push(("backtest".into(), t.elapsed().as_secs_f64(), rss, peak));
+    timings.push(partition::logged(("backtest".into(), t.elapsed().as_secs_f64(), rss, peak)));
     let RunFolder { label, target } = folder;
     let work = target.work().to_path_buf();
     let tables = work.join("tables");
@@ -518,7 +518,7 @@ fn finish(
     );
     let stability = run_stability(inputs, &cfg.stability)?;
     let (rss, peak) = memory_mib();
-    timings.push(("stability".into(), t.elapsed().as_secs_f64(), rss, peak));
+    timings.push(partition::logged(("stability".into(), t.elapsed().as_secs_f64(), rss, peak)));
 
     let t2 = Instant::now();
     let mut rejects = std::mem::take(&mut ds.rejects);
@@ -536,13 +536,25 @@ fn finish(
     let red_flags = all_flags.iter().filter(|f| f.flag.severity == Severity::Red).count();
     crate::tables::write(&all_flags, &tables, &meta)?;
     let (rss, peak) = memory_mib();
-    timings.push(("write tables".into(), t2.elapsed().as_secs_f64(), rss, peak));
+    timings.push(partition::logged(("write tables".into(), t2.elapsed().as_secs_f64(), rss, peak)));
 
     // Manifest.
     let (bytes, sha) = hash_file(&cfg.pipeline_path)?;
     let inputs = input_records(cfg, &ingest_counts)?;
     let mut count_rows = counts_records("ingest", &ingest_counts);
     count_rows.extend(counts_records("calibrate", &counts));
+    for c in &count_rows {
+        tracing::info!(
+            target: "hazardline::counts",
+            stage = %c.stage,
+            table = %c.table,
+            rows_in = c.rows_in,
+            used = c.used,
+            rejected = c.rejected,
+            flagged = c.flagged,
+            "row accounting"
+        );
+    }
     let manifest = Manifest {
         tool: "hazardline".into(),
         version: env!("CARGO_PKG_VERSION").into(),
@@ -574,7 +586,7 @@ fn finish(
     let t3 = Instant::now();
     markdown::render_with(&work, folds)?;
     let (rss, peak) = memory_mib();
-    timings.push(("report".into(), t3.elapsed().as_secs_f64(), rss, peak));
+    timings.push(partition::logged(("report".into(), t3.elapsed().as_secs_f64(), rss, peak)));
     let total = t0.elapsed().as_secs_f64();
     write_text(&work.join("run.log"), &stage_log(&timings, total))?;
 

@@ -73,7 +73,21 @@ pub type StageTiming = (String, f64, f64, f64);
 
 fn timed(name: &str, t: Instant) -> StageTiming {
     let (rss, peak) = crate::run::memory_mib();
-    (name.to_string(), t.elapsed().as_secs_f64(), rss, peak)
+    logged((name.to_string(), t.elapsed().as_secs_f64(), rss, peak))
+}
+
+/// Logs a stage's timing (target `hazardline::stage`: fields stage, seconds, rss_mib,
+/// peak_rss_mib), as `--log-format json` writes it for schedulers, and hands it back.
+pub fn logged(t: StageTiming) -> StageTiming {
+    tracing::info!(
+        target: "hazardline::stage",
+        stage = %t.0,
+        seconds = t.1,
+        rss_mib = t.2,
+        peak_rss_mib = t.3,
+        "stage done"
+    );
+    t
 }
 
 /// What the report takes from the node and residual tables (see [`NodeFold`]).

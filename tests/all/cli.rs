@@ -268,3 +268,56 @@ fn parquet_nan_infinity_and_out_of_range_dates_get_the_csv_reasons() {
     let reason = |r: &str| out.lines().any(|l| l.contains("cds_quotes") && l.contains(r));
     assert!(reason("unparseable_number") && reason("unparseable_date"), "{out}");
 }
+
+/// `--log-format json`: every line on stderr is one JSON object; a run logs each stage's
+/// timing and memory (target `hazardline::stage`) and each table's row accounting (target
+/// `hazardline::counts`, rows in = used + rejected) even at the default level; an error is a
+/// JSON line too, with its exit code (2).
+#[test]
+fn json_log_lines_carry_stages_and_counts() {
+    let dir = tempfile::tempdir().unwrap();
+    let cds = write(dir.path(), "cds.csv", &quotes());
+    let disc = write(dir.path(), "disc.csv", DISCOUNT);
+    let p = write(
+        dir.path(),
+        "p.toml",
+        &format!(
+            "name = \"j\"\n[inputs]\ncds_quotes = {:?}\ndiscount = {:?}\n[report]\nlabel = \"r\"\n",
+            cds.display().to_string(),
+            disc.display().to_string()
+        ),
+    );
+    let a = Command::cargo_bin("hazardline")
+        .unwrap()
+        .args(["--log-format", "json", "run"])
+        .arg(&p)
+        .arg("--out")
+        .arg(dir.path().join("out"))
+        .assert()
+        .success();
+    let stderr = String::from_utf8(a.get_output().stderr.clone()).unwrap();
+    let lines: Vec<serde_json::Value> =
+        stderr.lines().map(|l| serde_json::from_str(l).unwrap_or_else(|e| panic!("{e}: {l}"))).collect();
+    let of = |target: &str| lines.iter().filter(|v| v["target"] == target).collect::<Vec<_>>();
+    let stages: Vec<&str> = of("hazardline::stage").iter().map(|v| v["stage"].as_str().unwrap()).collect();
+    assert!(stages.contains(&"ingest") && stages.contains(&"report"), "{stages:?}");
+    assert!(of("hazardline::stage")
+        .iter()
+        .all(|v| v["seconds"].as_f64().unwrap() >= 0.0 && v["peak_rss_mib"].as_f64().unwrap() > 0.0));
+    let cds_counts =
+        of("hazardline::counts").into_iter().find(|v| v["stage"] == "calibrate" && v["table"] == "cds_quotes").unwrap();
+    let n = |k: &str| cds_counts[k].as_u64().unwrap();
+    assert_eq!(n("rows_in"), n("used") + n("rejected"));
+    assert_eq!((n("rows_in"), n("rejected")), (17, 5));
+
+    let a = Command::cargo_bin("hazardline")
+        .unwrap()
+        .args(["--log-format", "json", "run"])
+        .arg(dir.path().join("missing.toml"))
+        .assert()
+        .code(2);
+    let stderr = String::from_utf8(a.get_output().stderr.clone()).unwrap();
+    let v: serde_json::Value = serde_json::from_str(stderr.trim()).unwrap();
+    assert_eq!((v["level"].as_str(), v["exit_code"].as_u64()), (Some("ERROR"), Some(2)));
+    assert!(v["message"].as_str().unwrap().contains("missing.toml"));
+}
