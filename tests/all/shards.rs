@@ -409,3 +409,47 @@ fn merge_refuses_parts_that_were_tampered_with_or_made_from_other_inputs() {
     // Untouched, the parts merge.
     hazardline(&["merge", &pipeline, "--out", o, "--label", "r"]).success();
 }
+
+/// The Dask driver (pipelines/dask-shards.py, Dask distributed from PyPI): 2 shards x 2 date
+/// ranges as tasks on a LocalCluster on loopback, then the merge, give the single run's files
+/// byte for byte. Skipped with a notice where Python has no `dask.distributed` (outside CI;
+/// `.ci/run` installs it, and sets CI, under which a missing package fails the test).
+#[test]
+fn dask_parts_merge_into_the_single_runs_bytes() {
+    let python = std::env::var("HAZARDLINE_PYTHON").unwrap_or_else(|_| "python3".into());
+    let has_dask =
+        std::process::Command::new(&python).args(["-c", "import dask.distributed"]).status().is_ok_and(|s| s.success());
+    if !has_dask {
+        assert!(std::env::var_os("CI").is_none(), "dask.distributed is missing under CI");
+        eprintln!("skipped: {python} cannot import dask.distributed (pip install \"dask[distributed]\")");
+        return;
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let pipeline = universe(&dir.path().join("data"));
+    let one = single(&pipeline, &dir.path().join("single"));
+    let out = dir.path().join("dask");
+    let bin = assert_cmd::cargo::cargo_bin("hazardline");
+    let status = std::process::Command::new(&python)
+        .arg(crate::support::repo().join("pipelines/dask-shards.py"))
+        .args([&pipeline, "2", "--dates", "..2015-11-30", "2015-12-01..", "--workers", "2", "--hazardline"])
+        .arg(&bin)
+        .args(["--", "--out", out.to_str().unwrap(), "--label", "r", "-q"])
+        .status()
+        .unwrap();
+    assert!(status.success());
+    let parts = std::fs::read_dir(out.join("demo/r.shards")).unwrap().count();
+    assert_eq!(parts, 4);
+    assert_same(&one, &files(&out.join("demo/r"), &["run.log"]), "the Dask run");
+    // A part that keeps failing stops the run after its retries, without a merge.
+    let failed = dir.path().join("failed");
+    let status = std::process::Command::new(&python)
+        .arg(crate::support::repo().join("pipelines/dask-shards.py"))
+        .args([&pipeline, "2", "--retries", "1", "--hazardline"])
+        .arg(dir.path().join("no-such-binary"))
+        .args(["--", "--out", failed.to_str().unwrap(), "--label", "r"])
+        .stderr(std::process::Stdio::null())
+        .status()
+        .unwrap();
+    assert!(!status.success());
+    assert!(!failed.join("demo/r").exists());
+}
