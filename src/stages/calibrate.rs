@@ -305,7 +305,6 @@ fn calibrate_one(
 ) -> CurveOutput {
     let h = rows[0];
     let (date, entity, currency) = (h.date, panel.entities.name(h.entity), panel.currencies.name(h.currency));
-    let curve_text = panel.curve_text(&h);
     // A quoted spread trades as the upfront its flat hazard gives at its running coupon: the
     // conversion needs the day's discount curve, so it happens here.
     let mut unconverted: Option<String> = None;
@@ -353,6 +352,7 @@ fn calibrate_one(
         })
         .collect();
     if let Some(why) = unconverted {
+        let curve_text = panel.curve_text(&h);
         let rejects = rows.iter().map(|r| panel.reject(r, "curve_not_built", format!("{curve_text}: {why}"))).collect();
         return CurveOutput::rejected(rejects);
     }
@@ -366,8 +366,10 @@ fn calibrate_one(
     let fit = match fitted {
         Ok(f) => f,
         Err(e) => {
-            let rejects =
-                rows.iter().map(|r| panel.reject(r, "curve_not_built", format!("{curve_text}: {e}"))).collect();
+            let rejects = rows
+                .iter()
+                .map(|r| panel.reject(r, "curve_not_built", format!("{}: {e}", panel.curve_text(&h))))
+                .collect();
             return CurveOutput::rejected(rejects);
         }
     };

@@ -110,6 +110,17 @@ pub(crate) fn fixed_labels(
     Ok(c.str().map_err(|e| err(path, name, e))?.iter().map(|v| label(v.unwrap_or(""), known)).collect())
 }
 
+/// [`fixed_labels`] of a nullable column: None where the cell is empty.
+pub(crate) fn opt_fixed_labels(
+    df: &DataFrame,
+    path: &Path,
+    name: &str,
+    known: &[&'static str],
+) -> Result<Vec<Option<&'static str>>> {
+    let c = df.column(name).map_err(|e| err(path, name, e))?;
+    Ok(c.str().map_err(|e| err(path, name, e))?.iter().map(|v| v.map(|v| label(v, known))).collect())
+}
+
 /// Interns a string read back from a table into one of the fixed labels the records use; a
 /// label outside `known` is kept as read (interned once per distinct value), so reading back
 /// never changes a table.

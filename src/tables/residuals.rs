@@ -3,7 +3,7 @@
 //! as one file or (large runs) a folder of a file per method and year.
 
 use super::parquet::{FileKey, RowGroupWriter, SplitWriter, TableBuilder, TableWriter};
-use super::readback::{dates, fixed_labels, floats, labels, opt_labels, strs, text_form};
+use super::readback::{dates, fixed_labels, floats, labels, opt_fixed_labels, opt_labels, strs, text_form};
 use super::{col, curves::Label, metadata_of, Column, Kind::*, Table};
 use crate::error::Result;
 use crate::text::{FitMethod, RowStatus};
@@ -53,6 +53,38 @@ pub struct QuoteConversion {
 /// The quote types a conversion names.
 pub const QUOTE_TYPES: &[&str] = &["par_spread", "quoted_spread", "upfront"];
 
+/// The five conversion columns, shared by `calibration_residuals` and `cds_quote_conversions`
+/// (empty where a row has none).
+fn with_conversions<'a>(b: TableBuilder, c: impl Iterator<Item = Option<&'a QuoteConversion>> + Clone) -> TableBuilder {
+    b.strings("quote_type", c.clone().map(|c| c.map(|c| c.quote_type)))
+        .floats("standard_coupon_bp", c.clone().map(|c| c.map(|c| c.standard_coupon_bp)))
+        .floats("par_spread_bp", c.clone().map(|c| c.map(|c| c.par_spread_bp)))
+        .floats("standard_upfront", c.clone().map(|c| c.map(|c| c.standard_upfront)))
+        .floats("quoted_spread_bp", c.map(|c| c.and_then(|c| c.quoted_spread_bp)))
+}
+
+/// The conversion columns read back, per row (None where `quote_type` is empty).
+fn read_conversions(df: &DataFrame, path: &Path) -> Result<Vec<Option<QuoteConversion>>> {
+    let (qt, sc, ps, su, qs) = (
+        opt_fixed_labels(df, path, "quote_type", QUOTE_TYPES)?,
+        floats(df, path, "standard_coupon_bp")?,
+        floats(df, path, "par_spread_bp")?,
+        floats(df, path, "standard_upfront")?,
+        floats(df, path, "quoted_spread_bp")?,
+    );
+    Ok((0..df.height())
+        .map(|i| {
+            qt[i].map(|quote_type| QuoteConversion {
+                quote_type,
+                standard_coupon_bp: sc[i].unwrap_or(f64::NAN),
+                par_spread_bp: ps[i].unwrap_or(f64::NAN),
+                standard_upfront: su[i].unwrap_or(f64::NAN),
+                quoted_spread_bp: qs[i],
+            })
+        })
+        .collect())
+}
+
 impl Table for ResidualRow {
     const NAME: &'static str = "calibration_residuals";
     const COLUMNS: &'static [Column] = &[
@@ -83,7 +115,7 @@ impl Table for ResidualRow {
     }
 
     fn frame(rows: &[Self]) -> Result<DataFrame> {
-        TableBuilder::new()
+        let b = TableBuilder::new()
             .dates("date", rows.iter().map(|r| Some(r.date)))
             .strings("entity", rows.iter().map(|r| Some(&r.entity)))
             .strings("currency", rows.iter().map(|r| Some(&r.currency)))
@@ -95,24 +127,13 @@ impl Table for ResidualRow {
             .floats("market", rows.iter().map(|r| Some(r.market)))
             .floats("model", rows.iter().map(|r| Some(r.model)))
             .floats("residual_bp", rows.iter().map(|r| Some(r.residual_bp)))
-            .strings("status", rows.iter().map(|r| Some(r.status.as_str())))
-            .strings("quote_type", rows.iter().map(|r| r.conversion.map(|c| c.quote_type)))
-            .floats("standard_coupon_bp", rows.iter().map(|r| r.conversion.map(|c| c.standard_coupon_bp)))
-            .floats("par_spread_bp", rows.iter().map(|r| r.conversion.map(|c| c.par_spread_bp)))
-            .floats("standard_upfront", rows.iter().map(|r| r.conversion.map(|c| c.standard_upfront)))
-            .floats("quoted_spread_bp", rows.iter().map(|r| r.conversion.and_then(|c| c.quoted_spread_bp)))
-            .finish()
+            .strings("status", rows.iter().map(|r| Some(r.status.as_str())));
+        with_conversions(b, rows.iter().map(|r| r.conversion.as_ref())).finish()
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
         let (sen, doc) = (opt_labels(df, path, "seniority")?, opt_labels(df, path, "doc_clause")?);
-        let (qt, sc, ps, su, qs) = (
-            strs(df, path, "quote_type")?,
-            floats(df, path, "standard_coupon_bp")?,
-            floats(df, path, "par_spread_bp")?,
-            floats(df, path, "standard_upfront")?,
-            floats(df, path, "quoted_spread_bp")?,
-        );
+        let mut conversions = read_conversions(df, path)?;
         let (d, e, c, me, ins, t, mk, mo, r, st) = (
             dates(df, path, "date")?,
             labels(df, path, "entity")?,
@@ -141,25 +162,7 @@ impl Table for ResidualRow {
                     model: mo[i].unwrap_or(f64::NAN),
                     residual_bp: r[i].unwrap_or(f64::NAN),
                     status: text_form(st[i].as_deref(), "status", path, i)?,
-                    conversion: match qt[i].as_deref() {
-                        None => None,
-                        Some(t) => Some(QuoteConversion {
-                            quote_type: QUOTE_TYPES.iter().find(|q| **q == t).copied().ok_or_else(|| {
-                                crate::error::Error::Read {
-                                    path: path.to_path_buf(),
-                                    format: "Parquet",
-                                    message: format!(
-                                        "column quote_type, row {}: {t:?} is not one of {QUOTE_TYPES:?}",
-                                        i + 1
-                                    ),
-                                }
-                            })?,
-                            standard_coupon_bp: sc[i].unwrap_or(f64::NAN),
-                            par_spread_bp: ps[i].unwrap_or(f64::NAN),
-                            standard_upfront: su[i].unwrap_or(f64::NAN),
-                            quoted_spread_bp: qs[i],
-                        }),
-                    },
+                    conversion: conversions[i].take(),
                 })
             })
             .collect()
@@ -267,20 +270,15 @@ impl Table for QuoteConversionRow {
     }
 
     fn frame(rows: &[Self]) -> Result<DataFrame> {
-        TableBuilder::new()
+        let b = TableBuilder::new()
             .dates("date", rows.iter().map(|r| Some(r.date)))
             .strings("entity", rows.iter().map(|r| Some(&r.entity)))
             .strings("currency", rows.iter().map(|r| Some(&r.currency)))
             .strings("seniority", rows.iter().map(|r| r.seniority.as_deref()))
             .strings("doc_clause", rows.iter().map(|r| r.doc_clause.as_deref()))
             .strings("tenor", rows.iter().map(|r| Some(&r.tenor)))
-            .strings("status", rows.iter().map(|r| Some(r.status.as_str())))
-            .strings("quote_type", rows.iter().map(|r| Some(r.conversion.quote_type)))
-            .floats("standard_coupon_bp", rows.iter().map(|r| Some(r.conversion.standard_coupon_bp)))
-            .floats("par_spread_bp", rows.iter().map(|r| Some(r.conversion.par_spread_bp)))
-            .floats("standard_upfront", rows.iter().map(|r| Some(r.conversion.standard_upfront)))
-            .floats("quoted_spread_bp", rows.iter().map(|r| r.conversion.quoted_spread_bp))
-            .finish()
+            .strings("status", rows.iter().map(|r| Some(r.status.as_str())));
+        with_conversions(b, rows.iter().map(|r| Some(&r.conversion))).finish()
     }
 
     fn rows(df: &DataFrame, path: &Path) -> Result<Vec<Self>> {
@@ -292,13 +290,7 @@ impl Table for QuoteConversionRow {
             strs(df, path, "status")?,
         );
         let (sen, doc) = (opt_labels(df, path, "seniority")?, opt_labels(df, path, "doc_clause")?);
-        let (qt, sc, ps, su, qs) = (
-            fixed_labels(df, path, "quote_type", QUOTE_TYPES)?,
-            floats(df, path, "standard_coupon_bp")?,
-            floats(df, path, "par_spread_bp")?,
-            floats(df, path, "standard_upfront")?,
-            floats(df, path, "quoted_spread_bp")?,
-        );
+        let mut conversions = read_conversions(df, path)?;
         (0..df.height())
             .map(|i| {
                 Ok(QuoteConversionRow {
@@ -309,13 +301,11 @@ impl Table for QuoteConversionRow {
                     doc_clause: doc[i].clone(),
                     tenor: t[i].clone(),
                     status: text_form(st[i].as_deref(), "status", path, i)?,
-                    conversion: QuoteConversion {
-                        quote_type: qt[i],
-                        standard_coupon_bp: sc[i].unwrap_or(f64::NAN),
-                        par_spread_bp: ps[i].unwrap_or(f64::NAN),
-                        standard_upfront: su[i].unwrap_or(f64::NAN),
-                        quoted_spread_bp: qs[i],
-                    },
+                    conversion: conversions[i].take().ok_or_else(|| crate::error::Error::Read {
+                        path: path.to_path_buf(),
+                        format: "Parquet",
+                        message: format!("column quote_type, row {}: empty", i + 1),
+                    })?,
                 })
             })
             .collect()
