@@ -39,10 +39,11 @@ def to_day(value: DateLike) -> int:
 def to_days(values: Iterable[DateLike]) -> List[int]:
     """Day numbers of a column of dates: a sequence, a numpy array, an Arrow or polars column."""
     if hasattr(values, "to_numpy") and not isinstance(values, np.ndarray):
+        column: Any = values
         try:
-            values = values.to_numpy(zero_copy_only=False)  # pyarrow
+            values = column.to_numpy(zero_copy_only=False)  # pyarrow
         except TypeError:
-            values = values.to_numpy()  # polars, pandas
+            values = column.to_numpy()  # polars, pandas
     if isinstance(values, np.ndarray):
         if np.issubdtype(values.dtype, np.datetime64):
             if np.isnat(values).any():

@@ -9,9 +9,9 @@ import numpy as np
 import pyarrow as pa
 
 from . import _core
-from ._dates import from_day, to_days
+from ._dates import from_day
 from .curves import Calendar, DiscountCurve, WEEKENDS_ONLY, discount_curves_from_table
-from .frames import columns, finish
+from .frames import arrow_table, date_numbers, finish, numbers, text_codes
 
 _NO_MATURITY = -(2**31)
 
@@ -55,8 +55,8 @@ def _discount_for(discount, keys) -> Tuple[List[int], List[Any]]:
     if not isinstance(discount, Mapping):
         discount = discount_curves_from_table(discount)
     index: Dict[Any, int] = {}
-    curves = []
-    out = []
+    curves: List[Any] = []
+    out: List[int] = []
     for key in keys:
         day, ccy = from_day(key[0]), key[2]
         found = discount.get((day, ccy)) if (day, ccy) in discount else discount.get(day)
@@ -108,96 +108,91 @@ def bootstrap(
     """
     if errors not in ("raise", "return"):
         raise ValueError(f"errors {errors!r} is not one of 'raise', 'return'")
-    cols = columns(quotes)
-    if "date" not in cols or "tenor" not in cols:
+    t = arrow_table(quotes)
+    if "date" not in t.column_names or "tenor" not in t.column_names:
         raise _core.HazardlineError("the quotes need the columns date and tenor")
-    n = len(cols["date"])
-    none = [None] * n
-    days = to_days(cols["date"])
-    entity = cols.get("entity", [""] * n)
-    currency = cols.get("currency", ["USD"] * n)
-    seniority = cols.get("seniority", none)
-    doc = cols.get("doc_clause", none)
-    par = cols.get("par_spread_bp", none)
-    upf = cols.get("upfront", none)
-    quoted = cols.get("quoted_spread_bp", none)
-    coupon = cols.get("coupon_bp", none)
-    rec = cols.get("recovery", none)
-    mat = cols.get("maturity", none)
-    mat_days = [(_NO_MATURITY if m is None else d) for m, d in zip(mat, to_days([m if m is not None else 0 for m in mat]))]
+    n = t.num_rows
+    days = date_numbers(t.column("date"), "date")
+    entity_codes, entities = text_codes(t, "entity", "")
+    currency_codes, currencies = text_codes(t, "currency", "USD")
+    seniority_codes, seniorities = text_codes(t, "seniority", None)
+    doc_codes, docs = text_codes(t, "doc_clause", None)
+    par, upf, quoted = (numbers(t, c) for c in ("par_spread_bp", "upfront", "quoted_spread_bp"))
+    coupon, rec = numbers(t, "coupon_bp"), numbers(t, "recovery")
+    given = (~np.isnan(par)).astype(int) + (~np.isnan(upf)) + (~np.isnan(quoted))
+    if n and (given != 1).any():
+        i = int(np.argmax(given != 1))
+        raise _core.HazardlineError(
+            f"quote row {i} ({from_day(days[i])} {entities[entity_codes[i]] if entity_codes[i] >= 0 else ''}): "
+            "give exactly one of par_spread_bp, upfront, quoted_spread_bp"
+        )
+    bad_upfront = ~np.isnan(upf) & np.isnan(coupon)
+    if bad_upfront.any():
+        raise _core.HazardlineError(f"quote row {int(np.argmax(bad_upfront))}: an upfront needs its coupon_bp")
+    if "maturity" in t.column_names:
+        mat = t.column("maturity")
+        valid = np.asarray(mat.is_valid().to_numpy(zero_copy_only=False), dtype=bool)
+        mat_days = np.where(valid, date_numbers(mat.fill_null(0) if pa.types.is_integer(mat.type) else mat, "maturity", allow_null=True), _NO_MATURITY)
+    else:
+        mat_days = np.full(n, _NO_MATURITY, dtype=np.int64)
 
-    groups: Dict[tuple, List[int]] = {}
-    for i in range(n):
-        groups.setdefault((days[i], entity[i], currency[i], seniority[i] or "", doc[i] or ""), []).append(i)
-    keys = sorted(groups)
-    trades, starts, order = [], [0], []
-    kinds, values, coupons, recoveries = [], [], [], []
-    for key in keys:
-        trades.append(key[0])
-        for i in groups[key]:
-            given = [x is not None for x in (par[i], upf[i], quoted[i])]
-            if sum(given) != 1:
-                raise _core.HazardlineError(
-                    f"quote row {i} ({from_day(days[i])} {entity[i]} {cols['tenor'][i]}): give exactly one of par_spread_bp, upfront, quoted_spread_bp"
-                )
-            if par[i] is not None:
-                kinds.append(0)
-                values.append(float(par[i]) / 1e4)
-                coupons.append(0.0)
-            else:
-                c = coupon[i]
-                if c is None and upf[i] is not None:
-                    raise _core.HazardlineError(f"quote row {i}: an upfront needs its coupon_bp")
-                coupons.append((standard_coupon_bp if c is None else float(c)) / 1e4)
-                kinds.append(1 if upf[i] is not None else 2)
-                values.append(float(upf[i]) if upf[i] is not None else float(quoted[i]) / 1e4)
-            recoveries.append(float(recovery if rec[i] is None else rec[i]))
-            order.append(i)
-        starts.append(len(order))
-    tenors = [cols["tenor"][i] for i in order]
-    maturities = [mat_days[i] for i in order]
-    discount_index, discounts = _discount_for(discount, keys)
+    # Curves: (date, entity, currency, seniority, doc_clause), sorted by value; quotes in input order.
+    order = np.lexsort((doc_codes, seniority_codes, currency_codes, entity_codes, days))
+    keys = np.stack([days, entity_codes, currency_codes, seniority_codes, doc_codes])[:, order]
+    change = np.ones(n, dtype=bool)
+    if n:
+        change[1:] = (keys[:, 1:] != keys[:, :-1]).any(axis=0)
+    first = np.flatnonzero(change)
+    starts = np.append(first, n)
+    kinds = np.where(~np.isnan(par), 0, np.where(~np.isnan(upf), 1, 2))[order]
+    values = np.where(~np.isnan(par), par / 1e4, np.where(~np.isnan(upf), upf, quoted / 1e4))[order]
+    coupons = np.where(np.isnan(par), np.where(np.isnan(coupon), standard_coupon_bp, coupon) / 1e4, 0.0)[order]
+    recoveries = np.where(np.isnan(rec), recovery, rec)[order]
+    tenors = t.column("tenor").cast(pa.string()).take(pa.array(order)).to_pylist()
+    if any(x is None for x in tenors):
+        raise _core.HazardlineError(f"quote row {int(order[tenors.index(None)])}: no tenor")
+    curve_keys = [
+        (int(k[0]), _name(entities, k[1], ""), _name(currencies, k[2], "USD"), _name(seniorities, k[3], None), _name(docs, k[4], None))
+        for k in keys[:, first].T.tolist()
+    ]
+    discount_index, discounts = _discount_for(discount, curve_keys)
     if calendar is None or isinstance(calendar, Calendar):
         cals = [(calendar or WEEKENDS_ONLY)._inner]
-        calendar_index = [0] * len(keys)
+        calendar_index = [0] * len(curve_keys)
     else:
-        names = sorted({k[2] for k in keys})
+        names = sorted({k[2] for k in curve_keys})
         cals = [(calendar.get(c) or WEEKENDS_ONLY)._inner for c in names]
-        calendar_index = [names.index(k[2]) for k in keys]
+        calendar_index = [names.index(k[2]) for k in curve_keys]
     raw = _core.bootstrap_columns(
-        trades, starts, discount_index, calendar_index, tenors, maturities, kinds, values, coupons, recoveries,
-        discounts, cals, accrual, infeasible,
+        keys[0, first].tolist(), starts.tolist(), discount_index, calendar_index, tenors, mat_days[order].tolist(),
+        kinds.tolist(), values.tolist(), coupons.tolist(), recoveries.tolist(), discounts, cals, accrual, infeasible,
     )
-    curve = np.asarray(raw["curve"], dtype=np.int64)
-    key_cols = list(zip(*keys)) if keys else [(), (), (), (), ()]
+    curve = pa.array(np.asarray(raw["curve"], dtype=np.int64))
 
-    def per_node(j: int, blank_none: bool) -> List[Any]:
-        vals = key_cols[j]
-        if blank_none:
-            return [vals[c] or None for c in curve]
-        return [vals[c] for c in curve]
+    def per_node(j: int) -> pa.Array:
+        return pa.array([k[j] for k in curve_keys], pa.string()).take(curve)
 
     table = pa.table(
         {
-            "date": pa.array(np.asarray([key_cols[0][c] for c in curve], dtype="int32"), pa.int32()).cast(pa.date32()),
-            "entity": per_node(1, False),
-            "currency": per_node(2, False),
-            "seniority": per_node(3, True),
-            "doc_clause": per_node(4, True),
-            "source": ["cds"] * len(curve),
-            "tenor": raw["tenor"],
+            "date": pa.array(keys[0, first].astype(np.int32)).cast(pa.date32()).take(curve),
+            "entity": per_node(1),
+            "currency": per_node(2),
+            "seniority": per_node(3),
+            "doc_clause": per_node(4),
+            "source": pa.repeat("cds", len(curve)).cast(pa.string()),
+            "tenor": pa.array(raw["tenor"], pa.string()),
             "maturity": pa.array(raw["maturity"], pa.int32()).cast(pa.date32()),
             "node_date": pa.array(raw["node_date"], pa.int32()).cast(pa.date32()),
-            "hazard": raw["hazard"],
-            "survival": raw["survival"],
-            "status": raw["status"],
-            "recovery": raw["recovery"],
+            "hazard": pa.array(raw["hazard"], pa.float64()),
+            "survival": pa.array(raw["survival"], pa.float64()),
+            "status": pa.array(raw["status"], pa.string()),
+            "recovery": pa.array(raw["recovery"], pa.float64()),
             "iterations": pa.array(raw["iterations"], pa.int64()),
-            "detail": raw["detail"],
+            "detail": pa.array(raw["detail"], pa.string()),
         },
         schema=HAZARD_CURVES_SCHEMA,
     )
-    failed = [(keys[c], why) for c, why in zip(raw["error_curve"], raw["error"])]
+    failed = [(curve_keys[c], why) for c, why in zip(raw["error_curve"], raw["error"])]
     if errors == "raise":
         if failed:
             (d, e, c, s, dc), why = failed[0]
@@ -209,13 +204,17 @@ def bootstrap(
             "date": pa.array([k[0] for k, _ in failed], pa.int32()).cast(pa.date32()),
             "entity": [k[1] for k, _ in failed],
             "currency": [k[2] for k, _ in failed],
-            "seniority": [k[3] or None for k, _ in failed],
-            "doc_clause": [k[4] or None for k, _ in failed],
+            "seniority": [k[3] for k, _ in failed],
+            "doc_clause": [k[4] for k, _ in failed],
             "reason": [why for _, why in failed],
         },
         schema=REJECTS_SCHEMA,
     )
     return finish(table, output), finish(rejects, output)
+
+
+def _name(values: List[Any], code: int, absent: Any) -> Any:
+    return absent if code < 0 else values[code]
 
 
 def curve_from_nodes(date: Any, node_dates: Any, hazards: Any, statuses: Optional[Any] = None):

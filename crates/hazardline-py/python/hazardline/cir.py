@@ -80,5 +80,5 @@ def fit_cir(
     n = len(tenors)
     return _core.fit_cir_day(
         to_day(trade_date), list(tenors), [0] * n, [float(s) / 1e4 for s in par_spreads_bp], [0.0] * n,
-        [float(recovery)] * n, discount._inner, calendar._inner, kappa, sigma, [tuple(map(float, s)) for s in starts], accrual,
+        [float(recovery)] * n, discount._inner, calendar._inner, kappa, sigma, [(float(k), float(t), float(s), float(l)) for k, t, s, l in starts], accrual,
     )

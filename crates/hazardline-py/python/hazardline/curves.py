@@ -11,8 +11,8 @@ from ._dates import DateLike, from_day, to_day, to_days
 Pillar = Union[str, DateLike]
 
 
-def _pillars(pillars: Iterable[Pillar]) -> list:
-    out = []
+def _pillars(pillars: Iterable[Pillar]) -> List[Union[str, int]]:
+    out: List[Union[str, int]] = []
     for p in pillars:
         if isinstance(p, str) and p[-1:].upper() in ("M", "Y") and p[:-1].isdigit():
             out.append(p.upper())
