@@ -349,35 +349,72 @@ fn csv_fault(bytes: &[u8]) -> Option<String> {
 /// The longest part of a reader's message shown.
 const MESSAGE_CHARS: usize = 240;
 
-fn scan(path: &Path) -> Result<(LazyFrame, &'static str)> {
-    let shown = path.display().to_string();
+/// A table file's format, from its extension; a Parquet file's footer is checked first.
+fn format_of(path: &Path) -> Result<&'static str> {
     match extension(path).as_deref() {
-        Some("csv") => {
-            // Every column as text: numbers and dates are parsed by the readers, so that one
-            // bad cell rejects one row instead of failing the file.
-            guarded(path, "CSV", || {
-                LazyCsvReader::new(PlRefPath::new(shown.as_str()))
-                    .with_infer_schema_length(Some(0))
-                    .with_has_header(true)
-                    .finish()
-            })
-            .map(|lf| (lf, "CSV"))
-        }
+        Some("csv") => Ok("CSV"),
         Some("parquet") => {
-            let args = ScanArgsParquet { hive_options: HiveOptions::new_disabled(), ..ScanArgsParquet::default() };
             // The file's footer is read here first, on this thread, where a reader that stops on a
-            // damaged footer can be caught; the scan reads it again on the reader's own threads,
-            // where such a stop would end the process.
+            // damaged footer can be caught; the reader reads it again on its own threads, where
+            // such a stop would end the process.
             super::parquet_check::check_parquet(path).map_err(|message| Error::Read {
                 path: path.to_path_buf(),
                 format: "Parquet",
                 message,
             })?;
-            guarded(path, "Parquet", || LazyFrame::scan_parquet(PlRefPath::new(shown.as_str()), args))
-                .map(|lf| (lf, "Parquet"))
+            Ok("Parquet")
         }
         _ => Err(Error::UnknownFormat { path: path.to_path_buf() }),
     }
+}
+
+/// The CSV reader's options: every column as text (numbers and dates are parsed by the
+/// readers, so that one bad cell rejects one row instead of failing the file).
+fn csv_options() -> CsvReadOptions {
+    CsvReadOptions::default().with_infer_schema_length(Some(0)).with_has_header(true)
+}
+
+/// A CSV reader's refusal with the place in the file where it goes wrong: the reader's message
+/// on a malformed CSV file names no line, a scan of the file finds it (read again only on this
+/// error path).
+fn located(e: Error) -> Error {
+    match e {
+        Error::Read { path, format: "CSV", message } => {
+            let found = std::fs::read(&path).ok().and_then(|b| csv_fault(&b));
+            Error::Read { path, format: "CSV", message: found.unwrap_or(message) }
+        }
+        other => other,
+    }
+}
+
+/// The column names of a table file, in file order.
+fn column_names(path: &Path, format: &'static str) -> Result<Vec<String>> {
+    guarded(path, format, || {
+        if format == "CSV" {
+            let header =
+                csv_options().with_n_rows(Some(0)).try_into_reader_with_file_path(Some(path.into()))?.finish()?;
+            Ok(header.get_column_names().iter().map(|s| s.to_string()).collect())
+        } else {
+            let schema = ParquetReader::new(std::fs::File::open(path)?).schema()?;
+            Ok(schema.iter_names().map(|s| s.to_string()).collect())
+        }
+    })
+}
+
+/// The columns `names` of a table file; of a Parquet file, `len` rows from `offset` only (the
+/// row groups those rows are in).
+fn read_columns(path: &Path, format: &'static str, names: &[&str], offset: usize, len: usize) -> Result<DataFrame> {
+    guarded(path, format, || {
+        if format == "CSV" {
+            let cols: Arc<[PlSmallStr]> = names.iter().map(|n| PlSmallStr::from(*n)).collect();
+            csv_options().with_columns(Some(cols)).try_into_reader_with_file_path(Some(path.into()))?.finish()
+        } else {
+            ParquetReader::new(std::fs::File::open(path)?)
+                .with_columns(Some(names.iter().map(|n| n.to_string()).collect()))
+                .with_slice(Some((offset, len)))
+                .finish()
+        }
+    })
 }
 
 /// `name=value` folder names between the table's root and the file (hive partitioning).
@@ -458,9 +495,8 @@ pub fn read_table_batches(
     let files = table_files(path)?;
     let mut info = TableInfo { files: files.clone(), ..TableInfo::default() };
     for file in files {
-        let (mut lf, format) = scan(&file)?;
-        let schema = guarded(&file, format, || lf.collect_schema())?;
-        let names: Vec<String> = schema.iter_names().map(|s| s.to_string()).collect();
+        let format = format_of(&file)?;
+        let names = column_names(&file, format).map_err(located)?;
         // The CSV reader renames a repeated header column `x` to `x_duplicated_0`, ...: refuse
         // the file rather than read one of the copies.
         if let Some(base) = names.iter().find_map(|n| {
@@ -496,26 +532,10 @@ pub fn read_table_batches(
                 info.ignored_columns.push(n.clone());
             }
         }
-        let projected = lf.select(present.iter().map(|n| col(*n)).collect::<Vec<_>>());
         let batch = if format == "Parquet" { PARQUET_BATCH_ROWS } else { usize::MAX };
         let mut offset = 0usize;
         loop {
-            let frame = guarded(&file, format, || {
-                if batch == usize::MAX {
-                    projected.clone().collect()
-                } else {
-                    projected.clone().slice(offset as i64, batch as IdxSize).collect()
-                }
-            })
-            .map_err(|e| match e {
-                // The reader's message on a malformed CSV file names no line; a scan of the
-                // file finds it (read again only on this error path).
-                Error::Read { path, format: "CSV", message } => {
-                    let located = std::fs::read(&path).ok().and_then(|b| csv_fault(&b));
-                    Error::Read { path, format: "CSV", message: located.unwrap_or(message) }
-                }
-                other => other,
-            })?;
+            let frame = read_columns(&file, format, &present, offset, batch).map_err(located)?;
             let height = frame.height();
             if height == 0 && offset > 0 {
                 break;

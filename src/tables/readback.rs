@@ -36,9 +36,9 @@ pub fn read_frame(path: &Path) -> Result<DataFrame> {
             message: "the table's folder holds no .parquet file".into(),
         });
     }
-    let shown = path.display().to_string();
-    LazyFrame::scan_parquet(PlRefPath::new(shown.as_str()), ScanArgsParquet::default())
-        .and_then(|lf| lf.collect())
+    std::fs::File::open(path)
+        .map_err(PolarsError::from)
+        .and_then(|f| ParquetReader::new(f).finish())
         .map_err(|e| Error::Read { path: path.to_path_buf(), format: "Parquet", message: e.to_string() })
 }
 
