@@ -320,26 +320,9 @@ fn calibrate_one(
                         f64::from(r.quoted_coupon_bp) / 1e4
                     };
                     let term = BootstrapQuote { tenor: r.tenor, quote: r.quote, recovery, maturity: r.maturity };
-                    let upfront = match term.contract(date, s.cds_calendar(currency)) {
-                        Err(e) => Err(format!("the {} contract: {e}", r.tenor)),
-                        Ok(c) => crate::instruments::cds::quoted_spread::to_upfront(
-                            &c,
-                            spread,
-                            coupon,
-                            recovery,
-                            curve,
-                            s.bootstrap.accrual,
-                        )
-                        .ok_or_else(|| {
-                            format!(
-                                "the {} quoted spread {} bp has no flat hazard up to 50 per year",
-                                r.tenor,
-                                spread * 1e4
-                            )
-                        }),
-                    };
-                    match upfront {
-                        Ok(upfront) => CdsQuote::Upfront { upfront, coupon },
+                    let cal = s.cds_calendar(currency);
+                    match term.quoted_spread_as_upfront(date, spread, coupon, curve, cal, s.bootstrap.accrual) {
+                        Ok(upfront) => upfront,
                         Err(why) => {
                             unconverted.get_or_insert(why);
                             r.quote

@@ -6,7 +6,7 @@ use crate::{accrual, date, day_number, refuse, tenor};
 use hazardline_core::calibrate::bootstrap::{
     BootstrapPlan, BootstrapQuote, BootstrapSettings, CurveFit, InfeasiblePolicy,
 };
-use hazardline_core::instruments::cds::{quoted_spread, CdsQuote};
+use hazardline_core::instruments::cds::CdsQuote;
 use hazardline_core::time::Tenor;
 use pyo3::prelude::*;
 use pyo3::types::PyDict;
@@ -128,26 +128,14 @@ fn bootstrap_columns<'py>(
                         continue;
                     }
                     let CdsQuote::Upfront { coupon, .. } = quote.quote else { continue };
-                    let contract = quote
-                        .contract(c.trade, &calendars[c.calendar])
-                        .map_err(|e| format!("the {} contract: {e}", quote.tenor))?;
-                    let spread = values_ref[k];
-                    let upfront = quoted_spread::to_upfront(
-                        &contract,
-                        spread,
+                    quote.quote = quote.quoted_spread_as_upfront(
+                        c.trade,
+                        values_ref[k],
                         coupon,
-                        quote.recovery,
                         &discounts[c.discount],
+                        &calendars[c.calendar],
                         settings.accrual,
-                    )
-                    .ok_or_else(|| {
-                        format!(
-                            "the {} quoted spread {} bp has no flat hazard up to 50 per year",
-                            quote.tenor,
-                            spread * 1e4
-                        )
-                    })?;
-                    quote.quote = CdsQuote::Upfront { upfront, coupon };
+                    )?;
                 }
                 Ok(c)
             })

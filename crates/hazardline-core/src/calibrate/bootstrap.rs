@@ -78,6 +78,28 @@ impl BootstrapQuote {
     pub fn term(&self) -> (Tenor, Option<NaiveDate>) {
         (self.tenor, self.maturity)
     }
+
+    /// A quoted spread `spread` (decimal) at running coupon `coupon` on this quote's contract,
+    /// as the upfront quote it trades as: the upfront of the flat hazard whose par spread is the
+    /// quote, at this quote's recovery ([`crate::instruments::cds::quoted_spread`]). Err says
+    /// why when the contract cannot be built or no flat hazard up to 50 per year reaches the
+    /// spread.
+    pub fn quoted_spread_as_upfront(
+        &self,
+        trade: NaiveDate,
+        spread: f64,
+        coupon: f64,
+        discount: &DiscountCurve,
+        cal: &Calendar,
+        accrual: AccrualIntegration,
+    ) -> Result<CdsQuote, String> {
+        let contract = self.contract(trade, cal).map_err(|e| format!("the {} contract: {e}", self.tenor))?;
+        crate::instruments::cds::quoted_spread::to_upfront(&contract, spread, coupon, self.recovery, discount, accrual)
+            .map(|upfront| CdsQuote::Upfront { upfront, coupon })
+            .ok_or_else(|| {
+                format!("the {} quoted spread {} bp has no flat hazard up to 50 per year", self.tenor, spread * 1e4)
+            })
+    }
 }
 
 /// Status of one curve node.
