@@ -42,11 +42,8 @@ def letters(k):
     return "Q" + a[k // 26] + a[k % 26]
 
 
-def main():
-    binary = sys.argv[1]
-    work = sys.argv[2] if len(sys.argv) > 2 else tempfile.mkdtemp()
-    copies = int(sys.argv[3]) if len(sys.argv) > 3 else 4200
-    os.makedirs(work, exist_ok=True)
+def bench_cases():
+    """The 8-tenor cases of the reference script that bootstrap completely."""
     cases = []
     for case in ref.CASES:
         if len(case["quotes"]) != 8:
@@ -57,6 +54,33 @@ def main():
         _, _, _, infeasible, _ = ref.bootstrap(trade, case["quotes"], ref.ql.YieldTermStructureHandle(disc), case["recovery"])
         if infeasible is None:
             cases.append(case)
+    return cases
+
+
+def quantlib_us_per_curve(cases):
+    """QuantLib's bootstrap of each case REPEAT times; the median in microseconds per curve."""
+    samples = []
+    for case in cases:
+        trade = ref.qdate(case["trade_date"])
+        ref.ql.Settings.instance().evaluationDate = trade
+        disc, _, _ = ref.build_discount_curve(trade, case["discount"])
+        dh = ref.ql.YieldTermStructureHandle(disc)
+        for _ in range(REPEAT):
+            t0 = time.perf_counter()
+            ref.bootstrap(trade, case["quotes"], dh, case["recovery"])
+            samples.append(time.perf_counter() - t0)
+    ql_us = statistics.median(samples) * 1e6
+    print(f"QuantLib {ref.ql.__version__} bootstrap: median {ql_us:.0f} us per curve "
+          f"({len(samples)} bootstraps of {len(cases)} cases)", flush=True)
+    return ql_us
+
+
+def main():
+    binary = sys.argv[1]
+    work = sys.argv[2] if len(sys.argv) > 2 else tempfile.mkdtemp()
+    copies = int(sys.argv[3]) if len(sys.argv) > 3 else 4200
+    os.makedirs(work, exist_ok=True)
+    cases = bench_cases()
     q = {k: [] for k in ("date", "entity", "currency", "tenor", "par_spread_bp", "recovery")}
     d = {k: [] for k in ("date", "currency", "tenor", "zero_rate")}
     for k, case in enumerate(cases):
@@ -95,19 +119,7 @@ def main():
         n = pq.read_table(os.path.join(out, "hazard_curves.parquet"), columns=["status"]).num_rows
         assert n == len(q["date"]), (n, len(q["date"]))
 
-    samples = []
-    for case in cases:
-        trade = ref.qdate(case["trade_date"])
-        ref.ql.Settings.instance().evaluationDate = trade
-        disc, _, _ = ref.build_discount_curve(trade, case["discount"])
-        dh = ref.ql.YieldTermStructureHandle(disc)
-        for _ in range(REPEAT):
-            t0 = time.perf_counter()
-            ref.bootstrap(trade, case["quotes"], dh, case["recovery"])
-            samples.append(time.perf_counter() - t0)
-    ql_us = statistics.median(samples) * 1e6
-    print(f"QuantLib {ref.ql.__version__} bootstrap: median {ql_us:.0f} us per curve "
-          f"({len(samples)} bootstraps of {len(cases)} cases)")
+    ql_us = quantlib_us_per_curve(cases)
     for threads, seconds in runs.items():
         us = seconds / curves * 1e6
         print(f"hazardline calibrate, whole process, {threads} thread(s): {seconds:.2f} s, {us:.1f} us per curve, "

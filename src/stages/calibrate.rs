@@ -10,9 +10,11 @@
 //! before the parallel section starts and only resumes to write.
 
 use crate::calibrate::bootstrap::BootstrapPlan;
+use crate::calibrate::sensitivity::{OwnedPlans, SharedPlans};
 use crate::calibrate::{bootstrap, BootstrapError, BootstrapQuote, BootstrapSettings, InfeasiblePolicy};
 use crate::curves::{DiscountCurve, HazardCurve};
 use crate::error::{Error, Result};
+use crate::hash::{FastMap, FastSet};
 use crate::ingest::cds::{self, CdsPanel, CdsQuoteRow};
 use crate::ingest::discount::{self, DiscountRow};
 use crate::ingest::{QualitySettings, Reject};
@@ -59,8 +61,7 @@ type Term = (Tenor, Option<NaiveDate>);
 
 /// Single-contract plans per (date, currency, term): the flat-hazard solves of the quoted
 /// spreads.
-type SinglePlans =
-    std::collections::HashMap<(NaiveDate, u32, Term), std::result::Result<BootstrapPlan, BootstrapError>>;
+type SinglePlans = crate::hash::FastMap<(NaiveDate, u32, Term), std::result::Result<BootstrapPlan, BootstrapError>>;
 
 impl CalibrationParams {
     /// The calendar of `currency`'s CDS contracts (roll, coupon and step-in dates) and standard
@@ -302,6 +303,7 @@ fn calibrate_one(
     s: &CalibrationParams,
     reference: bool,
     single: Option<&SinglePlans>,
+    shift_plans: Option<&OwnedPlans>,
 ) -> CurveOutput {
     let h = rows[0];
     let (date, entity, currency) = (h.date, panel.entities.name(h.entity), panel.currencies.name(h.currency));
@@ -401,13 +403,8 @@ fn calibrate_one(
                     recovery,
                     maturity: quotes[q.quote_index].maturity,
                 };
-                let settings = BootstrapSettings { infeasible: InfeasiblePolicy::Fail, ..s.bootstrap };
-                let fit = plan.solve(&[flat], &settings).ok()?;
-                if fit.failed || !fit.complete() {
-                    return None;
-                }
-                let legs = plan.legs_on(fit.curve.as_ref()?, &[recovery])?;
-                Some(legs.first()?.par_spread() * 1e4)
+                // The flat curve (fail policy) that reprices the upfront, and its par spread.
+                Some(plan.flat_par_spread(&flat, &s.bootstrap)? * 1e4)
             });
         Some(crate::tables::QuoteConversion {
             quote_type: rows[q.quote_index].quote_type(),
@@ -440,7 +437,8 @@ fn calibrate_one(
         })
         .collect();
     let sensitivities = if s.sensitivity_dates.contains(date, &s.calendar) {
-        sensitivity_rows(panel, &h, &quotes, curve, s)
+        let shared = shift_plans.map(|o| o.shared(plan)).unwrap_or_default();
+        sensitivity_rows(panel, &h, &quotes, curve, s, shared)
     } else {
         Vec::new()
     };
@@ -464,6 +462,7 @@ fn sensitivity_rows(
     quotes: &[BootstrapQuote],
     discount: &DiscountCurve,
     s: &CalibrationParams,
+    plans: SharedPlans<'_>,
 ) -> Vec<SensitivityRow> {
     use crate::calibrate::sensitivity::{curve_sensitivities, CurveInputs};
     let currency = panel.currencies.name(h.currency);
@@ -475,6 +474,7 @@ fn sensitivity_rows(
         calendar: s.cds_calendar(currency),
         settings: &s.bootstrap,
         coupon: coupon_bp / 1e4,
+        plans,
     });
     let base = results.first().and_then(|r| r.measures);
     let change = |m: Option<f64>, b: Option<f64>| m.zip(b).map(|(m, b)| m - b);
@@ -635,10 +635,24 @@ pub fn calibrate_blocks(
     let key_of = |a: usize, b: usize| -> PlanKey {
         (rows[a].date, rows[a].currency, rows[a..b].iter().map(|r| (r.tenor, r.maturity)).collect())
     };
-    let mut keys: Vec<PlanKey> = jobs.iter().map(|&(a, b, _)| key_of(a, b)).collect();
-    keys.sort();
-    keys.dedup();
-    let plans: std::collections::HashMap<PlanKey, std::result::Result<BootstrapPlan, BootstrapError>> = keys
+    // The distinct keys (a set, not a sorted list of every curve's key: at full size that list
+    // was a gigabyte beside the quote panel); consecutive curves mostly share their key.
+    let mut keys: FastSet<PlanKey> = FastSet::default();
+    let mut last: Option<(usize, usize)> = None;
+    for &(a, b, _) in &jobs {
+        let same = last.is_some_and(|(c, d)| {
+            rows[a].date == rows[c].date
+                && rows[a].currency == rows[c].currency
+                && rows[a..b].iter().map(|r| (r.tenor, r.maturity)).eq(rows[c..d].iter().map(|r| (r.tenor, r.maturity)))
+        });
+        if !same {
+            keys.insert(key_of(a, b));
+            last = Some((a, b));
+        }
+    }
+    let plans: FastMap<PlanKey, std::result::Result<BootstrapPlan, BootstrapError>> = keys
+        .into_iter()
+        .collect::<Vec<_>>()
         .into_par_iter()
         .filter_map(|k| {
             let curve = curves.get(&(k.0, panel.currencies.name(k.1).to_string()))?;
@@ -650,12 +664,11 @@ pub fn calibrate_blocks(
     // One single-tenor plan per (date, currency, tenor) for the quoted spreads of the quote
     // conversions.
     let single: Option<SinglePlans> = p.quote_conversions.then(|| {
-        let mut keys: Vec<(NaiveDate, u32, Term)> =
+        let keys: FastSet<(NaiveDate, u32, Term)> =
             rows.iter().map(|r| (r.date, r.currency, (r.tenor, r.maturity))).collect();
-        keys.dedup();
-        keys.sort();
-        keys.dedup();
-        keys.into_par_iter()
+        keys.into_iter()
+            .collect::<Vec<_>>()
+            .into_par_iter()
             .filter_map(|k| {
                 let curve = curves.get(&(k.0, panel.currencies.name(k.1).to_string()))?;
                 let cal = p.cds_calendar(panel.currencies.name(k.1));
@@ -663,6 +676,19 @@ pub fn calibrate_blocks(
             })
             .collect()
     });
+    // The sensitivity shifts' plans (discount shift, accrual variants) per plan key on the
+    // sensitivity dates, shared by the curves quoted so as the run's own plans are.
+    let shift_plans: FastMap<&PlanKey, OwnedPlans> = plans
+        .keys()
+        .filter(|k| p.sensitivity_dates.contains(k.0, &p.calendar))
+        .collect::<Vec<_>>()
+        .into_par_iter()
+        .filter_map(|k| {
+            let ccy = panel.currencies.name(k.1);
+            let curve = curves.get(&(k.0, ccy.to_string()))?;
+            Some((k, SharedPlans::build(k.0, &k.2, curve, p.cds_calendar(ccy), &p.bootstrap)))
+        })
+        .collect();
     let progress = crate::report::progress::bar(jobs.len() as u64, "calibrating curves");
     // Curves run in parallel a block at a time and each block goes to the sink before the
     // next starts, so the per-curve vectors of only one block are alive at once.
@@ -673,15 +699,23 @@ pub fn calibrate_blocks(
             .map(|&(a, b, reference)| {
                 let h = &rows[a];
                 let o = match curves.get(&(h.date, panel.currencies.name(h.currency).to_string())) {
-                    Some(curve) => calibrate_one(
-                        panel,
-                        &rows[a..b],
-                        curve,
-                        plans.get(&key_of(a, b)),
-                        p,
-                        reference,
-                        single.as_ref(),
-                    ),
+                    Some(curve) => {
+                        let key = key_of(a, b);
+                        calibrate_one(
+                            panel,
+                            &rows[a..b],
+                            curve,
+                            plans.get(&key),
+                            p,
+                            reference,
+                            single.as_ref(),
+                            if shift_plans.is_empty() || !p.sensitivity_dates.contains(h.date, &p.calendar) {
+                                None
+                            } else {
+                                shift_plans.get(&key)
+                            },
+                        )
+                    }
                     None => CurveOutput::rejected(
                         rows[a..b]
                             .iter()

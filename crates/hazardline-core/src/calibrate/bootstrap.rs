@@ -377,32 +377,135 @@ fn solve_on_plan(
     quotes: &[BootstrapQuote],
     settings: &BootstrapSettings,
 ) -> Result<CurveFit, BootstrapError> {
-    let trade = bp.trade;
+    let (mut nodes, mut hazards) = (Vec::with_capacity(quotes.len()), Vec::with_capacity(quotes.len()));
+    let curve_failed =
+        SCRATCH.with(|s| solve_nodes(bp, quotes, settings, &mut s.borrow_mut(), &mut nodes, &mut hazards));
+    let curve = if hazards.is_empty() {
+        None
+    } else {
+        Some(
+            HazardCurve::new(bp.trade, bp.node_times[..hazards.len()].to_vec(), hazards)
+                .expect("increasing node times and finite hazards"),
+        )
+    };
+    Ok(CurveFit { trade_date: bp.trade, nodes, curve, failed: curve_failed, contracts: bp.contracts.clone() })
+}
+
+/// The working vectors of one solve, kept per thread so that the bootstrap of a panel's
+/// curves and the quote conversions do not allocate them again for every curve (the values
+/// are set afresh each time: the numbers are the same as with new vectors).
+#[derive(Default)]
+struct Scratch {
+    log_q: Vec<f64>,
+    pq: Vec<f64>,
+    dual_lq: Vec<Dual>,
+    dual_pq: Vec<Dual>,
+    sums: PrefixSums,
+    nodes: Vec<NodeFit>,
+    hazards: Vec<f64>,
+}
+
+thread_local! {
+    static SCRATCH: std::cell::RefCell<Scratch> = std::cell::RefCell::new(Scratch::default());
+}
+
+impl BootstrapPlan {
+    /// The quoted spread of an upfront quote on this plan's single term: the par spread of the
+    /// flat curve (one segment, the fail policy) that reprices `quote`, with `quote.recovery`.
+    /// None when that curve cannot be built (the quote needs a negative hazard, or is out of
+    /// reach) or the plan has more than one term. The same numbers, bit for bit, as
+    /// [`BootstrapPlan::solve`] with [`InfeasiblePolicy::Fail`] followed by
+    /// [`BootstrapPlan::legs_on`] and [`crate::instruments::CdsLegs::par_spread`] (a unit
+    /// test compares them), without building the fit, the curve and the legs as values.
+    pub fn flat_par_spread(&self, quote: &BootstrapQuote, settings: &BootstrapSettings) -> Option<f64> {
+        if self.tenors.len() != 1 || quote.tenor != self.tenors[0] || quote.maturity != self.maturities[0] {
+            return None;
+        }
+        check_quote(0, quote).ok()?;
+        let settings = &BootstrapSettings { accrual: self.accrual, infeasible: InfeasiblePolicy::Fail, ..*settings };
+        SCRATCH.with(|cell| {
+            let s = &mut *cell.borrow_mut();
+            let (mut nodes, mut hazards) = (std::mem::take(&mut s.nodes), std::mem::take(&mut s.hazards));
+            nodes.clear();
+            hazards.clear();
+            let failed = solve_nodes(self, std::slice::from_ref(quote), settings, s, &mut nodes, &mut hazards);
+            let ok = !failed && nodes.iter().all(|n| n.status.usable()) && hazards.len() == 1;
+            let spread = ok.then(|| {
+                // ln S on the one-segment curve, as HazardCurve::log_survival_at computes it.
+                let (h, t1) = (hazards[0], self.node_times[0]);
+                let cumulative = 0.0 + h * (t1 - 0.0);
+                let plan = &self.plan;
+                s.log_q.clear();
+                s.log_q.extend(plan.times.iter().map(|&t| {
+                    -(if t <= 0.0 {
+                        0.0
+                    } else if t <= t1 {
+                        h * t
+                    } else {
+                        cumulative - h * (t1 - t)
+                    })
+                }));
+                s.pq.clear();
+                s.pq.extend(plan.log_dfs.iter().zip(&s.log_q).map(|(p, q)| (p + q).exp()));
+                let terms = &plan.contracts[0];
+                let (prot, prem, aod) = evaluate_terms(plan, &terms.prot, &terms.coupons, &s.pq, &s.log_q);
+                crate::instruments::CdsLegs {
+                    protection: (1.0 - quote.recovery) * prot,
+                    premium01: prem,
+                    accrual_on_default01: aod,
+                    rebate01: terms.rebate01,
+                    cash_settle_df: terms.cash_settle_df,
+                }
+                .par_spread()
+            });
+            s.nodes = nodes;
+            s.hazards = hazards;
+            spread
+        })
+    }
+}
+
+/// The sequential bootstrap on a plan: pushes one [`NodeFit`] per quote (maturity order) to
+/// `nodes` and the solved hazards to `hazards`; returns whether the fail policy stopped the
+/// curve.
+fn solve_nodes(
+    bp: &BootstrapPlan,
+    quotes: &[BootstrapQuote],
+    settings: &BootstrapSettings,
+    scratch: &mut Scratch,
+    nodes: &mut Vec<NodeFit>,
+    hazards: &mut Vec<f64>,
+) -> bool {
     let plan = &bp.plan;
     let node_dates = &bp.node_dates;
     let node_times = &bp.node_times;
-    let order: Vec<(usize, &CdsContract)> = bp.order.iter().copied().zip(bp.contracts.iter()).collect();
     let np = plan.times.len();
-    let mut log_q = vec![0.0f64; np];
-    let mut pq = vec![0.0f64; np];
+    let Scratch { log_q, pq, dual_lq, dual_pq, sums, .. } = scratch;
+    log_q.clear();
+    log_q.resize(np, 0.0);
+    pq.clear();
+    pq.resize(np, 0.0);
     // Points at t <= 0 have survival 1.
     for (j, p) in pq.iter_mut().enumerate() {
         if plan.times[j] <= 0.0 {
             *p = plan.log_dfs[j].exp();
         }
     }
-    let mut dual_lq = vec![Dual::constant(0.0); np];
-    let mut dual_pq = vec![Dual::constant(0.0); np];
+    dual_lq.clear();
+    dual_lq.resize(np, Dual::constant(0.0));
+    dual_pq.clear();
+    dual_pq.resize(np, Dual::constant(0.0));
 
-    let mut nodes: Vec<NodeFit> = Vec::with_capacity(order.len());
-    let mut hazards: Vec<f64> = Vec::with_capacity(order.len());
     let (mut t_prev, mut l_prev) = (0.0f64, 0.0f64);
     let mut stopped = false;
     let mut curve_failed = false;
     let mut prev_spread: Option<(f64, f64)> = None;
-    let mut sums = PrefixSums { prot: vec![0.0], prem: vec![0.0], aod: vec![0.0] };
+    for v in [&mut sums.prot, &mut sums.prem, &mut sums.aod] {
+        v.clear();
+        v.push(0.0);
+    }
 
-    for (k, (qi, contract)) in order.iter().enumerate() {
+    for (k, (qi, contract)) in bp.order.iter().zip(bp.contracts.iter()).enumerate() {
         let q = &quotes[*qi];
         let mut fit = NodeFit {
             quote_index: *qi,
@@ -431,12 +534,12 @@ fn solve_on_plan(
         // The part fixed by solved segments: running sums over the longest contract's terms
         // when this contract shares its prefix (same numbers, summed in the same order), else
         // summed here.
-        extend_sums(plan, t_prev, &pq, &log_q, &mut sums);
+        extend_sums(plan, t_prev, pq, log_q, sums);
         let shared = bp.shares_prefix[k] && prot_from < sums.prot.len() && coupon_from < sums.prem.len();
         let (fp, fm, fa) = if shared {
             (sums.prot[prot_from], sums.prem[coupon_from], sums.aod[coupon_from])
         } else {
-            evaluate_terms(plan, &terms.prot[..=prot_from], &terms.coupons[..coupon_from], &pq, &log_q)
+            evaluate_terms(plan, &terms.prot[..=prot_from], &terms.coupons[..coupon_from], pq, log_q)
         };
         let var_prot = &terms.prot[prot_from..];
         let var_coupons = &terms.coupons[coupon_from..];
@@ -488,7 +591,7 @@ fn solve_on_plan(
         prev_spread = Some((spread, t_mat));
         let guess = (if forward > 0.0 { forward } else { spread } / one_minus_r).clamp(1e-6, settings.max_hazard * 0.5);
         let solved = newton_bracketed(
-            |x| objective(x, &mut dual_lq, &mut dual_pq),
+            |x| objective(x, dual_lq, dual_pq),
             guess,
             0.0,
             settings.max_hazard,
@@ -571,19 +674,12 @@ fn solve_on_plan(
             n.status = NodeStatus::CurveFailed;
         }
     }
-    let curve = if hazards.is_empty() {
-        None
-    } else {
-        Some(
-            HazardCurve::new(trade, node_times[..hazards.len()].to_vec(), hazards)
-                .expect("increasing node times and finite hazards"),
-        )
-    };
-    Ok(CurveFit { trade_date: trade, nodes, curve, failed: curve_failed, contracts: bp.contracts.clone() })
+    curve_failed
 }
 
 /// Running sums of the longest contract's protection windows and coupons whose grid points
 /// all lie in solved segments: entry i holds the sum of the first i terms.
+#[derive(Default)]
 struct PrefixSums {
     prot: Vec<f64>,
     prem: Vec<f64>,
@@ -620,5 +716,74 @@ fn describe(q: CdsQuote) -> String {
         CdsQuote::Upfront { upfront, coupon } => {
             format!("upfront {:.6} with running coupon {:.2} bp", upfront, coupon * 1e4)
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::time::Calendar;
+
+    /// `flat_par_spread` is `solve` (fail policy) + `legs_on` + `par_spread`, bit for bit: over
+    /// tenors from 6M to 10Y and an off-roll maturity, upfronts from deep negative (no
+    /// non-negative hazard reprices them: both give None) to 60%, coupons, recoveries, a flat
+    /// and a sloped discount curve with pillars inside the contracts, all accrual variants.
+    #[test]
+    fn flat_par_spread_is_the_solve_and_the_legs() {
+        let t = NaiveDate::from_ymd_opt(2024, 3, 20).unwrap();
+        let cal = Calendar::weekends_only();
+        let pillars: Vec<(NaiveDate, f64)> = [(90, 0.031), (400, 0.034), (1900, 0.038), (4000, 0.041)]
+            .iter()
+            .map(|&(d, r)| {
+                let p = t + chrono::Days::new(d);
+                (p, -r * year_time(t, p))
+            })
+            .collect();
+        let curves = [DiscountCurve::flat(t, 0.02), DiscountCurve::from_log_discount_factors(t, &pillars).unwrap()];
+        let mut terms: Vec<(Tenor, Option<NaiveDate>)> =
+            [6, 12, 36, 60, 84, 120].iter().map(|&m| (Tenor::from_months(m).unwrap(), None)).collect();
+        terms.push((Tenor::from_months(60).unwrap(), NaiveDate::from_ymd_opt(2029, 1, 31)));
+        let (mut some, mut none) = (0, 0);
+        for d in &curves {
+            for accrual in [AccrualIntegration::Standard, AccrualIntegration::Exact, AccrualIntegration::Published] {
+                for &(tenor, maturity) in &terms {
+                    let plan = BootstrapPlan::for_terms(t, &[(tenor, maturity)], d, &cal, accrual).unwrap();
+                    for upfront in [-0.4, -0.02, 0.0, 0.013, 0.1, 0.6] {
+                        for (coupon, recovery) in [(0.01, 0.4), (0.05, 0.25), (0.0, 0.6)] {
+                            let q = BootstrapQuote {
+                                tenor,
+                                quote: CdsQuote::Upfront { upfront, coupon },
+                                recovery,
+                                maturity,
+                            };
+                            let settings = BootstrapSettings::default();
+                            let slow = plan
+                                .solve(&[q], &BootstrapSettings { infeasible: InfeasiblePolicy::Fail, ..settings })
+                                .ok()
+                                .filter(|f| !f.failed && f.complete())
+                                .and_then(|f| plan.legs_on(f.curve.as_ref()?, &[recovery]))
+                                .map(|l| l[0].par_spread());
+                            let fast = plan.flat_par_spread(&q, &settings);
+                            assert_eq!(slow.map(f64::to_bits), fast.map(f64::to_bits), "{q:?} {accrual:?}");
+                            if fast.is_some() {
+                                some += 1;
+                            } else {
+                                none += 1;
+                            }
+                        }
+                    }
+                }
+            }
+        }
+        assert!(some > 500 && none > 20, "{some} converted, {none} not");
+        // A plan of two terms has no single flat spread.
+        let two = BootstrapPlan::for_terms(t, &terms[..2], &curves[0], &cal, AccrualIntegration::Standard).unwrap();
+        let q = BootstrapQuote {
+            tenor: terms[0].0,
+            quote: CdsQuote::Upfront { upfront: 0.01, coupon: 0.01 },
+            recovery: 0.4,
+            maturity: None,
+        };
+        assert_eq!(two.flat_par_spread(&q, &BootstrapSettings::default()), None);
     }
 }

@@ -20,7 +20,7 @@
 //!
 //! Plain numerical code: no I/O.
 
-use super::bootstrap::{bootstrap, BootstrapQuote, BootstrapSettings, InfeasiblePolicy};
+use super::bootstrap::{bootstrap, BootstrapError, BootstrapPlan, BootstrapQuote, BootstrapSettings, InfeasiblePolicy};
 use crate::curves::{year_time, DiscountCurve, HazardCurve};
 use crate::instruments::cds::{price_legs, AccrualIntegration, CdsContract, CdsQuote};
 use crate::time::{Calendar, Tenor};
@@ -99,6 +99,69 @@ pub struct CurveInputs<'a> {
     pub settings: &'a BootstrapSettings,
     /// Running coupon (decimal) of the 5Y contract whose upfront is measured.
     pub coupon: f64,
+    /// Bootstrap plans shared with the other curves of the day quoted for the same terms
+    /// (the default: none, each shift builds its own; the numbers are the same).
+    pub plans: SharedPlans<'a>,
+}
+
+/// A plan for the curve's terms, or why it cannot be built (as [`BootstrapPlan::for_terms`]
+/// returns it).
+pub type PlanResult = Result<BootstrapPlan, BootstrapError>;
+
+/// Bootstrap plans for one (trade date, currency, terms), built once and used by every curve
+/// quoted so: a shift that finds its plan here solves on it instead of building one.
+#[derive(Debug, Default, Clone, Copy)]
+pub struct SharedPlans<'a> {
+    /// On the day's discount curve with the run's accrual variant.
+    pub base: Option<&'a PlanResult>,
+    /// On [`shifted_discount`] of the day's curve by 1 bp (that curve, and the plan).
+    pub discount_up: Option<&'a (Option<DiscountCurve>, Option<PlanResult>)>,
+    /// With the accrual variants `standard` and `exact` on the day's discount curve.
+    pub standard: Option<&'a PlanResult>,
+    pub exact: Option<&'a PlanResult>,
+}
+
+impl SharedPlans<'_> {
+    /// Builds what [`SharedPlans`] refers to for `terms` (see [`BootstrapQuote::term`]) on
+    /// `trade`: the discount-shift curve and plan, and the plans of the accrual variants other
+    /// than `settings.accrual`.
+    pub fn build(
+        trade: NaiveDate,
+        terms: &[(Tenor, Option<NaiveDate>)],
+        discount: &DiscountCurve,
+        calendar: &Calendar,
+        settings: &BootstrapSettings,
+    ) -> OwnedPlans {
+        let plan = |d: &DiscountCurve, accrual| BootstrapPlan::for_terms(trade, terms, d, calendar, accrual);
+        let shifted = shifted_discount(discount, 1.0);
+        let shifted_plan = shifted.as_ref().map(|d| plan(d, settings.accrual));
+        let variant = |a: AccrualIntegration| (a != settings.accrual).then(|| plan(discount, a));
+        OwnedPlans {
+            discount_up: (shifted, shifted_plan),
+            standard: variant(AccrualIntegration::Standard),
+            exact: variant(AccrualIntegration::Exact),
+        }
+    }
+}
+
+/// The plans [`SharedPlans::build`] makes, held by the caller for the day.
+#[derive(Debug)]
+pub struct OwnedPlans {
+    pub discount_up: (Option<DiscountCurve>, Option<PlanResult>),
+    pub standard: Option<PlanResult>,
+    pub exact: Option<PlanResult>,
+}
+
+impl OwnedPlans {
+    /// The shared plans, with `base` (the run's own plan of these terms) beside them.
+    pub fn shared<'a>(&'a self, base: Option<&'a PlanResult>) -> SharedPlans<'a> {
+        SharedPlans {
+            base,
+            discount_up: Some(&self.discount_up),
+            standard: self.standard.as_ref(),
+            exact: self.exact.as_ref(),
+        }
+    }
 }
 
 fn measures(
@@ -129,14 +192,27 @@ pub fn shifted_discount(d: &DiscountCurve, bp: f64) -> Option<DiscountCurve> {
 /// Every shift of one curve, [`Shift::ALL`] in order (the base first).
 pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
     let recovery = c.quotes.first().map_or(0.4, |q| q.recovery);
-    let run = |shift: Shift,
-               quotes: &[BootstrapQuote],
+    // The fit of one shift: on the shared plan when there is one, else on a plan of its own
+    // (`bootstrap`), the same numbers either way.
+    let fit = |quotes: &[BootstrapQuote],
                discount: &DiscountCurve,
                settings: &BootstrapSettings,
-               recovery: f64|
+               plan: Option<&PlanResult>|
+     -> Result<super::bootstrap::CurveFit, BootstrapError> {
+        match plan {
+            Some(Ok(p)) => p.solve(quotes, settings),
+            Some(Err(e)) => Err(e.clone()),
+            None => bootstrap(c.trade_date, quotes, discount, c.calendar, settings),
+        }
+    };
+    let result = |shift: Shift,
+                  fitted: &Result<super::bootstrap::CurveFit, BootstrapError>,
+                  discount: &DiscountCurve,
+                  settings: &BootstrapSettings,
+                  recovery: f64|
      -> ShiftResult {
         let done = |status, measures, floored_nodes| ShiftResult { shift, status, measures, floored_nodes };
-        let fit = match bootstrap(c.trade_date, quotes, discount, c.calendar, settings) {
+        let fit = match fitted {
             Ok(f) => f,
             Err(_) => return done("not_built", None, 0),
         };
@@ -149,11 +225,19 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
             _ => done("failed", None, floored),
         }
     };
+    let run =
+        |shift: Shift,
+         quotes: &[BootstrapQuote],
+         discount: &DiscountCurve,
+         settings: &BootstrapSettings,
+         recovery: f64,
+         plan: Option<&PlanResult>|
+         -> ShiftResult { result(shift, &fit(quotes, discount, settings, plan), discount, settings, recovery) };
     let mut out = Vec::with_capacity(Shift::ALL.len());
-    let base = run(Shift::Base, c.quotes, c.discount, c.settings, recovery);
+    let base_fit = fit(c.quotes, c.discount, c.settings, c.plans.base);
+    out.push(result(Shift::Base, &base_fit, c.discount, c.settings, recovery));
     // The base curve, for the risky annuities of the upfront quotes' spread shift.
-    let base_curve = bootstrap(c.trade_date, c.quotes, c.discount, c.calendar, c.settings).ok().and_then(|f| f.curve);
-    out.push(base);
+    let base_curve = base_fit.ok().and_then(|f| f.curve);
     for shift in &Shift::ALL[1..] {
         let r = match shift {
             Shift::Base => continue,
@@ -178,7 +262,7 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
                     })
                     .collect();
                 match bumped {
-                    Some(q) => run(*shift, &q, c.discount, c.settings, recovery),
+                    Some(q) => run(*shift, &q, c.discount, c.settings, recovery, c.plans.base),
                     None => ShiftResult { shift: *shift, status: "not_built", measures: None, floored_nodes: 0 },
                 }
             }
@@ -189,23 +273,33 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
                 if q.iter().any(|q| !(0.0..1.0).contains(&q.recovery)) {
                     ShiftResult { shift: *shift, status: "out_of_range", measures: None, floored_nodes: 0 }
                 } else {
-                    run(*shift, &q, c.discount, c.settings, recovery + d)
+                    run(*shift, &q, c.discount, c.settings, recovery + d, c.plans.base)
                 }
             }
-            Shift::DiscountUp1bp => match shifted_discount(c.discount, 1.0) {
-                Some(d) => run(*shift, c.quotes, &d, c.settings, recovery),
-                None => ShiftResult { shift: *shift, status: "not_built", measures: None, floored_nodes: 0 },
-            },
+            Shift::DiscountUp1bp => {
+                let own;
+                let (curve, plan) = match c.plans.discount_up {
+                    Some((curve, plan)) => (curve.as_ref(), plan.as_ref()),
+                    None => {
+                        own = shifted_discount(c.discount, 1.0);
+                        (own.as_ref(), None)
+                    }
+                };
+                match curve {
+                    Some(d) => run(*shift, c.quotes, d, c.settings, recovery, plan),
+                    None => ShiftResult { shift: *shift, status: "not_built", measures: None, floored_nodes: 0 },
+                }
+            }
             Shift::AccrualStandard | Shift::AccrualExact => {
-                let accrual = if *shift == Shift::AccrualStandard {
-                    AccrualIntegration::Standard
+                let (accrual, plan) = if *shift == Shift::AccrualStandard {
+                    (AccrualIntegration::Standard, c.plans.standard)
                 } else {
-                    AccrualIntegration::Exact
+                    (AccrualIntegration::Exact, c.plans.exact)
                 };
                 if accrual == c.settings.accrual {
                     ShiftResult { shift: *shift, status: "not_applicable", measures: None, floored_nodes: 0 }
                 } else {
-                    run(*shift, c.quotes, c.discount, &BootstrapSettings { accrual, ..*c.settings }, recovery)
+                    run(*shift, c.quotes, c.discount, &BootstrapSettings { accrual, ..*c.settings }, recovery, plan)
                 }
             }
             Shift::OtherInfeasiblePolicy => {
@@ -213,7 +307,14 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
                     InfeasiblePolicy::Floor => InfeasiblePolicy::Fail,
                     InfeasiblePolicy::Fail => InfeasiblePolicy::Floor,
                 };
-                run(*shift, c.quotes, c.discount, &BootstrapSettings { infeasible, ..*c.settings }, recovery)
+                run(
+                    *shift,
+                    c.quotes,
+                    c.discount,
+                    &BootstrapSettings { infeasible, ..*c.settings },
+                    recovery,
+                    c.plans.base,
+                )
             }
         };
         out.push(r);
@@ -285,6 +386,30 @@ mod tests {
             calendar: cal,
             settings: s,
             coupon: 0.01,
+            plans: SharedPlans::default(),
+        }
+    }
+
+    /// Shared plans (the run's, the discount shift's, the accrual variants') give every shift
+    /// the same numbers, bit for bit, as plans built per shift; for par spreads, upfronts, and
+    /// both accrual variants as the run's own.
+    #[test]
+    fn shared_plans_give_the_same_numbers() {
+        let t = NaiveDate::from_ymd_opt(2024, 3, 4).unwrap();
+        let d = DiscountCurve::flat(t, 0.03);
+        let cal = Calendar::weekends_only();
+        for accrual in [AccrualIntegration::Standard, AccrualIntegration::Exact] {
+            let s = BootstrapSettings { accrual, ..BootstrapSettings::default() };
+            let mut q = quotes(250.0, 0.4);
+            q[2].quote = CdsQuote::Upfront { upfront: 0.05, coupon: 0.01 };
+            let own = curve_sensitivities(&inputs(&q, &d, &cal, &s));
+            let terms: Vec<_> = q.iter().map(BootstrapQuote::term).collect();
+            let base = BootstrapPlan::for_terms(t, &terms, &d, &cal, accrual);
+            let owned = SharedPlans::build(t, &terms, &d, &cal, &s);
+            let shared =
+                curve_sensitivities(&CurveInputs { plans: owned.shared(Some(&base)), ..inputs(&q, &d, &cal, &s) });
+            assert!(own.iter().filter(|r| r.status == "ok").count() >= 6, "{own:?}");
+            assert_eq!(format!("{own:?}"), format!("{shared:?}"));
         }
     }
 
