@@ -7,7 +7,8 @@
 //! Run: `cargo bench --bench pipeline`; smaller sizes for the growth curve, e.g.
 //! `HAZARDLINE_BENCH_ENTITIES=250 HAZARDLINE_BENCH_YEARS=5 cargo bench --bench pipeline`.
 //! The CIR fit is limited to the generated pipeline's charted names (as in the demo); set
-//! HAZARDLINE_BENCH_CIR=0 to switch it off.
+//! HAZARDLINE_BENCH_CIR=0 to switch it off; HAZARDLINE_BENCH_LEAN=1 switches off the quote
+//! conversions and the sensitivity shifts (=0 switches them on again).
 
 use hazardline::config::load_pipeline;
 use hazardline::run::{run, RunOptions};
@@ -46,6 +47,16 @@ fn main() {
     let p = dir.join("pipeline.toml");
     if std::env::var("HAZARDLINE_BENCH_CIR").as_deref() == Ok("0") {
         let text = std::fs::read_to_string(&p).unwrap().replace("cir = true", "cir = false");
+        std::fs::write(&p, text).unwrap();
+    }
+    // HAZARDLINE_BENCH_LEAN=1: without the quote conversions and the sensitivity shifts (the
+    // bootstrap, repricing and everything after them as before); =0 puts them back.
+    if let Ok(lean) = std::env::var("HAZARDLINE_BENCH_LEAN") {
+        let text = std::fs::read_to_string(&p).unwrap();
+        let marker = "[calibration]\n";
+        let lean_keys = "quote_conversions = false\nsensitivity_dates = \"off\"\n";
+        let text = text.replace(&format!("{marker}{lean_keys}"), marker);
+        let text = if lean == "1" { text.replace(marker, &format!("{marker}{lean_keys}")) } else { text };
         std::fs::write(&p, text).unwrap();
     }
     let cfg = load_pipeline(&p).expect("pipeline file");
