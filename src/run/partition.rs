@@ -237,6 +237,7 @@ pub fn compute_partition(
         // panel's rows can go.
         p.release_rows();
     }
+    super::give_back_free_memory();
     let (curve_obs, market, edges) = series.finish();
     timings.push(timed("calibrate, curve series", t));
     let t = Instant::now();
