@@ -284,9 +284,11 @@ pub fn check_cds(
     }
     kept.truncate(w);
     drop_vec(flags);
+    // The date as it compares (calendar order, the order of its day count), not its day count,
+    // which costs more than the rest of the key and would be computed twice per comparison.
     kept.par_sort_unstable_by_key(|r| {
         (
-            serial(r.date),
+            r.date,
             ent_rank[r.entity as usize],
             ccy_rank[r.currency as usize],
             tier_rank[r.tier as usize],
