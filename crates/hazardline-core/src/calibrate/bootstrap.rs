@@ -13,7 +13,7 @@
 //! silently.
 
 use crate::curves::{year_time, DiscountCurve, HazardCurve};
-use crate::instruments::cds::{evaluate_terms, AccrualIntegration, CdsContract, CdsQuote, LegPlan};
+use crate::instruments::cds::{evaluate_terms, terms_legs, AccrualIntegration, CdsContract, CdsQuote, LegPlan};
 use crate::math::{newton_bracketed, Dual, RootError, Scalar};
 use crate::time::imm::MaturityError;
 use crate::time::{add_days, Calendar, Tenor};
@@ -431,32 +431,13 @@ impl BootstrapPlan {
             let failed = solve_nodes(self, std::slice::from_ref(quote), settings, s, &mut nodes, &mut hazards);
             let ok = !failed && nodes.iter().all(|n| n.status.usable()) && hazards.len() == 1;
             let spread = ok.then(|| {
-                // ln S on the one-segment curve, as HazardCurve::log_survival_at computes it.
                 let (h, t1) = (hazards[0], self.node_times[0]);
-                let cumulative = 0.0 + h * (t1 - 0.0);
                 let plan = &self.plan;
                 s.log_q.clear();
-                s.log_q.extend(plan.times.iter().map(|&t| {
-                    -(if t <= 0.0 {
-                        0.0
-                    } else if t <= t1 {
-                        h * t
-                    } else {
-                        cumulative - h * (t1 - t)
-                    })
-                }));
+                s.log_q.extend(plan.times.iter().map(|&t| HazardCurve::one_segment_log_survival(h, t1, t)));
                 s.pq.clear();
                 s.pq.extend(plan.log_dfs.iter().zip(&s.log_q).map(|(p, q)| (p + q).exp()));
-                let terms = &plan.contracts[0];
-                let (prot, prem, aod) = evaluate_terms(plan, &terms.prot, &terms.coupons, &s.pq, &s.log_q);
-                crate::instruments::CdsLegs {
-                    protection: (1.0 - quote.recovery) * prot,
-                    premium01: prem,
-                    accrual_on_default01: aod,
-                    rebate01: terms.rebate01,
-                    cash_settle_df: terms.cash_settle_df,
-                }
-                .par_spread()
+                terms_legs(plan, &plan.contracts[0], quote.recovery, &s.pq, &s.log_q).par_spread()
             });
             s.nodes = nodes;
             s.hazards = hazards;

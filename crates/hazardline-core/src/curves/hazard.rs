@@ -132,6 +132,22 @@ impl HazardCurve {
     pub fn default_probability(&self, t1: f64, t2: f64) -> f64 {
         self.survival_at(t1) - self.survival_at(t2)
     }
+
+    /// ln S(t) on the curve of one segment, hazard `h` up to the node `t1` and beyond: the
+    /// numbers [`HazardCurve::log_survival_at`] gives on `HazardCurve::new(_, vec![t1],
+    /// vec![h])`, bit for bit (a unit test), without building the curve (the quote conversions
+    /// ask this for tens of millions of one-segment curves).
+    pub(crate) fn one_segment_log_survival(h: f64, t1: f64, t: f64) -> f64 {
+        // The same operations as `new` and `integrated_hazard` on one node.
+        let cumulative = 0.0 + h * (t1 - 0.0);
+        -(if t <= 0.0 {
+            0.0
+        } else if t <= t1 {
+            h * t
+        } else {
+            cumulative - h * (t1 - t)
+        })
+    }
 }
 
 #[cfg(test)]
@@ -148,6 +164,20 @@ mod tests {
         let c = HazardCurve::flat(r(), 0.02);
         for t in [0.0, 0.25, 1.0, 5.0, 30.0] {
             assert!((c.survival_at(t) - (-0.02f64 * t).exp()).abs() < 1e-15);
+        }
+    }
+
+    #[test]
+    fn one_segment_log_survival_is_the_one_node_curves() {
+        for (h, t1) in [(0.0123, 4.7), (0.0, 1.0), (0.85, 0.26), (3.3e-5, 10.01)] {
+            let c = HazardCurve::new(r(), vec![t1], vec![h]).unwrap();
+            for t in [-1.0, 0.0, 1e-9, 0.1, t1 * 0.5, t1, t1 + 1e-9, t1 + 0.3, 2.0 * t1, 40.0] {
+                assert_eq!(
+                    HazardCurve::one_segment_log_survival(h, t1, t).to_bits(),
+                    c.log_survival_at(t).to_bits(),
+                    "h {h} t1 {t1} t {t}"
+                );
+            }
         }
     }
 

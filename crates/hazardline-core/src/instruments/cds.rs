@@ -502,17 +502,20 @@ pub(crate) fn price_legs_on_plan(plan: &LegPlan, recoveries: &[f64], hazard: &Ha
     plan.contracts
         .iter()
         .zip(recoveries)
-        .map(|(terms, &recovery)| {
-            let (prot, prem, aod) = evaluate_terms(plan, &terms.prot, &terms.coupons, &pq, &log_q);
-            CdsLegs {
-                protection: (1.0 - recovery) * prot,
-                premium01: prem,
-                accrual_on_default01: aod,
-                rebate01: terms.rebate01,
-                cash_settle_df: terms.cash_settle_df,
-            }
-        })
+        .map(|(terms, &recovery)| terms_legs(plan, terms, recovery, &pq, &log_q))
         .collect()
+}
+
+/// The legs of one contract of `plan` with P Q and ln Q given at every grid point.
+pub(crate) fn terms_legs(plan: &LegPlan, terms: &ContractTerms, recovery: f64, pq: &[f64], log_q: &[f64]) -> CdsLegs {
+    let (prot, prem, aod) = evaluate_terms(plan, &terms.prot, &terms.coupons, pq, log_q);
+    CdsLegs {
+        protection: (1.0 - recovery) * prot,
+        premium01: prem,
+        accrual_on_default01: aod,
+        rebate01: terms.rebate01,
+        cash_settle_df: terms.cash_settle_df,
+    }
 }
 
 /// Prices the legs of `contract` on curves referenced on its trade date.
@@ -530,15 +533,7 @@ pub fn price_legs(
     let plan = LegPlan::build(trade, &[contract], discount, hazard.node_times(), mode);
     let log_q: Vec<f64> = plan.times.iter().map(|&t| hazard.log_survival_at(t)).collect();
     let pq: Vec<f64> = plan.log_dfs.iter().zip(&log_q).map(|(p, q)| (p + q).exp()).collect();
-    let terms = &plan.contracts[0];
-    let (prot, prem, aod) = evaluate_terms(&plan, &terms.prot, &terms.coupons, &pq, &log_q);
-    Ok(CdsLegs {
-        protection: (1.0 - recovery) * prot,
-        premium01: prem,
-        accrual_on_default01: aod,
-        rebate01: terms.rebate01,
-        cash_settle_df: terms.cash_settle_df,
-    })
+    Ok(terms_legs(&plan, &plan.contracts[0], recovery, &pq, &log_q))
 }
 
 /// The quoted-spread convention: a quote given as a spread `s` stands for the flat hazard at
