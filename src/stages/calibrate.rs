@@ -506,8 +506,7 @@ fn sensitivity_rows(
 
 /// Whether each job (a curve's rows, by its first row) is its entity's reference curve on its
 /// date in its currency (see [`BlockCurve::reference`]).
-fn reference_jobs(panel: &CdsPanel, jobs: &[(usize, usize)], order: &[String]) -> Vec<bool> {
-    let rows = &panel.rows;
+fn reference_jobs(panel: &CdsPanel, rows: &[CdsQuoteRow], jobs: &[(usize, usize)], order: &[String]) -> Vec<bool> {
     let tier_rank = panel.tiers.ranks();
     let rank = |a: usize| {
         let t = rows[a].tier;
@@ -535,6 +534,39 @@ fn reference_jobs(panel: &CdsPanel, jobs: &[(usize, usize)], order: &[String]) -
 /// Curves calibrated in parallel before their rows are moved into the tables.
 const CURVES_PER_BLOCK: usize = 16_384;
 
+/// The panel's rows cut into pieces that start at block starts (`starts`: row indices,
+/// increasing, the first 0) and hold at least [`ROWS_PER_PIECE`] rows each (the last may hold
+/// fewer), each with the index of its first row, so that the rows of the blocks calibrated can
+/// be freed as the calibration goes. Cut from the end, the whole vector shrinking after each
+/// cut, so the rows are held about once at any time (2.7 GiB at 2,000 names x 10 years). A
+/// piece is at least 32 MiB, above glibc's largest threshold for allocating by `mmap`, so
+/// freeing it hands its pages straight back to the system instead of leaving them in one
+/// thread's heap.
+fn rows_in_pieces(mut rows: Vec<CdsQuoteRow>, starts: impl Iterator<Item = usize>) -> Vec<(usize, Vec<CdsQuoteRow>)> {
+    let mut cuts = Vec::new();
+    let mut last = 0;
+    for start in starts {
+        if start == 0 || start - last >= ROWS_PER_PIECE {
+            cuts.push(start);
+            last = start;
+        }
+    }
+    let mut pieces = Vec::with_capacity(cuts.len());
+    for &start in cuts.iter().rev() {
+        if start == 0 {
+            pieces.push((0, std::mem::take(&mut rows)));
+        } else {
+            pieces.push((start, rows.split_off(start)));
+            rows.shrink_to_fit();
+        }
+    }
+    pieces.reverse();
+    pieces
+}
+
+/// Rows per piece of [`rows_in_pieces`]: 40 MiB of rows.
+const ROWS_PER_PIECE: usize = (40 << 20) / std::mem::size_of::<CdsQuoteRow>();
+
 /// One block of calibrated curves, in key order (date, entity, currency, tier): their node
 /// rows, their residual rows and the bootstrapped curves with their quotes.
 #[derive(Debug, Default)]
@@ -546,8 +578,8 @@ pub struct CurveBlock {
     pub sensitivities: Vec<SensitivityRow>,
 }
 
-/// Calibrates every curve of the dataset's CDS panel and keeps every row and curve in the
-/// returned [`Calibration`] (see [`calibrate_blocks`] to take them as they come instead).
+/// Calibrates every curve of the dataset's CDS panel (freeing the panel's rows, as
+/// [`calibrate_blocks`] does) and keeps every row and curve in the returned [`Calibration`] (see [`calibrate_blocks`] to take them as they come instead).
 pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams) -> Result<Calibration> {
     let quotes = ds.cds.as_ref().map_or(0, |c| c.rows.len());
     let (mut hazard, mut residuals) = (Vec::new(), Vec::new());
@@ -571,7 +603,8 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
 /// Calibrates every curve of the dataset's CDS panel, handing each block of curves to `sink`
 /// in key order as soon as it is done; the returned [`Calibration`] has everything but the
 /// rows and curves the blocks carried. Updates `ds.counts` with this stage's rejects and
-/// checks the accounting again. A curve dated outside `scope` is a margin curve (see
+/// checks the accounting again. The panel's rows are the calibration's to free: they are gone
+/// from `ds` afterwards (the panel keeps their period). A curve dated outside `scope` is a margin curve (see
 /// `run::partition::keep_dates`): it is calibrated and handed over in the block's
 /// `curves`, but its rows, rejects and counts belong to another part and are left out.
 pub fn calibrate_blocks(
@@ -588,10 +621,17 @@ pub fn calibrate_blocks(
             message: "calibration needs the discount table or the rate_quotes table".into(),
         });
     }
-    let panel = ds
-        .cds
-        .as_ref()
-        .ok_or_else(|| Error::Argument { name: "inputs", message: "calibration needs the cds_quotes table".into() })?;
+    // The calibration is the panel's rows' last reader: it takes them, and frees each block's
+    // rows once the block is calibrated (the period stays on the panel).
+    let all_rows = {
+        let panel = ds.cds.as_mut().ok_or_else(|| Error::Argument {
+            name: "inputs",
+            message: "calibration needs the cds_quotes table".into(),
+        })?;
+        panel.period = panel.quote_period();
+        std::mem::take(&mut panel.rows)
+    };
+    let panel = ds.cds.as_ref().expect("checked above");
     let mut out = Calibration::default();
     let (mut curves, disc_used) = discount_curves(disc_rows.unwrap_or_default(), p.zero_rates, &mut out.rejects);
     let from_table: std::collections::BTreeSet<(NaiveDate, String)> = curves.keys().cloned().collect();
@@ -613,7 +653,7 @@ pub fn calibrate_blocks(
 
     // Curves are consecutive runs of (date, entity, currency, tier) in the panel's sorted rows.
     let mut jobs: Vec<(usize, usize)> = Vec::new();
-    let rows = &panel.rows;
+    let rows = &all_rows;
     let mut i = 0;
     while i < rows.len() {
         let mut j = i + 1;
@@ -628,12 +668,12 @@ pub fn calibrate_blocks(
         jobs.push((i, j));
         i = j;
     }
-    let reference = reference_jobs(panel, &jobs, &p.seniority_order);
+    let reference = reference_jobs(panel, rows, &jobs, &p.seniority_order);
     let jobs: Vec<(usize, usize, bool)> = jobs.into_iter().zip(reference).map(|((a, b), r)| (a, b, r)).collect();
     // One bootstrap plan per (date, currency, tenor set), shared by every name quoted so.
     type PlanKey = (chrono::NaiveDate, u32, Vec<Term>);
-    let key_of = |a: usize, b: usize| -> PlanKey {
-        (rows[a].date, rows[a].currency, rows[a..b].iter().map(|r| (r.tenor, r.maturity)).collect())
+    let key_of = |rows: &[CdsQuoteRow]| -> PlanKey {
+        (rows[0].date, rows[0].currency, rows.iter().map(|r| (r.tenor, r.maturity)).collect())
     };
     // The distinct keys (a set, not a sorted list of every curve's key: at full size that list
     // was a gigabyte beside the quote panel); consecutive curves mostly share their key.
@@ -646,7 +686,7 @@ pub fn calibrate_blocks(
                 && rows[a..b].iter().map(|r| (r.tenor, r.maturity)).eq(rows[c..d].iter().map(|r| (r.tenor, r.maturity)))
         });
         if !same {
-            keys.insert(key_of(a, b));
+            keys.insert(key_of(&rows[a..b]));
             last = Some((a, b));
         }
     }
@@ -693,17 +733,26 @@ pub fn calibrate_blocks(
     // Curves run in parallel a block at a time and each block goes to the sink before the
     // next starts, so the per-curve vectors of only one block are alive at once.
     let mut cds_used = 0;
+    let mut pieces = rows_in_pieces(all_rows, jobs.chunks(CURVES_PER_BLOCK).map(|b| b[0].0)).into_iter();
+    let mut piece: (usize, Vec<CdsQuoteRow>) = (0, Vec::new());
     for block_jobs in jobs.chunks(CURVES_PER_BLOCK) {
+        if block_jobs[0].0 >= piece.0 + piece.1.len() {
+            // The blocks of the piece before are done: its rows go (a piece starts at a block).
+            piece = pieces.next().ok_or_else(|| Error::Internal("the quote rows ended before the curves".into()))?;
+        }
+        // The block's rows, by their index in the panel.
+        let (first, rows) = (piece.0, &piece.1);
+        let rows_of = |a: usize, b: usize| &rows[a - first..b - first];
         let outputs: Vec<CurveOutput> = block_jobs
             .par_iter()
             .map(|&(a, b, reference)| {
-                let h = &rows[a];
+                let h = &rows_of(a, b)[0];
                 let o = match curves.get(&(h.date, panel.currencies.name(h.currency).to_string())) {
                     Some(curve) => {
-                        let key = key_of(a, b);
+                        let key = key_of(rows_of(a, b));
                         calibrate_one(
                             panel,
-                            &rows[a..b],
+                            rows_of(a, b),
                             curve,
                             plans.get(&key),
                             p,
@@ -717,7 +766,7 @@ pub fn calibrate_blocks(
                         )
                     }
                     None => CurveOutput::rejected(
-                        rows[a..b]
+                        rows_of(a, b)
                             .iter()
                             .map(|r| {
                                 panel.reject(
@@ -738,8 +787,8 @@ pub fn calibrate_blocks(
             })
             .collect();
         let mut block = CurveBlock::default();
-        for (o, &(a, _, _)) in outputs.into_iter().zip(block_jobs) {
-            if !scope.contains(rows[a].date) {
+        for (o, &(a, b, _)) in outputs.into_iter().zip(block_jobs) {
+            if !scope.contains(rows_of(a, b)[0].date) {
                 block.curves.extend(o.fit);
                 continue;
             }
@@ -869,11 +918,51 @@ mod tests {
         let jobs: Vec<(usize, usize)> = (0..4).map(|i| (i, i + 1)).collect();
         let chosen = |order: &[&str]| {
             let order: Vec<String> = order.iter().map(|s| s.to_string()).collect();
-            reference_jobs(&panel, &jobs, &order).iter().position(|&r| r)
+            reference_jobs(&panel, &panel.rows, &jobs, &order).iter().position(|&r| r)
         };
         assert_eq!(chosen(&[]), Some(0), "no order: the absent seniority first");
         assert_eq!(chosen(&["senior"]), Some(1), "senior listed: its first clause by name");
         assert_eq!(chosen(&["subordinated", "senior"]), Some(3));
-        assert_eq!(reference_jobs(&panel, &jobs, &[]).iter().filter(|&&r| r).count(), 1);
+        assert_eq!(reference_jobs(&panel, &panel.rows, &jobs, &[]).iter().filter(|&&r| r).count(), 1);
+    }
+
+    /// The pieces start at block starts only, each (but the last) holds at least
+    /// ROWS_PER_PIECE rows, and together they are the rows in their order.
+    #[test]
+    fn rows_in_pieces_cut_at_block_starts() {
+        let d = NaiveDate::from_ymd_opt(2024, 3, 4).unwrap();
+        let n = 3 * ROWS_PER_PIECE + 17;
+        let rows: Vec<CdsQuoteRow> = (0..n)
+            .map(|i| CdsQuoteRow {
+                date: d,
+                entity: 0,
+                currency: 0,
+                tenor: Tenor::from_months(60).unwrap(),
+                quote: CdsQuote::ParSpread(0.01),
+                recovery: f64::NAN,
+                tier: 0,
+                file: 0,
+                row: i as u32,
+                flags: 0,
+                quoted_coupon_bp: f32::NAN,
+                maturity: None,
+            })
+            .collect();
+        let block = ROWS_PER_PIECE / 3 + 5;
+        let starts: Vec<usize> = (0..n).step_by(block).collect();
+        let pieces = rows_in_pieces(rows, starts.iter().copied());
+        assert!(pieces.len() > 1);
+        let mut next = 0;
+        for (k, (first, piece)) in pieces.iter().enumerate() {
+            assert_eq!(*first, next, "pieces follow each other");
+            assert!(starts.contains(first), "a piece starts at a block start");
+            if k + 1 < pieces.len() {
+                assert!(piece.len() >= ROWS_PER_PIECE);
+            }
+            assert!(piece.iter().enumerate().all(|(i, r)| r.row as usize == first + i));
+            next += piece.len();
+        }
+        assert_eq!(next, n, "every row is in one piece");
+        assert!(rows_in_pieces(Vec::new(), std::iter::empty()).is_empty());
     }
 }
