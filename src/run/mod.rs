@@ -474,7 +474,11 @@ fn finish(
     }
     let meta = meta.to_vec();
     let t = Instant::now();
-    let (digest, folds) = sinks.finish(std::mem::take(&mut cal.hazard), std::mem::take(&mut cal.residuals))?;
+    let (digest, folds) = sinks.finish(
+        std::mem::take(&mut cal.hazard),
+        std::mem::take(&mut cal.residuals),
+        std::mem::take(&mut cal.sensitivities),
+    )?;
     let digest = digest.unwrap_or_else(|| RowDigest::new(multi, &cfg.stability));
     let (rss, peak) = memory_mib();
     timings.push(partition::logged(("write curves".into(), t.elapsed().as_secs_f64(), rss, peak)));
@@ -540,7 +544,6 @@ fn finish(
     crate::tables::write(&cal.discount, &tables, &meta)?;
     crate::tables::write(&cal.params, &tables, &meta)?;
     crate::tables::write(&cal.basis, &tables, &meta)?;
-    crate::tables::write(&cal.sensitivities, &tables, &meta)?;
     write_backtest_tables(&backtest, &tables, &meta)?;
     write_stability_tables(&stability, &tables, &meta)?;
     let mut all_flags: Vec<FlagRecord> = ds.flags.iter().map(FlagRecord::quality).collect();

@@ -177,10 +177,13 @@ pub fn write_partition(
     let PartFolder { target } = folder;
     let work = target.work().to_path_buf();
     let none: &[(String, String)] = &[];
-    sinks.finish(std::mem::take(&mut part.hazard), std::mem::take(&mut part.residuals))?;
+    sinks.finish(
+        std::mem::take(&mut part.hazard),
+        std::mem::take(&mut part.residuals),
+        std::mem::take(&mut part.sensitivities),
+    )?;
     tables::write(&part.params, &work, none)?;
     tables::write(&part.basis, &work, none)?;
-    tables::write(&part.sensitivities, &work, none)?;
     tables::write(&part.discount, &work, none)?;
     tables::write(&part.rejects, &work, none)?;
     tables::parts::write_series(&part.curve_obs, &work)?;
@@ -508,7 +511,7 @@ mod tests {
         let mut sinks = RowSinks::create(&out, &[], None, None, false).unwrap();
         let (rest, residuals) = merge_part_rows(&dirs, &recorded, &mut sinks).unwrap();
         assert_eq!((rest.len(), residuals.len()), (6, 0));
-        sinks.finish(rest, residuals).unwrap();
+        sinks.finish(rest, residuals, Vec::new()).unwrap();
         sort_hazard(&mut all);
         assert_eq!(crate::tables::read::<HazardCurveRow>(&out).unwrap(), all);
     }

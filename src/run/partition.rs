@@ -26,7 +26,7 @@ use crate::stages::backtest::{backtest_members_stage, may_serve_a_cohort, CurveC
 use crate::stages::calibrate::{calibrate_blocks, CalibrationParams};
 use crate::stages::fits::{calibrate_intensity, CurvesForFits};
 use crate::stages::stability::{grade_book, CurveSeries, RowDigest};
-use crate::tables::parquet::WriterThread;
+use crate::tables::parquet::{FrameTable, WriterThread};
 use crate::tables::*;
 use chrono::NaiveDate;
 use std::collections::{BTreeMap, BTreeSet};
@@ -44,7 +44,9 @@ pub struct Partition {
     pub residuals: Vec<ResidualRow>,
     pub params: Vec<IntensityParamRow>,
     pub basis: Vec<BasisRow>,
-    /// The sensitivity rows of the part's curves (in the table's order after the merge).
+    /// Sensitivity rows not yet handed to a [`RowSinks`]: none after [`compute_partition`]
+    /// (they go to the sinks as the curves are calibrated); after [`read_partition`], the
+    /// part's (in the table's order once merged).
     pub sensitivities: Vec<SensitivityRow>,
     pub discount: Vec<DiscountCurveRow>,
     /// Rows the calibration stages rejected.
@@ -102,6 +104,10 @@ pub struct RowSinks<'a> {
     residuals: WriterThread<ResidualRow, Option<ResidualFold>>,
     /// `cds_quote_conversions`: the conversions the residual rows carry.
     conversions: WriterThread<QuoteConversionRow>,
+    /// `sensitivities`, gathered as frames as the curves of the sensitivity dates come and
+    /// written at the end (kept as rows to the end, a whole run's were 730 MiB at 2,000 names
+    /// x 10 years).
+    sensitivities: FrameTable,
     /// None for a shard's part: the merge digests the rows it reads back.
     digest: Option<RowDigest<'a>>,
 }
@@ -122,7 +128,8 @@ impl<'a> RowSinks<'a> {
         let hazard = WriterThread::spawn(hazard_table(dir, meta, split)?, nodes);
         let residuals = WriterThread::spawn(residual_table(dir, meta, split)?, residuals);
         let conversions = WriterThread::spawn(conversion_table(dir, meta, split)?, ());
-        Ok(RowSinks { hazard, residuals, conversions, digest })
+        let sensitivities = sensitivity_table(dir, meta)?;
+        Ok(RowSinks { hazard, residuals, conversions, sensitivities, digest })
     }
 
     /// Node rows, in the table's order, after those already given.
@@ -145,21 +152,33 @@ impl<'a> RowSinks<'a> {
         self.residuals.push(rows)
     }
 
+    /// Sensitivity rows, in the table's order, after those already given.
+    pub fn sensitivity_rows(&mut self, rows: Vec<SensitivityRow>) -> Result<()> {
+        if rows.is_empty() {
+            return Ok(());
+        }
+        self.sensitivities.push(framed(&rows)?)
+    }
+
     /// Appends `hazard` and `residuals` in the tables' order ([`sort_hazard`],
-    /// [`sort_residuals`]) and closes both tables; returns the digest and the report's folds.
+    /// [`sort_residuals`]) and `sensitivities` (already in theirs), and closes the tables;
+    /// returns the digest and the report's folds.
     pub fn finish(
         mut self,
         mut hazard: Vec<HazardCurveRow>,
         mut residuals: Vec<ResidualRow>,
+        sensitivities: Vec<SensitivityRow>,
     ) -> Result<(Option<RowDigest<'a>>, Option<ReportFolds>)> {
         sort_hazard(&mut hazard);
         sort_residuals(&mut residuals);
         self.nodes(hazard)?;
         self.residual_rows(residuals)?;
-        let RowSinks { hazard, residuals, conversions, digest } = self;
+        self.sensitivity_rows(sensitivities)?;
+        let RowSinks { hazard, residuals, conversions, sensitivities, digest } = self;
         let (_, nodes) = hazard.finish()?;
         let (_, residuals) = residuals.finish()?;
         conversions.finish()?;
+        sensitivities.finish()?;
         Ok((digest, nodes.zip(residuals)))
     }
 }
@@ -188,24 +207,23 @@ pub fn compute_partition(
     let mut series = CurveSeries::new(&grades, multi);
     let mut coverage = CurveCoverage::default();
     let mut kept = BTreeMap::new();
-    let mut sensitivities: Vec<SensitivityRow> = Vec::new();
     let mut cal = if cfg.cds_bootstrap {
         // Calibration (on rayon's threads) and the handling of its finished blocks (writing,
         // digest, series: serial work) overlap: a second thread takes each block from a channel
         // that holds one, so at most three blocks are alive at once.
         let (tx, rx) = std::sync::mpsc::sync_channel::<crate::stages::calibrate::CurveBlock>(1);
-        let (series, coverage, kept, sensitivities, grades) =
-            (&mut series, &mut coverage, &mut kept, &mut sensitivities, &grades);
+        let (series, coverage, kept, grades) = (&mut series, &mut coverage, &mut kept, &grades);
         let (serves, for_fits, range) = (&serves, &for_fits, scope.range);
         std::thread::scope(|threads| {
             let consumer = threads.spawn(move || -> Result<()> {
                 for block in rx {
                     sinks.nodes(block.hazard)?;
                     sinks.residual_rows(block.residuals)?;
-                    for mut r in block.sensitivities {
+                    let mut rows = block.sensitivities;
+                    for r in rows.iter_mut() {
                         r.grade = grades.grade(&r.entity, r.date).map(i64::from);
-                        sensitivities.push(r);
                     }
+                    sinks.sensitivity_rows(rows)?;
                     for c in block.curves {
                         let (key, curve) = (c.key, c.curve);
                         if range.contains(key.0) {
@@ -262,7 +280,7 @@ pub fn compute_partition(
         residuals: std::mem::take(&mut fits.residuals),
         params: std::mem::take(&mut fits.params),
         basis: std::mem::take(&mut fits.basis),
-        sensitivities,
+        sensitivities: Vec::new(),
         discount: discount_rows,
         rejects,
         curve_obs,

@@ -218,8 +218,8 @@ impl<'a> CurveSeries<'a> {
 /// What the stability stage takes from the node and residual rows, digested as the rows pass
 /// in the tables' order: per CDS curve its failures and infeasible nodes (from the node
 /// statuses), and the residual review ([`ResidualReview`]) of every repricing residual.
-/// One curve's (date, failures, infeasible nodes).
-type CurveCount = (NaiveDate, u64, u64);
+/// One curve's (date, failures, infeasible nodes): 12 bytes, one per curve of the run.
+type CurveCount = (NaiveDate, u32, u32);
 
 pub struct RowDigest<'a> {
     labels: Labels,
@@ -309,10 +309,15 @@ impl<'a> RowDigest<'a> {
             for (date, failures, infeasible) in curves {
                 match counts[start..].last_mut() {
                     Some(CalibrationCounts { date: d, failures: f, infeasible: i, .. }) if *d == date => {
-                        *f = (*f).max(failures);
-                        *i += infeasible;
+                        *f = (*f).max(u64::from(failures));
+                        *i += u64::from(infeasible);
                     }
-                    _ => counts.push(CalibrationCounts { entity: entity.clone(), date, failures, infeasible }),
+                    _ => counts.push(CalibrationCounts {
+                        entity: entity.clone(),
+                        date,
+                        failures: u64::from(failures),
+                        infeasible: u64::from(infeasible),
+                    }),
                 }
             }
         }

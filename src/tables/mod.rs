@@ -46,7 +46,7 @@ pub use residuals::{
     conversion_table, residual_table, residual_writer, sort_residuals, write_residuals, QuoteConversion,
     QuoteConversionRow, ResidualRow,
 };
-pub use sensitivities::{sort_sensitivities, SensitivityRow};
+pub use sensitivities::{sensitivity_table, sort_sensitivities, SensitivityRow};
 
 use crate::error::{Error, Result};
 use polars::prelude::{DataFrame, DataType};

@@ -180,6 +180,70 @@ impl<T> Drop for RowGroupWriter<T> {
     }
 }
 
+/// The row groups of a whole write ([`write_parquet`]) of `n` rows held in one chunk: one group
+/// below [`ROW_GROUP_ROWS`] rows; otherwise n / ROW_GROUP_ROWS groups of n / (that number)
+/// rows, the last taking the remainder (polars' `chunk_df_for_writing`, which splits with
+/// `split_and_flatten`).
+pub fn whole_write_groups(n: usize) -> Vec<usize> {
+    let target = n / ROW_GROUP_ROWS;
+    if target <= 1 {
+        return vec![n];
+    }
+    let size = n / target;
+    let mut groups = vec![size; target - 1];
+    groups.push(n - size * (target - 1));
+    groups
+}
+
+/// A table gathered as frames of its rows, in order, while they are produced (a frame's columns
+/// take far less memory than the rows as structs), and written at the end in the row groups of
+/// a whole write, so that the file is byte for byte the one [`write_parquet`] gives all the rows
+/// framed at once, while only one group at a time is copied into one piece.
+pub struct FrameTable {
+    path: std::path::PathBuf,
+    metadata: Vec<(String, String)>,
+    frame: DataFrame,
+}
+
+impl FrameTable {
+    /// A table at `path` of the schema of `empty` (the frame of no rows).
+    pub fn create(path: &Path, metadata: &[(String, String)], empty: DataFrame) -> Self {
+        FrameTable { path: path.to_path_buf(), metadata: metadata.to_vec(), frame: empty }
+    }
+
+    /// Adds the rows of `df` (same schema) at the end of the table.
+    pub fn push(&mut self, df: DataFrame) -> Result<()> {
+        let failed = |e: PolarsError| Error::Write { path: self.path.clone(), message: e.to_string() };
+        self.frame.vstack_mut_owned(df).map_err(failed)?;
+        Ok(())
+    }
+
+    /// Writes the table (atomically) and returns its number of rows.
+    pub fn finish(self) -> Result<usize> {
+        let FrameTable { path, metadata, mut frame } = self;
+        let n = frame.height();
+        let groups = whole_write_groups(n);
+        if groups.len() == 1 {
+            frame.rechunk_mut();
+            write_parquet(&mut frame, &path, &metadata)?;
+            return Ok(n);
+        }
+        let failed = |e: PolarsError| Error::Write { path: path.to_path_buf(), message: e.to_string() };
+        atomically(&path, |file| {
+            let mut w = writer(file, &metadata).batched(frame.schema()).map_err(failed)?;
+            let mut offset = 0;
+            for len in groups {
+                let mut group = frame.slice(offset as i64, len);
+                group.rechunk_mut();
+                w.write_batch(&group).map_err(failed)?;
+                offset += len;
+            }
+            w.finish().map(|_| ()).map_err(failed)
+        })?;
+        Ok(n)
+    }
+}
+
 /// Where a row goes in a table written as a folder of files ([`SplitWriter`]): a rank (files
 /// of a lower rank come first), a group (e.g. the source or the method) and a year.
 pub type FileKey = (u8, &'static str, i32);

@@ -3,7 +3,7 @@
 //! variants, the other infeasible policy) with the three measures and their change from the
 //! base row.
 
-use super::parquet::TableBuilder;
+use super::parquet::{FrameTable, TableBuilder};
 use super::readback::{dates, floats, ints, strs, text_form};
 use super::{col, Column, Kind::*, Table};
 use crate::calibrate::sensitivity::Shift;
@@ -132,6 +132,16 @@ impl Table for SensitivityRow {
     }
 }
 
+/// Starts `sensitivities` in the folder `tables`, gathered as its rows come (in the table's
+/// order) and written at the end, byte for byte as a whole write (see [`FrameTable`]).
+pub fn sensitivity_table(tables: &Path, meta: &[(String, String)]) -> Result<FrameTable> {
+    Ok(FrameTable::create(
+        &super::file_of::<SensitivityRow>(tables),
+        &super::metadata_of::<SensitivityRow>(meta),
+        super::framed::<SensitivityRow>(&[])?,
+    ))
+}
+
 /// The table's order: by (date, entity, currency, seniority, doc_clause), the shifts of a
 /// curve in their fixed order.
 pub fn sort_sensitivities(rows: &mut [SensitivityRow]) {
@@ -175,5 +185,61 @@ mod tests {
         let rows = [row(Shift::Base, None), row(Shift::QuotesUp1bp, Some(1e-5))];
         assert_eq!(round_trip(&rows), rows.to_vec());
         refuses_a_missing_column::<SensitivityRow>(&[row(Shift::Base, None)]);
+    }
+
+    /// The table gathered as its rows come, in pieces of any size, is byte for byte the table
+    /// written whole, in the groups of a whole write (two groups for this many rows) and with
+    /// fewer rows than one group.
+    #[test]
+    fn streamed_table_equals_the_whole_write() {
+        let shifts = [Shift::Base, Shift::QuotesUp1bp, Shift::RecoveryUp5, Shift::DiscountUp1bp];
+        let n = 2 * crate::tables::parquet::ROW_GROUP_ROWS + 12_345;
+        let rows: Vec<SensitivityRow> = (0..n)
+            .map(|i| SensitivityRow {
+                date: NaiveDate::from_ymd_opt(2020, 1, 31).unwrap() + chrono::Days::new((i / 4000) as u64),
+                entity: format!("Entity {:04}", (i / 4) % 1000),
+                currency: if i % 7 == 0 { "EUR" } else { "USD" }.into(),
+                seniority: (i % 3 != 0).then(|| "senior".into()),
+                doc_clause: (i % 5 == 0).then(|| "full".into()),
+                grade: (i % 11 != 0).then_some((i % 9) as i64),
+                shift: shifts[i % 4],
+                status: if i % 13 == 0 { "infeasible" } else { "ok" }.into(),
+                coupon_bp: 100.0,
+                pd_1y: Some((i as f64).sqrt() * 1e-4),
+                hazard_5y: (i % 17 != 0).then(|| (i as f64).ln_1p() * 1e-3),
+                upfront_5y: Some(-(i as f64) * 1e-7),
+                pd_1y_change: (i % 4 != 0).then(|| (i % 100) as f64 * 1e-6),
+                hazard_5y_change: None,
+                upfront_5y_change: Some(1e-5),
+                floored_nodes: (i % 3) as i64,
+            })
+            .collect();
+        let dir = tempfile::tempdir().unwrap();
+        let meta = vec![("units".to_string(), "bp".to_string())];
+        let whole = dir.path().join("whole.parquet");
+        crate::tables::write_to(&rows, &whole, &meta).unwrap();
+        let streamed = dir.path().join("streamed");
+        let mut w = sensitivity_table(&streamed, &meta).unwrap();
+        let mut rest = rows.as_slice();
+        for piece in [1usize, 70_000, 3, 262_144, 100_000].iter().cycle() {
+            let k = (*piece).min(rest.len());
+            w.push(crate::tables::framed(&rest[..k]).unwrap()).unwrap();
+            rest = &rest[k..];
+            if rest.is_empty() {
+                break;
+            }
+        }
+        assert_eq!(w.finish().unwrap(), n);
+        let a = std::fs::read(&whole).unwrap();
+        let b = std::fs::read(crate::tables::file_of::<SensitivityRow>(&streamed)).unwrap();
+        assert!(a == b, "the gathered table differs from the whole write ({} and {} bytes)", a.len(), b.len());
+        // Fewer rows than a group, in pieces.
+        crate::tables::write_to(&rows[..5_000], &whole, &meta).unwrap();
+        let mut w = sensitivity_table(&streamed, &meta).unwrap();
+        for piece in rows[..5_000].chunks(1_234) {
+            w.push(crate::tables::framed(piece).unwrap()).unwrap();
+        }
+        w.finish().unwrap();
+        assert!(std::fs::read(&whole).unwrap() == std::fs::read(crate::tables::file_of::<SensitivityRow>(&streamed)).unwrap());
     }
 }
