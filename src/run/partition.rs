@@ -205,6 +205,9 @@ pub fn compute_partition(
     let serves = may_serve_a_cohort(period, params, &cfg.backtest);
     let backtest = cfg.backtest.enabled;
     let mut series = CurveSeries::new(&grades, multi);
+    if let Some(panel) = &ds.cds {
+        series.expect_curves(panel, scope.range);
+    }
     let mut coverage = CurveCoverage::default();
     let mut kept = BTreeMap::new();
     let mut cal = if cfg.cds_bootstrap {

@@ -532,7 +532,7 @@ fn reference_jobs(panel: &CdsPanel, rows: &[CdsQuoteRow], jobs: &[(usize, usize)
 }
 
 /// Curves calibrated in parallel before their rows are moved into the tables.
-const CURVES_PER_BLOCK: usize = 16_384;
+const CURVES_PER_BLOCK: usize = 8_192;
 
 /// The panel's rows cut into pieces that start at block starts (`starts`: row indices,
 /// increasing, the first 0) and hold at least [`ROWS_PER_PIECE`] rows each (the last may hold

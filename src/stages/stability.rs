@@ -145,6 +145,9 @@ pub struct CurveSeries<'a> {
     market: Vec<MarketMove>,
     /// Each series entity's first curve's spreads (see [`SpreadEdge`]).
     firsts: Vec<SpreadEdge>,
+    /// Curves to come per series entity (by its label's address), when known
+    /// ([`CurveSeries::expect_curves`]): its histories are made that long at once.
+    expected: crate::hash::FastMap<usize, usize>,
 }
 
 impl<'a> CurveSeries<'a> {
@@ -162,6 +165,29 @@ impl<'a> CurveSeries<'a> {
             observations: PanelBuilder::new(),
             market: Vec::new(),
             firsts: Vec::new(),
+            expected: Default::default(),
+        }
+    }
+
+    /// Counts the curves the panel's rows (sorted, a curve a run of (date, entity, currency,
+    /// tier)) will give each series entity on the dates of `range`, so that its histories are
+    /// allocated at their length when its first curve comes.
+    pub fn expect_curves(&mut self, panel: &crate::ingest::cds::CdsPanel, range: crate::parts::DateRange) {
+        let mut by_curve: crate::hash::FastMap<(u32, u32, u32), usize> = Default::default();
+        let mut last = None;
+        for r in &panel.rows {
+            let key = (r.date, r.entity, r.currency, r.tier);
+            if last != Some(key) {
+                last = Some(key);
+                if range.contains(r.date) {
+                    *by_curve.entry((r.entity, r.currency, r.tier)).or_default() += 1;
+                }
+            }
+        }
+        for ((e, c, t), n) in by_curve {
+            let class = curve_class(panel.currencies.name(c), &panel.tiers.label(t));
+            let entity = self.labels.entity(self.multi, panel.entities.name(e), &class);
+            *self.expected.entry(Arc::as_ptr(&entity) as *const u8 as usize).or_default() += n;
         }
     }
 
@@ -169,6 +195,17 @@ impl<'a> CurveSeries<'a> {
     pub fn add(&mut self, date: NaiveDate, e: &str, c: &str, curve: &CdsCurve) {
         let entity = self.labels.entity(self.multi, e, c);
         let grade = self.grades.grade(e, date);
+        let expected = self.expected.get(&(Arc::as_ptr(&entity) as *const u8 as usize));
+        if let (Some(&n), false) = (expected, self.last_spreads.contains_key(&entity)) {
+            // The entity's first curve: its histories get their length at once.
+            self.observations.reserve(&self.pd_1y, &entity, n);
+            self.observations.reserve(&self.hazard_5y, &entity, n);
+            for q in &curve.quotes {
+                let label =
+                    self.node_labels.entry(q.tenor).or_insert_with(|| format!("hazard_node_{}", q.tenor).into());
+                self.observations.reserve(label, &entity, n);
+            }
+        }
         if let Some(h) = &curve.curve {
             let observations = &mut self.observations;
             let mut push = |series: &Arc<str>, value: f64| {

@@ -371,7 +371,7 @@ pub struct WriterThread<T, F = ()> {
 
 impl<T: Send + 'static, F: RowFold<T>> WriterThread<T, F> {
     pub fn spawn(mut writer: TableWriter<T>, mut fold: F) -> Self {
-        let (tx, rx) = std::sync::mpsc::sync_channel::<ToWriter<T>>(2);
+        let (tx, rx) = std::sync::mpsc::sync_channel::<ToWriter<T>>(1);
         let handle = std::thread::spawn(move || -> Result<(usize, F)> {
             for message in rx {
                 match message {

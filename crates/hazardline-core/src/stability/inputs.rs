@@ -125,15 +125,29 @@ impl PanelBuilder {
             return;
         }
         let point = Point::new(date, value, grade);
+        let i = self.shared_slot(series, entity);
+        self.histories[i].1.push(point);
+    }
+
+    /// Makes room for `additional` more values of (series, entity) in one allocation, for a
+    /// history whose length is known ahead: histories that grow in step (one value per curve
+    /// date) otherwise all reallocate at the same lengths, and the vectors they leave behind
+    /// stay in the heap (a quarter of a GiB at each doubling at 2,000 names x 10 years).
+    pub fn reserve(&mut self, series: &Arc<str>, entity: &Arc<str>, additional: usize) {
+        let i = self.shared_slot(series, entity);
+        self.histories[i].1.reserve_exact(additional);
+    }
+
+    /// The history of (series, entity) by the labels' addresses, made when new.
+    fn shared_slot(&mut self, series: &Arc<str>, entity: &Arc<str>) -> usize {
         let address = (Arc::as_ptr(series) as *const u8 as usize, Arc::as_ptr(entity) as *const u8 as usize);
         if let Some(&i) = self.by_address.get(&address) {
-            self.histories[i].1.push(point);
-            return;
+            return i;
         }
         let i = self.slot(series, entity);
-        self.histories[i].1.push(point);
         self.by_address.insert(address, i);
         self.pinned.push((series.clone(), entity.clone()));
+        i
     }
 
     /// The history of (series, entity), by text, made when new.
