@@ -54,6 +54,9 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
         Some(report_folds(cfg)?),
         split,
     )?;
+    // The sensitivity rows (in the table's order since `combine`) go to their table now: held
+    // there as a frame, they take far less memory than as rows while the curves stream.
+    sinks.sensitivity_rows(std::mem::take(&mut cal.sensitivities))?;
     let t = Instant::now();
     (cal.hazard, cal.residuals) = merge_part_rows(&dirs, &recorded, &mut sinks)?;
     let (rss, peak) = memory_mib();

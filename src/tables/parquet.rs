@@ -362,7 +362,7 @@ impl<T, F: RowFold<T>> RowFold<T> for Option<F> {
 
 /// A [`RowGroupWriter`] on a thread of its own, so that encoding and compressing a table (and
 /// a [`RowFold`] over its rows) overlaps with whatever produces the rows. Rows go over a
-/// channel that holds two batches; dropped unfinished (an error elsewhere), the thread drops
+/// channel that holds one batch; dropped unfinished (an error elsewhere), the thread drops
 /// its writer, which removes the temporary file.
 pub struct WriterThread<T, F = ()> {
     tx: Option<std::sync::mpsc::SyncSender<ToWriter<T>>>,
