@@ -564,6 +564,117 @@ fn rows_in_pieces(mut rows: Vec<CdsQuoteRow>, starts: impl Iterator<Item = usize
     pieces
 }
 
+/// A bootstrap plan's key: (date, currency, the curve's terms in order).
+type PlanKey = (NaiveDate, u32, Vec<Term>);
+
+fn plan_key(rows: &[CdsQuoteRow]) -> PlanKey {
+    (rows[0].date, rows[0].currency, rows.iter().map(|r| (r.tenor, r.maturity)).collect())
+}
+
+/// The plans the curves of one piece of the panel use, built when the piece's calibration
+/// starts and dropped after it, so that a run holds a few dates' plans at a time (all of ten
+/// years' were 150 MiB, at any number of names).
+#[derive(Default)]
+struct Plans {
+    /// One bootstrap plan per (date, currency, tenor set), shared by every name quoted so.
+    run: FastMap<PlanKey, std::result::Result<BootstrapPlan, BootstrapError>>,
+    /// One single-tenor plan per (date, currency, tenor) for the quoted spreads of the quote
+    /// conversions (None when they are off).
+    single: Option<SinglePlans>,
+    /// The sensitivity shifts' plans (discount shift, accrual variants) per plan key on the
+    /// sensitivity dates, shared by the curves quoted so as the run's own plans are.
+    shifts: FastMap<PlanKey, OwnedPlans>,
+}
+
+impl Plans {
+    /// The plans of the curves `jobs` (rows `a..b` of the panel, `rows` its rows from `first`
+    /// on), keeping those of `before` dated on the piece's first date (a date can straddle two
+    /// pieces) instead of building them again.
+    fn for_piece(
+        before: Plans,
+        rows: &[CdsQuoteRow],
+        first: usize,
+        jobs: &[(usize, usize, bool)],
+        curves: &BTreeMap<(NaiveDate, String), DiscountCurve>,
+        panel: &CdsPanel,
+        p: &CalibrationParams,
+    ) -> Plans {
+        let Some(day) = rows.first().map(|r| r.date) else {
+            return Plans::default();
+        };
+        let Plans { mut run, mut single, mut shifts } = before;
+        run.retain(|k, _| k.0 == day);
+        shifts.retain(|k, _| k.0 == day);
+        if let Some(s) = single.as_mut() {
+            s.retain(|k, _| k.0 == day);
+        }
+        let curve_of = |date: NaiveDate, ccy: u32| curves.get(&(date, panel.currencies.name(ccy).to_string()));
+        // The distinct keys; consecutive curves mostly share theirs.
+        let mut keys: FastSet<PlanKey> = FastSet::default();
+        let mut last: Option<&[CdsQuoteRow]> = None;
+        for &(a, b, _) in jobs {
+            let curve = &rows[a - first..b - first];
+            let same = last.is_some_and(|l| {
+                l[0].date == curve[0].date
+                    && l[0].currency == curve[0].currency
+                    && l.iter().map(|r| (r.tenor, r.maturity)).eq(curve.iter().map(|r| (r.tenor, r.maturity)))
+            });
+            if !same {
+                let key = plan_key(curve);
+                if !run.contains_key(&key) {
+                    keys.insert(key);
+                }
+                last = Some(curve);
+            }
+        }
+        let built: Vec<(PlanKey, std::result::Result<BootstrapPlan, BootstrapError>)> = keys
+            .into_iter()
+            .collect::<Vec<_>>()
+            .into_par_iter()
+            .filter_map(|k| {
+                let curve = curve_of(k.0, k.1)?;
+                let cal = p.cds_calendar(panel.currencies.name(k.1));
+                let plan = BootstrapPlan::for_terms(k.0, &k.2, curve, cal, p.bootstrap.accrual);
+                Some((k, plan))
+            })
+            .collect();
+        let new_shifts: Vec<(PlanKey, OwnedPlans)> = built
+            .iter()
+            .map(|(k, _)| k)
+            .filter(|k| p.sensitivity_dates.contains(k.0, &p.calendar))
+            .collect::<Vec<_>>()
+            .into_par_iter()
+            .filter_map(|k| {
+                let ccy = panel.currencies.name(k.1);
+                let curve = curve_of(k.0, k.1)?;
+                Some((k.clone(), SharedPlans::build(k.0, &k.2, curve, p.cds_calendar(ccy), &p.bootstrap)))
+            })
+            .collect();
+        run.extend(built);
+        shifts.extend(new_shifts);
+        if p.quote_conversions {
+            let single = single.get_or_insert_with(Default::default);
+            let keys: FastSet<(NaiveDate, u32, Term)> = rows
+                .iter()
+                .map(|r| (r.date, r.currency, (r.tenor, r.maturity)))
+                .filter(|k| !single.contains_key(k))
+                .collect();
+            let built: Vec<_> = keys
+                .into_iter()
+                .collect::<Vec<_>>()
+                .into_par_iter()
+                .filter_map(|k| {
+                    let curve = curve_of(k.0, k.1)?;
+                    let cal = p.cds_calendar(panel.currencies.name(k.1));
+                    Some((k, BootstrapPlan::for_terms(k.0, &[k.2], curve, cal, p.bootstrap.accrual)))
+                })
+                .collect();
+            single.extend(built);
+        }
+        Plans { run, single, shifts }
+    }
+}
+
 /// Rows per piece of [`rows_in_pieces`]: 40 MiB of rows.
 const ROWS_PER_PIECE: usize = (40 << 20) / std::mem::size_of::<CdsQuoteRow>();
 
@@ -670,76 +781,25 @@ pub fn calibrate_blocks(
     }
     let reference = reference_jobs(panel, rows, &jobs, &p.seniority_order);
     let jobs: Vec<(usize, usize, bool)> = jobs.into_iter().zip(reference).map(|((a, b), r)| (a, b, r)).collect();
-    // One bootstrap plan per (date, currency, tenor set), shared by every name quoted so.
-    type PlanKey = (chrono::NaiveDate, u32, Vec<Term>);
-    let key_of = |rows: &[CdsQuoteRow]| -> PlanKey {
-        (rows[0].date, rows[0].currency, rows.iter().map(|r| (r.tenor, r.maturity)).collect())
-    };
-    // The distinct keys (a set, not a sorted list of every curve's key: at full size that list
-    // was a gigabyte beside the quote panel); consecutive curves mostly share their key.
-    let mut keys: FastSet<PlanKey> = FastSet::default();
-    let mut last: Option<(usize, usize)> = None;
-    for &(a, b, _) in &jobs {
-        let same = last.is_some_and(|(c, d)| {
-            rows[a].date == rows[c].date
-                && rows[a].currency == rows[c].currency
-                && rows[a..b].iter().map(|r| (r.tenor, r.maturity)).eq(rows[c..d].iter().map(|r| (r.tenor, r.maturity)))
-        });
-        if !same {
-            keys.insert(key_of(&rows[a..b]));
-            last = Some((a, b));
-        }
-    }
-    let plans: FastMap<PlanKey, std::result::Result<BootstrapPlan, BootstrapError>> = keys
-        .into_iter()
-        .collect::<Vec<_>>()
-        .into_par_iter()
-        .filter_map(|k| {
-            let curve = curves.get(&(k.0, panel.currencies.name(k.1).to_string()))?;
-            let cal = p.cds_calendar(panel.currencies.name(k.1));
-            let plan = BootstrapPlan::for_terms(k.0, &k.2, curve, cal, p.bootstrap.accrual);
-            Some((k, plan))
-        })
-        .collect();
-    // One single-tenor plan per (date, currency, tenor) for the quoted spreads of the quote
-    // conversions.
-    let single: Option<SinglePlans> = p.quote_conversions.then(|| {
-        let keys: FastSet<(NaiveDate, u32, Term)> =
-            rows.iter().map(|r| (r.date, r.currency, (r.tenor, r.maturity))).collect();
-        keys.into_iter()
-            .collect::<Vec<_>>()
-            .into_par_iter()
-            .filter_map(|k| {
-                let curve = curves.get(&(k.0, panel.currencies.name(k.1).to_string()))?;
-                let cal = p.cds_calendar(panel.currencies.name(k.1));
-                Some((k, BootstrapPlan::for_terms(k.0, &[k.2], curve, cal, p.bootstrap.accrual)))
-            })
-            .collect()
-    });
-    // The sensitivity shifts' plans (discount shift, accrual variants) per plan key on the
-    // sensitivity dates, shared by the curves quoted so as the run's own plans are.
-    let shift_plans: FastMap<&PlanKey, OwnedPlans> = plans
-        .keys()
-        .filter(|k| p.sensitivity_dates.contains(k.0, &p.calendar))
-        .collect::<Vec<_>>()
-        .into_par_iter()
-        .filter_map(|k| {
-            let ccy = panel.currencies.name(k.1);
-            let curve = curves.get(&(k.0, ccy.to_string()))?;
-            Some((k, SharedPlans::build(k.0, &k.2, curve, p.cds_calendar(ccy), &p.bootstrap)))
-        })
-        .collect();
     let progress = crate::report::progress::bar(jobs.len() as u64, "calibrating curves");
     // Curves run in parallel a block at a time and each block goes to the sink before the
     // next starts, so the per-curve vectors of only one block are alive at once.
     let mut cds_used = 0;
     let mut pieces = rows_in_pieces(all_rows, jobs.chunks(CURVES_PER_BLOCK).map(|b| b[0].0)).into_iter();
     let mut piece: (usize, Vec<CdsQuoteRow>) = (0, Vec::new());
+    let mut plans = Plans::default();
+    let mut piece_jobs = 0..0;
     for block_jobs in jobs.chunks(CURVES_PER_BLOCK) {
         if block_jobs[0].0 >= piece.0 + piece.1.len() {
-            // The blocks of the piece before are done: its rows go (a piece starts at a block).
+            // The blocks of the piece before are done: its rows go (a piece starts at a block),
+            // and so do its plans but those of its last date, which the next piece may share.
             piece = pieces.next().ok_or_else(|| Error::Internal("the quote rows ended before the curves".into()))?;
+            let end = piece.0 + piece.1.len();
+            let from = piece_jobs.end;
+            piece_jobs = from..from + jobs[from..].partition_point(|j| j.0 < end);
+            plans = Plans::for_piece(plans, &piece.1, piece.0, &jobs[piece_jobs.clone()], &curves, panel, p);
         }
+        let Plans { run: plans_run, single, shifts: shift_plans } = &plans;
         // The block's rows, by their index in the panel.
         let (first, rows) = (piece.0, &piece.1);
         let rows_of = |a: usize, b: usize| &rows[a - first..b - first];
@@ -749,12 +809,12 @@ pub fn calibrate_blocks(
                 let h = &rows_of(a, b)[0];
                 let o = match curves.get(&(h.date, panel.currencies.name(h.currency).to_string())) {
                     Some(curve) => {
-                        let key = key_of(rows_of(a, b));
+                        let key = plan_key(rows_of(a, b));
                         calibrate_one(
                             panel,
                             rows_of(a, b),
                             curve,
-                            plans.get(&key),
+                            plans_run.get(&key),
                             p,
                             reference,
                             single.as_ref(),
