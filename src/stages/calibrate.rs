@@ -627,29 +627,18 @@ impl Plans {
                 last = Some(curve);
             }
         }
-        let built: Vec<(PlanKey, std::result::Result<BootstrapPlan, BootstrapError>)> = keys
-            .into_iter()
-            .collect::<Vec<_>>()
-            .into_par_iter()
-            .filter_map(|k| {
-                let curve = curve_of(k.0, k.1)?;
-                let cal = p.cds_calendar(panel.currencies.name(k.1));
-                let plan = BootstrapPlan::for_terms(k.0, &k.2, curve, cal, p.bootstrap.accrual);
-                Some((k, plan))
-            })
-            .collect();
-        let new_shifts: Vec<(PlanKey, OwnedPlans)> = built
-            .iter()
-            .map(|(k, _)| k)
-            .filter(|k| p.sensitivity_dates.contains(k.0, &p.calendar))
-            .collect::<Vec<_>>()
-            .into_par_iter()
-            .filter_map(|k| {
-                let ccy = panel.currencies.name(k.1);
-                let curve = curve_of(k.0, k.1)?;
-                Some((k.clone(), SharedPlans::build(k.0, &k.2, curve, p.cds_calendar(ccy), &p.bootstrap)))
-            })
-            .collect();
+        // A plan for (date, currency, terms), when the day has a discount curve.
+        let plan_for = |date: NaiveDate, ccy: u32, terms: &[Term]| {
+            let cal = p.cds_calendar(panel.currencies.name(ccy));
+            Some(BootstrapPlan::for_terms(date, terms, curve_of(date, ccy)?, cal, p.bootstrap.accrual))
+        };
+        let built = in_parallel(keys, |k| plan_for(k.0, k.1, &k.2));
+        let shifted: FastSet<PlanKey> =
+            built.iter().map(|(k, _)| k).filter(|k| p.sensitivity_dates.contains(k.0, &p.calendar)).cloned().collect();
+        let new_shifts = in_parallel(shifted, |k| {
+            let cal = p.cds_calendar(panel.currencies.name(k.1));
+            Some(SharedPlans::build(k.0, &k.2, curve_of(k.0, k.1)?, cal, &p.bootstrap))
+        });
         run.extend(built);
         shifts.extend(new_shifts);
         if p.quote_conversions {
@@ -659,20 +648,16 @@ impl Plans {
                 .map(|r| (r.date, r.currency, (r.tenor, r.maturity)))
                 .filter(|k| !single.contains_key(k))
                 .collect();
-            let built: Vec<_> = keys
-                .into_iter()
-                .collect::<Vec<_>>()
-                .into_par_iter()
-                .filter_map(|k| {
-                    let curve = curve_of(k.0, k.1)?;
-                    let cal = p.cds_calendar(panel.currencies.name(k.1));
-                    Some((k, BootstrapPlan::for_terms(k.0, &[k.2], curve, cal, p.bootstrap.accrual)))
-                })
-                .collect();
+            let built = in_parallel(keys, |k| plan_for(k.0, k.1, &[k.2]));
             single.extend(built);
         }
         Plans { run, single, shifts }
     }
+}
+
+/// `build` of every key, on rayon's threads (a key it gives nothing for is left out).
+fn in_parallel<K: Send, V: Send>(keys: FastSet<K>, build: impl Fn(&K) -> Option<V> + Sync) -> Vec<(K, V)> {
+    keys.into_iter().collect::<Vec<_>>().into_par_iter().filter_map(|k| build(&k).map(|v| (k, v))).collect()
 }
 
 /// Rows per piece of [`rows_in_pieces`]: 40 MiB of rows.
