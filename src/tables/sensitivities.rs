@@ -240,6 +240,9 @@ mod tests {
             w.push(crate::tables::framed(piece).unwrap()).unwrap();
         }
         w.finish().unwrap();
-        assert!(std::fs::read(&whole).unwrap() == std::fs::read(crate::tables::file_of::<SensitivityRow>(&streamed)).unwrap());
+        assert!(
+            std::fs::read(&whole).unwrap()
+                == std::fs::read(crate::tables::file_of::<SensitivityRow>(&streamed)).unwrap()
+        );
     }
 }
