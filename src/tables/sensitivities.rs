@@ -208,7 +208,7 @@ mod tests {
                 pd_1y: Some((i as f64).sqrt() * 1e-4),
                 hazard_5y: (i % 17 != 0).then(|| (i as f64).ln_1p() * 1e-3),
                 upfront_5y: Some(-(i as f64) * 1e-7),
-                pd_1y_change: (i % 4 != 0).then(|| (i % 100) as f64 * 1e-6),
+                pd_1y_change: (i % 4 != 0).then_some((i % 100) as f64 * 1e-6),
                 hazard_5y_change: None,
                 upfront_5y_change: Some(1e-5),
                 floored_nodes: (i % 3) as i64,
