@@ -255,7 +255,7 @@ pub fn compute_partition(
     cal.cds_curves = kept;
     if let Some(p) = &mut ds.cds {
         // The fits and the backtest read the kept curves, which carry their own quotes: the
-        // panel's rows can go (the calibration freed them block by block; without it, here).
+        // panel's rows can go (the calibration freed them piece by piece; without it, here).
         p.release_rows();
     }
     super::give_back_free_memory();

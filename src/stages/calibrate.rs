@@ -675,7 +675,8 @@ pub struct CurveBlock {
 }
 
 /// Calibrates every curve of the dataset's CDS panel (freeing the panel's rows, as
-/// [`calibrate_blocks`] does) and keeps every row and curve in the returned [`Calibration`] (see [`calibrate_blocks`] to take them as they come instead).
+/// [`calibrate_blocks`] does) and keeps every row and curve in the returned [`Calibration`]
+/// (see [`calibrate_blocks`] to take them as they come instead).
 pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams) -> Result<Calibration> {
     let quotes = ds.cds.as_ref().map_or(0, |c| c.rows.len());
     let (mut hazard, mut residuals) = (Vec::new(), Vec::new());
@@ -700,9 +701,9 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
 /// in key order as soon as it is done; the returned [`Calibration`] has everything but the
 /// rows and curves the blocks carried. Updates `ds.counts` with this stage's rejects and
 /// checks the accounting again. The panel's rows are the calibration's to free: they are gone
-/// from `ds` afterwards (the panel keeps their period). A curve dated outside `scope` is a margin curve (see
-/// `run::partition::keep_dates`): it is calibrated and handed over in the block's
-/// `curves`, but its rows, rejects and counts belong to another part and are left out.
+/// from `ds` afterwards (the panel keeps their period). A curve dated outside `scope` is a
+/// margin curve (see `run::partition::keep_dates`): it is calibrated and handed over in the
+/// block's `curves`, but its rows, rejects and counts belong to another part and are left out.
 pub fn calibrate_blocks(
     ds: &mut crate::ingest::Dataset,
     p: &CalibrationParams,
