@@ -31,6 +31,7 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     let t = Instant::now();
     let dir = shards_dir(cfg, opts, &label)?;
     let (dirs, parts) = read_parts(&dir, &cfg.pipeline_path, &input_records(cfg, &ds.counts)?)?;
+    let copies = if split { whole_years(&dirs, &parts)? } else { Vec::new() };
     let recorded: Vec<CurveTally> = parts
         .iter()
         .map(|p| CurveTally {
@@ -57,11 +58,94 @@ pub fn merge(cfg: &RunConfig, opts: &RunOptions) -> Result<RunSummary> {
     // The sensitivity rows (in the table's order since `combine`) go to their table now: held
     // there as a frame, they take far less memory than as rows while the curves stream.
     sinks.sensitivity_rows(std::mem::take(&mut cal.sensitivities))?;
+    sinks.copied_years(copies.iter().map(|c| c.year).collect());
     let t = Instant::now();
-    (cal.hazard, cal.residuals) = merge_part_rows(&dirs, &recorded, &mut sinks)?;
+    // The whole years' files are copied while the rows stream past (they are digested and
+    // folded all the same).
+    let tables = folder.tables();
+    (cal.hazard, cal.residuals) = std::thread::scope(|s| {
+        let copying = s.spawn(|| copy_whole_years(&copies, &tables));
+        let merged = merge_part_rows(&dirs, &recorded, &mut sinks);
+        let copied = copying.join().map_err(|_| Error::Internal("copying a part's files panicked".into()))?;
+        copied.and(merged)
+    })?;
     let (rss, peak) = memory_mib();
     timings.push(partition::logged(("merge curves".into(), t.elapsed().as_secs_f64(), rss, peak)));
     finish(cfg, ds, ingest_counts, cal, sinks, &multi, folder, &meta, timings, t0)
+}
+
+/// A year of CDS rows that one part holds whole: its files of the node, residual and
+/// conversion tables (those it has) are the files a single run writes for that year, byte for
+/// byte (same rows, same order, same row groups, same metadata), and the merge copies them.
+#[derive(Debug)]
+struct WholeYear {
+    year: i32,
+    /// (the part's file, the table's folder name, the file's name)
+    files: Vec<(PathBuf, &'static str, String)>,
+}
+
+/// The years a part holds whole: with one entity shard only (with several, every shard has
+/// rows in every year), the years from 1 January to 31 December inside one part's date range,
+/// with the files the part wrote for them (rank 1 of the tables written by year: the CDS
+/// rows). Parts whose date ranges end on year ends have every year whole.
+fn whole_years(dirs: &[PathBuf], parts: &[Partition]) -> Result<Vec<WholeYear>> {
+    use chrono::NaiveDate;
+    if parts.iter().any(|p| p.shard != 1) {
+        return Ok(Vec::new());
+    }
+    let tables = [
+        (crate::tables::HazardCurveRow::NAME, "cds"),
+        (crate::tables::ResidualRow::NAME, "bootstrap"),
+        (crate::tables::QuoteConversionRow::NAME, "conversions"),
+    ];
+    let mut out: std::collections::BTreeMap<i32, WholeYear> = Default::default();
+    for (dir, p) in dirs.iter().zip(parts) {
+        let covers = |y: i32| {
+            let (first, last) = (NaiveDate::from_ymd_opt(y, 1, 1), NaiveDate::from_ymd_opt(y, 12, 31));
+            p.range.from.is_none_or(|f| Some(f) <= first) && p.range.to.is_none_or(|t| Some(t) >= last)
+        };
+        for (table, group) in tables {
+            let folder = dir.join(table);
+            if !folder.is_dir() {
+                continue;
+            }
+            let entries = std::fs::read_dir(&folder).map_err(|e| Error::Read {
+                path: folder.clone(),
+                format: "folder",
+                message: e.to_string(),
+            })?;
+            for e in entries.filter_map(|e| e.ok()) {
+                let name = e.file_name().to_string_lossy().to_string();
+                let year = name
+                    .strip_prefix(&format!("1-{group}-"))
+                    .and_then(|r| r.strip_suffix(".parquet"))
+                    .and_then(|y| y.parse::<i32>().ok());
+                if let Some(y) = year.filter(|y| covers(*y)) {
+                    let w = out.entry(y).or_insert_with(|| WholeYear { year: y, files: Vec::new() });
+                    if w.files.iter().any(|(f, _, _)| !f.starts_with(dir)) {
+                        return Err(Error::Parts(format!(
+                            "two parts hold the whole of {y}; their date ranges overlap; rerun them"
+                        )));
+                    }
+                    w.files.push((e.path(), table, name));
+                }
+            }
+        }
+    }
+    Ok(out.into_values().collect())
+}
+
+/// Copies the files of the whole years into the run's `tables` folder.
+fn copy_whole_years(years: &[WholeYear], tables: &Path) -> Result<()> {
+    for (from, table, name) in years.iter().flat_map(|y| &y.files) {
+        let dir = tables.join(table);
+        std::fs::create_dir_all(&dir).map_err(|e| Error::Write { path: dir.clone(), message: e.to_string() })?;
+        let to = dir.join(name);
+        std::fs::copy(from, &to).map_err(|e| Error::Write { path: to.clone(), message: e.to_string() })?;
+    }
+    let n: usize = years.iter().map(|y| y.files.len()).sum();
+    tracing::info!(target: "hazardline::merge", years = years.len(), files = n, "copied the parts' whole years");
+    Ok(())
 }
 
 fn read_parts(dir: &Path, pipeline: &Path, inputs: &[InputRecord]) -> Result<(Vec<PathBuf>, Vec<Partition>)> {

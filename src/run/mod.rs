@@ -431,6 +431,8 @@ pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard, dates: DateRa
     let mut ds = ingest(cfg, &mut timings)?;
     let label = run_label(cfg, opts, quote_period(&ds));
     let inputs = input_records(cfg, &ds.counts)?;
+    // Decided on the whole input, as the single run and the merge decide it.
+    let split = split_tables(cfg, &ds);
     let end = outcome_end(cfg, &ds);
     keep_shard(&mut ds, shard);
     let multi = multi_currency_of(cfg, &ds);
@@ -438,8 +440,9 @@ pub fn run_shard(cfg: &RunConfig, opts: &RunOptions, shard: Shard, dates: DateRa
     let (_, sha) = hash_file(&cfg.pipeline_path)?;
     let dir = shards_dir(cfg, opts, &label)?.join(shard.folder() + &dates.folder_suffix());
     let folder = PartFolder::create(&dir)?;
-    let mut sinks = folder.sinks()?;
-    let (part, t) = compute_partition(&mut ds, cfg, &calibration_params(cfg), shard, &scope, &mut sinks, &multi)?;
+    let params = calibration_params(cfg);
+    let mut sinks = folder.sinks(&table_metadata(cfg, &params), split)?;
+    let (part, t) = compute_partition(&mut ds, cfg, &params, shard, &scope, &mut sinks, &multi)?;
     timings.extend(t);
     drop(ds);
     let t = Instant::now();

@@ -11,7 +11,7 @@ use crate::error::{Error, Result};
 use crate::parts::{DateRange, Shard};
 use crate::tables::manifest::{hash_file, InputRecord};
 use crate::tables::parts::{EdgeRow, MemberRecord};
-use crate::tables::{self, file_of, readback, HazardCurveRow, ResidualRow};
+use crate::tables::{self, file_of, readback, HazardCurveRow, ResidualRow, Table};
 use crate::text::{CurveSource, FitMethod, RowStatus};
 use chrono::NaiveDate;
 use std::path::{Path, PathBuf};
@@ -62,20 +62,33 @@ pub struct PartFile {
     pub rows: usize,
 }
 
-/// The `.parquet` files of a part folder, by name.
+/// The `.parquet` files of a part folder, by name: its tables' files, and the files of the
+/// tables written as folders (by year), named `<table>/<file>`.
 fn part_files(dir: &Path) -> Result<Vec<PathBuf>> {
-    let entries = std::fs::read_dir(dir).map_err(|e| Error::Read {
-        path: dir.to_path_buf(),
-        format: "folder",
-        message: e.to_string(),
-    })?;
-    let mut files: Vec<PathBuf> = entries
-        .filter_map(|e| e.ok())
-        .map(|e| e.path())
-        .filter(|p| p.extension().is_some_and(|x| x == "parquet"))
-        .collect();
+    let list = |d: &Path| -> Result<Vec<PathBuf>> {
+        let entries = std::fs::read_dir(d).map_err(|e| Error::Read {
+            path: d.to_path_buf(),
+            format: "folder",
+            message: e.to_string(),
+        })?;
+        Ok(entries.filter_map(|e| e.ok()).map(|e| e.path()).collect())
+    };
+    let parquet = |p: &PathBuf| p.is_file() && p.extension().is_some_and(|x| x == "parquet");
+    let mut files = Vec::new();
+    for p in list(dir)? {
+        if p.is_dir() {
+            files.extend(list(&p)?.into_iter().filter(parquet));
+        } else if parquet(&p) {
+            files.push(p);
+        }
+    }
     files.sort();
     Ok(files)
+}
+
+/// A part file's name as `partition.json` records it: relative to the part folder.
+fn part_file_name(dir: &Path, p: &Path) -> String {
+    p.strip_prefix(dir).unwrap_or(p).to_string_lossy().replace(std::path::MAIN_SEPARATOR, "/")
 }
 
 /// What a part folder's table files are now.
@@ -84,8 +97,7 @@ fn describe_files(dir: &Path) -> Result<Vec<PartFile>> {
         .iter()
         .map(|p| {
             let (bytes, sha256) = hash_file(p)?;
-            let name = p.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default();
-            Ok(PartFile { name, bytes, sha256, rows: readback::rows_in_file(p)? })
+            Ok(PartFile { name: part_file_name(dir, p), bytes, sha256, rows: readback::rows_in_file(p)? })
         })
         .collect()
 }
@@ -111,10 +123,7 @@ pub fn verify_part(dir: &Path, meta: &PartitionMeta, inputs: &[InputRecord]) -> 
             changed.into_iter().collect::<Vec<_>>().join(", ")
         ));
     }
-    let present: Vec<String> = part_files(dir)?
-        .iter()
-        .map(|p| p.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default())
-        .collect();
+    let present: Vec<String> = part_files(dir)?.iter().map(|p| part_file_name(dir, p)).collect();
     if let Some(extra) = present.iter().find(|n| !meta.files.iter().any(|f| &f.name == *n)) {
         return refuse(format!("{extra} is not a file the part wrote"));
     }
@@ -158,9 +167,12 @@ impl PartFolder {
         Ok(PartFolder { target: super::folders::Target::open(dir)? })
     }
 
-    /// The sinks of the part's node and residual rows (no digest: the merge digests them).
-    pub fn sinks<'a>(&self) -> Result<RowSinks<'a>> {
-        RowSinks::create(self.target.work(), &[], None, None, false)
+    /// The sinks of the part's node and residual rows (no digest: the merge digests them),
+    /// written as the run writes its own (`meta`: the run's table metadata; `split`: by year
+    /// when the run's are), so that a year of CDS rows the part holds whole is, byte for byte,
+    /// the file the run writes for that year, and the merge copies it.
+    pub fn sinks<'a>(&self, meta: &[(String, String)], split: bool) -> Result<RowSinks<'a>> {
+        RowSinks::create(self.target.work(), meta, None, None, split)
     }
 }
 
@@ -258,7 +270,7 @@ pub fn merge_part_rows(
     let mut open: Vec<Option<(CurveKey, bool)>> = vec![None; dirs.len()];
     let cursors = dirs
         .iter()
-        .map(|d| readback::cursor::<HazardCurveRow>(&file_of::<HazardCurveRow>(d)))
+        .map(|d| readback::cursor::<HazardCurveRow>(&readback::table_path(d, HazardCurveRow::NAME)))
         .collect::<Result<Vec<_>>>()?;
     let hazard = merge_sorted(
         cursors,
@@ -286,8 +298,10 @@ pub fn merge_part_rows(
             t.curves_complete += 1;
         }
     }
-    let cursors =
-        dirs.iter().map(|d| readback::cursor::<ResidualRow>(&file_of::<ResidualRow>(d))).collect::<Result<Vec<_>>>()?;
+    let cursors = dirs
+        .iter()
+        .map(|d| readback::cursor::<ResidualRow>(&readback::table_path(d, ResidualRow::NAME)))
+        .collect::<Result<Vec<_>>>()?;
     let residuals = merge_sorted(
         cursors,
         |r| r.method == FitMethod::Bootstrap,

@@ -110,6 +110,23 @@ pub struct RowSinks<'a> {
     sensitivities: FrameTable,
     /// None for a shard's part: the merge digests the rows it reads back.
     digest: Option<RowDigest<'a>>,
+    /// Years whose CDS node and residual rows (and their conversions) are in files a merge
+    /// copied from a part that holds the year whole ([`RowSinks::copied_years`]): digested
+    /// and folded, not written again.
+    copied: BTreeSet<i32>,
+}
+
+/// Cuts `rows` into runs of consecutive rows alike under `copied`, in order.
+fn runs<T>(rows: Vec<T>, copied: impl Fn(&T) -> bool) -> Vec<(bool, Vec<T>)> {
+    let mut out: Vec<(bool, Vec<T>)> = Vec::new();
+    for r in rows {
+        let c = copied(&r);
+        match out.last_mut() {
+            Some((k, v)) if *k == c => v.push(r),
+            _ => out.push((c, vec![r])),
+        }
+    }
+    out
 }
 
 impl<'a> RowSinks<'a> {
@@ -129,7 +146,15 @@ impl<'a> RowSinks<'a> {
         let residuals = WriterThread::spawn(residual_table(dir, meta, split)?, residuals);
         let conversions = WriterThread::spawn(conversion_table(dir, meta, split)?, ());
         let sensitivities = sensitivity_table(dir, meta)?;
-        Ok(RowSinks { hazard, residuals, conversions, sensitivities, digest })
+        Ok(RowSinks { hazard, residuals, conversions, sensitivities, digest, copied: BTreeSet::new() })
+    }
+
+    /// Years whose CDS node and residual rows the caller has put in the tables' folders as
+    /// whole files (the merge copies a part's file of a year the part holds whole): the rows
+    /// of those years still come through [`RowSinks::nodes`] and [`RowSinks::residual_rows`],
+    /// to be digested and folded in their place, but are not written again.
+    pub fn copied_years(&mut self, years: BTreeSet<i32>) {
+        self.copied = years;
     }
 
     /// Node rows, in the table's order, after those already given.
@@ -137,7 +162,20 @@ impl<'a> RowSinks<'a> {
         if let Some(d) = &mut self.digest {
             d.nodes(&rows);
         }
-        self.hazard.push(rows)
+        if self.copied.is_empty() {
+            return self.hazard.push(rows);
+        }
+        let copied = |r: &HazardCurveRow| {
+            r.source == crate::text::CurveSource::Cds && self.copied.contains(&chrono::Datelike::year(&r.date))
+        };
+        for (c, rows) in runs(rows, copied) {
+            if c {
+                self.hazard.fold_only(rows)?;
+            } else {
+                self.hazard.push(rows)?;
+            }
+        }
+        Ok(())
     }
 
     /// Residual rows, in the table's order, after those already given.
@@ -145,6 +183,25 @@ impl<'a> RowSinks<'a> {
         if let Some(d) = &mut self.digest {
             d.residuals(&rows);
         }
+        if self.copied.is_empty() {
+            return self.write_residuals(rows);
+        }
+        let copied = |r: &ResidualRow| {
+            r.method == crate::text::FitMethod::Bootstrap && self.copied.contains(&chrono::Datelike::year(&r.date))
+        };
+        for (c, rows) in runs(rows, copied) {
+            if c {
+                // Their conversions are in the copied files too.
+                self.conversions.fold_only(Vec::new())?;
+                self.residuals.fold_only(rows)?;
+            } else {
+                self.write_residuals(rows)?;
+            }
+        }
+        Ok(())
+    }
+
+    fn write_residuals(&mut self, rows: Vec<ResidualRow>) -> Result<()> {
         let conversions: Vec<QuoteConversionRow> = rows.iter().filter_map(QuoteConversionRow::of).collect();
         if !conversions.is_empty() {
             self.conversions.push(conversions)?;
@@ -174,7 +231,7 @@ impl<'a> RowSinks<'a> {
         self.nodes(hazard)?;
         self.residual_rows(residuals)?;
         self.sensitivity_rows(sensitivities)?;
-        let RowSinks { hazard, residuals, conversions, sensitivities, digest } = self;
+        let RowSinks { hazard, residuals, conversions, sensitivities, digest, .. } = self;
         let (_, nodes) = hazard.finish()?;
         let (_, residuals) = residuals.finish()?;
         conversions.finish()?;

@@ -262,6 +262,9 @@ pub struct SplitWriter<T> {
     key: fn(&T) -> FileKey,
     current: Option<(FileKey, RowGroupWriter<T>)>,
     written: usize,
+    /// Whether files of this table were put in the folder by other means (a merge copies the
+    /// years a part holds whole): a table with no rows written here is then not empty.
+    copied: bool,
 }
 
 impl<T> SplitWriter<T> {
@@ -272,7 +275,15 @@ impl<T> SplitWriter<T> {
         key: fn(&T) -> FileKey,
     ) -> Result<Self> {
         std::fs::create_dir_all(dir).map_err(|e| Error::Write { path: dir.to_path_buf(), message: e.to_string() })?;
-        Ok(SplitWriter { dir: dir.to_path_buf(), metadata: metadata.to_vec(), frame, key, current: None, written: 0 })
+        Ok(SplitWriter {
+            dir: dir.to_path_buf(),
+            metadata: metadata.to_vec(),
+            frame,
+            key,
+            current: None,
+            written: 0,
+            copied: false,
+        })
     }
 
     /// The file name of a key.
@@ -308,6 +319,7 @@ impl<T> SplitWriter<T> {
     pub fn finish(mut self) -> Result<usize> {
         match self.current.take() {
             Some((_, w)) => self.written += w.finish()?,
+            None if self.copied => {}
             None => {
                 RowGroupWriter::create(&self.dir.join("empty.parquet"), &self.metadata, self.frame)?.finish()?;
             }
@@ -336,10 +348,24 @@ impl<T> TableWriter<T> {
             TableWriter::Split(w) => w.finish(),
         }
     }
+
+    /// Notes that some of the table's rows are in files copied into its folder, not written
+    /// here (see [`WriterThread::fold_only`]); a one-file table cannot have them.
+    fn note_copied(&mut self) -> Result<()> {
+        match self {
+            TableWriter::One(_) => Err(Error::Internal("rows were copied into a one-file table".into())),
+            TableWriter::Split(w) => {
+                w.copied = true;
+                Ok(())
+            }
+        }
+    }
 }
 
 enum ToWriter<T> {
     Rows(Vec<T>),
+    /// Rows of the table that are in a file copied into its folder: folded, not written.
+    Folded(Vec<T>),
     Finish,
 }
 
@@ -379,6 +405,10 @@ impl<T: Send + 'static, F: RowFold<T>> WriterThread<T, F> {
                         fold.add(&rows);
                         writer.push(rows)?;
                     }
+                    ToWriter::Folded(rows) => {
+                        fold.add(&rows);
+                        writer.note_copied()?;
+                    }
                     ToWriter::Finish => return Ok((writer.finish()?, fold)),
                 }
             }
@@ -398,7 +428,17 @@ impl<T: Send + 'static, F: RowFold<T>> WriterThread<T, F> {
 
     /// Adds rows at the end of the table.
     pub fn push(&mut self, rows: Vec<T>) -> Result<()> {
-        let sent = self.tx.as_ref().is_some_and(|tx| tx.send(ToWriter::Rows(rows)).is_ok());
+        self.send(ToWriter::Rows(rows))
+    }
+
+    /// Rows of the table, in its order, that are already in a file copied into the table's
+    /// folder: the fold sees them in their place; nothing is written.
+    pub fn fold_only(&mut self, rows: Vec<T>) -> Result<()> {
+        self.send(ToWriter::Folded(rows))
+    }
+
+    fn send(&mut self, message: ToWriter<T>) -> Result<()> {
+        let sent = self.tx.as_ref().is_some_and(|tx| tx.send(message).is_ok());
         if sent {
             Ok(())
         } else {

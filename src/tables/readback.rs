@@ -235,35 +235,57 @@ fn read_slice(path: &Path, offset: usize, len: usize) -> Result<DataFrame> {
     ParquetReader::new(file).with_slice(Some((offset, len))).finish().map_err(|e| parquet_error(path, &e))
 }
 
-/// The rows of a large table read in order, [`SLICE_ROWS`] at a time, as they are asked for.
+/// Rows per slice of a [`RowCursor`]: one row group of the tables written as their rows
+/// arrive ([`crate::tables::parquet::ROW_GROUP_ROWS`]), so a slice decodes the groups it
+/// covers once, and a slice of rows (about 45 MB of node rows) is small enough to hold a few.
+pub const CURSOR_SLICE_ROWS: usize = crate::tables::parquet::ROW_GROUP_ROWS;
+
+/// The rows of a large table read in order, [`CURSOR_SLICE_ROWS`] at a time, as they are asked
+/// for. A thread of the cursor's own reads and decodes the next slice while the rows of the
+/// one before are used (one slice ahead).
 pub struct RowCursor<T> {
-    /// The table's files still to read, next first (see [`table_files`]).
-    files: std::collections::VecDeque<std::path::PathBuf>,
-    rows: usize,
-    offset: usize,
-    read: fn(&DataFrame, &Path) -> Result<Vec<T>>,
+    slices: Option<std::sync::mpsc::Receiver<Result<Vec<T>>>>,
+    reader: Option<std::thread::JoinHandle<()>>,
     buffer: std::collections::VecDeque<T>,
 }
 
-impl<T> RowCursor<T> {
+impl<T: Send + 'static> RowCursor<T> {
     fn open(path: &Path, read: fn(&DataFrame, &Path) -> Result<Vec<T>>) -> Result<Self> {
-        let files: std::collections::VecDeque<_> = table_files(path)?.into();
-        let rows = files.front().map(|f| row_count(f)).transpose()?.unwrap_or(0);
-        Ok(RowCursor { files, rows, offset: 0, read, buffer: Default::default() })
+        let files = table_files(path)?;
+        let counts = files.iter().map(|f| row_count(f)).collect::<Result<Vec<_>>>()?;
+        let (tx, rx) = std::sync::mpsc::sync_channel::<Result<Vec<T>>>(1);
+        let reader = std::thread::spawn(move || {
+            for (path, rows) in files.iter().zip(counts) {
+                let mut offset = 0;
+                while offset < rows {
+                    let len = CURSOR_SLICE_ROWS.min(rows - offset);
+                    let slice = read_slice(path, offset, len).and_then(|df| read(&df, path));
+                    let failed = slice.is_err();
+                    // A closed channel: the cursor was dropped; nothing more is wanted.
+                    if tx.send(slice).is_err() || failed {
+                        return;
+                    }
+                    offset += len;
+                }
+            }
+        });
+        Ok(RowCursor { slices: Some(rx), reader: Some(reader), buffer: Default::default() })
     }
+}
 
+impl<T> RowCursor<T> {
     fn fill(&mut self) -> Result<()> {
         while self.buffer.is_empty() {
-            let Some(path) = self.files.front() else { return Ok(()) };
-            if self.offset < self.rows {
-                let len = SLICE_ROWS.min(self.rows - self.offset);
-                let df = read_slice(path, self.offset, len)?;
-                self.buffer.extend((self.read)(&df, path)?);
-                self.offset += len;
-            } else {
-                self.files.pop_front();
-                self.offset = 0;
-                self.rows = self.files.front().map(|f| row_count(f)).transpose()?.unwrap_or(0);
+            let Some(rx) = &self.slices else { return Ok(()) };
+            match rx.recv() {
+                Ok(slice) => self.buffer.extend(slice?),
+                // The reader is done: every slice was handed over (or it panicked).
+                Err(_) => {
+                    self.slices = None;
+                    if let Some(h) = self.reader.take() {
+                        h.join().map_err(|_| Error::Internal("a table's reader thread panicked".into()))?;
+                    }
+                }
             }
         }
         Ok(())
@@ -282,8 +304,8 @@ impl<T> RowCursor<T> {
     }
 }
 
-/// A table's rows, read [`SLICE_ROWS`] at a time as they are asked for.
-pub fn cursor<T: super::Table>(path: &Path) -> Result<RowCursor<T>> {
+/// A table's rows, read [`CURSOR_SLICE_ROWS`] at a time as they are asked for.
+pub fn cursor<T: super::Table + Send + 'static>(path: &Path) -> Result<RowCursor<T>> {
     RowCursor::open(path, super::rows_of::<T>)
 }
 

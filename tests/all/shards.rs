@@ -286,8 +286,25 @@ fn large_tables_by_year_are_folders_that_merge_exactly() {
     for (shard, dates) in [("1/2", "..2015-12-31"), ("1/2", "2016-01-01.."), ("2/2", "..")] {
         part(&pipeline, &out, shard, dates);
     }
-    hazardline(&["merge", &pipeline, "--out", out.to_str().unwrap(), "--label", "r"]).success();
+    let merged = hazardline(&["merge", &pipeline, "--out", out.to_str().unwrap(), "--label", "r", "-v"]).success();
+    // With two entity shards no year is whole in one part: every row is written again.
+    let log = String::from_utf8(merged.get_output().stderr.clone()).unwrap();
+    assert!(log.contains("copied the parts' whole years") && log.contains("years=0"), "{log}");
     assert_same(&by_year, &files(&out.join("demo/r"), &["run.log"]), "by-year tables from parts");
+    // One shard in date ranges: a year inside one part's range is that part's files, copied;
+    // a year cut by a boundary is written from both parts' rows. Both give the same bytes.
+    for (cut, (first, second), whole) in
+        [("year-end", ("..2015-12-31", "2016-01-01.."), 2), ("mid-year", ("..2015-06-30", "2015-07-01.."), 1)]
+    {
+        let out = dir.path().join(cut);
+        for dates in [first, second] {
+            part(&pipeline, &out, "1/1", dates);
+        }
+        let merged = hazardline(&["merge", &pipeline, "--out", out.to_str().unwrap(), "--label", "r", "-v"]).success();
+        let log = String::from_utf8(merged.get_output().stderr.clone()).unwrap();
+        assert!(log.contains(&format!("years={whole}")), "{cut}: {log}");
+        assert_same(&by_year, &files(&out.join("demo/r"), &["run.log"]), cut);
+    }
     // The report stage alone, reading the folders back, writes the same report.
     let run_dir = dir.path().join("by-year/demo/r");
     std::fs::remove_file(run_dir.join("report.md")).unwrap();
