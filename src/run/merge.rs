@@ -192,8 +192,14 @@ fn read_parts(dir: &Path, pipeline: &Path, inputs: &[InputRecord]) -> Result<(Ve
                 crate::tables::manifest::SOURCE_REVISION
             )));
         }
-        verify_part(f, &m, inputs)?;
         metas.push(m);
+    }
+    // Each part's files hashed and counted against its partition.json, the parts side by side.
+    {
+        use rayon::prelude::*;
+        let checks: Vec<Result<()>> = folders.par_iter().zip(&metas).map(|(f, m)| verify_part(f, m, inputs)).collect();
+        // The first part's refusal, in folder order, whichever thread finished first.
+        checks.into_iter().collect::<Result<Vec<()>>>()?;
     }
     let n = metas[0].shards;
     if let Some(m) = metas.iter().find(|m| m.shards != n) {
