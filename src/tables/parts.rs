@@ -14,6 +14,7 @@ use crate::stability::{MarketMove, Observation as SeriesPoint, PanelBuilder, Spr
 use polars::prelude::DataFrame;
 use std::collections::BTreeMap;
 use std::path::Path;
+use std::sync::Arc;
 
 fn missing(path: &Path, column: &str, row: usize) -> Error {
     Error::Read {
@@ -88,11 +89,49 @@ pub fn write_series(panel: &PanelBuilder, dir: &Path) -> Result<()> {
 }
 
 /// Reads the part folder `dir`'s `stability_series` into `panel`.
+///
+/// The table holds each history's points together (it is written history by history), so the
+/// points go to the panel a run of one (series, entity) at a time: the two labels are compared
+/// as text from one row to the next and made into labels once per run, not once per point (a
+/// part at 2,000 names x 5 years holds 24 M points).
 pub fn read_series(dir: &Path, panel: &mut PanelBuilder) -> Result<()> {
     let path = super::file_of::<SeriesPoint>(dir);
     let df = super::readback::read_frame(&path)?;
     super::check_columns::<SeriesPoint>(&df, &path)?;
-    each_point(&df, &path, |p| panel.push_observation(&p))
+    let text = |name: &str| {
+        df.column(name).and_then(|c| c.str().cloned()).map_err(|e| Error::Read {
+            path: path.clone(),
+            format: "Parquet",
+            message: format!("column {name}: {e}"),
+        })
+    };
+    let (series, entity) = (text("series")?, text("entity")?);
+    let (g, d, v) = (ints(&df, &path, "grade")?, dates(&df, &path, "date")?, floats(&df, &path, "value")?);
+    let point = |i: usize| -> Result<(Option<u32>, chrono::NaiveDate, f64)> {
+        Ok((
+            g[i].map(|x| x as u32),
+            d[i].ok_or_else(|| missing(&path, "date", i))?,
+            v[i].ok_or_else(|| missing(&path, "value", i))?,
+        ))
+    };
+    let mut run: Option<(&str, &str, usize)> = None;
+    let flush = |run: Option<(&str, &str, usize)>, end: usize, panel: &mut PanelBuilder| -> Result<()> {
+        if let Some((s, e, start)) = run {
+            let points = (start..end).map(point).collect::<Result<Vec<_>>>()?;
+            panel.push_run(&Arc::from(s), &Arc::from(e), points.into_iter());
+        }
+        Ok(())
+    };
+    for (i, (s, e)) in series.iter().zip(entity.iter()).enumerate() {
+        let s = s.ok_or_else(|| missing(&path, "series", i))?;
+        let e = e.ok_or_else(|| missing(&path, "entity", i))?;
+        if run.is_some_and(|(s0, e0, _)| s0 == s && e0 == e) {
+            continue;
+        }
+        flush(run, i, panel)?;
+        run = Some((s, e, i));
+    }
+    flush(run, df.height(), panel)
 }
 
 impl Table for MarketMove {

@@ -162,6 +162,26 @@ impl PanelBuilder {
         }
     }
 
+    /// Adds a run of values of one (series, entity), in order: the same as [`PanelBuilder::push`]
+    /// for each, with one look-up of the history and room made for the run at once.
+    pub fn push_run(
+        &mut self,
+        series: &Arc<str>,
+        entity: &Arc<str>,
+        points: impl ExactSizeIterator<Item = (Option<u32>, NaiveDate, f64)>,
+    ) {
+        let i = self.shared_slot(series, entity);
+        let history = &mut self.histories[i].1;
+        history.reserve_exact(points.len());
+        for (grade, date, value) in points {
+            if value.is_finite() {
+                history.push(Point::new(date, value, grade));
+            } else {
+                self.non_finite += 1;
+            }
+        }
+    }
+
     pub fn push_observation(&mut self, o: &Observation) {
         self.push(&o.series, &o.entity, o.grade, o.date, o.value);
     }
