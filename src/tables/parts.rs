@@ -93,7 +93,7 @@ pub fn write_series(panel: &PanelBuilder, dir: &Path) -> Result<()> {
 /// The table holds each history's points together (it is written history by history), so the
 /// points go to the panel a run of one (series, entity) at a time: the two labels are compared
 /// as text from one row to the next and made into labels once per run, not once per point (a
-/// part at 2,000 names x 5 years holds 24 M points).
+/// part at 2,000 names x 5 years holds 22 to 25 M points).
 pub fn read_series(dir: &Path, panel: &mut PanelBuilder) -> Result<()> {
     let path = super::file_of::<SeriesPoint>(dir);
     let df = super::readback::read_frame(&path)?;
