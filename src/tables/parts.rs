@@ -6,7 +6,7 @@
 //! record per point held in between (it has a point per curve and series).
 
 use super::parquet::TableBuilder;
-use super::readback::{dates, floats, ints, labels, strs, text_form};
+use super::readback::{dates, err, floats, ints, labels, strs, text_form};
 use super::{col, Column, Kind::*, Table};
 use crate::backtest::{Bucket, Observation as Member};
 use crate::error::{Error, Result};
@@ -98,13 +98,7 @@ pub fn read_series(dir: &Path, panel: &mut PanelBuilder) -> Result<()> {
     let path = super::file_of::<SeriesPoint>(dir);
     let df = super::readback::read_frame(&path)?;
     super::check_columns::<SeriesPoint>(&df, &path)?;
-    let text = |name: &str| {
-        df.column(name).and_then(|c| c.str().cloned()).map_err(|e| Error::Read {
-            path: path.clone(),
-            format: "Parquet",
-            message: format!("column {name}: {e}"),
-        })
-    };
+    let text = |name: &str| df.column(name).and_then(|c| c.str().cloned()).map_err(|e| err(&path, name, e));
     let (series, entity) = (text("series")?, text("entity")?);
     let (g, d, v) = (ints(&df, &path, "grade")?, dates(&df, &path, "date")?, floats(&df, &path, "value")?);
     let point = |i: usize| -> Result<(Option<u32>, chrono::NaiveDate, f64)> {

@@ -42,7 +42,7 @@ pub fn read_frame(path: &Path) -> Result<DataFrame> {
         .map_err(|e| Error::Read { path: path.to_path_buf(), format: "Parquet", message: e.to_string() })
 }
 
-fn err(path: &Path, column: &str, e: impl std::fmt::Display) -> Error {
+pub(crate) fn err(path: &Path, column: &str, e: impl std::fmt::Display) -> Error {
     Error::Read { path: path.to_path_buf(), format: "Parquet", message: format!("column {column}: {e}") }
 }
 
