@@ -4,9 +4,10 @@
 
 use crate::error::{Error, Result};
 use crate::ingest::{load, InputPaths, QualitySettings, TableCounts};
-use crate::stages::calibrate::{calibrate_dataset, metadata, top_reasons, CalibrationParams};
+use crate::parts::DateRange;
+use crate::stages::calibrate::{calibrate_blocks, metadata, top_reasons, CalibrationParams};
 use crate::tables::flags::{FlagRecord, QUALITY_FLAGS};
-use crate::tables::{self, write_hazard_curves, write_residuals};
+use crate::tables::{self, hazard_writer, residual_writer};
 use crate::time::Calendar;
 use std::collections::BTreeMap;
 use std::path::PathBuf;
@@ -46,19 +47,6 @@ pub fn calibrate(s: &CalibrateSettings) -> Result<CalibrateSummary> {
         });
     }
     let mut ds = load(&s.inputs, &s.calendar, &s.quality)?;
-    let cal = calibrate_dataset(&mut ds, &s.params)?;
-    let mut rejects = std::mem::take(&mut ds.rejects);
-    rejects.extend(cal.rejects.iter().cloned());
-    let summary = CalibrateSummary {
-        counts: ds.counts.clone(),
-        curves: cal.curves,
-        curves_complete: cal.curves_complete,
-        nodes: cal.hazard.len(),
-        nodes_by_status: cal.nodes_by_status.clone(),
-        max_abs_residual_bp: cal.max_abs_residual_bp,
-        top_reasons: top_reasons(&rejects, 10),
-        outputs: Vec::new(),
-    };
     let meta = metadata(&s.params, &s.quality);
     let out = &s.out;
     let paths = [
@@ -68,8 +56,28 @@ pub fn calibrate(s: &CalibrateSettings) -> Result<CalibrateSummary> {
         out.join("data_quality.parquet"),
         out.join(format!("{QUALITY_FLAGS}.parquet")),
     ];
-    write_hazard_curves(&cal.hazard, &paths[0], &meta)?;
-    write_residuals(&cal.residuals, &paths[1], &meta)?;
+    // Each block of curves goes to the two tables as it is done (the rows moved, never
+    // copied); the files are renamed into place only once every block is written.
+    let mut hazard = hazard_writer(&paths[0], &meta)?;
+    let mut residuals = residual_writer(&paths[1], &meta)?;
+    let cal = calibrate_blocks(&mut ds, &s.params, DateRange::ALL, false, |b| {
+        hazard.push(b.hazard)?;
+        residuals.push(b.residuals)
+    })?;
+    let nodes = hazard.finish()?;
+    residuals.finish()?;
+    let mut rejects = std::mem::take(&mut ds.rejects);
+    rejects.extend(cal.rejects.iter().cloned());
+    let summary = CalibrateSummary {
+        counts: ds.counts.clone(),
+        curves: cal.curves,
+        curves_complete: cal.curves_complete,
+        nodes,
+        nodes_by_status: cal.nodes_by_status.clone(),
+        max_abs_residual_bp: cal.max_abs_residual_bp,
+        top_reasons: top_reasons(&rejects, 10),
+        outputs: Vec::new(),
+    };
     tables::write_to(&rejects, &paths[2], &meta)?;
     tables::write_to(&ds.data_quality, &paths[3], &meta)?;
     let flags: Vec<FlagRecord> = ds.flags.iter().map(FlagRecord::quality).collect();

@@ -297,7 +297,7 @@ pub fn compute_partition(
                 }
                 Ok(())
             });
-            let cal = calibrate_blocks(ds, params, range, move |block| {
+            let cal = calibrate_blocks(ds, params, range, true, move |block| {
                 tx.send(block).map_err(|_| Error::Internal("the writer of the calibrated curves stopped".into()))
             });
             let consumed =

@@ -301,7 +301,7 @@ fn calibrate_one(
     curve: &DiscountCurve,
     plan: Option<&std::result::Result<BootstrapPlan, BootstrapError>>,
     s: &CalibrationParams,
-    reference: bool,
+    reference: Option<bool>,
     single: Option<&SinglePlans>,
     shift_plans: Option<&OwnedPlans>,
 ) -> CurveOutput {
@@ -442,16 +442,14 @@ fn calibrate_one(
     } else {
         Vec::new()
     };
-    let curve = if fit.complete() && !fit.failed { fit.curve.clone() } else { None };
-    let key = (date, entity.to_string(), currency.to_string());
-    CurveOutput {
-        hazard,
-        residuals,
-        rejects: Vec::new(),
-        sensitivities,
-        used: rows.len(),
-        fit: Some(BlockCurve { key, tier: panel.tiers.label(h.tier), reference, curve: CdsCurve { quotes, curve } }),
-    }
+    // The curve with its quotes, for the stages after the calibration; `reference` None:
+    // nothing after it wants the curves.
+    let fit = reference.map(|reference| {
+        let curve = if fit.complete() && !fit.failed { fit.curve.clone() } else { None };
+        let key = (date, entity.to_string(), currency.to_string());
+        BlockCurve { key, tier: panel.tiers.label(h.tier), reference, curve: CdsCurve { quotes, curve } }
+    });
+    CurveOutput { hazard, residuals, rejects: Vec::new(), sensitivities, used: rows.len(), fit }
 }
 
 /// The rows of `sensitivities` for one curve: every shift of `calibrate::sensitivity`, with
@@ -674,29 +672,6 @@ pub struct CurveBlock {
     pub sensitivities: Vec<SensitivityRow>,
 }
 
-/// Calibrates every curve of the dataset's CDS panel (freeing the panel's rows, as
-/// [`calibrate_blocks`] does) and keeps every row and curve in the returned [`Calibration`]
-/// (see [`calibrate_blocks`] to take them as they come instead).
-pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams) -> Result<Calibration> {
-    let quotes = ds.cds.as_ref().map_or(0, |c| c.rows.len());
-    let (mut hazard, mut residuals) = (Vec::new(), Vec::new());
-    // Every quote gives at most one node and one residual: the tables are reserved at that
-    // bound (pages never written are never resident).
-    hazard.reserve_exact(quotes);
-    residuals.reserve_exact(quotes);
-    let mut curves = BTreeMap::new();
-    let mut out = calibrate_blocks(ds, p, crate::parts::DateRange::ALL, |b| {
-        hazard.extend(b.hazard);
-        residuals.extend(b.residuals);
-        curves.extend(b.curves.into_iter().filter(|c| c.reference).map(|c| (c.key, c.curve)));
-        Ok(())
-    })?;
-    out.hazard = hazard;
-    out.residuals = residuals;
-    out.cds_curves = curves;
-    Ok(out)
-}
-
 /// Calibrates every curve of the dataset's CDS panel, handing each block of curves to `sink`
 /// in key order as soon as it is done; the returned [`Calibration`] has everything but the
 /// rows and curves the blocks carried. Updates `ds.counts` with this stage's rejects and
@@ -704,10 +679,12 @@ pub fn calibrate_dataset(ds: &mut crate::ingest::Dataset, p: &CalibrationParams)
 /// from `ds` afterwards (the panel keeps their period). A curve dated outside `scope` is a
 /// margin curve (see `run::partition::keep_dates`): it is calibrated and handed over in the
 /// block's `curves`, but its rows, rejects and counts belong to another part and are left out.
+/// Without `with_curves` the blocks carry no curves (their tables' rows only).
 pub fn calibrate_blocks(
     ds: &mut crate::ingest::Dataset,
     p: &CalibrationParams,
     scope: crate::parts::DateRange,
+    with_curves: bool,
     mut sink: impl FnMut(CurveBlock) -> Result<()>,
 ) -> Result<Calibration> {
     let disc_rows = ds.discount.as_ref().map(|d| d.rows.clone());
@@ -802,7 +779,7 @@ pub fn calibrate_blocks(
                             curve,
                             plans_run.get(&key),
                             p,
-                            reference,
+                            with_curves.then_some(reference),
                             single.as_ref(),
                             if shift_plans.is_empty() || !p.sensitivity_dates.contains(h.date, &p.calendar) {
                                 None
@@ -833,6 +810,8 @@ pub fn calibrate_blocks(
             })
             .collect();
         let mut block = CurveBlock::default();
+        block.hazard.reserve_exact(outputs.iter().map(|o| o.hazard.len()).sum());
+        block.residuals.reserve_exact(outputs.iter().map(|o| o.residuals.len()).sum());
         for (o, &(a, b, _)) in outputs.into_iter().zip(block_jobs) {
             if !scope.contains(rows_of(a, b)[0].date) {
                 block.curves.extend(o.fit);

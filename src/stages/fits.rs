@@ -2,7 +2,7 @@
 //! bootstrap on the same dataset (part of `hazardline run`).
 //!
 //! Reads: the dataset's bonds and bond_quotes (already checked by ingestion), and the
-//! discount and CDS curves that [`calibrate_dataset`](super::calibrate::calibrate_dataset)
+//! discount and CDS curves that [`calibrate_blocks`](super::calibrate::calibrate_blocks)
 //! built. Produces rows for hazard_curves (source `bond`), calibration_residuals (methods
 //! `bond_fit` and `cir`), cds_bond_basis and intensity_params, and rejects for bond quotes
 //! that no curve could use (the bond_quotes accounting is updated and checked again).

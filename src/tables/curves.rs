@@ -181,13 +181,6 @@ pub fn hazard_table(tables: &Path, meta: &[(String, String)], split: bool) -> Re
     }
 }
 
-/// Writes `hazard_curves` to `path` in its fixed row groups (see [`hazard_writer`]).
-pub fn write_hazard_curves(rows: &[HazardCurveRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
-    let mut w = hazard_writer(path, meta)?;
-    w.push(rows.iter().cloned())?;
-    w.finish().map(|_| ())
-}
-
 /// One pillar of a discount curve as used.
 #[derive(Debug, Clone, PartialEq)]
 pub struct DiscountCurveRow {

@@ -38,12 +38,12 @@ pub mod sensitivities;
 
 pub use backtest::{BucketRecord, DiscriminationRecord, HosmerLemeshowRecord, TermStructureRecord};
 pub use curves::{
-    hazard_table, hazard_writer, sort_hazard, tenor_label, write_hazard_curves, DiscountCurveRow, HazardCurveRow, Label,
+    hazard_table, hazard_writer, sort_hazard, tenor_label, DiscountCurveRow, HazardCurveRow, Label,
 };
 pub use fits::{BasisRow, IntensityParamRow};
 pub use flags::FlagRecord;
 pub use residuals::{
-    conversion_table, residual_table, residual_writer, sort_residuals, write_residuals, QuoteConversion,
+    conversion_table, residual_table, residual_writer, sort_residuals, QuoteConversion,
     QuoteConversionRow, ResidualRow,
 };
 pub use sensitivities::{sensitivity_table, sort_sensitivities, SensitivityRow};

@@ -336,13 +336,6 @@ pub fn conversion_table(
     }
 }
 
-/// Writes `calibration_residuals` to `path` in its fixed row groups.
-pub fn write_residuals(rows: &[ResidualRow], path: &Path, meta: &[(String, String)]) -> Result<()> {
-    let mut w = residual_writer(path, meta)?;
-    w.push(rows.iter().cloned())?;
-    w.finish().map(|_| ())
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -541,10 +541,18 @@ fn solve_nodes(
         let quote = q.quote;
         let times = &plan.times;
         let log_dfs = &plan.log_dfs;
+        // Points at or before t_prev are fixed by the solved segments: their ln Q and P Q are
+        // the ones already computed (the same operations, so the same bits), set once here
+        // rather than at every Newton step.
+        let moving_from = first_point.max(times.partition_point(|&t| t <= t_prev));
+        for j in first_point..moving_from.min(last_point + 1) {
+            dual_lq[j] = Dual::constant(log_q[j]);
+            dual_pq[j] = Dual::constant(pq[j]);
+        }
         let objective = |lambda: f64, dl: &mut [Dual], dpq: &mut [Dual]| -> (f64, f64) {
-            for j in first_point..=last_point {
+            for j in moving_from..=last_point {
                 let u = times[j] - t_prev;
-                let lq = if u > 0.0 { Dual::new(l_prev - lambda * u, -u) } else { Dual::constant(log_q[j]) };
+                let lq = Dual::new(l_prev - lambda * u, -u);
                 dl[j] = lq;
                 dpq[j] = (lq + log_dfs[j]).exp();
             }
