@@ -37,14 +37,11 @@ pub mod review;
 pub mod sensitivities;
 
 pub use backtest::{BucketRecord, DiscriminationRecord, HosmerLemeshowRecord, TermStructureRecord};
-pub use curves::{
-    hazard_table, hazard_writer, sort_hazard, tenor_label, DiscountCurveRow, HazardCurveRow, Label,
-};
+pub use curves::{hazard_table, hazard_writer, sort_hazard, tenor_label, DiscountCurveRow, HazardCurveRow, Label};
 pub use fits::{BasisRow, IntensityParamRow};
 pub use flags::FlagRecord;
 pub use residuals::{
-    conversion_table, residual_table, residual_writer, sort_residuals, QuoteConversion,
-    QuoteConversionRow, ResidualRow,
+    conversion_table, residual_table, residual_writer, sort_residuals, QuoteConversion, QuoteConversionRow, ResidualRow,
 };
 pub use sensitivities::{sensitivity_table, sort_sensitivities, SensitivityRow};
 

@@ -490,20 +490,130 @@ pub fn price_legs_set(
         return Err(ReferenceDateMismatch { trade: other, discount: discount.reference(), hazard: hazard.reference() });
     }
     let plan = LegPlan::build(trade, contracts, discount, hazard.node_times(), mode);
-    Ok(price_legs_on_plan(&plan, recoveries, hazard))
+    Ok(price_legs_on_plan(&plan, recoveries, hazard, None))
 }
 
 /// The legs of every contract of `plan` (built for `hazard`'s node times) on `hazard`: the
 /// last step of [`price_legs_set`], for a caller that already holds the plan (the bootstrap's
 /// shared plan reprices the curves it built without building the grid again).
-pub(crate) fn price_legs_on_plan(plan: &LegPlan, recoveries: &[f64], hazard: &HazardCurve) -> Vec<CdsLegs> {
+///
+/// `shares_prefix[k]` (when given) says that contract k's terms are the plan's last contract's
+/// but for their last protection interval and last coupon (see `BootstrapPlan`): its sums are
+/// then the last contract's running sums to there plus its own last terms, the additions
+/// [`evaluate_terms`] makes, in its order, so the same numbers, from one pass over the longest
+/// contract instead of one per contract.
+pub(crate) fn price_legs_on_plan(
+    plan: &LegPlan,
+    recoveries: &[f64],
+    hazard: &HazardCurve,
+    shares_prefix: Option<&[bool]>,
+) -> Vec<CdsLegs> {
     let log_q: Vec<f64> = plan.times.iter().map(|&t| hazard.log_survival_at(t)).collect();
     let pq: Vec<f64> = plan.log_dfs.iter().zip(&log_q).map(|(p, q)| (p + q).exp()).collect();
+    let sums = match (shares_prefix, plan.contracts.last()) {
+        (Some(shares), Some(last)) if shares.len() == plan.contracts.len() => {
+            Some((shares, running_sums(plan, last, &pq, &log_q)))
+        }
+        _ => None,
+    };
     plan.contracts
         .iter()
         .zip(recoveries)
-        .map(|(terms, &recovery)| terms_legs(plan, terms, recovery, &pq, &log_q))
+        .enumerate()
+        .map(|(k, (terms, &recovery))| match &sums {
+            Some((shares, sums)) if shares[k] => {
+                let (prot, prem, aod) = sums.with_last_terms(plan, terms, &pq, &log_q);
+                CdsLegs {
+                    protection: (1.0 - recovery) * prot,
+                    premium01: prem,
+                    accrual_on_default01: aod,
+                    rebate01: terms.rebate01,
+                    cash_settle_df: terms.cash_settle_df,
+                }
+            }
+            _ => terms_legs(plan, terms, recovery, &pq, &log_q),
+        })
         .collect()
+}
+
+/// The protection term of the interval (i0, i1) and the premium and accrual-on-default terms of
+/// coupon `c`, as [`evaluate_terms`] computes them on `f64`.
+#[inline]
+fn window_term(plan: &LegPlan, i0: usize, i1: usize, pq: &[f64], log_q: &[f64]) -> f64 {
+    protection_term(pq[i0], pq[i1], plan.log_dfs[i0] - plan.log_dfs[i1], log_q[i0] - log_q[i1])
+}
+
+#[inline]
+fn coupon_terms(plan: &LegPlan, c: &CouponTerm, pq: &[f64], log_q: &[f64]) -> (f64, f64) {
+    let prem = pq[c.q_idx as usize] * (c.accrual * c.pay_df_ratio);
+    let mut acc = 0.0;
+    for w in plan.aod_path[c.aod_from as usize..c.aod_to as usize].windows(2) {
+        let (i0, i1) = (w[0] as usize, w[1] as usize);
+        let f = plan.log_dfs[i0] - plan.log_dfs[i1];
+        let h = log_q[i0] - log_q[i1];
+        acc = acc + accrual_term(pq[i0], pq[i1], f, h, plan.times[i0], plan.times[i1], c.t_s);
+    }
+    (prem, acc * c.accrual_factor())
+}
+
+/// Running sums of one contract's terms: entry i of each holds the sum of its first i
+/// protection intervals (`prot`) or first i coupons (`prem`, `aod`; unpaid coupons add nothing).
+struct RunningSums {
+    prot: Vec<f64>,
+    prem: Vec<f64>,
+    aod: Vec<f64>,
+}
+
+fn running_sums(plan: &LegPlan, terms: &ContractTerms, pq: &[f64], log_q: &[f64]) -> RunningSums {
+    let mut prot = Vec::with_capacity(terms.prot.len());
+    prot.push(0.0);
+    for w in terms.prot.windows(2) {
+        let next = prot[prot.len() - 1] + window_term(plan, w[0] as usize, w[1] as usize, pq, log_q);
+        prot.push(next);
+    }
+    let (mut prem, mut aod) =
+        (Vec::with_capacity(terms.coupons.len() + 1), Vec::with_capacity(terms.coupons.len() + 1));
+    prem.push(0.0);
+    aod.push(0.0);
+    for c in &terms.coupons {
+        let (m, a) = (prem[prem.len() - 1], aod[aod.len() - 1]);
+        if c.paid {
+            let (dm, da) = coupon_terms(plan, c, pq, log_q);
+            prem.push(m + dm);
+            aod.push(a + da);
+        } else {
+            prem.push(m);
+            aod.push(a);
+        }
+    }
+    RunningSums { prot, prem, aod }
+}
+
+impl RunningSums {
+    /// (protection without 1 - R, premium01, accrual-on-default01) of `terms`, whose terms but
+    /// the last interval and the last coupon are the summed contract's.
+    fn with_last_terms(&self, plan: &LegPlan, terms: &ContractTerms, pq: &[f64], log_q: &[f64]) -> (f64, f64, f64) {
+        let np = terms.prot.len();
+        let prot = if np >= 2 {
+            self.prot[np - 2] + window_term(plan, terms.prot[np - 2] as usize, terms.prot[np - 1] as usize, pq, log_q)
+        } else {
+            0.0
+        };
+        let (prem, aod) = match terms.coupons.last() {
+            None => (0.0, 0.0),
+            Some(c) => {
+                let nc = terms.coupons.len();
+                let (m, a) = (self.prem[nc - 1], self.aod[nc - 1]);
+                if c.paid {
+                    let (dm, da) = coupon_terms(plan, c, pq, log_q);
+                    (m + dm, a + da)
+                } else {
+                    (m, a)
+                }
+            }
+        };
+        (prot, prem, aod)
+    }
 }
 
 /// The legs of one contract of `plan` with P Q and ln Q given at every grid point.
