@@ -31,16 +31,28 @@ pub use crate::hash::{FastMap, Fnv};
 pub struct Interner {
     map: FastMap<String, u32>,
     names: Vec<String>,
+    /// The id last handed out: a panel's rows come in runs of one name (an entity's tenors,
+    /// one currency), so most look-ups are a comparison with it rather than a hash.
+    last: Option<u32>,
 }
 
 impl Interner {
     pub fn id(&mut self, name: &str) -> u32 {
-        if let Some(&i) = self.map.get(name) {
-            return i;
+        if let Some(i) = self.last {
+            if self.names[i as usize] == name {
+                return i;
+            }
         }
-        let i = self.names.len() as u32;
-        self.names.push(name.to_string());
-        self.map.insert(name.to_string(), i);
+        let i = match self.map.get(name) {
+            Some(&i) => i,
+            None => {
+                let i = self.names.len() as u32;
+                self.names.push(name.to_string());
+                self.map.insert(name.to_string(), i);
+                i
+            }
+        };
+        self.last = Some(i);
         i
     }
 

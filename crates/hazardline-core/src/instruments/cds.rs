@@ -508,7 +508,7 @@ pub(crate) fn price_legs_on_plan(
     hazard: &HazardCurve,
     shares_prefix: Option<&[bool]>,
 ) -> Vec<CdsLegs> {
-    let log_q: Vec<f64> = plan.times.iter().map(|&t| hazard.log_survival_at(t)).collect();
+    let log_q: Vec<f64> = hazard.log_survival_at_sorted(&plan.times);
     let pq: Vec<f64> = plan.log_dfs.iter().zip(&log_q).map(|(p, q)| (p + q).exp()).collect();
     let sums = match (shares_prefix, plan.contracts.last()) {
         (Some(shares), Some(last)) if shares.len() == plan.contracts.len() => {
