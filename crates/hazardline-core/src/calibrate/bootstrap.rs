@@ -13,7 +13,9 @@
 //! silently.
 
 use crate::curves::{year_time, DiscountCurve, HazardCurve};
-use crate::instruments::cds::{evaluate_terms, terms_legs, AccrualIntegration, CdsContract, CdsQuote, LegPlan};
+use crate::instruments::cds::{
+    evaluate_terms, terms_legs, AccrualIntegration, CdsContract, CdsQuote, LegPlan, RunningSums,
+};
 use crate::math::{newton_bracketed, Dual, RootError, Scalar};
 use crate::time::imm::MaturityError;
 use crate::time::{add_days, Calendar, Tenor};
@@ -402,7 +404,8 @@ struct Scratch {
     pq: Vec<f64>,
     dual_lq: Vec<Dual>,
     dual_pq: Vec<Dual>,
-    sums: PrefixSums,
+    /// The longest contract's terms summed over the solved segments.
+    sums: RunningSums,
     nodes: Vec<NodeFit>,
     hazards: Vec<f64>,
 }
@@ -483,10 +486,7 @@ fn solve_nodes(
     let mut stopped = false;
     let mut curve_failed = false;
     let mut prev_spread: Option<(f64, f64)> = None;
-    for v in [&mut sums.prot, &mut sums.prem, &mut sums.aod] {
-        v.clear();
-        v.push(0.0);
-    }
+    sums.clear();
 
     for (k, (qi, contract)) in bp.order.iter().zip(bp.contracts.iter()).enumerate() {
         let q = &quotes[*qi];
@@ -517,7 +517,9 @@ fn solve_nodes(
         // The part fixed by solved segments: running sums over the longest contract's terms
         // when this contract shares its prefix (same numbers, summed in the same order), else
         // summed here.
-        extend_sums(plan, t_prev, pq, log_q, sums);
+        if let Some(last) = plan.contracts.last() {
+            sums.extend(plan, last, t_prev, pq, log_q);
+        }
         let shared = bp.shares_prefix[k] && prot_from < sums.prot.len() && coupon_from < sums.prem.len();
         let (fp, fm, fa) = if shared {
             (sums.prot[prot_from], sums.prem[coupon_from], sums.aod[coupon_from])
@@ -666,39 +668,6 @@ fn solve_nodes(
         }
     }
     curve_failed
-}
-
-/// Running sums of the longest contract's protection windows and coupons whose grid points
-/// all lie in solved segments: entry i holds the sum of the first i terms.
-#[derive(Default)]
-struct PrefixSums {
-    prot: Vec<f64>,
-    prem: Vec<f64>,
-    aod: Vec<f64>,
-}
-
-fn extend_sums(plan: &LegPlan, t_prev: f64, pq: &[f64], log_q: &[f64], sums: &mut PrefixSums) {
-    let Some(last) = plan.contracts.last() else { return };
-    while sums.prot.len() < last.prot.len() {
-        let w = sums.prot.len() - 1;
-        if plan.times[last.prot[w + 1] as usize] > t_prev {
-            break;
-        }
-        let (p, _, _) = evaluate_terms(plan, &last.prot[w..=w + 1], &[], pq, log_q);
-        let next = sums.prot[w] + p;
-        sums.prot.push(next);
-    }
-    while sums.prem.len() <= last.coupons.len() {
-        let j = sums.prem.len() - 1;
-        let c = &last.coupons[j];
-        if c.paid && plan.times[c.q_idx as usize] > t_prev {
-            break;
-        }
-        let (_, m, a) = evaluate_terms(plan, &[], std::slice::from_ref(c), pq, log_q);
-        let (pm, pa) = (sums.prem[j] + m, sums.aod[j] + a);
-        sums.prem.push(pm);
-        sums.aod.push(pa);
-    }
 }
 
 fn describe(q: CdsQuote) -> String {

@@ -557,39 +557,66 @@ fn coupon_terms(plan: &LegPlan, c: &CouponTerm, pq: &[f64], log_q: &[f64]) -> (f
 }
 
 /// Running sums of one contract's terms: entry i of each holds the sum of its first i
-/// protection intervals (`prot`) or first i coupons (`prem`, `aod`; unpaid coupons add nothing).
-struct RunningSums {
-    prot: Vec<f64>,
-    prem: Vec<f64>,
-    aod: Vec<f64>,
+/// protection intervals (`prot`) or first i coupons (`prem`, `aod`; unpaid coupons add nothing),
+/// added in [`evaluate_terms`]' order.
+#[derive(Debug, Clone)]
+pub(crate) struct RunningSums {
+    pub prot: Vec<f64>,
+    pub prem: Vec<f64>,
+    pub aod: Vec<f64>,
+}
+
+impl Default for RunningSums {
+    fn default() -> Self {
+        RunningSums { prot: vec![0.0], prem: vec![0.0], aod: vec![0.0] }
+    }
 }
 
 fn running_sums(plan: &LegPlan, terms: &ContractTerms, pq: &[f64], log_q: &[f64]) -> RunningSums {
-    let mut prot = Vec::with_capacity(terms.prot.len());
-    prot.push(0.0);
-    for w in terms.prot.windows(2) {
-        let next = prot[prot.len() - 1] + window_term(plan, w[0] as usize, w[1] as usize, pq, log_q);
-        prot.push(next);
-    }
-    let (mut prem, mut aod) =
-        (Vec::with_capacity(terms.coupons.len() + 1), Vec::with_capacity(terms.coupons.len() + 1));
-    prem.push(0.0);
-    aod.push(0.0);
-    for c in &terms.coupons {
-        let (m, a) = (prem[prem.len() - 1], aod[aod.len() - 1]);
-        if c.paid {
-            let (dm, da) = coupon_terms(plan, c, pq, log_q);
-            prem.push(m + dm);
-            aod.push(a + da);
-        } else {
-            prem.push(m);
-            aod.push(a);
-        }
-    }
-    RunningSums { prot, prem, aod }
+    let mut sums = RunningSums::default();
+    sums.extend(plan, terms, f64::INFINITY, pq, log_q);
+    sums
 }
 
 impl RunningSums {
+    /// Back to the sums of no terms.
+    pub(crate) fn clear(&mut self) {
+        for v in [&mut self.prot, &mut self.prem, &mut self.aod] {
+            v.clear();
+            v.push(0.0);
+        }
+    }
+
+    /// Extends the sums over the next intervals and coupons of `terms` whose grid points all
+    /// lie at or before `t_limit` (P Q and ln Q known there).
+    pub(crate) fn extend(&mut self, plan: &LegPlan, terms: &ContractTerms, t_limit: f64, pq: &[f64], log_q: &[f64]) {
+        while self.prot.len() < terms.prot.len() {
+            let w = self.prot.len() - 1;
+            let (i0, i1) = (terms.prot[w] as usize, terms.prot[w + 1] as usize);
+            if plan.times[i1] > t_limit {
+                break;
+            }
+            let next = self.prot[w] + window_term(plan, i0, i1, pq, log_q);
+            self.prot.push(next);
+        }
+        while self.prem.len() <= terms.coupons.len() {
+            let j = self.prem.len() - 1;
+            let c = &terms.coupons[j];
+            let (m, a) = (self.prem[j], self.aod[j]);
+            if !c.paid {
+                self.prem.push(m);
+                self.aod.push(a);
+                continue;
+            }
+            if plan.times[c.q_idx as usize] > t_limit {
+                break;
+            }
+            let (dm, da) = coupon_terms(plan, c, pq, log_q);
+            self.prem.push(m + dm);
+            self.aod.push(a + da);
+        }
+    }
+
     /// (protection without 1 - R, premium01, accrual-on-default01) of `terms`, whose terms but
     /// the last interval and the last coupon are the summed contract's.
     fn with_last_terms(&self, plan: &LegPlan, terms: &ContractTerms, pq: &[f64], log_q: &[f64]) -> (f64, f64, f64) {
