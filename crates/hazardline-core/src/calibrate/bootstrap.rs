@@ -334,9 +334,7 @@ impl BootstrapPlan {
             && curve.node_times().len() == self.node_times.len()
             && curve.node_times().iter().zip(&self.node_times).all(|(a, b)| a.to_bits() == b.to_bits())
             && recoveries.len() == self.plan.contracts.len();
-        same.then(|| {
-            crate::instruments::cds::price_legs_on_plan(&self.plan, recoveries, curve, Some(&self.shares_prefix))
-        })
+        same.then(|| crate::instruments::cds::price_legs_on_plan(&self.plan, recoveries, curve))
     }
 
     /// Bootstraps one curve. `quotes[i].tenor` must be the plan's `tenors()[i]`.
@@ -745,65 +743,5 @@ mod tests {
             maturity: None,
         };
         assert_eq!(two.flat_par_spread(&q, &BootstrapSettings::default()), None);
-    }
-
-    /// `legs_on` (the last contract's running sums shared by the contracts that share its
-    /// terms) gives the legs [`crate::instruments::cds::price_legs_set`] gives contract by
-    /// contract, bit for bit: trade dates across a roll date and a month end, tenor sets with
-    /// an off-roll maturity (shortest or longest), a flat and a sloped discount curve,
-    /// every accrual variant, hazards from near zero to steep.
-    #[test]
-    fn shared_sums_reprice_as_each_contract_alone() {
-        use crate::instruments::cds::price_legs_set;
-        let cal = Calendar::weekends_only();
-        let mut shared = 0;
-        for t in
-            [(2024, 3, 20), (2024, 6, 19), (2023, 11, 30)].map(|(y, m, d)| NaiveDate::from_ymd_opt(y, m, d).unwrap())
-        {
-            let pillars: Vec<(NaiveDate, f64)> = [(90, 0.031), (400, 0.034), (1900, 0.038), (4000, 0.041)]
-                .iter()
-                .map(|&(d, r)| {
-                    let p = t + chrono::Days::new(d);
-                    (p, -r * year_time(t, p))
-                })
-                .collect();
-            let curves = [DiscountCurve::flat(t, 0.02), DiscountCurve::from_log_discount_factors(t, &pillars).unwrap()];
-            let standard: Vec<(Tenor, Option<NaiveDate>)> =
-                [6, 12, 24, 36, 48, 60, 84, 120].iter().map(|&m| (Tenor::from_months(m).unwrap(), None)).collect();
-            let mut off_roll = standard[..5].to_vec();
-            off_roll.push((Tenor::from_months(60).unwrap(), NaiveDate::from_ymd_opt(2029, 1, 31)));
-            let mut off_roll_last = standard[..4].to_vec();
-            off_roll_last.push((Tenor::from_months(120).unwrap(), NaiveDate::from_ymd_opt(2034, 2, 15)));
-            for d in &curves {
-                for accrual in [AccrualIntegration::Standard, AccrualIntegration::Exact, AccrualIntegration::Published]
-                {
-                    for terms in [&standard, &off_roll, &off_roll_last] {
-                        let plan = BootstrapPlan::for_terms(t, terms, d, &cal, accrual).unwrap();
-                        for scale in [0.001, 0.5, 4.0] {
-                            let node_hazards: Vec<f64> =
-                                (0..terms.len()).map(|k| scale * (0.01 + 0.004 * k as f64)).collect();
-                            let curve = HazardCurve::new(t, plan.node_times.clone(), node_hazards).unwrap();
-                            let recoveries: Vec<f64> = (0..terms.len()).map(|k| 0.2 + 0.05 * k as f64).collect();
-                            let fast = plan.legs_on(&curve, &recoveries).unwrap();
-                            let contracts: Vec<&CdsContract> = plan.contracts.iter().collect();
-                            let slow = price_legs_set(&contracts, &recoveries, d, &curve, accrual).unwrap();
-                            let bits = |l: &crate::instruments::CdsLegs| {
-                                [l.protection, l.premium01, l.accrual_on_default01, l.rebate01, l.cash_settle_df]
-                                    .map(f64::to_bits)
-                            };
-                            for (k, (a, b)) in fast.iter().zip(&slow).enumerate() {
-                                assert_eq!(bits(a), bits(b), "{t} {accrual:?} contract {k}: {a:?} {b:?}");
-                            }
-                            assert_eq!(fast.len(), slow.len());
-                            shared += plan.shares_prefix.iter().filter(|s| **s).count();
-                        }
-                    }
-                }
-            }
-        }
-        // Every contract of these plans shares the longest one's terms (an off-roll maturity
-        // included: its coupons keep the standard dates); the test makes sure the shared sums
-        // were the ones compared.
-        assert!(shared > 1000, "{shared} contracts priced from the shared sums");
     }
 }

@@ -490,49 +490,19 @@ pub fn price_legs_set(
         return Err(ReferenceDateMismatch { trade: other, discount: discount.reference(), hazard: hazard.reference() });
     }
     let plan = LegPlan::build(trade, contracts, discount, hazard.node_times(), mode);
-    Ok(price_legs_on_plan(&plan, recoveries, hazard, None))
+    Ok(price_legs_on_plan(&plan, recoveries, hazard))
 }
 
 /// The legs of every contract of `plan` (built for `hazard`'s node times) on `hazard`: the
 /// last step of [`price_legs_set`], for a caller that already holds the plan (the bootstrap's
 /// shared plan reprices the curves it built without building the grid again).
-///
-/// `shares_prefix[k]` (when given) says that contract k's terms are the plan's last contract's
-/// but for their last protection interval and last coupon (see `BootstrapPlan`): its sums are
-/// then the last contract's running sums to there plus its own last terms, the additions
-/// [`evaluate_terms`] makes, in its order, so the same numbers, from one pass over the longest
-/// contract instead of one per contract.
-pub(crate) fn price_legs_on_plan(
-    plan: &LegPlan,
-    recoveries: &[f64],
-    hazard: &HazardCurve,
-    shares_prefix: Option<&[bool]>,
-) -> Vec<CdsLegs> {
+pub(crate) fn price_legs_on_plan(plan: &LegPlan, recoveries: &[f64], hazard: &HazardCurve) -> Vec<CdsLegs> {
     let log_q: Vec<f64> = hazard.log_survival_at_sorted(&plan.times);
     let pq: Vec<f64> = plan.log_dfs.iter().zip(&log_q).map(|(p, q)| (p + q).exp()).collect();
-    let sums = match (shares_prefix, plan.contracts.last()) {
-        (Some(shares), Some(last)) if shares.len() == plan.contracts.len() => {
-            Some((shares, running_sums(plan, last, &pq, &log_q)))
-        }
-        _ => None,
-    };
     plan.contracts
         .iter()
         .zip(recoveries)
-        .enumerate()
-        .map(|(k, (terms, &recovery))| match &sums {
-            Some((shares, sums)) if shares[k] => {
-                let (prot, prem, aod) = sums.with_last_terms(plan, terms, &pq, &log_q);
-                CdsLegs {
-                    protection: (1.0 - recovery) * prot,
-                    premium01: prem,
-                    accrual_on_default01: aod,
-                    rebate01: terms.rebate01,
-                    cash_settle_df: terms.cash_settle_df,
-                }
-            }
-            _ => terms_legs(plan, terms, recovery, &pq, &log_q),
-        })
+        .map(|(terms, &recovery)| terms_legs(plan, terms, recovery, &pq, &log_q))
         .collect()
 }
 
@@ -558,7 +528,8 @@ fn coupon_terms(plan: &LegPlan, c: &CouponTerm, pq: &[f64], log_q: &[f64]) -> (f
 
 /// Running sums of one contract's terms: entry i of each holds the sum of its first i
 /// protection intervals (`prot`) or first i coupons (`prem`, `aod`; unpaid coupons add nothing),
-/// added in [`evaluate_terms`]' order.
+/// added in [`evaluate_terms`]' order, so that a contract sharing these terms takes its sums
+/// from here (the bootstrap sums the longest contract over the segments it has solved).
 #[derive(Debug, Clone)]
 pub(crate) struct RunningSums {
     pub prot: Vec<f64>,
@@ -570,12 +541,6 @@ impl Default for RunningSums {
     fn default() -> Self {
         RunningSums { prot: vec![0.0], prem: vec![0.0], aod: vec![0.0] }
     }
-}
-
-fn running_sums(plan: &LegPlan, terms: &ContractTerms, pq: &[f64], log_q: &[f64]) -> RunningSums {
-    let mut sums = RunningSums::default();
-    sums.extend(plan, terms, f64::INFINITY, pq, log_q);
-    sums
 }
 
 impl RunningSums {
@@ -615,31 +580,6 @@ impl RunningSums {
             self.prem.push(m + dm);
             self.aod.push(a + da);
         }
-    }
-
-    /// (protection without 1 - R, premium01, accrual-on-default01) of `terms`, whose terms but
-    /// the last interval and the last coupon are the summed contract's.
-    fn with_last_terms(&self, plan: &LegPlan, terms: &ContractTerms, pq: &[f64], log_q: &[f64]) -> (f64, f64, f64) {
-        let np = terms.prot.len();
-        let prot = if np >= 2 {
-            self.prot[np - 2] + window_term(plan, terms.prot[np - 2] as usize, terms.prot[np - 1] as usize, pq, log_q)
-        } else {
-            0.0
-        };
-        let (prem, aod) = match terms.coupons.last() {
-            None => (0.0, 0.0),
-            Some(c) => {
-                let nc = terms.coupons.len();
-                let (m, a) = (self.prem[nc - 1], self.aod[nc - 1]);
-                if c.paid {
-                    let (dm, da) = coupon_terms(plan, c, pq, log_q);
-                    (m + dm, a + da)
-                } else {
-                    (m, a)
-                }
-            }
-        };
-        (prot, prem, aod)
     }
 }
 
