@@ -149,96 +149,6 @@ fn series_tuple(r: &CdsQuoteRow, day: i32) -> (u32, u32, u32, u32, i32, u32, u32
     (r.entity, r.currency, r.tier, r.tenor.months(), day, r.file, r.row)
 }
 
-/// [`sort_kept`]'s order on the tuple itself.
-fn sort_kept_on_tuple(kept: &mut [CdsQuoteRow], ent_rank: &[u32], ccy_rank: &[u32], tier_rank: &[u32]) {
-    // The date as it compares (calendar order), not its day count, which costs more than the
-    // rest of the key and would be computed twice per comparison.
-    kept.par_sort_unstable_by_key(|r| {
-        (
-            r.date,
-            ent_rank[r.entity as usize],
-            ccy_rank[r.currency as usize],
-            tier_rank[r.tier as usize],
-            r.tenor,
-            r.file,
-            r.row,
-        )
-    })
-}
-
-/// Bits that hold the values 0..n.
-fn bits_for(n: usize) -> u32 {
-    usize::BITS - n.saturating_sub(1).leading_zeros()
-}
-
-/// Sorts the kept rows (in panel order, which is (file, row) order) by (date, entity name,
-/// currency name, tier, tenor, file, row). When the parts fit in 64 bits (the date as its day
-/// from the first, the three ranks and the tenor's rank among the tenors present, each in the
-/// bits its count needs, then the row's index, which stands for (file, row)), every row's key is
-/// computed once and the keys are sorted, then the rows are put in their places by following
-/// the permutation's cycles (no second copy of the rows); otherwise the rows sort on the tuple,
-/// its parts looked up at every comparison. Both orders are the same: the keys are unique.
-fn sort_kept(kept: &mut [CdsQuoteRow], ent_rank: &[u32], ccy_rank: &[u32], tier_rank: &[u32]) {
-    let n = kept.len();
-    let (Some(first), Some(last)) = (kept.par_iter().map(|r| r.date).min(), kept.par_iter().map(|r| r.date).max())
-    else {
-        return;
-    };
-    let (day0, days) = (serial(first), (serial(last) - serial(first)) as usize + 1);
-    let mut tenors: Vec<crate::time::Tenor> =
-        kept.iter().map(|r| r.tenor).collect::<std::collections::BTreeSet<_>>().into_iter().collect();
-    tenors.shrink_to_fit();
-    let widths = [
-        bits_for(days),
-        bits_for(ent_rank.len()),
-        bits_for(ccy_rank.len()),
-        bits_for(tier_rank.len()),
-        bits_for(tenors.len()),
-        bits_for(n),
-    ];
-    if widths.iter().sum::<u32>() > 64 {
-        return sort_kept_on_tuple(kept, ent_rank, ccy_rank, tier_rank);
-    }
-    let index_bits = widths[5];
-    let mut keys: Vec<u64> = kept
-        .par_iter()
-        .enumerate()
-        .map(|(i, r)| {
-            let tenor = tenors.binary_search(&r.tenor).unwrap_or_default();
-            let parts = [
-                (serial(r.date) - day0) as u64,
-                ent_rank[r.entity as usize] as u64,
-                ccy_rank[r.currency as usize] as u64,
-                tier_rank[r.tier as usize] as u64,
-                tenor as u64,
-                i as u64,
-            ];
-            parts.iter().zip(widths).fold(0u64, |key, (&v, w)| if w == 0 { key } else { (key << w) | v })
-        })
-        .collect();
-    keys.par_sort_unstable();
-    // Place p takes the row at index keys[p]'s low bits: follow each cycle once.
-    let from = |p: usize| (keys[p] & ((1u64 << index_bits) - 1)) as usize;
-    let mut placed = vec![false; n];
-    for start in 0..n {
-        if placed[start] {
-            continue;
-        }
-        let held = kept[start];
-        let mut p = start;
-        loop {
-            placed[p] = true;
-            let q = from(p);
-            if q == start {
-                kept[p] = held;
-                break;
-            }
-            kept[p] = kept[q];
-            p = q;
-        }
-    }
-}
-
 /// Quotes on each side of a quote whose median the unit-slip rule compares it with (a run of
 /// slipped quotes shorter than this leaves the median of the 2 x 10 + 1 quotes untouched).
 const NEIGHBOURS: usize = 10;
@@ -374,8 +284,19 @@ pub fn check_cds(
     }
     kept.truncate(w);
     drop_vec(flags);
-    drop_vec(order);
-    sort_kept(&mut kept, &ent_rank, &ccy_rank, &tier_rank);
+    // The date as it compares (calendar order, the order of its day count), not its day count,
+    // which costs more than the rest of the key and would be computed twice per comparison.
+    kept.par_sort_unstable_by_key(|r| {
+        (
+            r.date,
+            ent_rank[r.entity as usize],
+            ccy_rank[r.currency as usize],
+            tier_rank[r.tier as usize],
+            r.tenor,
+            r.file,
+            r.row,
+        )
+    });
 
     // Curve rules per (date, entity, currency, tier).
     let mut i = 0;
@@ -620,66 +541,5 @@ fn series_rules(
                 row: rows[k].row as u64,
             });
         }
-    }
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-    use crate::instruments::CdsQuote;
-    use crate::time::Tenor;
-
-    /// The packed keys give the tuple's order, row for row: rows in (file, row) order over two
-    /// files, dates across a year end, names, currencies and tiers whose ranks are not their ids,
-    /// tenors out of month order in the rows, and the same (date, name, currency, tier, tenor) in
-    /// both files (the index must stand for (file, row)).
-    #[test]
-    fn packed_keys_sort_the_kept_rows_as_the_tuple_does() {
-        let mut state = 0x9E37_79B9_7F4A_7C15u64;
-        let mut next = |m: u64| {
-            state ^= state << 13;
-            state ^= state >> 7;
-            state ^= state << 17;
-            state % m
-        };
-        let months = [120, 6, 60, 12, 36, 84];
-        let day0 = NaiveDate::from_ymd_opt(2023, 12, 20).unwrap();
-        let mut rows = Vec::new();
-        for file in 0..2u32 {
-            for row in 1..=3000u32 {
-                let r = CdsQuoteRow {
-                    date: day0 + chrono::Days::new(next(30)),
-                    entity: next(40) as u32,
-                    currency: next(3) as u32,
-                    tenor: Tenor::from_months(months[next(6) as usize]).unwrap(),
-                    quote: CdsQuote::ParSpread(1e-4 * (1 + next(500)) as f64),
-                    recovery: f64::NAN,
-                    tier: next(2) as u32,
-                    file,
-                    row,
-                    flags: 0,
-                    quoted_coupon_bp: f32::NAN,
-                    maturity: None,
-                };
-                rows.push(r);
-                if next(10) == 0 {
-                    rows.push(CdsQuoteRow { file: 1, row: 5000 + row, ..r });
-                }
-            }
-        }
-        rows.sort_by_key(|r| (r.file, r.row));
-        let ent_rank: Vec<u32> = (0..40).map(|i| (i * 17) % 40).collect();
-        let (ccy_rank, tier_rank) = (vec![2, 0, 1], vec![1, 0]);
-        let mut packed = rows.clone();
-        sort_kept(&mut packed, &ent_rank, &ccy_rank, &tier_rank);
-        let mut tuple = rows;
-        sort_kept_on_tuple(&mut tuple, &ent_rank, &ccy_rank, &tier_rank);
-        assert_eq!(packed.len(), tuple.len());
-        for (i, (a, b)) in packed.iter().zip(&tuple).enumerate() {
-            assert_eq!((a.file, a.row), (b.file, b.row), "place {i}");
-        }
-        assert!(packed
-            .windows(2)
-            .any(|w| w[0].date == w[1].date && w[0].entity == w[1].entity && w[0].file != w[1].file));
     }
 }
