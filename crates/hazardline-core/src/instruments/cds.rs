@@ -521,7 +521,7 @@ fn coupon_terms(plan: &LegPlan, c: &CouponTerm, pq: &[f64], log_q: &[f64]) -> (f
         let (i0, i1) = (w[0] as usize, w[1] as usize);
         let f = plan.log_dfs[i0] - plan.log_dfs[i1];
         let h = log_q[i0] - log_q[i1];
-        acc = acc + accrual_term(pq[i0], pq[i1], f, h, plan.times[i0], plan.times[i1], c.t_s);
+        acc += accrual_term(pq[i0], pq[i1], f, h, plan.times[i0], plan.times[i1], c.t_s);
     }
     (prem, acc * c.accrual_factor())
 }
