@@ -619,14 +619,14 @@ pub fn price_legs(
 /// values published with QuantLib's test suite, testIsdaEngine, are upfronts converted this
 /// way; tests/all/reference_quantlib.rs reproduces them).
 pub mod quoted_spread {
-    use super::{price_legs, AccrualIntegration, CdsContract};
+    use super::{terms_legs, AccrualIntegration, CdsContract, CdsLegs, LegPlan};
     use crate::curves::{DiscountCurve, HazardCurve};
 
     /// The flat hazard at which `value(h)` reaches `target` (value rising in h), bisected on
     /// [0, 50] per year to the last bit; None when no hazard there reaches it.
-    fn flat_hazard(target: f64, value: impl Fn(f64) -> Option<f64>) -> Option<f64> {
+    fn flat_hazard(target: f64, value: impl Fn(f64) -> f64) -> Option<f64> {
         let (mut lo, mut hi) = (0.0f64, 50.0f64);
-        if !(value(lo)? <= target && value(hi)? >= target) {
+        if !(value(lo) <= target && value(hi) >= target) {
             return None;
         }
         for _ in 0..200 {
@@ -634,7 +634,7 @@ pub mod quoted_spread {
             if mid <= lo || mid >= hi {
                 break;
             }
-            if value(mid)? < target {
+            if value(mid) < target {
                 lo = mid;
             } else {
                 hi = mid;
@@ -643,14 +643,38 @@ pub mod quoted_spread {
         Some(0.5 * (lo + hi))
     }
 
-    fn legs_at(
-        contract: &CdsContract,
+    /// The legs of one contract on flat hazard curves: its grid built once (a flat curve's
+    /// one node is always at t = 1, so the grid does not change with the hazard), then at each
+    /// hazard the numbers [`super::price_legs`] gives on [`HazardCurve::flat`].
+    struct FlatLegs {
+        trade: chrono::NaiveDate,
+        plan: LegPlan,
         recovery: f64,
-        discount: &DiscountCurve,
-        h: f64,
-        accrual: AccrualIntegration,
-    ) -> Option<super::CdsLegs> {
-        price_legs(contract, recovery, discount, &HazardCurve::flat(contract.trade_date, h), accrual).ok()
+    }
+
+    impl FlatLegs {
+        /// None when the discount curve is not referenced on the trade date (as `price_legs`).
+        fn new(
+            contract: &CdsContract,
+            recovery: f64,
+            discount: &DiscountCurve,
+            accrual: AccrualIntegration,
+        ) -> Option<Self> {
+            let trade = contract.trade_date;
+            let flat = HazardCurve::flat(trade, 0.0);
+            (discount.reference() == trade).then(|| FlatLegs {
+                trade,
+                plan: LegPlan::build(trade, &[contract], discount, flat.node_times(), accrual),
+                recovery,
+            })
+        }
+
+        fn at(&self, h: f64) -> CdsLegs {
+            let hazard = HazardCurve::flat(self.trade, h);
+            let log_q = hazard.log_survival_at_sorted(&self.plan.times);
+            let pq: Vec<f64> = self.plan.log_dfs.iter().zip(&log_q).map(|(p, q)| (p + q).exp()).collect();
+            terms_legs(&self.plan, &self.plan.contracts[0], self.recovery, &pq, &log_q)
+        }
     }
 
     /// The flat hazard a quoted spread stands for.
@@ -661,7 +685,8 @@ pub mod quoted_spread {
         discount: &DiscountCurve,
         accrual: AccrualIntegration,
     ) -> Option<f64> {
-        flat_hazard(spread, |h| legs_at(contract, recovery, discount, h, accrual).map(|l| l.par_spread()))
+        let legs = FlatLegs::new(contract, recovery, discount, accrual)?;
+        flat_hazard(spread, |h| legs.at(h).par_spread())
     }
 
     /// The upfront (fraction of notional, positive when the buyer pays) at running coupon
@@ -674,8 +699,9 @@ pub mod quoted_spread {
         discount: &DiscountCurve,
         accrual: AccrualIntegration,
     ) -> Option<f64> {
-        let h = flat_hazard_of_spread(contract, spread, recovery, discount, accrual)?;
-        legs_at(contract, recovery, discount, h, accrual).map(|l| l.upfront(coupon))
+        let legs = FlatLegs::new(contract, recovery, discount, accrual)?;
+        let h = flat_hazard(spread, |h| legs.at(h).par_spread())?;
+        Some(legs.at(h).upfront(coupon))
     }
 
     /// The quoted spread of a contract trading at upfront `upfront` with running coupon
@@ -688,7 +714,56 @@ pub mod quoted_spread {
         discount: &DiscountCurve,
         accrual: AccrualIntegration,
     ) -> Option<f64> {
-        let h = flat_hazard(upfront, |h| legs_at(contract, recovery, discount, h, accrual).map(|l| l.upfront(coupon)))?;
-        legs_at(contract, recovery, discount, h, accrual).map(|l| l.par_spread())
+        let legs = FlatLegs::new(contract, recovery, discount, accrual)?;
+        let h = flat_hazard(upfront, |h| legs.at(h).upfront(coupon))?;
+        Some(legs.at(h).par_spread())
+    }
+
+    #[cfg(test)]
+    mod tests {
+        use super::super::price_legs;
+        use super::*;
+        use crate::time::{Calendar, Tenor};
+        use chrono::NaiveDate;
+
+        /// The grid built once gives, at every hazard, the legs `price_legs` gives on the flat
+        /// curve, bit for bit: tenors from 6M to 10Y and an off-roll maturity, a flat and a
+        /// sloped discount curve, every accrual variant, hazards from zero to 50 per year.
+        #[test]
+        fn legs_on_the_grid_built_once_are_price_legs() {
+            let t = NaiveDate::from_ymd_opt(2024, 3, 20).unwrap();
+            let cal = Calendar::weekends_only();
+            let pillars: Vec<(NaiveDate, f64)> = [(90, 0.031), (400, 0.034), (1900, 0.038), (4000, 0.041)]
+                .iter()
+                .map(|&(d, r)| {
+                    let p = t + chrono::Days::new(d);
+                    (p, -r * crate::curves::year_time(t, p))
+                })
+                .collect();
+            let curves = [DiscountCurve::flat(t, 0.02), DiscountCurve::from_log_discount_factors(t, &pillars).unwrap()];
+            let mut contracts: Vec<CdsContract> = [6, 12, 36, 60, 120]
+                .iter()
+                .map(|&m| CdsContract::standard(t, Tenor::from_months(m).unwrap(), &cal).unwrap())
+                .collect();
+            contracts.push(CdsContract::with_maturity(t, NaiveDate::from_ymd_opt(2029, 1, 31).unwrap(), &cal));
+            let bits = |l: &CdsLegs| {
+                [l.protection, l.premium01, l.accrual_on_default01, l.rebate01, l.cash_settle_df].map(f64::to_bits)
+            };
+            let mut compared = 0;
+            for d in &curves {
+                for accrual in [AccrualIntegration::Standard, AccrualIntegration::Exact, AccrualIntegration::Published]
+                {
+                    for c in &contracts {
+                        let legs = FlatLegs::new(c, 0.35, d, accrual).unwrap();
+                        for h in [0.0, 1e-7, 0.004, 0.0213, 0.37, 3.0, 50.0] {
+                            let alone = price_legs(c, 0.35, d, &HazardCurve::flat(t, h), accrual).unwrap();
+                            assert_eq!(bits(&legs.at(h)), bits(&alone), "{accrual:?} {} h = {h}", c.maturity);
+                            compared += 1;
+                        }
+                    }
+                }
+            }
+            assert_eq!(compared, 2 * 3 * 6 * 7);
+        }
     }
 }
