@@ -690,14 +690,7 @@ mod tests {
     fn flat_par_spread_is_the_solve_and_the_legs() {
         let t = NaiveDate::from_ymd_opt(2024, 3, 20).unwrap();
         let cal = Calendar::weekends_only();
-        let pillars: Vec<(NaiveDate, f64)> = [(90, 0.031), (400, 0.034), (1900, 0.038), (4000, 0.041)]
-            .iter()
-            .map(|&(d, r)| {
-                let p = t + chrono::Days::new(d);
-                (p, -r * year_time(t, p))
-            })
-            .collect();
-        let curves = [DiscountCurve::flat(t, 0.02), DiscountCurve::from_log_discount_factors(t, &pillars).unwrap()];
+        let curves = crate::curves::discount::test_curves(t);
         let mut terms: Vec<(Tenor, Option<NaiveDate>)> =
             [6, 12, 36, 60, 84, 120].iter().map(|&m| (Tenor::from_months(m).unwrap(), None)).collect();
         terms.push((Tenor::from_months(60).unwrap(), NaiveDate::from_ymd_opt(2029, 1, 31)));

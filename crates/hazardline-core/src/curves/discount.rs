@@ -257,6 +257,20 @@ impl DiscountCurve {
     }
 }
 
+/// A flat discount curve at 2% and a sloped one (3.1% to 4.1%) with pillars inside 10-year
+/// contracts, both referenced on `t`: the curves the bit-for-bit tests of the legs run on.
+#[cfg(test)]
+pub(crate) fn test_curves(t: NaiveDate) -> [DiscountCurve; 2] {
+    let pillars: Vec<(NaiveDate, f64)> = [(90, 0.031), (400, 0.034), (1900, 0.038), (4000, 0.041)]
+        .iter()
+        .map(|&(d, r)| {
+            let p = t + chrono::Days::new(d);
+            (p, -r * crate::curves::year_time(t, p))
+        })
+        .collect();
+    [DiscountCurve::flat(t, 0.02), DiscountCurve::from_log_discount_factors(t, &pillars).unwrap()]
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -733,14 +733,7 @@ pub mod quoted_spread {
         fn legs_on_the_grid_built_once_are_price_legs() {
             let t = NaiveDate::from_ymd_opt(2024, 3, 20).unwrap();
             let cal = Calendar::weekends_only();
-            let pillars: Vec<(NaiveDate, f64)> = [(90, 0.031), (400, 0.034), (1900, 0.038), (4000, 0.041)]
-                .iter()
-                .map(|&(d, r)| {
-                    let p = t + chrono::Days::new(d);
-                    (p, -r * crate::curves::year_time(t, p))
-                })
-                .collect();
-            let curves = [DiscountCurve::flat(t, 0.02), DiscountCurve::from_log_discount_factors(t, &pillars).unwrap()];
+            let curves = crate::curves::discount::test_curves(t);
             let mut contracts: Vec<CdsContract> = [6, 12, 36, 60, 120]
                 .iter()
                 .map(|&m| CdsContract::standard(t, Tenor::from_months(m).unwrap(), &cal).unwrap())
