@@ -725,6 +725,9 @@ pub fn calibrate_blocks(
         }
     }
 
+    // The day's discount curve by the panel's currency id (no name built per curve to find it).
+    let by_ccy_id: FastMap<(NaiveDate, u32), &DiscountCurve> =
+        curves.iter().filter_map(|((date, ccy), c)| panel.currencies.get(ccy).map(|id| ((*date, id), c))).collect();
     // Curves are consecutive runs of (date, entity, currency, tier) in the panel's sorted rows.
     let mut jobs: Vec<(usize, usize)> = Vec::new();
     let rows = &all_rows;
@@ -770,7 +773,7 @@ pub fn calibrate_blocks(
             .par_iter()
             .map(|&(a, b, reference)| {
                 let h = &rows_of(a, b)[0];
-                let o = match curves.get(&(h.date, panel.currencies.name(h.currency).to_string())) {
+                let o = match by_ccy_id.get(&(h.date, h.currency)).copied() {
                     Some(curve) => {
                         let key = plan_key(rows_of(a, b));
                         calibrate_one(
