@@ -506,13 +506,14 @@ pub(crate) fn price_legs_on_plan(plan: &LegPlan, recoveries: &[f64], hazard: &Ha
         .collect()
 }
 
-/// The protection term of the interval (i0, i1) and the premium and accrual-on-default terms of
-/// coupon `c`, as [`evaluate_terms`] computes them on `f64`.
+/// The protection term of the interval (i0, i1), as [`evaluate_terms`] computes it on `f64`.
 #[inline]
 fn window_term(plan: &LegPlan, i0: usize, i1: usize, pq: &[f64], log_q: &[f64]) -> f64 {
     protection_term(pq[i0], pq[i1], plan.log_dfs[i0] - plan.log_dfs[i1], log_q[i0] - log_q[i1])
 }
 
+/// The premium and accrual-on-default terms of coupon `c`, as [`evaluate_terms`] adds them on
+/// `f64`.
 #[inline]
 fn coupon_terms(plan: &LegPlan, c: &CouponTerm, pq: &[f64], log_q: &[f64]) -> (f64, f64) {
     let prem = pq[c.q_idx as usize] * (c.accrual * c.pay_df_ratio);
@@ -608,9 +609,7 @@ pub fn price_legs(
         return Err(ReferenceDateMismatch { trade, discount: discount.reference(), hazard: hazard.reference() });
     }
     let plan = LegPlan::build(trade, &[contract], discount, hazard.node_times(), mode);
-    let log_q: Vec<f64> = plan.times.iter().map(|&t| hazard.log_survival_at(t)).collect();
-    let pq: Vec<f64> = plan.log_dfs.iter().zip(&log_q).map(|(p, q)| (p + q).exp()).collect();
-    Ok(terms_legs(&plan, &plan.contracts[0], recovery, &pq, &log_q))
+    Ok(price_legs_on_plan(&plan, &[recovery], hazard)[0])
 }
 
 /// The quoted-spread convention: a quote given as a spread `s` stands for the flat hazard at
@@ -619,7 +618,7 @@ pub fn price_legs(
 /// values published with QuantLib's test suite, testIsdaEngine, are upfronts converted this
 /// way; tests/all/reference_quantlib.rs reproduces them).
 pub mod quoted_spread {
-    use super::{terms_legs, AccrualIntegration, CdsContract, CdsLegs, LegPlan};
+    use super::{price_legs_on_plan, AccrualIntegration, CdsContract, CdsLegs, LegPlan};
     use crate::curves::{DiscountCurve, HazardCurve};
 
     /// The flat hazard at which `value(h)` reaches `target` (value rising in h), bisected on
@@ -670,10 +669,7 @@ pub mod quoted_spread {
         }
 
         fn at(&self, h: f64) -> CdsLegs {
-            let hazard = HazardCurve::flat(self.trade, h);
-            let log_q = hazard.log_survival_at_sorted(&self.plan.times);
-            let pq: Vec<f64> = self.plan.log_dfs.iter().zip(&log_q).map(|(p, q)| (p + q).exp()).collect();
-            terms_legs(&self.plan, &self.plan.contracts[0], self.recovery, &pq, &log_q)
+            price_legs_on_plan(&self.plan, &[self.recovery], &HazardCurve::flat(self.trade, h))[0]
         }
     }
 
