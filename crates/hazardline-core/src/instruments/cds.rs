@@ -498,7 +498,8 @@ pub fn price_legs_set(
 /// shared plan reprices the curves it built without building the grid again).
 pub(crate) fn price_legs_on_plan(plan: &LegPlan, recoveries: &[f64], hazard: &HazardCurve) -> Vec<CdsLegs> {
     let log_q: Vec<f64> = hazard.log_survival_at_sorted(&plan.times);
-    let pq: Vec<f64> = plan.log_dfs.iter().zip(&log_q).map(|(p, q)| (p + q).exp()).collect();
+    let mut pq: Vec<f64> = plan.log_dfs.iter().zip(&log_q).map(|(p, q)| p + q).collect();
+    crate::math::exp::exp_in_place(&mut pq);
     plan.contracts
         .iter()
         .zip(recoveries)

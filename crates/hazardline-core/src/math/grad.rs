@@ -36,7 +36,7 @@ impl Scalar for Grad4 {
     }
     #[inline]
     fn exp(self) -> Grad4 {
-        let e = self.v.exp();
+        let e = super::exp::exp(self.v);
         self.chain(e, e)
     }
 }
