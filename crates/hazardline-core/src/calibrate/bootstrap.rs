@@ -650,16 +650,17 @@ fn solve_nodes(
             Some(lam) => {
                 let t_k = node_times[k];
                 let from = plan.times.partition_point(|&t| t <= t_prev);
+                let mut to = from;
                 for j in from..np {
                     let t = plan.times[j];
                     if t > t_k {
                         break;
                     }
-                    {
-                        log_q[j] = l_prev - lam * (t - t_prev);
-                        pq[j] = exp(log_q[j] + plan.log_dfs[j]);
-                    }
+                    log_q[j] = l_prev - lam * (t - t_prev);
+                    pq[j] = log_q[j] + plan.log_dfs[j];
+                    to = j + 1;
                 }
+                exp_in_place(&mut pq[from..to]);
                 fit.hazard = Some(lam);
                 fit.survival = Some(exp(l_prev - lam * (terms.t_maturity - t_prev)));
                 hazards.push(lam);
