@@ -3,15 +3,16 @@
 //!
 //! The bootstrap, the quote conversions and the repricing spend a large part of their time in
 //! `exp`, one call per grid point and Newton step. The platform's `exp` is a library call
-//! behind a wrapper; on x86-64 with glibc 2.28 or later and a CPU with FMA and AVX2, glibc
-//! runs its FMA variant of the table-driven method of ARM's optimized-routines (128-entry
-//! table, degree-5 polynomial, published under the MIT licence). This module carries out the
-//! same operations in the same order, with the same fused multiply-adds, the same constants
-//! and the same table (regenerated from its definition by `scripts/gen-exp-table.py`), so on
-//! such a CPU it returns the same bits as glibc's `exp` for every argument, without the call
-//! through the wrapper: a slice's loop runs the method inline (about 2 to 3 ns a value on the
-//! development machine against 5 ns for the library call; a four-lane AVX2 version with
-//! table gathers measured no faster on the bootstrap's short slices and was left out).
+//! behind a wrapper; on x86-64 with a CPU with FMA and AVX2, glibc (from 2.28, recalled from
+//! memory; read here from the disassembly of glibc 2.36's libm) runs its FMA variant of the
+//! table-driven method of ARM's open-source optimized-routines (128-entry table, degree-5
+//! polynomial). This module carries out the same operations in the same order, with the same
+//! fused multiply-adds, the same constants and the same table (regenerated from its
+//! definition by `scripts/gen-exp-table.py`), so on such a CPU it returns glibc's bits (120
+//! million arguments compared once, two million in the tests) without the call through the
+//! wrapper: a slice's loop runs the method inline (about 2 to 3 ns a value on the development
+//! machine against 5 ns for the library call; a four-lane AVX2 version with table gathers
+//! measured slower on the bootstrap's short slices and was left out).
 //!
 //! Where the CPU lacks FMA or AVX2, or off x86-64, both functions call `f64::exp`: the numbers
 //! are then the platform's, as before. Arguments outside the fast range (|x| below 2^-54 or at
