@@ -21,32 +21,27 @@
 //! The tests compare with `f64::exp` bit for bit on millions of arguments when the platform's
 //! `exp` is glibc's FMA variant, and within one unit in the last place everywhere.
 
+/// The method's constants and table (the bits of the doubles).
 #[cfg(target_arch = "x86_64")]
 mod table {
     include!("exp_table.rs");
-}
 
-/// N / ln 2, N = 128.
+    /// N / ln 2, N = 128.
+    pub(super) const INV_LN2_N: u64 = 0x4067_1547_652b_82fe;
+    /// -ln 2 / N, high part (its low bits zero, so that `k ln2hi / N` is exact).
+    pub(super) const NEG_LN2_HI_N: u64 = 0xbf76_2e42_fefa_0000;
+    /// -ln 2 / N, low part.
+    pub(super) const NEG_LN2_LO_N: u64 = 0xbd0c_f79a_bc9e_3b3a;
+    /// The polynomial's coefficients of r^2 .. r^5.
+    pub(super) const C2: u64 = 0x3fdf_ffff_ffff_fdbd;
+    pub(super) const C3: u64 = 0x3fc5_5555_5555_543c;
+    pub(super) const C4: u64 = 0x3fa5_5555_cf17_2b91;
+    pub(super) const C5: u64 = 0x3f81_1111_67a4_d017;
+    /// 1.5 * 2^52: adding it rounds to an integer, kept in the low bits.
+    pub(super) const SHIFT: u64 = 0x4338_0000_0000_0000;
+}
 #[cfg(target_arch = "x86_64")]
-const INV_LN2_N: u64 = 0x4067_1547_652b_82fe;
-/// -ln 2 / N, high part (its low bits zero, so that `k ln2hi / N` is exact).
-#[cfg(target_arch = "x86_64")]
-const NEG_LN2_HI_N: u64 = 0xbf76_2e42_fefa_0000;
-/// -ln 2 / N, low part.
-#[cfg(target_arch = "x86_64")]
-const NEG_LN2_LO_N: u64 = 0xbd0c_f79a_bc9e_3b3a;
-/// The polynomial's coefficients of r^2 .. r^5.
-#[cfg(target_arch = "x86_64")]
-const C2: u64 = 0x3fdf_ffff_ffff_fdbd;
-#[cfg(target_arch = "x86_64")]
-const C3: u64 = 0x3fc5_5555_5555_543c;
-#[cfg(target_arch = "x86_64")]
-const C4: u64 = 0x3fa5_5555_cf17_2b91;
-#[cfg(target_arch = "x86_64")]
-const C5: u64 = 0x3f81_1111_67a4_d017;
-/// 1.5 * 2^52: adding it rounds to an integer, kept in the low bits.
-#[cfg(target_arch = "x86_64")]
-const SHIFT: u64 = 0x4338_0000_0000_0000;
+use table::{C2, C3, C4, C5, INV_LN2_N, NEG_LN2_HI_N, NEG_LN2_LO_N, SHIFT};
 
 /// Whether the fast path runs on this CPU: the same condition under which glibc picks its FMA
 /// variant of `exp` (FMA and AVX2 usable).
