@@ -331,34 +331,48 @@ fn fit_name(
             }
         }
         CirFitMode::FixedKappaSigma => {
-            for block in days.chunks(s.cir_window.max(1)) {
-                if !block.iter().any(|(d, _, _)| range.contains(*d)) {
-                    continue;
-                }
-                let window: Vec<CirWindowDay> = block
-                    .iter()
-                    .map(|(d, c, disc)| CirWindowDay {
-                        trade_date: *d,
-                        quotes: &c.quotes,
-                        discount: disc,
-                        start: c.curve.as_ref().map(start_from_curve),
-                    })
-                    .collect();
-                match fit_cir_window(&window, p.cds_calendar(currency), &settings) {
-                    Ok(w) => {
-                        for ((d, _, _), r) in block.iter().zip(&w.days).filter(|((d, _, _), _)| range.contains(*d)) {
-                            if let Ok(f) = r {
-                                residuals.extend(cir_residuals(*d, entity, currency, f));
+            // The windows are fitted independently of one another: side by side on rayon's
+            // threads, their rows put back in window order (the same rows as one after the
+            // other; the fits of a few names then spread over every core).
+            let blocks: Vec<&[(NaiveDate, &super::calibrate::CdsCurve, &crate::curves::DiscountCurve)]> = days
+                .chunks(s.cir_window.max(1))
+                .filter(|block| block.iter().any(|(d, _, _)| range.contains(*d)))
+                .collect();
+            let fitted: Vec<(Vec<IntensityParamRow>, Vec<ResidualRow>)> = blocks
+                .par_iter()
+                .map(|block| {
+                    let (mut params, mut residuals) = (Vec::new(), Vec::new());
+                    let window: Vec<CirWindowDay> = block
+                        .iter()
+                        .map(|(d, c, disc)| CirWindowDay {
+                            trade_date: *d,
+                            quotes: &c.quotes,
+                            discount: disc,
+                            start: c.curve.as_ref().map(start_from_curve),
+                        })
+                        .collect();
+                    match fit_cir_window(&window, p.cds_calendar(currency), &settings) {
+                        Ok(w) => {
+                            for ((d, _, _), r) in block.iter().zip(&w.days).filter(|((d, _, _), _)| range.contains(*d))
+                            {
+                                if let Ok(f) = r {
+                                    residuals.extend(cir_residuals(*d, entity, currency, f));
+                                }
+                                params.push(param_row(*d, entity, currency, s.cir_mode, r, Some(&w)));
                             }
-                            params.push(param_row(*d, entity, currency, s.cir_mode, r, Some(&w)));
+                        }
+                        Err(e) => {
+                            for (d, _, _) in block.iter().filter(|(d, _, _)| range.contains(*d)) {
+                                params.push(param_row(*d, entity, currency, s.cir_mode, &Err(e.clone()), None));
+                            }
                         }
                     }
-                    Err(e) => {
-                        for (d, _, _) in block.iter().filter(|(d, _, _)| range.contains(*d)) {
-                            params.push(param_row(*d, entity, currency, s.cir_mode, &Err(e.clone()), None));
-                        }
-                    }
-                }
+                    (params, residuals)
+                })
+                .collect();
+            for (p, r) in fitted {
+                params.extend(p);
+                residuals.extend(r);
             }
         }
     }
