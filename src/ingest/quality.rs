@@ -196,15 +196,11 @@ fn series_order(panel: &CdsPanel, rows: &[CdsQuoteRow]) -> Vec<u32> {
         rest = tail;
     }
     buckets.into_par_iter().for_each_init(Vec::new, |keys: &mut Vec<(u64, u32)>, bucket| {
-        // The key below the entity's field, in the same fields as `series_key`; the index
-        // breaks ties in (file, row) order, which is index order here.
+        // `series_key`'s fields below the entity and above the file (currency, tier, tenor,
+        // day: 50 bits); the index breaks ties in (file, row) order, which is index order here.
         keys.clear();
         keys.extend(bucket.iter().map(|&i| {
-            let (r, day) = (&rows[i as usize], days[i as usize]);
-            let k = ((r.currency as u64 & 0x3FF) << 40)
-                | ((r.tier as u64 & 0x3FF) << 30)
-                | ((r.tenor.months() as u64 & 0x3FF) << 20)
-                | (day as u64 & 0xF_FFFF);
+            let k = (series_key(&rows[i as usize], days[i as usize]) >> 50) as u64 & ((1 << 50) - 1);
             (k, i)
         }));
         keys.sort_unstable();

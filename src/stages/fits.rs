@@ -370,9 +370,9 @@ fn fit_name(
                     (params, residuals)
                 })
                 .collect();
-            for (p, r) in fitted {
-                params.extend(p);
-                residuals.extend(r);
+            for (window_params, window_residuals) in fitted {
+                params.extend(window_params);
+                residuals.extend(window_residuals);
             }
         }
     }

@@ -556,7 +556,7 @@ fn solve_nodes(
             dual_pq[j] = Dual::constant(pq[j]);
         }
         // P Q at the moving points: the arguments first, then their exponentials as one slice
-        // (the same values as `(lq + ln P).exp()` point by point, the slice four at a time).
+        // (the same values as `(lq + ln P).exp()` point by point, without a call per point).
         let objective = |lambda: f64, dl: &mut [Dual], dpq: &mut [Dual], args: &mut Vec<f64>| -> (f64, f64) {
             args.clear();
             for j in moving_from..=last_point {

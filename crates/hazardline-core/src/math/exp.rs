@@ -88,6 +88,7 @@ fn exp_core(x: f64) -> f64 {
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "fma,avx2")]
+#[inline]
 unsafe fn exp_fma(x: f64) -> f64 {
     if in_range(x.to_bits()) {
         exp_core(x)
@@ -100,7 +101,7 @@ unsafe fn exp_fma(x: f64) -> f64 {
 #[target_feature(enable = "fma,avx2")]
 unsafe fn exp_slice_fma(xs: &mut [f64]) {
     for v in xs.iter_mut() {
-        *v = if in_range(v.to_bits()) { exp_core(*v) } else { v.exp() };
+        *v = exp_fma(*v);
     }
 }
 
