@@ -1,5 +1,6 @@
 //! Median time of one 8-tenor standard-contract bootstrap out to 10Y on one core
-//! (schedules, grid, and eight Newton roots included).
+//! (schedules, grid, and eight Newton roots included), and of the quote conversions' flat
+//! solve of one upfront quote.
 //!
 //! Run: `cargo bench --bench bootstrap`.
 
@@ -65,6 +66,17 @@ fn bench(c: &mut Criterion) {
     c.bench_function("plan for 8 tenors to 10Y", |b| {
         b.iter(|| BootstrapPlan::new(black_box(trade), &tenors, &disc, &cal, settings.accrual).unwrap())
     });
+    // The quote conversions: an upfront quote's flat par spread (a one-segment bootstrap on the
+    // contract's whole grid, then its legs), on the plan of its one term.
+    for (tenor, upfront) in [("5Y", 0.0215), ("10Y", 0.0548)] {
+        let tenor: Tenor = tenor.parse().unwrap();
+        let plan = BootstrapPlan::for_terms(trade, &[(tenor, None)], &disc, &cal, settings.accrual).unwrap();
+        let quote =
+            BootstrapQuote { tenor, quote: CdsQuote::Upfront { upfront, coupon: 0.01 }, recovery: 0.4, maturity: None };
+        c.bench_function(&format!("flat par spread of a {tenor} upfront quote, shared plan"), |b| {
+            b.iter(|| plan.flat_par_spread(black_box(&quote), &settings).unwrap())
+        });
+    }
 }
 
 criterion_group!(benches, bench);

@@ -14,8 +14,9 @@
 
 use crate::curves::{year_time, DiscountCurve, HazardCurve};
 use crate::instruments::cds::{
-    evaluate_terms, terms_legs, AccrualIntegration, CdsContract, CdsQuote, LegPlan, RunningSums,
+    evaluate_terms, terms_legs, AccrualIntegration, CdsContract, CdsQuote, ContractTerms, LegPlan, RunningSums,
 };
+use crate::instruments::term_lanes::TermLayout;
 use crate::math::exp::{exp, exp_in_place};
 use crate::math::{newton_bracketed, Dual, RootError, Scalar};
 use crate::time::imm::MaturityError;
@@ -230,6 +231,22 @@ pub struct BootstrapPlan {
     /// fixed by solved segments from running sums over the longest contract, instead of
     /// summing it again for every node.
     shares_prefix: Vec<bool>,
+    /// Per node, the intervals its Newton steps evaluate (those after the previous node).
+    moving: Vec<TermLayout>,
+}
+
+/// Where contract `terms` splits at `t_prev` into the part fixed by solved segments and the
+/// part on the new segment: the protection node the new part starts from, and the first paid
+/// coupon whose survival point is after `t_prev`.
+fn split_at(plan: &LegPlan, terms: &ContractTerms, t_prev: f64) -> (usize, usize) {
+    let prot_from =
+        terms.prot.windows(2).position(|w| plan.times[w[1] as usize] > t_prev).unwrap_or(terms.prot.len() - 1);
+    let coupon_from = terms
+        .coupons
+        .iter()
+        .position(|c| c.paid && plan.times[c.q_idx as usize] > t_prev)
+        .unwrap_or(terms.coupons.len());
+    (prot_from, coupon_from)
 }
 
 impl BootstrapPlan {
@@ -304,6 +321,16 @@ impl BootstrapPlan {
                     })
             })
             .collect();
+        // Node k is solved after node k - 1 (a failed node stops the curve), so its segment
+        // starts at node k - 1's time, and what its Newton steps evaluate is known now.
+        let moving = (0..plan.contracts.len())
+            .map(|k| {
+                let terms = &plan.contracts[k];
+                let t_prev = if k == 0 { 0.0 } else { node_times[k - 1] };
+                let (prot_from, coupon_from) = split_at(&plan, terms, t_prev);
+                TermLayout::new(&plan, &terms.prot[prot_from..], &terms.coupons[coupon_from..])
+            })
+            .collect();
         Ok(BootstrapPlan {
             trade,
             tenors: tenors.to_vec(),
@@ -315,6 +342,7 @@ impl BootstrapPlan {
             plan,
             accrual,
             shares_prefix,
+            moving,
         })
     }
 
@@ -407,6 +435,8 @@ struct Scratch {
     args: Vec<f64>,
     /// The longest contract's terms summed over the solved segments.
     sums: RunningSums,
+    /// The accrual-on-default terms of one Newton step.
+    aod_terms: Vec<Dual>,
     nodes: Vec<NodeFit>,
     hazards: Vec<f64>,
 }
@@ -468,7 +498,7 @@ fn solve_nodes(
     let node_dates = &bp.node_dates;
     let node_times = &bp.node_times;
     let np = plan.times.len();
-    let Scratch { log_q, pq, dual_lq, dual_pq, args, sums, .. } = scratch;
+    let Scratch { log_q, pq, dual_lq, dual_pq, args, sums, aod_terms, .. } = scratch;
     log_q.clear();
     log_q.resize(np, 0.0);
     pq.clear();
@@ -508,14 +538,8 @@ fn solve_nodes(
             continue;
         }
         let terms = &plan.contracts[k];
-        // Split into the part fixed by earlier segments and the part on the new segment.
-        let prot_from =
-            terms.prot.windows(2).position(|w| plan.times[w[1] as usize] > t_prev).unwrap_or(terms.prot.len() - 1);
-        let coupon_from = terms
-            .coupons
-            .iter()
-            .position(|c| c.paid && plan.times[c.q_idx as usize] > t_prev)
-            .unwrap_or(terms.coupons.len());
+        debug_assert_eq!(t_prev, if k == 0 { 0.0 } else { node_times[k - 1] }, "the layout's cut");
+        let (prot_from, coupon_from) = split_at(plan, terms, t_prev);
         // The part fixed by solved segments: running sums over the longest contract's terms
         // when this contract shares its prefix (same numbers, summed in the same order), else
         // summed here.
@@ -557,7 +581,13 @@ fn solve_nodes(
         }
         // P Q at the moving points: the arguments first, then their exponentials as one slice
         // (the same values as `(lq + ln P).exp()` point by point, without a call per point).
-        let objective = |lambda: f64, dl: &mut [Dual], dpq: &mut [Dual], args: &mut Vec<f64>| -> (f64, f64) {
+        let lanes = &bp.moving[k];
+        let objective = |lambda: f64,
+                         dl: &mut [Dual],
+                         dpq: &mut [Dual],
+                         args: &mut Vec<f64>,
+                         aod_terms: &mut Vec<Dual>|
+         -> (f64, f64) {
             args.clear();
             for j in moving_from..=last_point {
                 let u = times[j] - t_prev;
@@ -569,7 +599,7 @@ fn solve_nodes(
             for (j, &e) in (moving_from..=last_point).zip(args.iter()) {
                 dpq[j] = Dual::new(e, e * dl[j].d);
             }
-            let (p, m, a) = evaluate_terms(plan, var_prot, var_coupons, dpq, dl);
+            let (p, m, a) = lanes.evaluate(dpq, dl, aod_terms);
             let prot = (p + fp) * one_minus_r;
             let ann = m + a + (fm + fa - rebate_pv);
             let f = match quote {
@@ -593,7 +623,7 @@ fn solve_nodes(
         prev_spread = Some((spread, t_mat));
         let guess = (if forward > 0.0 { forward } else { spread } / one_minus_r).clamp(1e-6, settings.max_hazard * 0.5);
         let solved = newton_bracketed(
-            |x| objective(x, dual_lq, dual_pq, args),
+            |x| objective(x, dual_lq, dual_pq, args, aod_terms),
             guess,
             0.0,
             settings.max_hazard,

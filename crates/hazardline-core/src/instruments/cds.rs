@@ -399,8 +399,14 @@ pub(crate) fn protection_term<S: Scalar>(a0: S, a1: S, f: f64, h: S) -> S {
 /// The accrual-on-default term of one interval (per unit coupon, before the 365/360 factor).
 #[inline]
 pub(crate) fn accrual_term<S: Scalar>(a0: S, a1: S, f: f64, h: S, t0: f64, t1: f64, t_s: f64) -> S {
+    accrual_term_spans(a0, a1, f, h, t1 - t0, t0 - t_s)
+}
+
+/// [`accrual_term`] with the interval's length `dt` = t1 - t0 and its lead `lead` = t0 - t_s
+/// already formed.
+#[inline]
+pub(crate) fn accrual_term_spans<S: Scalar>(a0: S, a1: S, f: f64, h: S, dt: f64, lead: f64) -> S {
     let x = h + f;
-    let (dt, lead) = (t1 - t0, t0 - t_s);
     if x.value() < SERIES_THRESHOLD {
         let s1 = (((x * (-1.0 / 24.0)) + 1.0 / 6.0) * x - 0.5) * x + 1.0;
         let s2 = (((x * (-1.0 / 30.0)) + 1.0 / 8.0) * x - 1.0 / 3.0) * x + 0.5;
@@ -452,9 +458,12 @@ pub(crate) fn evaluate_terms<S: Scalar>(
 
 impl CouponTerm {
     /// 365/360 turns the Act/365F time integral into Act/360 accrual.
+    pub(crate) const ACCRUAL_FACTOR: f64 = 365.0 / 360.0;
+
+    /// [`CouponTerm::ACCRUAL_FACTOR`].
     #[inline]
     pub(crate) fn accrual_factor(&self) -> f64 {
-        365.0 / 360.0
+        Self::ACCRUAL_FACTOR
     }
 }
 

@@ -2,5 +2,6 @@
 
 pub mod bond;
 pub mod cds;
+pub(crate) mod term_lanes;
 
 pub use cds::{AccrualIntegration, CdsContract, CdsLegs, CdsQuote};

@@ -35,8 +35,10 @@ impl Scalar for f64 {
     }
 }
 
-/// A value and its derivative with respect to one variable.
+/// A value and its derivative with respect to one variable. Laid out as two consecutive
+/// f64, value first (`repr(C)`), so that a vector load reads both.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[repr(C)]
 pub struct Dual {
     pub v: f64,
     pub d: f64,
