@@ -16,7 +16,7 @@ use crate::curves::{year_time, DiscountCurve, HazardCurve};
 use crate::instruments::cds::{
     evaluate_terms, terms_legs, AccrualIntegration, CdsContract, CdsQuote, ContractTerms, LegPlan, RunningSums,
 };
-use crate::instruments::term_lanes::TermLayout;
+use crate::instruments::term_lanes::{segment_points, TermLayout};
 use crate::math::exp::{exp, exp_in_place};
 use crate::math::{newton_bracketed, Dual, RootError, Scalar};
 use crate::time::imm::MaturityError;
@@ -231,22 +231,62 @@ pub struct BootstrapPlan {
     /// fixed by solved segments from running sums over the longest contract, instead of
     /// summing it again for every node.
     shares_prefix: Vec<bool>,
-    /// Per node, the intervals its Newton steps evaluate (those after the previous node).
-    moving: Vec<TermLayout>,
+    /// Per node, where its contract and the grid split at the previous node's time.
+    cuts: Vec<NodeCut>,
 }
 
-/// Where contract `terms` splits at `t_prev` into the part fixed by solved segments and the
-/// part on the new segment: the protection node the new part starts from, and the first paid
-/// coupon whose survival point is after `t_prev`.
-fn split_at(plan: &LegPlan, terms: &ContractTerms, t_prev: f64) -> (usize, usize) {
-    let prot_from =
-        terms.prot.windows(2).position(|w| plan.times[w[1] as usize] > t_prev).unwrap_or(terms.prot.len() - 1);
-    let coupon_from = terms
-        .coupons
-        .iter()
-        .position(|c| c.paid && plan.times[c.q_idx as usize] > t_prev)
-        .unwrap_or(terms.coupons.len());
-    (prot_from, coupon_from)
+/// Where node k's contract and the grid split at the previous node's time `t_prev` (0 for the
+/// first node): node k is solved right after node k - 1 (a failed node stops the curve), so
+/// all of this is known when the plan is built.
+#[derive(Debug, Clone)]
+struct NodeCut {
+    /// The protection node the part on the new segment starts from, and the first paid coupon
+    /// whose survival point is after `t_prev`.
+    prot_from: usize,
+    coupon_from: usize,
+    /// The grid points the new part's terms read, and the first of them after `t_prev`.
+    first_point: usize,
+    last_point: usize,
+    moving_from: usize,
+    /// The grid points on the segment, in (t_prev, t_k].
+    segment: std::ops::Range<usize>,
+    /// The new part's intervals laid out for the Newton steps.
+    layout: TermLayout,
+}
+
+impl NodeCut {
+    fn new(plan: &LegPlan, terms: &ContractTerms, t_prev: f64, t_k: f64) -> NodeCut {
+        let prot_from =
+            terms.prot.windows(2).position(|w| plan.times[w[1] as usize] > t_prev).unwrap_or(terms.prot.len() - 1);
+        let coupon_from = terms
+            .coupons
+            .iter()
+            .position(|c| c.paid && plan.times[c.q_idx as usize] > t_prev)
+            .unwrap_or(terms.coupons.len());
+        let var_prot = &terms.prot[prot_from..];
+        let var_coupons = &terms.coupons[coupon_from..];
+        let first_point = var_coupons
+            .iter()
+            .filter(|c| c.paid)
+            .map(|c| plan.aod_path.get(c.aod_from as usize).copied().unwrap_or(c.q_idx).min(c.q_idx))
+            .chain(std::iter::once(var_prot[0]))
+            .min()
+            .unwrap_or(0) as usize;
+        let last_point =
+            var_coupons.iter().filter(|c| c.paid).map(|c| c.q_idx).chain(var_prot.iter().copied()).max().unwrap_or(0)
+                as usize;
+        let after_prev = plan.times.partition_point(|&t| t <= t_prev);
+        let to = plan.times.partition_point(|&t| t <= t_k).max(after_prev);
+        NodeCut {
+            prot_from,
+            coupon_from,
+            first_point,
+            last_point,
+            moving_from: first_point.max(after_prev),
+            segment: after_prev..to,
+            layout: TermLayout::new(plan, var_prot, var_coupons),
+        }
+    }
 }
 
 impl BootstrapPlan {
@@ -321,14 +361,10 @@ impl BootstrapPlan {
                     })
             })
             .collect();
-        // Node k is solved after node k - 1 (a failed node stops the curve), so its segment
-        // starts at node k - 1's time, and what its Newton steps evaluate is known now.
-        let moving = (0..plan.contracts.len())
+        let cuts = (0..plan.contracts.len())
             .map(|k| {
-                let terms = &plan.contracts[k];
                 let t_prev = if k == 0 { 0.0 } else { node_times[k - 1] };
-                let (prot_from, coupon_from) = split_at(&plan, terms, t_prev);
-                TermLayout::new(&plan, &terms.prot[prot_from..], &terms.coupons[coupon_from..])
+                NodeCut::new(&plan, &plan.contracts[k], t_prev, node_times[k])
             })
             .collect();
         Ok(BootstrapPlan {
@@ -342,7 +378,7 @@ impl BootstrapPlan {
             plan,
             accrual,
             shares_prefix,
-            moving,
+            cuts,
         })
     }
 
@@ -538,8 +574,9 @@ fn solve_nodes(
             continue;
         }
         let terms = &plan.contracts[k];
-        debug_assert_eq!(t_prev, if k == 0 { 0.0 } else { node_times[k - 1] }, "the layout's cut");
-        let (prot_from, coupon_from) = split_at(plan, terms, t_prev);
+        debug_assert_eq!(t_prev, if k == 0 { 0.0 } else { node_times[k - 1] }, "the node's cut");
+        let cut = &bp.cuts[k];
+        let (prot_from, coupon_from) = (cut.prot_from, cut.coupon_from);
         // The part fixed by solved segments: running sums over the longest contract's terms
         // when this contract shares its prefix (same numbers, summed in the same order), else
         // summed here.
@@ -552,18 +589,7 @@ fn solve_nodes(
         } else {
             evaluate_terms(plan, &terms.prot[..=prot_from], &terms.coupons[..coupon_from], pq, log_q)
         };
-        let var_prot = &terms.prot[prot_from..];
-        let var_coupons = &terms.coupons[coupon_from..];
-        let first_point = var_coupons
-            .iter()
-            .filter(|c| c.paid)
-            .map(|c| plan.aod_path.get(c.aod_from as usize).copied().unwrap_or(c.q_idx).min(c.q_idx))
-            .chain(std::iter::once(var_prot[0]))
-            .min()
-            .unwrap_or(0) as usize;
-        let last_point =
-            var_coupons.iter().filter(|c| c.paid).map(|c| c.q_idx).chain(var_prot.iter().copied()).max().unwrap_or(0)
-                as usize;
+        let (first_point, last_point) = (cut.first_point, cut.last_point);
 
         let one_minus_r = 1.0 - q.recovery;
         let rebate_pv = terms.rebate01 * terms.cash_settle_df;
@@ -574,31 +600,22 @@ fn solve_nodes(
         // Points at or before t_prev are fixed by the solved segments: their ln Q and P Q are
         // the ones already computed (the same operations, so the same bits), set once here
         // rather than at every Newton step.
-        let moving_from = first_point.max(times.partition_point(|&t| t <= t_prev));
+        let moving_from = cut.moving_from;
         for j in first_point..moving_from.min(last_point + 1) {
             dual_lq[j] = Dual::constant(log_q[j]);
             dual_pq[j] = Dual::constant(pq[j]);
         }
         // P Q at the moving points: the arguments first, then their exponentials as one slice
         // (the same values as `(lq + ln P).exp()` point by point, without a call per point).
-        let lanes = &bp.moving[k];
+        let lanes = &cut.layout;
         let objective = |lambda: f64,
                          dl: &mut [Dual],
                          dpq: &mut [Dual],
                          args: &mut Vec<f64>,
                          aod_terms: &mut Vec<Dual>|
          -> (f64, f64) {
-            args.clear();
-            for j in moving_from..=last_point {
-                let u = times[j] - t_prev;
-                let lq = Dual::new(l_prev - lambda * u, -u);
-                dl[j] = lq;
-                args.push(lq.v + log_dfs[j]);
-            }
-            exp_in_place(args);
-            for (j, &e) in (moving_from..=last_point).zip(args.iter()) {
-                dpq[j] = Dual::new(e, e * dl[j].d);
-            }
+            let points = moving_from..(last_point + 1).max(moving_from);
+            segment_points(times, log_dfs, points, (t_prev, l_prev, lambda), dl, dpq, args);
             let (p, m, a) = lanes.evaluate(dpq, dl, aod_terms);
             let prot = (p + fp) * one_minus_r;
             let ann = m + a + (fm + fa - rebate_pv);
@@ -679,18 +696,12 @@ fn solve_nodes(
         match lambda {
             Some(lam) => {
                 let t_k = node_times[k];
-                let from = plan.times.partition_point(|&t| t <= t_prev);
-                let mut to = from;
-                for j in from..np {
-                    let t = plan.times[j];
-                    if t > t_k {
-                        break;
-                    }
-                    log_q[j] = l_prev - lam * (t - t_prev);
+                let segment = cut.segment.clone();
+                for j in segment.clone() {
+                    log_q[j] = l_prev - lam * (plan.times[j] - t_prev);
                     pq[j] = log_q[j] + plan.log_dfs[j];
-                    to = j + 1;
                 }
-                exp_in_place(&mut pq[from..to]);
+                exp_in_place(&mut pq[segment]);
                 fit.hazard = Some(lam);
                 fit.survival = Some(exp(l_prev - lam * (terms.t_maturity - t_prev)));
                 hazards.push(lam);
