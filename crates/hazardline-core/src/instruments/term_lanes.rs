@@ -27,24 +27,24 @@ use crate::math::{Dual, Scalar};
 /// paid coupons from their cut on, as `evaluate_terms` walks them.
 #[derive(Debug, Clone, Default)]
 pub(crate) struct TermLayout {
-    /// Protection intervals: the two points of each and ln P(t0) - ln P(t1).
-    prot_i: Vec<[u32; 2]>,
-    prot_f: Vec<f64>,
-    /// Accrual-on-default intervals of every paid coupon, coupon after coupon, path order,
-    /// with ln P(t0) - ln P(t1), t1 - t0 and t0 - t_s.
-    aod_i: Vec<[u32; 2]>,
-    aod_f: Vec<f64>,
-    aod_dt: Vec<f64>,
-    aod_lead: Vec<f64>,
+    /// The intervals' two points: the protection intervals, then the accrual-on-default
+    /// intervals of every paid coupon (coupon after coupon, path order), each part padded to a
+    /// multiple of four with points 0 and 0 (lanes computed and never added).
+    points: Vec<[u32; 2]>,
+    /// ln P(t0) - ln P(t1) of the protection intervals; then of the accrual intervals, their
+    /// t1 - t0 and their t0 - t_s; each part padded like `points` with zeros.
+    consts: Vec<f64>,
     /// Per paid coupon: its survival point, accrual x P(pay)/P(pay - 1 day), and where its
-    /// intervals end in the `aod_` lists.
-    coupon_q: Vec<u32>,
-    coupon_m: Vec<f64>,
-    coupon_end: Vec<u32>,
-    /// The numbers of protection and accrual intervals; the lists above are padded past them
-    /// to a multiple of four (points 0 and 0, constants 0: lanes computed and never added).
+    /// intervals end among the accrual intervals.
+    coupons: Vec<(u32, f64, u32)>,
+    /// The numbers of protection and accrual intervals (before the padding).
     n_prot: usize,
     n_aod: usize,
+}
+
+/// `n` rounded up to a multiple of four.
+fn padded(n: usize) -> usize {
+    n.div_ceil(4) * 4
 }
 
 /// Which code computes the terms: four lanes where the CPU has AVX2, or the scalar functions
@@ -60,34 +60,60 @@ impl TermLayout {
     /// Lays out the protection intervals between the consecutive points of `prot` and the
     /// accrual-on-default intervals of the paid coupons of `coupons`.
     pub(crate) fn new(plan: &LegPlan, prot: &[u32], coupons: &[CouponTerm]) -> TermLayout {
-        let mut l = TermLayout::default();
-        for w in prot.windows(2) {
-            let (i0, i1) = (w[0] as usize, w[1] as usize);
-            l.prot_i.push([w[0], w[1]]);
-            l.prot_f.push(plan.log_dfs[i0] - plan.log_dfs[i1]);
+        let paid = || coupons.iter().filter(|c| c.paid);
+        let n_prot = prot.len().saturating_sub(1);
+        let n_aod: usize = paid().map(|c| (c.aod_to - c.aod_from).saturating_sub(1) as usize).sum();
+        let (np, na) = (padded(n_prot), padded(n_aod));
+        let mut l = TermLayout {
+            points: vec![[0, 0]; np + na],
+            consts: vec![0.0; np + 3 * na],
+            coupons: Vec::with_capacity(paid().count()),
+            n_prot,
+            n_aod,
+        };
+        let ldf = |i0: usize, i1: usize| plan.log_dfs[i0] - plan.log_dfs[i1];
+        for (k, w) in prot.windows(2).enumerate() {
+            l.points[k] = [w[0], w[1]];
+            l.consts[k] = ldf(w[0] as usize, w[1] as usize);
         }
-        for c in coupons.iter().filter(|c| c.paid) {
-            l.coupon_q.push(c.q_idx);
-            l.coupon_m.push(c.accrual * c.pay_df_ratio);
+        let mut k = 0;
+        for c in paid() {
             for w in plan.aod_path[c.aod_from as usize..c.aod_to as usize].windows(2) {
                 let (i0, i1) = (w[0] as usize, w[1] as usize);
-                l.aod_i.push([w[0], w[1]]);
-                l.aod_f.push(plan.log_dfs[i0] - plan.log_dfs[i1]);
+                l.points[np + k] = [w[0], w[1]];
+                l.consts[np + k] = ldf(i0, i1);
                 let (t0, t1) = (plan.times[i0], plan.times[i1]);
-                l.aod_dt.push(t1 - t0);
-                l.aod_lead.push(t0 - c.t_s);
+                l.consts[np + na + k] = t1 - t0;
+                l.consts[np + 2 * na + k] = t0 - c.t_s;
+                k += 1;
             }
-            l.coupon_end.push(l.aod_i.len() as u32);
-        }
-        (l.n_prot, l.n_aod) = (l.prot_i.len(), l.aod_i.len());
-        let pad = |n: usize| n.div_ceil(4) * 4;
-        l.prot_i.resize(pad(l.n_prot), [0, 0]);
-        l.prot_f.resize(pad(l.n_prot), 0.0);
-        l.aod_i.resize(pad(l.n_aod), [0, 0]);
-        for v in [&mut l.aod_f, &mut l.aod_dt, &mut l.aod_lead] {
-            v.resize(pad(l.n_aod), 0.0);
+            l.coupons.push((c.q_idx, c.accrual * c.pay_df_ratio, k as u32));
         }
         l
+    }
+
+    /// The parts of `points` and `consts`, padding included.
+    fn prot_i(&self) -> &[[u32; 2]] {
+        &self.points[..padded(self.n_prot)]
+    }
+    fn aod_i(&self) -> &[[u32; 2]] {
+        &self.points[padded(self.n_prot)..]
+    }
+    fn prot_f(&self) -> &[f64] {
+        &self.consts[..padded(self.n_prot)]
+    }
+    fn aod_consts(&self, part: usize) -> &[f64] {
+        let (np, na) = (padded(self.n_prot), padded(self.n_aod));
+        &self.consts[np + part * na..np + (part + 1) * na]
+    }
+    fn aod_f(&self) -> &[f64] {
+        self.aod_consts(0)
+    }
+    fn aod_dt(&self) -> &[f64] {
+        self.aod_consts(1)
+    }
+    fn aod_lead(&self) -> &[f64] {
+        self.aod_consts(2)
     }
 
     /// Protection (without 1 - R), premium01 and accrual-on-default01 of the laid-out
@@ -98,10 +124,10 @@ impl TermLayout {
     }
 
     fn evaluate_by(&self, pq: &[Dual], log_q: &[Dual], aod: &mut Vec<Dual>, lanes: Lanes) -> (Dual, Dual, Dual) {
-        if aod.len() < self.aod_i.len() {
-            aod.resize(self.aod_i.len(), Dual::constant(0.0));
+        if aod.len() < self.aod_i().len() {
+            aod.resize(self.aod_i().len(), Dual::constant(0.0));
         }
-        let aod = &mut aod[..self.aod_i.len()];
+        let aod = &mut aod[..self.aod_i().len()];
         #[cfg(target_arch = "x86_64")]
         let prot = if lanes == Lanes::Detect && std::arch::is_x86_feature_detected!("avx2") {
             // SAFETY: the CPU has the feature the function is compiled for.
@@ -117,7 +143,7 @@ impl TermLayout {
         // The coupons' sums, in the scalar code's order.
         let (mut prem, mut aod_sum) = (Dual::constant(0.0), Dual::constant(0.0));
         let mut from = 0usize;
-        for ((&q, &m), &end) in self.coupon_q.iter().zip(&self.coupon_m).zip(&self.coupon_end) {
+        for &(q, m, end) in &self.coupons {
             prem = prem + pq[q as usize] * m;
             let mut acc = Dual::constant(0.0);
             for &t in &aod[from..end as usize] {
@@ -133,14 +159,14 @@ impl TermLayout {
     /// the accrual terms to `aod`.
     fn terms_scalar(&self, pq: &[Dual], log_q: &[Dual], aod: &mut [Dual]) -> Dual {
         let mut prot = Dual::constant(0.0);
-        for (&[i0, i1], &f) in self.prot_i[..self.n_prot].iter().zip(&self.prot_f) {
+        for (&[i0, i1], &f) in self.prot_i()[..self.n_prot].iter().zip(self.prot_f()) {
             let (i0, i1) = (i0 as usize, i1 as usize);
             prot = prot + protection_term(pq[i0], pq[i1], f, log_q[i0] - log_q[i1]);
         }
-        for (k, &[i0, i1]) in self.aod_i[..self.n_aod].iter().enumerate() {
+        for (k, &[i0, i1]) in self.aod_i()[..self.n_aod].iter().enumerate() {
             let (i0, i1) = (i0 as usize, i1 as usize);
             let h = log_q[i0] - log_q[i1];
-            aod[k] = accrual_term_spans(pq[i0], pq[i1], self.aod_f[k], h, self.aod_dt[k], self.aod_lead[k]);
+            aod[k] = accrual_term_spans(pq[i0], pq[i1], self.aod_f()[k], h, self.aod_dt()[k], self.aod_lead()[k]);
         }
         prot
     }
@@ -211,8 +237,8 @@ impl TermLayout {
         let n = self.n_prot;
         let mut k = 0;
         while k < n {
-            let (a0v, a0d, a1v, a1d, hv, hd) = inputs!(&self.prot_i, k);
-            let f = constants(&self.prot_f, k);
+            let (a0v, a0d, a1v, a1d, hv, hd) = inputs!(&self.prot_i(), k);
+            let f = constants(&self.prot_f(), k);
             // x = h + f (a Dual plus an f64: the derivative is h's).
             let (xv, xd) = (add(hv, f), hd);
             let series = _mm256_cmp_pd::<_CMP_LT_OQ>(xv, threshold);
@@ -237,8 +263,9 @@ impl TermLayout {
         let n = self.n_aod;
         let mut k = 0;
         while k < n {
-            let (a0v, a0d, a1v, a1d, hv, hd) = inputs!(&self.aod_i, k);
-            let (f, dt, lead) = (constants(&self.aod_f, k), constants(&self.aod_dt, k), constants(&self.aod_lead, k));
+            let (a0v, a0d, a1v, a1d, hv, hd) = inputs!(&self.aod_i(), k);
+            let (f, dt, lead) =
+                (constants(&self.aod_f(), k), constants(&self.aod_dt(), k), constants(&self.aod_lead(), k));
             let (xv, xd) = (add(hv, f), hd);
             let series = _mm256_cmp_pd::<_CMP_LT_OQ>(xv, threshold);
             // Series: h a0 (s1 lead + s2 dt).
