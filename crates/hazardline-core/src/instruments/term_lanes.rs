@@ -237,8 +237,8 @@ impl TermLayout {
         let n = self.n_prot;
         let mut k = 0;
         while k < n {
-            let (a0v, a0d, a1v, a1d, hv, hd) = inputs!(&self.prot_i(), k);
-            let f = constants(&self.prot_f(), k);
+            let (a0v, a0d, a1v, a1d, hv, hd) = inputs!(self.prot_i(), k);
+            let f = constants(self.prot_f(), k);
             // x = h + f (a Dual plus an f64: the derivative is h's).
             let (xv, xd) = (add(hv, f), hd);
             let series = _mm256_cmp_pd::<_CMP_LT_OQ>(xv, threshold);
@@ -263,9 +263,9 @@ impl TermLayout {
         let n = self.n_aod;
         let mut k = 0;
         while k < n {
-            let (a0v, a0d, a1v, a1d, hv, hd) = inputs!(&self.aod_i(), k);
+            let (a0v, a0d, a1v, a1d, hv, hd) = inputs!(self.aod_i(), k);
             let (f, dt, lead) =
-                (constants(&self.aod_f(), k), constants(&self.aod_dt(), k), constants(&self.aod_lead(), k));
+                (constants(self.aod_f(), k), constants(self.aod_dt(), k), constants(self.aod_lead(), k));
             let (xv, xd) = (add(hv, f), hd);
             let series = _mm256_cmp_pd::<_CMP_LT_OQ>(xv, threshold);
             // Series: h a0 (s1 lead + s2 dt).
