@@ -16,7 +16,7 @@ use crate::curves::{year_time, DiscountCurve, HazardCurve};
 use crate::instruments::cds::{
     evaluate_terms, terms_legs, AccrualIntegration, CdsContract, CdsQuote, ContractTerms, LegPlan, RunningSums,
 };
-use crate::instruments::term_lanes::{segment_points, TermLayout};
+use crate::instruments::term_lanes::{segment_points, Lanes, TermLayout};
 use crate::math::exp::{exp, exp_in_place};
 use crate::math::{newton_bracketed, Dual, RootError, Scalar};
 use crate::time::imm::MaturityError;
@@ -615,7 +615,7 @@ fn solve_nodes(
                          aod_terms: &mut Vec<Dual>|
          -> (f64, f64) {
             let points = moving_from..(last_point + 1).max(moving_from);
-            segment_points(times, log_dfs, points, (t_prev, l_prev, lambda), dl, dpq, args);
+            segment_points(times, log_dfs, points, (t_prev, l_prev, lambda), dl, dpq, args, Lanes::Detect);
             let (p, m, a) = lanes.evaluate(dpq, dl, aod_terms);
             let prot = (p + fp) * one_minus_r;
             let ann = m + a + (fm + fa - rebate_pv);

@@ -47,10 +47,10 @@ fn padded(n: usize) -> usize {
     n.div_ceil(4) * 4
 }
 
-/// Which code computes the terms: four lanes where the CPU has AVX2, or the scalar functions
-/// (the tests run both).
+/// Which code computes: four lanes where the CPU has AVX2, or one value at a time (the tests
+/// run both).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
-enum Lanes {
+pub(crate) enum Lanes {
     Detect,
     #[cfg_attr(not(test), allow(dead_code))]
     Scalar,
@@ -305,23 +305,10 @@ impl TermLayout {
 /// segment that starts at `t_prev` with ln Q = `l_prev` and has hazard `lambda`: ln Q =
 /// l_prev - lambda (t - t_prev), d ln Q = -(t - t_prev), P Q = exp(ln Q + ln P) and d P Q =
 /// P Q d ln Q, written to `dl` and `dpq` (`args` is scratch for the exponentials' arguments).
-/// Four points at a time where the CPU has AVX2, with the same operations per point as one at
-/// a time.
+/// Four points at a time where the CPU has AVX2 and `how` is [`Lanes::Detect`], with the same
+/// operations per point as one at a time.
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn segment_points(
-    times: &[f64],
-    log_dfs: &[f64],
-    range: std::ops::Range<usize>,
-    (t_prev, l_prev, lambda): (f64, f64, f64),
-    dl: &mut [Dual],
-    dpq: &mut [Dual],
-    args: &mut Vec<f64>,
-) {
-    segment_points_by(times, log_dfs, range, (t_prev, l_prev, lambda), dl, dpq, args, Lanes::Detect)
-}
-
-#[allow(clippy::too_many_arguments)]
-fn segment_points_by(
     times: &[f64],
     log_dfs: &[f64],
     range: std::ops::Range<usize>,
@@ -537,7 +524,7 @@ mod tests {
                 let (t_prev, l_prev, lambda) = (times[from] * 0.5, -0.2 * rng.uniform(), rng.uniform() * 0.8);
                 for how in [Lanes::Detect, Lanes::Scalar] {
                     let (mut dl, mut dpq) = (vec![Dual::constant(9.0); n], vec![Dual::constant(9.0); n]);
-                    segment_points_by(
+                    segment_points(
                         &times,
                         &log_dfs,
                         from..to,

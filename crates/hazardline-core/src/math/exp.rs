@@ -10,9 +10,11 @@
 //! fused multiply-adds, the same constants and the same table (regenerated from its
 //! definition by `scripts/gen-exp-table.py`), so on such a CPU it returns glibc's bits (120
 //! million arguments compared once, two million in the tests) without the call through the
-//! wrapper: a slice's loop runs the method inline (about 2 to 3 ns a value on the development
-//! machine against 5 ns for the library call; a four-lane AVX2 version with table gathers
-//! measured slower on the bootstrap's short slices and was left out).
+//! wrapper: a slice's loop runs the method inline, four values at a time on AVX2 lanes (the
+//! table read one entry at a time: a version with the CPU's gather instructions measured
+//! slower on the bootstrap's short slices), with the rest and any group holding an argument
+//! out of the fast range one value at a time (about 2 to 3 ns a value on the development
+//! machine for the one-value path, against 5 ns for the library call).
 //!
 //! Where the CPU lacks FMA or AVX2, or off x86-64, both functions call `f64::exp`: the numbers
 //! are then the platform's, as before. Arguments outside the fast range (|x| below 2^-54 or at
