@@ -608,14 +608,14 @@ fn solve_nodes(
         // P Q at the moving points: the arguments first, then their exponentials as one slice
         // (the same values as `(lq + ln P).exp()` point by point, without a call per point).
         let lanes = &cut.layout;
+        let points = moving_from..(last_point + 1).max(moving_from);
         let objective = |lambda: f64,
                          dl: &mut [Dual],
                          dpq: &mut [Dual],
                          args: &mut Vec<f64>,
                          aod_terms: &mut Vec<Dual>|
          -> (f64, f64) {
-            let points = moving_from..(last_point + 1).max(moving_from);
-            segment_points(times, log_dfs, points, (t_prev, l_prev, lambda), dl, dpq, args, Lanes::Detect);
+            segment_points(times, log_dfs, points.clone(), (t_prev, l_prev, lambda), dl, dpq, args, Lanes::Detect);
             let (p, m, a) = lanes.evaluate(dpq, dl, aod_terms);
             let prot = (p + fp) * one_minus_r;
             let ann = m + a + (fm + fa - rebate_pv);
