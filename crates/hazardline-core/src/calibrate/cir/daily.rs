@@ -51,6 +51,11 @@ pub(crate) struct DayProblem<'a> {
     pub(crate) f64_buf: Buffers<f64>,
     pub(crate) grad_buf: Buffers<Grad4>,
     pub(crate) grad_out: Vec<Grad4>,
+    /// With kappa and sigma held: their affine coefficients at every grid point, computed once.
+    /// The value and gradient evaluations compute the same bits at each call (the same
+    /// operations on the values; `held_coefficients_are_the_evaluations_own` checks it), and
+    /// theta and lambda0 do not enter them, so their derivatives in theta and lambda0 are zero.
+    fixed_ab: Vec<(f64, f64)>,
 }
 
 impl<'a> DayProblem<'a> {
@@ -61,12 +66,22 @@ impl<'a> DayProblem<'a> {
             f64_buf: Buffers::default(),
             grad_buf: Buffers::default(),
             grad_out: vec![Grad4::constant(0.0); pricer.len()],
+            fixed_ab: match fixed {
+                Some((kappa, sigma)) => pricer.coefficients(kappa, sigma),
+                None => Vec::new(),
+            },
         }
     }
 
     pub(crate) fn cost_of(&mut self, p: &CirParams) -> f64 {
         let mut r = vec![0.0; self.pricer.len()];
-        if self.pricer.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut self.f64_buf, &mut r, None) {
+        let ok = if self.fixed.is_some() {
+            let ab = &self.fixed_ab;
+            self.pricer.evaluate_with(|j, _| ab[j], p.theta, p.lambda0, &mut self.f64_buf, &mut r, None)
+        } else {
+            self.pricer.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut self.f64_buf, &mut r, None)
+        };
+        if ok {
             0.5 * r.iter().map(|v| v * v).sum::<f64>()
         } else {
             f64::INFINITY
@@ -84,15 +99,30 @@ impl LeastSquares for DayProblem<'_> {
         match jac {
             None => self.pricer.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut self.f64_buf, r, None),
             Some(jac) => {
-                let ok = self.pricer.evaluate(
-                    Grad4::var(p.kappa, 0),
-                    Grad4::var(p.theta, 1),
-                    Grad4::var(p.sigma, 2),
-                    Grad4::var(p.lambda0, 3),
-                    &mut self.grad_buf,
-                    &mut self.grad_out,
-                    None,
-                );
+                let ok = if self.fixed.is_some() {
+                    // Only the derivatives in theta and lambda0 are read below, and they do not
+                    // depend on those in kappa and sigma (every operation acts on each
+                    // component alone), so the held coefficients enter as constants.
+                    let ab = &self.fixed_ab;
+                    self.pricer.evaluate_with(
+                        |j, _| (Grad4::constant(ab[j].0), Grad4::constant(ab[j].1)),
+                        Grad4::var(p.theta, 1),
+                        Grad4::var(p.lambda0, 3),
+                        &mut self.grad_buf,
+                        &mut self.grad_out,
+                        None,
+                    )
+                } else {
+                    self.pricer.evaluate(
+                        Grad4::var(p.kappa, 0),
+                        Grad4::var(p.theta, 1),
+                        Grad4::var(p.sigma, 2),
+                        Grad4::var(p.lambda0, 3),
+                        &mut self.grad_buf,
+                        &mut self.grad_out,
+                        None,
+                    )
+                };
                 if !ok {
                     return false;
                 }

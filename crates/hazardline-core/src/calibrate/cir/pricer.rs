@@ -126,8 +126,36 @@ impl CirPricer {
         out: &mut [S],
         legs_out: Option<&mut Vec<(f64, f64)>>,
     ) -> bool {
-        let plan = &self.plan;
         let coef = CirCoefficients::new(kappa, sigma);
+        self.evaluate_with(|_, t| coef.at(t), theta, lambda0, buf, out, legs_out)
+    }
+
+    /// The affine coefficients (a(t), B(t)) of kappa and sigma at every point of the grid
+    /// (t <= 0 gives (0, 0), which the pricer never reads), computed once for evaluations that
+    /// hold kappa and sigma. The values are those [`CirPricer::evaluate`] computes at each
+    /// call, bit for bit: the same function of the same (kappa, sigma, t).
+    pub(crate) fn coefficients<S: CirScalar>(&self, kappa: S, sigma: S) -> Vec<(S, S)> {
+        let coef = CirCoefficients::new(kappa, sigma);
+        self.plan
+            .times
+            .iter()
+            .map(|&t| if t <= 0.0 { (S::constant(0.0), S::constant(0.0)) } else { coef.at(t) })
+            .collect()
+    }
+
+    /// [`CirPricer::evaluate`] with the affine coefficients of grid point j (time t) given by
+    /// `ab(j, t)`: `evaluate` computes them from kappa and sigma; the window's fits take them
+    /// from values computed once (kappa and sigma held, or shared by the window's days).
+    pub(crate) fn evaluate_with<S: CirScalar>(
+        &self,
+        ab: impl Fn(usize, f64) -> (S, S),
+        theta: S,
+        lambda0: S,
+        buf: &mut Buffers<S>,
+        out: &mut [S],
+        legs_out: Option<&mut Vec<(f64, f64)>>,
+    ) -> bool {
+        let plan = &self.plan;
         let np = plan.times.len();
         buf.lq.clear();
         buf.pq.clear();
@@ -136,7 +164,7 @@ impl CirPricer {
             let lq = if t <= 0.0 {
                 S::constant(0.0)
             } else {
-                let (a, b) = coef.at(t);
+                let (a, b) = ab(j, t);
                 theta * a - lambda0 * b
             };
             buf.lq.push(lq);

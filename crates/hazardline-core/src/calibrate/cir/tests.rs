@@ -3,7 +3,8 @@
 
 use super::daily::*;
 use crate::math::grad::Grad4;
-use crate::models::cir::CirCoefficients;
+use crate::math::Scalar;
+use crate::models::cir::{CirCoefficients, CirParams};
 
 #[test]
 fn gradient_matches_finite_differences() {
@@ -42,4 +43,169 @@ fn start_recovers_a_deterministic_curve() {
     let p = start_from_points(&times, &h);
     assert_eq!(p.kappa, 0.5);
     assert!((p.theta - th).abs() < 1e-12 && (p.lambda0 - l0).abs() < 1e-12);
+}
+
+/// Twenty consecutive business days of five quotes each (par spreads and upfronts), on the
+/// module's two test discount curves, for the window's evaluations.
+fn window_pricers() -> Vec<super::pricer::CirPricer> {
+    use crate::calibrate::bootstrap::BootstrapQuote;
+    use crate::instruments::cds::{AccrualIntegration, CdsQuote};
+    use crate::time::{Calendar, Tenor};
+    let cal = Calendar::weekends_only();
+    let mut day = chrono::NaiveDate::from_ymd_opt(2024, 3, 14).unwrap();
+    let mut out = Vec::new();
+    while out.len() < 20 {
+        day = day.succ_opt().unwrap();
+        if !cal.is_business_day(day) {
+            continue;
+        }
+        let k = out.len() as f64;
+        let quotes: Vec<BootstrapQuote> = [(6, 0.004), (12, 0.006), (36, 0.011), (60, 0.015), (120, 0.019)]
+            .iter()
+            .enumerate()
+            .map(|(i, &(m, s))| BootstrapQuote {
+                tenor: Tenor::from_months(m).unwrap(),
+                quote: if i % 2 == 0 {
+                    CdsQuote::ParSpread(s * (1.0 + 0.01 * k))
+                } else {
+                    CdsQuote::Upfront { upfront: (s - 0.01) * 4.0 + 1e-4 * k, coupon: 0.01 }
+                },
+                recovery: 0.4,
+                maturity: None,
+            })
+            .collect();
+        let curves = crate::curves::discount::test_curves(day);
+        let accrual =
+            [AccrualIntegration::Standard, AccrualIntegration::Exact, AccrualIntegration::Published][out.len() % 3];
+        let d = &curves[out.len() % curves.len()];
+        out.push(super::pricer::CirPricer::new(day, &quotes, d, &cal, 1.0 / 12.0, accrual).unwrap());
+    }
+    out
+}
+
+const PARAMS: [[f64; 4]; 5] = [
+    [0.4, 0.03, 0.12, 0.015],
+    [0.05, 0.2, 0.9, 0.0],
+    [2.5, 0.002, 0.0, 0.04],
+    [1e-3, 0.05, 1e-6, 0.2],
+    [0.8, 0.01, 0.3, 1e-4],
+];
+
+/// The held kappa and sigma's coefficients, computed once, give the fixed mode's cost, residuals
+/// and Jacobian with the bits the pricer's own evaluation gives at every call: the f64 and the
+/// gradient coefficients are the same values, and the derivatives the fixed mode reads (theta,
+/// lambda0) are those of the full four-variable evaluation.
+#[test]
+fn held_coefficients_are_the_evaluations_own() {
+    use super::pricer::Buffers;
+    use crate::math::least_squares::LeastSquares;
+    let pricers = window_pricers();
+    let mut checked = 0;
+    for pr in &pricers {
+        for &[kappa, theta, sigma, lambda0] in &PARAMS {
+            let grad: Vec<(f64, f64)> = pr
+                .coefficients(Grad4::var(kappa, 0), Grad4::var(sigma, 2))
+                .into_iter()
+                .map(|(a, b)| (a.v, b.v))
+                .collect();
+            let plain = pr.coefficients(kappa, sigma);
+            assert_eq!(
+                grad.iter().map(|(a, b)| (a.to_bits(), b.to_bits())).collect::<Vec<_>>(),
+                plain.iter().map(|(a, b)| (a.to_bits(), b.to_bits())).collect::<Vec<_>>()
+            );
+            let n = pr.len();
+            let mut problem = DayProblem::new(pr, Some((kappa, sigma)));
+            let p = CirParams { kappa, theta, sigma, lambda0 };
+            // The cost against the pricer's own f64 evaluation.
+            let mut r = vec![0.0; n];
+            assert!(pr.evaluate(kappa, theta, sigma, lambda0, &mut Buffers::default(), &mut r, None));
+            assert_eq!(problem.cost_of(&p).to_bits(), (0.5 * r.iter().map(|v| v * v).sum::<f64>()).to_bits());
+            // Residuals and Jacobian against the four-variable gradient evaluation.
+            let mut full = vec![Grad4::constant(0.0); n];
+            assert!(pr.evaluate(
+                Grad4::var(kappa, 0),
+                Grad4::var(theta, 1),
+                Grad4::var(sigma, 2),
+                Grad4::var(lambda0, 3),
+                &mut Buffers::default(),
+                &mut full,
+                None
+            ));
+            let (mut r, mut jac) = (vec![0.0; n], vec![0.0; 2 * n]);
+            assert!(problem.eval(&to_x(&p, true), &mut r, Some(&mut jac)));
+            // to_x and back may move theta by an ulp: compare at the problem's own theta.
+            let theta_x = to_params(&to_x(&p, true), Some((kappa, sigma))).theta;
+            let mut full_x = vec![Grad4::constant(0.0); n];
+            assert!(pr.evaluate(
+                Grad4::var(kappa, 0),
+                Grad4::var(theta_x, 1),
+                Grad4::var(sigma, 2),
+                Grad4::var(lambda0, 3),
+                &mut Buffers::default(),
+                &mut full_x,
+                None
+            ));
+            for k in 0..n {
+                assert_eq!(r[k].to_bits(), full_x[k].v.to_bits(), "residual {k} at {p:?}");
+                assert_eq!(jac[2 * k].to_bits(), (full_x[k].d[1] * theta_x).to_bits(), "d theta {k} at {p:?}");
+                assert_eq!(jac[2 * k + 1].to_bits(), full_x[k].d[3].to_bits(), "d lambda0 {k} at {p:?}");
+                checked += 1;
+            }
+            assert!(full.iter().all(|g| g.v.is_finite()));
+        }
+    }
+    assert!(checked >= 20 * 5 * 5, "{checked}");
+}
+
+/// The window's pooled evaluation, which computes each distinct grid time's coefficients once
+/// for all its days, gives every day's residuals and Jacobian entries with the bits of that
+/// day's own four-variable evaluation.
+#[test]
+fn pooled_coefficients_are_each_days_own() {
+    use super::pricer::Buffers;
+    use super::window::PooledProblem;
+    use crate::math::least_squares::LeastSquares;
+    let pricers = window_pricers();
+    let mut offsets = Vec::new();
+    let mut m = 0;
+    let mut days = Vec::new();
+    for pr in &pricers {
+        offsets.push(m);
+        m += pr.len();
+        days.push(DayProblem::new(pr, None));
+    }
+    let mut problem = PooledProblem::new(days, offsets.clone(), m);
+    let n = 2 + 2 * pricers.len();
+    // sigma = 0 has no finite derivative in sigma^2 (the solver's coordinate): not a point the
+    // pooled problem evaluates.
+    for &[kappa, theta, sigma, lambda0] in PARAMS.iter().filter(|p| p[2] > 0.0) {
+        let mut x = vec![kappa.ln(), sigma * sigma];
+        for d in 0..pricers.len() {
+            x.extend([(theta * (1.0 + 0.01 * d as f64)).ln(), lambda0 + 1e-4 * d as f64]);
+        }
+        let (mut r, mut jac) = (vec![0.0; m], vec![0.0; m * n]);
+        assert!(problem.eval(&x, &mut r, Some(&mut jac)));
+        let (kappa, sigma) = (x[0].exp(), x[1].max(0.0).sqrt());
+        for (d, pr) in pricers.iter().enumerate() {
+            let (theta, lambda0) = (x[2 + 2 * d].exp(), x[3 + 2 * d]);
+            let mut own = vec![Grad4::constant(0.0); pr.len()];
+            assert!(pr.evaluate(
+                Grad4::var(kappa, 0),
+                Grad4::var(theta, 1),
+                Grad4::var(sigma, 2),
+                Grad4::var(lambda0, 3),
+                &mut Buffers::default(),
+                &mut own,
+                None
+            ));
+            for (k, g) in own.iter().enumerate() {
+                let row = &jac[(offsets[d] + k) * n..(offsets[d] + k + 1) * n];
+                assert_eq!(r[offsets[d] + k].to_bits(), g.v.to_bits(), "day {d} quote {k}");
+                assert_eq!(row[0].to_bits(), (g.d[0] * kappa).to_bits(), "day {d} quote {k}");
+                assert_eq!(row[1].to_bits(), (g.d[2] * 0.5 / sigma).to_bits(), "day {d} quote {k}");
+                assert_eq!(row[2 + 2 * d].to_bits(), (g.d[1] * theta).to_bits(), "day {d} quote {k}");
+                assert_eq!(row[3 + 2 * d].to_bits(), g.d[3].to_bits(), "day {d} quote {k}");
+            }
+        }
+    }
 }

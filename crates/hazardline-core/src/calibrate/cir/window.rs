@@ -9,6 +9,7 @@ use crate::curves::DiscountCurve;
 use crate::math::grad::Grad4;
 use crate::math::identification::identification;
 use crate::math::least_squares::{levenberg_marquardt, LeastSquares};
+use crate::models::cir::CirCoefficients;
 use crate::time::Calendar;
 
 /// One day of a window.
@@ -49,6 +50,42 @@ pub(crate) struct PooledProblem<'a> {
     pub(crate) days: Vec<DayProblem<'a>>,
     pub(crate) offsets: Vec<usize>,
     pub(crate) m: usize,
+    /// The distinct grid times (t > 0) of all the days, and for each day the index in it of
+    /// each of its grid points (unused where t <= 0): the days share kappa and sigma, and most
+    /// of their grid (the protection nodes every grid step) is the same times, so each
+    /// evaluation computes the affine coefficients once per distinct time.
+    times: Vec<f64>,
+    point_index: Vec<Vec<u32>>,
+    /// The coefficients at `times` of the evaluation under way.
+    ab: Vec<(Grad4, Grad4)>,
+}
+
+impl<'a> PooledProblem<'a> {
+    pub(crate) fn new(days: Vec<DayProblem<'a>>, offsets: Vec<usize>, m: usize) -> Self {
+        let mut times: Vec<f64> =
+            days.iter().flat_map(|d| d.pricer.plan.times.iter().copied().filter(|&t| t > 0.0)).collect();
+        times.sort_by(f64::total_cmp);
+        times.dedup_by(|a, b| a.to_bits() == b.to_bits());
+        let point_index = days
+            .iter()
+            .map(|d| {
+                d.pricer
+                    .plan
+                    .times
+                    .iter()
+                    .map(|&t| {
+                        if t > 0.0 {
+                            times.binary_search_by(|u| u.total_cmp(&t)).expect("every day's time is in the union")
+                                as u32
+                        } else {
+                            0
+                        }
+                    })
+                    .collect()
+            })
+            .collect();
+        PooledProblem { days, offsets, m, times, point_index, ab: Vec::new() }
+    }
 }
 
 impl LeastSquares for PooledProblem<'_> {
@@ -62,6 +99,9 @@ impl LeastSquares for PooledProblem<'_> {
         let mut jac = jac;
         if let Some(j) = jac.as_deref_mut() {
             j.iter_mut().for_each(|v| *v = 0.0);
+            let coef = CirCoefficients::new(Grad4::var(kappa, 0), Grad4::var(sigma, 2));
+            self.ab.clear();
+            self.ab.extend(self.times.iter().map(|&t| coef.at(t)));
         }
         for (d, prob) in self.days.iter_mut().enumerate() {
             let (theta, lambda0) = (x[2 + 2 * d].exp(), x[3 + 2 * d]);
@@ -82,10 +122,12 @@ impl LeastSquares for PooledProblem<'_> {
                     }
                 }
                 Some(j) => {
-                    let ok = prob.pricer.evaluate(
-                        Grad4::var(kappa, 0),
+                    // The same function of the same (kappa, sigma, t) as the pricer's own
+                    // evaluation computes, so the same bits.
+                    let (ab, index) = (&self.ab, &self.point_index[d]);
+                    let ok = prob.pricer.evaluate_with(
+                        |p, _| ab[index[p] as usize],
                         Grad4::var(theta, 1),
-                        Grad4::var(sigma, 2),
                         Grad4::var(lambda0, 3),
                         &mut prob.grad_buf,
                         &mut prob.grad_out,
@@ -181,7 +223,7 @@ pub fn fit_cir_window(
         probs.push(DayProblem::new(pr, None));
         dates.push(days[*i].trade_date);
     }
-    let mut pooled_problem = PooledProblem { days: probs, offsets, m };
+    let mut pooled_problem = PooledProblem::new(probs, offsets, m);
     let out = levenberg_marquardt(&mut pooled_problem, &x0, &lo, &hi, &cap, &settings.lm);
     let (kappa, sigma) = (out.x[0].exp(), out.x[1].max(0.0).sqrt());
     let (condition_number, kappa_se, sigma_se) = if out.failed {
