@@ -73,15 +73,19 @@ impl<'a> DayProblem<'a> {
         }
     }
 
+    /// The residuals at `p` without gradients, the held coefficients used in the fixed mode.
+    fn residuals(&mut self, p: &CirParams, r: &mut [f64]) -> bool {
+        if self.fixed.is_some() {
+            let ab = &self.fixed_ab;
+            self.pricer.evaluate_with(|j, _| ab[j], p.theta, p.lambda0, &mut self.f64_buf, r, None)
+        } else {
+            self.pricer.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut self.f64_buf, r, None)
+        }
+    }
+
     pub(crate) fn cost_of(&mut self, p: &CirParams) -> f64 {
         let mut r = vec![0.0; self.pricer.len()];
-        let ok = if self.fixed.is_some() {
-            let ab = &self.fixed_ab;
-            self.pricer.evaluate_with(|j, _| ab[j], p.theta, p.lambda0, &mut self.f64_buf, &mut r, None)
-        } else {
-            self.pricer.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut self.f64_buf, &mut r, None)
-        };
-        if ok {
+        if self.residuals(p, &mut r) {
             0.5 * r.iter().map(|v| v * v).sum::<f64>()
         } else {
             f64::INFINITY
@@ -97,7 +101,7 @@ impl LeastSquares for DayProblem<'_> {
     fn eval(&mut self, x: &[f64], r: &mut [f64], jac: Option<&mut [f64]>) -> bool {
         let p = to_params(x, self.fixed);
         match jac {
-            None => self.pricer.evaluate(p.kappa, p.theta, p.sigma, p.lambda0, &mut self.f64_buf, r, None),
+            None => self.residuals(&p, r),
             Some(jac) => {
                 let ok = if self.fixed.is_some() {
                     // Only the derivatives in theta and lambda0 are read below, and they do not

@@ -141,8 +141,11 @@ fn held_coefficients_are_the_evaluations_own() {
             assert!(problem.eval(&to_x(&p, true), &mut r, Some(&mut jac)));
             let theta_x = to_params(&to_x(&p, true), Some((kappa, sigma))).theta;
             let full_x = gradients(pr, [kappa, theta_x, sigma, lambda0]);
+            let mut values = vec![0.0; n];
+            assert!(problem.eval(&to_x(&p, true), &mut values, None));
             for k in 0..n {
                 assert_eq!(r[k].to_bits(), full_x[k].v.to_bits(), "residual {k} at {p:?}");
+                assert_eq!(values[k].to_bits(), full_x[k].v.to_bits(), "value {k} at {p:?}");
                 assert_eq!(jac[2 * k].to_bits(), (full_x[k].d[1] * theta_x).to_bits(), "d theta {k} at {p:?}");
                 assert_eq!(jac[2 * k + 1].to_bits(), full_x[k].d[3].to_bits(), "d lambda0 {k} at {p:?}");
                 checked += 1;
