@@ -439,24 +439,45 @@ pub(crate) fn evaluate_terms<S: Scalar>(
     let mut prem = zero;
     let mut aod = zero;
     for c in coupons {
-        if !c.paid {
-            continue;
-        }
-        prem = prem + pq[c.q_idx as usize] * (c.accrual * c.pay_df_ratio);
-        let path = &plan.aod_path[c.aod_from as usize..c.aod_to as usize];
-        let mut acc = zero;
-        for w in path.windows(2) {
-            let (i0, i1) = (w[0] as usize, w[1] as usize);
-            let f = plan.log_dfs[i0] - plan.log_dfs[i1];
-            let h = log_q[i0] - log_q[i1];
-            acc = acc + accrual_term(pq[i0], pq[i1], f, h, plan.times[i0], plan.times[i1], c.t_s);
-        }
-        aod = aod + acc * c.accrual_factor();
+        add_coupon(plan, c, pq, log_q, &mut prem, &mut aod);
     }
     (prot_sum, prem, aod)
 }
 
+/// Adds one coupon's premium01 and accrual-on-default01 to the running sums `prem` and `aod`
+/// (a coupon not paid adds nothing): the step of [`evaluate_terms`]' coupon loop, so that a
+/// caller summing the coupons itself gets the same numbers, bit for bit.
+#[inline]
+pub(crate) fn add_coupon<S: Scalar>(plan: &LegPlan, c: &CouponTerm, pq: &[S], log_q: &[S], prem: &mut S, aod: &mut S) {
+    if !c.paid {
+        return;
+    }
+    *prem = *prem + pq[c.q_idx as usize] * (c.accrual * c.pay_df_ratio);
+    let path = &plan.aod_path[c.aod_from as usize..c.aod_to as usize];
+    let mut acc = S::constant(0.0);
+    for w in path.windows(2) {
+        let (i0, i1) = (w[0] as usize, w[1] as usize);
+        let f = plan.log_dfs[i0] - plan.log_dfs[i1];
+        let h = log_q[i0] - log_q[i1];
+        acc = acc + accrual_term(pq[i0], pq[i1], f, h, plan.times[i0], plan.times[i1], c.t_s);
+    }
+    *aod = *aod + acc * c.accrual_factor();
+}
+
 impl CouponTerm {
+    /// Whether `self` and `other`, two coupons of `plan`'s contracts, add the same terms to the
+    /// legs at every survival curve: equal fields (bit for bit) and the same grid points on
+    /// their accrual-on-default paths (each contract has its own range of `aod_path`).
+    pub(crate) fn same_terms(&self, other: &CouponTerm, plan: &LegPlan) -> bool {
+        let path = |c: &CouponTerm| &plan.aod_path[c.aod_from as usize..c.aod_to as usize];
+        self.paid == other.paid
+            && self.q_idx == other.q_idx
+            && self.accrual.to_bits() == other.accrual.to_bits()
+            && self.pay_df_ratio.to_bits() == other.pay_df_ratio.to_bits()
+            && self.t_s.to_bits() == other.t_s.to_bits()
+            && path(self) == path(other)
+    }
+
     /// 365/360 turns the Act/365F time integral into Act/360 accrual.
     pub(crate) const ACCRUAL_FACTOR: f64 = 365.0 / 360.0;
 

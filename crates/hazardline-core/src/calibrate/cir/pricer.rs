@@ -5,11 +5,12 @@ use super::*;
 use crate::calibrate::bootstrap::BootstrapQuote;
 use crate::calibrate::residuals::QuoteResidual;
 use crate::curves::DiscountCurve;
-use crate::instruments::cds::{evaluate_terms, protection_term, CdsContract, CdsQuote, LegPlan};
+use crate::instruments::cds::{add_coupon, evaluate_terms, protection_term, CdsContract, CdsQuote, LegPlan};
 use crate::math::grad::Grad4;
 use crate::models::cir::{uniform_grid, CirCoefficients, CirScalar};
 use crate::time::{add_days, Calendar};
 
+#[derive(Clone)]
 pub(crate) struct Leg {
     pub(crate) quote_index: usize,
     pub(crate) tenor: Tenor,
@@ -22,6 +23,7 @@ pub(crate) struct Leg {
 }
 
 /// The pricing grid and the contracts of one day, built once per fit.
+#[derive(Clone)]
 pub(crate) struct CirPricer {
     pub(crate) plan: LegPlan,
     pub(crate) legs: Vec<Leg>,
@@ -30,6 +32,10 @@ pub(crate) struct CirPricer {
     /// True when every contract's protection nodes are a prefix of the longest's (always, by
     /// the construction of the plan); then the protection sums share one pass.
     pub(crate) shared_protection: bool,
+    /// True when every contract's coupons but its last are those of the longest (always, for
+    /// the standard contracts of one day: they share their schedule up to their own final
+    /// period); then the premium and accrual-on-default sums share one pass too.
+    pub(crate) shared_coupons: bool,
     /// Kept for the default start (a bootstrap of the same quotes).
     pub(crate) discount: DiscountCurve,
     pub(crate) calendar: Calendar,
@@ -108,7 +114,20 @@ impl CirPricer {
             let m = c.prot.len();
             m >= 2 && m <= lp.len() && c.prot[..m - 1] == lp[..m - 1]
         });
-        Ok(CirPricer { plan, legs, longest, shared_protection, discount: discount.clone(), calendar: cal.clone() })
+        let lc = &plan.contracts[longest].coupons;
+        let shared_coupons = plan.contracts.iter().all(|c| {
+            let m = c.coupons.len();
+            m >= 1 && m <= lc.len() && c.coupons[..m - 1].iter().zip(lc).all(|(a, b)| a.same_terms(b, &plan))
+        });
+        Ok(CirPricer {
+            plan,
+            legs,
+            longest,
+            shared_protection,
+            shared_coupons,
+            discount: discount.clone(),
+            calendar: cal.clone(),
+        })
     }
 
     pub(crate) fn len(&self) -> usize {
@@ -185,6 +204,19 @@ impl CirPricer {
                 buf.cum.push(acc);
             }
         }
+        // The premium and accrual-on-default sums after each of the longest contract's coupons
+        // but its last, in its order: a contract's sums are those after its own coupons but
+        // the last, plus its last (the same additions, in the same order, as its own pass).
+        buf.cum_coupons.clear();
+        if self.shared_coupons {
+            let lc = &plan.contracts[self.longest].coupons;
+            let (mut prem, mut aod) = (S::constant(0.0), S::constant(0.0));
+            buf.cum_coupons.push((prem, aod));
+            for c in &lc[..lc.len() - 1] {
+                add_coupon(plan, c, pq, lq, &mut prem, &mut aod);
+                buf.cum_coupons.push((prem, aod));
+            }
+        }
         let mut legs_out = legs_out;
         if let Some(l) = legs_out.as_deref_mut() {
             l.clear();
@@ -196,7 +228,15 @@ impl CirPricer {
             } else {
                 evaluate_terms(plan, &c.prot, &[], pq, lq).0
             };
-            let (_, prem, aod) = evaluate_terms(plan, &[], &c.coupons, pq, lq);
+            let (prem, aod) = if self.shared_coupons {
+                let m = c.coupons.len();
+                let (mut prem, mut aod) = buf.cum_coupons[m - 1];
+                add_coupon(plan, &c.coupons[m - 1], pq, lq, &mut prem, &mut aod);
+                (prem, aod)
+            } else {
+                let (_, prem, aod) = evaluate_terms(plan, &[], &c.coupons, pq, lq);
+                (prem, aod)
+            };
             let prot = prot * leg.one_minus_r;
             let ann = prem + aod - c.rebate01 * c.cash_settle_df;
             let r = (prot - ann * leg.coupon - leg.upfront * c.cash_settle_df) / ann * 1e4;
@@ -254,11 +294,12 @@ pub(crate) struct Buffers<S> {
     pub(crate) lq: Vec<S>,
     pub(crate) pq: Vec<S>,
     pub(crate) cum: Vec<S>,
+    pub(crate) cum_coupons: Vec<(S, S)>,
 }
 
 impl<S> Default for Buffers<S> {
     fn default() -> Self {
-        Buffers { lq: Vec::new(), pq: Vec::new(), cum: Vec::new() }
+        Buffers { lq: Vec::new(), pq: Vec::new(), cum: Vec::new(), cum_coupons: Vec::new() }
     }
 }
 

@@ -197,3 +197,38 @@ fn pooled_coefficients_are_each_days_own() {
         }
     }
 }
+
+/// The premium and accrual-on-default sums shared along the longest contract's coupons give
+/// every contract's residuals, legs and gradients with the bits of its own coupon pass
+/// (`evaluate_terms` over its coupons), on par and upfront quotes, both test discount curves
+/// and the three accrual variants; the standard contracts of a day do share their coupons.
+#[test]
+fn shared_coupon_sums_are_each_contracts_own() {
+    use super::pricer::Buffers;
+    let pricers = window_pricers();
+    let mut checked = 0;
+    for pr in &pricers {
+        assert!(pr.shared_coupons && pr.shared_protection);
+        // The same pricer with each contract's coupons summed on their own.
+        let own = super::pricer::CirPricer { shared_coupons: false, ..pr.clone() };
+        for &[kappa, theta, sigma, lambda0] in &PARAMS {
+            let n = pr.len();
+            let (mut a, mut b) = (vec![0.0; n], vec![0.0; n]);
+            let (mut legs_a, mut legs_b) = (Vec::new(), Vec::new());
+            assert!(pr.evaluate(kappa, theta, sigma, lambda0, &mut Buffers::default(), &mut a, Some(&mut legs_a)));
+            assert!(own.evaluate(kappa, theta, sigma, lambda0, &mut Buffers::default(), &mut b, Some(&mut legs_b)));
+            let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+            assert_eq!(bits(&a), bits(&b));
+            let flat = |l: &[(f64, f64)]| l.iter().flat_map(|&(p, q)| [p.to_bits(), q.to_bits()]).collect::<Vec<_>>();
+            assert_eq!(flat(&legs_a), flat(&legs_b));
+            let (ga, gb) =
+                (gradients(pr, [kappa, theta, sigma, lambda0]), gradients(&own, [kappa, theta, sigma, lambda0]));
+            for (x, y) in ga.iter().zip(&gb) {
+                assert_eq!(x.v.to_bits(), y.v.to_bits());
+                assert_eq!(bits(&x.d), bits(&y.d));
+                checked += 1;
+            }
+        }
+    }
+    assert!(checked >= 20 * 5 * 5, "{checked}");
+}
