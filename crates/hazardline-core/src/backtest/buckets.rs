@@ -153,10 +153,15 @@ fn counts(members: &[&Observation], policy: CensoringPolicy) -> Counts {
 
 /// One `backtest_buckets` row per (cohort, horizon, bucket).
 pub fn bucket_rows(obs: &[Observation], settings: &BacktestSettings) -> Result<Vec<BucketRow>, BacktestError> {
-    groups(obs)
-        .into_iter()
+    use rayon::prelude::*;
+    // The groups are independent (each row is a function of its own members): they run in
+    // parallel, the rows kept in the groups' order and the first group's error reported.
+    let groups: Vec<_> = groups(obs).into_iter().collect();
+    let rows: Vec<Result<BucketRow, BacktestError>> = groups
+        .into_par_iter()
         .map(|((cohort, h, _, bucket), members)| bucket_row(cohort, h, bucket, &members, settings))
-        .collect()
+        .collect();
+    rows.into_iter().collect()
 }
 
 fn bucket_row(
