@@ -27,7 +27,7 @@
 //! not fatal.
 
 use crate::curves::{year_time, DiscountCurve, HazardCurve};
-use crate::instruments::bond::{BondCashflows, BondError, BondTerms, RecoveryConvention};
+use crate::instruments::bond::{BondCashflows, BondError, BondOnDiscount, BondTerms, RecoveryConvention};
 use crate::instruments::cds::{price_legs, AccrualIntegration, CdsContract, ReferenceDateMismatch};
 use crate::math::least_squares::{levenberg_marquardt, LeastSquares, LmSettings};
 use crate::models::cir::uniform_grid;
@@ -175,11 +175,12 @@ struct Prepared {
 struct Problem<'a> {
     trade: NaiveDate,
     bonds: &'a [Prepared],
-    discount: &'a DiscountCurve,
     settings: &'a BondFitSettings,
     form: BondCurveForm,
     node_times: &'a [f64],
     grid: Vec<f64>,
+    /// Each bond's discount terms for the hazard nodes of this problem's curves.
+    on: Vec<BondOnDiscount>,
     r_tmp: Vec<f64>,
 }
 
@@ -208,8 +209,8 @@ impl Problem<'_> {
     fn residuals(&self, x: &[f64], r: &mut [f64]) -> bool {
         let curve = self.curve(x);
         for (k, b) in self.bonds.iter().enumerate() {
-            let p = b.cf.price_unchecked(self.discount, &curve, self.settings.recovery, self.settings.convention);
-            r[k] = (p.clean - b.clean) * b.weight;
+            let clean = b.cf.clean_on(&self.on[k], &curve, self.settings.recovery, self.settings.convention);
+            r[k] = (clean - b.clean) * b.weight;
             if !r[k].is_finite() {
                 return false;
             }
@@ -350,8 +351,15 @@ pub fn fit_bond_hazard(
     } else {
         Vec::new()
     };
+    // The hazard nodes of every curve the problem builds (see Problem::curve).
+    let curve_nodes: &[f64] = match form {
+        BondCurveForm::Flat => &node_times[..1],
+        BondCurveForm::PiecewiseFlat => &node_times,
+        BondCurveForm::TwoParameter => &grid,
+    };
+    let on = bonds.iter().map(|b| b.cf.on_discount(discount, curve_nodes)).collect();
     let mut problem =
-        Problem { trade, bonds: &bonds, discount, settings, form, node_times: &node_times, grid, r_tmp: Vec::new() };
+        Problem { trade, bonds: &bonds, settings, form, node_times: &node_times, grid, on, r_tmp: Vec::new() };
     let lo = vec![0.0; n];
     let hi = vec![settings.max_hazard; n];
     let out = levenberg_marquardt(&mut problem, &vec![h0; n], &lo, &hi, &vec![0.25; n], &settings.lm);

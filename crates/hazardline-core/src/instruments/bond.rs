@@ -353,28 +353,97 @@ impl BondCashflows {
 /// integral_0^T P(t) lambda(t) S(t) dt in closed form on the joint grid of discount pillars and
 /// hazard nodes (the CDS protection integral, with its series expansion for tiny exponents).
 pub fn default_integral(discount: &DiscountCurve, hazard: &HazardCurve, t_end: f64) -> f64 {
+    let grid = default_grid(discount, hazard.node_times(), t_end);
+    let log_dfs: Vec<f64> = grid.iter().map(|&t| discount.log_df_at(t)).collect();
+    default_integral_on(&grid, &log_dfs, hazard)
+}
+
+/// The points of [`default_integral`]'s grid: the discount pillars and the hazard nodes
+/// `node_times` inside (0, t_end), and t_end.
+fn default_grid(discount: &DiscountCurve, node_times: &[f64], t_end: f64) -> Vec<f64> {
     let reference = discount.reference();
     let mut grid: Vec<f64> = discount
         .pillar_dates()
         .iter()
         .map(|&d| year_time(reference, d))
-        .chain(hazard.node_times().iter().copied())
+        .chain(node_times.iter().copied())
         .filter(|&t| t > 0.0 && t < t_end)
         .collect();
     grid.push(t_end);
     grid.sort_by(f64::total_cmp);
     grid.dedup();
+    grid
+}
+
+/// [`default_integral`] on its grid with ln DF at each point given. An interval's P S at its
+/// start is the one computed at the end of the interval before (the same exponential of the
+/// same sum), 1 at t = 0.
+fn default_integral_on(grid: &[f64], log_dfs: &[f64], hazard: &HazardCurve) -> f64 {
     let mut acc = 0.0;
-    let (mut lp0, mut lq0) = (0.0, 0.0);
-    for &t in &grid {
-        let (lp1, lq1) = (discount.log_df_at(t), hazard.log_survival_at(t));
+    let (mut lp0, mut lq0) = (0.0f64, 0.0f64);
+    let mut a0 = (lp0 + lq0).exp();
+    for (&t, &lp1) in grid.iter().zip(log_dfs) {
+        let lq1 = hazard.log_survival_at(t);
         let f = lp0 - lp1;
         let h = lq0 - lq1;
-        acc += protection_term::<f64>((lp0 + lq0).exp(), (lp1 + lq1).exp(), f, h);
+        let a1 = (lp1 + lq1).exp();
+        acc += protection_term::<f64>(a0, a1, f, h);
         lp0 = lp1;
         lq0 = lq1;
+        a0 = a1;
     }
     acc
+}
+
+/// What a bond's price takes from the discount curve alone, for hazard curves with given node
+/// times: ln DF at each payment and [`default_integral`]'s grid with ln DF on it. A fit prices
+/// the same bonds on many hazard curves of the same nodes ([`BondCashflows::clean_on`]).
+#[derive(Debug, Clone)]
+pub struct BondOnDiscount {
+    log_dfs: Vec<f64>,
+    node_times: Vec<f64>,
+    grid: Vec<f64>,
+    grid_log_dfs: Vec<f64>,
+}
+
+impl BondCashflows {
+    /// The discount terms of this bond on `discount` for hazard curves with the node times
+    /// `node_times`.
+    pub fn on_discount(&self, discount: &DiscountCurve, node_times: &[f64]) -> BondOnDiscount {
+        let grid = default_grid(discount, node_times, self.t_maturity);
+        BondOnDiscount {
+            log_dfs: self.times.iter().map(|&t| discount.log_df_at(t)).collect(),
+            node_times: node_times.to_vec(),
+            grid_log_dfs: grid.iter().map(|&t| discount.log_df_at(t)).collect(),
+            grid,
+        }
+    }
+
+    /// The clean price of [`BondCashflows::price_unchecked`], bit for bit, from the discount
+    /// terms `on` ([`BondCashflows::on_discount`] with `hazard`'s node times).
+    pub fn clean_on(
+        &self,
+        on: &BondOnDiscount,
+        hazard: &HazardCurve,
+        recovery: f64,
+        convention: RecoveryConvention,
+    ) -> f64 {
+        debug_assert_eq!(hazard.node_times(), &on.node_times[..], "prepared for other hazard nodes");
+        let survival_power = match convention {
+            RecoveryConvention::Market => 1.0 - recovery,
+            _ => 1.0,
+        };
+        let mut dirty = 0.0;
+        for ((&t, &a), &ldf) in self.times.iter().zip(&self.amounts).zip(&on.log_dfs) {
+            dirty += a * (ldf + survival_power * hazard.log_survival_at(t)).exp();
+        }
+        let recovery_value = match convention {
+            RecoveryConvention::Par => 100.0 * recovery * default_integral_on(&on.grid, &on.grid_log_dfs, hazard),
+            _ => 0.0,
+        };
+        dirty += recovery_value;
+        dirty - self.accrued
+    }
 }
 
 /// Convenience: prices `terms` on curves referenced on their common reference date.
@@ -451,6 +520,67 @@ mod tests {
             let got = cf.yield_from_dirty(p).unwrap();
             assert!((got - y).abs() < 1e-13, "{y}: {got}");
         }
+    }
+
+    /// The fits' clean price on prepared discount terms is `price_unchecked`'s, bit for bit,
+    /// and the default integral is the two-exponential form it had (P S at both ends of each
+    /// interval computed afresh): three conventions, three recoveries, both test discount
+    /// curves, flat and stepped hazard curves (nodes on and off the pillars), short and long
+    /// bonds, settlement on and off a coupon date.
+    #[test]
+    fn prepared_discount_terms_price_as_the_curves_do() {
+        let two_exp = |discount: &DiscountCurve, hazard: &HazardCurve, t_end: f64| {
+            let grid = default_grid(discount, hazard.node_times(), t_end);
+            let (mut acc, mut lp0, mut lq0) = (0.0f64, 0.0f64, 0.0f64);
+            for &t in &grid {
+                let (lp1, lq1) = (discount.log_df_at(t), hazard.log_survival_at(t));
+                acc += protection_term::<f64>((lp0 + lq0).exp(), (lp1 + lq1).exp(), lp0 - lp1, lq0 - lq1);
+                (lp0, lq0) = (lp1, lq1);
+            }
+            acc
+        };
+        let mut checked = 0;
+        for settle in [d(2024, 5, 10), d(2024, 8, 31)] {
+            for discount in crate::curves::discount::test_curves(settle) {
+                let pillar = discount.pillar_dates().get(1).map_or(1.5, |&p| year_time(settle, p));
+                let hazards: [(Vec<f64>, Vec<f64>); 3] = [
+                    (vec![30.0], vec![0.013]),
+                    (vec![1.0, pillar, 3.0, 7.0], vec![0.004, 0.011, 0.02, 0.035]),
+                    (vec![0.25, 2.0, 12.0], vec![1e-9, 0.3, 0.05]),
+                ];
+                for (times, h) in hazards {
+                    let hazard = HazardCurve::new(settle, times.clone(), h).unwrap();
+                    for (coupon, maturity) in [(0.05, d(2029, 8, 31)), (0.0725, d(2025, 2, 28)), (0.0, d(2036, 2, 29))]
+                    {
+                        let b = BondTerms {
+                            coupon,
+                            frequency: 2,
+                            maturity,
+                            day_count: DayCount::Thirty360,
+                            issue_date: None,
+                        };
+                        let cf = b.cashflows(settle).unwrap();
+                        let on = cf.on_discount(&discount, &times);
+                        let t_end = cf.t_maturity;
+                        assert_eq!(
+                            default_integral(&discount, &hazard, t_end).to_bits(),
+                            two_exp(&discount, &hazard, t_end).to_bits()
+                        );
+                        for convention in
+                            [RecoveryConvention::Par, RecoveryConvention::Zero, RecoveryConvention::Market]
+                        {
+                            for recovery in [0.0, 0.4, 0.75] {
+                                let want = cf.price_unchecked(&discount, &hazard, recovery, convention).clean;
+                                let got = cf.clean_on(&on, &hazard, recovery, convention);
+                                assert_eq!(got.to_bits(), want.to_bits(), "{convention:?} {recovery} {maturity}");
+                                checked += 1;
+                            }
+                        }
+                    }
+                }
+            }
+        }
+        assert_eq!(checked, 2 * 2 * 3 * 3 * 3 * 3);
     }
 
     #[test]
