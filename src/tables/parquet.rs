@@ -29,9 +29,48 @@ impl TableBuilder {
         self
     }
 
+    /// A string column. A value longer than a view holds inline (12 bytes) that repeats the
+    /// value before it of that length class (a curve's entity, tier and clause on each of its
+    /// rows) points its view at the bytes already stored instead of copying them again: the
+    /// same values, so the same Parquet bytes, in less memory and time.
     pub fn strings<S: AsRef<str>>(mut self, name: &str, values: impl IntoIterator<Item = Option<S>>) -> Self {
-        let ca: StringChunked = values.into_iter().collect();
-        self.columns.push(ca.with_name(name.into()).into_column());
+        use polars_arrow::array::{MutableBinaryViewArray, View};
+        let values = values.into_iter();
+        let mut b = MutableBinaryViewArray::<str>::with_capacity(values.size_hint().0);
+        let mut last: Option<(S, View)> = None;
+        // Bytes of the views pushed as copies, added to the array's total once at the end.
+        let mut shared_bytes = 0usize;
+        for v in values {
+            let Some(s) = v else {
+                b.push_null();
+                continue;
+            };
+            let text = s.as_ref();
+            if text.len() <= View::MAX_INLINE_SIZE as usize {
+                b.push_value(text);
+                continue;
+            }
+            if let Some((_, view)) = last.as_ref().filter(|(prev, _)| prev.as_ref() == text) {
+                // SAFETY: the view was made by this builder for these very bytes, and its buffer
+                // index stays valid (a buffer, once started, keeps its index); the validity, when
+                // there is one, gets its bit here, and the byte total is set below.
+                unsafe { b.views_mut().push(*view) };
+                if let Some(validity) = b.validity() {
+                    validity.push(true);
+                }
+                shared_bytes += text.len();
+                continue;
+            }
+            b.push_value(text);
+            let view = *b.views().last().expect("a value was just pushed");
+            last = Some((s, view));
+        }
+        if shared_bytes > 0 {
+            // SAFETY: the total is the sum of the views' lengths, the shared views' included.
+            unsafe { b.set_total_bytes_len(b.total_bytes_len() + shared_bytes) };
+        }
+        let ca = StringChunked::with_chunk(name.into(), b.freeze());
+        self.columns.push(ca.into_column());
         self
     }
 
@@ -469,6 +508,45 @@ mod tests {
             .strings("entity", rows.iter().map(|&i| Some(label(i))))
             .floats("value", rows.iter().map(|&i| (i % 11 != 0).then(|| (i as f64).sqrt())))
             .finish()
+    }
+
+    /// The string column with shared long values holds the values polars' own collection of
+    /// the same strings holds, and writes the same Parquet bytes: runs of one long value,
+    /// long values alternating, short (inline) values between runs, nulls inside a run, a run
+    /// whose value comes back after another, values of exactly 12 and 13 bytes, multi-byte text.
+    #[test]
+    fn shared_long_strings_are_the_plain_column() {
+        let long = ["Entity number 0001 of the panel", "Entity number 0002 of the panel", "déjà vu, naïve café"];
+        let mut values: Vec<Option<String>> = Vec::new();
+        for i in 0..20_000usize {
+            let v = match i % 23 {
+                0 => None,
+                1..=3 => Some("short".to_string()),
+                4 => Some("twelve bytes".to_string()),
+                5 | 6 => Some("thirteen byte".to_string()),
+                k => Some(long[(i / 23 + k / 9) % 3].to_string()),
+            };
+            values.push(v);
+        }
+        values.extend(std::iter::repeat_n(Some(long[0].to_string()), 5000));
+        let dir = tempfile::tempdir().unwrap();
+        let mut files = Vec::new();
+        for (k, plain) in [false, true].into_iter().enumerate() {
+            let mut df = if plain {
+                let ca: StringChunked = values.iter().map(|v| v.as_deref()).collect();
+                DataFrame::new_infer_height(vec![ca.with_name("text".into()).into_column()]).unwrap()
+            } else {
+                TableBuilder::new().strings("text", values.iter().map(|v| v.as_deref())).finish().unwrap()
+            };
+            let path = dir.path().join(format!("{k}.parquet"));
+            write_parquet(&mut df, &path, &[]).unwrap();
+            files.push((df, std::fs::read(&path).unwrap()));
+        }
+        assert!(files[0].0.equals_missing(&files[1].0), "the values differ");
+        assert_eq!(files[0].0.column("text").unwrap().null_count(), 20_000usize.div_ceil(23));
+        assert!(files[0].1 == files[1].1, "the Parquet bytes differ");
+        let back = ParquetReader::new(std::fs::File::open(dir.path().join("0.parquet")).unwrap()).finish().unwrap();
+        assert!(back.equals_missing(&files[1].0), "the values read back differ");
     }
 
     #[test]
