@@ -160,13 +160,26 @@ fn adaptive(
     tol: f64,
     depth: u32,
 ) -> Result<f64, StatsError> {
-    let whole = gl(f, a, b)?;
+    adaptive_on(f, a, b, gl(f, a, b)?, tol, depth)
+}
+
+/// [`adaptive`] on [a, b] with the panel's rule `whole` already computed: a half's rule,
+/// computed to test its parent, is that half's own whole rule (the same sum of the same
+/// values), so no panel is summed twice.
+fn adaptive_on(
+    f: &impl Fn(f64) -> Result<f64, StatsError>,
+    a: f64,
+    b: f64,
+    whole: f64,
+    tol: f64,
+    depth: u32,
+) -> Result<f64, StatsError> {
     let m = 0.5 * (a + b);
     let (l, r) = (gl(f, a, m)?, gl(f, m, b)?);
     if (l + r - whole).abs() <= tol || depth >= 20 {
         return Ok(l + r);
     }
-    Ok(adaptive(f, a, m, tol / 2.0, depth + 1)? + adaptive(f, m, b, tol / 2.0, depth + 1)?)
+    Ok(adaptive_on(f, a, m, l, tol / 2.0, depth + 1)? + adaptive_on(f, m, b, r, tol / 2.0, depth + 1)?)
 }
 
 #[cfg(test)]
@@ -191,6 +204,37 @@ mod tests {
         let v = vasicek_upper_tail(5, 200, 0.01, 1e-12).unwrap();
         let b = binomial_upper_tail(5, 200, 0.01).unwrap();
         assert!((v / b - 1.0).abs() < 1e-5, "{v} {b}");
+    }
+
+    /// Passing each half's rule down gives the sums of the form that computes every panel's
+    /// whole rule afresh, bit for bit: smooth, peaked (many levels of halving) and the
+    /// one-factor integrand itself.
+    #[test]
+    fn halves_passed_down_are_the_recomputed_rules() {
+        fn afresh(f: &impl Fn(f64) -> Result<f64, StatsError>, a: f64, b: f64, tol: f64, depth: u32) -> f64 {
+            let whole = gl(f, a, b).unwrap();
+            let m = 0.5 * (a + b);
+            let (l, r) = (gl(f, a, m).unwrap(), gl(f, m, b).unwrap());
+            if (l + r - whole).abs() <= tol || depth >= 20 {
+                return l + r;
+            }
+            afresh(f, a, m, tol / 2.0, depth + 1) + afresh(f, m, b, tol / 2.0, depth + 1)
+        }
+        let (c, rho) = (normal_quantile(0.02).unwrap(), 0.15f64);
+        let one_factor = |z: f64| -> Result<f64, StatsError> {
+            let p = normal_cdf((c - rho.sqrt() * z) / (1.0 - rho).sqrt()).clamp(0.0, 1.0);
+            Ok(binomial_lower_tail(7, 400, p)? * normal_density(z))
+        };
+        let cases: [(&dyn Fn(f64) -> Result<f64, StatsError>, f64, f64, f64); 4] = [
+            (&|x: f64| Ok((-x * x).exp()), -3.0, 3.0, 1e-14),
+            (&|x: f64| Ok(1.0 / (1e-4 + (x - 0.3).powi(2))), 0.0, 1.0, 1e-10),
+            (&|x: f64| Ok(x.abs().sqrt()), -1.0, 2.0, 1e-13),
+            (&one_factor, -4.0, 4.0, 1e-16),
+        ];
+        for (k, (f, a, b, tol)) in cases.into_iter().enumerate() {
+            let got = adaptive(&f, a, b, tol, 0).unwrap();
+            assert_eq!(got.to_bits(), afresh(&f, a, b, tol, 0).to_bits(), "case {k}");
+        }
     }
 
     #[test]
