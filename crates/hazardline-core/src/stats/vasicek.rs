@@ -6,7 +6,8 @@
 //! independently with p(z) = Phi((Phi^-1(PD) - sqrt(rho) z) / sqrt(1 - rho)), so
 //! P[D >= d] = integral of P[Binomial(n, p(z)) >= d] phi(z) dz (and likewise P[D <= d]).
 //! The integral is taken by adaptive Gauss-Legendre quadrature (10 nodes per panel, a panel
-//! halved until its two halves agree with it to 1e-13 of the running total) over the range
+//! halved until its two halves agree with it to 1e-13 of the integrand's largest grid value
+//! times the 0.25 panel width, the tolerance halving with each level) over the range
 //! of z where the integrand is above 1e-22 of its largest value on a 0.25 grid over
 //! [-38.5, 38.5] (beyond which phi underflows). Checked against scipy's `quad` in
 //! tests/reference/backtest_scipy.json.
