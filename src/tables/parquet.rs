@@ -29,10 +29,11 @@ impl TableBuilder {
         self
     }
 
-    /// A string column. A value longer than a view holds inline (12 bytes) that repeats the
-    /// value before it of that length class (a curve's entity, tier and clause on each of its
-    /// rows) points its view at the bytes already stored instead of copying them again: the
-    /// same values, so the same Parquet bytes, in less memory and time.
+    /// A string column. A value longer than a view holds inline (12 bytes) that equals the last
+    /// such value stored (a curve's entity, tier and clause on each of its rows) points its
+    /// view at those bytes instead of copying them again: the same values, so the same Parquet
+    /// bytes, in less memory. Only the last long value is remembered: one that comes back after
+    /// another is stored again.
     pub fn strings<S: AsRef<str>>(mut self, name: &str, values: impl IntoIterator<Item = Option<S>>) -> Self {
         use polars_arrow::array::{MutableBinaryViewArray, View};
         let values = values.into_iter();
@@ -512,8 +513,9 @@ mod tests {
 
     /// The string column with shared long values holds the values polars' own collection of
     /// the same strings holds, and writes the same Parquet bytes: runs of one long value,
-    /// long values alternating, short (inline) values between runs, nulls inside a run, a run
-    /// whose value comes back after another, values of exactly 12 and 13 bytes, multi-byte text.
+    /// long values alternating, short (inline) values inside runs, nulls between runs (so the
+    /// shared values after the first null carry a validity bit), a value that comes back after
+    /// another, values of exactly 12 and 13 bytes, multi-byte text.
     #[test]
     fn shared_long_strings_are_the_plain_column() {
         let long = ["Entity number 0001 of the panel", "Entity number 0002 of the panel", "déjà vu, naïve café"];
