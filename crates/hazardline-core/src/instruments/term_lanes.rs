@@ -243,16 +243,28 @@ impl TermLayout {
             let (xv, xd) = (add(hv, f), hd);
             let series = _mm256_cmp_pd::<_CMP_LT_OQ>(xv, threshold);
             // Series: a0 h ((((x/120 - 1/24) x + 1/6) x - 1/2) x + 1).
-            let p2 = (sub(mul(xv, c(1.0 / 120.0)), c(1.0 / 24.0)), mul(xd, c(1.0 / 120.0)));
-            let p3 = dmul(p2.0, p2.1, xv, xd);
-            let p5 = dmul(add(p3.0, c(1.0 / 6.0)), p3.1, xv, xd);
-            let p7 = dmul(sub(p5.0, half), p5.1, xv, xd);
-            let ah = dmul(a0v, a0d, hv, hd);
-            let s = dmul(ah.0, ah.1, add(p7.0, one), p7.1);
+            let series_form = || {
+                let p2 = (sub(mul(xv, c(1.0 / 120.0)), c(1.0 / 24.0)), mul(xd, c(1.0 / 120.0)));
+                let p3 = dmul(p2.0, p2.1, xv, xd);
+                let p5 = dmul(add(p3.0, c(1.0 / 6.0)), p3.1, xv, xd);
+                let p7 = dmul(sub(p5.0, half), p5.1, xv, xd);
+                let ah = dmul(a0v, a0d, hv, hd);
+                dmul(ah.0, ah.1, add(p7.0, one), p7.1)
+            };
             // Closed form: h / x (a0 - a1).
-            let hx = ddiv(hv, hd, div(one, xv), xd);
-            let l = dmul(hx.0, hx.1, sub(a0v, a1v), sub(a0d, a1d));
-            let terms = unpack(_mm256_blendv_pd(l.0, s.0, series), _mm256_blendv_pd(l.1, s.1, series));
+            let closed_form = || {
+                let hx = ddiv(hv, hd, div(one, xv), xd);
+                dmul(hx.0, hx.1, sub(a0v, a1v), sub(a0d, a1d))
+            };
+            let (tv, td) = match form(series, n - k) {
+                Form::Closed => closed_form(),
+                Form::Series => series_form(),
+                Form::Both => {
+                    let (s, l) = (series_form(), closed_form());
+                    (_mm256_blendv_pd(l.0, s.0, series), _mm256_blendv_pd(l.1, s.1, series))
+                }
+            };
+            let terms = unpack(tv, td);
             // (v, d) + (v, d): the Dual addition, lane by lane.
             for t in &terms[..(n - k).min(4)] {
                 prot = _mm_add_pd(prot, *t);
@@ -269,26 +281,37 @@ impl TermLayout {
             let (xv, xd) = (add(hv, f), hd);
             let series = _mm256_cmp_pd::<_CMP_LT_OQ>(xv, threshold);
             // Series: h a0 (s1 lead + s2 dt).
-            let q1 = (mul(xv, c(-1.0 / 24.0)), mul(xd, c(-1.0 / 24.0)));
-            let q3 = dmul(add(q1.0, c(1.0 / 6.0)), q1.1, xv, xd);
-            let q5 = dmul(sub(q3.0, half), q3.1, xv, xd);
-            let s1 = (add(q5.0, one), q5.1);
-            let r1 = (mul(xv, c(-1.0 / 30.0)), mul(xd, c(-1.0 / 30.0)));
-            let r3 = dmul(add(r1.0, c(1.0 / 8.0)), r1.1, xv, xd);
-            let r5 = dmul(sub(r3.0, c(1.0 / 3.0)), r3.1, xv, xd);
-            let s2 = (add(r5.0, half), r5.1);
-            let ha = dmul(hv, hd, a0v, a0d);
-            let m = (add(mul(s1.0, lead), mul(s2.0, dt)), add(mul(s1.1, lead), mul(s2.1, dt)));
-            let s = dmul(ha.0, ha.1, m.0, m.1);
+            let series_form = || {
+                let q1 = (mul(xv, c(-1.0 / 24.0)), mul(xd, c(-1.0 / 24.0)));
+                let q3 = dmul(add(q1.0, c(1.0 / 6.0)), q1.1, xv, xd);
+                let q5 = dmul(sub(q3.0, half), q3.1, xv, xd);
+                let s1 = (add(q5.0, one), q5.1);
+                let r1 = (mul(xv, c(-1.0 / 30.0)), mul(xd, c(-1.0 / 30.0)));
+                let r3 = dmul(add(r1.0, c(1.0 / 8.0)), r1.1, xv, xd);
+                let r5 = dmul(sub(r3.0, c(1.0 / 3.0)), r3.1, xv, xd);
+                let s2 = (add(r5.0, half), r5.1);
+                let ha = dmul(hv, hd, a0v, a0d);
+                let m = (add(mul(s1.0, lead), mul(s2.0, dt)), add(mul(s1.1, lead), mul(s2.1, dt)));
+                dmul(ha.0, ha.1, m.0, m.1)
+            };
             // Closed form: h / x ((diff / x - a1) dt + diff lead), diff = a0 - a1.
-            let inv = div(one, xv);
-            let diff = (sub(a0v, a1v), sub(a0d, a1d));
-            let q = ddiv(diff.0, diff.1, inv, xd);
-            let q2 = (sub(q.0, a1v), sub(q.1, a1d));
-            let q5 = (add(mul(q2.0, dt), mul(diff.0, lead)), add(mul(q2.1, dt), mul(diff.1, lead)));
-            let hx = ddiv(hv, hd, inv, xd);
-            let l = dmul(hx.0, hx.1, q5.0, q5.1);
-            let (tv, td) = (_mm256_blendv_pd(l.0, s.0, series), _mm256_blendv_pd(l.1, s.1, series));
+            let closed_form = || {
+                let inv = div(one, xv);
+                let diff = (sub(a0v, a1v), sub(a0d, a1d));
+                let q = ddiv(diff.0, diff.1, inv, xd);
+                let q2 = (sub(q.0, a1v), sub(q.1, a1d));
+                let q5 = (add(mul(q2.0, dt), mul(diff.0, lead)), add(mul(q2.1, dt), mul(diff.1, lead)));
+                let hx = ddiv(hv, hd, inv, xd);
+                dmul(hx.0, hx.1, q5.0, q5.1)
+            };
+            let (tv, td) = match form(series, n - k) {
+                Form::Closed => closed_form(),
+                Form::Series => series_form(),
+                Form::Both => {
+                    let (s, l) = (series_form(), closed_form());
+                    (_mm256_blendv_pd(l.0, s.0, series), _mm256_blendv_pd(l.1, s.1, series))
+                }
+            };
             // Intervals k, k + 1 then k + 2, k + 3 as (value, derivative) pairs.
             let out = aod[k..k + 4].as_mut_ptr().cast::<f64>();
             _mm256_storeu_pd(out, _mm256_unpacklo_pd(tv, td));
@@ -298,6 +321,39 @@ impl TermLayout {
         let mut pair = [0.0; 2];
         _mm_storeu_pd(pair.as_mut_ptr(), prot);
         Dual::new(pair[0], pair[1])
+    }
+}
+
+/// Which of the two forms a group of four intervals needs.
+#[cfg(target_arch = "x86_64")]
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Form {
+    /// Every interval of the group takes the closed form.
+    Closed,
+    /// Every interval takes the series form.
+    Series,
+    /// Some take one, some the other: both are computed and blended lane by lane.
+    Both,
+}
+
+/// The forms the `left` intervals of a group still to be added need (`left` of four or more:
+/// all four lanes), from the comparison mask `series` (lanes in the order 0, 2, 1, 3). The
+/// padding lanes past the last interval are never added, so they do not count: a group whose
+/// real intervals all take one form computes that form alone, and each lane's numbers are the
+/// ones the blend would have picked.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+fn form(series: std::arch::x86_64::__m256d, left: usize) -> Form {
+    // The mask's bit of interval i: lanes hold intervals 0, 2, 1, 3.
+    const REAL: [i32; 5] = [0b0000, 0b0001, 0b0101, 0b0111, 0b1111];
+    let real = REAL[left.min(4)];
+    let bits = std::arch::x86_64::_mm256_movemask_pd(series) & real;
+    if bits == 0 {
+        Form::Closed
+    } else if bits == real {
+        Form::Series
+    } else {
+        Form::Both
     }
 }
 
@@ -444,6 +500,7 @@ mod tests {
         let nodes = [0.5, 1.0, 3.0, 5.0, 7.0, 10.0];
         let mut rng = Rng::new(20241203);
         let (mut scratch, mut series, mut closed, mut compared) = (Vec::new(), 0, 0, 0);
+        let mut groups = [0usize; 3];
         for d in &crate::curves::discount::test_curves(t) {
             for accrual in [AccrualIntegration::Standard, AccrualIntegration::Exact, AccrualIntegration::Published] {
                 let plan = LegPlan::build(t, &refs, d, &nodes, accrual);
@@ -493,13 +550,24 @@ mod tests {
                                 .iter()
                                 .filter(|c| c.paid)
                                 .flat_map(|c| plan.aod_path[c.aod_from as usize..c.aod_to as usize].windows(2));
-                            for w in prot.windows(2).chain(paths) {
+                            let is_series = |w: &[u32]| {
                                 let (i0, i1) = (w[0] as usize, w[1] as usize);
                                 let x = (lq[i0].v - lq[i1].v) + (plan.log_dfs[i0] - plan.log_dfs[i1]);
-                                if x < crate::instruments::cds::SERIES_THRESHOLD {
-                                    series += 1;
-                                } else {
-                                    closed += 1;
+                                x < crate::instruments::cds::SERIES_THRESHOLD
+                            };
+                            let (prot_forms, aod_forms): (Vec<bool>, Vec<bool>) =
+                                (prot.windows(2).map(is_series).collect(), paths.map(is_series).collect());
+                            for part in [&prot_forms, &aod_forms] {
+                                series += part.iter().filter(|&&s| s).count();
+                                closed += part.iter().filter(|&&s| !s).count();
+                                // The groups of four the lanes take: one form, or both.
+                                for group in part.chunks(4) {
+                                    let kind = match (group.iter().any(|&s| s), group.iter().all(|&s| s)) {
+                                        (false, _) => 0,
+                                        (true, false) => 1,
+                                        (true, true) => 2,
+                                    };
+                                    groups[kind] += 1;
                                 }
                             }
                         }
@@ -508,6 +576,9 @@ mod tests {
             }
         }
         assert!(compared > 10_000 && series > 1_000 && closed > 1_000, "{compared} {series} {closed}");
+        // Groups of four in each form: closed only, series only, and mixed (the lanes compute
+        // only the form a group needs, both where it is mixed).
+        assert!(groups.iter().all(|&g| g > 500), "closed, mixed, series groups: {groups:?}");
     }
 
     /// The segment's points four at a time are the formulas one point at a time, bit for bit,
