@@ -254,10 +254,36 @@ pub struct CdsRowRules {
     pub min_spread_bp: f64,
 }
 
+/// The labels a panel interns: entities, currencies and tiers.
+#[derive(Default)]
+struct Labels {
+    entities: Interner,
+    currencies: Interner,
+    tiers: Tiers,
+}
+
+/// The rows and rejects of one run of a batch's rows, parsed on their own, with ids into the
+/// run's own labels (in the order the run first meets them).
+struct ParsedRun {
+    rows: Vec<CdsQuoteRow>,
+    rejects: Vec<Reject>,
+    labels: Labels,
+}
+
+/// Rows a rayon task parses at a time, and rows a wave of tasks covers before the runs are
+/// merged into the panel (a wave's parsed rows are the only copy held beside the panel's).
+const RUN_ROWS: usize = 1 << 15;
+const WAVE_ROWS: usize = 1 << 19;
+
 /// Reads the quotes at `path`, applying the row rules.
+///
+/// Each batch is parsed in runs of rows on rayon's threads, each run with labels of its own;
+/// the runs are then merged in row order, each label getting its panel id on first meeting, so
+/// the ids, rows and rejects are the ones a single pass over the rows gives (a label first met
+/// in an earlier run is met earlier in the file, and within a run the order is the file's).
 pub fn read(path: &Path, cal: &Calendar, rules: &CdsRowRules) -> Result<CdsPanel> {
+    use rayon::prelude::*;
     let mut panel = CdsPanel::default();
-    let mut tenor_cache: super::FastMap<String, std::result::Result<Tenor, String>> = Default::default();
     let info = read_table_batches(TABLE, path, SPECS, |file| {
         let src = file.source();
         let fidx = match panel.files.iter().position(|f| *f == src) {
@@ -268,27 +294,67 @@ pub fn read(path: &Path, cal: &Calendar, rules: &CdsRowRules) -> Result<CdsPanel
             }
         } as u32;
         panel.rows.reserve(file.height);
-        for i in 0..file.height {
-            match parse_row(file, i, &src, fidx, cal, rules, &mut panel, &mut tenor_cache) {
-                Ok(r) => panel.rows.push(r),
-                Err(mut rej) => {
-                    rej.date = file.cell(C_DATE, i).date().ok().flatten();
-                    // A label refused as such is not copied into the rejects table.
-                    let shown = |t: Option<String>| {
-                        t.filter(|t| !t.chars().any(char::is_control) && t.len() <= MAX_LABEL_CHARS)
-                    };
-                    rej.entity = shown(file.cell(C_ENTITY, i).text());
-                    rej.key = super::source::key_text([
-                        shown(file.cell(C_CCY, i).text()),
-                        shown(file.cell(C_TENOR, i).text()),
-                    ]);
-                    panel.rejects.push(rej)
-                }
+        for wave in (0..file.height).step_by(WAVE_ROWS) {
+            let wave_end = (wave + WAVE_ROWS).min(file.height);
+            let starts: Vec<usize> = (wave..wave_end).step_by(RUN_ROWS).collect();
+            let runs: Vec<ParsedRun> = starts
+                .into_par_iter()
+                .map(|from| parse_run(file, from..(from + RUN_ROWS).min(wave_end), &src, fidx, cal, rules))
+                .collect();
+            for run in runs {
+                merge_run(&mut panel, run);
             }
         }
     })?;
     panel.info = info;
     Ok(panel)
+}
+
+/// Parses the rows `range` of a batch with labels of their own.
+fn parse_run(
+    file: &RawFile,
+    range: std::ops::Range<usize>,
+    src: &str,
+    fidx: u32,
+    cal: &Calendar,
+    rules: &CdsRowRules,
+) -> ParsedRun {
+    let mut run = ParsedRun { rows: Vec::with_capacity(range.len()), rejects: Vec::new(), labels: Labels::default() };
+    let mut tenor_cache: super::FastMap<String, std::result::Result<Tenor, String>> = Default::default();
+    for i in range {
+        match parse_row(file, i, src, fidx, cal, rules, &mut run.labels, &mut tenor_cache) {
+            Ok(r) => run.rows.push(r),
+            Err(mut rej) => {
+                rej.date = file.cell(C_DATE, i).date().ok().flatten();
+                // A label refused as such is not copied into the rejects table.
+                let shown =
+                    |t: Option<String>| t.filter(|t| !t.chars().any(char::is_control) && t.len() <= MAX_LABEL_CHARS);
+                rej.entity = shown(file.cell(C_ENTITY, i).text());
+                rej.key =
+                    super::source::key_text([shown(file.cell(C_CCY, i).text()), shown(file.cell(C_TENOR, i).text())]);
+                run.rejects.push(rej)
+            }
+        }
+    }
+    run
+}
+
+/// Appends a run's rows and rejects to the panel, its labels given their panel ids.
+fn merge_run(panel: &mut CdsPanel, run: ParsedRun) {
+    let ParsedRun { rows, rejects, labels } = run;
+    let ids = |local: &Interner, global: &mut Interner| -> Vec<u32> {
+        (0..local.len() as u32).map(|i| global.id(local.name(i))).collect()
+    };
+    let entities = ids(&labels.entities, &mut panel.entities);
+    let currencies = ids(&labels.currencies, &mut panel.currencies);
+    let tiers = ids(&labels.tiers.names, &mut panel.tiers.names);
+    panel.rows.extend(rows.into_iter().map(|mut r| {
+        r.entity = entities[r.entity as usize];
+        r.currency = currencies[r.currency as usize];
+        r.tier = tiers[r.tier as usize];
+        r
+    }));
+    panel.rejects.extend(rejects);
 }
 
 fn reject(src: &str, row: u64, reason: &'static str, detail: String) -> Reject {
@@ -411,7 +477,7 @@ fn parse_row(
     fidx: u32,
     cal: &Calendar,
     rules: &CdsRowRules,
-    panel: &mut CdsPanel,
+    panel: &mut Labels,
     tenor_cache: &mut super::FastMap<String, std::result::Result<Tenor, String>>,
 ) -> std::result::Result<CdsQuoteRow, Reject> {
     let row = file.file_row(i);
@@ -639,5 +705,79 @@ mod size_probe {
     #[test]
     fn a_quote_row_is_72_bytes() {
         assert_eq!(std::mem::size_of::<super::CdsQuoteRow>(), 72);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The quotes read in runs on rayon's threads are those of one pass over the rows, with the
+    /// same label ids: a file of 100,000 rows (four runs) whose entities, currencies and tiers
+    /// first appear in different runs and come back in others, with rejected rows spread
+    /// through it (one of them interning a new entity before its maturity is refused).
+    #[test]
+    fn runs_parsed_apart_are_the_single_pass() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("quotes.csv");
+        let mut text = String::from("date,entity,currency,tenor,par_spread_bp,seniority,doc_clause,maturity\n");
+        let mut state = 12345u64;
+        let mut next = |n: u64| {
+            state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+            (state >> 33) % n
+        };
+        let tenors = ["6M", "1Y", "3Y", "5Y", "7Y", "10Y"];
+        for i in 0..100_000u64 {
+            // New entities keep arriving as the file goes on; old ones come back.
+            let entity = format!("Name {:05} Fictional Holdings", next(i / 50 + 1));
+            let currency = ["EUR", "USD", "JPY"][next(if i < 40_000 { 2 } else { 3 }) as usize];
+            let seniority = ["", "senior", "sub"][next(if i < 70_000 { 2 } else { 3 }) as usize];
+            let doc = ["", "clause-a"][next(2) as usize];
+            let tenor = tenors[next(6) as usize];
+            let day = 2 + next(20) as u32;
+            let date = NaiveDate::from_ymd_opt(2024, 1, day).unwrap();
+            let date = if Calendar::is_weekend(date) { NaiveDate::from_ymd_opt(2024, 1, 3).unwrap() } else { date };
+            let spread = match next(500) {
+                0 => "-5".to_string(),
+                1 => "abc".to_string(),
+                _ => format!("{}", 20 + next(300)),
+            };
+            let maturity = if next(1000) == 0 { "2023-12-20" } else { "" };
+            text.push_str(&format!("{date},{entity},{currency},{tenor},{spread},{seniority},{doc},{maturity}\n"));
+        }
+        std::fs::write(&path, text).unwrap();
+        let cal = Calendar::weekends_only();
+        let rules = CdsRowRules { max_spread_bp: 5000.0, min_spread_bp: 0.01 };
+        let panel = read(&path, &cal, &rules).unwrap();
+
+        // One pass over the same batch with one set of labels: the reading before runs.
+        let mut single = None;
+        read_table_batches(TABLE, &path, SPECS, |file| {
+            single = Some(parse_run(file, 0..file.height, &file.source(), 0, &cal, &rules));
+        })
+        .unwrap();
+        let single = single.unwrap();
+        assert!(
+            single.rows.len() > 99_000 && single.rejects.len() > 300,
+            "{} {}",
+            single.rows.len(),
+            single.rejects.len()
+        );
+        assert!(single.labels.entities.len() > 1_500, "{}", single.labels.entities.len());
+        assert_eq!(panel.rows.len(), single.rows.len());
+        for (a, b) in panel.rows.iter().zip(&single.rows) {
+            assert_eq!(
+                (a.date, a.entity, a.currency, a.tier, a.tenor, a.row, a.file),
+                (b.date, b.entity, b.currency, b.tier, b.tenor, b.row, b.file)
+            );
+            assert_eq!((a.recovery.to_bits(), a.maturity, a.flags), (b.recovery.to_bits(), b.maturity, b.flags));
+            assert_eq!(format!("{:?}", a.quote), format!("{:?}", b.quote));
+        }
+        let names = |i: &Interner| (0..i.len() as u32).map(|k| i.name(k).to_string()).collect::<Vec<_>>();
+        assert_eq!(names(&panel.entities), names(&single.labels.entities));
+        assert_eq!(names(&panel.currencies), names(&single.labels.currencies));
+        assert_eq!(names(&panel.tiers.names), names(&single.labels.tiers.names));
+        let shown = |r: &[Reject]| r.iter().map(|r| format!("{r:?}")).collect::<Vec<_>>();
+        assert_eq!(shown(&panel.rejects), shown(&single.rejects));
     }
 }
