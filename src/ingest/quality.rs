@@ -366,7 +366,8 @@ pub fn check_cds(
             j += 1;
         }
         let count = j - i;
-        let curve = match panel.tiers.label(h.tier) {
+        // Worded only for a curve that gets a finding.
+        let curve = || match panel.tiers.label(h.tier) {
             t if t.is_empty() => format!("{} curve", panel.currencies.name(h.currency)),
             t => format!("{} {t} curve", panel.currencies.name(h.currency)),
         };
@@ -379,7 +380,7 @@ pub fn check_cds(
                 severity: Severity::Warning,
                 table: super::cds::TABLE,
                 entity: panel.entities.name(h.entity).to_string(),
-                series: curve.clone(),
+                series: curve(),
                 date: h.date,
                 value: count as f64,
                 threshold: s.min_tenors as f64,
@@ -402,7 +403,7 @@ pub fn check_cds(
                     severity: Severity::Info,
                     table: super::cds::TABLE,
                     entity: panel.entities.name(h.entity).to_string(),
-                    series: curve,
+                    series: curve(),
                     date: h.date,
                     value: a / b,
                     threshold: 1.0,
