@@ -191,9 +191,51 @@ pub struct CdsPanel {
     pub files: Vec<String>,
     pub rejects: Vec<Reject>,
     pub info: TableInfo,
+    /// The labels as shared text, made on first use ([`CdsPanel::shared`]).
+    shared: std::sync::OnceLock<SharedLabels>,
+}
+
+/// A panel's labels as shared text: one allocation per entity, currency, seniority and
+/// documentation clause, which every row of every curve that carries it points at (instead of
+/// a copy per curve).
+#[derive(Debug, Default)]
+pub struct SharedLabels {
+    entities: Vec<std::sync::Arc<str>>,
+    currencies: Vec<std::sync::Arc<str>>,
+    /// Per tier: its seniority and documentation clause.
+    tiers: Vec<(Option<std::sync::Arc<str>>, Option<std::sync::Arc<str>>)>,
 }
 
 impl CdsPanel {
+    /// The panel's labels as shared text, made from its interners on the first call (after
+    /// the panel is read). An id added to an interner after that call (none is: the
+    /// interners are filled while the quotes are read) gets a label of its own.
+    pub fn shared(&self) -> &SharedLabels {
+        self.shared.get_or_init(|| SharedLabels {
+            entities: (0..self.entities.len() as u32).map(|i| self.entities.name(i).into()).collect(),
+            currencies: (0..self.currencies.len() as u32).map(|i| self.currencies.name(i).into()).collect(),
+            tiers: (0..self.tiers.len() as u32)
+                .map(|i| (self.tiers.seniority(i).map(Into::into), self.tiers.doc_clause(i).map(Into::into)))
+                .collect(),
+        })
+    }
+
+    /// The entity, currency, seniority and documentation clause of a row, as shared text.
+    #[allow(clippy::type_complexity)]
+    pub fn row_labels(
+        &self,
+        r: &CdsQuoteRow,
+    ) -> (std::sync::Arc<str>, std::sync::Arc<str>, Option<std::sync::Arc<str>>, Option<std::sync::Arc<str>>) {
+        let s = self.shared();
+        let entity = s.entities.get(r.entity as usize).cloned().unwrap_or_else(|| self.entities.name(r.entity).into());
+        let currency =
+            s.currencies.get(r.currency as usize).cloned().unwrap_or_else(|| self.currencies.name(r.currency).into());
+        let (seniority, doc_clause) = s.tiers.get(r.tier as usize).cloned().unwrap_or_else(|| {
+            (self.tiers.seniority(r.tier).map(Into::into), self.tiers.doc_clause(r.tier).map(Into::into))
+        });
+        (entity, currency, seniority, doc_clause)
+    }
+
     /// First and last quote date of the usable rows (the rows are sorted by date).
     pub fn quote_period(&self) -> Option<(chrono::NaiveDate, chrono::NaiveDate)> {
         self.period.or_else(|| Some((self.rows.first()?.date, self.rows.last()?.date)))

@@ -363,9 +363,8 @@ fn calibrate_one(
         _ => None,
     };
     let residuals = crate::calibrate::residuals::reprice_with_plan(&fit, &quotes, curve, s.bootstrap.accrual, shared);
-    let (entity_label, currency_label): (Label, Label) = (entity.into(), currency.into());
-    let seniority: Option<Label> = panel.tiers.seniority(h.tier).map(Label::from);
-    let doc_clause: Option<Label> = panel.tiers.doc_clause(h.tier).map(Label::from);
+    let (entity_label, currency_label, seniority, doc_clause): (Label, Label, Option<Label>, Option<Label>) =
+        panel.row_labels(&h);
     let hazard = fit
         .nodes
         .iter()

@@ -65,7 +65,19 @@ struct Labels {
     entities: std::collections::HashMap<String, std::collections::HashMap<String, Arc<str>>>,
     /// The (entity, currency, seniority, doc_clause) labels last asked for and their answer.
     last: Option<(Arc<str>, Arc<str>, Option<Arc<str>>, Option<Arc<str>>, Arc<str>)>,
+    /// [`Labels::entity_of`]'s answers by the addresses of the labels asked with (the rows of
+    /// the CDS curves share one label per entity, currency and tier part). Each entry holds
+    /// the labels of its key, so that no key's address is freed and reused while the entry
+    /// stands; emptied when it reaches [`ADDRESS_ENTRIES`] (rows whose labels are not shared
+    /// would otherwise grow it without end).
+    by_address: crate::hash::FastMap<[usize; 4], AddressEntry>,
 }
+
+/// The labels of an address key and the answer for them.
+type AddressEntry = ([Option<Arc<str>>; 4], Arc<str>);
+
+/// The most entries [`Labels::entity_of`] keeps by address.
+const ADDRESS_ENTRIES: usize = 1 << 16;
 
 impl Labels {
     fn get(&mut self, v: &str) -> Arc<str> {
@@ -99,11 +111,23 @@ impl Labels {
                 return l.clone();
             }
         }
-        let l = if multi.contains(&**e) {
-            let tier = crate::ingest::cds::tier_label(s.as_deref(), d.as_deref());
-            self.entity(multi, e, &curve_class(c, &tier))
-        } else {
-            self.entity(multi, e, c)
+        let address = |a: &Arc<str>| Arc::as_ptr(a) as *const u8 as usize;
+        let key = [address(e), address(c), s.as_ref().map_or(0, address), d.as_ref().map_or(0, address)];
+        let l = match self.by_address.get(&key) {
+            Some((_, l)) => l.clone(),
+            None => {
+                let l = if multi.contains(&**e) {
+                    let tier = crate::ingest::cds::tier_label(s.as_deref(), d.as_deref());
+                    self.entity(multi, e, &curve_class(c, &tier))
+                } else {
+                    self.entity(multi, e, c)
+                };
+                if self.by_address.len() >= ADDRESS_ENTRIES {
+                    self.by_address.clear();
+                }
+                self.by_address.insert(key, ([Some(e.clone()), Some(c.clone()), s.clone(), d.clone()], l.clone()));
+                l
+            }
         };
         self.last = Some((e.clone(), c.clone(), s.clone(), d.clone(), l.clone()));
         l
@@ -408,4 +432,53 @@ pub fn write_stability_tables(out: &StabilityOutput, dir: &Path, meta: &[(String
     tables::write(&out.residuals.tenors, dir, meta)?;
     tables::write(&out.residuals.worst, dir, meta)?;
     tables::write(&out.residuals.repricing, dir, meta)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The series entity of a row's labels is the one worked out from their texts, whether
+    /// the labels are shared across rows (answered by address), fresh for each row, or more
+    /// than the address entries hold: names quoted in one currency and in two, with tiers that
+    /// differ in the seniority or only in the clause.
+    #[test]
+    fn entity_labels_by_address_are_the_worked_out_ones() {
+        let multi: BTreeSet<String> = ["Beta Fictional".to_string()].into_iter().collect();
+        let texts = |i: usize| {
+            let e = ["Alpha Fictional", "Beta Fictional", "Gamma Fictional"][i % 3];
+            let c = ["EUR", "USD"][(i / 3) % 2];
+            let s = [None, Some("senior"), Some("sub")][(i / 6) % 3];
+            let d = [None, Some("clause-a"), Some("clause-b")][(i / 18) % 3];
+            (e, c, s, d)
+        };
+        let want = |(e, c, s, d): (&str, &str, Option<&str>, Option<&str>)| {
+            if multi.contains(e) {
+                series_name(&multi, e, &curve_class(c, &crate::ingest::cds::tier_label(s, d)))
+            } else {
+                e.to_string()
+            }
+        };
+        let arc = |t: Option<&str>| t.map(Arc::<str>::from);
+        // One label per text, as a panel's rows share them.
+        let mut one: std::collections::HashMap<&str, Arc<str>> = Default::default();
+        let mut share = |t: &'static str| one.entry(t).or_insert_with(|| Arc::from(t)).clone();
+        let shared: Vec<_> = (0..54)
+            .map(|i| texts(i))
+            .map(|(e, c, s, d)| (share(e), share(c), s.map(&mut share), d.map(&mut share)))
+            .collect();
+        let mut labels = Labels::default();
+        for round in 0..3 * ADDRESS_ENTRIES {
+            let i = (round * 7) % 54;
+            let (e, c, s, d) = if round % 2 == 0 {
+                shared[i].clone()
+            } else {
+                let (e, c, s, d) = texts(i);
+                (Arc::from(e), Arc::from(c), arc(s), arc(d))
+            };
+            let got = labels.entity_of(&multi, &e, &c, &s, &d);
+            assert_eq!(&*got, want(texts(i)), "round {round}");
+        }
+        assert!(labels.by_address.len() <= ADDRESS_ENTRIES);
+    }
 }

@@ -28,7 +28,8 @@ pub fn tenor_label(t: crate::time::Tenor) -> Label {
 #[derive(Debug, Clone, PartialEq)]
 pub struct HazardCurveRow {
     pub date: NaiveDate,
-    /// Shared by every row of the curve (one allocation per curve, not per node).
+    /// Shared by the rows that carry it (a CDS curve's rows point at its panel's one label per
+    /// entity: `CdsPanel::shared`).
     pub entity: Label,
     pub currency: Label,
     /// The tier of a CDS curve (None when the quotes give none; always None for bonds).
