@@ -464,7 +464,7 @@ mod tests {
         let mut one: std::collections::HashMap<&str, Arc<str>> = Default::default();
         let mut share = |t: &'static str| one.entry(t).or_insert_with(|| Arc::from(t)).clone();
         let shared: Vec<_> = (0..54)
-            .map(|i| texts(i))
+            .map(&texts)
             .map(|(e, c, s, d)| (share(e), share(c), s.map(&mut share), d.map(&mut share)))
             .collect();
         let mut labels = Labels::default();

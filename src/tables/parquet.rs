@@ -635,7 +635,7 @@ mod tests {
             TableBuilder::new()
                 .ints("row", rows.iter().map(|&i| Some(i as i64)))
                 .strings("entity", rows.iter().map(|&i| (i % 5000 != 7).then(|| format!("Entity number {}", i / 900))))
-                .strings("note", rows.iter().map(|&i| ((i / PIECE_ROWS) % 3 == 1 && i % 9 == 0).then(|| "short")))
+                .strings("note", rows.iter().map(|&i| ((i / PIECE_ROWS) % 3 == 1 && i % 9 == 0).then_some("short")))
                 .floats("value", rows.iter().map(|&i| (i % 70_001 != 0).then(|| (i as f64).sqrt())))
                 .dates("date", rows.iter().map(|&i| NaiveDate::from_num_days_from_ce_opt(730_000 + (i / 8) as i32)))
                 .finish()
