@@ -237,29 +237,69 @@ pub(crate) fn calibration_rows(counts: &BTreeMap<(String, Period), PeriodCounts>
 
 type GroupKey = (String, Period, Scope, String);
 
-fn push_mean(groups: &mut BTreeMap<GroupKey, Vec<f64>>, key: GroupKey, values: &[f64]) {
-    if let Some(m) = mean(values) {
-        groups.entry(key).or_default().push(m);
-    }
-}
-
 /// Entity means per (series, period, scope, key), for grade and universe cross-sections.
+///
+/// Each history's means per period are worked out on its own (histories in parallel), then
+/// pushed to their groups in panel order, as one pass over the panel pushes them, so each
+/// group's means are in the same order (and the grade and universe rows' sums the same).
+/// The histories of one series are consecutive in the panel: their means gather under keys
+/// without the series' name, which each group gets once, when the series ends.
 pub(crate) fn entity_means(panel: &Panel, settings: &StabilitySettings) -> BTreeMap<GroupKey, Vec<f64>> {
+    use rayon::prelude::*;
+    /// A history's mean of all its values in a period and of each grade's values (grades in
+    /// order; None where the mean is undefined).
+    type PeriodMeans = (Period, Option<f64>, Vec<(u32, Option<f64>)>);
+    let histories: Vec<(&(String, String), &Vec<Point>)> = panel.iter().collect();
+    let per_history: Vec<Vec<PeriodMeans>> = histories
+        .par_iter()
+        .map(|(_, points)| {
+            group_by_period(points, |p| p.date, settings)
+                .into_iter()
+                .map(|(period, pts)| {
+                    let all: Vec<f64> = pts.iter().map(|p| p.value).collect();
+                    let mut by_grade: BTreeMap<u32, Vec<f64>> = BTreeMap::new();
+                    for p in &pts {
+                        if let Some(g) = p.grade() {
+                            by_grade.entry(g).or_default().push(p.value);
+                        }
+                    }
+                    (period, mean(&all), by_grade.into_iter().map(|(g, v)| (g, mean(&v))).collect())
+                })
+                .collect()
+        })
+        .collect();
     let mut groups: BTreeMap<GroupKey, Vec<f64>> = BTreeMap::new();
-    for ((series, _), points) in panel {
-        for (period, pts) in group_by_period(points, |p| p.date, settings) {
-            let all: Vec<f64> = pts.iter().map(|p| p.value).collect();
-            push_mean(&mut groups, (series.clone(), period, Scope::Universe, "all".into()), &all);
-            let mut by_grade: BTreeMap<u32, Vec<f64>> = BTreeMap::new();
-            for p in &pts {
-                if let Some(g) = p.grade() {
-                    by_grade.entry(g).or_default().push(p.value);
+    // The current series' groups: (period, scope, grade; 0 for the universe).
+    let mut series_groups: BTreeMap<(Period, Scope, u32), Vec<f64>> = BTreeMap::new();
+    let flush = |series: &str,
+                 series_groups: &mut BTreeMap<(Period, Scope, u32), Vec<f64>>,
+                 groups: &mut BTreeMap<GroupKey, Vec<f64>>| {
+        for ((period, scope, g), v) in std::mem::take(series_groups) {
+            let key = if scope == Scope::Universe { "all".to_string() } else { g.to_string() };
+            groups.entry((series.to_string(), period, scope, key)).or_default().extend(v);
+        }
+    };
+    let mut current: Option<&str> = None;
+    for (((series, _), _), periods) in histories.iter().zip(per_history) {
+        if current != Some(series.as_str()) {
+            if let Some(done) = current {
+                flush(done, &mut series_groups, &mut groups);
+            }
+            current = Some(series.as_str());
+        }
+        for (period, all, grades) in periods {
+            if let Some(m) = all {
+                series_groups.entry((period, Scope::Universe, 0)).or_default().push(m);
+            }
+            for (g, m) in grades {
+                if let Some(m) = m {
+                    series_groups.entry((period, Scope::Grade, g)).or_default().push(m);
                 }
             }
-            for (g, v) in by_grade {
-                push_mean(&mut groups, (series.clone(), period, Scope::Grade, g.to_string()), &v);
-            }
         }
+    }
+    if let Some(done) = current {
+        flush(done, &mut series_groups, &mut groups);
     }
     groups
 }
@@ -278,12 +318,26 @@ pub(crate) fn group_rows(means: &BTreeMap<GroupKey, Vec<f64>>) -> Vec<(Period, S
 /// the same series, scope and key in the immediately preceding period (none if that is absent).
 pub(crate) fn fill_changes(rows: &mut [(Period, StabilityRow)]) {
     type Centre = (Option<f64>, Option<f64>);
-    let base: BTreeMap<(String, Scope, String, Period), Centre> =
-        rows.iter().map(|(p, r)| ((r.series.clone(), r.scope, r.key.clone(), *p), (r.mean, r.median))).collect();
-    for (p, r) in rows.iter_mut() {
-        let Some(&(m0, med0)) = base.get(&(r.series.clone(), r.scope, r.key.clone(), p.previous())) else { continue };
-        r.mean_change = m0.zip(r.mean).and_then(|(a, b)| relative_change(a, b));
-        r.median_change = med0.zip(r.median).and_then(|(a, b)| relative_change(a, b));
+    // Keyed by the rows' own texts (no copy per row); a key met twice keeps its last row, as a
+    // map collected from the rows does.
+    let base: crate::hash::FastMap<(&str, Scope, &str, Period), Centre> =
+        rows.iter().map(|(p, r)| ((r.series.as_str(), r.scope, r.key.as_str(), *p), (r.mean, r.median))).collect();
+    let changes: Vec<Option<Centre>> = rows
+        .iter()
+        .map(|(p, r)| {
+            let &(m0, med0) = base.get(&(r.series.as_str(), r.scope, r.key.as_str(), p.previous()))?;
+            Some((
+                m0.zip(r.mean).and_then(|(a, b)| relative_change(a, b)),
+                med0.zip(r.median).and_then(|(a, b)| relative_change(a, b)),
+            ))
+        })
+        .collect();
+    drop(base);
+    for ((_, r), change) in rows.iter_mut().zip(changes) {
+        if let Some((mean_change, median_change)) = change {
+            r.mean_change = mean_change;
+            r.median_change = median_change;
+        }
     }
 }
 
@@ -347,4 +401,100 @@ pub(crate) fn cross_sections(panel: &Panel, settings: &StabilitySettings) -> Vec
         })
         .collect();
     per_series.into_iter().flatten().collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::stability::inputs::Point;
+    use crate::stability::ReviewPeriod;
+
+    /// The means and changes as one pass over the panel works them out (the form before the
+    /// histories were taken in parallel and the rows' texts borrowed).
+    fn entity_means_one_pass(panel: &Panel, settings: &StabilitySettings) -> BTreeMap<GroupKey, Vec<f64>> {
+        let push = |groups: &mut BTreeMap<GroupKey, Vec<f64>>, key: GroupKey, values: &[f64]| {
+            if let Some(m) = mean(values) {
+                groups.entry(key).or_default().push(m);
+            }
+        };
+        let mut groups: BTreeMap<GroupKey, Vec<f64>> = BTreeMap::new();
+        for ((series, _), points) in panel {
+            for (period, pts) in group_by_period(points, |p| p.date, settings) {
+                let all: Vec<f64> = pts.iter().map(|p| p.value).collect();
+                push(&mut groups, (series.clone(), period, Scope::Universe, "all".into()), &all);
+                let mut by_grade: BTreeMap<u32, Vec<f64>> = BTreeMap::new();
+                for p in &pts {
+                    if let Some(g) = p.grade() {
+                        by_grade.entry(g).or_default().push(p.value);
+                    }
+                }
+                for (g, v) in by_grade {
+                    push(&mut groups, (series.clone(), period, Scope::Grade, g.to_string()), &v);
+                }
+            }
+        }
+        groups
+    }
+
+    fn fill_changes_one_pass(rows: &mut [(Period, StabilityRow)]) {
+        type Centre = (Option<f64>, Option<f64>);
+        let base: BTreeMap<(String, Scope, String, Period), Centre> =
+            rows.iter().map(|(p, r)| ((r.series.clone(), r.scope, r.key.clone(), *p), (r.mean, r.median))).collect();
+        for (p, r) in rows.iter_mut() {
+            let Some(&(m0, med0)) = base.get(&(r.series.clone(), r.scope, r.key.clone(), p.previous())) else {
+                continue;
+            };
+            r.mean_change = m0.zip(r.mean).and_then(|(a, b)| relative_change(a, b));
+            r.median_change = med0.zip(r.median).and_then(|(a, b)| relative_change(a, b));
+        }
+    }
+
+    /// The entity means gathered from histories worked out apart, and the changes from the
+    /// rows' borrowed texts, are the one-pass forms' bit for bit: three series, 60 entities
+    /// with grades that change and entities with none, two years of points with gaps, values
+    /// whose sums depend on their order; and the grade and universe rows made from them.
+    #[test]
+    fn means_and_changes_are_the_one_pass_forms() {
+        let mut state = 99u64;
+        let mut next = move || {
+            state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+            (state >> 11) as f64 / (1u64 << 53) as f64
+        };
+        let start = NaiveDate::from_ymd_opt(2022, 1, 3).unwrap();
+        let mut panel: Panel = BTreeMap::new();
+        for series in ["hazard_5y", "pd_1y", "zz_other"] {
+            for e in 0..60 {
+                let mut points = Vec::new();
+                for day in 0..730 {
+                    if next() < 0.3 {
+                        continue;
+                    }
+                    let grade = if e % 7 == 0 { None } else { Some(((e + day / 200) % 5) as u32) };
+                    let value = (1.0 + next()) * 10f64.powi((e % 5) as i32 - 3);
+                    points.push(Point::new(start + chrono::Days::new(day as u64), value, grade));
+                }
+                panel.insert((series.to_string(), format!("Name {e:02}")), points);
+            }
+        }
+        for period in [ReviewPeriod::Quarter, ReviewPeriod::Month] {
+            let settings = StabilitySettings { period, ..StabilitySettings::default() };
+            let (got, want) = (entity_means(&panel, &settings), entity_means_one_pass(&panel, &settings));
+            assert_eq!(got.len(), want.len());
+            assert!(got.len() > 100, "{} groups", got.len());
+            for ((kg, vg), (kw, vw)) in got.iter().zip(&want) {
+                assert_eq!(kg, kw);
+                assert_eq!(
+                    vg.iter().map(|v| v.to_bits()).collect::<Vec<_>>(),
+                    vw.iter().map(|v| v.to_bits()).collect::<Vec<_>>(),
+                    "{kg:?}"
+                );
+            }
+            let mut rows = group_rows(&got);
+            let mut reference = rows.clone();
+            fill_changes(&mut rows);
+            fill_changes_one_pass(&mut reference);
+            assert!(rows.iter().filter(|(_, r)| r.mean_change.is_some()).count() > 50);
+            assert_eq!(format!("{rows:?}"), format!("{reference:?}"));
+        }
+    }
 }

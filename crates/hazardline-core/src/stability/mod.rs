@@ -98,7 +98,11 @@ fn analyse_panel(
     rows.extend(metrics::calibration_rows(&counts));
     rows.extend(metrics::group_rows(&means));
     metrics::fill_changes(&mut rows);
-    rows.sort_by(|(pa, a), (pb, b)| (pa, &a.series, a.scope, &a.key).cmp(&(pb, &b.series, b.scope, &b.key)));
+    // Stable, on rayon's threads (rows of equal keys keep their order, as `sort_by` keeps it).
+    {
+        use rayon::slice::ParallelSliceMut;
+        rows.par_sort_by(|(pa, a), (pb, b)| (pa, &a.series, a.scope, &a.key).cmp(&(pb, &b.series, b.scope, &b.key)));
+    }
     Ok(SeriesAnalysis {
         rows: rows.into_iter().map(|(_, r)| r).collect(),
         cross_section: metrics::cross_sections(&panel, settings),
