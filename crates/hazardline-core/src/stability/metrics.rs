@@ -470,7 +470,7 @@ mod tests {
                         continue;
                     }
                     let grade = if e % 7 == 0 { None } else { Some(((e + day / 200) % 5) as u32) };
-                    let value = (1.0 + next()) * 10f64.powi((e % 5) as i32 - 3);
+                    let value = (1.0 + next()) * 10f64.powi((e % 5) - 3);
                     points.push(Point::new(start + chrono::Days::new(day as u64), value, grade));
                 }
                 panel.insert((series.to_string(), format!("Name {e:02}")), points);
