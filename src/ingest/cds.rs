@@ -343,9 +343,7 @@ pub fn read(path: &Path, cal: &Calendar, rules: &CdsRowRules) -> Result<CdsPanel
                 .into_par_iter()
                 .map(|from| parse_run(file, from..(from + RUN_ROWS).min(wave_end), &src, fidx, cal, rules))
                 .collect();
-            for run in runs {
-                merge_run(&mut panel, run);
-            }
+            merge_runs(&mut panel, runs);
         }
     })?;
     panel.info = info;
@@ -381,22 +379,50 @@ fn parse_run(
     run
 }
 
-/// Appends a run's rows and rejects to the panel, its labels given their panel ids.
-fn merge_run(panel: &mut CdsPanel, run: ParsedRun) {
-    let ParsedRun { rows, rejects, labels } = run;
+/// Appends runs' rows and rejects to the panel, in run order: each run's labels get their
+/// panel ids first (one run after the other, so ids go to labels in the order the rows first
+/// meet them), then the rows are copied into the panel with those ids, runs on rayon's threads
+/// (each into its own stretch of the panel's rows).
+fn merge_runs(panel: &mut CdsPanel, runs: Vec<ParsedRun>) {
+    use rayon::prelude::*;
     let ids = |local: &Interner, global: &mut Interner| -> Vec<u32> {
         (0..local.len() as u32).map(|i| global.id(local.name(i))).collect()
     };
-    let entities = ids(&labels.entities, &mut panel.entities);
-    let currencies = ids(&labels.currencies, &mut panel.currencies);
-    let tiers = ids(&labels.tiers.names, &mut panel.tiers.names);
-    panel.rows.extend(rows.into_iter().map(|mut r| {
-        r.entity = entities[r.entity as usize];
-        r.currency = currencies[r.currency as usize];
-        r.tier = tiers[r.tier as usize];
-        r
-    }));
-    panel.rejects.extend(rejects);
+    let maps: Vec<[Vec<u32>; 3]> = runs
+        .iter()
+        .map(|run| {
+            [
+                ids(&run.labels.entities, &mut panel.entities),
+                ids(&run.labels.currencies, &mut panel.currencies),
+                ids(&run.labels.tiers.names, &mut panel.tiers.names),
+            ]
+        })
+        .collect();
+    let total: usize = runs.iter().map(|r| r.rows.len()).sum();
+    let start = panel.rows.len();
+    panel.rows.reserve(total);
+    let mut rest = &mut panel.rows.spare_capacity_mut()[..total];
+    let mut stretches = Vec::with_capacity(runs.len());
+    for run in &runs {
+        let (stretch, tail) = std::mem::take(&mut rest).split_at_mut(run.rows.len());
+        stretches.push(stretch);
+        rest = tail;
+    }
+    runs.par_iter().zip(&maps).zip(stretches).for_each(|((run, [entities, currencies, tiers]), stretch)| {
+        for (slot, r) in stretch.iter_mut().zip(&run.rows) {
+            let mut r = *r;
+            r.entity = entities[r.entity as usize];
+            r.currency = currencies[r.currency as usize];
+            r.tier = tiers[r.tier as usize];
+            slot.write(r);
+        }
+    });
+    // SAFETY: the `total` slots after `start` were each written above (the stretches split
+    // them exactly, one per run of as many rows).
+    unsafe { panel.rows.set_len(start + total) };
+    for run in runs {
+        panel.rejects.extend(run.rejects);
+    }
 }
 
 fn reject(src: &str, row: u64, reason: &'static str, detail: String) -> Reject {

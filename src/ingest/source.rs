@@ -540,16 +540,24 @@ pub fn read_table_batches(
             if height == 0 && offset > 0 {
                 break;
             }
+            // The columns typed and made one chunk each on rayon's threads (the text columns'
+            // copies are most of it); the first failing column in the specs' order is reported.
+            let typed: Vec<Result<Values>> = {
+                use rayon::prelude::*;
+                specs
+                    .par_iter()
+                    .map(|spec| match frame.column(spec.name) {
+                        Ok(c) => values_of(&file, table, spec, c),
+                        Err(_) => Ok(match hive.iter().find(|(k, _)| k == spec.name) {
+                            Some((_, v)) => Values::Const(v.clone()),
+                            None => Values::Absent,
+                        }),
+                    })
+                    .collect()
+            };
             let mut columns = Vec::with_capacity(specs.len());
-            for spec in specs {
-                let values = match frame.column(spec.name) {
-                    Ok(c) => values_of(&file, table, spec, c)?,
-                    Err(_) => match hive.iter().find(|(k, _)| k == spec.name) {
-                        Some((_, v)) => Values::Const(v.clone()),
-                        None => Values::Absent,
-                    },
-                };
-                columns.push((spec.name.to_string(), values));
+            for (spec, values) in specs.iter().zip(typed) {
+                columns.push((spec.name.to_string(), values?));
             }
             drop(frame);
             let raw = RawFile { path: file.clone(), height, row_offset: offset, columns };
