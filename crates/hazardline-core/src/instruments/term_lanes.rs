@@ -7,7 +7,8 @@
 //! [`TermLayout`] lists a node's intervals once, when the bootstrap's plan is built (point
 //! indices, each interval's ln DF difference, length and lead, each coupon's premium factor).
 //! At each step [`TermLayout::evaluate`] takes four intervals at a time: it gathers P Q and
-//! ln Q at their ends, computes the four terms on the lanes of AVX2 registers (both forms,
+//! ln Q at their ends, computes the four terms on the lanes of AVX2 registers (the form the
+//! scalar code takes when all four take the same one, which is most groups; otherwise both,
 //! keeping per lane the one the scalar code takes), and adds them to the sums one after the
 //! other in the order the scalar code adds them, so that the additions of one group of four
 //! overlap with the arithmetic of the next.
