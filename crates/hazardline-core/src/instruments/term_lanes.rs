@@ -234,6 +234,22 @@ impl TermLayout {
             ]
         };
 
+        // The terms of a group: the one form all its real intervals take, or both blended lane
+        // by lane (see `form`).
+        macro_rules! by_form {
+            ($series:expr, $left:expr, $series_form:expr, $closed_form:expr) => {{
+                let series: __m256d = $series;
+                match form(series, $left) {
+                    Form::Closed => $closed_form(),
+                    Form::Series => $series_form(),
+                    Form::Both => {
+                        let (s, l) = ($series_form(), $closed_form());
+                        (_mm256_blendv_pd(l.0, s.0, series), _mm256_blendv_pd(l.1, s.1, series))
+                    }
+                }
+            }};
+        }
+
         let mut prot = _mm_setzero_pd();
         let n = self.n_prot;
         let mut k = 0;
@@ -257,14 +273,7 @@ impl TermLayout {
                 let hx = ddiv(hv, hd, div(one, xv), xd);
                 dmul(hx.0, hx.1, sub(a0v, a1v), sub(a0d, a1d))
             };
-            let (tv, td) = match form(series, n - k) {
-                Form::Closed => closed_form(),
-                Form::Series => series_form(),
-                Form::Both => {
-                    let (s, l) = (series_form(), closed_form());
-                    (_mm256_blendv_pd(l.0, s.0, series), _mm256_blendv_pd(l.1, s.1, series))
-                }
-            };
+            let (tv, td) = by_form!(series, n - k, series_form, closed_form);
             let terms = unpack(tv, td);
             // (v, d) + (v, d): the Dual addition, lane by lane.
             for t in &terms[..(n - k).min(4)] {
@@ -305,14 +314,7 @@ impl TermLayout {
                 let hx = ddiv(hv, hd, inv, xd);
                 dmul(hx.0, hx.1, q5.0, q5.1)
             };
-            let (tv, td) = match form(series, n - k) {
-                Form::Closed => closed_form(),
-                Form::Series => series_form(),
-                Form::Both => {
-                    let (s, l) = (series_form(), closed_form());
-                    (_mm256_blendv_pd(l.0, s.0, series), _mm256_blendv_pd(l.1, s.1, series))
-                }
-            };
+            let (tv, td) = by_form!(series, n - k, series_form, closed_form);
             // Intervals k, k + 1 then k + 2, k + 3 as (value, derivative) pairs.
             let out = aod[k..k + 4].as_mut_ptr().cast::<f64>();
             _mm256_storeu_pd(out, _mm256_unpacklo_pd(tv, td));
