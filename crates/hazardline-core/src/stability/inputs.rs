@@ -365,11 +365,8 @@ mod tests {
     /// for bit: tenor sets that overlap in part, in full and not at all.
     #[test]
     fn spread_move_is_the_mean_of_the_gathered_changes() {
-        let mut state = 7u64;
-        let mut next = move || {
-            state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
-            (state >> 11) as f64 / (1u64 << 53) as f64
-        };
+        let mut rng = crate::sim::rng::Rng::new(7);
+        let mut next = move || rng.uniform();
         let entity: Arc<str> = "Alder".into();
         let mut compared = 0;
         for _ in 0..2_000 {

@@ -455,11 +455,8 @@ mod tests {
     /// whose sums depend on their order; and the grade and universe rows made from them.
     #[test]
     fn means_and_changes_are_the_one_pass_forms() {
-        let mut state = 99u64;
-        let mut next = move || {
-            state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
-            (state >> 11) as f64 / (1u64 << 53) as f64
-        };
+        let mut rng = crate::sim::rng::Rng::new(99);
+        let mut next = move || rng.uniform();
         let start = NaiveDate::from_ymd_opt(2022, 1, 3).unwrap();
         let mut panel: Panel = BTreeMap::new();
         for series in ["hazard_5y", "pd_1y", "zz_other"] {
