@@ -789,11 +789,8 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("quotes.csv");
         let mut text = String::from("date,entity,currency,tenor,par_spread_bp,seniority,doc_clause,maturity\n");
-        let mut state = 12345u64;
-        let mut next = |n: u64| {
-            state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
-            (state >> 33) % n
-        };
+        let mut rng = crate::sim::rng::Rng::new(12345);
+        let mut next = |n: u64| rng.below(n);
         let tenors = ["6M", "1Y", "3Y", "5Y", "7Y", "10Y"];
         for i in 0..100_000u64 {
             // New entities keep arriving as the file goes on; old ones come back.
