@@ -101,9 +101,6 @@ impl Drops {
     fn new(n: usize) -> Drops {
         Drops { marked: vec![false; n], why: Default::default() }
     }
-    fn is(&self, k: usize) -> bool {
-        self.marked[k]
-    }
     fn set(&mut self, k: usize, reason: &'static str, detail: String) {
         self.marked[k] = true;
         self.why.insert(k, (reason, detail));
@@ -239,80 +236,24 @@ pub fn check_cds(
     let rows = std::mem::take(&mut panel.rows);
     let n = rows.len();
     let order = series_order(panel, &rows);
+    // Every rule before the curve rules looks at one entity's rows: the entities' runs of the
+    // order are checked on rayon's threads, and what each finds is applied in run order (the
+    // findings in the order one pass over the whole order pushes them).
+    let checked: Vec<EntityChecks> = entity_runs(&rows, &order)
+        .par_iter()
+        .map(|run| entity_checks(panel, &rows, &order[run.clone()], first_default, s))
+        .collect();
     let mut drop = Drops::new(n);
     let mut flags = vec![0u8; n];
     let mut findings: Vec<QualityFlag> = Vec::new();
-
-    // Duplicates: adjacent in the order with the same (entity, currency, tier, tenor, date).
-    let same_key = |a: &CdsQuoteRow, b: &CdsQuoteRow| {
-        a.entity == b.entity && a.currency == b.currency && a.tier == b.tier && a.tenor == b.tenor && a.date == b.date
-    };
-    let mut i = 0;
-    while i < n {
-        let first = &rows[order[i] as usize];
-        let mut j = i + 1;
-        while j < n && same_key(first, &rows[order[j] as usize]) {
-            j += 1;
+    for c in checked {
+        for (k, (reason, detail)) in c.drops.why {
+            drop.set(k, reason, detail);
         }
-        if j - i > 1 {
-            let conflicting = order[i + 1..j].iter().any(|&k| {
-                let r = &rows[k as usize];
-                r.quote != first.quote || r.recovery.to_bits() != first.recovery.to_bits()
-            });
-            for (m, &k) in order[i..j].iter().enumerate() {
-                if conflicting {
-                    drop.set(
-                        k as usize,
-                        "conflicting_duplicate",
-                        format!("quoted {} times on this date with different values; none is used", j - i),
-                    );
-                } else if m > 0 {
-                    drop.set(k as usize, "duplicate_row", format!("repeats {} row {}", panel.source(first), first.row));
-                }
-            }
+        for (k, bits) in c.flags {
+            flags[k] |= bits;
         }
-        i = j;
-    }
-
-    // Quotes after the entity's default.
-    for (k, r) in rows.iter().enumerate() {
-        if !drop.is(k) {
-            if let Some(Some(d)) = first_default.get(r.entity as usize) {
-                if r.date > *d {
-                    drop.set(k, "after_default", format!("quote dated {} after the entity's default on {d}", r.date));
-                }
-            }
-        }
-    }
-
-    // Series rules: per (entity, currency, tier, tenor), par-spread quotes in date order.
-    let mut start = 0;
-    let mut series: Vec<usize> = Vec::new();
-    let mut values: Vec<f64> = Vec::new();
-    let mut scratch: Vec<f64> = Vec::new();
-    while start < n {
-        let head = &rows[order[start] as usize];
-        let mut end = start + 1;
-        while end < n {
-            let r = &rows[order[end] as usize];
-            if r.entity != head.entity || r.currency != head.currency || r.tier != head.tier || r.tenor != head.tenor {
-                break;
-            }
-            end += 1;
-        }
-        series.clear();
-        values.clear();
-        for &k in &order[start..end] {
-            let k = k as usize;
-            if !drop.is(k) {
-                if let Some(v) = rows[k].spread_bp() {
-                    series.push(k);
-                    values.push(v);
-                }
-            }
-        }
-        series_rules(panel, &rows, &series, &values, &mut scratch, &mut drop, &mut flags, &mut findings, s);
-        start = end;
+        findings.extend(c.findings);
     }
 
     // Move rejects out and compact the kept rows in place (no second copy of the panel), then
@@ -430,14 +371,142 @@ pub fn check_cds(
 }
 
 #[allow(clippy::too_many_arguments)]
+/// The runs of one entity in `order` (the series order, entity first), as ranges of it.
+fn entity_runs(rows: &[CdsQuoteRow], order: &[u32]) -> Vec<std::ops::Range<usize>> {
+    let mut runs = Vec::new();
+    let mut i = 0;
+    while i < order.len() {
+        let entity = rows[order[i] as usize].entity;
+        let mut j = i + 1;
+        while j < order.len() && rows[order[j] as usize].entity == entity {
+            j += 1;
+        }
+        runs.push(i..j);
+        i = j;
+    }
+    runs
+}
+
+/// What the rules of one entity's rows find: the rows they drop (by row index, with the rule
+/// and its detail), the flag bits they set, and their findings in the order they are found.
+#[derive(Default)]
+struct EntityChecks {
+    drops: EntityDrops,
+    flags: Vec<(usize, u8)>,
+    findings: Vec<QualityFlag>,
+}
+
+/// The rows one entity's rules drop.
+#[derive(Default)]
+struct EntityDrops {
+    why: hazardline_core::hash::FastMap<usize, (&'static str, String)>,
+}
+
+impl EntityDrops {
+    fn is(&self, k: usize) -> bool {
+        self.why.contains_key(&k)
+    }
+    fn set(&mut self, k: usize, reason: &'static str, detail: String) {
+        self.why.insert(k, (reason, detail));
+    }
+}
+
+/// The duplicate, after-default and series rules on the rows of one entity, `order` being
+/// that entity's run of the series order.
+fn entity_checks(
+    panel: &CdsPanel,
+    rows: &[CdsQuoteRow],
+    order: &[u32],
+    first_default: &[Option<NaiveDate>],
+    s: &QualitySettings,
+) -> EntityChecks {
+    let n = order.len();
+    let mut out = EntityChecks::default();
+    let EntityChecks { drops: drop, flags, findings } = &mut out;
+
+    // Duplicates: adjacent in the order with the same (entity, currency, tier, tenor, date).
+    let same_key = |a: &CdsQuoteRow, b: &CdsQuoteRow| {
+        a.entity == b.entity && a.currency == b.currency && a.tier == b.tier && a.tenor == b.tenor && a.date == b.date
+    };
+    let mut i = 0;
+    while i < n {
+        let first = &rows[order[i] as usize];
+        let mut j = i + 1;
+        while j < n && same_key(first, &rows[order[j] as usize]) {
+            j += 1;
+        }
+        if j - i > 1 {
+            let conflicting = order[i + 1..j].iter().any(|&k| {
+                let r = &rows[k as usize];
+                r.quote != first.quote || r.recovery.to_bits() != first.recovery.to_bits()
+            });
+            for (m, &k) in order[i..j].iter().enumerate() {
+                if conflicting {
+                    drop.set(
+                        k as usize,
+                        "conflicting_duplicate",
+                        format!("quoted {} times on this date with different values; none is used", j - i),
+                    );
+                } else if m > 0 {
+                    drop.set(k as usize, "duplicate_row", format!("repeats {} row {}", panel.source(first), first.row));
+                }
+            }
+        }
+        i = j;
+    }
+
+    // Quotes after the entity's default.
+    for &k in order {
+        let (k, r) = (k as usize, &rows[k as usize]);
+        if !drop.is(k) {
+            if let Some(Some(d)) = first_default.get(r.entity as usize) {
+                if r.date > *d {
+                    drop.set(k, "after_default", format!("quote dated {} after the entity's default on {d}", r.date));
+                }
+            }
+        }
+    }
+
+    // Series rules: per (entity, currency, tier, tenor), par-spread quotes in date order.
+    let mut start = 0;
+    let mut series: Vec<usize> = Vec::new();
+    let mut values: Vec<f64> = Vec::new();
+    let mut scratch: Vec<f64> = Vec::new();
+    while start < n {
+        let head = &rows[order[start] as usize];
+        let mut end = start + 1;
+        while end < n {
+            let r = &rows[order[end] as usize];
+            if r.entity != head.entity || r.currency != head.currency || r.tier != head.tier || r.tenor != head.tenor {
+                break;
+            }
+            end += 1;
+        }
+        series.clear();
+        values.clear();
+        for &k in &order[start..end] {
+            let k = k as usize;
+            if !drop.is(k) {
+                if let Some(v) = rows[k].spread_bp() {
+                    series.push(k);
+                    values.push(v);
+                }
+            }
+        }
+        series_rules(panel, rows, &series, &values, &mut scratch, drop, flags, findings, s);
+        start = end;
+    }
+    out
+}
+
 fn series_rules(
     panel: &CdsPanel,
     rows: &[CdsQuoteRow],
     series: &[usize],
     values: &[f64],
     scratch: &mut Vec<f64>,
-    drop: &mut Drops,
-    flags: &mut [u8],
+    drop: &mut EntityDrops,
+    flags: &mut Vec<(usize, u8)>,
     findings: &mut Vec<QualityFlag>,
     s: &QualitySettings,
 ) {
@@ -527,7 +596,7 @@ fn series_rules(
         let repeats = b - a - 1;
         if repeats >= s.stale_days {
             for &q in &keep[a + 1..b] {
-                flags[series[q]] |= FLAG_STALE;
+                flags.push((series[q], FLAG_STALE));
             }
             let k0 = series[keep[a]];
             let (e, ser) = name(k0);
@@ -573,7 +642,7 @@ fn series_rules(
             && next.abs() >= s.spike_revert_share * r.abs()
         {
             let k = series[keep[c + 1]];
-            flags[k] |= FLAG_SPIKE;
+            flags.push((k, FLAG_SPIKE));
             let (e, ser) = name(k);
             findings.push(QualityFlag {
                 rule: FlagRule::Spike,
@@ -662,6 +731,60 @@ mod tests {
             let mut want: Vec<u32> = (0..p.rows.len() as u32).collect();
             want.sort_by_key(|&i| series_tuple(&p.rows[i as usize], serial(p.rows[i as usize].date)));
             assert_eq!(got, want, "shuffled: {shuffled}");
+        }
+    }
+
+    /// The entities checked apart, their findings applied in run order, are the one pass over
+    /// the whole order: the same rows dropped with the same reasons, the same flag bits, the
+    /// same findings in the same order. The panel has random, constant (stale runs) and
+    /// smooth-with-jumps (spikes) series, duplicates and defaults.
+    #[test]
+    fn entities_checked_apart_are_the_one_pass() {
+        let mut p = panel(60_000, false);
+        for (i, r) in p.rows.iter_mut().enumerate() {
+            let day = f64::from(serial(r.date) % 1100);
+            match r.entity % 3 {
+                0 => r.quote = CdsQuote::ParSpread(0.01),
+                1 => {
+                    let jump = if i % 97 == 0 { 4.0 } else { 1.0 };
+                    r.quote = CdsQuote::ParSpread(0.01 * (1.0 + day / 1100.0) * jump);
+                }
+                _ => {}
+            }
+        }
+        let defaults: Vec<Option<NaiveDate>> =
+            (0..37).map(|e| (e % 5 == 0).then(|| NaiveDate::from_ymd_opt(2020, 6, 1).unwrap())).collect();
+        let s = QualitySettings::default();
+        let order = series_order(&p, &p.rows);
+        let runs = entity_runs(&p.rows, &order);
+        assert_eq!(runs.len(), 37);
+        let apart: Vec<EntityChecks> =
+            runs.iter().map(|r| entity_checks(&p, &p.rows, &order[r.clone()], &defaults, &s)).collect();
+        let whole = entity_checks(&p, &p.rows, &order, &defaults, &s);
+        let bits = |flags: &mut dyn Iterator<Item = (usize, u8)>| {
+            let mut v = vec![0u8; p.rows.len()];
+            for (k, b) in flags {
+                v[k] |= b;
+            }
+            v
+        };
+        let mut drops: Vec<(usize, (&str, String))> = apart.iter().flat_map(|c| c.drops.why.clone()).collect();
+        let mut want_drops: Vec<(usize, (&str, String))> = whole.drops.why.clone().into_iter().collect();
+        drops.sort();
+        want_drops.sort();
+        assert_eq!(drops, want_drops);
+        assert_eq!(
+            bits(&mut apart.iter().flat_map(|c| c.flags.iter().copied())),
+            bits(&mut whole.flags.iter().copied())
+        );
+        let findings: Vec<&QualityFlag> = apart.iter().flat_map(|c| &c.findings).collect();
+        assert_eq!(findings, whole.findings.iter().collect::<Vec<_>>());
+        // Every rule had something to find.
+        for reason in ["duplicate_row", "conflicting_duplicate", "after_default", "unit_slip"] {
+            assert!(want_drops.iter().any(|(_, (r, _))| *r == reason), "no {reason}");
+        }
+        for rule in [FlagRule::StaleRun, FlagRule::Spike] {
+            assert!(whole.findings.iter().any(|f| f.rule == rule), "no {rule:?}");
         }
     }
 }
