@@ -152,6 +152,40 @@ pub struct StabilityInputs {
     pub residuals: ResidualAnalysis,
 }
 
+/// The name of the series of a node's hazard.
+fn node_label(tenor: crate::time::Tenor) -> Arc<str> {
+    format!("hazard_node_{tenor}").into()
+}
+
+/// A series of [`CurveSeries`] for one series entity.
+#[derive(Clone, Copy, PartialEq, Eq)]
+enum Slot {
+    Pd1y,
+    Hazard5y,
+    Node(crate::time::Tenor),
+}
+
+/// What [`CurveSeries`] keeps per series entity: its label, its grades, the indices of its
+/// histories in the panel builder once made, and the date and par spreads of its latest curve.
+struct SeriesEntity<'a> {
+    entity: Arc<str>,
+    grades: &'a [(NaiveDate, u32)],
+    slots: Vec<(Slot, usize)>,
+    last: Option<(NaiveDate, BTreeMap<u32, f64>)>,
+}
+
+impl SeriesEntity<'_> {
+    /// The index of this entity's history of `slot` (named `series`), made when new.
+    fn slot(&mut self, slot: Slot, series: &Arc<str>, observations: &mut PanelBuilder) -> usize {
+        if let Some(&(_, i)) = self.slots.iter().find(|(s, _)| *s == slot) {
+            return i;
+        }
+        let i = observations.history_index(series, &self.entity);
+        self.slots.push((slot, i));
+        i
+    }
+}
+
 /// The series that need the curves themselves, per CDS curve: the 1Y implied PD, the 5Y
 /// hazard and each node's hazard; and per entity and date the mean absolute daily change of
 /// its par spreads. Each depends on one entity's curves alone. Curves are added in key order
@@ -163,8 +197,14 @@ pub struct CurveSeries<'a> {
     pd_1y: Arc<str>,
     hazard_5y: Arc<str>,
     node_labels: crate::hash::FastMap<crate::time::Tenor, Arc<str>>,
-    /// Per series entity, the date and par spreads of its latest curve so far.
-    last_spreads: crate::hash::FastMap<Arc<str>, (NaiveDate, BTreeMap<u32, f64>)>,
+    /// Every series entity that has had a curve, in the order of its first.
+    states: Vec<SeriesEntity<'a>>,
+    /// The state of the curves of (entity, curve class): by the entity's text, then its
+    /// classes' (usually one).
+    by_text: crate::hash::FastMap<String, Vec<(String, usize)>>,
+    /// The state of a series entity by its label's address (the labels hand out one label per
+    /// text and hold it): (entity, class) pairs with the same series entity share it.
+    by_label: crate::hash::FastMap<usize, usize>,
     observations: PanelBuilder,
     market: Vec<MarketMove>,
     /// Each series entity's first curve's spreads (see [`SpreadEdge`]).
@@ -185,7 +225,9 @@ impl<'a> CurveSeries<'a> {
             pd_1y,
             hazard_5y,
             node_labels: Default::default(),
-            last_spreads: Default::default(),
+            states: Vec::new(),
+            by_text: Default::default(),
+            by_label: Default::default(),
             observations: PanelBuilder::new(),
             market: Vec::new(),
             firsts: Vec::new(),
@@ -217,32 +259,40 @@ impl<'a> CurveSeries<'a> {
 
     /// Takes the series of the curve of (`date`, `e`, `c`), `c` its [`curve_class`].
     pub fn add(&mut self, date: NaiveDate, e: &str, c: &str, curve: &CdsCurve) {
-        let entity = self.labels.entity(self.multi, e, c);
-        let grade = self.grades.grade(e, date);
-        let expected = self.expected.get(&(Arc::as_ptr(&entity) as *const u8 as usize));
-        if let (Some(&n), false) = (expected, self.last_spreads.contains_key(&entity)) {
-            // The entity's first curve: its histories get their length at once.
-            self.observations.reserve(&self.pd_1y, &entity, n);
-            self.observations.reserve(&self.hazard_5y, &entity, n);
-            for q in &curve.quotes {
-                let label =
-                    self.node_labels.entry(q.tenor).or_insert_with(|| format!("hazard_node_{}", q.tenor).into());
-                self.observations.reserve(label, &entity, n);
+        let k = self.state_of(e, c);
+        let state = &mut self.states[k];
+        let grade = GradeBook::grade_in(state.grades, date);
+        if state.last.is_none() {
+            if let Some(&n) = self.expected.get(&(Arc::as_ptr(&state.entity) as *const u8 as usize)) {
+                // The entity's first curve: its histories get their length at once.
+                let (pd, h5) = (
+                    state.slot(Slot::Pd1y, &self.pd_1y, &mut self.observations),
+                    state.slot(Slot::Hazard5y, &self.hazard_5y, &mut self.observations),
+                );
+                self.observations.reserve_at(pd, n);
+                self.observations.reserve_at(h5, n);
+                for q in &curve.quotes {
+                    let label = self.node_labels.entry(q.tenor).or_insert_with(|| node_label(q.tenor));
+                    let i = state.slot(Slot::Node(q.tenor), label, &mut self.observations);
+                    self.observations.reserve_at(i, n);
+                }
             }
         }
         if let Some(h) = &curve.curve {
             let observations = &mut self.observations;
-            let mut push = |series: &Arc<str>, value: f64| {
+            let mut push = |slot: Slot, series: &Arc<str>, value: f64| {
                 if value.is_finite() {
-                    observations.push(series, &entity, grade, date, value);
+                    let i = state.slot(slot, series, observations);
+                    observations.push_at(i, grade, date, value);
                 }
             };
-            push(&self.pd_1y, 1.0 - h.survival_at(1.0));
-            push(&self.hazard_5y, h.hazard_at(5.0));
+            push(Slot::Pd1y, &self.pd_1y, 1.0 - h.survival_at(1.0));
+            push(Slot::Hazard5y, &self.hazard_5y, h.hazard_at(5.0));
             if h.hazards().len() == curve.quotes.len() {
                 for (q, &x) in curve.quotes.iter().zip(h.hazards()) {
                     push(
-                        self.node_labels.entry(q.tenor).or_insert_with(|| format!("hazard_node_{}", q.tenor).into()),
+                        Slot::Node(q.tenor),
+                        self.node_labels.entry(q.tenor).or_insert_with(|| node_label(q.tenor)),
                         x,
                     );
                 }
@@ -252,13 +302,41 @@ impl<'a> CurveSeries<'a> {
             .into_iter()
             .map(|q| (q.tenor_months, q.spread_bp))
             .collect();
-        match self.last_spreads.get(&entity) {
-            Some((_, prev)) => self.market.extend(spread_move(&entity, date, prev, &spreads)),
-            None => {
-                self.firsts.push(SpreadEdge { entity: entity.clone(), date, last: false, spreads: spreads.clone() })
-            }
+        match &state.last {
+            Some((_, prev)) => self.market.extend(spread_move(&state.entity, date, prev, &spreads)),
+            None => self.firsts.push(SpreadEdge {
+                entity: state.entity.clone(),
+                date,
+                last: false,
+                spreads: spreads.clone(),
+            }),
         }
-        self.last_spreads.insert(entity, (date, spreads));
+        state.last = Some((date, spreads));
+    }
+
+    /// The index in `states` of the series entity of (entity `e`, curve class `c`), made when
+    /// new.
+    fn state_of(&mut self, e: &str, c: &str) -> usize {
+        if let Some(&(_, k)) = self.by_text.get(e).and_then(|v| v.iter().find(|(class, _)| class == c)) {
+            return k;
+        }
+        let entity = self.labels.entity(self.multi, e, c);
+        let address = Arc::as_ptr(&entity) as *const u8 as usize;
+        let k = match self.by_label.get(&address) {
+            Some(&k) => k,
+            None => {
+                self.states.push(SeriesEntity {
+                    entity,
+                    grades: self.grades.history(e),
+                    slots: Vec::new(),
+                    last: None,
+                });
+                self.by_label.insert(address, self.states.len() - 1);
+                self.states.len() - 1
+            }
+        };
+        self.by_text.entry(e.to_string()).or_default().push((c.to_string(), k));
+        k
     }
 
     /// The curve observations, the market moves, and each series entity's first and last
@@ -266,9 +344,9 @@ impl<'a> CurveSeries<'a> {
     pub fn finish(self) -> (PanelBuilder, Vec<MarketMove>, Vec<SpreadEdge>) {
         let mut edges = self.firsts;
         let mut lasts: Vec<SpreadEdge> = self
-            .last_spreads
+            .states
             .into_iter()
-            .map(|(entity, (date, spreads))| SpreadEdge { entity, date, last: true, spreads })
+            .filter_map(|s| s.last.map(|(date, spreads)| SpreadEdge { entity: s.entity, date, last: true, spreads }))
             .collect();
         lasts.sort_by(|a, b| a.entity.cmp(&b.entity));
         edges.extend(lasts);
@@ -480,5 +558,131 @@ mod tests {
             assert_eq!(&*got, want(texts(i)), "round {round}");
         }
         assert!(labels.by_address.len() <= ADDRESS_ENTRIES);
+    }
+
+    /// The series taken through each series entity's state (its histories and grades looked
+    /// up once) are those of looking everything up by text at each curve, the form the state
+    /// replaced: the same observations in the same histories in the same order, the same
+    /// market moves and spread edges. Names in one currency and in two (series entities per
+    /// currency), with and without grades, with and without their curve counts known ahead,
+    /// curves without a hazard curve and with fewer hazards than quotes, and two curve classes of
+    /// one series entity.
+    #[test]
+    fn entity_states_are_the_lookups_by_text() {
+        use crate::calibrate::bootstrap::BootstrapQuote;
+        use crate::curves::HazardCurve;
+        use crate::instruments::CdsQuote;
+        use crate::time::Tenor;
+        let d0 = NaiveDate::from_ymd_opt(2024, 1, 2).unwrap();
+        let grades = GradeBook::new(vec![
+            ("Alpha Fictional".to_string(), d0, 3),
+            ("Alpha Fictional".to_string(), d0 + chrono::Days::new(9), 4),
+            ("Beta Fictional".to_string(), d0 + chrono::Days::new(4), 2),
+        ]);
+        let multi: BTreeSet<String> = ["Beta Fictional".to_string()].into_iter().collect();
+        let names = [
+            ("Alpha Fictional", "EUR"),
+            ("Beta Fictional", "EUR"),
+            ("Beta Fictional", "USD"),
+            ("Gamma Fictional", "EUR"),
+            // Not a multi-currency name: one series entity with the curves above.
+            ("Gamma Fictional", "USD"),
+        ];
+        let mut curves: Vec<(NaiveDate, &str, &str, CdsCurve)> = Vec::new();
+        for day in 0..25u64 {
+            let date = d0 + chrono::Days::new(day);
+            for (k, &(e, c)) in names.iter().enumerate() {
+                let months: Vec<u32> =
+                    [6, 12, 36, 60, 120].into_iter().filter(|m| (day + k as u64 + *m as u64) % 7 != 0).collect();
+                let quotes: Vec<BootstrapQuote> = months
+                    .iter()
+                    .map(|&m| BootstrapQuote {
+                        tenor: Tenor::from_months(m).unwrap(),
+                        quote: CdsQuote::ParSpread(1e-4 * (50.0 + (day * 3 + m as u64 + k as u64) as f64)),
+                        recovery: 0.4,
+                        maturity: None,
+                    })
+                    .collect();
+                let n = if (day + k as u64) % 5 == 0 { quotes.len() - 1 } else { quotes.len() };
+                let times: Vec<f64> = months.iter().take(n).map(|&m| f64::from(m) / 12.0).collect();
+                let hazards: Vec<f64> = (0..n).map(|i| 0.01 + 0.001 * (i as f64 + day as f64)).collect();
+                let curve = ((day + k as u64) % 6 != 3).then(|| HazardCurve::new(date, times, hazards).unwrap());
+                curves.push((date, e, c, CdsCurve { quotes, curve }));
+            }
+        }
+        // Curves known ahead for two of the series entities.
+        let ahead = |labels: &mut Labels| -> crate::hash::FastMap<usize, usize> {
+            [("Alpha Fictional", "EUR"), ("Beta Fictional", "USD")]
+                .into_iter()
+                .map(|(e, c)| (Arc::as_ptr(&labels.entity(&multi, e, c)) as *const u8 as usize, 25))
+                .collect()
+        };
+        let mut series = CurveSeries::new(&grades, &multi);
+        series.expected = ahead(&mut series.labels);
+        for (date, e, c, curve) in &curves {
+            series.add(*date, e, c, curve);
+        }
+        let (panel, market, edges) = series.finish();
+
+        // Everything by text at each curve.
+        let mut labels = Labels::default();
+        let expected = ahead(&mut labels);
+        let (pd_1y, hazard_5y) = (labels.get("pd_1y"), labels.get("hazard_5y"));
+        let mut node_labels: std::collections::HashMap<Tenor, Arc<str>> = Default::default();
+        let mut observations = PanelBuilder::new();
+        let mut last: std::collections::HashMap<Arc<str>, (NaiveDate, BTreeMap<u32, f64>)> = Default::default();
+        let (mut want_market, mut firsts) = (Vec::new(), Vec::new());
+        for (date, e, c, curve) in &curves {
+            let entity = labels.entity(&multi, e, c);
+            let grade = grades.grade(e, *date);
+            if let (Some(&n), false) =
+                (expected.get(&(Arc::as_ptr(&entity) as *const u8 as usize)), last.contains_key(&entity))
+            {
+                observations.reserve(&pd_1y, &entity, n);
+                observations.reserve(&hazard_5y, &entity, n);
+                for q in &curve.quotes {
+                    observations.reserve(node_labels.entry(q.tenor).or_insert_with(|| node_label(q.tenor)), &entity, n);
+                }
+            }
+            if let Some(h) = &curve.curve {
+                observations.push(&pd_1y, &entity, grade, *date, 1.0 - h.survival_at(1.0));
+                observations.push(&hazard_5y, &entity, grade, *date, h.hazard_at(5.0));
+                if h.hazards().len() == curve.quotes.len() {
+                    for (q, &x) in curve.quotes.iter().zip(h.hazards()) {
+                        let label = node_labels.entry(q.tenor).or_insert_with(|| node_label(q.tenor)).clone();
+                        observations.push(&label, &entity, grade, *date, x);
+                    }
+                }
+            }
+            let spreads: BTreeMap<u32, f64> = crate::stages::backtest::spreads_of(&curve.quotes)
+                .into_iter()
+                .map(|q| (q.tenor_months, q.spread_bp))
+                .collect();
+            match last.get(&entity) {
+                Some((_, prev)) => want_market.extend(spread_move(&entity, *date, prev, &spreads)),
+                None => firsts.push(SpreadEdge {
+                    entity: entity.clone(),
+                    date: *date,
+                    last: false,
+                    spreads: spreads.clone(),
+                }),
+            }
+            last.insert(entity, (*date, spreads));
+        }
+        let mut lasts: Vec<SpreadEdge> = last
+            .into_iter()
+            .map(|(entity, (date, spreads))| SpreadEdge { entity, date, last: true, spreads })
+            .collect();
+        lasts.sort_by(|a, b| a.entity.cmp(&b.entity));
+        firsts.extend(lasts);
+
+        let got: Vec<crate::stability::Observation> = panel.observations().collect();
+        let want: Vec<crate::stability::Observation> = observations.observations().collect();
+        assert!(got.len() > 400 && got.iter().any(|o| o.grade.is_none()) && got.iter().any(|o| o.grade == Some(4)));
+        assert_eq!(got, want);
+        assert!(market.len() > 80);
+        assert_eq!(market, want_market);
+        assert_eq!(edges.len(), 8);
+        assert_eq!(edges, firsts);
     }
 }

@@ -55,9 +55,18 @@ impl GradeBook {
     }
 
     pub fn grade(&self, entity: &str, date: NaiveDate) -> Option<u32> {
-        let v = self.by_entity.get(entity)?;
-        let i = v.partition_point(|(d, _)| *d <= date);
-        (i > 0).then(|| v[i - 1].1)
+        GradeBook::grade_in(self.history(entity), date)
+    }
+
+    /// The entity's (from date, grade) rows in date order; none for an entity without grades.
+    pub fn history(&self, entity: &str) -> &[(NaiveDate, u32)] {
+        self.by_entity.get(entity).map_or(&[], Vec::as_slice)
+    }
+
+    /// [`GradeBook::grade`] on the entity's [`GradeBook::history`].
+    pub fn grade_in(history: &[(NaiveDate, u32)], date: NaiveDate) -> Option<u32> {
+        let i = history.partition_point(|(d, _)| *d <= date);
+        (i > 0).then(|| history[i - 1].1)
     }
 
     pub fn is_empty(&self) -> bool {

@@ -138,6 +138,28 @@ impl PanelBuilder {
         self.histories[i].1.reserve_exact(additional);
     }
 
+    /// The index of the history of (series, entity), made when new (as the first
+    /// [`PanelBuilder::push`] to it would make it), for [`PanelBuilder::push_at`] and
+    /// [`PanelBuilder::reserve_at`]: a caller that adds to the same histories curve after
+    /// curve looks each up once.
+    pub fn history_index(&mut self, series: &Arc<str>, entity: &Arc<str>) -> usize {
+        self.shared_slot(series, entity)
+    }
+
+    /// [`PanelBuilder::push`] to the history `i` of [`PanelBuilder::history_index`].
+    pub fn push_at(&mut self, i: usize, grade: Option<u32>, date: NaiveDate, value: f64) {
+        if !value.is_finite() {
+            self.non_finite += 1;
+            return;
+        }
+        self.histories[i].1.push(Point::new(date, value, grade));
+    }
+
+    /// [`PanelBuilder::reserve`] for the history `i` of [`PanelBuilder::history_index`].
+    pub fn reserve_at(&mut self, i: usize, additional: usize) {
+        self.histories[i].1.reserve_exact(additional);
+    }
+
     /// The history of (series, entity) by the labels' addresses, made when new.
     fn shared_slot(&mut self, series: &Arc<str>, entity: &Arc<str>) -> usize {
         let address = (Arc::as_ptr(series) as *const u8 as usize, Arc::as_ptr(entity) as *const u8 as usize);
