@@ -542,17 +542,20 @@ fn finish(
     let t2 = Instant::now();
     let mut rejects = std::mem::take(&mut ds.rejects);
     rejects.extend(cal.rejects.iter().cloned());
-    crate::tables::write(&ds.data_quality, &tables, &meta)?;
-    crate::tables::write(&rejects, &tables, &meta)?;
-    crate::tables::write(&cal.discount, &tables, &meta)?;
-    crate::tables::write(&cal.params, &tables, &meta)?;
-    crate::tables::write(&cal.basis, &tables, &meta)?;
-    write_backtest_tables(&backtest, &tables, &meta)?;
-    write_stability_tables(&stability, &tables, &meta)?;
     let mut all_flags: Vec<FlagRecord> = ds.flags.iter().map(FlagRecord::quality).collect();
     all_flags.extend(stability.flags.iter().map(|f| FlagRecord::review(STABILITY, f)));
     let red_flags = all_flags.iter().filter(|f| f.flag.severity == Severity::Red).count();
-    crate::tables::write(&all_flags, &tables, &meta)?;
+    // Each table is its own file: written side by side.
+    crate::tables::write_all(vec![
+        Box::new(|| crate::tables::write(&ds.data_quality, &tables, &meta)),
+        Box::new(|| crate::tables::write(&rejects, &tables, &meta)),
+        Box::new(|| crate::tables::write(&cal.discount, &tables, &meta)),
+        Box::new(|| crate::tables::write(&cal.params, &tables, &meta)),
+        Box::new(|| crate::tables::write(&cal.basis, &tables, &meta)),
+        Box::new(|| write_backtest_tables(&backtest, &tables, &meta)),
+        Box::new(|| write_stability_tables(&stability, &tables, &meta)),
+        Box::new(|| crate::tables::write(&all_flags, &tables, &meta)),
+    ])?;
     let (rss, peak) = memory_mib();
     timings.push(partition::logged(("write tables".into(), t2.elapsed().as_secs_f64(), rss, peak)));
 

@@ -381,7 +381,6 @@ pub fn write_backtest_tables(r: &BacktestResults, dir: &Path, meta: &[(String, S
             o.members.iter().map(move |m| tables::parts::MemberRecord { recovery: o.recovery, member: m.clone() })
         })
         .collect();
-    tables::write(&members, dir, meta)?;
     let disc: Vec<DiscriminationRecord> = r
         .outputs
         .iter()
@@ -389,7 +388,6 @@ pub fn write_backtest_tables(r: &BacktestResults, dir: &Path, meta: &[(String, S
             o.discrimination.iter().map(move |d| DiscriminationRecord { recovery: o.recovery, row: d.clone() })
         })
         .collect();
-    tables::write(&disc, dir, meta)?;
     let ts: Vec<TermStructureRecord> = r
         .outputs
         .iter()
@@ -397,15 +395,11 @@ pub fn write_backtest_tables(r: &BacktestResults, dir: &Path, meta: &[(String, S
             o.term_structure.iter().map(move |t| TermStructureRecord { recovery: o.recovery, row: t.clone() })
         })
         .collect();
-    tables::write(&ts, dir, meta)?;
-    tables::write(&r.verdicts, dir, meta)?;
-    tables::write(&r.migration, dir, meta)?;
     let buckets: Vec<BucketRecord> = r
         .outputs
         .iter()
         .flat_map(|o| o.buckets.iter().map(move |b| BucketRecord { recovery: o.recovery, row: b.clone() }))
         .collect();
-    tables::write(&buckets, dir, meta)?;
     let hl: Vec<HosmerLemeshowRecord> = r
         .outputs
         .iter()
@@ -413,8 +407,17 @@ pub fn write_backtest_tables(r: &BacktestResults, dir: &Path, meta: &[(String, S
             o.hosmer_lemeshow.iter().map(move |b| HosmerLemeshowRecord { recovery: o.recovery, row: b.clone() })
         })
         .collect();
-    tables::write(&hl, dir, meta)?;
     let rp: Vec<backtest::RiskPremiumRow> = r.outputs.iter().flat_map(|o| o.risk_premia.iter().cloned()).collect();
-    tables::write(&rp, dir, meta)?;
-    tables::write(&r.history, dir, meta)
+    // Each table is its own file: written side by side.
+    tables::write_all(vec![
+        Box::new(|| tables::write(&members, dir, meta)),
+        Box::new(|| tables::write(&disc, dir, meta)),
+        Box::new(|| tables::write(&ts, dir, meta)),
+        Box::new(|| tables::write(&r.verdicts, dir, meta)),
+        Box::new(|| tables::write(&r.migration, dir, meta)),
+        Box::new(|| tables::write(&buckets, dir, meta)),
+        Box::new(|| tables::write(&hl, dir, meta)),
+        Box::new(|| tables::write(&rp, dir, meta)),
+        Box::new(|| tables::write(&r.history, dir, meta)),
+    ])
 }

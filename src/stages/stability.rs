@@ -501,15 +501,17 @@ pub fn run_stability(inputs: StabilityInputs, settings: &StabilitySettings) -> R
 /// Writes `stability`, `stability_bands`, `stability_psi`, `stability_breaks`,
 /// `residual_curves`, `residual_tenors`, `residual_worst` and `residual_repricing`.
 pub fn write_stability_tables(out: &StabilityOutput, dir: &Path, meta: &[(String, String)]) -> Result<()> {
-    tables::write(&out.series.rows, dir, meta)?;
-    tables::write(&out.series.cross_section, dir, meta)?;
     let psi: Vec<PsiRecord> = out.series.psi.iter().map(PsiRecord::from).collect();
-    tables::write(&psi, dir, meta)?;
-    tables::write(&out.series.breaks, dir, meta)?;
-    tables::write(&out.residuals.curves, dir, meta)?;
-    tables::write(&out.residuals.tenors, dir, meta)?;
-    tables::write(&out.residuals.worst, dir, meta)?;
-    tables::write(&out.residuals.repricing, dir, meta)
+    tables::write_all(vec![
+        Box::new(|| tables::write(&out.series.rows, dir, meta)),
+        Box::new(|| tables::write(&out.series.cross_section, dir, meta)),
+        Box::new(|| tables::write(&psi, dir, meta)),
+        Box::new(|| tables::write(&out.series.breaks, dir, meta)),
+        Box::new(|| tables::write(&out.residuals.curves, dir, meta)),
+        Box::new(|| tables::write(&out.residuals.tenors, dir, meta)),
+        Box::new(|| tables::write(&out.residuals.worst, dir, meta)),
+        Box::new(|| tables::write(&out.residuals.repricing, dir, meta)),
+    ])
 }
 
 #[cfg(test)]

@@ -132,6 +132,17 @@ pub fn write<T: Table>(rows: &[T], dir: &Path, meta: &[(String, String)]) -> Res
     write_to(rows, &file_of::<T>(dir), meta)
 }
 
+/// A table write for [`write_all`].
+pub type WriteJob<'a> = Box<dyn FnOnce() -> Result<()> + Send + 'a>;
+
+/// Runs table writes side by side on rayon's threads (each writes its own file); the error
+/// of the first failing job in `jobs`' order, if any.
+pub fn write_all(jobs: Vec<WriteJob<'_>>) -> Result<()> {
+    use rayon::prelude::*;
+    let results: Vec<Result<()>> = jobs.into_par_iter().map(|job| job()).collect();
+    results.into_iter().collect()
+}
+
 /// Writes `rows` as table `T` to the file `path` (atomically).
 pub fn write_to<T: Table>(rows: &[T], path: &Path, meta: &[(String, String)]) -> Result<()> {
     let mut df = framed(rows)?;
@@ -233,5 +244,38 @@ pub(crate) mod testing {
             Err(e) => e.to_string(),
         };
         assert!(e.contains(T::NAME) && e.contains(last), "{e}");
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Every job runs, side by side, and the error reported is that of the first failing job
+    /// in the list's order, whichever finishes first.
+    #[test]
+    fn write_all_runs_every_job_and_reports_the_first_failure_in_order() {
+        use std::sync::atomic::{AtomicUsize, Ordering};
+        let ran = AtomicUsize::new(0);
+        let job = |k: usize, fails: bool| -> WriteJob<'_> {
+            let ran = &ran;
+            Box::new(move || {
+                // The later failure finishes first.
+                std::thread::sleep(std::time::Duration::from_millis(if k == 1 { 30 } else { 1 }));
+                ran.fetch_add(1, Ordering::SeqCst);
+                if fails {
+                    Err(crate::error::Error::Internal(format!("job {k}")))
+                } else {
+                    Ok(())
+                }
+            })
+        };
+        let got = write_all(vec![job(0, false), job(1, true), job(2, false), job(3, true)]);
+        assert_eq!(ran.load(Ordering::SeqCst), 4);
+        match got {
+            Err(crate::error::Error::Internal(m)) => assert_eq!(m, "job 1"),
+            other => panic!("{other:?}"),
+        }
+        assert!(write_all(vec![job(0, false), job(2, false)]).is_ok());
     }
 }
