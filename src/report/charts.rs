@@ -173,16 +173,9 @@ pub fn histogram(title: &str, x_desc: &str, values: &[f64], bins: usize) -> Resu
     {
         let root = SVGBackend::with_string(&mut svg, (760, 380)).into_drawing_area();
         root.fill(&WHITE).map_err(err)?;
-        let finite: Vec<f64> = values.iter().copied().filter(|v| v.is_finite()).collect();
-        let (lo, hi) = finite.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &x| (a.min(x), b.max(x)));
-        let (lo, hi) = pad(lo, hi);
         let bins = bins.max(1);
+        let (lo, hi, counts) = histogram_bins(values, bins);
         let w = (hi - lo) / bins as f64;
-        let mut counts = vec![0usize; bins];
-        for v in &finite {
-            let k = (((v - lo) / w).floor() as usize).min(bins - 1);
-            counts[k] += 1;
-        }
         let top = counts.iter().copied().max().unwrap_or(1).max(1) as f64;
         // Counts on a log scale: a bin of a few misfits beside bins of a million exact fits
         // still shows (a bar from 0.5 reaches 1 for a single value).
@@ -211,6 +204,43 @@ pub fn histogram(title: &str, x_desc: &str, values: &[f64], bins: usize) -> Resu
         root.present().map_err(err)?;
     }
     Ok(svg)
+}
+
+/// The padded range of the finite values and their counts in `bins` equal bins over it: the
+/// extremes and the counts on rayon's threads, pieces of the values each (minima, maxima and
+/// counts add up to the same whatever the pieces).
+fn histogram_bins(values: &[f64], bins: usize) -> (f64, f64, Vec<usize>) {
+    use rayon::prelude::*;
+    const PIECE: usize = 1 << 16;
+    let (lo, hi) = values
+        .par_chunks(PIECE)
+        .map(|piece| {
+            piece
+                .iter()
+                .filter(|v| v.is_finite())
+                .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &x| (a.min(x), b.max(x)))
+        })
+        .reduce(|| (f64::INFINITY, f64::NEG_INFINITY), |(a, b), (c, d)| (a.min(c), b.max(d)));
+    let (lo, hi) = pad(lo, hi);
+    let w = (hi - lo) / bins as f64;
+    let counts = values
+        .par_chunks(PIECE)
+        .map(|piece| {
+            let mut counts = vec![0usize; bins];
+            for v in piece.iter().filter(|v| v.is_finite()) {
+                let k = (((v - lo) / w).floor() as usize).min(bins - 1);
+                counts[k] += 1;
+            }
+            counts
+        })
+        .reduce(
+            || vec![0usize; bins],
+            |mut a, b| {
+                a.iter_mut().zip(b).for_each(|(x, y)| *x += y);
+                a
+            },
+        );
+    (lo, hi, counts)
 }
 
 /// Values beyond this magnitude are treated like non-finite ones: their spans would overflow.
@@ -1147,6 +1177,32 @@ mod tests {
         assert_eq!(with.matches("opacity=\"0.85\"").count(), 2, "{with}");
         assert_eq!(without.matches("opacity=\"0.85\"").count(), 0);
         assert!(with.contains("\n100\n") && !without.contains("\n100\n"));
+    }
+
+    /// The bins counted in pieces on rayon's threads are the one pass over the finite values:
+    /// the same range and counts, on more values than one piece holds, with non-finite ones.
+    #[test]
+    fn bins_in_pieces_are_the_one_pass() {
+        let mut rng = crate::sim::rng::Rng::new(11);
+        let values: Vec<f64> = (0..300_000)
+            .map(|i| match i % 9_973 {
+                0 => f64::NAN,
+                1 => f64::INFINITY,
+                _ => -16.0 + 18.0 * rng.uniform() * rng.uniform(),
+            })
+            .collect();
+        let finite: Vec<f64> = values.iter().copied().filter(|v| v.is_finite()).collect();
+        let (lo, hi) = finite.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &x| (a.min(x), b.max(x)));
+        let (lo, hi) = pad(lo, hi);
+        let w = (hi - lo) / 30.0;
+        let mut counts = vec![0usize; 30];
+        for v in &finite {
+            counts[(((v - lo) / w).floor() as usize).min(29)] += 1;
+        }
+        let (glo, ghi, got) = histogram_bins(&values, 30);
+        assert_eq!((glo.to_bits(), ghi.to_bits()), (lo.to_bits(), hi.to_bits()));
+        assert_eq!(got, counts);
+        assert_eq!(got.iter().sum::<usize>(), finite.len());
     }
 
     #[test]

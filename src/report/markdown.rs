@@ -294,8 +294,18 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     let settings = m.recorded_settings(&manifest_path)?;
     let tolerance_bp = settings.reprice_tolerance_bp(&manifest_path)?;
     let t = run_dir.join("tables");
-    let params: Vec<IntensityParamRow> = read_if_written(&t)?;
-    let basis: Vec<BasisRow> = read_if_written(&t)?;
+    // The smaller tables the report reads whole, read side by side.
+    let ((params, basis), ((flags, rejects), sensitivities)) = rayon::join(
+        || (read_if_written::<IntensityParamRow>(&t), read_if_written::<BasisRow>(&t)),
+        || {
+            rayon::join(
+                || rayon::join(|| tables::read::<FlagRecord>(&t), || tables::read::<Reject>(&t)),
+                || read_if_written::<tables::SensitivityRow>(&t),
+            )
+        },
+    );
+    let (params, basis, flags, sensitivities) = (params?, basis?, flags?, sensitivities?);
+    let reasons = reject_reasons(&rejects?);
     // The node and residual tables hold a row per quote and can be tens of millions of rows:
     // they are read a slice at a time into what the report shows, never whole.
     let (hz, rs) = match folds {
@@ -307,8 +317,6 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
     };
     let bond_hazard = &hz.bond;
     let bond_res: Vec<&crate::tables::ResidualRow> = rs.bond.iter().collect();
-    let flags: Vec<FlagRecord> = tables::read(&t)?;
-    let reasons = reject_reasons(&tables::read::<Reject>(&t)?);
     let charts_dir = run_dir.join("charts");
 
     let entities = &hz.entities;
@@ -580,7 +588,8 @@ pub fn render_with(run_dir: &Path, folds: Option<(NodeFold, ResidualFold)>) -> R
         }
         let _ = writeln!(w);
     }
-    sensitivity_summary(w, &read_if_written::<tables::SensitivityRow>(&t)?, &settings_sensitivity_dates(&m));
+    sensitivity_summary(w, &sensitivities, &settings_sensitivity_dates(&m));
+    drop(sensitivities);
 
     // Figures.
     let mut figure = 0;
