@@ -240,13 +240,22 @@ impl PanelBuilder {
     }
 
     pub(crate) fn finish(self) -> (Panel, InputSummary) {
+        use rayon::prelude::*;
         let mut summary = InputSummary { non_finite: self.non_finite, ..InputSummary::default() };
+        // Each history put in date order alone, on rayon's threads.
+        let mut histories = self.histories;
+        let duplicates: Vec<usize> = histories
+            .par_iter_mut()
+            .map(|(_, points)| {
+                let before = points.len();
+                points.sort_by_key(|p| p.date);
+                points.dedup_by_key(|p| p.date);
+                before - points.len()
+            })
+            .collect();
         let mut panel: Panel = BTreeMap::new();
-        for ((s, e), mut points) in self.histories {
-            let before = points.len();
-            points.sort_by_key(|p| p.date);
-            points.dedup_by_key(|p| p.date);
-            summary.duplicates += before - points.len();
+        for (((s, e), points), duplicates) in histories.into_iter().zip(duplicates) {
+            summary.duplicates += duplicates;
             summary.used += points.len();
             panel.insert((s.to_string(), e.to_string()), points);
         }
@@ -301,7 +310,9 @@ pub(crate) fn market_by_period(
     market: &[MarketMove],
     settings: &StabilitySettings,
 ) -> (BTreeMap<(String, Period), f64>, usize) {
-    let mut acc: BTreeMap<(&str, Period), (f64, usize)> = BTreeMap::new();
+    // Summed by a hash of the key, each key's moves added in the moves' order (as the ordered
+    // map of the keys summed them), then put in key order.
+    let mut acc: crate::hash::FastMap<(&str, Period), (f64, usize)> = Default::default();
     let mut unusable = 0;
     for m in market {
         match m.relative() {
@@ -329,7 +340,8 @@ pub(crate) fn counts_by_period(
     counts: &[CalibrationCounts],
     settings: &StabilitySettings,
 ) -> BTreeMap<(String, Period), PeriodCounts> {
-    let mut out: BTreeMap<(&str, Period), PeriodCounts> = BTreeMap::new();
+    // By a hash of the key (the sums do not depend on the order), then in key order.
+    let mut out: crate::hash::FastMap<(&str, Period), PeriodCounts> = Default::default();
     for c in counts {
         let e = out.entry((&*c.entity, settings.period.of(c.date))).or_default();
         e.dates += 1;
@@ -445,5 +457,57 @@ mod tests {
         assert_eq!(m[0].date, d("2024-01-08"));
         assert!((m[0].abs_change() - 0.2).abs() < 1e-12);
         assert_eq!(m[1].abs_relative(), Some(0.5));
+    }
+
+    /// The period means summed by a hash of their keys are those of the ordered map they
+    /// replaced, bit for bit (each key's moves added in the moves' order), with unusable moves
+    /// counted; and the panel's histories put in order side by side are the one pass's.
+    #[test]
+    fn hashed_sums_and_parallel_histories_are_the_ordered_forms() {
+        let mut rng = crate::sim::rng::Rng::new(3);
+        let names: Vec<Arc<str>> = (0..40).map(|i| Arc::from(format!("Entity {i}"))).collect();
+        let start = d("2019-01-01");
+        let market: Vec<MarketMove> = (0..20_000)
+            .map(|i| MarketMove {
+                entity: names[(rng.uniform() * 40.0) as usize % 40].clone(),
+                date: start + chrono::Days::new((rng.uniform() * 1500.0) as u64),
+                mean_abs_change_bp: if i % 97 == 0 { f64::NAN } else { 10.0 * rng.uniform() },
+                mean_level_bp: 50.0 + 300.0 * rng.uniform(),
+            })
+            .collect();
+        let settings = StabilitySettings::default();
+        let (got, unusable) = market_by_period(&market, &settings);
+        let mut acc: BTreeMap<(&str, Period), (f64, usize)> = BTreeMap::new();
+        for m in &market {
+            if let Some(r) = m.relative() {
+                let e = acc.entry((&*m.entity, settings.period.of(m.date))).or_default();
+                e.0 += r;
+                e.1 += 1;
+            }
+        }
+        let want: Vec<((String, Period), u64)> =
+            acc.into_iter().map(|((e, p), (s, n))| ((e.to_string(), p), (s / n as f64).to_bits())).collect();
+        assert_eq!(got.into_iter().map(|(k, v)| (k, v.to_bits())).collect::<Vec<_>>(), want);
+        assert_eq!(unusable, market.iter().filter(|m| m.relative().is_none()).count());
+
+        let mut b = PanelBuilder::new();
+        let series: Arc<str> = Arc::from("hazard_5y");
+        for m in &market {
+            b.push(&series, &m.entity, Some(2), m.date, m.mean_level_bp);
+        }
+        let mut want_panel: Panel = BTreeMap::new();
+        let (mut used, mut duplicates) = (0, 0);
+        for ((s, e), mut points) in b.histories.clone() {
+            let before = points.len();
+            points.sort_by_key(|p| p.date);
+            points.dedup_by_key(|p| p.date);
+            duplicates += before - points.len();
+            used += points.len();
+            want_panel.insert((s.to_string(), e.to_string()), points);
+        }
+        let (panel, summary) = b.finish();
+        assert!(duplicates > 100);
+        assert_eq!((summary.used, summary.duplicates), (used, duplicates));
+        assert_eq!(panel, want_panel);
     }
 }

@@ -94,22 +94,30 @@ fn analyse_panel(
     let counts = inputs::counts_by_period(counts, settings);
     let ctx = metrics::EntityContext { market: &market_rel, counts: &counts, settings };
     let means = metrics::entity_means(&panel, settings);
-    let mut rows = metrics::entity_rows(&panel, &ctx);
-    rows.extend(metrics::calibration_rows(&counts));
-    rows.extend(metrics::group_rows(&means));
-    metrics::fill_changes(&mut rows);
-    // Stable, on rayon's threads (rows of equal keys keep their order, as `sort_by` keeps it).
-    {
-        use rayon::slice::ParallelSliceMut;
-        rows.par_sort_by(|(pa, a), (pb, b)| (pa, &a.series, a.scope, &a.key).cmp(&(pb, &b.series, b.scope, &b.key)));
-    }
-    Ok(SeriesAnalysis {
-        rows: rows.into_iter().map(|(_, r)| r).collect(),
-        cross_section: metrics::cross_sections(&panel, settings),
-        psi: population::psi_rows(&means, settings),
-        breaks: breaks::break_rows(&panel, settings),
-        input,
-    })
+    // The rows, the cross-sections, the PSI and the breaks are independent of one another:
+    // worked out side by side on rayon's threads.
+    let (rows, (cross_section, (psi, breaks))) = rayon::join(
+        || {
+            let mut rows = metrics::entity_rows(&panel, &ctx);
+            rows.extend(metrics::calibration_rows(&counts));
+            rows.extend(metrics::group_rows(&means));
+            metrics::fill_changes(&mut rows);
+            // Stable, on rayon's threads (rows of equal keys keep their order, as `sort_by`
+            // keeps it).
+            use rayon::slice::ParallelSliceMut;
+            rows.par_sort_by(|(pa, a), (pb, b)| {
+                (pa, &a.series, a.scope, &a.key).cmp(&(pb, &b.series, b.scope, &b.key))
+            });
+            rows
+        },
+        || {
+            rayon::join(
+                || metrics::cross_sections(&panel, settings),
+                || rayon::join(|| population::psi_rows(&means, settings), || breaks::break_rows(&panel, settings)),
+            )
+        },
+    );
+    Ok(SeriesAnalysis { rows: rows.into_iter().map(|(_, r)| r).collect(), cross_section, psi, breaks, input })
 }
 
 /// Everything the stability stage produces.
