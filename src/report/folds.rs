@@ -41,7 +41,22 @@ pub(super) struct CdsNodes {
     pub(super) last: Option<CurveId>,
     /// The tier each charted entity's nodes are taken from: its first in table order.
     named_tier: BTreeMap<String, (Option<crate::tables::Label>, Option<crate::tables::Label>)>,
+    /// The curves' label sets already in `entities`, `currencies` and their tier's entities,
+    /// by the labels' addresses (the rows of a run share one label per text), with their
+    /// tier's key in `tiers`; each entry holds its labels, so no address is freed and reused
+    /// while it stands. Emptied when it reaches [`SEEN_ENTRIES`] (labels read back slice by
+    /// slice are not shared across slices).
+    seen: crate::hash::FastMap<[usize; 4], (CurveLabels, (String, String))>,
+    /// Whether the entity of the curve being taken is one of `named`.
+    last_named: bool,
 }
+
+/// A CDS curve's labels: entity, currency, seniority, doc_clause.
+type CurveLabels =
+    (crate::tables::Label, crate::tables::Label, Option<crate::tables::Label>, Option<crate::tables::Label>);
+
+/// The most entries [`CdsNodes`] keeps by address.
+const SEEN_ENTRIES: usize = 1 << 16;
 
 /// A CDS curve: (date, entity, currency, seniority, doc_clause).
 pub(super) type CurveId =
@@ -94,6 +109,8 @@ impl CdsNodes {
             bond: Vec::new(),
             named: named.unwrap_or_default().iter().map(|e| (e.clone(), Default::default())).collect(),
             last: None,
+            seen: Default::default(),
+            last_named: false,
         }
     }
 
@@ -124,29 +141,55 @@ impl CdsNodes {
                     && same_opt(dc, &h.doc_clause)
             });
             if !same_curve {
-                if !self.entities.contains(&*h.entity) {
-                    self.entities.insert(h.entity.to_string());
-                }
-                if !self.currencies.contains(&*h.currency) {
-                    self.currencies.insert(h.currency.to_string());
-                }
                 if self.last.as_ref().is_none_or(|l| l.0 != h.date) {
                     self.dates.insert(h.date);
                 }
                 self.curves += 1;
-                let tier = crate::ingest::cds::tier_label(h.seniority.as_deref(), h.doc_clause.as_deref());
-                let t = self.tiers.entry((h.currency.to_string(), tier)).or_default();
-                t.0 += 1;
-                if !t.1.contains(&*h.entity) {
-                    t.1.insert(h.entity.to_string());
+                let address = |l: &crate::tables::Label| std::sync::Arc::as_ptr(l) as *const u8 as usize;
+                let key = [
+                    address(&h.entity),
+                    address(&h.currency),
+                    h.seniority.as_ref().map_or(0, address),
+                    h.doc_clause.as_ref().map_or(0, address),
+                ];
+                match self.seen.get(&key) {
+                    // Its entity, currency and tier entity are in the sets already.
+                    Some((_, tier)) => {
+                        if let Some(t) = self.tiers.get_mut(tier) {
+                            t.0 += 1;
+                        }
+                    }
+                    None => {
+                        if !self.entities.contains(&*h.entity) {
+                            self.entities.insert(h.entity.to_string());
+                        }
+                        if !self.currencies.contains(&*h.currency) {
+                            self.currencies.insert(h.currency.to_string());
+                        }
+                        let tier = (
+                            h.currency.to_string(),
+                            crate::ingest::cds::tier_label(h.seniority.as_deref(), h.doc_clause.as_deref()),
+                        );
+                        let t = self.tiers.entry(tier.clone()).or_default();
+                        t.0 += 1;
+                        if !t.1.contains(&*h.entity) {
+                            t.1.insert(h.entity.to_string());
+                        }
+                        if self.seen.len() >= SEEN_ENTRIES {
+                            self.seen.clear();
+                        }
+                        let labels = (h.entity.clone(), h.currency.clone(), h.seniority.clone(), h.doc_clause.clone());
+                        self.seen.insert(key, (labels, tier));
+                    }
                 }
+                self.last_named = self.named.contains_key(&*h.entity);
                 self.last = Some(curve_id(h));
             }
             *self.status_counts.entry(h.status.as_str()).or_default() += 1;
             if is_five_year_ok(h) {
                 self.five_year.entry(h.date).or_default().push(h.hazard.unwrap_or(0.0) * 100.0);
             }
-            let charted_tier = self.named.contains_key(&*h.entity) && {
+            let charted_tier = self.last_named && {
                 let t = self
                     .named_tier
                     .entry(h.entity.to_string())
@@ -359,5 +402,88 @@ impl ResidualFold {
     /// `tolerance_bp`: within it a calibrated quote counts as repriced.
     pub fn new(tolerance_bp: f64) -> ResidualFold {
         ResidualFold(Residuals::new(tolerance_bp))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::sync::Arc;
+
+    /// The counts taken with the curves' labels shared (answered by address after the first
+    /// curve of each label set) are those taken with fresh labels on every row (worked out
+    /// from the texts each time), past the address entries' limit: the same entities,
+    /// currencies, tiers with their curves and entities, statuses and charted nodes.
+    #[test]
+    fn curves_counted_by_address_are_those_counted_by_text() {
+        let d0 = NaiveDate::from_ymd_opt(2024, 1, 2).unwrap();
+        let texts = |i: usize| {
+            let e = format!("Entity {}", i % 7);
+            let c = ["EUR", "USD"][(i / 7) % 2];
+            let s = [None, Some("senior")][(i / 14) % 2];
+            let dc = [None, Some("clause-a")][(i / 28) % 2];
+            (e, c, s, dc)
+        };
+        let shared: Vec<CurveLabels> = (0..56)
+            .map(|i| {
+                let (e, c, s, dc) = texts(i);
+                (Arc::from(e.as_str()), Arc::from(c), s.map(Arc::from), dc.map(Arc::from))
+            })
+            .collect();
+        let tenors: Vec<crate::tables::Label> = ["1Y", "5Y", "10Y"].iter().map(|t| Arc::from(*t)).collect();
+        let rows = |fresh: bool| -> Vec<HazardCurveRow> {
+            let mut out = Vec::new();
+            for k in 0..SEEN_ENTRIES + 300 {
+                let i = (k * 5) % 56;
+                let (e, c, s, dc) = if fresh {
+                    let (e, c, s, dc) = texts(i);
+                    (Arc::from(e.as_str()), Arc::from(c), s.map(Arc::from), dc.map(Arc::from))
+                } else {
+                    shared[i].clone()
+                };
+                for (j, tenor) in tenors.iter().enumerate() {
+                    out.push(HazardCurveRow {
+                        date: d0 + chrono::Days::new((k / 56) as u64),
+                        entity: e.clone(),
+                        currency: c.clone(),
+                        seniority: s.clone(),
+                        doc_clause: dc.clone(),
+                        source: CurveSource::Cds,
+                        tenor: tenor.clone(),
+                        maturity: d0,
+                        node_date: d0 + chrono::Days::new(365 * (j as u64 + 1)),
+                        hazard: Some(0.01 * (1 + (k + j) % 9) as f64),
+                        survival: Some(0.9),
+                        status: if (k + j) % 13 == 0 { RowStatus::Floored } else { RowStatus::Ok },
+                        recovery: 0.4,
+                        iterations: 3,
+                        detail: None,
+                    });
+                }
+            }
+            out
+        };
+        let named = ["Entity 3".to_string()];
+        let take = |fresh: bool| {
+            let mut n = CdsNodes::new(Some(&named));
+            for piece in rows(fresh).chunks(1000) {
+                n.add(piece);
+            }
+            n
+        };
+        let (by_address, by_text) = (take(false), take(true));
+        assert_eq!(by_address.entities, by_text.entities);
+        assert_eq!(by_address.currencies, by_text.currencies);
+        assert_eq!(by_address.dates, by_text.dates);
+        assert_eq!(by_address.curves, by_text.curves);
+        assert_eq!(by_address.tiers, by_text.tiers);
+        assert_eq!(by_address.status_counts, by_text.status_counts);
+        assert_eq!(by_address.bad_nodes, by_text.bad_nodes);
+        assert_eq!(by_address.bad_curves, by_text.bad_curves);
+        assert_eq!(by_address.five_year, by_text.five_year);
+        assert_eq!(by_address.named, by_text.named);
+        assert_eq!(by_address.tiers.len(), 8);
+        assert_eq!(by_address.curves, SEEN_ENTRIES + 300);
+        assert!(by_address.named["Entity 3"].0.len() > 1000);
     }
 }
