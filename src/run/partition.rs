@@ -285,13 +285,20 @@ pub fn compute_partition(
                     }
                     sinks.sensitivity_rows(rows)?;
                     for c in block.curves {
-                        let (key, curve) = (c.key, c.curve);
-                        if range.contains(key.0) {
-                            coverage.add(key.0, &key.1);
-                            series.add(key.0, &key.1, &crate::stages::stability::curve_class(&key.2, &c.tier), &curve);
+                        let crate::stages::calibrate::BlockCurve {
+                            key: (date, entity, currency),
+                            seniority,
+                            doc_clause,
+                            reference,
+                            curve,
+                        } = c;
+                        if range.contains(date) {
+                            coverage.add(date, &entity);
+                            let tier = (seniority.as_deref(), doc_clause.as_deref());
+                            series.add(date, &entity, &currency, tier, &curve);
                         }
-                        if c.reference && ((backtest && serves(key.0)) || for_fits.wants(&key)) {
-                            kept.insert(key, curve);
+                        if reference && ((backtest && serves(date)) || for_fits.wants(date, &entity, &currency)) {
+                            kept.insert((date, entity.to_string(), currency.to_string()), curve);
                         }
                     }
                 }

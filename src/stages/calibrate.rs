@@ -100,10 +100,12 @@ pub struct Calibration {
 /// One bootstrapped CDS curve as a block hands it over.
 #[derive(Debug, Clone)]
 pub struct BlockCurve {
-    /// (date, entity, currency).
-    pub key: (NaiveDate, String, String),
-    /// The curve's tier as [`crate::ingest::cds::tier_label`] shows it (empty when none).
-    pub tier: String,
+    /// (date, entity, currency), the entity and currency the panel's shared labels.
+    pub key: (NaiveDate, Label, Label),
+    /// The curve's tier: seniority and documentation clause (the panel's labels, None when
+    /// the quotes give none).
+    pub seniority: Option<Label>,
+    pub doc_clause: Option<Label>,
     /// Whether this is the entity's reference curve on the date in its currency: of the tiers
     /// quoted that day, the one whose seniority comes first in `seniority_order` (unlisted
     /// seniorities after the listed ones, in name order, an absent seniority first), then by
@@ -306,7 +308,7 @@ fn calibrate_one(
     shift_plans: Option<&OwnedPlans>,
 ) -> CurveOutput {
     let h = rows[0];
-    let (date, entity, currency) = (h.date, panel.entities.name(h.entity), panel.currencies.name(h.currency));
+    let (date, currency) = (h.date, panel.currencies.name(h.currency));
     // A quoted spread trades as the upfront its flat hazard gives at its running coupon: the
     // conversion needs the day's discount curve, so it happens here.
     let mut unconverted: Option<String> = None;
@@ -445,8 +447,13 @@ fn calibrate_one(
     // nothing after it wants the curves.
     let fit = reference.map(|reference| {
         let curve = if fit.complete() && !fit.failed { fit.curve.clone() } else { None };
-        let key = (date, entity.to_string(), currency.to_string());
-        BlockCurve { key, tier: panel.tiers.label(h.tier), reference, curve: CdsCurve { quotes, curve } }
+        BlockCurve {
+            key: (date, entity_label, currency_label),
+            seniority,
+            doc_clause,
+            reference,
+            curve: CdsCurve { quotes, curve },
+        }
     });
     CurveOutput { hazard, residuals, rejects: Vec::new(), sensitivities, used: rows.len(), fit }
 }

@@ -384,34 +384,41 @@ fn fit_name(
 /// CDS-bond basis). [`calibrate_intensity`] asks `cal.cds_curves` for no other.
 pub struct CurvesForFits {
     cir: Option<Option<FastSet<String>>>,
-    bond_days: FastSet<(NaiveDate, String, String)>,
+    /// The dates of a bond quote per entity and currency.
+    bond_days: FastMap<String, FastMap<String, FastSet<NaiveDate>>>,
 }
 
 /// Asked once per calibrated curve (millions): FNV hashing, not SipHash.
-use crate::hash::FastSet;
+use crate::hash::{FastMap, FastSet};
 
 impl CurvesForFits {
     pub fn new(ds: &Dataset, s: &IntensitySettings) -> CurvesForFits {
         let cir = s.cir.then(|| s.cir_entities.as_ref().map(|list| list.iter().cloned().collect()));
-        let mut bond_days = FastSet::default();
+        let mut bond_days: FastMap<String, FastMap<String, FastSet<NaiveDate>>> = FastMap::default();
         if let (true, Some(bonds), Some(bq)) = (s.bond_fit, &ds.bonds, &ds.bond_quotes) {
             let by_id: HashMap<&str, &BondRow> = bonds.rows.iter().map(|(b, _)| (b.bond.as_str(), b)).collect();
             for (q, _) in &bq.rows {
                 if let Some(b) = by_id.get(q.bond.as_str()) {
-                    bond_days.insert((q.date, b.entity.clone(), b.currency.clone()));
+                    bond_days
+                        .entry(b.entity.clone())
+                        .or_default()
+                        .entry(b.currency.clone())
+                        .or_default()
+                        .insert(q.date);
                 }
             }
         }
         CurvesForFits { cir, bond_days }
     }
 
-    pub fn wants(&self, key: &(NaiveDate, String, String)) -> bool {
+    /// Whether a fit reads the curve of (`date`, `entity`, `currency`).
+    pub fn wants(&self, date: NaiveDate, entity: &str, currency: &str) -> bool {
         let cir = match &self.cir {
             Some(None) => true,
-            Some(Some(names)) => names.contains(&key.1),
+            Some(Some(names)) => names.contains(entity),
             None => false,
         };
-        cir || (!self.bond_days.is_empty() && self.bond_days.contains(key))
+        cir || self.bond_days.get(entity).and_then(|c| c.get(currency)).is_some_and(|dates| dates.contains(&date))
     }
 }
 

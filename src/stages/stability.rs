@@ -157,6 +157,10 @@ fn node_label(tenor: crate::time::Tenor) -> Arc<str> {
     format!("hazard_node_{tenor}").into()
 }
 
+/// An entity's kind of curve: (currency, seniority, documentation clause), and the index of
+/// its series entity's state.
+type CurveKind = (String, Option<String>, Option<String>, usize);
+
 /// A series of [`CurveSeries`] for one series entity.
 #[derive(Clone, Copy, PartialEq, Eq)]
 enum Slot {
@@ -199,9 +203,9 @@ pub struct CurveSeries<'a> {
     node_labels: crate::hash::FastMap<crate::time::Tenor, Arc<str>>,
     /// Every series entity that has had a curve, in the order of its first.
     states: Vec<SeriesEntity<'a>>,
-    /// The state of the curves of (entity, curve class): by the entity's text, then its
-    /// classes' (usually one).
-    by_text: crate::hash::FastMap<String, Vec<(String, usize)>>,
+    /// The state of the curves of an entity: by the entity's text, then its kinds of curve
+    /// (usually one).
+    by_text: crate::hash::FastMap<String, Vec<CurveKind>>,
     /// The state of a series entity by its label's address (the labels hand out one label per
     /// text and hold it): (entity, class) pairs with the same series entity share it.
     by_label: crate::hash::FastMap<usize, usize>,
@@ -257,9 +261,10 @@ impl<'a> CurveSeries<'a> {
         }
     }
 
-    /// Takes the series of the curve of (`date`, `e`, `c`), `c` its [`curve_class`].
-    pub fn add(&mut self, date: NaiveDate, e: &str, c: &str, curve: &CdsCurve) {
-        let k = self.state_of(e, c);
+    /// Takes the series of the curve of (`date`, `e`, `c`) in `tier` (seniority,
+    /// documentation clause).
+    pub fn add(&mut self, date: NaiveDate, e: &str, c: &str, tier: (Option<&str>, Option<&str>), curve: &CdsCurve) {
+        let k = self.state_of(e, c, tier);
         let state = &mut self.states[k];
         let grade = GradeBook::grade_in(state.grades, date);
         if state.last.is_none() {
@@ -314,13 +319,15 @@ impl<'a> CurveSeries<'a> {
         state.last = Some((date, spreads));
     }
 
-    /// The index in `states` of the series entity of (entity `e`, curve class `c`), made when
-    /// new.
-    fn state_of(&mut self, e: &str, c: &str) -> usize {
-        if let Some(&(_, k)) = self.by_text.get(e).and_then(|v| v.iter().find(|(class, _)| class == c)) {
+    /// The index in `states` of the series entity of the curves of entity `e` in currency `c`
+    /// and `tier` (seniority, documentation clause), made when new.
+    fn state_of(&mut self, e: &str, c: &str, tier: (Option<&str>, Option<&str>)) -> usize {
+        let same = |(currency, s, d, _): &&CurveKind| currency == c && s.as_deref() == tier.0 && d.as_deref() == tier.1;
+        if let Some(&(_, _, _, k)) = self.by_text.get(e).and_then(|v| v.iter().find(same)) {
             return k;
         }
-        let entity = self.labels.entity(self.multi, e, c);
+        let class = curve_class(c, &crate::ingest::cds::tier_label(tier.0, tier.1));
+        let entity = self.labels.entity(self.multi, e, &class);
         let address = Arc::as_ptr(&entity) as *const u8 as usize;
         let k = match self.by_label.get(&address) {
             Some(&k) => k,
@@ -335,7 +342,8 @@ impl<'a> CurveSeries<'a> {
                 self.states.len() - 1
             }
         };
-        self.by_text.entry(e.to_string()).or_default().push((c.to_string(), k));
+        let kind = (c.to_string(), tier.0.map(str::to_string), tier.1.map(str::to_string), k);
+        self.by_text.entry(e.to_string()).or_default().push(kind);
         k
     }
 
@@ -582,18 +590,20 @@ mod tests {
             ("Beta Fictional".to_string(), d0 + chrono::Days::new(4), 2),
         ]);
         let multi: BTreeSet<String> = ["Beta Fictional".to_string()].into_iter().collect();
-        let names = [
-            ("Alpha Fictional", "EUR"),
-            ("Beta Fictional", "EUR"),
-            ("Beta Fictional", "USD"),
-            ("Gamma Fictional", "EUR"),
+        type Tier = (Option<&'static str>, Option<&'static str>);
+        let names: [(&str, &str, Tier); 6] = [
+            ("Alpha Fictional", "EUR", (None, None)),
+            ("Beta Fictional", "EUR", (None, None)),
+            ("Beta Fictional", "USD", (None, None)),
+            ("Beta Fictional", "EUR", (Some("senior"), Some("clause-a"))),
+            ("Gamma Fictional", "EUR", (None, None)),
             // Not a multi-currency name: one series entity with the curves above.
-            ("Gamma Fictional", "USD"),
+            ("Gamma Fictional", "USD", (Some("senior"), None)),
         ];
-        let mut curves: Vec<(NaiveDate, &str, &str, CdsCurve)> = Vec::new();
+        let mut curves: Vec<(NaiveDate, &str, &str, Tier, CdsCurve)> = Vec::new();
         for day in 0..25u64 {
             let date = d0 + chrono::Days::new(day);
-            for (k, &(e, c)) in names.iter().enumerate() {
+            for (k, &(e, c, tier)) in names.iter().enumerate() {
                 let months: Vec<u32> =
                     [6, 12, 36, 60, 120].into_iter().filter(|m| (day + k as u64 + *m as u64) % 7 != 0).collect();
                 let quotes: Vec<BootstrapQuote> = months
@@ -609,7 +619,7 @@ mod tests {
                 let times: Vec<f64> = months.iter().take(n).map(|&m| f64::from(m) / 12.0).collect();
                 let hazards: Vec<f64> = (0..n).map(|i| 0.01 + 0.001 * (i as f64 + day as f64)).collect();
                 let curve = ((day + k as u64) % 6 != 3).then(|| HazardCurve::new(date, times, hazards).unwrap());
-                curves.push((date, e, c, CdsCurve { quotes, curve }));
+                curves.push((date, e, c, tier, CdsCurve { quotes, curve }));
             }
         }
         // Curves known ahead for two of the series entities.
@@ -621,8 +631,8 @@ mod tests {
         };
         let mut series = CurveSeries::new(&grades, &multi);
         series.expected = ahead(&mut series.labels);
-        for (date, e, c, curve) in &curves {
-            series.add(*date, e, c, curve);
+        for (date, e, c, tier, curve) in &curves {
+            series.add(*date, e, c, *tier, curve);
         }
         let (panel, market, edges) = series.finish();
 
@@ -634,8 +644,8 @@ mod tests {
         let mut observations = PanelBuilder::new();
         let mut last: std::collections::HashMap<Arc<str>, (NaiveDate, BTreeMap<u32, f64>)> = Default::default();
         let (mut want_market, mut firsts) = (Vec::new(), Vec::new());
-        for (date, e, c, curve) in &curves {
-            let entity = labels.entity(&multi, e, c);
+        for (date, e, c, (s, d), curve) in &curves {
+            let entity = labels.entity(&multi, e, &curve_class(c, &crate::ingest::cds::tier_label(*s, *d)));
             let grade = grades.grade(e, *date);
             if let (Some(&n), false) =
                 (expected.get(&(Arc::as_ptr(&entity) as *const u8 as usize)), last.contains_key(&entity))
@@ -684,7 +694,7 @@ mod tests {
         assert_eq!(got, want);
         assert!(market.len() > 80);
         assert_eq!(market, want_market);
-        assert_eq!(edges.len(), 8);
+        assert_eq!(edges.len(), 10);
         assert_eq!(edges, firsts);
     }
 }
