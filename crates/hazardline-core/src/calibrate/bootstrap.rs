@@ -551,6 +551,8 @@ fn solve_nodes(
     dual_pq.resize(np, Dual::constant(0.0));
 
     let (mut t_prev, mut l_prev) = (0.0f64, 0.0f64);
+    // The nodes solved here; the last one's segment values are read by no later node.
+    let node_count = bp.order.len().min(bp.contracts.len());
     let mut stopped = false;
     let mut curve_failed = false;
     let mut prev_spread: Option<(f64, f64)> = None;
@@ -696,12 +698,17 @@ fn solve_nodes(
         match lambda {
             Some(lam) => {
                 let t_k = node_times[k];
-                let segment = cut.segment.clone();
-                for j in segment.clone() {
-                    log_q[j] = l_prev - lam * (plan.times[j] - t_prev);
-                    pq[j] = log_q[j] + plan.log_dfs[j];
+                // The segment's ln Q and P Q, for the nodes after this one (the running sums
+                // and the fixed part of their legs); the last node's are read by none (the
+                // callers read only the nodes and hazards), so they are not computed.
+                if k + 1 < node_count {
+                    let segment = cut.segment.clone();
+                    for j in segment.clone() {
+                        log_q[j] = l_prev - lam * (plan.times[j] - t_prev);
+                        pq[j] = log_q[j] + plan.log_dfs[j];
+                    }
+                    exp_in_place(&mut pq[segment]);
                 }
-                exp_in_place(&mut pq[segment]);
                 fit.hazard = Some(lam);
                 fit.survival = Some(exp(l_prev - lam * (terms.t_maturity - t_prev)));
                 hazards.push(lam);
