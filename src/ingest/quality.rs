@@ -370,7 +370,6 @@ pub fn check_cds(
     (bits, findings)
 }
 
-#[allow(clippy::too_many_arguments)]
 /// The runs of one entity in `order` (the series order: entity ids ascending first), as
 /// ranges of it; each run's end found by halving, so that only a few rows per entity are read
 /// (the order visits the rows out of their memory order).
@@ -498,6 +497,7 @@ fn entity_checks(
     out
 }
 
+#[allow(clippy::too_many_arguments)]
 fn series_rules(
     panel: &CdsPanel,
     rows: &[CdsQuoteRow],

@@ -124,9 +124,8 @@ impl PanelBuilder {
             self.non_finite += 1;
             return;
         }
-        let point = Point::new(date, value, grade);
         let i = self.shared_slot(series, entity);
-        self.histories[i].1.push(point);
+        self.push_at(i, grade, date, value);
     }
 
     /// Makes room for `additional` more values of (series, entity) in one allocation, for a
@@ -135,7 +134,7 @@ impl PanelBuilder {
     /// stay in the heap (a quarter of a GiB at each doubling at 2,000 names x 10 years).
     pub fn reserve(&mut self, series: &Arc<str>, entity: &Arc<str>, additional: usize) {
         let i = self.shared_slot(series, entity);
-        self.histories[i].1.reserve_exact(additional);
+        self.reserve_at(i, additional);
     }
 
     /// The index of the history of (series, entity), made when new (as the first
