@@ -196,6 +196,14 @@ impl DiscountCurve {
         DiscountCurve::from_zero_rates(reference, &[(one_year, rate)]).expect("one finite pillar")
     }
 
+    /// Sets the ln DF of the pillar at index `i` (of [`DiscountCurve::pillar_dates`]) to the
+    /// finite `log_df`: the curve [`DiscountCurve::from_log_discount_factors`] builds from
+    /// the same pillars with that value (a rate curve's search moves its last pillar so).
+    pub(crate) fn set_pillar_log_df(&mut self, i: usize, log_df: f64) {
+        debug_assert!(log_df.is_finite());
+        self.log_dfs[i] = log_df;
+    }
+
     pub fn reference(&self) -> NaiveDate {
         self.reference
     }

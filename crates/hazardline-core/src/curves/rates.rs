@@ -238,14 +238,24 @@ pub fn build_rate_curve(
         });
     }
     let mut pillars: Vec<(NaiveDate, f64)> = Vec::with_capacity(prepared.len());
-    let trial = std::cell::RefCell::new(Vec::with_capacity(prepared.len()));
+    let mut trial = Vec::with_capacity(prepared.len());
     for p in &prepared {
+        // The trial curve, the pillars so far and the new one, is built once per pillar; each
+        // step of the search sets the new pillar's ln DF and prices on it. Whether the curve
+        // builds does not depend on that value (while it is finite), so this is the curve a
+        // build from the trial pillars would give at every step, bit for bit
+        // (`trial_pillar_set_is_the_rebuilt_curve`).
+        trial.clear();
+        trial.extend_from_slice(&pillars);
+        trial.push((p.end, 0.0));
+        let built = DiscountCurve::from_log_discount_factors(trade, &trial).ok();
+        let slot = built.as_ref().and_then(|c| c.pillar_dates().binary_search(&p.end).ok());
+        let curve = std::cell::RefCell::new(built);
         let f = |x: f64| -> Option<f64> {
-            let mut trial = trial.borrow_mut();
-            trial.clear();
-            trial.extend_from_slice(&pillars);
-            trial.push((p.end, x));
-            DiscountCurve::from_log_discount_factors(trade, &trial).ok().map(|c| error_of(p, spot, &c))
+            let (mut c, slot) = (curve.borrow_mut(), slot?);
+            let c = c.as_mut().filter(|_| x.is_finite())?;
+            c.set_pillar_log_df(slot, x);
+            Some(error_of(p, spot, c))
         };
         // The error is monotone in ln DF at the new pillar (falling for a deposit, rising for
         // a swap): bisection on [-20, 5] to the last bit, in whichever direction it runs.
@@ -320,5 +330,48 @@ mod tests {
             assert!(p.residual.abs() < 1e-13);
         }
         assert!((built.df(pillars[3].pillar) - zero.df(pillars[3].pillar)).abs() < 1e-13);
+    }
+
+    /// The search's trial curve with its last pillar's ln DF set is the curve built from the
+    /// same pillars, bit for bit: its pillars, its discount factors at dates before, between
+    /// and after the pillars, and the pricing error of each instrument on it, for ln DFs over
+    /// the search's whole bracket.
+    #[test]
+    fn trial_pillar_set_is_the_rebuilt_curve() {
+        let trade = NaiveDate::from_ymd_opt(2024, 5, 17).unwrap();
+        let cal = Calendar::weekends_only();
+        let conv = RateConvention::default_for("USD").unwrap();
+        let spot = spot_date(trade, &conv, &cal);
+        let tn = |m: u32| Tenor::from_months(m).unwrap();
+        let prepared: Vec<Prepared> = [(RateInstrument::Deposit, 1), (RateInstrument::Deposit, 6)]
+            .into_iter()
+            .chain([24, 60, 120].into_iter().map(|m| (RateInstrument::Swap, m)))
+            .map(|(instrument, m)| prepare(RateQuote { instrument, tenor: tn(m), rate: 0.03 }, spot, &conv, &cal))
+            .collect();
+        let probes: Vec<NaiveDate> = (0..4000).step_by(37).map(|d| trade + chrono::Days::new(d)).collect();
+        let mut compared = 0;
+        for k in 0..prepared.len() {
+            let earlier: Vec<(NaiveDate, f64)> =
+                prepared[..k].iter().enumerate().map(|(i, p)| (p.end, -0.01 - 0.02 * i as f64)).collect();
+            let mut trial = earlier.clone();
+            trial.push((prepared[k].end, 0.0));
+            let mut set = DiscountCurve::from_log_discount_factors(trade, &trial).unwrap();
+            let slot = set.pillar_dates().binary_search(&prepared[k].end).unwrap();
+            for x in [-20.0, -7.5, -1.0, -0.123456789, -1e-300, 0.0, 1e-9, 0.37, 5.0] {
+                set.set_pillar_log_df(slot, x);
+                let mut pillars = earlier.clone();
+                pillars.push((prepared[k].end, x));
+                let rebuilt = DiscountCurve::from_log_discount_factors(trade, &pillars).unwrap();
+                assert_eq!(set, rebuilt);
+                for d in &probes {
+                    assert_eq!(set.df(*d).to_bits(), rebuilt.df(*d).to_bits());
+                }
+                for p in &prepared {
+                    assert_eq!(error_of(p, spot, &set).to_bits(), error_of(p, spot, &rebuilt).to_bits());
+                    compared += 1;
+                }
+            }
+        }
+        assert_eq!(compared, 5 * 9 * 5);
     }
 }
