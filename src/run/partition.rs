@@ -24,7 +24,7 @@ use crate::report::markdown::{NodeFold, ResidualFold};
 use crate::stability::{MarketMove, PanelBuilder, SpreadEdge};
 use crate::stages::backtest::{backtest_members_stage, may_serve_a_cohort, CurveCoverage};
 use crate::stages::calibrate::{calibrate_blocks, CalibrationParams};
-use crate::stages::fits::{calibrate_intensity, CirWindows, CurvesForFits};
+use crate::stages::fits::{calibrate_intensity, CurvesForFits};
 use crate::stages::stability::{grade_book, CurveSeries, RowDigest};
 use crate::tables::parquet::{FrameTable, WriterThread};
 use crate::tables::*;
@@ -267,8 +267,6 @@ pub fn compute_partition(
     }
     let mut coverage = CurveCoverage::default();
     let mut kept = BTreeMap::new();
-    // The rows of the CIR windows fitted while the calibration runs (fixed-kappa-sigma mode).
-    let windows_fitted = std::sync::Mutex::new(Vec::new());
     let mut cal = if cfg.cds_bootstrap {
         // Calibration (on rayon's threads) and the handling of its finished blocks (writing,
         // digest, series: serial work) overlap: a second thread takes each block from a channel
@@ -276,60 +274,35 @@ pub fn compute_partition(
         let (tx, rx) = std::sync::mpsc::sync_channel::<crate::stages::calibrate::CurveBlock>(1);
         let (series, coverage, kept, grades) = (&mut series, &mut coverage, &mut kept, &grades);
         let (serves, for_fits, range) = (&serves, &for_fits, scope.range);
-        let (windows_fitted, intensity) = (&windows_fitted, &cfg.intensity);
         std::thread::scope(|threads| {
             let consumer = threads.spawn(move || -> Result<()> {
-                // The CIR windows are fitted on rayon's threads as their last day comes (the
-                // scope waits for the last of them before the consumer ends).
-                let mut windows = CirWindows::new(intensity, range);
-                rayon::in_place_scope(|fits| -> Result<()> {
-                    for block in rx {
-                        if let (Some(w), Some(d)) = (windows.as_mut(), block.discount_curves) {
-                            w.set_discount(d);
+                for block in rx {
+                    sinks.nodes(block.hazard)?;
+                    sinks.residual_rows(block.residuals)?;
+                    let mut rows = block.sensitivities;
+                    for r in rows.iter_mut() {
+                        r.grade = grades.grade(&r.entity, r.date).map(i64::from);
+                    }
+                    sinks.sensitivity_rows(rows)?;
+                    for c in block.curves {
+                        let crate::stages::calibrate::BlockCurve {
+                            key: (date, entity, currency),
+                            seniority,
+                            doc_clause,
+                            reference,
+                            curve,
+                        } = c;
+                        if range.contains(date) {
+                            coverage.add(date, &entity);
+                            let tier = (seniority.as_deref(), doc_clause.as_deref());
+                            series.add(date, &entity, &currency, tier, &curve);
                         }
-                        sinks.nodes(block.hazard)?;
-                        sinks.residual_rows(block.residuals)?;
-                        let mut rows = block.sensitivities;
-                        for r in rows.iter_mut() {
-                            r.grade = grades.grade(&r.entity, r.date).map(i64::from);
-                        }
-                        sinks.sensitivity_rows(rows)?;
-                        for c in block.curves {
-                            let crate::stages::calibrate::BlockCurve {
-                                key: (date, entity, currency),
-                                seniority,
-                                doc_clause,
-                                reference,
-                                curve,
-                            } = c;
-                            if range.contains(date) {
-                                coverage.add(date, &entity);
-                                let tier = (seniority.as_deref(), doc_clause.as_deref());
-                                series.add(date, &entity, &currency, tier, &curve);
-                            }
-                            if reference {
-                                if let Some(window) =
-                                    windows.as_mut().and_then(|w| w.offer(date, &entity, &currency, &curve))
-                                {
-                                    fits.spawn(move |_| {
-                                        let rows = window.fit(params, intensity, range);
-                                        windows_fitted.lock().expect("a window fit panicked").push(rows);
-                                    });
-                                }
-                            }
-                            if reference && ((backtest && serves(date)) || for_fits.wants(date, &entity, &currency)) {
-                                kept.insert((date, entity.to_string(), currency.to_string()), curve);
-                            }
+                        if reference && ((backtest && serves(date)) || for_fits.wants(date, &entity, &currency)) {
+                            kept.insert((date, entity.to_string(), currency.to_string()), curve);
                         }
                     }
-                    for window in windows.take().map(CirWindows::finish).unwrap_or_default() {
-                        fits.spawn(move |_| {
-                            let rows = window.fit(params, intensity, range);
-                            windows_fitted.lock().expect("a window fit panicked").push(rows);
-                        });
-                    }
-                    Ok(())
-                })
+                }
+                Ok(())
             });
             let cal = calibrate_blocks(ds, params, range, true, move |block| {
                 tx.send(block).map_err(|_| Error::Internal("the writer of the calibrated curves stopped".into()))
@@ -353,11 +326,7 @@ pub fn compute_partition(
     let (curve_obs, market, edges) = series.finish();
     timings.push(timed("calibrate, curve series", t));
     let t = Instant::now();
-    // Without the calibration (no CDS curves) nothing was offered to the windows: the fits
-    // stage finds no CIR name either way.
-    let fitted = (cfg.cds_bootstrap && CirWindows::new(&cfg.intensity, scope.range).is_some())
-        .then(|| windows_fitted.into_inner().expect("a window fit panicked"));
-    let mut fits = calibrate_intensity(ds, &cal, params, &cfg.intensity, scope.range, fitted)?;
+    let mut fits = calibrate_intensity(ds, &cal, params, &cfg.intensity, scope.range)?;
     timings.push(timed("bond and CIR fits", t));
 
     let t = Instant::now();

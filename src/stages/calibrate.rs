@@ -676,10 +676,6 @@ pub struct CurveBlock {
     pub curves: Vec<BlockCurve>,
     /// The shifts of the block's curves on the sensitivity dates (grade not yet set).
     pub sensitivities: Vec<SensitivityRow>,
-    /// With the curves, in the first block only: a copy of the discount curves built, per
-    /// (date, currency), for a reader of the curves that needs them before the calibration
-    /// ends (the CIR windows fitted on the way, see `stages::fits::CirWindows`).
-    pub discount_curves: Option<BTreeMap<(NaiveDate, String), DiscountCurve>>,
 }
 
 /// Calibrates every curve of the dataset's CDS panel, handing each block of curves to `sink`
@@ -765,7 +761,6 @@ pub fn calibrate_blocks(
     let mut piece: (usize, Vec<CdsQuoteRow>) = (0, Vec::new());
     let mut plans = Plans::default();
     let mut piece_jobs = 0..0;
-    let mut first_block = true;
     for block_jobs in jobs.chunks(CURVES_PER_BLOCK) {
         if block_jobs[0].0 >= piece.0 + piece.1.len() {
             // The blocks of the piece before are done: its rows go (a piece starts at a block),
@@ -824,9 +819,6 @@ pub fn calibrate_blocks(
             })
             .collect();
         let mut block = CurveBlock::default();
-        if std::mem::take(&mut first_block) && with_curves {
-            block.discount_curves = Some(curves.clone());
-        }
         block.hazard.reserve_exact(outputs.iter().map(|o| o.hazard.len()).sum());
         block.residuals.reserve_exact(outputs.iter().map(|o| o.residuals.len()).sum());
         for (o, &(a, b, _)) in outputs.into_iter().zip(block_jobs) {

@@ -284,48 +284,6 @@ fn cir_residuals(date: NaiveDate, entity: &str, currency: &str, f: &CirFit) -> V
         .collect()
 }
 
-/// One day of a CIR window: its date, its reference CDS curve and its discount curve.
-type WindowDay<'a> = (NaiveDate, &'a super::calibrate::CdsCurve, &'a crate::curves::DiscountCurve);
-
-/// The fixed-kappa-sigma fit of one window of a name's days (`days`, in date order): the
-/// parameter and residual rows of its days in `range`.
-fn fit_window(
-    days: &[WindowDay],
-    entity: &str,
-    currency: &str,
-    p: &CalibrationParams,
-    s: &IntensitySettings,
-    range: DateRange,
-) -> (Vec<IntensityParamRow>, Vec<ResidualRow>) {
-    let settings = CirFitSettings { accrual: p.bootstrap.accrual, ..CirFitSettings::default() };
-    let (mut params, mut residuals) = (Vec::new(), Vec::new());
-    let window: Vec<CirWindowDay> = days
-        .iter()
-        .map(|(d, c, disc)| CirWindowDay {
-            trade_date: *d,
-            quotes: &c.quotes,
-            discount: disc,
-            start: c.curve.as_ref().map(start_from_curve),
-        })
-        .collect();
-    match fit_cir_window(&window, p.cds_calendar(currency), &settings) {
-        Ok(w) => {
-            for ((d, _, _), r) in days.iter().zip(&w.days).filter(|((d, _, _), _)| range.contains(*d)) {
-                if let Ok(f) = r {
-                    residuals.extend(cir_residuals(*d, entity, currency, f));
-                }
-                params.push(param_row(*d, entity, currency, s.cir_mode, r, Some(&w)));
-            }
-        }
-        Err(e) => {
-            for (d, _, _) in days.iter().filter(|(d, _, _)| range.contains(*d)) {
-                params.push(param_row(*d, entity, currency, s.cir_mode, &Err(e.clone()), None));
-            }
-        }
-    }
-    (params, residuals)
-}
-
 /// The CIR fits of one name, day after day; only the days in `range` are fitted and given
 /// back, the days before them fitted too where a later day depends on them (the free mode
 /// starts each day from the day before's fit; a window of the fixed-kappa-sigma mode is fitted
@@ -344,7 +302,7 @@ fn fit_name(
     let mut residuals = Vec::new();
     let key = |d: NaiveDate| (d, entity.to_string(), currency.to_string());
     // Days with a discount curve (always, for a curve that was bootstrapped).
-    let days: Vec<WindowDay> = dates
+    let days: Vec<(NaiveDate, &super::calibrate::CdsCurve, &crate::curves::DiscountCurve)> = dates
         .iter()
         .filter_map(|&d| Some((d, cal.cds_curves.get(&key(d))?, cal.discount_curves.get(&(d, currency.to_string()))?)))
         .collect();
@@ -376,12 +334,42 @@ fn fit_name(
             // The windows are fitted independently of one another: side by side on rayon's
             // threads, their rows put back in window order (the same rows as one after the
             // other; the fits of a few names then spread over every core).
-            let blocks: Vec<&[WindowDay]> = days
+            let blocks: Vec<&[(NaiveDate, &super::calibrate::CdsCurve, &crate::curves::DiscountCurve)]> = days
                 .chunks(s.cir_window.max(1))
                 .filter(|block| block.iter().any(|(d, _, _)| range.contains(*d)))
                 .collect();
-            let fitted: Vec<(Vec<IntensityParamRow>, Vec<ResidualRow>)> =
-                blocks.par_iter().map(|block| fit_window(block, entity, currency, p, s, range)).collect();
+            let fitted: Vec<(Vec<IntensityParamRow>, Vec<ResidualRow>)> = blocks
+                .par_iter()
+                .map(|block| {
+                    let (mut params, mut residuals) = (Vec::new(), Vec::new());
+                    let window: Vec<CirWindowDay> = block
+                        .iter()
+                        .map(|(d, c, disc)| CirWindowDay {
+                            trade_date: *d,
+                            quotes: &c.quotes,
+                            discount: disc,
+                            start: c.curve.as_ref().map(start_from_curve),
+                        })
+                        .collect();
+                    match fit_cir_window(&window, p.cds_calendar(currency), &settings) {
+                        Ok(w) => {
+                            for ((d, _, _), r) in block.iter().zip(&w.days).filter(|((d, _, _), _)| range.contains(*d))
+                            {
+                                if let Ok(f) = r {
+                                    residuals.extend(cir_residuals(*d, entity, currency, f));
+                                }
+                                params.push(param_row(*d, entity, currency, s.cir_mode, r, Some(&w)));
+                            }
+                        }
+                        Err(e) => {
+                            for (d, _, _) in block.iter().filter(|(d, _, _)| range.contains(*d)) {
+                                params.push(param_row(*d, entity, currency, s.cir_mode, &Err(e.clone()), None));
+                            }
+                        }
+                    }
+                    (params, residuals)
+                })
+                .collect();
             for (window_params, window_residuals) in fitted {
                 params.extend(window_params);
                 residuals.extend(window_residuals);
@@ -389,109 +377,6 @@ fn fit_name(
         }
     }
     (params, residuals)
-}
-
-/// The fixed-kappa-sigma CIR windows, cut while the calibration hands its curves over, so
-/// that each can be fitted as soon as its last day is calibrated (on the cores the
-/// calibration leaves idle) instead of after the whole calibration. Fed the reference curves
-/// in date order, it cuts each name's days into the same windows as the fits after the
-/// calibration would ([`cir_fits`]: consecutive runs of `cir_window` days from the name's
-/// first, the last run shorter), so every fitted row is the same.
-pub struct CirWindows {
-    window: usize,
-    range: DateRange,
-    names: Option<FastSet<String>>,
-    discount: BTreeMap<(NaiveDate, String), crate::curves::DiscountCurve>,
-    /// Per (entity, currency): the days of its window being filled.
-    open: BTreeMap<(String, String), Vec<(NaiveDate, super::calibrate::CdsCurve, crate::curves::DiscountCurve)>>,
-}
-
-/// A window of one name's days, cut by [`CirWindows`], with what its fit needs.
-pub struct CirWindow {
-    entity: String,
-    currency: String,
-    days: Vec<(NaiveDate, super::calibrate::CdsCurve, crate::curves::DiscountCurve)>,
-}
-
-impl CirWindow {
-    /// The window's fit: the rows of its days in `range` (as [`fit_window`]).
-    pub fn fit(
-        &self,
-        p: &CalibrationParams,
-        s: &IntensitySettings,
-        range: DateRange,
-    ) -> (Vec<IntensityParamRow>, Vec<ResidualRow>) {
-        let days: Vec<WindowDay> = self.days.iter().map(|(d, c, disc)| (*d, c, disc)).collect();
-        fit_window(&days, &self.entity, &self.currency, p, s, range)
-    }
-}
-
-impl CirWindows {
-    /// The windows of `s` for the days in `range`; None where the settings fit no CIR
-    /// windows (CIR off, or the free mode, whose days depend on one another).
-    pub fn new(s: &IntensitySettings, range: DateRange) -> Option<CirWindows> {
-        (s.cir && s.cir_mode == CirFitMode::FixedKappaSigma).then(|| CirWindows {
-            window: s.cir_window.max(1),
-            range,
-            names: s.cir_entities.as_ref().map(|list| list.iter().cloned().collect()),
-            discount: BTreeMap::new(),
-            open: BTreeMap::new(),
-        })
-    }
-
-    /// The discount curves of the calibration (before the first curve is offered).
-    pub fn set_discount(&mut self, curves: BTreeMap<(NaiveDate, String), crate::curves::DiscountCurve>) {
-        self.discount = curves;
-    }
-
-    /// Whether `entity` is a CIR name.
-    pub fn wants(&self, entity: &str) -> bool {
-        self.names.as_ref().is_none_or(|n| n.contains(entity))
-    }
-
-    /// Takes the reference curve of (`date`, `entity`, `currency`) (each name's in date order)
-    /// and gives back the window it completes, if it completes one with a day in the range.
-    pub fn offer(
-        &mut self,
-        date: NaiveDate,
-        entity: &str,
-        currency: &str,
-        curve: &super::calibrate::CdsCurve,
-    ) -> Option<CirWindow> {
-        if !self.wants(entity) {
-            return None;
-        }
-        // As the fits after the calibration: a day without its discount curve is no day.
-        let disc = self.discount.get(&(date, currency.to_string()))?.clone();
-        let key = (entity.to_string(), currency.to_string());
-        let days = self.open.entry(key).or_default();
-        days.push((date, curve.clone(), disc));
-        if days.len() < self.window {
-            return None;
-        }
-        let days = std::mem::take(days);
-        self.window_of(entity.to_string(), currency.to_string(), days)
-    }
-
-    /// The windows left open when the last curve has been offered (each name's last, shorter
-    /// one), those with a day in the range.
-    pub fn finish(self) -> Vec<CirWindow> {
-        let range = self.range;
-        self.open
-            .into_iter()
-            .filter(|(_, days)| days.iter().any(|(d, _, _)| range.contains(*d)))
-            .map(|((entity, currency), days)| CirWindow { entity, currency, days })
-            .collect()
-    }
-
-    fn window_of(
-        &self,
-        entity: String,
-        currency: String,
-        days: Vec<(NaiveDate, super::calibrate::CdsCurve, crate::curves::DiscountCurve)>,
-    ) -> Option<CirWindow> {
-        days.iter().any(|(d, _, _)| self.range.contains(*d)).then_some(CirWindow { entity, currency, days })
-    }
 }
 
 /// The CDS curves the fits that `s` enables will read: those of the CIR names (every name
@@ -590,18 +475,12 @@ pub fn calibrate_intensity(
     p: &CalibrationParams,
     s: &IntensitySettings,
     range: DateRange,
-    windows_fitted: Option<Vec<(Vec<IntensityParamRow>, Vec<ResidualRow>)>>,
 ) -> Result<IntensityCalibration> {
     let mut out = IntensityCalibration::default();
     // The bond fits and the CIR fits are independent: run side by side on rayon's threads,
     // so that the few CIR names (each a sequence of days) overlap with the many bond groups.
     let data: &Dataset = ds;
-    // The windows of the fixed-kappa-sigma mode may have been fitted while the calibration
-    // ran (see [`CirWindows`]): their rows are taken as they are.
-    let (bond_outputs, cir_fits) = match windows_fitted {
-        Some(fitted) => (bond_fits(data, cal, p, s), fitted),
-        None => rayon::join(|| bond_fits(data, cal, p, s), || cir_fits(cal, p, s, range)),
-    };
+    let (bond_outputs, cir_fits) = rayon::join(|| bond_fits(data, cal, p, s), || cir_fits(cal, p, s, range));
     for o in bond_outputs {
         out.bond_curves += o.fitted as usize;
         out.hazard.extend(o.hazard);
@@ -641,100 +520,4 @@ pub fn calibrate_intensity(
     }
     out.rejects.sort_by(|a, b| (a.table, &a.source, a.row).cmp(&(b.table, &b.source, b.row)));
     Ok(out)
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-    use crate::stages::calibrate::CdsCurve;
-
-    /// The windows [`CirWindows`] cuts from curves offered one at a time, in date order, are
-    /// those the fits after the calibration cut ([`fit_name`]: a name's days that have a
-    /// discount curve, in runs of `cir_window` from the first, the last shorter, a run kept
-    /// when one of its days is in the range): for window lengths from 1 to past the days,
-    /// with and without a range, names left out of the CIR list, a currency whose discount
-    /// curve is missing on some days and a name quoted on only some days.
-    #[test]
-    fn windows_cut_on_the_way_are_the_windows_after() {
-        let day0 = NaiveDate::from_ymd_opt(2021, 3, 1).expect("date");
-        let dates: Vec<NaiveDate> = (0..61).map(|k| day0 + chrono::Days::new(k)).collect();
-        let mut discount = BTreeMap::new();
-        for (k, &d) in dates.iter().enumerate() {
-            discount.insert((d, "USD".to_string()), crate::curves::DiscountCurve::flat(d, 0.02));
-            if k % 11 != 4 {
-                discount.insert((d, "EUR".to_string()), crate::curves::DiscountCurve::flat(d, 0.01));
-            }
-        }
-        // (entity, currency, quoted on the k-th date)
-        let names: [(&str, &str, fn(usize) -> bool); 4] = [
-            ("Arden Vale", "EUR", |_| true),
-            ("Arden Vale", "USD", |k| k % 3 != 1),
-            ("Brisk Holm", "EUR", |k| !(20..27).contains(&k)),
-            ("Corran Firth", "EUR", |_| true),
-        ];
-        let curve = CdsCurve { quotes: Vec::new(), curve: None };
-        let ranges = [
-            DateRange::ALL,
-            DateRange { from: Some(dates[17]), to: Some(dates[42]) },
-            DateRange { from: None, to: Some(dates[3]) },
-            DateRange { from: Some(dates[58]), to: None },
-        ];
-        let mut cut_windows = 0;
-        for window in [1, 2, 7, 20, 60, 61, 100] {
-            for range in ranges {
-                let s = IntensitySettings {
-                    cir: true,
-                    cir_mode: CirFitMode::FixedKappaSigma,
-                    cir_window: window,
-                    cir_entities: Some(vec!["Arden Vale".into(), "Brisk Holm".into()]),
-                    ..IntensitySettings::default()
-                };
-                let mut cut = CirWindows::new(&s, range).expect("the window mode");
-                cut.set_discount(discount.clone());
-                let mut got: BTreeMap<(String, String), Vec<Vec<NaiveDate>>> = BTreeMap::new();
-                let mut keep = |w: CirWindow| {
-                    let days = w.days.iter().map(|(d, _, disc)| {
-                        assert_eq!(disc.reference(), *d);
-                        *d
-                    });
-                    got.entry((w.entity.clone(), w.currency.clone())).or_default().push(days.collect());
-                };
-                for (k, &d) in dates.iter().enumerate() {
-                    for (entity, currency, quoted) in names {
-                        if quoted(k) {
-                            if let Some(w) = cut.offer(d, entity, currency, &curve) {
-                                keep(w);
-                            }
-                        }
-                    }
-                }
-                cut.finish().into_iter().for_each(&mut keep);
-
-                let mut expected: BTreeMap<(String, String), Vec<Vec<NaiveDate>>> = BTreeMap::new();
-                for (entity, currency, quoted) in names.into_iter().filter(|(e, _, _)| *e != "Corran Firth") {
-                    let days: Vec<NaiveDate> = (0..dates.len())
-                        .filter(|&k| quoted(k) && discount.contains_key(&(dates[k], currency.to_string())))
-                        .map(|k| dates[k])
-                        .collect();
-                    let runs: Vec<Vec<NaiveDate>> = days
-                        .chunks(window)
-                        .filter(|run| run.iter().any(|d| range.contains(*d)))
-                        .map(|run| run.to_vec())
-                        .collect();
-                    if !runs.is_empty() {
-                        expected.insert((entity.to_string(), currency.to_string()), runs);
-                    }
-                }
-                assert_eq!(got, expected, "window {window}, range {range:?}");
-                cut_windows += got.values().map(Vec::len).sum::<usize>();
-            }
-        }
-        assert!(cut_windows > 100, "{cut_windows} windows cut");
-        // The free mode and CIR off fit no windows on the way.
-        let free = IntensitySettings { cir: true, cir_mode: CirFitMode::Free, ..IntensitySettings::default() };
-        assert!(CirWindows::new(&free, DateRange::ALL).is_none());
-        let off =
-            IntensitySettings { cir: false, cir_mode: CirFitMode::FixedKappaSigma, ..IntensitySettings::default() };
-        assert!(CirWindows::new(&off, DateRange::ALL).is_none());
-    }
 }
