@@ -649,7 +649,7 @@ pub fn price_legs(
 /// values published with QuantLib's test suite, testIsdaEngine, are upfronts converted this
 /// way; tests/all/reference_quantlib.rs reproduces them).
 pub mod quoted_spread {
-    use super::{price_legs_on_plan, AccrualIntegration, CdsContract, CdsLegs, LegPlan};
+    use super::{AccrualIntegration, CdsContract, CdsLegs, LegPlan};
     use crate::curves::{DiscountCurve, HazardCurve};
 
     /// The flat hazard at which `value(h)` reaches `target` (value rising in h), bisected on
@@ -677,9 +677,11 @@ pub mod quoted_spread {
     /// one node is always at t = 1, so the grid does not change with the hazard), then at each
     /// hazard the numbers [`super::price_legs`] gives on [`HazardCurve::flat`].
     struct FlatLegs {
-        trade: chrono::NaiveDate,
         plan: LegPlan,
         recovery: f64,
+        /// The survival values at the grid's times and their discounted products, reused by
+        /// each hazard priced (a conversion prices about sixty).
+        scratch: std::cell::RefCell<(Vec<f64>, Vec<f64>)>,
     }
 
     impl FlatLegs {
@@ -693,14 +695,27 @@ pub mod quoted_spread {
             let trade = contract.trade_date;
             let flat = HazardCurve::flat(trade, 0.0);
             (discount.reference() == trade).then(|| FlatLegs {
-                trade,
                 plan: LegPlan::build(trade, &[contract], discount, flat.node_times(), accrual),
                 recovery,
+                scratch: Default::default(),
             })
         }
 
+        /// The legs [`price_legs_on_plan`](super::price_legs_on_plan) gives on `HazardCurve::flat(trade, h)`: the same
+        /// steps on the same numbers (the flat curve's ln S(t) as
+        /// `HazardCurve::one_segment_log_survival` gives it for its one node at t = 1), without
+        /// building the curve and the vectors at each hazard.
         fn at(&self, h: f64) -> CdsLegs {
-            price_legs_on_plan(&self.plan, &[self.recovery], &HazardCurve::flat(self.trade, h))[0]
+            debug_assert!(h.is_finite(), "a flat hazard is finite");
+            let mut scratch = self.scratch.borrow_mut();
+            let (log_q, pq) = &mut *scratch;
+            let plan = &self.plan;
+            log_q.clear();
+            log_q.extend(plan.times.iter().map(|&t| HazardCurve::one_segment_log_survival(h, 1.0, t)));
+            pq.clear();
+            pq.extend(plan.log_dfs.iter().zip(log_q.iter()).map(|(p, q)| p + q));
+            crate::math::exp::exp_in_place(pq);
+            super::terms_legs(plan, &plan.contracts[0], self.recovery, pq, log_q)
         }
     }
 
