@@ -14,7 +14,7 @@
 
 use crate::curves::{year_time, DiscountCurve, HazardCurve};
 use crate::instruments::cds::{
-    evaluate_terms, terms_legs, AccrualIntegration, CdsContract, CdsQuote, ContractTerms, LegPlan, RunningSums,
+    evaluate_terms, one_node_legs, AccrualIntegration, CdsContract, CdsQuote, ContractTerms, LegPlan, RunningSums,
 };
 use crate::instruments::term_lanes::{segment_points, Lanes, TermLayout};
 use crate::math::exp::{exp, exp_in_place};
@@ -503,14 +503,9 @@ impl BootstrapPlan {
             let failed = solve_nodes(self, std::slice::from_ref(quote), settings, s, &mut nodes, &mut hazards);
             let ok = !failed && nodes.iter().all(|n| n.status.usable()) && hazards.len() == 1;
             let spread = ok.then(|| {
-                let (h, t1) = (hazards[0], self.node_times[0]);
+                let node = (hazards[0], self.node_times[0]);
                 let plan = &self.plan;
-                s.log_q.clear();
-                s.log_q.extend(plan.times.iter().map(|&t| HazardCurve::one_segment_log_survival(h, t1, t)));
-                s.pq.clear();
-                s.pq.extend(plan.log_dfs.iter().zip(&s.log_q).map(|(p, q)| p + q));
-                exp_in_place(&mut s.pq);
-                terms_legs(plan, &plan.contracts[0], quote.recovery, &s.pq, &s.log_q).par_spread()
+                one_node_legs(plan, &plan.contracts[0], quote.recovery, node, &mut s.log_q, &mut s.pq).par_spread()
             });
             s.nodes = nodes;
             s.hazards = hazards;

@@ -537,6 +537,26 @@ pub(crate) fn price_legs_on_plan(plan: &LegPlan, recoveries: &[f64], hazard: &Ha
         .collect()
 }
 
+/// The legs of `terms` (a contract of `plan`) on the one-node hazard curve of hazard `h` and
+/// node time `t1`: the numbers [`price_legs_on_plan`] gives on that curve (its ln S(t) as
+/// [`HazardCurve::one_segment_log_survival`] computes it), into `log_q` and `pq` kept by the
+/// caller instead of a curve and new vectors (flat solves price many hazards).
+pub(crate) fn one_node_legs(
+    plan: &LegPlan,
+    terms: &ContractTerms,
+    recovery: f64,
+    (h, t1): (f64, f64),
+    log_q: &mut Vec<f64>,
+    pq: &mut Vec<f64>,
+) -> CdsLegs {
+    log_q.clear();
+    log_q.extend(plan.times.iter().map(|&t| HazardCurve::one_segment_log_survival(h, t1, t)));
+    pq.clear();
+    pq.extend(plan.log_dfs.iter().zip(log_q.iter()).map(|(p, q)| p + q));
+    crate::math::exp::exp_in_place(pq);
+    terms_legs(plan, terms, recovery, pq, log_q)
+}
+
 /// The protection term of the interval (i0, i1), as [`evaluate_terms`] computes it on `f64`.
 #[inline]
 fn window_term(plan: &LegPlan, i0: usize, i1: usize, pq: &[f64], log_q: &[f64]) -> f64 {
@@ -701,21 +721,13 @@ pub mod quoted_spread {
             })
         }
 
-        /// The legs [`price_legs_on_plan`](super::price_legs_on_plan) gives on `HazardCurve::flat(trade, h)`: the same
-        /// steps on the same numbers (the flat curve's ln S(t) as
-        /// `HazardCurve::one_segment_log_survival` gives it for its one node at t = 1), without
-        /// building the curve and the vectors at each hazard.
+        /// The legs on `HazardCurve::flat(trade, h)` (one node at t = 1), without building
+        /// the curve and the vectors at each hazard ([`super::one_node_legs`]).
         fn at(&self, h: f64) -> CdsLegs {
             debug_assert!(h.is_finite(), "a flat hazard is finite");
             let mut scratch = self.scratch.borrow_mut();
             let (log_q, pq) = &mut *scratch;
-            let plan = &self.plan;
-            log_q.clear();
-            log_q.extend(plan.times.iter().map(|&t| HazardCurve::one_segment_log_survival(h, 1.0, t)));
-            pq.clear();
-            pq.extend(plan.log_dfs.iter().zip(log_q.iter()).map(|(p, q)| p + q));
-            crate::math::exp::exp_in_place(pq);
-            super::terms_legs(plan, &plan.contracts[0], self.recovery, pq, log_q)
+            super::one_node_legs(&self.plan, &self.plan.contracts[0], self.recovery, (h, 1.0), log_q, pq)
         }
     }
 
