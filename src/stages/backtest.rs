@@ -40,13 +40,15 @@ pub struct BacktestResults {
 
 /// The par-spread quotes of a curve in bp by tenor (upfront quotes have no par spread).
 pub fn spreads_of(quotes: &[BootstrapQuote]) -> Vec<QuotedSpread> {
-    quotes
-        .iter()
-        .filter_map(|q| match q.quote {
-            CdsQuote::ParSpread(s) => Some(QuotedSpread { tenor_months: q.tenor.months(), spread_bp: s * 1e4 }),
-            CdsQuote::Upfront { .. } => None,
-        })
-        .collect()
+    spread_quotes(quotes).collect()
+}
+
+/// [`spreads_of`] one by one.
+pub fn spread_quotes(quotes: &[BootstrapQuote]) -> impl Iterator<Item = QuotedSpread> + '_ {
+    quotes.iter().filter_map(|q| match q.quote {
+        CdsQuote::ParSpread(s) => Some(QuotedSpread { tenor_months: q.tenor.months(), spread_bp: s * 1e4 }),
+        CdsQuote::Upfront { .. } => None,
+    })
 }
 
 /// Entity facts of the entities with curves: grade spells, first default, and the end of

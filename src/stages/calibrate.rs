@@ -350,7 +350,7 @@ fn calibrate_one(
         Some(Err(e)) => Err(e.clone()),
         None => bootstrap(date, &quotes, curve, s.cds_calendar(currency), &s.bootstrap),
     };
-    let fit = match fitted {
+    let mut fit = match fitted {
         Ok(f) => f,
         Err(e) => {
             let rejects = rows
@@ -444,9 +444,10 @@ fn calibrate_one(
         Vec::new()
     };
     // The curve with its quotes, for the stages after the calibration; `reference` None:
-    // nothing after it wants the curves.
+    // nothing after it wants the curves. The fit is not read after this, so its curve moves
+    // here rather than being copied.
     let fit = reference.map(|reference| {
-        let curve = if fit.complete() && !fit.failed { fit.curve.clone() } else { None };
+        let curve = if fit.complete() && !fit.failed { fit.curve.take() } else { None };
         BlockCurve {
             key: (date, entity_label, currency_label),
             seniority,

@@ -5,7 +5,7 @@ use crate::backtest::GradeBook;
 use crate::error::Result;
 use crate::ingest::Dataset;
 use crate::stability::{
-    self, spread_move, CalibrationCounts, MarketMove, PanelBuilder, ResidualAnalysis, ResidualObservation,
+    self, spread_move_sorted, CalibrationCounts, MarketMove, PanelBuilder, ResidualAnalysis, ResidualObservation,
     ResidualReview, SpreadEdge, StabilityOutput, StabilitySettings,
 };
 use crate::stages::calibrate::CdsCurve;
@@ -13,7 +13,7 @@ use crate::tables::{self, review::PsiRecord};
 use crate::tables::{HazardCurveRow, IntensityParamRow, ResidualRow};
 use crate::text::RowStatus;
 use chrono::NaiveDate;
-use std::collections::{BTreeMap, BTreeSet};
+use std::collections::BTreeSet;
 use std::path::Path;
 use std::sync::Arc;
 
@@ -169,13 +169,35 @@ enum Slot {
     Node(crate::time::Tenor),
 }
 
+/// The par-spread quotes of a curve (`backtest::spreads_of`: tenor in months, bp) into
+/// `out`, as a map by tenor holds them: increasing tenors, the last quote of a tenor kept.
+fn sorted_spreads(quotes: &[crate::calibrate::bootstrap::BootstrapQuote], out: &mut Vec<(u32, f64)>) {
+    out.clear();
+    out.extend(crate::stages::backtest::spread_quotes(quotes).map(|q| (q.tenor_months, q.spread_bp)));
+    if out.windows(2).any(|w| w[0].0 >= w[1].0) {
+        // Stable: the quotes of one tenor keep their order, and the last one stays.
+        out.sort_by_key(|&(t, _)| t);
+        let mut kept = 0;
+        for i in 0..out.len() {
+            if kept > 0 && out[kept - 1].0 == out[i].0 {
+                out[kept - 1] = out[i];
+            } else {
+                out[kept] = out[i];
+                kept += 1;
+            }
+        }
+        out.truncate(kept);
+    }
+}
+
 /// What [`CurveSeries`] keeps per series entity: its label, its grades, the indices of its
 /// histories in the panel builder once made, and the date and par spreads of its latest curve.
 struct SeriesEntity<'a> {
     entity: Arc<str>,
     grades: &'a [(NaiveDate, u32)],
     slots: Vec<(Slot, usize)>,
-    last: Option<(NaiveDate, BTreeMap<u32, f64>)>,
+    /// The date and par spreads (tenor in months, bp; increasing tenors) of the latest curve.
+    last: Option<(NaiveDate, Vec<(u32, f64)>)>,
 }
 
 impl SeriesEntity<'_> {
@@ -213,6 +235,8 @@ pub struct CurveSeries<'a> {
     market: Vec<MarketMove>,
     /// Each series entity's first curve's spreads (see [`SpreadEdge`]).
     firsts: Vec<SpreadEdge>,
+    /// The par spreads of the curve being added (a vector kept from curve to curve).
+    spreads: Vec<(u32, f64)>,
     /// Curves to come per series entity (by its label's address), when known
     /// ([`CurveSeries::expect_curves`]): its histories are made that long at once.
     expected: crate::hash::FastMap<usize, usize>,
@@ -235,6 +259,7 @@ impl<'a> CurveSeries<'a> {
             observations: PanelBuilder::new(),
             market: Vec::new(),
             firsts: Vec::new(),
+            spreads: Vec::new(),
             expected: Default::default(),
         }
     }
@@ -303,20 +328,27 @@ impl<'a> CurveSeries<'a> {
                 }
             }
         }
-        let spreads: BTreeMap<u32, f64> = crate::stages::backtest::spreads_of(&curve.quotes)
-            .into_iter()
-            .map(|q| (q.tenor_months, q.spread_bp))
-            .collect();
-        match &state.last {
-            Some((_, prev)) => self.market.extend(spread_move(&state.entity, date, prev, &spreads)),
-            None => self.firsts.push(SpreadEdge {
-                entity: state.entity.clone(),
-                date,
-                last: false,
-                spreads: spreads.clone(),
-            }),
+        // The curve's par spreads by tenor as a map of them holds them (increasing tenors, the
+        // last quote of a tenor kept), built in a vector kept from curve to curve.
+        let spreads = &mut self.spreads;
+        sorted_spreads(&curve.quotes, spreads);
+        match &mut state.last {
+            Some((last_date, prev)) => {
+                self.market.extend(spread_move_sorted(&state.entity, date, prev, spreads));
+                *last_date = date;
+                // The previous curve's vector is the next curve's to fill.
+                std::mem::swap(prev, spreads);
+            }
+            None => {
+                self.firsts.push(SpreadEdge {
+                    entity: state.entity.clone(),
+                    date,
+                    last: false,
+                    spreads: spreads.iter().copied().collect(),
+                });
+                state.last = Some((date, spreads.clone()));
+            }
         }
-        state.last = Some((date, spreads));
     }
 
     /// The index in `states` of the series entity of the curves of entity `e` in currency `c`
@@ -354,7 +386,14 @@ impl<'a> CurveSeries<'a> {
         let mut lasts: Vec<SpreadEdge> = self
             .states
             .into_iter()
-            .filter_map(|s| s.last.map(|(date, spreads)| SpreadEdge { entity: s.entity, date, last: true, spreads }))
+            .filter_map(|s| {
+                s.last.map(|(date, spreads)| SpreadEdge {
+                    entity: s.entity,
+                    date,
+                    last: true,
+                    spreads: spreads.into_iter().collect(),
+                })
+            })
             .collect();
         lasts.sort_by(|a, b| a.entity.cmp(&b.entity));
         edges.extend(lasts);
@@ -525,6 +564,47 @@ pub fn write_stability_tables(out: &StabilityOutput, dir: &Path, meta: &[(String
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::stability::spread_move;
+    use std::collections::BTreeMap;
+
+    /// A curve's spreads as sorted pairs are the map of them a collect builds: quotes in and
+    /// out of tenor order, a tenor quoted twice (the later quote kept), upfront quotes left out.
+    #[test]
+    fn sorted_spreads_are_the_map_of_the_spreads() {
+        use crate::calibrate::bootstrap::BootstrapQuote;
+        use crate::instruments::cds::CdsQuote;
+        use crate::time::Tenor;
+        let quote = |m: u32, q: CdsQuote| BootstrapQuote {
+            tenor: Tenor::from_months(m).unwrap(),
+            quote: q,
+            recovery: 0.4,
+            maturity: None,
+        };
+        let upfront = CdsQuote::Upfront { upfront: 0.01, coupon: 0.01 };
+        let cases: Vec<Vec<BootstrapQuote>> = vec![
+            vec![],
+            vec![quote(6, CdsQuote::ParSpread(0.001)), quote(12, CdsQuote::ParSpread(0.002))],
+            vec![quote(60, CdsQuote::ParSpread(0.003)), quote(12, CdsQuote::ParSpread(0.002)), quote(36, upfront)],
+            vec![
+                quote(12, CdsQuote::ParSpread(0.002)),
+                quote(60, CdsQuote::ParSpread(0.004)),
+                quote(12, CdsQuote::ParSpread(0.005)),
+                quote(6, CdsQuote::ParSpread(0.001)),
+                quote(60, CdsQuote::ParSpread(0.007)),
+            ],
+        ];
+        let mut out = vec![(99, 1.0); 9];
+        for quotes in &cases {
+            let want: Vec<(u32, f64)> = crate::stages::backtest::spreads_of(quotes)
+                .into_iter()
+                .map(|q| (q.tenor_months, q.spread_bp))
+                .collect::<BTreeMap<u32, f64>>()
+                .into_iter()
+                .collect();
+            sorted_spreads(quotes, &mut out);
+            assert_eq!(out, want);
+        }
+    }
 
     /// The series entity of a row's labels is the one worked out from their texts, whether
     /// the labels are shared across rows (answered by address), fresh for each row, or more

@@ -395,11 +395,34 @@ impl BootstrapPlan {
         curve: &crate::curves::HazardCurve,
         recoveries: &[f64],
     ) -> Option<Vec<crate::instruments::CdsLegs>> {
-        let same = curve.reference() == self.trade
+        self.prices_on(curve, recoveries.len())
+            .then(|| crate::instruments::cds::price_legs_on_plan(&self.plan, recoveries, curve))
+    }
+
+    /// As [`BootstrapPlan::legs_on`] with the recovery of contract k given by `recovery(k)` for
+    /// `count` contracts, each contract's legs handed to `each` (its index, its legs) in order
+    /// instead of collected. Returns false, calling nothing, where `legs_on` gives None.
+    pub fn each_legs_on(
+        &self,
+        curve: &crate::curves::HazardCurve,
+        count: usize,
+        recovery: impl Fn(usize) -> f64,
+        each: impl FnMut(usize, crate::instruments::CdsLegs),
+    ) -> bool {
+        let same = self.prices_on(curve, count);
+        if same {
+            crate::instruments::cds::each_legs_on_plan(&self.plan, recovery, curve, each);
+        }
+        same
+    }
+
+    /// Whether `curve` is one this plan's grid prices (its trade date and node times) with
+    /// `count` recoveries, one per contract.
+    fn prices_on(&self, curve: &crate::curves::HazardCurve, count: usize) -> bool {
+        curve.reference() == self.trade
             && curve.node_times().len() == self.node_times.len()
             && curve.node_times().iter().zip(&self.node_times).all(|(a, b)| a.to_bits() == b.to_bits())
-            && recoveries.len() == self.plan.contracts.len();
-        same.then(|| crate::instruments::cds::price_legs_on_plan(&self.plan, recoveries, curve))
+            && count == self.plan.contracts.len()
     }
 
     /// Bootstraps one curve. `quotes[i].tenor` must be the plan's `tenors()[i]`.

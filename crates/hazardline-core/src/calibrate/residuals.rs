@@ -3,7 +3,7 @@
 
 use super::bootstrap::{BootstrapQuote, CurveFit};
 use crate::curves::DiscountCurve;
-use crate::instruments::cds::{price_legs_set, AccrualIntegration, CdsQuote};
+use crate::instruments::cds::{price_legs_set, AccrualIntegration, CdsLegs, CdsQuote};
 use crate::time::Tenor;
 
 /// The repricing of one quote.
@@ -57,41 +57,112 @@ pub fn reprice_with_plan(
 ) -> Vec<QuoteResidual> {
     let Some(curve) = fit.curve.as_ref() else { return Vec::new() };
     let mut out = Vec::with_capacity(fit.nodes.len());
-    // Every solved node's contract priced on one joint grid (one plan per curve, not per node).
+    // Every solved node's contract priced on one joint grid (one plan per curve, not per node):
+    // the shared plan's when every node was solved, handed over contract by contract.
+    if let Some(p) = plan.filter(|_| fit.nodes.iter().all(|n| n.hazard.is_some())) {
+        let nodes = &fit.nodes;
+        let recovery = |k: usize| quotes[nodes[k].quote_index].recovery;
+        if p.each_legs_on(curve, nodes.len(), recovery, |k, legs| out.push(residual(&nodes[k], quotes, &legs))) {
+            return out;
+        }
+    }
     let solved: Vec<(&super::bootstrap::NodeFit, &crate::instruments::CdsContract)> =
         fit.nodes.iter().zip(fit.contracts.iter()).filter(|(n, _)| n.hazard.is_some()).collect();
     let contracts: Vec<&crate::instruments::CdsContract> = solved.iter().map(|s| s.1).collect();
     let recoveries: Vec<f64> = solved.iter().map(|s| quotes[s.0.quote_index].recovery).collect();
-    let shared = plan.filter(|_| solved.len() == fit.nodes.len()).and_then(|p| p.legs_on(curve, &recoveries));
-    let all_legs = match shared {
-        Some(legs) => legs,
-        None => match price_legs_set(&contracts, &recoveries, discount, curve, accrual) {
-            Ok(legs) => legs,
-            Err(_) => return Vec::new(),
-        },
+    let all_legs = match price_legs_set(&contracts, &recoveries, discount, curve, accrual) {
+        Ok(legs) => legs,
+        Err(_) => return Vec::new(),
     };
     for ((node, _), legs) in solved.into_iter().zip(all_legs) {
-        let q = &quotes[node.quote_index];
-        let ann = legs.risky_annuity();
-        let par_bp = legs.par_spread() * 1e4;
-        let (instrument, market, model, residual_bp) = match q.quote {
-            CdsQuote::ParSpread(s) => ("cds_par_spread", s * 1e4, par_bp, par_bp - s * 1e4),
-            CdsQuote::Upfront { upfront, coupon } => {
-                let m = legs.upfront(coupon);
-                ("cds_upfront", upfront, m, (m - upfront) * legs.cash_settle_df / ann * 1e4)
-            }
-        };
-        out.push(QuoteResidual {
-            quote_index: node.quote_index,
-            tenor: node.tenor,
-            instrument,
-            market,
-            model,
-            residual_bp,
-            model_par_spread_bp: par_bp,
-            risky_annuity: ann,
-            cash_settle_df: legs.cash_settle_df,
-        });
+        out.push(residual(node, quotes, &legs));
     }
     out
+}
+
+/// The repricing of `node`'s quote from its contract's legs on the calibrated curve.
+fn residual(node: &super::bootstrap::NodeFit, quotes: &[BootstrapQuote], legs: &CdsLegs) -> QuoteResidual {
+    let q = &quotes[node.quote_index];
+    let ann = legs.risky_annuity();
+    let par_bp = legs.par_spread() * 1e4;
+    let (instrument, market, model, residual_bp) = match q.quote {
+        CdsQuote::ParSpread(s) => ("cds_par_spread", s * 1e4, par_bp, par_bp - s * 1e4),
+        CdsQuote::Upfront { upfront, coupon } => {
+            let m = legs.upfront(coupon);
+            ("cds_upfront", upfront, m, (m - upfront) * legs.cash_settle_df / ann * 1e4)
+        }
+    };
+    QuoteResidual {
+        quote_index: node.quote_index,
+        tenor: node.tenor,
+        instrument,
+        market,
+        model,
+        residual_bp,
+        model_par_spread_bp: par_bp,
+        risky_annuity: ann,
+        cash_settle_df: legs.cash_settle_df,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::calibrate::bootstrap::{BootstrapPlan, BootstrapSettings};
+    use crate::time::{Calendar, Tenor};
+    use chrono::NaiveDate;
+
+    /// Repricing on the shared plan's grid (legs handed over one by one, the grid's vectors
+    /// kept by the thread) gives the general leg pricer's repricing bit for bit, curve after
+    /// curve: plans of different lengths in turn (so a longer grid's values are left in the
+    /// kept vectors before a shorter one), par-spread and upfront quotes, two discount curves.
+    #[test]
+    fn repricing_on_the_plan_is_the_general_repricing() {
+        let t = NaiveDate::from_ymd_opt(2024, 3, 20).unwrap();
+        let cal = Calendar::weekends_only();
+        let months = |m: &[u32]| -> Vec<(Tenor, Option<NaiveDate>)> {
+            m.iter().map(|&m| (Tenor::from_months(m).unwrap(), None)).collect()
+        };
+        let sets = [months(&[6, 12, 24, 36, 60, 84, 120]), months(&[12, 36]), months(&[6, 12, 24, 36, 60])];
+        let settings = BootstrapSettings::default();
+        let mut compared = 0;
+        for d in &crate::curves::discount::test_curves(t) {
+            for (i, terms) in sets.iter().cycle().take(9).enumerate() {
+                let plan = BootstrapPlan::for_terms(t, terms, d, &cal, AccrualIntegration::Standard).unwrap();
+                let quotes: Vec<BootstrapQuote> = terms
+                    .iter()
+                    .enumerate()
+                    .map(|(k, &(tenor, maturity))| {
+                        let spread = 0.004 + 0.001 * (k + i) as f64;
+                        let quote = if (k + i) % 3 == 0 {
+                            CdsQuote::Upfront { upfront: (spread - 0.01) * tenor.years(), coupon: 0.01 }
+                        } else {
+                            CdsQuote::ParSpread(spread)
+                        };
+                        BootstrapQuote { tenor, quote, recovery: 0.25 + 0.05 * (k % 3) as f64, maturity }
+                    })
+                    .collect();
+                let fit = plan.solve(&quotes, &settings).unwrap();
+                assert!(fit.complete());
+                let on_plan = reprice_with_plan(&fit, &quotes, d, AccrualIntegration::Standard, Some(&plan));
+                let general = reprice(&fit, &quotes, d, AccrualIntegration::Standard);
+                assert_eq!(on_plan.len(), terms.len());
+                for (a, b) in on_plan.iter().zip(&general) {
+                    assert_eq!((a.quote_index, a.tenor, a.instrument), (b.quote_index, b.tenor, b.instrument));
+                    for (x, y) in [
+                        (a.market, b.market),
+                        (a.model, b.model),
+                        (a.residual_bp, b.residual_bp),
+                        (a.model_par_spread_bp, b.model_par_spread_bp),
+                        (a.risky_annuity, b.risky_annuity),
+                        (a.cash_settle_df, b.cash_settle_df),
+                    ] {
+                        assert_eq!(x.to_bits(), y.to_bits());
+                    }
+                    compared += 1;
+                }
+            }
+        }
+        assert!(compared > 80, "{compared}");
+    }
 }

@@ -108,20 +108,26 @@ impl HazardCurve {
     /// [`HazardCurve::log_survival_at`] at each of `times`, which must be in increasing order:
     /// the same numbers, the nodes walked once instead of searched per time.
     pub fn log_survival_at_sorted(&self, times: &[f64]) -> Vec<f64> {
+        let mut out = Vec::with_capacity(times.len());
+        self.log_survival_at_sorted_into(times, &mut out);
+        out
+    }
+
+    /// [`HazardCurve::log_survival_at_sorted`] into `out` (cleared first), for callers that
+    /// keep the vector from one curve to the next.
+    pub fn log_survival_at_sorted_into(&self, times: &[f64], out: &mut Vec<f64>) {
         debug_assert!(times.windows(2).all(|w| w[0] <= w[1]), "times out of order");
+        out.clear();
         let mut i = 0;
-        times
-            .iter()
-            .map(|&t| {
-                if t <= 0.0 {
-                    return -0.0;
-                }
-                while i < self.times.len() && self.times[i] < t {
-                    i += 1;
-                }
-                -self.integrated_in(i, t)
-            })
-            .collect()
+        out.extend(times.iter().map(|&t| {
+            if t <= 0.0 {
+                return -0.0;
+            }
+            while i < self.times.len() && self.times[i] < t {
+                i += 1;
+            }
+            -self.integrated_in(i, t)
+        }));
     }
 
     /// ln S(t).

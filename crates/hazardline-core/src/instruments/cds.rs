@@ -527,14 +527,33 @@ pub fn price_legs_set(
 /// last step of [`price_legs_set`], for a caller that already holds the plan (the bootstrap's
 /// shared plan reprices the curves it built without building the grid again).
 pub(crate) fn price_legs_on_plan(plan: &LegPlan, recoveries: &[f64], hazard: &HazardCurve) -> Vec<CdsLegs> {
-    let log_q: Vec<f64> = hazard.log_survival_at_sorted(&plan.times);
-    let mut pq: Vec<f64> = plan.log_dfs.iter().zip(&log_q).map(|(p, q)| p + q).collect();
-    crate::math::exp::exp_in_place(&mut pq);
-    plan.contracts
-        .iter()
-        .zip(recoveries)
-        .map(|(terms, &recovery)| terms_legs(plan, terms, recovery, &pq, &log_q))
-        .collect()
+    let mut legs = Vec::with_capacity(plan.contracts.len());
+    each_legs_on_plan(plan, |k| recoveries[k], hazard, |_, l| legs.push(l));
+    legs
+}
+
+/// The legs [`price_legs_on_plan`] gives, handed to `each` contract by contract (index in
+/// `plan.contracts`, legs) instead of collected; the curve's ln S and P S on the plan's grid
+/// go into vectors this thread keeps from one call to the next (repricing runs once per curve).
+pub(crate) fn each_legs_on_plan(
+    plan: &LegPlan,
+    recovery: impl Fn(usize) -> f64,
+    hazard: &HazardCurve,
+    mut each: impl FnMut(usize, CdsLegs),
+) {
+    thread_local! {
+        static GRID: std::cell::RefCell<(Vec<f64>, Vec<f64>)> = const { std::cell::RefCell::new((Vec::new(), Vec::new())) };
+    }
+    GRID.with(|cell| {
+        let (log_q, pq) = &mut *cell.borrow_mut();
+        hazard.log_survival_at_sorted_into(&plan.times, log_q);
+        pq.clear();
+        pq.extend(plan.log_dfs.iter().zip(log_q.iter()).map(|(p, q)| p + q));
+        crate::math::exp::exp_in_place(pq);
+        for (k, terms) in plan.contracts.iter().enumerate() {
+            each(k, terms_legs(plan, terms, recovery(k), pq, log_q));
+        }
+    })
 }
 
 /// The legs of `terms` (a contract of `plan`) on the one-node hazard curve of hazard `h` and
@@ -812,5 +831,57 @@ pub mod quoted_spread {
             }
             assert_eq!(compared, 2 * 3 * 6 * 7);
         }
+    }
+}
+
+#[cfg(test)]
+mod plan_legs_tests {
+    use super::*;
+    use crate::time::{Calendar, Tenor};
+    use chrono::NaiveDate;
+
+    /// The legs handed over one by one on the thread's kept grid vectors are the legs of the
+    /// collecting form (ln S on the grid, P S, their exponentials, each contract's terms), bit
+    /// for bit: a long plan then shorter ones in turn (so the kept vectors hold a longer
+    /// grid's values when a shorter one comes), three curves, a recovery per contract.
+    #[test]
+    fn legs_handed_over_are_the_collected_legs() {
+        let t = NaiveDate::from_ymd_opt(2024, 3, 20).unwrap();
+        let cal = Calendar::weekends_only();
+        let contract = |m: u32| CdsContract::standard(t, Tenor::from_months(m).unwrap(), &cal).unwrap();
+        let sets: [Vec<u32>; 3] = [vec![6, 12, 24, 36, 60, 84, 120], vec![12, 36], vec![6, 12, 24, 36, 60]];
+        let bits = |l: &CdsLegs| {
+            [l.protection, l.premium01, l.accrual_on_default01, l.rebate01, l.cash_settle_df].map(f64::to_bits)
+        };
+        let mut compared = 0;
+        for d in &crate::curves::discount::test_curves(t) {
+            for (i, months) in sets.iter().cycle().take(9).enumerate() {
+                let contracts: Vec<CdsContract> = months.iter().map(|&m| contract(m)).collect();
+                let refs: Vec<&CdsContract> = contracts.iter().collect();
+                let times: Vec<f64> = months.iter().map(|&m| f64::from(m) / 12.0 + 0.01).collect();
+                let hazards: Vec<f64> = (0..months.len()).map(|k| 0.002 + 0.004 * ((k + i) % 4) as f64).collect();
+                let curve = HazardCurve::new(t, times, hazards).unwrap();
+                let plan = LegPlan::build(t, &refs, d, curve.node_times(), AccrualIntegration::Standard);
+                let recoveries: Vec<f64> = (0..months.len()).map(|k| 0.2 + 0.1 * (k % 4) as f64).collect();
+                let log_q: Vec<f64> = curve.log_survival_at_sorted(&plan.times);
+                let mut pq: Vec<f64> = plan.log_dfs.iter().zip(&log_q).map(|(p, q)| p + q).collect();
+                crate::math::exp::exp_in_place(&mut pq);
+                let mut seen = 0;
+                each_legs_on_plan(
+                    &plan,
+                    |k| recoveries[k],
+                    &curve,
+                    |k, legs| {
+                        let want = terms_legs(&plan, &plan.contracts[k], recoveries[k], &pq, &log_q);
+                        assert_eq!(k, seen);
+                        assert_eq!(bits(&legs), bits(&want), "contract {k} of {months:?}");
+                        seen += 1;
+                    },
+                );
+                assert_eq!(seen, months.len());
+                compared += seen;
+            }
+        }
+        assert!(compared > 80, "{compared}");
     }
 }

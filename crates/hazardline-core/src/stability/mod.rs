@@ -27,7 +27,9 @@ pub mod summary;
 pub use breaks::{BreakRow, BreakStatus};
 pub use cusum::{CusumLevel, CusumScope, CusumTarget};
 pub use flags::FlagRow;
-pub use inputs::{spread_move, CalibrationCounts, InputSummary, MarketMove, Observation, PanelBuilder, SpreadEdge};
+pub use inputs::{
+    spread_move, spread_move_sorted, CalibrationCounts, InputSummary, MarketMove, Observation, PanelBuilder, SpreadEdge,
+};
 pub use metrics::{CrossSectionRow, Scope, StabilityRow, CALIBRATION_SERIES};
 pub use period::{Period, ReviewPeriod};
 pub use population::PsiRow;
