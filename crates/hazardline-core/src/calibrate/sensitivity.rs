@@ -22,7 +22,7 @@
 
 use super::bootstrap::{bootstrap, BootstrapError, BootstrapPlan, BootstrapQuote, BootstrapSettings, InfeasiblePolicy};
 use crate::curves::{year_time, DiscountCurve, HazardCurve};
-use crate::instruments::cds::{price_legs, AccrualIntegration, CdsContract, CdsQuote};
+use crate::instruments::cds::{price_legs, price_legs_on_plan, AccrualIntegration, CdsContract, CdsQuote, LegPlan};
 use crate::time::{Calendar, Tenor};
 use chrono::NaiveDate;
 
@@ -164,16 +164,50 @@ impl OwnedPlans {
     }
 }
 
+/// The standard 5Y contract of a curve's trade date and its leg grids, each made once per
+/// curve instead of once per shift: a grid by (the discount curve: the day's or the shifted
+/// one, the accrual variant, the hazard curve's node times), so that every shift that prices
+/// on the same inputs prices on the grid `price_legs` would build for them.
+#[derive(Default)]
+struct FiveYear {
+    /// None until asked for; then the contract, or None when it has no schedule.
+    contract: Option<Option<CdsContract>>,
+    grids: Vec<((bool, AccrualIntegration, Vec<u64>), LegPlan)>,
+}
+
 fn measures(
     c: &CurveInputs<'_>,
     curve: &HazardCurve,
-    discount: &DiscountCurve,
+    (discount, shifted): (&DiscountCurve, bool),
     recovery: f64,
     accrual: AccrualIntegration,
+    five: &mut FiveYear,
 ) -> Option<Measures> {
-    let five = Tenor::from_months(60)?;
-    let contract = CdsContract::standard(c.trade_date, five, c.calendar).ok()?;
-    let legs = price_legs(&contract, recovery, discount, curve, accrual).ok()?;
+    let contract = five
+        .contract
+        .get_or_insert_with(|| {
+            let five = Tenor::from_months(60)?;
+            CdsContract::standard(c.trade_date, five, c.calendar).ok()
+        })
+        .as_ref()?;
+    // `price_legs`'s own check: every curve of the trade date.
+    let trade = contract.trade_date;
+    if discount.reference() != trade || curve.reference() != trade {
+        return None;
+    }
+    let nodes = curve.node_times();
+    let same = |(s, a, n): &(bool, AccrualIntegration, Vec<u64>)| {
+        *s == shifted && *a == accrual && n.len() == nodes.len() && n.iter().zip(nodes).all(|(n, t)| *n == t.to_bits())
+    };
+    let at = match five.grids.iter().position(|(k, _)| same(k)) {
+        Some(i) => i,
+        None => {
+            let grid = LegPlan::build(trade, &[contract], discount, nodes, accrual);
+            five.grids.push(((shifted, accrual, nodes.iter().map(|t| t.to_bits()).collect()), grid));
+            five.grids.len() - 1
+        }
+    };
+    let legs = price_legs_on_plan(&five.grids[at].1, &[recovery], curve)[0];
     Some(Measures {
         pd_1y: 1.0 - curve.survival_at(1.0),
         hazard_5y: curve.hazard_at(5.0),
@@ -205,9 +239,11 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
             None => bootstrap(c.trade_date, quotes, discount, c.calendar, settings),
         }
     };
+    // The 5Y contract and its grids, shared by the shifts (see `FiveYear`).
+    let five = std::cell::RefCell::new(FiveYear::default());
     let result = |shift: Shift,
                   fitted: &Result<super::bootstrap::CurveFit, BootstrapError>,
-                  discount: &DiscountCurve,
+                  discount: (&DiscountCurve, bool),
                   settings: &BootstrapSettings,
                   recovery: f64|
      -> ShiftResult {
@@ -218,24 +254,25 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
         };
         let floored = fit.nodes.iter().filter(|n| n.status == super::NodeStatus::Floored).count();
         match (&fit.curve, fit.complete() && !fit.failed) {
-            (Some(h), true) => match measures(c, h, discount, recovery, settings.accrual) {
+            (Some(h), true) => match measures(c, h, discount, recovery, settings.accrual, &mut five.borrow_mut()) {
                 Some(m) => done("ok", Some(m), floored),
                 None => done("not_built", None, floored),
             },
             _ => done("failed", None, floored),
         }
     };
-    let run =
-        |shift: Shift,
-         quotes: &[BootstrapQuote],
-         discount: &DiscountCurve,
-         settings: &BootstrapSettings,
-         recovery: f64,
-         plan: Option<&PlanResult>|
-         -> ShiftResult { result(shift, &fit(quotes, discount, settings, plan), discount, settings, recovery) };
+    let run = |shift: Shift,
+               quotes: &[BootstrapQuote],
+               (discount, shifted): (&DiscountCurve, bool),
+               settings: &BootstrapSettings,
+               recovery: f64,
+               plan: Option<&PlanResult>|
+     -> ShiftResult {
+        result(shift, &fit(quotes, discount, settings, plan), (discount, shifted), settings, recovery)
+    };
     let mut out = Vec::with_capacity(Shift::ALL.len());
     let base_fit = fit(c.quotes, c.discount, c.settings, c.plans.base);
-    out.push(result(Shift::Base, &base_fit, c.discount, c.settings, recovery));
+    out.push(result(Shift::Base, &base_fit, (c.discount, false), c.settings, recovery));
     // The base curve, for the risky annuities of the upfront quotes' spread shift.
     let base_curve = base_fit.ok().and_then(|f| f.curve);
     for shift in &Shift::ALL[1..] {
@@ -262,7 +299,7 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
                     })
                     .collect();
                 match bumped {
-                    Some(q) => run(*shift, &q, c.discount, c.settings, recovery, c.plans.base),
+                    Some(q) => run(*shift, &q, (c.discount, false), c.settings, recovery, c.plans.base),
                     None => ShiftResult { shift: *shift, status: "not_built", measures: None, floored_nodes: 0 },
                 }
             }
@@ -273,7 +310,7 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
                 if q.iter().any(|q| !(0.0..1.0).contains(&q.recovery)) {
                     ShiftResult { shift: *shift, status: "out_of_range", measures: None, floored_nodes: 0 }
                 } else {
-                    run(*shift, &q, c.discount, c.settings, recovery + d, c.plans.base)
+                    run(*shift, &q, (c.discount, false), c.settings, recovery + d, c.plans.base)
                 }
             }
             Shift::DiscountUp1bp => {
@@ -286,7 +323,7 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
                     }
                 };
                 match curve {
-                    Some(d) => run(*shift, c.quotes, d, c.settings, recovery, plan),
+                    Some(d) => run(*shift, c.quotes, (d, true), c.settings, recovery, plan),
                     None => ShiftResult { shift: *shift, status: "not_built", measures: None, floored_nodes: 0 },
                 }
             }
@@ -299,7 +336,14 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
                 if accrual == c.settings.accrual {
                     ShiftResult { shift: *shift, status: "not_applicable", measures: None, floored_nodes: 0 }
                 } else {
-                    run(*shift, c.quotes, c.discount, &BootstrapSettings { accrual, ..*c.settings }, recovery, plan)
+                    run(
+                        *shift,
+                        c.quotes,
+                        (c.discount, false),
+                        &BootstrapSettings { accrual, ..*c.settings },
+                        recovery,
+                        plan,
+                    )
                 }
             }
             Shift::OtherInfeasiblePolicy => {
@@ -310,7 +354,7 @@ pub fn curve_sensitivities(c: &CurveInputs<'_>) -> Vec<ShiftResult> {
                 run(
                     *shift,
                     c.quotes,
-                    c.discount,
+                    (c.discount, false),
                     &BootstrapSettings { infeasible, ..*c.settings },
                     recovery,
                     c.plans.base,
@@ -411,6 +455,46 @@ mod tests {
             assert!(own.iter().filter(|r| r.status == "ok").count() >= 6, "{own:?}");
             assert_eq!(format!("{own:?}"), format!("{shared:?}"));
         }
+    }
+
+    /// The measures on the contract and grids kept for the curve's shifts are those of
+    /// `price_legs` on a contract and grid built for each: one kept set over curves of
+    /// different node times, the day's and the shifted discount curve, both accrual variants
+    /// and two recoveries, asked in an order that finds kept grids and makes new ones.
+    #[test]
+    fn measures_on_kept_grids_are_the_priced_legs() {
+        let t = NaiveDate::from_ymd_opt(2024, 3, 4).unwrap();
+        let cal = Calendar::weekends_only();
+        let d = DiscountCurve::flat(t, 0.03);
+        let up = shifted_discount(&d, 1.0).unwrap();
+        let s = BootstrapSettings::default();
+        let q = quotes(120.0, 0.4);
+        let c = inputs(&q, &d, &cal, &s);
+        let curves = [
+            HazardCurve::new(t, vec![1.0, 3.0, 5.0, 7.0], vec![0.01, 0.02, 0.025, 0.03]).unwrap(),
+            HazardCurve::new(t, vec![1.0, 3.0, 5.0, 7.0], vec![0.011, 0.019, 0.026, 0.03]).unwrap(),
+            HazardCurve::new(t, vec![0.5, 2.0, 5.5], vec![0.004, 0.05, 0.02]).unwrap(),
+        ];
+        let mut five = FiveYear::default();
+        let contract = CdsContract::standard(t, Tenor::from_months(60).unwrap(), &cal).unwrap();
+        let mut asked = 0;
+        for round in 0..2 {
+            for (i, h) in curves.iter().enumerate() {
+                for (disc, shifted) in [(&d, false), (&up, true)] {
+                    for accrual in [AccrualIntegration::Standard, AccrualIntegration::Exact] {
+                        let recovery = if (i + round) % 2 == 0 { 0.4 } else { 0.35 };
+                        let got = measures(&c, h, (disc, shifted), recovery, accrual, &mut five).unwrap();
+                        let legs = price_legs(&contract, recovery, disc, h, accrual).unwrap();
+                        assert_eq!(got.upfront_5y.to_bits(), legs.upfront(c.coupon).to_bits());
+                        assert_eq!(got.pd_1y.to_bits(), (1.0 - h.survival_at(1.0)).to_bits());
+                        assert_eq!(got.hazard_5y.to_bits(), h.hazard_at(5.0).to_bits());
+                        asked += 1;
+                    }
+                }
+            }
+        }
+        // Two node-time sets x two discount curves x two accrual variants.
+        assert_eq!((asked, five.grids.len()), (24, 8));
     }
 
     fn quotes(spread_bp: f64, recovery: f64) -> Vec<BootstrapQuote> {
