@@ -371,14 +371,23 @@ pub fn check_cds(
 }
 
 /// The runs of one entity in `order` (the series order: entity ids ascending first), as
-/// ranges of it; each run's end found by halving, so that only a few rows per entity are read
-/// (the order visits the rows out of their memory order).
+/// ranges of it; each run's end found by galloping then halving from the run's start, so that
+/// only a few rows per entity are read (the order visits the rows out of their memory order),
+/// about 2 log2 of the run's length, whether the panel has a few long runs or many short ones.
 fn entity_runs(rows: &[CdsQuoteRow], order: &[u32]) -> Vec<std::ops::Range<usize>> {
     let mut runs = Vec::new();
     let mut i = 0;
     while i < order.len() {
         let entity = rows[order[i] as usize].entity;
-        let j = i + order[i..].partition_point(|&k| rows[k as usize].entity <= entity);
+        let same = |k: &u32| rows[*k as usize].entity <= entity;
+        // order[i..i + step] holds the entity's rows only; double the step until it may not.
+        let mut step = 1;
+        while i + step < order.len() && same(&order[i + step]) {
+            step *= 2;
+        }
+        let from = i + step / 2 + 1;
+        let to = (i + step + 1).min(order.len());
+        let j = from.min(to) + order[from.min(to)..to].partition_point(same);
         runs.push(i..j);
         i = j;
     }
@@ -673,6 +682,61 @@ mod tests {
     use crate::ingest::cds::CdsQuoteRow;
     use hazardline_core::instruments::CdsQuote;
     use hazardline_core::time::Tenor;
+
+    /// The entity runs found by galloping are those one halving over the rest of the order
+    /// finds: runs of one row, of powers of two and one off them, one long run, at the start
+    /// and at the end of the order.
+    #[test]
+    fn entity_runs_by_galloping_are_the_halved_ones() {
+        let row = |entity: u32| CdsQuoteRow {
+            date: chrono::NaiveDate::from_ymd_opt(2024, 1, 2).unwrap(),
+            entity,
+            currency: 0,
+            tenor: Tenor::from_months(60).unwrap(),
+            quote: CdsQuote::ParSpread(0.01),
+            recovery: f64::NAN,
+            tier: 0,
+            file: 0,
+            row: 1,
+            flags: 0,
+            quoted_coupon_bp: f32::NAN,
+            maturity: None,
+        };
+        let halved = |rows: &[CdsQuoteRow], order: &[u32]| {
+            let mut runs = Vec::new();
+            let mut i = 0;
+            while i < order.len() {
+                let entity = rows[order[i] as usize].entity;
+                let j = i + order[i..].partition_point(|&k| rows[k as usize].entity <= entity);
+                runs.push(i..j);
+                i = j;
+            }
+            runs
+        };
+        let lengths: Vec<Vec<usize>> = vec![
+            vec![],
+            vec![1],
+            vec![1, 1, 1],
+            vec![2, 3, 4, 5, 7, 8, 9, 15, 16, 17, 1],
+            vec![1000, 1, 31, 32, 33, 63, 64, 65, 2],
+            vec![3, 5000],
+        ];
+        let mut compared = 0;
+        for lens in &lengths {
+            let mut rows = Vec::new();
+            for (e, &n) in lens.iter().enumerate() {
+                rows.extend((0..n).map(|_| row(e as u32 * 3)));
+            }
+            // The order visits the rows out of their memory order, entity ids ascending.
+            let mut order: Vec<u32> = (0..rows.len() as u32).rev().collect();
+            order.sort_by_key(|&k| rows[k as usize].entity);
+            let runs = entity_runs(&rows, &order);
+            assert_eq!(runs, halved(&rows, &order));
+            assert_eq!(runs.iter().map(|r| r.len()).collect::<Vec<_>>(), *lens);
+            compared += runs.len();
+        }
+        assert_eq!(compared, 26);
+    }
 
     /// A panel of `n` rows over 37 entities, two currencies, two tiers, five tenors and dates
     /// over three years, in three files, every field drawn at random (xorshift); in the
