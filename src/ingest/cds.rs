@@ -767,6 +767,26 @@ fn parse_row(
         flags: 0,
     })
 }
+/// A 5Y par-spread row of 100 bp on `date` for `entity` (ids 0 for the rest), data row `row`:
+/// for tests that need rows and not their values.
+#[cfg(test)]
+pub(crate) fn plain_row(date: NaiveDate, entity: u32, row: u32) -> CdsQuoteRow {
+    CdsQuoteRow {
+        date,
+        entity,
+        currency: 0,
+        tenor: Tenor::from_months(60).expect("5Y"),
+        quote: CdsQuote::ParSpread(0.01),
+        recovery: f64::NAN,
+        tier: 0,
+        file: 0,
+        row,
+        flags: 0,
+        quoted_coupon_bp: f32::NAN,
+        maturity: None,
+    }
+}
+
 #[cfg(test)]
 mod size_probe {
     /// The panel holds tens of millions of rows: the row stays at 72 bytes.

@@ -688,20 +688,8 @@ mod tests {
     /// and at the end of the order.
     #[test]
     fn entity_runs_by_galloping_are_the_halved_ones() {
-        let row = |entity: u32| CdsQuoteRow {
-            date: chrono::NaiveDate::from_ymd_opt(2024, 1, 2).unwrap(),
-            entity,
-            currency: 0,
-            tenor: Tenor::from_months(60).unwrap(),
-            quote: CdsQuote::ParSpread(0.01),
-            recovery: f64::NAN,
-            tier: 0,
-            file: 0,
-            row: 1,
-            flags: 0,
-            quoted_coupon_bp: f32::NAN,
-            maturity: None,
-        };
+        let day = chrono::NaiveDate::from_ymd_opt(2024, 1, 2).unwrap();
+        let row = |entity: u32| crate::ingest::cds::plain_row(day, entity, 1);
         let halved = |rows: &[CdsQuoteRow], order: &[u32]| {
             let mut runs = Vec::new();
             let mut i = 0;

@@ -967,22 +967,7 @@ mod tests {
     fn rows_in_pieces_cut_at_block_starts() {
         let d = NaiveDate::from_ymd_opt(2024, 3, 4).unwrap();
         let n = 3 * ROWS_PER_PIECE + 17;
-        let rows: Vec<CdsQuoteRow> = (0..n)
-            .map(|i| CdsQuoteRow {
-                date: d,
-                entity: 0,
-                currency: 0,
-                tenor: Tenor::from_months(60).unwrap(),
-                quote: CdsQuote::ParSpread(0.01),
-                recovery: f64::NAN,
-                tier: 0,
-                file: 0,
-                row: i as u32,
-                flags: 0,
-                quoted_coupon_bp: f32::NAN,
-                maturity: None,
-            })
-            .collect();
+        let rows: Vec<CdsQuoteRow> = (0..n).map(|i| crate::ingest::cds::plain_row(d, 0, i as u32)).collect();
         let block = ROWS_PER_PIECE / 3 + 5;
         let starts: Vec<usize> = (0..n).step_by(block).collect();
         let pieces = rows_in_pieces(rows, starts.iter().copied());

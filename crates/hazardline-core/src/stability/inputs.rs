@@ -413,6 +413,18 @@ pub fn spread_move_sorted(
 mod tests {
     use super::*;
 
+    /// Spreads (10 to 1,000 bp) at the tenors of 6M to 10Y, each tenor there with probability
+    /// `quoted`.
+    fn random_spreads(next: &mut dyn FnMut() -> f64, quoted: f64) -> BTreeMap<u32, f64> {
+        let mut m = BTreeMap::new();
+        for t in [6u32, 12, 24, 36, 60, 84, 120] {
+            if next() < quoted {
+                m.insert(t, 10f64.powf(1.0 + 2.0 * next()));
+            }
+        }
+        m
+    }
+
     /// The move on sorted pairs is the move on maps, bit for bit: tenor sets that overlap in
     /// part, in full and not at all, and empty ones.
     #[test]
@@ -422,16 +434,7 @@ mod tests {
         let entity: Arc<str> = "Alder".into();
         let (mut some, mut none) = (0, 0);
         for _ in 0..2_000 {
-            let map = |next: &mut dyn FnMut() -> f64| -> BTreeMap<u32, f64> {
-                let mut m = BTreeMap::new();
-                for t in [6u32, 12, 24, 36, 60, 84, 120] {
-                    if next() < 0.6 {
-                        m.insert(t, 10f64.powf(1.0 + 2.0 * next()));
-                    }
-                }
-                m
-            };
-            let (prev, now) = (map(&mut next), map(&mut next));
+            let (prev, now) = (random_spreads(&mut next, 0.6), random_spreads(&mut next, 0.6));
             let pairs = |m: &BTreeMap<u32, f64>| m.iter().map(|(&t, &s)| (t, s)).collect::<Vec<_>>();
             let want = spread_move(&entity, d("2024-01-02"), &prev, &now);
             let got = spread_move_sorted(&entity, d("2024-01-02"), &pairs(&prev), &pairs(&now));
@@ -465,16 +468,7 @@ mod tests {
         let entity: Arc<str> = "Alder".into();
         let mut compared = 0;
         for _ in 0..2_000 {
-            let map = |next: &mut dyn FnMut() -> f64| -> BTreeMap<u32, f64> {
-                let mut m = BTreeMap::new();
-                for t in [6u32, 12, 24, 36, 60, 84, 120] {
-                    if next() < 0.7 {
-                        m.insert(t, 10f64.powf(1.0 + 2.0 * next()));
-                    }
-                }
-                m
-            };
-            let (prev, now) = (map(&mut next), map(&mut next));
+            let (prev, now) = (random_spreads(&mut next, 0.7), random_spreads(&mut next, 0.7));
             let changes: Vec<f64> = now.iter().filter_map(|(t, s)| prev.get(t).map(|p| (s - p).abs())).collect();
             let got = spread_move(&entity, d("2024-01-02"), &prev, &now);
             if changes.is_empty() {
