@@ -177,16 +177,13 @@ fn sorted_spreads(quotes: &[crate::calibrate::bootstrap::BootstrapQuote], out: &
     if out.windows(2).any(|w| w[0].0 >= w[1].0) {
         // Stable: the quotes of one tenor keep their order, and the last one stays.
         out.sort_by_key(|&(t, _)| t);
-        let mut kept = 0;
-        for i in 0..out.len() {
-            if kept > 0 && out[kept - 1].0 == out[i].0 {
-                out[kept - 1] = out[i];
-            } else {
-                out[kept] = out[i];
-                kept += 1;
+        out.dedup_by(|later, kept| {
+            let same = later.0 == kept.0;
+            if same {
+                *kept = *later;
             }
-        }
-        out.truncate(kept);
+            same
+        });
     }
 }
 

@@ -535,6 +535,7 @@ pub(crate) fn price_legs_on_plan(plan: &LegPlan, recoveries: &[f64], hazard: &Ha
 /// The legs [`price_legs_on_plan`] gives, handed to `each` contract by contract (index in
 /// `plan.contracts`, legs) instead of collected; the curve's ln S and P S on the plan's grid
 /// go into vectors this thread keeps from one call to the next (repricing runs once per curve).
+/// `each` must not price on a plan itself: the kept vectors are in use while it runs.
 pub(crate) fn each_legs_on_plan(
     plan: &LegPlan,
     recovery: impl Fn(usize) -> f64,
